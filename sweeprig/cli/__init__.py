@@ -1,0 +1,1 @@
+"""The command line: a thin Typer layer over the Python API."""

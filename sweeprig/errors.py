@@ -1,0 +1,59 @@
+"""The project's error tree.
+
+Every error a user can see says *where* (file:line:key, or instrument role and command),
+*what* is wrong and *how to fix it*. Library exceptions are translated into these at the
+boundary (``raise ... from exc``) so the CLI can print one clear message and exit non-zero.
+"""
+
+from __future__ import annotations
+
+
+class SweeprigError(Exception):
+    """Root of every error sweeprig raises on purpose.
+
+    ``where``: the place (``"bench.toml:12: roles.rf.resource"``, ``"role 'sa', command 'FREQ:SPAN 1e9'"``).
+    ``what``: what is wrong, one sentence.
+    ``fix``: how to fix it, one sentence (optional).
+    """
+
+    exit_code = 2
+
+    def __init__(self, what: str, *, where: str | None = None, fix: str | None = None) -> None:
+        self.what = what
+        self.where = where
+        self.fix = fix
+        super().__init__(self.message())
+
+    def message(self) -> str:
+        head = f"{self.where}: {self.what}" if self.where else self.what
+        return f"{head}\n  fix: {self.fix}" if self.fix else head
+
+
+class InputError(SweeprigError):
+    """A sequence, bench, part, driver-profile or data file is wrong."""
+
+
+class UnitError(InputError):
+    """A quantity such as "2.4 GHz" could not be parsed or has the wrong dimension."""
+
+
+class SafetyLimitError(SweeprigError):
+    """A planned or requested setting would exceed a configured safety limit."""
+
+    exit_code = 3
+
+
+class InstrumentError(SweeprigError):
+    """An instrument refused a command, reported an error, or did not answer."""
+
+    exit_code = 4
+
+
+class TransportError(InstrumentError):
+    """The connection to an instrument failed (timeout, dropped socket, garbled reply)."""
+
+
+class StoreError(SweeprigError):
+    """The run store cannot be opened, read or written."""
+
+    exit_code = 5

@@ -1,0 +1,1 @@
+"""The simulated bench: a behavioural mixer model behind real SCPI sockets."""
