@@ -11,7 +11,8 @@ from __future__ import annotations
 class SweeprigError(Exception):
     """Root of every error sweeprig raises on purpose.
 
-    ``where``: the place (``"bench.toml:12: roles.rf.resource"``, ``"role 'sa', command 'FREQ:SPAN 1e9'"``).
+    ``where``: the place (``"bench.toml:12: roles.rf.resource"``,
+    ``"role 'sa', command 'FREQ:SPAN 1e9'"``).
     ``what``: what is wrong, one sentence.
     ``fix``: how to fix it, one sentence (optional).
     """

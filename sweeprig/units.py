@@ -144,7 +144,8 @@ def _convert(number: float, unit: str, kind: str, raw: object, where: str | None
             return (number - 32.0) * 5.0 / 9.0
     elif key in _LINEAR.get(kind, {}):
         return number * _LINEAR[kind][key]
-    raise _error(raw, kind, where, f"has unit {unit!r}, which is not a {kind.replace('_', ' ')} unit")
+    dimension = kind.replace("_", " ")
+    raise _error(raw, kind, where, f"has unit {unit!r}, which is not a {dimension} unit")
 
 
 def _error(raw: object, kind: str, where: str | None, problem: str) -> UnitError:

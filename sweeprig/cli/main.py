@@ -4,18 +4,27 @@ from __future__ import annotations
 
 import typer
 
+from sweeprig.cli import check_cmd, run_cmd, scan_cmd, store_cmd
+
 app = typer.Typer(
     name="sweeprig",
     help="Characterise frequency mixers on a bench, unattended: run sequence files against "
     "real instruments or the simulated bench, and reduce the captures to datasheet figures.",
     no_args_is_help=True,
     add_completion=False,
+    pretty_exceptions_enable=False,
 )
 
-
-@app.callback()
-def _root() -> None:
-    """sweeprig command line."""
+run_cmd.register(app)
+check_cmd.register(app)
+store_cmd.register(app)
+scan_cmd.register(app)
+try:  # the simulated bench's commands (sweeprig sim ...)
+    from sweeprig.cli import sim_cmd
+except ImportError:  # pragma: no cover - only while the simulator is being assembled
+    sim_cmd = None  # type: ignore[assignment]
+if sim_cmd is not None:
+    app.add_typer(sim_cmd.app, name="sim")
 
 
 def main() -> None:

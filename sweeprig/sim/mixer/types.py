@@ -7,6 +7,7 @@ frequencies in Hz, temperatures in degC, voltages in V, currents in A, phases in
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from typing import NamedTuple
 
 
 @dataclass(frozen=True)
@@ -33,13 +34,16 @@ class OperatingPoint:
     supply_v: float = 3.3
 
 
-@dataclass(frozen=True)
-class Product:
+class Product(NamedTuple):
     """One spectral line at a mixer port.
 
     ``orders`` are the signed multipliers of the input tones that made it, in the order
     (LO, RF1, RF2, ...): the line sits at |sum(orders[k] * f[k])|. ``power_dbm`` is the power
     delivered into a matched 50 ohm load at that port.
+
+    A named tuple (immutable, built positionally or by keyword, fields read by name): a
+    response holds hundreds of lines and a tuple is several times cheaper to build than a
+    frozen dataclass. Use ``product._replace(power_dbm=...)`` for a changed copy.
     """
 
     freq_hz: float
@@ -53,6 +57,8 @@ class MixerResponse:
 
     ``if_port``: lines at the output (IF for a downconverter) port.
     ``rf_port``: lines leaving the RF (input) port: LO leakage (LO→RF isolation) and reflections.
+    For an upconverter the fields keep their names: ``if_port`` holds the output (RF) port's
+    lines and ``rf_port`` the input (IF) port's lines.
     ``lo_port``: lines leaving the LO port (RF→LO leakage), may be empty.
     ``if_noise_dbm_per_hz``: output noise density at the IF port (flat over the IF band).
     ``supply_current_a``: DC current drawn from the supply.

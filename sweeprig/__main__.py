@@ -1,0 +1,5 @@
+"""``python -m sweeprig``: the command line."""
+
+from sweeprig.cli.main import main
+
+main()

@@ -1,0 +1,310 @@
+"""Capture tables: the column vocabulary, checks, and the per-point ("wide") view.
+
+A capture table is tidy: one row per reading. Columns (SI units, powers in dBm at the DUT
+port planes, already path-loss corrected):
+
+==================  =========================================================================
+column              meaning
+==================  =========================================================================
+point               run-store point index (int)
+study               name of the study the point belongs to (str)
+temperature_c       DUT temperature, °C
+supply_v            supply voltage, V
+lo_freq_hz          LO frequency, Hz;  lo_power_dbm: LO power at the LO port, dBm
+rf_freq_hz          RF tone 1 frequency, Hz;  rf_power_dbm: its power at the RF port, dBm
+rf2_freq_hz         RF tone 2 (two-tone tests; NaN or absent otherwise);  rf2_power_dbm
+reading             reading name: ``if``, ``lo_at_if``, ``lo_at_rf``, ``rf_at_if``, ``image``,
+                    ``spur``, ``im3_low``, ``im3_high``, ``im2_low``, ``im2_high``,
+                    ``supply_current``
+freq_hz             frequency the reading was taken at, Hz
+level_dbm           level at the DUT port, dBm (NaN for non-RF readings)
+noise_floor_dbm     analyzer displayed noise near the reading, same reference plane, dBm
+m, n                signed LO and RF multipliers of a spur: it sits at |m·f_LO + n·f_RF|
+overload            the analyzer reported input overload during this reading (bool)
+atten_check         this row is the repeat with 10 dB more input attenuation (bool)
+attenuation_db      analyzer input attenuation, dB (informative)
+value               reading in SI units for non-RF readings (``supply_current``: A)
+==================  =========================================================================
+
+Optional columns (``rf2_*``, ``noise_floor_dbm``, ``m``, ``n``, ``overload``,
+``atten_check``, ``attenuation_db``, ``value``) may be absent: they read as NaN / False.
+A NaN noise floor means "not recorded": the reading is then taken at face value.
+
+:func:`point_table` turns the readings of each point into one row with a column group per
+reading name (``if_level_dbm``, ``if_flags``, ``im3_low_atten_level_dbm``, ...), running the
+noise, overload and attenuation tests on the way. When a point has the same reading twice
+(for example a resumed run re-measured it), the later row wins.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from types import MappingProxyType
+
+import numpy as np
+import pandas as pd
+
+from sweeprig.analysis import validity
+from sweeprig.analysis.figures import (
+    ANALYZER_DISTORTION,
+    ATTEN_CARRIER_MOVED,
+    IN_NOISE,
+    MISSING_READING,
+    OVERLOAD,
+    flag_bit,
+    mask_where,
+)
+from sweeprig.errors import InputError
+
+POINT = "point"
+STUDY = "study"
+READING = "reading"
+FREQ = "freq_hz"
+LEVEL = "level_dbm"
+NOISE_FLOOR = "noise_floor_dbm"
+OVERLOAD_COL = "overload"
+ATTEN_CHECK = "atten_check"
+ATTENUATION = "attenuation_db"
+VALUE = "value"
+M = "m"
+N = "n"
+
+#: The settings of a point, in the order figures list them.
+CONDITION_COLUMNS: tuple[str, ...] = (
+    "temperature_c",
+    "supply_v",
+    "lo_freq_hz",
+    "lo_power_dbm",
+    "rf_freq_hz",
+    "rf_power_dbm",
+    "rf2_freq_hz",
+    "rf2_power_dbm",
+)
+
+READINGS: tuple[str, ...] = (
+    "if",
+    "lo_at_if",
+    "lo_at_rf",
+    "rf_at_if",
+    "image",
+    "spur",
+    "im3_low",
+    "im3_high",
+    "im2_low",
+    "im2_high",
+    "supply_current",
+)
+
+#: Other spellings of our column names that a capture table may use.
+COLUMN_ALIASES: Mapping[str, str] = MappingProxyType(
+    {
+        "point_index": POINT,
+        "reading_name": READING,
+        "name": READING,
+        "value_si": VALUE,
+        "attenuation_check": ATTEN_CHECK,
+    }
+)
+
+_REQUIRED = (POINT, STUDY, "temperature_c", "supply_v", "lo_freq_hz", "lo_power_dbm",
+             "rf_freq_hz", "rf_power_dbm", READING, FREQ, LEVEL)
+_OPTIONAL_FLOAT = ("rf2_freq_hz", "rf2_power_dbm", NOISE_FLOOR, ATTENUATION, VALUE, M, N)
+_OPTIONAL_BOOL = (OVERLOAD_COL, ATTEN_CHECK)
+_NUMERIC = (*CONDITION_COLUMNS, FREQ, LEVEL, NOISE_FLOOR, ATTENUATION, VALUE, M, N)
+
+CARRIER = "if"
+
+
+def column_arrays(
+    captures: pd.DataFrame, *, where: str = "captures", study: str | Sequence[str] | None = None
+) -> dict[str, np.ndarray]:
+    """Check a capture table and return its columns as numpy arrays (optional ones filled).
+
+    ``study`` keeps only the rows of that study (or those studies). Raises
+    :class:`~sweeprig.errors.InputError` naming the missing or mistyped column.
+    """
+    if not isinstance(captures, pd.DataFrame):
+        raise InputError(
+            f"expected a pandas DataFrame of captures, got {type(captures).__name__}",
+            where=where,
+            fix="pass the readings table of a run (one row per reading)",
+        )
+    names: dict[str, object] = {}
+    for column in captures.columns:
+        key = COLUMN_ALIASES.get(str(column), str(column))
+        if key not in names or str(column) == key:  # our own spelling wins over an alias
+            names[key] = column
+    missing = [c for c in _REQUIRED if c not in names]
+    if missing:
+        raise InputError(
+            f"the capture table has no column {', '.join(repr(c) for c in missing)}",
+            where=where,
+            fix="capture tables need the columns " + ", ".join(_REQUIRED),
+        )
+    rows: np.ndarray | slice = slice(None)
+    count = len(captures)
+    if study is not None:
+        wanted = [study] if isinstance(study, str) else list(study)
+        rows = captures[names[STUDY]].isin(wanted).to_numpy(dtype=bool)
+        count = int(rows.sum())
+    out: dict[str, np.ndarray] = {}
+    for col in (*_REQUIRED, *_OPTIONAL_FLOAT, *_OPTIONAL_BOOL):
+        if col not in names:
+            if col in _OPTIONAL_BOOL:
+                out[col] = np.zeros(count, dtype=bool)
+            else:
+                out[col] = np.full(count, np.nan)
+            continue
+        series = captures[names[col]]
+        if col in _NUMERIC or col == POINT:
+            types = pd.api.types
+            if not types.is_numeric_dtype(series) or types.is_bool_dtype(series):
+                raise InputError(
+                    f"column {col!r} holds {series.dtype} values, not numbers",
+                    where=where,
+                    fix=f"store {col!r} as numbers in SI units (see sweeprig.analysis.captures)",
+                )
+            values = series.to_numpy(dtype=float, na_value=np.nan)[rows]
+            out[col] = values
+        elif col in _OPTIONAL_BOOL:
+            out[col] = series.fillna(False).to_numpy(dtype=bool)[rows]
+        else:
+            codes, uniques = pd.factorize(series[rows] if study is not None else series)
+            labels = np.append(np.asarray(uniques, dtype=object), None)
+            out[col] = labels[codes]  # code -1 (missing) → None
+    if np.isnan(out[POINT]).any():
+        raise InputError(
+            "column 'point' has empty values",
+            where=where,
+            fix="every reading must carry the index of the point it belongs to",
+        )
+    out[POINT] = out[POINT].astype(np.int64)
+    return out
+
+
+def point_table(
+    captures: pd.DataFrame | Mapping[str, np.ndarray],
+    readings: Sequence[str] = ("if",),
+    *,
+    study: str | Sequence[str] | None = None,
+    where: str = "captures",
+) -> pd.DataFrame:
+    """One row per point: its study and conditions, and per reading name ``r`` the columns
+
+    ``r_level_dbm``, ``r_noise_floor_dbm``, ``r_freq_hz``, ``r_overload``, ``r_value``,
+    ``r_atten_level_dbm``, ``r_atten_noise_floor_dbm`` (the +10 dB attenuation repeat, NaN
+    when none), and ``r_flags``: a flag mask (see :mod:`sweeprig.analysis.figures`) with
+    ``missing_reading`` when the point has no such reading, ``in_noise`` when the level is
+    within 6 dB of its floor, ``overload``, and the attenuation test's
+    ``analyzer_distortion`` / ``atten_carrier_moved`` (the carrier is the ``if`` reading).
+    The ``if`` columns are always there (the ``if`` reading is the carrier of the
+    attenuation test). Rows are sorted by point index. ``captures`` may also be the arrays
+    of :func:`column_arrays` (already checked and filtered; ``study`` is then not applied).
+    """
+    cols = (
+        dict(captures)
+        if isinstance(captures, Mapping)
+        else column_arrays(captures, where=where, study=study)
+    )
+    point = cols[POINT]
+    codes, uniques = pd.factorize(point, sort=True)
+    n_points = len(uniques)
+    _, first_row = np.unique(codes, return_index=True)  # first row of every point
+    table: dict[str, np.ndarray] = {POINT: np.asarray(uniques, dtype=np.int64)}
+    table[STUDY] = cols[STUDY][first_row]
+    for col in CONDITION_COLUMNS:
+        table[col] = cols[col][first_row]
+    reading_codes, reading_names = pd.factorize(cols[READING])
+    name_to_code = {str(name): i for i, name in enumerate(reading_names)}
+    atten = cols[ATTEN_CHECK]
+    wanted = list(dict.fromkeys([CARRIER, *readings]))
+    for name in wanted:
+        code = name_to_code.get(name)
+        is_name = reading_codes == code if code is not None else np.zeros(codes.size, bool)
+        for repeat in (False, True):
+            rows = np.flatnonzero(is_name & (atten == repeat))
+            idx = codes[rows]
+            last = _last_row_per_code(idx, n_points)
+            present = last >= 0
+            take = rows[np.where(present, last, 0)] if rows.size else np.zeros_like(last)
+            prefix = f"{name}_atten_" if repeat else f"{name}_"
+            table[prefix + "level_dbm"] = np.where(present, cols[LEVEL][take], np.nan)
+            table[prefix + "noise_floor_dbm"] = np.where(present, cols[NOISE_FLOOR][take], np.nan)
+            table[prefix + "overload"] = present & cols[OVERLOAD_COL][take]
+            if not repeat:
+                table[prefix + "present"] = present
+                table[prefix + "freq_hz"] = np.where(present, cols[FREQ][take], np.nan)
+                table[prefix + "value"] = np.where(present, cols[VALUE][take], np.nan)
+    for name in wanted:
+        table[f"{name}_flags"] = reading_flags(table, name)
+    return pd.DataFrame(table)
+
+
+def reading_flags(table: Mapping[str, np.ndarray], name: str) -> np.ndarray:
+    """The flag mask of reading ``name`` at every point of a point table (see point_table)."""
+    level = np.asarray(table[f"{name}_level_dbm"], dtype=float)
+    floor = np.asarray(table[f"{name}_noise_floor_dbm"], dtype=float)
+    present = np.asarray(table[f"{name}_present"], dtype=bool)
+    flags = mask_where(~present, MISSING_READING)
+    flags |= mask_where(validity.in_noise(level, floor), IN_NOISE)
+    flags |= mask_where(np.asarray(table[f"{name}_overload"], dtype=bool), OVERLOAD)
+    distortion, carrier_moved = validity.attenuation_test(
+        level,
+        np.asarray(table[f"{name}_atten_level_dbm"], dtype=float),
+        np.asarray(table[f"{CARRIER}_level_dbm"], dtype=float),
+        np.asarray(table[f"{CARRIER}_atten_level_dbm"], dtype=float),
+        product_floor_dbm=floor,
+        product_atten_floor_dbm=np.asarray(table[f"{name}_atten_noise_floor_dbm"], dtype=float),
+    )
+    repeat_overload = np.asarray(table[f"{name}_atten_overload"], dtype=bool)
+    if name == CARRIER:
+        # The carrier's own test: it moved, so the analyzer is compressing on it.
+        flags |= mask_where(carrier_moved & ~repeat_overload, ATTEN_CARRIER_MOVED)
+    else:
+        flags |= mask_where(distortion & ~repeat_overload, ANALYZER_DISTORTION)
+        tested = np.isfinite(np.asarray(table[f"{name}_atten_level_dbm"], dtype=float))
+        flags |= mask_where(carrier_moved & tested, ATTEN_CARRIER_MOVED)
+    return flags
+
+
+def conditions_records(
+    table: pd.DataFrame | Mapping[str, np.ndarray],
+    rows: np.ndarray,
+    keys: Sequence[str] = (STUDY, *CONDITION_COLUMNS),
+) -> list[Mapping[str, float | str]]:
+    """Read-only condition mappings for the given rows: ``{key: value}``, NaN values left out.
+    """
+    rows = np.asarray(rows, dtype=np.int64)
+    kept: list[tuple[str, np.ndarray]] = []
+    partial = False
+    for key in keys:
+        values = np.asarray(table[key])[rows]
+        missing = pd.isna(values)
+        if rows.size and missing.all():
+            continue  # e.g. rf2_* of single-tone points
+        partial |= bool(missing.any())
+        kept.append((key, values))
+    names = [k for k, _ in kept]
+    columns = [v.tolist() for _, v in kept]
+    proxy = MappingProxyType
+    if not partial:
+        return [proxy(dict(zip(names, vals, strict=True))) for vals in zip(*columns, strict=True)]
+    return [
+        proxy({k: v for k, v in zip(names, vals, strict=True) if v == v and v is not None})
+        for vals in zip(*columns, strict=True)
+    ]
+
+
+def has_bit(mask: np.ndarray, name: str) -> np.ndarray:
+    """True where flag ``name`` is set in the flag-mask array ``mask``."""
+    return (np.asarray(mask, dtype=np.int64) & flag_bit(name)) != 0
+
+
+def _last_row_per_code(codes: np.ndarray, n_codes: int) -> np.ndarray:
+    """For each code 0..n_codes-1, the position of its last occurrence in ``codes`` (or -1)."""
+    out = np.full(n_codes, -1, dtype=np.int64)
+    if codes.size:
+        reversed_codes = codes[::-1]
+        uniq, first_in_reversed = np.unique(reversed_codes, return_index=True)
+        out[uniq] = codes.size - 1 - first_in_reversed
+    return out

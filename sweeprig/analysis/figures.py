@@ -1,0 +1,351 @@
+"""The result type of the analysis: a :class:`Figure`, and the vocabulary of its flags.
+
+A figure is one datasheet number (or bound) with everything needed to judge it: the value,
+its unit, whether it is a bound, the fixed conditions it was measured under, the validity
+flags raised while computing it and the run-store point indices it came from.
+
+Bounds
+------
+``bound=None``: ``value`` is a measured number.
+``bound="<"``: the true value is below ``value`` (e.g. a spur in the analyzer noise,
+"< -80 dBc": the displayed level is an upper bound of the product).
+``bound=">"``: the true value is above ``value`` (e.g. "> +12 dBm" when the power sweep did
+not reach 1 dB compression, or an isolation whose leakage was in the noise).
+
+Internally the maths carries bounds as small integers (:data:`BOUND_NONE`,
+:data:`BOUND_BELOW` for "<", :data:`BOUND_ABOVE` for ">") and flags as bit masks, so whole
+tables can be judged at once; :func:`make_figures` turns those arrays into figures.
+
+Flags (sweeprig's own names)
+----------------------------
+``in_noise``
+    A contributing product was within 6 dB of its noise floor: its displayed level is only an
+    upper bound, so the figure is reported as a bound, not a number.
+``overload``
+    The analyzer reported input overload on a contributing reading.
+``analyzer_distortion``
+    Attenuation test: in the repeat with 10 dB more input attenuation the product moved by
+    more than 1 dB while the carrier stayed within 0.3 dB, so the analyzer made (part of) it.
+``atten_carrier_moved``
+    In the attenuation repeat the carrier itself moved by more than 0.3 dB: the test cannot
+    tell the analyzer's distortion from the part's (the analyzer is probably compressing).
+``slope_off``
+    The unconstrained fitted slope of an intermodulation product is outside its order ±10 %
+    (IM3: 3 ± 0.3 dB/dB, IM2: 2 ± 0.2 dB/dB): the intercept model does not hold there.
+``fund_slope_off``
+    The unconstrained fitted slope of the fundamental is outside 1 ± 0.1 dB/dB.
+``not_compressed``
+    The power sweep ended before the compression level was reached: bound ">".
+``not_saturated``
+    The output was still rising at the top of the sweep: saturated output is a bound ">".
+``compressed_at_start``
+    The sweep was already compressed past the level at its lowest drive: bound "<".
+``few_points``
+    Fewer than 3 points in the linear region (small-signal gain) or in the fit range.
+``no_valid_range``
+    No point met the validity conditions of a fit; the figure is a bound or not a number.
+``in_compression``
+    Two-tone drive above P1dB − 10 dB (single-point intercepts), or every point of the sweep
+    was there (fit).
+``points_excluded``
+    Some points of the sweep were left out of a fit because of overload or analyzer
+    distortion (the fit itself used clean points only).
+``edge_of_sweep``
+    The result lies at the edge of the swept range (e.g. the LO drive needed may be lower than
+    the lowest LO power tested, or the gain was still rising at the highest one).
+``missing_reading``
+    A reading the figure needs was not in the capture.
+"""
+
+from __future__ import annotations
+
+import gc
+import math
+from collections.abc import Iterable, Iterator, Mapping, Sequence
+from contextlib import contextmanager
+from dataclasses import dataclass, field
+from functools import lru_cache
+from types import MappingProxyType
+from typing import Literal
+
+import numpy as np
+
+Bound = Literal["<", ">"] | None
+
+BOUND_NONE = 0
+BOUND_BELOW = -1  # "<": the true value is below the reported one
+BOUND_ABOVE = 1  # ">": the true value is above the reported one
+
+IN_NOISE = "in_noise"
+OVERLOAD = "overload"
+ANALYZER_DISTORTION = "analyzer_distortion"
+ATTEN_CARRIER_MOVED = "atten_carrier_moved"
+SLOPE_OFF = "slope_off"
+FUND_SLOPE_OFF = "fund_slope_off"
+NOT_COMPRESSED = "not_compressed"
+NOT_SATURATED = "not_saturated"
+COMPRESSED_AT_START = "compressed_at_start"
+FEW_POINTS = "few_points"
+NO_VALID_RANGE = "no_valid_range"
+IN_COMPRESSION = "in_compression"
+POINTS_EXCLUDED = "points_excluded"
+EDGE_OF_SWEEP = "edge_of_sweep"
+MISSING_READING = "missing_reading"
+
+#: Every flag, in a fixed order: the position is the flag's bit in a flag mask.
+FLAGS: tuple[str, ...] = (
+    IN_NOISE,
+    OVERLOAD,
+    ANALYZER_DISTORTION,
+    ATTEN_CARRIER_MOVED,
+    SLOPE_OFF,
+    FUND_SLOPE_OFF,
+    NOT_COMPRESSED,
+    NOT_SATURATED,
+    COMPRESSED_AT_START,
+    FEW_POINTS,
+    NO_VALID_RANGE,
+    IN_COMPRESSION,
+    POINTS_EXCLUDED,
+    EDGE_OF_SWEEP,
+    MISSING_READING,
+)
+
+#: Flags that make a figure untrustworthy as a number: a limit check on it is inconclusive.
+#: Bounds (``in_noise``, ``not_compressed``, ...) are judged through their bound instead.
+SUSPECT_FLAGS: frozenset[str] = frozenset(
+    {
+        OVERLOAD,
+        ANALYZER_DISTORTION,
+        ATTEN_CARRIER_MOVED,
+        SLOPE_OFF,
+        FUND_SLOPE_OFF,
+        FEW_POINTS,
+        NO_VALID_RANGE,
+        IN_COMPRESSION,
+        MISSING_READING,
+    }
+)
+
+_FLAG_BIT = {name: 1 << i for i, name in enumerate(FLAGS)}
+
+
+def flag_bit(name: str) -> int:
+    """The bit of flag ``name`` in a flag mask."""
+    return _FLAG_BIT[name]
+
+
+@lru_cache(maxsize=4096)
+def flags_from_mask(mask: int) -> tuple[str, ...]:
+    """The flag names set in ``mask``, in :data:`FLAGS` order."""
+    return tuple(name for name, bit in _FLAG_BIT.items() if mask & bit)
+
+
+def mask_where(condition: np.ndarray, name: str) -> np.ndarray:
+    """A flag-mask array: the bit of ``name`` where ``condition`` is true, else 0."""
+    return np.where(np.asarray(condition, dtype=bool), np.int64(_FLAG_BIT[name]), np.int64(0))
+
+
+#: The figures the analysis produces: name → (unit, what it is).
+FIGURE_CATALOGUE: Mapping[str, tuple[str, str]] = MappingProxyType(
+    {
+        "conversion_gain": ("dB", "P_IF − P_RF at one point"),
+        "gain_flatness": ("dB", "max − min conversion gain over a frequency band"),
+        "gain_tempco": ("dB/°C", "least-squares slope of conversion gain versus temperature"),
+        "lo_power_for_gain": (
+            "dBm",
+            "lowest LO power from which the gain stays within 0.5 dB of its maximum",
+        ),
+        "small_signal_gain": ("dB", "conversion gain in the linear region of a power sweep"),
+        "input_p0p1db": ("dBm", "input power at 0.1 dB gain compression"),
+        "output_p0p1db": ("dBm", "output power at 0.1 dB gain compression"),
+        "input_p1db": ("dBm", "input power at 1 dB gain compression"),
+        "output_p1db": ("dBm", "output power at 1 dB gain compression"),
+        "input_p3db": ("dBm", "input power at 3 dB gain compression"),
+        "output_p3db": ("dBm", "output power at 3 dB gain compression"),
+        "output_psat": ("dBm", "saturated (highest) output power"),
+        "iip3_point_low": ("dBm", "single-point IIP3 from the lower IM3 product, one drive"),
+        "iip3_point_high": ("dBm", "single-point IIP3 from the upper IM3 product, one drive"),
+        "oip3_point_low": ("dBm", "single-point OIP3 from the lower IM3 product, one drive"),
+        "oip3_point_high": ("dBm", "single-point OIP3 from the upper IM3 product, one drive"),
+        "im3_low": ("dBc", "lower IM3 product relative to the fundamental, one drive"),
+        "im3_high": ("dBc", "upper IM3 product relative to the fundamental, one drive"),
+        "im3_asymmetry": ("dB", "upper minus lower IM3 product level, one drive"),
+        "iip3_low": ("dBm", "IIP3 from slope-1/slope-3 line fits, lower product"),
+        "iip3_high": ("dBm", "IIP3 from slope-1/slope-3 line fits, upper product"),
+        "oip3_low": ("dBm", "OIP3 from line fits, lower product"),
+        "oip3_high": ("dBm", "OIP3 from line fits, upper product"),
+        "iip3": ("dBm", "the worse (lower) of iip3_low and iip3_high"),
+        "oip3": ("dBm", "the worse (lower) of oip3_low and oip3_high"),
+        "iip3_asymmetry": ("dB", "iip3_high − iip3_low"),
+        "fund_slope": ("dB/dB", "unconstrained fitted slope of the fundamental (diagnostic)"),
+        "im3_slope_low": ("dB/dB", "unconstrained fitted slope of the lower IM3 (diagnostic)"),
+        "im3_slope_high": ("dB/dB", "unconstrained fitted slope of the upper IM3 (diagnostic)"),
+        "iip2_point_low": ("dBm", "single-point IIP2 from the lower IM2 product, one drive"),
+        "iip2_point_high": ("dBm", "single-point IIP2 from the upper IM2 product, one drive"),
+        "iip2_low": ("dBm", "IIP2 from slope-1/slope-2 line fits, lower product"),
+        "iip2_high": ("dBm", "IIP2 from slope-1/slope-2 line fits, upper product"),
+        "iip2": ("dBm", "the worse (lower) of iip2_low and iip2_high"),
+        "iip2_asymmetry": ("dB", "iip2_high − iip2_low"),
+        "im2_slope_low": ("dB/dB", "unconstrained fitted slope of the lower IM2 (diagnostic)"),
+        "im2_slope_high": ("dB/dB", "unconstrained fitted slope of the upper IM2 (diagnostic)"),
+        "spur_dbc": ("dBc", "m×n spur level relative to the wanted IF at the same point"),
+        "spur_dbm": ("dBm", "m×n spur absolute level at the DUT output port"),
+        "lo_if_isolation": ("dB", "LO power at the LO port − LO leakage at the IF port"),
+        "lo_rf_isolation": ("dB", "LO power at the LO port − LO leakage at the RF port"),
+        "rf_if_isolation": ("dB", "RF power at the RF port − RF leakage at the IF port"),
+        "image_rejection": ("dB", "gain at the wanted RF − gain at the image frequency"),
+        "supply_current": ("A", "DC supply current"),
+        "dc_power": ("W", "DC power: supply voltage × supply current"),
+    }
+)
+
+
+@dataclass(frozen=True, slots=True)
+class Figure:
+    """One datasheet figure.
+
+    ``value`` is in ``unit``; ``bound`` is None for a number, "<" or ">" for a bound (see the
+    module docstring). ``conditions`` are the fixed settings it was measured under (SI units,
+    keys as in the capture table: ``rf_freq_hz``, ``lo_power_dbm``, ``temperature_c``, ...,
+    plus ``study``). ``flags`` are names from :data:`FLAGS`; ``points`` the run-store point
+    indices it came from.
+    """
+
+    name: str
+    value: float
+    unit: str
+    bound: Bound = None
+    conditions: Mapping[str, float | int | str] = field(default_factory=dict, hash=False)
+    flags: tuple[str, ...] = ()
+    points: tuple[int, ...] = ()
+
+    @property
+    def is_number(self) -> bool:
+        """True when ``value`` is a finite measured number (not a bound, not NaN)."""
+        return self.bound is None and math.isfinite(self.value)
+
+    def text(self, digits: int = 2) -> str:
+        """The value as people write it: ``"12.30 dBm"``, ``"< -80.00 dBc"``, ``"n/a"``."""
+        if not math.isfinite(self.value):
+            return "n/a"
+        body = f"{self.value:.{digits}f} {self.unit}"
+        return f"{self.bound} {body}" if self.bound else body
+
+
+def bound_symbol(code: int) -> Bound:
+    """Bound code (:data:`BOUND_BELOW`, :data:`BOUND_NONE`, :data:`BOUND_ABOVE`) → symbol."""
+    if code == BOUND_BELOW:
+        return "<"
+    if code == BOUND_ABOVE:
+        return ">"
+    return None
+
+
+_SYMBOLS: dict[int, Bound] = {BOUND_NONE: None, BOUND_BELOW: "<", BOUND_ABOVE: ">"}
+
+
+def make_figures(
+    name: str,
+    unit: str,
+    value: Sequence[float] | np.ndarray,
+    bound: Sequence[int] | np.ndarray | int = BOUND_NONE,
+    flag_mask: Sequence[int] | np.ndarray | int = 0,
+    conditions: Sequence[Mapping[str, float | int | str]] | None = None,
+    points: Sequence[tuple[int, ...]] | None = None,
+) -> list[Figure]:
+    """Build one :class:`Figure` per element of the equal-length arrays given.
+
+    ``bound`` holds bound codes, ``flag_mask`` flag masks (see :func:`flag_bit`); either may
+    be a scalar for all. ``conditions`` and ``points`` are per-figure (None: empty).
+    """
+    values = np.asarray(value, dtype=float).ravel()
+    count = values.size
+    bounds = np.broadcast_to(np.asarray(bound, dtype=np.int64), (count,))
+    masks = np.broadcast_to(np.asarray(flag_mask, dtype=np.int64), (count,))
+    empty: Mapping[str, float | int | str] = MappingProxyType({})
+    conds: Iterable[Mapping[str, float | int | str]] = (
+        [c if isinstance(c, MappingProxyType) else MappingProxyType(dict(c)) for c in conditions]
+        if conditions is not None
+        else [empty] * count
+    )
+    pts: Iterable[tuple[int, ...]] = points if points is not None else [()] * count
+    symbols = _SYMBOLS
+    # Tables of figures run to a million rows: set the slots directly, as the generated
+    # frozen __init__ does, without its per-call overhead (Figure has no validation to skip).
+    new, set_attr, cls = object.__new__, object.__setattr__, Figure
+    out: list[Figure] = []
+    append = out.append
+    with collector_paused():
+        for v, b, m, c, p in zip(
+            values.tolist(), bounds.tolist(), masks.tolist(), conds, pts, strict=True
+        ):
+            figure = new(cls)
+            set_attr(figure, "name", name)
+            set_attr(figure, "value", v)
+            set_attr(figure, "unit", unit)
+            set_attr(figure, "bound", symbols[b])
+            set_attr(figure, "conditions", c)
+            set_attr(figure, "flags", flags_from_mask(m))
+            set_attr(figure, "points", p)
+            append(figure)
+    return out
+
+
+@contextmanager
+def collector_paused() -> Iterator[None]:
+    """Pause the cyclic garbage collector while building many acyclic objects (it would
+    rescan every one of them repeatedly); restore its previous state afterwards."""
+    was_enabled = gc.isenabled()
+    gc.disable()
+    try:
+        yield
+    finally:
+        if was_enabled:
+            gc.enable()
+
+
+def worst_of(
+    values: np.ndarray, bounds: np.ndarray, axis: int = -1
+) -> tuple[np.ndarray, np.ndarray]:
+    """The lower (worse, for an intercept) of several estimates, keeping bounds honest.
+
+    ``values``/``bounds`` hold the candidates along ``axis``. Without "<" candidates the
+    result is the smallest candidate: a number stays a number (a ">" bound above it cannot be
+    lower), a ">" bound stays a ">" bound. With a "<" candidate the minimum is only known to
+    lie below the smallest number or "<" value, so the result is that "<" bound. Any NaN
+    candidate makes the result NaN. Returns (value, bound code) arrays.
+    """
+    values = np.moveaxis(np.asarray(values, dtype=float), axis, -1)
+    bounds = np.moveaxis(np.asarray(bounds, dtype=np.int64), axis, -1)
+    nan = np.isnan(values).any(axis=-1)
+    filled = np.where(np.isnan(values), np.inf, values)
+    smallest = filled.min(axis=-1, initial=np.inf)
+    pick = np.argmin(filled, axis=-1)
+    picked_bound = np.take_along_axis(bounds, pick[..., None], axis=-1)[..., 0]
+    has_below = (bounds == BOUND_BELOW).any(axis=-1)
+    below_value = np.where(bounds == BOUND_ABOVE, np.inf, filled).min(axis=-1, initial=np.inf)
+    value = np.where(has_below, below_value, smallest)
+    bound = np.where(has_below, BOUND_BELOW, picked_bound)
+    value = np.where(nan | ~np.isfinite(value), np.nan, value)
+    return value, np.where(np.isnan(value), BOUND_NONE, bound)
+
+
+def bound_difference(
+    a: np.ndarray, a_bound: np.ndarray, b: np.ndarray, b_bound: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """a − b carrying bounds: a "<" a or a ">" b makes a "<" difference, and the reverse a
+    ">"; two bounds pulling opposite ways leave nothing known (NaN). Returns (value, code)."""
+    a_dir = np.asarray(a_bound, dtype=np.int64)
+    b_dir = -np.asarray(b_bound, dtype=np.int64)
+    bound = np.where(a_dir == BOUND_NONE, b_dir, np.where(b_dir == BOUND_NONE, a_dir, a_dir))
+    conflict = (a_dir != BOUND_NONE) & (b_dir != BOUND_NONE) & (a_dir != b_dir)
+    value = np.where(conflict, np.nan, np.asarray(a, dtype=float) - np.asarray(b, dtype=float))
+    return value, np.where(conflict, BOUND_NONE, bound)
+
+
+def bound_sum(
+    a: np.ndarray, a_bound: np.ndarray, b: np.ndarray, b_bound: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """a + b carrying bounds (see :func:`bound_difference`)."""
+    return bound_difference(a, a_bound, -np.asarray(b, dtype=float), -np.asarray(b_bound))

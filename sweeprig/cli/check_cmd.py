@@ -1,0 +1,278 @@
+"""``sweeprig check``, ``sweeprig plan`` and ``sweeprig schema``: work on files, no hardware.
+
+A thin layer over :mod:`sweeprig.formats` and :mod:`sweeprig.plan`; :func:`register` adds the
+three commands to the root app.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+import xml.etree.ElementTree as ET
+from enum import StrEnum
+from pathlib import Path
+from typing import Annotated
+
+import typer
+from rich.console import Console
+from rich.table import Table
+from rich.text import Text
+
+import sweeprig
+from sweeprig.errors import SweeprigError
+from sweeprig.formats.bench import Bench, load_bench
+from sweeprig.formats.schema import json_schema_text
+from sweeprig.formats.sequence import DEFAULT_MAX_POINTS, Sequence, load_sequence
+from sweeprig.plan.duration import estimate_duration, format_duration
+from sweeprig.plan.expand import layout
+from sweeprig.plan.preflight import PreflightReport, check_limits, safety_error
+
+# -- where the shipped files are --------------------------------------------------------------
+
+
+def _data_dir(name: str) -> Path:
+    """A shipped data folder: inside the installed package, else at the project root."""
+    package = Path(sweeprig.__file__).resolve().parent
+    inside = package / f"_{name}"
+    return inside if inside.is_dir() else package.parent / name
+
+
+def builtin_sim_bench() -> Path:
+    """Path of the built-in simulated bench file."""
+    return _data_dir("sequences") / "benches" / "sim.toml"
+
+
+def known_profiles() -> set[str] | None:
+    """Driver profile names found in ``drivers/`` (None when there are none to check against)."""
+    folder = _data_dir("drivers")
+    names = {p.stem for p in folder.glob("*.toml")} if folder.is_dir() else set()
+    return names or None
+
+
+# -- output helpers ---------------------------------------------------------------------------
+
+
+def _out() -> Console:
+    return Console(soft_wrap=True, highlight=False)
+
+
+def _err() -> Console:
+    return Console(stderr=True, soft_wrap=True, highlight=False)
+
+
+def _print_error(exc: SweeprigError) -> None:
+    console = _err()
+    console.print(Text("error: ", style="bold red") + Text(exc.message()))
+
+
+def _fail(exc: SweeprigError) -> typer.Exit:
+    _print_error(exc)
+    return typer.Exit(code=exc.exit_code)
+
+
+def _load_bench_or_sim(bench: Path | None) -> tuple[Bench, str]:
+    if bench is None:
+        path = builtin_sim_bench()
+        return load_bench(path, known_profiles=known_profiles()), "built-in simulated bench"
+    loaded = load_bench(bench, known_profiles=known_profiles())
+    return loaded, loaded.source or str(bench)
+
+
+def check_file(path: Path, bench: Bench, max_points: int = DEFAULT_MAX_POINTS
+               ) -> tuple[Sequence, PreflightReport]:
+    """Load one sequence and run the pre-flight check; raises the first problem found."""
+    sequence = load_sequence(path, max_points=max_points)
+    report = check_limits(sequence, bench)
+    if not report.ok:
+        first = min(report.violations, key=lambda c: c.violation_index or 0)
+        raise safety_error(sequence, first)
+    return sequence, report
+
+
+# -- check ------------------------------------------------------------------------------------
+
+_CHECK_HELP = (
+    "Validate sequence files without touching any instrument.\n\n"
+    "Each file is read with its includes, every key, unit and range is checked, and the pre-"
+    "flight safety check runs against the bench (the built-in simulated bench unless --bench "
+    "is given): every point's source settings, DUT port powers and predicted analyzer input "
+    "against the bench's limits. Exits 0 when every file is fine, non-zero otherwise (2: a "
+    "file problem, 3: a safety limit).\n\n"
+    "Example:  sweeprig check sequences/demo/quick.toml --bench lab.toml --junit check.xml"
+)
+
+
+def check(
+    sequences: Annotated[list[Path], typer.Argument(
+        help="sequence files (.toml) to check", show_default=False)],
+    bench: Annotated[Path | None, typer.Option(
+        "--bench", help="bench file to check against (default: the built-in simulated bench)",
+        show_default=False)] = None,
+    junit: Annotated[Path | None, typer.Option(
+        "--junit", help="also write a JUnit XML report here (one test case per file)",
+        show_default=False)] = None,
+    max_points: Annotated[int, typer.Option(
+        "--max-points", help="refuse sequences with more points than this")] = DEFAULT_MAX_POINTS,
+) -> None:
+    out = _out()
+    try:
+        loaded_bench, bench_name = _load_bench_or_sim(bench)
+    except SweeprigError as exc:
+        _write_junit(junit, [(str(p), 0.0, exc) for p in sequences])
+        raise _fail(exc) from None
+    results: list[tuple[str, float, SweeprigError | None]] = []
+    exit_code = 0
+    for path in sequences:
+        t0 = time.perf_counter()
+        try:
+            sequence, _ = check_file(path, loaded_bench, max_points)
+        except SweeprigError as exc:
+            results.append((str(path), time.perf_counter() - t0, exc))
+            out.print(Text("FAIL ", style="bold red") + Text(str(path)))
+            out.print(Text("  " + exc.message().replace("\n", "\n  ")))
+            exit_code = exit_code or exc.exit_code
+            continue
+        results.append((str(path), time.perf_counter() - t0, None))
+        out.print(Text("ok   ", style="bold green") + Text(
+            f"{path}  ({sequence.count_points():,} points, within the limits of {bench_name})"))
+    _write_junit(junit, results)
+    failed = sum(1 for _, _, e in results if e is not None)
+    if failed:
+        out.print(f"{failed} of {len(results)} file(s) have problems")
+        raise typer.Exit(code=exit_code)
+
+
+def _write_junit(path: Path | None, results: list[tuple[str, float, SweeprigError | None]]
+                 ) -> None:
+    if path is None:
+        return
+    failures = sum(1 for _, _, e in results if e is not None)
+    total_time = sum(t for _, t, _ in results)
+    suites = ET.Element("testsuites", name="sweeprig check", tests=str(len(results)),
+                        failures=str(failures), errors="0", time=f"{total_time:.3f}")
+    suite = ET.SubElement(suites, "testsuite", name="sweeprig check", tests=str(len(results)),
+                          failures=str(failures), errors="0", skipped="0",
+                          time=f"{total_time:.3f}")
+    for name, seconds, exc in results:
+        case = ET.SubElement(suite, "testcase", classname="sweeprig.check", name=name,
+                             time=f"{seconds:.3f}")
+        if exc is not None:
+            failure = ET.SubElement(case, "failure", message=exc.what.splitlines()[0],
+                                    type=type(exc).__name__)
+            failure.text = exc.message()
+    tree = ET.ElementTree(suites)
+    ET.indent(tree)
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        tree.write(path, encoding="utf-8", xml_declaration=True)
+    except OSError as exc:
+        raise _fail(SweeprigError(f"cannot write the JUnit report: {exc.strerror}",
+                                  where=str(path), fix="choose a writable path")) from None
+
+
+# -- plan -------------------------------------------------------------------------------------
+
+_PLAN_HELP = (
+    "Show what a sequence will do: points, predicted duration and port powers.\n\n"
+    "Prints the number of points (in all and per study), the predicted duration on a real "
+    "bench (settling, analyzer sweeps, chamber ramps and soaks, command overhead), and for "
+    "every port the highest predicted power against its limit. Exits 3 when a limit would be "
+    "exceeded.\n\n"
+    "Example:  sweeprig plan sequences/demo/quick.toml --sim"
+)
+
+
+def plan(
+    sequence: Annotated[Path, typer.Argument(help="sequence file (.toml)", show_default=False)],
+    bench: Annotated[Path | None, typer.Option(
+        "--bench", help="bench file with path losses and limits", show_default=False)] = None,
+    sim: Annotated[bool, typer.Option(
+        "--sim", help="use the built-in simulated bench (the default without --bench)")
+    ] = False,
+    max_points: Annotated[int, typer.Option(
+        "--max-points", help="refuse sequences with more points than this")] = DEFAULT_MAX_POINTS,
+) -> None:
+    if bench is not None and sim:
+        raise _fail(SweeprigError("--bench and --sim were both given",
+                                  fix="give one of them (or neither, for the simulated bench)"))
+    try:
+        loaded_bench, bench_name = _load_bench_or_sim(bench)
+        seq = load_sequence(sequence, max_points=max_points)
+        report = check_limits(seq, loaded_bench)
+        estimate = estimate_duration(seq, loaded_bench)
+    except SweeprigError as exc:
+        raise _fail(exc) from None
+    out = _out()
+    lay = layout(seq)
+    title = seq.about.title or seq.source or str(sequence)
+    out.print(Text(title, style="bold"))
+    out.print(f"part {seq.part.id}   bench: {bench_name}")
+    out.print(f"{lay.total:,} points = {lay.pass_size:,} per pass × {lay.n_temperatures} "
+              f"temperature(s) × {lay.n_supplies} supply voltage(s)")
+
+    studies = Table(title="Studies", title_justify="left")
+    for col in ("study", "points", "axes (outer → inner)", "predicted time"):
+        studies.add_column(col, justify="right" if col == "points" else "left")
+    by_name = {s.name: s for s in estimate.studies}
+    for block in lay.blocks:
+        axes = ", ".join(f"{a.name} ×{a.count}" for a in block.axes)
+        est = by_name[block.study.name]
+        studies.add_row(block.study.name, f"{est.points:,}", axes,
+                        format_duration(est.total_s) + (" (sampled)" if est.sampled else ""))
+    out.print(studies)
+
+    timing = Table(title="Predicted duration on a real bench", title_justify="left")
+    timing.add_column("step")
+    timing.add_column("time", justify="right")
+    timing.add_row("settling", format_duration(estimate.settle_s))
+    timing.add_row("analyzer sweeps", format_duration(estimate.sweep_s))
+    timing.add_row("chamber ramps and soaks", format_duration(estimate.chamber_s))
+    timing.add_row("command overhead", format_duration(estimate.overhead_s))
+    timing.add_row(Text("total", style="bold"), Text(format_duration(estimate.total_s),
+                                                      style="bold"))
+    out.print(timing)
+
+    ports = Table(title="Predicted maxima against the limits", title_justify="left")
+    for col in ("check", "predicted", "limit", "margin", "at point", "status"):
+        ports.add_column(col, justify="left" if col in ("check", "status") else "right")
+    for c in report.checks:
+        worst = "-" if c.worst_index is None else f"{c.worst:.2f} {c.unit}"
+        margin = "-" if math.isinf(c.margin) else f"{c.margin:.2f}"
+        at = "-" if c.worst_index is None else str(c.worst_index)
+        status = Text("ok", style="green") if c.ok else Text("OVER LIMIT", style="bold red")
+        ports.add_row(c.label, worst, f"{'≤' if c.bound == 'max' else '≥'} {c.limit:g} "
+                      f"{c.unit}", margin, at, status)
+    out.print(ports)
+    if not report.ok:
+        first = min(report.violations, key=lambda c: c.violation_index or 0)
+        raise _fail(safety_error(seq, first))
+
+
+# -- schema -----------------------------------------------------------------------------------
+
+
+class SchemaName(StrEnum):
+    sequence = "sequence"
+    bench = "bench"
+
+
+_SCHEMA_HELP = (
+    "Print the JSON Schema of sequence or bench files.\n\n"
+    "Editors that validate TOML against a JSON Schema use it to check keys and units as you "
+    "type.\n\n"
+    "Example:  sweeprig schema sequence > sequence.schema.json"
+)
+
+
+def schema(
+    which: Annotated[SchemaName, typer.Argument(help="which file format: sequence or bench",
+                                                show_default=False)],
+) -> None:
+    typer.echo(json_schema_text(which.value), nl=False)
+
+
+def register(app: typer.Typer) -> None:
+    """Add the ``check``, ``plan`` and ``schema`` commands to the root app."""
+    app.command("check", help=_CHECK_HELP, no_args_is_help=True)(check)
+    app.command("plan", help=_PLAN_HELP, no_args_is_help=True)(plan)
+    app.command("schema", help=_SCHEMA_HELP, no_args_is_help=True)(schema)

@@ -1,0 +1,136 @@
+"""``sweeprig run``: run a sequence on a bench or on the simulated bench."""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Annotated
+
+import typer
+from rich.console import Console
+from rich.progress import (
+    BarColumn,
+    MofNCompleteColumn,
+    Progress,
+    TextColumn,
+    TimeElapsedColumn,
+    TimeRemainingColumn,
+)
+
+from sweeprig.engine.runner import PointResult
+from sweeprig.engine.session import LoadedFiles, RunOutcome, run_sequence
+from sweeprig.errors import SweeprigError
+from sweeprig.plan.duration import format_duration
+from sweeprig.store.base import DEFAULT_STORE_PATH
+
+_RUN_HELP = """Run a sequence file on a bench, unattended, storing every point as it is taken.
+
+Before any output is enabled the files are checked and every point's port powers are
+predicted against the bench's limits; a violation refuses the run. On every exit (end,
+error, Ctrl-C, SIGTERM, SIGHUP) all RF outputs are switched off, the supply goes to its safe
+setting and the chamber to its idle set point.
+
+Caution: RF power can damage the part and the analyzer input, and amplified RF can expose
+people to RF energy; chambers and supplies are hazards of their own. Check attenuators and
+limits in the bench file and follow your lab's rules.
+
+Examples:
+
+  sweeprig run sequences/demo/downconverter.toml --sim
+
+  sweeprig run my-part.toml --bench bench3.toml --store results/lot7.sqlite
+"""
+
+
+def run_command(
+    sequence: Annotated[Path, typer.Argument(help="sequence file (TOML)", show_default=False)],
+    bench: Annotated[Path | None, typer.Option(
+        "--bench", "-b", help="bench file (TOML) naming the instruments")] = None,
+    sim: Annotated[bool, typer.Option(
+        "--sim", help="run on the built-in simulated bench (no hardware)")] = False,
+    sim_bench: Annotated[str | None, typer.Option(
+        "--sim-bench", help="simulated-bench description (file or shipped name)")] = None,
+    store: Annotated[Path, typer.Option(
+        "--store", help="run store (SQLite file)")] = DEFAULT_STORE_PATH,
+    realtime: Annotated[bool, typer.Option(
+        "--realtime", help="with --sim: let simulated time pass at wall-clock speed")] = False,
+    quiet: Annotated[bool, typer.Option("--quiet", "-q", help="no progress display")] = False,
+) -> None:
+    console = Console(highlight=False)
+    errors = Console(stderr=True, highlight=False, soft_wrap=True)
+    progress = Progress(
+        TextColumn("[bold]{task.description}"),
+        BarColumn(),
+        MofNCompleteColumn(),
+        TimeElapsedColumn(),
+        TextColumn("eta"),
+        TimeRemainingColumn(),
+        console=console,
+        disable=quiet,
+        transient=False,
+    )
+    state: dict[str, object] = {}
+
+    def started(run_id: int, total: int, files: LoadedFiles) -> None:
+        where = "the simulated bench" if files.simulated else files.bench_path
+        console.print(f"run {run_id}: {files.sequence_path} on {where}, {total} points")
+        state["task"] = progress.add_task(f"run {run_id}", total=total)
+        progress.start()
+
+    def point_done(result: PointResult) -> None:
+        task = state.get("task")
+        if task is not None:
+            progress.update(task, advance=1, description=_summary(result))  # type: ignore[arg-type]
+
+    try:
+        outcome = run_sequence(
+            sequence, bench, sim=sim, sim_description=sim_bench, store_path=store,
+            realtime=realtime, on_start=started, on_point=point_done,
+        )
+    except SweeprigError as exc:
+        progress.stop()
+        errors.print(f"[red]error:[/red] {exc.message()}")
+        raise typer.Exit(exc.exit_code) from None
+    progress.stop()
+    _print_outcome(console, outcome)
+    if outcome.status != "complete":
+        raise typer.Exit(1)
+
+
+def _summary(result: PointResult) -> str:
+    p = result.point
+    parts = [f"pt {p.index}", p.study]
+    if p.temperature_c is not None:
+        parts.append(f"{p.temperature_c:g}°C")
+    parts.append(f"RF {p.rf_freq_hz / 1e9:.4g} GHz {p.rf_power_dbm:+.1f} dBm")
+    if result.gain_db is not None:
+        parts.append(f"gain {result.gain_db:+.2f} dB")
+    return " | ".join(parts)
+
+
+def _print_outcome(console: Console, outcome: RunOutcome) -> None:
+    colour = "green" if outcome.status == "complete" else "red"
+    console.print(
+        f"[{colour}]run {outcome.run_id} {outcome.status}[/{colour}]"
+        + (f": {outcome.reason}" if outcome.reason else "")
+    )
+    console.print(
+        f"  points stored: {outcome.points_done} of {outcome.points_total}; "
+        f"bench time {format_duration(outcome.sim_elapsed_s)} "
+        f"(predicted on real hardware: {format_duration(outcome.predicted_bench_s)}), "
+        f"wall time {format_duration(outcome.wall_elapsed_s)}"
+    )
+    if outcome.safe is not None:
+        if outcome.safe.ok:
+            console.print("  bench left safe: " + ", ".join(outcome.safe.done))
+        else:
+            console.print("[red]  SAFE STATE INCOMPLETE — check the bench by hand now:[/red] "
+                          + "; ".join(f"{n}: {e}" for n, e in outcome.safe.failed))
+    console.print(f"  results: {outcome.store_path} (run {outcome.run_id}); "
+                  f"log: {outcome.log_path}")
+    console.print(f"  next: sweeprig status {outcome.run_id} --store {outcome.store_path}; "
+                  f"sweeprig export {outcome.run_id} --store {outcome.store_path} --to results/")
+
+
+def register(app: typer.Typer) -> None:
+    """Add ``run`` to the root app."""
+    app.command("run", help=_RUN_HELP, no_args_is_help=True)(run_command)

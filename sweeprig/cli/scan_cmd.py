@@ -1,0 +1,139 @@
+"""``sweeprig scan``: find instruments, ask who they are, and suggest a driver profile."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Annotated
+
+import typer
+from rich.console import Console
+from rich.table import Table
+
+from sweeprig.errors import SweeprigError
+from sweeprig.instruments.profile import Profile, load_all_profiles, matching_profiles
+from sweeprig.transport import visa
+
+
+@dataclass(frozen=True)
+class ScanResult:
+    """One resource as scanned: its ``*IDN?`` reply (or the error) and suggested profiles."""
+
+    resource: str
+    idn: str | None
+    error: str | None
+    profiles: tuple[str, ...]
+
+
+def identify_resource(
+    resource: str,
+    profiles: list[Profile],
+    *,
+    visa_library: str,
+    timeout_s: float,
+    resource_manager: object | None = None,
+) -> ScanResult:
+    """Open ``resource``, ask ``*IDN?`` (the only command sent) and match the profiles."""
+    try:
+        transport = visa.VisaTransport(
+            resource,
+            visa_library=visa_library,
+            timeout_s=timeout_s,
+            resource_manager=resource_manager,  # type: ignore[arg-type]
+        )
+        try:
+            idn = transport.query("*IDN?").strip()
+        finally:
+            transport.close()
+    except SweeprigError as exc:
+        return ScanResult(resource, None, exc.what, ())
+    names = tuple(p.name for p in matching_profiles(idn, profiles))
+    return ScanResult(resource, idn, None, names)
+
+
+def scan_command(
+    resource: Annotated[
+        list[str] | None,
+        typer.Option(
+            "--resource",
+            "-r",
+            help="A VISA resource to identify as well (repeatable). Needed for raw TCP "
+            "sockets such as TCPIP0::127.0.0.1::5025::SOCKET, which discovery cannot find.",
+        ),
+    ] = None,
+    visa_library: Annotated[
+        str, typer.Option("--visa-library", help="pyvisa backend: @py (pyvisa-py) or a path.")
+    ] = visa.DEFAULT_VISA_LIBRARY,
+    identify: Annotated[
+        bool,
+        typer.Option("--identify/--no-identify", help="Ask each resource *IDN? (the only "
+                     "command sent)."),
+    ] = True,
+    discover: Annotated[
+        bool,
+        typer.Option("--discover/--no-discover", help="List the resources the VISA library "
+                     "can discover (USB, GPIB, VXI-11 on the local network)."),
+    ] = True,
+    timeout_s: Annotated[
+        float, typer.Option("--timeout", min=0.05, help="Seconds to wait for each reply.")
+    ] = 2.0,
+    profiles_dir: Annotated[
+        list[Path] | None,
+        typer.Option("--profiles", help="Extra folder of driver profiles (repeatable)."),
+    ] = None,
+) -> None:
+    """List VISA instruments, their *IDN? and the driver profiles that match.
+
+    The VISA library's discovery does not find raw TCP sockets (pyvisa-py cannot list them):
+    give those with --resource.
+
+    Example: sweeprig scan --no-discover -r TCPIP0::127.0.0.1::5025::SOCKET
+    """
+    console = Console(highlight=False)
+    errors = Console(stderr=True, highlight=False)
+    found: list[str] = []
+    if discover:
+        try:
+            found = visa.list_resources(visa_library)
+        except SweeprigError as exc:
+            errors.print(f"warning: {exc.message()}")
+    extra = [r for r in (resource or []) if r not in found]
+    resources = found + extra
+    if not resources:
+        console.print("no VISA resources found; name raw TCP sockets with --resource")
+        return
+    profiles = load_all_profiles(profiles_dir or []) if identify else []
+    table = Table(title="VISA resources", title_justify="left")
+    table.add_column("resource")
+    if identify:
+        table.add_column("*IDN?")
+        table.add_column("profiles")
+    rm = None
+    if identify:
+        try:
+            rm = visa.open_resource_manager(visa_library)
+        except SweeprigError as exc:
+            errors.print(f"[bold red]error:[/] {exc.message()}")
+            raise typer.Exit(exc.exit_code) from None
+    try:
+        for name in resources:
+            if not identify:
+                table.add_row(name)
+                continue
+            result = identify_resource(
+                name, profiles, visa_library=visa_library, timeout_s=timeout_s,
+                resource_manager=rm,
+            )
+            if result.error is not None:
+                table.add_row(name, f"[red]{result.error}[/]", "")
+            else:
+                table.add_row(name, result.idn or "", ", ".join(result.profiles) or "(none)")
+    finally:
+        if rm is not None:
+            rm.close()
+    console.print(table)
+
+
+def register(app: typer.Typer) -> None:
+    """Add ``scan`` to the root app."""
+    app.command("scan")(scan_command)

@@ -1,0 +1,181 @@
+"""``sweeprig sim ...``: the simulated bench on the command line.
+
+A thin layer over :func:`sweeprig.sim.bench.start_sim_bench`; the lead registers ``app`` as
+the ``sim`` command group.
+"""
+
+from __future__ import annotations
+
+import ipaddress
+import signal
+import sys
+import threading
+from pathlib import Path
+from types import FrameType
+from typing import Annotated
+
+import typer
+from rich.console import Console
+from rich.text import Text
+
+from sweeprig.clock import Clock, VirtualClock, WallClock
+from sweeprig.errors import InputError, SweeprigError
+from sweeprig.sim.bench import ROLES, SimBench, shipped_benches, start_sim_bench
+
+app = typer.Typer(
+    name="sim",
+    help="The simulated bench: a behavioural mixer model behind real SCPI sockets.",
+    no_args_is_help=True,
+    add_completion=False,
+    pretty_exceptions_enable=False,
+)
+
+SERVE_EXAMPLE = """\
+Examples:
+
+  sweeprig sim serve
+
+  sweeprig sim serve my-bench.toml --port-base 5025
+
+Then talk to the instruments from pyvisa (pyvisa-py, newline terminations):
+
+  rm = pyvisa.ResourceManager("@py")
+
+  sa = rm.open_resource("TCPIP0::127.0.0.1::5028::SOCKET")
+
+  sa.read_termination = sa.write_termination = "\\n"
+
+  print(sa.query("*IDN?"))
+"""
+
+
+@app.callback()
+def _sim() -> None:
+    """The simulated bench: a behavioural mixer model behind real SCPI sockets."""
+
+
+def _out() -> Console:
+    return Console(soft_wrap=True, highlight=False)
+
+
+def _err() -> Console:
+    return Console(stderr=True, soft_wrap=True, highlight=False)
+
+
+def _fail(exc: SweeprigError) -> typer.Exit:
+    _err().print(Text("error: ", style="bold red") + Text(exc.message()))
+    return typer.Exit(code=exc.exit_code)
+
+
+def _is_loopback(host: str) -> bool:
+    if host == "localhost":
+        return True
+    try:
+        return ipaddress.ip_address(host).is_loopback
+    except ValueError:
+        return False
+
+
+def _ports(port_base: int) -> dict[str, int] | None:
+    """Role → port from a base port (roles in their fixed order); None for ephemeral ports."""
+    if port_base == 0:
+        return None
+    last = port_base + len(ROLES) - 1
+    if port_base < 1 or last > 65535:
+        raise InputError(
+            f"--port-base {port_base} leaves no room for {len(ROLES)} ports (up to {last})",
+            where="sweeprig sim serve --port-base",
+            fix="use 0 for ports chosen by the system, or a base such as 5025",
+        )
+    return {role: port_base + k for k, role in enumerate(ROLES)}
+
+
+@app.command("serve", epilog=SERVE_EXAMPLE)
+def serve_command(
+    description: Annotated[str | None, typer.Argument(
+        help="sim-bench description: a .toml file or a shipped name "
+        f"({', '.join(shipped_benches()) or 'default'}); default: the shipped 'default'",
+        show_default=False)] = None,
+    host: Annotated[str, typer.Option(
+        "--host", help="address to listen on; anything but loopback exposes the simulated "
+        "instruments, which have no authentication, to the network")] = "127.0.0.1",
+    port_base: Annotated[int, typer.Option(
+        "--port-base", help="first TCP port; the roles take consecutive ports in the order "
+        f"{', '.join(ROLES)}; 0 lets the system choose free ports")] = 0,
+    realtime: Annotated[bool, typer.Option(
+        "--realtime", help="let simulated time pass at wall-clock speed (sweeps, settling "
+        "and chamber ramps take as long as on real hardware)")] = False,
+    write_bench: Annotated[Path | None, typer.Option(
+        "--write-bench", help="also write a bench file with these resources, for "
+        "'sweeprig run SEQUENCE --bench FILE' from another terminal",
+        show_default=False)] = None,
+) -> None:
+    """Serve the simulated instruments on raw SCPI sockets until Ctrl-C.
+
+    Prints each role's VISA resource string and *IDN? reply; several clients may connect.
+    """
+    remote = not _is_loopback(host)
+    if remote:
+        _err().print(Text(
+            f"warning: listening on {host}: the simulated instruments are reachable from the "
+            "network, without any authentication. Use --host 127.0.0.1 unless you mean it.",
+            style="bold yellow",
+        ))
+    clock: Clock = WallClock() if realtime else VirtualClock()
+    try:
+        bench = start_sim_bench(description, clock=clock, host=host, ports=_ports(port_base),
+                                allow_remote=remote)
+    except SweeprigError as exc:
+        raise _fail(exc) from None
+    try:
+        _print_resources(bench, realtime)
+        if write_bench is not None:
+            _write_bench_file(bench, write_bench)
+        _out().print("ready; press Ctrl-C to stop")
+        sys.stdout.flush()
+        _wait_for_interrupt()
+    except SweeprigError as exc:
+        raise _fail(exc) from None
+    finally:
+        bench.close()
+    _out().print("simulated bench stopped")
+
+
+def _print_resources(bench: SimBench, realtime: bool) -> None:
+    out = _out()
+    desc = bench.description
+    mode = "wall-clock time" if realtime else "virtual time"
+    out.print(f"simulated bench: part {desc.part}, seed {desc.seed}, {mode}")
+    width = max(len(r) for r in bench.resources.values())
+    out.print(f"{'role':<8} {'resource':<{width}}  *IDN?")
+    for role in ROLES:
+        identity = bench.instruments[role].handle("*IDN?")
+        out.print(f"{role:<8} {bench.resources[role]:<{width}}  {identity}")
+
+
+def _write_bench_file(bench: SimBench, path: Path) -> None:
+    from sweeprig.engine.session import served_bench_text
+
+    try:
+        path.write_text(served_bench_text(bench.resources), encoding="utf-8")
+    except OSError as exc:
+        raise InputError(f"cannot write {path}: {exc.strerror or exc}",
+                         where="sweeprig sim serve --write-bench",
+                         fix="give a path in a folder you can write to") from None
+    _out().print(f"bench file written: {path}")
+
+
+def _wait_for_interrupt() -> None:
+    """Block until Ctrl-C (SIGINT) or SIGTERM."""
+    stop = threading.Event()
+
+    def on_signal(signum: int, frame: FrameType | None) -> None:
+        stop.set()
+
+    previous = {sig: signal.signal(sig, on_signal) for sig in (signal.SIGINT, signal.SIGTERM)}
+    try:
+        while not stop.wait(0.2):
+            pass
+    finally:
+        for sig, handler in previous.items():
+            signal.signal(sig, handler)

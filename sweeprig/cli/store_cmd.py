@@ -1,0 +1,327 @@
+"""``sweeprig runs``, ``sweeprig status`` and ``sweeprig export``: look at stored runs.
+
+These only read the run store, so they work from another terminal while a run is writing.
+"""
+
+from __future__ import annotations
+
+import json
+from datetime import datetime
+from enum import StrEnum
+from pathlib import Path
+from typing import Annotated
+
+import pandas as pd
+import typer
+from rich.console import Console
+from rich.table import Table
+
+from sweeprig.errors import StoreError, SweeprigError
+from sweeprig.store.base import DEFAULT_STORE_PATH, RunInfo, utc_now
+from sweeprig.store.sqlite import SqliteRunStore
+
+StoreOption = Annotated[
+    Path,
+    typer.Option(
+        "--store",
+        help="Run store file (SQLite).",
+        show_default=True,
+        dir_okay=False,
+    ),
+]
+
+
+class ExportFormat(StrEnum):
+    """File formats of ``sweeprig export``."""
+
+    csv = "csv"
+    parquet = "parquet"
+    both = "both"
+
+
+def _fail(exc: SweeprigError) -> typer.Exit:
+    Console(stderr=True, highlight=False, soft_wrap=True).print(
+        f"[bold red]error:[/] {exc.message()}", markup=True
+    )
+    return typer.Exit(exc.exit_code)
+
+
+def _open(path: Path) -> SqliteRunStore:
+    return SqliteRunStore(path, create=False)
+
+
+def _when(moment: datetime | None) -> str:
+    return "" if moment is None else moment.astimezone().strftime("%Y-%m-%d %H:%M:%S")
+
+
+def _duration(seconds: float | None) -> str:
+    if seconds is None or seconds < 0:
+        return ""
+    whole = round(seconds)
+    hours, rest = divmod(whole, 3600)
+    minutes, secs = divmod(rest, 60)
+    return f"{hours}:{minutes:02d}:{secs:02d}"
+
+
+def _progress(done: int, total: int | None) -> str:
+    if total:
+        return f"{done}/{total} ({100.0 * done / total:.0f}%)"
+    return str(done)
+
+
+_STATUS_STYLE = {
+    "complete": "green",
+    "running": "cyan",
+    "planned": "white",
+    "aborted": "red",
+    "interrupted": "yellow",
+}
+
+
+def runs_command(store: StoreOption = DEFAULT_STORE_PATH) -> None:
+    """List the stored runs, newest first.
+
+    Example: sweeprig runs --store results/sweeprig.sqlite
+    """
+    try:
+        with _open(store) as db:
+            summaries = db.runs()
+    except SweeprigError as exc:
+        raise _fail(exc) from None
+    console = Console(highlight=False)
+    if not summaries:
+        console.print(f"no runs in {store}")
+        return
+    table = Table(title=f"runs in {store}", title_justify="left")
+    for column in ("id", "status", "part", "serial", "points", "started", "duration", "sequence"):
+        table.add_column(
+            column,
+            justify="right" if column in ("id", "points") else "left",
+            no_wrap=column in ("id", "status", "points", "started", "duration"),
+            overflow="fold",
+        )
+    for run in summaries:
+        style = _STATUS_STYLE.get(run.status, "white")
+        sequence = Path(run.sequence_path).stem + ("  (sim)" if run.simulated else "")
+        table.add_row(
+            str(run.id),
+            f"[{style}]{run.status}[/]",
+            run.part,
+            run.serial,
+            _progress(run.points_done, run.points_total),
+            _when(run.created)[:16],
+            _duration(run.duration_s),
+            sequence,
+        )
+    console.print(table)
+
+
+def status_command(
+    run_id: Annotated[int, typer.Argument(help="Run id, as listed by `sweeprig runs`.")],
+    store: StoreOption = DEFAULT_STORE_PATH,
+    events: Annotated[
+        int, typer.Option("--events", min=0, help="How many of the latest events to show.")
+    ] = 15,
+) -> None:
+    """Show one run: status, progress, last point, instruments and latest events.
+
+    Works while the run is writing (from another terminal).
+
+    Example: sweeprig status 3 --store results/sweeprig.sqlite
+    """
+    try:
+        with _open(store) as db:
+            info = db.run(run_id)
+            points = db.points_frame(run_id)
+            run_events = db.events(run_id)
+    except SweeprigError as exc:
+        raise _fail(exc) from None
+    _print_status(info, points, run_events[-events:] if events else [], len(run_events))
+
+
+def _print_status(info: RunInfo, points: pd.DataFrame, events: list, n_events: int) -> None:
+    console = Console(highlight=False)
+    style = _STATUS_STYLE.get(info.status, "white")
+    status = f"[{style}]{info.status}[/]"
+    if info.status != info.stored_status:
+        status += f" (stored as {info.stored_status}; its process is gone or silent)"
+    if info.reason:
+        status += f" — {info.reason}"
+    console.print(f"[bold]run {info.id}[/]" + (f"  {info.title}" if info.title else ""))
+    lines = [
+        ("status", status),
+        ("progress", _progress(info.points_done, info.points_total)),
+        ("part", " ".join(x for x in (info.part, info.serial) if x) or "-"),
+        ("operator", info.operator or "-"),
+        ("tags", ", ".join(info.tags) or "-"),
+        ("sequence", f"{info.sequence_path}  sha256 {info.sequence_sha256[:12]}"),
+        (
+            "bench",
+            f"{info.bench_path}  sha256 {(info.bench_sha256 or '')[:12]}"
+            if info.bench_path
+            else "-",
+        ),
+        ("simulated", "yes" if info.simulated else "no"),
+        ("started", _when(info.created)),
+        ("finished", _when(info.finished) or "-"),
+        ("duration", _duration(info.duration_s) or "-"),
+    ]
+    if info.heartbeat is not None and info.finished is None:
+        age = (utc_now() - info.heartbeat).total_seconds()
+        lines.append(("heartbeat", f"{_when(info.heartbeat)} ({age:.0f} s ago, pid {info.pid} "
+                                   f"on {info.host})"))
+    for label, text in lines:
+        console.print(f"  {label:<10} {text}")
+    if info.instruments:
+        console.print("  instruments")
+        for inst in info.instruments:
+            console.print(f"    {inst.role:<8} {inst.profile:<18} {inst.resource}  {inst.idn}")
+    if len(points):
+        last = points.iloc[-1]
+        settings = ", ".join(
+            f"{column}={last[column]:g}"
+            for column in points.columns[3:15]
+            if pd.notna(last[column])
+        )
+        console.print(
+            f"  last point {int(last['point_index'])} ({last['study']}) "
+            f"{_when(last['wall_end'].to_pydatetime()) if pd.notna(last['wall_end']) else ''}"
+        )
+        if settings:
+            console.print(f"    {settings}")
+    if events:
+        console.print(f"  events (latest {len(events)} of {n_events})")
+        for event in events:
+            where = f" point {event.point_index}" if event.point_index is not None else ""
+            console.print(
+                f"    {_when(event.time)} {event.severity:<7} {event.kind}{where}: "
+                f"{event.message}"
+            )
+
+
+def export_command(
+    run_id: Annotated[int, typer.Argument(help="Run id, as listed by `sweeprig runs`.")],
+    to: Annotated[
+        Path,
+        typer.Option("--to", help="Folder to write into (created if missing).", file_okay=False),
+    ],
+    store: StoreOption = DEFAULT_STORE_PATH,
+    fmt: Annotated[
+        ExportFormat,
+        typer.Option("--format", help="csv, parquet, or both.", case_sensitive=False),
+    ] = ExportFormat.csv,
+) -> None:
+    """Write a run's points, readings and events as tidy tables, plus run details.
+
+    Files: run-<id>-points, run-<id>-readings and run-<id>-events (.csv and/or .parquet).
+
+    run-<id>.json holds the run's details and the SHA-256 of its input files.
+
+    Join readings to points on point_index.
+
+    Example: sweeprig export 3 --to exports/ --format both
+    """
+    try:
+        with _open(store) as db:
+            info = db.run(run_id)
+            tables = {
+                "points": db.points_frame(run_id),
+                "readings": db.readings_frame(run_id),
+                "events": _events_frame(db, run_id),
+            }
+        written = _write_tables(info, tables, to, fmt)
+    except SweeprigError as exc:
+        raise _fail(exc) from None
+    console = Console(highlight=False)
+    for path in written:
+        console.print(f"wrote {path}")
+
+
+def _events_frame(db: SqliteRunStore, run_id: int) -> pd.DataFrame:
+    rows = [
+        {
+            "time": e.time,
+            "severity": e.severity,
+            "kind": e.kind,
+            "message": e.message,
+            "point_index": e.point_index,
+            "details_json": json.dumps(dict(e.details), sort_keys=True),
+        }
+        for e in db.events(run_id)
+    ]
+    frame = pd.DataFrame(
+        rows, columns=["time", "severity", "kind", "message", "point_index", "details_json"]
+    )
+    frame["time"] = pd.to_datetime(frame["time"], utc=True)
+    frame["point_index"] = frame["point_index"].astype("Int64")
+    return frame
+
+
+def _write_tables(
+    info: RunInfo, tables: dict[str, pd.DataFrame], folder: Path, fmt: ExportFormat
+) -> list[Path]:
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise StoreError(
+            f"cannot create the export folder: {exc.strerror or exc}",
+            where=str(folder),
+            fix="give a folder you can write to with --to",
+        ) from None
+    written: list[Path] = []
+    try:
+        for name, frame in tables.items():
+            if fmt in (ExportFormat.csv, ExportFormat.both):
+                path = folder / f"run-{info.id}-{name}.csv"
+                frame.to_csv(path, index=False)
+                written.append(path)
+            if fmt in (ExportFormat.parquet, ExportFormat.both):
+                path = folder / f"run-{info.id}-{name}.parquet"
+                frame.to_parquet(path, index=False, engine="pyarrow")
+                written.append(path)
+        meta = folder / f"run-{info.id}.json"
+        meta.write_text(json.dumps(_run_json(info), indent=2) + "\n", encoding="utf-8")
+        written.append(meta)
+    except OSError as exc:
+        raise StoreError(
+            f"cannot write the export: {exc.strerror or exc}",
+            where=str(folder),
+            fix="check the folder's permissions and free space",
+        ) from None
+    return written
+
+
+def _run_json(info: RunInfo) -> dict[str, object]:
+    def iso(moment: datetime | None) -> str | None:
+        return None if moment is None else moment.isoformat()
+
+    return {
+        "id": info.id,
+        "title": info.title,
+        "status": info.status,
+        "reason": info.reason,
+        "created_utc": iso(info.created),
+        "finished_utc": iso(info.finished),
+        "sequence_path": info.sequence_path,
+        "sequence_sha256": info.sequence_sha256,
+        "bench_path": info.bench_path,
+        "bench_sha256": info.bench_sha256,
+        "simulated": info.simulated,
+        "operator": info.operator,
+        "part": info.part,
+        "serial": info.serial,
+        "tags": list(info.tags),
+        "points_done": info.points_done,
+        "points_total": info.points_total,
+        "instruments": [
+            {"role": i.role, "resource": i.resource, "profile": i.profile, "idn": i.idn}
+            for i in info.instruments
+        ],
+    }
+
+
+def register(app: typer.Typer) -> None:
+    """Add ``runs``, ``status`` and ``export`` to the root app."""
+    app.command("runs")(runs_command)
+    app.command("status")(status_command)
+    app.command("export")(export_command)

@@ -1,0 +1,158 @@
+"""Opening a bench: one transport and one generic driver per role, identified and limited.
+
+Nothing here enables an output. :func:`open_bench` connects, checks each ``*IDN?`` against
+its profile, reads the error queues empty, and narrows each driver's limits to the bench
+file's safety limits, so a command above a limit is refused by the driver before it is sent,
+whatever the engine asks.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import functools
+from collections.abc import Callable, Iterator, Mapping
+from dataclasses import dataclass, field
+
+from sweeprig.clock import Clock
+from sweeprig.errors import InputError
+from sweeprig.formats.bench import Bench
+from sweeprig.instruments import (
+    AnalyzerDriver,
+    ChamberDriver,
+    Driver,
+    PowerMeterDriver,
+    SimControlDriver,
+    SourceDriver,
+    SupplyDriver,
+    SwitchDriver,
+    load_profile,
+    make_driver,
+)
+from sweeprig.transport.base import Transaction, Transport
+from sweeprig.transport.visa import VisaTransport
+
+SOURCE_ROLES = ("rf", "rf2", "lo")
+
+
+@dataclass
+class BenchDrivers:
+    """The drivers of an open bench, by role (None where the bench has no such role)."""
+
+    rf: SourceDriver | None = None
+    rf2: SourceDriver | None = None
+    lo: SourceDriver | None = None
+    sa: AnalyzerDriver | None = None
+    pm: PowerMeterDriver | None = None
+    dc: SupplyDriver | None = None
+    chamber: ChamberDriver | None = None
+    switch: SwitchDriver | None = None
+    simctl: SimControlDriver | None = None
+    transports: dict[str, Transport] = field(default_factory=dict)
+
+    def items(self) -> Iterator[tuple[str, Driver]]:
+        """(role, driver) for every present role."""
+        for role in ("rf", "rf2", "lo", "sa", "pm", "dc", "chamber", "switch", "simctl"):
+            driver = getattr(self, role)
+            if driver is not None:
+                yield role, driver
+
+    def sources(self) -> Iterator[SourceDriver]:
+        """Every signal source present."""
+        for role in SOURCE_ROLES:
+            driver = getattr(self, role)
+            if driver is not None:
+                yield driver
+
+    def transactions(self) -> int:
+        """SCPI exchanges so far, all instruments."""
+        return sum(d.transactions for _, d in self.items())
+
+    def close(self) -> None:
+        """Close every transport (idempotent; never raises)."""
+        for transport in self.transports.values():
+            with contextlib.suppress(Exception):  # closing must not mask the real error
+                transport.close()
+
+
+def open_bench(
+    bench: Bench,
+    roles: Mapping[str, str],
+    *,
+    resources: Mapping[str, str] | None = None,
+    clock: Clock | None = None,
+    on_transaction: Callable[[str, Transaction], None] | None = None,
+) -> BenchDrivers:
+    """Connect and identify the instruments the run needs.
+
+    ``roles``: role → why it is needed (from the sequence); only these are opened (plus
+    ``simctl`` when ``resources`` has it). ``resources`` overrides the bench file's resource
+    strings (the in-process simulated bench fills them in). ``on_transaction(role, t)`` is
+    called after every SCPI exchange (the bus log). Raises :class:`InputError` for a
+    role the bench lacks, :class:`InstrumentError`/:class:`TransportError` for an instrument
+    that does not answer or is not what its profile expects. On failure everything opened
+    so far is closed again.
+    """
+    resources = dict(resources or {})
+    drivers = BenchDrivers()
+    wanted = list(roles)
+    if "simctl" in resources or bench.role("simctl") is not None:
+        wanted.append("simctl")
+    try:
+        for role in wanted:
+            if role == "simctl" and bench.role("simctl") is None:
+                resource, profile_name = resources["simctl"], "sim-control"
+            else:
+                spec = bench.role(role)
+                if spec is None:
+                    raise InputError(
+                        f"the bench has no role {role!r}, which the sequence needs "
+                        f"({roles[role]})",
+                        where=bench.where(("roles",)),
+                        fix=f"add roles.{role} = {{ resource = \"...\", profile = \"...\" }}",
+                    )
+                resource = resources.get(role, spec.resource)
+                profile_name = spec.profile
+            profile = load_profile(profile_name)
+            transport = VisaTransport(
+                resource,
+                visa_library=bench.bench.visa_library,
+                timeout_s=float(bench.bench.timeout),
+            )
+            transport.on_transaction = (
+                None if on_transaction is None else functools.partial(on_transaction, role)
+            )
+            drivers.transports[role] = transport
+            driver = make_driver(profile, role, transport, clock=clock)
+            setattr(drivers, role, driver)
+            driver.identify()
+            driver.errors()  # start from an empty error queue
+        _apply_bench_limits(bench, drivers)
+    except BaseException:
+        drivers.close()
+        raise
+    return drivers
+
+
+def _apply_bench_limits(bench: Bench, drivers: BenchDrivers) -> None:
+    """Narrow the drivers' limits to the bench file's safety limits (never widen)."""
+    limits = bench.limits
+    source_max = limits.source_max_power
+    for role in SOURCE_ROLES:
+        driver: SourceDriver | None = getattr(drivers, role)
+        value = getattr(source_max, role, None)
+        if driver is not None and value is not None:
+            driver.tighten_limit("power", max_value=float(value))
+    if drivers.dc is not None:
+        caps = [v for v in (limits.supply_max_voltage, limits.part.supply_max) if v is not None]
+        if caps:
+            drivers.dc.tighten_limit("voltage", max_value=min(float(v) for v in caps))
+        if limits.supply_max_current is not None:
+            drivers.dc.tighten_limit("current_limit", max_value=float(limits.supply_max_current))
+    if drivers.chamber is not None and (
+        limits.chamber_min is not None or limits.chamber_max is not None
+    ):
+        drivers.chamber.tighten_limit(
+            "setpoint",
+            min_value=None if limits.chamber_min is None else float(limits.chamber_min),
+            max_value=None if limits.chamber_max is None else float(limits.chamber_max),
+        )

@@ -1,0 +1,331 @@
+"""The run loop: points in plan order, each applied, read and committed to the store.
+
+Order of work for every point (the plan already put slow settings outermost):
+
+1. chamber set point (only when it changes): set, wait until the DUT probe is within the
+   tolerance, then soak; RF is off while the temperature moves;
+2. supply voltage (when it changes), output on;
+3. LO, RF and RF2 frequency and level: source setting = DUT-plane power + path loss; a
+   setting the instrument already has is not sent again (the drivers' cache);
+4. RF outputs on, then the settling time if anything changed;
+5. each reading (analyzer: route the switch, configure, sweep, marker at the product and at
+   a noise offset, overload flag; power meter; supply current); levels are referred back to
+   the DUT port planes by adding the path loss;
+6. the point and all its readings are written in one transaction.
+
+The error queue of every instrument configured in a block is drained after the block; an
+instrument error stops the run (retry policies come with the fault-handling layer). On any
+exit the caller puts the bench in its safe state (:mod:`sweeprig.engine.safe`).
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable, Iterable
+from dataclasses import dataclass, field
+
+from sweeprig.clock import Clock
+from sweeprig.engine.connect import BenchDrivers
+from sweeprig.errors import InputError, InstrumentError
+from sweeprig.formats.bench import Bench
+from sweeprig.formats.sequence import Sequence
+from sweeprig.instruments import Driver
+from sweeprig.plan.expand import Point
+from sweeprig.plan.readings import Reading
+from sweeprig.store.base import PointRecord, ReadingRecord, RunStore, utc_now
+
+CHAMBER_POLL_S = 10.0
+"""How often the DUT probe temperature is read while waiting for a set point, s."""
+CHAMBER_TIMEOUT_S = 4 * 3600.0
+"""Give up waiting for a set point after this long, s."""
+NOISE_OFFSET_RBW = 4.0
+"""The noise-floor marker sits this many RBWs above the product (inside the span)."""
+
+
+@dataclass
+class PointResult:
+    """What one point produced (for progress display)."""
+
+    point: Point
+    readings: list[ReadingRecord]
+    gain_db: float | None
+
+
+@dataclass
+class RunProgress:
+    """Counters the reporter shows."""
+
+    done: int = 0
+    total: int = 0
+    last: PointResult | None = None
+    notes: list[str] = field(default_factory=list)
+
+
+class Runner:
+    """Runs points on an open bench and writes them to a store.
+
+    ``sequence``/``bench``: the validated files. ``drivers``: the open bench.
+    ``store``/``run_id``: where points go. ``clock``: the bench clock (virtual on the
+    simulated bench). ``on_point``: called after each committed point.
+    """
+
+    def __init__(
+        self,
+        *,
+        sequence: Sequence,
+        bench: Bench,
+        drivers: BenchDrivers,
+        store: RunStore,
+        run_id: int,
+        clock: Clock,
+        on_point: Callable[[PointResult], None] | None = None,
+        log: Callable[[str], None] = lambda _msg: None,
+    ) -> None:
+        self.sequence = sequence
+        self.bench = bench
+        self.d = drivers
+        self.store = store
+        self.run_id = run_id
+        self.clock = clock
+        self.on_point = on_point
+        self.log = log
+        self._temperature_c: float | None = None
+        self._supply_v: float | None = None
+        self._supply_on = False
+        cond = sequence.conditions
+        self.settle_s = float(cond.settle)
+        self.soak_s = float(cond.soak)
+        self.tolerance_c = float(cond.temperature_tolerance)
+
+    # -- the loop ---------------------------------------------------------------------------
+
+    def run(self, points: Iterable[Point]) -> int:
+        """Measure and store every point; returns how many were stored."""
+        self._prepare()
+        stored = 0
+        for point in points:
+            result = self.measure(point)
+            self.store.heartbeat(self.run_id)
+            stored += 1
+            if self.on_point is not None:
+                self.on_point(result)
+        return stored
+
+    def _prepare(self) -> None:
+        """Instrument set-up that holds for the whole run (no output enabled)."""
+        for _role, driver in self.d.items():
+            driver.prepare()
+        if self.d.dc is not None and self.bench.limits.supply_max_current is not None:
+            self.d.dc.set_current_limit(float(self.bench.limits.supply_max_current))
+        self._check(*(d for _, d in self.d.items()))
+
+    def measure(self, point: Point) -> PointResult:
+        """Apply ``point``, take its readings, commit them; return the result."""
+        sim_start, wall_start = self.clock.now(), utc_now()
+        changed = self._apply_conditions(point)
+        changed |= self._apply_sources(point)
+        if changed:
+            self.clock.sleep(self.settle_s)
+        records = [self._read(point, reading) for reading in point.readings]
+        probe_c = self.d.chamber.probe_temperature_c() if self.d.chamber is not None else None
+        current_a = next((r.extra["current_a"] for r in records if "current_a" in r.extra), None)
+        record = PointRecord(
+            index=point.index,
+            study=point.study,
+            temperature_c=point.temperature_c,
+            supply_v=point.supply_v,
+            lo_freq_hz=point.lo_freq_hz,
+            lo_power_dbm=point.lo_power_dbm,
+            rf_freq_hz=point.rf_freq_hz,
+            rf_power_dbm=point.rf_power_dbm,
+            rf2_freq_hz=point.rf2_freq_hz,
+            rf2_power_dbm=point.rf2_power_dbm,
+            probe_temperature_c=probe_c,
+            supply_current_a=current_a,
+            sim_start_s=sim_start,
+            sim_end_s=self.clock.now(),
+            wall_start=wall_start,
+            wall_end=utc_now(),
+            extra={"if_freq_hz": point.if_freq_hz, "tone_spacing_hz": point.tone_spacing_hz,
+                   "axis_index": dict(point.axis_index)},
+        )
+        self.store.write_point(self.run_id, record, records)
+        wanted = next((r for r in records if r.name == "wanted"), None)
+        gain = None
+        if wanted is not None and wanted.level_dbm is not None:
+            gain = wanted.level_dbm - point.rf_power_dbm
+        return PointResult(point, records, gain)
+
+    # -- settings ---------------------------------------------------------------------------
+
+    def _apply_conditions(self, point: Point) -> bool:
+        changed = False
+        if point.temperature_c is not None and point.temperature_c != self._temperature_c:
+            self._go_to_temperature(point.temperature_c)
+            self._temperature_c = point.temperature_c
+            changed = True
+        dc = self.d.dc
+        if dc is not None and point.supply_v is not None:
+            sent = dc.set_voltage(point.supply_v)
+            if not self._supply_on:
+                sent |= dc.set_output(True)
+                self._supply_on = True
+            if sent:
+                self._check(dc)
+                changed = True
+        return changed
+
+    def _go_to_temperature(self, temperature_c: float) -> None:
+        """Set the chamber, wait for the DUT probe, soak. RF is off meanwhile."""
+        chamber = self.d.chamber
+        if chamber is None:
+            raise InputError(
+                "the sequence sets temperatures but the bench has no chamber",
+                where=self.sequence.where(("conditions", "temperature")),
+                fix="add roles.chamber to the bench file, or remove conditions.temperature",
+            )
+        for source in self.d.sources():
+            source.set_output(False)
+        chamber.set_control(True)
+        chamber.set_setpoint_c(temperature_c)
+        self._check(chamber)
+        self.log(f"chamber to {temperature_c:g} degC")
+        waited = 0.0
+        while abs(chamber.probe_temperature_c() - temperature_c) > self.tolerance_c:
+            if waited >= CHAMBER_TIMEOUT_S:
+                raise InstrumentError(
+                    f"the DUT probe did not reach {temperature_c:g} degC "
+                    f"(±{self.tolerance_c:g}) within {CHAMBER_TIMEOUT_S / 3600:g} h",
+                    where=chamber.where(),
+                    fix="check the chamber and the probe; a chamber that cannot reach the "
+                    "set point must not be left running unattended",
+                )
+            self.clock.sleep(CHAMBER_POLL_S)
+            waited += CHAMBER_POLL_S
+        self.log(f"probe at {temperature_c:g} degC after {waited:g} s; soaking {self.soak_s:g} s")
+        self.clock.sleep(self.soak_s)
+
+    def _apply_sources(self, point: Point) -> bool:
+        """LO, RF, RF2 to the point's settings; outputs on. True if anything was sent."""
+        sent = False
+        plan = [("lo", point.lo_freq_hz, point.lo_power_dbm, "lo"),
+                ("rf", point.rf_freq_hz, point.rf_power_dbm, "rf")]
+        if point.rf2_freq_hz is not None and point.rf2_power_dbm is not None:
+            plan.append(("rf2", point.rf2_freq_hz, point.rf2_power_dbm, "rf2"))
+        configured: list[Driver] = []
+        for role, freq_hz, power_dbm, connection in plan:
+            source = getattr(self.d, role)
+            if source is None:
+                raise InputError(f"the bench has no {role!r} source", where="bench",
+                                 fix=f"add roles.{role} to the bench file")
+            block = source.set_frequency(freq_hz)
+            block |= source.set_power(power_dbm + self.bench.loss(connection).at(freq_hz))
+            block |= source.set_output(True)
+            if block:
+                configured.append(source)
+            sent |= block
+        if point.rf2_freq_hz is None and self.d.rf2 is not None:
+            sent |= self.d.rf2.set_output(False)
+        self._check(*configured)
+        return sent
+
+    # -- readings ---------------------------------------------------------------------------
+
+    def _read(self, point: Point, reading: Reading) -> ReadingRecord:
+        if reading.instrument == "pm":
+            return self._read_power_meter(point, reading)
+        if reading.instrument == "dc":
+            return self._read_supply(reading)
+        return self._read_analyzer(point, reading)
+
+    def _read_analyzer(self, point: Point, reading: Reading) -> ReadingRecord:
+        sa = self.d.sa
+        if sa is None or reading.analyzer is None or reading.freq_hz is None:
+            raise InputError(f"reading {reading.name!r} needs the spectrum analyzer",
+                             where="bench", fix="add roles.sa to the bench file")
+        port = reading.port or "if"
+        if self.d.switch is not None and self.d.switch.select(self.bench.switch_channel(port)):
+            self._check(self.d.switch)
+        rf = self.d.rf
+        if reading.rf_retune_hz is not None and rf is not None:
+            rf.set_frequency(reading.rf_retune_hz)
+            self._check(rf)
+            self.clock.sleep(self.settle_s)
+        a = reading.analyzer
+        if sa.configure(
+            centre_hz=a.center_hz, span_hz=a.span_hz, rbw_hz=a.rbw_hz,
+            ref_level_dbm=a.reference_level_dbm, attenuation_db=a.attenuation_db,
+            averages=a.averages,
+        ):
+            self._check(sa)
+        sa.sweep()
+        level = sa.marker_level_dbm(reading.freq_hz)
+        noise = sa.marker_level_dbm(reading.freq_hz + NOISE_OFFSET_RBW * a.rbw_hz)
+        overload = sa.overloaded()
+        if reading.rf_retune_hz is not None and rf is not None:
+            rf.set_frequency(point.rf_freq_hz)
+            self._check(rf)
+        loss = self.bench.loss(_connection_of(port)).at(reading.freq_hz)
+        orders = reading.orders or ()
+        return ReadingRecord(
+            name=reading.name,
+            kind=reading.kind,
+            port=port,
+            freq_hz=reading.freq_hz,
+            level_dbm=level + loss,
+            noise_floor_dbm=noise + loss,
+            m=orders[0] if len(orders) >= 1 else None,
+            n=orders[1] if len(orders) >= 2 else None,
+            span_hz=a.span_hz,
+            rbw_hz=a.rbw_hz,
+            attenuation_db=a.attenuation_db,
+            ref_level_dbm=a.reference_level_dbm,
+            averages=a.averages,
+            overload=overload,
+            attenuation_check=True if reading.attenuation_check else None,
+            extra=_reading_extra(reading, level, loss),
+        )
+
+    def _read_power_meter(self, point: Point, reading: Reading) -> ReadingRecord:
+        pm = self.d.pm
+        if pm is None:
+            raise InputError("the input_power reading needs the power meter", where="bench",
+                             fix="add roles.pm to the bench file")
+        freq = reading.freq_hz if reading.freq_hz is not None else point.rf_freq_hz
+        if pm.set_frequency(freq):
+            self._check(pm)
+        level = pm.read_power_dbm()
+        return ReadingRecord(name=reading.name, kind=reading.kind, port="rf", freq_hz=freq,
+                             level_dbm=level)
+
+    def _read_supply(self, reading: Reading) -> ReadingRecord:
+        dc = self.d.dc
+        if dc is None:
+            raise InputError("the supply_current reading needs the DC supply", where="bench",
+                             fix="add roles.dc to the bench file")
+        current = dc.measure_current_a()
+        voltage = dc.measure_voltage_v()
+        return ReadingRecord(name=reading.name, kind=reading.kind, port="dc",
+                             extra={"current_a": current, "voltage_v": voltage})
+
+    # -- errors -----------------------------------------------------------------------------
+
+    def _check(self, *drivers: Driver) -> None:
+        """Drain the error queue of each instrument configured in the last block."""
+        for driver in drivers:
+            driver.check_errors()
+
+
+def _connection_of(port: str) -> str:
+    return {"if": "if", "rf": "rf_port", "lo": "lo_port"}[port]
+
+
+def _reading_extra(reading: Reading, level_dbm: float, loss_db: float) -> dict[str, object]:
+    extra: dict[str, object] = {"analyzer_level_dbm": level_dbm, "path_loss_db": loss_db}
+    if reading.orders is not None and len(reading.orders) > 2:
+        extra["orders"] = list(reading.orders)
+    if reading.repeat_of is not None:
+        extra["repeat_of"] = reading.repeat_of
+    if reading.expected_dbm is not None and math.isfinite(reading.expected_dbm):
+        extra["expected_dbm"] = reading.expected_dbm
+    return extra

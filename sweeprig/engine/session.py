@@ -1,0 +1,340 @@
+"""One run, start to finish: files → pre-flight → bench → store → points → safe state.
+
+:func:`run_sequence` is the Python API behind ``sweeprig run``. Everything that can be
+refused is refused before an instrument is touched: the files are loaded and validated, the
+pre-flight check predicts every port power of every point against the limits, and only then
+are the instruments opened (identification only), the run recorded, and outputs enabled.
+
+Whatever ends the run — the last point, an exception, Ctrl-C (SIGINT), SIGTERM or SIGHUP —
+the bench is put in its safe state (RF off, supply safe, chamber idle) and the run is marked
+``complete`` or ``aborted`` with its reason.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import logging
+import re
+import signal
+import time
+from collections.abc import Callable, Iterator, Mapping
+from contextlib import contextmanager
+from dataclasses import dataclass
+from pathlib import Path
+from types import FrameType
+
+from sweeprig.clock import Clock, VirtualClock, WallClock
+from sweeprig.engine.connect import BenchDrivers, open_bench
+from sweeprig.engine.runner import PointResult, Runner
+from sweeprig.engine.safe import SafeOutcome, make_safe
+from sweeprig.engine.simclock import SimControlClock
+from sweeprig.errors import SweeprigError
+from sweeprig.formats.bench import Bench, load_bench
+from sweeprig.formats.sequence import Sequence, load_sequence, required_roles
+from sweeprig.instruments import available_profiles
+from sweeprig.plan.duration import estimate_duration
+from sweeprig.plan.expand import count_points, iter_points
+from sweeprig.plan.preflight import PreflightReport, check_roles, preflight
+from sweeprig.store.base import DEFAULT_STORE_PATH, InstrumentRecord
+from sweeprig.store.sqlite import SqliteRunStore
+
+SIM_BENCH_FILE = "benches/sim.toml"
+"""The built-in simulated bench's bench file, inside the shipped sequences folder."""
+
+
+class RunStopped(Exception):
+    """A signal asked the run to stop (SIGTERM, SIGHUP); Ctrl-C raises KeyboardInterrupt."""
+
+    def __init__(self, signame: str) -> None:
+        super().__init__(f"stopped by {signame}")
+        self.signame = signame
+
+
+@dataclass(frozen=True)
+class RunOutcome:
+    """How a run ended."""
+
+    run_id: int
+    status: str
+    reason: str | None
+    points_done: int
+    points_total: int
+    store_path: Path
+    log_path: Path
+    sim_elapsed_s: float
+    wall_elapsed_s: float
+    predicted_bench_s: float
+    safe: SafeOutcome | None
+
+
+@dataclass(frozen=True)
+class LoadedFiles:
+    """Validated inputs of a run."""
+
+    sequence: Sequence
+    sequence_path: Path
+    sequence_text: str
+    bench: Bench
+    bench_path: Path
+    bench_text: str
+    simulated: bool
+    report: PreflightReport
+
+
+def shipped_sequences_dir() -> Path:
+    """The ``sequences/`` folder: inside the installed package, else the source checkout's."""
+    here = Path(__file__).resolve().parent.parent
+    for candidate in (here / "_sequences", here.parent / "sequences"):
+        if candidate.is_dir():
+            return candidate
+    return here.parent / "sequences"
+
+
+def served_bench_text(resources: Mapping[str, str]) -> str:
+    """The built-in simulated bench's bench file with each ``resource = "sim"`` replaced by
+    the VISA resource string of a served simulated instrument (``sweeprig sim serve``), so the
+    engine can run on it exactly as on a real bench."""
+    text = (shipped_sequences_dir() / SIM_BENCH_FILE).read_text(encoding="utf-8")
+
+    def fill(match: re.Match[str]) -> str:
+        role = match.group(1)
+        if role not in resources:
+            return match.group(0)
+        return f'{role}{match.group(2)}{{ resource = "{resources[role]}"'
+
+    text = re.sub(r'^(\w+)(\s*=\s*)\{\s*resource\s*=\s*"sim"', fill, text, flags=re.M)
+    if "simctl" in resources and not re.search(r"^simctl\s*=", text, flags=re.M):
+        line = f'simctl  = {{ resource = "{resources["simctl"]}", profile = "sim-control" }}'
+        text = re.sub(r"^\[roles\]\n", f"[roles]\n{line}\n", text, count=1, flags=re.M)
+    return text
+
+
+def load_run_files(sequence_path: str | Path, bench_path: str | Path | None, *,
+                   sim: bool) -> LoadedFiles:
+    """Load and check the sequence and bench files and run the pre-flight check.
+
+    Touches no instrument. ``sim`` with no bench file uses the built-in simulated bench's
+    bench file. Raises :class:`SweeprigError` subclasses with file/line/key messages.
+    """
+    seq_path = Path(sequence_path)
+    sequence = load_sequence(seq_path)
+    if bench_path is None:
+        if not sim:
+            raise _NoBench()
+        bench_path = shipped_sequences_dir() / SIM_BENCH_FILE
+    b_path = Path(bench_path)
+    bench = load_bench(b_path, known_profiles=available_profiles())
+    check_roles(sequence, bench)
+    report = preflight(sequence, bench)
+    return LoadedFiles(
+        sequence=sequence,
+        sequence_path=seq_path,
+        sequence_text=_read_text(seq_path),
+        bench=bench,
+        bench_path=b_path,
+        bench_text=_read_text(b_path),
+        simulated=sim,
+        report=report,
+    )
+
+
+class _NoBench(SweeprigError):
+    def __init__(self) -> None:
+        super().__init__(
+            "no bench given",
+            where="sweeprig run",
+            fix="give --bench BENCH.toml for real instruments, or --sim for the simulated bench",
+        )
+
+
+def run_sequence(
+    sequence_path: str | Path,
+    bench_path: str | Path | None = None,
+    *,
+    sim: bool = False,
+    sim_description: str | Path | None = None,
+    store_path: str | Path = DEFAULT_STORE_PATH,
+    realtime: bool = False,
+    on_start: Callable[[int, int, LoadedFiles], None] | None = None,
+    on_point: Callable[[PointResult], None] | None = None,
+    log_dir: str | Path | None = None,
+) -> RunOutcome:
+    """Run a sequence on a bench (or the in-process simulated bench) into a store.
+
+    ``on_start(run_id, total_points, files)`` is called once the run is recorded;
+    ``on_point`` after each committed point. Returns how the run ended; raises only for
+    problems found before any instrument was touched (bad files, pre-flight refusals).
+    """
+    files = load_run_files(sequence_path, bench_path, sim=sim)
+    total = count_points(files.sequence)
+    predicted = estimate_duration(files.sequence, files.bench).total_s
+    store_path = Path(store_path)
+    store = SqliteRunStore(store_path)
+    wall0 = time.monotonic()
+    sim_bench = None
+    drivers: BenchDrivers | None = None
+    run_id: int | None = None
+    status, reason = "aborted", "did not start"
+    done = 0
+    safe: SafeOutcome | None = None
+    clock: Clock = WallClock()
+    sim_t0 = 0.0
+    log_dir = Path(log_dir) if log_dir is not None else store_path.parent
+    log_path = log_dir / "run-pending.log"
+    logger: logging.Logger | None = None
+    try:
+        with _stop_on_signals():
+            resources: dict[str, str] = {}
+            if sim or files.bench.is_simulated():
+                from sweeprig.sim.bench import start_sim_bench
+
+                clock = VirtualClock(realtime_factor=1.0 if realtime else 0.0)
+                sim_bench = start_sim_bench(sim_description, clock=clock)
+                resources = dict(sim_bench.resources)
+            sim_t0 = clock.now()
+            roles = required_roles(files.sequence)
+            drivers = open_bench(files.bench, roles, resources=resources, clock=clock)
+            if sim_bench is None and drivers.simctl is not None:
+                clock = SimControlClock(drivers.simctl)  # a served simulated bench
+                sim_t0 = clock.now()
+            seq = files.sequence
+            run_id = store.create_run(
+                sequence_path=str(files.sequence_path),
+                sequence_text=files.sequence_text,
+                bench_path=str(files.bench_path),
+                bench_text=files.bench_text,
+                simulated=sim_bench is not None,
+                operator=seq.about.operator,
+                part=seq.part.id,
+                serial=seq.part.serial,
+                tags=seq.about.tags,
+                title=seq.about.title,
+                points_total=total,
+                status="running",
+            )
+            log_path = log_dir / f"run-{run_id}.log"
+            logger = _file_logger(log_path, run_id)
+            logger.info("run %d: %s on %s (%d points, predicted %.0f s on a real bench)",
+                        run_id, files.sequence_path, files.bench_path, total, predicted)
+            store.record_instruments(run_id, [
+                InstrumentRecord(role, d.resource, d.profile.name, d.idn or "")
+                for role, d in drivers.items()
+            ])
+            store.heartbeat(run_id)
+            if on_start is not None:
+                on_start(run_id, total, files)
+
+            def point_done(result: PointResult) -> None:
+                nonlocal done
+                done += 1
+                if on_point is not None:
+                    on_point(result)
+
+            runner = Runner(
+                sequence=seq, bench=files.bench, drivers=drivers, store=store, run_id=run_id,
+                clock=clock, on_point=point_done,
+                log=(logger.info if logger is not None else lambda _m: None),
+            )
+            runner.run(iter_points(seq, files.bench))
+            status, reason = "complete", None
+    except KeyboardInterrupt:
+        status, reason = "aborted", "stopped by SIGINT (Ctrl-C)"
+    except RunStopped as stop:
+        status, reason = "aborted", str(stop)
+    except SweeprigError as exc:
+        status, reason = "aborted", exc.message()
+        if run_id is None:
+            raise  # refused before the run was recorded; the finally block cleans up
+    except Exception as exc:  # an unexpected fault still ends in the safe state
+        status, reason = "aborted", f"internal error: {type(exc).__name__}: {exc}"
+        if logger is not None:
+            logger.exception("unexpected error")
+    finally:
+        sim_elapsed = _elapsed(clock, sim_t0)
+        safe = _finish(drivers, sim_bench, files, logger)
+        if run_id is not None:
+            if safe is not None and not safe.ok:
+                failed = "; ".join(f"{name}: {err}" for name, err in safe.failed)
+                reason = f"{reason or 'complete'}; SAFE STATE INCOMPLETE: {failed}"
+                store.log_event(run_id, "error", "safe_state", "safe state incomplete",
+                                {"failed": dict(safe.failed)})
+            store.set_status(run_id, status, reason)  # type: ignore[arg-type]
+            if logger is not None:
+                logger.info("run %d %s%s", run_id, status, f": {reason}" if reason else "")
+        store.close()
+        if logger is not None:
+            for handler in list(logger.handlers):
+                handler.close()
+                logger.removeHandler(handler)
+        if sim_bench is not None:
+            sim_bench.close()
+    assert run_id is not None
+    return RunOutcome(
+        run_id=run_id, status=status, reason=reason, points_done=done, points_total=total,
+        store_path=store_path, log_path=log_path, sim_elapsed_s=sim_elapsed,
+        wall_elapsed_s=time.monotonic() - wall0, predicted_bench_s=predicted, safe=safe,
+    )
+
+
+def _elapsed(clock: Clock, t0: float) -> float:
+    """Bench-clock time since ``t0``, s (0 when the clock cannot be read any more)."""
+    try:
+        return clock.now() - t0
+    except SweeprigError:
+        return 0.0
+
+
+def _finish(drivers: BenchDrivers | None, sim_bench: object, files: LoadedFiles,
+            logger: logging.Logger | None) -> SafeOutcome | None:
+    """Safe state, then close the instruments (idempotent)."""
+    if drivers is None:
+        return None
+    state = files.bench.safe_state
+    supply = None if state.supply in (None, "off") else float(state.supply)
+    chamber = None if state.chamber in (None, "off") else float(state.chamber)
+    outcome = make_safe(drivers, supply_safe_v=supply, chamber_idle_c=chamber,
+                        log=(logger.warning if logger is not None else lambda _m: None))
+    drivers.close()
+    if logger is not None:
+        logger.info("safe state: %s", ", ".join(outcome.done) or "nothing to do")
+    return outcome
+
+
+@contextmanager
+def _stop_on_signals() -> Iterator[None]:
+    """Turn SIGTERM and SIGHUP into :class:`RunStopped` (SIGINT stays KeyboardInterrupt)."""
+
+    def handler(signum: int, _frame: FrameType | None) -> None:
+        raise RunStopped(signal.Signals(signum).name)
+
+    previous: dict[int, object] = {}
+    try:
+        for sig in (signal.SIGTERM, signal.SIGHUP):
+            try:
+                previous[sig] = signal.signal(sig, handler)
+            except ValueError:  # not the main thread: leave signals alone
+                break
+        yield
+    finally:
+        for sig, old in previous.items():
+            signal.signal(sig, old)  # type: ignore[arg-type]
+
+
+def _file_logger(path: Path, run_id: int) -> logging.Logger:
+    path.parent.mkdir(parents=True, exist_ok=True)
+    logger = logging.getLogger(f"sweeprig.run.{run_id}.{id(path)}")
+    logger.setLevel(logging.INFO)
+    logger.propagate = False
+    handler = logging.FileHandler(path, encoding="utf-8")
+    handler.setFormatter(logging.Formatter("%(asctime)s %(levelname)s %(message)s"))
+    logger.addHandler(handler)
+    return logger
+
+
+def _read_text(path: Path) -> str:
+    return path.read_text(encoding="utf-8")
+
+
+def file_sha256(text: str) -> str:
+    """SHA-256 of a file's text (UTF-8), hex."""
+    return hashlib.sha256(text.encode("utf-8")).hexdigest()

@@ -1,0 +1,321 @@
+"""Bench files: what is on the bench, how it is wired, and the safety limits.
+
+Roles map to a VISA resource string and a driver profile name (a file in ``drivers/``).
+Path losses are per connection (see :mod:`sweeprig.formats.pathloss`). Limits are enforced by
+the pre-flight check before any output is enabled. :func:`load_bench` is the entry point.
+"""
+
+from __future__ import annotations
+
+import os
+import re
+from collections.abc import Callable, Collection
+from pathlib import Path
+from typing import Annotated, Any, Literal
+
+from pydantic import BeforeValidator, Discriminator, Field, PrivateAttr, Tag, WithJsonSchema
+
+from sweeprig.errors import InputError
+from sweeprig.formats.fields import (
+    TAG_PREFIX,
+    Current,
+    Frozen,
+    LevelDb,
+    Power,
+    StrictInt,
+    Temperature,
+    Time,
+    Voltage,
+    quantity_parser,
+)
+from sweeprig.formats.loading import display_path, load_document, validate
+from sweeprig.formats.pathloss import (
+    ConstantLoss,
+    PathLoss,
+    read_csv_loss,
+    read_touchstone_loss,
+)
+from sweeprig.formats.toml_locate import KeyPath, format_key_path
+
+#: Every role a bench may fill.
+ROLES: tuple[str, ...] = (
+    "rf", "rf2", "lo", "sa", "pm", "dc", "chamber", "switch", "simctl",
+)
+#: Source roles (their output power is limited by ``limits.source_max_power``).
+SOURCE_ROLES: tuple[str, ...] = ("rf", "rf2", "lo")
+#: Connections with a path loss: source → DUT port, and DUT port → analyzer.
+CONNECTIONS: tuple[str, ...] = ("rf", "rf2", "lo", "if", "rf_port", "lo_port")
+#: Placeholder resource of a role on the simulated bench (filled in at run time).
+SIM_RESOURCE = "sim"
+
+_PROFILE_PATTERN = r"^[a-z0-9-]+$"
+_RESOURCE = re.compile(r"^(TCPIP|GPIB|USB|ASRL|VXI|PXI|VICP)[^:]*::.+", re.IGNORECASE)
+
+
+class Role(Frozen):
+    """One instrument on the bench."""
+
+    resource: str = Field(description='VISA resource string, e.g. '
+                          '"TCPIP0::192.0.2.10::5025::SOCKET", or "sim" on the simulated bench')
+    profile: str = Field(pattern=_PROFILE_PATTERN,
+                         description="driver profile name (a file in drivers/), e.g. scpi-source")
+    noise_figure: LevelDb | None = Field(
+        None, description="sa only: the analyzer's noise figure, for auto RBW (default 24 dB)")
+    channels: dict[Literal["if", "rf", "lo"], StrictInt] | None = Field(
+        None, description="switch only: channel that routes the analyzer to each DUT port "
+        "(default if = 1, rf = 2, lo = 3)")
+
+
+class Roles(Frozen):
+    """The instruments by role. Only the roles a sequence needs must be present."""
+
+    rf: Role | None = Field(None, description="RF source (tone 1)")
+    rf2: Role | None = Field(None, description="second RF source through the combiner (tone 2)")
+    lo: Role | None = Field(None, description="LO source")
+    sa: Role | None = Field(None, description="spectrum analyzer (on the IF port, or via the "
+                            "switch on the RF or LO port)")
+    pm: Role | None = Field(None, description="power meter (sensor at the DUT RF port plane)")
+    dc: Role | None = Field(None, description="DC supply of the DUT")
+    chamber: Role | None = Field(None, description="thermal chamber")
+    switch: Role | None = Field(None, description="RF switch routing the analyzer input")
+    simctl: Role | None = Field(
+        None, description="simulated bench only: its clock control, so waits pass in "
+        "simulated time (written by `sweeprig sim serve --bench-file`)")
+
+
+class BenchInfo(Frozen):
+    """Name and connection defaults of the bench."""
+
+    name: str = Field(description="name of the bench")
+    location: str = Field("", description="where it stands")
+    visa_library: str = Field("@py", description='pyvisa backend, e.g. "@py" (pyvisa-py)')
+    timeout: Time = Field(5.0, description="I/O timeout per instrument command")
+
+
+class LossFile(Frozen):
+    """A path loss read from a file (paths relative to the bench file)."""
+
+    csv: str | None = Field(None, description="CSV table with columns freq_hz, loss_db")
+    touchstone: str | None = Field(None, description="two-port Touchstone file (.s2p); "
+                                   "loss = −20·log10|S21|")
+
+
+def _loss_shape(value: Any) -> str:
+    return f"{TAG_PREFIX}file" if isinstance(value, dict | LossFile) else f"{TAG_PREFIX}constant"
+
+
+LossValue = Annotated[
+    Annotated[LevelDb, Tag(f"{TAG_PREFIX}constant")]
+    | Annotated[LossFile, Tag(f"{TAG_PREFIX}file")],
+    Discriminator(_loss_shape),
+]
+
+
+class PathLosses(Frozen):
+    """Loss of each connection, dB (positive = attenuation). Left out: 0 dB."""
+
+    rf: LossValue = Field(0.0, description="rf source → DUT RF port")
+    rf2: LossValue = Field(0.0, description="rf2 source → DUT RF port (incl. the combiner)")
+    lo: LossValue = Field(0.0, description="lo source → DUT LO port")
+    if_: LossValue = Field(0.0, alias="if", description="DUT IF port → analyzer")
+    rf_port: LossValue = Field(0.0, description="DUT RF port → analyzer (via the switch)")
+    lo_port: LossValue = Field(0.0, description="DUT LO port → analyzer (via the switch)")
+
+
+class SourceLimits(Frozen):
+    """Highest output setting allowed for each source, dBm (at the source's connector)."""
+
+    rf: Power | None = None
+    rf2: Power | None = None
+    lo: Power | None = None
+
+
+class PartRatings(Frozen):
+    """The part's absolute maximum ratings (never exceeded, at the DUT's port planes)."""
+
+    rf_input_max: Power | None = Field(None, description="RF port, total input power")
+    lo_input_max: Power | None = Field(None, description="LO port input power")
+    supply_max: Voltage | None = Field(None, description="supply voltage")
+
+
+class Limits(Frozen):
+    """Safety limits, enforced before any output is enabled."""
+
+    source_max_power: SourceLimits = Field(default_factory=SourceLimits)
+    analyzer_max_input: Power | None = Field(None, description="spectrum analyzer input")
+    power_meter_max_input: Power | None = Field(None, description="power meter sensor input")
+    supply_max_voltage: Voltage | None = Field(None, description="highest supply setting")
+    supply_max_current: Current | None = Field(
+        None, description="supply current limit (also set as the supply's current limit)")
+    chamber_min: Temperature | None = Field(None, description="lowest chamber set point")
+    chamber_max: Temperature | None = Field(None, description="highest chamber set point")
+    part: PartRatings = Field(default_factory=PartRatings)
+
+
+def _off_or(kind_parser: Callable[[Any], float]) -> Callable[[Any], Any]:
+    def parse(value: Any) -> Any:
+        if isinstance(value, str) and value.strip().lower() == "off":
+            return "off"
+        return kind_parser(value)
+
+    return parse
+
+
+_voltage = quantity_parser("voltage")
+_temperature = quantity_parser("temperature")
+
+
+_OFF_SCHEMA = {"anyOf": [{"type": "number"}, {"type": "string"}]}
+
+
+class SafeState(Frozen):
+    """Where the bench is left at the end of a run and on any failure (RF is always off)."""
+
+    supply: Annotated[Any, BeforeValidator(_off_or(_voltage)), WithJsonSchema(
+        {**_OFF_SCHEMA, "description": '"off", or a safe voltage such as "0 V"'})] = "off"
+    chamber: Annotated[Any, BeforeValidator(_off_or(_temperature)), WithJsonSchema(
+        {**_OFF_SCHEMA, "description": '"off" (conditioning off), or an idle set point '
+         'such as "25 degC"'})] = 25.0
+
+
+class Bench(Frozen):
+    """A whole bench file."""
+
+    format: Literal[1] = Field(1, description="version of this file format")
+    include: tuple[str, ...] = Field((), description="fragments merged under this file")
+    bench: BenchInfo
+    roles: Roles = Field(default_factory=Roles)
+    path_loss: PathLosses = Field(default_factory=PathLosses)
+    limits: Limits = Field(default_factory=Limits)
+    safe_state: SafeState = Field(default_factory=SafeState)
+
+    _where: Callable[[KeyPath], str] | None = PrivateAttr(None)
+    _source: str | None = PrivateAttr(None)
+    _losses: dict[str, PathLoss] = PrivateAttr(default_factory=dict)
+
+    def where(self, key_path: KeyPath) -> str:
+        """``file:line: key.path`` of a key (the key path alone when not loaded from a file)."""
+        if self._where is not None:
+            return self._where(tuple(key_path))
+        return format_key_path(tuple(key_path))
+
+    @property
+    def source(self) -> str | None:
+        return self._source
+
+    def role(self, name: str) -> Role | None:
+        return getattr(self.roles, name)
+
+    def loss(self, connection: str) -> PathLoss:
+        """Path loss of ``connection`` (one of :data:`CONNECTIONS`)."""
+        if connection not in CONNECTIONS:
+            raise KeyError(connection)
+        if connection not in self._losses:
+            value = getattr(self.path_loss, "if_" if connection == "if" else connection)
+            if isinstance(value, LossFile):
+                raise InputError(f"path loss {connection} comes from a file but the bench was "
+                                 "not loaded from disk", where=self.where(("path_loss",
+                                                                           connection)))
+            self._losses[connection] = ConstantLoss(float(value), self.where(("path_loss",
+                                                                             connection)))
+        return self._losses[connection]
+
+    def switch_channel(self, port: str) -> int:
+        """Switch channel that routes the analyzer to DUT ``port`` ("if", "rf", "lo")."""
+        defaults = {"if": 1, "rf": 2, "lo": 3}
+        role = self.roles.switch
+        if role is not None and role.channels and port in role.channels:
+            return role.channels[port]  # type: ignore[index]
+        return defaults[port]
+
+    def analyzer_noise_figure_db(self) -> float:
+        """The analyzer's noise figure for auto RBW (24 dB when the bench does not say).
+
+        24 dB: a typical swept analyzer without preamplifier; from memory, no single source.
+        """
+        sa = self.roles.sa
+        return sa.noise_figure if sa is not None and sa.noise_figure is not None else 24.0
+
+    def is_simulated(self) -> bool:
+        """True when every present role has the placeholder resource ``"sim"``."""
+        present = [self.role(r) for r in ROLES if self.role(r) is not None]
+        return bool(present) and all(r.resource == SIM_RESOURCE for r in present)
+
+
+def load_bench(path: str | os.PathLike[str], *, known_profiles: Collection[str] | None = None
+               ) -> Bench:
+    """Read, validate and check a bench file; load its loss tables.
+
+    ``known_profiles``: names of the driver profiles that exist (the caller lists
+    ``drivers/``); when given, a role naming another profile is an error. Raises a located
+    :class:`~sweeprig.errors.InputError` for any problem.
+    """
+    doc = load_document(path)
+    bench = validate(Bench, doc)
+    bench._where = doc.where
+    bench._source = doc.display
+    check_bench(bench, known_profiles=known_profiles)
+    for name in CONNECTIONS:
+        value = getattr(bench.path_loss, "if_" if name == "if" else name)
+        key = ("path_loss", name)
+        if isinstance(value, LossFile):
+            origin = doc.root.origin(key).path.parent
+            bench._losses[name] = _load_loss_file(bench, key, value, origin)
+    return bench
+
+
+def _load_loss_file(bench: Bench, key: KeyPath, value: LossFile, base: Path) -> PathLoss:
+    where = bench.where(key)
+    if (value.csv is None) == (value.touchstone is None):
+        raise InputError("a path loss file needs exactly one of csv or touchstone",
+                         where=where, fix='write { csv = "cal/rf.csv" } or '
+                         '{ touchstone = "cal/rf.s2p" }')
+    if value.csv is not None:
+        path = base / value.csv
+        return read_csv_loss(path, display=display_path(path), where=where)
+    assert value.touchstone is not None
+    path = base / value.touchstone
+    return read_touchstone_loss(path, display=display_path(path), where=where)
+
+
+def check_bench(bench: Bench, *, known_profiles: Collection[str] | None = None) -> None:
+    """Checks across keys: resource strings, profile names, role-specific options, limits."""
+    for name in ROLES:
+        role = bench.role(name)
+        if role is None:
+            continue
+        here = ("roles", name)
+        res = role.resource.strip()
+        if res != SIM_RESOURCE and not _RESOURCE.match(res):
+            raise InputError(f"{role.resource!r} is not a VISA resource string",
+                             where=bench.where((*here, "resource")),
+                             fix='write e.g. "TCPIP0::192.0.2.10::5025::SOCKET", '
+                             '"GPIB0::18::INSTR", or "sim" on the simulated bench')
+        if known_profiles is not None and role.profile not in known_profiles:
+            import difflib
+
+            close = difflib.get_close_matches(role.profile, list(known_profiles), n=1)
+            hint = f"did you mean {close[0]!r}? " if close else ""
+            raise InputError(f"no driver profile named {role.profile!r}",
+                             where=bench.where((*here, "profile")),
+                             fix=f"{hint}known profiles: {', '.join(sorted(known_profiles))}")
+        if role.noise_figure is not None and name != "sa":
+            raise InputError("noise_figure applies only to the sa role",
+                             where=bench.where((*here, "noise_figure")), fix="remove it")
+        if role.channels is not None and name != "switch":
+            raise InputError("channels applies only to the switch role",
+                             where=bench.where((*here, "channels")), fix="remove it")
+    lim = bench.limits
+    if lim.chamber_min is not None and lim.chamber_max is not None and \
+            lim.chamber_min > lim.chamber_max:
+        raise InputError("chamber_min is above chamber_max",
+                         where=bench.where(("limits", "chamber_min")), fix="swap them")
+    if lim.supply_max_current is not None and lim.supply_max_current <= 0:
+        raise InputError("supply_max_current must be above 0 A",
+                         where=bench.where(("limits", "supply_max_current")),
+                         fix='write e.g. "150 mA"')
+    if isinstance(bench.safe_state.supply, float) and lim.supply_max_voltage is not None and \
+            bench.safe_state.supply > lim.supply_max_voltage:
+        raise InputError("the safe-state supply voltage is above limits.supply_max_voltage",
+                         where=bench.where(("safe_state", "supply")),
+                         fix='use "off" or a lower voltage')

@@ -1,0 +1,631 @@
+"""Sequence files: what to measure on a mixer, as validated, frozen pydantic models.
+
+Every power in a sequence is at the DUT's port planes; the bench file's path losses turn it
+into source settings. Internal units: Hz, dBm, dB, V, A, s, degC. Every key is documented in
+``docs/sequence-format.md``; :func:`load_sequence` is the entry point.
+"""
+
+from __future__ import annotations
+
+import os
+from collections.abc import Callable
+from typing import Annotated, Any, Literal
+
+from pydantic import BeforeValidator, Discriminator, Field, PrivateAttr, Tag, WithJsonSchema
+from pydantic_core import PydanticCustomError
+
+from sweeprig.errors import InputError, UnitError
+from sweeprig.formats.fields import (
+    TAG_PREFIX,
+    AxisValue,
+    Frequency,
+    Frozen,
+    LevelDb,
+    Power,
+    RangeSpec,
+    StrictInt,
+    Temperature,
+    Time,
+    Voltage,
+    axis,
+    axis_len,
+)
+from sweeprig.formats.loading import load_document, validate
+from sweeprig.formats.toml_locate import KeyPath, format_key_path
+from sweeprig.units import parse_quantity
+
+#: Refuse sequences that expand to more points than this (override per call).
+DEFAULT_MAX_POINTS = 10_000_000
+
+#: Sweep axes a study may give, in the default nesting order (outermost first: slow first).
+STUDY_AXES: tuple[str, ...] = (
+    "lo_frequency", "lo_power", "tone_spacing", "rf_frequency", "rf_power",
+)
+AxisName = Literal["lo_frequency", "lo_power", "tone_spacing", "rf_frequency", "rf_power"]
+
+#: What a study can read at each point (sweeprig's own vocabulary; see the format doc).
+READING_KINDS: tuple[str, ...] = (
+    "wanted", "lo_at_if", "lo_at_rf", "rf_at_if", "image", "mxn", "im3", "im2",
+    "supply_current", "input_power",
+)
+ReadingKind = Literal[
+    "wanted", "lo_at_if", "lo_at_rf", "rf_at_if", "image", "mxn", "im3", "im2",
+    "supply_current", "input_power",
+]
+#: Readings that measure distortion (eligible for the attenuation check).
+DISTORTION_KINDS = frozenset({"mxn", "im3", "im2"})
+
+#: Figure names a spec limit may name, with the quantity kind of their values.
+FIGURES: dict[str, str] = {
+    "conversion_gain_db": "level_db",
+    "gain_flatness_db": "level_db",
+    "input_p1db_dbm": "power",
+    "output_p1db_dbm": "power",
+    "iip3_dbm": "power",
+    "oip3_dbm": "power",
+    "iip2_dbm": "power",
+    "lo_if_isolation_db": "level_db",
+    "lo_rf_isolation_db": "level_db",
+    "rf_if_isolation_db": "level_db",
+    "image_rejection_db": "level_db",
+    "supply_current_a": "current",
+    "spur_dbc": "level_db",
+}
+FigureName = Literal[
+    "conversion_gain_db", "gain_flatness_db", "input_p1db_dbm", "output_p1db_dbm", "iip3_dbm",
+    "oip3_dbm", "iip2_dbm", "lo_if_isolation_db", "lo_rf_isolation_db", "rf_if_isolation_db",
+    "image_rejection_db", "supply_current_a", "spur_dbc",
+]
+
+_NAME_PATTERN = r"^[A-Za-z0-9][A-Za-z0-9_.-]*$"
+
+
+# -- analyzer settings ------------------------------------------------------------------------
+
+AUTO = "auto"
+
+
+def _auto_or(kind: str | None) -> Callable[[Any], Any]:
+    def parse(value: Any) -> Any:
+        if value is None or (isinstance(value, str) and value.strip().lower() == AUTO):
+            return AUTO if value is not None else None
+        if kind is None:  # a count
+            if isinstance(value, bool) or not isinstance(value, int):
+                raise PydanticCustomError(
+                    "semantic", "{what}",
+                    {"what": f"{value!r} is not a whole number",
+                     "fix": 'write a whole number such as 4, or "auto"'})
+            return value
+        try:
+            return parse_quantity(value, kind)
+        except UnitError as exc:
+            raise PydanticCustomError(
+                "quantity", "{what}", {"what": exc.what, "fix": f'{exc.fix}, or "auto"'}
+            ) from None
+
+    return parse
+
+
+def _auto_type(kind: str | None, description: str) -> Any:
+    schema = {"anyOf": [{"type": "number"}, {"type": "string"}], "description": description}
+    return Annotated[Any, BeforeValidator(_auto_or(kind)), WithJsonSchema(schema)]
+
+
+class AnalyzerSettings(Frozen):
+    """Spectrum-analyzer settings for readings; each is a value, ``"auto"``, or left out.
+
+    Left out means "inherit" (reading → study → sequence ``[analyzer]``), and ``"auto"`` at
+    the end of that chain: sweeprig derives it from the product's frequency and its
+    predicted level (see ``docs/sequence-format.md``).
+    """
+
+    span: _auto_type("frequency", 'span around the product, e.g. "20 kHz", or "auto"') = None
+    rbw: _auto_type("frequency", 'resolution bandwidth, e.g. "1 kHz", or "auto"') = None
+    attenuation: _auto_type("level_db", 'input attenuation, e.g. "10 dB", or "auto"') = None
+    reference_level: _auto_type("power", 'reference level, e.g. "0 dBm", or "auto"') = None
+    averages: _auto_type(None, 'trace averages (whole number), or "auto" (1)') = None
+
+
+def _all_auto(value: Any) -> Any:
+    if isinstance(value, str) and value.strip().lower() == AUTO:
+        return {name: AUTO for name in AnalyzerSettings.model_fields}
+    return value
+
+
+AnalyzerField = Annotated[AnalyzerSettings, BeforeValidator(_all_auto)]
+
+
+class AnalyzerDefaults(AnalyzerSettings):
+    """Sequence-wide analyzer settings and the rules behind ``"auto"``."""
+
+    mixer_level: Power = Field(
+        -20.0, description="highest total power wanted at the analyzer's first mixer (after "
+        "the input attenuation); sets auto attenuation")
+    noise_margin: LevelDb = Field(
+        10.0, description="how far the displayed noise must sit below a product's expected "
+        "level; sets auto RBW")
+    spur_floor: LevelDb = Field(
+        70.0, description="for products of unknown level, how far below the reference "
+        "(wanted output, or the leaking source) the analyzer must still see")
+
+
+# -- header, part, mixing, conditions ----------------------------------------------------------
+
+
+class About(Frozen):
+    """Who runs what, and why."""
+
+    title: str = Field("", description="one line saying what this sequence characterises")
+    operator: str = Field("", description="who prepared or runs it")
+    notes: str = Field("", description="free text carried into the results")
+    tags: tuple[str, ...] = Field((), description="free tags for finding runs later")
+
+
+class Part(Frozen):
+    """The part under test and what it is expected to do (for predictions and auto settings)."""
+
+    id: str = Field(description="part number of the device under test")
+    serial: str = Field("", description="serial or sample number")
+    expected_gain: LevelDb = Field(
+        description="expected small-signal conversion gain, dB (negative for a loss)")
+    expected_lo_if_isolation: LevelDb | None = Field(
+        None, description="expected LO→IF isolation, dB (positive). Unknown: predictions "
+        "assume none, the safe side")
+    expected_lo_rf_isolation: LevelDb | None = Field(
+        None, description="expected LO→RF isolation, dB (positive). Unknown: assume none")
+    expected_rf_if_isolation: LevelDb | None = Field(
+        None, description="expected RF→IF isolation, dB (positive). Unknown: assume none")
+
+
+class Mixing(Frozen):
+    """The frequency plan: which product is wanted, and how the LO follows the RF."""
+
+    conversion: Literal["down", "up"] = Field(
+        "down", description="down: output = |f_rf − f_lo|; up: output = f_rf + f_lo "
+        "(lo_side low) or f_lo − f_rf (lo_side high)")
+    lo_side: Literal["low", "high"] = Field(
+        "low", description="low: LO below the RF (down) or below the output (up); high: above")
+    if_frequency: Frequency | None = Field(
+        None, description="wanted output frequency; when given, the LO follows the RF so the "
+        "output stays here (studies without an lo_frequency axis)")
+
+
+class Conditions(Frozen):
+    """Outer conditions shared by every study: temperature and supply, and waiting times."""
+
+    temperature: axis("temperature") | None = Field(  # type: ignore[valid-type]
+        None, description="chamber set points (value, list or range). Left out: no chamber, "
+        "ambient temperature")
+    supply: axis("voltage") | None = Field(  # type: ignore[valid-type]
+        None, description="DUT supply voltages (value, list or range). Left out: the supply "
+        "is not controlled")
+    soak: Time = Field(600.0, description="wait after the DUT probe reaches a set point")
+    temperature_tolerance: Temperature = Field(
+        1.0, description="the probe counts as at the set point within ± this many degC "
+        "(write it in degC: it is a difference)")
+    settle: Time = Field(0.05, description="wait after any source or supply change")
+
+
+# -- studies -----------------------------------------------------------------------------------
+
+
+class ReadingSpec(Frozen):
+    """One thing to read at every point of a study (the table form of a ``read`` item)."""
+
+    kind: ReadingKind = Field(description="what to read (see the vocabulary in the format doc)")
+    name: str | None = Field(None, pattern=_NAME_PATTERN,
+                             description="name of the result (default: the kind)")
+    order: StrictInt | None = Field(
+        None, description="mxn only: highest order m + |n| of the products read (default 3)")
+    min_frequency: Frequency | None = Field(None, description="mxn only: skip products below")
+    max_frequency: Frequency | None = Field(None, description="mxn only: skip products above")
+    analyzer: AnalyzerField | None = Field(None, description="analyzer settings for this reading")
+    attenuation_check: bool | None = Field(
+        None, description="distortion readings: repeat with 10 dB more input attenuation")
+
+
+def _read_item_shape(value: Any) -> str:
+    return f"{TAG_PREFIX}kind" if isinstance(value, str) else f"{TAG_PREFIX}table"
+
+
+ReadItem = Annotated[
+    Annotated[ReadingKind, Tag(f"{TAG_PREFIX}kind")]
+    | Annotated[ReadingSpec, Tag(f"{TAG_PREFIX}table")],
+    Discriminator(_read_item_shape),
+]
+
+
+class Study(Frozen):
+    """One sweep: its axes, their nesting, and what to read at each point."""
+
+    name: str = Field(pattern=_NAME_PATTERN, description="unique name of the study")
+    notes: str = Field("", description="free text")
+    rf_frequency: axis("frequency") = Field(  # type: ignore[valid-type]
+        description="RF (tone 1) frequency at the DUT RF port")
+    rf_power: axis("power") = Field(  # type: ignore[valid-type]
+        description="RF power at the DUT RF port (per tone in two-tone studies)")
+    lo_power: axis("power") = Field(  # type: ignore[valid-type]
+        description="LO power at the DUT LO port")
+    lo_frequency: axis("frequency") | None = Field(  # type: ignore[valid-type]
+        None, description="explicit LO frequencies (instead of following the RF)")
+    tone_spacing: axis("frequency") | None = Field(  # type: ignore[valid-type]
+        None, description="two-tone study: tone 2 sits this far above tone 1 (uses rf2)")
+    if_frequency: Frequency | None = Field(
+        None, description="wanted output frequency for this study (overrides [mixing])")
+    nesting: tuple[AxisName, ...] = Field(
+        (), description="axes from outermost to innermost loop; unlisted axes follow in the "
+        "default order lo_frequency, lo_power, tone_spacing, rf_frequency, rf_power")
+    read: tuple[ReadItem, ...] = Field(
+        min_length=1, description="what to read at each point: kinds, or tables for options")
+    analyzer: AnalyzerField | None = Field(None, description="analyzer settings for this study")
+    attenuation_check: bool = Field(
+        False, description="repeat this study's distortion readings (mxn, im3, im2) with 10 dB "
+        "more input attenuation")
+
+    def axis_value(self, name: str) -> AxisValue | None:
+        """The file value of axis ``name`` (None when the study does not give it)."""
+        return getattr(self, name)
+
+    def readings(self) -> tuple[ReadingSpec, ...]:
+        """The ``read`` items as tables (a bare kind becomes ``{kind = ...}``)."""
+        return tuple(ReadingSpec(kind=r) if isinstance(r, str) else r for r in self.read)
+
+    @property
+    def two_tone(self) -> bool:
+        return self.tone_spacing is not None
+
+    def nesting_order(self) -> tuple[str, ...]:
+        """Every axis the study gives, outermost first (declared ones, then the default order)."""
+        present = [a for a in STUDY_AXES if getattr(self, a) is not None]
+        declared = [a for a in self.nesting if a in present]
+        return tuple(declared + [a for a in present if a not in declared])
+
+    def shape(self) -> tuple[int, ...]:
+        """Axis lengths in nesting order."""
+        return tuple(axis_len(getattr(self, a)) for a in self.nesting_order())
+
+    def count(self) -> int:
+        """Points of one pass of this study (one temperature, one supply voltage)."""
+        n = 1
+        for length in self.shape():
+            n *= length
+        return n
+
+
+# -- spec limits -------------------------------------------------------------------------------
+
+
+def _parse_spec_bounds(data: Any) -> Any:
+    if not isinstance(data, dict):
+        return data
+    figure = data.get("figure")
+    kind = FIGURES.get(figure) if isinstance(figure, str) else None
+    if kind is None:
+        return data
+    out = dict(data)
+    for key in ("min", "max"):
+        if key in out:
+            value = out[key]
+            if isinstance(value, str) and kind == "level_db" and value.lower().endswith("dbc"):
+                value = value[:-1]
+            try:
+                out[key] = parse_quantity(value, kind)
+            except UnitError as exc:
+                raise PydanticCustomError(
+                    "quantity", "{what}",
+                    {"what": f"{key}: {exc.what}", "fix": exc.fix or ""}) from None
+    return out
+
+
+_Bound = Annotated[float | None, WithJsonSchema(
+    {"anyOf": [{"type": "number"}, {"type": "string"}],
+     "description": "a number in the figure's unit, or a quantity such as \"10 dBm\""})]
+
+
+class SpecLimit(Frozen):
+    """A datasheet limit on one figure, optionally only under a condition.
+
+    Carried as is; the analysis decides pass/fail. Values are in the figure's unit (the name's
+    suffix: dB, dBm, dBc, A); strings with units are accepted.
+    """
+
+    figure: FigureName = Field(description="figure name, e.g. conversion_gain_db")
+    min: _Bound = Field(None, description="lowest passing value")
+    max: _Bound = Field(None, description="highest passing value")
+    temperature: Temperature | None = Field(
+        None, description="applies only at this temperature (degC)")
+    supply: Voltage | None = Field(None, description="applies only at this supply voltage (V)")
+    study: str | None = Field(None, description="applies only to this study's results")
+    note: str = Field("", description="free text, e.g. the datasheet line")
+
+
+SpecField = Annotated[SpecLimit, BeforeValidator(_parse_spec_bounds)]
+
+
+# -- the sequence ------------------------------------------------------------------------------
+
+
+class Sequence(Frozen):
+    """A whole sequence file: header, part, frequency plan, conditions, studies, limits."""
+
+    format: Literal[1] = Field(1, description="version of this file format")
+    include: tuple[str, ...] = Field(
+        (), description="fragments merged under this file (paths relative to it)")
+    about: About = Field(default_factory=About)
+    part: Part
+    mixing: Mixing = Field(default_factory=Mixing)
+    conditions: Conditions = Field(default_factory=Conditions)
+    analyzer: AnalyzerDefaults = Field(default_factory=AnalyzerDefaults)
+    study: tuple[Study, ...] = Field(min_length=1, description="the studies, run in order")
+    spec: tuple[SpecField, ...] = Field((), description="datasheet limits on figures")
+
+    _where: Callable[[KeyPath], str] | None = PrivateAttr(None)
+    _source: str | None = PrivateAttr(None)
+
+    def where(self, key_path: KeyPath) -> str:
+        """``file:line: key.path`` of a key (just the key path when not loaded from a file)."""
+        if self._where is not None:
+            return self._where(tuple(key_path))
+        return format_key_path(tuple(key_path))
+
+    @property
+    def source(self) -> str | None:
+        """The file this sequence was loaded from, as shown in messages."""
+        return self._source
+
+    def study_named(self, name: str) -> Study:
+        for study in self.study:
+            if study.name == name:
+                return study
+        raise KeyError(name)
+
+    def temperature_count(self) -> int:
+        t = self.conditions.temperature
+        return 1 if t is None else axis_len(t)
+
+    def supply_count(self) -> int:
+        v = self.conditions.supply
+        return 1 if v is None else axis_len(v)
+
+    def count_points(self) -> int:
+        """All points: studies × temperatures × supply voltages, computed without expanding."""
+        per_pass = sum(s.count() for s in self.study)
+        return per_pass * self.temperature_count() * self.supply_count()
+
+    def if_frequency_of(self, study: Study) -> float | None:
+        """The wanted output frequency a study tracks (None when its LO is explicit)."""
+        if study.lo_frequency is not None:
+            return None
+        return study.if_frequency if study.if_frequency is not None else self.mixing.if_frequency
+
+    def uses_two_tone(self) -> bool:
+        return any(s.two_tone for s in self.study)
+
+    def reading_kinds(self) -> set[str]:
+        return {r.kind for s in self.study for r in s.readings()}
+
+
+def required_roles(sequence: Sequence) -> dict[str, str]:
+    """Bench roles the sequence needs, each with the reason (for bench checks)."""
+    kinds = sequence.reading_kinds()
+    roles = {"rf": "every study drives the RF port", "lo": "every study drives the LO port"}
+    if sequence.uses_two_tone():
+        roles["rf2"] = "a two-tone study (tone_spacing) needs the second RF source"
+    analyzer_kinds = kinds - {"supply_current", "input_power"}
+    if analyzer_kinds:
+        roles["sa"] = f"readings {', '.join(sorted(analyzer_kinds))} use the spectrum analyzer"
+    if "input_power" in kinds:
+        roles["pm"] = "the input_power reading uses the power meter"
+    if sequence.conditions.supply is not None or "supply_current" in kinds:
+        roles["dc"] = "the supply voltage or supply_current reading uses the DC supply"
+    if sequence.conditions.temperature is not None:
+        roles["chamber"] = "conditions.temperature uses the thermal chamber"
+    if "lo_at_rf" in kinds:
+        roles["switch"] = "the lo_at_rf reading routes the analyzer to the RF port"
+    return roles
+
+
+# -- loading -----------------------------------------------------------------------------------
+
+
+def load_sequence(path: str | os.PathLike[str], *, max_points: int = DEFAULT_MAX_POINTS
+                  ) -> Sequence:
+    """Read, merge includes, validate and check a sequence file.
+
+    Raises :class:`~sweeprig.errors.InputError` (where = ``file:line: key.path``) for any
+    problem, including a sequence that expands to more than ``max_points`` points (the count
+    is computed arithmetically, never by expanding).
+    """
+    doc = load_document(path)
+    sequence = validate(Sequence, doc)
+    sequence._where = doc.where
+    sequence._source = doc.display
+    check_sequence(sequence)
+    check_size(sequence, max_points)
+    return sequence
+
+
+def sequence_from_dict(data: dict[str, Any], *, max_points: int = DEFAULT_MAX_POINTS
+                       ) -> Sequence:
+    """Validate and check a sequence given as a plain table (errors name key paths only)."""
+    from pydantic import ValidationError
+
+    from sweeprig.formats.loading import validation_error
+
+    try:
+        sequence = Sequence.model_validate(data)
+    except ValidationError as exc:
+        raise validation_error(Sequence, exc, format_key_path) from None
+    check_sequence(sequence)
+    check_size(sequence, max_points)
+    return sequence
+
+
+def check_size(sequence: Sequence, max_points: int = DEFAULT_MAX_POINTS) -> int:
+    """The point count; InputError when above ``max_points`` (counted, never expanded)."""
+    total = sequence.count_points()
+    if total > max_points:
+        biggest = max(range(len(sequence.study)), key=lambda i: sequence.study[i].count())
+        study = sequence.study[biggest]
+        factor = sequence.temperature_count() * sequence.supply_count()
+        raise InputError(
+            f"the sequence expands to {total:,} points, above the maximum of {max_points:,} "
+            f"(study {study.name!r} alone has {study.count() * factor:,})",
+            where=sequence.where(("study", biggest)),
+            fix="use coarser steps or fewer points, split the sequence, or raise the maximum "
+            "(--max-points)",
+        )
+    return total
+
+
+def _problem(sequence: Sequence, path: KeyPath, what: str, fix: str) -> InputError:
+    return InputError(what, where=sequence.where(path), fix=fix)
+
+
+def check_sequence(sequence: Sequence) -> None:
+    """Checks across keys that the models alone cannot make; raises a located InputError."""
+    cond = sequence.conditions
+    if cond.temperature_tolerance <= 0:
+        raise _problem(sequence, ("conditions", "temperature_tolerance"),
+                       "temperature_tolerance must be above 0 degC", "write e.g. 1.0")
+    for key in ("soak", "settle"):
+        if getattr(cond, key) < 0:
+            raise _problem(sequence, ("conditions", key), f"{key} must not be negative",
+                           'write a time such as "20 ms"')
+    if cond.supply is not None and _axis_min(cond.supply) < 0:
+        raise _problem(sequence, ("conditions", "supply"), "a supply voltage is negative",
+                       "give supply voltages of 0 V or more")
+    seen: dict[str, int] = {}
+    for i, study in enumerate(sequence.study):
+        if study.name in seen:
+            raise _problem(sequence, ("study", i, "name"),
+                           f"study name {study.name!r} is used twice",
+                           f"rename one of them (the first is study[{seen[study.name]}])")
+        seen[study.name] = i
+        _check_study(sequence, i, study)
+    names = set(seen)
+    for j, limit in enumerate(sequence.spec):
+        if limit.study is not None and limit.study not in names:
+            raise _problem(sequence, ("spec", j, "study"), f"no study is named {limit.study!r}",
+                           f"use one of: {', '.join(sorted(names))}")
+        if limit.min is None and limit.max is None:
+            raise _problem(sequence, ("spec", j), f"the limit on {limit.figure} has neither "
+                           "min nor max", "add min = ... and/or max = ...")
+        if limit.min is not None and limit.max is not None and limit.min > limit.max:
+            raise _problem(sequence, ("spec", j, "min"), f"min {limit.min:g} is above max "
+                           f"{limit.max:g}", "swap min and max")
+
+
+def _axis_min(value: AxisValue) -> float:
+    if isinstance(value, RangeSpec):
+        return value.start
+    if isinstance(value, tuple):
+        return min(value)
+    return float(value)
+
+
+def _axis_max(value: AxisValue) -> float:
+    if isinstance(value, RangeSpec):
+        return value.stop
+    if isinstance(value, tuple):
+        return max(value)
+    return float(value)
+
+
+def _check_study(sequence: Sequence, i: int, study: Study) -> None:
+    here: KeyPath = ("study", i)
+    if len(set(study.nesting)) != len(study.nesting):
+        raise _problem(sequence, (*here, "nesting"), "an axis is listed twice in nesting",
+                       "list each axis once, outermost first")
+    for k, name in enumerate(study.nesting):
+        if getattr(study, name) is None:
+            raise _problem(sequence, (*here, "nesting", k),
+                           f"{name!r} is not an axis of study {study.name!r}",
+                           f"give {name} = ... in the study, or remove it from nesting")
+    if _axis_min(study.rf_frequency) <= 0:
+        raise _problem(sequence, (*here, "rf_frequency"), "RF frequencies must be above 0 Hz",
+                       'use e.g. "2.4 GHz"')
+    if study.tone_spacing is not None and _axis_min(study.tone_spacing) <= 0:
+        raise _problem(sequence, (*here, "tone_spacing"), "tone spacing must be above 0 Hz",
+                       'use e.g. "1 MHz"')
+    if study.lo_frequency is not None:
+        if study.if_frequency is not None:
+            raise _problem(sequence, (*here, "if_frequency"),
+                           "a study gives both lo_frequency and if_frequency",
+                           "keep lo_frequency for a fixed LO, or if_frequency for an LO that "
+                           "follows the RF")
+        if _axis_min(study.lo_frequency) <= 0:
+            raise _problem(sequence, (*here, "lo_frequency"), "LO frequencies must be above 0",
+                           'use e.g. "2.33 GHz"')
+    else:
+        f_if = sequence.if_frequency_of(study)
+        if f_if is None:
+            raise _problem(sequence, here, f"study {study.name!r} has no LO frequency",
+                           "give lo_frequency in the study, or if_frequency in the study or "
+                           "in [mixing] so the LO follows the RF")
+        if f_if <= 0:
+            raise _problem(sequence, (*here, "if_frequency"), "the IF must be above 0 Hz",
+                           'use e.g. "70 MHz"')
+        from sweeprig.plan.frequencies import lo_for_if
+
+        for f_rf in (_axis_min(study.rf_frequency), _axis_max(study.rf_frequency)):
+            f_lo = lo_for_if(f_rf, f_if, sequence.mixing.conversion, sequence.mixing.lo_side)
+            if f_lo <= 0:
+                raise _problem(
+                    sequence, (*here, "rf_frequency"),
+                    f"RF {f_rf / 1e6:g} MHz with IF {f_if / 1e6:g} MHz needs an LO at "
+                    f"{f_lo / 1e6:g} MHz, which is not above 0",
+                    "check conversion, lo_side and if_frequency in [mixing]")
+    names: set[str] = set()
+    for k, spec in enumerate(study.readings()):
+        at = (*here, "read", k)
+        name = spec.name or spec.kind
+        if name in names:
+            raise _problem(sequence, at, f"reading name {name!r} is used twice in this study",
+                           "give one of them name = \"...\"")
+        names.add(name)
+        if spec.kind in ("im3", "im2") and not study.two_tone:
+            raise _problem(sequence, at, f"{spec.kind} needs two tones",
+                           'give the study tone_spacing = "1 MHz" (uses the rf2 source)')
+        if spec.kind == "image" and sequence.mixing.conversion != "down":
+            raise _problem(sequence, at, "the image reading is for downconverters",
+                           "remove it, or set conversion = \"down\" in [mixing]")
+        if spec.kind != "mxn":
+            for key in ("order", "min_frequency", "max_frequency"):
+                if getattr(spec, key) is not None:
+                    raise _problem(sequence, (*at, key), f"{key} applies only to mxn readings",
+                                   f"remove {key}")
+        elif spec.order is not None and not 1 <= spec.order <= 15:
+            raise _problem(sequence, (*at, "order"), f"order {spec.order} is outside 1..15",
+                           "use an order such as 3 or 5")
+        if spec.attenuation_check and spec.kind not in DISTORTION_KINDS:
+            raise _problem(sequence, (*at, "attenuation_check"),
+                           "the attenuation check applies to distortion readings (mxn, im3, im2)",
+                           "remove attenuation_check here")
+    for path, settings in _analyzer_settings(sequence):
+        _check_analyzer(sequence, path, settings)
+
+
+def _analyzer_settings(sequence: Sequence) -> list[tuple[KeyPath, AnalyzerSettings]]:
+    found: list[tuple[KeyPath, AnalyzerSettings]] = [(("analyzer",), sequence.analyzer)]
+    for i, study in enumerate(sequence.study):
+        if study.analyzer is not None:
+            found.append((("study", i, "analyzer"), study.analyzer))
+        for k, spec in enumerate(study.readings()):
+            if spec.analyzer is not None:
+                found.append((("study", i, "read", k, "analyzer"), spec.analyzer))
+    return found
+
+
+def _check_analyzer(sequence: Sequence, path: KeyPath, s: AnalyzerSettings) -> None:
+    def bad(key: str, what: str, fix: str) -> InputError:
+        return _problem(sequence, (*path, key), what, fix)
+
+    if isinstance(s.rbw, float) and s.rbw <= 0:
+        raise bad("rbw", "rbw must be above 0 Hz", 'use e.g. "1 kHz" or "auto"')
+    if isinstance(s.span, float) and s.span < 0:
+        raise bad("span", "span must not be negative", 'use e.g. "100 kHz" or "auto"')
+    if isinstance(s.attenuation, float) and not 0 <= s.attenuation <= 70:
+        raise bad("attenuation", "attenuation must be within 0..70 dB", 'use e.g. "10 dB"')
+    if isinstance(s.averages, int) and not isinstance(s.averages, bool) and s.averages < 1:
+        raise bad("averages", "averages must be at least 1", "use 1 for no averaging")

@@ -1,0 +1,138 @@
+"""Spectrum analyzer driver (role ``sa``): configuration, single sweeps, markers, traces."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from sweeprig.errors import InputError
+from sweeprig.instruments.driver import Driver
+
+
+@dataclass(frozen=True)
+class AnalyzerSettings:
+    """One analyzer configuration; ``None`` leaves a setting as it is.
+
+    Frequencies in Hz, ``ref_level_dbm`` in dBm, ``attenuation_db`` in dB, ``averages`` ≥ 1.
+    """
+
+    centre_hz: float | None = None
+    span_hz: float | None = None
+    rbw_hz: float | None = None
+    vbw_hz: float | None = None
+    ref_level_dbm: float | None = None
+    attenuation_db: float | None = None
+    averages: int | None = None
+    points: int | None = None
+
+
+class AnalyzerDriver(Driver):
+    """A swept spectrum analyzer used in single-sweep mode with marker 1."""
+
+    kind = "analyzer"
+
+    def prepare(self) -> None:
+        """The profile's ``prepare`` commands, then single-sweep mode."""
+        super().prepare()
+        self.single_sweep_mode()
+
+    def single_sweep_mode(self) -> bool:
+        """Continuous sweep off: each :meth:`sweep` takes exactly one (averaged) sweep."""
+        return self.set_value("continuous", False)
+
+    def configure(
+        self,
+        centre_hz: float | None = None,
+        span_hz: float | None = None,
+        rbw_hz: float | None = None,
+        vbw_hz: float | None = None,
+        ref_level_dbm: float | None = None,
+        attenuation_db: float | None = None,
+        averages: int | None = None,
+        points: int | None = None,
+    ) -> int:
+        """Apply the given settings (unchanged ones are not re-sent); return how many were sent.
+
+        Order: reference level and attenuation first (the input is protected before the
+        frequency moves), then centre, span, RBW, VBW, points, averages. Setting RBW or the
+        attenuation by value turns its coupling (``*_auto``) off when the profile has it.
+        """
+        sent = 0
+        if ref_level_dbm is not None:
+            sent += self.set_value("ref_level", ref_level_dbm)
+        if attenuation_db is not None:
+            if self.profile.has("attenuation_auto"):
+                sent += self.set_value("attenuation_auto", False)
+            sent += self.set_value("attenuation", attenuation_db)
+        if centre_hz is not None:
+            sent += self.set_value("centre", centre_hz)
+        if span_hz is not None:
+            sent += self.set_value("span", span_hz)
+        if rbw_hz is not None:
+            if self.profile.has("rbw_auto"):
+                sent += self.set_value("rbw_auto", False)
+            sent += self.set_value("rbw", rbw_hz)
+        if vbw_hz is not None:
+            sent += self.set_value("vbw", vbw_hz)
+        if points is not None:
+            sent += self.set_value("points", points)
+        if averages is not None:
+            sent += self.set_value("averages", averages)
+        return sent
+
+    def apply(self, settings: AnalyzerSettings) -> int:
+        """:meth:`configure` from an :class:`AnalyzerSettings`."""
+        return self.configure(
+            centre_hz=settings.centre_hz,
+            span_hz=settings.span_hz,
+            rbw_hz=settings.rbw_hz,
+            vbw_hz=settings.vbw_hz,
+            ref_level_dbm=settings.ref_level_dbm,
+            attenuation_db=settings.attenuation_db,
+            averages=settings.averages,
+            points=settings.points,
+        )
+
+    def sweep(self) -> None:
+        """Start one sweep (all averages) and wait until it is complete."""
+        self.do("sweep")
+
+    def sweep_time_s(self) -> float:
+        """Time of one sweep, s, as the analyzer reports it."""
+        return float(self.ask("sweep_time"))
+
+    def marker_level_dbm(self, freq_hz: float) -> float:
+        """Put marker 1 at ``freq_hz`` and read its level, dBm (from the last sweep)."""
+        return float(self.ask("marker_level", freq_hz))
+
+    def peak(self) -> tuple[float, float]:
+        """Marker 1 to the highest point of the trace → (frequency Hz, level dBm)."""
+        freq_hz, level_dbm = self.ask("peak")
+        return float(freq_hz), float(level_dbm)
+
+    def trace(self, *, binary: bool | None = None) -> np.ndarray:
+        """The trace of the last sweep, dBm per point (float64).
+
+        ``binary``: True = REAL,32 block, False = ASCII, None = REAL,32 when the profile has
+        it (fewer bytes, no rounding).
+        """
+        use_binary = self.profile.has("trace_real32") if binary is None else binary
+        op = "trace_real32" if use_binary else "trace_ascii"
+        if not self.profile.has(op):
+            raise InputError(
+                f"driver profile {self.profile.name!r} has no {op!r}",
+                where=f"role {self.role!r}",
+                fix="read the trace in the other format, or add the operation to the profile",
+            )
+        if self.profile.has("trace_format"):
+            self.set_value("trace_format", "real32" if use_binary else "ascii")
+        return np.asarray(self.ask(op), dtype=np.float64)
+
+    def overloaded(self) -> bool:
+        """Whether the analyzer input was overloaded in the last sweep."""
+        return bool(self.ask("overload"))
+
+    def uncalibrated(self) -> bool:
+        """Whether the analyzer flags its reading as uncalibrated (False if not supported)."""
+        return bool(self.ask("uncalibrated")) if self.profile.has("uncalibrated") else False

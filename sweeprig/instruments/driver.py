@@ -1,0 +1,450 @@
+"""The generic driver base: one instrument, reached through a transport, driven by a profile.
+
+A :class:`Driver` turns calls such as ``set_frequency(2.4e9)`` into the SCPI its profile
+gives, and adds what every kind needs:
+
+* ``identify()`` checks the ``*IDN?`` reply against the profile's pattern;
+* a setting that has not changed since it was last sent is **not sent again** (the cache of
+  last-sent values, :meth:`Driver.state`; :meth:`Driver.forget_state` empties it and must be
+  called after a reset, a reconnect or anything else that may change the instrument behind
+  the driver's back);
+* limits from the profile (and any tighter ones from :meth:`Driver.tighten_limit`) are checked
+  before anything is sent: :class:`SafetyLimitError` for powers, voltages and currents,
+  :class:`InputError` otherwise;
+* :meth:`Driver.check_errors` drains the error queue and raises :class:`InstrumentError`
+  naming the role, the commands sent since the previous check and the instrument's text;
+* ``transactions`` counts SCPI exchanges (writes and queries, completion waits included).
+
+The per-kind classes (:mod:`sweeprig.instruments.source` and siblings) only name the
+operations. Drivers are not thread-safe: one thread drives one instrument.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import math
+import re
+from collections import deque
+from collections.abc import Mapping
+from typing import Any, ClassVar
+
+import numpy as np
+
+from sweeprig.clock import Clock, WallClock
+from sweeprig.errors import InputError, InstrumentError, SafetyLimitError, TransportError
+from sweeprig.instruments.ops import UNIT_SYMBOL, OpSpec
+from sweeprig.instruments.profile import DOCS_HINT, Operation, Profile
+from sweeprig.transport import blocks
+from sweeprig.transport.base import Transport
+
+Value = float | int | bool | str
+"""A setting's value: float (in the operation's unit), int, bool, or a choice name."""
+
+MAX_ERROR_READS = 64
+"""Error-queue reads before giving up on an instrument that never answers ``0,...``."""
+
+_BLOCK_SHOWN = 12
+_BLOCK_KEPT = 64
+
+SAFETY_CAUTION = (
+    "caution: too much RF power or supply voltage can destroy the part or the analyzer input"
+)
+
+
+class Driver:
+    """Base of the generic drivers.
+
+    ``role``: the bench role (``"rf"``, ``"sa"``...), used in every message. ``transport``:
+    the connection. ``profile``: a profile of this driver's kind. ``clock``: used for poll
+    intervals (wall clock by default).
+    """
+
+    kind: ClassVar[str] = ""
+
+    def __init__(
+        self,
+        role: str,
+        transport: Transport,
+        profile: Profile,
+        *,
+        clock: Clock | None = None,
+    ) -> None:
+        if self.kind and profile.kind != self.kind:
+            raise InputError(
+                f"profile {profile.name!r} is for a {profile.kind}, not a {self.kind}",
+                where=f"role {role!r}",
+                fix=f"give role {role!r} a {self.kind} profile",
+            )
+        self.role = role
+        self.transport = transport
+        self.profile = profile
+        self.clock: Clock = clock or WallClock()
+        self.idn: str | None = None
+        self.transactions = 0
+        """SCPI exchanges so far (writes + queries)."""
+        self.settings_skipped = 0
+        """Settings not sent because the instrument already had them."""
+        self._cache: dict[str, tuple[Value, str]] = {}
+        self._limits: dict[str, tuple[float | None, float | None]] = {}
+        self._block: deque[str] = deque(maxlen=_BLOCK_KEPT)
+        self._block_count = 0
+        self._block_ops: set[str] = set()
+
+    # -- naming -----------------------------------------------------------------------------
+
+    @property
+    def resource(self) -> str:
+        """The VISA resource string of the transport."""
+        return self.transport.resource
+
+    def where(self, cmd: str | None = None) -> str:
+        """``role 'sa' (resource)`` or ``role 'sa' (resource), command 'X'``."""
+        head = f"role {self.role!r} ({self.resource})"
+        return f"{head}, command {cmd!r}" if cmd is not None else head
+
+    def __repr__(self) -> str:
+        return f"{type(self).__name__}({self.role!r}, {self.resource!r}, {self.profile.name!r})"
+
+    # -- raw exchanges ----------------------------------------------------------------------
+
+    def write(self, cmd: str) -> None:
+        """Send ``cmd`` as is (counted, remembered for the error report)."""
+        self._block.append(cmd)
+        self._block_count += 1
+        self.transactions += 1
+        self.transport.write(cmd)
+
+    def query(self, cmd: str, *, timeout_s: float | None = None) -> str:
+        """Send query ``cmd`` and return the reply text (counted)."""
+        self.transactions += 1
+        return self.transport.query(cmd, timeout_s=timeout_s)
+
+    # -- values and limits ------------------------------------------------------------------
+
+    def tighten_limit(
+        self, op: str, *, min_value: float | None = None, max_value: float | None = None
+    ) -> None:
+        """Narrow the profile's limits for ``op`` (e.g. to the bench's safe maximum power).
+
+        Limits can only get tighter: the profile's own range still applies.
+        """
+        operation = self.profile.op(op)
+        low, high = self._limits.get(op, (operation.min, operation.max))
+        if min_value is not None:
+            low = min_value if low is None else max(low, min_value)
+        if max_value is not None:
+            high = max_value if high is None else min(high, max_value)
+        self._limits[op] = (low, high)
+
+    def limits(self, op: str) -> tuple[float | None, float | None]:
+        """The (min, max) in force for ``op``, in its unit (None = no limit)."""
+        operation = self.profile.op(op)
+        return self._limits.get(op, (operation.min, operation.max))
+
+    def _checked(self, operation: Operation, value: object) -> Value:
+        spec = operation.spec
+        where = f"role {self.role!r}, {spec.name}"
+        if spec.value == "bool":
+            if not isinstance(value, bool | np.bool_):
+                raise InputError(f"{value!r} is not on/off", where=where, fix="give True/False")
+            return bool(value)
+        if spec.value == "choice":
+            if value not in spec.choices:
+                raise InputError(
+                    f"{value!r} is not one of {', '.join(spec.choices)}",
+                    where=where,
+                    fix="pick one of those",
+                )
+            return str(value)
+        if isinstance(value, bool | np.bool_) or not isinstance(
+            value, int | float | np.integer | np.floating
+        ):
+            raise InputError(f"{value!r} is not a number", where=where, fix="give a number")
+        number = float(value)
+        if not math.isfinite(number):
+            raise InputError(f"{value!r} is not a finite number", where=where,
+                             fix="give a finite number")
+        checked: Value
+        if spec.value == "int":
+            if number != math.floor(number):
+                raise InputError(f"{value!r} is not a whole number", where=where,
+                                 fix="give a whole number")
+            checked = int(number)
+        else:
+            checked = number
+        self._check_limits(operation, number, where)
+        return checked
+
+    def _check_limits(self, operation: Operation, number: float, where: str) -> None:
+        spec = operation.spec
+        low, high = self._limits.get(spec.name, (operation.min, operation.max))
+        symbol = UNIT_SYMBOL.get(spec.unit, "")
+        unit = f" {symbol}" if symbol else ""
+        if high is not None and number > high:
+            problem, bound = "above the maximum", high
+        elif low is not None and number < low:
+            problem, bound = "below the minimum", low
+        else:
+            return
+        what = f"{spec.summary.split(',')[0]} {number:g}{unit} is {problem} {bound:g}{unit}"
+        if spec.safety:
+            raise SafetyLimitError(
+                what + " (nothing was sent)",
+                where=f"{where} (limit from {self._limit_origin(spec)})",
+                fix=f"lower the setting, or raise the limit only if the part and the bench can "
+                f"take it; {SAFETY_CAUTION}",
+            )
+        raise InputError(
+            what + " (nothing was sent)",
+            where=f"{where} (limit from {self._limit_origin(spec)})",
+            fix="choose a value inside the instrument's range",
+        )
+
+    def _limit_origin(self, spec: OpSpec) -> str:
+        if spec.name in self._limits:
+            return "the bench's limits"
+        return f"driver profile {self.profile.name!r}, ops.{spec.name}"
+
+    # -- operations -------------------------------------------------------------------------
+
+    def set_value(self, op: str, value: Value, *, force: bool = False) -> bool:
+        """Set the setting ``op`` to ``value``; return True if commands were sent.
+
+        Validates and checks limits first (nothing is sent on failure). Skips sending when the
+        cache says the instrument already has this value, unless ``force``.
+        """
+        operation = self.profile.op(op)
+        if operation.spec.shape != "setting":
+            raise InputError(f"{op!r} is not a setting", where=f"role {self.role!r}")
+        checked = self._checked(operation, value)
+        token = operation.render_value(checked)
+        cached = self._cache.get(op)
+        if not force and cached is not None and cached[1] == token:
+            self.settings_skipped += 1
+            return False
+        self._cache.pop(op, None)  # unknown until the commands went through
+        self._block_ops.add(op)
+        for template in operation.set:
+            self.write(Operation.fill(template, token))
+        self._cache[op] = (checked, token)
+        self._complete(operation)
+        return True
+
+    def do(self, op: str, value: Value | None = None) -> None:
+        """Run the action ``op`` (with ``value`` if it takes one) and wait for completion."""
+        operation = self.profile.op(op)
+        token = None
+        if operation.spec.value != "none":
+            token = operation.render_value(self._checked(operation, value))
+        for template in operation.do:
+            self.write(Operation.fill(template, token))
+        self._complete(operation)
+
+    def ask(self, op: str, value: Value | None = None) -> Any:
+        """Run the query ``op`` and return its parsed reply (a tuple when it has two queries;
+        a bool when it has a ``mask``)."""
+        operation = self.profile.op(op)
+        token = None
+        if operation.spec.value != "none":
+            token = operation.render_value(self._checked(operation, value))
+        for template in operation.do:
+            self.write(Operation.fill(template, token))
+        results = []
+        for template in operation.ask:
+            cmd = Operation.fill(template, token)
+            results.append(self._read(cmd, operation.reply or "text", operation.timeout_s))
+        if operation.mask is not None:
+            return (int(results[0]) & operation.mask) != 0
+        return tuple(results) if len(results) > 1 else results[0]
+
+    def read_back(self, op: str) -> Value:
+        """Query the instrument's present value of setting ``op`` (the profile's ``get``).
+
+        Does not touch the cache."""
+        operation = self.profile.op(op)
+        if operation.get is None:
+            raise InputError(
+                f"driver profile {self.profile.name!r} has no read-back ('get') for {op!r}",
+                where=f"role {self.role!r}",
+                fix=f"add get = \"<query>\" to [ops.{op}] ({DOCS_HINT})",
+            )
+        reply = self.query(operation.get, timeout_s=operation.timeout_s)
+        where = self.where(operation.get)
+        if operation.spec.value == "choice":
+            text = reply.strip().upper()
+            for name, token in operation.map.items():
+                if token.upper() == text or token.upper().startswith(text + ","):
+                    return name
+            return reply.strip()
+        return self._parse(reply, operation.reply or "text", where)
+
+    def _read(self, cmd: str, reply_format: str, timeout_s: float | None) -> Any:
+        if reply_format == "real32":
+            self.transactions += 1
+            return self.transport.query_binary_floats(cmd, timeout_s=timeout_s)
+        return self._parse(self.query(cmd, timeout_s=timeout_s), reply_format, self.where(cmd))
+
+    @staticmethod
+    def _parse(reply: str, reply_format: str, where: str) -> Any:
+        if reply_format == "float":
+            return blocks.parse_float(reply, where=where)
+        if reply_format == "int":
+            return blocks.parse_int(reply, where=where)
+        if reply_format == "bool":
+            return blocks.parse_bool(reply, where=where)
+        if reply_format == "csv_floats":
+            return blocks.parse_csv_floats(reply, where=where)
+        if reply_format == "error":
+            return blocks.parse_scpi_error(reply, where=where)
+        if reply_format == "real32":
+            return blocks.parse_real32_block(reply.encode("latin-1"), where=where)
+        return reply.strip()
+
+    def _complete(self, operation: Operation) -> None:
+        completion = operation.completion
+        if completion is None:
+            return
+        if completion.method == "opc":
+            opc = self.profile.op("operation_complete")
+            cmd = opc.ask[0]
+            reply = self.query(cmd, timeout_s=completion.timeout_s)
+            if not blocks.parse_bool(reply, where=self.where(cmd)):
+                raise InstrumentError(
+                    f"{cmd} answered {reply!r} instead of 1 after {operation.name!r}",
+                    where=self.where(cmd),
+                    fix="check the instrument's error queue; the operation may have failed",
+                )
+            return
+        assert completion.query is not None
+        start = self.clock.now()
+        while True:
+            reply = self.query(completion.query)
+            if self._poll_done(reply, completion.until, completion.until_bits_clear):
+                return
+            if self.clock.now() - start >= completion.timeout_s:
+                raise InstrumentError(
+                    f"{operation.name!r} did not complete within {completion.timeout_s:g} s "
+                    f"(last reply to {completion.query!r}: {reply!r})",
+                    where=self.where(completion.query),
+                    fix="raise complete.timeout_s in the profile if the operation is slow, or "
+                    "check the instrument",
+                )
+            self.clock.sleep(completion.interval_s)
+
+    def _poll_done(self, reply: str, until: re.Pattern[str] | None, bits: int | None) -> bool:
+        text = reply.strip()
+        if until is not None and until.fullmatch(text) is None:
+            return False
+        if bits is not None:
+            return (blocks.parse_int(text, where=self.where()) & bits) == 0
+        return True
+
+    # -- common to every kind ---------------------------------------------------------------
+
+    def identify(self) -> str:
+        """Query ``*IDN?`` and check it against the profile's pattern; return the reply.
+
+        Raises :class:`InstrumentError` naming the role, resource, reply and expected pattern
+        on a mismatch.
+        """
+        reply = self.ask("identify")
+        if not self.profile.matches_idn(reply):
+            raise InstrumentError(
+                f"*IDN? answered {reply!r}, which does not match driver profile "
+                f"{self.profile.name!r} (pattern {self.profile.idn_pattern.pattern!r})",
+                where=self.where(),
+                fix="check that the bench file gives this role the right resource and profile "
+                "(`sweeprig scan` shows which profile matches each instrument), or write a "
+                f"profile for this model ({DOCS_HINT})",
+            )
+        self.idn = reply
+        return reply
+
+    def reset(self) -> None:
+        """``*RST`` (and wait); forgets the cached settings."""
+        self.forget_state()
+        self.do("reset")
+
+    def clear(self) -> None:
+        """``*CLS``: clear the error queue and event registers."""
+        self.do("clear")
+        self._block.clear()
+        self._block_count = 0
+        self._block_ops.clear()
+
+    def prepare(self) -> None:
+        """Put the instrument in the mode sweeprig expects (the profile's ``prepare``)."""
+        if self.profile.has("prepare"):
+            self.do("prepare")
+
+    def event_status(self) -> int:
+        """The event status register (``*ESR?``; reading clears it)."""
+        return int(self.ask("event_status"))
+
+    def errors(self) -> list[blocks.ScpiError]:
+        """Drain the error queue: every entry up to the ``0,...`` that ends it."""
+        found: list[blocks.ScpiError] = []
+        for _ in range(MAX_ERROR_READS):
+            entry = self.ask("next_error")
+            if not entry.is_error:
+                return found
+            found.append(entry)
+        raise InstrumentError(
+            f"the error queue did not empty after {MAX_ERROR_READS} reads "
+            f"(last: {found[-1]})",
+            where=self.where(self.profile.op("next_error").ask[0]),
+            fix="check that the profile's next_error query is the instrument's error query",
+        )
+
+    def check_errors(self) -> None:
+        """Drain the error queue; raise :class:`InstrumentError` if it held errors.
+
+        The message names the commands sent since the previous check (the last configuration
+        block) and the instrument's texts. Settings in that block are forgotten from the cache,
+        since the instrument may have refused them.
+        """
+        sent, ops, count = list(self._block), set(self._block_ops), self._block_count
+        self._block.clear()
+        self._block_count = 0
+        self._block_ops.clear()
+        found = self.errors()
+        if not found:
+            return
+        for op in ops:
+            self._cache.pop(op, None)
+        shown = sent[-_BLOCK_SHOWN:]
+        prefix = f"({count - len(shown)} earlier) ... " if count > len(shown) else ""
+        commands = prefix + "; ".join(shown) if shown else "(none since the last check)"
+        texts = "; ".join(str(e) for e in found)
+        raise InstrumentError(
+            f"the instrument reported {texts} after: {commands}",
+            where=self.where(),
+            fix="check these settings against the instrument's ranges and the profile's "
+            "commands against its manual",
+        )
+
+    def forget_state(self) -> None:
+        """Empty the cache of last-sent settings (after a reset, reconnect or power cycle)."""
+        self._cache.clear()
+
+    def state(self) -> dict[str, Value]:
+        """The settings sent and not forgotten since: operation name → value."""
+        return {op: value for op, (value, _token) in self._cache.items()}
+
+    def apply_state(self, state: Mapping[str, Value]) -> None:
+        """Send the settings in ``state`` (from :meth:`state`), in the profile's order.
+
+        Settings unchanged in the cache are skipped as usual; call :meth:`forget_state`
+        first to send them all.
+        """
+        for op in self.profile.ops:
+            if op in state:
+                self.set_value(op, state[op])
+
+    def safe(self) -> None:
+        """Put the instrument in its safe state (sources/supplies off). Base: nothing."""
+
+    def close(self) -> None:
+        """Close the transport."""
+        with contextlib.suppress(TransportError):
+            self.transport.close()

@@ -1,0 +1,189 @@
+"""The abstract operations a driver profile maps to SCPI, per instrument kind.
+
+This table is the contract between the profile files (``drivers/*.toml``, which give each
+operation its SCPI) and the driver classes (which call the operations by these names). Each
+operation has a *shape*:
+
+``setting``
+    a value the driver sets (``set`` templates with ``{value}``), remembers and never re-sends
+    unchanged; optionally read back (``get``).
+``action``
+    commands sent for their effect (``do``), possibly with a ``{value}`` and a completion wait.
+``query``
+    commands whose replies are parsed (``ask``), possibly after ``do`` commands.
+
+``unit`` is the :mod:`sweeprig.units` kind of the value (used to parse limits such as
+``max = "6 GHz"`` in a profile, and to print values). ``safety`` marks values whose limits
+guard the part or the bench: exceeding them raises :class:`~sweeprig.errors.SafetyLimitError`.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Literal
+
+Shape = Literal["setting", "action", "query"]
+ValueType = Literal["none", "float", "int", "bool", "choice"]
+ReplyFormat = Literal["float", "int", "bool", "csv_floats", "real32", "error", "text"]
+
+REPLY_FORMATS: tuple[str, ...] = ("float", "int", "bool", "csv_floats", "real32", "error", "text")
+
+KINDS: tuple[str, ...] = (
+    "source", "analyzer", "powermeter", "supply", "chamber", "switch", "simctl",
+)
+
+UNIT_SYMBOL: dict[str | None, str] = {
+    "frequency": "Hz",
+    "power": "dBm",
+    "level_db": "dB",
+    "voltage": "V",
+    "current": "A",
+    "time": "s",
+    "temperature": "°C",
+    "count": "",
+    None: "",
+}
+
+
+@dataclass(frozen=True)
+class OpSpec:
+    """What the driver expects of one abstract operation."""
+
+    name: str
+    shape: Shape
+    summary: str
+    value: ValueType = "none"
+    unit: str | None = None
+    reply: ReplyFormat | None = None
+    required: bool = True
+    safety: bool = False
+    choices: tuple[str, ...] = ()
+
+
+def _setting(name: str, value: ValueType, unit: str | None, summary: str, **kw: object) -> OpSpec:
+    reply = {"float": "float", "int": "int", "bool": "bool", "choice": "text"}[value]
+    return OpSpec(name, "setting", summary, value=value, unit=unit, reply=reply, **kw)  # type: ignore[arg-type]
+
+
+COMMON_OPS: dict[str, OpSpec] = {
+    spec.name: spec
+    for spec in (
+        OpSpec("identify", "query", "identity string (*IDN?)", reply="text"),
+        OpSpec("reset", "action", "settings to power-on defaults (*RST)"),
+        OpSpec("clear", "action", "clear the error queue and event registers (*CLS)"),
+        OpSpec("next_error", "query", "oldest error-queue entry (SYST:ERR?)", reply="error"),
+        OpSpec("event_status", "query", "event status register (*ESR?)", reply="int"),
+        OpSpec("operation_complete", "query", "wait for pending operations (*OPC? → 1)",
+               reply="bool"),
+        OpSpec("prepare", "action", "put the instrument in the mode sweeprig expects",
+               required=False),
+    )
+}
+"""Operations every kind has. Profiles inherit the IEEE 488.2 / SCPI-99 defaults below."""
+
+COMMON_DEFAULTS: dict[str, dict[str, object]] = {
+    "identify": {"ask": "*IDN?"},
+    "reset": {"do": "*RST", "complete": "opc"},
+    "clear": {"do": "*CLS"},
+    "next_error": {"ask": "SYST:ERR?"},
+    "event_status": {"ask": "*ESR?"},
+    "operation_complete": {"ask": "*OPC?"},
+}
+"""The TOML a profile gets for the common operations unless it gives its own."""
+
+KIND_OPS: dict[str, dict[str, OpSpec]] = {
+    "source": {
+        s.name: s
+        for s in (
+            _setting("frequency", "float", "frequency", "CW frequency, Hz"),
+            _setting("power", "float", "power", "output level, dBm", safety=True),
+            _setting("output", "bool", None, "RF output on/off"),
+        )
+    },
+    "analyzer": {
+        s.name: s
+        for s in (
+            _setting("centre", "float", "frequency", "centre frequency, Hz"),
+            _setting("span", "float", "frequency", "span, Hz (0 = zero span)"),
+            _setting("rbw", "float", "frequency", "resolution bandwidth, Hz"),
+            _setting("vbw", "float", "frequency", "video bandwidth, Hz", required=False),
+            _setting("ref_level", "float", "power", "reference level, dBm"),
+            _setting("attenuation", "float", "level_db", "input attenuation, dB"),
+            _setting("averages", "int", "count", "trace averages (1 = none)"),
+            _setting("points", "int", "count", "trace points", required=False),
+            _setting("continuous", "bool", None, "continuous sweep (sweeprig sets it off)"),
+            _setting("rbw_auto", "bool", None, "RBW coupled to span", required=False),
+            _setting("attenuation_auto", "bool", None, "attenuation coupled to ref level",
+                     required=False),
+            _setting("trace_format", "choice", None, "trace data format",
+                     required=False, choices=("ascii", "real32")),
+            _setting("marker_on", "bool", None, "marker 1 on", required=False),
+            OpSpec("sweep", "action", "start one sweep (all averages) and wait for it"),
+            OpSpec("sweep_time", "query", "time of one sweep, s", reply="float", required=False),
+            OpSpec("marker_level", "query", "level at a frequency, dBm (value: Hz)",
+                   value="float", unit="frequency", reply="float"),
+            OpSpec("peak", "query", "marker to the highest point → frequency Hz, level dBm",
+                   reply="float"),
+            OpSpec("trace_ascii", "query", "trace as ASCII numbers, dBm", reply="csv_floats",
+                   required=False),
+            OpSpec("trace_real32", "query", "trace as a REAL,32 block, dBm", reply="real32",
+                   required=False),
+            OpSpec("overload", "query", "input overload in the last sweep (flag)", reply="int"),
+            OpSpec("uncalibrated", "query", "reading uncalibrated (flag)", reply="int",
+                   required=False),
+        )
+    },
+    "powermeter": {
+        s.name: s
+        for s in (
+            _setting("frequency", "float", "frequency", "calibration-factor frequency, Hz"),
+            _setting("averages", "int", "count", "averages", required=False),
+            OpSpec("power", "query", "average power, dBm", reply="float"),
+        )
+    },
+    "supply": {
+        s.name: s
+        for s in (
+            _setting("voltage", "float", "voltage", "set voltage, V", safety=True),
+            _setting("current_limit", "float", "current", "current limit, A", safety=True),
+            _setting("output", "bool", None, "output on/off"),
+            OpSpec("measure_voltage", "query", "measured voltage, V", reply="float"),
+            OpSpec("measure_current", "query", "measured current, A", reply="float"),
+            OpSpec("current_limited", "query", "in current limit (flag)", reply="int",
+                   required=False),
+        )
+    },
+    "chamber": {
+        s.name: s
+        for s in (
+            _setting("setpoint", "float", "temperature", "set point, °C"),
+            _setting("control", "bool", None, "conditioning on/off"),
+            _setting("ramp", "float", None, "air ramp rate, °C/min", required=False),
+            OpSpec("probe", "query", "DUT probe temperature, °C", reply="float"),
+            OpSpec("air", "query", "air temperature, °C", reply="float"),
+        )
+    },
+    "switch": {
+        s.name: s
+        for s in (
+            _setting("channel", "int", "count", "closed channel (one at a time)"),
+            OpSpec("closed", "query", "is a channel closed (value: channel)", value="int",
+                   unit="count", reply="bool", required=False),
+        )
+    },
+    "simctl": {
+        s.name: s
+        for s in (
+            OpSpec("time", "query", "simulated time, s", reply="float"),
+            OpSpec("advance", "action", "let simulated time pass (value: s)", value="float",
+                   unit="time"),
+            OpSpec("mode", "query", "VIRT or REAL", reply="text", required=False),
+        )
+    },
+}
+"""Per kind: the operations its driver calls (besides :data:`COMMON_OPS`)."""
+
+
+def ops_for(kind: str) -> dict[str, OpSpec]:
+    """All operations of ``kind``: the common ones, then the kind's own."""
+    return {**COMMON_OPS, **KIND_OPS[kind]}

@@ -1,0 +1,384 @@
+"""The simulated bench: a description file → instruments around one world → SCPI sockets.
+
+A sim-bench description (TOML) says which mixer part sits on the bench, the losses of every
+connection, the sources' level error and harmonics, the analyzer's own figures, the chamber's
+time constants, the seed of every random draw and any planned faults. Example (every key is
+optional; the values shown are the defaults)::
+
+    part = "ideal"               # a shipped part name, or a part file relative to this file
+    seed = 1
+
+    [cables]                     # loss in dB; a table {loss, at} grows as sqrt(f)
+    rf = "2.5 dB"                # rf source to the combiner
+    rf2 = "8.5 dB"               # rf2 source to the combiner
+    combiner = "0.5 dB"          # both RF tones pass it on the way to the DUT RF port
+    lo = "2 dB"                  # lo source to the DUT LO port
+    if = "1.5 dB"                # DUT IF port to the analyzer (switch channel 1)
+    rf_port = "2.5 dB"           # DUT RF port to the analyzer (switch channel 2)
+    lo_port = "2.5 dB"           # DUT LO port to the analyzer (switch channel 3)
+    # e.g. lo = { loss = "1.5 dB", at = "2 GHz" }: 1.5 dB at 2 GHz, growing as sqrt(f)
+
+    [sources]
+    level_error = true           # the small level error of the simulated sources
+    harmonics = ["-35 dBc", "-45 dBc"]
+
+    [analyzer]
+    noise_figure = "14 dB"       # at 0 dB attenuation
+    toi = "15 dBm"               # first-mixer third-order intercept
+    shi = "45 dBm"               # first-mixer second-harmonic intercept
+    p1db = "3 dBm"               # first-mixer 1 dB compression
+    overload = "0 dBm"           # first-mixer level that raises the overload flag
+    amplitude_error = "0 dB"
+
+    [chamber]
+    ambient = "23 degC"
+    probe_lag = "120 s"          # DUT probe time constant behind the air
+    drift = "600 s"              # time constant of the air back to ambient, control off
+
+    [dut]
+    self_heating_c_per_w = 0.0   # die temperature rise per watt of supply power
+    unpowered = { rf_to_if = "45 dB", lo_to_if = "40 dB", lo_to_rf = "35 dB", below = "0.5 V" }
+
+    [[faults]]                   # planned faults, see sweeprig.sim.faults
+    role = "sa"
+    kind = "timeout"
+    at_command = 40
+
+Roles served: ``rf``, ``rf2``, ``lo`` (sources), ``sa`` (analyzer), ``pm`` (power meter),
+``dc`` (supply), ``chamber``, ``switch``, ``simctl``.
+"""
+
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass
+from pathlib import Path
+from types import TracebackType
+from typing import Annotated, Any
+
+from pydantic import Field, field_validator
+from pydantic_core import PydanticCustomError
+
+from sweeprig.clock import Clock, VirtualClock
+from sweeprig.errors import InputError
+from sweeprig.formats.fields import Frozen, quantity
+from sweeprig.formats.loading import Document, display_path, load_document, validate
+from sweeprig.sim.analyzer_display import AnalyzerParams
+from sweeprig.sim.faults import FaultPlan, FaultSpec
+from sweeprig.sim.instruments.analyzer import SpectrumAnalyzer
+from sweeprig.sim.instruments.chamber import ThermalChamber
+from sweeprig.sim.instruments.powermeter import PowerMeter
+from sweeprig.sim.instruments.simctl import SimControl
+from sweeprig.sim.instruments.source import (
+    SignalSource,
+    default_level_error_db,
+    no_level_error_db,
+)
+from sweeprig.sim.instruments.supply import DcSupply
+from sweeprig.sim.instruments.switch import RfSwitch
+from sweeprig.sim.mixer import load_part, shipped_parts
+from sweeprig.sim.scpi import ScpiInstrument
+from sweeprig.sim.server import ServedBench, serve
+from sweeprig.sim.world import (
+    CableLoss,
+    Cabling,
+    DeadMixer,
+    MixerModel,
+    SimWorld,
+    WorldConfig,
+)
+
+ROLES: tuple[str, ...] = ("rf", "rf2", "lo", "sa", "pm", "dc", "chamber", "switch", "simctl")
+BENCHES_DIR = Path(__file__).resolve().parent / "benches"
+DEFAULT_BENCH_NAME = "default"
+
+LevelDb = quantity("level_db")
+Power = quantity("power")
+Frequency = quantity("frequency")
+Temperature = quantity("temperature")
+Time = quantity("time")
+Voltage = quantity("voltage")
+NonNegativeDb = Annotated[LevelDb, Field(ge=0.0)]
+
+
+class SqrtCableSpec(Frozen):
+    """A cable whose loss grows as sqrt(f): ``loss`` dB at frequency ``at``."""
+
+    loss: NonNegativeDb
+    at: Annotated[Frequency, Field(gt=0.0)]
+
+
+CableSpec = NonNegativeDb | SqrtCableSpec
+
+
+def _cable(spec: CableSpec) -> CableLoss:
+    if isinstance(spec, SqrtCableSpec):
+        return CableLoss(spec.loss, spec.at)
+    return CableLoss(float(spec))
+
+
+class CablesSpec(Frozen):
+    """Loss of each connection (dB, positive = loss); see the module docstring."""
+
+    rf: CableSpec = 2.5
+    rf2: CableSpec = 8.5
+    lo: CableSpec = 2.0
+    if_: CableSpec = Field(default=1.5, alias="if")
+    combiner: CableSpec = 0.5
+    rf_port: CableSpec = 2.5
+    lo_port: CableSpec = 2.5
+
+
+class SourcesSpec(Frozen):
+    """Properties shared by the three simulated sources."""
+
+    level_error: bool = True
+    harmonics: tuple[LevelDb, ...] = (-35.0, -45.0)
+
+
+class AnalyzerSpec(Frozen):
+    """The analyzer's own figures (see :class:`sweeprig.sim.analyzer_display.AnalyzerParams`)."""
+
+    noise_figure: NonNegativeDb = 14.0
+    toi: Power = 15.0
+    shi: Power = 45.0
+    p1db: Power = 3.0
+    overload: Power = 0.0
+    amplitude_error: LevelDb = 0.0
+
+    def params(self) -> AnalyzerParams:
+        return AnalyzerParams(
+            noise_figure_db=self.noise_figure, toi_dbm=self.toi, shi_dbm=self.shi,
+            p1db_dbm=self.p1db, overload_dbm=self.overload,
+            amplitude_error_db=self.amplitude_error,
+        )
+
+
+class ChamberSpec(Frozen):
+    """Thermal chamber figures."""
+
+    ambient: Temperature = 23.0
+    probe_lag: Annotated[Time, Field(gt=0.0)] = 120.0
+    drift: Annotated[Time, Field(gt=0.0)] = 600.0
+
+
+class UnpoweredSpec(Frozen):
+    """Passive leakage of the mixer without supply (dB of isolation) and the threshold."""
+
+    rf_to_if: NonNegativeDb = 45.0
+    lo_to_if: NonNegativeDb = 40.0
+    lo_to_rf: NonNegativeDb = 35.0
+    below: Annotated[Voltage, Field(ge=0.0)] = 0.5
+
+
+class DutSpec(Frozen):
+    """How the part sits on the bench."""
+
+    self_heating_c_per_w: Annotated[float, Field(ge=0.0)] = 0.0
+    unpowered: UnpoweredSpec = UnpoweredSpec()
+
+
+class SimBenchDescription(Frozen):
+    """A whole sim-bench description file (see the module docstring)."""
+
+    include: tuple[str, ...] = ()
+    part: Annotated[str, Field(min_length=1)] = "ideal"
+    seed: Annotated[int, Field(strict=True, ge=0)] = 1
+    cables: CablesSpec = CablesSpec()
+    sources: SourcesSpec = SourcesSpec()
+    analyzer: AnalyzerSpec = AnalyzerSpec()
+    chamber: ChamberSpec = ChamberSpec()
+    dut: DutSpec = DutSpec()
+    faults: tuple[FaultSpec, ...] = ()
+
+    @field_validator("faults")
+    @classmethod
+    def _fault_roles(cls, faults: tuple[FaultSpec, ...]) -> tuple[FaultSpec, ...]:
+        for fault in faults:
+            if fault.role not in ROLES:
+                raise PydanticCustomError(
+                    "semantic", "{what}",
+                    {"what": f"a fault is planned for unknown role {fault.role!r}",
+                     "fix": f"use one of the roles {', '.join(ROLES)}"},
+                )
+        return faults
+
+    def world_config(self) -> WorldConfig:
+        c, u = self.cables, self.dut.unpowered
+        return WorldConfig(
+            cabling=Cabling(rf=_cable(c.rf), rf2=_cable(c.rf2), lo=_cable(c.lo),
+                            if_=_cable(c.if_), combiner=_cable(c.combiner),
+                            rf_port=_cable(c.rf_port), lo_port=_cable(c.lo_port)),
+            dead_mixer=DeadMixer(rf_to_if_db=u.rf_to_if, lo_to_if_db=u.lo_to_if,
+                                 lo_to_rf_db=u.lo_to_rf, min_supply_v=u.below),
+            self_heating_c_per_w=self.dut.self_heating_c_per_w,
+            ambient_c=self.chamber.ambient,
+        )
+
+    def fault_plan(self) -> FaultPlan:
+        return FaultPlan(faults=self.faults)
+
+
+def load_sim_bench_description(path: str | os.PathLike[str]) -> SimBenchDescription:
+    """Read and validate a sim-bench description file.
+
+    A part given as a path is resolved relative to the file. Every problem raises
+    :class:`~sweeprig.errors.InputError` naming the file, line and key.
+    """
+    doc = load_document(path)
+    description = validate(SimBenchDescription, doc)
+    if _looks_like_path(description.part):
+        part_path = Path(doc.path).parent / description.part
+        if not part_path.is_file():
+            raise InputError(
+                f"part file {description.part!r} does not exist "
+                f"(looked for {display_path(part_path)})",
+                where=doc.where(("part",)),
+                fix="part paths are relative to the description file; or name a shipped "
+                f"part: {', '.join(shipped_parts())}",
+            )
+        description = description.model_copy(update={"part": str(part_path)})
+    elif description.part.lower() not in shipped_parts():
+        raise _unknown_part(description.part, doc)
+    return description
+
+
+def resolve_description(
+    description: SimBenchDescription | str | os.PathLike[str] | None,
+) -> SimBenchDescription:
+    """A description from a model, a file path, a shipped bench name or None (the default)."""
+    if isinstance(description, SimBenchDescription):
+        return description
+    if description is None:
+        return load_sim_bench_description(BENCHES_DIR / f"{DEFAULT_BENCH_NAME}.toml")
+    text = os.fspath(description)
+    shipped = BENCHES_DIR / f"{text}.toml"
+    if not _looks_like_path(text) and not Path(text).exists() and shipped.is_file():
+        return load_sim_bench_description(shipped)
+    return load_sim_bench_description(text)
+
+
+def shipped_benches() -> list[str]:
+    """Names of the sim-bench descriptions shipped in ``sweeprig/sim/benches``."""
+    return sorted(p.stem for p in BENCHES_DIR.glob("*.toml"))
+
+
+@dataclass(frozen=True)
+class SimInstruments:
+    """The instruments of a simulated bench around their world, not yet served."""
+
+    world: SimWorld
+    instruments: dict[str, ScpiInstrument]
+    clock: Clock
+    description: SimBenchDescription
+
+
+def build_sim_instruments(
+    description: SimBenchDescription | str | os.PathLike[str] | None = None,
+    *,
+    clock: Clock | None = None,
+    part: MixerModel | None = None,
+) -> SimInstruments:
+    """Build the world and every instrument (no sockets), wired together.
+
+    ``part`` replaces the description's part (tests use a stand-in mixer).
+    """
+    desc = resolve_description(description)
+    clock = clock if clock is not None else VirtualClock()
+    model = part if part is not None else _load_part(desc.part)
+    world = SimWorld(model, desc.world_config())
+    level_error = default_level_error_db if desc.sources.level_error else no_level_error_db
+    harmonics = desc.sources.harmonics
+    sources = {
+        role: SignalSource(clock, f"SG6-1000{k + 1}", level_error_db=level_error,
+                           harmonics_dbc=harmonics)
+        for k, role in enumerate(("rf", "rf2", "lo"))
+    }
+    supply = DcSupply(clock, load=world.supply_current_a)
+    chamber = ThermalChamber(clock, ambient_c=desc.chamber.ambient,
+                             probe_tau_s=desc.chamber.probe_lag, drift_tau_s=desc.chamber.drift)
+    switch = RfSwitch(clock)
+    analyzer = SpectrumAnalyzer(clock, world.analyzer_input, params=desc.analyzer.params(),
+                                seed=desc.seed)
+    meter = PowerMeter(clock, sense=world.sensed_power_dbm, seed=desc.seed + 1)
+    world.connect(rf=sources["rf"], rf2=sources["rf2"], lo=sources["lo"], supply=supply,
+                  chamber=chamber, switch=switch)
+    instruments: dict[str, ScpiInstrument] = {
+        **sources, "sa": analyzer, "pm": meter, "dc": supply, "chamber": chamber,
+        "switch": switch, "simctl": SimControl(clock),
+    }
+    return SimInstruments(world, {r: instruments[r] for r in ROLES}, clock, desc)
+
+
+class SimBench:
+    """A running simulated bench: instruments behind raw SCPI sockets.
+
+    ``resources``: role → VISA resource string; ``ports``: role → TCP port; ``world``,
+    ``clock``, ``instruments`` (role → instrument), ``description``, ``faults`` (the fault
+    injector, whose ``log`` lists every injected fault). Close it, or use it as a context
+    manager.
+    """
+
+    def __init__(self, parts: SimInstruments, served: ServedBench) -> None:
+        self.description = parts.description
+        self.world = parts.world
+        self.clock = parts.clock
+        self.instruments = parts.instruments
+        self.served = served
+        self.host = served.host
+        self.resources: dict[str, str] = dict(served.resources)
+        self.ports: dict[str, int] = dict(served.ports)
+        self.faults = served.faults
+
+    def close(self) -> None:
+        """Stop every server (idempotent)."""
+        self.served.close()
+
+    def __enter__(self) -> SimBench:
+        return self
+
+    def __exit__(self, exc_type: type[BaseException] | None, exc: BaseException | None,
+                 tb: TracebackType | None) -> None:
+        self.close()
+
+
+def start_sim_bench(
+    description: SimBenchDescription | str | os.PathLike[str] | None = None,
+    *,
+    clock: Clock | None = None,
+    host: str = "127.0.0.1",
+    ports: dict[str, int] | None = None,
+    allow_remote: bool = False,
+    part: MixerModel | None = None,
+) -> SimBench:
+    """Build the simulated bench and serve it in this process (server threads).
+
+    ``description``: a model, a file path, a shipped bench name, or None for the default.
+    ``ports``: role → TCP port (missing or 0: ephemeral). ``allow_remote``: needed to bind a
+    non-loopback ``host`` (the simulator has no authentication).
+    """
+    parts = build_sim_instruments(description, clock=clock, part=part)
+    served = serve(parts.instruments, host=host, ports=ports,
+                   faults=parts.description.fault_plan(), allow_remote=allow_remote)
+    return SimBench(parts, served)
+
+
+def _looks_like_path(text: str) -> bool:
+    return text.lower().endswith(".toml") or any(sep in text for sep in ("/", "\\"))
+
+
+def _unknown_part(name: str, doc: Document) -> InputError:
+    return InputError(
+        f"no shipped part named {name!r}",
+        where=doc.where(("part",)),
+        fix=f"name one of {', '.join(shipped_parts())}, or give a part file path ending in .toml",
+    )
+
+
+def _load_part(name_or_path: str) -> Any:
+    try:
+        return load_part(name_or_path)
+    except InputError as exc:
+        if exc.where == "part":
+            raise InputError(exc.what, where="sim-bench description: part", fix=exc.fix) from None
+        raise

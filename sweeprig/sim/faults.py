@@ -1,0 +1,240 @@
+"""Fault injection for the simulated bench: planned misbehaviour of served instruments.
+
+A :class:`FaultPlan` lists faults per instrument role. Kinds:
+
+* ``timeout`` — the reply to the next query is swallowed (the command still runs).
+* ``drop`` — the client's connection is closed; the message that triggered it is lost.
+* ``error`` — ``code``/``text`` is pushed to the instrument's error queue (the message
+  then runs normally).
+* ``garble`` — the bytes of the next reply are corrupted (same length, the terminator kept).
+* ``reset`` — the instrument resets itself as after a power glitch (power-on defaults, PON
+  bit set, error queue cleared) before the message runs.
+
+Triggers (exactly one per fault): ``at_time_s`` (the first message at or after that
+simulated time), ``at_command`` (the n-th message, counted from 1, received by that role's
+instrument over all its connections) or ``rate`` (probability per message, from a seeded
+generator; ``max_count`` caps how often it fires). A "message" is one received line.
+``timeout`` and ``garble`` wait, once triggered, for the next message that has a reply.
+
+Every injected fault is recorded in the thread-safe :class:`FaultLog` with role, kind,
+simulated time, command count and the message it hit, so a soak test can check that the
+engine accounted for each one.
+
+TOML form (one table per fault)::
+
+    [[faults]]
+    role = "sa"
+    kind = "timeout"
+    at_command = 40
+
+    [[faults]]
+    role = "dc"
+    kind = "error"
+    rate = 0.01
+    seed = 7
+    code = -200
+    text = "Execution error"
+"""
+
+from __future__ import annotations
+
+import random
+import threading
+from collections.abc import Mapping
+from dataclasses import dataclass
+from typing import Any, Literal
+
+from pydantic import BaseModel, ConfigDict, Field, ValidationError, model_validator
+
+from sweeprig.errors import InputError
+
+FaultKind = Literal["timeout", "drop", "error", "garble", "reset"]
+
+#: Bytes a garbled reply is made of: printable ASCII that never forms a number or a terminator.
+_GARBLE_ALPHABET = b"!#$%&()*<>?@[]^_{|}~"
+
+
+class FaultSpec(BaseModel):
+    """One planned fault (see the module docstring)."""
+
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+    role: str = Field(min_length=1)
+    kind: FaultKind
+    at_time_s: float | None = Field(default=None, ge=0.0)
+    at_command: int | None = Field(default=None, ge=1)
+    rate: float | None = Field(default=None, gt=0.0, le=1.0)
+    seed: int = 0
+    max_count: int | None = Field(default=None, ge=1)
+    code: int = -200
+    text: str | None = None
+
+    @model_validator(mode="after")
+    def _one_trigger(self) -> FaultSpec:
+        given = [n for n in ("at_time_s", "at_command", "rate") if getattr(self, n) is not None]
+        if len(given) != 1:
+            raise ValueError(
+                "give exactly one trigger: at_time_s, at_command or rate"
+                + (f" (got {', '.join(given)})" if given else "")
+            )
+        if self.max_count is not None and self.rate is None:
+            raise ValueError("max_count applies to rate triggers only")
+        return self
+
+
+class FaultPlan(BaseModel):
+    """All planned faults of a simulated bench."""
+
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+    faults: tuple[FaultSpec, ...] = ()
+
+    @classmethod
+    def from_mapping(cls, data: Mapping[str, Any], *, where: str = "fault plan") -> FaultPlan:
+        """Validate a dict / parsed TOML table; raises :class:`InputError` naming the key."""
+        try:
+            return cls.model_validate(dict(data))
+        except ValidationError as exc:
+            first = exc.errors()[0]
+            loc = ".".join(str(p) for p in first["loc"])
+            raise InputError(
+                f"{first['msg']}",
+                where=f"{where}: {loc}" if loc else where,
+                fix="each [[faults]] table needs role, kind (timeout|drop|error|garble|reset) "
+                "and one trigger (at_time_s, at_command or rate); no other keys",
+            ) from exc
+
+    def for_role(self, role: str) -> tuple[FaultSpec, ...]:
+        return tuple(f for f in self.faults if f.role == role)
+
+
+@dataclass(frozen=True)
+class FaultEvent:
+    """One injected fault: where, what, when (simulated s), which message (1-based count)."""
+
+    role: str
+    kind: FaultKind
+    time_s: float
+    command_count: int
+    command: str
+    detail: str = ""
+
+
+class FaultLog:
+    """Thread-safe record of every injected fault, in injection order."""
+
+    def __init__(self) -> None:
+        self._events: list[FaultEvent] = []
+        self._lock = threading.Lock()
+
+    def record(self, event: FaultEvent) -> None:
+        with self._lock:
+            self._events.append(event)
+
+    def events(self, role: str | None = None) -> list[FaultEvent]:
+        with self._lock:
+            return [e for e in self._events if role is None or e.role == role]
+
+    def __len__(self) -> int:
+        with self._lock:
+            return len(self._events)
+
+
+@dataclass(frozen=True)
+class FaultAction:
+    """What the server must do with one received message."""
+
+    drop: bool = False
+    swallow_reply: bool = False
+    garble_reply: bool = False
+
+
+class _Armed:
+    __slots__ = ("fired", "rng", "spec")
+
+    def __init__(self, spec: FaultSpec) -> None:
+        self.spec = spec
+        self.fired = 0
+        self.rng = random.Random(spec.seed)
+
+
+class RoleFaults:
+    """Fault state of one role: message counter, triggers, faults waiting for a reply."""
+
+    def __init__(self, role: str, specs: tuple[FaultSpec, ...], log: FaultLog) -> None:
+        self.role = role
+        self.log = log
+        self.command_count = 0
+        self._armed = [_Armed(s) for s in specs]
+        self._waiting: list[FaultSpec] = []
+        self._lock = threading.Lock()
+
+    def on_message(self, message: str, now_s: float, instrument: Any) -> FaultAction:
+        """Count a received message, fire due faults; ``instrument`` is a ScpiInstrument."""
+        with self._lock:
+            self.command_count += 1
+            count = self.command_count
+            due = [a for a in self._armed if self._is_due(a, now_s, count)]
+            action = FaultAction()
+            for armed in due:
+                armed.fired += 1
+                spec = armed.spec
+                if spec.kind in ("timeout", "garble"):
+                    self._waiting.append(spec)
+                    continue
+                detail = ""
+                if spec.kind == "error":
+                    instrument.push_error(spec.code, text=spec.text)
+                    detail = f"{spec.code}"
+                elif spec.kind == "reset":
+                    instrument.reset_to_power_on()
+                elif spec.kind == "drop":
+                    action = FaultAction(drop=True)
+                self.log.record(FaultEvent(self.role, spec.kind, now_s, count, message, detail))
+            return action
+
+    def on_reply(self, message: str, now_s: float) -> FaultAction:
+        """A reply is about to be sent for ``message``: apply a waiting timeout/garble."""
+        with self._lock:
+            if not self._waiting:
+                return FaultAction()
+            spec = self._waiting.pop(0)
+            self.log.record(
+                FaultEvent(self.role, spec.kind, now_s, self.command_count, message)
+            )
+            if spec.kind == "timeout":
+                return FaultAction(swallow_reply=True)
+            return FaultAction(garble_reply=True)
+
+    @staticmethod
+    def _is_due(armed: _Armed, now_s: float, count: int) -> bool:
+        spec = armed.spec
+        if spec.at_command is not None:
+            return armed.fired == 0 and count == spec.at_command
+        if spec.at_time_s is not None:
+            return armed.fired == 0 and now_s >= spec.at_time_s
+        if spec.max_count is not None and armed.fired >= spec.max_count:
+            return False
+        return armed.rng.random() < (spec.rate or 0.0)
+
+
+class FaultInjector:
+    """The running faults of a served bench: one :class:`RoleFaults` per role, one log."""
+
+    def __init__(self, plan: FaultPlan | None = None) -> None:
+        self.plan = plan or FaultPlan()
+        self.log = FaultLog()
+        self._roles: dict[str, RoleFaults] = {}
+        self._lock = threading.Lock()
+
+    def for_role(self, role: str) -> RoleFaults:
+        with self._lock:
+            if role not in self._roles:
+                self._roles[role] = RoleFaults(role, self.plan.for_role(role), self.log)
+            return self._roles[role]
+
+
+def garble(reply: bytes, seed: int = 0) -> bytes:
+    """``reply`` with every byte replaced by punctuation (same length, never a newline)."""
+    rng = random.Random(seed ^ len(reply))
+    return bytes(rng.choice(_GARBLE_ALPHABET) for _ in reply)

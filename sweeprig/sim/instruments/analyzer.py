@@ -1,0 +1,320 @@
+"""Tarnwick Labs TW-SA13 (sim): the simulated swept spectrum analyzer (role ``sa``).
+
+The SCPI command set is fixed by docs/instruments.md. The display itself is computed by
+:mod:`sweeprig.sim.analyzer_display`; this module holds the settings, the couplings between
+them (RBW to span, attenuation to reference level), the sweep as a pending operation on the
+shared clock, the markers and the trace transfer. It gets its input from a callable given at
+construction, so it knows nothing about the rest of the simulated bench.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable
+
+import numpy as np
+
+from sweeprig.clock import Clock
+from sweeprig.sim.analyzer_display import (
+    AnalyzerParams,
+    InputSpectrum,
+    SweepResult,
+    SweepSettings,
+    simulate_sweep,
+    sweep_time_s,
+    total_sweep_time_s,
+)
+from sweeprig.sim.scpi import (
+    OPER_SWEEPING,
+    Command,
+    Identity,
+    ScpiError,
+    ScpiInstrument,
+    Setting,
+    format_number,
+)
+
+MAKER = "Tarnwick Labs"
+MODEL = "TW-SA13"
+FREQ_MIN_HZ = 0.0
+CENTER_MIN_HZ = 9e3
+FREQ_MAX_HZ = 13.6e9
+RBW_MIN_HZ = 1.0
+RBW_MAX_HZ = 10e6
+ATT_MAX_DB = 70.0
+ATT_STEP_DB = 2.0
+POINTS_MIN, POINTS_MAX, POINTS_DEFAULT = 101, 10001, 1001
+AVERAGES_MAX = 10000
+MARKERS = 4
+# RBW coupled to span: span/RBW = 100 (common practice, no source).
+SPAN_PER_RBW = 100.0
+# Auto attenuation: a signal at the reference level reaches the first mixer at -10 dBm, and
+# never less than 10 dB of attenuation (common practice, no source).
+AUTO_ATT_MIXER_DBM = -10.0
+AUTO_ATT_MIN_DB = 10.0
+
+QUES_OVERLOAD = 1 << 3
+QUES_UNCALIBRATED = 1 << 4
+
+_RBW_STEPS_HZ = tuple(m * 10.0**k for k in range(8) for m in (1.0, 3.0) if m * 10.0**k <= 1e7)
+
+
+def round_rbw_up(rbw_hz: float) -> float:
+    """The next RBW of the 1-3-10 sequence at or above ``rbw_hz`` (1 Hz to 10 MHz)."""
+    for step in _RBW_STEPS_HZ:
+        if step >= rbw_hz * (1.0 - 1e-9):
+            return step
+    return _RBW_STEPS_HZ[-1]
+
+
+def round_attenuation(att_db: float) -> float:
+    """Attenuation rounded to the 2 dB step, 0 to 70 dB."""
+    return min(max(ATT_STEP_DB * round(att_db / ATT_STEP_DB), 0.0), ATT_MAX_DB)
+
+
+def encode_real32_block(values: np.ndarray, *, big_endian: bool = True) -> bytes:
+    """IEEE 488.2 definite-length arbitrary block ``#<n><length><bytes>`` of 32-bit floats."""
+    data = np.asarray(values, dtype=">f4" if big_endian else "<f4").tobytes()
+    length = str(len(data))
+    return b"#" + str(len(length)).encode("ascii") + length.encode("ascii") + data
+
+
+class SpectrumAnalyzer(ScpiInstrument):
+    """The TW-SA13 (sim).
+
+    ``input_spectrum``: called at each sweep; returns what arrives at the input connector.
+    ``params``: the analyzer's own noise figure, intercepts, compression and overload.
+    ``seed``: seeds the noise of the traces (same seed and commands → same traces).
+    """
+
+    def __init__(
+        self,
+        clock: Clock,
+        input_spectrum: Callable[[], InputSpectrum],
+        *,
+        params: AnalyzerParams | None = None,
+        seed: int = 1,
+        serial: str = "SA13-0001",
+    ) -> None:
+        super().__init__(clock, Identity(MAKER, MODEL, serial, "1.0"))
+        self.input_spectrum = input_spectrum
+        self.params = params or AnalyzerParams()
+        self.rng = np.random.default_rng(seed)
+        self._last: SweepResult | None = None
+        self._last_time_s = -math.inf
+        self._vbw_coupled = True
+        self._register()
+        self.on_reset()
+
+    # ------------------------------------------------------------------ public views
+    @property
+    def last_sweep(self) -> SweepResult | None:
+        """The most recent sweep, or None before the first."""
+        return self._last
+
+    def sweep_settings(self) -> SweepSettings:
+        """The settings a sweep started now would use."""
+        averaging = bool(self.value("avg_on"))
+        return SweepSettings(
+            start_hz=self.value("start_hz"),
+            stop_hz=self.value("stop_hz"),
+            points=int(self.value("points")),
+            rbw_hz=self.value("rbw_hz"),
+            vbw_hz=self.value("vbw_hz"),
+            attenuation_db=self.value("att_db"),
+            ref_level_dbm=self.value("ref_level_dbm"),
+            averages=int(self.value("avg_count")) if averaging else 1,
+        )
+
+    def sweep_now(self) -> SweepResult:
+        """Take a sweep at the present settings and input (no time passes)."""
+        with self.lock:
+            self._last = simulate_sweep(
+                self.input_spectrum(), self.sweep_settings(), self.params, self.rng
+            )
+            self._last_time_s = self.clock.now()
+            return self._last
+
+    def questionable_condition(self) -> int:
+        bits = 0
+        if self._last is not None:
+            if self._last.overload:
+                bits |= QUES_OVERLOAD
+            if self._last.uncalibrated:
+                bits |= QUES_UNCALIBRATED
+        return bits
+
+    def on_reset(self) -> None:
+        self._last = None
+        self._last_time_s = -math.inf
+        self._vbw_coupled = True
+        self._couple()
+
+    # ------------------------------------------------------------------ registration
+    def _register(self) -> None:
+        add = self.add_setting
+        freq = "frequency"
+        add(Setting("center_hz", "[SENSe]:FREQuency:CENTer", "float",
+                    default=0.5 * (CENTER_MIN_HZ + FREQ_MAX_HZ), unit=freq,
+                    minimum=CENTER_MIN_HZ, maximum=FREQ_MAX_HZ, on_change=self._center_changed))
+        add(Setting("span_hz", "[SENSe]:FREQuency:SPAN", "float",
+                    default=FREQ_MAX_HZ - CENTER_MIN_HZ, unit=freq,
+                    minimum=0.0, maximum=FREQ_MAX_HZ - FREQ_MIN_HZ, on_change=self._span_changed))
+        add(Setting("start_hz", "[SENSe]:FREQuency:STARt", "float", default=CENTER_MIN_HZ,
+                    unit=freq, minimum=FREQ_MIN_HZ, maximum=FREQ_MAX_HZ,
+                    on_change=self._start_changed))
+        add(Setting("stop_hz", "[SENSe]:FREQuency:STOP", "float", default=FREQ_MAX_HZ,
+                    unit=freq, minimum=FREQ_MIN_HZ, maximum=FREQ_MAX_HZ,
+                    on_change=self._stop_changed))
+        add(Setting("rbw_hz", "[SENSe]:BANDwidth|BWIDth[:RESolution]", "float", default=3e6,
+                    unit=freq, minimum=RBW_MIN_HZ, maximum=RBW_MAX_HZ, coerce=round_rbw_up,
+                    on_change=self._rbw_changed))
+        add(Setting("rbw_auto", "[SENSe]:BANDwidth|BWIDth[:RESolution]:AUTO", "bool",
+                    default=True, on_change=lambda _v: self._couple()))
+        add(Setting("vbw_hz", "[SENSe]:BANDwidth|BWIDth:VIDeo", "float", default=3e6,
+                    unit=freq, minimum=RBW_MIN_HZ, maximum=RBW_MAX_HZ,
+                    on_change=self._vbw_changed))
+        add(Setting("avg_count", "[SENSe]:AVERage:COUNt", "int", default=10,
+                    minimum=1, maximum=AVERAGES_MAX))
+        add(Setting("avg_on", "[SENSe]:AVERage[:STATe]", "bool", default=False))
+        add(Setting("points", "[SENSe]:SWEep:POINts", "int", default=POINTS_DEFAULT,
+                    minimum=POINTS_MIN, maximum=POINTS_MAX))
+        add(Setting("ref_level_dbm", "DISPlay[:WINDow]:TRACe:Y[:SCALe]:RLEVel", "float",
+                    default=0.0, unit="power", minimum=-170.0, maximum=30.0,
+                    on_change=lambda _v: self._couple()))
+        add(Setting("att_db", "INPut:ATTenuation", "float", default=AUTO_ATT_MIN_DB,
+                    unit="level_db", minimum=0.0, maximum=ATT_MAX_DB, coerce=round_attenuation,
+                    on_change=self._att_changed))
+        add(Setting("att_auto", "INPut:ATTenuation:AUTO", "bool", default=True,
+                    on_change=lambda _v: self._couple()))
+        add(Setting("continuous", "INITiate:CONTinuous", "bool", default=True))
+        add(Setting("marker_on", "CALCulate:MARKer[1-4][:STATe]", "bool", default=False))
+        add(Setting("marker_x_hz", "CALCulate:MARKer[1-4]:X", "float",
+                    default=0.5 * (CENTER_MIN_HZ + FREQ_MAX_HZ), unit=freq,
+                    minimum=FREQ_MIN_HZ, maximum=FREQ_MAX_HZ))
+        add(Setting("format", "FORMat[:DATA]", "enum", default="ASCii",
+                    choices=("ASCii", "REAL,32")))
+        add(Setting("byte_order", "FORMat:BORDer", "enum", default="NORMal",
+                    choices=("NORMal", "SWAPped")))
+        self.add_command("[SENSe]:SWEep:TIME", query=self._sweep_time_query)
+        self.add_command("INITiate[:IMMediate]", write=self._initiate)
+        # Marker X: a write handler that also switches the marker on (registered after the
+        # setting so it replaces the setting's own write handler).
+        self.add_command("CALCulate:MARKer[1-4]:X", write=self._marker_x)
+        self.add_command("CALCulate:MARKer[1-4]:MAXimum[:PEAK]", write=self._marker_max)
+        self.add_command("CALCulate:MARKer[1-4]:Y", query=self._marker_y)
+        self.add_command("TRACe[:DATA]", query=self._trace_query)
+
+    # ------------------------------------------------------------------ couplings
+    def _set_span(self, center_hz: float, span_hz: float) -> None:
+        span = max(0.0, min(span_hz, 2.0 * (center_hz - FREQ_MIN_HZ),
+                            2.0 * (FREQ_MAX_HZ - center_hz)))
+        self.put_value("center_hz", center_hz)
+        self.put_value("span_hz", span)
+        self.put_value("start_hz", center_hz - span / 2.0)
+        self.put_value("stop_hz", center_hz + span / 2.0)
+        self._couple()
+
+    def _set_edges(self, start_hz: float, stop_hz: float) -> None:
+        self.put_value("start_hz", start_hz)
+        self.put_value("stop_hz", stop_hz)
+        self.put_value("center_hz", 0.5 * (start_hz + stop_hz))
+        self.put_value("span_hz", stop_hz - start_hz)
+        self._couple()
+
+    def _center_changed(self, center_hz: float) -> None:
+        self._set_span(center_hz, self.value("span_hz"))
+
+    def _span_changed(self, span_hz: float) -> None:
+        self._set_span(self.value("center_hz"), span_hz)
+
+    def _start_changed(self, start_hz: float) -> None:
+        self._set_edges(start_hz, max(start_hz, self.value("stop_hz")))
+
+    def _stop_changed(self, stop_hz: float) -> None:
+        self._set_edges(min(stop_hz, self.value("start_hz")), stop_hz)
+
+    def _rbw_changed(self, _rbw_hz: float) -> None:
+        self.put_value("rbw_auto", False)
+        self._couple()
+
+    def _vbw_changed(self, _vbw_hz: float) -> None:
+        self._vbw_coupled = False
+
+    def _att_changed(self, _att_db: float) -> None:
+        self.put_value("att_auto", False)
+
+    def _couple(self) -> None:
+        """Apply the auto couplings: RBW ← span, VBW ← RBW, attenuation ← reference level."""
+        span = self.value("span_hz")
+        if self.value("rbw_auto") and span > 0:
+            rbw = round_rbw_up(min(max(span / SPAN_PER_RBW, RBW_MIN_HZ), RBW_MAX_HZ))
+            self.put_value("rbw_hz", rbw)
+        if self._vbw_coupled:
+            self.put_value("vbw_hz", self.value("rbw_hz"))
+        if self.value("att_auto"):
+            wanted = self.value("ref_level_dbm") - AUTO_ATT_MIXER_DBM
+            att = ATT_STEP_DB * math.ceil(wanted / ATT_STEP_DB - 1e-9)
+            self.put_value("att_db", min(max(att, AUTO_ATT_MIN_DB), ATT_MAX_DB))
+
+    # ------------------------------------------------------------------ handlers
+    def _sweep_time_query(self, cmd: Command) -> str:
+        cmd.no_params()
+        return format_number(sweep_time_s(self.sweep_settings()))
+
+    def _initiate(self, cmd: Command) -> None:
+        cmd.no_params()
+        settings = self.sweep_settings()
+        self.sweep_now()
+        self.start_operation(total_sweep_time_s(settings), operation_bit=OPER_SWEEPING)
+
+    def _current_sweep(self) -> SweepResult:
+        """The trace to read: the last sweep; in continuous mode a fresh one when it is old."""
+        last = self._last
+        if last is None:
+            return self.sweep_now()
+        if self.value("continuous"):
+            age = self.clock.now() - self._last_time_s
+            if age >= last.sweep_time_s:
+                return self.sweep_now()
+        return last
+
+    def _marker_x(self, cmd: Command) -> None:
+        param = cmd.one()
+        special = param.special()
+        start, stop = self.value("start_hz"), self.value("stop_hz")
+        if special == "MIN":
+            x = start
+        elif special == "MAX":
+            x = stop
+        elif special == "DEF":
+            x = self.value("center_hz")
+        else:
+            x = param.to_float("frequency", where=cmd.header)
+            if not math.isfinite(x):
+                raise ScpiError(-222, f"{cmd.header} {param.text}")
+        # The marker stays on the trace: clamped to the span.
+        self.put_value("marker_x_hz", min(max(x, start), stop), cmd.index)
+        self.put_value("marker_on", True, cmd.index)
+
+    def _marker_max(self, cmd: Command) -> None:
+        cmd.no_params()
+        freq_hz, _ = self._current_sweep().peak()
+        self.put_value("marker_x_hz", freq_hz, cmd.index)
+        self.put_value("marker_on", True, cmd.index)
+
+    def _marker_y(self, cmd: Command) -> str:
+        cmd.no_params()
+        if not self.value("marker_on", cmd.index):
+            raise ScpiError(-221, f"marker {cmd.index} is off; set its X or switch it on")
+        return format_number(round(self._current_sweep().level_at(
+            self.value("marker_x_hz", cmd.index)), 6))
+
+    def _trace_query(self, cmd: Command) -> str | bytes:
+        name = cmd.one()
+        if name.text.upper() not in ("TRACE1", "TRAC1"):
+            raise ScpiError(-224, f"{cmd.header}? {name.text} (only TRACE1)")
+        trace = self._current_sweep().trace_dbm
+        if self.value("format") == "REAL,32":
+            return encode_real32_block(trace, big_endian=self.value("byte_order") == "NORMAL")
+        return ",".join(f"{v:.4f}" for v in trace)

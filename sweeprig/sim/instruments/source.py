@@ -1,0 +1,96 @@
+"""Signal source — Tarnwick Labs TW-SG6 (simulated): CW tone, level, RF output switch.
+
+Roles ``rf``, ``rf2``, ``lo``. The world reads the read-only views ``freq_hz``,
+``power_dbm`` (the setting), ``delivered_power_dbm`` (setting plus the source's level error
+at the set frequency, dBm, whether or not the output is on), ``output_on`` and
+``harmonics_dbc`` (levels of the 2nd, 3rd, … harmonics relative to the carrier, dBc).
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable, Sequence
+
+from sweeprig.clock import Clock
+from sweeprig.sim.scpi import Identity, ScpiInstrument, Setting
+
+FREQ_MIN_HZ = 9e3
+FREQ_MAX_HZ = 6e9
+POWER_MIN_DBM = -130.0
+POWER_MAX_DBM = 20.0
+#: Power-on level: low, on the safe side (the output is off anyway).
+POWER_DEFAULT_DBM = -30.0
+FREQ_DEFAULT_HZ = 1e9
+#: Settling after a frequency or level change, s (invented figure of the simulated source).
+SETTLE_S = 0.002
+
+
+def default_level_error_db(freq_hz: float) -> float:
+    """The simulated bench's source level error versus frequency, dB (invented ripple).
+
+    A smooth ripple of two sine terms, always within ±0.15 dB.
+    """
+    return 0.10 * math.sin(2.0 * math.pi * freq_hz / 1.3e9) + 0.05 * math.sin(
+        2.0 * math.pi * freq_hz / 0.37e9 + 0.7
+    )
+
+
+def no_level_error_db(freq_hz: float) -> float:
+    """A perfect source: 0 dB level error at every frequency."""
+    return 0.0
+
+
+class SignalSource(ScpiInstrument):
+    """TW-SG6 CW signal source. Power-on: 1 GHz, −30 dBm, output OFF."""
+
+    def __init__(
+        self,
+        clock: Clock,
+        serial: str = "SG6-10001",
+        *,
+        level_error_db: Callable[[float], float] = default_level_error_db,
+        harmonics_dbc: Sequence[float] = (-35.0, -45.0),
+    ) -> None:
+        super().__init__(clock, Identity("Tarnwick Labs", "TW-SG6", serial, "1.0"))
+        self.level_error_db = level_error_db
+        self._harmonics_dbc = tuple(float(h) for h in harmonics_dbc)
+        self.add_setting(Setting(
+            "freq_hz", "[SOURce]:FREQuency[:CW|:FIXed]", "float", FREQ_DEFAULT_HZ,
+            unit="frequency", minimum=FREQ_MIN_HZ, maximum=FREQ_MAX_HZ, on_change=self._settle,
+        ))
+        self.add_setting(Setting(
+            "power_dbm", "[SOURce]:POWer[:LEVel][:IMMediate][:AMPLitude]", "float",
+            POWER_DEFAULT_DBM, unit="power", minimum=POWER_MIN_DBM, maximum=POWER_MAX_DBM,
+            on_change=self._settle,
+            caution="caution: check the DUT's maximum input level before raising it",
+        ))
+        self.add_setting(Setting("output_on", "OUTPut[:STATe]", "bool", False,
+                                 on_change=self._settle))
+
+    def _settle(self, _value: object) -> None:
+        self.start_operation(SETTLE_S)
+
+    @property
+    def freq_hz(self) -> float:
+        """CW frequency setting, Hz."""
+        return float(self.value("freq_hz"))
+
+    @property
+    def power_dbm(self) -> float:
+        """Level setting, dBm."""
+        return float(self.value("power_dbm"))
+
+    @property
+    def delivered_power_dbm(self) -> float:
+        """Level actually delivered at the output connector, dBm (setting + level error)."""
+        freq_hz = self.freq_hz
+        return self.power_dbm + float(self.level_error_db(freq_hz))
+
+    @property
+    def output_on(self) -> bool:
+        return bool(self.value("output_on"))
+
+    @property
+    def harmonics_dbc(self) -> tuple[float, ...]:
+        """Harmonic levels relative to the carrier, dBc: (2nd, 3rd, …)."""
+        return self._harmonics_dbc

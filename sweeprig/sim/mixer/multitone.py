@@ -1,0 +1,472 @@
+"""Exact multi-tone response of the Gilbert-cell core by separable phase grids.
+
+The cell's output current is a sum of products of an LO-only factor and an RF-only factor
+(see :mod:`sweeprig.sim.mixer.core`)::
+
+    out(t) = (I_EE/2)·D(θ_lo) + (I_EE/2)·X(θ_1, …, θ_K)·S(θ_lo)
+
+with ``D = t1 − t2``, ``S = t1 + t2`` (quad) and ``X = x(Σ_k v_k(θ_k) + v_os_rf)``
+(transconductor). Every input tone (with its harmonics) lives on its own phase axis
+``θ = 2π·f·t + φ``, so each factor is periodic in its phases whatever the frequencies are.
+Sampling a factor on a uniform phase grid and taking its FFT gives its Fourier coefficients
+exactly (up to aliasing, which the adaptive grid keeps below ``tol`` of the largest
+coefficient); the output line with orders ``(m, n_1, …, n_K)`` sits at
+``m·f_lo + Σ n_k·f_k`` with complex amplitude ``(I_EE/2)·(D_m·[n = 0] + S_m·X_n)·
+exp(i·(m·φ_lo + Σ n_k·φ_k))``. The cost depends on the tone amplitudes only, never on how
+close the tones are.
+
+Conventions: amplitudes are peak volts at the core (differential), currents are peak amperes,
+phases radians, frequencies Hz. Coefficients are those of the complex exponential series
+(``f(θ) = Σ c_m·exp(i·m·θ)``); a real line at f > 0 has peak amplitude ``2·|c|``.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+from functools import lru_cache
+
+import numpy as np
+import scipy.fft
+from numpy.typing import NDArray
+
+from sweeprig.sim.mixer.core import pair_fraction, switching_functions
+
+ALIAS_TOL = 1e-8  # top quarter of each axis' spectrum below this fraction of the largest
+PRUNE_REL = 1e-13  # coefficients below this fraction of their factor's largest are rounding
+MERGE_TOL_HZ = 1e-3  # lines closer than this are one line
+_MAX_LO_GRID = 1 << 16
+_MAX_RF_POINTS = 1 << 20
+
+
+@dataclass(frozen=True)
+class CellState:
+    """The core at one operating point: VT (V), tail current (A), R_E per emitter (ohm),
+    quad pair offsets and RF pair offset (V)."""
+
+    vt_v: float
+    i_ee_a: float
+    r_e_ohm: float = 0.0
+    v_os1_v: float = 0.0
+    v_os2_v: float = 0.0
+    v_os_rf_v: float = 0.0
+
+
+@dataclass(frozen=True)
+class LoFactor:
+    """Fourier coefficients of the quad's LO-only factors D and S at LO phase 0.
+
+    ``orders[l]`` is the LO multiplier m of ``d[l]`` and ``s[l]``; ``grid_n`` the phase-grid
+    size used; ``converged`` whether the aliasing tolerance was met within the size cap.
+    """
+
+    orders: NDArray[np.int64]
+    d: NDArray[np.complex128]
+    s: NDArray[np.complex128]
+    grid_n: int
+    converged: bool = True
+    abs_s: NDArray[np.float64] = field(init=False, repr=False, compare=False)
+    abs_d: NDArray[np.float64] = field(init=False, repr=False, compare=False)
+    has_d: bool = field(init=False, repr=False, compare=False)
+    max_s: float = field(init=False, repr=False, compare=False)
+    max_d: float = field(init=False, repr=False, compare=False)
+
+    def __post_init__(self) -> None:
+        abs_s, abs_d = np.abs(self.s), np.abs(self.d)
+        object.__setattr__(self, "abs_s", abs_s)
+        object.__setattr__(self, "abs_d", abs_d)
+        object.__setattr__(self, "has_d", bool(np.any(self.d != 0)))
+        object.__setattr__(self, "max_s", float(abs_s.max()))
+        object.__setattr__(self, "max_d", float(abs_d.max()))
+
+
+@dataclass(frozen=True)
+class RfFactor:
+    """Fourier coefficients of the transconductor factor X at zero RF phases.
+
+    ``orders[p]`` (shape (P, K)) are the RF multipliers of ``x[p]``; row 0 is always the
+    all-zero order (the DC of X). ``index[p]`` is the row of ``orders[p]`` in the full order
+    table of :func:`order_table` (for the cached order tuples). ``grid_shape`` is the
+    phase-grid size per RF axis.
+    """
+
+    orders: NDArray[np.int64]
+    x: NDArray[np.complex128]
+    index: NDArray[np.intp]
+    grid_shape: tuple[int, ...]
+    converged: bool = True
+    abs_x: NDArray[np.float64] = field(init=False, repr=False, compare=False)
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "abs_x", np.abs(self.x))
+
+
+def _start_size(max_order: int) -> int:
+    """Smallest power of two that holds orders −max_order..max_order without wrapping."""
+    return max(8, 1 << math.ceil(math.log2(2 * max_order + 2)))
+
+
+@lru_cache(maxsize=64)
+def _cos_table(n: int, harmonics: int) -> NDArray[np.float64]:
+    """cos(h·θ_j) for h = 1..harmonics on the grid θ_j = 2π·j/n, shape (harmonics, n)."""
+    theta = 2.0 * np.pi * np.arange(n) / n
+    table = np.cos(np.outer(np.arange(1, harmonics + 1), theta))
+    table.flags.writeable = False
+    return table
+
+
+def _axis_wave(amps_v: Sequence[float], n: int) -> NDArray[np.float64]:
+    """Σ_h A_h·cos(h·θ) on an n-point phase grid (``amps_v[h-1]`` = harmonic h, peak V)."""
+    amps = np.asarray(amps_v, dtype=float)
+    return amps @ _cos_table(n, len(amps))
+
+
+# --- LO factor ---------------------------------------------------------------------------
+def lo_factor(
+    lo_amps_v: Sequence[float],
+    cell: CellState,
+    max_order: int,
+    tol: float = ALIAS_TOL,
+) -> LoFactor:
+    """Fourier coefficients of D(θ) and S(θ) for an LO wave ``Σ_h A_h·cos(h·θ)``.
+
+    ``lo_amps_v[h-1]`` is the peak differential voltage of LO harmonic h at the quad.
+    An empty or all-zero drive gives the DC values only (no LO). The grid size doubles until
+    the top quarter of the spectrum is below ``tol`` of the largest coefficient.
+    """
+    if len(lo_amps_v) == 0 or not any(lo_amps_v):
+        d0, s0 = switching_functions(0.0, cell.vt_v, cell.v_os1_v, cell.v_os2_v)
+        return LoFactor(
+            orders=np.zeros(1, dtype=np.int64),
+            d=np.array([complex(d0)]),
+            s=np.array([complex(s0)]),
+            grid_n=1,
+        )
+    n = max(_start_size(max_order), _start_size(2 * len(lo_amps_v)))
+    converged = False
+    while True:
+        wave = _axis_wave(lo_amps_v, n)
+        d_t, s_t = switching_functions(wave, cell.vt_v, cell.v_os1_v, cell.v_os2_v)
+        d_k = scipy.fft.rfft(d_t) / n
+        s_k = scipy.fft.rfft(s_t) / n
+        mag = np.maximum(np.abs(d_k), np.abs(s_k))
+        top = float(mag[n // 4 :].max())
+        if top <= tol * float(mag.max()):
+            converged = True
+            break
+        if n >= _MAX_LO_GRID:
+            break
+        n *= 2
+    m_pos = np.arange(max_order + 1)
+    orders = np.concatenate([-m_pos[:0:-1], m_pos])
+    d = np.concatenate([np.conj(d_k[m_pos[:0:-1]]), d_k[m_pos]])
+    s = np.concatenate([np.conj(s_k[m_pos[:0:-1]]), s_k[m_pos]])
+    mag = np.maximum(np.abs(d), np.abs(s))
+    keep = mag > PRUNE_REL * float(mag.max())
+    return LoFactor(orders=orders[keep], d=d[keep], s=s[keep], grid_n=n, converged=converged)
+
+
+# --- RF factor ---------------------------------------------------------------------------
+@lru_cache(maxsize=16)
+def order_table(n_tones: int, max_order: int) -> NDArray[np.int64]:
+    """All RF orders (n_1, …, n_K) with Σ|n_k| ≤ max_order, the zero order first."""
+    if n_tones == 0:
+        empty = np.zeros((1, 0), dtype=np.int64)
+        empty.flags.writeable = False
+        return empty
+    axes = [np.arange(-max_order, max_order + 1)] * n_tones
+    grid = np.stack(np.meshgrid(*axes, indexing="ij"), axis=-1).reshape(-1, n_tones)
+    grid = grid[np.abs(grid).sum(axis=1) <= max_order]
+    zero = np.all(grid == 0, axis=1)
+    grid = np.ascontiguousarray(np.concatenate([grid[zero], grid[~zero]]), dtype=np.int64)
+    grid.flags.writeable = False
+    return grid
+
+
+@lru_cache(maxsize=16)
+def combo_tuples(max_lo_order: int, n_tones: int, max_rf_order: int) -> NDArray[np.object_]:
+    """Order tuples ``(m, n_1, …, n_K)`` as an object array indexed by
+    ``[m + max_lo_order, row of order_table]`` (built once; lines reference them)."""
+    rf = [tuple(row) for row in order_table(n_tones, max_rf_order).tolist()]
+    table = np.empty((2 * max_lo_order + 1, len(rf)), dtype=object)
+    for i, m in enumerate(range(-max_lo_order, max_lo_order + 1)):
+        for j, n in enumerate(rf):
+            table[i, j] = (m, *n)
+    table.flags.writeable = False
+    return table
+
+
+@lru_cache(maxsize=128)
+def _fft_index(
+    shape: tuple[int, ...], max_order: int
+) -> tuple[NDArray[np.intp], NDArray[np.bool_]]:
+    """Flat indices of :func:`order_table`'s orders in the rfftn output of a grid of
+    ``shape``, and which of them are read as the conjugate of the negated order (the last
+    axis of rfftn holds n ≥ 0 only)."""
+    k = len(shape)
+    grid = order_table(k, max_order)
+    conj = grid[:, -1] < 0
+    read = np.where(conj[:, None], -grid, grid)
+    rshape = (*shape[:-1], shape[-1] // 2 + 1)
+    idx = np.ravel_multi_index(
+        tuple((read[:, a] % shape[a]) if a < k - 1 else read[:, a] for a in range(k)), rshape
+    )
+    for arr in (idx, conj):
+        arr.flags.writeable = False
+    return idx, conj
+
+
+def _rf_grid_values(
+    tone_amps_v: Sequence[Sequence[float]], shape: tuple[int, ...], cell: CellState
+) -> NDArray[np.float64]:
+    """X = x(Σ_k v_k(θ_k) + v_os_rf) on the K-D phase grid."""
+    k = len(shape)
+    total: NDArray[np.float64] | float = cell.v_os_rf_v
+    for axis, (amps, n) in enumerate(zip(tone_amps_v, shape, strict=True)):
+        view = [1] * k
+        view[axis] = n
+        total = total + _axis_wave(amps, n).reshape(view)
+    return pair_fraction(total, cell.vt_v, cell.i_ee_a, cell.r_e_ohm)
+
+
+def _smooth_even(n: int) -> int:
+    """Smallest even 5-smooth number (2^a·3^b·5^c) ≥ n: a fast FFT size."""
+    m = max(2, n + (n % 2))
+    while True:
+        r = m
+        for p in (2, 3, 5):
+            while r % p == 0:
+                r //= p
+        if r == 1:
+            return m
+        m += 2
+
+
+def _rf_start_size(max_order: int, harmonics: int) -> int:
+    """First RF grid size: holds orders −max_order..max_order (and the harmonics) unwrapped."""
+    return _smooth_even(2 * max(max_order, 2 * harmonics) + 2)
+
+
+def _rf_next_size(n: int) -> int:
+    """Next RF grid size: about 1.25× (finer steps than doubling waste fewer points)."""
+    return _smooth_even(math.ceil(1.25 * n))
+
+
+def _axis_tops(spectrum_mag: NDArray[np.float64], shape: Sequence[int]) -> list[float]:
+    """Largest coefficient in the top half of each axis' range (|n_k| ≥ N_k/4; rfftn
+    layout: the last axis holds n ≥ 0 only)."""
+    k = spectrum_mag.ndim
+    tops = []
+    for axis in range(k):
+        other = tuple(a for a in range(k) if a != axis)
+        profile = spectrum_mag.max(axis=other) if other else spectrum_mag
+        if axis == k - 1:
+            tops.append(float(profile[shape[axis] // 4 :].max()))
+        else:
+            n_full = profile.size
+            idx = np.arange(n_full)
+            fold = np.minimum(idx, n_full - idx)
+            tops.append(float(profile[fold >= n_full // 4].max()))
+    return tops
+
+
+def rf_grid_shape(
+    tone_amps_v: Sequence[Sequence[float]],
+    cell: CellState,
+    max_order: int,
+    tol: float = ALIAS_TOL,
+) -> tuple[tuple[int, ...], bool]:
+    """Phase-grid size per RF axis so that aliasing stays below ``tol`` of the largest
+    coefficient: each axis grows (by ~1.25×, through fast FFT sizes) until the top half of
+    its order range (|n| ≥ N/4) is below ``tol``.
+
+    Depends on the amplitudes only (not on the frequencies). Returns the shape and whether
+    the tolerance was met within the size cap.
+    """
+    k = len(tone_amps_v)
+    if k == 0:
+        return (), True
+    shape = [_rf_start_size(max_order, len(a)) for a in tone_amps_v]
+    while True:
+        values = _rf_grid_values(tone_amps_v, tuple(shape), cell)
+        mag = np.abs(scipy.fft.rfftn(values))
+        largest = float(mag.max())
+        if largest == 0.0:
+            return tuple(shape), True
+        grow = [top > tol * largest for top in _axis_tops(mag, shape)]
+        if not any(grow):
+            return tuple(shape), True
+        new_shape = [_rf_next_size(n) if g else n for n, g in zip(shape, grow, strict=True)]
+        if math.prod(new_shape) > _MAX_RF_POINTS:
+            return tuple(shape), False
+        shape = new_shape
+
+
+def rf_factor(
+    tone_amps_v: Sequence[Sequence[float]],
+    cell: CellState,
+    max_order: int,
+    grid_shape: tuple[int, ...] | None = None,
+) -> RfFactor:
+    """Fourier coefficients of X for RF tones with peak amplitudes ``tone_amps_v[k][h-1]``.
+
+    ``grid_shape`` (from :func:`rf_grid_shape`, possibly cached by the caller) skips the
+    grid search. Orders are capped at ``Σ|n_k| ≤ max_order``.
+    """
+    k = len(tone_amps_v)
+    if k == 0:
+        x0 = pair_fraction(cell.v_os_rf_v, cell.vt_v, cell.i_ee_a, cell.r_e_ohm)
+        return RfFactor(
+            np.zeros((1, 0), dtype=np.int64), np.array([complex(x0)]), np.zeros(1, np.intp), ()
+        )
+    converged = True
+    if grid_shape is None:
+        grid_shape, converged = rf_grid_shape(tone_amps_v, cell, max_order)
+    values = _rf_grid_values(tone_amps_v, grid_shape, cell)
+    spectrum = scipy.fft.rfftn(values).ravel()
+    idx, conj = _fft_index(tuple(grid_shape), max_order)
+    x = spectrum[idx]
+    if conj.any():
+        x[conj] = np.conj(x[conj])
+    x *= 1.0 / math.prod(grid_shape)
+    table = order_table(k, max_order)
+    return RfFactor(table, x, _all_rows(len(table)), tuple(grid_shape), converged)
+
+
+@lru_cache(maxsize=16)
+def _all_rows(count: int) -> NDArray[np.intp]:
+    rows = np.arange(count)
+    rows.flags.writeable = False
+    return rows
+
+
+# --- combination -------------------------------------------------------------------------
+@dataclass(frozen=True)
+class Lines:
+    """Spectral lines: frequency (Hz, > 0), complex amplitude, and the orders
+    ``(m_LO, n_1, …, n_K)`` of each as an object array of tuples."""
+
+    freq_hz: NDArray[np.float64]
+    amp: NDArray[np.complex128]
+    orders: NDArray[np.object_]
+
+
+def combine(
+    lo: LoFactor,
+    lo_freq_hz: float,
+    lo_phase_rad: float,
+    rf: RfFactor,
+    rf_freqs_hz: Sequence[float],
+    rf_phases_rad: Sequence[float],
+    i_ee_a: float,
+    max_lo_order: int,
+    max_rf_order: int,
+    min_abs_a: float | None = None,
+) -> Lines:
+    """Output lines of the cell, peak differential current (A) of each real line at f > 0.
+
+    Each (m, n) pair is one entry (not yet merged: see :func:`merge_coincident`). Entries
+    whose magnitude ``I_EE·|S_m·X_n + D_m·[n = 0]|`` is bounded by at most ``min_abs_a``
+    are dropped first (default: ``PRUNE_REL`` of the largest, i.e. rounding noise).
+    ``max_lo_order``/``max_rf_order`` must be those the factors were made with (they index
+    the cached order tuples).
+    """
+    k = rf.orders.shape[1]
+    if i_ee_a <= 0.0:
+        return Lines(np.zeros(0), np.zeros(0, dtype=complex), np.empty(0, dtype=object))
+    if min_abs_a is None:
+        limit = PRUNE_REL * (lo.max_s * float(rf.abs_x.max()) + lo.max_d)
+    else:
+        limit = min_abs_a / i_ee_a
+    x, abs_x, orders, index = rf.x, rf.abs_x, rf.orders, rf.index
+    # RF orders that cannot reach the limit with any LO order (bound |S|·|X| + |D|)
+    reach = abs_x * lo.max_s > limit
+    reach[0] = True
+    if not reach.all():
+        rows = reach.nonzero()[0]
+        x, abs_x, orders, index = x[rows], abs_x[rows], orders[rows], index[rows]
+    bound = np.multiply.outer(lo.abs_s, abs_x)
+    if lo.has_d:
+        bound[:, 0] += lo.abs_d
+    lo_f = lo.orders * lo_freq_hz
+    freq = np.add.outer(lo_f, orders @ np.asarray(rf_freqs_hz, dtype=float)) if k else lo_f[:, None]
+    mask = bound > limit
+    mask &= freq > MERGE_TOL_HZ
+    flat = mask.ravel().nonzero()[0]
+    li, pi = np.divmod(flat, abs_x.size)
+    s = lo.s * i_ee_a  # 2·(I_EE/2): a real line is 2·its coefficient
+    if lo_phase_rad:
+        s = s * np.exp(1j * lo_phase_rad * lo.orders)
+    if k and any(rf_phases_rad):
+        x = x * np.exp(1j * (orders @ np.asarray(rf_phases_rad, dtype=float)))
+    amp = s[li] * x[pi]
+    if lo.has_d:
+        at_zero = (pi == 0).nonzero()[0]
+        if at_zero.size:
+            d = lo.d * i_ee_a
+            if lo_phase_rad:
+                d = d * np.exp(1j * lo_phase_rad * lo.orders)
+            amp[at_zero] += d[li[at_zero]]
+    table = combo_tuples(max_lo_order, k, max_rf_order)
+    codes = (lo.orders + max_lo_order)[li] * table.shape[1] + index[pi]
+    return Lines(freq.ravel()[flat], amp, table.ravel()[codes])
+
+
+def merge_coincident(lines: Lines, tol_hz: float = MERGE_TOL_HZ) -> Lines:
+    """Sort lines by frequency and add those at the same frequency as complex amplitudes.
+
+    A merged line keeps the orders of its strongest contributor.
+    """
+    if lines.freq_hz.size == 0:
+        return lines
+    order = np.argsort(lines.freq_hz)
+    freq = lines.freq_hz[order]
+    new_group = np.empty(freq.size, dtype=bool)
+    new_group[0] = True
+    np.greater(np.diff(freq), tol_hz, out=new_group[1:])
+    if new_group.all():
+        return Lines(freq, lines.amp[order], lines.orders[order])
+    amp = lines.amp[order]
+    orders = lines.orders[order]
+    starts = np.flatnonzero(new_group)
+    ends = np.append(starts[1:], freq.size)
+    merged_amp = amp[starts]
+    merged_orders = orders[starts]
+    for g in np.flatnonzero(ends - starts > 1).tolist():
+        seg = amp[starts[g] : ends[g]]
+        merged_amp[g] = seg.sum()
+        merged_orders[g] = orders[starts[g] + int(np.argmax(np.abs(seg)))]
+    return Lines(freq[starts], merged_amp, merged_orders)
+
+
+def concat_lines(parts: Sequence[Lines]) -> Lines:
+    """Join several line sets (same number of order columns)."""
+    return Lines(
+        np.concatenate([p.freq_hz for p in parts]),
+        np.concatenate([p.amp for p in parts]),
+        np.concatenate([p.orders for p in parts]),
+    )
+
+
+def cell_lines(
+    cell: CellState,
+    lo_amps_v: Sequence[float],
+    lo_freq_hz: float,
+    lo_phase_rad: float,
+    rf_amps_v: Sequence[Sequence[float]],
+    rf_freqs_hz: Sequence[float],
+    rf_phases_rad: Sequence[float],
+    max_lo_order: int = 15,
+    max_rf_order: int = 9,
+) -> Lines:
+    """The core's output lines (peak differential current, A), merged and sorted.
+
+    ``lo_amps_v``/``rf_amps_v[k]``: peak voltages of the fundamental and harmonics at the
+    core. This is the bare cell: no port networks, no leakage paths.
+    """
+    lo = lo_factor(lo_amps_v, cell, max_lo_order)
+    rf = rf_factor(rf_amps_v, cell, max_rf_order)
+    lines = combine(lo, lo_freq_hz, lo_phase_rad, rf, rf_freqs_hz, rf_phases_rad, cell.i_ee_a,
+                    max_lo_order, max_rf_order)
+    return merge_coincident(lines)

@@ -1,0 +1,823 @@
+"""A mixer part: its file format, loading and validation, and its evaluation.
+
+Part-file schema (TOML). Quantities may be written with units ("4 mA", "2.4 GHz", "200 ohm",
+"15 dB"); a bare number is in the internal unit (A, Hz, ohm, dB, V, degC, dBm). Keys marked
+*optional* may be left out.
+
+``[part]``
+    ``name`` (text, required), ``description`` (text, optional),
+    ``conversion`` = ``"down"`` (default: the RF port feeds the transconductor, the IF port
+    is the output) or ``"up"`` (the IF port feeds the transconductor, the RF port is the
+    output; the wanted output is the sum frequency).
+``[core]``
+    ``tail_current`` I_EE at the nominal supply (and, for PTAT bias, at
+    ``reference_temperature``), required; ``emitter_degeneration`` R_E per emitter (default
+    0 ohm); ``cells`` number of Gilbert cells drawing I_EE each (default 1);
+    ``bias`` = ``"constant"`` (I_EE independent of temperature, default) or ``"ptat"``
+    (I_EE ∝ absolute temperature, G_m constant); ``reference_temperature`` (default 25 degC);
+    ``nominal_supply`` (default 3.3 V); ``min_supply`` below which the bias is off
+    (default 0 V); ``tail_supply_coeff`` k_v, per volt: I_EE = I0·(1 + k_v·(V − V_nom))
+    (default 0); ``aux_current`` current of LO buffers etc. at the nominal supply (default 0 A);
+    ``aux_supply_coeff`` per volt, same law (default 0).
+``[mismatch]`` (optional)
+    ``quad_offset_1``, ``quad_offset_2`` input offsets of the two switching pairs;
+    ``rf_pair_offset`` input offset of the transconductor pair (all default 0 V). Quad offsets
+    give even LO harmonics, RF feedthrough and (with the RF offset) a finite IIP2; the RF
+    offset gives LO→IF leakage.
+``[ports.rf]``, ``[ports.lo]``, ``[ports.if]``
+    ``resistance``: the differential resistance at the core behind an ideal balun from 50 ohm
+    (input resistance R_in at the transconductor input and LO ports, load R_L at the output
+    port), required; ``return_loss`` (dB, optional: perfect match); ``highpass`` and
+    ``lowpass`` first-order corner frequencies (optional: flat).
+``[isolation]`` (optional; dB, positive; a missing key means no extra leakage path)
+    ``lo_to_rf``, ``lo_to_if`` (LO coupled straight to the port, on top of what the core
+    makes), ``rf_to_if`` (feedthrough between the RF and IF ports, on top of what mismatch
+    makes), ``rf_to_lo``.
+``[noise]``
+    ``figure`` SSB noise figure at ``core.reference_temperature`` (required);
+    ``figure_tempco`` dB per degC (default 0).
+``[model]`` (optional, numerical settings)
+    ``max_lo_order`` (default 15), ``max_rf_order`` (Σ|n_k|, default 9), ``floor`` lines
+    below this power are dropped (default −200 dBm).
+
+Evaluation conventions: powers in dBm at the part's own port planes (available power for
+inputs, power into a matched 50 ohm load for outputs); frequencies in Hz; phases in radians.
+The port networks act on magnitudes only. ``MixerResponse.if_port`` holds the output port's
+lines and ``rf_port`` the transconductor input port's lines (for an upconverter these are
+the RF and IF ports respectively).
+"""
+
+from __future__ import annotations
+
+import cmath
+import math
+import os
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass, field, replace
+from functools import lru_cache, partial
+from pathlib import Path
+from typing import Annotated, Any, Literal
+
+import numpy as np
+from pydantic import (
+    BaseModel,
+    BeforeValidator,
+    ConfigDict,
+    Field,
+    ValidationError,
+    model_validator,
+)
+from pydantic_core import PydanticCustomError
+
+from sweeprig.errors import InputError, UnitError
+from sweeprig.formats.loading import load_document, validation_error
+from sweeprig.sim.mixer.core import (
+    KT0_DBM_PER_HZ,
+    pair_slope_per_v,
+    tail_current_a,
+    thermal_voltage_v,
+)
+from sweeprig.sim.mixer.multitone import (
+    MERGE_TOL_HZ,
+    CellState,
+    Lines,
+    LoFactor,
+    RfFactor,
+    combine,
+    concat_lines,
+    lo_factor,
+    merge_coincident,
+    rf_factor,
+    rf_grid_shape,
+)
+from sweeprig.sim.mixer.network import band_magnitude, reflection_magnitude
+from sweeprig.sim.mixer.types import MixerResponse, OperatingPoint, Product, ToneInput
+from sweeprig.units import example, parse_quantity
+
+PARTS_DIR = Path(__file__).resolve().parent.parent / "parts"
+MAX_RF_TONES = 3
+_CACHE_LIMIT = 256
+_AMP_BUCKET_DB = 1.0
+
+Conversion = Literal["down", "up"]
+
+
+# --- file model --------------------------------------------------------------------------
+def _semantic(what: str, fix: str) -> PydanticCustomError:
+    return PydanticCustomError("semantic", "{what}", {"what": what, "fix": fix})
+
+
+_UNIT_NAME = {
+    "frequency": "Hz", "power": "dBm", "level_db": "dB", "voltage": "V", "current": "A",
+    "temperature": "degC", "resistance": "ohm",
+}
+
+
+def _quantity(kind: str, *, above: float | None = None, at_least: float | None = None) -> Any:
+    """A float parsed from a number or a "value unit" string of ``kind``, with a bound."""
+    unit = _UNIT_NAME[kind]
+
+    def parse(value: Any) -> float:
+        try:
+            number = parse_quantity(value, kind)
+        except UnitError as exc:
+            raise PydanticCustomError(
+                "quantity", "{what}", {"what": exc.what, "fix": exc.fix or ""}
+            ) from None
+        if above is not None and not number > above:
+            raise _semantic(f"{value!r} must be more than {above:g} {unit}",
+                            f"write a value above {above:g} {unit}, e.g. {example(kind)}")
+        if at_least is not None and not number >= at_least:
+            raise _semantic(f"{value!r} must be at least {at_least:g} {unit}",
+                            f"write a value of {at_least:g} {unit} or more")
+        return number
+
+    return Annotated[float, BeforeValidator(parse)]
+
+
+def _number(description: str) -> Any:
+    """A plain number (int or float, not a string or a boolean)."""
+
+    def parse(value: Any) -> float:
+        if isinstance(value, bool) or not isinstance(value, int | float):
+            raise _semantic(f"{value!r} is not a number", f"write a plain number ({description})")
+        if not math.isfinite(value):
+            raise _semantic(f"{value!r} is not a finite number", "write a finite number")
+        return float(value)
+
+    return Annotated[float, BeforeValidator(parse)]
+
+
+def _whole(low: int, high: int) -> Any:
+    """A whole number in [low, high], written as a TOML integer."""
+
+    def parse(value: Any) -> int:
+        if isinstance(value, bool) or not isinstance(value, int):
+            raise _semantic(f"{value!r} is not a whole number",
+                            f"write a whole number such as {low}")
+        if not low <= value <= high:
+            raise _semantic(f"{value} is out of range",
+                            f"write a whole number from {low} to {high}")
+        return value
+
+    return Annotated[int, BeforeValidator(parse)]
+
+
+class _Table(BaseModel):
+    model_config = ConfigDict(extra="forbid", frozen=True, populate_by_name=True)
+
+
+class PartTable(_Table):
+    name: str = Field(min_length=1, description="part number or name")
+    description: str = ""
+    conversion: Conversion = "down"
+
+
+class CoreTable(_Table):
+    tail_current: _quantity("current", above=0.0)
+    emitter_degeneration: _quantity("resistance", at_least=0.0) = 0.0
+    cells: _whole(1, 16) = 1
+    bias: Literal["constant", "ptat"] = "constant"
+    reference_temperature: _quantity("temperature", above=-273.15) = 25.0
+    nominal_supply: _quantity("voltage", above=0.0) = 3.3
+    min_supply: _quantity("voltage", at_least=0.0) = 0.0
+    tail_supply_coeff: _number("per volt") = 0.0
+    aux_current: _quantity("current", at_least=0.0) = 0.0
+    aux_supply_coeff: _number("per volt") = 0.0
+
+
+class MismatchTable(_Table):
+    quad_offset_1: _quantity("voltage") = 0.0
+    quad_offset_2: _quantity("voltage") = 0.0
+    rf_pair_offset: _quantity("voltage") = 0.0
+
+
+class PortTable(_Table):
+    resistance: _quantity("resistance", above=0.0)
+    return_loss: _quantity("level_db", above=0.0) | None = None
+    highpass: _quantity("frequency", above=0.0) | None = None
+    lowpass: _quantity("frequency", above=0.0) | None = None
+
+    @model_validator(mode="after")
+    def _corners(self) -> PortTable:
+        if self.highpass is not None and self.lowpass is not None and self.highpass >= self.lowpass:
+            raise _semantic(
+                f"highpass ({self.highpass:g} Hz) is not below lowpass ({self.lowpass:g} Hz)",
+                "the pass band runs from highpass up to lowpass; swap or correct them",
+            )
+        return self
+
+
+class PortsTable(_Table):
+    rf: PortTable
+    lo: PortTable
+    if_: PortTable = Field(alias="if")
+
+
+class IsolationTable(_Table):
+    lo_to_rf: _quantity("level_db", at_least=0.0) | None = None
+    lo_to_if: _quantity("level_db", at_least=0.0) | None = None
+    rf_to_if: _quantity("level_db", at_least=0.0) | None = None
+    rf_to_lo: _quantity("level_db", at_least=0.0) | None = None
+
+
+class NoiseTable(_Table):
+    figure: _quantity("level_db", at_least=0.0)
+    figure_tempco: _number("dB per degC") = 0.0
+
+
+class ModelTable(_Table):
+    max_lo_order: _whole(1, 64) = 15
+    max_rf_order: _whole(1, 25) = 9
+    floor: _quantity("power") = -200.0
+
+
+class PartFile(_Table):
+    """The whole part file (see the module docstring for every key)."""
+
+    part: PartTable
+    core: CoreTable
+    mismatch: MismatchTable = MismatchTable()
+    ports: PortsTable
+    isolation: IsolationTable = IsolationTable()
+    noise: NoiseTable
+    model: ModelTable = ModelTable()
+
+
+# --- the part ----------------------------------------------------------------------------
+@dataclass(frozen=True)
+class PortNetwork:
+    """One port: resistance at the core (ohm), return loss (dB, None = matched), corners (Hz)."""
+
+    resistance_ohm: float
+    return_loss_db: float | None = None
+    highpass_hz: float | None = None
+    lowpass_hz: float | None = None
+
+    @property
+    def gamma(self) -> float:
+        """|Γ| of the port."""
+        return reflection_magnitude(self.return_loss_db)
+
+    @property
+    def delivered_fraction(self) -> float:
+        """1 − |Γ|²."""
+        return 1.0 - self.gamma**2
+
+    def magnitude(self, freq_hz: Any) -> Any:
+        """|H(f)| of the port's band edges."""
+        return band_magnitude(freq_hz, self.highpass_hz, self.lowpass_hz)
+
+    def scalar_magnitude(self, freq_hz: float) -> float:
+        """|H(f)| for one frequency (plain float arithmetic)."""
+        mag = 1.0
+        if self.highpass_hz is not None:
+            r = freq_hz / self.highpass_hz
+            mag *= r / math.sqrt(1.0 + r * r)
+        if self.lowpass_hz is not None:
+            r = freq_hz / self.lowpass_hz
+            mag /= math.sqrt(1.0 + r * r)
+        return mag
+
+
+_new_product = partial(tuple.__new__, Product)  # Product from a (freq, power, orders) tuple
+
+
+@dataclass(frozen=True)
+class _LoPrepared:
+    factor: LoFactor
+    gain_db: float  # mid-band small-signal conversion gain, dB
+    noise_dbm_per_hz: float  # output noise density
+
+
+@dataclass(frozen=True)
+class _OpState:
+    cell: CellState
+    gm_s: float  # small-signal transconductance at the RF pair's offset, S
+    noise_figure_db: float
+    supply_current_a: float
+    min_abs_a: float  # core line amplitude below which a line cannot reach the floor
+    out_scale: float  # sqrt(R_L/2·(1 − |Γ_out|²)): peak current → sqrt(W)
+    no_rf: RfFactor  # the transconductor factor with no input tones
+    prefloor_w: float  # 20 dB under the floor, W
+
+
+@dataclass(frozen=True)
+class MixerPart:
+    """A double-balanced Gilbert-cell mixer (behavioural, memoryless core between port
+    networks). Build it with :func:`load_part`; all values are SI (see field names).
+
+    Ports are named physically (``rf_port``, ``lo_port``, ``if_port``); ``conversion``
+    decides which of RF and IF feeds the transconductor (``input_port``) and which is the
+    output (``output_port``).
+    """
+
+    name: str
+    conversion: Conversion
+    tail_current_a: float
+    rf_port: PortNetwork
+    lo_port: PortNetwork
+    if_port: PortNetwork
+    noise_figure_db: float
+    description: str = ""
+    emitter_degeneration_ohm: float = 0.0
+    cells: int = 1
+    bias: Literal["constant", "ptat"] = "constant"
+    reference_temperature_c: float = 25.0
+    nominal_supply_v: float = 3.3
+    min_supply_v: float = 0.0
+    tail_supply_coeff_per_v: float = 0.0
+    aux_current_a: float = 0.0
+    aux_supply_coeff_per_v: float = 0.0
+    quad_offset_1_v: float = 0.0
+    quad_offset_2_v: float = 0.0
+    rf_pair_offset_v: float = 0.0
+    isolation_lo_rf_db: float | None = None
+    isolation_lo_if_db: float | None = None
+    isolation_rf_if_db: float | None = None
+    isolation_rf_lo_db: float | None = None
+    noise_figure_tempco_db_per_c: float = 0.0
+    max_lo_order: int = 15
+    max_rf_order: int = 9
+    floor_dbm: float = -200.0
+    source: str = ""
+    _cache: dict[Any, Any] = field(
+        default_factory=dict, init=False, repr=False, compare=False, hash=False
+    )
+
+    def __post_init__(self) -> None:
+        where = f"mixer part {self.name!r}"
+        problems = []
+        if self.conversion not in ("down", "up"):
+            problems.append(f"conversion {self.conversion!r} is not 'down' or 'up'")
+        if self.bias not in ("constant", "ptat"):
+            problems.append(f"bias {self.bias!r} is not 'constant' or 'ptat'")
+        if not self.tail_current_a > 0.0:
+            problems.append(f"tail current {self.tail_current_a!r} A is not positive")
+        if not self.emitter_degeneration_ohm >= 0.0:
+            problems.append(
+                f"emitter degeneration {self.emitter_degeneration_ohm!r} ohm is negative")
+        for label, port in (("rf", self.rf_port), ("lo", self.lo_port), ("if", self.if_port)):
+            if not port.resistance_ohm > 0.0:
+                problems.append(
+                    f"{label} port resistance {port.resistance_ohm!r} ohm is not positive")
+        if not (1 <= self.max_lo_order <= 64 and 1 <= self.max_rf_order <= 25):
+            problems.append("product order caps are outside 1..64 (LO) and 1..25 (RF)")
+        if problems:
+            raise InputError("; ".join(problems), where=where,
+                             fix="correct the part's parameters (see the part-file schema)")
+
+    # -- roles -----------------------------------------------------------------------------
+    @property
+    def input_port(self) -> PortNetwork:
+        """The port feeding the transconductor (RF for a downconverter, IF for an up)."""
+        return self.rf_port if self.conversion == "down" else self.if_port
+
+    @property
+    def output_port(self) -> PortNetwork:
+        """The output port (IF for a downconverter, RF for an upconverter)."""
+        return self.if_port if self.conversion == "down" else self.rf_port
+
+    @property
+    def isolation_lo_to_output_db(self) -> float | None:
+        return self.isolation_lo_if_db if self.conversion == "down" else self.isolation_lo_rf_db
+
+    @property
+    def isolation_lo_to_input_db(self) -> float | None:
+        return self.isolation_lo_rf_db if self.conversion == "down" else self.isolation_lo_if_db
+
+    def with_changes(self, **changes: Any) -> MixerPart:
+        """A copy with some parameters changed (fresh caches)."""
+        return replace(self, **changes)
+
+    # -- operating point -------------------------------------------------------------------
+    def tail_current_at(self, op: OperatingPoint) -> float:
+        """I_EE at an operating point, A."""
+        return tail_current_a(
+            self.tail_current_a, self.bias, op.temperature_c, self.reference_temperature_c,
+            op.supply_v, self.nominal_supply_v, self.tail_supply_coeff_per_v, self.min_supply_v,
+        )
+
+    def cell_at(self, op: OperatingPoint) -> CellState:
+        """The core's state (VT, I_EE, R_E, offsets) at an operating point."""
+        return CellState(
+            vt_v=thermal_voltage_v(op.temperature_c),
+            i_ee_a=self.tail_current_at(op),
+            r_e_ohm=self.emitter_degeneration_ohm,
+            v_os1_v=self.quad_offset_1_v,
+            v_os2_v=self.quad_offset_2_v,
+            v_os_rf_v=self.rf_pair_offset_v,
+        )
+
+    def supply_current_at(self, op: OperatingPoint) -> float:
+        """I_supply = cells·I_EE + I_aux(V), A (0 with no supply)."""
+        if op.supply_v <= 0.0:
+            return 0.0
+        aux = self.aux_current_a * (
+            1.0 + self.aux_supply_coeff_per_v * (op.supply_v - self.nominal_supply_v)
+        )
+        return self.cells * self.tail_current_at(op) + max(aux, 0.0)
+
+    def noise_figure_at(self, op: OperatingPoint) -> float:
+        """SSB noise figure at the die temperature, dB."""
+        return self.noise_figure_db + self.noise_figure_tempco_db_per_c * (
+            op.temperature_c - self.reference_temperature_c
+        )
+
+    def _state(self, op: OperatingPoint) -> _OpState:
+        key = ("op", op)
+        state = self._cache.get(key)
+        if state is None:
+            cell = self.cell_at(op)
+            slope = float(pair_slope_per_v(cell.v_os_rf_v, cell.vt_v, cell.i_ee_a, cell.r_e_ohm))
+            out = self.output_port
+            out_scale = math.sqrt(out.resistance_ohm / 2.0 * out.delivered_fraction)
+            floor_w = 1e-3 * 10.0 ** ((self.floor_dbm - 20.0) / 10.0)
+            state = _OpState(
+                cell=cell,
+                gm_s=cell.i_ee_a * slope,
+                noise_figure_db=self.noise_figure_at(op),
+                supply_current_a=self.supply_current_at(op),
+                min_abs_a=math.sqrt(floor_w) / out_scale if out_scale > 0 else math.inf,
+                out_scale=out_scale,
+                no_rf=rf_factor((), cell, self.max_rf_order),
+                prefloor_w=floor_w,
+            )
+            self._remember(key, state)
+        return state
+
+    def _remember(self, key: Any, value: Any) -> None:
+        if len(self._cache) >= _CACHE_LIMIT:
+            self._cache.clear()
+        self._cache[key] = value
+
+    # -- inputs at the core ----------------------------------------------------------------
+    @staticmethod
+    def tone_core_amplitudes(tone: ToneInput, port: PortNetwork) -> tuple[float, ...]:
+        """Peak differential voltages at the core of a tone and its harmonics, V.
+
+        ``v = sqrt(2·R·P_avail·(1 − |Γ|²))·|H(h·f)|`` for harmonic h.
+        """
+        factor = 2.0 * port.resistance_ohm * port.delivered_fraction * 1e-3
+        amps = [math.sqrt(factor * 10.0 ** (tone.power_dbm / 10.0))
+                * port.scalar_magnitude(tone.freq_hz)]
+        for h, dbc in enumerate(tone.harmonics_dbc, start=2):
+            amps.append(math.sqrt(factor * 10.0 ** ((tone.power_dbm + dbc) / 10.0))
+                        * port.scalar_magnitude(h * tone.freq_hz))
+        return tuple(amps)
+
+    def _rf_shape(
+        self, op: OperatingPoint, amps: tuple[tuple[float, ...], ...], cell: CellState
+    ) -> tuple[tuple[int, ...], bool]:
+        bucket = tuple(tuple(_bucket_up(a) for a in tone) for tone in amps)
+        key = ("grid", op, bucket)
+        shape = self._cache.get(key)
+        if shape is None:
+            shape = rf_grid_shape(bucket, cell, self.max_rf_order)
+            self._remember(key, shape)
+        return shape
+
+    # -- evaluation ------------------------------------------------------------------------
+    def evaluate(
+        self, op: OperatingPoint, lo: ToneInput | None, rf: Sequence[ToneInput]
+    ) -> MixerResponse:
+        """The part's response to an LO (or none) and up to three tones at the transconductor
+        input port (the RF port of a downconverter, the IF port of an upconverter).
+
+        Output lines carry orders (LO, IN1, IN2, …). Lines below the part's floor are left
+        out; lines at the same frequency are added as complex amplitudes.
+        """
+        tones = tuple(rf)
+        self._check_inputs(lo, tones)
+        state = self._state(op)
+        cell = state.cell
+        lo_prep = self._lo_prepared(op, lo, state)
+        inp, out = self.input_port, self.output_port
+        if tones:
+            amps = tuple(self.tone_core_amplitudes(t, inp) for t in tones)
+            shape, converged = self._rf_shape(op, amps, cell)
+            rf_fac = rf_factor(amps, cell, self.max_rf_order, shape)
+        else:
+            shape, converged, rf_fac = (), True, state.no_rf
+        core = combine(
+            lo_prep.factor, lo.freq_hz if lo is not None else 0.0,
+            lo.phase_rad if lo is not None else 0.0, rf_fac, [t.freq_hz for t in tones],
+            [t.phase_rad for t in tones], cell.i_ee_a, self.max_lo_order, self.max_rf_order,
+            state.min_abs_a,
+        )
+        amp = core.amp * state.out_scale
+        if out.highpass_hz is not None or out.lowpass_hz is not None:
+            amp *= out.magnitude(core.freq_hz)
+            # the band edges push many weak lines under the floor: drop them before merging
+            # (20 dB of margin for lines that might still add up)
+            keep = (amp.real * amp.real + amp.imag * amp.imag) >= state.prefloor_w
+            core = Lines(core.freq_hz[keep], amp[keep], core.orders[keep])
+        else:
+            core = Lines(core.freq_hz, amp, core.orders)
+        n_axes = 1 + len(tones)
+        leaks: list[_Entry] = []
+        iso = self.isolation_rf_if_db
+        if iso is not None:
+            for k, t in enumerate(tones):
+                leaks += _tone_entries(t, 1 + k, n_axes, iso)
+        iso = self.isolation_lo_to_output_db
+        if lo is not None and iso is not None:
+            leaks += _tone_entries(lo, 0, n_axes, iso)
+        core = merge_coincident(core)
+        if leaks:
+            core = _add_entries(core, leaks)
+        if_port = self._products(core)
+
+        in_entries: list[_Entry] = []
+        iso = self.isolation_lo_to_input_db
+        if lo is not None and iso is not None:
+            in_entries += _tone_entries(lo, 0, n_axes, iso)
+        if inp.return_loss_db is not None:
+            for k, t in enumerate(tones):
+                in_entries += _tone_entries(t, 1 + k, n_axes, inp.return_loss_db)
+        lo_entries: list[_Entry] = []
+        if lo is not None and self.lo_port.return_loss_db is not None:
+            lo_entries += _tone_entries(lo, 0, n_axes, self.lo_port.return_loss_db)
+        iso = self.isolation_rf_lo_db
+        if iso is not None:
+            for k, t in enumerate(tones):
+                lo_entries += _tone_entries(t, 1 + k, n_axes, iso)
+
+        return MixerResponse(
+            if_port=if_port,
+            rf_port=_entries_to_products(in_entries, self.floor_dbm),
+            lo_port=_entries_to_products(lo_entries, self.floor_dbm),
+            if_noise_dbm_per_hz=lo_prep.noise_dbm_per_hz,
+            supply_current_a=state.supply_current_a,
+            notes={
+                "vt_v": cell.vt_v,
+                "tail_current_a": cell.i_ee_a,
+                "gm_s": state.gm_s,
+                "conversion_gain_db": lo_prep.gain_db,
+                "lo_grid_n": float(lo_prep.factor.grid_n),
+                "rf_grid_points": float(math.prod(shape)),
+                "rf_grid_n_max": float(max(shape, default=1)),
+                "grid_converged": float(converged and lo_prep.factor.converged),
+            },
+        )
+
+    def _lo_prepared(
+        self, op: OperatingPoint, lo: ToneInput | None, state: _OpState
+    ) -> _LoPrepared:
+        """The LO factor, small-signal gain and noise for an LO tone, cached per (LO, op)."""
+        key = ("lo", op, None if lo is None else (lo.freq_hz, lo.power_dbm, lo.harmonics_dbc))
+        prep = self._cache.get(key)
+        if prep is None:
+            amps = () if lo is None else self.tone_core_amplitudes(lo, self.lo_port)
+            factor = lo_factor(amps, state.cell, self.max_lo_order)
+            gain_db = self._small_signal_gain_db(state, factor)
+            noise = max(KT0_DBM_PER_HZ + state.noise_figure_db + gain_db, KT0_DBM_PER_HZ)
+            prep = _LoPrepared(factor, gain_db, noise)
+            self._remember(key, prep)
+        return prep
+
+    def _small_signal_gain_db(self, state: _OpState, lo_fac: LoFactor) -> float:
+        """Mid-band small-signal transducer conversion gain (no band edges), dB.
+
+        Voltage gain ``G_m·R_L·|S_1|/2`` (S_1: first Fourier coefficient of t1 + t2), then
+        ``G = g_v²·R_in/R_L·(1 − |Γ_in|²)·(1 − |Γ_out|²)``.
+        """
+        hit = np.flatnonzero(lo_fac.orders == 1)
+        s1 = abs(complex(lo_fac.s[hit[0]])) if hit.size else 0.0
+        inp, out = self.input_port, self.output_port
+        g_v = state.gm_s * out.resistance_ohm * s1 / 2.0
+        gain = (g_v**2 * inp.resistance_ohm / out.resistance_ohm
+                * inp.delivered_fraction * out.delivered_fraction)
+        return 10.0 * math.log10(gain) if gain > 0.0 else -math.inf
+
+    def _products(self, lines: Lines) -> tuple[Product, ...]:
+        """Merged lines (sqrt(W) amplitudes) → products above the floor."""
+        power_w = lines.amp.real**2 + lines.amp.imag**2
+        keep = power_w >= 1e-3 * 10.0 ** (self.floor_dbm / 10.0)
+        if not keep.all():
+            power_w = power_w[keep]
+            lines = Lines(lines.freq_hz[keep], lines.amp[keep], lines.orders[keep])
+        power_dbm = 10.0 * np.log10(power_w * 1e3)
+        return tuple(map(_new_product, zip(
+            lines.freq_hz.tolist(), power_dbm.tolist(), lines.orders.tolist(), strict=True)))
+
+    def _check_inputs(self, lo: ToneInput | None, tones: tuple[ToneInput, ...]) -> None:
+        if len(tones) > MAX_RF_TONES:
+            raise InputError(
+                f"{len(tones)} input tones; the model takes at most {MAX_RF_TONES}",
+                where=f"mixer part {self.name!r}",
+                fix="combine fewer tones (one phase axis per tone)",
+            )
+        named = [(f"input tone {k + 1}", t) for k, t in enumerate(tones)]
+        if lo is not None:
+            named.append(("LO", lo))
+        for label, tone in named:
+            ok = (
+                math.isfinite(tone.freq_hz) and tone.freq_hz > 0.0
+                and math.isfinite(tone.power_dbm) and math.isfinite(tone.phase_rad)
+                and all(math.isfinite(h) for h in tone.harmonics_dbc)
+            )
+            if not ok:
+                raise InputError(
+                    f"{label} is not a valid tone ({tone.freq_hz!r} Hz, {tone.power_dbm!r} dBm)",
+                    where=f"mixer part {self.name!r}",
+                    fix="give a positive finite frequency and finite power, phase and harmonics",
+                )
+
+
+def _bucket_up(amp_v: float) -> float:
+    """Round an amplitude up to a 1 dB grid (grid sizes are cached per bucket)."""
+    if amp_v <= 0.0:
+        return 0.0
+    step = math.ceil(20.0 * math.log10(amp_v) / _AMP_BUCKET_DB)
+    return 10.0 ** (step * _AMP_BUCKET_DB / 20.0)
+
+
+_Entry = tuple[float, complex, tuple[int, ...]]
+
+
+@lru_cache(maxsize=256)
+def _unit_orders(n_axes: int, axis: int, multiple: int) -> tuple[int, ...]:
+    row = [0] * n_axes
+    row[axis] = multiple
+    return tuple(row)
+
+
+def _tone_entries(tone: ToneInput, axis: int, n_axes: int, loss_db: float) -> list[_Entry]:
+    """A tone and its harmonics carried by a linear path with ``loss_db``: (freq, sqrt(W)
+    amplitude with the tone's phase (harmonic h at phase h·φ), orders)."""
+    root_w = 10.0 ** ((tone.power_dbm - loss_db - 30.0) / 20.0)  # sqrt(W) of the fundamental
+    phase = tone.phase_rad
+    out: list[_Entry] = [(tone.freq_hz, cmath.rect(root_w, phase) if phase else complex(root_w),
+                          _unit_orders(n_axes, axis, 1))]
+    for h, dbc in enumerate(tone.harmonics_dbc, start=2):
+        out.append((h * tone.freq_hz, cmath.rect(root_w * 10.0 ** (dbc / 20.0), h * phase),
+                    _unit_orders(n_axes, axis, h)))
+    return out
+
+
+def _add_entries(lines: Lines, entries: list[_Entry]) -> Lines:
+    """Add a few linear-path lines to sorted, merged lines: an entry at the frequency of an
+    existing line adds to it as a complex amplitude (the stronger names the orders); the
+    others are inserted."""
+    freq = lines.freq_hz
+    amp = lines.amp.copy()
+    orders = lines.orders.copy()
+    where = np.searchsorted(freq, [e[0] for e in entries]).tolist()
+    extra: list[_Entry] = []
+    for (f, a, o), i in zip(entries, where, strict=True):
+        hit = -1
+        if i < freq.size and abs(freq[i] - f) <= MERGE_TOL_HZ:
+            hit = i
+        elif i > 0 and abs(freq[i - 1] - f) <= MERGE_TOL_HZ:
+            hit = i - 1
+        if hit < 0:
+            extra.append((f, a, o))
+            continue
+        if abs(a) > abs(amp[hit]):
+            orders[hit] = o
+        amp[hit] += a
+    merged = Lines(freq, amp, orders)
+    if extra:
+        merged = merge_coincident(concat_lines([merged, _entries_to_lines(extra)]))
+    return merged
+
+
+def _entries_to_lines(entries: list[_Entry]) -> Lines:
+    orders = np.empty(len(entries), dtype=object)
+    orders[:] = [e[2] for e in entries]
+    return Lines(np.array([e[0] for e in entries]), np.array([e[1] for e in entries]), orders)
+
+
+def _entries_to_products(entries: list[_Entry], floor_dbm: float) -> tuple[Product, ...]:
+    """A few linear-path lines → products: same frequencies add as complex amplitudes (the
+    strongest contributor names the orders), sorted by frequency, floor applied."""
+    if not entries:
+        return ()
+    entries = sorted(entries, key=_entry_freq)
+    groups: list[list[_Entry]] = [[entries[0]]]
+    for entry in entries[1:]:
+        if entry[0] - groups[-1][0][0] <= MERGE_TOL_HZ:
+            groups[-1].append(entry)
+        else:
+            groups.append([entry])
+    floor_w = 10.0 ** ((floor_dbm - 30.0) / 10.0)
+    out = []
+    for members in groups:
+        f, amp, orders = members[0]
+        if len(members) > 1:
+            amp = sum(e[1] for e in members)
+            orders = max(members, key=_entry_size)[2]
+        power_w = amp.real * amp.real + amp.imag * amp.imag
+        if power_w >= floor_w and power_w > 0.0:
+            out.append(Product(f, 10.0 * math.log10(power_w) + 30.0, orders))
+    return tuple(out)
+
+
+def _entry_freq(entry: _Entry) -> float:
+    return entry[0]
+
+
+def _entry_size(entry: _Entry) -> float:
+    return abs(entry[1])
+
+
+# --- loading -----------------------------------------------------------------------------
+def part_from_file_model(model: PartFile, source: str = "") -> MixerPart:
+    """Build a :class:`MixerPart` from a validated part file."""
+
+    def port(t: PortTable) -> PortNetwork:
+        return PortNetwork(t.resistance, t.return_loss, t.highpass, t.lowpass)
+
+    core, mis, iso = model.core, model.mismatch, model.isolation
+    return MixerPart(
+        name=model.part.name,
+        conversion=model.part.conversion,
+        description=model.part.description,
+        tail_current_a=core.tail_current,
+        emitter_degeneration_ohm=core.emitter_degeneration,
+        cells=core.cells,
+        bias=core.bias,
+        reference_temperature_c=core.reference_temperature,
+        nominal_supply_v=core.nominal_supply,
+        min_supply_v=core.min_supply,
+        tail_supply_coeff_per_v=core.tail_supply_coeff,
+        aux_current_a=core.aux_current,
+        aux_supply_coeff_per_v=core.aux_supply_coeff,
+        quad_offset_1_v=mis.quad_offset_1,
+        quad_offset_2_v=mis.quad_offset_2,
+        rf_pair_offset_v=mis.rf_pair_offset,
+        rf_port=port(model.ports.rf),
+        lo_port=port(model.ports.lo),
+        if_port=port(model.ports.if_),
+        isolation_lo_rf_db=iso.lo_to_rf,
+        isolation_lo_if_db=iso.lo_to_if,
+        isolation_rf_if_db=iso.rf_to_if,
+        isolation_rf_lo_db=iso.rf_to_lo,
+        noise_figure_db=model.noise.figure,
+        noise_figure_tempco_db_per_c=model.noise.figure_tempco,
+        max_lo_order=model.model.max_lo_order,
+        max_rf_order=model.model.max_rf_order,
+        floor_dbm=model.model.floor,
+        source=source,
+    )
+
+
+def shipped_parts() -> list[str]:
+    """Names of the parts shipped in ``sweeprig/sim/parts`` (file stems)."""
+    return sorted(p.stem for p in PARTS_DIR.glob("*.toml"))
+
+
+def _resolve(path_or_name: str | os.PathLike[str]) -> Path:
+    text = os.fspath(path_or_name)
+    candidate = Path(text)
+    if candidate.suffix.lower() == ".toml" or candidate.exists() or any(
+        sep in text for sep in ("/", "\\")
+    ):
+        return candidate
+    shipped = PARTS_DIR / f"{text.lower()}.toml"
+    if shipped.is_file():
+        return shipped
+    raise InputError(
+        f"no part named {text!r}",
+        where="part",
+        fix=f"give a .toml part file or one of the shipped parts: {', '.join(shipped_parts())}",
+    )
+
+
+def load_part(path_or_name: str | os.PathLike[str]) -> MixerPart:
+    """Load a part from a TOML file, or a shipped part by name (``"ideal"``, …).
+
+    Every problem raises :class:`~sweeprig.errors.InputError` naming the file, line and key.
+    """
+    path = _resolve(path_or_name)
+    doc = load_document(path)
+    try:
+        model = PartFile.model_validate(doc.data)
+    except ValidationError as exc:
+        raise _part_error(validation_error(PartFile, exc, doc.where)) from None
+    return part_from_file_model(model, source=doc.display)
+
+
+_SCHEMA_HINT = "the part-file keys are listed in sweeprig/sim/mixer/part.py"
+
+
+def _part_error(error: InputError) -> InputError:
+    """Point generic fixes at the part-file schema rather than the sequence format."""
+    fix = error.fix
+    if fix and "docs/" in fix:
+        fix = fix[: fix.index("(see docs/")].strip() if "(see docs/" in fix else _SCHEMA_HINT
+        fix = f"{fix} ({_SCHEMA_HINT})" if fix != _SCHEMA_HINT else fix
+    return InputError(error.what, where=error.where, fix=fix)
+
+
+def part_from_mapping(
+    data: dict[str, Any], where: Callable[[tuple[str | int, ...]], str] | None = None
+) -> MixerPart:
+    """Build a part from an already parsed table (same schema as a part file)."""
+    try:
+        model = PartFile.model_validate(data)
+    except ValidationError as exc:
+        locate = where or (lambda loc: "part: " + ".".join(str(p) for p in loc))
+        raise _part_error(validation_error(PartFile, exc, locate)) from None
+    return part_from_file_model(model, source="<table>")

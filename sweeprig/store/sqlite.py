@@ -1,0 +1,776 @@
+"""The SQLite run store (stdlib ``sqlite3``).
+
+Settings and why:
+
+* ``journal_mode=WAL``: readers (``sweeprig status`` in another terminal, the analysis) see every
+  committed point while the engine keeps writing, and never block it.
+* ``synchronous=FULL`` by default: each committed point is on disk before the engine moves on,
+  so even a power cut loses at most the point in flight. The cost is one fsync per point,
+  small next to a real bench's settling and sweep times. ``durable=False`` selects ``NORMAL``
+  (still safe against a crash of the process, but a power cut may drop the last commits) for
+  simulated runs where thousands of points a minute are written.
+* ``foreign_keys=ON``; ``busy_timeout`` of 5 s for concurrent access.
+* One transaction per point: the point row and all its readings, or nothing.
+
+The SQL is kept portable (INTEGER, DOUBLE PRECISION, TEXT columns; times as ISO 8601 UTC
+text; booleans as 0/1; JSON as TEXT; no upserts), so a server database can be added behind the
+same :class:`~sweeprig.store.base.RunStore` interface. Run ids come from ``INTEGER PRIMARY
+KEY``; a server database would use an identity column. The tables are described in
+``docs/run-store.md``.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import math
+import os
+import socket
+import sqlite3
+import threading
+from collections.abc import Iterator, Mapping, Sequence
+from contextlib import contextmanager, suppress
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import Any
+
+import pandas as pd
+
+from sweeprig.errors import StoreError
+from sweeprig.store.base import (
+    FINAL_STATUSES,
+    HEARTBEAT_STALE_S,
+    RUN_STATUSES,
+    SEVERITIES,
+    BusRecord,
+    EventRecord,
+    InstrumentRecord,
+    PointRecord,
+    ReadingRecord,
+    RunInfo,
+    RunStatus,
+    RunSummary,
+    Severity,
+    utc_now,
+)
+
+SCHEMA_VERSION = 1
+
+_STATUS_CHECK = ", ".join(f"'{s}'" for s in RUN_STATUSES)
+
+SCHEMA: tuple[str, ...] = (
+    """CREATE TABLE IF NOT EXISTS store_meta (
+        name TEXT PRIMARY KEY,
+        setting TEXT NOT NULL
+    )""",
+    f"""CREATE TABLE IF NOT EXISTS runs (
+        id INTEGER PRIMARY KEY,
+        created_utc TEXT NOT NULL,
+        finished_utc TEXT,
+        status TEXT NOT NULL CHECK (status IN ({_STATUS_CHECK})),
+        reason TEXT,
+        title TEXT NOT NULL,
+        sequence_path TEXT NOT NULL,
+        sequence_sha256 TEXT NOT NULL,
+        sequence_text TEXT NOT NULL,
+        bench_path TEXT,
+        bench_sha256 TEXT,
+        bench_text TEXT,
+        simulated INTEGER NOT NULL,
+        operator TEXT NOT NULL,
+        part TEXT NOT NULL,
+        serial TEXT NOT NULL,
+        tags_json TEXT NOT NULL,
+        points_total INTEGER,
+        heartbeat_utc TEXT,
+        pid INTEGER,
+        host TEXT
+    )""",
+    """CREATE TABLE IF NOT EXISTS instruments (
+        run_id INTEGER NOT NULL REFERENCES runs (id) ON DELETE CASCADE,
+        role TEXT NOT NULL,
+        resource TEXT NOT NULL,
+        profile TEXT NOT NULL,
+        idn TEXT NOT NULL,
+        PRIMARY KEY (run_id, role)
+    )""",
+    """CREATE TABLE IF NOT EXISTS points (
+        run_id INTEGER NOT NULL REFERENCES runs (id) ON DELETE CASCADE,
+        point_index INTEGER NOT NULL,
+        study TEXT NOT NULL,
+        temperature_c DOUBLE PRECISION,
+        supply_v DOUBLE PRECISION,
+        lo_freq_hz DOUBLE PRECISION,
+        lo_power_dbm DOUBLE PRECISION,
+        rf_freq_hz DOUBLE PRECISION,
+        rf_power_dbm DOUBLE PRECISION,
+        rf2_freq_hz DOUBLE PRECISION,
+        rf2_power_dbm DOUBLE PRECISION,
+        probe_temperature_c DOUBLE PRECISION,
+        supply_current_a DOUBLE PRECISION,
+        sim_start_s DOUBLE PRECISION,
+        sim_end_s DOUBLE PRECISION,
+        wall_start_utc TEXT,
+        wall_end_utc TEXT,
+        extra_json TEXT NOT NULL,
+        PRIMARY KEY (run_id, point_index)
+    )""",
+    """CREATE TABLE IF NOT EXISTS readings (
+        run_id INTEGER NOT NULL,
+        point_index INTEGER NOT NULL,
+        reading_no INTEGER NOT NULL,
+        name TEXT NOT NULL,
+        kind TEXT NOT NULL,
+        port TEXT NOT NULL,
+        freq_hz DOUBLE PRECISION,
+        level_dbm DOUBLE PRECISION,
+        noise_floor_dbm DOUBLE PRECISION,
+        m INTEGER,
+        n INTEGER,
+        span_hz DOUBLE PRECISION,
+        rbw_hz DOUBLE PRECISION,
+        attenuation_db DOUBLE PRECISION,
+        ref_level_dbm DOUBLE PRECISION,
+        averages INTEGER,
+        overload INTEGER NOT NULL,
+        attenuation_check INTEGER,
+        extra_json TEXT NOT NULL,
+        PRIMARY KEY (run_id, point_index, reading_no),
+        FOREIGN KEY (run_id, point_index) REFERENCES points (run_id, point_index)
+            ON DELETE CASCADE
+    )""",
+    """CREATE TABLE IF NOT EXISTS events (
+        id INTEGER PRIMARY KEY,
+        run_id INTEGER NOT NULL REFERENCES runs (id) ON DELETE CASCADE,
+        time_utc TEXT NOT NULL,
+        severity TEXT NOT NULL,
+        kind TEXT NOT NULL,
+        message TEXT NOT NULL,
+        details_json TEXT NOT NULL,
+        point_index INTEGER
+    )""",
+    """CREATE TABLE IF NOT EXISTS bus_log (
+        id INTEGER PRIMARY KEY,
+        run_id INTEGER NOT NULL REFERENCES runs (id) ON DELETE CASCADE,
+        time_utc TEXT NOT NULL,
+        role TEXT NOT NULL,
+        sent TEXT NOT NULL,
+        received TEXT,
+        duration_s DOUBLE PRECISION NOT NULL
+    )""",
+    "CREATE INDEX IF NOT EXISTS events_by_run ON events (run_id, id)",
+    "CREATE INDEX IF NOT EXISTS bus_log_by_run ON bus_log (run_id, id)",
+)
+
+POINT_COLUMNS: tuple[str, ...] = (
+    "study", "temperature_c", "supply_v", "lo_freq_hz", "lo_power_dbm", "rf_freq_hz",
+    "rf_power_dbm", "rf2_freq_hz", "rf2_power_dbm", "probe_temperature_c", "supply_current_a",
+    "sim_start_s", "sim_end_s",
+)
+READING_COLUMNS: tuple[str, ...] = (
+    "name", "kind", "port", "freq_hz", "level_dbm", "noise_floor_dbm", "m", "n", "span_hz",
+    "rbw_hz", "attenuation_db", "ref_level_dbm", "averages",
+)
+
+_FIX_OPEN = "check the path (a folder you can write to) or give another one with --store"
+
+
+# -- value conversions ------------------------------------------------------------------------
+
+
+def _iso(value: datetime | None) -> str | None:
+    if value is None:
+        return None
+    if value.tzinfo is None:
+        value = value.replace(tzinfo=UTC)
+    return value.astimezone(UTC).isoformat(timespec="microseconds")
+
+
+def _dt(text: str | None) -> datetime | None:
+    return None if text is None else datetime.fromisoformat(text)
+
+
+def _real(value: object, name: str) -> float | None:
+    if value is None:
+        return None
+    if isinstance(value, bool) or not isinstance(value, int | float):
+        try:
+            value = float(value)  # numpy scalars
+        except (TypeError, ValueError):
+            raise StoreError(f"{name} = {value!r} is not a number", where=name) from None
+    number = float(value)
+    return number if math.isfinite(number) else None
+
+
+def _int(value: object, name: str) -> int | None:
+    if value is None:
+        return None
+    try:
+        return int(value)  # type: ignore[call-overload]
+    except (TypeError, ValueError):
+        raise StoreError(f"{name} = {value!r} is not an integer", where=name) from None
+
+
+def _json(value: Mapping[str, Any] | None, name: str) -> str:
+    try:
+        return json.dumps(dict(value or {}), sort_keys=True, default=_json_default)
+    except (TypeError, ValueError) as exc:
+        raise StoreError(f"{name} cannot be stored as JSON: {exc}", where=name) from None
+
+
+def _json_default(value: object) -> object:
+    if hasattr(value, "item"):
+        return value.item()  # numpy scalar
+    if hasattr(value, "tolist"):
+        return value.tolist()  # numpy array
+    if isinstance(value, datetime):
+        return _iso(value)
+    raise TypeError(f"{type(value).__name__} is not JSON-able")
+
+
+def sha256_text(text: str) -> str:
+    """SHA-256 of ``text`` encoded as UTF-8, hex."""
+    return hashlib.sha256(text.encode("utf-8")).hexdigest()
+
+
+def pid_alive(pid: int) -> bool:
+    """Whether a process with this id exists on this host."""
+    if pid <= 0:
+        return False
+    if pid == os.getpid():
+        return True
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except (PermissionError, OSError):
+        return True
+    return True
+
+
+# -- the store --------------------------------------------------------------------------------
+
+
+class SqliteRunStore:
+    """A :class:`~sweeprig.store.base.RunStore` in one SQLite file.
+
+    ``path``: the database file. ``create``: create it (and its folder) if missing; otherwise
+    a missing file is a :class:`StoreError`. ``durable``: ``synchronous=FULL`` (True) or
+    ``NORMAL``. ``stale_after_s``: heartbeat age after which a ``running`` run is shown as
+    ``interrupted``. Safe to share between threads (one lock).
+    """
+
+    def __init__(
+        self,
+        path: Path | str,
+        *,
+        create: bool = True,
+        durable: bool = True,
+        stale_after_s: float = HEARTBEAT_STALE_S,
+    ) -> None:
+        self.path = Path(path)
+        self.stale_after_s = stale_after_s
+        self._lock = threading.RLock()
+        self._host = socket.gethostname()
+        if self.path.is_dir():
+            raise StoreError(
+                "this is a folder, not a run store file",
+                where=str(self.path),
+                fix="give a file path such as results/sweeprig.sqlite",
+            )
+        if not self.path.exists():
+            if not create:
+                raise StoreError(
+                    "no run store here",
+                    where=str(self.path),
+                    fix="check the path, or run a sequence first (runs are stored in "
+                    "results/sweeprig.sqlite by default); use --store to point elsewhere",
+                )
+            try:
+                self.path.parent.mkdir(parents=True, exist_ok=True)
+            except OSError as exc:
+                raise StoreError(
+                    f"cannot create the folder: {exc.strerror or exc}",
+                    where=str(self.path.parent),
+                    fix=_FIX_OPEN,
+                ) from None
+        try:
+            self._conn = sqlite3.connect(
+                str(self.path), timeout=5.0, isolation_level=None, check_same_thread=False
+            )
+        except sqlite3.Error as exc:
+            raise StoreError(f"cannot open the run store: {exc}", where=str(self.path),
+                             fix=_FIX_OPEN) from None
+        try:
+            self._setup(create=create, durable=durable)
+        except StoreError:
+            self._conn.close()
+            raise
+        except sqlite3.Error as exc:
+            self._conn.close()
+            raise StoreError(
+                f"cannot use this file as a run store: {exc}",
+                where=str(self.path),
+                fix="give the path of a sweeprig run store (or of a new file)",
+            ) from None
+
+    def _setup(self, *, create: bool, durable: bool) -> None:
+        conn = self._conn
+        conn.execute("PRAGMA foreign_keys = ON")
+        conn.execute("PRAGMA busy_timeout = 5000")
+        mode = conn.execute("PRAGMA journal_mode = WAL").fetchone()[0]
+        self.journal_mode = str(mode).lower()
+        conn.execute(f"PRAGMA synchronous = {'FULL' if durable else 'NORMAL'}")
+        tables = {r[0] for r in conn.execute("SELECT name FROM sqlite_master WHERE type='table'")}
+        if "runs" not in tables:
+            if tables and "store_meta" not in tables:
+                raise StoreError(
+                    "this SQLite file is not a sweeprig run store",
+                    where=str(self.path),
+                    fix="give the path of a sweeprig run store (or of a new file)",
+                )
+            if not create:
+                raise StoreError("this file is not a sweeprig run store", where=str(self.path),
+                                 fix="give the path of a sweeprig run store")
+            conn.execute("BEGIN IMMEDIATE")
+            try:
+                for statement in SCHEMA:
+                    conn.execute(statement)
+                conn.execute(
+                    "INSERT INTO store_meta (name, setting) VALUES ('schema_version', ?)",
+                    (str(SCHEMA_VERSION),),
+                )
+                conn.execute("COMMIT")
+            except BaseException:
+                conn.execute("ROLLBACK")
+                raise
+        row = conn.execute(
+            "SELECT setting FROM store_meta WHERE name = 'schema_version'"
+        ).fetchone()
+        version = int(row[0]) if row else 0
+        if version > SCHEMA_VERSION:
+            raise StoreError(
+                f"the run store has schema version {version}; this sweeprig reads up to "
+                f"{SCHEMA_VERSION}",
+                where=str(self.path),
+                fix="use a newer sweeprig, or another store file",
+            )
+
+    # -- plumbing ---------------------------------------------------------------------------
+
+    @contextmanager
+    def _transaction(self, what: str) -> Iterator[sqlite3.Connection]:
+        with self._lock:
+            conn = self._conn
+            try:
+                conn.execute("BEGIN IMMEDIATE")
+            except sqlite3.Error as exc:
+                raise self._error(exc, what) from None
+            try:
+                yield conn
+            except BaseException as exc:
+                conn.execute("ROLLBACK")
+                if isinstance(exc, sqlite3.Error):
+                    raise self._error(exc, what) from None
+                raise
+            try:
+                conn.execute("COMMIT")
+            except sqlite3.Error as exc:
+                conn.execute("ROLLBACK")
+                raise self._error(exc, what) from None
+
+    def _read(self, sql: str, params: Sequence[object] = ()) -> list[tuple[Any, ...]]:
+        with self._lock:
+            try:
+                return self._conn.execute(sql, params).fetchall()
+            except sqlite3.Error as exc:
+                raise self._error(exc, "reading") from None
+
+    def _error(self, exc: sqlite3.Error, what: str) -> StoreError:
+        text = str(exc)
+        if "locked" in text or "busy" in text:
+            fix = "another process holds the store; wait for it or use another --store file"
+        elif isinstance(exc, sqlite3.IntegrityError):
+            fix = "this is a bug in the caller: the record clashes with one already stored"
+        else:
+            fix = "check the disk (space, permissions) and the store file"
+        return StoreError(f"{what} failed: {text}", where=str(self.path), fix=fix)
+
+    def _require_run(self, conn: sqlite3.Connection, run_id: int) -> None:
+        if conn.execute("SELECT 1 FROM runs WHERE id = ?", (run_id,)).fetchone() is None:
+            raise StoreError(
+                f"there is no run {run_id}",
+                where=str(self.path),
+                fix="list the runs with `sweeprig runs`",
+            )
+
+    # -- writing ----------------------------------------------------------------------------
+
+    def create_run(
+        self,
+        *,
+        sequence_path: str,
+        sequence_text: str,
+        bench_path: str | None = None,
+        bench_text: str | None = None,
+        simulated: bool = False,
+        operator: str = "",
+        part: str = "",
+        serial: str = "",
+        tags: Sequence[str] = (),
+        title: str = "",
+        points_total: int | None = None,
+        status: RunStatus = "planned",
+    ) -> int:
+        """Record a new run (with the full text and SHA-256 of its sequence and bench files,
+        this process's id and host) and return its id."""
+        self._check_status(status)
+        now = _iso(utc_now())
+        with self._transaction("creating a run") as conn:
+            cursor = conn.execute(
+                """INSERT INTO runs (created_utc, status, title, sequence_path, sequence_sha256,
+                    sequence_text, bench_path, bench_sha256, bench_text, simulated, operator,
+                    part, serial, tags_json, points_total, heartbeat_utc, pid, host)
+                VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)""",
+                (
+                    now, status, title, str(sequence_path), sha256_text(sequence_text),
+                    sequence_text, None if bench_path is None else str(bench_path),
+                    None if bench_text is None else sha256_text(bench_text), bench_text,
+                    int(bool(simulated)), operator, part, serial,
+                    json.dumps([str(t) for t in tags]), _int(points_total, "points_total"),
+                    now, os.getpid(), self._host,
+                ),
+            )
+            run_id = cursor.lastrowid
+        assert run_id is not None
+        return int(run_id)
+
+    def record_instruments(self, run_id: int, instruments: Sequence[InstrumentRecord]) -> None:
+        """Record the run's instruments; a role recorded before is replaced."""
+        with self._transaction("recording instruments") as conn:
+            self._require_run(conn, run_id)
+            for inst in instruments:
+                conn.execute("DELETE FROM instruments WHERE run_id = ? AND role = ?",
+                             (run_id, inst.role))
+                conn.execute(
+                    "INSERT INTO instruments (run_id, role, resource, profile, idn) "
+                    "VALUES (?, ?, ?, ?, ?)",
+                    (run_id, inst.role, inst.resource, inst.profile, inst.idn),
+                )
+
+    def write_point(
+        self, run_id: int, point: PointRecord, readings: Sequence[ReadingRecord]
+    ) -> None:
+        """Store ``point`` and its ``readings`` in one transaction (all or nothing).
+
+        A point index already stored for this run is a :class:`StoreError`.
+        """
+        point_row = self._point_row(run_id, point)
+        reading_rows = [
+            self._reading_row(run_id, point.index, number, reading)
+            for number, reading in enumerate(readings)
+        ]
+        with self._transaction(f"writing point {point.index}") as conn:
+            self._require_run(conn, run_id)
+            exists = conn.execute(
+                "SELECT 1 FROM points WHERE run_id = ? AND point_index = ?",
+                (run_id, point.index),
+            ).fetchone()
+            if exists is not None:
+                raise StoreError(
+                    f"point {point.index} of run {run_id} is already stored",
+                    where=str(self.path),
+                    fix="skip the points listed by done_point_indices() when resuming",
+                )
+            conn.execute(
+                f"INSERT INTO points (run_id, point_index, {', '.join(POINT_COLUMNS)}, "
+                "wall_start_utc, wall_end_utc, extra_json) "
+                f"VALUES ({', '.join('?' * (len(POINT_COLUMNS) + 5))})",
+                point_row,
+            )
+            conn.executemany(
+                f"INSERT INTO readings (run_id, point_index, reading_no, "
+                f"{', '.join(READING_COLUMNS)}, overload, attenuation_check, extra_json) "
+                f"VALUES ({', '.join('?' * (len(READING_COLUMNS) + 6))})",
+                reading_rows,
+            )
+
+    @staticmethod
+    def _point_row(run_id: int, p: PointRecord) -> tuple[object, ...]:
+        index = _int(p.index, "point.index")
+        values: list[object] = [run_id, index, str(p.study)]
+        for column in POINT_COLUMNS[1:]:
+            values.append(_real(getattr(p, column), f"point.{column}"))
+        values += [_iso(p.wall_start), _iso(p.wall_end), _json(p.extra, "point.extra")]
+        return tuple(values)
+
+    @staticmethod
+    def _reading_row(run_id: int, index: int, number: int, r: ReadingRecord) -> tuple[object, ...]:
+        values: list[object] = [run_id, index, number, str(r.name), str(r.kind), str(r.port)]
+        for column in READING_COLUMNS[3:]:
+            if column in ("m", "n", "averages"):
+                values.append(_int(getattr(r, column), f"reading.{column}"))
+            else:
+                values.append(_real(getattr(r, column), f"reading.{column}"))
+        values.append(int(bool(r.overload)))
+        values.append(None if r.attenuation_check is None else int(bool(r.attenuation_check)))
+        values.append(_json(r.extra, "reading.extra"))
+        return tuple(values)
+
+    def done_point_indices(self, run_id: int) -> set[int]:
+        """Indices of the points stored for ``run_id``."""
+        rows = self._read("SELECT point_index FROM points WHERE run_id = ?", (run_id,))
+        return {int(r[0]) for r in rows}
+
+    @staticmethod
+    def _check_status(status: str) -> None:
+        if status not in RUN_STATUSES:
+            raise StoreError(
+                f"{status!r} is not a run status",
+                where="run status",
+                fix=f"use one of {', '.join(RUN_STATUSES)}",
+            )
+
+    def set_status(self, run_id: int, status: RunStatus, reason: str | None = None) -> None:
+        """Change the status. ``complete``/``aborted`` set the finish time; ``running`` also
+        records this process (pid, host) and a heartbeat."""
+        self._check_status(status)
+        now = _iso(utc_now())
+        with self._transaction("setting the run status") as conn:
+            self._require_run(conn, run_id)
+            if status in FINAL_STATUSES:
+                conn.execute(
+                    "UPDATE runs SET status = ?, reason = ?, finished_utc = ?, heartbeat_utc = ? "
+                    "WHERE id = ?",
+                    (status, reason, now, now, run_id),
+                )
+            elif status == "running":
+                conn.execute(
+                    "UPDATE runs SET status = ?, reason = ?, finished_utc = NULL, "
+                    "heartbeat_utc = ?, pid = ?, host = ? WHERE id = ?",
+                    (status, reason, now, os.getpid(), self._host, run_id),
+                )
+            else:
+                conn.execute("UPDATE runs SET status = ?, reason = ? WHERE id = ?",
+                             (status, reason, run_id))
+
+    def set_points_total(self, run_id: int, points_total: int) -> None:
+        """Record how many points the run's plan has."""
+        with self._transaction("setting the point total") as conn:
+            self._require_run(conn, run_id)
+            conn.execute("UPDATE runs SET points_total = ? WHERE id = ?",
+                         (_int(points_total, "points_total"), run_id))
+
+    def heartbeat(self, run_id: int) -> None:
+        """Record that this process is alive and running ``run_id``."""
+        with self._transaction("heartbeat") as conn:
+            conn.execute(
+                "UPDATE runs SET heartbeat_utc = ?, pid = ?, host = ? WHERE id = ?",
+                (_iso(utc_now()), os.getpid(), self._host, run_id),
+            )
+
+    def log_event(
+        self,
+        run_id: int,
+        severity: Severity,
+        kind: str,
+        message: str,
+        details: Mapping[str, Any] | None = None,
+        *,
+        point_index: int | None = None,
+    ) -> None:
+        """Append an event (severity debug/info/warning/error; JSON-able details)."""
+        if severity not in SEVERITIES:
+            raise StoreError(f"{severity!r} is not a severity", where="event",
+                             fix=f"use one of {', '.join(SEVERITIES)}")
+        details_json = _json(details, "event.details")
+        with self._transaction("logging an event") as conn:
+            conn.execute(
+                "INSERT INTO events (run_id, time_utc, severity, kind, message, details_json, "
+                "point_index) VALUES (?, ?, ?, ?, ?, ?, ?)",
+                (run_id, _iso(utc_now()), severity, kind, message, details_json,
+                 _int(point_index, "point_index")),
+            )
+
+    def log_bus(self, run_id: int, entries: Sequence[BusRecord]) -> None:
+        """Append SCPI exchanges to the bus log, in one transaction."""
+        if not entries:
+            return
+        rows = [
+            (run_id, _iso(e.time), e.role, e.sent, e.received, float(e.duration_s))
+            for e in entries
+        ]
+        with self._transaction("writing the bus log") as conn:
+            conn.executemany(
+                "INSERT INTO bus_log (run_id, time_utc, role, sent, received, duration_s) "
+                "VALUES (?, ?, ?, ?, ?, ?)",
+                rows,
+            )
+
+    # -- reading ----------------------------------------------------------------------------
+
+    _SUMMARY_SQL = """
+        SELECT r.id, r.status, r.reason, r.created_utc, r.finished_utc, r.heartbeat_utc,
+               r.sequence_path, r.bench_path, r.simulated, r.operator, r.part, r.serial,
+               r.tags_json, r.title, r.points_total, r.pid, r.host,
+               (SELECT COUNT(*) FROM points p WHERE p.run_id = r.id),
+               (SELECT MAX(p.wall_end_utc) FROM points p WHERE p.run_id = r.id)
+        FROM runs r
+    """
+
+    def _effective_status(
+        self, status: str, heartbeat: datetime | None, pid: int | None, host: str | None
+    ) -> str:
+        if status != "running":
+            return status
+        if heartbeat is None or (utc_now() - heartbeat).total_seconds() > self.stale_after_s:
+            return "interrupted"
+        if host == self._host and pid is not None and not pid_alive(pid):
+            return "interrupted"
+        return status
+
+    def _summary_fields(self, row: tuple[Any, ...]) -> dict[str, Any]:
+        heartbeat = _dt(row[5])
+        return {
+            "id": int(row[0]),
+            "status": self._effective_status(row[1], heartbeat, row[15], row[16]),
+            "stored_status": row[1],
+            "reason": row[2],
+            "created": _dt(row[3]),
+            "finished": _dt(row[4]),
+            "heartbeat": heartbeat,
+            "sequence_path": row[6],
+            "bench_path": row[7],
+            "simulated": bool(row[8]),
+            "operator": row[9],
+            "part": row[10],
+            "serial": row[11],
+            "tags": tuple(json.loads(row[12])),
+            "title": row[13],
+            "points_total": row[14],
+            "points_done": int(row[17]),
+            "last_point_end": _dt(row[18]),
+        }
+
+    def runs(self) -> list[RunSummary]:
+        """Every run, newest first (``status`` shows stale running runs as interrupted)."""
+        rows = self._read(self._SUMMARY_SQL + " ORDER BY r.id DESC")
+        return [RunSummary(**self._summary_fields(row)) for row in rows]
+
+    def run(self, run_id: int) -> RunInfo:
+        """One run in full; :class:`StoreError` if there is none with this id."""
+        rows = self._read(self._SUMMARY_SQL + " WHERE r.id = ?", (run_id,))
+        if not rows:
+            raise StoreError(
+                f"there is no run {run_id}",
+                where=str(self.path),
+                fix="list the runs with `sweeprig runs`",
+            )
+        extra = self._read(
+            "SELECT sequence_sha256, sequence_text, bench_sha256, bench_text, pid, host "
+            "FROM runs WHERE id = ?",
+            (run_id,),
+        )[0]
+        instruments = tuple(
+            InstrumentRecord(*r)
+            for r in self._read(
+                "SELECT role, resource, profile, idn FROM instruments WHERE run_id = ? "
+                "ORDER BY role",
+                (run_id,),
+            )
+        )
+        return RunInfo(
+            **self._summary_fields(rows[0]),
+            sequence_sha256=extra[0],
+            sequence_text=extra[1],
+            bench_sha256=extra[2],
+            bench_text=extra[3],
+            pid=extra[4],
+            host=extra[5],
+            instruments=instruments,
+        )
+
+    def points_frame(self, run_id: int) -> pd.DataFrame:
+        """The run's points: ``run_id``, ``point_index``, the settings and measurements
+        (NaN where not used), ``wall_start``/``wall_end`` (UTC), ``extra_json``."""
+        columns = ["run_id", "point_index", *POINT_COLUMNS, "wall_start", "wall_end",
+                   "extra_json"]
+        rows = self._read(
+            f"SELECT run_id, point_index, {', '.join(POINT_COLUMNS)}, wall_start_utc, "
+            "wall_end_utc, extra_json FROM points WHERE run_id = ? ORDER BY point_index",
+            (run_id,),
+        )
+        frame = pd.DataFrame.from_records(rows, columns=columns)
+        for column in POINT_COLUMNS[1:]:
+            frame[column] = frame[column].astype("float64")
+        frame["run_id"] = frame["run_id"].astype("int64")
+        frame["point_index"] = frame["point_index"].astype("int64")
+        frame["study"] = frame["study"].astype("object")
+        for column in ("wall_start", "wall_end"):
+            frame[column] = pd.to_datetime(frame[column], utc=True, format="ISO8601")
+        return frame
+
+    def readings_frame(self, run_id: int) -> pd.DataFrame:
+        """The run's readings: ``run_id``, ``point_index``, ``reading_no``, the reading's
+        fields; ``m``/``n``/``averages`` as nullable integers, ``attenuation_check`` as a
+        nullable boolean."""
+        columns = ["run_id", "point_index", "reading_no", *READING_COLUMNS, "overload",
+                   "attenuation_check", "extra_json"]
+        rows = self._read(
+            f"SELECT run_id, point_index, reading_no, {', '.join(READING_COLUMNS)}, overload, "
+            "attenuation_check, extra_json FROM readings WHERE run_id = ? "
+            "ORDER BY point_index, reading_no",
+            (run_id,),
+        )
+        frame = pd.DataFrame.from_records(rows, columns=columns)
+        for column in ("run_id", "point_index", "reading_no"):
+            frame[column] = frame[column].astype("int64")
+        for column in ("freq_hz", "level_dbm", "noise_floor_dbm", "span_hz", "rbw_hz",
+                       "attenuation_db", "ref_level_dbm"):
+            frame[column] = frame[column].astype("float64")
+        for column in ("m", "n", "averages"):
+            frame[column] = frame[column].astype("Int64")
+        frame["overload"] = frame["overload"].astype(bool)
+        frame["attenuation_check"] = frame["attenuation_check"].astype("boolean")
+        return frame
+
+    def events(self, run_id: int) -> list[EventRecord]:
+        """The run's events, oldest first."""
+        rows = self._read(
+            "SELECT time_utc, severity, kind, message, details_json, point_index FROM events "
+            "WHERE run_id = ? ORDER BY id",
+            (run_id,),
+        )
+        return [
+            EventRecord(_dt(r[0]) or utc_now(), r[1], r[2], r[3], json.loads(r[4]), r[5])
+            for r in rows
+        ]
+
+    def bus_log(self, run_id: int, *, limit: int | None = None) -> list[BusRecord]:
+        """The run's bus log, oldest first; only the last ``limit`` entries if given."""
+        sql = ("SELECT time_utc, role, sent, received, duration_s FROM bus_log "
+               "WHERE run_id = ? ORDER BY id DESC")
+        params: tuple[object, ...] = (run_id,)
+        if limit is not None:
+            sql += " LIMIT ?"
+            params = (run_id, int(limit))
+        rows = self._read(sql, params)
+        return [BusRecord(_dt(r[0]) or utc_now(), r[1], r[2], r[3], r[4]) for r in reversed(rows)]
+
+    def close(self) -> None:
+        """Close the database (idempotent)."""
+        with self._lock, suppress(sqlite3.Error):
+            self._conn.close()
+
+    def __enter__(self) -> SqliteRunStore:
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
+
+
+def open_store(
+    path: Path | str, *, create: bool = True, durable: bool = True
+) -> SqliteRunStore:
+    """Open the run store at ``path`` (an SQLite file)."""
+    return SqliteRunStore(path, create=create, durable=durable)

@@ -1,0 +1,300 @@
+"""The pyvisa transport: real instruments and the simulated bench over loopback TCP.
+
+``VisaTransport("TCPIP0::127.0.0.1::5025::SOCKET")`` opens the resource through a pyvisa
+``ResourceManager`` (``"@py"``, the pure-Python pyvisa-py backend, by default). Raw SOCKET
+resources get newline termination in both directions; every resource gets a newline write
+termination. All pyvisa, socket and decoding errors come out as :class:`TransportError`
+naming the resource and the command.
+
+This is the only module in sweeprig that imports pyvisa.
+"""
+
+from __future__ import annotations
+
+import time
+from collections.abc import Iterator
+from contextlib import contextmanager, suppress
+from typing import Any
+
+import numpy as np
+import pyvisa
+import pyvisa.constants
+import pyvisa.errors
+
+from sweeprig.errors import TransportError
+from sweeprig.transport import blocks
+from sweeprig.transport.base import Transaction, TransactionHook
+
+DEFAULT_VISA_LIBRARY = "@py"
+DEFAULT_TIMEOUT_S = 5.0
+
+_PYVISA_ERRORS: tuple[type[BaseException], ...] = (
+    pyvisa.errors.Error,
+    OSError,
+    ValueError,
+    EOFError,
+)
+
+
+def open_resource_manager(visa_library: str = DEFAULT_VISA_LIBRARY) -> pyvisa.ResourceManager:
+    """Open a pyvisa ResourceManager for ``visa_library`` (``"@py"``, ``"@ivi"``, a path).
+
+    Raises :class:`TransportError` if the VISA library cannot be loaded.
+    """
+    try:
+        return pyvisa.ResourceManager(visa_library)
+    except _PYVISA_ERRORS as exc:
+        raise TransportError(
+            f"cannot load the VISA library {visa_library!r}: {exc}",
+            where="VISA library",
+            fix='use "@py" (pyvisa-py, installed with sweeprig) or the path of an installed '
+            "VISA library",
+        ) from exc
+
+
+def list_resources(
+    visa_library: str = DEFAULT_VISA_LIBRARY,
+    *,
+    resource_manager: pyvisa.ResourceManager | None = None,
+) -> list[str]:
+    """VISA resources the library can discover (pyvisa-py does not discover raw TCP sockets)."""
+    rm = resource_manager or open_resource_manager(visa_library)
+    try:
+        return sorted(rm.list_resources())
+    except _PYVISA_ERRORS as exc:
+        raise TransportError(
+            f"listing VISA resources failed: {exc}",
+            where=f"VISA library {visa_library!r}",
+            fix="name the instruments with --resource instead",
+        ) from exc
+    finally:
+        if resource_manager is None:
+            _quiet_close(rm)
+
+
+def _quiet_close(obj: Any) -> None:
+    with suppress(_PYVISA_ERRORS):
+        obj.close()
+
+
+def _is_socket(resource: str) -> bool:
+    return resource.strip().upper().endswith("::SOCKET")
+
+
+class VisaTransport:
+    """A :class:`~sweeprig.transport.base.Transport` over pyvisa.
+
+    ``resource``: VISA resource string, e.g. ``"TCPIP0::lab-sg6.local::5025::SOCKET"`` or
+    ``"GPIB0::18::INSTR"``. ``visa_library``: the pyvisa backend (``"@py"`` by default).
+    ``timeout_s``: I/O timeout, s. ``resource_manager``: share one ResourceManager among
+    several transports (it is then not closed by :meth:`close`). ``on_transaction``: called
+    after every exchange with a :class:`Transaction` (the bus log).
+
+    The connection is opened in the constructor; failure raises :class:`TransportError`.
+    """
+
+    def __init__(
+        self,
+        resource: str,
+        *,
+        visa_library: str = DEFAULT_VISA_LIBRARY,
+        timeout_s: float = DEFAULT_TIMEOUT_S,
+        resource_manager: pyvisa.ResourceManager | None = None,
+        on_transaction: TransactionHook | None = None,
+    ) -> None:
+        if not isinstance(resource, str) or not resource.strip():
+            raise TransportError(
+                f"{resource!r} is not a VISA resource string",
+                where="resource",
+                fix='write it like "TCPIP0::127.0.0.1::5025::SOCKET" or "GPIB0::18::INSTR"',
+            )
+        if not timeout_s > 0:
+            raise TransportError(
+                f"timeout {timeout_s!r} s is not positive",
+                where=resource,
+                fix="give a timeout such as 5 s",
+            )
+        self.resource = resource
+        self.visa_library = visa_library
+        self.timeout_s = float(timeout_s)
+        self.on_transaction = on_transaction
+        self._shared_rm = resource_manager
+        self._rm: pyvisa.ResourceManager | None = resource_manager
+        self._inst: Any = None
+        self._open()
+
+    # -- connection -------------------------------------------------------------------------
+
+    def _open(self) -> None:
+        if self._rm is None:
+            self._rm = open_resource_manager(self.visa_library)
+        try:
+            inst = self._rm.open_resource(
+                self.resource, open_timeout=int(self.timeout_s * 1000)
+            )
+        except _PYVISA_ERRORS as exc:
+            raise TransportError(
+                f"cannot open the connection: {_describe(exc)}",
+                where=self.resource,
+                fix="check that the instrument is on and reachable and that the resource string "
+                "is right (for the simulated bench: that it is running and the port is its port)",
+            ) from exc
+        try:
+            inst.timeout = int(self.timeout_s * 1000)
+            inst.write_termination = "\n"
+            if _is_socket(self.resource):
+                inst.read_termination = "\n"
+        except _PYVISA_ERRORS as exc:
+            _quiet_close(inst)
+            raise TransportError(
+                f"cannot configure the connection: {_describe(exc)}",
+                where=self.resource,
+            ) from exc
+        self._inst = inst
+
+    def close(self) -> None:
+        """Close the connection (and the ResourceManager unless it was shared). Idempotent."""
+        if self._inst is not None:
+            _quiet_close(self._inst)
+            self._inst = None
+        if self._shared_rm is None and self._rm is not None:
+            _quiet_close(self._rm)
+            self._rm = None
+
+    def reconnect(self) -> None:
+        """Close the resource and open it again (keeps the ResourceManager)."""
+        if self._inst is not None:
+            _quiet_close(self._inst)
+            self._inst = None
+        self._open()
+
+    def __enter__(self) -> VisaTransport:
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
+
+    # -- exchanges --------------------------------------------------------------------------
+
+    def _instrument(self, cmd: str) -> Any:
+        if self._inst is None:
+            raise TransportError(
+                f"connection is closed (command {cmd!r})",
+                where=self.resource,
+                fix="reconnect before sending",
+            )
+        return self._inst
+
+    @contextmanager
+    def _timeout(self, timeout_s: float | None) -> Iterator[None]:
+        if timeout_s is None or self._inst is None:
+            yield
+            return
+        self._inst.timeout = int(max(timeout_s, 0.001) * 1000)
+        try:
+            yield
+        finally:
+            if self._inst is not None:
+                with suppress(_PYVISA_ERRORS):
+                    self._inst.timeout = int(self.timeout_s * 1000)
+
+    def _record(self, start: float, t0: float, cmd: str, received: str | None) -> None:
+        if self.on_transaction is not None:
+            self.on_transaction(
+                Transaction(start, self.resource, cmd, received, time.perf_counter() - t0)
+            )
+
+    def _fail(
+        self, start: float, t0: float, cmd: str, exc: BaseException, timeout_s: float | None
+    ) -> TransportError:
+        error = _translate(exc, self.resource, cmd, timeout_s or self.timeout_s)
+        self._record(start, t0, cmd, f"<error: {error.what}>")
+        return error
+
+    def write(self, cmd: str) -> None:
+        """Send ``cmd``."""
+        start, t0 = time.time(), time.perf_counter()
+        try:
+            self._instrument(cmd).write(cmd)
+        except TransportError:
+            raise
+        except _PYVISA_ERRORS as exc:
+            raise self._fail(start, t0, cmd, exc, None) from exc
+        self._record(start, t0, cmd, None)
+
+    def query(self, cmd: str, *, timeout_s: float | None = None) -> str:
+        """Send ``cmd`` and return the reply with its termination removed."""
+        start, t0 = time.time(), time.perf_counter()
+        try:
+            inst = self._instrument(cmd)
+            with self._timeout(timeout_s):
+                reply = inst.query(cmd)
+        except TransportError:
+            raise
+        except _PYVISA_ERRORS as exc:
+            raise self._fail(start, t0, cmd, exc, timeout_s) from exc
+        text = reply.rstrip("\r\n")
+        self._record(start, t0, cmd, text)
+        return text
+
+    def query_binary_floats(self, cmd: str, *, timeout_s: float | None = None) -> np.ndarray:
+        """Send ``cmd`` and decode an IEEE 488.2 definite-length block of big-endian REAL,32."""
+        start, t0 = time.time(), time.perf_counter()
+        where = f"{self.resource}, command {cmd!r}"
+        try:
+            inst = self._instrument(cmd)
+            with self._timeout(timeout_s):
+                inst.write(cmd)
+                data = bytearray(inst.read_raw())
+                total = blocks.block_length(data)
+                reads = 0
+                while total is None and reads < 4:
+                    data.extend(inst.read_raw())
+                    total = blocks.block_length(data)
+                    reads += 1
+                if total is None:
+                    raise TransportError(
+                        f"reply to {cmd!r} has no IEEE 488.2 block header",
+                        where=self.resource,
+                    )
+                expected = total + (1 if inst.read_termination else 0)
+                if len(data) < expected:
+                    data.extend(inst.read_bytes(expected - len(data)))
+            values = blocks.parse_real32_block(bytes(data), where=where)
+        except TransportError as exc:
+            self._record(start, t0, cmd, f"<error: {exc.what}>")
+            raise TransportError(exc.what, where=where, fix=exc.fix) from exc
+        except _PYVISA_ERRORS as exc:
+            raise self._fail(start, t0, cmd, exc, timeout_s) from exc
+        self._record(start, t0, cmd, f"<REAL,32 block: {values.size} values>")
+        return values
+
+
+def _describe(exc: BaseException) -> str:
+    text = str(exc).strip() or type(exc).__name__
+    return text.splitlines()[0] if text else type(exc).__name__
+
+
+def _translate(exc: BaseException, resource: str, cmd: str, timeout_s: float) -> TransportError:
+    where = f"{resource}, command {cmd!r}"
+    if (
+        isinstance(exc, pyvisa.errors.VisaIOError)
+        and exc.error_code == pyvisa.constants.StatusCode.error_timeout
+    ):
+        return TransportError(
+            f"no reply within {timeout_s:g} s (timeout)",
+            where=where,
+            fix="check that the instrument is on and understands the command; a slow operation "
+            "may need a longer timeout",
+        )
+    if isinstance(exc, UnicodeError):
+        return TransportError(
+            "the reply is not ASCII text",
+            where=where,
+            fix="check the instrument's data format (FORMat ASCii for text replies)",
+        )
+    return TransportError(
+        f"I/O error: {_describe(exc)}",
+        where=where,
+        fix="check the cable or network and that the instrument is on; the run can reconnect",
+    )

@@ -1,0 +1,67 @@
+"""Capture-table checks and the per-point view."""
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from sweeprig.analysis import compression_figures
+from sweeprig.analysis.captures import column_arrays, has_bit, point_table
+from sweeprig.analysis.figures import ANALYZER_DISTORTION, IN_NOISE, MISSING_READING, OVERLOAD
+from sweeprig.analysis.synthetic import points_frame, reading_rows
+from sweeprig.errors import InputError
+
+
+def _captures() -> pd.DataFrame:
+    pts = points_frame(3, rf_power_dbm=[-30.0, -20.0, -10.0])
+    return pd.concat(
+        [
+            reading_rows(pts, "if", [-24.0, -14.0, -4.0], noise_floor_dbm=-100.0),
+            reading_rows(pts.iloc[:2], "im3_low", [-97.0, -60.0], noise_floor_dbm=-100.0,
+                         overload=[False, True]),
+            reading_rows(pts.iloc[1:2], "im3_low", [-80.0], atten_check=True),
+            reading_rows(pts.iloc[1:2], "if", [-14.05], atten_check=True),
+        ],
+        ignore_index=True,
+    )
+
+
+def test_point_table_columns_and_flags():
+    table = point_table(_captures(), ("im3_low",))
+    assert table["point"].tolist() == [0, 1, 2]
+    assert table["if_level_dbm"].tolist() == [-24.0, -14.0, -4.0]
+    flags = table["im3_low_flags"].to_numpy()
+    assert has_bit(flags, IN_NOISE).tolist() == [True, False, False]
+    assert has_bit(flags, OVERLOAD).tolist() == [False, True, False]
+    assert has_bit(flags, ANALYZER_DISTORTION).tolist() == [False, True, False]
+    assert has_bit(flags, MISSING_READING).tolist() == [False, False, True]
+    assert table["im3_low_atten_level_dbm"].iloc[1] == -80.0
+
+
+def test_later_duplicate_reading_wins():
+    df = _captures()
+    extra = df[(df["reading"] == "if") & (df["point"] == 0)].assign(level_dbm=-25.0)
+    table = point_table(pd.concat([df, extra], ignore_index=True))
+    assert table["if_level_dbm"].iloc[0] == -25.0
+
+
+def test_aliases_and_optional_columns():
+    df = _captures().rename(columns={"point": "point_index", "reading": "reading_name"})
+    df = df.drop(columns=["overload", "noise_floor_dbm", "rf2_freq_hz", "m", "n"])
+    cols = column_arrays(df)
+    assert not cols["overload"].any()
+    assert np.isnan(cols["noise_floor_dbm"]).all()
+
+
+def test_bad_tables_raise_input_errors():
+    with pytest.raises(InputError, match="no column 'level_dbm'"):
+        compression_figures(_captures().drop(columns=["level_dbm"]))
+    with pytest.raises(InputError, match="not numbers"):
+        compression_figures(_captures().assign(rf_power_dbm="-10 dBm"))
+    with pytest.raises(InputError, match="DataFrame"):
+        compression_figures([1, 2, 3])  # type: ignore[arg-type]
+    assert compression_figures(_captures(), study="no such study") == []
+
+
+def test_own_column_name_wins_over_an_alias():
+    df = _captures().assign(name="something else")
+    assert point_table(df)["if_present"].all()

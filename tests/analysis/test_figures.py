@@ -1,0 +1,97 @@
+"""The Figure type, flag masks and bound arithmetic."""
+
+import math
+
+import numpy as np
+import pytest
+
+from sweeprig.analysis.figures import (
+    BOUND_ABOVE,
+    BOUND_BELOW,
+    BOUND_NONE,
+    FIGURE_CATALOGUE,
+    FLAGS,
+    IN_NOISE,
+    OVERLOAD,
+    SUSPECT_FLAGS,
+    Figure,
+    bound_difference,
+    bound_sum,
+    flag_bit,
+    flags_from_mask,
+    make_figures,
+    mask_where,
+    worst_of,
+)
+
+
+def test_figure_text_and_number():
+    assert Figure("iip3", 12.345, "dBm").text() == "12.35 dBm"
+    assert Figure("spur_dbc", -80.0, "dBc", "<").text(1) == "< -80.0 dBc"
+    assert Figure("input_p1db", 12.0, "dBm", ">").text(0) == "> 12 dBm"
+    assert Figure("iip3", math.nan, "dBm").text() == "n/a"
+    assert Figure("iip3", 1.0, "dBm").is_number
+    assert not Figure("iip3", 1.0, "dBm", ">").is_number
+    assert not Figure("iip3", math.nan, "dBm").is_number
+
+
+def test_figure_is_frozen_and_hashable():
+    f = Figure("iip3", 1.0, "dBm", conditions={"temperature_c": 25.0})
+    with pytest.raises(AttributeError):
+        f.value = 2.0  # type: ignore[misc]
+    assert hash(f) == hash(Figure("iip3", 1.0, "dBm", conditions={"temperature_c": 85.0}))
+
+
+def test_flag_masks_round_trip():
+    mask = flag_bit(IN_NOISE) | flag_bit(OVERLOAD)
+    assert flags_from_mask(mask) == (IN_NOISE, OVERLOAD)
+    assert flags_from_mask(0) == ()
+    assert set(SUSPECT_FLAGS) <= set(FLAGS)
+    masks = mask_where(np.array([True, False]), OVERLOAD)
+    assert masks.tolist() == [flag_bit(OVERLOAD), 0]
+
+
+def test_make_figures_matches_the_constructor():
+    figs = make_figures(
+        "iip3", "dBm", [1.0, 2.0], [BOUND_NONE, BOUND_ABOVE], [0, flag_bit(IN_NOISE)],
+        [{"temperature_c": 25.0}, {"temperature_c": 85.0}], [(1,), (2, 3)],
+    )
+    assert figs[0] == Figure("iip3", 1.0, "dBm", None, {"temperature_c": 25.0}, (), (1,))
+    assert figs[1] == Figure("iip3", 2.0, "dBm", ">", {"temperature_c": 85.0}, (IN_NOISE,), (2, 3))
+    with pytest.raises(TypeError):
+        figs[0].conditions["temperature_c"] = 0.0  # read-only mapping
+
+
+def test_catalogue_units_are_known():
+    assert {unit for unit, _ in FIGURE_CATALOGUE.values()} <= {
+        "dB", "dBc", "dBm", "dB/°C", "dB/dB", "A", "W",
+    }
+
+
+def test_worst_of_keeps_bounds_honest():
+    # number vs a ">" bound above it: the number is the minimum
+    v, b = worst_of(np.array([10.0, 12.0]), np.array([BOUND_NONE, BOUND_ABOVE]))
+    assert (float(v), int(b)) == (10.0, BOUND_NONE)
+    # the smallest is a ">" bound: the minimum is only known to exceed it
+    v, b = worst_of(np.array([10.0, 12.0]), np.array([BOUND_ABOVE, BOUND_NONE]))
+    assert (float(v), int(b)) == (10.0, BOUND_ABOVE)
+    # a "<" bound anywhere makes the minimum a "<" bound
+    v, b = worst_of(np.array([10.0, 12.0]), np.array([BOUND_NONE, BOUND_BELOW]))
+    assert (float(v), int(b)) == (10.0, BOUND_BELOW)
+    v, b = worst_of(np.array([10.0, math.nan]), np.array([BOUND_NONE, BOUND_NONE]))
+    assert math.isnan(float(v))
+
+
+def test_bound_arithmetic():
+    # isolation = drive − leakage; leakage "< -60" → isolation "> 60"
+    v, b = bound_difference(np.array(0.0), np.array(BOUND_NONE), np.array(-60.0),
+                            np.array(BOUND_BELOW))
+    assert (float(v), int(b)) == (60.0, BOUND_ABOVE)
+    v, b = bound_difference(np.array(-70.0), np.array(BOUND_BELOW), np.array(-10.0),
+                            np.array(BOUND_NONE))
+    assert (float(v), int(b)) == (-60.0, BOUND_BELOW)
+    v, b = bound_difference(np.array(1.0), np.array(BOUND_BELOW), np.array(1.0),
+                            np.array(BOUND_BELOW))
+    assert math.isnan(float(v))
+    v, b = bound_sum(np.array(1.0), np.array(BOUND_ABOVE), np.array(2.0), np.array(BOUND_ABOVE))
+    assert (float(v), int(b)) == (3.0, BOUND_ABOVE)

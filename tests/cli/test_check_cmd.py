@@ -1,0 +1,154 @@
+"""The check, plan and schema commands through typer's CliRunner."""
+
+import json
+import xml.etree.ElementTree as ET
+from pathlib import Path
+
+import pytest
+import typer
+from typer.testing import CliRunner
+
+from sweeprig.cli.check_cmd import register
+
+ROOT = Path(__file__).resolve().parents[2]
+QUICK = ROOT / "sequences" / "demo" / "quick.toml"
+SIM_BENCH = ROOT / "sequences" / "benches" / "sim.toml"
+
+
+@pytest.fixture(scope="module")
+def app() -> typer.Typer:
+    root = typer.Typer(no_args_is_help=True, add_completion=False)
+
+    @root.callback()
+    def _root() -> None:
+        """test root"""
+
+    register(root)
+    return root
+
+
+def run(app: typer.Typer, *args: str):
+    # a wide virtual terminal, so that table cells are not wrapped
+    result = CliRunner().invoke(app, [str(a) for a in args], env={"COLUMNS": "200"})
+    assert not isinstance(result.exception, Exception) or isinstance(
+        result.exception, SystemExit), result.exception  # never a traceback
+    return result
+
+
+HOT = """\
+[part]
+id = "KX-1"
+expected_gain = "-7 dB"
+[mixing]
+if_frequency = "70 MHz"
+[[study]]
+name = "hot"
+rf_frequency = "2.4 GHz"
+rf_power = "14 dBm"
+lo_power = "7 dBm"
+read = ["wanted"]
+"""
+
+
+def test_check_ok(app) -> None:
+    result = run(app, "check", QUICK)
+    assert result.exit_code == 0
+    assert "ok" in result.output and "quick.toml" in result.output
+    assert "5 points" in result.output
+
+
+def test_check_bad_file_and_junit(app, tmp_path: Path) -> None:
+    bad = tmp_path / "bad.toml"
+    bad.write_text(HOT.replace("rf_power", "rf_powr"), encoding="utf-8")
+    hot = tmp_path / "hot.toml"
+    hot.write_text(HOT, encoding="utf-8")
+    junit = tmp_path / "out" / "check.xml"
+    result = run(app, "check", QUICK, bad, hot, "--bench", SIM_BENCH, "--junit", junit)
+    assert result.exit_code == 2  # the first failure is a file problem
+    assert "unknown key 'rf_powr'" in result.output
+    assert "did you mean 'rf_power'?" in result.output
+    assert "Traceback" not in result.output
+    root = ET.parse(junit).getroot()
+    suite = root.find("testsuite")
+    assert suite is not None and suite.get("tests") == "3" and suite.get("failures") == "2"
+    cases = suite.findall("testcase")
+    assert [c.get("name").rsplit("/", 1)[-1] for c in cases] == ["quick.toml", "bad.toml",
+                                                                 "hot.toml"]
+    assert cases[0].find("failure") is None
+    assert cases[1].find("failure").get("type") == "InputError"
+    hot_failure = cases[2].find("failure")
+    assert hot_failure.get("type") == "SafetyLimitError"
+    assert "rf source setting" in hot_failure.text
+
+
+def test_check_safety_exit_code(app, tmp_path: Path) -> None:
+    hot = tmp_path / "hot.toml"
+    hot.write_text(HOT, encoding="utf-8")
+    result = run(app, "check", hot)
+    assert result.exit_code == 3
+    assert "above the limit 15 dBm" in result.output and "Caution" in result.output
+
+
+def test_check_bad_bench(app, tmp_path: Path) -> None:
+    bench = tmp_path / "bench.toml"
+    bench.write_bytes(b"[bench]\nname = \"x\xff\"\n")
+    result = run(app, "check", QUICK, "--bench", bench)
+    assert result.exit_code == 2
+    assert "not valid UTF-8" in result.output
+
+
+def test_check_missing_file(app, tmp_path: Path) -> None:
+    result = run(app, "check", tmp_path / "none.toml")
+    assert result.exit_code == 2
+    assert "does not exist" in result.output
+
+
+def test_plan_table(app) -> None:
+    result = run(app, "plan", QUICK, "--sim")
+    assert result.exit_code == 0, result.output
+    out = result.output
+    assert "5 points" in out
+    assert "two-tone" in out and "gain" in out
+    assert "analyzer input (IF port)" in out and "≤ 20 dBm" in out
+    assert "total" in out
+
+
+def test_plan_refusal(app, tmp_path: Path) -> None:
+    hot = tmp_path / "hot.toml"
+    hot.write_text(HOT, encoding="utf-8")
+    result = run(app, "plan", hot, "--bench", SIM_BENCH)
+    assert result.exit_code == 3
+    assert "OVER LIMIT" in result.output
+    assert "rf source setting would be 17.00 dBm" in result.output
+
+
+def test_plan_bench_and_sim_conflict(app) -> None:
+    result = run(app, "plan", QUICK, "--sim", "--bench", SIM_BENCH)
+    assert result.exit_code == 2
+    assert "both given" in result.output
+
+
+def test_plan_too_many_points(app) -> None:
+    result = run(app, "plan", QUICK, "--max-points", "3")
+    assert result.exit_code == 2
+    assert "5 points, above the maximum of 3" in result.output
+
+
+@pytest.mark.parametrize("which", ["sequence", "bench"])
+def test_schema(app, which: str) -> None:
+    result = run(app, "schema", which)
+    assert result.exit_code == 0
+    schema = json.loads(result.stdout)
+    assert schema["title"] == f"sweeprig {which} file"
+
+
+def test_schema_bad_name(app) -> None:
+    result = run(app, "schema", "part")
+    assert result.exit_code == 2
+
+
+@pytest.mark.parametrize("command", ["check", "plan", "schema"])
+def test_help_has_an_example(app, command: str) -> None:
+    result = run(app, command, "--help")
+    assert result.exit_code == 0
+    assert "Example:" in result.output and f"sweeprig {command}" in result.output

@@ -1,0 +1,159 @@
+"""End-to-end runs of the engine against the simulated bench over real pyvisa/TCP:
+every point stored once, readings intact, pre-flight refusals touch nothing, and the bench
+is left safe (RF off, supply off) after a normal end, an instrument error, and SIGINT or
+SIGTERM sent to a running ``sweeprig`` process."""
+
+from __future__ import annotations
+
+import signal
+import sqlite3
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import pytest
+
+from sweeprig.clock import VirtualClock
+from sweeprig.engine.session import run_sequence, served_bench_text, shipped_sequences_dir
+from sweeprig.errors import SafetyLimitError
+from sweeprig.formats.sequence import load_sequence
+from sweeprig.plan.expand import count_points, iter_points
+from sweeprig.sim.bench import resolve_description, start_sim_bench
+from sweeprig.sim.faults import FaultSpec
+from sweeprig.store.sqlite import SqliteRunStore
+
+SEQUENCES = shipped_sequences_dir()
+
+
+def bench_file_for(sim, folder: Path) -> Path:
+    path = folder / "bench.toml"
+    path.write_text(served_bench_text(sim.resources), encoding="utf-8")
+    return path
+
+QUICK = SEQUENCES / "demo" / "quick.toml"
+SLOW = Path(__file__).parent / "data" / "slow.toml"
+
+
+def _assert_bench_safe(sim) -> None:
+    for role in ("rf", "rf2", "lo"):
+        assert sim.instruments[role].output_on is False, f"{role} RF still on"
+    assert sim.instruments["dc"].output_on is False, "supply still on"
+
+
+def test_quick_sequence_on_the_simulated_bench_stores_every_point_once(tmp_path):
+    store_path = tmp_path / "runs.sqlite"
+    outcome = run_sequence(QUICK, sim=True, store_path=store_path)
+    assert outcome.status == "complete", outcome.reason
+    sequence = load_sequence(QUICK)
+    total = count_points(sequence)
+    assert outcome.points_done == total
+    store = SqliteRunStore(store_path)
+    try:
+        points = store.points_frame(outcome.run_id)
+        readings = store.readings_frame(outcome.run_id)
+        info = store.run(outcome.run_id)
+    finally:
+        store.close()
+    assert sorted(points["point_index"]) == list(range(total))
+    planned = {p.index: [r.name for r in p.readings] for p in iter_points(sequence)}
+    for index, names in planned.items():
+        got = readings[readings["point_index"] == index]["name"].tolist()
+        assert got == names
+    analyzer = readings[readings["port"].isin(["if", "rf", "lo"])]
+    assert analyzer["level_dbm"].notna().all()
+    assert info.status == "complete"
+    assert {i.role for i in info.instruments} >= {"rf", "lo", "sa", "dc", "chamber"}
+    assert all("Tarnwick" in i.idn or "Kelderhall" in i.idn for i in info.instruments)
+    assert outcome.safe is not None and outcome.safe.ok
+    assert outcome.sim_elapsed_s > 60.0  # the chamber soak passed in simulated time only
+    assert outcome.wall_elapsed_s < 60.0
+
+
+def test_run_on_a_served_bench_leaves_rf_and_supply_off(tmp_path, sim_bench):
+    bench = bench_file_for(sim_bench, tmp_path)
+    outcome = run_sequence(QUICK, bench, store_path=tmp_path / "s.sqlite")
+    assert outcome.status == "complete", outcome.reason
+    _assert_bench_safe(sim_bench)
+
+
+def test_preflight_refusal_touches_no_instrument_and_records_no_run(tmp_path, sim_bench):
+    hot = tmp_path / "hot.toml"
+    hot.write_text(QUICK.read_text(encoding="utf-8").replace('rf_power = "-20 dBm"',
+                                                             'rf_power = "14 dBm"'))
+    bench = bench_file_for(sim_bench, tmp_path)
+    store_path = tmp_path / "s.sqlite"
+    before = {role: inst.settings() for role, inst in sim_bench.instruments.items()}
+    with pytest.raises(SafetyLimitError) as err:
+        run_sequence(hot, bench, store_path=store_path)
+    assert "point" in str(err.value)
+    after = {role: inst.settings() for role, inst in sim_bench.instruments.items()}
+    assert after == before
+    if store_path.exists():
+        with sqlite3.connect(store_path) as db:
+            assert db.execute("SELECT COUNT(*) FROM runs").fetchone()[0] == 0
+
+
+def test_instrument_error_aborts_the_run_and_leaves_the_bench_safe(tmp_path):
+    fault = FaultSpec(role="sa", kind="error", at_command=60, code=-222,
+                      text="Data out of range")
+    description = resolve_description(None).model_copy(update={"faults": (fault,)})
+    with start_sim_bench(description, clock=VirtualClock()) as sim:
+        bench = bench_file_for(sim, tmp_path)
+        outcome = run_sequence(QUICK, bench, store_path=tmp_path / "s.sqlite")
+        assert outcome.status == "aborted"
+        assert "'sa'" in (outcome.reason or "") and "-222" in (outcome.reason or "")
+        _assert_bench_safe(sim)
+        assert outcome.safe is not None and outcome.safe.ok
+    store = SqliteRunStore(tmp_path / "s.sqlite")
+    try:
+        assert store.run(outcome.run_id).status == "aborted"
+    finally:
+        store.close()
+
+
+@pytest.mark.parametrize("sig", [signal.SIGINT, signal.SIGTERM])
+def test_signal_to_a_running_process_leaves_rf_off(tmp_path, sim_bench, sig):
+    bench = bench_file_for(sim_bench, tmp_path)
+    store_path = tmp_path / "s.sqlite"
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "sweeprig", "run", str(SLOW), "--bench", str(bench),
+         "--store", str(store_path), "--quiet"],
+        stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+    )
+    try:
+        deadline = time.monotonic() + 60
+        while time.monotonic() < deadline:
+            if any(sim_bench.instruments[r].output_on for r in ("rf", "lo")) and \
+                    _points_stored(store_path) >= 2:
+                break
+            assert proc.poll() is None, proc.communicate()
+            time.sleep(0.05)
+        else:
+            pytest.fail("the run never got going")
+        proc.send_signal(sig)
+        out, err = proc.communicate(timeout=60)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+    assert proc.returncode != 0
+    assert "Traceback" not in err
+    assert "aborted" in out
+    _assert_bench_safe(sim_bench)
+    store = SqliteRunStore(store_path)
+    try:
+        run = store.runs()[0]
+        assert run.status == "aborted"
+        assert signal.Signals(sig).name in (store.run(run.id).reason or "")
+    finally:
+        store.close()
+
+
+def _points_stored(store_path: Path) -> int:
+    if not store_path.exists():
+        return 0
+    try:
+        with sqlite3.connect(store_path, timeout=1) as db:
+            return db.execute("SELECT COUNT(*) FROM points").fetchone()[0]
+    except sqlite3.Error:
+        return 0

@@ -1,0 +1,227 @@
+"""The analyzer display model: filter shape, noise floor, first-mixer distortion, flags."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from scipy.integrate import quad
+
+from sweeprig.sim.analyzer_display import (
+    GAUSSIAN_ENBW_PER_RBW,
+    AnalyzerParams,
+    InputSpectrum,
+    SweepSettings,
+    danl_dbm,
+    first_mixer_lines,
+    simulate_sweep,
+    sweep_time_s,
+    total_sweep_time_s,
+)
+
+PARAMS = AnalyzerParams(noise_figure_db=14.0, toi_dbm=15.0, shi_dbm=45.0, p1db_dbm=3.0)
+
+
+def _rng(seed: int = 7) -> np.random.Generator:
+    return np.random.default_rng(seed)
+
+
+def _kt0_dbm_per_hz() -> float:
+    # Boltzmann constant exact since 2019 (CODATA); T0 = 290 K (IEEE noise figure definition)
+    return 10.0 * math.log10(1.380649e-23 * 290.0 / 1e-3)
+
+
+def test_tone_reads_its_level_and_filter_is_minus_3db_at_half_rbw() -> None:
+    settings = SweepSettings.centered(70e6, 200e3, rbw_hz=10e3, vbw_hz=10e3, attenuation_db=10.0)
+    result = simulate_sweep(InputSpectrum(((70e6, -20.0),)), settings, PARAMS, _rng())
+    assert result.level_at(70e6) == pytest.approx(-20.0, abs=0.01)
+    # Gaussian RBW filter, -3 dB at ±RBW/2 (definition of the 3 dB bandwidth)
+    assert result.level_at(70e6 + 5e3) == pytest.approx(-20.0 - 10 * math.log10(2), abs=0.01)
+    assert result.level_at(70e6 - 5e3) == pytest.approx(-20.0 - 10 * math.log10(2), abs=0.01)
+
+
+def test_peak_is_refined_between_trace_points() -> None:
+    # 101 points over 1 MHz: 10 kHz per point; the tone sits 3.7 kHz off a point
+    settings = SweepSettings.centered(
+        100e6, 1e6, points=101, rbw_hz=30e3, vbw_hz=30e3, attenuation_db=10.0
+    )
+    result = simulate_sweep(InputSpectrum(((100.0037e6, -30.0),)), settings, PARAMS, _rng())
+    freq, level = result.peak()
+    assert freq == pytest.approx(100.0037e6, abs=50.0)
+    assert level == pytest.approx(-30.0, abs=0.01)
+
+
+@pytest.mark.parametrize(("rbw_hz", "att_db"), [(1e3, 0.0), (10e3, 10.0), (1e6, 20.0)])
+def test_averaged_noise_floor_follows_ktb_plus_nf_plus_attenuation(
+    rbw_hz: float, att_db: float
+) -> None:
+    settings = SweepSettings.centered(
+        1e9, 100 * rbw_hz, rbw_hz=rbw_hz, vbw_hz=rbw_hz, attenuation_db=att_db, averages=16
+    )
+    result = simulate_sweep(InputSpectrum(), settings, PARAMS, _rng())
+    # Pozar, noise chapter: kTB = -174 dBm/Hz + 10·log10(B); IEEE NF at T0 = 290 K
+    expected = -174.0 + 10.0 * math.log10(rbw_hz) + 14.0 + att_db
+    assert float(np.mean(result.trace_dbm)) == pytest.approx(expected, abs=0.5)
+    assert danl_dbm(settings, PARAMS) == pytest.approx(expected, abs=0.05)
+
+
+def test_danl_scales_with_rbw() -> None:
+    narrow = SweepSettings(1e9, 1.001e9, rbw_hz=1e3, vbw_hz=1e3)
+    wide = SweepSettings(1e9, 1.001e9, rbw_hz=100e3, vbw_hz=100e3)
+    # DANL scales 10·log10(RBW2/RBW1) (follows from kTB; Pozar)
+    assert danl_dbm(wide, PARAMS) - danl_dbm(narrow, PARAMS) == pytest.approx(20.0, abs=1e-9)
+
+
+def test_single_sweep_noise_spread_and_averaging() -> None:
+    single = SweepSettings(1e9, 1.01e9, points=10001, rbw_hz=1e3, vbw_hz=1e3)
+    spread_1 = float(np.std(simulate_sweep(InputSpectrum(), single, PARAMS, _rng()).trace_dbm))
+    # log-detected Rayleigh noise: std of 10·log10(Exp(1)) = (10/ln10)·pi/sqrt(6) = 5.57 dB
+    # (derived from the log of an exponential variate)
+    assert spread_1 == pytest.approx(10 / math.log(10) * math.pi / math.sqrt(6), abs=0.3)
+    averaged = SweepSettings(1e9, 1.01e9, points=10001, rbw_hz=1e3, vbw_hz=1e3, averages=16)
+    spread_16 = float(np.std(simulate_sweep(InputSpectrum(), averaged, PARAMS, _rng()).trace_dbm))
+    assert spread_16 == pytest.approx(spread_1 / 4.0, rel=0.15)
+    many = SweepSettings(1e9, 1.01e9, points=10001, rbw_hz=1e3, vbw_hz=1e3, averages=400)
+    spread_400 = float(np.std(simulate_sweep(InputSpectrum(), many, PARAMS, _rng()).trace_dbm))
+    assert spread_400 == pytest.approx(spread_1 / 20.0, rel=0.15)
+
+
+def test_input_noise_density_adds_over_the_noise_bandwidth() -> None:
+    rbw_hz = 10e3
+    settings = SweepSettings.centered(
+        70e6, 1e6, rbw_hz=rbw_hz, vbw_hz=rbw_hz, attenuation_db=0.0, averages=32
+    )
+    # -120 dBm/Hz over ENBW = sqrt(pi/(4 ln2))·RBW (Gaussian, derived) is far above the DANL
+    result = simulate_sweep(InputSpectrum((), -120.0), settings, PARAMS, _rng())
+    enbw = GAUSSIAN_ENBW_PER_RBW * rbw_hz
+    # ENBW of the power response 2^-(2·df/RBW)², integrated numerically (definition of ENBW)
+    integral, _ = quad(lambda x: 2.0 ** (-((2.0 * x) ** 2)), -np.inf, np.inf)
+    assert math.isclose(GAUSSIAN_ENBW_PER_RBW, integral, rel_tol=1e-9)
+    own = danl_dbm(settings, PARAMS)
+    expected = 10 * math.log10(10 ** ((-120 + 10 * math.log10(enbw)) / 10) + 10 ** (own / 10))
+    assert float(np.mean(result.trace_dbm)) == pytest.approx(expected, abs=0.3)
+
+
+def test_input_noise_density_may_depend_on_frequency() -> None:
+    def density(freqs_hz: np.ndarray) -> np.ndarray:
+        return np.where(np.abs(freqs_hz - 70e6) < 10e6, -130.0, -200.0)
+
+    settings = SweepSettings(50e6, 90e6, rbw_hz=100e3, vbw_hz=100e3, attenuation_db=0.0)
+    result = simulate_sweep(InputSpectrum((), density), settings, PARAMS, _rng())
+    inside = result.level_at(70e6)
+    outside = result.level_at(52e6)
+    assert inside - outside > 20.0
+
+
+def _two_tone(att_db: float, dut_im3_dbm: float | None) -> tuple[float, float]:
+    """Displayed IM3 at 2f1-f2 and the tone at f1 for two -5 dBm tones (70, 71 MHz)."""
+    lines = [(70e6, -5.0), (71e6, -5.0)]
+    if dut_im3_dbm is not None:
+        lines.append((69e6, dut_im3_dbm))
+    settings = SweepSettings(
+        68e6, 73e6, rbw_hz=1e3, vbw_hz=1e3, attenuation_db=att_db, averages=64
+    )
+    result = simulate_sweep(InputSpectrum(tuple(lines)), settings, PARAMS, _rng())
+    return result.level_at(69e6), result.level_at(70e6)
+
+
+def test_analyzer_made_im3_drops_20db_with_10db_more_attenuation() -> None:
+    # At the mixer: P_IM3 = 2·P1 + P2 - 2·TOI (Razavi, intercept law); referred to the input by
+    # adding the attenuation. -5 dBm tones, 10 dB att: 3·(-15) - 30 + 10 = -65 dBm.
+    im3_10, tone_10 = _two_tone(10.0, None)
+    im3_20, tone_20 = _two_tone(20.0, None)
+    assert im3_10 == pytest.approx(3 * (-15.0) - 2 * 15.0 + 10.0, abs=0.2)
+    # common practice, no source: an analyzer-made 3rd-order product drops ~20 dB per +10 dB
+    assert im3_10 - im3_20 == pytest.approx(20.0, abs=0.5)
+    assert tone_10 == pytest.approx(tone_20, abs=0.05)
+
+
+def test_dut_im3_keeps_its_level_with_more_attenuation() -> None:
+    # A DUT product 30 dB above the analyzer's own (-65 dBm) keeps its displayed level
+    # (common practice, no source)
+    im3_10, _ = _two_tone(10.0, -35.0)
+    im3_20, _ = _two_tone(20.0, -35.0)
+    assert im3_10 == pytest.approx(-35.0, abs=0.1)
+    assert im3_20 == pytest.approx(-35.0, abs=0.1)
+
+
+def test_analyzer_made_second_order_products_drop_10db() -> None:
+    lines = (((100e6, -10.0), (130e6, -10.0)))
+
+    def displayed(att_db: float) -> tuple[float, float]:
+        settings = SweepSettings(20e6, 300e6, points=2001, rbw_hz=100e3, vbw_hz=100e3,
+                                 attenuation_db=att_db, averages=64)
+        result = simulate_sweep(InputSpectrum(lines), settings, PARAMS, _rng())
+        return result.level_at(230e6), result.level_at(200e6)
+
+    im2_0, h2_0 = displayed(0.0)
+    im2_10, h2_10 = displayed(10.0)
+    # P_H2 = 2·P - SHI at the mixer; f1+f2 sits 20·log10(2) above it for equal tones (derived
+    # from the square-law expansion)
+    assert h2_0 == pytest.approx(2 * (-10.0) - 45.0, abs=0.3)
+    assert im2_0 == pytest.approx(2 * (-10.0) - 45.0 + 6.02, abs=0.3)
+    # common practice, no source: 2nd order drops ~10 dB per +10 dB attenuation
+    assert im2_0 - im2_10 == pytest.approx(10.0, abs=0.5)
+    assert h2_0 - h2_10 == pytest.approx(10.0, abs=0.5)
+
+
+def test_first_mixer_compresses_by_1db_at_p1db() -> None:
+    settings = SweepSettings(69e6, 71e6, rbw_hz=10e3, vbw_hz=10e3, attenuation_db=10.0)
+    lines, mixer_dbm = first_mixer_lines([(70e6, 13.0)], settings, PARAMS)
+    assert mixer_dbm == pytest.approx(3.0)
+    assert lines[0] == (70e6, pytest.approx(12.0, abs=1e-9))
+    small, _ = first_mixer_lines([(70e6, -30.0)], settings, PARAMS)
+    assert small[0][1] == pytest.approx(-30.0, abs=0.01)
+
+
+def test_overload_and_uncalibrated_flags() -> None:
+    settings = SweepSettings(
+        69e6, 71e6, rbw_hz=10e3, vbw_hz=10e3, attenuation_db=10.0, ref_level_dbm=0.0
+    )
+    quiet = simulate_sweep(InputSpectrum(((70e6, -20.0),)), settings, PARAMS, _rng())
+    assert not quiet.overload and not quiet.uncalibrated
+    hot = simulate_sweep(InputSpectrum(((70e6, 15.0),)), settings, PARAMS, _rng())
+    assert hot.overload and hot.uncalibrated
+    assert hot.mixer_level_dbm == pytest.approx(5.0)
+    above_ref = SweepSettings(
+        69e6, 71e6, rbw_hz=10e3, vbw_hz=10e3, attenuation_db=10.0, ref_level_dbm=-30.0
+    )
+    uncal = simulate_sweep(InputSpectrum(((70e6, -20.0),)), above_ref, PARAMS, _rng())
+    assert uncal.uncalibrated and not uncal.overload
+
+
+def test_sweep_time() -> None:
+    # common practice, no source: sweep time ≈ k·span/RBW², k ≈ 2-3 (here 2.5)
+    settings = SweepSettings(1e9, 1.1e9, rbw_hz=10e3, vbw_hz=10e3, averages=4)
+    assert sweep_time_s(settings) == pytest.approx(2.5 * 100e6 / 10e3**2)
+    assert total_sweep_time_s(settings) == pytest.approx(4 * 2.5)
+    assert sweep_time_s(SweepSettings(1e9, 1.001e9, rbw_hz=1e6, vbw_hz=1e6)) == 1e-3
+    zero_span = SweepSettings(1e9, 1e9, points=5001)
+    assert sweep_time_s(zero_span) == pytest.approx(5001e-6)
+    slow_video = SweepSettings(1e9, 1.1e9, rbw_hz=10e3, vbw_hz=1e3)
+    assert sweep_time_s(slow_video) == pytest.approx(10 * 2.5)
+
+
+def test_zero_span_reads_the_centre_line() -> None:
+    settings = SweepSettings(70e6, 70e6, points=201, rbw_hz=10e3, vbw_hz=10e3, averages=1)
+    result = simulate_sweep(InputSpectrum(((70e6, -40.0),)), settings, PARAMS, _rng())
+    assert float(np.median(result.trace_dbm)) == pytest.approx(-40.0, abs=0.01)
+    assert result.level_at(1.0) == pytest.approx(-40.0, abs=0.01)
+
+
+def test_same_seed_same_trace() -> None:
+    settings = SweepSettings(1e9, 1.01e9, rbw_hz=10e3, vbw_hz=10e3)
+    spectrum = InputSpectrum(((1.005e9, -50.0),), -150.0)
+    a = simulate_sweep(spectrum, settings, PARAMS, _rng(3)).trace_dbm
+    b = simulate_sweep(spectrum, settings, PARAMS, _rng(3)).trace_dbm
+    c = simulate_sweep(spectrum, settings, PARAMS, _rng(4)).trace_dbm
+    np.testing.assert_array_equal(a, b)
+    assert not np.array_equal(a, c)
+
+
+def test_amplitude_error_shifts_everything() -> None:
+    params = AnalyzerParams(amplitude_error_db=0.7)
+    settings = SweepSettings(69e6, 71e6, rbw_hz=10e3, vbw_hz=10e3, attenuation_db=10.0)
+    result = simulate_sweep(InputSpectrum(((70e6, -20.0),)), settings, params, _rng())
+    assert result.level_at(70e6) == pytest.approx(-19.3, abs=0.01)

@@ -1,0 +1,224 @@
+"""The SQLite run store: WAL, atomic points, concurrent readers, interrupted runs."""
+
+from __future__ import annotations
+
+import sqlite3
+import subprocess
+import sys
+from datetime import UTC, datetime, timedelta
+
+import pandas as pd
+import pytest
+
+from sweeprig.errors import StoreError
+from sweeprig.store import (
+    DEFAULT_STORE_PATH,
+    BusRecord,
+    InstrumentRecord,
+    PointRecord,
+    ReadingRecord,
+    RunStore,
+    SqliteRunStore,
+)
+
+SEQUENCE = 'title = "demo"\n[[study]]\nkind = "gain"\n'
+
+
+def _point(index: int, **kw) -> PointRecord:
+    return PointRecord(index, "gain", rf_freq_hz=2.4e9 + index * 1e6, rf_power_dbm=-20.0,
+                       lo_freq_hz=2.33e9, lo_power_dbm=7.0, temperature_c=25.0, supply_v=5.0,
+                       wall_start=datetime.now(UTC), wall_end=datetime.now(UTC),
+                       sim_start_s=index, sim_end_s=index + 0.5, **kw)
+
+
+def _readings(index: int) -> list[ReadingRecord]:
+    return [
+        ReadingRecord("if", "marker", "if", 70e6, -27.5 + index, -95.0, 1, 1, 1e6, 10e3, 10.0,
+                      0.0, 4, overload=False, attenuation_check=True),
+        ReadingRecord("lo_leak_if", "marker", "if", 2.33e9, -40.0, None, 1, 0),
+    ]
+
+
+@pytest.fixture
+def store(tmp_path):
+    db = SqliteRunStore(tmp_path / "results" / "runs.sqlite")
+    yield db
+    db.close()
+
+
+def _run(store: SqliteRunStore, **kw) -> int:
+    return store.create_run(sequence_path="sequences/demo.toml", sequence_text=SEQUENCE,
+                            bench_path="benches/sim.toml", bench_text="[bench]\n",
+                            simulated=True, part="MX-100", serial="S-001", tags=("night",),
+                            points_total=5, **kw)
+
+
+def test_default_path_constant():
+    assert DEFAULT_STORE_PATH.as_posix() == "results/sweeprig.sqlite"
+
+
+def test_protocol_and_pragmas(store):
+    assert isinstance(store, RunStore)
+    assert store.journal_mode == "wal"
+    conn = sqlite3.connect(store.path)
+    assert conn.execute("PRAGMA journal_mode").fetchone()[0] == "wal"
+    conn.close()
+
+
+def test_run_round_trip(store):
+    run_id = _run(store)
+    store.record_instruments(run_id, [InstrumentRecord("sa", "TCPIP0::127.0.0.1::1::SOCKET",
+                                                       "scpi-analyzer", "Tarnwick Labs,TW-SA13")])
+    store.record_instruments(run_id, [InstrumentRecord("sa", "TCPIP0::127.0.0.1::2::SOCKET",
+                                                       "scpi-analyzer", "Tarnwick Labs,TW-SA13")])
+    info = store.run(run_id)
+    assert info.sequence_text == SEQUENCE
+    assert len(info.sequence_sha256) == 64
+    assert info.bench_text == "[bench]\n"
+    assert info.tags == ("night",) and info.simulated and info.part == "MX-100"
+    assert info.status == "planned"
+    assert [i.resource for i in info.instruments] == ["TCPIP0::127.0.0.1::2::SOCKET"]
+
+
+def test_every_point_once_and_frames(store):
+    run_id = _run(store)
+    store.set_status(run_id, "running")
+    for index in range(5):
+        store.write_point(run_id, _point(index), _readings(index))
+    assert store.done_point_indices(run_id) == set(range(5))
+    with pytest.raises(StoreError, match="already stored"):
+        store.write_point(run_id, _point(3), _readings(3))
+    points = store.points_frame(run_id)
+    assert list(points["point_index"]) == [0, 1, 2, 3, 4]
+    assert points["rf_freq_hz"].iloc[1] == 2.401e9
+    assert points["rf2_freq_hz"].isna().all()
+    readings = store.readings_frame(run_id)
+    assert len(readings) == 10
+    assert readings["m"].dtype == "Int64"
+    assert bool(readings["attenuation_check"].iloc[0]) is True
+    assert pd.isna(readings["attenuation_check"].iloc[1])
+    summary = store.runs()[0]
+    assert (summary.points_done, summary.points_total) == (5, 5)
+    store.set_status(run_id, "complete")
+    info = store.run(run_id)
+    assert info.status == "complete" and info.finished is not None
+
+
+def test_crash_mid_point_leaves_nothing(store):
+    run_id = _run(store)
+    store.write_point(run_id, _point(0), _readings(0))
+    bad = [*_readings(1), ReadingRecord("spur", "marker", level_dbm=object())]  # type: ignore[arg-type]
+    with pytest.raises(StoreError):
+        store.write_point(run_id, _point(1), bad)
+    assert store.done_point_indices(run_id) == {0}
+    assert len(store.readings_frame(run_id)) == 2
+
+
+def test_failure_inside_the_transaction_rolls_back(store, monkeypatch):
+    run_id = _run(store)
+    store.write_point(run_id, _point(0), _readings(0))
+    conn = store._conn
+
+    class FailsOnReadings:
+        """The point row goes in, then writing the readings fails (a crash mid-point)."""
+
+        def __getattr__(self, name):
+            return getattr(conn, name)
+
+        def executemany(self, *args):
+            raise sqlite3.OperationalError("disk I/O error (simulated)")
+
+    monkeypatch.setattr(store, "_conn", FailsOnReadings())
+    with pytest.raises(StoreError, match="disk I/O"):
+        store.write_point(run_id, _point(1), _readings(1))
+    monkeypatch.setattr(store, "_conn", conn)
+    assert store.done_point_indices(run_id) == {0}
+    assert len(store.readings_frame(run_id)) == 2
+
+
+def test_reader_sees_committed_points_while_writer_open(store):
+    run_id = _run(store)
+    reader = SqliteRunStore(store.path, create=False)
+    try:
+        assert reader.done_point_indices(run_id) == set()
+        store.write_point(run_id, _point(0), _readings(0))
+        assert reader.done_point_indices(run_id) == {0}
+        store.write_point(run_id, _point(1), _readings(1))
+        assert len(reader.readings_frame(run_id)) == 4
+    finally:
+        reader.close()
+
+
+def _dead_pid() -> int:
+    proc = subprocess.Popen([sys.executable, "-c", "pass"])
+    proc.wait()
+    return proc.pid
+
+
+def test_interrupted_detection(store):
+    run_id = _run(store)
+    store.set_status(run_id, "running")
+    assert store.run(run_id).status == "running"
+    conn = sqlite3.connect(store.path)
+    with conn:
+        conn.execute("UPDATE runs SET pid = ? WHERE id = ?", (_dead_pid(), run_id))
+    info = store.run(run_id)
+    assert (info.status, info.stored_status) == ("interrupted", "running")
+
+    other = _run(store)
+    store.set_status(other, "running")
+    old = (datetime.now(UTC) - timedelta(hours=1)).isoformat()
+    with conn:
+        conn.execute("UPDATE runs SET heartbeat_utc = ?, host = 'elsewhere' WHERE id = ?",
+                     (old, other))
+    assert store.run(other).status == "interrupted"
+    store.heartbeat(other)
+    assert store.run(other).status == "running"
+    conn.close()
+
+
+def test_events_and_bus_log(store):
+    run_id = _run(store)
+    store.log_event(run_id, "warning", "retry", "sa timed out; reconnected",
+                    {"attempt": 2, "role": "sa"}, point_index=3)
+    store.log_event(run_id, "info", "skip", "point skipped")
+    events = store.events(run_id)
+    assert [e.kind for e in events] == ["retry", "skip"]
+    assert events[0].details == {"attempt": 2, "role": "sa"} and events[0].point_index == 3
+    now = datetime.now(UTC)
+    store.log_bus(run_id, [BusRecord(now, "sa", "*IDN?", "Tarnwick Labs,TW-SA13", 0.001),
+                           BusRecord(now, "sa", "INIT:IMM", None, 0.0005)])
+    log = store.bus_log(run_id)
+    assert [b.sent for b in log] == ["*IDN?", "INIT:IMM"]
+    assert [b.sent for b in store.bus_log(run_id, limit=1)] == ["INIT:IMM"]
+    with pytest.raises(StoreError):
+        store.log_event(run_id, "loud", "x", "y")  # type: ignore[arg-type]
+
+
+def test_bad_status_and_unknown_run(store):
+    run_id = _run(store)
+    with pytest.raises(StoreError):
+        store.set_status(run_id, "finished")  # type: ignore[arg-type]
+    with pytest.raises(StoreError, match="no run 99"):
+        store.run(99)
+    with pytest.raises(StoreError, match="no run 99"):
+        store.write_point(99, _point(0), [])
+
+
+def test_open_errors(tmp_path):
+    with pytest.raises(StoreError, match="no run store here"):
+        SqliteRunStore(tmp_path / "missing.sqlite", create=False)
+    with pytest.raises(StoreError, match="folder"):
+        SqliteRunStore(tmp_path)
+    junk = tmp_path / "junk.sqlite"
+    junk.write_bytes(b"this is not a database at all" * 100)
+    with pytest.raises(StoreError) as err:
+        SqliteRunStore(junk)
+    assert str(junk) in str(err.value) and "fix:" in str(err.value)
+    other = tmp_path / "other.sqlite"
+    conn = sqlite3.connect(other)
+    conn.execute("CREATE TABLE t (x INTEGER)")
+    conn.commit()
+    conn.close()
+    with pytest.raises(StoreError, match="not a sweeprig run store"):
+        SqliteRunStore(other)

@@ -1,0 +1,116 @@
+"""VisaTransport through pyvisa-py against a real socket server on loopback."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from sweeprig.errors import TransportError
+from sweeprig.transport import blocks
+from sweeprig.transport.base import Transaction, Transport
+from sweeprig.transport.visa import VisaTransport
+
+TRACE = np.array([-10.0, -80.5, 1.25, 0.0], dtype=">f4")
+
+
+def _instrument(cmd: str) -> bytes | str | None:
+    if cmd == "*IDN?":
+        return "Tarnwick Labs,TW-XX1,0042,1.0"
+    if cmd == "FREQ?":
+        return "+2.40000000E+09"
+    if cmd == "TRAC?":
+        return blocks.encode_real32_block(TRACE)
+    if cmd == "NEWLINES?":
+        # payload bytes include 0x0A: the reader must not stop there
+        return blocks.encode_block(b"\x0a\x0a\x0a\x0a" + TRACE.tobytes()[4:] + b"\x0a\x00\x00\x00")
+    if cmd == "DROP?":
+        return ...
+    if cmd.endswith("?"):
+        return None  # never answers: a timeout
+    return None
+
+
+def test_write_query_and_hook(loopback):
+    server = loopback(_instrument)
+    seen: list[Transaction] = []
+    with VisaTransport(server.resource, timeout_s=2.0, on_transaction=seen.append) as t:
+        assert isinstance(t, Transport)
+        t.write("FREQ 2.4 GHz")
+        assert t.query("*IDN?") == "Tarnwick Labs,TW-XX1,0042,1.0"
+        assert blocks.parse_float(t.query("FREQ?")) == 2.4e9
+    assert [x.sent for x in seen] == ["FREQ 2.4 GHz", "*IDN?", "FREQ?"]
+    assert seen[0].received is None and seen[1].received.startswith("Tarnwick")
+    assert all(x.resource == server.resource and x.duration_s >= 0 for x in seen)
+    assert server.received[:3] == ["FREQ 2.4 GHz", "*IDN?", "FREQ?"]
+
+
+def test_binary_block(loopback):
+    server = loopback(_instrument)
+    with VisaTransport(server.resource, timeout_s=2.0) as t:
+        np.testing.assert_array_equal(t.query_binary_floats("TRAC?"), TRACE.astype(float))
+        values = t.query_binary_floats("NEWLINES?")
+        assert values.size == 5
+        # the stream stays in step after a block with newlines inside
+        assert t.query("*IDN?").startswith("Tarnwick")
+
+
+def test_timeout_is_transport_error_naming_resource_and_command(loopback):
+    server = loopback(_instrument)
+    with VisaTransport(server.resource, timeout_s=0.2) as t, pytest.raises(TransportError) as err:
+        t.query("SILENT?")
+    message = str(err.value)
+    assert server.resource in message and "SILENT?" in message and "timeout" in message
+
+
+def test_per_query_timeout(loopback):
+    server = loopback(_instrument)
+    with VisaTransport(server.resource, timeout_s=5.0) as t, pytest.raises(TransportError):
+        t.query("SILENT?", timeout_s=0.1)
+
+
+def test_dropped_connection_then_reconnect(loopback):
+    server = loopback(_instrument)
+    with VisaTransport(server.resource, timeout_s=0.5) as t:
+        with pytest.raises(TransportError) as err:
+            t.query("DROP?")
+        assert "DROP?" in str(err.value)
+        t.reconnect()
+        assert t.query("*IDN?").startswith("Tarnwick")
+
+
+def test_open_refused():
+    # a port nobody listens on: bind one, note it, close it
+    import socket
+
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        port = s.getsockname()[1]
+    resource = f"TCPIP0::127.0.0.1::{port}::SOCKET"
+    # pyvisa-py may connect lazily: the error comes at opening or at the first exchange
+    with pytest.raises(TransportError) as err:
+        transport = VisaTransport(resource, timeout_s=0.5)
+        try:
+            transport.query("*IDN?")
+        finally:
+            transport.close()
+    assert resource in str(err.value) and "fix:" in str(err.value)
+
+
+def test_closed_transport_refuses(loopback):
+    server = loopback(_instrument)
+    t = VisaTransport(server.resource, timeout_s=1.0)
+    t.close()
+    t.close()  # idempotent
+    with pytest.raises(TransportError):
+        t.write("*CLS")
+
+
+@pytest.mark.parametrize("resource", ["", "   "])
+def test_bad_resource_string(resource):
+    with pytest.raises(TransportError):
+        VisaTransport(resource)
+
+
+def test_garbage_resource_string():
+    with pytest.raises(TransportError):
+        VisaTransport("NOT-A-RESOURCE", timeout_s=0.5)
