@@ -281,6 +281,8 @@ def _describe(model: type[BaseModel], err: Any, loc: KeyPath) -> tuple[str, str]
         listing = ", ".join(sorted(allowed)) if allowed else "none"
         return f"unknown key {key!r}", f"keys allowed here: {listing}"
     if kind == "missing":
+        if key in ("study", "spec"):
+            return f"missing required key {key!r}", f"add at least one [[{key}]] table"
         return f"missing required key {key!r}", f"add {key} = ... (see docs/sequence-format.md)"
     if kind == "literal_error":
         expected = ctx.get("expected", "")

@@ -25,7 +25,7 @@ def _allow_auto_analyzer(node: Any) -> None:
     """``analyzer = "auto"`` is accepted wherever an analyzer table is."""
     if isinstance(node, dict):
         props = node.get("properties")
-        if isinstance(props, dict) and "analyzer" in props and "mixer_level" not in props:
+        if isinstance(props, dict) and "AnalyzerSettings" in json.dumps(props.get("analyzer")):
             original = props["analyzer"]
             props["analyzer"] = {
                 "anyOf": [{k: v for k, v in original.items() if k not in ("description",)},

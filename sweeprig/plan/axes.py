@@ -89,5 +89,5 @@ def axis_from_spec(name: str, spec: AxisValue) -> Axis:
         shape = "log" if spec.scale == "log" else "linear"
         return Axis(name, shape, spec.points, start=spec.start, stop=spec.stop)
     if isinstance(spec, tuple | list):
-        return Axis(name, "list", len(spec), listed=tuple(float(v) for v in spec))
-    return Axis(name, "list", 1, listed=(float(spec),))
+        return Axis(name, "list", len(spec), listed=tuple(tidy(float(v)) for v in spec))
+    return Axis(name, "list", 1, listed=(tidy(float(spec)),))
