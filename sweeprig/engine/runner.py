@@ -13,9 +13,18 @@ Order of work for every point (the plan already put slow settings outermost):
    the DUT port planes by adding the path loss;
 6. the point and all its readings are written in one transaction.
 
-The error queue of every instrument configured in a block is drained after the block; an
-instrument error stops the run (retry policies come with the fault-handling layer). On any
-exit the caller puts the bench in its safe state (:mod:`sweeprig.engine.safe`).
+The error queue of every instrument configured in a block is drained after the block, and
+every instrument's event status register is read before a point is committed: a power-on
+bit means the instrument reset itself during the point, so the point is measured again.
+
+Faults (:class:`RecoveryPolicy`): a point that fails — timeout, dropped connection, garbled
+reply, instrument reset, error in the queue — is measured again from scratch after the bench
+is recovered (each instrument probed with ``*ESR?``; a dead link is reconnected with
+backoff; cached settings are forgotten so everything is sent again; supply and chamber set
+points are restored). An error in the queue follows the policy: ``retry`` (default),
+``skip`` (record why and go on) or ``stop``. Every fault and what was done is written to the
+run store's events. When the engine gives up it raises :class:`GaveUp`; the caller puts the
+bench in its safe state (:mod:`sweeprig.engine.safe`) and marks the run aborted.
 """
 
 from __future__ import annotations
@@ -26,7 +35,7 @@ from dataclasses import dataclass, field
 
 from sweeprig.clock import Clock
 from sweeprig.engine.connect import BenchDrivers
-from sweeprig.errors import InputError, InstrumentError
+from sweeprig.errors import InputError, InstrumentError, TransportError
 from sweeprig.formats.bench import Bench
 from sweeprig.formats.sequence import Sequence
 from sweeprig.instruments import Driver
@@ -40,6 +49,37 @@ CHAMBER_TIMEOUT_S = 4 * 3600.0
 """Give up waiting for a set point after this long, s."""
 NOISE_OFFSET_RBW = 4.0
 """The noise-floor marker sits this many RBWs above the product (inside the span)."""
+
+
+PON_BIT = 0x80
+"""IEEE 488.2 standard event status register bit 7: power on."""
+
+
+@dataclass(frozen=True)
+class RecoveryPolicy:
+    """What the engine does when an instrument misbehaves.
+
+    ``on_error``: an error in an instrument's queue after configuration — ``retry`` the
+    point, ``skip`` it (recorded) once the retries are spent, or ``stop`` the run at once.
+    ``point_attempts``: measurements of one point before giving up (or skipping).
+    ``reconnect_attempts``: reconnections of one instrument per recovery; ``backoff_s``: wait
+    before the first, doubled for each next one (bench-clock seconds).
+    ``reset_check``: read every instrument's event status before committing a point.
+    """
+
+    on_error: str = "retry"
+    point_attempts: int = 3
+    reconnect_attempts: int = 4
+    backoff_s: float = 0.5
+    reset_check: bool = True
+
+
+class InstrumentReset(InstrumentError):
+    """An instrument's power-on bit was set: it reset itself since the last check."""
+
+
+class GaveUp(InstrumentError):
+    """The engine could not measure a point or recover the bench; the run stops."""
 
 
 @dataclass
@@ -80,6 +120,7 @@ class Runner:
         clock: Clock,
         on_point: Callable[[PointResult], None] | None = None,
         log: Callable[[str], None] = lambda _msg: None,
+        policy: RecoveryPolicy | None = None,
     ) -> None:
         self.sequence = sequence
         self.bench = bench
@@ -89,6 +130,9 @@ class Runner:
         self.clock = clock
         self.on_point = on_point
         self.log = log
+        self.policy = policy or RecoveryPolicy()
+        self.skipped = 0
+        self.recoveries = 0
         self._temperature_c: float | None = None
         self._supply_v: float | None = None
         self._supply_on = False
@@ -104,8 +148,10 @@ class Runner:
         self._prepare()
         stored = 0
         for point in points:
-            result = self.measure(point)
+            result = self.measure_with_recovery(point)
             self.store.heartbeat(self.run_id)
+            if result is None:
+                continue
             stored += 1
             if self.on_point is not None:
                 self.on_point(result)
@@ -118,6 +164,133 @@ class Runner:
         if self.d.dc is not None and self.bench.limits.supply_max_current is not None:
             self.d.dc.set_current_limit(float(self.bench.limits.supply_max_current))
         self._check(*(d for _, d in self.d.items()))
+        if self.policy.reset_check:
+            for _role, driver in self._checked_drivers():
+                driver.event_status()  # clear the power-on bit of a freshly started instrument
+
+    # -- faults -----------------------------------------------------------------------------
+
+    def measure_with_recovery(self, point: Point) -> PointResult | None:
+        """:meth:`measure`, with the recovery policy around it; None if the point was skipped.
+
+        Raises :class:`GaveUp` when the point cannot be measured within the policy.
+        """
+        policy = self.policy
+        for attempt in range(1, policy.point_attempts + 1):
+            try:
+                return self.measure(point)
+            except InstrumentReset as exc:
+                kind, error = "reset", exc
+            except TransportError as exc:
+                kind, error = "link", exc
+            except InstrumentError as exc:
+                kind, error = "error", exc
+            first_line = error.message().splitlines()[0]
+            self._event("warning", kind, f"point {point.index}, attempt {attempt}: "
+                        f"{first_line}", point.index, {"attempt": attempt})
+            if kind == "error" and policy.on_error == "stop":
+                raise error
+            if attempt == policy.point_attempts:
+                if kind == "error" and policy.on_error == "skip":
+                    self.skipped += 1
+                    self._event("warning", "skip", f"point {point.index} skipped after "
+                                f"{attempt} attempts: {first_line}", point.index)
+                    self._recover(error)
+                    return None
+                raise GaveUp(
+                    f"point {point.index} failed {attempt} times; last: {first_line}",
+                    where=error.where,
+                    fix="check the instrument and its connection; the data taken so far "
+                    "is stored, and the run can be resumed with `sweeprig resume`",
+                ) from error
+            self._recover(error)
+        raise AssertionError("unreachable")  # pragma: no cover
+
+    def _recover(self, cause: InstrumentError) -> None:
+        """Bring every instrument back to a known state after ``cause``.
+
+        Links named in ``cause`` are reconnected first; then every instrument is probed with
+        ``*ESR?`` (a dead link is reconnected with backoff), its error queue drained and its
+        cached settings forgotten, so the next point sends everything again.
+        """
+        self.recoveries += 1
+        text = str(cause)
+        for role, driver in self.d.items():
+            if driver.resource in text:
+                self._reconnect(role, driver, reason="named in the fault")
+        for role, driver in self.d.items():
+            self._probe(role, driver)
+            driver.forget_state()
+            driver.prepare()
+        self._supply_on = False
+        self._restore_chamber()
+
+    def _probe(self, role: str, driver: Driver) -> None:
+        backoff = self.policy.backoff_s
+        for attempt in range(self.policy.reconnect_attempts + 1):
+            try:
+                status = driver.event_status()
+                stale = driver.errors()
+            except TransportError as exc:
+                if attempt == self.policy.reconnect_attempts:
+                    raise GaveUp(
+                        f"role {role!r} did not answer after {attempt} reconnections",
+                        where=driver.where(),
+                        fix="check the instrument's power and network; the data taken so far "
+                        "is stored, and the run can be resumed with `sweeprig resume`",
+                    ) from exc
+                self.clock.sleep(backoff)
+                backoff *= 2
+                self._reconnect(role, driver, reason=str(exc).splitlines()[0])
+                continue
+            except InstrumentError as exc:  # a queue that never empties, a refused query
+                self._event("warning", "probe", f"role {role!r}: {str(exc).splitlines()[0]}")
+                return
+            if status & PON_BIT:
+                self._event("warning", "reset", f"role {role!r} had reset itself; settings "
+                            "will be applied again")
+            if stale:
+                self._event("info", "error_queue", f"role {role!r} queue held: "
+                            + "; ".join(str(e) for e in stale))
+            return
+
+    def _reconnect(self, role: str, driver: Driver, *, reason: str) -> None:
+        self._event("warning", "reconnect", f"reconnecting role {role!r} ({reason})")
+        try:
+            driver.transport.reconnect()
+        except TransportError as exc:
+            self._event("warning", "reconnect", f"role {role!r}: {str(exc).splitlines()[0]}")
+
+    def _restore_chamber(self) -> None:
+        """After a recovery: set point again; wait and soak again only if the DUT drifted."""
+        chamber, target = self.d.chamber, self._temperature_c
+        if chamber is None or target is None:
+            return
+        chamber.set_control(True)
+        chamber.set_setpoint_c(target)
+        if abs(chamber.probe_temperature_c() - target) > self.tolerance_c:
+            self._event("warning", "chamber", f"DUT probe left {target:g} degC; waiting and "
+                        "soaking again")
+            self._temperature_c = None
+
+    def _checked_drivers(self) -> list[tuple[str, Driver]]:
+        return [(role, d) for role, d in self.d.items() if role != "simctl"]
+
+    def _check_resets(self) -> None:
+        """Raise :class:`InstrumentReset` if any instrument's power-on bit is set."""
+        for role, driver in self._checked_drivers():
+            if driver.event_status() & PON_BIT:
+                raise InstrumentReset(
+                    f"role {role!r} reset itself during the point (power-on bit set)",
+                    where=driver.where(),
+                    fix="check the instrument's power; the point is measured again",
+                )
+
+    def _event(self, severity: str, kind: str, message: str, point_index: int | None = None,
+               details: dict[str, object] | None = None) -> None:
+        self.log(message)
+        self.store.log_event(self.run_id, severity, kind, message, details,  # type: ignore[arg-type]
+                             point_index=point_index)
 
     def measure(self, point: Point) -> PointResult:
         """Apply ``point``, take its readings, commit them; return the result."""
@@ -127,6 +300,8 @@ class Runner:
         if changed:
             self.clock.sleep(self.settle_s)
         records = [self._read(point, reading) for reading in point.readings]
+        if self.policy.reset_check:
+            self._check_resets()
         probe_c = self.d.chamber.probe_temperature_c() if self.d.chamber is not None else None
         current_a = next((r.extra["current_a"] for r in records if "current_a" in r.extra), None)
         record = PointRecord(

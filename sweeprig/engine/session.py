@@ -25,7 +25,7 @@ from types import FrameType
 
 from sweeprig.clock import Clock, VirtualClock, WallClock
 from sweeprig.engine.connect import BenchDrivers, open_bench
-from sweeprig.engine.runner import PointResult, Runner
+from sweeprig.engine.runner import PointResult, RecoveryPolicy, Runner
 from sweeprig.engine.safe import SafeOutcome, make_safe
 from sweeprig.engine.simclock import SimControlClock
 from sweeprig.errors import SweeprigError
@@ -230,9 +230,15 @@ def run_sequence(
                 if on_point is not None:
                     on_point(result)
 
+            rec = seq.recovery
+            policy = RecoveryPolicy(
+                on_error=rec.on_error, point_attempts=rec.point_attempts,
+                reconnect_attempts=rec.reconnect_attempts, backoff_s=float(rec.backoff),
+                reset_check=rec.reset_check,
+            )
             runner = Runner(
                 sequence=seq, bench=files.bench, drivers=drivers, store=store, run_id=run_id,
-                clock=clock, on_point=point_done,
+                clock=clock, on_point=point_done, policy=policy,
                 log=(logger.info if logger is not None else lambda _m: None),
             )
             runner.run(iter_points(seq, files.bench))

@@ -209,13 +209,16 @@ def range_model(kind: str) -> type[RangeSpec]:
     """The range model whose start/stop/step are quantities of ``kind``."""
     if kind not in _RANGE_MODELS:
         q = _KIND_OF_TYPE_NAME[kind]
+        # A power step is a ratio ("1 dB"), not a power: start and stop are dBm, the step dB.
+        step_q = _KIND_OF_TYPE_NAME["level_db"] if kind == "power" else q
         name = "".join(part.capitalize() for part in kind.split("_")) + "Range"
         model = create_model(
             name,
             __base__=RangeSpec,
             start=(q, Field(description="first value")),
             stop=(q, Field(description="last value (included when on the step grid)")),
-            step=(q | None, Field(default=None, description="distance between values")),
+            step=(step_q | None, Field(default=None, description="distance between values"
+                                       + (" (dB)" if kind == "power" else ""))),
         )
         model.kind = kind  # type: ignore[misc]
         _RANGE_MODELS[kind] = model

@@ -206,6 +206,22 @@ class Conditions(Frozen):
     settle: Time = Field(0.05, description="wait after any source or supply change")
 
 
+class Recovery(Frozen):
+    """What the engine does when an instrument misbehaves during the run."""
+
+    on_error: Literal["retry", "skip", "stop"] = Field(
+        "retry", description="an error in an instrument's queue: retry the point, skip it "
+        "(recorded) once the attempts are spent, or stop the run")
+    point_attempts: Annotated[int, Field(strict=True, ge=1, le=20)] = Field(
+        3, description="measurements of one point before giving up (or skipping)")
+    reconnect_attempts: Annotated[int, Field(strict=True, ge=0, le=20)] = Field(
+        4, description="reconnections of an instrument that stopped answering")
+    backoff: Time = Field(0.5, description="wait before the first reconnection (doubles)")
+    reset_check: bool = Field(
+        True, description="read every instrument's event status before storing a point, so "
+        "an instrument that reset itself is caught and the point measured again")
+
+
 # -- studies -----------------------------------------------------------------------------------
 
 
@@ -355,6 +371,7 @@ class Sequence(Frozen):
     part: Part
     mixing: Mixing = Field(default_factory=Mixing)
     conditions: Conditions = Field(default_factory=Conditions)
+    recovery: Recovery = Field(default_factory=Recovery)
     analyzer: AnalyzerDefaults = Field(default_factory=AnalyzerDefaults)
     study: tuple[Study, ...] = Field(min_length=1, description="the studies, run in order")
     spec: tuple[SpecField, ...] = Field((), description="datasheet limits on figures")

@@ -94,22 +94,52 @@ def test_preflight_refusal_touches_no_instrument_and_records_no_run(tmp_path, si
             assert db.execute("SELECT COUNT(*) FROM runs").fetchone()[0] == 0
 
 
-def test_instrument_error_aborts_the_run_and_leaves_the_bench_safe(tmp_path):
+def test_one_instrument_error_is_retried_and_recorded(tmp_path):
     fault = FaultSpec(role="sa", kind="error", at_command=60, code=-222,
                       text="Data out of range")
     description = resolve_description(None).model_copy(update={"faults": (fault,)})
     with start_sim_bench(description, clock=VirtualClock()) as sim:
         bench = bench_file_for(sim, tmp_path)
         outcome = run_sequence(QUICK, bench, store_path=tmp_path / "s.sqlite")
-        assert outcome.status == "aborted"
-        assert "'sa'" in (outcome.reason or "") and "-222" in (outcome.reason or "")
+        assert outcome.status == "complete", outcome.reason
         _assert_bench_safe(sim)
-        assert outcome.safe is not None and outcome.safe.ok
+        assert len(sim.faults.log.events()) == 1
     store = SqliteRunStore(tmp_path / "s.sqlite")
     try:
-        assert store.run(outcome.run_id).status == "aborted"
+        events = store.events(outcome.run_id)
+        assert sorted(store.points_frame(outcome.run_id)["point_index"]) == list(range(5))
     finally:
         store.close()
+    errors = [e for e in events if e.kind == "error"]
+    assert len(errors) == 1 and "-222" in errors[0].message and "'sa'" in errors[0].message
+
+
+@pytest.mark.parametrize(("policy", "status", "stored"), [("stop", "aborted", 0),
+                                                          ("skip", "complete", 4)])
+def test_error_policy_stop_aborts_safely_and_skip_records_the_point(tmp_path, policy, status,
+                                                                   stored):
+    sequence = tmp_path / "seq.toml"
+    sequence.write_text(QUICK.read_text(encoding="utf-8")
+                        + f'\n[recovery]\non_error = "{policy}"\npoint_attempts = 1\n')
+    fault = FaultSpec(role="sa", kind="error", at_command=30, code=-222,
+                      text="Data out of range")
+    description = resolve_description(None).model_copy(update={"faults": (fault,)})
+    with start_sim_bench(description, clock=VirtualClock()) as sim:
+        bench = bench_file_for(sim, tmp_path)
+        outcome = run_sequence(sequence, bench, store_path=tmp_path / "s.sqlite")
+        assert outcome.status == status
+        _assert_bench_safe(sim)
+        assert outcome.safe is not None and outcome.safe.ok
+    if policy == "stop":
+        assert "'sa'" in (outcome.reason or "") and "-222" in (outcome.reason or "")
+    store = SqliteRunStore(tmp_path / "s.sqlite")
+    try:
+        assert store.run(outcome.run_id).status == status
+        assert len(store.points_frame(outcome.run_id)) == stored
+        kinds = [e.kind for e in store.events(outcome.run_id)]
+    finally:
+        store.close()
+    assert ("skip" in kinds) == (policy == "skip")
 
 
 @pytest.mark.parametrize("sig", [signal.SIGINT, signal.SIGTERM])

@@ -1,0 +1,241 @@
+"""From the run store to a capture table: the thin adapter between the two vocabularies.
+
+The engine stores readings under the names the plan gives them (``docs/sequence-format.md``,
+section Readings); the analysis functions take a capture table whose ``reading`` column uses
+their own short vocabulary (:mod:`sweeprig.analysis.captures`). The mapping, decided by the
+reading's ``kind`` and the suffix of its name (so a reading renamed with ``name = "..."`` in
+the sequence maps the same way):
+
+==========================  ==========================  ====================================
+store ``kind`` / name        capture ``reading``          notes
+==========================  ==========================  ====================================
+``wanted``                   ``if``                      the wanted output (tone 1)
+``wanted`` ``*.tone2``       (left out)                  tone 2's output: no figure uses it
+``lo_at_if``                 ``lo_at_if``
+``lo_at_rf``                 ``lo_at_rf``
+``rf_at_if``                 ``rf_at_if``
+``image``                    ``image``                   RF retuned to 2·f_LO − f_RF
+``im3`` ``*.lower``          ``im3_low``                 2f1 − f2, translated to the output
+``im3`` ``*.upper``          ``im3_high``                2f2 − f1, translated
+``im2`` ``*.diff``           ``im2_low``                 f2 − f1
+``im2`` ``*.sum``            ``im2_high``                f1 + f2
+``mxn`` ``*.<m>x<n>``        ``spur``                    with ``m``, ``n`` (LO, RF multipliers)
+``mxn`` wanted product       ``if`` or left out          ``if`` only where the point has no
+                                                         ``wanted`` reading
+``supply_current``           ``supply_current``          ``value`` in A from ``extra_json``
+                                                         ``current_a`` (else the point's
+                                                         ``supply_current_a``)
+``input_power``              (left out)                  power-meter check of the RF drive
+==========================  ==========================  ====================================
+
+A reading whose ``attenuation_check`` is true, or whose name ends in ``.att10``, is the
++10 dB attenuation repeat of the reading it names (``atten_check`` True in the capture).
+
+Columns taken over as they are: the point's settings (``temperature_c`` ... ``rf2_power_dbm``,
+set points at the DUT port planes), and per reading ``freq_hz``, ``level_dbm`` and
+``noise_floor_dbm`` (already referred to the DUT port planes by the engine), ``overload``
+and ``attenuation_db``. Kept for tracing a figure back to the store: ``reading_no``,
+``source_name`` (the store's reading name), ``kind``, ``port``, ``rbw_hz`` and the point's
+``probe_temperature_c``. The wanted product's (m, n) is found from the ``wanted`` readings'
+stored multipliers ((1, −1) when there are none).
+"""
+
+from __future__ import annotations
+
+import json
+import math
+
+import numpy as np
+import pandas as pd
+
+from sweeprig.analysis.captures import CONDITION_COLUMNS
+from sweeprig.errors import StoreError
+from sweeprig.store.base import RunStore
+
+#: The store's reading kinds that map one-to-one onto a capture reading.
+DIRECT_KINDS: dict[str, str] = {
+    "wanted": "if",
+    "lo_at_if": "lo_at_if",
+    "lo_at_rf": "lo_at_rf",
+    "rf_at_if": "rf_at_if",
+    "image": "image",
+    "supply_current": "supply_current",
+}
+#: Two-tone products: (store kind, name suffix) → capture reading.
+PRODUCT_SUFFIXES: dict[tuple[str, str], str] = {
+    ("im3", "lower"): "im3_low",
+    ("im3", "upper"): "im3_high",
+    ("im2", "diff"): "im2_low",
+    ("im2", "sum"): "im2_high",
+}
+REPEAT_SUFFIX = ".att10"
+TONE2_SUFFIX = ".tone2"
+DEFAULT_WANTED_ORDERS = (1, -1)
+
+#: Columns of the capture table this module builds, in order.
+CAPTURE_COLUMNS: tuple[str, ...] = (
+    "point", "study", *CONDITION_COLUMNS, "reading", "freq_hz", "level_dbm", "noise_floor_dbm",
+    "m", "n", "overload", "atten_check", "attenuation_db", "value", "reading_no", "source_name",
+    "kind", "port", "rbw_hz", "probe_temperature_c",
+)
+
+_POINT_NEEDS = ("point_index", "study", *CONDITION_COLUMNS)
+_READING_NEEDS = ("point_index", "reading_no", "name", "kind", "port", "freq_hz", "level_dbm",
+                  "noise_floor_dbm", "m", "n", "attenuation_db", "overload")
+
+
+def load_captures(store: RunStore, run_id: int) -> pd.DataFrame:
+    """The capture table of run ``run_id`` (see the module docstring).
+
+    Works on finished and partial runs alike: it holds whatever points are stored.
+    Raises :class:`~sweeprig.errors.StoreError` when there is no such run.
+    """
+    store.run(run_id)  # a clear StoreError for an unknown id
+    return captures_from_frames(store.points_frame(run_id), store.readings_frame(run_id))
+
+
+def captures_from_frames(
+    points: pd.DataFrame,
+    readings: pd.DataFrame,
+    *,
+    wanted_orders: tuple[int, int] | None = None,
+) -> pd.DataFrame:
+    """Build the capture table from the store's points and readings frames.
+
+    ``wanted_orders``: (m, n) of the wanted product among ``mxn`` readings; None finds it
+    from the ``wanted`` readings. Rows come out ordered by point, then reading number.
+    """
+    _require(points, _POINT_NEEDS, "points")
+    _require(readings, _READING_NEEDS, "readings")
+    if readings.empty:
+        return _empty()
+    name = readings["name"].astype(str)
+    kind = readings["kind"].astype(str)
+    check = readings["attenuation_check"] if "attenuation_check" in readings else None
+    repeat = name.str.endswith(REPEAT_SUFFIX).to_numpy(dtype=bool, copy=True)
+    if check is not None:
+        repeat |= check.fillna(False).to_numpy(dtype=bool)
+    base = name.where(~name.str.endswith(REPEAT_SUFFIX), name.str[: -len(REPEAT_SUFFIX)])
+    suffix = base.str.rsplit(".", n=1).str[-1]
+    m = pd.to_numeric(readings["m"], errors="coerce").to_numpy(dtype=float, na_value=np.nan)
+    n = pd.to_numeric(readings["n"], errors="coerce").to_numpy(dtype=float, na_value=np.nan)
+
+    tone2 = (kind == "wanted") & base.str.endswith(TONE2_SUFFIX)
+    if wanted_orders is None:
+        wanted_orders = _wanted_orders(kind == "wanted", tone2, m, n)
+    reading = kind.map(DIRECT_KINDS).astype(object)
+    reading = reading.where(~tone2, None)
+    for (product_kind, end), short in PRODUCT_SUFFIXES.items():
+        reading = reading.where(~((kind == product_kind) & (suffix == end)), short)
+    mxn = (kind == "mxn").to_numpy()
+    is_wanted_product = mxn & (m == wanted_orders[0]) & (n == wanted_orders[1])
+    reading = reading.where(~pd.Series(mxn & ~is_wanted_product, index=reading.index), "spur")
+    # The mxn reading of the wanted product stands in for "if" only where the point has no
+    # wanted reading of its own (same repeat status).
+    key = pd.MultiIndex.from_arrays([readings["point_index"].to_numpy(), repeat])
+    own = key[(reading == "if").to_numpy()]
+    stand_in = is_wanted_product & ~key.isin(own)
+    reading = reading.where(~pd.Series(stand_in, index=reading.index), "if")
+    keep = reading.notna().to_numpy()
+
+    rows = readings[keep]
+    out = pd.DataFrame({
+        "point": rows["point_index"].to_numpy(dtype=np.int64),
+        "reading": reading[keep].to_numpy(dtype=object),
+        "freq_hz": rows["freq_hz"].to_numpy(dtype=float, na_value=np.nan),
+        "level_dbm": rows["level_dbm"].to_numpy(dtype=float, na_value=np.nan),
+        "noise_floor_dbm": rows["noise_floor_dbm"].to_numpy(dtype=float, na_value=np.nan),
+        "m": np.where(reading[keep] == "spur", m[keep], np.nan),
+        "n": np.where(reading[keep] == "spur", n[keep], np.nan),
+        "overload": rows["overload"].fillna(False).to_numpy(dtype=bool),
+        "atten_check": repeat[keep],
+        "attenuation_db": rows["attenuation_db"].to_numpy(dtype=float, na_value=np.nan),
+        "reading_no": rows["reading_no"].to_numpy(dtype=np.int64),
+        "source_name": name[keep].to_numpy(dtype=object),
+        "kind": kind[keep].to_numpy(dtype=object),
+        "port": rows["port"].astype(str).to_numpy(dtype=object),
+        "rbw_hz": (rows["rbw_hz"].to_numpy(dtype=float, na_value=np.nan)
+                   if "rbw_hz" in rows else np.full(len(rows), np.nan)),
+    })
+    settings = points.set_index("point_index")
+    missing = ~out["point"].isin(settings.index)
+    if missing.any():
+        first = int(out.loc[missing, "point"].iloc[0])
+        raise StoreError(
+            f"reading of point {first} has no point row",
+            where="run store",
+            fix="the store is damaged; export what is left with `sweeprig export`",
+        )
+    at = settings.index.get_indexer(out["point"].to_numpy())
+    out.insert(1, "study", settings["study"].to_numpy(dtype=object)[at])
+    for i, col in enumerate(CONDITION_COLUMNS):
+        out.insert(2 + i, col, settings[col].to_numpy(dtype=float, na_value=np.nan)[at])
+    probe = (settings["probe_temperature_c"].to_numpy(dtype=float, na_value=np.nan)[at]
+             if "probe_temperature_c" in settings else np.full(len(out), np.nan))
+    out["probe_temperature_c"] = probe
+    out.insert(list(out.columns).index("reading_no"), "value",
+               _supply_values(rows, out, settings, at))
+    out = out.sort_values(["point", "reading_no"], kind="stable").reset_index(drop=True)
+    return out[list(CAPTURE_COLUMNS)]
+
+
+def _supply_values(
+    rows: pd.DataFrame, out: pd.DataFrame, settings: pd.DataFrame, at: np.ndarray
+) -> np.ndarray:
+    """``value`` column: supply current in A for ``supply_current`` rows, NaN elsewhere."""
+    value = np.full(len(out), np.nan)
+    supply = np.flatnonzero(out["reading"].to_numpy() == "supply_current")
+    if supply.size == 0:
+        return value
+    extras = rows["extra_json"].to_numpy()[supply] if "extra_json" in rows else [None] * supply.size
+    fallback = (settings["supply_current_a"].to_numpy(dtype=float, na_value=np.nan)[at][supply]
+                if "supply_current_a" in settings else np.full(supply.size, np.nan))
+    for k, (text, spare) in enumerate(zip(extras, fallback.tolist(), strict=True)):
+        value[supply[k]] = _current_from_extra(text, spare)
+    return value
+
+
+def _current_from_extra(text: object, fallback: float) -> float:
+    if isinstance(text, str) and text:
+        try:
+            current = json.loads(text).get("current_a")
+        except (ValueError, AttributeError):
+            current = None
+        if isinstance(current, int | float) and not isinstance(current, bool) \
+                and math.isfinite(current):
+            return float(current)
+    return fallback
+
+
+def _wanted_orders(
+    wanted: pd.Series, tone2: pd.Series, m: np.ndarray, n: np.ndarray
+) -> tuple[int, int]:
+    """The most common stored (m, n) of tone-1 ``wanted`` readings; (1, −1) if none."""
+    rows = (wanted & ~tone2).to_numpy() & np.isfinite(m) & np.isfinite(n)
+    if not rows.any():
+        return DEFAULT_WANTED_ORDERS
+    pairs = pd.Series(list(zip(m[rows].astype(int).tolist(), n[rows].astype(int).tolist(),
+                               strict=True)))
+    top = pairs.value_counts().index[0]
+    return int(top[0]), int(top[1])
+
+
+def _require(frame: pd.DataFrame, columns: tuple[str, ...], what: str) -> None:
+    missing = [c for c in columns if c not in frame.columns]
+    if missing:
+        raise StoreError(
+            f"the {what} table has no column {', '.join(repr(c) for c in missing)}",
+            where=f"run store {what}",
+            fix="read the tables with SqliteRunStore.points_frame / readings_frame",
+        )
+
+
+def _empty() -> pd.DataFrame:
+    frame = pd.DataFrame({c: pd.Series(dtype=float) for c in CAPTURE_COLUMNS})
+    for col in ("study", "reading", "source_name", "kind", "port"):
+        frame[col] = frame[col].astype(object)
+    for col in ("point", "reading_no"):
+        frame[col] = frame[col].astype(np.int64)
+    for col in ("overload", "atten_check"):
+        frame[col] = frame[col].astype(bool)
+    return frame
