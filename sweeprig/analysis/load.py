@@ -111,7 +111,7 @@ def captures_from_frames(
         return _empty()
     name = readings["name"].astype(str)
     kind = readings["kind"].astype(str)
-    check = readings["attenuation_check"] if "attenuation_check" in readings else None
+    check = readings.get("attenuation_check")
     repeat = name.str.endswith(REPEAT_SUFFIX).to_numpy(dtype=bool, copy=True)
     if check is not None:
         repeat |= check.fillna(False).to_numpy(dtype=bool)

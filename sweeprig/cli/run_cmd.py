@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from pathlib import Path
 from typing import Annotated
 
@@ -17,7 +18,7 @@ from rich.progress import (
 )
 
 from sweeprig.engine.runner import PointResult
-from sweeprig.engine.session import LoadedFiles, RunOutcome, run_sequence
+from sweeprig.engine.session import LoadedFiles, RunOutcome, resume_run, run_sequence
 from sweeprig.errors import SweeprigError
 from sweeprig.plan.duration import format_duration
 from sweeprig.store.base import DEFAULT_STORE_PATH
@@ -54,7 +55,18 @@ def run_command(
     realtime: Annotated[bool, typer.Option(
         "--realtime", help="with --sim: let simulated time pass at wall-clock speed")] = False,
     quiet: Annotated[bool, typer.Option("--quiet", "-q", help="no progress display")] = False,
+    bus_log: Annotated[bool, typer.Option(
+        "--bus-log", help="record every SCPI exchange in the run store (see `sweeprig bus`)",
+    )] = False,
 ) -> None:
+    _drive(lambda started, point_done: run_sequence(
+        sequence, bench, sim=sim, sim_description=sim_bench, store_path=store,
+        realtime=realtime, bus_log=bus_log, on_start=started, on_point=point_done,
+    ), quiet=quiet)
+
+
+def _drive(start: Callable[..., RunOutcome], *, quiet: bool) -> None:
+    """Run ``start(on_start, on_point)`` with a progress display; print how it ended."""
     console = Console(highlight=False)
     errors = Console(stderr=True, highlight=False, soft_wrap=True)
     progress = Progress(
@@ -82,10 +94,7 @@ def run_command(
             progress.update(task, advance=1, description=_summary(result))  # type: ignore[arg-type]
 
     try:
-        outcome = run_sequence(
-            sequence, bench, sim=sim, sim_description=sim_bench, store_path=store,
-            realtime=realtime, on_start=started, on_point=point_done,
-        )
+        outcome = start(started, point_done)
     except SweeprigError as exc:
         progress.stop()
         errors.print(f"[red]error:[/red] {exc.message()}")
@@ -131,6 +140,41 @@ def _print_outcome(console: Console, outcome: RunOutcome) -> None:
                   f"sweeprig export {outcome.run_id} --store {outcome.store_path} --to results/")
 
 
+_RESUME_HELP = """Continue an interrupted or aborted run: measure only the points not yet stored.
+
+Checks first that the sequence and bench files are unchanged and that every instrument
+answers *IDN? as when the run started, and says what differs if not. Every point ends up
+stored exactly once. The same safety rules as `sweeprig run` apply.
+
+Examples:
+
+  sweeprig resume 7
+
+  sweeprig resume 7 --store results/lot7.sqlite --accept-changes
+"""
+
+
+def resume_command(
+    run_id: Annotated[int, typer.Argument(help="the run to continue", show_default=False)],
+    store: Annotated[Path, typer.Option(
+        "--store", help="run store (SQLite file)")] = DEFAULT_STORE_PATH,
+    accept_changes: Annotated[bool, typer.Option(
+        "--accept-changes", help="resume even though files or instrument identities changed "
+        "(what changed is still reported)")] = False,
+    sim_bench: Annotated[str | None, typer.Option(
+        "--sim-bench", help="simulated-bench description, for runs on the simulated bench",
+    )] = None,
+    quiet: Annotated[bool, typer.Option("--quiet", "-q", help="no progress display")] = False,
+    bus_log: Annotated[bool, typer.Option(
+        "--bus-log", help="record every SCPI exchange in the run store")] = False,
+) -> None:
+    _drive(lambda started, point_done: resume_run(
+        run_id, store_path=store, accept_changes=accept_changes, sim_description=sim_bench,
+        bus_log=bus_log, on_start=started, on_point=point_done,
+    ), quiet=quiet)
+
+
 def register(app: typer.Typer) -> None:
-    """Add ``run`` to the root app."""
+    """Add ``run`` and ``resume`` to the root app."""
     app.command("run", help=_RUN_HELP, no_args_is_help=True)(run_command)
+    app.command("resume", help=_RESUME_HELP, no_args_is_help=True)(resume_command)

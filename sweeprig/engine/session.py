@@ -20,22 +20,24 @@ import time
 from collections.abc import Callable, Iterator, Mapping
 from contextlib import contextmanager
 from dataclasses import dataclass
+from datetime import UTC, datetime
 from pathlib import Path
 from types import FrameType
 
 from sweeprig.clock import Clock, VirtualClock, WallClock
 from sweeprig.engine.connect import BenchDrivers, open_bench
+from sweeprig.engine.locks import BenchLock
 from sweeprig.engine.runner import PointResult, RecoveryPolicy, Runner
 from sweeprig.engine.safe import SafeOutcome, make_safe
 from sweeprig.engine.simclock import SimControlClock
-from sweeprig.errors import SweeprigError
+from sweeprig.errors import InputError, SweeprigError
 from sweeprig.formats.bench import Bench, load_bench
 from sweeprig.formats.sequence import Sequence, load_sequence, required_roles
 from sweeprig.instruments import available_profiles
 from sweeprig.plan.duration import estimate_duration
 from sweeprig.plan.expand import count_points, iter_points
 from sweeprig.plan.preflight import PreflightReport, check_roles, preflight
-from sweeprig.store.base import DEFAULT_STORE_PATH, InstrumentRecord
+from sweeprig.store.base import DEFAULT_STORE_PATH, BusRecord, InstrumentRecord
 from sweeprig.store.sqlite import SqliteRunStore
 
 SIM_BENCH_FILE = "benches/sim.toml"
@@ -147,6 +149,17 @@ class _NoBench(SweeprigError):
         )
 
 
+@dataclass(frozen=True)
+class ResumePlan:
+    """What a resumed run continues: its id, the points already stored, and the instrument
+    identities it started with (role → ``*IDN?``)."""
+
+    run_id: int
+    done: frozenset[int]
+    identities: Mapping[str, str]
+    accept_changes: bool = False
+
+
 def run_sequence(
     sequence_path: str | Path,
     bench_path: str | Path | None = None,
@@ -155,24 +168,118 @@ def run_sequence(
     sim_description: str | Path | None = None,
     store_path: str | Path = DEFAULT_STORE_PATH,
     realtime: bool = False,
+    bus_log: bool = False,
     on_start: Callable[[int, int, LoadedFiles], None] | None = None,
     on_point: Callable[[PointResult], None] | None = None,
     log_dir: str | Path | None = None,
 ) -> RunOutcome:
     """Run a sequence on a bench (or the in-process simulated bench) into a store.
 
-    ``on_start(run_id, total_points, files)`` is called once the run is recorded;
-    ``on_point`` after each committed point. Returns how the run ended; raises only for
-    problems found before any instrument was touched (bad files, pre-flight refusals).
+    ``bus_log``: record every SCPI exchange in the store. ``on_start(run_id, total_points,
+    files)`` is called once the run is recorded; ``on_point`` after each committed point.
+    Returns how the run ended; raises only for problems found before any output was enabled
+    (bad files, pre-flight refusals, a busy or wrong instrument).
     """
     files = load_run_files(sequence_path, bench_path, sim=sim)
+    return _execute(files, store_path=Path(store_path), sim_description=sim_description,
+                    realtime=realtime, bus_log=bus_log, on_start=on_start, on_point=on_point,
+                    log_dir=log_dir, resume=None)
+
+
+def resume_run(
+    run_id: int,
+    *,
+    store_path: str | Path = DEFAULT_STORE_PATH,
+    accept_changes: bool = False,
+    sim_description: str | Path | None = None,
+    bus_log: bool = False,
+    on_start: Callable[[int, int, LoadedFiles], None] | None = None,
+    on_point: Callable[[PointResult], None] | None = None,
+    log_dir: str | Path | None = None,
+) -> RunOutcome:
+    """Continue an interrupted or aborted run: measure only the points not yet stored.
+
+    Refuses (:class:`InputError`) a run that is complete or still alive, and — unless
+    ``accept_changes`` — a run whose sequence or bench file changed since it started or
+    whose instruments answer ``*IDN?`` differently, naming what differs. The instrument
+    state is set up again from the plan and the store, never from memory.
+    """
+    store_path = Path(store_path)
+    store = SqliteRunStore(store_path, create=False)
+    try:
+        info = store.run(run_id)
+        done = frozenset(store.done_point_indices(run_id))
+    finally:
+        store.close()
+    if info.status == "complete":
+        raise InputError(f"run {run_id} is already complete ({info.points_done} points)",
+                         where=f"{store_path}: run {run_id}",
+                         fix="nothing to resume; start a new run with `sweeprig run`")
+    if info.status == "running":
+        raise InputError(
+            f"run {run_id} is still running (process {info.pid} on {info.host})",
+            where=f"{store_path}: run {run_id}",
+            fix="wait for it to end, or stop it first (Ctrl-C or SIGTERM in its terminal)")
+    differences = _file_differences(info)
+    if differences and not accept_changes:
+        raise InputError(
+            f"run {run_id}'s files changed since it started: " + "; ".join(differences),
+            where=f"{store_path}: run {run_id}",
+            fix="put the files back as they were, or resume with --accept-changes if the "
+            "change cannot affect the measurements")
+    files = load_run_files(info.sequence_path, info.bench_path, sim=info.simulated)
+    plan = ResumePlan(run_id, done, {i.role: i.idn for i in info.instruments},
+                      accept_changes)
+    return _execute(files, store_path=store_path, sim_description=sim_description,
+                    realtime=False, bus_log=bus_log, on_start=on_start, on_point=on_point,
+                    log_dir=log_dir, resume=plan)
+
+
+def _file_differences(info: object) -> list[str]:
+    """What differs between the files now on disk and the texts the run started with."""
+    out: list[str] = []
+    pairs = [("sequence", info.sequence_path, info.sequence_text)]  # type: ignore[attr-defined]
+    if info.bench_path:  # type: ignore[attr-defined]
+        pairs.append(("bench", info.bench_path, info.bench_text))  # type: ignore[attr-defined]
+    for label, path, stored in pairs:
+        try:
+            now = Path(path).read_text(encoding="utf-8")
+        except OSError as exc:
+            out.append(f"{label} file {path} cannot be read ({exc.strerror})")
+            continue
+        if now != (stored or ""):
+            out.append(f"{label} file {path} differs ({_first_difference(stored or '', now)})")
+    return out
+
+
+def _first_difference(old: str, new: str) -> str:
+    old_lines, new_lines = old.splitlines(), new.splitlines()
+    for number, (a, b) in enumerate(zip(old_lines, new_lines, strict=False), start=1):
+        if a != b:
+            return f"line {number} was {a.strip()!r}, is {b.strip()!r}"
+    return f"{len(old_lines)} lines then, {len(new_lines)} now"
+
+
+def _execute(
+    files: LoadedFiles,
+    *,
+    store_path: Path,
+    sim_description: str | Path | None,
+    realtime: bool,
+    bus_log: bool,
+    on_start: Callable[[int, int, LoadedFiles], None] | None,
+    on_point: Callable[[PointResult], None] | None,
+    log_dir: str | Path | None,
+    resume: ResumePlan | None,
+) -> RunOutcome:
+    """The run itself, new or resumed (see the module docstring)."""
     total = count_points(files.sequence)
     predicted = estimate_duration(files.sequence, files.bench).total_s
-    store_path = Path(store_path)
-    store = SqliteRunStore(store_path)
+    store = SqliteRunStore(store_path, durable=not files.simulated)
     wall0 = time.monotonic()
     sim_bench = None
     drivers: BenchDrivers | None = None
+    lock: BenchLock | None = None
     run_id: int | None = None
     status, reason = "aborted", "did not start"
     done = 0
@@ -182,40 +289,65 @@ def run_sequence(
     log_dir = Path(log_dir) if log_dir is not None else store_path.parent
     log_path = log_dir / "run-pending.log"
     logger: logging.Logger | None = None
+    bus: list[BusRecord] = []
     try:
         with _stop_on_signals():
             resources: dict[str, str] = {}
-            if sim or files.bench.is_simulated():
+            roles = required_roles(files.sequence)
+            if files.simulated or files.bench.is_simulated():
                 from sweeprig.sim.bench import start_sim_bench
 
                 clock = VirtualClock(realtime_factor=1.0 if realtime else 0.0)
                 sim_bench = start_sim_bench(sim_description, clock=clock)
                 resources = dict(sim_bench.resources)
+            else:
+                label = f"run {resume.run_id}" if resume else f"a run of {files.sequence_path}"
+                lock = BenchLock(_bench_resources(files.bench, roles),
+                                 f"{label} (store {store_path})").acquire()
             sim_t0 = clock.now()
-            roles = required_roles(files.sequence)
-            drivers = open_bench(files.bench, roles, resources=resources, clock=clock)
+            hook = (lambda role, t: bus.append(BusRecord(
+                datetime.fromtimestamp(t.time_s, UTC), role, t.sent, t.received,
+                t.duration_s))) if bus_log else None
+            drivers = open_bench(files.bench, roles, resources=resources, clock=clock,
+                                 on_transaction=hook)
             if sim_bench is None and drivers.simctl is not None:
                 clock = SimControlClock(drivers.simctl)  # a served simulated bench
                 sim_t0 = clock.now()
+            if resume is not None:
+                _check_identities(drivers, resume)
             seq = files.sequence
-            run_id = store.create_run(
-                sequence_path=str(files.sequence_path),
-                sequence_text=files.sequence_text,
-                bench_path=str(files.bench_path),
-                bench_text=files.bench_text,
-                simulated=sim_bench is not None,
-                operator=seq.about.operator,
-                part=seq.part.id,
-                serial=seq.part.serial,
-                tags=seq.about.tags,
-                title=seq.about.title,
-                points_total=total,
-                status="running",
-            )
+            if resume is None:
+                run_id = store.create_run(
+                    sequence_path=str(files.sequence_path),
+                    sequence_text=files.sequence_text,
+                    bench_path=str(files.bench_path),
+                    bench_text=files.bench_text,
+                    simulated=sim_bench is not None,
+                    operator=seq.about.operator,
+                    part=seq.part.id,
+                    serial=seq.part.serial,
+                    tags=seq.about.tags,
+                    title=seq.about.title,
+                    points_total=total,
+                    status="running",
+                )
+            else:
+                run_id = resume.run_id
+                store.set_status(run_id, "running")
             log_path = log_dir / f"run-{run_id}.log"
             logger = _file_logger(log_path, run_id)
-            logger.info("run %d: %s on %s (%d points, predicted %.0f s on a real bench)",
-                        run_id, files.sequence_path, files.bench_path, total, predicted)
+            if resume is None:
+                logger.info("run %d: %s on %s (%d points, predicted %.0f s on a real bench)",
+                            run_id, files.sequence_path, files.bench_path, total, predicted)
+            else:
+                message = (f"resumed: {len(resume.done)} of {total} points were stored; "
+                           f"measuring the other {total - len(resume.done)}")
+                logger.info("run %d %s", run_id, message)
+                store.log_event(run_id, "info", "resume", message)
+            if lock is not None and lock.released_stale:
+                note = "released stale locks: " + "; ".join(lock.released_stale)
+                logger.warning(note)
+                store.log_event(run_id, "warning", "lock", note)
             store.record_instruments(run_id, [
                 InstrumentRecord(role, d.resource, d.profile.name, d.idn or "")
                 for role, d in drivers.items()
@@ -227,6 +359,9 @@ def run_sequence(
             def point_done(result: PointResult) -> None:
                 nonlocal done
                 done += 1
+                if bus:
+                    store.log_bus(run_id, list(bus))  # type: ignore[arg-type]
+                    bus.clear()
                 if on_point is not None:
                     on_point(result)
 
@@ -241,8 +376,14 @@ def run_sequence(
                 clock=clock, on_point=point_done, policy=policy,
                 log=(logger.info if logger is not None else lambda _m: None),
             )
-            runner.run(iter_points(seq, files.bench))
-            status, reason = "complete", None
+            points = iter_points(seq, files.bench)
+            if resume is not None:
+                skip = resume.done
+                points = (p for p in points if p.index not in skip)
+            runner.run(points)
+            status = "complete"
+            reason = (f"{runner.skipped} point(s) skipped by the recovery policy"
+                      if runner.skipped else None)
     except KeyboardInterrupt:
         status, reason = "aborted", "stopped by SIGINT (Ctrl-C)"
     except RunStopped as stop:
@@ -259,6 +400,8 @@ def run_sequence(
         sim_elapsed = _elapsed(clock, sim_t0)
         safe = _finish(drivers, sim_bench, files, logger)
         if run_id is not None:
+            if bus:
+                store.log_bus(run_id, list(bus))
             if safe is not None and not safe.ok:
                 failed = "; ".join(f"{name}: {err}" for name, err in safe.failed)
                 reason = f"{reason or 'complete'}; SAFE STATE INCOMPLETE: {failed}"
@@ -274,12 +417,36 @@ def run_sequence(
                 logger.removeHandler(handler)
         if sim_bench is not None:
             sim_bench.close()
+        if lock is not None:
+            lock.release()
     assert run_id is not None
+    points_done = done + (len(resume.done) if resume is not None else 0)
     return RunOutcome(
-        run_id=run_id, status=status, reason=reason, points_done=done, points_total=total,
-        store_path=store_path, log_path=log_path, sim_elapsed_s=sim_elapsed,
-        wall_elapsed_s=time.monotonic() - wall0, predicted_bench_s=predicted, safe=safe,
+        run_id=run_id, status=status, reason=reason, points_done=points_done,
+        points_total=total, store_path=store_path, log_path=log_path,
+        sim_elapsed_s=sim_elapsed, wall_elapsed_s=time.monotonic() - wall0,
+        predicted_bench_s=predicted, safe=safe,
     )
+
+
+def _bench_resources(bench: Bench, roles: Mapping[str, str]) -> tuple[str, ...]:
+    wanted = [*roles, "simctl"]
+    return tuple(r.resource for r in (bench.role(n) for n in wanted) if r is not None)
+
+
+def _check_identities(drivers: BenchDrivers, resume: ResumePlan) -> None:
+    """Compare each instrument's ``*IDN?`` with the one the run started with."""
+    changed = [
+        f"{role}: was {resume.identities[role]!r}, now {d.idn!r}"
+        for role, d in drivers.items()
+        if role in resume.identities and resume.identities[role] != d.idn
+    ]
+    if changed and not resume.accept_changes:
+        raise InputError(
+            f"run {resume.run_id}'s instruments changed since it started: " + "; ".join(changed),
+            where=f"run {resume.run_id}",
+            fix="reconnect the original instruments, or resume with --accept-changes if the "
+            "replacement is equivalent (its identity is recorded with the run)")
 
 
 def _elapsed(clock: Clock, t0: float) -> float:

@@ -746,14 +746,26 @@ class SqliteRunStore:
             for r in rows
         ]
 
-    def bus_log(self, run_id: int, *, limit: int | None = None) -> list[BusRecord]:
-        """The run's bus log, oldest first; only the last ``limit`` entries if given."""
-        sql = ("SELECT time_utc, role, sent, received, duration_s FROM bus_log "
-               "WHERE run_id = ? ORDER BY id DESC")
+    def bus_log(self, run_id: int, *, limit: int | None = None,
+                since: datetime | None = None, until: datetime | None = None,
+                role: str | None = None) -> list[BusRecord]:
+        """The run's bus log, oldest first; only the last ``limit`` entries if given, only
+        exchanges between ``since`` and ``until`` (UTC, inclusive) and of ``role`` if given."""
+        sql = "SELECT time_utc, role, sent, received, duration_s FROM bus_log WHERE run_id = ?"
         params: tuple[object, ...] = (run_id,)
+        if since is not None:
+            sql += " AND time_utc >= ?"
+            params += (_iso(since),)
+        if until is not None:
+            sql += " AND time_utc <= ?"
+            params += (_iso(until),)
+        if role is not None:
+            sql += " AND role = ?"
+            params += (role,)
+        sql += " ORDER BY id DESC"
         if limit is not None:
             sql += " LIMIT ?"
-            params = (run_id, int(limit))
+            params += (int(limit),)
         rows = self._read(sql, params)
         return [BusRecord(_dt(r[0]) or utc_now(), r[1], r[2], r[3], r[4]) for r in reversed(rows)]
 

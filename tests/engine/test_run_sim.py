@@ -143,7 +143,8 @@ def test_error_policy_stop_aborts_safely_and_skip_records_the_point(tmp_path, po
 
 
 @pytest.mark.parametrize("sig", [signal.SIGINT, signal.SIGTERM])
-def test_signal_to_a_running_process_leaves_rf_off(tmp_path, sim_bench, sig):
+def test_signal_to_a_running_process_leaves_rf_off(tmp_path, realtime_sim_bench, sig):
+    sim_bench = realtime_sim_bench
     bench = bench_file_for(sim_bench, tmp_path)
     store_path = tmp_path / "s.sqlite"
     proc = subprocess.Popen(

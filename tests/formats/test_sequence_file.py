@@ -56,7 +56,7 @@ def load_error(tmp_path: Path, text: str) -> InputError:
 
 def test_demo_quick_sequence_loads() -> None:
     seq = load_sequence(ROOT / "sequences" / "demo" / "quick.toml")
-    assert seq.part.expected_gain == -7.0
+    assert seq.part.expected_gain == 12.0
     assert seq.mixing.if_frequency == 70e6
     assert [s.name for s in seq.study] == ["gain", "two-tone"]
     assert seq.count_points() == 5

@@ -196,3 +196,19 @@ def test_reset_restores_defaults(bench) -> None:
     assert sa.query("BAND:AUTO?") == "1"
     assert float(sa.query("INP:ATT?")) == 10.0
     assert float(sa.query("FREQ:STOP?")) == 13.6e9
+
+
+def test_continuous_mode_follows_settings_and_single_mode_keeps_the_trace(bench) -> None:
+    sa, _, clock, feed = bench
+    sa.write("*RST;:INIT:CONT ON;:FREQ:CENT 70 MHz;SPAN 1 MHz")
+    sa.write("CALC:MARK1:X 70 MHz")
+    assert float(sa.query("CALC:MARK1:Y?")) == pytest.approx(-20.0, abs=0.05)
+    feed.spectrum = InputSpectrum(((70e6, -30.0),), -174.0)
+    clock.sleep(1.0)  # longer than a sweep: the display has been refreshed
+    assert float(sa.query("CALC:MARK1:Y?")) == pytest.approx(-30.0, abs=0.05)
+    assert sa.query("INIT:CONT OFF;:INIT;*OPC?") == "1"  # a reply: the sweep has been taken
+    feed.spectrum = InputSpectrum(((70e6, -40.0),), -174.0)
+    clock.sleep(1.0)
+    assert float(sa.query("CALC:MARK1:Y?")) == pytest.approx(-30.0, abs=0.05)
+    sa.write("INIT;*WAI")
+    assert float(sa.query("CALC:MARK1:Y?")) == pytest.approx(-40.0, abs=0.05)

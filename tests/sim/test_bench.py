@@ -28,6 +28,7 @@ from sweeprig.sim.bench import (
     start_sim_bench,
 )
 from sweeprig.sim.mixer import OperatingPoint, load_part
+from sweeprig.sim.mixer.part import PARTS_DIR
 
 BOLTZMANN = 1.380649e-23  # J/K, exact (CODATA 2019 SI)
 CHARGE = 1.602176634e-19  # C, exact (CODATA 2019 SI)
@@ -364,8 +365,7 @@ def test_bad_descriptions_name_file_and_key(tmp_path: Path, text: str, expected:
 def test_part_path_is_relative_to_the_description(tmp_path: Path) -> None:
     parts_dir = tmp_path / "parts"
     parts_dir.mkdir()
-    ideal_text = (Path(__file__).resolve().parents[2] / "sweeprig" / "sim" / "parts"
-                  / "ideal.toml").read_text(encoding="utf-8")
+    ideal_text = (PARTS_DIR / "ideal.toml").read_text(encoding="utf-8")
     (parts_dir / "mine.toml").write_text(ideal_text, encoding="utf-8")
     description = load_sim_bench_description(
         _write(tmp_path, 'part = "parts/mine.toml"\nseed = 3\n')

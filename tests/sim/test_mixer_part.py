@@ -45,8 +45,9 @@ def test_shipped_parts_load() -> None:
 
 
 def test_products_sit_at_m_lo_plus_n_rf() -> None:
-    # field notes frequency plan: RF 2.400 GHz, LO 2.330 GHz → IF 70 MHz, sum 4.730 GHz;
-    # every product sits at |m·f_LO + n·f_RF| (Razavi; Pozar)
+    # field notes, frequency plan (the standard mixer product relation): RF 2.400 GHz with
+    # LO 2.330 GHz → IF 70 MHz and a sum product at 4.730 GHz; every product sits at
+    # |m·f_LO + n·f_RF|
     part = load_part("ideal")
     resp = part.evaluate(OP, ToneInput(2.33e9, 0.0), [ToneInput(2.4e9, -40.0)])
     by_orders = {p.orders: p for p in resp.if_port}

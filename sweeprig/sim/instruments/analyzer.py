@@ -101,6 +101,7 @@ class SpectrumAnalyzer(ScpiInstrument):
         self.params = params or AnalyzerParams()
         self.rng = np.random.default_rng(seed)
         self._last: SweepResult | None = None
+        self._last_settings: SweepSettings | None = None
         self._last_time_s = -math.inf
         self._vbw_coupled = True
         self._register()
@@ -129,9 +130,9 @@ class SpectrumAnalyzer(ScpiInstrument):
     def sweep_now(self) -> SweepResult:
         """Take a sweep at the present settings and input (no time passes)."""
         with self.lock:
-            self._last = simulate_sweep(
-                self.input_spectrum(), self.sweep_settings(), self.params, self.rng
-            )
+            settings = self.sweep_settings()
+            self._last = simulate_sweep(self.input_spectrum(), settings, self.params, self.rng)
+            self._last_settings = settings
             self._last_time_s = self.clock.now()
             return self._last
 
@@ -146,6 +147,7 @@ class SpectrumAnalyzer(ScpiInstrument):
 
     def on_reset(self) -> None:
         self._last = None
+        self._last_settings = None
         self._last_time_s = -math.inf
         self._vbw_coupled = True
         self._couple()
@@ -269,13 +271,15 @@ class SpectrumAnalyzer(ScpiInstrument):
         self.start_operation(total_sweep_time_s(settings), operation_bit=OPER_SWEEPING)
 
     def _current_sweep(self) -> SweepResult:
-        """The trace to read: the last sweep; in continuous mode a fresh one when it is old."""
+        """The trace to read: the last sweep. In continuous mode a fresh one when the last is
+        older than a sweep time or was taken with other settings (single-sweep mode keeps the
+        last trace until the next INITiate, as a real analyzer does)."""
         last = self._last
         if last is None:
             return self.sweep_now()
         if self.value("continuous"):
             age = self.clock.now() - self._last_time_s
-            if age >= last.sweep_time_s:
+            if age >= last.sweep_time_s or self._last_settings != self.sweep_settings():
                 return self.sweep_now()
         return last
 

@@ -15,6 +15,11 @@ coefficient); the output line with orders ``(m, n_1, …, n_K)`` sits at
 exp(i·(m·φ_lo + Σ n_k·φ_k))``. The cost depends on the tone amplitudes only, never on how
 close the tones are.
 
+Grid sizes: the LO axis doubles from 32 points; RF axes grow by about 1.25× through fast FFT
+sizes from 2·max_order + 2; each stops when the coefficients in the top half of its order
+range (|n| ≥ N/4) are below ``ALIAS_TOL`` (1e-8, −160 dB) of the largest. The FFTs are
+``scipy.fft.rfft``/``rfftn`` (the same transform as ``numpy.fft``, with less call overhead).
+
 Conventions: amplitudes are peak volts at the core (differential), currents are peak amperes,
 phases radians, frequencies Hz. Coefficients are those of the complex exponential series
 (``f(θ) = Σ c_m·exp(i·m·θ)``); a real line at f > 0 has peak amplitude ``2·|c|``.
@@ -33,8 +38,8 @@ from numpy.typing import NDArray
 
 from sweeprig.sim.mixer.core import pair_fraction, switching_functions
 
-ALIAS_TOL = 1e-8  # top quarter of each axis' spectrum below this fraction of the largest
-PRUNE_REL = 1e-13  # coefficients below this fraction of their factor's largest are rounding
+ALIAS_TOL = 1e-8  # top of each axis' spectrum below this fraction of the largest (−160 dB)
+PRUNE_REL = 1e-13  # below this fraction of the largest a coefficient is rounding noise
 MERGE_TOL_HZ = 1e-3  # lines closer than this are one line
 _MAX_LO_GRID = 1 << 16
 _MAX_RF_POINTS = 1 << 20

@@ -1,0 +1,470 @@
+"""One run reduced to its datasheet figures and verdict: :func:`reduce_run`.
+
+Reads the run from the store (finished or not), builds the capture table
+(:mod:`sweeprig.analysis.load`), decides what each study measured, runs the matching pure
+analysis functions, and judges the figures against the sequence's ``[[spec]]`` limits,
+parsed from the sequence text stored with the run.
+
+What each study feeds, from the shape of its sweep (the sequence's axes when the stored
+sequence can be read, else the points themselves):
+
+* RF power and LO power fixed, one tone: ``conversion_gain`` at every point; with several RF
+  frequencies also ``gain_flatness``; over several temperatures also ``gain_tempco``;
+* RF power swept, one tone: the compression figures (``small_signal_gain``, P0.1dB, P1dB,
+  P3dB, Psat);
+* two tones: the intercept figures, their fit range limited by the P1dB measured at the same
+  temperature, supply and LO (when the run has it);
+* LO power swept (RF power fixed): ``lo_power_for_gain``;
+* whatever the shape: isolation, image rejection, supply current and the m×n spurs, from the
+  readings that are there.
+
+A datasheet's conversion gain is stated at a fixed small drive, so swept-drive studies do not
+add ``conversion_gain`` figures (their gain is in ``small_signal_gain`` and the plots).
+
+Spec names map to figure names by dropping the unit suffix (``iip3_dbm`` → ``iip3``); a
+spec's ``temperature``, ``supply`` and ``study`` become the limit's conditions. The verdict
+is the assessment's (fail > inconclusive > pass); a run that is not complete can fail but
+not pass: a passing partial run is inconclusive.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import math
+import tomllib
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from datetime import datetime
+from pathlib import Path
+from types import MappingProxyType
+
+import numpy as np
+import pandas as pd
+
+from sweeprig import analysis as an
+from sweeprig.analysis.captures import CONDITION_COLUMNS
+from sweeprig.analysis.figures import Figure
+from sweeprig.analysis.limits import INCONCLUSIVE, PASS, Assessment, Limit, Verdict, assess
+from sweeprig.analysis.load import captures_from_frames
+from sweeprig.errors import SweeprigError
+from sweeprig.formats.fields import axis_len
+from sweeprig.formats.sequence import Sequence, Study, load_sequence, sequence_from_dict
+from sweeprig.plan.frequencies import wanted_orders
+from sweeprig.store.base import EventRecord, InstrumentRecord, RunStore
+
+#: What a study can feed (see the module docstring).
+ROLE_GAIN = "gain"
+ROLE_FLATNESS = "flatness"
+ROLE_TEMPCO = "tempco"
+ROLE_COMPRESSION = "compression"
+ROLE_TWO_TONE = "two_tone"
+ROLE_LO_DRIVE = "lo_drive"
+ROLE_SPURS = "spurs"
+ROLE_ISOLATION = "isolation"
+ROLE_IMAGE = "image"
+ROLE_SUPPLY = "supply"
+
+#: Run states shown in reports: ``complete``, ``aborted``, or ``partial`` (not finished: still
+#: running, interrupted, or stored complete with points missing).
+STATE_COMPLETE = "complete"
+STATE_ABORTED = "aborted"
+STATE_PARTIAL = "partial"
+
+_ISOLATION_READINGS = ("lo_at_if", "lo_at_rf", "rf_at_if")
+_TWO_TONE_READINGS = ("im3_low", "im3_high", "im2_low", "im2_high")
+
+
+@dataclass(frozen=True)
+class StudyInfo:
+    """One study as the reduction saw it: points stored (and planned, when known), the
+    capture readings it holds, its roles, and the temperatures and supplies it covered."""
+
+    name: str
+    points: int
+    points_planned: int | None
+    readings: tuple[str, ...]
+    roles: tuple[str, ...]
+    temperatures_c: tuple[float, ...]
+    supplies_v: tuple[float, ...]
+
+
+@dataclass(frozen=True)
+class RunFigures:
+    """A run reduced to figures and a verdict (see the module docstring).
+
+    Times: ``created``/``finished`` UTC; ``duration_sim_s`` bench-clock seconds from the first
+    point's start to the last point's end; ``duration_wall_s`` wall seconds from the run's
+    creation to its end (or its last point, while unfinished). ``sequence_sha256_ok`` says
+    whether the stored sequence text still hashes to the stored SHA-256. ``notes`` are
+    plain-language remarks on what could not be done. ``captures`` is the capture table the
+    figures came from (one row per reading).
+    """
+
+    run_id: int
+    title: str
+    part: str
+    serial: str
+    operator: str
+    state: str
+    status: str
+    reason: str | None
+    simulated: bool
+    created: datetime
+    finished: datetime | None
+    points_done: int
+    points_total: int | None
+    sequence_path: str
+    sequence_sha256: str
+    sequence_sha256_ok: bool
+    bench_path: str | None
+    bench_sha256: str | None
+    instruments: tuple[InstrumentRecord, ...]
+    duration_sim_s: float | None
+    duration_wall_s: float | None
+    figures: tuple[Figure, ...]
+    limits: tuple[Limit, ...]
+    assessment: Assessment
+    verdict: Verdict
+    studies: tuple[StudyInfo, ...]
+    conditions: Mapping[str, tuple[float, ...]]
+    events: tuple[EventRecord, ...]
+    notes: tuple[str, ...]
+    captures: pd.DataFrame = field(compare=False, repr=False)
+
+    def figures_named(self, name: str) -> list[Figure]:
+        """Every figure called ``name``, in reduction order."""
+        return [f for f in self.figures if f.name == name]
+
+    def studies_with(self, role: str) -> list[str]:
+        """Names of the studies that have ``role``."""
+        return [s.name for s in self.studies if role in s.roles]
+
+
+def reduce_run(store: RunStore, run_id: int) -> RunFigures:
+    """Reduce run ``run_id`` of ``store`` to figures, limits and a verdict.
+
+    Raises :class:`~sweeprig.errors.StoreError` when there is no such run; anything that only
+    limits the result (an unreadable stored sequence, a study without the readings a figure
+    needs) becomes a note instead.
+    """
+    info = store.run(run_id)
+    points = store.points_frame(run_id)
+    readings = store.readings_frame(run_id)
+    events = tuple(store.events(run_id))
+    notes: list[str] = []
+    sequence = _stored_sequence(info.sequence_text, info.sequence_path, info.sequence_sha256,
+                                notes)
+    orders = None
+    if sequence is not None:
+        orders = wanted_orders(sequence.mixing.conversion, sequence.mixing.lo_side)
+    captures = captures_from_frames(points, readings, wanted_orders=orders)
+    studies = _study_infos(captures, points, sequence)
+    figures = _figures(captures, studies, notes)
+    limits = limits_from_sequence(sequence) if sequence is not None else ()
+    assessment = assess(figures, limits)
+    state = _state(info.status, info.points_done, info.points_total)
+    verdict: Verdict = assessment.verdict
+    if not limits:
+        notes.append("the sequence has no [[spec]] limits: nothing to pass or fail")
+    elif verdict == PASS and state != STATE_COMPLETE:
+        verdict = INCONCLUSIVE
+        notes.append(f"the run is {state}: every limit met so far, but not every planned "
+                     "point was measured")
+    for limit in assessment.untested:
+        notes.append(f"no figure for the limit {limit.text()}")
+    return RunFigures(
+        run_id=info.id,
+        title=info.title,
+        part=info.part,
+        serial=info.serial,
+        operator=info.operator,
+        state=state,
+        status=info.status,
+        reason=info.reason,
+        simulated=info.simulated,
+        created=info.created,
+        finished=info.finished,
+        points_done=info.points_done,
+        points_total=info.points_total,
+        sequence_path=info.sequence_path,
+        sequence_sha256=info.sequence_sha256,
+        sequence_sha256_ok=_sha256(info.sequence_text) == info.sequence_sha256,
+        bench_path=info.bench_path,
+        bench_sha256=info.bench_sha256,
+        instruments=info.instruments,
+        duration_sim_s=_sim_duration(points),
+        duration_wall_s=_wall_duration(info.created, info.finished, points),
+        figures=tuple(figures),
+        limits=tuple(limits),
+        assessment=assessment,
+        verdict=verdict,
+        studies=studies,
+        conditions=_conditions(captures),
+        events=events,
+        notes=tuple(notes),
+        captures=captures,
+    )
+
+
+# ---------------------------------------------------------------------------------------------
+# limits
+
+#: Spec figure names (``docs/sequence-format.md``, section [[spec]]) → analysis figure names.
+SPEC_FIGURES: Mapping[str, str] = MappingProxyType({
+    "conversion_gain_db": "conversion_gain",
+    "gain_flatness_db": "gain_flatness",
+    "input_p1db_dbm": "input_p1db",
+    "output_p1db_dbm": "output_p1db",
+    "iip3_dbm": "iip3",
+    "oip3_dbm": "oip3",
+    "iip2_dbm": "iip2",
+    "lo_if_isolation_db": "lo_if_isolation",
+    "lo_rf_isolation_db": "lo_rf_isolation",
+    "rf_if_isolation_db": "rf_if_isolation",
+    "image_rejection_db": "image_rejection",
+    "supply_current_a": "supply_current",
+    "spur_dbc": "spur_dbc",
+})
+
+
+def limits_from_sequence(sequence: Sequence) -> tuple[Limit, ...]:
+    """The sequence's ``[[spec]]`` entries as analysis limits (see the module docstring)."""
+    out: list[Limit] = []
+    for spec in sequence.spec:
+        conditions: dict[str, float | str] = {}
+        if spec.temperature is not None:
+            conditions["temperature_c"] = float(spec.temperature)
+        if spec.supply is not None:
+            conditions["supply_v"] = float(spec.supply)
+        if spec.study is not None:
+            conditions["study"] = spec.study
+        out.append(Limit(
+            name=SPEC_FIGURES[spec.figure],
+            min=spec.min,
+            max=spec.max,
+            conditions=MappingProxyType(conditions),
+            label=spec.note or spec.figure,
+        ))
+    return tuple(out)
+
+
+def _stored_sequence(text: str, path: str, sha256: str, notes: list[str]) -> Sequence | None:
+    """The sequence as stored with the run; with includes, the file itself when it is
+    unchanged. None (and a note) when it cannot be read."""
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        notes.append(f"the stored sequence text is not valid TOML ({exc}): no limits applied")
+        return None
+    try:
+        if data.get("include"):
+            file = Path(path)
+            if file.is_file() and _sha256(file.read_text(encoding="utf-8")) == sha256:
+                return load_sequence(file)
+            notes.append("the sequence includes other files, and its file has changed or "
+                         "moved since the run: limits are read from the stored text alone")
+            data = {k: v for k, v in data.items() if k != "include"}
+        return sequence_from_dict(data)
+    except (SweeprigError, OSError, UnicodeDecodeError) as exc:
+        what = exc.what if isinstance(exc, SweeprigError) else str(exc)
+        notes.append(f"the stored sequence could not be read ({what}): no limits applied, "
+                     "studies classified from the points")
+        return None
+
+
+def _sha256(text: str) -> str:
+    return hashlib.sha256(text.encode("utf-8")).hexdigest()
+
+
+# ---------------------------------------------------------------------------------------------
+# studies and figures
+
+
+def _study_infos(
+    captures: pd.DataFrame, points: pd.DataFrame, sequence: Sequence | None
+) -> tuple[StudyInfo, ...]:
+    """One :class:`StudyInfo` per study, in the order of the sequence (else of the points)."""
+    names = list(dict.fromkeys(points["study"].astype(str).tolist()))
+    if sequence is not None:
+        planned = [s.name for s in sequence.study]
+        names = [n for n in planned if n in names] + [n for n in names if n not in planned]
+    factor = 1
+    if sequence is not None:
+        factor = sequence.temperature_count() * sequence.supply_count()
+    out: list[StudyInfo] = []
+    for name in names:
+        rows = captures[captures["study"] == name]
+        point_rows = points[points["study"] == name]
+        kinds = tuple(dict.fromkeys(rows["reading"].astype(str).tolist()))
+        study = _sequence_study(sequence, name)
+        shape = _shape_from_sequence(study) if study is not None else _shape_from_points(
+            point_rows)
+        roles = _roles(kinds, *shape, temperatures=point_rows["temperature_c"].nunique())
+        out.append(StudyInfo(
+            name=name,
+            points=len(point_rows),
+            points_planned=study.count() * factor if study is not None else None,
+            readings=kinds,
+            roles=roles,
+            temperatures_c=_distinct(point_rows["temperature_c"]),
+            supplies_v=_distinct(point_rows["supply_v"]),
+        ))
+    return tuple(out)
+
+
+def _sequence_study(sequence: Sequence | None, name: str) -> Study | None:
+    if sequence is None:
+        return None
+    try:
+        return sequence.study_named(name)
+    except KeyError:
+        return None
+
+
+def _shape_from_sequence(study: Study) -> tuple[bool, bool, bool, bool]:
+    """(two tones, RF power swept, LO power swept, RF frequency swept) from the study's axes."""
+    return (
+        study.two_tone,
+        axis_len(study.rf_power) > 1,
+        axis_len(study.lo_power) > 1,
+        axis_len(study.rf_frequency) > 1,
+    )
+
+
+def _shape_from_points(points: pd.DataFrame) -> tuple[bool, bool, bool, bool]:
+    """The same, from the stored points (for a run whose sequence cannot be read)."""
+    if points.empty:
+        return False, False, False, False
+    frame = points.fillna({"temperature_c": -1e9, "supply_v": -1e9})
+    two = bool(points["rf2_freq_hz"].notna().any())
+
+    def swept(column: str, fixed: list[str]) -> bool:
+        counts = frame.groupby(fixed, dropna=False)[column].nunique()
+        return bool((counts > 1).any())
+
+    base = ["temperature_c", "supply_v"]
+    return (
+        two,
+        swept("rf_power_dbm", [*base, "lo_power_dbm", "rf_freq_hz"]),
+        swept("lo_power_dbm", [*base, "rf_power_dbm", "rf_freq_hz"]),
+        swept("rf_freq_hz", [*base, "lo_power_dbm", "rf_power_dbm"]),
+    )
+
+
+def _roles(
+    readings: tuple[str, ...], two_tone: bool, rf_swept: bool, lo_swept: bool,
+    freq_swept: bool, *, temperatures: int,
+) -> tuple[str, ...]:
+    roles: list[str] = []
+    has_if = "if" in readings
+    if two_tone:
+        if any(r in readings for r in _TWO_TONE_READINGS):
+            roles.append(ROLE_TWO_TONE)
+    elif has_if and rf_swept:
+        roles.append(ROLE_COMPRESSION)
+    elif has_if and lo_swept:
+        roles.append(ROLE_LO_DRIVE)
+    elif has_if:
+        roles.append(ROLE_GAIN)
+        if freq_swept:
+            roles.append(ROLE_FLATNESS)
+        if temperatures > 1:
+            roles.append(ROLE_TEMPCO)
+    if "spur" in readings:
+        roles.append(ROLE_SPURS)
+    if any(r in readings for r in _ISOLATION_READINGS):
+        roles.append(ROLE_ISOLATION)
+    if "image" in readings:
+        roles.append(ROLE_IMAGE)
+    if "supply_current" in readings:
+        roles.append(ROLE_SUPPLY)
+    return tuple(roles)
+
+
+def _figures(
+    captures: pd.DataFrame, studies: tuple[StudyInfo, ...], notes: list[str]
+) -> list[Figure]:
+    """Every figure of the run, study roles deciding which analysis runs where."""
+
+    def having(role: str) -> list[str]:
+        return [s.name for s in studies if role in s.roles]
+
+    figures: list[Figure] = []
+    if captures.empty:
+        notes.append("no readings are stored yet: no figures")
+        return figures
+    if names := having(ROLE_GAIN):
+        figures += an.conversion_gain_figures(captures, study=names)
+    if names := having(ROLE_FLATNESS):
+        figures += an.gain_flatness_figures(captures, study=names)
+    if names := having(ROLE_TEMPCO):
+        figures += an.gain_tempco_figures(captures, study=names)
+    compression: list[Figure] = []
+    if names := having(ROLE_COMPRESSION):
+        compression = an.compression_figures(captures, study=names)
+        figures += compression
+    if names := having(ROLE_TWO_TONE):
+        source = an.p1db_matcher(compression) if compression else None
+        if source is None:
+            notes.append("no P1dB in this run: the intercept fits chose their range from the "
+                         "fundamental's slope")
+        figures += an.intercept_figures(captures, study=names, input_p1db_dbm=source)
+    if names := having(ROLE_LO_DRIVE):
+        figures += an.lo_drive_figures(captures, study=names)
+    if names := having(ROLE_ISOLATION):
+        figures += an.isolation_figures(captures, study=names)
+    if names := having(ROLE_IMAGE):
+        figures += an.image_rejection_figures(captures, study=names)
+    if names := having(ROLE_SUPPLY):
+        figures += an.supply_figures(captures, study=names)
+    if names := having(ROLE_SPURS):
+        figures += an.spur_figures(captures, study=names)
+    return figures
+
+
+# ---------------------------------------------------------------------------------------------
+# run facts
+
+
+def _state(status: str, done: int, total: int | None) -> str:
+    if status == "aborted":
+        return STATE_ABORTED
+    if status == "complete" and (total is None or done >= total):
+        return STATE_COMPLETE
+    return STATE_PARTIAL
+
+
+def _sim_duration(points: pd.DataFrame) -> float | None:
+    if points.empty or "sim_start_s" not in points:
+        return None
+    start = points["sim_start_s"].min()
+    end = points["sim_end_s"].max()
+    if not (math.isfinite(start) and math.isfinite(end)):
+        return None
+    return float(end - start)
+
+
+def _wall_duration(created: datetime, finished: datetime | None,
+                   points: pd.DataFrame) -> float | None:
+    end = finished
+    if end is None and not points.empty and "wall_end" in points:
+        last = points["wall_end"].max()
+        end = None if pd.isna(last) else last.to_pydatetime()
+    if end is None:
+        return None
+    return max((end - created).total_seconds(), 0.0)
+
+
+def _distinct(series: pd.Series) -> tuple[float, ...]:
+    values = series.to_numpy(dtype=float, na_value=np.nan)
+    return tuple(float(v) for v in np.unique(values[np.isfinite(values)]))
+
+
+def _conditions(captures: pd.DataFrame) -> Mapping[str, tuple[float, ...]]:
+    """Distinct values of every condition column over the run (empty columns left out)."""
+    out: dict[str, tuple[float, ...]] = {}
+    for column in CONDITION_COLUMNS:
+        values = _distinct(captures[column]) if column in captures else ()
+        if values:
+            out[column] = values
+    return MappingProxyType(out)
