@@ -60,7 +60,7 @@ def test_demo_quick_sequence_loads() -> None:
     assert seq.mixing.if_frequency == 70e6
     assert [s.name for s in seq.study] == ["gain", "two-tone"]
     assert seq.count_points() == 5
-    assert seq.spec[1].figure == "iip3_dbm" and seq.spec[1].min == 10.0
+    assert seq.spec[1].figure == "iip3_dbm" and seq.spec[1].min == 0.0
 
 
 def test_units_become_internal_floats(tmp_path: Path) -> None:
