@@ -113,6 +113,13 @@ def serve_command(
     """Serve the simulated instruments on raw SCPI sockets until Ctrl-C.
 
     Prints each role's VISA resource string and *IDN? reply; several clients may connect.
+
+    Examples:
+
+      sweeprig sim serve --port-base 5025
+
+      sweeprig sim serve --write-bench served.toml   (then, in another terminal:
+      sweeprig run sequences/demo/quick.toml --bench served.toml)
     """
     remote = not _is_loopback(host)
     if remote:

@@ -399,8 +399,11 @@ class Runner:
             if block:
                 configured.append(source)
             sent |= block
-        if point.rf2_freq_hz is None and self.d.rf2 is not None:
-            sent |= self.d.rf2.set_output(False)
+        if point.rf2_freq_hz is None and self.d.rf2 is not None and self.d.rf2.set_output(False):
+            configured.append(self.d.rf2)
+            sent = True
+        # The error check also orders things: its reply proves each source has applied its
+        # settings before the analyzer (another connection) sweeps.
         self._check(*configured)
         return sent
 
