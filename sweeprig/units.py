@@ -101,7 +101,10 @@ def parse_quantity(value: object, kind: str, *, where: str | None = None) -> flo
     if isinstance(value, bool) or value is None:
         raise _error(value, kind, where, "is not a quantity")
     if isinstance(value, int | float):
-        number, unit = float(value), ""
+        try:
+            number, unit = float(value), ""
+        except OverflowError:  # a huge integer literal
+            raise _error(value, kind, where, "is out of range") from None
     elif isinstance(value, str):
         match = _QUANTITY_RE.match(value)
         if match is None:

@@ -9,6 +9,7 @@ from typing import Annotated
 import pandas as pd
 import typer
 from rich.console import Console
+from rich.text import Text
 
 from sweeprig.errors import InputError, SweeprigError
 from sweeprig.store.base import DEFAULT_STORE_PATH
@@ -49,7 +50,9 @@ def bus_command(
                 start, end = _point_window(db, run_id, point)
             entries = db.bus_log(run_id, limit=last, since=start, until=end, role=role)
     except SweeprigError as exc:
-        errors.print(f"[red]error:[/red] {exc.message()}")
+        message = Text("error: ", style="bold red")
+        message.append(exc.message())
+        errors.print(message)
         raise typer.Exit(exc.exit_code) from None
     console = Console(highlight=False, soft_wrap=True)
     if not entries:

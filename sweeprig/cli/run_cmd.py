@@ -16,12 +16,19 @@ from rich.progress import (
     TimeElapsedColumn,
     TimeRemainingColumn,
 )
+from rich.text import Text
 
+from sweeprig.analysis.limits import FAIL
+from sweeprig.analysis.reduce import reduce_run
+from sweeprig.cli.report_cmd import VERDICT_FAILED_EXIT_CODE
 from sweeprig.engine.runner import PointResult
 from sweeprig.engine.session import LoadedFiles, RunOutcome, resume_run, run_sequence
 from sweeprig.errors import SweeprigError
 from sweeprig.plan.duration import format_duration
+from sweeprig.report import write_report
+from sweeprig.report.terminal import print_summary
 from sweeprig.store.base import DEFAULT_STORE_PATH
+from sweeprig.store.sqlite import SqliteRunStore
 
 _RUN_HELP = """Run a sequence file on a bench, unattended, storing every point as it is taken.
 
@@ -58,14 +65,21 @@ def run_command(
     bus_log: Annotated[bool, typer.Option(
         "--bus-log", help="record every SCPI exchange in the run store (see `sweeprig bus`)",
     )] = False,
+    report: Annotated[bool, typer.Option(
+        "--report/--no-report", help="reduce the run to figures and write the HTML report "
+        "next to the store when it ends")] = True,
+    fail_on_verdict: Annotated[bool, typer.Option(
+        "--fail-on-verdict", help=f"exit with code {VERDICT_FAILED_EXIT_CODE} when the "
+        "figures fail the sequence's spec limits")] = False,
 ) -> None:
     _drive(lambda started, point_done: run_sequence(
         sequence, bench, sim=sim, sim_description=sim_bench, store_path=store,
         realtime=realtime, bus_log=bus_log, on_start=started, on_point=point_done,
-    ), quiet=quiet)
+    ), quiet=quiet, report=report, fail_on_verdict=fail_on_verdict)
 
 
-def _drive(start: Callable[..., RunOutcome], *, quiet: bool) -> None:
+def _drive(start: Callable[..., RunOutcome], *, quiet: bool, report: bool = True,
+           fail_on_verdict: bool = False) -> None:
     """Run ``start(on_start, on_point)`` with a progress display; print how it ended."""
     console = Console(highlight=False)
     errors = Console(stderr=True, highlight=False, soft_wrap=True)
@@ -97,12 +111,35 @@ def _drive(start: Callable[..., RunOutcome], *, quiet: bool) -> None:
         outcome = start(started, point_done)
     except SweeprigError as exc:
         progress.stop()
-        errors.print(f"[red]error:[/red] {exc.message()}")
+        message = Text("error: ", style="bold red")
+        message.append(exc.message())  # plain text: messages name keys such as [roles.sa]
+        errors.print(message)
         raise typer.Exit(exc.exit_code) from None
     progress.stop()
     _print_outcome(console, outcome)
-    if outcome.status != "complete":
+    verdict = _report(console, errors, outcome) if report else None
+    if outcome.status != "complete" or (outcome.safe is not None and not outcome.safe.ok):
         raise typer.Exit(1)
+    if fail_on_verdict and verdict == FAIL:
+        raise typer.Exit(VERDICT_FAILED_EXIT_CODE)
+
+
+def _report(console: Console, errors: Console, outcome: RunOutcome) -> str | None:
+    """Reduce the run to figures, write the report next to the store, print the summary.
+
+    A problem here is reported but does not change how the run ended. Returns the verdict.
+    """
+    folder = outcome.store_path.parent / f"run-{outcome.run_id}"
+    try:
+        with SqliteRunStore(outcome.store_path, create=False) as db:
+            figures = reduce_run(db, outcome.run_id)
+        files = write_report(figures, folder)
+    except SweeprigError as exc:
+        errors.print(Text("report not written: " + exc.message()))
+        return None
+    print_summary(figures, console)
+    console.print(Text(f"  report: {files.html}  (figures: {files.figures_json})"))
+    return figures.verdict
 
 
 def _summary(result: PointResult) -> str:
@@ -134,10 +171,8 @@ def _print_outcome(console: Console, outcome: RunOutcome) -> None:
         else:
             console.print("[red]  SAFE STATE INCOMPLETE — check the bench by hand now:[/red] "
                           + "; ".join(f"{n}: {e}" for n, e in outcome.safe.failed))
-    console.print(f"  results: {outcome.store_path} (run {outcome.run_id}); "
-                  f"log: {outcome.log_path}")
-    console.print(f"  next: sweeprig status {outcome.run_id} --store {outcome.store_path}; "
-                  f"sweeprig export {outcome.run_id} --store {outcome.store_path} --to results/")
+    console.print(Text(f"  results: {outcome.store_path} (run {outcome.run_id}); "
+                       f"log: {outcome.log_path}"))
 
 
 _RESUME_HELP = """Continue an interrupted or aborted run: measure only the points not yet stored.
@@ -167,11 +202,13 @@ def resume_command(
     quiet: Annotated[bool, typer.Option("--quiet", "-q", help="no progress display")] = False,
     bus_log: Annotated[bool, typer.Option(
         "--bus-log", help="record every SCPI exchange in the run store")] = False,
+    report: Annotated[bool, typer.Option(
+        "--report/--no-report", help="write the HTML report when the run ends")] = True,
 ) -> None:
     _drive(lambda started, point_done: resume_run(
         run_id, store_path=store, accept_changes=accept_changes, sim_description=sim_bench,
         bus_log=bus_log, on_start=started, on_point=point_done,
-    ), quiet=quiet)
+    ), quiet=quiet, report=report)
 
 
 def register(app: typer.Typer) -> None:

@@ -14,7 +14,7 @@ from collections.abc import Callable, Iterator, Mapping
 from dataclasses import dataclass, field
 
 from sweeprig.clock import Clock
-from sweeprig.errors import InputError
+from sweeprig.errors import InputError, InstrumentError, TransportError
 from sweeprig.formats.bench import Bench
 from sweeprig.instruments import (
     AnalyzerDriver,
@@ -48,6 +48,8 @@ class BenchDrivers:
     switch: SwitchDriver | None = None
     simctl: SimControlDriver | None = None
     transports: dict[str, Transport] = field(default_factory=dict)
+    startup_errors: dict[str, list[str]] = field(default_factory=dict)
+    """Errors found in each instrument's queue when the bench was opened (role → texts)."""
 
     def items(self) -> Iterator[tuple[str, Driver]]:
         """(role, driver) for every present role."""
@@ -124,13 +126,33 @@ def open_bench(
             drivers.transports[role] = transport
             driver = make_driver(profile, role, transport, clock=clock)
             setattr(drivers, role, driver)
-            driver.identify()
-            driver.errors()  # start from an empty error queue
+            stale = _identify(driver)
+            if stale:
+                drivers.startup_errors[role] = stale
         _apply_bench_limits(bench, drivers)
     except BaseException:
         drivers.close()
         raise
     return drivers
+
+
+IDENTIFY_ATTEMPTS = 3
+"""Tries at identifying an instrument whose link fails (timeout, garbled reply)."""
+
+
+def _identify(driver: Driver) -> list[str]:
+    """``*IDN?`` checked against the profile, then the error queue drained; a failing link
+    is reconnected and tried again. Returns the texts that were in the queue."""
+    for attempt in range(1, IDENTIFY_ATTEMPTS + 1):
+        try:
+            driver.identify()
+            return [str(e) for e in driver.errors()]
+        except InstrumentError:  # a garbled *IDN? looks like a wrong instrument: ask again
+            if attempt == IDENTIFY_ATTEMPTS:
+                raise
+            with contextlib.suppress(TransportError):
+                driver.transport.reconnect()
+    raise AssertionError("unreachable")  # pragma: no cover
 
 
 def _apply_bench_limits(bench: Bench, drivers: BenchDrivers) -> None:

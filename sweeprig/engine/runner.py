@@ -33,12 +33,14 @@ import math
 from collections.abc import Callable, Iterable
 from dataclasses import dataclass, field
 
+import numpy as np
+
 from sweeprig.clock import Clock
 from sweeprig.engine.connect import BenchDrivers
 from sweeprig.errors import InputError, InstrumentError, TransportError
 from sweeprig.formats.bench import Bench
 from sweeprig.formats.sequence import Sequence
-from sweeprig.instruments import Driver
+from sweeprig.instruments import AnalyzerDriver, Driver
 from sweeprig.plan.expand import Point
 from sweeprig.plan.readings import Reading
 from sweeprig.store.base import PointRecord, ReadingRecord, RunStore, utc_now
@@ -48,7 +50,8 @@ CHAMBER_POLL_S = 10.0
 CHAMBER_TIMEOUT_S = 4 * 3600.0
 """Give up waiting for a set point after this long, s."""
 NOISE_OFFSET_RBW = 4.0
-"""The noise-floor marker sits this many RBWs above the product (inside the span)."""
+"""Trace points this many RBWs or more from the product count as noise (the Gaussian RBW
+filter is far below −100 dB there)."""
 
 
 PON_BIT = 0x80
@@ -145,7 +148,7 @@ class Runner:
 
     def run(self, points: Iterable[Point]) -> int:
         """Measure and store every point; returns how many were stored."""
-        self._prepare()
+        self._prepare_with_recovery()
         stored = 0
         for point in points:
             result = self.measure_with_recovery(point)
@@ -157,6 +160,20 @@ class Runner:
                 self.on_point(result)
         return stored
 
+    def _prepare_with_recovery(self) -> None:
+        """:meth:`_prepare`, with the bench recovered and the set-up tried again on a fault."""
+        for attempt in range(1, self.policy.point_attempts + 1):
+            try:
+                self._prepare()
+                return
+            except InstrumentError as exc:
+                if attempt == self.policy.point_attempts or (
+                        self.policy.on_error == "stop" and not isinstance(exc, TransportError)):
+                    raise
+                self._event("warning", "link" if isinstance(exc, TransportError) else "error",
+                            f"set-up, attempt {attempt}: {exc.message().splitlines()[0]}")
+                self._recover_safely(exc)
+
     def _prepare(self) -> None:
         """Instrument set-up that holds for the whole run (no output enabled)."""
         for _role, driver in self.d.items():
@@ -165,8 +182,10 @@ class Runner:
             self.d.dc.set_current_limit(float(self.bench.limits.supply_max_current))
         self._check(*(d for _, d in self.d.items()))
         if self.policy.reset_check:
-            for _role, driver in self._checked_drivers():
-                driver.event_status()  # clear the power-on bit of a freshly started instrument
+            for role, driver in self._checked_drivers():
+                if driver.event_status() & PON_BIT:  # reading clears it
+                    self._event("info", "reset", f"role {role!r} reports a power-on since it "
+                                "was last used")
 
     # -- faults -----------------------------------------------------------------------------
 
@@ -195,7 +214,7 @@ class Runner:
                     self.skipped += 1
                     self._event("warning", "skip", f"point {point.index} skipped after "
                                 f"{attempt} attempts: {first_line}", point.index)
-                    self._recover(error)
+                    self._recover_safely(error)
                     return None
                 raise GaveUp(
                     f"point {point.index} failed {attempt} times; last: {first_line}",
@@ -203,8 +222,27 @@ class Runner:
                     fix="check the instrument and its connection; the data taken so far "
                     "is stored, and the run can be resumed with `sweeprig resume`",
                 ) from error
-            self._recover(error)
+            self._recover_safely(error)
         raise AssertionError("unreachable")  # pragma: no cover
+
+    def _recover_safely(self, cause: InstrumentError) -> None:
+        """:meth:`_recover`, tried again if a fault strikes during the recovery itself."""
+        for attempt in range(1, self.policy.reconnect_attempts + 2):
+            try:
+                self._recover(cause)
+                return
+            except GaveUp:
+                raise
+            except InstrumentError as exc:
+                cause = exc
+                self._event("warning", "link" if isinstance(exc, TransportError) else "error",
+                            f"recovery attempt {attempt}: {exc.message().splitlines()[0]}")
+        raise GaveUp(
+            f"the bench could not be recovered: {cause.message().splitlines()[0]}",
+            where=cause.where,
+            fix="check the instruments; the data taken so far is stored, and the run can be "
+            "resumed with `sweeprig resume`",
+        ) from cause
 
     def _recover(self, cause: InstrumentError) -> None:
         """Bring every instrument back to a known state after ``cause``.
@@ -383,11 +421,16 @@ class Runner:
     def _apply_sources(self, point: Point) -> bool:
         """LO, RF, RF2 to the point's settings; outputs on. True if anything was sent."""
         sent = False
+        configured: list[Driver] = []
+        # What goes off goes first, so the DUT's RF port never takes both tones at the new
+        # level of one and the old level of the other.
+        if point.rf2_freq_hz is None and self.d.rf2 is not None and self.d.rf2.set_output(False):
+            configured.append(self.d.rf2)
+            sent = True
         plan = [("lo", point.lo_freq_hz, point.lo_power_dbm, "lo"),
                 ("rf", point.rf_freq_hz, point.rf_power_dbm, "rf")]
         if point.rf2_freq_hz is not None and point.rf2_power_dbm is not None:
             plan.append(("rf2", point.rf2_freq_hz, point.rf2_power_dbm, "rf2"))
-        configured: list[Driver] = []
         for role, freq_hz, power_dbm, connection in plan:
             source = getattr(self.d, role)
             if source is None:
@@ -399,9 +442,6 @@ class Runner:
             if block:
                 configured.append(source)
             sent |= block
-        if point.rf2_freq_hz is None and self.d.rf2 is not None and self.d.rf2.set_output(False):
-            configured.append(self.d.rf2)
-            sent = True
         # The error check also orders things: its reply proves each source has applied its
         # settings before the analyzer (another connection) sweeps.
         self._check(*configured)
@@ -436,9 +476,9 @@ class Runner:
             averages=a.averages,
         ):
             self._check(sa)
-        sa.sweep()
+        sa.sweep(a.measure_time_s)
         level = sa.marker_level_dbm(reading.freq_hz)
-        noise = sa.marker_level_dbm(reading.freq_hz + NOISE_OFFSET_RBW * a.rbw_hz)
+        noise = self._noise_floor_dbm(sa, reading.freq_hz, a.span_hz, a.rbw_hz)
         overload = sa.overloaded()
         if reading.rf_retune_hz is not None and rf is not None:
             rf.set_frequency(point.rf_freq_hz)
@@ -463,6 +503,24 @@ class Runner:
             attenuation_check=True if reading.attenuation_check else None,
             extra=_reading_extra(reading, level, loss),
         )
+
+    @staticmethod
+    def _noise_floor_dbm(sa: AnalyzerDriver, centre_hz: float, span_hz: float,
+                         rbw_hz: float) -> float:
+        """The displayed noise power around the product, dBm.
+
+        The mean *power* of the trace points more than ``NOISE_OFFSET_RBW`` RBWs from the
+        product (several hundred points: a steady estimate, where one marker sample of
+        log-detected noise scatters by about 5.6 dB). With too narrow a span for that, one
+        marker sample beside the product.
+        """
+        trace = sa.trace()
+        if trace.size >= 3 and span_hz > 0:
+            freqs = centre_hz + np.linspace(-span_hz / 2, span_hz / 2, trace.size)
+            away = np.abs(freqs - centre_hz) > NOISE_OFFSET_RBW * rbw_hz
+            if np.count_nonzero(away) >= 10:
+                return float(10.0 * np.log10(np.mean(10.0 ** (trace[away] / 10.0))))
+        return sa.marker_level_dbm(centre_hz + NOISE_OFFSET_RBW * rbw_hz)
 
     def _read_power_meter(self, point: Point, reading: Reading) -> ReadingRecord:
         pm = self.d.pm

@@ -348,6 +348,9 @@ def _execute(
                 note = "released stale locks: " + "; ".join(lock.released_stale)
                 logger.warning(note)
                 store.log_event(run_id, "warning", "lock", note)
+            for role, texts in drivers.startup_errors.items():
+                store.log_event(run_id, "info", "error_queue",
+                                f"role {role!r} queue held at start: " + "; ".join(texts))
             store.record_instruments(run_id, [
                 InstrumentRecord(role, d.resource, d.profile.name, d.idn or "")
                 for role, d in drivers.items()

@@ -94,9 +94,17 @@ class AnalyzerDriver(Driver):
             points=settings.points,
         )
 
-    def sweep(self) -> None:
-        """Start one sweep (all averages) and wait until it is complete."""
-        self.do("sweep")
+    def sweep(self, expected_s: float | None = None) -> None:
+        """Start one sweep (all averages) and wait until it is complete.
+
+        ``expected_s``: how long the sweep should take, s; the wait then ends after twice
+        that plus the transport's own timeout (never beyond the profile's limit), so a lost
+        reply costs seconds, not the profile's worst case.
+        """
+        limit = None
+        if expected_s is not None:
+            limit = 2.0 * expected_s + float(getattr(self.transport, "timeout_s", 5.0))
+        self.do("sweep", timeout_s=limit)
 
     def sweep_time_s(self) -> float:
         """Time of one sweep, s, as the analyzer reports it."""

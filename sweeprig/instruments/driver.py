@@ -40,6 +40,9 @@ from sweeprig.transport.base import Transport
 Value = float | int | bool | str
 """A setting's value: float (in the operation's unit), int, bool, or a choice name."""
 
+LIMIT_TOLERANCE = 1e-9
+"""Relative float tolerance of limit checks (matches the pre-flight check's)."""
+
 MAX_ERROR_READS = 64
 """Error-queue reads before giving up on an instrument that never answers ``0,...``."""
 
@@ -180,9 +183,12 @@ class Driver:
         low, high = self._limits.get(spec.name, (operation.min, operation.max))
         symbol = UNIT_SYMBOL.get(spec.unit, "")
         unit = f" {symbol}" if symbol else ""
-        if high is not None and number > high:
+        # The same float noise the pre-flight check allows (0.1 dBm + 0.2 dB of loss is
+        # 0.30000000000000004 dBm): a setting exactly at its limit is within it.
+        slack = LIMIT_TOLERANCE * max(1.0, abs(number))
+        if high is not None and number > high + slack:
             problem, bound = "above the maximum", high
-        elif low is not None and number < low:
+        elif low is not None and number < low - slack:
             problem, bound = "below the minimum", low
         else:
             return
@@ -230,15 +236,20 @@ class Driver:
         self._complete(operation)
         return True
 
-    def do(self, op: str, value: Value | None = None) -> None:
-        """Run the action ``op`` (with ``value`` if it takes one) and wait for completion."""
+    def do(self, op: str, value: Value | None = None, *,
+           timeout_s: float | None = None) -> None:
+        """Run the action ``op`` (with ``value`` if it takes one) and wait for completion.
+
+        ``timeout_s`` shortens the wait for completion below the profile's (never beyond it),
+        for a caller that knows how long the operation should take.
+        """
         operation = self.profile.op(op)
         token = None
         if operation.spec.value != "none":
             token = operation.render_value(self._checked(operation, value))
         for template in operation.do:
             self.write(Operation.fill(template, token))
-        self._complete(operation)
+        self._complete(operation, timeout_s)
 
     def ask(self, op: str, value: Value | None = None) -> Any:
         """Run the query ``op`` and return its parsed reply (a tuple when it has two queries;
@@ -300,14 +311,16 @@ class Driver:
             return blocks.parse_real32_block(reply.encode("latin-1"), where=where)
         return reply.strip()
 
-    def _complete(self, operation: Operation) -> None:
+    def _complete(self, operation: Operation, limit_s: float | None = None) -> None:
         completion = operation.completion
         if completion is None:
             return
+        timeout_s = completion.timeout_s if limit_s is None else min(limit_s,
+                                                                      completion.timeout_s)
         if completion.method == "opc":
             opc = self.profile.op("operation_complete")
             cmd = opc.ask[0]
-            reply = self.query(cmd, timeout_s=completion.timeout_s)
+            reply = self.query(cmd, timeout_s=timeout_s)
             if not blocks.parse_bool(reply, where=self.where(cmd)):
                 raise InstrumentError(
                     f"{cmd} answered {reply!r} instead of 1 after {operation.name!r}",
@@ -321,9 +334,9 @@ class Driver:
             reply = self.query(completion.query)
             if self._poll_done(reply, completion.until, completion.until_bits_clear):
                 return
-            if self.clock.now() - start >= completion.timeout_s:
+            if self.clock.now() - start >= timeout_s:
                 raise InstrumentError(
-                    f"{operation.name!r} did not complete within {completion.timeout_s:g} s "
+                    f"{operation.name!r} did not complete within {timeout_s:g} s "
                     f"(last reply to {completion.query!r}: {reply!r})",
                     where=self.where(completion.query),
                     fix="raise complete.timeout_s in the profile if the operation is slow, or "

@@ -1,1 +1,48 @@
-"""sweeprig.report"""
+"""sweeprig.report: a reduced run (:class:`~sweeprig.analysis.reduce.RunFigures`) as files.
+
+:func:`write_report` writes the whole set into one folder: ``report.html`` (self-contained,
+plots embedded), ``figures.json`` (every figure with the point indices behind it), and the
+tidy tables ``figures.csv``/``.parquet`` and ``captures.csv``/``.parquet``. The pieces:
+:mod:`~sweeprig.report.plots`, :mod:`~sweeprig.report.html`, :mod:`~sweeprig.report.tables`,
+:mod:`~sweeprig.report.terminal`.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+
+from sweeprig.analysis.reduce import RunFigures
+
+
+@dataclass(frozen=True)
+class ReportFiles:
+    """What :func:`write_report` wrote: the HTML report, the figures JSON and the tables."""
+
+    folder: Path
+    html: Path
+    figures_json: Path
+    tables: tuple[Path, ...]
+
+    @property
+    def all(self) -> tuple[Path, ...]:
+        return (self.html, self.figures_json, *self.tables)
+
+
+def write_report(run: RunFigures, folder: Path | str) -> ReportFiles:
+    """Write the report files of ``run`` into ``folder`` (created if missing).
+
+    Raises :class:`~sweeprig.errors.StoreError` naming the path when a file cannot be written.
+    """
+    from sweeprig.report.html import write_html
+    from sweeprig.report.plots import all_plots
+    from sweeprig.report.tables import make_folder, summary_rows, write_figures_json, write_tables
+
+    out = make_folder(Path(folder))
+    tables = write_tables(run, out)
+    figures = write_figures_json(run, out / "figures.json")
+    page = write_html(out / "report.html", run, summary_rows(run), all_plots(run))
+    return ReportFiles(out, page, figures, tuple(tables))
+
+
+__all__ = ["ReportFiles", "write_report"]

@@ -31,9 +31,16 @@ SEQUENCE = Path(__file__).parent / "data" / "engine_bench.toml"
 REPEATS = 3
 
 
-def _engine_pass(tmp: Path) -> tuple[float, int, list[tuple[str, str, bool]]]:
+def _reply_kind(received: str | None) -> str:
+    """"write", "text" or "block" (an IEEE 488.2 binary block reply)."""
+    if received is None:
+        return "write"
+    return "block" if received.startswith("<REAL") else "text"
+
+
+def _engine_pass(tmp: Path) -> tuple[float, int, list[tuple[str, str, str]]]:
     """Run the engine once; return (wall s for the point loop, points, transactions)."""
-    recorded: list[tuple[str, str, bool]] = []
+    recorded: list[tuple[str, str, str]] = []
     sequence = load_sequence(SEQUENCE)
     points = list(iter_points(sequence))
     with start_sim_bench(clock=VirtualClock()) as sim:
@@ -50,7 +57,7 @@ def _engine_pass(tmp: Path) -> tuple[float, int, list[tuple[str, str, bool]]]:
             runner._prepare()
             for role, transport in drivers.transports.items():
                 transport.on_transaction = (
-                    lambda t, role=role: recorded.append((role, t.sent, t.received is not None))
+                    lambda t, role=role: recorded.append((role, t.sent, _reply_kind(t.received)))
                 )
             start = time.perf_counter()
             for point in points:
@@ -62,7 +69,7 @@ def _engine_pass(tmp: Path) -> tuple[float, int, list[tuple[str, str, bool]]]:
     return elapsed, len(points), recorded
 
 
-def _bare_pass(transactions: list[tuple[str, str, bool]]) -> float:
+def _bare_pass(transactions: list[tuple[str, str, str]]) -> float:
     """Replay the transactions with plain pyvisa on a fresh bench; return wall s."""
     with start_sim_bench(clock=VirtualClock()) as sim:
         rm = pyvisa.ResourceManager("@py")
@@ -73,8 +80,11 @@ def _bare_pass(transactions: list[tuple[str, str, bool]]) -> float:
                                         write_termination="\n", timeout=5000)
                 sessions[role] = inst
             start = time.perf_counter()
-            for role, command, is_query in transactions:
-                if is_query:
+            for role, command, kind in transactions:
+                if kind == "block":
+                    sessions[role].query_binary_values(command, datatype="f",
+                                                       is_big_endian=True)
+                elif kind == "text":
                     sessions[role].query(command)
                 else:
                     sessions[role].write(command)

@@ -37,7 +37,8 @@ Part-file schema (TOML). Quantities may be written with units ("4 mA", "2.4 GHz"
     ``figure`` SSB noise figure at ``core.reference_temperature`` (required);
     ``figure_tempco`` dB per degC (default 0).
 ``[model]`` (optional, numerical settings)
-    ``max_lo_order`` (default 15), ``max_rf_order`` (Σ|n_k|, default 9), ``floor`` lines
+    ``max_lo_order`` (default 9: the highest LO harmonic kept in the output lines; spur
+    tables rarely go past 5), ``max_rf_order`` (Σ|n_k|, default 9), ``floor`` lines
     below this power are dropped (default −200 dBm).
 
 Evaluation conventions: powers in dBm at the part's own port planes (available power for
@@ -227,7 +228,7 @@ class NoiseTable(_Table):
 
 
 class ModelTable(_Table):
-    max_lo_order: _whole(1, 64) = 15
+    max_lo_order: _whole(1, 64) = 9
     max_rf_order: _whole(1, 25) = 9
     floor: _quantity("power") = -200.0
 
@@ -337,7 +338,7 @@ class MixerPart:
     isolation_rf_if_db: float | None = None
     isolation_rf_lo_db: float | None = None
     noise_figure_tempco_db_per_c: float = 0.0
-    max_lo_order: int = 15
+    max_lo_order: int = 9
     max_rf_order: int = 9
     floor_dbm: float = -200.0
     source: str = ""

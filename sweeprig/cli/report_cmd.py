@@ -1,0 +1,76 @@
+"""``sweeprig report``: reduce a stored run to figures, judge them, write the report files."""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Annotated
+
+import typer
+from rich.console import Console
+from rich.text import Text
+
+from sweeprig.analysis.limits import FAIL
+from sweeprig.analysis.reduce import reduce_run
+from sweeprig.errors import SweeprigError
+from sweeprig.report import write_report
+from sweeprig.report.terminal import print_summary
+from sweeprig.store.base import DEFAULT_STORE_PATH
+from sweeprig.store.sqlite import SqliteRunStore
+
+#: Exit code of ``sweeprig report --fail-on-verdict`` when the verdict is fail.
+VERDICT_FAILED_EXIT_CODE = 6
+
+_REPORT_HELP = """Reduce a stored run to datasheet figures, judge them against the sequence's
+[[spec]] limits, and write the report.
+
+Files written into the output folder (default results/run-<id>/): report.html (one
+self-contained file with the plots), figures.json (every figure, its conditions, flags and
+the point indices behind it), figures.csv/.parquet and captures.csv/.parquet. Works on
+finished, aborted and still-running runs (a run that is not complete cannot pass).
+
+Exit codes: 0 report written; 6 with --fail-on-verdict when the verdict is FAIL; 5 no such
+run or store, or a file could not be written.
+
+Examples:
+
+  sweeprig report 3
+
+  sweeprig report 3 --store results/lot7.sqlite --out reports/lot7-unit12 --fail-on-verdict
+"""
+
+
+def report_command(
+    run_id: Annotated[int, typer.Argument(help="run id, as listed by `sweeprig runs`",
+                                          show_default=False)],
+    store: Annotated[Path, typer.Option(
+        "--store", help="run store (SQLite file)", dir_okay=False)] = DEFAULT_STORE_PATH,
+    out: Annotated[Path | None, typer.Option(
+        "--out", help="folder for the report files [default: results/run-<id>/]",
+        file_okay=False, show_default=False)] = None,
+    fail_on_verdict: Annotated[bool, typer.Option(
+        "--fail-on-verdict",
+        help=f"exit with code {VERDICT_FAILED_EXIT_CODE} when the verdict is FAIL "
+        "(for scripts and CI)")] = False,
+) -> None:
+    console = Console(highlight=False)
+    folder = out if out is not None else Path("results") / f"run-{run_id}"
+    try:
+        with SqliteRunStore(store, create=False) as db:
+            run = reduce_run(db, run_id)
+        files = write_report(run, folder)
+    except SweeprigError as exc:
+        message = Text("error: ", style="bold red")
+        message.append(exc.message())  # plain text: paths and names may hold "[...]"
+        Console(stderr=True, highlight=False, soft_wrap=True).print(message)
+        raise typer.Exit(exc.exit_code) from None
+    print_summary(run, console)
+    console.print(Text(f"report: {files.html}"))
+    console.print(Text(f"figures: {files.figures_json}; tables: "
+                       + ", ".join(p.name for p in files.tables)))
+    if fail_on_verdict and run.verdict == FAIL:
+        raise typer.Exit(VERDICT_FAILED_EXIT_CODE)
+
+
+def register(app: typer.Typer) -> None:
+    """Add ``report`` to the root app."""
+    app.command("report", help=_REPORT_HELP, no_args_is_help=True)(report_command)

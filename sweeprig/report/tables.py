@@ -1,0 +1,569 @@
+"""The figures as data: summary rows, the figures JSON, and tidy CSV/Parquet tables.
+
+* :func:`summary_rows` — what a report shows at a glance: one row per headline figure and
+  group of conditions (study, temperature, supply), the worst figure of the group against
+  its limit, the verdict of the group, and the validity flags met in it.
+* :func:`figures_document` — every figure with its value, bound, unit, conditions, flags,
+  verdicts and the run-store point indices behind it (``figures.json``).
+* :func:`figures_frame` / :func:`write_tables` — the same figures and the raw captures as
+  tidy tables (``figures.csv``/``.parquet``, ``captures.csv``/``.parquet``).
+
+Also the text formatting shared by the HTML and terminal reports (values with units,
+conditions, flag badges and their explanations).
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from collections.abc import Iterable, Mapping, Sequence
+from dataclasses import dataclass
+from datetime import UTC, datetime
+from pathlib import Path
+from types import MappingProxyType
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from sweeprig import __version__
+from sweeprig.analysis.figures import FIGURE_CATALOGUE, FLAGS, Figure
+from sweeprig.analysis.limits import FAIL, INCONCLUSIVE, PASS, Judgement, Limit
+from sweeprig.analysis.reduce import RunFigures
+from sweeprig.errors import StoreError
+from sweeprig.units import format_frequency
+
+#: Figures shown in the summary, in this order (every other figure is in the JSON and the
+#: tables; a figure with a limit is always shown).
+HEADLINE_FIGURES: tuple[str, ...] = (
+    "conversion_gain", "gain_flatness", "gain_tempco", "small_signal_gain", "input_p1db",
+    "output_p1db", "output_psat", "iip3", "oip3", "iip2", "lo_power_for_gain",
+    "lo_if_isolation", "lo_rf_isolation", "rf_if_isolation", "image_rejection",
+    "supply_current", "spur_dbc",
+)
+
+#: Short labels of the figures as a datasheet prints them.
+FIGURE_LABELS: Mapping[str, str] = MappingProxyType({
+    "conversion_gain": "Conversion gain",
+    "gain_flatness": "Gain flatness",
+    "gain_tempco": "Gain temperature coefficient",
+    "small_signal_gain": "Small-signal gain",
+    "input_p0p1db": "Input P0.1dB",
+    "output_p0p1db": "Output P0.1dB",
+    "input_p1db": "Input P1dB",
+    "output_p1db": "Output P1dB",
+    "input_p3db": "Input P3dB",
+    "output_p3db": "Output P3dB",
+    "output_psat": "Saturated output",
+    "iip3": "IIP3",
+    "oip3": "OIP3",
+    "iip2": "IIP2",
+    "lo_power_for_gain": "LO drive for full gain",
+    "lo_if_isolation": "LO→IF isolation",
+    "lo_rf_isolation": "LO→RF isolation",
+    "rf_if_isolation": "RF→IF isolation",
+    "image_rejection": "Image rejection",
+    "supply_current": "Supply current",
+    "dc_power": "DC power",
+    "spur_dbc": "Worst m×n spur",
+    "spur_dbm": "m×n spur level",
+})
+
+#: Figures where a larger value is the better one (the worst is the smallest) ...
+HIGHER_IS_BETTER = frozenset({
+    "small_signal_gain", "input_p0p1db", "output_p0p1db", "input_p1db", "output_p1db",
+    "input_p3db", "output_p3db", "output_psat", "iip3", "oip3", "iip2", "iip3_low", "iip3_high",
+    "oip3_low", "oip3_high", "iip2_low", "iip2_high", "lo_if_isolation", "lo_rf_isolation",
+    "rf_if_isolation", "image_rejection",
+})
+#: ... and where a smaller one is (the worst is the largest). Others show their range.
+LOWER_IS_BETTER = frozenset({
+    "gain_flatness", "lo_power_for_gain", "supply_current", "dc_power", "spur_dbc", "spur_dbm",
+    "im3_low", "im3_high",
+})
+
+#: Flag name → (badge text, explanation shown as a tooltip).
+FLAG_HELP: Mapping[str, tuple[str, str]] = MappingProxyType({
+    "in_noise": ("noise", "a product was within 6 dB of the analyzer's noise: its level is "
+                 "only an upper bound, so the figure is a bound"),
+    "overload": ("overload", "the analyzer reported input overload on a reading used here"),
+    "analyzer_distortion": ("analyzer-made", "with 10 dB more analyzer attenuation the "
+                            "product moved by more than 1 dB: the analyzer made part of it"),
+    "atten_carrier_moved": ("carrier moved", "in the attenuation repeat the carrier itself "
+                            "moved: the analyzer is compressing, the test cannot decide"),
+    "slope_off": ("slope", "the fitted slope of the distortion product is more than 10 % "
+                  "off its order: the intercept model does not hold there"),
+    "fund_slope_off": ("fund. slope", "the fundamental's fitted slope is outside "
+                       "1 ± 0.1 dB/dB"),
+    "not_compressed": ("not compressed", "the power sweep ended before this compression: "
+                       "the figure is a lower bound"),
+    "not_saturated": ("not saturated", "the output was still rising at the end of the "
+                      "sweep: the figure is a lower bound"),
+    "compressed_at_start": ("compressed at start", "already compressed at the lowest drive: "
+                            "the figure is an upper bound"),
+    "few_points": ("few points", "fewer than 3 points in the linear region or fit range"),
+    "no_valid_range": ("no valid range", "no point met the conditions of the fit"),
+    "in_compression": ("in compression", "drives above P1dB − 10 dB, where the intercept "
+                       "model does not hold"),
+    "points_excluded": ("points excluded", "some drives were left out of the fit for "
+                        "overload or analyzer distortion (the fit used clean points)"),
+    "edge_of_sweep": ("sweep edge", "the result lies at the edge of the swept range"),
+    "missing_reading": ("missing", "a reading this figure needs was not captured"),
+})
+
+#: Verdict of a summary row without any limit.
+NO_LIMIT = "—"
+
+
+@dataclass(frozen=True)
+class SummaryRow:
+    """One line of the summary table.
+
+    ``figure``: the figure shown (the worst of the group, or the only one); ``count``:
+    figures in the group; ``range_text``: min … max when the group holds several numbers;
+    ``verdict``: pass/fail/inconclusive of the group's judgements, or :data:`NO_LIMIT`;
+    ``flags``: (flag name, number of figures of the group carrying it); ``points``: the
+    run-store point indices behind the shown figure.
+    """
+
+    name: str
+    label: str
+    study: str
+    conditions_text: str
+    value_text: str
+    range_text: str
+    limit_text: str
+    verdict: str
+    flags: tuple[tuple[str, int], ...]
+    count: int
+    figure: Figure
+    points: tuple[int, ...]
+
+
+# ---------------------------------------------------------------------------------------------
+# formatting
+
+
+#: Decimals shown per unit where two would hide the figure (slopes, coefficients).
+_UNIT_DIGITS = {"dB/°C": 4, "dB/dB": 3}
+
+
+def format_value(value: float, unit: str, digits: int = 2) -> str:
+    """A number with its unit (``n/a`` when not finite); amperes shown in mA."""
+    if value is None or not math.isfinite(value):
+        return "n/a"
+    digits = max(digits, _UNIT_DIGITS.get(unit, 0))
+    if unit == "A":
+        return f"{value * 1e3:.{digits}f} mA"
+    if unit == "W":
+        return f"{value * 1e3:.{digits}f} mW"
+    return f"{value:.{digits}f} {unit}".strip()
+
+
+def figure_text(figure: Figure, digits: int = 2) -> str:
+    """The figure as a datasheet writes it: ``"12.35 dBm"``, ``"> 5.00 dBm"``, ``"n/a"``."""
+    body = format_value(figure.value, figure.unit, digits)
+    return f"{figure.bound} {body}" if figure.bound and body != "n/a" else body
+
+
+def format_condition(key: str, value: object) -> str:
+    """One condition as text: ``RF 2.2 GHz``, ``25 °C``, ``LO 0 dBm``, ``study band``."""
+    if isinstance(value, str):
+        return f"study {value}" if key == "study" else f"{key} {value}"
+    if not isinstance(value, int | float) or not math.isfinite(float(value)):
+        return f"{key} {value}"
+    v = float(value)
+    names = {
+        "rf_freq_hz": "RF", "lo_freq_hz": "LO", "rf2_freq_hz": "RF2", "freq_hz": "at",
+        "image_freq_hz": "image", "band_low_hz": "band from", "band_high_hz": "band to",
+        "rf_power_dbm": "RF", "lo_power_dbm": "LO", "rf2_power_dbm": "RF2",
+    }
+    if key.endswith("_hz"):
+        return f"{names.get(key, key)} {format_frequency(v)}"
+    if key.endswith("_dbm"):
+        return f"{names.get(key, key)} {v:g} dBm"
+    if key == "temperature_c":
+        return f"{v:g} °C"
+    if key == "supply_v":
+        return f"{v:g} V"
+    if key in ("m", "n"):
+        return f"{key} {int(v)}"
+    if key == "in_band":
+        return "in band" if v else "out of band"
+    return f"{key} {v:g}"
+
+
+def conditions_text(conditions: Mapping[str, object], skip: Iterable[str] = ()) -> str:
+    """Conditions as one line (``skip`` leaves keys out); m and n shown as ``m×n 2×-1``."""
+    skipped = set(skip)
+    parts: list[str] = []
+    m, n = conditions.get("m"), conditions.get("n")
+    for key, value in conditions.items():
+        if key in skipped or key in ("m", "n", "in_band"):
+            continue
+        parts.append(format_condition(key, value))
+    if m is not None and n is not None and "m" not in skipped:
+        parts.append(f"m×n {int(float(m))}×{int(float(n))}")  # type: ignore[arg-type]
+    return ", ".join(parts)
+
+
+def limit_text(limit: Limit) -> str:
+    """``"≥ 9 dB and ≤ 14 dB"`` (in the figure's unit; amperes as mA)."""
+    unit = FIGURE_CATALOGUE.get(limit.name, ("", ""))[0]
+    edges = []
+    if limit.min is not None:
+        edges.append(f"≥ {format_value(limit.min, unit, 3).replace('.000', '')}")
+    if limit.max is not None:
+        edges.append(f"≤ {format_value(limit.max, unit, 3).replace('.000', '')}")
+    where = {k: v for k, v in limit.conditions.items()}
+    text = " and ".join(edges)
+    return f"{text} ({conditions_text(where)})" if where else text
+
+
+def flag_badge(name: str) -> tuple[str, str]:
+    """(short badge text, explanation) of a flag."""
+    return FLAG_HELP.get(name, (name, name.replace("_", " ")))
+
+
+def figure_label(name: str) -> str:
+    """Datasheet label of a figure name."""
+    return FIGURE_LABELS.get(name, name.replace("_", " "))
+
+
+# ---------------------------------------------------------------------------------------------
+# the summary
+
+
+#: Conditions that make a summary group by default (one row per study, temperature, supply).
+GROUP_KEYS: tuple[str, ...] = ("study", "temperature_c", "supply_v")
+
+
+def summary_rows(run: RunFigures, by: Sequence[str] = GROUP_KEYS) -> list[SummaryRow]:
+    """The summary table (see the module docstring), headline figures first in
+    :data:`HEADLINE_FIGURES` order, then any other figure a limit names. ``by``: the
+    conditions that make a group (``("study",)`` merges temperatures and supplies)."""
+    judged: dict[int, list[Judgement]] = {}
+    for judgement in run.assessment.judgements:
+        judged.setdefault(id(judgement.figure), []).append(judgement)
+    limited = [limit.name for limit in run.limits]
+    names = list(HEADLINE_FIGURES) + [n for n in dict.fromkeys(limited)
+                                      if n not in HEADLINE_FIGURES]
+    by_name: dict[str, list[Figure]] = {}
+    for figure in run.figures:
+        by_name.setdefault(figure.name, []).append(figure)
+    rows: list[SummaryRow] = []
+    for name in names:
+        groups: dict[tuple[object, ...], list[Figure]] = {}
+        for figure in by_name.get(name, []):
+            key = tuple(figure.conditions.get(k) for k in by)
+            groups.setdefault(key, []).append(figure)
+        for members in groups.values():
+            rows.append(_summary_row(name, members, judged, run.limits, tuple(by)))
+    return rows
+
+
+def _summary_row(
+    name: str, members: list[Figure], judged: Mapping[int, list[Judgement]],
+    limits: Sequence[Limit], by: tuple[str, ...],
+) -> SummaryRow:
+    judgements = [j for f in members for j in judged.get(id(f), [])]
+    verdicts = {j.verdict for j in judgements}
+    verdict = (FAIL if FAIL in verdicts else INCONCLUSIVE if INCONCLUSIVE in verdicts
+               else PASS if verdicts else NO_LIMIT)
+    shown = _worst(name, members, judgements, verdict)
+    numbers = [f.value for f in members if math.isfinite(f.value)]
+    unit = members[0].unit
+    range_text = ""
+    if len(members) > 1 and numbers:
+        low, high = min(numbers), max(numbers)
+        range_text = f"{format_value(low, unit)} … {format_value(high, unit)}"
+    first = members[0].conditions
+    fixed = {k: first[k] for k in by if k in first and k != "study"}
+    if len(members) == 1:
+        text = conditions_text(shown.conditions, skip=("study",))
+    else:
+        text = conditions_text(fixed)
+        spread = _spread_text(members, by)
+        if spread:
+            text += f"; {len(members)} figures over {spread}"
+        if name in ("spur_dbc", "spur_dbm"):
+            c = shown.conditions
+            where = f" at {format_frequency(float(c['freq_hz']))}" if "freq_hz" in c else ""
+            if "m" in c and "n" in c:
+                text += f"; worst m×n {int(float(c['m']))}×{int(float(c['n']))}{where}"
+    applying = list(dict.fromkeys(limit_text(j.limit) for j in judgements))
+    if not applying:
+        applying = [limit_text(li) for li in limits if li.name == name and not li.conditions]
+    counts: dict[str, int] = {}
+    for figure in members:
+        for flag in figure.flags:
+            counts[flag] = counts.get(flag, 0) + 1
+    flags = tuple((f, counts[f]) for f in FLAGS if f in counts)
+    value_text = figure_text(shown, 2)
+    if len(members) > 1 and (name in HIGHER_IS_BETTER or name in LOWER_IS_BETTER
+                             or judgements):
+        value_text = f"worst {value_text}"
+    elif len(members) > 1 and range_text:
+        value_text = range_text
+    return SummaryRow(
+        name=name,
+        label=figure_label(name),
+        study=str(first.get("study", "")),
+        conditions_text=text.lstrip("; "),
+        value_text=value_text,
+        range_text=range_text,
+        limit_text="; ".join(applying),
+        verdict=verdict,
+        flags=flags,
+        count=len(members),
+        figure=shown,
+        points=shown.points,
+    )
+
+
+def _spread_text(members: list[Figure], by: tuple[str, ...]) -> str:
+    """The conditions that vary inside a group, as ranges: ``RF 1.7 GHz–2.7 GHz``."""
+    parts = []
+    keys = [k for k in ("temperature_c", "supply_v") if k not in by]
+    for key in (*keys, "rf_freq_hz", "lo_freq_hz", "lo_power_dbm", "rf_power_dbm"):
+        values = sorted({float(f.conditions[key]) for f in members
+                         if isinstance(f.conditions.get(key), int | float)})
+        if len(values) > 1:
+            if key == "lo_freq_hz" and any("rf_freq_hz" in p for p in parts):
+                continue
+            low = format_condition(key, values[0])
+            high = format_condition(key, values[-1])
+            if key in ("temperature_c", "supply_v"):
+                parts.append(f"{low}…{high}")
+            else:
+                parts.append(f"{low}–{high.split(' ', 1)[1]}")
+    if any("m" in f.conditions for f in members):
+        parts.append("the m×n products")
+    return ", ".join(parts)
+
+
+def _worst(name: str, members: list[Figure], judgements: list[Judgement],
+           verdict: str) -> Figure:
+    """The figure to show for a group: the most failing, else the closest to its limit,
+    else the worst by the figure's better direction, else the first."""
+    if judgements:
+        pool = [j for j in judgements if j.verdict == verdict] or judgements
+        return min(pool, key=_margin).figure
+    finite = [f for f in members if math.isfinite(f.value)]
+    if not finite:
+        return members[0]
+    if name in HIGHER_IS_BETTER:
+        return min(finite, key=lambda f: f.value)
+    if name in LOWER_IS_BETTER:
+        return max(finite, key=lambda f: f.value)
+    return finite[0]
+
+
+def _margin(judgement: Judgement) -> float:
+    """How far a figure is inside its limit (negative outside), in the figure's unit."""
+    value, limit = judgement.figure.value, judgement.limit
+    if not math.isfinite(value):
+        return math.inf
+    margins = []
+    if limit.min is not None:
+        margins.append(value - limit.min)
+    if limit.max is not None:
+        margins.append(limit.max - value)
+    return min(margins) if margins else math.inf
+
+
+# ---------------------------------------------------------------------------------------------
+# JSON and tables
+
+
+def _number(value: float) -> float | None:
+    return float(value) if value is not None and math.isfinite(value) else None
+
+
+def _plain(value: object) -> object:
+    if isinstance(value, np.generic):
+        value = value.item()
+    if isinstance(value, float):
+        return _number(value)
+    return value
+
+
+def figure_verdicts(run: RunFigures) -> dict[int, str]:
+    """Per figure (by ``id``), its worst verdict over the limits that judged it."""
+    out: dict[int, str] = {}
+    rank = {PASS: 0, INCONCLUSIVE: 1, FAIL: 2}
+    for j in run.assessment.judgements:
+        key = id(j.figure)
+        if key not in out or rank[j.verdict] > rank[out[key]]:
+            out[key] = j.verdict
+    return out
+
+
+def figures_document(run: RunFigures) -> dict[str, Any]:
+    """Everything the report states, as JSON-able data (``figures.json``).
+
+    ``figures[i].points`` are run-store point indices: each figure can be traced back to the
+    captures (``captures.csv`` column ``point``). ``judgements`` refer to figures and limits
+    by their index in the two lists.
+    """
+    index = {id(f): i for i, f in enumerate(run.figures)}
+    limit_index = {id(li): i for i, li in enumerate(run.limits)}
+    return {
+        "format": "sweeprig figures 1",
+        "generated_utc": datetime.now(UTC).isoformat(timespec="seconds"),
+        "sweeprig_version": __version__,
+        "run": {
+            "id": run.run_id,
+            "title": run.title,
+            "part": run.part,
+            "serial": run.serial,
+            "operator": run.operator,
+            "state": run.state,
+            "status": run.status,
+            "reason": run.reason,
+            "simulated": run.simulated,
+            "created_utc": run.created.isoformat(),
+            "finished_utc": run.finished.isoformat() if run.finished else None,
+            "points_done": run.points_done,
+            "points_total": run.points_total,
+            "duration_sim_s": run.duration_sim_s,
+            "duration_wall_s": run.duration_wall_s,
+            "sequence_path": run.sequence_path,
+            "sequence_sha256": run.sequence_sha256,
+            "sequence_sha256_matches_text": run.sequence_sha256_ok,
+            "bench_path": run.bench_path,
+            "bench_sha256": run.bench_sha256,
+        },
+        "verdict": run.verdict,
+        "assessment_counts": run.assessment.counts,
+        "notes": list(run.notes),
+        "instruments": [
+            {"role": i.role, "resource": i.resource, "profile": i.profile, "idn": i.idn}
+            for i in run.instruments
+        ],
+        "conditions": {k: list(v) for k, v in run.conditions.items()},
+        "studies": [
+            {"name": s.name, "points": s.points, "points_planned": s.points_planned,
+             "readings": list(s.readings), "roles": list(s.roles),
+             "temperatures_c": list(s.temperatures_c), "supplies_v": list(s.supplies_v)}
+            for s in run.studies
+        ],
+        "limits": [
+            {"figure": li.name, "min": li.min, "max": li.max, "label": li.label,
+             "conditions": {k: (list(v) if isinstance(v, tuple) else v)
+                            for k, v in li.conditions.items()}}
+            for li in run.limits
+        ],
+        "judgements": [
+            {"figure": index[id(j.figure)], "limit": limit_index[id(j.limit)],
+             "verdict": j.verdict, "reason": j.reason}
+            for j in run.assessment.judgements
+        ],
+        "untested_limits": [limit_index[id(li)] for li in run.assessment.untested],
+        "figures": [
+            {"name": f.name, "value": _number(f.value), "unit": f.unit, "bound": f.bound,
+             "text": figure_text(f, 3),
+             "conditions": {k: _plain(v) for k, v in f.conditions.items()},
+             "flags": list(f.flags), "points": [int(p) for p in f.points]}
+            for f in run.figures
+        ],
+        "events": [
+            {"time_utc": e.time.isoformat(), "severity": e.severity, "kind": e.kind,
+             "message": e.message, "point": e.point_index, "details": dict(e.details)}
+            for e in run.events
+        ],
+    }
+
+
+def write_figures_json(run: RunFigures, path: Path) -> Path:
+    """Write :func:`figures_document` to ``path`` (UTF-8, indented)."""
+    text = json.dumps(figures_document(run), indent=1, ensure_ascii=False, allow_nan=False,
+                      default=_plain)
+    write_text_file(path, text + "\n")
+    return path
+
+
+def figures_frame(run: RunFigures) -> pd.DataFrame:
+    """One row per figure: ``figure`` (index), ``name``, ``value``, ``unit``, ``bound``
+    ("<", ">" or empty), ``text``, ``verdict`` (worst over its limits, empty when none
+    applies), ``flags`` and ``points`` (space-separated), then one column per condition."""
+    verdicts = figure_verdicts(run)
+    keys: list[str] = []
+    for f in run.figures:
+        for k in f.conditions:
+            if k not in keys:
+                keys.append(k)
+    rows: dict[str, list[object]] = {
+        "figure": list(range(len(run.figures))),
+        "name": [f.name for f in run.figures],
+        "value": [f.value for f in run.figures],
+        "unit": [f.unit for f in run.figures],
+        "bound": [f.bound or "" for f in run.figures],
+        "text": [figure_text(f, 3) for f in run.figures],
+        "verdict": [verdicts.get(id(f), "") for f in run.figures],
+        "flags": [" ".join(f.flags) for f in run.figures],
+        "points": [" ".join(str(p) for p in f.points) for f in run.figures],
+    }
+    for key in keys:
+        column = [f.conditions.get(key) for f in run.figures]
+        if key == "study" or any(isinstance(v, str) for v in column):
+            rows[key] = ["" if v is None else str(v) for v in column]
+        else:
+            rows[key] = [np.nan if v is None else float(v) for v in column]  # type: ignore
+    return pd.DataFrame(rows)
+
+
+#: Table formats :func:`write_tables` writes.
+TABLE_FORMATS: tuple[str, ...] = ("csv", "parquet")
+
+
+def write_tables(
+    run: RunFigures, folder: Path, formats: Sequence[str] = TABLE_FORMATS
+) -> list[Path]:
+    """Write ``captures`` and ``figures`` as CSV and/or Parquet into ``folder``."""
+    tables = {"captures": run.captures, "figures": figures_frame(run)}
+    written: list[Path] = []
+    for name, frame in tables.items():
+        for fmt in formats:
+            path = folder / f"{name}.{fmt}"
+            try:
+                if fmt == "csv":
+                    frame.to_csv(path, index=False)
+                elif fmt == "parquet":
+                    frame.to_parquet(path, index=False, engine="pyarrow")
+                else:
+                    raise ValueError(fmt)
+            except OSError as exc:
+                raise _write_error(path, exc) from None
+            written.append(path)
+    return written
+
+
+def make_folder(folder: Path) -> Path:
+    """Create the output folder (and parents); StoreError when that is impossible."""
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise StoreError(
+            f"cannot create the report folder: {exc.strerror or exc}",
+            where=str(folder),
+            fix="give a folder you can write to with --out",
+        ) from None
+    return folder
+
+
+def write_text_file(path: Path, text: str) -> None:
+    """Write ``text`` (UTF-8) to ``path``; StoreError naming the file when that fails."""
+    try:
+        path.write_text(text, encoding="utf-8")
+    except OSError as exc:
+        raise _write_error(path, exc) from None
+
+
+def _write_error(path: Path, exc: OSError) -> StoreError:
+    return StoreError(
+        f"cannot write the report file: {exc.strerror or exc}",
+        where=str(path),
+        fix="check the folder's permissions and free space, or give another one with --out",
+    )
+

@@ -1,0 +1,164 @@
+"""The store → capture-table adapter: every reading kind maps as documented, repeats are
+recognised, traceability columns survive, and the analysis runs on the result."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from sweeprig.analysis import captures as cap
+from sweeprig.analysis import conversion_gain_figures, intercept_figures, spur_figures
+from sweeprig.analysis.load import CAPTURE_COLUMNS, captures_from_frames, load_captures
+from sweeprig.errors import StoreError
+from sweeprig.store import PointRecord, ReadingRecord, SqliteRunStore
+
+LO_HZ, RF_HZ, IF_HZ = 2.1e9, 2.2e9, 100e6
+
+
+def _sa(name: str, kind: str, freq_hz: float, level_dbm: float, *, orders=(1, -1),
+        repeat: bool = False, overload: bool = False, extra: dict | None = None) -> ReadingRecord:
+    more = dict(extra or {})
+    if len(orders) > 2:
+        more["orders"] = list(orders)
+    if repeat:
+        more["repeat_of"] = name.removesuffix(".att10")
+    return ReadingRecord(
+        name=name, kind=kind, port="if", freq_hz=freq_hz, level_dbm=level_dbm,
+        noise_floor_dbm=-110.0 + (10.0 if repeat else 0.0), m=orders[0], n=orders[1],
+        rbw_hz=1e3, attenuation_db=20.0 if repeat else 10.0, overload=overload,
+        attenuation_check=True if repeat else None, extra=more,
+    )
+
+
+@pytest.fixture
+def store(tmp_path):
+    """A run with one point of each shape: gain + leakage + supply, two-tone with repeats,
+    m×n spurs, and an m×n-only point (no wanted reading)."""
+    with SqliteRunStore(tmp_path / "runs.sqlite") as db:
+        run = db.create_run(sequence_path="seq.toml", sequence_text="x = 1\n", points_total=5)
+        base = {"temperature_c": 25.0, "supply_v": 3.3, "lo_freq_hz": LO_HZ,
+                "lo_power_dbm": 0.0, "rf_freq_hz": RF_HZ}
+        db.write_point(run, PointRecord(0, "band", rf_power_dbm=-25.0, supply_current_a=0.031,
+                                        probe_temperature_c=25.02, **base), [
+            _sa("wanted", "wanted", IF_HZ, -12.5),
+            _sa("lo_at_if", "lo_at_if", LO_HZ, -32.0, orders=(1, 0)),
+            ReadingRecord("lo_at_rf", "lo_at_rf", "rf", LO_HZ, -40.0, -120.0, m=1, n=0),
+            _sa("rf_at_if", "rf_at_if", RF_HZ, -60.0, orders=(0, 1)),
+            _sa("image", "image", IF_HZ, -13.0, orders=(1, -1)),
+            ReadingRecord("supply_current", "supply_current", "dc",
+                          extra={"current_a": 0.0302, "voltage_v": 3.3}),
+        ])
+        two = {**base, "rf2_freq_hz": RF_HZ + 1e6, "rf2_power_dbm": -30.0}
+        db.write_point(run, PointRecord(1, "two-tone", rf_power_dbm=-30.0, **two), [
+            _sa("wanted", "wanted", IF_HZ, -17.5, orders=(1, -1, 0)),
+            _sa("wanted.tone2", "wanted", IF_HZ + 1e6, -17.6, orders=(1, 0, -1)),
+            _sa("im3.lower", "im3", IF_HZ - 1e6, -80.0, orders=(1, -2, 1)),
+            _sa("im3.lower.att10", "im3", IF_HZ - 1e6, -80.1, orders=(1, -2, 1), repeat=True),
+            _sa("im3.upper", "im3", IF_HZ + 2e6, -81.0, orders=(1, 1, -2)),
+            _sa("im3.upper.att10", "im3", IF_HZ + 2e6, -95.0, orders=(1, 1, -2), repeat=True),
+            _sa("im2.diff", "im2", 1e6, -90.0, orders=(0, -1, 1)),
+            _sa("im2.sum", "im2", 2 * RF_HZ + 1e6, -95.0, orders=(0, 1, 1), overload=True),
+        ])
+        db.write_point(run, PointRecord(2, "spurs", rf_power_dbm=-10.0, **base), [
+            _sa("wanted", "wanted", IF_HZ, 2.5),
+            _sa("mxn.1x-1", "mxn", IF_HZ, 2.4),  # the wanted product: the wanted reading wins
+            _sa("mxn.2x-1", "mxn", 2 * LO_HZ - RF_HZ, -45.0, orders=(2, -1)),
+            _sa("mxn.2x-1.att10", "mxn", 2 * LO_HZ - RF_HZ, -45.1, orders=(2, -1), repeat=True),
+            _sa("mxn.0x1", "mxn", RF_HZ, -60.0, orders=(0, 1)),
+        ])
+        db.write_point(run, PointRecord(3, "spurs-only", rf_power_dbm=-10.0, **base), [
+            _sa("table.1x-1", "mxn", IF_HZ, 2.4),  # renamed reading, no wanted: it stands in
+            _sa("table.3x-1", "mxn", 3 * LO_HZ - RF_HZ, -27.0, orders=(3, -1)),
+            ReadingRecord("input_power", "input_power", "rf", RF_HZ, -10.02),
+        ])
+        db.set_status(run, "complete")
+        yield db, run
+
+
+def test_every_kind_maps_to_the_capture_vocabulary(store):
+    db, run = store
+    c = load_captures(db, run)
+    assert list(c.columns) == list(CAPTURE_COLUMNS)
+    got = {(int(p), r, bool(a)) for p, r, a in zip(c["point"], c["reading"], c["atten_check"],
+                                                  strict=True)}
+    assert got == {
+        (0, "if", False), (0, "lo_at_if", False), (0, "lo_at_rf", False),
+        (0, "rf_at_if", False), (0, "image", False), (0, "supply_current", False),
+        (1, "if", False), (1, "im3_low", False), (1, "im3_low", True), (1, "im3_high", False),
+        (1, "im3_high", True), (1, "im2_low", False), (1, "im2_high", False),
+        (2, "if", False), (2, "spur", False), (2, "spur", True),
+        (3, "if", False), (3, "spur", False),
+    }
+    assert set(c["reading"]) <= set(cap.READINGS)
+
+
+def test_values_and_traceability_columns(store):
+    db, run = store
+    c = load_captures(db, run).set_index(["point", "source_name"])
+    supply = c.loc[(0, "supply_current")]
+    assert supply["value"] == pytest.approx(0.0302)  # from extra_json current_a
+    assert math.isnan(supply["level_dbm"])
+    wanted = c.loc[(0, "wanted")]
+    assert wanted["level_dbm"] == -12.5 and wanted["noise_floor_dbm"] == -110.0
+    assert wanted["probe_temperature_c"] == pytest.approx(25.02)
+    assert wanted["reading_no"] == 0 and wanted["kind"] == "wanted"
+    assert c.loc[(1, "im2.sum"), "overload"]
+    assert c.loc[(1, "im3.upper.att10"), "attenuation_db"] == 20.0
+    assert np.isnan(c.loc[(1, "im3.lower"), "m"])  # m, n only for spurs
+    spur = c.loc[(2, "mxn.2x-1")]
+    assert (spur["m"], spur["n"]) == (2.0, -1.0)
+    assert c.loc[(3, "table.1x-1"), "reading"] == "if"
+    assert c.loc[(1, "wanted"), "rf2_freq_hz"] == RF_HZ + 1e6
+
+
+def test_supply_current_falls_back_to_the_point_column():
+    points = pd.DataFrame({"point_index": [0], "study": ["s"], "temperature_c": [np.nan],
+                           "supply_v": [3.3], "lo_freq_hz": [LO_HZ], "lo_power_dbm": [0.0],
+                           "rf_freq_hz": [RF_HZ], "rf_power_dbm": [-20.0],
+                           "rf2_freq_hz": [np.nan], "rf2_power_dbm": [np.nan],
+                           "supply_current_a": [0.045]})
+    readings = pd.DataFrame({
+        "point_index": [0], "reading_no": [0], "name": ["supply_current"],
+        "kind": ["supply_current"], "port": ["dc"], "freq_hz": [np.nan],
+        "level_dbm": [np.nan], "noise_floor_dbm": [np.nan], "m": [pd.NA], "n": [pd.NA],
+        "attenuation_db": [np.nan], "overload": [False], "extra_json": ["{}"],
+    })
+    c = captures_from_frames(points, readings)
+    assert c["value"].tolist() == [0.045]
+
+
+def test_the_analysis_runs_on_the_loaded_table(store):
+    db, run = store
+    c = load_captures(db, run)
+    gain = {f.conditions["study"]: f.value for f in conversion_gain_figures(c)}
+    assert gain["band"] == pytest.approx(-12.5 + 25.0)  # G = P_IF − P_RF
+    spurs = [f for f in spur_figures(c) if f.name == "spur_dbc"]
+    by_mn = {(f.conditions["m"], f.conditions["n"], f.conditions["study"]): f for f in spurs}
+    assert by_mn[(2, -1, "spurs")].value == pytest.approx(-45.0 - 2.5)
+    assert (1, -1, "spurs") not in by_mn  # the wanted product is not a spur
+    assert by_mn[(3, -1, "spurs-only")].value == pytest.approx(-27.0 - 2.4)
+    im3 = {f.name: f for f in intercept_figures(c, orders=(3,)) if f.name.startswith("im3_")}
+    assert "analyzer_distortion" in im3["im3_high"].flags  # dropped 14 dB with +10 dB att.
+    assert "analyzer_distortion" not in im3["im3_low"].flags
+
+
+def test_an_empty_run_gives_an_empty_table(tmp_path):
+    with SqliteRunStore(tmp_path / "runs.sqlite") as db:
+        run = db.create_run(sequence_path="s.toml", sequence_text="")
+        c = load_captures(db, run)
+    assert c.empty and list(c.columns) == list(CAPTURE_COLUMNS)
+
+
+def test_unknown_run_and_damaged_tables_raise_store_errors(store):
+    db, run = store
+    with pytest.raises(StoreError, match="no run 99"):
+        load_captures(db, 99)
+    points = db.points_frame(run)
+    readings = db.readings_frame(run)
+    with pytest.raises(StoreError, match="no point row"):
+        captures_from_frames(points[points["point_index"] != 1], readings)
+    with pytest.raises(StoreError, match="no column 'kind'"):
+        captures_from_frames(points, readings.drop(columns=["kind"]))

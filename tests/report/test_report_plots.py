@@ -1,0 +1,37 @@
+"""The plots: one per kind of study, real PNG images with something drawn on them, and
+nothing drawn for a run without the data."""
+
+from __future__ import annotations
+
+import dataclasses
+import io
+
+import matplotlib.image
+import numpy as np
+
+from sweeprig.report.plots import all_plots, temperature_colour
+
+PLOT_KEYS = ["gain_vs_frequency", "compression", "two_tone", "lo_drive", "spurs", "isolation"]
+
+
+def test_every_plot_is_drawn(report_plots):
+    plots = report_plots
+    assert [p.key for p in plots] == PLOT_KEYS
+    for plot in plots:
+        image = matplotlib.image.imread(io.BytesIO(plot.png), format="png")
+        assert image.shape[:2] == (plot.height_px, plot.width_px)
+        assert float(np.std(image[..., :3])) > 0.05, plot.key  # not a blank canvas
+        assert plot.title and plot.caption
+
+
+def test_a_run_without_studies_draws_nothing(report_run):
+    assert all_plots(dataclasses.replace(report_run, studies=())) == []
+
+
+def test_cold_is_bluer_and_hot_is_redder():
+    def rgb(colour: str) -> tuple[int, int, int]:
+        return tuple(int(colour[i:i + 2], 16) for i in (1, 3, 5))  # type: ignore[return-value]
+
+    cold, hot = rgb(temperature_colour(-40.0)), rgb(temperature_colour(85.0))
+    assert cold[2] > cold[0] and hot[0] > hot[2]
+    assert temperature_colour(None) == temperature_colour(float("nan"))

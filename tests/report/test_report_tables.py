@@ -1,0 +1,93 @@
+"""figures.json, the tidy tables and the summary rows: every number traceable to the
+captures, bounds and flags kept, the summary judging groups against their limits."""
+
+from __future__ import annotations
+
+import json
+import math
+
+import pandas as pd
+import pytest
+
+from sweeprig.analysis.figures import Figure
+from sweeprig.analysis.limits import Limit
+from sweeprig.report.tables import (
+    conditions_text,
+    figure_text,
+    figures_frame,
+    format_value,
+    limit_text,
+    summary_rows,
+)
+
+
+def test_every_figure_points_at_stored_captures(report_run, report_files):
+    document = json.loads(report_files.figures_json.read_text(encoding="utf-8"))
+    captures = pd.read_csv(report_files.folder / "captures.csv")
+    stored = set(captures["point"].tolist())
+    assert len(document["figures"]) == len(report_run.figures)
+    for figure in document["figures"]:
+        assert figure["value"] is None or math.isfinite(figure["value"])
+        if figure["value"] is not None:  # a number comes from stored points
+            assert figure["points"], figure["name"]
+        assert set(figure["points"]) <= stored, figure["name"]
+    for judgement in document["judgements"]:
+        assert document["figures"][judgement["figure"]]["name"] == \
+            document["limits"][judgement["limit"]]["figure"]
+    assert document["verdict"] == report_run.verdict == "pass"
+    assert document["run"]["sequence_sha256"] == report_run.sequence_sha256
+    assert {i["role"] for i in document["instruments"]} >= {"rf", "lo", "sa", "dc"}
+
+
+def test_csv_and_parquet_tables_agree(report_run, report_files):
+    names = {p.name for p in report_files.tables}
+    assert names == {"captures.csv", "captures.parquet", "figures.csv", "figures.parquet"}
+    for stem in ("captures", "figures"):
+        csv = pd.read_csv(report_files.folder / f"{stem}.csv")
+        parquet = pd.read_parquet(report_files.folder / f"{stem}.parquet")
+        assert list(csv.columns) == list(parquet.columns)
+        assert len(csv) == len(parquet)
+    figures = figures_frame(report_run)
+    assert len(figures) == len(report_run.figures)
+    bounds = figures[figures["bound"] != ""]
+    assert set(bounds["bound"]) <= {"<", ">"}
+    assert (figures["verdict"] == "pass").sum() == report_run.assessment.counts["pass"]
+
+
+def test_summary_rows_judge_groups_against_their_limits(report_run):
+    rows = {(r.name, r.study, r.figure.conditions.get("temperature_c")): r
+            for r in summary_rows(report_run)}
+    gain = rows[("conversion_gain", "band", -40.0)]
+    assert gain.count == 3 and gain.verdict == "pass"
+    assert gain.limit_text == "≥ 9 dB and ≤ 14 dB (study band)"
+    assert gain.value_text.startswith("worst ")
+    spurs = rows[("spur_dbc", "spurs", 85.0)]
+    assert "worst m×n" in spurs.conditions_text and spurs.verdict == "—"
+    merged = summary_rows(report_run, by=("study",))
+    (p1db,) = [r for r in merged if r.name == "input_p1db"]
+    assert p1db.count == 2 and "-40 °C…85 °C" in p1db.conditions_text
+
+
+def test_formatting_helpers():
+    assert format_value(0.0301, "A") == "30.10 mA"
+    assert format_value(float("nan"), "dB") == "n/a"
+    assert format_value(-0.00823, "dB/°C") == "-0.0082 dB/°C"
+    assert figure_text(Figure("iip2", 27.85, "dBm", ">")) == "> 27.85 dBm"
+    assert figure_text(Figure("iip3", float("nan"), "dBm", ">")) == "n/a"
+    assert limit_text(Limit("supply_current", max=0.06)) == "≤ 60 mA"
+    text = conditions_text({"study": "spurs", "temperature_c": 25.0, "rf_freq_hz": 2.2e9,
+                            "m": 2.0, "n": -1.0}, skip=("study",))
+    assert text == "25 °C, RF 2.2 GHz, m×n 2×-1"
+
+
+@pytest.mark.parametrize("bad", [float("inf"), float("-inf")])
+def test_infinite_values_do_not_break_the_json(report_run, bad, tmp_path):
+    import dataclasses
+
+    from sweeprig.report.tables import write_figures_json
+
+    odd = dataclasses.replace(report_run, figures=(Figure("iip2", bad, "dBm"),),
+                              assessment=dataclasses.replace(report_run.assessment,
+                                                             judgements=(), untested=()))
+    path = write_figures_json(odd, tmp_path / "f.json")
+    assert json.loads(path.read_text(encoding="utf-8"))["figures"][0]["value"] is None
