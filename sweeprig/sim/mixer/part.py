@@ -39,7 +39,8 @@ Part-file schema (TOML). Quantities may be written with units ("4 mA", "2.4 GHz"
 ``[model]`` (optional, numerical settings)
     ``max_lo_order`` (default 9: the highest LO harmonic kept in the output lines; spur
     tables rarely go past 5), ``max_rf_order`` (Σ|n_k|, default 9), ``floor`` lines
-    below this power are dropped (default −200 dBm).
+    below this power are dropped (default −180 dBm: 20 dB under the lowest displayed noise
+    of the simulated analyzer, −174 dBm/Hz + 14 dB at 1 Hz RBW and 0 dB attenuation).
 
 Evaluation conventions: powers in dBm at the part's own port planes (available power for
 inputs, power into a matched 50 ohm load for outputs); frequencies in Hz; phases in radians.
@@ -230,7 +231,7 @@ class NoiseTable(_Table):
 class ModelTable(_Table):
     max_lo_order: _whole(1, 64) = 9
     max_rf_order: _whole(1, 25) = 9
-    floor: _quantity("power") = -200.0
+    floor: _quantity("power") = -180.0
 
 
 class PartFile(_Table):
@@ -340,7 +341,7 @@ class MixerPart:
     noise_figure_tempco_db_per_c: float = 0.0
     max_lo_order: int = 9
     max_rf_order: int = 9
-    floor_dbm: float = -200.0
+    floor_dbm: float = -180.0
     source: str = ""
     _cache: dict[Any, Any] = field(
         default_factory=dict, init=False, repr=False, compare=False, hash=False
