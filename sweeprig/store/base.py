@@ -85,10 +85,12 @@ class ReadingRecord:
     ``name``: what it is (``"if"``, ``"lo_leak_rf"``, ``"spur_2x1"``...). ``kind``: how it was
     taken (``"marker"``, ``"peak"``, ``"power_meter"``...). ``port``: DUT port the analyzer saw
     (``"if"``, ``"rf"``, ``"lo"``). ``freq_hz``/``level_dbm``: the reading (level at the DUT
-    plane or as measured, as the engine documents). ``noise_floor_dbm``: the analyzer's noise
+    port plane: the engine adds the path loss to the analyzer's reading, which it keeps in
+    ``extra`` as ``analyzer_level_dbm``). ``noise_floor_dbm``: the analyzer's noise
     floor at that setting. ``m``/``n``: harmonic orders of an m×n product (m·LO ± n·RF).
     Analyzer settings as used. ``overload``: analyzer overload flag. ``attenuation_check``:
-    True passed / False failed / None not done.
+    True when this reading is the repeat with 10 dB more input attenuation (``extra``'s
+    ``repeat_of`` names the original), None otherwise.
     """
 
     name: str

@@ -142,7 +142,7 @@ def test_error_policy_stop_aborts_safely_and_skip_records_the_point(tmp_path, po
     assert ("skip" in kinds) == (policy == "skip")
 
 
-@pytest.mark.parametrize("sig", [signal.SIGINT, signal.SIGTERM])
+@pytest.mark.parametrize("sig", [signal.SIGINT, signal.SIGTERM, signal.SIGHUP])
 def test_signal_to_a_running_process_leaves_rf_off(tmp_path, realtime_sim_bench, sig):
     sim_bench = realtime_sim_bench
     bench = bench_file_for(sim_bench, tmp_path)
