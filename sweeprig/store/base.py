@@ -82,8 +82,9 @@ class PointRecord:
 class ReadingRecord:
     """One reading taken at a point.
 
-    ``name``: what it is (``"if"``, ``"lo_leak_rf"``, ``"spur_2x1"``...). ``kind``: how it was
-    taken (``"marker"``, ``"peak"``, ``"power_meter"``...). ``port``: DUT port the analyzer saw
+    ``name``: what it is, as the plan names it (``"wanted"``, ``"lo_at_rf"``, ``"mxn.2x-1"``,
+    ``"im3.lower.att10"``...). ``kind``: the sequence's reading kind (``"wanted"``, ``"mxn"``,
+    ``"im3"``, ``"input_power"``...). ``port``: DUT port the analyzer saw
     (``"if"``, ``"rf"``, ``"lo"``). ``freq_hz``/``level_dbm``: the reading (level at the DUT
     port plane: the engine adds the path loss to the analyzer's reading, which it keeps in
     ``extra`` as ``analyzer_level_dbm``). ``noise_floor_dbm``: the analyzer's noise
