@@ -9,8 +9,8 @@ from typing import Annotated
 import pandas as pd
 import typer
 from rich.console import Console
-from rich.text import Text
 
+from sweeprig.cli.common import fail
 from sweeprig.errors import InputError, SweeprigError
 from sweeprig.store.base import DEFAULT_STORE_PATH
 from sweeprig.store.sqlite import SqliteRunStore
@@ -40,7 +40,6 @@ def bus_command(
     store: Annotated[Path, typer.Option(
         "--store", help="run store (SQLite file)")] = DEFAULT_STORE_PATH,
 ) -> None:
-    errors = Console(stderr=True, highlight=False, soft_wrap=True)
     try:
         start = _time(since, "--since")
         end = _time(until, "--until")
@@ -50,10 +49,7 @@ def bus_command(
                 start, end = _point_window(db, run_id, point)
             entries = db.bus_log(run_id, limit=last, since=start, until=end, role=role)
     except SweeprigError as exc:
-        message = Text("error: ", style="bold red")
-        message.append(exc.message())
-        errors.print(message)
-        raise typer.Exit(exc.exit_code) from None
+        raise fail(exc) from None
     console = Console(highlight=False, soft_wrap=True)
     if not entries:
         console.print(f"run {run_id}: no bus log entries match (was it run with --bus-log?)")

@@ -19,6 +19,7 @@ from rich.table import Table
 from rich.text import Text
 
 import sweeprig
+from sweeprig.cli.common import error_console, fail, print_error
 from sweeprig.errors import SweeprigError
 from sweeprig.formats.bench import Bench, load_bench
 from sweeprig.formats.schema import json_schema_text
@@ -56,18 +57,9 @@ def _out() -> Console:
     return Console(soft_wrap=True, highlight=False)
 
 
-def _err() -> Console:
-    return Console(stderr=True, soft_wrap=True, highlight=False)
-
-
-def _print_error(exc: SweeprigError) -> None:
-    console = _err()
-    console.print(Text("error: ", style="bold red") + Text(exc.message()))
-
-
-def _fail(exc: SweeprigError) -> typer.Exit:
-    _print_error(exc)
-    return typer.Exit(code=exc.exit_code)
+_err = error_console
+_print_error = print_error
+_fail = fail
 
 
 def _load_bench_or_sim(bench: Path | None) -> tuple[Bench, str]:

@@ -11,6 +11,7 @@ from rich.text import Text
 
 from sweeprig.analysis.limits import FAIL
 from sweeprig.analysis.reduce import reduce_run
+from sweeprig.cli.common import fail
 from sweeprig.errors import SweeprigError
 from sweeprig.report import write_report
 from sweeprig.report.terminal import print_summary
@@ -59,10 +60,7 @@ def report_command(
             run = reduce_run(db, run_id)
         files = write_report(run, folder)
     except SweeprigError as exc:
-        message = Text("error: ", style="bold red")
-        message.append(exc.message())  # plain text: paths and names may hold "[...]"
-        Console(stderr=True, highlight=False, soft_wrap=True).print(message)
-        raise typer.Exit(exc.exit_code) from None
+        raise fail(exc) from None
     print_summary(run, console)
     console.print(Text(f"report: {files.html}"))
     console.print(Text(f"figures: {files.figures_json}; tables: "

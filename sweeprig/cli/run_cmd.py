@@ -20,6 +20,7 @@ from rich.text import Text
 
 from sweeprig.analysis.limits import FAIL
 from sweeprig.analysis.reduce import reduce_run
+from sweeprig.cli.common import print_error
 from sweeprig.cli.report_cmd import VERDICT_FAILED_EXIT_CODE
 from sweeprig.engine.runner import PointResult
 from sweeprig.engine.session import LoadedFiles, RunOutcome, resume_run, run_sequence
@@ -82,7 +83,6 @@ def _drive(start: Callable[..., RunOutcome], *, quiet: bool, report: bool = True
            fail_on_verdict: bool = False) -> None:
     """Run ``start(on_start, on_point)`` with a progress display; print how it ended."""
     console = Console(highlight=False)
-    errors = Console(stderr=True, highlight=False, soft_wrap=True)
     progress = Progress(
         TextColumn("[bold]{task.description}"),
         BarColumn(),
@@ -111,20 +111,18 @@ def _drive(start: Callable[..., RunOutcome], *, quiet: bool, report: bool = True
         outcome = start(started, point_done)
     except SweeprigError as exc:
         progress.stop()
-        message = Text("error: ", style="bold red")
-        message.append(exc.message())  # plain text: messages name keys such as [roles.sa]
-        errors.print(message)
+        print_error(exc)
         raise typer.Exit(exc.exit_code) from None
     progress.stop()
     _print_outcome(console, outcome)
-    verdict = _report(console, errors, outcome) if report else None
+    verdict = _report(console, outcome) if report else None
     if outcome.status != "complete" or (outcome.safe is not None and not outcome.safe.ok):
         raise typer.Exit(1)
     if fail_on_verdict and verdict == FAIL:
         raise typer.Exit(VERDICT_FAILED_EXIT_CODE)
 
 
-def _report(console: Console, errors: Console, outcome: RunOutcome) -> str | None:
+def _report(console: Console, outcome: RunOutcome) -> str | None:
     """Reduce the run to figures, write the report next to the store, print the summary.
 
     A problem here is reported but does not change how the run ended. Returns the verdict.
@@ -135,7 +133,7 @@ def _report(console: Console, errors: Console, outcome: RunOutcome) -> str | Non
             figures = reduce_run(db, outcome.run_id)
         files = write_report(figures, folder)
     except SweeprigError as exc:
-        errors.print(Text("report not written: " + exc.message()))
+        print_error(exc, prefix="report not written: ")
         return None
     print_summary(figures, console)
     console.print(Text(f"  report: {files.html}  (figures: {files.figures_json})"))

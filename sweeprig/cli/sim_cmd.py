@@ -18,6 +18,7 @@ import typer
 from rich.console import Console
 from rich.text import Text
 
+from sweeprig.cli.common import error_console, fail
 from sweeprig.clock import Clock, VirtualClock, WallClock
 from sweeprig.errors import InputError, SweeprigError
 from sweeprig.sim.bench import ROLES, SimBench, shipped_benches, start_sim_bench
@@ -58,13 +59,8 @@ def _out() -> Console:
     return Console(soft_wrap=True, highlight=False)
 
 
-def _err() -> Console:
-    return Console(stderr=True, soft_wrap=True, highlight=False)
-
-
-def _fail(exc: SweeprigError) -> typer.Exit:
-    _err().print(Text("error: ", style="bold red") + Text(exc.message()))
-    return typer.Exit(code=exc.exit_code)
+_err = error_console
+_fail = fail
 
 
 def _is_loopback(host: str) -> bool:

@@ -16,6 +16,7 @@ import typer
 from rich.console import Console
 from rich.table import Table
 
+from sweeprig.cli.common import fail
 from sweeprig.errors import StoreError, SweeprigError
 from sweeprig.store.base import DEFAULT_STORE_PATH, RunInfo, utc_now
 from sweeprig.store.sqlite import SqliteRunStore
@@ -39,11 +40,7 @@ class ExportFormat(StrEnum):
     both = "both"
 
 
-def _fail(exc: SweeprigError) -> typer.Exit:
-    Console(stderr=True, highlight=False, soft_wrap=True).print(
-        f"[bold red]error:[/] {exc.message()}", markup=True
-    )
-    return typer.Exit(exc.exit_code)
+_fail = fail
 
 
 def _open(path: Path) -> SqliteRunStore:

@@ -171,41 +171,13 @@ class ProgramUnit:
     params: tuple[Param, ...]
 
 
-def split_units(message: str) -> list[str]:
-    """Split a program message at ``;`` outside quotes and parentheses (−102 if unbalanced)."""
-    units: list[str] = []
-    if ";" not in message and '"' not in message and "'" not in message:
-        return [message]
-    start = 0
-    quote = ""
-    depth = 0
-    for i, ch in enumerate(message):
-        if quote:
-            if ch == quote:
-                quote = ""
-        elif ch in "'\"":
-            quote = ch
-        elif ch == "(":
-            depth += 1
-        elif ch == ")":
-            depth -= 1
-        elif ch == ";" and depth == 0:
-            units.append(message[start:i])
-            start = i + 1
-    if quote:
-        raise ScpiError(-102, "unterminated string")
-    units.append(message[start:])
-    return units
+def _split_outside(text: str, separator: str) -> tuple[list[str], str, int]:
+    """Split ``text`` at ``separator`` where it stands outside quotes and parentheses.
 
-
-def split_params(text: str) -> tuple[Param, ...]:
-    """Split a parameter section at ``,`` outside quotes and parentheses."""
-    text = text.strip()
-    if not text:
-        return ()
-    if "," not in text and "(" not in text and '"' not in text and "'" not in text:
-        return (Param(text),)
-    parts: list[str] = []
+    Returns the pieces, the quote still open at the end ("" if none) and the final
+    parenthesis depth; raises −102 for a ``)`` with no ``(``.
+    """
+    pieces: list[str] = []
     start = 0
     quote = ""
     depth = 0
@@ -219,14 +191,35 @@ def split_params(text: str) -> tuple[Param, ...]:
             depth += 1
         elif ch == ")":
             depth -= 1
-            if depth < 0:
+            if depth < 0 and separator == ",":
                 raise ScpiError(-102, f"unbalanced ')' in {text}")
-        elif ch == "," and depth == 0:
-            parts.append(text[start:i])
+        elif ch == separator and depth == 0:
+            pieces.append(text[start:i])
             start = i + 1
+    pieces.append(text[start:])
+    return pieces, quote, depth
+
+
+def split_units(message: str) -> list[str]:
+    """Split a program message at ``;`` outside quotes and parentheses (−102 if unbalanced)."""
+    if ";" not in message and '"' not in message and "'" not in message:
+        return [message]
+    units, quote, _depth = _split_outside(message, ";")
+    if quote:
+        raise ScpiError(-102, "unterminated string")
+    return units
+
+
+def split_params(text: str) -> tuple[Param, ...]:
+    """Split a parameter section at ``,`` outside quotes and parentheses."""
+    text = text.strip()
+    if not text:
+        return ()
+    if "," not in text and "(" not in text and '"' not in text and "'" not in text:
+        return (Param(text),)
+    parts, quote, depth = _split_outside(text, ",")
     if quote or depth:
         raise ScpiError(-102, f"unbalanced quote or '(' in {text}")
-    parts.append(text[start:])
     params = tuple(Param(p.strip()) for p in parts)
     if any(not p.text for p in params):
         raise ScpiError(-102, f"empty parameter in {text}")
