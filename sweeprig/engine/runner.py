@@ -40,7 +40,7 @@ from sweeprig.engine.connect import BenchDrivers
 from sweeprig.errors import InputError, InstrumentError, TransportError
 from sweeprig.formats.bench import Bench
 from sweeprig.formats.sequence import Sequence
-from sweeprig.instruments import AnalyzerDriver, Driver
+from sweeprig.instruments import AnalyzerDriver, Driver, SourceDriver
 from sweeprig.plan.expand import Point
 from sweeprig.plan.readings import Reading
 from sweeprig.store.base import PointRecord, ReadingRecord, RunStore, utc_now
@@ -436,8 +436,7 @@ class Runner:
             if source is None:
                 raise InputError(f"the bench has no {role!r} source", where="bench",
                                  fix=f"add roles.{role} to the bench file")
-            block = source.set_frequency(freq_hz)
-            block |= source.set_power(power_dbm + self.bench.loss(connection).at(freq_hz))
+            block = self._tune(source, connection, freq_hz, power_dbm)
             block |= source.set_output(True)
             if block:
                 configured.append(source)
@@ -445,6 +444,31 @@ class Runner:
         # The error check also orders things: its reply proves each source has applied its
         # settings before the analyzer (another connection) sweeps.
         self._check(*configured)
+        return sent
+
+    def _tune(self, source: SourceDriver, connection: str, freq_hz: float,
+              dut_power_dbm: float) -> bool:
+        """Set a source's frequency and level so the DUT port gets ``dut_power_dbm`` at
+        ``freq_hz`` — never more than the old or the new point's power on the way.
+
+        With a frequency-dependent path loss, a new frequency at the old level can put more
+        power into the DUT than either point: so a level going down is set first, a level
+        going up last. A source whose level is unknown (after a recovery) is switched off
+        while it is retuned. Returns True if anything was sent.
+        """
+        level = dut_power_dbm + self.bench.loss(connection).at(freq_hz)
+        known = source.state().get("power")
+        sent = False
+        if known is None:
+            sent |= source.set_output(False)
+            sent |= source.set_power(level)
+            sent |= source.set_frequency(freq_hz)
+        elif level < float(known):
+            sent |= source.set_power(level)
+            sent |= source.set_frequency(freq_hz)
+        else:
+            sent |= source.set_frequency(freq_hz)
+            sent |= source.set_power(level)
         return sent
 
     # -- readings ---------------------------------------------------------------------------
@@ -466,7 +490,9 @@ class Runner:
             self._check(self.d.switch)
         rf = self.d.rf
         if reading.rf_retune_hz is not None and rf is not None:
-            rf.set_frequency(reading.rf_retune_hz)
+            # the same DUT-plane power at the retuned frequency (its own path loss)
+            self._tune(rf, "rf", reading.rf_retune_hz, point.rf_power_dbm)
+            rf.set_output(True)
             self._check(rf)
             self.clock.sleep(self.settle_s)
         a = reading.analyzer
@@ -481,8 +507,10 @@ class Runner:
         noise = self._noise_floor_dbm(sa, reading.freq_hz, a.span_hz, a.rbw_hz)
         overload = sa.overloaded()
         if reading.rf_retune_hz is not None and rf is not None:
-            rf.set_frequency(point.rf_freq_hz)
+            self._tune(rf, "rf", point.rf_freq_hz, point.rf_power_dbm)
+            rf.set_output(True)
             self._check(rf)
+            self.clock.sleep(self.settle_s)
         loss = self.bench.loss(_connection_of(port)).at(reading.freq_hz)
         orders = reading.orders or ()
         return ReadingRecord(

@@ -399,6 +399,13 @@ def _execute(
         status, reason = "aborted", f"internal error: {type(exc).__name__}: {exc}"
         if logger is not None:
             logger.exception("unexpected error")
+        if run_id is None:  # refused before the run was recorded: say so, as one message
+            raise SweeprigError(
+                f"the run could not start: {type(exc).__name__}: {exc}",
+                where=str(files.sequence_path),
+                fix="check the files the sequence and bench name; if they look right, this "
+                "is a fault in sweeprig: report it with the files",
+            ) from exc
     finally:
         sim_elapsed = _elapsed(clock, sim_t0)
         safe = _finish(drivers, sim_bench, files, logger)

@@ -533,23 +533,11 @@ def _run_with_cable_table(folder: Path, sequence_main: str) -> tuple[str, float]
                                                      "rf2": lambda _f: 9.0})
 
 
-BUG_FREQUENCY_FIRST = (
-    "Runner._apply_sources (sweeprig/engine/runner.py) sends a source's new frequency before its "
-    "new power: with a loss table falling from 8 dB at 2.3 GHz to 0 dB at 2.5 GHz, stepping "
-    "from 2.3 to 2.5 GHz at 10 dBm (DUT plane) leaves the 18 dBm setting on at 2.5 GHz, and "
-    "the DUT RF port takes 18 dBm against its 12 dBm rating until the power follows. When the "
-    "new setting is lower it should go first (or the output off during the change)")
-BUG_IMAGE_POWER = (
-    "the image reading retunes the rf source to the image frequency without setting the power "
-    "for that frequency's path loss (Runner._read_analyzer, sweeprig/engine/runner.py: "
-    "rf.set_frequency(reading.rf_retune_hz) only): with 8 dB of loss at 2.3 GHz and 0 dB at "
-    "the 2.5 GHz image, the DUT RF port takes 18 dBm (rating 12 dBm, the sequence asks 10 dBm) "
-    "for the whole reading. The pre-flight check assumes the power is re-set (it checks the "
-    "source setting at the image frequency) and does not check the DUT power there; the "
-    "engine should set power = DUT power + loss(image) for the reading, and back after")
+# Guards for two fixed engine bugs: a source's new frequency used to go out before its new
+# power (so the old, higher level met a lower-loss frequency), and the image reading retuned
+# the RF source without setting the power for the image frequency's path loss.
 
 
-@pytest.mark.xfail(strict=True, reason=BUG_FREQUENCY_FIRST)
 def test_a_frequency_step_never_puts_more_than_the_rating_on_the_dut(folder: Path) -> None:
     how, worst = _run_with_cable_table(folder, (
         'include = ["fragment.toml"]\n[[study]]\nname = "step"\n'
@@ -559,7 +547,6 @@ def test_a_frequency_step_never_puts_more_than_the_rating_on_the_dut(folder: Pat
     assert within(worst, 12.0), f"the DUT RF port took {worst:.2f} dBm (rating 12 dBm)"
 
 
-@pytest.mark.xfail(strict=True, reason=BUG_IMAGE_POWER)
 def test_the_image_reading_keeps_the_dut_power_the_sequence_asks(folder: Path) -> None:
     how, worst = _run_with_cable_table(folder, (
         'include = ["fragment.toml"]\n[mixing]\nlo_side = "high"\n[[study]]\nname = "image"\n'
