@@ -20,11 +20,14 @@ from rich.text import Text
 
 from sweeprig.analysis.limits import FAIL
 from sweeprig.analysis.reduce import reduce_run
-from sweeprig.cli.common import print_error
+from sweeprig.cli.common import fail, print_error
 from sweeprig.cli.report_cmd import VERDICT_FAILED_EXIT_CODE
 from sweeprig.engine.runner import PointResult
+from sweeprig.engine.safe import make_bench_safe
 from sweeprig.engine.session import LoadedFiles, RunOutcome, resume_run, run_sequence
 from sweeprig.errors import SweeprigError
+from sweeprig.formats.bench import load_bench
+from sweeprig.instruments import available_profiles
 from sweeprig.plan.duration import format_duration
 from sweeprig.report import write_report
 from sweeprig.report.terminal import print_summary
@@ -209,7 +212,44 @@ def resume_command(
     ), quiet=quiet, report=report)
 
 
+_SAFE_HELP = """Put a bench in its safe state now: every RF output off, the supply to its safe
+setting, the chamber to its idle set point (the bench file's [safe_state]).
+
+For after a run was killed (power cut, SIGKILL, a crashed laptop) and could not do it
+itself: the instruments keep their last settings, RF on included, until told otherwise.
+Each instrument is tried on its own. Refused while a live run holds the bench. Check the
+bench yourself afterwards; this does not replace your lab's safety procedures.
+
+Example:
+
+  sweeprig safe --bench bench3.toml
+"""
+
+
+def safe_command(
+    bench: Annotated[Path, typer.Option(
+        "--bench", "-b", help="bench file (TOML) naming the instruments",
+        show_default=False)],
+) -> None:
+    console = Console(highlight=False)
+    try:
+        loaded = load_bench(bench, known_profiles=available_profiles())
+        outcome = make_bench_safe(loaded)
+    except SweeprigError as exc:
+        raise fail(exc) from None
+    for step in outcome.done:
+        console.print(Text(f"  done: {step}"))
+    for step, error in outcome.failed:
+        console.print(Text(f"  FAILED: {step}: {error}", style="bold red"))
+    if not outcome.ok:
+        console.print(Text("the bench is NOT fully safe: check it by hand now",
+                           style="bold red"))
+        raise typer.Exit(1)
+    console.print("bench safe: RF off, supply safe, chamber idle")
+
+
 def register(app: typer.Typer) -> None:
-    """Add ``run`` and ``resume`` to the root app."""
+    """Add ``run``, ``resume`` and ``safe`` to the root app."""
     app.command("run", help=_RUN_HELP, no_args_is_help=True)(run_command)
     app.command("resume", help=_RESUME_HELP, no_args_is_help=True)(resume_command)
+    app.command("safe", help=_SAFE_HELP, no_args_is_help=True)(safe_command)

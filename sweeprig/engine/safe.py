@@ -14,6 +14,7 @@ from contextlib import contextmanager
 from dataclasses import dataclass
 
 from sweeprig.engine.connect import BenchDrivers
+from sweeprig.formats.bench import Bench
 
 _HELD = (signal.SIGINT, signal.SIGTERM, signal.SIGHUP)
 
@@ -101,3 +102,44 @@ def _signals_held() -> Iterator[None]:
     finally:
         for sig, handler in previous.items():
             signal.signal(sig, handler)
+
+
+def make_bench_safe(bench: Bench, *, resources: dict[str, str] | None = None,
+                    log: Callable[[str], None] = lambda _msg: None) -> SafeOutcome:
+    """Open every instrument of ``bench`` that answers and put the bench in its safe state.
+
+    For use after a run was killed (power cut, SIGKILL) and could not do it itself. Each role
+    is opened on its own, so one dead instrument does not keep the others unsafe; a role that
+    cannot be opened is reported as a failed step. Refuses (:class:`BenchBusy`) while a live
+    run holds the bench.
+    """
+    from sweeprig.engine.connect import open_bench
+    from sweeprig.engine.locks import BenchLock
+
+    roles = [r for r in ("rf", "rf2", "lo", "dc", "chamber") if bench.role(r) is not None]
+    resources = dict(resources or {})
+    lock_resources = tuple(resources.get(r, bench.role(r).resource) for r in roles)  # type: ignore[union-attr]
+    failed: list[tuple[str, str]] = []
+    done: list[str] = []
+    with BenchLock(lock_resources, "sweeprig safe"):
+        for role in roles:
+            try:
+                drivers = open_bench(bench, {role: "safe state"}, resources={
+                    k: v for k, v in resources.items() if k == role})
+            except Exception as exc:
+                failed.append((f"{role}: open", str(exc).splitlines()[0]))
+                log(f"{role}: cannot open: {exc}")
+                continue
+            try:
+                state = bench.safe_state
+                outcome = make_safe(
+                    drivers,
+                    supply_safe_v=None if state.supply in (None, "off") else float(state.supply),
+                    chamber_idle_c=None if state.chamber in (None, "off") else float(state.chamber),
+                    log=log,
+                )
+            finally:
+                drivers.close()
+            done.extend(outcome.done)
+            failed.extend(outcome.failed)
+    return SafeOutcome(tuple(done), tuple(failed))

@@ -80,6 +80,12 @@ def test_killed_run_is_interrupted_and_resumes_with_every_point_exactly_once(
         if proc.poll() is None:
             proc.kill()
         proc.communicate(timeout=30)
+    assert sim.instruments["rf"].output_on  # nothing in a killed process can switch it off
+    safe = CliRunner().invoke(app, ["safe", "--bench", str(bench)])
+    assert safe.exit_code == 0, safe.output
+    for role in ("rf", "rf2", "lo"):
+        assert sim.instruments[role].output_on is False
+    assert sim.instruments["dc"].output_on is False
     with SqliteRunStore(store_path) as store:
         run = store.runs()[0]
         assert run.status == "interrupted"  # not "running": its process is gone
