@@ -148,13 +148,32 @@ def _convert(number: float, unit: str, kind: str, raw: object, where: str | None
     elif key in _LINEAR.get(kind, {}):
         return number * _LINEAR[kind][key]
     dimension = kind.replace("_", " ")
-    raise _error(raw, kind, where, f"has unit {unit!r}, which is not a {dimension} unit")
+    problem = f"has unit {short_repr(unit)}, which is not a {dimension} unit"
+    raise _error(raw, kind, where, problem)
+
+
+#: Longest text a message repeats from a file; longer text is cut (see :func:`shorten`).
+SHOWN_CHARS = 80
+
+
+def shorten(text: str, limit: int = SHOWN_CHARS) -> str:
+    """``text`` cut to ``limit`` characters with an ellipsis and its length, when longer."""
+    if len(text) <= limit:
+        return text
+    return f"{text[:limit]}… ({len(text):,} characters)"
+
+
+def short_repr(value: object, limit: int = SHOWN_CHARS) -> str:
+    """``repr(value)``, a long string cut to ``limit`` characters (see :func:`shorten`)."""
+    if isinstance(value, str) and len(value) > limit:
+        return f"{value[:limit]!r}… ({len(value):,} characters)"
+    return shorten(repr(value), limit)
 
 
 def _error(raw: object, kind: str, where: str | None, problem: str) -> UnitError:
     accepted = ", ".join(suffixes(kind)) or "no unit"
     return UnitError(
-        f"{raw!r} {problem}",
+        f"{short_repr(raw)} {problem}",
         where=where,
         fix=f"write a {kind.replace('_', ' ')} such as {example(kind)} (units: {accepted})",
     )

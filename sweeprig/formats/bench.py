@@ -319,3 +319,43 @@ def check_bench(bench: Bench, *, known_profiles: Collection[str] | None = None) 
         raise InputError("the safe-state supply voltage is above limits.supply_max_voltage",
                          where=bench.where(("safe_state", "supply")),
                          fix='use "off" or a lower voltage')
+    _check_safe_state(bench)
+    if bench.bench.timeout <= 0:
+        raise InputError(f"the I/O timeout {bench.bench.timeout:g} s is not above 0 s",
+                         where=bench.where(("bench", "timeout")),
+                         fix='write a positive time such as "5 s", or leave the key out (5 s)')
+
+
+#: Said with every safe-state refusal: the safe state is what protects the DUT after a run.
+SAFE_STATE_CAUTION = ("Caution: the safe state is where the bench is left after a run and on "
+                      "any failure; it must be within every limit.")
+
+
+def _check_safe_state(bench: Bench) -> None:
+    """Refuse a safe state the limits themselves forbid (the run would end unsafe)."""
+    lim = bench.limits
+    supply = bench.safe_state.supply
+    part_max = lim.part.supply_max
+    if isinstance(supply, float) and part_max is not None and supply > part_max:
+        raise InputError(
+            f"the safe-state supply voltage {supply:g} V is above the part's rating "
+            f"limits.part.supply_max ({part_max:g} V)",
+            where=bench.where(("safe_state", "supply")),
+            fix=f'use "off" or a voltage at most {part_max:g} V. {SAFE_STATE_CAUTION}')
+    chamber = bench.safe_state.chamber
+    if not isinstance(chamber, float):
+        return
+    if lim.chamber_max is not None and chamber > lim.chamber_max:
+        raise InputError(
+            f"the safe-state chamber set point {chamber:g} degC is above limits.chamber_max "
+            f"({lim.chamber_max:g} degC)",
+            where=bench.where(("safe_state", "chamber")),
+            fix=f'use "off" or a set point between the chamber_min and chamber_max limits. '
+            f"{SAFE_STATE_CAUTION}")
+    if lim.chamber_min is not None and chamber < lim.chamber_min:
+        raise InputError(
+            f"the safe-state chamber set point {chamber:g} degC is below limits.chamber_min "
+            f"({lim.chamber_min:g} degC)",
+            where=bench.where(("safe_state", "chamber")),
+            fix=f'use "off" or a set point between the chamber_min and chamber_max limits. '
+            f"{SAFE_STATE_CAUTION}")

@@ -13,6 +13,7 @@ from __future__ import annotations
 import math
 import re
 from collections.abc import Callable
+from fractions import Fraction
 from typing import Annotated, Any, ClassVar, Literal
 
 from pydantic import (
@@ -119,6 +120,9 @@ _KIND_OF_TYPE_NAME = {
 #: A whole number as TOML writes it (no strings, no floats).
 StrictInt = Annotated[int, Field(strict=True)]
 
+#: true or false as TOML writes them (no strings such as "yes", no numbers).
+StrictBool = Annotated[bool, Field(strict=True)]
+
 
 class RangeSpec(Frozen):
     """A range of values: ``start`` to ``stop`` by ``step``, or in ``points`` values.
@@ -173,7 +177,10 @@ class RangeSpec(Frozen):
     def count(self) -> int:
         """Number of values, computed arithmetically (stop included when on the grid)."""
         if self.step is not None:
-            return math.floor((self.stop - self.start) / self.step + GRID_TOL) + 1
+            steps = (self.stop - self.start) / self.step + GRID_TOL
+            if not math.isfinite(steps):  # beyond the float range: count exactly instead
+                return math.floor(Fraction(self.stop - self.start) / Fraction(self.step)) + 1
+            return math.floor(steps) + 1
         assert self.points is not None
         return self.points
 

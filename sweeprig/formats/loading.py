@@ -28,6 +28,7 @@ from pydantic import BaseModel, ValidationError
 from sweeprig.errors import InputError
 from sweeprig.formats.fields import TAG_PREFIX
 from sweeprig.formats.toml_locate import KeyLocator, KeyPath, format_key_path
+from sweeprig.units import short_repr, shorten
 
 M = TypeVar("M", bound=BaseModel)
 
@@ -39,7 +40,7 @@ def display_path(path: Path) -> str:
     """``path`` relative to the working directory when it lies below it, else as given."""
     try:
         return str(path.resolve().relative_to(Path.cwd().resolve()))
-    except ValueError:
+    except (ValueError, OSError):  # not below it, or a name the file system refuses
         return str(path)
 
 
@@ -147,6 +148,9 @@ def read_text(path: Path, display: str | None = None) -> str:
     except IsADirectoryError:
         raise InputError(f"{shown} is a directory, not a file", where=shown,
                          fix="give the path of a .toml file") from None
+    except ValueError:  # a NUL character in the name
+        raise InputError(f"file name {shown!r} holds a character no file name can hold",
+                         where=shown, fix="check the path") from None
     except OSError as exc:
         raise InputError(f"cannot read {shown}: {exc.strerror}", where=shown,
                          fix="check the file's permissions") from None
@@ -176,7 +180,7 @@ def parse_toml(text: str, display: str) -> dict[str, Any]:
             what = f"TOML syntax error at column {match[2]}: {message[: match.start()]}"
         else:
             end = _TOML_END.search(message)
-            where = f"{display}:{text.count(chr(10)) + 1}"
+            where = f"{display}:{_last_line(text)}"
             detail = message[: end.start()] if end else message
             what = f"TOML syntax error at the end of the file: {detail}"
         raise InputError(
@@ -184,6 +188,31 @@ def parse_toml(text: str, display: str) -> dict[str, Any]:
             where=where,
             fix="check quotes around text and units (\"2.4 GHz\"), brackets and '=' signs",
         ) from None
+    except ValueError as exc:  # e.g. an integer of more than 4300 digits (Python's limit)
+        raise long_number_error(text, display, exc) from None
+
+
+_LONG_DIGITS = re.compile(r"[0-9_]{1000,}")
+
+
+def long_number_error(text: str, display: str, exc: ValueError) -> InputError:
+    """The error for TOML that ``tomllib`` refuses with a plain ValueError (a huge integer)."""
+    match = _LONG_DIGITS.search(text)
+    if match is None:
+        return InputError(f"TOML value refused: {exc}", where=display,
+                          fix="check the numbers in the file")
+    line = text.count("\n", 0, match.start()) + 1
+    digits = sum(c.isdigit() for c in match[0])
+    return InputError(
+        f"a number of {digits:,} digits is too long to read",
+        where=f"{display}:{line}",
+        fix="write the number with a unit or an exponent, e.g. \"2.4 GHz\" or 2.4e9",
+    )
+
+
+def _last_line(text: str) -> int:
+    """Number of the last line of ``text`` (a final newline ends that line, it starts none)."""
+    return max(1, text.count("\n") + (0 if text.endswith("\n") else 1))
 
 
 def read_source(path: Path, *, _chain: tuple[Path, ...] = ()) -> SourceFile:
@@ -201,21 +230,32 @@ def read_source(path: Path, *, _chain: tuple[Path, ...] = ()) -> SourceFile:
     chain = (*_chain, path.resolve())
     for n, name in enumerate(includes):
         target = (path.parent / name)
-        if target.resolve() in chain:
-            names = [display_path(p) for p in chain] + [display_path(target.resolve())]
+        try:
+            resolved = target.resolve()
+            exists = target.is_file()
+        except (OSError, ValueError):  # a NUL character, a name too long for the file system
+            resolved, exists = target, False
+        if resolved in chain:
+            names = [display_path(p) for p in chain] + [display_path(resolved)]
             raise InputError(
                 "include cycle: " + " → ".join(names),
                 where=source.where(("include", n)),
                 fix="remove one of these includes so that no file includes itself",
             )
-        if not target.is_file():
+        if not exists:
             raise InputError(
-                f"included file {name!r} does not exist (looked for {display_path(target)})",
+                f"included file {short_repr(name)} does not exist "
+                f"(looked for {_shown_path(target)})",
                 where=source.where(("include", n)),
                 fix="include paths are relative to the including file; check the name",
             )
         source.includes.append(read_source(target, _chain=chain))
     return source
+
+
+def _shown_path(path: Path) -> str:
+    """``display_path``, shortened when long."""
+    return shorten(display_path(path))
 
 
 def load_document(path: str | os.PathLike[str]) -> Document:
@@ -227,22 +267,30 @@ def load_document(path: str | os.PathLike[str]) -> Document:
 # -- pydantic errors → InputError ---------------------------------------------------------
 
 
-def validate(model: type[M], doc: Document) -> M:
-    """Validate the merged table of ``doc`` as ``model``; the first problem → InputError."""
+#: The page documenting sequence and bench files (named in fixes that have nothing better).
+SEQUENCE_DOCS = "docs/sequence-format.md"
+
+
+def validate(model: type[M], doc: Document, *, docs: str = SEQUENCE_DOCS) -> M:
+    """Validate the merged table of ``doc`` as ``model``; the first problem → InputError.
+
+    ``docs`` is the page a fix points to when it has nothing more precise to say.
+    """
     try:
         return model.model_validate(doc.data)
     except ValidationError as exc:
-        raise validation_error(model, exc, doc.where) from None
+        raise validation_error(model, exc, doc.where, docs=docs) from None
 
 
 def validation_error(
-    model: type[BaseModel], exc: ValidationError, where: Callable[[KeyPath], str]
+    model: type[BaseModel], exc: ValidationError, where: Callable[[KeyPath], str],
+    *, docs: str = SEQUENCE_DOCS,
 ) -> InputError:
     """Turn pydantic's first error into one located InputError with a fix."""
     errors = _relevant(exc.errors(include_url=False))
     first = errors[0]
     loc = _clean(first["loc"])
-    what, fix = _describe(model, first, loc)
+    what, fix = _describe(model, first, loc, docs)
     if len(errors) > 1:
         more = len(errors) - 1
         what += f" ({more} more problem{'s' if more > 1 else ''} may follow)"
@@ -267,54 +315,58 @@ def _relevant(errors: list[Any]) -> list[Any]:
     return sorted(kept, key=lambda e: e["type"] != "extra_forbidden")
 
 
-def _describe(model: type[BaseModel], err: Any, loc: KeyPath) -> tuple[str, str]:
+def _describe(model: type[BaseModel], err: Any, loc: KeyPath,
+              docs: str = SEQUENCE_DOCS) -> tuple[str, str]:
     kind = err["type"]
     ctx = err.get("ctx") or {}
     key = loc[-1] if loc else ""
     if kind in ("quantity", "semantic"):
-        return ctx.get("what", err["msg"]), ctx.get("fix") or "see docs/sequence-format.md"
+        return ctx.get("what", err["msg"]), ctx.get("fix") or f"see {docs}"
     if kind == "extra_forbidden":
         allowed = allowed_keys(model, loc[:-1])
         close = difflib.get_close_matches(str(key), allowed, n=1, cutoff=0.6)
         if close:
-            return f"unknown key {key!r}", f"did you mean {close[0]!r}?"
+            return f"unknown key {short_repr(key)}", f"did you mean {close[0]!r}?"
         listing = ", ".join(sorted(allowed)) if allowed else "none"
-        return f"unknown key {key!r}", f"keys allowed here: {listing}"
+        return f"unknown key {short_repr(key)}", f"keys allowed here: {listing}"
     if kind == "missing":
         if key in ("study", "spec"):
-            return f"missing required key {key!r}", f"add at least one [[{key}]] table"
-        return f"missing required key {key!r}", f"add {key} = ... (see docs/sequence-format.md)"
+            return (f"missing required key {short_repr(key)}",
+                    f"add at least one [[{key}]] table")
+        return f"missing required key {short_repr(key)}", f"add {key} = ... (see {docs})"
     if kind == "literal_error":
         expected = ctx.get("expected", "")
         options = re.findall(r"'([^']*)'", str(expected))
         value = err.get("input")
         close = difflib.get_close_matches(str(value), options, n=1, cutoff=0.5)
         hint = f"did you mean {close[0]!r}? " if close else ""
-        return (f"{value!r} is not allowed here", f"{hint}use one of {expected}")
+        return (f"{short_repr(value)} is not allowed here", f"{hint}use one of {expected}")
     if kind in ("too_short",):
         return "an empty list is not allowed here", "give at least one value"
     if kind in ("int_type", "int_parsing", "int_from_float"):
-        return f"{err.get('input')!r} is not a whole number", "write a whole number such as 5"
+        return (f"{short_repr(err.get('input'))} is not a whole number",
+                "write a whole number such as 5")
     if kind in ("bool_type", "bool_parsing"):
-        return f"{err.get('input')!r} is not true or false", "write true or false (no quotes)"
+        return (f"{short_repr(err.get('input'))} is not true or false",
+                "write true or false (no quotes)")
     if kind in ("string_type",):
-        return f"{err.get('input')!r} is not text", 'put the value in quotes, e.g. "text"'
+        return f"{short_repr(err.get('input'))} is not text", 'put the value in quotes, e.g. "text"'
     if kind in ("model_type", "dict_type", "model_attributes_type"):
-        return (f"{key!r} must be a table", f"write it as [{format_key_path(loc)}] "
+        return (f"{short_repr(key)} must be a table", f"write it as [{format_key_path(loc)}] "
                 "or as an inline table { ... }")
     if kind in ("tuple_type", "list_type"):
         if isinstance(err.get("input"), dict):
-            return (f"{key!r} must be a list of tables",
+            return (f"{short_repr(key)} must be a list of tables",
                     f"start each entry with [[{format_key_path(loc)}]] (double brackets)")
-        return f"{key!r} must be a list", 'write a list such as ["a", "b"]'
+        return f"{short_repr(key)} must be a list", 'write a list such as ["a", "b"]'
 
     if kind == "string_pattern_mismatch":
-        return (f"{err.get('input')!r} has characters that are not allowed",
+        return (f"{short_repr(err.get('input'))} has characters that are not allowed",
                 f"use only the pattern {ctx.get('pattern')}")
     msg = err["msg"]
     if msg.startswith("Value error, "):
         msg = msg[len("Value error, "):]
-    return msg, "see docs/sequence-format.md"
+    return shorten(msg, 300), f"see {docs}"
 
 
 def allowed_keys(model: type[BaseModel], loc: KeyPath) -> list[str]:

@@ -7,6 +7,7 @@ into source settings. Internal units: Hz, dBm, dB, V, A, s, degC. Every key is d
 
 from __future__ import annotations
 
+import math
 import os
 from collections.abc import Callable
 from typing import Annotated, Any, Literal
@@ -23,6 +24,7 @@ from sweeprig.formats.fields import (
     LevelDb,
     Power,
     RangeSpec,
+    StrictBool,
     StrictInt,
     Temperature,
     Time,
@@ -217,7 +219,7 @@ class Recovery(Frozen):
     reconnect_attempts: Annotated[int, Field(strict=True, ge=0, le=20)] = Field(
         4, description="reconnections of an instrument that stopped answering")
     backoff: Time = Field(0.5, description="wait before the first reconnection (doubles)")
-    reset_check: bool = Field(
+    reset_check: StrictBool = Field(
         True, description="read every instrument's event status before storing a point, so "
         "an instrument that reset itself is caught and the point measured again")
 
@@ -236,7 +238,7 @@ class ReadingSpec(Frozen):
     min_frequency: Frequency | None = Field(None, description="mxn only: skip products below")
     max_frequency: Frequency | None = Field(None, description="mxn only: skip products above")
     analyzer: AnalyzerField | None = Field(None, description="analyzer settings for this reading")
-    attenuation_check: bool | None = Field(
+    attenuation_check: StrictBool | None = Field(
         None, description="distortion readings: repeat with 10 dB more input attenuation")
 
 
@@ -274,7 +276,7 @@ class Study(Frozen):
     read: tuple[ReadItem, ...] = Field(
         min_length=1, description="what to read at each point: kinds, or tables for options")
     analyzer: AnalyzerField | None = Field(None, description="analyzer settings for this study")
-    attenuation_check: bool = Field(
+    attenuation_check: StrictBool = Field(
         False, description="repeat this study's distortion readings (mxn, im3, im2) with 10 dB "
         "more input attenuation")
 
@@ -485,14 +487,24 @@ def check_size(sequence: Sequence, max_points: int = DEFAULT_MAX_POINTS) -> int:
         biggest = max(range(len(sequence.study)), key=lambda i: sequence.study[i].count())
         study = sequence.study[biggest]
         factor = sequence.temperature_count() * sequence.supply_count()
+        alone = _count_text(study.count() * factor)
         raise InputError(
-            f"the sequence expands to {total:,} points, above the maximum of {max_points:,} "
-            f"(study {study.name!r} alone has {study.count() * factor:,})",
+            f"the sequence expands to {_count_text(total)} points, above the maximum of "
+            f"{max_points:,} (study {study.name!r} alone has {alone})",
             where=sequence.where(("study", biggest)),
             fix="use coarser steps or fewer points, split the sequence, or raise the maximum "
             "(--max-points)",
         )
     return total
+
+
+def _count_text(count: int) -> str:
+    """``1,000,000`` for counts below 10**30, else ``about 1.0e+310`` (no float overflow)."""
+    if count < 10**30:
+        return f"{count:,}"
+    exponent = int(math.log10(count))  # exact enough for a message; str() fails past 4300 digits
+    lead = count // 10 ** (exponent - 1)
+    return f"about {lead // 10}.{lead % 10}e+{exponent}"
 
 
 def _problem(sequence: Sequence, path: KeyPath, what: str, fix: str) -> InputError:

@@ -11,6 +11,8 @@ from __future__ import annotations
 import contextlib
 import tomllib
 
+from sweeprig.units import shorten
+
 KeyPath = tuple[str | int, ...]
 
 _BARE = set("ABCDEFGHIJKLMNOPQRSTUVWXYZabcdefghijklmnopqrstuvwxyz0123456789_-")
@@ -211,6 +213,6 @@ def format_key_path(path: KeyPath) -> str:
         if isinstance(part, int):
             out += f"[{part}]"
         else:
-            text = part if part and set(part) <= _BARE else f'"{part}"'
+            text = shorten(part) if part and set(part) <= _BARE else f'"{shorten(part)}"'
             out += f".{text}" if out else text
     return out

@@ -13,6 +13,7 @@ Errors in a profile file are :class:`~sweeprig.errors.InputError` naming ``file:
 
 from __future__ import annotations
 
+import difflib
 import functools
 import math
 import re
@@ -34,7 +35,7 @@ from sweeprig.instruments.ops import (
     ReplyFormat,
     ops_for,
 )
-from sweeprig.units import parse_quantity
+from sweeprig.units import parse_quantity, shorten
 
 PROFILE_NAME_RE = re.compile(r"[a-z0-9][a-z0-9-]*")
 _PLACEHOLDER_RE = re.compile(r"\{[^{}]*\}|[{}]")
@@ -253,8 +254,26 @@ def key_line(text: str, path: Sequence[str]) -> int:
     return best_line
 
 
+_DOCS_LIST = "docs/driver-profiles.md lists every key"
+_LONG_DIGITS = re.compile(r"[0-9_]{1000,}")
+
+
+def _allowed_keys(parent: Sequence[str]) -> list[str]:
+    """Keys the profile table at ``parent`` may hold (for "did you mean" suggestions)."""
+    models: tuple[type[BaseModel], ...] = ()
+    if not parent:
+        models = (_FileModel,)
+    elif list(parent) == ["profile"]:
+        models = (_HeaderModel,)
+    elif len(parent) == 2 and parent[0] == "ops":
+        models = (_OpModel,)
+    elif len(parent) == 3 and parent[0] == "ops" and parent[2] == "complete":
+        models = (_PollModel, _OpcModel)
+    return sorted({name for model in models for name in model.model_fields})
+
+
 def _where(path: Path | str, text: str, keys: Sequence[str]) -> str:
-    dotted = ".".join(str(k) for k in keys)
+    dotted = ".".join(shorten(str(k)) for k in keys)
     line = key_line(text, keys)
     return f"{path}:{line}: {dotted}" if dotted else f"{path}:{line}"
 
@@ -549,6 +568,14 @@ def parse_profile(text: str, path: Path | str = "<profile>") -> Profile:
             where=where,
             fix="fix the TOML syntax (strings in quotes, one key per line)",
         ) from None
+    except ValueError:  # an integer of more than 4300 digits (Python's int-from-text limit)
+        match = _LONG_DIGITS.search(text)
+        line = text.count("\n", 0, match.start()) + 1 if match else None
+        raise InputError(
+            "not valid TOML: a number too long to read",
+            where=f"{path}:{line}" if line else str(path),
+            fix="write the number with at most a few digits (and an exponent, e.g. 2.4e9)",
+        ) from None
     try:
         model = _FileModel.model_validate(data)
     except ValidationError as exc:
@@ -557,14 +584,19 @@ def parse_profile(text: str, path: Path | str = "<profile>") -> Profile:
         more = len(exc.errors()) - 1
         extra = f" (and {more} more problem{'s' if more > 1 else ''})" if more else ""
         msg = first["msg"]
+        fix = f"correct this key ({_DOCS_LIST})"
         if first["type"] == "extra_forbidden":
             msg = "unknown key"
+            close = difflib.get_close_matches(keys[-1] if keys else "", _allowed_keys(keys[:-1]),
+                                              n=1, cutoff=0.6)
+            if close:
+                fix = f"did you mean {close[0]!r}? ({_DOCS_LIST})"
         elif first["type"] == "missing":
             msg = "missing key"
         raise InputError(
             f"{msg}{extra}",
             where=_where(path, text, keys),
-            fix=f"correct this key ({DOCS_HINT} lists every key)",
+            fix=fix,
         ) from None
     header = model.profile
     if PROFILE_NAME_RE.fullmatch(header.name) is None:

@@ -144,12 +144,17 @@ def _loss(bench: Bench, sequence: Sequence, block: StudyBlock, connection: str,
             fix=exc.fix) from None
 
 
+#: Natural log of the power ratio of 1 dB: a level L dB is exp(L * _NEPER_PER_DB) in power.
+_NEPER_PER_DB = math.log(10.0) / 10.0
+
+
 def _power_sum(*levels_dbm: np.ndarray) -> np.ndarray:
-    total = np.zeros(np.broadcast(*levels_dbm).shape)
+    """Total power (dBm) of incoherent components, summed in the log domain (no overflow for
+    absurd levels, -inf for no power)."""
+    total = np.full(np.broadcast(*levels_dbm).shape, -np.inf)
     for level in levels_dbm:
-        total = total + 10.0 ** (np.asarray(level) / 10.0)
-    with np.errstate(divide="ignore"):
-        return 10.0 * np.log10(total)
+        total = np.logaddexp(total, np.asarray(level, dtype=float) * _NEPER_PER_DB)
+    return total / _NEPER_PER_DB
 
 
 def check_limits(sequence: Sequence, bench: Bench) -> PreflightReport:

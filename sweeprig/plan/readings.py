@@ -109,9 +109,11 @@ class Drive:
 
 def power_sum_dbm(levels_dbm: list[float]) -> float:
     """Total power of incoherent components, dBm."""
-    if not levels_dbm:
-        return -math.inf
-    return 10.0 * math.log10(sum(10.0 ** (p / 10.0) for p in levels_dbm))
+    top = max(levels_dbm, default=-math.inf)
+    if not math.isfinite(top):
+        return top
+    # relative to the largest, so that absurd levels cannot overflow
+    return top + 10.0 * math.log10(sum(10.0 ** ((p - top) / 10.0) for p in levels_dbm))
 
 
 class ReadingPlanner:
@@ -316,7 +318,8 @@ class ReadingPlanner:
             else:
                 target = self._reference_dbm(kind, port, d, wanted_dbm) - self.defaults.spur_floor
             danl_needed = target - self.defaults.noise_margin
-            rbw_max = 10.0 ** ((danl_needed + 174.0 - self.nf_db - att) / 10.0)
+            # capped at 300 dB(Hz): far above any RBW, and no overflow for absurd levels
+            rbw_max = 10.0 ** (min(danl_needed + 174.0 - self.nf_db - att, 300.0) / 10.0)
             rbw_max = min(rbw_max, nearest / 10.0)
             rbw = RBW_STEPS_HZ[0]
             for step in RBW_STEPS_HZ:

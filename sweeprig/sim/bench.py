@@ -56,12 +56,12 @@ from pathlib import Path
 from types import TracebackType
 from typing import Annotated, Any
 
-from pydantic import Field, field_validator
+from pydantic import Discriminator, Field, Tag, field_validator
 from pydantic_core import PydanticCustomError
 
 from sweeprig.clock import Clock, VirtualClock
 from sweeprig.errors import InputError
-from sweeprig.formats.fields import Frozen, quantity
+from sweeprig.formats.fields import Frozen, StrictBool, quantity
 from sweeprig.formats.loading import Document, display_path, load_document, validate
 from sweeprig.sim.analyzer_display import AnalyzerParams
 from sweeprig.sim.faults import FaultPlan, FaultSpec
@@ -87,6 +87,7 @@ from sweeprig.sim.world import (
     SimWorld,
     WorldConfig,
 )
+from sweeprig.units import short_repr, shorten
 
 ROLES: tuple[str, ...] = ("rf", "rf2", "lo", "sa", "pm", "dc", "chamber", "switch", "simctl")
 BENCHES_DIR = Path(__file__).resolve().parent / "benches"
@@ -108,7 +109,15 @@ class SqrtCableSpec(Frozen):
     at: Annotated[Frequency, Field(gt=0.0)]
 
 
-CableSpec = NonNegativeDb | SqrtCableSpec
+def _cable_shape(value: Any) -> str:
+    return "~table" if isinstance(value, dict | SqrtCableSpec) else "~value"
+
+
+#: A cable loss: a level in dB, or a table {loss, at} growing as sqrt(f).
+CableSpec = Annotated[
+    Annotated[NonNegativeDb, Tag("~value")] | Annotated[SqrtCableSpec, Tag("~table")],
+    Discriminator(_cable_shape),
+]
 
 
 def _cable(spec: CableSpec) -> CableLoss:
@@ -132,7 +141,7 @@ class CablesSpec(Frozen):
 class SourcesSpec(Frozen):
     """Properties shared by the three simulated sources."""
 
-    level_error: bool = True
+    level_error: StrictBool = True
     harmonics: tuple[LevelDb, ...] = (-35.0, -45.0)
 
 
@@ -229,10 +238,14 @@ def load_sim_bench_description(path: str | os.PathLike[str]) -> SimBenchDescript
     description = validate(SimBenchDescription, doc)
     if _looks_like_path(description.part):
         part_path = Path(doc.path).parent / description.part
-        if not part_path.is_file():
+        try:
+            exists = part_path.is_file()
+        except (OSError, ValueError):  # a name too long for the file system, a NUL character
+            exists = False
+        if not exists:
             raise InputError(
-                f"part file {description.part!r} does not exist "
-                f"(looked for {display_path(part_path)})",
+                f"part file {short_repr(description.part)} does not exist "
+                f"(looked for {shorten(display_path(part_path))})",
                 where=doc.where(("part",)),
                 fix="part paths are relative to the description file; or name a shipped "
                 f"part: {', '.join(shipped_parts())}",

@@ -95,7 +95,10 @@ def parse_int(raw: str, *, where: str | None = None) -> int:
     """Parse an integer reply; an integral NR2/NR3 such as ``"+8.0E+00"`` is accepted too."""
     text = _text(raw, "an integer", where)
     if _INT_TEXT.fullmatch(text) is not None:
-        return int(text)
+        try:
+            return int(text)
+        except ValueError:  # more digits than Python reads from text (4300)
+            raise _garbage(raw, "an integer", where) from None
     if _NRF.fullmatch(text) is None:
         raise _garbage(raw, "an integer", where)
     value = float(text)

@@ -69,11 +69,6 @@ TINY = SUPPORT / "tiny-sequence.toml"
 MAX_MESSAGE_CHARS = 3000
 SOURCE_AND_SUPPLY_ROLES = ("rf", "rf2", "lo", "dc")
 
-BUG_CSV_HEADER = (
-    "read_csv_loss (sweeprig/formats/pathloss.py) recognises a header row only on line 1; after "
-    "a '#' comment line, which it skips itself, the optional header is refused")
-
-
 @dataclass(frozen=True)
 class Outcome:
     """What an entry point did: exit code, the text the user saw, a traceback if any."""
@@ -316,7 +311,6 @@ def test_corpus_file_says_what_is_broken(rel: str) -> None:
 # -- found while building the corpus, shown on valid input ----------------------------------------
 
 
-@pytest.mark.xfail(strict=True, reason=BUG_CSV_HEADER)
 def test_csv_loss_table_with_a_comment_line_and_a_header_loads(tmp_path: Path) -> None:
     table = tmp_path / "rf-cable.csv"
     table.write_text("# rf cable, measured 2024 (fictional)\nfreq_hz, loss_db\n2.0e9, 2.9\n"

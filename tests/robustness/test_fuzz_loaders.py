@@ -129,14 +129,7 @@ SEEDS: dict[str, list[Path]] = {
 #: Bugs already shown (strict xfail) by the corpus and the parser tests: an input that hits
 #: one is set aside (``reject``), so the search goes on for new ones. (exception type, text
 #: in the message, file the exception comes from, corpus case).
-KNOWN_BUGS: tuple[tuple[type[BaseException], str, str, str], ...] = (
-    (OverflowError, "", "sweeprig/formats/fields.py", "sequences/huge-step-count-overflow.toml"),
-    (OverflowError, "", "sweeprig/plan/", "sequences/expected-gain-3025-db.toml (plan)"),
-    (RuntimeWarning, "overflow", "sweeprig/plan/", "benches/loss-gain-3088-db.toml"),
-    (ValueError, "4300 digits", "", "sequences/integer-5000-digits.toml"),
-    (ValueError, "embedded null byte", "", "sequences/include-name-with-nul.toml"),
-    (OSError, "File name too long", "", "sequences/include-name-too-long.toml"),
-)
+KNOWN_BUGS: tuple[tuple[type[BaseException], str, str, str], ...] = ()
 
 
 def _known(exc: BaseException) -> str | None:
