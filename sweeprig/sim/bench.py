@@ -92,6 +92,8 @@ from sweeprig.units import short_repr, shorten
 ROLES: tuple[str, ...] = ("rf", "rf2", "lo", "sa", "pm", "dc", "chamber", "switch", "simctl")
 BENCHES_DIR = Path(__file__).resolve().parent / "benches"
 DEFAULT_BENCH_NAME = "default"
+#: The page a sim-bench description error points to.
+SIM_BENCH_DOCS = "docs/sim-bench.md"
 
 LevelDb = quantity("level_db")
 Power = quantity("power")
@@ -235,7 +237,7 @@ def load_sim_bench_description(path: str | os.PathLike[str]) -> SimBenchDescript
     :class:`~sweeprig.errors.InputError` naming the file, line and key.
     """
     doc = load_document(path)
-    description = validate(SimBenchDescription, doc)
+    description = validate(SimBenchDescription, doc, docs=SIM_BENCH_DOCS)
     if _looks_like_path(description.part):
         part_path = Path(doc.path).parent / description.part
         try:

@@ -126,7 +126,7 @@ def soak(tmp_path: Path, per_temperature: int, rate: float) -> dict[str, object]
     with start_sim_bench(description, clock=VirtualClock()) as sim:
         bench = tmp_path / "bench.toml"
         bench.write_text(served_bench_text(sim.resources).replace('timeout = "5 s"',
-                                                                    'timeout = "0.25 s"'))
+                                                                    'timeout = "0.15 s"'))
         _run_until(_sweeprig("run", str(sequence), "--bench", str(bench), "--store",
                              str(store_path)), store_path, total // 3)
         with SqliteRunStore(store_path) as store:
