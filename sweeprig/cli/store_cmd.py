@@ -18,6 +18,7 @@ from rich.table import Table
 
 from sweeprig.cli.common import fail
 from sweeprig.errors import StoreError, SweeprigError
+from sweeprig.report.tables import make_folder
 from sweeprig.store.base import DEFAULT_STORE_PATH, RunInfo, utc_now
 from sweeprig.store.sqlite import SqliteRunStore
 
@@ -257,14 +258,7 @@ def _events_frame(db: SqliteRunStore, run_id: int) -> pd.DataFrame:
 def _write_tables(
     info: RunInfo, tables: dict[str, pd.DataFrame], folder: Path, fmt: ExportFormat
 ) -> list[Path]:
-    try:
-        folder.mkdir(parents=True, exist_ok=True)
-    except OSError as exc:
-        raise StoreError(
-            f"cannot create the export folder: {exc.strerror or exc}",
-            where=str(folder),
-            fix="give a folder you can write to with --to",
-        ) from None
+    make_folder(folder, what="export folder", option="--to")
     written: list[Path] = []
     try:
         for name, frame in tables.items():

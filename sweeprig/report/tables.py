@@ -539,15 +539,15 @@ def write_tables(
     return written
 
 
-def make_folder(folder: Path) -> Path:
-    """Create the output folder (and parents); StoreError when that is impossible."""
+def make_folder(folder: Path, *, what: str = "report folder", option: str = "--out") -> Path:
+    """Create an output folder (and parents); StoreError naming it when that is impossible."""
     try:
         folder.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
         raise StoreError(
-            f"cannot create the report folder: {exc.strerror or exc}",
+            f"cannot create the {what}: {exc.strerror or exc}",
             where=str(folder),
-            fix="give a folder you can write to with --out",
+            fix=f"give a folder you can write to with {option}",
         ) from None
     return folder
 
