@@ -208,7 +208,7 @@ def test_short_soak_with_faults_and_two_kills(tmp_path):
 
 @pytest.mark.soak
 def test_overnight_soak_with_hundreds_of_faults_and_two_kills(tmp_path):
-    result = soak(tmp_path, per_temperature=1500, rate=0.0006)
+    result = soak(tmp_path, per_temperature=1200, rate=0.00075)
     print(f"\nsoak: {result['total']} points, {len(result['injected'])} faults injected, "
           f"{result['sim_hours']:.1f} h simulated")
     assert len(result["injected"]) >= 200
