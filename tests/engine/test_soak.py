@@ -201,7 +201,7 @@ def _check(result: dict[str, object]) -> None:
 
 
 def test_short_soak_with_faults_and_two_kills(tmp_path):
-    result = soak(tmp_path, per_temperature=150, rate=0.002)
+    result = soak(tmp_path, per_temperature=100, rate=0.002)
     assert len(result["injected"]) >= 20
     _check(result)
 
