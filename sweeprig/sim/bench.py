@@ -267,10 +267,18 @@ def resolve_description(
     if description is None:
         return load_sim_bench_description(BENCHES_DIR / f"{DEFAULT_BENCH_NAME}.toml")
     text = os.fspath(description)
-    shipped = BENCHES_DIR / f"{text}.toml"
-    if not _looks_like_path(text) and not Path(text).exists() and shipped.is_file():
-        return load_sim_bench_description(shipped)
+    if not _looks_like_path(text) and not _exists(Path(text)) \
+            and _exists(BENCHES_DIR / f"{text}.toml"):
+        return load_sim_bench_description(BENCHES_DIR / f"{text}.toml")
     return load_sim_bench_description(text)
+
+
+def _exists(path: Path) -> bool:
+    """``path.is_file()``, False for a name no file can have (NUL, too long)."""
+    try:
+        return path.is_file()
+    except (OSError, ValueError):
+        return False
 
 
 def shipped_benches() -> list[str]:

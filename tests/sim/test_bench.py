@@ -373,3 +373,12 @@ def test_part_path_is_relative_to_the_description(tmp_path: Path) -> None:
     assert Path(description.part) == parts_dir / "mine.toml"
     parts = build_sim_instruments(description)
     assert parts.world.part.name == "ideal"  # type: ignore[attr-defined]
+
+
+@pytest.mark.parametrize("name", ["bad\x00name", "x" * 5000])
+def test_a_sim_bench_name_no_file_can_have_is_a_located_error(name):
+    from sweeprig.errors import InputError
+    from sweeprig.sim.bench import resolve_description
+
+    with pytest.raises(InputError):
+        resolve_description(name)
