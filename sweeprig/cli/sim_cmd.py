@@ -6,7 +6,6 @@ the ``sim`` command group.
 
 from __future__ import annotations
 
-import ipaddress
 import signal
 import sys
 import threading
@@ -22,6 +21,7 @@ from sweeprig.cli.common import error_console, fail
 from sweeprig.clock import Clock, VirtualClock, WallClock
 from sweeprig.errors import InputError, SweeprigError
 from sweeprig.sim.bench import ROLES, SimBench, shipped_benches, start_sim_bench
+from sweeprig.sim.server import is_loopback
 
 app = typer.Typer(
     name="sim",
@@ -61,15 +61,6 @@ def _out() -> Console:
 
 _err = error_console
 _fail = fail
-
-
-def _is_loopback(host: str) -> bool:
-    if host == "localhost":
-        return True
-    try:
-        return ipaddress.ip_address(host).is_loopback
-    except ValueError:
-        return False
 
 
 def _ports(port_base: int) -> dict[str, int] | None:
@@ -117,7 +108,7 @@ def serve_command(
       sweeprig sim serve --write-bench served.toml   (then, in another terminal:
       sweeprig run sequences/demo/quick.toml --bench served.toml)
     """
-    remote = not _is_loopback(host)
+    remote = not is_loopback(host)
     if remote:
         _err().print(Text(
             f"warning: listening on {host}: the simulated instruments are reachable from the "

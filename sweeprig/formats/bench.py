@@ -21,6 +21,7 @@ from sweeprig.formats.fields import (
     Current,
     Frozen,
     LevelDb,
+    LocatedFile,
     Power,
     StrictInt,
     Temperature,
@@ -35,7 +36,7 @@ from sweeprig.formats.pathloss import (
     read_csv_loss,
     read_touchstone_loss,
 )
-from sweeprig.formats.toml_locate import KeyPath, format_key_path
+from sweeprig.formats.toml_locate import KeyPath
 
 #: Every role a bench may fill.
 ROLES: tuple[str, ...] = (
@@ -178,7 +179,7 @@ class SafeState(Frozen):
          'such as "25 degC"'})] = 25.0
 
 
-class Bench(Frozen):
+class Bench(LocatedFile):
     """A whole bench file."""
 
     format: Literal[1] = Field(1, description="version of this file format")
@@ -189,19 +190,7 @@ class Bench(Frozen):
     limits: Limits = Field(default_factory=Limits)
     safe_state: SafeState = Field(default_factory=SafeState)
 
-    _where: Callable[[KeyPath], str] | None = PrivateAttr(None)
-    _source: str | None = PrivateAttr(None)
     _losses: dict[str, PathLoss] = PrivateAttr(default_factory=dict)
-
-    def where(self, key_path: KeyPath) -> str:
-        """``file:line: key.path`` of a key (the key path alone when not loaded from a file)."""
-        if self._where is not None:
-            return self._where(tuple(key_path))
-        return format_key_path(tuple(key_path))
-
-    @property
-    def source(self) -> str | None:
-        return self._source
 
     def role(self, name: str) -> Role | None:
         return getattr(self.roles, name)

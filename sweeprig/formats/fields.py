@@ -22,6 +22,7 @@ from pydantic import (
     ConfigDict,
     Discriminator,
     Field,
+    PrivateAttr,
     Tag,
     WithJsonSchema,
     create_model,
@@ -30,6 +31,7 @@ from pydantic import (
 from pydantic_core import PydanticCustomError
 
 from sweeprig.errors import UnitError
+from sweeprig.formats.toml_locate import KeyPath, format_key_path
 from sweeprig.units import example, format_frequency, parse_quantity, suffixes
 
 #: Internal unit of each quantity kind (what a bare number means).
@@ -54,6 +56,28 @@ class Frozen(BaseModel):
     """Base of every file model: unknown keys are errors, instances are immutable."""
 
     model_config = ConfigDict(extra="forbid", frozen=True, populate_by_name=True)
+
+
+class LocatedFile(Frozen):
+    """A whole file's model that can say where each of its keys was written.
+
+    The loader sets ``_where`` (key path → ``file:line: key.path``) and ``_source`` (the file
+    as shown in messages); a model built in code has neither and names the key path alone.
+    """
+
+    _where: Callable[[KeyPath], str] | None = PrivateAttr(None)
+    _source: str | None = PrivateAttr(None)
+
+    def where(self, key_path: KeyPath) -> str:
+        """``file:line: key.path`` of a key (the key path alone when not loaded from a file)."""
+        if self._where is not None:
+            return self._where(tuple(key_path))
+        return format_key_path(tuple(key_path))
+
+    @property
+    def source(self) -> str | None:
+        """The file this model was loaded from, as shown in messages."""
+        return self._source
 
 
 def quantity_parser(kind: str) -> Callable[[Any], float]:

@@ -12,7 +12,7 @@ import os
 from collections.abc import Callable
 from typing import Annotated, Any, Literal
 
-from pydantic import BeforeValidator, Discriminator, Field, PrivateAttr, Tag, WithJsonSchema
+from pydantic import BeforeValidator, Discriminator, Field, Tag, WithJsonSchema
 from pydantic_core import PydanticCustomError
 
 from sweeprig.errors import InputError, UnitError
@@ -22,6 +22,7 @@ from sweeprig.formats.fields import (
     Frequency,
     Frozen,
     LevelDb,
+    LocatedFile,
     Power,
     RangeSpec,
     StrictBool,
@@ -363,7 +364,7 @@ SpecField = Annotated[SpecLimit, BeforeValidator(_parse_spec_bounds)]
 # -- the sequence ------------------------------------------------------------------------------
 
 
-class Sequence(Frozen):
+class Sequence(LocatedFile):
     """A whole sequence file: header, part, frequency plan, conditions, studies, limits."""
 
     format: Literal[1] = Field(1, description="version of this file format")
@@ -378,19 +379,6 @@ class Sequence(Frozen):
     study: tuple[Study, ...] = Field(min_length=1, description="the studies, run in order")
     spec: tuple[SpecField, ...] = Field((), description="datasheet limits on figures")
 
-    _where: Callable[[KeyPath], str] | None = PrivateAttr(None)
-    _source: str | None = PrivateAttr(None)
-
-    def where(self, key_path: KeyPath) -> str:
-        """``file:line: key.path`` of a key (just the key path when not loaded from a file)."""
-        if self._where is not None:
-            return self._where(tuple(key_path))
-        return format_key_path(tuple(key_path))
-
-    @property
-    def source(self) -> str | None:
-        """The file this sequence was loaded from, as shown in messages."""
-        return self._source
 
     def study_named(self, name: str) -> Study:
         for study in self.study:

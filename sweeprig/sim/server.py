@@ -45,7 +45,8 @@ def resource_name(host: str, port: int) -> str:
     return f"TCPIP0::{host}::{port}::SOCKET"
 
 
-def _is_loopback(host: str) -> bool:
+def is_loopback(host: str) -> bool:
+    """True for "localhost" and loopback addresses (127.0.0.0/8, ::1)."""
     if host == "localhost":
         return True
     try:
@@ -236,7 +237,7 @@ def serve(
     planned faults (roles must be among ``instruments``). ``allow_remote``: required to
     bind a non-loopback ``host``.
     """
-    if not _is_loopback(host):
+    if not is_loopback(host):
         if not allow_remote:
             raise InputError(
                 f"host {host!r} is not a loopback address",
