@@ -348,7 +348,12 @@ class SqliteRunStore:
                 fix="give the path of a sweeprig run store (or of a new file)",
             ) from None
         self._lost: StoreError | None = None
-        self._identity = self._file_identity()
+        self._identity: tuple[int, int] | None = None
+        self._size_floor_bytes = 0
+        with suppress(OSError):
+            st = os.stat(self.path)
+            self._identity = (st.st_dev, st.st_ino)
+            self._size_floor_bytes = st.st_size
 
     def _setup(self, *, create: bool, durable: bool) -> None:
         conn = self._conn
@@ -425,14 +430,6 @@ class SqliteRunStore:
             if self._conn.in_transaction:
                 self._conn.execute("ROLLBACK")
 
-    def _file_identity(self) -> tuple[int, int] | None:
-        """Device and inode of the file at ``self.path`` (None when it cannot be read)."""
-        try:
-            st = os.stat(self.path)
-        except OSError:
-            return None
-        return (st.st_dev, st.st_ino)
-
     @property
     def lost(self) -> StoreError | None:
         """Why the store's file can no longer be reached (deleted, moved, replaced), or None.
@@ -447,8 +444,10 @@ class SqliteRunStore:
         and can still be written.
 
         One ``stat`` (and one ``access``): the path's device and inode against the ones of the
-        file opened. ``committed``: the check follows a commit (the message then says the
-        data just written is not kept).
+        file opened, and its size against the largest seen (SQLite never shrinks a store
+        that is not vacuumed, and sweeprig never vacuums: a smaller file was overwritten in
+        place). ``committed``: the check follows a commit (the message then says the data
+        just written is not kept).
         """
         if self._lost is not None:
             raise self._lost
@@ -466,7 +465,21 @@ class SqliteRunStore:
                 ) from None
             cause = self._why_missing()
         else:
+            if (st.st_dev, st.st_ino) == self._identity and st.st_size < self._size_floor_bytes:
+                # the same file, so no log may be copied into it: that would write into
+                # whatever was put there
+                self._lost = StoreError(
+                    f"{what} failed: the run store file was overwritten in place (it shrank "
+                    f"from {self._size_floor_bytes} to {st.st_size} bytes); nothing more is "
+                    "written to it",
+                    where=str(self.path),
+                    fix="keep the store file untouched while a run writes to it; copy the file "
+                    "aside now, before anything else opens it, then start the run again in "
+                    "another --store file",
+                )
+                raise self._lost
             if (st.st_dev, st.st_ino) == self._identity:
+                self._size_floor_bytes = max(self._size_floor_bytes, st.st_size)
                 if not os.access(self.path, os.W_OK):
                     raise StoreError(
                         f"{what} failed: the run store file is read-only now (its permissions "
