@@ -25,7 +25,7 @@ from sweeprig.cli.report_cmd import VERDICT_FAILED_EXIT_CODE
 from sweeprig.engine.runner import PointResult
 from sweeprig.engine.safe import make_bench_safe
 from sweeprig.engine.session import LoadedFiles, RunOutcome, resume_run, run_sequence
-from sweeprig.errors import SweeprigError
+from sweeprig.errors import StoreError, SweeprigError
 from sweeprig.formats.bench import load_bench
 from sweeprig.instruments import available_profiles
 from sweeprig.plan.duration import format_duration
@@ -118,6 +118,8 @@ def _drive(start: Callable[..., RunOutcome], *, quiet: bool, report: bool = True
         raise typer.Exit(exc.exit_code) from None
     progress.stop()
     _print_outcome(console, outcome)
+    if outcome.store_error is not None:  # the data is not all kept: no report from it
+        raise typer.Exit(StoreError.exit_code)
     verdict = _report(console, outcome) if report else None
     if outcome.status != "complete" or (outcome.safe is not None and not outcome.safe.ok):
         raise typer.Exit(1)
@@ -160,8 +162,10 @@ def _print_outcome(console: Console, outcome: RunOutcome) -> None:
         f"[{colour}]run {outcome.run_id} {outcome.status}[/{colour}]"
         + (f": {outcome.reason}" if outcome.reason else "")
     )
+    stored = (f"{outcome.points_done} of {outcome.points_total}" if outcome.points_read_back
+              else f"unknown: the store at {outcome.store_path} cannot be read back")
     console.print(
-        f"  points stored: {outcome.points_done} of {outcome.points_total}; "
+        f"  points stored: {stored}; "
         f"bench time {format_duration(outcome.sim_elapsed_s)} "
         f"(predicted on real hardware: {format_duration(outcome.predicted_bench_s)}), "
         f"wall time {format_duration(outcome.wall_elapsed_s)}"
@@ -174,6 +178,15 @@ def _print_outcome(console: Console, outcome: RunOutcome) -> None:
                           + "; ".join(f"{n}: {e}" for n, e in outcome.safe.failed))
     console.print(Text(f"  results: {outcome.store_path} (run {outcome.run_id}); "
                        f"log: {outcome.log_path}"))
+    if outcome.store_error is not None:
+        console.print(Text("  the run store failed: the run stopped and the data after that "
+                           "point is not kept", style="bold red"))
+        if outcome.store_note is not None:
+            console.print(Text(f"  the store could not record how the run ended; it is written "
+                               f"in {outcome.store_note}", style="bold red"))
+        elif not outcome.end_recorded:
+            console.print(Text("  how the run ended could not be recorded anywhere: keep this "
+                               "terminal's output", style="bold red"))
 
 
 _RESUME_HELP = """Continue an interrupted or aborted run: measure only the points not yet stored.

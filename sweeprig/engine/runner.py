@@ -25,6 +25,10 @@ points are restored). An error in the queue follows the policy: ``retry`` (defau
 ``skip`` (record why and go on) or ``stop``. Every fault and what was done is written to the
 run store's events. When the engine gives up it raises :class:`GaveUp`; the caller puts the
 bench in its safe state (:mod:`sweeprig.engine.safe`) and marks the run aborted.
+
+A store failure (:class:`~sweeprig.errors.StoreError`: the store's file or folder gone or
+replaced, the disk full, the file read-only) is not an instrument fault and is never retried:
+it ends the point loop at once, since nothing measured after it could be kept.
 """
 
 from __future__ import annotations

@@ -8,17 +8,25 @@ are the instruments opened (identification only), the run recorded, and outputs 
 Whatever ends the run — the last point, an exception, Ctrl-C (SIGINT), SIGTERM or SIGHUP —
 the bench is put in its safe state (RF off, supply safe, chamber idle) and the run is marked
 ``complete`` or ``aborted`` with its reason.
+
+When the run store fails (its file or folder deleted, moved or replaced; disk full; read-only;
+I/O error) the run stops measuring at once, the bench is made safe, and the run is marked
+``aborted`` with the store's real cause — in the store if it can still be written, otherwise in
+a note beside it (``<store>.run-<id>.failed.txt``; failing that in the log's folder or the
+current one). A run is only ``complete`` when the store, read back, holds its points; the
+count reported is the one read back.
 """
 
 from __future__ import annotations
 
 import hashlib
 import logging
+import os
 import re
 import signal
 import time
 from collections.abc import Callable, Iterator, Mapping
-from contextlib import contextmanager
+from contextlib import contextmanager, suppress
 from dataclasses import dataclass
 from datetime import UTC, datetime
 from pathlib import Path
@@ -30,7 +38,7 @@ from sweeprig.engine.locks import BenchLock
 from sweeprig.engine.runner import PointResult, RecoveryPolicy, Runner
 from sweeprig.engine.safe import SafeOutcome, make_safe
 from sweeprig.engine.simclock import SimControlClock
-from sweeprig.errors import InputError, SweeprigError
+from sweeprig.errors import InputError, StoreError, SweeprigError
 from sweeprig.formats.bench import Bench, load_bench
 from sweeprig.formats.sequence import Sequence, load_sequence, required_roles
 from sweeprig.instruments import available_profiles
@@ -67,6 +75,14 @@ class RunOutcome:
     wall_elapsed_s: float
     predicted_bench_s: float
     safe: SafeOutcome | None
+    store_error: str | None = None
+    """The run store's failure that stopped the run (or kept its end from being recorded)."""
+    store_note: Path | None = None
+    """Where the run's end was written when the store could not take it."""
+    points_read_back: bool = True
+    """False when the store could not be read back (``points_done`` is then 0)."""
+    end_recorded: bool = True
+    """False when how the run ended could be written neither to the store nor to a note."""
 
 
 @dataclass(frozen=True)
@@ -282,7 +298,9 @@ def _execute(
     lock: BenchLock | None = None
     run_id: int | None = None
     status, reason = "aborted", "did not start"
-    done = 0
+    store_failure: StoreError | None = None
+    expected_stored: int | None = None
+    closing = _Closing(status, reason, None, 0, False, None, recorded=False)
     safe: SafeOutcome | None = None
     clock: Clock = WallClock()
     sim_t0 = 0.0
@@ -360,8 +378,6 @@ def _execute(
                 on_start(run_id, total, files)
 
             def point_done(result: PointResult) -> None:
-                nonlocal done
-                done += 1
                 if bus:
                     store.log_bus(run_id, list(bus))  # type: ignore[arg-type]
                     bus.clear()
@@ -384,6 +400,7 @@ def _execute(
                 skip = resume.done
                 points = (p for p in points if p.index not in skip)
             runner.run(points)
+            expected_stored = total - runner.skipped
             status = "complete"
             reason = (f"{runner.skipped} point(s) skipped by the recovery policy"
                       if runner.skipped else None)
@@ -391,6 +408,10 @@ def _execute(
         status, reason = "aborted", "stopped by SIGINT (Ctrl-C)"
     except RunStopped as stop:
         status, reason = "aborted", str(stop)
+    except StoreError as exc:  # data can no longer be kept: stop measuring at once
+        status, reason, store_failure = "aborted", exc.message(), exc
+        if run_id is None:
+            raise
     except SweeprigError as exc:
         status, reason = "aborted", exc.message()
         if run_id is None:
@@ -411,15 +432,21 @@ def _execute(
         safe = _finish(drivers, sim_bench, files, logger)
         if run_id is not None:
             if bus:
-                store.log_bus(run_id, list(bus))
+                store_failure = _store_write(store_failure, store.log_bus, run_id, list(bus))
             if safe is not None and not safe.ok:
                 failed = "; ".join(f"{name}: {err}" for name, err in safe.failed)
                 reason = f"{reason or 'complete'}; SAFE STATE INCOMPLETE: {failed}"
-                store.log_event(run_id, "error", "safe_state", "safe state incomplete",
-                                {"failed": dict(safe.failed)})
-            store.set_status(run_id, status, reason)  # type: ignore[arg-type]
+                store_failure = _store_write(
+                    store_failure, store.log_event, run_id, "error", "safe_state",
+                    "safe state incomplete", {"failed": dict(safe.failed)})
+            closing = _record_end(store, run_id, status, reason, store_failure,
+                                  expected_stored, log_dir)
+            status, reason = closing.status, closing.reason
             if logger is not None:
                 logger.info("run %d %s%s", run_id, status, f": {reason}" if reason else "")
+                if closing.note is not None:
+                    logger.error("the run's end could not be written to the store; it is in %s",
+                                 closing.note)
         store.close()
         if logger is not None:
             for handler in list(logger.handlers):
@@ -430,13 +457,109 @@ def _execute(
         if lock is not None:
             lock.release()
     assert run_id is not None
-    points_done = done + (len(resume.done) if resume is not None else 0)
     return RunOutcome(
-        run_id=run_id, status=status, reason=reason, points_done=points_done,
+        run_id=run_id, status=status, reason=reason, points_done=closing.points_stored,
         points_total=total, store_path=store_path, log_path=log_path,
         sim_elapsed_s=sim_elapsed, wall_elapsed_s=time.monotonic() - wall0,
         predicted_bench_s=predicted, safe=safe,
+        store_error=None if closing.failure is None else closing.failure.message(),
+        store_note=closing.note, points_read_back=closing.read_back,
+        end_recorded=closing.recorded,
     )
+
+
+@dataclass(frozen=True)
+class _Closing:
+    """How the end of a run was recorded: final status and reason, the store failure (if
+    any), the points read back from the store, and where the end went if not to the store."""
+
+    status: str
+    reason: str | None
+    failure: StoreError | None
+    points_stored: int
+    read_back: bool
+    note: Path | None
+    recorded: bool = True
+
+
+def _store_write(failure: StoreError | None, write: Callable[..., object],
+                 *args: object) -> StoreError | None:
+    """Do one store write of the run's end; return the first store failure seen."""
+    try:
+        write(*args)
+    except StoreError as exc:
+        return failure or exc
+    return failure
+
+
+def _record_end(store: SqliteRunStore, run_id: int, status: str, reason: str | None,
+                failure: StoreError | None, expected_stored: int | None,
+                log_dir: Path) -> _Closing:
+    """Read the run's points back, decide its final status, and record it.
+
+    ``complete`` only when the store is intact and holds every point measured
+    (``expected_stored``); any store failure makes the run ``aborted`` with that cause. When
+    the status cannot be written to the store it goes to a note beside it.
+    """
+    stored, read_back = 0, False
+    try:
+        store.check_file("reading the run back")
+        stored, read_back = len(store.done_point_indices(run_id)), True
+    except StoreError as exc:
+        failure = failure or exc
+    if failure is None and expected_stored is not None and stored < expected_stored:
+        failure = StoreError(
+            f"the store holds {stored} of the {expected_stored} points measured: points went "
+            "missing from it during the run",
+            where=str(store.path),
+            fix="check what else writes to this store file; `sweeprig resume RUN_ID` "
+            "measures the missing points again",
+        )
+    if failure is not None and (status == "complete" or not reason):
+        status, reason = "aborted", failure.message()
+    elif failure is not None and failure.message() not in (reason or ""):
+        reason = f"{reason}; then the run store failed: {failure.message()}"
+    if reason is not None:  # the fix can name the run
+        reason = reason.replace("RUN_ID", str(run_id))
+    note, recorded = None, True
+    try:
+        store.set_status(run_id, status, reason)  # type: ignore[arg-type]
+    except StoreError as exc:
+        failure = failure or exc
+        note = _write_failure_note(store.path, log_dir, run_id, status, reason, exc)
+        recorded = note is not None
+    return _Closing(status, reason, failure, stored, read_back, note, recorded)
+
+
+def _write_failure_note(store_path: Path, log_dir: Path, run_id: int, status: str,
+                        reason: str | None, error: StoreError) -> Path | None:
+    """Write how the run ended to ``<store>.run-<id>.failed.txt``: beside the store, else in
+    the log's folder, else in the current folder. Returns where, or None if nowhere could."""
+    text = (
+        f"sweeprig run {run_id}: {status}\n"
+        f"when: {datetime.now(UTC).isoformat(timespec='seconds')}\n"
+        f"store: {store_path}\n"
+        f"reason: {reason}\n"
+    )
+    if error.message().replace("RUN_ID", str(run_id)) not in (reason or ""):
+        text += f"this could not be written to the store: {error.message()}\n"
+    name = f"{store_path.name}.run-{run_id}.failed.txt"
+    folders: list[Path] = [store_path.parent, log_dir]
+    with suppress(OSError):  # the current folder itself may have been deleted
+        folders.append(Path.cwd())
+    for folder in dict.fromkeys(folders):
+        path = folder / name
+        try:
+            with path.open("w", encoding="utf-8") as handle:
+                handle.write(text)
+                handle.flush()
+                os.fsync(handle.fileno())
+        except OSError:
+            with suppress(OSError):
+                path.unlink()  # a partial note (full disk) helps nobody
+            continue
+        return path.absolute()
+    return None
 
 
 def _bench_resources(bench: Bench, roles: Mapping[str, str]) -> tuple[str, ...]:
@@ -508,10 +631,18 @@ def _file_logger(path: Path, run_id: int) -> logging.Logger:
     logger = logging.getLogger(f"sweeprig.run.{run_id}.{id(path)}")
     logger.setLevel(logging.INFO)
     logger.propagate = False
-    handler = logging.FileHandler(path, encoding="utf-8")
+    handler = _QuietFileHandler(path, encoding="utf-8")
     handler.setFormatter(logging.Formatter("%(asctime)s %(levelname)s %(message)s"))
     logger.addHandler(handler)
     return logger
+
+
+class _QuietFileHandler(logging.FileHandler):
+    """A log file that cannot be written (full disk, folder deleted) is not worth a
+    traceback on the terminal: the run's messages there say what matters."""
+
+    def handleError(self, record: logging.LogRecord) -> None:
+        pass
 
 
 def _read_text(path: Path) -> str:

@@ -11,6 +11,13 @@ Settings and why:
   simulated runs where thousands of points a minute are written.
 * ``foreign_keys=ON``; ``busy_timeout`` of 5 s for concurrent access.
 * One transaction per point: the point row and all its readings, or nothing.
+* The file is watched: before and after every write transaction the store's path is checked
+  (one ``stat``) against the file it opened. SQLite writes through the descriptors it holds,
+  so a store whose file or folder was deleted, moved or replaced would go on "committing"
+  into a file nobody can reach; instead the write is a :class:`StoreError` naming what
+  happened, and every later write is refused with it. SQLite's own write failures (disk
+  full, read-only, I/O error) become a :class:`StoreError` carrying that first cause, never
+  the secondary failure of the rollback.
 
 The SQL is kept portable (INTEGER, DOUBLE PRECISION, TEXT columns; times as ISO 8601 UTC
 text; booleans as 0/1; JSON as TEXT; no upserts), so a server database can be added behind the
@@ -21,6 +28,7 @@ KEY``; a server database would use an identity column. The tables are described 
 
 from __future__ import annotations
 
+import errno
 import hashlib
 import json
 import math
@@ -174,6 +182,32 @@ READING_COLUMNS: tuple[str, ...] = (
 
 _FIX_OPEN = "check the path (a folder you can write to) or give another one with --store"
 
+_FIX_RESUME = ("the points committed before this are kept; continue the run afterwards with "
+               "`sweeprig resume RUN_ID` (same --store)")
+
+WRITE_FAILURES: tuple[tuple[str, str, str], ...] = (
+    # (SQLite result code prefix, what it means for the user, what to do)
+    ("SQLITE_FULL", "the disk holding the run store is full",
+     "free space on that disk; " + _FIX_RESUME),
+    ("SQLITE_READONLY", "the run store cannot be written (the file, its folder or its disk is "
+     "read-only, or it was opened read-only)",
+     "make the store file, its folder and its disk writable; " + _FIX_RESUME),
+    ("SQLITE_IOERR", "the disk reported an I/O error while the run store was written",
+     "check the disk and its connection (a removed or failing drive, a lost network share); "
+     "copy the store somewhere safe before anything else; " + _FIX_RESUME),
+    ("SQLITE_PERM", "the operating system refused access to the run store",
+     "check the permissions of the store file and its folder; " + _FIX_RESUME),
+    ("SQLITE_CANTOPEN", "a file of the run store (its write-ahead log) cannot be opened",
+     "check that the store's folder still exists and is writable; " + _FIX_RESUME),
+    ("SQLITE_CORRUPT", "the run store file is damaged",
+     "stop writing to it; copy it somewhere safe and check it with `sqlite3 FILE "
+     "'PRAGMA integrity_check'`; start new runs in another --store file"),
+    ("SQLITE_NOTADB", "the run store file is no longer an SQLite database (overwritten?)",
+     "stop writing to it; start new runs in another --store file"),
+)
+"""What each SQLite write failure means and what to do, by result-code prefix (the extended
+codes, ``SQLITE_IOERR_WRITE``..., share their primary code's prefix)."""
+
 
 # -- value conversions ------------------------------------------------------------------------
 
@@ -313,6 +347,13 @@ class SqliteRunStore:
                 where=str(self.path),
                 fix="give the path of a sweeprig run store (or of a new file)",
             ) from None
+        self._lost: StoreError | None = None
+        self._identity: tuple[int, int] | None = None
+        self._size_floor_bytes = 0
+        with suppress(OSError):
+            st = os.stat(self.path)
+            self._identity = (st.st_dev, st.st_ino)
+            self._size_floor_bytes = st.st_size
 
     def _setup(self, *, create: bool, durable: bool) -> None:
         conn = self._conn
@@ -360,7 +401,14 @@ class SqliteRunStore:
 
     @contextmanager
     def _transaction(self, what: str) -> Iterator[sqlite3.Connection]:
+        """One write transaction, with the file checked before it and after its commit.
+
+        A failure inside is rolled back if SQLite has not already done so (on a full disk or
+        an I/O error it rolls back by itself, and a second ROLLBACK would only say "no
+        transaction is active"); the first error is the one reported.
+        """
         with self._lock:
+            self.check_file(what)
             conn = self._conn
             try:
                 conn.execute("BEGIN IMMEDIATE")
@@ -368,16 +416,113 @@ class SqliteRunStore:
                 raise self._error(exc, what) from None
             try:
                 yield conn
+                conn.execute("COMMIT")
             except BaseException as exc:
-                conn.execute("ROLLBACK")
+                self._rollback()
                 if isinstance(exc, sqlite3.Error):
                     raise self._error(exc, what) from None
                 raise
-            try:
-                conn.execute("COMMIT")
-            except sqlite3.Error as exc:
-                conn.execute("ROLLBACK")
-                raise self._error(exc, what) from None
+            self.check_file(what, committed=True)
+
+    def _rollback(self) -> None:
+        """Roll back the open transaction, if any; a failure here never hides the first one."""
+        with suppress(sqlite3.Error):
+            if self._conn.in_transaction:
+                self._conn.execute("ROLLBACK")
+
+    @property
+    def lost(self) -> StoreError | None:
+        """Why the store's file can no longer be reached (deleted, moved, replaced), or None.
+
+        Once set, every write is refused with this error: what SQLite would still write goes
+        to a file nobody can find, and nothing it says about that file can be trusted.
+        """
+        return self._lost
+
+    def check_file(self, what: str = "using the run store", *, committed: bool = False) -> None:
+        """Raise :class:`StoreError` unless ``self.path`` is still the file this store opened
+        and can still be written.
+
+        One ``stat`` (and one ``access``): the path's device and inode against the ones of the
+        file opened, and its size against the largest seen (SQLite never shrinks a store
+        that is not vacuumed, and sweeprig never vacuums: a smaller file was overwritten in
+        place). ``committed``: the check follows a commit (the message then says the data
+        just written is not kept).
+        """
+        if self._lost is not None:
+            raise self._lost
+        if self._identity is None:
+            return
+        try:
+            st = os.stat(self.path)
+        except OSError as exc:
+            if exc.errno in (errno.EACCES, errno.EPERM):
+                raise StoreError(
+                    f"{what} failed: the run store file can no longer be reached "
+                    f"({exc.strerror}); its folder's permissions changed",
+                    where=str(self.path),
+                    fix="give the folder back its permissions; " + _FIX_RESUME,
+                ) from None
+            cause = self._why_missing()
+        else:
+            if (st.st_dev, st.st_ino) == self._identity and st.st_size < self._size_floor_bytes:
+                # the same file, so no log may be copied into it: that would write into
+                # whatever was put there
+                self._lost = StoreError(
+                    f"{what} failed: the run store file was overwritten in place (it shrank "
+                    f"from {self._size_floor_bytes} to {st.st_size} bytes); nothing more is "
+                    "written to it",
+                    where=str(self.path),
+                    fix="keep the store file untouched while a run writes to it; copy the file "
+                    "aside now, before anything else opens it, then start the run again in "
+                    "another --store file",
+                )
+                raise self._lost
+            if (st.st_dev, st.st_ino) == self._identity:
+                self._size_floor_bytes = max(self._size_floor_bytes, st.st_size)
+                if not os.access(self.path, os.W_OK):
+                    raise StoreError(
+                        f"{what} failed: the run store file is read-only now (its permissions "
+                        "changed while the run was writing)",
+                        where=str(self.path),
+                        fix="make the file writable again; " + _FIX_RESUME,
+                    )
+                return
+            cause = ("the run store file was replaced: another file now has its name (the file "
+                     "the run was writing was deleted, moved or overwritten by a move)")
+        kept = ("what was just written is not in the store at this path"
+                if committed else "nothing more can be kept")
+        self._settle_orphan()
+        self._lost = StoreError(
+            f"{what} failed: {cause}; {kept}",
+            where=str(self.path),
+            fix="keep the store's file and folder in place while a run writes to them; if they "
+            "were moved on purpose, `sweeprig resume RUN_ID --store NEW_PATH` continues the run "
+            "from the points committed before the move, otherwise start the run again",
+        )
+        raise self._lost
+
+    def _settle_orphan(self) -> None:
+        """Copy the write-ahead log into the file this store opened, wherever it is now.
+
+        SQLite does not do this on close once the file has moved, and its log stays under the
+        old name: a store moved on its own would lack every point not yet checkpointed. The
+        copy goes through SQLite's own descriptors, so a file now at the path is not touched.
+        """
+        with suppress(sqlite3.Error):
+            self._conn.execute("PRAGMA wal_checkpoint(TRUNCATE)").fetchall()
+
+    def _why_missing(self) -> str:
+        """Which part of the store's path has gone: the file, or a folder above it."""
+        folder = self.path.parent
+        if folder.is_dir():
+            return "the run store file disappeared (deleted or moved)"
+        top = folder  # the highest folder of the path that is missing
+        while top.parent != top and not top.parent.exists():
+            top = top.parent
+        if top.exists():
+            return f"the run store's folder {top} was replaced by a file"
+        return f"the run store's folder {top} disappeared (deleted or moved)"
 
     def _read(self, sql: str, params: Sequence[object] = ()) -> list[tuple[Any, ...]]:
         with self._lock:
@@ -387,7 +532,18 @@ class SqliteRunStore:
                 raise self._error(exc, "reading") from None
 
     def _error(self, exc: sqlite3.Error, what: str) -> StoreError:
+        """The user's view of an SQLite error: what it means (by result code) and what to do.
+        When the file has gone as well, that is the cause named."""
         text = str(exc)
+        code = str(getattr(exc, "sqlite_errorname", "") or "")
+        with suppress(StoreError):
+            self.check_file(what)
+        if self._lost is not None:
+            return self._lost
+        for prefix, meaning, fix in WRITE_FAILURES:
+            if code.startswith(prefix):
+                return StoreError(f"{what} failed: {meaning} (SQLite: {text}, {code})",
+                                  where=str(self.path), fix=fix)
         if "locked" in text or "busy" in text:
             fix = "another process holds the store; wait for it or use another --store file"
         elif isinstance(exc, sqlite3.IntegrityError):
