@@ -112,6 +112,6 @@ def test_never_two_holders_while_lock_files_come_and_go(tmp_path: Path) -> None:
                               stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
              for _ in range(4)]
     results = [p.communicate(timeout=120) for p in procs]
-    for proc, (out, err) in zip(procs, results, strict=True):
+    for proc, (_out, err) in zip(procs, results, strict=True):
         assert proc.returncode == 0, err
     assert sum(int(out) for out, _ in results) > 0
