@@ -12,6 +12,7 @@ import sqlite3
 import subprocess
 import sys
 import time
+from datetime import UTC, datetime
 from pathlib import Path
 
 import pytest
@@ -26,6 +27,7 @@ from sweeprig.engine.session import (
     served_bench_text,
     shipped_sequences_dir,
 )
+from sweeprig.errors import InputError
 from sweeprig.sim.bench import start_sim_bench
 from sweeprig.store.runlock import RunBusy, hold_run_lock, run_lock_held
 from sweeprig.store.sqlite import SqliteRunStore
@@ -221,6 +223,18 @@ def test_a_resume_of_a_run_another_process_holds_is_refused(tmp_path) -> None:
         holder.release()
     outcome = resume_run(run_id, store_path=store_path)
     assert outcome.status == "complete", outcome.reason
+    assert not run_lock_held(store_path, run_id)
+
+
+def test_a_run_alive_on_another_host_by_its_heartbeat_is_not_resumed(tmp_path) -> None:
+    store_path = tmp_path / "s.sqlite"
+    run_id = _aborted_sim_run(store_path)
+    with sqlite3.connect(store_path) as db:  # as a run on another machine sharing the store
+        db.execute("UPDATE runs SET status = 'running', host = 'bench-pc-2', pid = 4242, "
+                   "heartbeat_utc = ? WHERE id = ?",
+                   (datetime.now(UTC).isoformat(), run_id))
+    with pytest.raises(InputError, match=r"may still be running .*4242 on bench-pc-2"):
+        resume_run(run_id, store_path=store_path)
     assert not run_lock_held(store_path, run_id)
 
 
