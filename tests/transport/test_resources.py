@@ -113,8 +113,8 @@ def test_a_bench_file_with_a_bad_resource_name_is_refused_by_check(tmp_path: Pat
     ("TCPIP::192.0.2.10::INSTR", "tcpip0::192.0.2.10::INST0::instr"),
     ("TCPIP::192.0.2.10", "TCPIP::192.0.2.10::inst0::INSTR"),
     ("GPIB::18::INSTR", "gpib0::018"),
-    ("USB::0x1AB1::0x0588::DS1ZA1::INSTR", "usb0::6833::1416::ds1za1::0::instr"),
-    ("USB::0x1AB1::0x0588::DS1ZA1::INSTR", "USB::0x1AB1::0x0588::DS1ZA1::RAW"),
+    ("USB::0x1234::0x5678::KX7A01::INSTR", "usb0::4660::22136::kx7a01::0::instr"),
+    ("USB::0x1234::0x5678::KX7A01::INSTR", "USB::0x1234::0x5678::KX7A01::RAW"),
     ("ASRL3::INSTR", "asrlcom3::instr"),
     ("VXI0::1::INSTR", "vxi0::1::instr"),
 ])
@@ -128,7 +128,7 @@ def test_spellings_of_one_instrument_share_a_key(a: str, b: str) -> None:
     ("TCPIP::192.0.2.10::inst0::INSTR", "TCPIP::192.0.2.10::inst1::INSTR"),
     ("GPIB0::18::INSTR", "GPIB1::18::INSTR"),
     ("GPIB0::18::INSTR", "GPIB0::18::1::INSTR"),
-    ("USB::0x1AB1::0x0588::DS1ZA1::INSTR", "USB::0x1AB1::0x0588::DS1ZA2::INSTR"),
+    ("USB::0x1234::0x5678::KX7A01::INSTR", "USB::0x1234::0x5678::KX7A02::INSTR"),
     ("ASRL3::INSTR", "ASRL4::INSTR"),
 ])
 def test_different_instruments_do_not_share_a_key(a: str, b: str) -> None:
