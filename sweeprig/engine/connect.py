@@ -14,6 +14,7 @@ from collections.abc import Callable, Iterator, Mapping
 from dataclasses import dataclass, field
 
 from sweeprig.clock import Clock
+from sweeprig.engine.locks import BenchLock
 from sweeprig.errors import InputError, InstrumentError, TransportError
 from sweeprig.formats.bench import Bench
 from sweeprig.instruments import (
@@ -83,6 +84,7 @@ def open_bench(
     resources: Mapping[str, str] | None = None,
     clock: Clock | None = None,
     on_transaction: Callable[[str, Transaction], None] | None = None,
+    lock: BenchLock | None = None,
 ) -> BenchDrivers:
     """Connect and identify the instruments the run needs.
 
@@ -92,7 +94,10 @@ def open_bench(
     called after every SCPI exchange (the bus log). Raises :class:`InputError` for a
     role the bench lacks, :class:`InstrumentError`/:class:`TransportError` for an instrument
     that does not answer or is not what its profile expects. On failure everything opened
-    so far is closed again.
+    so far is closed again. ``lock``: the run's instrument locks; each instrument's identity
+    (maker, model, serial) is added to it right after ``*IDN?``, so an instrument another run
+    holds under another resource name is refused (:class:`BenchBusy`) before anything is
+    sent to it but identification.
     """
     resources = dict(resources or {})
     drivers = BenchDrivers()
@@ -126,7 +131,7 @@ def open_bench(
             drivers.transports[role] = transport
             driver = make_driver(profile, role, transport, clock=clock)
             setattr(drivers, role, driver)
-            stale = _identify(driver)
+            stale = _identify(driver, lock)
             if stale:
                 drivers.startup_errors[role] = stale
         _apply_bench_limits(bench, drivers)
@@ -140,12 +145,15 @@ IDENTIFY_ATTEMPTS = 3
 """Tries at identifying an instrument whose link fails (timeout, garbled reply)."""
 
 
-def _identify(driver: Driver) -> list[str]:
-    """``*IDN?`` checked against the profile, then the error queue drained; a failing link
-    is reconnected and tried again. Returns the texts that were in the queue."""
+def _identify(driver: Driver, lock: BenchLock | None = None) -> list[str]:
+    """``*IDN?`` checked against the profile, the instrument's identity locked (before even its
+    error queue is read: it may be another run's), then the error queue drained; a failing
+    link is reconnected and tried again. Returns the texts that were in the queue."""
     for attempt in range(1, IDENTIFY_ATTEMPTS + 1):
         try:
             driver.identify()
+            if lock is not None:
+                lock.hold_identity(driver.role, driver.idn)
             return [str(e) for e in driver.errors()]
         except InstrumentError:  # a garbled *IDN? looks like a wrong instrument: ask again
             if attempt == IDENTIFY_ATTEMPTS:

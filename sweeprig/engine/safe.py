@@ -16,7 +16,8 @@ from dataclasses import dataclass
 from sweeprig.engine.connect import BenchDrivers
 from sweeprig.formats.bench import Bench
 
-_HELD = (signal.SIGINT, signal.SIGTERM, signal.SIGHUP)
+_HELD = tuple(s for s in (signal.SIGINT, signal.SIGTERM, getattr(signal, "SIGHUP", None))
+              if s is not None)  # Windows has no SIGHUP
 
 
 @dataclass(frozen=True)
@@ -114,18 +115,20 @@ def make_bench_safe(bench: Bench, *, resources: dict[str, str] | None = None,
     run holds the bench.
     """
     from sweeprig.engine.connect import open_bench
-    from sweeprig.engine.locks import BenchLock
+    from sweeprig.engine.locks import BenchBusy, BenchLock
 
     roles = [r for r in ("rf", "rf2", "lo", "dc", "chamber") if bench.role(r) is not None]
     resources = dict(resources or {})
     lock_resources = tuple(resources.get(r, bench.role(r).resource) for r in roles)  # type: ignore[union-attr]
     failed: list[tuple[str, str]] = []
     done: list[str] = []
-    with BenchLock(lock_resources, "sweeprig safe"):
+    with BenchLock(lock_resources, "sweeprig safe") as lock:
         for role in roles:
             try:
                 drivers = open_bench(bench, {role: "safe state"}, resources={
-                    k: v for k, v in resources.items() if k == role})
+                    k: v for k, v in resources.items() if k == role}, lock=lock)
+            except BenchBusy:
+                raise  # a live run holds this instrument under another name
             except Exception as exc:
                 failed.append((f"{role}: open", str(exc).splitlines()[0]))
                 log(f"{role}: cannot open: {exc}")

@@ -42,10 +42,12 @@ from sweeprig.errors import InputError, StoreError, SweeprigError
 from sweeprig.formats.bench import Bench, load_bench
 from sweeprig.formats.sequence import Sequence, load_sequence, required_roles
 from sweeprig.instruments import available_profiles
+from sweeprig.oslock import FileLock
 from sweeprig.plan.duration import estimate_duration
 from sweeprig.plan.expand import count_points, iter_points
 from sweeprig.plan.preflight import PreflightReport, check_roles, preflight
 from sweeprig.store.base import DEFAULT_STORE_PATH, BusRecord, InstrumentRecord
+from sweeprig.store.runlock import hold_run_lock, run_lock_held
 from sweeprig.store.sqlite import SqliteRunStore
 
 SIM_BENCH_FILE = "benches/sim.toml"
@@ -215,40 +217,57 @@ def resume_run(
 ) -> RunOutcome:
     """Continue an interrupted or aborted run: measure only the points not yet stored.
 
-    Refuses (:class:`InputError`) a run that is complete or still alive, and — unless
+    Takes the run's lock first, so a run that another process runs or resumes is refused
+    (:class:`~sweeprig.store.runlock.RunBusy`). Refuses (:class:`InputError`) a run that is
+    complete, and — unless
     ``accept_changes`` — a run whose sequence or bench file changed since it started or
     whose instruments answer ``*IDN?`` differently, naming what differs. The instrument
     state is set up again from the plan and the store, never from memory.
     """
     store_path = Path(store_path)
     store = SqliteRunStore(store_path, create=False)
+    run_lock: FileLock | None = None
     try:
+        seen = store.run(run_id)  # a run that does not exist is refused before any lock file
+        if seen.status == "running" and not run_lock_held(store_path, run_id):
+            # Alive by its heartbeat on another host, whose run lock may not be visible here.
+            raise InputError(
+                f"run {run_id} may still be running (process {seen.pid} on {seen.host})",
+                where=f"{store_path}: run {run_id}",
+                fix="wait for it to end, or stop it first (Ctrl-C or SIGTERM in its terminal)")
+        run_lock = hold_run_lock(store_path, run_id, f"a resume of run {run_id}")
         info = store.run(run_id)
         done = frozenset(store.done_point_indices(run_id))
+    except BaseException:
+        if run_lock is not None:
+            run_lock.release()
+        raise
     finally:
         store.close()
-    if info.status == "complete":
-        raise InputError(f"run {run_id} is already complete ({info.points_done} points)",
-                         where=f"{store_path}: run {run_id}",
-                         fix="nothing to resume; start a new run with `sweeprig run`")
-    if info.status == "running":
-        raise InputError(
-            f"run {run_id} is still running (process {info.pid} on {info.host})",
-            where=f"{store_path}: run {run_id}",
-            fix="wait for it to end, or stop it first (Ctrl-C or SIGTERM in its terminal)")
-    differences = _file_differences(info)
-    if differences and not accept_changes:
-        raise InputError(
-            f"run {run_id}'s files changed since it started: " + "; ".join(differences),
-            where=f"{store_path}: run {run_id}",
-            fix="put the files back as they were, or resume with --accept-changes if the "
-            "change cannot affect the measurements")
-    files = load_run_files(info.sequence_path, info.bench_path, sim=info.simulated)
+    try:
+        if info.stored_status == "complete":
+            raise InputError(f"run {run_id} is already complete ({info.points_done} points)",
+                             where=f"{store_path}: run {run_id}",
+                             fix="nothing to resume; start a new run with `sweeprig run`")
+        differences = _file_differences(info)
+        if differences and not accept_changes:
+            raise InputError(
+                f"run {run_id}'s files changed since it started: " + "; ".join(differences),
+                where=f"{store_path}: run {run_id}",
+                fix="put the files back as they were, or resume with --accept-changes if the "
+                "change cannot affect the measurements")
+        files = load_run_files(info.sequence_path, info.bench_path, sim=info.simulated)
+    except BaseException:
+        run_lock.release()
+        raise
     plan = ResumePlan(run_id, done, {i.role: i.idn for i in info.instruments},
                       accept_changes)
-    return _execute(files, store_path=store_path, sim_description=sim_description,
-                    realtime=False, bus_log=bus_log, on_start=on_start, on_point=on_point,
-                    log_dir=log_dir, resume=plan)
+    try:
+        return _execute(files, store_path=store_path, sim_description=sim_description,
+                        realtime=False, bus_log=bus_log, on_start=on_start, on_point=on_point,
+                        log_dir=log_dir, resume=plan, run_lock=run_lock)
+    finally:
+        run_lock.release()  # idempotent; _execute releases it once the run's status is final
 
 
 def _file_differences(info: object) -> list[str]:
@@ -287,8 +306,10 @@ def _execute(
     on_point: Callable[[PointResult], None] | None,
     log_dir: str | Path | None,
     resume: ResumePlan | None,
+    run_lock: FileLock | None = None,
 ) -> RunOutcome:
-    """The run itself, new or resumed (see the module docstring)."""
+    """The run itself, new or resumed (see the module docstring). ``run_lock``: the run's
+    lock, already held by a resume (a new run takes its own once recorded); released here."""
     total = count_points(files.sequence)
     predicted = estimate_duration(files.sequence, files.bench).total_s
     store = SqliteRunStore(store_path, durable=not files.simulated)
@@ -327,7 +348,7 @@ def _execute(
                 datetime.fromtimestamp(t.time_s, UTC), role, t.sent, t.received,
                 t.duration_s))) if bus_log else None
             drivers = open_bench(files.bench, roles, resources=resources, clock=clock,
-                                 on_transaction=hook)
+                                 on_transaction=hook, lock=lock)
             if sim_bench is None and drivers.simctl is not None:
                 clock = SimControlClock(drivers.simctl)  # a served simulated bench
                 sim_t0 = clock.now()
@@ -335,7 +356,7 @@ def _execute(
                 _check_identities(drivers, resume)
             seq = files.sequence
             if resume is None:
-                run_id = store.create_run(
+                new_id = store.create_run(
                     sequence_path=str(files.sequence_path),
                     sequence_text=files.sequence_text,
                     bench_path=str(files.bench_path),
@@ -349,6 +370,8 @@ def _execute(
                     points_total=total,
                     status="running",
                 )
+                run_lock = hold_run_lock(store_path, new_id, f"a run of {files.sequence_path}")
+                run_id = new_id
             else:
                 run_id = resume.run_id
                 store.set_status(run_id, "running")
@@ -362,10 +385,6 @@ def _execute(
                            f"measuring the other {total - len(resume.done)}")
                 logger.info("run %d %s", run_id, message)
                 store.log_event(run_id, "info", "resume", message)
-            if lock is not None and lock.released_stale:
-                note = "released stale locks: " + "; ".join(lock.released_stale)
-                logger.warning(note)
-                store.log_event(run_id, "warning", "lock", note)
             for role, texts in drivers.startup_errors.items():
                 store.log_event(run_id, "info", "error_queue",
                                 f"role {role!r} queue held at start: " + "; ".join(texts))
@@ -456,6 +475,8 @@ def _execute(
             sim_bench.close()
         if lock is not None:
             lock.release()
+        if run_lock is not None:
+            run_lock.release()  # after the final status: the run is over
     assert run_id is not None
     return RunOutcome(
         run_id=run_id, status=status, reason=reason, points_done=closing.points_stored,
@@ -606,6 +627,10 @@ def _finish(drivers: BenchDrivers | None, sim_bench: object, files: LoadedFiles,
     return outcome
 
 
+_STOP_SIGNALS = tuple(s for s in (signal.SIGTERM, getattr(signal, "SIGHUP", None))
+                      if s is not None)  # Windows has no SIGHUP
+
+
 @contextmanager
 def _stop_on_signals() -> Iterator[None]:
     """Turn SIGTERM and SIGHUP into :class:`RunStopped` (SIGINT stays KeyboardInterrupt)."""
@@ -615,7 +640,7 @@ def _stop_on_signals() -> Iterator[None]:
 
     previous: dict[int, object] = {}
     try:
-        for sig in (signal.SIGTERM, signal.SIGHUP):
+        for sig in _STOP_SIGNALS:
             try:
                 previous[sig] = signal.signal(sig, handler)
             except ValueError:  # not the main thread: leave signals alone

@@ -37,6 +37,7 @@ from sweeprig.formats.pathloss import (
     read_touchstone_loss,
 )
 from sweeprig.formats.toml_locate import KeyPath
+from sweeprig.transport.resources import ResourceNameError, parse_resource
 
 #: Every role a bench may fill.
 ROLES: tuple[str, ...] = (
@@ -280,6 +281,14 @@ def check_bench(bench: Bench, *, known_profiles: Collection[str] | None = None) 
                              where=bench.where((*here, "resource")),
                              fix='write e.g. "TCPIP0::192.0.2.10::5025::SOCKET", '
                              '"GPIB0::18::INSTR", or "sim" on the simulated bench')
+        if res != SIM_RESOURCE:
+            try:
+                parse_resource(role.resource)
+            except ResourceNameError as exc:
+                raise InputError(f"{role.resource!r} is not a VISA resource string: {exc}",
+                                 where=bench.where((*here, "resource")),
+                                 fix='write e.g. "TCPIP0::192.0.2.10::5025::SOCKET" or '
+                                 '"GPIB0::18::INSTR"') from None
         if known_profiles is not None and role.profile not in known_profiles:
             import difflib
 

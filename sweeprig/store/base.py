@@ -31,7 +31,8 @@ Severity = Literal["debug", "info", "warning", "error"]
 SEVERITIES: tuple[str, ...] = ("debug", "info", "warning", "error")
 
 HEARTBEAT_STALE_S = 120.0
-"""A ``running`` run whose heartbeat is older than this is shown as ``interrupted``."""
+"""A ``running`` run on another host (whose run lock this host may not see) is shown as
+``interrupted`` once its heartbeat is older than this."""
 
 
 def utc_now() -> datetime:

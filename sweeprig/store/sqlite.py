@@ -61,6 +61,7 @@ from sweeprig.store.base import (
     Severity,
     utc_now,
 )
+from sweeprig.store.runlock import run_lock_held
 
 SCHEMA_VERSION = 1
 
@@ -267,21 +268,6 @@ def sha256_text(text: str) -> str:
     return hashlib.sha256(text.encode("utf-8")).hexdigest()
 
 
-def pid_alive(pid: int) -> bool:
-    """Whether a process with this id exists on this host."""
-    if pid <= 0:
-        return False
-    if pid == os.getpid():
-        return True
-    try:
-        os.kill(pid, 0)
-    except ProcessLookupError:
-        return False
-    except (PermissionError, OSError):
-        return True
-    return True
-
-
 # -- the store --------------------------------------------------------------------------------
 
 
@@ -290,8 +276,10 @@ class SqliteRunStore:
 
     ``path``: the database file. ``create``: create it (and its folder) if missing; otherwise
     a missing file is a :class:`StoreError`. ``durable``: ``synchronous=FULL`` (True) or
-    ``NORMAL``. ``stale_after_s``: heartbeat age after which a ``running`` run is shown as
-    ``interrupted``. Safe to share between threads (one lock).
+    ``NORMAL``. A ``running`` run is shown as ``interrupted`` when its run lock is free
+    (:mod:`sweeprig.store.runlock`); ``stale_after_s``: for a run on another host, whose lock
+    this host may not see, the heartbeat age after which it is. Safe to share between threads
+    (one lock).
     """
 
     def __init__(
@@ -775,13 +763,18 @@ class SqliteRunStore:
     """
 
     def _effective_status(
-        self, status: str, heartbeat: datetime | None, pid: int | None, host: str | None
+        self, run_id: int, status: str, heartbeat: datetime | None, host: str | None
     ) -> str:
+        """A ``running`` run is alive while its run lock is held (the kernel drops it when the
+        process ends). From another host that lock may not be visible: there the heartbeat
+        decides."""
         if status != "running":
             return status
-        if heartbeat is None or (utc_now() - heartbeat).total_seconds() > self.stale_after_s:
+        if run_lock_held(self.path, run_id):
+            return status
+        if host == self._host:
             return "interrupted"
-        if host == self._host and pid is not None and not pid_alive(pid):
+        if heartbeat is None or (utc_now() - heartbeat).total_seconds() > self.stale_after_s:
             return "interrupted"
         return status
 
@@ -789,7 +782,7 @@ class SqliteRunStore:
         heartbeat = _dt(row[5])
         return {
             "id": int(row[0]),
-            "status": self._effective_status(row[1], heartbeat, row[15], row[16]),
+            "status": self._effective_status(int(row[0]), row[1], heartbeat, row[16]),
             "stored_status": row[1],
             "reason": row[2],
             "created": _dt(row[3]),

@@ -3,8 +3,6 @@
 from __future__ import annotations
 
 import sqlite3
-import subprocess
-import sys
 from datetime import UTC, datetime, timedelta
 
 import pandas as pd
@@ -20,6 +18,7 @@ from sweeprig.store import (
     RunStore,
     SqliteRunStore,
 )
+from sweeprig.store.runlock import hold_run_lock
 
 SEQUENCE = 'title = "demo"\n[[study]]\nkind = "gain"\n'
 
@@ -149,30 +148,31 @@ def test_reader_sees_committed_points_while_writer_open(store):
         reader.close()
 
 
-def _dead_pid() -> int:
-    proc = subprocess.Popen([sys.executable, "-c", "pass"])
-    proc.wait()
-    return proc.pid
-
-
-def test_interrupted_detection(store):
+def test_a_running_run_is_alive_exactly_while_its_run_lock_is_held(store):
     run_id = _run(store)
     store.set_status(run_id, "running")
-    assert store.run(run_id).status == "running"
-    conn = sqlite3.connect(store.path)
-    with conn:
-        conn.execute("UPDATE runs SET pid = ? WHERE id = ?", (_dead_pid(), run_id))
-    info = store.run(run_id)
+    lock = hold_run_lock(store.path, run_id, "this test")
+    try:
+        assert store.run(run_id).status == "running"
+        assert store.runs()[0].status == "running"
+    finally:
+        lock.release()
+    info = store.run(run_id)  # no process holds it: interrupted, whatever its pid says
     assert (info.status, info.stored_status) == ("interrupted", "running")
 
+
+def test_a_run_on_another_host_falls_back_to_its_heartbeat(store):
     other = _run(store)
     store.set_status(other, "running")
+    conn = sqlite3.connect(store.path)
     old = (datetime.now(UTC) - timedelta(hours=1)).isoformat()
     with conn:
         conn.execute("UPDATE runs SET heartbeat_utc = ?, host = 'elsewhere' WHERE id = ?",
                      (old, other))
     assert store.run(other).status == "interrupted"
-    store.heartbeat(other)
+    with conn:
+        conn.execute("UPDATE runs SET heartbeat_utc = ? WHERE id = ?",
+                     (datetime.now(UTC).isoformat(), other))
     assert store.run(other).status == "running"
     conn.close()
 

@@ -1,0 +1,16 @@
+"""Fixtures for every test."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import pytest
+
+
+@pytest.fixture(autouse=True)
+def private_lock_dir(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> Path:
+    """Instrument locks of each test in a folder of its own: simulated instruments all answer
+    *IDN? alike, so two test sessions on one machine would otherwise hold each other's."""
+    folder = tmp_path / "locks"
+    monkeypatch.setenv("SWEEPRIG_LOCK_DIR", str(folder))
+    return folder
