@@ -6,8 +6,9 @@ pre-flight check predicts every port power of every point against the limits, an
 are the instruments opened (identification only), the run recorded, and outputs enabled.
 
 Whatever ends the run — the last point, an exception, Ctrl-C (SIGINT), SIGTERM or SIGHUP —
-the bench is put in its safe state (RF off, supply safe, chamber idle) and the run is marked
-``complete`` or ``aborted`` with its reason.
+the bench is put in its safe state (RF off, supply safe, chamber idle), the safe state is
+read back, and the run is marked ``complete`` or ``aborted`` with its reason — or ``unsafe``
+when any instrument's safe state could not be verified (the reason names each one).
 """
 
 from __future__ import annotations
@@ -30,7 +31,7 @@ from sweeprig.engine.locks import BenchLock
 from sweeprig.engine.runner import PointResult, RecoveryPolicy, Runner
 from sweeprig.engine.safe import SafeOutcome, make_safe
 from sweeprig.engine.simclock import SimControlClock
-from sweeprig.errors import InputError, SweeprigError
+from sweeprig.errors import BenchUnsafeError, InputError, SweeprigError
 from sweeprig.formats.bench import Bench, load_bench
 from sweeprig.formats.sequence import Sequence, load_sequence, required_roles
 from sweeprig.instruments import available_profiles
@@ -158,6 +159,8 @@ class ResumePlan:
     done: frozenset[int]
     identities: Mapping[str, str]
     accept_changes: bool = False
+    previous: str = ""
+    """How the run had ended (status and reason), kept in the resume event."""
 
 
 def run_sequence(
@@ -229,7 +232,8 @@ def resume_run(
             "change cannot affect the measurements")
     files = load_run_files(info.sequence_path, info.bench_path, sim=info.simulated)
     plan = ResumePlan(run_id, done, {i.role: i.idn for i in info.instruments},
-                      accept_changes)
+                      accept_changes, f"{info.status}: {info.reason}" if info.reason
+                      else info.status)
     return _execute(files, store_path=store_path, sim_description=sim_description,
                     realtime=False, bus_log=bus_log, on_start=on_start, on_point=on_point,
                     log_dir=log_dir, resume=plan)
@@ -341,7 +345,8 @@ def _execute(
                             run_id, files.sequence_path, files.bench_path, total, predicted)
             else:
                 message = (f"resumed: {len(resume.done)} of {total} points were stored; "
-                           f"measuring the other {total - len(resume.done)}")
+                           f"measuring the other {total - len(resume.done)}"
+                           + (f" (it had ended {resume.previous})" if resume.previous else ""))
                 logger.info("run %d %s", run_id, message)
                 store.log_event(run_id, "info", "resume", message)
             if lock is not None and lock.released_stale:
@@ -413,10 +418,15 @@ def _execute(
             if bus:
                 store.log_bus(run_id, list(bus))
             if safe is not None and not safe.ok:
-                failed = "; ".join(f"{name}: {err}" for name, err in safe.failed)
-                reason = f"{reason or 'complete'}; SAFE STATE INCOMPLETE: {failed}"
-                store.log_event(run_id, "error", "safe_state", "safe state incomplete",
-                                {"failed": dict(safe.failed)})
+                reason = (f"{status}{f': {reason}' if reason else ''}; BENCH NOT PROVEN SAFE: "
+                          + "; ".join(message for _name, message in safe.failed))
+                status = "unsafe"
+                store.log_event(run_id, "error", "safe_state",
+                                "bench not proven safe: " + ", ".join(
+                                    name for name, _m in safe.failed), safe.details())
+            elif safe is not None:
+                store.log_event(run_id, "info", "safe_state", "safe state read back: "
+                                + (", ".join(safe.done) or "nothing to do"), safe.details())
             store.set_status(run_id, status, reason)  # type: ignore[arg-type]
             if logger is not None:
                 logger.info("run %d %s%s", run_id, status, f": {reason}" if reason else "")
@@ -429,6 +439,13 @@ def _execute(
             sim_bench.close()
         if lock is not None:
             lock.release()
+        if run_id is None and safe is not None and not safe.ok:
+            raise BenchUnsafeError(  # refused before the run was recorded, bench unproven
+                "the bench could not be proven safe: "
+                + "; ".join(message for _name, message in safe.failed),
+                where=str(files.bench_path),
+                fix="make it safe by hand now (see each instrument above), then run "
+                "`sweeprig safe --bench BENCH` to verify")
     assert run_id is not None
     points_done = done + (len(resume.done) if resume is not None else 0)
     return RunOutcome(
@@ -479,7 +496,9 @@ def _finish(drivers: BenchDrivers | None, sim_bench: object, files: LoadedFiles,
                         log=(logger.warning if logger is not None else lambda _m: None))
     drivers.close()
     if logger is not None:
-        logger.info("safe state: %s", ", ".join(outcome.done) or "nothing to do")
+        logger.info("safe state read back: %s", ", ".join(outcome.done) or "nothing to do")
+        for _name, message in outcome.failed:
+            logger.error("BENCH NOT PROVEN SAFE: %s", message)
     return outcome
 
 
