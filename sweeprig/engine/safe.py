@@ -3,8 +3,9 @@
 RF off on every source first (the DUT and the analyzer input are protected before anything
 else), then the supply to its safe setting, then the chamber to its idle set point. Each step
 is one instrument: the safe-state command is sent (always, whatever the driver's cache says),
-the instrument is asked to finish (``*OPC?``), the setting is **read back** and compared with
-the safe value, and the error queue is read. A step whose read-back disagrees, whose
+the instrument is asked to finish (``*OPC?``), its error queue is read, and last the setting
+is **read back** and compared with the safe value (last, so that no message of ours can undo
+what the read-back showed). A step whose read-back disagrees, whose
 instrument does not answer, or whose error queue holds errors is tried again (reconnecting
 first when the link failed), up to :data:`SAFE_ATTEMPTS` times. Every instrument gets its
 first attempt before any is retried, so one hung instrument does not delay the others.
@@ -69,7 +70,8 @@ class SafeCheck:
 
     @property
     def name(self) -> str:
-        return f"{self.role} {self.step}"
+        """``rf RF off``, ``supply output off``, ``chamber to 25 degC``."""
+        return self.step if self.role in ("dc", "chamber") else f"{self.role} {self.step}"
 
     def message(self) -> str:
         """One paragraph for the terminal and the log (empty for a verified step)."""
@@ -229,11 +231,12 @@ def _attempt(step: _Step) -> _Try:
         step.send()
         if not driver.ask("operation_complete"):
             return _Try(False, reported(NO_USABLE_ANSWER), "*OPC? did not answer 1", False)
+        errors = driver.errors()
+        # The read-back comes last: nothing sent after it can undo what it showed.
         for expect in step.expect:
             value = driver.read_back(expect.op)
             shown.append(expect.show(value))
             agree = agree and expect.agrees(value)
-        errors = driver.errors()
     except TransportError as exc:
         return _Try(False, reported(NO_ANSWER), _first_line(exc), True)
     except Exception as exc:  # a garbled reply, a driver fault: never stop the other steps
