@@ -17,6 +17,7 @@ import hashlib
 import logging
 import re
 import signal
+import sys
 import time
 from collections.abc import Callable, Iterator, Mapping
 from contextlib import contextmanager
@@ -440,12 +441,16 @@ def _execute(
         if lock is not None:
             lock.release()
         if run_id is None and safe is not None and not safe.ok:
+            refused = sys.exc_info()[1]  # why it did not start, told first
+            why = (refused.message() if isinstance(refused, SweeprigError)
+                   else f"{type(refused).__name__}: {refused}" if refused else "")
             raise BenchUnsafeError(  # refused before the run was recorded, bench unproven
-                "the bench could not be proven safe: "
+                (f"the run did not start ({why}); and " if why else "")
+                + "BENCH NOT PROVEN SAFE: "
                 + "; ".join(message for _name, message in safe.failed),
                 where=str(files.bench_path),
-                fix="make it safe by hand now (see each instrument above), then run "
-                "`sweeprig safe --bench BENCH` to verify")
+                fix="make each instrument named here safe by hand now, then run "
+                "`sweeprig safe --bench BENCH` to verify; follow your lab's rules")
     assert run_id is not None
     points_done = done + (len(resume.done) if resume is not None else 0)
     return RunOutcome(

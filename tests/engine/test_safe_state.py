@@ -112,7 +112,7 @@ def test_normal_end_is_verified_and_every_instrument_reports_off(tmp_path):
     assert outcome.status == "complete", outcome.reason
     assert outcome.safe is not None and outcome.safe.ok
     assert {c.role for c in outcome.safe.checks} == {*SOURCES, "dc", "chamber"}
-    assert all(c.verified and c.attempts == 1 for c in outcome.safe.checks)
+    assert all(c.verified for c in outcome.safe.checks)
     assert [look[r] for r in (*SOURCES, "dc")] == ["0"] * 4  # what the instruments say
     assert look["chamber"] == "25;1"  # idle set point, conditioning on
     status, _reason, events = stored(tmp_path / "s.sqlite")
@@ -130,7 +130,7 @@ def test_a_lost_rf_off_is_sent_again_and_then_verified(tmp_path):
         assert len(sim.faults.log.events("rf")) == 1  # the first RF off was lost
     assert outcome.status == "complete", outcome.reason
     rf = next(c for c in outcome.safe.checks if c.role == "rf")
-    assert rf.verified and rf.attempts == 2
+    assert rf.verified and rf.attempts >= 2
     assert look["rf"] == "0"
 
 
@@ -187,6 +187,32 @@ def test_unsafe_run_can_be_resumed_and_keeps_its_history(tmp_path):
     assert ("safe_state", "error") in kinds and ("safe_state", "info") in kinds
     resume = next(e for e in events if e.kind == "resume")
     assert "ended unsafe" in resume.message
+
+
+def test_a_refused_resume_with_an_unproven_bench_says_both(tmp_path):
+    import sqlite3
+
+    from sweeprig.engine.session import resume_run
+    from sweeprig.errors import BenchUnsafeError
+
+    with served() as sim:
+        bench = bench_file(sim, tmp_path)
+        store_path = tmp_path / "s.sqlite"
+        first = run_then_fault(sim, bench, store_path,
+                               FaultSpec(role="lo", kind="swallow", match=OFF, max_count=3))
+        assert first.status == "unsafe"
+        with sqlite3.connect(store_path) as db:  # as if the analyzer had been swapped
+            db.execute("UPDATE instruments SET idn = 'Tarnwick Labs,TW-SA13,SA13-9999,0.9' "
+                       "WHERE role = 'sa'")
+        sim.faults.add(FaultSpec(role="lo", kind="swallow", match=OFF))
+        with pytest.raises(BenchUnsafeError) as err:
+            resume_run(first.run_id, store_path=store_path)
+        look = outside_look(sim)
+    text = str(err.value)
+    assert err.value.exit_code == BENCH_UNSAFE_EXIT_CODE
+    assert "SA13-9999" in text  # why the resume was refused
+    assert "BENCH NOT PROVEN SAFE" in text and "role 'lo'" in text
+    assert look["lo"] == "1"
 
 
 # -- (c) a frozen instrument -----------------------------------------------------------------
