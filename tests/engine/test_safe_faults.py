@@ -201,6 +201,18 @@ def run_in_process(trial: Trial, figures: Figures) -> None:
     judge(trial, made, outcome, figures)
 
 
+def _open(resource: str) -> VisaTransport:
+    """A transport with the short timeout; opening (before any fault) is retried, since a
+    loaded machine may take longer than the short timeout to connect."""
+    for attempt in range(3):
+        try:
+            return VisaTransport(resource, timeout_s=SERVED_TIMEOUT_S)
+        except TransportError:
+            if attempt == 2:
+                raise
+    raise AssertionError("unreachable")
+
+
 def run_served(trial: Trial, figures: Figures) -> None:
     clock = VirtualClock()
     made = instruments(clock)
@@ -208,7 +220,7 @@ def run_served(trial: Trial, figures: Figures) -> None:
         drivers = BenchDrivers()
         try:
             for role in ROLES:
-                transport = VisaTransport(bench.resources[role], timeout_s=SERVED_TIMEOUT_S)
+                transport = _open(bench.resources[role])
                 drivers.transports[role] = transport
                 setattr(drivers, role, make_driver(load_profile(PROFILES[role]), role,
                                                    transport, clock=clock))
