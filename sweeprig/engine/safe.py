@@ -219,7 +219,7 @@ def _run_steps(steps: list[_Step], log: Callable[[str], None], attempts: int) ->
 
 
 def _attempt(step: _Step) -> _Try:
-    """Send, wait for completion, read back, read the error queue. Never raises."""
+    """Send, wait for completion, read the error queue, read back (last). Never raises."""
     driver = step.driver
     shown: list[str] = []
     agree = True

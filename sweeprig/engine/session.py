@@ -442,8 +442,9 @@ def _execute(
             lock.release()
         if run_id is None and safe is not None and not safe.ok:
             refused = sys.exc_info()[1]  # why it did not start, told first
-            why = (refused.message() if isinstance(refused, SweeprigError)
-                   else f"{type(refused).__name__}: {refused}" if refused else "")
+            why = ("" if refused is None else f"{type(refused).__name__}: {refused}"
+                   if not isinstance(refused, SweeprigError) else refused.what
+                   if refused.where is None else f"{refused.where}: {refused.what}")
             raise BenchUnsafeError(  # refused before the run was recorded, bench unproven
                 (f"the run did not start ({why}); and " if why else "")
                 + "BENCH NOT PROVEN SAFE: "
