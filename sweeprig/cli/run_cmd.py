@@ -121,6 +121,11 @@ def _drive(start: Callable[..., RunOutcome], *, quiet: bool, report: bool = True
     _print_outcome(console, outcome)
     verdict = _report(console, outcome) if report else None
     if outcome.status == "unsafe" or (outcome.safe is not None and not outcome.safe.ok):
+        if report:  # the figures were printed after the warning: say it again, last
+            failed = outcome.safe.failed if outcome.safe is not None else ()
+            console.print(Text("BENCH NOT PROVEN SAFE (see above): "
+                               + (", ".join(name for name, _m in failed) or "safe state")
+                               + " not verified; act by hand now.", style="bold red"))
         raise typer.Exit(BENCH_UNSAFE_EXIT_CODE)
     if outcome.status != "complete":
         raise typer.Exit(1)
