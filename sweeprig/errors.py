@@ -58,3 +58,14 @@ class StoreError(SweeprigError):
     """The run store cannot be opened, read or written."""
 
     exit_code = 5
+
+
+BENCH_UNSAFE_EXIT_CODE = 8
+"""Exit code of ``run``, ``resume`` and ``safe`` when the bench could not be proven safe
+(a safe-state read-back failed or disagreed). Distinct from every other failure's code."""
+
+
+class BenchUnsafeError(InstrumentError):
+    """The safe state could not be verified on at least one instrument: check it by hand."""
+
+    exit_code = BENCH_UNSAFE_EXIT_CODE

@@ -23,9 +23,9 @@ from sweeprig.analysis.reduce import reduce_run
 from sweeprig.cli.common import fail, print_error
 from sweeprig.cli.report_cmd import VERDICT_FAILED_EXIT_CODE
 from sweeprig.engine.runner import PointResult
-from sweeprig.engine.safe import make_bench_safe
+from sweeprig.engine.safe import SafeOutcome, make_bench_safe
 from sweeprig.engine.session import LoadedFiles, RunOutcome, resume_run, run_sequence
-from sweeprig.errors import StoreError, SweeprigError
+from sweeprig.errors import BENCH_UNSAFE_EXIT_CODE, StoreError, SweeprigError
 from sweeprig.formats.bench import load_bench
 from sweeprig.instruments import available_profiles
 from sweeprig.plan.duration import format_duration
@@ -39,7 +39,8 @@ _RUN_HELP = """Run a sequence file on a bench, unattended, storing every point a
 Before any output is enabled the files are checked and every point's port powers are
 predicted against the bench's limits; a violation refuses the run. On every exit (end,
 error, Ctrl-C, SIGTERM, SIGHUP) all RF outputs are switched off, the supply goes to its safe
-setting and the chamber to its idle set point.
+setting and the chamber to its idle set point, and each is read back: when any instrument
+cannot be verified, the run ends `unsafe`, names it and exits with code 8.
 
 Caution: RF power can damage the part and the analyzer input, and amplified RF can expose
 people to RF energy; chambers and supplies are hazards of their own. Check attenuators and
@@ -121,7 +122,14 @@ def _drive(start: Callable[..., RunOutcome], *, quiet: bool, report: bool = True
     if outcome.store_error is not None:  # the data is not all kept: no report from it
         raise typer.Exit(StoreError.exit_code)
     verdict = _report(console, outcome) if report else None
-    if outcome.status != "complete" or (outcome.safe is not None and not outcome.safe.ok):
+    if outcome.status == "unsafe" or (outcome.safe is not None and not outcome.safe.ok):
+        if report:  # the figures were printed after the warning: say it again, last
+            failed = outcome.safe.failed if outcome.safe is not None else ()
+            console.print(Text("BENCH NOT PROVEN SAFE (see above): "
+                               + (", ".join(name for name, _m in failed) or "safe state")
+                               + " not verified; act by hand now.", style="bold red"))
+        raise typer.Exit(BENCH_UNSAFE_EXIT_CODE)
+    if outcome.status != "complete":
         raise typer.Exit(1)
     if fail_on_verdict and verdict == FAIL:
         raise typer.Exit(VERDICT_FAILED_EXIT_CODE)
@@ -156,12 +164,30 @@ def _summary(result: PointResult) -> str:
     return " | ".join(parts)
 
 
+SAFE_CAUTION = ("Check the bench yourself before touching it; RF power, supplies and "
+                "chambers can hurt, and your lab's rules come first.")
+
+
+def print_unsafe(console: Console, safe: SafeOutcome) -> None:
+    """Say loudly which instruments are not proven safe, what they report, what to do."""
+    console.print(Text(f"BENCH NOT PROVEN SAFE: {len(safe.failed)} instrument(s) could not be "
+                       "verified in their safe state. Act now, by hand:", style="bold red"))
+    for _name, message in safe.failed:
+        console.print(Text(f"  - {message}", style="red"))
+    if safe.done:
+        console.print(Text("  verified by read-back: " + ", ".join(safe.done)))
+    console.print(Text(f"  (exit code {BENCH_UNSAFE_EXIT_CODE}: bench not proven safe)",
+                       style="red"))
+
+
 def _print_outcome(console: Console, outcome: RunOutcome) -> None:
     colour = "green" if outcome.status == "complete" else "red"
-    console.print(
-        f"[{colour}]run {outcome.run_id} {outcome.status}[/{colour}]"
-        + (f": {outcome.reason}" if outcome.reason else "")
-    )
+    reason = outcome.reason
+    if outcome.safe is not None and not outcome.safe.ok and reason:
+        reason = reason.split("; BENCH NOT PROVEN SAFE:")[0]  # told in full below
+    console.print(Text.assemble(
+        (f"run {outcome.run_id} {outcome.status}", colour),
+        f": {reason}" if reason else ""))
     stored = (f"{outcome.points_done} of {outcome.points_total}" if outcome.points_read_back
               else f"unknown: the store at {outcome.store_path} cannot be read back")
     console.print(
@@ -172,10 +198,11 @@ def _print_outcome(console: Console, outcome: RunOutcome) -> None:
     )
     if outcome.safe is not None:
         if outcome.safe.ok:
-            console.print("  bench left safe: " + ", ".join(outcome.safe.done))
+            console.print(Text(
+                "  safe state read back: " + (", ".join(outcome.safe.done) or "nothing to do")
+                + ". " + SAFE_CAUTION))
         else:
-            console.print("[red]  SAFE STATE INCOMPLETE — check the bench by hand now:[/red] "
-                          + "; ".join(f"{n}: {e}" for n, e in outcome.safe.failed))
+            print_unsafe(console, outcome.safe)
     console.print(Text(f"  results: {outcome.store_path} (run {outcome.run_id}); "
                        f"log: {outcome.log_path}"))
     if outcome.store_error is not None:
@@ -230,8 +257,12 @@ setting, the chamber to its idle set point (the bench file's [safe_state]).
 
 For after a run was killed (power cut, SIGKILL, a crashed laptop) and could not do it
 itself: the instruments keep their last settings, RF on included, until told otherwise.
-Each instrument is tried on its own. Refused while a live run holds the bench. Check the
-bench yourself afterwards; this does not replace your lab's safety procedures.
+Each instrument is tried on its own; each safe setting is read back, with a completion
+wait and a look at the error queue, and retried (reconnecting) when it does not agree.
+Nothing is called safe that was not read back: an instrument that does not answer or still
+reports an output on is named, with what to do by hand, and the exit code is 8. Refused
+while a live run holds the bench. Check the bench yourself afterwards; this does not replace
+your lab's safety procedures.
 
 Example:
 
@@ -250,15 +281,17 @@ def safe_command(
         outcome = make_bench_safe(loaded)
     except SweeprigError as exc:
         raise fail(exc) from None
-    for step in outcome.done:
-        console.print(Text(f"  done: {step}"))
-    for step, error in outcome.failed:
-        console.print(Text(f"  FAILED: {step}: {error}", style="bold red"))
     if not outcome.ok:
-        console.print(Text("the bench is NOT fully safe: check it by hand now",
-                           style="bold red"))
-        raise typer.Exit(1)
-    console.print("bench safe: RF off, supply safe, chamber idle")
+        print_unsafe(console, outcome)
+        raise typer.Exit(BENCH_UNSAFE_EXIT_CODE)
+    if not outcome.checks:
+        console.print(Text("nothing to make safe: the bench file names no source, supply or "
+                           "chamber"))
+        return
+    for check in outcome.checks:
+        console.print(Text(f"  read back: {check.name}: {check.reported}"))
+    console.print(Text("safe state verified by read-back on every instrument above. "
+                       + SAFE_CAUTION))
 
 
 def register(app: typer.Typer) -> None:

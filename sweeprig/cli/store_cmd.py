@@ -73,6 +73,7 @@ _STATUS_STYLE = {
     "planned": "white",
     "aborted": "red",
     "interrupted": "yellow",
+    "unsafe": "bold red",
 }
 
 

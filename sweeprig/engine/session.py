@@ -6,8 +6,9 @@ pre-flight check predicts every port power of every point against the limits, an
 are the instruments opened (identification only), the run recorded, and outputs enabled.
 
 Whatever ends the run — the last point, an exception, Ctrl-C (SIGINT), SIGTERM or SIGHUP —
-the bench is put in its safe state (RF off, supply safe, chamber idle) and the run is marked
-``complete`` or ``aborted`` with its reason.
+the bench is put in its safe state (RF off, supply safe, chamber idle), the safe state is
+read back, and the run is marked ``complete`` or ``aborted`` with its reason — or ``unsafe``
+when any instrument's safe state could not be verified (the reason names each one).
 
 When the run store fails (its file or folder deleted, moved or replaced; disk full; read-only;
 I/O error) the run stops measuring at once, the bench is made safe, and the run is marked
@@ -24,6 +25,7 @@ import logging
 import os
 import re
 import signal
+import sys
 import time
 from collections.abc import Callable, Iterator, Mapping
 from contextlib import contextmanager, suppress
@@ -38,7 +40,7 @@ from sweeprig.engine.locks import BenchLock
 from sweeprig.engine.runner import PointResult, RecoveryPolicy, Runner
 from sweeprig.engine.safe import SafeOutcome, make_safe
 from sweeprig.engine.simclock import SimControlClock
-from sweeprig.errors import InputError, StoreError, SweeprigError
+from sweeprig.errors import BenchUnsafeError, InputError, StoreError, SweeprigError
 from sweeprig.formats.bench import Bench, load_bench
 from sweeprig.formats.sequence import Sequence, load_sequence, required_roles
 from sweeprig.instruments import available_profiles
@@ -176,6 +178,8 @@ class ResumePlan:
     done: frozenset[int]
     identities: Mapping[str, str]
     accept_changes: bool = False
+    previous: str = ""
+    """How the run had ended (status and reason), kept in the resume event."""
 
 
 def run_sequence(
@@ -261,7 +265,8 @@ def resume_run(
         run_lock.release()
         raise
     plan = ResumePlan(run_id, done, {i.role: i.idn for i in info.instruments},
-                      accept_changes)
+                      accept_changes, f"{info.status}: {info.reason}" if info.reason
+                      else info.status)
     try:
         return _execute(files, store_path=store_path, sim_description=sim_description,
                         realtime=False, bus_log=bus_log, on_start=on_start, on_point=on_point,
@@ -382,7 +387,8 @@ def _execute(
                             run_id, files.sequence_path, files.bench_path, total, predicted)
             else:
                 message = (f"resumed: {len(resume.done)} of {total} points were stored; "
-                           f"measuring the other {total - len(resume.done)}")
+                           f"measuring the other {total - len(resume.done)}"
+                           + (f" (it had ended {resume.previous})" if resume.previous else ""))
                 logger.info("run %d %s", run_id, message)
                 store.log_event(run_id, "info", "resume", message)
             for role, texts in drivers.startup_errors.items():
@@ -453,11 +459,18 @@ def _execute(
             if bus:
                 store_failure = _store_write(store_failure, store.log_bus, run_id, list(bus))
             if safe is not None and not safe.ok:
-                failed = "; ".join(f"{name}: {err}" for name, err in safe.failed)
-                reason = f"{reason or 'complete'}; SAFE STATE INCOMPLETE: {failed}"
+                reason = (f"{status}{f': {reason}' if reason else ''}; BENCH NOT PROVEN SAFE: "
+                          + "; ".join(message for _name, message in safe.failed))
+                status = "unsafe"
                 store_failure = _store_write(
                     store_failure, store.log_event, run_id, "error", "safe_state",
-                    "safe state incomplete", {"failed": dict(safe.failed)})
+                    "bench not proven safe: " + ", ".join(name for name, _m in safe.failed),
+                    safe.details())
+            elif safe is not None:
+                store_failure = _store_write(
+                    store_failure, store.log_event, run_id, "info", "safe_state",
+                    "safe state read back: " + (", ".join(safe.done) or "nothing to do"),
+                    safe.details())
             closing = _record_end(store, run_id, status, reason, store_failure,
                                   expected_stored, log_dir)
             status, reason = closing.status, closing.reason
@@ -477,6 +490,18 @@ def _execute(
             lock.release()
         if run_lock is not None:
             run_lock.release()  # after the final status: the run is over
+        if run_id is None and safe is not None and not safe.ok:
+            refused = sys.exc_info()[1]  # why it did not start, told first
+            why = ("" if refused is None else f"{type(refused).__name__}: {refused}"
+                   if not isinstance(refused, SweeprigError) else refused.what
+                   if refused.where is None else f"{refused.where}: {refused.what}")
+            raise BenchUnsafeError(  # refused before the run was recorded, bench unproven
+                (f"the run did not start ({why}); and " if why else "")
+                + "BENCH NOT PROVEN SAFE: "
+                + "; ".join(message for _name, message in safe.failed),
+                where=str(files.bench_path),
+                fix="make each instrument named here safe by hand now, then run "
+                "`sweeprig safe --bench BENCH` to verify; follow your lab's rules")
     assert run_id is not None
     return RunOutcome(
         run_id=run_id, status=status, reason=reason, points_done=closing.points_stored,
@@ -623,7 +648,9 @@ def _finish(drivers: BenchDrivers | None, sim_bench: object, files: LoadedFiles,
                         log=(logger.warning if logger is not None else lambda _m: None))
     drivers.close()
     if logger is not None:
-        logger.info("safe state: %s", ", ".join(outcome.done) or "nothing to do")
+        logger.info("safe state read back: %s", ", ".join(outcome.done) or "nothing to do")
+        for _name, message in outcome.failed:
+            logger.error("BENCH NOT PROVEN SAFE: %s", message)
     return outcome
 
 

@@ -9,12 +9,20 @@ A :class:`FaultPlan` lists faults per instrument role. Kinds:
 * ``garble`` — the bytes of the next reply are corrupted (same length, the terminator kept).
 * ``reset`` — the instrument resets itself as after a power glitch (power-on defaults, PON
   bit set, error queue cleared) before the message runs.
+* ``swallow`` — the message is lost without a trace: it does not run, nothing is answered,
+  the connection stays open (a command lost on the way, as seen by the sender).
+* ``freeze`` — the instrument stops answering: this message and every later one are
+  ignored, connections stay open and new ones are accepted (a hung instrument). With
+  ``whole_bench = true`` every instrument of the bench freezes at once (a hung server).
+  :meth:`FaultInjector.thaw` ends it (for tests that look at the instruments afterwards).
 
 Triggers (exactly one per fault): ``at_time_s`` (the first message at or after that
 simulated time), ``at_command`` (the n-th message, counted from 1, received by that role's
-instrument over all its connections) or ``rate`` (probability per message, from a seeded
-generator; ``max_count`` caps how often it fires). A "message" is one received line.
-``timeout`` and ``garble`` wait, once triggered, for the next message that has a reply.
+instrument over all its connections), ``rate`` (probability per message, from a seeded
+generator) or ``match`` (every message containing that text, case-insensitive, e.g.
+``"OUTP:STAT OFF"``); ``max_count`` caps how often a ``rate`` or ``match`` fault fires. A
+"message" is one received line. ``timeout`` and ``garble`` wait, once triggered, for the
+next message that has a reply.
 
 Every injected fault is recorded in the thread-safe :class:`FaultLog` with role, kind,
 simulated time, command count and the message it hit, so a soak test can check that the
@@ -48,7 +56,9 @@ from pydantic import BaseModel, ConfigDict, Field, ValidationError, model_valida
 
 from sweeprig.errors import InputError
 
-FaultKind = Literal["timeout", "drop", "error", "garble", "reset"]
+FaultKind = Literal["timeout", "drop", "error", "garble", "reset", "swallow", "freeze"]
+
+_TRIGGERS = ("at_time_s", "at_command", "rate", "match")
 
 #: Bytes a garbled reply is made of: printable ASCII that never forms a number or a terminator.
 _GARBLE_ALPHABET = b"!#$%&()*<>?@[]^_{|}~"
@@ -64,21 +74,25 @@ class FaultSpec(BaseModel):
     at_time_s: float | None = Field(default=None, ge=0.0)
     at_command: int | None = Field(default=None, ge=1)
     rate: float | None = Field(default=None, gt=0.0, le=1.0)
+    match: str | None = Field(default=None, min_length=1)
     seed: int = 0
     max_count: int | None = Field(default=None, ge=1)
     code: int = -200
     text: str | None = None
+    whole_bench: bool = False
 
     @model_validator(mode="after")
     def _one_trigger(self) -> FaultSpec:
-        given = [n for n in ("at_time_s", "at_command", "rate") if getattr(self, n) is not None]
+        given = [n for n in _TRIGGERS if getattr(self, n) is not None]
         if len(given) != 1:
             raise ValueError(
-                "give exactly one trigger: at_time_s, at_command or rate"
+                "give exactly one trigger: at_time_s, at_command, rate or match"
                 + (f" (got {', '.join(given)})" if given else "")
             )
-        if self.max_count is not None and self.rate is None:
-            raise ValueError("max_count applies to rate triggers only")
+        if self.max_count is not None and self.rate is None and self.match is None:
+            raise ValueError("max_count applies to rate and match triggers only")
+        if self.whole_bench and self.kind != "freeze":
+            raise ValueError("whole_bench applies to freeze faults only")
         return self
 
 
@@ -100,8 +114,9 @@ class FaultPlan(BaseModel):
             raise InputError(
                 f"{first['msg']}",
                 where=f"{where}: {loc}" if loc else where,
-                fix="each [[faults]] table needs role, kind (timeout|drop|error|garble|reset) "
-                "and one trigger (at_time_s, at_command or rate); no other keys",
+                fix="each [[faults]] table needs role, kind (timeout|drop|error|garble|reset|"
+                "swallow|freeze) and one trigger (at_time_s, at_command, rate or match); no "
+                "other keys",
             ) from exc
 
     def for_role(self, role: str) -> tuple[FaultSpec, ...]:
@@ -147,6 +162,8 @@ class FaultAction:
     drop: bool = False
     swallow_reply: bool = False
     garble_reply: bool = False
+    ignore: bool = False
+    """The message is lost: not run, not answered, the connection kept (swallow, freeze)."""
 
 
 class _Armed:
@@ -161,10 +178,14 @@ class _Armed:
 class RoleFaults:
     """Fault state of one role: message counter, triggers, faults waiting for a reply."""
 
-    def __init__(self, role: str, specs: tuple[FaultSpec, ...], log: FaultLog) -> None:
+    def __init__(self, role: str, specs: tuple[FaultSpec, ...], log: FaultLog,
+                 bench_frozen: threading.Event | None = None) -> None:
         self.role = role
         self.log = log
         self.command_count = 0
+        self.frozen = threading.Event()
+        """Set while this instrument ignores every message (a ``freeze`` fault)."""
+        self._bench_frozen = bench_frozen or threading.Event()
         self._armed = [_Armed(s) for s in specs]
         self._waiting: list[FaultSpec] = []
         self._lock = threading.Lock()
@@ -174,7 +195,9 @@ class RoleFaults:
         with self._lock:
             self.command_count += 1
             count = self.command_count
-            due = [a for a in self._armed if self._is_due(a, now_s, count)]
+            if self.frozen.is_set() or self._bench_frozen.is_set():
+                return FaultAction(ignore=True)
+            due = [a for a in self._armed if self._is_due(a, now_s, count, message)]
             action = FaultAction()
             for armed in due:
                 armed.fired += 1
@@ -190,6 +213,12 @@ class RoleFaults:
                     instrument.reset_to_power_on()
                 elif spec.kind == "drop":
                     action = FaultAction(drop=True)
+                elif spec.kind == "swallow" and not action.drop:
+                    action = FaultAction(ignore=True)
+                elif spec.kind == "freeze":
+                    (self._bench_frozen if spec.whole_bench else self.frozen).set()
+                    detail = "whole bench" if spec.whole_bench else ""
+                    action = FaultAction(ignore=True)
                 self.log.record(FaultEvent(self.role, spec.kind, now_s, count, message, detail))
             return action
 
@@ -207,8 +236,12 @@ class RoleFaults:
             return FaultAction(garble_reply=True)
 
     @staticmethod
-    def _is_due(armed: _Armed, now_s: float, count: int) -> bool:
+    def _is_due(armed: _Armed, now_s: float, count: int, message: str) -> bool:
         spec = armed.spec
+        if spec.match is not None:
+            if spec.max_count is not None and armed.fired >= spec.max_count:
+                return False
+            return spec.match.upper() in message.upper()
         if spec.at_command is not None:
             return armed.fired == 0 and count == spec.at_command
         if spec.at_time_s is not None:
@@ -226,12 +259,43 @@ class FaultInjector:
         self.log = FaultLog()
         self._roles: dict[str, RoleFaults] = {}
         self._lock = threading.Lock()
+        self._bench_frozen = threading.Event()
 
     def for_role(self, role: str) -> RoleFaults:
         with self._lock:
             if role not in self._roles:
-                self._roles[role] = RoleFaults(role, self.plan.for_role(role), self.log)
+                self._roles[role] = RoleFaults(role, self.plan.for_role(role), self.log,
+                                               self._bench_frozen)
             return self._roles[role]
+
+    def add(self, spec: FaultSpec) -> None:
+        """Plan one more fault from now on (its ``at_command`` counts from now)."""
+        role_faults = self.for_role(spec.role)
+        with role_faults._lock:
+            armed = _Armed(spec)
+            if spec.at_command is not None:
+                armed.spec = spec.model_copy(
+                    update={"at_command": role_faults.command_count + spec.at_command})
+            role_faults._armed.append(armed)
+
+    def freeze(self, role: str | None = None) -> None:
+        """Make ``role`` (None: every instrument) ignore every message from now on."""
+        if role is None:
+            self._bench_frozen.set()
+        else:
+            self.for_role(role).frozen.set()
+
+    def thaw(self) -> None:
+        """End every freeze: the instruments answer again (messages sent meanwhile are lost)."""
+        self._bench_frozen.clear()
+        with self._lock:
+            roles = list(self._roles.values())
+        for role_faults in roles:
+            role_faults.frozen.clear()
+
+    def frozen(self, role: str) -> bool:
+        """Whether ``role`` ignores messages now (its own freeze or the whole bench's)."""
+        return self._bench_frozen.is_set() or self.for_role(role).frozen.is_set()
 
 
 def garble(reply: bytes, seed: int = 0) -> bytes:

@@ -153,6 +153,8 @@ class _RoleServer:
             with contextlib.suppress(OSError):
                 conn.shutdown(socket.SHUT_RDWR)
             return False
+        if action.ignore:  # swallowed or frozen: not run, not answered, connection kept
+            return True
         reply = self.instrument.handle(message)
         if reply is None:
             return True

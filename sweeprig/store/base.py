@@ -23,9 +23,13 @@ import pandas as pd
 DEFAULT_STORE_PATH = Path("results") / "sweeprig.sqlite"
 """Where runs are stored unless ``--store`` says otherwise (relative to the current folder)."""
 
-RunStatus = Literal["planned", "running", "complete", "aborted", "interrupted"]
-RUN_STATUSES: tuple[str, ...] = ("planned", "running", "complete", "aborted", "interrupted")
-FINAL_STATUSES: tuple[str, ...] = ("complete", "aborted")
+RunStatus = Literal["planned", "running", "complete", "aborted", "interrupted", "unsafe"]
+RUN_STATUSES: tuple[str, ...] = ("planned", "running", "complete", "aborted", "interrupted",
+                                 "unsafe")
+FINAL_STATUSES: tuple[str, ...] = ("complete", "aborted", "unsafe")
+"""``unsafe``: the run ended (complete or not) but its bench could not be proven safe by
+reading the safe state back; the reason says which instrument and what it reported. Like
+``aborted``, an ``unsafe`` run can be resumed."""
 
 Severity = Literal["debug", "info", "warning", "error"]
 SEVERITIES: tuple[str, ...] = ("debug", "info", "warning", "error")
@@ -225,7 +229,8 @@ class RunStore(Protocol):
         ...
 
     def set_status(self, run_id: int, status: RunStatus, reason: str | None = None) -> None:
-        """Change the run's status; ``complete``/``aborted`` also set the finish time."""
+        """Change the run's status; ``complete``/``aborted``/``unsafe`` also set the finish
+        time."""
         ...
 
     def set_points_total(self, run_id: int, points_total: int) -> None:

@@ -63,7 +63,8 @@ from sweeprig.store.base import (
 )
 from sweeprig.store.runlock import run_lock_held
 
-SCHEMA_VERSION = 1
+SCHEMA_VERSION = 2
+"""2: run status ``unsafe`` allowed (a version-1 store is migrated when opened)."""
 
 _STATUS_CHECK = ", ".join(f"'{s}'" for s in RUN_STATUSES)
 
@@ -384,6 +385,42 @@ class SqliteRunStore:
                 where=str(self.path),
                 fix="use a newer sweeprig, or another store file",
             )
+        if version == 1:
+            self._migrate_to_v2()
+
+    def _migrate_to_v2(self) -> None:
+        """Allow the status ``unsafe`` in a version-1 store: rebuild ``runs`` with the new
+        CHECK, as SQLite's documented way of changing a table's constraints (create, copy,
+        drop, rename, with foreign keys off so the children rows stay). A store that cannot
+        be written (read-only file) is left as it is and can still be read."""
+        conn = self._conn
+        create = next(s for s in SCHEMA if "TABLE IF NOT EXISTS runs (" in s)
+        conn.execute("PRAGMA foreign_keys = OFF")
+        try:
+            try:
+                conn.execute("BEGIN IMMEDIATE")
+            except sqlite3.OperationalError:
+                return  # read-only or busy: read it as it is
+            try:
+                row = conn.execute(
+                    "SELECT setting FROM store_meta WHERE name = 'schema_version'").fetchone()
+                if row is not None and int(row[0]) == 1:  # not migrated meanwhile
+                    conn.execute(create.replace("TABLE IF NOT EXISTS runs (", "TABLE runs_v2 ("))
+                    conn.execute("INSERT INTO runs_v2 SELECT * FROM runs")
+                    conn.execute("DROP TABLE runs")
+                    conn.execute("ALTER TABLE runs_v2 RENAME TO runs")
+                    if conn.execute("PRAGMA foreign_key_check").fetchall():
+                        raise sqlite3.IntegrityError("foreign keys broken by the migration")
+                    conn.execute("UPDATE store_meta SET setting = ? WHERE name = "
+                                 "'schema_version'", (str(SCHEMA_VERSION),))
+                conn.execute("COMMIT")
+            except sqlite3.OperationalError:
+                conn.execute("ROLLBACK")  # read-only: read it as it is
+            except BaseException:
+                conn.execute("ROLLBACK")
+                raise
+        finally:
+            conn.execute("PRAGMA foreign_keys = ON")
 
     # -- plumbing ---------------------------------------------------------------------------
 
@@ -676,8 +713,8 @@ class SqliteRunStore:
             )
 
     def set_status(self, run_id: int, status: RunStatus, reason: str | None = None) -> None:
-        """Change the status. ``complete``/``aborted`` set the finish time; ``running`` also
-        records this process (pid, host) and a heartbeat."""
+        """Change the status. ``complete``/``aborted``/``unsafe`` set the finish time;
+        ``running`` also records this process (pid, host) and a heartbeat."""
         self._check_status(status)
         now = _iso(utc_now())
         with self._transaction("setting the run status") as conn:

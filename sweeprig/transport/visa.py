@@ -11,6 +11,7 @@ This is the only module in sweeprig that imports pyvisa.
 
 from __future__ import annotations
 
+import threading
 import time
 from collections.abc import Iterator
 from contextlib import contextmanager, suppress
@@ -72,6 +73,30 @@ def list_resources(
             _quiet_close(rm)
 
 
+# pyvisa hands out one ResourceManager per VISA library to the whole process: closing it
+# closes every session opened through it, other transports' included. So a transport only
+# closes the manager when it is the last one using it.
+_RM_USERS: dict[int, int] = {}
+_RM_LOCK = threading.Lock()
+
+
+def _take_rm(visa_library: str) -> pyvisa.ResourceManager:
+    rm = open_resource_manager(visa_library)
+    with _RM_LOCK:
+        _RM_USERS[id(rm)] = _RM_USERS.get(id(rm), 0) + 1
+    return rm
+
+
+def _release_rm(rm: pyvisa.ResourceManager) -> None:
+    with _RM_LOCK:
+        users = _RM_USERS.get(id(rm), 1) - 1
+        if users > 0:
+            _RM_USERS[id(rm)] = users
+            return
+        _RM_USERS.pop(id(rm), None)
+    _quiet_close(rm)
+
+
 def _quiet_close(obj: Any) -> None:
     with suppress(_PYVISA_ERRORS):
         obj.close()
@@ -121,13 +146,17 @@ class VisaTransport:
         self._shared_rm = resource_manager
         self._rm: pyvisa.ResourceManager | None = resource_manager
         self._inst: Any = None
-        self._open()
+        try:
+            self._open()
+        except BaseException:
+            self.close()  # give the ResourceManager back
+            raise
 
     # -- connection -------------------------------------------------------------------------
 
     def _open(self) -> None:
         if self._rm is None:
-            self._rm = open_resource_manager(self.visa_library)
+            self._rm = _take_rm(self.visa_library)
         try:
             inst = self._rm.open_resource(
                 self.resource, open_timeout=int(self.timeout_s * 1000)
@@ -158,7 +187,7 @@ class VisaTransport:
             _quiet_close(self._inst)
             self._inst = None
         if self._shared_rm is None and self._rm is not None:
-            _quiet_close(self._rm)
+            _release_rm(self._rm)
             self._rm = None
 
     def reconnect(self) -> None:

@@ -236,7 +236,7 @@ def test_cli_run_whose_store_folder_vanishes_exits_5_with_the_cause(tmp_path):
     assert "points stored: unknown" in " ".join(out.split())
     note = cwd / "runs.sqlite.run-1.failed.txt"
     assert note.exists() and str(note) in "".join(out.split())  # rich wraps long lines
-    assert "bench left safe" in out
+    assert "safe state read back" in " ".join(out.split())
 
 
 def _skip_unless_permissions_hold(folder) -> None:

@@ -116,6 +116,58 @@ def test_garble_corrupts_the_reply_and_keeps_the_terminator() -> None:
         assert rf.query("*IDN?") == "Tarnwick Labs,TW-SG6,SG6-10001,1.0"
 
 
+def test_swallow_loses_the_message_silently_and_keeps_the_connection() -> None:
+    with _bench([{"role": "rf", "kind": "swallow", "match": "outp:stat off",
+                  "max_count": 1}]) as (bench, rm):
+        rf = _open(rm, bench)
+        rf.write("OUTP:STAT ON")
+        rf.write("OUTP:STAT OFF")  # lost on the way: not run, nothing said
+        assert rf.query("OUTP:STAT?") == "1"
+        rf.write("OUTP:STAT OFF")  # max_count 1: this one goes through
+        assert rf.query("OUTP:STAT?") == "0"
+        assert rf.query("SYST:ERR?").startswith("0,")  # no trace in the error queue
+        (event,) = bench.faults.log.events()
+        assert (event.kind, event.command, event.command_count) == ("swallow",
+                                                                     "OUTP:STAT OFF", 2)
+
+
+def test_freeze_hangs_one_instrument_until_thawed() -> None:
+    with _bench([{"role": "rf", "kind": "freeze", "match": "OUTP:STAT OFF"}]) as (bench, rm):
+        rf, simctl = _open(rm, bench), _open(rm, bench, "simctl")
+        rf.write("OUTP:STAT ON")
+        rf.write("OUTP:STAT OFF")
+        _lost_reply(rf, "*IDN?")
+        _lost_reply(_open(rm, bench), "*IDN?")  # a new connection is accepted, not answered
+        assert simctl.query("SIM:TIME?") == "0"  # the others still answer
+        assert bench.faults.frozen("rf") and not bench.faults.frozen("simctl")
+        bench.faults.thaw()
+        fresh = _open(rm, bench)
+        assert fresh.query("OUTP:STAT?") == "1"  # the message that froze it never ran
+
+
+def test_freeze_of_the_whole_bench() -> None:
+    with _bench([{"role": "rf", "kind": "freeze", "at_command": 1,
+                  "whole_bench": True}]) as (bench, rm):
+        rf, simctl = _open(rm, bench), _open(rm, bench, "simctl")
+        _lost_reply(rf, "*IDN?")
+        _lost_reply(simctl, "SIM:TIME?")
+        (event,) = bench.faults.log.events()
+        assert event.detail == "whole bench"
+        bench.faults.thaw()
+        assert _open(rm, bench, "simctl").query("SIM:TIME?") == "0"
+
+
+def test_a_fault_added_while_serving_counts_from_then() -> None:
+    with _bench([]) as (bench, rm):
+        rf = _open(rm, bench)
+        for _ in range(5):
+            rf.query("*IDN?")
+        bench.faults.add(FaultSpec(role="rf", kind="timeout", at_command=2))
+        assert rf.query("*IDN?")
+        _lost_reply(rf, "*IDN?")
+        assert [e.command_count for e in bench.faults.log.events()] == [7]
+
+
 def test_reset_restores_power_on_state() -> None:
     with _bench([{"role": "rf", "kind": "reset", "at_command": 3}]) as (bench, rm):
         rf = _open(rm, bench)
@@ -194,6 +246,10 @@ def test_plan_from_toml() -> None:
         ({"role": "rf", "kind": "drop", "at_command": 1, "colour": "red"}, "faults.0.colour"),
         ({"role": "rf", "kind": "drop", "rate": 1.5}, "faults.0.rate"),
         ({"role": "rf", "kind": "drop", "at_command": 1, "max_count": 2}, "max_count"),
+        ({"role": "rf", "kind": "drop", "match": "OUTP", "at_command": 1}, "exactly one"),
+        ({"role": "rf", "kind": "drop", "match": ""}, "faults.0.match"),
+        ({"role": "rf", "kind": "swallow", "match": "OUTP", "whole_bench": True},
+         "whole_bench"),
     ],
 )
 def test_bad_plans_are_input_errors(fault: dict[str, object], needle: str) -> None:

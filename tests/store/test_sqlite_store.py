@@ -222,3 +222,52 @@ def test_open_errors(tmp_path):
     conn.close()
     with pytest.raises(StoreError, match="not a sweeprig run store"):
         SqliteRunStore(other)
+
+
+def test_unsafe_is_a_final_status_of_its_own(store):
+    run_id = _run(store)
+    store.set_status(run_id, "running")
+    store.set_status(run_id, "unsafe", "complete; BENCH NOT PROVEN SAFE: role 'rf' ...")
+    info = store.run(run_id)
+    assert info.status == info.stored_status == "unsafe"  # never shown as interrupted
+    assert info.finished is not None and "BENCH NOT PROVEN SAFE" in info.reason
+    assert [r.status for r in store.runs()] == ["unsafe"]
+
+
+def _downgrade_to_version_1(path) -> None:
+    """Make ``path`` a store as the previous sweeprig wrote it: schema 1, whose ``runs``
+    table refuses the status 'unsafe' (rebuilt with the old CHECK, rows kept)."""
+    with sqlite3.connect(path, isolation_level=None) as db:
+        sql = db.execute("SELECT sql FROM sqlite_master WHERE name = 'runs'").fetchone()[0]
+        assert ", 'unsafe'" in sql
+        db.execute("PRAGMA foreign_keys = OFF")
+        db.execute("BEGIN")
+        db.execute(sql.replace(", 'unsafe'", "").replace("TABLE runs (", "TABLE runs_v1 (", 1)
+                   .replace("TABLE IF NOT EXISTS runs (", "TABLE runs_v1 (", 1))
+        db.execute("INSERT INTO runs_v1 SELECT * FROM runs")
+        db.execute("DROP TABLE runs")
+        db.execute("ALTER TABLE runs_v1 RENAME TO runs")
+        db.execute("UPDATE store_meta SET setting = '1' WHERE name = 'schema_version'")
+        db.execute("COMMIT")
+        with pytest.raises(sqlite3.IntegrityError):
+            db.execute("UPDATE runs SET status = 'unsafe'")
+
+
+def test_a_version_1_store_is_migrated_and_keeps_its_runs(tmp_path):
+    path = tmp_path / "old.sqlite"
+    with SqliteRunStore(path) as db:
+        run_id = _run(db)
+        db.write_point(run_id, _point(0), _readings(0))
+        db.log_event(run_id, "warning", "retry", "one retry")
+    _downgrade_to_version_1(path)
+    with SqliteRunStore(path, create=False) as db:
+        db.set_status(run_id, "unsafe", "BENCH NOT PROVEN SAFE: role 'dc'")
+        assert db.run(run_id).status == "unsafe"
+        assert db.done_point_indices(run_id) == {0}  # children kept, not cascaded away
+        assert len(db.readings_frame(run_id)) == 2
+        assert [e.kind for e in db.events(run_id)] == ["retry"]
+    with sqlite3.connect(path) as db:
+        version = db.execute(
+            "SELECT setting FROM store_meta WHERE name = 'schema_version'").fetchone()
+        assert version == ("2",)
+        assert db.execute("PRAGMA foreign_key_check").fetchall() == []
