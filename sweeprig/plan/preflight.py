@@ -374,7 +374,7 @@ def _check_bench_settings(sequence: Sequence, bench: Bench, roles: Mapping[str, 
                     "the supply's current limit", ("limits", "supply_max_current"), safety=True)
     if "chamber" in roles and isinstance(state.chamber, float):
         setting("chamber", "setpoint", state.chamber, "the safe-state chamber set point",
-                ("safe_state", "chamber"), safety=False)
+                ("safe_state", "chamber"), safety=True)
     if "switch" in roles:
         ports = {"rf" if kind == "lo_at_rf" else "if"
                  for kind in sequence.reading_kinds() - {"supply_current", "input_power"}}
