@@ -61,6 +61,7 @@ class PortCheck:
     """One limit checked over the whole plan.
 
     ``label``: what is checked ("lo source setting", "analyzer input (IF port)" ...).
+    ``source``: who sets the limit: "bench", "part" or "profile" (the instrument's range).
     ``unit``: "dBm", "V", "degC", "Hz"... ``limit``: the bound; ``limit_key``: who sets it
     and where (bench file line, driver profile line or part rating). ``bound``: "max" or
     "min". ``safety``: a refusal is a safety-limit error (powers, voltages, currents), else an
@@ -76,6 +77,7 @@ class PortCheck:
     bound: str = "max"
     port: str = ""
     safety: bool = True
+    source: str = "bench"
     worst: float = -math.inf
     worst_index: int | None = None
     violation_index: int | None = None
@@ -213,7 +215,7 @@ def check_limits(sequence: Sequence, bench: Bench) -> PreflightReport:
         for b in (found.high, found.low):
             if b is not None:
                 out.append(PortCheck(label, unit or found.unit, b.value, b.origin, b.side,
-                                     port, safety=safety))
+                                     port, safety=safety, source=b.source))
         report.checks.extend(out)
         return out
 
@@ -449,7 +451,8 @@ def _check_readings(sequence: Sequence, bench: Bench, lay: Layout,
         for b in (found.high, found.low):
             if b is None:
                 continue
-            c = PortCheck(label, unit, b.value, b.origin, b.side, role, safety=safety)
+            c = PortCheck(label, unit, b.value, b.origin, b.side, role, safety=safety,
+                          source=b.source)
             report.checks.append(c)
             c._offer(np.asarray(values[(role, op)], dtype=float),
                      lambda k, _idx=idx: _idx[k])  # type: ignore[misc]
@@ -498,21 +501,24 @@ def safety_error(sequence: Sequence, check: PortCheck) -> SweeprigError:
     assert check.violation_index is not None and check.violation_value is not None
     point = point_at(sequence, check.violation_index)
     word = "above" if check.bound == "max" else "below"
+    allows = "at most" if check.bound == "max" else "at least"
     what = (f"{check.label} would be {_amount(check.violation_value, check.unit, True)}, "
-            f"{word} the limit {_amount(check.limit, check.unit, False)} of "
-            f"{check.limit_key}; first at {point.describe()}")
+            f"{word} the limit {_amount(check.limit, check.unit, False)}: {check.limit_key} "
+            f"allows {allows} {_amount(check.limit, check.unit, False)}; first at "
+            f"{point.describe()}")
     where = sequence.where(("study", point.study_index))
     if not check.safety:
         return InputError(
             what, where=where,
             fix="change the plan in the sequence so every setting stays inside the "
             "instrument's range, or give the role a profile (instrument) that covers it")
-    return SafetyLimitError(
-        f"{what}. {CAUTION}",
-        where=where,
-        fix="lower the power (or change the frequencies or conditions) in the sequence, or "
-        "correct the limit or path loss in the bench file if it is wrong",
-    )
+    if check.source == "profile":
+        fix = ("change the plan in the sequence: the instrument cannot go beyond its own range "
+               "(its driver profile); or use an instrument, and its profile, that covers it")
+    else:
+        fix = ("lower the power (or change the frequencies or conditions) in the sequence, or "
+               "correct the limit or path loss in the bench file if it is wrong")
+    return SafetyLimitError(f"{what}. {CAUTION}", where=where, fix=fix)
 
 
 def preflight(sequence: Sequence, bench: Bench) -> PreflightReport:
