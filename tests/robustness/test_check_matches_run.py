@@ -122,7 +122,8 @@ def files(draw: st.DrawFn) -> Files:
         safe_chamber = draw(_r(-90.0, -60.0, 0) | _r(170.0, 200.0, 0))
         temperature = 25.0 if temperature is None else temperature
     elif focus == "switch":
-        channel_rf = draw(st.sampled_from([2, 64, 65, 70]))
+        # the simulated switch has channels 1..3; the generic profile allows up to 64
+        channel_rf = draw(st.sampled_from([2, 3, 65, 70]))
         read.append('"lo_at_rf"')
     elif focus == "averages":
         analyzer.append(f"averages = {draw(st.integers(9990, 10010))}")
