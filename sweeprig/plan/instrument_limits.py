@@ -35,14 +35,18 @@ def role_profile(bench: Bench, role: str, profile_name: str | None = None) -> Pr
     want = ROLE_KINDS.get(role)
     if want is not None and profile.kind != want:
         raise InputError(
-            f"driver profile {profile.name!r} drives a {profile.kind}, but the {role!r} role "
-            f"takes a {want} profile (kinds accepted: {want})",
+            f"driver profile {profile.name!r} drives {_a(profile.kind)}, but the {role!r} role "
+            f"takes {_a(want)} profile (kinds accepted: {want})",
             where=where,
             fix=f"name a {want} profile for roles.{role}, e.g. "
             f"{DEFAULT_PROFILE_FOR_KIND[want]!r}, or move this instrument to a {profile.kind} "
             "role",
         )
     return profile
+
+
+def _a(noun: str) -> str:
+    return f"{'an' if noun[:1] in 'aeiou' else 'a'} {noun}"
 
 
 def _bench_bound(bench: Bench, key: tuple[str, ...], value: float | None, side: str

@@ -339,17 +339,28 @@ def _offer(checks: list[PortCheck], values: np.ndarray, index_of: Callable[[int]
         c._offer(np.asarray(values, dtype=float), index_of)
 
 
+#: Said with a refused bench-file setting, per operation (RF power has :data:`CAUTION`).
+_SETTING_CAUTION = {
+    "voltage": "Caution: too much supply voltage can destroy the part.",
+    "current_limit": "Caution: a current limit above what the part takes cannot protect it.",
+    "setpoint": "Caution: a chamber beyond its range or the part's can damage both.",
+}
+
+
 def _refuse_setting(limits: OpLimits, bound: Bound, value: float, safety: bool, what: str,
-                    where: str) -> None:
+                    where: str, op: str) -> None:
     """Raise the error a driver would raise for a bench-file setting past ``bound``."""
-    unit = f" {limits.unit}" if limits.unit else ""
+    symbol = "degC" if limits.unit == "°C" else limits.unit
+    amount = f"{value:g} {symbol}".strip()
     problem = "above the maximum" if bound.side == "max" else "below the minimum"
-    message = f"{what} {value:g}{unit} is {problem}: {bound.describe(limits.unit)}"
+    message = f"{what} {amount} is {problem}: {bound.describe(symbol)}"
     if safety:
         raise SafetyLimitError(
-            f"{message}. {CAUTION}", where=where,
-            fix="lower the setting in the bench file, or raise the limit only if the part "
-            "and the bench can take it")
+            f"{message}. {_SETTING_CAUTION.get(op, CAUTION)}", where=where,
+            fix="change the setting in the bench file"
+            + (" (the instrument cannot go beyond its own range, its driver profile)"
+               if bound.source == "profile" else ", or raise the limit only if the part and "
+               "the bench can take it"))
     raise InputError(message, where=where,
                      fix="choose a value inside the instrument's range (its driver profile)"
                      if bound.source == "profile" else "choose a value inside the limits")
@@ -364,7 +375,7 @@ def _check_bench_settings(sequence: Sequence, bench: Bench, roles: Mapping[str, 
         found = limits.get(role, {}).get(op)
         bound = None if found is None else found.refusal(value)
         if found is not None and bound is not None:
-            _refuse_setting(found, bound, value, safety, what, bench.where(key))
+            _refuse_setting(found, bound, value, safety, what, bench.where(key), op)
 
     state = bench.safe_state
     if "dc" in roles:
@@ -390,11 +401,13 @@ def _check_bench_settings(sequence: Sequence, bench: Bench, roles: Mapping[str, 
                     what, key, safety=False)
 
 
-#: Analyzer operation → the reading's setting it is sent.
-_ANALYZER_OPS: tuple[tuple[str, str, str], ...] = (
-    ("centre", "center_hz", "Hz"), ("span", "span_hz", "Hz"), ("rbw", "rbw_hz", "Hz"),
-    ("ref_level", "reference_level_dbm", "dBm"), ("attenuation", "attenuation_db", "dB"),
-    ("averages", "averages", ""),
+#: Analyzer operation → the reading's setting it is sent, its unit and its name in messages.
+_ANALYZER_OPS: tuple[tuple[str, str, str, str], ...] = (
+    ("centre", "center_hz", "Hz", "centre frequency"), ("span", "span_hz", "Hz", "span"),
+    ("rbw", "rbw_hz", "Hz", "RBW"), ("ref_level", "reference_level_dbm", "dBm",
+                                     "reference level"),
+    ("attenuation", "attenuation_db", "dB", "attenuation"), ("averages", "averages", "",
+                                                             "averages"),
 )
 
 
@@ -406,9 +419,9 @@ def _check_readings(sequence: Sequence, bench: Bench, lay: Layout,
     supply, so the first pass stands for all)."""
     wanted: list[tuple[str, str, str, str]] = []  # (role, op, label, unit)
     if "sa" in profiles:
-        for op, _attr, unit in _ANALYZER_OPS:
+        for op, _attr, unit, name in _ANALYZER_OPS:
             if op in limits["sa"] and limits["sa"][op].bounds:
-                wanted.append(("sa", op, f"analyzer {op.replace('_', ' ')}", unit))
+                wanted.append(("sa", op, f"analyzer {name}", unit))
         if "marker_level" in limits["sa"] and limits["sa"]["marker_level"].bounds:
             wanted.append(("sa", "marker_level", "analyzer marker frequency", "Hz"))
     if "pm" in profiles and "frequency" in limits["pm"] and limits["pm"]["frequency"].bounds:
@@ -433,7 +446,7 @@ def _check_readings(sequence: Sequence, bench: Bench, lay: Layout,
             for reading in point.readings:
                 got: dict[tuple[str, str], float] = {}
                 if reading.instrument == "sa" and reading.analyzer is not None:
-                    for op, attr, _unit in _ANALYZER_OPS:
+                    for op, attr, _unit, _name in _ANALYZER_OPS:
                         got[("sa", op)] = float(getattr(reading.analyzer, attr))
                     if reading.freq_hz is not None:
                         got[("sa", "marker_level")] = reading.freq_hz
@@ -491,6 +504,8 @@ def _offer_outer(check: PortCheck, values: np.ndarray, lay: Layout, which: str) 
 def _amount(value: float, unit: str, precise: bool) -> str:
     if unit == "Hz":
         return format_frequency(value)
+    if not unit:  # a count (averages, channel)
+        return f"{value:g}"
     return f"{value:.2f} {unit}".strip() if precise else f"{value:g} {unit}".strip()
 
 

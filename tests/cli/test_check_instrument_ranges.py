@@ -180,7 +180,7 @@ def test_analyzer_centre_beyond_the_analyzers_profile(tmp_path: Path) -> None:
         'read = ["wanted"]', 'read = ["wanted", { kind = "mxn", order = 3 }]')
     result = check(tmp_path, sequence)
     assert result.exit_code == 2, result.output
-    assert "analyzer centre would be" in result.output
+    assert "analyzer centre frequency would be" in result.output
     assert "the analyzer's profile 'scpi-analyzer'" in result.output
     assert "ops.centre.max) allows at most 13.6 GHz" in result.output
 
@@ -194,9 +194,9 @@ def test_analyzer_averages_beyond_the_analyzers_profile(tmp_path: Path) -> None:
 
 
 @pytest.mark.parametrize(("role", "profile", "kind", "wanted"), [
-    ("sa", "scpi-source", "source", "analyzer"),
-    ("rf", "scpi-analyzer", "analyzer", "source"),
-    ("dc", "thermal-chamber", "chamber", "supply"),
+    ("sa", "scpi-source", "a source", "an analyzer"),
+    ("rf", "scpi-analyzer", "an analyzer", "a source"),
+    ("dc", "thermal-chamber", "a chamber", "a supply"),
 ])
 def test_profile_of_the_wrong_kind_for_a_role(tmp_path: Path, role: str, profile: str,
                                               kind: str, wanted: str) -> None:
@@ -209,7 +209,7 @@ def test_profile_of_the_wrong_kind_for_a_role(tmp_path: Path, role: str, profile
     assert result.exit_code == 2, result.output
     out = result.output
     assert f"bench.toml:{number + 1}: roles.{role}.profile" in out
-    assert f"drives a {kind}" in out and f"takes a {wanted} profile" in out
+    assert f"drives {kind}" in out and f"takes {wanted} profile" in out
     assert "AttributeError" not in out and "internal error" not in out
 
 
