@@ -88,7 +88,9 @@ _CHECK_HELP = (
     "Each file is read with its includes, every key, unit and range is checked, and the pre-"
     "flight safety check runs against the bench (the built-in simulated bench unless --bench "
     "is given): every point's source settings, DUT port powers and predicted analyzer input "
-    "against the bench's limits. Exits 0 when every file is fine, non-zero otherwise (2: a "
+    "against the bench's limits, and every setting the run will send (frequencies, levels, "
+    "voltages, temperatures, switch channels, analyzer settings) against each instrument's "
+    "own range in its driver profile. Exits 0 when every file is fine, non-zero otherwise (2: a "
     "file problem, 3: a safety limit).\n\n"
     "Example:  sweeprig check sequences/demo/quick.toml --bench lab.toml --junit check.xml"
 )
@@ -117,7 +119,7 @@ def check(
     for path in sequences:
         t0 = time.perf_counter()
         try:
-            sequence, _ = check_file(path, loaded_bench, max_points)
+            sequence, report = check_file(path, loaded_bench, max_points)
         except SweeprigError as exc:
             results.append((str(path), time.perf_counter() - t0, exc))
             out.print(Text("FAIL ", style="bold red") + Text(str(path)))
@@ -127,6 +129,8 @@ def check(
         results.append((str(path), time.perf_counter() - t0, None))
         out.print(Text("ok   ", style="bold green") + Text(
             f"{path}  ({sequence.count_points():,} points, within the limits of {bench_name})"))
+        for note in report.notes:
+            out.print(Text(f"  note: {note}"))
     _write_junit(junit, results)
     failed = sum(1 for _, _, e in results if e is not None)
     if failed:
@@ -235,6 +239,8 @@ def plan(
         ports.add_row(c.label, worst, f"{'≤' if c.bound == 'max' else '≥'} {c.limit:g} "
                       f"{c.unit}", margin, at, status)
     out.print(ports)
+    for note in report.notes:
+        out.print(f"note: {note}")
     if not report.ok:
         first = min(report.violations, key=lambda c: c.violation_index or 0)
         raise _fail(safety_error(seq, first))

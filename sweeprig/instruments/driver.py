@@ -33,15 +33,13 @@ import numpy as np
 
 from sweeprig.clock import Clock, WallClock
 from sweeprig.errors import InputError, InstrumentError, SafetyLimitError, TransportError
-from sweeprig.instruments.limits import LIMIT_TOLERANCE, Bound, OpLimits, profile_limits
+from sweeprig.instruments.limits import Bound, OpLimits, profile_limits
 from sweeprig.instruments.profile import DOCS_HINT, Operation, Profile
 from sweeprig.transport import blocks
 from sweeprig.transport.base import Transport
 
 Value = float | int | bool | str
 """A setting's value: float (in the operation's unit), int, bool, or a choice name."""
-
-__all__ = ["LIMIT_TOLERANCE", "Driver", "Value"]
 
 MAX_ERROR_READS = 64
 """Error-queue reads before giving up on an instrument that never answers ``0,...``."""
@@ -199,8 +197,10 @@ class Driver:
             raise SafetyLimitError(
                 what,
                 where=where,
-                fix="lower the setting, or raise the limit only if the part and the bench can "
-                f"take it; {SAFETY_CAUTION}",
+                fix=("change the setting: the instrument cannot go beyond its own range (its "
+                     "driver profile)" if bound.source == "profile" else
+                     "lower the setting, or raise the limit only if the part and the bench can "
+                     "take it") + f"; {SAFETY_CAUTION}",
             )
         raise InputError(
             what,

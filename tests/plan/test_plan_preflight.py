@@ -158,3 +158,23 @@ def test_large_plan_checked_quickly(bench) -> None:
     assert report.points_checked == 10**6
     rf = next(c for c in report.checks if c.label == "rf source setting")
     assert rf.worst == pytest.approx(3.0) and rf.worst_index == 999
+
+
+def test_large_study_has_its_analyzer_settings_checked_at_the_corners(bench) -> None:
+    # reading by reading planning costs about 0.1 ms a point: a 10^6-point study is checked
+    # at the corners of its grid, and the report says so
+    s = seq({"rf_frequency": {"start": "2 GHz", "stop": "3 GHz", "points": 1000},
+             "rf_power": {"start": -30, "stop": 0, "points": 1000}})
+    report = check_limits(s, bench)
+    assert any("corners" in note and "'s'" in note for note in report.notes)
+    centre = next(c for c in report.checks if c.label == "analyzer centre frequency"
+                  and c.bound == "max")
+    assert centre.worst_index == 999_999  # the last corner: 3 GHz
+
+
+def test_small_study_is_checked_reading_by_reading(bench) -> None:
+    report = check_limits(seq({"rf_power": [-30, -20]}), bench)
+    assert report.ok and report.notes == []
+    labels = {c.label for c in report.checks}
+    assert {"rf source frequency", "lo source frequency", "analyzer RBW",
+            "analyzer reference level"} <= labels
