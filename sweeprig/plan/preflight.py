@@ -30,7 +30,7 @@ file's line, the profile's line, or the part's rating.
 from __future__ import annotations
 
 import math
-from collections.abc import Callable, Iterable, Mapping
+from collections.abc import Callable
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -38,22 +38,20 @@ import numpy as np
 from sweeprig.errors import InputError, SafetyLimitError, SweeprigError
 from sweeprig.formats.bench import Bench
 from sweeprig.formats.sequence import Sequence, required_roles
-from sweeprig.instruments.limits import LIMIT_TOLERANCE, Bound, OpLimits, beyond
+from sweeprig.instruments.limits import LIMIT_TOLERANCE, beyond
 from sweeprig.plan import frequencies as fp
-from sweeprig.plan.expand import Layout, PointBuilder, StudyBlock, layout, point_at
+from sweeprig.plan.expand import Layout, StudyBlock, layout, point_at
 from sweeprig.plan.instrument_limits import role_limits, role_profile
+from sweeprig.plan.instrument_settings import CAUTION, check_bench_settings, reading_settings
 from sweeprig.units import format_frequency
 
 #: Points evaluated per numpy batch.
 CHUNK = 1 << 18
 #: Tolerance of "≤ limit" against float noise (relative above 1): the drivers' own.
 TOLERANCE = LIMIT_TOLERANCE
-#: Points per study whose analyzer and power-meter settings are worked out one by one (about
-#: 0.1 ms each); a larger study is checked at the corners of its grid (said in the report).
-EXACT_READING_POINTS = 50_000
 
-CAUTION = ("Caution: RF power can damage the DUT and the analyzer; check the attenuators and "
-           "path losses, and follow your lab's rules.")
+__all__ = ["CAUTION", "PortCheck", "PreflightReport", "check_limits", "check_roles", "preflight",
+           "safety_error"]
 
 
 @dataclass
@@ -262,7 +260,7 @@ def check_limits(sequence: Sequence, bench: Bench) -> PreflightReport:
         for c in op_checks("chamber", "setpoint", "chamber set point", port="chamber",
                            unit="degC"):
             _offer_outer(c, temps, lay, which="temperature")
-    _check_bench_settings(sequence, bench, roles, limits)
+    check_bench_settings(sequence, bench, roles, limits)
 
     part = sequence.part
     g = part.expected_gain
@@ -330,157 +328,21 @@ def check_limits(sequence: Sequence, bench: Bench) -> PreflightReport:
                 for f in [f_rf] + ([f2] if two else []):
                     parts.append(p_rf - _loss(bench, sequence, block, "rf_port", f))
                 sa_rf._offer(_power_sum(*parts), index_of)
-    _check_readings(sequence, bench, lay, profiles, limits, report)
+    settings, notes = reading_settings(sequence, bench, lay, profiles, limits)
+    report.notes.extend(notes)
+    for found in settings:
+        for b in (found.limits.high, found.limits.low):
+            if b is not None:
+                c = PortCheck(found.label, found.unit, b.value, b.origin, b.side, found.role,
+                              safety=found.safety, source=b.source)
+                report.checks.append(c)
+                c._offer(found.values, lambda k, _idx=found.indices: int(_idx[k]))  # type: ignore[misc]
     return report
 
 
 def _offer(checks: list[PortCheck], values: np.ndarray, index_of: Callable[[int], int]) -> None:
     for c in checks:
         c._offer(np.asarray(values, dtype=float), index_of)
-
-
-#: Said with a refused bench-file setting, per operation (RF power has :data:`CAUTION`).
-_SETTING_CAUTION = {
-    "voltage": "Caution: too much supply voltage can destroy the part.",
-    "current_limit": "Caution: a current limit above what the part takes cannot protect it.",
-    "setpoint": "Caution: a chamber beyond its range or the part's can damage both.",
-}
-
-
-def _refuse_setting(limits: OpLimits, bound: Bound, value: float, safety: bool, what: str,
-                    where: str, op: str) -> None:
-    """Raise the error a driver would raise for a bench-file setting past ``bound``."""
-    symbol = "degC" if limits.unit == "°C" else limits.unit
-    amount = f"{value:g} {symbol}".strip()
-    problem = "above the maximum" if bound.side == "max" else "below the minimum"
-    message = f"{what} {amount} is {problem}: {bound.describe(symbol)}"
-    if safety:
-        raise SafetyLimitError(
-            f"{message}. {_SETTING_CAUTION.get(op, CAUTION)}", where=where,
-            fix="change the setting in the bench file"
-            + (" (the instrument cannot go beyond its own range, its driver profile)"
-               if bound.source == "profile" else ", or raise the limit only if the part and "
-               "the bench can take it"))
-    raise InputError(message, where=where,
-                     fix="choose a value inside the instrument's range (its driver profile)"
-                     if bound.source == "profile" else "choose a value inside the limits")
-
-
-def _check_bench_settings(sequence: Sequence, bench: Bench, roles: Mapping[str, str],
-                          limits: Mapping[str, Mapping[str, OpLimits]]) -> None:
-    """Settings the run sends from the bench file itself: the safe state (supply voltage,
-    chamber idle set point), the supply's current limit, the switch channels."""
-    def setting(role: str, op: str, value: float, what: str, key: tuple[str, ...],
-                safety: bool) -> None:
-        found = limits.get(role, {}).get(op)
-        bound = None if found is None else found.refusal(value)
-        if found is not None and bound is not None:
-            _refuse_setting(found, bound, value, safety, what, bench.where(key), op)
-
-    state = bench.safe_state
-    if "dc" in roles:
-        if isinstance(state.supply, float):
-            setting("dc", "voltage", state.supply, "the safe-state supply voltage",
-                    ("safe_state", "supply"), safety=True)
-        if bench.limits.supply_max_current is not None:
-            setting("dc", "current_limit", float(bench.limits.supply_max_current),
-                    "the supply's current limit", ("limits", "supply_max_current"), safety=True)
-    if "chamber" in roles and isinstance(state.chamber, float):
-        setting("chamber", "setpoint", state.chamber, "the safe-state chamber set point",
-                ("safe_state", "chamber"), safety=True)
-    if "switch" in roles:
-        ports = {"rf" if kind == "lo_at_rf" else "if"
-                 for kind in sequence.reading_kinds() - {"supply_current", "input_power"}}
-        spec = bench.role("switch")
-        for port in sorted(ports):
-            given = spec is not None and spec.channels is not None and port in spec.channels
-            key = ("roles", "switch", "channels", port) if given else ("roles", "switch")
-            what = f"the {port.upper()} port's switch channel" + (
-                "" if given else " (by default)")
-            setting("switch", "channel", float(bench.switch_channel(port)),
-                    what, key, safety=False)
-
-
-#: Analyzer operation → the reading's setting it is sent, its unit and its name in messages.
-_ANALYZER_OPS: tuple[tuple[str, str, str, str], ...] = (
-    ("centre", "center_hz", "Hz", "centre frequency"), ("span", "span_hz", "Hz", "span"),
-    ("rbw", "rbw_hz", "Hz", "RBW"), ("ref_level", "reference_level_dbm", "dBm",
-                                     "reference level"),
-    ("attenuation", "attenuation_db", "dB", "attenuation"), ("averages", "averages", "",
-                                                             "averages"),
-)
-
-
-def _check_readings(sequence: Sequence, bench: Bench, lay: Layout,
-                    profiles: Mapping[str, object], limits: Mapping[str, Mapping[str, OpLimits]],
-                    report: PreflightReport) -> None:
-    """Every analyzer and power-meter setting of every reading against the instrument's
-    range, planned exactly as the run plans it (readings do not depend on the temperature or
-    supply, so the first pass stands for all)."""
-    wanted: list[tuple[str, str, str, str]] = []  # (role, op, label, unit)
-    if "sa" in profiles:
-        for op, _attr, unit, name in _ANALYZER_OPS:
-            if op in limits["sa"] and limits["sa"][op].bounds:
-                wanted.append(("sa", op, f"analyzer {name}", unit))
-        if "marker_level" in limits["sa"] and limits["sa"]["marker_level"].bounds:
-            wanted.append(("sa", "marker_level", "analyzer marker frequency", "Hz"))
-    if "pm" in profiles and "frequency" in limits["pm"] and limits["pm"]["frequency"].bounds:
-        wanted.append(("pm", "frequency", "power meter frequency", "Hz"))
-    if not wanted:
-        return
-    values: dict[tuple[str, str], list[float]] = {(r, op): [] for r, op, _, _ in wanted}
-    indices: dict[tuple[str, str], list[int]] = {(r, op): [] for r, op, _, _ in wanted}
-    builder = PointBuilder(sequence, bench)
-    for block in lay.blocks:
-        base = lay.first_index(0, 0, block)
-        if block.count <= EXACT_READING_POINTS:
-            local_points: Iterable[int] = range(block.count)
-        else:
-            local_points = _corners(block)
-            report.notes.append(
-                f"study {block.study.name!r} has {block.count:,} points per pass: its analyzer "
-                f"and power-meter settings were checked at the {len(local_points):,} corners "
-                "of its grid only")
-        for local in local_points:
-            point = builder.point(base + local)
-            for reading in point.readings:
-                got: dict[tuple[str, str], float] = {}
-                if reading.instrument == "sa" and reading.analyzer is not None:
-                    for op, attr, _unit, _name in _ANALYZER_OPS:
-                        got[("sa", op)] = float(getattr(reading.analyzer, attr))
-                    if reading.freq_hz is not None:
-                        got[("sa", "marker_level")] = reading.freq_hz
-                elif reading.instrument == "pm":
-                    got[("pm", "frequency")] = (reading.freq_hz if reading.freq_hz is not None
-                                                else point.rf_freq_hz)
-                for key, value in got.items():
-                    if key in values:
-                        values[key].append(value)
-                        indices[key].append(point.index)
-    for role, op, label, unit in wanted:
-        found = limits[role][op]
-        safety = profiles[role].op(op).spec.safety  # type: ignore[attr-defined]
-        idx = indices[(role, op)]
-        for b in (found.high, found.low):
-            if b is None:
-                continue
-            c = PortCheck(label, unit, b.value, b.origin, b.side, role, safety=safety,
-                          source=b.source)
-            report.checks.append(c)
-            c._offer(np.asarray(values[(role, op)], dtype=float),
-                     lambda k, _idx=idx: _idx[k])  # type: ignore[misc]
-
-
-def _corners(block: StudyBlock) -> list[int]:
-    """Local indices of the corners of a study's grid (first and last value of each axis)."""
-    corners = {0}
-    for axis_no in range(len(block.axes)):
-        stride = 1
-        for later in block.axes[axis_no + 1:]:
-            stride *= later.count
-        last = (block.axes[axis_no].count - 1) * stride
-        corners |= {c + last for c in corners}
-    return sorted(corners)
 
 
 def _axis_values(block: StudyBlock, local: np.ndarray) -> dict[str, np.ndarray]:
