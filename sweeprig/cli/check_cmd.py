@@ -26,7 +26,7 @@ from sweeprig.formats.schema import json_schema_text
 from sweeprig.formats.sequence import DEFAULT_MAX_POINTS, Sequence, load_sequence
 from sweeprig.plan.duration import estimate_duration, format_duration
 from sweeprig.plan.expand import layout
-from sweeprig.plan.preflight import PreflightReport, check_limits, safety_error
+from sweeprig.plan.preflight import PreflightReport, check_limits, format_amount, safety_error
 
 # -- where the shipped files are --------------------------------------------------------------
 
@@ -229,15 +229,18 @@ def plan(
     out.print(timing)
 
     ports = Table(title="Predicted maxima against the limits", title_justify="left")
-    for col in ("check", "predicted", "limit", "margin", "at point", "status"):
-        ports.add_column(col, justify="left" if col in ("check", "status") else "right")
+    for col in ("check", "predicted", "limit", "margin", "at point", "status", "limit set by"):
+        ports.add_column(col, justify="left" if col in ("check", "status", "limit set by")
+                         else "right")
     for c in report.checks:
-        worst = "-" if c.worst_index is None else f"{c.worst:.2f} {c.unit}"
-        margin = "-" if math.isinf(c.margin) else f"{c.margin:.2f}"
+        worst = "-" if c.worst_index is None else format_amount(c.worst, c.unit)
+        margin = "-" if math.isinf(c.margin) else format_amount(
+            c.margin, "dB" if c.unit == "dBm" else c.unit)  # a distance between levels: dB
         at = "-" if c.worst_index is None else str(c.worst_index)
         status = Text("ok", style="green") if c.ok else Text("OVER LIMIT", style="bold red")
-        ports.add_row(c.label, worst, f"{'≤' if c.bound == 'max' else '≥'} {c.limit:g} "
-                      f"{c.unit}", margin, at, status)
+        ports.add_row(c.label, worst, f"{'≤' if c.bound == 'max' else '≥'} "
+                      f"{format_amount(c.limit, c.unit, precise=False)}", margin, at, status,
+                      c.limit_key.split(" (")[0])
     out.print(ports)
     for note in report.notes:
         out.print(f"note: {note}")

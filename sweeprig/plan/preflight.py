@@ -50,8 +50,8 @@ CHUNK = 1 << 18
 #: Tolerance of "≤ limit" against float noise (relative above 1): the drivers' own.
 TOLERANCE = LIMIT_TOLERANCE
 
-__all__ = ["CAUTION", "PortCheck", "PreflightReport", "check_limits", "check_roles", "preflight",
-           "safety_error"]
+__all__ = ["CAUTION", "PortCheck", "PreflightReport", "check_limits", "check_roles",
+           "format_amount", "preflight", "safety_error"]
 
 
 @dataclass
@@ -363,7 +363,9 @@ def _offer_outer(check: PortCheck, values: np.ndarray, lay: Layout, which: str) 
     check._offer(np.asarray(values, dtype=float), index_of)
 
 
-def _amount(value: float, unit: str, precise: bool) -> str:
+def format_amount(value: float, unit: str, precise: bool = True) -> str:
+    """A value for messages and tables: frequencies scaled (``2.4 GHz``), counts bare, other
+    units with two decimals (``precise``) or as short as exact."""
     if unit == "Hz":
         return format_frequency(value)
     if not unit:  # a count (averages, channel)
@@ -379,9 +381,9 @@ def safety_error(sequence: Sequence, check: PortCheck) -> SweeprigError:
     point = point_at(sequence, check.violation_index)
     word = "above" if check.bound == "max" else "below"
     allows = "at most" if check.bound == "max" else "at least"
-    what = (f"{check.label} would be {_amount(check.violation_value, check.unit, True)}, "
-            f"{word} the limit {_amount(check.limit, check.unit, False)}: {check.limit_key} "
-            f"allows {allows} {_amount(check.limit, check.unit, False)}; first at "
+    limit = format_amount(check.limit, check.unit, precise=False)
+    what = (f"{check.label} would be {format_amount(check.violation_value, check.unit)}, "
+            f"{word} the limit {limit}: {check.limit_key} allows {allows} {limit}; first at "
             f"{point.describe()}")
     where = sequence.where(("study", point.study_index))
     if not check.safety:
