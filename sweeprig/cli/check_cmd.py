@@ -26,7 +26,7 @@ from sweeprig.formats.schema import json_schema_text
 from sweeprig.formats.sequence import DEFAULT_MAX_POINTS, Sequence, load_sequence
 from sweeprig.plan.duration import estimate_duration, format_duration
 from sweeprig.plan.expand import layout
-from sweeprig.plan.preflight import PreflightReport, check_limits, safety_error
+from sweeprig.plan.preflight import PreflightReport, check_limits, format_amount, safety_error
 
 # -- where the shipped files are --------------------------------------------------------------
 
@@ -88,7 +88,9 @@ _CHECK_HELP = (
     "Each file is read with its includes, every key, unit and range is checked, and the pre-"
     "flight safety check runs against the bench (the built-in simulated bench unless --bench "
     "is given): every point's source settings, DUT port powers and predicted analyzer input "
-    "against the bench's limits. Exits 0 when every file is fine, non-zero otherwise (2: a "
+    "against the bench's limits, and every setting the run will send (frequencies, levels, "
+    "voltages, temperatures, switch channels, analyzer settings) against each instrument's "
+    "own range in its driver profile. Exits 0 when every file is fine, non-zero otherwise (2: a "
     "file problem, 3: a safety limit).\n\n"
     "Example:  sweeprig check sequences/demo/quick.toml --bench lab.toml --junit check.xml"
 )
@@ -117,7 +119,7 @@ def check(
     for path in sequences:
         t0 = time.perf_counter()
         try:
-            sequence, _ = check_file(path, loaded_bench, max_points)
+            sequence, report = check_file(path, loaded_bench, max_points)
         except SweeprigError as exc:
             results.append((str(path), time.perf_counter() - t0, exc))
             out.print(Text("FAIL ", style="bold red") + Text(str(path)))
@@ -127,6 +129,8 @@ def check(
         results.append((str(path), time.perf_counter() - t0, None))
         out.print(Text("ok   ", style="bold green") + Text(
             f"{path}  ({sequence.count_points():,} points, within the limits of {bench_name})"))
+        for note in report.notes:
+            out.print(Text(f"  note: {note}"))
     _write_junit(junit, results)
     failed = sum(1 for _, _, e in results if e is not None)
     if failed:
@@ -225,16 +229,21 @@ def plan(
     out.print(timing)
 
     ports = Table(title="Predicted maxima against the limits", title_justify="left")
-    for col in ("check", "predicted", "limit", "margin", "at point", "status"):
-        ports.add_column(col, justify="left" if col in ("check", "status") else "right")
+    for col in ("check", "predicted", "limit", "margin", "at point", "status", "limit set by"):
+        ports.add_column(col, justify="left" if col in ("check", "status", "limit set by")
+                         else "right")
     for c in report.checks:
-        worst = "-" if c.worst_index is None else f"{c.worst:.2f} {c.unit}"
-        margin = "-" if math.isinf(c.margin) else f"{c.margin:.2f}"
+        worst = "-" if c.worst_index is None else format_amount(c.worst, c.unit)
+        margin = "-" if math.isinf(c.margin) else format_amount(
+            c.margin, "dB" if c.unit == "dBm" else c.unit)  # a distance between levels: dB
         at = "-" if c.worst_index is None else str(c.worst_index)
         status = Text("ok", style="green") if c.ok else Text("OVER LIMIT", style="bold red")
-        ports.add_row(c.label, worst, f"{'≤' if c.bound == 'max' else '≥'} {c.limit:g} "
-                      f"{c.unit}", margin, at, status)
+        ports.add_row(c.label, worst, f"{'≤' if c.bound == 'max' else '≥'} "
+                      f"{format_amount(c.limit, c.unit, precise=False)}", margin, at, status,
+                      c.limit_key.split(" (")[0])
     out.print(ports)
+    for note in report.notes:
+        out.print(f"note: {note}")
     if not report.ok:
         first = min(report.violations, key=lambda c: c.violation_index or 0)
         raise _fail(safety_error(seq, first))

@@ -26,9 +26,9 @@ from sweeprig.instruments import (
     SourceDriver,
     SupplyDriver,
     SwitchDriver,
-    load_profile,
     make_driver,
 )
+from sweeprig.plan.instrument_limits import bench_bounds, role_profile
 from sweeprig.transport.base import Transaction, Transport
 from sweeprig.transport.visa import VisaTransport
 
@@ -108,6 +108,7 @@ def open_bench(
         for role in wanted:
             if role == "simctl" and bench.role("simctl") is None:
                 resource, profile_name = resources["simctl"], "sim-control"
+                profile = role_profile(bench, role, profile_name)
             else:
                 spec = bench.role(role)
                 if spec is None:
@@ -118,8 +119,7 @@ def open_bench(
                         fix=f"add roles.{role} = {{ resource = \"...\", profile = \"...\" }}",
                     )
                 resource = resources.get(role, spec.resource)
-                profile_name = spec.profile
-            profile = load_profile(profile_name)
+                profile = role_profile(bench, role)  # of the kind the role takes
             transport = VisaTransport(
                 resource,
                 visa_library=bench.bench.visa_library,
@@ -164,25 +164,9 @@ def _identify(driver: Driver, lock: BenchLock | None = None) -> list[str]:
 
 
 def _apply_bench_limits(bench: Bench, drivers: BenchDrivers) -> None:
-    """Narrow the drivers' limits to the bench file's safety limits (never widen)."""
-    limits = bench.limits
-    source_max = limits.source_max_power
-    for role in SOURCE_ROLES:
-        driver: SourceDriver | None = getattr(drivers, role)
-        value = getattr(source_max, role, None)
-        if driver is not None and value is not None:
-            driver.tighten_limit("power", max_value=float(value))
-    if drivers.dc is not None:
-        caps = [v for v in (limits.supply_max_voltage, limits.part.supply_max) if v is not None]
-        if caps:
-            drivers.dc.tighten_limit("voltage", max_value=min(float(v) for v in caps))
-        if limits.supply_max_current is not None:
-            drivers.dc.tighten_limit("current_limit", max_value=float(limits.supply_max_current))
-    if drivers.chamber is not None and (
-        limits.chamber_min is not None or limits.chamber_max is not None
-    ):
-        drivers.chamber.tighten_limit(
-            "setpoint",
-            min_value=None if limits.chamber_min is None else float(limits.chamber_min),
-            max_value=None if limits.chamber_max is None else float(limits.chamber_max),
-        )
+    """Narrow the drivers' limits to the bench file's safety limits and the part's ratings
+    (never widen), the same bounds the pre-flight check uses (each naming its origin)."""
+    for role, driver in drivers.items():
+        for op, bounds in bench_bounds(bench, role).items():
+            for bound in bounds:
+                driver.add_bound(op, bound)

@@ -8,9 +8,10 @@ gives, and adds what every kind needs:
   last-sent values, :meth:`Driver.state`; :meth:`Driver.forget_state` empties it and must be
   called after a reset, a reconnect or anything else that may change the instrument behind
   the driver's back);
-* limits from the profile (and any tighter ones from :meth:`Driver.tighten_limit`) are checked
-  before anything is sent: :class:`SafetyLimitError` for powers, voltages and currents,
-  :class:`InputError` otherwise;
+* limits from the profile (and any tighter ones from :meth:`Driver.tighten_limit`, such as the
+  bench file's) are checked before anything is sent, each bound naming where it was written
+  (:mod:`sweeprig.instruments.limits`, shared with the pre-flight check):
+  :class:`SafetyLimitError` for powers, voltages and currents, :class:`InputError` otherwise;
 * :meth:`Driver.check_errors` drains the error queue and raises :class:`InstrumentError`
   naming the role, the commands sent since the previous check and the instrument's text;
 * ``transactions`` counts SCPI exchanges (writes and queries, completion waits included).
@@ -32,16 +33,13 @@ import numpy as np
 
 from sweeprig.clock import Clock, WallClock
 from sweeprig.errors import InputError, InstrumentError, SafetyLimitError, TransportError
-from sweeprig.instruments.ops import UNIT_SYMBOL, OpSpec
+from sweeprig.instruments.limits import Bound, OpLimits, profile_limits
 from sweeprig.instruments.profile import DOCS_HINT, Operation, Profile
 from sweeprig.transport import blocks
 from sweeprig.transport.base import Transport
 
 Value = float | int | bool | str
 """A setting's value: float (in the operation's unit), int, bool, or a choice name."""
-
-LIMIT_TOLERANCE = 1e-9
-"""Relative float tolerance of limit checks (matches the pre-flight check's)."""
 
 MAX_ERROR_READS = 64
 """Error-queue reads before giving up on an instrument that never answers ``0,...``."""
@@ -88,7 +86,7 @@ class Driver:
         self.settings_skipped = 0
         """Settings not sent because the instrument already had them."""
         self._cache: dict[str, tuple[Value, str]] = {}
-        self._limits: dict[str, tuple[float | None, float | None]] = {}
+        self._limits: dict[str, OpLimits] = {}
         self._block: deque[str] = deque(maxlen=_BLOCK_KEPT)
         self._block_count = 0
         self._block_ops: set[str] = set()
@@ -125,24 +123,31 @@ class Driver:
     # -- values and limits ------------------------------------------------------------------
 
     def tighten_limit(
-        self, op: str, *, min_value: float | None = None, max_value: float | None = None
+        self, op: str, *, min_value: float | None = None, max_value: float | None = None,
+        origin: str = "the bench file", source: str = "bench",
     ) -> None:
-        """Narrow the profile's limits for ``op`` (e.g. to the bench's safe maximum power).
+        """Narrow the limits for ``op`` (e.g. to the bench's safe maximum power); ``origin``
+        names who sets the new bound and where, for messages.
 
         Limits can only get tighter: the profile's own range still applies.
         """
-        operation = self.profile.op(op)
-        low, high = self._limits.get(op, (operation.min, operation.max))
-        if min_value is not None:
-            low = min_value if low is None else max(low, min_value)
-        if max_value is not None:
-            high = max_value if high is None else min(high, max_value)
-        self._limits[op] = (low, high)
+        for side, value in (("min", min_value), ("max", max_value)):
+            if value is not None:
+                self.add_bound(op, Bound(float(value), side, source, origin))  # type: ignore[arg-type]
+
+    def add_bound(self, op: str, bound: Bound) -> None:
+        """Add ``bound`` to the limits of ``op`` (every bound holds: never a widening)."""
+        self._limits[op] = self.op_limits(op).with_bound(bound)
+
+    def op_limits(self, op: str) -> OpLimits:
+        """Every bound in force for ``op``, each naming its origin."""
+        if op not in self._limits:
+            self._limits[op] = profile_limits(self.profile, op, self.role)
+        return self._limits[op]
 
     def limits(self, op: str) -> tuple[float | None, float | None]:
         """The (min, max) in force for ``op``, in its unit (None = no limit)."""
-        operation = self.profile.op(op)
-        return self._limits.get(op, (operation.min, operation.max))
+        return self.op_limits(op).as_pair()
 
     def _checked(self, operation: Operation, value: object) -> Value:
         spec = operation.spec
@@ -180,36 +185,29 @@ class Driver:
 
     def _check_limits(self, operation: Operation, number: float, where: str) -> None:
         spec = operation.spec
-        low, high = self._limits.get(spec.name, (operation.min, operation.max))
-        symbol = UNIT_SYMBOL.get(spec.unit, "")
-        unit = f" {symbol}" if symbol else ""
-        # The same float noise the pre-flight check allows (0.1 dBm + 0.2 dB of loss is
-        # 0.30000000000000004 dBm): a setting exactly at its limit is within it.
-        slack = LIMIT_TOLERANCE * max(1.0, abs(number))
-        if high is not None and number > high + slack:
-            problem, bound = "above the maximum", high
-        elif low is not None and number < low - slack:
-            problem, bound = "below the minimum", low
-        else:
+        limits = self.op_limits(spec.name)
+        bound = limits.refusal(number)
+        if bound is None:
             return
-        what = f"{spec.summary.split(',')[0]} {number:g}{unit} is {problem} {bound:g}{unit}"
+        unit = f" {limits.unit}" if limits.unit else ""
+        problem = "above the maximum" if bound.side == "max" else "below the minimum"
+        what = (f"{spec.summary.split(',')[0]} {number:g}{unit} is {problem}: "
+                f"{bound.describe(limits.unit)} (nothing was sent)")
         if spec.safety:
             raise SafetyLimitError(
-                what + " (nothing was sent)",
-                where=f"{where} (limit from {self._limit_origin(spec)})",
-                fix=f"lower the setting, or raise the limit only if the part and the bench can "
-                f"take it; {SAFETY_CAUTION}",
+                what,
+                where=where,
+                fix=("change the setting: the instrument cannot go beyond its own range (its "
+                     "driver profile)" if bound.source == "profile" else
+                     "lower the setting, or raise the limit only if the part and the bench can "
+                     "take it") + f"; {SAFETY_CAUTION}",
             )
         raise InputError(
-            what + " (nothing was sent)",
-            where=f"{where} (limit from {self._limit_origin(spec)})",
-            fix="choose a value inside the instrument's range",
+            what,
+            where=where,
+            fix="choose a value inside the instrument's range (its driver profile)"
+            if bound.source == "profile" else "choose a value inside the bench file's limits",
         )
-
-    def _limit_origin(self, spec: OpSpec) -> str:
-        if spec.name in self._limits:
-            return "the bench's limits"
-        return f"driver profile {self.profile.name!r}, ops.{spec.name}"
 
     # -- operations -------------------------------------------------------------------------
 

@@ -156,7 +156,7 @@ KIND_OPS: dict[str, dict[str, OpSpec]] = {
     "chamber": {
         s.name: s
         for s in (
-            _setting("setpoint", "float", "temperature", "set point, °C"),
+            _setting("setpoint", "float", "temperature", "set point, °C", safety=True),
             _setting("control", "bool", None, "conditioning on/off"),
             _setting("ramp", "float", None, "air ramp rate, °C/min", required=False),
             OpSpec("probe", "query", "DUT probe temperature, °C", reply="float"),

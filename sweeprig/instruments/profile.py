@@ -144,6 +144,10 @@ class Operation:
     mask: int | None = None
     completion: Completion | None = None
     timeout_s: float | None = None
+    min_line: int | None = None
+    """Line of ``min`` in the profile file (for messages naming where a limit comes from)."""
+    max_line: int | None = None
+    """Line of ``max`` in the profile file."""
 
     def render_value(self, value: object) -> str:
         """The SCPI token for an already validated ``value`` (floats as ``%.12g``)."""
@@ -547,6 +551,8 @@ def _build_op(
         mask=model.mask,
         completion=completion,
         timeout_s=model.timeout_s,
+        min_line=key_line(text, ("ops", name, "min")) if explicit and low is not None else None,
+        max_line=key_line(text, ("ops", name, "max")) if explicit and high is not None else None,
     )
 
 

@@ -12,7 +12,16 @@ For every point of the plan (vectorised per study, so large plans stay quick):
   isolation the part file does not give counts as 0 dB (the safe side);
 * power-meter input ≤ ``limits.power_meter_max_input`` (when the sequence reads it);
 * supply set points ≤ ``limits.supply_max_voltage`` and the part's ``supply_max``;
-* chamber set points within ``limits.chamber_min`` .. ``limits.chamber_max``.
+* chamber set points within ``limits.chamber_min`` .. ``limits.chamber_max``;
+* every setting the drivers will be asked for — source frequencies and levels, supply voltage
+  and current limit, chamber set points (the safe state's included), switch channels,
+  analyzer centre, span, RBW, reference level, attenuation and averages, power-meter
+  frequency — within the range of the role's own driver profile (the instrument's).
+
+Each role's profile must be of the kind the role takes. The limits are the very objects the
+drivers refuse with (:mod:`sweeprig.plan.instrument_limits`), so a plan that passes here is
+not refused by a driver's limit at run time, and each refusal names its origin: the bench
+file's line, the profile's line, or the part's rating.
 
 :func:`preflight` raises :class:`~sweeprig.errors.SafetyLimitError` on the first violation;
 :func:`check_limits` returns the full :class:`PreflightReport` (per-port maxima) either way.
@@ -26,19 +35,23 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from sweeprig.errors import InputError, SafetyLimitError
+from sweeprig.errors import InputError, SafetyLimitError, SweeprigError
 from sweeprig.formats.bench import Bench
 from sweeprig.formats.sequence import Sequence, required_roles
+from sweeprig.instruments.limits import LIMIT_TOLERANCE, beyond
 from sweeprig.plan import frequencies as fp
 from sweeprig.plan.expand import Layout, StudyBlock, layout, point_at
+from sweeprig.plan.instrument_limits import role_limits, role_profile
+from sweeprig.plan.instrument_settings import CAUTION, check_bench_settings, reading_settings
+from sweeprig.units import format_frequency
 
 #: Points evaluated per numpy batch.
 CHUNK = 1 << 18
-#: Tolerance of "≤ limit" against float noise, in the limit's unit.
-TOLERANCE = 1e-9
+#: Tolerance of "≤ limit" against float noise (relative above 1): the drivers' own.
+TOLERANCE = LIMIT_TOLERANCE
 
-CAUTION = ("Caution: RF power can damage the DUT and the analyzer; check the attenuators and "
-           "path losses, and follow your lab's rules.")
+__all__ = ["CAUTION", "PortCheck", "PreflightReport", "check_limits", "check_roles",
+           "format_amount", "preflight", "safety_error"]
 
 
 @dataclass
@@ -46,8 +59,11 @@ class PortCheck:
     """One limit checked over the whole plan.
 
     ``label``: what is checked ("lo source setting", "analyzer input (IF port)" ...).
-    ``unit``: "dBm", "V" or "degC". ``limit``: the bound; ``limit_key``: the bench key that
-    sets it, with file and line. ``bound``: "max" or "min". ``worst``: the largest predicted
+    ``source``: who sets the limit: "bench", "part" or "profile" (the instrument's range).
+    ``unit``: "dBm", "V", "degC", "Hz"... ``limit``: the bound; ``limit_key``: who sets it
+    and where (bench file line, driver profile line or part rating). ``bound``: "max" or
+    "min". ``safety``: a refusal is a safety-limit error (powers, voltages, currents), else an
+    input error (an instrument's range). ``worst``: the largest predicted
     value (smallest for a "min" bound), at point ``worst_index``. ``violation_index`` and
     ``violation_value``: the first point (in index order) past the limit, if any.
     """
@@ -58,6 +74,8 @@ class PortCheck:
     limit_key: str
     bound: str = "max"
     port: str = ""
+    safety: bool = True
+    source: str = "bench"
     worst: float = -math.inf
     worst_index: int | None = None
     violation_index: int | None = None
@@ -81,11 +99,10 @@ class PortCheck:
         if self.bound == "max":
             k = int(np.argmax(values))
             better = self.worst_index is None or values[k] > self.worst
-            bad = np.nonzero(values > self.limit + TOLERANCE)[0]
         else:
             k = int(np.argmin(values))
             better = self.worst_index is None or values[k] < self.worst
-            bad = np.nonzero(values < self.limit - TOLERANCE)[0]
+        bad = np.nonzero(beyond(values, self.limit, self.bound))[0]  # type: ignore[arg-type]
         if better:
             self.worst = float(values[k])
             self.worst_index = index_of(k)
@@ -102,6 +119,8 @@ class PreflightReport:
 
     checks: list[PortCheck] = field(default_factory=list)
     points_checked: int = 0
+    notes: list[str] = field(default_factory=list)
+    """What was checked less than exactly (a study too large to plan reading by reading)."""
 
     @property
     def ok(self) -> bool:
@@ -158,13 +177,18 @@ def _power_sum(*levels_dbm: np.ndarray) -> np.ndarray:
 
 
 def check_limits(sequence: Sequence, bench: Bench) -> PreflightReport:
-    """Evaluate every limit over every point; never raises SafetyLimitError.
+    """Evaluate every limit over every point; SafetyLimitError only for a bench-file setting
+    that no point carries (the safe state's supply voltage, the current limit).
 
     Raises InputError when a limit that the sequence needs is missing from the bench file,
-    when a role is missing, or when a path-loss table does not cover a frequency used.
+    when a role is missing or has a profile of the wrong kind, when a path-loss table does
+    not cover a frequency used, or when a bench-file setting (safe state, switch channel) is
+    outside its instrument's range.
     """
     check_roles(sequence, bench)
     roles = required_roles(sequence)
+    profiles = {r: role_profile(bench, r) for r in roles}
+    limits = {r: role_limits(bench, r, p) for r, p in profiles.items()}
     lim = bench.limits
     lay = layout(sequence)
     report = PreflightReport(points_checked=lay.total)
@@ -172,13 +196,35 @@ def check_limits(sequence: Sequence, bench: Bench) -> PreflightReport:
     def check(label: str, unit: str, value: float | None, key: tuple[str, ...], why: str,
               bound: str = "max", port: str = "") -> PortCheck:
         limit = _need(bench, value, key, why)
-        c = PortCheck(label, unit, limit, bench.where(key), bound, port)
+        origin = (f"the part's rating ({bench.where(key)})" if key[:2] == ("limits", "part")
+                  else f"the bench file ({bench.where(key)})")
+        c = PortCheck(label, unit, limit, origin, bound, port)
         report.checks.append(c)
         return c
 
-    src = {r: check(f"{r} source setting", "dBm", getattr(lim.source_max_power, r),
-                    ("limits", "source_max_power", r), f"the {r} source", port=r)
+    def op_checks(role: str, op: str, label: str, port: str = "", unit: str | None = None
+                  ) -> list[PortCheck]:
+        """One check per side of ``role``'s limits on ``op`` (the drivers' own bounds)."""
+        found = limits.get(role, {}).get(op)
+        if found is None:
+            return []
+        safety = profiles[role].op(op).spec.safety
+        out = []
+        for b in (found.high, found.low):
+            if b is not None:
+                out.append(PortCheck(label, unit or found.unit, b.value, b.origin, b.side,
+                                     port, safety=safety, source=b.source))
+        report.checks.extend(out)
+        return out
+
+    for r in ("rf", "rf2", "lo"):
+        if r in roles:
+            _need(bench, getattr(lim.source_max_power, r), ("limits", "source_max_power", r),
+                  f"the {r} source")
+    src = {r: op_checks(r, "power", f"{r} source setting", port=r, unit="dBm")
            for r in ("rf", "rf2", "lo") if r in roles}
+    src_f = {r: op_checks(r, "frequency", f"{r} source frequency", port=r, unit="Hz")
+             for r in ("rf", "rf2", "lo") if r in roles}
     dut_rf = check("DUT RF input (all tones)", "dBm", lim.part.rf_input_max,
                    ("limits", "part", "rf_input_max"), "driving the DUT RF port", port="rf")
     dut_lo = check("DUT LO input", "dBm", lim.part.lo_input_max,
@@ -197,23 +243,24 @@ def check_limits(sequence: Sequence, bench: Bench) -> PreflightReport:
                    ("limits", "power_meter_max_input"), "the power meter", port="rf")
     if sequence.conditions.supply is not None:
         assert lay.supplies is not None
-        volts = lay.supplies.all_values()
-        for value, key, label in (
-                (lim.supply_max_voltage, ("limits", "supply_max_voltage"), "bench limit"),
-                (lim.part.supply_max, ("limits", "part", "supply_max"), "part rating")):
-            c = check(f"supply voltage ({label})", "V", value, key, "setting the DUT supply",
-                      port="dc")
-            _offer_outer(c, volts, lay, which="supply")
+        _need(bench, lim.supply_max_voltage, ("limits", "supply_max_voltage"),
+              "setting the DUT supply")
+        _need(bench, lim.part.supply_max, ("limits", "part", "supply_max"),
+              "setting the DUT supply")
         _need(bench, lim.supply_max_current, ("limits", "supply_max_current"),
               "setting the DUT supply")
+        volts = lay.supplies.all_values()
+        for c in op_checks("dc", "voltage", "supply voltage", port="dc", unit="V"):
+            _offer_outer(c, volts, lay, which="supply")
     if sequence.conditions.temperature is not None:
         assert lay.temperatures is not None
+        _need(bench, lim.chamber_max, ("limits", "chamber_max"), "the chamber")
+        _need(bench, lim.chamber_min, ("limits", "chamber_min"), "the chamber")
         temps = lay.temperatures.all_values()
-        for value, key, bound in ((lim.chamber_max, ("limits", "chamber_max"), "max"),
-                                  (lim.chamber_min, ("limits", "chamber_min"), "min")):
-            c = check(f"chamber set point ({bound})", "degC", value, key, "the chamber",
-                      bound=bound, port="chamber")
+        for c in op_checks("chamber", "setpoint", "chamber set point", port="chamber",
+                           unit="degC"):
             _offer_outer(c, temps, lay, which="temperature")
+    check_bench_settings(sequence, bench, roles, limits)
 
     part = sequence.part
     g = part.expected_gain
@@ -239,7 +286,9 @@ def check_limits(sequence: Sequence, bench: Bench) -> PreflightReport:
             def index_of(k: int, _local: np.ndarray = local, _base: int = base) -> int:
                 return _base + int(_local[k])
 
-            src["rf"]._offer(p_rf + _loss(bench, sequence, block, "rf", f_rf), index_of)
+            _offer(src["rf"], p_rf + _loss(bench, sequence, block, "rf", f_rf), index_of)
+            _offer(src_f["rf"], f_rf, index_of)
+            _offer(src_f["lo"], f_lo, index_of)
             if "image" in study_kinds:
                 f_img = fp.image_hz(f_rf, f_lo)
                 if np.any(f_img <= 0):
@@ -249,16 +298,16 @@ def check_limits(sequence: Sequence, bench: Bench) -> PreflightReport:
                         "(2·LO − RF is not above 0)",
                         where=sequence.where(("study", block.study_index, "read")),
                         fix="remove the image reading from this study or change the plan")
-                src["rf"]._offer(p_rf + _loss(bench, sequence, block, "rf", f_img),
-                                 index_of)
-            src["lo"]._offer(p_lo + _loss(bench, sequence, block, "lo", f_lo), index_of)
+                _offer(src["rf"], p_rf + _loss(bench, sequence, block, "rf", f_img), index_of)
+                _offer(src_f["rf"], f_img, index_of)  # the image reading retunes the rf source
+            _offer(src["lo"], p_lo + _loss(bench, sequence, block, "lo", f_lo), index_of)
             rf_total = p_rf + (10.0 * math.log10(2.0) if two else 0.0)
             dut_rf._offer(rf_total, index_of)
             dut_lo._offer(np.asarray(p_lo, dtype=float), index_of)
             if two:
                 assert f2 is not None
-                src["rf2"]._offer(p_rf + _loss(bench, sequence, block, "rf2", f2),
-                                  index_of)
+                _offer(src["rf2"], p_rf + _loss(bench, sequence, block, "rf2", f2), index_of)
+                _offer(src_f["rf2"], f2, index_of)
             if pm is not None and "input_power" in study_kinds:
                 pm._offer(rf_total, index_of)
             if sa_if is not None:
@@ -279,7 +328,21 @@ def check_limits(sequence: Sequence, bench: Bench) -> PreflightReport:
                 for f in [f_rf] + ([f2] if two else []):
                     parts.append(p_rf - _loss(bench, sequence, block, "rf_port", f))
                 sa_rf._offer(_power_sum(*parts), index_of)
+    settings, notes = reading_settings(sequence, bench, lay, profiles, limits)
+    report.notes.extend(notes)
+    for found in settings:
+        for b in (found.limits.high, found.limits.low):
+            if b is not None:
+                c = PortCheck(found.label, found.unit, b.value, b.origin, b.side, found.role,
+                              safety=found.safety, source=b.source)
+                report.checks.append(c)
+                c._offer(found.values, lambda k, _idx=found.indices: int(_idx[k]))  # type: ignore[misc]
     return report
+
+
+def _offer(checks: list[PortCheck], values: np.ndarray, index_of: Callable[[int], int]) -> None:
+    for c in checks:
+        c._offer(np.asarray(values, dtype=float), index_of)
 
 
 def _axis_values(block: StudyBlock, local: np.ndarray) -> dict[str, np.ndarray]:
@@ -300,20 +363,41 @@ def _offer_outer(check: PortCheck, values: np.ndarray, lay: Layout, which: str) 
     check._offer(np.asarray(values, dtype=float), index_of)
 
 
-def safety_error(sequence: Sequence, check: PortCheck) -> SafetyLimitError:
-    """The SafetyLimitError for a failed check, naming the point, port, value and limit."""
+def format_amount(value: float, unit: str, precise: bool = True) -> str:
+    """A value for messages and tables: frequencies scaled (``2.4 GHz``), counts bare, other
+    units with two decimals (``precise``) or as short as exact."""
+    if unit == "Hz":
+        return format_frequency(value)
+    if not unit:  # a count (averages, channel)
+        return f"{value:g}"
+    return f"{value:.2f} {unit}".strip() if precise else f"{value:g} {unit}".strip()
+
+
+def safety_error(sequence: Sequence, check: PortCheck) -> SweeprigError:
+    """The error for a failed check, naming the point, port, value, limit and who sets the
+    limit where: a SafetyLimitError for powers, voltages and currents, an InputError for an
+    instrument's range."""
     assert check.violation_index is not None and check.violation_value is not None
     point = point_at(sequence, check.violation_index)
     word = "above" if check.bound == "max" else "below"
-    what = (f"{check.label} would be {check.violation_value:.2f} {check.unit}, {word} the "
-            f"limit {check.limit:g} {check.unit} set at {check.limit_key}; first at "
-            f"{point.describe()}. {CAUTION}")
-    return SafetyLimitError(
-        what,
-        where=sequence.where(("study", point.study_index)),
-        fix="lower the power (or change the frequencies or conditions) in the sequence, or "
-        "correct the limit or path loss in the bench file if it is wrong",
-    )
+    allows = "at most" if check.bound == "max" else "at least"
+    limit = format_amount(check.limit, check.unit, precise=False)
+    what = (f"{check.label} would be {format_amount(check.violation_value, check.unit)}, "
+            f"{word} the limit {limit}: {check.limit_key} allows {allows} {limit}; first at "
+            f"{point.describe()}")
+    where = sequence.where(("study", point.study_index))
+    if not check.safety:
+        return InputError(
+            what, where=where,
+            fix="change the plan in the sequence so every setting stays inside the "
+            "instrument's range, or give the role a profile (instrument) that covers it")
+    if check.source == "profile":
+        fix = ("change the plan in the sequence: the instrument cannot go beyond its own range "
+               "(its driver profile); or use an instrument, and its profile, that covers it")
+    else:
+        fix = ("lower the power (or change the frequencies or conditions) in the sequence, or "
+               "correct the limit or path loss in the bench file if it is wrong")
+    return SafetyLimitError(f"{what}. {CAUTION}", where=where, fix=fix)
 
 
 def preflight(sequence: Sequence, bench: Bench) -> PreflightReport:

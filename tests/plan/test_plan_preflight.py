@@ -118,9 +118,11 @@ def test_image_frequency_checked_at_the_source(tmp_path: Path) -> None:
 def test_supply_and_chamber_limits(bench) -> None:
     s = seq({}, conditions={"supply": [3.3, 6.0], "temperature": [25, 150]})
     report = check_limits(s, bench)
-    bad = {c.label for c in report.violations}
-    assert "supply voltage (bench limit)" in bad and "supply voltage (part rating)" in bad
-    assert "chamber set point (max)" in bad
+    bad = {(c.label, c.bound) for c in report.violations}
+    # bench limit and part rating are both 5.5 V: the one written first names the limit
+    assert ("supply voltage", "max") in bad and ("chamber set point", "max") in bad
+    supply = next(c for c in report.violations if c.label == "supply voltage")
+    assert "limits.supply_max_voltage" in supply.limit_key
     with pytest.raises(SafetyLimitError) as info:
         preflight(s, bench)
     # the first violating point in index order: 25 degC, 6.0 V (index 1)
@@ -156,3 +158,23 @@ def test_large_plan_checked_quickly(bench) -> None:
     assert report.points_checked == 10**6
     rf = next(c for c in report.checks if c.label == "rf source setting")
     assert rf.worst == pytest.approx(3.0) and rf.worst_index == 999
+
+
+def test_large_study_has_its_analyzer_settings_checked_at_the_corners(bench) -> None:
+    # reading by reading planning costs about 0.1 ms a point: a 10^6-point study is checked
+    # at the corners of its grid, and the report says so
+    s = seq({"rf_frequency": {"start": "2 GHz", "stop": "3 GHz", "points": 1000},
+             "rf_power": {"start": -30, "stop": 0, "points": 1000}})
+    report = check_limits(s, bench)
+    assert any("corners" in note and "'s'" in note for note in report.notes)
+    centre = next(c for c in report.checks if c.label == "analyzer centre frequency"
+                  and c.bound == "max")
+    assert centre.worst == pytest.approx(70e6)  # the wanted output: the LO follows the RF
+
+
+def test_small_study_is_checked_reading_by_reading(bench) -> None:
+    report = check_limits(seq({"rf_power": [-30, -20]}), bench)
+    assert report.ok and report.notes == []
+    labels = {c.label for c in report.checks}
+    assert {"rf source frequency", "lo source frequency", "analyzer RBW",
+            "analyzer reference level"} <= labels
