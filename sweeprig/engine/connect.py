@@ -28,6 +28,7 @@ from sweeprig.instruments import (
     load_profile,
     make_driver,
 )
+from sweeprig.transport.backend import bench_file_fix, bench_file_problem, choose_visa_library
 from sweeprig.transport.base import Transaction, Transport
 from sweeprig.transport.visa import VisaTransport
 
@@ -99,6 +100,7 @@ def open_bench(
     wanted = list(roles)
     if "simctl" in resources or bench.role("simctl") is not None:
         wanted.append("simctl")
+    library = _visa_library(bench)
     try:
         for role in wanted:
             if role == "simctl" and bench.role("simctl") is None:
@@ -117,7 +119,7 @@ def open_bench(
             profile = load_profile(profile_name)
             transport = VisaTransport(
                 resource,
-                visa_library=bench.bench.visa_library,
+                visa_library=library,
                 timeout_s=float(bench.bench.timeout),
             )
             transport.on_transaction = (
@@ -134,6 +136,16 @@ def open_bench(
         drivers.close()
         raise
     return drivers
+
+
+def _visa_library(bench: Bench) -> str:
+    """The VISA backend to open (see :mod:`sweeprig.transport.backend`); a bench naming a
+    library file is refused here too, for a bench built without :func:`load_bench`."""
+    problem = bench_file_problem(bench.bench.visa_library)
+    if problem is not None:
+        raise InputError(problem, where=bench.where(("bench", "visa_library")),
+                         fix=bench_file_fix())
+    return choose_visa_library(bench.bench.visa_library)
 
 
 IDENTIFY_ATTEMPTS = 3

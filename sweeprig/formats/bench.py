@@ -37,6 +37,7 @@ from sweeprig.formats.pathloss import (
     read_touchstone_loss,
 )
 from sweeprig.formats.toml_locate import KeyPath
+from sweeprig.transport.backend import bench_file_fix, bench_file_problem
 
 #: Every role a bench may fill.
 ROLES: tuple[str, ...] = (
@@ -89,7 +90,9 @@ class BenchInfo(Frozen):
 
     name: str = Field(description="name of the bench")
     location: str = Field("", description="where it stands")
-    visa_library: str = Field("@py", description='pyvisa backend, e.g. "@py" (pyvisa-py)')
+    visa_library: str = Field("@py", description='pyvisa backend by name: "@py" (pyvisa-py) or '
+                              '"@ivi" (the system VISA); never a library path (give that with '
+                              '--visa-library or SWEEPRIG_VISA_LIBRARY)')
     timeout: Time = Field(5.0, description="I/O timeout per instrument command")
 
 
@@ -269,6 +272,10 @@ def _load_loss_file(bench: Bench, key: KeyPath, value: LossFile, base: Path) -> 
 
 def check_bench(bench: Bench, *, known_profiles: Collection[str] | None = None) -> None:
     """Checks across keys: resource strings, profile names, role-specific options, limits."""
+    problem = bench_file_problem(bench.bench.visa_library)
+    if problem is not None:  # checked first: nothing else matters if the file names code
+        raise InputError(problem, where=bench.where(("bench", "visa_library")),
+                         fix=bench_file_fix())
     for name in ROLES:
         role = bench.role(name)
         if role is None:
