@@ -32,6 +32,7 @@ import numpy as np
 
 from sweeprig.clock import Clock, WallClock
 from sweeprig.errors import InputError, InstrumentError, SafetyLimitError, TransportError
+from sweeprig.instruments.guard import guard_transport
 from sweeprig.instruments.ops import UNIT_SYMBOL, OpSpec
 from sweeprig.instruments.profile import DOCS_HINT, Operation, Profile
 from sweeprig.transport import blocks
@@ -79,8 +80,10 @@ class Driver:
                 fix=f"give role {role!r} a {self.kind} profile",
             )
         self.role = role
-        self.transport = transport
         self.profile = profile
+        self.transport: Transport = guard_transport(transport, self)
+        """The connection, behind the last-step guard (:mod:`sweeprig.instruments.guard`)
+        for sources, supplies and chambers."""
         self.clock: Clock = clock or WallClock()
         self.idn: str | None = None
         self.transactions = 0
@@ -205,6 +208,10 @@ class Driver:
             where=f"{where} (limit from {self._limit_origin(spec)})",
             fix="choose a value inside the instrument's range",
         )
+
+    def limit_origin(self, op: str) -> str:
+        """Where the limit in force for ``op`` comes from (for messages)."""
+        return self._limit_origin(self.profile.op(op).spec)
 
     def _limit_origin(self, spec: OpSpec) -> str:
         if spec.name in self._limits:
