@@ -19,9 +19,11 @@ command, on a guarded instrument:
   ``10 MW``, ``2500 MV``) and checked against the driver's limits (the profile's range
   narrowed by the bench's); a keyword (``MAX``, ``DEF``, ``UP``...) or a form the guard
   cannot read is refused, since its level cannot be known;
-* a command under a level header that changes what later levels mean (``:OFFSet``,
-  ``:REFerence``, ``:STEP``) is refused, and a ``UNIT`` command is allowed only with the unit
-  sweeprig works in (DBM, V, A, CEL);
+* a command below a level header is refused unless it is known to leave the level alone
+  (:data:`ALLOWED_UNDER_LEVEL`: ``:ALC``, ``:PROTection``, ``:MODE FIXed``), so offsets,
+  references, steps and level sweeps or lists cannot move it; a ``UNIT`` command is allowed
+  only with the unit sweeprig works in (DBM, V, A, CEL); the common commands that recall a
+  stored state or define macros (:data:`REFUSED_COMMON`) are refused;
 * a level-setting header that this profile does not use but another profile of the kind, or
   SCPI-99, does (:data:`KNOWN_LEVEL_HEADERS`) is refused: its value cannot be checked here.
 
@@ -68,8 +70,19 @@ KNOWN_LEVEL_HEADERS: dict[str, tuple[tuple[str, ...], ...]] = {
 }
 """Level headers (canonical) the guard knows for each kind besides the profiles' own."""
 
-LEVEL_MODIFIERS = frozenset({"OFFS", "REF", "STEP"})
-"""Nodes under a level header that change what a level value means."""
+ALLOWED_UNDER_LEVEL: dict[str, frozenset[str] | None] = {
+    "ALC": None,  # automatic level control on/off
+    "PROT": None,  # over-voltage / over-current protection
+    "MODE": frozenset({"FIX", "FIXED", "CW"}),  # fixed level only: no sweep, no list
+}
+"""Nodes allowed below a level header (``POW:ALC ON``), with the arguments allowed (None:
+any). Anything else there — ``:OFFSet``, ``:REFerence``, ``:STEP``, ``:STARt``/``:STOP``
+of a level sweep, ``:MODE LIST`` — may change the level in a way the guard cannot check."""
+
+REFUSED_COMMON = frozenset({"*RCL", "*DMC", "*EMC", "*DDT", "*PUD"})
+"""IEEE 488.2 common commands that recall a stored state or define commands to run later
+(macros, device trigger): the levels they set cannot be checked (IEEE 488.2-1992, 10.29,
+10.7, 10.11, 10.4)."""
 
 WORKING_UNITS = frozenset({"DBM", "V", "A", "CEL", "C"})
 """The only arguments a ``UNIT`` command may have on a guarded instrument."""
@@ -220,6 +233,11 @@ class LastStepGuard:
     # -- one command ------------------------------------------------------------------------
 
     def _check(self, cmd: Command, message: str, resource: str) -> None:
+        if cmd.common and cmd.path[0].rstrip("?") in REFUSED_COMMON and not cmd.query:
+            self._refuse(cmd, message, resource,
+                         "recalls a stored state or defines commands to run later, whose "
+                         "levels cannot be checked",
+                         "remove it from the profile; sweeprig sets every level itself")
         if cmd.common or cmd.query:
             return
         header = canonical(cmd.path)
@@ -230,11 +248,7 @@ class LastStepGuard:
                              f"remove it; levels are sent in {', '.join(sorted(WORKING_UNITS))}")
             return
         matching = [r for r in self.rules if _same_header(r.header, header)]
-        nodes = set(cmd.path)
-        if LEVEL_MODIFIERS & nodes and self.level_nodes & nodes:
-            self._refuse(cmd, message, resource,
-                         "changes what later level settings mean (offset, reference, step)",
-                         "remove it from the profile; sweeprig sets absolute levels")
+        self._check_below_level(cmd, message, resource)
         if matching:
             self._check_value(cmd, matching, message, resource)
             return
@@ -242,6 +256,26 @@ class LastStepGuard:
             self._refuse(cmd, message, resource,
                          "sets a level with a command that is not this profile's",
                          f"set levels only through the profile's ops ({self._ops_text()})")
+
+    def _check_below_level(self, cmd: Command, message: str, resource: str) -> None:
+        """Refuse a command below a level header (``POW:OFFS``, ``POW:STAR``) unless it is in
+        :data:`ALLOWED_UNDER_LEVEL`."""
+        for index, node in enumerate(cmd.path):
+            if node not in self.level_nodes:
+                continue
+            below = tuple(n for n in cmd.path[index + 1:] if n not in DEFAULT_NODES)
+            if not below:
+                continue
+            allowed = below[0] in ALLOWED_UNDER_LEVEL
+            values = ALLOWED_UNDER_LEVEL.get(below[0])
+            if allowed and values is not None:
+                allowed = all(arg.upper() in values for arg in cmd.args) and bool(cmd.args)
+            if not allowed:
+                self._refuse(cmd, message, resource,
+                             "may change the level in a way the guard cannot check (an "
+                             "offset, a reference, a step, a level sweep or list)",
+                             "remove it from the profile; sweeprig sets absolute levels, one "
+                             "at a time")
 
     def _ops_text(self) -> str:
         return ", ".join(f"ops.{op}" for op in GUARDED_OPS[self.driver.profile.kind])
@@ -254,8 +288,10 @@ class LastStepGuard:
             if readings is None:
                 continue
             fitted = True
+            note = "" if len(readings) == 1 else \
+                " (its unit suffix has more than one reading, IEEE 488.2 7.7.3; each is checked)"
             for value in readings:
-                self._within(rule.op, value, cmd, message, resource)
+                self._within(rule.op, value, cmd, message, resource, note)
         if not fitted:
             self._refuse(cmd, message, resource,
                          "looks like a level setting whose value the guard cannot read "
@@ -291,7 +327,7 @@ class LastStepGuard:
         return _readings(number, match.group(2), spec_unit)
 
     def _within(self, op: str, value: float, cmd: Command, message: str,
-                resource: str) -> None:
+                resource: str, note: str = "") -> None:
         low, high = self.driver.limits(op)
         symbol = UNIT_SYMBOL.get(_op_unit(op), "")
         # The driver's own slack (a setting exactly at its limit is within it).
@@ -302,7 +338,7 @@ class LastStepGuard:
             problem = f"sets {op} {value:g} {symbol} below the minimum {low:g} {symbol}"
         else:
             return
-        self._refuse(cmd, message, resource, problem,
+        self._refuse(cmd, message, resource, problem + note,
                      "find what produced the command (a profile's template or value map) and "
                      "correct it; raise a limit only if the part and the bench can take it",
                      origin=self.driver.limit_origin(op))

@@ -86,10 +86,9 @@ def split_units(message: str, *, respect_quotes: bool = True) -> list[str]:
 def short_form(mnemonic: str) -> str:
     """The SCPI short form of a mnemonic (SCPI-99 vol. 1, 6.2.1): upper case, numeric suffix
     removed, longer than four characters → the first four, or three when the fourth is a
-    vowel. A four-character form ending in a vowel is cut to three too (no real short form
-    ends so; treating it as the three-letter one errs on the side of guarding)."""
+    vowel (``POWer`` → ``POW``, ``FREQuency`` → ``FREQ``; ``MODE`` stays ``MODE``)."""
     word = mnemonic.strip().upper().rstrip("0123456789")
-    if len(word) >= 4:
+    if len(word) > 4:
         word = word[:3] if word[3] in _VOWELS else word[:4]
     return word
 

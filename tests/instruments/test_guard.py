@@ -85,6 +85,8 @@ def test_the_issue_case_is_refused_by_the_guard_if_it_reaches_the_driver() -> No
     "DISP:TEXT 'x;POW 19'",  # an instrument that reads quotes otherwise would see POW 19
     "POW MAX", "POW DEF", "POW UP", "POW 19 DBUV", "POW #H13", "POW 1e400",
     "POW:OFFS -10", "POW:REF 10", "SOUR:POW:LEV:IMM:AMPL:STEP 5", "UNIT:POW W",
+    "POW:STAR -10;STOP 25", "POW:MODE SWE", "LIST:POW 10,19", "LIST:POW 19", "*RCL 3",
+    "*DMC 'UP',#0POW 19", "*DDT #0POW 19",
 ])
 def test_level_commands_beyond_or_unreadable_are_refused(message: str) -> None:
     driver, fake = _driver("scpi-source", "rf", "power", 15.0)
@@ -95,7 +97,8 @@ def test_level_commands_beyond_or_unreadable_are_refused(message: str) -> None:
 
 @pytest.mark.parametrize("message", [
     "SOUR:POW:LEV:IMM:AMPL 15", ":SOUR:POW -20", "POW 10 MW", "OUTP ON", "SOUR:FREQ:CW 2E9",
-    "POW:ALC ON", "UNIT:POW DBM", "POW? MAX", "*RST", "DISP:TEXT 'POW 19'",
+    "POW:ALC ON", "UNIT:POW DBM", "POW? MAX", "*RST", "DISP:TEXT 'POW 19'", "POW:MODE FIX",
+    "LIST:POW 10", "*RCL?",
 ])
 def test_commands_within_the_limits_pass(message: str) -> None:
     driver, fake = _driver("scpi-source", "rf", "power", 15.0)

@@ -34,6 +34,7 @@ def test_wire_text_problem(text: str, problem: str | None) -> None:
     ("POWer", "POW"), ("FREQuency", "FREQ"), ("LEVel", "LEV"), ("IMMediate", "IMM"),
     ("AMPLitude", "AMPL"), ("SOURce", "SOUR"), ("VOLTage", "VOLT"), ("CURRent", "CURR"),
     ("TEMPerature", "TEMP"), ("SOUR2", "SOUR"), ("pow", "POW"), ("OUTP1", "OUTP"),
+    ("MODE", "MODE"), ("AUTO", "AUTO"), ("STATe", "STAT"),
 ])
 def test_short_form(mnemonic: str, short: str) -> None:
     assert short_form(mnemonic) == short
