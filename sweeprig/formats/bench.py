@@ -52,6 +52,10 @@ SIM_RESOURCE = "sim"
 
 _PROFILE_PATTERN = r"^[a-z0-9-]+$"
 _RESOURCE = re.compile(r"^(TCPIP|GPIB|USB|ASRL|VXI|PXI|VICP)[^:]*::.+", re.IGNORECASE)
+#: A serial resource: a port number, a COM port, or a serial device file (pyvisa-py opens the
+#: file it names, and opening some device files has effects of its own, so only serial ports).
+_SERIAL = re.compile(r"^ASRL(\d+|COM\d+|/dev/(tty|cu\.|rfcomm|serial/)[A-Za-z0-9_.:/-]*?)"
+                     r"(::INSTR)?$", re.IGNORECASE)
 
 
 class Role(Frozen):
@@ -287,6 +291,12 @@ def check_bench(bench: Bench, *, known_profiles: Collection[str] | None = None) 
                              where=bench.where((*here, "resource")),
                              fix='write e.g. "TCPIP0::192.0.2.10::5025::SOCKET", '
                              '"GPIB0::18::INSTR", or "sim" on the simulated bench')
+        if res.upper().startswith("ASRL") and (not _SERIAL.match(res) or ".." in res):
+            raise InputError(f"{role.resource!r} is not a serial port",
+                             where=bench.where((*here, "resource")),
+                             fix='write "ASRL1::INSTR" or "ASRL/dev/ttyUSB0::INSTR" (a serial '
+                             "port's device: /dev/tty*, /dev/cu.*, /dev/serial/...; no other "
+                             "file may be named)")
         if known_profiles is not None and role.profile not in known_profiles:
             import difflib
 
