@@ -79,10 +79,10 @@ ALLOWED_UNDER_LEVEL: dict[str, frozenset[str] | None] = {
 any). Anything else there — ``:OFFSet``, ``:REFerence``, ``:STEP``, ``:STARt``/``:STOP``
 of a level sweep, ``:MODE LIST`` — may change the level in a way the guard cannot check."""
 
-REFUSED_COMMON = frozenset({"*RCL", "*DMC", "*EMC", "*DDT", "*PUD"})
-"""IEEE 488.2 common commands that recall a stored state or define commands to run later
-(macros, device trigger): the levels they set cannot be checked (IEEE 488.2-1992, 10.29,
-10.7, 10.11, 10.4)."""
+REFUSED_COMMON = frozenset({"*RCL", "*DMC", "*EMC", "*DDT"})
+"""IEEE 488.2 common commands that recall a stored state or define or enable commands to run
+later (macros, the device trigger): the levels they set cannot be read from the message
+(IEEE 488.2-1992, section 10: *RCL, *DMC, *EMC, *DDT)."""
 
 WORKING_UNITS = frozenset({"DBM", "V", "A", "CEL", "C"})
 """The only arguments a ``UNIT`` command may have on a guarded instrument."""
