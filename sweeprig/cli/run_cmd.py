@@ -33,6 +33,7 @@ from sweeprig.report import write_report
 from sweeprig.report.terminal import print_summary
 from sweeprig.store.base import DEFAULT_STORE_PATH
 from sweeprig.store.sqlite import SqliteRunStore
+from sweeprig.transport.backend import visa_library_override
 
 _RUN_HELP = """Run a sequence file on a bench, unattended, storing every point as it is taken.
 
@@ -76,11 +77,16 @@ def run_command(
     fail_on_verdict: Annotated[bool, typer.Option(
         "--fail-on-verdict", help=f"exit with code {VERDICT_FAILED_EXIT_CODE} when the "
         "figures fail the sequence's spec limits")] = False,
+    visa_library: Annotated[str | None, typer.Option(
+        "--visa-library", help="VISA backend or library path for this command only; wins over "
+        "$SWEEPRIG_VISA_LIBRARY and the bench file's named backend (@py or @ivi)",
+        show_default=False)] = None,
 ) -> None:
-    _drive(lambda started, point_done: run_sequence(
-        sequence, bench, sim=sim, sim_description=sim_bench, store_path=store,
-        realtime=realtime, bus_log=bus_log, on_start=started, on_point=point_done,
-    ), quiet=quiet, report=report, fail_on_verdict=fail_on_verdict)
+    with visa_library_override(visa_library):
+        _drive(lambda started, point_done: run_sequence(
+            sequence, bench, sim=sim, sim_description=sim_bench, store_path=store,
+            realtime=realtime, bus_log=bus_log, on_start=started, on_point=point_done,
+        ), quiet=quiet, report=report, fail_on_verdict=fail_on_verdict)
 
 
 def _drive(start: Callable[..., RunOutcome], *, quiet: bool, report: bool = True,
@@ -245,11 +251,16 @@ def resume_command(
         "--bus-log", help="record every SCPI exchange in the run store")] = False,
     report: Annotated[bool, typer.Option(
         "--report/--no-report", help="write the HTML report when the run ends")] = True,
+    visa_library: Annotated[str | None, typer.Option(
+        "--visa-library", help="VISA backend or library path for this command only; wins over "
+        "$SWEEPRIG_VISA_LIBRARY and the bench file's named backend (@py or @ivi)",
+        show_default=False)] = None,
 ) -> None:
-    _drive(lambda started, point_done: resume_run(
-        run_id, store_path=store, accept_changes=accept_changes, sim_description=sim_bench,
-        bus_log=bus_log, on_start=started, on_point=point_done,
-    ), quiet=quiet, report=report)
+    with visa_library_override(visa_library):
+        _drive(lambda started, point_done: resume_run(
+            run_id, store_path=store, accept_changes=accept_changes, sim_description=sim_bench,
+            bus_log=bus_log, on_start=started, on_point=point_done,
+        ), quiet=quiet, report=report)
 
 
 _SAFE_HELP = """Put a bench in its safe state now: every RF output off, the supply to its safe
@@ -274,11 +285,16 @@ def safe_command(
     bench: Annotated[Path, typer.Option(
         "--bench", "-b", help="bench file (TOML) naming the instruments",
         show_default=False)],
+    visa_library: Annotated[str | None, typer.Option(
+        "--visa-library", help="VISA backend or library path for this command only; wins over "
+        "$SWEEPRIG_VISA_LIBRARY and the bench file's named backend (@py or @ivi)",
+        show_default=False)] = None,
 ) -> None:
     console = Console(highlight=False)
     try:
         loaded = load_bench(bench, known_profiles=available_profiles())
-        outcome = make_bench_safe(loaded)
+        with visa_library_override(visa_library):
+            outcome = make_bench_safe(loaded)
     except SweeprigError as exc:
         raise fail(exc) from None
     if not outcome.ok:

@@ -13,6 +13,7 @@ from rich.table import Table
 from sweeprig.errors import SweeprigError
 from sweeprig.instruments.profile import Profile, load_all_profiles, matching_profiles
 from sweeprig.transport import visa
+from sweeprig.transport.backend import choose_visa_library
 
 
 @dataclass(frozen=True)
@@ -62,8 +63,10 @@ def scan_command(
         ),
     ] = None,
     visa_library: Annotated[
-        str, typer.Option("--visa-library", help="pyvisa backend: @py (pyvisa-py) or a path.")
-    ] = visa.DEFAULT_VISA_LIBRARY,
+        str | None, typer.Option("--visa-library", help="pyvisa backend: @py (pyvisa-py), "
+                                 "@ivi, or the path of a VISA library (default: "
+                                 "$SWEEPRIG_VISA_LIBRARY, else @py).")
+    ] = None,
     identify: Annotated[
         bool,
         typer.Option("--identify/--no-identify", help="Ask each resource *IDN? (the only "
@@ -91,6 +94,7 @@ def scan_command(
     """
     console = Console(highlight=False)
     errors = Console(stderr=True, highlight=False)
+    visa_library = visa_library or choose_visa_library()
     found: list[str] = []
     if discover:
         try:

@@ -29,6 +29,7 @@ from sweeprig.instruments import (
     make_driver,
 )
 from sweeprig.plan.instrument_limits import bench_bounds, role_profile
+from sweeprig.transport.backend import bench_file_fix, bench_file_problem, choose_visa_library
 from sweeprig.transport.base import Transaction, Transport
 from sweeprig.transport.visa import VisaTransport
 
@@ -104,6 +105,7 @@ def open_bench(
     wanted = list(roles)
     if "simctl" in resources or bench.role("simctl") is not None:
         wanted.append("simctl")
+    library = _visa_library(bench)
     try:
         for role in wanted:
             if role == "simctl" and bench.role("simctl") is None:
@@ -122,7 +124,7 @@ def open_bench(
                 profile = role_profile(bench, role)  # of the kind the role takes
             transport = VisaTransport(
                 resource,
-                visa_library=bench.bench.visa_library,
+                visa_library=library,
                 timeout_s=float(bench.bench.timeout),
             )
             transport.on_transaction = (
@@ -139,6 +141,16 @@ def open_bench(
         drivers.close()
         raise
     return drivers
+
+
+def _visa_library(bench: Bench) -> str:
+    """The VISA backend to open (see :mod:`sweeprig.transport.backend`); a bench naming a
+    library file is refused here too, for a bench built without :func:`load_bench`."""
+    problem = bench_file_problem(bench.bench.visa_library)
+    if problem is not None:
+        raise InputError(problem, where=bench.where(("bench", "visa_library")),
+                         fix=bench_file_fix())
+    return choose_visa_library(bench.bench.visa_library)
 
 
 IDENTIFY_ATTEMPTS = 3

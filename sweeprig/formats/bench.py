@@ -37,6 +37,7 @@ from sweeprig.formats.pathloss import (
     read_touchstone_loss,
 )
 from sweeprig.formats.toml_locate import KeyPath
+from sweeprig.transport.backend import bench_file_fix, bench_file_problem
 from sweeprig.transport.resources import ResourceNameError, parse_resource
 
 #: Every role a bench may fill.
@@ -52,6 +53,10 @@ SIM_RESOURCE = "sim"
 
 _PROFILE_PATTERN = r"^[a-z0-9-]+$"
 _RESOURCE = re.compile(r"^(TCPIP|GPIB|USB|ASRL|VXI|PXI|VICP)[^:]*::.+", re.IGNORECASE)
+#: A serial resource: a port number, a COM port, or a serial device file (pyvisa-py opens the
+#: file it names, and opening some device files has effects of its own, so only serial ports).
+_SERIAL = re.compile(r"^ASRL(\d+|COM\d+|/dev/(tty|cu\.|rfcomm|serial/)[A-Za-z0-9_.:/-]*?)"
+                     r"(::INSTR)?$", re.IGNORECASE)
 
 
 class Role(Frozen):
@@ -90,7 +95,9 @@ class BenchInfo(Frozen):
 
     name: str = Field(description="name of the bench")
     location: str = Field("", description="where it stands")
-    visa_library: str = Field("@py", description='pyvisa backend, e.g. "@py" (pyvisa-py)')
+    visa_library: str = Field("@py", description='pyvisa backend by name: "@py" (pyvisa-py) or '
+                              '"@ivi" (the system VISA); never a library path (give that with '
+                              '--visa-library or SWEEPRIG_VISA_LIBRARY)')
     timeout: Time = Field(5.0, description="I/O timeout per instrument command")
 
 
@@ -270,6 +277,10 @@ def _load_loss_file(bench: Bench, key: KeyPath, value: LossFile, base: Path) -> 
 
 def check_bench(bench: Bench, *, known_profiles: Collection[str] | None = None) -> None:
     """Checks across keys: resource strings, profile names, role-specific options, limits."""
+    problem = bench_file_problem(bench.bench.visa_library)
+    if problem is not None:  # checked first: nothing else matters if the file names code
+        raise InputError(problem, where=bench.where(("bench", "visa_library")),
+                         fix=bench_file_fix())
     for name in ROLES:
         role = bench.role(name)
         if role is None:
@@ -281,6 +292,12 @@ def check_bench(bench: Bench, *, known_profiles: Collection[str] | None = None) 
                              where=bench.where((*here, "resource")),
                              fix='write e.g. "TCPIP0::192.0.2.10::5025::SOCKET", '
                              '"GPIB0::18::INSTR", or "sim" on the simulated bench')
+        if res.upper().startswith("ASRL") and (not _SERIAL.match(res) or ".." in res):
+            raise InputError(f"{role.resource!r} is not a serial port",
+                             where=bench.where((*here, "resource")),
+                             fix='write "ASRL1::INSTR" or "ASRL/dev/ttyUSB0::INSTR" (a serial '
+                             "port's device: /dev/tty*, /dev/cu.*, /dev/serial/...; no other "
+                             "file may be named)")
         if res != SIM_RESOURCE:
             try:
                 parse_resource(role.resource)

@@ -33,6 +33,7 @@ import numpy as np
 
 from sweeprig.clock import Clock, WallClock
 from sweeprig.errors import InputError, InstrumentError, SafetyLimitError, TransportError
+from sweeprig.instruments.guard import guard_transport
 from sweeprig.instruments.limits import Bound, OpLimits, profile_limits
 from sweeprig.instruments.profile import DOCS_HINT, Operation, Profile
 from sweeprig.transport import blocks
@@ -77,8 +78,10 @@ class Driver:
                 fix=f"give role {role!r} a {self.kind} profile",
             )
         self.role = role
-        self.transport = transport
         self.profile = profile
+        self.transport: Transport = guard_transport(transport, self)
+        """The connection, behind the last-step guard (:mod:`sweeprig.instruments.guard`)
+        for sources, supplies and chambers."""
         self.clock: Clock = clock or WallClock()
         self.idn: str | None = None
         self.transactions = 0

@@ -35,6 +35,7 @@ from sweeprig.instruments.ops import (
     ReplyFormat,
     ops_for,
 )
+from sweeprig.instruments.scpi_text import wire_text_problem
 from sweeprig.units import parse_quantity, shorten
 
 PROFILE_NAME_RE = re.compile(r"[a-z0-9][a-z0-9-]*")
@@ -351,11 +352,13 @@ def _check_templates(
     for template in templates:
         if not template.strip():
             raise InputError("an empty SCPI command", where=where, fix="remove it or fill it in")
-        if "\n" in template or "\r" in template:
+        problem = wire_text_problem(template, what="SCPI command")
+        if problem is not None:
             raise InputError(
-                f"SCPI command {template!r} contains a line break",
+                problem,
                 where=where,
-                fix="put each command in its own string of the list",
+                fix="put each command in its own string of the list, with no control "
+                "characters (a quoted string may hold ';')",
             )
         for token in _PLACEHOLDER_RE.findall(template):
             if token != VALUE_PLACEHOLDER:
@@ -379,6 +382,25 @@ def _check_templates(
             where=where,
             fix="put {value} where the number goes, e.g. 'FREQ {value}'",
         )
+
+
+def _check_token(token: str, where: str) -> None:
+    """A value token (a map entry) is sent inside a command: the rules of a template, and no
+    placeholder."""
+    if not token.strip():
+        raise InputError("an empty SCPI value", where=where,
+                         fix='write the token the instrument expects, e.g. "ON"')
+    problem = wire_text_problem(token, what="SCPI value")
+    if problem is not None:
+        raise InputError(
+            problem,
+            where=where,
+            fix="write only the value's token (e.g. \"ON\"); a value cannot end its command "
+            "or start another, so no ';', line breaks or control characters",
+        )
+    if _PLACEHOLDER_RE.search(token):
+        raise InputError(f"SCPI value {token!r} contains a brace", where=where,
+                         fix="write only the value's token, without { or }")
 
 
 def _build_op(
@@ -483,6 +505,8 @@ def _build_op(
                     where=at("map", key),
                     fix=f"use the keys {', '.join(allowed)}",
                 )
+        for key, token in mapping.items():
+            _check_token(token, at("map", key))
     if spec.value == "choice":
         missing = [c for c in spec.choices if c not in mapping]
         if missing:
@@ -500,6 +524,9 @@ def _build_op(
             where=at("min"),
             fix="swap them",
         )
+    if isinstance(model.complete, _PollModel):
+        _check_templates([model.complete.query], _NO_VALUE, at("complete", "query"),
+                         needs_value=False)
     if model.mask is not None and reply != "int":
         raise InputError(
             "'mask' needs an integer reply",

@@ -24,9 +24,9 @@ import pyvisa.errors
 
 from sweeprig.errors import TransportError
 from sweeprig.transport import blocks
+from sweeprig.transport.backend import DEFAULT_VISA_LIBRARY, VISA_LIBRARY_ENV
 from sweeprig.transport.base import Transaction, TransactionHook
 
-DEFAULT_VISA_LIBRARY = "@py"
 DEFAULT_TIMEOUT_S = 5.0
 
 _PYVISA_ERRORS: tuple[type[BaseException], ...] = (
@@ -40,6 +40,8 @@ _PYVISA_ERRORS: tuple[type[BaseException], ...] = (
 def open_resource_manager(visa_library: str = DEFAULT_VISA_LIBRARY) -> pyvisa.ResourceManager:
     """Open a pyvisa ResourceManager for ``visa_library`` (``"@py"``, ``"@ivi"``, a path).
 
+    A path is loaded and run by pyvisa: callers pass only what the person at the keyboard
+    chose (see :mod:`sweeprig.transport.backend`), never a value read from a file.
     Raises :class:`TransportError` if the VISA library cannot be loaded.
     """
     try:
@@ -48,8 +50,8 @@ def open_resource_manager(visa_library: str = DEFAULT_VISA_LIBRARY) -> pyvisa.Re
         raise TransportError(
             f"cannot load the VISA library {visa_library!r}: {exc}",
             where="VISA library",
-            fix='use "@py" (pyvisa-py, installed with sweeprig) or the path of an installed '
-            "VISA library",
+            fix='use "@py" (pyvisa-py, installed with sweeprig), "@ivi", or the path of an '
+            f"installed VISA library (with --visa-library or {VISA_LIBRARY_ENV})",
         ) from exc
 
 

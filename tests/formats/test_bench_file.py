@@ -137,3 +137,32 @@ def test_bench_schema() -> None:
     schema = json_schema("bench")
     assert "if" in schema["$defs"]["PathLosses"]["properties"]
     assert schema["title"] == "sweeprig bench file"
+
+
+@pytest.mark.parametrize(("resource", "ok"), [
+    ("ASRL1::INSTR", True), ("ASRL/dev/ttyUSB0::INSTR", True), ("ASRLCOM3::INSTR", True),
+    ("ASRL/dev/serial/by-id/usb-Tarnwick_SG6-if00::INSTR", True),
+    ("ASRL/etc/passwd::INSTR", False), ("ASRL/dev/../etc/passwd::INSTR", False),
+    ("ASRL/dev/watchdog::INSTR", False), ("ASRL/dev/sda::INSTR", False),
+])
+def test_a_serial_resource_names_a_serial_port_only(tmp_path: Path, resource: str,
+                                                    ok: bool) -> None:
+    text = BENCH.replace('"GPIB0::19::INSTR"', f'"{resource}"')
+    if ok:
+        assert load_bench(write(tmp_path, text)).roles.lo.resource == resource
+        return
+    with pytest.raises(InputError) as err:
+        load_bench(write(tmp_path, text))
+    assert "bench.toml:7: roles.lo.resource" in err.value.message()
+    assert "serial port" in err.value.message()
+
+
+@pytest.mark.parametrize("library", ["/opt/lib/libvisa.so", "@sim", "libvisa.so@ivi", ""])
+def test_visa_library_is_a_named_backend(tmp_path: Path, library: str) -> None:
+    text = BENCH.replace('location = "Lab B"\n',
+                         f'location = "Lab B"\nvisa_library = "{library}"\n')
+    with pytest.raises(InputError) as err:
+        load_bench(write(tmp_path, text))
+    assert "bench.toml:4: bench.visa_library" in err.value.message()
+    ivi = BENCH.replace('location = "Lab B"\n', 'location = "Lab B"\nvisa_library = "@ivi"\n')
+    assert load_bench(write(tmp_path, ivi)).bench.visa_library == "@ivi"

@@ -245,3 +245,55 @@ def test_worked_example_in_the_docs_loads(tmp_path):
     src.set_frequency(1e9)
     src.set_output(True)
     assert t.sent == ["*IDN?", "*RST", "BUSY?", "BUSY?", "CW 1000000000 HZ", "RF 1"]
+
+
+# -- every string that reaches the wire ------------------------------------------------------
+
+WIRED = GOOD + """get = "OUTP?"
+map = { on = "ON", off = "OFF" }
+
+[ops.reset]
+do = "*RST"
+complete = { method = "poll", query = "BUSY?", until = "0" }
+"""
+
+
+@pytest.mark.parametrize(
+    ("change", "expected", "what"),
+    [
+        # the issue's case: a value map that adds a command past the limits
+        ('on = "ON"', "lab-source.toml:16: ops.output.map.on", "';'"),
+        ('off = "OFF"', "lab-source.toml:16: ops.output.map.off", "line break"),
+        ('on = "ON"', "lab-source.toml:16: ops.output.map.on", "control character"),
+        ('on = "ON"', "lab-source.toml:16: ops.output.map.on", "unclosed"),
+        ('on = "ON"', "lab-source.toml:16: ops.output.map.on", "empty"),
+        ('get = "OUTP?"', "lab-source.toml:15: ops.output.get", "';'"),
+        ('query = "BUSY?"', "lab-source.toml:20: ops.reset.complete.query", "line break"),
+        ('set = "POW {value}"', "lab-source.toml:10: ops.power.set", "';'"),
+        ('do = "*RST"', "lab-source.toml:19: ops.reset.do", "control character"),
+    ],
+)
+def test_strings_that_reach_the_wire_cannot_end_or_add_a_command(tmp_path, change, expected,
+                                                                   what):
+    bad = {
+        "';'": {'on = "ON"': 'on = "ON;:SOUR:POW 19"', 'get = "OUTP?"': 'get = "OUTP?;:POW 19"',
+                'set = "POW {value}"': 'set = "POW {value};:OUTP ON"'},
+        "line break": {'off = "OFF"': 'off = "OFF\\n:SOUR:POW 19"',
+                       'query = "BUSY?"': 'query = "BUSY?\\r\\nPOW 19"'},
+        "control character": {'on = "ON"': 'on = "ON\\u001b[2J"',
+                              'do = "*RST"': 'do = "*RST\\u0000"'},
+        "unclosed": {'on = "ON"': "on = \"'ON\""},
+        "empty": {'on = "ON"': 'on = " "'},
+    }[what]
+    old, new = change, bad[change]
+    assert old in WIRED
+    message = _error(WIRED.replace(old, new, 1), tmp_path)
+    assert expected in message, message
+    assert what in message and "fix:" in message
+
+
+def test_a_quoted_semicolon_is_data(tmp_path):
+    path = tmp_path / "lab-source.toml"
+    path.write_text(WIRED.replace('do = "*RST"', "do = [\"*RST\", \"DISP:TEXT 'a;b'\"]"),
+                    encoding="utf-8")
+    assert load_profile(path).op("reset").do == ("*RST", "DISP:TEXT 'a;b'")
