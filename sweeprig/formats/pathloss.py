@@ -8,7 +8,6 @@ for a frequency outside the table is an :class:`~sweeprig.errors.InputError`.
 from __future__ import annotations
 
 import csv
-import errno
 import io
 import math
 from dataclasses import dataclass, field
@@ -18,6 +17,7 @@ import numpy as np
 from numpy.typing import ArrayLike
 
 from sweeprig.errors import InputError
+from sweeprig.files import read_file_bytes
 from sweeprig.units import format_frequency, shorten
 
 # Relative slack at the table ends, so that 2.5e9 computed as 2.3e9 + 8·25e6 still counts
@@ -92,18 +92,7 @@ def _table(freq_hz: np.ndarray, loss_db: np.ndarray, file: str, where: str) -> T
     return TableLoss(freq_hz=f, loss_table_db=loss, file=file, where=where)
 
 
-def _missing_or_unreadable(exc: Exception, kind: str, display: str, where: str) -> InputError:
-    """The error for a table file that cannot be opened (``exc`` from the file system)."""
-    if isinstance(exc, FileNotFoundError):
-        return InputError(f"{kind} {display} does not exist", where=where,
-                          fix="paths are relative to the bench file; check the name")
-    if isinstance(exc, ValueError) or getattr(exc, "errno", None) == errno.ENAMETOOLONG:
-        # a NUL character, or a name longer than the file system allows
-        return InputError(f"{kind} {display}: no file can have this name", where=where,
-                          fix="paths are relative to the bench file; check the name")
-    reason = exc.strerror if isinstance(exc, OSError) and exc.strerror else str(exc)
-    return InputError(f"cannot read {kind} {display}: {shorten(reason)}", where=where,
-                      fix="check the file and its permissions")
+_MISSING_FIX = "paths are relative to the bench file; check the name"
 
 
 def read_csv_loss(path: Path, *, display: str, where: str) -> TableLoss:
@@ -113,10 +102,8 @@ def read_csv_loss(path: Path, *, display: str, where: str) -> TableLoss:
     a header (column names, starting with a letter).
     """
     display = shorten(display)
-    try:
-        raw = path.read_bytes()
-    except (OSError, ValueError) as exc:
-        raise _missing_or_unreadable(exc, "loss table", display, where) from None
+    raw = read_file_bytes(path, what="loss table", display=display, where=where,
+                          missing_fix=_MISSING_FIX, expected="a .csv file")
     try:
         text = raw.decode("utf-8-sig")
     except UnicodeDecodeError as exc:
@@ -162,10 +149,8 @@ _S2P_ROW_NUMBERS = 9
 
 def _touchstone_text(path: Path, display: str, where: str) -> str:
     """The text of a Touchstone file (UTF-8, else Latin-1); refuses missing and empty files."""
-    try:
-        raw = path.read_bytes()
-    except (OSError, ValueError) as exc:
-        raise _missing_or_unreadable(exc, "Touchstone file", display, where) from None
+    raw = read_file_bytes(path, what="Touchstone file", display=display, where=where,
+                          missing_fix=_MISSING_FIX, expected="a .s2p file")
     try:
         text = raw.decode("utf-8-sig")
     except UnicodeDecodeError:

@@ -27,6 +27,8 @@ from pydantic import BaseModel, ConfigDict, Field, ValidationError
 
 import sweeprig
 from sweeprig.errors import InputError, SweeprigError
+from sweeprig.files import read_file_bytes
+from sweeprig.formats.toml_depth import check_toml_depth
 from sweeprig.instruments.ops import (
     COMMON_DEFAULTS,
     KINDS,
@@ -558,6 +560,7 @@ def parse_profile(text: str, path: Path | str = "<profile>") -> Profile:
 
     Raises :class:`InputError` naming ``file:line: key`` for any problem.
     """
+    check_toml_depth(text, str(path))
     try:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
@@ -666,20 +669,10 @@ def parse_profile(text: str, path: Path | str = "<profile>") -> Profile:
 
 
 def _read(path: Path) -> str:
-    try:
-        raw = path.read_bytes()
-    except FileNotFoundError:
-        raise InputError(
-            f"no driver profile file {path}",
-            where=str(path),
-            fix="check the path, or name a profile listed by `available_profiles()`",
-        ) from None
-    except OSError as exc:
-        raise InputError(
-            f"cannot read the driver profile: {exc.strerror or exc}",
-            where=str(path),
-            fix="check the file's permissions",
-        ) from None
+    raw = read_file_bytes(
+        path, what="driver profile file", display=str(path), where=str(path),
+        missing_fix="check the path, or name a profile listed by `available_profiles()`",
+        expected="a .toml profile file")
     try:
         return raw.decode("utf-8")
     except UnicodeDecodeError as exc:
