@@ -14,10 +14,18 @@ one. Strings and comments are skipped, so brackets and dots inside them do not c
 
 from __future__ import annotations
 
+import re
+
 from sweeprig.errors import InputError
 
 #: Deepest nesting accepted. Sweeprig's own files nest at most about 6 levels.
 MAX_DEPTH = 64
+
+
+#: The characters the scan stops at; everything else is skipped in one regex search.
+_STOPS = re.compile(r"[\n#\"'\[\]{}=.,]")
+#: Where a basic (double-quoted) string may end or escape: a quote, a backslash, a line break.
+_BASIC_STOPS = re.compile(r'["\\\n]')
 
 
 class _Scan:
@@ -27,52 +35,49 @@ class _Scan:
         self.text = text
         self.limit = limit
         self.i = 0
-        self.line = 1
         self.stack: list[int] = []  # depth of each open array / inline table
         self.base = 0  # depth of the current [table]
         self.dots = 0  # key parts so far in the current key segment, minus one
         self.value_depth: int | None = None  # depth of the value right after '='
-        self.line_start = True
 
     def level(self) -> int:
         return self.stack[-1] if self.stack else self.base
 
+    def found(self, depth: int) -> tuple[int, int]:
+        return self.text.count("\n", 0, self.i) + 1, depth
+
     def too_deep(self) -> tuple[int, int] | None:
         """``(line, depth)`` of the first place nesting deeper than the limit, else None."""
-        text, n = self.text, len(self.text)
-        while self.i < n:
-            c = text[self.i]
+        text = self.text
+        while True:
+            match = _STOPS.search(text, self.i)
+            if match is None:
+                return None
+            self.i = match.start()
+            c = match[0]
             if c == "\n":
-                self.line += 1
-                self.line_start = True
                 if not self.stack:
                     self.dots = 0
-                self.i += 1
-                continue
-            if c in " \t\r":
-                self.i += 1
-                continue
-            at_line_start = self.line_start
-            self.line_start = False
-            if c == "#":
+                    self.value_depth = None
+            elif c == "#":
                 end = text.find("\n", self.i)
-                self.i = n if end < 0 else end
+                self.i = len(text) if end < 0 else end
                 continue
-            if c in "\"'":
+            elif c in "\"'":
                 self.value_depth = None
                 self._skip_string(c)
                 continue
-            if c == "[" and at_line_start and not self.stack:
-                found = self._header()
-                if found is not None:
-                    return found
+            elif c == "[" and not self.stack and self._at_line_start():
+                problem = self._header()
+                if problem is not None:
+                    return problem
                 continue
-            if c in "[{":
+            elif c in "[{":
                 depth = self.value_depth if self.value_depth is not None else self.level() + 1
                 self.value_depth = None
                 self.dots = 0
                 if depth > self.limit:
-                    return self.line, depth
+                    return self.found(depth)
                 self.stack.append(depth)
             elif c in "]}":
                 if self.stack:
@@ -81,20 +86,21 @@ class _Scan:
             elif c == "=":
                 depth = self.level() + self.dots + 1
                 if depth > self.limit:
-                    return self.line, depth
+                    return self.found(depth)
                 self.value_depth = depth
                 self.dots = 0
             elif c == ".":
                 self.dots += 1
                 if self.level() + self.dots > self.limit:
-                    return self.line, self.level() + self.dots
-            elif c == ",":
+                    return self.found(self.level() + self.dots)
+            else:  # ","
                 self.dots = 0
                 self.value_depth = None
-            else:
-                self.value_depth = None
             self.i += 1
-        return None
+
+    def _at_line_start(self) -> bool:
+        start = self.text.rfind("\n", 0, self.i) + 1
+        return not self.text[start: self.i].strip()
 
     def _header(self) -> tuple[int, int] | None:
         """A ``[table]`` or ``[[array.of.tables]]`` line: its depth becomes the base."""
@@ -110,38 +116,58 @@ class _Scan:
             if c == ".":
                 dots += 1
                 if dots + 1 > self.limit:
-                    return self.line, dots + 1
+                    return self.found(dots + 1)
             self.i += 1
         self.base = dots + 1 + (1 if double else 0)
         self.dots = 0
         self.value_depth = None
         if self.base > self.limit:
-            return self.line, self.base
+            return self.found(self.base)
         return None
 
     def _skip_string(self, quote: str) -> None:
-        """Move past a string starting at ``self.i`` (single- or multi-line, either quote)."""
+        """Move past a string starting at ``self.i`` (single- or multi-line, either quote).
+
+        An unterminated one-line string ends at its line break (the parser reports it).
+        """
         text, n = self.text, len(self.text)
-        if text.startswith(quote * 3, self.i):
-            end_mark = quote * 3
-            j = self.i + 3
-            while j < n:
-                if quote == '"' and text[j] == "\\":
-                    j += 2
-                    continue
-                if text.startswith(end_mark, j):
-                    break
+        multi = text.startswith(quote * 3, self.i)
+        j = self.i + (3 if multi else 1)
+        while j < n:
+            if quote == "'":
+                end = text.find("\'\'\'" if multi else "'", j)
+                line_end = -1 if multi else text.find("\n", j, end if end >= 0 else n)
+                if line_end >= 0:
+                    self.i = line_end
+                    return
+                j = n if end < 0 else end
+                break
+            stop = _BASIC_STOPS.search(text, j)
+            if stop is None:
+                j = n
+                break
+            j = stop.start()
+            if stop[0] == "\\":
+                j += 2
+            elif stop[0] == "\n":
+                if not multi:
+                    self.i = j
+                    return
                 j += 1
-            self.line += text.count("\n", self.i, min(j, n))
-            self.i = min(j + 3, n)
-            while self.i < n and text[self.i] == quote:  # up to two quotes end the content
-                self.i += 1
+            elif not multi or text.startswith('"""', j):
+                break
+            else:
+                j += 1
+        if j >= n:
+            self.i = n
             return
-        j = self.i + 1
-        while j < n and text[j] != quote and text[j] != "\n":
-            j += 2 if quote == '"' and text[j] == "\\" and j + 1 < n and text[j + 1] != "\n" \
-                else 1
-        self.i = j + 1 if j < n and text[j] == quote else j
+        j += 3 if multi else 1
+        if multi:  # up to two more quotes belong to the content
+            extra = 0
+            while extra < 2 and j < n and text[j] == quote:
+                j += 1
+                extra += 1
+        self.i = j
 
 
 def toml_depth_problem(text: str, limit: int = MAX_DEPTH) -> tuple[int, int] | None:

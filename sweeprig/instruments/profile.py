@@ -66,18 +66,23 @@ class _Strict(BaseModel):
     model_config = ConfigDict(extra="forbid", strict=True, frozen=True)
 
 
+#: A profile's waits: at least 1 ms (pyvisa counts whole milliseconds; a shorter timeout is a
+#: slip of the unit), at most a day (a chamber ramp across its range takes hours).
+_TimeoutS = Annotated[float, Field(ge=1e-3, le=86400)]
+
+
 class _PollModel(_Strict):
     method: Literal["poll"]
     query: str
     until: str | None = None
     until_bits_clear: Annotated[int, Field(ge=1)] | None = None
     interval_s: Annotated[float, Field(gt=0, le=60)] = 0.05
-    timeout_s: Annotated[float, Field(gt=0)] = 60.0
+    timeout_s: _TimeoutS = 60.0
 
 
 class _OpcModel(_Strict):
     method: Literal["opc"]
-    timeout_s: Annotated[float, Field(gt=0)] = 60.0
+    timeout_s: _TimeoutS = 60.0
 
 
 class _OpModel(_Strict):
@@ -91,7 +96,7 @@ class _OpModel(_Strict):
     map: dict[str, str] | None = None
     mask: Annotated[int, Field(ge=1)] | None = None
     complete: Literal["opc", "none"] | _OpcModel | _PollModel | None = None
-    timeout_s: Annotated[float, Field(gt=0)] | None = None
+    timeout_s: _TimeoutS | None = None
     note: str | None = None
 
 
