@@ -44,6 +44,12 @@ def escape_controls(text: str, *, keep_breaks: bool = True) -> str:
     return pattern.sub(_escape, text)
 
 
+def one_line(value: object) -> str:
+    """``str(value)`` for one line of a terminal: every control character escaped, line
+    breaks and tabs included (a title, a part id, a file name, an instrument's reply)."""
+    return escape_controls(str(value), keep_breaks=False)
+
+
 def has_controls(text: str) -> bool:
     """True when :func:`escape_controls` would change ``text`` (line breaks count)."""
     return _UNSAFE_WITH_BREAKS.search(text) is not None

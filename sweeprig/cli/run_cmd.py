@@ -8,6 +8,7 @@ from typing import Annotated
 
 import typer
 from rich.console import Console
+from rich.markup import escape as markup_escape
 from rich.progress import (
     BarColumn,
     MofNCompleteColumn,
@@ -33,6 +34,7 @@ from sweeprig.report import write_report
 from sweeprig.report.terminal import print_summary
 from sweeprig.store.base import DEFAULT_STORE_PATH
 from sweeprig.store.sqlite import SqliteRunStore
+from sweeprig.text import one_line
 
 _RUN_HELP = """Run a sequence file on a bench, unattended, storing every point as it is taken.
 
@@ -101,7 +103,8 @@ def _drive(start: Callable[..., RunOutcome], *, quiet: bool, report: bool = True
 
     def started(run_id: int, total: int, files: LoadedFiles) -> None:
         where = "the simulated bench" if files.simulated else files.bench_path
-        console.print(f"run {run_id}: {files.sequence_path} on {where}, {total} points")
+        console.print(Text(f"run {run_id}: {one_line(files.sequence_path)} on {one_line(where)}, "
+                           f"{total} points"))
         state["task"] = progress.add_task(f"run {run_id}", total=total)
         progress.start()
 
@@ -158,7 +161,7 @@ def _print_outcome(console: Console, outcome: RunOutcome) -> None:
     colour = "green" if outcome.status == "complete" else "red"
     console.print(
         f"[{colour}]run {outcome.run_id} {outcome.status}[/{colour}]"
-        + (f": {outcome.reason}" if outcome.reason else "")
+        + (f": {markup_escape(one_line(outcome.reason))}" if outcome.reason else "")
     )
     console.print(
         f"  points stored: {outcome.points_done} of {outcome.points_total}; "
@@ -172,8 +175,8 @@ def _print_outcome(console: Console, outcome: RunOutcome) -> None:
         else:
             console.print("[red]  SAFE STATE INCOMPLETE — check the bench by hand now:[/red] "
                           + "; ".join(f"{n}: {e}" for n, e in outcome.safe.failed))
-    console.print(Text(f"  results: {outcome.store_path} (run {outcome.run_id}); "
-                       f"log: {outcome.log_path}"))
+    console.print(Text(f"  results: {one_line(outcome.store_path)} (run {outcome.run_id}); "
+                       f"log: {one_line(outcome.log_path)}"))
 
 
 _RESUME_HELP = """Continue an interrupted or aborted run: measure only the points not yet stored.
