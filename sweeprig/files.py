@@ -51,6 +51,14 @@ def max_file_bytes() -> int:
     return value
 
 
+def shorten_path(text: str, limit: int = 160) -> str:
+    """A long path cut in its middle (its start and its file name stay), with its length."""
+    if len(text) <= limit:
+        return text
+    head, tail = limit // 3, limit - limit // 3
+    return f"{text[:head]}…{text[-tail:]} ({len(text):,} characters)"
+
+
 def _kind_of(mode: int) -> str | None:
     """What a non-regular file is, in words (None for a regular file)."""
     if stat.S_ISREG(mode):
@@ -85,7 +93,7 @@ def read_file_bytes(path: str | os.PathLike[str], *, what: str = "file",
     ``missing_fix`` the fix offered when the file does not exist; ``expected`` what to give
     instead of a directory ("a .toml file").
     """
-    shown = escape_controls(shorten(display if display is not None else os.fspath(path)))
+    shown = escape_controls(shorten_path(display if display is not None else os.fspath(path)))
     place = where or shown
     cap = max_file_bytes()
 

@@ -18,7 +18,7 @@ import numpy as np
 from numpy.typing import ArrayLike
 
 from sweeprig.errors import InputError
-from sweeprig.files import read_file_bytes
+from sweeprig.files import read_file_bytes, shorten_path
 from sweeprig.text import offending_token
 from sweeprig.units import format_frequency, shorten
 
@@ -106,7 +106,7 @@ def read_csv_loss(path: Path, *, display: str, where: str, allow_gain: bool = Fa
     −:data:`GAIN_TOLERANCE_DB`) is refused unless ``allow_gain`` (an amplifier in the path).
     Messages quote at most one offending cell, cut short: the file may be anything.
     """
-    display = shorten(display)
+    display = shorten_path(display)
     raw = read_file_bytes(path, what="loss table", display=display, where=where,
                           missing_fix=_MISSING_FIX, expected="a .csv file")
     try:
@@ -313,7 +313,7 @@ def read_touchstone_loss(path: Path, *, display: str, where: str, allow_gain: bo
     increase, tables of fewer than 2 frequencies and, unless ``allow_gain`` (an amplifier in
     the path), |S21| above 0 dB (beyond :data:`GAIN_TOLERANCE_DB`) are refused.
     """
-    display = shorten(display)
+    display = shorten_path(display)
     text = _touchstone_text(path, display, where)
     _check_touchstone_shape(text, path.name, display, where)
     if path.suffix.lower() == ".s2p":

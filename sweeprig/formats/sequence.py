@@ -505,10 +505,6 @@ def check_sequence(sequence: Sequence) -> None:
     if cond.temperature_tolerance <= 0:
         raise _problem(sequence, ("conditions", "temperature_tolerance"),
                        "temperature_tolerance must be above 0 degC", "write e.g. 1.0")
-    for key in ("soak", "settle"):
-        if getattr(cond, key) < 0:
-            raise _problem(sequence, ("conditions", key), f"{key} must not be negative",
-                           'write a time such as "20 ms"')
     for path, value in (
         (("conditions", "soak"), cond.soak),
         (("conditions", "settle"), cond.settle),

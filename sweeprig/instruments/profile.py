@@ -21,6 +21,7 @@ import tomllib
 from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
+from stat import S_ISREG
 from typing import Annotated, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, ValidationError
@@ -675,7 +676,7 @@ def parse_profile(text: str, path: Path | str = "<profile>") -> Profile:
 
 def _read(path: Path) -> str:
     raw = read_file_bytes(
-        path, what="driver profile file", display=str(path), where=str(path),
+        path, what="driver profile file", display=str(path),
         missing_fix="check the path, or name a profile listed by `available_profiles()`",
         expected="a .toml profile file")
     try:
@@ -700,6 +701,8 @@ def load_profile_file(path: Path | str) -> Profile:
     try:
         stat = path.stat()
     except OSError:
+        return parse_profile(_read(path), path)
+    if not S_ISREG(stat.st_mode):  # refused by _read, under the name given
         return parse_profile(_read(path), path)
     return _load_cached(path.resolve(), stat.st_mtime_ns, stat.st_size)
 
