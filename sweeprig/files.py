@@ -187,6 +187,14 @@ def _os_error(refuse: _Refusal, exc: OSError, missing_fix: str) -> InputError:
     return error
 
 
+def read_file_text(path: str | os.PathLike[str], *, what: str = "file") -> str:
+    """The text of the regular file ``path`` as ``Path.read_text`` gives it (UTF-8, line
+    endings made ``\n``), read through :func:`read_file_bytes`. A problem opening it is an
+    :class:`InputError`; bytes that are not UTF-8 a ``UnicodeDecodeError``."""
+    raw = read_file_bytes(path, what=what)
+    return raw.decode("utf-8").replace("\r\n", "\n").replace("\r", "\n")
+
+
 def is_symlink_loop(path: Path) -> bool:
     """True when ``path`` is a chain of symbolic links that never reaches a file."""
     try:
