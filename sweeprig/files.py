@@ -7,9 +7,10 @@ Sequence, bench, part, simulated-bench, driver-profile and path-loss files all c
   checked with ``os.stat`` before opening and again on the open descriptor (the name cannot be
   swapped in between), and opened with ``O_NONBLOCK`` so that no FIFO can hang the process;
 * reachable: a symlink loop or a name no file system can hold is a located error;
-* small: at most :func:`max_file_bytes` bytes (``SWEEPRIG_MAX_FILE_BYTES``, default 16 MiB,
-  far above any real sequence), and never more than that plus one byte is read, so a file
-  that grows while read (or lies about its size) cannot exhaust memory.
+* small: at most :func:`max_file_bytes` bytes (``SWEEPRIG_MAX_FILE_BYTES``; by default 16 MiB
+  for data tables, and 2 MiB for TOML files, which Python's parser reads at about 1 s per MB
+  at worst: a sequence of 2,000 studies is 0.3 MB), and never more than that plus one byte is
+  read, so a file that grows while read (or lies about its size) cannot exhaust memory.
 
 Every refusal is an :class:`~sweeprig.errors.InputError` naming the file and the fix.
 """
@@ -28,16 +29,19 @@ from sweeprig.units import shorten
 
 #: The environment variable that sets the size cap, in bytes.
 MAX_FILE_BYTES_ENV = "SWEEPRIG_MAX_FILE_BYTES"
-#: The default size cap: 16 MiB. A large sequence with many studies is a few hundred kB.
+#: The default size cap: 16 MiB (a Touchstone file of 100,000 frequencies is about 10 MB).
 DEFAULT_MAX_FILE_BYTES = 16 * 1024 * 1024
+#: The default size cap of TOML files: 2 MiB (a sequence of 2,000 studies is 0.3 MB).
+DEFAULT_MAX_TOML_BYTES = 2 * 1024 * 1024
 _CHUNK = 1024 * 1024
 
 
-def max_file_bytes() -> int:
-    """The size cap in bytes: ``SWEEPRIG_MAX_FILE_BYTES`` when set to a positive whole number."""
+def max_file_bytes(*, toml: bool = False) -> int:
+    """The size cap in bytes: ``SWEEPRIG_MAX_FILE_BYTES`` when set to a positive whole number,
+    else the default for data tables or (``toml``) for TOML files."""
     raw = os.environ.get(MAX_FILE_BYTES_ENV, "").strip()
     if not raw:
-        return DEFAULT_MAX_FILE_BYTES
+        return DEFAULT_MAX_TOML_BYTES if toml else DEFAULT_MAX_FILE_BYTES
     try:
         value = int(raw)
     except ValueError:
@@ -47,7 +51,7 @@ def max_file_bytes() -> int:
             f"{MAX_FILE_BYTES_ENV}={shorten(escape_controls(raw), 40)} is not a positive "
             "whole number of bytes",
             where=MAX_FILE_BYTES_ENV,
-            fix=f"set it to e.g. {DEFAULT_MAX_FILE_BYTES} (bytes), or unset it for 16 MiB")
+            fix=f"set it to e.g. {DEFAULT_MAX_FILE_BYTES} (bytes), or unset it for the defaults")
     return value
 
 
@@ -85,17 +89,17 @@ def _size_text(size: int) -> str:
 def read_file_bytes(path: str | os.PathLike[str], *, what: str = "file",
                     display: str | None = None, where: str | None = None,
                     missing_fix: str = "check the path (relative paths start at the working "
-                    "directory)", expected: str = "the file itself") -> bytes:
+                    "directory)", expected: str = "the file itself", toml: bool = False) -> bytes:
     """The bytes of the regular file ``path``, refusing anything else (see the module doc).
 
     ``what`` names the file's role in messages ("sequence file", "loss table"); ``display``
     is the name shown (default: ``path``); ``where`` the place named (default: ``display``);
     ``missing_fix`` the fix offered when the file does not exist; ``expected`` what to give
-    instead of a directory ("a .toml file").
+    instead of a directory ("a .toml file"); ``toml``: the cap of TOML files applies.
     """
     shown = escape_controls(shorten_path(display if display is not None else os.fspath(path)))
     place = where or shown
-    cap = max_file_bytes()
+    cap = max_file_bytes(toml=toml)
 
     # where already names the file itself: say "the file" rather than its name twice
     refuse = _Refusal(f"the {what}" if where is None else f"{what} {shown}", place, expected)
@@ -191,7 +195,7 @@ def read_file_text(path: str | os.PathLike[str], *, what: str = "file") -> str:
     """The text of the regular file ``path`` as ``Path.read_text`` gives it (UTF-8, line
     endings made ``\n``), read through :func:`read_file_bytes`. A problem opening it is an
     :class:`InputError`; bytes that are not UTF-8 a ``UnicodeDecodeError``."""
-    raw = read_file_bytes(path, what=what)
+    raw = read_file_bytes(path, what=what, toml=True)
     return raw.decode("utf-8").replace("\r\n", "\n").replace("\r", "\n")
 
 

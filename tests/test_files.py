@@ -10,6 +10,7 @@ import pytest
 from sweeprig.errors import InputError
 from sweeprig.files import (
     DEFAULT_MAX_FILE_BYTES,
+    DEFAULT_MAX_TOML_BYTES,
     MAX_FILE_BYTES_ENV,
     max_file_bytes,
     read_file_bytes,
@@ -70,6 +71,7 @@ def test_the_size_cap_comes_from_the_environment(tmp_path: Path,
                                                  monkeypatch: pytest.MonkeyPatch) -> None:
     monkeypatch.delenv(MAX_FILE_BYTES_ENV, raising=False)
     assert max_file_bytes() == DEFAULT_MAX_FILE_BYTES
+    assert max_file_bytes(toml=True) == DEFAULT_MAX_TOML_BYTES < DEFAULT_MAX_FILE_BYTES
     path = tmp_path / "a.toml"
     path.write_bytes(b"#" * 100)
     monkeypatch.setenv(MAX_FILE_BYTES_ENV, "100")

@@ -34,7 +34,7 @@ from sweeprig.report import write_report
 from sweeprig.report.terminal import print_summary
 from sweeprig.store.base import DEFAULT_STORE_PATH
 from sweeprig.store.sqlite import SqliteRunStore
-from sweeprig.text import one_line
+from sweeprig.text import escape_controls, one_line
 
 _RUN_HELP = """Run a sequence file on a bench, unattended, storing every point as it is taken.
 
@@ -161,7 +161,7 @@ def _print_outcome(console: Console, outcome: RunOutcome) -> None:
     colour = "green" if outcome.status == "complete" else "red"
     console.print(
         f"[{colour}]run {outcome.run_id} {outcome.status}[/{colour}]"
-        + (f": {markup_escape(one_line(outcome.reason))}" if outcome.reason else "")
+        + (f": {markup_escape(escape_controls(outcome.reason))}" if outcome.reason else "")
     )
     console.print(
         f"  points stored: {outcome.points_done} of {outcome.points_total}; "

@@ -23,7 +23,7 @@ from sweeprig.errors import StoreError, SweeprigError
 from sweeprig.report.tables import make_folder
 from sweeprig.store.base import DEFAULT_STORE_PATH, RunInfo, utc_now
 from sweeprig.store.sqlite import SqliteRunStore
-from sweeprig.text import one_line
+from sweeprig.text import escape_controls, one_line
 
 StoreOption = Annotated[
     Path,
@@ -147,7 +147,7 @@ def _print_status(info: RunInfo, points: pd.DataFrame, events: list, n_events: i
     if info.status != info.stored_status:
         status += f" (stored as {info.stored_status}; its process is gone or silent)"
     if info.reason:
-        status += f" — {markup_escape(one_line(info.reason))}"
+        status += f" — {markup_escape(escape_controls(info.reason))}"
     console.print(Text(f"run {info.id}", style="bold")
                   + Text(f"  {one_line(info.title)}" if info.title else ""))
     lines = [

@@ -28,7 +28,7 @@ from pydantic import BaseModel, ValidationError
 from sweeprig.errors import InputError
 from sweeprig.files import read_file_bytes
 from sweeprig.formats.fields import TAG_PREFIX
-from sweeprig.formats.toml_depth import check_toml_depth
+from sweeprig.formats.toml_depth import check_toml_depth, check_value_count
 from sweeprig.formats.toml_locate import KeyLocator, KeyPath, format_key_path
 from sweeprig.units import short_repr, shorten
 
@@ -147,7 +147,8 @@ def read_text(path: Path, display: str | None = None, *, what: str = "file",
     file's name), e.g. at the include line that named it.
     """
     shown = display or display_path(path)
-    raw = read_file_bytes(path, what=what, display=shown, where=where, expected="a .toml file")
+    raw = read_file_bytes(path, what=what, display=shown, where=where, expected="a .toml file",
+                          toml=True)
     if raw.startswith(b"\xef\xbb\xbf"):
         raw = raw[3:]
     try:
@@ -166,7 +167,9 @@ def parse_toml(text: str, display: str) -> dict[str, Any]:
     """Parse TOML text; a syntax error names the file, line and column."""
     check_toml_depth(text, display)
     try:
-        return tomllib.loads(text)
+        data = tomllib.loads(text)
+        check_value_count(data, display)
+        return data
     except tomllib.TOMLDecodeError as exc:
         message = str(exc)
         match = _TOML_POS.search(message)

@@ -17,9 +17,17 @@ from __future__ import annotations
 import re
 
 from sweeprig.errors import InputError
+from sweeprig.formats.toml_locate import format_key_path
 
 #: Deepest nesting accepted. Sweeprig's own files nest at most about 6 levels.
 MAX_DEPTH = 64
+#: Most table headers (``[t]``, ``[[t]]``) accepted: Python's TOML parser takes time growing
+#: with the square of their number (100,000 ``[[study]]`` lines take 10 s); a sequence of
+#: 2,000 studies has a few thousand.
+MAX_TABLE_HEADERS = 20_000
+#: Most values (keys and array items, counted through every level) a parsed file may hold:
+#: validating more, each wrong, would build one error per value (500,000 take 300 MB).
+MAX_VALUES = 200_000
 
 
 #: The characters the scan stops at; everything else is skipped in one regex search.
@@ -39,6 +47,8 @@ class _Scan:
         self.base = 0  # depth of the current [table]
         self.dots = 0  # key parts so far in the current key segment, minus one
         self.value_depth: int | None = None  # depth of the value right after '='
+        self.headers = 0
+        self.too_many_headers: int | None = None  # line of the header past the limit
 
     def level(self) -> int:
         return self.stack[-1] if self.stack else self.base
@@ -105,6 +115,11 @@ class _Scan:
     def _header(self) -> tuple[int, int] | None:
         """A ``[table]`` or ``[[array.of.tables]]`` line: its depth becomes the base."""
         text, n = self.text, len(self.text)
+        self.headers += 1
+        if self.headers > MAX_TABLE_HEADERS and self.too_many_headers is None:
+            self.too_many_headers = self.text.count("\n", 0, self.i) + 1
+            self.i = n  # stop here: the file is refused for its size
+            return None
         double = text.startswith("[[", self.i)
         self.i += 2 if double else 1
         dots = 0
@@ -170,14 +185,46 @@ class _Scan:
         self.i = j
 
 
+def check_value_count(data: dict[str, object], display: str, limit: int = MAX_VALUES) -> None:
+    """Refuse a parsed file holding more than ``limit`` values (keys and array items at every
+    level), naming the key path where the count passed the limit. Linear, no recursion."""
+    count = 0
+    stack: list[tuple[tuple[object, ...], object]] = [((), data)]
+    while stack:
+        path, node = stack.pop()
+        children: list[tuple[object, object]] = []
+        if isinstance(node, dict):
+            children = list(node.items())
+        elif isinstance(node, list):
+            children = list(enumerate(node))
+        count += len(children)
+        if count > limit:
+            shown = format_key_path(tuple(path)) or "the top level"  # type: ignore[arg-type]
+            raise InputError(
+                f"the file holds more than {limit:,} values (counted through {shown})",
+                where=display,
+                fix="a sequence or bench file holds at most some thousands of values; check "
+                "that this is the right file, use ranges instead of long lists, or split it")
+        stack.extend(((*path, key), child) for key, child in children
+                     if isinstance(child, dict | list))
+
+
 def toml_depth_problem(text: str, limit: int = MAX_DEPTH) -> tuple[int, int] | None:
     """``(line, depth)`` where ``text`` first nests deeper than ``limit``, else None."""
     return _Scan(text, limit).too_deep()
 
 
 def check_toml_depth(text: str, display: str, limit: int = MAX_DEPTH) -> None:
-    """Refuse TOML text nesting deeper than ``limit`` (an InputError naming the line)."""
-    found = toml_depth_problem(text, limit)
+    """Refuse TOML text nesting deeper than ``limit``, or holding more than
+    :data:`MAX_TABLE_HEADERS` table headers (an InputError naming the line)."""
+    scan = _Scan(text, limit)
+    found = scan.too_deep()
+    if scan.too_many_headers is not None:
+        raise InputError(
+            f"the file holds more than {MAX_TABLE_HEADERS:,} table headers ([...] or [[...]])",
+            where=f"{display}:{scan.too_many_headers}",
+            fix="a sequence or bench file holds at most a few thousand tables; check that "
+            "this is the right file, or split it")
     if found is None:
         return
     line, depth = found

@@ -29,7 +29,7 @@ from pydantic import BaseModel, ConfigDict, Field, ValidationError
 import sweeprig
 from sweeprig.errors import InputError, SweeprigError
 from sweeprig.files import read_file_bytes
-from sweeprig.formats.toml_depth import check_toml_depth
+from sweeprig.formats.toml_depth import check_toml_depth, check_value_count
 from sweeprig.instruments.ops import (
     COMMON_DEFAULTS,
     KINDS,
@@ -585,6 +585,7 @@ def parse_profile(text: str, path: Path | str = "<profile>") -> Profile:
             where=f"{path}:{line}" if line else str(path),
             fix="write the number with at most a few digits (and an exponent, e.g. 2.4e9)",
         ) from None
+    check_value_count(data, str(path))
     try:
         model = _FileModel.model_validate(data)
     except ValidationError as exc:
@@ -678,7 +679,7 @@ def _read(path: Path) -> str:
     raw = read_file_bytes(
         path, what="driver profile file", display=str(path),
         missing_fix="check the path, or name a profile listed by `available_profiles()`",
-        expected="a .toml profile file")
+        expected="a .toml profile file", toml=True)
     try:
         return raw.decode("utf-8")
     except UnicodeDecodeError as exc:

@@ -20,7 +20,7 @@ from sweeprig.report.tables import (
     flag_badge,
     summary_rows,
 )
-from sweeprig.text import one_line
+from sweeprig.text import escape_controls, one_line
 
 VERDICT_STYLES = {PASS: "bold green", FAIL: "bold red", INCONCLUSIVE: "bold yellow",
                   NO_LIMIT: "dim"}
@@ -63,7 +63,7 @@ def print_summary(run: RunFigures, console: Console | None = None) -> None:
                 + (f" {one_line(run.serial)}" if run.serial else "") + "  ")
     head.append_text(state)
     if run.reason:
-        head.append(f" ({one_line(run.reason)})")
+        head.append(f" ({escape_controls(run.reason)})")
     console.print(head)
     if run.title:
         console.print(Text(one_line(run.title), style="dim"))

@@ -305,7 +305,7 @@ def _run_entry(kind: str, entry: str, path: Path, tmp_path: Path,
 
 
 #: What each ``generate`` shape makes (see :func:`_generate`).
-SHAPES = ("fifo", "dev-zero", "symlink-loop", "self-link", "sparse-700mb", "directory",
+SHAPES = ("fifo", "dev-zero", "symlink-loop", "self-link", "sparse-700mb", "directory", "toml-3mib",
           "include-fifo", "include-dev-zero", "include-symlink-loop", "include-sparse-700mb",
           "include-self-link", "include-directory")
 #: What a generated include is merged into, per kind.
@@ -341,6 +341,8 @@ def _generate(shape: str, rel: str, folder: Path) -> Path:
     elif shape == "sparse-700mb":
         with path.open("wb") as handle:  # a hole: 700 MB on paper, nothing on disk
             handle.truncate(SPARSE_BYTES)
+    elif shape == "toml-3mib":  # real content, above the TOML cap, below the data-table cap
+        path.write_text("# padding\n" * (3 * 1024 * 1024 // 10), encoding="utf-8")
     else:  # directory
         path.mkdir()
     return path
