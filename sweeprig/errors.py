@@ -7,6 +7,8 @@ boundary (``raise ... from exc``) so the CLI can print one clear message and exi
 
 from __future__ import annotations
 
+from sweeprig.text import escape_controls
+
 
 class SweeprigError(Exception):
     """Root of every error sweeprig raises on purpose.
@@ -26,8 +28,11 @@ class SweeprigError(Exception):
         super().__init__(self.message())
 
     def message(self) -> str:
-        head = f"{self.where}: {self.what}" if self.where else self.what
-        return f"{head}\n  fix: {self.fix}" if self.fix else head
+        """``where: what`` and the fix on the next line, control characters escaped (the
+        parts may quote a file, and the message may reach a terminal or a report)."""
+        what = escape_controls(self.what)
+        head = f"{escape_controls(self.where)}: {what}" if self.where else what
+        return f"{head}\n  fix: {escape_controls(self.fix)}" if self.fix else head
 
 
 class InputError(SweeprigError):

@@ -47,6 +47,7 @@ from sweeprig.analysis.figures import Figure
 from sweeprig.analysis.limits import INCONCLUSIVE, PASS, Assessment, Limit, Verdict, assess
 from sweeprig.analysis.load import captures_from_frames
 from sweeprig.errors import SweeprigError
+from sweeprig.files import read_file_text
 from sweeprig.formats.fields import axis_len
 from sweeprig.formats.sequence import Sequence, Study, load_sequence, sequence_from_dict
 from sweeprig.plan.frequencies import wanted_orders
@@ -259,7 +260,7 @@ def _stored_sequence(text: str, path: str, sha256: str, notes: list[str]) -> Seq
     try:
         if data.get("include"):
             file = Path(path)
-            if file.is_file() and _sha256(file.read_text(encoding="utf-8")) == sha256:
+            if file.is_file() and _sha256(read_file_text(file)) == sha256:
                 return load_sequence(file)
             notes.append("the sequence includes other files, and its file has changed or "
                          "moved since the run: limits are read from the stored text alone")

@@ -14,6 +14,7 @@ from sweeprig.cli.common import fail
 from sweeprig.errors import InputError, SweeprigError
 from sweeprig.store.base import DEFAULT_STORE_PATH
 from sweeprig.store.sqlite import SqliteRunStore
+from sweeprig.text import one_line
 
 _BUS_HELP = """Print the SCPI exchanges of a run, for post-mortems: time, role, what was sent,
 what came back and how long it took. Needs a run recorded with `sweeprig run --bus-log`.
@@ -55,9 +56,9 @@ def bus_command(
         console.print(f"run {run_id}: no bus log entries match (was it run with --bus-log?)")
         return
     for e in entries:
-        reply = "" if e.received is None else f" -> {e.received}"
+        reply = "" if e.received is None else f" -> {one_line(e.received)}"
         console.print(f"{e.time.isoformat(timespec='milliseconds')} {e.role:<8} "
-                      f"{e.sent}{reply}  ({e.duration_s * 1e3:.2f} ms)", markup=False)
+                      f"{one_line(e.sent)}{reply}  ({e.duration_s * 1e3:.2f} ms)", markup=False)
 
 
 def _time(text: str | None, option: str) -> datetime | None:

@@ -27,6 +27,7 @@ from sweeprig.formats.sequence import DEFAULT_MAX_POINTS, Sequence, load_sequenc
 from sweeprig.plan.duration import estimate_duration, format_duration
 from sweeprig.plan.expand import layout
 from sweeprig.plan.preflight import PreflightReport, check_limits, format_amount, safety_error
+from sweeprig.text import one_line
 
 # -- where the shipped files are --------------------------------------------------------------
 
@@ -122,15 +123,16 @@ def check(
             sequence, report = check_file(path, loaded_bench, max_points)
         except SweeprigError as exc:
             results.append((str(path), time.perf_counter() - t0, exc))
-            out.print(Text("FAIL ", style="bold red") + Text(str(path)))
+            out.print(Text("FAIL ", style="bold red") + Text(one_line(path)))
             out.print(Text("  " + exc.message().replace("\n", "\n  ")))
             exit_code = exit_code or exc.exit_code
             continue
         results.append((str(path), time.perf_counter() - t0, None))
         out.print(Text("ok   ", style="bold green") + Text(
-            f"{path}  ({sequence.count_points():,} points, within the limits of {bench_name})"))
+            f"{one_line(path)}  ({sequence.count_points():,} points, within the limits of "
+            f"{one_line(bench_name)})"))
         for note in report.notes:
-            out.print(Text(f"  note: {note}"))
+            out.print(Text(f"  note: {one_line(note)}"))
     _write_junit(junit, results)
     failed = sum(1 for _, _, e in results if e is not None)
     if failed:
@@ -201,8 +203,8 @@ def plan(
     out = _out()
     lay = layout(seq)
     title = seq.about.title or seq.source or str(sequence)
-    out.print(Text(title, style="bold"))
-    out.print(f"part {seq.part.id}   bench: {bench_name}")
+    out.print(Text(one_line(title), style="bold"))
+    out.print(Text(f"part {one_line(seq.part.id)}   bench: {one_line(bench_name)}"))
     out.print(f"{lay.total:,} points = {lay.pass_size:,} per pass × {lay.n_temperatures} "
               f"temperature(s) × {lay.n_supplies} supply voltage(s)")
 

@@ -33,6 +33,7 @@ from sweeprig.report import write_report
 from sweeprig.report.terminal import print_summary
 from sweeprig.store.base import DEFAULT_STORE_PATH
 from sweeprig.store.sqlite import SqliteRunStore
+from sweeprig.text import escape_controls, one_line
 from sweeprig.transport.backend import visa_library_override
 
 _RUN_HELP = """Run a sequence file on a bench, unattended, storing every point as it is taken.
@@ -108,7 +109,8 @@ def _drive(start: Callable[..., RunOutcome], *, quiet: bool, report: bool = True
 
     def started(run_id: int, total: int, files: LoadedFiles) -> None:
         where = "the simulated bench" if files.simulated else files.bench_path
-        console.print(f"run {run_id}: {files.sequence_path} on {where}, {total} points")
+        console.print(Text(f"run {run_id}: {one_line(files.sequence_path)} on {one_line(where)}, "
+                           f"{total} points"))
         state["task"] = progress.add_task(f"run {run_id}", total=total)
         progress.start()
 
@@ -179,7 +181,7 @@ def print_unsafe(console: Console, safe: SafeOutcome) -> None:
     console.print(Text(f"BENCH NOT PROVEN SAFE: {len(safe.failed)} instrument(s) could not be "
                        "verified in their safe state. Act now, by hand:", style="bold red"))
     for _name, message in safe.failed:
-        console.print(Text(f"  - {message}", style="red"))
+        console.print(Text(f"  - {escape_controls(message)}", style="red"))
     if safe.done:
         console.print(Text("  verified by read-back: " + ", ".join(safe.done)))
     console.print(Text(f"  (exit code {BENCH_UNSAFE_EXIT_CODE}: bench not proven safe)",
@@ -193,7 +195,7 @@ def _print_outcome(console: Console, outcome: RunOutcome) -> None:
         reason = reason.split("; BENCH NOT PROVEN SAFE:")[0]  # told in full below
     console.print(Text.assemble(
         (f"run {outcome.run_id} {outcome.status}", colour),
-        f": {reason}" if reason else ""))
+        f": {escape_controls(reason)}" if reason else ""))
     stored = (f"{outcome.points_done} of {outcome.points_total}" if outcome.points_read_back
               else f"unknown: the store at {outcome.store_path} cannot be read back")
     console.print(
@@ -209,8 +211,8 @@ def _print_outcome(console: Console, outcome: RunOutcome) -> None:
                 + ". " + SAFE_CAUTION))
         else:
             print_unsafe(console, outcome.safe)
-    console.print(Text(f"  results: {outcome.store_path} (run {outcome.run_id}); "
-                       f"log: {outcome.log_path}"))
+    console.print(Text(f"  results: {one_line(outcome.store_path)} (run {outcome.run_id}); "
+                       f"log: {one_line(outcome.log_path)}"))
     if outcome.store_error is not None:
         console.print(Text("  the run store failed: the run stopped and the data after that "
                            "point is not kept", style="bold red"))

@@ -9,9 +9,11 @@ from typing import Annotated
 import typer
 from rich.console import Console
 from rich.table import Table
+from rich.text import Text
 
 from sweeprig.errors import SweeprigError
 from sweeprig.instruments.profile import Profile, load_all_profiles, matching_profiles
+from sweeprig.text import one_line
 from sweeprig.transport import visa
 from sweeprig.transport.backend import choose_visa_library
 
@@ -122,16 +124,18 @@ def scan_command(
     try:
         for name in resources:
             if not identify:
-                table.add_row(name)
+                table.add_row(Text(one_line(name)))
                 continue
             result = identify_resource(
                 name, profiles, visa_library=visa_library, timeout_s=timeout_s,
                 resource_manager=rm,
             )
             if result.error is not None:
-                table.add_row(name, f"[red]{result.error}[/]", "")
-            else:
-                table.add_row(name, result.idn or "", ", ".join(result.profiles) or "(none)")
+                table.add_row(Text(one_line(name)), Text(one_line(result.error), style="red"),
+                              "")
+            else:  # an instrument's reply may hold anything: shown escaped, never as markup
+                table.add_row(Text(one_line(name)), Text(one_line(result.idn or "")),
+                              ", ".join(result.profiles) or "(none)")
     finally:
         if rm is not None:
             rm.close()

@@ -14,13 +14,16 @@ from typing import Annotated
 import pandas as pd
 import typer
 from rich.console import Console
+from rich.markup import escape as markup_escape
 from rich.table import Table
+from rich.text import Text
 
 from sweeprig.cli.common import fail
 from sweeprig.errors import StoreError, SweeprigError
 from sweeprig.report.tables import make_folder
 from sweeprig.store.base import DEFAULT_STORE_PATH, RunInfo, utc_now
 from sweeprig.store.sqlite import SqliteRunStore
+from sweeprig.text import escape_controls, one_line
 
 StoreOption = Annotated[
     Path,
@@ -105,12 +108,12 @@ def runs_command(store: StoreOption = DEFAULT_STORE_PATH) -> None:
         table.add_row(
             str(run.id),
             f"[{style}]{run.status}[/]",
-            run.part,
-            run.serial,
+            Text(one_line(run.part)),
+            Text(one_line(run.serial)),
             _progress(run.points_done, run.points_total),
             _when(run.created)[:16],
             _duration(run.duration_s),
-            sequence,
+            Text(one_line(sequence)),
         )
     console.print(table)
 
@@ -145,18 +148,19 @@ def _print_status(info: RunInfo, points: pd.DataFrame, events: list, n_events: i
     if info.status != info.stored_status:
         status += f" (stored as {info.stored_status}; its process is gone or silent)"
     if info.reason:
-        status += f" — {info.reason}"
-    console.print(f"[bold]run {info.id}[/]" + (f"  {info.title}" if info.title else ""))
+        status += f" — {markup_escape(escape_controls(info.reason))}"
+    console.print(Text(f"run {info.id}", style="bold")
+                  + Text(f"  {one_line(info.title)}" if info.title else ""))
     lines = [
         ("status", status),
         ("progress", _progress(info.points_done, info.points_total)),
-        ("part", " ".join(x for x in (info.part, info.serial) if x) or "-"),
-        ("operator", info.operator or "-"),
-        ("tags", ", ".join(info.tags) or "-"),
-        ("sequence", f"{info.sequence_path}  sha256 {info.sequence_sha256[:12]}"),
+        ("part", _shown(" ".join(x for x in (info.part, info.serial) if x) or "-")),
+        ("operator", _shown(info.operator or "-")),
+        ("tags", _shown(", ".join(info.tags) or "-")),
+        ("sequence", f"{_shown(info.sequence_path)}  sha256 {info.sequence_sha256[:12]}"),
         (
             "bench",
-            f"{info.bench_path}  sha256 {(info.bench_sha256 or '')[:12]}"
+            f"{_shown(info.bench_path)}  sha256 {(info.bench_sha256 or '')[:12]}"
             if info.bench_path
             else "-",
         ),
@@ -174,7 +178,8 @@ def _print_status(info: RunInfo, points: pd.DataFrame, events: list, n_events: i
     if info.instruments:
         console.print("  instruments")
         for inst in info.instruments:
-            console.print(f"    {inst.role:<8} {inst.profile:<18} {inst.resource}  {inst.idn}")
+            console.print(Text(f"    {inst.role:<8} {inst.profile:<18} {one_line(inst.resource)}  "
+                               f"{one_line(inst.idn)}"))
     if len(points):
         last = points.iloc[-1]
         settings = ", ".join(
@@ -193,9 +198,15 @@ def _print_status(info: RunInfo, points: pd.DataFrame, events: list, n_events: i
         for event in events:
             where = f" point {event.point_index}" if event.point_index is not None else ""
             console.print(
-                f"    {_when(event.time)} {event.severity:<7} {event.kind}{where}: "
-                f"{event.message}"
+                Text(f"    {_when(event.time)} {event.severity:<7} {event.kind}{where}: "
+                     f"{one_line(event.message)}")
             )
+
+
+def _shown(text: object) -> str:
+    """A file's or the store's text for a line printed with markup: controls and markup
+    escaped."""
+    return markup_escape(one_line(text))
 
 
 def export_command(

@@ -41,6 +41,7 @@ from sweeprig.engine.runner import PointResult, RecoveryPolicy, Runner
 from sweeprig.engine.safe import SafeOutcome, make_safe
 from sweeprig.engine.simclock import SimControlClock
 from sweeprig.errors import BenchUnsafeError, InputError, StoreError, SweeprigError
+from sweeprig.files import read_file_text
 from sweeprig.formats.bench import Bench, load_bench
 from sweeprig.formats.sequence import Sequence, load_sequence, required_roles
 from sweeprig.instruments import available_profiles
@@ -283,9 +284,10 @@ def _file_differences(info: object) -> list[str]:
         pairs.append(("bench", info.bench_path, info.bench_text))  # type: ignore[attr-defined]
     for label, path, stored in pairs:
         try:
-            now = Path(path).read_text(encoding="utf-8")
-        except OSError as exc:
-            out.append(f"{label} file {path} cannot be read ({exc.strerror})")
+            now = read_file_text(path, what=f"{label} file")
+        except (InputError, UnicodeDecodeError) as exc:  # gone, a pipe, too big, not text
+            reason = exc.what if isinstance(exc, InputError) else "not UTF-8 text"
+            out.append(f"{label} file {path} cannot be read ({reason})")
             continue
         if now != (stored or ""):
             out.append(f"{label} file {path} differs ({_first_difference(stored or '', now)})")
@@ -698,7 +700,7 @@ class _QuietFileHandler(logging.FileHandler):
 
 
 def _read_text(path: Path) -> str:
-    return path.read_text(encoding="utf-8")
+    return read_file_text(path)
 
 
 def file_sha256(text: str) -> str:

@@ -23,6 +23,7 @@ from sweeprig.formats.fields import (
     LevelDb,
     LocatedFile,
     Power,
+    StrictBool,
     StrictInt,
     Temperature,
     Time,
@@ -102,11 +103,17 @@ class BenchInfo(Frozen):
 
 
 class LossFile(Frozen):
-    """A path loss read from a file (paths relative to the bench file)."""
+    """A path loss given as a table: read from a file (paths relative to the bench file), or
+    a constant gain (an amplifier in the path, stated as such)."""
 
     csv: str | None = Field(None, description="CSV table with columns freq_hz, loss_db")
     touchstone: str | None = Field(None, description="two-port Touchstone file (.s2p); "
                                    "loss = −20·log10|S21|")
+    gain: LevelDb | None = Field(None, description="a constant gain instead of a loss (an "
+                                 "amplifier in the path), e.g. \"20 dB\"")
+    amplifier: StrictBool = Field(False, description="with csv or touchstone: the connection "
+                                  "holds an amplifier, so the table may show gain (negative "
+                                  "loss); without it, gain in a table is refused")
 
 
 def _loss_shape(value: Any) -> str:
@@ -209,6 +216,9 @@ class Bench(LocatedFile):
             raise KeyError(connection)
         if connection not in self._losses:
             value = getattr(self.path_loss, "if_" if connection == "if" else connection)
+            if isinstance(value, LossFile) and value.gain is not None and \
+                    value.csv is None and value.touchstone is None:
+                value = -value.gain  # an amplifier: a gain is a negative loss
             if isinstance(value, LossFile):
                 raise InputError(f"path loss {connection} comes from a file but the bench was "
                                  "not loaded from disk", where=self.where(("path_loss",
@@ -255,7 +265,7 @@ def load_bench(path: str | os.PathLike[str], *, known_profiles: Collection[str] 
     for name in CONNECTIONS:
         value = getattr(bench.path_loss, "if_" if name == "if" else name)
         key = ("path_loss", name)
-        if isinstance(value, LossFile):
+        if isinstance(value, LossFile) and value.gain is None:
             origin = doc.root.origin(key).path.parent
             bench._losses[name] = _load_loss_file(bench, key, value, origin)
     return bench
@@ -263,16 +273,14 @@ def load_bench(path: str | os.PathLike[str], *, known_profiles: Collection[str] 
 
 def _load_loss_file(bench: Bench, key: KeyPath, value: LossFile, base: Path) -> PathLoss:
     where = bench.where(key)
-    if (value.csv is None) == (value.touchstone is None):
-        raise InputError("a path loss file needs exactly one of csv or touchstone",
-                         where=where, fix='write { csv = "cal/rf.csv" } or '
-                         '{ touchstone = "cal/rf.s2p" }')
     if value.csv is not None:
         path = base / value.csv
-        return read_csv_loss(path, display=display_path(path), where=where)
+        return read_csv_loss(path, display=display_path(path), where=where,
+                             allow_gain=value.amplifier)
     assert value.touchstone is not None
     path = base / value.touchstone
-    return read_touchstone_loss(path, display=display_path(path), where=where)
+    return read_touchstone_loss(path, display=display_path(path), where=where,
+                                allow_gain=value.amplifier)
 
 
 def check_bench(bench: Bench, *, known_profiles: Collection[str] | None = None) -> None:
@@ -335,10 +343,62 @@ def check_bench(bench: Bench, *, known_profiles: Collection[str] | None = None) 
                          where=bench.where(("safe_state", "supply")),
                          fix='use "off" or a lower voltage')
     _check_safe_state(bench)
-    if bench.bench.timeout <= 0:
-        raise InputError(f"the I/O timeout {bench.bench.timeout:g} s is not above 0 s",
+    timeout = bench.bench.timeout
+    if not MIN_TIMEOUT_S <= timeout <= MAX_TIMEOUT_S:
+        low = "not above 0 s" if timeout <= 0 else "too short" if timeout < MIN_TIMEOUT_S \
+            else "too long"
+        raise InputError(f"the I/O timeout {timeout:g} s is {low}: it must be within 1 ms "
+                         f"to {MAX_TIMEOUT_S / 60:g} min",
                          where=bench.where(("bench", "timeout")),
-                         fix='write a positive time such as "5 s", or leave the key out (5 s)')
+                         fix='write a time such as "5 s", or leave the key out (5 s)')
+    _check_losses(bench)
+    sa = bench.roles.sa
+    if sa is not None and sa.noise_figure is not None and \
+            not 0 <= sa.noise_figure <= MAX_NOISE_FIGURE_DB:
+        raise InputError(f"a noise figure of {sa.noise_figure:g} dB is impossible here: it must "
+                         f"be within 0 to {MAX_NOISE_FIGURE_DB:g} dB (a noise figure is never "
+                         "negative)",
+                         where=bench.where(("roles", "sa", "noise_figure")),
+                         fix='write the analyzer\'s noise figure from its data sheet, e.g. '
+                         '"24 dB", or leave the key out')
+
+
+#: I/O timeouts: pyvisa counts whole milliseconds, so 1 ms is the shortest it can honour;
+#: above 10 min a lost reply would stall the run for longer than any command takes.
+MIN_TIMEOUT_S = 1e-3
+MAX_TIMEOUT_S = 600.0
+#: Highest analyzer noise figure accepted (a swept analyzer without preamplifier is about
+#: 20 to 30 dB; common practice, no source).
+MAX_NOISE_FIGURE_DB = 60.0
+
+
+def _check_losses(bench: Bench) -> None:
+    """Refuse negative constant losses (a gain must be written as one) and malformed tables."""
+    for name in CONNECTIONS:
+        value = getattr(bench.path_loss, "if_" if name == "if" else name)
+        where = bench.where(("path_loss", name))
+        if isinstance(value, float) and value < 0:
+            raise InputError(
+                f"a path loss of {value:g} dB is negative: a cable, attenuator or switch "
+                "loses power (0 dB or more)",
+                where=where,
+                fix=f'write the loss as 0 dB or more; for an amplifier in the path state the '
+                f'gain: {name} = {{ gain = "{-value:g} dB" }}')
+        if not isinstance(value, LossFile):
+            continue
+        given = [k for k in ("csv", "touchstone", "gain") if getattr(value, k) is not None]
+        if len(given) != 1:
+            raise InputError("a path loss table needs exactly one of csv, touchstone or gain",
+                             where=where, fix='write { csv = "cal/rf.csv" }, '
+                             '{ touchstone = "cal/rf.s2p" } or { gain = "20 dB" }')
+        if value.gain is not None:
+            if value.gain < 0:
+                raise InputError(
+                    f"a gain of {value.gain:g} dB is negative: that is a loss",
+                    where=where, fix=f'write it as a loss: {name} = "{-value.gain:g} dB"')
+            if value.amplifier:
+                raise InputError("amplifier = true goes with a csv or touchstone table",
+                                 where=where, fix="remove amplifier (a gain is already one)")
 
 
 #: Said with every safe-state refusal: the safe state is what protects the DUT after a run.

@@ -26,7 +26,9 @@ from typing import Any, TypeVar
 from pydantic import BaseModel, ValidationError
 
 from sweeprig.errors import InputError
+from sweeprig.files import read_file_bytes
 from sweeprig.formats.fields import TAG_PREFIX
+from sweeprig.formats.toml_depth import check_toml_depth, check_value_count
 from sweeprig.formats.toml_locate import KeyLocator, KeyPath, format_key_path
 from sweeprig.units import short_repr, shorten
 
@@ -40,7 +42,7 @@ def display_path(path: Path) -> str:
     """``path`` relative to the working directory when it lies below it, else as given."""
     try:
         return str(path.resolve().relative_to(Path.cwd().resolve()))
-    except (ValueError, OSError):  # not below it, or a name the file system refuses
+    except (ValueError, OSError, RuntimeError):  # not below it, a name the system refuses, a loop
         return str(path)
 
 
@@ -136,24 +138,17 @@ def deep_merge(base: dict[str, Any], top: dict[str, Any]) -> dict[str, Any]:
     return out
 
 
-def read_text(path: Path, display: str | None = None) -> str:
-    """The file's text; refuses missing files and bytes that are not UTF-8 (naming the offset)."""
+def read_text(path: Path, display: str | None = None, *, what: str = "file",
+              where: str | None = None) -> str:
+    """The file's text; refuses what is not a regular file of sensible size (see
+    :mod:`sweeprig.files`) and bytes that are not UTF-8 (naming the offset).
+
+    ``what`` names the file in messages; ``where`` places a problem opening it (default: the
+    file's name), e.g. at the include line that named it.
+    """
     shown = display or display_path(path)
-    try:
-        raw = path.read_bytes()
-    except FileNotFoundError:
-        raise InputError(f"file {shown} does not exist", where=shown,
-                         fix="check the path (relative paths start at the working directory)",
-                         ) from None
-    except IsADirectoryError:
-        raise InputError(f"{shown} is a directory, not a file", where=shown,
-                         fix="give the path of a .toml file") from None
-    except ValueError:  # a NUL character in the name
-        raise InputError(f"file name {shown!r} holds a character no file name can hold",
-                         where=shown, fix="check the path") from None
-    except OSError as exc:
-        raise InputError(f"cannot read {shown}: {exc.strerror}", where=shown,
-                         fix="check the file's permissions") from None
+    raw = read_file_bytes(path, what=what, display=shown, where=where, expected="a .toml file",
+                          toml=True)
     if raw.startswith(b"\xef\xbb\xbf"):
         raw = raw[3:]
     try:
@@ -170,8 +165,11 @@ def read_text(path: Path, display: str | None = None) -> str:
 
 def parse_toml(text: str, display: str) -> dict[str, Any]:
     """Parse TOML text; a syntax error names the file, line and column."""
+    check_toml_depth(text, display)
     try:
-        return tomllib.loads(text)
+        data = tomllib.loads(text)
+        check_value_count(data, display)
+        return data
     except tomllib.TOMLDecodeError as exc:
         message = str(exc)
         match = _TOML_POS.search(message)
@@ -215,10 +213,14 @@ def _last_line(text: str) -> int:
     return max(1, text.count("\n") + (0 if text.endswith("\n") else 1))
 
 
-def read_source(path: Path, *, _chain: tuple[Path, ...] = ()) -> SourceFile:
-    """Read, parse and resolve includes of one TOML file (recursively)."""
+def read_source(path: Path, *, _chain: tuple[Path, ...] = (), _where: str | None = None
+                ) -> SourceFile:
+    """Read, parse and resolve includes of one TOML file (recursively).
+
+    ``_where`` names the include line that asked for this file (for problems opening it).
+    """
     display = display_path(path)
-    text = read_text(path, display)
+    text = read_text(path, display, what="included file" if _where else "file", where=_where)
     data = parse_toml(text, display)
     source = SourceFile(path=path, display=display, text=text, data=data)
     includes = data.get("include", [])
@@ -227,30 +229,41 @@ def read_source(path: Path, *, _chain: tuple[Path, ...] = ()) -> SourceFile:
     if not isinstance(includes, list) or not all(isinstance(i, str) for i in includes):
         raise InputError("include must be a list of file paths", where=source.where(("include",)),
                          fix='write include = ["shared/part.toml"]')
-    chain = (*_chain, path.resolve())
+    chain = (*_chain, _resolved(path))
     for n, name in enumerate(includes):
         target = (path.parent / name)
+        here = source.where(("include", n))
         try:
             resolved = target.resolve()
-            exists = target.is_file()
+            exists = os.path.lexists(target)
         except (OSError, ValueError):  # a NUL character, a name too long for the file system
             resolved, exists = target, False
+        except RuntimeError:  # a symlink loop (Python before 3.13)
+            resolved, exists = target, True
         if resolved in chain:
             names = [display_path(p) for p in chain] + [display_path(resolved)]
             raise InputError(
                 "include cycle: " + " → ".join(names),
-                where=source.where(("include", n)),
+                where=here,
                 fix="remove one of these includes so that no file includes itself",
             )
         if not exists:
             raise InputError(
                 f"included file {short_repr(name)} does not exist "
                 f"(looked for {_shown_path(target)})",
-                where=source.where(("include", n)),
+                where=here,
                 fix="include paths are relative to the including file; check the name",
             )
-        source.includes.append(read_source(target, _chain=chain))
+        source.includes.append(read_source(target, _chain=chain, _where=here))
     return source
+
+
+def _resolved(path: Path) -> Path:
+    """``path.resolve()``, or ``path`` itself when it cannot be resolved (a symlink loop)."""
+    try:
+        return path.resolve()
+    except (OSError, RuntimeError, ValueError):
+        return path
 
 
 def _shown_path(path: Path) -> str:

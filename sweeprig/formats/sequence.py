@@ -505,10 +505,12 @@ def check_sequence(sequence: Sequence) -> None:
     if cond.temperature_tolerance <= 0:
         raise _problem(sequence, ("conditions", "temperature_tolerance"),
                        "temperature_tolerance must be above 0 degC", "write e.g. 1.0")
-    for key in ("soak", "settle"):
-        if getattr(cond, key) < 0:
-            raise _problem(sequence, ("conditions", key), f"{key} must not be negative",
-                           'write a time such as "20 ms"')
+    for path, value in (
+        (("conditions", "soak"), cond.soak),
+        (("conditions", "settle"), cond.settle),
+        (("recovery", "backoff"), sequence.recovery.backoff),
+    ):
+        _check_duration(sequence, path, value)
     if cond.supply is not None and _axis_min(cond.supply) < 0:
         raise _problem(sequence, ("conditions", "supply"), "a supply voltage is negative",
                        "give supply voltages of 0 V or more")
@@ -520,6 +522,8 @@ def check_sequence(sequence: Sequence) -> None:
                            f"rename one of them (the first is study[{seen[study.name]}])")
         seen[study.name] = i
         _check_study(sequence, i, study)
+    for path, settings in _analyzer_settings(sequence):  # once for the file: linear time
+        _check_analyzer(sequence, path, settings)
     names = set(seen)
     for j, limit in enumerate(sequence.spec):
         if limit.study is not None and limit.study not in names:
@@ -531,6 +535,30 @@ def check_sequence(sequence: Sequence) -> None:
         if limit.min is not None and limit.max is not None and limit.min > limit.max:
             raise _problem(sequence, ("spec", j, "min"), f"min {limit.min:g} is above max "
                            f"{limit.max:g}", "swap min and max")
+
+
+#: Longest wait each duration key accepts, s: a soak of a week, a settling or reconnection
+#: wait of an hour. Longer is a typing slip (a unit), not a plan (common practice, no source).
+MAX_DURATION_S: dict[str, float] = {"soak": 7 * 86400.0, "settle": 3600.0, "backoff": 3600.0}
+
+
+def _duration_text(seconds: float) -> str:
+    for unit, size in (("days", 86400.0), ("h", 3600.0), ("min", 60.0)):
+        if seconds >= size:
+            return f"{seconds / size:.4g} {unit}"
+    return f"{seconds:.4g} s"
+
+
+def _check_duration(sequence: Sequence, path: KeyPath, value: float) -> None:
+    """Refuse a negative or absurdly long wait, naming the range allowed."""
+    key = str(path[-1])
+    longest = MAX_DURATION_S[key]
+    if 0 <= value <= longest:
+        return
+    raise _problem(sequence, path,
+                   f"{key} {_duration_text(value) if value > 0 else f'{value:g} s'} is outside "
+                   f"0 s to {_duration_text(longest)}",
+                   f'write a time with its unit, e.g. "{"20 min" if key == "soak" else "50 ms"}"')
 
 
 def _axis_min(value: AxisValue) -> float:
@@ -619,8 +647,6 @@ def _check_study(sequence: Sequence, i: int, study: Study) -> None:
             raise _problem(sequence, (*at, "attenuation_check"),
                            "the attenuation check applies to distortion readings (mxn, im3, im2)",
                            "remove attenuation_check here")
-    for path, settings in _analyzer_settings(sequence):
-        _check_analyzer(sequence, path, settings)
 
 
 def _analyzer_settings(sequence: Sequence) -> list[tuple[KeyPath, AnalyzerSettings]]:

@@ -21,12 +21,15 @@ import tomllib
 from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
+from stat import S_ISREG
 from typing import Annotated, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, ValidationError
 
 import sweeprig
 from sweeprig.errors import InputError, SweeprigError
+from sweeprig.files import read_file_bytes
+from sweeprig.formats.toml_depth import check_toml_depth, check_value_count
 from sweeprig.instruments.ops import (
     COMMON_DEFAULTS,
     KINDS,
@@ -65,18 +68,23 @@ class _Strict(BaseModel):
     model_config = ConfigDict(extra="forbid", strict=True, frozen=True)
 
 
+#: A profile's waits: at least 1 ms (pyvisa counts whole milliseconds; a shorter timeout is a
+#: slip of the unit), at most a day (a chamber ramp across its range takes hours).
+_TimeoutS = Annotated[float, Field(ge=1e-3, le=86400)]
+
+
 class _PollModel(_Strict):
     method: Literal["poll"]
     query: str
     until: str | None = None
     until_bits_clear: Annotated[int, Field(ge=1)] | None = None
     interval_s: Annotated[float, Field(gt=0, le=60)] = 0.05
-    timeout_s: Annotated[float, Field(gt=0)] = 60.0
+    timeout_s: _TimeoutS = 60.0
 
 
 class _OpcModel(_Strict):
     method: Literal["opc"]
-    timeout_s: Annotated[float, Field(gt=0)] = 60.0
+    timeout_s: _TimeoutS = 60.0
 
 
 class _OpModel(_Strict):
@@ -90,7 +98,7 @@ class _OpModel(_Strict):
     map: dict[str, str] | None = None
     mask: Annotated[int, Field(ge=1)] | None = None
     complete: Literal["opc", "none"] | _OpcModel | _PollModel | None = None
-    timeout_s: Annotated[float, Field(gt=0)] | None = None
+    timeout_s: _TimeoutS | None = None
     note: str | None = None
 
 
@@ -591,6 +599,7 @@ def parse_profile(text: str, path: Path | str = "<profile>") -> Profile:
 
     Raises :class:`InputError` naming ``file:line: key`` for any problem.
     """
+    check_toml_depth(text, str(path))
     try:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
@@ -609,6 +618,7 @@ def parse_profile(text: str, path: Path | str = "<profile>") -> Profile:
             where=f"{path}:{line}" if line else str(path),
             fix="write the number with at most a few digits (and an exponent, e.g. 2.4e9)",
         ) from None
+    check_value_count(data, str(path))
     try:
         model = _FileModel.model_validate(data)
     except ValidationError as exc:
@@ -699,20 +709,10 @@ def parse_profile(text: str, path: Path | str = "<profile>") -> Profile:
 
 
 def _read(path: Path) -> str:
-    try:
-        raw = path.read_bytes()
-    except FileNotFoundError:
-        raise InputError(
-            f"no driver profile file {path}",
-            where=str(path),
-            fix="check the path, or name a profile listed by `available_profiles()`",
-        ) from None
-    except OSError as exc:
-        raise InputError(
-            f"cannot read the driver profile: {exc.strerror or exc}",
-            where=str(path),
-            fix="check the file's permissions",
-        ) from None
+    raw = read_file_bytes(
+        path, what="driver profile file", display=str(path),
+        missing_fix="check the path, or name a profile listed by `available_profiles()`",
+        expected="a .toml profile file", toml=True)
     try:
         return raw.decode("utf-8")
     except UnicodeDecodeError as exc:
@@ -735,6 +735,8 @@ def load_profile_file(path: Path | str) -> Profile:
     try:
         stat = path.stat()
     except OSError:
+        return parse_profile(_read(path), path)
+    if not S_ISREG(stat.st_mode):  # refused by _read, under the name given
         return parse_profile(_read(path), path)
     return _load_cached(path.resolve(), stat.st_mtime_ns, stat.st_size)
 

@@ -20,6 +20,7 @@ from sweeprig.report.tables import (
     flag_badge,
     summary_rows,
 )
+from sweeprig.text import escape_controls, one_line
 
 VERDICT_STYLES = {PASS: "bold green", FAIL: "bold red", INCONCLUSIVE: "bold yellow",
                   NO_LIMIT: "dim"}
@@ -58,14 +59,14 @@ def print_summary(run: RunFigures, console: Console | None = None) -> None:
     """Print the run's header line, the summary table, the verdict and any notes."""
     console = console or Console(highlight=False)
     state = Text(run.state, style=STATE_STYLES.get(run.state, ""))
-    head = Text(f"run {run.run_id}  {run.part}" + (f" {run.serial}" if run.serial else "")
-                + "  ")
+    head = Text(f"run {run.run_id}  {one_line(run.part)}"
+                + (f" {one_line(run.serial)}" if run.serial else "") + "  ")
     head.append_text(state)
     if run.reason:
-        head.append(f" ({run.reason})")
+        head.append(f" ({escape_controls(run.reason)})")
     console.print(head)
     if run.title:
-        console.print(Text(run.title, style="dim"))
+        console.print(Text(one_line(run.title), style="dim"))
     if run.figures:
         console.print(summary_table(run))
     else:

@@ -241,7 +241,8 @@ def load_sim_bench_description(path: str | os.PathLike[str]) -> SimBenchDescript
     if _looks_like_path(description.part):
         part_path = Path(doc.path).parent / description.part
         try:
-            exists = part_path.is_file()
+            # anything there (a FIFO, a link loop) is refused by name when the part is read
+            exists = os.path.lexists(part_path)
         except (OSError, ValueError):  # a name too long for the file system, a NUL character
             exists = False
         if not exists:

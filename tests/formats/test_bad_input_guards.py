@@ -182,7 +182,7 @@ def test_a_csv_header_without_rows_has_no_data_rows(tmp_path: Path) -> None:
     assert "no data rows" in error.what and "at least 2 rows" in error.what
 
 
-S2P_ROW = " -20.0 0 0.70 -30 0.70 -30 -20.0 0\n"
+S2P_ROW = " -20.0 0 -0.70 -30 -0.70 -30 -20.0 0\n"
 
 
 def test_an_empty_touchstone_file_is_refused_before_scikit_rf(tmp_path: Path) -> None:

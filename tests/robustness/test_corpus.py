@@ -21,14 +21,23 @@ setting as before, every output off) and, for runs that would start their own si
 started must have received nothing either.
 
 Cases that expose a bug are ``xfail(strict=True)`` with the bug named in ``expected.toml``.
+
+Files git cannot hold (a FIFO, a link to ``/dev/zero``, a symlink loop, a 700 MB file) are
+made at test time: their entry says ``generate = "<shape>"`` and no file of that name is in the
+corpus (see :func:`_generate`). Cases marked ``bounded = true`` must be refused within
+:data:`MAX_CASE_BYTES` of Python allocations (traced here; the perf variant in
+``tests/perf/test_perf_corpus.py`` runs each in its own process and checks wall time and
+peak memory of the whole process).
 """
 
 from __future__ import annotations
 
 import gc
+import os
 import re
 import tomllib
 import traceback
+import tracemalloc
 import warnings
 from collections.abc import Callable, Iterator
 from dataclasses import dataclass
@@ -68,6 +77,10 @@ TINY = SUPPORT / "tiny-sequence.toml"
 #: A message longer than this buries its point (the longest good ones are under 1,000).
 MAX_MESSAGE_CHARS = 3000
 SOURCE_AND_SUPPLY_ROLES = ("rf", "rf2", "lo", "dc")
+#: Most Python memory a bounded case may allocate while being refused (the issue's figure).
+MAX_CASE_BYTES = 300 * 1024 * 1024
+#: A sparse file this large: refused from its size, never read.
+SPARSE_BYTES = 700 * 1024 * 1024
 
 @dataclass(frozen=True)
 class Outcome:
@@ -128,7 +141,7 @@ def _load(loader: Callable[[Path], object], path: Path) -> Outcome:
 
 def _toml_string(path: Path) -> str:
     """``path`` as a TOML literal string (forward slashes, no escapes needed)."""
-    return "'" + path.resolve().as_posix() + "'"
+    return "'" + path.absolute().as_posix() + "'"  # not resolved: it may be a link loop
 
 
 def _bench_with_rf_loss(template: str, key: str, table: Path) -> str:
@@ -215,11 +228,22 @@ def test_corpus_file_is_refused_with_a_located_message(
     if entry in ("run_sim", "run_sim_bench") or (kind == "benches" and entry == "run"):
         watched = request.getfixturevalue("started")
 
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always", ResourceWarning)
-        outcome = _run_entry(kind, entry, path, tmp_path, request, served_bench)
-        if kind == "touchstone":  # read by scikit-rf: a file it leaves open shows here, now
-            gc.collect()
+    if "generate" in spec:
+        path = _generate(spec["generate"], rel, tmp_path / "generated")
+    bounded = bool(spec.get("bounded"))
+    if bounded:
+        tracemalloc.start()
+    try:
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always", ResourceWarning)
+            outcome = _run_entry(kind, entry, path, tmp_path, request, served_bench)
+            if kind == "touchstone":  # read by scikit-rf: a file it leaves open shows here, now
+                gc.collect()
+    finally:
+        peak = tracemalloc.get_traced_memory()[1] if bounded else 0
+        if bounded:
+            tracemalloc.stop()
+    assert peak <= MAX_CASE_BYTES, f"{peak / 2**20:,.0f} MiB allocated to refuse it"
     leaks = [str(w.message) for w in caught if issubclass(w.category, ResourceWarning)]
 
     if outcome.traceback is not None:
@@ -277,6 +301,53 @@ def _run_entry(kind: str, entry: str, path: Path, tmp_path: Path,
     return _cli("run", TINY, "--sim", "--sim-bench", path, *store)
 
 
+# -- files made at test time --------------------------------------------------------------------
+
+
+#: What each ``generate`` shape makes (see :func:`_generate`).
+SHAPES = ("fifo", "dev-zero", "symlink-loop", "self-link", "sparse-700mb", "directory", "toml-3mib",
+          "include-fifo", "include-dev-zero", "include-symlink-loop", "include-sparse-700mb",
+          "include-self-link", "include-directory")
+#: What a generated include is merged into, per kind.
+INCLUDE_BASES = {"sequences": TINY, "benches": SUPPORT / "bench-sim-like.toml",
+                 "simbench": SUPPORT / "simbench-minimal.toml"}
+
+
+def _generate(shape: str, rel: str, folder: Path) -> Path:
+    """Make the file of ``rel``'s name in ``folder`` in the given shape; return its path.
+
+    ``include-<shape>``: a valid file of the case's kind (from ``_support``) that includes a
+    sibling of that shape.
+    """
+    assert shape in SHAPES, f"unknown shape {shape!r}; known: {SHAPES}"
+    folder.mkdir(parents=True, exist_ok=True)
+    path = folder / Path(rel).name
+    if shape.startswith("include-"):
+        kind = rel.split("/", 1)[0]
+        target = _generate(shape.removeprefix("include-"), f"{kind}/special{path.suffix}",
+                           folder)
+        base = INCLUDE_BASES[kind].read_text(encoding="utf-8")
+        path.write_text(f"include = ['{target.name}']\n{base}", encoding="utf-8")
+    elif shape == "fifo":
+        os.mkfifo(path)
+    elif shape == "dev-zero":
+        path.symlink_to("/dev/zero")
+    elif shape == "symlink-loop":
+        other = path.with_name(path.name + ".loop")
+        other.symlink_to(path.name)
+        path.symlink_to(other.name)
+    elif shape == "self-link":
+        path.symlink_to(path.name)
+    elif shape == "sparse-700mb":
+        with path.open("wb") as handle:  # a hole: 700 MB on paper, nothing on disk
+            handle.truncate(SPARSE_BYTES)
+    elif shape == "toml-3mib":  # real content, above the TOML cap, below the data-table cap
+        path.write_text("# padding\n" * (3 * 1024 * 1024 // 10), encoding="utf-8")
+    else:  # directory
+        path.mkdir()
+    return path
+
+
 # -- the corpus itself --------------------------------------------------------------------------
 
 
@@ -292,16 +363,21 @@ def _corpus_files() -> set[str]:
     return {f"{kind}/{p.name}" for kind in KINDS for p in (CORPUS / kind).iterdir()}
 
 
+GENERATED = {rel for rel, spec in EXPECTED.items() if "generate" in spec}
+
+
 def test_every_corpus_file_has_an_expectation_and_back() -> None:
     files = _corpus_files()
-    assert files == set(EXPECTED), (sorted(files - set(EXPECTED)), sorted(set(EXPECTED) - files))
+    on_disk = set(EXPECTED) - GENERATED
+    assert files == on_disk, (sorted(files - on_disk), sorted(on_disk - files))
+    assert not files & GENERATED, "a generated case also has a file"
     assert len(files) >= 60
 
 
 @pytest.mark.parametrize("rel", sorted(EXPECTED))
 def test_corpus_file_says_what_is_broken(rel: str) -> None:
     spec = EXPECTED[rel]
-    if "no_comment" in spec:
+    if "no_comment" in spec or "generate" in spec:
         return
     first = (CORPUS / rel).read_bytes().split(b"\n", 1)[0]
     marker = b"!" if rel.startswith("touchstone/") else b"#"
