@@ -25,6 +25,7 @@ from sweeprig.cli.report_cmd import VERDICT_FAILED_EXIT_CODE
 from sweeprig.engine.runner import PointResult
 from sweeprig.engine.safe import make_bench_safe
 from sweeprig.engine.session import LoadedFiles, RunOutcome, resume_run, run_sequence
+from sweeprig.engine.signals import RunStopped, active
 from sweeprig.errors import SweeprigError
 from sweeprig.formats.bench import load_bench
 from sweeprig.instruments import available_profiles
@@ -116,9 +117,18 @@ def _drive(start: Callable[..., RunOutcome], *, quiet: bool, report: bool = True
         progress.stop()
         print_error(exc)
         raise typer.Exit(exc.exit_code) from None
+    except RunStopped as stop:  # before the run was recorded: nothing was switched on
+        progress.stop()
+        print_error(SweeprigError(f"{stop} before the run started; no run was recorded"))
+        raise typer.Exit(stop.exit_code) from None
     progress.stop()
     _print_outcome(console, outcome)
-    verdict = _report(console, outcome) if report else None
+    stops = active()
+    stopped = stops.requested if stops is not None else None
+    if stopped is not None and outcome.status == "complete":  # a signal while it finished
+        console.print(f"stopped by {stopped} as the run ended; report not written")
+        raise typer.Exit(1)
+    verdict = _report(console, outcome) if report and stopped is None else None
     if outcome.status != "complete" or (outcome.safe is not None and not outcome.safe.ok):
         raise typer.Exit(1)
     if fail_on_verdict and verdict == FAIL:

@@ -15,20 +15,24 @@ from __future__ import annotations
 import hashlib
 import logging
 import re
-import signal
 import time
-from collections.abc import Callable, Iterator, Mapping
-from contextlib import contextmanager
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from datetime import UTC, datetime
 from pathlib import Path
-from types import FrameType
 
 from sweeprig.clock import Clock, VirtualClock, WallClock
 from sweeprig.engine.connect import BenchDrivers, open_bench
 from sweeprig.engine.locks import BenchLock
 from sweeprig.engine.runner import PointResult, RecoveryPolicy, Runner
 from sweeprig.engine.safe import SafeOutcome, make_safe
+from sweeprig.engine.signals import (
+    RunStopped,
+    handles_stop_signals,
+    raise_pending,
+    stop_path,
+    uninterrupted,
+)
 from sweeprig.engine.simclock import SimControlClock
 from sweeprig.errors import InputError, SweeprigError
 from sweeprig.formats.bench import Bench, load_bench
@@ -42,14 +46,6 @@ from sweeprig.store.sqlite import SqliteRunStore
 
 SIM_BENCH_FILE = "benches/sim.toml"
 """The built-in simulated bench's bench file, inside the shipped sequences folder."""
-
-
-class RunStopped(Exception):
-    """A signal asked the run to stop (SIGTERM, SIGHUP); Ctrl-C raises KeyboardInterrupt."""
-
-    def __init__(self, signame: str) -> None:
-        super().__init__(f"stopped by {signame}")
-        self.signame = signame
 
 
 @dataclass(frozen=True)
@@ -260,6 +256,7 @@ def _first_difference(old: str, new: str) -> str:
     return f"{len(old_lines)} lines then, {len(new_lines)} now"
 
 
+@handles_stop_signals
 def _execute(
     files: LoadedFiles,
     *,
@@ -291,7 +288,7 @@ def _execute(
     logger: logging.Logger | None = None
     bus: list[BusRecord] = []
     try:
-        with _stop_on_signals():
+        with stop_path():  # a first signal stops the run; later ones cannot cut the finish
             resources: dict[str, str] = {}
             roles = required_roles(files.sequence)
             if files.simulated or files.bench.is_simulated():
@@ -317,7 +314,8 @@ def _execute(
                 _check_identities(drivers, resume)
             seq = files.sequence
             if resume is None:
-                run_id = store.create_run(
+                run_id = uninterrupted(
+                    store.create_run,
                     sequence_path=str(files.sequence_path),
                     sequence_text=files.sequence_text,
                     bench_path=str(files.bench_path),
@@ -331,6 +329,7 @@ def _execute(
                     points_total=total,
                     status="running",
                 )
+                raise_pending()  # a stop while the run was being recorded ends it here
             else:
                 run_id = resume.run_id
                 store.set_status(run_id, "running")
@@ -389,8 +388,12 @@ def _execute(
                       if runner.skipped else None)
     except KeyboardInterrupt:
         status, reason = "aborted", "stopped by SIGINT (Ctrl-C)"
+        if run_id is None:
+            raise
     except RunStopped as stop:
         status, reason = "aborted", str(stop)
+        if run_id is None:
+            raise  # stopped before the run was recorded; the finally block cleans up
     except SweeprigError as exc:
         status, reason = "aborted", exc.message()
         if run_id is None:
@@ -481,26 +484,6 @@ def _finish(drivers: BenchDrivers | None, sim_bench: object, files: LoadedFiles,
     if logger is not None:
         logger.info("safe state: %s", ", ".join(outcome.done) or "nothing to do")
     return outcome
-
-
-@contextmanager
-def _stop_on_signals() -> Iterator[None]:
-    """Turn SIGTERM and SIGHUP into :class:`RunStopped` (SIGINT stays KeyboardInterrupt)."""
-
-    def handler(signum: int, _frame: FrameType | None) -> None:
-        raise RunStopped(signal.Signals(signum).name)
-
-    previous: dict[int, object] = {}
-    try:
-        for sig in (signal.SIGTERM, signal.SIGHUP):
-            try:
-                previous[sig] = signal.signal(sig, handler)
-            except ValueError:  # not the main thread: leave signals alone
-                break
-        yield
-    finally:
-        for sig, old in previous.items():
-            signal.signal(sig, old)  # type: ignore[arg-type]
 
 
 def _file_logger(path: Path, run_id: int) -> logging.Logger:
