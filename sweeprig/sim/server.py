@@ -188,7 +188,8 @@ class _RoleServer:
                 target=self._serve_client, args=(conn,), name=f"sim-{self.role}-client",
                 daemon=True,
             )
-            self._threads = [t for t in self._threads if t.is_alive()]
+            if len(self._threads) > 2 * len(self._clients) + 16:  # forget ended threads
+                self._threads = [t for t in self._threads if t.is_alive()]
             self._threads.append(thread)
         try:
             thread.start()
