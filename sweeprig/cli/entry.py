@@ -17,7 +17,7 @@ def main() -> None:
     """Console entry point (``sweeprig ...`` and ``python -m sweeprig ...``)."""
     stops = None
     try:
-        from sweeprig.engine.signals import RunStopped, install
+        from sweeprig.signals import RunStopped, install
     except KeyboardInterrupt:  # before the handlers were installed
         _say(_STARTING)
         raise SystemExit(130) from None
@@ -43,7 +43,7 @@ def _quiet_exit() -> None:
     (the interpreter would put the default action back for a handler of its own)."""
     import signal
 
-    from sweeprig.engine.signals import STOP_SIGNALS, active
+    from sweeprig.signals import STOP_SIGNALS, active
 
     stops = active()
     if stops is not None:

@@ -25,13 +25,13 @@ from sweeprig.cli.report_cmd import VERDICT_FAILED_EXIT_CODE
 from sweeprig.engine.runner import PointResult
 from sweeprig.engine.safe import make_bench_safe
 from sweeprig.engine.session import LoadedFiles, RunOutcome, resume_run, run_sequence
-from sweeprig.engine.signals import RunStopped, active
 from sweeprig.errors import SweeprigError
 from sweeprig.formats.bench import load_bench
 from sweeprig.instruments import available_profiles
 from sweeprig.plan.duration import format_duration
 from sweeprig.report import write_report
 from sweeprig.report.terminal import print_summary
+from sweeprig.signals import RunStopped, active
 from sweeprig.store.base import DEFAULT_STORE_PATH
 from sweeprig.store.sqlite import SqliteRunStore
 

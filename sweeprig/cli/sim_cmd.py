@@ -18,8 +18,8 @@ from rich.text import Text
 
 from sweeprig.cli.common import error_console, fail
 from sweeprig.clock import Clock, VirtualClock, WallClock
-from sweeprig.engine.signals import stop_signals
 from sweeprig.errors import InputError, SweeprigError
+from sweeprig.signals import stop_signals
 from sweeprig.sim.bench import ROLES, SimBench, shipped_benches, start_sim_bench
 from sweeprig.sim.server import DEFAULT_MAX_CONNECTIONS, MAX_CONNECTIONS_LIMIT, is_loopback
 

@@ -26,13 +26,6 @@ from sweeprig.engine.connect import BenchDrivers, open_bench
 from sweeprig.engine.locks import BenchLock
 from sweeprig.engine.runner import PointResult, RecoveryPolicy, Runner
 from sweeprig.engine.safe import SafeOutcome, make_safe
-from sweeprig.engine.signals import (
-    RunStopped,
-    handles_stop_signals,
-    raise_pending,
-    stop_path,
-    uninterrupted,
-)
 from sweeprig.engine.simclock import SimControlClock
 from sweeprig.errors import InputError, SweeprigError
 from sweeprig.formats.bench import Bench, load_bench
@@ -41,6 +34,13 @@ from sweeprig.instruments import available_profiles
 from sweeprig.plan.duration import estimate_duration
 from sweeprig.plan.expand import count_points, iter_points
 from sweeprig.plan.preflight import PreflightReport, check_roles, preflight
+from sweeprig.signals import (
+    RunStopped,
+    handles_stop_signals,
+    raise_pending,
+    stop_path,
+    uninterrupted,
+)
 from sweeprig.store.base import DEFAULT_STORE_PATH, BusRecord, InstrumentRecord
 from sweeprig.store.sqlite import SqliteRunStore
 

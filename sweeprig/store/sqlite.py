@@ -37,6 +37,7 @@ from typing import Any
 import pandas as pd
 
 from sweeprig.errors import StoreError
+from sweeprig.signals import deferred
 from sweeprig.store.base import (
     FINAL_STATUSES,
     HEARTBEAT_STALE_S,
@@ -360,7 +361,7 @@ class SqliteRunStore:
 
     @contextmanager
     def _transaction(self, what: str) -> Iterator[sqlite3.Connection]:
-        with self._lock:
+        with self._lock, deferred():  # a stop signal waits for the COMMIT or ROLLBACK
             conn = self._conn
             try:
                 conn.execute("BEGIN IMMEDIATE")

@@ -31,8 +31,8 @@ from pathlib import Path
 
 import pytest
 
+from sweeprig import signals as stop_signals
 from sweeprig.clock import VirtualClock
-from sweeprig.engine import signals as stop_signals
 from sweeprig.engine.session import served_bench_text
 from sweeprig.sim.bench import SimBench, start_sim_bench
 

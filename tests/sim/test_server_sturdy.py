@@ -23,8 +23,8 @@ import pytest
 import pyvisa
 
 from sweeprig.clock import VirtualClock
-from sweeprig.engine.signals import STOP_SIGNALS
 from sweeprig.errors import InputError
+from sweeprig.signals import STOP_SIGNALS
 from sweeprig.sim.instruments import SignalSource
 from sweeprig.sim.server import ServedBench, _RoleServer, serve
 

@@ -197,10 +197,16 @@ def stop_path() -> Iterator[StopSignals | None]:
             stops.begin_stop_path()
 
 
+def _main_thread_stops() -> StopSignals | None:
+    if _active is None or threading.current_thread() is not threading.main_thread():
+        return None
+    return _active
+
+
 def uninterrupted(fn: Callable[P, T], *args: P.args, **kwargs: P.kwargs) -> T:
     """Call ``fn`` with stop signals only recorded; call :func:`raise_pending` once its
     result is kept (so that, say, a run recorded in the store is never lost track of)."""
-    stops = _active
+    stops = _main_thread_stops()
     if stops is None:
         return fn(*args, **kwargs)
     with stops.shielded():
@@ -209,5 +215,21 @@ def uninterrupted(fn: Callable[P, T], *args: P.args, **kwargs: P.kwargs) -> T:
 
 def raise_pending() -> None:
     """Raise :class:`RunStopped` now if a stop signal arrived during :func:`uninterrupted`."""
-    if _active is not None:
-        _active.raise_pending()
+    stops = _main_thread_stops()
+    if stops is not None:
+        stops.raise_pending()
+
+
+@contextmanager
+def deferred() -> Iterator[None]:
+    """Hold a stop during a short section that must not be cut in half (a store transaction:
+    a stop between its last write and its COMMIT would leave it open); a stop asked meanwhile
+    is raised as soon as the section ends without an error (unless an outer section or the
+    stop path holds it longer)."""
+    stops = _main_thread_stops()
+    if stops is None:
+        yield
+        return
+    with stops.shielded():
+        yield
+    stops.raise_pending()
