@@ -12,9 +12,12 @@ signals keep their previous behaviour.
 
 from __future__ import annotations
 
+import _thread
 import functools
 import signal
+import sys
 import threading
+import time
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from types import FrameType
@@ -60,6 +63,7 @@ class StopSignals:
         self.received: list[str] = []
         self.raised = False
         self._shield_depth = 0
+        self._redelivering = False
 
     @property
     def requested(self) -> str | None:
@@ -76,10 +80,28 @@ class StopSignals:
             name = signal.Signals(signum).name
         except ValueError:
             name = f"signal {signum}"
-        self.received.append(name)
+        if self._redelivering:  # the same stop again (see swallowed), not a new signal
+            self._redelivering = False
+        else:
+            self.received.append(name)
         if not self.raised and self._shield_depth == 0:
             self.raised = True
             raise RunStopped(name)
+
+    def swallowed(self, stop: RunStopped) -> None:
+        """The stop was raised where Python cannot pass an exception on (a weakref callback
+        or a ``__del__`` method: "Exception ignored in ..."): raise it again at the main
+        thread's next instruction instead of losing it."""
+        try:
+            signum = int(signal.Signals[stop.signame])
+        except KeyError:
+            return
+        self.raised = False
+        self._redelivering = True
+        # From another thread, a moment later, so that it lands after the callback has
+        # returned (at once, it would land in the hook reporting the ignored exception).
+        threading.Thread(target=_signal_main_thread, args=(signum,), daemon=True,
+                         name="sweeprig-stop-again").start()
 
     @contextmanager
     def shielded(self) -> Iterator[StopSignals]:
@@ -104,8 +126,29 @@ class StopSignals:
             raise RunStopped(self.requested)
 
 
+def _signal_main_thread(signum: int) -> None:
+    time.sleep(0.005)
+    main = threading.main_thread().ident
+    kill = getattr(signal, "pthread_kill", None)
+    if kill is not None and main is not None:
+        kill(main, signum)  # a real signal: it also ends a blocking system call at once
+    else:
+        _thread.interrupt_main(signum)
+
+
 _active: StopSignals | None = None
 _previous: dict[int, object] = {}
+_previous_unraisable_hook = sys.unraisablehook
+
+
+def _unraisable_hook(unraisable: sys.UnraisableHookArgs) -> None:
+    """A stop landing in a weakref callback or ``__del__`` is delivered again, not printed."""
+    stops = _active
+    if (stops is not None and isinstance(unraisable.exc_value, RunStopped)
+            and threading.current_thread() is threading.main_thread()):
+        stops.swallowed(unraisable.exc_value)
+        return
+    _previous_unraisable_hook(unraisable)
 
 
 def active() -> StopSignals | None:
@@ -130,6 +173,9 @@ def install() -> StopSignals | None:
             continue
     _previous.clear()
     _previous.update(previous)
+    global _previous_unraisable_hook
+    _previous_unraisable_hook = sys.unraisablehook
+    sys.unraisablehook = _unraisable_hook
     _active = stops
     return stops
 
@@ -148,6 +194,8 @@ def uninstall() -> None:
         except (ValueError, OSError, TypeError):
             continue
     _previous.clear()
+    if sys.unraisablehook is _unraisable_hook:
+        sys.unraisablehook = _previous_unraisable_hook
 
 
 @contextmanager

@@ -5,6 +5,8 @@ from __future__ import annotations
 
 import signal
 import threading
+import time
+import weakref
 
 import pytest
 
@@ -135,3 +137,23 @@ def test_outside_the_main_thread_nothing_is_installed() -> None:
     thread.start()
     thread.join()
     assert results == [None, "plain call"]
+
+
+def test_a_stop_landing_in_a_weakref_callback_is_delivered_again_not_lost() -> None:
+    class Thing:
+        pass
+
+    def callback(_ref: object) -> None:
+        signal.raise_signal(signal.SIGTERM)  # the handler runs inside this callback
+
+    with stop_signals() as stops:
+        assert stops is not None
+        thing = Thing()
+        ref = weakref.ref(thing, callback)
+        with pytest.raises(RunStopped) as caught:
+            del thing  # the callback's RunStopped is "ignored" by Python...
+            for _ in range(1000):  # ...and raised again here, moments later
+                time.sleep(0.001)
+        assert caught.value.signame == "SIGTERM"
+        assert stops.received == ["SIGTERM"]
+        assert ref() is None

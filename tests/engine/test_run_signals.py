@@ -187,6 +187,7 @@ def _run_trials(count: int, base_seed: int, tmp_path: Path,
             failure = run_trial(trial, tmp_path / f"trial-{k}",
                                 benches[slot] if served else None)
             if failure:
+                print(f"\nFAILED {failure}", flush=True)
                 failures.append(failure)
         return failures
 
@@ -204,6 +205,7 @@ def test_signals_at_random_moments_end_in_one_clean_shutdown(tmp_path, served_be
 
 
 @pytest.mark.soak
+@pytest.mark.timeout(4 * 3600)
 def test_a_thousand_signal_trials(tmp_path, served_benches):
     count = int(os.environ.get("SWEEPRIG_SIGNAL_TRIALS", "1000"))
     failures = _run_trials(count, 100_000, tmp_path, served_benches)
