@@ -171,8 +171,12 @@ class _RoleServer:
         self._closing.wait(self._backoff_s)
 
     def _start_client(self, conn: socket.socket) -> None:
-        conn.settimeout(None)
-        conn.setsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)
+        try:
+            conn.settimeout(None)
+            conn.setsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)
+        except OSError:  # the client is already gone (reset right after connecting)
+            conn.close()
+            return
         with self._lock:
             if self._closing.is_set():
                 conn.close()
