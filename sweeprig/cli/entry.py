@@ -23,11 +23,24 @@ def main() -> None:
         raise SystemExit(130) from None
     try:
         stops = install()
-        from sweeprig.cli.main import app
-
+        if stops is not None:
+            # Held while the libraries load: a stop raised inside their import-time machinery
+            # (a schema being built, an import lock's callback) could come out as their error.
+            with stops.shielded():
+                from sweeprig.cli.main import app
+            stops.raise_pending()
+        else:
+            from sweeprig.cli.main import app
         app()
     except RunStopped as stop:
         _say(f"sweeprig: {stop}; nothing more was done")
+        raise SystemExit(stop.exit_code) from None
+    except Exception as exc:
+        if stops is None or not stops.raised or stops.requested is None:
+            raise
+        # The stop was raised inside a library that wrapped it in an error of its own.
+        stop = RunStopped(stops.requested)
+        _say(f"sweeprig: {stop}; nothing more was done (it ended: {type(exc).__name__})")
         raise SystemExit(stop.exit_code) from None
     except KeyboardInterrupt:  # the handlers could not be installed
         _say(_STARTING)
