@@ -3,8 +3,10 @@
 The first stop signal raises :class:`RunStopped` once, wherever the main thread is (a long
 wait, an instrument exchange, loading files). Every later signal is only recorded: it can
 never interrupt the path that makes the bench safe and records how the run ended, nor start
-a second shutdown. Code that must not be cut in half (recording a new run) runs
-:func:`uninterrupted`; the stop path runs :meth:`StopSignals.shielded`.
+a second shutdown. A run's body is :func:`stop_path` inside a function marked
+:func:`handles_stop_signals`; code that must not be cut in half runs :func:`uninterrupted`
+(recording a new run) or :func:`deferred` (a store transaction); a stop raised where Python
+cannot pass it on (a weakref callback, ``__del__``) is delivered again, not lost.
 
 Only the main thread can install signal handlers; elsewhere these helpers do nothing and
 signals keep their previous behaviour.
@@ -71,8 +73,9 @@ class StopSignals:
         return self.received[0] if self.received else None
 
     @property
-    def shielded_now(self) -> bool:
-        return self._shield_depth > 0
+    def shield_depth(self) -> int:
+        """How many shields (and stop paths) hold signals now; 0: the next one raises."""
+        return self._shield_depth
 
     def handle(self, signum: int, _frame: FrameType | None = None) -> None:
         """The signal handler (main thread, between two Python instructions)."""
@@ -202,6 +205,9 @@ def uninstall() -> None:
 def stop_signals() -> Iterator[StopSignals | None]:
     """The stop state for the duration: the process's own when installed (the command line),
     else installed here and removed on the way out (the Python API in the main thread)."""
+    if threading.current_thread() is not threading.main_thread():
+        yield None
+        return
     if _active is not None:
         yield _active
         return
@@ -221,7 +227,7 @@ def handles_stop_signals(fn: Callable[P, T]) -> Callable[P, T]:
     @functools.wraps(fn)
     def wrapper(*args: P.args, **kwargs: P.kwargs) -> T:
         with stop_signals() as stops:
-            depth = stops._shield_depth if stops is not None else 0
+            depth = stops.shield_depth if stops is not None else 0
             try:
                 return fn(*args, **kwargs)
             finally:
@@ -237,7 +243,7 @@ def stop_path() -> Iterator[StopSignals | None]:
     whatever the way (the end, an error, the stop itself), the stop path begins and later
     signals are only recorded, until the function marked :func:`handles_stop_signals`
     returns."""
-    stops = _active
+    stops = _main_thread_stops()
     try:
         yield stops
     finally:
