@@ -122,14 +122,19 @@ def _drive(start: Callable[..., RunOutcome], *, quiet: bool, report: bool = True
         print_error(SweeprigError(f"{stop} before the run started; no run was recorded"))
         raise typer.Exit(stop.exit_code) from None
     progress.stop()
-    _print_outcome(console, outcome)
     stops = active()
+    if stops is not None:  # the run has ended: a signal now is recorded, it cannot cut the
+        stops.begin_stop_path()  # summary or the report (and their imports) in half
+    _print_outcome(console, outcome)
     stopped = stops.requested if stops is not None else None
     if stopped is not None and outcome.status == "complete":  # a signal while it finished
         console.print(f"stopped by {stopped} as the run ended; report not written")
         raise typer.Exit(1)
     verdict = _report(console, outcome) if report and stopped is None else None
     if outcome.status != "complete" or (outcome.safe is not None and not outcome.safe.ok):
+        raise typer.Exit(1)
+    if stops is not None and stops.requested is not None:  # a signal during the report
+        console.print(f"stopped by {stops.requested} (the report was finished first)")
         raise typer.Exit(1)
     if fail_on_verdict and verdict == FAIL:
         raise typer.Exit(VERDICT_FAILED_EXIT_CODE)
