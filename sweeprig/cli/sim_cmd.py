@@ -19,7 +19,7 @@ from rich.text import Text
 from sweeprig.cli.common import error_console, fail
 from sweeprig.clock import Clock, VirtualClock, WallClock
 from sweeprig.errors import InputError, SweeprigError
-from sweeprig.signals import stop_signals
+from sweeprig.signals import active, stop_signals
 from sweeprig.sim.bench import ROLES, SimBench, shipped_benches, start_sim_bench
 from sweeprig.sim.server import DEFAULT_MAX_CONNECTIONS, MAX_CONNECTIONS_LIMIT, is_loopback
 
@@ -127,13 +127,14 @@ def serve_command(
     except SweeprigError as exc:
         raise _fail(exc) from None
     try:
-        _print_resources(bench, realtime)
-        if write_bench is not None:
-            _write_bench_file(bench, write_bench)
-        _log_server_warnings()
-        _out().print("ready; press Ctrl-C to stop")
-        sys.stdout.flush()
-        stopped_by = _wait_for_interrupt()
+        with stop_signals():  # in place before "ready": a client may stop it at once
+            _print_resources(bench, realtime)
+            if write_bench is not None:
+                _write_bench_file(bench, write_bench)
+            _log_server_warnings()
+            _out().print("ready; press Ctrl-C to stop")
+            sys.stdout.flush()
+            stopped_by = _wait_for_interrupt()
     except SweeprigError as exc:
         raise _fail(exc) from None
     finally:
@@ -181,12 +182,12 @@ def _wait_for_interrupt() -> str | None:
     From here on every signal is only recorded, so that closing the servers is never cut
     short, however many arrive.
     """
-    with stop_signals() as stops:
-        if stops is None:  # not the main thread: no signal can reach this wait
-            raise InputError("the simulated bench can only be served from the main thread",
-                             where="sweeprig sim serve",
-                             fix="call serve_command from the main thread")
-        stops.begin_stop_path()
-        while stops.requested is None:
-            time.sleep(0.05)
-        return stops.requested
+    stops = active()
+    if stops is None:  # not the main thread: no signal can reach this wait
+        raise InputError("the simulated bench can only be served from the main thread",
+                         where="sweeprig sim serve",
+                         fix="call serve_command from the main thread")
+    stops.begin_stop_path()
+    while stops.requested is None:
+        time.sleep(0.05)
+    return stops.requested
