@@ -1,5 +1,8 @@
 """``python -m sweeprig``: the command line."""
 
-from sweeprig.cli.main import main
+try:
+    from sweeprig.cli.entry import main
+except KeyboardInterrupt:  # Ctrl-C before the stop handlers exist
+    raise SystemExit(130) from None
 
 main()

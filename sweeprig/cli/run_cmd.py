@@ -31,6 +31,7 @@ from sweeprig.instruments import available_profiles
 from sweeprig.plan.duration import format_duration
 from sweeprig.report import write_report
 from sweeprig.report.terminal import print_summary
+from sweeprig.signals import RunStopped, active
 from sweeprig.store.base import DEFAULT_STORE_PATH
 from sweeprig.store.sqlite import SqliteRunStore
 from sweeprig.text import escape_controls, one_line
@@ -125,19 +126,33 @@ def _drive(start: Callable[..., RunOutcome], *, quiet: bool, report: bool = True
         progress.stop()
         print_error(exc)
         raise typer.Exit(exc.exit_code) from None
+    except RunStopped as stop:  # before the run was recorded: nothing was switched on
+        progress.stop()
+        print_error(SweeprigError(f"{stop} before the run started; no run was recorded"))
+        raise typer.Exit(stop.exit_code) from None
     progress.stop()
+    stops = active()
+    if stops is not None:  # the run has ended: a signal now is recorded, it cannot cut the
+        stops.begin_stop_path()  # summary or the report (and their imports) in half
     _print_outcome(console, outcome)
     if outcome.store_error is not None:  # the data is not all kept: no report from it
         raise typer.Exit(StoreError.exit_code)
-    verdict = _report(console, outcome) if report else None
+    stopped = stops.requested if stops is not None else None
+    verdict = _report(console, outcome) if report and stopped is None else None
     if outcome.status == "unsafe" or (outcome.safe is not None and not outcome.safe.ok):
-        if report:  # the figures were printed after the warning: say it again, last
+        if verdict is not None:  # the figures were printed after the warning: say it again
             failed = outcome.safe.failed if outcome.safe is not None else ()
             console.print(Text("BENCH NOT PROVEN SAFE (see above): "
                                + (", ".join(name for name, _m in failed) or "safe state")
                                + " not verified; act by hand now.", style="bold red"))
         raise typer.Exit(BENCH_UNSAFE_EXIT_CODE)
+    if stopped is not None and outcome.status == "complete":  # a signal while it finished
+        console.print(f"stopped by {stopped} as the run ended; report not written")
+        raise typer.Exit(1)
     if outcome.status != "complete":
+        raise typer.Exit(1)
+    if stops is not None and stops.requested is not None:  # a signal during the report
+        console.print(f"stopped by {stops.requested} (the report was finished first)")
         raise typer.Exit(1)
     if fail_on_verdict and verdict == FAIL:
         raise typer.Exit(VERDICT_FAILED_EXIT_CODE)

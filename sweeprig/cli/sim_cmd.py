@@ -6,11 +6,10 @@ the ``sim`` command group.
 
 from __future__ import annotations
 
-import signal
+import logging
 import sys
-import threading
+import time
 from pathlib import Path
-from types import FrameType
 from typing import Annotated
 
 import typer
@@ -20,8 +19,9 @@ from rich.text import Text
 from sweeprig.cli.common import error_console, fail
 from sweeprig.clock import Clock, VirtualClock, WallClock
 from sweeprig.errors import InputError, SweeprigError
+from sweeprig.signals import active, stop_signals
 from sweeprig.sim.bench import ROLES, SimBench, shipped_benches, start_sim_bench
-from sweeprig.sim.server import is_loopback
+from sweeprig.sim.server import DEFAULT_MAX_CONNECTIONS, MAX_CONNECTIONS_LIMIT, is_loopback
 
 app = typer.Typer(
     name="sim",
@@ -96,10 +96,15 @@ def serve_command(
         "--write-bench", help="also write a bench file with these resources, for "
         "'sweeprig run SEQUENCE --bench FILE' from another terminal",
         show_default=False)] = None,
+    max_connections: Annotated[int, typer.Option(
+        "--max-connections", min=1, max=MAX_CONNECTIONS_LIMIT,
+        help="clients each instrument serves at once; one more is refused with a "
+        "'-310' error line")] = DEFAULT_MAX_CONNECTIONS,
 ) -> None:
-    """Serve the simulated instruments on raw SCPI sockets until Ctrl-C.
+    """Serve the simulated instruments on raw SCPI sockets until Ctrl-C (or SIGTERM, SIGHUP).
 
-    Prints each role's VISA resource string and *IDN? reply; several clients may connect.
+    Prints each role's VISA resource string and *IDN? reply; several clients may connect
+    (up to --max-connections to each instrument).
 
     Examples:
 
@@ -118,21 +123,23 @@ def serve_command(
     clock: Clock = WallClock() if realtime else VirtualClock()
     try:
         bench = start_sim_bench(description, clock=clock, host=host, ports=_ports(port_base),
-                                allow_remote=remote)
+                                allow_remote=remote, max_connections=max_connections)
     except SweeprigError as exc:
         raise _fail(exc) from None
     try:
-        _print_resources(bench, realtime)
-        if write_bench is not None:
-            _write_bench_file(bench, write_bench)
-        _out().print("ready; press Ctrl-C to stop")
-        sys.stdout.flush()
-        _wait_for_interrupt()
+        with stop_signals():  # in place before "ready": a client may stop it at once
+            _print_resources(bench, realtime)
+            if write_bench is not None:
+                _write_bench_file(bench, write_bench)
+            _log_server_warnings()
+            _out().print("ready; press Ctrl-C to stop")
+            sys.stdout.flush()
+            stopped_by = _wait_for_interrupt()
     except SweeprigError as exc:
         raise _fail(exc) from None
     finally:
         bench.close()
-    _out().print("simulated bench stopped")
+    _out().print("simulated bench stopped" + (f" ({stopped_by})" if stopped_by else ""))
 
 
 def _print_resources(bench: SimBench, realtime: bool) -> None:
@@ -159,17 +166,28 @@ def _write_bench_file(bench: SimBench, path: Path) -> None:
     _out().print(f"bench file written: {path}")
 
 
-def _wait_for_interrupt() -> None:
-    """Block until Ctrl-C (SIGINT) or SIGTERM."""
-    stop = threading.Event()
+def _log_server_warnings() -> None:
+    """Show the server's warnings (descriptors exhausted, connections refused) on stderr."""
+    logger = logging.getLogger("sweeprig.sim.server")
+    if not logger.handlers:
+        handler = logging.StreamHandler(sys.stderr)
+        handler.setFormatter(logging.Formatter("%(asctime)s warning: %(message)s"))
+        handler.setLevel(logging.WARNING)
+        logger.addHandler(handler)
 
-    def on_signal(signum: int, frame: FrameType | None) -> None:
-        stop.set()
 
-    previous = {sig: signal.signal(sig, on_signal) for sig in (signal.SIGINT, signal.SIGTERM)}
-    try:
-        while not stop.wait(0.2):
-            pass
-    finally:
-        for sig, handler in previous.items():
-            signal.signal(sig, handler)
+def _wait_for_interrupt() -> str | None:
+    """Block until SIGINT (Ctrl-C), SIGTERM or SIGHUP; returns the first signal's name.
+
+    From here on every signal is only recorded, so that closing the servers is never cut
+    short, however many arrive.
+    """
+    stops = active()
+    if stops is None:  # not the main thread: no signal can reach this wait
+        raise InputError("the simulated bench can only be served from the main thread",
+                         where="sweeprig sim serve",
+                         fix="call serve_command from the main thread")
+    stops.begin_stop_path()
+    while stops.requested is None:
+        time.sleep(0.05)
+    return stops.requested

@@ -24,15 +24,13 @@ import hashlib
 import logging
 import os
 import re
-import signal
 import sys
 import time
-from collections.abc import Callable, Iterator, Mapping
-from contextlib import contextmanager, suppress
+from collections.abc import Callable, Mapping
+from contextlib import suppress
 from dataclasses import dataclass
 from datetime import UTC, datetime
 from pathlib import Path
-from types import FrameType
 
 from sweeprig.clock import Clock, VirtualClock, WallClock
 from sweeprig.engine.connect import BenchDrivers, open_bench
@@ -49,20 +47,19 @@ from sweeprig.oslock import FileLock
 from sweeprig.plan.duration import estimate_duration
 from sweeprig.plan.expand import count_points, iter_points
 from sweeprig.plan.preflight import PreflightReport, check_roles, preflight
+from sweeprig.signals import (
+    RunStopped,
+    handles_stop_signals,
+    raise_pending,
+    stop_path,
+    uninterrupted,
+)
 from sweeprig.store.base import DEFAULT_STORE_PATH, BusRecord, InstrumentRecord
 from sweeprig.store.runlock import hold_run_lock, run_lock_held
 from sweeprig.store.sqlite import SqliteRunStore
 
 SIM_BENCH_FILE = "benches/sim.toml"
 """The built-in simulated bench's bench file, inside the shipped sequences folder."""
-
-
-class RunStopped(Exception):
-    """A signal asked the run to stop (SIGTERM, SIGHUP); Ctrl-C raises KeyboardInterrupt."""
-
-    def __init__(self, signame: str) -> None:
-        super().__init__(f"stopped by {signame}")
-        self.signame = signame
 
 
 @dataclass(frozen=True)
@@ -302,6 +299,7 @@ def _first_difference(old: str, new: str) -> str:
     return f"{len(old_lines)} lines then, {len(new_lines)} now"
 
 
+@handles_stop_signals
 def _execute(
     files: LoadedFiles,
     *,
@@ -337,7 +335,7 @@ def _execute(
     logger: logging.Logger | None = None
     bus: list[BusRecord] = []
     try:
-        with _stop_on_signals():
+        with stop_path():  # a first signal stops the run; later ones cannot cut the finish
             resources: dict[str, str] = {}
             roles = required_roles(files.sequence)
             if files.simulated or files.bench.is_simulated():
@@ -363,7 +361,8 @@ def _execute(
                 _check_identities(drivers, resume)
             seq = files.sequence
             if resume is None:
-                new_id = store.create_run(
+                run_id = uninterrupted(
+                    store.create_run,
                     sequence_path=str(files.sequence_path),
                     sequence_text=files.sequence_text,
                     bench_path=str(files.bench_path),
@@ -377,8 +376,9 @@ def _execute(
                     points_total=total,
                     status="running",
                 )
-                run_lock = hold_run_lock(store_path, new_id, f"a run of {files.sequence_path}")
-                run_id = new_id
+                run_lock = uninterrupted(hold_run_lock, store_path, run_id,
+                                         f"a run of {files.sequence_path}")
+                raise_pending()  # a stop while the run was being recorded ends it here
             else:
                 run_id = resume.run_id
                 store.set_status(run_id, "running")
@@ -433,8 +433,12 @@ def _execute(
                       if runner.skipped else None)
     except KeyboardInterrupt:
         status, reason = "aborted", "stopped by SIGINT (Ctrl-C)"
+        if run_id is None:
+            raise
     except RunStopped as stop:
         status, reason = "aborted", str(stop)
+        if run_id is None:
+            raise  # stopped before the run was recorded; the finally block cleans up
     except StoreError as exc:  # data can no longer be kept: stop measuring at once
         status, reason, store_failure = "aborted", exc.message(), exc
         if run_id is None:
@@ -654,30 +658,6 @@ def _finish(drivers: BenchDrivers | None, sim_bench: object, files: LoadedFiles,
         for _name, message in outcome.failed:
             logger.error("BENCH NOT PROVEN SAFE: %s", message)
     return outcome
-
-
-_STOP_SIGNALS = tuple(s for s in (signal.SIGTERM, getattr(signal, "SIGHUP", None))
-                      if s is not None)  # Windows has no SIGHUP
-
-
-@contextmanager
-def _stop_on_signals() -> Iterator[None]:
-    """Turn SIGTERM and SIGHUP into :class:`RunStopped` (SIGINT stays KeyboardInterrupt)."""
-
-    def handler(signum: int, _frame: FrameType | None) -> None:
-        raise RunStopped(signal.Signals(signum).name)
-
-    previous: dict[int, object] = {}
-    try:
-        for sig in _STOP_SIGNALS:
-            try:
-                previous[sig] = signal.signal(sig, handler)
-            except ValueError:  # not the main thread: leave signals alone
-                break
-        yield
-    finally:
-        for sig, old in previous.items():
-            signal.signal(sig, old)  # type: ignore[arg-type]
 
 
 def _file_logger(path: Path, run_id: int) -> logging.Logger:

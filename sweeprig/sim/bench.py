@@ -78,7 +78,7 @@ from sweeprig.sim.instruments.supply import DcSupply
 from sweeprig.sim.instruments.switch import RfSwitch
 from sweeprig.sim.mixer import load_part, shipped_parts
 from sweeprig.sim.scpi import ScpiInstrument
-from sweeprig.sim.server import ServedBench, serve
+from sweeprig.sim.server import DEFAULT_MAX_CONNECTIONS, ServedBench, serve
 from sweeprig.sim.world import (
     CableLoss,
     Cabling,
@@ -374,16 +374,19 @@ def start_sim_bench(
     ports: dict[str, int] | None = None,
     allow_remote: bool = False,
     part: MixerModel | None = None,
+    max_connections: int = DEFAULT_MAX_CONNECTIONS,
 ) -> SimBench:
     """Build the simulated bench and serve it in this process (server threads).
 
     ``description``: a model, a file path, a shipped bench name, or None for the default.
     ``ports``: role → TCP port (missing or 0: ephemeral). ``allow_remote``: needed to bind a
-    non-loopback ``host`` (the simulator has no authentication).
+    non-loopback ``host`` (the simulator has no authentication). ``max_connections``:
+    clients each instrument serves at once (one more is refused).
     """
     parts = build_sim_instruments(description, clock=clock, part=part)
     served = serve(parts.instruments, host=host, ports=ports,
-                   faults=parts.description.fault_plan(), allow_remote=allow_remote)
+                   faults=parts.description.fault_plan(), allow_remote=allow_remote,
+                   max_connections=max_connections)
     return SimBench(parts, served)
 
 

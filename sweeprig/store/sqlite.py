@@ -45,6 +45,7 @@ from typing import Any
 import pandas as pd
 
 from sweeprig.errors import StoreError
+from sweeprig.signals import deferred
 from sweeprig.store.base import (
     FINAL_STATUSES,
     HEARTBEAT_STALE_S,
@@ -432,7 +433,7 @@ class SqliteRunStore:
         an I/O error it rolls back by itself, and a second ROLLBACK would only say "no
         transaction is active"); the first error is the one reported.
         """
-        with self._lock:
+        with self._lock, deferred():  # a stop signal waits for the COMMIT or ROLLBACK
             self.check_file(what)
             conn = self._conn
             try:
