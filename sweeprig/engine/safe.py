@@ -195,8 +195,8 @@ def _run_steps(steps: list[_Step], log: Callable[[str], None], attempts: int) ->
         still: list[int] = []
         for index in pending:
             step = steps[index]
-            if attempt > 1 and last[index].link_failed:
-                _reconnect(step.driver, log)
+            if attempt > 1:  # a fresh session: a reply left over from a query cut short (a
+                _reconnect(step.driver, log)  # stop signal, a timeout) cannot shift the next
             result = _attempt(step)
             last[index], tries[index] = result, attempt
             if not result.verified:

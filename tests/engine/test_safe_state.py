@@ -341,3 +341,26 @@ def test_safe_command_against_a_stopped_server_process(tmp_path, private_lock_di
     for role in ("rf", "lo", "dc", "chamber"):
         assert f"role {role!r} (" in out
     assert "verified by read-back" not in out
+
+
+def test_a_reply_left_over_from_a_query_cut_short_cannot_shift_the_read_back(tmp_path):
+    """A stop signal can land between a query and its reply; the reply then waits in the
+    socket. The safe state must still be proven (a fresh session on retry), not misread."""
+    from sweeprig.engine.connect import open_bench
+    from sweeprig.engine.safe import make_safe
+    from sweeprig.formats.bench import load_bench
+    from sweeprig.instruments import available_profiles
+
+    with served() as sim:
+        bench = load_bench(bench_file(sim, tmp_path, TIMEOUT), known_profiles=available_profiles())
+        drivers = open_bench(bench, {"rf": "rf", "dc": "dc"})
+        try:
+            drivers.rf.set_value("output", True)
+            drivers.rf.transport.write("*OPC?")  # its reply ("1") is never read: left over
+            drivers.dc.transport.write("SYST:ERR?")
+            outcome = make_safe(drivers, supply_safe_v=None, chamber_idle_c=None)
+        finally:
+            drivers.close()
+        assert outcome.ok, outcome.failed
+        look = outside_look(sim)
+        assert look["rf"] == "0" and look["dc"] == "0", look
