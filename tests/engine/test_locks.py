@@ -31,20 +31,13 @@ from sweeprig.errors import InputError
 from sweeprig.sim.bench import start_sim_bench
 from sweeprig.store.runlock import RunBusy, hold_run_lock, run_lock_held
 from sweeprig.store.sqlite import SqliteRunStore
+from tests.support import points_stored
 
 SLOW = Path(__file__).parent / "data" / "slow.toml"
 QUICK = shipped_sequences_dir() / "demo" / "quick.toml"
 
 
 
-def _points_stored(store_path: Path) -> int:
-    if not store_path.exists():
-        return 0
-    try:
-        with sqlite3.connect(store_path, timeout=1) as db:
-            return db.execute("SELECT COUNT(*) FROM points").fetchone()[0]
-    except sqlite3.Error:  # not created yet
-        return 0
 
 
 def _start_run(sequence: Path, bench: Path, store_path: Path) -> subprocess.Popen[str]:
@@ -56,7 +49,7 @@ def _start_run(sequence: Path, bench: Path, store_path: Path) -> subprocess.Pope
 
 def _wait_for_points(proc: subprocess.Popen[str], store_path: Path, n: int) -> None:
     deadline = time.monotonic() + 60
-    while _points_stored(store_path) < n:
+    while points_stored(store_path) < n:
         assert proc.poll() is None, proc.communicate()
         assert time.monotonic() < deadline, "the run never got going"
         time.sleep(0.05)
@@ -113,7 +106,7 @@ def test_the_same_instruments_under_other_names_are_refused_then_free_when_kille
         assert result.exit_code == BenchBusy.exit_code == 7, result.output
         assert "in use by" in result.output and str(store_a) in result.output
         assert "Traceback" not in result.output
-        assert _points_stored(store_b) == 0
+        assert points_stored(store_b) == 0
         proc.send_signal(signal.SIGKILL)  # the holder dies without a word
         proc.communicate(timeout=60)
     finally:
@@ -160,7 +153,7 @@ def test_an_instrument_held_under_another_address_is_refused_after_idn_before_an
     assert sent and all(m.strip().upper() == "*IDN?" for m in sent), sent
     for role in ("rf", "lo"):
         assert twin.instruments[role].output_on is False
-    assert _points_stored(tmp_path / "b.sqlite") == 0
+    assert points_stored(tmp_path / "b.sqlite") == 0
 
 
 def test_identity_keys_ignore_case_and_firmware_and_skip_units_without_serial() -> None:

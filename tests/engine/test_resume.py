@@ -30,6 +30,7 @@ from sweeprig.sim.bench import resolve_description, start_sim_bench
 from sweeprig.sim.faults import FaultSpec
 from sweeprig.store.sqlite import SqliteRunStore
 from sweeprig.transport.resources import lock_keys
+from tests.support import points_stored
 
 SLOW = Path(__file__).parent / "data" / "slow.toml"
 QUICK = shipped_sequences_dir() / "demo" / "quick.toml"
@@ -42,14 +43,6 @@ def _bench_file(sim, folder: Path) -> Path:
     return path
 
 
-def _points_stored(store_path: Path) -> int:
-    if not store_path.exists():
-        return 0
-    try:
-        with sqlite3.connect(store_path, timeout=1) as db:
-            return db.execute("SELECT COUNT(*) FROM points").fetchone()[0]
-    except sqlite3.Error:
-        return 0
 
 
 def _start_run(sequence: Path, bench: Path, store_path: Path) -> subprocess.Popen[str]:
@@ -62,7 +55,7 @@ def _start_run(sequence: Path, bench: Path, store_path: Path) -> subprocess.Pope
 
 def _wait_for_points(proc: subprocess.Popen[str], store_path: Path, n: int) -> None:
     deadline = time.monotonic() + 60
-    while _points_stored(store_path) < n:
+    while points_stored(store_path) < n:
         assert proc.poll() is None, proc.communicate()
         assert time.monotonic() < deadline, "the run never got going"
         time.sleep(0.05)
@@ -177,7 +170,7 @@ def test_a_second_run_on_a_held_bench_is_refused_naming_the_holder(tmp_path,
     finally:
         proc.send_signal(signal.SIGTERM)
         proc.communicate(timeout=60)
-    assert not (tmp_path / "b.sqlite").exists() or _points_stored(tmp_path / "b.sqlite") == 0
+    assert not (tmp_path / "b.sqlite").exists() or points_stored(tmp_path / "b.sqlite") == 0
 
 
 def test_lock_files_left_by_a_killed_run_hold_nothing(tmp_path, sim_bench, private_lock_dir):

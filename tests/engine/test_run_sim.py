@@ -22,6 +22,7 @@ from sweeprig.plan.expand import count_points, iter_points
 from sweeprig.sim.bench import resolve_description, start_sim_bench
 from sweeprig.sim.faults import FaultSpec
 from sweeprig.store.sqlite import SqliteRunStore
+from tests.support import points_stored
 
 SEQUENCES = shipped_sequences_dir()
 
@@ -156,7 +157,7 @@ def test_signal_to_a_running_process_leaves_rf_off(tmp_path, realtime_sim_bench,
         deadline = time.monotonic() + 60
         while time.monotonic() < deadline:
             if any(sim_bench.instruments[r].output_on for r in ("rf", "lo")) and \
-                    _points_stored(store_path) >= 2:
+                    points_stored(store_path) >= 2:
                 break
             assert proc.poll() is None, proc.communicate()
             time.sleep(0.05)
@@ -180,11 +181,3 @@ def test_signal_to_a_running_process_leaves_rf_off(tmp_path, realtime_sim_bench,
         store.close()
 
 
-def _points_stored(store_path: Path) -> int:
-    if not store_path.exists():
-        return 0
-    try:
-        with sqlite3.connect(store_path, timeout=1) as db:
-            return db.execute("SELECT COUNT(*) FROM points").fetchone()[0]
-    except sqlite3.Error:
-        return 0

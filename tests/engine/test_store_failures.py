@@ -6,7 +6,6 @@ from __future__ import annotations
 
 import os
 import shutil
-import sqlite3
 import subprocess
 import sys
 import time
@@ -17,6 +16,7 @@ import pytest
 import sweeprig.engine.session as session
 from sweeprig.engine.session import run_sequence, served_bench_text
 from sweeprig.store.sqlite import SqliteRunStore
+from tests.support import points_stored, skip_unless_permissions_hold
 
 SLOW = Path(__file__).parent / "data" / "slow.toml"  # 60 points
 AFTER = 3  # the store fails after this many points
@@ -147,7 +147,7 @@ def test_read_only_store_mid_run_aborts_with_a_note(tmp_path, sim_bench, places,
 
 
 def test_store_file_made_read_only_mid_run_aborts(tmp_path, sim_bench, places):
-    _skip_unless_permissions_hold(tmp_path)
+    skip_unless_permissions_hold(tmp_path)
     store_path, _cwd = places
     outcome, seen = _run(sim_bench, tmp_path, store_path,
                          lambda: os.chmod(store_path, 0o444))
@@ -196,12 +196,6 @@ def test_really_full_disk_mid_run(tmp_path, sim_bench, places, tiny_disk):
         assert "full" in outcome.store_note.read_text(encoding="utf-8")
 
 
-def _points(store_path: Path) -> int:
-    try:
-        with sqlite3.connect(store_path, timeout=1) as db:
-            return db.execute("SELECT COUNT(*) FROM points").fetchone()[0]
-    except sqlite3.Error:
-        return 0
 
 
 @pytest.mark.slow
@@ -217,7 +211,7 @@ def test_cli_run_whose_store_folder_vanishes_exits_5_with_the_cause(tmp_path):
     try:
         deadline = time.monotonic() + 60
         while time.monotonic() < deadline:
-            if store_path.exists() and _points(store_path) >= 2:
+            if store_path.exists() and points_stored(store_path) >= 2:
                 break
             assert proc.poll() is None, proc.communicate()
             time.sleep(0.05)
@@ -239,10 +233,3 @@ def test_cli_run_whose_store_folder_vanishes_exits_5_with_the_cause(tmp_path):
     assert "safe state read back" in " ".join(out.split())
 
 
-def _skip_unless_permissions_hold(folder) -> None:
-    """Root (with its override capability) writes to read-only files: nothing to test then."""
-    probe = folder / "permission-probe"
-    probe.write_text("")
-    probe.chmod(0o444)
-    if os.access(probe, os.W_OK):
-        pytest.skip("this user writes whatever the permissions say (root)")

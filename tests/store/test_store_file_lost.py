@@ -12,6 +12,7 @@ import pytest
 from sweeprig.errors import StoreError
 from sweeprig.store import SqliteRunStore
 from tests.store.test_sqlite_store import _point, _readings, _run
+from tests.support import skip_unless_permissions_hold
 
 
 @pytest.fixture
@@ -107,7 +108,7 @@ def test_read_only_connection_says_it_cannot_be_written(opened):
 
 def test_file_made_read_only_stops_the_writes(opened, tmp_path):
     store, run_id = opened
-    _skip_unless_permissions_hold(tmp_path)
+    skip_unless_permissions_hold(tmp_path)
     os.chmod(store.path, 0o444)
     try:
         with pytest.raises(StoreError, match="read-only now"):
@@ -135,13 +136,6 @@ def test_failed_rollback_never_hides_the_first_error(opened, monkeypatch):
     assert "cannot rollback" not in caught.value.message()
 
 
-def _skip_unless_permissions_hold(folder) -> None:
-    """Root (with its override capability) writes to read-only files: nothing to test then."""
-    probe = folder / "permission-probe"
-    probe.write_text("")
-    probe.chmod(0o444)
-    if os.access(probe, os.W_OK):
-        pytest.skip("this user writes whatever the permissions say (root)")
 
 
 def test_file_overwritten_in_place_by_a_smaller_one_is_noticed(opened, tmp_path):

@@ -1,0 +1,29 @@
+"""Small helpers shared by several test modules (plain functions, no fixtures)."""
+
+from __future__ import annotations
+
+import os
+import sqlite3
+from pathlib import Path
+
+import pytest
+
+
+def points_stored(store_path: Path) -> int:
+    """Points in a run store as another process sees it (0 before the store exists)."""
+    if not store_path.exists():
+        return 0
+    try:
+        with sqlite3.connect(store_path, timeout=1) as db:
+            return db.execute("SELECT COUNT(*) FROM points").fetchone()[0]
+    except sqlite3.Error:  # not created yet, or mid-creation
+        return 0
+
+
+def skip_unless_permissions_hold(folder: Path) -> None:
+    """Root (with its override capability) writes to read-only files: nothing to test then."""
+    probe = folder / "permission-probe"
+    probe.write_text("")
+    probe.chmod(0o444)
+    if os.access(probe, os.W_OK):
+        pytest.skip("this user writes whatever the permissions say (root)")
