@@ -25,7 +25,7 @@ from sweeprig.cli.report_cmd import VERDICT_FAILED_EXIT_CODE
 from sweeprig.engine.runner import PointResult
 from sweeprig.engine.safe import SafeOutcome, make_bench_safe
 from sweeprig.engine.session import LoadedFiles, RunOutcome, resume_run, run_sequence
-from sweeprig.errors import BENCH_UNSAFE_EXIT_CODE, StoreError, SweeprigError
+from sweeprig.errors import BENCH_UNSAFE_EXIT_CODE, InputError, StoreError, SweeprigError
 from sweeprig.formats.bench import load_bench
 from sweeprig.instruments import available_profiles
 from sweeprig.plan.duration import format_duration
@@ -310,6 +310,14 @@ def safe_command(
     console = Console(highlight=False)
     try:
         loaded = load_bench(bench, known_profiles=available_profiles())
+        if loaded.is_simulated():
+            raise InputError(
+                "this bench file describes the in-process simulated bench (every resource is "
+                '"sim"): its instruments live only inside a `sweeprig run --sim` process and '
+                "end with it, so there is nothing here to make safe",
+                where=str(bench),
+                fix="give the bench file of the real instruments (or of a served simulated "
+                "bench, `sweeprig sim serve --write-bench FILE`)")
         with visa_library_override(visa_library):
             outcome = make_bench_safe(loaded)
     except SweeprigError as exc:

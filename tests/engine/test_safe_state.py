@@ -364,3 +364,12 @@ def test_a_reply_left_over_from_a_query_cut_short_cannot_shift_the_read_back(tmp
         assert outcome.ok, outcome.failed
         look = outside_look(sim)
         assert look["rf"] == "0" and look["dc"] == "0", look
+
+
+def test_safe_command_on_the_in_process_simulated_bench_says_there_is_nothing_to_do():
+    """Its instruments end with the `run --sim` process: neither "safe" nor "unsafe" applies."""
+    result = CliRunner().invoke(app, ["safe", "--bench",
+                                      str(shipped_sequences_dir() / "benches" / "sim.toml")])
+    assert result.exit_code == 2, result.output
+    assert "in-process simulated bench" in result.output and "NOT PROVEN" not in result.output
+    assert "Traceback" not in result.output
