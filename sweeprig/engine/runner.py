@@ -39,6 +39,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from sweeprig.analysis.noise_floor import NoiseFloor, estimate_noise_floor
 from sweeprig.clock import Clock
 from sweeprig.engine.connect import BenchDrivers
 from sweeprig.errors import InputError, InstrumentError, TransportError
@@ -53,9 +54,6 @@ CHAMBER_POLL_S = 10.0
 """How often the DUT probe temperature is read while waiting for a set point, s."""
 CHAMBER_TIMEOUT_S = 4 * 3600.0
 """Give up waiting for a set point after this long, s."""
-NOISE_OFFSET_RBW = 4.0
-"""Trace points this many RBWs or more from the product count as noise (the Gaussian RBW
-filter is far below −100 dB there)."""
 
 
 PON_BIT = 0x80
@@ -508,7 +506,7 @@ class Runner:
             self._check(sa)
         sa.sweep(a.measure_time_s)
         level = sa.marker_level_dbm(reading.freq_hz)
-        noise = self._noise_floor_dbm(sa, reading.freq_hz, a.span_hz, a.rbw_hz)
+        floor = self._noise_floor(sa, reading, a.span_hz, a.rbw_hz, a.averages)
         overload = sa.overloaded()
         if reading.rf_retune_hz is not None and rf is not None:
             self._tune(rf, "rf", point.rf_freq_hz, point.rf_power_dbm)
@@ -523,7 +521,7 @@ class Runner:
             port=port,
             freq_hz=reading.freq_hz,
             level_dbm=level + loss,
-            noise_floor_dbm=noise + loss,
+            noise_floor_dbm=None if floor.dbm is None else floor.dbm + loss,
             m=orders[0] if len(orders) >= 1 else None,
             n=orders[1] if len(orders) >= 2 else None,
             span_hz=a.span_hz,
@@ -533,26 +531,28 @@ class Runner:
             averages=a.averages,
             overload=overload,
             attenuation_check=True if reading.attenuation_check else None,
-            extra=_reading_extra(reading, level, loss),
+            extra=_reading_extra(reading, level, loss, floor),
         )
 
     @staticmethod
-    def _noise_floor_dbm(sa: AnalyzerDriver, centre_hz: float, span_hz: float,
-                         rbw_hz: float) -> float:
-        """The displayed noise power around the product, dBm.
+    def _noise_floor(sa: AnalyzerDriver, reading: Reading, span_hz: float, rbw_hz: float,
+                     averages: int) -> NoiseFloor:
+        """The noise power around the product, dBm at the analyzer input.
 
-        The mean *power* of the trace points more than ``NOISE_OFFSET_RBW`` RBWs from the
-        product (several hundred points: a steady estimate, where one marker sample of
-        log-detected noise scatters by about 5.6 dB). With too narrow a span for that, one
-        marker sample beside the product.
+        The median of the trace points more than ``MASK_HALF_WIDTH_RBW`` RBWs from the
+        product and from every other line the plan expects at the port (several hundred
+        points: a steady estimate, where one marker sample of log-detected noise scatters by
+        about 5.6 dB; see :mod:`sweeprig.analysis.noise_floor`). Too few such points: the
+        floor is unknown (None), not a guess read on a filter skirt.
         """
+        assert reading.freq_hz is not None
+        centre_hz = reading.freq_hz
         trace = sa.trace()
-        if trace.size >= 3 and span_hz > 0:
-            freqs = centre_hz + np.linspace(-span_hz / 2, span_hz / 2, trace.size)
-            away = np.abs(freqs - centre_hz) > NOISE_OFFSET_RBW * rbw_hz
-            if np.count_nonzero(away) >= 10:
-                return float(10.0 * np.log10(np.mean(10.0 ** (trace[away] / 10.0))))
-        return sa.marker_level_dbm(centre_hz + NOISE_OFFSET_RBW * rbw_hz)
+        if trace.size < 3 or span_hz <= 0:
+            return NoiseFloor(None, 0, "no trace around the product (zero span)")
+        freqs = centre_hz + np.linspace(-span_hz / 2, span_hz / 2, trace.size)
+        return estimate_noise_floor(trace, freqs, rbw_hz, (centre_hz, *reading.known_hz),
+                                    averages=averages)
 
     def _read_power_meter(self, point: Point, reading: Reading) -> ReadingRecord:
         pm = self.d.pm
@@ -588,8 +588,11 @@ def _connection_of(port: str) -> str:
     return {"if": "if", "rf": "rf_port", "lo": "lo_port"}[port]
 
 
-def _reading_extra(reading: Reading, level_dbm: float, loss_db: float) -> dict[str, object]:
+def _reading_extra(reading: Reading, level_dbm: float, loss_db: float,
+                   floor: NoiseFloor | None = None) -> dict[str, object]:
     extra: dict[str, object] = {"analyzer_level_dbm": level_dbm, "path_loss_db": loss_db}
+    if floor is not None and floor.dbm is None:
+        extra["noise_floor_unknown"] = floor.reason
     if reading.orders is not None and len(reading.orders) > 2:
         extra["orders"] = list(reading.orders)
     if reading.repeat_of is not None:

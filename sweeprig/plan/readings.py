@@ -80,6 +80,8 @@ class Reading:
     |Σ orders·f| is ``freq_hz``. ``rf_retune_hz``: set the RF source here for this reading
     only (image response), then back. ``attenuation_check``: this is the +10 dB repeat of
     ``repeat_of``. ``expected_dbm``: predicted level at the analyzer input, None if unknown.
+    ``known_hz``: the other lines the plan expects at this port (tones, leakage, the other
+    products of the reading's kind), which the noise-floor estimate masks out of the trace.
     """
 
     name: str
@@ -93,6 +95,7 @@ class Reading:
     attenuation_check: bool = False
     repeat_of: str | None = None
     expected_dbm: float | None = None
+    known_hz: tuple[float, ...] = ()
 
 
 @dataclass(frozen=True)
@@ -260,17 +263,27 @@ class ReadingPlanner:
                 continue
             for name, port, freq, orders, exp, retune in items:
                 setup = self._setup(kind, port, d, freq, exp, wanted_dbm, settings, retune, 0.0)
+                known = self._known_hz(port, retune, freq,
+                                       [f for _, p, f, _, _, _ in items if p == port])
                 out.append(Reading(name=name, kind=kind, instrument="sa", port=port,
                                    freq_hz=freq, orders=orders, analyzer=setup,
-                                   rf_retune_hz=retune, expected_dbm=exp))
+                                   rf_retune_hz=retune, expected_dbm=exp, known_hz=known))
                 if check:
                     extra = self._setup(kind, port, d, freq, exp, wanted_dbm, settings, retune,
                                         ATTENUATION_CHECK_DB)
                     out.append(Reading(name=f"{name}.att10", kind=kind, instrument="sa",
                                        port=port, freq_hz=freq, orders=orders, analyzer=extra,
                                        rf_retune_hz=retune, attenuation_check=True,
-                                       repeat_of=name, expected_dbm=exp))
+                                       repeat_of=name, expected_dbm=exp, known_hz=known))
         return tuple(out)
+
+    def _known_hz(self, port: str, retune_hz: float | None, freq_hz: float,
+                  siblings_hz: list[float]) -> tuple[float, ...]:
+        """Other lines expected at ``port`` (the port picture of :meth:`_setup`, plus the
+        other products of the same reading kind), without ``freq_hz`` itself, sorted."""
+        _, neighbours = self._picture[(port, retune_hz)]
+        lines = {float(f) for f in [*neighbours, *siblings_hz] if math.isfinite(f)}
+        return tuple(sorted(f for f in lines if abs(f - freq_hz) >= 1.0))
 
     def _reference_dbm(self, kind: str, port: str, d: Drive, wanted_dbm: float) -> float:
         """Level that ``spur_floor`` counts down from, for a product of unknown level.

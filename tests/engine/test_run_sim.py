@@ -5,6 +5,8 @@ SIGTERM sent to a running ``sweeprig`` process."""
 
 from __future__ import annotations
 
+import json
+import math
 import signal
 import sqlite3
 import subprocess
@@ -14,6 +16,7 @@ from pathlib import Path
 
 import pytest
 
+from sweeprig.analysis import validity
 from sweeprig.clock import VirtualClock
 from sweeprig.engine.session import run_sequence, served_bench_text, shipped_sequences_dir
 from sweeprig.errors import SafetyLimitError
@@ -181,3 +184,33 @@ def test_signal_to_a_running_process_leaves_rf_off(tmp_path, realtime_sim_bench,
         store.close()
 
 
+
+
+TWO_TONE_WIDE = Path(__file__).parent / "data" / "two_tone_wide_span.toml"
+
+
+def test_im3_beside_strong_tones_in_the_span_is_not_read_as_in_noise(tmp_path):
+    # Each IM3 product shares a 6 MHz trace with both wanted tones (~45 dB above it). The
+    # floor must be the analyzer's noise (plus the part's own output noise), not the tones.
+    store_path = tmp_path / "runs.sqlite"
+    outcome = run_sequence(TWO_TONE_WIDE, sim=True, store_path=store_path)
+    assert outcome.status == "complete", outcome.reason
+    store = SqliteRunStore(store_path)
+    try:
+        readings = store.readings_frame(outcome.run_id)
+    finally:
+        store.close()
+    im3 = readings[readings["name"].str.startswith("im3.")]
+    assert len(im3) == 2
+    for _, row in im3.iterrows():
+        extra = json.loads(row["extra_json"])
+        # DANL = kT0 + NF + attenuation + 10·log10(RBW) (kT0 = -173.98 dBm/Hz, Pozar),
+        # NF 14 dB in the default simulated bench; referred to the DUT plane by the path loss
+        danl = (-173.975 + 14.0 + row["attenuation_db"] + 10.0 * math.log10(row["rbw_hz"])
+                + extra["path_loss_db"])
+        floor = row["noise_floor_dbm"]
+        assert danl - 1.0 <= floor <= danl + 3.0, (row["name"], floor, danl)
+        # well above the floor: neither flagged in noise nor kept out of a fit
+        assert row["level_dbm"] - floor > 30.0
+        assert not validity.in_noise(row["level_dbm"], floor)
+        assert validity.clear_of_noise(row["level_dbm"], floor)
