@@ -39,9 +39,9 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from sweeprig.analysis.noise_floor import NoiseFloor, estimate_noise_floor
 from sweeprig.clock import Clock
 from sweeprig.engine.connect import BenchDrivers
+from sweeprig.engine.noise_floor import NoiseFloor, estimate_noise_floor
 from sweeprig.errors import InputError, InstrumentError, TransportError
 from sweeprig.formats.bench import Bench
 from sweeprig.formats.sequence import Sequence
@@ -542,7 +542,7 @@ class Runner:
         The median of the trace points more than ``MASK_HALF_WIDTH_RBW`` RBWs from the
         product and from every other line the plan expects at the port (several hundred
         points: a steady estimate, where one marker sample of log-detected noise scatters by
-        about 5.6 dB; see :mod:`sweeprig.analysis.noise_floor`). Too few such points: the
+        about 5.6 dB; see :mod:`sweeprig.engine.noise_floor`). Too few such points: the
         floor is unknown (None), not a guess read on a filter skirt.
         """
         assert reading.freq_hz is not None

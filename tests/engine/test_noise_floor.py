@@ -8,7 +8,7 @@ import math
 import numpy as np
 import pytest
 
-from sweeprig.analysis.noise_floor import (
+from sweeprig.engine.noise_floor import (
     MASK_HALF_WIDTH_RBW,
     estimate_noise_floor,
     median_above_power_db,
