@@ -45,7 +45,7 @@ from sweeprig import analysis as an
 from sweeprig.analysis.captures import CONDITION_COLUMNS
 from sweeprig.analysis.figures import Figure
 from sweeprig.analysis.limits import INCONCLUSIVE, PASS, Assessment, Limit, Verdict, assess
-from sweeprig.analysis.load import captures_from_frames
+from sweeprig.analysis.load import DIRECT_KINDS, PRODUCT_SUFFIXES, captures_from_frames
 from sweeprig.errors import SweeprigError
 from sweeprig.files import read_file_text
 from sweeprig.formats.fields import axis_len
@@ -421,6 +421,56 @@ def _figures(
     if names := having(ROLE_SPURS):
         figures += an.spur_figures(captures, study=names)
     return figures
+
+
+# ---------------------------------------------------------------------------------------------
+# what a planned study can measure (the same roles as above, from the sequence alone)
+
+#: The figures a ``[[spec]]`` can name that each role yields, each with the capture readings
+#: it needs besides the role (every item; ``"a|b"``: either). Mirrors :func:`_figures` and the
+#: analysis functions it calls: a role or figure added there needs its line here.
+ROLE_SPEC_FIGURES: Mapping[str, tuple[tuple[str, tuple[str, ...]], ...]] = MappingProxyType({
+    ROLE_GAIN: (("conversion_gain", ()),),
+    ROLE_FLATNESS: (("gain_flatness", ()),),
+    ROLE_COMPRESSION: (("input_p1db", ()), ("output_p1db", ())),
+    ROLE_TWO_TONE: (("iip3", ("if", "im3_low|im3_high")), ("oip3", ("if", "im3_low|im3_high")),
+                    ("iip2", ("if", "im2_low|im2_high"))),
+    ROLE_ISOLATION: (("lo_if_isolation", ("lo_at_if",)), ("lo_rf_isolation", ("lo_at_rf",)),
+                     ("rf_if_isolation", ("rf_at_if",))),
+    ROLE_IMAGE: (("image_rejection", ()),),
+    ROLE_SUPPLY: (("supply_current", ()),),
+    ROLE_SPURS: (("spur_dbc", ()),),
+})
+
+
+def planned_readings(study: Study) -> tuple[str, ...]:
+    """The capture readings (:mod:`sweeprig.analysis.load`) a study's ``read`` list gives.
+    An ``mxn`` reading gives spurs, and may stand in for the wanted output (``if``): counted
+    as both, so nothing it could measure is denied."""
+    out: list[str] = []
+    for spec in study.readings():
+        if spec.kind in DIRECT_KINDS:
+            out.append(DIRECT_KINDS[spec.kind])
+        elif spec.kind == "mxn":
+            out += ["spur", "if"]
+        else:
+            out += [short for (kind, _), short in PRODUCT_SUFFIXES.items() if kind == spec.kind]
+    return tuple(dict.fromkeys(out))
+
+
+def planned_figure_names(sequence: Sequence) -> dict[str, tuple[str, ...]]:
+    """Per study (file order), the analysis names of the figures a ``[[spec]]`` can name
+    that its results will hold: the study roles :func:`reduce_run` gives it, from its axes
+    and readings."""
+    out: dict[str, tuple[str, ...]] = {}
+    for study in sequence.study:
+        readings = planned_readings(study)
+        roles = _roles(readings, *_shape_from_sequence(study),
+                       temperatures=sequence.temperature_count())
+        out[study.name] = tuple(
+            name for role in roles for name, needs in ROLE_SPEC_FIGURES.get(role, ())
+            if all(any(r in readings for r in item.split("|")) for item in needs))
+    return out
 
 
 # ---------------------------------------------------------------------------------------------

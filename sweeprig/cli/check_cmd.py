@@ -27,6 +27,7 @@ from sweeprig.formats.sequence import DEFAULT_MAX_POINTS, Sequence, load_sequenc
 from sweeprig.plan.duration import estimate_duration, format_duration
 from sweeprig.plan.expand import layout
 from sweeprig.plan.preflight import PreflightReport, check_limits, format_amount, safety_error
+from sweeprig.plan.spec_coverage import check_specs
 from sweeprig.text import one_line
 
 # -- where the shipped files are --------------------------------------------------------------
@@ -75,6 +76,7 @@ def check_file(path: Path, bench: Bench, max_points: int = DEFAULT_MAX_POINTS
                ) -> tuple[Sequence, PreflightReport]:
     """Load one sequence and run the pre-flight check; raises the first problem found."""
     sequence = load_sequence(path, max_points=max_points)
+    check_specs(sequence)
     report = check_limits(sequence, bench)
     if not report.ok:
         first = min(report.violations, key=lambda c: c.violation_index or 0)
@@ -196,6 +198,7 @@ def plan(
     try:
         loaded_bench, bench_name = _load_bench_or_sim(bench)
         seq = load_sequence(sequence, max_points=max_points)
+        check_specs(seq)
         report = check_limits(seq, loaded_bench)
         estimate = estimate_duration(seq, loaded_bench)
     except SweeprigError as exc:

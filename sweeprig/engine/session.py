@@ -47,6 +47,7 @@ from sweeprig.oslock import FileLock
 from sweeprig.plan.duration import estimate_duration
 from sweeprig.plan.expand import count_points, iter_points
 from sweeprig.plan.preflight import PreflightReport, check_roles, preflight
+from sweeprig.plan.spec_coverage import check_specs
 from sweeprig.signals import (
     RunStopped,
     handles_stop_signals,
@@ -138,6 +139,7 @@ def load_run_files(sequence_path: str | Path, bench_path: str | Path | None, *,
     """
     seq_path = Path(sequence_path)
     sequence = load_sequence(seq_path)
+    check_specs(sequence)
     if bench_path is None:
         if not sim:
             raise _NoBench()

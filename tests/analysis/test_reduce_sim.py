@@ -428,3 +428,18 @@ def test_limits_come_from_included_files_when_the_file_is_unchanged(tmp_path):
         changed = reduce_run(store, run_id)
     assert not changed.limits and changed.verdict == "inconclusive"
     assert any("has changed or moved" in note for note in changed.notes)
+
+
+def test_the_planned_figures_are_the_ones_the_run_gives(measured, flagged):
+    """What ``check`` predicts a sequence will measure (and so which [[spec]] limits it can
+    evaluate) is what the reduction of the real run gives, study by study."""
+    from sweeprig.analysis.reduce import SPEC_FIGURES, planned_figure_names
+    from sweeprig.formats.sequence import load_sequence
+
+    part, run = measured
+    for path, reduced in ((SEQUENCES[part], run), (DATA / "validity-flags.toml", flagged)):
+        spec_names = set(SPEC_FIGURES.values())
+        given = {s.name: {f.name for f in reduced.figures if f.name in spec_names
+                          and f.conditions.get("study") == s.name} for s in reduced.studies}
+        planned = {k: set(v) for k, v in planned_figure_names(load_sequence(path)).items()}
+        assert planned == given, path.name
