@@ -178,6 +178,9 @@ class Part(Frozen):
         None, description="expected LO→RF isolation, dB (positive). Unknown: assume none")
     expected_rf_if_isolation: LevelDb | None = Field(
         None, description="expected RF→IF isolation, dB (positive). Unknown: assume none")
+    passive: bool = Field(
+        False, description="true for a part that needs no DC supply (a passive mixer): a "
+        "sequence without [conditions] supply is then not refused on a bench with a supply")
 
 
 class Mixing(Frozen):
