@@ -517,6 +517,13 @@ def check_sequence(sequence: Sequence) -> None:
     if cond.supply is not None and _axis_min(cond.supply) < 0:
         raise _problem(sequence, ("conditions", "supply"), "a supply voltage is negative",
                        "give supply voltages of 0 V or more")
+    if cond.supply is None and "supply_current" in sequence.reading_kinds():
+        raise _problem(sequence, ("conditions",),
+                       "the sequence reads supply_current but sets no supply voltage: sweeprig "
+                       "would never set the supply or switch its output on, so the part would "
+                       "be measured unpowered (every gain tens of dB below expected_gain)",
+                       'add supply = "3.3 V" (the part\'s supply voltage; check its rating '
+                       "first) under [conditions], or drop the supply_current reading")
     seen: dict[str, int] = {}
     for i, study in enumerate(sequence.study):
         if study.name in seen:

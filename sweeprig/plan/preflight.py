@@ -158,27 +158,18 @@ def check_roles(sequence: Sequence, bench: Bench) -> None:
 
 
 def check_supply(sequence: Sequence, bench: Bench) -> list[str]:
-    """Refuse a plan that would measure the part unpowered by mistake; warn where it may.
+    """Warn where a plan may measure the part unpowered.
 
     A sequence without ``[conditions] supply`` never sets the supply voltage nor switches its
-    output on. One that reads ``supply_current`` all the same would measure an unpowered part
-    all night: InputError. Otherwise (unless ``[part] passive = true`` says the part needs no
-    supply) a warning: on a bench with a ``dc`` role the key was most likely forgotten; on
-    one without, the part must be powered by other means. A supply set point of 0 V is a
-    warning too. Returns the warnings.
+    output on. One that reads ``supply_current`` all the same is refused when the file is
+    read (:func:`sweeprig.formats.sequence.check_sequence`); otherwise, unless ``[part]
+    passive = true`` says the part needs no supply, a warning: on a bench with a ``dc`` role
+    the key was most likely forgotten; on one without, the part must be powered by other
+    means. A supply set point of 0 V is a warning too. Returns the warnings.
     """
     warnings: list[str] = []
     supply = sequence.conditions.supply
     if supply is None:
-        if "supply_current" in sequence.reading_kinds():
-            raise InputError(
-                "the sequence reads supply_current but sets no supply voltage: sweeprig would "
-                "never set the supply or switch its output on, so the part would be measured "
-                "unpowered (every gain tens of dB below expected_gain)",
-                where=sequence.where(("conditions",)),
-                fix='add supply = "3.3 V" (the part\'s supply voltage; check its rating first) '
-                "under [conditions], or drop the supply_current reading",
-            )
         if sequence.part.passive:
             return warnings
         if bench.role("dc") is not None:

@@ -1,5 +1,6 @@
 """Pre-flight on the supply: a plan that would measure the part unpowered is refused where
-it surely would (it reads supply_current but never sets the supply) and warned about where
+it surely would (it reads supply_current but never sets the supply: refused with the file,
+by check, plan and run alike) and warned about where
 it may (no supply set, or a 0 V set point), unless the part is passive."""
 
 from pathlib import Path
@@ -44,9 +45,9 @@ def seq(read: list[str], part: dict | None = None, conditions: dict | None = Non
     return sequence_from_dict(data)
 
 
-def test_reading_supply_current_without_a_supply_is_refused(bench) -> None:
+def test_reading_supply_current_without_a_supply_is_refused_when_read() -> None:
     with pytest.raises(InputError) as info:
-        check_limits(seq(["wanted", "supply_current"]), bench)
+        seq(["wanted", "supply_current"])
     err = info.value
     assert "sets no supply voltage" in err.what and "unpowered" in err.what
     assert "conditions" in err.where
