@@ -55,6 +55,9 @@ Flags (sweeprig's own names)
     the lowest LO power tested, or the gain was still rising at the highest one).
 ``missing_reading``
     A reading the figure needs was not in the capture.
+``unpowered``
+    At a point behind the figure the conversion gain was more than 20 dB below the part's
+    ``expected_gain``: the part looks unpowered, wrongly powered or not driven.
 """
 
 from __future__ import annotations
@@ -63,7 +66,7 @@ import gc
 import math
 from collections.abc import Iterable, Iterator, Mapping, Sequence
 from contextlib import contextmanager
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from functools import lru_cache
 from types import MappingProxyType
 from typing import Literal
@@ -91,6 +94,7 @@ IN_COMPRESSION = "in_compression"
 POINTS_EXCLUDED = "points_excluded"
 EDGE_OF_SWEEP = "edge_of_sweep"
 MISSING_READING = "missing_reading"
+UNPOWERED = "unpowered"
 
 #: Every flag, in a fixed order: the position is the flag's bit in a flag mask.
 FLAGS: tuple[str, ...] = (
@@ -109,6 +113,7 @@ FLAGS: tuple[str, ...] = (
     POINTS_EXCLUDED,
     EDGE_OF_SWEEP,
     MISSING_READING,
+    UNPOWERED,
 )
 
 #: Flags that make a figure untrustworthy as a number: a limit check on it is inconclusive.
@@ -124,6 +129,7 @@ SUSPECT_FLAGS: frozenset[str] = frozenset(
         NO_VALID_RANGE,
         IN_COMPRESSION,
         MISSING_READING,
+        UNPOWERED,
     }
 )
 
@@ -289,6 +295,22 @@ def make_figures(
             set_attr(figure, "flags", flags_from_mask(m))
             set_attr(figure, "points", p)
             append(figure)
+    return out
+
+
+def flag_points(
+    figures: Iterable[Figure], points: Iterable[int], name: str
+) -> list[Figure]:
+    """The figures, with flag ``name`` added to every one that came from any of ``points``
+    (run-store point indices); the others are returned as they are."""
+    marked = frozenset(int(p) for p in points)
+    bit = _FLAG_BIT[name]
+    out: list[Figure] = []
+    for figure in figures:
+        if marked and name not in figure.flags and not marked.isdisjoint(figure.points):
+            mask = sum(_FLAG_BIT[f] for f in figure.flags) | bit
+            figure = replace(figure, flags=flags_from_mask(mask))
+        out.append(figure)
     return out
 
 

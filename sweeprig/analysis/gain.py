@@ -27,6 +27,7 @@ from sweeprig.analysis.figures import (
     make_figures,
     mask_where,
 )
+from sweeprig.analysis.validity import UNPOWERED_GAIN_MARGIN_DB, gain_collapsed
 
 #: LO drive: the gain counts as "full" within this much of its maximum (dB).
 LO_GAIN_WITHIN_DB = 0.5
@@ -116,6 +117,22 @@ def gain_table(captures: pd.DataFrame, *, study: str | Sequence[str] | None = No
     table["gain_bound"] = np.where(has_bit(flags, IN_NOISE), BOUND_BELOW, BOUND_NONE)
     table["gain_flags"] = flags
     return table
+
+
+def unpowered_points(
+    captures: pd.DataFrame, expected_gain_db: float,
+    margin_db: float = UNPOWERED_GAIN_MARGIN_DB,
+) -> np.ndarray:
+    """Run-store indices (ascending) of the points whose conversion gain, from their ``if``
+    reading, is more than ``margin_db`` below ``expected_gain_db``: the part looks
+    unpowered, wrongly powered or not driven there (see
+    :func:`sweeprig.analysis.validity.gain_collapsed`). Every study with an ``if`` reading
+    counts, two-tone ones included (tone 1's output against its drive)."""
+    if captures.empty:
+        return np.zeros(0, dtype=np.int64)
+    table = gain_table(captures)
+    collapsed = gain_collapsed(table["gain_db"].to_numpy(), expected_gain_db, margin_db)
+    return np.asarray(table["point"].to_numpy()[collapsed], dtype=np.int64)
 
 
 def conversion_gain_figures(

@@ -43,9 +43,11 @@ import pandas as pd
 
 from sweeprig import analysis as an
 from sweeprig.analysis.captures import CONDITION_COLUMNS
-from sweeprig.analysis.figures import Figure
+from sweeprig.analysis.figures import UNPOWERED, Figure, flag_points
+from sweeprig.analysis.gain import unpowered_points
 from sweeprig.analysis.limits import INCONCLUSIVE, PASS, Assessment, Limit, Verdict, assess
 from sweeprig.analysis.load import DIRECT_KINDS, PRODUCT_SUFFIXES, captures_from_frames
+from sweeprig.analysis.validity import UNPOWERED_GAIN_MARGIN_DB
 from sweeprig.errors import SweeprigError
 from sweeprig.files import read_file_text
 from sweeprig.formats.fields import axis_len
@@ -161,6 +163,8 @@ def reduce_run(store: RunStore, run_id: int) -> RunFigures:
     captures = captures_from_frames(points, readings, wanted_orders=orders)
     studies = _study_infos(captures, points, sequence)
     figures = _figures(captures, studies, notes)
+    if sequence is not None:
+        figures = _flag_unpowered(figures, captures, sequence.part.expected_gain, notes)
     limits = limits_from_sequence(sequence) if sequence is not None else ()
     assessment = assess(figures, limits)
     state = _state(info.status, info.points_done, info.points_total)
@@ -421,6 +425,23 @@ def _figures(
     if names := having(ROLE_SPURS):
         figures += an.spur_figures(captures, study=names)
     return figures
+
+
+def _flag_unpowered(figures: list[Figure], captures: pd.DataFrame, expected_gain_db: float,
+                    notes: list[str]) -> list[Figure]:
+    """Flag ``unpowered`` every figure that came from a point whose conversion gain was more
+    than :data:`UNPOWERED_GAIN_MARGIN_DB` below the part's expected gain, and say so."""
+    points = unpowered_points(captures, expected_gain_db)
+    if points.size == 0:
+        return figures
+    total = int(captures["point"].nunique())
+    notes.append(
+        f"{points.size} of {total} point(s) had a conversion gain more than "
+        f"{UNPOWERED_GAIN_MARGIN_DB:g} dB below the expected {expected_gain_db:g} dB: the part "
+        "looks unpowered, wrongly powered or not driven there (check the supply voltage and "
+        "output, its current limit and the LO drive); every figure from those points is "
+        "flagged 'unpowered'")
+    return flag_points(figures, points.tolist(), UNPOWERED)
 
 
 # ---------------------------------------------------------------------------------------------

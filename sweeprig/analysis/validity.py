@@ -25,6 +25,10 @@ ATTEN_PRODUCT_CHANGE_DB = 1.0
 ATTEN_CARRIER_TOLERANCE_DB = 0.3
 #: Fewer points than this in a linear region or fit range raises ``few_points``.
 MIN_LINEAR_POINTS = 3
+#: A conversion gain more than this below the part's ``expected_gain`` says the part is
+#: unpowered, wrongly powered or not driven, not merely off its spec (dB; common practice,
+#: no source: well beyond part-to-part spread, compression and mismatch).
+UNPOWERED_GAIN_MARGIN_DB = 20.0
 
 
 def in_noise(
@@ -96,3 +100,16 @@ def upper_bound_dbm(level_dbm: ArrayLike, noise_floor_dbm: ArrayLike) -> np.ndar
     level = np.asarray(level_dbm, dtype=float)
     floor = np.asarray(noise_floor_dbm, dtype=float)
     return np.where(np.isfinite(floor), np.fmax(level, floor), level)
+
+
+def gain_collapsed(
+    gain_db: ArrayLike, expected_gain_db: float, margin_db: float = UNPOWERED_GAIN_MARGIN_DB
+) -> np.ndarray:
+    """True where a conversion gain is more than ``margin_db`` below ``expected_gain_db``.
+
+    An in-noise gain (an upper bound) counts too: the true gain is lower still. NaN gains
+    are never counted.
+    """
+    gain = np.asarray(gain_db, dtype=float)
+    with np.errstate(invalid="ignore"):
+        return np.asarray(gain < float(expected_gain_db) - margin_db)

@@ -135,6 +135,8 @@ def check(
             f"{one_line(bench_name)})"))
         for note in report.notes:
             out.print(Text(f"  note: {one_line(note)}"))
+        for warning in report.warnings:
+            out.print(Text("  warning: ", style="bold yellow") + Text(one_line(warning)))
     _write_junit(junit, results)
     failed = sum(1 for _, _, e in results if e is not None)
     if failed:
@@ -249,6 +251,8 @@ def plan(
     out.print(ports)
     for note in report.notes:
         out.print(f"note: {note}")
+    for warning in report.warnings:
+        out.print(Text("warning: ", style="bold yellow") + Text(one_line(warning)))
     if not report.ok:
         first = min(report.violations, key=lambda c: c.violation_index or 0)
         raise _fail(safety_error(seq, first))

@@ -395,6 +395,9 @@ def _execute(
                            + (f" (it had ended {resume.previous})" if resume.previous else ""))
                 logger.info("run %d %s", run_id, message)
                 store.log_event(run_id, "info", "resume", message)
+            if resume is None:
+                for warning in files.report.warnings:
+                    store.log_event(run_id, "warning", "preflight", warning)
             for role, texts in drivers.startup_errors.items():
                 store.log_event(run_id, "info", "error_queue",
                                 f"role {role!r} queue held at start: " + "; ".join(texts))

@@ -178,6 +178,9 @@ class Part(Frozen):
         None, description="expected LO→RF isolation, dB (positive). Unknown: assume none")
     expected_rf_if_isolation: LevelDb | None = Field(
         None, description="expected RF→IF isolation, dB (positive). Unknown: assume none")
+    passive: bool = Field(
+        False, description="true for a part that needs no DC supply (a passive mixer): a "
+        "sequence without [conditions] supply is then not refused on a bench with a supply")
 
 
 class Mixing(Frozen):
@@ -514,6 +517,13 @@ def check_sequence(sequence: Sequence) -> None:
     if cond.supply is not None and _axis_min(cond.supply) < 0:
         raise _problem(sequence, ("conditions", "supply"), "a supply voltage is negative",
                        "give supply voltages of 0 V or more")
+    if cond.supply is None and "supply_current" in sequence.reading_kinds():
+        raise _problem(sequence, ("conditions",),
+                       "the sequence reads supply_current but sets no supply voltage: sweeprig "
+                       "would never set the supply or switch its output on, so the part would "
+                       "be measured unpowered (every gain tens of dB below expected_gain)",
+                       'add supply = "3.3 V" (the part\'s supply voltage; check its rating '
+                       "first) under [conditions], or drop the supply_current reading")
     seen: dict[str, int] = {}
     for i, study in enumerate(sequence.study):
         if study.name in seen:

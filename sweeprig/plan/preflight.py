@@ -37,7 +37,7 @@ import numpy as np
 
 from sweeprig.errors import InputError, SafetyLimitError, SweeprigError
 from sweeprig.formats.bench import Bench
-from sweeprig.formats.sequence import Sequence, required_roles
+from sweeprig.formats.sequence import RangeSpec, Sequence, required_roles
 from sweeprig.instruments.limits import LIMIT_TOLERANCE, beyond
 from sweeprig.plan import frequencies as fp
 from sweeprig.plan.expand import Layout, StudyBlock, layout, point_at
@@ -51,6 +51,7 @@ CHUNK = 1 << 18
 TOLERANCE = LIMIT_TOLERANCE
 
 __all__ = ["CAUTION", "PortCheck", "PreflightReport", "check_limits", "check_roles",
+           "check_supply",
            "format_amount", "preflight", "safety_error"]
 
 
@@ -121,6 +122,9 @@ class PreflightReport:
     points_checked: int = 0
     notes: list[str] = field(default_factory=list)
     """What was checked less than exactly (a study too large to plan reading by reading)."""
+    warnings: list[str] = field(default_factory=list)
+    """What may make the results wrong without breaking a limit (a part that may be measured
+    unpowered): printed by ``check`` and ``plan`` and recorded with the run."""
 
     @property
     def ok(self) -> bool:
@@ -151,6 +155,44 @@ def check_roles(sequence: Sequence, bench: Bench) -> None:
                 where=bench.where(("roles",)),
                 fix=f"add [roles.{role}] with resource = ... and profile = ... to the bench file",
             )
+
+
+def check_supply(sequence: Sequence, bench: Bench) -> list[str]:
+    """Warn where a plan may measure the part unpowered.
+
+    A sequence without ``[conditions] supply`` never sets the supply voltage nor switches its
+    output on. One that reads ``supply_current`` all the same is refused when the file is
+    read (:func:`sweeprig.formats.sequence.check_sequence`); otherwise, unless ``[part]
+    passive = true`` says the part needs no supply, a warning: on a bench with a ``dc`` role
+    the key was most likely forgotten; on one without, the part must be powered by other
+    means. A supply set point of 0 V is a warning too. Returns the warnings.
+    """
+    warnings: list[str] = []
+    supply = sequence.conditions.supply
+    if supply is None:
+        if sequence.part.passive:
+            return warnings
+        if bench.role("dc") is not None:
+            warnings.append(
+                "the sequence sets no supply voltage, but the bench has a DC supply (role "
+                "'dc'): sweeprig will not set it nor switch its output on, so the part may be "
+                "measured unpowered. Add supply = \"...\" under [conditions] (the part's "
+                "supply voltage), or write passive = true under [part] if it needs no supply; "
+                "gains far below expected_gain are flagged 'unpowered'")
+        else:
+            warnings.append(
+                "the sequence sets no supply voltage and the bench has no DC supply (role "
+                "'dc'): sweeprig does not power the part. Power it by other means before the "
+                "run, or write passive = true under [part] if it needs no supply; gains far "
+                "below expected_gain are flagged 'unpowered'")
+        return warnings
+    lowest = (min(supply.start, supply.stop) if isinstance(supply, RangeSpec)
+              else min(supply) if isinstance(supply, tuple) else float(supply))
+    if lowest <= 0.0:
+        warnings.append(
+            "conditions.supply includes 0 V: at those points the part is unpowered (gains far "
+            "below expected_gain are flagged 'unpowered')")
+    return warnings
 
 
 def _loss(bench: Bench, sequence: Sequence, block: StudyBlock, connection: str,
@@ -186,12 +228,13 @@ def check_limits(sequence: Sequence, bench: Bench) -> PreflightReport:
     outside its instrument's range.
     """
     check_roles(sequence, bench)
+    supply_warnings = check_supply(sequence, bench)
     roles = required_roles(sequence)
     profiles = {r: role_profile(bench, r) for r in roles}
     limits = {r: role_limits(bench, r, p) for r, p in profiles.items()}
     lim = bench.limits
     lay = layout(sequence)
-    report = PreflightReport(points_checked=lay.total)
+    report = PreflightReport(points_checked=lay.total, warnings=supply_warnings)
 
     def check(label: str, unit: str, value: float | None, key: tuple[str, ...], why: str,
               bound: str = "max", port: str = "") -> PortCheck:

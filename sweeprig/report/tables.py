@@ -109,6 +109,8 @@ FLAG_HELP: Mapping[str, tuple[str, str]] = MappingProxyType({
                         "overload or analyzer distortion (the fit used clean points)"),
     "edge_of_sweep": ("sweep edge", "the result lies at the edge of the swept range"),
     "missing_reading": ("missing", "a reading this figure needs was not captured"),
+    "unpowered": ("unpowered", "the conversion gain was more than 20 dB below the part's "
+                  "expected gain: the part looks unpowered, wrongly powered or not driven"),
 })
 
 #: Verdict of a summary row without any limit.

@@ -32,7 +32,7 @@ def test_parts_add_up() -> None:
 
 
 def test_overhead_counts_commands() -> None:
-    s = seq({"read": ["wanted", "supply_current"]})
+    s = seq({"read": ["wanted", "supply_current"]}, conditions={"supply": "3.3 V"})
     est = estimate_duration(s, command_overhead_s=0.01)
     # 4 source commands + 10 for the analyzer reading + 2 for the supply reading
     assert est.overhead_s == pytest.approx(16 * 0.01)
