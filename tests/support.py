@@ -5,8 +5,12 @@ from __future__ import annotations
 import os
 import sqlite3
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import pytest
+
+if TYPE_CHECKING:
+    pass
 
 
 def points_stored(store_path: Path) -> int:
@@ -27,3 +31,30 @@ def skip_unless_permissions_hold(folder: Path) -> None:
     probe.chmod(0o444)
     if os.access(probe, os.W_OK):
         pytest.skip("this user writes whatever the permissions say (root)")
+
+
+def check_app():
+    """A root Typer app with just the check/plan/schema commands registered."""
+    import typer
+
+    from sweeprig.cli.check_cmd import register
+
+    root = typer.Typer(no_args_is_help=True, add_completion=False)
+
+    @root.callback()
+    def _root() -> None:
+        """test root"""
+
+    register(root)
+    return root
+
+
+def invoke(app, *args: object, columns: int = 200):
+    """Run ``app`` with ``args`` in a wide virtual terminal (table cells not wrapped); a
+    traceback (any exception other than the CLI's own exit) fails the test."""
+    from typer.testing import CliRunner
+
+    result = CliRunner().invoke(app, [str(a) for a in args], env={"COLUMNS": str(columns)})
+    assert not isinstance(result.exception, Exception) or isinstance(
+        result.exception, SystemExit), result.exception  # never a traceback
+    return result

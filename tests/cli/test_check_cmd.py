@@ -5,10 +5,8 @@ import xml.etree.ElementTree as ET
 from pathlib import Path
 
 import pytest
-import typer
-from typer.testing import CliRunner
 
-from sweeprig.cli.check_cmd import register
+from tests.support import check_app, invoke
 
 ROOT = Path(__file__).resolve().parents[2]
 QUICK = ROOT / "sequences" / "demo" / "quick.toml"
@@ -16,23 +14,12 @@ SIM_BENCH = ROOT / "sequences" / "benches" / "sim.toml"
 
 
 @pytest.fixture(scope="module")
-def app() -> typer.Typer:
-    root = typer.Typer(no_args_is_help=True, add_completion=False)
-
-    @root.callback()
-    def _root() -> None:
-        """test root"""
-
-    register(root)
-    return root
+def app():
+    return check_app()
 
 
-def run(app: typer.Typer, *args: str):
-    # a wide virtual terminal, so that table cells are not wrapped
-    result = CliRunner().invoke(app, [str(a) for a in args], env={"COLUMNS": "200"})
-    assert not isinstance(result.exception, Exception) or isinstance(
-        result.exception, SystemExit), result.exception  # never a traceback
-    return result
+def run(app, *args: object):
+    return invoke(app, *args)
 
 
 HOT = """\

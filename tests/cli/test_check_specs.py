@@ -5,10 +5,8 @@ that says what the sequence does visit or measure, and exit 2."""
 from pathlib import Path
 
 import pytest
-import typer
-from typer.testing import CliRunner
 
-from sweeprig.cli.check_cmd import register
+from tests.support import check_app, invoke
 
 ROOT = Path(__file__).resolve().parents[2]
 DEMOS = sorted((ROOT / "sequences" / "demo").glob("*.toml"))
@@ -33,22 +31,12 @@ read = ["wanted", "lo_at_if", "supply_current"]
 
 
 @pytest.fixture(scope="module")
-def app() -> typer.Typer:
-    root = typer.Typer(no_args_is_help=True, add_completion=False)
-
-    @root.callback()
-    def _root() -> None:
-        """test root"""
-
-    register(root)
-    return root
+def app():
+    return check_app()
 
 
-def run(app: typer.Typer, *args: object):
-    result = CliRunner().invoke(app, [str(a) for a in args], env={"COLUMNS": "200"})
-    assert not isinstance(result.exception, Exception) or isinstance(
-        result.exception, SystemExit), result.exception  # never a traceback
-    return result
+def run(app, *args: object):
+    return invoke(app, *args)
 
 
 def write(tmp_path: Path, spec: str, head: str = HEAD) -> Path:

@@ -4,31 +4,19 @@ supply, before any instrument is touched."""
 from pathlib import Path
 
 import pytest
-import typer
-from typer.testing import CliRunner
 
-from sweeprig.cli.check_cmd import register
+from tests.support import check_app, invoke
 
 QUICK = Path(__file__).resolve().parents[2] / "sequences" / "demo" / "quick.toml"
 
 
 @pytest.fixture(scope="module")
-def app() -> typer.Typer:
-    root = typer.Typer(no_args_is_help=True, add_completion=False)
-
-    @root.callback()
-    def _root() -> None:
-        """test root"""
-
-    register(root)
-    return root
+def app():
+    return check_app()
 
 
-def run(app: typer.Typer, *args: object):
-    result = CliRunner().invoke(app, [str(a) for a in args], env={"COLUMNS": "400"})
-    assert not isinstance(result.exception, Exception) or isinstance(
-        result.exception, SystemExit), result.exception
-    return result
+def run(app, *args: object):
+    return invoke(app, *args, columns=400)
 
 
 def _variant(tmp_path: Path, name: str, old: str, new: str) -> Path:
