@@ -256,3 +256,24 @@ def lock_keys(resource: str) -> frozenset[str]:
         maker, model, serial, interface = fields
         return frozenset({f"usb {maker:04x}:{model:04x} {serial} {interface}"})
     return frozenset({f"visa {fields[0]}"})
+
+
+_INTERFACE_KEYWORD = re.compile(r"^(tcpip|gpib|usb|asrl|vxi|pxi|gpib-vxi)(?=\d|::|/|$)",
+                                re.IGNORECASE)
+_CLASS_KEYWORDS = frozenset({"SOCKET", "INSTR", "INTFC", "BACKPLANE", "MEMACC", "RAW",
+                             "SERVANT"})
+
+
+def visa_spelling(resource: str) -> str:
+    """``resource`` with its interface and resource-class keywords in upper case.
+
+    VISA resource names are case-insensitive (VPP-4.3, resource names), but pyvisa's parser
+    accepts only upper-case keywords; host names, serial device paths and USB serials are
+    left exactly as written.
+    """
+    text = resource.strip()
+    text = _INTERFACE_KEYWORD.sub(lambda m: m.group(1).upper(), text, count=1)
+    head, sep, last = text.rpartition("::")
+    if sep and last.upper() in _CLASS_KEYWORDS:
+        text = f"{head}::{last.upper()}"
+    return text

@@ -26,6 +26,7 @@ from sweeprig.errors import TransportError
 from sweeprig.transport import blocks
 from sweeprig.transport.backend import DEFAULT_VISA_LIBRARY, VISA_LIBRARY_ENV
 from sweeprig.transport.base import Transaction, TransactionHook
+from sweeprig.transport.resources import visa_spelling
 
 DEFAULT_TIMEOUT_S = 5.0
 
@@ -161,7 +162,7 @@ class VisaTransport:
             self._rm = _take_rm(self.visa_library)
         try:
             inst = self._rm.open_resource(
-                self.resource, open_timeout=int(self.timeout_s * 1000)
+                visa_spelling(self.resource), open_timeout=int(self.timeout_s * 1000)
             )
         except _PYVISA_ERRORS as exc:
             raise TransportError(

@@ -280,3 +280,18 @@ def test_random_spellings_never_give_two_holders(case, tmp_path_factory) -> None
 @given(case=lock_cases())
 def test_random_spellings_never_give_two_holders_1000(case, tmp_path_factory) -> None:
     _check_no_double_holder(case, tmp_path_factory.getbasetemp() / "resource-locks-soak")
+
+
+@pytest.mark.parametrize(("written", "spelled"), [
+    ("tcpip0::127.0.0.1::5025::socket", "TCPIP0::127.0.0.1::5025::SOCKET"),
+    ("Tcpip::Lab-Host.local::inst0::instr", "TCPIP::Lab-Host.local::inst0::INSTR"),
+    ("gpib0::18::instr", "GPIB0::18::INSTR"),
+    ("asrl/dev/ttyUSB0::instr", "ASRL/dev/ttyUSB0::INSTR"),
+    ("usb0::0x1234::0x5678::SerNo9a::instr", "USB0::0x1234::0x5678::SerNo9a::INSTR"),
+    ("TCPIP0::10.0.0.2::5025::SOCKET", "TCPIP0::10.0.0.2::5025::SOCKET"),
+])
+def test_visa_spelling_upper_cases_keywords_only(written: str, spelled: str) -> None:
+    from sweeprig.transport.resources import visa_spelling
+
+    assert visa_spelling(written) == spelled
+    rname.parse_resource_name(spelled)  # the reference parser (pyvisa) accepts it

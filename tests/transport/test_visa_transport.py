@@ -114,3 +114,11 @@ def test_bad_resource_string(resource):
 def test_garbage_resource_string():
     with pytest.raises(TransportError):
         VisaTransport("NOT-A-RESOURCE", timeout_s=0.5)
+
+
+def test_resource_keywords_in_any_case_open(loopback):
+    # VISA resource names are case-insensitive (VPP-4.3); pyvisa's parser wants upper case.
+    server = loopback(_instrument)
+    spelled = f"tcpip0::127.0.0.1::{server.port}::socket"
+    with VisaTransport(spelled, timeout_s=2.0) as t:
+        assert t.query("*IDN?") == "Tarnwick Labs,TW-XX1,0042,1.0"
