@@ -67,10 +67,12 @@ ROLE_ISOLATION = "isolation"
 ROLE_IMAGE = "image"
 ROLE_SUPPLY = "supply"
 
-#: Run states shown in reports: ``complete``, ``aborted``, or ``partial`` (not finished: still
+#: Run states shown in reports: ``complete``, ``aborted``, ``unsafe`` (the bench's safe state
+#: could not be verified by read-back when the run ended), or ``partial`` (not finished: still
 #: running, interrupted, or stored complete with points missing).
 STATE_COMPLETE = "complete"
 STATE_ABORTED = "aborted"
+STATE_UNSAFE = "unsafe"
 STATE_PARTIAL = "partial"
 
 _ISOLATION_READINGS = ("lo_at_if", "lo_at_rf", "rf_at_if")
@@ -171,7 +173,12 @@ def reduce_run(store: RunStore, run_id: int) -> RunFigures:
     verdict: Verdict = assessment.verdict
     if not limits:
         notes.append("the sequence has no [[spec]] limits: nothing to pass or fail")
-    elif verdict == PASS and state != STATE_COMPLETE:
+    if state == STATE_UNSAFE:
+        notes.append("the bench was NOT proven safe when this run ended (see the reason): "
+                     "check every instrument by hand before touching the bench")
+    measured_all = info.points_total is None or info.points_done >= info.points_total
+    if limits and verdict == PASS and not (state == STATE_COMPLETE
+                                           or (state == STATE_UNSAFE and measured_all)):
         verdict = INCONCLUSIVE
         notes.append(f"the run is {state}: every limit met so far, but not every planned "
                      "point was measured")
@@ -501,6 +508,8 @@ def planned_figure_names(sequence: Sequence) -> dict[str, tuple[str, ...]]:
 def _state(status: str, done: int, total: int | None) -> str:
     if status == "aborted":
         return STATE_ABORTED
+    if status == "unsafe":
+        return STATE_UNSAFE
     if status == "complete" and (total is None or done >= total):
         return STATE_COMPLETE
     return STATE_PARTIAL

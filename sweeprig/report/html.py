@@ -30,7 +30,8 @@ from sweeprig.report.tables import (
 )
 
 VERDICT_COLOURS = {PASS: "#2f7a4a", FAIL: "#b3261e", INCONCLUSIVE: "#a76a12"}
-STATE_COLOURS = {"complete": "#2f7a4a", "aborted": "#b3261e", "partial": "#a76a12"}
+STATE_COLOURS = {"complete": "#2f7a4a", "aborted": "#b3261e", "partial": "#a76a12",
+                 "unsafe": "#7a0d08"}
 
 _CSS = """
 :root { --ink:#1f2a36; --muted:#6b7785; --rule:#dde2e8; --paper:#fcfbf8; --band:#f3f1ea; }

@@ -24,7 +24,8 @@ from sweeprig.text import escape_controls, one_line
 
 VERDICT_STYLES = {PASS: "bold green", FAIL: "bold red", INCONCLUSIVE: "bold yellow",
                   NO_LIMIT: "dim"}
-STATE_STYLES = {"complete": "green", "aborted": "red", "partial": "yellow"}
+STATE_STYLES = {"complete": "green", "aborted": "red", "partial": "yellow",
+                "unsafe": "bold red"}
 
 
 def summary_table(run: RunFigures, rows: list[SummaryRow] | None = None) -> Table:

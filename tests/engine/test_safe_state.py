@@ -373,3 +373,18 @@ def test_safe_command_on_the_in_process_simulated_bench_says_there_is_nothing_to
     assert result.exit_code == 2, result.output
     assert "in-process simulated bench" in result.output and "NOT PROVEN" not in result.output
     assert "Traceback" not in result.output
+
+
+def test_an_unsafe_run_is_reported_unsafe_not_partial(tmp_path):
+    from sweeprig.analysis.reduce import STATE_UNSAFE, reduce_run
+
+    with served() as sim:
+        bench = bench_file(sim, tmp_path)
+        store_path = tmp_path / "s.sqlite"
+        first = run_then_fault(sim, bench, store_path,
+                               FaultSpec(role="lo", kind="swallow", match=OFF, max_count=3))
+    assert first.status == "unsafe"
+    with SqliteRunStore(store_path, create=False) as db:
+        figures = reduce_run(db, first.run_id)
+    assert figures.state == STATE_UNSAFE
+    assert any("NOT proven safe" in note for note in figures.notes)
