@@ -119,7 +119,7 @@ def _tcpip(board: int, rest: str) -> ResourceName:
             "write a LAN instrument as TCPIP[board]::host[::device name][::INSTR] "
             "or a socket as TCPIP[board]::host::port::SOCKET")
     device = tail[0] if tail else "inst0"
-    if not _DEVICE.match(device):
+    if not _DEVICE.fullmatch(device):
         raise ResourceNameError(f"{device!r} is not a LAN device name (e.g. inst0, hislip0)")
     return ResourceName("tcpip-instr", board, (host.casefold(), device.casefold()))
 
@@ -132,13 +132,13 @@ def _check_ipv6(host: str) -> None:
 
 
 def _port(text: str) -> int:
-    if not _DIGITS.match(text) or not 0 < int(text) < 65536:
+    if not _DIGITS.fullmatch(text) or not 0 < int(text) < 65536:
         raise ResourceNameError(f"{text!r} is not a port number (1 to 65535)")
     return int(text)
 
 
 def _number(text: str, what: str) -> int:
-    if not _DIGITS.match(text):
+    if not _DIGITS.fullmatch(text):
         raise ResourceNameError(f"{text!r} is not a {what} (a whole number)")
     return int(text)
 
@@ -181,8 +181,8 @@ def _asrl(port: str, rest: str, text: str) -> ResourceName:
                                 "ASRL/dev/ttyS0::INSTR")
     if rest and rest.upper() != "INSTR":
         raise ResourceNameError("a serial port resource ends in ::INSTR")
-    com = re.match(r"^COM(\d+)$", port, re.IGNORECASE)
-    if _DIGITS.match(port):
+    com = re.fullmatch(r"COM(\d+)", port, re.IGNORECASE)
+    if _DIGITS.fullmatch(port):
         name = str(int(port))
     elif com is not None:
         name = str(int(com.group(1)))  # COM3 is ASRL3 (the VISA convention on Windows)
@@ -249,7 +249,7 @@ def lock_keys(resource: str) -> frozenset[str]:
         return frozenset({f"gpib{parsed.board} {fields[0]} {fields[1]}"})
     if kind == "asrl":
         name = str(fields[0])
-        if not _DIGITS.match(name):
+        if not _DIGITS.fullmatch(name):
             name = os.path.realpath(name) if os.sep in name or "/" in name else name.casefold()
         return frozenset({f"serial {name}"})
     if kind == "usb":

@@ -299,7 +299,7 @@ _BARE = re.compile(r"^[A-Za-z0-9_-]+$")
 
 
 def _key(key: str) -> str:
-    return key if _BARE.match(key) else _string(key)
+    return key if _BARE.fullmatch(key) else _string(key)  # "$" would match before a final \n
 
 
 def _string(text: str) -> str:
