@@ -37,18 +37,34 @@ def wire_text_problem(text: str, *, what: str) -> str | None:
     found = CONTROL_CHARACTERS.search(text)
     if found:
         return f"{what} {short_repr(text)} contains the control character {found.group()!r}"
+    pieces, quote = _cut_outside_quotes(text, ";")
+    if len(pieces) > 1:
+        return f"{what} {short_repr(text)} contains ';', which starts another command"
+    if quote is not None:
+        return f"{what} {short_repr(text)} has an unclosed {quote} quote"
+    return None
+
+
+def _cut_outside_quotes(text: str, separator: str) -> tuple[list[str], str | None]:
+    """``text`` cut at ``separator`` where it stands outside quoted strings, and the quote
+    still open at the end (None when every string is closed). A doubled quote inside a string
+    closes and reopens it: the same effect (IEEE 488.2, 7.7.5)."""
+    pieces: list[str] = []
+    current: list[str] = []
     quote: str | None = None
     for char in text:
         if quote is not None:
             if char == quote:
-                quote = None  # a doubled quote closes and reopens: same effect
+                quote = None
         elif char in "'\"":
             quote = char
-        elif char == ";":
-            return f"{what} {short_repr(text)} contains ';', which starts another command"
-    if quote is not None:
-        return f"{what} {short_repr(text)} has an unclosed {quote} quote"
-    return None
+        elif char == separator:
+            pieces.append("".join(current))
+            current = []
+            continue
+        current.append(char)
+    pieces.append("".join(current))
+    return pieces, quote
 
 
 def split_units(message: str, *, respect_quotes: bool = True) -> list[str]:
@@ -114,22 +130,8 @@ def split_args(text: str) -> tuple[str, ...]:
     """Parameters separated by commas (outside quotes), stripped; () for none."""
     if not text.strip():
         return ()
-    parts: list[str] = []
-    current: list[str] = []
-    quote: str | None = None
-    for char in text:
-        if quote is not None:
-            if char == quote:
-                quote = None
-        elif char in "'\"":
-            quote = char
-        elif char == ",":
-            parts.append("".join(current).strip())
-            current = []
-            continue
-        current.append(char)
-    parts.append("".join(current).strip())
-    return tuple(parts)
+    pieces, _quote = _cut_outside_quotes(text, ",")
+    return tuple(piece.strip() for piece in pieces)
 
 
 def commands(message: str, *, respect_quotes: bool = True) -> Iterator[Command]:
