@@ -58,3 +58,18 @@ def invoke(app, *args: object, columns: int = 200):
     assert not isinstance(result.exception, Exception) or isinstance(
         result.exception, SystemExit), result.exception  # never a traceback
     return result
+
+
+def catches_sigterm(pid: int) -> bool:
+    """True once process ``pid`` catches SIGTERM (Linux: the SigCgt mask in /proc); True when
+    the process is gone, so a poll on it ends."""
+    import signal
+
+    try:
+        with open(f"/proc/{pid}/status", encoding="ascii") as status:
+            for line in status:
+                if line.startswith("SigCgt:"):
+                    return bool(int(line.split()[1], 16) & (1 << (signal.SIGTERM - 1)))
+    except OSError:
+        return True
+    return False

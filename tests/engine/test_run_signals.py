@@ -35,6 +35,7 @@ from sweeprig import signals as stop_signals
 from sweeprig.clock import VirtualClock
 from sweeprig.engine.session import served_bench_text
 from sweeprig.sim.bench import SimBench, start_sim_bench
+from tests.support import catches_sigterm
 
 SEQUENCE = Path(__file__).parent / "data" / "signals.toml"
 KINDS = stop_signals.STOP_SIGNALS
@@ -69,16 +70,6 @@ class Trial:
         )
 
 
-def _handlers_installed(pid: int) -> bool:
-    """True once the process catches SIGTERM (Linux: the SigCgt mask in /proc)."""
-    try:
-        with open(f"/proc/{pid}/status", encoding="ascii") as status:
-            for line in status:
-                if line.startswith("SigCgt:"):
-                    return bool(int(line.split()[1], 16) & (1 << (signal.SIGTERM - 1)))
-    except OSError:
-        return True
-    return False
 
 
 def _runs(store: Path) -> list[tuple[int, str, str | None]]:
@@ -94,7 +85,7 @@ def _runs(store: Path) -> list[tuple[int, str, str | None]]:
 def _wait_for_anchor(proc: subprocess.Popen[str], trial: Trial, store: Path) -> None:
     deadline = time.monotonic() + 60
     if sys.platform.startswith("linux"):
-        while proc.poll() is None and not _handlers_installed(proc.pid):
+        while proc.poll() is None and not catches_sigterm(proc.pid):
             assert time.monotonic() < deadline, "the handlers were never installed"
             time.sleep(0.001)
     else:  # no SigCgt to read: give the interpreter time to start

@@ -27,6 +27,7 @@ from sweeprig.errors import InputError
 from sweeprig.signals import STOP_SIGNALS
 from sweeprig.sim.instruments import SignalSource
 from sweeprig.sim.server import ServedBench, _RoleServer, serve
+from tests.support import catches_sigterm
 
 IDN_SG = "Tarnwick Labs,TW-SG6"
 
@@ -277,7 +278,7 @@ def _serve_trial(seed: int) -> str | None:
             time.sleep(rng.uniform(0, 0.2))
         else:
             deadline = time.monotonic() + 30
-            while not _catches_sigterm(proc.pid) and proc.poll() is None:
+            while not catches_sigterm(proc.pid) and proc.poll() is None:
                 assert time.monotonic() < deadline
                 time.sleep(0.001)
             time.sleep(rng.uniform(0, 1.5))
@@ -301,15 +302,6 @@ def _serve_trial(seed: int) -> str | None:
     return None
 
 
-def _catches_sigterm(pid: int) -> bool:
-    try:
-        with open(f"/proc/{pid}/status", encoding="ascii") as status:
-            for line in status:
-                if line.startswith("SigCgt:"):
-                    return bool(int(line.split()[1], 16) & (1 << (signal.SIGTERM - 1)))
-    except OSError:
-        return True
-    return False
 
 
 @pytest.mark.skipif(not sys.platform.startswith("linux"), reason="reads /proc for the handlers")
