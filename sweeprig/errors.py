@@ -70,6 +70,27 @@ BENCH_UNSAFE_EXIT_CODE = 8
 (a safe-state read-back failed or disagreed). Distinct from every other failure's code."""
 
 
+VERDICT_FAILED_EXIT_CODE = 6
+"""Exit code of ``run`` and ``report`` with ``--fail-on-verdict`` when a figure fails a limit."""
+
+VERDICT_INCONCLUSIVE_EXIT_CODE = 9
+"""Exit code of ``run`` and ``report`` with ``--fail-on-verdict`` when no limit fails but the
+verdict cannot be a pass: a figure a limit needs is missing, suspect or straddles it, the run
+did not measure every point, or its figures could not be made. A script must not read it as a
+pass."""
+
+
+def verdict_exit_code(verdict: str | None) -> int:
+    """The exit code of ``--fail-on-verdict`` for a verdict: 0 for ``pass``,
+    :data:`VERDICT_FAILED_EXIT_CODE` for ``fail``, :data:`VERDICT_INCONCLUSIVE_EXIT_CODE` for
+    ``inconclusive`` and for no verdict at all (the figures could not be made)."""
+    if verdict == "pass":
+        return 0
+    if verdict == "fail":
+        return VERDICT_FAILED_EXIT_CODE
+    return VERDICT_INCONCLUSIVE_EXIT_CODE
+
+
 class BenchUnsafeError(InstrumentError):
     """The safe state could not be verified on at least one instrument: check it by hand."""
 

@@ -9,17 +9,18 @@ import typer
 from rich.console import Console
 from rich.text import Text
 
-from sweeprig.analysis.limits import FAIL
 from sweeprig.analysis.reduce import reduce_run
 from sweeprig.cli.common import fail
-from sweeprig.errors import SweeprigError
+from sweeprig.errors import (
+    VERDICT_FAILED_EXIT_CODE,
+    VERDICT_INCONCLUSIVE_EXIT_CODE,
+    SweeprigError,
+    verdict_exit_code,
+)
 from sweeprig.report import write_report
 from sweeprig.report.terminal import print_summary
 from sweeprig.store.base import DEFAULT_STORE_PATH
 from sweeprig.store.sqlite import SqliteRunStore
-
-#: Exit code of ``sweeprig report --fail-on-verdict`` when the verdict is fail.
-VERDICT_FAILED_EXIT_CODE = 6
 
 _REPORT_HELP = """Reduce a stored run to datasheet figures, judge them against the sequence's
 [[spec]] limits, and write the report.
@@ -29,8 +30,9 @@ self-contained file with the plots), figures.json (every figure, its conditions,
 the point indices behind it), figures.csv/.parquet and captures.csv/.parquet. Works on
 finished, aborted and still-running runs (a run that is not complete cannot pass).
 
-Exit codes: 0 report written; 6 with --fail-on-verdict when the verdict is FAIL; 5 no such
-run or store, or a file could not be written.
+Exit codes: 0 report written; with --fail-on-verdict, 6 when the verdict is FAIL and 9 when
+it is INCONCLUSIVE (only PASS exits 0); 5 no such run or store, or a file could not be
+written.
 
 Examples:
 
@@ -50,8 +52,9 @@ def report_command(
         file_okay=False, show_default=False)] = None,
     fail_on_verdict: Annotated[bool, typer.Option(
         "--fail-on-verdict",
-        help=f"exit with code {VERDICT_FAILED_EXIT_CODE} when the verdict is FAIL "
-        "(for scripts and CI)")] = False,
+        help=f"exit with code {VERDICT_FAILED_EXIT_CODE} when the verdict is FAIL and "
+        f"{VERDICT_INCONCLUSIVE_EXIT_CODE} when it is INCONCLUSIVE (0 only for PASS; for "
+        "scripts and CI)")] = False,
 ) -> None:
     console = Console(highlight=False)
     folder = out if out is not None else Path("results") / f"run-{run_id}"
@@ -65,8 +68,8 @@ def report_command(
     console.print(Text(f"report: {files.html}"))
     console.print(Text(f"figures: {files.figures_json}; tables: "
                        + ", ".join(p.name for p in files.tables)))
-    if fail_on_verdict and run.verdict == FAIL:
-        raise typer.Exit(VERDICT_FAILED_EXIT_CODE)
+    if fail_on_verdict and verdict_exit_code(run.verdict):
+        raise typer.Exit(verdict_exit_code(run.verdict))
 
 
 def register(app: typer.Typer) -> None:

@@ -18,14 +18,20 @@ from rich.progress import (
 )
 from rich.text import Text
 
-from sweeprig.analysis.limits import FAIL
 from sweeprig.analysis.reduce import reduce_run
 from sweeprig.cli.common import fail, print_error
-from sweeprig.cli.report_cmd import VERDICT_FAILED_EXIT_CODE
 from sweeprig.engine.runner import PointResult
 from sweeprig.engine.safe import SafeOutcome, make_bench_safe
 from sweeprig.engine.session import LoadedFiles, RunOutcome, resume_run, run_sequence
-from sweeprig.errors import BENCH_UNSAFE_EXIT_CODE, InputError, StoreError, SweeprigError
+from sweeprig.errors import (
+    BENCH_UNSAFE_EXIT_CODE,
+    VERDICT_FAILED_EXIT_CODE,
+    VERDICT_INCONCLUSIVE_EXIT_CODE,
+    InputError,
+    StoreError,
+    SweeprigError,
+    verdict_exit_code,
+)
 from sweeprig.formats.bench import load_bench
 from sweeprig.instruments import available_profiles
 from sweeprig.plan.duration import format_duration
@@ -78,7 +84,8 @@ def run_command(
         "next to the store when it ends")] = True,
     fail_on_verdict: Annotated[bool, typer.Option(
         "--fail-on-verdict", help=f"exit with code {VERDICT_FAILED_EXIT_CODE} when the "
-        "figures fail the sequence's spec limits")] = False,
+        f"figures fail the sequence's spec limits and {VERDICT_INCONCLUSIVE_EXIT_CODE} when the "
+        "verdict is inconclusive or no report could be made (only a pass exits 0)")] = False,
     visa_library: Annotated[str | None, typer.Option(
         "--visa-library", help="VISA backend or library path for this command only; wins over "
         "$SWEEPRIG_VISA_LIBRARY and the bench file's named backend (@py or @ivi)",
@@ -154,8 +161,8 @@ def _drive(start: Callable[..., RunOutcome], *, quiet: bool, report: bool = True
     if stops is not None and stops.requested is not None:  # a signal during the report
         console.print(f"stopped by {stops.requested} (the report was finished first)")
         raise typer.Exit(1)
-    if fail_on_verdict and verdict == FAIL:
-        raise typer.Exit(VERDICT_FAILED_EXIT_CODE)
+    if fail_on_verdict and verdict_exit_code(verdict):
+        raise typer.Exit(verdict_exit_code(verdict))
 
 
 def _report(console: Console, outcome: RunOutcome) -> str | None:

@@ -76,7 +76,11 @@ def print_summary(run: RunFigures, console: Console | None = None) -> None:
     verdict = Text("verdict: ")
     verdict.append(run.verdict.upper(), style=VERDICT_STYLES.get(run.verdict, ""))
     if run.limits:
-        verdict.append(f"  ({counts['pass']} pass, {counts['fail']} fail, "
+        checks = counts['pass'] + counts['fail'] + counts['inconclusive']
+        limits = len(run.limits)
+        verdict.append(f"  ({checks} limit check{'s' if checks != 1 else ''} of {limits} spec "
+                       f"limit{'s' if limits != 1 else ''}: "
+                       f"{counts['pass']} pass, {counts['fail']} fail, "
                        f"{counts['inconclusive']} inconclusive)")
     console.print(verdict)
     for note in run.notes:

@@ -11,6 +11,7 @@ import typer
 from typer.testing import CliRunner
 
 from sweeprig.cli import report_cmd
+from sweeprig.errors import VERDICT_FAILED_EXIT_CODE, VERDICT_INCONCLUSIVE_EXIT_CODE
 from sweeprig.store import PointRecord, ReadingRecord, SqliteRunStore
 
 SEQUENCE = """\
@@ -120,8 +121,10 @@ def test_the_default_folder_is_results_run_id(app, store_path, tmp_path, monkeyp
 @pytest.mark.parametrize(("run_id", "flag", "code", "verdict"), [
     ("1", True, 0, "PASS"),
     ("2", False, 0, "FAIL"),
-    ("2", True, report_cmd.VERDICT_FAILED_EXIT_CODE, "FAIL"),
-    ("3", True, 0, "INCONCLUSIVE"),  # aborted: passing figures, but not every point measured
+    ("2", True, VERDICT_FAILED_EXIT_CODE, "FAIL"),
+    ("3", False, 0, "INCONCLUSIVE"),
+    # aborted: passing figures, but not every point measured; a script must not take it as a pass
+    ("3", True, VERDICT_INCONCLUSIVE_EXIT_CODE, "INCONCLUSIVE"),
 ])
 def test_exit_codes_with_fail_on_verdict(app, store_path, tmp_path, run_id, flag, code,
                                          verdict):
@@ -129,7 +132,7 @@ def test_exit_codes_with_fail_on_verdict(app, store_path, tmp_path, run_id, flag
     result = _invoke(app, *args, *(["--fail-on-verdict"] if flag else []))
     assert result.exit_code == code, result.output
     assert f"verdict: {verdict}" in result.output
-    assert report_cmd.VERDICT_FAILED_EXIT_CODE == 6
+    assert (VERDICT_FAILED_EXIT_CODE, VERDICT_INCONCLUSIVE_EXIT_CODE) == (6, 9)
 
 
 def test_an_unknown_run_is_a_clear_error(app, store_path, tmp_path):
