@@ -235,6 +235,8 @@ def _print_outcome(console: Console, outcome: RunOutcome) -> None:
             print_unsafe(console, outcome.safe)
     console.print(Text(f"  results: {one_line(outcome.store_path)} (run {outcome.run_id}); "
                        f"log: {one_line(outcome.log_path)}"))
+    for step in outcome.next_steps:
+        console.print(Text(f"  next: {one_line(step)}", style="bold"))
     if outcome.store_error is not None:
         console.print(Text("  the run store failed: the run stopped and the data after that "
                            "point is not kept", style="bold red"))

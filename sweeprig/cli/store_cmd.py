@@ -19,6 +19,7 @@ from rich.table import Table
 from rich.text import Text
 
 from sweeprig.cli.common import fail
+from sweeprig.engine.next_steps import next_steps
 from sweeprig.errors import StoreError, SweeprigError
 from sweeprig.report.tables import make_folder
 from sweeprig.store.base import DEFAULT_STORE_PATH, RunInfo, utc_now
@@ -139,6 +140,10 @@ def status_command(
     except SweeprigError as exc:
         raise _fail(exc) from None
     _print_status(info, points, run_events[-events:] if events else [], len(run_events))
+    steps = next_steps(info.status, info.id, store, bench_path=info.bench_path,
+                       simulated=info.simulated)
+    for step in steps:
+        Console(highlight=False).print(Text(f"  next: {one_line(step)}", style="bold"))
 
 
 def _print_status(info: RunInfo, points: pd.DataFrame, events: list, n_events: int) -> None:

@@ -35,6 +35,7 @@ from pathlib import Path
 from sweeprig.clock import Clock, VirtualClock, WallClock
 from sweeprig.engine.connect import BenchDrivers, open_bench
 from sweeprig.engine.locks import BenchLock
+from sweeprig.engine.next_steps import next_steps
 from sweeprig.engine.runner import PointResult, RecoveryPolicy, Runner
 from sweeprig.engine.safe import SafeOutcome, make_safe
 from sweeprig.engine.simclock import SimControlClock
@@ -86,6 +87,8 @@ class RunOutcome:
     """False when the store could not be read back (``points_done`` is then 0)."""
     end_recorded: bool = True
     """False when how the run ended could be written neither to the store nor to a note."""
+    next_steps: tuple[str, ...] = ()
+    """The commands to run next (``safe``, ``resume``) when the run did not complete."""
 
 
 @dataclass(frozen=True)
@@ -326,6 +329,7 @@ def _execute(
     lock: BenchLock | None = None
     run_id: int | None = None
     status, reason = "aborted", "did not start"
+    steps: tuple[str, ...] = ()
     store_failure: StoreError | None = None
     expected_stored: int | None = None
     closing = _Closing(status, reason, None, 0, False, None, recorded=False)
@@ -485,6 +489,11 @@ def _execute(
             closing = _record_end(store, run_id, status, reason, store_failure,
                                   expected_stored, log_dir)
             status, reason = closing.status, closing.reason
+            steps = next_steps(status, run_id, store_path, bench_path=files.bench_path,
+                               simulated=files.simulated, sim_description=sim_description)
+            if steps and closing.recorded and closing.note is None:
+                _store_write(None, store.log_event, run_id, "info", "next_steps",
+                             "next: " + "; then ".join(steps), {"commands": list(steps)})
             if logger is not None:
                 logger.info("run %d %s%s", run_id, status, f": {reason}" if reason else "")
                 if closing.note is not None:
@@ -521,7 +530,7 @@ def _execute(
         predicted_bench_s=predicted, safe=safe,
         store_error=None if closing.failure is None else closing.failure.message(),
         store_note=closing.note, points_read_back=closing.read_back,
-        end_recorded=closing.recorded,
+        end_recorded=closing.recorded, next_steps=steps,
     )
 
 
