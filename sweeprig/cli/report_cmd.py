@@ -20,12 +20,14 @@ from sweeprig.errors import (
 from sweeprig.report import write_report
 from sweeprig.report.terminal import print_summary
 from sweeprig.store.base import DEFAULT_STORE_PATH
+from sweeprig.store.paths import run_folder
 from sweeprig.store.sqlite import SqliteRunStore
 
 _REPORT_HELP = """Reduce a stored run to datasheet figures, judge them against the sequence's
 [[spec]] limits, and write the report.
 
-Files written into the output folder (default results/run-<id>/): report.html (one
+Files written into the output folder (default: beside the store, <store file>.run-<id>/,
+e.g. results/sweeprig.sqlite.run-3/): report.html (one
 self-contained file with the plots), figures.json (every figure, its conditions, flags and
 the point indices behind it), figures.csv/.parquet and captures.csv/.parquet. Works on
 finished, aborted and still-running runs (a run that is not complete cannot pass).
@@ -48,7 +50,8 @@ def report_command(
     store: Annotated[Path, typer.Option(
         "--store", help="run store (SQLite file)", dir_okay=False)] = DEFAULT_STORE_PATH,
     out: Annotated[Path | None, typer.Option(
-        "--out", help="folder for the report files [default: results/run-<id>/]",
+        "--out", help="folder for the report files [default: <store file>.run-<id>/ beside "
+        "the store]",
         file_okay=False, show_default=False)] = None,
     fail_on_verdict: Annotated[bool, typer.Option(
         "--fail-on-verdict",
@@ -57,7 +60,7 @@ def report_command(
         "scripts and CI)")] = False,
 ) -> None:
     console = Console(highlight=False)
-    folder = out if out is not None else Path("results") / f"run-{run_id}"
+    folder = out if out is not None else run_folder(store, run_id)
     try:
         with SqliteRunStore(store, create=False) as db:
             run = reduce_run(db, run_id)

@@ -39,6 +39,7 @@ from sweeprig.report import write_report
 from sweeprig.report.terminal import print_summary
 from sweeprig.signals import RunStopped, active
 from sweeprig.store.base import DEFAULT_STORE_PATH
+from sweeprig.store.paths import run_folder
 from sweeprig.store.sqlite import SqliteRunStore
 from sweeprig.text import escape_controls, one_line
 from sweeprig.transport.backend import visa_library_override
@@ -170,7 +171,7 @@ def _report(console: Console, outcome: RunOutcome) -> str | None:
 
     A problem here is reported but does not change how the run ended. Returns the verdict.
     """
-    folder = outcome.store_path.parent / f"run-{outcome.run_id}"
+    folder = run_folder(outcome.store_path, outcome.run_id)
     try:
         with SqliteRunStore(outcome.store_path, create=False) as db:
             figures = reduce_run(db, outcome.run_id)

@@ -57,6 +57,7 @@ from sweeprig.signals import (
     uninterrupted,
 )
 from sweeprig.store.base import DEFAULT_STORE_PATH, BusRecord, InstrumentRecord
+from sweeprig.store.paths import run_file_name, run_log_path
 from sweeprig.store.runlock import hold_run_lock, run_lock_held
 from sweeprig.store.sqlite import SqliteRunStore
 
@@ -337,7 +338,7 @@ def _execute(
     clock: Clock = WallClock()
     sim_t0 = 0.0
     log_dir = Path(log_dir) if log_dir is not None else store_path.parent
-    log_path = log_dir / "run-pending.log"
+    log_path = log_dir / run_file_name(store_path, 0, ".log")  # replaced once the run has an id
     logger: logging.Logger | None = None
     bus: list[BusRecord] = []
     try:
@@ -388,7 +389,7 @@ def _execute(
             else:
                 run_id = resume.run_id
                 store.set_status(run_id, "running")
-            log_path = log_dir / f"run-{run_id}.log"
+            log_path = run_log_path(store_path, run_id, log_dir)
             logger = _file_logger(log_path, run_id)
             if resume is None:
                 logger.info("run %d: %s on %s (%d points, predicted %.0f s on a real bench)",
@@ -609,7 +610,7 @@ def _write_failure_note(store_path: Path, log_dir: Path, run_id: int, status: st
     )
     if error.message().replace("RUN_ID", str(run_id)) not in (reason or ""):
         text += f"this could not be written to the store: {error.message()}\n"
-    name = f"{store_path.name}.run-{run_id}.failed.txt"
+    name = run_file_name(store_path, run_id, ".failed.txt")
     folders: list[Path] = [store_path.parent, log_dir]
     with suppress(OSError):  # the current folder itself may have been deleted
         folders.append(Path.cwd())

@@ -22,6 +22,7 @@ from pathlib import Path
 
 from sweeprig.errors import InputError, StoreError
 from sweeprig.oslock import FileLock, is_locked, read_note
+from sweeprig.store.paths import run_file_name
 
 PROBE_RETRIES = 10
 """Attempts at taking a run lock that a status probe (``sweeprig runs``) may hold for an
@@ -37,7 +38,7 @@ class RunBusy(InputError):
 def run_lock_path(store_path: Path | str, run_id: int) -> Path:
     """The lock file of run ``run_id`` of the store at ``store_path`` (links resolved)."""
     real = Path(os.path.realpath(store_path))
-    return real.with_name(f"{real.name}.run-{int(run_id)}.lock")
+    return real.with_name(run_file_name(real, run_id, ".lock"))
 
 
 def run_lock_held(store_path: Path | str, run_id: int) -> bool:

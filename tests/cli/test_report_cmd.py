@@ -111,11 +111,11 @@ def test_report_writes_the_files_and_prints_the_summary(app, store_path, tmp_pat
     assert "analyzer timed out; retried" in html  # events are in the report
 
 
-def test_the_default_folder_is_results_run_id(app, store_path, tmp_path, monkeypatch):
-    monkeypatch.chdir(tmp_path)
+def test_the_default_folder_is_beside_the_store(app, store_path, tmp_path, monkeypatch):
+    monkeypatch.chdir(tmp_path / "..")
     result = _invoke(app, "1", "--store", str(store_path))
     assert result.exit_code == 0, result.output
-    assert (tmp_path / "results" / "run-1" / "report.html").is_file()
+    assert (store_path.parent / "runs.sqlite.run-1" / "report.html").is_file()
 
 
 @pytest.mark.parametrize(("run_id", "flag", "code", "verdict"), [
