@@ -30,6 +30,7 @@ not pass: a passing partial run is inconclusive.
 from __future__ import annotations
 
 import hashlib
+import json
 import math
 import tomllib
 from collections.abc import Mapping
@@ -53,7 +54,7 @@ from sweeprig.files import read_file_text
 from sweeprig.formats.fields import axis_len
 from sweeprig.formats.sequence import Sequence, Study, load_sequence, sequence_from_dict
 from sweeprig.plan.frequencies import wanted_orders
-from sweeprig.store.base import EventRecord, InstrumentRecord, RunStore
+from sweeprig.store.base import MERGED_SEQUENCE, EventRecord, InstrumentRecord, RunFile, RunStore
 
 #: What a study can feed (see the module docstring).
 ROLE_GAIN = "gain"
@@ -158,7 +159,7 @@ def reduce_run(store: RunStore, run_id: int) -> RunFigures:
     events = tuple(store.events(run_id))
     notes: list[str] = []
     sequence = _stored_sequence(info.sequence_text, info.sequence_path, info.sequence_sha256,
-                                notes)
+                                store.run_files(run_id), notes)
     orders = None
     if sequence is not None:
         orders = wanted_orders(sequence.mixing.conversion, sequence.mixing.lo_side)
@@ -260,9 +261,20 @@ def limits_from_sequence(sequence: Sequence) -> tuple[Limit, ...]:
     return tuple(out)
 
 
-def _stored_sequence(text: str, path: str, sha256: str, notes: list[str]) -> Sequence | None:
-    """The sequence as stored with the run; with includes, the file itself when it is
-    unchanged. None (and a note) when it cannot be read."""
+def _stored_sequence(text: str, path: str, sha256: str, files: tuple[RunFile, ...],
+                     notes: list[str]) -> Sequence | None:
+    """The sequence as stored with the run: the merged sequence recorded with it (never the
+    files on disk); for a run recorded without one, the stored text, and with includes the
+    file itself when it is unchanged. None (and a note) when it cannot be read."""
+    merged = next((f for f in files if f.role == MERGED_SEQUENCE), None)
+    if merged is not None:
+        try:
+            return sequence_from_dict(json.loads(merged.text))
+        except (SweeprigError, ValueError) as exc:
+            what = exc.what if isinstance(exc, SweeprigError) else str(exc)
+            notes.append(f"the merged sequence stored with the run could not be read ({what}): "
+                         "no limits applied, studies classified from the points")
+            return None
     try:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:

@@ -21,6 +21,7 @@ count reported is the one read back.
 from __future__ import annotations
 
 import hashlib
+import json
 import logging
 import os
 import re
@@ -56,10 +57,17 @@ from sweeprig.signals import (
     stop_path,
     uninterrupted,
 )
-from sweeprig.store.base import DEFAULT_STORE_PATH, BusRecord, InstrumentRecord
+from sweeprig.store.base import (
+    DEFAULT_STORE_PATH,
+    INCLUDE_FILE,
+    MERGED_SEQUENCE,
+    BusRecord,
+    InstrumentRecord,
+    RunFile,
+)
 from sweeprig.store.paths import run_file_name, run_log_path
 from sweeprig.store.runlock import hold_run_lock, run_lock_held
-from sweeprig.store.sqlite import SqliteRunStore
+from sweeprig.store.sqlite import SqliteRunStore, sha256_text
 
 SIM_BENCH_FILE = "benches/sim.toml"
 """The built-in simulated bench's bench file, inside the shipped sequences folder."""
@@ -94,7 +102,8 @@ class RunOutcome:
 
 @dataclass(frozen=True)
 class LoadedFiles:
-    """Validated inputs of a run."""
+    """Validated inputs of a run. ``sequence_files``: the fragments the sequence included and
+    the merged sequence (see :class:`~sweeprig.store.base.RunFile`), stored with the run."""
 
     sequence: Sequence
     sequence_path: Path
@@ -104,6 +113,17 @@ class LoadedFiles:
     bench_text: str
     simulated: bool
     report: PreflightReport
+    sequence_files: tuple[RunFile, ...] = ()
+
+
+def sequence_files(sequence: Sequence, path: Path) -> tuple[RunFile, ...]:
+    """The fragments ``sequence`` included (exact texts) and the merged sequence as JSON."""
+    files = [RunFile(INCLUDE_FILE, str(p), sha256_text(text), text)
+             for p, text in sequence.included_files]
+    if sequence.merged_table is not None:
+        merged = json.dumps(sequence.merged_table, sort_keys=True, default=str)
+        files.append(RunFile(MERGED_SEQUENCE, str(path), sha256_text(merged), merged))
+    return tuple(files)
 
 
 def shipped_sequences_dir() -> Path:
@@ -156,6 +176,7 @@ def load_run_files(sequence_path: str | Path, bench_path: str | Path | None, *,
         sequence=sequence,
         sequence_path=seq_path,
         sequence_text=_read_text(seq_path),
+        sequence_files=sequence_files(sequence, seq_path),
         bench=bench,
         bench_path=b_path,
         bench_text=_read_text(b_path),
@@ -245,6 +266,7 @@ def resume_run(
                 fix="wait for it to end, or stop it first (Ctrl-C or SIGTERM in its terminal)")
         run_lock = hold_run_lock(store_path, run_id, f"a resume of run {run_id}")
         info = store.run(run_id)
+        recorded_files = store.run_files(run_id)
         done = frozenset(store.done_point_indices(run_id))
     except BaseException:
         if run_lock is not None:
@@ -257,7 +279,7 @@ def resume_run(
             raise InputError(f"run {run_id} is already complete ({info.points_done} points)",
                              where=f"{store_path}: run {run_id}",
                              fix="nothing to resume; start a new run with `sweeprig run`")
-        differences = _file_differences(info)
+        differences = _file_differences(info, recorded_files)
         if differences and not accept_changes:
             raise InputError(
                 f"run {run_id}'s files changed since it started: " + "; ".join(differences),
@@ -279,12 +301,14 @@ def resume_run(
         run_lock.release()  # idempotent; _execute releases it once the run's status is final
 
 
-def _file_differences(info: object) -> list[str]:
-    """What differs between the files now on disk and the texts the run started with."""
+def _file_differences(info: object, recorded: tuple[RunFile, ...] = ()) -> list[str]:
+    """What differs between the files now on disk and the texts the run started with: the
+    sequence, the bench and every fragment the sequence included."""
     out: list[str] = []
     pairs = [("sequence", info.sequence_path, info.sequence_text)]  # type: ignore[attr-defined]
     if info.bench_path:  # type: ignore[attr-defined]
         pairs.append(("bench", info.bench_path, info.bench_text))  # type: ignore[attr-defined]
+    pairs += [("included", f.path, f.text) for f in recorded if f.role == INCLUDE_FILE]
     for label, path, stored in pairs:
         try:
             now = read_file_text(path, what=f"{label} file")
@@ -382,6 +406,7 @@ def _execute(
                     title=seq.about.title,
                     points_total=total,
                     status="running",
+                    files=files.sequence_files,
                 )
                 run_lock = uninterrupted(hold_run_lock, store_path, run_id,
                                          f"a run of {files.sequence_path}")

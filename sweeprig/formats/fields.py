@@ -14,6 +14,7 @@ import math
 import re
 from collections.abc import Callable
 from fractions import Fraction
+from pathlib import Path
 from typing import Annotated, Any, ClassVar, Literal
 
 from pydantic import (
@@ -61,12 +62,15 @@ class Frozen(BaseModel):
 class LocatedFile(Frozen):
     """A whole file's model that can say where each of its keys was written.
 
-    The loader sets ``_where`` (key path → ``file:line: key.path``) and ``_source`` (the file
-    as shown in messages); a model built in code has neither and names the key path alone.
+    The loader sets ``_where`` (key path → ``file:line: key.path``), ``_source`` (the file
+    as shown in messages), the included fragments and the merged table; a model built in code
+    has none of them and names the key path alone.
     """
 
     _where: Callable[[KeyPath], str] | None = PrivateAttr(None)
     _source: str | None = PrivateAttr(None)
+    _included: tuple[tuple[Path, str], ...] = PrivateAttr(())
+    _merged: dict[str, Any] | None = PrivateAttr(None)
 
     def where(self, key_path: KeyPath) -> str:
         """``file:line: key.path`` of a key (the key path alone when not loaded from a file)."""
@@ -78,6 +82,18 @@ class LocatedFile(Frozen):
     def source(self) -> str | None:
         """The file this model was loaded from, as shown in messages."""
         return self._source
+
+    @property
+    def included_files(self) -> tuple[tuple[Path, str], ...]:
+        """Every fragment the file included (recursively, in reading order): path and the
+        exact text read. Empty when it included none or was not loaded from a file."""
+        return self._included
+
+    @property
+    def merged_table(self) -> dict[str, Any] | None:
+        """The table the model was validated from, with every include merged in (without the
+        ``include`` key); None when not loaded from a file."""
+        return self._merged
 
 
 def quantity_parser(kind: str) -> Callable[[Any], float]:

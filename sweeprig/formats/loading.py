@@ -107,6 +107,18 @@ class Document:
         """``file:line: key.path`` in whichever file provides the key."""
         return self.root.origin(tuple(key_path)).where(tuple(key_path))
 
+    def included(self) -> tuple[tuple[Path, str], ...]:
+        """Every included fragment, depth first in reading order: its path and exact text."""
+        out: list[tuple[Path, str]] = []
+
+        def walk(source: SourceFile) -> None:
+            for fragment in source.includes:
+                out.append((fragment.path, fragment.text))
+                walk(fragment)
+
+        walk(self.root)
+        return tuple(out)
+
 
 def _holds(data: Any, key_path: KeyPath) -> bool:
     """True when ``data`` itself holds the first non-table step of ``key_path``.

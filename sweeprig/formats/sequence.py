@@ -450,6 +450,8 @@ def load_sequence(path: str | os.PathLike[str], *, max_points: int = DEFAULT_MAX
     sequence = validate(Sequence, doc)
     sequence._where = doc.where
     sequence._source = doc.display
+    sequence._included = doc.included()
+    sequence._merged = {k: v for k, v in doc.data.items() if k != "include"}
     check_sequence(sequence)
     check_size(sequence, max_points)
     return sequence

@@ -134,6 +134,28 @@ class EventRecord:
 
 
 @dataclass(frozen=True)
+class RunFile:
+    """A file a run's inputs came from, kept with the run (beyond the sequence and bench
+    files' own texts).
+
+    ``role``: ``"include"`` for a fragment the sequence included (``path`` as read, ``text``
+    exactly as read), or ``"merged_sequence"`` for the sequence with every include merged in
+    (``path`` the sequence file, ``text`` its table as JSON): what the analysis judges the run
+    against, so a report made later never depends on the files on disk. ``sha256`` of
+    ``text`` (UTF-8).
+    """
+
+    role: str
+    path: str
+    sha256: str
+    text: str
+
+
+INCLUDE_FILE = "include"
+MERGED_SEQUENCE = "merged_sequence"
+
+
+@dataclass(frozen=True)
 class BusRecord:
     """One SCPI exchange for the bus log. ``received`` is None for a write."""
 
@@ -210,8 +232,15 @@ class RunStore(Protocol):
         title: str = "",
         points_total: int | None = None,
         status: RunStatus = "planned",
+        files: Sequence[RunFile] = (),
     ) -> int:
-        """Record a new run; return its id."""
+        """Record a new run (and the files its inputs came from, in the same transaction);
+        return its id."""
+        ...
+
+    def run_files(self, run_id: int) -> tuple[RunFile, ...]:
+        """The files recorded with a run, in the order given (empty for a run recorded
+        without them, or by an older store)."""
         ...
 
     def record_instruments(self, run_id: int, instruments: Sequence[InstrumentRecord]) -> None:

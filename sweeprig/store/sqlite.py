@@ -56,6 +56,7 @@ from sweeprig.store.base import (
     InstrumentRecord,
     PointRecord,
     ReadingRecord,
+    RunFile,
     RunInfo,
     RunStatus,
     RunSummary,
@@ -64,8 +65,9 @@ from sweeprig.store.base import (
 )
 from sweeprig.store.runlock import run_lock_held
 
-SCHEMA_VERSION = 2
-"""2: run status ``unsafe`` allowed (a version-1 store is migrated when opened)."""
+SCHEMA_VERSION = 3
+"""2: run status ``unsafe`` allowed; 3: table ``run_files`` (included fragments and the merged
+sequence). An older store is migrated when opened (when it can be written)."""
 
 _STATUS_CHECK = ", ".join(f"'{s}'" for s in RUN_STATUSES)
 
@@ -149,6 +151,15 @@ SCHEMA: tuple[str, ...] = (
         PRIMARY KEY (run_id, point_index, reading_no),
         FOREIGN KEY (run_id, point_index) REFERENCES points (run_id, point_index)
             ON DELETE CASCADE
+    )""",
+    """CREATE TABLE IF NOT EXISTS run_files (
+        run_id INTEGER NOT NULL REFERENCES runs (id) ON DELETE CASCADE,
+        position INTEGER NOT NULL,
+        role TEXT NOT NULL,
+        path TEXT NOT NULL,
+        sha256 TEXT NOT NULL,
+        text TEXT NOT NULL,
+        PRIMARY KEY (run_id, position)
     )""",
     """CREATE TABLE IF NOT EXISTS events (
         id INTEGER PRIMARY KEY,
@@ -388,6 +399,28 @@ class SqliteRunStore:
             )
         if version == 1:
             self._migrate_to_v2()
+        if version in (1, 2):
+            self._migrate_to_v3()
+
+    def _migrate_to_v3(self) -> None:
+        """Add the ``run_files`` table (runs recorded before it simply have no files). A
+        store that cannot be written is left as it is and can still be read."""
+        conn = self._conn
+        create = next(s for s in SCHEMA if "TABLE IF NOT EXISTS run_files (" in s)
+        try:
+            conn.execute("BEGIN IMMEDIATE")
+        except sqlite3.OperationalError:
+            return  # read-only or busy: read it as it is
+        try:
+            conn.execute(create)
+            conn.execute("UPDATE store_meta SET setting = ? WHERE name = 'schema_version' "
+                         "AND CAST(setting AS INTEGER) < ?", (str(SCHEMA_VERSION), SCHEMA_VERSION))
+            conn.execute("COMMIT")
+        except sqlite3.OperationalError:
+            conn.execute("ROLLBACK")  # read-only: read it as it is
+        except BaseException:
+            conn.execute("ROLLBACK")
+            raise
 
     def _migrate_to_v2(self) -> None:
         """Allow the status ``unsafe`` in a version-1 store: rebuild ``runs`` with the new
@@ -412,8 +445,8 @@ class SqliteRunStore:
                     conn.execute("ALTER TABLE runs_v2 RENAME TO runs")
                     if conn.execute("PRAGMA foreign_key_check").fetchall():
                         raise sqlite3.IntegrityError("foreign keys broken by the migration")
-                    conn.execute("UPDATE store_meta SET setting = ? WHERE name = "
-                                 "'schema_version'", (str(SCHEMA_VERSION),))
+                    conn.execute("UPDATE store_meta SET setting = '2' WHERE name = "
+                                 "'schema_version'")
                 conn.execute("COMMIT")
             except sqlite3.OperationalError:
                 conn.execute("ROLLBACK")  # read-only: read it as it is
@@ -603,9 +636,10 @@ class SqliteRunStore:
         title: str = "",
         points_total: int | None = None,
         status: RunStatus = "planned",
+        files: Sequence[RunFile] = (),
     ) -> int:
         """Record a new run (with the full text and SHA-256 of its sequence and bench files,
-        this process's id and host) and return its id."""
+        the ``files`` its inputs came from, this process's id and host) and return its id."""
         self._check_status(status)
         now = _iso(utc_now())
         with self._transaction("creating a run") as conn:
@@ -624,8 +658,29 @@ class SqliteRunStore:
                 ),
             )
             run_id = cursor.lastrowid
-        assert run_id is not None
+            assert run_id is not None
+            conn.executemany(
+                "INSERT INTO run_files (run_id, position, role, path, sha256, text) "
+                "VALUES (?, ?, ?, ?, ?, ?)",
+                [(run_id, k, f.role, f.path, f.sha256, f.text) for k, f in enumerate(files)],
+            )
         return int(run_id)
+
+    def run_files(self, run_id: int) -> tuple[RunFile, ...]:
+        """The files recorded with a run, in order (empty for a store without the table)."""
+        try:
+            rows = self._read("SELECT role, path, sha256, text FROM run_files WHERE run_id = ? "
+                              "ORDER BY position", (run_id,))
+        except StoreError:
+            if self._has_table("run_files"):
+                raise
+            return ()  # an older store opened read-only: no files were recorded
+        return tuple(RunFile(*row) for row in rows)
+
+    def _has_table(self, name: str) -> bool:
+        rows = self._read("SELECT 1 FROM sqlite_master WHERE type = 'table' AND name = ?",
+                          (name,))
+        return bool(rows)
 
     def record_instruments(self, run_id: int, instruments: Sequence[InstrumentRecord]) -> None:
         """Record the run's instruments; a role recorded before is replaced."""

@@ -15,10 +15,12 @@ from sweeprig.store import (
     InstrumentRecord,
     PointRecord,
     ReadingRecord,
+    RunFile,
     RunStore,
     SqliteRunStore,
 )
 from sweeprig.store.runlock import hold_run_lock
+from sweeprig.store.sqlite import sha256_text
 
 SEQUENCE = 'title = "demo"\n[[study]]\nkind = "gain"\n'
 
@@ -247,6 +249,7 @@ def _downgrade_to_version_1(path) -> None:
         db.execute("INSERT INTO runs_v1 SELECT * FROM runs")
         db.execute("DROP TABLE runs")
         db.execute("ALTER TABLE runs_v1 RENAME TO runs")
+        db.execute("DROP TABLE run_files")  # added in version 3
         db.execute("UPDATE store_meta SET setting = '1' WHERE name = 'schema_version'")
         db.execute("COMMIT")
         with pytest.raises(sqlite3.IntegrityError):
@@ -269,5 +272,30 @@ def test_a_version_1_store_is_migrated_and_keeps_its_runs(tmp_path):
     with sqlite3.connect(path) as db:
         version = db.execute(
             "SELECT setting FROM store_meta WHERE name = 'schema_version'").fetchone()
-        assert version == ("2",)
+        assert version == ("3",)
         assert db.execute("PRAGMA foreign_key_check").fetchall() == []
+    with SqliteRunStore(path, create=False) as db:
+        assert db.run_files(run_id) == ()  # recorded before files were kept
+
+
+def test_a_version_2_store_gains_the_run_files_table_and_reads_without_it(tmp_path):
+    path = tmp_path / "v2.sqlite"
+    with SqliteRunStore(path) as db:
+        run_id = _run(db)
+    with sqlite3.connect(path, isolation_level=None) as db:
+        db.execute("DROP TABLE run_files")
+        db.execute("UPDATE store_meta SET setting = '2' WHERE name = 'schema_version'")
+    path.chmod(0o444)
+    try:
+        with SqliteRunStore(path, create=False) as db:  # read-only: read as it is
+            assert db.run_files(run_id) == () and db.run(run_id).id == run_id
+    finally:
+        path.chmod(0o644)
+    with SqliteRunStore(path, create=False) as db:
+        assert db.run_files(run_id) == ()
+        files = (RunFile("include", "parts/x.toml", sha256_text("a = 1\n"), "a = 1\n"),)
+        second = db.create_run(sequence_path="s.toml", sequence_text="", files=files)
+        assert db.run_files(second) == files
+    with sqlite3.connect(path) as db:
+        assert db.execute("SELECT setting FROM store_meta WHERE name = 'schema_version'"
+                          ).fetchone() == ("3",)
