@@ -3,6 +3,8 @@
 from __future__ import annotations
 
 from collections.abc import Callable
+from contextlib import suppress
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Annotated
 
@@ -20,6 +22,14 @@ from rich.text import Text
 
 from sweeprig.analysis.reduce import reduce_run
 from sweeprig.cli.common import fail, print_error
+from sweeprig.engine.notify import (
+    NOTIFY_ENV,
+    RunEnd,
+    notification_env,
+    notify_command,
+    run_notification,
+    write_summary,
+)
 from sweeprig.engine.runner import PointResult
 from sweeprig.engine.safe import SafeOutcome, make_bench_safe
 from sweeprig.engine.session import LoadedFiles, RunOutcome, resume_run, run_sequence
@@ -87,6 +97,10 @@ def run_command(
         "--fail-on-verdict", help=f"exit with code {VERDICT_FAILED_EXIT_CODE} when the "
         f"figures fail the sequence's spec limits and {VERDICT_INCONCLUSIVE_EXIT_CODE} when the "
         "verdict is inconclusive or no report could be made (only a pass exits 0)")] = False,
+    notify: Annotated[str | None, typer.Option(
+        "--notify", help="command to run when the run ends (complete, aborted or unsafe), "
+        f"with the run's id, status, verdict and report path in its environment; default "
+        f"${NOTIFY_ENV}. Run without a shell", show_default=False)] = None,
     visa_library: Annotated[str | None, typer.Option(
         "--visa-library", help="VISA backend or library path for this command only; wins over "
         "$SWEEPRIG_VISA_LIBRARY and the bench file's named backend (@py or @ivi)",
@@ -96,13 +110,19 @@ def run_command(
         _drive(lambda started, point_done: run_sequence(
             sequence, bench, sim=sim, sim_description=sim_bench, store_path=store,
             realtime=realtime, bus_log=bus_log, on_start=started, on_point=point_done,
-        ), quiet=quiet, report=report, fail_on_verdict=fail_on_verdict)
+        ), quiet=quiet, report=report, fail_on_verdict=fail_on_verdict, notify_option=notify)
 
 
 def _drive(start: Callable[..., RunOutcome], *, quiet: bool, report: bool = True,
-           fail_on_verdict: bool = False) -> None:
-    """Run ``start(on_start, on_point)`` with a progress display; print how it ended."""
+           fail_on_verdict: bool = False, notify_option: str | None = None) -> None:
+    """Run ``start(on_start, on_point)`` with a progress display; print how it ended, write
+    its summary and run the notification command (checked before anything starts)."""
     console = Console(highlight=False)
+    try:
+        notify = notify_command(notify_option)
+    except SweeprigError as exc:
+        print_error(exc)
+        raise typer.Exit(exc.exit_code) from None
     progress = Progress(
         TextColumn("[bold]{task.description}"),
         BarColumn(),
@@ -143,33 +163,50 @@ def _drive(start: Callable[..., RunOutcome], *, quiet: bool, report: bool = True
     if stops is not None:  # the run has ended: a signal now is recorded, it cannot cut the
         stops.begin_stop_path()  # summary or the report (and their imports) in half
     _print_outcome(console, outcome)
-    if outcome.store_error is not None:  # the data is not all kept: no report from it
-        raise typer.Exit(StoreError.exit_code)
     stopped = stops.requested if stops is not None else None
-    verdict = _report(console, outcome) if report and stopped is None else None
-    if outcome.status == "unsafe" or (outcome.safe is not None and not outcome.safe.ok):
+    made = None
+    if outcome.store_error is None and report and stopped is None:  # all data kept
+        made = _report(console, outcome)
+    verdict = made.verdict if made is not None else None
+    code = 0
+    if outcome.store_error is not None:  # the data is not all kept: no report from it
+        code = StoreError.exit_code
+    elif outcome.status == "unsafe" or (outcome.safe is not None and not outcome.safe.ok):
         if verdict is not None:  # the figures were printed after the warning: say it again
             failed = outcome.safe.failed if outcome.safe is not None else ()
             console.print(Text("BENCH NOT PROVEN SAFE (see above): "
                                + (", ".join(name for name, _m in failed) or "safe state")
                                + " not verified; act by hand now.", style="bold red"))
-        raise typer.Exit(BENCH_UNSAFE_EXIT_CODE)
-    if stopped is not None and outcome.status == "complete":  # a signal while it finished
+        code = BENCH_UNSAFE_EXIT_CODE
+    elif stopped is not None and outcome.status == "complete":  # a signal while it finished
         console.print(f"stopped by {stopped} as the run ended; report not written")
-        raise typer.Exit(1)
-    if outcome.status != "complete":
-        raise typer.Exit(1)
-    if stops is not None and stops.requested is not None:  # a signal during the report
+        code = 1
+    elif outcome.status != "complete":
+        code = 1
+    elif stops is not None and stops.requested is not None:  # a signal during the report
         console.print(f"stopped by {stops.requested} (the report was finished first)")
-        raise typer.Exit(1)
-    if fail_on_verdict and verdict_exit_code(verdict):
-        raise typer.Exit(verdict_exit_code(verdict))
+        code = 1
+    elif fail_on_verdict:
+        code = verdict_exit_code(verdict)
+    _announce(console, outcome, made, notify)
+    if code:
+        raise typer.Exit(code)
 
 
-def _report(console: Console, outcome: RunOutcome) -> str | None:
+@dataclass(frozen=True)
+class _Made:
+    """What the report step made: the verdict, the files and the limit-check counts."""
+
+    verdict: str
+    html: Path
+    figures_json: Path
+    counts: dict[str, int]
+
+
+def _report(console: Console, outcome: RunOutcome) -> _Made | None:
     """Reduce the run to figures, write the report next to the store, print the summary.
 
-    A problem here is reported but does not change how the run ended. Returns the verdict.
+    A problem here is reported but does not change how the run ended.
     """
     folder = run_folder(outcome.store_path, outcome.run_id)
     try:
@@ -181,7 +218,36 @@ def _report(console: Console, outcome: RunOutcome) -> str | None:
         return None
     print_summary(figures, console)
     console.print(Text(f"  report: {files.html}  (figures: {files.figures_json})"))
-    return figures.verdict
+    return _Made(figures.verdict, files.html, files.figures_json,
+                 dict(figures.assessment.counts))
+
+
+def _announce(console: Console, outcome: RunOutcome, made: _Made | None,
+              notify: tuple[str, ...] | None) -> None:
+    """Write the run's summary.json beside its report and run the notification command.
+
+    Neither changes how the run ended: a problem is printed and recorded as an event.
+    """
+    end = RunEnd(
+        run_id=outcome.run_id, status=outcome.status, reason=outcome.reason,
+        points_done=outcome.points_done, points_total=outcome.points_total,
+        store_path=outcome.store_path, verdict=None if made is None else made.verdict,
+        report_html=None if made is None else made.html,
+        figures_json=None if made is None else made.figures_json,
+        next_steps=outcome.next_steps, limit_counts=None if made is None else made.counts)
+    summary: Path | None = None
+    try:
+        summary = write_summary(end, run_folder(outcome.store_path, outcome.run_id))
+    except OSError as exc:
+        console.print(Text(f"  summary not written: {exc.strerror or exc}", style="yellow"))
+    if notify is None:
+        return
+    result = run_notification(notify, notification_env(end, summary))
+    console.print(Text(f"  {one_line(result.message)}",
+                       style="" if result.ok else "yellow"))
+    with suppress(SweeprigError), SqliteRunStore(outcome.store_path, create=False) as db:
+        db.log_event(outcome.run_id, "info" if result.ok else "warning", "notify",
+                     result.message)
 
 
 def _summary(result: PointResult) -> str:
@@ -278,6 +344,10 @@ def resume_command(
         "--bus-log", help="record every SCPI exchange in the run store")] = False,
     report: Annotated[bool, typer.Option(
         "--report/--no-report", help="write the HTML report when the run ends")] = True,
+    notify: Annotated[str | None, typer.Option(
+        "--notify", help="command to run when the run ends (complete, aborted or unsafe), "
+        f"with the run's id, status, verdict and report path in its environment; default "
+        f"${NOTIFY_ENV}. Run without a shell", show_default=False)] = None,
     visa_library: Annotated[str | None, typer.Option(
         "--visa-library", help="VISA backend or library path for this command only; wins over "
         "$SWEEPRIG_VISA_LIBRARY and the bench file's named backend (@py or @ivi)",
@@ -287,7 +357,7 @@ def resume_command(
         _drive(lambda started, point_done: resume_run(
             run_id, store_path=store, accept_changes=accept_changes, sim_description=sim_bench,
             bus_log=bus_log, on_start=started, on_point=point_done,
-        ), quiet=quiet, report=report)
+        ), quiet=quiet, report=report, notify_option=notify)
 
 
 _SAFE_HELP = """Put a bench in its safe state now: every RF output off, the supply to its safe
