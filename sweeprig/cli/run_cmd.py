@@ -2,11 +2,11 @@
 
 from __future__ import annotations
 
-from collections.abc import Callable
+from collections.abc import Callable, Mapping
 from contextlib import suppress
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Annotated
+from typing import Annotated, Any
 
 import typer
 from rich.console import Console
@@ -107,15 +107,16 @@ def run_command(
         show_default=False)] = None,
 ) -> None:
     with visa_library_override(visa_library):
-        _drive(lambda started, point_done: run_sequence(
+        _drive(lambda started, point_done, waiting: run_sequence(
             sequence, bench, sim=sim, sim_description=sim_bench, store_path=store,
             realtime=realtime, bus_log=bus_log, on_start=started, on_point=point_done,
+            on_wait=waiting,
         ), quiet=quiet, report=report, fail_on_verdict=fail_on_verdict, notify_option=notify)
 
 
 def _drive(start: Callable[..., RunOutcome], *, quiet: bool, report: bool = True,
            fail_on_verdict: bool = False, notify_option: str | None = None) -> None:
-    """Run ``start(on_start, on_point)`` with a progress display; print how it ended, write
+    """Run ``start(on_start, on_point, on_wait)`` with a progress display; print how it ended, write
     its summary and run the notification command (checked before anything starts)."""
     console = Console(highlight=False)
     try:
@@ -148,8 +149,14 @@ def _drive(start: Callable[..., RunOutcome], *, quiet: bool, report: bool = True
         if task is not None:
             progress.update(task, advance=1, description=_summary(result))  # type: ignore[arg-type]
 
+    def waiting(activity: Mapping[str, Any]) -> None:
+        task = state.get("task")
+        if task is not None:
+            label = one_line(str(activity.get("label") or activity.get("what") or "waiting"))
+            progress.update(task, description=f"waiting: {label}")  # type: ignore[arg-type]
+
     try:
-        outcome = start(started, point_done)
+        outcome = start(started, point_done, waiting)
     except SweeprigError as exc:
         progress.stop()
         print_error(exc)
@@ -354,9 +361,9 @@ def resume_command(
         show_default=False)] = None,
 ) -> None:
     with visa_library_override(visa_library):
-        _drive(lambda started, point_done: resume_run(
+        _drive(lambda started, point_done, waiting: resume_run(
             run_id, store_path=store, accept_changes=accept_changes, sim_description=sim_bench,
-            bus_log=bus_log, on_start=started, on_point=point_done,
+            bus_log=bus_log, on_start=started, on_point=point_done, on_wait=waiting,
         ), quiet=quiet, report=report, notify_option=notify)
 
 

@@ -178,6 +178,9 @@ def _print_status(info: RunInfo, points: pd.DataFrame, events: list, n_events: i
         age = (utc_now() - info.heartbeat).total_seconds()
         lines.append(("heartbeat", f"{_when(info.heartbeat)} ({age:.0f} s ago, pid {info.pid} "
                                    f"on {info.host})"))
+    if info.activity is not None and info.status == "running":
+        lines.append(("waiting", _shown(str(info.activity.get("label")
+                                            or info.activity.get("what") or "-"))))
     for label, text in lines:
         console.print(f"  {label:<10} {text}")
     if info.instruments:

@@ -34,8 +34,10 @@ it ends the point loop at once, since nothing measured after it could be kept.
 from __future__ import annotations
 
 import math
-from collections.abc import Callable, Iterable
+import time
+from collections.abc import Callable, Iterable, Mapping
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 
@@ -45,12 +47,17 @@ from sweeprig.engine.noise_floor import NoiseFloor, estimate_noise_floor
 from sweeprig.errors import InputError, InstrumentError, TransportError
 from sweeprig.formats.bench import Bench
 from sweeprig.formats.sequence import Sequence
-from sweeprig.instruments import AnalyzerDriver, Driver, SourceDriver
+from sweeprig.instruments import AnalyzerDriver, ChamberDriver, Driver, SourceDriver
 from sweeprig.plan.expand import Point
 from sweeprig.plan.readings import Reading
 from sweeprig.store.base import PointRecord, ReadingRecord, RunStore, utc_now
 
 CHAMBER_POLL_S = 10.0
+#: Wall seconds between heartbeats while the run waits (chamber, soak): a live run's heartbeat
+#: stays fresh however long a soak lasts (another host calls a run interrupted after 120 s).
+WAIT_HEARTBEAT_S = 15.0
+#: Longest single sleep during a soak, bench seconds (so heartbeats and signals are timely).
+WAIT_SLICE_S = 5.0
 """How often the DUT probe temperature is read while waiting for a set point, s."""
 CHAMBER_TIMEOUT_S = 4 * 3600.0
 """Give up waiting for a set point after this long, s."""
@@ -111,7 +118,9 @@ class Runner:
 
     ``sequence``/``bench``: the validated files. ``drivers``: the open bench.
     ``store``/``run_id``: where points go. ``clock``: the bench clock (virtual on the
-    simulated bench). ``on_point``: called after each committed point.
+    simulated bench). ``on_point``: called after each committed point. ``on_wait``: called
+    with the activity (see :class:`~sweeprig.store.base.RunInfo`) whenever the run starts
+    waiting and at each heartbeat of a wait.
     """
 
     def __init__(
@@ -126,6 +135,7 @@ class Runner:
         on_point: Callable[[PointResult], None] | None = None,
         log: Callable[[str], None] = lambda _msg: None,
         policy: RecoveryPolicy | None = None,
+        on_wait: Callable[[Mapping[str, Any]], None] | None = None,
     ) -> None:
         self.sequence = sequence
         self.bench = bench
@@ -134,6 +144,7 @@ class Runner:
         self.run_id = run_id
         self.clock = clock
         self.on_point = on_point
+        self._waits = WaitReporter(store, run_id, on_wait)
         self.log = log
         self.policy = policy or RecoveryPolicy()
         self.skipped = 0
@@ -153,8 +164,7 @@ class Runner:
         self._prepare_with_recovery()
         stored = 0
         for point in points:
-            result = self.measure_with_recovery(point)
-            self.store.heartbeat(self.run_id)
+            result = self.measure_with_recovery(point)  # its commit is the heartbeat
             if result is None:
                 continue
             stored += 1
@@ -406,7 +416,12 @@ class Runner:
         self._check(chamber)
         self.log(f"chamber to {temperature_c:g} degC")
         waited = 0.0
-        while abs(chamber.probe_temperature_c() - temperature_c) > self.tolerance_c:
+        self._waits.restart()  # the first look is always told
+        while abs((probe := chamber.probe_temperature_c()) - temperature_c) > self.tolerance_c:
+            self._waits.tell({"what": "chamber", "setpoint_c": temperature_c, "probe_c": probe,
+                           "waited_s": waited,
+                           "label": f"chamber to {temperature_c:g} °C, probe at {probe:.2f} °C "
+                                    f"(tolerance ±{self.tolerance_c:g} °C)"})
             if waited >= CHAMBER_TIMEOUT_S:
                 raise InstrumentError(
                     f"the DUT probe did not reach {temperature_c:g} degC "
@@ -418,7 +433,10 @@ class Runner:
             self.clock.sleep(CHAMBER_POLL_S)
             waited += CHAMBER_POLL_S
         self.log(f"probe at {temperature_c:g} degC after {waited:g} s; soaking {self.soak_s:g} s")
-        self.clock.sleep(self.soak_s)
+        self._soak(chamber, temperature_c)
+
+    def _soak(self, chamber: ChamberDriver, temperature_c: float) -> None:
+        soak(self.clock, self.soak_s, temperature_c, chamber.probe_temperature_c, self._waits)
 
     def _apply_sources(self, point: Point) -> bool:
         """LO, RF, RF2 to the point's settings; outputs on. True if anything was sent."""
@@ -600,3 +618,58 @@ def _reading_extra(reading: Reading, level_dbm: float, loss_db: float,
     if reading.expected_dbm is not None and math.isfinite(reading.expected_dbm):
         extra["expected_dbm"] = reading.expected_dbm
     return extra
+
+
+def _clock_text(seconds: float) -> str:
+    """``1:05:00`` / ``4:10`` for a duration in seconds (rounded up: never shows 0:00 early)."""
+    whole = math.ceil(max(seconds, 0.0))
+    hours, rest = divmod(whole, 3600)
+    minutes, secs = divmod(rest, 60)
+    return f"{hours}:{minutes:02d}:{secs:02d}" if hours else f"{minutes}:{secs:02d}"
+
+
+class WaitReporter:
+    """Tells the store (a heartbeat with the activity) and the live display what a run is
+    waiting for, at most once per :data:`WAIT_HEARTBEAT_S` of wall time."""
+
+    def __init__(self, store: RunStore, run_id: int,
+                 on_wait: Callable[[Mapping[str, Any]], None] | None = None) -> None:
+        self.store = store
+        self.run_id = run_id
+        self.on_wait = on_wait
+        self._last = -math.inf
+
+    def restart(self) -> None:
+        """A new wait: its first :meth:`tell` is written whatever the timer says."""
+        self._last = -math.inf
+
+    def due(self) -> bool:
+        """True when the next :meth:`tell` will be written."""
+        return time.monotonic() - self._last >= WAIT_HEARTBEAT_S
+
+    def tell(self, activity: Mapping[str, Any]) -> None:
+        if not self.due():
+            return
+        self.store.heartbeat(self.run_id, activity)
+        self._last = time.monotonic()
+        if self.on_wait is not None:
+            self.on_wait(activity)
+
+
+def soak(clock: Clock, seconds: float, setpoint_c: float, read_probe: Callable[[], float],
+         waits: WaitReporter) -> None:
+    """Let ``seconds`` of bench time pass at ``setpoint_c``, in slices of at most
+    :data:`WAIT_SLICE_S`, telling ``waits`` (with a fresh probe reading) whenever a heartbeat
+    is due: the run is seen live however long the soak, and what it waits for is shown."""
+    end = clock.now() + seconds
+    waits.restart()
+    probe: float | None = None
+    while (left := end - clock.now()) > 0:
+        if waits.due():
+            probe = read_probe()
+        waits.tell({"what": "soak", "setpoint_c": setpoint_c, "probe_c": probe,
+                    "left_s": left, "total_s": seconds,
+                    "label": f"soak at {setpoint_c:g} °C"
+                             + (f", probe at {probe:.2f} °C" if probe is not None else "")
+                             + f", {_clock_text(left)} left of {_clock_text(seconds)}"})
+        clock.sleep(min(left, WAIT_SLICE_S))

@@ -32,6 +32,7 @@ from contextlib import suppress
 from dataclasses import dataclass
 from datetime import UTC, datetime
 from pathlib import Path
+from typing import Any
 
 from sweeprig.clock import Clock, VirtualClock, WallClock
 from sweeprig.engine.connect import BenchDrivers, open_bench
@@ -219,18 +220,20 @@ def run_sequence(
     on_start: Callable[[int, int, LoadedFiles], None] | None = None,
     on_point: Callable[[PointResult], None] | None = None,
     log_dir: str | Path | None = None,
+    on_wait: Callable[[Mapping[str, Any]], None] | None = None,
 ) -> RunOutcome:
     """Run a sequence on a bench (or the in-process simulated bench) into a store.
 
     ``bus_log``: record every SCPI exchange in the store. ``on_start(run_id, total_points,
-    files)`` is called once the run is recorded; ``on_point`` after each committed point.
+    files)`` is called once the run is recorded; ``on_point`` after each committed point;
+    ``on_wait(activity)`` when the run waits (chamber, soak) and at each heartbeat of a wait.
     Returns how the run ended; raises only for problems found before any output was enabled
     (bad files, pre-flight refusals, a busy or wrong instrument).
     """
     files = load_run_files(sequence_path, bench_path, sim=sim)
     return _execute(files, store_path=Path(store_path), sim_description=sim_description,
                     realtime=realtime, bus_log=bus_log, on_start=on_start, on_point=on_point,
-                    log_dir=log_dir, resume=None)
+                    log_dir=log_dir, resume=None, on_wait=on_wait)
 
 
 def resume_run(
@@ -243,6 +246,7 @@ def resume_run(
     on_start: Callable[[int, int, LoadedFiles], None] | None = None,
     on_point: Callable[[PointResult], None] | None = None,
     log_dir: str | Path | None = None,
+    on_wait: Callable[[Mapping[str, Any]], None] | None = None,
 ) -> RunOutcome:
     """Continue an interrupted or aborted run: measure only the points not yet stored.
 
@@ -296,7 +300,7 @@ def resume_run(
     try:
         return _execute(files, store_path=store_path, sim_description=sim_description,
                         realtime=False, bus_log=bus_log, on_start=on_start, on_point=on_point,
-                        log_dir=log_dir, resume=plan, run_lock=run_lock)
+                        log_dir=log_dir, resume=plan, run_lock=run_lock, on_wait=on_wait)
     finally:
         run_lock.release()  # idempotent; _execute releases it once the run's status is final
 
@@ -342,6 +346,7 @@ def _execute(
     log_dir: str | Path | None,
     resume: ResumePlan | None,
     run_lock: FileLock | None = None,
+    on_wait: Callable[[Mapping[str, Any]], None] | None = None,
 ) -> RunOutcome:
     """The run itself, new or resumed (see the module docstring). ``run_lock``: the run's
     lock, already held by a resume (a new run takes its own once recorded); released here."""
@@ -455,7 +460,7 @@ def _execute(
             runner = Runner(
                 sequence=seq, bench=files.bench, drivers=drivers, store=store, run_id=run_id,
                 clock=clock, on_point=point_done, policy=policy,
-                log=(logger.info if logger is not None else lambda _m: None),
+                log=(logger.info if logger is not None else lambda _m: None), on_wait=on_wait,
             )
             points = iter_points(seq, files.bench)
             if resume is not None:

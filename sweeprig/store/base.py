@@ -199,7 +199,13 @@ class RunSummary:
 
 @dataclass(frozen=True)
 class RunInfo(RunSummary):
-    """One run in full: the summary plus the input files and the process that ran it."""
+    """One run in full: the summary plus the input files and the process that ran it.
+
+    ``activity``: what the live run was waiting for at its last heartbeat (None while it
+    measures): ``what`` (``chamber``, ``soak``, ``settle``...), ``label`` (one line for
+    people), and where known ``setpoint_c``, ``probe_c``, ``left_s`` (bench seconds left),
+    ``total_s``.
+    """
 
     sequence_sha256: str
     sequence_text: str
@@ -208,6 +214,7 @@ class RunInfo(RunSummary):
     pid: int | None
     host: str | None
     instruments: tuple[InstrumentRecord, ...]
+    activity: Mapping[str, Any] | None = None
 
 
 @runtime_checkable
@@ -266,7 +273,7 @@ class RunStore(Protocol):
         """Record the number of points the plan has."""
         ...
 
-    def heartbeat(self, run_id: int) -> None:
+    def heartbeat(self, run_id: int, activity: Mapping[str, Any] | None = None) -> None:
         """Record that the run's process is alive (now, this pid and host)."""
         ...
 

@@ -40,6 +40,7 @@ from collections.abc import Iterator, Mapping, Sequence
 from contextlib import contextmanager, suppress
 from datetime import UTC, datetime
 from pathlib import Path
+from types import MappingProxyType
 from typing import Any
 
 import pandas as pd
@@ -67,7 +68,8 @@ from sweeprig.store.runlock import run_lock_held
 
 SCHEMA_VERSION = 3
 """2: run status ``unsafe`` allowed; 3: table ``run_files`` (included fragments and the merged
-sequence). An older store is migrated when opened (when it can be written)."""
+sequence) and ``runs.activity_json`` (what a live run is waiting for). An older store is
+migrated when opened (when it can be written)."""
 
 _STATUS_CHECK = ", ".join(f"'{s}'" for s in RUN_STATUSES)
 
@@ -97,7 +99,8 @@ SCHEMA: tuple[str, ...] = (
         points_total INTEGER,
         heartbeat_utc TEXT,
         pid INTEGER,
-        host TEXT
+        host TEXT,
+        activity_json TEXT
     )""",
     """CREATE TABLE IF NOT EXISTS instruments (
         run_id INTEGER NOT NULL REFERENCES runs (id) ON DELETE CASCADE,
@@ -276,6 +279,17 @@ def _json_default(value: object) -> object:
     raise TypeError(f"{type(value).__name__} is not JSON-able")
 
 
+def _activity(text: str | None) -> Mapping[str, Any] | None:
+    """A stored activity (None when measuring, or unreadable: it is a display aid only)."""
+    if not text:
+        return None
+    try:
+        value = json.loads(text)
+    except ValueError:
+        return None
+    return MappingProxyType(value) if isinstance(value, dict) else None
+
+
 def sha256_text(text: str) -> str:
     """SHA-256 of ``text`` encoded as UTF-8, hex."""
     return hashlib.sha256(text.encode("utf-8")).hexdigest()
@@ -403,8 +417,9 @@ class SqliteRunStore:
             self._migrate_to_v3()
 
     def _migrate_to_v3(self) -> None:
-        """Add the ``run_files`` table (runs recorded before it simply have no files). A
-        store that cannot be written is left as it is and can still be read."""
+        """Add the ``run_files`` table (runs recorded before it simply have no files) and the
+        ``runs.activity_json`` column. A store that cannot be written is left as it is and
+        can still be read."""
         conn = self._conn
         create = next(s for s in SCHEMA if "TABLE IF NOT EXISTS run_files (" in s)
         try:
@@ -413,6 +428,8 @@ class SqliteRunStore:
             return  # read-only or busy: read it as it is
         try:
             conn.execute(create)
+            if "activity_json" not in {r[1] for r in conn.execute("PRAGMA table_info(runs)")}:
+                conn.execute("ALTER TABLE runs ADD COLUMN activity_json TEXT")
             conn.execute("UPDATE store_meta SET setting = ? WHERE name = 'schema_version' "
                          "AND CAST(setting AS INTEGER) < ?", (str(SCHEMA_VERSION), SCHEMA_VERSION))
             conn.execute("COMMIT")
@@ -440,7 +457,8 @@ class SqliteRunStore:
                     "SELECT setting FROM store_meta WHERE name = 'schema_version'").fetchone()
                 if row is not None and int(row[0]) == 1:  # not migrated meanwhile
                     conn.execute(create.replace("TABLE IF NOT EXISTS runs (", "TABLE runs_v2 ("))
-                    conn.execute("INSERT INTO runs_v2 SELECT * FROM runs")
+                    columns = ", ".join(r[1] for r in conn.execute("PRAGMA table_info(runs)"))
+                    conn.execute(f"INSERT INTO runs_v2 ({columns}) SELECT {columns} FROM runs")
                     conn.execute("DROP TABLE runs")
                     conn.execute("ALTER TABLE runs_v2 RENAME TO runs")
                     if conn.execute("PRAGMA foreign_key_check").fetchall():
@@ -719,6 +737,9 @@ class SqliteRunStore:
                     where=str(self.path),
                     fix="skip the points listed by done_point_indices() when resuming",
                 )
+            # the point is the heartbeat: no separate write per point
+            conn.execute("UPDATE runs SET heartbeat_utc = ?, activity_json = NULL WHERE id = ?",
+                         (_iso(utc_now()), run_id))
             conn.execute(
                 f"INSERT INTO points (run_id, point_index, {', '.join(POINT_COLUMNS)}, "
                 "wall_start_utc, wall_end_utc, extra_json) "
@@ -798,12 +819,16 @@ class SqliteRunStore:
             conn.execute("UPDATE runs SET points_total = ? WHERE id = ?",
                          (_int(points_total, "points_total"), run_id))
 
-    def heartbeat(self, run_id: int) -> None:
-        """Record that this process is alive and running ``run_id``."""
+    def heartbeat(self, run_id: int, activity: Mapping[str, Any] | None = None) -> None:
+        """Record that this process is alive and running ``run_id``, and what it is doing
+        (``activity``: what it waits for, see :class:`~sweeprig.store.base.RunInfo`; None
+        while it measures)."""
+        text = None if activity is None else json.dumps(dict(activity), default=str)
         with self._transaction("heartbeat") as conn:
             conn.execute(
-                "UPDATE runs SET heartbeat_utc = ?, pid = ?, host = ? WHERE id = ?",
-                (_iso(utc_now()), os.getpid(), self._host, run_id),
+                "UPDATE runs SET heartbeat_utc = ?, pid = ?, host = ?, activity_json = ? "
+                "WHERE id = ?",
+                (_iso(utc_now()), os.getpid(), self._host, text, run_id),
             )
 
     def log_event(
@@ -909,8 +934,8 @@ class SqliteRunStore:
                 fix="list the runs with `sweeprig runs`",
             )
         extra = self._read(
-            "SELECT sequence_sha256, sequence_text, bench_sha256, bench_text, pid, host "
-            "FROM runs WHERE id = ?",
+            "SELECT sequence_sha256, sequence_text, bench_sha256, bench_text, pid, host, "
+            "activity_json FROM runs WHERE id = ?",
             (run_id,),
         )[0]
         instruments = tuple(
@@ -929,6 +954,7 @@ class SqliteRunStore:
             bench_text=extra[3],
             pid=extra[4],
             host=extra[5],
+            activity=_activity(extra[6]),
             instruments=instruments,
         )
 
