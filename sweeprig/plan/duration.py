@@ -3,9 +3,10 @@
 Adds up, per point: the settling time after the source changes (``conditions.settle``, once
 per point and once more per image reading, which retunes the RF), the analyzer sweeps
 (2.5·span/RBW² per sweep × averages, at least 1 ms — common practice, no single source), and
-a fixed overhead per instrument command. Per temperature: the chamber ramp (|ΔT| at
-``ramp_c_per_min``, starting from ``start_temperature_c``) plus ``conditions.soak``. Per
-supply change: one settling time.
+a fixed overhead per instrument command. Per temperature: the chamber's way there (see
+:func:`chamber_travel_s`: the air's ramp, then the wait until the DUT probe, which lags the
+air, is within ``conditions.temperature_tolerance``, polled as the engine polls) plus
+``conditions.soak``. Per supply change: one settling time.
 
 Sweep times depend on each point's auto analyzer settings; a study with more points than
 ``sample_limit`` is estimated from evenly spread sample points (``DurationEstimate.sampled``).
@@ -13,6 +14,7 @@ Sweep times depend on each point's auto analyzer settings; a study with more poi
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 
 from sweeprig.formats.bench import Bench
@@ -26,6 +28,36 @@ SOURCE_COMMANDS_PER_POINT = 4
 ANALYZER_COMMANDS_PER_READING = 10
 #: Commands per power-meter or supply reading.
 SIMPLE_COMMANDS_PER_READING = 2
+#: Time constant of the DUT probe behind the chamber air, s, when the bench does not say
+#: (an assumption: the simulated chamber's figure; a real one depends on the fixture).
+PROBE_TAU_S = 120.0
+#: How often the engine looks at the probe while it waits for the temperature, s (the
+#: engine's own poll period, ``sweeprig.engine.runner.CHAMBER_POLL_S``).
+CHAMBER_POLL_S = 10.0
+
+
+def chamber_travel_s(from_c: float, to_c: float, *, ramp_c_per_min: float,
+                     probe_tau_s: float, tolerance_c: float,
+                     poll_s: float = CHAMBER_POLL_S) -> float:
+    """Time from a new set point until the engine sees the DUT probe within tolerance, s.
+
+    The air ramps linearly at ``ramp_c_per_min`` over ``|Δ|/rate``; the probe follows it as a
+    first-order lag (time constant τ), so while the air ramps at rate k the probe falls
+    behind by k·τ·(1 − e^(−t/τ)), and once the air holds, that lag decays as e^(−t/τ): the
+    probe is within the tolerance ``τ·ln(lag/tolerance)`` after the ramp (solution of
+    dP/dt = (A − P)/τ for a ramp then a step; any text on first-order systems). The engine
+    looks every ``poll_s`` from the set point on, so the wait ends at the first look after.
+    Both start at ``from_c`` (the previous condition held long enough).
+    """
+    delta = abs(to_c - from_c)
+    if delta <= tolerance_c:
+        return 0.0
+    rate_c_per_s = ramp_c_per_min / 60.0
+    ramp_s = delta / rate_c_per_s
+    lag_c = rate_c_per_s * probe_tau_s * (1.0 - math.exp(-ramp_s / probe_tau_s))
+    hold_s = probe_tau_s * math.log(lag_c / tolerance_c) if lag_c > tolerance_c else 0.0
+    exact_s = ramp_s + hold_s
+    return math.ceil(exact_s / poll_s - 1e-9) * poll_s if poll_s > 0 else exact_s
 
 
 @dataclass(frozen=True)
@@ -79,12 +111,14 @@ def estimate_duration(
     ramp_c_per_min: float = 5.0,
     start_temperature_c: float = 23.0,
     sample_limit: int = 500,
+    probe_tau_s: float = PROBE_TAU_S,
 ) -> DurationEstimate:
     """Predict how long the plan takes on a real bench (see the module docstring).
 
     ``command_overhead_s``: time per SCPI command round trip (10 ms: common practice for
     LAN instruments, no single source). ``ramp_c_per_min``: chamber air ramp rate (the
-    simulated chamber's default is 5 degC/min).
+    simulated chamber's default is 5 degC/min). ``probe_tau_s``: the DUT probe's lag behind
+    the air (:data:`PROBE_TAU_S` when not known).
     """
     lay = layout(sequence)
     builder = PointBuilder(sequence, bench)
@@ -123,8 +157,10 @@ def estimate_duration(
     chamber_s = 0.0
     if lay.temperatures is not None:
         current = start_temperature_c
+        tolerance_c = float(sequence.conditions.temperature_tolerance)
         for t in lay.temperatures.all_values():
-            chamber_s += abs(float(t) - current) / ramp_c_per_min * 60.0
+            chamber_s += chamber_travel_s(current, float(t), ramp_c_per_min=ramp_c_per_min,
+                                          probe_tau_s=probe_tau_s, tolerance_c=tolerance_c)
             chamber_s += sequence.conditions.soak
             current = float(t)
     supply_s = passes * settle if lay.supplies is not None else 0.0
