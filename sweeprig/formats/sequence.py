@@ -210,6 +210,10 @@ class Conditions(Frozen):
         1.0, description="the probe counts as at the set point within ± this many degC "
         "(write it in degC: it is a difference)")
     settle: Time = Field(0.05, description="wait after any source or supply change")
+    temperature_order: Literal["least_travel", "as_written"] = Field(
+        "least_travel", description="order of the chamber set points: least_travel (from "
+        "ambient, the nearer side first, each side in turn: e.g. 25, 85, -40 degC for "
+        "-40, 25, 85) or as_written")
 
 
 class Recovery(Frozen):

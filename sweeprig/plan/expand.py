@@ -9,7 +9,7 @@ Expansion is a generator; :func:`count_points` and :func:`point_at` never expand
 
 from __future__ import annotations
 
-from collections.abc import Iterator
+from collections.abc import Iterable, Iterator
 from dataclasses import dataclass
 
 from sweeprig.errors import InputError
@@ -130,11 +130,38 @@ class Layout:
         return (t_idx * self.n_supplies + v_idx) * self.pass_size + block.offset
 
 
+#: Where the chamber is taken to start, degC (room temperature; the duration prediction's
+#: ``start_temperature_c`` default too).
+AMBIENT_START_C = 23.0
+
+
+def least_travel_order(values: Iterable[float], start_c: float = AMBIENT_START_C
+                       ) -> tuple[float, ...]:
+    """Chamber set points in the order that travels least from ``start_c``.
+
+    On a line the shortest tour from a start through every point goes to one end and then to
+    the other: set points at or above the start rising, then those below falling, or the
+    other way round, whichever side is nearer first (ties: warm side first, so a part is
+    never taken cold first without need). Repeated values stay together.
+    """
+    listed = [float(v) for v in values]
+    warm = sorted(v for v in listed if v >= start_c)
+    cold = sorted((v for v in listed if v < start_c), reverse=True)
+    if not warm or not cold:
+        return tuple(warm or cold)
+    warm_first = (warm[-1] - start_c) + (warm[-1] - cold[-1])
+    cold_first = (start_c - cold[-1]) + (warm[-1] - cold[-1])
+    return tuple(warm + cold) if warm_first <= cold_first else tuple(cold + warm)
+
+
 def layout(sequence: Sequence) -> Layout:
     """The plan's shape: axes, study offsets and counts (cheap; nothing is expanded)."""
     cond = sequence.conditions
     temps = axis_from_spec("temperature", cond.temperature) if cond.temperature is not None \
         else None
+    if temps is not None and cond.temperature_order == "least_travel" and temps.count > 1:
+        order = least_travel_order(temps.all_values(), AMBIENT_START_C)
+        temps = Axis("temperature", "list", temps.count, listed=order)
     supplies = axis_from_spec("supply", cond.supply) if cond.supply is not None else None
     blocks: list[StudyBlock] = []
     offset = 0

@@ -40,14 +40,30 @@ def test_order_slow_settings_outermost() -> None:
     points = list(iter_points(s))
     assert len(points) == count_points(s) == 3 * 2 * (6 + 2)
     assert [p.index for p in points] == list(range(len(points)))
-    # temperature outermost, then supply, then the studies in file order
-    assert [p.temperature_c for p in points[:16]] == [-40.0] * 16
+    # temperature outermost (in the order of least chamber travel from room temperature:
+    # 25, 85, -40 degC), then supply, then the studies in file order
+    assert [p.temperature_c for p in points[:16]] == [25.0] * 16
+    assert [p.temperature_c for p in points[16::16]] == [85.0, -40.0]
     assert [p.supply_v for p in points[:8]] == [3.0] * 8
     assert [p.study for p in points[:8]] == ["gain"] * 6 + ["second"] * 2
     # within the study: rf_frequency (outer) then rf_power (inner), the default nesting
     assert [(p.rf_freq_hz, p.rf_power_dbm) for p in points[:4]] == [
         (2.3e9, -30.0), (2.3e9, -20.0), (2.4e9, -30.0), (2.4e9, -20.0)]
-    assert points[-1].temperature_c == 85.0 and points[-1].supply_v == 3.3
+    assert points[-1].temperature_c == -40.0 and points[-1].supply_v == 3.3
+
+
+def test_temperatures_in_the_order_of_least_chamber_travel() -> None:
+    """From room temperature (23 degC) a chamber travels least going to the nearer end first
+    and then to the other; "as_written" keeps the file's order."""
+    def order(temperatures, **extra):
+        s = seq([GAIN], conditions={"temperature": temperatures, **extra})
+        return [p.temperature_c for p in iter_points(s)][::6]
+
+    assert order([-40, 25, 85]) == [25.0, 85.0, -40.0]  # 187 degC of travel, not 188
+    assert order([85, -40, 25]) == [25.0, 85.0, -40.0]
+    assert order([-55, 25, 125]) == [-55.0, 25.0, 125.0]  # 258, not 282
+    assert order([-40, -10]) == [-10.0, -40.0]
+    assert order([-40, 25, 85], temperature_order="as_written") == [-40.0, 25.0, 85.0]
 
 
 def test_declared_nesting() -> None:
