@@ -465,7 +465,7 @@ class ReadingPlanner:
             hit = d_off <= max(LANDS_RBW * rbw, mg.SAME_LINE_HZ)
             if not hit.any():
                 return -math.inf
-            return power_sum_dbm(list(d_level0[hit] - (d_order[hit] - 1.0) * att))
+            return float(power_sum_dbm(list(d_level0[hit] - (d_order[hit] - 1.0) * att)))
 
         def harmonic_at(rbw: float) -> float:
             return power_sum_dbm([lv for o, lv in harm
