@@ -19,7 +19,7 @@ from sweeprig.plan.expand import PointBuilder
 from sweeprig.plan.readings import DEFAULT_PART_NOISE_FIGURE_DB
 
 #: Points of one pass planned exactly; a bigger pass is sampled evenly.
-EXACT_POINTS = 20_000
+EXACT_POINTS = 2_000
 
 #: What each risk means, in one line (for check and plan).
 RISK_MEANINGS: dict[str, str] = {
