@@ -182,3 +182,35 @@ def test_no_risk_readings_have_empty_risks_and_finite_predictions(bench: Bench) 
     d = wanted.predicted.as_dict()
     assert d["product_dbm"] == pytest.approx(-10 + 10 - 1.5)
     assert all(v is None or math.isfinite(v) for v in d.values())
+
+
+def test_demo_every_reading_short_of_a_margin_carries_its_risk() -> None:
+    # The figure: 0 readings planned with less than the stated noise and distortion
+    # margins unless flagged. Recomputed here from each reading's own predicted numbers.
+    from sweeprig.cli.check_cmd import _load_bench_or_sim
+    from sweeprig.formats.sequence import load_sequence
+
+    demo = load_sequence(ROOT / "sequences" / "demo" / "kx2417-characterisation.toml")
+    sim_bench, _ = _load_bench_or_sim(None)
+    noise_m, dist_m = demo.analyzer.noise_margin, demo.analyzer.distortion_margin
+    checked = 0
+    for p in iter_points(demo, sim_bench):
+        if p.temperature_c != -40.0:
+            continue  # readings do not depend on the temperature
+        for r in p.readings:
+            if r.instrument != "sa":
+                continue
+            d = r.predicted.as_dict()
+            level = d["product_dbm"] if d["product_dbm"] is not None else d["target_dbm"]
+            checked += 1
+            if d["noise_dbm"] > level - noise_m:
+                assert "noise" in r.risks, (p.index, r.name)
+            for key, risk in (("analyzer_distortion_dbm", "analyzer_distortion"),
+                              ("source_harmonic_dbm", "source_harmonic")):
+                if d[key] is not None and d[key] > level - dist_m:
+                    assert risk in r.risks, (p.index, r.name, risk)
+            if d["reciprocal_dbm"] is not None and d["reciprocal_dbm"] > level - noise_m:
+                assert "reciprocal_mixing" in r.risks, (p.index, r.name)
+            if d["compression_db"] > mg.COMPRESSION_RISK_DB:
+                assert "analyzer_compression" in r.risks, (p.index, r.name)
+    assert checked == 909 // 3
