@@ -555,26 +555,32 @@ class ReadingPlanner:
         recip = recip_1hz + 10.0 * math.log10(rbw)
         risks: list[str] = []
         reasons: list[str] = []
+        what = "the product" if known_level else \
+            f"the weakest level this reading is set to see ({product:.1f} dBm)"
+
+        def below(level: float) -> str:
+            gap = product - level
+            return f"{abs(gap):.1f} dB {'below' if gap >= 0 else 'above'} {what}"
         if comp > mg.COMPRESSION_RISK_DB or mixer > spec.overload_dbm:
             risks.append("analyzer_compression")
             reasons.append(f"first mixer at {mixer:.1f} dBm compresses {comp:.2f} dB "
                            f"(overload {spec.overload_dbm:g} dBm)")
         if dist > product - margins.distortion_margin:
             risks.append("analyzer_distortion")
-            reasons.append(f"analyzer's own products {dist:.1f} dBm, {product - dist:.1f} dB "
-                           f"below the product (margin {margins.distortion_margin:g} dB)")
+            reasons.append(f"analyzer's own products {dist:.1f} dBm, {below(dist)} "
+                           f"(margin {margins.distortion_margin:g} dB)")
         if source_harmonic > product - margins.distortion_margin:
             risks.append("source_harmonic")
             reasons.append(f"source harmonics land at {source_harmonic:.1f} dBm, "
-                           f"{product - source_harmonic:.1f} dB below the product")
+                           f"{below(source_harmonic)} (margin {margins.distortion_margin:g} dB)")
         if recip > product - margins.noise_margin:
             risks.append("reciprocal_mixing")
-            reasons.append(f"reciprocal mixing {recip:.1f} dBm, {product - recip:.1f} dB below "
-                           f"the product (margin {margins.noise_margin:g} dB)")
+            reasons.append(f"reciprocal mixing {recip:.1f} dBm, {below(recip)} "
+                           f"(margin {margins.noise_margin:g} dB)")
         if noise > product - margins.noise_margin:
             risks.append("noise")
-            reasons.append(f"noise {noise:.1f} dBm in {rbw:g} Hz, {product - noise:.1f} dB "
-                           f"below the product (margin {margins.noise_margin:g} dB)")
+            reasons.append(f"noise {noise:.1f} dBm in {rbw:g} Hz RBW, {below(noise)} "
+                           f"(margin {margins.noise_margin:g} dB)")
         others = [*pic.lines, *(mg.Line(f, product, "sibling") for f in siblings_hz)]
         if mg.merged(others, freq_hz, product, rbw, setup.span_hz, margins.noise_margin):
             risks.append("rbw_merged")
