@@ -118,7 +118,9 @@ def served_bench_text(resources: Mapping[str, str], description: object = None) 
     engine can run on it exactly as on a real bench; with a sim-bench ``description``, its
     stated analyzer and source figures are the description's."""
     text = (shipped_sequences_dir() / SIM_BENCH_FILE).read_text(encoding="utf-8")
-    if description is not None:
+    from sweeprig.sim.bench import SimBenchDescription
+
+    if isinstance(description, SimBenchDescription):
         from sweeprig.engine.sim_specs import figures_toml
 
         text = re.sub(r"^# BEGIN stated figures\n.*^# END stated figures\n",

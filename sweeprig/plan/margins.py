@@ -152,11 +152,11 @@ def part_noise_dbm(noise_figure_db: float, gain_db: float, loss_db: float,
                    rbw_hz: float) -> float:
     """The part's output noise in the filter's noise bandwidth at the analyzer input, above the
     kT0 the analyzer's DANL already holds: kT0·(F·G − 1)/L (Friis; Pozar, noise chapter)."""
-    excess = 10.0 ** ((noise_figure_db + gain_db) / 10.0) - 1.0
-    if excess <= 0:
-        return -math.inf
-    return KT0_DBM_PER_HZ + 10.0 * math.log10(excess) - loss_db \
-        + 10.0 * math.log10(ENBW_PER_RBW * rbw_hz)
+    fg_db = noise_figure_db + gain_db
+    # F·G − 1 in dB; far above 1 it is F·G itself (and 10^x would overflow for absurd gains)
+    excess_db = fg_db if fg_db > 100.0 else (
+        10.0 * math.log10(10.0 ** (fg_db / 10.0) - 1.0) if fg_db > 0 else -math.inf)
+    return KT0_DBM_PER_HZ + excess_db - loss_db + 10.0 * math.log10(ENBW_PER_RBW * rbw_hz)
 
 
 def phase_noise_dbc_hz(profile: Sequence[tuple[float, float]], offset_hz: float) -> float:
@@ -181,8 +181,11 @@ def compression_db(mixer_total_dbm: float, p1db_dbm: float) -> float:
     """
     if not math.isfinite(mixer_total_dbm):
         return 0.0
-    pc_mw = 10.0 ** (p1db_dbm / 10.0) / (10.0**0.1 - 1.0)
-    return 10.0 * math.log10(1.0 + 10.0 ** (mixer_total_dbm / 10.0) / pc_mw)
+    pc_dbm = p1db_dbm - 10.0 * math.log10(10.0**0.1 - 1.0)
+    x_db = mixer_total_dbm - pc_dbm
+    if x_db > 100.0:  # 1 + P/Pc is P/Pc itself (and 10^x would overflow for absurd levels)
+        return x_db
+    return 10.0 * math.log10(1.0 + 10.0 ** (x_db / 10.0))
 
 
 @dataclass(frozen=True)
