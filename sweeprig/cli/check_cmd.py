@@ -26,7 +26,14 @@ from sweeprig.formats.schema import json_schema_text
 from sweeprig.formats.sequence import DEFAULT_MAX_POINTS, Sequence, load_sequence
 from sweeprig.plan.duration import estimate_duration, format_duration
 from sweeprig.plan.expand import layout
-from sweeprig.plan.preflight import PreflightReport, check_limits, format_amount, safety_error
+from sweeprig.plan.preflight import (
+    PreflightReport,
+    check_limits,
+    format_amount,
+    risk_refusal,
+    safety_error,
+)
+from sweeprig.plan.risks import RISK_MEANINGS, summary_lines
 from sweeprig.plan.spec_coverage import check_specs
 from sweeprig.text import one_line
 
@@ -66,8 +73,11 @@ _fail = fail
 
 def _load_bench_or_sim(bench: Path | None) -> tuple[Bench, str]:
     if bench is None:
+        from sweeprig.engine.sim_specs import with_sim_figures
+
         path = builtin_sim_bench()
-        return load_bench(path, known_profiles=known_profiles()), "built-in simulated bench"
+        loaded = with_sim_figures(load_bench(path, known_profiles=known_profiles()))
+        return loaded, "built-in simulated bench"
     loaded = load_bench(bench, known_profiles=known_profiles())
     return loaded, loaded.source or str(bench)
 
@@ -81,6 +91,9 @@ def check_file(path: Path, bench: Bench, max_points: int = DEFAULT_MAX_POINTS
     if not report.ok:
         first = min(report.violations, key=lambda c: c.violation_index or 0)
         raise safety_error(sequence, first)
+    refusal = risk_refusal(sequence, report)
+    if refusal is not None:
+        raise refusal
     return sequence, report
 
 
@@ -133,10 +146,13 @@ def check(
         out.print(Text("ok   ", style="bold green") + Text(
             f"{one_line(path)}  ({sequence.count_points():,} points, within the limits of "
             f"{one_line(bench_name)})"))
-        for note in report.notes:
+        for note in report.notes + list(report.risks.assumptions if report.risks else ()):
             out.print(Text(f"  note: {one_line(note)}"))
         for warning in report.warnings:
             out.print(Text("  warning: ", style="bold yellow") + Text(one_line(warning)))
+        if report.risks is not None:
+            for line in summary_lines(report.risks):
+                out.print(Text(f"    {one_line(line)}"))
     _write_junit(junit, results)
     failed = sum(1 for _, _, e in results if e is not None)
     if failed:
@@ -249,13 +265,28 @@ def plan(
                       f"{format_amount(c.limit, c.unit, precise=False)}", margin, at, status,
                       c.limit_key.split(" (")[0])
     out.print(ports)
-    for note in report.notes:
-        out.print(f"note: {note}")
+    if report.risks is not None and report.risks.groups:
+        risks = Table(title="Readings that cannot be trusted as planned (predicted before the "
+                      "run)", title_justify="left")
+        for col in ("study", "reading", "risk", "readings", "why (first point)"):
+            risks.add_column(col, justify="right" if col == "readings" else "left")
+        for g in report.risks.groups:
+            risks.add_row(g.study, g.reading, g.risk, f"{g.count:,}",
+                          f"point {g.first_point}: {g.reason}")
+        out.print(risks)
+        for risk, meaning in RISK_MEANINGS.items():
+            if risk in report.risks.counts():
+                out.print(f"  {risk}: {meaning}")
+    for note in report.notes + list(report.risks.assumptions if report.risks else ()):
+        out.print(Text(f"note: {one_line(note)}"))
     for warning in report.warnings:
         out.print(Text("warning: ", style="bold yellow") + Text(one_line(warning)))
     if not report.ok:
         first = min(report.violations, key=lambda c: c.violation_index or 0)
         raise _fail(safety_error(seq, first))
+    refusal = risk_refusal(seq, report)
+    if refusal is not None:
+        raise _fail(refusal)
 
 
 # -- schema -----------------------------------------------------------------------------------

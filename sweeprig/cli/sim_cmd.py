@@ -158,7 +158,7 @@ def _write_bench_file(bench: SimBench, path: Path) -> None:
     from sweeprig.engine.session import served_bench_text
 
     try:
-        path.write_text(served_bench_text(bench.resources), encoding="utf-8")
+        path.write_text(served_bench_text(bench.resources, bench.description), encoding="utf-8")
     except OSError as exc:
         raise InputError(f"cannot write {path}: {exc.strerror or exc}",
                          where="sweeprig sim serve --write-bench",

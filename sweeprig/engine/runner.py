@@ -617,6 +617,9 @@ def _reading_extra(reading: Reading, level_dbm: float, loss_db: float,
         extra["repeat_of"] = reading.repeat_of
     if reading.expected_dbm is not None and math.isfinite(reading.expected_dbm):
         extra["expected_dbm"] = reading.expected_dbm
+    if reading.predicted is not None:  # seam A: the planner's risks and the numbers behind
+        extra["risks"] = sorted(reading.risks)
+        extra["predicted"] = reading.predicted.as_dict()
     return extra
 
 

@@ -40,6 +40,7 @@ from sweeprig.engine.locks import BenchLock
 from sweeprig.engine.next_steps import next_steps
 from sweeprig.engine.runner import PointResult, RecoveryPolicy, Runner
 from sweeprig.engine.safe import SafeOutcome, make_safe
+from sweeprig.engine.sim_specs import is_shipped_sim_bench, with_sim_figures
 from sweeprig.engine.simclock import SimControlClock
 from sweeprig.errors import BenchUnsafeError, InputError, StoreError, SweeprigError
 from sweeprig.files import read_file_text
@@ -136,11 +137,20 @@ def shipped_sequences_dir() -> Path:
     return here.parent / "sequences"
 
 
-def served_bench_text(resources: Mapping[str, str]) -> str:
+def served_bench_text(resources: Mapping[str, str], description: object = None) -> str:
     """The built-in simulated bench's bench file with each ``resource = "sim"`` replaced by
     the VISA resource string of a served simulated instrument (``sweeprig sim serve``), so the
-    engine can run on it exactly as on a real bench."""
+    engine can run on it exactly as on a real bench; with a sim-bench ``description``, its
+    stated analyzer and source figures are the description's."""
     text = (shipped_sequences_dir() / SIM_BENCH_FILE).read_text(encoding="utf-8")
+    from sweeprig.sim.bench import SimBenchDescription
+
+    if isinstance(description, SimBenchDescription):
+        from sweeprig.engine.sim_specs import figures_toml
+
+        text = re.sub(r"^# BEGIN stated figures\n.*^# END stated figures\n",
+                      lambda _: f"# BEGIN stated figures\n{figures_toml(description)}"
+                      "# END stated figures\n", text, flags=re.M | re.S)
 
     def fill(match: re.Match[str]) -> str:
         role = match.group(1)
@@ -156,7 +166,7 @@ def served_bench_text(resources: Mapping[str, str]) -> str:
 
 
 def load_run_files(sequence_path: str | Path, bench_path: str | Path | None, *,
-                   sim: bool) -> LoadedFiles:
+                   sim: bool, sim_description: object = None) -> LoadedFiles:
     """Load and check the sequence and bench files and run the pre-flight check.
 
     Touches no instrument. ``sim`` with no bench file uses the built-in simulated bench's
@@ -171,6 +181,8 @@ def load_run_files(sequence_path: str | Path, bench_path: str | Path | None, *,
         bench_path = shipped_sequences_dir() / SIM_BENCH_FILE
     b_path = Path(bench_path)
     bench = load_bench(b_path, known_profiles=available_profiles())
+    if sim and is_shipped_sim_bench(b_path, shipped_sequences_dir() / SIM_BENCH_FILE):
+        bench = with_sim_figures(bench, sim_description)  # the served analyzer's own figures
     check_roles(sequence, bench)
     report = preflight(sequence, bench)
     return LoadedFiles(
@@ -230,7 +242,7 @@ def run_sequence(
     Returns how the run ended; raises only for problems found before any output was enabled
     (bad files, pre-flight refusals, a busy or wrong instrument).
     """
-    files = load_run_files(sequence_path, bench_path, sim=sim)
+    files = load_run_files(sequence_path, bench_path, sim=sim, sim_description=sim_description)
     return _execute(files, store_path=Path(store_path), sim_description=sim_description,
                     realtime=realtime, bus_log=bus_log, on_start=on_start, on_point=on_point,
                     log_dir=log_dir, resume=None, on_wait=on_wait)
@@ -290,7 +302,8 @@ def resume_run(
                 where=f"{store_path}: run {run_id}",
                 fix="put the files back as they were, or resume with --accept-changes if the "
                 "change cannot affect the measurements")
-        files = load_run_files(info.sequence_path, info.bench_path, sim=info.simulated)
+        files = load_run_files(info.sequence_path, info.bench_path, sim=info.simulated,
+                               sim_description=sim_description)
     except BaseException:
         run_lock.release()
         raise

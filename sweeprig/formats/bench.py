@@ -11,14 +11,16 @@ import os
 import re
 from collections.abc import Callable, Collection
 from pathlib import Path
-from typing import Annotated, Any, Literal
+from typing import TYPE_CHECKING, Annotated, Any, Literal
 
 from pydantic import BeforeValidator, Discriminator, Field, PrivateAttr, Tag, WithJsonSchema
+from pydantic_core import PydanticCustomError
 
 from sweeprig.errors import InputError
 from sweeprig.formats.fields import (
     TAG_PREFIX,
     Current,
+    Frequency,
     Frozen,
     LevelDb,
     LocatedFile,
@@ -40,6 +42,10 @@ from sweeprig.formats.pathloss import (
 from sweeprig.formats.toml_locate import KeyPath
 from sweeprig.transport.backend import bench_file_fix, bench_file_problem
 from sweeprig.transport.resources import ResourceNameError, parse_resource
+from sweeprig.units import parse_quantity
+
+if TYPE_CHECKING:
+    from sweeprig.plan.margins import AnalyzerSpecs
 
 #: Every role a bench may fill.
 ROLES: tuple[str, ...] = (
@@ -194,6 +200,93 @@ class SafeState(Frozen):
          'such as "25 degC"'})] = 25.0
 
 
+#: Said wherever a stated figure is missing and its conservative default is used.
+ASSUMED = "assumed, not stated by the bench file"
+
+
+def _dbc_per_hz(value: Any) -> float:
+    """A phase-noise density: "-100 dBc/Hz" (or a bare number in dBc/Hz)."""
+    text = value
+    if isinstance(value, str):
+        low = value.strip().lower()
+        for suffix in ("dbc/hz", "dbc"):
+            if low.endswith(suffix):
+                text = value.strip()[: -len(suffix)] + "dB"
+                break
+    try:
+        return parse_quantity(text, "level_db")
+    except Exception:
+        raise PydanticCustomError(
+            "quantity", "{what}",
+            {"what": f"{value!r} is not a phase-noise density",
+             "fix": 'write it in dBc/Hz, e.g. "-100 dBc/Hz"'}) from None
+
+
+DbcPerHz = Annotated[float, BeforeValidator(_dbc_per_hz), WithJsonSchema(
+    {"anyOf": [{"type": "number"}, {"type": "string"}],
+     "description": 'a phase-noise density, e.g. "-100 dBc/Hz"'})]
+
+
+class PhaseNoisePoint(Frozen):
+    """The analyzer's LO phase noise at one offset from a line."""
+
+    offset: Frequency = Field(description='offset from the carrier, e.g. "10 kHz"')
+    level: DbcPerHz = Field(description='single-sideband phase noise there, e.g. "-100 dBc/Hz"')
+
+
+class AnalyzerFigures(Frozen):
+    """What the bench's spectrum analyzer can do, from its data sheet (for the planner's
+    predictions). Every figure left out takes a conservative default, and `sweeprig plan`
+    says it is assumed, not stated by the bench file. Levels are at the first mixer, i.e. at
+    the input with 0 dB input attenuation. The noise figure is ``roles.sa.noise_figure``."""
+
+    toi: Power | None = Field(None, description="third-order intercept at the first mixer "
+                              "(default +10 dBm, assumed)")
+    soi: Power | None = Field(None, description="two-tone second-order intercept at the first "
+                              "mixer (the second-harmonic intercept minus 6.02 dB; default "
+                              "+35 dBm, assumed)")
+    p1db: Power | None = Field(None, description="first-mixer 1 dB compression point "
+                               "(default 0 dBm, assumed)")
+    overload: Power | None = Field(None, description="first-mixer total level above which the "
+                                   "analyzer reports overload (default -3 dBm, assumed)")
+    phase_noise: tuple[PhaseNoisePoint, ...] | None = Field(
+        None, description="LO phase noise at one or more offsets, e.g. [{ offset = "
+        "\"10 kHz\", level = \"-100 dBc/Hz\" }] (default -85/-95/-105/-125 dBc/Hz at "
+        "1 kHz/10 kHz/100 kHz/1 MHz, assumed)")
+
+
+class SourceFigures(Frozen):
+    """What a source puts out besides its carrier, from its data sheet (after any filter)."""
+
+    harmonics: tuple[LevelDb, ...] | None = Field(
+        None, description='harmonic levels relative to the carrier from the 2nd up, e.g. '
+        '["-35 dBc", "-45 dBc"] (orders not listed: negligible; key left out: -30 dBc for '
+        "the 2nd to 5th, assumed)")
+
+
+class SourcesFigures(Frozen):
+    """The sources' stated harmonics, per source role."""
+
+    rf: SourceFigures | None = Field(None, description="RF source (tone 1)")
+    rf2: SourceFigures | None = Field(None, description="second RF source (tone 2)")
+    lo: SourceFigures | None = Field(None, description="LO source")
+
+
+#: Conservative defaults of the analyzer's figures (a mid-range swept analyzer without
+#: preamplifier, pessimistic side; from memory, no single source).
+DEFAULT_TOI_DBM = 10.0
+DEFAULT_SOI_DBM = 35.0
+DEFAULT_P1DB_DBM = 0.0
+DEFAULT_OVERLOAD_DBM = -3.0
+DEFAULT_PHASE_NOISE: tuple[tuple[float, float], ...] = (
+    (1e3, -85.0), (1e4, -95.0), (1e5, -105.0), (1e6, -125.0))
+#: A signal generator's harmonics without filtering (typical data-sheet figure: -30 dBc;
+#: common practice, no source), 2nd to 5th.
+DEFAULT_HARMONICS_DBC: tuple[float, ...] = (-30.0, -30.0, -30.0, -30.0)
+#: Bounds of stated figures (outside: a typing slip, not an instrument).
+FIGURE_RANGE_DBM = (-60.0, 100.0)
+
+
 class Bench(LocatedFile):
     """A whole bench file."""
 
@@ -204,6 +297,12 @@ class Bench(LocatedFile):
     path_loss: PathLosses = Field(default_factory=PathLosses)
     limits: Limits = Field(default_factory=Limits)
     safe_state: SafeState = Field(default_factory=SafeState)
+    analyzer: AnalyzerFigures = Field(
+        default_factory=AnalyzerFigures,
+        description="the analyzer's stated figures, for the planner's predictions")
+    sources: SourcesFigures = Field(
+        default_factory=SourcesFigures,
+        description="the sources' stated harmonics, for the planner's predictions")
 
     _losses: dict[str, PathLoss] = PrivateAttr(default_factory=dict)
 
@@ -242,6 +341,33 @@ class Bench(LocatedFile):
         """
         sa = self.roles.sa
         return sa.noise_figure if sa is not None and sa.noise_figure is not None else 24.0
+
+    def analyzer_specs(self) -> AnalyzerSpecs:
+        """The analyzer's figures for the planner, defaults filled in and named as assumed."""
+        from sweeprig.plan.margins import AnalyzerSpecs  # plan sits above formats
+
+        a = self.analyzer
+        assumed = {name for name in ("toi", "soi", "p1db", "overload", "phase_noise")
+                   if getattr(a, name) is None}
+        sa = self.roles.sa
+        if sa is None or sa.noise_figure is None:
+            assumed.add("noise_figure")
+        return AnalyzerSpecs(
+            noise_figure_db=self.analyzer_noise_figure_db(),
+            toi_dbm=DEFAULT_TOI_DBM if a.toi is None else a.toi,
+            soi_dbm=DEFAULT_SOI_DBM if a.soi is None else a.soi,
+            p1db_dbm=DEFAULT_P1DB_DBM if a.p1db is None else a.p1db,
+            overload_dbm=DEFAULT_OVERLOAD_DBM if a.overload is None else a.overload,
+            phase_noise=DEFAULT_PHASE_NOISE if a.phase_noise is None else tuple(
+                sorted((p.offset, p.level) for p in a.phase_noise)),
+            assumed=frozenset(assumed))
+
+    def source_harmonics_dbc(self, role: str) -> tuple[tuple[float, ...], bool]:
+        """Harmonic levels (dBc, 2nd up) of source ``role`` and whether they are assumed."""
+        figures = getattr(self.sources, role)
+        if figures is None or figures.harmonics is None:
+            return DEFAULT_HARMONICS_DBC, True
+        return tuple(figures.harmonics), False
 
     def is_simulated(self) -> bool:
         """True when every present role has the placeholder resource ``"sim"``."""
@@ -352,6 +478,7 @@ def check_bench(bench: Bench, *, known_profiles: Collection[str] | None = None) 
                          where=bench.where(("bench", "timeout")),
                          fix='write a time such as "5 s", or leave the key out (5 s)')
     _check_losses(bench)
+    _check_figures(bench)
     sa = bench.roles.sa
     if sa is not None and sa.noise_figure is not None and \
             not 0 <= sa.noise_figure <= MAX_NOISE_FIGURE_DB:
@@ -399,6 +526,58 @@ def _check_losses(bench: Bench) -> None:
             if value.amplifier:
                 raise InputError("amplifier = true goes with a csv or touchstone table",
                                  where=where, fix="remove amplifier (a gain is already one)")
+
+
+def _check_figures(bench: Bench) -> None:
+    """Refuse stated analyzer and source figures no instrument has (located, with a fix)."""
+    a = bench.analyzer
+    low, high = FIGURE_RANGE_DBM
+    for key in ("toi", "soi", "p1db", "overload"):
+        value = getattr(a, key)
+        if value is not None and not low <= value <= high:
+            raise InputError(f"analyzer {key} {value:g} dBm is outside {low:g} to {high:g} dBm",
+                             where=bench.where(("analyzer", key)),
+                             fix="write the figure from the analyzer's data sheet, e.g. "
+                             '"15 dBm", or leave the key out (a conservative default is '
+                             "assumed)")
+    if a.toi is not None and a.p1db is not None and a.p1db > a.toi:
+        raise InputError(f"analyzer p1db {a.p1db:g} dBm is above its toi {a.toi:g} dBm: a "
+                         "compression point lies below the third-order intercept (typically "
+                         "about 10 dB)", where=bench.where(("analyzer", "p1db")),
+                         fix="check both figures against the data sheet (both at the first "
+                         "mixer, 0 dB attenuation)")
+    if a.phase_noise is not None:
+        if not a.phase_noise:
+            raise InputError("phase_noise is empty", where=bench.where(("analyzer",
+                                                                        "phase_noise")),
+                             fix='give at least one point, e.g. [{ offset = "10 kHz", '
+                             'level = "-100 dBc/Hz" }], or leave the key out')
+        seen: set[float] = set()
+        for i, point in enumerate(a.phase_noise):
+            here = ("analyzer", "phase_noise", i)
+            if point.offset <= 0:
+                raise InputError("a phase-noise offset must be above 0 Hz",
+                                 where=bench.where((*here, "offset")), fix='e.g. "10 kHz"')
+            if point.offset in seen:
+                raise InputError(f"the offset {point.offset:g} Hz is given twice",
+                                 where=bench.where((*here, "offset")),
+                                 fix="give each offset once")
+            seen.add(point.offset)
+            if not -200.0 <= point.level <= -20.0:
+                raise InputError(f"a phase noise of {point.level:g} dBc/Hz is outside -200 to "
+                                 "-20 dBc/Hz", where=bench.where((*here, "level")),
+                                 fix='write the single-sideband density in dBc/Hz, e.g. '
+                                 '"-100 dBc/Hz" (negative)')
+    for role in SOURCE_ROLES:
+        figures = getattr(bench.sources, role)
+        if figures is None or figures.harmonics is None:
+            continue
+        for i, level in enumerate(figures.harmonics):
+            if not -200.0 <= level <= 0.0:
+                raise InputError(f"a harmonic at {level:g} dBc is not below the carrier",
+                                 where=bench.where(("sources", role, "harmonics", i)),
+                                 fix='write each harmonic relative to the carrier, negative, '
+                                 'e.g. "-35 dBc" (the first entry is the 2nd harmonic)')
 
 
 #: Said with every safe-state refusal: the safe state is what protects the DUT after a run.

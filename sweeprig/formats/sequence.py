@@ -150,6 +150,17 @@ class AnalyzerDefaults(AnalyzerSettings):
     spur_floor: LevelDb = Field(
         70.0, description="for products of unknown level, how far below the reference "
         "(wanted output, or the leaking source) the analyzer must still see")
+    distortion_margin: LevelDb = Field(
+        20.0, description="how far the analyzer's own distortion products, and products made "
+        "from the sources' harmonics, must sit below a product; sets auto attenuation and "
+        "the automatic attenuation check")
+    max_sweep_time: Time = Field(
+        2.0, description="longest analyzer sweep the auto settings may choose (sweep time "
+        "2.5·span/RBW²); bounds how narrow auto RBW goes")
+    on_risk: Literal["warn", "refuse"] = Field(
+        "warn", description="readings that no analyzer setting can keep their margins: "
+        "\"warn\" (check and plan warn, the run measures them and records the risk) or "
+        "\"refuse\" (check, plan and run refuse the sequence before any RF is switched on)")
 
 
 # -- header, part, mixing, conditions ----------------------------------------------------------
@@ -178,6 +189,10 @@ class Part(Frozen):
         None, description="expected LO→RF isolation, dB (positive). Unknown: assume none")
     expected_rf_if_isolation: LevelDb | None = Field(
         None, description="expected RF→IF isolation, dB (positive). Unknown: assume none")
+    expected_noise_figure: LevelDb | None = Field(
+        None, description="expected single-sideband noise figure, dB, for the part's output "
+        "noise at the analyzer. Unknown: 15 dB is assumed (pessimistic for an active mixer), or "
+        "the conversion loss + 3 dB when that is larger")
     passive: bool = Field(
         False, description="true for a part that needs no DC supply (a passive mixer): a "
         "sequence without [conditions] supply is then not refused on a bench with a supply")
@@ -284,9 +299,10 @@ class Study(Frozen):
     read: tuple[ReadItem, ...] = Field(
         min_length=1, description="what to read at each point: kinds, or tables for options")
     analyzer: AnalyzerField | None = Field(None, description="analyzer settings for this study")
-    attenuation_check: StrictBool = Field(
-        False, description="repeat this study's distortion readings (mxn, im3, im2) with 10 dB "
-        "more input attenuation")
+    attenuation_check: StrictBool | None = Field(
+        None, description="repeat this study's distortion readings (mxn, im3, im2) with 10 dB "
+        "more input attenuation: true (always), false (never), or left out (automatic: where "
+        "the analyzer's own distortion is predicted within distortion_margin of the product)")
 
     def axis_value(self, name: str) -> AxisValue | None:
         """The file value of axis ``name`` (None when the study does not give it)."""
@@ -511,6 +527,7 @@ def _problem(sequence: Sequence, path: KeyPath, what: str, fix: str) -> InputErr
 def check_sequence(sequence: Sequence) -> None:
     """Checks across keys that the models alone cannot make; raises a located InputError."""
     cond = sequence.conditions
+    _check_margins(sequence)
     if cond.temperature_tolerance <= 0:
         raise _problem(sequence, ("conditions", "temperature_tolerance"),
                        "temperature_tolerance must be above 0 degC", "write e.g. 1.0")
@@ -663,6 +680,30 @@ def _check_study(sequence: Sequence, i: int, study: Study) -> None:
             raise _problem(sequence, (*at, "attenuation_check"),
                            "the attenuation check applies to distortion readings (mxn, im3, im2)",
                            "remove attenuation_check here")
+
+
+#: Margins accepted, dB: below 0 is no margin; above 60 dB no analyzer could keep them.
+MARGIN_RANGE_DB = (0.0, 60.0)
+
+
+def _check_margins(sequence: Sequence) -> None:
+    a = sequence.analyzer
+    low, high = MARGIN_RANGE_DB
+    for key in ("noise_margin", "distortion_margin"):
+        value = getattr(a, key)
+        if not low <= value <= high:
+            raise _problem(sequence, ("analyzer", key),
+                           f"{key} {value:g} dB is outside {low:g} to {high:g} dB",
+                           f'write e.g. "{10 if key == "noise_margin" else 20} dB"')
+    if not 1e-3 <= a.max_sweep_time <= 3600.0:
+        raise _problem(sequence, ("analyzer", "max_sweep_time"),
+                       f"max_sweep_time {_duration_text(a.max_sweep_time)} is outside 1 ms to "
+                       "1 h", 'write e.g. "2 s"')
+    nf = sequence.part.expected_noise_figure
+    if nf is not None and not 0.0 <= nf <= 60.0:
+        raise _problem(sequence, ("part", "expected_noise_figure"),
+                       f"a noise figure of {nf:g} dB is outside 0 to 60 dB",
+                       'write the part\'s single-sideband noise figure, e.g. "12 dB"')
 
 
 def _analyzer_settings(sequence: Sequence) -> list[tuple[KeyPath, AnalyzerSettings]]:

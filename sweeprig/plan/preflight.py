@@ -32,6 +32,7 @@ from __future__ import annotations
 import math
 from collections.abc import Callable
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -44,6 +45,9 @@ from sweeprig.plan.expand import Layout, StudyBlock, layout, point_at
 from sweeprig.plan.instrument_limits import role_limits, role_profile
 from sweeprig.plan.instrument_settings import CAUTION, check_bench_settings, reading_settings
 from sweeprig.units import format_frequency
+
+if TYPE_CHECKING:
+    from sweeprig.plan.risks import RiskSurvey
 
 #: Points evaluated per numpy batch.
 CHUNK = 1 << 18
@@ -125,6 +129,8 @@ class PreflightReport:
     warnings: list[str] = field(default_factory=list)
     """What may make the results wrong without breaking a limit (a part that may be measured
     unpowered): printed by ``check`` and ``plan`` and recorded with the run."""
+    risks: RiskSurvey | None = None
+    """The planned readings that cannot be trusted, and why (:mod:`sweeprig.plan.risks`)."""
 
     @property
     def ok(self) -> bool:
@@ -380,7 +386,30 @@ def check_limits(sequence: Sequence, bench: Bench) -> PreflightReport:
                               safety=found.safety, source=b.source)
                 report.checks.append(c)
                 c._offer(found.values, lambda k, _idx=found.indices: int(_idx[k]))  # type: ignore[misc]
+    _survey(sequence, bench, report)
     return report
+
+
+def _survey(sequence: Sequence, bench: Bench, report: PreflightReport) -> None:
+    """The readings that cannot be trusted as planned: a warning (recorded with the run); the
+    figures assumed rather than stated stay with the survey (``report.risks.assumptions``)."""
+    from sweeprig.plan.risks import headline, survey_risks
+
+    survey = survey_risks(sequence, bench)
+    report.risks = survey
+    report.notes.extend(survey.notes)
+    if survey.groups:
+        report.warnings.append(headline(survey))
+
+
+def risk_refusal(sequence: Sequence, report: PreflightReport) -> InputError | None:
+    """The refusal of readings at risk when the sequence says ``on_risk = "refuse"``."""
+    from sweeprig.plan.risks import risk_error
+
+    if sequence.analyzer.on_risk != "refuse" or report.risks is None or \
+            not report.risks.groups:
+        return None
+    return risk_error(sequence, report.risks)
 
 
 def _offer(checks: list[PortCheck], values: np.ndarray, index_of: Callable[[int], int]) -> None:
@@ -453,4 +482,7 @@ def preflight(sequence: Sequence, bench: Bench) -> PreflightReport:
     if failed:
         first = min(failed, key=lambda c: (c.violation_index, report.checks.index(c)))
         raise safety_error(sequence, first)
+    refusal = risk_refusal(sequence, report)
+    if refusal is not None:
+        raise refusal
     return report

@@ -11,7 +11,19 @@ The analyzer's "auto" settings follow stated rules (common practice, no single s
   distance to the nearest other known signal;
 * span: 20 × RBW, but no wider than the distance to the nearest other known signal;
 * reference level: the predicted total input power plus 3 dB, rounded up to 5 dB;
-* averages: 1.
+* averages: 1 (averaging a log-detected trace steadies the floor but does not lower it, so it
+  buys no margin).
+
+Then the planner predicts what else the analyzer shows at each product (module
+:mod:`sweeprig.plan.margins`: its noise, the part's noise, its own distortion, its
+compression, reciprocal mixing, the sources' harmonics, neighbours within the RBW) and, for
+auto attenuation, raises the attenuation in 2 dB steps from the rule above until the analyzer's
+own distortion sits ``distortion_margin`` below the product (the RBW narrowing to keep the
+noise ``noise_margin`` below it, within ``max_sweep_time`` per sweep). Where no setting keeps
+every margin, the setting with the smallest shortfall is kept and the reading carries its
+risks (``Reading.risks``, ``Reading.predicted``). An explicit setting is never overridden; its
+risks are predicted the same way. A product of unknown level is judged at the weakest level
+the reading is set to see (``spur_floor`` below the reference).
 
 The analyzer-distortion check repeats a reading with 10 dB more input attenuation: a product
 made by the DUT keeps its displayed level, one made in the analyzer's first mixer drops
@@ -26,10 +38,13 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
+import numpy as np
+
 from sweeprig.formats.bench import Bench
 from sweeprig.formats.pathloss import ConstantLoss, PathLoss
 from sweeprig.formats.sequence import AUTO, DISTORTION_KINDS, AnalyzerSettings, Sequence, Study
 from sweeprig.plan import frequencies as fp
+from sweeprig.plan import margins as mg
 
 #: Sweep time per sweep ≈ K·span/RBW² (common practice, k ≈ 2–3 for Gaussian RBW filters).
 SWEEP_TIME_K = 2.5
@@ -44,6 +59,8 @@ LOWEST_PRODUCT_HZ = 9e3
 #: Extra attenuation of the analyzer-distortion check, dB.
 ATTENUATION_CHECK_DB = 10.0
 MAX_ATTENUATION_DB = 70.0
+#: A product within this many RBWs of the reading's frequency reads as part of its level.
+LANDS_RBW = 1.5
 
 
 @dataclass(frozen=True)
@@ -82,6 +99,9 @@ class Reading:
     ``repeat_of``. ``expected_dbm``: predicted level at the analyzer input, None if unknown.
     ``known_hz``: the other lines the plan expects at this port (tones, leakage, the other
     products of the reading's kind), which the noise-floor estimate masks out of the trace.
+    ``risks``: sorted names from :data:`sweeprig.plan.margins.RISKS` of the contributors
+    predicted within their margin of the product at the chosen settings; ``predicted``: the
+    numbers behind them (None for power-meter and supply readings).
     """
 
     name: str
@@ -96,6 +116,8 @@ class Reading:
     repeat_of: str | None = None
     expected_dbm: float | None = None
     known_hz: tuple[float, ...] = ()
+    risks: tuple[str, ...] = ()
+    predicted: mg.Prediction | None = None
 
 
 @dataclass(frozen=True)
@@ -119,6 +141,15 @@ def power_sum_dbm(levels_dbm: list[float]) -> float:
     return top + 10.0 * math.log10(sum(10.0 ** ((p - top) / 10.0) for p in levels_dbm))
 
 
+#: The part's noise figure when the sequence does not state one, dB (pessimistic for an
+#: active mixer; common practice, no source).
+DEFAULT_PART_NOISE_FIGURE_DB = 15.0
+#: Conversion through the LO's m-th harmonic in a hard-switched mixer: the switching
+#: waveform's odd harmonics have amplitude 1/m of the fundamental (square-wave Fourier series),
+#: so the conversion is 20·log10(m) dB weaker; even m cancel in a balanced mixer.
+LO_SWITCHING_ORDERS: tuple[int, ...] = (1, 3, 5)
+
+
 class ReadingPlanner:
     """Resolves each study's reading specs into :class:`Reading` objects for a drive."""
 
@@ -133,6 +164,14 @@ class ReadingPlanner:
         self.iso_lo_rf = part.expected_lo_rf_isolation
         self.iso_rf_if = part.expected_rf_if_isolation
         self.nf_db = bench.analyzer_noise_figure_db() if bench is not None else 24.0
+        specs_bench = bench if bench is not None else Bench.model_construct(bench=None)
+        self.specs = specs_bench.analyzer_specs()
+        self.harmonics = {r: specs_bench.source_harmonics_dbc(r) for r in ("rf", "rf2", "lo")}
+        nf_part = part.expected_noise_figure
+        self.part_nf_assumed = nf_part is None
+        self.part_nf_db = nf_part if nf_part is not None else \
+            max(DEFAULT_PART_NOISE_FIGURE_DB, -self.gain_db + 3.0)
+        self.on_risk = sequence.analyzer.on_risk
         self.defaults = sequence.analyzer
         zero = ConstantLoss(0.0)
         self.losses: dict[str, PathLoss] = {
@@ -178,7 +217,8 @@ class ReadingPlanner:
     def readings(self, study: Study, d: Drive) -> tuple[Reading, ...]:
         """All readings of ``study`` at drive ``d``, in the order the study lists them."""
         out: list[Reading] = []
-        self._picture: dict[tuple[str, float | None], tuple[float, list[float]]] = {}
+        self._picture: dict[tuple[str, float | None], _PortPicture] = {}
+        self._drive = d
         m, n = fp.wanted_orders(self.conversion, self.lo_side)
         wanted_hz = float(fp.wanted_output_hz(d.rf_freq_hz, d.lo_freq_hz, self.conversion,
                                               self.lo_side))
@@ -189,8 +229,9 @@ class ReadingPlanner:
             base = spec.name or spec.kind
             settings = _merge(self.defaults, study.analyzer, spec.analyzer)
             check = spec.attenuation_check if spec.attenuation_check is not None else \
-                study.attenuation_check
-            check = bool(check) and spec.kind in DISTORTION_KINDS
+                study.attenuation_check  # None: automatic, from the predicted margin
+            if spec.kind not in DISTORTION_KINDS:
+                check = False
             items: list[tuple[str, str, float, tuple[int, ...], float | None, float | None]] = []
             # (name, port, freq, orders, expected_dbm, rf_retune)
             kind = spec.kind
@@ -262,28 +303,112 @@ class ReadingPlanner:
                                                            d.rf2_power_dbm is not None else []))))
                 continue
             for name, port, freq, orders, exp, retune in items:
-                setup = self._setup(kind, port, d, freq, exp, wanted_dbm, settings, retune, 0.0)
-                known = self._known_hz(port, retune, freq,
-                                       [f for _, p, f, _, _, _ in items if p == port])
+                siblings = [f for _, p, f, _, _, _ in items if p == port]
+                setup, pred = self._setup(kind, port, d, freq, exp, wanted_dbm, settings,
+                                          retune, 0.0, siblings)
+                known = self._known_hz(port, retune, freq, siblings)
                 out.append(Reading(name=name, kind=kind, instrument="sa", port=port,
                                    freq_hz=freq, orders=orders, analyzer=setup,
-                                   rf_retune_hz=retune, expected_dbm=exp, known_hz=known))
-                if check:
-                    extra = self._setup(kind, port, d, freq, exp, wanted_dbm, settings, retune,
-                                        ATTENUATION_CHECK_DB)
+                                   rf_retune_hz=retune, expected_dbm=exp, known_hz=known,
+                                   risks=pred.risks, predicted=pred))
+                repeat = check if check is not None else \
+                    "analyzer_distortion" in pred.risks
+                if repeat:
+                    extra, pred10 = self._setup(kind, port, d, freq, exp, wanted_dbm,
+                                                settings, retune, ATTENUATION_CHECK_DB,
+                                                siblings, base_att=setup.attenuation_db)
                     out.append(Reading(name=f"{name}.att10", kind=kind, instrument="sa",
                                        port=port, freq_hz=freq, orders=orders, analyzer=extra,
                                        rf_retune_hz=retune, attenuation_check=True,
-                                       repeat_of=name, expected_dbm=exp, known_hz=known))
+                                       repeat_of=name, expected_dbm=exp, known_hz=known,
+                                       risks=pred10.risks, predicted=pred10))
         return tuple(out)
 
     def _known_hz(self, port: str, retune_hz: float | None, freq_hz: float,
                   siblings_hz: list[float]) -> tuple[float, ...]:
         """Other lines expected at ``port`` (the port picture of :meth:`_setup`, plus the
         other products of the same reading kind), without ``freq_hz`` itself, sorted."""
-        _, neighbours = self._picture[(port, retune_hz)]
+        neighbours = self._port(port, self._drive, retune_hz).neighbours_hz
         lines = {float(f) for f in [*neighbours, *siblings_hz] if math.isfinite(f)}
         return tuple(sorted(f for f in lines if abs(f - freq_hz) >= 1.0))
+
+    def _port(self, port: str, d: Drive, retune_hz: float | None) -> _PortPicture:
+        """The strong lines at ``port`` for this drive (cached per reading batch)."""
+        key = (port, retune_hz)
+        picture = self._picture.get(key)
+        if picture is not None:
+            return picture
+        signals = self.port_signals(port, d, retune_hz)
+        lines = [mg.Line(f, p, "line") for f, p in signals]
+        neighbours = [f for f, _ in signals]
+        if port == "if":
+            lines += self._other_sideband(d, retune_hz)
+            neighbours += [ln.freq_hz for ln in lines[len(signals):]]
+        if d.rf2_freq_hz is not None and port == "if":
+            neighbours += list(fp.two_tone_output_hz(
+                d.rf_freq_hz, d.rf2_freq_hz, d.lo_freq_hz, self.conversion,
+                self.lo_side).values())
+        picture = _PortPicture(
+            lines=tuple(lines), neighbours_hz=tuple(neighbours),
+            total_dbm=power_sum_dbm([ln.level_dbm for ln in lines]),
+            distortion=mg.distortion_table(lines, self.specs),
+            harmonics=tuple(self._harmonic_lines(port, d, retune_hz)))
+        self._picture[key] = picture
+        return picture
+
+    def _other_sideband(self, d: Drive, retune_hz: float | None) -> list[mg.Line]:
+        """The part's other sideband at the IF port (e.g. the sum frequency of a
+        downconverter), as strong as the wanted output (a double-balanced mixer converts to
+        both sidebands alike; common practice, no source)."""
+        f_rf = d.rf_freq_hz if retune_hz is None else retune_hz
+        tones = [(f_rf, d.rf_power_dbm)]
+        if d.rf2_freq_hz is not None and d.rf2_power_dbm is not None:
+            tones.append((d.rf2_freq_hz, d.rf2_power_dbm))
+        loss = self.losses["if"]
+        out = []
+        for f, p in tones:
+            wanted = float(fp.wanted_output_hz(f, d.lo_freq_hz, self.conversion, self.lo_side))
+            other = f + d.lo_freq_hz if abs(wanted - (f + d.lo_freq_hz)) > 1.0 else \
+                abs(f - d.lo_freq_hz)
+            if other > 0:
+                out.append(mg.Line(other, p + self.gain_db - loss.at(other), "other sideband"))
+        return out
+
+    def _harmonic_lines(self, port: str, d: Drive, retune_hz: float | None) -> list[mg.Line]:
+        """Lines the sources' harmonics put at ``port``: an RF harmonic converted by the LO's
+        odd switching harmonics (gain − 20·log10 m) or leaking at the RF→IF isolation, an LO
+        harmonic leaking at the LO→IF (LO→RF) isolation; at the RF and LO ports the
+        harmonics as they arrive. Unknown isolation: none (the safe side)."""
+        f_rf = d.rf_freq_hz if retune_hz is None else retune_hz
+        rf_tones = [(f_rf, d.rf_power_dbm, "rf")]
+        if d.rf2_freq_hz is not None and d.rf2_power_dbm is not None:
+            rf_tones.append((d.rf2_freq_hz, d.rf2_power_dbm, "rf2"))
+        conn = {"if": "if", "rf": "rf_port", "lo": "lo_port"}[port]
+        loss = self.losses[conn]
+        out: list[mg.Line] = []
+
+        def add(f: float, level: float, label: str) -> None:
+            if f > 0 and math.isfinite(level):
+                out.append(mg.Line(f, level - loss.at(f), label))
+
+        lo_h, _ = self.harmonics["lo"]
+        for k, h in enumerate(lo_h, start=2):
+            f = k * d.lo_freq_hz
+            iso = {"if": self.iso_lo_if, "rf": self.iso_lo_rf, "lo": 0.0}[port] or 0.0
+            add(f, d.lo_power_dbm + h - iso, f"lo harmonic {k}")
+        for f0, p0, role in rf_tones:
+            hs, _ = self.harmonics[role]
+            for k, h in enumerate(hs, start=2):
+                fk, pk = k * f0, p0 + h
+                if port == "if":
+                    add(fk, pk - (self.iso_rf_if or 0.0), f"{role} harmonic {k}")
+                    for m in LO_SWITCHING_ORDERS:
+                        conv = pk + self.gain_db - 20.0 * math.log10(m)
+                        add(abs(fk - m * d.lo_freq_hz), conv, f"{role} harmonic {k} x lo {m}")
+                        add(fk + m * d.lo_freq_hz, conv, f"{role} harmonic {k} x lo {m}")
+                else:
+                    add(fk, pk, f"{role} harmonic {k}")
+        return out
 
     def _reference_dbm(self, kind: str, port: str, d: Drive, wanted_dbm: float) -> float:
         """Level that ``spur_floor`` counts down from, for a product of unknown level.
@@ -300,48 +425,186 @@ class ReadingPlanner:
 
     def _setup(self, kind: str, port: str, d: Drive, freq_hz: float,
                expected_dbm: float | None, wanted_dbm: float, s: AnalyzerSettings,
-               retune_hz: float | None, extra_att_db: float) -> AnalyzerSetup:
-        key = (port, retune_hz)
-        if key not in self._picture:
-            signals = self.port_signals(port, d, retune_hz)
-            neighbours = [f for f, _ in signals]
-            if d.rf2_freq_hz is not None and port == "if":
-                neighbours += list(fp.two_tone_output_hz(
-                    d.rf_freq_hz, d.rf2_freq_hz, d.lo_freq_hz, self.conversion,
-                    self.lo_side).values())
-            self._picture[key] = (power_sum_dbm([p for _, p in signals]), neighbours)
-        total, neighbours = self._picture[key]
-        mixer_level = self.defaults.mixer_level
-        if isinstance(s.attenuation, float):
-            att = s.attenuation
+               retune_hz: float | None, extra_att_db: float, siblings_hz: list[float],
+               base_att: float | None = None) -> tuple[AnalyzerSetup, mg.Prediction]:
+        """Settings of one reading and what is predicted at them (module docstring).
+
+        ``base_att``: for the attenuation-check repeat, the attenuation of the reading it
+        repeats (the repeat adds ``extra_att_db`` to it).
+        """
+        pic = self._port(port, d, retune_hz)
+        total = pic.total_dbm
+        defaults = self.defaults
+        spec = self.specs
+        nearest = min((abs(f - freq_hz) for f in [*pic.neighbours_hz, *siblings_hz]
+                       if abs(f - freq_hz) >= 1.0), default=math.inf)
+        known_level = expected_dbm is not None and math.isfinite(expected_dbm)
+        if known_level:
+            assert expected_dbm is not None
+            product = expected_dbm
         else:
-            att = 2.0 * math.ceil(max(total - mixer_level, 0.0) / 2.0)
-        att = min(att + extra_att_db, MAX_ATTENUATION_DB)
+            product = self._reference_dbm(kind, port, d, wanted_dbm) - defaults.spur_floor
+        loss_db = self.losses["if"].at(freq_hz) if port == "if" else 0.0
+        # noise per hertz of RBW, dBm: analyzer (without attenuation), part, reciprocal
+        part_1hz = mg.part_noise_dbm(self.part_nf_db, self.gain_db, loss_db, 1.0) \
+            if port == "if" else -math.inf
+        recip_1hz = mg.reciprocal_dbm(pic.lines, freq_hz, 1.0, spec.phase_noise)
+        # products within the reach of the widest RBW; each setting keeps those within
+        # LANDS_RBW of its own RBW (a product that close reads as part of the marker level)
+        reach = LANDS_RBW * RBW_STEPS_HZ[-1]
+        off = np.abs(pic.distortion.freq_hz - freq_hz)
+        near = off <= reach
+        d_off, d_level0, d_order = off[near], pic.distortion.level0_dbm[near], \
+            pic.distortion.order[near]
+        harm = [(abs(ln.freq_hz - freq_hz), ln.level_dbm) for ln in pic.harmonics
+                if abs(ln.freq_hz - freq_hz) <= reach]
+
+        def distortion_at(att: float, rbw: float) -> float:
+            if not d_level0.size:
+                return -math.inf
+            hit = d_off <= max(LANDS_RBW * rbw, mg.SAME_LINE_HZ)
+            if not hit.any():
+                return -math.inf
+            return float(power_sum_dbm(list(d_level0[hit] - (d_order[hit] - 1.0) * att)))
+
+        def harmonic_at(rbw: float) -> float:
+            return power_sum_dbm([lv for o, lv in harm
+                                  if o <= max(LANDS_RBW * rbw, mg.SAME_LINE_HZ)])
+
+        def choose_rbw(att: float) -> float:
+            if isinstance(s.rbw, float):
+                return s.rbw
+            need = product - defaults.noise_margin
+            n_1hz = power_sum_dbm([mg.KT0_DBM_PER_HZ + spec.noise_figure_db + att,
+                                   part_1hz, recip_1hz])
+            rbw_max = 10.0 ** (min(need - n_1hz, 300.0) / 10.0)
+            rbw_max = min(rbw_max, nearest / 10.0)
+            rbw = self._fastest_rbw(s, nearest)
+            for step in RBW_STEPS_HZ:
+                if rbw <= step <= rbw_max:
+                    rbw = step
+            return rbw
+
+        def shortfall(att: float) -> tuple[float, float]:
+            """(distortion and compression shortfall, noise shortfall), dB (0: none)."""
+            mixer = total - att
+            comp = mg.compression_db(mixer, spec.p1db_dbm)
+            bad_comp = comp > mg.COMPRESSION_RISK_DB or mixer > spec.overload_dbm
+            rbw = choose_rbw(att)
+            dist = distortion_at(att, rbw)
+            short_d = max(dist - (product - defaults.distortion_margin), 0.0)
+            noise = power_sum_dbm([mg.danl_dbm(spec.noise_figure_db, att, rbw),
+                                   part_1hz + 10.0 * math.log10(rbw)])
+            short_n = max(noise - (product - defaults.noise_margin), 0.0)
+            return short_d + (1e3 if bad_comp else 0.0), short_n
+
+        rule_att = 2.0 * math.ceil(max(total - defaults.mixer_level, 0.0) / 2.0)
+        if base_att is not None:
+            att = min(base_att + extra_att_db, MAX_ATTENUATION_DB)
+        elif isinstance(s.attenuation, float):
+            att = min(s.attenuation + extra_att_db, MAX_ATTENUATION_DB)
+        else:
+            att = min(rule_att, MAX_ATTENUATION_DB)
+            best = (math.inf, att)
+            candidate = att
+            while candidate <= MAX_ATTENUATION_DB:
+                short_d, short_n = shortfall(candidate)
+                if short_d == 0.0 and short_n == 0.0:
+                    best = (0.0, candidate)
+                    break
+                worst = max(short_d, short_n)
+                if worst < best[0]:
+                    best = (worst, candidate)
+                if short_d == 0.0:  # more attenuation only raises the noise from here
+                    break
+                candidate += 2.0
+            att = min(best[1] + extra_att_db, MAX_ATTENUATION_DB)
+        rbw = choose_rbw(att)
         if isinstance(s.reference_level, float):
             ref = s.reference_level
         else:
             ref = 5.0 * math.ceil((total + 3.0) / 5.0)
-        nearest = min((abs(f - freq_hz) for f in neighbours if abs(f - freq_hz) >= 1.0),
-                      default=math.inf)
-        if isinstance(s.rbw, float):
-            rbw = s.rbw
-        else:
-            if expected_dbm is not None:
-                target = expected_dbm
-            else:
-                target = self._reference_dbm(kind, port, d, wanted_dbm) - self.defaults.spur_floor
-            danl_needed = target - self.defaults.noise_margin
-            # capped at 300 dB(Hz): far above any RBW, and no overflow for absurd levels
-            rbw_max = 10.0 ** (min(danl_needed + 174.0 - self.nf_db - att, 300.0) / 10.0)
-            rbw_max = min(rbw_max, nearest / 10.0)
-            rbw = RBW_STEPS_HZ[0]
-            for step in RBW_STEPS_HZ:
-                if step <= rbw_max:
-                    rbw = step
         span = s.span if isinstance(s.span, float) else min(20.0 * rbw, nearest)
         averages = s.averages if isinstance(s.averages, int) else 1
-        return AnalyzerSetup(center_hz=freq_hz, span_hz=span, rbw_hz=rbw, attenuation_db=att,
-                             reference_level_dbm=ref, averages=averages)
+        setup = AnalyzerSetup(center_hz=freq_hz, span_hz=span, rbw_hz=rbw, attenuation_db=att,
+                              reference_level_dbm=ref, averages=averages)
+        return setup, self._predict(pic, freq_hz, product, known_level, setup, part_1hz,
+                                    recip_1hz, distortion_at(att, rbw), harmonic_at(rbw),
+                                    siblings_hz)
+
+    def _fastest_rbw(self, s: AnalyzerSettings, nearest_hz: float) -> float:
+        """The narrowest RBW step whose sweep fits ``max_sweep_time`` (auto span)."""
+        budget = self.defaults.max_sweep_time
+        averages = s.averages if isinstance(s.averages, int) else 1
+        for step in RBW_STEPS_HZ:
+            span = s.span if isinstance(s.span, float) else min(20.0 * step, nearest_hz)
+            if max(SWEEP_TIME_K * span / step**2, MIN_SWEEP_TIME_S) * averages <= budget:
+                return step
+        return RBW_STEPS_HZ[-1]
+
+    def _predict(self, pic: _PortPicture, freq_hz: float, product: float, known_level: bool,
+                 setup: AnalyzerSetup, part_1hz: float, recip_1hz: float, dist: float,
+                 source_harmonic: float, siblings_hz: list[float]) -> mg.Prediction:
+        spec = self.specs
+        margins = self.defaults
+        att, rbw = setup.attenuation_db, setup.rbw_hz
+        mixer = pic.total_dbm - att
+        comp = mg.compression_db(mixer, spec.p1db_dbm)
+        noise = power_sum_dbm([mg.danl_dbm(spec.noise_figure_db, att, rbw),
+                               part_1hz + 10.0 * math.log10(rbw)])
+        recip = recip_1hz + 10.0 * math.log10(rbw)
+        risks: list[str] = []
+        reasons: list[str] = []
+        what = "the product" if known_level else \
+            f"the weakest level this reading is set to see ({product:.1f} dBm)"
+
+        def below(level: float) -> str:
+            gap = product - level
+            return f"{abs(gap):.1f} dB {'below' if gap >= 0 else 'above'} {what}"
+        if comp > mg.COMPRESSION_RISK_DB or mixer > spec.overload_dbm:
+            risks.append("analyzer_compression")
+            reasons.append(f"first mixer at {mixer:.1f} dBm compresses {comp:.2f} dB "
+                           f"(overload {spec.overload_dbm:g} dBm)")
+        if dist > product - margins.distortion_margin:
+            risks.append("analyzer_distortion")
+            reasons.append(f"analyzer's own products {dist:.1f} dBm, {below(dist)} "
+                           f"(margin {margins.distortion_margin:g} dB)")
+        if source_harmonic > product - margins.distortion_margin:
+            risks.append("source_harmonic")
+            reasons.append(f"source harmonics land at {source_harmonic:.1f} dBm, "
+                           f"{below(source_harmonic)} (margin {margins.distortion_margin:g} dB)")
+        if recip > product - margins.noise_margin:
+            risks.append("reciprocal_mixing")
+            reasons.append(f"reciprocal mixing {recip:.1f} dBm, {below(recip)} "
+                           f"(margin {margins.noise_margin:g} dB)")
+        if noise > product - margins.noise_margin:
+            risks.append("noise")
+            reasons.append(f"noise {noise:.1f} dBm in {rbw:g} Hz RBW, {below(noise)} "
+                           f"(margin {margins.noise_margin:g} dB)")
+        others = [*pic.lines, *(mg.Line(f, product, "sibling") for f in siblings_hz)]
+        if mg.merged(others, freq_hz, product, rbw, setup.span_hz, margins.noise_margin):
+            risks.append("rbw_merged")
+            reasons.append(f"another line within the {rbw:g} Hz RBW's reach")
+        order = sorted(range(len(risks)), key=lambda i: risks[i])
+        return mg.Prediction(
+            product_dbm=product if known_level else None, noise_dbm=noise,
+            analyzer_distortion_dbm=dist if math.isfinite(dist) else None,
+            source_harmonic_dbm=source_harmonic if math.isfinite(source_harmonic) else None,
+            reciprocal_dbm=recip if math.isfinite(recip) else None,
+            mixer_level_dbm=mixer, compression_db=comp,
+            risks=tuple(risks[i] for i in order), reasons=tuple(reasons[i] for i in order),
+            target_dbm=None if known_level else product)
+
+
+@dataclass(frozen=True)
+class _PortPicture:
+    """The strong lines at one port for one drive, and what follows from them."""
+
+    lines: tuple[mg.Line, ...]
+    neighbours_hz: tuple[float, ...]
+    total_dbm: float
+    distortion: mg.DistortionTable
+    harmonics: tuple[mg.Line, ...]
 
 
 def _merge(*layers: AnalyzerSettings | None) -> AnalyzerSettings:

@@ -182,11 +182,12 @@ def test_auto_settings_follow_the_rules() -> None:
     (p,) = list(iter_points(s, bench))
     a = p.readings[0].analyzer
     # Predicted IF-port input (sim bench: 1.5 dB IF loss): wanted −10 − 7 − 1.5, LO leakage
-    # 7 − 35 − 1.5, RF feedthrough with unknown isolation (0 dB) −10 − 1.5, added as powers.
-    total = 10 * math.log10(sum(10 ** (x / 10) for x in (-18.5, -29.5, -11.5)))
-    assert total == pytest.approx(-10.65, abs=0.01)
+    # 7 − 35 − 1.5, RF feedthrough with unknown isolation (0 dB) −10 − 1.5, and the other
+    # sideband (sum frequency, 4.73 GHz) as strong as the wanted, added as powers.
+    total = 10 * math.log10(sum(10 ** (x / 10) for x in (-18.5, -29.5, -11.5, -18.5)))
+    assert total == pytest.approx(-9.99, abs=0.01)
     # Attenuation: smallest even dB bringing the total down to the −20 dBm mixer level.
-    assert a.attenuation_db == 2 * math.ceil((total + 20) / 2) == 10.0
+    assert a.attenuation_db == 2 * math.ceil((total + 20) / 2) == 12.0
     assert a.reference_level_dbm == 5 * math.ceil((total + 3) / 5)
     assert a.center_hz == pytest.approx(70e6)
     # RBW: widest 1-3-10 step whose DANL (−174 + NF 24 + attenuation + 10·log10 RBW) sits
