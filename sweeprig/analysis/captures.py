@@ -51,8 +51,8 @@ import pandas as pd
 
 from sweeprig.analysis import validity
 from sweeprig.analysis.figures import (
-    ANALYZER_DISTORTION,
     ANALYZER_COMPRESSION,
+    ANALYZER_DISTORTION,
     ATTEN_CARRIER_MOVED,
     IN_NOISE,
     MISSING_READING,

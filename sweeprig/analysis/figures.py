@@ -207,8 +207,8 @@ FLAG_MEANINGS: Mapping[str, str] = MappingProxyType({
     IN_COMPRESSION: "the part was in compression at this two-tone drive (the tones' own gain "
     "fell more than 0.2 dB, or the drive was above P1dB - 10 dB): per-drive intercepts read "
     "low",
-    POINTS_EXCLUDED: "some drives were left out of the fit (overload, analyzer distortion or "
-    "compression); the fit used clean points only",
+    POINTS_EXCLUDED: "some drives were left out of the fit (overload or analyzer distortion); "
+    "the fit used clean points only",
     EDGE_OF_SWEEP: "the result lies at the edge of the swept range",
     MISSING_READING: "a reading the figure needs is missing",
     UNPOWERED: "the gain was more than 20 dB below the expected gain: the part looks "

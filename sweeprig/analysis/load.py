@@ -39,8 +39,9 @@ and ``attenuation_db``. Kept for tracing a figure back to the store: ``reading_n
 ``source_name`` (the store's reading name), ``kind``, ``port``, ``rbw_hz`` and the point's
 ``probe_temperature_c``. ``risks``: the planner's predicted risks of the reading
 (``extra_json`` ``risks``, joined by commas, ``""`` for none predicted), None where the
-store holds no prediction (a store written before predictions: never read as "no risk"). The wanted product's (m, n) is found from the ``wanted`` readings'
-stored multipliers ((1, −1) when there are none).
+store holds no prediction (a store written before predictions: never read as "no risk").
+The wanted product's (m, n) is found from the ``wanted`` readings' stored multipliers
+((1, −1) when there are none).
 """
 
 from __future__ import annotations
