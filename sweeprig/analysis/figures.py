@@ -26,6 +26,9 @@ Flags (sweeprig's own names)
 ``analyzer_distortion``
     Attenuation test: in the repeat with 10 dB more input attenuation the product moved by
     more than 1 dB while the carrier stayed within 0.3 dB, so the analyzer made (part of) it.
+    Without a repeat: the planner predicted the analyzer's own product within the distortion
+    margin (20 dB) of it (a prediction keeps the drive in an intercept fit, which carries
+    the flag; a measured one leaves it out).
 ``atten_carrier_moved``
     In the attenuation repeat the carrier itself moved by more than 0.3 dB: the test cannot
     tell the analyzer's distortion from the part's (the analyzer is probably compressing).
@@ -45,8 +48,10 @@ Flags (sweeprig's own names)
 ``no_valid_range``
     No point met the validity conditions of a fit; the figure is a bound or not a number.
 ``in_compression``
-    Two-tone drive above P1dB − 10 dB (single-point intercepts), or every point of the sweep
-    was there (fit).
+    Two-tone drive where the wanted tones' own gain fell more than 0.2 dB below the sweep's
+    low-drive gain, or above P1dB − 10 dB when a compression study gave P1dB (single-point
+    intercepts; such drives are left out of the fits), or every point of the sweep was there
+    (fit).
 ``points_excluded``
     Some points of the sweep were left out of a fit because of overload or analyzer
     distortion (the fit itself used clean points only).
