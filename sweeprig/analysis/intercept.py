@@ -21,7 +21,8 @@ points).
 In compression, with or without a compression study: the wanted tones' own conversion gain
 is followed through the sweep (tone 1 from ``if``, tone 2 from ``if_tone2`` when read); a
 drive where either tone's gain is more than :data:`GAIN_DROP_DB` below the sweep's low-drive
-gain (the median of its three lowest clean drives) is in compression: it is left out of the
+gain (the median of its three lowest clean drives), and stays so at every higher drive, is
+in compression: it is left out of the
 fits (like drives above P1dB − 10 dB, outside the range rather than ``points_excluded``) and
 its single-point figures carry ``in_compression``. Why
 0.2 dB (derived): for a memoryless third-order part y = a1·x + a3·x³ driven by two equal
@@ -260,7 +261,10 @@ def gain_dropped(
 ) -> np.ndarray:
     """True at the drives of each sweep (last axis, ascending) whose gain is more than
     ``drop_db`` below the median gain of the sweep's ``reference_points`` lowest usable
-    drives. Unusable or NaN drives are never marked; a sweep with no usable drive has none.
+    drives, from the first drive on which every higher usable drive is also that far down
+    (compression does not come and go: a single low reading lower in the sweep is scatter,
+    not compression). Unusable or NaN drives are never marked; a sweep with no usable drive
+    has none.
     """
     x = np.asarray(input_dbm, dtype=float)
     gain = np.asarray(gain_db, dtype=float)
@@ -271,7 +275,7 @@ def gain_dropped(
     reference, used = sw.row_median(gain, ok & (rank <= reference_points))
     with np.errstate(invalid="ignore"):
         dropped = ok & (gain < (reference - drop_db)[..., None])
-    return dropped & (used > 0)[..., None]
+    return sw.tail_all(dropped, ok) & ok & (used > 0)[..., None]
 
 
 def _check_order(order: int) -> None:

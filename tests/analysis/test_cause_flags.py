@@ -296,6 +296,9 @@ def test_gain_dropped_uses_the_low_drive_gain_as_reference():
     x = np.array([-30.0, -28.0, -26.0, -24.0, -22.0])
     gain = np.array([8.0, 8.02, 7.98, 7.85, 7.7])
     assert gain_dropped(x, gain).tolist() == [False, False, False, False, True]
+    # one low reading lower in the sweep is scatter, not compression
+    dip = np.array([8.0, 8.02, 7.7, 8.0, 7.7])
+    assert gain_dropped(x, dip).tolist() == [False, False, False, False, True]
     usable = np.array([False, True, True, True, True])
     assert gain_dropped(x, gain - np.r_[5.0, 0, 0, 0, 0], usable).tolist()[0] is False
 
