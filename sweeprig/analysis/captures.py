@@ -288,7 +288,9 @@ def point_table(
     reading_codes, reading_names = pd.factorize(cols[READING])
     name_to_code = {str(name): i for i, name in enumerate(reading_names)}
     atten = cols[ATTEN_CHECK]
-    spacing = line_spacing_hz(cols)
+    # the RBW check needs a stored RBW: skip the spacing search on tables without one
+    spacing = (line_spacing_hz(cols) if np.isfinite(cols[RBW]).any()
+               else np.full(point.size, np.inf))
     wanted = list(dict.fromkeys([CARRIER, *readings]))
     for name in wanted:
         code = name_to_code.get(name)
@@ -361,7 +363,7 @@ def _predicted_flags(
     with np.errstate(invalid="ignore"):
         merged = present & np.isfinite(rbw) & (spacing < MERGE_SPACING_RBW * rbw)
     risks = table.get(f"{name}_risks")
-    if risks is not None:
+    if risks is not None and pd.notna(np.asarray(risks, dtype=object)).any():
         risks = np.asarray(risks, dtype=object)
 
         def risk(what: str) -> np.ndarray:

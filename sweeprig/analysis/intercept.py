@@ -392,12 +392,12 @@ def _order_figures(
         prod_flags = sweeps.take(table[f"{product}_flags"].to_numpy(), 0)
         flags = fund_flags | prod_flags
         prod_noise = has_bit(prod_flags, IN_NOISE)
-        usable = present & ((flags & _UNUSABLE) == 0) & ~fund_noise
         # analyzer_distortion without an attenuation repeat is the planner's prediction, not a
         # measurement: the drive stays in the fit, which carries the flag (and is suspect)
         tested = np.isfinite(sweeps.take(table[f"{product}_atten_level_dbm"]))
         predicted = has_bit(prod_flags, ANALYZER_DISTORTION) & ~tested
-        usable |= present & predicted & ((flags & _UNUSABLE & ~_DISTORTION) == 0) & ~fund_noise
+        measured = np.where(predicted, flags & ~_DISTORTION, flags)
+        usable = present & ((measured & _UNUSABLE) == 0) & ~fund_noise
         valid, compressed = fit_range(x, fund, prod, floor, usable & ~in_compression,
                                       input_p1db_dbm=p1db)
         compressed |= in_compression
@@ -438,8 +438,7 @@ def _order_figures(
             fit_flags |= mask_where(
                 np.abs(fit.fund_slope - 1.0) > FUND_SLOPE_TOLERANCE, FUND_SLOPE_OFF
             )
-        excluded = present & ((flags & _EXCLUDED) != 0) & ~(predicted & ((flags & _EXCLUDED
-                                                                         & ~_DISTORTION) == 0))
+        excluded = present & ((measured & _EXCLUDED) != 0)
         fit_flags |= mask_where(excluded.any(axis=-1), POINTS_EXCLUDED)
         empty = count == 0
         # No fit: when every clean, uncompressed drive has the product in the noise, the
