@@ -24,10 +24,15 @@ overload            the analyzer reported input overload during this reading (bo
 atten_check         this row is the repeat with 10 dB more input attenuation (bool)
 attenuation_db      analyzer input attenuation, dB (informative)
 value               reading in SI units for non-RF readings (``supply_current``: A)
+rbw_hz              analyzer resolution bandwidth of the reading, Hz
+port                DUT port the reading was taken at (``if``, ``rf``, ``lo``)
+risks               the planner's predicted risks, comma-separated (``""``: none predicted;
+                    None: no prediction stored)
 ==================  =========================================================================
 
 Optional columns (``rf2_*``, ``noise_floor_dbm``, ``m``, ``n``, ``overload``,
-``atten_check``, ``attenuation_db``, ``value``) may be absent: they read as NaN / False.
+``atten_check``, ``attenuation_db``, ``value``, ``rbw_hz``, ``port``, ``risks``) may be
+absent: they read as NaN / False / None.
 A NaN noise floor means "not recorded": the reading is then taken at face value.
 
 :func:`point_table` turns the readings of each point into one row with a column group per
@@ -46,11 +51,15 @@ import pandas as pd
 
 from sweeprig.analysis import validity
 from sweeprig.analysis.figures import (
+    ANALYZER_COMPRESSION,
     ANALYZER_DISTORTION,
     ATTEN_CARRIER_MOVED,
     IN_NOISE,
     MISSING_READING,
+    NOISE_LIMITED,
     OVERLOAD,
+    RBW_MERGED,
+    SOURCE_HARMONIC,
     flag_bit,
     mask_where,
 )
@@ -68,6 +77,9 @@ ATTENUATION = "attenuation_db"
 VALUE = "value"
 M = "m"
 N = "n"
+RBW = "rbw_hz"
+PORT = "port"
+RISKS = "risks"
 
 #: The settings of a point, in the order figures list them.
 CONDITION_COLUMNS: tuple[str, ...] = (
@@ -93,7 +105,19 @@ READINGS: tuple[str, ...] = (
     "im2_low",
     "im2_high",
     "supply_current",
+    "if_tone2",
 )
+
+#: A line closer to a product than this many RBWs merges with it in the RBW filter (the
+#: planner's rule in its ``rbw_merged`` risk, kept the same here): for a Gaussian-like
+#: filter with a 60 dB : 3 dB shape factor of about 5 (recalled from memory from a published
+#: spectrum-analysis application note, see :mod:`sweeprig.engine.noise_floor`) the skirt is
+#: 60 dB down only at ±2.5 RBW, so a line 40-80 dB above an intermodulation product still
+#: adds to it inside that distance; 3 RBW keeps a small margin (common practice, no source).
+MERGE_SPACING_RBW = 3.0
+#: Lines closer than this are the same line (coincident products, the attenuation repeat),
+#: which no RBW can separate: not an RBW problem, Hz.
+SAME_LINE_HZ = 1.0
 
 #: Other spellings of our column names that a capture table may use.
 COLUMN_ALIASES: Mapping[str, str] = MappingProxyType(
@@ -108,9 +132,10 @@ COLUMN_ALIASES: Mapping[str, str] = MappingProxyType(
 
 _REQUIRED = (POINT, STUDY, "temperature_c", "supply_v", "lo_freq_hz", "lo_power_dbm",
              "rf_freq_hz", "rf_power_dbm", READING, FREQ, LEVEL)
-_OPTIONAL_FLOAT = ("rf2_freq_hz", "rf2_power_dbm", NOISE_FLOOR, ATTENUATION, VALUE, M, N)
+_OPTIONAL_FLOAT = ("rf2_freq_hz", "rf2_power_dbm", NOISE_FLOOR, ATTENUATION, VALUE, M, N, RBW)
 _OPTIONAL_BOOL = (OVERLOAD_COL, ATTEN_CHECK)
-_NUMERIC = (*CONDITION_COLUMNS, FREQ, LEVEL, NOISE_FLOOR, ATTENUATION, VALUE, M, N)
+_OPTIONAL_OBJECT = (PORT, RISKS)
+_NUMERIC = (*CONDITION_COLUMNS, FREQ, LEVEL, NOISE_FLOOR, ATTENUATION, VALUE, M, N, RBW)
 
 CARRIER = "if"
 
@@ -148,10 +173,12 @@ def column_arrays(
         rows = captures[names[STUDY]].isin(wanted).to_numpy(dtype=bool)
         count = int(rows.sum())
     out: dict[str, np.ndarray] = {}
-    for col in (*_REQUIRED, *_OPTIONAL_FLOAT, *_OPTIONAL_BOOL):
+    for col in (*_REQUIRED, *_OPTIONAL_FLOAT, *_OPTIONAL_BOOL, *_OPTIONAL_OBJECT):
         if col not in names:
             if col in _OPTIONAL_BOOL:
                 out[col] = np.zeros(count, dtype=bool)
+            elif col in _OPTIONAL_OBJECT:
+                out[col] = np.full(count, None, dtype=object)
             else:
                 out[col] = np.full(count, np.nan)
             continue
@@ -180,6 +207,50 @@ def column_arrays(
         )
     out[POINT] = out[POINT].astype(np.int64)
     return out
+
+
+def line_spacing_hz(cols: Mapping[str, np.ndarray]) -> np.ndarray:
+    """Per row of checked capture arrays, the distance to the nearest other line known at
+    the same point and port, Hz (inf when none).
+
+    The other lines are the point's other readings at that port (lines closer than
+    :data:`SAME_LINE_HZ` count as the same line) and, at a two-tone point, the tone spacing
+    |f_RF2 − f_RF1|: the two output tones and every intermodulation product of the pair sit
+    that far from their nearest neighbour.
+    """
+    point = np.asarray(cols[POINT], dtype=np.int64)
+    freq = np.asarray(cols[FREQ], dtype=float)
+    ports = cols.get(PORT)
+    port_codes = (pd.factorize(pd.Series(ports, dtype=object))[0] if ports is not None
+                  else np.zeros(point.size, dtype=np.int64))
+    frame = pd.DataFrame({"p": point, "q": port_codes, "f": np.round(freq, 0)})
+    frame = frame[np.isfinite(freq)]
+    out = np.full(point.size, np.inf)
+    if not frame.empty:
+        lines = frame.drop_duplicates().sort_values(["p", "q", "f"], kind="stable")
+        f = lines["f"].to_numpy()
+        group = lines["p"].to_numpy() * (int(port_codes.max(initial=0)) + 2) + \
+            lines["q"].to_numpy()
+        same_prev = np.r_[False, group[1:] == group[:-1]]
+        same_next = np.r_[group[:-1] == group[1:], False]
+        gap_prev = np.where(same_prev, f - np.r_[np.nan, f[:-1]], np.inf)
+        gap_next = np.where(same_next, np.r_[f[1:], np.nan] - f, np.inf)
+        lines = lines.assign(gap=np.minimum(gap_prev, gap_next))
+        merged = frame.reset_index().merge(lines, on=["p", "q", "f"], how="left")
+        out[merged["index"].to_numpy()] = merged["gap"].to_numpy(dtype=float)
+    rf1 = np.asarray(cols["rf_freq_hz"], dtype=float)
+    rf2 = np.asarray(cols.get("rf2_freq_hz", np.full(point.size, np.nan)), dtype=float)
+    with np.errstate(invalid="ignore"):
+        tones = np.abs(rf2 - rf1)
+        tones = np.where(np.isfinite(tones) & (tones >= SAME_LINE_HZ), tones, np.inf)
+    return np.fmin(out, tones)
+
+
+def risk_mask(risks: np.ndarray, name: str) -> np.ndarray:
+    """True where the comma-separated risk strings hold ``name`` (None: no prediction)."""
+    values = pd.Series(np.asarray(risks, dtype=object), dtype=object)
+    padded = "," + values.fillna("").astype(str) + ","
+    return padded.str.contains("," + name + ",", regex=False).to_numpy(dtype=bool)
 
 
 def point_table(
@@ -217,6 +288,9 @@ def point_table(
     reading_codes, reading_names = pd.factorize(cols[READING])
     name_to_code = {str(name): i for i, name in enumerate(reading_names)}
     atten = cols[ATTEN_CHECK]
+    # the RBW check needs a stored RBW: skip the spacing search on tables without one
+    spacing = (line_spacing_hz(cols) if np.isfinite(cols[RBW]).any()
+               else np.full(point.size, np.inf))
     wanted = list(dict.fromkeys([CARRIER, *readings]))
     for name in wanted:
         code = name_to_code.get(name)
@@ -235,13 +309,25 @@ def point_table(
                 table[prefix + "present"] = present
                 table[prefix + "freq_hz"] = np.where(present, cols[FREQ][take], np.nan)
                 table[prefix + "value"] = np.where(present, cols[VALUE][take], np.nan)
+                table[prefix + "rbw_hz"] = np.where(present, cols[RBW][take], np.nan)
+                table[prefix + "spacing_hz"] = np.where(present, spacing[take], np.inf)
+                table[prefix + "risks"] = np.where(present, cols[RISKS][take], None)
     for name in wanted:
         table[f"{name}_flags"] = reading_flags(table, name)
     return pd.DataFrame(table)
 
 
 def reading_flags(table: Mapping[str, np.ndarray], name: str) -> np.ndarray:
-    """The flag mask of reading ``name`` at every point of a point table (see point_table)."""
+    """The flag mask of reading ``name`` at every point of a point table (see point_table).
+
+    Besides the measured tests, the planner's predicted risks (``{name}_risks``; none where
+    the store holds no prediction) raise: ``analyzer_compression``; ``analyzer_distortion``
+    where no attenuation repeat was read (a repeat decides it by measurement);
+    ``source_harmonic``; ``rbw_merged`` (also from the stored RBW against the spacing to the
+    nearest known line, :data:`MERGE_SPACING_RBW`); ``noise_limited`` where ``noise`` or
+    ``reciprocal_mixing`` is predicted and the floor is unknown (NaN), so the measurement
+    could neither confirm nor clear it.
+    """
     level = np.asarray(table[f"{name}_level_dbm"], dtype=float)
     floor = np.asarray(table[f"{name}_noise_floor_dbm"], dtype=float)
     present = np.asarray(table[f"{name}_present"], dtype=bool)
@@ -264,7 +350,33 @@ def reading_flags(table: Mapping[str, np.ndarray], name: str) -> np.ndarray:
         flags |= mask_where(distortion & ~repeat_overload, ANALYZER_DISTORTION)
         tested = np.isfinite(np.asarray(table[f"{name}_atten_level_dbm"], dtype=float))
         flags |= mask_where(carrier_moved & tested, ATTEN_CARRIER_MOVED)
-    return flags
+    return flags | _predicted_flags(table, name, present, floor)
+
+
+def _predicted_flags(
+    table: Mapping[str, np.ndarray], name: str, present: np.ndarray, floor: np.ndarray
+) -> np.ndarray:
+    flags = np.zeros(present.shape, dtype=np.int64)
+    rbw = np.asarray(table.get(f"{name}_rbw_hz", np.full(present.shape, np.nan)), dtype=float)
+    spacing = np.asarray(table.get(f"{name}_spacing_hz", np.full(present.shape, np.inf)),
+                         dtype=float)
+    with np.errstate(invalid="ignore"):
+        merged = present & np.isfinite(rbw) & (spacing < MERGE_SPACING_RBW * rbw)
+    risks = table.get(f"{name}_risks")
+    if risks is not None and pd.notna(np.asarray(risks, dtype=object)).any():
+        risks = np.asarray(risks, dtype=object)
+
+        def risk(what: str) -> np.ndarray:
+            return present & risk_mask(risks, what)
+
+        tested = np.isfinite(np.asarray(table[f"{name}_atten_level_dbm"], dtype=float))
+        flags |= mask_where(risk("analyzer_compression"), ANALYZER_COMPRESSION)
+        flags |= mask_where(risk("analyzer_distortion") & ~tested, ANALYZER_DISTORTION)
+        flags |= mask_where(risk("source_harmonic"), SOURCE_HARMONIC)
+        merged |= risk("rbw_merged")
+        noisy = risk("noise") | risk("reciprocal_mixing")
+        flags |= mask_where(noisy & ~np.isfinite(floor), NOISE_LIMITED)
+    return flags | mask_where(merged, RBW_MERGED)
 
 
 def conditions_records(

@@ -16,14 +16,24 @@ padding ignored.
   least x). Output-referred P_x = input P_x + G_ss − x.
   Not reached: "> highest input tested" (output: "> highest output"), flag ``not_compressed``.
   Past x already at the lowest drive: "< lowest input", flag ``compressed_at_start``.
+* Coarse steps: linear interpolation in dB on a compression curve that bends upward reads
+  P_x low; the wider the bracketing step, the more. :func:`interpolation_error_db` gives the
+  worst case over where the steps fall, found with this module's own interpolation on the
+  compression curve of a memoryless third-order part (gain factor 1 − P/P0, the gentlest
+  usual curve; derived, and about (ln 10/80)·h²·(1 + r)/(1 − r) for a step h with
+  r = 1 − 10^(−x/20), which bounds it). A P_x whose bracketing step's worst case exceeds
+  :data:`P_ACCURACY_DB` (0.2 dB; P1dB: steps of 2.5 dB or more) carries
+  ``coarse_steps``.
 * Psat: the highest output, when the output has flattened (slope of the top segment at most
   0.1 dB/dB) or fallen after its peak; otherwise "> highest output", flag ``not_saturated``.
 """
 
 from __future__ import annotations
 
+import math
 from collections.abc import Sequence
 from dataclasses import dataclass
+from functools import lru_cache
 
 import numpy as np
 import pandas as pd
@@ -37,6 +47,7 @@ from sweeprig.analysis.figures import (
     BOUND_ABOVE,
     BOUND_BELOW,
     BOUND_NONE,
+    COARSE_STEPS,
     COMPRESSED_AT_START,
     FEW_POINTS,
     IN_NOISE,
@@ -57,6 +68,9 @@ NOISE_TOLERANCE_FACTOR = 3.0
 REFERENCE_POINTS = 3
 SATURATION_SLOPE_DB_PER_DB = 0.1
 COMPRESSION_LEVELS_DB: tuple[float, ...] = (0.1, 1.0, 3.0)
+#: Stated accuracy of an interpolated compression point: a bracketing step whose worst-case
+#: interpolation error exceeds it raises ``coarse_steps`` (dB; common practice, no source).
+P_ACCURACY_DB = 0.2
 
 #: Flags that keep a point out of the small-signal estimate.
 _UNUSABLE = (
@@ -232,6 +246,33 @@ def saturated_output(
     return Saturation(value, bound, peak)
 
 
+@lru_cache(maxsize=1024)
+def _interpolation_error_cached(step_db: float, level_db: float) -> float:
+    r = 1.0 - 10.0 ** (-level_db / 20.0)
+    true_x = 10.0 * math.log10(r)  # input P_x, dB relative to the curve's P0
+    offsets = np.linspace(0.0, step_db, 33)[:-1]
+    # five steps below the crossing and one above, shifted through one step by ``offsets``
+    grid = true_x + step_db * (np.arange(7) - 5) - offsets[:, None]
+    ratio = 10.0 ** (grid / 10.0)
+    with np.errstate(divide="ignore"):
+        gain = 20.0 * np.log10(np.clip(1.0 - ratio, 1e-12, None))
+    gain = np.where(ratio < 1.0, gain, np.nan)
+    cp = compression_point(grid, gain, np.zeros(offsets.size), level_db)
+    errors = np.abs(cp.input_dbm - true_x)
+    return float(np.nanmax(np.where(cp.bound == BOUND_NONE, errors, np.nan)))
+
+
+def interpolation_error_db(step_db: float, level_db: float = 1.0) -> float:
+    """Worst-case error of an interpolated P_x (dB of input power) from a bracketing step of
+    ``step_db``, on the compression curve of a third-order part (see the module docstring).
+    0 for a step of 0 or less; NaN for a NaN step."""
+    if not math.isfinite(step_db):
+        return math.nan
+    if step_db <= 0.0:
+        return 0.0
+    return _interpolation_error_cached(round(float(step_db), 3), float(level_db))
+
+
 # ---------------------------------------------------------------------------------------------
 # capture-table adapters
 
@@ -297,9 +338,13 @@ def compression_figures(
     for level in levels_db:
         cp = compression_point(x, gain, region.gain_db, level)
         bracket_flags = sw.pick(flags, cp.lower_index) | sw.pick(flags, cp.upper_index)
+        step = sw.pick(x, cp.upper_index) - sw.pick(x, cp.lower_index)
+        coarse = np.array([interpolation_error_db(h, level) > P_ACCURACY_DB
+                           for h in step.tolist()], dtype=bool).reshape(step.shape)
         fig_flags = (
             few
             | bracket_flags
+            | mask_where(coarse & (cp.bound == BOUND_NONE), COARSE_STEPS)
             | mask_where(cp.bound == BOUND_ABOVE, NOT_COMPRESSED)
             | mask_where(cp.bound == BOUND_BELOW, COMPRESSED_AT_START)
         )

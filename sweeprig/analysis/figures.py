@@ -26,6 +26,9 @@ Flags (sweeprig's own names)
 ``analyzer_distortion``
     Attenuation test: in the repeat with 10 dB more input attenuation the product moved by
     more than 1 dB while the carrier stayed within 0.3 dB, so the analyzer made (part of) it.
+    Without a repeat: the planner predicted the analyzer's own product within the distortion
+    margin (20 dB) of it (a prediction keeps the drive in an intercept fit, which carries
+    the flag; a measured one leaves it out).
 ``atten_carrier_moved``
     In the attenuation repeat the carrier itself moved by more than 0.3 dB: the test cannot
     tell the analyzer's distortion from the part's (the analyzer is probably compressing).
@@ -45,8 +48,10 @@ Flags (sweeprig's own names)
 ``no_valid_range``
     No point met the validity conditions of a fit; the figure is a bound or not a number.
 ``in_compression``
-    Two-tone drive above P1dB − 10 dB (single-point intercepts), or every point of the sweep
-    was there (fit).
+    Two-tone drive where the wanted tones' own gain fell more than 0.2 dB below the sweep's
+    low-drive gain, or above P1dB − 10 dB when a compression study gave P1dB (single-point
+    intercepts; such drives are left out of the fits), or every point of the sweep was there
+    (fit).
 ``points_excluded``
     Some points of the sweep were left out of a fit because of overload or analyzer
     distortion (the fit itself used clean points only).
@@ -58,6 +63,30 @@ Flags (sweeprig's own names)
 ``unpowered``
     At a point behind the figure the conversion gain was more than 20 dB below the part's
     ``expected_gain``: the part looks unpowered, wrongly powered or not driven.
+``analyzer_compression``
+    The planner predicted the analyzer's first mixer compresses the product (by more than
+    0.1 dB) or is past its overload level at the settings used, though the instrument's
+    own overload status may not show it.
+``source_harmonic``
+    The planner predicted a product made from a source's harmonic or spurious lands on this
+    frequency less than the distortion margin below the product.
+``rbw_merged``
+    Another known line was closer to the product than 3 RBW (the analysis' own check of the
+    stored frequencies and RBW), or the planner predicted the RBW filter could not separate
+    them: the displayed level is the sum of both.
+``noise_limited``
+    The planner predicted the noise (the part's and the analyzer's, or reciprocal mixing of a
+    strong neighbour) within its margin of the product, and the measured floor could not
+    confirm or clear it (no floor estimate was possible).
+``coarse_steps``
+    The compression sweep's input-power step bracketing this compression point is so coarse
+    that the linear interpolation may be off by more than the stated accuracy (0.2 dB).
+``supply_current_off``
+    At a point behind the figure the DUT supply current was more than 30 % away from the
+    part's ``expected_supply_current``: the part looks wrongly powered or damaged.
+
+:data:`FLAG_MEANINGS` holds one line per flag for people (reports, ``figures.json``);
+:data:`SUSPECT_FLAGS` the flags that make a limit check on the figure inconclusive.
 """
 
 from __future__ import annotations
@@ -95,6 +124,12 @@ POINTS_EXCLUDED = "points_excluded"
 EDGE_OF_SWEEP = "edge_of_sweep"
 MISSING_READING = "missing_reading"
 UNPOWERED = "unpowered"
+ANALYZER_COMPRESSION = "analyzer_compression"
+SOURCE_HARMONIC = "source_harmonic"
+RBW_MERGED = "rbw_merged"
+NOISE_LIMITED = "noise_limited"
+COARSE_STEPS = "coarse_steps"
+SUPPLY_CURRENT_OFF = "supply_current_off"
 
 #: Every flag, in a fixed order: the position is the flag's bit in a flag mask.
 FLAGS: tuple[str, ...] = (
@@ -114,12 +149,32 @@ FLAGS: tuple[str, ...] = (
     EDGE_OF_SWEEP,
     MISSING_READING,
     UNPOWERED,
+    # appended for the planner's risks and the analysis' own checks: never reorder
+    ANALYZER_COMPRESSION,
+    SOURCE_HARMONIC,
+    RBW_MERGED,
+    NOISE_LIMITED,
+    COARSE_STEPS,
+    SUPPLY_CURRENT_OFF,
 )
 
 #: Flags that make a figure untrustworthy as a number: a limit check on it is inconclusive.
 #: Bounds (``in_noise``, ``not_compressed``, ...) are judged through their bound instead.
+#: Of the later flags, every one that names a cause that can move the figure by more than
+#: its stated uncertainty is suspect: ``analyzer_compression``, ``source_harmonic``,
+#: ``rbw_merged``, ``noise_limited`` (all of them add to or squash the product by an amount
+#: nothing measured), ``coarse_steps`` (the interpolation error exceeds the stated P1dB
+#: accuracy) and ``supply_current_off`` (the part was not in the state the spec assumes).
+#: ``points_excluded`` and ``edge_of_sweep`` stay informative: the figure was computed from
+#: clean points only, or is already reported as a bound.
 SUSPECT_FLAGS: frozenset[str] = frozenset(
     {
+        ANALYZER_COMPRESSION,
+        SOURCE_HARMONIC,
+        RBW_MERGED,
+        NOISE_LIMITED,
+        COARSE_STEPS,
+        SUPPLY_CURRENT_OFF,
         OVERLOAD,
         ANALYZER_DISTORTION,
         ATTEN_CARRIER_MOVED,
@@ -132,6 +187,50 @@ SUSPECT_FLAGS: frozenset[str] = frozenset(
         UNPOWERED,
     }
 )
+
+#: One line per flag, in words an engineer reads beside the figure (reports, figures.json).
+FLAG_MEANINGS: Mapping[str, str] = MappingProxyType({
+    IN_NOISE: "the product was within 6 dB of the analyzer's noise floor: the value is only "
+    "a bound",
+    OVERLOAD: "the analyzer reported input overload while reading it",
+    ANALYZER_DISTORTION: "the analyzer made (part of) this product: the +10 dB attenuation "
+    "repeat moved it, or (without a repeat) the planner predicted the analyzer's own "
+    "distortion within 20 dB of it",
+    ATTEN_CARRIER_MOVED: "in the +10 dB attenuation repeat the carrier itself moved: the "
+    "analyzer is probably compressing and the attenuation test is in doubt",
+    SLOPE_OFF: "the product's fitted slope is not its order (3:1 or 2:1 within 10 %): the "
+    "intercept model does not hold there",
+    FUND_SLOPE_OFF: "the fundamental's fitted slope is not 1 dB/dB within 0.1",
+    NOT_COMPRESSED: "the power sweep ended before this compression level: the value is a "
+    "lower bound",
+    NOT_SATURATED: "the output was still rising at the top of the sweep: the value is a "
+    "lower bound",
+    COMPRESSED_AT_START: "the sweep was already compressed past this level at its lowest "
+    "drive: the value is an upper bound",
+    FEW_POINTS: "fewer than 3 points in the linear region or fit range",
+    NO_VALID_RANGE: "no point met the conditions for a fit",
+    IN_COMPRESSION: "the part was in compression at this two-tone drive (the tones' own gain "
+    "fell more than 0.2 dB, or the drive was above P1dB - 10 dB): per-drive intercepts read "
+    "low",
+    POINTS_EXCLUDED: "some drives were left out of the fit (overload or analyzer distortion); "
+    "the fit used clean points only",
+    EDGE_OF_SWEEP: "the result lies at the edge of the swept range",
+    MISSING_READING: "a reading the figure needs is missing",
+    UNPOWERED: "the gain was more than 20 dB below the expected gain: the part looks "
+    "unpowered, wrongly powered or not driven",
+    ANALYZER_COMPRESSION: "the planner predicted the analyzer's own input compresses or "
+    "overloads at these settings: the level may read low even without an overload indication",
+    SOURCE_HARMONIC: "a product of a source's harmonic or spurious was predicted on this "
+    "frequency within 20 dB of the product: the level may be the source's, not the part's",
+    RBW_MERGED: "another line was within 3 RBW of the product (or predicted so): the RBW "
+    "filter could not separate them and the level is their sum",
+    NOISE_LIMITED: "noise (or reciprocal mixing) was predicted within 10 dB of the product "
+    "and the measured floor could not confirm it: the level may be noise",
+    COARSE_STEPS: "the power steps around this compression point are too coarse: the "
+    "interpolated value may be off by more than 0.2 dB",
+    SUPPLY_CURRENT_OFF: "the supply current was more than 30 % from the expected current: "
+    "the part looks wrongly powered or damaged",
+})
 
 _FLAG_BIT = {name: 1 << i for i, name in enumerate(FLAGS)}
 

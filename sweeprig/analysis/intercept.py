@@ -18,6 +18,20 @@ the longest run from the lowest such drive over which the unconstrained fundamen
 within 1 ± 0.1 dB/dB, both over the whole run and over its top 5 dB of drive (at least three
 points).
 
+In compression, with or without a compression study: the wanted tones' own conversion gain
+is followed through the sweep (tone 1 from ``if``, tone 2 from ``if_tone2`` when read); a
+drive where either tone's gain is more than :data:`GAIN_DROP_DB` below the sweep's low-drive
+gain (the median of its three lowest clean drives), and stays so at every higher drive, is
+in compression: it is left out of the
+fits (like drives above P1dB − 10 dB, outside the range rather than ``points_excluded``) and
+its single-point figures carry ``in_compression``. Why
+0.2 dB (derived): for a memoryless third-order part y = a1·x + a3·x³ driven by two equal
+tones of amplitude A, each output tone is a1·A·(1 − 3ρ) and each IM3 product a1·A·ρ with
+ρ = A²/A_IIP3², so the single-point IIP3 reads 10·log10(1 − 3ρ) low, exactly half the tones'
+gain drop in dB, and the single-point OIP3 (which adds the dropped gain) one and a half
+times it: a 0.2 dB drop bounds the per-drive IIP3 error to 0.1 dB and OIP3 to 0.3 dB (Razavi,
+RF Microelectronics, ch. 2, the third-order two-tone relations, recalled from memory).
+
 Flags on a fitted intercept: ``few_points`` (fewer than 3 points), ``slope_off`` (product
 slope outside n ± 10 %), ``fund_slope_off`` (fundamental slope outside 1 ± 0.1),
 ``points_excluded`` (some drives left out for overload or analyzer distortion),
@@ -74,6 +88,11 @@ SLOPE_WINDOW_POINTS = 3
 SLOPE_WINDOW_DB = 5.0
 #: Relative tolerance of a product's fitted slope: 3 ± 0.3 for IM3, 2 ± 0.2 for IM2.
 PRODUCT_SLOPE_TOLERANCE = 0.1
+#: A two-tone drive whose wanted tones' gain fell more than this below the sweep's low-drive
+#: gain is in compression (dB; see the module docstring for the derivation).
+GAIN_DROP_DB = 0.2
+#: The low-drive gain is the median over this many lowest clean drives.
+GAIN_REFERENCE_POINTS = 3
 
 _UNUSABLE = (
     flag_bit(OVERLOAD)
@@ -82,6 +101,7 @@ _UNUSABLE = (
     | flag_bit(MISSING_READING)
 )
 _EXCLUDED = flag_bit(OVERLOAD) | flag_bit(ANALYZER_DISTORTION) | flag_bit(ATTEN_CARRIER_MOVED)
+_DISTORTION = flag_bit(ANALYZER_DISTORTION)
 
 P1dbSource = float | Callable[[Mapping[str, float | str]], float | None] | None
 
@@ -231,6 +251,33 @@ def _slope_from_sums(sums: np.ndarray) -> np.ndarray:
         return np.where((n >= 2) & (denom > 1e-12), (n * sxy - sx * sy) / denom, np.nan)
 
 
+def gain_dropped(
+    input_dbm: ArrayLike,
+    gain_db: ArrayLike,
+    usable: ArrayLike | None = None,
+    *,
+    drop_db: float = GAIN_DROP_DB,
+    reference_points: int = GAIN_REFERENCE_POINTS,
+) -> np.ndarray:
+    """True at the drives of each sweep (last axis, ascending) whose gain is more than
+    ``drop_db`` below the median gain of the sweep's ``reference_points`` lowest usable
+    drives, from the first drive on which every higher usable drive is also that far down
+    (compression does not come and go: a single low reading lower in the sweep is scatter,
+    not compression). Unusable or NaN drives are never marked; a sweep with no usable drive
+    has none.
+    """
+    x = np.asarray(input_dbm, dtype=float)
+    gain = np.asarray(gain_db, dtype=float)
+    ok = np.isfinite(x) & np.isfinite(gain)
+    if usable is not None:
+        ok &= np.asarray(usable, dtype=bool)
+    rank = np.cumsum(ok, axis=-1)
+    reference, used = sw.row_median(gain, ok & (rank <= reference_points))
+    with np.errstate(invalid="ignore"):
+        dropped = ok & (gain < (reference - drop_db)[..., None])
+    return sw.tail_all(dropped, ok) & ok & (used > 0)[..., None]
+
+
 def _check_order(order: int) -> None:
     if order < 2:
         raise InputError(
@@ -244,6 +291,7 @@ def _check_order(order: int) -> None:
 # capture-table adapter
 
 _PRODUCTS = {3: ("im3_low", "im3_high"), 2: ("im2_low", "im2_high")}
+TONE2 = "if_tone2"
 
 
 def p1db_matcher(
@@ -304,7 +352,7 @@ def intercept_figures(
     names = [p for o in orders for p in _PRODUCTS.get(o, ())]
     for o in orders:
         _check_order(o)
-    table = point_table(captures, names, study=study, where="intercept")
+    table = point_table(captures, [*names, TONE2], study=study, where="intercept")
     figures: list[Figure] = []
     for order in orders:
         sides = [p for p in _PRODUCTS.get(order, ()) if table[f"{p}_present"].any()]
@@ -333,6 +381,7 @@ def _order_figures(
     point_conditions = _point_conditions(table, sweeps)
     point_tuples = [(int(p),) for p in point_ids[present].tolist()]
     fund_noise = has_bit(fund_flags, IN_NOISE)
+    in_compression = _tones_compressed(table, sweeps, x, fund, fund_flags, present)
     figures: list[Figure] = []
     per_side: dict[str, dict] = {}
     valid_union = np.zeros_like(present)
@@ -343,8 +392,15 @@ def _order_figures(
         prod_flags = sweeps.take(table[f"{product}_flags"].to_numpy(), 0)
         flags = fund_flags | prod_flags
         prod_noise = has_bit(prod_flags, IN_NOISE)
-        usable = present & ((flags & _UNUSABLE) == 0) & ~fund_noise
-        valid, compressed = fit_range(x, fund, prod, floor, usable, input_p1db_dbm=p1db)
+        # analyzer_distortion without an attenuation repeat is the planner's prediction, not a
+        # measurement: the drive stays in the fit, which carries the flag (and is suspect)
+        tested = np.isfinite(sweeps.take(table[f"{product}_atten_level_dbm"]))
+        predicted = has_bit(prod_flags, ANALYZER_DISTORTION) & ~tested
+        measured = np.where(predicted, flags & ~_DISTORTION, flags)
+        usable = present & ((measured & _UNUSABLE) == 0) & ~fund_noise
+        valid, compressed = fit_range(x, fund, prod, floor, usable & ~in_compression,
+                                      input_p1db_dbm=p1db)
+        compressed |= in_compression
         valid_union |= valid
         fit = fit_intercept(x, fund, prod, valid, order)
 
@@ -382,7 +438,7 @@ def _order_figures(
             fit_flags |= mask_where(
                 np.abs(fit.fund_slope - 1.0) > FUND_SLOPE_TOLERANCE, FUND_SLOPE_OFF
             )
-        excluded = present & ((flags & _EXCLUDED) != 0)
+        excluded = present & ((measured & _EXCLUDED) != 0)
         fit_flags |= mask_where(excluded.any(axis=-1), POINTS_EXCLUDED)
         empty = count == 0
         # No fit: when every clean, uncompressed drive has the product in the noise, the
@@ -470,6 +526,22 @@ def _order_figures(
             sweeps.points(table, valid_union),
         )
     return figures
+
+
+def _tones_compressed(
+    table: pd.DataFrame, sweeps: sw.Sweeps, x: np.ndarray, fund: np.ndarray,
+    fund_flags: np.ndarray, present: np.ndarray,
+) -> np.ndarray:
+    """Drives where either wanted tone's own gain dropped (see :func:`gain_dropped`)."""
+    clean = present & ((fund_flags & (_UNUSABLE | flag_bit(IN_NOISE))) == 0)
+    dropped = gain_dropped(x, fund - x, clean)
+    if f"{TONE2}_present" in table and table[f"{TONE2}_present"].any():
+        x2 = sweeps.take(table["rf2_power_dbm"])
+        fund2 = sweeps.take(table[f"{TONE2}_level_dbm"])
+        flags2 = sweeps.take(table[f"{TONE2}_flags"].to_numpy(), 0)
+        clean2 = present & ((flags2 & (_UNUSABLE | flag_bit(IN_NOISE))) == 0)
+        dropped |= gain_dropped(x, fund2 - x2, clean2)
+    return dropped
 
 
 def _p1db_per_sweep(

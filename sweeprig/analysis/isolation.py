@@ -233,3 +233,19 @@ def supply_figures(
         "dc_power", "W", dc_power_w(sub["supply_v"].to_numpy(), current), BOUND_NONE, flags,
         conditions, points,
     )
+
+
+def supply_current_off_points(
+    captures: pd.DataFrame, expected_current_a: float,
+    tolerance: float = validity.SUPPLY_CURRENT_TOLERANCE,
+) -> np.ndarray:
+    """Run-store indices (ascending) of the points whose ``supply_current`` reading is more
+    than ``tolerance`` (a fraction) away from ``expected_current_a``
+    (:func:`sweeprig.analysis.validity.supply_current_off`)."""
+    if captures.empty or not (captures["reading"] == "supply_current").any():
+        return np.zeros(0, dtype=np.int64)
+    table = point_table(captures, ("supply_current",), where="supply")
+    rows = table["supply_current_present"].to_numpy()
+    current = table["supply_current_value"].to_numpy(dtype=float)
+    off = rows & validity.supply_current_off(current, expected_current_a, tolerance)
+    return np.asarray(table["point"].to_numpy()[off], dtype=np.int64)

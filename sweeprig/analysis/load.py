@@ -10,7 +10,8 @@ the sequence maps the same way):
 store ``kind`` / name        capture ``reading``          notes
 ==========================  ==========================  ====================================
 ``wanted``                   ``if``                      the wanted output (tone 1)
-``wanted`` ``*.tone2``       (left out)                  tone 2's output: no figure uses it
+``wanted`` ``*.tone2``       ``if_tone2``                tone 2's output (the two-tone gain
+                                                         drop check)
 ``lo_at_if``                 ``lo_at_if``
 ``lo_at_rf``                 ``lo_at_rf``
 ``rf_at_if``                 ``rf_at_if``
@@ -36,8 +37,11 @@ set points at the DUT port planes), and per reading ``freq_hz``, ``level_dbm`` a
 ``noise_floor_dbm`` (already referred to the DUT port planes by the engine), ``overload``
 and ``attenuation_db``. Kept for tracing a figure back to the store: ``reading_no``,
 ``source_name`` (the store's reading name), ``kind``, ``port``, ``rbw_hz`` and the point's
-``probe_temperature_c``. The wanted product's (m, n) is found from the ``wanted`` readings'
-stored multipliers ((1, −1) when there are none).
+``probe_temperature_c``. ``risks``: the planner's predicted risks of the reading
+(``extra_json`` ``risks``, joined by commas, ``""`` for none predicted), None where the
+store holds no prediction (a store written before predictions: never read as "no risk").
+The wanted product's (m, n) is found from the ``wanted`` readings' stored multipliers
+((1, −1) when there are none).
 """
 
 from __future__ import annotations
@@ -70,13 +74,14 @@ PRODUCT_SUFFIXES: dict[tuple[str, str], str] = {
 }
 REPEAT_SUFFIX = ".att10"
 TONE2_SUFFIX = ".tone2"
+TONE2_READING = "if_tone2"
 DEFAULT_WANTED_ORDERS = (1, -1)
 
 #: Columns of the capture table this module builds, in order.
 CAPTURE_COLUMNS: tuple[str, ...] = (
     "point", "study", *CONDITION_COLUMNS, "reading", "freq_hz", "level_dbm", "noise_floor_dbm",
     "m", "n", "overload", "atten_check", "attenuation_db", "value", "reading_no", "source_name",
-    "kind", "port", "rbw_hz", "probe_temperature_c",
+    "kind", "port", "rbw_hz", "probe_temperature_c", "risks",
 )
 
 _POINT_NEEDS = ("point_index", "study", *CONDITION_COLUMNS)
@@ -124,7 +129,7 @@ def captures_from_frames(
     if wanted_orders is None:
         wanted_orders = _wanted_orders(kind == "wanted", tone2, m, n)
     reading = kind.map(DIRECT_KINDS).astype(object)
-    reading = reading.where(~tone2, None)
+    reading = reading.where(~tone2, TONE2_READING)
     for (product_kind, end), short in PRODUCT_SUFFIXES.items():
         reading = reading.where(~((kind == product_kind) & (suffix == end)), short)
     mxn = (kind == "mxn").to_numpy()
@@ -175,6 +180,8 @@ def captures_from_frames(
     out["probe_temperature_c"] = probe
     out.insert(list(out.columns).index("reading_no"), "value",
                _supply_values(rows, out, settings, at))
+    out["risks"] = (_risks_column(rows["extra_json"].to_numpy()) if "extra_json" in rows
+                    else np.full(len(out), None, dtype=object))
     out = out.sort_values(["point", "reading_no"], kind="stable").reset_index(drop=True)
     return out[list(CAPTURE_COLUMNS)]
 
@@ -193,6 +200,29 @@ def _supply_values(
     for k, (text, spare) in enumerate(zip(extras, fallback.tolist(), strict=True)):
         value[supply[k]] = _current_from_extra(text, spare)
     return value
+
+
+def _risks_column(extras: np.ndarray) -> np.ndarray:
+    """``risks`` column from the readings' ``extra_json`` (see the module docstring)."""
+    out = np.full(len(extras), None, dtype=object)
+    cache: dict[str, str | None] = {}
+    for i, text in enumerate(extras.tolist()):
+        if not isinstance(text, str) or '"risks"' not in text:
+            continue
+        if text not in cache:
+            cache[text] = _risks_from_extra(text)
+        out[i] = cache[text]
+    return out
+
+
+def _risks_from_extra(text: str) -> str | None:
+    try:
+        risks = json.loads(text).get("risks")
+    except (ValueError, AttributeError):
+        return None
+    if not isinstance(risks, list | tuple):
+        return None
+    return ",".join(sorted({str(r) for r in risks if isinstance(r, str) and r}))
 
 
 def _current_from_extra(text: object, fallback: float) -> float:
@@ -232,7 +262,7 @@ def _require(frame: pd.DataFrame, columns: tuple[str, ...], what: str) -> None:
 
 def _empty() -> pd.DataFrame:
     frame = pd.DataFrame({c: pd.Series(dtype=float) for c in CAPTURE_COLUMNS})
-    for col in ("study", "reading", "source_name", "kind", "port"):
+    for col in ("study", "reading", "source_name", "kind", "port", "risks"):
         frame[col] = frame[col].astype(object)
     for col in ("point", "reading_no"):
         frame[col] = frame[col].astype(np.int64)

@@ -44,11 +44,12 @@ import pandas as pd
 
 from sweeprig import analysis as an
 from sweeprig.analysis.captures import CONDITION_COLUMNS
-from sweeprig.analysis.figures import UNPOWERED, Figure, flag_points
+from sweeprig.analysis.figures import SUPPLY_CURRENT_OFF, UNPOWERED, Figure, flag_points
 from sweeprig.analysis.gain import unpowered_points
+from sweeprig.analysis.isolation import supply_current_off_points
 from sweeprig.analysis.limits import INCONCLUSIVE, PASS, Assessment, Limit, Verdict, assess
 from sweeprig.analysis.load import DIRECT_KINDS, PRODUCT_SUFFIXES, captures_from_frames
-from sweeprig.analysis.validity import UNPOWERED_GAIN_MARGIN_DB
+from sweeprig.analysis.validity import SUPPLY_CURRENT_TOLERANCE, UNPOWERED_GAIN_MARGIN_DB
 from sweeprig.errors import SweeprigError
 from sweeprig.files import read_file_text
 from sweeprig.formats.fields import axis_len
@@ -168,6 +169,9 @@ def reduce_run(store: RunStore, run_id: int) -> RunFigures:
     figures = _figures(captures, studies, notes)
     if sequence is not None:
         figures = _flag_unpowered(figures, captures, sequence.part.expected_gain, notes)
+        expected_current = getattr(sequence.part, "expected_supply_current", None)
+        if expected_current is not None:
+            figures = _flag_supply_current(figures, captures, float(expected_current), notes)
     limits = limits_from_sequence(sequence) if sequence is not None else ()
     assessment = assess(figures, limits)
     state = _state(info.status, info.points_done, info.points_total)
@@ -461,6 +465,24 @@ def _flag_unpowered(figures: list[Figure], captures: pd.DataFrame, expected_gain
         "output, its current limit and the LO drive); every figure from those points is "
         "flagged 'unpowered'")
     return flag_points(figures, points.tolist(), UNPOWERED)
+
+
+def _flag_supply_current(figures: list[Figure], captures: pd.DataFrame,
+                         expected_current_a: float, notes: list[str]) -> list[Figure]:
+    """Flag ``supply_current_off`` every figure that came from a point whose supply current
+    was more than :data:`SUPPLY_CURRENT_TOLERANCE` away from the part's expected current."""
+    points = supply_current_off_points(captures, expected_current_a)
+    if points.size == 0:
+        return figures
+    measured = int(((captures["reading"] == "supply_current")).sum())
+    notes.append(
+        f"{points.size} of {measured} supply current reading(s) were more than "
+        f"{SUPPLY_CURRENT_TOLERANCE:.0%} away from the expected "
+        f"{expected_current_a * 1e3:g} mA: the part looks wrongly powered or damaged there "
+        "(check the supply voltage, its current limit and the part's connections, with the "
+        "supply off before touching the part); every figure from those points is flagged "
+        "'supply_current_off'")
+    return flag_points(figures, points.tolist(), SUPPLY_CURRENT_OFF)
 
 
 # ---------------------------------------------------------------------------------------------

@@ -29,6 +29,7 @@ from sweeprig.analysis.captures import (
     column_arrays,
     conditions_records,
     has_bit,
+    line_spacing_hz,
     point_table,
     reading_flags,
 )
@@ -126,6 +127,9 @@ def spur_table(
         "spur_atten_overload": _match_repeats(cols, spur_rows, repeat_rows, "overload") == 1.0,
         "if_level_dbm": points["if_level_dbm"].to_numpy()[point_of],
         "if_atten_level_dbm": points["if_atten_level_dbm"].to_numpy()[point_of],
+        "spur_rbw_hz": cols["rbw_hz"][spur_rows],
+        "spur_spacing_hz": line_spacing_hz(cols)[spur_rows],
+        "spur_risks": cols["risks"][spur_rows],
     }
     own_flags = reading_flags(spur_cols, "spur")
     if_flags = points["if_flags"].to_numpy()[point_of]

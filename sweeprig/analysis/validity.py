@@ -29,6 +29,11 @@ MIN_LINEAR_POINTS = 3
 #: unpowered, wrongly powered or not driven, not merely off its spec (dB; common practice,
 #: no source: well beyond part-to-part spread, compression and mismatch).
 UNPOWERED_GAIN_MARGIN_DB = 20.0
+#: A supply current more than this fraction away from the part's ``expected_supply_current``
+#: says the part is wrongly powered or damaged (common practice, no source: well beyond the
+#: part-to-part spread a datasheet allows, while a dead bias branch, a latched-up or shorted
+#: part, or a supply in its current limit lands far outside it).
+SUPPLY_CURRENT_TOLERANCE = 0.3
 
 
 def in_noise(
@@ -113,3 +118,14 @@ def gain_collapsed(
     gain = np.asarray(gain_db, dtype=float)
     with np.errstate(invalid="ignore"):
         return np.asarray(gain < float(expected_gain_db) - margin_db)
+
+
+def supply_current_off(
+    current_a: ArrayLike, expected_a: float, tolerance: float = SUPPLY_CURRENT_TOLERANCE
+) -> np.ndarray:
+    """True where a measured supply current is more than ``tolerance`` (a fraction) away from
+    ``expected_a``. NaN currents are never counted."""
+    current = np.asarray(current_a, dtype=float)
+    expected = float(expected_a)
+    with np.errstate(invalid="ignore"):
+        return np.asarray(np.abs(current - expected) > tolerance * abs(expected))

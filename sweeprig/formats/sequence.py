@@ -19,6 +19,7 @@ from sweeprig.errors import InputError, UnitError
 from sweeprig.formats.fields import (
     TAG_PREFIX,
     AxisValue,
+    Current,
     Frequency,
     Frozen,
     LevelDb,
@@ -196,6 +197,9 @@ class Part(Frozen):
     passive: bool = Field(
         False, description="true for a part that needs no DC supply (a passive mixer): a "
         "sequence without [conditions] supply is then not refused on a bench with a supply")
+    expected_supply_current: Current | None = Field(
+        None, description="expected DC supply current, A; a measured supply current more "
+        "than 30 % away from it flags the figures of that point supply_current_off")
 
 
 class Mixing(Frozen):
@@ -540,6 +544,11 @@ def check_sequence(sequence: Sequence) -> None:
     if cond.supply is not None and _axis_min(cond.supply) < 0:
         raise _problem(sequence, ("conditions", "supply"), "a supply voltage is negative",
                        "give supply voltages of 0 V or more")
+    current = sequence.part.expected_supply_current
+    if current is not None and not (math.isfinite(current) and current > 0):
+        raise _problem(sequence, ("part", "expected_supply_current"),
+                       f"expected_supply_current {current:g} A is not above 0 A",
+                       'give the part\'s typical supply current, e.g. "45 mA"')
     if cond.supply is None and "supply_current" in sequence.reading_kinds():
         raise _problem(sequence, ("conditions",),
                        "the sequence reads supply_current but sets no supply voltage: sweeprig "

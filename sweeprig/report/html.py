@@ -17,7 +17,7 @@ from datetime import UTC, datetime
 from pathlib import Path
 
 from sweeprig import __version__
-from sweeprig.analysis.figures import FIGURE_CATALOGUE, SUSPECT_FLAGS
+from sweeprig.analysis.figures import FIGURE_CATALOGUE, FLAGS, SUSPECT_FLAGS
 from sweeprig.analysis.limits import FAIL, INCONCLUSIVE, PASS
 from sweeprig.analysis.reduce import RunFigures
 from sweeprig.report.plots import Plot
@@ -68,6 +68,10 @@ tr.fail td { background:#fbeceb; }
   border-radius:8px; background:#efe6d2; color:#5b4519; border:1px solid #e0cfa6;
   cursor:help; white-space:nowrap; }
 .badge.suspect { background:#f6dcd6; color:#7d2417; border-color:#e9b5aa; }
+.flag { margin:0 0 3px; }
+.flag .meaning { color:var(--ink); font-size:12px; }
+dl.flags { display:grid; grid-template-columns: max-content 1fr; gap:3px 12px; margin:0; }
+dl.flags dd { margin:0; }
 figure { margin:18px 0 26px; }
 figure img { max-width:100%; height:auto; border:1px solid var(--rule); background:#fff; }
 figcaption { color:var(--muted); font-size:12.5px; margin-top:4px; }
@@ -161,7 +165,10 @@ def _summary(rows: Sequence[SummaryRow]) -> str:
     for row in rows:
         _unit, meaning = FIGURE_CATALOGUE.get(row.name, ("", ""))
         verdict_class = "none" if row.verdict == NO_LIMIT else row.verdict
-        badges = "".join(_badge(name, count, row.count) for name, count in row.flags)
+        badges = "".join(
+            f'<div class="flag">{_badge(name, count, row.count)} '
+            f'<span class="meaning">{e(flag_badge(name)[1])}</span></div>'
+            for name, count in row.flags)
         points = " ".join(str(p) for p in row.points[:12]) + (" …" if len(row.points) > 12
                                                                else "")
         value_title = f"{row.range_text} over {row.count} figures" if row.range_text else ""
@@ -179,12 +186,34 @@ def _summary(rows: Sequence[SummaryRow]) -> str:
         "<h2>Summary</h2>"
         '<p class="small">One row per figure and study, temperature and supply; where a row '
         "holds several figures, the value shown is the one nearest to (or furthest beyond) its "
-        "limit, else the worst. Hover a badge for what it means.</p>"
+        "limit, else the worst. Each flag is explained beside its figure; red flags make a "
+        "limit check on the figure inconclusive.</p>"
         "<table><thead><tr><th>figure</th><th>study</th><th>conditions</th><th>value</th>"
         "<th>limit</th>"
         "<th>result</th><th>flags</th><th>points</th></tr></thead><tbody>"
-        + "".join(body) + "</tbody></table>"
+        + "".join(body) + "</tbody></table>" + _flag_legend(rows)
     )
+
+
+def _flag_legend(rows: Sequence[SummaryRow]) -> str:
+    """Every flag met in the summary, with its meaning and whether it makes a limit check
+    inconclusive (empty when no figure is flagged)."""
+    e = html.escape
+    met = {name for row in rows for name, _ in row.flags}
+    if not met:
+        return ""
+    items = []
+    for name in FLAGS:
+        if name not in met:
+            continue
+        text, meaning = flag_badge(name)
+        effect = (" A limit check on such a figure is inconclusive."
+                  if name in SUSPECT_FLAGS else "")
+        items.append(f'<dt><span class="badge{" suspect" if name in SUSPECT_FLAGS else ""}">'
+                     f"{e(text)}</span> <code>{e(name)}</code></dt>"
+                     f"<dd>{e(meaning)}.{e(effect)}</dd>")
+    return ('<h3 id="flags">What the flags mean</h3><dl class="flags">' + "".join(items)
+            + "</dl>")
 
 
 def _badge(name: str, count: int, total: int) -> str:

@@ -67,7 +67,8 @@ LINE_STYLES: tuple[str, ...] = ("-", "--", ":", "-.")
 
 #: Reading flags that fade a point in the two-tone plot.
 _DOUBTFUL = (flag_bit("in_noise") | flag_bit("overload") | flag_bit("analyzer_distortion")
-             | flag_bit("atten_carrier_moved"))
+             | flag_bit("atten_carrier_moved") | flag_bit("analyzer_compression")
+             | flag_bit("source_harmonic") | flag_bit("rbw_merged") | flag_bit("noise_limited"))
 
 WIDTH_IN = 9.6
 DPI = 100

@@ -27,7 +27,13 @@ import numpy as np
 import pandas as pd
 
 from sweeprig import __version__
-from sweeprig.analysis.figures import FIGURE_CATALOGUE, FLAGS, Figure
+from sweeprig.analysis.figures import (
+    FIGURE_CATALOGUE,
+    FLAG_MEANINGS,
+    FLAGS,
+    SUSPECT_FLAGS,
+    Figure,
+)
 from sweeprig.analysis.limits import FAIL, INCONCLUSIVE, PASS, Judgement, Limit
 from sweeprig.analysis.reduce import RunFigures
 from sweeprig.errors import StoreError
@@ -83,34 +89,36 @@ LOWER_IS_BETTER = frozenset({
 })
 
 #: Flag name → (badge text, explanation shown as a tooltip).
+#: Short badge text of every flag (its meaning in words is :data:`FLAG_MEANINGS`).
+FLAG_BADGES: Mapping[str, str] = MappingProxyType({
+    "in_noise": "noise",
+    "overload": "overload",
+    "analyzer_distortion": "analyzer-made",
+    "atten_carrier_moved": "carrier moved",
+    "slope_off": "slope",
+    "fund_slope_off": "fund. slope",
+    "not_compressed": "not compressed",
+    "not_saturated": "not saturated",
+    "compressed_at_start": "compressed at start",
+    "few_points": "few points",
+    "no_valid_range": "no valid range",
+    "in_compression": "in compression",
+    "points_excluded": "points excluded",
+    "edge_of_sweep": "sweep edge",
+    "missing_reading": "missing",
+    "unpowered": "unpowered",
+    "analyzer_compression": "analyzer compressing",
+    "source_harmonic": "source harmonic",
+    "rbw_merged": "RBW merged",
+    "noise_limited": "noise-limited",
+    "coarse_steps": "coarse steps",
+    "supply_current_off": "supply current off",
+})
+
+#: (badge text, one-line meaning) of every flag: the words shown beside flagged figures.
 FLAG_HELP: Mapping[str, tuple[str, str]] = MappingProxyType({
-    "in_noise": ("noise", "a product was within 6 dB of the analyzer's noise: its level is "
-                 "only an upper bound, so the figure is a bound"),
-    "overload": ("overload", "the analyzer reported input overload on a reading used here"),
-    "analyzer_distortion": ("analyzer-made", "with 10 dB more analyzer attenuation the "
-                            "product moved by more than 1 dB: the analyzer made part of it"),
-    "atten_carrier_moved": ("carrier moved", "in the attenuation repeat the carrier itself "
-                            "moved: the analyzer is compressing, the test cannot decide"),
-    "slope_off": ("slope", "the fitted slope of the distortion product is more than 10 % "
-                  "off its order: the intercept model does not hold there"),
-    "fund_slope_off": ("fund. slope", "the fundamental's fitted slope is outside "
-                       "1 ± 0.1 dB/dB"),
-    "not_compressed": ("not compressed", "the power sweep ended before this compression: "
-                       "the figure is a lower bound"),
-    "not_saturated": ("not saturated", "the output was still rising at the end of the "
-                      "sweep: the figure is a lower bound"),
-    "compressed_at_start": ("compressed at start", "already compressed at the lowest drive: "
-                            "the figure is an upper bound"),
-    "few_points": ("few points", "fewer than 3 points in the linear region or fit range"),
-    "no_valid_range": ("no valid range", "no point met the conditions of the fit"),
-    "in_compression": ("in compression", "drives above P1dB − 10 dB, where the intercept "
-                       "model does not hold"),
-    "points_excluded": ("points excluded", "some drives were left out of the fit for "
-                        "overload or analyzer distortion (the fit used clean points)"),
-    "edge_of_sweep": ("sweep edge", "the result lies at the edge of the swept range"),
-    "missing_reading": ("missing", "a reading this figure needs was not captured"),
-    "unpowered": ("unpowered", "the conversion gain was more than 20 dB below the part's "
-                  "expected gain: the part looks unpowered, wrongly powered or not driven"),
+    name: (FLAG_BADGES.get(name, name.replace("_", " ")), FLAG_MEANINGS[name])
+    for name in FLAGS
 })
 
 #: Verdict of a summary row without any limit.
@@ -405,7 +413,9 @@ def figures_document(run: RunFigures) -> dict[str, Any]:
     """Everything the report states, as JSON-able data (``figures.json``).
 
     ``figures[i].points`` are run-store point indices: each figure can be traced back to the
-    captures (``captures.csv`` column ``point``). ``judgements`` refer to figures and limits
+    captures (``captures.csv`` column ``point``). ``flag_meanings`` says in one line what
+    every flag name in ``figures[i].flags`` means; ``suspect_flags`` lists those that make a
+    limit check on the figure inconclusive. ``judgements`` refer to figures and limits
     by their index in the two lists.
     """
     index = {id(f): i for i, f in enumerate(run.figures)}
@@ -462,6 +472,8 @@ def figures_document(run: RunFigures) -> dict[str, Any]:
             for j in run.assessment.judgements
         ],
         "untested_limits": [limit_index[id(li)] for li in run.assessment.untested],
+        "flag_meanings": {name: FLAG_MEANINGS[name] for name in FLAGS},
+        "suspect_flags": [name for name in FLAGS if name in SUSPECT_FLAGS],
         "figures": [
             {"name": f.name, "value": _number(f.value), "unit": f.unit, "bound": f.bound,
              "text": figure_text(f, 3),

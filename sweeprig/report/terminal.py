@@ -1,7 +1,8 @@
 """The terminal summary: a rich table of the headline figures and the verdict.
 
 Compact by design (it also ends ``sweeprig run``): one row per figure and study, the
-temperatures and supplies of a study merged, the worst figure against its limit shown.
+temperatures and supplies of a study merged, the worst figure against its limit shown; under
+the table, one line per flag met saying what it means.
 """
 
 from __future__ import annotations
@@ -11,6 +12,7 @@ from rich.console import Console
 from rich.table import Table
 from rich.text import Text
 
+from sweeprig.analysis.figures import FLAGS, SUSPECT_FLAGS
 from sweeprig.analysis.limits import FAIL, INCONCLUSIVE, PASS
 from sweeprig.analysis.reduce import RunFigures
 from sweeprig.report.tables import (
@@ -69,7 +71,16 @@ def print_summary(run: RunFigures, console: Console | None = None) -> None:
     if run.title:
         console.print(Text(one_line(run.title), style="dim"))
     if run.figures:
-        console.print(summary_table(run))
+        rows = summary_rows(run, by=("study",))
+        console.print(summary_table(run, rows))
+        met = {name for row in rows for name, _ in row.flags}
+        if met:
+            console.print(Text("flags:", style="yellow"))
+        for name in FLAGS:
+            if name in met:
+                badge, meaning = flag_badge(name)
+                effect = " (limit check inconclusive)" if name in SUSPECT_FLAGS else ""
+                console.print(Text(f"  {badge}: {meaning}{effect}", style="yellow"))
     else:
         console.print(Text("no figures: the run holds no readings a figure needs"))
     counts = run.assessment.counts

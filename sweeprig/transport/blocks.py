@@ -243,7 +243,9 @@ def decode_real32(
             fix="set the instrument's data format to REAL,32 (FORMat REAL,32) before reading",
         )
     dtype = np.dtype(">f4" if big_endian else "<f4")
-    return np.frombuffer(bytes(payload), dtype=dtype).astype(np.float64)
+    # a signalling NaN in the data widens to a quiet NaN; numpy warns on that cast
+    with np.errstate(invalid="ignore"):
+        return np.frombuffer(bytes(payload), dtype=dtype).astype(np.float64)
 
 
 def parse_real32_block(

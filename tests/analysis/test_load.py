@@ -87,7 +87,8 @@ def test_every_kind_maps_to_the_capture_vocabulary(store):
     assert got == {
         (0, "if", False), (0, "lo_at_if", False), (0, "lo_at_rf", False),
         (0, "rf_at_if", False), (0, "image", False), (0, "supply_current", False),
-        (1, "if", False), (1, "im3_low", False), (1, "im3_low", True), (1, "im3_high", False),
+        (1, "if", False), (1, "if_tone2", False), (1, "im3_low", False),
+        (1, "im3_low", True), (1, "im3_high", False),
         (1, "im3_high", True), (1, "im2_low", False), (1, "im2_high", False),
         (2, "if", False), (2, "spur", False), (2, "spur", True),
         (3, "if", False), (3, "spur", False),

@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import base64
 import dataclasses
+import html as html_lib
 import re
 import shutil
 import struct
@@ -13,6 +14,7 @@ from pathlib import Path
 
 import pytest
 
+from sweeprig.analysis.figures import FLAG_MEANINGS, FLAGS, SUSPECT_FLAGS
 from sweeprig.report.html import render_html
 from sweeprig.report.tables import summary_rows
 
@@ -69,6 +71,23 @@ def test_partial_runs_and_hostile_text_are_shown_safely(report_run, report_plots
     assert "&lt;b&gt;bold&lt;/b&gt; &amp; co" in html and "<b>bold</b>" not in html
 
 
+def test_every_flag_is_explained_in_words_beside_its_figure(report_run, report_plots):
+    # one figure carrying every flag: each meaning is page text (outside any attribute), once
+    # beside the figure and once in the legend, which also says which flags are suspect
+    figure = dataclasses.replace(report_run.figures[0], flags=FLAGS)
+    flagged = dataclasses.replace(report_run, figures=(figure, *report_run.figures[1:]))
+    page = render_html(flagged, summary_rows(flagged), report_plots[:1])
+    text = re.sub(r'"[^"]*"', '""', page)  # attribute values removed: tooltips do not count
+    for name in FLAGS:
+        meaning = html_lib.escape(FLAG_MEANINGS[name])
+        assert text.count(meaning) >= 2, name
+    assert 'id="flags"' in page and "What the flags mean" in page
+    legend = page[page.index('id="flags"'):]
+    for name in SUSPECT_FLAGS:
+        entry = legend[legend.index(f"<code>{name}</code>"):]
+        assert entry[:entry.index("</dd>")].endswith("inconclusive."), name
+
+
 def _chromium() -> str | None:
     for name in ("chromium", "chromium-browser"):
         found = shutil.which(name)
@@ -83,10 +102,16 @@ def test_the_report_renders_in_headless_chromium(report_files, tmp_path):
         pytest.skip("Chromium is not installed (Debian: apt-get install chromium); CI has it")
     # A copy with a probe that lists every image's decoded size once the page has loaded;
     # the report itself carries no script.
+    # ...and the rendered text of every flag meaning that takes up room on the page (words
+    # a reader sees, not a tooltip)
     probe = (
-        "<script>addEventListener('load', () => document.body.setAttribute('data-images', "
+        "<script>addEventListener('load', () => { document.body.setAttribute('data-images', "
         "Array.from(document.images).map(i => (i.complete && i.naturalWidth > 0) ? "
-        "i.naturalWidth + 'x' + i.naturalHeight : '0x0').join(' ')));</script>"
+        "i.naturalWidth + 'x' + i.naturalHeight : '0x0').join(' ')); "
+        "document.body.setAttribute('data-meanings', Array.from(document.querySelectorAll("
+        "'.flag .meaning, dl.flags dd')).filter(el => el.getBoundingClientRect().height > 0 "
+        "&& getComputedStyle(el).visibility === 'visible').map(el => el.innerText)"
+        ".join(' | ')); });</script>"
     )
     page = tmp_path / "probe.html"
     page.write_text(report_files.html.read_text(encoding="utf-8").replace(
@@ -106,3 +131,7 @@ def test_the_report_renders_in_headless_chromium(report_files, tmp_path):
     for size in sizes:
         width, height = (int(v) for v in size.split("x"))
         assert width > 300 and height > 200, size
+    meanings = re.search(r'data-meanings="([^"]*)"', result.stdout)
+    assert meanings, "no flag meaning is shown as text"
+    shown = html_lib.unescape(meanings.group(1))
+    assert FLAG_MEANINGS["not_saturated"] in shown  # beside the flagged figure and in the legend

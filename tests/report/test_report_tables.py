@@ -91,3 +91,13 @@ def test_infinite_values_do_not_break_the_json(report_run, bad, tmp_path):
                                                              judgements=(), untested=()))
     path = write_figures_json(odd, tmp_path / "f.json")
     assert json.loads(path.read_text(encoding="utf-8"))["figures"][0]["value"] is None
+
+
+def test_figures_json_says_what_every_flag_means(report_run, report_files):
+    from sweeprig.analysis.figures import FLAG_MEANINGS, FLAGS, SUSPECT_FLAGS
+
+    document = json.loads(report_files.figures_json.read_text(encoding="utf-8"))
+    assert document["flag_meanings"] == {name: FLAG_MEANINGS[name] for name in FLAGS}
+    assert set(document["suspect_flags"]) == set(SUSPECT_FLAGS)
+    used = {flag for f in document["figures"] for flag in f["flags"]}
+    assert used and used <= set(document["flag_meanings"])

@@ -35,3 +35,16 @@ def test_titles_and_notes_are_not_read_as_markup(report_run):
     print_summary(odd, console)
     text = console.export_text()
     assert "lot [/red] [bold]7[/bold]" in text and "note: [/] not markup" in text
+
+
+def test_flags_met_are_explained_under_the_table(report_run):
+    from sweeprig.analysis.figures import FLAG_MEANINGS
+
+    figure = dataclasses.replace(report_run.figures[0], flags=("rbw_merged", "in_noise"))
+    flagged = dataclasses.replace(report_run, figures=(figure, *report_run.figures[1:]))
+    console = Console(record=True, width=400)
+    print_summary(flagged, console)
+    text = console.export_text()
+    assert "flags:" in text
+    assert f"RBW merged: {FLAG_MEANINGS['rbw_merged']} (limit check inconclusive)" in text
+    assert f"noise: {FLAG_MEANINGS['in_noise']}\n" in text  # a bound, not suspect
