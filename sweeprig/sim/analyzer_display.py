@@ -9,18 +9,25 @@ The chain modelled, per sweep:
 1. Input lines (frequency, power) pass the input attenuator and reach the first mixer.
 2. The first mixer compresses on its total input power (a soft ``1/(1 + P/Pc)`` power law) and
    adds its own 2nd- and 3rd-order products of the strongest lines, with levels from its
-   intercepts; all of it is referred back to the input by adding the attenuation.
+   intercepts; all of it is referred back to the input by adding the attenuation. A product
+   that falls on an input line adds to it as a voltage, with a phase of its own
+   (``φ_kind − 2π·f·τ_kind``, seeded by ``product_phase_seed``): it can raise the line by up
+   to 6.02 dB or cancel it, as on a real analyzer (``coherent_products=False``: as powers).
 3. Each line is shaped by a Gaussian resolution filter (−3 dB at ±RBW/2).
 4. Noise: the analyzer's own displayed average noise level (DANL) plus the input noise density
-   integrated over the filter's noise bandwidth; the trace fluctuates like a log-detected
-   noise trace and averaging (and video filtering) smooths it.
+   integrated over the filter's noise bandwidth, plus reciprocal mixing: the analyzer's LO
+   phase noise L(Δf) (``phase_noise``, log-interpolated) moves every strong line's power
+   onto its neighbourhood, ``P_line + L(Δf) + 10·log10(ENBW)``; the trace fluctuates like a
+   log-detected noise trace and averaging (and video filtering) smooths it.
 """
 
 from __future__ import annotations
 
+import cmath
 import math
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
+from functools import lru_cache
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -53,6 +60,22 @@ LOG_NOISE_STD_DB = 10.0 / math.log(10.0) * math.pi / math.sqrt(6.0)
 IM2_ABOVE_H2_DB = 20.0 * math.log10(2.0)
 H3_BELOW_IM3_DB = 20.0 * math.log10(3.0)
 
+# The analyzer's own LO phase noise, single-sideband, as (offset Hz, dBc/Hz): an assumption
+# for a mid-range swept analyzer near 1 GHz (invented figures in the range such analyzers
+# state; no source). Between points it is interpolated linearly in dB versus log10(offset);
+# below the first offset it holds the first value, above the last the last.
+DEFAULT_PHASE_NOISE: tuple[tuple[float, float], ...] = (
+    (100.0, -84.0), (1e3, -98.0), (1e4, -106.0), (1e5, -116.0), (1e6, -135.0), (1e7, -145.0),
+)
+# Reciprocal mixing is summed over at most this many of the strongest lines, and only over
+# lines whose close-in noise could reach within 30 dB of the DANL.
+_PHASE_NOISE_LINES = 16
+_PHASE_NOISE_REACH_DB = 30.0
+# First-mixer products within this of an input line add to it (same as the mixer model).
+_COINCIDENT_HZ = 1e-3
+# Product kinds, each with its own seeded phase law.
+_KINDS = ("h2", "h3", "im2", "im3")
+
 # Above this many averages the mean of the log-detected samples is drawn from its normal
 # limit (central limit theorem) instead of being summed sample by sample.
 _EXACT_AVERAGE_LIMIT = 32
@@ -79,6 +102,12 @@ class AnalyzerParams:
     ``p1db_dbm``: first-mixer input 1 dB compression point.
     ``overload_dbm``: total first-mixer power above which the overload flag is raised.
     ``amplitude_error_db``: fixed error added to every displayed level (0: ideal).
+    ``phase_noise``: the analyzer's LO phase noise as (offset Hz, dBc/Hz) pairs, offsets
+    rising (empty: none; default :data:`DEFAULT_PHASE_NOISE`, an assumption).
+    ``coherent_products``: first-mixer products add to input lines at their frequency as
+    voltages with a seeded phase (False: as powers). ``product_phase_seed``: that seed.
+    ``product_delay_s``: the largest delay of the seeded phase laws (φ0 − 2π·f·τ, τ drawn
+    in [0.2, 1]·product_delay_s).
     """
 
     noise_figure_db: float = 14.0
@@ -87,6 +116,23 @@ class AnalyzerParams:
     p1db_dbm: float = 3.0
     overload_dbm: float = 0.0
     amplitude_error_db: float = 0.0
+    phase_noise: tuple[tuple[float, float], ...] = DEFAULT_PHASE_NOISE
+    coherent_products: bool = True
+    product_phase_seed: int = 0
+    product_delay_s: float = 2e-9
+
+    def phase_noise_dbc_per_hz(self, offset_hz: ArrayLike) -> FloatArray:
+        """L(offset) in dBc/Hz, log-interpolated (−inf everywhere without a profile)."""
+        off = np.abs(np.asarray(offset_hz, dtype=float))
+        if not self.phase_noise:
+            return np.full(off.shape, -math.inf)
+        xs, ys = _phase_noise_table(self.phase_noise)
+        return np.interp(np.log10(np.maximum(off, 1e-6)), xs, ys)
+
+    def product_rotation(self, kind: str, freq_hz: float) -> complex:
+        """The seeded phase factor of a first-mixer product of ``kind`` at ``freq_hz``."""
+        phase0, delay = _product_phase_law(self.product_phase_seed, self.product_delay_s)[kind]
+        return complex(np.exp(1j * (phase0 - 2.0 * math.pi * freq_hz * delay)))
 
 
 @dataclass(frozen=True)
@@ -237,32 +283,72 @@ def danl_dbm(settings: SweepSettings, params: AnalyzerParams) -> float:
 def displayed_noise_dbm(
     freqs_hz: ArrayLike, spectrum: InputSpectrum, settings: SweepSettings, params: AnalyzerParams
 ) -> FloatArray:
-    """Mean displayed noise level (dBm) at ``freqs_hz``: DANL plus the input noise.
+    """Mean displayed noise level (dBm) at ``freqs_hz``: DANL, input noise, reciprocal mixing.
 
     The input noise density is taken as flat across one RBW; its excess above kT0 (the DANL
     already holds a matched input's kT0) is integrated over the Gaussian filter's noise
-    bandwidth, ENBW = 1.0645·RBW (derived above).
+    bandwidth, ENBW = 1.0645·RBW (derived above). Reciprocal mixing adds, for every strong
+    displayed line, ``P_line + L(|f − f_line|) + 10·log10(ENBW)`` (the analyzer's LO phase
+    noise moved onto the line; the classic reciprocal-mixing relation of spectrum-analyzer
+    application notes, e.g. "Spectrum Analysis Basics", an application note of a test
+    equipment maker, from memory), faded out within about one RBW of the line, where the
+    line's own displayed shape already holds its phase noise (a chosen model, no source).
     """
-    return _mw_to_dbm(_noise_mw_fn(spectrum, settings, params)(np.asarray(freqs_hz, float)))
+    lines, _ = first_mixer_lines(spectrum.lines, settings, params)
+    noise = _noise_mw_fn(spectrum, settings, params, lines)
+    return _mw_to_dbm(noise(np.asarray(freqs_hz, float)))
 
 
-def first_mixer_lines(
+def reciprocal_mixing_dbm(
+    freqs_hz: ArrayLike, lines: Sequence[tuple[float, float]], settings: SweepSettings,
+    params: AnalyzerParams,
+) -> FloatArray:
+    """Reciprocal-mixing noise alone (dBm in the RBW's noise bandwidth) at ``freqs_hz`` from
+    displayed ``lines`` (frequency Hz, dBm); −inf where there is none."""
+    fn = _reciprocal_mw_fn(lines, settings, params, strongest_only=False)
+    f = np.asarray(freqs_hz, dtype=float)
+    if fn is None:
+        return np.full(f.shape, -math.inf)
+    return _mw_to_dbm(fn(f))
+
+
+@dataclass(frozen=True)
+class FirstMixerProduct:
+    """One first-mixer product, input-referred: frequency (Hz), complex amplitude
+    (sqrt(mW), with its seeded phase) and kind (``h2``, ``h3``, ``im2``, ``im3``)."""
+
+    freq_hz: float
+    amplitude: complex
+    kind: str
+
+    @property
+    def power_dbm(self) -> float:
+        return _mw_to_dbm_scalar(abs(self.amplitude) ** 2)
+
+
+@dataclass(frozen=True)
+class FirstMixer:
+    """The first mixer's view of the input lines, input-referred.
+
+    ``lines``: the input lines after compression (Hz, dBm); ``products``: its own products;
+    ``total_dbm``: total power at the first mixer (not input-referred); ``compression_db``:
+    the gain change of every line (≤ 0).
+    """
+
+    lines: tuple[tuple[float, float], ...]
+    products: tuple[FirstMixerProduct, ...]
+    total_dbm: float
+    compression_db: float
+
+
+def first_mixer(
     lines: Sequence[tuple[float, float]], settings: SweepSettings, params: AnalyzerParams
-) -> tuple[list[tuple[float, float]], float]:
-    """Lines as displayed (input-referred, dBm) after the attenuator and the first mixer.
-
-    Returns the compressed input lines plus the first mixer's own products, and the total
-    first-mixer power in dBm. Products at the mixer (levels P in dBm at the mixer):
-    2f1±f2: 2·P1 + P2 − 2·TOI; 3f1: 3·P1 − 2·TOI − 9.54; f1±f2: P1 + P2 − (SHI − 6.02);
-    2f1: 2·P1 − SHI (intercept laws, Razavi nonlinearity chapter; the harmonic offsets are
-    derived above). Referring them back to the input adds the attenuation, so 10 dB more
-    attenuation drops a 3rd-order product by 20 dB and a 2nd-order one by 10 dB, while the
-    input lines keep their displayed level (common practice, no source).
-    """
+) -> FirstMixer:
+    """Compression and products of the first mixer (see :func:`first_mixer_lines`)."""
     att = settings.attenuation_db
     valid = [(float(f), float(p)) for f, p in lines if f > 0 and math.isfinite(p)]
     if not valid:
-        return [], -math.inf
+        return FirstMixer((), (), -math.inf, 0.0)
     freqs = np.array([f for f, _ in valid])
     mixer_dbm = np.array([p for _, p in valid]) - att
     total_mw = float(np.sum(10.0 ** (mixer_dbm / 10.0)))
@@ -271,31 +357,85 @@ def first_mixer_lines(
     # Pc = P1dB / (10^0.1 - 1) (a chosen model, no source).
     pc_mw = 10.0 ** (params.p1db_dbm / 10.0) / (10.0**0.1 - 1.0)
     compression_db = -10.0 * math.log10(1.0 + total_mw / pc_mw)
-    out = [
+    out = tuple(
         (float(f), float(p + compression_db + att))
         for f, p in zip(freqs, mixer_dbm, strict=True)
-    ]
-
+    )
     order = np.argsort(mixer_dbm)[::-1][:_DISTORTION_LINES]
     toi, shi = params.toi_dbm, params.shi_dbm
-    products: list[tuple[float, float]] = []
+    raw: list[tuple[float, float, str]] = []
     for a_idx, i in enumerate(order):
         fi, pi = float(freqs[i]), float(mixer_dbm[i])
-        products.append((2.0 * fi, 2.0 * pi - shi))
-        products.append((3.0 * fi, 3.0 * pi - 2.0 * toi - H3_BELOW_IM3_DB))
+        raw.append((2.0 * fi, 2.0 * pi - shi, "h2"))
+        raw.append((3.0 * fi, 3.0 * pi - 2.0 * toi - H3_BELOW_IM3_DB, "h3"))
         for j in order[a_idx + 1 :]:
             fj, pj = float(freqs[j]), float(mixer_dbm[j])
             im2 = pi + pj - (shi - IM2_ABOVE_H2_DB)
-            products.append((fi + fj, im2))
-            products.append((abs(fi - fj), im2))
+            raw.append((fi + fj, im2, "im2"))
+            raw.append((abs(fi - fj), im2, "im2"))
             for (fa, pa), (fb, pb) in (((fi, pi), (fj, pj)), ((fj, pj), (fi, pi))):
                 im3 = 2.0 * pa + pb - 2.0 * toi
-                products.append((abs(2.0 * fa - fb), im3))
-                products.append((2.0 * fa + fb, im3))
-    out.extend(
-        (f, p + att) for f, p in products if f > 0 and p > _PRODUCT_FLOOR_DBM
-    )
-    return out, total_dbm
+                raw.append((abs(2.0 * fa - fb), im3, "im3"))
+                raw.append((2.0 * fa + fb, im3, "im3"))
+    law = _product_phase_law(params.product_phase_seed, params.product_delay_s)
+    products = []
+    for f, p, kind in raw:
+        if f > 0 and p > _PRODUCT_FLOOR_DBM:
+            phase0, delay = law[kind]
+            root = 10.0 ** ((p + att) / 20.0)
+            products.append(FirstMixerProduct(
+                f, cmath.rect(root, phase0 - 2.0 * math.pi * f * delay), kind))
+    return FirstMixer(out, tuple(products), total_dbm, compression_db)
+
+
+def first_mixer_lines(
+    lines: Sequence[tuple[float, float]], settings: SweepSettings, params: AnalyzerParams
+) -> tuple[list[tuple[float, float]], float]:
+    """Lines as displayed (input-referred, dBm) after the attenuator and the first mixer.
+
+    Returns the compressed input lines with the first mixer's own products added, and the
+    total first-mixer power in dBm. Products at the mixer (levels P in dBm at the mixer):
+    2f1±f2: 2·P1 + P2 − 2·TOI; 3f1: 3·P1 − 2·TOI − 9.54; f1±f2: P1 + P2 − (SHI − 6.02);
+    2f1: 2·P1 − SHI (intercept laws, Razavi nonlinearity chapter; the harmonic offsets are
+    derived above). Referring them back to the input adds the attenuation, so 10 dB more
+    attenuation drops a 3rd-order product by 20 dB and a 2nd-order one by 10 dB, while the
+    input lines keep their displayed level (the classic spectrum-analyzer dynamic-range
+    relations: distortion rises 2 dB (3 dB) per dB of mixer level for 2nd (3rd) order,
+    "Spectrum Analysis Basics", an application note of a test-equipment maker, from memory).
+    Lines and products at one frequency add as voltages with the products' seeded phases
+    (``params.coherent_products``), else as powers.
+    """
+    mixer = first_mixer(lines, settings, params)
+    return combine_displayed(mixer, params.coherent_products), mixer.total_dbm
+
+
+def combine_displayed(mixer: FirstMixer, coherent: bool = True) -> list[tuple[float, float]]:
+    """The compressed lines and the products at one frequency summed (voltages if
+    ``coherent``, else powers) → displayed lines (Hz, dBm), sorted by frequency."""
+    if not mixer.products:
+        return sorted(mixer.lines)
+    n_in = len(mixer.lines)
+    freq = np.array([f for f, _ in mixer.lines] + [p.freq_hz for p in mixer.products])
+    amp = np.array([10.0 ** (p / 20.0) for _, p in mixer.lines]
+                   + [p.amplitude for p in mixer.products], dtype=complex)
+    if n_in == 0:
+        amp = amp.astype(complex)
+    order = np.argsort(freq, kind="stable")
+    freq, amp = freq[order], amp[order]
+    start = np.empty(freq.size, dtype=bool)
+    start[0] = True
+    np.greater(np.diff(freq), _COINCIDENT_HZ, out=start[1:])
+    group = np.cumsum(start) - 1
+    if coherent:
+        summed = np.zeros(int(group[-1]) + 1, dtype=complex)
+        np.add.at(summed, group, amp)
+        power_mw = np.abs(summed) ** 2
+    else:
+        power_mw = np.zeros(int(group[-1]) + 1)
+        np.add.at(power_mw, group, np.abs(amp) ** 2)
+    f_out = freq[start]
+    keep = power_mw > 0
+    return list(zip(f_out[keep].tolist(), _mw_to_dbm(power_mw[keep]).tolist(), strict=True))
 
 
 def simulate_sweep(
@@ -308,7 +448,7 @@ def simulate_sweep(
     freqs = settings.freqs_hz()
     lines, mixer_total_dbm = first_mixer_lines(spectrum.lines, settings, params)
     signal_mw = _signal_mw_fn(lines, settings.rbw_hz, params.amplitude_error_db)
-    noise_mw = _noise_mw_fn(spectrum, settings, params)
+    noise_mw = _noise_mw_fn(spectrum, settings, params, lines)
     offsets_db = _noise_offsets_db(settings, rng)
     trace = _mw_to_dbm(signal_mw(freqs) + noise_mw(freqs) * 10.0 ** (offsets_db / 10.0))
     return SweepResult(
@@ -368,22 +508,87 @@ def _signal_mw_fn(
 
 
 def _noise_mw_fn(
-    spectrum: InputSpectrum, settings: SweepSettings, params: AnalyzerParams
+    spectrum: InputSpectrum, settings: SweepSettings, params: AnalyzerParams,
+    lines: Sequence[tuple[float, float]] = (),
 ) -> Callable[[FloatArray], FloatArray]:
-    """Mean displayed noise power (mW) as a function of f (Hz): DANL plus input noise."""
+    """Mean displayed noise power (mW) as a function of f (Hz): DANL plus input noise plus
+    reciprocal mixing of the displayed ``lines``."""
     own_mw = 10.0 ** (danl_dbm(settings, params) / 10.0)
     enbw_hz = GAUSSIAN_ENBW_PER_RBW * settings.rbw_hz
     error = 10.0 ** (params.amplitude_error_db / 10.0)
     kt0_mw_per_hz = 10.0 ** (KT0_DBM_PER_HZ / 10.0)
+    reciprocal = _reciprocal_mw_fn(lines, settings, params)
 
     def noise(freqs_hz: FloatArray) -> FloatArray:
         density_mw = 10.0 ** (spectrum.noise_at(freqs_hz) / 10.0)
         # The noise figure is defined with a source at T0, so the DANL already holds the kT0
         # of a matched input; only the excess above kT0 adds (definition of F; Pozar).
         excess_mw = np.maximum(density_mw - kt0_mw_per_hz, 0.0) * enbw_hz * error
-        return own_mw + excess_mw
+        total = own_mw + excess_mw
+        if reciprocal is not None:
+            total = total + reciprocal(freqs_hz)
+        return total
 
     return noise
+
+
+def _reciprocal_mw_fn(
+    lines: Sequence[tuple[float, float]], settings: SweepSettings, params: AnalyzerParams,
+    *, strongest_only: bool = True,
+) -> Callable[[FloatArray], FloatArray] | None:
+    """Reciprocal-mixing noise (mW in the ENBW) of the lines, or None when none can show.
+
+    ``P·10^(L(Δf)/10)·ENBW`` per line, faded by ``1 − H(Δf)`` (H the RBW filter's power
+    response) within about one RBW of the line (there the line's display holds it).
+    """
+    if not params.phase_noise or not lines:
+        return None
+    enbw_hz = GAUSSIAN_ENBW_PER_RBW * settings.rbw_hz
+    xs, ys = _phase_noise_table(params.phase_noise)
+    gain_db = float(np.max(ys)) + 10.0 * math.log10(enbw_hz)
+    line_f = np.array([f for f, _ in lines], dtype=float)
+    line_dbm = np.array([p for _, p in lines], dtype=float)
+    if strongest_only:
+        reach = line_dbm + gain_db > danl_dbm(settings, params) - _PHASE_NOISE_REACH_DB
+        line_f, line_dbm = line_f[reach], line_dbm[reach]
+        if line_f.size > _PHASE_NOISE_LINES:
+            top = np.argsort(line_dbm)[::-1][:_PHASE_NOISE_LINES]
+            line_f, line_dbm = line_f[top], line_dbm[top]
+    if line_f.size == 0:
+        return None
+    scale_mw = 10.0 ** ((line_dbm + params.amplitude_error_db) / 10.0) * enbw_hz
+    half_rbw = settings.rbw_hz / 2.0
+
+    def reciprocal(freqs_hz: FloatArray) -> FloatArray:
+        f = np.asarray(freqs_hz, dtype=float)
+        offset = np.abs(f[..., None] - line_f)
+        dbc = np.interp(np.log10(np.maximum(offset, 1e-6)), xs, ys)
+        x = offset / half_rbw
+        fade = 1.0 - np.exp2(-(x * x))
+        return (10.0 ** (dbc / 10.0) * fade) @ scale_mw
+
+    return reciprocal
+
+
+@lru_cache(maxsize=32)
+def _phase_noise_table(
+    profile: tuple[tuple[float, float], ...],
+) -> tuple[FloatArray, FloatArray]:
+    xs = np.log10(np.array([o for o, _ in profile], dtype=float))
+    ys = np.array([v for _, v in profile], dtype=float)
+    return xs, ys
+
+
+@lru_cache(maxsize=32)
+def _product_phase_law(seed: int, delay_s: float) -> dict[str, tuple[float, float]]:
+    """Per product kind: (φ0 rad, τ s), φ0 uniform in [0, 2π), τ in [0.2, 1]·delay_s, one
+    draw per kind from ``numpy.random.default_rng([seed, 23, k])``."""
+    law = {}
+    for k, kind in enumerate(_KINDS):
+        rng = np.random.default_rng([int(seed), 23, k])
+        law[kind] = (float(rng.uniform(0.0, 2.0 * math.pi)),
+                     float(rng.uniform(0.2, 1.0) * delay_s))
+    return law
 
 
 def _noise_offsets_db(settings: SweepSettings, rng: np.random.Generator) -> FloatArray:

@@ -2,10 +2,10 @@
 
 Signal flow (powers in dBm, frequencies in Hz, losses in dB, positive = loss)::
 
-    rf source  ─ cable "rf"  ─┐
+    rf source  ─ [low-pass] ─ cable "rf"  ─┐
                                ├─ combiner ─ DUT RF port (power-meter sensor plane)
-    rf2 source ─ cable "rf2" ─┘
-    lo source  ─ cable "lo"  ─ DUT LO port
+    rf2 source ─ [low-pass] ─ cable "rf2" ─┘
+    lo source  ─ [low-pass] ─ cable "lo"  ─ DUT LO port
     DUT IF port ─ path "if"      ─ RF switch channel 1 ─┐
     DUT RF port ─ path "rf_port" ─ RF switch channel 2 ─┼─ analyzer input
     DUT LO port ─ path "lo_port" ─ RF switch channel 3 ─┘
@@ -14,17 +14,28 @@ Signal flow (powers in dBm, frequencies in Hz, losses in dB, positive = loss)::
 The world reads the instruments' states through small views (protocols below), asks the
 mixer model for its response on demand (cached by a key of everything that matters), and
 answers the analyzer (input spectrum), the power meter (sensed power) and the supply (load
-current). It knows no SCPI. Deterministic: it draws no random numbers itself.
+current). It knows no SCPI. Deterministic: its only random draws are the seeded phases of
+the sources' spurious lines (``WorldConfig.spur_phase_seed``), the same on every run.
+
+Sources' spurious lines (non-harmonic, at carrier + offset) are small: the world carries them
+through the part linearly instead of giving each its own tone to the mixer model. An RF
+source's spur converts to the output at the part's small-signal conversion gain (at
+|f_spur − f_LO| for a downconverter, f_spur + f_LO for an up); an LO spur converts each input
+tone with the same gain, at its own dBc (LO spurs transfer dB for dB onto the output of a
+hard-switched mixer: common practice, no source). A spur line that falls on a part line adds
+to it as a voltage with a seeded phase.
 """
 
 from __future__ import annotations
 
+import cmath
 import math
 import threading
 from collections import OrderedDict
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from enum import IntEnum
+from functools import lru_cache
 from typing import Protocol
 
 import numpy as np
@@ -101,6 +112,21 @@ class CableLoss:
 
 
 @dataclass(frozen=True)
+class LowPassFilter:
+    """A low-pass filter at a source's output: Butterworth of ``order`` with its −3 dB
+    corner at ``corner_hz``, rejection ``10·log10(1 + (f/f_c)^(2·order))`` dB (the
+    Butterworth magnitude, Pozar, filter design chapter), no loss in the pass band."""
+
+    corner_hz: float
+    order: int = 5
+
+    def at(self, freq_hz: float) -> float:
+        """Rejection at ``freq_hz``, dB (positive)."""
+        ratio = max(freq_hz, 0.0) / self.corner_hz
+        return 10.0 * math.log10(1.0 + ratio ** (2 * self.order))
+
+
+@dataclass(frozen=True)
 class Cabling:
     """Losses of every connection of the simulated bench.
 
@@ -137,6 +163,26 @@ class WorldConfig:
     self_heating_c_per_w: float = 0.0
     ambient_c: float = AMBIENT_C
     temperature_resolution_c: float = 0.01
+    source_filters: tuple[tuple[str, LowPassFilter], ...] = ()
+    spur_phase_seed: int = 0
+    spur_delay_s: float = 2e-9
+
+    def source_filter(self, role: str) -> LowPassFilter | None:
+        """The low-pass filter at a source's output (``rf``, ``rf2``, ``lo``), or None."""
+        for name, filt in self.source_filters:
+            if name == role:
+                return filt
+        return None
+
+
+@dataclass(frozen=True)
+class SpurLine:
+    """A line made from a source's spurious output: frequency (Hz), complex amplitude at the
+    DUT port (sqrt(mW), with its seeded phase), the source role that made it."""
+
+    freq_hz: float
+    amplitude: complex
+    role: str
 
 
 class SwitchChannel(IntEnum):
@@ -187,14 +233,14 @@ class SimWorld:
         """Tones at the DUT RF port (after cable and combiner), in source order rf, rf2."""
         tones = []
         for role in ("rf", "rf2"):
-            tone = self._tone_at_port(role, (self._cable(role), self.config.cabling.combiner))
+            tone = self._tone_at_port(role, self._path(role))
             if tone is not None:
                 tones.append(tone)
         return tones
 
     def lo_input(self) -> ToneInput | None:
         """The tone at the DUT LO port, or None when the LO is off."""
-        return self._tone_at_port("lo", (self.config.cabling.lo,))
+        return self._tone_at_port("lo", self._path("lo"))
 
     def probe_temperature_c(self) -> float:
         """Chamber probe temperature (ambient without a chamber), degC."""
@@ -296,12 +342,66 @@ class SimWorld:
         else:
             products, noise_dbm_per_hz = response.if_port, response.if_noise_dbm_per_hz
             cable = cabling.if_
-        lines = tuple(
+        lines = [
             (p.freq_hz, p.power_dbm - cable.at(p.freq_hz))
             for p in products
             if p.freq_hz > 0 and math.isfinite(p.power_dbm)
-        )
-        return InputSpectrum(lines, _lossy_noise(noise_dbm_per_hz, cable))
+        ]
+        if channel == SwitchChannel.IF:
+            spurs = self.spur_lines(response)
+            if spurs:
+                extra = [(s.freq_hz, s.amplitude * 10.0 ** (-cable.at(s.freq_hz) / 20.0))
+                         for s in spurs]
+                lines = add_coherent(lines, extra)
+        return InputSpectrum(tuple(lines), _lossy_noise(noise_dbm_per_hz, cable))
+
+    def source_spurs(self, role: str) -> list[tuple[float, float]]:
+        """A source's spurious lines at its DUT port: (frequency Hz, power dBm), after its
+        low-pass filter and cables; empty when the source is off or has none."""
+        source = self._sources.get(role)
+        spurious = getattr(source, "spurious", ()) if source is not None else ()
+        if source is None or not source.output_on or not spurious:
+            return []
+        freq = float(source.freq_hz)
+        path = self._path(role)
+        out = []
+        for offset_hz, dbc in spurious:
+            f = freq + float(offset_hz)
+            if f <= 0:
+                continue
+            loss = sum(c.at(f) for c in path)
+            out.append((f, float(source.delivered_power_dbm) + float(dbc) - loss))
+        return out
+
+    def spur_lines(self, response: MixerResponse) -> list[SpurLine]:
+        """Output-port lines made from the sources' spurious outputs (see the module
+        docstring), with their seeded phases."""
+        gain_db = response.notes.get("conversion_gain_db")
+        lo = self.lo_input()
+        if gain_db is None or not math.isfinite(gain_db) or lo is None:
+            return []
+        up = getattr(self.part, "conversion", "down") == "up"
+        out: list[SpurLine] = []
+
+        def converted(f_in: float, f_lo: float) -> float:
+            return f_in + f_lo if up else abs(f_in - f_lo)
+
+        for r, role in enumerate(("rf", "rf2")):
+            for j, (f, p) in enumerate(self.source_spurs(role)):
+                out.append(self._spur(converted(f, lo.freq_hz), p + gain_db, role, r, j))
+        lo_spurs = self.source_spurs("lo")
+        if lo_spurs:
+            for tone in self.rf_inputs():
+                for j, (f, p) in enumerate(lo_spurs):
+                    level = tone.power_dbm + gain_db + (p - lo.power_dbm)
+                    out.append(self._spur(converted(tone.freq_hz, f), level, "lo", 2, j))
+        return [s for s in out if s.freq_hz > 0]
+
+    def _spur(self, freq_hz: float, power_dbm: float, role: str, r: int, j: int) -> SpurLine:
+        phase0, delay = _spur_phase_law(self.config.spur_phase_seed, self.config.spur_delay_s,
+                                        r, j)
+        return SpurLine(freq_hz, cmath.rect(10.0 ** (power_dbm / 20.0),
+                                            phase0 - 2.0 * math.pi * freq_hz * delay), role)
 
     def sensed_power_dbm(self) -> float:
         """Total power at the DUT RF input plane (fundamentals and harmonics), dBm."""
@@ -310,6 +410,9 @@ class SimWorld:
             total_mw += 10.0 ** (tone.power_dbm / 10.0)
             for h_dbc in tone.harmonics_dbc:
                 total_mw += 10.0 ** ((tone.power_dbm + h_dbc) / 10.0)
+        for role in ("rf", "rf2"):
+            for _, p in self.source_spurs(role):
+                total_mw += 10.0 ** (p / 10.0)
         return 10.0 * math.log10(total_mw) if total_mw > 0 else _NO_SIGNAL_DBM
 
     def supply_current_a(self, supply_v: float) -> float:
@@ -319,11 +422,19 @@ class SimWorld:
         return float(self.response(supply_v=supply_v).supply_current_a)
 
     # --- helpers --------------------------------------------------------------------------
-    def _cable(self, role: str) -> CableLoss:
+    def _path(self, role: str) -> tuple[CableLoss | LowPassFilter, ...]:
+        """Everything between a source and its DUT port: its filter, cable (and combiner)."""
         cabling = self.config.cabling
-        return {"rf": cabling.rf, "rf2": cabling.rf2, "lo": cabling.lo}[role]
+        path: tuple[CableLoss | LowPassFilter, ...] = {
+            "rf": (cabling.rf, cabling.combiner), "rf2": (cabling.rf2, cabling.combiner),
+            "lo": (cabling.lo,),
+        }[role]
+        filt = self.config.source_filter(role)
+        return path if filt is None else (filt, *path)
 
-    def _tone_at_port(self, role: str, path: Sequence[CableLoss]) -> ToneInput | None:
+    def _tone_at_port(
+        self, role: str, path: Sequence[CableLoss | LowPassFilter]
+    ) -> ToneInput | None:
         source = self._sources.get(role)
         if source is None or not source.output_on:
             return None
@@ -341,6 +452,36 @@ class SimWorld:
     def _rounded(self, temperature_c: float) -> float:
         step = self.config.temperature_resolution_c
         return round(temperature_c / step) * step if step > 0 else temperature_c
+
+
+def add_coherent(
+    lines: Sequence[tuple[float, float]], extra: Sequence[tuple[float, complex]],
+    tol_hz: float = 1e-3,
+) -> list[tuple[float, float]]:
+    """Lines (Hz, dBm; taken as phase 0) plus extra lines (Hz, complex sqrt(mW)): one at the
+    frequency of a line adds to it as a voltage, the others join the list."""
+    out = list(lines)
+    index = {round(f / tol_hz): k for k, (f, _) in enumerate(out)}
+    for f, amp in extra:
+        k = index.get(round(f / tol_hz))
+        if k is None:
+            power = abs(amp) ** 2
+            if power > 0:
+                index[round(f / tol_hz)] = len(out)
+                out.append((f, 10.0 * math.log10(power)))
+            continue
+        f0, p0 = out[k]
+        total = abs(10.0 ** (p0 / 20.0) + amp) ** 2
+        out[k] = (f0, 10.0 * math.log10(total) if total > 0 else -math.inf)
+    return [(f, p) for f, p in out if math.isfinite(p)]
+
+
+@lru_cache(maxsize=64)
+def _spur_phase_law(seed: int, delay_s: float, role: int, index: int) -> tuple[float, float]:
+    """(φ0 rad, τ s) of one spur path: φ0 uniform in [0, 2π), τ in [0.2, 1]·delay_s, from
+    ``numpy.random.default_rng([seed, 31, role, index])``."""
+    rng = np.random.default_rng([int(seed), 31, role, index])
+    return float(rng.uniform(0.0, 2.0 * math.pi)), float(rng.uniform(0.2, 1.0) * delay_s)
 
 
 def _lossy_noise(
