@@ -23,7 +23,6 @@ The chain modelled, per sweep:
 
 from __future__ import annotations
 
-import cmath
 import math
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
@@ -69,10 +68,12 @@ DEFAULT_PHASE_NOISE: tuple[tuple[float, float], ...] = (
 )
 # Reciprocal mixing is summed over at most this many of the strongest lines, and only over
 # lines whose close-in noise could reach within 30 dB of the DANL.
-_PHASE_NOISE_LINES = 16
+_PHASE_NOISE_LINES = 8
 _PHASE_NOISE_REACH_DB = 30.0
 # First-mixer products within this of an input line add to it (same as the mixer model).
 _COINCIDENT_HZ = 1e-3
+_LN2 = math.log(2.0)
+_LN10_OVER_10 = math.log(10.0) / 10.0
 # Product kinds, each with its own seeded phase law.
 _KINDS = ("h2", "h3", "im2", "im3")
 
@@ -289,14 +290,16 @@ def displayed_noise_dbm(
     already holds a matched input's kT0) is integrated over the Gaussian filter's noise
     bandwidth, ENBW = 1.0645·RBW (derived above). Reciprocal mixing adds, for every strong
     displayed line, ``P_line + L(|f − f_line|) + 10·log10(ENBW)`` (the analyzer's LO phase
-    noise moved onto the line; the classic reciprocal-mixing relation of spectrum-analyzer
-    application notes, e.g. "Spectrum Analysis Basics", an application note of a test
-    equipment maker, from memory), faded out within about one RBW of the line, where the
-    line's own displayed shape already holds its phase noise (a chosen model, no source).
+    noise moved onto the line; the reciprocal-mixing relation of spectrum-analyzer
+    application notes, e.g. "Spectrum Analysis Basics", an application note of a
+    test-equipment maker, from memory), faded out within about one RBW of the line, where
+    the line's own displayed shape already holds its phase noise (a chosen model, no
+    source). Unlike a sweep, every line counts here (no pruning to the strongest).
     """
-    lines, _ = first_mixer_lines(spectrum.lines, settings, params)
-    noise = _noise_mw_fn(spectrum, settings, params, lines)
-    return _mw_to_dbm(noise(np.asarray(freqs_hz, float)))
+    f = np.asarray(freqs_hz, float)
+    line_f, line_dbm, _ = _displayed_arrays(spectrum.lines, settings, params)
+    noise = _noise_mw_fn(spectrum, settings, params, line_f, line_dbm, span_hz=None)
+    return _mw_to_dbm(noise(f))
 
 
 def reciprocal_mixing_dbm(
@@ -305,11 +308,16 @@ def reciprocal_mixing_dbm(
 ) -> FloatArray:
     """Reciprocal-mixing noise alone (dBm in the RBW's noise bandwidth) at ``freqs_hz`` from
     displayed ``lines`` (frequency Hz, dBm); −inf where there is none."""
-    fn = _reciprocal_mw_fn(lines, settings, params, strongest_only=False)
     f = np.asarray(freqs_hz, dtype=float)
+    line_f = np.array([x for x, _ in lines], dtype=float)
+    line_dbm = np.array([p for _, p in lines], dtype=float)
+    fn = _reciprocal_mw_fn(line_f, line_dbm, settings, params, span_hz=None)
     if fn is None:
         return np.full(f.shape, -math.inf)
     return _mw_to_dbm(fn(f))
+
+
+_KIND_CODES = {kind: k for k, kind in enumerate(_KINDS)}
 
 
 @dataclass(frozen=True)
@@ -326,19 +334,39 @@ class FirstMixerProduct:
         return _mw_to_dbm_scalar(abs(self.amplitude) ** 2)
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class FirstMixer:
     """The first mixer's view of the input lines, input-referred.
 
-    ``lines``: the input lines after compression (Hz, dBm); ``products``: its own products;
-    ``total_dbm``: total power at the first mixer (not input-referred); ``compression_db``:
-    the gain change of every line (≤ 0).
+    ``line_freq_hz``/``line_dbm``: the input lines after compression; ``product_freq_hz``,
+    ``product_amp`` (complex sqrt(mW)), ``product_kind`` (index into h2, h3, im2, im3): its
+    own products; ``total_dbm``: total power at the first mixer (not input-referred);
+    ``compression_db``: the gain change of every line (≤ 0).
     """
 
-    lines: tuple[tuple[float, float], ...]
-    products: tuple[FirstMixerProduct, ...]
+    line_freq_hz: FloatArray
+    line_dbm: FloatArray
+    product_freq_hz: FloatArray
+    product_amp: NDArray[np.complex128]
+    product_kind: NDArray[np.intp]
     total_dbm: float
     compression_db: float
+
+    @property
+    def lines(self) -> tuple[tuple[float, float], ...]:
+        """The compressed input lines as (Hz, dBm)."""
+        return tuple(zip(self.line_freq_hz.tolist(), self.line_dbm.tolist(), strict=True))
+
+    @property
+    def products(self) -> tuple[FirstMixerProduct, ...]:
+        """The first mixer's own products."""
+        return tuple(
+            FirstMixerProduct(f, complex(a), _KINDS[k]) for f, a, k in zip(
+                self.product_freq_hz.tolist(), self.product_amp.tolist(),
+                self.product_kind.tolist(), strict=True))
+
+
+_EMPTY = np.zeros(0)
 
 
 def first_mixer(
@@ -346,46 +374,45 @@ def first_mixer(
 ) -> FirstMixer:
     """Compression and products of the first mixer (see :func:`first_mixer_lines`)."""
     att = settings.attenuation_db
-    valid = [(float(f), float(p)) for f, p in lines if f > 0 and math.isfinite(p)]
-    if not valid:
-        return FirstMixer((), (), -math.inf, 0.0)
-    freqs = np.array([f for f, _ in valid])
-    mixer_dbm = np.array([p for _, p in valid]) - att
+    if len(lines):
+        arr = np.asarray(lines, dtype=float).reshape(-1, 2)
+        ok = (arr[:, 0] > 0) & np.isfinite(arr[:, 1])
+        freqs, input_dbm = arr[ok, 0], arr[ok, 1]
+    else:
+        freqs = input_dbm = _EMPTY
+    if freqs.size == 0:
+        return FirstMixer(_EMPTY, _EMPTY, _EMPTY, np.zeros(0, complex), np.zeros(0, np.intp),
+                          -math.inf, 0.0)
+    mixer_dbm = input_dbm - att
     total_mw = float(np.sum(10.0 ** (mixer_dbm / 10.0)))
     total_dbm = _mw_to_dbm_scalar(total_mw)
     # Soft compression on total power: power gain 1/(1 + P/Pc), -1 dB when P = P1dB, so
     # Pc = P1dB / (10^0.1 - 1) (a chosen model, no source).
     pc_mw = 10.0 ** (params.p1db_dbm / 10.0) / (10.0**0.1 - 1.0)
     compression_db = -10.0 * math.log10(1.0 + total_mw / pc_mw)
-    out = tuple(
-        (float(f), float(p + compression_db + att))
-        for f, p in zip(freqs, mixer_dbm, strict=True)
-    )
-    order = np.argsort(mixer_dbm)[::-1][:_DISTORTION_LINES]
+
+    top = np.argsort(mixer_dbm)[::-1][:_DISTORTION_LINES]
+    fi, pi = freqs[top], mixer_dbm[top]
     toi, shi = params.toi_dbm, params.shi_dbm
-    raw: list[tuple[float, float, str]] = []
-    for a_idx, i in enumerate(order):
-        fi, pi = float(freqs[i]), float(mixer_dbm[i])
-        raw.append((2.0 * fi, 2.0 * pi - shi, "h2"))
-        raw.append((3.0 * fi, 3.0 * pi - 2.0 * toi - H3_BELOW_IM3_DB, "h3"))
-        for j in order[a_idx + 1 :]:
-            fj, pj = float(freqs[j]), float(mixer_dbm[j])
-            im2 = pi + pj - (shi - IM2_ABOVE_H2_DB)
-            raw.append((fi + fj, im2, "im2"))
-            raw.append((abs(fi - fj), im2, "im2"))
-            for (fa, pa), (fb, pb) in (((fi, pi), (fj, pj)), ((fj, pj), (fi, pi))):
-                im3 = 2.0 * pa + pb - 2.0 * toi
-                raw.append((abs(2.0 * fa - fb), im3, "im3"))
-                raw.append((2.0 * fa + fb, im3, "im3"))
-    law = _product_phase_law(params.product_phase_seed, params.product_delay_s)
-    products = []
-    for f, p, kind in raw:
-        if f > 0 and p > _PRODUCT_FLOOR_DBM:
-            phase0, delay = law[kind]
-            root = 10.0 ** ((p + att) / 20.0)
-            products.append(FirstMixerProduct(
-                f, cmath.rect(root, phase0 - 2.0 * math.pi * f * delay), kind))
-    return FirstMixer(out, tuple(products), total_dbm, compression_db)
+    iu, ju = np.triu_indices(fi.size, 1)
+    ia, ib = np.nonzero(~np.eye(fi.size, dtype=bool))
+    im2 = pi[iu] + pi[ju] - (shi - IM2_ABOVE_H2_DB)
+    im3 = 2.0 * pi[ia] + pi[ib] - 2.0 * toi
+    prod_f = np.concatenate([
+        2.0 * fi, 3.0 * fi, fi[iu] + fi[ju], np.abs(fi[iu] - fi[ju]),
+        np.abs(2.0 * fi[ia] - fi[ib]), 2.0 * fi[ia] + fi[ib]])
+    prod_p = np.concatenate([
+        2.0 * pi - shi, 3.0 * pi - 2.0 * toi - H3_BELOW_IM3_DB, im2, im2, im3, im3])
+    kinds = np.concatenate([
+        np.full(fi.size, 0), np.full(fi.size, 1), np.full(2 * iu.size, 2),
+        np.full(2 * ia.size, 3)]).astype(np.intp)
+    keep = (prod_f > 0) & (prod_p > _PRODUCT_FLOOR_DBM)
+    prod_f, prod_p, kinds = prod_f[keep], prod_p[keep], kinds[keep]
+    phase0, delay = _product_phase_arrays(params.product_phase_seed, params.product_delay_s)
+    amp = 10.0 ** ((prod_p + att) / 20.0) * np.exp(
+        1j * (phase0[kinds] - 2.0 * math.pi * prod_f * delay[kinds]))
+    return FirstMixer(freqs, input_dbm + compression_db, prod_f, amp, kinds, total_dbm,
+                      compression_db)
 
 
 def first_mixer_lines(
@@ -405,37 +432,58 @@ def first_mixer_lines(
     Lines and products at one frequency add as voltages with the products' seeded phases
     (``params.coherent_products``), else as powers.
     """
+    f, p, total = _displayed_arrays(lines, settings, params)
+    return list(zip(f.tolist(), p.tolist(), strict=True)), total
+
+
+def _displayed_arrays(
+    lines: Sequence[tuple[float, float]], settings: SweepSettings, params: AnalyzerParams
+) -> tuple[FloatArray, FloatArray, float]:
+    # The display depends only on the lines, the attenuation and the analyzer: the last
+    # answer is kept for the same (immutable) lines object, as successive sweeps of one
+    # input ask for it again with other spans.
+    key = (settings.attenuation_db, params)
+    hit = _LAST_DISPLAYED.get("last")
+    if hit is not None and hit[0] is lines and hit[1] == key:
+        return hit[2]
     mixer = first_mixer(lines, settings, params)
-    return combine_displayed(mixer, params.coherent_products), mixer.total_dbm
+    f, p = combine_displayed(mixer, params.coherent_products)
+    value = (f, p, mixer.total_dbm)
+    if isinstance(lines, tuple):
+        _LAST_DISPLAYED["last"] = (lines, key, value)
+    return value
 
 
-def combine_displayed(mixer: FirstMixer, coherent: bool = True) -> list[tuple[float, float]]:
+_LAST_DISPLAYED: dict[str, tuple[object, tuple[float, AnalyzerParams], tuple[
+    FloatArray, FloatArray, float]]] = {}
+
+
+def combine_displayed(mixer: FirstMixer, coherent: bool = True) -> tuple[FloatArray, FloatArray]:
     """The compressed lines and the products at one frequency summed (voltages if
-    ``coherent``, else powers) → displayed lines (Hz, dBm), sorted by frequency."""
-    if not mixer.products:
-        return sorted(mixer.lines)
-    n_in = len(mixer.lines)
-    freq = np.array([f for f, _ in mixer.lines] + [p.freq_hz for p in mixer.products])
-    amp = np.array([10.0 ** (p / 20.0) for _, p in mixer.lines]
-                   + [p.amplitude for p in mixer.products], dtype=complex)
-    if n_in == 0:
-        amp = amp.astype(complex)
+    ``coherent``, else powers) → displayed lines as arrays (Hz, dBm), sorted by frequency."""
+    freq = np.concatenate([mixer.line_freq_hz, mixer.product_freq_hz])
+    if freq.size == 0:
+        return _EMPTY, _EMPTY
+    amp = np.concatenate([10.0 ** (mixer.line_dbm / 20.0) + 0j, mixer.product_amp])
     order = np.argsort(freq, kind="stable")
     freq, amp = freq[order], amp[order]
     start = np.empty(freq.size, dtype=bool)
     start[0] = True
     np.greater(np.diff(freq), _COINCIDENT_HZ, out=start[1:])
-    group = np.cumsum(start) - 1
-    if coherent:
-        summed = np.zeros(int(group[-1]) + 1, dtype=complex)
-        np.add.at(summed, group, amp)
-        power_mw = np.abs(summed) ** 2
+    if start.all():
+        power_mw = amp.real * amp.real + amp.imag * amp.imag
     else:
-        power_mw = np.zeros(int(group[-1]) + 1)
-        np.add.at(power_mw, group, np.abs(amp) ** 2)
-    f_out = freq[start]
+        group = np.cumsum(start) - 1
+        if coherent:
+            summed = np.zeros(int(group[-1]) + 1, dtype=complex)
+            np.add.at(summed, group, amp)
+            power_mw = summed.real * summed.real + summed.imag * summed.imag
+        else:
+            power_mw = np.zeros(int(group[-1]) + 1)
+            np.add.at(power_mw, group, amp.real * amp.real + amp.imag * amp.imag)
+        freq = freq[start]
     keep = power_mw > 0
-    return list(zip(f_out[keep].tolist(), _mw_to_dbm(power_mw[keep]).tolist(), strict=True))
+    return freq[keep], _mw_to_dbm(power_mw[keep])
 
 
 def simulate_sweep(
@@ -446,9 +494,10 @@ def simulate_sweep(
 ) -> SweepResult:
     """Run one sweep (with all its averages) and return the trace and flags."""
     freqs = settings.freqs_hz()
-    lines, mixer_total_dbm = first_mixer_lines(spectrum.lines, settings, params)
-    signal_mw = _signal_mw_fn(lines, settings.rbw_hz, params.amplitude_error_db)
-    noise_mw = _noise_mw_fn(spectrum, settings, params, lines)
+    line_f, line_dbm, mixer_total_dbm = _displayed_arrays(spectrum.lines, settings, params)
+    signal_mw = _signal_mw_fn(line_f, line_dbm, settings.rbw_hz, params.amplitude_error_db)
+    noise_mw = _noise_mw_fn(spectrum, settings, params, line_f, line_dbm,
+                            span_hz=(settings.start_hz, settings.stop_hz))
     offsets_db = _noise_offsets_db(settings, rng)
     trace = _mw_to_dbm(signal_mw(freqs) + noise_mw(freqs) * 10.0 ** (offsets_db / 10.0))
     return SweepResult(
@@ -465,16 +514,12 @@ def simulate_sweep(
 
 
 def _signal_mw_fn(
-    lines: Sequence[tuple[float, float]], rbw_hz: float, error_db: float
+    line_f: FloatArray, line_dbm: FloatArray, rbw_hz: float, error_db: float
 ) -> Callable[[FloatArray], FloatArray]:
     """Sum of the lines (mW) seen through the Gaussian RBW filter, as a function of f (Hz)."""
-    if lines:
-        line_f = np.array([f for f, _ in lines])
-        line_mw = 10.0 ** ((np.array([p for _, p in lines]) + error_db) / 10.0)
-        keep = line_mw > 0
-        line_f, line_mw = line_f[keep], line_mw[keep]
-    else:
-        line_f = line_mw = np.zeros(0)
+    line_mw = 10.0 ** ((line_dbm + error_db) / 10.0)
+    keep = line_mw > 0
+    line_f, line_mw = line_f[keep], line_mw[keep]
     order = np.argsort(line_f)
     line_f, line_mw = line_f[order], line_mw[order]
     reach = _FILTER_REACH_RBW * rbw_hz
@@ -509,15 +554,16 @@ def _signal_mw_fn(
 
 def _noise_mw_fn(
     spectrum: InputSpectrum, settings: SweepSettings, params: AnalyzerParams,
-    lines: Sequence[tuple[float, float]] = (),
+    line_f: FloatArray = _EMPTY, line_dbm: FloatArray = _EMPTY,
+    span_hz: tuple[float, float] | None = None,
 ) -> Callable[[FloatArray], FloatArray]:
     """Mean displayed noise power (mW) as a function of f (Hz): DANL plus input noise plus
-    reciprocal mixing of the displayed ``lines``."""
+    reciprocal mixing of the displayed lines (those that can show within ``span_hz``)."""
     own_mw = 10.0 ** (danl_dbm(settings, params) / 10.0)
     enbw_hz = GAUSSIAN_ENBW_PER_RBW * settings.rbw_hz
     error = 10.0 ** (params.amplitude_error_db / 10.0)
     kt0_mw_per_hz = 10.0 ** (KT0_DBM_PER_HZ / 10.0)
-    reciprocal = _reciprocal_mw_fn(lines, settings, params)
+    reciprocal = _reciprocal_mw_fn(line_f, line_dbm, settings, params, span_hz=span_hz)
 
     def noise(freqs_hz: FloatArray) -> FloatArray:
         density_mw = 10.0 ** (spectrum.noise_at(freqs_hz) / 10.0)
@@ -533,39 +579,54 @@ def _noise_mw_fn(
 
 
 def _reciprocal_mw_fn(
-    lines: Sequence[tuple[float, float]], settings: SweepSettings, params: AnalyzerParams,
-    *, strongest_only: bool = True,
+    line_f: FloatArray, line_dbm: FloatArray, settings: SweepSettings, params: AnalyzerParams,
+    *, span_hz: tuple[float, float] | None,
 ) -> Callable[[FloatArray], FloatArray] | None:
     """Reciprocal-mixing noise (mW in the ENBW) of the lines, or None when none can show.
 
     ``P·10^(L(Δf)/10)·ENBW`` per line, faded by ``1 − H(Δf)`` (H the RBW filter's power
-    response) within about one RBW of the line (there the line's display holds it).
+    response) within about one RBW of the line (there the line's display holds it). With
+    ``span_hz`` = (start, stop) only lines whose noise can come within 30 dB of the DANL
+    somewhere in that range count, at most the 8 strongest (a sweep's shortcut: what they
+    leave out is below 0.004 dB of the floor); None: every line counts.
     """
-    if not params.phase_noise or not lines:
+    if not params.phase_noise or line_f.size == 0:
         return None
-    enbw_hz = GAUSSIAN_ENBW_PER_RBW * settings.rbw_hz
+    enbw_db = 10.0 * math.log10(GAUSSIAN_ENBW_PER_RBW * settings.rbw_hz)
     xs, ys = _phase_noise_table(params.phase_noise)
-    gain_db = float(np.max(ys)) + 10.0 * math.log10(enbw_hz)
-    line_f = np.array([f for f, _ in lines], dtype=float)
-    line_dbm = np.array([p for _, p in lines], dtype=float)
-    if strongest_only:
-        reach = line_dbm + gain_db > danl_dbm(settings, params) - _PHASE_NOISE_REACH_DB
+    if span_hz is not None:
+        start, stop = span_hz
+        nearest = np.maximum(np.maximum(start - line_f, line_f - stop), 0.0)
+        close_in = np.interp(np.log10(np.maximum(nearest, 1e-6)), xs, ys)
+        reach = line_dbm + close_in + enbw_db > danl_dbm(settings, params) - _PHASE_NOISE_REACH_DB
+        if not reach.any():
+            return None
         line_f, line_dbm = line_f[reach], line_dbm[reach]
         if line_f.size > _PHASE_NOISE_LINES:
             top = np.argsort(line_dbm)[::-1][:_PHASE_NOISE_LINES]
             line_f, line_dbm = line_f[top], line_dbm[top]
-    if line_f.size == 0:
-        return None
-    scale_mw = 10.0 ** ((line_dbm + params.amplitude_error_db) / 10.0) * enbw_hz
+    scale_mw = 10.0 ** ((line_dbm + params.amplitude_error_db + enbw_db) / 10.0)
     half_rbw = settings.rbw_hz / 2.0
 
-    def reciprocal(freqs_hz: FloatArray) -> FloatArray:
-        f = np.asarray(freqs_hz, dtype=float)
+    def exact(f: FloatArray) -> FloatArray:
         offset = np.abs(f[..., None] - line_f)
         dbc = np.interp(np.log10(np.maximum(offset, 1e-6)), xs, ys)
         x = offset / half_rbw
-        fade = 1.0 - np.exp2(-(x * x))
-        return (10.0 ** (dbc / 10.0) * fade) @ scale_mw
+        fade = -np.expm1(-_LN2 * (x * x))
+        return (np.exp(dbc * _LN10_OVER_10) * fade) @ scale_mw
+
+    def reciprocal(freqs_hz: FloatArray) -> FloatArray:
+        f = np.asarray(freqs_hz, dtype=float)
+        step = 0
+        if f.ndim == 1 and f.size > 64 and f[-1] > f[0]:
+            step = int(half_rbw / ((f[-1] - f[0]) / (f.size - 1)))
+        if step < 2:
+            return exact(f)
+        # A swept trace: the noise is smooth on the scale of half an RBW (the fade) and of
+        # the offset itself (the profile), so every step-th point is computed and the rest
+        # interpolated (linear in power); single readings are always exact.
+        idx = np.unique(np.append(np.arange(0, f.size, step), f.size - 1))
+        return np.interp(f, f[idx], exact(f[idx]))
 
     return reciprocal
 
@@ -589,6 +650,12 @@ def _product_phase_law(seed: int, delay_s: float) -> dict[str, tuple[float, floa
         law[kind] = (float(rng.uniform(0.0, 2.0 * math.pi)),
                      float(rng.uniform(0.2, 1.0) * delay_s))
     return law
+
+
+@lru_cache(maxsize=32)
+def _product_phase_arrays(seed: int, delay_s: float) -> tuple[FloatArray, FloatArray]:
+    law = _product_phase_law(seed, delay_s)
+    return (np.array([law[k][0] for k in _KINDS]), np.array([law[k][1] for k in _KINDS]))
 
 
 def _noise_offsets_db(settings: SweepSettings, rng: np.random.Generator) -> FloatArray:

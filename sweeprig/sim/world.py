@@ -211,6 +211,7 @@ class SimWorld:
         self._lock = threading.RLock()
         self._cache: OrderedDict[tuple[object, ...], MixerResponse] = OrderedDict()
         self.evaluations = 0  # number of model evaluations (cache misses), for tests
+        self._last_input: tuple[MixerResponse, int, InputSpectrum] | None = None
 
     def connect(
         self,
@@ -227,6 +228,7 @@ class SimWorld:
             self._sources = {"rf": rf, "rf2": rf2, "lo": lo}
             self._supply, self._chamber, self._switch = supply, chamber, switch
             self._cache.clear()
+            self._last_input = None
 
     # --- the DUT's inputs -------------------------------------------------------------
     def rf_inputs(self) -> list[ToneInput]:
@@ -332,6 +334,14 @@ class SimWorld:
         """Lines and noise density at the analyzer input for the switch's channel."""
         channel = self._switch.channel if self._switch is not None else SwitchChannel.IF
         response = self.response()
+        last = self._last_input
+        if last is not None and last[0] is response and last[1] == channel:
+            return last[2]  # the same response on the same channel: the same spectrum
+        spectrum = self._analyzer_input(response, channel)
+        self._last_input = (response, channel, spectrum)
+        return spectrum
+
+    def _analyzer_input(self, response: MixerResponse, channel: int) -> InputSpectrum:
         cabling = self.config.cabling
         if channel == SwitchChannel.RF:
             products, noise_dbm_per_hz = response.rf_port, KT0_DBM_PER_HZ
@@ -342,18 +352,21 @@ class SimWorld:
         else:
             products, noise_dbm_per_hz = response.if_port, response.if_noise_dbm_per_hz
             cable = cabling.if_
-        lines = [
-            (p.freq_hz, p.power_dbm - cable.at(p.freq_hz))
-            for p in products
-            if p.freq_hz > 0 and math.isfinite(p.power_dbm)
-        ]
+        n = len(products)
+        freq = np.fromiter((p[0] for p in products), float, n)
+        level = np.fromiter((p[1] for p in products), float, n)
+        ok = (freq > 0) & np.isfinite(level)
+        if not ok.all():
+            freq, level = freq[ok], level[ok]
+        level = level - _cable_loss_db(cable, freq)
         if channel == SwitchChannel.IF:
             spurs = self.spur_lines(response)
             if spurs:
                 extra = [(s.freq_hz, s.amplitude * 10.0 ** (-cable.at(s.freq_hz) / 20.0))
                          for s in spurs]
-                lines = add_coherent(lines, extra)
-        return InputSpectrum(tuple(lines), _lossy_noise(noise_dbm_per_hz, cable))
+                freq, level = add_coherent_arrays(freq, level, extra)
+        lines = tuple(zip(freq.tolist(), level.tolist(), strict=True))
+        return InputSpectrum(lines, _lossy_noise(noise_dbm_per_hz, cable))
 
     def source_spurs(self, role: str) -> list[tuple[float, float]]:
         """A source's spurious lines at its DUT port: (frequency Hz, power dBm), after its
@@ -454,26 +467,56 @@ class SimWorld:
         return round(temperature_c / step) * step if step > 0 else temperature_c
 
 
+def add_coherent_arrays(
+    freq_hz: np.ndarray, level_dbm: np.ndarray, extra: Sequence[tuple[float, complex]],
+    tol_hz: float = 1e-3,
+) -> tuple[np.ndarray, np.ndarray]:
+    """Lines (Hz, dBm; taken as phase 0) plus extra lines (Hz, complex sqrt(mW)): one within
+    ``tol_hz`` of a line adds to it as a voltage, the others join the lines."""
+    freq = freq_hz.copy()
+    level = level_dbm.copy()
+    new_f: list[float] = []
+    new_a: list[complex] = []
+    for f, amp in extra:
+        hit = np.flatnonzero(np.abs(freq - f) <= tol_hz)
+        if hit.size:
+            k = int(hit[0])
+            total = abs(10.0 ** (level[k] / 20.0) + amp) ** 2
+            level[k] = 10.0 * math.log10(total) if total > 0 else -math.inf
+            continue
+        for i, f0 in enumerate(new_f):
+            if abs(f0 - f) <= tol_hz:
+                new_a[i] += amp
+                break
+        else:
+            new_f.append(f)
+            new_a.append(amp)
+    if new_f:
+        power = np.abs(np.array(new_a)) ** 2
+        with np.errstate(divide="ignore"):
+            extra_dbm = 10.0 * np.log10(power)
+        freq = np.concatenate([freq, np.array(new_f)])
+        level = np.concatenate([level, extra_dbm])
+    ok = np.isfinite(level)
+    return (freq, level) if ok.all() else (freq[ok], level[ok])
+
+
 def add_coherent(
     lines: Sequence[tuple[float, float]], extra: Sequence[tuple[float, complex]],
     tol_hz: float = 1e-3,
 ) -> list[tuple[float, float]]:
-    """Lines (Hz, dBm; taken as phase 0) plus extra lines (Hz, complex sqrt(mW)): one at the
-    frequency of a line adds to it as a voltage, the others join the list."""
-    out = list(lines)
-    index = {round(f / tol_hz): k for k, (f, _) in enumerate(out)}
-    for f, amp in extra:
-        k = index.get(round(f / tol_hz))
-        if k is None:
-            power = abs(amp) ** 2
-            if power > 0:
-                index[round(f / tol_hz)] = len(out)
-                out.append((f, 10.0 * math.log10(power)))
-            continue
-        f0, p0 = out[k]
-        total = abs(10.0 ** (p0 / 20.0) + amp) ** 2
-        out[k] = (f0, 10.0 * math.log10(total) if total > 0 else -math.inf)
-    return [(f, p) for f, p in out if math.isfinite(p)]
+    """:func:`add_coherent_arrays` on a list of (Hz, dBm) lines."""
+    freq = np.array([f for f, _ in lines], dtype=float)
+    level = np.array([p for _, p in lines], dtype=float)
+    f, p = add_coherent_arrays(freq, level, extra, tol_hz)
+    return list(zip(f.tolist(), p.tolist(), strict=True))
+
+
+def _cable_loss_db(cable: CableLoss, freq_hz: np.ndarray) -> np.ndarray | float:
+    """Loss of ``cable`` at each frequency, dB."""
+    if cable.ref_freq_hz is None:
+        return cable.loss_db
+    return cable.loss_db * np.sqrt(np.maximum(freq_hz, 0.0) / cable.ref_freq_hz)
 
 
 @lru_cache(maxsize=64)
