@@ -302,6 +302,25 @@ def displayed_noise_dbm(
     return _mw_to_dbm(noise(f))
 
 
+def noise_breakdown_mw(
+    freq_hz: float, spectrum: InputSpectrum, settings: SweepSettings, params: AnalyzerParams
+) -> tuple[float, float, float]:
+    """The mean displayed noise at one frequency in its parts, mW in the noise bandwidth:
+    the DANL, the input noise above kT0, and reciprocal mixing (of the lines a sweep with
+    ``settings`` counts: exactly what :func:`simulate_sweep` displays there)."""
+    line_f, line_dbm, _ = _displayed_arrays(spectrum.lines, settings, params)
+    f = np.array([float(freq_hz)])
+    enbw_hz = GAUSSIAN_ENBW_PER_RBW * settings.rbw_hz
+    error = 10.0 ** (params.amplitude_error_db / 10.0)
+    kt0_mw_per_hz = 10.0 ** (KT0_DBM_PER_HZ / 10.0)
+    density_mw = 10.0 ** (spectrum.noise_at(f) / 10.0)
+    excess = float(np.maximum(density_mw - kt0_mw_per_hz, 0.0)[0]) * enbw_hz * error
+    reciprocal = _reciprocal_mw_fn(line_f, line_dbm, settings, params,
+                                   span_hz=(settings.start_hz, settings.stop_hz))
+    return (10.0 ** (danl_dbm(settings, params) / 10.0), excess,
+            float(reciprocal(f)[0]) if reciprocal is not None else 0.0)
+
+
 def reciprocal_mixing_dbm(
     freqs_hz: ArrayLike, lines: Sequence[tuple[float, float]], settings: SweepSettings,
     params: AnalyzerParams,

@@ -431,11 +431,34 @@ def build_sim_instruments(
     meter = PowerMeter(clock, sense=world.sensed_power_dbm, seed=desc.seed + 1)
     world.connect(rf=sources["rf"], rf2=sources["rf2"], lo=sources["lo"], supply=supply,
                   chamber=chamber, switch=switch)
+    truth_line, truth_noise = _truth_hooks(world, analyzer)
     instruments: dict[str, ScpiInstrument] = {
         **sources, "sa": analyzer, "pm": meter, "dc": supply, "chamber": chamber,
-        "switch": switch, "simctl": SimControl(clock),
+        "switch": switch,
+        "simctl": SimControl(clock, truth_line=truth_line, truth_noise=truth_noise),
     }
     return SimInstruments(world, {r: instruments[r] for r in ROLES}, clock, desc)
+
+
+def _truth_hooks(world: SimWorld, analyzer: SpectrumAnalyzer) -> tuple[Any, Any]:
+    """The simulation controller's truth queries on this world and analyzer's settings."""
+    from sweeprig.sim import truth  # the truth module builds on this one
+
+    def line(port: str, freq_hz: float) -> tuple[float, ...] | None:
+        lines = truth.world_port_lines(world, port, analyzer.sweep_settings(),  # type: ignore[arg-type]
+                                       analyzer.params)
+        hit = truth.nearest_line(lines, freq_hz, 1.0)
+        if hit is None:
+            return None
+        return (hit.total_dbm, hit.part_dbm, hit.source_harmonic_dbm, hit.leakage_dbm,
+                hit.analyzer_dbm)
+
+    def noise(port: str, freq_hz: float) -> tuple[float, ...]:
+        got = truth.world_noise(world, port, freq_hz, analyzer.sweep_settings(),  # type: ignore[arg-type]
+                                analyzer.params)
+        return (got.total_dbm, got.danl_dbm, got.input_dbm, got.reciprocal_dbm)
+
+    return line, noise
 
 
 class SimBench:

@@ -185,6 +185,17 @@ class SpurLine:
     role: str
 
 
+@dataclass(frozen=True)
+class EvaluationInputs:
+    """The inputs of one model evaluation: LO and input tones at the DUT ports, supply
+    volts and the die temperature used (degC)."""
+
+    lo: ToneInput | None
+    rf: tuple[ToneInput, ...]
+    supply_v: float
+    temperature_c: float
+
+
 class SwitchChannel(IntEnum):
     """RF switch channels: which DUT port the analyzer sees."""
 
@@ -210,6 +221,7 @@ class SimWorld:
         self._switch: SwitchView | None = None
         self._lock = threading.RLock()
         self._cache: OrderedDict[tuple[object, ...], MixerResponse] = OrderedDict()
+        self._inputs: dict[int, tuple[MixerResponse, EvaluationInputs]] = {}
         self.evaluations = 0  # number of model evaluations (cache misses), for tests
         self._last_input: tuple[MixerResponse, int, InputSpectrum] | None = None
 
@@ -228,6 +240,7 @@ class SimWorld:
             self._sources = {"rf": rf, "rf2": rf2, "lo": lo}
             self._supply, self._chamber, self._switch = supply, chamber, switch
             self._cache.clear()
+            self._inputs.clear()
             self._last_input = None
 
     # --- the DUT's inputs -------------------------------------------------------------
@@ -293,13 +306,23 @@ class SimWorld:
                 return hit
             value = self._evaluate(lo, rf, volts, temperature)
             theta = self.config.self_heating_c_per_w
+            used = temperature
             if theta and value.supply_current_a > 0:
-                heated = self._rounded(temperature + theta * volts * value.supply_current_a)
-                value = self._evaluate(lo, rf, volts, heated)
+                used = self._rounded(temperature + theta * volts * value.supply_current_a)
+                value = self._evaluate(lo, rf, volts, used)
             self._cache[key] = value
+            self._inputs[id(value)] = (value, EvaluationInputs(lo, rf, volts, used))
             while len(self._cache) > _CACHE_ENTRIES:
-                self._cache.popitem(last=False)
+                old = self._cache.popitem(last=False)[1]
+                self._inputs.pop(id(old), None)
             return value
+
+    def evaluation_inputs(self, response: MixerResponse) -> EvaluationInputs | None:
+        """What the model was given for a response this world returned (None when unknown):
+        the truth queries evaluate the part again on exactly these."""
+        with self._lock:
+            hit = self._inputs.get(id(response))
+        return hit[1] if hit is not None and hit[0] is response else None
 
     def _evaluate(
         self, lo: ToneInput | None, rf: tuple[ToneInput, ...], volts: float, temp_c: float
@@ -333,7 +356,10 @@ class SimWorld:
     def analyzer_input(self) -> InputSpectrum:
         """Lines and noise density at the analyzer input for the switch's channel."""
         channel = self._switch.channel if self._switch is not None else SwitchChannel.IF
-        response = self.response()
+        return self.spectrum_for(self.response(), channel)
+
+    def spectrum_for(self, response: MixerResponse, channel: int) -> InputSpectrum:
+        """What reaches the analyzer from a response on a switch channel."""
         last = self._last_input
         if last is not None and last[0] is response and last[1] == channel:
             return last[2]  # the same response on the same channel: the same spectrum
