@@ -23,8 +23,8 @@ total the served bench shows: ``total`` is computed by the same code as the serv
 that is absent is ``-inf``.
 
 :func:`noise` gives the mean displayed noise at a frequency (DANL, the part's output noise in
-the noise bandwidth, the analyzer's reciprocal mixing of the strong lines), the power mean
-(the log-detected trace sits 2.51 dB below it on average).
+the noise bandwidth, the analyzer's reciprocal mixing of the strong lines): the level the
+simulated analyzer's noise trace averages to (its log-detector offsets have zero mean in dB).
 
 The served bench answers the same questions through ``simctl``
 (``SIMulation:TRUTh:LINE? <port>,<freq>``, ``SIMulation:TRUTh:NOISe? <freq>``; see
@@ -282,12 +282,14 @@ def _components(world: SimWorld, response: MixerResponse, port: Port) -> dict[in
     if port == "if":
         # the sources' spurious lines add with their seeded phase relative to the port's
         # line (as the world adds them): rotate them onto that line's phase
+        turns: dict[int, complex] = {}
         for spur in world.spur_lines(response):
             k = _key(spur.freq_hz)
             entry = parts.setdefault(k, _Parts())
-            total = entry.part + entry.harmonic + entry.leakage
-            turn = total / abs(total) if abs(total) > 0 else 1.0
-            entry.harmonic += spur.amplitude * turn
+            if k not in turns:
+                base = entry.part + entry.harmonic + entry.leakage
+                turns[k] = base / abs(base) if abs(base) > 0 else 1.0 + 0j
+            entry.harmonic += spur.amplitude * turns[k]
     return parts
 
 

@@ -501,14 +501,14 @@ def add_coherent_arrays(
     ``tol_hz`` of a line adds to it as a voltage, the others join the lines."""
     freq = freq_hz.copy()
     level = level_dbm.copy()
+    touched: dict[int, complex] = {}  # line index → its amplitude (phase 0) plus extras
     new_f: list[float] = []
     new_a: list[complex] = []
     for f, amp in extra:
-        hit = np.flatnonzero(np.abs(freq - f) <= tol_hz)
+        hit = np.flatnonzero(np.abs(freq_hz - f) <= tol_hz)
         if hit.size:
             k = int(hit[0])
-            total = abs(10.0 ** (level[k] / 20.0) + amp) ** 2
-            level[k] = 10.0 * math.log10(total) if total > 0 else -math.inf
+            touched[k] = touched.get(k, complex(10.0 ** (level_dbm[k] / 20.0))) + amp
             continue
         for i, f0 in enumerate(new_f):
             if abs(f0 - f) <= tol_hz:
@@ -517,6 +517,9 @@ def add_coherent_arrays(
         else:
             new_f.append(f)
             new_a.append(amp)
+    for k, amp in touched.items():
+        total = abs(amp) ** 2
+        level[k] = 10.0 * math.log10(total) if total > 0 else -math.inf
     if new_f:
         power = np.abs(np.array(new_a)) ** 2
         with np.errstate(divide="ignore"):
