@@ -21,6 +21,11 @@ optional; the values shown are the defaults)::
     [sources]
     level_error = true           # the small level error of the simulated sources
     harmonics = ["-35 dBc", "-45 dBc"]
+    # non-harmonic spurious lines at carrier + offset (an assumption: reference-related spurs)
+    spurious = [{ offset = "10 MHz", level = "-72 dBc" }, { offset = "-10 MHz", level = "-72 dBc" }]
+
+    [sources.lowpass]            # optional low-pass filter at a source output (none by default)
+    # rf = { corner = "3 GHz", order = 7 }   # Butterworth, -3 dB at corner; also rf2, lo
 
     [analyzer]
     noise_figure = "14 dB"       # at 0 dB attenuation
@@ -29,6 +34,12 @@ optional; the values shown are the defaults)::
     p1db = "3 dBm"               # first-mixer 1 dB compression
     overload = "0 dBm"           # first-mixer level that raises the overload flag
     amplitude_error = "0 dB"
+    coherent_products = true     # its products add to lines at their frequency as voltages
+    phase_noise = [              # its LO phase noise (an assumption for a mid-range analyzer)
+      { offset = "100 Hz", level = "-84 dBc/Hz" }, { offset = "1 kHz", level = "-98 dBc/Hz" },
+      { offset = "10 kHz", level = "-106 dBc/Hz" }, { offset = "100 kHz", level = "-116 dBc/Hz" },
+      { offset = "1 MHz", level = "-135 dBc/Hz" }, { offset = "10 MHz", level = "-145 dBc/Hz" },
+    ]
 
     [chamber]
     ambient = "23 degC"
@@ -38,11 +49,22 @@ optional; the values shown are the defaults)::
     [dut]
     self_heating_c_per_w = 0.0   # die temperature rise per watt of supply power
     unpowered = { rf_to_if = "45 dB", lo_to_if = "40 dB", lo_to_rf = "35 dB", below = "0.5 V" }
+    leakage_phase = true         # each leakage path gets a seeded phase φ0 − 2π·f·τ
+    leakage_delay = "1.5 ns"     # the longest τ of those paths
 
     [[faults]]                   # planned faults, see sweeprig.sim.faults
     role = "sa"
     kind = "timeout"
     at_command = 40
+
+Realism (each key above has a realistic default; docs/sim-bench.md explains them):
+``[sources] spurious`` (non-harmonic lines at carrier + offset, dBc) and
+``[sources.lowpass]`` (a Butterworth low-pass per source: ``corner``, ``order``);
+``[analyzer] phase_noise`` ((offset, dBc/Hz) points: reciprocal mixing) and
+``coherent_products`` (its first-mixer products add to lines as voltages with a seeded
+phase); ``[dut] leakage_phase`` and ``leakage_delay`` (each leakage path of the part turns
+its line by φ0 − 2π·f·τ, seeded from ``seed``). What is truly at each port:
+:mod:`sweeprig.sim.truth`.
 
 Roles served: ``rf``, ``rf2``, ``lo`` (sources), ``sa`` (analyzer), ``pm`` (power meter),
 ``dc`` (supply), ``chamber``, ``switch``, ``simctl``.
