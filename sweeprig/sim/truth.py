@@ -350,6 +350,12 @@ def _static_world(desc: SimBenchDescription, drive: Drive, port: Port) -> SimWor
                        spurious)
 
     temperature = desc.chamber.ambient if drive.temperature_c is None else drive.temperature_c
+    numbers = (drive.lo_freq_hz, drive.lo_power_dbm, drive.rf_freq_hz, drive.rf_power_dbm,
+               drive.rf2_freq_hz, drive.rf2_power_dbm, drive.supply_v, temperature)
+    if not all(math.isfinite(v) for v in numbers if v is not None):
+        raise InputError(f"the drive has a value that is not a finite number: {drive}",
+                         where="truth.Drive",
+                         fix="give finite numbers (None for a source that is off)")
     world.connect(
         rf=source(drive.rf_freq_hz, drive.rf_power_dbm),
         rf2=source(drive.rf2_freq_hz, drive.rf2_power_dbm),
