@@ -19,7 +19,8 @@ the sources' spurious lines (``WorldConfig.spur_phase_seed``), the same on every
 
 Sources' spurious lines (non-harmonic, at carrier + offset) are small: the world carries them
 through the part linearly instead of giving each its own tone to the mixer model. An RF
-source's spur converts to the output at the part's small-signal conversion gain (at
+source's spur converts to the output at the part's small-signal conversion gain and its
+ports' band edges (at
 |f_spur − f_LO| for a downconverter, f_spur + f_LO for an up); an LO spur converts each input
 tone with the same gain, at its own dBc (LO spurs transfer dB for dB onto the output of a
 hard-switched mixer: common practice, no source). A spur line that falls on a part line adds
@@ -420,21 +421,35 @@ class SimWorld:
         if gain_db is None or not math.isfinite(gain_db) or lo is None:
             return []
         up = getattr(self.part, "conversion", "down") == "up"
+        in_port = getattr(self.part, "input_port", None)
+        out_port = getattr(self.part, "output_port", None)
         out: list[SpurLine] = []
 
         def converted(f_in: float, f_lo: float) -> float:
             return f_in + f_lo if up else abs(f_in - f_lo)
 
+        def edges_db(f_in: float, f_out: float) -> float:
+            """The ports' band edges at the spur's input and output frequencies (the
+            notes' gain is mid-band), dB."""
+            if in_port is None or out_port is None:
+                return 0.0
+            mag = in_port.scalar_magnitude(f_in) * out_port.scalar_magnitude(f_out)
+            return 20.0 * math.log10(mag) if mag > 0 else -math.inf
+
         for r, role in enumerate(("rf", "rf2")):
             for j, (f, p) in enumerate(self.source_spurs(role)):
-                out.append(self._spur(converted(f, lo.freq_hz), p + gain_db, role, r, j))
+                f_out = converted(f, lo.freq_hz)
+                out.append(self._spur(f_out, p + gain_db + edges_db(f, f_out), role, r, j))
         lo_spurs = self.source_spurs("lo")
         if lo_spurs:
             for tone in self.rf_inputs():
                 for j, (f, p) in enumerate(lo_spurs):
-                    level = tone.power_dbm + gain_db + (p - lo.power_dbm)
-                    out.append(self._spur(converted(tone.freq_hz, f), level, "lo", 2, j))
-        return [s for s in out if s.freq_hz > 0]
+                    f_out = converted(tone.freq_hz, f)
+                    level = (tone.power_dbm + gain_db + edges_db(tone.freq_hz, f_out)
+                             + (p - lo.power_dbm))
+                    out.append(self._spur(f_out, level, "lo", 2, j))
+        return [s for s in out if s.freq_hz > 0 and math.isfinite(abs(s.amplitude))
+                and abs(s.amplitude) > 0]
 
     def _spur(self, freq_hz: float, power_dbm: float, role: str, r: int, j: int) -> SpurLine:
         phase0, delay = _spur_phase_law(self.config.spur_phase_seed, self.config.spur_delay_s,

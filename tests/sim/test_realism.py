@@ -276,3 +276,27 @@ def test_phase_noise_profile_in_the_description_is_checked(tmp_path) -> None:
     with pytest.raises(InputError) as info:
         load_sim_bench_description(path)
     assert "dBc/Hz" in info.value.what
+
+
+def test_source_spurs_convert_to_the_output_at_the_parts_gain() -> None:
+    from sweeprig.sim import truth
+
+    clean = {"part": "kx-2417", "sources": {"level_error": False, "harmonics": []},
+             "dut": {"leakage_phase": False}}
+    spur = {**clean, "sources": {**clean["sources"],
+                                 "spurious": [{"offset": "7 MHz", "level": "-60 dBc"}]}}
+    drive = truth.Drive(lo_freq_hz=2.1e9, lo_power_dbm=2.0, rf_freq_hz=2.2e9,
+                        rf_power_dbm=-27.0)
+    desc = SimBenchDescription.model_validate(spur)
+    line = truth.line_at(desc, drive, "if", 107e6)
+    wanted = truth.line_at(desc, drive, "if", 100e6)
+    assert line is not None and wanted is not None
+    # an RF spur −60 dBc converts like the tone (small-signal gain): −60 dBc of the wanted
+    # line, up to the gain's flatness over 7 MHz (mid-band gain used for the spur)
+    assert line.total_dbm - wanted.total_dbm == pytest.approx(-60.0, abs=0.1)
+    assert line.source_harmonic_dbm == pytest.approx(line.total_dbm, abs=0.01)
+    # the LO source's spur moves the converted tone by its offset: |f_rf − (f_lo + 7 MHz)|
+    assert truth.line_at(desc, drive, "if", 93e6) is not None
+    nothing = truth.line_at(SimBenchDescription.model_validate(
+        {**clean, "sources": {**clean["sources"], "spurious": []}}), drive, "if", 107e6)
+    assert nothing is None or nothing.total_dbm < line.total_dbm - 40.0
