@@ -93,6 +93,7 @@ from sweeprig.sim.mixer.multitone import (
     Lines,
     LoFactor,
     RfFactor,
+    add_lines,
     combine,
     concat_lines,
     lo_factor,
@@ -104,7 +105,7 @@ from sweeprig.sim.mixer.network import band_magnitude, reflection_magnitude
 from sweeprig.sim.mixer.realism import (
     LeakagePhases,
     LeakPhase,
-    common_mode_im2_entries,
+    common_mode_im2_lines,
     lo_drive_noise_factor,
     switch_overlap_fraction,
 )
@@ -591,18 +592,6 @@ class MixerPart:
             state.min_abs_a,
         )
         n_axes = 1 + len(tones)
-        imbalance = self.load_mismatch + lo_prep.d0
-        if tones and self.cm_second_order and imbalance:
-            components = [
-                (h * t.freq_hz, a, h * t.phase_rad, _unit_orders(n_axes, 1 + k, h))
-                for k, (t, tone_amps) in enumerate(zip(tones, amps, strict=True))
-                for h, a in enumerate(tone_amps, start=1)
-            ]
-            a_v = 2.0 * cell.vt_v + cell.i_ee_a * cell.r_e_ohm
-            cm = common_mode_im2_entries(components, cell.i_ee_a, a_v, self.cm_second_order,
-                                         imbalance)
-            if cm:
-                core = concat_lines([core, _entries_to_lines(cm, n_axes)])
         amp = core.amp * state.out_scale
         if out.highpass_hz is not None or out.lowpass_hz is not None:
             amp *= out.magnitude(core.freq_hz)
@@ -613,6 +602,23 @@ class MixerPart:
         else:
             core = Lines(core.freq_hz, amp, core.orders)
         core = merge_coincident(core)
+        imbalance = self.load_mismatch + lo_prep.d0
+        if tones and self.cm_second_order and imbalance:
+            cm = common_mode_im2_lines(
+                np.array([h * t.freq_hz for t, a in zip(tones, amps, strict=True)
+                          for h in range(1, len(a) + 1)]),
+                np.array([v for a in amps for v in a]),
+                np.array([h * t.phase_rad for t, a in zip(tones, amps, strict=True)
+                          for h in range(1, len(a) + 1)]),
+                tuple(len(a) for a in amps), n_axes, cell.i_ee_a,
+                2.0 * cell.vt_v + cell.i_ee_a * cell.r_e_ohm, self.cm_second_order, imbalance,
+            )
+            if cm is not None:
+                cm_freq, cm_amp, cm_orders = cm
+                cm_amp = cm_amp * state.out_scale
+                if out.highpass_hz is not None or out.lowpass_hz is not None:
+                    cm_amp = cm_amp * out.magnitude(cm_freq)
+                core = add_lines(core, Lines(cm_freq, cm_amp, cm_orders))
         phases = self.leakage_phases
         in_entries: list[_Entry] = []
         lo_entries: list[_Entry] = []

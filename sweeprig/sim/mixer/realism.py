@@ -8,7 +8,7 @@ Three small, pure pieces the part's evaluation uses (units in names, SI inside):
   line at the same frequency as a voltage whose relative phase changes with frequency:
   isolation ripples with frequency, as on hardware. :func:`seeded_leakage_phases` draws them
   reproducibly from a seed.
-* :func:`common_mode_im2_entries`: second-order lines from the transconductor's common-mode
+* :func:`common_mode_im2_lines`: second-order lines from the transconductor's common-mode
   current. A real input stage's common-mode current moves with the square of the signal;
   that current reaches the differential output through the load-resistor mismatch ε and
   through the quad's DC imbalance D_0 (offsets): ``out += (i_cm/2)·(ε + D_0)`` (derived in
@@ -27,10 +27,12 @@ from __future__ import annotations
 
 import cmath
 import math
-from collections.abc import Sequence
 from dataclasses import dataclass
+from functools import lru_cache
+from typing import Any
 
 import numpy as np
+from numpy.typing import NDArray
 
 #: Both transistors of a bipolar pair count as conducting while |v_LO| < 4·VT
 #: (tanh(2) = 0.96: each carries more than 2 % of the current; a chosen threshold, common
@@ -78,51 +80,69 @@ def seeded_leakage_phases(seed: int, max_delay_s: float) -> LeakagePhases:
     return LeakagePhases(**paths)
 
 
-Entry = tuple[float, complex, tuple[int, ...]]
+@lru_cache(maxsize=64)
+def _cm_layout(harmonics_per_tone: tuple[int, ...], n_axes: int) -> tuple[Any, ...]:
+    """Index arrays and order tuples of the common-mode lines for a layout of input
+    components (tone k carries harmonics 1..harmonics_per_tone[k] on axis 1 + k)."""
+    rows = []
+    for k, count in enumerate(harmonics_per_tone):
+        for h in range(1, count + 1):
+            row = [0] * n_axes
+            row[1 + k] = h
+            rows.append(row)
+    orders = np.array(rows, dtype=np.int64).reshape(-1, n_axes)
+    iu, ju = np.triu_indices(len(rows), 1)
+
+    def tuples(block: NDArray[np.int64]) -> NDArray[np.object_]:
+        out = np.empty(len(block), dtype=object)
+        out[:] = [tuple(r) for r in block.tolist()]
+        return out
+
+    return (iu, ju, tuples(2 * orders), tuples(orders[iu] + orders[ju]),
+            tuples(orders[iu] - orders[ju]), tuples(orders[ju] - orders[iu]))
 
 
-def common_mode_im2_entries(
-    components: Sequence[tuple[float, float, float, tuple[int, ...]]],
+def common_mode_im2_lines(
+    freq_hz: NDArray[np.float64],
+    amp_v: NDArray[np.float64],
+    phase_rad: NDArray[np.float64],
+    harmonics_per_tone: tuple[int, ...],
+    n_axes: int,
     i_ee_a: float,
     a_v: float,
     cm_second_order: float,
     imbalance: float,
-) -> list[Entry]:
-    """Second-order lines of the common-mode path, peak differential output current (A).
+) -> tuple[NDArray[np.float64], NDArray[np.complex128], NDArray[np.object_]] | None:
+    """Second-order lines of the common-mode path: (freq Hz, peak differential output
+    current A as complex, orders), or None when there are none.
 
-    ``components``: every input line at the core as (freq Hz, peak V, phase rad, orders).
-    The transconductor's common-mode current is ``i_cm = c2·I_EE·u²`` with the pair's
-    normalised input ``u = v/a`` (a = 2·VT + I_EE·R_E, small-signal inversion of the pair
-    equation). With the branch currents ``(I_EE + i_cm ± ΔI)/2`` the quad's differential
-    output gains ``(i_cm/2)·D`` and the load mismatch ``ε`` turns the common-mode current
-    into ``ε·i_cm/2`` (derived: ``R(1+ε/2)·I₊ − R(1−ε/2)·I₋``), so
-    ``out += (c2·I_EE/(2·a²))·(ε + D_0)·v²``, v = Σ A_c·cos θ_c. Squaring gives
-    ``K·A_c·A_d`` at f_c ± f_d and ``K·A_c²/2`` at 2·f_c (K = c2·I_EE·(ε + D_0)/(2·a²)).
-    The quad's LO-frequency parts of D move these lines next to the LO harmonics, far from
-    the output band; they are left out.
+    The inputs are every input line at the core (freq, peak V, phase), tone by tone, in the
+    layout ``harmonics_per_tone``. The transconductor's common-mode current is
+    ``i_cm = c2·I_EE·u²`` with the pair's normalised input ``u = v/a`` (a = 2·VT + I_EE·R_E,
+    small-signal inversion of the pair equation). With the branch currents
+    ``(I_EE + i_cm ± ΔI)/2`` the quad's differential output gains ``(i_cm/2)·D`` and the load
+    mismatch ε turns the common-mode current into ``ε·i_cm/2`` (derived:
+    ``R(1+ε/2)·I₊ − R(1−ε/2)·I₋``), so ``out += (c2·I_EE/(2·a²))·(ε + D_0)·v²``,
+    v = Σ A_c·cos θ_c. Squaring gives ``K·A_c·A_d`` at f_c ± f_d and ``K·A_c²/2`` at 2·f_c
+    (K = c2·I_EE·(ε + D_0)/(2·a²)). The quad's LO-frequency parts of D move these lines next
+    to the LO harmonics, far from the output band; they are left out.
     """
     k = cm_second_order * i_ee_a * imbalance / (2.0 * a_v * a_v)
-    if k == 0.0 or not components:
-        return []
-    out: list[Entry] = []
-    n = len(components)
-    for i in range(n):
-        fi, ai, pi, oi = components[i]
-        out.append((2.0 * fi, cmath.rect(0.5 * k * ai * ai, 2.0 * pi),
-                    tuple(2 * x for x in oi)))
-        for j in range(i + 1, n):
-            fj, aj, pj, oj = components[j]
-            amp = k * ai * aj
-            out.append((fi + fj, cmath.rect(amp, pi + pj), tuple(x + y for x, y in zip(
-                oi, oj, strict=True))))
-            if abs(fi - fj) > 1e-3:
-                if fi >= fj:
-                    out.append((fi - fj, cmath.rect(amp, pi - pj),
-                                tuple(x - y for x, y in zip(oi, oj, strict=True))))
-                else:
-                    out.append((fj - fi, cmath.rect(amp, pj - pi),
-                                tuple(y - x for x, y in zip(oi, oj, strict=True))))
-    return [e for e in out if abs(e[1]) > 0.0]
+    if k == 0.0 or freq_hz.size == 0:
+        return None
+    iu, ju, sq_o, sum_o, dpos_o, dneg_o = _cm_layout(harmonics_per_tone, n_axes)
+    pair = k * amp_v[iu] * amp_v[ju]
+    diff = freq_hz[iu] - freq_hz[ju]
+    pos = diff >= 0.0
+    far = np.abs(diff) > 1e-3
+    freq = np.concatenate([2.0 * freq_hz, freq_hz[iu] + freq_hz[ju], np.abs(diff[far])])
+    mag = np.concatenate([0.5 * k * amp_v * amp_v, pair, pair[far]])
+    phase = np.concatenate([
+        2.0 * phase_rad, phase_rad[iu] + phase_rad[ju],
+        np.where(pos, 1.0, -1.0)[far] * (phase_rad[iu] - phase_rad[ju])[far]])
+    orders = np.concatenate([sq_o, sum_o, np.where(pos, dpos_o, dneg_o)[far]])
+    amp = mag * np.exp(1j * phase)
+    return freq, amp, orders
 
 
 def switch_overlap_fraction(lo_amplitude_v: float, vt_v: float) -> float:
