@@ -26,6 +26,7 @@ from sweeprig.sim.analyzer_display import (
 from sweeprig.sim.bench import SimBenchDescription, prepare_part
 from sweeprig.sim.mixer import OperatingPoint, ToneInput, load_part, reference_figures
 from sweeprig.sim.mixer.realism import (
+    LeakagePhases,
     LeakPhase,
     lo_drive_noise_factor,
     seeded_leakage_phases,
@@ -92,8 +93,7 @@ def test_leakage_phase_turns_with_frequency_so_the_lo_line_at_if_ripples() -> No
     bounds |a| ± |b|, instead of one fixed level."""
     part = load_part("kx-2417")
     delay = 2e-9
-    turned = part.with_changes(leakage_phases=seeded_leakage_phases(1, delay).__class__(
-        lo_to_if=LeakPhase(0.3, delay)))
+    turned = part.with_changes(leakage_phases=LeakagePhases(lo_to_if=LeakPhase(0.3, delay)))
     levels = []
     for f_lo in np.linspace(2.0e9, 2.5e9, 11):
         lo = ToneInput(float(f_lo), 0.0)
