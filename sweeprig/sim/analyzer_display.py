@@ -9,11 +9,16 @@ The chain modelled, per sweep:
 1. Input lines (frequency, power) pass the input attenuator and reach the first mixer.
 2. The first mixer compresses on its total input power (a soft ``1/(1 + P/Pc)`` power law) and
    adds its own 2nd- and 3rd-order products of the strongest lines, with levels from its
-   intercepts; all of it is referred back to the input by adding the attenuation.
+   intercepts; all of it is referred back to the input by adding the attenuation. A product
+   that falls on an input line adds to it as a voltage, with a phase of its own
+   (``φ_kind − 2π·f·τ_kind``, seeded by ``product_phase_seed``): it can raise the line by up
+   to 6.02 dB or cancel it, as on a real analyzer (``coherent_products=False``: as powers).
 3. Each line is shaped by a Gaussian resolution filter (−3 dB at ±RBW/2).
 4. Noise: the analyzer's own displayed average noise level (DANL) plus the input noise density
-   integrated over the filter's noise bandwidth; the trace fluctuates like a log-detected
-   noise trace and averaging (and video filtering) smooths it.
+   integrated over the filter's noise bandwidth, plus reciprocal mixing: the analyzer's LO
+   phase noise L(Δf) (``phase_noise``, log-interpolated) moves every strong line's power
+   onto its neighbourhood, ``P_line + L(Δf) + 10·log10(ENBW)``; the trace fluctuates like a
+   log-detected noise trace and averaging (and video filtering) smooths it.
 """
 
 from __future__ import annotations
@@ -21,6 +26,7 @@ from __future__ import annotations
 import math
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
+from functools import lru_cache
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -53,6 +59,24 @@ LOG_NOISE_STD_DB = 10.0 / math.log(10.0) * math.pi / math.sqrt(6.0)
 IM2_ABOVE_H2_DB = 20.0 * math.log10(2.0)
 H3_BELOW_IM3_DB = 20.0 * math.log10(3.0)
 
+# The analyzer's own LO phase noise, single-sideband, as (offset Hz, dBc/Hz): an assumption
+# for a mid-range swept analyzer near 1 GHz (invented figures in the range such analyzers
+# state; no source). Between points it is interpolated linearly in dB versus log10(offset);
+# below the first offset it holds the first value, above the last the last.
+DEFAULT_PHASE_NOISE: tuple[tuple[float, float], ...] = (
+    (100.0, -84.0), (1e3, -98.0), (1e4, -106.0), (1e5, -116.0), (1e6, -135.0), (1e7, -145.0),
+)
+# Reciprocal mixing is summed over at most this many of the strongest lines, and only over
+# lines whose close-in noise could reach within 30 dB of the DANL.
+_PHASE_NOISE_LINES = 8
+_PHASE_NOISE_REACH_DB = 30.0
+# First-mixer products within this of an input line add to it (same as the mixer model).
+_COINCIDENT_HZ = 1e-3
+_LN2 = math.log(2.0)
+_LN10_OVER_10 = math.log(10.0) / 10.0
+# Product kinds, each with its own seeded phase law.
+_KINDS = ("h2", "h3", "im2", "im3")
+
 # Above this many averages the mean of the log-detected samples is drawn from its normal
 # limit (central limit theorem) instead of being summed sample by sample.
 _EXACT_AVERAGE_LIMIT = 32
@@ -79,6 +103,12 @@ class AnalyzerParams:
     ``p1db_dbm``: first-mixer input 1 dB compression point.
     ``overload_dbm``: total first-mixer power above which the overload flag is raised.
     ``amplitude_error_db``: fixed error added to every displayed level (0: ideal).
+    ``phase_noise``: the analyzer's LO phase noise as (offset Hz, dBc/Hz) pairs, offsets
+    rising (empty: none; default :data:`DEFAULT_PHASE_NOISE`, an assumption).
+    ``coherent_products``: first-mixer products add to input lines at their frequency as
+    voltages with a seeded phase (False: as powers). ``product_phase_seed``: that seed.
+    ``product_delay_s``: the largest delay of the seeded phase laws (φ0 − 2π·f·τ, τ drawn
+    in [0.2, 1]·product_delay_s).
     """
 
     noise_figure_db: float = 14.0
@@ -87,6 +117,23 @@ class AnalyzerParams:
     p1db_dbm: float = 3.0
     overload_dbm: float = 0.0
     amplitude_error_db: float = 0.0
+    phase_noise: tuple[tuple[float, float], ...] = DEFAULT_PHASE_NOISE
+    coherent_products: bool = True
+    product_phase_seed: int = 0
+    product_delay_s: float = 2e-9
+
+    def phase_noise_dbc_per_hz(self, offset_hz: ArrayLike) -> FloatArray:
+        """L(offset) in dBc/Hz, log-interpolated (−inf everywhere without a profile)."""
+        off = np.abs(np.asarray(offset_hz, dtype=float))
+        if not self.phase_noise:
+            return np.full(off.shape, -math.inf)
+        xs, ys = _phase_noise_table(self.phase_noise)
+        return np.interp(np.log10(np.maximum(off, 1e-6)), xs, ys)
+
+    def product_rotation(self, kind: str, freq_hz: float) -> complex:
+        """The seeded phase factor of a first-mixer product of ``kind`` at ``freq_hz``."""
+        phase0, delay = _product_phase_law(self.product_phase_seed, self.product_delay_s)[kind]
+        return complex(np.exp(1j * (phase0 - 2.0 * math.pi * freq_hz * delay)))
 
 
 @dataclass(frozen=True)
@@ -237,13 +284,154 @@ def danl_dbm(settings: SweepSettings, params: AnalyzerParams) -> float:
 def displayed_noise_dbm(
     freqs_hz: ArrayLike, spectrum: InputSpectrum, settings: SweepSettings, params: AnalyzerParams
 ) -> FloatArray:
-    """Mean displayed noise level (dBm) at ``freqs_hz``: DANL plus the input noise.
+    """Mean displayed noise level (dBm) at ``freqs_hz``: DANL, input noise, reciprocal mixing.
 
     The input noise density is taken as flat across one RBW; its excess above kT0 (the DANL
     already holds a matched input's kT0) is integrated over the Gaussian filter's noise
-    bandwidth, ENBW = 1.0645·RBW (derived above).
+    bandwidth, ENBW = 1.0645·RBW (derived above). Reciprocal mixing adds, for every strong
+    displayed line, ``P_line + L(|f − f_line|) + 10·log10(ENBW)`` (the analyzer's LO phase
+    noise moved onto the line; the reciprocal-mixing relation of spectrum-analyzer
+    application notes, e.g. "Spectrum Analysis Basics", an application note of a
+    test-equipment maker, from memory), faded out within about one RBW of the line, where
+    the line's own displayed shape already holds its phase noise (a chosen model, no
+    source). Unlike a sweep, every line counts here (no pruning to the strongest).
     """
-    return _mw_to_dbm(_noise_mw_fn(spectrum, settings, params)(np.asarray(freqs_hz, float)))
+    f = np.asarray(freqs_hz, float)
+    line_f, line_dbm, _ = _displayed_arrays(spectrum.lines, settings, params)
+    noise = _noise_mw_fn(spectrum, settings, params, line_f, line_dbm, span_hz=None)
+    return _mw_to_dbm(noise(f))
+
+
+def noise_breakdown_mw(
+    freq_hz: float, spectrum: InputSpectrum, settings: SweepSettings, params: AnalyzerParams
+) -> tuple[float, float, float]:
+    """The mean displayed noise at one frequency in its parts, mW in the noise bandwidth:
+    the DANL, the input noise above kT0, and reciprocal mixing (of the lines a sweep with
+    ``settings`` counts: exactly what :func:`simulate_sweep` displays there)."""
+    line_f, line_dbm, _ = _displayed_arrays(spectrum.lines, settings, params)
+    f = np.array([float(freq_hz)])
+    enbw_hz = GAUSSIAN_ENBW_PER_RBW * settings.rbw_hz
+    error = 10.0 ** (params.amplitude_error_db / 10.0)
+    kt0_mw_per_hz = 10.0 ** (KT0_DBM_PER_HZ / 10.0)
+    density_mw = 10.0 ** (spectrum.noise_at(f) / 10.0)
+    excess = float(np.maximum(density_mw - kt0_mw_per_hz, 0.0)[0]) * enbw_hz * error
+    reciprocal = _reciprocal_mw_fn(line_f, line_dbm, settings, params,
+                                   span_hz=(settings.start_hz, settings.stop_hz))
+    return (10.0 ** (danl_dbm(settings, params) / 10.0), excess,
+            float(reciprocal(f)[0]) if reciprocal is not None else 0.0)
+
+
+def reciprocal_mixing_dbm(
+    freqs_hz: ArrayLike, lines: Sequence[tuple[float, float]], settings: SweepSettings,
+    params: AnalyzerParams,
+) -> FloatArray:
+    """Reciprocal-mixing noise alone (dBm in the RBW's noise bandwidth) at ``freqs_hz`` from
+    displayed ``lines`` (frequency Hz, dBm); −inf where there is none."""
+    f = np.asarray(freqs_hz, dtype=float)
+    line_f = np.array([x for x, _ in lines], dtype=float)
+    line_dbm = np.array([p for _, p in lines], dtype=float)
+    fn = _reciprocal_mw_fn(line_f, line_dbm, settings, params, span_hz=None)
+    if fn is None:
+        return np.full(f.shape, -math.inf)
+    return _mw_to_dbm(fn(f))
+
+
+_KIND_CODES = {kind: k for k, kind in enumerate(_KINDS)}
+
+
+@dataclass(frozen=True)
+class FirstMixerProduct:
+    """One first-mixer product, input-referred: frequency (Hz), complex amplitude
+    (sqrt(mW), with its seeded phase) and kind (``h2``, ``h3``, ``im2``, ``im3``)."""
+
+    freq_hz: float
+    amplitude: complex
+    kind: str
+
+    @property
+    def power_dbm(self) -> float:
+        return _mw_to_dbm_scalar(abs(self.amplitude) ** 2)
+
+
+@dataclass(frozen=True, eq=False)
+class FirstMixer:
+    """The first mixer's view of the input lines, input-referred.
+
+    ``line_freq_hz``/``line_dbm``: the input lines after compression; ``product_freq_hz``,
+    ``product_amp`` (complex sqrt(mW)), ``product_kind`` (index into h2, h3, im2, im3): its
+    own products; ``total_dbm``: total power at the first mixer (not input-referred);
+    ``compression_db``: the gain change of every line (≤ 0).
+    """
+
+    line_freq_hz: FloatArray
+    line_dbm: FloatArray
+    product_freq_hz: FloatArray
+    product_amp: NDArray[np.complex128]
+    product_kind: NDArray[np.intp]
+    total_dbm: float
+    compression_db: float
+
+    @property
+    def lines(self) -> tuple[tuple[float, float], ...]:
+        """The compressed input lines as (Hz, dBm)."""
+        return tuple(zip(self.line_freq_hz.tolist(), self.line_dbm.tolist(), strict=True))
+
+    @property
+    def products(self) -> tuple[FirstMixerProduct, ...]:
+        """The first mixer's own products."""
+        return tuple(
+            FirstMixerProduct(f, complex(a), _KINDS[k]) for f, a, k in zip(
+                self.product_freq_hz.tolist(), self.product_amp.tolist(),
+                self.product_kind.tolist(), strict=True))
+
+
+_EMPTY = np.zeros(0)
+
+
+def first_mixer(
+    lines: Sequence[tuple[float, float]], settings: SweepSettings, params: AnalyzerParams
+) -> FirstMixer:
+    """Compression and products of the first mixer (see :func:`first_mixer_lines`)."""
+    att = settings.attenuation_db
+    if len(lines):
+        arr = np.asarray(lines, dtype=float).reshape(-1, 2)
+        ok = (arr[:, 0] > 0) & np.isfinite(arr[:, 1])
+        freqs, input_dbm = arr[ok, 0], arr[ok, 1]
+    else:
+        freqs = input_dbm = _EMPTY
+    if freqs.size == 0:
+        return FirstMixer(_EMPTY, _EMPTY, _EMPTY, np.zeros(0, complex), np.zeros(0, np.intp),
+                          -math.inf, 0.0)
+    mixer_dbm = input_dbm - att
+    total_mw = float(np.sum(10.0 ** (mixer_dbm / 10.0)))
+    total_dbm = _mw_to_dbm_scalar(total_mw)
+    # Soft compression on total power: power gain 1/(1 + P/Pc), -1 dB when P = P1dB, so
+    # Pc = P1dB / (10^0.1 - 1) (a chosen model, no source).
+    pc_mw = 10.0 ** (params.p1db_dbm / 10.0) / (10.0**0.1 - 1.0)
+    compression_db = -10.0 * math.log10(1.0 + total_mw / pc_mw)
+
+    top = np.argsort(mixer_dbm)[::-1][:_DISTORTION_LINES]
+    fi, pi = freqs[top], mixer_dbm[top]
+    toi, shi = params.toi_dbm, params.shi_dbm
+    iu, ju = np.triu_indices(fi.size, 1)
+    ia, ib = np.nonzero(~np.eye(fi.size, dtype=bool))
+    im2 = pi[iu] + pi[ju] - (shi - IM2_ABOVE_H2_DB)
+    im3 = 2.0 * pi[ia] + pi[ib] - 2.0 * toi
+    prod_f = np.concatenate([
+        2.0 * fi, 3.0 * fi, fi[iu] + fi[ju], np.abs(fi[iu] - fi[ju]),
+        np.abs(2.0 * fi[ia] - fi[ib]), 2.0 * fi[ia] + fi[ib]])
+    prod_p = np.concatenate([
+        2.0 * pi - shi, 3.0 * pi - 2.0 * toi - H3_BELOW_IM3_DB, im2, im2, im3, im3])
+    kinds = np.concatenate([
+        np.full(fi.size, 0), np.full(fi.size, 1), np.full(2 * iu.size, 2),
+        np.full(2 * ia.size, 3)]).astype(np.intp)
+    keep = (prod_f > 0) & (prod_p > _PRODUCT_FLOOR_DBM)
+    prod_f, prod_p, kinds = prod_f[keep], prod_p[keep], kinds[keep]
+    phase0, delay = _product_phase_arrays(params.product_phase_seed, params.product_delay_s)
+    amp = 10.0 ** ((prod_p + att) / 20.0) * np.exp(
+        1j * (phase0[kinds] - 2.0 * math.pi * prod_f * delay[kinds]))
+    return FirstMixer(freqs, input_dbm + compression_db, prod_f, amp, kinds, total_dbm,
+                      compression_db)
 
 
 def first_mixer_lines(
@@ -251,51 +439,70 @@ def first_mixer_lines(
 ) -> tuple[list[tuple[float, float]], float]:
     """Lines as displayed (input-referred, dBm) after the attenuator and the first mixer.
 
-    Returns the compressed input lines plus the first mixer's own products, and the total
-    first-mixer power in dBm. Products at the mixer (levels P in dBm at the mixer):
+    Returns the compressed input lines with the first mixer's own products added, and the
+    total first-mixer power in dBm. Products at the mixer (levels P in dBm at the mixer):
     2f1±f2: 2·P1 + P2 − 2·TOI; 3f1: 3·P1 − 2·TOI − 9.54; f1±f2: P1 + P2 − (SHI − 6.02);
     2f1: 2·P1 − SHI (intercept laws, Razavi nonlinearity chapter; the harmonic offsets are
     derived above). Referring them back to the input adds the attenuation, so 10 dB more
     attenuation drops a 3rd-order product by 20 dB and a 2nd-order one by 10 dB, while the
-    input lines keep their displayed level (common practice, no source).
+    input lines keep their displayed level (the classic spectrum-analyzer dynamic-range
+    relations: distortion rises 2 dB (3 dB) per dB of mixer level for 2nd (3rd) order,
+    "Spectrum Analysis Basics", an application note of a test-equipment maker, from memory).
+    Lines and products at one frequency add as voltages with the products' seeded phases
+    (``params.coherent_products``), else as powers.
     """
-    att = settings.attenuation_db
-    valid = [(float(f), float(p)) for f, p in lines if f > 0 and math.isfinite(p)]
-    if not valid:
-        return [], -math.inf
-    freqs = np.array([f for f, _ in valid])
-    mixer_dbm = np.array([p for _, p in valid]) - att
-    total_mw = float(np.sum(10.0 ** (mixer_dbm / 10.0)))
-    total_dbm = _mw_to_dbm_scalar(total_mw)
-    # Soft compression on total power: power gain 1/(1 + P/Pc), -1 dB when P = P1dB, so
-    # Pc = P1dB / (10^0.1 - 1) (a chosen model, no source).
-    pc_mw = 10.0 ** (params.p1db_dbm / 10.0) / (10.0**0.1 - 1.0)
-    compression_db = -10.0 * math.log10(1.0 + total_mw / pc_mw)
-    out = [
-        (float(f), float(p + compression_db + att))
-        for f, p in zip(freqs, mixer_dbm, strict=True)
-    ]
+    f, p, total = _displayed_arrays(lines, settings, params)
+    return list(zip(f.tolist(), p.tolist(), strict=True)), total
 
-    order = np.argsort(mixer_dbm)[::-1][:_DISTORTION_LINES]
-    toi, shi = params.toi_dbm, params.shi_dbm
-    products: list[tuple[float, float]] = []
-    for a_idx, i in enumerate(order):
-        fi, pi = float(freqs[i]), float(mixer_dbm[i])
-        products.append((2.0 * fi, 2.0 * pi - shi))
-        products.append((3.0 * fi, 3.0 * pi - 2.0 * toi - H3_BELOW_IM3_DB))
-        for j in order[a_idx + 1 :]:
-            fj, pj = float(freqs[j]), float(mixer_dbm[j])
-            im2 = pi + pj - (shi - IM2_ABOVE_H2_DB)
-            products.append((fi + fj, im2))
-            products.append((abs(fi - fj), im2))
-            for (fa, pa), (fb, pb) in (((fi, pi), (fj, pj)), ((fj, pj), (fi, pi))):
-                im3 = 2.0 * pa + pb - 2.0 * toi
-                products.append((abs(2.0 * fa - fb), im3))
-                products.append((2.0 * fa + fb, im3))
-    out.extend(
-        (f, p + att) for f, p in products if f > 0 and p > _PRODUCT_FLOOR_DBM
-    )
-    return out, total_dbm
+
+def _displayed_arrays(
+    lines: Sequence[tuple[float, float]], settings: SweepSettings, params: AnalyzerParams
+) -> tuple[FloatArray, FloatArray, float]:
+    # The display depends only on the lines, the attenuation and the analyzer: the last
+    # answer is kept for the same (immutable) lines object, as successive sweeps of one
+    # input ask for it again with other spans.
+    key = (settings.attenuation_db, params)
+    hit = _LAST_DISPLAYED.get("last")
+    if hit is not None and hit[0] is lines and hit[1] == key:
+        return hit[2]
+    mixer = first_mixer(lines, settings, params)
+    f, p = combine_displayed(mixer, params.coherent_products)
+    value = (f, p, mixer.total_dbm)
+    if isinstance(lines, tuple):
+        _LAST_DISPLAYED["last"] = (lines, key, value)
+    return value
+
+
+_LAST_DISPLAYED: dict[str, tuple[object, tuple[float, AnalyzerParams], tuple[
+    FloatArray, FloatArray, float]]] = {}
+
+
+def combine_displayed(mixer: FirstMixer, coherent: bool = True) -> tuple[FloatArray, FloatArray]:
+    """The compressed lines and the products at one frequency summed (voltages if
+    ``coherent``, else powers) → displayed lines as arrays (Hz, dBm), sorted by frequency."""
+    freq = np.concatenate([mixer.line_freq_hz, mixer.product_freq_hz])
+    if freq.size == 0:
+        return _EMPTY, _EMPTY
+    amp = np.concatenate([10.0 ** (mixer.line_dbm / 20.0) + 0j, mixer.product_amp])
+    order = np.argsort(freq, kind="stable")
+    freq, amp = freq[order], amp[order]
+    start = np.empty(freq.size, dtype=bool)
+    start[0] = True
+    np.greater(np.diff(freq), _COINCIDENT_HZ, out=start[1:])
+    if start.all():
+        power_mw = amp.real * amp.real + amp.imag * amp.imag
+    else:
+        group = np.cumsum(start) - 1
+        if coherent:
+            summed = np.zeros(int(group[-1]) + 1, dtype=complex)
+            np.add.at(summed, group, amp)
+            power_mw = summed.real * summed.real + summed.imag * summed.imag
+        else:
+            power_mw = np.zeros(int(group[-1]) + 1)
+            np.add.at(power_mw, group, amp.real * amp.real + amp.imag * amp.imag)
+        freq = freq[start]
+    keep = power_mw > 0
+    return freq[keep], _mw_to_dbm(power_mw[keep])
 
 
 def simulate_sweep(
@@ -306,9 +513,10 @@ def simulate_sweep(
 ) -> SweepResult:
     """Run one sweep (with all its averages) and return the trace and flags."""
     freqs = settings.freqs_hz()
-    lines, mixer_total_dbm = first_mixer_lines(spectrum.lines, settings, params)
-    signal_mw = _signal_mw_fn(lines, settings.rbw_hz, params.amplitude_error_db)
-    noise_mw = _noise_mw_fn(spectrum, settings, params)
+    line_f, line_dbm, mixer_total_dbm = _displayed_arrays(spectrum.lines, settings, params)
+    signal_mw = _signal_mw_fn(line_f, line_dbm, settings.rbw_hz, params.amplitude_error_db)
+    noise_mw = _noise_mw_fn(spectrum, settings, params, line_f, line_dbm,
+                            span_hz=(settings.start_hz, settings.stop_hz))
     offsets_db = _noise_offsets_db(settings, rng)
     trace = _mw_to_dbm(signal_mw(freqs) + noise_mw(freqs) * 10.0 ** (offsets_db / 10.0))
     return SweepResult(
@@ -325,16 +533,12 @@ def simulate_sweep(
 
 
 def _signal_mw_fn(
-    lines: Sequence[tuple[float, float]], rbw_hz: float, error_db: float
+    line_f: FloatArray, line_dbm: FloatArray, rbw_hz: float, error_db: float
 ) -> Callable[[FloatArray], FloatArray]:
     """Sum of the lines (mW) seen through the Gaussian RBW filter, as a function of f (Hz)."""
-    if lines:
-        line_f = np.array([f for f, _ in lines])
-        line_mw = 10.0 ** ((np.array([p for _, p in lines]) + error_db) / 10.0)
-        keep = line_mw > 0
-        line_f, line_mw = line_f[keep], line_mw[keep]
-    else:
-        line_f = line_mw = np.zeros(0)
+    line_mw = 10.0 ** ((line_dbm + error_db) / 10.0)
+    keep = line_mw > 0
+    line_f, line_mw = line_f[keep], line_mw[keep]
     order = np.argsort(line_f)
     line_f, line_mw = line_f[order], line_mw[order]
     reach = _FILTER_REACH_RBW * rbw_hz
@@ -368,22 +572,109 @@ def _signal_mw_fn(
 
 
 def _noise_mw_fn(
-    spectrum: InputSpectrum, settings: SweepSettings, params: AnalyzerParams
+    spectrum: InputSpectrum, settings: SweepSettings, params: AnalyzerParams,
+    line_f: FloatArray = _EMPTY, line_dbm: FloatArray = _EMPTY,
+    span_hz: tuple[float, float] | None = None,
 ) -> Callable[[FloatArray], FloatArray]:
-    """Mean displayed noise power (mW) as a function of f (Hz): DANL plus input noise."""
+    """Mean displayed noise power (mW) as a function of f (Hz): DANL plus input noise plus
+    reciprocal mixing of the displayed lines (those that can show within ``span_hz``)."""
     own_mw = 10.0 ** (danl_dbm(settings, params) / 10.0)
     enbw_hz = GAUSSIAN_ENBW_PER_RBW * settings.rbw_hz
     error = 10.0 ** (params.amplitude_error_db / 10.0)
     kt0_mw_per_hz = 10.0 ** (KT0_DBM_PER_HZ / 10.0)
+    reciprocal = _reciprocal_mw_fn(line_f, line_dbm, settings, params, span_hz=span_hz)
 
     def noise(freqs_hz: FloatArray) -> FloatArray:
         density_mw = 10.0 ** (spectrum.noise_at(freqs_hz) / 10.0)
         # The noise figure is defined with a source at T0, so the DANL already holds the kT0
         # of a matched input; only the excess above kT0 adds (definition of F; Pozar).
         excess_mw = np.maximum(density_mw - kt0_mw_per_hz, 0.0) * enbw_hz * error
-        return own_mw + excess_mw
+        total = own_mw + excess_mw
+        if reciprocal is not None:
+            total = total + reciprocal(freqs_hz)
+        return total
 
     return noise
+
+
+def _reciprocal_mw_fn(
+    line_f: FloatArray, line_dbm: FloatArray, settings: SweepSettings, params: AnalyzerParams,
+    *, span_hz: tuple[float, float] | None,
+) -> Callable[[FloatArray], FloatArray] | None:
+    """Reciprocal-mixing noise (mW in the ENBW) of the lines, or None when none can show.
+
+    ``P·10^(L(Δf)/10)·ENBW`` per line, faded by ``1 − H(Δf)`` (H the RBW filter's power
+    response) within about one RBW of the line (there the line's display holds it). With
+    ``span_hz`` = (start, stop) only lines whose noise can come within 30 dB of the DANL
+    somewhere in that range count, at most the 8 strongest (a sweep's shortcut: what they
+    leave out is below 0.004 dB of the floor); None: every line counts.
+    """
+    if not params.phase_noise or line_f.size == 0:
+        return None
+    enbw_db = 10.0 * math.log10(GAUSSIAN_ENBW_PER_RBW * settings.rbw_hz)
+    xs, ys = _phase_noise_table(params.phase_noise)
+    if span_hz is not None:
+        start, stop = span_hz
+        nearest = np.maximum(np.maximum(start - line_f, line_f - stop), 0.0)
+        close_in = np.interp(np.log10(np.maximum(nearest, 1e-6)), xs, ys)
+        reach = line_dbm + close_in + enbw_db > danl_dbm(settings, params) - _PHASE_NOISE_REACH_DB
+        if not reach.any():
+            return None
+        line_f, line_dbm = line_f[reach], line_dbm[reach]
+        if line_f.size > _PHASE_NOISE_LINES:
+            top = np.argsort(line_dbm)[::-1][:_PHASE_NOISE_LINES]
+            line_f, line_dbm = line_f[top], line_dbm[top]
+    scale_mw = 10.0 ** ((line_dbm + params.amplitude_error_db + enbw_db) / 10.0)
+    half_rbw = settings.rbw_hz / 2.0
+
+    def exact(f: FloatArray) -> FloatArray:
+        offset = np.abs(f[..., None] - line_f)
+        dbc = np.interp(np.log10(np.maximum(offset, 1e-6)), xs, ys)
+        x = offset / half_rbw
+        fade = -np.expm1(-_LN2 * (x * x))
+        return (np.exp(dbc * _LN10_OVER_10) * fade) @ scale_mw
+
+    def reciprocal(freqs_hz: FloatArray) -> FloatArray:
+        f = np.asarray(freqs_hz, dtype=float)
+        step = 0
+        if f.ndim == 1 and f.size > 64 and f[-1] > f[0]:
+            step = int(half_rbw / ((f[-1] - f[0]) / (f.size - 1)))
+        if step < 2:
+            return exact(f)
+        # A swept trace: the noise is smooth on the scale of half an RBW (the fade) and of
+        # the offset itself (the profile), so every step-th point is computed and the rest
+        # interpolated (linear in power); single readings are always exact.
+        idx = np.unique(np.append(np.arange(0, f.size, step), f.size - 1))
+        return np.interp(f, f[idx], exact(f[idx]))
+
+    return reciprocal
+
+
+@lru_cache(maxsize=32)
+def _phase_noise_table(
+    profile: tuple[tuple[float, float], ...],
+) -> tuple[FloatArray, FloatArray]:
+    xs = np.log10(np.array([o for o, _ in profile], dtype=float))
+    ys = np.array([v for _, v in profile], dtype=float)
+    return xs, ys
+
+
+@lru_cache(maxsize=32)
+def _product_phase_law(seed: int, delay_s: float) -> dict[str, tuple[float, float]]:
+    """Per product kind: (φ0 rad, τ s), φ0 uniform in [0, 2π), τ in [0.2, 1]·delay_s, one
+    draw per kind from ``numpy.random.default_rng([seed, 23, k])``."""
+    law = {}
+    for k, kind in enumerate(_KINDS):
+        rng = np.random.default_rng([int(seed), 23, k])
+        law[kind] = (float(rng.uniform(0.0, 2.0 * math.pi)),
+                     float(rng.uniform(0.2, 1.0) * delay_s))
+    return law
+
+
+@lru_cache(maxsize=32)
+def _product_phase_arrays(seed: int, delay_s: float) -> tuple[FloatArray, FloatArray]:
+    law = _product_phase_law(seed, delay_s)
+    return (np.array([law[k][0] for k in _KINDS]), np.array([law[k][1] for k in _KINDS]))
 
 
 def _noise_offsets_db(settings: SweepSettings, rng: np.random.Generator) -> FloatArray:

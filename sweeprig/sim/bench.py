@@ -21,6 +21,11 @@ optional; the values shown are the defaults)::
     [sources]
     level_error = true           # the small level error of the simulated sources
     harmonics = ["-35 dBc", "-45 dBc"]
+    # non-harmonic spurious lines at carrier + offset (an assumption: reference-related spurs)
+    spurious = [{ offset = "10 MHz", level = "-72 dBc" }, { offset = "-10 MHz", level = "-72 dBc" }]
+
+    [sources.lowpass]            # optional low-pass filter at a source output (none by default)
+    # rf = { corner = "3 GHz", order = 7 }   # Butterworth, -3 dB at corner; also rf2, lo
 
     [analyzer]
     noise_figure = "14 dB"       # at 0 dB attenuation
@@ -29,6 +34,12 @@ optional; the values shown are the defaults)::
     p1db = "3 dBm"               # first-mixer 1 dB compression
     overload = "0 dBm"           # first-mixer level that raises the overload flag
     amplitude_error = "0 dB"
+    coherent_products = true     # its products add to lines at their frequency as voltages
+    phase_noise = [              # its LO phase noise (an assumption for a mid-range analyzer)
+      { offset = "100 Hz", level = "-84 dBc/Hz" }, { offset = "1 kHz", level = "-98 dBc/Hz" },
+      { offset = "10 kHz", level = "-106 dBc/Hz" }, { offset = "100 kHz", level = "-116 dBc/Hz" },
+      { offset = "1 MHz", level = "-135 dBc/Hz" }, { offset = "10 MHz", level = "-145 dBc/Hz" },
+    ]
 
     [chamber]
     ambient = "23 degC"
@@ -38,11 +49,22 @@ optional; the values shown are the defaults)::
     [dut]
     self_heating_c_per_w = 0.0   # die temperature rise per watt of supply power
     unpowered = { rf_to_if = "45 dB", lo_to_if = "40 dB", lo_to_rf = "35 dB", below = "0.5 V" }
+    leakage_phase = true         # each leakage path gets a seeded phase φ0 − 2π·f·τ
+    leakage_delay = "1.5 ns"     # the longest τ of those paths
 
     [[faults]]                   # planned faults, see sweeprig.sim.faults
     role = "sa"
     kind = "timeout"
     at_command = 40
+
+Realism (each key above has a realistic default; docs/sim-bench.md explains them):
+``[sources] spurious`` (non-harmonic lines at carrier + offset, dBc) and
+``[sources.lowpass]`` (a Butterworth low-pass per source: ``corner``, ``order``);
+``[analyzer] phase_noise`` ((offset, dBc/Hz) points: reciprocal mixing) and
+``coherent_products`` (its first-mixer products add to lines as voltages with a seeded
+phase); ``[dut] leakage_phase`` and ``leakage_delay`` (each leakage path of the part turns
+its line by φ0 − 2π·f·τ, seeded from ``seed``). What is truly at each port:
+:mod:`sweeprig.sim.truth`.
 
 Roles served: ``rf``, ``rf2``, ``lo`` (sources), ``sa`` (analyzer), ``pm`` (power meter),
 ``dc`` (supply), ``chamber``, ``switch``, ``simctl``.
@@ -50,20 +72,22 @@ Roles served: ``rf``, ``rf2``, ``lo`` (sources), ``sa`` (analyzer), ``pm`` (powe
 
 from __future__ import annotations
 
+import itertools
+import math
 import os
 from dataclasses import dataclass
 from pathlib import Path
 from types import TracebackType
 from typing import Annotated, Any
 
-from pydantic import Discriminator, Field, Tag, field_validator
+from pydantic import BeforeValidator, Discriminator, Field, Tag, field_validator
 from pydantic_core import PydanticCustomError
 
 from sweeprig.clock import Clock, VirtualClock
 from sweeprig.errors import InputError
 from sweeprig.formats.fields import Frozen, StrictBool, quantity
 from sweeprig.formats.loading import Document, display_path, load_document, validate
-from sweeprig.sim.analyzer_display import AnalyzerParams
+from sweeprig.sim.analyzer_display import DEFAULT_PHASE_NOISE, AnalyzerParams
 from sweeprig.sim.faults import FaultPlan, FaultSpec
 from sweeprig.sim.instruments.analyzer import SpectrumAnalyzer
 from sweeprig.sim.instruments.chamber import ThermalChamber
@@ -76,13 +100,15 @@ from sweeprig.sim.instruments.source import (
 )
 from sweeprig.sim.instruments.supply import DcSupply
 from sweeprig.sim.instruments.switch import RfSwitch
-from sweeprig.sim.mixer import load_part, shipped_parts
+from sweeprig.sim.mixer import MixerPart, load_part, shipped_parts
+from sweeprig.sim.mixer.realism import LeakagePhases, seeded_leakage_phases
 from sweeprig.sim.scpi import ScpiInstrument
 from sweeprig.sim.server import DEFAULT_MAX_CONNECTIONS, ServedBench, serve
 from sweeprig.sim.world import (
     CableLoss,
     Cabling,
     DeadMixer,
+    LowPassFilter,
     MixerModel,
     SimWorld,
     WorldConfig,
@@ -140,11 +166,76 @@ class CablesSpec(Frozen):
     lo_port: CableSpec = 2.5
 
 
+def _dbc_per_hz(value: Any) -> float:
+    """A phase-noise level: a number (dBc/Hz) or text such as "-100 dBc/Hz"."""
+    if isinstance(value, bool):
+        raise PydanticCustomError("semantic", "{what}", {
+            "what": f"{value!r} is not a phase-noise level",
+            "fix": 'write a level such as "-100 dBc/Hz"'})
+    if isinstance(value, int | float):
+        number = float(value)
+    elif isinstance(value, str) and value.strip().lower().endswith("dbc/hz"):
+        try:
+            number = float(value.strip()[:-6])
+        except ValueError:
+            number = math.nan
+    else:
+        number = math.nan
+    if not math.isfinite(number) or number >= 0.0:
+        raise PydanticCustomError("semantic", "{what}", {
+            "what": f"{value!r} is not a phase-noise level below 0 dBc/Hz",
+            "fix": 'write a negative level such as "-100 dBc/Hz"'})
+    return number
+
+
+DbcPerHz = Annotated[float, BeforeValidator(_dbc_per_hz)]
+
+
+class SpurSpec(Frozen):
+    """A source's non-harmonic spurious line: at carrier + ``offset`` (may be negative),
+    ``level`` dBc."""
+
+    offset: Frequency
+    level: Annotated[LevelDb, Field(lt=0.0)]
+
+
+class LowPassSpec(Frozen):
+    """A low-pass filter at a source's output: Butterworth ``order``, −3 dB at ``corner``."""
+
+    corner: Annotated[Frequency, Field(gt=0.0)]
+    order: Annotated[int, Field(strict=True, ge=1, le=15)] = 5
+
+
+class SourceFiltersSpec(Frozen):
+    """An optional low-pass filter per source (absent: none)."""
+
+    rf: LowPassSpec | None = None
+    rf2: LowPassSpec | None = None
+    lo: LowPassSpec | None = None
+
+
+#: Every simulated source's non-harmonic spurs unless the description says otherwise:
+#: −72 dBc at ±10 MHz from the carrier (reference-related spurs; an assumption, invented
+#: figures in the range signal sources state).
+DEFAULT_SPURIOUS: tuple[SpurSpec, ...] = (
+    SpurSpec(offset=10e6, level=-72.0), SpurSpec(offset=-10e6, level=-72.0),
+)
+
+
 class SourcesSpec(Frozen):
     """Properties shared by the three simulated sources."""
 
     level_error: StrictBool = True
     harmonics: tuple[LevelDb, ...] = (-35.0, -45.0)
+    spurious: tuple[SpurSpec, ...] = DEFAULT_SPURIOUS
+    lowpass: SourceFiltersSpec = SourceFiltersSpec()
+
+
+class PhaseNoisePointSpec(Frozen):
+    """One point of the analyzer's LO phase-noise profile."""
+
+    offset: Annotated[Frequency, Field(gt=0.0)]
+    level: DbcPerHz
 
 
 class AnalyzerSpec(Frozen):
@@ -156,12 +247,27 @@ class AnalyzerSpec(Frozen):
     p1db: Power = 3.0
     overload: Power = 0.0
     amplitude_error: LevelDb = 0.0
+    phase_noise: tuple[PhaseNoisePointSpec, ...] = tuple(
+        PhaseNoisePointSpec(offset=o, level=v) for o, v in DEFAULT_PHASE_NOISE)
+    coherent_products: StrictBool = True
 
-    def params(self) -> AnalyzerParams:
+    @field_validator("phase_noise")
+    @classmethod
+    def _rising(cls, points: tuple[PhaseNoisePointSpec, ...]) -> tuple[PhaseNoisePointSpec, ...]:
+        offsets = [p.offset for p in points]
+        if any(b <= a for a, b in itertools.pairwise(offsets)):
+            raise PydanticCustomError("semantic", "{what}", {
+                "what": "phase-noise offsets do not rise from one point to the next",
+                "fix": "list the points from the smallest offset to the largest"})
+        return points
+
+    def params(self, seed: int = 0) -> AnalyzerParams:
         return AnalyzerParams(
             noise_figure_db=self.noise_figure, toi_dbm=self.toi, shi_dbm=self.shi,
             p1db_dbm=self.p1db, overload_dbm=self.overload,
             amplitude_error_db=self.amplitude_error,
+            phase_noise=tuple((p.offset, p.level) for p in self.phase_noise),
+            coherent_products=self.coherent_products, product_phase_seed=seed,
         )
 
 
@@ -187,6 +293,8 @@ class DutSpec(Frozen):
 
     self_heating_c_per_w: Annotated[float, Field(ge=0.0)] = 0.0
     unpowered: UnpoweredSpec = UnpoweredSpec()
+    leakage_phase: StrictBool = True
+    leakage_delay: Annotated[Time, Field(ge=0.0)] = 1.5e-9
 
 
 class SimBenchDescription(Frozen):
@@ -224,7 +332,24 @@ class SimBenchDescription(Frozen):
                                  lo_to_rf_db=u.lo_to_rf, min_supply_v=u.below),
             self_heating_c_per_w=self.dut.self_heating_c_per_w,
             ambient_c=self.chamber.ambient,
+            source_filters=tuple(
+                (role, LowPassFilter(spec.corner, spec.order))
+                for role in ("rf", "rf2", "lo")
+                if (spec := getattr(self.sources.lowpass, role)) is not None
+            ),
+            spur_phase_seed=self.seed,
         )
+
+    def analyzer_params(self) -> AnalyzerParams:
+        """The analyzer's own figures, its product phases seeded by ``seed``."""
+        return self.analyzer.params(seed=self.seed)
+
+    def leakage_phases(self) -> LeakagePhases:
+        """The part's leakage-path phases: seeded by ``seed`` (``dut.leakage_phase``), or
+        every path in phase with its source."""
+        if not self.dut.leakage_phase:
+            return LeakagePhases()
+        return seeded_leakage_phases(self.seed, self.dut.leakage_delay)
 
     def fault_plan(self) -> FaultPlan:
         return FaultPlan(faults=self.faults)
@@ -309,29 +434,53 @@ def build_sim_instruments(
     """
     desc = resolve_description(description)
     clock = clock if clock is not None else VirtualClock()
-    model = part if part is not None else _load_part(desc.part)
+    model = part if part is not None else prepare_part(desc)
     world = SimWorld(model, desc.world_config())
     level_error = default_level_error_db if desc.sources.level_error else no_level_error_db
     harmonics = desc.sources.harmonics
     sources = {
         role: SignalSource(clock, f"SG6-1000{k + 1}", level_error_db=level_error,
-                           harmonics_dbc=harmonics)
+                           harmonics_dbc=harmonics,
+                           spurious=[(s.offset, s.level) for s in desc.sources.spurious])
         for k, role in enumerate(("rf", "rf2", "lo"))
     }
     supply = DcSupply(clock, load=world.supply_current_a)
     chamber = ThermalChamber(clock, ambient_c=desc.chamber.ambient,
                              probe_tau_s=desc.chamber.probe_lag, drift_tau_s=desc.chamber.drift)
     switch = RfSwitch(clock)
-    analyzer = SpectrumAnalyzer(clock, world.analyzer_input, params=desc.analyzer.params(),
+    analyzer = SpectrumAnalyzer(clock, world.analyzer_input, params=desc.analyzer_params(),
                                 seed=desc.seed)
     meter = PowerMeter(clock, sense=world.sensed_power_dbm, seed=desc.seed + 1)
     world.connect(rf=sources["rf"], rf2=sources["rf2"], lo=sources["lo"], supply=supply,
                   chamber=chamber, switch=switch)
+    truth_line, truth_noise = _truth_hooks(world, analyzer)
     instruments: dict[str, ScpiInstrument] = {
         **sources, "sa": analyzer, "pm": meter, "dc": supply, "chamber": chamber,
-        "switch": switch, "simctl": SimControl(clock),
+        "switch": switch,
+        "simctl": SimControl(clock, truth_line=truth_line, truth_noise=truth_noise),
     }
     return SimInstruments(world, {r: instruments[r] for r in ROLES}, clock, desc)
+
+
+def _truth_hooks(world: SimWorld, analyzer: SpectrumAnalyzer) -> tuple[Any, Any]:
+    """The simulation controller's truth queries on this world and analyzer's settings."""
+    from sweeprig.sim import truth  # the truth module builds on this one
+
+    def line(port: str, freq_hz: float) -> tuple[float, ...] | None:
+        lines = truth.world_port_lines(world, port, analyzer.sweep_settings(),  # type: ignore[arg-type]
+                                       analyzer.params)
+        hit = truth.nearest_line(lines, freq_hz, 1.0)
+        if hit is None:
+            return None
+        return (hit.total_dbm, hit.part_dbm, hit.source_harmonic_dbm, hit.leakage_dbm,
+                hit.analyzer_dbm)
+
+    def noise(port: str, freq_hz: float) -> tuple[float, ...]:
+        got = truth.world_noise(world, port, freq_hz, analyzer.sweep_settings(),  # type: ignore[arg-type]
+                                analyzer.params)
+        return (got.total_dbm, got.danl_dbm, got.input_dbm, got.reciprocal_dbm)
+
+    return line, noise
 
 
 class SimBench:
@@ -400,6 +549,14 @@ def _unknown_part(name: str, doc: Document) -> InputError:
         where=doc.where(("part",)),
         fix=f"name one of {', '.join(shipped_parts())}, or give a part file path ending in .toml",
     )
+
+
+def prepare_part(desc: SimBenchDescription) -> Any:
+    """The description's part as it sits on this bench (its leakage phases seeded)."""
+    model = _load_part(desc.part)
+    if isinstance(model, MixerPart):
+        model = model.with_changes(leakage_phases=desc.leakage_phases())
+    return model
 
 
 def _load_part(name_or_path: str) -> Any:

@@ -2,10 +2,10 @@
 
 Signal flow (powers in dBm, frequencies in Hz, losses in dB, positive = loss)::
 
-    rf source  ─ cable "rf"  ─┐
+    rf source  ─ [low-pass] ─ cable "rf"  ─┐
                                ├─ combiner ─ DUT RF port (power-meter sensor plane)
-    rf2 source ─ cable "rf2" ─┘
-    lo source  ─ cable "lo"  ─ DUT LO port
+    rf2 source ─ [low-pass] ─ cable "rf2" ─┘
+    lo source  ─ [low-pass] ─ cable "lo"  ─ DUT LO port
     DUT IF port ─ path "if"      ─ RF switch channel 1 ─┐
     DUT RF port ─ path "rf_port" ─ RF switch channel 2 ─┼─ analyzer input
     DUT LO port ─ path "lo_port" ─ RF switch channel 3 ─┘
@@ -14,17 +14,29 @@ Signal flow (powers in dBm, frequencies in Hz, losses in dB, positive = loss)::
 The world reads the instruments' states through small views (protocols below), asks the
 mixer model for its response on demand (cached by a key of everything that matters), and
 answers the analyzer (input spectrum), the power meter (sensed power) and the supply (load
-current). It knows no SCPI. Deterministic: it draws no random numbers itself.
+current). It knows no SCPI. Deterministic: its only random draws are the seeded phases of
+the sources' spurious lines (``WorldConfig.spur_phase_seed``), the same on every run.
+
+Sources' spurious lines (non-harmonic, at carrier + offset) are small: the world carries them
+through the part linearly instead of giving each its own tone to the mixer model. An RF
+source's spur converts to the output at the part's small-signal conversion gain and its
+ports' band edges (at
+|f_spur − f_LO| for a downconverter, f_spur + f_LO for an up); an LO spur converts each input
+tone with the same gain, at its own dBc (LO spurs transfer dB for dB onto the output of a
+hard-switched mixer: common practice, no source). A spur line that falls on a part line adds
+to it as a voltage with a seeded phase.
 """
 
 from __future__ import annotations
 
+import cmath
 import math
 import threading
 from collections import OrderedDict
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from enum import IntEnum
+from functools import lru_cache
 from typing import Protocol
 
 import numpy as np
@@ -101,6 +113,21 @@ class CableLoss:
 
 
 @dataclass(frozen=True)
+class LowPassFilter:
+    """A low-pass filter at a source's output: Butterworth of ``order`` with its −3 dB
+    corner at ``corner_hz``, rejection ``10·log10(1 + (f/f_c)^(2·order))`` dB (the
+    Butterworth magnitude, Pozar, filter design chapter), no loss in the pass band."""
+
+    corner_hz: float
+    order: int = 5
+
+    def at(self, freq_hz: float) -> float:
+        """Rejection at ``freq_hz``, dB (positive)."""
+        ratio = max(freq_hz, 0.0) / self.corner_hz
+        return 10.0 * math.log10(1.0 + ratio ** (2 * self.order))
+
+
+@dataclass(frozen=True)
 class Cabling:
     """Losses of every connection of the simulated bench.
 
@@ -137,6 +164,37 @@ class WorldConfig:
     self_heating_c_per_w: float = 0.0
     ambient_c: float = AMBIENT_C
     temperature_resolution_c: float = 0.01
+    source_filters: tuple[tuple[str, LowPassFilter], ...] = ()
+    spur_phase_seed: int = 0
+    spur_delay_s: float = 2e-9
+
+    def source_filter(self, role: str) -> LowPassFilter | None:
+        """The low-pass filter at a source's output (``rf``, ``rf2``, ``lo``), or None."""
+        for name, filt in self.source_filters:
+            if name == role:
+                return filt
+        return None
+
+
+@dataclass(frozen=True)
+class SpurLine:
+    """A line made from a source's spurious output: frequency (Hz), complex amplitude at the
+    DUT port (sqrt(mW), with its seeded phase), the source role that made it."""
+
+    freq_hz: float
+    amplitude: complex
+    role: str
+
+
+@dataclass(frozen=True)
+class EvaluationInputs:
+    """The inputs of one model evaluation: LO and input tones at the DUT ports, supply
+    volts and the die temperature used (degC)."""
+
+    lo: ToneInput | None
+    rf: tuple[ToneInput, ...]
+    supply_v: float
+    temperature_c: float
 
 
 class SwitchChannel(IntEnum):
@@ -164,7 +222,9 @@ class SimWorld:
         self._switch: SwitchView | None = None
         self._lock = threading.RLock()
         self._cache: OrderedDict[tuple[object, ...], MixerResponse] = OrderedDict()
+        self._inputs: dict[int, tuple[MixerResponse, EvaluationInputs]] = {}
         self.evaluations = 0  # number of model evaluations (cache misses), for tests
+        self._last_input: tuple[MixerResponse, int, InputSpectrum] | None = None
 
     def connect(
         self,
@@ -181,20 +241,22 @@ class SimWorld:
             self._sources = {"rf": rf, "rf2": rf2, "lo": lo}
             self._supply, self._chamber, self._switch = supply, chamber, switch
             self._cache.clear()
+            self._inputs.clear()
+            self._last_input = None
 
     # --- the DUT's inputs -------------------------------------------------------------
     def rf_inputs(self) -> list[ToneInput]:
         """Tones at the DUT RF port (after cable and combiner), in source order rf, rf2."""
         tones = []
         for role in ("rf", "rf2"):
-            tone = self._tone_at_port(role, (self._cable(role), self.config.cabling.combiner))
+            tone = self._tone_at_port(role, self._path(role))
             if tone is not None:
                 tones.append(tone)
         return tones
 
     def lo_input(self) -> ToneInput | None:
         """The tone at the DUT LO port, or None when the LO is off."""
-        return self._tone_at_port("lo", (self.config.cabling.lo,))
+        return self._tone_at_port("lo", self._path("lo"))
 
     def probe_temperature_c(self) -> float:
         """Chamber probe temperature (ambient without a chamber), degC."""
@@ -245,13 +307,23 @@ class SimWorld:
                 return hit
             value = self._evaluate(lo, rf, volts, temperature)
             theta = self.config.self_heating_c_per_w
+            used = temperature
             if theta and value.supply_current_a > 0:
-                heated = self._rounded(temperature + theta * volts * value.supply_current_a)
-                value = self._evaluate(lo, rf, volts, heated)
+                used = self._rounded(temperature + theta * volts * value.supply_current_a)
+                value = self._evaluate(lo, rf, volts, used)
             self._cache[key] = value
+            self._inputs[id(value)] = (value, EvaluationInputs(lo, rf, volts, used))
             while len(self._cache) > _CACHE_ENTRIES:
-                self._cache.popitem(last=False)
+                old = self._cache.popitem(last=False)[1]
+                self._inputs.pop(id(old), None)
             return value
+
+    def evaluation_inputs(self, response: MixerResponse) -> EvaluationInputs | None:
+        """What the model was given for a response this world returned (None when unknown):
+        the truth queries evaluate the part again on exactly these."""
+        with self._lock:
+            hit = self._inputs.get(id(response))
+        return hit[1] if hit is not None and hit[0] is response else None
 
     def _evaluate(
         self, lo: ToneInput | None, rf: tuple[ToneInput, ...], volts: float, temp_c: float
@@ -285,7 +357,18 @@ class SimWorld:
     def analyzer_input(self) -> InputSpectrum:
         """Lines and noise density at the analyzer input for the switch's channel."""
         channel = self._switch.channel if self._switch is not None else SwitchChannel.IF
-        response = self.response()
+        return self.spectrum_for(self.response(), channel)
+
+    def spectrum_for(self, response: MixerResponse, channel: int) -> InputSpectrum:
+        """What reaches the analyzer from a response on a switch channel."""
+        last = self._last_input
+        if last is not None and last[0] is response and last[1] == channel:
+            return last[2]  # the same response on the same channel: the same spectrum
+        spectrum = self._analyzer_input(response, channel)
+        self._last_input = (response, channel, spectrum)
+        return spectrum
+
+    def _analyzer_input(self, response: MixerResponse, channel: int) -> InputSpectrum:
         cabling = self.config.cabling
         if channel == SwitchChannel.RF:
             products, noise_dbm_per_hz = response.rf_port, KT0_DBM_PER_HZ
@@ -296,12 +379,83 @@ class SimWorld:
         else:
             products, noise_dbm_per_hz = response.if_port, response.if_noise_dbm_per_hz
             cable = cabling.if_
-        lines = tuple(
-            (p.freq_hz, p.power_dbm - cable.at(p.freq_hz))
-            for p in products
-            if p.freq_hz > 0 and math.isfinite(p.power_dbm)
-        )
+        n = len(products)
+        freq = np.fromiter((p[0] for p in products), float, n)
+        level = np.fromiter((p[1] for p in products), float, n)
+        ok = (freq > 0) & np.isfinite(level)
+        if not ok.all():
+            freq, level = freq[ok], level[ok]
+        level = level - _cable_loss_db(cable, freq)
+        if channel == SwitchChannel.IF:
+            spurs = self.spur_lines(response)
+            if spurs:
+                extra = [(s.freq_hz, s.amplitude * 10.0 ** (-cable.at(s.freq_hz) / 20.0))
+                         for s in spurs]
+                freq, level = add_coherent_arrays(freq, level, extra)
+        lines = tuple(zip(freq.tolist(), level.tolist(), strict=True))
         return InputSpectrum(lines, _lossy_noise(noise_dbm_per_hz, cable))
+
+    def source_spurs(self, role: str) -> list[tuple[float, float]]:
+        """A source's spurious lines at its DUT port: (frequency Hz, power dBm), after its
+        low-pass filter and cables; empty when the source is off or has none."""
+        source = self._sources.get(role)
+        spurious = getattr(source, "spurious", ()) if source is not None else ()
+        if source is None or not source.output_on or not spurious:
+            return []
+        freq = float(source.freq_hz)
+        path = self._path(role)
+        out = []
+        for offset_hz, dbc in spurious:
+            f = freq + float(offset_hz)
+            if f <= 0:
+                continue
+            loss = sum(c.at(f) for c in path)
+            out.append((f, float(source.delivered_power_dbm) + float(dbc) - loss))
+        return out
+
+    def spur_lines(self, response: MixerResponse) -> list[SpurLine]:
+        """Output-port lines made from the sources' spurious outputs (see the module
+        docstring), with their seeded phases."""
+        gain_db = response.notes.get("conversion_gain_db")
+        lo = self.lo_input()
+        if gain_db is None or not math.isfinite(gain_db) or lo is None:
+            return []
+        up = getattr(self.part, "conversion", "down") == "up"
+        in_port = getattr(self.part, "input_port", None)
+        out_port = getattr(self.part, "output_port", None)
+        out: list[SpurLine] = []
+
+        def converted(f_in: float, f_lo: float) -> float:
+            return f_in + f_lo if up else abs(f_in - f_lo)
+
+        def edges_db(f_in: float, f_out: float) -> float:
+            """The ports' band edges at the spur's input and output frequencies (the
+            notes' gain is mid-band), dB."""
+            if in_port is None or out_port is None:
+                return 0.0
+            mag = in_port.scalar_magnitude(f_in) * out_port.scalar_magnitude(f_out)
+            return 20.0 * math.log10(mag) if mag > 0 else -math.inf
+
+        for r, role in enumerate(("rf", "rf2")):
+            for j, (f, p) in enumerate(self.source_spurs(role)):
+                f_out = converted(f, lo.freq_hz)
+                out.append(self._spur(f_out, p + gain_db + edges_db(f, f_out), role, r, j))
+        lo_spurs = self.source_spurs("lo")
+        if lo_spurs:
+            for tone in self.rf_inputs():
+                for j, (f, p) in enumerate(lo_spurs):
+                    f_out = converted(tone.freq_hz, f)
+                    level = (tone.power_dbm + gain_db + edges_db(tone.freq_hz, f_out)
+                             + (p - lo.power_dbm))
+                    out.append(self._spur(f_out, level, "lo", 2, j))
+        return [s for s in out if s.freq_hz > 0 and math.isfinite(abs(s.amplitude))
+                and abs(s.amplitude) > 0]
+
+    def _spur(self, freq_hz: float, power_dbm: float, role: str, r: int, j: int) -> SpurLine:
+        phase0, delay = _spur_phase_law(self.config.spur_phase_seed, self.config.spur_delay_s,
+                                        r, j)
+        return SpurLine(freq_hz, cmath.rect(10.0 ** (power_dbm / 20.0),
+                                            phase0 - 2.0 * math.pi * freq_hz * delay), role)
 
     def sensed_power_dbm(self) -> float:
         """Total power at the DUT RF input plane (fundamentals and harmonics), dBm."""
@@ -310,6 +464,9 @@ class SimWorld:
             total_mw += 10.0 ** (tone.power_dbm / 10.0)
             for h_dbc in tone.harmonics_dbc:
                 total_mw += 10.0 ** ((tone.power_dbm + h_dbc) / 10.0)
+        for role in ("rf", "rf2"):
+            for _, p in self.source_spurs(role):
+                total_mw += 10.0 ** (p / 10.0)
         return 10.0 * math.log10(total_mw) if total_mw > 0 else _NO_SIGNAL_DBM
 
     def supply_current_a(self, supply_v: float) -> float:
@@ -319,11 +476,19 @@ class SimWorld:
         return float(self.response(supply_v=supply_v).supply_current_a)
 
     # --- helpers --------------------------------------------------------------------------
-    def _cable(self, role: str) -> CableLoss:
+    def _path(self, role: str) -> tuple[CableLoss | LowPassFilter, ...]:
+        """Everything between a source and its DUT port: its filter, cable (and combiner)."""
         cabling = self.config.cabling
-        return {"rf": cabling.rf, "rf2": cabling.rf2, "lo": cabling.lo}[role]
+        path: tuple[CableLoss | LowPassFilter, ...] = {
+            "rf": (cabling.rf, cabling.combiner), "rf2": (cabling.rf2, cabling.combiner),
+            "lo": (cabling.lo,),
+        }[role]
+        filt = self.config.source_filter(role)
+        return path if filt is None else (filt, *path)
 
-    def _tone_at_port(self, role: str, path: Sequence[CableLoss]) -> ToneInput | None:
+    def _tone_at_port(
+        self, role: str, path: Sequence[CableLoss | LowPassFilter]
+    ) -> ToneInput | None:
         source = self._sources.get(role)
         if source is None or not source.output_on:
             return None
@@ -341,6 +506,69 @@ class SimWorld:
     def _rounded(self, temperature_c: float) -> float:
         step = self.config.temperature_resolution_c
         return round(temperature_c / step) * step if step > 0 else temperature_c
+
+
+def add_coherent_arrays(
+    freq_hz: np.ndarray, level_dbm: np.ndarray, extra: Sequence[tuple[float, complex]],
+    tol_hz: float = 1e-3,
+) -> tuple[np.ndarray, np.ndarray]:
+    """Lines (Hz, dBm; taken as phase 0) plus extra lines (Hz, complex sqrt(mW)): one within
+    ``tol_hz`` of a line adds to it as a voltage, the others join the lines."""
+    freq = freq_hz.copy()
+    level = level_dbm.copy()
+    touched: dict[int, complex] = {}  # line index → its amplitude (phase 0) plus extras
+    new_f: list[float] = []
+    new_a: list[complex] = []
+    for f, amp in extra:
+        hit = np.flatnonzero(np.abs(freq_hz - f) <= tol_hz)
+        if hit.size:
+            k = int(hit[0])
+            touched[k] = touched.get(k, complex(10.0 ** (level_dbm[k] / 20.0))) + amp
+            continue
+        for i, f0 in enumerate(new_f):
+            if abs(f0 - f) <= tol_hz:
+                new_a[i] += amp
+                break
+        else:
+            new_f.append(f)
+            new_a.append(amp)
+    for k, amp in touched.items():
+        total = abs(amp) ** 2
+        level[k] = 10.0 * math.log10(total) if total > 0 else -math.inf
+    if new_f:
+        power = np.abs(np.array(new_a)) ** 2
+        with np.errstate(divide="ignore"):
+            extra_dbm = 10.0 * np.log10(power)
+        freq = np.concatenate([freq, np.array(new_f)])
+        level = np.concatenate([level, extra_dbm])
+    ok = np.isfinite(level)
+    return (freq, level) if ok.all() else (freq[ok], level[ok])
+
+
+def add_coherent(
+    lines: Sequence[tuple[float, float]], extra: Sequence[tuple[float, complex]],
+    tol_hz: float = 1e-3,
+) -> list[tuple[float, float]]:
+    """:func:`add_coherent_arrays` on a list of (Hz, dBm) lines."""
+    freq = np.array([f for f, _ in lines], dtype=float)
+    level = np.array([p for _, p in lines], dtype=float)
+    f, p = add_coherent_arrays(freq, level, extra, tol_hz)
+    return list(zip(f.tolist(), p.tolist(), strict=True))
+
+
+def _cable_loss_db(cable: CableLoss, freq_hz: np.ndarray) -> np.ndarray | float:
+    """Loss of ``cable`` at each frequency, dB."""
+    if cable.ref_freq_hz is None:
+        return cable.loss_db
+    return cable.loss_db * np.sqrt(np.maximum(freq_hz, 0.0) / cable.ref_freq_hz)
+
+
+@lru_cache(maxsize=64)
+def _spur_phase_law(seed: int, delay_s: float, role: int, index: int) -> tuple[float, float]:
+    """(φ0 rad, τ s) of one spur path: φ0 uniform in [0, 2π), τ in [0.2, 1]·delay_s, from
+    ``numpy.random.default_rng([seed, 31, role, index])``."""
+    rng = np.random.default_rng([int(seed), 31, role, index])
+    return float(rng.uniform(0.0, 2.0 * math.pi)), float(rng.uniform(0.2, 1.0) * delay_s)
 
 
 def _lossy_noise(

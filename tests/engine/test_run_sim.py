@@ -22,6 +22,8 @@ from sweeprig.engine.session import run_sequence, served_bench_text, shipped_seq
 from sweeprig.errors import SafetyLimitError
 from sweeprig.formats.sequence import load_sequence
 from sweeprig.plan.expand import count_points, iter_points
+from sweeprig.sim import truth
+from sweeprig.sim.analyzer_display import SweepSettings
 from sweeprig.sim.bench import resolve_description, start_sim_bench
 from sweeprig.sim.faults import FaultSpec
 from sweeprig.store.sqlite import SqliteRunStore
@@ -191,25 +193,41 @@ TWO_TONE_WIDE = Path(__file__).parent / "data" / "two_tone_wide_span.toml"
 
 def test_im3_beside_strong_tones_in_the_span_is_not_read_as_in_noise(tmp_path):
     # Each IM3 product shares a 6 MHz trace with both wanted tones (~45 dB above it). The
-    # floor must be the analyzer's noise (plus the part's own output noise), not the tones.
+    # floor must be the displayed noise there (the analyzer's own, the part's output noise,
+    # and the tones' reciprocal mixing by the analyzer's LO phase noise: real noise that a
+    # real analyzer shows too), not the tones' filter skirts.
     store_path = tmp_path / "runs.sqlite"
     outcome = run_sequence(TWO_TONE_WIDE, sim=True, store_path=store_path)
     assert outcome.status == "complete", outcome.reason
     store = SqliteRunStore(store_path)
     try:
         readings = store.readings_frame(outcome.run_id)
+        points = store.points_frame(outcome.run_id)
     finally:
         store.close()
     im3 = readings[readings["name"].str.startswith("im3.")]
     assert len(im3) == 2
     for _, row in im3.iterrows():
         extra = json.loads(row["extra_json"])
-        # DANL = kT0 + NF + attenuation + 10·log10(RBW) (kT0 = -173.98 dBm/Hz, Pozar),
-        # NF 14 dB in the default simulated bench; referred to the DUT plane by the path loss
-        danl = (-173.975 + 14.0 + row["attenuation_db"] + 10.0 * math.log10(row["rbw_hz"])
-                + extra["path_loss_db"])
+        point = points[points["point_index"] == row["point_index"]].iloc[0]
+        # the simulator's own answer for the displayed noise at this frequency and these
+        # settings (sources set to the DUT-plane level plus the bench file's path losses:
+        # rf 3.0, rf2 9.0, lo 2.0 dB), referred to the DUT plane by the path loss
+        drive = truth.Drive(
+            lo_freq_hz=point["lo_freq_hz"], lo_power_dbm=point["lo_power_dbm"] + 2.0,
+            rf_freq_hz=point["rf_freq_hz"], rf_power_dbm=point["rf_power_dbm"] + 3.0,
+            rf2_freq_hz=point["rf2_freq_hz"], rf2_power_dbm=point["rf2_power_dbm"] + 9.0,
+            supply_v=point["supply_v"])  # no chamber here: the bench's ambient
+        settings = SweepSettings.centered(row["freq_hz"], row["span_hz"], rbw_hz=row["rbw_hz"],
+                                          attenuation_db=row["attenuation_db"])
+        noise = truth.noise(None, drive, "if", row["freq_hz"], settings)
+        expected = noise.total_dbm + extra["path_loss_db"]
+        # DANL = kT0 + NF + attenuation + 10·log10(RBW) (kT0 = -173.98 dBm/Hz, Pozar), NF 14 dB
+        assert noise.danl_dbm == pytest.approx(
+            -173.975 + 14.0 + row["attenuation_db"] + 10.0 * math.log10(row["rbw_hz"]),
+            abs=0.01)
         floor = row["noise_floor_dbm"]
-        assert danl - 1.0 <= floor <= danl + 3.0, (row["name"], floor, danl)
+        assert expected - 1.0 <= floor <= expected + 3.0, (row["name"], floor, expected)
         # well above the floor: neither flagged in noise nor kept out of a fit
         assert row["level_dbm"] - floor > 30.0
         assert not validity.in_noise(row["level_dbm"], floor)

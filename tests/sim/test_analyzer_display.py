@@ -140,10 +140,15 @@ def test_analyzer_made_im3_drops_20db_with_10db_more_attenuation() -> None:
 def test_dut_im3_keeps_its_level_with_more_attenuation() -> None:
     # A DUT product 30 dB above the analyzer's own (-65 dBm) keeps its displayed level
     # (common practice, no source)
+    # The analyzer's own product adds to the DUT's as a voltage with its own (seeded) phase:
+    # a product r dB below moves the line by 20·log10(1 ± 10^(−r/20)) at most (vector sum of
+    # two coherent signals). 30 dB below at 10 dB attenuation: −0.28..+0.27 dB; 50 dB below
+    # at 20 dB: ±0.03 dB. The attenuation test sees the DUT's product stay put.
     im3_10, _ = _two_tone(10.0, -35.0)
     im3_20, _ = _two_tone(20.0, -35.0)
-    assert im3_10 == pytest.approx(-35.0, abs=0.1)
-    assert im3_20 == pytest.approx(-35.0, abs=0.1)
+    assert -35.0 + 20 * math.log10(1 - 10 ** (-30 / 20)) - 0.01 <= im3_10
+    assert im3_10 <= -35.0 + 20 * math.log10(1 + 10 ** (-30 / 20)) + 0.01
+    assert im3_20 == pytest.approx(-35.0, abs=0.04)
 
 
 def test_analyzer_made_second_order_products_drop_10db() -> None:

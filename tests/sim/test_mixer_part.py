@@ -207,7 +207,12 @@ def test_floor_drops_weak_lines() -> None:
     assert 0 < len(short.if_port) < len(resp.if_port)
     kept = {p.orders: p.power_dbm for p in resp.if_port}
     for p in short.if_port:
-        assert p.power_dbm == pytest.approx(kept[p.orders], abs=1e-9)
+        # A kept line can lose a coincident contributor that the raised floor pruned first
+        # (pruning keeps 20 dB of margin: contributors under floor − 20 dB = −140 dBm go).
+        # Since the common-mode IM2 lines (cm_second_order) join the core's lines, such a
+        # pair exists; as voltages it moves the line by at most 20·log10(1 + 10^(ΔdB/20)).
+        slack = 20.0 * math.log10(1.0 + 10.0 ** ((-140.0 - p.power_dbm) / 20.0))
+        assert p.power_dbm == pytest.approx(kept[p.orders], abs=1e-9 + slack)
 
 
 def test_upconverter_swaps_the_port_roles() -> None:

@@ -3,7 +3,8 @@
 Roles ``rf``, ``rf2``, ``lo``. The world reads the read-only views ``freq_hz``,
 ``power_dbm`` (the setting), ``delivered_power_dbm`` (setting plus the source's level error
 at the set frequency, dBm, whether or not the output is on), ``output_on`` and
-``harmonics_dbc`` (levels of the 2nd, 3rd, … harmonics relative to the carrier, dBc).
+``harmonics_dbc`` (levels of the 2nd, 3rd, … harmonics relative to the carrier, dBc) and
+``spurious`` (non-harmonic lines as (offset from the carrier Hz, level dBc)).
 """
 
 from __future__ import annotations
@@ -50,10 +51,12 @@ class SignalSource(ScpiInstrument):
         *,
         level_error_db: Callable[[float], float] = default_level_error_db,
         harmonics_dbc: Sequence[float] = (-35.0, -45.0),
+        spurious: Sequence[tuple[float, float]] = (),
     ) -> None:
         super().__init__(clock, Identity("Tarnwick Labs", "TW-SG6", serial, "1.0"))
         self.level_error_db = level_error_db
         self._harmonics_dbc = tuple(float(h) for h in harmonics_dbc)
+        self._spurious = tuple((float(o), float(d)) for o, d in spurious)
         self.add_setting(Setting(
             "freq_hz", "[SOURce]:FREQuency[:CW|:FIXed]", "float", FREQ_DEFAULT_HZ,
             unit="frequency", minimum=FREQ_MIN_HZ, maximum=FREQ_MAX_HZ, on_change=self._settle,
@@ -94,3 +97,8 @@ class SignalSource(ScpiInstrument):
     def harmonics_dbc(self) -> tuple[float, ...]:
         """Harmonic levels relative to the carrier, dBc: (2nd, 3rd, …)."""
         return self._harmonics_dbc
+
+    @property
+    def spurious(self) -> tuple[tuple[float, float], ...]:
+        """Non-harmonic spurious lines: (offset from the carrier Hz, level dBc)."""
+        return self._spurious

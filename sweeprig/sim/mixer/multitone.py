@@ -445,6 +445,44 @@ def merge_coincident(lines: Lines, tol_hz: float = MERGE_TOL_HZ) -> Lines:
     return Lines(freq[starts], merged_amp, merged_orders)
 
 
+def add_lines(base: Lines, extra: Lines, tol_hz: float = MERGE_TOL_HZ) -> Lines:
+    """Add ``extra`` lines to merged, sorted ``base`` lines: one within ``tol_hz`` of a base
+    line adds to it as a complex amplitude (the stronger of the two names the orders); the
+    others are inserted (sorted, merged where they meet)."""
+    if extra.freq_hz.size == 0:
+        return base
+    freq = base.freq_hz
+    if freq.size == 0:
+        return extra
+    at = np.searchsorted(freq, extra.freq_hz)
+    right = np.minimum(at, freq.size - 1)
+    left = np.maximum(at - 1, 0)
+    use_left = np.abs(freq[left] - extra.freq_hz) < np.abs(freq[right] - extra.freq_hz)
+    near = np.where(use_left, left, right)
+    hit = np.abs(freq[near] - extra.freq_hz) <= tol_hz
+    amp = base.amp.copy()
+    orders = base.orders
+    if hit.any():
+        idx = near[hit]
+        before = np.abs(amp[idx])
+        np.add.at(amp, idx, extra.amp[hit])  # extra lines need not be merged among themselves
+        stronger = np.abs(extra.amp[hit]) > before
+        if stronger.any():
+            orders = orders.copy()
+            orders[idx[stronger]] = extra.orders[hit][stronger]
+    merged = Lines(freq, amp, orders)
+    if hit.all():
+        return merged
+    rest = ~hit
+    joined = concat_lines([merged, Lines(extra.freq_hz[rest], extra.amp[rest],
+                                         extra.orders[rest])])
+    order = np.argsort(joined.freq_hz, kind="stable")
+    joined = Lines(joined.freq_hz[order], joined.amp[order], joined.orders[order])
+    if np.any(np.diff(joined.freq_hz) <= tol_hz):
+        return merge_coincident(joined, tol_hz)
+    return joined
+
+
 def concat_lines(parts: Sequence[Lines]) -> Lines:
     """Join several line sets (same number of order columns)."""
     return Lines(

@@ -18,12 +18,16 @@ Part-file schema (TOML). Quantities may be written with units ("4 mA", "2.4 GHz"
     ``nominal_supply`` (default 3.3 V); ``min_supply`` below which the bias is off
     (default 0 V); ``tail_supply_coeff`` k_v, per volt: I_EE = I0·(1 + k_v·(V − V_nom))
     (default 0); ``aux_current`` current of LO buffers etc. at the nominal supply (default 0 A);
-    ``aux_supply_coeff`` per volt, same law (default 0).
+    ``aux_supply_coeff`` per volt, same law (default 0); ``cm_second_order`` c2, the
+    transconductor's common-mode current moving as ``c2·I_EE·u²`` (u = v/(2·VT + I_EE·R_E),
+    default 0: an ideal tail; with ``mismatch.load`` it sets a realistic IIP2, see
+    :mod:`sweeprig.sim.mixer.realism`).
 ``[mismatch]`` (optional)
     ``quad_offset_1``, ``quad_offset_2`` input offsets of the two switching pairs;
     ``rf_pair_offset`` input offset of the transconductor pair (all default 0 V). Quad offsets
     give even LO harmonics, RF feedthrough and (with the RF offset) a finite IIP2; the RF
-    offset gives LO→IF leakage.
+    offset gives LO→IF leakage. ``load``: load-resistor mismatch ΔR/R (default 0), which
+    turns the common-mode current (``core.cm_second_order``) into a differential IM2.
 ``[ports.rf]``, ``[ports.lo]``, ``[ports.if]``
     ``resistance``: the differential resistance at the core behind an ideal balun from 50 ohm
     (input resistance R_in at the transconductor input and LO ports, load R_L at the output
@@ -35,7 +39,11 @@ Part-file schema (TOML). Quantities may be written with units ("4 mA", "2.4 GHz"
     makes), ``rf_to_lo``.
 ``[noise]``
     ``figure`` SSB noise figure at ``core.reference_temperature`` (required);
-    ``figure_tempco`` dB per degC (default 0).
+    ``figure_tempco`` dB per degC (default 0); ``lo_nominal``: the LO power (dBm at the LO
+    port) at which ``figure`` holds (optional: without it the noise figure does not depend
+    on the LO drive); ``switch_share``: the switching quad's share of the excess noise at
+    that drive (default 0.3). Below ``lo_nominal`` the noise figure rises as the quad spends
+    longer with both transistors of a pair on (see :mod:`sweeprig.sim.mixer.realism`).
 ``[model]`` (optional, numerical settings)
     ``max_lo_order`` (default 9: the highest LO harmonic kept in the output lines; spur
     tables rarely go past 5), ``max_rf_order`` (Σ|n_k|, default 9), ``floor`` lines
@@ -85,6 +93,7 @@ from sweeprig.sim.mixer.multitone import (
     Lines,
     LoFactor,
     RfFactor,
+    add_lines,
     combine,
     concat_lines,
     lo_factor,
@@ -93,6 +102,13 @@ from sweeprig.sim.mixer.multitone import (
     rf_grid_shape,
 )
 from sweeprig.sim.mixer.network import band_magnitude, reflection_magnitude
+from sweeprig.sim.mixer.realism import (
+    LeakagePhases,
+    LeakPhase,
+    common_mode_im2_lines,
+    lo_drive_noise_factor,
+    switch_overlap_fraction,
+)
 from sweeprig.sim.mixer.types import MixerResponse, OperatingPoint, Product, ToneInput
 from sweeprig.units import example, parse_quantity
 
@@ -186,12 +202,14 @@ class CoreTable(_Table):
     tail_supply_coeff: _number("per volt") = 0.0
     aux_current: _quantity("current", at_least=0.0) = 0.0
     aux_supply_coeff: _number("per volt") = 0.0
+    cm_second_order: _number("common-mode second-order coefficient") = 0.0
 
 
 class MismatchTable(_Table):
     quad_offset_1: _quantity("voltage") = 0.0
     quad_offset_2: _quantity("voltage") = 0.0
     rf_pair_offset: _quantity("voltage") = 0.0
+    load: _number("load mismatch ΔR/R, e.g. 0.02") = 0.0
 
 
 class PortTable(_Table):
@@ -226,6 +244,8 @@ class IsolationTable(_Table):
 class NoiseTable(_Table):
     figure: _quantity("level_db", at_least=0.0)
     figure_tempco: _number("dB per degC") = 0.0
+    lo_nominal: _quantity("power") | None = None
+    switch_share: Annotated[_number("a fraction from 0 to 1"), Field(ge=0.0, le=1.0)] = 0.3
 
 
 class ModelTable(_Table):
@@ -290,6 +310,33 @@ class _LoPrepared:
     factor: LoFactor
     gain_db: float  # mid-band small-signal conversion gain, dB
     noise_dbm_per_hz: float  # output noise density
+    noise_figure_db: float  # SSB noise figure at this LO drive
+    d0: float  # DC of the quad's D = t1 − t2 (its imbalance from the pair offsets)
+
+
+@dataclass(frozen=True)
+class PortLines:
+    """Lines at each port as complex amplitudes, sqrt(W) into 50 ohm (``|a|²·1e3`` mW).
+
+    ``output``: the output port (IF of a downconverter); ``input``: the transconductor input
+    port; ``lo``: the LO port. ``noise_dbm_per_hz``: output noise density.
+    """
+
+    output: Lines
+    input: Lines
+    lo: Lines
+    noise_dbm_per_hz: float
+    notes: dict[str, float]
+
+
+@dataclass(frozen=True)
+class _Evaluation:
+    output: Lines
+    input_entries: list[tuple[float, complex, tuple[int, ...]]]
+    lo_entries: list[tuple[float, complex, tuple[int, ...]]]
+    noise_dbm_per_hz: float
+    supply_current_a: float
+    notes: dict[str, float]
 
 
 @dataclass(frozen=True)
@@ -339,6 +386,11 @@ class MixerPart:
     isolation_rf_if_db: float | None = None
     isolation_rf_lo_db: float | None = None
     noise_figure_tempco_db_per_c: float = 0.0
+    cm_second_order: float = 0.0
+    load_mismatch: float = 0.0
+    noise_lo_nominal_dbm: float | None = None
+    noise_switch_share: float = 0.3
+    leakage_phases: LeakagePhases = field(default_factory=LeakagePhases)
     max_lo_order: int = 9
     max_rf_order: int = 9
     floor_dbm: float = -180.0
@@ -489,7 +541,38 @@ class MixerPart:
         Output lines carry orders (LO, IN1, IN2, …). Lines below the part's floor are left
         out; lines at the same frequency are added as complex amplitudes.
         """
-        tones = tuple(rf)
+        ev = self._evaluate(op, lo, tuple(rf), leakage=True)
+        return MixerResponse(
+            if_port=self._products(ev.output),
+            rf_port=_entries_to_products(ev.input_entries, self.floor_dbm),
+            lo_port=_entries_to_products(ev.lo_entries, self.floor_dbm),
+            if_noise_dbm_per_hz=ev.noise_dbm_per_hz,
+            supply_current_a=ev.supply_current_a,
+            notes=ev.notes,
+        )
+
+    def evaluate_lines(
+        self, op: OperatingPoint, lo: ToneInput | None, rf: Sequence[ToneInput],
+        *, leakage: bool = True,
+    ) -> PortLines:
+        """Every line at each port as a complex amplitude (sqrt(W) into 50 ohm, phases in
+        radians), merged by frequency, no floor applied; ``leakage=False`` leaves out the
+        linear paths (isolation and port reflections), so the rest is what the core makes.
+        The complex amplitudes of two evaluations can be subtracted to split lines by
+        origin (see :mod:`sweeprig.sim.truth`)."""
+        ev = self._evaluate(op, lo, tuple(rf), leakage=leakage)
+        return PortLines(
+            output=ev.output,
+            input=merge_coincident(_entries_to_lines(ev.input_entries, 1 + len(tuple(rf)))),
+            lo=merge_coincident(_entries_to_lines(ev.lo_entries, 1 + len(tuple(rf)))),
+            noise_dbm_per_hz=ev.noise_dbm_per_hz,
+            notes=ev.notes,
+        )
+
+    def _evaluate(
+        self, op: OperatingPoint, lo: ToneInput | None, tones: tuple[ToneInput, ...],
+        *, leakage: bool,
+    ) -> _Evaluation:
         self._check_inputs(lo, tones)
         state = self._state(op)
         cell = state.cell
@@ -500,6 +583,7 @@ class MixerPart:
             shape, converged = self._rf_shape(op, amps, cell)
             rf_fac = rf_factor(amps, cell, self.max_rf_order, shape)
         else:
+            amps = ()
             shape, converged, rf_fac = (), True, state.no_rf
         core = combine(
             lo_prep.factor, lo.freq_hz if lo is not None else 0.0,
@@ -507,6 +591,7 @@ class MixerPart:
             [t.phase_rad for t in tones], cell.i_ee_a, self.max_lo_order, self.max_rf_order,
             state.min_abs_a,
         )
+        n_axes = 1 + len(tones)
         amp = core.amp * state.out_scale
         if out.highpass_hz is not None or out.lowpass_hz is not None:
             amp *= out.magnitude(core.freq_hz)
@@ -516,46 +601,66 @@ class MixerPart:
             core = Lines(core.freq_hz[keep], amp[keep], core.orders[keep])
         else:
             core = Lines(core.freq_hz, amp, core.orders)
-        n_axes = 1 + len(tones)
-        leaks: list[_Entry] = []
-        iso = self.isolation_rf_if_db
-        if iso is not None:
-            for k, t in enumerate(tones):
-                leaks += _tone_entries(t, 1 + k, n_axes, iso)
-        iso = self.isolation_lo_to_output_db
-        if lo is not None and iso is not None:
-            leaks += _tone_entries(lo, 0, n_axes, iso)
         core = merge_coincident(core)
-        if leaks:
-            core = _add_entries(core, leaks)
-        if_port = self._products(core)
-
+        imbalance = self.load_mismatch + lo_prep.d0
+        if tones and self.cm_second_order and imbalance:
+            cm = common_mode_im2_lines(
+                np.array([h * t.freq_hz for t, a in zip(tones, amps, strict=True)
+                          for h in range(1, len(a) + 1)]),
+                np.array([v for a in amps for v in a]),
+                np.array([h * t.phase_rad for t, a in zip(tones, amps, strict=True)
+                          for h in range(1, len(a) + 1)]),
+                tuple(len(a) for a in amps), n_axes, cell.i_ee_a,
+                2.0 * cell.vt_v + cell.i_ee_a * cell.r_e_ohm, self.cm_second_order, imbalance,
+            )
+            if cm is not None:
+                cm_freq, cm_amp, cm_orders = cm
+                cm_amp = cm_amp * state.out_scale
+                if out.highpass_hz is not None or out.lowpass_hz is not None:
+                    cm_amp = cm_amp * out.magnitude(cm_freq)
+                core = add_lines(core, Lines(cm_freq, cm_amp, cm_orders))
+        phases = self.leakage_phases
         in_entries: list[_Entry] = []
-        iso = self.isolation_lo_to_input_db
-        if lo is not None and iso is not None:
-            in_entries += _tone_entries(lo, 0, n_axes, iso)
-        if inp.return_loss_db is not None:
-            for k, t in enumerate(tones):
-                in_entries += _tone_entries(t, 1 + k, n_axes, inp.return_loss_db)
         lo_entries: list[_Entry] = []
-        if lo is not None and self.lo_port.return_loss_db is not None:
-            lo_entries += _tone_entries(lo, 0, n_axes, self.lo_port.return_loss_db)
-        iso = self.isolation_rf_lo_db
-        if iso is not None:
-            for k, t in enumerate(tones):
-                lo_entries += _tone_entries(t, 1 + k, n_axes, iso)
-
-        return MixerResponse(
-            if_port=if_port,
-            rf_port=_entries_to_products(in_entries, self.floor_dbm),
-            lo_port=_entries_to_products(lo_entries, self.floor_dbm),
-            if_noise_dbm_per_hz=lo_prep.noise_dbm_per_hz,
+        if leakage:
+            leaks: list[_Entry] = []
+            iso = self.isolation_rf_if_db
+            if iso is not None:
+                for k, t in enumerate(tones):
+                    leaks += _tone_entries(t, 1 + k, n_axes, iso, phases.rf_to_if)
+            iso = self.isolation_lo_to_output_db
+            if lo is not None and iso is not None:
+                path = phases.lo_to_if if self.conversion == "down" else phases.lo_to_rf
+                leaks += _tone_entries(lo, 0, n_axes, iso, path)
+            if leaks:
+                core = _add_entries(core, leaks)
+            iso = self.isolation_lo_to_input_db
+            if lo is not None and iso is not None:
+                path = phases.lo_to_rf if self.conversion == "down" else phases.lo_to_if
+                in_entries += _tone_entries(lo, 0, n_axes, iso, path)
+            if inp.return_loss_db is not None:
+                for k, t in enumerate(tones):
+                    in_entries += _tone_entries(t, 1 + k, n_axes, inp.return_loss_db,
+                                                phases.input_reflection)
+            if lo is not None and self.lo_port.return_loss_db is not None:
+                lo_entries += _tone_entries(lo, 0, n_axes, self.lo_port.return_loss_db,
+                                            phases.lo_reflection)
+            iso = self.isolation_rf_lo_db
+            if iso is not None:
+                for k, t in enumerate(tones):
+                    lo_entries += _tone_entries(t, 1 + k, n_axes, iso, phases.rf_to_lo)
+        return _Evaluation(
+            output=core,
+            input_entries=in_entries,
+            lo_entries=lo_entries,
+            noise_dbm_per_hz=lo_prep.noise_dbm_per_hz,
             supply_current_a=state.supply_current_a,
             notes={
                 "vt_v": cell.vt_v,
                 "tail_current_a": cell.i_ee_a,
                 "gm_s": state.gm_s,
                 "conversion_gain_db": lo_prep.gain_db,
+                "noise_figure_db": lo_prep.noise_figure_db,
                 "lo_grid_n": float(lo_prep.factor.grid_n),
                 "rf_grid_points": float(math.prod(shape)),
                 "rf_grid_n_max": float(max(shape, default=1)),
@@ -573,10 +678,37 @@ class MixerPart:
             amps = () if lo is None else self.tone_core_amplitudes(lo, self.lo_port)
             factor = lo_factor(amps, state.cell, self.max_lo_order)
             gain_db = self._small_signal_gain_db(state, factor)
-            noise = max(KT0_DBM_PER_HZ + state.noise_figure_db + gain_db, KT0_DBM_PER_HZ)
-            prep = _LoPrepared(factor, gain_db, noise)
+            nf_db = state.noise_figure_db
+            if lo is not None and self.noise_lo_nominal_dbm is not None:
+                nf_db = self._lo_drive_noise_figure_db(op, lo, amps[0], gain_db, state)
+            noise = max(KT0_DBM_PER_HZ + nf_db + gain_db, KT0_DBM_PER_HZ)
+            zero = np.flatnonzero(factor.orders == 0)
+            d0 = float(factor.d[zero[0]].real) if zero.size else 0.0
+            prep = _LoPrepared(factor, gain_db, noise, nf_db, d0)
             self._remember(key, prep)
         return prep
+
+    def _lo_drive_noise_figure_db(
+        self, op: OperatingPoint, lo: ToneInput, amp_v: float, gain_db: float, state: _OpState
+    ) -> float:
+        """Noise figure at this LO drive (``noise.lo_nominal`` holds ``noise.figure``)."""
+        assert self.noise_lo_nominal_dbm is not None
+        key = ("lo-nominal", op, lo.freq_hz)
+        nominal = self._cache.get(key)
+        if nominal is None:
+            nom_amps = self.tone_core_amplitudes(
+                ToneInput(lo.freq_hz, self.noise_lo_nominal_dbm), self.lo_port)
+            nom_gain = self._small_signal_gain_db(
+                state, lo_factor(nom_amps, state.cell, self.max_lo_order))
+            nominal = (switch_overlap_fraction(nom_amps[0], state.cell.vt_v), nom_gain)
+            self._remember(key, nominal)
+        nom_overlap, nom_gain_db = nominal
+        factor = lo_drive_noise_factor(
+            10.0 ** (state.noise_figure_db / 10.0), self.noise_switch_share,
+            switch_overlap_fraction(amp_v, state.cell.vt_v), nom_overlap,
+            10.0 ** ((gain_db - nom_gain_db) / 10.0),
+        )
+        return 10.0 * math.log10(factor) if math.isfinite(factor) else 300.0
 
     def _small_signal_gain_db(self, state: _OpState, lo_fac: LoFactor) -> float:
         """Mid-band small-signal transducer conversion gain (no band edges), dB.
@@ -645,16 +777,24 @@ def _unit_orders(n_axes: int, axis: int, multiple: int) -> tuple[int, ...]:
     return tuple(row)
 
 
-def _tone_entries(tone: ToneInput, axis: int, n_axes: int, loss_db: float) -> list[_Entry]:
+def _tone_entries(
+    tone: ToneInput, axis: int, n_axes: int, loss_db: float, path: LeakPhase | None = None
+) -> list[_Entry]:
     """A tone and its harmonics carried by a linear path with ``loss_db``: (freq, sqrt(W)
-    amplitude with the tone's phase (harmonic h at phase h·φ), orders)."""
+    amplitude with the tone's phase (harmonic h at phase h·φ) turned by the path's own
+    phase at that frequency, orders)."""
     root_w = 10.0 ** ((tone.power_dbm - loss_db - 30.0) / 20.0)  # sqrt(W) of the fundamental
     phase = tone.phase_rad
-    out: list[_Entry] = [(tone.freq_hz, cmath.rect(root_w, phase) if phase else complex(root_w),
-                          _unit_orders(n_axes, axis, 1))]
+    turn = path is not None and (path.phase_rad or path.delay_s)
+    first = cmath.rect(root_w, phase) if phase else complex(root_w)
+    if turn:
+        first *= path.rotation(tone.freq_hz)  # type: ignore[union-attr]
+    out: list[_Entry] = [(tone.freq_hz, first, _unit_orders(n_axes, axis, 1))]
     for h, dbc in enumerate(tone.harmonics_dbc, start=2):
-        out.append((h * tone.freq_hz, cmath.rect(root_w * 10.0 ** (dbc / 20.0), h * phase),
-                    _unit_orders(n_axes, axis, h)))
+        amp = cmath.rect(root_w * 10.0 ** (dbc / 20.0), h * phase)
+        if turn:
+            amp *= path.rotation(h * tone.freq_hz)  # type: ignore[union-attr]
+        out.append((h * tone.freq_hz, amp, _unit_orders(n_axes, axis, h)))
     return out
 
 
@@ -685,7 +825,9 @@ def _add_entries(lines: Lines, entries: list[_Entry]) -> Lines:
     return merged
 
 
-def _entries_to_lines(entries: list[_Entry]) -> Lines:
+def _entries_to_lines(entries: list[_Entry], n_axes: int = 1) -> Lines:
+    if not entries:
+        return Lines(np.zeros(0), np.zeros(0, dtype=complex), np.empty(0, dtype=object))
     orders = np.empty(len(entries), dtype=object)
     orders[:] = [e[2] for e in entries]
     return Lines(np.array([e[0] for e in entries]), np.array([e[1] for e in entries]), orders)
@@ -758,6 +900,10 @@ def part_from_file_model(model: PartFile, source: str = "") -> MixerPart:
         isolation_rf_lo_db=iso.rf_to_lo,
         noise_figure_db=model.noise.figure,
         noise_figure_tempco_db_per_c=model.noise.figure_tempco,
+        cm_second_order=core.cm_second_order,
+        load_mismatch=mis.load,
+        noise_lo_nominal_dbm=model.noise.lo_nominal,
+        noise_switch_share=model.noise.switch_share,
         max_lo_order=model.model.max_lo_order,
         max_rf_order=model.model.max_rf_order,
         floor_dbm=model.model.floor,

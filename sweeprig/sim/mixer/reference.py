@@ -51,7 +51,8 @@ class ReferenceFigures:
       (``-inf`` when below the model's floor). ``lo_to_rf_dbm``: the same at the input port.
     * ``rf_to_if_isolation_db``: input power minus the output port's line at the input
       frequency, small single tone with the LO on, dB (``inf`` when absent).
-    * ``noise_figure_db``: mid-band SSB noise figure at the die temperature (a measurement
+    * ``noise_figure_db``: mid-band SSB noise figure at the die temperature and this LO drive
+      (it rises below the part's ``noise.lo_nominal``; a measurement
       near a band edge sees it plus the band-edge losses ahead of the gain);
       ``if_noise_dbm_per_hz``: output noise density with the LO alone,
       ``kT0 + NF + G_mid-band``.
@@ -204,7 +205,7 @@ def reference_figures(
         lo_to_if_dbm=line_power_dbm(alone.if_port, lo_freq_hz),
         lo_to_rf_dbm=line_power_dbm(alone.rf_port, lo_freq_hz),
         rf_to_if_isolation_db=small - feed,
-        noise_figure_db=part.noise_figure_at(op),
+        noise_figure_db=alone.notes.get("noise_figure_db", part.noise_figure_at(op)),
         if_noise_dbm_per_hz=alone.if_noise_dbm_per_hz,
         supply_current_a=alone.supply_current_a,
     )
