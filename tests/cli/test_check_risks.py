@@ -5,6 +5,7 @@ from pathlib import Path
 
 import pytest
 
+from sweeprig.engine.session import shipped_sequences_dir
 from tests.support import check_app, invoke
 
 ROOT = Path(__file__).resolve().parents[2]
@@ -48,8 +49,8 @@ def test_check_warns_and_names_each_reading(app, tmp_path: Path) -> None:
     out = result.output
     assert "warning:" in out and "cannot be trusted as planned" in out
     assert "two-tone: im3.lower: analyzer_distortion" in out
-    # the sim bench states its analyzer's figures except phase noise
-    assert "phase noise" in out and "assumed, not stated by the bench file" in out
+    # the simulated bench states every figure of its analyzer and sources (phase noise too)
+    assert "assumed, not stated by the bench file" not in out
     assert "third-order intercept" not in out  # stated by the sim bench's [analyzer]
 
 
@@ -74,3 +75,14 @@ def test_demo_plans_with_its_risks_named(app) -> None:
     result = invoke(app, "check", DEMO)
     assert result.exit_code == 0, result.output
     assert "source_harmonic" in result.output  # m×n spurs made by the sources' harmonics
+
+
+def test_a_bench_without_figures_is_checked_with_marked_assumptions(app, tmp_path: Path):
+    text = (shipped_sequences_dir() / "benches" / "sim.toml").read_text(encoding="utf-8")
+    start, end = text.index("# BEGIN stated figures"), text.index("# END stated figures")
+    bench = tmp_path / "bench.toml"
+    bench.write_text(text[:start] + text[end:], encoding="utf-8")
+    result = invoke(app, "check", write(tmp_path, "warn"), "--bench", bench)
+    assert result.exit_code == 0, result.output
+    assert "assumed, not stated by the bench file" in result.output
+    assert "phase noise" in result.output

@@ -44,8 +44,8 @@ from sweeprig.analysis.figures import Figure
 from sweeprig.analysis.reduce import RunFigures, reduce_run
 from sweeprig.engine.session import run_sequence
 from sweeprig.errors import SweeprigError
-from sweeprig.sim.bench import load_sim_bench_description
-from sweeprig.sim.mixer import OperatingPoint, ToneInput, load_part, reference_figures
+from sweeprig.sim.bench import load_sim_bench_description, prepare_part
+from sweeprig.sim.mixer import OperatingPoint, ToneInput, reference_figures
 from sweeprig.sim.mixer.part import MixerPart
 from sweeprig.sim.mixer.reference import ReferenceFigures, line_power_dbm, single_tone_gain_db
 from sweeprig.store.sqlite import SqliteRunStore
@@ -197,11 +197,6 @@ def reference_at(result: CaseResult, point: int) -> ReferenceFigures:
     return result.truths[point]
 
 
-def _part_path(description_path: Path, part: str) -> str | Path:
-    local = description_path.parent / part
-    return local if local.is_file() else part
-
-
 def truth_of(result: CaseResult, figure: Figure) -> float | None:
     """The model's own value of ``figure`` (None where the corpus has no truth for it)."""
     if not figure.points or figure.name not in DEFAULT_TOLERANCE_DB:
@@ -241,8 +236,8 @@ def truth_of(result: CaseResult, figure: Figure) -> float | None:
 def _part_and_op(result: CaseResult, point: int) -> tuple[MixerPart, OperatingPoint, pd.Series]:
     assert result.run is not None
     row = _point_row(result.run, point)
-    description = load_sim_bench_description(result.case.sim_bench)
-    part = load_part(_part_path(result.case.sim_bench, description.part))
+    # the part as it sits on this bench: its leakage paths with the bench's seeded phases
+    part = prepare_part(load_sim_bench_description(result.case.sim_bench))
     return part, OperatingPoint(float(row["probe_temperature_c"]), float(row["supply_v"])), row
 
 
