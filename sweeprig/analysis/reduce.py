@@ -42,11 +42,13 @@ import numpy as np
 import pandas as pd
 
 from sweeprig import analysis as an
+from sweeprig.analysis.bench_specs import specs_from_bench_text
 from sweeprig.analysis.captures import CONDITION_COLUMNS
 from sweeprig.analysis.figures import UNPOWERED, Figure, flag_points
 from sweeprig.analysis.gain import unpowered_points
 from sweeprig.analysis.limits import INCONCLUSIVE, PASS, Assessment, Limit, Verdict, assess
 from sweeprig.analysis.load import DIRECT_KINDS, PRODUCT_SUFFIXES, captures_from_frames
+from sweeprig.analysis.uncertainty import attach_uncertainty
 from sweeprig.analysis.validity import UNPOWERED_GAIN_MARGIN_DB
 from sweeprig.errors import SweeprigError
 from sweeprig.files import read_file_text
@@ -167,8 +169,11 @@ def reduce_run(store: RunStore, run_id: int) -> RunFigures:
     figures = _figures(captures, studies, notes)
     if sequence is not None:
         figures = _flag_unpowered(figures, captures, sequence.part.expected_gain, notes)
+    bench_specs = specs_from_bench_text(info.bench_text, info.bench_path or "bench file")
+    notes += bench_specs.notes
+    figures = attach_uncertainty(figures, captures, bench_specs.specs)
     limits = limits_from_sequence(sequence) if sequence is not None else ()
-    assessment = assess(figures, limits)
+    assessment = assess(figures, limits, guard_band=bench_specs.guard_band)
     state = _state(info.status, info.points_done, info.points_total)
     verdict: Verdict = assessment.verdict
     if not limits:

@@ -194,6 +194,49 @@ class SafeState(Frozen):
          'such as "25 degC"'})] = 25.0
 
 
+class SpecLimit(Frozen):
+    """A specification given with its distribution."""
+
+    value: LevelDb = Field(description='the ± limit, e.g. "0.3 dB"')
+    shape: Literal["rectangular", "triangular", "u-shaped", "normal-k2"] = Field(
+        "rectangular", description="how the limit is read: rectangular (a ± limit, GUM "
+        "4.3.7), triangular, u-shaped, or normal-k2 (stated at 95 %, k = 2)")
+
+
+SpecValue = Annotated[
+    Annotated[LevelDb, Tag(f"{TAG_PREFIX}constant")]
+    | Annotated[SpecLimit, Tag(f"{TAG_PREFIX}table")],
+    Discriminator(lambda v: f"{TAG_PREFIX}table" if isinstance(v, dict | SpecLimit)
+                  else f"{TAG_PREFIX}constant"),
+]
+
+
+class UncertaintySpecs(Frozen):
+    """Instrument specifications for the figures' uncertainty budgets (± limits, read as
+    rectangular unless a table says otherwise). Left out: a typical value, marked in every
+    budget as an assumption."""
+
+    input_level: SpecValue | None = Field(
+        None, description="level at the DUT inputs without a calibration: source level "
+        "accuracy and the typed path loss together (default 1 dB)")
+    output_path: SpecValue | None = Field(
+        None, description="typed output path loss without a calibration (default 0.3 dB)")
+    analyzer_absolute: SpecValue | None = Field(
+        None, description="analyzer absolute amplitude accuracy (default 0.5 dB)")
+    analyzer_linearity: SpecValue | None = Field(
+        None, description="analyzer display (scale) linearity (default 0.1 dB)")
+    power_meter: SpecValue | None = Field(
+        None, description="power meter and sensor accuracy, calibration factor included "
+        "(default 0.15 dB)")
+    bench_match: float | None = Field(
+        None, description="|Γ| of the bench's connections at the DUT planes (default 0.05)")
+    part_match: float | None = Field(
+        None, description="|Γ| of the part's ports (default 0.2)")
+    guard_band: StrictBool = Field(
+        False, description="judge limits with the expanded uncertainty as a guard band: "
+        "pass only when value ± U is inside, fail only when it is outside")
+
+
 class Bench(LocatedFile):
     """A whole bench file."""
 
@@ -204,6 +247,7 @@ class Bench(LocatedFile):
     path_loss: PathLosses = Field(default_factory=PathLosses)
     limits: Limits = Field(default_factory=Limits)
     safe_state: SafeState = Field(default_factory=SafeState)
+    uncertainty: UncertaintySpecs = Field(default_factory=UncertaintySpecs)
 
     _losses: dict[str, PathLoss] = PrivateAttr(default_factory=dict)
 
@@ -352,6 +396,7 @@ def check_bench(bench: Bench, *, known_profiles: Collection[str] | None = None) 
                          where=bench.where(("bench", "timeout")),
                          fix='write a time such as "5 s", or leave the key out (5 s)')
     _check_losses(bench)
+    _check_uncertainty(bench)
     sa = bench.roles.sa
     if sa is not None and sa.noise_figure is not None and \
             not 0 <= sa.noise_figure <= MAX_NOISE_FIGURE_DB:
@@ -434,3 +479,24 @@ def _check_safe_state(bench: Bench) -> None:
             where=bench.where(("safe_state", "chamber")),
             fix=f'use "off" or a set point between the chamber_min and chamber_max limits. '
             f"{SAFE_STATE_CAUTION}")
+
+
+def _check_uncertainty(bench: Bench) -> None:
+    """Refuse impossible specifications: a negative limit, a |Γ| outside 0 to 1."""
+    table = bench.uncertainty
+    for key in ("input_level", "output_path", "analyzer_absolute", "analyzer_linearity",
+                "power_meter"):
+        value = getattr(table, key)
+        number = value.value if isinstance(value, SpecLimit) else value
+        if number is not None and number < 0:
+            raise InputError(f"a specification of {number:g} dB is negative: it is a ± limit",
+                             where=bench.where(("uncertainty", key)),
+                             fix='write its size, e.g. "0.3 dB"')
+    for key in ("bench_match", "part_match"):
+        gamma = getattr(table, key)
+        if gamma is not None and not 0.0 <= gamma < 1.0:
+            raise InputError(f"|Γ| = {gamma:g} is impossible for a passive port: it must be "
+                             "at least 0 and below 1",
+                             where=bench.where(("uncertainty", key)),
+                             fix="write the reflection coefficient's magnitude, e.g. 0.05 "
+                             "(VSWR 1.1)")
