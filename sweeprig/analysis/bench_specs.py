@@ -1,4 +1,6 @@
-"""The bench file's ``[uncertainty]`` table as :class:`InstrumentSpecs` for the budgets.
+"""What the uncertainty budgets take from a run: the bench file's ``[uncertainty]`` table as
+:class:`InstrumentSpecs`, and the calibration stored with the run as a
+:class:`CalibrationState`.
 
 A run's figures are reduced from the store, so the specifications come from the bench text
 stored with the run (the bench file as it was when the run started). A value the table leaves
@@ -8,12 +10,22 @@ out keeps its default, marked in the budget as an assumption.
 from __future__ import annotations
 
 import tomllib
+from collections.abc import Iterable
 from dataclasses import dataclass, replace
 
 from pydantic import ValidationError
 
-from sweeprig.analysis.uncertainty import InstrumentSpecs, Spec
+from sweeprig.analysis.uncertainty import (
+    UNCALIBRATED,
+    CalibrationState,
+    InstrumentSpecs,
+    Spec,
+)
+from sweeprig.errors import SweeprigError
 from sweeprig.formats.bench import SpecLimit, UncertaintySpecs
+from sweeprig.formats.calibration import INPUT_CONNECTIONS, OUTPUT_CONNECTIONS
+from sweeprig.store.base import EventRecord
+from sweeprig.units import parse_quantity
 
 _SPEC_KEYS = ("input_level", "output_path", "analyzer_absolute", "analyzer_linearity",
               "power_meter")
@@ -83,3 +95,36 @@ def specs_from_bench_text(text: str | None, source: str = "bench file") -> Bench
                 f"the stored bench file's [uncertainty].{key} = {gamma:g} is not a |Γ| "
                 "(0 to below 1): the budgets use default specifications (assumptions)",))
     return specs_from_table(table, source)
+
+
+def calibration_state(events: Iterable[EventRecord]) -> tuple[CalibrationState, str | None]:
+    """What the run's calibration corrected, from the calibration stored with the run (its
+    ``calibration`` event), and a note naming it (and any warning the run recorded about
+    it, such as an accepted expiry); uncalibrated and None without one."""
+    events = list(events)
+    warnings = [e.message for e in events if e.kind == "calibration" and e.severity == "warning"]
+    for event in events:
+        if event.kind != "calibration" or "text" not in event.details:
+            continue
+        try:
+            data = tomllib.loads(str(event.details["text"]))
+        except tomllib.TOMLDecodeError:
+            return UNCALIBRATED, ("the calibration stored with the run cannot be read: the "
+                                  "budgets treat the run as uncalibrated")
+        tables = data.get("loss", {}) if isinstance(data.get("loss"), dict) else {}
+        repeatability = None
+        raw = data.get("repeatability")
+        if raw is not None:
+            try:
+                repeatability = parse_quantity(raw, "level_db")
+            except SweeprigError:
+                repeatability = None
+        path = str(event.details.get("path", "calibration"))
+        state = CalibrationState(
+            input_calibrated=any(c in tables for c in INPUT_CONNECTIONS),
+            output_calibrated=any(c in tables for c in OUTPUT_CONNECTIONS),
+            repeatability_db=repeatability,
+            origin=f"{path} repeatability")
+        note = f"figures corrected by the {event.message} (stored with the run)"
+        return state, note + "".join(f"; WARNING: {w}" for w in warnings)
+    return UNCALIBRATED, None

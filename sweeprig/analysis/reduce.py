@@ -42,7 +42,7 @@ import numpy as np
 import pandas as pd
 
 from sweeprig import analysis as an
-from sweeprig.analysis.bench_specs import specs_from_bench_text
+from sweeprig.analysis.bench_specs import calibration_state, specs_from_bench_text
 from sweeprig.analysis.captures import CONDITION_COLUMNS
 from sweeprig.analysis.figures import UNPOWERED, Figure, flag_points
 from sweeprig.analysis.gain import unpowered_points
@@ -171,7 +171,9 @@ def reduce_run(store: RunStore, run_id: int) -> RunFigures:
         figures = _flag_unpowered(figures, captures, sequence.part.expected_gain, notes)
     bench_specs = specs_from_bench_text(info.bench_text, info.bench_path or "bench file")
     notes += bench_specs.notes
-    figures = attach_uncertainty(figures, captures, bench_specs.specs)
+    calibration, calibration_note = calibration_state(events)
+    notes += [calibration_note] if calibration_note else []
+    figures = attach_uncertainty(figures, captures, bench_specs.specs, calibration)
     limits = limits_from_sequence(sequence) if sequence is not None else ()
     assessment = assess(figures, limits, guard_band=bench_specs.guard_band)
     state = _state(info.status, info.points_done, info.points_total)

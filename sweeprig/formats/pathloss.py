@@ -54,6 +54,7 @@ class TableLoss:
     loss_table_db: np.ndarray = field(repr=False)
     file: str = ""
     where: str = ""
+    fix: str = ""  # what to do when a frequency lies outside the table (default: extend it)
 
     def loss_db(self, freq_hz: ArrayLike) -> np.ndarray:
         """Loss in dB at each frequency (Hz); InputError if any lies outside the table."""
@@ -69,8 +70,8 @@ class TableLoss:
                     f"{self.file} ({format_frequency(lo)} to {format_frequency(hi)}); "
                     "sweeprig does not extrapolate loss tables",
                     where=self.where or self.file,
-                    fix="extend the table to cover every frequency the sequence uses, or "
-                    "narrow the sweep",
+                    fix=self.fix or "extend the table to cover every frequency the sequence "
+                    "uses, or narrow the sweep",
                 )
         return np.interp(f, self.freq_hz, self.loss_table_db)
 
