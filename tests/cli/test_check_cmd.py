@@ -139,3 +139,21 @@ def test_help_has_an_example(app, command: str) -> None:
     result = run(app, command, "--help")
     assert result.exit_code == 0
     assert "Example:" in result.output and f"sweeprig {command}" in result.output
+
+
+CALIBRATIONS = ROOT / "tests" / "corpus" / "calibrations"
+
+
+def test_check_shows_the_calibration_status_and_its_grid(app) -> None:
+    good = run(app, "check", QUICK, "--calibration", CALIBRATIONS / "other-instrument.toml")
+    assert good.exit_code == 0, good.output
+    assert "calibration " in good.output and "valid for" in good.output
+    assert "compared with the bench's when a run starts" in good.output
+    narrow = run(app, "check", QUICK, "--calibration", CALIBRATIONS / "grid-too-narrow.toml")
+    assert narrow.exit_code == 2
+    assert "grid-too-narrow.toml:20: loss.rf" in narrow.output and "2.3 GHz" in narrow.output
+    expired = run(app, "check", QUICK, "--calibration", CALIBRATIONS / "expired.toml")
+    assert expired.exit_code == 2 and "expired on 2026-02-01" in expired.output
+    accepted = run(app, "check", QUICK, "--calibration", CALIBRATIONS / "expired.toml",
+                   "--accept-calibration")
+    assert accepted.exit_code == 0 and "WARNING" in accepted.output
