@@ -114,6 +114,14 @@ class LossFile(Frozen):
     amplifier: StrictBool = Field(False, description="with csv or touchstone: the connection "
                                   "holds an amplifier, so the table may show gain (negative "
                                   "loss); without it, gain in a table is refused")
+    cascade: tuple[str, ...] | None = Field(
+        None, description="two-port Touchstone files (.s2p) in signal order, cascaded into "
+        "one network (e.g. a cable, then a test board's input trace); loss = −20·log10|S21|")
+    deembed_start: tuple[str, ...] = Field(
+        (), description="with cascade: two-ports removed from the start of the chain (parts "
+        "a measurement included that the bench does not have)")
+    deembed_end: tuple[str, ...] = Field(
+        (), description="with cascade: two-ports removed from the end of the chain")
 
 
 def _loss_shape(value: Any) -> str:
@@ -317,6 +325,13 @@ def load_bench(path: str | os.PathLike[str], *, known_profiles: Collection[str] 
 
 def _load_loss_file(bench: Bench, key: KeyPath, value: LossFile, base: Path) -> PathLoss:
     where = bench.where(key)
+    if value.cascade is not None:
+        from sweeprig.formats.networks import chain_loss
+
+        return chain_loss([base / f for f in value.cascade],
+                          deembed_start=[base / f for f in value.deembed_start],
+                          deembed_end=[base / f for f in value.deembed_end], where=where,
+                          display=f"path_loss.{key[-1]}", allow_gain=value.amplifier)
     if value.csv is not None:
         path = base / value.csv
         return read_csv_loss(path, display=display_path(path), where=where,
@@ -431,11 +446,22 @@ def _check_losses(bench: Bench) -> None:
                 f'gain: {name} = {{ gain = "{-value:g} dB" }}')
         if not isinstance(value, LossFile):
             continue
-        given = [k for k in ("csv", "touchstone", "gain") if getattr(value, k) is not None]
+        given = [k for k in ("csv", "touchstone", "gain", "cascade")
+                 if getattr(value, k) is not None]
         if len(given) != 1:
-            raise InputError("a path loss table needs exactly one of csv, touchstone or gain",
+            raise InputError("a path loss table needs exactly one of csv, touchstone, cascade "
+                             "or gain",
                              where=where, fix='write { csv = "cal/rf.csv" }, '
-                             '{ touchstone = "cal/rf.s2p" } or { gain = "20 dB" }')
+                             '{ touchstone = "cal/rf.s2p" }, { cascade = ["cable.s2p", '
+                             '"board.s2p"] } or { gain = "20 dB" }')
+        if (value.deembed_start or value.deembed_end) and value.cascade is None:
+            raise InputError("deembed_start and deembed_end go with cascade", where=where,
+                             fix='write { cascade = ["cable.s2p"], deembed_end = '
+                             '["adapter.s2p"] }')
+        if value.cascade is not None and not value.cascade:
+            raise InputError("cascade lists no file", where=where,
+                             fix='name the two-port files in signal order, e.g. '
+                             '["cable.s2p", "board.s2p"]')
         if value.gain is not None:
             if value.gain < 0:
                 raise InputError(
