@@ -121,8 +121,8 @@ def calibration_state(events: Iterable[EventRecord]) -> tuple[CalibrationState, 
                 repeatability = None
         path = str(event.details.get("path", "calibration"))
         state = CalibrationState(
-            input_calibrated=any(c in tables for c in INPUT_CONNECTIONS),
-            output_calibrated=any(c in tables for c in OUTPUT_CONNECTIONS),
+            connections=frozenset(c for c in tables if c in (*INPUT_CONNECTIONS,
+                                                                *OUTPUT_CONNECTIONS)),
             repeatability_db=repeatability,
             origin=f"{path} repeatability")
         note = f"figures corrected by the {event.message} (stored with the run)"

@@ -223,14 +223,18 @@ class InstrumentSpecs:
 
 @dataclass(frozen=True)
 class CalibrationState:
-    """What a calibration corrected: the input planes (source levels, by power meter), the
-    output path (receiver, referred to the power meter), and the calibration's measured
+    """What a calibration corrected: the bench connections whose loss it measured (source
+    connections ``rf``, ``rf2``, ``lo`` by power meter at the DUT planes; output paths
+    ``if``, ``rf_port``, ``lo_port`` referred to the power meter), and its measured
     repeatability (a standard deviation, dB; None when not measured)."""
 
-    input_calibrated: bool = False
-    output_calibrated: bool = False
+    connections: frozenset[str] = frozenset()
     repeatability_db: float | None = None
     origin: str = ""
+
+    def covers(self, connections: tuple[str, ...]) -> bool:
+        """True when every one of ``connections`` was calibrated (and there is one)."""
+        return bool(connections) and all(c in self.connections for c in connections)
 
 
 UNCALIBRATED = CalibrationState()
@@ -256,6 +260,9 @@ class _Model:
     order: int = 0
     product: str | None = None
     relative_c: float = 0.0  # two uncorrelated gain readings (flatness): √2
+    #: The bench connections the input and output levels went through.
+    input_via: tuple[str, ...] = ("rf",)
+    output_via: tuple[str, ...] = ("if",)
 
 
 def _intercept(input_c: float, output_c: float, order: int, side: str | None,
@@ -263,7 +270,8 @@ def _intercept(input_c: float, output_c: float, order: int, side: str | None,
     prod = f"im{order}_{side}" if side else None
     return _Model(input_c=input_c, output_c=output_c, linearity_c=1.0 / (order - 1),
                   noise_reading=prod, noise_c=-1.0 / (order - 1),
-                  fit=None if single else "intercept", order=order, product=prod)
+                  fit=None if single else "intercept", order=order, product=prod,
+                  input_via=("rf", "rf2"))
 
 
 def _models() -> dict[str, _Model]:
@@ -271,15 +279,17 @@ def _models() -> dict[str, _Model]:
         "conversion_gain": _Model(-1.0, 1.0, noise_reading="if", noise_c=1.0),
         "small_signal_gain": _Model(-1.0, 1.0, noise_reading="if", noise_c=1.0, fit="linear"),
         "gain_flatness": _Model(noise_reading="if", noise_c=1.0, relative_c=math.sqrt(2.0)),
-        "lo_power_for_gain": _Model(input_c=1.0),
+        "lo_power_for_gain": _Model(input_c=1.0, input_via=("lo",)),
         "image_rejection": _Model(linearity_c=1.0, noise_reading="image", noise_c=1.0),
         "im3_low": _Model(linearity_c=1.0, noise_reading="im3_low", noise_c=1.0),
         "im3_high": _Model(linearity_c=1.0, noise_reading="im3_high", noise_c=1.0),
         "im3_asymmetry": _Model(linearity_c=math.sqrt(2.0)),
         "spur_dbc": _Model(linearity_c=1.0, noise_reading="spur", noise_c=1.0),
         "spur_dbm": _Model(output_c=1.0, noise_reading="spur", noise_c=1.0),
-        "lo_if_isolation": _Model(1.0, -1.0, noise_reading="lo_at_if", noise_c=-1.0),
-        "lo_rf_isolation": _Model(1.0, -1.0, noise_reading="lo_at_rf", noise_c=-1.0),
+        "lo_if_isolation": _Model(1.0, -1.0, noise_reading="lo_at_if", noise_c=-1.0,
+                                  input_via=("lo",)),
+        "lo_rf_isolation": _Model(1.0, -1.0, noise_reading="lo_at_rf", noise_c=-1.0,
+                                  input_via=("lo",), output_via=("rf_port",)),
         "rf_if_isolation": _Model(1.0, -1.0, noise_reading="rf_at_if", noise_c=-1.0),
         "output_psat": _Model(output_c=1.0),
     }
@@ -387,8 +397,10 @@ def _level_terms(model: _Model, specs: InstrumentSpecs, cal: CalibrationState
                  ) -> list[Contribution]:
     out: list[Contribution] = []
     pm = specs.power_meter
+    input_cal = cal.covers(model.input_via)
+    output_cal = cal.covers(model.output_via)
     if model.input_c:
-        if cal.input_calibrated:
+        if input_cal:
             out.append(Contribution("input_power_meter", "power meter and sensor at the DUT "
                                     "input plane (source calibration)", pm.half_width_db,
                                     pm.shape, model.input_c, "B", pm.origin))
@@ -400,7 +412,7 @@ def _level_terms(model: _Model, specs: InstrumentSpecs, cal: CalibrationState
         out.append(_mismatch("input_mismatch", "bench source ↔ part input", specs,
                              model.input_c))
     if model.output_c:
-        if cal.output_calibrated:
+        if output_cal:
             out.append(Contribution("output_power_meter", "power meter behind the receiver "
                                     "path calibration", pm.half_width_db, pm.shape,
                                     model.output_c, "B", pm.origin))
@@ -413,8 +425,8 @@ def _level_terms(model: _Model, specs: InstrumentSpecs, cal: CalibrationState
                                     p.half_width_db, p.shape, model.output_c, "B", p.origin))
         out.append(_mismatch("output_mismatch", "part output ↔ bench load", specs,
                              model.output_c))
-    c_cal = math.hypot(model.input_c if cal.input_calibrated else 0.0,
-                       model.output_c if cal.output_calibrated else 0.0)
+    c_cal = math.hypot(model.input_c if input_cal else 0.0,
+                       model.output_c if output_cal else 0.0)
     if c_cal and cal.repeatability_db is not None and math.isfinite(cal.repeatability_db):
         out.append(Contribution("calibration_repeatability", "calibration repeatability "
                                 "(measured by repeating it)", cal.repeatability_db,
@@ -429,7 +441,7 @@ def _level_terms(model: _Model, specs: InstrumentSpecs, cal: CalibrationState
         out.append(Contribution("analyzer_linearity", "analyzer display linearity "
                                 "(levels compared on one analyzer)", lin.half_width_db,
                                 lin.shape, 1.0, "B", lin.origin))
-        level = specs.power_meter if cal.input_calibrated else specs.input_level
+        level = specs.power_meter if input_cal else specs.input_level
         out.append(Contribution("input_level_flatness", "input level error at two "
                                 "frequencies, taken as uncorrelated", level.half_width_db,
                                 level.shape, model.relative_c, "B", level.origin))

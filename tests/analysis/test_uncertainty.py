@@ -172,7 +172,12 @@ def test_conversion_gain_budget_uncalibrated_and_calibrated():
                         + (noise_bias_db(90.0) / math.sqrt(3)) ** 2)
     assert budget.expanded_db == pytest.approx(2 * by_hand)
 
-    cal = CalibrationState(True, True, repeatability_db=0.01, origin="cal file")
+    # Only the connections the gain went through count: rf in, if out.
+    partial = figure_budget(gain, levels, specs, CalibrationState(frozenset({"rf", "lo_port"})))
+    assert partial is not None
+    partial_terms = {c.name for c in partial.contributions}
+    assert "input_power_meter" in partial_terms and "analyzer_absolute" in partial_terms
+    cal = CalibrationState(frozenset({"rf", "if"}), repeatability_db=0.01, origin="cal file")
     calibrated = figure_budget(gain, levels, specs, cal)
     assert calibrated is not None
     names = {c.name for c in calibrated.contributions}

@@ -93,3 +93,41 @@ def test_a_calibration_made_with_another_source_is_refused_before_any_output(tmp
         warnings = [e for e in store.events(outcome.run_id)
                     if e.kind == "calibration" and e.severity == "warning"]
         assert warnings and "accepted by --accept-calibration" in warnings[0].message
+
+
+def test_a_resumed_run_keeps_its_calibration_and_refuses_a_changed_one(tmp_path):
+    from sweeprig.clock import VirtualClock
+    from sweeprig.engine.session import resume_run
+    from sweeprig.sim.bench import resolve_description
+    from sweeprig.sim.faults import FaultSpec
+
+    fault = FaultSpec(role="sa", kind="error", at_command=30, code=-222,
+                      text="Data out of range")
+    description = resolve_description(None).model_copy(update={"faults": (fault,)})
+    sequence = tmp_path / "seq.toml"
+    sequence.write_text(QUICK.read_text(encoding="utf-8")
+                        + '\n[recovery]\non_error = "stop"\npoint_attempts = 1\n')
+    cal = write_calibration(tmp_path / "cal.toml", rf_offset_db=0.5)
+    store_path = tmp_path / "runs.sqlite"
+    with start_sim_bench(description, clock=VirtualClock()) as sim:
+        bench = tmp_path / "bench.toml"
+        bench.write_text(served_bench_text(sim.resources), encoding="utf-8")
+        first = run_sequence(sequence, bench, store_path=store_path, calibration=cal)
+        assert first.status == "aborted"
+        text = cal.read_text(encoding="utf-8")
+        cal.write_text(text + "\n", encoding="utf-8")  # any change at all
+        with pytest.raises(InputError) as info:
+            resume_run(first.run_id, store_path=store_path)
+        assert "used the calibration" in info.value.what and "cal.toml" in info.value.what
+        cal.write_text(text, encoding="utf-8")
+        resumed = resume_run(first.run_id, store_path=store_path)
+    assert resumed.status == "complete"
+    with SqliteRunStore(store_path, create=False) as store:
+        kinds = [e.kind for e in store.events(first.run_id)]
+        gains = [f.value for f in reduce_run(store, first.run_id).figures_named(
+            "conversion_gain")]
+    assert kinds.count("calibration") == 2  # once per start: both used the same file
+    plain = run_sequence(QUICK, sim=True, store_path=tmp_path / "plain.sqlite")
+    for after, before in zip(gains, _gains(tmp_path / "plain.sqlite", plain.run_id),
+                             strict=True):
+        assert after - before == pytest.approx(0.5, abs=0.02)  # every point corrected
