@@ -157,3 +157,23 @@ def test_check_shows_the_calibration_status_and_its_grid(app) -> None:
     accepted = run(app, "check", QUICK, "--calibration", CALIBRATIONS / "expired.toml",
                    "--accept-calibration")
     assert accepted.exit_code == 0 and "WARNING" in accepted.output
+
+
+def test_calibrate_then_run_with_it_from_the_command_line(tmp_path) -> None:
+    from sweeprig.cli.main import app as full_app
+
+    out = tmp_path / "cal.toml"
+    made = invoke(full_app, "calibrate", QUICK, "--sim", "--out", out, "--repeats", "2")
+    assert made.exit_code == 0, made.output
+    assert "rf: 3 frequencies" in made.output and "lo: not calibrated" in made.output
+    assert "safe state read back" in made.output and out.is_file()
+    ran = invoke(full_app, "run", QUICK, "--sim", "--calibration", out, "--store",
+                 tmp_path / "runs.sqlite", "--quiet")
+    assert ran.exit_code == 0, ran.output
+    assert "(k = 2)" in ran.output and "figures corrected by the calibration" in ran.output
+    refused = invoke(full_app, "calibrate", QUICK, "--out", tmp_path / "x.toml")
+    assert refused.exit_code == 2 and "no bench given" in refused.output
+    bad_days = invoke(full_app, "calibrate", QUICK, "--sim", "--out", tmp_path / "y.toml",
+                      "--valid-days", "0")
+    assert bad_days.exit_code != 0 and "--valid-days" in bad_days.output
+    assert not (tmp_path / "x.toml").exists() and not (tmp_path / "y.toml").exists()
