@@ -219,12 +219,19 @@ def plan(
     ] = False,
     max_points: Annotated[int, typer.Option(
         "--max-points", help="refuse sequences with more points than this")] = DEFAULT_MAX_POINTS,
+    calibration: Annotated[Path | None, typer.Option(
+        "--calibration", help="calibration file the run will use: its status is shown and "
+        "the plan uses its tables", show_default=False)] = None,
+    accept_calibration: Annotated[bool, typer.Option(
+        "--accept-calibration", help="accept an expired calibration")] = False,
 ) -> None:
     if bench is not None and sim:
         raise _fail(SweeprigError("--bench and --sim were both given",
                                   fix="give one of them (or neither, for the simulated bench)"))
     try:
         loaded_bench, bench_name = _load_bench_or_sim(bench)
+        status = (_calibration_status(loaded_bench, calibration, accept_calibration)
+                  if calibration is not None else None)
         seq = load_sequence(sequence, max_points=max_points)
         check_specs(seq)
         report = check_limits(seq, loaded_bench)
@@ -236,6 +243,8 @@ def plan(
     title = seq.about.title or seq.source or str(sequence)
     out.print(Text(one_line(title), style="bold"))
     out.print(Text(f"part {one_line(seq.part.id)}   bench: {one_line(bench_name)}"))
+    if status is not None:
+        out.print(Text(status))
     out.print(f"{lay.total:,} points = {lay.pass_size:,} per pass × {lay.n_temperatures} "
               f"temperature(s) × {lay.n_supplies} supply voltage(s)")
 

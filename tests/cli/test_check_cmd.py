@@ -157,6 +157,11 @@ def test_check_shows_the_calibration_status_and_its_grid(app) -> None:
     accepted = run(app, "check", QUICK, "--calibration", CALIBRATIONS / "expired.toml",
                    "--accept-calibration")
     assert accepted.exit_code == 0 and "WARNING" in accepted.output
+    planned = run(app, "plan", QUICK, "--calibration", CALIBRATIONS / "other-instrument.toml")
+    assert planned.exit_code == 0 and "valid for" in planned.output
+    narrow_plan = run(app, "plan", QUICK, "--calibration",
+                      CALIBRATIONS / "grid-too-narrow.toml")
+    assert narrow_plan.exit_code == 2 and "grid-too-narrow.toml:20" in narrow_plan.output
 
 
 def test_calibrate_then_run_with_it_from_the_command_line(tmp_path) -> None:
