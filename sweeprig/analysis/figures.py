@@ -98,9 +98,12 @@ from contextlib import contextmanager
 from dataclasses import dataclass, field, replace
 from functools import lru_cache
 from types import MappingProxyType
-from typing import Literal
+from typing import TYPE_CHECKING, Literal
 
 import numpy as np
+
+if TYPE_CHECKING:
+    from sweeprig.analysis.uncertainty import Budget
 
 Bound = Literal["<", ">"] | None
 
@@ -324,6 +327,10 @@ class Figure:
     conditions: Mapping[str, float | int | str] = field(default_factory=dict, hash=False)
     flags: tuple[str, ...] = ()
     points: tuple[int, ...] = ()
+    #: Expanded uncertainty (k = 2), in ``unit``; NaN when the figure has no budget
+    #: (see :mod:`sweeprig.analysis.uncertainty`), and ``budget`` that budget.
+    uncertainty_db: float = field(default=math.nan, compare=False)
+    budget: Budget | None = field(default=None, compare=False, hash=False)
 
     @property
     def is_number(self) -> bool:
@@ -393,6 +400,8 @@ def make_figures(
             set_attr(figure, "conditions", c)
             set_attr(figure, "flags", flags_from_mask(m))
             set_attr(figure, "points", p)
+            set_attr(figure, "uncertainty_db", math.nan)
+            set_attr(figure, "budget", None)
             append(figure)
     return out
 

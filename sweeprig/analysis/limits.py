@@ -12,6 +12,10 @@ Judging one figure against one limit:
 * an upper bound "< X" passes a max when X ≤ max and fails a min when X ≤ min; a lower bound
   "> X" passes a min when X ≥ min and fails a max when X ≥ max; any other case cannot be
   judged: inconclusive;
+* a number whose expanded uncertainty interval value ± U holds a limit edge is judged on
+  its value, and the judgement says the uncertainty straddles the limit; with
+  ``guard_band=True`` it is inconclusive instead (so a pass or a fail holds over all of
+  value ± U);
 * NaN values, and figures carrying a suspect flag (``SUSPECT_FLAGS``: overload, analyzer
   distortion, too few points, ...), are inconclusive whatever their value.
 
@@ -81,6 +85,12 @@ class Judgement:
     suspect: tuple[str, ...] = ()
 
     @property
+    def straddles(self) -> bool:
+        """True when the figure's expanded uncertainty interval value ± U holds a limit
+        edge: the verdict on the value alone is not certain at the stated coverage."""
+        return bool(straddled_edges(self.figure, self.limit))
+
+    @property
     def reason(self) -> str:
         """The verdict explained, e.g. ``"12.000 dBm meets min 10"``."""
         figure, limit = self.figure, self.limit
@@ -94,7 +104,20 @@ class Judgement:
                 outcome = _edge_outcome(figure.value, figure.bound, edge, lower)
                 texts[outcome].append(_edge_text(figure, edge, lower, outcome))
         chosen = texts[self.verdict] or texts[PASS]
+        for edge, lower in straddled_edges(figure, limit):
+            chosen.append(f"the uncertainty ± {figure.uncertainty_db:.3f} {figure.unit} (k = 2) "
+                          f"straddles {'min' if lower else 'max'} {edge:g}")
         return "; ".join(chosen) or "no bounds"
+
+
+def straddled_edges(figure: Figure, limit: Limit) -> list[tuple[float, bool]]:
+    """The limit's edges (value, is-min) inside the figure's value ± U (k = 2); none for a
+    bound or a figure without an uncertainty."""
+    u = figure.uncertainty_db
+    if not figure.is_number or not math.isfinite(u):
+        return []
+    return [(edge, lower) for edge, lower in ((limit.min, True), (limit.max, False))
+            if edge is not None and figure.value - u < edge < figure.value + u]
 
 
 @dataclass(frozen=True)
@@ -115,21 +138,27 @@ class Assessment:
 
 
 def judge(
-    figure: Figure, limit: Limit, *, suspect_flags: Iterable[str] = SUSPECT_FLAGS
+    figure: Figure, limit: Limit, *, suspect_flags: Iterable[str] = SUSPECT_FLAGS,
+    guard_band: bool = False,
 ) -> Judgement:
-    """Judge ``figure`` against ``limit`` (see the module docstring)."""
+    """Judge ``figure`` against ``limit`` (see the module docstring). ``guard_band``: a
+    number with an uncertainty passes only when value ± U lies inside the limit and fails
+    only when it lies outside; in between it is inconclusive."""
     suspect_set = suspect_flags if isinstance(suspect_flags, frozenset) else frozenset(
         suspect_flags
     )
-    return _judge(figure, limit, suspect_set)
+    return _judge(figure, limit, suspect_set, guard_band)
 
 
-def _judge(figure: Figure, limit: Limit, suspect_set: frozenset[str]) -> Judgement:
+def _judge(figure: Figure, limit: Limit, suspect_set: frozenset[str],
+           guard_band: bool = False) -> Judgement:
     flags = figure.flags
     suspect = tuple(sorted(f for f in flags if f in suspect_set)) if flags else ()
     value = figure.value
     if not math.isfinite(value) or suspect:
         return Judgement(figure, limit, INCONCLUSIVE, suspect)
+    if guard_band and straddled_edges(figure, limit):
+        return Judgement(figure, limit, INCONCLUSIVE)
     verdict = PASS
     for edge, lower in ((limit.min, True), (limit.max, False)):
         if edge is None:
@@ -169,8 +198,10 @@ def assess(
     limits: Iterable[Limit],
     *,
     suspect_flags: Iterable[str] = SUSPECT_FLAGS,
+    guard_band: bool = False,
 ) -> Assessment:
-    """Judge every figure against every limit that applies to it; overall verdict."""
+    """Judge every figure against every limit that applies to it; overall verdict
+    (``guard_band``: see :func:`judge`)."""
     suspect = frozenset(suspect_flags)
     limits = list(limits)
     wanted = {limit.name for limit in limits}
@@ -188,7 +219,7 @@ def assess(
             )
             if not matched:
                 untested.append(limit)
-            judgements += [_judge(f, limit, suspect) for f in matched]
+            judgements += [_judge(f, limit, suspect, guard_band) for f in matched]
     return Assessment(overall_verdict(judgements, untested), tuple(judgements), tuple(untested))
 
 

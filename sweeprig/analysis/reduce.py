@@ -43,12 +43,14 @@ import numpy as np
 import pandas as pd
 
 from sweeprig import analysis as an
+from sweeprig.analysis.bench_specs import calibration_state, specs_from_bench_text
 from sweeprig.analysis.captures import CONDITION_COLUMNS
 from sweeprig.analysis.figures import SUPPLY_CURRENT_OFF, UNPOWERED, Figure, flag_points
 from sweeprig.analysis.gain import unpowered_points
 from sweeprig.analysis.isolation import supply_current_off_points
 from sweeprig.analysis.limits import INCONCLUSIVE, PASS, Assessment, Limit, Verdict, assess
 from sweeprig.analysis.load import DIRECT_KINDS, PRODUCT_SUFFIXES, captures_from_frames
+from sweeprig.analysis.uncertainty import attach_uncertainty
 from sweeprig.analysis.validity import SUPPLY_CURRENT_TOLERANCE, UNPOWERED_GAIN_MARGIN_DB
 from sweeprig.errors import SweeprigError
 from sweeprig.files import read_file_text
@@ -172,8 +174,13 @@ def reduce_run(store: RunStore, run_id: int) -> RunFigures:
         expected_current = getattr(sequence.part, "expected_supply_current", None)
         if expected_current is not None:
             figures = _flag_supply_current(figures, captures, float(expected_current), notes)
+    bench_specs = specs_from_bench_text(info.bench_text, info.bench_path or "bench file")
+    notes += bench_specs.notes
+    calibration, calibration_note = calibration_state(events)
+    notes += [calibration_note] if calibration_note else []
+    figures = attach_uncertainty(figures, captures, bench_specs.specs, calibration)
     limits = limits_from_sequence(sequence) if sequence is not None else ()
-    assessment = assess(figures, limits)
+    assessment = assess(figures, limits, guard_band=bench_specs.guard_band)
     state = _state(info.status, info.points_done, info.points_total)
     verdict: Verdict = assessment.verdict
     if not limits:

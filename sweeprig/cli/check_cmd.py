@@ -123,10 +123,17 @@ def check(
         show_default=False)] = None,
     max_points: Annotated[int, typer.Option(
         "--max-points", help="refuse sequences with more points than this")] = DEFAULT_MAX_POINTS,
+    calibration: Annotated[Path | None, typer.Option(
+        "--calibration", help="calibration file the run will use: its status is shown and "
+        "every point is checked against its tables", show_default=False)] = None,
+    accept_calibration: Annotated[bool, typer.Option(
+        "--accept-calibration", help="accept an expired calibration")] = False,
 ) -> None:
     out = _out()
     try:
         loaded_bench, bench_name = _load_bench_or_sim(bench)
+        if calibration is not None:
+            out.print(Text(_calibration_status(loaded_bench, calibration, accept_calibration)))
     except SweeprigError as exc:
         _write_junit(junit, [(str(p), 0.0, exc) for p in sequences])
         raise _fail(exc) from None
@@ -158,6 +165,25 @@ def check(
     if failed:
         out.print(f"{failed} of {len(results)} file(s) have problems")
         raise typer.Exit(code=exit_code)
+
+
+def _calibration_status(bench: Bench, path: Path, accept: bool) -> str:
+    """Load, check and apply a calibration (refusing a damaged or expired one); its status."""
+    from datetime import UTC, datetime
+
+    from sweeprig.formats.calibration import (
+        apply_calibration,
+        check_calibration_age,
+        load_calibration,
+    )
+
+    cal = load_calibration(path)
+    warning = check_calibration_age(cal, datetime.now(UTC), accept=accept)
+    apply_calibration(bench, cal)
+    left = cal.model.expires.astimezone(UTC) - datetime.now(UTC)
+    state = f"WARNING: {warning}" if warning else f"valid for {left.days} more day(s)"
+    return (f"{one_line(cal.describe())}; {state}; its instruments are compared with the "
+            "bench's when a run starts")
 
 
 def _write_junit(path: Path | None, results: list[tuple[str, float, SweeprigError | None]]
@@ -209,12 +235,19 @@ def plan(
     ] = False,
     max_points: Annotated[int, typer.Option(
         "--max-points", help="refuse sequences with more points than this")] = DEFAULT_MAX_POINTS,
+    calibration: Annotated[Path | None, typer.Option(
+        "--calibration", help="calibration file the run will use: its status is shown and "
+        "the plan uses its tables", show_default=False)] = None,
+    accept_calibration: Annotated[bool, typer.Option(
+        "--accept-calibration", help="accept an expired calibration")] = False,
 ) -> None:
     if bench is not None and sim:
         raise _fail(SweeprigError("--bench and --sim were both given",
                                   fix="give one of them (or neither, for the simulated bench)"))
     try:
         loaded_bench, bench_name = _load_bench_or_sim(bench)
+        status = (_calibration_status(loaded_bench, calibration, accept_calibration)
+                  if calibration is not None else None)
         seq = load_sequence(sequence, max_points=max_points)
         check_specs(seq)
         report = check_limits(seq, loaded_bench)
@@ -226,6 +259,8 @@ def plan(
     title = seq.about.title or seq.source or str(sequence)
     out.print(Text(one_line(title), style="bold"))
     out.print(Text(f"part {one_line(seq.part.id)}   bench: {one_line(bench_name)}"))
+    if status is not None:
+        out.print(Text(status))
     out.print(f"{lay.total:,} points = {lay.pass_size:,} per pass × {lay.n_temperatures} "
               f"temperature(s) × {lay.n_supplies} supply voltage(s)")
 

@@ -4,7 +4,15 @@ from __future__ import annotations
 
 import typer
 
-from sweeprig.cli import bus_cmd, check_cmd, report_cmd, run_cmd, scan_cmd, store_cmd
+from sweeprig.cli import (
+    bus_cmd,
+    calibrate_cmd,
+    check_cmd,
+    report_cmd,
+    run_cmd,
+    scan_cmd,
+    store_cmd,
+)
 
 app = typer.Typer(
     name="sweeprig",
@@ -21,6 +29,7 @@ store_cmd.register(app)
 scan_cmd.register(app)
 bus_cmd.register(app)
 report_cmd.register(app)
+calibrate_cmd.register(app)
 try:  # the simulated bench's commands (sweeprig sim ...)
     from sweeprig.cli import sim_cmd
 except ImportError:  # pragma: no cover - only while the simulator is being assembled

@@ -105,12 +105,18 @@ def run_command(
         "--visa-library", help="VISA backend or library path for this command only; wins over "
         "$SWEEPRIG_VISA_LIBRARY and the bench file's named backend (@py or @ivi)",
         show_default=False)] = None,
+    calibration: Annotated[Path | None, typer.Option(
+        "--calibration", help="calibration file: its measured path losses replace the bench "
+        "file's typed ones, and it is stored with the run", show_default=False)] = None,
+    accept_calibration: Annotated[bool, typer.Option(
+        "--accept-calibration", help="use the calibration even when it has expired or was "
+        "made with other instruments (recorded as a warning with the run)")] = False,
 ) -> None:
     with visa_library_override(visa_library):
         _drive(lambda started, point_done, waiting: run_sequence(
             sequence, bench, sim=sim, sim_description=sim_bench, store_path=store,
             realtime=realtime, bus_log=bus_log, on_start=started, on_point=point_done,
-            on_wait=waiting,
+            on_wait=waiting, calibration=calibration, accept_calibration=accept_calibration,
         ), quiet=quiet, report=report, fail_on_verdict=fail_on_verdict, notify_option=notify)
 
 

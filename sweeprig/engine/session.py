@@ -45,6 +45,13 @@ from sweeprig.engine.simclock import SimControlClock
 from sweeprig.errors import BenchUnsafeError, InputError, StoreError, SweeprigError
 from sweeprig.files import read_file_text
 from sweeprig.formats.bench import Bench, load_bench
+from sweeprig.formats.calibration import (
+    Calibration,
+    apply_calibration,
+    check_calibration_age,
+    check_calibration_instruments,
+    load_calibration,
+)
 from sweeprig.formats.sequence import Sequence, load_sequence, required_roles
 from sweeprig.instruments import available_profiles
 from sweeprig.oslock import FileLock
@@ -116,6 +123,9 @@ class LoadedFiles:
     simulated: bool
     report: PreflightReport
     sequence_files: tuple[RunFile, ...] = ()
+    calibration: Calibration | None = None
+    accept_calibration: bool = False
+    calibration_warnings: tuple[str, ...] = ()
 
 
 def sequence_files(sequence: Sequence, path: Path) -> tuple[RunFile, ...]:
@@ -166,7 +176,9 @@ def served_bench_text(resources: Mapping[str, str], description: object = None) 
 
 
 def load_run_files(sequence_path: str | Path, bench_path: str | Path | None, *,
-                   sim: bool, sim_description: object = None) -> LoadedFiles:
+                   sim: bool, sim_description: object = None,
+                   calibration: str | Path | None = None,
+                   accept_calibration: bool = False) -> LoadedFiles:
     """Load and check the sequence and bench files and run the pre-flight check.
 
     Touches no instrument. ``sim`` with no bench file uses the built-in simulated bench's
@@ -184,6 +196,12 @@ def load_run_files(sequence_path: str | Path, bench_path: str | Path | None, *,
     if sim and is_shipped_sim_bench(b_path, shipped_sequences_dir() / SIM_BENCH_FILE):
         bench = with_sim_figures(bench, sim_description)  # the served analyzer's own figures
     check_roles(sequence, bench)
+    cal, cal_warnings = None, []
+    if calibration is not None:  # before the pre-flight: it checks the calibrated grid
+        cal = load_calibration(calibration)
+        warning = check_calibration_age(cal, datetime.now(UTC), accept=accept_calibration)
+        cal_warnings += [warning] if warning else []
+        apply_calibration(bench, cal)
     report = preflight(sequence, bench)
     return LoadedFiles(
         sequence=sequence,
@@ -195,6 +213,9 @@ def load_run_files(sequence_path: str | Path, bench_path: str | Path | None, *,
         bench_text=_read_text(b_path),
         simulated=sim,
         report=report,
+        calibration=cal,
+        accept_calibration=accept_calibration,
+        calibration_warnings=tuple(cal_warnings),
     )
 
 
@@ -233,8 +254,14 @@ def run_sequence(
     on_point: Callable[[PointResult], None] | None = None,
     log_dir: str | Path | None = None,
     on_wait: Callable[[Mapping[str, Any]], None] | None = None,
+    calibration: str | Path | None = None,
+    accept_calibration: bool = False,
 ) -> RunOutcome:
     """Run a sequence on a bench (or the in-process simulated bench) into a store.
+
+    ``calibration``: a calibration file whose measured losses replace the bench's typed
+    ones; an expired one, or one made with other instruments, is refused unless
+    ``accept_calibration`` (then the run records a warning). It is stored with the run.
 
     ``bus_log``: record every SCPI exchange in the store. ``on_start(run_id, total_points,
     files)`` is called once the run is recorded; ``on_point`` after each committed point;
@@ -242,7 +269,8 @@ def run_sequence(
     Returns how the run ended; raises only for problems found before any output was enabled
     (bad files, pre-flight refusals, a busy or wrong instrument).
     """
-    files = load_run_files(sequence_path, bench_path, sim=sim, sim_description=sim_description)
+    files = load_run_files(sequence_path, bench_path, sim=sim, sim_description=sim_description,
+                           calibration=calibration, accept_calibration=accept_calibration)
     return _execute(files, store_path=Path(store_path), sim_description=sim_description,
                     realtime=realtime, bus_log=bus_log, on_start=on_start, on_point=on_point,
                     log_dir=log_dir, resume=None, on_wait=on_wait)
@@ -284,6 +312,8 @@ def resume_run(
         info = store.run(run_id)
         recorded_files = store.run_files(run_id)
         done = frozenset(store.done_point_indices(run_id))
+        used = next((e.details for e in store.events(run_id)
+                     if e.kind == "calibration" and "text" in e.details), None)
     except BaseException:
         if run_lock is not None:
             run_lock.release()
@@ -302,8 +332,23 @@ def resume_run(
                 where=f"{store_path}: run {run_id}",
                 fix="put the files back as they were, or resume with --accept-changes if the "
                 "change cannot affect the measurements")
+        cal_path = None
+        if used is not None:  # the same corrections as the points already stored
+            cal_path = str(used["path"])
+            try:
+                same = read_file_text(cal_path, what="calibration file") == used["text"]
+            except (InputError, UnicodeDecodeError):
+                same = False
+            if not same:
+                raise InputError(
+                    f"run {run_id} used the calibration {cal_path}, which has changed or "
+                    "cannot be read: the rest of the run would get other corrections",
+                    where=f"{store_path}: run {run_id}",
+                    fix="put the calibration file back as it was (its text is stored with "
+                    "the run), or start a new run")
         files = load_run_files(info.sequence_path, info.bench_path, sim=info.simulated,
-                               sim_description=sim_description)
+                               sim_description=sim_description, calibration=cal_path,
+                               accept_calibration=accept_changes)
     except BaseException:
         run_lock.release()
         raise
@@ -408,6 +453,12 @@ def _execute(
                 sim_t0 = clock.now()
             if resume is not None:
                 _check_identities(drivers, resume)
+            cal_warnings = list(files.calibration_warnings)
+            if files.calibration is not None:  # before any output is enabled
+                warning = check_calibration_instruments(
+                    files.calibration, {role: d.idn or "" for role, d in drivers.items()},
+                    accept=files.accept_calibration)
+                cal_warnings += [warning] if warning else []
             seq = files.sequence
             if resume is None:
                 run_id = uninterrupted(
@@ -453,6 +504,12 @@ def _execute(
                 InstrumentRecord(role, d.resource, d.profile.name, d.idn or "")
                 for role, d in drivers.items()
             ])
+            if files.calibration is not None:
+                store.log_event(run_id, "info", "calibration", files.calibration.describe(),
+                                {"path": files.calibration.path,
+                                 "text": files.calibration.text})
+            for warning in cal_warnings:
+                store.log_event(run_id, "warning", "calibration", warning)
             store.heartbeat(run_id)
             if on_start is not None:
                 on_start(run_id, total, files)

@@ -120,6 +120,14 @@ class LossFile(Frozen):
     amplifier: StrictBool = Field(False, description="with csv or touchstone: the connection "
                                   "holds an amplifier, so the table may show gain (negative "
                                   "loss); without it, gain in a table is refused")
+    cascade: tuple[str, ...] | None = Field(
+        None, description="two-port Touchstone files (.s2p) in signal order, cascaded into "
+        "one network (e.g. a cable, then a test board's input trace); loss = −20·log10|S21|")
+    deembed_start: tuple[str, ...] = Field(
+        (), description="with cascade: two-ports removed from the start of the chain (parts "
+        "a measurement included that the bench does not have)")
+    deembed_end: tuple[str, ...] = Field(
+        (), description="with cascade: two-ports removed from the end of the chain")
 
 
 def _loss_shape(value: Any) -> str:
@@ -287,6 +295,49 @@ DEFAULT_HARMONICS_DBC: tuple[float, ...] = (-30.0, -30.0, -30.0, -30.0)
 FIGURE_RANGE_DBM = (-60.0, 100.0)
 
 
+class SpecLimit(Frozen):
+    """A specification given with its distribution."""
+
+    value: LevelDb = Field(description='the ± limit, e.g. "0.3 dB"')
+    shape: Literal["rectangular", "triangular", "u-shaped", "normal-k2"] = Field(
+        "rectangular", description="how the limit is read: rectangular (a ± limit, GUM "
+        "4.3.7), triangular, u-shaped, or normal-k2 (stated at 95 %, k = 2)")
+
+
+SpecValue = Annotated[
+    Annotated[LevelDb, Tag(f"{TAG_PREFIX}constant")]
+    | Annotated[SpecLimit, Tag(f"{TAG_PREFIX}table")],
+    Discriminator(lambda v: f"{TAG_PREFIX}table" if isinstance(v, dict | SpecLimit)
+                  else f"{TAG_PREFIX}constant"),
+]
+
+
+class UncertaintySpecs(Frozen):
+    """Instrument specifications for the figures' uncertainty budgets (± limits, read as
+    rectangular unless a table says otherwise). Left out: a typical value, marked in every
+    budget as an assumption."""
+
+    input_level: SpecValue | None = Field(
+        None, description="level at the DUT inputs without a calibration: source level "
+        "accuracy and the typed path loss together (default 1 dB)")
+    output_path: SpecValue | None = Field(
+        None, description="typed output path loss without a calibration (default 0.3 dB)")
+    analyzer_absolute: SpecValue | None = Field(
+        None, description="analyzer absolute amplitude accuracy (default 0.5 dB)")
+    analyzer_linearity: SpecValue | None = Field(
+        None, description="analyzer display (scale) linearity (default 0.1 dB)")
+    power_meter: SpecValue | None = Field(
+        None, description="power meter and sensor accuracy, calibration factor included "
+        "(default 0.15 dB)")
+    bench_match: float | None = Field(
+        None, description="|Γ| of the bench's connections at the DUT planes (default 0.05)")
+    part_match: float | None = Field(
+        None, description="|Γ| of the part's ports (default 0.2)")
+    guard_band: StrictBool = Field(
+        False, description="judge limits with the expanded uncertainty as a guard band: "
+        "pass only when value ± U is inside, fail only when it is outside")
+
+
 class Bench(LocatedFile):
     """A whole bench file."""
 
@@ -303,6 +354,7 @@ class Bench(LocatedFile):
     sources: SourcesFigures = Field(
         default_factory=SourcesFigures,
         description="the sources' stated harmonics, for the planner's predictions")
+    uncertainty: UncertaintySpecs = Field(default_factory=UncertaintySpecs)
 
     _losses: dict[str, PathLoss] = PrivateAttr(default_factory=dict)
 
@@ -399,6 +451,13 @@ def load_bench(path: str | os.PathLike[str], *, known_profiles: Collection[str] 
 
 def _load_loss_file(bench: Bench, key: KeyPath, value: LossFile, base: Path) -> PathLoss:
     where = bench.where(key)
+    if value.cascade is not None:
+        from sweeprig.formats.networks import chain_loss
+
+        return chain_loss([base / f for f in value.cascade],
+                          deembed_start=[base / f for f in value.deembed_start],
+                          deembed_end=[base / f for f in value.deembed_end], where=where,
+                          display=f"path_loss.{key[-1]}", allow_gain=value.amplifier)
     if value.csv is not None:
         path = base / value.csv
         return read_csv_loss(path, display=display_path(path), where=where,
@@ -479,6 +538,7 @@ def check_bench(bench: Bench, *, known_profiles: Collection[str] | None = None) 
                          fix='write a time such as "5 s", or leave the key out (5 s)')
     _check_losses(bench)
     _check_figures(bench)
+    _check_uncertainty(bench)
     sa = bench.roles.sa
     if sa is not None and sa.noise_figure is not None and \
             not 0 <= sa.noise_figure <= MAX_NOISE_FIGURE_DB:
@@ -513,11 +573,22 @@ def _check_losses(bench: Bench) -> None:
                 f'gain: {name} = {{ gain = "{-value:g} dB" }}')
         if not isinstance(value, LossFile):
             continue
-        given = [k for k in ("csv", "touchstone", "gain") if getattr(value, k) is not None]
+        given = [k for k in ("csv", "touchstone", "gain", "cascade")
+                 if getattr(value, k) is not None]
         if len(given) != 1:
-            raise InputError("a path loss table needs exactly one of csv, touchstone or gain",
+            raise InputError("a path loss table needs exactly one of csv, touchstone, cascade "
+                             "or gain",
                              where=where, fix='write { csv = "cal/rf.csv" }, '
-                             '{ touchstone = "cal/rf.s2p" } or { gain = "20 dB" }')
+                             '{ touchstone = "cal/rf.s2p" }, { cascade = ["cable.s2p", '
+                             '"board.s2p"] } or { gain = "20 dB" }')
+        if (value.deembed_start or value.deembed_end) and value.cascade is None:
+            raise InputError("deembed_start and deembed_end go with cascade", where=where,
+                             fix='write { cascade = ["cable.s2p"], deembed_end = '
+                             '["adapter.s2p"] }')
+        if value.cascade is not None and not value.cascade:
+            raise InputError("cascade lists no file", where=where,
+                             fix='name the two-port files in signal order, e.g. '
+                             '["cable.s2p", "board.s2p"]')
         if value.gain is not None:
             if value.gain < 0:
                 raise InputError(
@@ -613,3 +684,24 @@ def _check_safe_state(bench: Bench) -> None:
             where=bench.where(("safe_state", "chamber")),
             fix=f'use "off" or a set point between the chamber_min and chamber_max limits. '
             f"{SAFE_STATE_CAUTION}")
+
+
+def _check_uncertainty(bench: Bench) -> None:
+    """Refuse impossible specifications: a negative limit, a |Γ| outside 0 to 1."""
+    table = bench.uncertainty
+    for key in ("input_level", "output_path", "analyzer_absolute", "analyzer_linearity",
+                "power_meter"):
+        value = getattr(table, key)
+        number = value.value if isinstance(value, SpecLimit) else value
+        if number is not None and number < 0:
+            raise InputError(f"a specification of {number:g} dB is negative: it is a ± limit",
+                             where=bench.where(("uncertainty", key)),
+                             fix='write its size, e.g. "0.3 dB"')
+    for key in ("bench_match", "part_match"):
+        gamma = getattr(table, key)
+        if gamma is not None and not 0.0 <= gamma < 1.0:
+            raise InputError(f"|Γ| = {gamma:g} is impossible for a passive port: it must be "
+                             "at least 0 and below 1",
+                             where=bench.where(("uncertainty", key)),
+                             fix="write the reflection coefficient's magnitude, e.g. 0.05 "
+                             "(VSWR 1.1)")

@@ -54,6 +54,7 @@ class TableLoss:
     loss_table_db: np.ndarray = field(repr=False)
     file: str = ""
     where: str = ""
+    fix: str = ""  # what to do when a frequency lies outside the table (default: extend it)
 
     def loss_db(self, freq_hz: ArrayLike) -> np.ndarray:
         """Loss in dB at each frequency (Hz); InputError if any lies outside the table."""
@@ -69,8 +70,8 @@ class TableLoss:
                     f"{self.file} ({format_frequency(lo)} to {format_frequency(hi)}); "
                     "sweeprig does not extrapolate loss tables",
                     where=self.where or self.file,
-                    fix="extend the table to cover every frequency the sequence uses, or "
-                    "narrow the sweep",
+                    fix=self.fix or "extend the table to cover every frequency the sequence "
+                    "uses, or narrow the sweep",
                 )
         return np.interp(f, self.freq_hz, self.loss_table_db)
 
@@ -314,6 +315,32 @@ def read_touchstone_loss(path: Path, *, display: str, where: str, allow_gain: bo
     the path), |S21| above 0 dB (beyond :data:`GAIN_TOLERANCE_DB`) are refused.
     """
     display = shorten_path(display)
+    freq_hz, s = read_touchstone_network(path, display=display, where=where)
+    return loss_table_from_s(freq_hz, s, display=display, where=where, allow_gain=allow_gain)
+
+
+def loss_table_from_s(freq_hz: np.ndarray, s: np.ndarray, *, display: str, where: str,
+                      allow_gain: bool = False) -> TableLoss:
+    """−20·log10|S21| of a two-port's S-parameters (``s``: frequencies × 2 × 2) as a loss
+    table; zero |S21| and, unless ``allow_gain``, gain are refused."""
+    s21 = np.abs(s[:, 1, 0])
+    if np.any(s21 <= 0):
+        raise InputError(f"{display}: |S21| is zero at some frequency (infinite loss)",
+                         where=where, fix="check the file")
+    loss = -20.0 * np.log10(s21)
+    gain_at = np.flatnonzero(loss < -GAIN_TOLERANCE_DB)
+    if gain_at.size and not allow_gain:
+        k = int(gain_at[0])
+        raise InputError(f"{display}: |S21| above 0 dB: " + _gain_what(float(loss[k]),
+                                                                      float(freq_hz[k])),
+                         where=where, fix=_GAIN_FIX.format(where=where))
+    return _table(freq_hz, loss, display, where)
+
+
+def read_touchstone_network(path: Path, *, display: str, where: str
+                            ) -> tuple[np.ndarray, np.ndarray]:
+    """A two-port Touchstone file's frequencies (Hz) and S-parameters (frequencies × 2 × 2),
+    read with scikit-rf after the checks of :func:`read_touchstone_loss`."""
     text = _touchstone_text(path, display, where)
     _check_touchstone_shape(text, path.name, display, where)
     if path.suffix.lower() == ".s2p":
@@ -347,15 +374,4 @@ def read_touchstone_loss(path: Path, *, display: str, where: str, allow_gain: bo
     if np.any(np.diff(freq_hz) <= 0):
         raise InputError(f"{display}: the frequencies do not increase from row to row",
                          where=where, fix="list the rows with increasing frequencies")
-    s21 = np.abs(network.s[:, 1, 0])
-    if np.any(s21 <= 0):
-        raise InputError(f"{display}: |S21| is zero at some frequency (infinite loss)",
-                         where=where, fix="check the file")
-    loss = -20.0 * np.log10(s21)
-    gain_at = np.flatnonzero(loss < -GAIN_TOLERANCE_DB)
-    if gain_at.size and not allow_gain:
-        k = int(gain_at[0])
-        raise InputError(f"{display}: |S21| above 0 dB: " + _gain_what(float(loss[k]),
-                                                                      float(freq_hz[k])),
-                         where=where, fix=_GAIN_FIX.format(where=where))
-    return _table(freq_hz, loss, display, where)
+    return freq_hz, np.asarray(network.s, dtype=complex)

@@ -20,6 +20,7 @@ from sweeprig import __version__
 from sweeprig.analysis.figures import FIGURE_CATALOGUE, FLAGS, SUSPECT_FLAGS
 from sweeprig.analysis.limits import FAIL, INCONCLUSIVE, PASS
 from sweeprig.analysis.reduce import RunFigures
+from sweeprig.report.budgets import budget_section
 from sweeprig.report.plots import Plot
 from sweeprig.report.tables import (
     NO_LIMIT,
@@ -97,6 +98,7 @@ def render_html(run: RunFigures, rows: Sequence[SummaryRow], plots: Sequence[Plo
         f"<style>{_CSS}</style></head><body><main>",
         _header(run),
         _summary(rows),
+        budget_section(run),
         _plots(plots),
         _conditions(run),
         _instruments(run),

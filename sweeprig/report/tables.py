@@ -36,6 +36,7 @@ from sweeprig.analysis.figures import (
 )
 from sweeprig.analysis.limits import FAIL, INCONCLUSIVE, PASS, Judgement, Limit
 from sweeprig.analysis.reduce import RunFigures
+from sweeprig.analysis.uncertainty import uncertainty_text
 from sweeprig.errors import StoreError
 from sweeprig.units import format_frequency
 
@@ -171,8 +172,11 @@ def format_value(value: float, unit: str, digits: int = 2) -> str:
 
 
 def figure_text(figure: Figure, digits: int = 2) -> str:
-    """The figure as a datasheet writes it: ``"12.35 dBm"``, ``"> 5.00 dBm"``, ``"n/a"``."""
+    """The figure as a datasheet writes it: ``"12.35 dBm"``, ``"> 5.00 dBm"``, ``"n/a"``;
+    with its expanded uncertainty when it has one: ``"12.49 ± 0.18 dB (k = 2)"``."""
     body = format_value(figure.value, figure.unit, digits)
+    if figure.is_number and math.isfinite(figure.uncertainty_db):
+        return uncertainty_text(figure.value, figure.unit, figure.uncertainty_db, digits)
     return f"{figure.bound} {body}" if figure.bound and body != "n/a" else body
 
 
@@ -478,7 +482,9 @@ def figures_document(run: RunFigures) -> dict[str, Any]:
             {"name": f.name, "value": _number(f.value), "unit": f.unit, "bound": f.bound,
              "text": figure_text(f, 3),
              "conditions": {k: _plain(v) for k, v in f.conditions.items()},
-             "flags": list(f.flags), "points": [int(p) for p in f.points]}
+             "flags": list(f.flags), "points": [int(p) for p in f.points],
+             "uncertainty_db": _number(f.uncertainty_db),
+             "budget": f.budget.as_dict() if f.budget is not None else None}
             for f in run.figures
         ],
         "events": [
@@ -499,8 +505,9 @@ def write_figures_json(run: RunFigures, path: Path) -> Path:
 
 def figures_frame(run: RunFigures) -> pd.DataFrame:
     """One row per figure: ``figure`` (index), ``name``, ``value``, ``unit``, ``bound``
-    ("<", ">" or empty), ``text``, ``verdict`` (worst over its limits, empty when none
-    applies), ``flags`` and ``points`` (space-separated), then one column per condition."""
+    ("<", ">" or empty), ``uncertainty_db`` (expanded, k = 2; NaN without a budget),
+    ``text``, ``verdict`` (worst over its limits, empty when none applies), ``flags`` and
+    ``points`` (space-separated), then one column per condition."""
     verdicts = figure_verdicts(run)
     keys: list[str] = []
     for f in run.figures:
@@ -513,6 +520,7 @@ def figures_frame(run: RunFigures) -> pd.DataFrame:
         "value": [f.value for f in run.figures],
         "unit": [f.unit for f in run.figures],
         "bound": [f.bound or "" for f in run.figures],
+        "uncertainty_db": [f.uncertainty_db for f in run.figures],
         "text": [figure_text(f, 3) for f in run.figures],
         "verdict": [verdicts.get(id(f), "") for f in run.figures],
         "flags": [" ".join(f.flags) for f in run.figures],

@@ -460,3 +460,19 @@ def test_the_planned_figures_are_the_ones_the_run_gives(measured, flagged):
                           and f.conditions.get("study") == s.name} for s in reduced.studies}
         planned = {k: set(v) for k, v in planned_figure_names(load_sequence(path)).items()}
         assert planned == given, path.name
+
+
+def test_every_gain_p1db_and_iip3_states_an_uncertainty_that_covers_its_error(measured):
+    # GUM (JCGM 100:2008) 6.2: the expanded uncertainty U (k = 2) is an interval expected to
+    # hold the true value; here the model's own truth is known, so the interval must hold it.
+    part, run = measured
+    checks = {"conversion_gain": "conversion_gain_db", "input_p1db": "input_p1db_dbm",
+              "iip3": "iip3_dbm"}
+    seen = 0
+    for name, truth in checks.items():
+        for figure in run.figures_named(name):
+            assert figure.budget is not None and figure.uncertainty_db > 0, name
+            reference = _reference(part, run, figure.points[0])
+            assert abs(figure.value - getattr(reference, truth)) <= figure.uncertainty_db
+            seen += 1
+    assert seen >= 5

@@ -139,3 +139,46 @@ def test_help_has_an_example(app, command: str) -> None:
     result = run(app, command, "--help")
     assert result.exit_code == 0
     assert "Example:" in result.output and f"sweeprig {command}" in result.output
+
+
+CALIBRATIONS = ROOT / "tests" / "corpus" / "calibrations"
+
+
+def test_check_shows_the_calibration_status_and_its_grid(app) -> None:
+    good = run(app, "check", QUICK, "--calibration", CALIBRATIONS / "other-instrument.toml")
+    assert good.exit_code == 0, good.output
+    assert "calibration " in good.output and "valid for" in good.output
+    assert "compared with the bench's when a run starts" in good.output
+    narrow = run(app, "check", QUICK, "--calibration", CALIBRATIONS / "grid-too-narrow.toml")
+    assert narrow.exit_code == 2
+    assert "grid-too-narrow.toml:20: loss.rf" in narrow.output and "2.3 GHz" in narrow.output
+    expired = run(app, "check", QUICK, "--calibration", CALIBRATIONS / "expired.toml")
+    assert expired.exit_code == 2 and "expired on 2026-02-01" in expired.output
+    accepted = run(app, "check", QUICK, "--calibration", CALIBRATIONS / "expired.toml",
+                   "--accept-calibration")
+    assert accepted.exit_code == 0 and "WARNING" in accepted.output
+    planned = run(app, "plan", QUICK, "--calibration", CALIBRATIONS / "other-instrument.toml")
+    assert planned.exit_code == 0 and "valid for" in planned.output
+    narrow_plan = run(app, "plan", QUICK, "--calibration",
+                      CALIBRATIONS / "grid-too-narrow.toml")
+    assert narrow_plan.exit_code == 2 and "grid-too-narrow.toml:20" in narrow_plan.output
+
+
+def test_calibrate_then_run_with_it_from_the_command_line(tmp_path) -> None:
+    from sweeprig.cli.main import app as full_app
+
+    out = tmp_path / "cal.toml"
+    made = invoke(full_app, "calibrate", QUICK, "--sim", "--out", out, "--repeats", "2")
+    assert made.exit_code == 0, made.output
+    assert "rf: 3 frequencies" in made.output and "lo: not calibrated" in made.output
+    assert "safe state read back" in made.output and out.is_file()
+    ran = invoke(full_app, "run", QUICK, "--sim", "--calibration", out, "--store",
+                 tmp_path / "runs.sqlite", "--quiet")
+    assert ran.exit_code == 0, ran.output
+    assert "(k = 2)" in ran.output and "figures corrected by the calibration" in ran.output
+    refused = invoke(full_app, "calibrate", QUICK, "--out", tmp_path / "x.toml")
+    assert refused.exit_code == 2 and "no bench given" in refused.output
+    bad_days = invoke(full_app, "calibrate", QUICK, "--sim", "--out", tmp_path / "y.toml",
+                      "--valid-days", "0")
+    assert bad_days.exit_code != 0 and "--valid-days" in bad_days.output
+    assert not (tmp_path / "x.toml").exists() and not (tmp_path / "y.toml").exists()

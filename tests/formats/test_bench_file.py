@@ -166,3 +166,37 @@ def test_visa_library_is_a_named_backend(tmp_path: Path, library: str) -> None:
     assert "bench.toml:4: bench.visa_library" in err.value.message()
     ivi = BENCH.replace('location = "Lab B"\n', 'location = "Lab B"\nvisa_library = "@ivi"\n')
     assert load_bench(write(tmp_path, ivi)).bench.visa_library == "@ivi"
+
+
+def test_uncertainty_table_is_read_with_its_distributions(tmp_path: Path) -> None:
+    text = BENCH + """
+[uncertainty]
+analyzer_absolute = { value = "0.4 dB", shape = "normal-k2" }
+analyzer_linearity = "0.07 dB"
+part_match = 0.3
+guard_band = true
+"""
+    bench = load_bench(write(tmp_path, text))
+    table = bench.uncertainty
+    assert table.analyzer_absolute.value == 0.4
+    assert table.analyzer_absolute.shape == "normal-k2"
+    assert table.analyzer_linearity == pytest.approx(0.07)
+    assert table.part_match == 0.3 and table.bench_match is None
+    assert table.guard_band is True
+    assert load_bench(write(tmp_path, BENCH, "plain.toml")).uncertainty.guard_band is False
+
+
+@pytest.mark.parametrize(("line", "key", "words"), [
+    ('bench_match = 1.0', "uncertainty.bench_match", "below 1"),
+    ('part_match = -0.1', "uncertainty.part_match", "at least 0"),
+    ('power_meter = "-0.1 dB"', "uncertainty.power_meter", "negative"),
+    ('analyzer_absolute = { value = "0.4 dB", shape = "gaussian" }',
+     "uncertainty.analyzer_absolute", "normal-k2"),
+])
+def test_impossible_uncertainty_specs_are_refused(tmp_path: Path, line: str, key: str,
+                                                  words: str) -> None:
+    path = write(tmp_path, BENCH + "\n[uncertainty]\n" + line + "\n")
+    with pytest.raises(InputError) as info:
+        load_bench(path)
+    message = str(info.value)
+    assert "bench.toml:" in message and key in message and words in message

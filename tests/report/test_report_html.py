@@ -135,3 +135,16 @@ def test_the_report_renders_in_headless_chromium(report_files, tmp_path):
     assert meanings, "no flag meaning is shown as text"
     shown = html_lib.unescape(meanings.group(1))
     assert FLAG_MEANINGS["not_saturated"] in shown  # beside the flagged figure and in the legend
+
+
+def test_the_report_shows_each_figure_with_its_uncertainty_and_budget(report_run,
+                                                                         report_files):
+    from sweeprig.report.budgets import widest_budgets
+
+    page = report_files.html.read_text(encoding="utf-8")
+    assert "(k = 2)</td>" in page  # summary values carry "± U unit (k = 2)"
+    assert "<h2>Uncertainty</h2>" in page and "JCGM 100:2008" in page
+    widest = widest_budgets(report_run)
+    assert widest and widest[0].name == "conversion_gain"
+    assert f"<b>{widest[0].budget.expanded_db:.3f}</b>" in page
+    assert "default (assumption" in page  # defaults say they are assumptions

@@ -101,3 +101,28 @@ def test_figures_json_says_what_every_flag_means(report_run, report_files):
     assert set(document["suspect_flags"]) == set(SUSPECT_FLAGS)
     used = {flag for f in document["figures"] for flag in f["flags"]}
     assert used and used <= set(document["flag_meanings"])
+
+
+def test_numbers_carry_their_expanded_uncertainty_and_budget(report_run, report_files):
+    from sweeprig.analysis.uncertainty import uncertainty_text
+
+    gains = [f for f in report_run.figures if f.name == "conversion_gain"]
+    assert gains and all(math.isfinite(f.uncertainty_db) for f in gains)
+    gain = gains[0]
+    assert figure_text(gain) == uncertainty_text(gain.value, "dB", gain.uncertainty_db)
+    assert figure_text(gain).endswith(" dB (k = 2)") and " ± " in figure_text(gain)
+    document = json.loads(report_files.figures_json.read_text(encoding="utf-8"))
+    by_name = {}
+    for entry in document["figures"]:
+        by_name.setdefault(entry["name"], entry)
+    entry = by_name["conversion_gain"]
+    assert entry["uncertainty_db"] == pytest.approx(entry["budget"]["expanded_uncertainty_db"])
+    assert entry["budget"]["coverage_factor"] == 2.0
+    names = {c["name"] for c in entry["budget"]["contributions"]}
+    assert {"input_level", "analyzer_absolute", "input_mismatch", "output_mismatch"} <= names
+    # No budget for a figure in amperes; bounds carry none either.
+    if "supply_current" in by_name:
+        assert by_name["supply_current"]["uncertainty_db"] is None
+    for entry in document["figures"]:
+        if entry["bound"] is not None:
+            assert entry["uncertainty_db"] is None and entry["budget"] is None

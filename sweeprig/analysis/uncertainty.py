@@ -1,0 +1,566 @@
+"""Measurement uncertainty of the figures, combined the way the GUM does it.
+
+The GUM (JCGM 100:2008, "Evaluation of measurement data — Guide to the expression of
+uncertainty in measurement") combines the standard uncertainties u(x_i) of the input
+quantities of a measurement model with their sensitivity coefficients c_i = ∂f/∂x_i by root
+sum of squares (its equation (10), uncorrelated inputs):
+
+    u_c(y) = sqrt( Σ (c_i · u(x_i))² )
+
+and states an expanded uncertainty U = k · u_c with a coverage factor k (section 6; k = 2 for
+a coverage probability of about 95 % when u_c is close to normally distributed, 6.3.3).
+
+A specification stated as "± a" limits becomes a standard uncertainty by its distribution:
+rectangular u = a/√3 (GUM 4.3.7), triangular u = a/√6 (GUM 4.3.9), U-shaped (arcsine)
+u = a/√2 (the usual model of mismatch with unknown phase; EA-4/02 M: 2013, from memory),
+or a normal one stated at k = 2, u = a/2. Type A terms (a fit's scatter) are standard
+uncertainties already.
+
+Everything here is in dB: each figure is a sum or difference of dB levels (a gain is
+P_IF − P_RF, an intercept P_in + (P_fund − P_IMn)/(n − 1)), so the sensitivity coefficients
+are the constants of those sums. The terms of a budget (:func:`figure_budget`):
+
+* **input level**: the level at the DUT's input plane. Uncalibrated it is the source's level
+  accuracy plus the typed path loss (``input_level``); calibrated it is the power meter's
+  accuracy and the calibration's measured repeatability.
+* **output level**: the analyzer's absolute amplitude accuracy and the typed output path loss;
+  calibrated, the power meter's accuracy (the analyzer is referred to it).
+* **display linearity** of the analyzer, for levels compared on one analyzer (a product
+  against its carrier).
+* **mismatch** at each DUT plane: limits 20·log10(1 ± |Γs|·|ΓL|) (e.g. Pozar, *Microwave
+  Engineering*, mismatch uncertainty; from memory), U-shaped.
+* **noise**: a product read a few dB above the analyzer's noise is raised by the noise power,
+  by at most 10·log10(1 + 10^(−SNR/10)) dB (power addition of uncorrelated signals);
+  one-sided, taken as rectangular of that half-width (common practice, no source).
+* **fit**: for fitted figures, the regression's own standard uncertainty (Type A): the
+  standard error of each constrained line's offset, s/√N, propagated to the intercept; for
+  P_xdB, the standard error of the small-signal gain divided by the local slope of the
+  compression curve.
+
+Figures that are bounds ("< X", "> X"), not numbers, or not in dB (currents, slopes) have no
+budget. This module is pure: specifications come in as :class:`InstrumentSpecs`.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Iterable, Mapping, Sequence
+from dataclasses import dataclass, replace
+from typing import Literal
+
+import numpy as np
+import pandas as pd
+
+from sweeprig.analysis.figures import Figure
+
+Shape = Literal["rectangular", "triangular", "u-shaped", "normal-k2", "standard"]
+
+#: Divisor that turns a stated half-width into a standard uncertainty, per distribution.
+#: JCGM 100:2008 4.3.7 (rectangular, √3), 4.3.9 (triangular, √6); U-shaped √2 (EA-4/02 M,
+#: from memory); a normal distribution stated at k = 2 (GUM 6.2.1), 2; a standard
+#: uncertainty already, 1.
+DIVISORS: Mapping[str, float] = {
+    "rectangular": math.sqrt(3.0),
+    "triangular": math.sqrt(6.0),
+    "u-shaped": math.sqrt(2.0),
+    "normal-k2": 2.0,
+    "standard": 1.0,
+}
+
+#: The coverage factor of every expanded uncertainty sweeprig states (GUM 6.3.3: k = 2 for
+#: about 95 % coverage).
+COVERAGE_FACTOR = 2.0
+
+#: Where a default specification comes from: said beside it in every budget.
+ASSUMED = "default (assumption: typical data-sheet value, no source)"
+
+
+def standard_uncertainty(half_width: float, shape: str) -> float:
+    """The standard uncertainty of a quantity known to lie within ± ``half_width`` with
+    distribution ``shape`` (see :data:`DIVISORS`)."""
+    if shape not in DIVISORS:
+        raise ValueError(f"unknown distribution {shape!r}; one of {', '.join(DIVISORS)}")
+    return abs(float(half_width)) / DIVISORS[shape]
+
+
+def mismatch_limits_db(gamma_source: float, gamma_load: float) -> tuple[float, float]:
+    """The mismatch-uncertainty limits in dB, (lower, upper) = 20·log10(1 ∓ |Γs|·|ΓL|)
+    (e.g. Pozar, *Microwave Engineering*; from memory). The lower one is negative."""
+    product = abs(float(gamma_source)) * abs(float(gamma_load))
+    if product >= 1.0:
+        return (-math.inf, 20.0 * math.log10(1.0 + product))
+    return (20.0 * math.log10(1.0 - product), 20.0 * math.log10(1.0 + product))
+
+
+def mismatch_half_width_db(gamma_source: float, gamma_load: float) -> float:
+    """The larger magnitude of :func:`mismatch_limits_db` (the limits are not symmetric in
+    dB: the lower one is the larger; using it is the safe side)."""
+    low, high = mismatch_limits_db(gamma_source, gamma_load)
+    return max(-low, high)
+
+
+def noise_bias_db(snr_db: float) -> float:
+    """How much the analyzer's noise raises a product read ``snr_db`` above it, at most:
+    10·log10(1 + 10^(−SNR/10)) (powers of uncorrelated signals add)."""
+    if not math.isfinite(snr_db):
+        return 0.0
+    return 10.0 * math.log10(1.0 + 10.0 ** (-snr_db / 10.0))
+
+
+# ---------------------------------------------------------------------------------------------
+# the budget
+
+
+@dataclass(frozen=True, slots=True)
+class Contribution:
+    """One line of an uncertainty budget.
+
+    ``half_width_db`` is the stated limit ± a (or, for ``shape="standard"``, the standard
+    uncertainty itself); ``sensitivity`` the coefficient c_i of the figure's model;
+    ``kind`` "A" (evaluated from the measured data) or "B" (from specifications);
+    ``origin`` where the number came from (a bench-file key, a default marked as an
+    assumption, or "measured").
+    """
+
+    name: str
+    what: str
+    half_width_db: float
+    shape: str
+    sensitivity: float
+    kind: Literal["A", "B"] = "B"
+    origin: str = ""
+
+    @property
+    def standard_db(self) -> float:
+        """u(x_i), dB."""
+        return standard_uncertainty(self.half_width_db, self.shape)
+
+    @property
+    def contribution_db(self) -> float:
+        """|c_i| · u(x_i), dB."""
+        return abs(self.sensitivity) * self.standard_db
+
+    def as_dict(self) -> dict[str, object]:
+        return {
+            "name": self.name, "what": self.what, "half_width_db": self.half_width_db,
+            "distribution": self.shape, "divisor": DIVISORS[self.shape],
+            "standard_uncertainty_db": self.standard_db, "sensitivity": self.sensitivity,
+            "contribution_db": self.contribution_db, "type": self.kind, "origin": self.origin,
+        }
+
+
+@dataclass(frozen=True, slots=True)
+class Budget:
+    """A figure's uncertainty budget: its contributions, combined by root sum of squares
+    (JCGM 100:2008 eq. (10), uncorrelated), expanded with ``coverage_factor``."""
+
+    contributions: tuple[Contribution, ...]
+    coverage_factor: float = COVERAGE_FACTOR
+
+    @property
+    def combined_db(self) -> float:
+        """u_c, dB."""
+        return combine([c.contribution_db for c in self.contributions])
+
+    @property
+    def expanded_db(self) -> float:
+        """U = k · u_c, dB."""
+        return self.coverage_factor * self.combined_db
+
+    def as_dict(self) -> dict[str, object]:
+        return {
+            "method": "JCGM 100:2008 (GUM): root sum of squares of c_i·u(x_i), uncorrelated",
+            "combined_standard_uncertainty_db": self.combined_db,
+            "coverage_factor": self.coverage_factor,
+            "expanded_uncertainty_db": self.expanded_db,
+            "contributions": [c.as_dict() for c in self.contributions],
+        }
+
+
+def combine(contributions_db: Iterable[float]) -> float:
+    """Root sum of squares of the terms c_i·u(x_i) (JCGM 100:2008 eq. (10))."""
+    values = [float(v) for v in contributions_db]
+    return math.sqrt(math.fsum(v * v for v in values))
+
+
+# ---------------------------------------------------------------------------------------------
+# specifications
+
+
+@dataclass(frozen=True, slots=True)
+class Spec:
+    """One instrument specification: ± ``half_width_db`` with distribution ``shape``, and
+    where it came from."""
+
+    half_width_db: float
+    shape: str = "rectangular"
+    origin: str = ASSUMED
+
+
+@dataclass(frozen=True)
+class InstrumentSpecs:
+    """The specifications a budget uses (the bench file's ``[uncertainty]`` table; every
+    default is an assumption and says so in the budget).
+
+    ``input_level``: level at the DUT's input planes without a calibration (source level
+    accuracy and the typed path loss together). ``output_path``: the typed output path loss
+    without a calibration. ``analyzer_absolute``: the analyzer's absolute amplitude accuracy.
+    ``analyzer_linearity``: its display (scale) linearity for levels compared on it.
+    ``power_meter``: power meter and sensor accuracy (calibration factor included).
+    ``bench_match``/``part_match``: |Γ| of the bench's connections and of the part's ports.
+    """
+
+    input_level: Spec = Spec(1.0)
+    output_path: Spec = Spec(0.3)
+    analyzer_absolute: Spec = Spec(0.5)
+    analyzer_linearity: Spec = Spec(0.1)
+    power_meter: Spec = Spec(0.15)
+    bench_match: float = 0.05
+    part_match: float = 0.2
+    match_origin: str = ASSUMED
+    coverage_factor: float = COVERAGE_FACTOR
+
+
+@dataclass(frozen=True)
+class CalibrationState:
+    """What a calibration corrected: the bench connections whose loss it measured (source
+    connections ``rf``, ``rf2``, ``lo`` by power meter at the DUT planes; output paths
+    ``if``, ``rf_port``, ``lo_port`` referred to the power meter), and its measured
+    repeatability (a standard deviation, dB; None when not measured)."""
+
+    connections: frozenset[str] = frozenset()
+    repeatability_db: float | None = None
+    origin: str = ""
+
+    def covers(self, connections: tuple[str, ...]) -> bool:
+        """True when every one of ``connections`` was calibrated (and there is one)."""
+        return bool(connections) and all(c in self.connections for c in connections)
+
+
+UNCALIBRATED = CalibrationState()
+
+
+# ---------------------------------------------------------------------------------------------
+# the model of each figure
+
+
+@dataclass(frozen=True, slots=True)
+class _Model:
+    """How a figure depends on the measured levels: sensitivity to the input level, the
+    output level and the analyzer's display linearity; the reading whose noise matters (and
+    its sensitivity); the fit, if any (``"intercept"`` with the product's order, or
+    ``"compression"``, ``"linear"`` for a mean of gains)."""
+
+    input_c: float = 0.0
+    output_c: float = 0.0
+    linearity_c: float = 0.0
+    noise_reading: str | None = None
+    noise_c: float = 0.0
+    fit: str | None = None
+    order: int = 0
+    product: str | None = None
+    relative_c: float = 0.0  # two uncorrelated gain readings (flatness): √2
+    #: The bench connections the input and output levels went through.
+    input_via: tuple[str, ...] = ("rf",)
+    output_via: tuple[str, ...] = ("if",)
+
+
+def _intercept(input_c: float, output_c: float, order: int, side: str | None,
+               single: bool) -> _Model:
+    prod = f"im{order}_{side}" if side else None
+    return _Model(input_c=input_c, output_c=output_c, linearity_c=1.0 / (order - 1),
+                  noise_reading=prod, noise_c=-1.0 / (order - 1),
+                  fit=None if single else "intercept", order=order, product=prod,
+                  input_via=("rf", "rf2"))
+
+
+def _models() -> dict[str, _Model]:
+    out: dict[str, _Model] = {
+        "conversion_gain": _Model(-1.0, 1.0, noise_reading="if", noise_c=1.0),
+        "small_signal_gain": _Model(-1.0, 1.0, noise_reading="if", noise_c=1.0, fit="linear"),
+        "gain_flatness": _Model(noise_reading="if", noise_c=1.0, relative_c=math.sqrt(2.0)),
+        "lo_power_for_gain": _Model(input_c=1.0, input_via=("lo",)),
+        "image_rejection": _Model(linearity_c=1.0, noise_reading="image", noise_c=1.0),
+        "im3_low": _Model(linearity_c=1.0, noise_reading="im3_low", noise_c=1.0),
+        "im3_high": _Model(linearity_c=1.0, noise_reading="im3_high", noise_c=1.0),
+        "im3_asymmetry": _Model(linearity_c=math.sqrt(2.0)),
+        "spur_dbc": _Model(linearity_c=1.0, noise_reading="spur", noise_c=1.0),
+        "spur_dbm": _Model(output_c=1.0, noise_reading="spur", noise_c=1.0),
+        "lo_if_isolation": _Model(1.0, -1.0, noise_reading="lo_at_if", noise_c=-1.0,
+                                  input_via=("lo",)),
+        "lo_rf_isolation": _Model(1.0, -1.0, noise_reading="lo_at_rf", noise_c=-1.0,
+                                  input_via=("lo",), output_via=("rf_port",)),
+        "rf_if_isolation": _Model(1.0, -1.0, noise_reading="rf_at_if", noise_c=-1.0),
+        "output_psat": _Model(output_c=1.0),
+    }
+    for tag in ("p0p1db", "p1db", "p3db"):
+        out[f"input_{tag}"] = _Model(input_c=1.0, fit="compression")
+        out[f"output_{tag}"] = _Model(output_c=1.0, fit="compression")
+    for order in (3, 2):
+        for side in ("low", "high"):
+            out[f"iip{order}_{side}"] = _intercept(1.0, 0.0, order, side, single=False)
+            out[f"iip{order}_point_{side}"] = _intercept(1.0, 0.0, order, side, single=True)
+            if order == 3:
+                out[f"oip3_{side}"] = _intercept(0.0, 1.0, order, side, single=False)
+                out[f"oip3_point_{side}"] = _intercept(0.0, 1.0, order, side, single=True)
+    return out
+
+
+MODELS: Mapping[str, _Model] = _models()
+
+#: Headline figures that are the worse of two sides: their budget is that side's budget.
+WORST_OF: Mapping[str, tuple[str, str]] = {
+    "iip3": ("iip3_low", "iip3_high"),
+    "oip3": ("oip3_low", "oip3_high"),
+    "iip2": ("iip2_low", "iip2_high"),
+}
+
+_DB_UNITS = frozenset({"dB", "dBm", "dBc"})
+
+
+# ---------------------------------------------------------------------------------------------
+# levels of the captures, per point and reading
+
+
+@dataclass(frozen=True)
+class PointLevels:
+    """Per (point, reading): output level, noise floor and the input power of the point
+    (the readings of the attenuation repeats left out)."""
+
+    level_dbm: Mapping[tuple[int, str], float]
+    floor_dbm: Mapping[tuple[int, str], float]
+    input_dbm: Mapping[int, float]
+
+    @classmethod
+    def from_captures(cls, captures: pd.DataFrame) -> PointLevels:
+        if captures.empty or "reading" not in captures:
+            return cls({}, {}, {})
+        rows = captures
+        if "atten_check" in rows:
+            rows = rows[~rows["atten_check"].fillna(False).astype(bool)]
+        points = rows["point"].to_numpy(dtype=np.int64).tolist()
+        readings = rows["reading"].astype(str).tolist()
+        levels = rows["level_dbm"].to_numpy(dtype=float).tolist()
+        floors = (rows["noise_floor_dbm"].to_numpy(dtype=float).tolist()
+                  if "noise_floor_dbm" in rows else [math.nan] * len(points))
+        inputs = rows["rf_power_dbm"].to_numpy(dtype=float).tolist()
+        level: dict[tuple[int, str], float] = {}
+        floor: dict[tuple[int, str], float] = {}
+        drive: dict[int, float] = {}
+        for p, r, lv, fl, x in zip(points, readings, levels, floors, inputs, strict=True):
+            level[(p, r)] = lv  # the later row wins, as in the capture table
+            floor[(p, r)] = fl
+            drive[p] = x
+        return cls(level, floor, drive)
+
+    def min_snr_db(self, points: Sequence[int], reading: str) -> float:
+        """The lowest level − noise floor of ``reading`` over ``points`` (NaN: unknown)."""
+        snrs = [self.level_dbm[(p, reading)] - self.floor_dbm[(p, reading)]
+                for p in points if (p, reading) in self.level_dbm]
+        snrs = [s for s in snrs if math.isfinite(s)]
+        return min(snrs) if snrs else math.nan
+
+
+def intercept_fit_u_db(input_dbm: Sequence[float], fund_dbm: Sequence[float],
+                       product_dbm: Sequence[float], order: int) -> float:
+    """Type A standard uncertainty of a constrained-fit intercept IIPn = (a − b)/(n − 1),
+    a = mean(P_fund − P_in), b = mean(P_IMn − n·P_in): u = sqrt(u(a)² + u(b)²)/(n − 1) with
+    u(a) = s_a/√N (JCGM 100:2008 4.2.3, the experimental standard deviation of the mean).
+    NaN with fewer than 2 points."""
+    x = np.asarray(input_dbm, dtype=float)
+    a = np.asarray(fund_dbm, dtype=float) - x
+    b = np.asarray(product_dbm, dtype=float) - order * x
+    ok = np.isfinite(a) & np.isfinite(b)
+    n = int(ok.sum())
+    if n < 2:
+        return math.nan
+    u_a = float(np.std(a[ok], ddof=1)) / math.sqrt(n)
+    u_b = float(np.std(b[ok], ddof=1)) / math.sqrt(n)
+    return math.hypot(u_a, u_b) / (order - 1)
+
+
+def mean_u_db(values: Sequence[float]) -> float:
+    """Type A: the experimental standard deviation of the mean, s/√N (JCGM 100:2008 4.2.3).
+    NaN with fewer than 2 finite values."""
+    v = np.asarray(values, dtype=float)
+    v = v[np.isfinite(v)]
+    if v.size < 2:
+        return math.nan
+    return float(np.std(v, ddof=1)) / math.sqrt(v.size)
+
+
+# ---------------------------------------------------------------------------------------------
+# budgets
+
+
+def _level_terms(model: _Model, specs: InstrumentSpecs, cal: CalibrationState
+                 ) -> list[Contribution]:
+    out: list[Contribution] = []
+    pm = specs.power_meter
+    input_cal = cal.covers(model.input_via)
+    output_cal = cal.covers(model.output_via)
+    if model.input_c:
+        if input_cal:
+            out.append(Contribution("input_power_meter", "power meter and sensor at the DUT "
+                                    "input plane (source calibration)", pm.half_width_db,
+                                    pm.shape, model.input_c, "B", pm.origin))
+        else:
+            s = specs.input_level
+            out.append(Contribution("input_level", "source level and typed path loss at the "
+                                    "DUT input (not calibrated)", s.half_width_db, s.shape,
+                                    model.input_c, "B", s.origin))
+        out.append(_mismatch("input_mismatch", "bench source ↔ part input", specs,
+                             model.input_c))
+    if model.output_c:
+        if output_cal:
+            out.append(Contribution("output_power_meter", "power meter behind the receiver "
+                                    "path calibration", pm.half_width_db, pm.shape,
+                                    model.output_c, "B", pm.origin))
+        else:
+            a, p = specs.analyzer_absolute, specs.output_path
+            out.append(Contribution("analyzer_absolute", "analyzer absolute amplitude "
+                                    "accuracy", a.half_width_db, a.shape, model.output_c, "B",
+                                    a.origin))
+            out.append(Contribution("output_path", "typed output path loss (not calibrated)",
+                                    p.half_width_db, p.shape, model.output_c, "B", p.origin))
+        out.append(_mismatch("output_mismatch", "part output ↔ bench load", specs,
+                             model.output_c))
+    c_cal = math.hypot(model.input_c if input_cal else 0.0,
+                       model.output_c if output_cal else 0.0)
+    if c_cal and cal.repeatability_db is not None and math.isfinite(cal.repeatability_db):
+        out.append(Contribution("calibration_repeatability", "calibration repeatability "
+                                "(measured by repeating it)", cal.repeatability_db,
+                                "standard", c_cal, "A", cal.origin or "measured"))
+    if model.linearity_c:
+        lin = specs.analyzer_linearity
+        out.append(Contribution("analyzer_linearity", "analyzer display linearity "
+                                "(levels compared on one analyzer)", lin.half_width_db,
+                                lin.shape, model.linearity_c, "B", lin.origin))
+    if model.relative_c:
+        lin = specs.analyzer_linearity
+        out.append(Contribution("analyzer_linearity", "analyzer display linearity "
+                                "(levels compared on one analyzer)", lin.half_width_db,
+                                lin.shape, 1.0, "B", lin.origin))
+        level = specs.power_meter if input_cal else specs.input_level
+        out.append(Contribution("input_level_flatness", "input level error at two "
+                                "frequencies, taken as uncorrelated", level.half_width_db,
+                                level.shape, model.relative_c, "B", level.origin))
+    return out
+
+
+def _mismatch(name: str, what: str, specs: InstrumentSpecs, c: float) -> Contribution:
+    return Contribution(name, f"mismatch, {what}: 20·log10(1 ± |Γs||ΓL|), |Γs| = "
+                        f"{specs.bench_match:g}, |ΓL| = {specs.part_match:g}",
+                        mismatch_half_width_db(specs.bench_match, specs.part_match),
+                        "u-shaped", c, "B", specs.match_origin)
+
+
+def figure_budget(figure: Figure, levels: PointLevels, specs: InstrumentSpecs,
+                  cal: CalibrationState = UNCALIBRATED, *,
+                  small_signal_u: Mapping[tuple, float] | None = None) -> Budget | None:
+    """The uncertainty budget of ``figure`` (None: a bound, not a number, not in dB, or a
+    figure this module has no model for)."""
+    model = MODELS.get(figure.name)
+    if model is None or not figure.is_number or figure.unit not in _DB_UNITS:
+        return None
+    terms = _level_terms(model, specs, cal)
+    pts = [int(p) for p in figure.points]
+    if model.noise_reading is not None and model.noise_c:
+        snr = levels.min_snr_db(pts, model.noise_reading)
+        if math.isfinite(snr):
+            terms.append(Contribution("noise", f"analyzer noise under {model.noise_reading} "
+                                      f"(lowest SNR {snr:.1f} dB)", noise_bias_db(snr),
+                                      "rectangular", model.noise_c, "B",
+                                      "measured noise floor; one-sided bias taken as "
+                                      "rectangular (common practice, no source)"))
+    if model.fit == "intercept" and model.product is not None:
+        x = [levels.input_dbm.get(p, math.nan) for p in pts]
+        fund = [levels.level_dbm.get((p, "if"), math.nan) for p in pts]
+        prod = [levels.level_dbm.get((p, model.product), math.nan) for p in pts]
+        u = intercept_fit_u_db(x, fund, prod, model.order)
+        if math.isfinite(u):
+            terms.append(Contribution("fit", f"scatter about the slope-1/slope-{model.order} "
+                                      f"lines ({len(pts)} points)", u, "standard", 1.0, "A",
+                                      "measured: regression standard error"))
+    elif model.fit == "linear":
+        gains = [levels.level_dbm.get((p, "if"), math.nan) - levels.input_dbm.get(p, math.nan)
+                 for p in pts]
+        u = mean_u_db(gains)
+        if math.isfinite(u):
+            terms.append(Contribution("fit", f"scatter of the gain over the linear region "
+                                      f"({len(pts)} points)", u, "standard", 1.0, "A",
+                                      "measured: standard deviation of the mean"))
+    elif model.fit == "compression":
+        terms += _compression_terms(figure, levels, specs, small_signal_u)
+    return Budget(tuple(terms), specs.coverage_factor)
+
+
+def _compression_terms(figure: Figure, levels: PointLevels, specs: InstrumentSpecs,
+                       small_signal_u: Mapping[tuple, float] | None) -> list[Contribution]:
+    """A compression point is where the gain falls x dB below the small-signal gain: an
+    error δ in that reference (its scatter, the display linearity across the compared
+    levels) moves the crossing by δ / |dG/dP_in|, the compression curve's local slope
+    between the two bracketing points (capped at 20, i.e. a slope of 0.05 dB/dB)."""
+    pts = [int(p) for p in figure.points]
+    slope = math.nan
+    if len(pts) == 2:
+        x = [levels.input_dbm.get(p, math.nan) for p in pts]
+        g = [levels.level_dbm.get((p, "if"), math.nan) - xi for p, xi in zip(pts, x,
+                                                                                 strict=True)]
+        if x[1] != x[0]:
+            slope = abs((g[1] - g[0]) / (x[1] - x[0]))
+    c = min(1.0 / slope, 20.0) if math.isfinite(slope) and slope > 0 else 1.0
+    lin = specs.analyzer_linearity
+    out = [Contribution("analyzer_linearity", "display linearity between the linear region "
+                        "and the compressed level", lin.half_width_db, lin.shape, c, "B",
+                        lin.origin)]
+    u = (small_signal_u or {}).get(_condition_key(figure.conditions), math.nan)
+    if math.isfinite(u):
+        out.append(Contribution("fit", "scatter of the small-signal gain, through the "
+                                f"compression slope {slope:.3g} dB/dB", u, "standard", c, "A",
+                                "measured: standard deviation of the mean"))
+    return out
+
+
+def _condition_key(conditions: Mapping[str, object]) -> tuple:
+    return tuple(sorted((k, v) for k, v in conditions.items()))
+
+
+def attach_uncertainty(figures: Sequence[Figure], captures: pd.DataFrame,
+                       specs: InstrumentSpecs | None = None,
+                       cal: CalibrationState = UNCALIBRATED) -> list[Figure]:
+    """The figures with ``uncertainty_db`` (expanded, k from ``specs``) and ``budget`` set
+    where a budget exists; the others are returned unchanged."""
+    specs = specs or InstrumentSpecs()
+    levels = PointLevels.from_captures(captures)
+    small_signal_u: dict[tuple, float] = {}
+    for f in figures:
+        if f.name == "small_signal_gain" and f.is_number:
+            gains = [levels.level_dbm.get((p, "if"), math.nan) - levels.input_dbm.get(p,
+                                                                                     math.nan)
+                     for p in f.points]
+            small_signal_u[_condition_key(f.conditions)] = mean_u_db(gains)
+    out: list[Figure] = []
+    sides: dict[tuple, Figure] = {}
+    for f in figures:
+        budget = figure_budget(f, levels, specs, cal, small_signal_u=small_signal_u)
+        if budget is not None:
+            f = replace(f, uncertainty_db=budget.expanded_db, budget=budget)
+            sides[(f.name, _condition_key(f.conditions), f.value)] = f
+        out.append(f)
+    for i, f in enumerate(out):
+        if f.name in WORST_OF and f.is_number:
+            for side in WORST_OF[f.name]:
+                match = sides.get((side, _condition_key(f.conditions), f.value))
+                if match is not None:
+                    out[i] = replace(f, uncertainty_db=match.uncertainty_db,
+                                     budget=match.budget)
+                    break
+    return out
+
+
+def uncertainty_text(value: float, unit: str, expanded_db: float, digits: int = 2,
+                     coverage_factor: float = COVERAGE_FACTOR) -> str:
+    """``"12.49 ± 0.18 dB (k = 2)"``."""
+    return (f"{value:.{digits}f} ± {expanded_db:.{digits}f} {unit} "
+            f"(k = {coverage_factor:g})")

@@ -1,0 +1,86 @@
+"""``sweeprig calibrate``: measure the bench's RF source connections with the power meter
+and write a calibration file for ``sweeprig run --calibration``."""
+
+from __future__ import annotations
+
+from datetime import timedelta
+from pathlib import Path
+from typing import Annotated
+
+import typer
+from rich.console import Console
+from rich.text import Text
+
+from sweeprig.cli.common import fail
+from sweeprig.errors import SweeprigError
+
+_HELP = """Calibrate the RF source levels at the DUT's RF input plane with the power meter,
+over the frequencies a sequence needs, and write a calibration file.
+
+Each RF source the sequence uses (rf, and rf2 for two tones) is set to a low level (at most
+-10 dBm at the plane) at each frequency; the power meter's sensor, at the DUT RF port plane,
+reads what arrives; the difference is the connection's loss, the source's own level error
+included. The sweep is repeated (--repeats) for the repeatability. Connections the sensor
+cannot reach by itself keep the bench file's typed losses, and the command says which. On
+every exit the bench is left in its safe state, RF off.
+
+Caution: RF power can damage the part, the sensor and the analyzer input; check the bench
+file's limits and follow your lab's rules.
+
+Examples:
+
+  sweeprig calibrate sequences/demo/quick.toml --sim --out cal.toml
+
+  sweeprig run sequences/demo/quick.toml --sim --calibration cal.toml
+"""
+
+
+def calibrate_command(
+    sequence: Annotated[Path, typer.Argument(help="sequence file whose frequencies to "
+                                             "calibrate", show_default=False)],
+    out: Annotated[Path, typer.Option("--out", "-o", help="calibration file to write",
+                                      show_default=False)],
+    bench: Annotated[Path | None, typer.Option(
+        "--bench", "-b", help="bench file (TOML) naming the instruments")] = None,
+    sim: Annotated[bool, typer.Option(
+        "--sim", help="calibrate the built-in simulated bench")] = False,
+    repeats: Annotated[int, typer.Option(
+        "--repeats", help="sweeps to make; their spread is the repeatability")] = 2,
+    valid_days: Annotated[float, typer.Option(
+        "--valid-days", help="days until the calibration expires")] = 7.0,
+    temperature: Annotated[float | None, typer.Option(
+        "--temperature", help="room temperature, degC (default: the chamber's probe)",
+        show_default=False)] = None,
+) -> None:
+    from sweeprig.engine.calibrate import calibrate_sources
+
+    console = Console(highlight=False, soft_wrap=True)
+    try:
+        if not 0 < valid_days <= 366:
+            raise SweeprigError(f"--valid-days {valid_days:g} is not within 0 to 366 days",
+                                where="sweeprig calibrate --valid-days",
+                                fix="give the days until the calibration expires, e.g. 7")
+        result = calibrate_sources(
+            sequence, bench, out, sim=sim, repeats=repeats,
+            valid_for=timedelta(days=valid_days), temperature_c=temperature,
+            on_step=lambda message: console.print(Text(f"  {message}", style="dim")))
+    except SweeprigError as exc:
+        raise fail(exc) from None
+    for connection, (freqs, losses) in result.tables.items():
+        spread = result.spread_db.get(connection)
+        console.print(Text(
+            f"{connection}: {len(freqs)} frequencies, loss {min(losses):.3f} to "
+            f"{max(losses):.3f} dB" + (f", repeats within {spread:.3f} dB (1 sigma)"
+                                       if spread is not None else "")))
+    for connection, why in result.skipped.items():
+        console.print(Text(f"{connection}: not calibrated: {why}", style="yellow"))
+    if result.safe is not None:
+        console.print(Text("safe state read back: " + (", ".join(result.safe.done)
+                                                     or "nothing to do")))
+    console.print(Text(f"calibration written: {result.path} (bench time "
+                       f"{result.duration_s:.1f} s); use it with "
+                       f"`sweeprig run ... --calibration {result.path}`"))
+
+
+def register(app: typer.Typer) -> None:
+    app.command("calibrate", help=_HELP)(calibrate_command)

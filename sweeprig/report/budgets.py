@@ -1,0 +1,59 @@
+"""The report's uncertainty section: one GUM budget per headline figure.
+
+For each headline figure that has a budget, the budget of its figure with the largest
+expanded uncertainty is shown (every figure's own budget is in ``figures.json``).
+"""
+
+from __future__ import annotations
+
+import html
+
+from sweeprig.analysis.figures import Figure
+from sweeprig.analysis.reduce import RunFigures
+from sweeprig.report.tables import FIGURE_LABELS, HEADLINE_FIGURES, figure_text
+
+
+def widest_budgets(run: RunFigures) -> list[Figure]:
+    """Per headline figure name (in headline order), its figure with the widest U."""
+    out: list[Figure] = []
+    for name in HEADLINE_FIGURES:
+        with_budget = [f for f in run.figures if f.name == name and f.budget is not None]
+        if with_budget:
+            out.append(max(with_budget, key=lambda f: f.uncertainty_db))
+    return out
+
+
+def budget_section(run: RunFigures) -> str:
+    """The HTML section (empty when no figure has a budget)."""
+    figures = widest_budgets(run)
+    if not figures:
+        return ""
+    e = html.escape
+    parts = ['<h2>Uncertainty</h2><p class="small">Each budget combines standard '
+             "uncertainties u(x<sub>i</sub>) with sensitivity coefficients c<sub>i</sub> by "
+             "root sum of squares (JCGM 100:2008, the GUM); the expanded uncertainty U uses "
+             "k = 2 (about 95 % coverage). Shown: the widest budget of each figure; every "
+             "figure's budget is in figures.json. Specifications marked as assumptions are "
+             "defaults: state your instruments' in the bench file's [uncertainty] table.</p>"]
+    for figure in figures:
+        budget = figure.budget
+        assert budget is not None
+        rows = "".join(
+            f"<tr><td>{e(c.name)}</td><td>{e(c.what)}</td>"
+            f'<td class="num">± {c.half_width_db:.3f}</td><td>{e(c.shape)}</td>'
+            f'<td class="num">{c.standard_db:.3f}</td><td class="num">{c.sensitivity:g}</td>'
+            f'<td class="num">{c.contribution_db:.3f}</td><td>{c.kind}</td>'
+            f'<td class="small">{e(c.origin)}</td></tr>'
+            for c in budget.contributions)
+        label = FIGURE_LABELS.get(figure.name, figure.name)
+        parts.append(
+            f"<h3>{e(label)}: {e(figure_text(figure))}</h3>"
+            "<table><tr><th>term</th><th>what</th><th>limit, dB</th><th>distribution</th>"
+            "<th>u, dB</th><th>c</th><th>|c|·u, dB</th><th>type</th><th>from</th></tr>"
+            f"{rows}"
+            f'<tr><td colspan="6">combined standard uncertainty u<sub>c</sub></td>'
+            f'<td class="num">{budget.combined_db:.3f}</td><td colspan="2"></td></tr>'
+            f'<tr><td colspan="6">expanded uncertainty U (k = {budget.coverage_factor:g})</td>'
+            f'<td class="num"><b>{budget.expanded_db:.3f}</b></td><td colspan="2"></td></tr>'
+            "</table>")
+    return "\n".join(parts)

@@ -1,0 +1,270 @@
+"""Uncertainty budgets (sweeprig.analysis.uncertainty), checked against the GUM and the
+published mismatch formula, and against numpy/scipy computations done another way."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pandas as pd
+import pytest
+from scipy.optimize import curve_fit
+
+from sweeprig.analysis.figures import Figure
+from sweeprig.analysis.limits import FAIL, INCONCLUSIVE, PASS, Limit, assess, judge
+from sweeprig.analysis.uncertainty import (
+    ASSUMED,
+    DIVISORS,
+    Budget,
+    CalibrationState,
+    Contribution,
+    InstrumentSpecs,
+    PointLevels,
+    Spec,
+    attach_uncertainty,
+    combine,
+    figure_budget,
+    intercept_fit_u_db,
+    mean_u_db,
+    mismatch_half_width_db,
+    mismatch_limits_db,
+    noise_bias_db,
+    standard_uncertainty,
+    uncertainty_text,
+)
+
+# ---------------------------------------------------------------------------------------------
+# the GUM's rules
+
+
+def test_divisors_are_the_gums():
+    # JCGM 100:2008 4.3.7: a rectangular distribution of half-width a has u = a/√3;
+    # 4.3.9: a triangular one u = a/√6; 6.2.1: U = k·u, so a value stated at k = 2 has u = U/2.
+    assert standard_uncertainty(0.3, "rectangular") == pytest.approx(0.3 / math.sqrt(3))
+    assert standard_uncertainty(0.3, "triangular") == pytest.approx(0.3 / math.sqrt(6))
+    assert standard_uncertainty(0.3, "normal-k2") == pytest.approx(0.15)
+    # U-shaped (arcsine) distribution of half-width a: variance a²/2 (EA-4/02 M, from memory;
+    # it is the variance of a·cos φ with φ uniform, checked numerically below).
+    assert standard_uncertainty(0.3, "u-shaped") == pytest.approx(0.3 / math.sqrt(2))
+    phases = np.linspace(0.0, 2.0 * np.pi, 200_001)
+    assert float(np.std(0.3 * np.cos(phases))) == pytest.approx(0.3 / math.sqrt(2), rel=1e-4)
+    with pytest.raises(ValueError, match="unknown distribution"):
+        standard_uncertainty(0.3, "gaussian")
+
+
+def test_rss_and_k2_follow_jcgm_100_equation_10():
+    # JCGM 100:2008 eq. (10), uncorrelated inputs: u_c² = Σ (c_i u(x_i))²; 6.2.1: U = k u_c.
+    terms = (
+        Contribution("a", "", 0.5, "rectangular", -1.0),
+        Contribution("b", "", 0.1, "normal-k2", 1.0),
+        Contribution("c", "", 0.2, "standard", 0.5),
+    )
+    by_hand = math.sqrt((0.5 / math.sqrt(3)) ** 2 + 0.05 ** 2 + (0.5 * 0.2) ** 2)
+    budget = Budget(terms)
+    assert budget.combined_db == pytest.approx(by_hand)
+    assert budget.expanded_db == pytest.approx(2.0 * by_hand)
+    assert combine([3.0, 4.0]) == pytest.approx(5.0)
+    assert combine([]) == 0.0
+
+
+def test_combined_uncertainty_agrees_with_a_monte_carlo_propagation():
+    # JCGM 101:2008 (GUM Supplement 1): propagate the distributions themselves by sampling;
+    # for a linear model the standard deviation of the output must equal eq. (10)'s u_c, and
+    # the interval ± U (k = 2) must hold at least about 95 % of the outputs.
+    rng = np.random.default_rng(10)
+    n = 400_000
+    rect = rng.uniform(-1.0, 1.0, n)                       # input level, ±1 dB rectangular
+    arcsine = 0.087 * np.cos(rng.uniform(0, 2 * np.pi, n))  # mismatch, U-shaped
+    normal = rng.normal(0.0, 0.25, n)                      # analyzer, 0.5 dB at k = 2
+    fit = rng.normal(0.0, 0.1, n)                          # Type A term
+    output = -1.0 * rect + 1.0 * arcsine + 1.0 * normal + 0.5 * fit
+    budget = Budget((
+        Contribution("in", "", 1.0, "rectangular", -1.0),
+        Contribution("mm", "", 0.087, "u-shaped", 1.0),
+        Contribution("sa", "", 0.5, "normal-k2", 1.0),
+        Contribution("fit", "", 0.1, "standard", 0.5, "A"),
+    ))
+    assert float(np.std(output)) == pytest.approx(budget.combined_db, rel=0.01)
+    assert float(np.mean(np.abs(output) <= budget.expanded_db)) >= 0.95
+
+
+# ---------------------------------------------------------------------------------------------
+# mismatch and noise
+
+
+def test_mismatch_limits_are_the_published_formula():
+    # Mismatch uncertainty limits 20·log10(1 ± |Γs||ΓL|) (e.g. Pozar, Microwave Engineering;
+    # from memory). Worked example of a power-sensor user manual (a published guide): a source
+    # of VSWR 1.50 (|Γ| = 0.200) on a sensor of VSWR 1.20 (|Γ| = 0.091): the power may be off
+    # by (1 ± 0.200·0.091)² − 1 = ±3.67 %.
+    gamma_s = (1.50 - 1) / (1.50 + 1)
+    gamma_l = (1.20 - 1) / (1.20 + 1)
+    low, high = mismatch_limits_db(gamma_s, gamma_l)
+    assert 100 * (10 ** (high / 10) - 1) == pytest.approx(3.67, abs=0.01)
+    assert low == pytest.approx(20 * math.log10(1 - gamma_s * gamma_l))
+    # Second published worked example (an RF knowledge-base page): |Γs| = 0.20, |ΓL| = 0.07
+    # gives ±20·log10(1 ± 0.014) = ±0.121 dB (the lower limit is −0.122 dB).
+    low, high = mismatch_limits_db(0.20, 0.07)
+    assert high == pytest.approx(0.121, abs=0.0005)
+    assert low == pytest.approx(-0.1225, abs=0.0005)
+    # The budget uses the larger magnitude (the safe side).
+    assert mismatch_half_width_db(0.20, 0.07) == pytest.approx(-low)
+    assert mismatch_limits_db(0.0, 0.5) == (0.0, 0.0)
+
+
+def test_noise_raises_a_product_by_the_power_sum():
+    # Powers of uncorrelated signals add: a product at the noise level reads 10·log10(2) high.
+    assert noise_bias_db(0.0) == pytest.approx(10 * math.log10(2))
+    assert noise_bias_db(10.0) == pytest.approx(10 * math.log10(1.1))
+    assert noise_bias_db(60.0) < 1e-5
+    assert noise_bias_db(math.nan) == 0.0
+
+
+# ---------------------------------------------------------------------------------------------
+# fits
+
+
+def test_intercept_fit_uncertainty_agrees_with_scipy_curve_fit():
+    # The constrained lines' offsets are least-squares means; scipy's curve_fit (its pcov,
+    # scaled by the residual variance) gives their standard errors another way.
+    rng = np.random.default_rng(3)
+    x = np.arange(-30.0, -14.0, 2.0)
+    fund = x + 12.0 + rng.normal(0, 0.05, x.size)
+    im3 = 3 * x + 20.0 + rng.normal(0, 0.2, x.size)
+    _, cov_a = curve_fit(lambda xx, a: xx + a, x, fund, p0=[0.0])
+    _, cov_b = curve_fit(lambda xx, b: 3 * xx + b, x, im3, p0=[0.0])
+    expected = math.sqrt(cov_a[0, 0] + cov_b[0, 0]) / 2  # IIP3 = (a − b)/2
+    assert intercept_fit_u_db(x, fund, im3, 3) == pytest.approx(expected, rel=1e-6)
+    assert math.isnan(intercept_fit_u_db([1.0], [2.0], [3.0], 3))
+    assert mean_u_db([1.0, 2.0, 3.0]) == pytest.approx(1.0 / math.sqrt(3))
+    assert math.isnan(mean_u_db([1.0]))
+
+
+# ---------------------------------------------------------------------------------------------
+# budgets of figures
+
+
+def _captures(rows: list[tuple[int, str, float, float, float]]) -> pd.DataFrame:
+    """(point, reading, rf_power_dbm, level_dbm, noise_floor_dbm) rows."""
+    return pd.DataFrame({
+        "point": [r[0] for r in rows], "reading": [r[1] for r in rows],
+        "rf_power_dbm": [r[2] for r in rows], "level_dbm": [r[3] for r in rows],
+        "noise_floor_dbm": [r[4] for r in rows], "atten_check": [False] * len(rows),
+    })
+
+
+def test_conversion_gain_budget_uncalibrated_and_calibrated():
+    captures = _captures([(0, "if", -20.0, -7.5, -97.5)])
+    levels = PointLevels.from_captures(captures)
+    gain = Figure("conversion_gain", 12.5, "dB", points=(0,))
+    specs = InstrumentSpecs()
+    budget = figure_budget(gain, levels, specs)
+    assert budget is not None
+    names = {c.name: c for c in budget.contributions}
+    assert set(names) == {"input_level", "input_mismatch", "analyzer_absolute", "output_path",
+                          "output_mismatch", "noise"}
+    assert names["input_level"].sensitivity == -1.0  # G = P_IF − P_RF
+    assert names["analyzer_absolute"].sensitivity == 1.0
+    assert names["input_level"].origin == ASSUMED
+    assert "SNR 90.0 dB" in names["noise"].what
+    u_mm = mismatch_half_width_db(0.05, 0.2) / math.sqrt(2)
+    by_hand = math.sqrt((1.0 ** 2 + 0.5 ** 2 + 0.3 ** 2) / 3 + 2 * u_mm ** 2
+                        + (noise_bias_db(90.0) / math.sqrt(3)) ** 2)
+    assert budget.expanded_db == pytest.approx(2 * by_hand)
+
+    # Only the connections the gain went through count: rf in, if out.
+    partial = figure_budget(gain, levels, specs, CalibrationState(frozenset({"rf", "lo_port"})))
+    assert partial is not None
+    partial_terms = {c.name for c in partial.contributions}
+    assert "input_power_meter" in partial_terms and "analyzer_absolute" in partial_terms
+    cal = CalibrationState(frozenset({"rf", "if"}), repeatability_db=0.01, origin="cal file")
+    calibrated = figure_budget(gain, levels, specs, cal)
+    assert calibrated is not None
+    names = {c.name for c in calibrated.contributions}
+    assert {"input_power_meter", "output_power_meter", "calibration_repeatability"} <= names
+    assert "input_level" not in names and "analyzer_absolute" not in names
+    # With the default specifications a calibrated gain is known to better than 0.5 dB (k = 2).
+    assert calibrated.expanded_db < 0.5 < budget.expanded_db
+
+
+def test_intercept_budget_has_the_regression_and_the_noise_of_the_product():
+    rows = []
+    for i, x in enumerate(np.arange(-30.0, -18.0, 2.0)):
+        rows.append((i, "if", x, x + 12.0 + 0.02 * (-1) ** i, -100.0))
+        rows.append((i, "im3_low", x, 3 * x + 20.0 + 0.1 * (-1) ** i, -100.0))
+    levels = PointLevels.from_captures(_captures(rows))
+    figure = Figure("iip3_low", -4.0, "dBm", points=tuple(range(6)))
+    budget = figure_budget(figure, levels, InstrumentSpecs())
+    assert budget is not None
+    terms = {c.name: c for c in budget.contributions}
+    assert terms["fit"].kind == "A" and terms["fit"].standard_db > 0
+    assert terms["noise"].sensitivity == -0.5  # IIP3 = P_in + (P_fund − P_IM3)/2
+    assert terms["analyzer_linearity"].sensitivity == 0.5
+    assert "analyzer_absolute" not in terms  # an output level error moves both lines alike
+    assert "SNR 30.1 dB" in terms["noise"].what  # lowest: 3·(−30) + 20 + 0.1 + 100
+
+
+def test_bounds_and_other_units_have_no_budget():
+    levels = PointLevels.from_captures(_captures([(0, "if", -20.0, -8.0, -90.0)]))
+    specs = InstrumentSpecs()
+    assert figure_budget(Figure("iip3_low", 5.0, "dBm", ">", points=(0,)), levels, specs) is None
+    assert figure_budget(Figure("supply_current", 0.03, "A", points=(0,)), levels, specs) is None
+    assert figure_budget(Figure("conversion_gain", math.nan, "dB"), levels, specs) is None
+
+
+def test_attach_sets_every_budget_and_the_headline_intercept_takes_its_sides():
+    rows = [(0, "if", -20.0, -8.0, -90.0), (0, "im3_low", -20.0, -50.0, -90.0),
+            (1, "if", -18.0, -6.0, -90.0), (1, "im3_low", -18.0, -44.0, -90.0)]
+    conditions = {"study": "two-tone"}
+    figures = [
+        Figure("conversion_gain", 12.0, "dB", points=(0,)),
+        Figure("iip3_low", 1.0, "dBm", conditions=conditions, points=(0, 1)),
+        Figure("iip3_high", 2.0, "dBm", conditions=conditions, points=(0, 1)),
+        Figure("iip3", 1.0, "dBm", conditions=conditions, points=(0, 1)),
+        Figure("supply_current", 0.03, "A"),
+    ]
+    out = attach_uncertainty(figures, _captures(rows))
+    assert [math.isfinite(f.uncertainty_db) for f in out] == [True, True, True, True, False]
+    assert "fit" not in {c.name for c in out[2].budget.contributions}  # no im3_high read
+    assert out[3].budget is out[1].budget
+    assert out[0].uncertainty_db == pytest.approx(out[0].budget.expanded_db)
+    assert out[0] == figures[0]  # the uncertainty does not change what a figure is
+
+
+def test_text_with_uncertainty():
+    assert uncertainty_text(12.4913, "dB", 0.1804) == "12.49 ± 0.18 dB (k = 2)"
+
+
+# ---------------------------------------------------------------------------------------------
+# limits
+
+
+def test_a_verdict_says_when_the_uncertainty_straddles_the_limit():
+    figure = Figure("conversion_gain", 12.49, "dB", uncertainty_db=0.18)
+    near = Limit("conversion_gain", min=12.4)
+    far = Limit("conversion_gain", min=10.0)
+    judged = judge(figure, near)
+    assert judged.verdict == PASS and judged.straddles
+    assert "straddles min 12.4" in judged.reason
+    assert not judge(figure, far).straddles
+    assert "straddles" not in judge(figure, far).reason
+    # Guard-banded (off by default): only value ± U wholly inside passes, wholly outside fails.
+    assert judge(figure, near, guard_band=True).verdict == INCONCLUSIVE
+    assert judge(figure, far, guard_band=True).verdict == PASS
+    assert judge(figure, Limit("conversion_gain", min=13.0), guard_band=True).verdict == FAIL
+    assert assess([figure], [near], guard_band=True).verdict == INCONCLUSIVE
+    assert assess([figure], [near]).verdict == PASS
+    # A figure without an uncertainty never straddles.
+    assert not judge(Figure("conversion_gain", 12.49, "dB"), near).straddles
+
+
+def test_specs_carry_their_origin():
+    spec = Spec(0.3, "normal-k2", "bench file [uncertainty].analyzer_absolute")
+    specs = InstrumentSpecs(analyzer_absolute=spec)
+    levels = PointLevels.from_captures(_captures([(0, "if", -20.0, -8.0, math.nan)]))
+    budget = figure_budget(Figure("conversion_gain", 12.0, "dB", points=(0,)), levels, specs)
+    assert budget is not None
+    (term,) = [c for c in budget.contributions if c.name == "analyzer_absolute"]
+    assert term.standard_db == pytest.approx(0.15) and term.origin == spec.origin
+    assert "noise" not in {c.name for c in budget.contributions}  # floor not recorded
+    assert set(DIVISORS) >= {"rectangular", "u-shaped", "normal-k2"}
