@@ -42,6 +42,10 @@ class ConstantLoss:
         """Loss in dB at one frequency (Hz)."""
         return self.loss
 
+    def estimate_at(self, freq_hz: float) -> float:
+        """The loss for a prediction: the same everywhere."""
+        return self.at(freq_hz)
+
     def describe(self) -> str:
         return f"{self.loss:g} dB"
 
@@ -77,6 +81,12 @@ class TableLoss:
 
     def at(self, freq_hz: float) -> float:
         return float(self.loss_db(np.asarray([freq_hz]))[0])
+
+    def estimate_at(self, freq_hz: float) -> float:
+        """The loss for a prediction (a line the planner expects, not a reading): inside the
+        table as :meth:`at`, outside it the nearest end's value (an estimate, never used to
+        correct a measured level)."""
+        return float(np.interp(float(freq_hz), self.freq_hz, self.loss_table_db))
 
     def describe(self) -> str:
         return (f"table {self.file} ({format_frequency(self.freq_hz[0])} to "

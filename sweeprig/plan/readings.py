@@ -371,7 +371,8 @@ class ReadingPlanner:
             other = f + d.lo_freq_hz if abs(wanted - (f + d.lo_freq_hz)) > 1.0 else \
                 abs(f - d.lo_freq_hz)
             if other > 0:
-                out.append(mg.Line(other, p + self.gain_db - loss.at(other), "other sideband"))
+                out.append(mg.Line(other, p + self.gain_db - loss.estimate_at(other),
+                                   "other sideband"))
         return out
 
     def _harmonic_lines(self, port: str, d: Drive, retune_hz: float | None) -> list[mg.Line]:
@@ -389,7 +390,7 @@ class ReadingPlanner:
 
         def add(f: float, level: float, label: str) -> None:
             if f > 0 and math.isfinite(level):
-                out.append(mg.Line(f, level - loss.at(f), label))
+                out.append(mg.Line(f, level - loss.estimate_at(f), label))
 
         lo_h, _ = self.harmonics["lo"]
         for k, h in enumerate(lo_h, start=2):

@@ -214,3 +214,21 @@ def test_demo_every_reading_short_of_a_margin_carries_its_risk() -> None:
             if d["compression_db"] > mg.COMPRESSION_RISK_DB:
                 assert "analyzer_compression" in r.risks, (p.index, r.name)
     assert checked == 909 // 3
+
+
+def test_a_loss_table_needs_to_cover_only_what_is_read(tmp_path):
+    """The planner's predicted lines beyond the table (a source's 3rd harmonic at 6.7 GHz
+    leaking to the IF port) take the table's nearest loss as an estimate: only a reading's own
+    frequency (here up to the RF leak at 2.5 GHz) must lie inside a loss table."""
+    from sweeprig.engine.session import load_run_files, shipped_sequences_dir
+
+    shipped = shipped_sequences_dir()
+    bench_text = (shipped / "benches" / "sim.toml").read_text(encoding="utf-8")
+    assert 'if = "1.5 dB"' in bench_text
+    (tmp_path / "if-band.csv").write_text("freq_hz,loss_db\n10e6,1.4\n3e9,2.1\n",
+                                          encoding="utf-8")
+    bench = tmp_path / "bench.toml"
+    bench.write_text(bench_text.replace('if = "1.5 dB"', 'if = { csv = "if-band.csv" }'),
+                     encoding="utf-8")
+    files = load_run_files(shipped / "demo" / "quick.toml", bench, sim=False)
+    assert files.report.ok
