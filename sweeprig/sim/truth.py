@@ -155,7 +155,8 @@ def noise_dbm(
 def part_figures(description: Description, drive: Drive) -> ReferenceFigures:
     """The part's datasheet-style figures (:func:`~sweeprig.sim.mixer.reference_figures`) at
     the drive's LO and RF frequencies and the LO level reaching the part, its supply and die
-    temperature."""
+    temperature; the two-tone figures at the drive's tone spacing when it sets a second tone
+    (else the reference's default)."""
     desc = resolve_description(description)
     if drive.lo_freq_hz is None or drive.rf_freq_hz is None:
         raise InputError("the part's figures need an LO and an RF frequency",
@@ -170,7 +171,9 @@ def part_figures(description: Description, drive: Drive) -> ReferenceFigures:
     lo = world.lo_input()
     assert inputs is not None and lo is not None
     op = OperatingPoint(inputs.temperature_c, inputs.supply_v)
-    return reference_figures(part, op, lo.freq_hz, lo.power_dbm, drive.rf_freq_hz)
+    spacing = abs(drive.rf2_freq_hz - drive.rf_freq_hz) if drive.rf2_freq_hz is not None else 0.0
+    return reference_figures(part, op, lo.freq_hz, lo.power_dbm, drive.rf_freq_hz,
+                             **({"tone_spacing_hz": spacing} if spacing > 0 else {}))
 
 
 # --- on a live world (the served bench's simctl uses these) ---------------------------------

@@ -67,6 +67,7 @@ DEFAULT_TOLERANCE_DB: Mapping[str, float] = {
     "iip3_high": 0.3,
     "oip3": 0.3,
     "iip2": 1.0,
+    "iip2_low": 1.0,
     "lo_if_isolation": 0.5,
     "lo_rf_isolation": 0.5,
     "rf_if_isolation": 0.5,
@@ -191,9 +192,11 @@ def reference_at(result: CaseResult, point: int) -> ReferenceFigures:
     """The model's own figures at a stored point (its probe temperature, supply and drive)."""
     if point not in result.truths:
         part, op, row = _part_and_op(result, point)
+        spacing = abs(float(row["rf2_freq_hz"]) - float(row["rf_freq_hz"]))
         result.truths[point] = reference_figures(
             part, op, float(row["lo_freq_hz"]), float(row["lo_power_dbm"]),
-            float(row["rf_freq_hz"]))
+            float(row["rf_freq_hz"]),
+            tone_spacing_hz=spacing if math.isfinite(spacing) and spacing > 0 else 1e6)
     return result.truths[point]
 
 
@@ -218,7 +221,7 @@ def truth_of(result: CaseResult, figure: Figure) -> float | None:
             return ref.iip3_dbm
         case "oip3":
             return ref.oip3_dbm
-        case "iip2":
+        case "iip2" | "iip2_low":  # the difference line, at the case's own tone spacing
             return ref.iip2_dbm if math.isfinite(ref.iip2_dbm) else None
         case "lo_if_isolation":
             return float(c["lo_power_dbm"]) - ref.lo_to_if_dbm
