@@ -73,3 +73,20 @@ def catches_sigterm(pid: int) -> bool:
     except OSError:
         return True
     return False
+
+
+#: A simulated bench whose analyzer reports one error (at its 30th command): with a stopping
+#: recovery policy (:data:`STOP_ON_ERROR`) a run of the quick sequence ends ``aborted``.
+FAULTY_SIM_BENCH = ('part = "kx-2417"\n[[faults]]\nrole = "sa"\nkind = "error"\n'
+                    'at_command = 30\ncode = -222\ntext = "Data out of range"\n')
+STOP_ON_ERROR = '\n[recovery]\non_error = "stop"\npoint_attempts = 1\n'
+
+
+def aborting_run_files(folder: Path, sequence_text: str) -> tuple[Path, Path]:
+    """``sequence_text`` with a stopping recovery policy, and the faulty simulated bench,
+    written into ``folder``: (sequence, sim-bench description) for a run that aborts."""
+    sequence = folder / "seq.toml"
+    sequence.write_text(sequence_text + STOP_ON_ERROR, encoding="utf-8")
+    sim_bench = folder / "faulty.toml"
+    sim_bench.write_text(FAULTY_SIM_BENCH, encoding="utf-8")
+    return sequence, sim_bench

@@ -420,18 +420,29 @@ class SqliteRunStore:
         """Add the ``run_files`` table (runs recorded before it simply have no files) and the
         ``runs.activity_json`` column. A store that cannot be written is left as it is and
         can still be read."""
-        conn = self._conn
         create = next(s for s in SCHEMA if "TABLE IF NOT EXISTS run_files (" in s)
-        try:
-            conn.execute("BEGIN IMMEDIATE")
-        except sqlite3.OperationalError:
-            return  # read-only or busy: read it as it is
-        try:
+        with self._migration() as conn:
+            if conn is None:
+                return
             conn.execute(create)
             if "activity_json" not in {r[1] for r in conn.execute("PRAGMA table_info(runs)")}:
                 conn.execute("ALTER TABLE runs ADD COLUMN activity_json TEXT")
             conn.execute("UPDATE store_meta SET setting = ? WHERE name = 'schema_version' "
                          "AND CAST(setting AS INTEGER) < ?", (str(SCHEMA_VERSION), SCHEMA_VERSION))
+
+    @contextmanager
+    def _migration(self) -> Iterator[sqlite3.Connection | None]:
+        """One migration step as one write transaction: yields the connection, or None when
+        the store cannot be written now (read-only or busy: it is read as it is). Committed
+        when the block ends, rolled back on any error (a read-only refusal is swallowed)."""
+        conn = self._conn
+        try:
+            conn.execute("BEGIN IMMEDIATE")
+        except sqlite3.OperationalError:
+            yield None
+            return
+        try:
+            yield conn
             conn.execute("COMMIT")
         except sqlite3.OperationalError:
             conn.execute("ROLLBACK")  # read-only: read it as it is
@@ -444,15 +455,12 @@ class SqliteRunStore:
         CHECK, as SQLite's documented way of changing a table's constraints (create, copy,
         drop, rename, with foreign keys off so the children rows stay). A store that cannot
         be written (read-only file) is left as it is and can still be read."""
-        conn = self._conn
         create = next(s for s in SCHEMA if "TABLE IF NOT EXISTS runs (" in s)
-        conn.execute("PRAGMA foreign_keys = OFF")
+        self._conn.execute("PRAGMA foreign_keys = OFF")
         try:
-            try:
-                conn.execute("BEGIN IMMEDIATE")
-            except sqlite3.OperationalError:
-                return  # read-only or busy: read it as it is
-            try:
+            with self._migration() as conn:
+                if conn is None:
+                    return
                 row = conn.execute(
                     "SELECT setting FROM store_meta WHERE name = 'schema_version'").fetchone()
                 if row is not None and int(row[0]) == 1:  # not migrated meanwhile
@@ -465,14 +473,8 @@ class SqliteRunStore:
                         raise sqlite3.IntegrityError("foreign keys broken by the migration")
                     conn.execute("UPDATE store_meta SET setting = '2' WHERE name = "
                                  "'schema_version'")
-                conn.execute("COMMIT")
-            except sqlite3.OperationalError:
-                conn.execute("ROLLBACK")  # read-only: read it as it is
-            except BaseException:
-                conn.execute("ROLLBACK")
-                raise
         finally:
-            conn.execute("PRAGMA foreign_keys = ON")
+            self._conn.execute("PRAGMA foreign_keys = ON")
 
     # -- plumbing ---------------------------------------------------------------------------
 

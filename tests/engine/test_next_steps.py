@@ -13,6 +13,7 @@ from sweeprig.cli.main import app
 from sweeprig.engine.next_steps import next_steps
 from sweeprig.engine.session import shipped_sequences_dir
 from sweeprig.store.sqlite import SqliteRunStore
+from tests.support import aborting_run_files
 
 QUICK = shipped_sequences_dir() / "demo" / "quick.toml"
 
@@ -37,14 +38,7 @@ def test_the_rule():
 
 
 def test_an_aborted_run_prints_records_and_status_repeats_the_next_step(tmp_path: Path):
-    sequence = tmp_path / "seq.toml"
-    sequence.write_text(QUICK.read_text(encoding="utf-8")
-                        + '\n[recovery]\non_error = "stop"\npoint_attempts = 1\n',
-                        encoding="utf-8")
-    sim_bench = tmp_path / "faulty.toml"
-    sim_bench.write_text('part = "kx-2417"\n[[faults]]\nrole = "sa"\nkind = "error"\n'
-                         'at_command = 30\ncode = -222\ntext = "Data out of range"\n',
-                         encoding="utf-8")
+    sequence, sim_bench = aborting_run_files(tmp_path, QUICK.read_text(encoding="utf-8"))
     store = tmp_path / "runs.sqlite"
     result = CliRunner().invoke(app, ["run", str(sequence), "--sim", "--sim-bench",
                                       str(sim_bench), "--store", str(store), "--quiet"])

@@ -23,6 +23,7 @@ from sweeprig.engine.session import shipped_sequences_dir
 from sweeprig.errors import InputError
 from sweeprig.store.paths import run_folder
 from sweeprig.store.sqlite import SqliteRunStore
+from tests.support import aborting_run_files
 
 QUICK = shipped_sequences_dir() / "demo" / "quick.toml"
 # A notification "script": writes the SWEEPRIG_* variables it was given to a JSON file.
@@ -86,14 +87,7 @@ def test_a_complete_run_writes_its_summary_and_notifies(tmp_path, monkeypatch):
 
 def test_an_aborted_run_notifies_with_its_next_step_and_keeps_its_exit_code(tmp_path,
                                                                              monkeypatch):
-    sequence = tmp_path / "seq.toml"
-    sequence.write_text(QUICK.read_text(encoding="utf-8")
-                        + '\n[recovery]\non_error = "stop"\npoint_attempts = 1\n',
-                        encoding="utf-8")
-    sim_bench = tmp_path / "faulty.toml"
-    sim_bench.write_text('part = "kx-2417"\n[[faults]]\nrole = "sa"\nkind = "error"\n'
-                         'at_command = 30\ncode = -222\ntext = "Data out of range"\n',
-                         encoding="utf-8")
+    sequence, sim_bench = aborting_run_files(tmp_path, QUICK.read_text(encoding="utf-8"))
     store, seen = tmp_path / "runs.sqlite", tmp_path / "seen.json"
     monkeypatch.setenv(NOTIFY_ENV, _recorder(seen))  # from the environment this time
     result = CliRunner().invoke(app, ["run", str(sequence), "--sim", "--sim-bench",

@@ -13,6 +13,7 @@ from sweeprig.engine.session import resume_run, run_sequence, shipped_sequences_
 from sweeprig.errors import InputError
 from sweeprig.store.base import INCLUDE_FILE, MERGED_SEQUENCE
 from sweeprig.store.sqlite import SqliteRunStore, sha256_text
+from tests.support import FAULTY_SIM_BENCH, STOP_ON_ERROR
 
 QUICK = shipped_sequences_dir() / "demo" / "quick.toml"
 LIMITS = '[[spec]]\nfigure = "conversion_gain_db"\nmin = "9 dB"\nmax = "14 dB"\n'
@@ -55,12 +56,9 @@ def test_the_run_keeps_its_fragments_and_is_judged_by_them(tmp_path):
 
 
 def test_resume_refuses_a_changed_fragment_naming_it(tmp_path):
-    sequence, fragment = _split_sequence(
-        tmp_path, '\n[recovery]\non_error = "stop"\npoint_attempts = 1\n')
+    sequence, fragment = _split_sequence(tmp_path, STOP_ON_ERROR)
     sim_bench = tmp_path / "faulty.toml"
-    sim_bench.write_text('part = "kx-2417"\n[[faults]]\nrole = "sa"\nkind = "error"\n'
-                         'at_command = 30\ncode = -222\ntext = "Data out of range"\n',
-                         encoding="utf-8")
+    sim_bench.write_text(FAULTY_SIM_BENCH, encoding="utf-8")
     store_path = tmp_path / "runs.sqlite"
     outcome = run_sequence(sequence, sim=True, sim_description=sim_bench,
                            store_path=store_path)
