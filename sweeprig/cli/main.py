@@ -11,6 +11,7 @@ from sweeprig.cli import (
     report_cmd,
     run_cmd,
     scan_cmd,
+    sim_cmd,
     store_cmd,
 )
 
@@ -30,12 +31,7 @@ scan_cmd.register(app)
 bus_cmd.register(app)
 report_cmd.register(app)
 calibrate_cmd.register(app)
-try:  # the simulated bench's commands (sweeprig sim ...)
-    from sweeprig.cli import sim_cmd
-except ImportError:  # pragma: no cover - only while the simulator is being assembled
-    sim_cmd = None  # type: ignore[assignment]
-if sim_cmd is not None:
-    app.add_typer(sim_cmd.app, name="sim")
+app.add_typer(sim_cmd.app, name="sim")  # a module that fails to import fails the command
 
 
 def main() -> None:
