@@ -23,13 +23,15 @@ from pathlib import Path
 from stat import S_ISREG
 from typing import Annotated, Any, Literal
 
-from pydantic import BaseModel, ConfigDict, Field, ValidationError
+from pydantic import BaseModel, ConfigDict, Discriminator, Field, Tag, ValidationError
 
 import sweeprig
 from sweeprig.errors import InputError, SweeprigError
+from sweeprig.formats.fields import TAG_PREFIX
 from sweeprig.formats.loading import (
     Document,
     SourceFile,
+    deep_merge,
     display_path,
     parse_toml,
     read_text,
@@ -119,6 +121,32 @@ class _WaitModel(_Strict):
     wait_s: Annotated[float, Field(gt=0, le=3600)]
 
 
+class _AnyMethod(BaseModel):
+    """A completion table whose method is missing or unknown: only to report that."""
+
+    model_config = ConfigDict(extra="ignore", strict=True, frozen=True)
+    method: Literal["opc", "poll", "event", "wait"]
+
+
+def _complete_shape(value: Any) -> str:
+    if isinstance(value, str):
+        return f"{TAG_PREFIX}word"
+    if isinstance(value, dict) and value.get("method") in ("opc", "poll", "event", "wait"):
+        return f"{TAG_PREFIX}{value['method']}"
+    return f"{TAG_PREFIX}method"
+
+
+_Complete = Annotated[
+    Annotated[Literal["opc", "none"], Tag(f"{TAG_PREFIX}word")]
+    | Annotated[_OpcModel, Tag(f"{TAG_PREFIX}opc")]
+    | Annotated[_PollModel, Tag(f"{TAG_PREFIX}poll")]
+    | Annotated[_EventModel, Tag(f"{TAG_PREFIX}event")]
+    | Annotated[_WaitModel, Tag(f"{TAG_PREFIX}wait")]
+    | Annotated[_AnyMethod, Tag(f"{TAG_PREFIX}method")],
+    Discriminator(_complete_shape),
+]
+
+
 class _OpModel(_Strict):
     command: Templates | None = None
     query: Templates | None = None
@@ -128,8 +156,7 @@ class _OpModel(_Strict):
     unit: str | None = None
     map: dict[str, str] | None = None
     mask: Annotated[int, Field(ge=1)] | None = None
-    complete: (Literal["opc", "none"] | _OpcModel | _PollModel | _EventModel | _WaitModel
-               | None) = None
+    complete: _Complete | None = None
     timeout_s: _TimeoutS | None = None
     note: str | None = None
 
@@ -695,8 +722,25 @@ def _header(source: SourceFile) -> dict[str, Any]:
     return header if isinstance(header, dict) else {}
 
 
+def _merged(source: SourceFile) -> dict[str, Any]:
+    """``source`` over the profile it extends: tables merge key by key, except an operation's
+    ``complete``, which is replaced whole (a wait of another method shares no keys)."""
+    data = source.data
+    for parent in source.includes:
+        base = _merged(parent)
+        merged = deep_merge(base, data)
+        ops, base_ops = data.get("ops"), base.get("ops")
+        if isinstance(ops, dict) and isinstance(base_ops, dict):
+            for name, op in ops.items():
+                if isinstance(op, dict) and "complete" in op and isinstance(
+                        merged["ops"].get(name), dict):
+                    merged["ops"][name] = {**merged["ops"][name], "complete": op["complete"]}
+        data = merged
+    return data
+
+
 def _build_profile(root: SourceFile, path: Path | None, chain: tuple[str, ...]) -> Profile:
-    doc = Document(root=root, data=root.merged())
+    doc = Document(root=root, data=_merged(root))
     data = doc.data
     try:
         model = _FileModel.model_validate(data)
@@ -798,26 +842,24 @@ def _parent_path(name: object, child: SourceFile, search_dirs: Sequence[Path]) -
     known = available_profiles([child.path.parent, *search_dirs])
     if name not in known:
         close = difflib.get_close_matches(name, list(known), n=1, cutoff=0.6)
-        hint = f"did you mean {close[0]!r}? " if close else ""
         raise InputError(
             f"extends {name!r}, but there is no profile of that name",
             where=where,
-            fix=f"{hint}profiles found: {', '.join(known) or 'none'}")
+            fix=f"did you mean {close[0]!r}?" if close else
+            f"name one of: {', '.join(known) or 'none found'} (this file's folder and the "
+            "profile folders are searched)")
     return known[name]
 
 
 def _load_chain(path: Path, search_dirs: Sequence[Path]) -> tuple[SourceFile, tuple[str, ...]]:
-    """Read ``path`` and every profile it extends; the root's ``includes`` hold the parent
+    """Read ``path`` and every profile it extends; each file's ``includes`` holds its parent
     (so that every key is reported at the file that gives it)."""
     root = _read_source(path)
     chain_paths = [_resolved(path)]
     chain_names = [path.stem]
-    names: list[str] = []
     child = root
-    while True:
-        parent_name = _header(child).get("extends")
-        if parent_name is None:
-            break
+    parent_name = _header(root).get("extends")
+    while parent_name is not None:
         parent_path = _parent_path(parent_name, child, search_dirs)
         if _resolved(parent_path) in chain_paths:
             shown = " → ".join([*chain_names, str(parent_name)])
@@ -825,12 +867,13 @@ def _load_chain(path: Path, search_dirs: Sequence[Path]) -> tuple[SourceFile, tu
                 f"profile inheritance cycle: {shown}",
                 where=child.where(("profile", "extends")),
                 fix="remove one 'extends' so that no profile builds on itself")
-        if len(chain_paths) >= MAX_EXTENDS:
+        if len(chain_paths) > MAX_EXTENDS:
             raise InputError(
                 f"more than {MAX_EXTENDS} profiles extend one another",
                 where=child.where(("profile", "extends")),
                 fix="extend a profile closer to the generic one")
         parent = _read_source(parent_path)
+        next_name = _header(parent).get("extends")
         header = parent.data.get("profile")
         if isinstance(header, dict):
             parent.data = {**parent.data,
@@ -839,10 +882,8 @@ def _load_chain(path: Path, search_dirs: Sequence[Path]) -> tuple[SourceFile, tu
         child.includes.append(parent)
         chain_paths.append(_resolved(parent_path))
         chain_names.append(str(parent_name))
-        names.append(str(parent_name))
-        child = parent
-    # the extends key itself is not part of the profile's schema once resolved
-    return root, tuple(names)
+        child, parent_name = parent, next_name
+    return root, tuple(chain_names[1:])
 
 
 MAX_EXTENDS = 16
