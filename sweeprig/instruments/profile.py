@@ -2,8 +2,12 @@
 
 A profile (``drivers/<name>.toml``) says which instrument kind it drives, which ``*IDN?``
 replies it accepts, and for each abstract operation (:mod:`sweeprig.instruments.ops`) the SCPI
-to send, the reply format, the value limits and how to wait for completion. The schema is
-documented in ``docs/driver-profiles.md``.
+to send (its *command* and *query*, IEEE 488.2's words), the reply format, the value limits and
+unit, and how to wait for completion; its ``[connection]`` says how to talk to the resource
+(terminations, binary byte order, serial line). A profile may ``extends`` another and state
+only what differs. Files are read by the one TOML loader (:mod:`sweeprig.formats.loading`);
+the file schema is :mod:`sweeprig.instruments.profile_schema`; the keys are documented in
+``docs/driver-profiles.md``.
 
 Lookup order for a profile name: folders given by the caller, then the profiles shipped in the
 installed package (``sweeprig/_drivers``), then the top-level ``drivers/`` of a source checkout.
@@ -21,13 +25,12 @@ from collections.abc import Callable, Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from stat import S_ISREG
-from typing import Annotated, Any, Literal
+from typing import Any, Literal
 
-from pydantic import BaseModel, ConfigDict, Discriminator, Field, Tag, ValidationError
+from pydantic import ValidationError
 
 import sweeprig
 from sweeprig.errors import InputError, SweeprigError
-from sweeprig.formats.fields import TAG_PREFIX
 from sweeprig.formats.loading import (
     Document,
     SourceFile,
@@ -46,6 +49,15 @@ from sweeprig.instruments.ops import (
     OpSpec,
     ReplyFormat,
     ops_for,
+)
+from sweeprig.instruments.profile_schema import (
+    _ConnectionModel,
+    _EventModel,
+    _FileModel,
+    _OpcModel,
+    _OpModel,
+    _PollModel,
+    _WaitModel,
 )
 from sweeprig.instruments.scpi_text import wire_text_problem
 from sweeprig.transport.settings import (
@@ -73,124 +85,6 @@ DEFAULT_PROFILE_FOR_KIND: dict[str, str] = {
 
 DOCS_HINT = "see docs/driver-profiles.md"
 DOCS_PAGE = "docs/driver-profiles.md"
-
-
-# -- the file schema (pydantic) ---------------------------------------------------------------
-
-Templates = str | list[str]
-
-
-class _Strict(BaseModel):
-    model_config = ConfigDict(extra="forbid", strict=True, frozen=True)
-
-
-#: A profile's waits: at least 1 ms (pyvisa counts whole milliseconds; a shorter timeout is a
-#: slip of the unit), at most a day (a chamber ramp across its range takes hours).
-_TimeoutS = Annotated[float, Field(ge=1e-3, le=86400)]
-
-
-class _PollModel(_Strict):
-    method: Literal["poll"]
-    query: str
-    until: str | None = None
-    until_bits_clear: Annotated[int, Field(ge=1)] | None = None
-    until_bits_set: Annotated[int, Field(ge=1)] | None = None
-    interval_s: Annotated[float, Field(gt=0, le=60)] = 0.05
-    timeout_s: _TimeoutS = 60.0
-
-
-class _OpcModel(_Strict):
-    method: Literal["opc"]
-    timeout_s: _TimeoutS = 60.0
-
-
-class _EventModel(_Strict):
-    """``*OPC`` then poll ``*ESR?`` until its operation-complete bit (bit 0) is set
-    (IEEE 488.2-1992, 10.18 and 11.5.1; from memory)."""
-
-    method: Literal["event"]
-    command: str = "*OPC"
-    query: str = "*ESR?"
-    bit: Annotated[int, Field(ge=1)] = 1
-    interval_s: Annotated[float, Field(gt=0, le=60)] = 0.05
-    timeout_s: _TimeoutS = 60.0
-
-
-class _WaitModel(_Strict):
-    method: Literal["wait"]
-    wait_s: Annotated[float, Field(gt=0, le=3600)]
-
-
-class _AnyMethod(BaseModel):
-    """A completion table whose method is missing or unknown: only to report that."""
-
-    model_config = ConfigDict(extra="ignore", strict=True, frozen=True)
-    method: Literal["opc", "poll", "event", "wait"]
-
-
-def _complete_shape(value: Any) -> str:
-    if isinstance(value, str):
-        return f"{TAG_PREFIX}word"
-    if isinstance(value, dict) and value.get("method") in ("opc", "poll", "event", "wait"):
-        return f"{TAG_PREFIX}{value['method']}"
-    return f"{TAG_PREFIX}method"
-
-
-_Complete = Annotated[
-    Annotated[Literal["opc", "none"], Tag(f"{TAG_PREFIX}word")]
-    | Annotated[_OpcModel, Tag(f"{TAG_PREFIX}opc")]
-    | Annotated[_PollModel, Tag(f"{TAG_PREFIX}poll")]
-    | Annotated[_EventModel, Tag(f"{TAG_PREFIX}event")]
-    | Annotated[_WaitModel, Tag(f"{TAG_PREFIX}wait")]
-    | Annotated[_AnyMethod, Tag(f"{TAG_PREFIX}method")],
-    Discriminator(_complete_shape),
-]
-
-
-class _OpModel(_Strict):
-    command: Templates | None = None
-    query: Templates | None = None
-    reply: str | None = None
-    min: float | int | str | None = None
-    max: float | int | str | None = None
-    unit: str | None = None
-    map: dict[str, str] | None = None
-    mask: Annotated[int, Field(ge=1)] | None = None
-    complete: _Complete | None = None
-    timeout_s: _TimeoutS | None = None
-    note: str | None = None
-
-
-class _HeaderModel(_Strict):
-    name: str
-    kind: str
-    description: str = ""
-    idn_pattern: str
-    scan_hint: str | None = None
-    generic: bool = False
-    extends: str | None = None
-
-
-class _SerialModel(_Strict):
-    baud_rate: Annotated[int, Field(ge=50, le=4_000_000)] = 9600
-    data_bits: Literal[5, 6, 7, 8] = 8
-    parity: Literal["none", "odd", "even", "mark", "space"] = "none"
-    stop_bits: float | int = 1
-    flow_control: Literal["none", "xon_xoff", "rts_cts", "dtr_dsr"] = "none"
-
-
-class _ConnectionModel(_Strict):
-    write_termination: str = "\n"
-    read_termination: str | None = None
-    byte_order: Literal["big", "little"] = "big"
-    datatype: Literal["real32", "real64"] = "real32"
-    serial: _SerialModel | None = None
-
-
-class _FileModel(_Strict):
-    profile: _HeaderModel
-    connection: _ConnectionModel = Field(default_factory=_ConnectionModel)
-    ops: dict[str, _OpModel] = Field(default_factory=dict)
 
 
 # -- the runtime model ------------------------------------------------------------------------

@@ -154,3 +154,29 @@ def test_scaling_a_safety_level_is_refused(tmp_path: Path) -> None:
     with pytest.raises(InputError) as info:
         load_profile(_write(tmp_path, "lab-src", text))
     assert "ops.power.unit" in str(info.value) and "last-step guard" in str(info.value)
+
+
+def _doc_block(marker: str) -> str:
+    docs = Path(__file__).parents[2] / "docs" / "driver-profiles.md"
+    for block in docs.read_text(encoding="utf-8").split("```toml\n")[1:]:
+        body = block.split("```", 1)[0]
+        if marker in body:
+            return body
+    raise AssertionError(f"no toml block with {marker!r} in the docs")
+
+
+def test_documented_examples_load(tmp_path: Path) -> None:
+    # the extends example, the [connection] example and each completion method of the docs
+    extends = _doc_block('name = "tw-sa9"')
+    profile = load_profile(_write(tmp_path, "tw-sa9", extends))
+    assert profile.op("rbw").scale == 1e3 and profile.op("sweep").completion.method == "event"
+    connection = _doc_block("[connection.serial]")
+    with_connection = extends.replace('[connection]\nbyte_order = "little"\n', connection)
+    serial = load_profile(_write(tmp_path, "tw-sa9", with_connection)).connection.serial
+    assert serial is not None and serial.baud_rate == 19200
+    completions = [line for line in _doc_block('command = "INIT:IMM"').splitlines()
+                   if line.startswith("complete = ")]
+    assert len(completions) == 4
+    for line in completions:
+        text = extends.replace('complete = { method = "event", timeout_s = 20 }', line)
+        assert load_profile(_write(tmp_path, "tw-sa9", text)).op("sweep").completion
