@@ -198,20 +198,17 @@ class _Recorder:
     def __init__(self, driver: Driver) -> None:
         self.sent: list[str] = []
         transport = driver.transport
-        inner = getattr(transport, "inner", transport)
-        self._targets = [t for t in {id(transport): transport, id(inner): inner}.values()]
-        self._previous = [t.on_transaction for t in self._targets]
-        hook_target = self._targets[-1]
-        previous = hook_target.on_transaction
+        # the guarded transport of a source passes every exchange to the one it wraps
+        self._hooked = getattr(transport, "inner", transport)
+        previous = self._hooked.on_transaction
+        self._restore = previous
 
         def hook(transaction: Any) -> None:
             self.sent.append(transaction.sent)
             if previous is not None:
                 previous(transaction)
 
-        hook_target.on_transaction = hook
-        self._hooked = hook_target
-        self._restore = previous
+        self._hooked.on_transaction = hook
 
     def take(self) -> tuple[str, ...]:
         out = tuple(self.sent)

@@ -608,6 +608,11 @@ def parse_profile(text: str, path: Path | str = "<profile>") -> Profile:
     display = str(path)
     source = SourceFile(path=Path(display), display=display, text=text,
                         data=parse_toml(text, display))
+    if "extends" in _header(source):
+        raise InputError(
+            "a profile given as text cannot extend another (its base is found beside its file)",
+            where=source.where(("profile", "extends")),
+            fix="save it as a file and load it with load_profile(path)")
     return _build_profile(source, path if isinstance(path, Path) else None, ())
 
 

@@ -180,3 +180,11 @@ def test_documented_examples_load(tmp_path: Path) -> None:
     for line in completions:
         text = extends.replace('complete = { method = "event", timeout_s = 20 }', line)
         assert load_profile(_write(tmp_path, "tw-sa9", text)).op("sweep").completion
+
+
+def test_profile_text_cannot_extend() -> None:
+    from sweeprig.instruments.profile import parse_profile
+
+    with pytest.raises(InputError) as info:
+        parse_profile(CHILD, "text.toml")
+    assert "text.toml:3: profile.extends" in str(info.value)
