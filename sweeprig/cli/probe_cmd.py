@@ -17,7 +17,7 @@ from sweeprig.cli.common import fail
 from sweeprig.errors import InputError, SweeprigError
 from sweeprig.instruments import make_driver
 from sweeprig.instruments.probe import CAUTIONS, ProbeReport, probe
-from sweeprig.instruments.profile import load_profile
+from sweeprig.instruments.profile import Profile, load_profile
 from sweeprig.text import one_line
 from sweeprig.transport import visa
 from sweeprig.transport.backend import choose_visa_library
@@ -55,13 +55,22 @@ def run_probe(resource: str, profile_name: str, *, bench_path: Path | None = Non
               visa_library: str | None = None, timeout_s: float = 5.0) -> ProbeReport:
     """Open ``resource``, probe it with ``profile_name`` (bench limits when a bench is
     given) and return the report. The connection is closed afterwards."""
-    from sweeprig.plan.instrument_limits import bench_bounds
+    from sweeprig.engine.locks import BenchLock
 
     profile = load_profile(profile_name, search_dirs=profiles_dir or [])
     bench = None
     if bench_path is not None:
         bench, role = _bench_role(bench_path, resource, role, profile.kind)
     started = dt.datetime.now(dt.UTC).isoformat(timespec="seconds")
+    # an instrument a run is using is not probed (the run holds its lock; BenchBusy names it)
+    with BenchLock([resource], f"sweeprig probe ({profile.name})"):
+        return _probe_open(resource, profile, bench, role, visa_library, timeout_s, started)
+
+
+def _probe_open(resource: str, profile: Profile, bench: object, role: str | None,
+                visa_library: str | None, timeout_s: float, started: str) -> ProbeReport:
+    from sweeprig.plan.instrument_limits import bench_bounds
+
     transport = visa.VisaTransport(resource, visa_library=visa_library or choose_visa_library(),
                                    timeout_s=timeout_s, settings=profile.connection)
     try:

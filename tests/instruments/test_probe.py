@@ -97,3 +97,11 @@ def test_report_is_json(sim) -> None:
     data = json.loads(json.dumps(report.as_json()))
     assert data["format"] == "sweeprig-probe/1" and data["counts"]["fail"] == 0
     assert data["idn"].startswith("Tarnwick Labs,TW-PM18") and data["cautions"]
+
+
+def test_an_instrument_in_use_is_not_probed(sim) -> None:
+    from sweeprig.engine.locks import BenchBusy, BenchLock
+
+    with BenchLock([sim.resources["pm"]], "run 7"), pytest.raises(BenchBusy) as info:
+        run_probe(sim.resources["pm"], "scpi-powermeter", timeout_s=2.0)
+    assert "run 7" in str(info.value)
