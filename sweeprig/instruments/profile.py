@@ -638,9 +638,31 @@ def _merged(source: SourceFile) -> dict[str, Any]:
     return data
 
 
+#: Keys of the earlier profile format and the words that replaced them.
+_OLD_KEYS = {"set": "command", "do": "command", "get": "query", "ask": "query"}
+
+
+def _refuse_old_keys(doc: Document) -> None:
+    """A profile written with the earlier key names gets the new name in its fix."""
+    ops = doc.data.get("ops")
+    if not isinstance(ops, dict):
+        return
+    for name, op in ops.items():
+        if isinstance(op, dict):
+            for key in op:
+                if key in _OLD_KEYS:
+                    raise InputError(
+                        f"unknown key {key!r} (a key of the earlier profile format)",
+                        where=doc.where(("ops", name, key)),
+                        fix=f"rename it to {_OLD_KEYS[key]!r}: profiles now say 'command' for "
+                        "what is sent for its effect and 'query' for what is read "
+                        f"({DOCS_HINT})")
+
+
 def _build_profile(root: SourceFile, path: Path | None, chain: tuple[str, ...]) -> Profile:
     doc = Document(root=root, data=_merged(root))
     data = doc.data
+    _refuse_old_keys(doc)
     try:
         model = _FileModel.model_validate(data)
     except ValidationError as exc:

@@ -188,3 +188,10 @@ def test_profile_text_cannot_extend() -> None:
     with pytest.raises(InputError) as info:
         parse_profile(CHILD, "text.toml")
     assert "text.toml:3: profile.extends" in str(info.value)
+
+
+def test_earlier_key_names_get_their_new_name(tmp_path: Path) -> None:
+    with pytest.raises(InputError) as info:
+        load_profile(_write(tmp_path, "tw-sa9", CHILD.replace('command = "BAND', 'set = "BAND')))
+    assert "tw-sa9.toml:12: ops.rbw.set" in str(info.value)
+    assert "rename it to 'command'" in str(info.value)
