@@ -126,6 +126,7 @@ def open_bench(
                 resource,
                 visa_library=library,
                 timeout_s=float(bench.bench.timeout),
+                settings=profile.connection,
             )
             transport.on_transaction = (
                 None if on_transaction is None else functools.partial(on_transaction, role)

@@ -397,19 +397,32 @@ def _describe(model: type[BaseModel], err: Any, loc: KeyPath,
 def allowed_keys(model: type[BaseModel], loc: KeyPath) -> list[str]:
     """Keys a table at ``loc`` (below ``model``) may hold, for "did you mean" suggestions."""
     candidates: list[type[BaseModel]] = [model]
+    free_key = False  # the step after a table of free keys (a dict field) names an entry
     for part in loc:
         if isinstance(part, int):
+            continue
+        if free_key:
+            free_key = False
             continue
         following: list[type[BaseModel]] = []
         for cand in candidates:
             for name, info in cand.model_fields.items():
                 if part in (name, info.alias):
                     following.extend(_models_in(info.annotation))
+                    free_key = free_key or _is_mapping(info.annotation)
         candidates = following
     keys: list[str] = []
     for cand in candidates:
         keys.extend(info.alias or name for name, info in cand.model_fields.items())
     return sorted(set(keys))
+
+
+def _is_mapping(tp: Any) -> bool:
+    """Whether ``tp`` is (a union holding) a ``dict[...]`` of models."""
+    if typing.get_origin(tp) is dict:
+        return True
+    return any(_is_mapping(arg) for arg in typing.get_args(tp)) if isinstance(
+        tp, types.UnionType) or typing.get_origin(tp) is typing.Union else False
 
 
 def _models_in(tp: Any) -> list[type[BaseModel]]:

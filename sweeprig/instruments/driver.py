@@ -24,7 +24,6 @@ from __future__ import annotations
 
 import contextlib
 import math
-import re
 from collections import deque
 from collections.abc import Mapping
 from typing import Any, ClassVar
@@ -35,7 +34,7 @@ from sweeprig.clock import Clock, WallClock
 from sweeprig.errors import InputError, InstrumentError, SafetyLimitError, TransportError
 from sweeprig.instruments.guard import guard_transport
 from sweeprig.instruments.limits import Bound, OpLimits, profile_limits
-from sweeprig.instruments.profile import DOCS_HINT, Operation, Profile
+from sweeprig.instruments.profile import DOCS_HINT, Completion, Operation, Profile
 from sweeprig.transport import blocks
 from sweeprig.transport.base import Transport
 
@@ -231,7 +230,7 @@ class Driver:
             return False
         self._cache.pop(op, None)  # unknown until the commands went through
         self._block_ops.add(op)
-        for template in operation.set:
+        for template in operation.commands:
             self.write(Operation.fill(template, token))
         self._cache[op] = (checked, token)
         self._complete(operation)
@@ -248,7 +247,7 @@ class Driver:
         token = None
         if operation.spec.value != "none":
             token = operation.render_value(self._checked(operation, value))
-        for template in operation.do:
+        for template in operation.commands:
             self.write(Operation.fill(template, token))
         self._complete(operation, timeout_s)
 
@@ -259,10 +258,10 @@ class Driver:
         token = None
         if operation.spec.value != "none":
             token = operation.render_value(self._checked(operation, value))
-        for template in operation.do:
+        for template in operation.commands:
             self.write(Operation.fill(template, token))
         results = []
-        for template in operation.ask:
+        for template in operation.queries:
             cmd = Operation.fill(template, token)
             results.append(self._read(cmd, operation.reply or "text", operation.timeout_s))
         if operation.mask is not None:
@@ -270,25 +269,28 @@ class Driver:
         return tuple(results) if len(results) > 1 else results[0]
 
     def read_back(self, op: str) -> Value:
-        """Query the instrument's present value of setting ``op`` (the profile's ``get``).
+        """Query the instrument's present value of setting ``op`` (the profile's ``query``).
 
         Does not touch the cache."""
         operation = self.profile.op(op)
-        if operation.get is None:
+        if operation.read_back is None:
             raise InputError(
-                f"driver profile {self.profile.name!r} has no read-back ('get') for {op!r}",
+                f"driver profile {self.profile.name!r} has no read-back ('query') for {op!r}",
                 where=f"role {self.role!r}",
-                fix=f"add get = \"<query>\" to [ops.{op}] ({DOCS_HINT})",
+                fix=f"add query = \"<SCPI>?\" to [ops.{op}] ({DOCS_HINT})",
             )
-        reply = self.query(operation.get, timeout_s=operation.timeout_s)
-        where = self.where(operation.get)
+        reply = self.query(operation.read_back, timeout_s=operation.timeout_s)
+        where = self.where(operation.read_back)
         if operation.spec.value == "choice":
             text = reply.strip().upper()
             for name, token in operation.map.items():
                 if token.upper() == text or token.upper().startswith(text + ","):
                     return name
             return reply.strip()
-        return self._parse(reply, operation.reply or "text", where)
+        value = self._parse(reply, operation.reply or "text", where)
+        if operation.scale != 1.0 and isinstance(value, float):
+            return value * operation.scale
+        return value
 
     def _read(self, cmd: str, reply_format: str, timeout_s: float | None) -> Any:
         if reply_format == "real32":
@@ -318,9 +320,13 @@ class Driver:
             return
         timeout_s = completion.timeout_s if limit_s is None else min(limit_s,
                                                                       completion.timeout_s)
+        if completion.method == "wait":
+            self.clock.sleep(completion.timeout_s if limit_s is None
+                             else min(limit_s, completion.timeout_s))
+            return
         if completion.method == "opc":
             opc = self.profile.op("operation_complete")
-            cmd = opc.ask[0]
+            cmd = opc.queries[0]
             reply = self.query(cmd, timeout_s=timeout_s)
             if not blocks.parse_bool(reply, where=self.where(cmd)):
                 raise InstrumentError(
@@ -329,11 +335,13 @@ class Driver:
                     fix="check the instrument's error queue; the operation may have failed",
                 )
             return
+        if completion.method == "event" and completion.command is not None:
+            self.write(completion.command)
         assert completion.query is not None
         start = self.clock.now()
         while True:
             reply = self.query(completion.query)
-            if self._poll_done(reply, completion.until, completion.until_bits_clear):
+            if self._poll_done(reply, completion):
                 return
             if self.clock.now() - start >= timeout_s:
                 raise InstrumentError(
@@ -345,12 +353,17 @@ class Driver:
                 )
             self.clock.sleep(completion.interval_s)
 
-    def _poll_done(self, reply: str, until: re.Pattern[str] | None, bits: int | None) -> bool:
+    def _poll_done(self, reply: str, completion: Completion) -> bool:
         text = reply.strip()
-        if until is not None and until.fullmatch(text) is None:
+        if completion.until is not None and completion.until.fullmatch(text) is None:
             return False
-        if bits is not None:
-            return (blocks.parse_int(text, where=self.where()) & bits) == 0
+        clear, want = completion.until_bits_clear, completion.until_bits_set
+        if clear is not None or want is not None:
+            bits = blocks.parse_int(text, where=self.where())
+            if clear is not None and bits & clear:
+                return False
+            if want is not None and bits & want != want:
+                return False
         return True
 
     # -- common to every kind ---------------------------------------------------------------
@@ -406,7 +419,7 @@ class Driver:
         raise InstrumentError(
             f"the error queue did not empty after {MAX_ERROR_READS} reads "
             f"(last: {found[-1]})",
-            where=self.where(self.profile.op("next_error").ask[0]),
+            where=self.where(self.profile.op("next_error").queries[0]),
             fix="check that the profile's next_error query is the instrument's error query",
         )
 

@@ -7,7 +7,7 @@ checks what the rendering produced, so a template, a value map or any other text
 second level-setting command into a message cannot get past the limits. It wraps the
 driver's transport (:func:`guard_transport`), so nothing reaches the wire around it.
 
-Which commands set a level is read from the profile itself: the headers of the ``set``
+Which commands set a level is read from the profile itself: the headers of the ``command``
 templates of the guarded operations (:data:`GUARDED_OPS`). Headers are compared in a canonical
 form (short forms, numeric suffixes and the SCPI-99 default nodes ``SOURce``, ``LEVel``,
 ``IMMediate``, ``AMPLitude`` removed), so ``:SOURce1:POWer:LEVel 19`` and ``POW 19`` are the
@@ -153,7 +153,7 @@ def _same_header(rule: tuple[str, ...], sent: tuple[str, ...]) -> bool:
 
 @dataclass(frozen=True)
 class LevelRule:
-    """One command that sets a guarded level, from a profile's ``set`` template.
+    """One command that sets a guarded level, from a profile's ``command`` template.
 
     ``header``: canonical header path. ``args``: the template's parameters, ``{value}`` in
     ``value_index``."""
@@ -171,7 +171,7 @@ def level_rules(profile: Profile) -> tuple[LevelRule, ...]:
         operation = profile.ops.get(op)
         if operation is None:
             continue
-        for template in operation.set:
+        for template in operation.commands:
             for cmd in commands(template):
                 for index, arg in enumerate(cmd.args):
                     if VALUE_PLACEHOLDER in arg:

@@ -132,11 +132,16 @@ def profile_limits(profile: Profile, op: str, role: str) -> OpLimits:
     unit = UNIT_SYMBOL.get(operation.spec.unit, "")
     label = profile_file_label(profile.path, profile.name)
     bounds: list[Bound] = []
-    for side, value, line in (("max", operation.max, operation.max_line),
-                              ("min", operation.min, operation.min_line)):
+    for side, value, line, elsewhere in (
+        ("max", operation.max, operation.max_line, operation.max_place),
+        ("min", operation.min, operation.min_line, operation.min_place),
+    ):
         if value is None:
             continue
-        place = f"{label}:{line}: ops.{op}.{side}" if line is not None else f"ops.{op}.{side}"
+        if elsewhere is not None:  # from a profile this one extends
+            place = f"{elsewhere}: ops.{op}.{side}"
+        else:
+            place = f"{label}:{line}: ops.{op}.{side}" if line is not None else f"ops.{op}.{side}"
         bounds.append(Bound(float(value), side, "profile",  # type: ignore[arg-type]
                             f"{role_label(role)}'s profile {profile.name!r} ({place})"))
     return OpLimits(op, unit, tuple(bounds))

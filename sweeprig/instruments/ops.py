@@ -5,12 +5,17 @@ operation its SCPI) and the driver classes (which call the operations by these n
 operation has a *shape*:
 
 ``setting``
-    a value the driver sets (``set`` templates with ``{value}``), remembers and never re-sends
-    unchanged; optionally read back (``get``).
+    a value the driver sets (``command`` templates with ``{value}``), remembers and never
+    re-sends unchanged; optionally read back (``query``).
 ``action``
-    commands sent for their effect (``do``), possibly with a ``{value}`` and a completion wait.
+    commands sent for their effect (``command``), possibly with a ``{value}`` and a
+    completion wait.
 ``query``
-    commands whose replies are parsed (``ask``), possibly after ``do`` commands.
+    queries whose replies are parsed (``query``), possibly after ``command`` commands.
+
+The words follow IEEE 488.2-1992 (from memory, 6.1 and 8.1): a *command* is a program
+message unit sent for its effect, a *query* one whose header ends in ``?`` and that asks for a
+response.
 
 ``unit`` is the :mod:`sweeprig.units` kind of the value (used to parse limits such as
 ``max = "6 GHz"`` in a profile, and to print values). ``safety`` marks values whose limits
@@ -82,12 +87,12 @@ COMMON_OPS: dict[str, OpSpec] = {
 """Operations every kind has. Profiles inherit the IEEE 488.2 / SCPI-99 defaults below."""
 
 COMMON_DEFAULTS: dict[str, dict[str, object]] = {
-    "identify": {"ask": "*IDN?"},
-    "reset": {"do": "*RST", "complete": "opc"},
-    "clear": {"do": "*CLS"},
-    "next_error": {"ask": "SYST:ERR?"},
-    "event_status": {"ask": "*ESR?"},
-    "operation_complete": {"ask": "*OPC?"},
+    "identify": {"query": "*IDN?"},
+    "reset": {"command": "*RST", "complete": "opc"},
+    "clear": {"command": "*CLS"},
+    "next_error": {"query": "SYST:ERR?"},
+    "event_status": {"query": "*ESR?"},
+    "operation_complete": {"query": "*OPC?"},
 }
 """The TOML a profile gets for the common operations unless it gives its own."""
 

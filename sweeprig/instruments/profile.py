@@ -2,8 +2,12 @@
 
 A profile (``drivers/<name>.toml``) says which instrument kind it drives, which ``*IDN?``
 replies it accepts, and for each abstract operation (:mod:`sweeprig.instruments.ops`) the SCPI
-to send, the reply format, the value limits and how to wait for completion. The schema is
-documented in ``docs/driver-profiles.md``.
+to send (its *command* and *query*, IEEE 488.2's words), the reply format, the value limits and
+unit, and how to wait for completion; its ``[connection]`` says how to talk to the resource
+(terminations, binary byte order, serial line). A profile may ``extends`` another and state
+only what differs. Files are read by the one TOML loader (:mod:`sweeprig.formats.loading`);
+the file schema is :mod:`sweeprig.instruments.profile_schema`; the keys are documented in
+``docs/driver-profiles.md``.
 
 Lookup order for a profile name: folders given by the caller, then the profiles shipped in the
 installed package (``sweeprig/_drivers``), then the top-level ``drivers/`` of a source checkout.
@@ -17,29 +21,52 @@ import difflib
 import functools
 import math
 import re
-import tomllib
-from collections.abc import Iterable, Mapping, Sequence
+from collections.abc import Callable, Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from stat import S_ISREG
-from typing import Annotated, Literal
+from typing import Any, Literal
 
-from pydantic import BaseModel, ConfigDict, Field, ValidationError
+from pydantic import ValidationError
 
 import sweeprig
 from sweeprig.errors import InputError, SweeprigError
-from sweeprig.files import read_file_bytes
-from sweeprig.formats.toml_depth import check_toml_depth, check_value_count
+from sweeprig.formats.loading import (
+    Document,
+    SourceFile,
+    deep_merge,
+    display_path,
+    parse_toml,
+    read_text,
+    validation_error,
+)
+from sweeprig.formats.toml_locate import KeyLocator
 from sweeprig.instruments.ops import (
     COMMON_DEFAULTS,
     KINDS,
     REPLY_FORMATS,
+    UNIT_SYMBOL,
     OpSpec,
     ReplyFormat,
     ops_for,
 )
+from sweeprig.instruments.profile_schema import (
+    _ConnectionModel,
+    _EventModel,
+    _FileModel,
+    _OpcModel,
+    _OpModel,
+    _PollModel,
+    _WaitModel,
+)
 from sweeprig.instruments.scpi_text import wire_text_problem
-from sweeprig.units import parse_quantity, shorten
+from sweeprig.transport.settings import (
+    DEFAULT_CONNECTION,
+    TERMINATIONS,
+    ConnectionSettings,
+    SerialSettings,
+)
+from sweeprig.units import parse_quantity, short_repr
 
 PROFILE_NAME_RE = re.compile(r"[a-z0-9][a-z0-9-]*")
 _PLACEHOLDER_RE = re.compile(r"\{[^{}]*\}|[{}]")
@@ -57,63 +84,7 @@ DEFAULT_PROFILE_FOR_KIND: dict[str, str] = {
 """The generic profile used when a kind is named instead of a profile."""
 
 DOCS_HINT = "see docs/driver-profiles.md"
-
-
-# -- the file schema (pydantic) ---------------------------------------------------------------
-
-Templates = str | list[str]
-
-
-class _Strict(BaseModel):
-    model_config = ConfigDict(extra="forbid", strict=True, frozen=True)
-
-
-#: A profile's waits: at least 1 ms (pyvisa counts whole milliseconds; a shorter timeout is a
-#: slip of the unit), at most a day (a chamber ramp across its range takes hours).
-_TimeoutS = Annotated[float, Field(ge=1e-3, le=86400)]
-
-
-class _PollModel(_Strict):
-    method: Literal["poll"]
-    query: str
-    until: str | None = None
-    until_bits_clear: Annotated[int, Field(ge=1)] | None = None
-    interval_s: Annotated[float, Field(gt=0, le=60)] = 0.05
-    timeout_s: _TimeoutS = 60.0
-
-
-class _OpcModel(_Strict):
-    method: Literal["opc"]
-    timeout_s: _TimeoutS = 60.0
-
-
-class _OpModel(_Strict):
-    set: Templates | None = None
-    get: str | None = None
-    do: Templates | None = None
-    ask: Templates | None = None
-    reply: str | None = None
-    min: float | int | str | None = None
-    max: float | int | str | None = None
-    map: dict[str, str] | None = None
-    mask: Annotated[int, Field(ge=1)] | None = None
-    complete: Literal["opc", "none"] | _OpcModel | _PollModel | None = None
-    timeout_s: _TimeoutS | None = None
-    note: str | None = None
-
-
-class _HeaderModel(_Strict):
-    name: str
-    kind: str
-    description: str = ""
-    idn_pattern: str
-    scan_hint: str | None = None
-    generic: bool = False
-
-
-class _FileModel(_Strict):
-    profile: _HeaderModel
-    ops: dict[str, _OpModel] = Field(default_factory=dict)
+DOCS_PAGE = "docs/driver-profiles.md"
 
 
 # -- the runtime model ------------------------------------------------------------------------
@@ -123,29 +94,38 @@ class _FileModel(_Strict):
 class Completion:
     """How to wait after an operation's commands.
 
-    ``method``: ``"opc"`` (query the profile's ``operation_complete``, expect 1) or ``"poll"``
+    ``method``: ``"opc"`` (query the profile's ``operation_complete``, expect 1); ``"poll"``
     (send ``query`` every ``interval_s`` until the reply full-matches ``until`` or, read as an
-    integer, has none of the ``until_bits_clear`` bits set). ``timeout_s``: give up after this.
+    integer, has none of the ``until_bits_clear`` bits / all of the ``until_bits_set`` bits
+    set); ``"event"`` (send ``command``, normally ``*OPC``, then poll ``query``, normally
+    ``*ESR?``, until the ``until_bits_set`` bit is set); ``"wait"`` (sleep ``timeout_s``).
+    ``timeout_s``: give up after this (for ``"wait"``: the time waited).
     """
 
-    method: Literal["opc", "poll"]
+    method: Literal["opc", "poll", "event", "wait"]
     timeout_s: float = 60.0
     query: str | None = None
     until: re.Pattern[str] | None = None
     until_bits_clear: int | None = None
+    until_bits_set: int | None = None
     interval_s: float = 0.05
+    command: str | None = None
 
 
 @dataclass(frozen=True)
 class Operation:
-    """One abstract operation as a profile renders it (templates use ``{value}``)."""
+    """One abstract operation as a profile renders it (templates use ``{value}``).
+
+    ``commands``: sent for their effect (a setting's value, an action, what a query sends
+    first). ``queries``: sent for their replies (a setting's read-back, a query's reply).
+    ``scale``: the value is sent (and read back) in units of ``scale`` times the operation's
+    SI unit (``1000`` for an instrument that takes kHz).
+    """
 
     name: str
     spec: OpSpec
-    set: tuple[str, ...] = ()
-    get: str | None = None
-    do: tuple[str, ...] = ()
-    ask: tuple[str, ...] = ()
+    commands: tuple[str, ...] = ()
+    queries: tuple[str, ...] = ()
     reply: ReplyFormat | None = None
     min: float | None = None
     max: float | None = None
@@ -153,10 +133,20 @@ class Operation:
     mask: int | None = None
     completion: Completion | None = None
     timeout_s: float | None = None
+    scale: float = 1.0
     min_line: int | None = None
     """Line of ``min`` in the profile file (for messages naming where a limit comes from)."""
     max_line: int | None = None
     """Line of ``max`` in the profile file."""
+    min_place: str | None = None
+    """``file:line`` of ``min`` when it comes from another file (a profile it extends)."""
+    max_place: str | None = None
+    """``file:line`` of ``max`` when it comes from another file."""
+
+    @property
+    def read_back(self) -> str | None:
+        """A setting's read-back query (its ``query``), if any."""
+        return self.queries[0] if self.spec.shape == "setting" and self.queries else None
 
     def render_value(self, value: object) -> str:
         """The SCPI token for an already validated ``value`` (floats as ``%.12g``)."""
@@ -169,7 +159,7 @@ class Operation:
         if kind == "int":
             return str(int(value))  # type: ignore[call-overload]
         if kind == "float":
-            text = format(float(value), ".12g")  # type: ignore[arg-type]
+            text = format(float(value) / self.scale, ".12g")  # type: ignore[arg-type]
             return "0" if text == "-0" else text
         return str(value)
 
@@ -187,7 +177,9 @@ class Profile:
     regular expression searched in the ``*IDN?`` reply. ``scan_hint``: optional second pattern
     that ``sweeprig scan`` also requires before suggesting this profile. ``generic``: True for
     profiles meant for any instrument of the kind speaking SCPI-99. ``ops``: every operation,
-    the common IEEE 488.2 ones included. ``path``: the file it came from.
+    the common IEEE 488.2 ones included. ``path``: the file it came from. ``connection``:
+    terminations, byte order and serial settings the transport applies. ``extends``: the
+    chain of profiles it builds on (nearest first). ``sources``: every file read.
     """
 
     name: str
@@ -198,6 +190,9 @@ class Profile:
     generic: bool
     ops: Mapping[str, Operation]
     path: Path | None = None
+    connection: ConnectionSettings = DEFAULT_CONNECTION
+    extends: tuple[str, ...] = ()
+    sources: tuple[Path, ...] = ()
 
     def op(self, name: str) -> Operation:
         """The operation ``name``; :class:`InputError` if this profile lacks it."""
@@ -225,95 +220,10 @@ class Profile:
         return self.scan_hint is None or self.scan_hint.search(idn) is not None
 
 
-# -- locating keys in the file (for error messages) -------------------------------------------
-
-
-def _split_header(text: str) -> tuple[str, ...]:
-    parts = [p.strip().strip('"').strip("'") for p in text.split(".")]
-    return tuple(p for p in parts if p)
-
-
 def key_line(text: str, path: Sequence[str]) -> int:
-    """1-based line of the TOML key ``path`` (e.g. ``("ops", "power", "max")``) in ``text``.
-
-    A simple scan of table headers and ``key =`` lines; falls back to the nearest parent found,
-    then to line 1. Good enough to point a person at the right place.
-    """
-    want = tuple(str(p) for p in path)
-    best_line, best_depth = 1, 0
-    table: tuple[str, ...] = ()
-    for number, raw in enumerate(text.splitlines(), start=1):
-        line = raw.strip()
-        if not line or line.startswith("#"):
-            continue
-        if line.startswith("["):
-            inner = line.strip("[]").split("#")[0].strip().rstrip("]").strip()
-            table = _split_header(inner)
-            full = table
-        else:
-            key = line.split("=", 1)[0].strip() if "=" in line else ""
-            if not key:
-                continue
-            full = table + _split_header(key)
-        depth = 0
-        for a, b in zip(full, want, strict=False):
-            if a != b:
-                break
-            depth += 1
-        if depth == len(want) and len(full) >= len(want):
-            return number
-        if depth > best_depth and depth == len(full):
-            best_line, best_depth = number, depth
-    return best_line
-
-
-_DOCS_LIST = "docs/driver-profiles.md lists every key"
-_LONG_DIGITS = re.compile(r"[0-9_]{1000,}")
-
-
-def _allowed_keys(parent: Sequence[str]) -> list[str]:
-    """Keys the profile table at ``parent`` may hold (for "did you mean" suggestions)."""
-    models: tuple[type[BaseModel], ...] = ()
-    if not parent:
-        models = (_FileModel,)
-    elif list(parent) == ["profile"]:
-        models = (_HeaderModel,)
-    elif len(parent) == 2 and parent[0] == "ops":
-        models = (_OpModel,)
-    elif len(parent) == 3 and parent[0] == "ops" and parent[2] == "complete":
-        models = (_PollModel, _OpcModel)
-    return sorted({name for model in models for name in model.model_fields})
-
-
-def _where(path: Path | str, text: str, keys: Sequence[str]) -> str:
-    dotted = ".".join(shorten(str(k)) for k in keys)
-    line = key_line(text, keys)
-    return f"{path}:{line}: {dotted}" if dotted else f"{path}:{line}"
-
-
-_TYPE_NAMES = frozenset({"str", "int", "float", "bool", "list", "dict"})
-
-
-def _pydantic_location(data: object, loc: Sequence[object]) -> list[str]:
-    """Keep the part of a pydantic error location that exists in the TOML data."""
-    keys: list[str] = []
-    node = data
-    for item in loc:
-        if isinstance(node, dict) and item in node:
-            keys.append(str(item))
-            node = node[item]
-        elif isinstance(node, list) and isinstance(item, int) and 0 <= item < len(node):
-            node = node[item]
-        elif isinstance(item, str) and (
-            item.startswith("_") or "[" in item or item in _TYPE_NAMES
-        ):
-            continue  # a union member's name, not a key of the file
-        else:
-            # a missing key: name it (its name ends the pydantic location)
-            if isinstance(item, str) and isinstance(node, dict):
-                keys.append(item)
-            break
-    return keys
+    """1-based line of the TOML key ``path`` (e.g. ``("ops", "power", "max")``) in ``text``,
+    or of its nearest parent present (line 1 if none): the loader's own key locator."""
+    return KeyLocator(text).line(tuple(path)) or 1
 
 
 # -- loading ---------------------------------------------------------------------------------
@@ -412,64 +322,58 @@ def _check_token(token: str, where: str) -> None:
 
 
 def _build_op(
-    name: str, spec: OpSpec, model: _OpModel, path: Path | str, text: str, explicit: bool
+    name: str, spec: OpSpec, model: _OpModel, doc: Document | None, display: str
 ) -> Operation:
     def at(*keys: str) -> str:
-        return _where(path, text, ("ops", name, *keys)) if explicit else f"{path}: ops.{name}"
+        return doc.where(("ops", name, *keys)) if doc is not None else f"{display}: ops.{name}"
 
+    cmd_t, query_t = _templates(model.command), _templates(model.query)
     if spec.shape == "setting":
-        if model.set is None:
+        if model.command is None:
             raise InputError(
-                f"setting {name!r} needs 'set' (the command that sets it)",
+                f"setting {name!r} needs 'command' (the command that sets it)",
                 where=at(),
-                fix="add set = \"<SCPI> {value}\"",
+                fix="add command = \"<SCPI> {value}\"",
             )
-        if model.do is not None or model.ask is not None:
+        if len(query_t) > 1:
             raise InputError(
-                f"setting {name!r} takes 'set' and 'get', not 'do'/'ask'",
-                where=at("do" if model.do is not None else "ask"),
-                fix="use set/get",
+                f"setting {name!r} takes one read-back query",
+                where=at("query"),
+                fix="write query = \"<SCPI>?\"",
             )
     elif spec.shape == "action":
-        if model.do is None:
+        if model.command is None:
             raise InputError(
-                f"action {name!r} needs 'do' (the commands to send)",
+                f"action {name!r} needs 'command' (the commands to send)",
                 where=at(),
-                fix="add do = \"<SCPI>\"",
+                fix="add command = \"<SCPI>\"",
             )
-        if model.set is not None or model.get is not None or model.ask is not None:
+        if model.query is not None:
             raise InputError(
-                f"action {name!r} takes 'do' only (with 'complete' to wait)",
-                where=at(),
-                fix="remove set/get/ask",
+                f"action {name!r} takes 'command' only (with 'complete' to wait)",
+                where=at("query"),
+                fix="remove query",
             )
+    elif model.query is None:
+        raise InputError(
+            f"query {name!r} needs 'query' (the query whose reply is read)",
+            where=at(),
+            fix="add query = \"<SCPI>?\"",
+        )
+    if spec.shape == "setting":
+        _check_templates(cmd_t, spec, at("command"), needs_value=True)
+        _check_templates(query_t, _NO_VALUE, at("query"), needs_value=False)
     else:
-        if model.ask is None:
-            raise InputError(
-                f"query {name!r} needs 'ask' (the query whose reply is read)",
-                where=at(),
-                fix="add ask = \"<SCPI>?\"",
-            )
-        if model.set is not None or model.get is not None:
-            raise InputError(
-                f"query {name!r} takes 'do' and 'ask', not 'set'/'get'",
-                where=at(),
-                fix="remove set/get",
-            )
-    set_t, do_t, ask_t = _templates(model.set), _templates(model.do), _templates(model.ask)
-    _check_templates(set_t, spec, at("set"), needs_value=True)
-    if model.get is not None:
-        _check_templates([model.get], spec if spec.shape != "setting" else _NO_VALUE, at("get"),
-                         needs_value=False)
-    _check_templates(do_t, spec, at("do"), needs_value=spec.shape == "action" and not ask_t)
-    _check_templates(ask_t, spec, at("ask"), needs_value=False)
+        _check_templates(cmd_t, spec, at("command"),
+                         needs_value=spec.shape == "action" and not query_t)
+        _check_templates(query_t, spec, at("query"), needs_value=False)
     if (
         spec.shape == "query"
         and spec.value != "none"
-        and not any(VALUE_PLACEHOLDER in t for t in (*do_t, *ask_t))
+        and not any(VALUE_PLACEHOLDER in t for t in (*cmd_t, *query_t))
     ):
         raise InputError(
-            f"query {name!r} needs its value ({spec.summary}) in 'do' or 'ask'",
+            f"query {name!r} needs its value ({spec.summary}) in 'command' or 'query'",
             where=at(),
             fix="put {value} where the number goes",
         )
@@ -481,17 +385,17 @@ def _build_op(
             where=at("reply"),
             fix="pick one of those",
         )
-    if spec.name == "peak" and len(ask_t) != 2:
+    if spec.shape == "query" and spec.name == "peak" and len(query_t) != 2:
         raise InputError(
-            "'peak' needs two queries in 'ask': the marker frequency, then its level",
-            where=at("ask"),
-            fix='write ask = ["CALC:MARK1:X?", "CALC:MARK1:Y?"]',
+            "'peak' needs two queries in 'query': the marker frequency, then its level",
+            where=at("query"),
+            fix='write query = ["CALC:MARK1:X?", "CALC:MARK1:Y?"]',
         )
-    if spec.name != "peak" and len(ask_t) > 1:
+    if spec.shape == "query" and spec.name != "peak" and len(query_t) > 1:
         raise InputError(
-            f"query {name!r} takes one query in 'ask'",
-            where=at("ask"),
-            fix="send the other commands with 'do' before it",
+            f"query {name!r} takes one query in 'query'",
+            where=at("query"),
+            fix="send the other commands with 'command' before it",
         )
 
     mapping = dict(model.map or {})
@@ -532,7 +436,13 @@ def _build_op(
             where=at("min"),
             fix="swap them",
         )
+    scale = _scale(model.unit, spec, at("unit"))
     if isinstance(model.complete, _PollModel):
+        _check_templates([model.complete.query], _NO_VALUE, at("complete", "query"),
+                         needs_value=False)
+    if isinstance(model.complete, _EventModel):
+        _check_templates([model.complete.command], _NO_VALUE, at("complete", "command"),
+                         needs_value=False)
         _check_templates([model.complete.query], _NO_VALUE, at("complete", "query"),
                          needs_value=False)
     if model.mask is not None and reply != "int":
@@ -542,29 +452,7 @@ def _build_op(
             fix="set reply = \"int\" or remove mask",
         )
 
-    completion: Completion | None = None
-    raw = model.complete
-    if raw == "opc":
-        completion = Completion("opc", timeout_s=model.timeout_s or 60.0)
-    elif isinstance(raw, _OpcModel):
-        completion = Completion("opc", timeout_s=raw.timeout_s)
-    elif isinstance(raw, _PollModel):
-        if raw.until is None and raw.until_bits_clear is None:
-            raise InputError(
-                "a poll needs 'until' (a pattern for the reply) or 'until_bits_clear' (a mask)",
-                where=at("complete"),
-                fix='add until = "0" or until_bits_clear = 8',
-            )
-        completion = Completion(
-            "poll",
-            timeout_s=raw.timeout_s,
-            query=raw.query,
-            until=_compile(raw.until, at("complete", "until"), "'until' pattern")
-            if raw.until is not None
-            else None,
-            until_bits_clear=raw.until_bits_clear,
-            interval_s=raw.interval_s,
-        )
+    completion = _completion(model, at)
     if completion is not None and spec.shape == "query":
         raise InputError(
             f"query {name!r} cannot have 'complete'",
@@ -572,13 +460,23 @@ def _build_op(
             fix="put the waiting on the action before it",
         )
 
+    def place(side: str) -> tuple[int | None, str | None]:
+        if doc is None or getattr(model, side) is None:
+            return None, None
+        key = ("ops", name, side)
+        source = doc.root.origin(key)
+        line = source.locator.line(key)
+        if source is doc.root:
+            return line, None
+        return None, f"{source.display}:{line}" if line else source.display
+
+    min_line, min_place = place("min")
+    max_line, max_place = place("max")
     return Operation(
         name=name,
         spec=spec,
-        set=set_t,
-        get=model.get,
-        do=do_t,
-        ask=ask_t,
+        commands=cmd_t,
+        queries=query_t,
         reply=reply,  # type: ignore[arg-type]
         min=low,
         max=high,
@@ -586,106 +484,236 @@ def _build_op(
         mask=model.mask,
         completion=completion,
         timeout_s=model.timeout_s,
-        min_line=key_line(text, ("ops", name, "min")) if explicit and low is not None else None,
-        max_line=key_line(text, ("ops", name, "max")) if explicit and high is not None else None,
+        scale=scale,
+        min_line=min_line,
+        max_line=max_line,
+        min_place=min_place,
+        max_place=max_place,
     )
 
 
-_NO_VALUE = OpSpec("get", "query", "read-back")
+def _scale(unit: str | None, spec: OpSpec, where: str) -> float:
+    """SI units per unit sent, for ``unit = "kHz"`` (1000); 1 without a unit."""
+    if unit is None:
+        return 1.0
+    if spec.value != "float" or spec.unit is None:
+        raise InputError(
+            f"operation {spec.name!r} takes no quantity, so it cannot have a unit",
+            where=where, fix="remove unit here")
+    if spec.safety:
+        raise InputError(
+            f"operation {spec.name!r} sets a level that the last-step guard reads in "
+            f"{UNIT_SYMBOL[spec.unit]}; it cannot be scaled",
+            where=where,
+            fix=f"remove unit and write the instrument's unit suffix into the command "
+            f"instead, e.g. \"LEVEL {{value}} {UNIT_SYMBOL[spec.unit].upper()}\"")
+    try:
+        one = parse_quantity(f"1 {unit}", spec.unit, where=where)
+        two = parse_quantity(f"2 {unit}", spec.unit, where=where)
+    except SweeprigError as exc:
+        raise InputError(
+            f"unit {unit!r} is not a unit of {spec.summary.split(',')[0]}: {exc.what}",
+            where=where, fix=f"write a unit of the same kind as {UNIT_SYMBOL[spec.unit]!r}, "
+            "e.g. \"kHz\" or \"MHz\"") from None
+    if not (one > 0 and math.isclose(two, 2 * one)):
+        raise InputError(f"unit {unit!r} is not a multiple of {UNIT_SYMBOL[spec.unit]}",
+                         where=where, fix="use a scaled unit such as \"kHz\", \"mV\", \"ms\"")
+    return one
+
+
+def _completion(model: _OpModel, at: Callable[..., str]) -> Completion | None:
+    raw = model.complete
+    if raw is None or raw == "none":
+        return None
+    if raw == "opc":
+        return Completion("opc", timeout_s=model.timeout_s or 60.0)
+    if isinstance(raw, _OpcModel):
+        return Completion("opc", timeout_s=raw.timeout_s)
+    if isinstance(raw, _WaitModel):
+        return Completion("wait", timeout_s=raw.wait_s)
+    if isinstance(raw, _EventModel):
+        return Completion("event", timeout_s=raw.timeout_s, query=raw.query,
+                          until_bits_set=raw.bit, interval_s=raw.interval_s,
+                          command=raw.command)
+    assert isinstance(raw, _PollModel)
+    if raw.until is None and raw.until_bits_clear is None and raw.until_bits_set is None:
+        raise InputError(
+            "a poll needs 'until' (a pattern for the reply), 'until_bits_clear' or "
+            "'until_bits_set' (a mask)",
+            where=at("complete"),
+            fix='add until = "0" or until_bits_clear = 8',
+        )
+    return Completion(
+        "poll",
+        timeout_s=raw.timeout_s,
+        query=raw.query,
+        until=_compile(raw.until, at("complete", "until"), "'until' pattern")
+        if raw.until is not None
+        else None,
+        until_bits_clear=raw.until_bits_clear,
+        until_bits_set=raw.until_bits_set,
+        interval_s=raw.interval_s,
+    )
+
+
+_NO_VALUE = OpSpec("read_back", "query", "read-back")
+
+
+def _connection(model: _ConnectionModel, doc: Document) -> ConnectionSettings:
+    for key in ("write_termination", "read_termination"):
+        value = getattr(model, key)
+        if value is not None and value not in TERMINATIONS:
+            raise InputError(
+                f"{key} {value!r} is not LF, CR, CR LF or empty",
+                where=doc.where(("connection", key)),
+                fix='write "\\n" (LF), "\\r" (CR), "\\r\\n" or "" (the bus\'s end indicator)')
+    serial = None
+    if model.serial is not None:
+        raw = model.serial
+        if isinstance(raw.stop_bits, bool) or raw.stop_bits not in (1, 1.5, 2):
+            raise InputError(
+                f"stop_bits {raw.stop_bits!r} is not 1, 1.5 or 2",
+                where=doc.where(("connection", "serial", "stop_bits")),
+                fix="write 1, 1.5 or 2 (most instruments: 1)")
+        if raw.stop_bits == 1.5 and raw.data_bits != 5:
+            # common practice, no source: 16550-type UARTs give 1.5 stop bits only with 5
+            # data bits
+            raise InputError(
+                f"1.5 stop bits with {raw.data_bits} data bits is not a setting a serial port "
+                "can make (1.5 goes with 5 data bits only)",
+                where=doc.where(("connection", "serial", "stop_bits")),
+                fix="write stop_bits = 1 or 2, as the instrument's manual says")
+        serial = SerialSettings(baud_rate=raw.baud_rate, data_bits=raw.data_bits,
+                                parity=raw.parity, stop_bits=float(raw.stop_bits),
+                                flow_control=raw.flow_control)
+    return ConnectionSettings(
+        write_termination=model.write_termination,
+        read_termination=model.read_termination,
+        byte_order=model.byte_order,
+        datatype=model.datatype,
+        serial=serial,
+    )
+
+
+#: Header keys a profile does not take from the profile it extends.
+_NOT_INHERITED = ("name", "generic", "extends")
 
 
 def parse_profile(text: str, path: Path | str = "<profile>") -> Profile:
     """Validate the TOML ``text`` of a profile. ``path`` names it in error messages.
 
+    A profile given as text cannot extend another (``load_profile`` resolves ``extends``).
     Raises :class:`InputError` naming ``file:line: key`` for any problem.
     """
-    check_toml_depth(text, str(path))
-    try:
-        data = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        match = re.search(r"line (\d+)", str(exc))
-        where = f"{path}:{match[1]}" if match else str(path)
+    display = str(path)
+    source = SourceFile(path=Path(display), display=display, text=text,
+                        data=parse_toml(text, display))
+    if "extends" in _header(source):
         raise InputError(
-            f"not valid TOML: {exc}",
-            where=where,
-            fix="fix the TOML syntax (strings in quotes, one key per line)",
-        ) from None
-    except ValueError:  # an integer of more than 4300 digits (Python's int-from-text limit)
-        match = _LONG_DIGITS.search(text)
-        line = text.count("\n", 0, match.start()) + 1 if match else None
-        raise InputError(
-            "not valid TOML: a number too long to read",
-            where=f"{path}:{line}" if line else str(path),
-            fix="write the number with at most a few digits (and an exponent, e.g. 2.4e9)",
-        ) from None
-    check_value_count(data, str(path))
+            "a profile given as text cannot extend another (its base is found beside its file)",
+            where=source.where(("profile", "extends")),
+            fix="save it as a file and load it with load_profile(path)")
+    return _build_profile(source, path if isinstance(path, Path) else None, ())
+
+
+def _header(source: SourceFile) -> dict[str, Any]:
+    header = source.data.get("profile")
+    return header if isinstance(header, dict) else {}
+
+
+def _merged(source: SourceFile) -> dict[str, Any]:
+    """``source`` over the profile it extends: tables merge key by key, except an operation's
+    ``complete``, which is replaced whole (a wait of another method shares no keys)."""
+    data = source.data
+    for parent in source.includes:
+        base = _merged(parent)
+        merged = deep_merge(base, data)
+        ops, base_ops = data.get("ops"), base.get("ops")
+        if isinstance(ops, dict) and isinstance(base_ops, dict):
+            for name, op in ops.items():
+                if isinstance(op, dict) and "complete" in op and isinstance(
+                        merged["ops"].get(name), dict):
+                    merged["ops"][name] = {**merged["ops"][name], "complete": op["complete"]}
+        data = merged
+    return data
+
+
+#: Keys of the earlier profile format and the words that replaced them.
+_OLD_KEYS = {"set": "command", "do": "command", "get": "query", "ask": "query"}
+
+
+def _refuse_old_keys(doc: Document) -> None:
+    """A profile written with the earlier key names gets the new name in its fix."""
+    ops = doc.data.get("ops")
+    if not isinstance(ops, dict):
+        return
+    for name, op in ops.items():
+        if isinstance(op, dict):
+            for key in op:
+                if key in _OLD_KEYS:
+                    raise InputError(
+                        f"unknown key {key!r} (a key of the earlier profile format)",
+                        where=doc.where(("ops", name, key)),
+                        fix=f"rename it to {_OLD_KEYS[key]!r}: profiles now say 'command' for "
+                        "what is sent for its effect and 'query' for what is read "
+                        f"({DOCS_HINT})")
+
+
+def _build_profile(root: SourceFile, path: Path | None, chain: tuple[str, ...]) -> Profile:
+    doc = Document(root=root, data=_merged(root))
+    data = doc.data
+    _refuse_old_keys(doc)
     try:
         model = _FileModel.model_validate(data)
     except ValidationError as exc:
-        first = exc.errors()[0]
-        keys = _pydantic_location(data, first["loc"])
-        more = len(exc.errors()) - 1
-        extra = f" (and {more} more problem{'s' if more > 1 else ''})" if more else ""
-        msg = first["msg"]
-        fix = f"correct this key ({_DOCS_LIST})"
-        if first["type"] == "extra_forbidden":
-            msg = "unknown key"
-            close = difflib.get_close_matches(keys[-1] if keys else "", _allowed_keys(keys[:-1]),
-                                              n=1, cutoff=0.6)
-            if close:
-                fix = f"did you mean {close[0]!r}? ({_DOCS_LIST})"
-        elif first["type"] == "missing":
-            msg = "missing key"
-        raise InputError(
-            f"{msg}{extra}",
-            where=_where(path, text, keys),
-            fix=fix,
-        ) from None
+        raise validation_error(_FileModel, exc, doc.where, docs=DOCS_PAGE) from None
     header = model.profile
     if PROFILE_NAME_RE.fullmatch(header.name) is None:
         raise InputError(
             f"profile name {header.name!r} is not lower-case letters, digits and '-'",
-            where=_where(path, text, ("profile", "name")),
+            where=doc.where(("profile", "name")),
             fix="rename it, e.g. 'tarnwick-sg6'",
         )
-    if isinstance(path, Path) and path.stem != header.name:
+    if path is not None and path.stem != header.name:
         raise InputError(
             f"profile name {header.name!r} differs from the file name {path.name!r}",
-            where=_where(path, text, ("profile", "name")),
+            where=doc.where(("profile", "name")),
             fix=f"name the file {header.name}.toml or the profile {path.stem!r}",
         )
     if header.kind not in KINDS:
         raise InputError(
             f"kind {header.kind!r} is not one of {', '.join(KINDS)}",
-            where=_where(path, text, ("profile", "kind")),
+            where=doc.where(("profile", "kind")),
             fix="pick the kind of instrument this profile drives",
         )
-    idn_pattern = _compile(header.idn_pattern, _where(path, text, ("profile", "idn_pattern")),
+    idn_pattern = _compile(header.idn_pattern, doc.where(("profile", "idn_pattern")),
                            "idn_pattern")
     scan_hint = (
-        _compile(header.scan_hint, _where(path, text, ("profile", "scan_hint")), "scan_hint")
+        _compile(header.scan_hint, doc.where(("profile", "scan_hint")), "scan_hint")
         if header.scan_hint is not None
         else None
     )
     specs = ops_for(header.kind)
     for name in model.ops:
         if name not in specs:
+            close = difflib.get_close_matches(name, list(specs), n=1, cutoff=0.6)
+            hint = f"did you mean {close[0]!r}? " if close else ""
             raise InputError(
                 f"{header.kind} profiles have no operation {name!r}",
-                where=_where(path, text, ("ops", name)),
-                fix=f"use one of: {', '.join(specs)}",
+                where=doc.where(("ops", name)),
+                fix=f"{hint}use one of: {', '.join(specs)}",
             )
     ops: dict[str, Operation] = {}
     for name, spec in specs.items():
         if name in model.ops:
-            ops[name] = _build_op(name, spec, model.ops[name], path, text, explicit=True)
+            ops[name] = _build_op(name, spec, model.ops[name], doc, root.display)
         elif name in COMMON_DEFAULTS:
             default = _OpModel.model_validate(COMMON_DEFAULTS[name])
-            ops[name] = _build_op(name, spec, default, path, text, explicit=False)
+            ops[name] = _build_op(name, spec, default, None, root.display)
         elif spec.required:
             raise InputError(
                 f"{header.kind} profiles need the operation {name!r} ({spec.summary})",
-                where=_where(path, text, ("ops",)),
+                where=doc.where(("ops",)),
                 fix=f"add [ops.{name}] ({DOCS_HINT})",
             )
     if header.kind == "analyzer" and not (
@@ -693,9 +721,17 @@ def parse_profile(text: str, path: Path | str = "<profile>") -> Profile:
     ):
         raise InputError(
             "analyzer profiles need 'trace_ascii' or 'trace_real32'",
-            where=_where(path, text, ("ops",)),
-            fix="add [ops.trace_ascii] with ask = \"TRAC? TRACE1\"",
+            where=doc.where(("ops",)),
+            fix="add [ops.trace_ascii] with query = \"TRAC? TRACE1\"",
         )
+    sources: list[Path] = []
+
+    def walk(source: SourceFile) -> None:
+        sources.append(source.path)
+        for parent in source.includes:
+            walk(parent)
+
+    walk(root)
     return Profile(
         name=header.name,
         kind=header.kind,
@@ -704,41 +740,116 @@ def parse_profile(text: str, path: Path | str = "<profile>") -> Profile:
         scan_hint=scan_hint,
         generic=header.generic,
         ops=ops,
-        path=path if isinstance(path, Path) else None,
+        path=path,
+        connection=_connection(model.connection, doc),
+        extends=chain,
+        sources=tuple(sources),
     )
 
 
-def _read(path: Path) -> str:
-    raw = read_file_bytes(
-        path, what="driver profile file", display=str(path),
-        missing_fix="check the path, or name a profile listed by `available_profiles()`",
-        expected="a .toml profile file", toml=True)
-    try:
-        return raw.decode("utf-8")
-    except UnicodeDecodeError as exc:
-        line = raw[: exc.start].count(b"\n") + 1
+def _read_source(path: Path) -> SourceFile:
+    display = display_path(path)
+    text = read_text(path, display, what="driver profile file")
+    return SourceFile(path=path, display=display, text=text, data=parse_toml(text, display))
+
+
+def _parent_path(name: object, child: SourceFile, search_dirs: Sequence[Path]) -> Path:
+    where = child.where(("profile", "extends"))
+    if not isinstance(name, str) or PROFILE_NAME_RE.fullmatch(name) is None:
         raise InputError(
-            "the file is not UTF-8 text",
-            where=f"{path}:{line}",
-            fix="save it as UTF-8",
-        ) from None
+            f"extends {short_repr(name)} is not a profile name",
+            where=where,
+            fix='name the profile it builds on, e.g. extends = "scpi-analyzer"')
+    known = available_profiles([child.path.parent, *search_dirs])
+    if name not in known:
+        close = difflib.get_close_matches(name, list(known), n=1, cutoff=0.6)
+        raise InputError(
+            f"extends {name!r}, but there is no profile of that name",
+            where=where,
+            fix=f"did you mean {close[0]!r}?" if close else
+            f"name one of: {', '.join(known) or 'none found'} (this file's folder and the "
+            "profile folders are searched)")
+    return known[name]
+
+
+def _load_chain(path: Path, search_dirs: Sequence[Path]) -> tuple[SourceFile, tuple[str, ...]]:
+    """Read ``path`` and every profile it extends; each file's ``includes`` holds its parent
+    (so that every key is reported at the file that gives it)."""
+    root = _read_source(path)
+    chain_paths = [_resolved(path)]
+    chain_names = [path.stem]
+    child = root
+    parent_name = _header(root).get("extends")
+    while parent_name is not None:
+        parent_path = _parent_path(parent_name, child, search_dirs)
+        if _resolved(parent_path) in chain_paths:
+            shown = " → ".join([*chain_names, str(parent_name)])
+            raise InputError(
+                f"profile inheritance cycle: {shown}",
+                where=child.where(("profile", "extends")),
+                fix="remove one 'extends' so that no profile builds on itself")
+        if len(chain_paths) > MAX_EXTENDS:
+            raise InputError(
+                f"more than {MAX_EXTENDS} profiles extend one another",
+                where=child.where(("profile", "extends")),
+                fix="extend a profile closer to the generic one")
+        parent = _read_source(parent_path)
+        next_name = _header(parent).get("extends")
+        header = parent.data.get("profile")
+        if isinstance(header, dict):
+            parent.data = {**parent.data,
+                           "profile": {k: v for k, v in header.items()
+                                       if k not in _NOT_INHERITED}}
+        child.includes.append(parent)
+        chain_paths.append(_resolved(parent_path))
+        chain_names.append(str(parent_name))
+        child, parent_name = parent, next_name
+    return root, tuple(chain_names[1:])
+
+
+MAX_EXTENDS = 16
+"""How deep profiles may build on one another."""
+
+
+def _load(path: Path, search_dirs: tuple[Path, ...]) -> Profile:
+    root, chain = _load_chain(path, search_dirs)
+    return _build_profile(root, path, chain)
 
 
 @functools.lru_cache(maxsize=128)
-def _load_cached(path: Path, mtime_ns: int, size: int) -> Profile:
-    return parse_profile(_read(path), path)
+def _load_cached(path: Path, stamps: tuple[tuple[int, int], ...],
+                 search_dirs: tuple[Path, ...]) -> Profile:
+    return _load(path, search_dirs)
 
 
-def load_profile_file(path: Path | str) -> Profile:
-    """Load and validate the profile file at ``path`` (cached while the file is unchanged)."""
+def _stamp(path: Path) -> tuple[int, int]:
+    stat = path.stat()
+    return stat.st_mtime_ns, stat.st_size
+
+
+def load_profile_file(path: Path | str, *, search_dirs: Iterable[Path | str] = ()) -> Profile:
+    """Load and validate the profile file at ``path`` (cached while it and the profiles it
+    extends are unchanged). ``search_dirs``: where profiles it extends are looked up (after
+    its own folder)."""
     path = Path(path)
+    dirs = tuple(Path(d) for d in search_dirs)
     try:
         stat = path.stat()
     except OSError:
-        return parse_profile(_read(path), path)
-    if not S_ISREG(stat.st_mode):  # refused by _read, under the name given
-        return parse_profile(_read(path), path)
-    return _load_cached(path.resolve(), stat.st_mtime_ns, stat.st_size)
+        return _load(path, dirs)
+    if not S_ISREG(stat.st_mode):  # refused by read_text, under the name given
+        return _load(path, dirs)
+    resolved = path.resolve()
+    profile = _load_cached(resolved, (_stamp(resolved),), dirs)
+    try:
+        stamps = tuple(_stamp(p) for p in profile.sources)
+    except OSError:
+        return _load(path, dirs)
+    if len(stamps) > 1:
+        profile = _load_cached(resolved, stamps, dirs)
+        if tuple(_stamp(p) for p in profile.sources) != stamps:  # pragma: no cover - a race
+            return _load(path, dirs)
+    return profile
 
 
 def builtin_profile_dirs() -> list[Path]:
@@ -783,7 +894,7 @@ def load_profile(
     Raises :class:`InputError` for an unknown name or a bad file.
     """
     if isinstance(name_or_path, Path) or _looks_like_path(name_or_path):
-        return load_profile_file(name_or_path)
+        return load_profile_file(name_or_path, search_dirs=search_dirs)
     search_dirs = list(search_dirs)
     known = available_profiles(search_dirs)
     if name_or_path not in known:
@@ -793,15 +904,16 @@ def load_profile(
             where="driver profile",
             fix=f"use one of: {names}; or give the path of a profile file ({DOCS_HINT})",
         )
-    return load_profile_file(known[name_or_path])
+    return load_profile_file(known[name_or_path], search_dirs=search_dirs)
 
 
 def load_all_profiles(search_dirs: Iterable[Path | str] = ()) -> list[Profile]:
     """Every available profile that loads; files with errors are skipped (see ``check``)."""
+    search_dirs = list(search_dirs)
     profiles = []
     for path in available_profiles(search_dirs).values():
         try:
-            profiles.append(load_profile_file(path))
+            profiles.append(load_profile_file(path, search_dirs=search_dirs))
         except SweeprigError:
             continue
     return profiles
@@ -812,3 +924,10 @@ def matching_profiles(idn: str, profiles: Iterable[Profile]) -> list[Profile]:
     profiles first, then generic ones, each group by name."""
     hits = [p for p in profiles if p.suggested_for(idn)]
     return sorted(hits, key=lambda p: (p.generic, p.name))
+
+
+def _resolved(path: Path) -> Path:
+    try:
+        return path.resolve()
+    except (OSError, RuntimeError, ValueError):
+        return path

@@ -19,6 +19,7 @@ import numpy as np
 from sweeprig.errors import TransportError
 from sweeprig.transport import blocks
 from sweeprig.transport.base import Transaction, TransactionHook
+from sweeprig.transport.settings import DEFAULT_CONNECTION, ConnectionSettings
 
 Handler = Callable[[str], "str | bytes | None"]
 
@@ -36,8 +37,10 @@ class FakeTransport:
         *,
         resource: str = "FAKE::INSTR",
         on_transaction: TransactionHook | None = None,
+        settings: ConnectionSettings | None = None,
     ) -> None:
         self.handler = handler
+        self.settings = settings or DEFAULT_CONNECTION
         self.resource = resource
         self.on_transaction = on_transaction
         self.log: list[Transaction] = []
@@ -109,7 +112,8 @@ class FakeTransport:
         return text
 
     def query_binary_floats(self, cmd: str, *, timeout_s: float | None = None) -> np.ndarray:
-        """Pass ``cmd`` to the handler and decode its reply as a big-endian REAL,32 block."""
+        """Pass ``cmd`` to the handler and decode its reply as a block of floats in the byte
+        order and data type of ``settings`` (big-endian REAL,32 by default)."""
         start, t0 = time.time(), time.perf_counter()
         self.timeouts_s.append(timeout_s)
         where = f"{self.resource}, command {cmd!r}"
@@ -118,7 +122,15 @@ class FakeTransport:
             if reply is None:
                 raise TransportError(f"no reply to {cmd!r} (timeout)", where=self.resource)
             data = reply.encode("latin-1") if isinstance(reply, str) else bytes(reply)
-            values = blocks.parse_real32_block(data, where=where)
+            big = self.settings.byte_order == "big"
+            if self.settings.datatype == "real64":
+                payload = blocks.parse_block(data, where=where)
+                if len(payload) % 8:
+                    raise TransportError(f"a REAL,64 block of {len(payload)} bytes",
+                                         where=where)
+                values = np.frombuffer(payload, dtype=">f8" if big else "<f8").astype(float)
+            else:
+                values = blocks.parse_real32_block(data, big_endian=big, where=where)
         except TransportError as exc:
             self._record(start, t0, cmd, f"<error: {exc.what}>")
             raise

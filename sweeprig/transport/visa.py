@@ -1,10 +1,13 @@
 """The pyvisa transport: real instruments and the simulated bench over loopback TCP.
 
 ``VisaTransport("TCPIP0::127.0.0.1::5025::SOCKET")`` opens the resource through a pyvisa
-``ResourceManager`` (``"@py"``, the pure-Python pyvisa-py backend, by default). Raw SOCKET
-resources get newline termination in both directions; every resource gets a newline write
-termination. All pyvisa, socket and decoding errors come out as :class:`TransportError`
-naming the resource and the command.
+``ResourceManager`` (``"@py"``, the pure-Python pyvisa-py backend, by default) and applies the
+instrument's :class:`~sweeprig.transport.settings.ConnectionSettings` (from its driver
+profile): write and read termination, serial line settings on an ``ASRL`` resource, and the
+byte order and data type of binary blocks, which pyvisa's own reader
+(``query_binary_values``) decodes. Without settings: LF written after every command, LF ends a
+reply on raw sockets and serial lines, big-endian ``REAL,32`` blocks. All pyvisa, socket and
+decoding errors come out as :class:`TransportError` naming the resource and the command.
 
 This is the only module in sweeprig that imports pyvisa.
 """
@@ -23,10 +26,10 @@ import pyvisa.constants
 import pyvisa.errors
 
 from sweeprig.errors import TransportError
-from sweeprig.transport import blocks
 from sweeprig.transport.backend import DEFAULT_VISA_LIBRARY, VISA_LIBRARY_ENV
 from sweeprig.transport.base import Transaction, TransactionHook
 from sweeprig.transport.resources import visa_spelling
+from sweeprig.transport.settings import DEFAULT_CONNECTION, ConnectionSettings, SerialSettings
 
 DEFAULT_TIMEOUT_S = 5.0
 
@@ -129,6 +132,7 @@ class VisaTransport:
         timeout_s: float = DEFAULT_TIMEOUT_S,
         resource_manager: pyvisa.ResourceManager | None = None,
         on_transaction: TransactionHook | None = None,
+        settings: ConnectionSettings | None = None,
     ) -> None:
         if not isinstance(resource, str) or not resource.strip():
             raise TransportError(
@@ -146,6 +150,7 @@ class VisaTransport:
         self.visa_library = visa_library
         self.timeout_s = float(timeout_s)
         self.on_transaction = on_transaction
+        self.settings = settings or DEFAULT_CONNECTION
         self._shared_rm = resource_manager
         self._rm: pyvisa.ResourceManager | None = resource_manager
         self._inst: Any = None
@@ -173,9 +178,12 @@ class VisaTransport:
             ) from exc
         try:
             inst.timeout = int(self.timeout_s * 1000)
-            inst.write_termination = "\n"
-            if _is_socket(self.resource):
-                inst.read_termination = "\n"
+            inst.write_termination = self.settings.write_termination
+            read_termination = self.settings.read_termination_for(self.resource)
+            if read_termination is not None:
+                inst.read_termination = read_termination
+            if self.settings.serial is not None and _is_serial(self.resource):
+                _apply_serial(inst, self.settings.serial)
         except _PYVISA_ERRORS as exc:
             _quiet_close(inst)
             raise TransportError(
@@ -270,36 +278,55 @@ class VisaTransport:
         return text
 
     def query_binary_floats(self, cmd: str, *, timeout_s: float | None = None) -> np.ndarray:
-        """Send ``cmd`` and decode an IEEE 488.2 definite-length block of big-endian REAL,32."""
+        """Send ``cmd`` and decode an IEEE 488.2 definite-length block of floats, in the byte
+        order and data type of the connection settings, with pyvisa's own block reader
+        (``query_binary_values``)."""
         start, t0 = time.time(), time.perf_counter()
         where = f"{self.resource}, command {cmd!r}"
+        datatype = "d" if self.settings.datatype == "real64" else "f"
         try:
             inst = self._instrument(cmd)
             with self._timeout(timeout_s):
-                inst.write(cmd)
-                data = bytearray(inst.read_raw())
-                total = blocks.block_length(data)
-                reads = 0
-                while total is None and reads < 4:
-                    data.extend(inst.read_raw())
-                    total = blocks.block_length(data)
-                    reads += 1
-                if total is None:
-                    raise TransportError(
-                        f"reply to {cmd!r} has no IEEE 488.2 block header",
-                        where=self.resource,
-                    )
-                expected = total + (1 if inst.read_termination else 0)
-                if len(data) < expected:
-                    data.extend(inst.read_bytes(expected - len(data)))
-            values = blocks.parse_real32_block(bytes(data), where=where)
+                raw = inst.query_binary_values(
+                    cmd, datatype=datatype,
+                    is_big_endian=self.settings.byte_order == "big",
+                    container=np.array, header_fmt="ieee",
+                    expect_termination=bool(inst.read_termination))
+            values = np.asarray(raw, dtype=np.float64)
+            if not np.all(np.isfinite(values)):
+                raise TransportError(
+                    "the block holds values that are not finite numbers",
+                    where=where,
+                    fix="check the instrument's data format (FORMat:DATA and FORMat:BORDer) "
+                    "against the profile's connection.byte_order and datatype",
+                )
         except TransportError as exc:
             self._record(start, t0, cmd, f"<error: {exc.what}>")
             raise TransportError(exc.what, where=where, fix=exc.fix) from exc
         except _PYVISA_ERRORS as exc:
             raise self._fail(start, t0, cmd, exc, timeout_s) from exc
-        self._record(start, t0, cmd, f"<REAL,32 block: {values.size} values>")
+        label = "REAL,64" if datatype == "d" else "REAL,32"
+        self._record(start, t0, cmd, f"<{label} block: {values.size} values>")
         return values
+
+
+def _is_serial(resource: str) -> bool:
+    return resource.strip().upper().startswith("ASRL")
+
+
+_STOP_BITS = {1.0: "one", 1.5: "one_and_a_half", 2.0: "two"}
+
+
+def _apply_serial(inst: Any, serial: SerialSettings) -> None:
+    """Set the serial line attributes pyvisa's serial resources have (``baud_rate``,
+    ``data_bits``, ``parity``, ``stop_bits``, ``flow_control``; pyvisa's constants
+    ``Parity``, ``StopBits``, ``ControlFlow``)."""
+    constants = pyvisa.constants
+    inst.baud_rate = serial.baud_rate
+    inst.data_bits = serial.data_bits
+    inst.parity = getattr(constants.Parity, serial.parity)
+    inst.stop_bits = getattr(constants.StopBits, _STOP_BITS[serial.stop_bits])
+    inst.flow_control = getattr(constants.ControlFlow, serial.flow_control)
 
 
 def _describe(exc: BaseException) -> str:

@@ -107,8 +107,8 @@ def test_identify_accepts_and_refuses():
     queue = Queue("Tarnwick Labs,TW-SG6,SG6-7,1.0")
     profile = parse_profile(
         "[profile]\nname='x'\nkind='source'\nidn_pattern='^Tarnwick Labs,TW-SG6,'\n"
-        "[ops.frequency]\nset='F {value}'\n[ops.power]\nset='P {value}'\n"
-        "[ops.output]\nset='O {value}'\n"
+        "[ops.frequency]\ncommand='F {value}'\n[ops.power]\ncommand='P {value}'\n"
+        "[ops.output]\ncommand='O {value}'\n"
     )
     resource = "TCPIP0::lab-sg6::5025::SOCKET"
     src = make_driver(profile, "lo", FakeTransport(queue, resource=resource))
@@ -172,8 +172,8 @@ def test_profile_of_wrong_kind_refused():
 def test_poll_completion_with_virtual_clock():
     profile = parse_profile(
         "[profile]\nname='x'\nkind='simctl'\nidn_pattern='.'\n"
-        "[ops.time]\nask='T?'\n"
-        "[ops.advance]\ndo='ADV {value}'\n"
+        "[ops.time]\nquery='T?'\n"
+        "[ops.advance]\ncommand='ADV {value}'\n"
         "complete={method='poll', query='STAT:OPER:COND?', until_bits_clear=8, interval_s=0.5,"
         " timeout_s=10}\n"
     )

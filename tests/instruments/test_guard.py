@@ -22,13 +22,13 @@ description = "a fictional Tarnwick Labs source"
 idn_pattern = '^Tarnwick Labs,TW-SG6,'
 
 [ops.frequency]
-set = "SOUR:FREQ:CW {value}"
+command = "SOUR:FREQ:CW {value}"
 [ops.power]
-set = "SOUR:POW:LEV:IMM:AMPL {value}"
+command = "SOUR:POW:LEV:IMM:AMPL {value}"
 min = "-130 dBm"
 max = "20 dBm"
 [ops.output]
-set = "OUTP:STAT {value}"
+command = "OUTP:STAT {value}"
 map = { on = "ON", off = "OFF" }
 """
 

@@ -61,9 +61,9 @@ SOURCE = Kind(
     ("", " DBM", "DBM", " dBm"),
     frozenset({"POW", "POWER"}),
     """[ops.frequency]
-set = "{freq} {{value}}"
+command = "{freq} {{value}}"
 [ops.output]
-set = "{outp} {{value}}"
+command = "{outp} {{value}}"
 map = {{ on = "ON", off = "OFF" }}
 """,
 )
@@ -73,15 +73,15 @@ SUPPLY = Kind(
     ("", " V", "V"),
     frozenset({"VOLT", "VOLTAGE", "APPL", "APPLY"}),
     """[ops.current_limit]
-set = "CURR {{value}}"
+command = "CURR {{value}}"
 max = "3 A"
 [ops.output]
-set = "{outp} {{value}}"
+command = "{outp} {{value}}"
 map = {{ on = "ON", off = "OFF" }}
 [ops.measure_voltage]
-ask = "MEAS:VOLT?"
+query = "MEAS:VOLT?"
 [ops.measure_current]
-ask = "MEAS:CURR?"
+query = "MEAS:CURR?"
 """,
 )
 CHAMBER = Kind(
@@ -90,12 +90,12 @@ CHAMBER = Kind(
     ("", " CEL", "C"),
     frozenset({"SETP", "TEMP", "TEMPERATURE", "SETPOINT"}),
     """[ops.control]
-set = "{outp} {{value}}"
+command = "{outp} {{value}}"
 map = {{ on = "ON", off = "OFF" }}
 [ops.probe]
-ask = "PROB?"
+query = "PROB?"
 [ops.air]
-ask = "AIR?"
+query = "AIR?"
 """,
 )
 KINDS = (SOURCE, SUPPLY, CHAMBER)
@@ -115,7 +115,7 @@ description = "a random fictional {kind.kind}"
 idn_pattern = '^Tarnwick Labs,'
 
 [ops.{kind.op}]
-set = "{spelling} {{value}}{suffix}"
+command = "{spelling} {{value}}{suffix}"
 max = {kind.profile_max}
 """ + kind.other_ops.format(freq=freq, outp=outp)
 
@@ -268,7 +268,7 @@ def _run_case(case: dict[str, object]) -> tuple[int, list[str]]:
         operation, map={"on": case["map_on"], "off": case["map_off"]})  # type: ignore[dict-item]
     if case["prepare"]:
         ops["prepare"] = Operation(name="prepare", spec=profile.ops["reset"].spec,
-                                   do=tuple(case["prepare"]))  # type: ignore[arg-type]
+                                   commands=tuple(case["prepare"]))  # type: ignore[arg-type]
     profile = dataclasses.replace(profile, ops=ops)
 
     fake = FakeTransport(_replies)

@@ -159,14 +159,14 @@ kind = "source"
 idn_pattern = '^Tarnwick Labs,TW-SG6,'
 
 [ops.frequency]
-set = "FREQ {value}"
+command = "FREQ {value}"
 
 [ops.power]
-set = "POW {value}"
+command = "POW {value}"
 max = "10 dBm"
 
 [ops.output]
-set = "OUTP {value}"
+command = "OUTP {value}"
 """
 
 
@@ -191,16 +191,18 @@ def test_good_user_profile_by_path_and_folder(tmp_path):
     [
         (("max = \"10 dBm\"", "maxx = 10"), "lab-source.toml:11: ops.power.maxx"),
         (("max = \"10 dBm\"", "max = \"10 GHz\""), "lab-source.toml:11: ops.power.max"),
-        (("set = \"POW {value}\"", "set = \"POW {val}\""), "lab-source.toml:10: ops.power.set"),
-        (("set = \"OUTP {value}\"", "set = \"OUTP\""), "lab-source.toml:14: ops.output.set"),
-        (("[ops.output]\nset = \"OUTP {value}\"\n", ""), "lab-source.toml:6: ops"),
+        (("command = \"POW {value}\"", "command = \"POW {val}\""),
+         "lab-source.toml:10: ops.power.command"),
+        (("command = \"OUTP {value}\"", "command = \"OUTP\""),
+         "lab-source.toml:14: ops.output.command"),
+        (("[ops.output]\ncommand = \"OUTP {value}\"\n", ""), "lab-source.toml:6: ops"),
         (("kind = \"source\"", "kind = \"laser\""), "lab-source.toml:3: profile.kind"),
         (("idn_pattern = '^Tarnwick Labs,TW-SG6,'", "idn_pattern = '(('"),
          "lab-source.toml:4: profile.idn_pattern"),
-        (("[ops.output]", "[ops.sweep]\ndo = \"X\"\n[ops.output]"),
+        (("[ops.output]", "[ops.sweep]\ncommand = \"X\"\n[ops.output]"),
          "lab-source.toml:13: ops.sweep"),
         (("name = \"lab-source\"", "name = \"other\""), "lab-source.toml:2: profile.name"),
-        (("set = \"FREQ {value}\"", "set = \"FREQ {value}"), "lab-source.toml:7"),
+        (("command = \"FREQ {value}\"", "command = \"FREQ {value}"), "lab-source.toml:7"),
         (("kind = \"source\"\n", ""), "lab-source.toml:1: profile.kind"),
     ],
 )
@@ -219,7 +221,7 @@ def test_unknown_profile_name_lists_known():
 
 
 def test_key_line():
-    text = "[profile]\nname = 'x'\n\n[ops.power]\nset = 'P'\nmax = 3\n"
+    text = "[profile]\nname = 'x'\n\n[ops.power]\ncommand = 'P'\nmax = 3\n"
     assert key_line(text, ("ops", "power", "max")) == 6
     assert key_line(text, ("ops", "power")) == 4
     assert key_line(text, ("ops", "power", "missing")) == 4
@@ -235,7 +237,7 @@ def test_worked_example_in_the_docs_loads(tmp_path):
     path = tmp_path / "tw-sg2.toml"
     path.write_text(toml, encoding="utf-8")
     profile = load_profile(path)
-    assert profile.op("frequency").set == ("CW {value} HZ",)
+    assert profile.op("frequency").commands == ("CW {value} HZ",)
     replies = iter(["1", "0"])
     t = FakeTransport(lambda cmd: next(replies) if cmd == "BUSY?" else
                       ("TARNWICK LABS,TW-SG2,77,2.1" if cmd == "*IDN?" else None))
@@ -249,11 +251,11 @@ def test_worked_example_in_the_docs_loads(tmp_path):
 
 # -- every string that reaches the wire ------------------------------------------------------
 
-WIRED = GOOD + """get = "OUTP?"
+WIRED = GOOD + """query = "OUTP?"
 map = { on = "ON", off = "OFF" }
 
 [ops.reset]
-do = "*RST"
+command = "*RST"
 complete = { method = "poll", query = "BUSY?", until = "0" }
 """
 
@@ -267,21 +269,21 @@ complete = { method = "poll", query = "BUSY?", until = "0" }
         ('on = "ON"', "lab-source.toml:16: ops.output.map.on", "control character"),
         ('on = "ON"', "lab-source.toml:16: ops.output.map.on", "unclosed"),
         ('on = "ON"', "lab-source.toml:16: ops.output.map.on", "empty"),
-        ('get = "OUTP?"', "lab-source.toml:15: ops.output.get", "';'"),
+        ('query = "OUTP?"', "lab-source.toml:15: ops.output.query", "';'"),
         ('query = "BUSY?"', "lab-source.toml:20: ops.reset.complete.query", "line break"),
-        ('set = "POW {value}"', "lab-source.toml:10: ops.power.set", "';'"),
-        ('do = "*RST"', "lab-source.toml:19: ops.reset.do", "control character"),
+        ('command = "POW {value}"', "lab-source.toml:10: ops.power.command", "';'"),
+        ('command = "*RST"', "lab-source.toml:19: ops.reset.command", "control character"),
     ],
 )
 def test_strings_that_reach_the_wire_cannot_end_or_add_a_command(tmp_path, change, expected,
                                                                    what):
     bad = {
-        "';'": {'on = "ON"': 'on = "ON;:SOUR:POW 19"', 'get = "OUTP?"': 'get = "OUTP?;:POW 19"',
-                'set = "POW {value}"': 'set = "POW {value};:OUTP ON"'},
+        "';'": {'on = "ON"': 'on = "ON;:SOUR:POW 19"', 'query = "OUTP?"': 'query = "OUTP?;:POW 19"',
+                'command = "POW {value}"': 'command = "POW {value};:OUTP ON"'},
         "line break": {'off = "OFF"': 'off = "OFF\\n:SOUR:POW 19"',
                        'query = "BUSY?"': 'query = "BUSY?\\r\\nPOW 19"'},
         "control character": {'on = "ON"': 'on = "ON\\u001b[2J"',
-                              'do = "*RST"': 'do = "*RST\\u0000"'},
+                              'command = "*RST"': 'command = "*RST\\u0000"'},
         "unclosed": {'on = "ON"': "on = \"'ON\""},
         "empty": {'on = "ON"': 'on = " "'},
     }[what]
@@ -294,6 +296,6 @@ def test_strings_that_reach_the_wire_cannot_end_or_add_a_command(tmp_path, chang
 
 def test_a_quoted_semicolon_is_data(tmp_path):
     path = tmp_path / "lab-source.toml"
-    path.write_text(WIRED.replace('do = "*RST"', "do = [\"*RST\", \"DISP:TEXT 'a;b'\"]"),
+    path.write_text(WIRED.replace('command = "*RST"', "command = [\"*RST\", \"DISP:TEXT 'a;b'\"]"),
                     encoding="utf-8")
-    assert load_profile(path).op("reset").do == ("*RST", "DISP:TEXT 'a;b'")
+    assert load_profile(path).op("reset").commands == ("*RST", "DISP:TEXT 'a;b'")

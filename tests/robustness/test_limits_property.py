@@ -75,7 +75,7 @@ VOLTAGE_HEADER = re.compile(rf"^:?(?:SOUR(?:CE)?\d*:)?VOLT(?:AGE)?{_NODE}$", re.
 
 def _template_header(profile: str, op: str) -> re.Pattern[str]:
     """The header of a shipped profile's ``set`` template, as a pattern."""
-    (template,) = load_profile(profile).op(op).set
+    (template,) = load_profile(profile).op(op).commands
     header = template.split()[0]
     return re.compile("^" + re.escape(header) + "$", re.IGNORECASE)
 

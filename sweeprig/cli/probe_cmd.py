@@ -1,0 +1,162 @@
+"""``sweeprig probe``: drive every operation of a profile once on one instrument, safely."""
+
+from __future__ import annotations
+
+import datetime as dt
+import json
+import math
+from pathlib import Path
+from typing import Annotated
+
+import typer
+from rich.console import Console
+from rich.table import Table
+from rich.text import Text
+
+from sweeprig.cli.common import fail
+from sweeprig.errors import InputError, SweeprigError
+from sweeprig.instruments import make_driver
+from sweeprig.instruments.probe import CAUTIONS, ProbeReport, probe
+from sweeprig.instruments.profile import Profile, load_profile
+from sweeprig.text import one_line
+from sweeprig.transport import visa
+from sweeprig.transport.backend import choose_visa_library
+
+_STYLE = {"ok": "green", "differs": "yellow", "fail": "bold red", "skipped": "dim"}
+
+PROBE_FAILED_EXIT_CODE = 1
+"""Exit code when some operation failed (the probe itself ran)."""
+
+
+def _bench_role(bench_path: Path, resource: str, role: str | None,
+                kind: str) -> tuple[object, str]:
+    from sweeprig.formats.bench import load_bench
+
+    bench = load_bench(bench_path)
+    if role is None:
+        matches = [name for name in type(bench.roles).model_fields
+                   if (spec := bench.role(name)) is not None
+                   and getattr(spec, "resource", None) == resource]
+        if len(matches) != 1:
+            raise InputError(
+                f"the bench file has {'no' if not matches else 'several'} role(s) on "
+                f"{resource!r}",
+                where=str(bench_path),
+                fix="name the role with --role (e.g. --role rf)")
+        role = matches[0]
+    if bench.role(role) is None:
+        raise InputError(f"the bench file has no role {role!r}", where=str(bench_path),
+                         fix="name one of its roles with --role")
+    return bench, role
+
+
+def run_probe(resource: str, profile_name: str, *, bench_path: Path | None = None,
+              role: str | None = None, profiles_dir: list[Path] | None = None,
+              visa_library: str | None = None, timeout_s: float = 5.0) -> ProbeReport:
+    """Open ``resource``, probe it with ``profile_name`` (bench limits when a bench is
+    given) and return the report. The connection is closed afterwards."""
+    from sweeprig.engine.locks import BenchLock
+
+    profile = load_profile(profile_name, search_dirs=profiles_dir or [])
+    bench = None
+    if bench_path is not None:
+        bench, role = _bench_role(bench_path, resource, role, profile.kind)
+    started = dt.datetime.now(dt.UTC).isoformat(timespec="seconds")
+    # an instrument a run is using is not probed (the run holds its lock; BenchBusy names it)
+    with BenchLock([resource], f"sweeprig probe ({profile.name})"):
+        return _probe_open(resource, profile, bench, role, visa_library, timeout_s, started)
+
+
+def _probe_open(resource: str, profile: Profile, bench: object, role: str | None,
+                visa_library: str | None, timeout_s: float, started: str) -> ProbeReport:
+    from sweeprig.plan.instrument_limits import bench_bounds
+
+    transport = visa.VisaTransport(resource, visa_library=visa_library or choose_visa_library(),
+                                   timeout_s=timeout_s, settings=profile.connection)
+    try:
+        driver = make_driver(profile, role or profile.kind, transport)
+        if bench is not None and role is not None:
+            for op, bounds in bench_bounds(bench, role).items():  # type: ignore[arg-type]
+                if profile.has(op):
+                    for bound in bounds:
+                        driver.add_bound(op, bound)
+        return probe(driver, started_utc=started)
+    finally:
+        transport.close()
+
+
+def print_report(report: ProbeReport, console: Console) -> None:
+    """The table of steps, then the counts and the cautions."""
+    table = Table(title=f"probe of {report.resource} with profile {report.profile!r}",
+                  title_justify="left")
+    for column in ("operation", "result", "sent", "value", "read back", "ms", "what / fix"):
+        table.add_column(column, overflow="fold")
+    for step in report.steps:
+        ms = "" if step.round_trip_ms is None or not math.isfinite(step.round_trip_ms) else (
+            f"{step.round_trip_ms:.1f}")
+        note = step.detail + (f"\nfix: {step.fix}" if step.fix else "")
+        table.add_row(step.op, Text(step.result, style=_STYLE[step.result]),
+                      Text(one_line("; ".join(step.sent))), Text(step.value or ""),
+                      Text(one_line(step.read_back or "")), ms, Text(note))
+    console.print(table)
+    counts = report.counts()
+    console.print(", ".join(f"{n} {k}" for k, n in counts.items()))
+    if report.outputs_off_verified is not None:
+        console.print("output off: " + ("verified by read-back" if report.outputs_off_verified
+                                        else "NOT verified: switch it off at the instrument"))
+    for caution in report.cautions:
+        console.print(caution)
+
+
+def probe_command(
+    resource: Annotated[str, typer.Argument(help="VISA resource, e.g. "
+                                            "TCPIP0::192.168.1.20::5025::SOCKET")],
+    profile: Annotated[str, typer.Option("--profile", "-p", help="Driver profile name or "
+                                         "file.")],
+    bench: Annotated[Path | None, typer.Option("--bench", help="Bench file: probe levels "
+                                               "stay inside its limits for the role.")] = None,
+    role: Annotated[str | None, typer.Option("--role", help="The bench role of this "
+                                             "instrument (default: the role on RESOURCE).")]
+    = None,
+    out: Annotated[Path | None, typer.Option("--out", "-o", help="Write the result as JSON "
+                                             "(default: probe-<profile>.json).")] = None,
+    profiles_dir: Annotated[list[Path] | None, typer.Option("--profiles", help="Extra folder "
+                                                            "of driver profiles.")] = None,
+    visa_library: Annotated[str | None, typer.Option("--visa-library", help="pyvisa backend "
+                                                     "(default: $SWEEPRIG_VISA_LIBRARY, else "
+                                                     "@py).")] = None,
+    timeout_s: Annotated[float, typer.Option("--timeout", min=0.05, help="I/O timeout, s.")]
+    = 5.0,
+) -> None:
+    """Try every operation of a driver profile on one instrument and report what works.
+
+    RF and supply outputs are switched off first (verified by read-back) and kept off; levels
+    stay low and inside the profile's limits (and the bench file's, with --bench); a
+    chamber's conditioning stays off. After each step the error queue is read; each setting
+    is read back; each round trip is timed. The result is written as JSON for a bug report.
+
+    Caution: the probe sends every command of the profile. Connect the instrument to a load
+    or a terminated port, not to a part you cannot afford to lose.
+
+    Example: sweeprig probe TCPIP0::192.168.1.20::5025::SOCKET --profile scpi-source
+    """
+    console = Console(highlight=False)
+    for caution in CAUTIONS:
+        console.print(caution)
+    try:
+        report = run_probe(resource, profile, bench_path=bench, role=role,
+                           profiles_dir=profiles_dir, visa_library=visa_library,
+                           timeout_s=timeout_s)
+    except SweeprigError as exc:
+        raise fail(exc) from None
+    print_report(report, console)
+    target = out or Path(f"probe-{report.profile}.json")
+    target.write_text(json.dumps(report.as_json(), indent=2) + "\n", encoding="utf-8")
+    console.print(f"result written to {target}")
+    if report.failed or report.outputs_off_verified is False:
+        raise typer.Exit(PROBE_FAILED_EXIT_CODE)
+
+
+def register(app: typer.Typer) -> None:
+    """Add ``probe`` to the root app."""
+    app.command("probe")(probe_command)
