@@ -14,15 +14,18 @@ from rich.text import Text
 from sweeprig.cli.common import fail
 from sweeprig.errors import SweeprigError
 
-_HELP = """Calibrate the RF source levels at the DUT's RF input plane with the power meter,
-over the frequencies a sequence needs, and write a calibration file.
+_HELP = """Calibrate the source levels at the DUT's input planes with the power meter, and
+the output paths through a calibration thru with the analyzer, over the frequencies a
+sequence needs, and write a calibration file.
 
-Each RF source the sequence uses (rf, and rf2 for two tones) is set to a low level (at most
--10 dBm at the plane) at each frequency; the power meter's sensor, at the DUT RF port plane,
-reads what arrives; the difference is the connection's loss, the source's own level error
-included. The sweep is repeated (--repeats) for the repeatability. Connections the sensor
-cannot reach by itself keep the bench file's typed losses, and the command says which. On
-every exit the bench is left in its safe state, RF off.
+Each source the sequence uses (rf, rf2, lo) is set to a low level (at most -10 dBm at the
+plane) at each frequency; the power meter's sensor at the DUT port plane reads what arrives;
+the difference is the connection's loss, the source's own level error included. Where the
+bench's switch can put a thru in the part's place, each output path (IF, RF and LO ports)
+is measured too: the RF source's tone at the DUT RF plane (power meter) minus what the
+analyzer reads. The sweep is repeated (--repeats) for the repeatability. Connections the
+bench cannot reach by itself keep the bench file's typed losses, and the command says which.
+On every exit the bench is left in its safe state, RF off, the part routed back in.
 
 Caution: RF power can damage the part, the sensor and the analyzer input; check the bench
 file's limits and follow your lab's rules.

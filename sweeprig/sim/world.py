@@ -9,6 +9,9 @@ Signal flow (powers in dBm, frequencies in Hz, losses in dB, positive = loss)::
     DUT IF port ─ path "if"      ─ RF switch channel 1 ─┐
     DUT RF port ─ path "rf_port" ─ RF switch channel 2 ─┼─ analyzer input
     DUT LO port ─ path "lo_port" ─ RF switch channel 3 ─┘
+    power-meter sensor ─ DUT RF input plane (switch channel 4) or LO input plane (channel 5)
+    DUT position: the part (switch channel 6) or the calibration thru (channel 7), which
+        passes what arrives at the DUT RF input plane, without loss, to every output path
     dc supply ─ DUT supply;  chamber probe ─ DUT die temperature (plus self-heating)
 
 The world reads the instruments' states through small views (protocols below), asks the
@@ -258,6 +261,14 @@ class SimWorld:
         """The tone at the DUT LO port, or None when the LO is off."""
         return self._tone_at_port("lo", self._path("lo"))
 
+    def thru_fitted(self) -> bool:
+        """Whether the calibration thru replaces the part (switch channel 7)."""
+        return bool(getattr(self._switch, "thru", False))
+
+    def sensor_at_lo(self) -> bool:
+        """Whether the power-meter sensor is at the DUT LO input plane (switch channel 5)."""
+        return getattr(self._switch, "sensor_channel", 4) == 5
+
     def probe_temperature_c(self) -> float:
         """Chamber probe temperature (ambient without a chamber), degC."""
         if self._chamber is not None:
@@ -298,6 +309,8 @@ class SimWorld:
         lo = self.lo_input()
         rf = tuple(self.rf_inputs())
         volts = self.supply_voltage_v() if supply_v is None else max(0.0, float(supply_v))
+        if self.thru_fitted():
+            return _thru_response(rf)
         temperature = self._rounded(self.probe_temperature_c())
         key = (lo, rf, round(volts, 6), temperature)
         with self._lock:
@@ -458,13 +471,20 @@ class SimWorld:
                                             phase0 - 2.0 * math.pi * freq_hz * delay), role)
 
     def sensed_power_dbm(self) -> float:
-        """Total power at the DUT RF input plane (fundamentals and harmonics), dBm."""
+        """Total power at the sensor's plane (fundamentals, harmonics, spurs), dBm: the DUT
+        RF input plane, or its LO input plane when the switch routes the sensor there."""
         total_mw = 0.0
-        for tone in self.rf_inputs():
+        if self.sensor_at_lo():
+            lo = self.lo_input()
+            tones = [lo] if lo is not None else []
+            roles: tuple[str, ...] = ("lo",)
+        else:
+            tones, roles = self.rf_inputs(), ("rf", "rf2")
+        for tone in tones:
             total_mw += 10.0 ** (tone.power_dbm / 10.0)
             for h_dbc in tone.harmonics_dbc:
                 total_mw += 10.0 ** ((tone.power_dbm + h_dbc) / 10.0)
-        for role in ("rf", "rf2"):
+        for role in roles:
             for _, p in self.source_spurs(role):
                 total_mw += 10.0 ** (p / 10.0)
         return 10.0 * math.log10(total_mw) if total_mw > 0 else _NO_SIGNAL_DBM
@@ -506,6 +526,23 @@ class SimWorld:
     def _rounded(self, temperature_c: float) -> float:
         step = self.config.temperature_resolution_c
         return round(temperature_c / step) * step if step > 0 else temperature_c
+
+
+def _thru_response(rf: Sequence[ToneInput]) -> MixerResponse:
+    """The calibration thru in the part's place: each tone at the DUT RF input plane (and
+    its harmonics) reaches every output path unchanged; no supply current, the output noise
+    is kT0 (a matched passive thru at T0)."""
+    lines: list[Product] = []
+    n_rf = len(rf)
+    for k, tone in enumerate(rf):
+        orders = (0, *(1 if j == k else 0 for j in range(n_rf)))
+        lines.append(Product(tone.freq_hz, tone.power_dbm, orders))
+        for n, h_dbc in enumerate(tone.harmonics_dbc):
+            lines.append(Product((n + 2) * tone.freq_hz, tone.power_dbm + h_dbc,
+                                 tuple((n + 2) * o for o in orders)))
+    ports = tuple(lines)
+    return MixerResponse(if_port=ports, rf_port=ports, lo_port=ports,
+                         if_noise_dbm_per_hz=KT0_DBM_PER_HZ, supply_current_a=0.0)
 
 
 def add_coherent_arrays(
