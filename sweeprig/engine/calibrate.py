@@ -84,18 +84,27 @@ SA_SPAN_HZ, SA_RBW_HZ, SA_ATTENUATION_DB, SA_REF_LEVEL_DBM = 100e3, 10e3, 10.0, 
 def needed_frequencies(sequence: Sequence, bench: Bench) -> dict[str, list[float]]:
     """Per connection, the distinct frequencies the sequence's points need there: sources
     (``rf``, ``rf2``, ``lo``) where they are set, output paths (``if``, ``rf_port``,
-    ``lo_port``) where the analyzer reads."""
+    ``lo_port``) where the analyzer reads, and the point's tones on each path it reads."""
     out: dict[str, set[float]] = {c: set() for c in ("rf", "rf2", "lo", *PORT_CONNECTION.values())}
     for point in iter_points(sequence, bench):
         out["rf"].add(float(point.rf_freq_hz))
         out["lo"].add(float(point.lo_freq_hz))
         if point.rf2_freq_hz is not None:
             out["rf2"].add(float(point.rf2_freq_hz))
+        tones = {float(point.rf_freq_hz), float(point.lo_freq_hz)}
+        if point.rf2_freq_hz is not None:
+            tones.add(float(point.rf2_freq_hz))
         for reading in point.readings:
             if reading.rf_retune_hz is not None:
                 out["rf"].add(float(reading.rf_retune_hz))
+                tones.add(float(reading.rf_retune_hz))
+        for reading in point.readings:
             if reading.instrument == "sa" and reading.freq_hz is not None:
-                out[PORT_CONNECTION[reading.port or "if"]].add(float(reading.freq_hz))
+                path = out[PORT_CONNECTION[reading.port or "if"]]
+                path.add(float(reading.freq_hz))
+                # the tones reach the analyzer on this path too: the pre-flight checks its
+                # input level there with this path's loss
+                path.update(tones)
     return {k: sorted(v) for k, v in out.items() if v}
 
 
