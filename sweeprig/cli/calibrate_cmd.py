@@ -54,6 +54,8 @@ def calibrate_command(
     temperature: Annotated[float | None, typer.Option(
         "--temperature", help="room temperature, degC (default: the chamber's probe)",
         show_default=False)] = None,
+    sim_bench: Annotated[str | None, typer.Option(
+        "--sim-bench", help="simulated-bench description (file or shipped name)")] = None,
 ) -> None:
     from sweeprig.engine.calibrate import calibrate_sources
 
@@ -66,6 +68,7 @@ def calibrate_command(
         result = calibrate_sources(
             sequence, bench, out, sim=sim, repeats=repeats,
             valid_for=timedelta(days=valid_days), temperature_c=temperature,
+            sim_description=sim_bench,
             on_step=lambda message: console.print(Text(f"  {message}", style="dim")))
     except SweeprigError as exc:
         raise fail(exc) from None

@@ -127,9 +127,11 @@ def calibrate_sources(
     valid_for: timedelta = timedelta(days=7),
     temperature_c: float | None = None,
     on_step: Callable[[str], None] = lambda _m: None,
+    sim_description: str | Path | None = None,
 ) -> CalibrationResult:
     """Calibrate the RF source connections of ``sequence`` on the bench and write the
-    calibration file ``out`` (see the module docstring). Raises a located
+    calibration file ``out`` (see the module docstring). ``sim_description``: the simulated
+    bench's description (a file or a shipped name) when calibrating it. Raises a located
     :class:`SweeprigError` for bad input or a nonsense reading (nothing written)."""
     if repeats < 1:
         raise InputError(f"repeats = {repeats}: at least one sweep is needed",
@@ -194,7 +196,7 @@ def calibrate_sources(
             from sweeprig.sim.bench import start_sim_bench
 
             clock = VirtualClock(realtime_factor=0.0)
-            sim_bench = start_sim_bench(None, clock=clock)
+            sim_bench = start_sim_bench(sim_description, clock=clock)
             resources = dict(sim_bench.resources)
         t0 = clock.now()
         drivers = open_bench(bench, roles, resources=resources, clock=clock)

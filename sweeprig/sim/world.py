@@ -107,12 +107,22 @@ class CableLoss:
 
     loss_db: float = 0.0
     ref_freq_hz: float | None = None
+    #: Loss ripple versus frequency (standing waves between connectors): peak dB, period Hz,
+    #: phase rad; the loss never goes below 0 dB.
+    ripple_db: float = 0.0
+    ripple_period_hz: float = 300e6
+    ripple_phase_rad: float = 0.0
 
     def at(self, freq_hz: float) -> float:
         """Loss at ``freq_hz``, dB."""
         if self.ref_freq_hz is None:
-            return self.loss_db
-        return self.loss_db * math.sqrt(max(freq_hz, 0.0) / self.ref_freq_hz)
+            loss = self.loss_db
+        else:
+            loss = self.loss_db * math.sqrt(max(freq_hz, 0.0) / self.ref_freq_hz)
+        if self.ripple_db:
+            loss = max(0.0, loss + self.ripple_db * math.sin(
+                2.0 * math.pi * freq_hz / self.ripple_period_hz + self.ripple_phase_rad))
+        return loss
 
 
 @dataclass(frozen=True)
@@ -146,6 +156,8 @@ class Cabling:
     combiner: CableLoss = field(default_factory=CableLoss)
     rf_port: CableLoss = field(default_factory=CableLoss)
     lo_port: CableLoss = field(default_factory=CableLoss)
+    #: The combiner's imbalance: extra loss of the rf2 input over the rf input, dB.
+    combiner_imbalance_db: float = 0.0
 
 
 @dataclass(frozen=True)
@@ -500,7 +512,8 @@ class SimWorld:
         """Everything between a source and its DUT port: its filter, cable (and combiner)."""
         cabling = self.config.cabling
         path: tuple[CableLoss | LowPassFilter, ...] = {
-            "rf": (cabling.rf, cabling.combiner), "rf2": (cabling.rf2, cabling.combiner),
+            "rf": (cabling.rf, cabling.combiner),
+            "rf2": (cabling.rf2, cabling.combiner, CableLoss(cabling.combiner_imbalance_db)),
             "lo": (cabling.lo,),
         }[role]
         filt = self.config.source_filter(role)
@@ -596,8 +609,14 @@ def add_coherent(
 def _cable_loss_db(cable: CableLoss, freq_hz: np.ndarray) -> np.ndarray | float:
     """Loss of ``cable`` at each frequency, dB."""
     if cable.ref_freq_hz is None:
-        return cable.loss_db
-    return cable.loss_db * np.sqrt(np.maximum(freq_hz, 0.0) / cable.ref_freq_hz)
+        loss: np.ndarray | float = cable.loss_db
+    else:
+        loss = cable.loss_db * np.sqrt(np.maximum(freq_hz, 0.0) / cable.ref_freq_hz)
+    if cable.ripple_db:
+        loss = np.maximum(0.0, loss + cable.ripple_db * np.sin(
+            2.0 * np.pi * np.asarray(freq_hz, dtype=float) / cable.ripple_period_hz
+            + cable.ripple_phase_rad))
+    return loss
 
 
 @lru_cache(maxsize=64)
@@ -618,10 +637,7 @@ def _lossy_noise(
 
     def density(freqs_hz: np.ndarray) -> np.ndarray:
         f = np.asarray(freqs_hz, dtype=float)
-        if cable.ref_freq_hz is None:
-            loss_db = np.full(f.shape, cable.loss_db)
-        else:
-            loss_db = cable.loss_db * np.sqrt(np.maximum(f, 0.0) / cable.ref_freq_hz)
+        loss_db = np.broadcast_to(_cable_loss_db(cable, f), f.shape)
         gain = 10.0 ** (-loss_db / 10.0)
         kt0_mw = 10.0 ** (KT0_DBM_PER_HZ / 10.0)
         n_mw = 10.0 ** (density_dbm_per_hz / 10.0) * gain + kt0_mw * (1.0 - gain)
