@@ -60,6 +60,11 @@ def calibrate_command(
     from sweeprig.engine.calibrate import calibrate_sources
 
     console = Console(highlight=False, soft_wrap=True)
+    console.print(Text(
+        "Caution: the calibration switches RF on at low levels only (at most -10 dBm at the "
+        "DUT planes); on a real bench check the bench file's limits, the cabling and that "
+        "the calibration thru (if used) is rated for it, and follow your lab's rules.",
+        style="yellow"))
     try:
         if not 0 < valid_days <= 366:
             raise SweeprigError(f"--valid-days {valid_days:g} is not within 0 to 366 days",
