@@ -56,6 +56,9 @@ CAL_MARGIN_DB = 10.0
 PLAUSIBLE_DB = 6.0
 SETTLE_S = 0.05
 AVERAGES = 16
+#: With every source off a zeroed sensor reads its noise (tens of dB under this), dBm; a
+#: reading above it is an offset of a sensor not zeroed (common practice, no source).
+ZERO_CHECK_DBM = -50.0
 
 
 @dataclass(frozen=True)
@@ -208,6 +211,7 @@ def calibrate_sources(
         assert pm is not None
         pm.set_averages(AVERAGES)
         bench_ops = _Steps(drivers, bench, clock, level)
+        bench_ops.zero_check([c for c in needs if c in SOURCE_CONNECTIONS])
         sweeps: dict[str, list[list[float]]] = {c: [] for c in needs}
         for repeat in range(repeats):
             for connection, freqs in needs.items():
@@ -275,6 +279,28 @@ class _Steps:
         if channel is not None and switch is not None:
             switch.select(channel)
             switch.check_errors()
+
+    def zero_check(self, connections: list[str]) -> None:
+        """With every calibration source off, the meter must read next to nothing: a reading
+        above :data:`ZERO_CHECK_DBM` means a sensor not zeroed (or a signal reaching it)."""
+        for connection in connections:
+            source = getattr(self.d, connection)
+            source.set_output(False)
+            source.check_errors()
+        pm = self.d.pm
+        assert pm is not None
+        self.route("pm_rf")
+        pm.check_errors()
+        self.clock.sleep(SETTLE_S)
+        reading = pm.read_power_dbm()
+        if not math.isfinite(reading) or reading > ZERO_CHECK_DBM:
+            raise SweeprigError(
+                f"the power meter reads {reading:.1f} dBm with every source off: the sensor "
+                "is not zeroed (or a signal reaches it); nothing was written and no RF was "
+                "switched on", where="power meter (role pm), before the calibration",
+                fix="zero the sensor with every RF output off (the meter's zero function), "
+                "check that nothing else feeds the DUT plane, then calibrate again; follow "
+                "your lab's rules for the sensor's maximum input")
 
     def _plane_reading(self, connection: str, freq: float, reading_at: float) -> float:
         """Set ``connection``'s source to put the calibration level at its DUT plane (by

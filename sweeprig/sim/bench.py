@@ -48,6 +48,7 @@ optional; the values shown are the defaults)::
     [power_meter]
     cal_factor_error = "0 dB"    # what the sensor's calibration factor leaves, peak vs freq
     noise = 0.002                # relative reading noise of one average
+    # zero_offset = "-40 dBm"    # a sensor not zeroed: this power is added to every reading
 
     [chamber]
     ambient = "23 degC"
@@ -297,6 +298,8 @@ class PowerMeterSpec(Frozen):
     cal_factor_error: NonNegativeDb = 0.0
     #: Relative reading noise of one average (a fraction of the power).
     noise: Annotated[float, Field(ge=0.0, le=0.1)] = 0.002
+    #: A sensor that was not zeroed: this power is added to every reading (absent: zeroed).
+    zero_offset: Power | None = None
 
 
 class ChamberSpec(Frozen):
@@ -504,7 +507,8 @@ def build_sim_instruments(
                                 seed=desc.seed)
     meter = PowerMeter(clock, sense=world.sensed_power_dbm, seed=desc.seed + 1,
                        cal_factor_error_db=desc.power_meter.cal_factor_error,
-                       relative_noise=desc.power_meter.noise)
+                       relative_noise=desc.power_meter.noise,
+                       zero_offset_dbm=desc.power_meter.zero_offset)
     world.connect(rf=sources["rf"], rf2=sources["rf2"], lo=sources["lo"], supply=supply,
                   chamber=chamber, switch=switch)
     truth_line, truth_noise = _truth_hooks(world, analyzer)

@@ -41,11 +41,13 @@ class PowerMeter(ScpiInstrument):
         seed: int = 0,
         cal_factor_error_db: float = 0.0,
         relative_noise: float = RELATIVE_NOISE,
+        zero_offset_dbm: float | None = None,
     ) -> None:
         super().__init__(clock, Identity("Tarnwick Labs", "TW-PM18", serial, "1.0"))
         self.sense = sense
         self.cal_factor_error_db = float(cal_factor_error_db)
         self.relative_noise = float(relative_noise)
+        self.zero_offset_mw = 0.0 if zero_offset_dbm is None else 10.0 ** (zero_offset_dbm / 10.0)
         self._rng = random.Random(seed)
         self.add_setting(Setting("freq_hz", "[SENSe]:FREQuency", "float", 1e9,
                                  unit="frequency", minimum=9e3, maximum=18e9))
@@ -71,6 +73,7 @@ class PowerMeter(ScpiInstrument):
             reading_mw = (
                 true_mw * (1.0 + self.relative_noise * self._rng.gauss(0.0, 1.0) / root_n)
                 + floor_mw * self._rng.gauss(0.0, 1.0) / root_n
+                + self.zero_offset_mw
             )
             reading_mw = max(abs(reading_mw), 0.01 * floor_mw)
             return 10.0 * math.log10(reading_mw)
