@@ -293,7 +293,13 @@ class _Steps:
         pm.check_errors()
         self.clock.sleep(SETTLE_S)
         reading = pm.read_power_dbm()
-        if not math.isfinite(reading) or reading > ZERO_CHECK_DBM:
+        if not math.isfinite(reading):
+            raise SweeprigError(
+                f"the power meter read {reading} with every source off (not a number: no "
+                "sensor, or a fault); nothing was written and no RF was switched on",
+                where="power meter (role pm), before the calibration",
+                fix="check that the sensor is connected and zeroed, then calibrate again")
+        if reading > ZERO_CHECK_DBM:
             raise SweeprigError(
                 f"the power meter reads {reading:.1f} dBm with every source off: the sensor "
                 "is not zeroed (or a signal reaches it); nothing was written and no RF was "
