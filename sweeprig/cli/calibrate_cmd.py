@@ -14,15 +14,18 @@ from rich.text import Text
 from sweeprig.cli.common import fail
 from sweeprig.errors import SweeprigError
 
-_HELP = """Calibrate the RF source levels at the DUT's RF input plane with the power meter,
-over the frequencies a sequence needs, and write a calibration file.
+_HELP = """Calibrate the source levels at the DUT's input planes with the power meter, and
+the output paths through a calibration thru with the analyzer, over the frequencies a
+sequence needs, and write a calibration file.
 
-Each RF source the sequence uses (rf, and rf2 for two tones) is set to a low level (at most
--10 dBm at the plane) at each frequency; the power meter's sensor, at the DUT RF port plane,
-reads what arrives; the difference is the connection's loss, the source's own level error
-included. The sweep is repeated (--repeats) for the repeatability. Connections the sensor
-cannot reach by itself keep the bench file's typed losses, and the command says which. On
-every exit the bench is left in its safe state, RF off.
+Each source the sequence uses (rf, rf2, lo) is set to a low level (at most -10 dBm at the
+plane) at each frequency; the power meter's sensor at the DUT port plane reads what arrives;
+the difference is the connection's loss, the source's own level error included. Where the
+bench's switch can put a thru in the part's place, each output path (IF, RF and LO ports)
+is measured too: the RF source's tone at the DUT RF plane (power meter) minus what the
+analyzer reads. The sweep is repeated (--repeats) for the repeatability. Connections the
+bench cannot reach by itself keep the bench file's typed losses, and the command says which.
+On every exit the bench is left in its safe state, RF off, the part routed back in.
 
 Caution: RF power can damage the part, the sensor and the analyzer input; check the bench
 file's limits and follow your lab's rules.
@@ -51,10 +54,17 @@ def calibrate_command(
     temperature: Annotated[float | None, typer.Option(
         "--temperature", help="room temperature, degC (default: the chamber's probe)",
         show_default=False)] = None,
+    sim_bench: Annotated[str | None, typer.Option(
+        "--sim-bench", help="simulated-bench description (file or shipped name)")] = None,
 ) -> None:
     from sweeprig.engine.calibrate import calibrate_sources
 
     console = Console(highlight=False, soft_wrap=True)
+    console.print(Text(
+        "Caution: the calibration switches RF on at low levels only (at most -10 dBm at the "
+        "DUT planes); on a real bench check the bench file's limits, the cabling and that "
+        "the calibration thru (if used) is rated for it, and follow your lab's rules.",
+        style="yellow"))
     try:
         if not 0 < valid_days <= 366:
             raise SweeprigError(f"--valid-days {valid_days:g} is not within 0 to 366 days",
@@ -63,6 +73,7 @@ def calibrate_command(
         result = calibrate_sources(
             sequence, bench, out, sim=sim, repeats=repeats,
             valid_for=timedelta(days=valid_days), temperature_c=temperature,
+            sim_description=sim_bench,
             on_step=lambda message: console.print(Text(f"  {message}", style="dim")))
     except SweeprigError as exc:
         raise fail(exc) from None

@@ -9,8 +9,14 @@ repeats is the calibration's repeatability. The result is a calibration file
 (:mod:`sweeprig.formats.calibration`) with the instruments' ``*IDN?`` replies, the chamber
 probe's (or the given) temperature and an expiry.
 
-Connections the power meter cannot reach by itself (the LO port, the output paths) are not
-measured here: they keep the bench file's typed losses, and the command says so.
+Where the bench's switch routes the sensor to the DUT LO input plane (``pm_lo``), the LO
+source is measured there the same way. Where it can put a calibration thru in the part's
+place (``thru``, and ``part`` to put the part back), the output paths are measured too
+(receiver calibration): the RF source, through the thru, puts a tone on each output path at
+every frequency the sequence reads there; the power meter reads the tone at the DUT RF plane
+and the analyzer what arrives at its input; the path's loss is the difference, the
+analyzer's own level error included (it is the instrument that reads the run). Connections
+the bench cannot reach by itself keep the bench file's typed losses, and the command says so.
 
 Safety: the level at the DUT plane is low (at most −10 dBm, and 10 dB under the part's RF
 rating and the sensor's limit); every source setting goes through the drivers' limit guard;
@@ -21,6 +27,7 @@ loss predict) ends the calibration with a message and nothing written.
 
 from __future__ import annotations
 
+import contextlib
 import math
 from collections.abc import Callable
 from dataclasses import dataclass
@@ -49,6 +56,9 @@ CAL_MARGIN_DB = 10.0
 PLAUSIBLE_DB = 6.0
 SETTLE_S = 0.05
 AVERAGES = 16
+#: With every source off a zeroed sensor reads its noise (tens of dB under this), dBm; a
+#: reading above it is an offset of a sensor not zeroed (common practice, no source).
+ZERO_CHECK_DBM = -50.0
 
 
 @dataclass(frozen=True)
@@ -66,13 +76,38 @@ class CalibrationResult:
     safe: SafeOutcome | None
 
 
+#: The output connection behind each DUT port the analyzer reads.
+PORT_CONNECTION = {"if": "if", "rf": "rf_port", "lo": "lo_port"}
+#: Analyzer settings while measuring an output path: span, RBW (Hz), attenuation (dB),
+#: reference level (dBm); a tone 80 dB or more above the noise (invented figures that suit a
+#: mid-range analyzer; common practice, no source).
+SA_SPAN_HZ, SA_RBW_HZ, SA_ATTENUATION_DB, SA_REF_LEVEL_DBM = 100e3, 10e3, 10.0, 0.0
+
+
 def needed_frequencies(sequence: Sequence, bench: Bench) -> dict[str, list[float]]:
-    """Per RF source connection, the distinct frequencies the sequence's points put there."""
-    out: dict[str, set[float]] = {"rf": set(), "rf2": set()}
+    """Per connection, the distinct frequencies the sequence's points need there: sources
+    (``rf``, ``rf2``, ``lo``) where they are set, output paths (``if``, ``rf_port``,
+    ``lo_port``) where the analyzer reads, and the point's tones on each path it reads."""
+    out: dict[str, set[float]] = {c: set() for c in ("rf", "rf2", "lo", *PORT_CONNECTION.values())}
     for point in iter_points(sequence, bench):
         out["rf"].add(float(point.rf_freq_hz))
+        out["lo"].add(float(point.lo_freq_hz))
         if point.rf2_freq_hz is not None:
             out["rf2"].add(float(point.rf2_freq_hz))
+        tones = {float(point.rf_freq_hz), float(point.lo_freq_hz)}
+        if point.rf2_freq_hz is not None:
+            tones.add(float(point.rf2_freq_hz))
+        for reading in point.readings:
+            if reading.rf_retune_hz is not None:
+                out["rf"].add(float(reading.rf_retune_hz))
+                tones.add(float(reading.rf_retune_hz))
+        for reading in point.readings:
+            if reading.instrument == "sa" and reading.freq_hz is not None:
+                path = out[PORT_CONNECTION[reading.port or "if"]]
+                path.add(float(reading.freq_hz))
+                # the tones reach the analyzer on this path too: the pre-flight checks its
+                # input level there with this path's loss
+                path.update(tones)
     return {k: sorted(v) for k, v in out.items() if v}
 
 
@@ -95,9 +130,11 @@ def calibrate_sources(
     valid_for: timedelta = timedelta(days=7),
     temperature_c: float | None = None,
     on_step: Callable[[str], None] = lambda _m: None,
+    sim_description: str | Path | None = None,
 ) -> CalibrationResult:
     """Calibrate the RF source connections of ``sequence`` on the bench and write the
-    calibration file ``out`` (see the module docstring). Raises a located
+    calibration file ``out`` (see the module docstring). ``sim_description``: the simulated
+    bench's description (a file or a shipped name) when calibrating it. Raises a located
     :class:`SweeprigError` for bad input or a nonsense reading (nothing written)."""
     if repeats < 1:
         raise InputError(f"repeats = {repeats}: at least one sweep is needed",
@@ -118,15 +155,33 @@ def calibrate_sources(
     needs = needed_frequencies(sequence, bench)
     skipped: dict[str, str] = {}
     for connection in list(needs):
-        if bench.role(connection) is None:
+        if connection in SOURCE_CONNECTIONS and bench.role(connection) is None:
             skipped[connection] = "the bench has no such source"
             del needs[connection]
-    skipped.setdefault("lo", "the power meter's sensor is at the DUT RF port plane, not the "
-                       "LO port: the LO keeps the bench file's typed loss")
-    skipped.setdefault("if / rf_port / lo_port", "output paths are not measured by a source "
-                       "calibration: they keep the bench file's typed losses")
+    pm_lo = bench.switch_route("pm_lo")
+    if "lo" in needs and pm_lo is None:
+        skipped["lo"] = ("the bench's switch has no route of the power-meter sensor to the "
+                         "DUT LO plane (switch channels pm_lo): the LO keeps the bench file's "
+                         "typed loss")
+        del needs["lo"]
+    thru, part = bench.switch_route("thru"), bench.switch_route("part")
+    outputs = [c for c in PORT_CONNECTION.values() if c in needs]
+    if outputs and (thru is None or part is None or bench.roles.sa is None
+                    or "rf" not in needs):
+        why = ("the bench cannot put a calibration thru in the part's place by itself "
+               "(switch channels thru and part), or has no analyzer or RF source: "
+               "the output paths keep the bench file's typed losses")
+        for connection in outputs:
+            skipped[connection] = why
+            del needs[connection]
+        outputs = []
     level = calibration_level_dbm(bench)
-    roles = {c: "calibration source" for c in needs} | {"pm": "calibration power meter"}
+    roles = {c: "calibration source" for c in needs if c in SOURCE_CONNECTIONS}
+    roles["pm"] = "calibration power meter"
+    if outputs:
+        roles |= {"sa": "receiver calibration", "switch": "calibration routes"}
+    elif bench.roles.switch is not None and (pm_lo is not None or bench.switch_route("pm_rf")):
+        roles["switch"] = "calibration routes"
     if bench.roles.chamber is not None and temperature_c is None:
         roles["chamber"] = "temperature of the calibration"
     if temperature_c is None and "chamber" not in roles:
@@ -144,7 +199,7 @@ def calibrate_sources(
             from sweeprig.sim.bench import start_sim_bench
 
             clock = VirtualClock(realtime_factor=0.0)
-            sim_bench = start_sim_bench(None, clock=clock)
+            sim_bench = start_sim_bench(sim_description, clock=clock)
             resources = dict(sim_bench.resources)
         t0 = clock.now()
         drivers = open_bench(bench, roles, resources=resources, clock=clock)
@@ -155,32 +210,20 @@ def calibrate_sources(
         pm = drivers.pm
         assert pm is not None
         pm.set_averages(AVERAGES)
+        bench_ops = _Steps(drivers, bench, clock, level)
+        bench_ops.zero_check([c for c in needs if c in SOURCE_CONNECTIONS])
         sweeps: dict[str, list[list[float]]] = {c: [] for c in needs}
         for repeat in range(repeats):
             for connection, freqs in needs.items():
-                source = getattr(drivers, connection)
-                typed = bench.loss(connection)
-                losses: list[float] = []
-                for freq in freqs:
-                    setting = level + typed.at(freq)
-                    source.set_frequency(freq)
-                    source.set_power(setting)
-                    source.set_output(True)
-                    pm.set_frequency(freq)
-                    # A query to each instrument proves it has carried out the settings
-                    # before the meter reads (writes to two instruments are not ordered),
-                    # and drains any error they raised.
-                    source.check_errors()
-                    pm.check_errors()
-                    clock.sleep(SETTLE_S)
-                    reading = pm.read_power_dbm()
-                    _check_reading(reading, level, connection, freq)
-                    losses.append(setting - reading)
-                source.set_output(False)
-                source.check_errors()
+                if connection in SOURCE_CONNECTIONS:
+                    losses = bench_ops.source_sweep(connection, freqs)
+                else:
+                    losses = bench_ops.output_sweep(connection, freqs)
                 sweeps[connection].append(losses)
                 on_step(f"sweep {repeat + 1} of {repeats}: {connection}, {len(freqs)} "
                         "frequencies")
+        bench_ops.route("part")
+        bench_ops.route("pm_rf")
         duration = clock.now() - t0
     except BaseException:
         safe = _finish(drivers, bench, sim_bench)
@@ -205,8 +248,11 @@ def calibrate_sources(
     text = calibration_text(
         created=now, expires=now + valid_for, temperature_c=float(temperature_c),
         bench=bench.bench.name,
-        method=(f"RF source levels at the DUT RF port plane by power meter ({AVERAGES} "
-                f"averages), {level:g} dBm at the plane, {repeats} sweep(s)"),
+        method=(f"source levels at the DUT input planes by power meter ({AVERAGES} "
+                f"averages), {level:g} dBm at the plane"
+                + (", output paths through a calibration thru by the analyzer against the "
+                   "power meter" if any(c in tables for c in PORT_CONNECTION.values()) else "")
+                + f", {repeats} sweep(s)"),
         instruments=idns, tables=tables, repeatability_db=repeatability)
     path = Path(out)
     try:
@@ -215,6 +261,119 @@ def calibrate_sources(
         raise InputError(f"cannot write the calibration file: {exc.strerror}",
                          where=str(path), fix="choose a writable path") from None
     return CalibrationResult(tables, spread, repeatability, duration, skipped, path, safe)
+
+
+SOURCE_CONNECTIONS = ("rf", "rf2", "lo")
+
+
+class _Steps:
+    """The calibration's bench operations (one sweep of one connection at a time)."""
+
+    def __init__(self, drivers: BenchDrivers, bench: Bench, clock: Clock, level: float) -> None:
+        self.d, self.bench, self.clock, self.level = drivers, bench, clock, level
+
+    def route(self, name: str) -> None:
+        """Close the switch channel of a calibration route, when the bench has it."""
+        channel = self.bench.switch_route(name)
+        switch = self.d.switch
+        if channel is not None and switch is not None:
+            switch.select(channel)
+            switch.check_errors()
+
+    def zero_check(self, connections: list[str]) -> None:
+        """With every calibration source off, the meter must read next to nothing: a reading
+        above :data:`ZERO_CHECK_DBM` means a sensor not zeroed (or a signal reaching it)."""
+        for connection in connections:
+            source = getattr(self.d, connection)
+            source.set_output(False)
+            source.check_errors()
+        pm = self.d.pm
+        assert pm is not None
+        self.route("pm_rf")
+        pm.check_errors()
+        self.clock.sleep(SETTLE_S)
+        reading = pm.read_power_dbm()
+        if not math.isfinite(reading):
+            raise SweeprigError(
+                f"the power meter read {reading} with every source off (not a number: no "
+                "sensor, or a fault); nothing was written and no RF was switched on",
+                where="power meter (role pm), before the calibration",
+                fix="check that the sensor is connected and zeroed, then calibrate again")
+        if reading > ZERO_CHECK_DBM:
+            raise SweeprigError(
+                f"the power meter reads {reading:.1f} dBm with every source off: the sensor "
+                "is not zeroed (or a signal reaches it); nothing was written and no RF was "
+                "switched on", where="power meter (role pm), before the calibration",
+                fix="zero the sensor with every RF output off (the meter's zero function), "
+                "check that nothing else feeds the DUT plane, then calibrate again; follow "
+                "your lab's rules for the sensor's maximum input")
+
+    def _plane_reading(self, connection: str, freq: float, reading_at: float) -> float:
+        """Set ``connection``'s source to put the calibration level at its DUT plane (by
+        the typed loss) at ``freq``, output on, and read the power meter there, dBm."""
+        source = getattr(self.d, connection)
+        pm = self.d.pm
+        assert pm is not None
+        source.set_frequency(freq)
+        source.set_power(self.level + self.bench.loss(connection).at(freq))
+        source.set_output(True)
+        pm.set_frequency(reading_at)
+        # A query to each instrument proves it has carried out the settings before the
+        # meter reads (writes to two instruments are not ordered), and drains any error.
+        source.check_errors()
+        pm.check_errors()
+        self.clock.sleep(SETTLE_S)
+        reading = pm.read_power_dbm()
+        _check_reading(reading, self.level, connection, freq)
+        return reading
+
+    def source_sweep(self, connection: str, freqs: list[float]) -> list[float]:
+        """The loss of a source connection at each frequency: setting − reading, dB."""
+        self.route("pm_lo" if connection == "lo" else "pm_rf")
+        source = getattr(self.d, connection)
+        losses = []
+        for freq in freqs:
+            reading = self._plane_reading(connection, freq, freq)
+            losses.append(self.level + self.bench.loss(connection).at(freq) - reading)
+        source.set_output(False)
+        source.check_errors()
+        return losses
+
+    def output_sweep(self, connection: str, freqs: list[float]) -> list[float]:
+        """The loss of an output path at each frequency, the thru in the part's place: the
+        power meter's reading at the DUT RF plane − the analyzer's, dB."""
+        port = next(p for p, c in PORT_CONNECTION.items() if c == connection)
+        sa, switch = self.d.sa, self.d.switch
+        assert sa is not None and switch is not None
+        self.route("pm_rf")
+        self.route("thru")
+        switch.select(self.bench.switch_channel(port))
+        switch.check_errors()
+        losses = []
+        for freq in freqs:
+            plane = self._plane_reading("rf", freq, freq)
+            sa.configure(centre_hz=freq, span_hz=SA_SPAN_HZ, rbw_hz=SA_RBW_HZ,
+                         ref_level_dbm=SA_REF_LEVEL_DBM, attenuation_db=SA_ATTENUATION_DB)
+            sa.check_errors()
+            sa.sweep()
+            level = sa.marker_level_dbm(freq)
+            if not math.isfinite(level) or abs(plane - self.bench.loss(connection).at(freq)
+                                                - level) > PLAUSIBLE_DB:
+                raise SweeprigError(
+                    f"the analyzer read {level:.2f} dBm at {freq / 1e9:g} GHz on the "
+                    f"{connection} path where about "
+                    f"{plane - self.bench.loss(connection).at(freq):.2f} dBm was expected; "
+                    "nothing was written", where=f"analyzer (role sa), {connection} path",
+                    fix="check that the calibration thru is fitted in the part's place, the "
+                    "switch routes the analyzer to this port, and the bench file's typed loss "
+                    "of this path")
+            losses.append(plane - level)
+        rf = self.d.rf
+        assert rf is not None
+        rf.set_output(False)
+        rf.check_errors()
+        self.route("part")
+        return losses
 
 
 def _check_reading(reading: float, expected_dbm: float, connection: str, freq: float) -> None:
@@ -242,6 +401,10 @@ def _finish(drivers: BenchDrivers | None, bench: Bench, sim_bench: object) -> Sa
         supply = None if state.supply in (None, "off") else float(state.supply)
         chamber = None if state.chamber in (None, "off") else float(state.chamber)
         outcome = make_safe(drivers, supply_safe_v=supply, chamber_idle_c=chamber)
+        part = bench.switch_route("part")
+        if part is not None and drivers.switch is not None:
+            with contextlib.suppress(SweeprigError):  # the part back in (RF is already off)
+                drivers.switch.select(part)
         drivers.close()
     if sim_bench is not None:
         sim_bench.close()  # type: ignore[attr-defined]

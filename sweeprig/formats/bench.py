@@ -75,9 +75,12 @@ class Role(Frozen):
                          description="driver profile name (a file in drivers/), e.g. scpi-source")
     noise_figure: LevelDb | None = Field(
         None, description="sa only: the analyzer's noise figure, for auto RBW (default 24 dB)")
-    channels: dict[Literal["if", "rf", "lo"], StrictInt] | None = Field(
+    channels: dict[Literal["if", "rf", "lo", "pm_rf", "pm_lo", "part", "thru"],
+                   StrictInt] | None = Field(
         None, description="switch only: channel that routes the analyzer to each DUT port "
-        "(default if = 1, rf = 2, lo = 3)")
+        "(default if = 1, rf = 2, lo = 3); for calibration, optional: the power-meter sensor "
+        "to the DUT RF or LO input plane (pm_rf, pm_lo) and the DUT position to the part or a "
+        "calibration thru (part, thru); without them the calibration asks the operator")
 
 
 class Roles(Frozen):
@@ -385,6 +388,14 @@ class Bench(LocatedFile):
         if role is not None and role.channels and port in role.channels:
             return role.channels[port]  # type: ignore[index]
         return defaults[port]
+
+    def switch_route(self, name: str) -> int | None:
+        """The switch channel of a calibration route (``pm_rf``, ``pm_lo``, ``part``,
+        ``thru``), or None when the bench's switch has none (the operator moves the cable)."""
+        role = self.roles.switch
+        if role is None or not role.channels:
+            return None
+        return role.channels.get(name)  # type: ignore[call-overload]
 
     def analyzer_noise_figure_db(self) -> float:
         """The analyzer's noise figure for auto RBW (24 dB when the bench does not say).

@@ -16,10 +16,14 @@ optional; the values shown are the defaults)::
     if = "1.5 dB"                # DUT IF port to the analyzer (switch channel 1)
     rf_port = "2.5 dB"           # DUT RF port to the analyzer (switch channel 2)
     lo_port = "2.5 dB"           # DUT LO port to the analyzer (switch channel 3)
+    ripple = "0 dB"              # loss ripple of every connection, peak (seeded periods)
+    combiner_imbalance = "0 dB"  # extra loss of the combiner's rf2 input over its rf input
     # e.g. lo = { loss = "1.5 dB", at = "2 GHz" }: 1.5 dB at 2 GHz, growing as sqrt(f)
 
     [sources]
-    level_error = true           # the small level error of the simulated sources
+    level_error = true           # the level error of the simulated sources:
+    level_ripple = "0.15 dB"     #   versus frequency (a smooth ripple), peak
+    level_linearity = "0 dB"     #   versus level setting (0 at -10 dBm), towards this far off
     harmonics = ["-35 dBc", "-45 dBc"]
     # non-harmonic spurious lines at carrier + offset (an assumption: reference-related spurs)
     spurious = [{ offset = "10 MHz", level = "-72 dBc" }, { offset = "-10 MHz", level = "-72 dBc" }]
@@ -40,6 +44,11 @@ optional; the values shown are the defaults)::
       { offset = "10 kHz", level = "-106 dBc/Hz" }, { offset = "100 kHz", level = "-116 dBc/Hz" },
       { offset = "1 MHz", level = "-135 dBc/Hz" }, { offset = "10 MHz", level = "-145 dBc/Hz" },
     ]
+
+    [power_meter]
+    cal_factor_error = "0 dB"    # what the sensor's calibration factor leaves, peak vs freq
+    noise = 0.002                # relative reading noise of one average
+    # zero_offset = "-40 dBm"    # a sensor not zeroed: this power is added to every reading
 
     [chamber]
     ambient = "23 degC"
@@ -75,11 +84,12 @@ from __future__ import annotations
 import itertools
 import math
 import os
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 from types import TracebackType
 from typing import Annotated, Any
 
+import numpy as np
 from pydantic import BeforeValidator, Discriminator, Field, Tag, field_validator
 from pydantic_core import PydanticCustomError
 
@@ -95,8 +105,8 @@ from sweeprig.sim.instruments.powermeter import PowerMeter
 from sweeprig.sim.instruments.simctl import SimControl
 from sweeprig.sim.instruments.source import (
     SignalSource,
-    default_level_error_db,
     no_level_error_db,
+    scaled_level_error,
 )
 from sweeprig.sim.instruments.supply import DcSupply
 from sweeprig.sim.instruments.switch import RfSwitch
@@ -164,6 +174,11 @@ class CablesSpec(Frozen):
     combiner: CableSpec = 0.5
     rf_port: CableSpec = 2.5
     lo_port: CableSpec = 2.5
+    #: Loss ripple of every connection (standing waves between its connectors), peak dB;
+    #: each connection gets its own seeded period (150 to 600 MHz) and phase.
+    ripple: NonNegativeDb = 0.0
+    #: Extra loss of the combiner's rf2 input over its rf input, dB.
+    combiner_imbalance: NonNegativeDb = 0.0
 
 
 def _dbc_per_hz(value: Any) -> float:
@@ -226,6 +241,11 @@ class SourcesSpec(Frozen):
     """Properties shared by the three simulated sources."""
 
     level_error: StrictBool = True
+    #: Peak of the sources' level error versus frequency (a smooth ripple), dB.
+    level_ripple: NonNegativeDb = 0.15
+    #: The sources' level error versus level setting, dB (0 at a −10 dBm setting, towards
+    #: ±this far from it).
+    level_linearity: NonNegativeDb = 0.0
     harmonics: tuple[LevelDb, ...] = (-35.0, -45.0)
     spurious: tuple[SpurSpec, ...] = DEFAULT_SPURIOUS
     lowpass: SourceFiltersSpec = SourceFiltersSpec()
@@ -271,6 +291,17 @@ class AnalyzerSpec(Frozen):
         )
 
 
+class PowerMeterSpec(Frozen):
+    """The power meter and its sensor."""
+
+    #: What the sensor's calibration factor leaves uncorrected versus frequency, peak dB.
+    cal_factor_error: NonNegativeDb = 0.0
+    #: Relative reading noise of one average (a fraction of the power).
+    noise: Annotated[float, Field(ge=0.0, le=0.1)] = 0.002
+    #: A sensor that was not zeroed: this power is added to every reading (absent: zeroed).
+    zero_offset: Power | None = None
+
+
 class ChamberSpec(Frozen):
     """Thermal chamber figures."""
 
@@ -306,6 +337,7 @@ class SimBenchDescription(Frozen):
     cables: CablesSpec = CablesSpec()
     sources: SourcesSpec = SourcesSpec()
     analyzer: AnalyzerSpec = AnalyzerSpec()
+    power_meter: PowerMeterSpec = PowerMeterSpec()
     chamber: ChamberSpec = ChamberSpec()
     dut: DutSpec = DutSpec()
     faults: tuple[FaultSpec, ...] = ()
@@ -324,10 +356,22 @@ class SimBenchDescription(Frozen):
 
     def world_config(self) -> WorldConfig:
         c, u = self.cables, self.dut.unpowered
+
+        def cable(name: str, spec: CableSpec, k: int) -> CableLoss:
+            loss = _cable(spec)
+            if not c.ripple:
+                return loss
+            period, phase = _ripple_law(self.seed, k)
+            return replace(loss, ripple_db=c.ripple, ripple_period_hz=period,
+                           ripple_phase_rad=phase)
+
         return WorldConfig(
-            cabling=Cabling(rf=_cable(c.rf), rf2=_cable(c.rf2), lo=_cable(c.lo),
-                            if_=_cable(c.if_), combiner=_cable(c.combiner),
-                            rf_port=_cable(c.rf_port), lo_port=_cable(c.lo_port)),
+            cabling=Cabling(rf=cable("rf", c.rf, 0), rf2=cable("rf2", c.rf2, 1),
+                            lo=cable("lo", c.lo, 2), if_=cable("if", c.if_, 3),
+                            combiner=cable("combiner", c.combiner, 4),
+                            rf_port=cable("rf_port", c.rf_port, 5),
+                            lo_port=cable("lo_port", c.lo_port, 6),
+                            combiner_imbalance_db=c.combiner_imbalance),
             dead_mixer=DeadMixer(rf_to_if_db=u.rf_to_if, lo_to_if_db=u.lo_to_if,
                                  lo_to_rf_db=u.lo_to_rf, min_supply_v=u.below),
             self_heating_c_per_w=self.dut.self_heating_c_per_w,
@@ -353,6 +397,14 @@ class SimBenchDescription(Frozen):
 
     def fault_plan(self) -> FaultPlan:
         return FaultPlan(faults=self.faults)
+
+
+def _ripple_law(seed: int, index: int) -> tuple[float, float]:
+    """(period Hz, phase rad) of one connection's loss ripple, from
+    ``numpy.random.default_rng([seed, 47, index])``: period 150 to 600 MHz (an electrical
+    length of about 0.25 to 1 m between two mismatched connectors), phase uniform."""
+    rng = np.random.default_rng([int(seed), 47, index])
+    return float(rng.uniform(150e6, 600e6)), float(rng.uniform(0.0, 2.0 * math.pi))
 
 
 def load_sim_bench_description(path: str | os.PathLike[str]) -> SimBenchDescription:
@@ -436,12 +488,15 @@ def build_sim_instruments(
     clock = clock if clock is not None else VirtualClock()
     model = part if part is not None else prepare_part(desc)
     world = SimWorld(model, desc.world_config())
-    level_error = default_level_error_db if desc.sources.level_error else no_level_error_db
+    level_error = (scaled_level_error(desc.sources.level_ripple) if desc.sources.level_error
+                   else no_level_error_db)
+    linearity = desc.sources.level_linearity if desc.sources.level_error else 0.0
     harmonics = desc.sources.harmonics
     sources = {
         role: SignalSource(clock, f"SG6-1000{k + 1}", level_error_db=level_error,
                            harmonics_dbc=harmonics,
-                           spurious=[(s.offset, s.level) for s in desc.sources.spurious])
+                           spurious=[(s.offset, s.level) for s in desc.sources.spurious],
+                           level_linearity_db=linearity)
         for k, role in enumerate(("rf", "rf2", "lo"))
     }
     supply = DcSupply(clock, load=world.supply_current_a)
@@ -450,7 +505,10 @@ def build_sim_instruments(
     switch = RfSwitch(clock)
     analyzer = SpectrumAnalyzer(clock, world.analyzer_input, params=desc.analyzer_params(),
                                 seed=desc.seed)
-    meter = PowerMeter(clock, sense=world.sensed_power_dbm, seed=desc.seed + 1)
+    meter = PowerMeter(clock, sense=world.sensed_power_dbm, seed=desc.seed + 1,
+                       cal_factor_error_db=desc.power_meter.cal_factor_error,
+                       relative_noise=desc.power_meter.noise,
+                       zero_offset_dbm=desc.power_meter.zero_offset)
     world.connect(rf=sources["rf"], rf2=sources["rf2"], lo=sources["lo"], supply=supply,
                   chamber=chamber, switch=switch)
     truth_line, truth_noise = _truth_hooks(world, analyzer)

@@ -50,7 +50,11 @@ from sweeprig.sim.analyzer_display import (
     noise_breakdown_mw,
 )
 from sweeprig.sim.bench import SimBenchDescription, prepare_part, resolve_description
-from sweeprig.sim.instruments.source import default_level_error_db, no_level_error_db
+from sweeprig.sim.instruments.source import (
+    linearity_error_db,
+    no_level_error_db,
+    scaled_level_error,
+)
 from sweeprig.sim.mixer.part import MixerPart
 from sweeprig.sim.mixer.reference import ReferenceFigures, reference_figures
 from sweeprig.sim.mixer.types import MixerResponse, OperatingPoint, ToneInput
@@ -312,6 +316,22 @@ def _clean(tone: ToneInput | None) -> ToneInput | None:
 
 
 # --- a world from a description and a drive -------------------------------------------------
+def pin_powers(world: SimWorld) -> dict[str, tuple[tuple[float, float], ...]]:
+    """The true power at each DUT input pin of a live world now: ``{"rf": ((Hz, dBm), ...),
+    "lo": ...}``, each tone's fundamental as it arrives (the sources' level errors, filters,
+    cables, combiner and its imbalance included); empty for a port with nothing on."""
+    lo = world.lo_input()
+    return {"rf": tuple((t.freq_hz, t.power_dbm) for t in world.rf_inputs()),
+            "lo": ((lo.freq_hz, lo.power_dbm),) if lo is not None else ()}
+
+
+def pin_drive_powers(description: Description, drive: Drive) -> dict[
+        str, tuple[tuple[float, float], ...]]:
+    """:func:`pin_powers` for a drive (source settings, not the DUT-plane levels a sequence
+    states) on a description's bench."""
+    return pin_powers(_static_world(resolve_description(description), drive, "if"))
+
+
 @dataclass(frozen=True)
 class _Source:
     freq_hz: float
@@ -342,15 +362,18 @@ class _Switch:
 
 def _static_world(desc: SimBenchDescription, drive: Drive, port: Port) -> SimWorld:
     world = SimWorld(_prepared_part(desc), desc.world_config())
-    error = default_level_error_db if desc.sources.level_error else no_level_error_db
+    error = (scaled_level_error(desc.sources.level_ripple) if desc.sources.level_error
+             else no_level_error_db)
+    linearity = desc.sources.level_linearity if desc.sources.level_error else 0.0
     harmonics = tuple(float(h) for h in desc.sources.harmonics)
     spurious = tuple((s.offset, s.level) for s in desc.sources.spurious)
 
     def source(freq: float | None, power: float) -> _Source | None:
         if freq is None:
             return None
-        return _Source(float(freq), float(power) + float(error(float(freq))), True, harmonics,
-                       spurious)
+        delivered = (float(power) + float(error(float(freq)))
+                     + linearity_error_db(float(power), linearity))
+        return _Source(float(freq), delivered, True, harmonics, spurious)
 
     temperature = desc.chamber.ambient if drive.temperature_c is None else drive.temperature_c
     numbers = (drive.lo_freq_hz, drive.lo_power_dbm, drive.rf_freq_hz, drive.rf_power_dbm,

@@ -9,6 +9,9 @@ Signal flow (powers in dBm, frequencies in Hz, losses in dB, positive = loss)::
     DUT IF port ─ path "if"      ─ RF switch channel 1 ─┐
     DUT RF port ─ path "rf_port" ─ RF switch channel 2 ─┼─ analyzer input
     DUT LO port ─ path "lo_port" ─ RF switch channel 3 ─┘
+    power-meter sensor ─ DUT RF input plane (switch channel 4) or LO input plane (channel 5)
+    DUT position: the part (switch channel 6) or the calibration thru (channel 7), which
+        passes what arrives at the DUT RF input plane, without loss, to every output path
     dc supply ─ DUT supply;  chamber probe ─ DUT die temperature (plus self-heating)
 
 The world reads the instruments' states through small views (protocols below), asks the
@@ -104,12 +107,22 @@ class CableLoss:
 
     loss_db: float = 0.0
     ref_freq_hz: float | None = None
+    #: Loss ripple versus frequency (standing waves between connectors): peak dB, period Hz,
+    #: phase rad; the loss never goes below 0 dB.
+    ripple_db: float = 0.0
+    ripple_period_hz: float = 300e6
+    ripple_phase_rad: float = 0.0
 
     def at(self, freq_hz: float) -> float:
         """Loss at ``freq_hz``, dB."""
         if self.ref_freq_hz is None:
-            return self.loss_db
-        return self.loss_db * math.sqrt(max(freq_hz, 0.0) / self.ref_freq_hz)
+            loss = self.loss_db
+        else:
+            loss = self.loss_db * math.sqrt(max(freq_hz, 0.0) / self.ref_freq_hz)
+        if self.ripple_db:
+            loss = max(0.0, loss + self.ripple_db * math.sin(
+                2.0 * math.pi * freq_hz / self.ripple_period_hz + self.ripple_phase_rad))
+        return loss
 
 
 @dataclass(frozen=True)
@@ -143,6 +156,8 @@ class Cabling:
     combiner: CableLoss = field(default_factory=CableLoss)
     rf_port: CableLoss = field(default_factory=CableLoss)
     lo_port: CableLoss = field(default_factory=CableLoss)
+    #: The combiner's imbalance: extra loss of the rf2 input over the rf input, dB.
+    combiner_imbalance_db: float = 0.0
 
 
 @dataclass(frozen=True)
@@ -258,6 +273,14 @@ class SimWorld:
         """The tone at the DUT LO port, or None when the LO is off."""
         return self._tone_at_port("lo", self._path("lo"))
 
+    def thru_fitted(self) -> bool:
+        """Whether the calibration thru replaces the part (switch channel 7)."""
+        return bool(getattr(self._switch, "thru", False))
+
+    def sensor_at_lo(self) -> bool:
+        """Whether the power-meter sensor is at the DUT LO input plane (switch channel 5)."""
+        return getattr(self._switch, "sensor_channel", 4) == 5
+
     def probe_temperature_c(self) -> float:
         """Chamber probe temperature (ambient without a chamber), degC."""
         if self._chamber is not None:
@@ -298,6 +321,8 @@ class SimWorld:
         lo = self.lo_input()
         rf = tuple(self.rf_inputs())
         volts = self.supply_voltage_v() if supply_v is None else max(0.0, float(supply_v))
+        if self.thru_fitted():
+            return _thru_response(rf)
         temperature = self._rounded(self.probe_temperature_c())
         key = (lo, rf, round(volts, 6), temperature)
         with self._lock:
@@ -458,13 +483,20 @@ class SimWorld:
                                             phase0 - 2.0 * math.pi * freq_hz * delay), role)
 
     def sensed_power_dbm(self) -> float:
-        """Total power at the DUT RF input plane (fundamentals and harmonics), dBm."""
+        """Total power at the sensor's plane (fundamentals, harmonics, spurs), dBm: the DUT
+        RF input plane, or its LO input plane when the switch routes the sensor there."""
         total_mw = 0.0
-        for tone in self.rf_inputs():
+        if self.sensor_at_lo():
+            lo = self.lo_input()
+            tones = [lo] if lo is not None else []
+            roles: tuple[str, ...] = ("lo",)
+        else:
+            tones, roles = self.rf_inputs(), ("rf", "rf2")
+        for tone in tones:
             total_mw += 10.0 ** (tone.power_dbm / 10.0)
             for h_dbc in tone.harmonics_dbc:
                 total_mw += 10.0 ** ((tone.power_dbm + h_dbc) / 10.0)
-        for role in ("rf", "rf2"):
+        for role in roles:
             for _, p in self.source_spurs(role):
                 total_mw += 10.0 ** (p / 10.0)
         return 10.0 * math.log10(total_mw) if total_mw > 0 else _NO_SIGNAL_DBM
@@ -480,7 +512,8 @@ class SimWorld:
         """Everything between a source and its DUT port: its filter, cable (and combiner)."""
         cabling = self.config.cabling
         path: tuple[CableLoss | LowPassFilter, ...] = {
-            "rf": (cabling.rf, cabling.combiner), "rf2": (cabling.rf2, cabling.combiner),
+            "rf": (cabling.rf, cabling.combiner),
+            "rf2": (cabling.rf2, cabling.combiner, CableLoss(cabling.combiner_imbalance_db)),
             "lo": (cabling.lo,),
         }[role]
         filt = self.config.source_filter(role)
@@ -506,6 +539,23 @@ class SimWorld:
     def _rounded(self, temperature_c: float) -> float:
         step = self.config.temperature_resolution_c
         return round(temperature_c / step) * step if step > 0 else temperature_c
+
+
+def _thru_response(rf: Sequence[ToneInput]) -> MixerResponse:
+    """The calibration thru in the part's place: each tone at the DUT RF input plane (and
+    its harmonics) reaches every output path unchanged; no supply current, the output noise
+    is kT0 (a matched passive thru at T0)."""
+    lines: list[Product] = []
+    n_rf = len(rf)
+    for k, tone in enumerate(rf):
+        orders = (0, *(1 if j == k else 0 for j in range(n_rf)))
+        lines.append(Product(tone.freq_hz, tone.power_dbm, orders))
+        for n, h_dbc in enumerate(tone.harmonics_dbc):
+            lines.append(Product((n + 2) * tone.freq_hz, tone.power_dbm + h_dbc,
+                                 tuple((n + 2) * o for o in orders)))
+    ports = tuple(lines)
+    return MixerResponse(if_port=ports, rf_port=ports, lo_port=ports,
+                         if_noise_dbm_per_hz=KT0_DBM_PER_HZ, supply_current_a=0.0)
 
 
 def add_coherent_arrays(
@@ -559,8 +609,14 @@ def add_coherent(
 def _cable_loss_db(cable: CableLoss, freq_hz: np.ndarray) -> np.ndarray | float:
     """Loss of ``cable`` at each frequency, dB."""
     if cable.ref_freq_hz is None:
-        return cable.loss_db
-    return cable.loss_db * np.sqrt(np.maximum(freq_hz, 0.0) / cable.ref_freq_hz)
+        loss: np.ndarray | float = cable.loss_db
+    else:
+        loss = cable.loss_db * np.sqrt(np.maximum(freq_hz, 0.0) / cable.ref_freq_hz)
+    if cable.ripple_db:
+        loss = np.maximum(0.0, loss + cable.ripple_db * np.sin(
+            2.0 * np.pi * np.asarray(freq_hz, dtype=float) / cable.ripple_period_hz
+            + cable.ripple_phase_rad))
+    return loss
 
 
 @lru_cache(maxsize=64)
@@ -581,10 +637,7 @@ def _lossy_noise(
 
     def density(freqs_hz: np.ndarray) -> np.ndarray:
         f = np.asarray(freqs_hz, dtype=float)
-        if cable.ref_freq_hz is None:
-            loss_db = np.full(f.shape, cable.loss_db)
-        else:
-            loss_db = cable.loss_db * np.sqrt(np.maximum(f, 0.0) / cable.ref_freq_hz)
+        loss_db = np.broadcast_to(_cable_loss_db(cable, f), f.shape)
         gain = 10.0 ** (-loss_db / 10.0)
         kt0_mw = 10.0 ** (KT0_DBM_PER_HZ / 10.0)
         n_mw = 10.0 ** (density_dbm_per_hz / 10.0) * gain + kt0_mw * (1.0 - gain)

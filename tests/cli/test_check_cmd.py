@@ -168,12 +168,14 @@ def test_calibrate_then_run_with_it_from_the_command_line(tmp_path) -> None:
     from sweeprig.cli.main import app as full_app
 
     out = tmp_path / "cal.toml"
-    made = invoke(full_app, "calibrate", QUICK, "--sim", "--out", out, "--repeats", "2")
+    made = invoke(full_app, "calibrate", QUICK, "--sim", "--out", out, "--repeats", "2",
+                  "--sim-bench", "bench-errors")
     assert made.exit_code == 0, made.output
-    assert "rf: 3 frequencies" in made.output and "lo: not calibrated" in made.output
+    assert "rf: 3 frequencies" in made.output and "lo: 3 frequencies" in made.output
+    assert "if: 11 frequencies" in made.output and "not calibrated" not in made.output
     assert "safe state read back" in made.output and out.is_file()
     ran = invoke(full_app, "run", QUICK, "--sim", "--calibration", out, "--store",
-                 tmp_path / "runs.sqlite", "--quiet")
+                 tmp_path / "runs.sqlite", "--quiet", "--sim-bench", "bench-errors")
     assert ran.exit_code == 0, ran.output
     assert "(k = 2)" in ran.output and "figures corrected by the calibration" in ran.output
     refused = invoke(full_app, "calibrate", QUICK, "--out", tmp_path / "x.toml")

@@ -228,7 +228,8 @@ def test_corpus_file_is_refused_with_a_located_message(
     if kind in ("sequences", "benches", "pathloss", "touchstone") and entry.startswith("run"):
         served_bench = request.getfixturevalue("served")
         before = _snapshot(served_bench)
-    if entry in ("run_sim", "run_sim_bench") or (kind == "benches" and entry == "run"):
+    if entry in ("run_sim", "run_sim_bench", "calibrate_sim") or (kind == "benches"
+                                                                  and entry == "run"):
         watched = request.getfixturevalue("started")
 
     if "generate" in spec:
@@ -303,6 +304,11 @@ def _run_entry(kind: str, entry: str, path: Path, tmp_path: Path,
         return _cli("run", TINY, "--sim", "--sim-bench", description, *store)
     if entry == "load_sim_bench_description":
         return _load(load_sim_bench_description, path)
+    if entry == "calibrate_sim":  # a bench that only a calibration finds wrong
+        out = tmp_path / "cal.toml"
+        outcome = _cli("calibrate", QUICK, "--sim", "--sim-bench", path, "--out", out)
+        assert not out.exists(), "a refused calibration wrote its file"
+        return outcome
     return _cli("run", TINY, "--sim", "--sim-bench", path, *store)
 
 

@@ -302,13 +302,20 @@ def test_switch(open_role, bench: ServedBench) -> None:
     switch.write("ROUTE:CLOSE (@2)")
     assert switch.query("ROUT:CLOS? (@2)") == "1"
     assert view.channel == 2
-    switch.write("ROUT:CLOS (@4)")
+    switch.write("ROUT:CLOS (@8)")
     switch.write("ROUT:CLOS (@1,3)")
     switch.write("ROUT:CLOS 1")
     assert [e.split(",")[0] for e in _errors(switch)] == ["-222", "-221", "-104"]
     assert view.channel == 2
+    # The calibration sections: the sensor (4 RF plane, 5 LO plane) and the DUT position
+    # (6 the part, 7 the thru) each keep one channel closed, apart from the analyzer's.
+    assert switch.query("ROUT:CLOS? (@4:7)") == "1,0,1,0"
+    switch.write("ROUT:CLOS (@5)")
+    switch.write("ROUT:CLOS (@7)")
+    assert switch.query("ROUT:CLOS? (@1:7)") == "0,1,0,0,1,0,1"
+    assert (view.channel, view.sensor_channel, view.thru) == (2, 5, True)
     switch.write("*RST")
-    assert switch.query("ROUT:CLOS? (@1:3)") == "1,0,0"
+    assert switch.query("ROUT:CLOS? (@1:7)") == "1,0,0,1,0,1,0"
 
 
 def test_simctl(open_role, clock: VirtualClock) -> None:

@@ -79,6 +79,8 @@ class Chamber:
 @dataclass
 class Switch:
     channel: int = 1
+    sensor_channel: int = 4
+    thru: bool = False
 
 
 def _world(
@@ -221,3 +223,26 @@ def test_world_without_instruments_is_quiet() -> None:
     world = SimWorld(StandInMixer())
     assert world.analyzer_input().lines == ()
     assert world.die_temperature_c() == pytest.approx(23.0)
+
+
+def test_the_calibration_thru_passes_the_rf_plane_to_every_output_path() -> None:
+    world, mixer, parts = _world(Cabling(rf=CableLoss(2.0), if_=CableLoss(1.0),
+                                         rf_port=CableLoss(3.0), lo_port=CableLoss(4.0)))
+    switch = parts["switch"]
+    switch.thru = True  # type: ignore[attr-defined]
+    calls = len(mixer.calls)
+    for channel, loss in ((1, 1.0), (2, 3.0), (3, 4.0)):
+        switch.channel = channel  # type: ignore[attr-defined]
+        lines = dict(world.analyzer_input().lines)
+        assert lines[2.4e9] == pytest.approx(-22.0 - loss)  # the RF plane's tone, no LO
+        assert 70e6 not in lines and 2.33e9 not in lines
+    assert len(mixer.calls) == calls  # the part is out of the path
+    assert world.supply_current_a(5.0) >= 0.0
+
+
+def test_the_sensor_reads_the_lo_plane_when_routed_there() -> None:
+    world, _, parts = _world(Cabling(lo=CableLoss(2.0)))
+    rf_plane = world.sensed_power_dbm()
+    parts["switch"].sensor_channel = 5  # type: ignore[attr-defined]
+    assert world.sensed_power_dbm() == pytest.approx(3.0)  # the LO's 5 dBm after 2 dB
+    assert world.sensed_power_dbm() != pytest.approx(rf_plane)

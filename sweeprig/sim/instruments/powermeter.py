@@ -2,7 +2,8 @@
 
 The world supplies ``sense()``: the true power at the sensor plane, dBm. A reading adds
 zeroed-sensor noise (a seeded generator, so runs repeat) that shrinks as 1/√averages, and
-advances the shared clock by the measurement time.
+what the sensor's calibration factor leaves uncorrected at the set frequency
+(``cal_factor_error_db``), and advances the shared clock by the measurement time.
 """
 
 from __future__ import annotations
@@ -38,9 +39,15 @@ class PowerMeter(ScpiInstrument):
         *,
         sense: Callable[[], float] = _no_signal,
         seed: int = 0,
+        cal_factor_error_db: float = 0.0,
+        relative_noise: float = RELATIVE_NOISE,
+        zero_offset_dbm: float | None = None,
     ) -> None:
         super().__init__(clock, Identity("Tarnwick Labs", "TW-PM18", serial, "1.0"))
         self.sense = sense
+        self.cal_factor_error_db = float(cal_factor_error_db)
+        self.relative_noise = float(relative_noise)
+        self.zero_offset_mw = 0.0 if zero_offset_dbm is None else 10.0 ** (zero_offset_dbm / 10.0)
         self._rng = random.Random(seed)
         self.add_setting(Setting("freq_hz", "[SENSe]:FREQuency", "float", 1e9,
                                  unit="frequency", minimum=9e3, maximum=18e9))
@@ -61,12 +68,22 @@ class PowerMeter(ScpiInstrument):
             root_n = math.sqrt(count)
             true_mw = 10.0 ** (true_dbm / 10.0)
             floor_mw = 10.0 ** (NOISE_FLOOR_DBM / 10.0)
+            true_mw *= 10.0 ** (self.cal_factor_residual_db(float(self.value("freq_hz")))
+                                / 10.0)
             reading_mw = (
-                true_mw * (1.0 + RELATIVE_NOISE * self._rng.gauss(0.0, 1.0) / root_n)
+                true_mw * (1.0 + self.relative_noise * self._rng.gauss(0.0, 1.0) / root_n)
                 + floor_mw * self._rng.gauss(0.0, 1.0) / root_n
+                + self.zero_offset_mw
             )
             reading_mw = max(abs(reading_mw), 0.01 * floor_mw)
             return 10.0 * math.log10(reading_mw)
+
+    def cal_factor_residual_db(self, freq_hz: float) -> float:
+        """What the sensor's calibration factor at ``freq_hz`` leaves uncorrected, dB: a
+        ripple of peak ``cal_factor_error_db`` (invented shape)."""
+        if not self.cal_factor_error_db:
+            return 0.0
+        return self.cal_factor_error_db * math.sin(2.0 * math.pi * freq_hz / 2.1e9 + 0.4)
 
     def _measure(self, cmd: Command) -> str:
         cmd.no_params()

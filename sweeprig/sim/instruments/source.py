@@ -36,6 +36,25 @@ def default_level_error_db(freq_hz: float) -> float:
     )
 
 
+#: Peak of :func:`default_level_error_db`, dB.
+DEFAULT_RIPPLE_DB = 0.15
+
+
+def scaled_level_error(peak_db: float) -> Callable[[float], float]:
+    """The shape of :func:`default_level_error_db` scaled to ``peak_db`` (dB)."""
+    if peak_db == DEFAULT_RIPPLE_DB:
+        return default_level_error_db
+    scale = peak_db / DEFAULT_RIPPLE_DB
+    return lambda freq_hz: scale * default_level_error_db(freq_hz)
+
+
+def linearity_error_db(power_dbm: float, peak_db: float) -> float:
+    """The source's level error versus its level setting, dB: ``peak_db·tanh((P + 10)/15)``,
+    0 at a −10 dBm setting and approaching ±``peak_db`` far above and below it (an invented
+    shape for an output attenuator and level-control detector's error)."""
+    return peak_db * math.tanh((power_dbm + 10.0) / 15.0) if peak_db else 0.0
+
+
 def no_level_error_db(freq_hz: float) -> float:
     """A perfect source: 0 dB level error at every frequency."""
     return 0.0
@@ -52,9 +71,11 @@ class SignalSource(ScpiInstrument):
         level_error_db: Callable[[float], float] = default_level_error_db,
         harmonics_dbc: Sequence[float] = (-35.0, -45.0),
         spurious: Sequence[tuple[float, float]] = (),
+        level_linearity_db: float = 0.0,
     ) -> None:
         super().__init__(clock, Identity("Tarnwick Labs", "TW-SG6", serial, "1.0"))
         self.level_error_db = level_error_db
+        self.level_linearity_db = float(level_linearity_db)
         self._harmonics_dbc = tuple(float(h) for h in harmonics_dbc)
         self._spurious = tuple((float(o), float(d)) for o, d in spurious)
         self.add_setting(Setting(
@@ -85,9 +106,11 @@ class SignalSource(ScpiInstrument):
 
     @property
     def delivered_power_dbm(self) -> float:
-        """Level actually delivered at the output connector, dBm (setting + level error)."""
-        freq_hz = self.freq_hz
-        return self.power_dbm + float(self.level_error_db(freq_hz))
+        """Level actually delivered at the output connector, dBm (setting + level error
+        versus frequency + level error versus level)."""
+        freq_hz, power = self.freq_hz, self.power_dbm
+        return (power + float(self.level_error_db(freq_hz))
+                + linearity_error_db(power, self.level_linearity_db))
 
     @property
     def output_on(self) -> bool:
