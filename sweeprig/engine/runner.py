@@ -46,7 +46,7 @@ from sweeprig.engine.connect import BenchDrivers
 from sweeprig.engine.noise_floor import NoiseFloor, estimate_noise_floor
 from sweeprig.errors import InputError, InstrumentError, TransportError
 from sweeprig.formats.bench import Bench
-from sweeprig.formats.sequence import Sequence
+from sweeprig.formats.sequence import AdaptiveSoak, Sequence
 from sweeprig.instruments import AnalyzerDriver, ChamberDriver, Driver, SourceDriver
 from sweeprig.plan.expand import Point
 from sweeprig.plan.readings import Reading
@@ -386,7 +386,7 @@ class Runner:
     def _apply_conditions(self, point: Point) -> bool:
         changed = False
         if point.temperature_c is not None and point.temperature_c != self._temperature_c:
-            self._go_to_temperature(point.temperature_c)
+            self._go_to_temperature(point.temperature_c, point)
             self._temperature_c = point.temperature_c
             changed = True
         dc = self.d.dc
@@ -400,8 +400,9 @@ class Runner:
                 changed = True
         return changed
 
-    def _go_to_temperature(self, temperature_c: float) -> None:
-        """Set the chamber, wait for the DUT probe, soak. RF is off meanwhile."""
+    def _go_to_temperature(self, temperature_c: float, point: Point | None = None) -> None:
+        """Set the chamber, wait for the DUT probe, soak. RF is off while the temperature
+        moves (an adaptive soak judged by gain switches the point's RF on to read it)."""
         chamber = self.d.chamber
         if chamber is None:
             raise InputError(
@@ -432,11 +433,96 @@ class Runner:
                 )
             self.clock.sleep(CHAMBER_POLL_S)
             waited += CHAMBER_POLL_S
+        adaptive = self.sequence.conditions.adaptive_soak
+        if adaptive is not None and point is not None:
+            self.log(f"probe at {temperature_c:g} degC after {waited:g} s; soaking until "
+                     f"settled ({adaptive.by})")
+            self._adaptive_soak(chamber, temperature_c, point, adaptive)
+            return
         self.log(f"probe at {temperature_c:g} degC after {waited:g} s; soaking {self.soak_s:g} s")
         self._soak(chamber, temperature_c)
 
     def _soak(self, chamber: ChamberDriver, temperature_c: float) -> None:
         soak(self.clock, self.soak_s, temperature_c, chamber.probe_temperature_c, self._waits)
+
+    def _criterion(self, point: Point, by: str) -> Callable[[], float] | None:
+        """A function reading the adaptive soak's criterion at ``point`` (gain, dB, or supply
+        current, A), with what it needs switched on; None when the bench cannot read it."""
+        dc = self.d.dc
+        if dc is not None and point.supply_v is not None:
+            sent = dc.set_voltage(point.supply_v)
+            if not self._supply_on:
+                sent |= dc.set_output(True)
+                self._supply_on = True
+            if sent:
+                self._check(dc)
+        if by == "supply_current":
+            return None if dc is None else dc.measure_current_a
+        wanted = next((r for r in point.readings if r.kind == "wanted"), None)
+        if wanted is None or self.d.sa is None:
+            return None
+        if self._apply_sources(point):
+            self.clock.sleep(self.settle_s)
+
+        def gain_db() -> float:
+            record = self._read_analyzer(point, wanted)
+            return float(record.level_dbm) - point.rf_power_dbm  # type: ignore[arg-type]
+        return gain_db
+
+    def _adaptive_soak(self, chamber: ChamberDriver, temperature_c: float, point: Point,
+                       adaptive: AdaptiveSoak) -> None:
+        """Soak until the criterion's readings over the last window spread by no more than
+        the drift allowed (after the minimum, at most the maximum); store the soak curve."""
+        longest_s = adaptive.maximum if adaptive.maximum is not None else self.soak_s
+        read = self._criterion(point, adaptive.by)
+        if read is None:
+            self._event("warning", "soak", f"point {point.index} cannot read the adaptive "
+                        f"soak's criterion ({adaptive.by}); soaking the maximum "
+                        f"{longest_s:g} s", point.index)
+            soak(self.clock, longest_s, temperature_c, chamber.probe_temperature_c,
+                 self._waits)
+            return
+        start = self.clock.now()
+        curve: list[tuple[float, float, float]] = []
+        next_read_s = 0.0
+        settled = False
+        self._waits.restart()
+        unit = "dB" if adaptive.by == "gain" else "A"
+        while True:
+            elapsed = self.clock.now() - start
+            if elapsed >= next_read_s - 1e-9:
+                value = read()
+                curve.append((elapsed, chamber.probe_temperature_c(), value))
+                next_read_s += adaptive.every
+                if elapsed >= adaptive.minimum - 1e-9 and is_settled(
+                        curve, adaptive.window, adaptive.drift):
+                    settled = True
+                    break
+            if elapsed >= longest_s - 1e-9:
+                break
+            spread = window_spread(curve, adaptive.window)
+            probe = curve[-1][1]
+            self._waits.tell({
+                "what": "soak", "setpoint_c": temperature_c, "probe_c": probe,
+                "left_s": longest_s - elapsed, "total_s": longest_s, "adaptive": True,
+                "label": f"soak at {temperature_c:g} °C until settled, probe at {probe:.2f} °C, "
+                         f"{adaptive.by} spread "
+                         + ("-" if spread is None else f"{spread:.3g} {unit}")
+                         + f" (settled at ≤ {adaptive.drift:g} {unit} over "
+                         f"{_clock_text(adaptive.window)}), at most "
+                         f"{_clock_text(longest_s - elapsed)} left"})
+            self.clock.sleep(max(0.0, min(next_read_s - elapsed, longest_s - elapsed,
+                                          WAIT_SLICE_S)))
+        soaked_s = self.clock.now() - start
+        how = "settled" if settled else "not settled by the maximum"
+        self._event("info" if settled else "warning", "soak_curve",
+                    f"soak at {temperature_c:g} degC: {how} after {soaked_s:g} s "
+                    f"({adaptive.by}, {len(curve)} readings)", point.index,
+                    {"temperature_c": temperature_c, "by": adaptive.by, "unit": unit,
+                     "settled": settled, "soak_s": soaked_s, "drift": adaptive.drift,
+                     "window_s": adaptive.window,
+                     "time_s": [c[0] for c in curve], "probe_c": [c[1] for c in curve],
+                     "value": [c[2] for c in curve]})
 
     def _apply_sources(self, point: Point) -> bool:
         """LO, RF, RF2 to the point's settings; outputs on. True if anything was sent."""
@@ -621,6 +707,25 @@ def _reading_extra(reading: Reading, level_dbm: float, loss_db: float,
         extra["risks"] = sorted(reading.risks)
         extra["predicted"] = reading.predicted.as_dict()
     return extra
+
+
+def window_spread(curve: list[tuple[float, float, float]], window_s: float) -> float | None:
+    """Spread (max − min) of the readings in the last ``window_s`` of ``curve`` ((time,
+    probe, value) rows); None until the readings cover the whole window."""
+    if not curve:
+        return None
+    last = curve[-1][0]
+    if curve[0][0] > last - window_s + 1e-9:
+        return None
+    values = [v for t, _p, v in curve if t >= last - window_s - 1e-9]
+    return max(values) - min(values)
+
+
+def is_settled(curve: list[tuple[float, float, float]], window_s: float,
+               drift: float) -> bool:
+    """True when the readings over the whole last ``window_s`` spread by at most ``drift``."""
+    spread = window_spread(curve, window_s)
+    return spread is not None and spread <= drift
 
 
 def _clock_text(seconds: float) -> str:
