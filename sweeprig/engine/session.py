@@ -36,6 +36,7 @@ from typing import Any
 
 from sweeprig.clock import Clock, VirtualClock, WallClock
 from sweeprig.engine.connect import BenchDrivers, open_bench
+from sweeprig.engine.eta import EtaTracker
 from sweeprig.engine.locks import BenchLock
 from sweeprig.engine.next_steps import next_steps
 from sweeprig.engine.runner import PointResult, RecoveryPolicy, Runner
@@ -409,7 +410,8 @@ def _execute(
     """The run itself, new or resumed (see the module docstring). ``run_lock``: the run's
     lock, already held by a resume (a new run takes its own once recorded); released here."""
     total = count_points(files.sequence)
-    predicted = estimate_duration(files.sequence, files.bench).total_s
+    estimate = estimate_duration(files.sequence, files.bench)
+    predicted = estimate.total_s
     store = SqliteRunStore(store_path, durable=not files.simulated)
     wall0 = time.monotonic()
     sim_bench = None
@@ -531,6 +533,7 @@ def _execute(
                 sequence=seq, bench=files.bench, drivers=drivers, store=store, run_id=run_id,
                 clock=clock, on_point=point_done, policy=policy,
                 log=(logger.info if logger is not None else lambda _m: None), on_wait=on_wait,
+                eta=EtaTracker(estimate, total, len(resume.done) if resume is not None else 0),
             )
             points = iter_points(seq, files.bench)
             if resume is not None:

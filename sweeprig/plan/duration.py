@@ -92,6 +92,8 @@ class DurationEstimate:
     sampled: bool = False
     notes: tuple[str, ...] = field(default=())
     soak_extra_max_s: float = 0.0
+    conditions_s: tuple[tuple[float, float], ...] = ()
+    """(temperature, degC; chamber travel + soak, s) for each temperature in run order."""
 
     @property
     def settle_s(self) -> float:
@@ -187,13 +189,15 @@ def estimate_duration(
     chamber_s = 0.0
     soak_s, soak_max_s = soak_range_s(sequence)
     extra_max_s = 0.0
+    per_condition: list[tuple[float, float]] = []
     if lay.temperatures is not None:
         current = start_temperature_c
         tolerance_c = float(sequence.conditions.temperature_tolerance)
         for t in lay.temperatures.all_values():
-            chamber_s += chamber_travel_s(current, float(t), ramp_c_per_min=ramp_c_per_min,
-                                          probe_tau_s=probe_tau_s, tolerance_c=tolerance_c)
-            chamber_s += soak_s
+            travel_s = chamber_travel_s(current, float(t), ramp_c_per_min=ramp_c_per_min,
+                                        probe_tau_s=probe_tau_s, tolerance_c=tolerance_c)
+            per_condition.append((float(t), travel_s + soak_s))
+            chamber_s += travel_s + soak_s
             extra_max_s += soak_max_s - soak_s
             current = float(t)
     supply_s = passes * settle if lay.supplies is not None else 0.0
@@ -203,7 +207,7 @@ def estimate_duration(
                   f"{format_duration(soak_s)}; up to {format_duration(extra_max_s)} more if "
                   f"every soak runs to its maximum of {format_duration(soak_max_s)}",)
     return DurationEstimate(tuple(studies), chamber_s, supply_s, any_sampled, notes,
-                            extra_max_s)
+                            extra_max_s, tuple(per_condition))
 
 
 def format_duration(seconds: float) -> str:
