@@ -8,6 +8,7 @@ from sweeprig.cli import (
     bus_cmd,
     calibrate_cmd,
     check_cmd,
+    night_cmd,
     report_cmd,
     run_cmd,
     scan_cmd,
@@ -30,6 +31,7 @@ scan_cmd.register(app)
 bus_cmd.register(app)
 report_cmd.register(app)
 calibrate_cmd.register(app)
+night_cmd.register(app)
 try:  # the simulated bench's commands (sweeprig sim ...)
     from sweeprig.cli import sim_cmd
 except ImportError:  # pragma: no cover - only while the simulator is being assembled

@@ -121,12 +121,13 @@ def run_command(
 
 
 def _drive(start: Callable[..., RunOutcome], *, quiet: bool, report: bool = True,
-           fail_on_verdict: bool = False, notify_option: str | None = None) -> None:
+           fail_on_verdict: bool = False, notify_option: str | None = None,
+           notify_each: bool = True) -> None:
     """Run ``start(on_start, on_point, on_wait)`` with a progress display; print how it ended, write
     its summary and run the notification command (checked before anything starts)."""
     console = Console(highlight=False)
     try:
-        notify = notify_command(notify_option)
+        notify = notify_command(notify_option) if notify_each else None  # a night's: once
     except SweeprigError as exc:
         print_error(exc)
         raise typer.Exit(exc.exit_code) from None

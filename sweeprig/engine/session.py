@@ -277,6 +277,23 @@ def run_sequence(
                     log_dir=log_dir, resume=None, on_wait=on_wait)
 
 
+def run_loaded(
+    files: LoadedFiles,
+    *,
+    store_path: str | Path = DEFAULT_STORE_PATH,
+    sim_description: str | Path | None = None,
+    realtime: bool = False,
+    on_start: Callable[[int, int, LoadedFiles], None] | None = None,
+    on_point: Callable[[PointResult], None] | None = None,
+    on_wait: Callable[[Mapping[str, Any]], None] | None = None,
+) -> RunOutcome:
+    """:func:`run_sequence` for files already loaded and checked (a night plan checks every
+    part before the first runs)."""
+    return _execute(files, store_path=Path(store_path), sim_description=sim_description,
+                    realtime=realtime, bus_log=False, on_start=on_start, on_point=on_point,
+                    log_dir=None, resume=None, on_wait=on_wait)
+
+
 def resume_run(
     run_id: int,
     *,
