@@ -108,3 +108,47 @@ def test_stop_on_abort_ends_the_night(tmp_path: Path, monkeypatch: pytest.Monkey
     assert result.exit_code == 1, result.output
     assert [s for _i, _s, s in _runs(tmp_path)] == ["complete", "aborted"]
     assert _summary(tmp_path)["parts"][2]["status"] == "not run"
+
+
+@pytest.mark.parametrize("delay_s", [0.0, 0.4, 1.5])
+def test_ctrl_c_during_a_night_ends_it_cleanly(tmp_path: Path, delay_s: float) -> None:
+    """SIGINT at a few moments of a three-part night (start-up, loading, the first runs):
+    no traceback, the process exits on its own and non-zero, no run is left running, and no
+    part starts after the stop."""
+    import os
+    import signal
+    import sqlite3
+    import subprocess
+    import time
+
+    from tests.support import catches_sigterm
+
+    plan = _plan(tmp_path).read_text(encoding="utf-8").replace('"by_hand"', '"none"')
+    (tmp_path / "night.toml").write_text(plan, encoding="utf-8")
+    store = tmp_path / "night.sqlite"
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "sweeprig", "night", str(tmp_path / "night.toml"), "--sim",
+         "--store", str(store), "--quiet"], stdout=subprocess.PIPE, stderr=subprocess.PIPE,
+        text=True, env={**os.environ, "COLUMNS": "200"})
+    try:
+        deadline = time.monotonic() + 60
+        while proc.poll() is None and not catches_sigterm(proc.pid):
+            assert time.monotonic() < deadline
+            time.sleep(0.001)
+        time.sleep(delay_s)
+        if proc.poll() is None:
+            proc.send_signal(signal.SIGINT)
+        out, err = proc.communicate(timeout=120)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+            proc.communicate()
+    assert "Traceback" not in out + err, out + err
+    assert proc.returncode > 0 or (proc.returncode == 0 and "night: complete" in out), (
+        proc.returncode, out, err)
+    if store.exists():
+        with sqlite3.connect(store) as db:
+            statuses = [s for (s,) in db.execute("SELECT status FROM runs ORDER BY id")]
+        assert "running" not in statuses
+        if proc.returncode != 0 and "aborted" in statuses:
+            assert statuses[-1] == "aborted"  # nothing ran after the stopped part
