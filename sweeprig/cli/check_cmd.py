@@ -284,6 +284,9 @@ def plan(
     timing.add_row("command overhead", format_duration(estimate.overhead_s))
     timing.add_row(Text("total", style="bold"), Text(format_duration(estimate.total_s),
                                                       style="bold"))
+    if estimate.soak_extra_max_s > 0:
+        timing.add_row("total if every adaptive soak runs to its maximum",
+                       format_duration(estimate.total_max_s))
     out.print(timing)
 
     ports = Table(title="Predicted maxima against the limits", title_justify="left")

@@ -16,12 +16,12 @@ from rich.progress import (
     Progress,
     TextColumn,
     TimeElapsedColumn,
-    TimeRemainingColumn,
 )
 from rich.text import Text
 
 from sweeprig.analysis.reduce import reduce_run
 from sweeprig.cli.common import fail, print_error
+from sweeprig.engine.eta import eta_text
 from sweeprig.engine.notify import (
     NOTIFY_ENV,
     RunEnd,
@@ -121,12 +121,13 @@ def run_command(
 
 
 def _drive(start: Callable[..., RunOutcome], *, quiet: bool, report: bool = True,
-           fail_on_verdict: bool = False, notify_option: str | None = None) -> None:
+           fail_on_verdict: bool = False, notify_option: str | None = None,
+           notify_each: bool = True) -> None:
     """Run ``start(on_start, on_point, on_wait)`` with a progress display; print how it ended, write
     its summary and run the notification command (checked before anything starts)."""
     console = Console(highlight=False)
     try:
-        notify = notify_command(notify_option)
+        notify = notify_command(notify_option) if notify_each else None  # a night's: once
     except SweeprigError as exc:
         print_error(exc)
         raise typer.Exit(exc.exit_code) from None
@@ -135,8 +136,7 @@ def _drive(start: Callable[..., RunOutcome], *, quiet: bool, report: bool = True
         BarColumn(),
         MofNCompleteColumn(),
         TimeElapsedColumn(),
-        TextColumn("eta"),
-        TimeRemainingColumn(),
+        TextColumn("eta {task.fields[eta]}"),
         console=console,
         disable=quiet,
         transient=False,
@@ -147,19 +147,21 @@ def _drive(start: Callable[..., RunOutcome], *, quiet: bool, report: bool = True
         where = "the simulated bench" if files.simulated else files.bench_path
         console.print(Text(f"run {run_id}: {one_line(files.sequence_path)} on {one_line(where)}, "
                            f"{total} points"))
-        state["task"] = progress.add_task(f"run {run_id}", total=total)
+        state["task"] = progress.add_task(f"run {run_id}", total=total, eta="…")
         progress.start()
 
     def point_done(result: PointResult) -> None:
         task = state.get("task")
         if task is not None:
-            progress.update(task, advance=1, description=_summary(result))  # type: ignore[arg-type]
+            progress.update(task, advance=1, description=_summary(result),  # type: ignore[arg-type]
+                            **_eta_field(result.eta))
 
     def waiting(activity: Mapping[str, Any]) -> None:
         task = state.get("task")
         if task is not None:
             label = one_line(str(activity.get("label") or activity.get("what") or "waiting"))
-            progress.update(task, description=f"waiting: {label}")  # type: ignore[arg-type]
+            progress.update(task, description=f"waiting: {label}",  # type: ignore[arg-type]
+                            **_eta_field(activity))
 
     try:
         outcome = start(started, point_done, waiting)
@@ -261,6 +263,13 @@ def _announce(console: Console, outcome: RunOutcome, made: _Made | None,
     with suppress(SweeprigError), SqliteRunStore(outcome.store_path, create=False) as db:
         db.log_event(outcome.run_id, "info" if result.ok else "warning", "notify",
                      result.message)
+
+
+def _eta_field(fields: Mapping[str, Any] | None) -> dict[str, str]:
+    """The live line's ETA: the whole run's wall time left (kept as it was when unknown)."""
+    if not fields or fields.get("eta_wall_s") is None:
+        return {}
+    return {"eta": eta_text(float(fields["eta_wall_s"]))}
 
 
 def _summary(result: PointResult) -> str:

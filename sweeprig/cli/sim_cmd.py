@@ -19,7 +19,7 @@ from rich.text import Text
 from sweeprig.cli.common import error_console, fail
 from sweeprig.clock import Clock, VirtualClock, WallClock
 from sweeprig.errors import InputError, SweeprigError
-from sweeprig.signals import active, stop_signals
+from sweeprig.signals import RunStopped, active, stop_signals
 from sweeprig.sim.bench import ROLES, SimBench, shipped_benches, start_sim_bench
 from sweeprig.sim.server import DEFAULT_MAX_CONNECTIONS, MAX_CONNECTIONS_LIMIT, is_loopback
 
@@ -135,6 +135,8 @@ def serve_command(
             _out().print("ready; press Ctrl-C to stop")
             sys.stdout.flush()
             stopped_by = _wait_for_interrupt()
+    except RunStopped as stop:  # a stop while the table or "ready" was being printed
+        stopped_by = stop.signame
     except SweeprigError as exc:
         raise _fail(exc) from None
     finally:

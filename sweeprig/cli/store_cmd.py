@@ -6,10 +6,11 @@ These only read the run store, so they work from another terminal while a run is
 from __future__ import annotations
 
 import json
-from datetime import datetime
+from collections.abc import Mapping
+from datetime import datetime, timedelta
 from enum import StrEnum
 from pathlib import Path
-from typing import Annotated
+from typing import Annotated, Any
 
 import pandas as pd
 import typer
@@ -19,6 +20,7 @@ from rich.table import Table
 from rich.text import Text
 
 from sweeprig.cli.common import fail
+from sweeprig.engine.eta import eta_text
 from sweeprig.engine.next_steps import next_steps
 from sweeprig.errors import StoreError, SweeprigError
 from sweeprig.report.tables import make_folder
@@ -179,8 +181,12 @@ def _print_status(info: RunInfo, points: pd.DataFrame, events: list, n_events: i
         lines.append(("heartbeat", f"{_when(info.heartbeat)} ({age:.0f} s ago, pid {info.pid} "
                                    f"on {info.host})"))
     if info.activity is not None and info.status == "running":
-        lines.append(("waiting", _shown(str(info.activity.get("label")
-                                            or info.activity.get("what") or "-"))))
+        if info.activity.get("what") != "measuring":
+            lines.append(("waiting", _shown(str(info.activity.get("label")
+                                                or info.activity.get("what") or "-"))))
+        eta = _eta_line(info.activity, info.heartbeat)
+        if eta is not None:
+            lines.append(("eta", eta))
     for label, text in lines:
         console.print(f"  {label:<10} {text}")
     if info.instruments:
@@ -209,6 +215,18 @@ def _print_status(info: RunInfo, points: pd.DataFrame, events: list, n_events: i
                 Text(f"    {_when(event.time)} {event.severity:<7} {event.kind}{where}: "
                      f"{one_line(event.message)}")
             )
+
+
+def _eta_line(activity: Mapping[str, Any], heartbeat: datetime | None) -> str | None:
+    """The whole run's time left as of now (from the ETA its last heartbeat carried)."""
+    value = activity.get("eta_wall_s")
+    if not isinstance(value, int | float) or heartbeat is None:
+        return None
+    left = float(value) - max((utc_now() - heartbeat).total_seconds(), 0.0)
+    ends = utc_now() + timedelta(seconds=max(left, 0.0))
+    return (f"{eta_text(left)} left for the whole run (ends about "
+            f"{ends.strftime('%Y-%m-%d %H:%M')} UTC; from the plan's prediction corrected by "
+            "the pace so far)")
 
 
 def _shown(text: object) -> str:

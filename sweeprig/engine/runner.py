@@ -43,11 +43,13 @@ import numpy as np
 
 from sweeprig.clock import Clock
 from sweeprig.engine.connect import BenchDrivers
+from sweeprig.engine.eta import EtaTracker
 from sweeprig.engine.noise_floor import NoiseFloor, estimate_noise_floor
 from sweeprig.errors import InputError, InstrumentError, TransportError
 from sweeprig.formats.bench import Bench
-from sweeprig.formats.sequence import Sequence
+from sweeprig.formats.sequence import AdaptiveSoak, Sequence
 from sweeprig.instruments import AnalyzerDriver, ChamberDriver, Driver, SourceDriver
+from sweeprig.plan.duration import soak_range_s
 from sweeprig.plan.expand import Point
 from sweeprig.plan.readings import Reading
 from sweeprig.store.base import PointRecord, ReadingRecord, RunStore, utc_now
@@ -101,6 +103,7 @@ class PointResult:
     point: Point
     readings: list[ReadingRecord]
     gain_db: float | None
+    eta: Mapping[str, float] | None = None
 
 
 @dataclass
@@ -136,8 +139,11 @@ class Runner:
         log: Callable[[str], None] = lambda _msg: None,
         policy: RecoveryPolicy | None = None,
         on_wait: Callable[[Mapping[str, Any]], None] | None = None,
+        eta: EtaTracker | None = None,
     ) -> None:
         self.sequence = sequence
+        self.eta = eta
+        self._waited_s = 0.0
         self.bench = bench
         self.d = drivers
         self.store = store
@@ -162,6 +168,8 @@ class Runner:
     def run(self, points: Iterable[Point]) -> int:
         """Measure and store every point; returns how many were stored."""
         self._prepare_with_recovery()
+        if self.eta is not None:
+            self.eta.start(self.clock.now())
         stored = 0
         for point in points:
             result = self.measure_with_recovery(point)  # its commit is the heartbeat
@@ -345,6 +353,7 @@ class Runner:
     def measure(self, point: Point) -> PointResult:
         """Apply ``point``, take its readings, commit them; return the result."""
         sim_start, wall_start = self.clock.now(), utc_now()
+        waited_before = self._waited_s
         changed = self._apply_conditions(point)
         changed |= self._apply_sources(point)
         if changed:
@@ -374,19 +383,25 @@ class Runner:
             extra={"if_freq_hz": point.if_freq_hz, "tone_spacing_hz": point.tone_spacing_hz,
                    "axis_index": dict(point.axis_index)},
         )
-        self.store.write_point(self.run_id, record, records)
+        eta: dict[str, float] | None = None
+        if self.eta is not None:
+            self.eta.point_measured(self.clock.now() - sim_start
+                                    - (self._waited_s - waited_before))
+            eta = self.eta.fields(self.clock.now())
+        self.store.write_point(self.run_id, record, records,
+                               activity=None if eta is None else {"what": "measuring", **eta})
         wanted = next((r for r in records if r.name == "wanted"), None)
         gain = None
         if wanted is not None and wanted.level_dbm is not None:
             gain = wanted.level_dbm - point.rf_power_dbm
-        return PointResult(point, records, gain)
+        return PointResult(point, records, gain, eta)
 
     # -- settings ---------------------------------------------------------------------------
 
     def _apply_conditions(self, point: Point) -> bool:
         changed = False
         if point.temperature_c is not None and point.temperature_c != self._temperature_c:
-            self._go_to_temperature(point.temperature_c)
+            self._go_to_temperature(point.temperature_c, point)
             self._temperature_c = point.temperature_c
             changed = True
         dc = self.d.dc
@@ -400,8 +415,9 @@ class Runner:
                 changed = True
         return changed
 
-    def _go_to_temperature(self, temperature_c: float) -> None:
-        """Set the chamber, wait for the DUT probe, soak. RF is off meanwhile."""
+    def _go_to_temperature(self, temperature_c: float, point: Point | None = None) -> None:
+        """Set the chamber, wait for the DUT probe, soak. RF is off while the temperature
+        moves (an adaptive soak judged by gain switches the point's RF on to read it)."""
         chamber = self.d.chamber
         if chamber is None:
             raise InputError(
@@ -415,11 +431,32 @@ class Runner:
         chamber.set_setpoint_c(temperature_c)
         self._check(chamber)
         self.log(f"chamber to {temperature_c:g} degC")
+        began = self.clock.now()
+        try:
+            self._travel_and_soak(chamber, temperature_c, point)
+        finally:
+            self._waited_s += self.clock.now() - began
+
+    def _eta(self, wait_left_s: float) -> dict[str, float]:
+        """The ETA fields of an activity, with ``wait_left_s`` left of the wait in hand."""
+        if self.eta is None:
+            return {}
+        return self.eta.fields(self.clock.now(), wait_left_s=wait_left_s)
+
+    def _travel_and_soak(self, chamber: ChamberDriver, temperature_c: float,
+                         point: Point | None) -> None:
+        if self.eta is not None:
+            self.eta.at_temperature(temperature_c)
+        shortest_soak_s = soak_range_s(self.sequence)[0]
+        condition_s = self.eta.condition_s() if self.eta is not None else 0.0
         waited = 0.0
+        eta: dict[str, float] = {}
         self._waits.restart()  # the first look is always told
         while abs((probe := chamber.probe_temperature_c()) - temperature_c) > self.tolerance_c:
+            if self._waits.due():
+                eta = self._eta(max(condition_s - waited, shortest_soak_s))
             self._waits.tell({"what": "chamber", "setpoint_c": temperature_c, "probe_c": probe,
-                           "waited_s": waited,
+                           "waited_s": waited, **eta,
                            "label": f"chamber to {temperature_c:g} °C, probe at {probe:.2f} °C "
                                     f"(tolerance ±{self.tolerance_c:g} °C)"})
             if waited >= CHAMBER_TIMEOUT_S:
@@ -432,11 +469,98 @@ class Runner:
                 )
             self.clock.sleep(CHAMBER_POLL_S)
             waited += CHAMBER_POLL_S
+        adaptive = self.sequence.conditions.adaptive_soak
+        if adaptive is not None and point is not None:
+            self.log(f"probe at {temperature_c:g} degC after {waited:g} s; soaking until "
+                     f"settled ({adaptive.by})")
+            self._adaptive_soak(chamber, temperature_c, point, adaptive)
+            return
         self.log(f"probe at {temperature_c:g} degC after {waited:g} s; soaking {self.soak_s:g} s")
         self._soak(chamber, temperature_c)
 
     def _soak(self, chamber: ChamberDriver, temperature_c: float) -> None:
-        soak(self.clock, self.soak_s, temperature_c, chamber.probe_temperature_c, self._waits)
+        soak(self.clock, self.soak_s, temperature_c, chamber.probe_temperature_c, self._waits,
+             eta=self._eta)
+
+    def _criterion(self, point: Point, by: str) -> Callable[[], float] | None:
+        """A function reading the adaptive soak's criterion at ``point`` (gain, dB, or supply
+        current, A), with what it needs switched on; None when the bench cannot read it."""
+        dc = self.d.dc
+        if dc is not None and point.supply_v is not None:
+            sent = dc.set_voltage(point.supply_v)
+            if not self._supply_on:
+                sent |= dc.set_output(True)
+                self._supply_on = True
+            if sent:
+                self._check(dc)
+        if by == "supply_current":
+            return None if dc is None else dc.measure_current_a
+        wanted = next((r for r in point.readings if r.kind == "wanted"), None)
+        if wanted is None or self.d.sa is None:
+            return None
+        if self._apply_sources(point):
+            self.clock.sleep(self.settle_s)
+
+        def gain_db() -> float:
+            record = self._read_analyzer(point, wanted)
+            return float(record.level_dbm) - point.rf_power_dbm  # type: ignore[arg-type]
+        return gain_db
+
+    def _adaptive_soak(self, chamber: ChamberDriver, temperature_c: float, point: Point,
+                       adaptive: AdaptiveSoak) -> None:
+        """Soak until the criterion's readings over the last window spread by no more than
+        the drift allowed (after the minimum, at most the maximum); store the soak curve."""
+        shortest_s, longest_s = soak_range_s(self.sequence)
+        read = self._criterion(point, adaptive.by)
+        if read is None:
+            self._event("warning", "soak", f"point {point.index} cannot read the adaptive "
+                        f"soak's criterion ({adaptive.by}); soaking the maximum "
+                        f"{longest_s:g} s", point.index)
+            soak(self.clock, longest_s, temperature_c, chamber.probe_temperature_c,
+                 self._waits, eta=self._eta)
+            return
+        start = self.clock.now()
+        curve: list[tuple[float, float, float]] = []
+        next_read_s = 0.0
+        settled = False
+        self._waits.restart()
+        unit = "dB" if adaptive.by == "gain" else "A"
+        while True:
+            elapsed = self.clock.now() - start
+            if elapsed >= next_read_s - 1e-9:
+                value = read()
+                curve.append((elapsed, chamber.probe_temperature_c(), value))
+                next_read_s += adaptive.every
+                if elapsed >= adaptive.minimum - 1e-9 and is_settled(
+                        curve, adaptive.window, adaptive.drift):
+                    settled = True
+                    break
+            if elapsed >= longest_s - 1e-9:
+                break
+            spread = window_spread(curve, adaptive.window)
+            probe = curve[-1][1]
+            eta = self._eta(max(shortest_s - elapsed, 0.0)) if self._waits.due() else {}
+            self._waits.tell({
+                "what": "soak", "setpoint_c": temperature_c, "probe_c": probe,
+                "left_s": longest_s - elapsed, "total_s": longest_s, "adaptive": True, **eta,
+                "label": f"soak at {temperature_c:g} °C until settled, probe at {probe:.2f} °C, "
+                         f"{adaptive.by} spread "
+                         + ("-" if spread is None else f"{spread:.3g} {unit}")
+                         + f" (settled at ≤ {adaptive.drift:g} {unit} over "
+                         f"{_clock_text(adaptive.window)}), at most "
+                         f"{_clock_text(longest_s - elapsed)} left"})
+            self.clock.sleep(max(0.0, min(next_read_s - elapsed, longest_s - elapsed,
+                                          WAIT_SLICE_S)))
+        soaked_s = self.clock.now() - start
+        how = "settled" if settled else "not settled by the maximum"
+        self._event("info" if settled else "warning", "soak_curve",
+                    f"soak at {temperature_c:g} degC: {how} after {soaked_s:g} s "
+                    f"({adaptive.by}, {len(curve)} readings)", point.index,
+                    {"temperature_c": temperature_c, "by": adaptive.by, "unit": unit,
+                     "settled": settled, "soak_s": soaked_s, "drift": adaptive.drift,
+                     "window_s": adaptive.window,
+                     "time_s": [c[0] for c in curve], "probe_c": [c[1] for c in curve],
+                     "value": [c[2] for c in curve]})
 
     def _apply_sources(self, point: Point) -> bool:
         """LO, RF, RF2 to the point's settings; outputs on. True if anything was sent."""
@@ -623,6 +747,25 @@ def _reading_extra(reading: Reading, level_dbm: float, loss_db: float,
     return extra
 
 
+def window_spread(curve: list[tuple[float, float, float]], window_s: float) -> float | None:
+    """Spread (max − min) of the readings in the last ``window_s`` of ``curve`` ((time,
+    probe, value) rows); None until the readings cover the whole window."""
+    if not curve:
+        return None
+    last = curve[-1][0]
+    if curve[0][0] > last - window_s + 1e-9:
+        return None
+    values = [v for t, _p, v in curve if t >= last - window_s - 1e-9]
+    return max(values) - min(values)
+
+
+def is_settled(curve: list[tuple[float, float, float]], window_s: float,
+               drift: float) -> bool:
+    """True when the readings over the whole last ``window_s`` spread by at most ``drift``."""
+    spread = window_spread(curve, window_s)
+    return spread is not None and spread <= drift
+
+
 def _clock_text(seconds: float) -> str:
     """``1:05:00`` / ``4:10`` for a duration in seconds (rounded up: never shows 0:00 early)."""
     whole = math.ceil(max(seconds, 0.0))
@@ -660,7 +803,8 @@ class WaitReporter:
 
 
 def soak(clock: Clock, seconds: float, setpoint_c: float, read_probe: Callable[[], float],
-         waits: WaitReporter) -> None:
+         waits: WaitReporter,
+         eta: Callable[[float], Mapping[str, float]] | None = None) -> None:
     """Let ``seconds`` of bench time pass at ``setpoint_c``, in slices of at most
     :data:`WAIT_SLICE_S`, telling ``waits`` (with a fresh probe reading) whenever a heartbeat
     is due: the run is seen live however long the soak, and what it waits for is shown."""
@@ -668,10 +812,12 @@ def soak(clock: Clock, seconds: float, setpoint_c: float, read_probe: Callable[[
     waits.restart()
     probe: float | None = None
     while (left := end - clock.now()) > 0:
+        fields: Mapping[str, float] = {}
         if waits.due():
             probe = read_probe()
+            fields = eta(left) if eta is not None else {}
         waits.tell({"what": "soak", "setpoint_c": setpoint_c, "probe_c": probe,
-                    "left_s": left, "total_s": seconds,
+                    "left_s": left, "total_s": seconds, **fields,
                     "label": f"soak at {setpoint_c:g} °C"
                              + (f", probe at {probe:.2f} °C" if probe is not None else "")
                              + f", {_clock_text(left)} left of {_clock_text(seconds)}"})

@@ -36,6 +36,7 @@ from typing import Any
 
 from sweeprig.clock import Clock, VirtualClock, WallClock
 from sweeprig.engine.connect import BenchDrivers, open_bench
+from sweeprig.engine.eta import EtaTracker
 from sweeprig.engine.locks import BenchLock
 from sweeprig.engine.next_steps import next_steps
 from sweeprig.engine.runner import PointResult, RecoveryPolicy, Runner
@@ -276,6 +277,23 @@ def run_sequence(
                     log_dir=log_dir, resume=None, on_wait=on_wait)
 
 
+def run_loaded(
+    files: LoadedFiles,
+    *,
+    store_path: str | Path = DEFAULT_STORE_PATH,
+    sim_description: str | Path | None = None,
+    realtime: bool = False,
+    on_start: Callable[[int, int, LoadedFiles], None] | None = None,
+    on_point: Callable[[PointResult], None] | None = None,
+    on_wait: Callable[[Mapping[str, Any]], None] | None = None,
+) -> RunOutcome:
+    """:func:`run_sequence` for files already loaded and checked (a night plan checks every
+    part before the first runs)."""
+    return _execute(files, store_path=Path(store_path), sim_description=sim_description,
+                    realtime=realtime, bus_log=False, on_start=on_start, on_point=on_point,
+                    log_dir=None, resume=None, on_wait=on_wait)
+
+
 def resume_run(
     run_id: int,
     *,
@@ -409,7 +427,8 @@ def _execute(
     """The run itself, new or resumed (see the module docstring). ``run_lock``: the run's
     lock, already held by a resume (a new run takes its own once recorded); released here."""
     total = count_points(files.sequence)
-    predicted = estimate_duration(files.sequence, files.bench).total_s
+    estimate = estimate_duration(files.sequence, files.bench)
+    predicted = estimate.total_s
     store = SqliteRunStore(store_path, durable=not files.simulated)
     wall0 = time.monotonic()
     sim_bench = None
@@ -531,6 +550,7 @@ def _execute(
                 sequence=seq, bench=files.bench, drivers=drivers, store=store, run_id=run_id,
                 clock=clock, on_point=point_done, policy=policy,
                 log=(logger.info if logger is not None else lambda _m: None), on_wait=on_wait,
+                eta=EtaTracker(estimate, total, len(resume.done) if resume is not None else 0),
             )
             points = iter_points(seq, files.bench)
             if resume is not None:

@@ -215,6 +215,40 @@ class Mixing(Frozen):
         "output stays here (studies without an lo_frequency axis)")
 
 
+class AdaptiveSoak(Frozen):
+    """End a soak once the part is thermally settled by a measured criterion.
+
+    Every ``every`` the criterion is read (the wanted output's gain at the condition's first
+    point, or the supply current); the soak ends when the readings of the last ``window``
+    spread by no more than the drift given, and at least ``minimum`` has passed; it never
+    lasts longer than ``maximum`` (default: ``conditions.soak``).
+    """
+
+    gain_drift: LevelDb | None = Field(
+        None, description="settled when the wanted output's gain varies by no more than this "
+        "over the window, dB (give this or current_drift)")
+    current_drift: Current | None = Field(
+        None, description="settled when the supply current varies by no more than this over "
+        "the window, A (give this or gain_drift)")
+    window: Time = Field(60.0, description="time over which the drift is judged")
+    minimum: Time = Field(60.0, description="shortest soak, whatever the readings say")
+    maximum: Time | None = Field(
+        None, description="longest soak; the run goes on (with a warning) when the part has "
+        "not settled by then. Default: conditions.soak")
+    every: Time = Field(15.0, description="time between two readings of the criterion")
+
+    @property
+    def by(self) -> str:
+        """``gain`` or ``supply_current``: what the criterion reads."""
+        return "gain" if self.gain_drift is not None else "supply_current"
+
+    @property
+    def drift(self) -> float:
+        """The allowed spread over the window (dB or A)."""
+        value = self.gain_drift if self.gain_drift is not None else self.current_drift
+        return float(value or 0.0)
+
+
 class Conditions(Frozen):
     """Outer conditions shared by every study: temperature and supply, and waiting times."""
 
@@ -224,7 +258,11 @@ class Conditions(Frozen):
     supply: axis("voltage") | None = Field(  # type: ignore[valid-type]
         None, description="DUT supply voltages (value, list or range). Left out: the supply "
         "is not controlled")
-    soak: Time = Field(600.0, description="wait after the DUT probe reaches a set point")
+    soak: Time = Field(600.0, description="wait after the DUT probe reaches a set point "
+                       "(with adaptive_soak: the longest soak unless it gives maximum)")
+    adaptive_soak: AdaptiveSoak | None = Field(
+        None, description="end each soak when the part is settled by a measured criterion "
+        "(see [conditions.adaptive_soak])")
     temperature_tolerance: Temperature = Field(
         1.0, description="the probe counts as at the set point within ± this many degC "
         "(write it in degC: it is a difference)")
@@ -541,6 +579,8 @@ def check_sequence(sequence: Sequence) -> None:
         (("recovery", "backoff"), sequence.recovery.backoff),
     ):
         _check_duration(sequence, path, value)
+    if cond.adaptive_soak is not None:
+        _check_adaptive_soak(sequence, cond.adaptive_soak)
     if cond.supply is not None and _axis_min(cond.supply) < 0:
         raise _problem(sequence, ("conditions", "supply"), "a supply voltage is negative",
                        "give supply voltages of 0 V or more")
@@ -581,7 +621,56 @@ def check_sequence(sequence: Sequence) -> None:
 
 #: Longest wait each duration key accepts, s: a soak of a week, a settling or reconnection
 #: wait of an hour. Longer is a typing slip (a unit), not a plan (common practice, no source).
-MAX_DURATION_S: dict[str, float] = {"soak": 7 * 86400.0, "settle": 3600.0, "backoff": 3600.0}
+MAX_DURATION_S: dict[str, float] = {
+    "soak": 7 * 86400.0, "settle": 3600.0, "backoff": 3600.0, "window": 7 * 86400.0,
+    "minimum": 7 * 86400.0, "maximum": 7 * 86400.0, "every": 3600.0,
+}
+
+
+def _check_adaptive_soak(sequence: Sequence, adaptive: AdaptiveSoak) -> None:
+    """An adaptive soak needs one criterion the bench can read and times that fit together."""
+    cond = sequence.conditions
+    base: KeyPath = ("conditions", "adaptive_soak")
+    if cond.temperature is None:
+        raise _problem(sequence, base, "adaptive_soak is given but the sequence sets no "
+                       "temperature, so there is no soak to end early",
+                       "add conditions.temperature, or remove [conditions.adaptive_soak]")
+    if (adaptive.gain_drift is None) == (adaptive.current_drift is None):
+        raise _problem(sequence, base, "adaptive_soak needs exactly one criterion: "
+                       "gain_drift or current_drift",
+                       'give e.g. gain_drift = "0.02 dB" (or current_drift = "0.2 mA")')
+    for key in ("gain_drift", "current_drift"):
+        value = getattr(adaptive, key)
+        if value is not None and not (math.isfinite(value) and value > 0):
+            raise _problem(sequence, (*base, key), f"{key} must be above 0",
+                           'give the largest spread that counts as settled, e.g. "0.02 dB"')
+    for key in ("window", "minimum", "maximum", "every"):
+        value = getattr(adaptive, key)
+        if value is not None:
+            _check_duration(sequence, (*base, key), value)
+    if adaptive.every <= 0 or adaptive.window < adaptive.every:
+        raise _problem(sequence, (*base, "window"),
+                       f"window {_duration_text(adaptive.window)} must hold at least two "
+                       f"readings taken every {_duration_text(adaptive.every)}",
+                       "make window at least as long as every (and every above 0 s)")
+    longest = cond.soak if adaptive.maximum is None else adaptive.maximum
+    if adaptive.minimum > longest:
+        raise _problem(sequence, (*base, "minimum"),
+                       f"minimum {_duration_text(adaptive.minimum)} is longer than the longest "
+                       f"soak {_duration_text(longest)}",
+                       "shorten minimum, or raise maximum (or conditions.soak)")
+    if adaptive.current_drift is not None and cond.supply is None:
+        raise _problem(sequence, (*base, "current_drift"), "current_drift needs the supply "
+                       "current, but the sequence sets no supply voltage",
+                       "add conditions.supply, or judge by gain_drift")
+    if adaptive.gain_drift is not None:
+        first = sequence.study[0]
+        if "wanted" not in {r.kind for r in first.readings()}:
+            raise _problem(sequence, (*base, "gain_drift"),
+                           f"gain_drift reads the wanted output at each condition's first "
+                           f"point, but the first study ({first.name!r}) does not read wanted",
+                           'add "wanted" to the first study\'s read list, or judge by '
+                           "current_drift")
 
 
 def _duration_text(seconds: float) -> str:

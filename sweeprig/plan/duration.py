@@ -8,6 +8,12 @@ a fixed overhead per instrument command. Per temperature: the chamber's way ther
 air, is within ``conditions.temperature_tolerance``, polled as the engine polls) plus
 ``conditions.soak``. Per supply change: one settling time.
 
+With ``[conditions.adaptive_soak]`` a soak lasts between its minimum and its maximum: the
+estimate counts each soak at its shortest possible end (the minimum, but not before the
+first full window of readings, at the next reading) — what a part that follows the probe
+takes — and says how much longer the run is if every soak runs to its maximum
+(``DurationEstimate.soak_extra_max_s``, ``total_max_s``).
+
 Sweep times depend on each point's auto analyzer settings; a study with more points than
 ``sample_limit`` is estimated from evenly spread sample points (``DurationEstimate.sampled``).
 """
@@ -85,6 +91,9 @@ class DurationEstimate:
     supply_s: float
     sampled: bool = False
     notes: tuple[str, ...] = field(default=())
+    soak_extra_max_s: float = 0.0
+    conditions_s: tuple[tuple[float, float], ...] = ()
+    """(temperature, degC; chamber travel + soak, s) for each temperature in run order."""
 
     @property
     def settle_s(self) -> float:
@@ -101,6 +110,29 @@ class DurationEstimate:
     @property
     def total_s(self) -> float:
         return sum(s.total_s for s in self.studies) + self.chamber_s + self.supply_s
+
+    @property
+    def total_max_s(self) -> float:
+        """The total if every adaptive soak runs to its maximum (= total_s without one)."""
+        return self.total_s + self.soak_extra_max_s
+
+
+def soak_range_s(sequence: Sequence) -> tuple[float, float]:
+    """(shortest, longest) time of one soak, s: both ``conditions.soak`` for a fixed soak.
+
+    An adaptive soak reads its criterion every ``every`` from its start and can end once
+    ``minimum`` has passed and the readings cover a whole ``window``: at the first reading
+    at or after both.
+    """
+    cond = sequence.conditions
+    adaptive = cond.adaptive_soak
+    if adaptive is None:
+        return float(cond.soak), float(cond.soak)
+    longest = float(cond.soak if adaptive.maximum is None else adaptive.maximum)
+    earliest = max(float(adaptive.minimum), float(adaptive.window))
+    every = float(adaptive.every)
+    shortest = math.ceil(earliest / every - 1e-9) * every if every > 0 else earliest
+    return min(shortest, longest), longest
 
 
 def estimate_duration(
@@ -155,17 +187,27 @@ def estimate_duration(
         studies.append(StudyDuration(block.study.name, block.count * passes, settle_s * scale,
                                      sweep_s * scale, overhead_s * scale, sampled))
     chamber_s = 0.0
+    soak_s, soak_max_s = soak_range_s(sequence)
+    extra_max_s = 0.0
+    per_condition: list[tuple[float, float]] = []
     if lay.temperatures is not None:
         current = start_temperature_c
         tolerance_c = float(sequence.conditions.temperature_tolerance)
         for t in lay.temperatures.all_values():
-            chamber_s += chamber_travel_s(current, float(t), ramp_c_per_min=ramp_c_per_min,
-                                          probe_tau_s=probe_tau_s, tolerance_c=tolerance_c)
-            chamber_s += sequence.conditions.soak
+            travel_s = chamber_travel_s(current, float(t), ramp_c_per_min=ramp_c_per_min,
+                                        probe_tau_s=probe_tau_s, tolerance_c=tolerance_c)
+            per_condition.append((float(t), travel_s + soak_s))
+            chamber_s += travel_s + soak_s
+            extra_max_s += soak_max_s - soak_s
             current = float(t)
     supply_s = passes * settle if lay.supplies is not None else 0.0
-    notes = ("sweep times estimated from sample points",) if any_sampled else ()
-    return DurationEstimate(tuple(studies), chamber_s, supply_s, any_sampled, notes)
+    notes: tuple[str, ...] = ("sweep times estimated from sample points",) if any_sampled else ()
+    if sequence.conditions.adaptive_soak is not None and lay.temperatures is not None:
+        notes += (f"adaptive soak: each soak counted at its shortest, "
+                  f"{format_duration(soak_s)}; up to {format_duration(extra_max_s)} more if "
+                  f"every soak runs to its maximum of {format_duration(soak_max_s)}",)
+    return DurationEstimate(tuple(studies), chamber_s, supply_s, any_sampled, notes,
+                            extra_max_s, tuple(per_condition))
 
 
 def format_duration(seconds: float) -> str:

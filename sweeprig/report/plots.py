@@ -92,7 +92,7 @@ def all_plots(run: RunFigures) -> list[Plot]:
     """Every plot the run has data for, in report order."""
     makers: tuple[Callable[[RunFigures], Plot | None], ...] = (
         gain_vs_frequency, compression_curves, two_tone_plot, gain_vs_lo_drive, spur_chart,
-        isolation_vs_frequency,
+        isolation_vs_frequency, soak_curves,
     )
     return [p for p in (make(run) for make in makers) if p is not None]
 
@@ -418,6 +418,43 @@ def isolation_vs_frequency(run: RunFigures) -> Plot | None:
                    "Isolation = drive power at its port − the leaked power at the other port "
                    "(larger is better); image rejection = gain at the wanted RF − gain at the "
                    "image; ▲: a lower bound (leakage in the noise).")
+
+
+def soak_curves(run: RunFigures) -> Plot | None:
+    """Each adaptive soak: the DUT probe temperature and the settling criterion's readings
+    (relative to the last one) against the time since the probe reached the set point."""
+    curves = [ev.details for ev in run.events
+              if ev.kind == "soak_curve" and ev.details.get("time_s")]
+    if not curves:
+        return None
+    fig, (probe_ax, value_ax) = _figure(1, 2, height_in=3.4)  # type: ignore[misc]
+    unit = ""
+    for details in curves:
+        times = np.asarray(details["time_s"], dtype=float) / 60.0
+        values = np.asarray(details["value"], dtype=float)
+        temp = float(details["temperature_c"])
+        colour = temperature_colour(temp)
+        unit = str(details.get("unit", ""))
+        scale, unit = (1e3, "mA") if unit == "A" else (1.0, unit)
+        end = "settled" if details.get("settled") else "not settled"
+        probe_ax.plot(times, details["probe_c"], marker="o", markersize=3, color=colour,
+                      label=f"{temp:g} °C ({end})")
+        value_ax.plot(times, (values - values[-1]) * scale, marker="o", markersize=3,
+                      color=colour, label=f"{temp:g} °C")
+    probe_ax.set_xlabel("time since the probe reached the set point (min)")
+    probe_ax.set_ylabel("DUT probe (°C)")
+    value_ax.set_xlabel("time since the probe reached the set point (min)")
+    by = str(curves[0].get("by", "gain"))
+    value_ax.set_ylabel(f"{'gain' if by == 'gain' else 'supply current'} − last reading "
+                        f"({unit})")
+    _legend(probe_ax)
+    _legend(value_ax)
+    return _finish(fig, "soak_curves", "Adaptive soaks",
+                   "Each soak of [conditions.adaptive_soak]: left, the DUT probe temperature; "
+                   "right, the settling criterion read during the soak, relative to its last "
+                   "reading. The soak ends when the readings over the window spread by no "
+                   "more than the drift allowed (after the minimum, at most the maximum). "
+                   "From the run's soak_curve events.")
 
 
 # -- helpers -----------------------------------------------------------------------------------

@@ -255,9 +255,11 @@ class RunStore(Protocol):
         ...
 
     def write_point(
-        self, run_id: int, point: PointRecord, readings: Sequence[ReadingRecord]
+        self, run_id: int, point: PointRecord, readings: Sequence[ReadingRecord],
+        *, activity: Mapping[str, Any] | None = None,
     ) -> None:
-        """Store a point and its readings atomically (all or nothing)."""
+        """Store a point and its readings atomically (all or nothing); ``activity`` (what
+        the run does now, e.g. its ETA) goes with the heartbeat in the same transaction."""
         ...
 
     def done_point_indices(self, run_id: int) -> set[int]:

@@ -716,9 +716,13 @@ class SqliteRunStore:
                 )
 
     def write_point(
-        self, run_id: int, point: PointRecord, readings: Sequence[ReadingRecord]
+        self, run_id: int, point: PointRecord, readings: Sequence[ReadingRecord],
+        *, activity: Mapping[str, Any] | None = None,
     ) -> None:
         """Store ``point`` and its ``readings`` in one transaction (all or nothing).
+
+        ``activity``: what the run is doing now (e.g. its ETA), written with the heartbeat
+        in the same transaction.
 
         A point index already stored for this run is a :class:`StoreError`.
         """
@@ -740,8 +744,9 @@ class SqliteRunStore:
                     fix="skip the points listed by done_point_indices() when resuming",
                 )
             # the point is the heartbeat: no separate write per point
-            conn.execute("UPDATE runs SET heartbeat_utc = ?, activity_json = NULL WHERE id = ?",
-                         (_iso(utc_now()), run_id))
+            conn.execute("UPDATE runs SET heartbeat_utc = ?, activity_json = ? WHERE id = ?",
+                         (_iso(utc_now()), None if activity is None
+                          else json.dumps(dict(activity), default=str), run_id))
             conn.execute(
                 f"INSERT INTO points (run_id, point_index, {', '.join(POINT_COLUMNS)}, "
                 "wall_start_utc, wall_end_utc, extra_json) "
@@ -800,8 +805,8 @@ class SqliteRunStore:
             self._require_run(conn, run_id)
             if status in FINAL_STATUSES:
                 conn.execute(
-                    "UPDATE runs SET status = ?, reason = ?, finished_utc = ?, heartbeat_utc = ? "
-                    "WHERE id = ?",
+                    "UPDATE runs SET status = ?, reason = ?, finished_utc = ?, heartbeat_utc = ?, "
+                    "activity_json = NULL WHERE id = ?",
                     (status, reason, now, now, run_id),
                 )
             elif status == "running":

@@ -86,5 +86,7 @@ def test_status_shows_what_a_live_run_waits_for(tmp_path: Path):
     assert "soak" in kinds
     (status_output,) = [s["output"] for s in seen if "output" in s][:1]
     assert "waiting" in status_output and "soak at 25 °C" in status_output
+    # the whole run's ETA during the soak, never "-:--:--"
+    assert "left for the whole run" in status_output and "-:--:--" not in status_output
     with SqliteRunStore(store_path, create=False) as db:
         assert db.run(1).activity is None  # measuring, then finished: nothing waited for

@@ -94,3 +94,20 @@ def test_the_prediction_is_within_10_percent_of_the_simulated_bench(tmp_path):
         points = store.points_frame(outcome.run_id)
     bench_s = float(points["sim_end_s"].max())
     assert outcome.predicted_bench_s == pytest.approx(bench_s, rel=0.10)
+
+
+def test_adaptive_soak_is_predicted_from_its_minimum_to_its_maximum() -> None:
+    """An adaptive soak counts at its shortest end (minimum, but a whole window of readings,
+    at the next reading) and the estimate says how much longer its maximum could make it."""
+    conditions = {"temperature": [25, 85], "soak": "10 min", "settle": "50 ms",
+                  "adaptive_soak": {"gain_drift": "0.02 dB", "window": "100 s",
+                                    "minimum": "1 min", "every": "30 s"}}
+    est = estimate_duration(seq({}, conditions=conditions), command_overhead_s=0.0,
+                            start_temperature_c=25.0)
+    fixed = estimate_duration(seq({}, conditions={**conditions, "adaptive_soak": None}),
+                              command_overhead_s=0.0, start_temperature_c=25.0)
+    # the window of 100 s is covered at the reading at 120 s (every 30 s): 2 x (600 - 120)
+    assert est.soak_extra_max_s == pytest.approx(2 * 480)
+    assert est.total_s == pytest.approx(fixed.total_s - 2 * 480)
+    assert est.total_max_s == pytest.approx(fixed.total_s)
+    assert any("adaptive soak" in note for note in est.notes)

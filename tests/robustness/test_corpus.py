@@ -63,7 +63,7 @@ SUPPORT = CORPUS / "_support"
 EXPECTED: dict[str, dict[str, Any]] = tomllib.loads(
     (CORPUS / "expected.toml").read_text(encoding="utf-8"))
 KINDS = ("sequences", "benches", "pathloss", "touchstone", "profiles", "parts", "simbench",
-         "calibrations")
+         "calibrations", "nights")
 ENTRIES: dict[str, tuple[str, ...]] = {
     "sequences": ("check", "run_bench", "run_sim"),
     "benches": ("check", "run"),
@@ -73,6 +73,7 @@ ENTRIES: dict[str, tuple[str, ...]] = {
     "parts": ("load_part", "run_sim_bench"),
     "simbench": ("load_sim_bench_description", "run_sim_bench"),
     "calibrations": ("run_sim",),
+    "nights": ("run_sim",),
 }
 QUICK = shipped_sequences_dir() / "demo" / "quick.toml"
 TINY = SUPPORT / "tiny-sequence.toml"
@@ -294,6 +295,8 @@ def _run_entry(kind: str, entry: str, path: Path, tmp_path: Path,
             "run", QUICK, "--bench", bench_file, *store)
     if kind == "calibrations":
         return _cli("run", QUICK, "--sim", "--calibration", path, *store)
+    if kind == "nights":
+        return _cli("night", path, "--sim", *store)
     if kind == "profiles":
         return _load(load_profile, path)
     if kind == "parts":
