@@ -17,6 +17,7 @@ from sweeprig.engine.night import (
     NightItem,
     PartEnd,
     night_status,
+    predicted_night_s,
     prepare_night,
     write_night_summary,
 )
@@ -75,9 +76,12 @@ def night_command(
     except SweeprigError as exc:
         print_error(exc)
         raise typer.Exit(exc.exit_code) from None
+    predicted_s = predicted_night_s(items)
     console.print(Text(f"night of {len(items)} part(s) from {one_line(plan)}: "
                        + ", ".join(f"{i.part.serial} ({Path(i.part.sequence).name})"
-                                   for i in items)))
+                                   for i in items)
+                       + f"; predicted bench time {format_duration(predicted_s)} without the "
+                       "part changes"))
     ends: list[PartEnd] = []
     stop_note: str | None = None
     for item in items:
@@ -102,7 +106,7 @@ def night_command(
     folder = store.parent / f"{store.name}.night-{_first_run(ends)}"
     summary: Path | None = None
     try:
-        summary = write_night_summary(folder, str(plan), ends, store)
+        summary = write_night_summary(folder, str(plan), ends, store, predicted_s)
         console.print(Text(f"  night summary: {summary}"))
     except OSError as exc:
         console.print(Text(f"  night summary not written: {exc.strerror or exc}", style="yellow"))

@@ -17,6 +17,7 @@ from pathlib import Path
 from sweeprig.engine.session import LoadedFiles, load_run_files
 from sweeprig.errors import InputError, SweeprigError
 from sweeprig.formats.night import NightPart, NightPlan, load_night
+from sweeprig.plan.duration import estimate_duration
 
 NIGHT_SUMMARY_FORMAT = 1
 
@@ -79,9 +80,17 @@ def with_serial(files: LoadedFiles, serial: str) -> LoadedFiles:
     return dataclasses.replace(files, sequence=sequence)
 
 
+def predicted_night_s(items: list[NightItem]) -> float:
+    """The night's predicted bench time, s: each part's own prediction
+    (:func:`~sweeprig.plan.duration.estimate_duration`, chamber travel from room temperature
+    included), summed; the operator's part changes are not counted."""
+    return sum(estimate_duration(i.files.sequence, i.files.bench).total_s for i in items)
+
+
 def write_night_summary(folder: Path, plan_source: str, ends: list[PartEnd],
-                        store: Path) -> Path:
-    """Write ``night-summary.json`` into ``folder``; return its path."""
+                        store: Path, predicted_s: float | None = None) -> Path:
+    """Write ``night-summary.json`` into ``folder``; return its path. ``predicted_s``: the
+    night's predicted bench time, written beside the measured one."""
     folder.mkdir(parents=True, exist_ok=True)
     document = {
         "format": NIGHT_SUMMARY_FORMAT,
@@ -89,6 +98,8 @@ def write_night_summary(folder: Path, plan_source: str, ends: list[PartEnd],
         "plan": plan_source,
         "store": str(store),
         "status": night_status(ends),
+        "bench_s": sum(end.bench_s for end in ends),
+        "predicted_bench_s": predicted_s,
         "parts": [end.__dict__ for end in ends],
     }
     path = folder / "night-summary.json"

@@ -61,6 +61,9 @@ def test_three_parts_in_one_night(tmp_path: Path) -> None:
     assert [(p["serial"], p["run_id"], p["status"]) for p in summary["parts"]] == [
         ("S011", 1, "complete"), ("S012", 2, "complete"), ("S013", 3, "complete")]
     assert "night: complete" in result.output
+    # the night's bench time as predicted before it started, within 10 % (the figure)
+    assert summary["predicted_bench_s"] == pytest.approx(summary["bench_s"], rel=0.10)
+    assert "predicted bench time" in result.output
     env = json.loads(notified.read_text(encoding="utf-8"))
     assert env["SWEEPRIG_NIGHT_STATUS"] == "complete" and env["SWEEPRIG_RUN_IDS"] == "1 2 3"
     assert env["SWEEPRIG_SUMMARY"].endswith("night-summary.json")
