@@ -5,6 +5,13 @@ A real bench file states what its analyzer and sources can do (``[analyzer]``,
 bench those figures are the sim-bench description's (:class:`AnalyzerParams`, the sources'
 harmonics): this module maps them onto the bench, so the built-in simulated bench's file is
 right for whichever description is served.
+
+A bench file states each source's harmonics *after any filter* (one level per harmonic). A
+source with a low-pass filter in the description (``[sources.lowpass]``) is stated at the
+harmonic levels that leave the filter for fundamentals from the corner / 1.25 up to the
+corner (:data:`LOWPASS_BAND_RATIO`): the Butterworth rejection of the k-th harmonic over that
+of the fundamental, ``10·log10((1 + (k·f/f_c)^(2N)) / (1 + (f/f_c)^(2N)))`` (Pozar, filter
+design chapter), rises with f, so the band's lowest fundamental is the worst case.
 """
 
 from __future__ import annotations
@@ -23,6 +30,14 @@ from sweeprig.formats.bench import (
     SourcesFigures,
 )
 from sweeprig.plan.margins import SHI_ABOVE_SOI_DB
+
+#: A harmonic low-pass is chosen with its corner a little above the highest fundamental it
+#: cleans: its stated harmonics hold for fundamentals from corner / 1.25 to the corner (common
+#: practice, no source). Further below the corner it no longer reaches the 2nd harmonic; a
+#: bench used there states its own levels.
+LOWPASS_BAND_RATIO = 1.25
+#: Lowest harmonic level a bench file accepts, dBc (sweeprig.formats.bench).
+LOWEST_STATED_DBC = -200.0
 
 
 def _phase_noise(params: Any) -> tuple[PhaseNoisePoint, ...] | None:
@@ -57,17 +72,52 @@ def sim_figures(description: Any) -> tuple[AnalyzerFigures, SourcesFigures, floa
     return analyzer, sources, float(params.noise_figure_db)
 
 
+def butterworth_rejection_db(freq_hz: float, corner_hz: float, order: int) -> float:
+    """Rejection of a Butterworth low-pass at ``freq_hz``, dB (positive):
+    10·log10(1 + (f/f_c)^(2N)) (Pozar, filter design chapter; as the simulated bench applies
+    it)."""
+    ratio = max(freq_hz, 0.0) / corner_hz
+    return 10.0 * math.log10(1.0 + ratio ** (2 * order))
+
+
+def filtered_harmonics_dbc(levels_dbc: Iterable[float], corner_hz: float,
+                           order: int) -> tuple[float, ...]:
+    """Harmonic levels (dBc, 2nd up) after a Butterworth low-pass, for fundamentals from
+    corner / :data:`LOWPASS_BAND_RATIO` up to the corner: the worst case, at the lowest."""
+    f = corner_hz / LOWPASS_BAND_RATIO
+    carrier = butterworth_rejection_db(f, corner_hz, order)
+    return tuple(
+        max(float(h) - (butterworth_rejection_db(k * f, corner_hz, order) - carrier),
+            LOWEST_STATED_DBC)
+        for k, h in enumerate(levels_dbc, start=2))
+
+
 def _harmonics(sources: Any) -> dict[str, tuple[float, ...]]:
-    """Harmonics per source role: per-role tables when the description has them, else the
-    levels shared by all three."""
+    """Harmonics per source role after its low-pass filter (when the description has one):
+    per-role tables when the description has them, else the levels shared by all three."""
     shared = tuple(float(h) for h in getattr(sources, "harmonics", ()) or ())
+    lowpass = getattr(sources, "lowpass", None)
     out: dict[str, tuple[float, ...]] = {}
     for role in SOURCE_ROLES:
         own = getattr(sources, role, None)
         levels: Iterable[float] | None = getattr(own, "harmonics", None) if own is not None \
             else None
-        out[role] = tuple(float(h) for h in levels) if levels is not None else shared
+        raw = tuple(float(h) for h in levels) if levels is not None else shared
+        filt = getattr(lowpass, role, None) if lowpass is not None else None
+        out[role] = raw if filt is None else filtered_harmonics_dbc(
+            raw, float(filt.corner), int(filt.order))
     return out
+
+
+def _filter_note(description: Any, role: str) -> str | None:
+    """A comment line naming the filter a role's stated harmonics are after, if any."""
+    lowpass = getattr(getattr(description, "sources", None), "lowpass", None)
+    filt = getattr(lowpass, role, None) if lowpass is not None else None
+    if filt is None:
+        return None
+    corner = float(filt.corner)
+    return (f"# after its low-pass (corner {corner / 1e9:g} GHz, order {filt.order}), for "
+            f"fundamentals from {corner / LOWPASS_BAND_RATIO / 1e9:.4g} to {corner / 1e9:g} GHz")
 
 
 def with_sim_figures(bench: Bench, description: Any = None) -> Bench:
@@ -88,7 +138,8 @@ def figures_toml(description: Any = None) -> str:
     """The ``[analyzer]`` and ``[sources.*]`` tables of a bench file for ``description``."""
     from sweeprig.sim.bench import resolve_description
 
-    analyzer, sources, _ = sim_figures(resolve_description(description))
+    desc = resolve_description(description)
+    analyzer, sources, _ = sim_figures(desc)
     lines = ["[analyzer]   # the simulated analyzer's own figures (first mixer, 0 dB attenuation)"]
     for key in ("toi", "soi", "p1db", "overload"):
         lines.append(f'{key} = "{getattr(analyzer, key):.4g} dBm"')
@@ -100,8 +151,10 @@ def figures_toml(description: Any = None) -> str:
         figures = getattr(sources, role)
         if figures is None or figures.harmonics is None:
             continue
-        levels = ", ".join(f'"{h:g} dBc"' for h in figures.harmonics)
+        levels = ", ".join(f'"{h:.4g} dBc"' for h in figures.harmonics)
         lines += ["", f"[sources.{role}]", f"harmonics = [{levels}]"]
+        if (note := _filter_note(desc, role)) is not None:
+            lines.append(note)
     return "\n".join(lines) + "\n"
 
 

@@ -14,7 +14,8 @@ margin of the product (the reading's *risks*, seam A of the planner and the anal
 * ``analyzer_compression``: the small-signal gain drop of the first mixer on its total input
   power, or a total above its overload level;
 * ``source_harmonic``: a source's harmonic converted by the part (or passing straight through
-  it at its isolation) onto the product's frequency;
+  it at its isolation) onto the product's frequency, by every route of
+  :func:`source_harmonic_lines` and :func:`source_harmonic_relative_dbc`;
 * ``rbw_merged``: a known line too close for the resolution filter to separate.
 
 The relations are the classic dynamic-range relations of a swept spectrum analyzer (from
@@ -269,3 +270,132 @@ def merged(lines: Sequence[Line], freq_hz: float, product_dbm: float, rbw_hz: fl
                 ln.level_dbm + skirt_db(off, rbw_hz) > product_dbm - noise_margin_db:
             return True
     return False
+
+
+# -- source harmonics ---------------------------------------------------------------------------
+#
+# Where a source's harmonics land at the part's output, and how strong they are there. The
+# frequency plan is m·f_LO + n·f_RF (an output line of LO order m and RF order n sits at
+# |m·f_LO + n·f_RF|); a source harmonic at h·f changes the part's LO or RF content at order h.
+# Levels are bounds on the safe side (the level of each route's line is at most this), each
+# derived below or marked as an assumption.
+
+#: Highest LO order through which source harmonics are followed (mxn tables read up to about
+#: order 7).
+HARMONIC_MAX_LO_ORDER = 7
+#: Input-referred second-order intercept of the part's input stage when nothing states it,
+#: dBm: pessimistic for a balanced (differential) input stage (common practice, no source).
+ASSUMED_PART_IIP2_DBM = 30.0
+
+
+@dataclass(frozen=True)
+class HarmonicTone:
+    """A source tone at the part: frequency (Hz), power (dBm at its port), its source's
+    harmonics (dBc, 2nd up) and a label."""
+
+    freq_hz: float
+    power_dbm: float
+    harmonics_dbc: tuple[float, ...]
+    label: str
+
+
+def lo_order_conversion_db(m: int, gain_db: float, even_conversion_db: float) -> float:
+    """Conversion (output line over the RF input, dB) through LO order ``m`` with a clean LO.
+
+    Odd m: the hard-switched quad's square-wave switching function has odd Fourier lines of
+    amplitude 1/m of the fundamental (square-wave Fourier series), so gain − 20·log10 m.
+    Even m (and m = 0, straight through): a balanced quad makes even lines only from its
+    asymmetry; an asymmetry that moves the switching instants by ε makes every even line
+    (DC included) about 2ε (Fourier series of a pulse train of duty cycle 1/2 + ε/π), so they
+    are as strong as the RF→IF feedthrough the part's isolation states: ``even_conversion_db``
+    (−isolation, or with no stated isolation the wanted gain or 0 dB, whichever is larger).
+    """
+    if m % 2:
+        return gain_db - 20.0 * math.log10(abs(m))
+    return even_conversion_db
+
+
+def _both_sides(m: int, n: int, f_lo_hz: float, f_hz: float) -> list[float]:
+    """|m·f_LO ± n·f| for m ≥ 0, n ≥ 1 (one line for m = 0)."""
+    if m == 0:
+        return [n * f_hz]
+    return [abs(n * f_hz - m * f_lo_hz), n * f_hz + m * f_lo_hz]
+
+
+def source_harmonic_lines(
+    f_lo_hz: float, lo_harmonics_dbc: Sequence[float], tones: Sequence[HarmonicTone],
+    gain_db: float, even_conversion_db: float, iip2_dbm: float = ASSUMED_PART_IIP2_DBM,
+    max_lo_order: int = HARMONIC_MAX_LO_ORDER,
+) -> list[Line]:
+    """Lines the sources' harmonics make at the part's output port, dBm there (absolute
+    bounds; see :func:`source_harmonic_relative_dbc` for those that only scale a line the
+    part makes anyway). With R_k the RF source's k-th harmonic (dBc) and L_h the LO's:
+
+    * **RF harmonic with the LO** (k ≥ 2, any LO order m): at |m·f_LO ± k·f_RF|, the part's
+      conversion through LO order m (:func:`lo_order_conversion_db`) of P + R_k: the harmonic
+      enters the transconductor like a tone of its own;
+    * **LO harmonic as an LO** (even h, even m including 0, RF order k ≥ 1 with R_1 = 0 dBc):
+      at |m·f_LO ± k·f_RF|, P + R_k + gain + L_h. Derivation (a bound): an LO harmonic of
+      relative amplitude a moves each zero crossing of the hard-switched LO by at most a
+      radian, an impulse train of weight ≤ 2a at twice the LO rate, whose Fourier lines are
+      ≤ a times the switching fundamental at every order of h's parity. So every even-order
+      line, the RF feedthrough (m = 0) among them, can be as strong as the wanted product
+      plus L_h. (Odd h only scales the part's own odd-order lines:
+      :func:`source_harmonic_relative_dbc`.)
+    * **harmonic with the fundamental in the input stage** (k ≥ 2): the second-order
+      product of the harmonic and the fundamental at (k + 1)·f, and for k ≥ 3 at (k − 1)·f,
+      is P + R_k + P − IIP2 (two-tone second-order product, Razavi, RF Microelectronics,
+      nonlinearity chapter), then converted through any LO order like the RF. (At f itself,
+      k = 2, it scales the part's own lines: :func:`source_harmonic_relative_dbc`.)
+    """
+    out: list[Line] = []
+
+    def add(freqs: list[float], level: float, label: str) -> None:
+        for f in freqs:
+            if f > 0 and math.isfinite(level):
+                out.append(Line(f, level, label))
+
+    even_lo = [(h, dbc) for h, dbc in enumerate(lo_harmonics_dbc, start=2) if h % 2 == 0]
+    for tone in tones:
+        p, f = tone.power_dbm, tone.freq_hz
+        orders = [(1, 0.0), *enumerate(tone.harmonics_dbc, start=2)]
+        for m in range(max_lo_order + 1):
+            conv = lo_order_conversion_db(m, gain_db, even_conversion_db)
+            for k, r_k in orders:
+                if k >= 2:
+                    add(_both_sides(m, k, f_lo_hz, f), p + r_k + conv,
+                        f"{tone.label} harmonic {k} x lo order {m}")
+                    second = p + r_k + p - iip2_dbm
+                    for n in {k + 1, k - 1} - {0, 1}:
+                        add(_both_sides(m, n, f_lo_hz, f), second + conv,
+                            f"{tone.label} harmonic {k} with its fundamental, x lo order {m}")
+                if m % 2 == 0:
+                    for h, l_h in even_lo:
+                        add(_both_sides(m, k, f_lo_hz, f), p + r_k + gain_db + l_h,
+                            f"lo harmonic {h} as lo order {m} x {tone.label} order {k}")
+    return out
+
+
+def source_harmonic_relative_dbc(
+    m: int, tone_orders: Sequence[int], lo_harmonics_dbc: Sequence[float],
+    tones: Sequence[HarmonicTone], iip2_dbm: float = ASSUMED_PART_IIP2_DBM,
+) -> float:
+    """How strong, relative to the part's own line of LO order ``m`` and RF orders
+    ``tone_orders`` (one per tone), the sources' harmonics can make a contribution that adds
+    to exactly that line, dBc (−inf: none). Two routes only scale a line the part makes:
+
+    * an odd LO harmonic h on an odd LO order m: the switching function's line m gains up to
+      a = L_h times its fundamental (the crossing bound of :func:`source_harmonic_lines`),
+      while the part's own line m is 1/m of the fundamental: L_h + 20·log10 m;
+    * the RF 2nd harmonic with its fundamental in the input stage, on a line of RF order ±1:
+      the second-order product at f is P + R_2 + P − IIP2, against the linear P: R_2 + P − IIP2
+      (Razavi, nonlinearity chapter).
+    """
+    terms: list[float] = []
+    if m % 2:
+        terms += [l_h + 20.0 * math.log10(abs(m))
+                  for h, l_h in enumerate(lo_harmonics_dbc, start=2) if h % 2]
+    for n, tone in zip(tone_orders, tones, strict=False):
+        if abs(n) == 1 and tone.harmonics_dbc:
+            terms.append(tone.harmonics_dbc[0] + tone.power_dbm - iip2_dbm)
+    return power_sum_dbm(terms)

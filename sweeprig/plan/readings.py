@@ -144,10 +144,6 @@ def power_sum_dbm(levels_dbm: list[float]) -> float:
 #: The part's noise figure when the sequence does not state one, dB (pessimistic for an
 #: active mixer; common practice, no source).
 DEFAULT_PART_NOISE_FIGURE_DB = 15.0
-#: Conversion through the LO's m-th harmonic in a hard-switched mixer: the switching
-#: waveform's odd harmonics have amplitude 1/m of the fundamental (square-wave Fourier series),
-#: so the conversion is 20·log10(m) dB weaker; even m cancel in a balanced mixer.
-LO_SWITCHING_ORDERS: tuple[int, ...] = (1, 3, 5)
 
 
 class ReadingPlanner:
@@ -305,7 +301,7 @@ class ReadingPlanner:
             for name, port, freq, orders, exp, retune in items:
                 siblings = [f for _, p, f, _, _, _ in items if p == port]
                 setup, pred = self._setup(kind, port, d, freq, exp, wanted_dbm, settings,
-                                          retune, 0.0, siblings)
+                                          retune, 0.0, siblings, orders=orders)
                 known = self._known_hz(port, retune, freq, siblings)
                 out.append(Reading(name=name, kind=kind, instrument="sa", port=port,
                                    freq_hz=freq, orders=orders, analyzer=setup,
@@ -316,7 +312,8 @@ class ReadingPlanner:
                 if repeat:
                     extra, pred10 = self._setup(kind, port, d, freq, exp, wanted_dbm,
                                                 settings, retune, ATTENUATION_CHECK_DB,
-                                                siblings, base_att=setup.attenuation_db)
+                                                siblings, base_att=setup.attenuation_db,
+                                                orders=orders)
                     out.append(Reading(name=f"{name}.att10", kind=kind, instrument="sa",
                                        port=port, freq_hz=freq, orders=orders, analyzer=extra,
                                        rf_retune_hz=retune, attenuation_check=True,
@@ -375,15 +372,31 @@ class ReadingPlanner:
                                    "other sideband"))
         return out
 
-    def _harmonic_lines(self, port: str, d: Drive, retune_hz: float | None) -> list[mg.Line]:
-        """Lines the sources' harmonics put at ``port``: an RF harmonic converted by the LO's
-        odd switching harmonics (gain − 20·log10 m) or leaking at the RF→IF isolation, an LO
-        harmonic leaking at the LO→IF (LO→RF) isolation; at the RF and LO ports the
-        harmonics as they arrive. Unknown isolation: none (the safe side)."""
+    def _harmonic_tones(self, d: Drive, retune_hz: float | None) -> list[mg.HarmonicTone]:
+        """The RF tones at the part with their sources' stated harmonics."""
         f_rf = d.rf_freq_hz if retune_hz is None else retune_hz
-        rf_tones = [(f_rf, d.rf_power_dbm, "rf")]
+        tones = [mg.HarmonicTone(f_rf, d.rf_power_dbm, tuple(self.harmonics["rf"][0]), "rf")]
         if d.rf2_freq_hz is not None and d.rf2_power_dbm is not None:
-            rf_tones.append((d.rf2_freq_hz, d.rf2_power_dbm, "rf2"))
+            tones.append(mg.HarmonicTone(d.rf2_freq_hz, d.rf2_power_dbm,
+                                         tuple(self.harmonics["rf2"][0]), "rf2"))
+        return tones
+
+    def _even_conversion_db(self) -> float:
+        """The part's conversion through an even LO order with a clean LO: as strong as its
+        stated RF→IF feedthrough; unknown isolation: the wanted gain or none, the larger
+        (the safe side; :func:`sweeprig.plan.margins.lo_order_conversion_db`)."""
+        if self.iso_rf_if is not None:
+            return -self.iso_rf_if
+        return max(self.gain_db, 0.0)
+
+    def _harmonic_lines(self, port: str, d: Drive, retune_hz: float | None) -> list[mg.Line]:
+        """Lines the sources' harmonics put at ``port``. At the IF port every route of
+        :func:`sweeprig.plan.margins.source_harmonic_lines` (an RF harmonic through any LO
+        order, an even LO harmonic acting as an LO, a harmonic with its fundamental in the
+        input stage) and an LO harmonic leaking at the LO→IF isolation; at the RF and LO ports
+        the harmonics as they arrive (an LO harmonic at the LO→RF isolation). Unknown
+        isolation: none (the safe side)."""
+        tones = self._harmonic_tones(d, retune_hz)
         conn = {"if": "if", "rf": "rf_port", "lo": "lo_port"}[port]
         loss = self.losses[conn]
         out: list[mg.Line] = []
@@ -397,19 +410,26 @@ class ReadingPlanner:
             f = k * d.lo_freq_hz
             iso = {"if": self.iso_lo_if, "rf": self.iso_lo_rf, "lo": 0.0}[port] or 0.0
             add(f, d.lo_power_dbm + h - iso, f"lo harmonic {k}")
-        for f0, p0, role in rf_tones:
-            hs, _ = self.harmonics[role]
-            for k, h in enumerate(hs, start=2):
-                fk, pk = k * f0, p0 + h
-                if port == "if":
-                    add(fk, pk - (self.iso_rf_if or 0.0), f"{role} harmonic {k}")
-                    for m in LO_SWITCHING_ORDERS:
-                        conv = pk + self.gain_db - 20.0 * math.log10(m)
-                        add(abs(fk - m * d.lo_freq_hz), conv, f"{role} harmonic {k} x lo {m}")
-                        add(fk + m * d.lo_freq_hz, conv, f"{role} harmonic {k} x lo {m}")
-                else:
-                    add(fk, pk, f"{role} harmonic {k}")
+        if port == "if":
+            for ln in mg.source_harmonic_lines(d.lo_freq_hz, tuple(lo_h), tones, self.gain_db,
+                                               self._even_conversion_db()):
+                add(ln.freq_hz, ln.level_dbm, ln.label)
+        else:
+            for tone in tones:
+                for k, h in enumerate(tone.harmonics_dbc, start=2):
+                    add(k * tone.freq_hz, tone.power_dbm + h, f"{tone.label} harmonic {k}")
         return out
+
+    def _relative_harmonic_dbc(self, port: str, d: Drive, retune_hz: float | None,
+                               orders: tuple[int, ...] | None) -> float:
+        """Source-harmonic contributions that scale the part's own line of ``orders`` at the
+        IF port, dBc of that line (:func:`sweeprig.plan.margins.source_harmonic_relative_dbc`);
+        −inf for other ports, leakage lines (no RF order) and unknown orders."""
+        if port != "if" or orders is None or not any(orders[1:]):
+            return -math.inf
+        return mg.source_harmonic_relative_dbc(
+            abs(orders[0]), orders[1:], tuple(self.harmonics["lo"][0]),
+            self._harmonic_tones(d, retune_hz))
 
     def _reference_dbm(self, kind: str, port: str, d: Drive, wanted_dbm: float) -> float:
         """Level that ``spur_floor`` counts down from, for a product of unknown level.
@@ -427,11 +447,13 @@ class ReadingPlanner:
     def _setup(self, kind: str, port: str, d: Drive, freq_hz: float,
                expected_dbm: float | None, wanted_dbm: float, s: AnalyzerSettings,
                retune_hz: float | None, extra_att_db: float, siblings_hz: list[float],
-               base_att: float | None = None) -> tuple[AnalyzerSetup, mg.Prediction]:
+               base_att: float | None = None, orders: tuple[int, ...] | None = None
+               ) -> tuple[AnalyzerSetup, mg.Prediction]:
         """Settings of one reading and what is predicted at them (module docstring).
 
         ``base_att``: for the attenuation-check repeat, the attenuation of the reading it
-        repeats (the repeat adds ``extra_att_db`` to it).
+        repeats (the repeat adds ``extra_att_db`` to it). ``orders``: the product's (LO, RF…)
+        orders, for the source-harmonic contributions that scale the part's own line.
         """
         pic = self._port(port, d, retune_hz)
         total = pic.total_dbm
@@ -459,6 +481,9 @@ class ReadingPlanner:
             pic.distortion.order[near]
         harm = [(abs(ln.freq_hz - freq_hz), ln.level_dbm) for ln in pic.harmonics
                 if abs(ln.freq_hz - freq_hz) <= reach]
+        relative = self._relative_harmonic_dbc(port, d, retune_hz, orders)
+        if math.isfinite(relative):  # on the product itself, whatever the RBW
+            harm.append((0.0, product + relative))
 
         def distortion_at(att: float, rbw: float) -> float:
             if not d_level0.size:

@@ -93,4 +93,7 @@ def test_the_demo_is_not_flagged_unpowered(runs):
     assert run.figures_named("conversion_gain")
     assert not any(UNPOWERED in f.flags for f in run.figures)
     assert not any("unpowered" in n for n in run.notes)
-    assert not any(e.kind == "preflight" for e in events)
+    # no supply warning (its RF feedthrough readings do carry the source-harmonic risk: the
+    # simulated LO's -35 dBc 2nd harmonic makes RF feedthrough as strong as the part's)
+    assert not any(e.kind == "preflight" and ("supply" in e.message or "unpowered" in e.message)
+                   for e in events)

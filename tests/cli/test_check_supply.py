@@ -46,4 +46,8 @@ def test_check_and_plan_refuse_supply_current_without_a_supply(app, tmp_path: Pa
 
 def test_check_of_the_demo_prints_no_warning(app) -> None:
     result = run(app, "check", QUICK)
-    assert result.exit_code == 0 and "warning" not in result.output
+    # no supply warning (its RF feedthrough readings carry the source-harmonic risk, true on
+    # the simulated bench: its LO's -35 dBc 2nd harmonic rivals the part's RF feedthrough)
+    warnings = [ln for ln in result.output.splitlines() if "warning" in ln]
+    assert result.exit_code == 0
+    assert not [ln for ln in warnings if "supply" in ln or "unpowered" in ln], warnings

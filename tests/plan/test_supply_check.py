@@ -80,4 +80,7 @@ def test_a_0_v_set_point_is_a_warning(bench) -> None:
 
 def test_the_demo_has_no_supply_warning(bench) -> None:
     sequence = load_sequence(ROOT / "sequences" / "demo" / "quick.toml")
-    assert check_limits(sequence, bench).warnings == []
+    # the only warning is the predicted source-harmonic contamination of its RF feedthrough
+    # readings (unfiltered -35 dBc sources; tests/plan/test_source_harmonic_routes.py)
+    warnings = check_limits(sequence, bench).warnings
+    assert [w for w in warnings if "cannot be trusted as planned" not in w] == []
