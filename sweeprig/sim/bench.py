@@ -112,6 +112,7 @@ from sweeprig.sim.instruments.supply import DcSupply
 from sweeprig.sim.instruments.switch import RfSwitch
 from sweeprig.sim.mixer import MixerPart, load_part, shipped_parts
 from sweeprig.sim.mixer.realism import LeakagePhases, seeded_leakage_phases
+from sweeprig.sim.names import BENCHES_DIR, ROLES
 from sweeprig.sim.scpi import ScpiInstrument
 from sweeprig.sim.server import DEFAULT_MAX_CONNECTIONS, ServedBench, serve
 from sweeprig.sim.world import (
@@ -125,8 +126,6 @@ from sweeprig.sim.world import (
 )
 from sweeprig.units import short_repr, shorten
 
-ROLES: tuple[str, ...] = ("rf", "rf2", "lo", "sa", "pm", "dc", "chamber", "switch", "simctl")
-BENCHES_DIR = Path(__file__).resolve().parent / "benches"
 DEFAULT_BENCH_NAME = "default"
 #: The page a sim-bench description error points to.
 SIM_BENCH_DOCS = "docs/sim-bench.md"
@@ -457,11 +456,6 @@ def _exists(path: Path) -> bool:
         return path.is_file()
     except (OSError, ValueError):
         return False
-
-
-def shipped_benches() -> list[str]:
-    """Names of the sim-bench descriptions shipped in ``sweeprig/sim/benches``."""
-    return sorted(p.stem for p in BENCHES_DIR.glob("*.toml"))
 
 
 @dataclass(frozen=True)
