@@ -308,6 +308,10 @@ def _write_tables(
 ) -> list[Path]:
     from sweeprig.report.tables import make_folder
 
+    if fmt in (ExportFormat.parquet, ExportFormat.both):
+        from sweeprig.parquet import require_parquet
+
+        require_parquet("sweeprig store export --format")
     make_folder(folder, what="export folder", option="--to")
     written: list[Path] = []
     try:
