@@ -45,9 +45,9 @@ from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
 from types import MappingProxyType
+from typing import TYPE_CHECKING
 
 import numpy as np
-import pandas as pd
 
 from sweeprig.analysis import validity
 from sweeprig.analysis.figures import (
@@ -64,6 +64,9 @@ from sweeprig.analysis.figures import (
     mask_where,
 )
 from sweeprig.errors import InputError
+
+if TYPE_CHECKING:
+    import pandas as pd
 
 POINT = "point"
 STUDY = "study"
@@ -148,6 +151,8 @@ def column_arrays(
     ``study`` keeps only the rows of that study (or those studies). Raises
     :class:`~sweeprig.errors.InputError` naming the missing or mistyped column.
     """
+    import pandas as pd
+
     if not isinstance(captures, pd.DataFrame):
         raise InputError(
             f"expected a pandas DataFrame of captures, got {type(captures).__name__}",
@@ -218,6 +223,8 @@ def line_spacing_hz(cols: Mapping[str, np.ndarray]) -> np.ndarray:
     |f_RF2 − f_RF1|: the two output tones and every intermodulation product of the pair sit
     that far from their nearest neighbour.
     """
+    import pandas as pd
+
     point = np.asarray(cols[POINT], dtype=np.int64)
     freq = np.asarray(cols[FREQ], dtype=float)
     ports = cols.get(PORT)
@@ -248,6 +255,8 @@ def line_spacing_hz(cols: Mapping[str, np.ndarray]) -> np.ndarray:
 
 def risk_mask(risks: np.ndarray, name: str) -> np.ndarray:
     """True where the comma-separated risk strings hold ``name`` (None: no prediction)."""
+    import pandas as pd
+
     values = pd.Series(np.asarray(risks, dtype=object), dtype=object)
     padded = "," + values.fillna("").astype(str) + ","
     return padded.str.contains("," + name + ",", regex=False).to_numpy(dtype=bool)
@@ -272,6 +281,8 @@ def point_table(
     attenuation test). Rows are sorted by point index. ``captures`` may also be the arrays
     of :func:`column_arrays` (already checked and filtered; ``study`` is then not applied).
     """
+    import pandas as pd
+
     cols = (
         dict(captures)
         if isinstance(captures, Mapping)
@@ -356,6 +367,8 @@ def reading_flags(table: Mapping[str, np.ndarray], name: str) -> np.ndarray:
 def _predicted_flags(
     table: Mapping[str, np.ndarray], name: str, present: np.ndarray, floor: np.ndarray
 ) -> np.ndarray:
+    import pandas as pd
+
     flags = np.zeros(present.shape, dtype=np.int64)
     rbw = np.asarray(table.get(f"{name}_rbw_hz", np.full(present.shape, np.nan)), dtype=float)
     spacing = np.asarray(table.get(f"{name}_spacing_hz", np.full(present.shape, np.inf)),
@@ -386,6 +399,8 @@ def conditions_records(
 ) -> list[Mapping[str, float | str]]:
     """Read-only condition mappings for the given rows: ``{key: value}``, NaN values left out.
     """
+    import pandas as pd
+
     rows = np.asarray(rows, dtype=np.int64)
     kept: list[tuple[str, np.ndarray]] = []
     partial = False

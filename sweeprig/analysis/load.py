@@ -48,13 +48,17 @@ from __future__ import annotations
 
 import json
 import math
+from typing import TYPE_CHECKING
 
 import numpy as np
-import pandas as pd
 
 from sweeprig.analysis.captures import CONDITION_COLUMNS
 from sweeprig.errors import StoreError
-from sweeprig.store.base import RunStore
+
+if TYPE_CHECKING:
+    import pandas as pd
+
+    from sweeprig.store.base import RunStore
 
 #: The store's reading kinds that map one-to-one onto a capture reading.
 DIRECT_KINDS: dict[str, str] = {
@@ -110,6 +114,8 @@ def captures_from_frames(
     ``wanted_orders``: (m, n) of the wanted product among ``mxn`` readings; None finds it
     from the ``wanted`` readings. Rows come out ordered by point, then reading number.
     """
+    import pandas as pd
+
     _require(points, _POINT_NEEDS, "points")
     _require(readings, _READING_NEEDS, "readings")
     if readings.empty:
@@ -241,6 +247,8 @@ def _wanted_orders(
     wanted: pd.Series, tone2: pd.Series, m: np.ndarray, n: np.ndarray
 ) -> tuple[int, int]:
     """The most common stored (m, n) of tone-1 ``wanted`` readings; (1, −1) if none."""
+    import pandas as pd
+
     rows = (wanted & ~tone2).to_numpy() & np.isfinite(m) & np.isfinite(n)
     if not rows.any():
         return DEFAULT_WANTED_ORDERS
@@ -261,6 +269,8 @@ def _require(frame: pd.DataFrame, columns: tuple[str, ...], what: str) -> None:
 
 
 def _empty() -> pd.DataFrame:
+    import pandas as pd
+
     frame = pd.DataFrame({c: pd.Series(dtype=float) for c in CAPTURE_COLUMNS})
     for col in ("study", "reading", "source_name", "kind", "port", "risks"):
         frame[col] = frame[col].astype(object)

@@ -38,19 +38,12 @@ from dataclasses import dataclass, field
 from datetime import datetime
 from pathlib import Path
 from types import MappingProxyType
+from typing import TYPE_CHECKING
 
 import numpy as np
-import pandas as pd
 
-from sweeprig import analysis as an
-from sweeprig.analysis.bench_specs import calibration_state, specs_from_bench_text
-from sweeprig.analysis.captures import CONDITION_COLUMNS
 from sweeprig.analysis.figures import SUPPLY_CURRENT_OFF, UNPOWERED, Figure, flag_points
-from sweeprig.analysis.gain import unpowered_points
-from sweeprig.analysis.isolation import supply_current_off_points
 from sweeprig.analysis.limits import INCONCLUSIVE, PASS, Assessment, Limit, Verdict, assess
-from sweeprig.analysis.load import DIRECT_KINDS, PRODUCT_SUFFIXES, captures_from_frames
-from sweeprig.analysis.uncertainty import attach_uncertainty
 from sweeprig.analysis.validity import SUPPLY_CURRENT_TOLERANCE, UNPOWERED_GAIN_MARGIN_DB
 from sweeprig.errors import SweeprigError
 from sweeprig.files import read_file_text
@@ -58,6 +51,9 @@ from sweeprig.formats.fields import axis_len
 from sweeprig.formats.sequence import Sequence, Study, load_sequence, sequence_from_dict
 from sweeprig.plan.frequencies import wanted_orders
 from sweeprig.store.base import MERGED_SEQUENCE, EventRecord, InstrumentRecord, RunFile, RunStore
+
+if TYPE_CHECKING:
+    import pandas as pd
 
 #: What a study can feed (see the module docstring).
 ROLE_GAIN = "gain"
@@ -156,6 +152,10 @@ def reduce_run(store: RunStore, run_id: int) -> RunFigures:
     limits the result (an unreadable stored sequence, a study without the readings a figure
     needs) becomes a note instead.
     """
+    from sweeprig.analysis.bench_specs import calibration_state, specs_from_bench_text
+    from sweeprig.analysis.load import captures_from_frames
+    from sweeprig.analysis.uncertainty import attach_uncertainty
+
     info = store.run(run_id)
     points = store.points_frame(run_id)
     readings = store.readings_frame(run_id)
@@ -420,6 +420,8 @@ def _figures(
     captures: pd.DataFrame, studies: tuple[StudyInfo, ...], notes: list[str]
 ) -> list[Figure]:
     """Every figure of the run, study roles deciding which analysis runs where."""
+    from sweeprig import analysis as an
+
 
     def having(role: str) -> list[str]:
         return [s.name for s in studies if role in s.roles]
@@ -461,6 +463,8 @@ def _flag_unpowered(figures: list[Figure], captures: pd.DataFrame, expected_gain
                     notes: list[str]) -> list[Figure]:
     """Flag ``unpowered`` every figure that came from a point whose conversion gain was more
     than :data:`UNPOWERED_GAIN_MARGIN_DB` below the part's expected gain, and say so."""
+    from sweeprig.analysis.gain import unpowered_points
+
     points = unpowered_points(captures, expected_gain_db)
     if points.size == 0:
         return figures
@@ -478,6 +482,8 @@ def _flag_supply_current(figures: list[Figure], captures: pd.DataFrame,
                          expected_current_a: float, notes: list[str]) -> list[Figure]:
     """Flag ``supply_current_off`` every figure that came from a point whose supply current
     was more than :data:`SUPPLY_CURRENT_TOLERANCE` away from the part's expected current."""
+    from sweeprig.analysis.isolation import supply_current_off_points
+
     points = supply_current_off_points(captures, expected_current_a)
     if points.size == 0:
         return figures
@@ -516,6 +522,8 @@ def planned_readings(study: Study) -> tuple[str, ...]:
     """The capture readings (:mod:`sweeprig.analysis.load`) a study's ``read`` list gives.
     An ``mxn`` reading gives spurs, and may stand in for the wanted output (``if``): counted
     as both, so nothing it could measure is denied."""
+    from sweeprig.analysis.load import DIRECT_KINDS, PRODUCT_SUFFIXES
+
     out: list[str] = []
     for spec in study.readings():
         if spec.kind in DIRECT_KINDS:
@@ -568,6 +576,8 @@ def _sim_duration(points: pd.DataFrame) -> float | None:
 
 def _wall_duration(created: datetime, finished: datetime | None,
                    points: pd.DataFrame) -> float | None:
+    import pandas as pd
+
     end = finished
     if end is None and not points.empty and "wall_end" in points:
         last = points["wall_end"].max()
@@ -584,6 +594,8 @@ def _distinct(series: pd.Series) -> tuple[float, ...]:
 
 def _conditions(captures: pd.DataFrame) -> Mapping[str, tuple[float, ...]]:
     """Distinct values of every condition column over the run (empty columns left out)."""
+    from sweeprig.analysis.captures import CONDITION_COLUMNS
+
     out: dict[str, tuple[float, ...]] = {}
     for column in CONDITION_COLUMNS:
         values = _distinct(captures[column]) if column in captures else ()

@@ -4,17 +4,18 @@ from __future__ import annotations
 
 from datetime import UTC, datetime
 from pathlib import Path
-from typing import Annotated
+from typing import TYPE_CHECKING, Annotated
 
-import pandas as pd
 import typer
 from rich.console import Console
 
 from sweeprig.cli.common import fail
 from sweeprig.errors import InputError, SweeprigError
 from sweeprig.store.base import DEFAULT_STORE_PATH
-from sweeprig.store.sqlite import SqliteRunStore
 from sweeprig.text import one_line
+
+if TYPE_CHECKING:
+    from sweeprig.store.sqlite import SqliteRunStore
 
 _BUS_HELP = """Print the SCPI exchanges of a run, for post-mortems: time, role, what was sent,
 what came back and how long it took. Needs a run recorded with `sweeprig run --bus-log`.
@@ -41,6 +42,8 @@ def bus_command(
     store: Annotated[Path, typer.Option(
         "--store", help="run store (SQLite file)")] = DEFAULT_STORE_PATH,
 ) -> None:
+    from sweeprig.store.sqlite import SqliteRunStore
+
     try:
         start = _time(since, "--since")
         end = _time(until, "--until")
@@ -73,6 +76,8 @@ def _time(text: str | None, option: str) -> datetime | None:
 
 
 def _point_window(db: SqliteRunStore, run_id: int, point: int) -> tuple[datetime, datetime]:
+    import pandas as pd
+
     frame = db.points_frame(run_id)
     row = frame[frame["point_index"] == point]
     if row.empty:

@@ -11,7 +11,7 @@ import time
 import xml.etree.ElementTree as ET
 from enum import StrEnum
 from pathlib import Path
-from typing import Annotated
+from typing import TYPE_CHECKING, Annotated
 
 import typer
 from rich.console import Console
@@ -21,21 +21,13 @@ from rich.text import Text
 import sweeprig
 from sweeprig.cli.common import error_console, fail, print_error
 from sweeprig.errors import SweeprigError
-from sweeprig.formats.bench import Bench, load_bench
-from sweeprig.formats.schema import json_schema_text
-from sweeprig.formats.sequence import DEFAULT_MAX_POINTS, Sequence, load_sequence
-from sweeprig.plan.duration import estimate_duration, format_duration
-from sweeprig.plan.expand import layout
-from sweeprig.plan.preflight import (
-    PreflightReport,
-    check_limits,
-    format_amount,
-    risk_refusal,
-    safety_error,
-)
-from sweeprig.plan.risks import RISK_MEANINGS, summary_lines
-from sweeprig.plan.spec_coverage import check_specs
+from sweeprig.formats.point_limit import DEFAULT_MAX_POINTS
 from sweeprig.text import one_line
+
+if TYPE_CHECKING:
+    from sweeprig.formats.bench import Bench
+    from sweeprig.formats.sequence import Sequence
+    from sweeprig.plan.preflight import PreflightReport
 
 # -- where the shipped files are --------------------------------------------------------------
 
@@ -72,6 +64,8 @@ _fail = fail
 
 
 def _load_bench_or_sim(bench: Path | None) -> tuple[Bench, str]:
+    from sweeprig.formats.bench import load_bench
+
     if bench is None:
         from sweeprig.engine.sim_specs import with_sim_figures
 
@@ -85,6 +79,10 @@ def _load_bench_or_sim(bench: Path | None) -> tuple[Bench, str]:
 def check_file(path: Path, bench: Bench, max_points: int = DEFAULT_MAX_POINTS
                ) -> tuple[Sequence, PreflightReport]:
     """Load one sequence and run the pre-flight check; raises the first problem found."""
+    from sweeprig.formats.sequence import load_sequence
+    from sweeprig.plan.preflight import check_limits, risk_refusal, safety_error
+    from sweeprig.plan.spec_coverage import check_specs
+
     sequence = load_sequence(path, max_points=max_points)
     check_specs(sequence)
     report = check_limits(sequence, bench)
@@ -129,6 +127,8 @@ def check(
     accept_calibration: Annotated[bool, typer.Option(
         "--accept-calibration", help="accept an expired calibration")] = False,
 ) -> None:
+    from sweeprig.plan.risks import summary_lines
+
     out = _out()
     try:
         loaded_bench, bench_name = _load_bench_or_sim(bench)
@@ -241,6 +241,13 @@ def plan(
     accept_calibration: Annotated[bool, typer.Option(
         "--accept-calibration", help="accept an expired calibration")] = False,
 ) -> None:
+    from sweeprig.formats.sequence import load_sequence
+    from sweeprig.plan.duration import estimate_duration, format_duration
+    from sweeprig.plan.expand import layout
+    from sweeprig.plan.preflight import check_limits, format_amount, risk_refusal, safety_error
+    from sweeprig.plan.risks import RISK_MEANINGS
+    from sweeprig.plan.spec_coverage import check_specs
+
     if bench is not None and sim:
         raise _fail(SweeprigError("--bench and --sim were both given",
                                   fix="give one of them (or neither, for the simulated bench)"))
@@ -347,6 +354,8 @@ def schema(
     which: Annotated[SchemaName, typer.Argument(help="which file format: sequence or bench",
                                                 show_default=False)],
 ) -> None:
+    from sweeprig.formats.schema import json_schema_text
+
     typer.echo(json_schema_text(which.value), nl=False)
 
 

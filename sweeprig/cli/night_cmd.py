@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import json
 from pathlib import Path
-from typing import Annotated
+from typing import TYPE_CHECKING, Annotated, Any
 
 import typer
 from rich.console import Console
@@ -13,22 +13,16 @@ from rich.text import Text
 
 from sweeprig.cli.common import print_error
 from sweeprig.cli.run_cmd import _drive
-from sweeprig.engine.night import (
-    NightItem,
-    PartEnd,
-    night_status,
-    predicted_night_s,
-    prepare_night,
-    write_night_summary,
-)
-from sweeprig.engine.notify import NOTIFY_ENV, notify_command, run_notification
-from sweeprig.engine.session import RunOutcome, run_loaded
+from sweeprig.engine.notify import NOTIFY_ENV
 from sweeprig.errors import BENCH_UNSAFE_EXIT_CODE, SweeprigError
-from sweeprig.plan.duration import format_duration
 from sweeprig.signals import active
 from sweeprig.store.base import DEFAULT_STORE_PATH
 from sweeprig.store.paths import run_folder
 from sweeprig.text import one_line
+
+if TYPE_CHECKING:
+    from sweeprig.engine.night import NightItem, PartEnd
+    from sweeprig.engine.session import RunOutcome
 
 _NIGHT_HELP = """Run several parts one after another on one bench, from a night plan file.
 
@@ -69,6 +63,15 @@ def night_command(
         f"and status in its environment; default ${NOTIFY_ENV}. Run without a shell",
         show_default=False)] = None,
 ) -> None:
+    from sweeprig.engine.night import (
+        night_status,
+        predicted_night_s,
+        prepare_night,
+        write_night_summary,
+    )
+    from sweeprig.engine.notify import notify_command, run_notification
+    from sweeprig.plan.duration import format_duration
+
     console = Console(highlight=False)
     try:
         command = notify_command(notify)
@@ -136,8 +139,17 @@ def _changed(console: Console, item: NightItem) -> bool:
     return answer.strip().lower() not in ("stop", "s", "q", "quit", "n", "no")
 
 
+def run_loaded(*args: Any, **kwargs: Any) -> RunOutcome:
+    """:func:`sweeprig.engine.session.run_loaded`, the engine loaded when a part runs."""
+    from sweeprig.engine.session import run_loaded as run
+
+    return run(*args, **kwargs)
+
+
 def _run_part(console: Console, item: NightItem, *, store: Path, sim_bench: str | None,
               quiet: bool, report: bool) -> tuple[PartEnd, int]:
+    from sweeprig.engine.night import PartEnd
+
     console.print(Text(f"part {item.index + 1}: serial {item.part.serial}", style="bold"))
     seen: dict[str, RunOutcome] = {}
 
@@ -166,6 +178,8 @@ def _run_part(console: Console, item: NightItem, *, store: Path, sim_bench: str 
 
 
 def _not_run(item: NightItem, why: str) -> PartEnd:
+    from sweeprig.engine.night import PartEnd
+
     return PartEnd(item.part.serial, item.part.sequence, None, "not run", reason=why)
 
 
@@ -175,6 +189,9 @@ def _first_run(ends: list[PartEnd]) -> str:
 
 
 def _print_night(console: Console, ends: list[PartEnd]) -> None:
+    from sweeprig.engine.night import night_status
+    from sweeprig.plan.duration import format_duration
+
     table = Table(title=f"night: {night_status(ends)}", title_justify="left")
     for column in ("part", "serial", "run", "status", "verdict", "bench time", "note"):
         table.add_column(column)

@@ -6,7 +6,7 @@ import datetime as dt
 import json
 import math
 from pathlib import Path
-from typing import Annotated
+from typing import TYPE_CHECKING, Annotated
 
 import typer
 from rich.console import Console
@@ -15,12 +15,11 @@ from rich.text import Text
 
 from sweeprig.cli.common import fail
 from sweeprig.errors import InputError, SweeprigError
-from sweeprig.instruments import make_driver
-from sweeprig.instruments.probe import CAUTIONS, ProbeReport, probe
-from sweeprig.instruments.profile import Profile, load_profile
 from sweeprig.text import one_line
-from sweeprig.transport import visa
-from sweeprig.transport.backend import choose_visa_library
+
+if TYPE_CHECKING:
+    from sweeprig.instruments.probe import ProbeReport
+    from sweeprig.instruments.profile import Profile
 
 _STYLE = {"ok": "green", "differs": "yellow", "fail": "bold red", "skipped": "dim"}
 
@@ -56,6 +55,7 @@ def run_probe(resource: str, profile_name: str, *, bench_path: Path | None = Non
     """Open ``resource``, probe it with ``profile_name`` (bench limits when a bench is
     given) and return the report. The connection is closed afterwards."""
     from sweeprig.engine.locks import BenchLock
+    from sweeprig.instruments.profile import load_profile
 
     profile = load_profile(profile_name, search_dirs=profiles_dir or [])
     bench = None
@@ -69,7 +69,11 @@ def run_probe(resource: str, profile_name: str, *, bench_path: Path | None = Non
 
 def _probe_open(resource: str, profile: Profile, bench: object, role: str | None,
                 visa_library: str | None, timeout_s: float, started: str) -> ProbeReport:
+    from sweeprig.instruments import make_driver
+    from sweeprig.instruments.probe import probe
     from sweeprig.plan.instrument_limits import bench_bounds
+    from sweeprig.transport import visa
+    from sweeprig.transport.backend import choose_visa_library
 
     transport = visa.VisaTransport(resource, visa_library=visa_library or choose_visa_library(),
                                    timeout_s=timeout_s, settings=profile.connection)
@@ -140,6 +144,8 @@ def probe_command(
 
     Example: sweeprig probe TCPIP0::192.168.1.20::5025::SOCKET --profile scpi-source
     """
+    from sweeprig.instruments.probe import CAUTIONS
+
     console = Console(highlight=False)
     for caution in CAUTIONS:
         console.print(caution)

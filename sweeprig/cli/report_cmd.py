@@ -9,7 +9,6 @@ import typer
 from rich.console import Console
 from rich.text import Text
 
-from sweeprig.analysis.reduce import reduce_run
 from sweeprig.cli.common import fail
 from sweeprig.errors import (
     VERDICT_FAILED_EXIT_CODE,
@@ -17,11 +16,8 @@ from sweeprig.errors import (
     SweeprigError,
     verdict_exit_code,
 )
-from sweeprig.report import write_report
-from sweeprig.report.terminal import print_summary
 from sweeprig.store.base import DEFAULT_STORE_PATH
 from sweeprig.store.paths import run_folder
-from sweeprig.store.sqlite import SqliteRunStore
 
 _REPORT_HELP = """Reduce a stored run to datasheet figures, judge them against the sequence's
 [[spec]] limits, and write the report.
@@ -59,6 +55,11 @@ def report_command(
         f"{VERDICT_INCONCLUSIVE_EXIT_CODE} when it is INCONCLUSIVE (0 only for PASS; for "
         "scripts and CI)")] = False,
 ) -> None:
+    from sweeprig.analysis.reduce import reduce_run
+    from sweeprig.report import write_report
+    from sweeprig.report.terminal import print_summary
+    from sweeprig.store.sqlite import SqliteRunStore
+
     console = Console(highlight=False)
     folder = out if out is not None else run_folder(store, run_id)
     try:

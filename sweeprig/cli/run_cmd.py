@@ -6,7 +6,7 @@ from collections.abc import Callable, Mapping
 from contextlib import suppress
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Annotated, Any
+from typing import TYPE_CHECKING, Annotated, Any
 
 import typer
 from rich.console import Console
@@ -19,20 +19,8 @@ from rich.progress import (
 )
 from rich.text import Text
 
-from sweeprig.analysis.reduce import reduce_run
 from sweeprig.cli.common import fail, print_error
-from sweeprig.engine.eta import eta_text
-from sweeprig.engine.notify import (
-    NOTIFY_ENV,
-    RunEnd,
-    notification_env,
-    notify_command,
-    run_notification,
-    write_summary,
-)
-from sweeprig.engine.runner import PointResult
-from sweeprig.engine.safe import SafeOutcome, make_bench_safe
-from sweeprig.engine.session import LoadedFiles, RunOutcome, resume_run, run_sequence
+from sweeprig.engine.notify import NOTIFY_ENV
 from sweeprig.errors import (
     BENCH_UNSAFE_EXIT_CODE,
     VERDICT_FAILED_EXIT_CODE,
@@ -42,17 +30,15 @@ from sweeprig.errors import (
     SweeprigError,
     verdict_exit_code,
 )
-from sweeprig.formats.bench import load_bench
-from sweeprig.instruments import available_profiles
-from sweeprig.plan.duration import format_duration
-from sweeprig.report import write_report
-from sweeprig.report.terminal import print_summary
 from sweeprig.signals import RunStopped, active
 from sweeprig.store.base import DEFAULT_STORE_PATH
 from sweeprig.store.paths import run_folder
-from sweeprig.store.sqlite import SqliteRunStore
 from sweeprig.text import escape_controls, one_line
-from sweeprig.transport.backend import visa_library_override
+
+if TYPE_CHECKING:
+    from sweeprig.engine.runner import PointResult
+    from sweeprig.engine.safe import SafeOutcome
+    from sweeprig.engine.session import RunOutcome
 
 _RUN_HELP = """Run a sequence file on a bench, unattended, storing every point as it is taken.
 
@@ -72,6 +58,13 @@ Examples:
 
   sweeprig run my-part.toml --bench bench3.toml --store results/lot7.sqlite
 """
+
+
+def run_sequence(*args: Any, **kwargs: Any) -> RunOutcome:
+    """:func:`sweeprig.engine.session.run_sequence`, the engine loaded when a run starts."""
+    from sweeprig.engine.session import run_sequence as run
+
+    return run(*args, **kwargs)
 
 
 def run_command(
@@ -112,6 +105,8 @@ def run_command(
         "--accept-calibration", help="use the calibration even when it has expired or was "
         "made with other instruments (recorded as a warning with the run)")] = False,
 ) -> None:
+    from sweeprig.transport.backend import visa_library_override
+
     with visa_library_override(visa_library):
         _drive(lambda started, point_done, waiting: run_sequence(
             sequence, bench, sim=sim, sim_description=sim_bench, store_path=store,
@@ -125,6 +120,9 @@ def _drive(start: Callable[..., RunOutcome], *, quiet: bool, report: bool = True
            notify_each: bool = True) -> None:
     """Run ``start(on_start, on_point, on_wait)`` with a progress display; print how it ended, write
     its summary and run the notification command (checked before anything starts)."""
+    from sweeprig.engine.notify import notify_command
+    from sweeprig.engine.session import LoadedFiles
+
     console = Console(highlight=False)
     try:
         notify = notify_command(notify_option) if notify_each else None  # a night's: once
@@ -223,6 +221,11 @@ def _report(console: Console, outcome: RunOutcome) -> _Made | None:
 
     A problem here is reported but does not change how the run ended.
     """
+    from sweeprig.analysis.reduce import reduce_run
+    from sweeprig.report import write_report
+    from sweeprig.report.terminal import print_summary
+    from sweeprig.store.sqlite import SqliteRunStore
+
     folder = run_folder(outcome.store_path, outcome.run_id)
     try:
         with SqliteRunStore(outcome.store_path, create=False) as db:
@@ -243,6 +246,9 @@ def _announce(console: Console, outcome: RunOutcome, made: _Made | None,
 
     Neither changes how the run ended: a problem is printed and recorded as an event.
     """
+    from sweeprig.engine.notify import RunEnd, notification_env, run_notification, write_summary
+    from sweeprig.store.sqlite import SqliteRunStore
+
     end = RunEnd(
         run_id=outcome.run_id, status=outcome.status, reason=outcome.reason,
         points_done=outcome.points_done, points_total=outcome.points_total,
@@ -267,6 +273,8 @@ def _announce(console: Console, outcome: RunOutcome, made: _Made | None,
 
 def _eta_field(fields: Mapping[str, Any] | None) -> dict[str, str]:
     """The live line's ETA: the whole run's wall time left (kept as it was when unknown)."""
+    from sweeprig.engine.eta import eta_text
+
     if not fields or fields.get("eta_wall_s") is None:
         return {}
     return {"eta": eta_text(float(fields["eta_wall_s"]))}
@@ -300,6 +308,8 @@ def print_unsafe(console: Console, safe: SafeOutcome) -> None:
 
 
 def _print_outcome(console: Console, outcome: RunOutcome) -> None:
+    from sweeprig.plan.duration import format_duration
+
     colour = "green" if outcome.status == "complete" else "red"
     reason = outcome.reason
     if outcome.safe is not None and not outcome.safe.ok and reason:
@@ -375,6 +385,9 @@ def resume_command(
         "$SWEEPRIG_VISA_LIBRARY and the bench file's named backend (@py or @ivi)",
         show_default=False)] = None,
 ) -> None:
+    from sweeprig.engine.session import resume_run
+    from sweeprig.transport.backend import visa_library_override
+
     with visa_library_override(visa_library):
         _drive(lambda started, point_done, waiting: resume_run(
             run_id, store_path=store, accept_changes=accept_changes, sim_description=sim_bench,
@@ -409,6 +422,11 @@ def safe_command(
         "$SWEEPRIG_VISA_LIBRARY and the bench file's named backend (@py or @ivi)",
         show_default=False)] = None,
 ) -> None:
+    from sweeprig.engine.safe import make_bench_safe
+    from sweeprig.formats.bench import load_bench
+    from sweeprig.instruments import available_profiles
+    from sweeprig.transport.backend import visa_library_override
+
     console = Console(highlight=False)
     try:
         loaded = load_bench(bench, known_profiles=available_profiles())

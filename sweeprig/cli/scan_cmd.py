@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Annotated
+from typing import TYPE_CHECKING, Annotated, Any
 
 import typer
 from rich.console import Console
@@ -12,10 +12,10 @@ from rich.table import Table
 from rich.text import Text
 
 from sweeprig.errors import SweeprigError
-from sweeprig.instruments.profile import Profile, load_all_profiles, matching_profiles
 from sweeprig.text import one_line
-from sweeprig.transport import visa
-from sweeprig.transport.backend import choose_visa_library
+
+if TYPE_CHECKING:
+    from sweeprig.instruments.profile import Profile
 
 
 @dataclass(frozen=True)
@@ -37,6 +37,9 @@ def identify_resource(
     resource_manager: object | None = None,
 ) -> ScanResult:
     """Open ``resource``, ask ``*IDN?`` (the only command sent) and match the profiles."""
+    from sweeprig.instruments.profile import matching_profiles
+    from sweeprig.transport import visa
+
     try:
         transport = visa.VisaTransport(
             resource,
@@ -94,6 +97,10 @@ def scan_command(
 
     Example: sweeprig scan --no-discover -r TCPIP0::127.0.0.1::5025::SOCKET
     """
+    from sweeprig.instruments.profile import load_all_profiles
+    from sweeprig.transport import visa
+    from sweeprig.transport.backend import choose_visa_library
+
     console = Console(highlight=False)
     errors = Console(stderr=True, highlight=False)
     visa_library = visa_library or choose_visa_library()
@@ -145,3 +152,12 @@ def scan_command(
 def register(app: typer.Typer) -> None:
     """Add ``scan`` to the root app."""
     app.command("scan")(scan_command)
+
+
+def __getattr__(name: str) -> Any:
+    """``visa`` (:mod:`sweeprig.transport.visa`) is loaded on first use, not at start-up."""
+    if name == "visa":
+        from sweeprig.transport import visa
+
+        return visa
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")

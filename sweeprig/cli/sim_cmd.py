@@ -10,7 +10,7 @@ import logging
 import sys
 import time
 from pathlib import Path
-from typing import Annotated
+from typing import TYPE_CHECKING, Annotated, Any
 
 import typer
 from rich.console import Console
@@ -20,8 +20,15 @@ from sweeprig.cli.common import error_console, fail
 from sweeprig.clock import Clock, VirtualClock, WallClock
 from sweeprig.errors import InputError, SweeprigError
 from sweeprig.signals import RunStopped, active, stop_signals
-from sweeprig.sim.bench import ROLES, SimBench, shipped_benches, start_sim_bench
-from sweeprig.sim.server import DEFAULT_MAX_CONNECTIONS, MAX_CONNECTIONS_LIMIT, is_loopback
+from sweeprig.sim.names import (
+    DEFAULT_MAX_CONNECTIONS,
+    MAX_CONNECTIONS_LIMIT,
+    ROLES,
+    shipped_benches,
+)
+
+if TYPE_CHECKING:
+    from sweeprig.sim.bench import SimBench
 
 app = typer.Typer(
     name="sim",
@@ -113,6 +120,8 @@ def serve_command(
       sweeprig sim serve --write-bench served.toml   (then, in another terminal:
       sweeprig run sequences/demo/quick.toml --bench served.toml)
     """
+    from sweeprig.sim.server import is_loopback
+
     remote = not is_loopback(host)
     if remote:
         _err().print(Text(
@@ -142,6 +151,13 @@ def serve_command(
     finally:
         bench.close()
     _out().print("simulated bench stopped" + (f" ({stopped_by})" if stopped_by else ""))
+
+
+def start_sim_bench(description: Any, **kwargs: Any) -> SimBench:
+    """:func:`sweeprig.sim.bench.start_sim_bench`, the simulator loaded when it is served."""
+    from sweeprig.sim.bench import start_sim_bench as start
+
+    return start(description, **kwargs)
 
 
 def _print_resources(bench: SimBench, realtime: bool) -> None:

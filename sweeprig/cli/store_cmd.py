@@ -10,9 +10,8 @@ from collections.abc import Mapping
 from datetime import datetime, timedelta
 from enum import StrEnum
 from pathlib import Path
-from typing import Annotated, Any
+from typing import TYPE_CHECKING, Annotated, Any
 
-import pandas as pd
 import typer
 from rich.console import Console
 from rich.markup import escape as markup_escape
@@ -20,13 +19,14 @@ from rich.table import Table
 from rich.text import Text
 
 from sweeprig.cli.common import fail
-from sweeprig.engine.eta import eta_text
-from sweeprig.engine.next_steps import next_steps
 from sweeprig.errors import StoreError, SweeprigError
-from sweeprig.report.tables import make_folder
 from sweeprig.store.base import DEFAULT_STORE_PATH, RunInfo, utc_now
-from sweeprig.store.sqlite import SqliteRunStore
 from sweeprig.text import escape_controls, one_line
+
+if TYPE_CHECKING:
+    import pandas as pd
+
+    from sweeprig.store.sqlite import SqliteRunStore
 
 StoreOption = Annotated[
     Path,
@@ -51,6 +51,8 @@ _fail = fail
 
 
 def _open(path: Path) -> SqliteRunStore:
+    from sweeprig.store.sqlite import SqliteRunStore
+
     return SqliteRunStore(path, create=False)
 
 
@@ -134,6 +136,8 @@ def status_command(
 
     Example: sweeprig status 3 --store results/sweeprig.sqlite
     """
+    from sweeprig.engine.next_steps import next_steps
+
     try:
         with _open(store) as db:
             info = db.run(run_id)
@@ -149,6 +153,8 @@ def status_command(
 
 
 def _print_status(info: RunInfo, points: pd.DataFrame, events: list, n_events: int) -> None:
+    import pandas as pd
+
     console = Console(highlight=False)
     style = _STATUS_STYLE.get(info.status, "white")
     status = f"[{style}]{info.status}[/]"
@@ -219,6 +225,8 @@ def _print_status(info: RunInfo, points: pd.DataFrame, events: list, n_events: i
 
 def _eta_line(activity: Mapping[str, Any], heartbeat: datetime | None) -> str | None:
     """The whole run's time left as of now (from the ETA its last heartbeat carried)."""
+    from sweeprig.engine.eta import eta_text
+
     value = activity.get("eta_wall_s")
     if not isinstance(value, int | float) or heartbeat is None:
         return None
@@ -274,6 +282,8 @@ def export_command(
 
 
 def _events_frame(db: SqliteRunStore, run_id: int) -> pd.DataFrame:
+    import pandas as pd
+
     rows = [
         {
             "time": e.time,
@@ -296,6 +306,12 @@ def _events_frame(db: SqliteRunStore, run_id: int) -> pd.DataFrame:
 def _write_tables(
     info: RunInfo, tables: dict[str, pd.DataFrame], folder: Path, fmt: ExportFormat
 ) -> list[Path]:
+    from sweeprig.report.tables import make_folder
+
+    if fmt in (ExportFormat.parquet, ExportFormat.both):
+        from sweeprig.parquet import require_parquet
+
+        require_parquet("sweeprig store export --format")
     make_folder(folder, what="export folder", option="--to")
     written: list[Path] = []
     try:

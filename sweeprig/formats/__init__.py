@@ -2,10 +2,33 @@
 
 Entry points: :func:`load_sequence`, :func:`load_bench`; JSON Schemas in
 :mod:`sweeprig.formats.schema`.
+
+The names below are loaded on first use, so that a command importing one light module of this
+package (``sweeprig --help``) does not load the file models.
 """
 
-from sweeprig.formats.bench import Bench, load_bench
-from sweeprig.formats.sequence import DEFAULT_MAX_POINTS, Sequence, load_sequence, required_roles
+from __future__ import annotations
+
+import importlib
+from typing import TYPE_CHECKING, Any
+
+if TYPE_CHECKING:
+    from sweeprig.formats.bench import Bench, load_bench
+    from sweeprig.formats.sequence import (
+        DEFAULT_MAX_POINTS,
+        Sequence,
+        load_sequence,
+        required_roles,
+    )
+
+_WHERE = {
+    "DEFAULT_MAX_POINTS": "sweeprig.formats.sequence",
+    "Bench": "sweeprig.formats.bench",
+    "Sequence": "sweeprig.formats.sequence",
+    "load_bench": "sweeprig.formats.bench",
+    "load_sequence": "sweeprig.formats.sequence",
+    "required_roles": "sweeprig.formats.sequence",
+}
 
 __all__ = [
     "DEFAULT_MAX_POINTS",
@@ -15,3 +38,12 @@ __all__ = [
     "load_sequence",
     "required_roles",
 ]
+
+
+def __getattr__(name: str) -> Any:
+    module = _WHERE.get(name)
+    if module is None:
+        raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+    value = getattr(importlib.import_module(module), name)
+    globals()[name] = value
+    return value

@@ -35,11 +35,9 @@ from sweeprig.formats.fields import (
     axis_len,
 )
 from sweeprig.formats.loading import load_document, validate
+from sweeprig.formats.point_limit import DEFAULT_MAX_POINTS
 from sweeprig.formats.toml_locate import KeyPath, format_key_path
 from sweeprig.units import parse_quantity
-
-#: Refuse sequences that expand to more points than this (override per call).
-DEFAULT_MAX_POINTS = 10_000_000
 
 #: Sweep axes a study may give, in the default nesting order (outermost first: slow first).
 STUDY_AXES: tuple[str, ...] = (

@@ -540,9 +540,16 @@ TABLE_FORMATS: tuple[str, ...] = ("csv", "parquet")
 
 
 def write_tables(
-    run: RunFigures, folder: Path, formats: Sequence[str] = TABLE_FORMATS
+    run: RunFigures, folder: Path, formats: Sequence[str] | None = None
 ) -> list[Path]:
-    """Write ``captures`` and ``figures`` as CSV and/or Parquet into ``folder``."""
+    """Write ``captures`` and ``figures`` as CSV and/or Parquet into ``folder`` (by default
+    :data:`TABLE_FORMATS`, Parquet left out when pyarrow, the ``parquet`` extra, is missing)."""
+    from sweeprig.parquet import parquet_available, require_parquet
+
+    if formats is None:
+        formats = [f for f in TABLE_FORMATS if f != "parquet" or parquet_available()]
+    elif "parquet" in formats:
+        require_parquet(str(folder))
     tables = {"captures": run.captures, "figures": figures_frame(run)}
     written: list[Path] = []
     for name, frame in tables.items():

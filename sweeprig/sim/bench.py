@@ -87,7 +87,7 @@ import os
 from dataclasses import dataclass, replace
 from pathlib import Path
 from types import TracebackType
-from typing import Annotated, Any
+from typing import TYPE_CHECKING, Annotated, Any
 
 import numpy as np
 from pydantic import BeforeValidator, Discriminator, Field, Tag, field_validator
@@ -99,34 +99,17 @@ from sweeprig.formats.fields import Frozen, StrictBool, quantity
 from sweeprig.formats.loading import Document, display_path, load_document, validate
 from sweeprig.sim.analyzer_display import DEFAULT_PHASE_NOISE, AnalyzerParams
 from sweeprig.sim.faults import FaultPlan, FaultSpec
-from sweeprig.sim.instruments.analyzer import SpectrumAnalyzer
-from sweeprig.sim.instruments.chamber import ThermalChamber
-from sweeprig.sim.instruments.powermeter import PowerMeter
-from sweeprig.sim.instruments.simctl import SimControl
-from sweeprig.sim.instruments.source import (
-    SignalSource,
-    no_level_error_db,
-    scaled_level_error,
-)
-from sweeprig.sim.instruments.supply import DcSupply
-from sweeprig.sim.instruments.switch import RfSwitch
-from sweeprig.sim.mixer import MixerPart, load_part, shipped_parts
-from sweeprig.sim.mixer.realism import LeakagePhases, seeded_leakage_phases
-from sweeprig.sim.scpi import ScpiInstrument
-from sweeprig.sim.server import DEFAULT_MAX_CONNECTIONS, ServedBench, serve
-from sweeprig.sim.world import (
-    CableLoss,
-    Cabling,
-    DeadMixer,
-    LowPassFilter,
-    MixerModel,
-    SimWorld,
-    WorldConfig,
-)
+from sweeprig.sim.names import BENCHES_DIR, DEFAULT_MAX_CONNECTIONS, ROLES, shipped_parts
+from sweeprig.sim.names import shipped_benches as shipped_benches
 from sweeprig.units import short_repr, shorten
 
-ROLES: tuple[str, ...] = ("rf", "rf2", "lo", "sa", "pm", "dc", "chamber", "switch", "simctl")
-BENCHES_DIR = Path(__file__).resolve().parent / "benches"
+if TYPE_CHECKING:
+    from sweeprig.sim.instruments.analyzer import SpectrumAnalyzer
+    from sweeprig.sim.mixer.realism import LeakagePhases
+    from sweeprig.sim.scpi import ScpiInstrument
+    from sweeprig.sim.server import ServedBench
+    from sweeprig.sim.world import CableLoss, MixerModel, SimWorld, WorldConfig
+
 DEFAULT_BENCH_NAME = "default"
 #: The page a sim-bench description error points to.
 SIM_BENCH_DOCS = "docs/sim-bench.md"
@@ -159,6 +142,8 @@ CableSpec = Annotated[
 
 
 def _cable(spec: CableSpec) -> CableLoss:
+    from sweeprig.sim.world import CableLoss
+
     if isinstance(spec, SqrtCableSpec):
         return CableLoss(spec.loss, spec.at)
     return CableLoss(float(spec))
@@ -355,6 +340,8 @@ class SimBenchDescription(Frozen):
         return faults
 
     def world_config(self) -> WorldConfig:
+        from sweeprig.sim.world import Cabling, DeadMixer, LowPassFilter, WorldConfig
+
         c, u = self.cables, self.dut.unpowered
 
         def cable(name: str, spec: CableSpec, k: int) -> CableLoss:
@@ -391,6 +378,8 @@ class SimBenchDescription(Frozen):
     def leakage_phases(self) -> LeakagePhases:
         """The part's leakage-path phases: seeded by ``seed`` (``dut.leakage_phase``), or
         every path in phase with its source."""
+        from sweeprig.sim.mixer.realism import LeakagePhases, seeded_leakage_phases
+
         if not self.dut.leakage_phase:
             return LeakagePhases()
         return seeded_leakage_phases(self.seed, self.dut.leakage_delay)
@@ -459,11 +448,6 @@ def _exists(path: Path) -> bool:
         return False
 
 
-def shipped_benches() -> list[str]:
-    """Names of the sim-bench descriptions shipped in ``sweeprig/sim/benches``."""
-    return sorted(p.stem for p in BENCHES_DIR.glob("*.toml"))
-
-
 @dataclass(frozen=True)
 class SimInstruments:
     """The instruments of a simulated bench around their world, not yet served."""
@@ -484,6 +468,15 @@ def build_sim_instruments(
 
     ``part`` replaces the description's part (tests use a stand-in mixer).
     """
+    from sweeprig.sim.instruments.analyzer import SpectrumAnalyzer
+    from sweeprig.sim.instruments.chamber import ThermalChamber
+    from sweeprig.sim.instruments.powermeter import PowerMeter
+    from sweeprig.sim.instruments.simctl import SimControl
+    from sweeprig.sim.instruments.source import SignalSource, no_level_error_db, scaled_level_error
+    from sweeprig.sim.instruments.supply import DcSupply
+    from sweeprig.sim.instruments.switch import RfSwitch
+    from sweeprig.sim.world import SimWorld
+
     desc = resolve_description(description)
     clock = clock if clock is not None else VirtualClock()
     model = part if part is not None else prepare_part(desc)
@@ -590,6 +583,8 @@ def start_sim_bench(
     non-loopback ``host`` (the simulator has no authentication). ``max_connections``:
     clients each instrument serves at once (one more is refused).
     """
+    from sweeprig.sim.server import serve
+
     parts = build_sim_instruments(description, clock=clock, part=part)
     served = serve(parts.instruments, host=host, ports=ports,
                    faults=parts.description.fault_plan(), allow_remote=allow_remote,
@@ -611,6 +606,8 @@ def _unknown_part(name: str, doc: Document) -> InputError:
 
 def prepare_part(desc: SimBenchDescription) -> Any:
     """The description's part as it sits on this bench (its leakage phases seeded)."""
+    from sweeprig.sim.mixer import MixerPart
+
     model = _load_part(desc.part)
     if isinstance(model, MixerPart):
         model = model.with_changes(leakage_phases=desc.leakage_phases())
@@ -618,6 +615,8 @@ def prepare_part(desc: SimBenchDescription) -> Any:
 
 
 def _load_part(name_or_path: str) -> Any:
+    from sweeprig.sim.mixer import load_part
+
     try:
         return load_part(name_or_path)
     except InputError as exc:

@@ -39,6 +39,7 @@ from types import TracebackType
 
 from sweeprig.errors import InputError
 from sweeprig.sim.faults import FaultInjector, FaultPlan, garble
+from sweeprig.sim.names import DEFAULT_MAX_CONNECTIONS, MAX_CONNECTIONS_LIMIT
 from sweeprig.sim.scpi.instrument import ScpiInstrument
 
 log = logging.getLogger(__name__)
@@ -46,9 +47,6 @@ log = logging.getLogger(__name__)
 #: Longest accepted program message, bytes; a longer line is discarded with −102.
 MAX_LINE_BYTES = 1 << 20
 _ACCEPT_POLL_S = 0.1
-#: Clients one instrument serves at once by default; one more is refused.
-DEFAULT_MAX_CONNECTIONS = 16
-MAX_CONNECTIONS_LIMIT = 4096
 #: Pending connections the kernel queues for accept(). A short queue is what limited the
 #: server to about 18 new connections a second: a burst overflowed it, and a connection
 #: whose SYN is dropped retries only after 1 s.

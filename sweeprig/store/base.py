@@ -16,9 +16,10 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from pathlib import Path
-from typing import Any, Literal, Protocol, runtime_checkable
+from typing import TYPE_CHECKING, Any, Literal, Protocol, runtime_checkable
 
-import pandas as pd
+if TYPE_CHECKING:  # pandas is imported where frames are made, not by the commands that start
+    import pandas as pd
 
 DEFAULT_STORE_PATH = Path("results") / "sweeprig.sqlite"
 """Where runs are stored unless ``--store`` says otherwise (relative to the current folder)."""

@@ -41,9 +41,7 @@ from contextlib import contextmanager, suppress
 from datetime import UTC, datetime
 from pathlib import Path
 from types import MappingProxyType
-from typing import Any
-
-import pandas as pd
+from typing import TYPE_CHECKING, Any
 
 from sweeprig.errors import StoreError
 from sweeprig.signals import deferred
@@ -65,6 +63,9 @@ from sweeprig.store.base import (
     utc_now,
 )
 from sweeprig.store.runlock import run_lock_held
+
+if TYPE_CHECKING:
+    import pandas as pd
 
 SCHEMA_VERSION = 3
 """2: run status ``unsafe`` allowed; 3: table ``run_files`` (included fragments and the merged
@@ -970,6 +971,8 @@ class SqliteRunStore:
         (NaN where not used), ``wall_start``/``wall_end`` (UTC), ``extra_json``."""
         columns = ["run_id", "point_index", *POINT_COLUMNS, "wall_start", "wall_end",
                    "extra_json"]
+        import pandas as pd
+
         rows = self._read(
             f"SELECT run_id, point_index, {', '.join(POINT_COLUMNS)}, wall_start_utc, "
             "wall_end_utc, extra_json FROM points WHERE run_id = ? ORDER BY point_index",
@@ -991,6 +994,8 @@ class SqliteRunStore:
         nullable boolean."""
         columns = ["run_id", "point_index", "reading_no", *READING_COLUMNS, "overload",
                    "attenuation_check", "extra_json"]
+        import pandas as pd
+
         rows = self._read(
             f"SELECT run_id, point_index, reading_no, {', '.join(READING_COLUMNS)}, overload, "
             "attenuation_check, extra_json FROM readings WHERE run_id = ? "

@@ -72,8 +72,8 @@ def test_quick_sequence_on_the_simulated_bench_stores_every_point_once(tmp_path)
     assert {i.role for i in info.instruments} >= {"rf", "lo", "sa", "dc", "chamber"}
     assert all("Tarnwick" in i.idn or "Kelderhall" in i.idn for i in info.instruments)
     assert outcome.safe is not None and outcome.safe.ok
-    assert outcome.sim_elapsed_s > 60.0  # the chamber soak passed in simulated time only
-    assert outcome.wall_elapsed_s < 60.0
+    # the chamber soak passed in simulated time only (wall time: tests/perf/test_perf_run_sim.py)
+    assert outcome.sim_elapsed_s > 60.0
 
 
 def test_run_on_a_served_bench_leaves_rf_and_supply_off(tmp_path, sim_bench):

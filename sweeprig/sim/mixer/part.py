@@ -110,9 +110,10 @@ from sweeprig.sim.mixer.realism import (
     switch_overlap_fraction,
 )
 from sweeprig.sim.mixer.types import MixerResponse, OperatingPoint, Product, ToneInput
+from sweeprig.sim.names import PARTS_DIR
+from sweeprig.sim.names import shipped_parts as shipped_parts
 from sweeprig.units import example, parse_quantity
 
-PARTS_DIR = Path(__file__).resolve().parent.parent / "parts"
 MAX_RF_TONES = 3
 _CACHE_LIMIT = 256
 _AMP_BUCKET_DB = 1.0
@@ -909,11 +910,6 @@ def part_from_file_model(model: PartFile, source: str = "") -> MixerPart:
         floor_dbm=model.model.floor,
         source=source,
     )
-
-
-def shipped_parts() -> list[str]:
-    """Names of the parts shipped in ``sweeprig/sim/parts`` (file stems)."""
-    return sorted(p.stem for p in PARTS_DIR.glob("*.toml"))
 
 
 def _resolve(path_or_name: str | os.PathLike[str]) -> Path:

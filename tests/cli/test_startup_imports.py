@@ -1,0 +1,77 @@
+"""Start-up imports only what a command needs: the command line, ``--help`` and ``check`` load
+neither pandas, matplotlib, scipy, pyarrow nor the simulator's model, instruments and servers;
+and a command whose module cannot be imported fails the whole command line loudly instead of
+vanishing from it. An import-set check in a fresh interpreter, not a timing (the start-up
+times are printed by ``pytest -m perf tests/perf/test_perf_startup.py``)."""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parents[2]
+QUICK = ROOT / "sequences" / "demo" / "quick.toml"
+
+#: Libraries no start-up path may load.
+HEAVY = ("pandas", "matplotlib", "scipy", "pyarrow", "skrf")
+#: The simulator proper. ``sweeprig.sim.names`` (the roles and shipped names the help lists)
+#: is light; ``check`` on the built-in simulated bench also reads the sim-bench description
+#: (``sweeprig.sim.bench`` with ``faults`` and ``analyzer_display``) to state its figures.
+SIMULATOR = ("sweeprig.sim.mixer", "sweeprig.sim.world", "sweeprig.sim.server",
+             "sweeprig.sim.instruments", "sweeprig.sim.scpi", "sweeprig.sim.truth")
+
+_PROBE = """
+import json, sys
+def loaded():
+    return sorted(m for m in sys.modules if m.split('.')[0] in {heavy} or
+                  any(m == s or m.startswith(s + '.') for s in {sim}))
+import sweeprig.cli.main as main
+after_import = loaded()
+sim_after_import = sorted(m for m in sys.modules if m.startswith('sweeprig.sim'))
+import typer.main
+group = typer.main.get_command(main.app)
+ctx = group.make_context('sweeprig', ['check', {quick!r}], resilient_parsing=True)
+command = group.get_command(ctx, 'check')
+command.make_context('check', [{quick!r}], parent=ctx)
+name = command.name
+after_resolve = loaded()
+try:
+    main.app(['check', {quick!r}], prog_name='sweeprig', standalone_mode=False)
+    code = 0
+except SystemExit as exc:
+    code = exc.code
+after_check = loaded()
+print(json.dumps(dict(name=name, code=code, after_import=after_import,
+                      sim_after_import=sim_after_import, after_resolve=after_resolve,
+                      after_check=after_check)))
+"""
+
+
+def _probe() -> dict:
+    code = _PROBE.format(heavy=set(HEAVY), sim=SIMULATOR, quick=str(QUICK))
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                          cwd=ROOT, timeout=120, check=False)
+    assert done.returncode == 0, done.stderr
+    return json.loads(done.stdout.strip().splitlines()[-1])
+
+
+def test_the_command_line_and_check_load_no_heavy_library_nor_the_simulator() -> None:
+    seen = _probe()
+    assert seen["name"] == "check"
+    assert seen["code"] in (0, None)
+    assert seen["after_import"] == []
+    assert seen["after_resolve"] == []
+    assert seen["after_check"] == []
+    # --help lists the sim commands from the light names module only
+    assert set(seen["sim_after_import"]) <= {"sweeprig.sim", "sweeprig.sim.names"}
+
+
+def test_a_command_module_that_fails_to_import_fails_the_command_line() -> None:
+    code = ("import sys; sys.modules['sweeprig.cli.report_cmd'] = None\n"
+            "import sweeprig.cli.main")
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                          cwd=ROOT, timeout=120, check=False)
+    assert done.returncode != 0
+    assert "report_cmd" in done.stderr

@@ -1,0 +1,59 @@
+"""Benchmark: how fast the command starts and how much memory it takes.
+
+Prints, for ``sweeprig --help`` and ``sweeprig check sequences/demo/quick.toml`` (each run
+three times in a fresh process, median shown), the wall time and the peak resident memory of
+the process, beside the figures issue 14 sets (``--help`` ≤ 0.3 s, ``check`` ≤ 0.8 s, both
+≤ 60 MB; measured on a quiet machine). Nothing is asserted about the times: a loaded machine
+would fail it. Which modules start-up loads is pinned by tests/cli/test_startup_imports.py.
+
+Run with ``pytest -m perf -s tests/perf/test_perf_startup.py``.
+"""
+
+from __future__ import annotations
+
+import os
+import statistics
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import pytest
+
+ROOT = Path(__file__).resolve().parents[2]
+QUICK = ROOT / "sequences" / "demo" / "quick.toml"
+RUNS = 3
+
+#: (what, arguments, target wall time s, target peak resident MB)
+CASES = (
+    ("sweeprig --help", ["--help"], 0.3, 60.0),
+    ("sweeprig check sequences/demo/quick.toml", ["check", str(QUICK)], 0.8, 60.0),
+)
+
+
+def _once(args: list[str]) -> tuple[float, float]:
+    """Wall time (s) and peak resident memory (MB) of one ``sweeprig`` process."""
+    command = [sys.executable, "-m", "sweeprig", *args]
+    start = time.perf_counter()
+    process = subprocess.Popen(command, cwd=ROOT, stdout=subprocess.DEVNULL,
+                               stderr=subprocess.PIPE)
+    _, status, usage = os.wait4(process.pid, 0)
+    wall_s = time.perf_counter() - start
+    process.returncode = os.waitstatus_to_exitcode(status)
+    stderr = process.stderr.read().decode(errors="replace") if process.stderr else ""
+    if process.stderr:
+        process.stderr.close()
+    assert process.returncode == 0, stderr
+    return wall_s, usage.ru_maxrss / 1024.0  # Linux: kilobytes
+
+
+@pytest.mark.perf
+def test_print_start_up_time_and_memory() -> None:
+    print()
+    for what, args, target_s, target_mb in CASES:
+        runs = [_once(args) for _ in range(RUNS)]
+        wall_s = statistics.median(r[0] for r in runs)
+        peak_mb = statistics.median(r[1] for r in runs)
+        print(f"{what}: {wall_s:.3f} s (target ≤ {target_s} s, {wall_s / target_s:.2f}× the "
+              f"target), {peak_mb:.0f} MB peak resident (target ≤ {target_mb:.0f} MB, "
+              f"{peak_mb / target_mb:.2f}×); median of {RUNS}")
