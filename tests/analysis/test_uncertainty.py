@@ -29,6 +29,7 @@ from sweeprig.analysis.uncertainty import (
     mismatch_half_width_db,
     mismatch_limits_db,
     noise_bias_db,
+    noise_scatter_db,
     standard_uncertainty,
     uncertainty_text,
 )
@@ -120,6 +121,74 @@ def test_noise_raises_a_product_by_the_power_sum():
     assert noise_bias_db(math.nan) == 0.0
 
 
+def test_noise_scatter_agrees_with_a_monte_carlo_of_a_sine_in_complex_gaussian_noise():
+    # numpy Monte Carlo of the envelope |A + n| (n circular complex Gaussian, E|n|² = 1,
+    # A² = ρ) read in dB: its standard deviation against the small-noise expansion
+    # (20/ln 10)·sqrt(1/(2ρ)) (derived in noise_scatter_db's docstring).
+    rng = np.random.default_rng(2417)
+    draws = 200_000
+    noise = (rng.standard_normal(draws) + 1j * rng.standard_normal(draws)) / math.sqrt(2.0)
+    for snr_db, rel in ((10.0, 0.03), (15.0, 0.03), (20.0, 0.03), (30.0, 0.03), (40.0, 0.03),
+                        (3.0, 0.07), (6.0, 0.07)):
+        rho = 10.0 ** (snr_db / 10.0)
+        simulated = float(np.std(20.0 * np.log10(np.abs(math.sqrt(rho) + noise))))
+        # the displayed level holds the noise power as well: it reads 10·log10(ρ + 1) above it
+        stated = noise_scatter_db(10.0 * math.log10(rho + 1.0))
+        assert stated == pytest.approx(simulated, rel=rel), snr_db
+        # averaging N sweeps: the mean of N independent readings, σ/√N (JCGM 100:2008 4.2.3)
+        four = 20.0 * np.log10(np.abs(math.sqrt(rho) + noise[: draws // 4 * 4])).reshape(-1, 4)
+        assert noise_scatter_db(10.0 * math.log10(rho + 1.0), 4) == pytest.approx(
+            float(np.std(four.mean(axis=1))), rel=rel + 0.02), snr_db
+    # Noise alone (A = 0): |n|² ~ Exp(1), std of its log (10/ln 10)·π/√6 = 5.57 dB (standard
+    # result), the ceiling where the expansion no longer holds; it bounds the Monte Carlo.
+    alone = float(np.std(20.0 * np.log10(np.abs(noise))))
+    assert noise_scatter_db(-3.0) == pytest.approx(alone, rel=0.01)
+    for snr_db in (0.0, 1.0, 2.0):
+        rho = 10.0 ** (snr_db / 10.0)
+        simulated = float(np.std(20.0 * np.log10(np.abs(math.sqrt(rho) + noise))))
+        assert simulated <= noise_scatter_db(10.0 * math.log10(rho + 1.0)) <= alone + 0.05
+    assert noise_scatter_db(math.nan) == 0.0 and noise_scatter_db(400.0) == 0.0
+
+
+def test_noise_scatter_is_counted_once():
+    # A single reading takes the scatter with the figure's sensitivity; a fitted figure's
+    # Type A fit term already holds the scatter of its points, so it does not take it again.
+    rows = []
+    for i, x in enumerate(np.arange(-30.0, -18.0, 2.0)):
+        rows.append((i, "if", x, x + 12.0 + 0.02 * (-1) ** i, -100.0))
+        rows.append((i, "im3_low", x, 3 * x + 20.0 + 0.1 * (-1) ** i, -100.0))
+    levels = PointLevels.from_captures(_captures(rows))
+    fitted = figure_budget(Figure("iip3_low", -4.0, "dBm", points=tuple(range(6))), levels,
+                           InstrumentSpecs())
+    single = figure_budget(Figure("iip3_point_low", -4.0, "dBm", points=(0,)), levels,
+                           InstrumentSpecs())
+    assert fitted is not None and single is not None
+    assert "noise_scatter" not in {c.name for c in fitted.contributions}
+    (term,) = [c for c in single.contributions if c.name == "noise_scatter"]
+    assert term.sensitivity == -0.5  # IIP3 = P_in + (P_fund − P_IM3)/2
+    assert term.standard_db == pytest.approx(noise_scatter_db(3 * -30.0 + 20.0 + 0.1 + 100.0))
+
+
+def test_each_spur_takes_its_own_readings_noise_and_averages():
+    # Several m×n spurs share a point: each figure's noise is its own reading's.
+    captures = _captures([(0, "if", -20.0, -8.0, -100.0), (0, "spur", -20.0, -60.0, -100.0),
+                          (0, "spur", -20.0, -95.0, -100.0)])
+    captures["m"] = [np.nan, 1.0, 2.0]
+    captures["n"] = [np.nan, 0.0, -1.0]
+    captures["averages"] = pd.array([1, 1, 16], dtype="Int64")
+    levels = PointLevels.from_captures(captures)
+    strong = figure_budget(Figure("spur_dbc", -52.0, "dBc", conditions={"m": 1, "n": 0},
+                                  points=(0,)), levels, InstrumentSpecs())
+    weak = figure_budget(Figure("spur_dbc", -87.0, "dBc", conditions={"m": 2, "n": -1},
+                                points=(0,)), levels, InstrumentSpecs())
+    assert strong is not None and weak is not None
+    (s,) = [c for c in strong.contributions if c.name == "noise_scatter"]
+    (w,) = [c for c in weak.contributions if c.name == "noise_scatter"]
+    assert "SNR 40.0 dB" in s.what and s.standard_db == pytest.approx(noise_scatter_db(40.0))
+    assert "SNR 5.0 dB, 16 sweeps" in w.what
+    assert w.standard_db == pytest.approx(noise_scatter_db(5.0) / 4.0)
+
+
 # ---------------------------------------------------------------------------------------------
 # fits
 
@@ -162,14 +231,15 @@ def test_conversion_gain_budget_uncalibrated_and_calibrated():
     assert budget is not None
     names = {c.name: c for c in budget.contributions}
     assert set(names) == {"input_level", "input_mismatch", "analyzer_absolute", "output_path",
-                          "output_mismatch", "noise"}
+                          "output_mismatch", "noise", "noise_scatter"}
+    assert names["noise_scatter"].kind == "A" and names["noise_scatter"].sensitivity == 1.0
     assert names["input_level"].sensitivity == -1.0  # G = P_IF − P_RF
     assert names["analyzer_absolute"].sensitivity == 1.0
     assert names["input_level"].origin == ASSUMED
     assert "SNR 90.0 dB" in names["noise"].what
     u_mm = mismatch_half_width_db(0.05, 0.2) / math.sqrt(2)
     by_hand = math.sqrt((1.0 ** 2 + 0.5 ** 2 + 0.3 ** 2) / 3 + 2 * u_mm ** 2
-                        + (noise_bias_db(90.0) / math.sqrt(3)) ** 2)
+                        + (noise_bias_db(90.0) / math.sqrt(3)) ** 2 + noise_scatter_db(90.0) ** 2)
     assert budget.expanded_db == pytest.approx(2 * by_hand)
 
     # Only the connections the gain went through count: rf in, if out.
