@@ -300,6 +300,9 @@ class _Model:
     linearity_c: float = 0.0
     noise_reading: str | None = None
     noise_c: float = 0.0
+    #: Further readings whose noise matters, with their sensitivities (a difference of two
+    #: products: both of them).
+    noise_also: tuple[tuple[str, float], ...] = ()
     fit: str | None = None
     order: int = 0
     product: str | None = None
@@ -327,7 +330,8 @@ def _models() -> dict[str, _Model]:
         "image_rejection": _Model(linearity_c=1.0, noise_reading="image", noise_c=1.0),
         "im3_low": _Model(linearity_c=1.0, noise_reading="im3_low", noise_c=1.0),
         "im3_high": _Model(linearity_c=1.0, noise_reading="im3_high", noise_c=1.0),
-        "im3_asymmetry": _Model(linearity_c=math.sqrt(2.0)),
+        "im3_asymmetry": _Model(linearity_c=math.sqrt(2.0), noise_reading="im3_high",
+                                noise_c=1.0, noise_also=(("im3_low", -1.0),)),
         "spur_dbc": _Model(linearity_c=1.0, noise_reading="spur", noise_c=1.0),
         "spur_dbm": _Model(output_c=1.0, noise_reading="spur", noise_c=1.0),
         "lo_if_isolation": _Model(1.0, -1.0, noise_reading="lo_at_if", noise_c=-1.0,
@@ -440,6 +444,11 @@ class PointLevels:
 
 def _spur_key(m: float, n: float) -> str:
     return f"spur.{int(m)}x{int(n)}"
+
+
+def _plain(reading: str) -> str:
+    """A reading's name as budgets state it (an m×n spur: "spur")."""
+    return "spur" if reading.startswith("spur.") else reading
 
 
 def _noise_reading(model: _Model, figure: Figure) -> str | None:
@@ -557,13 +566,14 @@ def figure_budget(figure: Figure, levels: PointLevels, specs: InstrumentSpecs,
         return None
     terms = _level_terms(model, specs, cal)
     pts = [int(p) for p in figure.points]
-    reading = _noise_reading(model, figure)
-    if reading is not None and model.noise_c:
+    noisy = [(r, c) for r, c in [(_noise_reading(model, figure), model.noise_c),
+                                  *model.noise_also] if r is not None and c]
+    for reading, c in noisy:
         snr = levels.min_snr_db(pts, reading)
         if math.isfinite(snr):
-            terms.append(Contribution("noise", f"analyzer noise under {model.noise_reading} "
+            terms.append(Contribution("noise", f"analyzer noise under {_plain(reading)} "
                                       f"(lowest SNR {snr:.1f} dB)", noise_bias_db(snr),
-                                      "rectangular", model.noise_c, "B",
+                                      "rectangular", c, "B",
                                       "measured noise floor; one-sided bias taken as "
                                       "rectangular (common practice, no source)"))
     fit_terms: list[Contribution] = []
@@ -587,15 +597,15 @@ def figure_budget(figure: Figure, levels: PointLevels, specs: InstrumentSpecs,
     elif model.fit == "compression":
         terms += _compression_terms(figure, levels, specs, small_signal_u)
     terms += fit_terms
-    if reading is not None and model.noise_c and not fit_terms:
+    for reading, c in noisy if not fit_terms else ():
         # A fit's own Type A term is the observed scatter of its points, this one included:
-        # only a figure without one (a single reading, or too few points) takes it here.
+        # only a figure without one (single readings, or too few points) takes it here.
         worst = levels.worst_scatter(pts, reading)
         if worst is not None and worst[0] > 0.0:
             sigma, snr, avg = worst
-            c = model.relative_c or model.noise_c  # flatness: two readings, √2
+            c = model.relative_c or c  # flatness: two readings of the gain, √2
             terms.append(Contribution(
-                "noise_scatter", f"scatter of one reading of {model.noise_reading} in the "
+                "noise_scatter", f"scatter of one reading of {_plain(reading)} in the "
                 f"analyzer noise (SNR {snr:.1f} dB, {avg} sweep{'s' if avg > 1 else ''}): "
                 "(20/ln 10)·sqrt(1/(2ρ))/√averages", sigma, "standard", c, "A",
                 "measured level and noise floor; small-noise expansion of 20·log10|A + n|"))

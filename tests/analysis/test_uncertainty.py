@@ -195,6 +195,23 @@ def test_each_spur_takes_its_own_readings_noise_and_averages():
     assert w.standard_db == pytest.approx(noise_scatter_db(5.0) / 4.0)
 
 
+def test_the_im3_asymmetry_takes_the_noise_of_both_products():
+    # IM3_high − IM3_low: each product's reading scatters on its own, sensitivities ±1.
+    levels = PointLevels.from_captures(_captures([
+        (0, "if", -35.0, -23.0, -100.0), (0, "im3_low", -35.0, -88.0, -100.0),
+        (0, "im3_high", -35.0, -82.0, -100.0)]))
+    budget = figure_budget(Figure("im3_asymmetry", 6.0, "dB", points=(0,)), levels,
+                           InstrumentSpecs())
+    assert budget is not None
+    scatter = {c.what.split(" in the")[0]: c for c in budget.contributions
+               if c.name == "noise_scatter"}
+    assert scatter["scatter of one reading of im3_high"].sensitivity == 1.0
+    assert scatter["scatter of one reading of im3_low"].sensitivity == -1.0
+    assert scatter["scatter of one reading of im3_low"].standard_db == pytest.approx(
+        noise_scatter_db(12.0))
+    assert len([c for c in budget.contributions if c.name == "noise"]) == 2
+
+
 # ---------------------------------------------------------------------------------------------
 # fits
 
