@@ -36,8 +36,9 @@ Columns taken over as they are: the point's settings (``temperature_c`` ... ``rf
 set points at the DUT port planes), and per reading ``freq_hz``, ``level_dbm`` and
 ``noise_floor_dbm`` (already referred to the DUT port planes by the engine), ``overload``
 and ``attenuation_db``. Kept for tracing a figure back to the store: ``reading_no``,
-``source_name`` (the store's reading name), ``kind``, ``port``, ``rbw_hz`` and the point's
-``probe_temperature_c``. ``risks``: the planner's predicted risks of the reading
+``source_name`` (the store's reading name), ``kind``, ``port``, ``rbw_hz``, ``averages``
+(sweeps averaged, NaN where not stored; the noise scatter of the uncertainty budgets) and
+the point's ``probe_temperature_c``. ``risks``: the planner's predicted risks of the reading
 (``extra_json`` ``risks``, joined by commas, ``""`` for none predicted), None where the
 store holds no prediction (a store written before predictions: never read as "no risk").
 The wanted product's (m, n) is found from the ``wanted`` readings' stored multipliers
@@ -85,7 +86,7 @@ DEFAULT_WANTED_ORDERS = (1, -1)
 CAPTURE_COLUMNS: tuple[str, ...] = (
     "point", "study", *CONDITION_COLUMNS, "reading", "freq_hz", "level_dbm", "noise_floor_dbm",
     "m", "n", "overload", "atten_check", "attenuation_db", "value", "reading_no", "source_name",
-    "kind", "port", "rbw_hz", "probe_temperature_c", "risks",
+    "kind", "port", "rbw_hz", "averages", "probe_temperature_c", "risks",
 )
 
 _POINT_NEEDS = ("point_index", "study", *CONDITION_COLUMNS)
@@ -167,6 +168,9 @@ def captures_from_frames(
         "port": rows["port"].astype(str).to_numpy(dtype=object),
         "rbw_hz": (rows["rbw_hz"].to_numpy(dtype=float, na_value=np.nan)
                    if "rbw_hz" in rows else np.full(len(rows), np.nan)),
+        "averages": (pd.to_numeric(rows["averages"], errors="coerce")
+                     .to_numpy(dtype=float, na_value=np.nan)
+                     if "averages" in rows else np.full(len(rows), np.nan)),
     })
     settings = points.set_index("point_index")
     missing = ~out["point"].isin(settings.index)

@@ -32,6 +32,12 @@ are the constants of those sums. The terms of a budget (:func:`figure_budget`):
 * **noise**: a product read a few dB above the analyzer's noise is raised by the noise power,
   by at most 10·log10(1 + 10^(−SNR/10)) dB (power addition of uncorrelated signals);
   one-sided, taken as rectangular of that half-width (common practice, no source).
+* **noise scatter** (Type A, per reading): one log-detected reading of a sine in noise
+  scatters about its mean (:func:`noise_scatter_db`), by (20/ln 10)·sqrt(1/(2ρ)) dB at a
+  signal-to-noise power ratio ρ, divided by √(averages). A single-point figure takes it with
+  the figure's sensitivity coefficient to that reading; a fitted figure does not: its fit
+  term is the observed scatter of its points, which already holds this one (counting both
+  would count it twice), unless the fit has too few points for a term of its own.
 * **fit**: for fitted figures, the regression's own standard uncertainty (Type A): the
   standard error of each constrained line's offset, s/√N, propagated to the intercept; for
   P_xdB, the standard error of the small-signal gain divided by the local slope of the
@@ -45,7 +51,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Iterable, Mapping, Sequence
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 from typing import Literal
 
 import numpy as np
@@ -97,6 +103,44 @@ def mismatch_half_width_db(gamma_source: float, gamma_load: float) -> float:
     dB: the lower one is the larger; using it is the safe side)."""
     low, high = mismatch_limits_db(gamma_source, gamma_load)
     return max(-low, high)
+
+
+#: The standard deviation of one log-detected reading of noise alone, dB: the power of a
+#: Rayleigh envelope is exponentially distributed, and for E ~ Exp(1) std[ln E] = π/√6
+#: (standard result for the log of an exponential variate), so (10/ln 10)·π/√6 = 5.57 dB.
+#: The scatter of |A + n| in dB falls from it as A grows: the ceiling of
+#: :func:`noise_scatter_db`.
+LOG_NOISE_STD_DB = 10.0 / math.log(10.0) * math.pi / math.sqrt(6.0)
+
+
+def noise_scatter_db(snr_db: float, averages: int | None = 1) -> float:
+    """The standard deviation (dB) of one displayed reading of a sine read ``snr_db`` above
+    the analyzer's noise (level − noise floor, both as displayed, dB), averaged over
+    ``averages`` sweeps.
+
+    Derivation (small-noise expansion). The detector sees the envelope |A + n| of the sine's
+    phasor A (real, power A²) and the complex Gaussian noise n in the resolution bandwidth,
+    E|n|² = N, so Re n ~ N(0, N/2). With ρ = A²/N ≫ 1,
+
+        20·log10|A + n| = 20·log10 A + (20/ln 10)·ln|1 + n/A|
+                        ≈ 20·log10 A + (20/ln 10)·Re(n)/A        (ln|1 + z| ≈ Re z),
+
+    so the reading scatters by σ = (20/ln 10)·sqrt(N/2)/A = (20/ln 10)·sqrt(1/(2ρ)) dB; the
+    quadrature part Im(n) changes |A + n| only to second order. A mean of ``averages``
+    independent sweeps scatters by σ/√averages (JCGM 100:2008 4.2.3). The displayed level
+    holds the noise power too, so ρ = 10^(SNR/10) − 1 (the signal's power alone over the
+    noise's). Within 3 % of a Monte Carlo of |A + n| from 10 dB up, within 7 % from 3 dB;
+    below that the expansion fails and the scatter tends to that of noise alone,
+    :data:`LOG_NOISE_STD_DB`, which is the ceiling here (the Monte Carlo in
+    tests/analysis/test_uncertainty.py). NaN SNR: 0 (no floor recorded, nothing to say).
+    """
+    if math.isnan(snr_db) or snr_db == math.inf:
+        return 0.0
+    n = max(1, int(averages)) if averages is not None else 1
+    rho = 10.0 ** (snr_db / 10.0) - 1.0 if snr_db < 300.0 else math.inf
+    one = (LOG_NOISE_STD_DB if rho <= 0.0
+           else min(20.0 / math.log(10.0) * math.sqrt(1.0 / (2.0 * rho)), LOG_NOISE_STD_DB))
+    return one / math.sqrt(n)
 
 
 def noise_bias_db(snr_db: float) -> float:
@@ -256,6 +300,9 @@ class _Model:
     linearity_c: float = 0.0
     noise_reading: str | None = None
     noise_c: float = 0.0
+    #: Further readings whose noise matters, with their sensitivities (a difference of two
+    #: products: both of them).
+    noise_also: tuple[tuple[str, float], ...] = ()
     fit: str | None = None
     order: int = 0
     product: str | None = None
@@ -283,7 +330,8 @@ def _models() -> dict[str, _Model]:
         "image_rejection": _Model(linearity_c=1.0, noise_reading="image", noise_c=1.0),
         "im3_low": _Model(linearity_c=1.0, noise_reading="im3_low", noise_c=1.0),
         "im3_high": _Model(linearity_c=1.0, noise_reading="im3_high", noise_c=1.0),
-        "im3_asymmetry": _Model(linearity_c=math.sqrt(2.0)),
+        "im3_asymmetry": _Model(linearity_c=math.sqrt(2.0), noise_reading="im3_high",
+                                noise_c=1.0, noise_also=(("im3_low", -1.0),)),
         "spur_dbc": _Model(linearity_c=1.0, noise_reading="spur", noise_c=1.0),
         "spur_dbm": _Model(output_c=1.0, noise_reading="spur", noise_c=1.0),
         "lo_if_isolation": _Model(1.0, -1.0, noise_reading="lo_at_if", noise_c=-1.0,
@@ -324,12 +372,14 @@ _DB_UNITS = frozenset({"dB", "dBm", "dBc"})
 
 @dataclass(frozen=True)
 class PointLevels:
-    """Per (point, reading): output level, noise floor and the input power of the point
-    (the readings of the attenuation repeats left out)."""
+    """Per (point, reading): output level, noise floor, sweeps averaged, and the input power
+    of the point (the readings of the attenuation repeats left out). An m×n spur is kept
+    under ``"spur.MxN"`` as well as ``"spur"`` (several spurs share a point)."""
 
     level_dbm: Mapping[tuple[int, str], float]
     floor_dbm: Mapping[tuple[int, str], float]
     input_dbm: Mapping[int, float]
+    averages: Mapping[tuple[int, str], int] = field(default_factory=dict)
 
     @classmethod
     def from_captures(cls, captures: pd.DataFrame) -> PointLevels:
@@ -338,20 +388,34 @@ class PointLevels:
         rows = captures
         if "atten_check" in rows:
             rows = rows[~rows["atten_check"].fillna(False).astype(bool)]
+        count = len(rows)
         points = rows["point"].to_numpy(dtype=np.int64).tolist()
         readings = rows["reading"].astype(str).tolist()
         levels = rows["level_dbm"].to_numpy(dtype=float).tolist()
         floors = (rows["noise_floor_dbm"].to_numpy(dtype=float).tolist()
-                  if "noise_floor_dbm" in rows else [math.nan] * len(points))
+                  if "noise_floor_dbm" in rows else [math.nan] * count)
         inputs = rows["rf_power_dbm"].to_numpy(dtype=float).tolist()
+        avgs = (pd.to_numeric(rows["averages"], errors="coerce").to_numpy(dtype=float).tolist()
+                if "averages" in rows else [math.nan] * count)
+        ms = (pd.to_numeric(rows["m"], errors="coerce").to_numpy(dtype=float).tolist()
+              if "m" in rows else [math.nan] * count)
+        ns = (pd.to_numeric(rows["n"], errors="coerce").to_numpy(dtype=float).tolist()
+              if "n" in rows else [math.nan] * count)
         level: dict[tuple[int, str], float] = {}
         floor: dict[tuple[int, str], float] = {}
+        averaged: dict[tuple[int, str], int] = {}
         drive: dict[int, float] = {}
-        for p, r, lv, fl, x in zip(points, readings, levels, floors, inputs, strict=True):
-            level[(p, r)] = lv  # the later row wins, as in the capture table
-            floor[(p, r)] = fl
+        for p, r, lv, fl, x, av, m, n in zip(points, readings, levels, floors, inputs, avgs,
+                                             ms, ns, strict=True):
+            names = [r]
+            if r == "spur" and math.isfinite(m) and math.isfinite(n):
+                names.append(_spur_key(m, n))
+            for name in names:
+                level[(p, name)] = lv  # the later row wins, as in the capture table
+                floor[(p, name)] = fl
+                averaged[(p, name)] = int(av) if math.isfinite(av) and av >= 1 else 1
             drive[p] = x
-        return cls(level, floor, drive)
+        return cls(level, floor, drive, averaged)
 
     def min_snr_db(self, points: Sequence[int], reading: str) -> float:
         """The lowest level − noise floor of ``reading`` over ``points`` (NaN: unknown)."""
@@ -359,6 +423,43 @@ class PointLevels:
                 for p in points if (p, reading) in self.level_dbm]
         snrs = [s for s in snrs if math.isfinite(s)]
         return min(snrs) if snrs else math.nan
+
+    def worst_scatter(self, points: Sequence[int], reading: str
+                      ) -> tuple[float, float, int] | None:
+        """(scatter dB, SNR dB, averages) of the reading of ``reading`` over ``points`` that
+        scatters most by :func:`noise_scatter_db` (None: no reading with a noise floor)."""
+        worst: tuple[float, float, int] | None = None
+        for p in points:
+            if (p, reading) not in self.level_dbm:
+                continue
+            snr = self.level_dbm[(p, reading)] - self.floor_dbm[(p, reading)]
+            if math.isnan(snr):
+                continue
+            avg = self.averages.get((p, reading), 1)
+            sigma = noise_scatter_db(snr, avg)
+            if worst is None or sigma > worst[0]:
+                worst = (sigma, snr, avg)
+        return worst
+
+
+def _spur_key(m: float, n: float) -> str:
+    return f"spur.{int(m)}x{int(n)}"
+
+
+def _plain(reading: str) -> str:
+    """A reading's name as budgets state it (an m×n spur: "spur")."""
+    return "spur" if reading.startswith("spur.") else reading
+
+
+def _noise_reading(model: _Model, figure: Figure) -> str | None:
+    """The reading whose noise matters for ``figure``: an m×n spur's own (from the figure's
+    conditions), not the last spur read at its point."""
+    reading = model.noise_reading
+    if reading == "spur":
+        m, n = figure.conditions.get("m"), figure.conditions.get("n")
+        if isinstance(m, int | float) and isinstance(n, int | float):
+            return _spur_key(m, n)
+    return reading
 
 
 def intercept_fit_u_db(input_dbm: Sequence[float], fund_dbm: Sequence[float],
@@ -465,21 +566,24 @@ def figure_budget(figure: Figure, levels: PointLevels, specs: InstrumentSpecs,
         return None
     terms = _level_terms(model, specs, cal)
     pts = [int(p) for p in figure.points]
-    if model.noise_reading is not None and model.noise_c:
-        snr = levels.min_snr_db(pts, model.noise_reading)
+    noisy = [(r, c) for r, c in [(_noise_reading(model, figure), model.noise_c),
+                                  *model.noise_also] if r is not None and c]
+    for reading, c in noisy:
+        snr = levels.min_snr_db(pts, reading)
         if math.isfinite(snr):
-            terms.append(Contribution("noise", f"analyzer noise under {model.noise_reading} "
+            terms.append(Contribution("noise", f"analyzer noise under {_plain(reading)} "
                                       f"(lowest SNR {snr:.1f} dB)", noise_bias_db(snr),
-                                      "rectangular", model.noise_c, "B",
+                                      "rectangular", c, "B",
                                       "measured noise floor; one-sided bias taken as "
                                       "rectangular (common practice, no source)"))
+    fit_terms: list[Contribution] = []
     if model.fit == "intercept" and model.product is not None:
         x = [levels.input_dbm.get(p, math.nan) for p in pts]
         fund = [levels.level_dbm.get((p, "if"), math.nan) for p in pts]
         prod = [levels.level_dbm.get((p, model.product), math.nan) for p in pts]
         u = intercept_fit_u_db(x, fund, prod, model.order)
         if math.isfinite(u):
-            terms.append(Contribution("fit", f"scatter about the slope-1/slope-{model.order} "
+            fit_terms.append(Contribution("fit", f"scatter about the slope-1/slope-{model.order} "
                                       f"lines ({len(pts)} points)", u, "standard", 1.0, "A",
                                       "measured: regression standard error"))
     elif model.fit == "linear":
@@ -487,11 +591,24 @@ def figure_budget(figure: Figure, levels: PointLevels, specs: InstrumentSpecs,
                  for p in pts]
         u = mean_u_db(gains)
         if math.isfinite(u):
-            terms.append(Contribution("fit", f"scatter of the gain over the linear region "
+            fit_terms.append(Contribution("fit", f"scatter of the gain over the linear region "
                                       f"({len(pts)} points)", u, "standard", 1.0, "A",
                                       "measured: standard deviation of the mean"))
     elif model.fit == "compression":
         terms += _compression_terms(figure, levels, specs, small_signal_u)
+    terms += fit_terms
+    for reading, c in noisy if not fit_terms else ():
+        # A fit's own Type A term is the observed scatter of its points, this one included:
+        # only a figure without one (single readings, or too few points) takes it here.
+        worst = levels.worst_scatter(pts, reading)
+        if worst is not None and worst[0] > 0.0:
+            sigma, snr, avg = worst
+            c = model.relative_c or c  # flatness: two readings of the gain, √2
+            terms.append(Contribution(
+                "noise_scatter", f"scatter of one reading of {_plain(reading)} in the "
+                f"analyzer noise (SNR {snr:.1f} dB, {avg} sweep{'s' if avg > 1 else ''}): "
+                "(20/ln 10)·sqrt(1/(2ρ))/√averages", sigma, "standard", c, "A",
+                "measured level and noise floor; small-noise expansion of 20·log10|A + n|"))
     return Budget(tuple(terms), specs.coverage_factor)
 
 

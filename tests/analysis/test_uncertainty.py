@@ -4,6 +4,8 @@ published mismatch formula, and against numpy/scipy computations done another wa
 from __future__ import annotations
 
 import math
+import re
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -12,6 +14,7 @@ from scipy.optimize import curve_fit
 
 from sweeprig.analysis.figures import Figure
 from sweeprig.analysis.limits import FAIL, INCONCLUSIVE, PASS, Limit, assess, judge
+from sweeprig.analysis.reduce import RunFigures, reduce_run
 from sweeprig.analysis.uncertainty import (
     ASSUMED,
     DIVISORS,
@@ -29,9 +32,13 @@ from sweeprig.analysis.uncertainty import (
     mismatch_half_width_db,
     mismatch_limits_db,
     noise_bias_db,
+    noise_scatter_db,
     standard_uncertainty,
     uncertainty_text,
 )
+from sweeprig.engine.session import run_sequence, shipped_sequences_dir
+from sweeprig.sim.bench import BENCHES_DIR
+from sweeprig.store.sqlite import SqliteRunStore
 
 # ---------------------------------------------------------------------------------------------
 # the GUM's rules
@@ -120,6 +127,91 @@ def test_noise_raises_a_product_by_the_power_sum():
     assert noise_bias_db(math.nan) == 0.0
 
 
+def test_noise_scatter_agrees_with_a_monte_carlo_of_a_sine_in_complex_gaussian_noise():
+    # numpy Monte Carlo of the envelope |A + n| (n circular complex Gaussian, E|n|² = 1,
+    # A² = ρ) read in dB: its standard deviation against the small-noise expansion
+    # (20/ln 10)·sqrt(1/(2ρ)) (derived in noise_scatter_db's docstring).
+    rng = np.random.default_rng(2417)
+    draws = 200_000
+    noise = (rng.standard_normal(draws) + 1j * rng.standard_normal(draws)) / math.sqrt(2.0)
+    for snr_db, rel in ((10.0, 0.03), (15.0, 0.03), (20.0, 0.03), (30.0, 0.03), (40.0, 0.03),
+                        (3.0, 0.07), (6.0, 0.07)):
+        rho = 10.0 ** (snr_db / 10.0)
+        simulated = float(np.std(20.0 * np.log10(np.abs(math.sqrt(rho) + noise))))
+        # the displayed level holds the noise power as well: it reads 10·log10(ρ + 1) above it
+        stated = noise_scatter_db(10.0 * math.log10(rho + 1.0))
+        assert stated == pytest.approx(simulated, rel=rel), snr_db
+        # averaging N sweeps: the mean of N independent readings, σ/√N (JCGM 100:2008 4.2.3)
+        four = 20.0 * np.log10(np.abs(math.sqrt(rho) + noise[: draws // 4 * 4])).reshape(-1, 4)
+        assert noise_scatter_db(10.0 * math.log10(rho + 1.0), 4) == pytest.approx(
+            float(np.std(four.mean(axis=1))), rel=rel + 0.02), snr_db
+    # Noise alone (A = 0): |n|² ~ Exp(1), std of its log (10/ln 10)·π/√6 = 5.57 dB (standard
+    # result), the ceiling where the expansion no longer holds; it bounds the Monte Carlo.
+    alone = float(np.std(20.0 * np.log10(np.abs(noise))))
+    assert noise_scatter_db(-3.0) == pytest.approx(alone, rel=0.01)
+    for snr_db in (0.0, 1.0, 2.0):
+        rho = 10.0 ** (snr_db / 10.0)
+        simulated = float(np.std(20.0 * np.log10(np.abs(math.sqrt(rho) + noise))))
+        assert simulated <= noise_scatter_db(10.0 * math.log10(rho + 1.0)) <= alone + 0.05
+    assert noise_scatter_db(math.nan) == 0.0 and noise_scatter_db(400.0) == 0.0
+
+
+def test_noise_scatter_is_counted_once():
+    # A single reading takes the scatter with the figure's sensitivity; a fitted figure's
+    # Type A fit term already holds the scatter of its points, so it does not take it again.
+    rows = []
+    for i, x in enumerate(np.arange(-30.0, -18.0, 2.0)):
+        rows.append((i, "if", x, x + 12.0 + 0.02 * (-1) ** i, -100.0))
+        rows.append((i, "im3_low", x, 3 * x + 20.0 + 0.1 * (-1) ** i, -100.0))
+    levels = PointLevels.from_captures(_captures(rows))
+    fitted = figure_budget(Figure("iip3_low", -4.0, "dBm", points=tuple(range(6))), levels,
+                           InstrumentSpecs())
+    single = figure_budget(Figure("iip3_point_low", -4.0, "dBm", points=(0,)), levels,
+                           InstrumentSpecs())
+    assert fitted is not None and single is not None
+    assert "noise_scatter" not in {c.name for c in fitted.contributions}
+    (term,) = [c for c in single.contributions if c.name == "noise_scatter"]
+    assert term.sensitivity == -0.5  # IIP3 = P_in + (P_fund − P_IM3)/2
+    assert term.standard_db == pytest.approx(noise_scatter_db(3 * -30.0 + 20.0 + 0.1 + 100.0))
+
+
+def test_each_spur_takes_its_own_readings_noise_and_averages():
+    # Several m×n spurs share a point: each figure's noise is its own reading's.
+    captures = _captures([(0, "if", -20.0, -8.0, -100.0), (0, "spur", -20.0, -60.0, -100.0),
+                          (0, "spur", -20.0, -95.0, -100.0)])
+    captures["m"] = [np.nan, 1.0, 2.0]
+    captures["n"] = [np.nan, 0.0, -1.0]
+    captures["averages"] = pd.array([1, 1, 16], dtype="Int64")
+    levels = PointLevels.from_captures(captures)
+    strong = figure_budget(Figure("spur_dbc", -52.0, "dBc", conditions={"m": 1, "n": 0},
+                                  points=(0,)), levels, InstrumentSpecs())
+    weak = figure_budget(Figure("spur_dbc", -87.0, "dBc", conditions={"m": 2, "n": -1},
+                                points=(0,)), levels, InstrumentSpecs())
+    assert strong is not None and weak is not None
+    (s,) = [c for c in strong.contributions if c.name == "noise_scatter"]
+    (w,) = [c for c in weak.contributions if c.name == "noise_scatter"]
+    assert "SNR 40.0 dB" in s.what and s.standard_db == pytest.approx(noise_scatter_db(40.0))
+    assert "SNR 5.0 dB, 16 sweeps" in w.what
+    assert w.standard_db == pytest.approx(noise_scatter_db(5.0) / 4.0)
+
+
+def test_the_im3_asymmetry_takes_the_noise_of_both_products():
+    # IM3_high − IM3_low: each product's reading scatters on its own, sensitivities ±1.
+    levels = PointLevels.from_captures(_captures([
+        (0, "if", -35.0, -23.0, -100.0), (0, "im3_low", -35.0, -88.0, -100.0),
+        (0, "im3_high", -35.0, -82.0, -100.0)]))
+    budget = figure_budget(Figure("im3_asymmetry", 6.0, "dB", points=(0,)), levels,
+                           InstrumentSpecs())
+    assert budget is not None
+    scatter = {c.what.split(" in the")[0]: c for c in budget.contributions
+               if c.name == "noise_scatter"}
+    assert scatter["scatter of one reading of im3_high"].sensitivity == 1.0
+    assert scatter["scatter of one reading of im3_low"].sensitivity == -1.0
+    assert scatter["scatter of one reading of im3_low"].standard_db == pytest.approx(
+        noise_scatter_db(12.0))
+    assert len([c for c in budget.contributions if c.name == "noise"]) == 2
+
+
 # ---------------------------------------------------------------------------------------------
 # fits
 
@@ -162,14 +254,15 @@ def test_conversion_gain_budget_uncalibrated_and_calibrated():
     assert budget is not None
     names = {c.name: c for c in budget.contributions}
     assert set(names) == {"input_level", "input_mismatch", "analyzer_absolute", "output_path",
-                          "output_mismatch", "noise"}
+                          "output_mismatch", "noise", "noise_scatter"}
+    assert names["noise_scatter"].kind == "A" and names["noise_scatter"].sensitivity == 1.0
     assert names["input_level"].sensitivity == -1.0  # G = P_IF − P_RF
     assert names["analyzer_absolute"].sensitivity == 1.0
     assert names["input_level"].origin == ASSUMED
     assert "SNR 90.0 dB" in names["noise"].what
     u_mm = mismatch_half_width_db(0.05, 0.2) / math.sqrt(2)
     by_hand = math.sqrt((1.0 ** 2 + 0.5 ** 2 + 0.3 ** 2) / 3 + 2 * u_mm ** 2
-                        + (noise_bias_db(90.0) / math.sqrt(3)) ** 2)
+                        + (noise_bias_db(90.0) / math.sqrt(3)) ** 2 + noise_scatter_db(90.0) ** 2)
     assert budget.expanded_db == pytest.approx(2 * by_hand)
 
     # Only the connections the gain went through count: rf in, if out.
@@ -268,3 +361,87 @@ def test_specs_carry_their_origin():
     assert term.standard_db == pytest.approx(0.15) and term.origin == spec.origin
     assert "noise" not in {c.name for c in budget.contributions}  # floor not recorded
     assert set(DIVISORS) >= {"rectangular", "u-shaped", "normal-k2"}
+
+
+# ---------------------------------------------------------------------------------------------
+# coverage on the simulated bench
+
+
+def _run_with_seed(tmp_path: Path, sequence: Path, description: Path, seed: int,
+                   part: str = "kx-2417") -> RunFigures:
+    """Run ``sequence`` on the simulated bench ``description`` with its ``seed`` and ``part``
+    replaced and the part's leakage phases held (``[dut] leakage_phase = false``)."""
+    folder = tmp_path / f"{sequence.stem}-{description.stem}-{seed}"
+    folder.mkdir()
+    text = re.sub(r"(?m)^seed = \d+$", f"seed = {seed}", description.read_text("utf-8"))
+    text = re.sub(r"(?m)^part = .*$", f'part = "{part}"', text)
+    assert f"seed = {seed}" in text and f'part = "{part}"' in text
+    if "\n[dut]\n" in text:
+        text = text.replace("\n[dut]\n", "\n[dut]\nleakage_phase = false\n")
+    else:
+        text += "\n[dut]\nleakage_phase = false\n"
+    (folder / "sim-bench.toml").write_text(text, "utf-8")
+    outcome = run_sequence(sequence, sim=True, sim_description=folder / "sim-bench.toml",
+                           store_path=folder / "runs.sqlite", log_dir=folder)
+    assert outcome.status == "complete", outcome.reason
+    with SqliteRunStore(folder / "runs.sqlite", create=False) as store:
+        return reduce_run(store, outcome.run_id)
+
+
+def _disagreements(one: RunFigures, other: RunFigures, *, without: str = ""
+                   ) -> tuple[int, list[tuple]]:
+    """How many figures both runs state with an uncertainty, and those whose difference is
+    more than the root sum of squares of the two expanded uncertainties (k = 2) (``without``:
+    a budget term left out, to show what it adds)."""
+
+    def expanded(figure: Figure) -> float:
+        kept = [c.contribution_db for c in figure.budget.contributions if c.name != without]
+        return figure.budget.coverage_factor * combine(kept)
+
+    def key(figure: Figure) -> tuple:
+        return figure.name, tuple(sorted(figure.conditions.items()))
+
+    theirs = {key(f): f for f in other.figures}
+    compared, wrong = 0, []
+    for mine in one.figures:
+        twin = theirs.get(key(mine))
+        if twin is None or mine.budget is None or twin.budget is None:
+            continue
+        compared += 1
+        if abs(mine.value - twin.value) > math.hypot(expanded(mine), expanded(twin)):
+            wrong.append((key(mine), mine.value, twin.value))
+    return compared, wrong
+
+
+def test_two_seeds_of_the_simulated_bench_agree_within_their_uncertainties(tmp_path: Path):
+    # GUM (JCGM 100:2008) 6.2: U (k = 2) is expected to hold the value; two measurements of
+    # one quantity differ by less than the root sum of squares of their U about 95 % of the
+    # time (both cover the truth). The seed of the simulated bench draws the analyzer's noise
+    # and the phases of its own products (added to a line as voltages): a product at or under
+    # the noise, at a random phase, scatters the reading like the noise itself
+    # ((20/ln 10)·sqrt(I/(2S)) for an interferer of power I, the same expansion). The part's
+    # leakage phases are held: the seed would redraw them, a different part, not a scatter.
+    quick = shipped_sequences_dir() / "demo" / "quick.toml"
+    default = BENCHES_DIR / "default.toml"
+    runs = [_run_with_seed(tmp_path, quick, default, seed) for seed in (1, 2)]
+    compared, wrong = _disagreements(*runs)
+    assert compared >= 25 and not wrong, wrong
+    # Without the reading's scatter the RF→IF isolation read about 10 dB above the noise
+    # disagreed by some 4 dB: the term is what covers it.
+    _, before = _disagreements(*runs, without="noise_scatter")
+    assert any(k[0] == "rf_if_isolation" for k, *_ in before), before
+    noisy = [f for f in runs[0].figures if f.name == "rf_if_isolation" and f.budget is not None
+             and any(c.name == "noise_scatter" and c.contribution_db > 0.5
+                     for c in f.budget.contributions)]
+    assert noisy
+    # The accuracy sequence's m×n spurs (several under 20 dB above the noise) on the exact
+    # bench (sources without spurs, the analyzer's products added as powers): the seed draws
+    # only the noise.
+    accuracy = Path(__file__).parent / "data" / "accuracy-kx2417.toml"
+    exact = Path(__file__).parent / "data" / "sim-exact.toml"
+    runs = [_run_with_seed(tmp_path, accuracy, exact, seed) for seed in (11, 12)]
+    compared, wrong = _disagreements(*runs)
+    assert compared >= 90 and not wrong, wrong
+    spurs = [f for f in runs[0].figures if f.name == "spur_dbm" and f.budget is not None]
+    assert sum(any(c.name == "noise_scatter" and c.contribution_db > 0.05
+                   for c in f.budget.contributions) for f in spurs) >= 3

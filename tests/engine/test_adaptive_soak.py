@@ -7,6 +7,7 @@ the air, sweeprig/sim/instruments/chamber.py), so its gain and current really se
 from __future__ import annotations
 
 import json
+import math
 from pathlib import Path
 
 import pytest
@@ -75,14 +76,6 @@ def test_supply_current_criterion_on_the_simulated_bench(tmp_path: Path) -> None
         assert abs(curve["probe_c"][-1] - curve["temperature_c"]) < 1.0
 
 
-def _snr_db(figure: dict) -> float | None:
-    for part in (figure.get("budget") or {}).get("contributions", ()):
-        if part["name"] == "noise":
-            words = part["what"].split("lowest SNR ")
-            return float(words[1].split(" dB")[0]) if len(words) > 1 else None
-    return None
-
-
 @pytest.mark.slow
 def test_demo_with_adaptive_soak_is_a_quarter_shorter_with_the_same_figures(
         tmp_path: Path) -> None:
@@ -90,10 +83,12 @@ def test_demo_with_adaptive_soak_is_a_quarter_shorter_with_the_same_figures(
     1 min at least) against its fixed 10 min soaks: bench time at least 25 % shorter (the
     issue's figure), the same verdict, and every figure with an uncertainty equal within it.
 
-    Figures from readings less than 25 dB above the analyzer noise are left out of the
-    comparison: the soak's extra readings advance the simulated analyzer's noise draws, so
-    those differ by the noise realisation alone (the same differences appear between the
-    fixed soak and an adaptive soak held to the full 10 min).
+    Figures read close to the analyzer noise are compared too: the soak's extra readings
+    advance the simulated analyzer's noise draws, so those differ by the noise realisation,
+    which each budget's per-reading noise scatter (Type A) covers. Two measurements, each
+    with its own noise, agree when |x1 − x2| ≤ sqrt(U1² + U2²) (the normalised error
+    |En| ≤ 1 of ISO 13528 / ISO/IEC 17043 proficiency testing): a reading close to the noise
+    can have a different signal-to-noise ratio, and so a different U, in each run.
     """
     fixed = run_sequence(_sequence(tmp_path, "fixed.toml", None), sim=True,
                          store_path=tmp_path / "fixed.sqlite")
@@ -125,15 +120,29 @@ def test_demo_with_adaptive_soak_is_a_quarter_shorter_with_the_same_figures(
 
     theirs = {key(f): f for f in made["adaptive"][1]["figures"]}
     compared = 0
+    against_bound: list[tuple] = []
     for mine in made["fixed"][1]["figures"]:
         other = theirs[key(mine)]
-        u = mine.get("uncertainty_db")
-        if u is None or mine["value"] is None or other["value"] is None:
+        if mine["value"] is None or other["value"] is None:
             continue
-        snrs = [_snr_db(mine), _snr_db(other)]
-        if None in snrs or min(snrs) < 25.0:  # type: ignore[type-var]
-            continue
-        compared += 1
-        assert abs(mine["value"] - other["value"]) <= u, (key(mine), mine["value"],
-                                                           other["value"], u)
+        u, v = mine.get("uncertainty_db"), other.get("uncertainty_db")
+        if u is not None and v is not None:
+            compared += 1
+            both = math.hypot(u, v)
+            assert abs(mine["value"] - other["value"]) <= both, (key(mine), mine["value"],
+                                                                  other["value"], both)
+        elif (u is None) != (v is None):
+            # a product at the noise margin: a number in one run, a bound in the other. A
+            # bound has no uncertainty (its product's displayed level, one noisy reading, is
+            # taken as the upper limit), so these are only counted and shown, not judged.
+            number, bound = (mine, other) if v is None else (other, mine)
+            assert bound.get("bound") in ("<", ">"), (key(mine), bound)
+            low = number["value"] - number["uncertainty_db"]
+            high = number["value"] + number["uncertainty_db"]
+            if not (low <= bound["value"] if bound["bound"] == "<" else high >= bound["value"]):
+                against_bound.append((key(mine)[0], round(number["value"], 2),
+                                      round(number["uncertainty_db"], 2), bound["bound"],
+                                      round(bound["value"], 2)))
+    print(f"figures compared by their uncertainties: {compared}; a number whose interval "
+          f"misses the other run's bound: {against_bound}")
     assert compared >= 400
