@@ -11,8 +11,9 @@ sequence's ``[[spec]]`` entries can name) does not load pandas.
 
 from __future__ import annotations
 
-import importlib
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING
+
+from sweeprig.lazy import lazy_names
 
 if TYPE_CHECKING:
     from sweeprig.analysis.compression import compression_figures, compression_table
@@ -97,10 +98,4 @@ __all__ = [
 ]
 
 
-def __getattr__(name: str) -> Any:
-    module = _WHERE.get(name)
-    if module is None:
-        raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
-    value = getattr(importlib.import_module(module), name)
-    globals()[name] = value
-    return value
+__getattr__ = lazy_names(__name__, _WHERE, globals())

@@ -9,8 +9,9 @@ package (``sweeprig --help``) does not load the file models.
 
 from __future__ import annotations
 
-import importlib
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING
+
+from sweeprig.lazy import lazy_names
 
 if TYPE_CHECKING:
     from sweeprig.formats.bench import Bench, load_bench
@@ -40,10 +41,4 @@ __all__ = [
 ]
 
 
-def __getattr__(name: str) -> Any:
-    module = _WHERE.get(name)
-    if module is None:
-        raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
-    value = getattr(importlib.import_module(module), name)
-    globals()[name] = value
-    return value
+__getattr__ = lazy_names(__name__, _WHERE, globals())
