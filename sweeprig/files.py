@@ -18,6 +18,7 @@ Every refusal is an :class:`~sweeprig.errors.InputError` naming the file and the
 from __future__ import annotations
 
 import errno
+import hashlib
 import os
 import stat
 from dataclasses import dataclass
@@ -197,6 +198,11 @@ def read_file_text(path: str | os.PathLike[str], *, what: str = "file") -> str:
     :class:`InputError`; bytes that are not UTF-8 a ``UnicodeDecodeError``."""
     raw = read_file_bytes(path, what=what, toml=True)
     return raw.decode("utf-8").replace("\r\n", "\n").replace("\r", "\n")
+
+
+def sha256_text(text: str) -> str:
+    """SHA-256 of ``text`` encoded as UTF-8, hex: the one checksum of a file's text."""
+    return hashlib.sha256(text.encode("utf-8")).hexdigest()
 
 
 def is_symlink_loop(path: Path) -> bool:

@@ -29,7 +29,6 @@ not pass: a passing partial run is inconclusive.
 
 from __future__ import annotations
 
-import hashlib
 import json
 import math
 import tomllib
@@ -46,7 +45,7 @@ from sweeprig.analysis.figures import SUPPLY_CURRENT_OFF, UNPOWERED, Figure, fla
 from sweeprig.analysis.limits import INCONCLUSIVE, PASS, Assessment, Limit, Verdict, assess
 from sweeprig.analysis.validity import SUPPLY_CURRENT_TOLERANCE, UNPOWERED_GAIN_MARGIN_DB
 from sweeprig.errors import SweeprigError
-from sweeprig.files import read_file_text
+from sweeprig.files import read_file_text, sha256_text
 from sweeprig.formats.fields import axis_len
 from sweeprig.formats.sequence import Sequence, Study, load_sequence, sequence_from_dict
 from sweeprig.plan.frequencies import wanted_orders
@@ -212,7 +211,7 @@ def reduce_run(store: RunStore, run_id: int) -> RunFigures:
         points_total=info.points_total,
         sequence_path=info.sequence_path,
         sequence_sha256=info.sequence_sha256,
-        sequence_sha256_ok=_sha256(info.sequence_text) == info.sequence_sha256,
+        sequence_sha256_ok=sha256_text(info.sequence_text) == info.sequence_sha256,
         bench_path=info.bench_path,
         bench_sha256=info.bench_sha256,
         instruments=info.instruments,
@@ -294,7 +293,7 @@ def _stored_sequence(text: str, path: str, sha256: str, files: tuple[RunFile, ..
     try:
         if data.get("include"):
             file = Path(path)
-            if file.is_file() and _sha256(read_file_text(file)) == sha256:
+            if file.is_file() and sha256_text(read_file_text(file)) == sha256:
                 return load_sequence(file)
             notes.append("the sequence includes other files, and its file has changed or "
                          "moved since the run: limits are read from the stored text alone")
@@ -305,10 +304,6 @@ def _stored_sequence(text: str, path: str, sha256: str, files: tuple[RunFile, ..
         notes.append(f"the stored sequence could not be read ({what}): no limits applied, "
                      "studies classified from the points")
         return None
-
-
-def _sha256(text: str) -> str:
-    return hashlib.sha256(text.encode("utf-8")).hexdigest()
 
 
 # ---------------------------------------------------------------------------------------------

@@ -20,7 +20,6 @@ count reported is the one read back.
 
 from __future__ import annotations
 
-import hashlib
 import json
 import logging
 import os
@@ -44,7 +43,7 @@ from sweeprig.engine.safe import SafeOutcome, make_safe
 from sweeprig.engine.sim_specs import is_shipped_sim_bench, with_sim_figures
 from sweeprig.engine.simclock import SimControlClock
 from sweeprig.errors import BenchUnsafeError, InputError, StoreError, SweeprigError
-from sweeprig.files import read_file_text
+from sweeprig.files import read_file_text, sha256_text
 from sweeprig.formats.bench import Bench, load_bench
 from sweeprig.formats.calibration import (
     Calibration,
@@ -77,7 +76,7 @@ from sweeprig.store.base import (
 )
 from sweeprig.store.paths import run_file_name, run_log_path
 from sweeprig.store.runlock import hold_run_lock, run_lock_held
-from sweeprig.store.sqlite import SqliteRunStore, sha256_text
+from sweeprig.store.sqlite import SqliteRunStore
 
 SIM_BENCH_FILE = "benches/sim.toml"
 """The built-in simulated bench's bench file, inside the shipped sequences folder."""
@@ -816,8 +815,3 @@ class _QuietFileHandler(logging.FileHandler):
 
 def _read_text(path: Path) -> str:
     return read_file_text(path)
-
-
-def file_sha256(text: str) -> str:
-    """SHA-256 of a file's text (UTF-8), hex."""
-    return hashlib.sha256(text.encode("utf-8")).hexdigest()

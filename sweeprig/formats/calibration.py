@@ -33,7 +33,6 @@ frequencies is refused by the pre-flight check (see :class:`~sweeprig.formats.pa
 
 from __future__ import annotations
 
-import hashlib
 import math
 import os
 import re
@@ -47,6 +46,7 @@ import numpy as np
 from pydantic import Field
 
 from sweeprig.errors import InputError
+from sweeprig.files import sha256_text
 from sweeprig.formats.bench import CONNECTIONS, Bench
 from sweeprig.formats.fields import Frozen, LevelDb, LocatedFile, Temperature
 from sweeprig.formats.loading import load_document, validate
@@ -125,8 +125,7 @@ class Calibration:
 def text_sha256(text: str) -> str:
     """The checksum a calibration file carries: SHA-256 of its text with the sha256 line
     removed (UTF-8)."""
-    body = _SHA_LINE.sub("", text)
-    return hashlib.sha256(body.encode("utf-8")).hexdigest()
+    return sha256_text(_SHA_LINE.sub("", text))
 
 
 def _utc(moment: datetime) -> datetime:

@@ -29,7 +29,6 @@ KEY``; a server database would use an identity column. The tables are described 
 from __future__ import annotations
 
 import errno
-import hashlib
 import json
 import math
 import os
@@ -44,6 +43,7 @@ from types import MappingProxyType
 from typing import TYPE_CHECKING, Any
 
 from sweeprig.errors import StoreError
+from sweeprig.files import sha256_text
 from sweeprig.signals import deferred
 from sweeprig.store.base import (
     FINAL_STATUSES,
@@ -289,11 +289,6 @@ def _activity(text: str | None) -> Mapping[str, Any] | None:
     except ValueError:
         return None
     return MappingProxyType(value) if isinstance(value, dict) else None
-
-
-def sha256_text(text: str) -> str:
-    """SHA-256 of ``text`` encoded as UTF-8, hex."""
-    return hashlib.sha256(text.encode("utf-8")).hexdigest()
 
 
 # -- the store --------------------------------------------------------------------------------
