@@ -404,16 +404,20 @@ class Runner:
             self._go_to_temperature(point.temperature_c, point)
             self._temperature_c = point.temperature_c
             changed = True
+        return self._apply_supply(point) or changed
+
+    def _apply_supply(self, point: Point) -> bool:
+        """The supply to the point's voltage, output on (checked). True if anything was sent."""
         dc = self.d.dc
-        if dc is not None and point.supply_v is not None:
-            sent = dc.set_voltage(point.supply_v)
-            if not self._supply_on:
-                sent |= dc.set_output(True)
-                self._supply_on = True
-            if sent:
-                self._check(dc)
-                changed = True
-        return changed
+        if dc is None or point.supply_v is None:
+            return False
+        sent = dc.set_voltage(point.supply_v)
+        if not self._supply_on:
+            sent |= dc.set_output(True)
+            self._supply_on = True
+        if sent:
+            self._check(dc)
+        return sent
 
     def _go_to_temperature(self, temperature_c: float, point: Point | None = None) -> None:
         """Set the chamber, wait for the DUT probe, soak. RF is off while the temperature
@@ -485,14 +489,8 @@ class Runner:
     def _criterion(self, point: Point, by: str) -> Callable[[], float] | None:
         """A function reading the adaptive soak's criterion at ``point`` (gain, dB, or supply
         current, A), with what it needs switched on; None when the bench cannot read it."""
+        self._apply_supply(point)
         dc = self.d.dc
-        if dc is not None and point.supply_v is not None:
-            sent = dc.set_voltage(point.supply_v)
-            if not self._supply_on:
-                sent |= dc.set_output(True)
-                self._supply_on = True
-            if sent:
-                self._check(dc)
         if by == "supply_current":
             return None if dc is None else dc.measure_current_a
         wanted = next((r for r in point.readings if r.kind == "wanted"), None)
