@@ -3,13 +3,12 @@
 from __future__ import annotations
 
 from datetime import UTC, datetime
-from pathlib import Path
 from typing import TYPE_CHECKING, Annotated
 
 import typer
 from rich.console import Console
 
-from sweeprig.cli.common import fail
+from sweeprig.cli.common import RunStoreOption, fail
 from sweeprig.errors import InputError, SweeprigError
 from sweeprig.store.base import DEFAULT_STORE_PATH
 from sweeprig.text import one_line
@@ -39,8 +38,7 @@ def bus_command(
         "--until", help="only exchanges at or before this time (ISO 8601)")] = None,
     role: Annotated[str | None, typer.Option("--role", help="only this bench role")] = None,
     last: Annotated[int | None, typer.Option("--last", help="only the last N exchanges")] = None,
-    store: Annotated[Path, typer.Option(
-        "--store", help="run store (SQLite file)")] = DEFAULT_STORE_PATH,
+    store: RunStoreOption = DEFAULT_STORE_PATH,
 ) -> None:
     from sweeprig.store.sqlite import SqliteRunStore
 

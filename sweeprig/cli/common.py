@@ -7,6 +7,9 @@ markup), then a non-zero exit with the error's own code. Never a traceback.
 
 from __future__ import annotations
 
+from pathlib import Path
+from typing import Annotated
+
 import typer
 from rich.console import Console
 from rich.text import Text
@@ -28,3 +31,12 @@ def fail(exc: SweeprigError) -> typer.Exit:
     """Print ``exc`` and return the ``typer.Exit`` to raise (``raise fail(exc) from None``)."""
     print_error(exc)
     return typer.Exit(code=exc.exit_code)
+
+
+# Options several commands share (one wording, one default).
+RunStoreOption = Annotated[Path, typer.Option("--store", help="run store (SQLite file)")]
+SimOption = Annotated[bool, typer.Option(
+    "--sim", help="run on the built-in simulated bench (no hardware)")]
+SimBenchOption = Annotated[str | None, typer.Option(
+    "--sim-bench", help="simulated-bench description (file or shipped name)")]
+QuietOption = Annotated[bool, typer.Option("--quiet", "-q", help="no progress display")]

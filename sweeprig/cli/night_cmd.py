@@ -11,7 +11,7 @@ from rich.console import Console
 from rich.table import Table
 from rich.text import Text
 
-from sweeprig.cli.common import print_error
+from sweeprig.cli.common import QuietOption, RunStoreOption, SimBenchOption, SimOption, print_error
 from sweeprig.cli.run_cmd import _drive
 from sweeprig.engine.notify import NOTIFY_ENV
 from sweeprig.errors import BENCH_UNSAFE_EXIT_CODE, SweeprigError
@@ -49,13 +49,10 @@ def night_command(
     plan: Annotated[Path, typer.Argument(help="night plan (TOML)", show_default=False)],
     bench: Annotated[Path | None, typer.Option(
         "--bench", "-b", help="bench file (wins over the plan's night.bench)")] = None,
-    sim: Annotated[bool, typer.Option(
-        "--sim", help="run on the built-in simulated bench (no hardware)")] = False,
-    sim_bench: Annotated[str | None, typer.Option(
-        "--sim-bench", help="simulated-bench description (file or shipped name)")] = None,
-    store: Annotated[Path, typer.Option(
-        "--store", help="run store (SQLite file)")] = DEFAULT_STORE_PATH,
-    quiet: Annotated[bool, typer.Option("--quiet", "-q", help="no progress display")] = False,
+    sim: SimOption = False,
+    sim_bench: SimBenchOption = None,
+    store: RunStoreOption = DEFAULT_STORE_PATH,
+    quiet: QuietOption = False,
     report: Annotated[bool, typer.Option(
         "--report/--no-report", help="write each part's HTML report when it ends")] = True,
     notify: Annotated[str | None, typer.Option(

@@ -19,7 +19,14 @@ from rich.progress import (
 )
 from rich.text import Text
 
-from sweeprig.cli.common import fail, print_error
+from sweeprig.cli.common import (
+    QuietOption,
+    RunStoreOption,
+    SimBenchOption,
+    SimOption,
+    fail,
+    print_error,
+)
 from sweeprig.engine.notify import NOTIFY_ENV
 from sweeprig.errors import (
     BENCH_UNSAFE_EXIT_CODE,
@@ -71,15 +78,12 @@ def run_command(
     sequence: Annotated[Path, typer.Argument(help="sequence file (TOML)", show_default=False)],
     bench: Annotated[Path | None, typer.Option(
         "--bench", "-b", help="bench file (TOML) naming the instruments")] = None,
-    sim: Annotated[bool, typer.Option(
-        "--sim", help="run on the built-in simulated bench (no hardware)")] = False,
-    sim_bench: Annotated[str | None, typer.Option(
-        "--sim-bench", help="simulated-bench description (file or shipped name)")] = None,
-    store: Annotated[Path, typer.Option(
-        "--store", help="run store (SQLite file)")] = DEFAULT_STORE_PATH,
+    sim: SimOption = False,
+    sim_bench: SimBenchOption = None,
+    store: RunStoreOption = DEFAULT_STORE_PATH,
     realtime: Annotated[bool, typer.Option(
         "--realtime", help="with --sim: let simulated time pass at wall-clock speed")] = False,
-    quiet: Annotated[bool, typer.Option("--quiet", "-q", help="no progress display")] = False,
+    quiet: QuietOption = False,
     bus_log: Annotated[bool, typer.Option(
         "--bus-log", help="record every SCPI exchange in the run store (see `sweeprig bus`)",
     )] = False,
@@ -363,15 +367,14 @@ Examples:
 
 def resume_command(
     run_id: Annotated[int, typer.Argument(help="the run to continue", show_default=False)],
-    store: Annotated[Path, typer.Option(
-        "--store", help="run store (SQLite file)")] = DEFAULT_STORE_PATH,
+    store: RunStoreOption = DEFAULT_STORE_PATH,
     accept_changes: Annotated[bool, typer.Option(
         "--accept-changes", help="resume even though files or instrument identities changed "
         "(what changed is still reported)")] = False,
     sim_bench: Annotated[str | None, typer.Option(
         "--sim-bench", help="simulated-bench description, for runs on the simulated bench",
     )] = None,
-    quiet: Annotated[bool, typer.Option("--quiet", "-q", help="no progress display")] = False,
+    quiet: QuietOption = False,
     bus_log: Annotated[bool, typer.Option(
         "--bus-log", help="record every SCPI exchange in the run store")] = False,
     report: Annotated[bool, typer.Option(
