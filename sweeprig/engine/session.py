@@ -454,7 +454,8 @@ def _execute(
                 from sweeprig.sim.bench import start_sim_bench
 
                 clock = VirtualClock(realtime_factor=1.0 if realtime else 0.0)
-                sim_bench = start_sim_bench(sim_description, clock=clock)
+                sim_bench = start_sim_bench(
+                    sim_description_for(files.sequence, sim_description), clock=clock)
                 resources = dict(sim_bench.resources)
             else:
                 label = f"run {resume.run_id}" if resume else f"a run of {files.sequence_path}"
@@ -774,6 +775,18 @@ def _elapsed(clock: Clock, t0: float) -> float:
         return clock.now() - t0
     except SweeprigError:
         return 0.0
+
+
+def sim_description_for(sequence: Sequence, sim_description: object) -> object:
+    """The simulated bench to serve for ``sequence``: ``sim_description`` (a model, file,
+    shipped name or None for the default) with its part replaced by the sequence's
+    ``[part] sim_part`` when the sequence names one (already checked by the loader)."""
+    if sequence.part.sim_part is None:
+        return sim_description
+    from sweeprig.sim.bench import resolve_description
+
+    description = resolve_description(sim_description)  # type: ignore[arg-type]
+    return description.model_copy(update={"part": sequence.part.sim_part})
 
 
 def _finish(drivers: BenchDrivers | None, sim_bench: object, files: LoadedFiles,

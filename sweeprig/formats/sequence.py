@@ -10,6 +10,7 @@ from __future__ import annotations
 import math
 import os
 from collections.abc import Callable
+from pathlib import Path
 from typing import Annotated, Any, Literal
 
 from pydantic import BeforeValidator, Discriminator, Field, Tag, WithJsonSchema
@@ -198,6 +199,10 @@ class Part(Frozen):
     expected_supply_current: Current | None = Field(
         None, description="expected DC supply current, A; a measured supply current more "
         "than 30 % away from it flags the figures of that point supply_current_off")
+    sim_part: str | None = Field(
+        None, description="the simulated part that --sim serves for this sequence: a shipped "
+        "part name (sweeprig/sim/parts) or a part file, relative to this sequence file. Unset: "
+        "the simulated bench's own part")
 
 
 class Mixing(Frozen):
@@ -508,6 +513,7 @@ def load_sequence(path: str | os.PathLike[str], *, max_points: int = DEFAULT_MAX
     """
     doc = load_document(path)
     sequence = validate(Sequence, doc)
+    sequence = _with_sim_part_resolved(sequence, doc)
     sequence._where = doc.where
     sequence._source = doc.display
     sequence._included = doc.included()
@@ -515,6 +521,32 @@ def load_sequence(path: str | os.PathLike[str], *, max_points: int = DEFAULT_MAX
     check_sequence(sequence)
     check_size(sequence, max_points)
     return sequence
+
+
+def _with_sim_part_resolved(sequence: Sequence, doc: Any) -> Sequence:
+    """``[part] sim_part`` checked: a shipped part name, or a part file that exists (made
+    absolute, relative to the sequence file). Raises :class:`InputError` otherwise."""
+    from sweeprig.sim.names import PARTS_DIR, shipped_parts
+
+    name = sequence.part.sim_part
+    if name is None:
+        return sequence
+    where = doc.where(("part", "sim_part"))
+    if name.lower().endswith(".toml") or "/" in name or "\\" in name:
+        part_path = Path(doc.path).parent / name
+        if not part_path.is_file():
+            raise InputError(f"simulated part file {name!r} does not exist", where=where,
+                             fix="give a part file path relative to the sequence file, or name "
+                             f"a shipped part: {', '.join(shipped_parts())}")
+        resolved = str(part_path.resolve())
+    elif (PARTS_DIR / f"{name.lower()}.toml").is_file():
+        resolved = name.lower()
+    else:
+        raise InputError(f"no shipped simulated part named {name!r}", where=where,
+                         fix=f"name one of {', '.join(shipped_parts())}, or give a part file "
+                         "path ending in .toml")
+    return sequence.model_copy(
+        update={"part": sequence.part.model_copy(update={"sim_part": resolved})})
 
 
 def sequence_from_dict(data: dict[str, Any], *, max_points: int = DEFAULT_MAX_POINTS
