@@ -150,6 +150,25 @@ def status_command(
                        simulated=info.simulated)
     for step in steps:
         Console(highlight=False).print(Text(f"  next: {one_line(step)}", style="bold"))
+    if steps and any(step.startswith("sweeprig resume") for step in steps):
+        _print_night_resume(Path(store), info)
+
+
+def _print_night_resume(store: Path, info: RunInfo) -> None:
+    """For a run that was a part of a night: the command that resumes the whole night."""
+    import shlex
+
+    from sweeprig.engine.night_journal import night_of_run
+
+    night = night_of_run(store, info.id)
+    if night is None:
+        return
+    number, plan = night
+    command = (f"sweeprig night {shlex.quote(plan)} --resume --store {shlex.quote(str(store))}"
+               + (" --sim" if info.simulated else ""))
+    Console(highlight=False).print(Text(
+        f"  or, as this run is a part of night {number}, resume the whole night: "
+        f"{one_line(command)}", style="bold"))
 
 
 def _print_status(info: RunInfo, points: pd.DataFrame, events: list, n_events: int) -> None:

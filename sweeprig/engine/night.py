@@ -14,12 +14,16 @@ from dataclasses import dataclass
 from datetime import UTC, datetime
 from pathlib import Path
 
+from sweeprig.engine.night_journal import PartEnd
 from sweeprig.engine.session import LoadedFiles, load_run_files
 from sweeprig.errors import InputError, SweeprigError
 from sweeprig.formats.night import NightPart, NightPlan, load_night
 from sweeprig.plan.duration import estimate_duration
 
 NIGHT_SUMMARY_FORMAT = 1
+
+__all__ = ["NightItem", "PartEnd", "night_status", "predicted_night_s", "prepare_night",
+           "with_serial", "write_night_summary"]
 
 
 @dataclass(frozen=True)
@@ -29,20 +33,6 @@ class NightItem:
     index: int
     part: NightPart
     files: LoadedFiles
-
-
-@dataclass(frozen=True)
-class PartEnd:
-    """How one part of the night ended (``run_id`` None: it did not run)."""
-
-    serial: str
-    sequence: str
-    run_id: int | None
-    status: str
-    verdict: str | None = None
-    reason: str | None = None
-    bench_s: float = 0.0
-    report: str | None = None
 
 
 def prepare_night(plan_path: Path, *, bench: Path | None, sim: bool,

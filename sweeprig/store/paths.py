@@ -27,3 +27,15 @@ def run_log_path(store_path: str | Path, run_id: int, log_dir: str | Path | None
     """The run's log file: in ``log_dir`` when given, else beside the store."""
     folder = Path(log_dir) if log_dir is not None else Path(store_path).parent
     return folder / run_file_name(store_path, run_id, ".log")
+
+
+def night_file_name(store_path: str | Path, number: int, suffix: str = "") -> str:
+    """``<store file name>.night-<number><suffix>``: night K's journal (``.json``), its lock
+    (``.lock``) and its summary folder (no suffix), beside the store."""
+    return f"{Path(store_path).name}.night-{int(number)}{suffix}"
+
+
+def night_path(store_path: str | Path, number: int, suffix: str = "") -> Path:
+    """Night ``number``'s file with ``suffix`` (see :func:`night_file_name`), beside the store."""
+    store = Path(store_path)
+    return store.parent / night_file_name(store, number, suffix)

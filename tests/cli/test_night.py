@@ -155,3 +155,105 @@ def test_ctrl_c_during_a_night_ends_it_cleanly(tmp_path: Path, delay_s: float) -
         assert "running" not in statuses
         if proc.returncode != 0 and "aborted" in statuses:
             assert statuses[-1] == "aborted"  # nothing ran after the stopped part
+
+
+def _points(store: Path, run_id: int) -> list[int]:
+    import sqlite3
+
+    with sqlite3.connect(store) as db:
+        return [i for (i,) in db.execute(
+            "SELECT point_index FROM points WHERE run_id = ? ORDER BY point_index", (run_id,))]
+
+
+def test_a_killed_night_is_resumed_as_a_night(tmp_path: Path) -> None:
+    """SIGKILL in the middle of the second part: `status` names the command that resumes the
+    night; `night --resume` keeps the first part, resumes the second run (every point once)
+    and runs the third; the summary covers all three and the notification runs at the end."""
+    import os
+    import signal
+    import sqlite3
+    import subprocess
+    import time
+
+    plan = _plan(tmp_path).read_text(encoding="utf-8").replace('"by_hand"', '"none"')
+    (tmp_path / "night.toml").write_text(plan, encoding="utf-8")
+    store = tmp_path / "night.sqlite"
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "sweeprig", "night", str(tmp_path / "night.toml"), "--sim",
+         "--store", str(store), "--quiet", "--no-report"], stdout=subprocess.PIPE,
+        stderr=subprocess.STDOUT, text=True, env={**os.environ, "COLUMNS": "200"})
+    try:
+        deadline = time.monotonic() + 120
+        while True:
+            assert proc.poll() is None, proc.communicate()[0]
+            assert time.monotonic() < deadline
+            if store.exists():
+                try:
+                    if len(_points(store, 2)) >= 3:
+                        break
+                except sqlite3.Error:
+                    pass
+            time.sleep(0.01)
+        proc.send_signal(signal.SIGKILL)
+        proc.communicate(timeout=30)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+            proc.communicate()
+    assert _runs(tmp_path)[:2] == [(1, "S011", "complete"), (2, "S012", "interrupted")]
+    before = _points(store, 2)
+
+    status = CliRunner().invoke(app, ["status", "2", "--store", str(store)],
+                                env={"COLUMNS": "300"})
+    assert "interrupted" in status.output
+    assert "part of night 1" in status.output
+    assert f"sweeprig night {tmp_path / 'night.toml'} --resume --store {store} --sim" \
+        in status.output
+
+    notified = tmp_path / "notified.json"
+    script = tmp_path / "notify.py"
+    script.write_text("import json, os, sys\njson.dump({k: v for k, v in os.environ.items() "
+                      "if k.startswith('SWEEPRIG_')}, open(sys.argv[1], 'w'))\n",
+                      encoding="utf-8")
+    again = _night(tmp_path, tmp_path / "night.toml", "", "--resume", "--no-report",
+                   "--notify", f"{sys.executable} {script} {notified}")
+    assert again.exit_code == 0, again.output
+    assert "resuming night 1" in again.output
+    assert "serial S011 complete already (run 1)" in again.output
+    assert "resuming run 2" in again.output
+    assert _runs(tmp_path) == [(1, "S011", "complete"), (2, "S012", "complete"),
+                               (3, "S013", "complete")]
+    after = _points(store, 2)
+    assert len(after) == len(set(after)) and set(before) <= set(after)  # each point once
+    summary = _summary(tmp_path)
+    assert summary["status"] == "complete"
+    assert [(p["serial"], p["run_id"]) for p in summary["parts"]] == [
+        ("S011", 1), ("S012", 2), ("S013", 3)]
+    env = json.loads(notified.read_text(encoding="utf-8"))
+    assert env["SWEEPRIG_NIGHT_STATUS"] == "complete" and env["SWEEPRIG_RUN_IDS"] == "1 2 3"
+
+    done = _night(tmp_path, tmp_path / "night.toml", "", "--resume")
+    assert done.exit_code != 0 and "completed" in done.output  # nothing left to resume
+
+
+def test_a_live_night_or_a_changed_plan_is_not_resumed(tmp_path: Path) -> None:
+    from sweeprig.oslock import FileLock
+
+    plan = _plan(tmp_path, "stop_on_abort = true\n")
+    nothing = _night(tmp_path, plan, "", "--resume")
+    assert nothing.exit_code == 2 and "no night of the plan" in nothing.output
+    stopped = _night(tmp_path, plan, "stop\n", "--no-report")  # ends after the first part
+    assert stopped.exit_code == 1, stopped.output
+    assert "--resume --store" in stopped.output  # the night's own next step
+    store = tmp_path / "night.sqlite"
+    lock = FileLock(store.parent / f"{store.name}.night-1.lock")
+    assert lock.try_acquire({"pid": 1})
+    try:
+        live = _night(tmp_path, plan, "", "--resume")
+    finally:
+        lock.release()
+    assert live.exit_code == 2 and "still running in another process" in live.output
+    plan.write_text(plan.read_text(encoding="utf-8") + "\n# changed\n", encoding="utf-8")
+    changed = _night(tmp_path, plan, "", "--resume")
+    assert changed.exit_code == 2 and "changed since night 1 started" in changed.output
+    assert _runs(tmp_path) == [(1, "S011", "complete")]  # nothing else ran
