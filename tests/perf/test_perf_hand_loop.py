@@ -1,0 +1,151 @@
+"""Benchmark: `sweeprig run` against the loop an experienced engineer would write by hand.
+
+The hand loop below is written from the simulated instruments' command-set page
+(docs/instruments.md) with plain pyvisa, independent of the engine's code: it sets the
+supply and the levels once, then per point sets the LO and RF frequencies, asks each source
+``*OPC?`` (the sources must have settled before the analyzer sweeps), waits the same settling
+time, starts one sweep, waits for it with ``*OPC?`` and reads the marker at the IF. The engine
+runs the same readings (``tests/perf/data/hand_loop.toml``: one gain sweep, the same settle)
+through ``run_sequence`` on a bench file of the same served bench, so it pays for everything a
+real run does (connect, identify, pre-flight, store, safe state).
+
+Both run on a served simulated bench over real pyvisa/TCP, interleaved, three times; printed:
+wall time per point and SCPI transactions per point for each, and their ratios (the issue's
+floors: ≤ 1.0 for both). The engine's transactions are counted from its own bus log (a
+separate pass, so the timing pass writes no bus log).
+
+Run with ``pytest -m perf -s tests/perf/test_perf_hand_loop.py``.
+"""
+
+from __future__ import annotations
+
+import statistics
+import time
+from pathlib import Path
+
+import pytest
+import pyvisa
+
+from sweeprig.clock import VirtualClock
+from sweeprig.engine.session import run_sequence, served_bench_text
+from sweeprig.sim.bench import start_sim_bench
+from sweeprig.store.sqlite import SqliteRunStore
+
+pytestmark = pytest.mark.perf
+
+SEQUENCE = Path(__file__).parent / "data" / "hand_loop.toml"
+REPEATS = 3
+IF_HZ = 100e6
+RF_START_HZ, RF_STOP_HZ, POINTS = 1.7e9, 2.7e9, 41
+SETTLE_S = 0.020
+
+
+class _Counting:
+    """A pyvisa session that counts its transactions (a write or a query is one)."""
+
+    def __init__(self, session: pyvisa.resources.MessageBasedResource) -> None:
+        self.session = session
+        self.count = 0
+
+    def write(self, command: str) -> None:
+        self.count += 1
+        self.session.write(command)
+
+    def query(self, command: str) -> str:
+        self.count += 1
+        return self.session.query(command)
+
+
+def _hand_loop(resources: dict[str, str]) -> tuple[float, int, int]:
+    """The hand-written loop; returns (wall s, points, transactions)."""
+    t0 = time.perf_counter()
+    rm = pyvisa.ResourceManager("@py")
+    opened = {role: rm.open_resource(resources[role], read_termination="\n",
+                                     write_termination="\n", timeout=10_000)
+              for role in ("rf", "lo", "sa", "dc")}
+    s = {role: _Counting(session) for role, session in opened.items()}
+    levels = []
+    try:
+        for role in s:
+            s[role].write("*CLS")
+        s["dc"].write("VOLT 3.3")
+        s["dc"].write("CURR 0.2")
+        s["dc"].write("OUTP ON")
+        s["dc"].query("*OPC?")
+        s["rf"].write("POW -25")
+        s["lo"].write("POW 0")
+        s["sa"].write("INIT:CONT OFF")
+        s["sa"].write("FREQ:CENT 100000000")
+        s["sa"].write("FREQ:SPAN 20000")
+        s["sa"].write("BAND 1000")
+        s["sa"].write("DISP:TRAC:Y:RLEV 0")
+        s["sa"].write("CALC:MARK1 ON")
+        s["sa"].write(f"CALC:MARK1:X {IF_HZ:.0f}")
+        s["rf"].write("OUTP ON")
+        s["lo"].write("OUTP ON")
+        step = (RF_STOP_HZ - RF_START_HZ) / (POINTS - 1)
+        for i in range(POINTS):
+            f_rf = RF_START_HZ + i * step
+            s["lo"].write(f"FREQ {f_rf - IF_HZ:.0f}")
+            s["rf"].write(f"FREQ {f_rf:.0f}")
+            s["lo"].query("*OPC?")
+            s["rf"].query("*OPC?")
+            time.sleep(SETTLE_S)
+            s["sa"].write("INIT")
+            s["sa"].query("*OPC?")
+            levels.append(float(s["sa"].query("CALC:MARK1:Y?")))
+        for role in ("rf", "lo", "dc"):
+            s[role].write("OUTP OFF")
+        for role in s:
+            errors = s[role].query("SYST:ERR?")
+            assert errors.startswith("0"), (role, errors)
+    finally:
+        for session in opened.values():
+            session.close()
+        rm.close()
+    assert len(levels) == POINTS and all(-40 < x < 0 for x in levels), levels
+    return time.perf_counter() - t0, POINTS, sum(c.count for c in s.values())
+
+
+def _bench_file(folder: Path, resources: dict[str, str]) -> Path:
+    path = folder / "bench.toml"
+    # no simctl role: the engine settles on the wall clock, as the hand loop and a real bench do
+    path.write_text(served_bench_text({r: v for r, v in resources.items() if r != "simctl"}),
+                    encoding="utf-8")
+    return path
+
+
+def _engine(folder: Path, resources: dict[str, str], *, bus_log: bool
+            ) -> tuple[float, int, int | None]:
+    """`sweeprig run` of the same readings; returns (wall s, points, transactions or None)."""
+    store = folder / f"e{time.monotonic_ns()}.sqlite"
+    t0 = time.perf_counter()
+    outcome = run_sequence(SEQUENCE, _bench_file(folder, resources), store_path=store,
+                           bus_log=bus_log)
+    wall = time.perf_counter() - t0
+    assert outcome.status == "complete", outcome.reason
+    transactions = None
+    if bus_log:
+        with SqliteRunStore(store, create=False) as db:
+            transactions = len(db.bus_log(outcome.run_id))
+    return wall, outcome.points_done, transactions
+
+
+def test_engine_against_a_hand_written_loop(tmp_path: Path) -> None:
+    hand_s, engine_s = [], []
+    with start_sim_bench(clock=VirtualClock()) as sim:
+        resources = dict(sim.resources)
+        _, _, engine_tx = _engine(tmp_path, resources, bus_log=True)
+        hand_tx = 0
+        for _ in range(REPEATS):
+            wall, n, hand_tx = _hand_loop(resources)
+            hand_s.append(wall / n)
+            wall, n, _ = _engine(tmp_path, resources, bus_log=False)
+            engine_s.append(wall / n)
+    hand, engine = statistics.median(hand_s), statistics.median(engine_s)
+    assert engine_tx is not None
+    print(f"\nhand loop: {hand * 1e3:.1f} ms/point, {hand_tx / POINTS:.1f} transactions/point; "
+          f"sweeprig run: {engine * 1e3:.1f} ms/point, {engine_tx / POINTS:.1f} "
+          f"transactions/point; ratios engine/hand: time {engine / hand:.2f}, transactions "
+          f"{engine_tx / hand_tx:.2f} (floors <= 1.0; {POINTS} points, settle "
+          f"{SETTLE_S * 1e3:.0f} ms, median of {REPEATS}, whole commands incl. connect)")
