@@ -18,7 +18,7 @@ import pytest
 
 from sweeprig.engine.session import shipped_sequences_dir
 
-pytestmark = pytest.mark.perf
+pytestmark = [pytest.mark.perf, pytest.mark.timeout(3 * 3600)]
 
 QUICK = shipped_sequences_dir() / "demo" / "quick.toml"
 SAMPLE_EVERY_S = 10.0
