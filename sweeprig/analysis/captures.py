@@ -28,7 +28,15 @@ rbw_hz              analyzer resolution bandwidth of the reading, Hz
 port                DUT port the reading was taken at (``if``, ``rf``, ``lo``)
 risks               the planner's predicted risks, comma-separated (``""``: none predicted;
                     None: no prediction stored)
+output_freq_hz      the point's wanted output frequency |m·f_LO + n·f_RF|, Hz (the RF of an
+                    upconverter, the IF of a downconverter; built by
+                    :func:`sweeprig.analysis.load.captures_from_frames`)
 ==================  =========================================================================
+
+``rf_*`` columns and the ``rf`` port name the mixer's input and ``if`` its output, whichever
+the direction: for an upconverter (whose input the trade calls its IF) they hold the IF input
+and the RF output (see :mod:`sweeprig.analysis.direction`). The ``sideband`` reading is an
+upconverter's unwanted sideband at its output.
 
 Optional columns (``rf2_*``, ``noise_floor_dbm``, ``m``, ``n``, ``overload``,
 ``atten_check``, ``attenuation_db``, ``value``, ``rbw_hz``, ``port``, ``risks``) may be
@@ -109,6 +117,7 @@ READINGS: tuple[str, ...] = (
     "im2_high",
     "supply_current",
     "if_tone2",
+    "sideband",
 )
 
 #: A line closer to a product than this many RBWs merges with it in the RBW filter (the
