@@ -66,6 +66,22 @@ PORT_NAMED_KINDS: Mapping[str, str] = MappingProxyType({
     "lo_at_if": "lo_at_output", "lo_at_rf": "lo_at_input", "rf_at_if": "input_at_output",
 })
 
+#: ``[part]`` isolation keys: direction-neutral and per conversion → the model's key (the
+#: model's ``lo_if`` is the output port, ``lo_rf`` the input port, ``rf_if`` input→output).
+PART_KEYS: Mapping[str, Mapping[str, str]] = MappingProxyType({
+    "neutral": MappingProxyType({
+        "expected_lo_output_isolation": "expected_lo_if_isolation",
+        "expected_lo_input_isolation": "expected_lo_rf_isolation",
+        "expected_input_output_isolation": "expected_rf_if_isolation"}),
+    "down": MappingProxyType({}),
+    "up": MappingProxyType({
+        "expected_lo_rf_isolation": "expected_lo_if_isolation",
+        "expected_lo_if_isolation": "expected_lo_rf_isolation",
+        "expected_if_rf_isolation": "expected_rf_if_isolation"}),
+})
+#: Most values an output-frequency sweep may hold (it becomes a list of LO frequencies).
+MAX_OUTPUT_SWEEP = 100_000
+
 _MODEL_TO_NEUTRAL = {v: k for k, v in NEUTRAL_KEYS.items()}
 
 
@@ -120,10 +136,20 @@ def migration_error(data: Mapping[str, Any], where: Callable[[KeyPath], str]
         return None
     renames: list[tuple[KeyPath, str, str]] = []
     mixing = data.get("mixing")
-    if isinstance(mixing, Mapping) and "if_frequency" in mixing:
+    old_style = isinstance(mixing, Mapping) and "if_frequency" in mixing
+    if old_style:
         renames.append((("mixing", "if_frequency"), "if_frequency",
                         "rf_frequency (or output_frequency)"))
     studies = data.get("study")
+    old_style |= any(isinstance(st, Mapping) and "rf_power" in st
+                     for st in (studies if isinstance(studies, list) else ()))
+    part = data.get("part")
+    if isinstance(part, Mapping):
+        old_part = {"expected_rf_if_isolation": "expected_if_rf_isolation"}
+        if old_style:  # the old spelling named the output port IF and the input port RF
+            old_part |= {"expected_lo_if_isolation": "expected_lo_rf_isolation",
+                         "expected_lo_rf_isolation": "expected_lo_if_isolation"}
+        renames += [(("part", key), key, new) for key, new in old_part.items() if key in part]
     for i, study in enumerate(studies if isinstance(studies, list) else ()):
         if not isinstance(study, Mapping) or "rf_power" not in study:
             continue
@@ -198,7 +224,12 @@ def canonical_table(data: Mapping[str, Any], where: Callable[[KeyPath], str]
                 paths[(*base, target)] = (*base, key)
         return result
 
+    part = data.get("part")
+    if isinstance(part, Mapping):
+        out["part"] = rename_keys(part, ("part",), {**PART_KEYS["neutral"],
+                                                   **PART_KEYS[conversion]})
     mixing = data.get("mixing")
+    lo_side = mixing.get("lo_side", "low") if isinstance(mixing, Mapping) else "low"
     if isinstance(mixing, Mapping):
         mixing_names = {"output_frequency": "if_frequency",
                         trade_key("if_frequency", conversion): "if_frequency"}
@@ -222,16 +253,74 @@ def canonical_table(data: Mapping[str, Any], where: Callable[[KeyPath], str]
                         f"give {trade_key(model_key, conversion)} = ... (or "
                         f"{_MODEL_TO_NEUTRAL[model_key]}): for a {conversion}converter the "
                         f"input is its {'IF' if conversion == 'up' else 'RF'}")
+            swept_output = _is_sweep(table.get("if_frequency"))
+            if swept_output:
+                table = _output_sweep_as_lo(table, i, conversion, str(lo_side), where,
+                                            paths.get(("study", i, "if_frequency"),
+                                                      ("study", i, "if_frequency")))
+                paths[("study", i, "lo_frequency")] = paths.pop(
+                    ("study", i, "if_frequency"), ("study", i, "if_frequency"))
             nesting = table.get("nesting")
             if isinstance(nesting, list):
                 table["nesting"] = [names.get(n, n) if isinstance(n, str) else n
                                     for n in nesting]
+                if swept_output:
+                    table["nesting"] = ["lo_frequency" if n == "if_frequency" else n
+                                        for n in table["nesting"]]
             read = table.get("read")
             if isinstance(read, list):
                 table["read"] = [_canonical_kind(item) for item in read]
             new_studies.append(table)
         out["study"] = new_studies
     return out, Spelling(MappingProxyType(paths))
+
+
+def _is_sweep(value: Any) -> bool:
+    return isinstance(value, list | Mapping)
+
+
+def _output_sweep_as_lo(table: dict[str, Any], i: int, conversion: str, lo_side: str,
+                        where: Callable[[KeyPath], str], file_path: KeyPath) -> dict[str, Any]:
+    """A study sweeping its output frequency at a fixed input: the LO tracks the output, so
+    the sweep becomes the list of LO frequencies f_LO = lo_for_if(f_in, f_out) (the field
+    notes' frequency plan), point for point in the output's order."""
+    from pydantic import TypeAdapter, ValidationError
+
+    from sweeprig.errors import UnitError
+    from sweeprig.formats.fields import RangeSpec, axis
+    from sweeprig.plan.axes import axis_from_spec
+    from sweeprig.plan.frequencies import lo_for_if
+    from sweeprig.units import parse_quantity
+
+    key = file_path[-1]
+    if "lo_frequency" in table:
+        raise _problem(where, file_path, f"the study sweeps the output ({key}) and gives "
+                       "lo_frequency", "give one of them: the LO follows a swept output, or "
+                       "is swept itself")
+    f_in = table.get("rf_frequency")
+    if _is_sweep(f_in) or f_in is None:
+        raise _problem(where, file_path, f"the study sweeps the output ({key}) and the input "
+                       "frequency", "sweep one of them at a fixed value of the other: the LO "
+                       "follows so the output lands where stated")
+    try:
+        f_in_hz = parse_quantity(f_in, "frequency")
+        spec = TypeAdapter(axis("frequency")).validate_python(table["if_frequency"])
+    except UnitError as exc:
+        raise InputError(exc.what, where=where(file_path), fix=exc.fix) from None
+    except ValidationError as exc:
+        first = exc.errors(include_url=False)[0]
+        raise _problem(where, file_path, f"{key}: {first['msg']}",
+                       "write the output sweep as a list or a range {start, stop, step}"
+                       ) from None
+    count = spec.count() if isinstance(spec, RangeSpec) else len(spec)
+    if count > MAX_OUTPUT_SWEEP:
+        raise _problem(where, file_path, f"the output sweep holds {count:,} values, above "
+                       f"{MAX_OUTPUT_SWEEP:,}", "use a coarser step, or sweep lo_frequency")
+    outputs = axis_from_spec("if_frequency", spec).all_values()
+    los = [float(lo_for_if(f_in_hz, float(f), conversion, lo_side)) for f in outputs]
+    result = {k: v for k, v in table.items() if k != "if_frequency"}
+    result["lo_frequency"] = los
+    return result
 
 
 def _canonical_kind(item: Any) -> Any:

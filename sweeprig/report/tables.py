@@ -47,6 +47,7 @@ HEADLINE_FIGURES: tuple[str, ...] = (
     "output_p1db", "output_psat", "iip3", "oip3", "iip2", "lo_power_for_gain",
     "lo_if_isolation", "lo_rf_isolation", "rf_if_isolation", "image_rejection",
     "supply_current", "spur_dbc",
+    "if_rf_isolation", "sideband_suppression", "lo_suppression", "lo_leakage",
 )
 
 #: Short labels of the figures as a datasheet prints them.
@@ -74,6 +75,11 @@ FIGURE_LABELS: Mapping[str, str] = MappingProxyType({
     "dc_power": "DC power",
     "spur_dbc": "Worst m×n spur",
     "spur_dbm": "m×n spur level",
+    # an upconverter's (its input is the IF, its output the RF)
+    "if_rf_isolation": "IF→RF isolation",
+    "sideband_suppression": "Unwanted-sideband suppression",
+    "lo_suppression": "LO (carrier) suppression",
+    "lo_leakage": "LO leakage at RF port",
 })
 
 #: Figures where a larger value is the better one (the worst is the smallest) ...
@@ -82,11 +88,13 @@ HIGHER_IS_BETTER = frozenset({
     "input_p3db", "output_p3db", "output_psat", "iip3", "oip3", "iip2", "iip3_low", "iip3_high",
     "oip3_low", "oip3_high", "iip2_low", "iip2_high", "lo_if_isolation", "lo_rf_isolation",
     "rf_if_isolation", "image_rejection",
+    "if_rf_isolation", "sideband_suppression", "lo_suppression",
 })
 #: ... and where a smaller one is (the worst is the largest). Others show their range.
 LOWER_IS_BETTER = frozenset({
     "gain_flatness", "lo_power_for_gain", "supply_current", "dc_power", "spur_dbc", "spur_dbm",
     "im3_low", "im3_high",
+    "lo_leakage",
 })
 
 #: Flag name → (badge text, explanation shown as a tooltip).
