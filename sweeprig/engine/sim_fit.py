@@ -53,6 +53,10 @@ def plan_ranges(sequence: Sequence) -> dict[str, tuple[float, float]]:
     return {k: (min(v), max(v)) for k, v in found.items() if v}
 
 
+def _a(conversion: str) -> str:
+    return "an upconverter" if conversion == "up" else "a downconverter"
+
+
 def _mhz(freq_hz: float) -> str:
     return f"{freq_hz / 1e9:g} GHz" if freq_hz >= 1e9 else f"{freq_hz / 1e6:g} MHz"
 
@@ -77,8 +81,8 @@ def sim_part_warnings(sequence: Sequence, sim_description: object = None) -> lis
            'upconverter "kx-5860u"), or give --sim-bench a description with that part')
     wanted = sequence.mixing.conversion
     if part.conversion != wanted:
-        return [f"the simulated part {part.name} is a {part.conversion}converter, but the "
-                f"sequence is written for a {wanted}converter: every figure of this dry run "
+        return [f"the simulated part {part.name} is {_a(part.conversion)}, but the "
+                f"sequence is written for {_a(wanted)}: every figure of this dry run "
                 f"describes the wrong part (a gain tens of dB low is the plan, not the "
                 f"mixer); {fix}"]
     ranges = plan_ranges(sequence)

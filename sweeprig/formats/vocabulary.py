@@ -249,7 +249,8 @@ def canonical_table(data: Mapping[str, Any], where: Callable[[KeyPath], str]
                 if conversion == "up" and model_key not in table:
                     raise _problem(
                         where, ("study", i),
-                        f"study[{i}] of this upconverter gives no {_meaning(model_key)}",
+                        f"study[{i}] of this upconverter does not give "
+                        f"{_meaning(model_key)}",
                         f"give {trade_key(model_key, conversion)} = ... (or "
                         f"{_MODEL_TO_NEUTRAL[model_key]}): for a {conversion}converter the "
                         f"input is its {'IF' if conversion == 'up' else 'RF'}")
