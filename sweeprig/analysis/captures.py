@@ -91,6 +91,8 @@ N = "n"
 RBW = "rbw_hz"
 PORT = "port"
 RISKS = "risks"
+#: The point's wanted output frequency, Hz (optional: NaN when the table has none).
+OUTPUT_FREQ = "output_freq_hz"
 
 #: The settings of a point, in the order figures list them.
 CONDITION_COLUMNS: tuple[str, ...] = (
@@ -144,7 +146,8 @@ COLUMN_ALIASES: Mapping[str, str] = MappingProxyType(
 
 _REQUIRED = (POINT, STUDY, "temperature_c", "supply_v", "lo_freq_hz", "lo_power_dbm",
              "rf_freq_hz", "rf_power_dbm", READING, FREQ, LEVEL)
-_OPTIONAL_FLOAT = ("rf2_freq_hz", "rf2_power_dbm", NOISE_FLOOR, ATTENUATION, VALUE, M, N, RBW)
+_OPTIONAL_FLOAT = ("rf2_freq_hz", "rf2_power_dbm", NOISE_FLOOR, ATTENUATION, VALUE, M, N, RBW,
+                   OUTPUT_FREQ)
 _OPTIONAL_BOOL = (OVERLOAD_COL, ATTEN_CHECK)
 _OPTIONAL_OBJECT = (PORT, RISKS)
 _NUMERIC = (*CONDITION_COLUMNS, FREQ, LEVEL, NOISE_FLOOR, ATTENUATION, VALUE, M, N, RBW)
@@ -305,6 +308,8 @@ def point_table(
     table[STUDY] = cols[STUDY][first_row]
     for col in CONDITION_COLUMNS:
         table[col] = cols[col][first_row]
+    if OUTPUT_FREQ in cols:
+        table[OUTPUT_FREQ] = np.asarray(cols[OUTPUT_FREQ], dtype=float)[first_row]
     reading_codes, reading_names = pd.factorize(cols[READING])
     name_to_code = {str(name): i for i, name in enumerate(reading_names)}
     atten = cols[ATTEN_CHECK]

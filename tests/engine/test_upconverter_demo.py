@@ -86,6 +86,10 @@ def test_gain_carries_the_output_frequency_it_was_measured_at(demo_run):
         assert f.conditions["output_freq_hz"] == pytest.approx(
             f.conditions["lo_freq_hz"] + f.conditions["rf_freq_hz"])
     assert "output_freq_hz" in run.captures.columns
+    from sweeprig.analysis import gain_table
+
+    table = gain_table(run.captures, study="output-band")
+    assert sorted(table["output_freq_hz"]) == pytest.approx(outputs)
 
 
 def test_a_downconverter_sequence_on_the_upconverter_part_is_warned(tmp_path: Path):
