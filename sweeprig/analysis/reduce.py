@@ -135,6 +135,10 @@ class RunFigures:
     events: tuple[EventRecord, ...]
     notes: tuple[str, ...]
     captures: pd.DataFrame = field(compare=False, repr=False)
+    #: "down" or "up": the words the figures and their conditions are read in (an
+    #: upconverter's ``rf_*`` conditions are its IF input; see
+    #: :mod:`sweeprig.analysis.direction`). "down" when the sequence could not be read.
+    conversion: str = "down"
 
     def figures_named(self, name: str) -> list[Figure]:
         """Every figure called ``name``, in reduction order."""
@@ -236,6 +240,7 @@ def reduce_run(store: RunStore, run_id: int) -> RunFigures:
         events=events,
         notes=tuple(notes),
         captures=captures,
+        conversion=conversion,
     )
 
 

@@ -130,3 +130,19 @@ def test_ports_outside_the_simulated_parts_band_are_warned(tmp_path: Path):
     path.write_text(text, encoding="utf-8")
     warnings = load_run_files(path, None, sim=True).sim_warnings
     assert any("IF port (input)" in w and "700 MHz" in w for w in warnings), warnings
+
+
+def test_the_report_reads_an_upconverters_conditions_in_its_words(demo_run):
+    """The summary names the 100 MHz input the IF and the 5.6-6.0 GHz output the RF."""
+    from sweeprig.report.tables import summary_rows
+
+    _outcome, run, _events = demo_run
+    assert run.conversion == "up"
+    rows = {(r.name, r.study): r for r in summary_rows(run)}
+    band = rows[("conversion_gain", "output-band")].conditions_text
+    assert "RF 5.6 GHz–6 GHz" in band, band  # the output swept across the RF band
+    assert "RF 100 MHz" not in band
+    single = rows[("conversion_gain", "if-band")].conditions_text
+    assert "IF 50 MHz–150 MHz" in single, single
+    assert rows[("lo_rf_isolation", "output-band")].label == "LO→RF isolation"
+    assert rows[("sideband_suppression", "output-band")].label == "Unwanted-sideband suppression"
