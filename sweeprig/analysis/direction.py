@@ -28,9 +28,9 @@ from __future__ import annotations
 import dataclasses
 from collections.abc import Mapping, Sequence
 from types import MappingProxyType
+from typing import TYPE_CHECKING
 
 import numpy as np
-import pandas as pd
 
 from sweeprig.analysis import validity
 from sweeprig.analysis.captures import conditions_records, has_bit, point_table
@@ -42,6 +42,9 @@ from sweeprig.analysis.figures import (
     Figure,
     make_figures,
 )
+
+if TYPE_CHECKING:
+    import pandas as pd
 
 #: Positional (downconverter) figure name → the upconverter's name for it.
 UP_NAMES: Mapping[str, str] = MappingProxyType({
