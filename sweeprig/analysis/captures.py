@@ -28,7 +28,15 @@ rbw_hz              analyzer resolution bandwidth of the reading, Hz
 port                DUT port the reading was taken at (``if``, ``rf``, ``lo``)
 risks               the planner's predicted risks, comma-separated (``""``: none predicted;
                     None: no prediction stored)
+output_freq_hz      the point's wanted output frequency |m·f_LO + n·f_RF|, Hz (the RF of an
+                    upconverter, the IF of a downconverter; built by
+                    :func:`sweeprig.analysis.load.captures_from_frames`)
 ==================  =========================================================================
+
+``rf_*`` columns and the ``rf`` port name the mixer's input and ``if`` its output, whichever
+the direction: for an upconverter (whose input the trade calls its IF) they hold the IF input
+and the RF output (see :mod:`sweeprig.analysis.direction`). The ``sideband`` reading is an
+upconverter's unwanted sideband at its output.
 
 Optional columns (``rf2_*``, ``noise_floor_dbm``, ``m``, ``n``, ``overload``,
 ``atten_check``, ``attenuation_db``, ``value``, ``rbw_hz``, ``port``, ``risks``) may be
@@ -83,6 +91,8 @@ N = "n"
 RBW = "rbw_hz"
 PORT = "port"
 RISKS = "risks"
+#: The point's wanted output frequency, Hz (optional: NaN when the table has none).
+OUTPUT_FREQ = "output_freq_hz"
 
 #: The settings of a point, in the order figures list them.
 CONDITION_COLUMNS: tuple[str, ...] = (
@@ -109,6 +119,7 @@ READINGS: tuple[str, ...] = (
     "im2_high",
     "supply_current",
     "if_tone2",
+    "sideband",
 )
 
 #: A line closer to a product than this many RBWs merges with it in the RBW filter (the
@@ -135,7 +146,8 @@ COLUMN_ALIASES: Mapping[str, str] = MappingProxyType(
 
 _REQUIRED = (POINT, STUDY, "temperature_c", "supply_v", "lo_freq_hz", "lo_power_dbm",
              "rf_freq_hz", "rf_power_dbm", READING, FREQ, LEVEL)
-_OPTIONAL_FLOAT = ("rf2_freq_hz", "rf2_power_dbm", NOISE_FLOOR, ATTENUATION, VALUE, M, N, RBW)
+_OPTIONAL_FLOAT = ("rf2_freq_hz", "rf2_power_dbm", NOISE_FLOOR, ATTENUATION, VALUE, M, N, RBW,
+                   OUTPUT_FREQ)
 _OPTIONAL_BOOL = (OVERLOAD_COL, ATTEN_CHECK)
 _OPTIONAL_OBJECT = (PORT, RISKS)
 _NUMERIC = (*CONDITION_COLUMNS, FREQ, LEVEL, NOISE_FLOOR, ATTENUATION, VALUE, M, N, RBW)
@@ -296,6 +308,8 @@ def point_table(
     table[STUDY] = cols[STUDY][first_row]
     for col in CONDITION_COLUMNS:
         table[col] = cols[col][first_row]
+    if OUTPUT_FREQ in cols:
+        table[OUTPUT_FREQ] = np.asarray(cols[OUTPUT_FREQ], dtype=float)[first_row]
     reading_codes, reading_names = pd.factorize(cols[READING])
     name_to_code = {str(name): i for i, name in enumerate(reading_names)}
     atten = cols[ATTEN_CHECK]

@@ -303,6 +303,13 @@ FIGURE_CATALOGUE: Mapping[str, tuple[str, str]] = MappingProxyType(
         "lo_rf_isolation": ("dB", "LO power at the LO port − LO leakage at the RF port"),
         "rf_if_isolation": ("dB", "RF power at the RF port − RF leakage at the IF port"),
         "image_rejection": ("dB", "gain at the wanted RF − gain at the image frequency"),
+        "if_rf_isolation": ("dB", "upconverter: IF power at the IF (input) port − IF leakage "
+                            "at the RF (output) port"),
+        "sideband_suppression": ("dBc", "upconverter: wanted output − unwanted sideband, both "
+                                 "at the RF (output) port"),
+        "lo_suppression": ("dBc", "upconverter: wanted output − LO leakage at the RF (output) "
+                           "port (carrier suppression)"),
+        "lo_leakage": ("dBm", "upconverter: LO leakage at the RF (output) port"),
         "supply_current": ("A", "DC supply current"),
         "dc_power": ("W", "DC power: supply voltage × supply current"),
     }

@@ -69,6 +69,7 @@ DIRECT_KINDS: dict[str, str] = {
     "rf_at_if": "rf_at_if",
     "image": "image",
     "supply_current": "supply_current",
+    "sideband": "sideband",
 }
 #: Two-tone products: (store kind, name suffix) → capture reading.
 PRODUCT_SUFFIXES: dict[tuple[str, str], str] = {
@@ -87,6 +88,7 @@ CAPTURE_COLUMNS: tuple[str, ...] = (
     "point", "study", *CONDITION_COLUMNS, "reading", "freq_hz", "level_dbm", "noise_floor_dbm",
     "m", "n", "overload", "atten_check", "attenuation_db", "value", "reading_no", "source_name",
     "kind", "port", "rbw_hz", "averages", "probe_temperature_c", "risks",
+    "output_freq_hz",
 )
 
 _POINT_NEEDS = ("point_index", "study", *CONDITION_COLUMNS)
@@ -192,6 +194,9 @@ def captures_from_frames(
                _supply_values(rows, out, settings, at))
     out["risks"] = (_risks_column(rows["extra_json"].to_numpy()) if "extra_json" in rows
                     else np.full(len(out), None, dtype=object))
+    m_out, n_out = wanted_orders if wanted_orders is not None else DEFAULT_WANTED_ORDERS
+    out["output_freq_hz"] = np.abs(m_out * out["lo_freq_hz"].to_numpy(dtype=float)
+                                   + n_out * out["rf_freq_hz"].to_numpy(dtype=float))
     out = out.sort_values(["point", "reading_no"], kind="stable").reset_index(drop=True)
     return out[list(CAPTURE_COLUMNS)]
 

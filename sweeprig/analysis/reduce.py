@@ -65,6 +65,7 @@ ROLE_SPURS = "spurs"
 ROLE_ISOLATION = "isolation"
 ROLE_IMAGE = "image"
 ROLE_SUPPLY = "supply"
+ROLE_SIDEBAND = "sideband"
 
 #: Run states shown in reports: ``complete``, ``aborted``, ``unsafe`` (the bench's safe state
 #: could not be verified by read-back when the run ended), or ``partial`` (not finished: still
@@ -134,6 +135,10 @@ class RunFigures:
     events: tuple[EventRecord, ...]
     notes: tuple[str, ...]
     captures: pd.DataFrame = field(compare=False, repr=False)
+    #: "down" or "up": the words the figures and their conditions are read in (an
+    #: upconverter's ``rf_*`` conditions are its IF input; see
+    #: :mod:`sweeprig.analysis.direction`). "down" when the sequence could not be read.
+    conversion: str = "down"
 
     def figures_named(self, name: str) -> list[Figure]:
         """Every figure called ``name``, in reduction order."""
@@ -163,11 +168,19 @@ def reduce_run(store: RunStore, run_id: int) -> RunFigures:
     sequence = _stored_sequence(info.sequence_text, info.sequence_path, info.sequence_sha256,
                                 store.run_files(run_id), notes)
     orders = None
+    conversion = "down"
     if sequence is not None:
-        orders = wanted_orders(sequence.mixing.conversion, sequence.mixing.lo_side)
+        conversion = sequence.mixing.conversion
+        orders = wanted_orders(conversion, sequence.mixing.lo_side)
     captures = captures_from_frames(points, readings, wanted_orders=orders)
     studies = _study_infos(captures, points, sequence)
     figures = _figures(captures, studies, notes)
+    if conversion == "up" and not captures.empty:
+        from sweeprig.analysis.direction import upconverter_figures
+
+        if names := [s.name for s in studies
+                     if ROLE_ISOLATION in s.roles or ROLE_SIDEBAND in s.roles]:
+            figures += upconverter_figures(captures, study=names)
     if sequence is not None:
         figures = _flag_unpowered(figures, captures, sequence.part.expected_gain, notes)
         expected_current = getattr(sequence.part, "expected_supply_current", None)
@@ -178,6 +191,7 @@ def reduce_run(store: RunStore, run_id: int) -> RunFigures:
     calibration, calibration_note = calibration_state(events)
     notes += [calibration_note] if calibration_note else []
     figures = attach_uncertainty(figures, captures, bench_specs.specs, calibration)
+    figures = _in_trade_words(figures, conversion, orders)
     limits = limits_from_sequence(sequence) if sequence is not None else ()
     assessment = assess(figures, limits, guard_band=bench_specs.guard_band)
     state = _state(info.status, info.points_done, info.points_total)
@@ -226,6 +240,7 @@ def reduce_run(store: RunStore, run_id: int) -> RunFigures:
         events=events,
         notes=tuple(notes),
         captures=captures,
+        conversion=conversion,
     )
 
 
@@ -247,7 +262,20 @@ SPEC_FIGURES: Mapping[str, str] = MappingProxyType({
     "image_rejection_db": "image_rejection",
     "supply_current_a": "supply_current",
     "spur_dbc": "spur_dbc",
+    "if_rf_isolation_db": "if_rf_isolation",
+    "sideband_suppression_dbc": "sideband_suppression",
+    "lo_suppression_dbc": "lo_suppression",
+    "lo_leakage_dbm": "lo_leakage",
 })
+
+
+def _in_trade_words(figures: list[Figure], conversion: str, orders: tuple[int, int] | None
+                    ) -> list[Figure]:
+    """Figures named for the conversion direction, each with its point's output frequency
+    (condition ``output_freq_hz``; see :mod:`sweeprig.analysis.direction`)."""
+    from sweeprig.analysis.direction import trade_named, with_output_frequency
+
+    return with_output_frequency(trade_named(figures, conversion), orders)
 
 
 def limits_from_sequence(sequence: Sequence) -> tuple[Limit, ...]:
@@ -408,6 +436,8 @@ def _roles(
         roles.append(ROLE_IMAGE)
     if "supply_current" in readings:
         roles.append(ROLE_SUPPLY)
+    if "sideband" in readings:
+        roles.append(ROLE_SIDEBAND)
     return tuple(roles)
 
 
@@ -511,6 +541,13 @@ ROLE_SPEC_FIGURES: Mapping[str, tuple[tuple[str, tuple[str, ...]], ...]] = Mappi
     ROLE_SUPPLY: (("supply_current", ()),),
     ROLE_SPURS: (("spur_dbc", ()),),
 })
+#: The upconverter's own figures (:func:`sweeprig.analysis.direction.upconverter_figures`),
+#: in the same form; the positional names above are renamed for it by
+#: :func:`sweeprig.analysis.direction.trade_name`.
+UP_ROLE_SPEC_FIGURES: Mapping[str, tuple[tuple[str, tuple[str, ...]], ...]] = MappingProxyType({
+    ROLE_ISOLATION: (("lo_suppression", ("if", "lo_at_if")), ("lo_leakage", ("lo_at_if",))),
+    ROLE_SIDEBAND: (("sideband_suppression", ("if", "sideband")),),
+})
 
 
 def planned_readings(study: Study) -> tuple[str, ...]:
@@ -534,13 +571,18 @@ def planned_figure_names(sequence: Sequence) -> dict[str, tuple[str, ...]]:
     """Per study (file order), the analysis names of the figures a ``[[spec]]`` can name
     that its results will hold: the study roles :func:`reduce_run` gives it, from its axes
     and readings."""
+    from sweeprig.analysis.direction import trade_name
+
+    conversion = sequence.mixing.conversion
     out: dict[str, tuple[str, ...]] = {}
     for study in sequence.study:
         readings = planned_readings(study)
         roles = _roles(readings, *_shape_from_sequence(study),
                        temperatures=sequence.temperature_count())
+        tables = [ROLE_SPEC_FIGURES] + ([UP_ROLE_SPEC_FIGURES] if conversion == "up" else [])
         out[study.name] = tuple(
-            name for role in roles for name, needs in ROLE_SPEC_FIGURES.get(role, ())
+            trade_name(name, conversion) for table in tables for role in roles
+            for name, needs in table.get(role, ())
             if all(any(r in readings for r in item.split("|")) for item in needs))
     return out
 

@@ -242,6 +242,7 @@ def plan(
         "--accept-calibration", help="accept an expired calibration")] = False,
 ) -> None:
     from sweeprig.formats.sequence import load_sequence
+    from sweeprig.formats.vocabulary import file_key
     from sweeprig.plan.duration import estimate_duration, format_duration
     from sweeprig.plan.expand import layout
     from sweeprig.plan.preflight import check_limits, format_amount, risk_refusal, safety_error
@@ -259,6 +260,11 @@ def plan(
         check_specs(seq)
         report = check_limits(seq, loaded_bench)
         estimate = estimate_duration(seq, loaded_bench)
+        sim_warnings: list[str] = []
+        if bench is None:  # the simulated bench: can its part serve this plan?
+            from sweeprig.engine.sim_fit import sim_part_warnings
+
+            sim_warnings = sim_part_warnings(seq)
     except SweeprigError as exc:
         raise _fail(exc) from None
     out = _out()
@@ -270,13 +276,16 @@ def plan(
         out.print(Text(status))
     out.print(f"{lay.total:,} points = {lay.pass_size:,} per pass × {lay.n_temperatures} "
               f"temperature(s) × {lay.n_supplies} supply voltage(s)")
+    for warning in sim_warnings:
+        out.print(Text("warning: ", style="bold yellow") + Text(one_line(warning)))
 
     studies = Table(title="Studies", title_justify="left")
     for col in ("study", "points", "axes (outer → inner)", "predicted time"):
         studies.add_column(col, justify="right" if col == "points" else "left")
     by_name = {s.name: s for s in estimate.studies}
     for block in lay.blocks:
-        axes = ", ".join(f"{a.name} ×{a.count}" for a in block.axes)
+        axes = ", ".join(f"{file_key(a.name, seq.mixing.conversion)} ×{a.count}"
+                         for a in block.axes)
         est = by_name[block.study.name]
         studies.add_row(block.study.name, f"{est.points:,}", axes,
                         format_duration(est.total_s) + (" (sampled)" if est.sampled else ""))

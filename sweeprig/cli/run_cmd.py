@@ -149,6 +149,8 @@ def _drive(start: Callable[..., RunOutcome], *, quiet: bool, report: bool = True
         where = "the simulated bench" if files.simulated else files.bench_path
         console.print(Text(f"run {run_id}: {one_line(files.sequence_path)} on {one_line(where)}, "
                            f"{total} points"))
+        for warning in files.sim_warnings:
+            console.print(Text(f"warning: {warning}", style="yellow"))
         state["task"] = progress.add_task(f"run {run_id}", total=total, eta="…")
         progress.start()
 

@@ -126,6 +126,9 @@ class LoadedFiles:
     calibration: Calibration | None = None
     accept_calibration: bool = False
     calibration_warnings: tuple[str, ...] = ()
+    sim_warnings: tuple[str, ...] = ()
+    """Why the simulated part cannot serve the sequence (:mod:`sweeprig.engine.sim_fit`):
+    printed by ``run --sim`` and recorded with the run."""
 
 
 def sequence_files(sequence: Sequence, path: Path) -> tuple[RunFile, ...]:
@@ -203,6 +206,11 @@ def load_run_files(sequence_path: str | Path, bench_path: str | Path | None, *,
         cal_warnings += [warning] if warning else []
         apply_calibration(bench, cal)
     report = preflight(sequence, bench)
+    sim_warnings: list[str] = []
+    if sim:
+        from sweeprig.engine.sim_fit import sim_part_warnings
+
+        sim_warnings = sim_part_warnings(sequence, sim_description)
     return LoadedFiles(
         sequence=sequence,
         sequence_path=seq_path,
@@ -216,6 +224,7 @@ def load_run_files(sequence_path: str | Path, bench_path: str | Path | None, *,
         calibration=cal,
         accept_calibration=accept_calibration,
         calibration_warnings=tuple(cal_warnings),
+        sim_warnings=tuple(sim_warnings),
     )
 
 
@@ -529,6 +538,8 @@ def _execute(
                                  "text": files.calibration.text})
             for warning in cal_warnings:
                 store.log_event(run_id, "warning", "calibration", warning)
+            for warning in files.sim_warnings:
+                store.log_event(run_id, "warning", "sim_part", warning)
             store.heartbeat(run_id)
             if on_start is not None:
                 on_start(run_id, total, files)

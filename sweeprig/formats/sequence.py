@@ -13,7 +13,7 @@ from collections.abc import Callable
 from pathlib import Path
 from typing import Annotated, Any, Literal
 
-from pydantic import BeforeValidator, Discriminator, Field, Tag, WithJsonSchema
+from pydantic import BeforeValidator, Discriminator, Field, Tag, ValidationError, WithJsonSchema
 from pydantic_core import PydanticCustomError
 
 from sweeprig.errors import InputError, UnitError
@@ -35,7 +35,7 @@ from sweeprig.formats.fields import (
     axis,
     axis_len,
 )
-from sweeprig.formats.loading import load_document, validate
+from sweeprig.formats.loading import load_document, validation_error
 from sweeprig.formats.point_limit import DEFAULT_MAX_POINTS
 from sweeprig.formats.toml_locate import KeyPath, format_key_path
 from sweeprig.units import parse_quantity
@@ -50,10 +50,12 @@ AxisName = Literal["lo_frequency", "lo_power", "tone_spacing", "rf_frequency", "
 READING_KINDS: tuple[str, ...] = (
     "wanted", "lo_at_if", "lo_at_rf", "rf_at_if", "image", "mxn", "im3", "im2",
     "supply_current", "input_power",
+    "sideband",
 )
 ReadingKind = Literal[
     "wanted", "lo_at_if", "lo_at_rf", "rf_at_if", "image", "mxn", "im3", "im2",
     "supply_current", "input_power",
+    "sideband",
 ]
 #: Readings that measure distortion (eligible for the attenuation check).
 DISTORTION_KINDS = frozenset({"mxn", "im3", "im2"})
@@ -73,11 +75,17 @@ FIGURES: dict[str, str] = {
     "image_rejection_db": "level_db",
     "supply_current_a": "current",
     "spur_dbc": "level_db",
+    # upconverters (see formats/vocabulary.py): the RF port is the output
+    "if_rf_isolation_db": "level_db",
+    "sideband_suppression_dbc": "level_db",
+    "lo_suppression_dbc": "level_db",
+    "lo_leakage_dbm": "power",
 }
 FigureName = Literal[
     "conversion_gain_db", "gain_flatness_db", "input_p1db_dbm", "output_p1db_dbm", "iip3_dbm",
     "oip3_dbm", "iip2_dbm", "lo_if_isolation_db", "lo_rf_isolation_db", "rf_if_isolation_db",
     "image_rejection_db", "supply_current_a", "spur_dbc",
+    "if_rf_isolation_db", "sideband_suppression_dbc", "lo_suppression_dbc", "lo_leakage_dbm",
 ]
 
 _NAME_PATTERN = r"^[A-Za-z0-9][A-Za-z0-9_.-]*$"
@@ -511,10 +519,17 @@ def load_sequence(path: str | os.PathLike[str], *, max_points: int = DEFAULT_MAX
     problem, including a sequence that expands to more than ``max_points`` points (the count
     is computed arithmetically, never by expanding).
     """
+    from sweeprig.formats.vocabulary import canonical_table
+
     doc = load_document(path)
-    sequence = validate(Sequence, doc)
+    table, spelling = canonical_table(doc.data, doc.where)
+    where = spelling.where(doc.where)
+    try:
+        sequence = Sequence.model_validate(table)
+    except ValidationError as exc:
+        raise validation_error(Sequence, exc, where) from None
     sequence = _with_sim_part_resolved(sequence, doc)
-    sequence._where = doc.where
+    sequence._where = where
     sequence._source = doc.display
     sequence._included = doc.included()
     sequence._merged = {k: v for k, v in doc.data.items() if k != "include"}
@@ -552,14 +567,14 @@ def _with_sim_part_resolved(sequence: Sequence, doc: Any) -> Sequence:
 def sequence_from_dict(data: dict[str, Any], *, max_points: int = DEFAULT_MAX_POINTS
                        ) -> Sequence:
     """Validate and check a sequence given as a plain table (errors name key paths only)."""
-    from pydantic import ValidationError
+    from sweeprig.formats.vocabulary import canonical_table
 
-    from sweeprig.formats.loading import validation_error
-
+    table, spelling = canonical_table(data, format_key_path)
     try:
-        sequence = Sequence.model_validate(data)
+        sequence = Sequence.model_validate(table)
     except ValidationError as exc:
-        raise validation_error(Sequence, exc, format_key_path) from None
+        raise validation_error(Sequence, exc, spelling.where(format_key_path)) from None
+    sequence._where = spelling.where(format_key_path)
     check_sequence(sequence)
     check_size(sequence, max_points)
     return sequence
@@ -795,7 +810,12 @@ def _check_study(sequence: Sequence, i: int, study: Study) -> None:
                            'give the study tone_spacing = "1 MHz" (uses the rf2 source)')
         if spec.kind == "image" and sequence.mixing.conversion != "down":
             raise _problem(sequence, at, "the image reading is for downconverters",
-                           "remove it, or set conversion = \"down\" in [mixing]")
+                           "for an upconverter read \"sideband\" (the unwanted sideband), "
+                           "or set conversion = \"down\" in [mixing]")
+        if spec.kind == "sideband" and sequence.mixing.conversion != "up":
+            raise _problem(sequence, at, "the sideband reading is for upconverters",
+                           "for a downconverter read \"image\" (image rejection), or set "
+                           "conversion = \"up\" in [mixing]")
         if spec.kind != "mxn":
             for key in ("order", "min_frequency", "max_frequency"):
                 if getattr(spec, key) is not None:

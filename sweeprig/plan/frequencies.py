@@ -43,6 +43,19 @@ def lo_for_if(rf_freq_hz: F, if_freq_hz: float, conversion: str, lo_side: str) -
     return if_freq_hz - rf_freq_hz if lo_side == "low" else if_freq_hz + rf_freq_hz
 
 
+def other_sideband(input_freq_hz: F, lo_freq_hz: F, conversion: str, lo_side: str
+                   ) -> tuple[F, tuple[int, int]]:
+    """The unwanted sideband at the output: its frequency (Hz) and (LO, input) multipliers.
+
+    A mixer makes both f_LO + f_in and |f_LO − f_in|; an upconverter wants one of them and
+    the other is its unwanted sideband (the field notes' frequency plan). For a downconverter
+    this is the sum product at the IF port.
+    """
+    m, n = wanted_orders(conversion, lo_side)
+    orders = (m, -n)
+    return abs(orders[0] * lo_freq_hz + orders[1] * input_freq_hz), orders
+
+
 def image_hz(rf_freq_hz: F, lo_freq_hz: F) -> F:
     """Image frequency of a downconverter: 2·f_LO − f_RF (≤ 0 means there is none)."""
     return 2.0 * lo_freq_hz - rf_freq_hz

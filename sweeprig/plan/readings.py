@@ -256,6 +256,13 @@ class ReadingPlanner:
             elif kind == "image":
                 f_img = float(fp.image_hz(d.rf_freq_hz, d.lo_freq_hz))
                 items.append((base, "if", wanted_hz, (1, -1), None, f_img))
+            elif kind == "sideband":
+                f_other, other = fp.other_sideband(d.rf_freq_hz, d.lo_freq_hz, self.conversion,
+                                                   self.lo_side)
+                # a double-balanced mixer converts to both sidebands alike (common practice,
+                # no source): the unwanted one is expected as strong as the wanted
+                items.append((base, "if", f_other, other, wanted_dbm - if_loss.at(f_other)
+                              + if_loss.at(wanted_hz), None))
             elif kind == "mxn":
                 order = spec.order or 3
                 lo_f = max(spec.min_frequency or 0.0, LOWEST_PRODUCT_HZ)

@@ -47,7 +47,21 @@ HOW_TO_MEASURE: dict[str, str] = {
     "image_rejection_db": 'a study reading "wanted" and "image"',
     "supply_current_a": 'a study reading "supply_current"',
     "spur_dbc": 'a study reading "mxn"',
+    # upconverters (conversion = "up"; the reading kinds of formats/vocabulary.py)
+    "lo_if_isolation_db@up": 'a study reading "lo_at_input"',
+    "lo_rf_isolation_db@up": 'a study reading "lo_at_output"',
+    "rf_if_isolation_db@up": 'a study reading "input_at_output" and name the figure '
+    'if_rf_isolation_db (an upconverter\'s input is its IF)',
+    "if_rf_isolation_db": 'an upconverter study reading "input_at_output"',
+    "sideband_suppression_dbc": 'an upconverter study reading "wanted" and "sideband"',
+    "lo_suppression_dbc": 'an upconverter study reading "wanted" and "lo_at_output"',
+    "lo_leakage_dbm": 'an upconverter study reading "lo_at_output"',
 }
+
+
+def how_to_measure(figure: str, conversion: str) -> str:
+    """What a study needs for a spec figure, in the words of the conversion direction."""
+    return HOW_TO_MEASURE.get(f"{figure}@{conversion}", HOW_TO_MEASURE[figure])
 
 
 def check_specs(sequence: Sequence) -> None:
@@ -142,7 +156,8 @@ def _unreachable(sequence: Sequence, j: int, limit: Limit, figures: list[Figure]
             f"no study in the sequence measures {figure}, so this limit can never be "
             f"evaluated; the sequence measures {', '.join(found) if found else 'no spec figure'}",
             where=sequence.where(("spec", j, "figure")),
-            fix=f"add {HOW_TO_MEASURE[figure]}, or remove this [[spec]]")
+            fix=f"add {how_to_measure(figure, sequence.mixing.conversion)}, or remove this "
+            "[[spec]]")
     if spec.study is not None and not meets("study"):
         doing = [name for name, names in measured.items() if SPEC_FIGURES[figure] in names]
         return InputError(
@@ -150,7 +165,7 @@ def _unreachable(sequence: Sequence, j: int, limit: Limit, figures: list[Figure]
             f"evaluated; studies that measure it: {', '.join(repr(d) for d in doing)}",
             where=sequence.where(("spec", j, "study")),
             fix=f"name one of those studies in study = \"...\", or make {spec.study!r} "
-            f"{HOW_TO_MEASURE[figure]}")
+            f"{how_to_measure(figure, sequence.mixing.conversion)}")
     for key, name, unit, axis, value in (
         ("temperature", "temperature_c", "degC", temperatures, spec.temperature),
         ("supply", "supply_v", "V", supplies, spec.supply),

@@ -257,7 +257,7 @@ def _conditions(run: RunFigures) -> str:
         )
     ranges = []
     for key, values in run.conditions.items():
-        shown = [format_condition(key, v) for v in values]
+        shown = [format_condition(key, v, run.conversion) for v in values]
         text = ", ".join(shown) if len(shown) <= 6 else \
             f"{shown[0]} … {shown[-1]} ({len(shown)} values)"
         ranges.append(f"<tr><td>{e(key)}</td><td>{e(text)}</td></tr>")

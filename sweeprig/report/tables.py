@@ -47,6 +47,7 @@ HEADLINE_FIGURES: tuple[str, ...] = (
     "output_p1db", "output_psat", "iip3", "oip3", "iip2", "lo_power_for_gain",
     "lo_if_isolation", "lo_rf_isolation", "rf_if_isolation", "image_rejection",
     "supply_current", "spur_dbc",
+    "if_rf_isolation", "sideband_suppression", "lo_suppression", "lo_leakage",
 )
 
 #: Short labels of the figures as a datasheet prints them.
@@ -74,6 +75,11 @@ FIGURE_LABELS: Mapping[str, str] = MappingProxyType({
     "dc_power": "DC power",
     "spur_dbc": "Worst m×n spur",
     "spur_dbm": "m×n spur level",
+    # an upconverter's (its input is the IF, its output the RF)
+    "if_rf_isolation": "IF→RF isolation",
+    "sideband_suppression": "Unwanted-sideband suppression",
+    "lo_suppression": "LO (carrier) suppression",
+    "lo_leakage": "LO leakage at RF port",
 })
 
 #: Figures where a larger value is the better one (the worst is the smallest) ...
@@ -82,11 +88,13 @@ HIGHER_IS_BETTER = frozenset({
     "input_p3db", "output_p3db", "output_psat", "iip3", "oip3", "iip2", "iip3_low", "iip3_high",
     "oip3_low", "oip3_high", "iip2_low", "iip2_high", "lo_if_isolation", "lo_rf_isolation",
     "rf_if_isolation", "image_rejection",
+    "if_rf_isolation", "sideband_suppression", "lo_suppression",
 })
 #: ... and where a smaller one is (the worst is the largest). Others show their range.
 LOWER_IS_BETTER = frozenset({
     "gain_flatness", "lo_power_for_gain", "supply_current", "dc_power", "spur_dbc", "spur_dbm",
     "im3_low", "im3_high",
+    "lo_leakage",
 })
 
 #: Flag name → (badge text, explanation shown as a tooltip).
@@ -180,8 +188,11 @@ def figure_text(figure: Figure, digits: int = 2) -> str:
     return f"{figure.bound} {body}" if figure.bound and body != "n/a" else body
 
 
-def format_condition(key: str, value: object) -> str:
-    """One condition as text: ``RF 2.2 GHz``, ``25 °C``, ``LO 0 dBm``, ``study band``."""
+def format_condition(key: str, value: object, conversion: str = "down") -> str:
+    """One condition as text: ``RF 2.2 GHz``, ``25 °C``, ``LO 0 dBm``, ``study band``.
+
+    ``conversion`` "up": the input conditions (``rf_*``) are the IF and the output the RF, in
+    an upconverter's words (:mod:`sweeprig.analysis.direction`)."""
     if isinstance(value, str):
         return f"study {value}" if key == "study" else f"{key} {value}"
     if not isinstance(value, int | float) or not math.isfinite(float(value)):
@@ -191,7 +202,11 @@ def format_condition(key: str, value: object) -> str:
         "rf_freq_hz": "RF", "lo_freq_hz": "LO", "rf2_freq_hz": "RF2", "freq_hz": "at",
         "image_freq_hz": "image", "band_low_hz": "band from", "band_high_hz": "band to",
         "rf_power_dbm": "RF", "lo_power_dbm": "LO", "rf2_power_dbm": "RF2",
+        "output_freq_hz": "IF",
     }
+    if conversion == "up":
+        names |= {"rf_freq_hz": "IF", "rf2_freq_hz": "IF2", "rf_power_dbm": "IF",
+                  "rf2_power_dbm": "IF2", "output_freq_hz": "RF"}
     if key.endswith("_hz"):
         return f"{names.get(key, key)} {format_frequency(v)}"
     if key.endswith("_dbm"):
@@ -207,15 +222,17 @@ def format_condition(key: str, value: object) -> str:
     return f"{key} {v:g}"
 
 
-def conditions_text(conditions: Mapping[str, object], skip: Iterable[str] = ()) -> str:
-    """Conditions as one line (``skip`` leaves keys out); m and n shown as ``m×n 2×-1``."""
+def conditions_text(conditions: Mapping[str, object], skip: Iterable[str] = (),
+                    conversion: str = "down") -> str:
+    """Conditions as one line (``skip`` leaves keys out); m and n shown as ``m×n 2×-1``;
+    ``conversion`` as in :func:`format_condition`."""
     skipped = set(skip)
     parts: list[str] = []
     m, n = conditions.get("m"), conditions.get("n")
     for key, value in conditions.items():
         if key in skipped or key in ("m", "n", "in_band"):
             continue
-        parts.append(format_condition(key, value))
+        parts.append(format_condition(key, value, conversion))
     if m is not None and n is not None and "m" not in skipped:
         parts.append(f"m×n {int(float(m))}×{int(float(n))}")  # type: ignore[arg-type]
     return ", ".join(parts)
@@ -272,13 +289,14 @@ def summary_rows(run: RunFigures, by: Sequence[str] = GROUP_KEYS) -> list[Summar
             key = tuple(figure.conditions.get(k) for k in by)
             groups.setdefault(key, []).append(figure)
         for members in groups.values():
-            rows.append(_summary_row(name, members, judged, run.limits, tuple(by)))
+            rows.append(_summary_row(name, members, judged, run.limits, tuple(by),
+                                     run.conversion))
     return rows
 
 
 def _summary_row(
     name: str, members: list[Figure], judged: Mapping[int, list[Judgement]],
-    limits: Sequence[Limit], by: tuple[str, ...],
+    limits: Sequence[Limit], by: tuple[str, ...], conversion: str = "down",
 ) -> SummaryRow:
     judgements = [j for f in members for j in judged.get(id(f), [])]
     verdicts = {j.verdict for j in judgements}
@@ -294,10 +312,10 @@ def _summary_row(
     first = members[0].conditions
     fixed = {k: first[k] for k in by if k in first and k != "study"}
     if len(members) == 1:
-        text = conditions_text(shown.conditions, skip=("study",))
+        text = conditions_text(shown.conditions, skip=("study",), conversion=conversion)
     else:
-        text = conditions_text(fixed)
-        spread = _spread_text(members, by)
+        text = conditions_text(fixed, conversion=conversion)
+        spread = _spread_text(members, by, conversion)
         if spread:
             text += f"; {len(members)} figures over {spread}"
         if name in ("spur_dbc", "spur_dbm"):
@@ -335,18 +353,19 @@ def _summary_row(
     )
 
 
-def _spread_text(members: list[Figure], by: tuple[str, ...]) -> str:
+def _spread_text(members: list[Figure], by: tuple[str, ...], conversion: str = "down") -> str:
     """The conditions that vary inside a group, as ranges: ``RF 1.7 GHz–2.7 GHz``."""
     parts = []
     keys = [k for k in ("temperature_c", "supply_v") if k not in by]
-    for key in (*keys, "rf_freq_hz", "lo_freq_hz", "lo_power_dbm", "rf_power_dbm"):
+    for key in (*keys, "rf_freq_hz", "output_freq_hz", "lo_freq_hz", "lo_power_dbm",
+                "rf_power_dbm"):
         values = sorted({float(f.conditions[key]) for f in members
                          if isinstance(f.conditions.get(key), int | float)})
         if len(values) > 1:
             if key == "lo_freq_hz" and any("rf_freq_hz" in p for p in parts):
                 continue
-            low = format_condition(key, values[0])
-            high = format_condition(key, values[-1])
+            low = format_condition(key, values[0], conversion)
+            high = format_condition(key, values[-1], conversion)
             if key in ("temperature_c", "supply_v"):
                 parts.append(f"{low}…{high}")
             else:

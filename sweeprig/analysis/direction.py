@@ -1,0 +1,130 @@
+"""Figures named in the trade's words for the part's conversion direction, and the
+upconverter's own figures.
+
+The capture table names ports by position: ``if`` is the output port (the wanted output),
+``rf`` the input port, whatever the direction (see :mod:`sweeprig.formats.vocabulary`). For a
+downconverter those are the trade's names. For an upconverter the trade calls the input the
+IF and the output the RF (Pozar, *Microwave Engineering*, mixer chapter), so the isolation
+figures computed by position are renamed (:data:`UP_NAMES`): the LO leaking at the output
+port is the upconverter's LO→RF isolation, at its input port its LO→IF isolation, and the
+input's feedthrough to the output its IF→RF isolation.
+
+An upconverter's datasheet also states, relative to the wanted output (dBc, larger is
+better):
+
+* ``sideband_suppression`` = P(wanted sideband) − P(unwanted sideband), both at the output
+  port, from the ``if`` and ``sideband`` readings of one point; a double-balanced mixer
+  makes both sidebands alike (common practice, no source), so without a filter this is near
+  0 dB;
+* ``lo_suppression`` (carrier suppression) = P(wanted output) − P(LO at the output port),
+  from the ``if`` and ``lo_at_if`` readings;
+
+and ``lo_leakage`` = P(LO at the output port), dBm (a "<" bound when the leak is in the
+noise). A reading in the noise is an upper bound, so a suppression is then a ">" bound.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from collections.abc import Mapping, Sequence
+from types import MappingProxyType
+from typing import TYPE_CHECKING
+
+import numpy as np
+
+from sweeprig.analysis import validity
+from sweeprig.analysis.captures import conditions_records, has_bit, point_table
+from sweeprig.analysis.figures import (
+    BOUND_ABOVE,
+    BOUND_BELOW,
+    BOUND_NONE,
+    IN_NOISE,
+    Figure,
+    make_figures,
+)
+
+if TYPE_CHECKING:
+    import pandas as pd
+
+#: Positional (downconverter) figure name → the upconverter's name for it.
+UP_NAMES: Mapping[str, str] = MappingProxyType({
+    "lo_if_isolation": "lo_rf_isolation",
+    "lo_rf_isolation": "lo_if_isolation",
+    "rf_if_isolation": "if_rf_isolation",
+})
+
+#: The column (and figure condition) holding the wanted output frequency of a point, Hz.
+OUTPUT_FREQ = "output_freq_hz"
+
+
+def trade_named(figures: Sequence[Figure], conversion: str) -> list[Figure]:
+    """The figures with their names in the trade's words for ``conversion`` ("down": as
+    computed; "up": :data:`UP_NAMES` applied)."""
+    if conversion != "up":
+        return list(figures)
+    return [dataclasses.replace(f, name=UP_NAMES[f.name]) if f.name in UP_NAMES else f
+            for f in figures]
+
+
+def trade_name(positional: str, conversion: str) -> str:
+    """One positional figure name in the trade's words for ``conversion``."""
+    return UP_NAMES.get(positional, positional) if conversion == "up" else positional
+
+
+def with_output_frequency(figures: Sequence[Figure], orders: tuple[int, int] | None
+                          ) -> list[Figure]:
+    """Each figure whose conditions hold ``lo_freq_hz`` and ``rf_freq_hz`` (the input) gains
+    ``output_freq_hz`` = |m·f_LO + n·f_in| for the wanted product's (m, n) ``orders``
+    (default (1, −1)): the axis a datasheet plots gain against."""
+    m, n = orders if orders is not None else (1, -1)
+    out: list[Figure] = []
+    for f in figures:
+        c = f.conditions
+        lo, rf = c.get("lo_freq_hz"), c.get("rf_freq_hz")
+        if OUTPUT_FREQ in c or not isinstance(lo, float | int) or not isinstance(rf, float | int):
+            out.append(f)
+            continue
+        cond = MappingProxyType({**c, OUTPUT_FREQ: float(abs(m * lo + n * rf))})
+        out.append(dataclasses.replace(f, conditions=cond))
+    return out
+
+
+def upconverter_figures(
+    captures: pd.DataFrame, *, study: str | Sequence[str] | None = None
+) -> list[Figure]:
+    """``sideband_suppression``, ``lo_suppression`` (dBc) and ``lo_leakage`` (dBm) at every
+    point with the readings they need (see the module docstring)."""
+    table = point_table(captures, ("if", "sideband", "lo_at_if"), study=study,
+                        where="upconverter figures")
+    figures: list[Figure] = []
+    wanted_ok = table["if_present"].to_numpy() & ~has_bit(table["if_flags"].to_numpy(),
+                                                          IN_NOISE)
+    for reading, name in (("sideband", "sideband_suppression"), ("lo_at_if", "lo_suppression")):
+        rows = np.flatnonzero(table[f"{reading}_present"].to_numpy() & wanted_ok)
+        if rows.size == 0:
+            continue
+        sub = table.iloc[rows]
+        level, noise = _leak(sub, reading)
+        flags = sub[f"{reading}_flags"].to_numpy() | sub["if_flags"].to_numpy()
+        figures += make_figures(
+            name, "dBc", sub["if_level_dbm"].to_numpy() - level,
+            np.where(noise, BOUND_ABOVE, BOUND_NONE), flags,
+            conditions_records(table, rows), [(p,) for p in sub["point"].tolist()])
+    rows = np.flatnonzero(table["lo_at_if_present"].to_numpy())
+    if rows.size:
+        sub = table.iloc[rows]
+        level, noise = _leak(sub, "lo_at_if")
+        figures += make_figures(
+            "lo_leakage", "dBm", level, np.where(noise, BOUND_BELOW, BOUND_NONE),
+            sub["lo_at_if_flags"].to_numpy(), conditions_records(table, rows),
+            [(p,) for p in sub["point"].tolist()])
+    return figures
+
+
+def _leak(sub: pd.DataFrame, reading: str) -> tuple[np.ndarray, np.ndarray]:
+    """A reading's level, its noise-floor upper bound where it is in the noise, dBm."""
+    flags = sub[f"{reading}_flags"].to_numpy()
+    noise = has_bit(flags, IN_NOISE)
+    level = sub[f"{reading}_level_dbm"].to_numpy()
+    floor = sub[f"{reading}_noise_floor_dbm"].to_numpy()
+    return np.where(noise, validity.upper_bound_dbm(level, floor), level), noise

@@ -1,0 +1,79 @@
+"""Figures in the trade's words per conversion direction (``sweeprig.analysis.direction``).
+
+The trade's words (Pozar, *Microwave Engineering*, mixer chapter; the field notes' frequency
+plan): an upconverter's input is its IF and its output its RF, so the LO leaking at its output
+is LO→RF isolation; the wanted output of a low-side upconversion is f_LO + f_IF, of a
+downconversion |f_RF − f_LO| (RF 2.400 GHz, LO 2.330 GHz: IF 70 MHz, sum 4.730 GHz).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from sweeprig.analysis.direction import (
+    trade_named,
+    upconverter_figures,
+    with_output_frequency,
+)
+from sweeprig.analysis.figures import make_figures
+from sweeprig.analysis.synthetic import points_frame, reading_rows
+
+
+def test_isolation_names_follow_the_direction():
+    figures = make_figures("lo_if_isolation", "dB", [30.0]) + \
+        make_figures("lo_rf_isolation", "dB", [40.0]) + \
+        make_figures("rf_if_isolation", "dB", [45.0]) + \
+        make_figures("conversion_gain", "dB", [10.0])
+    assert [f.name for f in trade_named(figures, "down")] == \
+        ["lo_if_isolation", "lo_rf_isolation", "rf_if_isolation", "conversion_gain"]
+    up = trade_named(figures, "up")
+    assert [(f.name, f.value) for f in up] == [
+        ("lo_rf_isolation", 30.0), ("lo_if_isolation", 40.0), ("if_rf_isolation", 45.0),
+        ("conversion_gain", 10.0)]
+
+
+def test_output_frequency_from_the_wanted_orders():
+    """Field notes' example: RF 2.400 GHz with LO 2.330 GHz gives IF 70 MHz (orders (1, −1))
+    and a sum product at 4.730 GHz (orders (1, 1), a low-side upconverter's output)."""
+    figure = make_figures("conversion_gain", "dB", [10.0], conditions=[
+        {"lo_freq_hz": 2.330e9, "rf_freq_hz": 2.400e9}])
+    down = with_output_frequency(figure, (1, -1))[0]
+    up = with_output_frequency(figure, (1, 1))[0]
+    assert down.conditions["output_freq_hz"] == pytest.approx(70e6)
+    assert up.conditions["output_freq_hz"] == pytest.approx(4.730e9)
+    assert with_output_frequency(figure, None)[0].conditions["output_freq_hz"] == \
+        pytest.approx(70e6)
+    bare = make_figures("supply_current", "A", [0.05])
+    assert "output_freq_hz" not in with_output_frequency(bare, (1, 1))[0].conditions
+
+
+def _up_captures(sideband_dbm: float, lo_dbm: float, lo_floor_dbm: float = -150.0
+                 ) -> pd.DataFrame:
+    points = points_frame(2, lo_freq_hz=5.7e9, rf_freq_hz=100e6, rf_power_dbm=-20.0)
+    return pd.concat([
+        reading_rows(points, "if", -7.0, freq_hz=5.8e9),
+        reading_rows(points, "sideband", sideband_dbm, freq_hz=5.6e9),
+        reading_rows(points, "lo_at_if", lo_dbm, freq_hz=5.7e9, noise_floor_dbm=lo_floor_dbm),
+    ], ignore_index=True)
+
+
+def test_sideband_and_lo_suppression_are_dbc_of_the_wanted_output():
+    figures = upconverter_figures(_up_captures(sideband_dbm=-37.0, lo_dbm=-32.0))
+    by_name = {f.name: f for f in figures}
+    assert by_name["sideband_suppression"].value == pytest.approx(30.0)  # -7 − (−37)
+    assert by_name["sideband_suppression"].unit == "dBc"
+    assert by_name["lo_suppression"].value == pytest.approx(25.0)  # -7 − (−32)
+    assert by_name["lo_leakage"].value == pytest.approx(-32.0)
+    assert by_name["lo_leakage"].bound is None
+
+
+def test_a_leak_in_the_noise_is_a_bound():
+    """A leak within 6 dB of the analyzer noise is an upper bound on the leak (the
+    isolation figures' rule): leakage "<", suppression ">"."""
+    figures = upconverter_figures(_up_captures(-37.0, lo_dbm=-101.0, lo_floor_dbm=-100.0))
+    by_name = {f.name: f for f in figures}
+    assert by_name["lo_leakage"].bound == "<"
+    assert by_name["lo_suppression"].bound == ">"
+    assert np.isfinite(by_name["lo_suppression"].value)
