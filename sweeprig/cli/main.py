@@ -15,6 +15,7 @@ from sweeprig.cli import (
     scan_cmd,
     sim_cmd,
     store_cmd,
+    twin_cmd,
 )
 
 app = typer.Typer(
@@ -35,6 +36,7 @@ report_cmd.register(app)
 calibrate_cmd.register(app)
 night_cmd.register(app)
 probe_cmd.register(app)
+app.add_typer(twin_cmd.app, name="twin")
 app.add_typer(sim_cmd.app, name="sim")  # a module that fails to import fails the command
 
 
