@@ -47,11 +47,14 @@ class StoredRunTwin:
 
 
 def fit_stored_run(store_path: Path, run_id: int, *, template: str = DEFAULT_TEMPLATE,
-                   name: str | None = None) -> StoredRunTwin:
+                   name: str | None = None,
+                   sim_description: str | Path | None = None) -> StoredRunTwin:
     """Fit a twin of run ``run_id`` in the SQLite store at ``store_path`` (see the module
     docstring). ``template``: a shipped part name or a part file; ``name``: the twin's part
-    name (default: ``"<part id> twin"``). The template is placed on the default simulated
-    bench (its leakage phases), where ``--sim`` serves the twin.
+    name (default: ``"<part id> twin"``). The template is placed on the simulated bench
+    the twin will be served on (``sim_description``: a sim-bench description file or shipped
+    name; default: the built-in one), whose seeded leakage phases decide how each leakage
+    path adds to what the core makes.
     """
     from sweeprig.analysis.reduce import reduce_run
     from sweeprig.sim.bench import resolve_description
@@ -80,7 +83,8 @@ def fit_stored_run(store_path: Path, run_id: int, *, template: str = DEFAULT_TEM
         )
     observations = observations_from_figures(run.figures, where=where,
                                              extra=lo_drive_gains(run))
-    placed = base.with_changes(leakage_phases=resolve_description(None).leakage_phases())
+    bench = resolve_description(None if sim_description is None else str(sim_description))
+    placed = base.with_changes(leakage_phases=bench.leakage_phases())
     fit = fit_twin(placed, observations)
     part_id = run.part or f"run {run_id}"
     text = part_file_text(fit, name=name or f"{part_id} twin",

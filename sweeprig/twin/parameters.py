@@ -52,7 +52,9 @@ class FitParameter:
 
     def to_si(self, internal: float) -> float:
         """The fit's coordinate → SI value."""
-        return 10.0 ** internal if self.log else internal
+        if not self.log:
+            return internal
+        return 10.0 ** internal if internal < 300.0 else math.inf
 
     def internal_bounds(self) -> tuple[float, float]:
         """Bounds in the fit's coordinate."""
