@@ -112,13 +112,14 @@ def miss_table(rows: Iterable[Miss], title: str) -> str:
 
 
 def test_sequence(sequence_path: Path, *, bench_path: Path | None = None,
-                  store_folder: Path | None = None) -> SequenceVerdict:
+                  store_folder: Path | None = None, use_golden: bool = True) -> SequenceVerdict:
     """Check, pre-flight, run on the simulated bench and judge one sequence.
 
     ``bench_path``: the bench the sequence is meant for (pre-flight only; the run is always
     on the simulated bench, with the sequence's ``[part] sim_part`` or the bench's own part).
     Raises :class:`~sweeprig.errors.SweeprigError` for a sequence that does not load or that
-    the pre-flight refuses, and for a golden-figures file that is wrong.
+    the pre-flight refuses, and for a golden-figures file that is wrong (``use_golden``
+    False: the golden file is not read, as when it is about to be rewritten).
     """
     from sweeprig.analysis.reduce import reduce_run
     from sweeprig.engine.session import load_run_files, run_loaded
@@ -129,7 +130,7 @@ def test_sequence(sequence_path: Path, *, bench_path: Path | None = None,
         load_run_files(sequence_path, bench_path, sim=False)
     files = load_run_files(sequence_path, None, sim=True)
     golden_file = golden_path(sequence_path)
-    golden = load_golden(golden_file) if golden_file.is_file() else None
+    golden = load_golden(golden_file) if use_golden and golden_file.is_file() else None
     with tempfile.TemporaryDirectory(prefix="sweeprig-seqtest-", dir=store_folder) as folder:
         store = Path(folder) / "run.sqlite"
         outcome = run_loaded(files, store_path=store)

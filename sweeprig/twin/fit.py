@@ -226,7 +226,7 @@ def _fitted(p: FitParameter, x: float, var: float, dof: int,
             start: float | None) -> FittedParameter:
     lo_b, hi_b = p.internal_bounds()
     span = hi_b - lo_b
-    at_bound = min(x - lo_b, hi_b - x) <= 1e-6 * max(span, 1e-12)
+    at_bound = min(x - lo_b, hi_b - x) <= 1e-3 * max(span, 1e-12)
     t = float(stats.t.ppf(0.5 + _CI_LEVEL / 2.0, dof)) if dof > 0 else math.nan
     half = t * math.sqrt(var) if var >= 0 else math.nan
     low, high = ((math.nan, math.nan) if at_bound or not math.isfinite(half)

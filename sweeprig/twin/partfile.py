@@ -10,12 +10,10 @@ a part before it replaces anything.
 from __future__ import annotations
 
 import math
-import os
-import tempfile
 from collections.abc import Callable
 from pathlib import Path
 
-from sweeprig.errors import InputError
+from sweeprig.files import replace_text
 from sweeprig.sim.mixer.part import MixerPart, PortNetwork, part_from_mapping
 from sweeprig.twin.fit import FittedParameter, TwinFit
 from sweeprig.twin.parameters import NOT_FITTED
@@ -152,15 +150,4 @@ def write_part_file(text: str, path: Path) -> None:
     """Write ``text`` to ``path`` whole (a temporary file beside it, then renamed), after
     checking it loads as a part; nothing is written when it does not."""
     check_part_text(text)
-    folder = path.parent if str(path.parent) else Path(".")
-    if not folder.is_dir():
-        raise InputError(f"folder {folder} does not exist", where=str(path),
-                         fix="create the folder first or write the part file elsewhere")
-    fd, tmp = tempfile.mkstemp(prefix=".twin-", suffix=".toml", dir=folder)
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8") as out:
-            out.write(text)
-        os.replace(tmp, path)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
+    replace_text(path, text)
