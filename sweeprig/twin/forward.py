@@ -4,8 +4,8 @@ Pure: a :class:`~sweeprig.sim.mixer.part.MixerPart` and observations in, numbers
 figure is computed the way the analysis measured it, at the observation's own conditions
 (powers available at the DUT port planes, output powers into 50 ohm there):
 
-* ``conversion_gain`` and ``lo_drive_gain``: wanted line − input power for one tone at the
-  measured RF power;
+* ``conversion_gain``, ``lo_drive_gain``, ``compression_gain``: wanted line − input power
+  for one tone at the measured RF power;
 * ``lo_if_isolation`` / ``lo_rf_isolation``: LO power − the LO-frequency line at the IF / RF
   port, with the same tone present (as read in a gain study);
 * ``rf_if_isolation``: RF power − the RF-frequency line at the IF port;
@@ -81,7 +81,7 @@ def _one(part: MixerPart, obs: Observation, single: dict[tuple[float, ...], obje
         resp = part.evaluate(op, lo, [ToneInput(f_rf, p_rf)])
         single[key] = resp
     if_lines, rf_lines = resp.if_port, resp.rf_port  # type: ignore[attr-defined]
-    if name in ("conversion_gain", "lo_drive_gain"):
+    if name in ("conversion_gain", "lo_drive_gain", "compression_gain"):
         return _finite(line_power_dbm(if_lines, output_freq_hz(part, f_rf, lo.freq_hz)) - p_rf)
     if name == "lo_if_isolation":
         return _finite(lo.power_dbm - line_power_dbm(if_lines, lo.freq_hz))

@@ -82,7 +82,7 @@ def fit_stored_run(store_path: Path, run_id: int, *, template: str = DEFAULT_TEM
                 f"{DEFAULT_TEMPLATE})",
         )
     observations = observations_from_figures(run.figures, where=where,
-                                             extra=lo_drive_gains(run))
+                                             extra=swept_gains(run))
     bench = resolve_description(None if sim_description is None else str(sim_description))
     placed = base.with_changes(leakage_phases=bench.leakage_phases())
     fit = fit_twin(placed, observations)
@@ -93,26 +93,30 @@ def fit_stored_run(store_path: Path, run_id: int, *, template: str = DEFAULT_TEM
     return StoredRunTwin(fit, observations, text, run_id, part_id)
 
 
-def lo_drive_gains(run: RunFigures) -> tuple[Observation, ...]:
-    """The gain at every clean point of the run's LO-drive studies (the analysis keeps only
-    ``lo_power_for_gain`` from them; the fit wants the curve)."""
+def swept_gains(run: RunFigures) -> tuple[Observation, ...]:
+    """The gain at every clean point of the run's LO-drive sweeps (``lo_drive_gain``) and RF
+    power sweeps (``compression_gain``): the analysis keeps one figure of each sweep
+    (``lo_power_for_gain``, the P1dB interpolated between steps); the fit wants the curve,
+    which carries no interpolation error."""
     from sweeprig.analysis.figures import BOUND_NONE, flags_from_mask
     from sweeprig.analysis.gain import gain_table
-    from sweeprig.analysis.reduce import ROLE_LO_DRIVE
+    from sweeprig.analysis.reduce import ROLE_COMPRESSION, ROLE_LO_DRIVE
 
-    names = run.studies_with(ROLE_LO_DRIVE)
-    if not names or run.captures.empty:
-        return ()
-    table = gain_table(run.captures, study=names)
-    out = []
-    for row in table.itertuples(index=False):
-        flags = set(flags_from_mask(int(row.gain_flags)))
-        if int(row.gain_bound) != BOUND_NONE or flags & DISQUALIFYING_FLAGS:
+    out: list[Observation] = []
+    sweeps = ((ROLE_LO_DRIVE, "lo_drive_gain"), (ROLE_COMPRESSION, "compression_gain"))
+    for role, name in sweeps:
+        names = run.studies_with(role)
+        if not names or run.captures.empty:
             continue
-        conditions = {k: float(getattr(row, k)) for k in _GAIN_CONDITIONS
-                      if math.isfinite(float(getattr(row, k)))}
-        out.append(Observation("lo_drive_gain", float(row.gain_db),
-                               MappingProxyType(conditions), str(row.study)))
+        table = gain_table(run.captures, study=names)
+        for row in table.itertuples(index=False):
+            flags = set(flags_from_mask(int(row.gain_flags)))
+            if int(row.gain_bound) != BOUND_NONE or flags & DISQUALIFYING_FLAGS:
+                continue
+            conditions = {k: float(getattr(row, k)) for k in _GAIN_CONDITIONS
+                          if math.isfinite(float(getattr(row, k)))}
+            out.append(Observation(name, float(row.gain_db), MappingProxyType(conditions),
+                                   str(row.study)))
     return tuple(out)
 
 

@@ -24,6 +24,7 @@ from sweeprig.errors import InputError
 FITTED_FIGURES: Mapping[str, tuple[str, float]] = MappingProxyType({
     "conversion_gain": ("dB", 0.05),
     "lo_drive_gain": ("dB", 0.05),
+    "compression_gain": ("dB", 0.1),  # a sweep has many points: each weighs less
     "input_p1db": ("dBm", 0.15),
     "iip3_point_low": ("dBm", 0.25),
     "iip3_point_high": ("dBm", 0.25),
@@ -35,8 +36,8 @@ FITTED_FIGURES: Mapping[str, tuple[str, float]] = MappingProxyType({
 })
 
 #: The figures that constrain the core (the other figures each constrain their own path).
-CORE_FIGURES = ("conversion_gain", "lo_drive_gain", "input_p1db", "iip3_point_low",
-                "iip3_point_high")
+CORE_FIGURES = ("conversion_gain", "lo_drive_gain", "compression_gain", "input_p1db",
+                "iip3_point_low", "iip3_point_high")
 
 #: The figures without which there is no twin: the gain sets the transconductor.
 REQUIRED_FIGURES = ("conversion_gain",)
@@ -131,6 +132,11 @@ def observations_from_figures(figures: Iterable[object], *, where: str,
         kept.append(Observation(name, value, MappingProxyType(conditions),
                                 str(raw.get("study", ""))))
     kept += list(extra)
+    if any(o.name == "compression_gain" for o in kept):
+        n = sum(o.name == "input_p1db" for o in kept)
+        if n:  # the curve itself says more, without the P1dB's interpolation between steps
+            kept = [o for o in kept if o.name != "input_p1db"]
+            left_out["input_p1db (the compression sweep's points are fitted instead)"] = n
     result = ObservationSet(tuple(kept), MappingProxyType(left_out))
     missing = [n for n in REQUIRED_FIGURES if not result.named(n)]
     if missing:

@@ -46,7 +46,7 @@ def test_the_fit_names_what_the_run_did_not_constrain(small_twin):
 
 
 def test_the_residuals_are_within_the_twin_targets(small_twin):
-    targets = {"conversion_gain": 0.1, "lo_drive_gain": 0.1, "input_p1db": 0.3,
+    targets = {"conversion_gain": 0.1, "lo_drive_gain": 0.1, "compression_gain": 0.3,
                "iip3_point_low": 0.5, "iip3_point_high": 0.5, "lo_if_isolation": 1.0,
                "lo_rf_isolation": 1.0}
     worst = {r.name: abs(r.worst) for r in small_twin.fit.residuals}
@@ -75,3 +75,17 @@ def test_the_covariance_is_the_textbook_one_for_a_straight_line():
     cov = _covariance(jac, s2)
     assert cov[1, 1] == pytest.approx(s2 / np.sum((x - x.mean()) ** 2))
     assert cov[0, 0] == pytest.approx(s2 * np.sum(x**2) / (len(x) * np.sum((x - x.mean()) ** 2)))
+
+
+def test_a_sim_bench_description_serves_the_twin(small_twin, tmp_path):
+    """`sim serve --sim-bench` and `run --sim --sim-bench` read the part from a description:
+    a twin part file beside it is accepted like any part file."""
+    from sweeprig.sim.bench import load_sim_bench_description, prepare_part
+    from sweeprig.twin.partfile import write_part_file
+
+    write_part_file(small_twin.text, tmp_path / "twin.toml")
+    (tmp_path / "bench.toml").write_text('part = "twin.toml"\n', encoding="utf-8")
+    description = load_sim_bench_description(tmp_path / "bench.toml")
+    part = prepare_part(description)
+    assert part.name == "KX-2417 (fictional) twin"  # the run's part id, as a twin
+    assert part.tail_current_a == pytest.approx(small_twin.fit.part.tail_current_a, rel=1e-5)
