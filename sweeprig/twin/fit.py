@@ -50,6 +50,10 @@ _MISSING_RESIDUAL = 20.0
 #: (about 1e-6 dB) by orders of magnitude, small against every parameter's bound range.
 _DIFF_STEP = 1e-3
 _CI_LEVEL = 0.95
+#: Solver tolerances (relative change of cost, step and gradient): 1e-6 of a cost of order
+#: the figure count moves no figure by a thousandth of its scale; scipy's default 1e-8 only
+#: adds iterations (each a full model pass) here.
+_TOL = 1e-6
 
 
 @dataclass(frozen=True)
@@ -286,7 +290,8 @@ def _solve(start: MixerPart, free: Sequence[FitParameter],
                                        jac=np.zeros((len(r0), 0)), success=True)
     bounds = np.array([p.internal_bounds() for p in free]).T
     return optimize.least_squares(residual, x0, bounds=(bounds[0], bounds[1]),
-                                  diff_step=_DIFF_STEP, x_scale="jac", method="trf")
+                                  diff_step=_DIFF_STEP, x_scale="jac", method="trf",
+                                  ftol=_TOL, xtol=_TOL, gtol=_TOL)
 
 
 def _covariance(jac: np.ndarray, s2: float) -> np.ndarray:
