@@ -83,7 +83,8 @@ def _port(port: str, field_name: str) -> tuple[Callable[[MixerPart], float | Non
 def _having(*names: str, at_least: int = 1) -> Callable[[ObservationSet], str | None]:
     def needs(obs: ObservationSet) -> str | None:
         n = sum(len(obs.named(name)) for name in names)
-        return None if n >= at_least else f"no {' or '.join(names)} figure measured"
+        return None if n >= at_least else (
+            f"no usable {' or '.join(names)} figure (none measured, or all left out)")
     return needs
 
 
