@@ -214,3 +214,23 @@ def is_symlink_loop(path: Path) -> bool:
     except ValueError:
         return False
     return False
+
+
+def replace_text(path: Path, text: str) -> None:
+    """Write ``text`` (UTF-8) to ``path`` whole: a temporary file beside it, renamed over it,
+    so a reader never sees half a file and a failure leaves the old one. Raises
+    :class:`InputError` when the folder does not exist."""
+    import tempfile
+
+    folder = path.parent if str(path.parent) else Path(".")
+    if not folder.is_dir():
+        raise InputError(f"folder {escape_controls(str(folder))} does not exist",
+                         where=str(path), fix="create the folder first or write elsewhere")
+    fd, tmp = tempfile.mkstemp(prefix=".sweeprig-", suffix=".tmp", dir=folder)
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8") as out:
+            out.write(text)
+        os.replace(tmp, path)
+    except BaseException:
+        Path(tmp).unlink(missing_ok=True)
+        raise

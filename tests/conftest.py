@@ -6,6 +6,9 @@ from pathlib import Path
 
 import pytest
 
+# pytester checks the sequence-test plugin (tests/seqtest) with pytest's own machinery
+pytest_plugins = ["pytester"]
+
 
 @pytest.fixture(autouse=True)
 def private_lock_dir(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> Path:

@@ -8,6 +8,7 @@ from sweeprig.cli import (
     bus_cmd,
     calibrate_cmd,
     check_cmd,
+    golden_cmd,
     night_cmd,
     probe_cmd,
     report_cmd,
@@ -15,6 +16,7 @@ from sweeprig.cli import (
     scan_cmd,
     sim_cmd,
     store_cmd,
+    twin_cmd,
 )
 
 app = typer.Typer(
@@ -35,6 +37,8 @@ report_cmd.register(app)
 calibrate_cmd.register(app)
 night_cmd.register(app)
 probe_cmd.register(app)
+app.add_typer(twin_cmd.app, name="twin")
+app.add_typer(golden_cmd.app, name="golden")
 app.add_typer(sim_cmd.app, name="sim")  # a module that fails to import fails the command
 
 

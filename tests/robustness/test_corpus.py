@@ -13,7 +13,8 @@ What each file must produce is in ``tests/corpus/expected.toml``. Entry points p
 * pathloss (CSV) and touchstone: the same, with a bench file whose ``path_loss.rf`` names the file;
 * profiles: ``load_profile(path)``;
 * parts: ``load_part(path)`` and ``sweeprig run --sim --sim-bench`` of a description naming it;
-* simbench: ``load_sim_bench_description(path)`` and ``sweeprig run --sim --sim-bench FILE``.
+* simbench: ``load_sim_bench_description(path)`` and ``sweeprig run --sim --sim-bench FILE``;
+* golden (golden-figures files of the sequence tests): ``load_golden(path)``.
 
 "Nothing touched" is checked on the served bench (no message received by any instrument, every
 setting as before, every output off) and, for runs that would start their own simulated bench
@@ -55,6 +56,7 @@ from sweeprig.engine.safe import SafeOutcome
 from sweeprig.engine.session import RunOutcome, served_bench_text, shipped_sequences_dir
 from sweeprig.errors import SweeprigError
 from sweeprig.instruments.profile import load_profile
+from sweeprig.seqtest.golden import load_golden
 from sweeprig.sim.bench import SimBench, load_sim_bench_description
 from sweeprig.sim.mixer import load_part
 
@@ -63,7 +65,7 @@ SUPPORT = CORPUS / "_support"
 EXPECTED: dict[str, dict[str, Any]] = tomllib.loads(
     (CORPUS / "expected.toml").read_text(encoding="utf-8"))
 KINDS = ("sequences", "benches", "pathloss", "touchstone", "profiles", "parts", "simbench",
-         "calibrations", "nights")
+         "calibrations", "nights", "golden")
 ENTRIES: dict[str, tuple[str, ...]] = {
     "sequences": ("check", "run_bench", "run_sim"),
     "benches": ("check", "run"),
@@ -74,6 +76,7 @@ ENTRIES: dict[str, tuple[str, ...]] = {
     "simbench": ("load_sim_bench_description", "run_sim_bench"),
     "calibrations": ("run_sim",),
     "nights": ("run_sim",),
+    "golden": ("load_golden",),
 }
 QUICK = shipped_sequences_dir() / "demo" / "quick.toml"
 TINY = SUPPORT / "tiny-sequence.toml"
@@ -299,6 +302,8 @@ def _run_entry(kind: str, entry: str, path: Path, tmp_path: Path,
         return _cli("night", path, "--sim", *store)
     if kind == "profiles":
         return _load(load_profile, path)
+    if kind == "golden":
+        return _load(load_golden, path)
     if kind == "parts":
         if entry == "load_part":
             return _load(load_part, path)

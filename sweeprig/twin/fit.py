@@ -1,0 +1,325 @@
+"""The twin fit: weighted least squares of the part model to a run's figures.
+
+Residuals are ``(model − measured) / scale`` per observation (scales in
+:data:`~sweeprig.twin.observations.FITTED_FIGURES`), minimised with
+:func:`scipy.optimize.least_squares` (trust-region reflective, hard bounds) over the
+parameters the data constrain (:mod:`sweeprig.twin.parameters`). Over two or more
+temperatures the tail bias law (constant or PTAT, a choice, not a number) is decided by
+fitting both and keeping the smaller residual sum.
+
+Stages: the core parameters (gain, compression, intercepts, LO drive, band corners) are fitted
+first to the figures they alone shape; then each leakage path, the supply current and the
+noise figure, each to its own figures with the core held (they share no figure with each
+other, and moving them leaves the core's figures alone). A later stage's intervals include
+the core's uncertainty, propagated (see :func:`_propagate`).
+
+Confidence intervals: the standard least-squares covariance from the Jacobian at the
+solution, ``cov = s²·(JᵀJ)⁻¹`` with ``s² = Σr²/(m − n)`` (Press, Teukolsky, Vetterling &
+Flannery, Numerical Recipes, 3rd ed., §15.4–15.5: the covariance of the fitted parameters
+of a linearised model, errors scaled by the fit's own residual variance), and 95 % intervals
+``θ ± t(0.975, m − n)·σ_θ`` (Student's t: same chapter, §15.6). Parameters fitted in log10
+space get intervals there, so they are asymmetric in SI. A parameter that ends on a bound has
+no such interval (the linearisation does not hold at a bound): it is reported as at the
+bound. The intervals cover the scatter the run's own residuals show; a bias common to every
+figure (a path-loss error of the bench) is not in them.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import optimize, stats
+
+from sweeprig.sim.mixer.part import MixerPart
+from sweeprig.twin.forward import model_figures
+from sweeprig.twin.observations import (
+    CORE_FIGURES,
+    FITTED_FIGURES,
+    Observation,
+    ObservationSet,
+)
+from sweeprig.twin.parameters import FitParameter, catalogue
+
+#: Residual (in scale units) given to an observation the model cannot produce (a line below
+#: the model's floor): large enough to steer the fit away, finite so the solver goes on.
+_MISSING_RESIDUAL = 20.0
+#: Relative finite-difference step for the Jacobian: above the model's numerical grid noise
+#: (about 1e-6 dB) by orders of magnitude, small against every parameter's bound range.
+_DIFF_STEP = 1e-3
+_CI_LEVEL = 0.95
+#: Solver tolerances (relative change of cost, step and gradient): 1e-6 of a cost of order
+#: the figure count moves no figure by a thousandth of its scale; scipy's default 1e-8 only
+#: adds iterations (each a full model pass) here.
+_TOL = 1e-6
+
+
+@dataclass(frozen=True)
+class FittedParameter:
+    """A fitted parameter: SI value, its 95 % interval (``low``, ``high``; NaN when it has
+    none), the template's value it started from, and whether it ended on a bound."""
+
+    key: str
+    unit: str
+    display_scale: float
+    value: float
+    low: float
+    high: float
+    start: float | None
+    at_bound: bool
+    what: str
+
+    def covers(self, true_value: float) -> bool:
+        """True when ``true_value`` (SI) lies in the 95 % interval."""
+        return bool(self.low <= true_value <= self.high)
+
+
+@dataclass(frozen=True)
+class FigureResidual:
+    """Model − measured over one figure name: count, mean, RMS and worst, in ``unit``."""
+
+    name: str
+    unit: str
+    count: int
+    mean: float
+    rms: float
+    worst: float
+
+
+@dataclass(frozen=True)
+class TwinFit:
+    """A finished fit: the fitted part, its parameters, what was not constrained (key →
+    why), per-figure residuals, degrees of freedom ``m − n`` and residual scale ``s``
+    (in scale units: about 1 means the model fits to the figures' stated scales)."""
+
+    part: MixerPart
+    parameters: tuple[FittedParameter, ...]
+    unconstrained: tuple[tuple[str, str], ...]
+    residuals: tuple[FigureResidual, ...]
+    observations: int
+    dof: int
+    residual_scale: float
+    bias: str
+    bias_note: str
+    converged: bool
+
+    def parameter(self, key: str) -> FittedParameter:
+        """The fitted parameter with part-file key ``key``."""
+        for p in self.parameters:
+            if p.key == key:
+                return p
+        raise KeyError(key)
+
+
+def fit_twin(template: MixerPart, obs: ObservationSet) -> TwinFit:
+    """Fit ``template``'s constrained parameters to ``obs`` (see the module docstring).
+
+    ``template`` should carry the leakage phases of the bench the twin will be served on
+    (:func:`sweeprig.sim.bench.prepare_part`), so that leakage adds as it will there.
+    """
+    params = catalogue(template, obs)
+    free = tuple(p for p in params if p.needs(obs) is None)
+    unconstrained = tuple((p.key, str(p.needs(obs))) for p in params if p.needs(obs) is not None)
+    temperatures = obs.distinct("conversion_gain", "temperature_c")
+    if len(temperatures) >= 2:
+        choices = ("constant", "ptat")
+        bias_note = (f"bias law chosen from gain at {len(temperatures)} temperatures "
+                     "(constant and PTAT both fitted; the smaller residual kept)")
+    else:
+        choices = (template.bias,)
+        bias_note = "bias law kept from the template: gain measured at one temperature"
+    core_free = tuple(p for p in free if p.group == "core")
+    core_obs = tuple(o for o in obs.observations if o.name in CORE_FIGURES)
+    best: tuple[float, _Stage] | None = None
+    for bias in choices:
+        stage = _fit_stage(template.with_changes(bias=bias), core_free, core_obs)
+        if best is None or stage.cost < best[0]:
+            best = (stage.cost, stage)
+    assert best is not None
+    core = best[1]
+    part = core.part
+    stages = [core]
+    for group in dict.fromkeys(p.group for p in free if p.group != "core"):
+        group_free = tuple(p for p in free if p.group == group)
+        group_obs = obs.named(group)
+        stage = _fit_stage(part, group_free, group_obs)
+        # the core's own uncertainty moves this group's estimate too: add it
+        stage = _propagate(stage, core, group_obs)
+        part = stage.part
+        stages.append(stage)
+    fitted = []
+    for stage in stages:
+        for i, p in enumerate(stage.free):
+            fitted.append(_fitted(p, float(stage.x[i]), stage.cov[i, i], stage.dof,
+                                  p.get(template)))
+    m = len(obs.observations)
+    total_cost = sum(st.cost for st in stages)
+    residual_cost = total_cost + _unfitted_cost(part, obs, stages)
+    dof = m - len(free)
+    return TwinFit(part=part, parameters=tuple(fitted), unconstrained=unconstrained,
+                   residuals=_residual_table(part, obs), observations=m, dof=dof,
+                   residual_scale=math.sqrt(2.0 * residual_cost / dof) if dof > 0 else math.nan,
+                   bias=part.bias, bias_note=bias_note,
+                   converged=all(st.converged for st in stages))
+
+
+@dataclass(frozen=True)
+class _Stage:
+    """One group's fit: the part after it, its free parameters and their solution ``x``
+    (fit coordinates), covariance, degrees of freedom, cost (½Σr²) and Jacobian."""
+
+    part: MixerPart
+    base: MixerPart
+    free: tuple[FitParameter, ...]
+    x: np.ndarray
+    cov: np.ndarray
+    dof: int
+    cost: float
+    jac: np.ndarray
+    converged: bool
+
+
+def _fit_stage(base: MixerPart, free: tuple[FitParameter, ...],
+               observations: Sequence[Observation]) -> _Stage:
+    result = _solve(base, free, observations)
+    m, n = len(observations), len(free)
+    dof = m - n
+    cost = float(result.cost)
+    s2 = 2.0 * cost / dof if dof > 0 else math.nan
+    jac = np.asarray(result.jac, dtype=float)
+    return _Stage(_apply(base, free, result.x), base, free, np.asarray(result.x, dtype=float),
+                  _covariance(jac, s2), dof, cost, jac, bool(result.success))
+
+
+def _propagate(stage: _Stage, core: _Stage, observations: Sequence[Observation]) -> _Stage:
+    """Add the core parameters' covariance to a later group's, through the group estimate's
+    sensitivity to them: ``S = −(JᵦᵀJᵦ)⁻¹·JᵦᵀJ_θ``, ``cov += S·cov_θ·Sᵀ`` (the law of
+    propagation of uncertainty, JCGM 100:2008 (GUM) §5.1.2, in matrix form; a two-step
+    estimate's second step inherits the first step's uncertainty this way)."""
+    if not core.free or not stage.free or not np.all(np.isfinite(core.cov)):
+        return stage
+    scale = np.array([o.scale for o in observations])
+    measured = np.array([o.value for o in observations])
+
+    def residual(core_x: np.ndarray) -> np.ndarray:
+        moved = _apply(_apply(core.base, core.free, core_x), stage.free, stage.x)
+        r = (model_figures(moved, observations) - measured) / scale
+        return np.where(np.isfinite(r), r, _MISSING_RESIDUAL)
+
+    r0 = residual(core.x)
+    j_core = np.empty((len(observations), len(core.free)))
+    for k in range(len(core.free)):
+        step = _DIFF_STEP * max(abs(core.x[k]), 1.0)
+        moved = core.x.copy()
+        moved[k] += step
+        j_core[:, k] = (residual(moved) - r0) / step
+    jb = stage.jac
+    try:
+        sens = -np.linalg.solve(jb.T @ jb, jb.T @ j_core)
+    except np.linalg.LinAlgError:
+        return stage
+    extra = sens @ core.cov @ sens.T
+    cov = stage.cov + extra if np.all(np.isfinite(stage.cov)) else stage.cov
+    return _Stage(stage.part, stage.base, stage.free, stage.x, cov, stage.dof, stage.cost,
+                  stage.jac, stage.converged)
+
+
+def _fitted(p: FitParameter, x: float, var: float, dof: int,
+            start: float | None) -> FittedParameter:
+    lo_b, hi_b = p.internal_bounds()
+    span = hi_b - lo_b
+    at_bound = min(x - lo_b, hi_b - x) <= 1e-3 * max(span, 1e-12)
+    t = float(stats.t.ppf(0.5 + _CI_LEVEL / 2.0, dof)) if dof > 0 else math.nan
+    half = t * math.sqrt(var) if var >= 0 else math.nan
+    low, high = ((math.nan, math.nan) if at_bound or not math.isfinite(half)
+                 else (p.to_si(x - half), p.to_si(x + half)))
+    return FittedParameter(p.key, p.unit, p.display_scale, p.to_si(x), low, high, start,
+                           at_bound, p.what)
+
+
+def _unfitted_cost(part: MixerPart, obs: ObservationSet, stages: list[_Stage]) -> float:
+    """½Σr² of the observations no stage fitted (a figure whose path is not a parameter)."""
+    fitted_names = set(CORE_FIGURES) | {p.group for st in stages for p in st.free}
+    rest = tuple(o for o in obs.observations if o.name not in fitted_names)
+    if not rest:
+        return 0.0
+    r = (model_figures(part, rest) - np.array([o.value for o in rest])) / np.array(
+        [o.scale for o in rest])
+    r = np.where(np.isfinite(r), r, _MISSING_RESIDUAL)
+    return 0.5 * float(r @ r)
+
+
+def _start(p: FitParameter, part: MixerPart) -> float:
+    """The template's value in the fit's coordinate, inside the bounds (a missing leakage
+    path starts at 60 dB, missing corners a decade outside the band)."""
+    value = p.get(part)
+    lo_b, hi_b = p.internal_bounds()
+    if value is None:
+        value = {"dB": 60.0}.get(p.unit)
+        if value is None:
+            x = lo_b + 0.1 * (hi_b - lo_b) if p.key.endswith("highpass") else hi_b - 0.1 * (
+                hi_b - lo_b)
+            return x
+    x = p.to_internal(value) if (not p.log or value > 0) else lo_b
+    margin = 1e-3 * (hi_b - lo_b)
+    return min(max(x, lo_b + margin), hi_b - margin)
+
+
+def _apply(part: MixerPart, free: Sequence[FitParameter], x: np.ndarray) -> MixerPart:
+    for p, xi in zip(free, x, strict=True):
+        part = p.put(part, p.to_si(float(xi)))
+    return part
+
+
+def _solve(start: MixerPart, free: Sequence[FitParameter],
+           observations: Sequence[Observation]) -> optimize.OptimizeResult:
+    measured = np.array([o.value for o in observations])
+    scale = np.array([o.scale for o in observations])
+
+    def residual(x: np.ndarray) -> np.ndarray:
+        model = model_figures(_apply(start, free, x), observations)
+        r = (model - measured) / scale
+        return np.where(np.isfinite(r), r, _MISSING_RESIDUAL)
+
+    x0 = np.array([_start(p, start) for p in free])
+    if not free:
+        r0 = residual(x0)
+        return optimize.OptimizeResult(x=x0, cost=0.5 * float(r0 @ r0),
+                                       jac=np.zeros((len(r0), 0)), success=True)
+    bounds = np.array([p.internal_bounds() for p in free]).T
+    return optimize.least_squares(residual, x0, bounds=(bounds[0], bounds[1]),
+                                  diff_step=_DIFF_STEP, x_scale="jac", method="trf",
+                                  ftol=_TOL, xtol=_TOL, gtol=_TOL)
+
+
+def _covariance(jac: np.ndarray, s2: float) -> np.ndarray:
+    """``s²·(JᵀJ)⁻¹`` (NaN where it does not exist: no degrees of freedom, or a direction
+    the Jacobian does not see)."""
+    n = jac.shape[1]
+    if n == 0 or not math.isfinite(s2):
+        return np.full((n, n), math.nan)
+    try:
+        return s2 * np.linalg.inv(jac.T @ jac)
+    except np.linalg.LinAlgError:
+        return np.full((n, n), math.nan)
+
+
+def _residual_table(part: MixerPart, obs: ObservationSet) -> tuple[FigureResidual, ...]:
+    rows = []
+    for name in FITTED_FIGURES:
+        subset = obs.named(name)
+        if not subset:
+            continue
+        model = model_figures(part, subset)
+        diff = model - np.array([o.value for o in subset])
+        finite = diff[np.isfinite(diff)]
+        if finite.size == 0:
+            rows.append(FigureResidual(name, FITTED_FIGURES[name][0], len(subset), math.nan,
+                                       math.nan, math.nan))
+            continue
+        rows.append(FigureResidual(
+            name, FITTED_FIGURES[name][0], len(subset), float(finite.mean()),
+            float(np.sqrt(np.mean(finite**2))), float(finite[np.argmax(np.abs(finite))])))
+    return tuple(rows)

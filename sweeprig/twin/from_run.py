@@ -1,0 +1,135 @@
+"""Fit a twin to a stored run: the store, the template and the checks around the pure fit.
+
+:func:`fit_stored_run` reads one run (its figures from :func:`~sweeprig.analysis.reduce.
+reduce_run`, its mixing from the stored sequence), refuses what the fit cannot use (no such
+run, a run of an upconverter, a run without the figures a fit needs) with a located message,
+fits (:func:`~sweeprig.twin.fit.fit_twin`) and returns the fit with its part-file text.
+Nothing is written here; the caller writes the text (:func:`~sweeprig.twin.partfile.
+write_part_file`) only when all went well.
+"""
+
+from __future__ import annotations
+
+import math
+import tomllib
+from dataclasses import dataclass
+from pathlib import Path
+from types import MappingProxyType
+from typing import TYPE_CHECKING
+
+from sweeprig.errors import InputError
+from sweeprig.twin.fit import TwinFit, fit_twin
+from sweeprig.twin.observations import (
+    DISQUALIFYING_FLAGS,
+    Observation,
+    ObservationSet,
+    observations_from_figures,
+)
+from sweeprig.twin.partfile import part_file_text
+
+if TYPE_CHECKING:
+    from sweeprig.analysis.reduce import RunFigures
+
+#: The template when none is named: the shipped downconverter whose unfitted values
+#: (port matches, offsets, noise shape) are typical of an active Gilbert cell.
+DEFAULT_TEMPLATE = "kx-2417"
+
+
+@dataclass(frozen=True)
+class StoredRunTwin:
+    """A fit of one stored run: the fit, the observations it used, the part-file text."""
+
+    fit: TwinFit
+    observations: ObservationSet
+    text: str
+    run_id: int
+    part_id: str
+
+
+def fit_stored_run(store_path: Path, run_id: int, *, template: str = DEFAULT_TEMPLATE,
+                   name: str | None = None,
+                   sim_description: str | Path | None = None) -> StoredRunTwin:
+    """Fit a twin of run ``run_id`` in the SQLite store at ``store_path`` (see the module
+    docstring). ``template``: a shipped part name or a part file; ``name``: the twin's part
+    name (default: ``"<part id> twin"``). The template is placed on the simulated bench
+    the twin will be served on (``sim_description``: a sim-bench description file or shipped
+    name; default: the built-in one), whose seeded leakage phases decide how each leakage
+    path adds to what the core makes.
+    """
+    from sweeprig.analysis.reduce import reduce_run
+    from sweeprig.sim.bench import resolve_description
+    from sweeprig.sim.mixer import load_part
+    from sweeprig.store.sqlite import SqliteRunStore
+
+    where = f"{store_path}: run {run_id}"
+    if not store_path.is_file():
+        raise InputError(f"no run store at {store_path}", where=str(store_path),
+                         fix="give the --store file the run was stored in")
+    with SqliteRunStore(store_path, create=False) as db:
+        info = db.run(run_id)
+        run = reduce_run(db, run_id)
+    base = load_part(template)
+    conversion = _stored_conversion(info.sequence_text)
+    if conversion != "down" or base.conversion != "down":
+        kind = conversion if conversion != "down" else base.conversion
+        what = (f"run {run_id} is of an {kind}converter" if conversion != "down"
+                else f"the template {template!r} is an {kind}converter")
+        raise InputError(
+            f"{what}: the twin fit models downconverters only (the RF port feeding the "
+            "transconductor, the IF port the output)",
+            where=where if conversion != "down" else "--template",
+            fix="fit a run of a downconverter, with a downconverter template (e.g. "
+                f"{DEFAULT_TEMPLATE})",
+        )
+    observations = observations_from_figures(run.figures, where=where,
+                                             extra=swept_gains(run))
+    bench = resolve_description(None if sim_description is None else str(sim_description))
+    placed = base.with_changes(leakage_phases=bench.leakage_phases())
+    fit = fit_twin(placed, observations)
+    part_id = run.part or f"run {run_id}"
+    text = part_file_text(fit, name=name or f"{part_id} twin",
+                          source=f"run {run_id} ({part_id}, serial {run.serial or '-'})",
+                          template=template)
+    return StoredRunTwin(fit, observations, text, run_id, part_id)
+
+
+def swept_gains(run: RunFigures) -> tuple[Observation, ...]:
+    """The gain at every clean point of the run's LO-drive sweeps (``lo_drive_gain``) and RF
+    power sweeps (``compression_gain``): the analysis keeps one figure of each sweep
+    (``lo_power_for_gain``, the P1dB interpolated between steps); the fit wants the curve,
+    which carries no interpolation error."""
+    from sweeprig.analysis.figures import BOUND_NONE, flags_from_mask
+    from sweeprig.analysis.gain import gain_table
+    from sweeprig.analysis.reduce import ROLE_COMPRESSION, ROLE_LO_DRIVE
+
+    out: list[Observation] = []
+    sweeps = ((ROLE_LO_DRIVE, "lo_drive_gain"), (ROLE_COMPRESSION, "compression_gain"))
+    for role, name in sweeps:
+        names = run.studies_with(role)
+        if not names or run.captures.empty:
+            continue
+        table = gain_table(run.captures, study=names)
+        for row in table.itertuples(index=False):
+            flags = set(flags_from_mask(int(row.gain_flags)))
+            if int(row.gain_bound) != BOUND_NONE or flags & DISQUALIFYING_FLAGS:
+                continue
+            conditions = {k: float(getattr(row, k)) for k in _GAIN_CONDITIONS
+                          if math.isfinite(float(getattr(row, k)))}
+            out.append(Observation(name, float(row.gain_db), MappingProxyType(conditions),
+                                   str(row.study)))
+    return tuple(out)
+
+
+_GAIN_CONDITIONS = ("temperature_c", "supply_v", "lo_freq_hz", "lo_power_dbm", "rf_freq_hz",
+                    "rf_power_dbm")
+
+
+def _stored_conversion(sequence_text: str) -> str:
+    """``[mixing] conversion`` of the stored sequence text (``"down"`` when unreadable)."""
+    try:
+        data = tomllib.loads(sequence_text)
+    except tomllib.TOMLDecodeError:
+        return "down"
+    mixing = data.get("mixing")
+    value = mixing.get("conversion", "down") if isinstance(mixing, dict) else "down"
+    return value if value in ("down", "up") else "down"
