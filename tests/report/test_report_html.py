@@ -18,7 +18,8 @@ from sweeprig.analysis.figures import FLAG_MEANINGS, FLAGS, SUSPECT_FLAGS
 from sweeprig.report.html import render_html
 from sweeprig.report.tables import summary_rows
 
-PLOT_KEYS = ("gain_vs_frequency", "compression", "two_tone", "lo_drive", "spurs", "isolation")
+PLOT_KEYS = ("gain_vs_frequency", "compression", "two_tone", "intermod_dbc", "lo_drive",
+             "isolation", "spurs")
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"  # PNG specification (ISO/IEC 15948), file signature
 
 
@@ -53,7 +54,7 @@ def test_the_report_refers_to_nothing_outside_itself(report_files):
 def test_the_header_and_sections_say_what_an_engineer_needs(report_run, report_files):
     html = report_files.html.read_text(encoding="utf-8")
     for text in ("KX-2417", "T-0001", "Report test: KX-2417 (fictional)",
-                 f"<dd>{report_run.run_id} (simulated bench)</dd>", ">complete<", ">PASS<",
+                 f"run <b>{report_run.run_id} (simulated bench)</b>", ">complete<", ">PASS<",
                  "Summary", "Conditions", "Instruments", "*IDN?", "Tarnwick Labs",
                  report_run.sequence_sha256, "bench time", "wall time", "Events"):
         assert text in html, text
