@@ -185,8 +185,7 @@ def compression_curves(run: RunFigures) -> Plot | None:
         return None
     p1 = _by_conditions(run.figures_named("input_p1db"))
     p1_out = _by_conditions(run.figures_named("output_p1db"))
-    panels = _groups(table, _varying(table, ("study", "supply_v", "lo_power_dbm",
-                                             "rf_freq_hz")))
+    panels = _groups(table, _varying(table, ("study", "supply_v", "lo_power_dbm")))
     single = len(panels) == 1
     if single:
         fig, (ax_out, ax_gain) = _figure(1, 2, height_in=4.4)  # type: ignore[misc]
@@ -197,11 +196,15 @@ def compression_curves(run: RunFigures) -> Plot | None:
     corners: list[str] = []
     for ax_out, ax_gain, (title, rows) in pairs:
         notes: list[tuple[str, str]] = []
+        freqs = sorted(rows["rf_freq_hz"].dropna().unique())
+        by = ("temperature_c", "rf_freq_hz") if len(freqs) > 1 else ("temperature_c",)
         for _, sweep in rows.groupby("sweep", sort=True):
             sweep = sweep.sort_values("input_dbm")
             temp = _first(sweep, "temperature_c")
             colour = temperature_colour(temp)
-            label = _label_of(sweep.iloc[0], ("temperature_c",))
+            label = _label_of(sweep.iloc[0], by)
+            style = LINE_STYLES[freqs.index(sweep["rf_freq_hz"].iloc[0]) % len(LINE_STYLES)] \
+                if len(freqs) > 1 else "-"
             x, out, gain = sweep["input_dbm"], sweep["output_dbm"], sweep["gain_db"]
             corners += _corners(sweep, CORNER_KEYS)
             if ax_out is not None:
@@ -212,7 +215,7 @@ def compression_curves(run: RunFigures) -> Plot | None:
                     gain.iloc[0])
                 ax_out.plot(x, x + gss, linestyle=":", linewidth=1.0, color=colour, alpha=0.7)
             ax_gain.plot(x, gain, marker="o", markersize=3, linewidth=1.5, color=colour,
-                         label=label)
+                         label=label, linestyle=style)
             key = _condition_key(sweep.iloc[0])
             fin, fout = p1.get(key), p1_out.get(key)
             if fin is None or not math.isfinite(fin.value):
@@ -243,8 +246,8 @@ def compression_curves(run: RunFigures) -> Plot | None:
                    "Single-tone power sweeps: "
                    + ("output power and " if single else "")
                    + "conversion gain versus input power at the DUT ports, one curve per "
-                   "temperature" + ("" if single else ", one panel per supply, LO drive and "
-                                    "frequency")
+                   "temperature (and frequency)" + ("" if single else ", one panel per supply "
+                                                    "and LO drive")
                    + "; the diamond marks the 1 dB compression point, listed in the curve's "
                    "colour. Studies: " + ", ".join(studies),
                    corners=corners, corner_keys=CORNER_KEYS, studies=studies)
@@ -646,11 +649,18 @@ def soak_curves(run: RunFigures) -> Plot | None:
 # -- helpers -----------------------------------------------------------------------------------
 
 
-def _figure(rows: int, cols: int, *, height_in: float) -> tuple[MplFigure, object]:
+def _figure(rows: int, cols: int, *, height_in: float,
+            constrained: bool = True) -> tuple[MplFigure, object]:
+    """A figure of rows × cols panels. Constrained layout for a few panels; a grid of many
+    gets fixed margins instead (constrained layout's cost grows fast with the panel count)."""
     fig = MplFigure(figsize=(WIDTH_IN, height_in), dpi=DPI, facecolor=PAPER,
-                    layout="constrained")
+                    layout="constrained" if constrained else None)
     FigureCanvasAgg(fig)
     axes = fig.subplots(rows, cols, squeeze=True)
+    if not constrained:
+        fig.subplots_adjust(left=0.08, right=0.985, bottom=0.55 / height_in,
+                            top=1.0 - 0.35 / height_in, wspace=0.32,
+                            hspace=0.62 if rows > 1 else 0.2)
     for ax in np.atleast_1d(axes).ravel():
         _style(ax)
     return fig, axes
@@ -684,7 +694,7 @@ def _grid(count: int, *, height_in: float, single_height_in: float,
     cols = max(1, min(count, columns))
     rows = max(1, math.ceil(count / cols))
     height = single_height_in if count == 1 else height_in * rows
-    fig, axes = _figure(rows, cols, height_in=height)
+    fig, axes = _figure(rows, cols, height_in=height, constrained=count <= 2)
     axes_list = list(np.atleast_1d(axes).ravel())  # type: ignore[arg-type]
     for ax in axes_list[count:]:
         ax.set_visible(False)
