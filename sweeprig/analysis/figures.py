@@ -298,6 +298,8 @@ FIGURE_CATALOGUE: Mapping[str, tuple[str, str]] = MappingProxyType(
         "im2_slope_low": ("dB/dB", "unconstrained fitted slope of the lower IM2 (diagnostic)"),
         "im2_slope_high": ("dB/dB", "unconstrained fitted slope of the upper IM2 (diagnostic)"),
         "spur_dbc": ("dBc", "m×n spur level relative to the wanted IF at the same point"),
+        "spur_excluded_dbc": ("dBc", "m×n product the worst spur does not count (outside the "
+                              "output band, or named expected), relative to the wanted output"),
         "spur_dbm": ("dBm", "m×n spur absolute level at the DUT output port"),
         "lo_if_isolation": ("dB", "LO power at the LO port − LO leakage at the IF port"),
         "lo_rf_isolation": ("dB", "LO power at the LO port − LO leakage at the RF port"),

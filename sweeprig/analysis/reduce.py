@@ -174,7 +174,8 @@ def reduce_run(store: RunStore, run_id: int) -> RunFigures:
         orders = wanted_orders(conversion, sequence.mixing.lo_side)
     captures = captures_from_frames(points, readings, wanted_orders=orders)
     studies = _study_infos(captures, points, sequence)
-    figures = _figures(captures, studies, notes)
+    figures = _figures(captures, studies, notes,
+                       spur_counting(sequence) if sequence is not None else {})
     if conversion == "up" and not captures.empty:
         from sweeprig.analysis.direction import upconverter_figures
 
@@ -441,10 +442,30 @@ def _roles(
     return tuple(roles)
 
 
+def spur_counting(
+    sequence: Sequence,
+) -> dict[str, tuple[tuple[float, float] | None, tuple[tuple[int, int], ...]]]:
+    """Per study with an ``mxn`` reading that states them: (output band in Hz or None, the
+    expected products as (m, n)): which products its worst-spur figure counts."""
+    from sweeprig.formats.sequence import expected_products
+
+    out = {}
+    for study in sequence.study:
+        for spec in study.readings():
+            if spec.kind == "mxn" and (spec.output_band is not None or spec.expected):
+                band = None if spec.output_band is None else (
+                    float(spec.output_band[0]), float(spec.output_band[1]))
+                out[study.name] = (band, expected_products(spec))
+    return out
+
+
 def _figures(
-    captures: pd.DataFrame, studies: tuple[StudyInfo, ...], notes: list[str]
+    captures: pd.DataFrame, studies: tuple[StudyInfo, ...], notes: list[str],
+    counting: Mapping[str, tuple[tuple[float, float] | None, tuple[tuple[int, int], ...]]]
+    | None = None,
 ) -> list[Figure]:
-    """Every figure of the run, study roles deciding which analysis runs where."""
+    """Every figure of the run, study roles deciding which analysis runs where
+    (``counting``: :func:`spur_counting` of the sequence)."""
     from sweeprig import analysis as an
 
 
@@ -480,7 +501,15 @@ def _figures(
     if names := having(ROLE_SUPPLY):
         figures += an.supply_figures(captures, study=names)
     if names := having(ROLE_SPURS):
-        figures += an.spur_figures(captures, study=names)
+        counting = counting or {}
+        plain = [n for n in names if n not in counting]
+        if plain:
+            figures += an.spur_figures(captures, study=plain)
+        for name in names:
+            if name in counting:
+                band, expected = counting[name]
+                figures += an.spur_figures(captures, study=name, if_band_hz=band,
+                                           expected=expected)
     return figures
 
 

@@ -5,6 +5,13 @@ capture table a ``spur`` reading carries signed multipliers ``m`` (LO) and ``n``
 product sits at |m·f_LO + n·f_RF|, so (1, −1) is the difference product and (1, 1) the sum.
 Its dBc level is relative to the wanted ``if`` reading at the same point (same RF and LO
 levels). A spur within 6 dB of its noise floor is an upper bound ("<").
+
+Which products count. A datasheet's worst-spur line is the strongest unwanted product that
+lands where the output is used, so a product counts toward ``spur_dbc`` when it lies inside
+the output band (when one is stated; every product otherwise) and is not named as expected
+(e.g. a downconverter's sum product ``1x1``, filtered after the mixer). The others are kept as
+``spur_excluded_dbc``, and every product keeps its absolute ``spur_dbm``: nothing read is
+lost, and a chart can show them all.
 """
 
 from __future__ import annotations
@@ -82,18 +89,32 @@ def in_band(freq_hz: ArrayLike, band_hz: tuple[float, float] | None) -> np.ndarr
     return (freq >= low) & (freq <= high)
 
 
+def expected_mask(m: ArrayLike, n: ArrayLike, expected: Sequence[tuple[int, int]]) -> np.ndarray:
+    """True where (m, n) is one of ``expected`` or its negation (|m·f_LO + n·f_RF| and
+    |−m·f_LO − n·f_RF| are the same product)."""
+    m_ = np.asarray(m, dtype=float)
+    n_ = np.asarray(n, dtype=float)
+    out = np.zeros(np.broadcast(m_, n_).shape, dtype=bool)
+    for em, en in expected:
+        out |= ((m_ == em) & (n_ == en)) | ((m_ == -em) & (n_ == -en))
+    return out
+
+
 def spur_table(
     captures: pd.DataFrame,
     *,
     if_band_hz: tuple[float, float] | None = None,
     study: str | Sequence[str] | None = None,
+    expected: Sequence[tuple[int, int]] = (),
 ) -> pd.DataFrame:
     """One row per ``spur`` reading (normal attenuation): the point's study and conditions,
     ``m``, ``n``, ``order`` (|m| + |n|), ``freq_hz`` (where the analyzer read it, or
     |m·f_LO + n·f_RF| when the reading has no frequency), ``expected_freq_hz``
     (|m·f_LO + n·f_RF|), ``level_dbm`` (upper bound when in the noise), ``dbc``, ``bound``
     (code of the dBc value), ``level_bound`` (code of the dBm value, "<" when in the noise),
-    ``in_band`` (inside ``if_band_hz``), ``level_flags`` (mask: the spur reading's own noise,
+    ``in_band`` (inside ``if_band_hz``, the output band), ``expected`` ((m, n) named in
+    ``expected``), ``counted`` (counts toward the worst spur: inside the band when one is
+    given, and not expected), ``level_flags`` (mask: the spur reading's own noise,
     overload and attenuation-test flags), ``flags`` (mask for the dBc value: those plus the
     wanted IF's, and ``missing_reading`` when the point has no ``if`` reading) and
     ``flag_names`` (of ``flags``). A spur read twice at a point counts once (the later)."""
@@ -142,9 +163,10 @@ def spur_table(
     dbc, dbc_bound = bound_difference(
         level_ub, bound, spur_cols["if_level_dbm"], np.where(if_noise, BOUND_BELOW, BOUND_NONE)
     )
-    expected = product_freq_hz(cols["lo_freq_hz"][spur_rows], cols["rf_freq_hz"][spur_rows], m, n)
+    expected_hz = product_freq_hz(cols["lo_freq_hz"][spur_rows], cols["rf_freq_hz"][spur_rows],
+                                  m, n)
     freq = cols[FREQ][spur_rows]
-    freq = np.where(np.isfinite(freq), freq, expected)
+    freq = np.where(np.isfinite(freq), freq, expected_hz)
     table = pd.DataFrame({POINT: cols[POINT][spur_rows], STUDY: cols[STUDY][spur_rows]})
     for col in CONDITION_COLUMNS:
         table[col] = cols[col][spur_rows]
@@ -152,12 +174,15 @@ def spur_table(
     table["n"] = n.astype(np.int64)
     table["order"] = np.abs(table["m"]) + np.abs(table["n"])
     table["freq_hz"] = freq
-    table["expected_freq_hz"] = expected
+    table["expected_freq_hz"] = expected_hz
     table["level_dbm"] = level_ub
     table["dbc"] = dbc
     table["level_bound"] = bound
     table["bound"] = dbc_bound
     table["in_band"] = in_band(freq, if_band_hz)
+    table["expected"] = expected_mask(m, n, expected)
+    table["counted"] = ((table["in_band"] if if_band_hz is not None else True)
+                        & ~table["expected"])
     table["level_flags"] = own_flags
     table["flags"] = (
         own_flags | if_flags | mask_where(~np.isfinite(spur_cols["if_level_dbm"]), MISSING_READING)
@@ -185,17 +210,29 @@ def spur_figures(
     *,
     if_band_hz: tuple[float, float] | None = None,
     study: str | Sequence[str] | None = None,
+    expected: Sequence[tuple[int, int]] = (),
 ) -> list[Figure]:
-    """``spur_dbc`` and ``spur_dbm`` per spur reading; conditions add ``m``, ``n``,
-    ``freq_hz`` and ``in_band``."""
-    table = spur_table(captures, if_band_hz=if_band_hz, study=study)
-    keys = (STUDY, *CONDITION_COLUMNS, "m", "n", "freq_hz", "in_band")
+    """Per spur reading: ``spur_dbc`` when the product counts (see the module docstring),
+    else ``spur_excluded_dbc``, and ``spur_dbm`` for every product. Conditions add ``m``,
+    ``n``, ``freq_hz`` and ``in_band``, and with a band ``band_low_hz``/``band_high_hz``."""
+    table = spur_table(captures, if_band_hz=if_band_hz, study=study, expected=expected)
+    if if_band_hz is not None:
+        low, high = sorted(float(f) for f in if_band_hz)
+        table["band_low_hz"], table["band_high_hz"] = low, high
+    keys = (STUDY, *CONDITION_COLUMNS, "m", "n", "freq_hz", "in_band",
+            *(("band_low_hz", "band_high_hz") if if_band_hz is not None else ()))
     conditions = conditions_records(table, np.arange(len(table)), keys)
     points = [(p,) for p in table[POINT].tolist()]
-    return make_figures(
-        "spur_dbc", "dBc", table["dbc"].to_numpy(), table["bound"].to_numpy(),
-        table["flags"].to_numpy(), conditions, points,
-    ) + make_figures(
+    counted = table["counted"].to_numpy(dtype=bool)
+    out: list[Figure] = []
+    for name, rows in (("spur_dbc", np.flatnonzero(counted)),
+                       ("spur_excluded_dbc", np.flatnonzero(~counted))):
+        if rows.size or name == "spur_dbc":
+            out += make_figures(
+                name, "dBc", table["dbc"].to_numpy()[rows], table["bound"].to_numpy()[rows],
+                table["flags"].to_numpy()[rows], [conditions[i] for i in rows],
+                [points[i] for i in rows])
+    return out + make_figures(
         "spur_dbm", "dBm", table["level_dbm"].to_numpy(), table["level_bound"].to_numpy(),
         table["level_flags"].to_numpy(), conditions, points,
     )

@@ -189,20 +189,28 @@ def cubic_two_tone_captures(
     return pd.concat(frames, ignore_index=True)
 
 
-def synthetic_run(target_rows: int = 1_000_000, seed: int = 0) -> pd.DataFrame:
+def synthetic_run(
+    target_rows: int = 1_000_000,
+    seed: int = 0,
+    *,
+    temperatures_c: ArrayLike = (-40.0, 25.0, 85.0),
+    supplies_v: ArrayLike = (3.0, 3.3, 3.6),
+    lo_powers_dbm: ArrayLike = (-6.0, -3.0, 0.0, 3.0, 6.0),
+) -> pd.DataFrame:
     """A whole fictional characterisation run of about ``target_rows`` readings.
 
     Studies: ``compression`` (single-tone power sweeps, ``if`` and ``supply_current``, with
     attenuation repeats of the top points), ``two_tone`` (``if``, IM3 and IM2 products, each
     repeated with +10 dB attenuation), ``spurs`` (an m×n table at two RF powers) and
     ``isolation`` (leakage readings, supply current, and an image point). Conditions span
-    three temperatures, three supplies, five LO powers and as many RF frequencies as the
-    size needs. Levels come from a cubic per condition, with 0.05 dB of seeded noise.
+    the corners given (by default three temperatures, three supplies, five LO powers) and as
+    many RF frequencies as the size needs. Levels come from a cubic per condition, with
+    0.05 dB of seeded noise.
     """
     rng = np.random.default_rng(seed)
-    temps = np.array([-40.0, 25.0, 85.0])
-    supplies = np.array([3.0, 3.3, 3.6])
-    lo_powers = np.array([-6.0, -3.0, 0.0, 3.0, 6.0])
+    temps = np.asarray(temperatures_c, dtype=float)
+    supplies = np.asarray(supplies_v, dtype=float)
+    lo_powers = np.asarray(lo_powers_dbm, dtype=float)
     comp_in = np.arange(-30.0, 10.5, 1.0)
     tt_in = np.arange(-30.0, -4.5, 1.0)
     spur_in = np.array([-20.0, -10.0])

@@ -333,6 +333,7 @@ def _models() -> dict[str, _Model]:
         "im3_asymmetry": _Model(linearity_c=math.sqrt(2.0), noise_reading="im3_high",
                                 noise_c=1.0, noise_also=(("im3_low", -1.0),)),
         "spur_dbc": _Model(linearity_c=1.0, noise_reading="spur", noise_c=1.0),
+        "spur_excluded_dbc": _Model(linearity_c=1.0, noise_reading="spur", noise_c=1.0),
         "spur_dbm": _Model(output_c=1.0, noise_reading="spur", noise_c=1.0),
         "lo_if_isolation": _Model(1.0, -1.0, noise_reading="lo_at_if", noise_c=-1.0,
                                   input_via=("lo",)),

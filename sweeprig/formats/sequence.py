@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import math
 import os
+import re
 from collections.abc import Callable
 from pathlib import Path
 from typing import Annotated, Any, Literal
@@ -313,6 +314,13 @@ class ReadingSpec(Frozen):
         None, description="mxn only: highest order m + |n| of the products read (default 3)")
     min_frequency: Frequency | None = Field(None, description="mxn only: skip products below")
     max_frequency: Frequency | None = Field(None, description="mxn only: skip products above")
+    output_band: tuple[Frequency, Frequency] | None = Field(
+        None, description="mxn only: [start, stop] of the output band; the worst-spur figure "
+        "counts only products inside it (all are still read and charted). Left out: every "
+        "product counts")
+    expected: tuple[str, ...] = Field(
+        (), description='mxn only: products the worst-spur figure leaves out, as "<m>x<n>" '
+        'like the reading names, e.g. ["1x1"] for a downconverter\'s sum product')
     analyzer: AnalyzerField | None = Field(None, description="analyzer settings for this reading")
     attenuation_check: StrictBool | None = Field(
         None, description="distortion readings: repeat with 10 dB more input attenuation")
@@ -817,17 +825,47 @@ def _check_study(sequence: Sequence, i: int, study: Study) -> None:
                            "for a downconverter read \"image\" (image rejection), or set "
                            "conversion = \"up\" in [mixing]")
         if spec.kind != "mxn":
-            for key in ("order", "min_frequency", "max_frequency"):
-                if getattr(spec, key) is not None:
+            for key in ("order", "min_frequency", "max_frequency", "output_band", "expected"):
+                if getattr(spec, key) not in (None, ()):
                     raise _problem(sequence, (*at, key), f"{key} applies only to mxn readings",
                                    f"remove {key}")
-        elif spec.order is not None and not 1 <= spec.order <= 15:
-            raise _problem(sequence, (*at, "order"), f"order {spec.order} is outside 1..15",
-                           "use an order such as 3 or 5")
+        else:
+            _check_spur_counting(sequence, at, spec)
+            if spec.order is not None and not 1 <= spec.order <= 15:
+                raise _problem(sequence, (*at, "order"), f"order {spec.order} is outside 1..15",
+                               "use an order such as 3 or 5")
         if spec.attenuation_check and spec.kind not in DISTORTION_KINDS:
             raise _problem(sequence, (*at, "attenuation_check"),
                            "the attenuation check applies to distortion readings (mxn, im3, im2)",
                            "remove attenuation_check here")
+
+
+#: A product named in an mxn reading's ``expected``: "<m>x<n>", n signed (as reading names).
+EXPECTED_PRODUCT = re.compile(r"^(-?\d+)x(-?\d+)$")
+
+
+def expected_products(spec: ReadingSpec) -> tuple[tuple[int, int], ...]:
+    """The (m, n) pairs an mxn reading names in ``expected`` (checked at load)."""
+    out = []
+    for text in spec.expected:
+        found = EXPECTED_PRODUCT.match(text.strip())
+        if found:
+            out.append((int(found.group(1)), int(found.group(2))))
+    return tuple(out)
+
+
+def _check_spur_counting(sequence: Sequence, at: KeyPath, spec: ReadingSpec) -> None:
+    if spec.output_band is not None:
+        start, stop = spec.output_band
+        if not 0 < start < stop:
+            raise _problem(sequence, (*at, "output_band"),
+                           f"output_band [{start:g} Hz, {stop:g} Hz] is not a band above 0 Hz",
+                           'give [start, stop] with start below stop, e.g. ["90 MHz", "110 MHz"]')
+    for k, text in enumerate(spec.expected):
+        if not EXPECTED_PRODUCT.match(text.strip()):
+            raise _problem(sequence, (*at, "expected", k),
+                           f"{text!r} is not a product name",
+                           'name products as the readings do, "<m>x<n>", e.g. "1x1" or "2x-1"')
 
 
 #: Margins accepted, dB: below 0 is no margin; above 60 dB no analyzer could keep them.

@@ -1,10 +1,14 @@
 """The HTML report: one self-contained file, plots embedded as base64 PNG.
 
 No scripts, no fonts, no style sheets or images from elsewhere: the file opens the same on a
-laptop without a network as on a lab PC. Layout, top to bottom: header (part, serial,
-sequence title, run id, run state and reason, the overall verdict big and coloured), the
-summary table, the plots, then conditions, instruments, run facts (durations, SHA-256),
-notes and events. Every number in it is in ``figures.json`` with the point indices behind it.
+laptop without a network as on a lab PC. Layout, top to bottom: a compact header (part,
+serial, sequence title, run id and state, the verdict as one word), the electrical-
+characteristics table (:mod:`sweeprig.report.datasheet`) with its flag footnotes, the
+verdict and its counts, the plots (each ``<figure>`` lists the corners it draws in
+``data-corners``), then the per-condition summary (collapsed), the uncertainty budgets,
+conditions, instruments, run facts (durations, SHA-256), notes and events. Printed from a
+browser (A4), the table starts on the first page and every plot on a page of its own when it
+does not fit. Every number in it is in ``figures.json`` with the point indices behind it.
 """
 
 from __future__ import annotations
@@ -21,6 +25,7 @@ from sweeprig.analysis.figures import FIGURE_CATALOGUE, FLAGS, SUSPECT_FLAGS
 from sweeprig.analysis.limits import FAIL, INCONCLUSIVE, PASS
 from sweeprig.analysis.reduce import RunFigures
 from sweeprig.report.budgets import budget_section
+from sweeprig.report.datasheet import DatasheetRow, datasheet_rows
 from sweeprig.report.plots import Plot
 from sweeprig.report.tables import (
     NO_LIMIT,
@@ -35,31 +40,48 @@ STATE_COLOURS = {"complete": "#2f7a4a", "aborted": "#b3261e", "partial": "#a76a1
                  "unsafe": "#7a0d08"}
 
 _CSS = """
-:root { --ink:#1f2a36; --muted:#6b7785; --rule:#dde2e8; --paper:#fcfbf8; --band:#f3f1ea; }
+:root { --ink:#1f2a36; --muted:#5f6b78; --rule:#d5dbe2; --paper:#fcfbf8; --band:#eef1ec;
+  --accent:#2d5f8a; }
 * { box-sizing: border-box; }
 body { margin:0; background:var(--paper); color:var(--ink);
   font: 14px/1.45 "DejaVu Sans", "Segoe UI", Helvetica, Arial, sans-serif; }
-main { max-width: 1040px; margin: 0 auto; padding: 24px 28px 48px; }
-header.run { display:flex; gap:24px; align-items:stretch; border-bottom:2px solid var(--ink);
-  padding-bottom:16px; margin-bottom:20px; }
-header.run .who { flex:1; }
-header.run h1 { font-size:24px; margin:0 0 4px; }
-header.run .title { font-size:16px; margin:0 0 8px; }
-header.run dl { display:grid; grid-template-columns: max-content 1fr; gap:2px 14px; margin:0; }
-header.run dt { color:var(--muted); } header.run dd { margin:0; }
-.verdict { min-width:230px; border-radius:6px; color:#fff; text-align:center;
-  display:flex; flex-direction:column; justify-content:center; padding:12px 18px; }
-.verdict .word { font-size:38px; font-weight:bold; letter-spacing:2px; }
-.verdict .counts { font-size:13px; opacity:.92; }
-.state { display:inline-block; padding:1px 8px; border-radius:10px; color:#fff;
-  font-size:12px; font-weight:bold; text-transform:uppercase; }
-h2 { font-size:18px; margin:28px 0 8px; border-bottom:1px solid var(--rule);
+main { max-width: 1040px; margin: 0 auto; padding: 20px 28px 48px; }
+header.run { display:grid; grid-template-columns: 1fr auto; gap:4px 24px;
+  border-top:6px solid var(--accent); padding-top:10px; margin-bottom:14px; }
+header.run h1 { font-size:22px; margin:0; letter-spacing:.3px; }
+header.run h1 .kind { font-weight:normal; color:var(--muted); font-size:15px; }
+header.run .title { margin:0; color:var(--muted); }
+header.run .facts { grid-column: 1 / span 2; margin:0; font-size:12.5px; color:var(--muted); }
+header.run .facts b { color:var(--ink); font-weight:600; }
+.chip { align-self:start; border-radius:4px; color:#fff; padding:3px 12px; font-weight:bold;
+  letter-spacing:1px; font-size:15px; }
+.verdict { border-left:6px solid; padding:8px 14px; margin:14px 0 4px; background:#fff; }
+.verdict .word { font-size:20px; font-weight:bold; letter-spacing:1px; }
+.verdict .counts { color:var(--muted); font-size:13px; margin-left:10px; }
+.state { display:inline-block; padding:0 7px; border-radius:9px; color:#fff;
+  font-size:11px; font-weight:bold; text-transform:uppercase; }
+h2 { font-size:17px; margin:26px 0 8px; border-bottom:1px solid var(--rule);
   padding-bottom:3px; }
+h2.sheet { font-size:15px; text-transform:uppercase; letter-spacing:1.5px; margin-top:8px;
+  border-bottom:2px solid var(--ink); }
 table { border-collapse:collapse; width:100%; font-size:13px; }
 th, td { text-align:left; vertical-align:top; padding:4px 8px;
   border-bottom:1px solid var(--rule); }
 th { background:var(--band); font-weight:600; }
 td.num { white-space:nowrap; font-variant-numeric: tabular-nums; }
+table.datasheet { font-size:11.5px; }
+table.datasheet th, table.datasheet td { padding:3px 5px; }
+table.datasheet th { border-bottom:1.5px solid var(--ink); }
+table.datasheet td.num, table.datasheet th.num { text-align:right; }
+table.datasheet td.param { font-weight:600; }
+table.datasheet td.param .study { display:block; font-weight:normal; color:var(--muted);
+  font-size:10.5px; }
+table.datasheet td.cond, table.datasheet td.lim { font-size:10.5px; overflow-wrap:anywhere; }
+table.datasheet td.notes { font-size:10.5px; }
+table.datasheet tr.fail td { background:#fbeceb; }
+table.datasheet sup { color:var(--accent); font-weight:bold; }
+ol.footnotes { font-size:11.5px; margin:6px 0 0; padding-left:22px; list-style:lower-alpha; }
+.sheet-key { font-size:11.5px; color:var(--muted); margin:6px 0 0; }
 td.verdict-pass { color:#2f7a4a; font-weight:bold; }
 td.verdict-fail { color:#b3261e; font-weight:bold; }
 td.verdict-inconclusive { color:#a76a12; font-weight:bold; }
@@ -73,6 +95,8 @@ tr.fail td { background:#fbeceb; }
 .flag .meaning { color:var(--ink); font-size:12px; }
 dl.flags { display:grid; grid-template-columns: max-content 1fr; gap:3px 12px; margin:0; }
 dl.flags dd { margin:0; }
+details.summary > summary { cursor:pointer; font-size:17px; font-weight:bold; margin:26px 0 8px;
+  border-bottom:1px solid var(--rule); padding-bottom:3px; }
 figure { margin:18px 0 26px; }
 figure img { max-width:100%; height:auto; border:1px solid var(--rule); background:#fff; }
 figcaption { color:var(--muted); font-size:12.5px; margin-top:4px; }
@@ -82,6 +106,21 @@ code { font-size:12px; word-break:break-all; }
 ul.notes li { margin:2px 0; }
 footer { margin-top:36px; color:var(--muted); font-size:12px; border-top:1px solid var(--rule);
   padding-top:8px; }
+@page { size: A4; margin: 12mm 11mm 14mm; }
+@media print {
+  body { background:#fff; font-size:11px; }
+  main { max-width:none; padding:0; }
+  header.run { border-top-width:4px; }
+  table.datasheet { font-size:9px; }
+  table.datasheet td.cond, table.datasheet td.lim, table.datasheet td.notes,
+  table.datasheet td.param .study { font-size:8.5px; }
+  ol.footnotes, .sheet-key { font-size:9px; }
+  table.datasheet tr, figure { break-inside: avoid; }
+  table.datasheet thead { display: table-header-group; }
+  section.plots { break-before: page; }
+  figure img { max-height: 240mm; width:auto; }
+  h2 { break-after: avoid; }
+}
 """
 
 
@@ -97,9 +136,11 @@ def render_html(run: RunFigures, rows: Sequence[SummaryRow], plots: Sequence[Plo
         f"<title>{e(title)} — run {run.run_id} — {e(run.verdict.upper())}</title>",
         f"<style>{_CSS}</style></head><body><main>",
         _header(run),
+        datasheet_section(datasheet_rows(run)),
+        _verdict(run),
+        _plots(plots),
         _summary(rows),
         budget_section(run),
-        _plots(plots),
         _conditions(run),
         _instruments(run),
         _facts(run),
@@ -125,8 +166,9 @@ def write_html(path: Path, run: RunFigures, rows: Sequence[SummaryRow],
 
 
 def _header(run: RunFigures) -> str:
+    """Who and what, on three lines: part and serial with the verdict as one word, the
+    sequence title, then the run's facts."""
     e = html.escape
-    counts = run.assessment.counts
     colour = VERDICT_COLOURS.get(run.verdict, "#6b7785")
     state_colour = STATE_COLOURS.get(run.state, "#6b7785")
     state = f'<span class="state" style="background:{state_colour}">{e(run.state)}</span>'
@@ -136,27 +178,88 @@ def _header(run: RunFigures) -> str:
         state += f" — {e(run.reason)}"
     done = f"{run.points_done}" + (f" of {run.points_total}" if run.points_total else "")
     items = [
-        ("part", f"{e(run.part)}" + (f", serial {e(run.serial)}" if run.serial else "")),
         ("run", f"{run.run_id}" + (" (simulated bench)" if run.simulated else "")),
         ("state", state),
         ("points", done),
         ("operator", e(run.operator) or "—"),
         ("started", e(_when(run.created))),
     ]
-    rows = "".join(f"<dt>{k}</dt><dd>{v}</dd>" for k, v in items)
+    facts = " · ".join(f"{k} <b>{v}</b>" for k, v in items)
+    return (
+        '<header class="run">'
+        f"<h1>{e(run.part or 'Unnamed part')}"
+        f"{(' <span class=kind>serial ' + e(run.serial) + '</span>') if run.serial else ''}"
+        "</h1>"
+        f'<span class="chip" style="background:{colour}" title="overall verdict against the '
+        f'sequence\'s [[spec]] limits">{e(run.verdict.upper())}</span>'
+        f'<p class="title">{e(run.title or run.sequence_path)}</p>'
+        f'<p class="facts">{facts}</p></header>'
+    )
+
+
+def datasheet_section(rows: Sequence[DatasheetRow]) -> str:
+    """The electrical-characteristics table, its key and the flag footnotes (every flag met
+    in the table spelled out under it, lettered in the notes column)."""
+    e = html.escape
+    if not rows:
+        return ('<section class="datasheet"><h2 class="sheet">Electrical characteristics</h2>'
+                "<p>No figures: the run holds no readings a figure needs.</p></section>")
+    met = [name for name in FLAGS if any(name == f for row in rows for f, _ in row.flags)]
+    letter = {name: chr(ord("a") + i) for i, name in enumerate(met)}
+    body = []
+    for row in rows:
+        verdict_class = "none" if row.verdict == NO_LIMIT else row.verdict
+        notes = ", ".join(
+            f"<sup>{letter[name]}</sup>&#8239;{e(flag_badge(name)[0])}"
+            + (f" ×{count}" if len(row.values) > 1 or count > 1 else "")
+            for name, count in row.flags)
+        body.append(
+            f'<tr class="{"fail" if row.verdict == FAIL else ""}" data-figure="{e(row.name)}" '
+            f'data-study="{e(row.study)}">'
+            f'<td class="param">{e(row.label)}<span class="study">{e(row.study)}</span></td>'
+            f'<td class="cond">{e(row.conditions_text)}</td>'
+            f'<td class="num min">{e(row.min_text)}</td>'
+            f'<td class="num typ">{e(row.typ_text)}</td>'
+            f'<td class="num max">{e(row.max_text)}</td>'
+            f'<td class="unit">{e(row.display_unit)}</td>'
+            f'<td class="num">{e(row.uncertainty_text)}</td>'
+            f'<td class="lim">{e(row.limit_text) or "—"}</td>'
+            f'<td class="verdict-{verdict_class}">{e(row.verdict_text)}</td>'
+            f'<td class="notes">{notes}</td></tr>')
+    footnotes = "".join(
+        f'<li id="note-{letter[name]}" class="flag"><b>{e(flag_badge(name)[0])}</b> '
+        f'(<code>{e(name)}</code>): <span class="meaning">{e(flag_badge(name)[1])}</span>.'
+        + (" A limit check on such a figure is inconclusive." if name in SUSPECT_FLAGS
+           else "") + "</li>"
+        for name in met)
+    return (
+        '<section class="datasheet" id="datasheet">'
+        '<h2 class="sheet">Electrical characteristics</h2>'
+        '<table class="datasheet"><thead><tr><th>parameter</th><th>test conditions</th>'
+        '<th class="num">min</th><th class="num">typ</th><th class="num">max</th>'
+        "<th>unit</th><th class=\"num\">U (k=2)</th><th>limit</th><th>result</th>"
+        "<th>notes</th></tr></thead><tbody>" + "".join(body) + "</tbody></table>"
+        '<p class="sheet-key">Min and max over every corner measured (temperature, supply, '
+        "frequency, LO drive); typ: median at the temperature nearest +25 °C, the middle "
+        "supply and the middle LO drive measured. U: the largest expanded uncertainty of the "
+        "row (k = 2, JCGM 100:2008). A bound keeps its sign (&gt; : the true value is above). "
+        "Result: the worst verdict against the sequence's limits, with how many of the row's "
+        "figures had it. Worst m×n spur: at each point the strongest counted product.</p>"
+        + (f'<ol class="footnotes">{footnotes}</ol>' if footnotes else "")
+        + "</section>"
+    )
+
+
+def _verdict(run: RunFigures) -> str:
+    e = html.escape
+    counts = run.assessment.counts
+    colour = VERDICT_COLOURS.get(run.verdict, "#6b7785")
     judged = (f"{counts['pass']} pass · {counts['fail']} fail · {counts['inconclusive']} "
               f"inconclusive" if run.limits else "no limits in the sequence")
-    return (
-        '<header class="run"><div class="who">'
-        f"<h1>{e(run.part or 'Unnamed part')}"
-        f"{(' <span class=small>' + e(run.serial) + '</span>') if run.serial else ''}</h1>"
-        f'<p class="title">{e(run.title or run.sequence_path)}</p>'
-        f"<dl>{rows}</dl></div>"
-        f'<div class="verdict" style="background:{colour}" title="overall verdict against the '
-        f'sequence\'s [[spec]] limits">'
-        f'<div class="word">{e(run.verdict.upper())}</div>'
-        f'<div class="counts">{e(judged)}</div></div></header>'
-    )
+    return (f'<div class="verdict" style="border-color:{colour}" title="overall verdict '
+            f'against the sequence\'s [[spec]] limits"><span class="word" '
+            f'style="color:{colour}">{e(run.verdict.upper())}</span>'
+            f'<span class="counts">{e(judged)}</span></div>')
 
 
 def _summary(rows: Sequence[SummaryRow]) -> str:
@@ -185,7 +288,7 @@ def _summary(rows: Sequence[SummaryRow]) -> str:
             f'<td class="small">{e(points)}</td></tr>'
         )
     return (
-        "<h2>Summary</h2>"
+        f'<details class="summary"><summary>Summary by condition ({len(rows)} rows)</summary>'
         '<p class="small">One row per figure and study, temperature and supply; where a row '
         "holds several figures, the value shown is the one nearest to (or furthest beyond) its "
         "limit, else the worst. Each flag is explained beside its figure; red flags make a "
@@ -193,7 +296,7 @@ def _summary(rows: Sequence[SummaryRow]) -> str:
         "<table><thead><tr><th>figure</th><th>study</th><th>conditions</th><th>value</th>"
         "<th>limit</th>"
         "<th>result</th><th>flags</th><th>points</th></tr></thead><tbody>"
-        + "".join(body) + "</tbody></table>" + _flag_legend(rows)
+        + "".join(body) + "</tbody></table>" + _flag_legend(rows) + "</details>"
     )
 
 
@@ -234,12 +337,13 @@ def _plots(plots: Sequence[Plot]) -> str:
     for plot in plots:
         data = base64.b64encode(plot.png).decode("ascii")
         items.append(
-            f'<figure id="plot-{e(plot.key)}"><img alt="{e(plot.title)}" '
+            f'<figure id="plot-{e(plot.key)}" data-corners="{e(" ; ".join(plot.corners))}">'
+            f'<img alt="{e(plot.title)}" '
             f'width="{plot.width_px}" height="{plot.height_px}" '
             f'src="data:image/png;base64,{data}">'
             f"<figcaption><b>{e(plot.title)}.</b> {e(plot.caption)}</figcaption></figure>"
         )
-    return "<h2>Plots</h2>" + "".join(items)
+    return '<section class="plots"><h2>Plots</h2>' + "".join(items) + "</section>"
 
 
 def _conditions(run: RunFigures) -> str:

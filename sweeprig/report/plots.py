@@ -22,6 +22,7 @@ from matplotlib.axes import Axes
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.colors import LinearSegmentedColormap, Normalize
 from matplotlib.figure import Figure as MplFigure
+from matplotlib.lines import Line2D
 
 from sweeprig.analysis.captures import point_table
 from sweeprig.analysis.compression import compression_table
@@ -39,7 +40,7 @@ from sweeprig.analysis.reduce import (
     RunFigures,
 )
 from sweeprig.analysis.spurs import spur_table
-from sweeprig.report.tables import figure_text
+from sweeprig.report.tables import figure_label, figure_text
 
 # -- the colour scheme -------------------------------------------------------------------------
 INK = "#1f2a36"
@@ -72,13 +73,18 @@ _DOUBTFUL = (flag_bit("in_noise") | flag_bit("overload") | flag_bit("analyzer_di
 
 WIDTH_IN = 9.6
 DPI = 100
-MAX_PANELS = 6
+#: Panels per row of a small-multiples grid.
+GRID_COLUMNS = 3
 
 
 @dataclass(frozen=True)
 class Plot:
     """One rendered plot: ``key`` (stable name), ``title``, ``caption`` (what it shows and
-    where the numbers come from), the PNG bytes and the image size in pixels."""
+    where the numbers come from), the PNG bytes and the image size in pixels.
+
+    ``corners``: every corner drawn, as :func:`corner_label` text over ``corner_keys`` (the
+    corner settings that do not form the plot's x axis); ``studies``: the studies it draws.
+    A check can compare them with the corners the captures hold: no corner is dropped."""
 
     key: str
     title: str
@@ -86,13 +92,16 @@ class Plot:
     png: bytes
     width_px: int
     height_px: int
+    corners: tuple[str, ...] = ()
+    corner_keys: tuple[str, ...] = ()
+    studies: tuple[str, ...] = ()
 
 
 def all_plots(run: RunFigures) -> list[Plot]:
     """Every plot the run has data for, in report order."""
     makers: tuple[Callable[[RunFigures], Plot | None], ...] = (
-        gain_vs_frequency, compression_curves, two_tone_plot, gain_vs_lo_drive, spur_chart,
-        isolation_vs_frequency, soak_curves,
+        gain_vs_frequency, compression_curves, figures_vs_frequency, two_tone_plot,
+        intermod_dbc_plot, gain_vs_lo_drive, isolation_vs_frequency, spur_chart, soak_curves,
     )
     return [p for p in (make(run) for make in makers) if p is not None]
 
@@ -106,318 +115,498 @@ def temperature_colour(temperature_c: float | None) -> str:
     return "#{:02x}{:02x}{:02x}".format(*(round(255 * c) for c in rgba[:3]))
 
 
+#: The corner settings a plot must show every value combination of (unless one is its x axis).
+CORNER_KEYS: tuple[str, ...] = ("temperature_c", "supply_v", "lo_power_dbm")
+
+
+def corner_label(row: Mapping[str, object] | pd.Series, keys: Sequence[str]) -> str:
+    """A corner as text, ``temperature_c=25|supply_v=3.3|lo_power_dbm=0`` (values ``:g``;
+    a key without a finite value is left out)."""
+    parts = []
+    for key in keys:
+        value = row.get(key)
+        if isinstance(value, int | float | np.floating) and math.isfinite(float(value)):
+            parts.append(f"{key}={float(value):g}")
+    return "|".join(parts)
+
+
 # -- the plots ---------------------------------------------------------------------------------
 
 
 def gain_vs_frequency(run: RunFigures) -> Plot | None:
-    """Conversion gain versus RF frequency, one line per temperature (and per other fixed
-    setting), with the conversion-gain limits shaded."""
+    """Conversion gain versus the output frequency (or the input frequency when the output
+    stays put), one line per temperature, one panel per supply and LO drive, with the
+    conversion-gain limits drawn inside the axis."""
     studies = run.studies_with(ROLE_FLATNESS) or run.studies_with(ROLE_GAIN)
     if not studies:
         return None
     table = gain_table(run.captures, study=studies)
     if table.empty:
         return None
-    fig, ax = _figure(1, 1, height_in=4.2)
-    keys = _varying(table, ("study", "temperature_c", "supply_v", "lo_power_dbm", "rf_power_dbm"))
-    for k, (label, rows) in enumerate(_groups(table, keys)):
-        rows = rows.sort_values("rf_freq_hz")
-        temp = _first(rows, "temperature_c")
-        ax.plot(rows["rf_freq_hz"] / 1e9, rows["gain_db"], marker="o", markersize=3.5,
-                linewidth=1.6, color=temperature_colour(temp),
-                linestyle=LINE_STYLES[(k // 3) % len(LINE_STYLES)] if len(keys) > 1 else "-",
-                label=label)
-    _min_span(ax, 2.0)
-    _limit_band(ax, run, "conversion_gain")
-    ax.set_xlabel("RF frequency (GHz)")
-    ax.set_ylabel("conversion gain (dB)")
-    _legend(ax)
-    return _finish(fig, "gain_vs_frequency", "Conversion gain versus RF frequency",
-                   "P_IF − P_RF at the DUT ports, one line per temperature; shaded: the "
-                   "conversion-gain limits of the sequence. Studies: " + ", ".join(studies))
+    out_varies = bool(table.groupby("study")["if_freq_hz"].nunique().gt(1).any())
+    axis, axis_text = (("if_freq_hz", "output frequency (GHz)") if out_varies
+                       else ("rf_freq_hz", "input (RF) frequency (GHz)"))
+    panels = _groups(table, _varying(table, ("study", "supply_v", "lo_power_dbm")))
+    fig, axes_list = _grid(len(panels), height_in=3.4, single_height_in=4.2)
+    corners: list[str] = []
+    for ax, (title, rows) in zip(axes_list, panels, strict=False):
+        series = _groups(rows, _varying(rows, ("temperature_c", "rf_power_dbm")))
+        for k, (label, line) in enumerate(series):
+            line = line.sort_values(axis)
+            ax.plot(line[axis] / 1e9, line["gain_db"], marker="o", markersize=3.5,
+                    linewidth=1.6, color=temperature_colour(_first(line, "temperature_c")),
+                    linestyle=LINE_STYLES[(k // 5) % len(LINE_STYLES)], label=label)
+            corners += _corners(line, CORNER_KEYS)
+        _min_span(ax, 2.0)
+        _limit_lines(ax, run, "conversion_gain", studies, band=True)
+        ax.set_xlabel(axis_text)
+        ax.set_ylabel("conversion gain (dB)")
+        if len(panels) > 1:
+            ax.set_title(title, fontsize=9, color=INK)
+        _legend(ax, fontsize=7)
+    return _finish(fig, "gain_vs_frequency", "Conversion gain versus frequency",
+                   "P_out − P_in at the DUT ports against the "
+                   + ("output" if out_varies else "input (the output frequency is fixed)")
+                   + " frequency, one line per temperature"
+                   + (", one panel per supply and LO drive" if len(panels) > 1 else "")
+                   + "; green band: the conversion-gain limits of the sequence. Studies: "
+                   + ", ".join(studies), corners=corners, corner_keys=CORNER_KEYS,
+                   studies=studies)
 
 
 def compression_curves(run: RunFigures) -> Plot | None:
-    """Output versus input and gain versus input of every power sweep, P1dB marked."""
+    """Output and gain versus input of every power sweep, P1dB marked on each curve and
+    listed in the curve's colour; one panel per supply, LO drive and frequency."""
     studies = run.studies_with(ROLE_COMPRESSION)
     if not studies:
         return None
     table = compression_table(run.captures, study=studies)
     if table.empty:
         return None
-    fig, (ax_out, ax_gain) = _figure(1, 2, height_in=4.4)
     p1 = _by_conditions(run.figures_named("input_p1db"))
     p1_out = _by_conditions(run.figures_named("output_p1db"))
-    sweeps = list(table.groupby("sweep", sort=True))
-    for k, (_, rows) in enumerate(sweeps[: 3 * MAX_PANELS]):
-        temp = _first(rows, "temperature_c")
-        colour = temperature_colour(temp) if len(sweeps) <= 6 else SERIES[k % len(SERIES)]
-        label = _sweep_label(rows)
-        x, out, gain = rows["input_dbm"], rows["output_dbm"], rows["gain_db"]
-        ax_out.plot(x, out, marker="o", markersize=3, linewidth=1.5, color=colour, label=label)
-        linear = rows[rows["linear"].to_numpy(dtype=bool)]
-        gss = float(np.median(linear["gain_db"])) if len(linear) else float(gain.iloc[0])
-        ax_out.plot(x, x + gss, linestyle=":", linewidth=1.0, color=colour, alpha=0.7)
-        ax_gain.plot(x, gain, marker="o", markersize=3, linewidth=1.5, color=colour, label=label)
-        key = _condition_key(rows.iloc[0])
-        fin, fout = p1.get(key), p1_out.get(key)
-        if fin is not None and fout is not None and math.isfinite(fin.value):
-            if fin.bound is None:
-                ax_out.plot([fin.value], [fout.value], marker="D", markersize=7, color=colour,
-                            markeredgecolor=INK, zorder=5)
+    panels = _groups(table, _varying(table, ("study", "supply_v", "lo_power_dbm")))
+    single = len(panels) == 1
+    if single:
+        fig, (ax_out, ax_gain) = _figure(1, 2, height_in=4.4)  # type: ignore[misc]
+        pairs = [(ax_out, ax_gain, panels[0])]
+    else:
+        fig, axes_list = _grid(len(panels), height_in=3.3, single_height_in=4.2)
+        pairs = [(None, ax, panel) for ax, panel in zip(axes_list, panels, strict=False)]
+    corners: list[str] = []
+    for ax_out, ax_gain, (title, rows) in pairs:
+        notes: list[tuple[str, str]] = []
+        freqs = sorted(rows["rf_freq_hz"].dropna().unique())
+        by = ("temperature_c", "rf_freq_hz") if len(freqs) > 1 else ("temperature_c",)
+        for _, sweep in rows.groupby("sweep", sort=True):
+            sweep = sweep.sort_values("input_dbm")
+            temp = _first(sweep, "temperature_c")
+            colour = temperature_colour(temp)
+            label = _label_of(sweep.iloc[0], by)
+            style = LINE_STYLES[freqs.index(sweep["rf_freq_hz"].iloc[0]) % len(LINE_STYLES)] \
+                if len(freqs) > 1 else "-"
+            x, out, gain = sweep["input_dbm"], sweep["output_dbm"], sweep["gain_db"]
+            corners += _corners(sweep, CORNER_KEYS)
+            if ax_out is not None:
+                ax_out.plot(x, out, marker="o", markersize=3, linewidth=1.5, color=colour,
+                            label=label)
+                linear = sweep[sweep["linear"].to_numpy(dtype=bool)]
+                gss = float(np.median(linear["gain_db"])) if len(linear) else float(
+                    gain.iloc[0])
+                ax_out.plot(x, x + gss, linestyle=":", linewidth=1.0, color=colour, alpha=0.7)
+            ax_gain.plot(x, gain, marker="o", markersize=3, linewidth=1.5, color=colour,
+                         label=label, linestyle=style)
+            key = _condition_key(sweep.iloc[0])
+            fin, fout = p1.get(key), p1_out.get(key)
+            if fin is None or not math.isfinite(fin.value):
+                notes.append((colour, f"{label}: no P1dB"))
+                continue
+            if fin.bound is None and fout is not None:
+                if ax_out is not None:
+                    ax_out.plot([fin.value], [fout.value], marker="D", markersize=7,
+                                color=colour, markeredgecolor=INK, zorder=5)
                 ax_gain.plot([fin.value], [fout.value - fin.value], marker="D", markersize=7,
                              color=colour, markeredgecolor=INK, zorder=5)
-                ax_gain.annotate(f"P1dB {figure_text(fin, 1)}", (fin.value, fout.value -
-                                 fin.value), textcoords="offset points", xytext=(6, 8),
-                                 fontsize=8, color=INK)
-            else:
-                ax_gain.annotate(f"P1dB {figure_text(fin, 1)}", (float(x.iloc[-1]),
-                                 float(gain.iloc[-1])), textcoords="offset points",
-                                 xytext=(-70, -14), fontsize=8, color=INK)
-    ax_out.set_xlabel("input power per tone at the RF port (dBm)")
-    ax_out.set_ylabel("output power at the IF port (dBm)")
-    ax_out.set_title("output versus input (dotted: small-signal line)", fontsize=9, color=MUTED)
-    _min_span(ax_gain, 2.0)
-    ax_gain.set_xlabel("input power at the RF port (dBm)")
-    ax_gain.set_ylabel("conversion gain (dB)")
-    ax_gain.set_title("gain versus input (◆: 1 dB compression)", fontsize=9, color=MUTED)
-    _legend(ax_gain)
+            notes.append((colour, f"{label}: input P1dB {figure_text(fin, 1)}"))
+        _min_span(ax_gain, 2.0)
+        _note_block(ax_gain, notes)
+        ax_gain.set_xlabel("input power at the RF port (dBm)")
+        ax_gain.set_ylabel("conversion gain (dB)")
+        if ax_out is not None:
+            ax_out.set_xlabel("input power at the RF port (dBm)")
+            ax_out.set_ylabel("output power (dBm)")
+            ax_out.set_title("output versus input (dotted: small-signal line)", fontsize=9,
+                             color=MUTED)
+            ax_gain.set_title("gain versus input (◆: 1 dB compression)", fontsize=9,
+                              color=MUTED)
+            _legend(ax_out, fontsize=7, loc="upper left")
+        else:
+            ax_gain.set_title(title, fontsize=9, color=INK)
     return _finish(fig, "compression", "Gain compression",
-                   "Single-tone power sweeps: output power and gain versus input power at the "
-                   "DUT ports; the diamond marks the input and output P1dB. Studies: "
-                   + ", ".join(studies))
+                   "Single-tone power sweeps: "
+                   + ("output power and " if single else "")
+                   + "conversion gain versus input power at the DUT ports, one curve per "
+                   "temperature (and frequency)" + ("" if single else ", one panel per supply "
+                                                    "and LO drive")
+                   + "; the diamond marks the 1 dB compression point, listed in the curve's "
+                   "colour. Studies: " + ", ".join(studies),
+                   corners=corners, corner_keys=CORNER_KEYS, studies=studies)
+
+
+def figures_vs_frequency(run: RunFigures) -> Plot | None:
+    """Input P1dB and IIP3 versus input frequency, when a compression or two-tone study
+    swept the frequency; one line per corner."""
+    names = [n for n in ("input_p1db", "iip3") if _swept_in_frequency(run.figures_named(n))]
+    if not names:
+        return None
+    fig, axes_list = _grid(len(names), height_in=3.6, single_height_in=4.0)
+    corners: list[str] = []
+    studies: list[str] = []
+    for ax, name in zip(axes_list, names, strict=False):
+        frame = _figure_frame(run.figures_named(name))
+        frame = frame[frame["study"].isin(
+            frame.groupby("study")["rf_freq_hz"].nunique().loc[lambda c: c > 1].index)]
+        studies += [s for s in dict.fromkeys(frame["study"]) if s not in studies]
+        for k, (label, rows) in enumerate(_groups(frame, _varying(frame, (
+                "study", "temperature_c", "supply_v", "lo_power_dbm")))):
+            rows = rows.sort_values("rf_freq_hz")
+            _bounded_line(ax, rows["rf_freq_hz"].to_numpy() / 1e9, rows,
+                          colour=temperature_colour(_first(rows, "temperature_c")),
+                          linestyle=LINE_STYLES[(k // 5) % len(LINE_STYLES)], label=label)
+            corners += _corners(rows, CORNER_KEYS)
+        _limit_lines(ax, run, name, studies)
+        ax.set_xlabel("input (RF) frequency (GHz)")
+        ax.set_ylabel(f"{figure_label(name)} (dBm)")
+        _legend(ax, fontsize=7)
+    return _finish(fig, "figures_vs_frequency", "Compression and intercept versus frequency",
+                   "Input P1dB and IIP3 of the studies that swept the frequency, one line per "
+                   "corner; open triangles: bounds (the true value lies beyond, in the "
+                   "triangle's direction), not joined to the measured line.",
+                   corners=corners, corner_keys=CORNER_KEYS, studies=studies)
+
+
+_TWO_TONE_KEYS = ("study", "supply_v", "lo_power_dbm", "lo_freq_hz", "rf_freq_hz",
+                  "rf2_freq_hz")
+
+
+def _two_tone_points(run: RunFigures) -> tuple[list[str], pd.DataFrame]:
+    studies = run.studies_with(ROLE_TWO_TONE)
+    if not studies:
+        return studies, pd.DataFrame()
+    names = ("im3_low", "im3_high", "im2_low", "im2_high")
+    table = point_table(run.captures, names, study=studies, where="two-tone plot")
+    return studies, table[table["if_present"].to_numpy()]
 
 
 def two_tone_plot(run: RunFigures) -> Plot | None:
-    """Fundamental, IM3 (and IM2) versus input power per tone, with the slope-1 and slope-3
-    lines meeting at the intercept and the fit range shaded, one panel per sweep."""
-    studies = run.studies_with(ROLE_TWO_TONE)
-    if not studies:
-        return None
-    names = ("im3_low", "im3_high", "im2_low", "im2_high")
-    table = point_table(run.captures, names, study=studies, where="two-tone plot")
-    table = table[table["if_present"].to_numpy()]
+    """Fundamental and IM3 versus input power per tone, with the slope-1 and slope-3 lines
+    of the fits meeting at the intercept; one panel per supply, LO drive and frequency, one
+    colour per temperature."""
+    studies, table = _two_tone_points(run)
     if table.empty:
         return None
-    keys = [k for k in ("study", "temperature_c", "supply_v", "lo_freq_hz", "lo_power_dbm",
-                        "rf_freq_hz", "rf2_freq_hz") if k in table]
-    groups = _groups(table, _varying(table, keys))
-    shown = groups[:MAX_PANELS]
-    cols = min(len(shown), 3)
-    rows_n = math.ceil(len(shown) / cols)
-    fig, axes = _figure(rows_n, cols, height_in=3.9 * rows_n)
-    axes_list = list(np.atleast_1d(axes).ravel())
+    panels = _groups(table, _varying(table, _TWO_TONE_KEYS))
+    fig, axes_list = _grid(len(panels), height_in=3.7, single_height_in=4.6)
     fits = {n: _by_conditions(run.figures_named(n)) for n in
-            ("iip3_low", "oip3_low", "iip3_high", "oip3_high", "iip2_low", "iip2_high",
-             "iip3", "iip2")}
-    for ax, (label, rows) in zip(axes_list, shown, strict=False):
-        rows = rows.sort_values("rf_power_dbm")
-        x = rows["rf_power_dbm"].to_numpy(dtype=float)
-        key = _condition_key(rows.iloc[0])
-        ax.plot(x, rows["if_level_dbm"], "o", color=SLATE, markersize=4, label="fundamental")
-        styles = {"im3_low": (BRICK, "v", "IM3 lower"), "im3_high": (BRICK, "^", "IM3 upper"),
-                  "im2_low": (PLUM, "s", "IM2 f2−f1"), "im2_high": (PLUM, "D", "IM2 f1+f2")}
-        for name, (colour, marker, text) in styles.items():
-            if f"{name}_present" in rows and rows[f"{name}_present"].any():
-                level = rows[f"{name}_level_dbm"].to_numpy(dtype=float)
-                doubtful = (rows[f"{name}_flags"].to_numpy(dtype=np.int64) & _DOUBTFUL) != 0
+            ("iip3_low", "oip3_low", "iip3_high", "oip3_high", "iip3")}
+    corners: list[str] = []
+    for ax, (title, rows) in zip(axes_list, panels, strict=False):
+        notes: list[tuple[str, str]] = []
+        tops: list[float] = []
+        for _, sweep in rows.groupby("temperature_c", dropna=False, sort=True):
+            sweep = sweep.sort_values("rf_power_dbm")
+            colour = temperature_colour(_first(sweep, "temperature_c"))
+            label = _label_of(sweep.iloc[0], ("temperature_c",))
+            corners += _corners(sweep, CORNER_KEYS)
+            x = sweep["rf_power_dbm"].to_numpy(dtype=float)
+            ax.plot(x, sweep["if_level_dbm"], "o", color=colour, markersize=4)
+            for name, marker in (("im3_low", "v"), ("im3_high", "^")):
+                if f"{name}_present" not in sweep or not sweep[f"{name}_present"].any():
+                    continue
+                level = sweep[f"{name}_level_dbm"].to_numpy(dtype=float)
+                doubtful = (sweep[f"{name}_flags"].to_numpy(dtype=np.int64) & _DOUBTFUL) != 0
                 face = "none" if name.endswith("high") else colour
                 ax.plot(x[~doubtful], level[~doubtful], marker, color=colour, markersize=4,
-                        label=text, markerfacecolor=face)
+                        markerfacecolor=face, linestyle="none")
                 if doubtful.any():
                     ax.plot(x[doubtful], level[doubtful], marker, color=colour, markersize=4,
-                            markerfacecolor=face, alpha=0.3)
-        valid_x: list[float] = []
-        for side, dash in (("low", "--"), ("high", (0, (5, 3, 1, 3)))):
-            iip, oip = fits[f"iip3_{side}"].get(key), fits[f"oip3_{side}"].get(key)
-            if iip is None or oip is None or not iip.is_number or not math.isfinite(oip.value):
-                continue
-            valid_x += _point_powers(run, iip.points)
-            top = max(iip.value, float(x.max())) + 2.0
-            xs = np.array([float(x.min()) - 2.0, top])
-            gain = oip.value - iip.value
-            ax.plot(xs, xs + gain, linestyle=dash, color=SLATE, linewidth=1.0)
-            ax.plot(xs, oip.value + 3.0 * (xs - iip.value), linestyle=dash, color=BRICK,
-                    linewidth=1.0)
-            ax.plot([iip.value], [oip.value], "*", color=OCHRE, markersize=11,
-                    markeredgecolor=INK, zorder=5)
-        for side in ("low", "high"):
-            iip2 = fits[f"iip2_{side}"].get(key)
-            if iip2 is not None and iip2.is_number:
-                gain = float(np.nanmedian(rows["if_level_dbm"].to_numpy(dtype=float) - x))
-                xs = np.array([float(x.min()) - 2.0, iip2.value + 2.0])
-                ax.plot(xs, iip2.value + gain + 2.0 * (xs - iip2.value), linestyle=":",
-                        color=PLUM, linewidth=1.0)
-                break
-        if valid_x:
-            ax.axvspan(min(valid_x) - 0.5, max(valid_x) + 0.5, color=OCHRE, alpha=0.13,
-                       linewidth=0, label="fit range")
-        headline = fits["iip3"].get(key)
-        note = [f"IIP3 {figure_text(headline, 2)}"] if headline is not None else []
-        if (iip2 := fits["iip2"].get(key)) is not None:
-            note.append(f"IIP2 {figure_text(iip2, 1)}")
-        ax.set_title(label + ("\n" + ", ".join(note) if note else ""), fontsize=9, color=INK)
+                            markerfacecolor=face, alpha=0.3, linestyle="none")
+            key = _condition_key(sweep.iloc[0])
+            iip, oip = fits["iip3_low"].get(key), fits["oip3_low"].get(key)
+            if iip is not None and oip is not None and iip.is_number and \
+                    math.isfinite(oip.value):
+                xs = np.array([float(x.min()) - 2.0, max(iip.value, float(x.max())) + 2.0])
+                gain = oip.value - iip.value
+                ax.plot(xs, xs + gain, linestyle="--", color=colour, linewidth=0.9)
+                ax.plot(xs, oip.value + 3.0 * (xs - iip.value), linestyle="--",
+                        color=colour, linewidth=0.9)
+                ax.plot([iip.value], [oip.value], "*", color=colour, markersize=11,
+                        markeredgecolor=INK, zorder=5)
+                tops += [iip.value, oip.value]
+            headline = fits["iip3"].get(key)
+            notes.append((colour, f"{label}: IIP3 "
+                          + (figure_text(headline, 1) if headline is not None else "n/a")))
+        _note_block(ax, notes, loc="lower right")
+        ax.set_title(title if len(panels) > 1 else "", fontsize=9, color=INK)
         ax.set_xlabel("input power per tone (dBm)")
         ax.set_ylabel("output power per product (dBm)")
-        low = np.nanmin(rows[[c for c in rows if c.endswith("_level_dbm")
-                              and not c.endswith("atten_level_dbm")]].to_numpy(dtype=float))
-        high = np.nanmax(rows["if_level_dbm"].to_numpy(dtype=float))
-        if math.isfinite(low) and math.isfinite(high):
-            ax.set_ylim(low - 10.0, max(high + 15.0, _top_oip(fits, key) + 5.0))
-        right = max([float(x.max())] + [f.value for n in ("iip3_low", "iip3_high")
-                                         if (f := fits[n].get(key)) is not None and f.is_number])
-        ax.set_xlim(float(x.min()) - 3.0, right + 4.0)
-        _legend(ax, fontsize=7, loc="lower right")
-    for ax in axes_list[len(shown):]:
-        ax.set_visible(False)
-    extra = f" (first {MAX_PANELS} of {len(groups)} sweeps)" if len(groups) > MAX_PANELS else ""
+        levels = rows[[c for c in ("if_level_dbm", "im3_low_level_dbm", "im3_high_level_dbm")
+                       if c in rows]].to_numpy(dtype=float)
+        if np.isfinite(levels).any():
+            low, high = float(np.nanmin(levels)), float(np.nanmax(levels))
+            top = max([high + 12.0, *(t + 5.0 for t in tops[1::2])])
+            ax.set_ylim(low - 25.0, top)
+        xs_all = rows["rf_power_dbm"].to_numpy(dtype=float)
+        ax.set_xlim(float(np.nanmin(xs_all)) - 3.0,
+                    max([float(np.nanmax(xs_all)), *tops[0::2]]) + 4.0)
+    handles = [Line2D([], [], marker="o", color=INK, linestyle="none", label="fundamental"),
+               Line2D([], [], marker="v", color=INK, linestyle="none", label="IM3 lower"),
+               Line2D([], [], marker="^", color=INK, markerfacecolor="none", linestyle="none",
+                      label="IM3 upper"),
+               Line2D([], [], color=INK, linestyle="--", label="fitted lines"),
+               Line2D([], [], marker="*", color=INK, linestyle="none", label="intercept")]
+    axes_list[0].legend(handles=handles, fontsize=7, frameon=False, loc="upper left")
     return _finish(fig, "two_tone", "Two-tone intermodulation",
-                   "Fundamental and intermodulation products at the IF port versus input "
-                   "power per tone; dashed: the slope-1 and slope-3 lines of the fits, meeting "
-                   "at the intercept (star); shaded: the drives the fit used; faded: readings "
-                   "in the noise, overloaded or analyzer-made" + extra + ".")
+                   "Fundamental and IM3 products at the output versus input power per tone, "
+                   "one colour per temperature"
+                   + (", one panel per supply, LO drive and frequency" if len(panels) > 1
+                      else "")
+                   + "; dashed: the slope-1 and slope-3 lines of the lower product's fit, "
+                   "meeting at the intercept (star); faded: readings in the noise, overloaded "
+                   "or analyzer-made. IIP3 of each curve listed in its colour.",
+                   corners=corners, corner_keys=CORNER_KEYS, studies=studies)
+
+
+def intermod_dbc_plot(run: RunFigures) -> Plot | None:
+    """IM3 and IM2 relative to the fundamental (dBc) versus input power per tone; one panel
+    per supply, LO drive and frequency, one colour per temperature."""
+    studies, table = _two_tone_points(run)
+    if table.empty:
+        return None
+    panels = _groups(table, _varying(table, _TWO_TONE_KEYS))
+    fig, axes_list = _grid(len(panels), height_in=3.3, single_height_in=3.9)
+    corners: list[str] = []
+    drawn = set()
+    for ax, (title, rows) in zip(axes_list, panels, strict=False):
+        for _, sweep in rows.groupby("temperature_c", dropna=False, sort=True):
+            sweep = sweep.sort_values("rf_power_dbm")
+            colour = temperature_colour(_first(sweep, "temperature_c"))
+            label = _label_of(sweep.iloc[0], ("temperature_c",))
+            corners += _corners(sweep, CORNER_KEYS)
+            x = sweep["rf_power_dbm"].to_numpy(dtype=float)
+            fund = sweep["if_level_dbm"].to_numpy(dtype=float)
+            for order, style in (("im3", "-"), ("im2", "--")):
+                cols = [f"{order}_{s}_level_dbm" for s in ("low", "high")
+                        if f"{order}_{s}_present" in sweep and sweep[f"{order}_{s}_present"].any()]
+                if not cols:
+                    continue
+                worst = np.nanmax(sweep[cols].to_numpy(dtype=float), axis=1) - fund
+                ax.plot(x, worst, linestyle=style, marker="o", markersize=3, color=colour,
+                        label=f"{order.upper()}, {label}")
+                drawn.add(order)
+        ax.set_xlabel("input power per tone (dBm)")
+        ax.set_ylabel("product relative to the fundamental (dBc)")
+        if len(panels) > 1:
+            ax.set_title(title, fontsize=9, color=INK)
+        _legend(ax, fontsize=7)
+    if not drawn:
+        return None
+    return _finish(fig, "intermod_dbc", "Intermodulation in dBc",
+                   "The stronger of the two IM3 (solid) and IM2 (dashed) products, relative to "
+                   "the fundamental at the same drive, one colour per temperature; upper "
+                   "bounds where a product is in the noise.",
+                   corners=corners, corner_keys=CORNER_KEYS, studies=studies)
+
+
+_LO_CORNERS = ("temperature_c", "supply_v")
 
 
 def gain_vs_lo_drive(run: RunFigures) -> Plot | None:
-    """Conversion gain versus LO power, one line per temperature; the LO drive needed for
-    full gain marked."""
+    """Conversion gain versus LO power, one line per temperature, one panel per supply; the
+    LO drive needed for full gain marked and listed in the line's colour."""
     studies = run.studies_with(ROLE_LO_DRIVE)
     if not studies:
         return None
     table = gain_table(run.captures, study=studies)
     if table.empty:
         return None
-    fig, ax = _figure(1, 1, height_in=4.0)
     fixed = tuple(k for k in _KEY_COLUMNS if k != "lo_power_dbm")
     needed = _by_conditions(run.figures_named("lo_power_for_gain"), fixed)
-    keys = _varying(table, ("study", "temperature_c", "supply_v", "rf_freq_hz", "rf_power_dbm"))
-    for label, rows in _groups(table, keys):
-        rows = rows.sort_values("lo_power_dbm")
-        colour = temperature_colour(_first(rows, "temperature_c"))
-        ax.plot(rows["lo_power_dbm"], rows["gain_db"], marker="o", markersize=3.5,
-                linewidth=1.6, color=colour, label=label)
-        figure = needed.get(_condition_key(rows.iloc[0], fixed))
-        if figure is not None and math.isfinite(figure.value):
-            ax.axvline(figure.value, color=colour, linestyle="--", linewidth=0.9)
-            ax.annotate(f"{figure_text(figure, 0)}", (figure.value, float(rows["gain_db"].min())),
-                        textcoords="offset points", xytext=(4, 4), fontsize=8, color=colour)
-    _min_span(ax, 2.0)
-    ax.set_xlabel("LO power at the LO port (dBm)")
-    ax.set_ylabel("conversion gain (dB)")
-    _legend(ax)
+    panels = _groups(table, _varying(table, ("study", "supply_v", "rf_freq_hz",
+                                             "rf_power_dbm")))
+    fig, axes_list = _grid(len(panels), height_in=3.4, single_height_in=4.0)
+    corners: list[str] = []
+    for ax, (title, rows) in zip(axes_list, panels, strict=False):
+        notes: list[tuple[str, str]] = []
+        for label, line in _groups(rows, _varying(rows, ("temperature_c",))):
+            line = line.sort_values("lo_power_dbm")
+            colour = temperature_colour(_first(line, "temperature_c"))
+            ax.plot(line["lo_power_dbm"], line["gain_db"], marker="o", markersize=3.5,
+                    linewidth=1.6, color=colour, label=label)
+            corners += _corners(line, _LO_CORNERS)
+            figure = needed.get(_condition_key(line.iloc[0], fixed))
+            if figure is not None and math.isfinite(figure.value):
+                ax.axvline(figure.value, color=colour, linestyle="--", linewidth=0.9)
+                notes.append((colour, f"{label}: full gain from {figure_text(figure, 0)}"))
+        _min_span(ax, 2.0)
+        _note_block(ax, notes, loc="lower right")
+        ax.set_xlabel("LO power at the LO port (dBm)")
+        ax.set_ylabel("conversion gain (dB)")
+        if len(panels) > 1:
+            ax.set_title(title, fontsize=9, color=INK)
     return _finish(fig, "lo_drive", "Gain versus LO drive",
-                   "Conversion gain versus LO power; dashed: the lowest LO power from which "
-                   "the gain stays within 0.5 dB of its maximum. Studies: " + ", ".join(studies))
+                   "Conversion gain versus LO power, one line per temperature; dashed: the "
+                   "lowest LO power from which the gain stays within 0.5 dB of its maximum, "
+                   "listed in the line's colour. Studies: " + ", ".join(studies),
+                   corners=corners, corner_keys=_LO_CORNERS, studies=studies)
+
+
+#: Isolation figures: (x-axis column, axis text, short name).
+_ISOLATION = {
+    "lo_if_isolation": ("lo_freq_hz", "LO frequency (GHz)", "LO→IF isolation"),
+    "lo_rf_isolation": ("lo_freq_hz", "LO frequency (GHz)", "LO→RF isolation"),
+    "rf_if_isolation": ("rf_freq_hz", "input (RF) frequency (GHz)", "RF→IF isolation"),
+    "image_rejection": ("rf_freq_hz", "input (RF) frequency (GHz)", "image rejection"),
+}
+
+
+def isolation_vs_frequency(run: RunFigures) -> Plot | None:
+    """Each leakage figure versus frequency in a panel of its own, one line per corner, its
+    limits drawn; bounds (leakage in the noise) as open triangles, not joined to the line."""
+    studies = run.studies_with(ROLE_ISOLATION) + run.studies_with(ROLE_IMAGE)
+    if not studies:
+        return None
+    frames = {}
+    for name, (axis, _, _) in _ISOLATION.items():
+        frame = _figure_frame(run.figures_named(name))
+        frame = frame[frame["study"].isin(studies)]
+        if frame.empty:
+            continue
+        # prefer the studies that sweep the frequency (one frequency adds a vertical smear)
+        counts = frame.groupby("study")[axis].nunique()
+        keep = counts[counts > 1].index
+        frames[name] = frame[frame["study"].isin(keep)] if len(keep) else frame
+    if not frames:
+        return None
+    fig, axes_list = _grid(len(frames), height_in=3.4, single_height_in=4.0, columns=2)
+    corners: list[str] = []
+    drawn: list[str] = []
+    for ax, (name, frame) in zip(axes_list, frames.items(), strict=False):
+        axis, axis_text, text = _ISOLATION[name]
+        drawn += [s for s in dict.fromkeys(frame["study"]) if s not in drawn]
+        series = _groups(frame, _varying(frame, ("study", "temperature_c", "supply_v",
+                                                 "lo_power_dbm")))
+        for k, (label, rows) in enumerate(series):
+            rows = rows.sort_values(axis)
+            _bounded_line(ax, rows[axis].to_numpy() / 1e9, rows,
+                          colour=temperature_colour(_first(rows, "temperature_c")),
+                          linestyle=LINE_STYLES[(k // 5) % len(LINE_STYLES)], label=label)
+            corners += _corners(rows, CORNER_KEYS)
+        _min_span(ax, 4.0)
+        _limit_lines(ax, run, name, list(frame["study"].unique()))
+        ax.set_xlabel(axis_text)
+        ax.set_ylabel(f"{text} (dB)")
+        _legend(ax, fontsize=7)
+    return _finish(fig, "isolation", "Leakage and isolation versus frequency",
+                   "Isolation = drive power at its port − the leaked power at the other port "
+                   "(larger is better); image rejection = gain at the wanted input − gain at "
+                   "the image; one line per corner; dashed green: the sequence's limits; open "
+                   "▲: a lower bound (leakage in the noise), drawn apart from the measured line.",
+                   corners=corners, corner_keys=CORNER_KEYS, studies=drawn)
 
 
 def spur_chart(run: RunFigures) -> Plot | None:
-    """The m×n spur table as a heat-map in dBc, one panel per spur point."""
+    """Every m×n product over frequency (dBc, every point), the output band shaded and the
+    products the worst-spur figure counts filled; beside it the m×n table of the worst level
+    of each product over all points."""
     studies = run.studies_with(ROLE_SPURS)
     if not studies:
         return None
     table = spur_table(run.captures, study=studies)
     if table.empty:
         return None
-    points = list(table.groupby("point", sort=True))
-    shown = points[:MAX_PANELS]
-    cols = min(len(shown), 3)
-    rows_n = math.ceil(len(shown) / cols)
-    fig, axes = _figure(rows_n, cols, height_in=4.2 * rows_n)
-    axes_list = list(np.atleast_1d(axes).ravel())
+    counted_figures = run.figures_named("spur_dbc")
+    counted = {(f.points[0], int(float(f.conditions.get("m", 0))),  # type: ignore[arg-type]
+                int(float(f.conditions.get("n", 0))))  # type: ignore[arg-type]
+               for f in counted_figures if f.points}
+    is_counted = np.array([(int(p), int(m), int(n)) in counted for p, m, n in
+                           zip(table["point"], table["m"], table["n"], strict=True)], dtype=bool)
+    bands = {(float(f.conditions["band_low_hz"]), float(f.conditions["band_high_hz"]))  # type: ignore[arg-type]
+             for f in counted_figures
+             if "band_low_hz" in f.conditions and "band_high_hz" in f.conditions}
+    fig = MplFigure(figsize=(WIDTH_IN, 4.6), dpi=DPI, facecolor=PAPER, layout="constrained")
+    FigureCanvasAgg(fig)
+    ax, ax_table = fig.subplots(1, 2, width_ratios=(1.6, 1.0))
+    _style(ax)
+    _style(ax_table)
+    corners: list[str] = []
+    for low, high in sorted(bands):
+        ax.axvspan(low / 1e9, high / 1e9, color=MOSS, alpha=0.12, linewidth=0)
+    for temp, rows in table.assign(counted=is_counted).groupby("temperature_c", dropna=False,
+                                                                   sort=True):
+        t = float(temp) if isinstance(temp, int | float) else None
+        colour = temperature_colour(t)
+        corners += _corners(rows, CORNER_KEYS)
+        x = rows["freq_hz"].to_numpy(dtype=float) / 1e9
+        y = rows["dbc"].to_numpy(dtype=float)
+        below = rows["bound"].to_numpy() < 0
+        mine = rows["counted"].to_numpy(dtype=bool)
+        label = f"{t:g} °C" if t is not None and math.isfinite(t) else "all"
+        ax.plot(x[mine & ~below], y[mine & ~below], "o", color=colour, markersize=4,
+                label=label)
+        ax.plot(x[~mine & ~below], y[~mine & ~below], "o", color=colour, markersize=4,
+                markerfacecolor="none")
+        ax.plot(x[below], y[below], "v", color=colour, markersize=4, markerfacecolor="none",
+                alpha=0.6)
+    if len(counted) and len(counted_figures):
+        worst = max(counted_figures, key=lambda f: f.value if math.isfinite(f.value)
+                    else -math.inf)
+        if math.isfinite(worst.value):
+            ax.annotate(f"worst counted {int(float(worst.conditions['m']))}×"  # type: ignore[arg-type]
+                        f"{int(float(worst.conditions['n']))}: {worst.value:.1f} dBc",  # type: ignore[arg-type]
+                        (float(worst.conditions.get("freq_hz", np.nan)) / 1e9, worst.value),  # type: ignore[arg-type]
+                        textcoords="offset points", xytext=(6, 6), fontsize=8, color=INK)
+    _limit_lines(ax, run, "spur_dbc", studies)
+    ax.set_xlabel("product frequency (GHz)")
+    ax.set_ylabel("level relative to the wanted output (dBc)")
+    ax.set_title("every product at every point (● counted, ○ left out, ▽ in the noise)",
+                 fontsize=8.5, color=MUTED)
+    _legend(ax, fontsize=7)
+    # the m×n table of each product's worst level over every point
+    worst_cell = table.groupby(["n", "m"])["dbc"].max()
+    ms = sorted({int(m) for m in table["m"]})
+    ns = sorted({int(n) for n in table["n"]})
+    grid = np.full((len(ns), len(ms)), np.nan)
+    for (n, m), value in worst_cell.items():
+        grid[ns.index(int(n)), ms.index(int(m))] = value
     norm = Normalize(*SPUR_RANGE_DBC)
-    image = None
-    for ax, (point, rows) in zip(axes_list, shown, strict=False):
-        ms = sorted(set(rows["m"].astype(int)))
-        ns = sorted(set(rows["n"].astype(int)))
-        grid = np.full((len(ns), len(ms)), np.nan)
-        for _, r in rows.iterrows():
-            grid[ns.index(int(r["n"])), ms.index(int(r["m"]))] = r["dbc"]
-        image = ax.imshow(grid, cmap=SPUR_MAP, norm=norm, aspect="auto", origin="lower")
-        for _, r in rows.iterrows():
-            i, j = ns.index(int(r["n"])), ms.index(int(r["m"]))
-            value = float(r["dbc"])
-            text = "n/a" if not math.isfinite(value) else f"{value:.0f}"
-            if int(r["bound"]) < 0:
-                text = "<" + text
-            flags = set(r["flag_names"])
-            if flags & {"analyzer_distortion", "overload", "atten_carrier_moved"}:
-                text += "*"
-            shade = norm(value) if math.isfinite(value) else 0.0
-            ax.text(j, i, text, ha="center", va="center", fontsize=7,
-                    color="white" if shade > 0.55 else INK)
-        ax.set_xticks(range(len(ms)), [str(m) for m in ms])
-        ax.set_yticks(range(len(ns)), [str(n) for n in ns])
-        ax.set_xlabel("m (LO multiplier)")
-        ax.set_ylabel("n (RF multiplier)")
-        first = rows.iloc[0]
-        ax.set_title(f"point {point}: {_label_of(first, ('study', 'temperature_c'))}\n"
-                     f"RF {first['rf_freq_hz'] / 1e9:.4g} GHz at {first['rf_power_dbm']:g} dBm, "
-                     f"LO {first['lo_power_dbm']:g} dBm", fontsize=8.5, color=INK)
-    for ax in axes_list[len(shown):]:
-        ax.set_visible(False)
-    if image is not None:
-        bar = fig.colorbar(image, ax=axes_list[: len(shown)], shrink=0.85)
-        bar.set_label("spur level relative to the wanted IF (dBc)")
-    extra = f" (first {MAX_PANELS} of {len(points)} points)" if len(points) > MAX_PANELS else ""
-    return _finish(fig, "spurs", "m×n spur table",
-                   "Each cell: the product at |m·f_LO + n·f_RF| at the IF port, in dBc of the "
-                   "wanted output at the same point; '<' an upper bound (in the noise), '*' a "
-                   "reading flagged as analyzer-made or overloaded; the wanted product is "
-                   "left out" + extra + ".")
-
-
-def isolation_vs_frequency(run: RunFigures) -> Plot | None:
-    """LO leakage isolation versus LO frequency, and RF→IF isolation and image rejection
-    versus RF frequency, one line per temperature."""
-    studies = run.studies_with(ROLE_ISOLATION) + run.studies_with(ROLE_IMAGE)
-    if not studies:
-        return None
-    lo_names = ("lo_if_isolation", "lo_rf_isolation")
-    rf_names = ("rf_if_isolation", "image_rejection")
-    frames = {n: _figure_frame(run.figures_named(n)) for n in (*lo_names, *rf_names)}
-    swept = {n: f for n, f in frames.items() if not f.empty}
-    if not swept:
-        return None
-    # Prefer the points of frequency sweeps (a study at one frequency adds a vertical smear).
-    for name, frame in list(swept.items()):
-        axis = "lo_freq_hz" if name in lo_names else "rf_freq_hz"
-        counts = frame.groupby("study")[axis].nunique()
-        keep = counts[counts > 1].index
-        if len(keep):
-            swept[name] = frame[frame["study"].isin(keep)]
-    fig, (ax_lo, ax_rf) = _figure(1, 2, height_in=4.2)
-    styles = {"lo_if_isolation": ("-", "o", "LO→IF"), "lo_rf_isolation": ("--", "s", "LO→RF"),
-              "rf_if_isolation": ("-", "o", "RF→IF"), "image_rejection": ("--", "s", "image")}
-    for name, frame in swept.items():
-        ax = ax_lo if name in lo_names else ax_rf
-        axis = "lo_freq_hz" if name in lo_names else "rf_freq_hz"
-        line, marker, text = styles[name]
-        for temp, rows in frame.groupby("temperature_c", dropna=False, sort=True):
-            rows = rows.sort_values(axis)
-            t = float(temp) if isinstance(temp, int | float) else None
-            bound = rows["bound"].to_numpy() == ">"
-            label = text + (f", {t:g} °C" if t is not None and math.isfinite(t) else "")
-            ax.plot(rows[axis] / 1e9, rows["value"], linestyle=line, marker=marker,
-                    markersize=3.5, linewidth=1.4, color=temperature_colour(t), label=label)
-            if bound.any():
-                ax.plot(rows[axis][bound] / 1e9, rows["value"][bound], "^", color=INK,
-                        markersize=4, linestyle="none")
-    ax_lo.set_xlabel("LO frequency (GHz)")
-    ax_lo.set_ylabel("isolation (dB)")
-    ax_lo.set_title("LO leakage: LO power − leaked power", fontsize=9, color=MUTED)
-    ax_rf.set_xlabel("RF frequency (GHz)")
-    ax_rf.set_ylabel("isolation / rejection (dB)")
-    ax_rf.set_title("RF feedthrough and image", fontsize=9, color=MUTED)
-    for ax in (ax_lo, ax_rf):
-        if ax.lines:
-            _legend(ax, fontsize=7)
-        else:
-            ax.text(0.5, 0.5, "not measured", transform=ax.transAxes, ha="center",
-                    color=MUTED)
-    return _finish(fig, "isolation", "Leakage and isolation versus frequency",
-                   "Isolation = drive power at its port − the leaked power at the other port "
-                   "(larger is better); image rejection = gain at the wanted RF − gain at the "
-                   "image; ▲: a lower bound (leakage in the noise).")
+    image = ax_table.imshow(grid, cmap=SPUR_MAP, norm=norm, aspect="auto", origin="lower")
+    ax_table.grid(False)
+    counted_mn = {(m, n) for _, m, n in counted}
+    for (n, m), value in worst_cell.items():
+        i, j = ns.index(int(n)), ms.index(int(m))
+        text = "n/a" if not math.isfinite(value) else f"{value:.0f}"
+        if (int(m), int(n)) not in counted_mn:
+            text = f"({text})"
+        shade = norm(value) if math.isfinite(value) else 0.0
+        ax_table.text(j, i, text, ha="center", va="center", fontsize=6.5,
+                      color="white" if shade > 0.55 else INK)
+    ax_table.set_xticks(range(len(ms)), [str(m) for m in ms])
+    ax_table.set_yticks(range(len(ns)), [str(n) for n in ns])
+    ax_table.set_xlabel("m (LO multiplier)")
+    ax_table.set_ylabel("n (input multiplier)")
+    ax_table.set_title("worst level over every point, dBc\n(in brackets: not counted)",
+                       fontsize=8.5, color=MUTED)
+    bar = fig.colorbar(image, ax=ax_table, shrink=0.85)
+    bar.set_label("dBc", fontsize=8)
+    return _finish(fig, "spurs", "m×n spurs over the output band",
+                   "Each product |m·f_LO + n·f_in| read at the output, in dBc of the wanted "
+                   "output at the same point, at every point of the spur studies (colour: "
+                   "temperature); shaded: the output band the sequence states; filled: the "
+                   "products the worst-spur figure counts (inside the band, not named "
+                   "expected); ▽: an upper bound (in the noise). The wanted product is not a "
+                   "spur and is left out.",
+                   corners=corners, corner_keys=CORNER_KEYS, studies=studies)
 
 
 def soak_curves(run: RunFigures) -> Plot | None:
@@ -460,11 +649,18 @@ def soak_curves(run: RunFigures) -> Plot | None:
 # -- helpers -----------------------------------------------------------------------------------
 
 
-def _figure(rows: int, cols: int, *, height_in: float) -> tuple[MplFigure, object]:
+def _figure(rows: int, cols: int, *, height_in: float,
+            constrained: bool = True) -> tuple[MplFigure, object]:
+    """A figure of rows × cols panels. Constrained layout for a few panels; a grid of many
+    gets fixed margins instead (constrained layout's cost grows fast with the panel count)."""
     fig = MplFigure(figsize=(WIDTH_IN, height_in), dpi=DPI, facecolor=PAPER,
-                    layout="constrained")
+                    layout="constrained" if constrained else None)
     FigureCanvasAgg(fig)
     axes = fig.subplots(rows, cols, squeeze=True)
+    if not constrained:
+        fig.subplots_adjust(left=0.08, right=0.985, bottom=0.55 / height_in,
+                            top=1.0 - 0.35 / height_in, wspace=0.32,
+                            hspace=0.62 if rows > 1 else 0.2)
     for ax in np.atleast_1d(axes).ravel():
         _style(ax)
     return fig, axes
@@ -491,12 +687,53 @@ def _legend(ax: Axes, fontsize: float = 8, loc: str = "best") -> None:
         ax.legend(fontsize=fontsize, frameon=False, labelcolor=INK, loc=loc)
 
 
-def _finish(fig: MplFigure, key: str, title: str, caption: str) -> Plot:
+def _grid(count: int, *, height_in: float, single_height_in: float,
+          columns: int = GRID_COLUMNS) -> tuple[MplFigure, list[Axes]]:
+    """A small-multiples grid of ``count`` panels (unused cells hidden), every panel drawn:
+    nothing is left out for want of room."""
+    cols = max(1, min(count, columns))
+    rows = max(1, math.ceil(count / cols))
+    height = single_height_in if count == 1 else height_in * rows
+    fig, axes = _figure(rows, cols, height_in=height, constrained=count <= 2)
+    axes_list = list(np.atleast_1d(axes).ravel())  # type: ignore[arg-type]
+    for ax in axes_list[count:]:
+        ax.set_visible(False)
+    return fig, axes_list[:max(count, 1)]
+
+
+def _note_block(ax: Axes, notes: Sequence[tuple[str, str]], loc: str = "lower left") -> None:
+    """Per-curve notes (colour, text) stacked in a corner of the panel, each in its curve's
+    colour: one line each, so labels never overlap one another."""
+    if not notes:
+        return
+    left = loc.endswith("left")
+    top = loc.startswith("upper")
+    for i, (colour, text) in enumerate(notes):
+        step = 0.065 * i
+        ax.text(0.02 if left else 0.98, (0.96 - step) if top else (0.04 + step), text,
+                transform=ax.transAxes, ha="left" if left else "right",
+                va="top" if top else "bottom", fontsize=7, color=colour,
+                bbox={"facecolor": "white", "edgecolor": "none", "alpha": 0.75, "pad": 0.6})
+
+
+def _finish(fig: MplFigure, key: str, title: str, caption: str, *,
+            corners: Sequence[str] = (), corner_keys: Sequence[str] = (),
+            studies: Sequence[str] = ()) -> Plot:
     buffer = io.BytesIO()
     fig.savefig(buffer, format="png", dpi=DPI, facecolor=PAPER,
                 metadata={"Software": None})
     width, height = fig.canvas.get_width_height()
-    return Plot(key, title, caption, buffer.getvalue(), int(width), int(height))
+    return Plot(key, title, caption, buffer.getvalue(), int(width), int(height),
+                tuple(sorted(set(corners))), tuple(corner_keys), tuple(studies))
+
+
+def _corners(rows: pd.DataFrame, keys: Sequence[str]) -> list[str]:
+    """The corner labels of the rows drawn."""
+    present = [k for k in keys if k in rows]
+    if not present or rows.empty:
+        return []
+    unique = rows[present].drop_duplicates()
+    return [corner_label(r, present) for _, r in unique.iterrows()]
 
 
 def _min_span(ax: Axes, span_db: float) -> None:
@@ -508,18 +745,58 @@ def _min_span(ax: Axes, span_db: float) -> None:
         ax.set_ylim(middle - span_db / 2.0, middle + span_db / 2.0)
 
 
-def _limit_band(ax: Axes, run: RunFigures, name: str) -> None:
+def _limit_lines(ax: Axes, run: RunFigures, name: str, studies: Sequence[str],
+                 band: bool = False) -> None:
+    """The sequence's limits on figure ``name`` that apply to ``studies`` as dashed lines
+    (and, with ``band``, the band between a min and a max shaded), the y axis widened so
+    every edge is inside it."""
+    edges: list[float] = []
     for limit in run.limits:
         if limit.name != name:
             continue
-        low = limit.min if limit.min is not None else -np.inf
-        high = limit.max if limit.max is not None else np.inf
-        if math.isfinite(low):
-            ax.axhline(low, color=MOSS, linestyle="--", linewidth=0.9)
-        if math.isfinite(high):
-            ax.axhline(high, color=MOSS, linestyle="--", linewidth=0.9)
-        if math.isfinite(low) and math.isfinite(high):
-            ax.axhspan(low, high, color=MOSS, alpha=0.06, linewidth=0)
+        study = limit.conditions.get("study")
+        if study is not None and study not in studies:
+            continue
+        for edge, word in ((limit.min, "min"), (limit.max, "max")):
+            if edge is not None and math.isfinite(edge):
+                ax.axhline(edge, color=MOSS, linestyle="--", linewidth=1.0)
+                ax.annotate(f"limit {word} {edge:g}", (1.0, edge), xycoords=("axes fraction",
+                            "data"), textcoords="offset points", xytext=(-4, 2), ha="right",
+                            fontsize=7, color=MOSS)
+                edges.append(edge)
+        if band and limit.min is not None and limit.max is not None:
+            ax.axhspan(limit.min, limit.max, color=MOSS, alpha=0.10, linewidth=0)
+    if edges:
+        low, high = ax.get_ylim()
+        span = max(high, *edges) - min(low, *edges)
+        pad = 0.06 * span if span > 0 else 0.5
+        ax.set_ylim(min(low, min(edges) - pad), max(high, max(edges) + pad))
+
+
+def _bounded_line(ax: Axes, x: np.ndarray, rows: pd.DataFrame, *, colour: str,
+                  linestyle: str | tuple, label: str) -> None:
+    """Measured numbers joined by a line; bounds drawn apart as open triangles pointing the
+    way the true value lies (▲ "&gt;", ▼ "&lt;"), never joined into the curve."""
+    bound = rows["bound"].to_numpy()
+    value = rows["value"].to_numpy(dtype=float)
+    number = bound == ""
+    ax.plot(np.where(number, x, np.nan), np.where(number, value, np.nan), marker="o",
+            markersize=3.5, linewidth=1.4, color=colour, linestyle=linestyle, label=label)
+    for symbol, marker in ((">", "^"), ("<", "v")):
+        mine = bound == symbol
+        if mine.any():
+            ax.plot(x[mine], value[mine], marker, color=colour, markersize=5,
+                    markerfacecolor="none", linestyle="none")
+
+
+def _swept_in_frequency(figures: Sequence[Figure]) -> bool:
+    """True when some study's figures hold more than one input frequency."""
+    seen: dict[object, set[float]] = {}
+    for f in figures:
+        freq = f.conditions.get("rf_freq_hz")
+        if isinstance(freq, int | float) and math.isfinite(float(freq)):
+            seen.setdefault(f.conditions.get("study"), set()).add(float(freq))
+    return any(len(v) > 1 for v in seen.values())
 
 
 def _varying(table: pd.DataFrame, keys: Sequence[str]) -> list[str]:
@@ -562,11 +839,6 @@ def _first(rows: pd.DataFrame, column: str) -> float | None:
     return float(value) if pd.notna(value) else None
 
 
-def _sweep_label(rows: pd.DataFrame) -> str:
-    return _label_of(rows.iloc[0], ("temperature_c", "supply_v")) + (
-        f", LO {float(rows['lo_power_dbm'].iloc[0]):g} dBm" if "lo_power_dbm" in rows else "")
-
-
 _KEY_COLUMNS = ("study", "temperature_c", "supply_v", "lo_freq_hz", "lo_power_dbm",
                 "rf_freq_hz")
 
@@ -590,26 +862,9 @@ def _by_conditions(
     return {_condition_key(f.conditions, columns): f for f in figures}
 
 
-def _point_powers(run: RunFigures, points: Sequence[int]) -> list[float]:
-    caps = run.captures
-    rows = caps[caps["point"].isin(list(points))]
-    return [float(v) for v in rows["rf_power_dbm"].unique() if math.isfinite(v)]
-
-
-def _top_oip(fits: Mapping[str, Mapping[tuple[object, ...], Figure]],
-             key: tuple[object, ...]) -> float:
-    values = [f.value for n in ("oip3_low", "oip3_high") if (f := fits[n].get(key))
-              is not None and f.is_number]
-    return max(values) if values else -math.inf
-
-
 def _figure_frame(figures: Sequence[Figure]) -> pd.DataFrame:
-    rows = [{
-        "value": f.value, "bound": f.bound or "",
-        "study": f.conditions.get("study"),
-        "temperature_c": f.conditions.get("temperature_c", np.nan),
-        "rf_freq_hz": f.conditions.get("rf_freq_hz", np.nan),
-        "lo_freq_hz": f.conditions.get("lo_freq_hz", np.nan),
-    } for f in figures if math.isfinite(f.value)]
-    return pd.DataFrame(rows, columns=["value", "bound", "study", "temperature_c", "rf_freq_hz",
-                                       "lo_freq_hz"])
+    columns = ["temperature_c", "supply_v", "lo_power_dbm", "rf_freq_hz", "lo_freq_hz"]
+    rows = [{"value": f.value, "bound": f.bound or "", "study": f.conditions.get("study"),
+             **{c: f.conditions.get(c, np.nan) for c in columns}}
+            for f in figures if math.isfinite(f.value)]
+    return pd.DataFrame(rows, columns=["value", "bound", "study", *columns])

@@ -81,3 +81,40 @@ def test_spur_validity():
     assert all(MISSING_READING in f for f in spur_table(no_if)["flag_names"])
     with pytest.raises(InputError, match="no m or n"):
         spur_table(df.assign(m=np.nan))
+
+
+def test_the_worst_spur_counts_only_products_inside_the_output_band_and_not_expected():
+    # products of the fixture at point 0: 2x-2 at 140 MHz (-56 dBc), -1x2 at 2·f_RF − f_LO
+    # (-66 dBc), 3x-3 at 210 MHz (in the noise)
+    captures = _spur_captures()
+    everything = spur_figures(captures)
+    assert {(int(f.conditions["m"]), int(f.conditions["n"]))
+            for f in everything if f.name == "spur_dbc"} == {(2, -2), (-1, 2), (3, -3)}
+    band = spur_figures(captures, if_band_hz=(100e6, 200e6))
+    counted = [f for f in band if f.name == "spur_dbc"]
+    assert {(int(f.conditions["m"]), int(f.conditions["n"])) for f in counted} == {(2, -2)}
+    assert all(f.conditions["band_low_hz"] == 100e6 for f in counted)
+    excluded = [f for f in band if f.name == "spur_excluded_dbc"]
+    assert {(int(f.conditions["m"]), int(f.conditions["n"])) for f in excluded} == {
+        (-1, 2), (3, -3)}
+    # (m, n) and (−m, −n) are one product: naming 1x-2 leaves out the -1x2 reading
+    named = spur_figures(captures, expected=[(2, -2), (1, -2)])
+    assert {(int(f.conditions["m"]), int(f.conditions["n"]))
+            for f in named if f.name == "spur_dbc"} == {(3, -3)}
+    # nothing read is lost: every product keeps its absolute level
+    assert len([f for f in named if f.name == "spur_dbm"]) == 6
+
+
+def test_the_sequence_states_the_output_band_and_the_expected_products(tmp_path):
+    from sweeprig.analysis.reduce import spur_counting
+    from sweeprig.formats.sequence import load_sequence
+
+    path = tmp_path / "spurs.toml"
+    path.write_text(
+        'format = 1\n[part]\nid = "KX-2417"\nexpected_gain = "12 dB"\n'
+        '[mixing]\nif_frequency = "100 MHz"\n[[study]]\nname = "spurs"\n'
+        'rf_frequency = "2.2 GHz"\nrf_power = "-10 dBm"\nlo_power = "0 dBm"\n'
+        'read = ["wanted", { kind = "mxn", order = 5, output_band = ["90 MHz", "110 MHz"], '
+        'expected = ["1x1", "2x-2"] }]\n', encoding="utf-8")
+    assert spur_counting(load_sequence(path)) == {
+        "spurs": ((90e6, 110e6), ((1, 1), (2, -2)))}

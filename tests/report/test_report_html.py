@@ -18,7 +18,8 @@ from sweeprig.analysis.figures import FLAG_MEANINGS, FLAGS, SUSPECT_FLAGS
 from sweeprig.report.html import render_html
 from sweeprig.report.tables import summary_rows
 
-PLOT_KEYS = ("gain_vs_frequency", "compression", "two_tone", "lo_drive", "spurs", "isolation")
+PLOT_KEYS = ("gain_vs_frequency", "compression", "two_tone", "intermod_dbc", "lo_drive",
+             "isolation", "spurs")
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"  # PNG specification (ISO/IEC 15948), file signature
 
 
@@ -53,7 +54,7 @@ def test_the_report_refers_to_nothing_outside_itself(report_files):
 def test_the_header_and_sections_say_what_an_engineer_needs(report_run, report_files):
     html = report_files.html.read_text(encoding="utf-8")
     for text in ("KX-2417", "T-0001", "Report test: KX-2417 (fictional)",
-                 f"<dd>{report_run.run_id} (simulated bench)</dd>", ">complete<", ">PASS<",
+                 f"run <b>{report_run.run_id} (simulated bench)</b>", ">complete<", ">PASS<",
                  "Summary", "Conditions", "Instruments", "*IDN?", "Tarnwick Labs",
                  report_run.sequence_sha256, "bench time", "wall time", "Events"):
         assert text in html, text
@@ -96,45 +97,132 @@ def _chromium() -> str | None:
     return "/usr/bin/chromium" if Path("/usr/bin/chromium").exists() else None
 
 
-def test_the_report_renders_in_headless_chromium(report_files, tmp_path):
+#: Chromium flags for a quiet, isolated headless run (no network, no first-run dialogs).
+CHROMIUM_FLAGS = ("--headless", "--no-sandbox", "--disable-gpu", "--disable-quic",
+                  "--no-first-run", "--disable-background-networking",
+                  "--disable-component-update", "--disable-sync")
+#: The printable width of an A4 page with the report's 11 mm side margins, in CSS pixels
+#: (96 px per inch: (210 − 22) mm / 25.4 × 96 ≈ 710 px). The screen styles are larger than
+#: the print ones, so a table that fits at this width fits on paper.
+A4_PRINT_WIDTH_PX = 710
+
+#: Probe inserted at the top of <head> of a copy of the report (the report has no script):
+#: records errors as they happen, then on load what a reader would see.
+_PROBE = """<script>
+window.__errors = [];
+addEventListener('error', e => window.__errors.push(String(e.message || (e.target && (
+  e.target.src || e.target.tagName)) || 'error').slice(0, 80)), true);
+const __err = console.error; console.error = (...a) => { window.__errors.push(a.join(' '));
+  __err(...a); };
+addEventListener('load', () => {
+  const b = document.body, main = document.querySelector('main');
+  b.setAttribute('data-errors', window.__errors.join(' | '));
+  b.setAttribute('data-images', Array.from(document.images).map(i => {
+    const r = i.getBoundingClientRect();
+    return (i.complete && i.naturalWidth > 0 && r.width > 0 && r.height > 0) ?
+      i.naturalWidth + 'x' + i.naturalHeight : '0x0'; }).join(' '));
+  b.setAttribute('data-figures', Array.from(document.querySelectorAll('figure')).map(
+    f => f.id + '=' + (f.getAttribute('data-corners') || '').split(' ; ').filter(
+      c => c).length).join(' '));
+  b.setAttribute('data-order', Array.from(main.children).map(
+    el => el.tagName.toLowerCase() + '.' + (el.className || '')).slice(0, 3).join(' '));
+  const table = document.querySelector('table.datasheet');
+  b.setAttribute('data-table-top', Math.round(table.getBoundingClientRect().top));
+  b.setAttribute('data-viewport', innerHeight + 'x' + innerWidth);
+  const cells = Array.from(table.querySelectorAll('td, th')).filter(
+    c => c.scrollWidth > c.clientWidth + 1).map(c => c.textContent.slice(0, 30));
+  b.setAttribute('data-clipped', (table.scrollWidth > table.parentElement.clientWidth + 1 ?
+    'table ' : '') + cells.join(' | '));
+  b.setAttribute('data-meanings', Array.from(document.querySelectorAll(
+    '.flag .meaning, dl.flags dd')).filter(el => el.getBoundingClientRect().height > 0
+    && getComputedStyle(el).visibility === 'visible').map(el => el.innerText).join(' | '));
+});
+</script>"""
+
+
+def _run_chromium(browser: str, profile: Path, *args: str) -> subprocess.CompletedProcess:
+    return subprocess.run([browser, *CHROMIUM_FLAGS, f"--user-data-dir={profile}", *args],
+                          capture_output=True, text=True, timeout=90, check=False)
+
+
+def test_the_report_renders_in_headless_chromium(report_run, report_plots, report_files,
+                                                 tmp_path):
     browser = _chromium()
     if browser is None:
         pytest.skip("Chromium is not installed (Debian: apt-get install chromium); CI has it")
-    # A copy with a probe that lists every image's decoded size once the page has loaded;
-    # the report itself carries no script.
-    # ...and the rendered text of every flag meaning that takes up room on the page (words
-    # a reader sees, not a tooltip)
-    probe = (
-        "<script>addEventListener('load', () => { document.body.setAttribute('data-images', "
-        "Array.from(document.images).map(i => (i.complete && i.naturalWidth > 0) ? "
-        "i.naturalWidth + 'x' + i.naturalHeight : '0x0').join(' ')); "
-        "document.body.setAttribute('data-meanings', Array.from(document.querySelectorAll("
-        "'.flag .meaning, dl.flags dd')).filter(el => el.getBoundingClientRect().height > 0 "
-        "&& getComputedStyle(el).visibility === 'visible').map(el => el.innerText)"
-        ".join(' | ')); });</script>"
-    )
     page = tmp_path / "probe.html"
     page.write_text(report_files.html.read_text(encoding="utf-8").replace(
-        "</body>", probe + "</body>"), encoding="utf-8")
-    result = subprocess.run(
-        [browser, "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic",
-         "--no-first-run", "--disable-background-networking", "--disable-component-update",
-         "--disable-sync", f"--user-data-dir={tmp_path / 'profile'}", "--dump-dom",
-         page.as_uri()],
-        capture_output=True, text=True, timeout=90, check=False,
-    )
+        "<head>", "<head>" + _PROBE, 1), encoding="utf-8")
+    # the width of an A4 page's print area, an A4 page's height at 96 px per inch
+    result = _run_chromium(browser, tmp_path / "profile", "--dump-dom",
+                           f"--window-size={A4_PRINT_WIDTH_PX},1123", page.as_uri())
     assert result.returncode == 0, result.stderr[-2000:]
-    found = re.search(r'data-images="([^"]*)"', result.stdout)
-    assert found, "the page did not finish loading"
-    sizes = found.group(1).split()
-    assert len(sizes) == len(PLOT_KEYS)
-    for size in sizes:
+
+    def attribute(name: str) -> str:
+        found = re.search(rf'data-{name}="([^"]*)"', result.stdout)
+        assert found, f"the page did not finish loading ({name})"
+        return html_lib.unescape(found.group(1))
+
+    assert attribute("errors") == ""  # no script error, no image that failed to load
+    assert "Uncaught" not in result.stderr
+    sizes = attribute("images").split()
+    assert len(sizes) == len(PLOT_KEYS) == len(report_plots)
+    for size in sizes:  # every image decoded and laid out on the page
         width, height = (int(v) for v in size.split("x"))
         assert width > 300 and height > 200, size
-    meanings = re.search(r'data-meanings="([^"]*)"', result.stdout)
-    assert meanings, "no flag meaning is shown as text"
-    shown = html_lib.unescape(meanings.group(1))
-    assert FLAG_MEANINGS["not_saturated"] in shown  # beside the flagged figure and in the legend
+    # no plot dropped: every figure lists the corners it drew, as many as the run has
+    shown = dict(item.split("=") for item in attribute("figures").split())
+    for plot in report_plots:
+        assert int(shown[f"plot-{plot.key}"]) == len(plot.corners) > 0, plot.key
+    # the report opens on the datasheet table, in the first screen
+    assert attribute("order").split()[:2] == ["header.run", "section.datasheet"]
+    assert 0 < int(attribute("table-top")) < 400
+    assert attribute("clipped") == ""  # no column wider than the A4 print width
+    shown = attribute("meanings")
+    assert FLAG_MEANINGS["not_saturated"] in shown  # spelled out under the table
+
+
+def test_the_report_screenshot_shows_the_table_first(report_files, tmp_path):
+    browser = _chromium()
+    if browser is None:
+        pytest.skip("Chromium is not installed (Debian: apt-get install chromium); CI has it")
+    shot = tmp_path / "report.png"
+    result = _run_chromium(browser, tmp_path / "profile", f"--screenshot={shot}",
+                           "--window-size=1100,1400", "--hide-scrollbars",
+                           report_files.html.as_uri())
+    assert result.returncode == 0 and shot.exists(), result.stderr[-2000:]
+    width, height = _png_size(shot.read_bytes())
+    assert (width, height) == (1100, 1400)
+    assert shot.stat().st_size > 50_000  # a page of text and rules, not a blank canvas
+
+
+def pdf_page_count(data: bytes) -> int:
+    """Pages of a PDF: the page objects (``/Type /Page``, not ``/Pages``) of an uncompressed
+    page tree, as Chromium writes it (ISO 32000-1, 7.7.3.3: a page object's /Type is /Page)."""
+    return len(re.findall(rb"/Type\s*/Page(?![a-zA-Z])", data))
+
+
+def test_the_table_prints_on_at_most_two_a4_pages_with_no_clipped_column(report_files,
+                                                                        tmp_path):
+    browser = _chromium()
+    if browser is None:
+        pytest.skip("Chromium is not installed (Debian: apt-get install chromium); CI has it")
+    text = report_files.html.read_text(encoding="utf-8")
+    # the datasheet part of the report: everything before the plots, as printed (A4, the
+    # report's own @page rule)
+    page = tmp_path / "datasheet.html"
+    page.write_text(text[:text.index('<section class="plots">')] + "</main></body></html>",
+                    encoding="utf-8")
+    pdf = tmp_path / "datasheet.pdf"
+    result = _run_chromium(browser, tmp_path / "profile", f"--print-to-pdf={pdf}",
+                           "--no-pdf-header-footer", page.as_uri())
+    assert result.returncode == 0 and pdf.exists(), result.stderr[-2000:]
+    data = pdf.read_bytes()
+    assert data.startswith(b"%PDF-")
+    assert 1 <= pdf_page_count(data) <= 2
+    # A4 media box: 595 × 842 pt (ISO 216, 210 × 297 mm at 72 pt per inch)
+    box = re.search(rb"/MediaBox\s*\[\s*0\s+0\s+([\d.]+)\s+([\d.]+)\s*\]", data)
+    assert box and abs(float(box.group(1)) - 595.3) < 1 and abs(float(box.group(2)) - 841.9) < 1
 
 
 def test_the_report_shows_each_figure_with_its_uncertainty_and_budget(report_run,

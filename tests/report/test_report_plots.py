@@ -11,7 +11,8 @@ import numpy as np
 
 from sweeprig.report.plots import all_plots, temperature_colour
 
-PLOT_KEYS = ["gain_vs_frequency", "compression", "two_tone", "lo_drive", "spurs", "isolation"]
+PLOT_KEYS = ["gain_vs_frequency", "compression", "two_tone", "intermod_dbc", "lo_drive",
+             "isolation", "spurs"]
 
 
 def test_every_plot_is_drawn(report_plots):

@@ -1,0 +1,240 @@
+"""The electrical-characteristics table: one row per figure and study, min / typ / max over
+the corners measured.
+
+A datasheet states each parameter once per set of test conditions, with its spread over the
+corners the part was measured at (frequency, temperature, supply, LO drive). Here a row is
+every figure of one name from one study (the study fixes the test conditions; its swept
+settings and the run's temperatures and supplies are the corners):
+
+* **min** / **max**: the smallest and largest value over the row's figures (a bound keeps its
+  sign, e.g. ``> 5.60``: the sweep ended before compression at that corner);
+* **typ**: the median of the measured numbers at the nominal corner: the temperature nearest
+  +25 °C, the middle supply voltage and the middle LO drive of those measured (every
+  frequency of the row counts). Common practice for a datasheet's typical column, no source;
+  "—" when no number was measured there;
+* **±U**: the largest expanded uncertainty (k = 2, JCGM 100:2008) of the row's figures;
+* **limit** and **result**: the ``[[spec]]`` limits that judged the row's figures and the worst
+  verdict, with how many figures had it;
+* **notes**: the validity flags met in the row, each a footnote spelled out under the table.
+
+For the worst m×n spur the corners are the points: at each point only its worst counted
+product enters (the strongest spur inside the output band, expected products left out), so
+"max" is the worst spur over all corners.
+"""
+
+from __future__ import annotations
+
+import math
+import statistics
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+
+from sweeprig.analysis.figures import FLAGS, Figure
+from sweeprig.analysis.limits import FAIL, INCONCLUSIVE, PASS, Judgement
+from sweeprig.analysis.reduce import RunFigures
+from sweeprig.report.tables import (
+    HEADLINE_FIGURES,
+    NO_LIMIT,
+    figure_label,
+    format_condition,
+    limit_text,
+)
+
+#: Conditions that make the corners of a row, in the order the conditions column names them.
+CORNER_KEYS: tuple[str, ...] = ("temperature_c", "supply_v", "rf_freq_hz", "lo_freq_hz",
+                                "lo_power_dbm", "rf_power_dbm")
+#: The temperature a datasheet's typical column is stated at, °C (common practice, no source).
+ROOM_C = 25.0
+#: Figures whose corners are run-store points: the worst product per point enters the row.
+PER_POINT_WORST = frozenset({"spur_dbc"})
+
+#: Display unit and scale of a figure unit (amperes and watts as milli-).
+_DISPLAY = {"A": ("mA", 1e3), "W": ("mW", 1e3)}
+#: Decimals per display unit (slopes need more).
+_DIGITS = {"dB/°C": 4, "dB/dB": 3, "mA": 1, "mW": 1}
+
+
+@dataclass(frozen=True)
+class DatasheetRow:
+    """One line of the electrical-characteristics table (see the module docstring).
+
+    ``values``: the figures the row is computed from (after the per-point reduction of
+    spurs); ``minimum``/``maximum``: the figures holding the extremes; ``typical``: the
+    median at the nominal corner (NaN when none); ``uncertainty``: the largest expanded
+    uncertainty (figure unit, NaN when none); ``judged``: verdict → number of figures;
+    ``flags``: (flag name, number of figures carrying it)."""
+
+    name: str
+    label: str
+    study: str
+    conditions_text: str
+    unit: str
+    values: tuple[Figure, ...]
+    minimum: Figure | None
+    typical: float
+    maximum: Figure | None
+    uncertainty: float
+    limit_text: str
+    verdict: str
+    judged: Mapping[str, int]
+    flags: tuple[tuple[str, int], ...]
+
+    @property
+    def display_unit(self) -> str:
+        return _DISPLAY.get(self.unit, (self.unit, 1.0))[0]
+
+    def number_text(self, value: float, bound: str | None = None) -> str:
+        """A value of this row in its display unit, without the unit (``"—"`` for NaN)."""
+        if value is None or not math.isfinite(value):
+            return "—"
+        unit, scale = _DISPLAY.get(self.unit, (self.unit, 1.0))
+        digits = _DIGITS.get(unit, 2)
+        text = f"{value * scale:.{digits}f}".replace("-", "−")
+        return f"{bound} {text}" if bound else text
+
+    @property
+    def min_text(self) -> str:
+        f = self.minimum
+        return "—" if f is None else self.number_text(f.value, f.bound)
+
+    @property
+    def typ_text(self) -> str:
+        return self.number_text(self.typical)
+
+    @property
+    def max_text(self) -> str:
+        f = self.maximum
+        return "—" if f is None else self.number_text(f.value, f.bound)
+
+    @property
+    def uncertainty_text(self) -> str:
+        return "—" if not math.isfinite(self.uncertainty) else \
+            "± " + self.number_text(self.uncertainty)
+
+    @property
+    def verdict_text(self) -> str:
+        """``pass``, ``fail 3/45``, ``inconclusive 2/45`` or ``—`` (no limit)."""
+        if self.verdict == NO_LIMIT:
+            return NO_LIMIT
+        total = sum(self.judged.values())
+        count = self.judged.get(self.verdict, 0)
+        return self.verdict if count == total else f"{self.verdict} {count}/{total}"
+
+
+def datasheet_rows(run: RunFigures) -> list[DatasheetRow]:
+    """The table of ``run``: headline figures in :data:`HEADLINE_FIGURES` order, then any
+    other figure a limit names; within a figure, studies in run order."""
+    judged: dict[int, list[Judgement]] = {}
+    for judgement in run.assessment.judgements:
+        judged.setdefault(id(judgement.figure), []).append(judgement)
+    names = list(HEADLINE_FIGURES) + [n for n in dict.fromkeys(li.name for li in run.limits)
+                                      if n not in HEADLINE_FIGURES]
+    groups: dict[tuple[str, str], list[Figure]] = {}
+    for figure in run.figures:
+        if figure.name in names:
+            key = (figure.name, str(figure.conditions.get("study", "")))
+            groups.setdefault(key, []).append(figure)
+    order = {s.name: i for i, s in enumerate(run.studies)}
+    keys = sorted(groups, key=lambda k: (names.index(k[0]), order.get(k[1], len(order)), k[1]))
+    return [_row(name, study, groups[(name, study)], judged, run) for name, study in keys]
+
+
+def corner_figures(name: str, figures: Sequence[Figure]) -> list[Figure]:
+    """The figures a row's min / typ / max are taken over: ``figures`` as they are, except
+    for :data:`PER_POINT_WORST` figures, reduced to the largest value per run-store point."""
+    if name not in PER_POINT_WORST:
+        return list(figures)
+    worst: dict[tuple[int, ...], Figure] = {}
+    for figure in figures:
+        if not math.isfinite(figure.value):
+            continue
+        held = worst.get(figure.points)
+        if held is None or figure.value > held.value:
+            worst[figure.points] = figure
+    return list(worst.values())
+
+
+def nominal(figures: Sequence[Figure]) -> list[Figure]:
+    """The figures at the nominal corner: temperature nearest :data:`ROOM_C`, the middle
+    supply and the middle LO drive of those present (lower middle of an even count)."""
+    chosen = list(figures)
+    for key in ("temperature_c", "supply_v", "lo_power_dbm"):
+        values = sorted({float(v) for f in chosen
+                         if isinstance(v := f.conditions.get(key), int | float)
+                         and math.isfinite(float(v))})
+        if not values:
+            continue
+        pick = (min(values, key=lambda t: (abs(t - ROOM_C), t)) if key == "temperature_c"
+                else values[(len(values) - 1) // 2])
+        chosen = [f for f in chosen if _close(f.conditions.get(key), pick)]
+    return chosen
+
+
+def _row(name: str, study: str, members: list[Figure], judged: Mapping[int, list[Judgement]],
+         run: RunFigures) -> DatasheetRow:
+    values = corner_figures(name, members)
+    finite = [f for f in values if math.isfinite(f.value)]
+    minimum = min(finite, key=lambda f: f.value) if finite else None
+    maximum = max(finite, key=lambda f: f.value) if finite else None
+    typical_numbers = [f.value for f in nominal(finite) if f.is_number]
+    typical = statistics.median(typical_numbers) if typical_numbers else math.nan
+    spreads = [f.uncertainty_db for f in members if math.isfinite(f.uncertainty_db)]
+    judgements = [j for f in members for j in judged.get(id(f), [])]
+    counts = {PASS: 0, FAIL: 0, INCONCLUSIVE: 0}
+    for j in judgements:
+        counts[j.verdict] += 1
+    verdict = (FAIL if counts[FAIL] else INCONCLUSIVE if counts[INCONCLUSIVE]
+               else PASS if counts[PASS] else NO_LIMIT)
+    limits = list(dict.fromkeys(limit_text(j.limit) for j in judgements))
+    if not limits:
+        limits = [limit_text(li) for li in run.limits if li.name == name
+                  and li.conditions.get("study", study) == study]
+    flag_counts: dict[str, int] = {}
+    for figure in members:
+        for flag in figure.flags:
+            flag_counts[flag] = flag_counts.get(flag, 0) + 1
+    return DatasheetRow(
+        name=name,
+        label=figure_label(name),
+        study=study,
+        conditions_text=corners_text(members),
+        unit=members[0].unit,
+        values=tuple(values),
+        minimum=minimum,
+        typical=typical,
+        maximum=maximum,
+        uncertainty=max(spreads) if spreads else math.nan,
+        limit_text="; ".join(limits),
+        verdict=verdict,
+        judged={k: v for k, v in counts.items() if v},
+        flags=tuple((f, flag_counts[f]) for f in FLAGS if f in flag_counts),
+    )
+
+
+def corners_text(figures: Sequence[Figure]) -> str:
+    """The test conditions of a row: each corner setting as one value, or its range
+    (``−40…85 °C, 3.3 V, RF 1.7–2.7 GHz, LO 0 dBm``); the LO frequency is left out when it
+    follows a swept RF."""
+    parts: list[str] = []
+    for key in CORNER_KEYS:
+        values = sorted({float(v) for f in figures
+                         if isinstance(v := f.conditions.get(key), int | float)
+                         and math.isfinite(float(v))})
+        if not values:
+            continue
+        if key == "lo_freq_hz" and len(values) > 1 and any(p.startswith("RF ") for p in parts):
+            continue
+        low = format_condition(key, values[0])
+        if len(values) == 1:
+            parts.append(low)
+        elif key in ("temperature_c", "supply_v"):
+            parts.append(f"{low.split(' ')[0]}…{format_condition(key, values[-1])}")
+        else:
+            high = format_condition(key, values[-1]).split(" ", 1)[1]
+            parts.append(f"{low}–{high}")
+    return ", ".join(parts).replace("-", "−")
+
+
+def _close(value: object, target: float) -> bool:
+    return isinstance(value, int | float) and math.isclose(float(value), target, rel_tol=1e-9,
+                                                            abs_tol=1e-12)
