@@ -178,6 +178,9 @@ def reduce_run(store: RunStore, run_id: int) -> RunFigures:
     calibration, calibration_note = calibration_state(events)
     notes += [calibration_note] if calibration_note else []
     figures = attach_uncertainty(figures, captures, bench_specs.specs, calibration)
+    from sweeprig.analysis.noise_load import noise_figure_figures  # own budgets
+
+    figures += noise_figure_figures(points, readings, bench_specs.specs, sequence)
     limits = limits_from_sequence(sequence) if sequence is not None else ()
     assessment = assess(figures, limits, guard_band=bench_specs.guard_band)
     state = _state(info.status, info.points_done, info.points_total)
@@ -247,6 +250,7 @@ SPEC_FIGURES: Mapping[str, str] = MappingProxyType({
     "image_rejection_db": "image_rejection",
     "supply_current_a": "supply_current",
     "spur_dbc": "spur_dbc",
+    "noise_figure_db": "noise_figure",
 })
 
 
@@ -541,7 +545,9 @@ def planned_figure_names(sequence: Sequence) -> dict[str, tuple[str, ...]]:
                        temperatures=sequence.temperature_count())
         out[study.name] = tuple(
             name for role in roles for name, needs in ROLE_SPEC_FIGURES.get(role, ())
-            if all(any(r in readings for r in item.split("|")) for item in needs))
+            if all(any(r in readings for r in item.split("|")) for item in needs)) + (
+            ("noise_figure",) if any(r.kind == "noise_figure" for r in study.readings())
+            else ())
     return out
 
 

@@ -244,6 +244,8 @@ class NoiseBench:
         if cold != "ambient":
             self.cold_measured = False
             return float(cold) + ZERO_C_K
+        if self.spec.room_temperature is not None:  # stated: a room thermometer's reading
+            return float(self.spec.room_temperature) + ZERO_C_K
         chamber = self.d.chamber
         if chamber is not None:
             return chamber.probe_temperature_c() + ZERO_C_K

@@ -19,8 +19,9 @@ For a plain two-column ENR table the source's identity comes from here: ``serial
 ``enr_frequency_unit`` (Hz, kHz, MHz or GHz).
 
 Cold temperature: the noise source's off state is a matched load at its physical temperature.
-``"ambient"`` (the default) takes the room temperature measured when the measurement's system
-calibration is made: the chamber probe with the chamber idle, or ``room_temperature``.
+``"ambient"`` (the default) takes the measured room temperature: ``room_temperature`` (a room
+thermometer's reading) when stated, else the chamber probe read when the run is set up, before
+any conditioning.
 Caution: the drive is a DC voltage on the source's connector; switch it off before connecting
 or disconnecting the source (common practice; follow the source's manual and lab rules).
 """

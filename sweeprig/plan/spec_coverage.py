@@ -47,6 +47,7 @@ HOW_TO_MEASURE: dict[str, str] = {
     "image_rejection_db": 'a study reading "wanted" and "image"',
     "supply_current_a": 'a study reading "supply_current"',
     "spur_dbc": 'a study reading "mxn"',
+    "noise_figure_db": 'a study reading "noise_figure"',
 }
 
 

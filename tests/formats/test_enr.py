@@ -19,7 +19,7 @@ SHIPPED = REPO / "sequences" / "benches" / "enr" / "ns-0417.toml"
 def test_shipped_enr_file_loads_with_identity_and_uncertainty() -> None:
     table = load_enr_file(SHIPPED)
     assert table.serial == "NS-0417-0093"
-    assert table.calibrated == date(2026, 6, 12) and table.expires == date(2027, 6, 12)
+    assert table.calibrated == date(2026, 6, 12) and table.expires == date(2028, 6, 12)
     assert float(table.enr_at(2.25e9)[()]) == pytest.approx((14.98 + 14.93) / 2)
     np.testing.assert_allclose(table.uncertainty_at([1e9, 2.2e9, 13.6e9]), [0.12, 0.12, 0.20])
 
@@ -53,10 +53,10 @@ def test_coverage_and_expiry_are_refused_by_name() -> None:
     table.check_covers([70e6, 2.4e9], where="w", what="the study")
     with pytest.raises(InputError, match=r"covers 10 to 13600 MHz"):
         table.check_covers([5e6], where="w", what="the study")
-    table.check_current(date(2027, 6, 12), where="w")
+    table.check_current(date(2028, 6, 12), where="w")
     with pytest.raises(InputError) as info:
-        table.check_current(date(2027, 6, 13), where="w")
-    assert "expired on 2027-06-12" in info.value.what and "NS-0417-0093" in info.value.what
+        table.check_current(date(2028, 6, 13), where="w")
+    assert "expired on 2028-06-12" in info.value.what and "NS-0417-0093" in info.value.what
 
 
 def test_sim_bench_file_carries_the_noise_source() -> None:
