@@ -178,6 +178,16 @@ def _model(part: HotCold, cal: HotCold, cold_k: float, image_to_signal_db: float
     return nf
 
 
+def _model_image(part: HotCold, cal: HotCold, cold_k: float,
+                 image_db: float) -> Callable[[Mapping[str, float]], float]:
+    """NF_SSB as a function of an offset on the image-to-signal ratio (dB)."""
+
+    def nf(d: Mapping[str, float]) -> float:
+        return _model(part, cal, cold_k, image_db + d.get("image", 0.0), "ssb")({})
+
+    return nf
+
+
 def _sensitivity(model: Callable[[Mapping[str, float]], float], name: str,
                  step: float) -> float:
     up, down = model({name: step}), model({name: -step})
@@ -250,6 +260,15 @@ def reduce_noise_figure(
         term("cold_cal", "second-stage noise: jitter of the calibration's cold reading",
              jitter_db(cal.jitter_rel), "standard", kind="A", origin="measured"),
     ]
+    if sideband == "ssb" and image_known:
+        # the measured image-to-signal ratio: the same source at two frequencies, each level
+        # within the source's level accuracy (the bench's input_level specification)
+        spec = specs.input_level
+        c = _sensitivity(_model_image(part, cal, cold_k, image_db), "image", 0.01)
+        terms.append(Contribution("image_gain", "image-band gain measured (source level at "
+                                  "the image against the signal frequency)",
+                                  spec.half_width_db, spec.shape,
+                                  c if math.isfinite(c) else 0.5, origin=spec.origin))
     if sideband == "ssb" and not image_known:
         terms.append(Contribution("image_gain", "image-band gain not measured: equal gains "
                                   "assumed", 0.5, "rectangular", 1.0,
