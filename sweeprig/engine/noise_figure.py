@@ -214,7 +214,7 @@ class NoiseBench:
         freqs = sorted({float(f) for f in if_freqs_hz})
         self.enr.check_covers(freqs, where=self.bench.where(("noise_source", "enr_file")),
                               what="the system calibration at the IF")
-        self.cold_k = self._cold_temperature_k()
+        self.cold_k = self.cold_temperature_k()
         switch = self.d.switch
         thru, part = self.bench.switch_route("thru"), self.bench.switch_route("part")
         if switch is None or thru is None or part is None:
@@ -239,7 +239,7 @@ class NoiseBench:
             switch.check_errors()
         return self.calibration
 
-    def _cold_temperature_k(self) -> float:
+    def cold_temperature_k(self) -> float:
         cold = self.spec.cold_temperature
         if cold != "ambient":
             self.cold_measured = False

@@ -30,7 +30,7 @@ class NoiseReader:
     def __init__(self, bench: Bench, drivers: BenchDrivers, clock: Clock) -> None:
         self.nb = NoiseBench(bench, drivers, clock)
         self.d = drivers
-        self.nb.cold_k = self.nb._cold_temperature_k()  # now: before any conditioning
+        self.nb.cold_k = self.nb.cold_temperature_k()  # now: before any conditioning
         self.nb.off()
 
     def read(self, point: Point, reading: Reading) -> ReadingRecord:

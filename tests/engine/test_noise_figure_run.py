@@ -78,6 +78,10 @@ def test_noise_figure_study_runs_and_matches_the_model(tmp_path: Path) -> None:
     gains = run.figures_named("noise_figure_gain")
     assert len(gains) == 9 and all(14.0 < g.value < 17.0 for g in gains)
     assert run.assessment.verdict == "pass"
+    from sweeprig.report.plots import all_plots  # the report's noise-figure section
+
+    plot = next(p for p in all_plots(run) if p.key == "noise_figure")
+    assert plot.png.startswith(b"\x89PNG") and "k = 2" in plot.caption
 
 
 def test_a_bench_without_a_noise_source_is_refused_before_rf(tmp_path: Path) -> None:
