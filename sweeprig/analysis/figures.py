@@ -133,6 +133,10 @@ RBW_MERGED = "rbw_merged"
 NOISE_LIMITED = "noise_limited"
 COARSE_STEPS = "coarse_steps"
 SUPPLY_CURRENT_OFF = "supply_current_off"
+Y_TOO_SMALL = "y_too_small"
+ANALYZER_NOISE_DOMINATES = "analyzer_noise_dominates"
+HOT_COMPRESSION = "hot_compression"
+INTERFERER = "interferer"
 
 #: Every flag, in a fixed order: the position is the flag's bit in a flag mask.
 FLAGS: tuple[str, ...] = (
@@ -159,6 +163,11 @@ FLAGS: tuple[str, ...] = (
     NOISE_LIMITED,
     COARSE_STEPS,
     SUPPLY_CURRENT_OFF,
+    # noise-figure readings (sweeprig.analysis.noise_figure)
+    Y_TOO_SMALL,
+    ANALYZER_NOISE_DOMINATES,
+    HOT_COMPRESSION,
+    INTERFERER,
 )
 
 #: Flags that make a figure untrustworthy as a number: a limit check on it is inconclusive.
@@ -188,6 +197,10 @@ SUSPECT_FLAGS: frozenset[str] = frozenset(
         IN_COMPRESSION,
         MISSING_READING,
         UNPOWERED,
+        Y_TOO_SMALL,
+        ANALYZER_NOISE_DOMINATES,
+        HOT_COMPRESSION,
+        INTERFERER,
     }
 )
 
@@ -233,6 +246,14 @@ FLAG_MEANINGS: Mapping[str, str] = MappingProxyType({
     "interpolated value may be off by more than 0.2 dB",
     SUPPLY_CURRENT_OFF: "the supply current was more than 30 % from the expected current: "
     "the part looks wrongly powered or damaged",
+    Y_TOO_SMALL: "the Y-factor (hot over cold noise) was too small for the stated accuracy: "
+    "every error of the noise readings is multiplied by Y/(Y - 1)",
+    ANALYZER_NOISE_DOMINATES: "the part's cold output noise stood less than 3 dB above the "
+    "analyzer's own: the second-stage correction dominates the figure",
+    HOT_COMPRESSION: "the hot source compressed the receiver: the hot-cold difference changed "
+    "with 10 dB more input attenuation",
+    INTERFERER: "a line stood out of the noise in the measured band: an interferer raised the "
+    "noise readings",
 })
 
 _FLAG_BIT = {name: 1 << i for i, name in enumerate(FLAGS)}
@@ -300,6 +321,10 @@ FIGURE_CATALOGUE: Mapping[str, tuple[str, str]] = MappingProxyType(
         "spur_dbc": ("dBc", "m×n spur level relative to the wanted IF at the same point"),
         "spur_excluded_dbc": ("dBc", "m×n product the worst spur does not count (outside the "
                               "output band, or named expected), relative to the wanted output"),
+        "noise_figure": ("dB", "noise figure by the Y-factor method with second-stage "
+                         "correction, double- or single-sideband as its conditions say"),
+        "noise_figure_gain": ("dB", "the Y-factor method's own gain estimate (signal and image "
+                              "bands together)"),
         "spur_dbm": ("dBm", "m×n spur absolute level at the DUT output port"),
         "lo_if_isolation": ("dB", "LO power at the LO port − LO leakage at the IF port"),
         "lo_rf_isolation": ("dB", "LO power at the LO port − LO leakage at the RF port"),

@@ -193,6 +193,9 @@ def reduce_run(store: RunStore, run_id: int) -> RunFigures:
     notes += [calibration_note] if calibration_note else []
     figures = attach_uncertainty(figures, captures, bench_specs.specs, calibration)
     figures = _in_trade_words(figures, conversion, orders)
+    from sweeprig.analysis.noise_load import noise_figure_figures  # own budgets
+
+    figures += noise_figure_figures(points, readings, bench_specs.specs, sequence)
     limits = limits_from_sequence(sequence) if sequence is not None else ()
     assessment = assess(figures, limits, guard_band=bench_specs.guard_band)
     state = _state(info.status, info.points_done, info.points_total)
@@ -267,6 +270,7 @@ SPEC_FIGURES: Mapping[str, str] = MappingProxyType({
     "sideband_suppression_dbc": "sideband_suppression",
     "lo_suppression_dbc": "lo_suppression",
     "lo_leakage_dbm": "lo_leakage",
+    "noise_figure_db": "noise_figure",
 })
 
 
@@ -612,7 +616,9 @@ def planned_figure_names(sequence: Sequence) -> dict[str, tuple[str, ...]]:
         out[study.name] = tuple(
             trade_name(name, conversion) for table in tables for role in roles
             for name, needs in table.get(role, ())
-            if all(any(r in readings for r in item.split("|")) for item in needs))
+            if all(any(r in readings for r in item.split("|")) for item in needs)) + (
+            ("noise_figure",) if any(r.kind == "noise_figure" for r in study.readings())
+            else ())
     return out
 
 

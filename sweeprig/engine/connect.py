@@ -49,13 +49,15 @@ class BenchDrivers:
     chamber: ChamberDriver | None = None
     switch: SwitchDriver | None = None
     simctl: SimControlDriver | None = None
+    nsdc: SupplyDriver | None = None
     transports: dict[str, Transport] = field(default_factory=dict)
     startup_errors: dict[str, list[str]] = field(default_factory=dict)
     """Errors found in each instrument's queue when the bench was opened (role → texts)."""
 
     def items(self) -> Iterator[tuple[str, Driver]]:
         """(role, driver) for every present role."""
-        for role in ("rf", "rf2", "lo", "sa", "pm", "dc", "chamber", "switch", "simctl"):
+        for role in ("rf", "rf2", "lo", "sa", "pm", "dc", "chamber", "switch", "simctl",
+                     "nsdc"):
             driver = getattr(self, role)
             if driver is not None:
                 yield role, driver

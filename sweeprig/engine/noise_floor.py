@@ -42,6 +42,10 @@ MIN_FLOOR_POINTS = 50
 
 _EULER_GAMMA = 0.5772156649015329
 _LOG_BIAS_DB = 10.0 * _EULER_GAMMA / math.log(10.0)  # 2.507 dB
+#: How far the mean of log-detected (dB) readings of noise sits under its mean power, dB: the
+#: correction a log-averaged noise reading needs (derived with numpy in
+#: tests/analysis/test_noise_figure.py).
+LOG_AVERAGE_BIAS_DB = _LOG_BIAS_DB
 _LOG_STD_DB = 10.0 / math.log(10.0) * math.pi / math.sqrt(6.0)  # 5.57 dB
 _LOG_EXP_SKEWNESS = 1.1395470994046487  # |skewness| of ln E, E ~ Exp(1) (Gumbel)
 

@@ -158,6 +158,7 @@ class Runner:
         self._temperature_c: float | None = None
         self._supply_v: float | None = None
         self._supply_on = False
+        self._noise: Any = None  # sweeprig.engine.noise_reading.NoiseReader, when needed
         cond = sequence.conditions
         self.settle_s = float(cond.settle)
         self.soak_s = float(cond.soak)
@@ -201,6 +202,10 @@ class Runner:
         if self.d.dc is not None and self.bench.limits.supply_max_current is not None:
             self.d.dc.set_current_limit(float(self.bench.limits.supply_max_current))
         self._check(*(d for _, d in self.d.items()))
+        if "noise_figure" in self.sequence.reading_kinds() and self._noise is None:
+            from sweeprig.engine.noise_reading import NoiseReader  # only runs that need it
+
+            self._noise = NoiseReader(self.bench, self.d, self.clock)
         if self.policy.reset_check:
             for role, driver in self._checked_drivers():
                 if driver.event_status() & PON_BIT:  # reading clears it
@@ -620,6 +625,8 @@ class Runner:
             return self._read_power_meter(point, reading)
         if reading.instrument == "dc":
             return self._read_supply(reading)
+        if reading.instrument == "noise":
+            return self._noise.read(point, reading)  # type: ignore[no-any-return]
         return self._read_analyzer(point, reading)
 
     def _read_analyzer(self, point: Point, reading: Reading) -> ReadingRecord:

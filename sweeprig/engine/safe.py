@@ -286,6 +286,15 @@ def _steps(drivers: BenchDrivers, supply_safe_v: float | None,
                 "its front panel, or switch the source off; check with a power meter or the "
                 f"analyzer that no RF reaches the part; {CAUTION}",
             ))
+    nsdc = drivers.nsdc
+    if nsdc is not None:
+        steps.append(_Step(
+            "nsdc", nsdc, "noise-source drive off",
+            send=lambda: nsdc.set_value("output", False, force=True),
+            expect=(_Expect("output", False, "output"),),
+            by_hand=f"switch the output of the supply of role 'nsdc' ({_resource(nsdc)}) that "
+            f"drives the noise source off at its front panel; {CAUTION}",
+        ))
     dc = drivers.dc
     if dc is not None:
         place = f"the supply of role 'dc' ({_resource(dc)})"
@@ -362,7 +371,8 @@ def make_bench_safe(bench: Bench, *, resources: dict[str, str] | None = None,
     from sweeprig.engine.connect import open_bench
     from sweeprig.engine.locks import BenchBusy, BenchLock
 
-    roles = [r for r in ("rf", "rf2", "lo", "dc", "chamber") if bench.role(r) is not None]
+    roles = [r for r in ("rf", "rf2", "lo", "nsdc", "dc", "chamber")
+             if bench.role(r) is not None]
     resources = dict(resources or {})
     lock_resources = tuple(resources.get(r, bench.role(r).resource) for r in roles)  # type: ignore[union-attr]
     unopened: list[SafeCheck] = []
@@ -398,12 +408,13 @@ def make_bench_safe(bench: Bench, *, resources: dict[str, str] | None = None,
 
 def _unopened(role: str, resource: str, exc: BaseException) -> SafeCheck:
     what = {"rf": "RF off", "rf2": "RF off", "lo": "RF off", "dc": "supply safe",
-            "chamber": "chamber idle"}[role]
+            "nsdc": "noise-source drive off", "chamber": "chamber idle"}[role]
     if role in ("rf", "rf2", "lo"):
         hand = (f"switch the RF output of role {role!r} ({resource}) off at its front panel, "
                 "or switch the source off")
-    elif role == "dc":
-        hand = f"switch the output of the supply of role 'dc' ({resource}) off at its front panel"
+    elif role in ("dc", "nsdc"):
+        hand = (f"switch the output of the supply of role {role!r} ({resource}) off at its "
+                "front panel")
     else:
         hand = f"put the chamber of role 'chamber' ({resource}) in its idle state at its controller"
     return SafeCheck(role=role, resource=resource, step=what, verified=False,

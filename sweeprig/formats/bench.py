@@ -17,6 +17,7 @@ from pydantic import BeforeValidator, Discriminator, Field, PrivateAttr, Tag, Wi
 from pydantic_core import PydanticCustomError
 
 from sweeprig.errors import InputError
+from sweeprig.formats.enr import EnrTable
 from sweeprig.formats.fields import (
     TAG_PREFIX,
     Current,
@@ -33,6 +34,7 @@ from sweeprig.formats.fields import (
     quantity_parser,
 )
 from sweeprig.formats.loading import display_path, load_document, validate
+from sweeprig.formats.noise_bench import NoiseSourceBench, check_noise_source, load_enr_for
 from sweeprig.formats.pathloss import (
     ConstantLoss,
     PathLoss,
@@ -49,7 +51,7 @@ if TYPE_CHECKING:
 
 #: Every role a bench may fill.
 ROLES: tuple[str, ...] = (
-    "rf", "rf2", "lo", "sa", "pm", "dc", "chamber", "switch", "simctl",
+    "rf", "rf2", "lo", "sa", "pm", "dc", "chamber", "switch", "simctl", "nsdc",
 )
 #: Source roles (their output power is limited by ``limits.source_max_power``).
 SOURCE_ROLES: tuple[str, ...] = ("rf", "rf2", "lo")
@@ -98,6 +100,8 @@ class Roles(Frozen):
     simctl: Role | None = Field(
         None, description="simulated bench only: its clock control, so waits pass in "
         "simulated time (written by `sweeprig sim serve --bench-file`)")
+    nsdc: Role | None = Field(None, description="DC supply output driving the noise source "
+                              "(see [noise_source])")
 
 
 class BenchInfo(Frozen):
@@ -358,8 +362,16 @@ class Bench(LocatedFile):
         default_factory=SourcesFigures,
         description="the sources' stated harmonics, for the planner's predictions")
     uncertainty: UncertaintySpecs = Field(default_factory=UncertaintySpecs)
+    noise_source: NoiseSourceBench | None = Field(
+        None, description="the noise source for noise-figure readings and its ENR table")
 
     _losses: dict[str, PathLoss] = PrivateAttr(default_factory=dict)
+    _enr: EnrTable | None = PrivateAttr(None)
+
+    @property
+    def enr_table(self) -> EnrTable | None:
+        """The noise source's ENR table (None without a ``[noise_source]``)."""
+        return self._enr
 
     def role(self, name: str) -> Role | None:
         return getattr(self.roles, name)
@@ -457,6 +469,13 @@ def load_bench(path: str | os.PathLike[str], *, known_profiles: Collection[str] 
         if isinstance(value, LossFile) and value.gain is None:
             origin = doc.root.origin(key).path.parent
             bench._losses[name] = _load_loss_file(bench, key, value, origin)
+    if bench.noise_source is not None:
+        where = bench.where(("noise_source",))
+        check_noise_source(bench.noise_source, has_drive_role=bench.roles.nsdc is not None,
+                           where=where)
+        origin = doc.root.origin(("noise_source", "enr_file")).path.parent
+        bench._enr = load_enr_for(bench.noise_source, origin,
+                                  where=bench.where(("noise_source", "enr_file")))
     return bench
 
 

@@ -50,12 +50,12 @@ AxisName = Literal["lo_frequency", "lo_power", "tone_spacing", "rf_frequency", "
 #: What a study can read at each point (sweeprig's own vocabulary; see the format doc).
 READING_KINDS: tuple[str, ...] = (
     "wanted", "lo_at_if", "lo_at_rf", "rf_at_if", "image", "mxn", "im3", "im2",
-    "supply_current", "input_power",
+    "supply_current", "input_power", "noise_figure",
     "sideband",
 )
 ReadingKind = Literal[
     "wanted", "lo_at_if", "lo_at_rf", "rf_at_if", "image", "mxn", "im3", "im2",
-    "supply_current", "input_power",
+    "supply_current", "input_power", "noise_figure",
     "sideband",
 ]
 #: Readings that measure distortion (eligible for the attenuation check).
@@ -81,11 +81,12 @@ FIGURES: dict[str, str] = {
     "sideband_suppression_dbc": "level_db",
     "lo_suppression_dbc": "level_db",
     "lo_leakage_dbm": "power",
+    "noise_figure_db": "level_db",  # either direction
 }
 FigureName = Literal[
     "conversion_gain_db", "gain_flatness_db", "input_p1db_dbm", "output_p1db_dbm", "iip3_dbm",
     "oip3_dbm", "iip2_dbm", "lo_if_isolation_db", "lo_rf_isolation_db", "rf_if_isolation_db",
-    "image_rejection_db", "supply_current_a", "spur_dbc",
+    "image_rejection_db", "supply_current_a", "spur_dbc", "noise_figure_db",
     "if_rf_isolation_db", "sideband_suppression_dbc", "lo_suppression_dbc", "lo_leakage_dbm",
 ]
 
@@ -324,6 +325,10 @@ class ReadingSpec(Frozen):
     analyzer: AnalyzerField | None = Field(None, description="analyzer settings for this reading")
     attenuation_check: StrictBool | None = Field(
         None, description="distortion readings: repeat with 10 dB more input attenuation")
+    sideband: Literal["dsb", "ssb"] | None = Field(
+        None, description="noise_figure only: report the double-sideband figure (what the "
+        "Y-factor method measures, default) or the single-sideband one (converted with the "
+        "image gain the same study reads, else equal gains)")
 
 
 def _read_item_shape(value: Any) -> str:
@@ -513,6 +518,10 @@ def required_roles(sequence: Sequence) -> dict[str, str]:
         roles["chamber"] = "conditions.temperature uses the thermal chamber"
     if "lo_at_rf" in kinds:
         roles["switch"] = "the lo_at_rf reading routes the analyzer to the RF port"
+    if "noise_figure" in kinds:
+        roles["nsdc"] = "the noise_figure reading drives the noise source ([noise_source])"
+        roles["switch"] = ("the noise_figure reading's system calibration fits the "
+                           "calibration thru (switch channel thru)")
     return roles
 
 

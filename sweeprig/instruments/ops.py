@@ -123,6 +123,9 @@ KIND_OPS: dict[str, dict[str, OpSpec]] = {
             _setting("trace_format", "choice", None, "trace data format",
                      required=False, choices=("ascii", "real32")),
             _setting("marker_on", "bool", None, "marker 1 on", required=False),
+            _setting("detector", "choice", None, "trace detector: sample (log envelope) or "
+                     "rms (power; for noise readings)", required=False,
+                     choices=("sample", "rms")),
             OpSpec("sweep", "action", "start one sweep (all averages) and wait for it"),
             OpSpec("sweep_time", "query", "time of one sweep, s", reply="float", required=False),
             OpSpec("marker_level", "query", "level at a frequency, dBm (value: Hz)",

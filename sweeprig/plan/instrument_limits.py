@@ -18,6 +18,7 @@ from sweeprig.instruments.profile import DEFAULT_PROFILE_FOR_KIND, Profile, load
 ROLE_KINDS: dict[str, str] = {
     "rf": "source", "rf2": "source", "lo": "source", "sa": "analyzer", "pm": "powermeter",
     "dc": "supply", "chamber": "chamber", "switch": "switch", "simctl": "simctl",
+    "nsdc": "supply",
 }
 """The instrument kind each bench role takes (a profile of another kind is refused)."""
 
@@ -73,6 +74,12 @@ def bench_bounds(bench: Bench, role: str) -> dict[str, tuple[Bound, ...]]:
             _bench_bound(bench, ("limits", "part", "supply_max"), lim.part.supply_max, "max")]
         found["current_limit"] = [_bench_bound(bench, ("limits", "supply_max_current"),
                                                lim.supply_max_current, "max")]
+    elif role == "nsdc" and bench.noise_source is not None:
+        ns = bench.noise_source
+        key = ("noise_source", "supply_limit" if ns.supply_limit is not None else "drive_voltage")
+        found["voltage"] = [_bench_bound(bench, key, ns.voltage_limit_v, "max")]
+        found["current_limit"] = [_bench_bound(bench, ("noise_source", "current_limit"),
+                                               ns.current_limit, "max")]
     elif role == "chamber":
         found["setpoint"] = [
             _bench_bound(bench, ("limits", "chamber_max"), lim.chamber_max, "max"),

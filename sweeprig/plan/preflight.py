@@ -161,6 +161,9 @@ def check_roles(sequence: Sequence, bench: Bench) -> None:
                 where=bench.where(("roles",)),
                 fix=f"add [roles.{role}] with resource = ... and profile = ... to the bench file",
             )
+    from sweeprig.plan.noise_check import check_noise_figure
+
+    check_noise_figure(sequence, bench)
 
 
 def check_supply(sequence: Sequence, bench: Bench) -> list[str]:

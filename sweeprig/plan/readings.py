@@ -91,10 +91,11 @@ class Reading:
 
     ``name``: unique within the point (e.g. ``wanted``, ``im3.lower``, ``mxn.2x-1``,
     ``im3.lower.att10`` for the attenuation-check repeat). ``kind``: the sequence vocabulary.
-    ``instrument``: "sa", "pm" or "dc". ``port``: DUT port the analyzer reads ("if", "rf",
-    "lo"), None for pm/dc. ``freq_hz``: product frequency (for pm: the RF frequency, for the
-    sensor's calibration factor). ``orders``: multipliers of (LO, RF1[, RF2]) whose
-    |Σ orders·f| is ``freq_hz``. ``rf_retune_hz``: set the RF source here for this reading
+    ``instrument``: "sa", "pm", "dc" or "noise" (a noise-figure reading: the noise source and
+    the analyzer, :mod:`sweeprig.engine.noise_figure`). ``port``: DUT port the analyzer reads
+    ("if", "rf", "lo"), None for pm/dc. ``freq_hz``: product frequency (for pm: the RF
+    frequency, for the sensor's calibration factor). ``orders``: multipliers of (LO, RF1[, RF2])
+    whose |Σ orders·f| is ``freq_hz``. ``rf_retune_hz``: set the RF source here for this reading
     only (image response), then back. ``attenuation_check``: this is the +10 dB repeat of
     ``repeat_of``. ``expected_dbm``: predicted level at the analyzer input, None if unknown.
     ``known_hz``: the other lines the plan expects at this port (tones, leakage, the other
@@ -298,6 +299,10 @@ class ReadingPlanner:
                                   None, None))
             elif kind == "supply_current":
                 out.append(Reading(name=base, kind=kind, instrument="dc"))
+                continue
+            elif kind == "noise_figure":  # hot/cold noise at the IF: sweeprig.engine.noise_figure
+                out.append(Reading(name=base, kind=kind, instrument="noise", port="if",
+                                   freq_hz=wanted_hz, orders=(m, n)))
                 continue
             elif kind == "input_power":
                 out.append(Reading(name=base, kind=kind, instrument="pm", freq_hz=d.rf_freq_hz,

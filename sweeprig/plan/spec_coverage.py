@@ -56,6 +56,7 @@ HOW_TO_MEASURE: dict[str, str] = {
     "sideband_suppression_dbc": 'an upconverter study reading "wanted" and "sideband"',
     "lo_suppression_dbc": 'an upconverter study reading "wanted" and "lo_at_output"',
     "lo_leakage_dbm": 'an upconverter study reading "lo_at_output"',
+    "noise_figure_db": 'a study reading "noise_figure"',
 }
 
 

@@ -99,9 +99,12 @@ class Plot:
 
 def all_plots(run: RunFigures) -> list[Plot]:
     """Every plot the run has data for, in report order."""
+    from sweeprig.report.noise_plot import noise_figure_plot  # it builds on this module
+
     makers: tuple[Callable[[RunFigures], Plot | None], ...] = (
         gain_vs_frequency, compression_curves, figures_vs_frequency, two_tone_plot,
-        intermod_dbc_plot, gain_vs_lo_drive, isolation_vs_frequency, spur_chart, soak_curves,
+        intermod_dbc_plot, gain_vs_lo_drive, isolation_vs_frequency, spur_chart,
+        noise_figure_plot, soak_curves,
     )
     return [p for p in (make(run) for make in makers) if p is not None]
 

@@ -141,7 +141,10 @@ class SweepSettings:
     """One sweep's settings. ``start_hz == stop_hz`` is zero span at that frequency.
 
     ``averages`` is the number of sweeps averaged (1: no averaging). ``vbw_hz`` below
-    ``rbw_hz`` smooths the noise (and slows the sweep).
+    ``rbw_hz`` smooths the noise (and slows the sweep). ``detector``: ``"sample"`` (the
+    log-detected envelope, log-averaged; the simulator shows its mean with the log bias
+    removed, see :func:`_noise_offsets_db`) or ``"rms"`` (the power detector: each point is
+    the mean power of the samples it spans, and averaging is in power).
     """
 
     start_hz: float
@@ -152,6 +155,7 @@ class SweepSettings:
     attenuation_db: float = 10.0
     ref_level_dbm: float = 0.0
     averages: int = 1
+    detector: str = "sample"
 
     @classmethod
     def centered(cls, center_hz: float, span_hz: float, **kwargs: float | int) -> SweepSettings:
@@ -183,6 +187,9 @@ class InputSpectrum:
 
     lines: tuple[tuple[float, float], ...] = ()
     noise_dbm_per_hz: NoiseDensity = -math.inf
+    #: Total noise power arriving across the analyzer's input band, dBm (it loads the first
+    #: mixer like a line of that power; -inf: negligible).
+    wideband_noise_dbm: float = -math.inf
 
     def noise_at(self, freqs_hz: ArrayLike) -> FloatArray:
         """Input noise density at ``freqs_hz``, dBm/Hz."""
@@ -515,8 +522,20 @@ def simulate_sweep(
     freqs = settings.freqs_hz()
     line_f, line_dbm, mixer_total_dbm = _displayed_arrays(spectrum.lines, settings, params)
     signal_mw = _signal_mw_fn(line_f, line_dbm, settings.rbw_hz, params.amplitude_error_db)
+    noise_gain = 1.0
+    if math.isfinite(spectrum.wideband_noise_dbm):
+        # Wideband noise loads the first mixer like a line: the same soft compression law as
+        # first_mixer (a chosen model, no source), applied to the input noise it displays.
+        noise_at_mixer_mw = 10.0 ** ((spectrum.wideband_noise_dbm - settings.attenuation_db)
+                                     / 10.0)
+        total_mw = noise_at_mixer_mw + (10.0 ** (mixer_total_dbm / 10.0)
+                                        if math.isfinite(mixer_total_dbm) else 0.0)
+        pc_mw = 10.0 ** (params.p1db_dbm / 10.0) / (10.0**0.1 - 1.0)
+        noise_gain = 1.0 / (1.0 + total_mw / pc_mw)
+        mixer_total_dbm = _mw_to_dbm_scalar(total_mw)
     noise_mw = _noise_mw_fn(spectrum, settings, params, line_f, line_dbm,
-                            span_hz=(settings.start_hz, settings.stop_hz))
+                            span_hz=(settings.start_hz, settings.stop_hz),
+                            input_gain=noise_gain)
     offsets_db = _noise_offsets_db(settings, rng)
     trace = _mw_to_dbm(signal_mw(freqs) + noise_mw(freqs) * 10.0 ** (offsets_db / 10.0))
     return SweepResult(
@@ -574,10 +593,11 @@ def _signal_mw_fn(
 def _noise_mw_fn(
     spectrum: InputSpectrum, settings: SweepSettings, params: AnalyzerParams,
     line_f: FloatArray = _EMPTY, line_dbm: FloatArray = _EMPTY,
-    span_hz: tuple[float, float] | None = None,
+    span_hz: tuple[float, float] | None = None, input_gain: float = 1.0,
 ) -> Callable[[FloatArray], FloatArray]:
     """Mean displayed noise power (mW) as a function of f (Hz): DANL plus input noise plus
-    reciprocal mixing of the displayed lines (those that can show within ``span_hz``)."""
+    reciprocal mixing of the displayed lines (those that can show within ``span_hz``).
+    ``input_gain``: the first mixer's power gain on the input noise (1: not compressed)."""
     own_mw = 10.0 ** (danl_dbm(settings, params) / 10.0)
     enbw_hz = GAUSSIAN_ENBW_PER_RBW * settings.rbw_hz
     error = 10.0 ** (params.amplitude_error_db / 10.0)
@@ -588,7 +608,8 @@ def _noise_mw_fn(
         density_mw = 10.0 ** (spectrum.noise_at(freqs_hz) / 10.0)
         # The noise figure is defined with a source at T0, so the DANL already holds the kT0
         # of a matched input; only the excess above kT0 adds (definition of F; Pozar).
-        excess_mw = np.maximum(density_mw - kt0_mw_per_hz, 0.0) * enbw_hz * error
+        excess_mw = (np.maximum(density_mw - kt0_mw_per_hz, 0.0) * enbw_hz * error
+                     * input_gain)
         total = own_mw + excess_mw
         if reciprocal is not None:
             total = total + reciprocal(freqs_hz)
@@ -683,8 +704,18 @@ def _noise_offsets_db(settings: SweepSettings, rng: np.random.Generator) -> Floa
     One sweep: 10·log10(E) + 2.507 dB with E ~ Exp(1) (log-detected noise, 5.57 dB rms).
     N averaged sweeps (log averaging) keep the mean and divide the spread by about sqrt(N).
     A VBW narrower than the RBW smooths like RBW/VBW averages (common practice, no source).
+
+    RMS (power) detector: each point is the mean power of the independent samples it spans,
+    about ENBW × (sweep time / points) of them (a noise bandwidth B gives B independent
+    samples per second, the time-bandwidth rule; common practice, no source), and N averaged
+    sweeps multiply that count; the mean of n Exp(1) powers is Gamma(n, 1/n) distributed
+    (standard result). The power mean is unbiased: no log correction applies.
     """
     n = settings.points
+    if settings.detector == "rms":
+        per_point = GAUSSIAN_ENBW_PER_RBW * settings.rbw_hz * sweep_time_s(settings) / n
+        samples = max(1.0, per_point) * max(1, int(settings.averages))
+        return 10.0 * np.log10(rng.gamma(samples, 1.0 / samples, n))
     averages = max(1, int(settings.averages))
     video_factor = max(1.0, settings.rbw_hz / max(settings.vbw_hz, 1e-12))
     if averages <= _EXACT_AVERAGE_LIMIT and video_factor == 1.0:

@@ -76,7 +76,9 @@ its line by φ0 − 2π·f·τ, seeded from ``seed``). What is truly at each por
 :mod:`sweeprig.sim.truth`.
 
 Roles served: ``rf``, ``rf2``, ``lo`` (sources), ``sa`` (analyzer), ``pm`` (power meter),
-``dc`` (supply), ``chamber``, ``switch``, ``simctl``.
+``dc`` (supply), ``chamber``, ``switch``, ``simctl``, ``nsdc`` (the supply driving the
+noise source of ``[noise_source]``: ``enr`` points (frequency, enr) of its true ENR,
+``drive_on`` volts; ``[[interferers]]`` frequency and level plant a line on the IF path).
 """
 
 from __future__ import annotations
@@ -304,6 +306,39 @@ class UnpoweredSpec(Frozen):
     below: Annotated[Voltage, Field(ge=0.0)] = 0.5
 
 
+class EnrPointSpec(Frozen):
+    """One point of the simulated noise source's true ENR curve."""
+
+    frequency: Annotated[Frequency, Field(gt=0.0)]
+    enr: LevelDb
+
+
+class NoiseSourceSpec(Frozen):
+    """The simulated noise source at the DUT RF input plane, driven by the ``nsdc`` supply
+    (see :mod:`sweeprig.sim.noise_source`). ``enr``: its true ENR curve (default: the
+    shipped demo source's); ``drive_on``: the drive voltage above which it is hot."""
+
+    enr: tuple[EnrPointSpec, ...] | None = None
+    drive_on: Annotated[Voltage, Field(gt=0.0)] = 20.0
+
+    @field_validator("enr")
+    @classmethod
+    def _rising(cls, points: tuple[EnrPointSpec, ...] | None) -> tuple[EnrPointSpec, ...] | None:
+        if points is not None and (len(points) < 1 or any(
+                b.frequency <= a.frequency for a, b in itertools.pairwise(points))):
+            raise PydanticCustomError("semantic", "{what}", {
+                "what": "the ENR points are empty or their frequencies do not rise",
+                "fix": "list at least one point, from the lowest frequency to the highest"})
+        return points
+
+
+class InterfererSpec(Frozen):
+    """A line picked up on the IF path ahead of the analyzer (a planted interferer)."""
+
+    frequency: Annotated[Frequency, Field(gt=0.0)]
+    level: Power
+
+
 class DutSpec(Frozen):
     """How the part sits on the bench."""
 
@@ -325,6 +360,8 @@ class SimBenchDescription(Frozen):
     power_meter: PowerMeterSpec = PowerMeterSpec()
     chamber: ChamberSpec = ChamberSpec()
     dut: DutSpec = DutSpec()
+    noise_source: NoiseSourceSpec | None = None
+    interferers: tuple[InterfererSpec, ...] = ()
     faults: tuple[FaultSpec, ...] = ()
 
     @field_validator("faults")
@@ -369,7 +406,20 @@ class SimBenchDescription(Frozen):
                 if (spec := getattr(self.sources.lowpass, role)) is not None
             ),
             spur_phase_seed=self.seed,
+            noise_source=self._noise_source_model(),
+            interferers=tuple((i.frequency, i.level) for i in self.interferers),
         )
+
+    def _noise_source_model(self) -> Any:
+        from sweeprig.sim.noise_source import DEFAULT_ENR_POINTS, NoiseSourceModel
+
+        spec = self.noise_source
+        if spec is None:
+            return None
+        points = (DEFAULT_ENR_POINTS if spec.enr is None
+                  else tuple((p.frequency, p.enr) for p in spec.enr))
+        return NoiseSourceModel(enr_points=points, drive_on_v=spec.drive_on,
+                                ambient_c=self.chamber.ambient)
 
     def analyzer_params(self) -> AnalyzerParams:
         """The analyzer's own figures, its product phases seeded by ``seed``."""
@@ -493,6 +543,7 @@ def build_sim_instruments(
         for k, role in enumerate(("rf", "rf2", "lo"))
     }
     supply = DcSupply(clock, load=world.supply_current_a)
+    ns_supply = DcSupply(clock, "PS30-30002", load=world.noise_source_current_a)
     chamber = ThermalChamber(clock, ambient_c=desc.chamber.ambient,
                              probe_tau_s=desc.chamber.probe_lag, drift_tau_s=desc.chamber.drift)
     switch = RfSwitch(clock)
@@ -503,11 +554,11 @@ def build_sim_instruments(
                        relative_noise=desc.power_meter.noise,
                        zero_offset_dbm=desc.power_meter.zero_offset)
     world.connect(rf=sources["rf"], rf2=sources["rf2"], lo=sources["lo"], supply=supply,
-                  chamber=chamber, switch=switch)
+                  chamber=chamber, switch=switch, ns_supply=ns_supply)
     truth_line, truth_noise = _truth_hooks(world, analyzer)
     instruments: dict[str, ScpiInstrument] = {
         **sources, "sa": analyzer, "pm": meter, "dc": supply, "chamber": chamber,
-        "switch": switch,
+        "switch": switch, "nsdc": ns_supply,
         "simctl": SimControl(clock, truth_line=truth_line, truth_noise=truth_noise),
     }
     return SimInstruments(world, {r: instruments[r] for r in ROLES}, clock, desc)

@@ -7,7 +7,9 @@ from __future__ import annotations
 from pathlib import Path
 
 #: Roles served, in their fixed order (consecutive ports from ``--port-base``).
-ROLES: tuple[str, ...] = ("rf", "rf2", "lo", "sa", "pm", "dc", "chamber", "switch", "simctl")
+ROLES: tuple[str, ...] = (
+    "rf", "rf2", "lo", "sa", "pm", "dc", "chamber", "switch", "simctl", "nsdc",
+)
 BENCHES_DIR = Path(__file__).resolve().parent / "benches"
 PARTS_DIR = Path(__file__).resolve().parent / "parts"
 #: Clients one instrument serves at once by default; one more is refused.

@@ -46,6 +46,7 @@ import numpy as np
 
 from sweeprig.sim.analyzer_display import KT0_DBM_PER_HZ, InputSpectrum
 from sweeprig.sim.mixer.types import MixerResponse, OperatingPoint, Product, ToneInput
+from sweeprig.sim.noise_source import NoiseSourceModel, density_mw_per_hz, mixer_output_density_mw
 
 AMBIENT_C = 23.0
 _NO_SIGNAL_DBM = -200.0
@@ -182,6 +183,12 @@ class WorldConfig:
     source_filters: tuple[tuple[str, LowPassFilter], ...] = ()
     spur_phase_seed: int = 0
     spur_delay_s: float = 2e-9
+    #: The noise source at the DUT RF input plane (None: none on this bench; the DUT input
+    #: then sits at T0, as before noise sources were modelled).
+    noise_source: NoiseSourceModel | None = None
+    #: Interfering lines picked up on the IF path ahead of the analyzer (a nearby
+    #: transmitter, a switching supply): (Hz, dBm at the analyzer input).
+    interferers: tuple[tuple[float, float], ...] = ()
 
     def source_filter(self, role: str) -> LowPassFilter | None:
         """The low-pass filter at a source's output (``rf``, ``rf2``, ``lo``), or None."""
@@ -235,6 +242,7 @@ class SimWorld:
         self._supply: SupplyView | None = None
         self._chamber: ChamberView | None = None
         self._switch: SwitchView | None = None
+        self._ns_supply: SupplyView | None = None
         self._lock = threading.RLock()
         self._cache: OrderedDict[tuple[object, ...], MixerResponse] = OrderedDict()
         self._inputs: dict[int, tuple[MixerResponse, EvaluationInputs]] = {}
@@ -250,9 +258,12 @@ class SimWorld:
         supply: SupplyView | None = None,
         chamber: ChamberView | None = None,
         switch: SwitchView | None = None,
+        ns_supply: SupplyView | None = None,
     ) -> None:
-        """Attach the instruments' views (any may be absent)."""
+        """Attach the instruments' views (any may be absent). ``ns_supply``: the supply
+        output driving the noise source."""
         with self._lock:
+            self._ns_supply = ns_supply
             self._sources = {"rf": rf, "rf2": rf2, "lo": lo}
             self._supply, self._chamber, self._switch = supply, chamber, switch
             self._cache.clear()
@@ -280,6 +291,28 @@ class SimWorld:
     def sensor_at_lo(self) -> bool:
         """Whether the power-meter sensor is at the DUT LO input plane (switch channel 5)."""
         return getattr(self._switch, "sensor_channel", 4) == 5
+
+    def noise_source_on(self) -> bool:
+        """Whether the noise source is driven on (its supply on at or above its drive)."""
+        ns, supply = self.config.noise_source, self._ns_supply
+        if ns is None or supply is None or not supply.output_on:
+            return False
+        return ns.is_on(float(supply.output_voltage_v))
+
+    def noise_source_current_a(self, supply_v: float) -> float:
+        """Current the noise source draws at ``supply_v`` volts, A: a diode with its bias
+        resistor, 45 mA at 28 V and nothing below 5 V (an invented load line, no source)."""
+        if self.config.noise_source is None or supply_v <= 5.0:
+            return 0.0
+        return 0.045 * (supply_v - 5.0) / 23.0
+
+    def input_noise_temperature_k(self, freq_hz: np.ndarray) -> np.ndarray:
+        """Noise temperature at the DUT RF input plane, K (T0 without a noise source)."""
+        ns = self.config.noise_source
+        f = np.asarray(freq_hz, dtype=float)
+        if ns is None:
+            return np.full(f.shape, 290.0)
+        return ns.temperature_k(f, self.noise_source_on())
 
     def probe_temperature_c(self) -> float:
         """Chamber probe temperature (ambient without a chamber), degC."""
@@ -417,8 +450,59 @@ class SimWorld:
                 extra = [(s.freq_hz, s.amplitude * 10.0 ** (-cable.at(s.freq_hz) / 20.0))
                          for s in spurs]
                 freq, level = add_coherent_arrays(freq, level, extra)
+        if channel == SwitchChannel.IF and self.config.interferers:
+            freq = np.concatenate([freq, [f for f, _ in self.config.interferers]])
+            level = np.concatenate([level, [p for _, p in self.config.interferers]])
         lines = tuple(zip(freq.tolist(), level.tolist(), strict=True))
+        if channel == SwitchChannel.IF and self.config.noise_source is not None:
+            return self._noise_source_spectrum(response, lines, cable)
         return InputSpectrum(lines, _lossy_noise(noise_dbm_per_hz, cable))
+
+    def _noise_source_spectrum(
+        self, response: MixerResponse, lines: tuple[tuple[float, float], ...], cable: CableLoss
+    ) -> InputSpectrum:
+        """The IF path's spectrum on a bench with a noise source at the DUT RF input: the
+        thru passes its noise temperature; the part converts it from the signal and image
+        bands (:func:`sweeprig.sim.noise_source.mixer_output_density_mw`)."""
+        lo = self.lo_input()
+        gain_db = response.notes.get("conversion_gain_db")
+        in_port = getattr(self.part, "input_port", None)
+        out_port = getattr(self.part, "output_port", None)
+        thru = self.thru_fitted()
+        part_mw = 10.0 ** (response.if_noise_dbm_per_hz / 10.0)
+        converts = (not thru and lo is not None and gain_db is not None
+                    and math.isfinite(gain_db) and in_port is not None and out_port is not None
+                    and getattr(self.part, "conversion", "down") == "down")
+
+        def at_port_mw(freqs_hz: np.ndarray) -> np.ndarray:
+            f = np.asarray(freqs_hz, dtype=float)
+            if thru:
+                return density_mw_per_hz(self.input_noise_temperature_k(f))
+            if not converts:
+                return np.full(f.shape, part_mw)
+            assert lo is not None and gain_db is not None
+            f_s, f_i = lo.freq_hz + f, np.abs(lo.freq_hz - f)
+            mid = 10.0 ** (gain_db / 10.0) * np.asarray(out_port.magnitude(f)) ** 2
+            g_s = mid * np.asarray(in_port.magnitude(f_s)) ** 2
+            g_i = mid * np.asarray(in_port.magnitude(f_i)) ** 2
+            return mixer_output_density_mw(
+                part_mw, self.input_noise_temperature_k(f_s),
+                self.input_noise_temperature_k(f_i), g_s, g_i)
+
+        def density(freqs_hz: np.ndarray) -> np.ndarray:
+            f = np.asarray(freqs_hz, dtype=float)
+            gain = 10.0 ** (-np.broadcast_to(_cable_loss_db(cable, f), f.shape) / 10.0)
+            kt0_mw = 10.0 ** (KT0_DBM_PER_HZ / 10.0)
+            return 10.0 * np.log10(at_port_mw(f) * gain + kt0_mw * (1.0 - gain))
+
+        # The noise loads the analyzer's first mixer over the band it reaches it in: the
+        # output port's low-pass noise bandwidth, π/2 times a first-order corner (standard
+        # result), or the analyzer's whole input range.
+        corner = None if thru or out_port is None else getattr(out_port, "lowpass_hz", None)
+        band_hz = 13.6e9 if corner is None else 0.5 * math.pi * corner
+        centre = float(corner) / 2.0 if corner is not None else 1e9
+        wide = float(10.0 ** (density(np.array([centre]))[0] / 10.0)) * band_hz
+        return InputSpectrum(lines, density, wideband_noise_dbm=10.0 * math.log10(wide))
 
     def source_spurs(self, role: str) -> list[tuple[float, float]]:
         """A source's spurious lines at its DUT port: (frequency Hz, power dBm), after its

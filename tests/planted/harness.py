@@ -73,6 +73,7 @@ DEFAULT_TOLERANCE_DB: Mapping[str, float] = {
     "rf_if_isolation": 0.5,
     "supply_current": 1e-3,
     "spur_dbm": 0.5,
+    "noise_figure": 0.2,
 }
 #: Below this supply (V) the simulated bench's part is unpowered (sim-bench ``[dut]
 #: unpowered.below``, default 0.5 V): it leaks, it does not convert.
@@ -205,6 +206,8 @@ def truth_of(result: CaseResult, figure: Figure) -> float | None:
     if not figure.points or figure.name not in DEFAULT_TOLERANCE_DB:
         return None
     assert result.run is not None
+    if figure.name == "noise_figure":
+        return _noise_figure_truth(result, figure)
     supply_v = float(_point_row(result.run, figure.points[0])["supply_v"])
     if not supply_v >= UNPOWERED_BELOW_V:  # NaN too: no supply set
         return None  # the bench's unpowered part is not the model: no truth (flags judge it)
@@ -234,6 +237,24 @@ def truth_of(result: CaseResult, figure: Figure) -> float | None:
         case "spur_dbm":
             return _own_line_dbm(result, figure)
     return None
+
+
+def _noise_figure_truth(result: CaseResult, figure: Figure) -> float:
+    """The model's noise figure at the figure's point (sweeprig.sim.noise_truth), of the
+    sideband the figure states, from the figure's own conditions (a low-side LO at the IF;
+    the die at the chamber's ambient when the case sets no temperature)."""
+    from sweeprig.sim.noise_truth import part_noise_figure
+
+    description = load_sim_bench_description(result.case.sim_bench)
+    part = prepare_part(description)
+    c = figure.conditions
+    rf_hz = float(c["rf_freq_hz"])
+    truth = part_noise_figure(part, temperature_c=float(c.get("temperature_c",
+                                                             description.chamber.ambient)),
+                              supply_v=float(c["supply_v"]),
+                              lo_freq_hz=rf_hz - float(c["if_freq_hz"]),
+                              lo_power_dbm=float(c["lo_power_dbm"]), rf_freq_hz=rf_hz)
+    return truth.ssb_db if c.get("sideband") == "ssb" else truth.dsb_db
 
 
 def _part_and_op(result: CaseResult, point: int) -> tuple[MixerPart, OperatingPoint, pd.Series]:

@@ -125,6 +125,7 @@ class SpectrumAnalyzer(ScpiInstrument):
             attenuation_db=self.value("att_db"),
             ref_level_dbm=self.value("ref_level_dbm"),
             averages=int(self.value("avg_count")) if averaging else 1,
+            detector="rms" if str(self.value("detector")).upper() == "RMS" else "sample",
         )
 
     def sweep_now(self) -> SweepResult:
@@ -194,6 +195,10 @@ class SpectrumAnalyzer(ScpiInstrument):
         add(Setting("marker_x_hz", "CALCulate:MARKer[1-4]:X", "float",
                     default=0.5 * (CENTER_MIN_HZ + FREQ_MAX_HZ), unit=freq,
                     minimum=FREQ_MIN_HZ, maximum=FREQ_MAX_HZ))
+        # The trace detector (SCPI-99 SENSe:DETector): SAMPle, the log envelope (log
+        # averaging); RMS, the power detector for noise readings.
+        add(Setting("detector", "[SENSe]:DETector[:FUNCtion]", "enum", default="SAMPle",
+                    choices=("SAMPle", "RMS")))
         add(Setting("format", "FORMat[:DATA]", "enum", default="ASCii",
                     choices=("ASCii", "REAL,32")))
         add(Setting("byte_order", "FORMat:BORDer", "enum", default="NORMal",

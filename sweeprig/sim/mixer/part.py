@@ -115,6 +115,9 @@ from sweeprig.sim.names import shipped_parts as shipped_parts
 from sweeprig.units import example, parse_quantity
 
 MAX_RF_TONES = 3
+#: The least SSB noise figure of a double-balanced mixer: the image band converts with the
+#: signal's gain, so F_SSB = 2·F_DSB ≥ 2 (standard result, field notes: SSB = DSB + 3.01 dB).
+SSB_NOISE_FIGURE_FLOOR_DB = 10.0 * math.log10(2.0)
 _CACHE_LIMIT = 256
 _AMP_BUCKET_DB = 1.0
 
@@ -244,6 +247,16 @@ class IsolationTable(_Table):
 
 class NoiseTable(_Table):
     figure: _quantity("level_db", at_least=0.0)
+
+    @model_validator(mode="after")
+    def _physical(self) -> NoiseTable:
+        if self.figure < SSB_NOISE_FIGURE_FLOOR_DB:
+            raise _semantic(
+                f"noise figure {self.figure:g} dB is below {SSB_NOISE_FIGURE_FLOOR_DB:.2f} dB: "
+                "a double-balanced mixer converts the image band's noise with the signal's "
+                "gain, so its single-sideband figure is at least 3.01 dB (SSB = DSB + 3.01 dB)",
+                "write the single-sideband noise figure, 3.01 dB or more")
+        return self
     figure_tempco: _number("dB per degC") = 0.0
     lo_nominal: _quantity("power") | None = None
     switch_share: Annotated[_number("a fraction from 0 to 1"), Field(ge=0.0, le=1.0)] = 0.3

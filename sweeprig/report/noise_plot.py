@@ -1,0 +1,79 @@
+"""The report's noise-figure plot: the figure versus RF frequency with its k = 2 uncertainty,
+one line per temperature and LO drive, and versus LO drive at each temperature (the band's
+mean), the noise-figure limits shaded."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pandas as pd
+
+from sweeprig.analysis.reduce import RunFigures
+from sweeprig.report.plots import (
+    LINE_STYLES,
+    Plot,
+    _corners,
+    _figure,
+    _finish,
+    _legend,
+    _limit_lines,
+    temperature_colour,
+)
+
+
+def _frame(run: RunFigures) -> pd.DataFrame:
+    rows = [{
+        "value": f.value, "u": f.uncertainty_db, "flagged": bool(f.flags),
+        "sideband": f.conditions.get("sideband", "dsb"),
+        "temperature_c": f.conditions.get("temperature_c", np.nan),
+        "lo_power_dbm": f.conditions.get("lo_power_dbm", np.nan),
+        "rf_freq_hz": f.conditions.get("rf_freq_hz", np.nan),
+        "study": str(f.conditions.get("study", "")),
+    } for f in run.figures_named("noise_figure") if math.isfinite(f.value)]
+    return pd.DataFrame(rows, columns=["value", "u", "flagged", "sideband", "temperature_c",
+                                       "lo_power_dbm", "rf_freq_hz", "study"])
+
+
+def noise_figure_plot(run: RunFigures) -> Plot | None:
+    """Noise figure versus RF frequency and versus LO drive (None without noise figures)."""
+    table = _frame(run)
+    if table.empty:
+        return None
+    sideband = "/".join(sorted({str(s).upper() for s in table["sideband"]}))
+    fig, (ax_f, ax_lo) = _figure(1, 2, height_in=4.2)
+    drives = sorted(table["lo_power_dbm"].dropna().unique())
+    for (temp, lo), rows in table.groupby(["temperature_c", "lo_power_dbm"], dropna=False):
+        rows = rows.sort_values("rf_freq_hz")
+        t = float(temp) if math.isfinite(float(temp)) else None
+        style = LINE_STYLES[drives.index(lo) % len(LINE_STYLES)] if lo in drives else "-"
+        label = (f"{t:g} °C, " if t is not None else "") + f"LO {float(lo):+g} dBm"
+        ax_f.errorbar(rows["rf_freq_hz"] / 1e9, rows["value"], yerr=rows["u"],
+                      linestyle=style, marker="o", markersize=3, linewidth=1.2, capsize=2,
+                      color=temperature_colour(t), label=label)
+        flagged = rows[rows["flagged"]]
+        if len(flagged):
+            ax_f.plot(flagged["rf_freq_hz"] / 1e9, flagged["value"], "x", color="black",
+                      markersize=6, linestyle="none")
+    for temp, rows in table.groupby("temperature_c", dropna=False):
+        t = float(temp) if math.isfinite(float(temp)) else None
+        mean = rows.groupby("lo_power_dbm")["value"].mean()
+        ax_lo.plot(mean.index, mean.to_numpy(), marker="o", markersize=3.5, linewidth=1.4,
+                   color=temperature_colour(t),
+                   label=f"{t:g} °C" if t is not None else "room")
+    studies = sorted(set(table["study"]))
+    for ax in (ax_f, ax_lo):
+        _limit_lines(ax, run, "noise_figure", studies, band=True)
+        _legend(ax, fontsize=7)
+    ax_f.set_xlabel("RF frequency (GHz)")
+    ax_f.set_ylabel(f"noise figure, {sideband} (dB)")
+    ax_lo.set_xlabel("LO drive (dBm)")
+    ax_lo.set_ylabel(f"noise figure, {sideband}, band mean (dB)")
+    return _finish(fig, "noise_figure", "Noise figure (Y-factor method)",
+                   f"{sideband} noise figure with second-stage correction; bars: expanded "
+                   "uncertainty (k = 2) from the ENR, mismatch, linearity, second-stage and "
+                   "jitter terms; ×: flagged (see the flags). Right: the band's mean versus "
+                   "LO drive, one line per temperature; a switching mixer's noise figure rises "
+                   "as its LO drive falls.",
+                   corners=_corners(table, ("temperature_c", "lo_power_dbm")),
+                   corner_keys=("temperature_c", "lo_power_dbm"), studies=studies)
