@@ -39,6 +39,7 @@ from sweeprig.formats.pathloss import (
     read_csv_loss,
     read_touchstone_loss,
 )
+from sweeprig.formats.sensor import SensorSpec
 from sweeprig.formats.toml_locate import KeyPath
 from sweeprig.transport.backend import bench_file_fix, bench_file_problem
 from sweeprig.transport.resources import ResourceNameError, parse_resource
@@ -358,6 +359,9 @@ class Bench(LocatedFile):
         default_factory=SourcesFigures,
         description="the sources' stated harmonics, for the planner's predictions")
     uncertainty: UncertaintySpecs = Field(default_factory=UncertaintySpecs)
+    sensor: SensorSpec = Field(default_factory=SensorSpec,
+                               description="the power-meter sensor: calibration factor, "
+                               "zeroing, averages (see sweeprig.formats.sensor)")
 
     _losses: dict[str, PathLoss] = PrivateAttr(default_factory=dict)
 

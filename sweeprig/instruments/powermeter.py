@@ -18,6 +18,21 @@ class PowerMeterDriver(Driver):
         """Number of averages (if the profile supports it)."""
         return self.set_value("averages", count)
 
+    @property
+    def can_zero(self) -> bool:
+        """Whether the profile can zero the sensor (action ``zero``)."""
+        return self.profile.has("zero")
+
+    def zero(self) -> None:
+        """Zero the sensor and wait for it (every RF source must be off first)."""
+        self.do("zero")
+
+    def zeroed(self) -> bool | None:
+        """Whether the last zeroing succeeded, read back (None: the profile cannot say)."""
+        if not self.profile.has("zeroed"):
+            return None
+        return bool(self.ask("zeroed"))
+
     def read_power_dbm(self) -> float:
         """Measure the average power at the sensor, dBm."""
         return float(self.ask("power"))

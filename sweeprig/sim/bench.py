@@ -49,6 +49,9 @@ optional; the values shown are the defaults)::
     cal_factor_error = "0 dB"    # what the sensor's calibration factor leaves, peak vs freq
     noise = 0.002                # relative reading noise of one average
     # zero_offset = "-40 dBm"    # a sensor not zeroed: this power is added to every reading
+    zero_holds = true            # zeroing (CAL:ZERO) removes that offset (false: a faulty sensor)
+    # the sensor's calibration factor itself (sweeprig.sim.instruments.powermeter) is always
+    # there, as on a real sensor: the bench file's [sensor] table corrects it
 
     [chamber]
     ambient = "23 degC"
@@ -285,6 +288,8 @@ class PowerMeterSpec(Frozen):
     noise: Annotated[float, Field(ge=0.0, le=0.1)] = 0.002
     #: A sensor that was not zeroed: this power is added to every reading (absent: zeroed).
     zero_offset: Power | None = None
+    #: Whether zeroing removes that offset (false: a faulty sensor whose zeroing does not take).
+    zero_holds: StrictBool = True
 
 
 class ChamberSpec(Frozen):
@@ -501,7 +506,8 @@ def build_sim_instruments(
     meter = PowerMeter(clock, sense=world.sensed_power_dbm, seed=desc.seed + 1,
                        cal_factor_error_db=desc.power_meter.cal_factor_error,
                        relative_noise=desc.power_meter.noise,
-                       zero_offset_dbm=desc.power_meter.zero_offset)
+                       zero_offset_dbm=desc.power_meter.zero_offset,
+                       zero_holds=desc.power_meter.zero_holds)
     world.connect(rf=sources["rf"], rf2=sources["rf2"], lo=sources["lo"], supply=supply,
                   chamber=chamber, switch=switch)
     truth_line, truth_noise = _truth_hooks(world, analyzer)
