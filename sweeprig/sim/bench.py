@@ -50,6 +50,8 @@ optional; the values shown are the defaults)::
     noise = 0.002                # relative reading noise of one average
     # zero_offset = "-40 dBm"    # a sensor not zeroed: this power is added to every reading
     zero_holds = true            # zeroing (CAL:ZERO) removes that offset (false: a faulty sensor)
+    range_max = "20 dBm"         # above it a reading is not a number (a low-power sensor: lower)
+    offset = "0 dB"              # a display offset left set in the meter, added to every reading
     # the sensor's calibration factor itself (sweeprig.sim.instruments.powermeter) is always
     # there, as on a real sensor: the bench file's [sensor] table corrects it
 
@@ -290,6 +292,10 @@ class PowerMeterSpec(Frozen):
     zero_offset: Power | None = None
     #: Whether zeroing removes that offset (false: a faulty sensor whose zeroing does not take).
     zero_holds: StrictBool = True
+    #: The sensor's top of range: above it a reading is not a number (a low-power sensor).
+    range_max: Power = 20.0
+    #: A display offset left set in the meter: added to every reading.
+    offset: LevelDb = 0.0
 
 
 class ChamberSpec(Frozen):
@@ -507,7 +513,9 @@ def build_sim_instruments(
                        cal_factor_error_db=desc.power_meter.cal_factor_error,
                        relative_noise=desc.power_meter.noise,
                        zero_offset_dbm=desc.power_meter.zero_offset,
-                       zero_holds=desc.power_meter.zero_holds)
+                       zero_holds=desc.power_meter.zero_holds,
+                       range_max_dbm=desc.power_meter.range_max,
+                       reading_offset_db=desc.power_meter.offset)
     world.connect(rf=sources["rf"], rf2=sources["rf2"], lo=sources["lo"], supply=supply,
                   chamber=chamber, switch=switch)
     truth_line, truth_noise = _truth_hooks(world, analyzer)

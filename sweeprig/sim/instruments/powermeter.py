@@ -73,6 +73,8 @@ class PowerMeter(ScpiInstrument):
         relative_noise: float = RELATIVE_NOISE,
         zero_offset_dbm: float | None = None,
         zero_holds: bool = True,
+        range_max_dbm: float = RANGE_MAX_DBM,
+        reading_offset_db: float = 0.0,
     ) -> None:
         super().__init__(clock, Identity("Tarnwick Labs", "TW-PM18", serial, "1.0"))
         self.sense = sense
@@ -80,6 +82,8 @@ class PowerMeter(ScpiInstrument):
         self.relative_noise = float(relative_noise)
         self.zero_offset_mw = 0.0 if zero_offset_dbm is None else 10.0 ** (zero_offset_dbm / 10.0)
         self.zero_holds = bool(zero_holds)
+        self.range_max_dbm = float(range_max_dbm)
+        self.reading_offset_db = float(reading_offset_db)
         self.zeroings = 0
         self._zeroed = zero_offset_dbm is None
         self._rng = random.Random(seed)
@@ -99,7 +103,7 @@ class PowerMeter(ScpiInstrument):
             count = int(self.value("average_count"))
             self.clock.sleep(TIME_PER_AVERAGE_S * count)
             true_dbm = float(self.sense())
-            if true_dbm > RANGE_MAX_DBM:
+            if true_dbm > self.range_max_dbm:
                 return math.nan
             root_n = math.sqrt(count)
             true_mw = 10.0 ** (true_dbm / 10.0)
@@ -113,7 +117,7 @@ class PowerMeter(ScpiInstrument):
                 + self.zero_offset_mw
             )
             reading_mw = max(abs(reading_mw), 0.01 * floor_mw)
-            return 10.0 * math.log10(reading_mw)
+            return 10.0 * math.log10(reading_mw) + self.reading_offset_db
 
     def cal_factor_residual_db(self, freq_hz: float) -> float:
         """What the sensor's calibration factor at ``freq_hz`` leaves uncorrected, dB: a
@@ -148,7 +152,7 @@ class PowerMeter(ScpiInstrument):
         if math.isnan(reading_dbm):
             self.push_error(
                 -222,
-                f"{cmd.header}? sensor above {format_number(RANGE_MAX_DBM)} dBm; "
+                f"{cmd.header}? sensor above {format_number(self.range_max_dbm)} dBm; "
                 "caution: reduce the power at once, the sensor can be damaged",
             )
             return format_number(SCPI_NAN)
