@@ -255,6 +255,10 @@ def calibrate_sources(
         bench_ops.route("part")
         bench_ops.route("pm_rf", ask=False)
         duration = clock.now() - t0
+        if bench_ops.operator_steps:
+            on_step("every RF output is off: put the cables back as the part needs them "
+                    "(the part's inputs connected, the power sensor away from them) before "
+                    "the run")
     except BaseException:
         safe = _finish(drivers, bench, sim_bench)
         raise
@@ -323,7 +327,7 @@ class _Steps:
         self.iterations: dict[str, list[int]] = {}
         self.zeroed = False
         self._sensor_at: str | None = None  # where the operator last put the sensor
-        self._step = 0
+        self.operator_steps = 0
 
     def _all_off(self) -> None:
         for role in SOURCE_CONNECTIONS:
@@ -347,13 +351,14 @@ class _Steps:
         if self._sensor_at == name:
             return
         self._all_off()  # RF off before anyone touches a cable
-        self._step += 1
-        prompt = (f"step {self._step}: every RF output is off. Now {OPERATOR_STEPS[name]}; "
-                  "press Enter when done (end of input stops the calibration)")
+        self.operator_steps += 1
+        prompt = (f"step {self.operator_steps}: every RF output is off. Now "
+                  f"{OPERATOR_STEPS[name]}; press Enter when done (end of input stops the "
+                  "calibration)")
         if not self.operator(prompt):
             raise SweeprigError(
                 "the calibration was stopped by the operator (end of input) at step "
-                f"{self._step}; every RF output is off and nothing was written",
+                f"{self.operator_steps}; every RF output is off and nothing was written",
                 where="sweeprig calibrate --attended",
                 fix="start the calibration again and answer each step with Enter once the "
                 "cable is moved")

@@ -121,12 +121,14 @@ def test_attended_calibration_asks_the_operator_to_move_the_sensor(tmp_path, sta
         switch.move_by_hand(5 if "LO input plane" in prompt else 4)
         return True
 
+    steps: list[str] = []
     result = calibrate_sources(QUICK, bench, tmp_path / "cal.toml", sim=True, repeats=1,
-                               operator=operator)
+                               operator=operator, on_step=steps.append)
     assert "lo" in result.tables and "lo" not in result.skipped
     assert prompts[0].startswith("step 1: every RF output is off")
     assert any("LO input plane" in p for p in prompts)
     assert any("RF input plane" in p for p in prompts)
+    assert "put the cables back" in steps[-1]
     # The same as the switch measures it.
     routed = calibrate_sources(QUICK, None, tmp_path / "routed.toml", sim=True, repeats=1)
     for a, b in zip(result.tables["lo"][1], routed.tables["lo"][1], strict=True):
