@@ -3,6 +3,8 @@ and write a calibration file for ``sweeprig run --calibration``."""
 
 from __future__ import annotations
 
+import sys
+from collections.abc import Callable
 from datetime import timedelta
 from pathlib import Path
 from typing import Annotated
@@ -24,7 +26,14 @@ the difference is the connection's loss, the source's own level error included. 
 bench's switch can put a thru in the part's place, each output path (IF, RF and LO ports)
 is measured too: the RF source's tone at the DUT RF plane (power meter) minus what the
 analyzer reads. The sweep is repeated (--repeats) for the repeatability. Connections the
-bench cannot reach by itself keep the bench file's typed losses, and the command says which.
+bench cannot reach by itself keep the bench file's typed losses, and the command says which;
+with --attended it asks you instead, step by step, to move the power sensor where the switch
+has no route (every RF output off first), and waits for Enter (end of input stops it, RF off).
+
+The power meter's sensor is zeroed first where the bench file's [sensor] asks for it, and
+each reading is corrected by the sensor's calibration factor ([sensor] cal_factor).
+--levelling sets each source in closed loop until the meter reads the target within
+0.05 dB (a few settings, never above the bench's source limits).
 On every exit the bench is left in its safe state, RF off, the part routed back in.
 
 Caution: RF power can damage the part, the sensor and the analyzer input; check the bench
@@ -56,6 +65,12 @@ def calibrate_command(
         show_default=False)] = None,
     sim_bench: Annotated[str | None, typer.Option(
         "--sim-bench", help="simulated-bench description (file or shipped name)")] = None,
+    levelling: Annotated[bool, typer.Option(
+        "--levelling", help="set each source in closed loop until the meter reads the "
+        "target within 0.05 dB")] = False,
+    attended: Annotated[bool, typer.Option(
+        "--attended", help="ask the operator to move the sensor where the switch has no "
+        "route (reads Enter from standard input; end of input stops)")] = False,
 ) -> None:
     from sweeprig.engine.calibrate import calibrate_sources
 
@@ -73,7 +88,8 @@ def calibrate_command(
         result = calibrate_sources(
             sequence, bench, out, sim=sim, repeats=repeats,
             valid_for=timedelta(days=valid_days), temperature_c=temperature,
-            sim_description=sim_bench,
+            sim_description=sim_bench, levelling=levelling,
+            operator=_operator(console) if attended else None,
             on_step=lambda message: console.print(Text(f"  {message}", style="dim")))
     except SweeprigError as exc:
         raise fail(exc) from None
@@ -83,6 +99,9 @@ def calibrate_command(
             f"{connection}: {len(freqs)} frequencies, loss {min(losses):.3f} to "
             f"{max(losses):.3f} dB" + (f", repeats within {spread:.3f} dB (1 sigma)"
                                        if spread is not None else "")))
+    for connection, counts in result.level_iterations.items():
+        console.print(Text(f"{connection}: levelled in {min(counts)} to {max(counts)} "
+                           f"settings (mean {sum(counts) / len(counts):.1f})"))
     for connection, why in result.skipped.items():
         console.print(Text(f"{connection}: not calibrated: {why}", style="yellow"))
     if result.safe is not None:
@@ -91,6 +110,16 @@ def calibrate_command(
     console.print(Text(f"calibration written: {result.path} (bench time "
                        f"{result.duration_s:.1f} s); use it with "
                        f"`sweeprig run ... --calibration {result.path}`"))
+
+
+def _operator(console: Console) -> Callable[[str], bool]:
+    """Tell the operator a step and wait for a line on standard input (False at its end)."""
+
+    def ask(prompt: str) -> bool:
+        console.print(Text(prompt, style="bold"))
+        return sys.stdin.readline() != ""
+
+    return ask
 
 
 def register(app: typer.Typer) -> None:

@@ -18,6 +18,21 @@ and the analyzer what arrives at its input; the path's loss is the difference, t
 analyzer's own level error included (it is the instrument that reads the run). Connections
 the bench cannot reach by itself keep the bench file's typed losses, and the command says so.
 
+The power meter: before its first reading calibrate switches every source off and zeroes the
+sensor where the bench file asks for it (``[sensor] zero``, the profile's ``zero`` action),
+then reads the zeroing back (the profile's ``zeroed`` flag and a reading with RF off). Each
+reading is the meter's average of ``[sensor] averages`` readings, corrected by the sensor's
+calibration factor at its frequency (``[sensor] cal_factor``, :mod:`sweeprig.formats.sensor`).
+
+Closed-loop levelling (``levelling=True``): at each frequency the source is set, read, and
+set again by the difference until the meter reads the target level within
+:data:`LEVEL_TOLERANCE_DB` (at most :data:`LEVEL_MAX_ITERATIONS` settings, never above the
+bench's source limit); the loss is then measured at the very level the part will be given.
+
+Attended calibration (``operator``): where the bench's switch has no route for the sensor
+(``pm_rf``, ``pm_lo``), every source is switched off and the operator is told which cable to
+move, step by step; ``operator`` returns False (end of input) to stop, RF off, nothing written.
+
 Safety: the level at the DUT plane is low (at most −10 dBm, and 10 dB under the part's RF
 rating and the sensor's limit); every source setting goes through the drivers' limit guard;
 on every exit the bench is put in its safe state and read back, RF off. A power meter that
@@ -28,6 +43,7 @@ loss predict) ends the calibration with a message and nothing written.
 from __future__ import annotations
 
 import contextlib
+import dataclasses
 import math
 from collections.abc import Callable
 from dataclasses import dataclass
@@ -55,7 +71,10 @@ CAL_MARGIN_DB = 10.0
 #: (a wrong cable, a sensor on another port, a meter not zeroed), dB.
 PLAUSIBLE_DB = 6.0
 SETTLE_S = 0.05
-AVERAGES = 16
+#: Closed-loop levelling: the meter must read the target within this, dB (issue 10's figure).
+LEVEL_TOLERANCE_DB = 0.05
+#: Closed-loop levelling: at most this many settings per frequency.
+LEVEL_MAX_ITERATIONS = 6
 #: With every source off a zeroed sensor reads its noise (tens of dB under this), dBm; a
 #: reading above it is an offset of a sensor not zeroed (common practice, no source).
 ZERO_CHECK_DBM = -50.0
@@ -74,6 +93,11 @@ class CalibrationResult:
     skipped: dict[str, str]
     path: Path
     safe: SafeOutcome | None
+    #: Closed-loop levelling: the settings each frequency took, per connection (empty when
+    #: the levelling was off).
+    level_iterations: dict[str, list[int]] = dataclasses.field(default_factory=dict)
+    #: Whether the sensor was zeroed by the calibration (read back).
+    zeroed: bool = False
 
 
 #: The output connection behind each DUT port the analyzer reads.
@@ -131,6 +155,8 @@ def calibrate_sources(
     temperature_c: float | None = None,
     on_step: Callable[[str], None] = lambda _m: None,
     sim_description: str | Path | None = None,
+    levelling: bool = False,
+    operator: Callable[[str], bool] | None = None,
 ) -> CalibrationResult:
     """Calibrate the RF source connections of ``sequence`` on the bench and write the
     calibration file ``out`` (see the module docstring). ``sim_description``: the simulated
@@ -159,10 +185,10 @@ def calibrate_sources(
             skipped[connection] = "the bench has no such source"
             del needs[connection]
     pm_lo = bench.switch_route("pm_lo")
-    if "lo" in needs and pm_lo is None:
+    if "lo" in needs and pm_lo is None and operator is None:
         skipped["lo"] = ("the bench's switch has no route of the power-meter sensor to the "
                          "DUT LO plane (switch channels pm_lo): the LO keeps the bench file's "
-                         "typed loss")
+                         "typed loss (or calibrate attended: --attended)")
         del needs["lo"]
     thru, part = bench.switch_route("thru"), bench.switch_route("part")
     outputs = [c for c in PORT_CONNECTION.values() if c in needs]
@@ -175,6 +201,9 @@ def calibrate_sources(
             skipped[connection] = why
             del needs[connection]
         outputs = []
+    for freqs in needs.values():  # the sensor reads at every one: its factor must be known
+        for freq in freqs:
+            bench.sensor.cal_factor_db(freq, bench.where(("sensor", "cal_factor")))
     level = calibration_level_dbm(bench)
     roles = {c: "calibration source" for c in needs if c in SOURCE_CONNECTIONS}
     roles["pm"] = "calibration power meter"
@@ -209,8 +238,9 @@ def calibrate_sources(
             temperature_c = float(drivers.chamber.probe_temperature_c())
         pm = drivers.pm
         assert pm is not None
-        pm.set_averages(AVERAGES)
-        bench_ops = _Steps(drivers, bench, clock, level)
+        pm.set_averages(bench.sensor.averages)
+        bench_ops = _Steps(drivers, bench, clock, level, levelling=levelling,
+                           operator=operator)
         bench_ops.zero_check([c for c in needs if c in SOURCE_CONNECTIONS])
         sweeps: dict[str, list[list[float]]] = {c: [] for c in needs}
         for repeat in range(repeats):
@@ -223,8 +253,12 @@ def calibrate_sources(
                 on_step(f"sweep {repeat + 1} of {repeats}: {connection}, {len(freqs)} "
                         "frequencies")
         bench_ops.route("part")
-        bench_ops.route("pm_rf")
+        bench_ops.route("pm_rf", ask=False)
         duration = clock.now() - t0
+        if bench_ops.operator_steps:
+            on_step("every RF output is off: put the cables back as the part needs them "
+                    "(the part's inputs connected, the power sensor away from them) before "
+                    "the run")
     except BaseException:
         safe = _finish(drivers, bench, sim_bench)
         raise
@@ -248,8 +282,14 @@ def calibrate_sources(
     text = calibration_text(
         created=now, expires=now + valid_for, temperature_c=float(temperature_c),
         bench=bench.bench.name,
-        method=(f"source levels at the DUT input planes by power meter ({AVERAGES} "
-                f"averages), {level:g} dBm at the plane"
+        method=(f"source levels at the DUT input planes by power meter "
+                f"({bench.sensor.averages} averages"
+                + (", sensor zeroed first" if bench_ops.zeroed else "")
+                + f"; {bench.sensor.describe()})"
+                + (f", levelled in closed loop to {level:g} dBm within "
+                   f"{LEVEL_TOLERANCE_DB:g} dB" if levelling else f", {level:g} dBm at the plane")
+                + (", sensor moved by the operator where the switch has no route"
+                   if operator is not None else "")
                 + (", output paths through a calibration thru by the analyzer against the "
                    "power meter" if any(c in tables for c in PORT_CONNECTION.values()) else "")
                 + f", {repeats} sweep(s)"),
@@ -260,29 +300,74 @@ def calibrate_sources(
     except OSError as exc:
         raise InputError(f"cannot write the calibration file: {exc.strerror}",
                          where=str(path), fix="choose a writable path") from None
-    return CalibrationResult(tables, spread, repeatability, duration, skipped, path, safe)
+    return CalibrationResult(tables, spread, repeatability, duration, skipped, path, safe,
+                             level_iterations=bench_ops.iterations, zeroed=bench_ops.zeroed)
 
 
 SOURCE_CONNECTIONS = ("rf", "rf2", "lo")
 
 
+#: What the operator is asked to do for each calibration route the switch cannot make.
+OPERATOR_STEPS = {
+    "pm_rf": ("connect the power sensor at the DUT RF input plane: the end of the cable that "
+              "goes to the part's RF input (the part out of the way)"),
+    "pm_lo": ("connect the power sensor at the DUT LO input plane: the end of the cable that "
+              "goes to the part's LO input (the part out of the way)"),
+}
+
+
 class _Steps:
     """The calibration's bench operations (one sweep of one connection at a time)."""
 
-    def __init__(self, drivers: BenchDrivers, bench: Bench, clock: Clock, level: float) -> None:
+    def __init__(self, drivers: BenchDrivers, bench: Bench, clock: Clock, level: float, *,
+                 levelling: bool = False,
+                 operator: Callable[[str], bool] | None = None) -> None:
         self.d, self.bench, self.clock, self.level = drivers, bench, clock, level
+        self.levelling, self.operator = levelling, operator
+        self.iterations: dict[str, list[int]] = {}
+        self.zeroed = False
+        self._sensor_at: str | None = None  # where the operator last put the sensor
+        self.operator_steps = 0
 
-    def route(self, name: str) -> None:
-        """Close the switch channel of a calibration route, when the bench has it."""
+    def _all_off(self) -> None:
+        for role in SOURCE_CONNECTIONS:
+            source = getattr(self.d, role, None)
+            if source is not None:
+                source.set_output(False)
+                source.check_errors()
+
+    def route(self, name: str, *, ask: bool = True) -> None:
+        """Close the switch channel of a calibration route, when the bench has it; otherwise,
+        in an attended calibration, switch every source off and ask the operator to make the
+        route by hand (``ask``), once per move."""
         channel = self.bench.switch_route(name)
         switch = self.d.switch
         if channel is not None and switch is not None:
             switch.select(channel)
             switch.check_errors()
+            return
+        if self.operator is None or not ask or name not in OPERATOR_STEPS:
+            return
+        if self._sensor_at == name:
+            return
+        self._all_off()  # RF off before anyone touches a cable
+        self.operator_steps += 1
+        prompt = (f"step {self.operator_steps}: every RF output is off. Now "
+                  f"{OPERATOR_STEPS[name]}; press Enter when done (end of input stops the "
+                  "calibration)")
+        if not self.operator(prompt):
+            raise SweeprigError(
+                "the calibration was stopped by the operator (end of input) at step "
+                f"{self.operator_steps}; every RF output is off and nothing was written",
+                where="sweeprig calibrate --attended",
+                fix="start the calibration again and answer each step with Enter once the "
+                "cable is moved")
+        self._sensor_at = name
 
     def zero_check(self, connections: list[str]) -> None:
-        """With every calibration source off, the meter must read next to nothing: a reading
-        above :data:`ZERO_CHECK_DBM` means a sensor not zeroed (or a signal reaching it)."""
+        """Every calibration source off; zero the sensor where the bench asks for it and the
+        meter can (read back: the meter's flag); then the meter must read next to nothing: a
+        reading above :data:`ZERO_CHECK_DBM` means a sensor not zeroed (or a signal at it)."""
         for connection in connections:
             source = getattr(self.d, connection)
             source.set_output(False)
@@ -291,41 +376,107 @@ class _Steps:
         assert pm is not None
         self.route("pm_rf")
         pm.check_errors()
+        where = "power meter (role pm), before the calibration"
+        if self.bench.sensor.zero and pm.can_zero:
+            try:
+                pm.zero()
+                pm.check_errors()
+            except SweeprigError as exc:
+                raise SweeprigError(
+                    f"zeroing the sensor failed ({exc.what}); nothing was written and no RF "
+                    "was switched on", where=where,
+                    fix="check that every RF output is off and nothing else feeds the "
+                    "sensor, then calibrate again") from None
+            if pm.zeroed() is False:
+                raise SweeprigError(
+                    "the power meter says its sensor's zeroing did not succeed; nothing was "
+                    "written and no RF was switched on", where=where,
+                    fix="check that every RF output is off and nothing else feeds the sensor, "
+                    "zero it again, then calibrate again")
+            self.zeroed = True
         self.clock.sleep(SETTLE_S)
         reading = pm.read_power_dbm()
         if not math.isfinite(reading):
             raise SweeprigError(
                 f"the power meter read {reading} with every source off (not a number: no "
                 "sensor, or a fault); nothing was written and no RF was switched on",
-                where="power meter (role pm), before the calibration",
+                where=where,
                 fix="check that the sensor is connected and zeroed, then calibrate again")
         if reading > ZERO_CHECK_DBM:
             raise SweeprigError(
-                f"the power meter reads {reading:.1f} dBm with every source off: the sensor "
-                "is not zeroed (or a signal reaches it); nothing was written and no RF was "
-                "switched on", where="power meter (role pm), before the calibration",
+                f"the power meter reads {reading:.1f} dBm with every source off"
+                + (" even after zeroing" if self.zeroed else "")
+                + ": the sensor is not zeroed (or a signal reaches it); nothing was "
+                "written and no RF was switched on", where=where,
                 fix="zero the sensor with every RF output off (the meter's zero function), "
-                "check that nothing else feeds the DUT plane, then calibrate again; follow "
-                "your lab's rules for the sensor's maximum input")
+                "check that nothing else feeds the DUT plane and that the sensor is sound, "
+                "then calibrate again; follow your lab's rules for the sensor's maximum input")
 
-    def _plane_reading(self, connection: str, freq: float, reading_at: float) -> float:
+    def _read(self, freq: float) -> float:
+        """The power at the sensor's plane, dBm: the meter's reading corrected by the
+        sensor's calibration factor at ``freq``."""
+        pm = self.d.pm
+        assert pm is not None
+        self.clock.sleep(SETTLE_S)
+        reading = pm.read_power_dbm()
+        if not math.isfinite(reading):
+            return reading
+        return reading - self.bench.sensor.cal_factor_db(freq)
+
+    def _plane_reading(self, connection: str, freq: float,
+                       reading_at: float) -> tuple[float, float]:
         """Set ``connection``'s source to put the calibration level at its DUT plane (by
-        the typed loss) at ``freq``, output on, and read the power meter there, dBm."""
+        the typed loss, or in closed loop) at ``freq``, output on, and read the power meter
+        there: (the source's setting, the reading), dBm."""
         source = getattr(self.d, connection)
         pm = self.d.pm
         assert pm is not None
+        setting = self.level + self.bench.loss(connection).at(freq)
         source.set_frequency(freq)
-        source.set_power(self.level + self.bench.loss(connection).at(freq))
+        source.set_power(setting)
         source.set_output(True)
         pm.set_frequency(reading_at)
         # A query to each instrument proves it has carried out the settings before the
         # meter reads (writes to two instruments are not ordered), and drains any error.
         source.check_errors()
         pm.check_errors()
-        self.clock.sleep(SETTLE_S)
-        reading = pm.read_power_dbm()
+        reading = self._read(reading_at)
         _check_reading(reading, self.level, connection, freq)
-        return reading
+        if self.levelling:
+            setting, reading = self._level(connection, freq, setting, reading)
+        return setting, reading
+
+    def _level(self, connection: str, freq: float, setting: float,
+               reading: float) -> tuple[float, float]:
+        """Closed-loop levelling: set again by (target − reading) until within
+        :data:`LEVEL_TOLERANCE_DB`; never above the bench's (or profile's) source limit."""
+        source = getattr(self.d, connection)
+        high = source.limits("power")[1]
+        count = 1
+        while abs(reading - self.level) > LEVEL_TOLERANCE_DB:
+            if count >= LEVEL_MAX_ITERATIONS:
+                raise SweeprigError(
+                    f"closed-loop levelling of {connection} at {freq / 1e9:g} GHz did not "
+                    f"reach {self.level:g} dBm within {LEVEL_TOLERANCE_DB:g} dB in "
+                    f"{LEVEL_MAX_ITERATIONS} settings (last {reading:.3f} dBm); nothing "
+                    "was written", where=f"power meter (role pm), {connection}",
+                    fix="check the cabling and the sensor, or calibrate without levelling")
+            nxt = setting + (self.level - reading)
+            if high is not None and nxt > high:
+                raise SweeprigError(
+                    f"closed-loop levelling of {connection} at {freq / 1e9:g} GHz would set "
+                    f"{nxt:.2f} dBm, above the source limit {high:g} dBm; nothing was "
+                    "written", where=f"{connection} source, bench limits",
+                    fix="check the cabling (a loss far above the typed one), or calibrate "
+                    "without levelling")
+            setting = nxt
+            source.set_power(setting)
+            source.check_errors()
+            reading = self._read(freq)
+            _check_reading(reading, self.level, connection, freq)
+            count += 1
+        self.iterations.setdefault(connection, []).append(count)
+        return setting, reading
 
     def source_sweep(self, connection: str, freqs: list[float]) -> list[float]:
         """The loss of a source connection at each frequency: setting − reading, dB."""
@@ -333,8 +484,8 @@ class _Steps:
         source = getattr(self.d, connection)
         losses = []
         for freq in freqs:
-            reading = self._plane_reading(connection, freq, freq)
-            losses.append(self.level + self.bench.loss(connection).at(freq) - reading)
+            setting, reading = self._plane_reading(connection, freq, freq)
+            losses.append(setting - reading)
         source.set_output(False)
         source.check_errors()
         return losses
@@ -351,7 +502,7 @@ class _Steps:
         switch.check_errors()
         losses = []
         for freq in freqs:
-            plane = self._plane_reading("rf", freq, freq)
+            _setting, plane = self._plane_reading("rf", freq, freq)
             sa.configure(centre_hz=freq, span_hz=SA_SPAN_HZ, rbw_hz=SA_RBW_HZ,
                          ref_level_dbm=SA_REF_LEVEL_DBM, attenuation_db=SA_ATTENUATION_DB)
             sa.check_errors()

@@ -709,7 +709,8 @@ class Runner:
         freq = reading.freq_hz if reading.freq_hz is not None else point.rf_freq_hz
         if pm.set_frequency(freq):
             self._check(pm)
-        level = pm.read_power_dbm()
+        level = pm.read_power_dbm()  # corrected by the sensor's calibration factor:
+        level -= self.bench.sensor.cal_factor_db(freq, self.bench.where(("sensor", "cal_factor")))
         return ReadingRecord(name=reading.name, kind=reading.kind, port="rf", freq_hz=freq,
                              level_dbm=level)
 

@@ -41,6 +41,7 @@ from sweeprig.formats.pathloss import (
     read_csv_loss,
     read_touchstone_loss,
 )
+from sweeprig.formats.sensor import SensorSpec
 from sweeprig.formats.toml_locate import KeyPath
 from sweeprig.transport.backend import bench_file_fix, bench_file_problem
 from sweeprig.transport.resources import ResourceNameError, parse_resource
@@ -364,6 +365,10 @@ class Bench(LocatedFile):
     uncertainty: UncertaintySpecs = Field(default_factory=UncertaintySpecs)
     noise_source: NoiseSourceBench | None = Field(
         None, description="the noise source for noise-figure readings and its ENR table")
+
+    sensor: SensorSpec = Field(default_factory=SensorSpec,
+                               description="the power-meter sensor: calibration factor, "
+                               "zeroing, averages (see sweeprig.formats.sensor)")
 
     _losses: dict[str, PathLoss] = PrivateAttr(default_factory=dict)
     _enr: EnrTable | None = PrivateAttr(None)

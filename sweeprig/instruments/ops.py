@@ -147,6 +147,10 @@ KIND_OPS: dict[str, dict[str, OpSpec]] = {
             _setting("frequency", "float", "frequency", "calibration-factor frequency, Hz"),
             _setting("averages", "int", "count", "averages", required=False),
             OpSpec("power", "query", "average power, dBm", reply="float"),
+            OpSpec("zero", "action", "zero the sensor (every RF source off first)",
+                   required=False),
+            OpSpec("zeroed", "query", "the sensor's last zeroing succeeded (flag)",
+                   reply="bool", required=False),
         )
     },
     "supply": {

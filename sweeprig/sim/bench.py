@@ -49,6 +49,11 @@ optional; the values shown are the defaults)::
     cal_factor_error = "0 dB"    # what the sensor's calibration factor leaves, peak vs freq
     noise = 0.002                # relative reading noise of one average
     # zero_offset = "-40 dBm"    # a sensor not zeroed: this power is added to every reading
+    zero_holds = true            # zeroing (CAL:ZERO) removes that offset (false: a faulty sensor)
+    range_max = "20 dBm"         # above it a reading is not a number (a low-power sensor: lower)
+    offset = "0 dB"              # a display offset left set in the meter, added to every reading
+    # the sensor's calibration factor itself (sweeprig.sim.instruments.powermeter) is always
+    # there, as on a real sensor: the bench file's [sensor] table corrects it
 
     [chamber]
     ambient = "23 degC"
@@ -287,6 +292,12 @@ class PowerMeterSpec(Frozen):
     noise: Annotated[float, Field(ge=0.0, le=0.1)] = 0.002
     #: A sensor that was not zeroed: this power is added to every reading (absent: zeroed).
     zero_offset: Power | None = None
+    #: Whether zeroing removes that offset (false: a faulty sensor whose zeroing does not take).
+    zero_holds: StrictBool = True
+    #: The sensor's top of range: above it a reading is not a number (a low-power sensor).
+    range_max: Power = 20.0
+    #: A display offset left set in the meter: added to every reading.
+    offset: LevelDb = 0.0
 
 
 class ChamberSpec(Frozen):
@@ -552,7 +563,10 @@ def build_sim_instruments(
     meter = PowerMeter(clock, sense=world.sensed_power_dbm, seed=desc.seed + 1,
                        cal_factor_error_db=desc.power_meter.cal_factor_error,
                        relative_noise=desc.power_meter.noise,
-                       zero_offset_dbm=desc.power_meter.zero_offset)
+                       zero_offset_dbm=desc.power_meter.zero_offset,
+                       zero_holds=desc.power_meter.zero_holds,
+                       range_max_dbm=desc.power_meter.range_max,
+                       reading_offset_db=desc.power_meter.offset)
     world.connect(rf=sources["rf"], rf2=sources["rf2"], lo=sources["lo"], supply=supply,
                   chamber=chamber, switch=switch, ns_supply=ns_supply)
     truth_line, truth_noise = _truth_hooks(world, analyzer)

@@ -2,13 +2,12 @@
 ``bench-errors`` description: sources up to 1 dB off with frequency, cable ripple, combiner
 imbalance, an analyzer 0.5 dB off, a sensor calibration-factor residual).
 
-The truth is the model's own, evaluated on the part directly (never through the bench): the
-gain is the part's output line over its input tone at the drive each point gives it, input
-P1dB is :func:`sweeprig.sim.mixer.reference_figures`'s, and the IIP3 is the part's own
-single-point intercept averaged over the drives the fit used (what the constrained slope-3
-fit gives on a perfect bench). The small-signal IIP3 of ``reference_figures`` lies 0.15 to
-0.25 dB above that: the part's fifth-order terms at the sequence's top drives, not a bench
-error, so it is not what a calibration can be judged by (shown in the slow test's notes).
+The truth is the model's own, evaluated on the part directly (never through the bench; see
+:mod:`sweeprig.sim.figure_truth`): the gain at the drive each point gives the part, input
+P1dB of :func:`sweeprig.sim.mixer.reference_figures`, and the IIP3 as the textbook two-tone
+intercept of the part at the drives the fit used. Its small-signal limit lies 0.15 to 0.35 dB
+above that (the part's fifth-order terms at the sequence's drives, not a bench error; the
+perf benchmark tests/perf/test_perf_calibration.py prints both).
 
 The coverage check follows JCGM 100:2008 (GUM) 6.2–6.3: an expanded uncertainty with
 k = 2 covers about 95 % of the errors when the budget is honest.
@@ -26,9 +25,7 @@ from sweeprig.analysis.reduce import RunFigures, reduce_run
 from sweeprig.engine.calibrate import calibrate_sources
 from sweeprig.engine.session import run_sequence, shipped_sequences_dir
 from sweeprig.sim.bench import prepare_part, resolve_description
-from sweeprig.sim.mixer import OperatingPoint, reference_figures
-from sweeprig.sim.mixer.reference import line_power_dbm, output_freq_hz
-from sweeprig.sim.mixer.types import ToneInput
+from sweeprig.sim.figure_truth import figure_truth
 from sweeprig.store.sqlite import SqliteRunStore
 
 ERRORS = "bench-errors"
@@ -42,39 +39,13 @@ def _reduced(store: Path, run_id: int) -> RunFigures:
 
 
 def _errors(run: RunFigures, name: str) -> list[tuple[float, float]]:
-    """(figure − model truth, stated U at k = 2) of every figure ``name``."""
+    """(figure − model truth, stated U at k = 2) of every figure ``name``
+    (:func:`sweeprig.sim.figure_truth.figure_truth`)."""
     part = prepare_part(resolve_description(ERRORS))
     out = []
     for fig in run.figures_named(name):
         rows = run.captures[run.captures["point"].isin(fig.points)].drop_duplicates("point")
-        row = rows.iloc[0]
-        op = OperatingPoint(float(row["probe_temperature_c"]), float(row["supply_v"]))
-        lo = ToneInput(float(row["lo_freq_hz"]), float(row["lo_power_dbm"]))
-        f1 = float(row["rf_freq_hz"])
-
-        def line(response: object, f_in: float, f_lo: float = lo.freq_hz) -> float:
-            return line_power_dbm(response.if_port,  # type: ignore[attr-defined]
-                                  output_freq_hz(part, f_in, f_lo))
-
-        if name == "conversion_gain":
-            p = float(row["rf_power_dbm"])
-            truth = line(part.evaluate(op, lo, [ToneInput(f1, p)]), f1) - p
-        elif name == "input_p1db":
-            truth = reference_figures(part, op, lo.freq_hz, lo.power_dbm, f1).input_p1db_dbm
-        else:  # iip3_low / iip3_high: the part's own intercept over the fitted drives
-            p1db = reference_figures(part, op, lo.freq_hz, lo.power_dbm, f1).input_p1db_dbm
-            f2 = f1 + 1e6
-            values = []
-            for p in sorted(set(rows["rf_power_dbm"].astype(float))):
-                if p > p1db - 10.0:
-                    continue
-                two = part.evaluate(op, lo, [ToneInput(f1, p), ToneInput(f2, p)])
-                if name == "iip3_low":
-                    values.append(p + 0.5 * (line(two, f1) - line(two, 2 * f1 - f2)))
-                else:
-                    values.append(p + 0.5 * (line(two, f2) - line(two, 2 * f2 - f1)))
-            truth = float(np.mean(values))
-        out.append((fig.value - truth, fig.uncertainty_db))
+        out.append((fig.value - figure_truth(part, name, rows), fig.uncertainty_db))
     return out
 
 

@@ -22,6 +22,7 @@ from sweeprig.sim.instruments import (
     default_level_error_db,
     no_level_error_db,
 )
+from sweeprig.sim.instruments.powermeter import sensor_cal_factor_percent
 from sweeprig.sim.server import ServedBench, serve
 
 Resource = pyvisa.resources.MessageBasedResource
@@ -164,12 +165,15 @@ def test_power_meter_reading_units_and_averaging(open_role, sensor: Sensor,
     one = [float(pm.query("MEAS?")) for _ in range(200)]
     pm.write("AVER:COUN 64")
     many = [float(pm.query("READ?")) for _ in range(200)]
-    assert statistics.mean(one) == pytest.approx(-10.0, abs=0.01)
-    assert statistics.mean(many) == pytest.approx(-10.0, abs=0.005)
+    # the sensor indicates its calibration factor's fraction of the power (software corrects)
+    indicated = -10.0 + 10 * math.log10(sensor_cal_factor_percent(2.4e9) / 100)
+    assert statistics.mean(one) == pytest.approx(indicated, abs=0.01)
+    assert statistics.mean(many) == pytest.approx(indicated, abs=0.005)
     assert statistics.stdev(many) < statistics.stdev(one) / 4
     assert clock.now() > 200 * 0.005  # each reading took simulated time
     pm.write("UNIT:POW W")
-    assert float(pm.query("MEAS:SCAL:POW:AC?")) == pytest.approx(1e-4, rel=0.01)
+    assert float(pm.query("MEAS:SCAL:POW:AC?")) == pytest.approx(
+        1e-3 * 10 ** (indicated / 10), rel=0.01)
     assert _errors(pm) == []
 
 
@@ -184,6 +188,26 @@ def test_power_meter_range(open_role, sensor: Sensor) -> None:
     assert float(pm.query("MEAS?")) == 9.91e37
     (error,) = _errors(pm)
     assert error.startswith('-222,"Data out of range;') and "caution" in error
+
+
+def test_power_meter_zeroing(sensor: Sensor) -> None:
+    """CAL:ZERO removes a sensor's offset, read back by CAL:ZERO:STAT?; with a signal at the
+    sensor it is refused (error -200, state 0), and a faulty sensor's zeroing does not take."""
+    clock = VirtualClock()
+    sensor.power_dbm = -200.0
+    pm = PowerMeter(clock, sense=sensor, seed=3, zero_offset_dbm=-35.0)
+    assert pm.handle("CAL:ZERO:STAT?") == "0" and pm.read_dbm() == pytest.approx(-35.0, abs=0.1)
+    pm.handle("CAL:ZERO")
+    assert pm.handle("CAL:ZERO:STAT?") == "1" and pm.read_dbm() < -60.0
+    assert clock.now() >= 4.0  # zeroing takes time
+    sensor.power_dbm = -20.0
+    pm.handle("CAL:ZERO")
+    assert pm.handle("CAL:ZERO:STAT?") == "0"
+    assert pm.handle("SYST:ERR?").startswith("-200,")
+    sensor.power_dbm = -200.0
+    faulty = PowerMeter(clock, sense=sensor, zero_offset_dbm=-35.0, zero_holds=False)
+    faulty.handle("CAL:ZERO")
+    assert faulty.read_dbm() == pytest.approx(-35.0, abs=0.1)
 
 
 def test_power_meter_is_repeatable_with_its_seed(sensor: Sensor) -> None:

@@ -50,6 +50,12 @@ class RfSwitch(ScpiInstrument):
     def thru(self) -> bool:
         return self._closed[2] == DUT_THRU
 
+    def move_by_hand(self, channel: int) -> None:
+        """An operator moving a cable where the bench file has no channel for a route (an
+        attended calibration's test): the channel's section changes without a command."""
+        with self.lock:
+            self._closed[_section(channel)] = channel
+
     def on_reset(self) -> None:
         self._closed = [section[0] for section in SECTIONS]
 
