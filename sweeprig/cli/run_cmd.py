@@ -61,7 +61,7 @@ limits in the bench file and follow your lab's rules.
 
 Examples:
 
-  sweeprig run sequences/demo/downconverter.toml --sim
+  sweeprig run sequences/demo/kx2417-characterisation.toml --sim
 
   sweeprig run my-part.toml --bench bench3.toml --store results/lot7.sqlite
 """
