@@ -311,15 +311,20 @@ def validation_error(
     model: type[BaseModel], exc: ValidationError, where: Callable[[KeyPath], str],
     *, docs: str = SEQUENCE_DOCS,
 ) -> InputError:
-    """Turn pydantic's first error into one located InputError with a fix."""
-    errors = _relevant(exc.errors(include_url=False))
-    first = errors[0]
-    loc = _clean(first["loc"])
-    what, fix = _describe(model, first, loc, docs)
-    if len(errors) > 1:
-        more = len(errors) - 1
-        what += f" ({more} more problem{'s' if more > 1 else ''} may follow)"
-    return InputError(what, where=where(loc), fix=fix)
+    """Turn pydantic's errors into located InputErrors with a fix: the first, carrying the
+    others in ``also`` (``sweeprig check`` lists them all)."""
+    found: list[InputError] = []
+    seen: set[tuple[str, str]] = set()
+    for err in _relevant(exc.errors(include_url=False)):
+        loc = _clean(err["loc"])
+        what, fix = _describe(model, err, loc, docs)
+        place = where(loc)
+        if (place, what) not in seen:
+            seen.add((place, what))
+            found.append(InputError(what, where=place, fix=fix))
+    first = found[0]
+    first.also = tuple(found[1:])
+    return first
 
 
 def _clean(loc: Any) -> KeyPath:
