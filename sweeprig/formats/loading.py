@@ -307,6 +307,10 @@ def validate(model: type[M], doc: Document, *, docs: str = SEQUENCE_DOCS) -> M:
         raise validation_error(model, exc, doc.where, docs=docs) from None
 
 
+#: Most validation problems of one file described (each is located in the file's text).
+MAX_DESCRIBED = 50
+
+
 def validation_error(
     model: type[BaseModel], exc: ValidationError, where: Callable[[KeyPath], str],
     *, docs: str = SEQUENCE_DOCS,
@@ -315,7 +319,8 @@ def validation_error(
     others in ``also`` (``sweeprig check`` lists them all)."""
     found: list[InputError] = []
     seen: set[tuple[str, str]] = set()
-    for err in _relevant(exc.errors(include_url=False)):
+    errors = _relevant(exc.errors(include_url=False))
+    for err in errors[:MAX_DESCRIBED]:  # each is located in the file: a bounded number
         loc = _clean(err["loc"])
         what, fix = _describe(model, err, loc, docs)
         place = where(loc)
@@ -323,7 +328,10 @@ def validation_error(
             seen.add((place, what))
             found.append(InputError(what, where=place, fix=fix))
     first = found[0]
-    first.also = tuple(found[1:])
+    rest = len(errors) - MAX_DESCRIBED
+    more = (InputError(f"{rest} more problem{'s' if rest > 1 else ''}, not described",
+                       fix="fix the ones above and check again"),) if rest > 0 else ()
+    first.also = (*found[1:], *more)
     return first
 
 
