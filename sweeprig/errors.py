@@ -20,6 +20,9 @@ class SweeprigError(Exception):
     """
 
     exit_code = 2
+    #: Further problems found in the same pass over the same file (``sweeprig check`` lists
+    #: them all; other commands print the first and say how many more there are).
+    also: tuple[SweeprigError, ...] = ()
 
     def __init__(self, what: str, *, where: str | None = None, fix: str | None = None) -> None:
         self.what = what
@@ -31,6 +34,10 @@ class SweeprigError(Exception):
         """``where: what`` and the fix on the next line, control characters escaped (the
         parts may quote a file, and the message may reach a terminal or a report)."""
         what = escape_controls(self.what)
+        if self.also:
+            more = len(self.also)
+            what += (f" ({more} more problem{'s' if more > 1 else ''} in this file: "
+                     "`sweeprig check` lists every one)")
         head = f"{escape_controls(self.where)}: {what}" if self.where else what
         return f"{head}\n  fix: {escape_controls(self.fix)}" if self.fix else head
 

@@ -4,18 +4,32 @@ This is the only place strings become numbers. Internal units (the canonical for
 every other module, named in field names such as ``freq_hz``):
 
 ==============  =========  ===================================================
-kind            internal   accepted suffixes (case-insensitive unless noted)
+kind            internal   accepted units
 ==============  =========  ===================================================
-frequency       Hz         Hz, kHz, MHz, GHz
+frequency       Hz         Hz, mHz, kHz, MHz, GHz
 power           dBm        dBm, dBW, W, mW, uW, µW, nW
 level_db        dB         dB (a ratio: loss, gain, attenuation, dBc)
-voltage         V          V, mV, uV, kV
-current         A          A, mA, uA
+voltage         V          V, mV, uV, µV, kV
+current         A          A, mA, uA, µA
 time            s          s, ms, us, µs, ns, min, h
 temperature     degC       degC, °C, C, K (converted), degF (converted)
 resistance      ohm        ohm, Ω, kohm, kΩ
 count           1          (no suffix)
 ==============  =========  ===================================================
+
+How a unit is read (see :func:`parse_quantity`):
+
+- **SI prefixes by case.** A prefix symbol is case-sensitive, as the SI writes it (BIPM, *The
+  International System of Units*, 9th edition 2019, section 3 and Table 7): ``m`` is milli and
+  ``M`` mega, so ``"100 mHz"`` is 0.1 Hz and ``"100 MHz"`` 10⁸ Hz. The unit symbol after the
+  prefix may be written in any case (``"2.4 GHZ"``, ``"-10 DBM"``).
+- **A prefix in the wrong case** is accepted only when that letter in that case is no SI prefix
+  at all (``"10 Khz"``, ``"2.4 ghz"``: there is no prefix ``K`` or ``g``). Where the case
+  decides between two readings, the spelling is refused with the readings named: ``"70 mhz"``
+  (milli or mega?) and ``"10 MV"`` (megavolt, which is no voltage of a bench; ``mV`` is milli).
+- **Minus sign.** The typographic minus ``−`` (U+2212, as typeset text writes it) is read as
+  ``-``. An en dash ``–`` or em dash ``—`` is refused: in ranges it means "to", so a value that
+  starts with one is more likely a range cut short than a negative number.
 
 A bare number (``2.4e9`` or ``"2.4e9"``) is taken in the internal unit of its kind.
 """
@@ -41,17 +55,53 @@ KINDS: tuple[str, ...] = (
 _NUMBER = r"[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?"
 _QUANTITY_RE = re.compile(rf"^\s*(?P<num>{_NUMBER})\s*(?P<unit>[^\s\d+-][^\s]*)?\s*$")
 
-# suffix (lower-case) → multiplier into the internal unit
-_LINEAR: dict[str, dict[str, float]] = {
-    "frequency": {"hz": 1.0, "khz": 1e3, "mhz": 1e6, "ghz": 1e9},
-    "voltage": {"v": 1.0, "mv": 1e-3, "uv": 1e-6, "µv": 1e-6, "kv": 1e3},
-    "current": {"a": 1.0, "ma": 1e-3, "ua": 1e-6, "µa": 1e-6},
-    "time": {"s": 1.0, "ms": 1e-3, "us": 1e-6, "µs": 1e-6, "ns": 1e-9, "min": 60.0, "h": 3600.0},
-    "resistance": {"ohm": 1.0, "ω": 1.0, "kohm": 1e3, "kω": 1e3},
-    "level_db": {"db": 1.0},
-    "count": {},
+#: SI prefix symbol → (name, factor): the BIPM SI Brochure, 9th edition (2019), Table 7, with
+#: the four prefixes the 27th CGPM added in 2022 (ronna, quetta, ronto, quecto); ``u`` is the
+#: common stand-in for ``µ`` where the Greek letter cannot be typed (common practice, no
+#: source). Checked against the brochure's table in ``tests/test_units.py``.
+SI_PREFIXES: dict[str, tuple[str, float]] = {
+    "Q": ("quetta", 1e30), "R": ("ronna", 1e27), "Y": ("yotta", 1e24), "Z": ("zetta", 1e21),
+    "E": ("exa", 1e18), "P": ("peta", 1e15), "T": ("tera", 1e12), "G": ("giga", 1e9),
+    "M": ("mega", 1e6), "k": ("kilo", 1e3), "h": ("hecto", 1e2), "da": ("deca", 1e1),
+    "d": ("deci", 1e-1), "c": ("centi", 1e-2), "m": ("milli", 1e-3), "µ": ("micro", 1e-6),
+    "u": ("micro", 1e-6), "n": ("nano", 1e-9), "p": ("pico", 1e-12), "f": ("femto", 1e-15),
+    "a": ("atto", 1e-18), "z": ("zepto", 1e-21), "y": ("yocto", 1e-24), "r": ("ronto", 1e-27),
+    "q": ("quecto", 1e-30),
 }
-_POWER_WATTS = {"w": 1.0, "mw": 1e-3, "uw": 1e-6, "µw": 1e-6, "nw": 1e-9}
+
+#: Accepted units per kind: (prefix, symbol, factor into the internal unit). The prefix is
+#: matched by case, the symbol in any case (see the module docstring).
+_LINEAR: dict[str, tuple[tuple[str, str, float], ...]] = {
+    "frequency": (("", "Hz", 1.0), ("m", "Hz", 1e-3), ("k", "Hz", 1e3), ("M", "Hz", 1e6),
+                  ("G", "Hz", 1e9)),
+    "voltage": (("", "V", 1.0), ("m", "V", 1e-3), ("u", "V", 1e-6), ("µ", "V", 1e-6),
+                ("k", "V", 1e3)),
+    "current": (("", "A", 1.0), ("m", "A", 1e-3), ("u", "A", 1e-6), ("µ", "A", 1e-6)),
+    "time": (("", "s", 1.0), ("m", "s", 1e-3), ("u", "s", 1e-6), ("µ", "s", 1e-6),
+             ("n", "s", 1e-9), ("", "min", 60.0), ("", "h", 3600.0)),
+    "resistance": (("", "ohm", 1.0), ("", "Ω", 1.0), ("k", "ohm", 1e3), ("k", "Ω", 1e3)),
+    "level_db": (("", "dB", 1.0),),
+    "count": (),
+}
+#: Watts for power (converted to dBm), and the logarithmic units, which take no prefix.
+_POWER_WATTS: tuple[tuple[str, str, float], ...] = (
+    ("", "W", 1.0), ("m", "W", 1e-3), ("u", "W", 1e-6), ("µ", "W", 1e-6), ("n", "W", 1e-9))
+_POWER_LOG: tuple[tuple[str, str, float], ...] = (("", "dBm", 0.0), ("", "dBW", 30.0))
+_TEMPERATURE: tuple[tuple[str, str, float], ...] = tuple(
+    ("", name, 0.0) for name in ("degC", "°C", "C", "celsius", "K", "degF", "°F", "F"))
+
+#: Unit symbol → its name, for messages.
+_SYMBOL_NAMES = {"Hz": "hertz", "V": "volt", "A": "ampere", "s": "second", "W": "watt",
+                 "ohm": "ohm", "Ω": "ohm"}
+
+#: Dashes that look like a minus but are not one (refused; see the module docstring).
+_DASHES = {"\u2013": "an en dash (–)", "\u2014": "an em dash (—)", "\u2012": "a figure dash (‒)",
+           "\u2010": "a hyphen (‐)", "\u2011": "a non-breaking hyphen (‑)"}
+#: Letters with two code points, read as one: Greek mu (the BIPM's micro) as the micro sign,
+#: the ohm sign as Greek capital omega.
+_SAME_LETTER = str.maketrans({"\u03bc": "\u00b5", "\u2126": "\u03a9"})
+#: The typographic minus sign, read as ``-``.
+MINUS_SIGN = "\u2212"
 
 _EXAMPLES = {
     "frequency": '"2.4 GHz" or "70 MHz"',
@@ -72,7 +122,7 @@ def example(kind: str) -> str:
 
 
 _DISPLAY_SUFFIXES: dict[str, list[str]] = {
-    "frequency": ["Hz", "kHz", "MHz", "GHz"],
+    "frequency": ["Hz", "mHz", "kHz", "MHz", "GHz"],
     "power": ["dBm", "dBW", "W", "mW", "uW", "nW"],
     "level_db": ["dB"],
     "voltage": ["V", "mV", "uV", "kV"],
@@ -106,7 +156,14 @@ def parse_quantity(value: object, kind: str, *, where: str | None = None) -> flo
         except OverflowError:  # a huge integer literal
             raise _error(value, kind, where, "is out of range") from None
     elif isinstance(value, str):
-        match = _QUANTITY_RE.match(value)
+        for dash, name in _DASHES.items():
+            if dash in value:
+                raise UnitError(
+                    f"{short_repr(value)} has {name} where a minus sign would be",
+                    where=where,
+                    fix=f"write a negative value with '-' (or the minus sign '−', U+2212), "
+                    f"e.g. {example(kind)}; a range is written with start and stop")
+        match = _QUANTITY_RE.match(value.replace(MINUS_SIGN, "-").translate(_SAME_LETTER))
         if match is None:
             raise _error(value, kind, where, "is not a number followed by a unit")
         number, unit = float(match["num"]), (match["unit"] or "")
@@ -121,35 +178,74 @@ def parse_quantity(value: object, kind: str, *, where: str | None = None) -> flo
 
 
 def _convert(number: float, unit: str, kind: str, raw: object, where: str | None) -> float:
-    key = unit.strip().lower()
-    if key == "":
+    unit = unit.strip()
+    if unit == "":
         if kind == "count" and number != int(number):
             raise _error(raw, kind, where, "is not a whole number")
         return number
     if kind == "power":
-        if key == "dbm":
-            return number
-        if key == "dbw":
-            return number + 30.0
-        if key in _POWER_WATTS:
-            watts = number * _POWER_WATTS[key]
+        found = _find_unit(unit, _POWER_LOG + _POWER_WATTS, kind, raw, where)
+        if found is not None and found[1].lower() == "w":
+            watts = number * found[2]
             if watts <= 0:
                 raise _error(raw, kind, where, "is not a positive power")
             return 10.0 * math.log10(watts / 1e-3)
+        if found is not None:
+            return number + found[2]
     elif kind == "temperature":
-        if key in ("degc", "°c", "c", "celsius"):
+        found = _find_unit(unit, _TEMPERATURE, kind, raw, where)
+        if found is not None:
+            name = found[1].lower()
+            if name == "k":
+                if number < 0:
+                    raise _error(raw, kind, where, "is below absolute zero")
+                return number - 273.15
+            if name in ("degf", "°f", "f"):
+                return (number - 32.0) * 5.0 / 9.0
             return number
-        if key == "k":
-            if number < 0:
-                raise _error(raw, kind, where, "is below absolute zero")
-            return number - 273.15
-        if key in ("degf", "°f", "f"):
-            return (number - 32.0) * 5.0 / 9.0
-    elif key in _LINEAR.get(kind, {}):
-        return number * _LINEAR[kind][key]
+    else:
+        found = _find_unit(unit, _LINEAR.get(kind, ()), kind, raw, where)
+        if found is not None:
+            return number * found[2]
     dimension = kind.replace("_", " ")
     problem = f"has unit {short_repr(unit)}, which is not a {dimension} unit"
     raise _error(raw, kind, where, problem)
+
+
+def _find_unit(unit: str, accepted: tuple[tuple[str, str, float], ...], kind: str,
+               raw: object, where: str | None) -> tuple[str, str, float] | None:
+    """The accepted (prefix, symbol, factor) that ``unit`` spells, None when none does.
+
+    Prefixes are matched by case, symbols in any case; a spelling whose case decides between
+    two readings is refused (see the module docstring)."""
+    readings = [entry for entry in accepted
+                if unit.lower() == (entry[0] + entry[1]).lower()
+                and unit[len(entry[0]):].lower() == entry[1].lower()]
+    for entry in readings:
+        if unit == entry[0] + entry[1]:  # written exactly: the prefix's case is meant
+            return entry
+    if len(readings) > 1:
+        spelled = " or ".join(f"{p + s} ({SI_PREFIXES[p][0] if p else 'no prefix'})"
+                              for p, s, _f in readings)
+        raise UnitError(
+            f"{short_repr(raw)} has unit {short_repr(unit)}, whose case does not say which "
+            "prefix it means",
+            where=where, fix=f"write {spelled}: SI prefixes are case-sensitive (m milli, "
+            "M mega)")
+    if len(readings) == 1:
+        prefix, symbol, _factor = readings[0]
+        written = unit[:len(prefix)]
+        if written != prefix and written in SI_PREFIXES:  # the case names another prefix
+            meant = SI_PREFIXES[written][0] + _SYMBOL_NAMES.get(symbol, symbol)
+            wanted = SI_PREFIXES[prefix][0] + _SYMBOL_NAMES.get(symbol, symbol)
+            raise UnitError(
+                f"{short_repr(raw)} has unit {short_repr(unit)}, which reads as {meant}s "
+                f"({written} is the prefix {SI_PREFIXES[written][0]}): not a "
+                f"{kind.replace('_', ' ')} unit this tool takes",
+                where=where, fix=f"write {prefix}{symbol} for {wanted}s: SI prefixes are "
+                "case-sensitive (m milli, M mega)")
+        return readings[0]
+    return None
 
 
 #: Longest text a message repeats from a file; longer text is cut (see :func:`shorten`).

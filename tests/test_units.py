@@ -54,3 +54,81 @@ def test_rejects_bad_values_with_a_fix(value, kind, fragment):
     assert fragment in text
     assert "seq.toml:3: sweep.rf_power" in text
     assert "fix:" in text
+
+
+# -- SI prefixes by case, the minus sign -----------------------------------------------------
+
+#: The SI prefixes, transcribed from the BIPM's machine-readable SI Reference Point
+#: (prefixes ontology, version 1.0.0: symbol and exponent of each prefix), which carries
+#: Table 7 of the SI Brochure (BIPM, "The International System of Units", 9th edition, 2019)
+#: and the four prefixes of the 27th CGPM (2022, Resolution 3). Micro's symbol there is the
+#: Greek mu (U+03BC).
+BIPM_PREFIXES = {
+    "quetta": ("Q", 30), "ronna": ("R", 27), "yotta": ("Y", 24), "zetta": ("Z", 21),
+    "exa": ("E", 18), "peta": ("P", 15), "tera": ("T", 12), "giga": ("G", 9),
+    "mega": ("M", 6), "kilo": ("k", 3), "hecto": ("h", 2), "deca": ("da", 1),
+    "deci": ("d", -1), "centi": ("c", -2), "milli": ("m", -3), "micro": ("\u03bc", -6),
+    "nano": ("n", -9), "pico": ("p", -12), "femto": ("f", -15), "atto": ("a", -18),
+    "zepto": ("z", -21), "yocto": ("y", -24), "ronto": ("r", -27), "quecto": ("q", -30),
+}
+
+
+def test_the_prefix_table_is_the_bipm_table():
+    import scipy.constants
+
+    from sweeprig.units import SI_PREFIXES
+
+    table = {symbol.replace("\u00b5", "\u03bc"): entry for symbol, entry in SI_PREFIXES.items()
+             if symbol != "u"}  # "u" stands in for micro where µ cannot be typed
+    assert {s for s, _e in BIPM_PREFIXES.values()} == set(table)
+    for name, (symbol, exponent) in BIPM_PREFIXES.items():
+        assert table[symbol][0] == name
+        assert table[symbol][1] == pytest.approx(10.0 ** exponent, rel=1e-15)
+        # and against a general-purpose library (scipy spells deca "deka")
+        assert table[symbol][1] == pytest.approx(
+            getattr(scipy.constants, "deka" if name == "deca" else name), rel=1e-15)
+    assert SI_PREFIXES["u"] == SI_PREFIXES["\u00b5"]
+
+
+@pytest.mark.parametrize(
+    ("text", "kind", "expected"),
+    [
+        ("100 mHz", "frequency", 0.1),       # m: milli (SI Brochure Table 7)
+        ("100 MHz", "frequency", 100e6),     # M: mega
+        ("10 mV", "voltage", 10e-3),
+        ("2.4 ghz", "frequency", 2.4e9),     # no prefix "g": only giga is meant
+        ("2.4 GHZ", "frequency", 2.4e9),     # the symbol in any case
+        ("10 Khz", "frequency", 10e3),       # no prefix "K" (that is the kelvin)
+        ("-10 DBM", "power", -10.0),
+        ("5 mv", "voltage", 5e-3),           # megavolts are no reading of a bench
+        ("5 \u03bcs", "time", 5e-6),         # Greek mu, the BIPM's micro
+        ("5 \u00b5s", "time", 5e-6),         # the micro sign
+        ("1 k\u2126", "resistance", 1e3),    # the ohm sign
+        ("\u221210 dBm", "power", -10.0),    # the typographic minus, as the README writes it
+        ("\u221240 °C", "temperature", -40.0),
+        ("1e\u22123 s", "time", 1e-3),
+    ],
+)
+def test_prefixes_are_read_by_case(text, kind, expected):
+    assert parse_quantity(text, kind) == pytest.approx(expected, rel=1e-12)
+
+
+@pytest.mark.parametrize(
+    ("text", "kind", "fragments"),
+    [
+        ("70 mhz", "frequency", ("case does not say", "write mHz (milli) or MHz (mega)")),
+        ("70 MHZ", "frequency", ("case does not say", "mHz (milli) or MHz (mega)")),
+        ("10 MV", "voltage", ("megavolts", "write mV for millivolts")),
+        ("1 MW", "power", ("megawatts", "write mW")),
+        ("5 MS", "time", ("megaseconds", "write ms")),
+        ("\u201310 dBm", "power", ("en dash", "'-'", "U+2212")),
+        ("\u201410 dBm", "power", ("em dash",)),
+    ],
+)
+def test_an_ambiguous_spelling_is_refused_with_the_readings(text, kind, fragments):
+    with pytest.raises(UnitError) as err:
+        parse_quantity(text, kind, where="seq.toml:7: study.rf_frequency")
+    message = str(err.value)
+    assert "seq.toml:7: study.rf_frequency" in message
+    for fragment in fragments:
+        assert fragment in message

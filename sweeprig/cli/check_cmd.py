@@ -146,7 +146,8 @@ def check(
         except SweeprigError as exc:
             results.append((str(path), time.perf_counter() - t0, exc))
             out.print(Text("FAIL ", style="bold red") + Text(one_line(path)))
-            out.print(Text("  " + exc.message().replace("\n", "\n  ")))
+            for line in problem_lines(exc):
+                out.print(Text(line))
             exit_code = exit_code or exc.exit_code
             continue
         results.append((str(path), time.perf_counter() - t0, None))
@@ -165,6 +166,26 @@ def check(
     if failed:
         out.print(f"{failed} of {len(results)} file(s) have problems")
         raise typer.Exit(code=exit_code)
+
+
+#: Most problems of one file that ``check`` lists (the rest are counted).
+MAX_PROBLEMS = 20
+
+
+def problem_lines(exc: SweeprigError, limit: int = MAX_PROBLEMS) -> list[str]:
+    """Every problem ``exc`` carries (itself and ``also``), numbered when more than one, up
+    to ``limit``, then how many more there are."""
+    problems = [exc, *exc.also]
+    if len(problems) == 1:
+        return ["  " + exc.message().replace("\n", "\n  ")]
+    lines = [f"  {len(problems)} problems:"]
+    for number, problem in enumerate(problems[:limit], start=1):
+        message = problem.message() if number > 1 else \
+            SweeprigError(exc.what, where=exc.where, fix=exc.fix).message()  # not "N more"
+        lines.append(f"  {number}. " + message.replace("\n", "\n     "))
+    if len(problems) > limit:
+        lines.append(f"  ... and {len(problems) - limit} more (fix these and check again)")
+    return lines
 
 
 def _calibration_status(bench: Bench, path: Path, accept: bool) -> str:
@@ -203,7 +224,7 @@ def _write_junit(path: Path | None, results: list[tuple[str, float, SweeprigErro
         if exc is not None:
             failure = ET.SubElement(case, "failure", message=exc.what.splitlines()[0],
                                     type=type(exc).__name__)
-            failure.text = exc.message()
+            failure.text = "\n".join(problem_lines(exc))
     tree = ET.ElementTree(suites)
     ET.indent(tree)
     try:

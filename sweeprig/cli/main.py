@@ -18,6 +18,7 @@ from sweeprig.cli import (
     store_cmd,
     twin_cmd,
 )
+from sweeprig.cli.helptext import HelpGroup
 
 app = typer.Typer(
     name="sweeprig",
@@ -26,6 +27,8 @@ app = typer.Typer(
     no_args_is_help=True,
     add_completion=False,
     pretty_exceptions_enable=False,
+    rich_markup_mode=None,  # plain help: rich markup would swallow "[safe_state]" (helptext.py)
+    cls=HelpGroup,
 )
 
 run_cmd.register(app)

@@ -10,13 +10,6 @@ from typing import TYPE_CHECKING, Annotated, Any
 
 import typer
 from rich.console import Console
-from rich.progress import (
-    BarColumn,
-    MofNCompleteColumn,
-    Progress,
-    TextColumn,
-    TimeElapsedColumn,
-)
 from rich.text import Text
 
 from sweeprig.cli.common import (
@@ -61,7 +54,7 @@ limits in the bench file and follow your lab's rules.
 
 Examples:
 
-  sweeprig run sequences/demo/downconverter.toml --sim
+  sweeprig run sequences/demo/kx2417-characterisation.toml --sim
 
   sweeprig run my-part.toml --bench bench3.toml --store results/lot7.sqlite
 """
@@ -133,51 +126,52 @@ def _drive(start: Callable[..., RunOutcome], *, quiet: bool, report: bool = True
     except SweeprigError as exc:
         print_error(exc)
         raise typer.Exit(exc.exit_code) from None
-    progress = Progress(
-        TextColumn("[bold]{task.description}"),
-        BarColumn(),
-        MofNCompleteColumn(),
-        TimeElapsedColumn(),
-        TextColumn("eta {task.fields[eta]}"),
-        console=console,
-        disable=quiet,
-        transient=False,
-    )
-    state: dict[str, object] = {}
+    live: dict[str, Any] = {}
 
     def started(run_id: int, total: int, files: LoadedFiles) -> None:
+        from rich.live import Live
+
+        from sweeprig.report.live_line import LiveLine, swept_fields
+
         where = "the simulated bench" if files.simulated else files.bench_path
         console.print(Text(f"run {run_id}: {one_line(files.sequence_path)} on {one_line(where)}, "
                            f"{total} points"))
         for warning in files.sim_warnings:
             console.print(Text(f"warning: {warning}", style="yellow"))
-        state["task"] = progress.add_task(f"run {run_id}", total=total, eta="…")
-        progress.start()
+        if quiet:
+            return
+        live["line"] = LiveLine(total, swept_fields(files.sequence))
+        live["display"] = Live(live["line"], console=console, refresh_per_second=4,
+                               transient=False)
+        live["display"].start()
 
     def point_done(result: PointResult) -> None:
-        task = state.get("task")
-        if task is not None:
-            progress.update(task, advance=1, description=_summary(result),  # type: ignore[arg-type]
-                            **_eta_field(result.eta))
+        line = live.get("line")
+        if line is not None:
+            line.point(result.point, result.gain_db, _eta_text(result.eta))
 
     def waiting(activity: Mapping[str, Any]) -> None:
-        task = state.get("task")
-        if task is not None:
+        line = live.get("line")
+        if line is not None:
             label = one_line(str(activity.get("label") or activity.get("what") or "waiting"))
-            progress.update(task, description=f"waiting: {label}",  # type: ignore[arg-type]
-                            **_eta_field(activity))
+            line.waiting(label, _eta_text(activity))
+
+    def stop_display() -> None:
+        display = live.pop("display", None)
+        if display is not None:
+            display.stop()
 
     try:
         outcome = start(started, point_done, waiting)
     except SweeprigError as exc:
-        progress.stop()
+        stop_display()
         print_error(exc)
         raise typer.Exit(exc.exit_code) from None
     except RunStopped as stop:  # before the run was recorded: nothing was switched on
-        progress.stop()
+        stop_display()
         print_error(SweeprigError(f"{stop} before the run started; no run was recorded"))
         raise typer.Exit(stop.exit_code) from None
-    progress.stop()
+    stop_display()
     stops = active()
     if stops is not None:  # the run has ended: a signal now is recorded, it cannot cut the
         stops.begin_stop_path()  # summary or the report (and their imports) in half
@@ -277,24 +271,13 @@ def _announce(console: Console, outcome: RunOutcome, made: _Made | None,
                      result.message)
 
 
-def _eta_field(fields: Mapping[str, Any] | None) -> dict[str, str]:
-    """The live line's ETA: the whole run's wall time left (kept as it was when unknown)."""
+def _eta_text(fields: Mapping[str, Any] | None) -> str | None:
+    """The live line's ETA: the whole run's wall time left (None when unknown: kept as was)."""
     from sweeprig.engine.eta import eta_text
 
     if not fields or fields.get("eta_wall_s") is None:
-        return {}
-    return {"eta": eta_text(float(fields["eta_wall_s"]))}
-
-
-def _summary(result: PointResult) -> str:
-    p = result.point
-    parts = [f"pt {p.index}", p.study]
-    if p.temperature_c is not None:
-        parts.append(f"{p.temperature_c:g}°C")
-    parts.append(f"RF {p.rf_freq_hz / 1e9:.4g} GHz {p.rf_power_dbm:+.1f} dBm")
-    if result.gain_db is not None:
-        parts.append(f"gain {result.gain_db:+.2f} dB")
-    return " | ".join(parts)
+        return None
+    return eta_text(float(fields["eta_wall_s"]))
 
 
 SAFE_CAUTION = ("Check the bench yourself before touching it; RF power, supplies and "

@@ -11,7 +11,8 @@ from rich.console import Console
 from rich.table import Table
 from rich.text import Text
 
-from sweeprig.errors import SweeprigError
+from sweeprig.cli.common import fail, print_error
+from sweeprig.errors import InstrumentError, SweeprigError
 from sweeprig.text import one_line
 
 if TYPE_CHECKING:
@@ -102,18 +103,21 @@ def scan_command(
     from sweeprig.transport.backend import choose_visa_library
 
     console = Console(highlight=False)
-    errors = Console(stderr=True, highlight=False)
     visa_library = visa_library or choose_visa_library()
     found: list[str] = []
+    discovery: SweeprigError | None = None
     if discover:
         try:
             found = visa.list_resources(visa_library)
         except SweeprigError as exc:
-            errors.print(f"warning: {exc.message()}")
+            discovery = exc
+            print_error(exc, prefix="warning: ")
     extra = [r for r in (resource or []) if r not in found]
     resources = found + extra
     if not resources:
         console.print("no VISA resources found; name raw TCP sockets with --resource")
+        if discovery is not None:  # nothing was looked at: the scan failed
+            raise typer.Exit(discovery.exit_code)
         return
     profiles = load_all_profiles(profiles_dir or []) if identify else []
     table = Table(title="VISA resources", title_justify="left")
@@ -121,13 +125,13 @@ def scan_command(
     if identify:
         table.add_column("*IDN?")
         table.add_column("profiles")
+    failed: list[str] = []
     rm = None
     if identify:
         try:
             rm = visa.open_resource_manager(visa_library)
         except SweeprigError as exc:
-            errors.print(f"[bold red]error:[/] {exc.message()}")
-            raise typer.Exit(exc.exit_code) from None
+            raise fail(exc) from None
     try:
         for name in resources:
             if not identify:
@@ -138,6 +142,7 @@ def scan_command(
                 resource_manager=rm,
             )
             if result.error is not None:
+                failed.append(name)
                 table.add_row(Text(one_line(name)), Text(one_line(result.error), style="red"),
                               "")
             else:  # an instrument's reply may hold anything: shown escaped, never as markup
@@ -147,6 +152,13 @@ def scan_command(
         if rm is not None:
             rm.close()
     console.print(table)
+    if failed:  # a resource that does not answer is a failed scan (scripts test the exit)
+        raise fail(InstrumentError(
+            f"{len(failed)} of {len(resources)} resource(s) could not be identified: "
+            + ", ".join(one_line(name) for name in failed[:3])
+            + (" and more" if len(failed) > 3 else ""),
+            fix="check the instrument is on and reachable (address, port, cable), or "
+            "raise --timeout; the table above says what each one did"))
 
 
 def register(app: typer.Typer) -> None:

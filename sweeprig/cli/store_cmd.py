@@ -69,9 +69,9 @@ def _duration(seconds: float | None) -> str:
     return f"{hours}:{minutes:02d}:{secs:02d}"
 
 
-def _progress(done: int, total: int | None) -> str:
+def _progress(done: int, total: int | None, *, percent: bool = True) -> str:
     if total:
-        return f"{done}/{total} ({100.0 * done / total:.0f}%)"
+        return f"{done}/{total}" + (f" ({100.0 * done / total:.0f}%)" if percent else "")
     return str(done)
 
 
@@ -99,28 +99,38 @@ def runs_command(store: StoreOption = DEFAULT_STORE_PATH) -> None:
     if not summaries:
         console.print(f"no runs in {store}")
         return
-    table = Table(title=f"runs in {store}", title_justify="left")
-    for column in ("id", "status", "part", "serial", "points", "started", "duration", "sequence"):
-        table.add_column(
-            column,
-            justify="right" if column in ("id", "points") else "left",
-            no_wrap=column in ("id", "status", "points", "started", "duration"),
-            overflow="fold",
-        )
-    for run in summaries:
-        style = _STATUS_STYLE.get(run.status, "white")
-        sequence = Path(run.sequence_path).stem + ("  (sim)" if run.simulated else "")
-        table.add_row(
-            str(run.id),
-            f"[{style}]{run.status}[/]",
-            Text(one_line(run.part)),
-            Text(one_line(run.serial)),
-            _progress(run.points_done, run.points_total),
-            _when(run.created)[:16],
-            _duration(run.duration_s),
-            Text(one_line(sequence)),
-        )
-    console.print(table)
+    console.print(runs_table(summaries, str(store), console.width, console))
+
+
+def runs_table(summaries: list[Any], store: str, width: int, console: Console) -> Table:
+    """The runs as a table that fits ``width`` columns (report/fit_table.py): the start time
+    and the progress shorten first, then the duration, the serial, the start time and the
+    sequence are left out, in that order; id, status, part and points always show."""
+    from rich import box
+
+    from sweeprig.report.fit_table import Column, fitted_table
+
+    def status(run: Any) -> Text:
+        return Text(run.status, style=_STATUS_STYLE.get(run.status, "white"))
+
+    sequence = [Text(one_line(Path(r.sequence_path).stem) + (" (sim)" if r.simulated else ""))
+                for r in summaries]
+    columns = [
+        Column("id", [str(r.id) for r in summaries], 100, justify="right"),
+        Column("status", [status(r) for r in summaries], 100),
+        Column("part", [Text(one_line(r.part)) for r in summaries], 100, wrap=True),
+        Column("serial", [Text(one_line(r.serial)) for r in summaries], 50, wrap=True),
+        Column("points", [_progress(r.points_done, r.points_total) for r in summaries], 100,
+               short_cells=[_progress(r.points_done, r.points_total, percent=False)
+                            for r in summaries], justify="right"),
+        Column("started", [_when(r.created)[:16] for r in summaries], 60,
+               short_cells=[_when(r.created)[5:16] for r in summaries]),
+        Column("duration", [_duration(r.duration_s) for r in summaries], 40,
+               short_header="time"),
+        Column("sequence", sequence, 70, wrap=True),
+    ]
+    return fitted_table(columns, width, console, title=f"runs in {one_line(store)}",
+                        title_justify="left", box=box.SIMPLE_HEAD, pad_edge=False)
 
 
 def status_command(

@@ -307,19 +307,32 @@ def validate(model: type[M], doc: Document, *, docs: str = SEQUENCE_DOCS) -> M:
         raise validation_error(model, exc, doc.where, docs=docs) from None
 
 
+#: Most validation problems of one file described (each is located in the file's text).
+MAX_DESCRIBED = 50
+
+
 def validation_error(
     model: type[BaseModel], exc: ValidationError, where: Callable[[KeyPath], str],
     *, docs: str = SEQUENCE_DOCS,
 ) -> InputError:
-    """Turn pydantic's first error into one located InputError with a fix."""
+    """Turn pydantic's errors into located InputErrors with a fix: the first, carrying the
+    others in ``also`` (``sweeprig check`` lists them all)."""
+    found: list[InputError] = []
+    seen: set[tuple[str, str]] = set()
     errors = _relevant(exc.errors(include_url=False))
-    first = errors[0]
-    loc = _clean(first["loc"])
-    what, fix = _describe(model, first, loc, docs)
-    if len(errors) > 1:
-        more = len(errors) - 1
-        what += f" ({more} more problem{'s' if more > 1 else ''} may follow)"
-    return InputError(what, where=where(loc), fix=fix)
+    for err in errors[:MAX_DESCRIBED]:  # each is located in the file: a bounded number
+        loc = _clean(err["loc"])
+        what, fix = _describe(model, err, loc, docs)
+        place = where(loc)
+        if (place, what) not in seen:
+            seen.add((place, what))
+            found.append(InputError(what, where=place, fix=fix))
+    first = found[0]
+    rest = len(errors) - MAX_DESCRIBED
+    more = (InputError(f"{rest} more problem{'s' if rest > 1 else ''}, not described",
+                       fix="fix the ones above and check again"),) if rest > 0 else ()
+    first.also = (*found[1:], *more)
+    return first
 
 
 def _clean(loc: Any) -> KeyPath:

@@ -184,3 +184,29 @@ def test_calibrate_then_run_with_it_from_the_command_line(tmp_path) -> None:
                       "--valid-days", "0")
     assert bad_days.exit_code != 0 and "--valid-days" in bad_days.output
     assert not (tmp_path / "x.toml").exists() and not (tmp_path / "y.toml").exists()
+
+
+def test_check_lists_every_problem_of_a_file_up_to_twenty(app, tmp_path) -> None:
+    typos = "".join(f"colour_{i} = 1\n" for i in range(25))  # 25 unknown keys in [part]
+    path = tmp_path / "many.toml"
+    path.write_text(HOT.replace('id = "KX-1"\n', 'id = "KX-1"\n' + typos), encoding="utf-8")
+    junit = tmp_path / "check.xml"
+    result = run(app, "check", path, "--junit", junit)
+    assert result.exit_code == 2, result.output
+    out = result.output
+    assert "25 problems:" in out
+    assert "1. " in out and "20. " in out and "21. " not in out
+    assert "... and 5 more" in out
+    assert "many.toml:3: part.colour_0: unknown key 'colour_0'" in out
+    assert "many.toml:22: part.colour_19" in out  # each with its own line
+    failure = ET.parse(junit).getroot().find(".//failure")
+    assert failure is not None and "25 problems:" in (failure.text or "")
+
+
+def test_other_commands_print_the_first_problem_and_count_the_rest(app, tmp_path) -> None:
+    path = tmp_path / "two.toml"
+    path.write_text(HOT.replace('id = "KX-1"\n', 'id = "KX-1"\nidd = 2\ncolour = 3\n'),
+                    encoding="utf-8")
+    result = run(app, "plan", path)
+    assert result.exit_code == 2, result.output
+    assert "(1 more problem in this file: `sweeprig check` lists every one)" in result.output

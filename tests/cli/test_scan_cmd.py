@@ -83,7 +83,7 @@ def test_scan_identifies_and_suggests(app):
     assert server.received == ["*IDN?"]  # nothing but *IDN? is sent
 
 
-def test_scan_unreachable_resource_is_reported_not_raised(app):
+def test_scan_of_a_refused_connection_is_reported_and_exits_non_zero(app):
     with socket.socket() as s:
         s.bind(("127.0.0.1", 0))
         port = s.getsockname()[1]
@@ -91,9 +91,38 @@ def test_scan_unreachable_resource_is_reported_not_raised(app):
         app, ["scan", "--no-discover", "-r", f"TCPIP0::127.0.0.1::{port}::SOCKET",
               "--timeout", "0.5"], env={"COLUMNS": "200"},
     )
-    assert result.exit_code == 0, result.output
+    assert result.exit_code == 4, result.output  # InstrumentError: a failed scan
     assert "Traceback" not in result.output
     assert str(port) in result.output
+    assert "1 of 1 resource(s) could not be identified" in result.output
+
+
+def test_scan_with_one_answering_and_one_refused_exits_non_zero(app):
+    server = IdnServer("Tarnwick Labs,TW-SA13,SA13-0001,1.0")
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        port = s.getsockname()[1]
+    try:
+        result = CliRunner().invoke(
+            app, ["scan", "--no-discover", "-r", server.resource, "-r",
+                  f"TCPIP0::127.0.0.1::{port}::SOCKET", "--timeout", "0.5"],
+            env={"COLUMNS": "200"})
+    finally:
+        server.close()
+    assert result.exit_code == 4, result.output
+    assert "TW-SA13" in result.output and "1 of 2 resource(s)" in result.output
+
+
+def test_a_failed_discovery_with_nothing_to_scan_exits_non_zero(app, monkeypatch):
+    from sweeprig.errors import InstrumentError
+
+    def broken(*_a, **_k):
+        raise InstrumentError("the VISA library cannot be loaded", fix="install one")
+
+    monkeypatch.setattr(scan_cmd.visa, "list_resources", broken)
+    result = CliRunner().invoke(app, ["scan"])
+    assert result.exit_code == 4, result.output
+    assert "the VISA library cannot be loaded" in result.output
 
 
 def test_scan_nothing(app):

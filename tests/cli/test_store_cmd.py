@@ -98,3 +98,46 @@ def test_export_bad_format(app, store_path, tmp_path):
 def test_help_has_example(app, command):
     result = CliRunner().invoke(app, [command, "--help"])
     assert result.exit_code == 0 and "Example" in result.output
+
+
+@pytest.fixture
+def long_names_store(tmp_path):
+    """Runs with the long names a real store holds (the demo's sequence, a lot serial)."""
+    path = tmp_path / "runs.sqlite"
+    with SqliteRunStore(path) as store:
+        for serial in ("L07-0012", "L07-0013"):
+            run_id = store.create_run(
+                sequence_path="sequences/demo/kx2417-characterisation.toml",
+                sequence_text="x = 1\n", part="KX-2417 (fictional)", serial=serial,
+                simulated=True, points_total=264)
+            store.set_status(run_id, "complete")
+    return path
+
+
+def _runs_at(app, path, width: int) -> list[str]:
+    result = CliRunner().invoke(app, ["runs", "--store", str(path)],
+                                env={"COLUMNS": str(width)})
+    assert result.exit_code == 0, result.output
+    lines = result.output.splitlines()
+    assert all(len(line) <= width for line in lines), result.output
+    return lines
+
+
+@pytest.mark.parametrize("width", [80, 120])
+def test_runs_is_readable_at_80_and_120_columns(app, long_names_store, width):
+    lines = _runs_at(app, long_names_store, width)
+    text = "\n".join(lines)
+    # no name broken into two-character pieces, no word per line
+    for whole in ("complete", "KX-2417", "0/264", "kx2417-characterisation"):
+        assert whole in text, text
+    header = next(line for line in lines if line.lstrip().startswith("id "))
+    assert all(name in header for name in ("status", "part", "points")), header
+    if width == 120:
+        assert "serial" in header and "L07-0012" in text and "0/264 (0%)" in text
+
+
+def test_runs_at_120_columns_shows_every_column(app, long_names_store):
+    header = next(line for line in _runs_at(app, long_names_store, 120)
+                  if line.lstrip().startswith("id "))
+    assert header.split() == ["id", "status", "part", "serial", "points", "started",
+                              "duration", "sequence"]

@@ -7,7 +7,7 @@ from pathlib import Path
 
 import pytest
 
-from sweeprig.cli.run_cmd import _eta_field
+from sweeprig.cli.run_cmd import _eta_text
 from sweeprig.engine.eta import EtaTracker, eta_text
 from sweeprig.engine.session import run_sequence, shipped_sequences_dir
 from sweeprig.formats.sequence import sequence_from_dict
@@ -45,8 +45,8 @@ def test_the_eta_counts_the_conditions_still_to_come() -> None:
 
 def test_eta_text_and_the_live_line_field() -> None:
     assert eta_text(3725.2) == "1:02:06"
-    assert _eta_field({"eta_wall_s": 61.0}) == {"eta": "0:01:01"}
-    assert _eta_field({"what": "soak"}) == {}  # unknown: the line keeps what it had
+    assert _eta_text({"eta_wall_s": 61.0}) == "0:01:01"
+    assert _eta_text({"what": "soak"}) is None  # unknown: the line keeps what it had
 
 
 def test_a_live_eta_at_every_wait_and_point_within_15_percent(tmp_path: Path) -> None:

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import dataclasses
 
+import pytest
 from rich.console import Console
 
 from sweeprig.report.terminal import print_summary
@@ -48,3 +49,39 @@ def test_flags_met_are_explained_under_the_table(report_run):
     assert "flags:" in text
     assert f"RBW merged: {FLAG_MEANINGS['rbw_merged']} (limit check inconclusive)" in text
     assert f"noise: {FLAG_MEANINGS['in_noise']}\n" in text  # a bound, not suspect
+
+
+def _summary_at(run, width: int) -> str:
+    console = Console(record=True, width=width, force_terminal=False)
+    print_summary(run, console)
+    text = console.export_text()
+    assert all(len(line) <= width for line in text.splitlines()), text
+    return text
+
+
+@pytest.mark.parametrize("width", [80, 120])
+def test_the_summary_is_readable_at_80_and_120_columns(report_run, width):
+    from sweeprig.report.tables import figure_text, summary_rows
+
+    text = _summary_at(report_run, width)
+    rows = summary_rows(report_run, by=("study",))
+    lines = text.splitlines()
+    for row in rows:  # every figure's value whole on its row, beside the start of its label
+        value = figure_text(row.figure).split(" (k =")[0]
+        first_word = row.label.split()[0]
+        assert any(value in line and line.lstrip().startswith(first_word) for line in lines), \
+            f"{row.label} / {value} not on one line:\n{text}"
+    for name in {row.study for row in rows}:  # study names never broken inside a word
+        assert name in text, text
+    header = next(line for line in lines if line.lstrip().startswith("figure"))
+    assert "result" in header
+    if width == 120:
+        assert "(k = 2)" in text and "limit" in header
+
+
+def test_at_80_columns_flags_become_numbers_of_the_notes(report_run):
+    figure = dataclasses.replace(report_run.figures[0], flags=("in_noise",))
+    flagged = dataclasses.replace(report_run, figures=(figure, *report_run.figures[1:]))
+    text = _summary_at(flagged, 80)
+    assert "[1] noise: " in text
+    assert "value (k = 2)" in text  # the coverage factor moved into the header
