@@ -19,7 +19,9 @@ bit means the instrument reset itself during the point, so the point is measured
 
 Faults (:class:`RecoveryPolicy`): a point that fails — timeout, dropped connection, garbled
 reply, instrument reset, error in the queue — is measured again from scratch after the bench
-is recovered (each instrument probed with ``*ESR?``; a dead link is reconnected with
+is recovered (a timed-out query's session was device-cleared and resynchronised by the
+transport, so it gets ``*CLS`` and is recorded as ``device_clear``; each instrument probed
+with ``*ESR?``; a dead link is reconnected with
 backoff; cached settings are forgotten so everything is sent again; supply and chamber set
 points are restored). An error in the queue follows the policy: ``retry`` (default),
 ``skip`` (record why and go on) or ``stop``. Every fault and what was done is written to the
@@ -53,6 +55,7 @@ from sweeprig.plan.duration import soak_range_s
 from sweeprig.plan.expand import Point
 from sweeprig.plan.readings import Reading
 from sweeprig.store.base import PointRecord, ReadingRecord, RunStore, utc_now
+from sweeprig.transport.base import ReplyTimeout
 
 CHAMBER_POLL_S = 10.0
 #: Wall seconds between heartbeats while the run waits (chamber, soak): a live run's heartbeat
@@ -273,11 +276,21 @@ class Runner:
         """
         self.recoveries += 1
         text = str(cause)
+        cleared: set[str] = set()
         for role, driver in self.d.items():
-            if driver.resource in text:
+            if driver.resource not in text:
+                continue
+            if isinstance(cause, ReplyTimeout) and cause.resynced:
+                # the transport device-cleared the session and is in step again: a late
+                # reply can no longer shift an answer (sweeprig.transport.resync)
+                cleared.add(role)
+                self._event("warning", "device_clear", f"role {role!r}: {cause.resync}")
+            else:
                 self._reconnect(role, driver, reason="named in the fault")
         for role, driver in self.d.items():
             self._probe(role, driver)
+            if role in cleared:
+                driver.clear()  # *CLS after the device clear (status left as it was)
             driver.forget_state()
             driver.prepare()
         self._supply_on = False
