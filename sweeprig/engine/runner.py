@@ -657,7 +657,8 @@ class Runner:
             averages=a.averages,
         ):
             self._check(sa)
-        sa.sweep(a.measure_time_s)
+        sweep_s, sweep_from = sa.expected_sweep_s(a.averages, a.measure_time_s)
+        sa.sweep(sweep_s)  # wait and timeout from the analyzer's own sweep time
         level = sa.marker_level_dbm(reading.freq_hz)
         floor = self._noise_floor(sa, reading, a.span_hz, a.rbw_hz, a.averages)
         overload = sa.overloaded()
@@ -684,7 +685,8 @@ class Runner:
             averages=a.averages,
             overload=overload,
             attenuation_check=True if reading.attenuation_check else None,
-            extra=_reading_extra(reading, level, loss, floor),
+            extra={**_reading_extra(reading, level, loss, floor),
+                   "sweep_s": sweep_s, "sweep_time_from": sweep_from},
         )
 
     @staticmethod

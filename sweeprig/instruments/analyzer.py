@@ -58,6 +58,27 @@ class AnalyzerDriver(Driver):
         frequency moves), then centre, span, RBW, VBW, points, averages. Setting RBW or the
         attenuation by value turns its coupling (``*_auto``) off when the profile has it.
         """
+        try:
+            sent = self._configure(centre_hz, span_hz, rbw_hz, vbw_hz, ref_level_dbm,
+                                   attenuation_db, averages, points)
+        except BaseException:
+            self._sweep_time = None
+            raise
+        if sent:
+            self._sweep_time = None  # settings changed: ask the analyzer again
+        return sent
+
+    def forget_state(self) -> None:
+        """Forget the cached settings and the sweep time read for them."""
+        super().forget_state()
+        self._sweep_time = None
+
+    _sweep_time: tuple[float, int] | None = None
+
+    def _configure(self, centre_hz: float | None, span_hz: float | None,
+                   rbw_hz: float | None, vbw_hz: float | None, ref_level_dbm: float | None,
+                   attenuation_db: float | None, averages: int | None,
+                   points: int | None) -> int:
         sent = 0
         if ref_level_dbm is not None:
             sent += self.set_value("ref_level", ref_level_dbm)
@@ -109,6 +130,20 @@ class AnalyzerDriver(Driver):
     def sweep_time_s(self) -> float:
         """Time of one sweep, s, as the analyzer reports it."""
         return float(self.ask("sweep_time"))
+
+    def expected_sweep_s(self, averages: int, planned_s: float | None) -> tuple[float | None, str]:
+        """How long the next :meth:`sweep` (all ``averages``) should take, s, and where that
+        comes from: the analyzer's own sweep time (``SWEep:TIME?``, the profile's
+        ``sweep_time``) times the averages, asked once per configuration, or ``planned_s``
+        (the planner's model) when the profile has no such query.
+
+        The analyzer knows its couplings, minimum sweep times and detector dwell; a model of
+        them does not (issue: a sweep wait taken from the model alone)."""
+        if not self.profile.has("sweep_time"):
+            return planned_s, "plan"
+        if self._sweep_time is None or self._sweep_time[1] != averages:
+            self._sweep_time = (self.sweep_time_s(), averages)
+        return self._sweep_time[0] * max(1, averages), "instrument"
 
     def marker_level_dbm(self, freq_hz: float) -> float:
         """Put marker 1 at ``freq_hz`` and read its level, dBm (from the last sweep)."""
