@@ -41,8 +41,6 @@ from collections.abc import Callable, Iterable, Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
-import numpy as np
-
 from sweeprig.clock import Clock
 from sweeprig.engine.connect import BenchDrivers
 from sweeprig.engine.eta import EtaTracker
@@ -702,12 +700,11 @@ class Runner:
         """
         assert reading.freq_hz is not None
         centre_hz = reading.freq_hz
-        trace = sa.trace()
-        if trace.size < 3 or span_hz <= 0:
+        trace = sa.read_trace()  # the axis as the analyzer reports it, not as requested
+        if trace.points < 3 or trace.span_hz <= 0:
             return NoiseFloor(None, 0, "no trace around the product (zero span)")
-        freqs = centre_hz + np.linspace(-span_hz / 2, span_hz / 2, trace.size)
-        return estimate_noise_floor(trace, freqs, rbw_hz, (centre_hz, *reading.known_hz),
-                                    averages=averages)
+        return estimate_noise_floor(trace.levels_dbm, trace.freq_hz, rbw_hz,
+                                    (centre_hz, *reading.known_hz), averages=averages)
 
     def _read_power_meter(self, point: Point, reading: Reading) -> ReadingRecord:
         pm = self.d.pm

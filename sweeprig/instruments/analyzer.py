@@ -8,6 +8,7 @@ import numpy as np
 
 from sweeprig.errors import InputError
 from sweeprig.instruments.driver import Driver
+from sweeprig.instruments.trace import Trace
 
 
 @dataclass(frozen=True)
@@ -62,18 +63,19 @@ class AnalyzerDriver(Driver):
             sent = self._configure(centre_hz, span_hz, rbw_hz, vbw_hz, ref_level_dbm,
                                    attenuation_db, averages, points)
         except BaseException:
-            self._sweep_time = None
+            self._sweep_time = self._axis = None
             raise
         if sent:
-            self._sweep_time = None  # settings changed: ask the analyzer again
+            self._sweep_time = self._axis = None  # settings changed: ask the analyzer again
         return sent
 
     def forget_state(self) -> None:
         """Forget the cached settings and the sweep time read for them."""
         super().forget_state()
-        self._sweep_time = None
+        self._sweep_time = self._axis = None
 
     _sweep_time: tuple[float, int] | None = None
+    _axis: tuple[float, float, int | None] | None = None
 
     def _configure(self, centre_hz: float | None, span_hz: float | None,
                    rbw_hz: float | None, vbw_hz: float | None, ref_level_dbm: float | None,
@@ -171,6 +173,21 @@ class AnalyzerDriver(Driver):
         if self.profile.has("trace_format"):
             self.set_value("trace_format", "real32" if use_binary else "ascii")
         return np.asarray(self.ask(op), dtype=np.float64)
+
+    def read_trace(self) -> Trace:
+        """The last sweep's trace with its axis as the analyzer reports it (centre and span
+        read back once per configuration, the point count read back when the profile can).
+        """
+        levels = self.trace()
+        if self._axis is None:
+            centre = float(self.read_back("centre"))
+            span = float(self.read_back("span"))
+            points = None
+            if self.profile.has("points") and self.profile.op("points").read_back is not None:
+                points = int(self.read_back("points"))
+            self._axis = (centre, span, points)
+        centre, span, points = self._axis
+        return Trace.from_centre_span(centre, span, levels, points)
 
     def overloaded(self) -> bool:
         """Whether the analyzer input was overloaded in the last sweep."""
