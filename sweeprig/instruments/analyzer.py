@@ -37,6 +37,20 @@ class AnalyzerDriver(Driver):
         """The profile's ``prepare`` commands, then single-sweep mode."""
         super().prepare()
         self.single_sweep_mode()
+        self.enable_status()
+
+    def enable_status(self) -> int:
+        """Enable the questionable bits the ``overload`` and ``uncalibrated`` flags read, so
+        that they also feed the status byte's summary bit (SCPI-99 Vol. 1, status reporting,
+        from memory); returns the mask enabled (0 when the profile has no such command)."""
+        if not self.profile.has("status_enable"):
+            return 0
+        mask = 0
+        for op in ("overload", "uncalibrated"):
+            if self.profile.has(op):
+                mask |= self.profile.op(op).mask or 0
+        self.do("status_enable", mask)
+        return mask
 
     def single_sweep_mode(self) -> bool:
         """Continuous sweep off: each :meth:`sweep` takes exactly one (averaged) sweep."""
