@@ -19,7 +19,9 @@ bit means the instrument reset itself during the point, so the point is measured
 
 Faults (:class:`RecoveryPolicy`): a point that fails — timeout, dropped connection, garbled
 reply, instrument reset, error in the queue — is measured again from scratch after the bench
-is recovered (each instrument probed with ``*ESR?``; a dead link is reconnected with
+is recovered (a timed-out query's session was device-cleared and resynchronised by the
+transport, so it gets ``*CLS`` and is recorded as ``device_clear``; each instrument probed
+with ``*ESR?``; a dead link is reconnected with
 backoff; cached settings are forgotten so everything is sent again; supply and chamber set
 points are restored). An error in the queue follows the policy: ``retry`` (default),
 ``skip`` (record why and go on) or ``stop``. Every fault and what was done is written to the
@@ -39,8 +41,6 @@ from collections.abc import Callable, Iterable, Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
-import numpy as np
-
 from sweeprig.clock import Clock
 from sweeprig.engine.connect import BenchDrivers
 from sweeprig.engine.eta import EtaTracker
@@ -53,6 +53,7 @@ from sweeprig.plan.duration import soak_range_s
 from sweeprig.plan.expand import Point
 from sweeprig.plan.readings import Reading
 from sweeprig.store.base import PointRecord, ReadingRecord, RunStore, utc_now
+from sweeprig.transport.base import ReplyTimeout
 
 CHAMBER_POLL_S = 10.0
 #: Wall seconds between heartbeats while the run waits (chamber, soak): a live run's heartbeat
@@ -278,11 +279,21 @@ class Runner:
         """
         self.recoveries += 1
         text = str(cause)
+        cleared: set[str] = set()
         for role, driver in self.d.items():
-            if driver.resource in text:
+            if driver.resource not in text:
+                continue
+            if isinstance(cause, ReplyTimeout) and cause.resynced:
+                # the transport device-cleared the session and is in step again: a late
+                # reply can no longer shift an answer (sweeprig.transport.resync)
+                cleared.add(role)
+                self._event("warning", "device_clear", f"role {role!r}: {cause.resync}")
+            else:
                 self._reconnect(role, driver, reason="named in the fault")
         for role, driver in self.d.items():
             self._probe(role, driver)
+            if role in cleared:
+                driver.clear()  # *CLS after the device clear (status left as it was)
             driver.forget_state()
             driver.prepare()
         self._supply_on = False
@@ -651,7 +662,8 @@ class Runner:
             averages=a.averages,
         ):
             self._check(sa)
-        sa.sweep(a.measure_time_s)
+        sweep_s, sweep_from = sa.expected_sweep_s(a.averages, a.measure_time_s)
+        sa.sweep(sweep_s)  # wait and timeout from the analyzer's own sweep time
         level = sa.marker_level_dbm(reading.freq_hz)
         floor = self._noise_floor(sa, reading, a.span_hz, a.rbw_hz, a.averages)
         overload = sa.overloaded()
@@ -678,7 +690,8 @@ class Runner:
             averages=a.averages,
             overload=overload,
             attenuation_check=True if reading.attenuation_check else None,
-            extra=_reading_extra(reading, level, loss, floor),
+            extra={**_reading_extra(reading, level, loss, floor),
+                   "sweep_s": sweep_s, "sweep_time_from": sweep_from},
         )
 
     @staticmethod
@@ -694,12 +707,11 @@ class Runner:
         """
         assert reading.freq_hz is not None
         centre_hz = reading.freq_hz
-        trace = sa.trace()
-        if trace.size < 3 or span_hz <= 0:
+        trace = sa.read_trace()  # the axis as the analyzer reports it, not as requested
+        if trace.points < 3 or trace.span_hz <= 0:
             return NoiseFloor(None, 0, "no trace around the product (zero span)")
-        freqs = centre_hz + np.linspace(-span_hz / 2, span_hz / 2, trace.size)
-        return estimate_noise_floor(trace, freqs, rbw_hz, (centre_hz, *reading.known_hz),
-                                    averages=averages)
+        return estimate_noise_floor(trace.levels_dbm, trace.freq_hz, rbw_hz,
+                                    (centre_hz, *reading.known_hz), averages=averages)
 
     def _read_power_meter(self, point: Point, reading: Reading) -> ReadingRecord:
         pm = self.d.pm

@@ -8,6 +8,7 @@ import numpy as np
 
 from sweeprig.errors import InputError
 from sweeprig.instruments.driver import Driver
+from sweeprig.instruments.trace import Trace
 
 
 @dataclass(frozen=True)
@@ -36,6 +37,20 @@ class AnalyzerDriver(Driver):
         """The profile's ``prepare`` commands, then single-sweep mode."""
         super().prepare()
         self.single_sweep_mode()
+        self.enable_status()
+
+    def enable_status(self) -> int:
+        """Enable the questionable bits the ``overload`` and ``uncalibrated`` flags read, so
+        that they also feed the status byte's summary bit (SCPI-99 Vol. 1, status reporting,
+        from memory); returns the mask enabled (0 when the profile has no such command)."""
+        if not self.profile.has("status_enable"):
+            return 0
+        mask = 0
+        for op in ("overload", "uncalibrated"):
+            if self.profile.has(op):
+                mask |= self.profile.op(op).mask or 0
+        self.do("status_enable", mask)
+        return mask
 
     def single_sweep_mode(self) -> bool:
         """Continuous sweep off: each :meth:`sweep` takes exactly one (averaged) sweep."""
@@ -58,6 +73,28 @@ class AnalyzerDriver(Driver):
         frequency moves), then centre, span, RBW, VBW, points, averages. Setting RBW or the
         attenuation by value turns its coupling (``*_auto``) off when the profile has it.
         """
+        try:
+            sent = self._configure(centre_hz, span_hz, rbw_hz, vbw_hz, ref_level_dbm,
+                                   attenuation_db, averages, points)
+        except BaseException:
+            self._sweep_time = self._axis = None
+            raise
+        if sent:
+            self._sweep_time = self._axis = None  # settings changed: ask the analyzer again
+        return sent
+
+    def forget_state(self) -> None:
+        """Forget the cached settings and the sweep time read for them."""
+        super().forget_state()
+        self._sweep_time = self._axis = None
+
+    _sweep_time: tuple[float, int] | None = None
+    _axis: tuple[float, float, int | None] | None = None
+
+    def _configure(self, centre_hz: float | None, span_hz: float | None,
+                   rbw_hz: float | None, vbw_hz: float | None, ref_level_dbm: float | None,
+                   attenuation_db: float | None, averages: int | None,
+                   points: int | None) -> int:
         sent = 0
         if ref_level_dbm is not None:
             sent += self.set_value("ref_level", ref_level_dbm)
@@ -110,6 +147,20 @@ class AnalyzerDriver(Driver):
         """Time of one sweep, s, as the analyzer reports it."""
         return float(self.ask("sweep_time"))
 
+    def expected_sweep_s(self, averages: int, planned_s: float | None) -> tuple[float | None, str]:
+        """How long the next :meth:`sweep` (all ``averages``) should take, s, and where that
+        comes from: the analyzer's own sweep time (``SWEep:TIME?``, the profile's
+        ``sweep_time``) times the averages, asked once per configuration, or ``planned_s``
+        (the planner's model) when the profile has no such query.
+
+        The analyzer knows its couplings, minimum sweep times and detector dwell; a model of
+        them does not (issue: a sweep wait taken from the model alone)."""
+        if not self.profile.has("sweep_time"):
+            return planned_s, "plan"
+        if self._sweep_time is None or self._sweep_time[1] != averages:
+            self._sweep_time = (self.sweep_time_s(), averages)
+        return self._sweep_time[0] * max(1, averages), "instrument"
+
     def marker_level_dbm(self, freq_hz: float) -> float:
         """Put marker 1 at ``freq_hz`` and read its level, dBm (from the last sweep)."""
         return float(self.ask("marker_level", freq_hz))
@@ -136,6 +187,21 @@ class AnalyzerDriver(Driver):
         if self.profile.has("trace_format"):
             self.set_value("trace_format", "real32" if use_binary else "ascii")
         return np.asarray(self.ask(op), dtype=np.float64)
+
+    def read_trace(self) -> Trace:
+        """The last sweep's trace with its axis as the analyzer reports it (centre and span
+        read back once per configuration, the point count read back when the profile can).
+        """
+        levels = self.trace()
+        if self._axis is None:
+            centre = float(self.read_back("centre"))
+            span = float(self.read_back("span"))
+            points = None
+            if self.profile.has("points") and self.profile.op("points").read_back is not None:
+                points = int(self.read_back("points"))
+            self._axis = (centre, span, points)
+        centre, span, points = self._axis
+        return Trace.from_centre_span(centre, span, levels, points)
 
     def overloaded(self) -> bool:
         """Whether the analyzer input was overloaded in the last sweep."""

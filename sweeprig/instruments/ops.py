@@ -27,6 +27,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Literal
 
+from sweeprig.instruments.status_bits import OVERLOAD_MASK, UNCALIBRATED_MASK
+
 Shape = Literal["setting", "action", "query"]
 ValueType = Literal["none", "float", "int", "bool", "choice"]
 ReplyFormat = Literal["float", "int", "bool", "csv_floats", "real32", "error", "text"]
@@ -63,6 +65,8 @@ class OpSpec:
     required: bool = True
     safety: bool = False
     choices: tuple[str, ...] = ()
+    default_mask: int | None = None
+    """The ``mask`` a profile gets when it states none (SCPI-99 status bit meanings)."""
 
 
 def _setting(name: str, value: ValueType, unit: str | None, summary: str, **kw: object) -> OpSpec:
@@ -136,9 +140,13 @@ KIND_OPS: dict[str, dict[str, OpSpec]] = {
                    required=False),
             OpSpec("trace_real32", "query", "trace as a REAL,32 block, dBm", reply="real32",
                    required=False),
-            OpSpec("overload", "query", "input overload in the last sweep (flag)", reply="int"),
+            OpSpec("overload", "query", "input overload in the last sweep (flag)", reply="int",
+                   default_mask=OVERLOAD_MASK),
             OpSpec("uncalibrated", "query", "reading uncalibrated (flag)", reply="int",
-                   required=False),
+                   required=False, default_mask=UNCALIBRATED_MASK),
+            OpSpec("status_enable", "action", "enable the questionable bits that feed the "
+                   "status byte's summary (value: the overload and uncalibrated masks)",
+                   value="int", unit="count", required=False),
         )
     },
     "powermeter": {

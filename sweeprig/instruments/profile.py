@@ -481,7 +481,7 @@ def _build_op(
         min=low,
         max=high,
         map=mapping,
-        mask=model.mask,
+        mask=model.mask if model.mask is not None else spec.default_mask,
         completion=completion,
         timeout_s=model.timeout_s,
         scale=scale,

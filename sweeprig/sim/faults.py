@@ -11,6 +11,11 @@ A :class:`FaultPlan` lists faults per instrument role. Kinds:
   bit set, error queue cleared) before the message runs.
 * ``swallow`` — the message is lost without a trace: it does not run, nothing is answered,
   the connection stays open (a command lost on the way, as seen by the sender).
+* ``late`` — the reply to the next query is held back and sent ``delay_s`` (wall seconds)
+  later, or just before the next message on that connection is handled if that comes first
+  (an instrument answers in order: a late reply always precedes the replies to later
+  queries). A client that timed out and then reads on would take it for the answer to its
+  next query unless it resynchronises (:mod:`sweeprig.transport.resync`).
 * ``freeze`` — the instrument stops answering: this message and every later one are
   ignored, connections stay open and new ones are accepted (a hung instrument). With
   ``whole_bench = true`` every instrument of the bench freezes at once (a hung server).
@@ -20,8 +25,9 @@ Triggers (exactly one per fault): ``at_time_s`` (the first message at or after t
 simulated time), ``at_command`` (the n-th message, counted from 1, received by that role's
 instrument over all its connections), ``rate`` (probability per message, from a seeded
 generator) or ``match`` (every message containing that text, case-insensitive, e.g.
-``"OUTP:STAT OFF"``); ``max_count`` caps how often a ``rate`` or ``match`` fault fires. A
-"message" is one received line. ``timeout`` and ``garble`` wait, once triggered, for the
+``"OUTP:STAT OFF"``; with a ``rate`` too, that probability among the matching messages);
+``max_count`` caps how often a ``rate`` or ``match`` fault fires. A
+"message" is one received line. ``timeout``, ``garble`` and ``late`` wait, once triggered, for the
 next message that has a reply.
 
 Every injected fault is recorded in the thread-safe :class:`FaultLog` with role, kind,
@@ -56,7 +62,7 @@ from pydantic import BaseModel, ConfigDict, Field, ValidationError, model_valida
 
 from sweeprig.errors import InputError
 
-FaultKind = Literal["timeout", "drop", "error", "garble", "reset", "swallow", "freeze"]
+FaultKind = Literal["timeout", "drop", "error", "garble", "reset", "swallow", "freeze", "late"]
 
 _TRIGGERS = ("at_time_s", "at_command", "rate", "match")
 
@@ -80,10 +86,14 @@ class FaultSpec(BaseModel):
     code: int = -200
     text: str | None = None
     whole_bench: bool = False
+    delay_s: float = Field(default=1.0, gt=0.0, le=600.0)
+    """How late a ``late`` reply comes, wall seconds (sooner if another message arrives)."""
 
     @model_validator(mode="after")
     def _one_trigger(self) -> FaultSpec:
         given = [n for n in _TRIGGERS if getattr(self, n) is not None]
+        if given == ["rate", "match"]:  # a rate among the matching messages only
+            given = ["match"]
         if len(given) != 1:
             raise ValueError(
                 "give exactly one trigger: at_time_s, at_command, rate or match"
@@ -115,7 +125,7 @@ class FaultPlan(BaseModel):
                 f"{first['msg']}",
                 where=f"{where}: {loc}" if loc else where,
                 fix="each [[faults]] table needs role, kind (timeout|drop|error|garble|reset|"
-                "swallow|freeze) and one trigger (at_time_s, at_command, rate or match); no "
+                "swallow|freeze|late) and one trigger (at_time_s, at_command, rate or match); no "
                 "other keys",
             ) from exc
 
@@ -164,6 +174,8 @@ class FaultAction:
     garble_reply: bool = False
     ignore: bool = False
     """The message is lost: not run, not answered, the connection kept (swallow, freeze)."""
+    late_s: float | None = None
+    """The reply is sent this many wall seconds late (or before the next message's)."""
 
 
 class _Armed:
@@ -202,7 +214,7 @@ class RoleFaults:
             for armed in due:
                 armed.fired += 1
                 spec = armed.spec
-                if spec.kind in ("timeout", "garble"):
+                if spec.kind in ("timeout", "garble", "late"):
                     self._waiting.append(spec)
                     continue
                 detail = ""
@@ -233,6 +245,8 @@ class RoleFaults:
             )
             if spec.kind == "timeout":
                 return FaultAction(swallow_reply=True)
+            if spec.kind == "late":
+                return FaultAction(late_s=spec.delay_s)
             return FaultAction(garble_reply=True)
 
     @staticmethod
@@ -241,7 +255,9 @@ class RoleFaults:
         if spec.match is not None:
             if spec.max_count is not None and armed.fired >= spec.max_count:
                 return False
-            return spec.match.upper() in message.upper()
+            if spec.match.upper() not in message.upper():
+                return False
+            return spec.rate is None or armed.rng.random() < spec.rate
         if spec.at_command is not None:
             return armed.fired == 0 and count == spec.at_command
         if spec.at_time_s is not None:

@@ -228,6 +228,13 @@ class _RoleServer:
             _drain_and_close(self._refused.popleft()[1])
 
     def _serve_client(self, conn: socket.socket) -> None:
+        outbox = _Outbox(conn)
+        try:
+            self._serve_lines(conn, outbox)
+        finally:
+            outbox.close()
+
+    def _serve_lines(self, conn: socket.socket, outbox: _Outbox) -> None:
         buffer = b""
         discarding = False  # inside an overlong message: drop bytes up to its terminator
         try:
@@ -250,7 +257,7 @@ class _RoleServer:
                     discarding = False
                 while b"\n" in buffer:
                     line, buffer = buffer.split(b"\n", 1)
-                    if not self._serve_line(conn, line):
+                    if not self._serve_line(conn, line, outbox):
                         return
                 if len(buffer) > MAX_LINE_BYTES:
                     buffer, discarding = b"", True
@@ -261,11 +268,13 @@ class _RoleServer:
             with contextlib.suppress(OSError):
                 conn.close()
 
-    def _serve_line(self, conn: socket.socket, line: bytes) -> bool:
+    def _serve_line(self, conn: socket.socket, line: bytes, outbox: _Outbox) -> bool:
         """Handle one message; False when the connection must end."""
         message = line.rstrip(b"\r").decode("latin-1")
         if not message.strip():
             return True
+        if not outbox.flush():  # a late reply goes out before anything later is handled
+            return False
         action = self.faults.on_message(message, self.instrument.clock.now(), self.instrument)
         if action.drop:
             with contextlib.suppress(OSError):
@@ -282,11 +291,10 @@ class _RoleServer:
             return True
         if action.garble_reply:
             data = garble(data, self.faults.command_count)
-        try:
-            conn.sendall(data + b"\n")
-        except OSError:
-            return False
-        return True
+        if action.late_s is not None:
+            outbox.hold(data + b"\n", action.late_s)
+            return True
+        return outbox.send(data + b"\n")
 
     def connection_count(self) -> int:
         """Clients connected now."""
@@ -308,6 +316,55 @@ class _RoleServer:
                 conn.shutdown(socket.SHUT_RDWR)
         for thread in threads:
             thread.join(timeout=2.0)
+
+
+class _Outbox:
+    """The replies of one connection, in order: a reply held back by a ``late`` fault is sent
+    when its delay ends or before anything later, whichever comes first."""
+
+    def __init__(self, conn: socket.socket) -> None:
+        self._conn = conn
+        self._lock = threading.Lock()
+        self._held: bytes | None = None
+        self._timer: threading.Timer | None = None
+        self._closed = False
+
+    def hold(self, data: bytes, delay_s: float) -> None:
+        with self._lock:
+            self._held = data
+            self._timer = threading.Timer(delay_s, self.flush)
+            self._timer.daemon = True
+            self._timer.start()
+
+    def flush(self) -> bool:
+        """Send a held reply now (if any); False when the connection is gone."""
+        with self._lock:
+            data, self._held = self._held, None
+            if self._timer is not None:
+                self._timer.cancel()
+                self._timer = None
+            if data is None or self._closed:
+                return not self._closed
+            return self._sendall(data)
+
+    def send(self, data: bytes) -> bool:
+        with self._lock:
+            return self._sendall(data)
+
+    def _sendall(self, data: bytes) -> bool:
+        try:
+            self._conn.sendall(data)
+        except OSError:
+            return False
+        return True
+
+    def close(self) -> None:
+        with self._lock:
+            self._closed = True
+            self._held = None
+            if self._timer is not None:
+                self._timer.cancel()
+                self._timer = None
 
 
 def _drain_and_close(conn: socket.socket) -> None:

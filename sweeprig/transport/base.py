@@ -19,6 +19,8 @@ from typing import Protocol, runtime_checkable
 
 import numpy as np
 
+from sweeprig.errors import TransportError
+
 
 @dataclass(frozen=True)
 class Transaction:
@@ -40,6 +42,19 @@ class Transaction:
 
 
 TransactionHook = Callable[[Transaction], None]
+
+
+class ReplyTimeout(TransportError):
+    """No reply within the timeout.
+
+    ``resynced``: the transport then device-cleared the session, drained it and read up to a
+    marked answer (:mod:`sweeprig.transport.resync`), so a late reply to the lost query can
+    no longer be read as the answer to a later one; ``resync``: what it did, for the run's
+    events. False when it could not (the instrument is not answering at all): reconnect.
+    """
+
+    resynced: bool = False
+    resync: str = ""
 
 
 @runtime_checkable

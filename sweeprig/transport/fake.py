@@ -46,6 +46,7 @@ class FakeTransport:
         self.log: list[Transaction] = []
         self.closed = False
         self.reconnects = 0
+        self.device_clears = 0
         self.timeouts_s: list[float | None] = []
 
     @property
@@ -139,6 +140,13 @@ class FakeTransport:
             raise TransportError(f"reply to {cmd!r} is not a block", where=self.resource) from exc
         self._record(start, t0, cmd, f"<REAL,32 block: {values.size} values>")
         return values
+
+    def clear_device(self) -> str:
+        """A device clear: recorded, nothing else (the handler answers in step)."""
+        self.device_clears += 1
+        start, t0 = time.time(), time.perf_counter()
+        self._record(start, t0, "<device clear>", "back in step")
+        return "device clear sent; back in step"
 
     def close(self) -> None:
         """Mark the connection closed."""

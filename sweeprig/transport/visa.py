@@ -27,11 +27,15 @@ import pyvisa.errors
 
 from sweeprig.errors import TransportError
 from sweeprig.transport.backend import DEFAULT_VISA_LIBRARY, VISA_LIBRARY_ENV
-from sweeprig.transport.base import Transaction, TransactionHook
+from sweeprig.transport.base import ReplyTimeout, Transaction, TransactionHook
 from sweeprig.transport.resources import visa_spelling
+from sweeprig.transport.resync import ResyncFailed, resynchronise
 from sweeprig.transport.settings import DEFAULT_CONNECTION, ConnectionSettings, SerialSettings
 
 DEFAULT_TIMEOUT_S = 5.0
+#: The marked answer of a resynchronisation gets at least this long, s (an instrument still
+#: finishing what timed out answers it only after that; common practice, no source).
+RESYNC_MIN_TIMEOUT_S = 1.0
 
 _PYVISA_ERRORS: tuple[type[BaseException], ...] = (
     pyvisa.errors.Error,
@@ -249,7 +253,37 @@ class VisaTransport:
     ) -> TransportError:
         error = _translate(exc, self.resource, cmd, timeout_s or self.timeout_s)
         self._record(start, t0, cmd, f"<error: {error.what}>")
+        if isinstance(error, ReplyTimeout):
+            self._resync_after(error)
         return error
+
+    def _resync_after(self, error: ReplyTimeout) -> None:
+        """After a timed-out query: device clear, drain, marked query (never raises)."""
+        if self._inst is None:
+            return
+        start, t0 = time.time(), time.perf_counter()
+        try:
+            report = resynchronise(_RawVisa(self._inst, self.resource),
+                                   timeout_s=max(self.timeout_s, RESYNC_MIN_TIMEOUT_S))
+        except (ResyncFailed, *_PYVISA_ERRORS) as exc:
+            self._record(start, t0, "<device clear>", f"<error: {_describe(exc)}>")
+            return
+        error.resynced = True
+        error.resync = report.describe()
+        self._record(start, t0, "<device clear>", report.describe())
+
+    def clear_device(self) -> str:
+        """Device clear, drain and resynchronise (see :mod:`sweeprig.transport.resync`);
+        returns what was done. Raises :class:`TransportError` when the instrument does not
+        answer the marked query."""
+        inst = self._instrument("<device clear>")
+        try:
+            return resynchronise(_RawVisa(inst, self.resource), timeout_s=max(
+                self.timeout_s, RESYNC_MIN_TIMEOUT_S)).describe()
+        except (ResyncFailed, *_PYVISA_ERRORS) as exc:
+            raise TransportError(
+                f"device clear did not bring the instrument back in step: {_describe(exc)}",
+                where=self.resource, fix="reconnect, or check the instrument") from exc
 
     def write(self, cmd: str) -> None:
         """Send ``cmd``."""
@@ -310,6 +344,42 @@ class VisaTransport:
         return values
 
 
+class _RawVisa:
+    """The :class:`~sweeprig.transport.resync.RawSession` surface of a pyvisa resource.
+
+    A raw TCP socket has no device-clear message: pyvisa-py's ``clear()`` there only discards
+    buffered bytes (and loops forever on a socket the peer has closed), so it is not called;
+    the drain and the marked query do the work."""
+
+    def __init__(self, inst: Any, resource: str) -> None:
+        self._inst = inst
+        self._socket = _is_socket(resource)
+
+    def device_clear(self) -> bool:
+        if self._socket:
+            return False
+        try:
+            self._inst.clear()
+        except _PYVISA_ERRORS:  # the link has no device clear (some serial resources)
+            return False
+        return True
+
+    def write_line(self, text: str) -> None:
+        self._inst.write(text)
+
+    def read_line(self, timeout_s: float) -> bytes | None:
+        before = self._inst.timeout
+        self._inst.timeout = int(max(timeout_s, 0.001) * 1000)
+        try:
+            return bytes(self._inst.read_raw()).rstrip(b"\r\n")
+        except pyvisa.errors.VisaIOError as exc:
+            if exc.error_code == pyvisa.constants.StatusCode.error_timeout:
+                return None
+            raise
+        finally:
+            self._inst.timeout = before
+
+
 def _is_serial(resource: str) -> bool:
     return resource.strip().upper().startswith("ASRL")
 
@@ -340,7 +410,7 @@ def _translate(exc: BaseException, resource: str, cmd: str, timeout_s: float) ->
         isinstance(exc, pyvisa.errors.VisaIOError)
         and exc.error_code == pyvisa.constants.StatusCode.error_timeout
     ):
-        return TransportError(
+        return ReplyTimeout(
             f"no reply within {timeout_s:g} s (timeout)",
             where=where,
             fix="check that the instrument is on and understands the command; a slow operation "

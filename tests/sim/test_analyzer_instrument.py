@@ -168,13 +168,18 @@ def test_questionable_overload_and_uncalibrated(bench) -> None:
     sa, _, _, feed = bench
     feed.spectrum = InputSpectrum(((70e6, 15.0),), -174.0)
     _setup(sa, "FREQ:CENT 70 MHz;SPAN 1 MHz", "INP:ATT 0", "INIT", "*WAI")
-    assert int(sa.query("STAT:QUES:COND?")) & (8 | 16) == 24
+    # SCPI-99 Vol. 1, status reporting (from memory): POWer bit 3, CALibration bit 8
+    assert int(sa.query("STAT:QUES:COND?")) & (8 | 256) == 264
     feed.spectrum = InputSpectrum(((70e6, -30.0),), -174.0)
     sa.write("INIT;*WAI")
     assert int(sa.query("STAT:QUES:COND?")) == 0
-    assert int(sa.query("STAT:QUES?")) == 24  # the event register latched the earlier sweep
+    assert int(sa.query("STAT:QUES?")) == 264  # the event register latched the earlier sweep
     sa.write("DISP:TRAC:Y:RLEV -50;:INIT;*WAI")
-    assert int(sa.query("STAT:QUES:COND?")) == 16
+    assert int(sa.query("STAT:QUES:COND?")) == 256
+    # the summary reaches the status byte (bit 3) only for enabled bits
+    assert int(sa.query("*STB?")) & 8 == 0
+    sa.write("STAT:QUES:ENAB 264")
+    assert int(sa.query("*STB?")) & 8 == 8
 
 
 def test_averaged_noise_floor_over_loopback(bench) -> None:

@@ -54,7 +54,7 @@ AUTO_ATT_MIXER_DBM = -10.0
 AUTO_ATT_MIN_DB = 10.0
 
 QUES_OVERLOAD = 1 << 3
-QUES_UNCALIBRATED = 1 << 4
+QUES_UNCALIBRATED = 1 << 8  # SCPI-99 QUEStionable CALibration bit
 
 _RBW_STEPS_HZ = tuple(m * 10.0**k for k in range(8) for m in (1.0, 3.0) if m * 10.0**k <= 1e7)
 
