@@ -6,6 +6,8 @@ from pathlib import Path
 
 import pytest
 
+from tests.pg_fixtures import pg_server, pg_url  # noqa: F401  (the lab database)
+
 
 @pytest.fixture(autouse=True)
 def private_lock_dir(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> Path:
@@ -14,3 +16,4 @@ def private_lock_dir(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> Path:
     folder = tmp_path / "locks"
     monkeypatch.setenv("SWEEPRIG_LOCK_DIR", str(folder))
     return folder
+

@@ -8,6 +8,7 @@ from sweeprig.cli import (
     bus_cmd,
     calibrate_cmd,
     check_cmd,
+    lab_cmd,
     night_cmd,
     probe_cmd,
     report_cmd,
@@ -35,6 +36,7 @@ report_cmd.register(app)
 calibrate_cmd.register(app)
 night_cmd.register(app)
 probe_cmd.register(app)
+lab_cmd.register(app)
 app.add_typer(sim_cmd.app, name="sim")  # a module that fails to import fails the command
 
 
