@@ -52,6 +52,9 @@ def init_command(db: DbOption = None) -> None:
         url = database_url(db)
         with PostgresRunStore(url) as store:
             version = store.schema_version
+        from sweeprig.lab.queue import LabQueue
+
+        LabQueue(url).close()  # creates the queue's tables
     except SweeprigError as exc:
         raise fail(exc) from None
     typer.echo(f"lab database ready: {store.where} (run store schema {version})")
@@ -86,6 +89,134 @@ def import_command(
                                f"({copied.points} points)")
     except SweeprigError as exc:
         raise fail(exc) from None
+
+
+def _queue(db: str | None):  # type: ignore[no-untyped-def]
+    from sweeprig.lab.queue import LabQueue
+
+    return LabQueue(database_url(db))
+
+
+def _show(entries: list) -> None:  # type: ignore[type-arg]
+    if not entries:
+        typer.echo("(no queued runs)")
+        return
+    typer.echo(f"{'id':>5} {'prio':>4} {'state':<9} {'bench':<14} {'run':>5} "
+               f"{'part / serial / lot':<34} sequence")
+    for e in entries:
+        who = f"{e.part} / {e.serial}" + (f" / {e.lot}" if e.lot else "")
+        bench = e.bench or (f"[{e.bench_constraint}]" if e.bench_constraint else "-")
+        typer.echo(f"{e.id:>5} {e.priority:>4} {e.state:<9} {bench:<14} "
+                   f"{'' if e.run_id is None else e.run_id:>5} {who:<34} {e.sequence_path}")
+        if e.message and e.state in ("failed", "running", "queued"):
+            typer.echo(f"      {e.message.splitlines()[0]}")
+
+
+@app.command("submit")
+def submit_command(
+    sequence: Annotated[Path, typer.Argument(help="sequence file (must pass `sweeprig check`)",
+                                             dir_okay=False)],
+    serial: Annotated[str, typer.Option("--serial", help="the unit's serial number")],
+    part: Annotated[str | None, typer.Option(
+        "--part", help="part number (default: the sequence's [part] id)")] = None,
+    lot: Annotated[str, typer.Option("--lot", help="lot (wafer, corner) the unit is from")] = "",
+    priority: Annotated[int, typer.Option("--priority", help="higher runs first")] = 0,
+    bench: Annotated[str | None, typer.Option(
+        "--on-bench", help="only this bench may take it (a bench name)")] = None,
+    db: DbOption = None,
+) -> None:
+    """Queue a run of SEQUENCE for one unit; a free bench that can serve it takes it."""
+    try:
+        from sweeprig.formats.sequence import load_sequence
+
+        url = database_url(db)
+        part_id = part or load_sequence(sequence).part.id
+        with _queue(url) as queue:
+            entry = queue.submit(sequence, part=part_id, serial=serial, lot=lot,
+                                 priority=priority, bench=bench)
+    except SweeprigError as exc:
+        raise fail(exc) from None
+    typer.echo(f"queued run {entry.id}: {entry.part} {entry.serial} ({entry.queue_name}, "
+               f"priority {entry.priority})")
+
+
+@app.command("queue")
+def queue_command(
+    show_all: Annotated[bool, typer.Option("--all", help="also finished, failed and cancelled")]
+    = False,
+    db: DbOption = None,
+) -> None:
+    """List the queued and running runs (in the order benches take them)."""
+    from sweeprig.lab.queue import LAB_STATES
+
+    try:
+        with _queue(db) as queue:
+            entries = queue.list(states=LAB_STATES if show_all else ("queued", "running"))
+    except SweeprigError as exc:
+        raise fail(exc) from None
+    _show(entries)
+
+
+@app.command("cancel")
+def cancel_command(
+    queued_id: Annotated[int, typer.Argument(help="queued run id (see `sweeprig lab queue`)")],
+    db: DbOption = None,
+) -> None:
+    """Cancel a run still waiting in the queue."""
+    try:
+        with _queue(db) as queue:
+            entry = queue.cancel(queued_id)
+    except SweeprigError as exc:
+        raise fail(exc) from None
+    typer.echo(f"queued run {entry.id} cancelled")
+
+
+@app.command("priority")
+def priority_command(
+    queued_id: Annotated[int, typer.Argument(help="queued run id")],
+    priority: Annotated[int, typer.Argument(help="new priority (higher runs first)")],
+    db: DbOption = None,
+) -> None:
+    """Change the priority of a run still waiting in the queue."""
+    try:
+        with _queue(db) as queue:
+            entry = queue.reprioritise(queued_id, priority)
+    except SweeprigError as exc:
+        raise fail(exc) from None
+    typer.echo(f"queued run {entry.id}: priority {entry.priority}")
+
+
+@app.command("worker")
+def worker_command(
+    bench: Annotated[Path, typer.Option("--bench", help="this bench's bench file",
+                                        dir_okay=False)],
+    name: Annotated[str | None, typer.Option(
+        "--name", help="this bench's name in the lab (default: the bench file's name)")] = None,
+    once: Annotated[bool, typer.Option(
+        "--once", help="take what this bench can serve now, then stop")] = False,
+    log_dir: Annotated[Path, typer.Option("--log-dir", help="folder for the runs' logs")]
+    = Path("."),
+    db: DbOption = None,
+) -> None:
+    """Serve the queue on this bench: take the runs it can serve, one at a time."""
+    from sweeprig.signals import RunStopped
+
+    try:
+        from sweeprig.lab.worker import BenchWorker
+
+        worker = BenchWorker(database_url(db), bench, name=name, log_dir=log_dir, once=once,
+                             say=typer.echo)
+        typer.echo(f"worker for bench {worker.name!r} on {worker.queue.where}")
+        summary = worker.run()
+    except (KeyboardInterrupt, RunStopped):
+        typer.echo("worker stopped")
+        raise typer.Exit(code=130) from None
+    except SweeprigError as exc:
+        raise fail(exc) from None
+    typer.echo(f"done: {len(summary.done)}, refused: {len(summary.failed)}, "
+               f"interrupted: {len(summary.interrupted)}")
+    if summary.idle_reason:
+        typer.echo(summary.idle_reason)
 
 
 def register(root: typer.Typer) -> None:

@@ -124,6 +124,10 @@ class _Conn:
     def execute(self, sql: str, params: Sequence[object] = ()) -> Any:
         return self._conn.execute(to_pyformat(sql), tuple(params))
 
+    def raw(self, script: str) -> None:
+        """Run a script of the project's own (no values; several statements)."""
+        self._conn.execute(script)  # type: ignore[arg-type]
+
     def executemany(self, sql: str, rows: Sequence[Sequence[object]]) -> None:
         rows = list(rows)
         if rows:
@@ -148,6 +152,7 @@ class PostgresRunStore(SqlRunStoreCore):
         self.stale_after_s = stale_after_s
         self._host = socket.gethostname()
         self._lock = threading.RLock()
+        self._closed_by_us = False
         self._conn = connect(url)
         try:
             self._setup(create=create)
@@ -225,6 +230,7 @@ class PostgresRunStore(SqlRunStoreCore):
         import psycopg
 
         with self._lock, deferred():  # a stop signal waits for the COMMIT or ROLLBACK
+            self._reconnect_if_lost()
             try:
                 with self._conn.transaction():
                     yield _Conn(self._conn)
@@ -235,10 +241,17 @@ class PostgresRunStore(SqlRunStoreCore):
         import psycopg
 
         with self._lock:
+            self._reconnect_if_lost()
             try:
                 return list(self._conn.execute(to_pyformat(sql), tuple(params)).fetchall())
             except psycopg.Error as exc:
                 raise self._error(exc, "reading") from None
+
+    def _reconnect_if_lost(self) -> None:
+        """A connection the server dropped (restart, network) is opened again before the next
+        statement; the statement that met the drop has already failed (and reported it)."""
+        if self._conn.closed and not self._closed_by_us:
+            self._conn = connect(self.url, what="reconnecting to the lab database")
 
     def _error(self, exc: Exception, what: str) -> StoreError:
         import psycopg
@@ -288,6 +301,7 @@ class PostgresRunStore(SqlRunStoreCore):
     def close(self) -> None:
         """Close the connection (idempotent)."""
         with self._lock, suppress(Exception):
+            self._closed_by_us = True
             self._conn.close()
 
     def __enter__(self) -> PostgresRunStore:
