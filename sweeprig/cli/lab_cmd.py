@@ -123,14 +123,23 @@ def submit_command(
     priority: Annotated[int, typer.Option("--priority", help="higher runs first")] = 0,
     bench: Annotated[str | None, typer.Option(
         "--on-bench", help="only this bench may take it (a bench name)")] = None,
+    check_bench: Annotated[Path | None, typer.Option(
+        "--check-bench", help="bench file to check the sequence against first, as `sweeprig "
+        "check --bench` (default: the built-in simulated bench, as `sweeprig check`)",
+        dir_okay=False)] = None,
     db: DbOption = None,
 ) -> None:
-    """Queue a run of SEQUENCE for one unit; a free bench that can serve it takes it."""
+    """Queue a run of SEQUENCE for one unit; a free bench that can serve it takes it.
+
+    The sequence must pass `sweeprig check` first; its files are hashed now, and a bench
+    refuses the run if they have changed when it takes it."""
     try:
-        from sweeprig.formats.sequence import load_sequence
+        from sweeprig.cli.check_cmd import _load_bench_or_sim, check_file
 
         url = database_url(db)
-        part_id = part or load_sequence(sequence).part.id
+        loaded, _label = _load_bench_or_sim(check_bench)
+        checked, _report = check_file(sequence, loaded)
+        part_id = part or checked.part.id
         with _queue(url) as queue:
             entry = queue.submit(sequence, part=part_id, serial=serial, lot=lot,
                                  priority=priority, bench=bench)
