@@ -205,6 +205,8 @@ def worker_command(
         "--once", help="take what this bench can serve now, then stop")] = False,
     log_dir: Annotated[Path, typer.Option("--log-dir", help="folder for the runs' logs")]
     = Path("."),
+    poll: Annotated[float, typer.Option("--poll", help="seconds between looks at an empty "
+                                        "queue", min=0.1)] = 2.0,
     db: DbOption = None,
 ) -> None:
     """Serve the queue on this bench: take the runs it can serve, one at a time."""
@@ -214,7 +216,7 @@ def worker_command(
         from sweeprig.lab.worker import BenchWorker
 
         worker = BenchWorker(database_url(db), bench, name=name, log_dir=log_dir, once=once,
-                             say=typer.echo)
+                             say=typer.echo, poll_s=poll)
         typer.echo(f"worker for bench {worker.name!r} on {worker.queue.where}")
         summary = worker.run()
     except (KeyboardInterrupt, RunStopped):

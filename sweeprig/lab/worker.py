@@ -97,8 +97,14 @@ class BenchWorker:
 
     def _hold_bench(self) -> None:
         """Take (or, after a server restart, take again) this bench's lock."""
-        if self._bench_conn is not None and not self._bench_conn.closed:
-            return
+        if self._bench_conn is not None:
+            try:  # a server restart drops the lock without a word: ask
+                self._bench_conn.execute("SELECT 1")
+                return
+            except Exception:
+                with suppress(Exception):
+                    self._bench_conn.close()
+                self._bench_conn = None
         conn = connect(self.url, what="taking the bench's lock")
         key = _int4(zlib.crc32(self.name.encode()))
         if not conn.execute("SELECT pg_try_advisory_lock(%s, %s)",
