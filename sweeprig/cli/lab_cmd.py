@@ -230,6 +230,86 @@ def worker_command(
         typer.echo(summary.idle_reason)
 
 
+def _filter(part: str | None, lot: str | None, serial: str | None, bench: str | None,
+            state: str | None, since: str | None, until: str | None):  # type: ignore[no-untyped-def]
+    from datetime import UTC, datetime
+
+    from sweeprig.lab.lot import RunFilter
+
+    def day(text: str | None, option: str, end: bool) -> datetime | None:
+        if text is None:
+            return None
+        try:
+            moment = datetime.fromisoformat(text)
+        except ValueError:
+            raise InputError(f"{text!r} is not a date", where=option,
+                             fix="give a date as YYYY-MM-DD (or YYYY-MM-DDTHH:MM)") from None
+        if len(text) <= 10 and end:
+            moment = moment.replace(hour=23, minute=59, second=59, microsecond=999999)
+        return moment if moment.tzinfo else moment.replace(tzinfo=UTC)
+
+    return RunFilter(part, lot, serial, bench, state, day(since, "--since", False),
+                     day(until, "--until", True))
+
+
+PartOpt = Annotated[str | None, typer.Option("--part", help="part number")]
+LotOpt = Annotated[str | None, typer.Option("--lot", help="lot")]
+SerialOpt = Annotated[str | None, typer.Option("--serial", help="unit serial")]
+BenchOpt = Annotated[str | None, typer.Option("--bench", help="bench name")]
+StateOpt = Annotated[str | None, typer.Option("--state", help="run status (complete, ...)")]
+SinceOpt = Annotated[str | None, typer.Option("--since", help="started on or after (UTC date)")]
+UntilOpt = Annotated[str | None, typer.Option("--until", help="started on or before (UTC date)")]
+
+
+@app.command("runs")
+def runs_command(part: PartOpt = None, lot: LotOpt = None, serial: SerialOpt = None,
+                 bench: BenchOpt = None, state: StateOpt = None, since: SinceOpt = None,
+                 until: UntilOpt = None, db: DbOption = None) -> None:
+    """The runs of every bench in the lab database, newest first, filtered."""
+    try:
+        from sweeprig.lab.lot import lab_runs, tag_value
+        from sweeprig.store.postgres import PostgresRunStore
+
+        where = _filter(part, lot, serial, bench, state, since, until)
+        with PostgresRunStore(database_url(db), create=False) as store:
+            runs = lab_runs(store, where)
+    except SweeprigError as exc:
+        raise fail(exc) from None
+    if not runs:
+        typer.echo("(no run matches)")
+        return
+    typer.echo(f"{'run':>5} {'status':<11} {'bench':<10} {'lot':<8} {'points':>9} "
+               f"{'started (UTC)':<19} part / serial")
+    for r in runs:
+        typer.echo(f"{r.id:>5} {r.status:<11} {tag_value(r.tags, 'bench') or '-':<10} "
+                   f"{tag_value(r.tags, 'lot') or '-':<8} "
+                   f"{f'{r.points_done}/{r.points_total or 0}':>9} "
+                   f"{r.created:%Y-%m-%d %H:%M:%S} {r.part} / {r.serial}")
+
+
+@app.command("lot")
+def lot_command(
+    part: PartOpt = None, lot: LotOpt = None, bench: BenchOpt = None, since: SinceOpt = None,
+    until: UntilOpt = None,
+    out: Annotated[Path, typer.Option("--out", help="folder for lot.html and lot.json",
+                                      file_okay=False)] = Path("lot-report"),
+    db: DbOption = None,
+) -> None:
+    """Lot statistics: per figure and conditions, typ, mean, std, min/max, Cpk, outliers."""
+    try:
+        from sweeprig.lab.lot import lot_report, write_lot_report
+        from sweeprig.store.postgres import PostgresRunStore
+
+        where = _filter(part, lot, None, bench, None, since, until)
+        with PostgresRunStore(database_url(db), create=False) as store:
+            report = lot_report(store, where)
+        path = write_lot_report(report, out)
+    except SweeprigError as exc:
+        raise fail(exc) from None
+    typer.echo(f"{report.part} lot {report.lot or '(all)'}: {len(report.units)} units, "
+               f"{len(report.rows)} figure rows -> {path}")
+
+
 def register(root: typer.Typer) -> None:
     """Add ``lab`` to the root app."""
     root.add_typer(app, name="lab")
