@@ -82,6 +82,8 @@ class TestServer:
     port: int
     user: str | None
     pg_ctl: str
+    durable: bool = False
+    """``fsync`` on (the server's default): for throughput figures a lab would see."""
 
     __test__ = False  # not a pytest test class
 
@@ -93,8 +95,9 @@ class TestServer:
         subprocess.run(argv, check=True, capture_output=True, timeout=timeout_s)
 
     def start(self) -> None:
-        options = f"-h 127.0.0.1 -p {self.port} -k {self.folder} -c fsync=off " \
-                  "-c max_connections=200"
+        options = f"-h 127.0.0.1 -p {self.port} -k {self.folder} -c max_connections=200"
+        if not self.durable:  # a throwaway server: nothing to keep across a power cut
+            options += " -c fsync=off"
         self._ctl("-o", options, "-l", str(self.folder / "server.log"), "-w", "start")
 
     def stop(self, mode: str = "fast") -> None:
@@ -114,7 +117,7 @@ class TestServer:
         return self.url(name)
 
 
-def start_server(folder: Path) -> TestServer:
+def start_server(folder: Path, *, durable: bool = False) -> TestServer:
     """Make a cluster in ``folder`` and start it on a free loopback port."""
     initdb, pg_ctl = find_binary("initdb"), find_binary("pg_ctl")
     if not initdb or not pg_ctl:
@@ -133,7 +136,7 @@ def start_server(folder: Path) -> TestServer:
         detail = getattr(exc, "stderr", b"") or b""
         raise ServerUnavailable(f"initdb failed: {exc}: {detail.decode(errors='replace')}") \
             from None
-    server = TestServer(folder, free_port(), user, pg_ctl)
+    server = TestServer(folder, free_port(), user, pg_ctl, durable)
     try:
         server.start()
     except (subprocess.CalledProcessError, subprocess.TimeoutExpired) as exc:
