@@ -24,15 +24,17 @@ import os
 import re
 import socket
 import threading
-from collections.abc import Iterator, Sequence
+from collections.abc import Iterator, Mapping, Sequence
 from contextlib import contextmanager, suppress
 from typing import Any
 from urllib.parse import urlsplit, urlunsplit
 
 from sweeprig.errors import StoreError
 from sweeprig.signals import deferred
-from sweeprig.store.base import HEARTBEAT_STALE_S
+from sweeprig.store.base import HEARTBEAT_STALE_S, PointRecord, ReadingRecord, utc_now
 from sweeprig.store.sql import (
+    INSERT_POINT_SQL,
+    INSERT_READING_SQL,
     SCHEMA_VERSION,
     SqlRunStoreCore,
     newer_schema_error,
@@ -113,6 +115,26 @@ def connect(url: str, *, what: str = "opening the lab database") -> Any:
 def _first_line(exc: BaseException) -> str:
     text = str(exc).strip()
     return text.splitlines()[0] if text else type(exc).__name__
+
+
+def point_statement(run_id: int, point_row: Sequence[object],
+                    reading_rows: Sequence[Sequence[object]],
+                    activity: Mapping[str, Any] | None) -> tuple[str, list[object]]:
+    """One point as one parameterised statement (see :meth:`PostgresRunStore.write_point`):
+    the shared INSERTs, their ``VALUES`` repeated once per reading."""
+    import json
+
+    heartbeat = (utc_now().isoformat(timespec="microseconds"),
+                 None if activity is None else json.dumps(dict(activity), default=str), run_id)
+    parts = ["h AS (UPDATE runs SET heartbeat_utc = ?, activity_json = ? WHERE id = ?)",
+             f"p AS ({INSERT_POINT_SQL})"]
+    params: list[object] = [*heartbeat, *point_row]
+    if reading_rows:
+        head, values = INSERT_READING_SQL.split(" VALUES ", 1)
+        parts.append(f"r AS ({head} VALUES {', '.join([values] * len(reading_rows))})")
+        for row in reading_rows:
+            params += row
+    return to_pyformat("WITH " + ", ".join(parts) + " SELECT 1"), params
 
 
 class _Conn:
@@ -269,6 +291,34 @@ class PostgresRunStore(SqlRunStoreCore):
         else:
             fix = "check the database server's log"
         return StoreError(f"{what} failed: {text}", where=self.where, fix=fix)
+
+    def write_point(
+        self, run_id: int, point: PointRecord, readings: Sequence[ReadingRecord],
+        *, activity: Mapping[str, Any] | None = None,
+    ) -> None:
+        """The shared ``write_point``'s three statements (heartbeat, point row, readings:
+        :data:`INSERT_POINT_SQL`, :data:`INSERT_READING_SQL`) as one statement of
+        data-modifying ``WITH`` parts, so a point is one round trip and one commit (one
+        statement is one transaction: all of it or nothing). The checks the SQLite store
+        makes by querying first are the server's constraints here: a point already stored
+        breaks the primary key, a missing run the foreign key; either rolls the point back."""
+        import psycopg
+
+        point_row = self._point_row(run_id, point)
+        reading_rows = [self._reading_row(run_id, point.index, number, reading)
+                        for number, reading in enumerate(readings)]
+        sql, params = point_statement(run_id, point_row, reading_rows, activity)
+        with self._lock, deferred():
+            self._reconnect_if_lost()
+            try:
+                self._conn.execute(sql, params)
+            except psycopg.errors.UniqueViolation:
+                raise self._point_already_stored(run_id, point.index) from None
+            except psycopg.errors.ForeignKeyViolation:
+                raise StoreError(f"there is no run {run_id}", where=self.where,
+                                 fix="list the runs with `sweeprig lab runs`") from None
+            except psycopg.Error as exc:
+                raise self._error(exc, f"writing point {point.index}") from None
 
     def _insert_run(self, conn: _Conn, sql: str, params: Sequence[object]) -> int:
         return int(conn.execute(sql + " RETURNING id", params).fetchone()[0])

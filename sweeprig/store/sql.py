@@ -244,6 +244,15 @@ def _activity(text: str | None) -> Mapping[str, Any] | None:
         return None
     return MappingProxyType(value) if isinstance(value, dict) else None
 
+INSERT_POINT_SQL = (
+    f"INSERT INTO points (run_id, point_index, {', '.join(POINT_COLUMNS)}, "
+    "wall_start_utc, wall_end_utc, extra_json) "
+    f"VALUES ({', '.join('?' * (len(POINT_COLUMNS) + 5))})")
+INSERT_READING_SQL = (
+    f"INSERT INTO readings (run_id, point_index, reading_no, "
+    f"{', '.join(READING_COLUMNS)}, overload, attenuation_check, extra_json) "
+    f"VALUES ({', '.join('?' * (len(READING_COLUMNS) + 6))})")
+
 
 def schema_statements(dialect: str) -> tuple[str, ...]:
     """The schema's DDL for ``dialect`` (``"sqlite"`` or ``"postgresql"``): the same tables,
@@ -400,27 +409,27 @@ class SqlRunStoreCore:
                 (run_id, point.index),
             ).fetchone()
             if exists is not None:
-                raise StoreError(
-                    f"point {point.index} of run {run_id} is already stored",
-                    where=self.where,
-                    fix="skip the points listed by done_point_indices() when resuming",
-                )
-            # the point is the heartbeat: no separate write per point
-            conn.execute("UPDATE runs SET heartbeat_utc = ?, activity_json = ? WHERE id = ?",
-                         (_iso(utc_now()), None if activity is None
-                          else json.dumps(dict(activity), default=str), run_id))
-            conn.execute(
-                f"INSERT INTO points (run_id, point_index, {', '.join(POINT_COLUMNS)}, "
-                "wall_start_utc, wall_end_utc, extra_json) "
-                f"VALUES ({', '.join('?' * (len(POINT_COLUMNS) + 5))})",
-                point_row,
-            )
-            conn.executemany(
-                f"INSERT INTO readings (run_id, point_index, reading_no, "
-                f"{', '.join(READING_COLUMNS)}, overload, attenuation_check, extra_json) "
-                f"VALUES ({', '.join('?' * (len(READING_COLUMNS) + 6))})",
-                reading_rows,
-            )
+                raise self._point_already_stored(run_id, point.index)
+            self._write_point_rows(conn, run_id, point_row, reading_rows, activity)
+
+    @staticmethod
+    def _write_point_rows(conn: Any, run_id: int, point_row: Sequence[object],
+                          reading_rows: Sequence[Sequence[object]],
+                          activity: Mapping[str, Any] | None) -> None:
+        """The statements of one point, inside its transaction: the heartbeat (the point is
+        the heartbeat: no separate write per point), the point row, its readings."""
+        conn.execute("UPDATE runs SET heartbeat_utc = ?, activity_json = ? WHERE id = ?",
+                     (_iso(utc_now()), None if activity is None
+                      else json.dumps(dict(activity), default=str), run_id))
+        conn.execute(INSERT_POINT_SQL, point_row)
+        conn.executemany(INSERT_READING_SQL, reading_rows)
+
+    def _point_already_stored(self, run_id: int, index: int) -> StoreError:
+        return StoreError(
+            f"point {index} of run {run_id} is already stored",
+            where=self.where,
+            fix="skip the points listed by done_point_indices() when resuming",
+        )
 
     @staticmethod
     def _point_row(run_id: int, p: PointRecord) -> tuple[object, ...]:
