@@ -16,4 +16,3 @@ def private_lock_dir(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> Path:
     folder = tmp_path / "locks"
     monkeypatch.setenv("SWEEPRIG_LOCK_DIR", str(folder))
     return folder
-

@@ -79,3 +79,15 @@ def test_a_bench_store_is_copied_whole_and_once(tmp_path, pg_url):
         assert [e.message for e in src.events(outcome.run_id)] == \
             [e.message for e in dst.events(1)]
         assert src.run_files(outcome.run_id) == dst.run_files(1)
+
+
+def test_the_cli_refuses_a_newer_lab_database_and_takes_nothing(pg_url):
+    PostgresRunStore(pg_url).close()
+    with psycopg.connect(pg_url, autocommit=True) as conn:
+        conn.execute("UPDATE store_meta SET setting = '99' WHERE name = 'schema_version'")
+    for args in (["queue"], ["runs"], ["submit", QUICK, "--serial", "U1"]):
+        result = CliRunner().invoke(app, ["lab", *args, "--db", pg_url])
+        assert result.exit_code == 5, (args, result.output)
+        assert "schema version 99" in result.output and "newer sweeprig" in result.output
+    with psycopg.connect(pg_url) as conn:
+        assert conn.execute("SELECT to_regclass('lab_runs')").fetchone()[0] is None
