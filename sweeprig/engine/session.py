@@ -78,9 +78,18 @@ from sweeprig.store.open import StoreTarget, open_run_store, store_label, store_
 from sweeprig.store.paths import run_file_name, run_log_path
 from sweeprig.store.runlock import hold_run_lock, run_lock_held
 from sweeprig.store.sql import SqlRunStoreCore
+from sweeprig.store.sqlite import SqliteRunStore
 
 SIM_BENCH_FILE = "benches/sim.toml"
 """The built-in simulated bench's bench file, inside the shipped sequences folder."""
+
+
+def _open_store(target: StoreTarget, *, create: bool = True,
+                durable: bool = True) -> SqliteRunStore | SqlRunStoreCore:
+    """The run's store: an SQLite file (:class:`SqliteRunStore`), or the lab database."""
+    if isinstance(target, Path):
+        return SqliteRunStore(target, create=create, durable=durable)
+    return open_run_store(target, create=create)  # type: ignore[return-value]
 
 
 @dataclass(frozen=True)
@@ -320,7 +329,7 @@ def resume_run(
     """
     store_path = store_target(store_path)
     label = store_label(store_path)
-    store = open_run_store(store_path, create=False)
+    store = _open_store(store_path, create=False)
     run_lock: FileLock | None = None
     try:
         seen = store.run(run_id)  # a run that does not exist is refused before any lock file
@@ -433,7 +442,7 @@ def _execute(
     total = count_points(files.sequence)
     estimate = estimate_duration(files.sequence, files.bench)
     predicted = estimate.total_s
-    store = open_run_store(store_path, durable=not files.simulated)
+    store = _open_store(store_path, durable=not files.simulated)
     wall0 = time.monotonic()
     sim_bench = None
     drivers: BenchDrivers | None = None
