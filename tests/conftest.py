@@ -8,6 +8,7 @@ import pytest
 
 # pytester checks the sequence-test plugin (tests/seqtest) with pytest's own machinery
 pytest_plugins = ["pytester"]
+from tests.pg_fixtures import pg_server, pg_url  # noqa: F401  (the lab database)
 
 
 @pytest.fixture(autouse=True)

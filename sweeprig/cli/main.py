@@ -9,6 +9,7 @@ from sweeprig.cli import (
     calibrate_cmd,
     check_cmd,
     golden_cmd,
+    lab_cmd,
     night_cmd,
     probe_cmd,
     report_cmd,
@@ -42,6 +43,7 @@ night_cmd.register(app)
 probe_cmd.register(app)
 app.add_typer(twin_cmd.app, name="twin")
 app.add_typer(golden_cmd.app, name="golden")
+lab_cmd.register(app)
 app.add_typer(sim_cmd.app, name="sim")  # a module that fails to import fails the command
 
 

@@ -74,12 +74,22 @@ from sweeprig.store.base import (
     InstrumentRecord,
     RunFile,
 )
+from sweeprig.store.open import StoreTarget, open_run_store, store_label, store_target
 from sweeprig.store.paths import run_file_name, run_log_path
 from sweeprig.store.runlock import hold_run_lock, run_lock_held
+from sweeprig.store.sql import SqlRunStoreCore
 from sweeprig.store.sqlite import SqliteRunStore
 
 SIM_BENCH_FILE = "benches/sim.toml"
 """The built-in simulated bench's bench file, inside the shipped sequences folder."""
+
+
+def _open_store(target: StoreTarget, *, create: bool = True,
+                durable: bool = True) -> SqliteRunStore | SqlRunStoreCore:
+    """The run's store: an SQLite file (:class:`SqliteRunStore`), or the lab database."""
+    if isinstance(target, Path):
+        return SqliteRunStore(target, create=create, durable=durable)
+    return open_run_store(target, create=create)  # type: ignore[return-value]
 
 
 @dataclass(frozen=True)
@@ -91,7 +101,7 @@ class RunOutcome:
     reason: str | None
     points_done: int
     points_total: int
-    store_path: Path
+    store_path: StoreTarget
     log_path: Path
     sim_elapsed_s: float
     wall_elapsed_s: float
@@ -280,9 +290,10 @@ def run_sequence(
     """
     files = load_run_files(sequence_path, bench_path, sim=sim, sim_description=sim_description,
                            calibration=calibration, accept_calibration=accept_calibration)
-    return _execute(files, store_path=Path(store_path), sim_description=sim_description,
-                    realtime=realtime, bus_log=bus_log, on_start=on_start, on_point=on_point,
-                    log_dir=log_dir, resume=None, on_wait=on_wait)
+    return _execute(files, store_path=store_target(store_path),
+                    sim_description=sim_description, realtime=realtime, bus_log=bus_log,
+                    on_start=on_start, on_point=on_point, log_dir=log_dir, resume=None,
+                    on_wait=on_wait)
 
 
 def run_loaded(
@@ -294,12 +305,14 @@ def run_loaded(
     on_start: Callable[[int, int, LoadedFiles], None] | None = None,
     on_point: Callable[[PointResult], None] | None = None,
     on_wait: Callable[[Mapping[str, Any]], None] | None = None,
+    log_dir: str | Path | None = None,
 ) -> RunOutcome:
     """:func:`run_sequence` for files already loaded and checked (a night plan checks every
-    part before the first runs)."""
-    return _execute(files, store_path=Path(store_path), sim_description=sim_description,
-                    realtime=realtime, bus_log=False, on_start=on_start, on_point=on_point,
-                    log_dir=None, resume=None, on_wait=on_wait)
+    part before the first runs; a lab worker gives each run its serial)."""
+    return _execute(files, store_path=store_target(store_path),
+                    sim_description=sim_description, realtime=realtime, bus_log=False,
+                    on_start=on_start, on_point=on_point, log_dir=log_dir, resume=None,
+                    on_wait=on_wait)
 
 
 def resume_run(
@@ -323,8 +336,9 @@ def resume_run(
     whose instruments answer ``*IDN?`` differently, naming what differs. The instrument
     state is set up again from the plan and the store, never from memory.
     """
-    store_path = Path(store_path)
-    store = SqliteRunStore(store_path, create=False)
+    store_path = store_target(store_path)
+    label = store_label(store_path)
+    store = _open_store(store_path, create=False)
     run_lock: FileLock | None = None
     try:
         seen = store.run(run_id)  # a run that does not exist is refused before any lock file
@@ -332,7 +346,7 @@ def resume_run(
             # Alive by its heartbeat on another host, whose run lock may not be visible here.
             raise InputError(
                 f"run {run_id} may still be running (process {seen.pid} on {seen.host})",
-                where=f"{store_path}: run {run_id}",
+                where=f"{label}: run {run_id}",
                 fix="wait for it to end, or stop it first (Ctrl-C or SIGTERM in its terminal)")
         run_lock = hold_run_lock(store_path, run_id, f"a resume of run {run_id}")
         info = store.run(run_id)
@@ -349,13 +363,13 @@ def resume_run(
     try:
         if info.stored_status == "complete":
             raise InputError(f"run {run_id} is already complete ({info.points_done} points)",
-                             where=f"{store_path}: run {run_id}",
+                             where=f"{label}: run {run_id}",
                              fix="nothing to resume; start a new run with `sweeprig run`")
         differences = _file_differences(info, recorded_files)
         if differences and not accept_changes:
             raise InputError(
                 f"run {run_id}'s files changed since it started: " + "; ".join(differences),
-                where=f"{store_path}: run {run_id}",
+                where=f"{label}: run {run_id}",
                 fix="put the files back as they were, or resume with --accept-changes if the "
                 "change cannot affect the measurements")
         cal_path = None
@@ -369,7 +383,7 @@ def resume_run(
                 raise InputError(
                     f"run {run_id} used the calibration {cal_path}, which has changed or "
                     "cannot be read: the rest of the run would get other corrections",
-                    where=f"{store_path}: run {run_id}",
+                    where=f"{label}: run {run_id}",
                     fix="put the calibration file back as it was (its text is stored with "
                     "the run), or start a new run")
         files = load_run_files(info.sequence_path, info.bench_path, sim=info.simulated,
@@ -421,7 +435,7 @@ def _first_difference(old: str, new: str) -> str:
 def _execute(
     files: LoadedFiles,
     *,
-    store_path: Path,
+    store_path: StoreTarget,
     sim_description: str | Path | None,
     realtime: bool,
     bus_log: bool,
@@ -437,7 +451,7 @@ def _execute(
     total = count_points(files.sequence)
     estimate = estimate_duration(files.sequence, files.bench)
     predicted = estimate.total_s
-    store = SqliteRunStore(store_path, durable=not files.simulated)
+    store = _open_store(store_path, durable=not files.simulated)
     wall0 = time.monotonic()
     sim_bench = None
     drivers: BenchDrivers | None = None
@@ -451,7 +465,8 @@ def _execute(
     safe: SafeOutcome | None = None
     clock: Clock = WallClock()
     sim_t0 = 0.0
-    log_dir = Path(log_dir) if log_dir is not None else store_path.parent
+    log_dir = (Path(log_dir) if log_dir is not None else store_path.parent
+               if isinstance(store_path, Path) else Path("."))
     log_path = log_dir / run_file_name(store_path, 0, ".log")  # replaced once the run has an id
     logger: logging.Logger | None = None
     bus: list[BusRecord] = []
@@ -469,7 +484,7 @@ def _execute(
             else:
                 label = f"run {resume.run_id}" if resume else f"a run of {files.sequence_path}"
                 lock = BenchLock(_bench_resources(files.bench, roles),
-                                 f"{label} (store {store_path})").acquire()
+                                 f"{label} (store {store_label(store_path)})").acquire()
             sim_t0 = clock.now()
             hook = (lambda role, t: bus.append(BusRecord(
                 datetime.fromtimestamp(t.time_s, UTC), role, t.sent, t.received,
@@ -621,7 +636,8 @@ def _execute(
             closing = _record_end(store, run_id, status, reason, store_failure,
                                   expected_stored, log_dir)
             status, reason = closing.status, closing.reason
-            steps = next_steps(status, run_id, store_path, bench_path=files.bench_path,
+            steps = next_steps(status, run_id, store_label(store_path),
+                               bench_path=files.bench_path,
                                simulated=files.simulated, sim_description=sim_description)
             if steps and closing.recorded and closing.note is None:
                 _store_write(None, store.log_event, run_id, "info", "next_steps",
@@ -690,7 +706,7 @@ def _store_write(failure: StoreError | None, write: Callable[..., object],
     return failure
 
 
-def _record_end(store: SqliteRunStore, run_id: int, status: str, reason: str | None,
+def _record_end(store: SqlRunStoreCore, run_id: int, status: str, reason: str | None,
                 failure: StoreError | None, expected_stored: int | None,
                 log_dir: Path) -> _Closing:
     """Read the run's points back, decide its final status, and record it.
@@ -709,7 +725,7 @@ def _record_end(store: SqliteRunStore, run_id: int, status: str, reason: str | N
         failure = StoreError(
             f"the store holds {stored} of the {expected_stored} points measured: points went "
             "missing from it during the run",
-            where=str(store.path),
+            where=store.where,
             fix="check what else writes to this store file; `sweeprig resume RUN_ID` "
             "measures the missing points again",
         )
@@ -724,12 +740,13 @@ def _record_end(store: SqliteRunStore, run_id: int, status: str, reason: str | N
         store.set_status(run_id, status, reason)  # type: ignore[arg-type]
     except StoreError as exc:
         failure = failure or exc
-        note = _write_failure_note(store.path, log_dir, run_id, status, reason, exc)
+        note = _write_failure_note(getattr(store, "path", None) or store.where, log_dir, run_id,
+                                   status, reason, exc)
         recorded = note is not None
     return _Closing(status, reason, failure, stored, read_back, note, recorded)
 
 
-def _write_failure_note(store_path: Path, log_dir: Path, run_id: int, status: str,
+def _write_failure_note(store_path: Path | str, log_dir: Path, run_id: int, status: str,
                         reason: str | None, error: StoreError) -> Path | None:
     """Write how the run ended to ``<store>.run-<id>.failed.txt``: beside the store, else in
     the log's folder, else in the current folder. Returns where, or None if nowhere could."""
@@ -742,7 +759,8 @@ def _write_failure_note(store_path: Path, log_dir: Path, run_id: int, status: st
     if error.message().replace("RUN_ID", str(run_id)) not in (reason or ""):
         text += f"this could not be written to the store: {error.message()}\n"
     name = run_file_name(store_path, run_id, ".failed.txt")
-    folders: list[Path] = [store_path.parent, log_dir]
+    folders: list[Path] = [store_path.parent, log_dir] if isinstance(store_path, Path) \
+        else [log_dir]
     with suppress(OSError):  # the current folder itself may have been deleted
         folders.append(Path.cwd())
     for folder in dict.fromkeys(folders):

@@ -13,19 +13,29 @@ from pathlib import Path
 
 
 def run_file_name(store_path: str | Path, run_id: int, suffix: str = "") -> str:
-    """``<store file name>.run-<id><suffix>``, e.g. ``sweeprig.sqlite.run-3.log``."""
+    """``<store file name>.run-<id><suffix>``, e.g. ``sweeprig.sqlite.run-3.log``; for a lab
+    database URL ``lab-<database name>.run-<id><suffix>`` (never the URL itself)."""
+    if isinstance(store_path, str) and "://" in store_path:
+        name = store_path.split("?", 1)[0].rstrip("/").rsplit("/", 1)[-1]
+        safe = "".join(c if c.isalnum() or c in "-_" else "_" for c in name) or "db"
+        return f"lab-{safe}.run-{int(run_id)}{suffix}"
     return f"{Path(store_path).name}.run-{int(run_id)}{suffix}"
 
 
 def run_folder(store_path: str | Path, run_id: int) -> Path:
-    """The run's report folder, beside the store."""
+    """The run's report folder, beside the store (in the current folder for a lab
+    database)."""
+    if isinstance(store_path, str) and "://" in store_path:
+        return Path(run_file_name(store_path, run_id))
     store = Path(store_path)
     return store.parent / run_file_name(store, run_id)
 
 
 def run_log_path(store_path: str | Path, run_id: int, log_dir: str | Path | None = None) -> Path:
     """The run's log file: in ``log_dir`` when given, else beside the store."""
-    folder = Path(log_dir) if log_dir is not None else Path(store_path).parent
+    lab = isinstance(store_path, str) and "://" in store_path
+    folder = (Path(log_dir) if log_dir is not None else Path(".") if lab
+              else Path(store_path).parent)
     return folder / run_file_name(store_path, run_id, ".log")
 
 

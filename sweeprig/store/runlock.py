@@ -23,6 +23,7 @@ from pathlib import Path
 from sweeprig.errors import InputError, StoreError
 from sweeprig.oslock import FileLock, is_locked, read_note
 from sweeprig.store.paths import run_file_name
+from sweeprig.store.postgres import PgRunLock, is_database_url, redact_url
 
 PROBE_RETRIES = 10
 """Attempts at taking a run lock that a status probe (``sweeprig runs``) may hold for an
@@ -42,14 +43,22 @@ def run_lock_path(store_path: Path | str, run_id: int) -> Path:
 
 
 def run_lock_held(store_path: Path | str, run_id: int) -> bool:
-    """Whether a live process holds run ``run_id`` (this process included)."""
+    """Whether a live process holds run ``run_id`` (this process included). For a lab
+    database (a URL) the lock is the server's advisory lock (:mod:`sweeprig.store.postgres`)."""
+    if is_database_url(store_path):
+        from sweeprig.store.postgres import PostgresRunStore
+
+        with PostgresRunStore(str(store_path), create=False) as store:
+            return store._lock_held(run_id)
     return is_locked(run_lock_path(store_path, run_id))
 
 
-def hold_run_lock(store_path: Path | str, run_id: int, label: str) -> FileLock:
+def hold_run_lock(store_path: Path | str, run_id: int, label: str) -> FileLock | PgRunLock:
     """Take run ``run_id``'s lock for this process and return it (release it when the run
     ends). Raises :class:`RunBusy` naming the holder when another process runs it, and
     :class:`StoreError` when the lock file cannot be created beside the store."""
+    if is_database_url(store_path):
+        return _hold_database_lock(str(store_path), run_id)
     path = run_lock_path(store_path, run_id)
     lock = FileLock(path, retries=PROBE_RETRIES)
     note = {"run": f"run {run_id}", "by": label, "pid": os.getpid(),
@@ -71,4 +80,16 @@ def hold_run_lock(store_path: Path | str, run_id: int, label: str) -> FileLock:
             where=f"{store_path}: run {run_id}",
             fix="only one process may run or resume a run at a time: wait for that one to "
             "end, or stop it first (Ctrl-C or SIGTERM in its terminal)")
+    return lock
+
+
+def _hold_database_lock(url: str, run_id: int) -> PgRunLock:
+    """Run ``run_id``'s advisory lock in the lab database (see :class:`PgRunLock`)."""
+    lock = PgRunLock(url, run_id)
+    if not lock.try_acquire():
+        raise RunBusy(
+            f"run {run_id} is being run by another live process",
+            where=f"{redact_url(url)}: run {run_id}",
+            fix="only one process may run or resume a run at a time: wait for it to end, or "
+            "stop it first")
     return lock

@@ -1,4 +1,6 @@
-"""The SQLite run store: WAL, atomic points, concurrent readers, interrupted runs."""
+"""The run store's contract, on both backends (SQLite file and PostgreSQL server): atomic
+points, concurrent readers, interrupted runs; and the SQLite store's own settings (WAL,
+migrations of old files)."""
 
 from __future__ import annotations
 
@@ -40,11 +42,35 @@ def _readings(index: int) -> list[ReadingRecord]:
     ]
 
 
+@pytest.fixture(params=["sqlite", "postgresql"])
+def store(request, tmp_path):
+    """The store under test: an SQLite file, then a database of the test PostgreSQL server."""
+    if request.param == "postgresql":
+        from sweeprig.store.postgres import PostgresRunStore
+
+        db = PostgresRunStore(request.getfixturevalue("pg_url"))
+    else:
+        db = SqliteRunStore(tmp_path / "results" / "runs.sqlite")
+    yield db
+    db.close()
+
+
 @pytest.fixture
-def store(tmp_path):
+def sqlite_store(tmp_path):
     db = SqliteRunStore(tmp_path / "results" / "runs.sqlite")
     yield db
     db.close()
+
+
+def _target(store):
+    """What opens the same store again: the file path or the database URL."""
+    return getattr(store, "url", None) or store.path
+
+
+def _reopen(store):
+    from sweeprig.store.open import open_run_store
+
+    return open_run_store(_target(store), create=False)
 
 
 def _run(store: SqliteRunStore, **kw) -> int:
@@ -58,8 +84,12 @@ def test_default_path_constant():
     assert DEFAULT_STORE_PATH.as_posix() == "results/sweeprig.sqlite"
 
 
-def test_protocol_and_pragmas(store):
+def test_protocol(store):
     assert isinstance(store, RunStore)
+
+
+def test_pragmas(sqlite_store):
+    store = sqlite_store
     assert store.journal_mode == "wal"
     conn = sqlite3.connect(store.path)
     assert conn.execute("PRAGMA journal_mode").fetchone()[0] == "wal"
@@ -115,7 +145,8 @@ def test_crash_mid_point_leaves_nothing(store):
     assert len(store.readings_frame(run_id)) == 2
 
 
-def test_failure_inside_the_transaction_rolls_back(store, monkeypatch):
+def test_failure_inside_the_transaction_rolls_back(sqlite_store, monkeypatch):
+    store = sqlite_store
     run_id = _run(store)
     store.write_point(run_id, _point(0), _readings(0))
     conn = store._conn
@@ -139,7 +170,7 @@ def test_failure_inside_the_transaction_rolls_back(store, monkeypatch):
 
 def test_reader_sees_committed_points_while_writer_open(store):
     run_id = _run(store)
-    reader = SqliteRunStore(store.path, create=False)
+    reader = _reopen(store)
     try:
         assert reader.done_point_indices(run_id) == set()
         store.write_point(run_id, _point(0), _readings(0))
@@ -153,7 +184,7 @@ def test_reader_sees_committed_points_while_writer_open(store):
 def test_a_running_run_is_alive_exactly_while_its_run_lock_is_held(store):
     run_id = _run(store)
     store.set_status(run_id, "running")
-    lock = hold_run_lock(store.path, run_id, "this test")
+    lock = hold_run_lock(_target(store), run_id, "this test")
     try:
         assert store.run(run_id).status == "running"
         assert store.runs()[0].status == "running"
@@ -163,7 +194,8 @@ def test_a_running_run_is_alive_exactly_while_its_run_lock_is_held(store):
     assert (info.status, info.stored_status) == ("interrupted", "running")
 
 
-def test_a_run_on_another_host_falls_back_to_its_heartbeat(store):
+def test_a_run_on_another_host_falls_back_to_its_heartbeat(sqlite_store):
+    store = sqlite_store
     other = _run(store)
     store.set_status(other, "running")
     conn = sqlite3.connect(store.path)

@@ -1,0 +1,391 @@
+"""The PostgreSQL run store (psycopg 3): one lab database for every bench.
+
+Chosen by a database URL (``--db postgresql://...`` or ``SWEEPRIG_DB``) instead of an SQLite
+file. Same tables, same statements and the same guarantees as the SQLite store
+(:mod:`sweeprig.store.sql`): a point and all its readings are one transaction, every value is
+sent as a parameter, never pasted into SQL.
+
+* Autocommit connection; every write is an explicit transaction (``conn.transaction()``),
+  committed before the method returns.
+* A run is alive while its process holds the run's session-level advisory lock
+  (``pg_advisory_lock(RUN_LOCK_SPACE, run_id)``, PostgreSQL manual, "Advisory Locks"): the
+  server drops it when that process's connection ends, however the process ends, and every
+  bench sees it (unlike a lock file). :class:`PgRunLock` holds one on its own connection.
+* The URL's password is never printed: every message names the store by
+  :func:`redact_url`. Nothing the tool writes to a file holds the URL.
+* Schema version in ``store_meta`` as in SQLite; a store of a newer version is refused, an
+  older one is migrated in one transaction under an advisory lock (so two benches starting at
+  once migrate it once).
+"""
+
+from __future__ import annotations
+
+import os
+import re
+import socket
+import threading
+from collections.abc import Iterator, Mapping, Sequence
+from contextlib import contextmanager, suppress
+from typing import Any
+from urllib.parse import urlsplit, urlunsplit
+
+from sweeprig.errors import StoreError
+from sweeprig.signals import deferred
+from sweeprig.store.base import HEARTBEAT_STALE_S, PointRecord, ReadingRecord, utc_now
+from sweeprig.store.sql import (
+    INSERT_POINT_SQL,
+    INSERT_READING_SQL,
+    SCHEMA_VERSION,
+    SqlRunStoreCore,
+    newer_schema_error,
+    schema_statements,
+    to_pyformat,
+)
+
+URL_SCHEMES: tuple[str, ...] = ("postgresql", "postgres")
+"""URL schemes that select the PostgreSQL store (libpq's own)."""
+
+RUN_LOCK_SPACE = 0x5357
+"""First key of the run locks (``pg_advisory_lock(RUN_LOCK_SPACE, run_id)``)."""
+SCHEMA_LOCK_SPACE = 0x5358
+"""First key of the lock held while the schema is created or migrated."""
+
+CONNECT_TIMEOUT_S = 5
+"""How long a connection attempt may take before the database is said unreachable, s."""
+
+_FIX_URL = ("check the database URL (--db or SWEEPRIG_DB), e.g. "
+            "postgresql://USER@HOST:5432/DBNAME; that the server runs and accepts this user from "
+            "this machine; give the password in PGPASSWORD or ~/.pgpass rather than in the URL")
+
+
+def is_database_url(target: object) -> bool:
+    """Whether ``target`` names a PostgreSQL database (a ``postgresql://`` URL)."""
+    return isinstance(target, str) and target.split("://", 1)[0].lower() in URL_SCHEMES \
+        and "://" in target
+
+
+def redact_url(url: str) -> str:
+    """``url`` without its password (and without any ``password=`` query value): what
+    messages may show."""
+    try:
+        parts = urlsplit(url)
+    except ValueError:
+        return "<database URL>"
+    netloc = parts.netloc
+    if "@" in netloc:
+        userinfo, host = netloc.rsplit("@", 1)
+        user = userinfo.split(":", 1)[0]
+        netloc = f"{user}:***@{host}" if ":" in userinfo else f"{user}@{host}"
+    query = re.sub(r"(?i)(password=)[^&]*", r"\1***", parts.query)
+    return urlunsplit((parts.scheme, netloc, parts.path, query, ""))
+
+
+def scrub(text: str, url: str) -> str:
+    """``text`` (a server or driver message) with the URL's password removed wherever it
+    appears."""
+    with suppress(ValueError):
+        password = urlsplit(url).password
+        if password:
+            text = text.replace(password, "***")
+    return text.replace(url, redact_url(url))
+
+
+def connect(url: str, *, what: str = "opening the lab database") -> Any:
+    """An autocommit psycopg connection to ``url``; :class:`StoreError` (redacted) when the
+    URL is wrong, the server unreachable or the login refused."""
+    try:
+        import psycopg
+    except ImportError:
+        raise StoreError(
+            "the PostgreSQL store needs psycopg, which is not installed",
+            where=redact_url(url),
+            fix="install sweeprig's lab extra: pip install 'sweeprig[lab]'",
+        ) from None
+    try:
+        return psycopg.connect(url, autocommit=True, connect_timeout=CONNECT_TIMEOUT_S,
+                               application_name="sweeprig")
+    except psycopg.Error as exc:
+        raise StoreError(f"{what} failed: {scrub(_first_line(exc), url)}",
+                         where=redact_url(url), fix=_FIX_URL) from None
+    except Exception as exc:  # a malformed URL (libpq's parser): psycopg raises ProgrammingError
+        raise StoreError(f"{what} failed: the URL cannot be read ({scrub(str(exc), url)})",
+                         where=redact_url(url), fix=_FIX_URL) from None
+
+
+def _first_line(exc: BaseException) -> str:
+    text = str(exc).strip()
+    return text.splitlines()[0] if text else type(exc).__name__
+
+
+def point_statement(run_id: int, point_row: Sequence[object],
+                    reading_rows: Sequence[Sequence[object]],
+                    activity: Mapping[str, Any] | None) -> tuple[str, list[object]]:
+    """One point as one parameterised statement (see :meth:`PostgresRunStore.write_point`):
+    the shared INSERTs, their ``VALUES`` repeated once per reading."""
+    import json
+
+    heartbeat = (utc_now().isoformat(timespec="microseconds"),
+                 None if activity is None else json.dumps(dict(activity), default=str), run_id)
+    parts = ["h AS (UPDATE runs SET heartbeat_utc = ?, activity_json = ? WHERE id = ?)",
+             f"p AS ({INSERT_POINT_SQL})"]
+    params: list[object] = [*heartbeat, *point_row]
+    if reading_rows:
+        head, values = INSERT_READING_SQL.split(" VALUES ", 1)
+        parts.append(f"r AS ({head} VALUES {', '.join([values] * len(reading_rows))})")
+        for row in reading_rows:
+            params += row
+    return to_pyformat("WITH " + ", ".join(parts) + " SELECT 1"), params
+
+
+class _Conn:
+    """The connection as the shared SQL sees it: ``?`` statements, values as parameters."""
+
+    def __init__(self, conn: Any) -> None:
+        self._conn = conn
+
+    def execute(self, sql: str, params: Sequence[object] = ()) -> Any:
+        return self._conn.execute(to_pyformat(sql), tuple(params))
+
+    def raw(self, script: str) -> None:
+        """Run a script of the project's own (no values; several statements)."""
+        self._conn.execute(script)  # type: ignore[arg-type]
+
+    def executemany(self, sql: str, rows: Sequence[Sequence[object]]) -> None:
+        rows = list(rows)
+        if rows:
+            with self._conn.cursor() as cursor:
+                cursor.executemany(to_pyformat(sql), rows)
+
+
+class PostgresRunStore(SqlRunStoreCore):
+    """A :class:`~sweeprig.store.base.RunStore` in a PostgreSQL database.
+
+    ``url``: a libpq URL (``postgresql://USER@HOST:PORT/DBNAME``). ``create``: create the
+    tables in an empty database (otherwise a database without them is a :class:`StoreError`).
+    Safe to share between threads (one lock, one connection).
+    """
+
+    dialect = "postgresql"
+
+    def __init__(self, url: str, *, create: bool = True,
+                 stale_after_s: float = HEARTBEAT_STALE_S) -> None:
+        self.url = url
+        self.where = redact_url(url)
+        self.stale_after_s = stale_after_s
+        self._host = socket.gethostname()
+        self._lock = threading.RLock()
+        self._closed_by_us = False
+        self._conn = connect(url)
+        try:
+            self._setup(create=create)
+        except BaseException:
+            with suppress(Exception):
+                self._conn.close()
+            raise
+
+    # -- schema -----------------------------------------------------------------------------
+
+    def _version(self) -> int | None:
+        """The stored schema version; None when the database has no run store yet."""
+        rows = self._read("SELECT to_regclass('store_meta') IS NOT NULL, "
+                          "to_regclass('runs') IS NOT NULL")
+        has_meta, has_runs = rows[0]
+        if not has_runs:
+            return None
+        if not has_meta:
+            raise StoreError("this database has a table 'runs' that is not a sweeprig run store",
+                             where=self.where, fix="give another database (or an empty one)")
+        row = self._read("SELECT setting FROM store_meta WHERE name = 'schema_version'")
+        return int(row[0][0]) if row else 0
+
+    def _setup(self, *, create: bool) -> None:
+        version = self._version()
+        if version is not None and version > SCHEMA_VERSION:
+            raise newer_schema_error(version, self.where,
+                                     "use a newer sweeprig with this database, or another one")
+        if version == SCHEMA_VERSION:
+            return
+        if version is None and not create:
+            raise StoreError("this database holds no sweeprig run store", where=self.where,
+                             fix="check the database name, or create the store first "
+                             "(`sweeprig lab init`)")
+        with self._transaction("creating the run store") as conn:
+            conn.execute("SELECT pg_advisory_xact_lock(?, 0)", (SCHEMA_LOCK_SPACE,))
+            version = self._version_in(conn)
+            if version is None:
+                for statement in schema_statements(self.dialect):
+                    conn.execute(statement)
+                conn.execute("INSERT INTO store_meta (name, setting) VALUES "
+                             "('schema_version', ?)", (str(SCHEMA_VERSION),))
+            elif version > SCHEMA_VERSION:
+                raise newer_schema_error(version, self.where, "use a newer sweeprig")
+            else:
+                self._migrate(conn, version)
+
+    @staticmethod
+    def _version_in(conn: _Conn) -> int | None:
+        if conn.execute("SELECT to_regclass('runs') IS NOT NULL").fetchone()[0] is False:
+            return None
+        row = conn.execute("SELECT setting FROM store_meta WHERE name = 'schema_version'"
+                           ).fetchone()
+        return int(row[0]) if row else 0
+
+    def _migrate(self, conn: _Conn, version: int) -> None:
+        """Bring a store of an older version to :data:`SCHEMA_VERSION` (the first lab stores
+        were created at version 3: there is nothing older to upgrade; a step per version
+        is added here as the schema grows, as in the SQLite store)."""
+        if version < 3:
+            raise StoreError(
+                f"the lab database has schema version {version}, older than any lab store",
+                where=self.where,
+                fix="copy its runs into a new database with `sweeprig lab import`",
+            )
+        conn.execute("UPDATE store_meta SET setting = ? WHERE name = 'schema_version'",
+                     (str(SCHEMA_VERSION),))
+
+    # -- plumbing ---------------------------------------------------------------------------
+
+    @contextmanager
+    def _transaction(self, what: str) -> Iterator[_Conn]:
+        """One write transaction, committed when the block ends; a failure is rolled back
+        and becomes a :class:`StoreError` saying what failed (password removed)."""
+        import psycopg
+
+        with self._lock, deferred():  # a stop signal waits for the COMMIT or ROLLBACK
+            self._reconnect_if_lost()
+            try:
+                with self._conn.transaction():
+                    yield _Conn(self._conn)
+            except psycopg.Error as exc:
+                raise self._error(exc, what) from None
+
+    def _read(self, sql: str, params: Sequence[object] = ()) -> list[tuple[Any, ...]]:
+        import psycopg
+
+        with self._lock:
+            self._reconnect_if_lost()
+            try:
+                return list(self._conn.execute(to_pyformat(sql), tuple(params)).fetchall())
+            except psycopg.Error as exc:
+                raise self._error(exc, "reading") from None
+
+    def _reconnect_if_lost(self) -> None:
+        """A connection the server dropped (restart, network) is opened again before the next
+        statement; the statement that met the drop has already failed (and reported it)."""
+        if self._conn.closed and not self._closed_by_us:
+            self._conn = connect(self.url, what="reconnecting to the lab database")
+
+    def _error(self, exc: Exception, what: str) -> StoreError:
+        import psycopg
+
+        text = scrub(_first_line(exc), self.url)
+        if isinstance(exc, psycopg.OperationalError) or self._conn.closed:
+            return StoreError(
+                f"{what} failed: the connection to the lab database was lost ({text})",
+                where=self.where,
+                fix="check that the database server runs and is reachable; the points "
+                "committed before this are kept; the run can be resumed on the same bench",
+            )
+        if isinstance(exc, psycopg.errors.IntegrityError):
+            fix = "this is a bug in the caller: the record clashes with one already stored"
+        else:
+            fix = "check the database server's log"
+        return StoreError(f"{what} failed: {text}", where=self.where, fix=fix)
+
+    def write_point(
+        self, run_id: int, point: PointRecord, readings: Sequence[ReadingRecord],
+        *, activity: Mapping[str, Any] | None = None,
+    ) -> None:
+        """The shared ``write_point``'s three statements (heartbeat, point row, readings:
+        :data:`INSERT_POINT_SQL`, :data:`INSERT_READING_SQL`) as one statement of
+        data-modifying ``WITH`` parts, so a point is one round trip and one commit (one
+        statement is one transaction: all of it or nothing). The checks the SQLite store
+        makes by querying first are the server's constraints here: a point already stored
+        breaks the primary key, a missing run the foreign key; either rolls the point back."""
+        import psycopg
+
+        point_row = self._point_row(run_id, point)
+        reading_rows = [self._reading_row(run_id, point.index, number, reading)
+                        for number, reading in enumerate(readings)]
+        sql, params = point_statement(run_id, point_row, reading_rows, activity)
+        with self._lock, deferred():
+            self._reconnect_if_lost()
+            try:
+                self._conn.execute(sql, params)
+            except psycopg.errors.UniqueViolation:
+                raise self._point_already_stored(run_id, point.index) from None
+            except psycopg.errors.ForeignKeyViolation:
+                raise StoreError(f"there is no run {run_id}", where=self.where,
+                                 fix="list the runs with `sweeprig lab runs`") from None
+            except psycopg.Error as exc:
+                raise self._error(exc, f"writing point {point.index}") from None
+
+    def _insert_run(self, conn: _Conn, sql: str, params: Sequence[object]) -> int:
+        return int(conn.execute(sql + " RETURNING id", params).fetchone()[0])
+
+    def _lock_held(self, run_id: int) -> bool:
+        rows = self._read(
+            "SELECT 1 FROM pg_locks WHERE locktype = 'advisory' AND classid = ? AND objid = ? "
+            "AND objsubid = 2 AND granted", (RUN_LOCK_SPACE, int(run_id)))
+        return bool(rows)
+
+    def _has_table(self, name: str) -> bool:
+        return bool(self._read("SELECT to_regclass(?) IS NOT NULL", (name,))[0][0])
+
+    def _columns(self, table: str) -> list[str]:
+        with self._lock:
+            cursor = self._conn.execute(f"SELECT * FROM {table} WHERE 1 = 0")
+            return [d.name for d in cursor.description]
+
+    @property
+    def schema_version(self) -> int:
+        """The stored schema version."""
+        return int(self._version() or 0)
+
+    def check_file(self, what: str = "using the run store", *, committed: bool = False) -> None:
+        """The SQLite store's file check; here: that the connection is open."""
+        if self._conn.closed:
+            raise StoreError(f"{what} failed: the connection to the lab database is closed",
+                             where=self.where, fix="check that the database server runs")
+
+    def close(self) -> None:
+        """Close the connection (idempotent)."""
+        with self._lock, suppress(Exception):
+            self._closed_by_us = True
+            self._conn.close()
+
+    def __enter__(self) -> PostgresRunStore:
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
+
+
+class PgRunLock:
+    """Run ``run_id``'s advisory lock, held on a connection of its own for as long as the
+    run is alive in this process (:meth:`release`, or the process's end, frees it)."""
+
+    def __init__(self, url: str, run_id: int) -> None:
+        self.url = url
+        self.run_id = int(run_id)
+        self._conn: Any = None
+
+    def try_acquire(self) -> bool:
+        """Take the lock if free; False when another session holds it."""
+        conn = connect(self.url, what="taking the run's lock")
+        taken = conn.execute("SELECT pg_try_advisory_lock(%s, %s)",
+                             (RUN_LOCK_SPACE, self.run_id)).fetchone()[0]
+        if not taken:
+            conn.close()
+            return False
+        conn.execute("SELECT set_config('application_name', %s, false)",
+                     (f"sweeprig run {self.run_id} pid {os.getpid()}",))
+        self._conn = conn
+        return True
+
+    def release(self) -> None:
+        """Free the lock (idempotent)."""
+        if self._conn is not None:
+            with suppress(Exception):
+                self._conn.close()
+            self._conn = None
