@@ -6,9 +6,10 @@ from pathlib import Path
 
 import pytest
 
+from tests.pg_fixtures import pg_server, pg_url  # noqa: F401  (the lab database)
+
 # pytester checks the sequence-test plugin (tests/seqtest) with pytest's own machinery
 pytest_plugins = ["pytester"]
-from tests.pg_fixtures import pg_server, pg_url  # noqa: F401  (the lab database)
 
 
 @pytest.fixture(autouse=True)
