@@ -42,8 +42,8 @@ def test_a_live_run_is_shown_live_for_the_whole_soak(tmp_path: Path):
     samples: list[tuple[float, str, str]] = []
     t0 = time.monotonic()
     try:
-        while run.poll() is None and "there is no run" in _cli("status", "1", "--store",
-                                                               str(store)):
+        while run.poll() is None and not re.search(r"\brunning\b", _cli(
+                "status", "1", "--store", str(store))):
             time.sleep(0.5)  # until the run is recorded: before that there is nothing to show
         while run.poll() is None:
             status = _cli("status", "1", "--store", str(store))
