@@ -147,8 +147,9 @@ def gain_vs_frequency(run: RunFigures) -> Plot | None:
     if table.empty:
         return None
     out_varies = bool(table.groupby("study")["if_freq_hz"].nunique().gt(1).any())
+    port_in = "IF" if run.conversion == "up" else "RF"  # an upconverter's input is its IF
     axis, axis_text = (("if_freq_hz", "output frequency (GHz)") if out_varies
-                       else ("rf_freq_hz", "input (RF) frequency (GHz)"))
+                       else ("rf_freq_hz", f"input ({port_in}) frequency (GHz)"))
     panels = _groups(table, _varying(table, ("study", "supply_v", "lo_power_dbm")))
     fig, axes_list = _grid(len(panels), height_in=3.4, single_height_in=4.2)
     corners: list[str] = []
