@@ -13,7 +13,7 @@ from __future__ import annotations
 
 import io
 import math
-from collections.abc import Callable, Mapping, Sequence
+from collections.abc import Callable, Iterator, Mapping, Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -317,12 +317,8 @@ def two_tone_plot(run: RunFigures) -> Plot | None:
     for ax, (title, rows) in zip(axes_list, panels, strict=False):
         notes: list[tuple[str, str]] = []
         tops: list[float] = []
-        for _, sweep in rows.groupby("temperature_c", dropna=False, sort=True):
-            sweep = sweep.sort_values("rf_power_dbm")
-            colour = temperature_colour(_first(sweep, "temperature_c"))
-            label = _label_of(sweep.iloc[0], ("temperature_c",))
+        for sweep, colour, label, x in _power_sweeps(rows):
             corners += _corners(sweep, CORNER_KEYS)
-            x = sweep["rf_power_dbm"].to_numpy(dtype=float)
             ax.plot(x, sweep["if_level_dbm"], "o", color=colour, markersize=4)
             for name, marker in (("im3_low", "v"), ("im3_high", "^")):
                 if f"{name}_present" not in sweep or not sweep[f"{name}_present"].any():
@@ -392,12 +388,8 @@ def intermod_dbc_plot(run: RunFigures) -> Plot | None:
     corners: list[str] = []
     drawn = set()
     for ax, (title, rows) in zip(axes_list, panels, strict=False):
-        for _, sweep in rows.groupby("temperature_c", dropna=False, sort=True):
-            sweep = sweep.sort_values("rf_power_dbm")
-            colour = temperature_colour(_first(sweep, "temperature_c"))
-            label = _label_of(sweep.iloc[0], ("temperature_c",))
+        for sweep, colour, label, x in _power_sweeps(rows):
             corners += _corners(sweep, CORNER_KEYS)
-            x = sweep["rf_power_dbm"].to_numpy(dtype=float)
             fund = sweep["if_level_dbm"].to_numpy(dtype=float)
             for order, style in (("im3", "-"), ("im2", "--")):
                 cols = [f"{order}_{s}_level_dbm" for s in ("low", "high")
@@ -651,6 +643,16 @@ def soak_curves(run: RunFigures) -> Plot | None:
 
 
 # -- helpers -----------------------------------------------------------------------------------
+
+
+def _power_sweeps(rows: pd.DataFrame) -> Iterator[tuple[pd.DataFrame, str, str, np.ndarray]]:
+    """Each temperature's power sweep in ``rows``, sorted by input power: (its rows, its
+    colour, its label, the input powers in dBm)."""
+    for _, sweep in rows.groupby("temperature_c", dropna=False, sort=True):
+        sweep = sweep.sort_values("rf_power_dbm")
+        yield (sweep, temperature_colour(_first(sweep, "temperature_c")),
+               _label_of(sweep.iloc[0], ("temperature_c",)),
+               sweep["rf_power_dbm"].to_numpy(dtype=float))
 
 
 def _figure(rows: int, cols: int, *, height_in: float,
