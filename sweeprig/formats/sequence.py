@@ -629,28 +629,62 @@ def _problem(sequence: Sequence, path: KeyPath, what: str, fix: str) -> InputErr
 
 
 def check_sequence(sequence: Sequence) -> None:
-    """Checks across keys that the models alone cannot make; raises a located InputError."""
+    """Checks across keys that the models alone cannot make; raises a located InputError,
+    the first problem found, carrying the others of independent checks in ``also`` (a check
+    that depends on an earlier key stops at that key's first problem)."""
+    problems: list[InputError] = []
+
+    def attempt(check: Callable[..., None], *args: Any) -> None:
+        try:
+            check(*args)
+        except InputError as exc:
+            problems.append(exc)
+
+    attempt(_check_margins, sequence)
     cond = sequence.conditions
-    _check_margins(sequence)
-    if cond.temperature_tolerance <= 0:
-        raise _problem(sequence, ("conditions", "temperature_tolerance"),
-                       "temperature_tolerance must be above 0 degC", "write e.g. 1.0")
+    attempt(_check_temperature_tolerance, sequence)
     for path, value in (
         (("conditions", "soak"), cond.soak),
         (("conditions", "settle"), cond.settle),
         (("recovery", "backoff"), sequence.recovery.backoff),
     ):
-        _check_duration(sequence, path, value)
+        attempt(_check_duration, sequence, path, value)
     if cond.adaptive_soak is not None:
-        _check_adaptive_soak(sequence, cond.adaptive_soak)
+        attempt(_check_adaptive_soak, sequence, cond.adaptive_soak)
+    attempt(_check_supply, sequence)
+    attempt(_check_expected_current, sequence)
+    seen: dict[str, int] = {}
+    for i, study in enumerate(sequence.study):
+        if study.name in seen:
+            problems.append(_problem(sequence, ("study", i, "name"),
+                                     f"study name {study.name!r} is used twice",
+                                     f"rename one of them (the first is "
+                                     f"study[{seen[study.name]}])"))
+            continue
+        seen[study.name] = i
+        attempt(_check_study, sequence, i, study)
+    for path, settings in _analyzer_settings(sequence):  # once for the file: linear time
+        attempt(_check_analyzer, sequence, path, settings)
+    for j, limit in enumerate(sequence.spec):
+        attempt(_check_spec, sequence, j, limit, set(seen))
+    if problems:  # `sweeprig check` shows the first twenty and counts the rest
+        first = problems[0]
+        first.also = (*first.also, *problems[1:])
+        raise first
+
+
+def _check_temperature_tolerance(sequence: Sequence) -> None:
+    if sequence.conditions.temperature_tolerance <= 0:
+        raise _problem(sequence, ("conditions", "temperature_tolerance"),
+                       "temperature_tolerance must be above 0 degC", "write e.g. 1.0")
+
+
+def _check_supply(sequence: Sequence) -> None:
+    """Supply voltages of 0 V or more, and one at all when the supply current is read."""
+    cond = sequence.conditions
     if cond.supply is not None and _axis_min(cond.supply) < 0:
         raise _problem(sequence, ("conditions", "supply"), "a supply voltage is negative",
                        "give supply voltages of 0 V or more")
-    current = sequence.part.expected_supply_current
-    if current is not None and not (math.isfinite(current) and current > 0):
-        raise _problem(sequence, ("part", "expected_supply_current"),
-                       f"expected_supply_current {current:g} A is not above 0 A",
-                       'give the part\'s typical supply current, e.g. "45 mA"')
     if cond.supply is None and "supply_current" in sequence.reading_kinds():
         raise _problem(sequence, ("conditions",),
                        "the sequence reads supply_current but sets no supply voltage: sweeprig "
@@ -658,27 +692,27 @@ def check_sequence(sequence: Sequence) -> None:
                        "be measured unpowered (every gain tens of dB below expected_gain)",
                        'add supply = "3.3 V" (the part\'s supply voltage; check its rating '
                        "first) under [conditions], or drop the supply_current reading")
-    seen: dict[str, int] = {}
-    for i, study in enumerate(sequence.study):
-        if study.name in seen:
-            raise _problem(sequence, ("study", i, "name"),
-                           f"study name {study.name!r} is used twice",
-                           f"rename one of them (the first is study[{seen[study.name]}])")
-        seen[study.name] = i
-        _check_study(sequence, i, study)
-    for path, settings in _analyzer_settings(sequence):  # once for the file: linear time
-        _check_analyzer(sequence, path, settings)
-    names = set(seen)
-    for j, limit in enumerate(sequence.spec):
-        if limit.study is not None and limit.study not in names:
-            raise _problem(sequence, ("spec", j, "study"), f"no study is named {limit.study!r}",
-                           f"use one of: {', '.join(sorted(names))}")
-        if limit.min is None and limit.max is None:
-            raise _problem(sequence, ("spec", j), f"the limit on {limit.figure} has neither "
-                           "min nor max", "add min = ... and/or max = ...")
-        if limit.min is not None and limit.max is not None and limit.min > limit.max:
-            raise _problem(sequence, ("spec", j, "min"), f"min {limit.min:g} is above max "
-                           f"{limit.max:g}", "swap min and max")
+
+
+def _check_expected_current(sequence: Sequence) -> None:
+    current = sequence.part.expected_supply_current
+    if current is not None and not (math.isfinite(current) and current > 0):
+        raise _problem(sequence, ("part", "expected_supply_current"),
+                       f"expected_supply_current {current:g} A is not above 0 A",
+                       'give the part\'s typical supply current, e.g. "45 mA"')
+
+
+def _check_spec(sequence: Sequence, j: int, limit: SpecField, names: set[str]) -> None:
+    """One [[spec]] entry: a study that exists, at least one edge, min not above max."""
+    if limit.study is not None and limit.study not in names:
+        raise _problem(sequence, ("spec", j, "study"), f"no study is named {limit.study!r}",
+                       f"use one of: {', '.join(sorted(names))}")
+    if limit.min is None and limit.max is None:
+        raise _problem(sequence, ("spec", j), f"the limit on {limit.figure} has neither "
+                       "min nor max", "add min = ... and/or max = ...")
+    if limit.min is not None and limit.max is not None and limit.min > limit.max:
+        raise _problem(sequence, ("spec", j, "min"), f"min {limit.min:g} is above max "
+                       f"{limit.max:g}", "swap min and max")
 
 
 #: Longest wait each duration key accepts, s: a soak of a week, a settling or reconnection

@@ -210,3 +210,20 @@ def test_other_commands_print_the_first_problem_and_count_the_rest(app, tmp_path
     result = run(app, "plan", path)
     assert result.exit_code == 2, result.output
     assert "(1 more problem in this file: `sweeprig check` lists every one)" in result.output
+
+
+def test_check_lists_every_cross_key_problem_not_only_the_first(app, tmp_path) -> None:
+    """Problems across keys (found after the file's shape is valid) are listed together:
+    a zero temperature tolerance, a negative expected current, a study name used twice and
+    two broken limits, each at its own line."""
+    text = HOT.replace('id = "KX-1"\n', 'id = "KX-1"\nexpected_supply_current = "-3 mA"\n')
+    text += ('\n[[spec]]\nfigure = "conversion_gain_db"\nstudy = "zz"\nmin = "3 dB"\n'
+             '\n[[spec]]\nfigure = "conversion_gain_db"\nmin = "13 dB"\nmax = "3 dB"\n')
+    path = tmp_path / "cross.toml"
+    path.write_text(text, encoding="utf-8")
+    result = run(app, "check", path)
+    assert result.exit_code == 2, result.output
+    out = result.output
+    assert "3 problems:" in out, out
+    assert "part.expected_supply_current" in out
+    assert "no study is named 'zz'" in out and "min 13 is above max 3" in out
