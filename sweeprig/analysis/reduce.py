@@ -41,6 +41,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
+from sweeprig.analysis.captures import OUTPUT_FREQ
 from sweeprig.analysis.figures import SUPPLY_CURRENT_OFF, UNPOWERED, Figure, flag_points
 from sweeprig.analysis.limits import INCONCLUSIVE, PASS, Assessment, Limit, Verdict, assess
 from sweeprig.analysis.validity import SUPPLY_CURRENT_TOLERANCE, UNPOWERED_GAIN_MARGIN_DB
@@ -384,13 +385,21 @@ def _sequence_study(sequence: Sequence | None, name: str) -> Study | None:
         return None
 
 
+def _varies_in(captures: pd.DataFrame, study: str, column: str) -> bool:
+    """Whether ``column`` takes more than one value among the captures of ``study``."""
+    values = captures.loc[captures["study"] == study, column]
+    return bool(values.nunique(dropna=True) > 1)
+
+
 def _shape_from_sequence(study: Study) -> tuple[bool, bool, bool, bool]:
-    """(two tones, RF power swept, LO power swept, RF frequency swept) from the study's axes."""
+    """(two tones, input power swept, LO power swept, a frequency swept) from the study's
+    axes; the frequency is the input's or the LO's (with a fixed input the output moves with
+    the LO: an upconverter's output band)."""
     return (
         study.two_tone,
         axis_len(study.rf_power) > 1,
         axis_len(study.lo_power) > 1,
-        axis_len(study.rf_frequency) > 1,
+        axis_len(study.rf_frequency) > 1 or axis_len(study.lo_frequency) > 1,
     )
 
 
@@ -410,7 +419,8 @@ def _shape_from_points(points: pd.DataFrame) -> tuple[bool, bool, bool, bool]:
         two,
         swept("rf_power_dbm", [*base, "lo_power_dbm", "rf_freq_hz"]),
         swept("lo_power_dbm", [*base, "rf_power_dbm", "rf_freq_hz"]),
-        swept("rf_freq_hz", [*base, "lo_power_dbm", "rf_power_dbm"]),
+        swept("rf_freq_hz", [*base, "lo_power_dbm", "rf_power_dbm"])
+        or swept("lo_freq_hz", [*base, "lo_power_dbm", "rf_power_dbm", "rf_freq_hz"]),
     )
 
 
@@ -483,7 +493,14 @@ def _figures(
     if names := having(ROLE_GAIN):
         figures += an.conversion_gain_figures(captures, study=names)
     if names := having(ROLE_FLATNESS):
-        figures += an.gain_flatness_figures(captures, study=names)
+        # over the input frequency where it moves; else over the output, which the LO moves
+        by_input = [n for n in names if _varies_in(captures, n, "rf_freq_hz")]
+        by_output = [n for n in names if n not in by_input]
+        if by_input:
+            figures += an.gain_flatness_figures(captures, study=by_input)
+        if by_output and OUTPUT_FREQ in captures.columns:
+            figures += an.gain_flatness_figures(captures, study=by_output, over=OUTPUT_FREQ,
+                                                along=("lo_freq_hz",))
     if names := having(ROLE_TEMPCO):
         figures += an.gain_tempco_figures(captures, study=names)
     compression: list[Figure] = []

@@ -341,6 +341,13 @@ def _models() -> dict[str, _Model]:
                                   input_via=("lo",), output_via=("rf_port",)),
         "rf_if_isolation": _Model(1.0, -1.0, noise_reading="rf_at_if", noise_c=-1.0),
         "output_psat": _Model(output_c=1.0),
+        # an upconverter's own (sweeprig.analysis.direction): the LO's level at the output,
+        # and the wanted output against the LO or the unwanted sideband on one analyzer
+        "lo_leakage": _Model(output_c=1.0, noise_reading="lo_at_if", noise_c=1.0),
+        "lo_suppression": _Model(linearity_c=1.0, noise_reading="lo_at_if", noise_c=-1.0,
+                                 noise_also=(("if", 1.0),)),
+        "sideband_suppression": _Model(linearity_c=1.0, noise_reading="sideband",
+                                       noise_c=-1.0, noise_also=(("if", 1.0),)),
     }
     for tag in ("p0p1db", "p1db", "p3db"):
         out[f"input_{tag}"] = _Model(input_c=1.0, fit="compression")
@@ -447,9 +454,27 @@ def _spur_key(m: float, n: float) -> str:
     return f"spur.{int(m)}x{int(n)}"
 
 
+#: The readings as a budget names them, in words that hold for either conversion direction
+#: (the capture table names ports by position: ``if`` is the output port).
+_READING_WORDS: Mapping[str, str] = {
+    "if": "the wanted output",
+    "lo_at_if": "the LO at the output port",
+    "lo_at_rf": "the LO at the input port",
+    "rf_at_if": "the input at the output port",
+    "image": "the image product",
+    "sideband": "the unwanted sideband",
+    "spur": "the m×n spur",
+    "im3_low": "the lower IM3 product",
+    "im3_high": "the upper IM3 product",
+    "im2_low": "the lower IM2 product",
+    "im2_high": "the upper IM2 product",
+}
+
+
 def _plain(reading: str) -> str:
-    """A reading's name as budgets state it (an m×n spur: "spur")."""
-    return "spur" if reading.startswith("spur.") else reading
+    """A reading as budgets state it (an m×n spur: "the m×n spur")."""
+    name = "spur" if reading.startswith("spur.") else reading
+    return _READING_WORDS.get(name, name)
 
 
 def _noise_reading(model: _Model, figure: Figure) -> str | None:

@@ -41,8 +41,8 @@ from sweeprig.report.tables import (
 )
 
 #: Conditions that make the corners of a row, in the order the conditions column names them.
-CORNER_KEYS: tuple[str, ...] = ("temperature_c", "supply_v", "rf_freq_hz", "lo_freq_hz",
-                                "lo_power_dbm", "rf_power_dbm")
+CORNER_KEYS: tuple[str, ...] = ("temperature_c", "supply_v", "rf_freq_hz", "output_freq_hz",
+                                "lo_freq_hz", "lo_power_dbm", "rf_power_dbm")
 #: The temperature a datasheet's typical column is stated at, °C (common practice, no source).
 ROOM_C = 25.0
 #: Figures whose corners are run-store points: the worst product per point enters the row.
@@ -197,7 +197,7 @@ def _row(name: str, study: str, members: list[Figure], judged: Mapping[int, list
         name=name,
         label=figure_label(name),
         study=study,
-        conditions_text=corners_text(members),
+        conditions_text=corners_text(members, run.conversion),
         unit=members[0].unit,
         values=tuple(values),
         minimum=minimum,
@@ -211,26 +211,30 @@ def _row(name: str, study: str, members: list[Figure], judged: Mapping[int, list
     )
 
 
-def corners_text(figures: Sequence[Figure]) -> str:
+def corners_text(figures: Sequence[Figure], conversion: str = "down") -> str:
     """The test conditions of a row: each corner setting as one value, or its range
-    (``−40…85 °C, 3.3 V, RF 1.7–2.7 GHz, LO 0 dBm``); the LO frequency is left out when it
-    follows a swept RF."""
+    (``−40…85 °C, 3.3 V, RF 1.7–2.7 GHz, IF 100 MHz, LO 0 dBm``), in the words of the part's
+    ``conversion`` (an upconverter's input is its IF, its output its RF); the LO frequency is
+    left out when it follows a swept input or output frequency."""
     parts: list[str] = []
+    swept_signal = False
     for key in CORNER_KEYS:
         values = sorted({float(v) for f in figures
                          if isinstance(v := f.conditions.get(key), int | float)
                          and math.isfinite(float(v))})
         if not values:
             continue
-        if key == "lo_freq_hz" and len(values) > 1 and any(p.startswith("RF ") for p in parts):
+        if key == "lo_freq_hz" and len(values) > 1 and swept_signal:
             continue
-        low = format_condition(key, values[0])
+        if key in ("rf_freq_hz", "output_freq_hz") and len(values) > 1:
+            swept_signal = True
+        low = format_condition(key, values[0], conversion)
         if len(values) == 1:
             parts.append(low)
         elif key in ("temperature_c", "supply_v"):
-            parts.append(f"{low.split(' ')[0]}…{format_condition(key, values[-1])}")
+            parts.append(f"{low.split(' ')[0]}…{format_condition(key, values[-1], conversion)}")
         else:
-            high = format_condition(key, values[-1]).split(" ", 1)[1]
+            high = format_condition(key, values[-1], conversion).split(" ", 1)[1]
             parts.append(f"{low}–{high}")
     return ", ".join(parts).replace("-", "−")
 

@@ -24,7 +24,7 @@ from matplotlib.colors import LinearSegmentedColormap, Normalize
 from matplotlib.figure import Figure as MplFigure
 from matplotlib.lines import Line2D
 
-from sweeprig.analysis.captures import point_table
+from sweeprig.analysis.captures import OUTPUT_FREQ, point_table
 from sweeprig.analysis.compression import compression_table
 from sweeprig.analysis.figures import Figure, flag_bit
 from sweeprig.analysis.gain import gain_table
@@ -35,6 +35,7 @@ from sweeprig.analysis.reduce import (
     ROLE_IMAGE,
     ROLE_ISOLATION,
     ROLE_LO_DRIVE,
+    ROLE_SIDEBAND,
     ROLE_SPURS,
     ROLE_TWO_TONE,
     RunFigures,
@@ -137,23 +138,27 @@ def corner_label(row: Mapping[str, object] | pd.Series, keys: Sequence[str]) -> 
 
 
 def gain_vs_frequency(run: RunFigures) -> Plot | None:
-    """Conversion gain versus the output frequency (or the input frequency when the output
-    stays put), one line per temperature, one panel per supply and LO drive, with the
-    conversion-gain limits drawn inside the axis."""
+    """Conversion gain versus the output frequency where the output moves (or the input
+    frequency where the output stays put), one line per temperature, one panel per study,
+    supply and LO drive, with the conversion-gain limits drawn inside the axis."""
     studies = run.studies_with(ROLE_FLATNESS) or run.studies_with(ROLE_GAIN)
     if not studies:
         return None
     table = gain_table(run.captures, study=studies)
     if table.empty:
         return None
-    out_varies = bool(table.groupby("study")["if_freq_hz"].nunique().gt(1).any())
-    port_in = "IF" if run.conversion == "up" else "RF"  # an upconverter's input is its IF
-    axis, axis_text = (("if_freq_hz", "output frequency (GHz)") if out_varies
-                       else ("rf_freq_hz", f"input ({port_in}) frequency (GHz)"))
+    if OUTPUT_FREQ not in table.columns:
+        table[OUTPUT_FREQ] = table["if_freq_hz"]
+    port_in, port_out = ("IF", "RF") if run.conversion == "up" else ("RF", "IF")
     panels = _groups(table, _varying(table, ("study", "supply_v", "lo_power_dbm")))
     fig, axes_list = _grid(len(panels), height_in=3.4, single_height_in=4.2)
     corners: list[str] = []
+    axes_named: list[str] = []
     for ax, (title, rows) in zip(axes_list, panels, strict=False):
+        out_varies = bool(rows.groupby("study")[OUTPUT_FREQ].nunique().gt(1).any())
+        axis, axis_text = ((OUTPUT_FREQ, f"output ({port_out}) frequency (GHz)") if out_varies
+                           else ("rf_freq_hz", f"input ({port_in}) frequency (GHz)"))
+        axes_named.append("output" if out_varies else "input (the output frequency is fixed)")
         series = _groups(rows, _varying(rows, ("temperature_c", "rf_power_dbm")))
         for k, (label, line) in enumerate(series):
             line = line.sort_values(axis)
@@ -168,11 +173,11 @@ def gain_vs_frequency(run: RunFigures) -> Plot | None:
         if len(panels) > 1:
             ax.set_title(title, fontsize=9, color=INK)
         _legend(ax, fontsize=7)
+    against = " or ".join(dict.fromkeys(axes_named))
     return _finish(fig, "gain_vs_frequency", "Conversion gain versus frequency",
-                   "P_out − P_in at the DUT ports against the "
-                   + ("output" if out_varies else "input (the output frequency is fixed)")
-                   + " frequency, one line per temperature"
-                   + (", one panel per supply and LO drive" if len(panels) > 1 else "")
+                   f"P_out − P_in at the DUT ports against the {against} frequency, one line "
+                   "per temperature"
+                   + (", one panel per study, supply and LO drive" if len(panels) > 1 else "")
                    + "; green band: the conversion-gain limits of the sequence. Studies: "
                    + ", ".join(studies), corners=corners, corner_keys=CORNER_KEYS,
                    studies=studies)
@@ -189,6 +194,7 @@ def compression_curves(run: RunFigures) -> Plot | None:
         return None
     p1 = _by_conditions(run.figures_named("input_p1db"))
     p1_out = _by_conditions(run.figures_named("output_p1db"))
+    port_in = "IF" if run.conversion == "up" else "RF"  # an upconverter's input is its IF
     panels = _groups(table, _varying(table, ("study", "supply_v", "lo_power_dbm")))
     single = len(panels) == 1
     if single:
@@ -234,10 +240,10 @@ def compression_curves(run: RunFigures) -> Plot | None:
             notes.append((colour, f"{label}: input P1dB {figure_text(fin, 1)}"))
         _min_span(ax_gain, 2.0)
         _note_block(ax_gain, notes)
-        ax_gain.set_xlabel("input power at the RF port (dBm)")
+        ax_gain.set_xlabel(f"input power at the {port_in} port (dBm)")
         ax_gain.set_ylabel("conversion gain (dB)")
         if ax_out is not None:
-            ax_out.set_xlabel("input power at the RF port (dBm)")
+            ax_out.set_xlabel(f"input power at the {port_in} port (dBm)")
             ax_out.set_ylabel("output power (dBm)")
             ax_out.set_title("output versus input (dotted: small-signal line)", fontsize=9,
                              color=MUTED)
@@ -457,38 +463,63 @@ def gain_vs_lo_drive(run: RunFigures) -> Plot | None:
                    corners=corners, corner_keys=_LO_CORNERS, studies=studies)
 
 
-#: Isolation figures: (x-axis column, axis text, short name).
-_ISOLATION = {
-    "lo_if_isolation": ("lo_freq_hz", "LO frequency (GHz)", "LO→IF isolation"),
-    "lo_rf_isolation": ("lo_freq_hz", "LO frequency (GHz)", "LO→RF isolation"),
-    "rf_if_isolation": ("rf_freq_hz", "input (RF) frequency (GHz)", "RF→IF isolation"),
-    "image_rejection": ("rf_freq_hz", "input (RF) frequency (GHz)", "image rejection"),
+#: Leakage figures drawn by :func:`isolation_vs_frequency`.
+_ISOLATION: dict[str, tuple[str, tuple[str, ...]]] = {
+    # figure (trade name) → (label, the frequencies to plot it against, first that varies)
+    "lo_if_isolation": ("LO→IF isolation", ("lo_freq_hz", "output_freq_hz", "rf_freq_hz")),
+    "lo_rf_isolation": ("LO→RF isolation", ("lo_freq_hz", "output_freq_hz", "rf_freq_hz")),
+    "rf_if_isolation": ("RF→IF isolation", ("rf_freq_hz", "lo_freq_hz", "output_freq_hz")),
+    "if_rf_isolation": ("IF→RF isolation", ("rf_freq_hz", "output_freq_hz", "lo_freq_hz")),
+    "image_rejection": ("image rejection", ("rf_freq_hz", "lo_freq_hz", "output_freq_hz")),
+    "lo_leakage": ("LO leakage at the RF port", ("output_freq_hz", "lo_freq_hz", "rf_freq_hz")),
+    "lo_suppression": ("LO (carrier) suppression",
+                       ("output_freq_hz", "lo_freq_hz", "rf_freq_hz")),
+    "sideband_suppression": ("unwanted-sideband suppression",
+                             ("output_freq_hz", "lo_freq_hz", "rf_freq_hz")),
 }
 
 
+def _frequency_axis_text(column: str, conversion: str) -> str:
+    """The axis title of a frequency column in the words of the part's ``conversion``."""
+    port_in, port_out = ("IF", "RF") if conversion == "up" else ("RF", "IF")
+    return {"lo_freq_hz": "LO frequency (GHz)",
+            "output_freq_hz": f"output ({port_out}) frequency (GHz)",
+            "rf_freq_hz": f"input ({port_in}) frequency (GHz)"}[column]
+
+
 def isolation_vs_frequency(run: RunFigures) -> Plot | None:
-    """Each leakage figure versus frequency in a panel of its own, one line per corner, its
-    limits drawn; bounds (leakage in the noise) as open triangles, not joined to the line."""
-    studies = run.studies_with(ROLE_ISOLATION) + run.studies_with(ROLE_IMAGE)
+    """Each leakage figure (isolations, image rejection and an upconverter's LO leakage and
+    suppressions) versus the frequency its study sweeps, in a panel of its own, one line per
+    corner, its limits drawn; bounds (leakage in the noise) as open triangles, not joined to
+    the line."""
+    studies = list(dict.fromkeys(run.studies_with(ROLE_ISOLATION) + run.studies_with(ROLE_IMAGE)
+                                 + run.studies_with(ROLE_SIDEBAND)))
     if not studies:
         return None
-    frames = {}
-    for name, (axis, _, _) in _ISOLATION.items():
+    frames: dict[str, tuple[pd.DataFrame, str]] = {}
+    for name, (_, axes) in _ISOLATION.items():
         frame = _figure_frame(run.figures_named(name))
         frame = frame[frame["study"].isin(studies)]
         if frame.empty:
             continue
-        # prefer the studies that sweep the frequency (one frequency adds a vertical smear)
-        counts = frame.groupby("study")[axis].nunique()
-        keep = counts[counts > 1].index
-        frames[name] = frame[frame["study"].isin(keep)] if len(keep) else frame
+        # the first frequency some study sweeps (one frequency would be a vertical smear),
+        # and only the studies that sweep it
+        for axis in axes:
+            counts = frame.groupby("study")[axis].nunique()
+            keep = counts[counts > 1].index
+            if len(keep):
+                frames[name] = (frame[frame["study"].isin(keep)], axis)
+                break
+        else:
+            frames[name] = (frame, axes[0])
     if not frames:
         return None
     fig, axes_list = _grid(len(frames), height_in=3.4, single_height_in=4.0, columns=2)
     corners: list[str] = []
     drawn: list[str] = []
-    for ax, (name, frame) in zip(axes_list, frames.items(), strict=False):
-        axis, axis_text, text = _ISOLATION[name]
+    for ax, (name, (frame, axis)) in zip(axes_list, frames.items(), strict=False):
+        text = _ISOLATION[name][0]
+        unit = run.figures_named(name)[0].unit
         drawn += [s for s in dict.fromkeys(frame["study"]) if s not in drawn]
         series = _groups(frame, _varying(frame, ("study", "temperature_c", "supply_v",
                                                  "lo_power_dbm")))
@@ -500,14 +531,17 @@ def isolation_vs_frequency(run: RunFigures) -> Plot | None:
             corners += _corners(rows, CORNER_KEYS)
         _min_span(ax, 4.0)
         _limit_lines(ax, run, name, list(frame["study"].unique()))
-        ax.set_xlabel(axis_text)
-        ax.set_ylabel(f"{text} (dB)")
+        ax.set_xlabel(_frequency_axis_text(axis, run.conversion))
+        ax.set_ylabel(f"{text} ({unit})")
         _legend(ax, fontsize=7)
     return _finish(fig, "isolation", "Leakage and isolation versus frequency",
                    "Isolation = drive power at its port − the leaked power at the other port "
                    "(larger is better); image rejection = gain at the wanted input − gain at "
-                   "the image; one line per corner; dashed green: the sequence's limits; open "
-                   "▲: a lower bound (leakage in the noise), drawn apart from the measured line.",
+                   "the image; LO and sideband suppression = wanted output − the unwanted line "
+                   "at the output (dBc, larger is better); LO leakage: the LO's level at the "
+                   "output (dBm, smaller is better); one line per corner; dashed green: the "
+                   "sequence's limits; open ▲/▼: a bound (a line in the noise), drawn apart "
+                   "from the measured line.",
                    corners=corners, corner_keys=CORNER_KEYS, studies=drawn)
 
 
@@ -869,7 +903,8 @@ def _by_conditions(
 
 
 def _figure_frame(figures: Sequence[Figure]) -> pd.DataFrame:
-    columns = ["temperature_c", "supply_v", "lo_power_dbm", "rf_freq_hz", "lo_freq_hz"]
+    columns = ["temperature_c", "supply_v", "lo_power_dbm", "rf_freq_hz", "lo_freq_hz",
+               OUTPUT_FREQ]
     rows = [{"value": f.value, "bound": f.bound or "", "study": f.conditions.get("study"),
              **{c: f.conditions.get(c, np.nan) for c in columns}}
             for f in figures if math.isfinite(f.value)]

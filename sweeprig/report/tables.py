@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import json
 import math
+import re
 from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass
 from datetime import UTC, datetime
@@ -243,12 +244,30 @@ def limit_text(limit: Limit) -> str:
     unit = FIGURE_CATALOGUE.get(limit.name, ("", ""))[0]
     edges = []
     if limit.min is not None:
-        edges.append(f"≥ {format_value(limit.min, unit, 3).replace('.000', '')}")
+        edges.append(f"≥ {_limit_number(limit.min, unit)}")
     if limit.max is not None:
-        edges.append(f"≤ {format_value(limit.max, unit, 3).replace('.000', '')}")
+        edges.append(f"≤ {_limit_number(limit.max, unit)}")
     where = {k: v for k, v in limit.conditions.items()}
     text = " and ".join(edges)
     return f"{text} ({conditions_text(where)})" if where else text
+
+
+_RANGE = re.compile(r"≥ (?P<low>\S+) (?P<unit>\S+) and ≤ (?P<high>\S+) (?P=unit)")
+
+
+def compact_limit_text(text: str) -> str:
+    """A limit text with each two-sided limit as a range: ``"≥ 40 mA and ≤ 60 mA"`` →
+    ``"40…60 mA"`` (for narrow terminal columns)."""
+    return _RANGE.sub(lambda m: f"{m['low']}…{m['high']} {m['unit']}", text)
+
+
+def _limit_number(value: float, unit: str) -> str:
+    """A limit as the sequence wrote it: up to three decimals, trailing zeros dropped
+    (``15.5 dB``, ``-11 dBm``, ``60 mA``)."""
+    number, _, shown_unit = format_value(value, unit, 3).partition(" ")
+    if "." in number:
+        number = number.rstrip("0").rstrip(".")
+    return f"{number} {shown_unit}".strip()
 
 
 def flag_badge(name: str) -> tuple[str, str]:

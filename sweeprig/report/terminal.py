@@ -22,6 +22,7 @@ from sweeprig.report.fit_table import Column, fitted_table
 from sweeprig.report.tables import (
     NO_LIMIT,
     SummaryRow,
+    compact_limit_text,
     figure_text,
     flag_badge,
     summary_rows,
@@ -58,7 +59,8 @@ def summary_table(run: RunFigures, rows: list[SummaryRow] | None = None, *,
         Column("worst / value", [Text(v) for v in values], 100, justify="right",
                short_header=f"value (k = {COVERAGE_FACTOR:g})",
                short_cells=[Text(_COVERAGE.sub("", v)) for v in values]),
-        Column("limit", [Text(row.limit_text or "—") for row in rows], 80, wrap=True),
+        Column("limit", [Text(compact_limit_text(row.limit_text) or "—") for row in rows], 80,
+               wrap=True),
         Column("result", [Text(row.verdict, style=VERDICT_STYLES.get(row.verdict, ""))
                           for row in rows], 100),
         Column("flags", flags_long, 90, wrap=True, short_cells=flags_short),

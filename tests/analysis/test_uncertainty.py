@@ -205,9 +205,9 @@ def test_the_im3_asymmetry_takes_the_noise_of_both_products():
     assert budget is not None
     scatter = {c.what.split(" in the")[0]: c for c in budget.contributions
                if c.name == "noise_scatter"}
-    assert scatter["scatter of one reading of im3_high"].sensitivity == 1.0
-    assert scatter["scatter of one reading of im3_low"].sensitivity == -1.0
-    assert scatter["scatter of one reading of im3_low"].standard_db == pytest.approx(
+    assert scatter["scatter of one reading of the upper IM3 product"].sensitivity == 1.0
+    assert scatter["scatter of one reading of the lower IM3 product"].sensitivity == -1.0
+    assert scatter["scatter of one reading of the lower IM3 product"].standard_db == pytest.approx(
         noise_scatter_db(12.0))
     assert len([c for c in budget.contributions if c.name == "noise"]) == 2
 

@@ -146,3 +146,86 @@ def test_the_report_reads_an_upconverters_conditions_in_its_words(demo_run):
     assert "IF 50 MHz–150 MHz" in single, single
     assert rows[("lo_rf_isolation", "output-band")].label == "LO→RF isolation"
     assert rows[("sideband_suppression", "output-band")].label == "Unwanted-sideband suppression"
+
+
+def test_the_datasheet_rows_name_an_upconverters_ports(demo_run):
+    """The electrical-characteristics table states the 100 MHz input as the IF, the swept
+    5.6-6.0 GHz output as the RF, and leaves out the LO frequency that follows it."""
+    from sweeprig.report.datasheet import datasheet_rows
+
+    _outcome, run, _events = demo_run
+    rows = {(r.name, r.study): r for r in datasheet_rows(run)}
+    band = rows[("conversion_gain", "output-band")].conditions_text
+    assert "IF 100 MHz" in band and "RF 5.6 GHz–6 GHz" in band, band
+    assert "RF 100 MHz" not in band and "LO 5.5" not in band, band
+    assert "IF −20 dBm" in band, band  # the input drive is the IF's
+    fixed = rows[("input_p1db", "compression")].conditions_text
+    assert "IF 100 MHz" in fixed and "RF 5.8 GHz" in fixed, fixed
+
+
+def test_the_output_band_has_a_flatness_and_every_upconverter_figure_a_budget(demo_run):
+    """Gain flatness across the output band (the LO moves the output, the IF stays put), and
+    an expanded uncertainty on the upconverter's own figures (LO leakage as an absolute
+    level; the suppressions as two lines compared on one analyzer)."""
+    _outcome, run, _events = demo_run
+    flat = [f for f in run.figures_named("gain_flatness")
+            if f.conditions["study"] == "output-band"]
+    assert len(flat) == 1
+    gains = [f.value for f in run.figures_named("conversion_gain")
+             if f.conditions["study"] == "output-band"]
+    assert flat[0].value == pytest.approx(max(gains) - min(gains), abs=1e-9)
+    for name in ("lo_leakage", "lo_suppression", "sideband_suppression"):
+        numbers = [f for f in run.figures_named(name) if f.is_number]
+        assert numbers, name
+        assert all(np.isfinite(f.uncertainty_db) and f.uncertainty_db > 0
+                   for f in numbers), name
+        terms = {t.name for t in numbers[0].budget.contributions}
+        if name == "lo_leakage":
+            assert "analyzer_absolute" in terms, terms
+        else:
+            assert "analyzer_linearity" in terms and "analyzer_absolute" not in terms, terms
+
+
+def test_the_report_plots_gain_against_the_output_and_every_leakage_figure(demo_run):
+    """The output-band study's gain is drawn against the output (RF) frequency, the IF band's
+    against the input (IF) frequency; the leakage plot has a panel for each upconverter
+    figure; the compression axis names the IF port."""
+    from sweeprig.report import plots
+
+    _outcome, run, _events = demo_run
+    gain = plots.gain_vs_frequency(run)
+    assert gain is not None and set(gain.studies) == {"output-band", "if-band"}
+    leak = plots.isolation_vs_frequency(run)
+    assert leak is not None
+    import matplotlib
+
+    matplotlib.use("Agg")
+    texts = _axis_texts(plots.gain_vs_frequency, run)
+    assert "output (RF) frequency (GHz)" in texts and "input (IF) frequency (GHz)" in texts
+    texts = _axis_texts(plots.isolation_vs_frequency, run)
+    for label in ("LO leakage at the RF port (dBm)", "LO (carrier) suppression (dBc)",
+                  "unwanted-sideband suppression (dBc)", "IF→RF isolation (dB)"):
+        assert label in texts, texts
+    assert "input power at the IF port (dBm)" in _axis_texts(plots.compression_curves, run)
+
+
+def _axis_texts(maker, run) -> set[str]:
+    """The axis labels of the figure ``maker`` draws (captured before it is closed)."""
+    from matplotlib.figure import Figure as MplFigure
+
+    from sweeprig.report import plots
+
+    seen: set[str] = set()
+    original = plots._finish
+
+    def spy(fig: MplFigure, *args, **kwargs):
+        for ax in fig.axes:
+            seen.update({ax.get_xlabel(), ax.get_ylabel()})
+        return original(fig, *args, **kwargs)
+
+    plots._finish = spy
+    try:
+        maker(run)
+    finally:
+        plots._finish = original
+    return seen

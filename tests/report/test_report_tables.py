@@ -12,6 +12,7 @@ import pytest
 from sweeprig.analysis.figures import Figure
 from sweeprig.analysis.limits import Limit
 from sweeprig.report.tables import (
+    compact_limit_text,
     conditions_text,
     figure_text,
     figures_frame,
@@ -75,6 +76,12 @@ def test_formatting_helpers():
     assert figure_text(Figure("iip2", 27.85, "dBm", ">")) == "> 27.85 dBm"
     assert figure_text(Figure("iip3", float("nan"), "dBm", ">")) == "n/a"
     assert limit_text(Limit("supply_current", max=0.06)) == "≤ 60 mA"
+    # a limit as the sequence wrote it: no padded decimals
+    both = limit_text(Limit("conversion_gain", min=11.0, max=15.5))
+    assert both == "≥ 11 dB and ≤ 15.5 dB"
+    assert limit_text(Limit("input_p1db", min=-11.25)) == "≥ -11.25 dBm"
+    assert compact_limit_text(both) == "11…15.5 dB"
+    assert compact_limit_text("≥ 40 mA and ≤ 60 mA; ≥ 30 dB") == "40…60 mA; ≥ 30 dB"
     text = conditions_text({"study": "spurs", "temperature_c": 25.0, "rf_freq_hz": 2.2e9,
                             "m": 2.0, "n": -1.0}, skip=("study",))
     assert text == "25 °C, RF 2.2 GHz, m×n 2×-1"
