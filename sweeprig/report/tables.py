@@ -76,6 +76,9 @@ FIGURE_LABELS: Mapping[str, str] = MappingProxyType({
     "dc_power": "DC power",
     "spur_dbc": "Worst m×n spur",
     "spur_dbm": "m×n spur level",
+    "spur_excluded_dbc": "m×n product not counted",
+    "noise_figure": "Noise figure",
+    "noise_figure_gain": "Gain (Y-factor)",
     # an upconverter's (its input is the IF, its output the RF)
     "if_rf_isolation": "IF→RF isolation",
     "sideband_suppression": "Unwanted-sideband suppression",
@@ -95,7 +98,7 @@ HIGHER_IS_BETTER = frozenset({
 LOWER_IS_BETTER = frozenset({
     "gain_flatness", "lo_power_for_gain", "supply_current", "dc_power", "spur_dbc", "spur_dbm",
     "im3_low", "im3_high",
-    "lo_leakage",
+    "lo_leakage", "noise_figure",
 })
 
 #: Flag name → (badge text, explanation shown as a tooltip).
