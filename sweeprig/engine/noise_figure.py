@@ -39,6 +39,16 @@ from sweeprig.engine.connect import BenchDrivers
 from sweeprig.engine.noise_floor import LOG_AVERAGE_BIAS_DB
 from sweeprig.errors import InputError, InstrumentError
 from sweeprig.formats.bench import Bench
+from sweeprig.plan.noise_setup import SWITCH_SETTLE_S, NoiseSettings
+
+__all__ = [
+    "GAUSSIAN_ENBW_PER_RBW",
+    "SWITCH_SETTLE_S",
+    "NoiseBench",
+    "NoisePoint",
+    "NoisePower",
+    "NoiseSettings",
+]
 
 ZERO_C_K = 273.15
 #: Noise bandwidth of a Gaussian RBW filter per RBW: the integral of 2^-(2·df/RBW)² is
@@ -46,25 +56,8 @@ ZERO_C_K = 273.15
 GAUSSIAN_ENBW_PER_RBW = math.sqrt(math.pi / (4.0 * math.log(2.0)))
 #: The drive must read back within this of its setting, V (else the source is not hot).
 DRIVE_TOLERANCE_V = 0.5
-#: A noise source settles within milliseconds of its drive switching (common practice, no
-#: source); the wait after each switch.
-SWITCH_SETTLE_S = 0.05
 #: Sweep time below which an analyzer does not go, s (the simulated one's floor).
 MIN_SWEEP_S = 1e-3
-
-
-@dataclass(frozen=True)
-class NoiseSettings:
-    """Analyzer settings for noise readings: RBW (Hz), span in RBWs, trace points, sweeps
-    averaged, input attenuation (dB), and the extra attenuation of the compression check (dB,
-    0: no check)."""
-
-    rbw_hz: float = 3e6
-    span_rbw: float = 10.0
-    points: int = 1001
-    averages: int = 20
-    attenuation_db: float = 0.0
-    compression_check_db: float = 10.0
 
 
 @dataclass(frozen=True)

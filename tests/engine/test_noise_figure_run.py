@@ -28,6 +28,7 @@ title = "noise figure on the simulated bench"
 [part]
 id = "KX-2417"
 expected_gain = "12 dB"
+expected_lo_if_isolation = "30 dB"
 [mixing]
 conversion = "down"
 lo_side = "low"
