@@ -1,7 +1,9 @@
 """Noise-figure readings by the Y-factor method on an open bench.
 
 The noise source sits at the DUT RF input plane and is switched by its drive supply (role
-``nsdc``, the bench file's ``[noise_source]``). For each point the analyzer reads the noise
+``nsdc``, the bench file's ``[noise_source]``) or, with ``drive = "sa"``, by the analyzer's own
+noise-source output (the profile's ``noise_source`` operation); either is read back after
+each switch. For each point the analyzer reads the noise
 power at the part's output, source hot and source cold, with settings chosen for noise:
 
 * the power (RMS) detector when the profile has one (``detector`` operation), trace averaging
@@ -93,9 +95,17 @@ class NoiseBench:
         if bench.noise_source is None or bench.enr_table is None:
             raise InputError("noise-figure readings need a noise source", where="bench",
                              fix="add [noise_source] (and roles.nsdc) to the bench file")
-        if drivers.nsdc is None or drivers.sa is None:
-            raise InputError("noise-figure readings need the roles nsdc and sa",
-                             where="bench", fix="add roles.nsdc and roles.sa")
+        drive = bench.noise_drive_role
+        if drivers.sa is None or (drive == "nsdc" and drivers.nsdc is None):
+            raise InputError("noise-figure readings need the roles sa and nsdc (or an "
+                             "analyzer driving the noise source itself)", where="bench",
+                             fix='add roles.sa and roles.nsdc, or [noise_source] drive = "sa"')
+        if drive == "sa" and not drivers.sa.profile.has("noise_source"):
+            raise InputError("the analyzer's profile has no noise_source operation, but the "
+                             "bench drives the noise source from it",
+                             where=bench.where(("roles", "sa")),
+                             fix='use a profile with one (e.g. "scpi-analyzer-ns")')
+        self.drive = drive
         self.bench = bench
         self.d = drivers
         self.clock = clock
@@ -111,6 +121,10 @@ class NoiseBench:
     def source(self, hot: bool) -> None:
         """Switch the noise source hot (drive on) or cold (drive off), read back."""
         if self._hot is hot:
+            return
+        if self.drive == "sa":
+            self._analyzer_output(hot)
+            self._hot = hot
             return
         ns = self.d.nsdc
         assert ns is not None
@@ -132,8 +146,28 @@ class NoiseBench:
                                   "switching off", where=f"role 'nsdc' ({ns.resource})")
         self._hot = hot
 
+    def _analyzer_output(self, hot: bool) -> None:
+        """The analyzer's own noise-source output switched and read back."""
+        sa = self.d.sa
+        assert sa is not None
+        sa.set_value("noise_source", hot, force=True)
+        sa.check_errors()
+        self.clock.sleep(SWITCH_SETTLE_S)
+        state = sa.read_back("noise_source")
+        if state is not hot:
+            if hot:
+                sa.set_value("noise_source", False, force=True)
+            raise InstrumentError(
+                f"the analyzer's noise-source output reads {'ON' if state else 'off'} after "
+                f"switching it {'on' if hot else 'off'}: the source is not "
+                f"{'hot' if hot else 'cold'}", where=f"role 'sa' ({sa.resource})")
+
     def off(self) -> None:
         """The drive off (idempotent in effect; always sent)."""
+        if self.drive == "sa":
+            sa = self.d.sa
+            if sa is not None:
+                sa.set_value("noise_source", False, force=True)
         ns = self.d.nsdc
         if ns is not None:
             ns.set_value("output", False, force=True)

@@ -130,6 +130,8 @@ KIND_OPS: dict[str, dict[str, OpSpec]] = {
             _setting("detector", "choice", None, "trace detector: sample (log envelope) or "
                      "rms (power; for noise readings)", required=False,
                      choices=("sample", "rms")),
+            _setting("noise_source", "bool", None, "the analyzer's own noise-source drive "
+                     "output on/off (hot/cold, for noise-figure readings)", required=False),
             OpSpec("sweep", "action", "start one sweep (all averages) and wait for it"),
             OpSpec("sweep_time", "query", "time of one sweep, s", reply="float", required=False),
             OpSpec("marker_level", "query", "level at a frequency, dBm (value: Hz)",

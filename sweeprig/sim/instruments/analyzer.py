@@ -109,6 +109,11 @@ class SpectrumAnalyzer(ScpiInstrument):
 
     # ------------------------------------------------------------------ public views
     @property
+    def noise_output_on(self) -> bool:
+        """Whether its noise-source drive output is on."""
+        return bool(self.value("noise_output"))
+
+    @property
     def last_sweep(self) -> SweepResult | None:
         """The most recent sweep, or None before the first."""
         return self._last
@@ -199,6 +204,9 @@ class SpectrumAnalyzer(ScpiInstrument):
         # averaging); RMS, the power detector for noise readings.
         add(Setting("detector", "[SENSe]:DETector[:FUNCtion]", "enum", default="SAMPle",
                     choices=("SAMPle", "RMS")))
+        # Its own noise-source drive output (a rear-panel drive switching a noise source hot
+        # for Y-factor readings; off at power-on and after *RST).
+        add(Setting("noise_output", "OUTPut:NOISe[:STATe]", "bool", default=False))
         add(Setting("format", "FORMat[:DATA]", "enum", default="ASCii",
                     choices=("ASCii", "REAL,32")))
         add(Setting("byte_order", "FORMat:BORDer", "enum", default="NORMal",
