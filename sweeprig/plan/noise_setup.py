@@ -157,12 +157,14 @@ def plan_noise_attenuation(
     settings: NoiseSettings, specs: mg.AnalyzerSpecs, *, part_nf_db: float, gain_db: float,
     loss_db: float, enr_db: float, lo_leak_dbm: float = -math.inf,
     attenuation_db: float | None = None, band_hz: float = NOISE_BAND_HZ,
+    assumed: str = "",
 ) -> NoisePlan:
     """Settings with the attenuation chosen (module docstring), or ``attenuation_db`` kept as
     stated (its risks predicted the same way). ``part_nf_db``: the part's noise figure;
     ``gain_db``: its gain; ``loss_db``: the output path's loss to the analyzer; ``enr_db``:
     the source's ENR (the largest over the signal and image bands: the safe side);
-    ``lo_leak_dbm``: the LO at the analyzer input (dBm)."""
+    ``lo_leak_dbm``: the LO at the analyzer input (dBm). ``assumed``: what the prediction
+    assumed (said with its risks)."""
     rbw = settings.rbw_hz
     part_cold = mg.part_noise_dbm(part_nf_db, gain_db, loss_db, rbw)
     fg_db = part_nf_db + gain_db
@@ -190,7 +192,8 @@ def plan_noise_attenuation(
     noise_ok, comp_ok, danl, mixer, comp = at(att)
     risks: list[str] = []
     reasons: list[str] = []
-    how = "the lowest attenuation free of compression" if automatic else "the stated attenuation"
+    how = ("the stated attenuation" if not automatic else
+           "the lowest attenuation free of compression" if comp_ok else "the highest attenuation")
     if not comp_ok:
         risks.append("analyzer_compression")
         reasons.append(
@@ -207,5 +210,7 @@ def plan_noise_attenuation(
             + ("; no attenuation keeps the analyzer's noise low and the hot source out of "
                "compression: add a low-noise preamplifier ahead of the analyzer or lower the "
                "path loss" if automatic else ""))
+    if reasons and assumed:
+        reasons.append(assumed)
     return NoisePlan(replace(settings, attenuation_db=att), part_cold, danl, mixer, comp,
                      tuple(sorted(risks)), tuple(reasons), automatic)

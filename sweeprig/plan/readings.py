@@ -595,7 +595,13 @@ class ReadingPlanner:
         return plan_noise_attenuation(
             settings, self.specs, part_nf_db=self.part_nf_db, gain_db=self.gain_db,
             loss_db=loss.at(if_hz), enr_db=enr_db, lo_leak_dbm=lo_leak,
-            attenuation_db=s.attenuation if isinstance(s.attenuation, float) else None)
+            attenuation_db=s.attenuation if isinstance(s.attenuation, float) else None,
+            assumed=" ".join(
+                ([f"part noise figure assumed {self.part_nf_db:g} dB (state "
+                  "part.expected_noise_figure)."] if self.part_nf_assumed else [])
+                + (["LO-IF isolation not stated: 0 dB assumed, the LO at full level at the "
+                    "analyzer (state part.expected_lo_if_isolation)."]
+                   if self.iso_lo_if is None else [])))
 
     def _fastest_rbw(self, s: AnalyzerSettings, nearest_hz: float) -> float:
         """The narrowest RBW step whose sweep fits ``max_sweep_time`` (auto span)."""

@@ -111,3 +111,33 @@ def test_duration_counts_the_hot_and_cold_sweeps_settling_and_one_calibration() 
     fewer = estimate_duration(_noise_seq(["noise_figure"], averages=5), bench,
                               command_overhead_s=0.0)
     assert fewer.sweep_s == pytest.approx(with_nf.sweep_s / 4)  # averaging scales the sweeps
+
+
+def test_check_reports_the_noise_readings_risk_with_its_assumptions(tmp_path: Path) -> None:
+    from sweeprig.plan.risks import survey_risks
+
+    text = SIM_BENCH.read_text(encoding="utf-8").replace('p1db = "3 dBm"', 'p1db = "-60 dBm"')
+    path = tmp_path / "bench.toml"
+    path.write_text(text, encoding="utf-8")
+    part = {"id": "KX-1", "expected_gain": "12 dB", "expected_lo_if_isolation": "30 dB"}
+    seq = sequence_from_dict({
+        "part": part, "mixing": {"if_frequency": "100 MHz"},
+        "study": [{"name": "n", "rf_frequency": "2 GHz", "rf_power": -25, "lo_power": 0,
+                   "read": ["noise_figure"]}]})
+    survey = survey_risks(seq, load_bench(path))
+    (group,) = survey.groups
+    assert (group.reading, group.risk) == ("noise_figure", "noise")
+    assert "no attenuation keeps" in group.reason
+    reasons = next(iter_points(seq, load_bench(path))).readings[0].predicted.reasons
+    assert any("part noise figure assumed 15 dB" in r for r in reasons)
+    # an unstated LO-IF isolation counts the LO at full level: even 70 dB cannot keep it
+    # from compressing this analyzer, and the reasons say what was assumed
+    del part["expected_lo_if_isolation"]
+    unstated = sequence_from_dict({
+        "part": part, "mixing": {"if_frequency": "100 MHz"},
+        "study": [{"name": "n", "rf_frequency": "2 GHz", "rf_power": -25, "lo_power": 0,
+                   "read": ["noise_figure"]}]})
+    reading = next(iter_points(unstated, load_bench(path))).readings[0]
+    assert reading.risks == ("analyzer_compression", "noise")
+    assert "the highest attenuation" in reading.predicted.reasons[1]
+    assert any("LO-IF isolation not stated" in r for r in reading.predicted.reasons)
