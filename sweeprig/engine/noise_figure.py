@@ -7,8 +7,10 @@ each switch. For each point the analyzer reads the noise
 power at the part's output, source hot and source cold, with settings chosen for noise:
 
 * the power (RMS) detector when the profile has one (``detector`` operation), trace averaging
-  in power; otherwise the log-detected trace, whose mean in dB is corrected by the log-averaging
-  bias 10·γ/ln 10 = 2.51 dB (:data:`sweeprig.engine.noise_floor.LOG_AVERAGE_BIAS_DB`);
+  in power; else the marker's noise function when the profile offers it (``noise_marker``:
+  dBm/Hz around the IF, times the filter's noise bandwidth); otherwise the log-detected
+  trace, whose mean in dB is corrected by the log-averaging bias 10·γ/ln 10 = 2.51 dB
+  (:data:`sweeprig.engine.noise_floor.LOG_AVERAGE_BIAS_DB`);
 * a stated RBW (default 3 MHz) over a span of 10 RBWs around the IF, so the trace also shows
   an interferer in the noise band;
 * a stated number of averages (default 20): the mean power then scatters by
@@ -181,6 +183,7 @@ class NoiseBench:
         s = self.settings
         att = s.attenuation_db if attenuation_db is None else attenuation_db
         rms = sa.profile.has("detector")
+        marker = not rms and sa.profile.has("noise_marker")
         if rms:
             sa.set_value("detector", "rms")
         sa.configure(centre_hz=freq_hz, span_hz=s.span_rbw * s.rbw_hz, rbw_hz=s.rbw_hz,
@@ -195,12 +198,22 @@ class NoiseBench:
         points_mw = 10.0 ** (trace / 10.0)
         if rms:
             mean_mw = float(np.mean(points_mw))
+        elif marker:  # the marker's noise function: dBm/Hz, times the filter's noise bandwidth
+            density = float(sa.ask("noise_marker", freq_hz))
+            mean_mw = 10.0 ** (density / 10.0) * GAUSSIAN_ENBW_PER_RBW * s.rbw_hz
         else:  # log-detected: the mean in dB sits 2.51 dB under the power
             mean_mw = 10.0 ** ((float(np.mean(trace)) + LOG_AVERAGE_BIAS_DB) / 10.0)
         sweep_s = max(MIN_SWEEP_S, sa.sweep_time_s() if sa.profile.has("sweep_time")
                       else MIN_SWEEP_S)
         time_bandwidth = GAUSSIAN_ENBW_PER_RBW * s.rbw_hz * sweep_s * max(1, s.averages)
-        observed = float(np.std(points_mw) / mean_mw / math.sqrt(trace.size))
+        # the scatter of the mean of the points it averages (a noise marker: those within one
+        # RBW of it, the common window; common practice, no source)
+        used = points_mw
+        if marker and trace.size > 1:
+            offsets = np.linspace(-0.5, 0.5, trace.size) * s.span_rbw * s.rbw_hz
+            used = points_mw[np.abs(offsets) <= s.rbw_hz]
+        observed = float(np.std(used) / (np.mean(used) if marker else mean_mw)
+                         / math.sqrt(used.size))
         jitter = max(1.0 / math.sqrt(time_bandwidth), observed)
         median = float(np.median(trace))
         # one point's scatter, robust to a line in the span: 1.4826·MAD estimates σ for

@@ -136,6 +136,10 @@ KIND_OPS: dict[str, dict[str, OpSpec]] = {
             OpSpec("sweep_time", "query", "time of one sweep, s", reply="float", required=False),
             OpSpec("marker_level", "query", "level at a frequency, dBm (value: Hz)",
                    value="float", unit="frequency", reply="float"),
+            OpSpec("noise_marker", "query", "the marker's noise function: noise power "
+                   "density around a frequency, dBm/Hz (value: Hz; for noise readings on an "
+                   "analyzer without a power detector)", value="float", unit="frequency",
+                   reply="float", required=False),
             OpSpec("peak", "query", "marker to the highest point → frequency Hz, level dBm",
                    reply="float"),
             OpSpec("trace_ascii", "query", "trace as ASCII numbers, dBm", reply="csv_floats",
