@@ -3,8 +3,8 @@
 The noise source sits at the DUT RF input plane and is switched by its drive supply (role
 ``nsdc``, the bench file's ``[noise_source]``) or, with ``drive = "sa"``, by the analyzer's own
 noise-source output (the profile's ``noise_source`` operation); either is read back after
-each switch. For each point the analyzer reads the noise
-power at the part's output, source hot and source cold, with settings chosen for noise:
+each switch. For each point the analyzer reads the noise power at the part's output, source
+hot and source cold, with settings chosen for noise:
 
 * the power (RMS) detector when the profile has one (``detector`` operation), trace averaging
   in power; else the marker's noise function when the profile offers it (``noise_marker``:
@@ -16,17 +16,20 @@ power at the part's output, source hot and source cold, with settings chosen for
 * a stated number of averages (default 20): the mean power then scatters by
   1/sqrt(ENBW·T·averages) (the time-bandwidth rule, common practice, no source), about 0.4 %
   with a 1 ms sweep at 3 MHz;
-* 0 dB input attenuation by default, so the analyzer's own noise stays low; the hot reading is
-  repeated with 10 dB more attenuation to see whether the hot source compresses the analyzer
-  (an input-referred hot−cold difference that changes with attenuation is not linear).
+* the input attenuation the planner chose (:mod:`sweeprig.plan.noise_setup`: low enough that
+  the analyzer's own noise does not dominate, high enough not to compress; 0 dB when used
+  without a plan); the hot reading is repeated with 10 dB more attenuation to see whether
+  the hot source compresses the analyzer (an input-referred hot−cold difference that changes
+  with attenuation is not linear).
 
 The system calibration (:meth:`NoiseBench.system_calibration`) fits the calibration thru in the
 part's place (the noise source then feeds the receive path straight) and reads hot and cold at
-every IF the study uses, once per calibration; the cold temperature is the measured ambient (the
-chamber probe, idle, before any conditioning) unless the bench states one.
+every IF (and attenuation) the study uses, once per run; the cold temperature is the measured
+ambient (the chamber probe, idle, before any conditioning) unless the bench states one.
 
-Caution: the drive is 28 V DC on the noise source; the safe state switches its supply off at the
-end of a run and on any failure (:mod:`sweeprig.engine.safe`).
+Caution: the drive is 28 V DC on the noise source; the safe state switches its supply (or the
+analyzer's noise-source output) off at the end of a run and on any failure, and reads it back
+(:mod:`sweeprig.engine.safe`).
 """
 
 from __future__ import annotations
