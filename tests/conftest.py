@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from datetime import date
 from pathlib import Path
 
 import pytest
@@ -19,3 +20,17 @@ def private_lock_dir(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> Path:
     folder = tmp_path / "locks"
     monkeypatch.setenv("SWEEPRIG_LOCK_DIR", str(folder))
     return folder
+
+
+#: The day the tests judge ENR tables' expiry on: the shipped demo table (ns-0417) expires on
+#: 2028-06-12, and the suite must not start failing on that date. Tests of expiry itself pass
+#: their own ``today``.
+TEST_TODAY = date(2026, 12, 1)
+
+
+@pytest.fixture(autouse=True)
+def enr_judged_on_a_fixed_day(monkeypatch: pytest.MonkeyPatch) -> None:
+    """Every in-process check of an ENR table's expiry sees :data:`TEST_TODAY`."""
+    import sweeprig.plan.noise_check as noise_check
+
+    monkeypatch.setattr(noise_check, "today_utc", lambda: TEST_TODAY)

@@ -1,28 +1,35 @@
 """Noise-figure readings by the Y-factor method on an open bench.
 
 The noise source sits at the DUT RF input plane and is switched by its drive supply (role
-``nsdc``, the bench file's ``[noise_source]``). For each point the analyzer reads the noise
-power at the part's output, source hot and source cold, with settings chosen for noise:
+``nsdc``, the bench file's ``[noise_source]``) or, with ``drive = "sa"``, by the analyzer's own
+noise-source output (the profile's ``noise_source`` operation); either is read back after
+each switch. For each point the analyzer reads the noise power at the part's output, source
+hot and source cold, with settings chosen for noise:
 
 * the power (RMS) detector when the profile has one (``detector`` operation), trace averaging
-  in power; otherwise the log-detected trace, whose mean in dB is corrected by the log-averaging
-  bias 10·γ/ln 10 = 2.51 dB (:data:`sweeprig.engine.noise_floor.LOG_AVERAGE_BIAS_DB`);
+  in power; else the marker's noise function when the profile offers it (``noise_marker``:
+  dBm/Hz around the IF, times the filter's noise bandwidth); otherwise the log-detected
+  trace, whose mean in dB is corrected by the log-averaging bias 10·γ/ln 10 = 2.51 dB
+  (:data:`sweeprig.engine.noise_floor.LOG_AVERAGE_BIAS_DB`);
 * a stated RBW (default 3 MHz) over a span of 10 RBWs around the IF, so the trace also shows
   an interferer in the noise band;
 * a stated number of averages (default 20): the mean power then scatters by
   1/sqrt(ENBW·T·averages) (the time-bandwidth rule, common practice, no source), about 0.4 %
   with a 1 ms sweep at 3 MHz;
-* 0 dB input attenuation by default, so the analyzer's own noise stays low; the hot reading is
-  repeated with 10 dB more attenuation to see whether the hot source compresses the analyzer
-  (an input-referred hot−cold difference that changes with attenuation is not linear).
+* the input attenuation the planner chose (:mod:`sweeprig.plan.noise_setup`: low enough that
+  the analyzer's own noise does not dominate, high enough not to compress; 0 dB when used
+  without a plan); the hot reading is repeated with 10 dB more attenuation to see whether
+  the hot source compresses the analyzer (an input-referred hot−cold difference that changes
+  with attenuation is not linear).
 
 The system calibration (:meth:`NoiseBench.system_calibration`) fits the calibration thru in the
 part's place (the noise source then feeds the receive path straight) and reads hot and cold at
-every IF the study uses, once per calibration; the cold temperature is the measured ambient (the
-chamber probe, idle, before any conditioning) unless the bench states one.
+every IF (and attenuation) the study uses, once per run; the cold temperature is the measured
+ambient (the chamber probe, idle, before any conditioning) unless the bench states one.
 
-Caution: the drive is 28 V DC on the noise source; the safe state switches its supply off at the
-end of a run and on any failure (:mod:`sweeprig.engine.safe`).
+Caution: the drive is 28 V DC on the noise source; the safe state switches its supply (or the
+analyzer's noise-source output) off at the end of a run and on any failure, and reads it back
+(:mod:`sweeprig.engine.safe`).
 """
 
 from __future__ import annotations
@@ -39,6 +46,16 @@ from sweeprig.engine.connect import BenchDrivers
 from sweeprig.engine.noise_floor import LOG_AVERAGE_BIAS_DB
 from sweeprig.errors import InputError, InstrumentError
 from sweeprig.formats.bench import Bench
+from sweeprig.plan.noise_setup import SWITCH_SETTLE_S, NoiseSettings
+
+__all__ = [
+    "GAUSSIAN_ENBW_PER_RBW",
+    "SWITCH_SETTLE_S",
+    "NoiseBench",
+    "NoisePoint",
+    "NoisePower",
+    "NoiseSettings",
+]
 
 ZERO_C_K = 273.15
 #: Noise bandwidth of a Gaussian RBW filter per RBW: the integral of 2^-(2·df/RBW)² is
@@ -46,25 +63,8 @@ ZERO_C_K = 273.15
 GAUSSIAN_ENBW_PER_RBW = math.sqrt(math.pi / (4.0 * math.log(2.0)))
 #: The drive must read back within this of its setting, V (else the source is not hot).
 DRIVE_TOLERANCE_V = 0.5
-#: A noise source settles within milliseconds of its drive switching (common practice, no
-#: source); the wait after each switch.
-SWITCH_SETTLE_S = 0.05
 #: Sweep time below which an analyzer does not go, s (the simulated one's floor).
 MIN_SWEEP_S = 1e-3
-
-
-@dataclass(frozen=True)
-class NoiseSettings:
-    """Analyzer settings for noise readings: RBW (Hz), span in RBWs, trace points, sweeps
-    averaged, input attenuation (dB), and the extra attenuation of the compression check (dB,
-    0: no check)."""
-
-    rbw_hz: float = 3e6
-    span_rbw: float = 10.0
-    points: int = 1001
-    averages: int = 20
-    attenuation_db: float = 0.0
-    compression_check_db: float = 10.0
 
 
 @dataclass(frozen=True)
@@ -100,9 +100,17 @@ class NoiseBench:
         if bench.noise_source is None or bench.enr_table is None:
             raise InputError("noise-figure readings need a noise source", where="bench",
                              fix="add [noise_source] (and roles.nsdc) to the bench file")
-        if drivers.nsdc is None or drivers.sa is None:
-            raise InputError("noise-figure readings need the roles nsdc and sa",
-                             where="bench", fix="add roles.nsdc and roles.sa")
+        drive = bench.noise_drive_role
+        if drivers.sa is None or (drive == "nsdc" and drivers.nsdc is None):
+            raise InputError("noise-figure readings need the roles sa and nsdc (or an "
+                             "analyzer driving the noise source itself)", where="bench",
+                             fix='add roles.sa and roles.nsdc, or [noise_source] drive = "sa"')
+        if drive == "sa" and not drivers.sa.profile.has("noise_source"):
+            raise InputError("the analyzer's profile has no noise_source operation, but the "
+                             "bench drives the noise source from it",
+                             where=bench.where(("roles", "sa")),
+                             fix='use a profile with one (e.g. "scpi-analyzer-ns")')
+        self.drive = drive
         self.bench = bench
         self.d = drivers
         self.clock = clock
@@ -118,6 +126,10 @@ class NoiseBench:
     def source(self, hot: bool) -> None:
         """Switch the noise source hot (drive on) or cold (drive off), read back."""
         if self._hot is hot:
+            return
+        if self.drive == "sa":
+            self._analyzer_output(hot)
+            self._hot = hot
             return
         ns = self.d.nsdc
         assert ns is not None
@@ -139,8 +151,28 @@ class NoiseBench:
                                   "switching off", where=f"role 'nsdc' ({ns.resource})")
         self._hot = hot
 
+    def _analyzer_output(self, hot: bool) -> None:
+        """The analyzer's own noise-source output switched and read back."""
+        sa = self.d.sa
+        assert sa is not None
+        sa.set_value("noise_source", hot, force=True)
+        sa.check_errors()
+        self.clock.sleep(SWITCH_SETTLE_S)
+        state = sa.read_back("noise_source")
+        if state is not hot:
+            if hot:
+                sa.set_value("noise_source", False, force=True)
+            raise InstrumentError(
+                f"the analyzer's noise-source output reads {'ON' if state else 'off'} after "
+                f"switching it {'on' if hot else 'off'}: the source is not "
+                f"{'hot' if hot else 'cold'}", where=f"role 'sa' ({sa.resource})")
+
     def off(self) -> None:
         """The drive off (idempotent in effect; always sent)."""
+        if self.drive == "sa":
+            sa = self.d.sa
+            if sa is not None:
+                sa.set_value("noise_source", False, force=True)
         ns = self.d.nsdc
         if ns is not None:
             ns.set_value("output", False, force=True)
@@ -154,6 +186,7 @@ class NoiseBench:
         s = self.settings
         att = s.attenuation_db if attenuation_db is None else attenuation_db
         rms = sa.profile.has("detector")
+        marker = not rms and sa.profile.has("noise_marker")
         if rms:
             sa.set_value("detector", "rms")
         sa.configure(centre_hz=freq_hz, span_hz=s.span_rbw * s.rbw_hz, rbw_hz=s.rbw_hz,
@@ -168,12 +201,22 @@ class NoiseBench:
         points_mw = 10.0 ** (trace / 10.0)
         if rms:
             mean_mw = float(np.mean(points_mw))
+        elif marker:  # the marker's noise function: dBm/Hz, times the filter's noise bandwidth
+            density = float(sa.ask("noise_marker", freq_hz))
+            mean_mw = 10.0 ** (density / 10.0) * GAUSSIAN_ENBW_PER_RBW * s.rbw_hz
         else:  # log-detected: the mean in dB sits 2.51 dB under the power
             mean_mw = 10.0 ** ((float(np.mean(trace)) + LOG_AVERAGE_BIAS_DB) / 10.0)
         sweep_s = max(MIN_SWEEP_S, sa.sweep_time_s() if sa.profile.has("sweep_time")
                       else MIN_SWEEP_S)
         time_bandwidth = GAUSSIAN_ENBW_PER_RBW * s.rbw_hz * sweep_s * max(1, s.averages)
-        observed = float(np.std(points_mw) / mean_mw / math.sqrt(trace.size))
+        # the scatter of the mean of the points it averages (a noise marker: those within one
+        # RBW of it, the common window; common practice, no source)
+        used = points_mw
+        if marker and trace.size > 1:
+            offsets = np.linspace(-0.5, 0.5, trace.size) * s.span_rbw * s.rbw_hz
+            used = points_mw[np.abs(offsets) <= s.rbw_hz]
+        observed = float(np.std(used) / (np.mean(used) if marker else mean_mw)
+                         / math.sqrt(used.size))
         jitter = max(1.0 / math.sqrt(time_bandwidth), observed)
         median = float(np.median(trace))
         # one point's scatter, robust to a line in the span: 1.4826·MAD estimates σ for

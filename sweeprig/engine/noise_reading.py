@@ -1,23 +1,25 @@
 """The runner's noise_figure reading: the Y-factor readings of one point, stored raw.
 
 The runner hands each ``noise_figure`` reading here (:meth:`NoiseReader.read`). The first
-reading at an IF runs the system calibration at that IF (the thru in the part's place, once per
-run); the cold temperature was read when the run was set up, before any conditioning
-(:mod:`sweeprig.engine.noise_figure`). The RF sources are off while the noise is read (the
-noise source alone drives the part's input) and back on afterwards. What is stored, in the
-reading's ``extra``: the hot and cold powers of the part and of the calibration (mW at the
-analyzer input), their jitters, the ENRs and their uncertainties, the cold temperature, the
-compression check and the interferer check; the analysis (:mod:`sweeprig.analysis.noise_load`)
-reduces them to the figure.
+reading at an IF and input attenuation runs the system calibration there (the thru in the
+part's place, once per run; the attenuation is the planner's,
+:mod:`sweeprig.plan.noise_setup`); the cold temperature was read when the run was set up,
+before any conditioning (:mod:`sweeprig.engine.noise_figure`). The RF sources are off while
+the noise is read (the noise source alone drives the part's input) and back on afterwards.
+What is stored, in the reading's ``extra``: the hot and cold powers of the part and of the
+calibration (mW at the analyzer input), their jitters, the ENRs and their uncertainties, the
+cold temperature, the compression check and the interferer check; the analysis
+(:mod:`sweeprig.analysis.noise_load`) reduces them to the figure.
 """
 
 from __future__ import annotations
 
 import math
 
+from sweeprig.analysis.noise_figure import HotCold
 from sweeprig.clock import Clock
 from sweeprig.engine.connect import BenchDrivers
-from sweeprig.engine.noise_figure import NoiseBench
+from sweeprig.engine.noise_figure import NoiseBench, NoiseSettings
 from sweeprig.formats.bench import Bench
 from sweeprig.plan.expand import Point
 from sweeprig.plan.readings import Reading
@@ -32,14 +34,21 @@ class NoiseReader:
         self.d = drivers
         self.nb.cold_k = self.nb.cold_temperature_k()  # now: before any conditioning
         self.nb.off()
+        self._calibrations: dict[tuple[float, float], HotCold] = {}
 
     def read(self, point: Point, reading: Reading) -> ReadingRecord:
         assert reading.freq_hz is not None
         if_hz = float(reading.freq_hz)
         nb = self.nb
-        if if_hz not in nb.calibration:
+        nb.settings = reading.noise if reading.noise is not None else NoiseSettings()
+        # the receive path's noise depends on the input attenuation: one system calibration
+        # per IF and attenuation, at the settings of the readings it corrects
+        key = (if_hz, nb.settings.attenuation_db)
+        if key not in self._calibrations:
             cold_k = nb.cold_k
+            nb.calibration.pop(if_hz, None)
             nb.system_calibration([if_hz])
+            self._calibrations[key] = nb.calibration[if_hz]
             nb.cold_k = cold_k  # the ambient of the set-up, not the chamber's air now
             lo = self.d.lo
             if lo is not None:
@@ -56,7 +65,7 @@ class NoiseReader:
         for source in rf_on:
             source.set_output(True)
             source.check_errors()
-        cal = nb.calibration[if_hz]
+        cal = self._calibrations[key]
         enr = nb.enr
         hot, cold = got.hot, got.cold
         return ReadingRecord(

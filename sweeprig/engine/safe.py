@@ -1,14 +1,15 @@
 """The bench's safe state, reached on every exit path and proven by reading it back.
 
 RF off on every source first (the DUT and the analyzer input are protected before anything
-else), then the supply to its safe setting, then the chamber to its idle set point. Each step
-is one instrument: the safe-state command is sent (always, whatever the driver's cache says),
-the instrument is asked to finish (``*OPC?``), its error queue is read, and last the setting
-is **read back** and compared with the safe value (last, so that no message of ours can undo
-what the read-back showed). A step whose read-back disagrees, whose
+else), then the noise source's drive off (its supply output, or the analyzer's own noise-source
+output when its profile has one), then the supply to its safe setting, then the chamber to its
+idle set point. Each step is one instrument: the safe-state command is sent (always, whatever
+the driver's cache says), the instrument is asked to finish (``*OPC?``), its error queue is
+read, and last the setting is **read back** and compared with the safe value (last, so that no
+message of ours can undo what the read-back showed). A step whose read-back disagrees, whose
 instrument does not answer, or whose error queue holds errors is tried again (reconnecting
-first when the link failed), up to :data:`SAFE_ATTEMPTS` times. Every instrument gets its
-first attempt before any is retried, so one hung instrument does not delay the others.
+first when the link failed), up to :data:`SAFE_ATTEMPTS` times. Every instrument gets its first
+attempt before any is retried, so one hung instrument does not delay the others.
 
 Nothing is called safe that was not read back: a step that never verifies is reported with
 the instrument (role and resource), what it still reports (or that it did not answer) and
@@ -295,6 +296,16 @@ def _steps(drivers: BenchDrivers, supply_safe_v: float | None,
             by_hand=f"switch the output of the supply of role 'nsdc' ({_resource(nsdc)}) that "
             f"drives the noise source off at its front panel; {CAUTION}",
         ))
+    sa = drivers.sa
+    if sa is not None and sa.profile.has("noise_source"):  # its own noise-source drive output
+        steps.append(_Step(
+            "sa", sa, "noise-source output off",
+            send=lambda: sa.set_value("noise_source", False, force=True),
+            expect=(_Expect("noise_source", False, "noise-source output"),),
+            by_hand=f"switch the noise-source output of the analyzer of role 'sa' "
+            f"({_resource(sa)}) off at its front panel, or unplug the noise source's drive "
+            f"cable; {CAUTION}",
+        ))
     dc = drivers.dc
     if dc is not None:
         place = f"the supply of role 'dc' ({_resource(dc)})"
@@ -371,8 +382,9 @@ def make_bench_safe(bench: Bench, *, resources: dict[str, str] | None = None,
     from sweeprig.engine.connect import open_bench
     from sweeprig.engine.locks import BenchBusy, BenchLock
 
-    roles = [r for r in ("rf", "rf2", "lo", "nsdc", "dc", "chamber")
-             if bench.role(r) is not None]
+    analyzer_drives = bench.noise_source is not None and bench.noise_drive_role == "sa"
+    roles = [r for r in ("rf", "rf2", "lo", "nsdc", "sa", "dc", "chamber")
+             if bench.role(r) is not None and (r != "sa" or analyzer_drives)]
     resources = dict(resources or {})
     lock_resources = tuple(resources.get(r, bench.role(r).resource) for r in roles)  # type: ignore[union-attr]
     unopened: list[SafeCheck] = []
@@ -408,13 +420,17 @@ def make_bench_safe(bench: Bench, *, resources: dict[str, str] | None = None,
 
 def _unopened(role: str, resource: str, exc: BaseException) -> SafeCheck:
     what = {"rf": "RF off", "rf2": "RF off", "lo": "RF off", "dc": "supply safe",
-            "nsdc": "noise-source drive off", "chamber": "chamber idle"}[role]
+            "nsdc": "noise-source drive off", "sa": "noise-source output off",
+            "chamber": "chamber idle"}[role]
     if role in ("rf", "rf2", "lo"):
         hand = (f"switch the RF output of role {role!r} ({resource}) off at its front panel, "
                 "or switch the source off")
     elif role in ("dc", "nsdc"):
         hand = (f"switch the output of the supply of role {role!r} ({resource}) off at its "
                 "front panel")
+    elif role == "sa":
+        hand = (f"switch the noise-source output of the analyzer of role 'sa' ({resource}) off "
+                "at its front panel, or unplug the noise source's drive cable")
     else:
         hand = f"put the chamber of role 'chamber' ({resource}) in its idle state at its controller"
     return SafeCheck(role=role, resource=resource, step=what, verified=False,

@@ -473,7 +473,7 @@ def _execute(
     try:
         with stop_path():  # a first signal stops the run; later ones cannot cut the finish
             resources: dict[str, str] = {}
-            roles = required_roles(files.sequence)
+            roles = required_roles(files.sequence, files.bench.noise_drive_role)
             if files.simulated or files.bench.is_simulated():
                 from sweeprig.sim.bench import start_sim_bench
 

@@ -381,6 +381,11 @@ class Bench(LocatedFile):
     def role(self, name: str) -> Role | None:
         return getattr(self.roles, name)
 
+    @property
+    def noise_drive_role(self) -> str:
+        """The role whose output switches the noise source ("nsdc" or "sa")."""
+        return self.noise_source.drive if self.noise_source is not None else "nsdc"
+
     def loss(self, connection: str) -> PathLoss:
         """Path loss of ``connection`` (one of :data:`CONNECTIONS`)."""
         if connection not in CONNECTIONS:
@@ -476,7 +481,8 @@ def load_bench(path: str | os.PathLike[str], *, known_profiles: Collection[str] 
             bench._losses[name] = _load_loss_file(bench, key, value, origin)
     if bench.noise_source is not None:
         where = bench.where(("noise_source",))
-        check_noise_source(bench.noise_source, has_drive_role=bench.roles.nsdc is not None,
+        check_noise_source(bench.noise_source,
+                           has_drive_role=bench.role(bench.noise_source.drive) is not None,
                            where=where)
         origin = doc.root.origin(("noise_source", "enr_file")).path.parent
         bench._enr = load_enr_for(bench.noise_source, origin,

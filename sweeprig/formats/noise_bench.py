@@ -18,6 +18,11 @@ For a plain two-column ENR table the source's identity comes from here: ``serial
 ``calibrated``, ``expires`` (TOML dates), ``enr_uncertainty`` (k = 2) and
 ``enr_frequency_unit`` (Hz, kHz, MHz or GHz).
 
+Or the analyzer's own noise-source output drives it (``drive = "sa"``; the analyzer's profile
+needs a ``noise_source`` operation, e.g. ``profile = "scpi-analyzer-ns"``): then no ``nsdc``
+role, and the drive keys are not used. Either way the run reads the drive back after each
+switch, and the safe state switches it off and reads that back.
+
 Cold temperature: the noise source's off state is a matched load at its physical temperature.
 ``"ambient"`` (the default) takes the measured room temperature: ``room_temperature`` (a room
 thermometer's reading) when stated, else the chamber probe read when the run is set up, before
@@ -30,7 +35,7 @@ from __future__ import annotations
 
 from datetime import date
 from pathlib import Path
-from typing import Annotated, Any
+from typing import Annotated, Any, Literal
 
 from pydantic import BeforeValidator, Field, WithJsonSchema
 
@@ -62,6 +67,10 @@ def _ambient_or_temperature(value: Any) -> Any:
 class NoiseSourceBench(Frozen):
     """The noise source on this bench (see the module docstring)."""
 
+    drive: Literal["nsdc", "sa"] = Field(
+        "nsdc", description='what switches the source: "nsdc" (a supply output, role nsdc, '
+        'at drive_voltage) or "sa" (the analyzer\'s own noise-source output, its profile\'s '
+        "noise_source operation)")
     enr_file: str = Field(min_length=1, description="ENR table: our TOML file or a plain "
                           "two-column table, relative to the bench file")
     drive_voltage: Voltage = Field(28.0, gt=0.0, description="the source's drive voltage")
@@ -90,6 +99,14 @@ class NoiseSourceBench(Frozen):
 def check_noise_source(spec: NoiseSourceBench, *, has_drive_role: bool, where: str) -> None:
     """Cross-key checks, before anything is powered: the drive role exists and its limit is
     not below the drive."""
+    if spec.drive == "sa":
+        if not has_drive_role:
+            raise InputError(
+                "the noise source is driven by the analyzer's noise-source output, but the "
+                "bench has no roles.sa", where=where,
+                fix='add roles.sa = { resource = "...", profile = "..." } (a profile with a '
+                'noise_source operation), or drive the source from a supply: drive = "nsdc"')
+        return
     if not has_drive_role:
         raise InputError(
             "the noise source has no drive supply: roles.nsdc is missing", where=where,

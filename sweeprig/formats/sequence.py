@@ -501,8 +501,10 @@ class Sequence(LocatedFile):
         return {r.kind for s in self.study for r in s.readings()}
 
 
-def required_roles(sequence: Sequence) -> dict[str, str]:
-    """Bench roles the sequence needs, each with the reason (for bench checks)."""
+def required_roles(sequence: Sequence, noise_drive_role: str = "nsdc") -> dict[str, str]:
+    """Bench roles the sequence needs, each with the reason (for bench checks).
+    ``noise_drive_role``: the role switching the noise source (the bench's
+    ``noise_source.drive``: a supply ``nsdc``, or the analyzer ``sa`` itself)."""
     kinds = sequence.reading_kinds()
     roles = {"rf": "every study drives the RF port", "lo": "every study drives the LO port"}
     if sequence.uses_two_tone():
@@ -519,7 +521,8 @@ def required_roles(sequence: Sequence) -> dict[str, str]:
     if "lo_at_rf" in kinds:
         roles["switch"] = "the lo_at_rf reading routes the analyzer to the RF port"
     if "noise_figure" in kinds:
-        roles["nsdc"] = "the noise_figure reading drives the noise source ([noise_source])"
+        roles.setdefault(noise_drive_role, "the noise_figure reading drives the noise source "
+                         "([noise_source])")
         roles["switch"] = ("the noise_figure reading's system calibration fits the "
                            "calibration thru (switch channel thru)")
     return roles

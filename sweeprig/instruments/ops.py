@@ -130,10 +130,16 @@ KIND_OPS: dict[str, dict[str, OpSpec]] = {
             _setting("detector", "choice", None, "trace detector: sample (log envelope) or "
                      "rms (power; for noise readings)", required=False,
                      choices=("sample", "rms")),
+            _setting("noise_source", "bool", None, "the analyzer's own noise-source drive "
+                     "output on/off (hot/cold, for noise-figure readings)", required=False),
             OpSpec("sweep", "action", "start one sweep (all averages) and wait for it"),
             OpSpec("sweep_time", "query", "time of one sweep, s", reply="float", required=False),
             OpSpec("marker_level", "query", "level at a frequency, dBm (value: Hz)",
                    value="float", unit="frequency", reply="float"),
+            OpSpec("noise_marker", "query", "the marker's noise function: noise power "
+                   "density around a frequency, dBm/Hz (value: Hz; for noise readings on an "
+                   "analyzer without a power detector)", value="float", unit="frequency",
+                   reply="float", required=False),
             OpSpec("peak", "query", "marker to the highest point → frequency Hz, level dBm",
                    reply="float"),
             OpSpec("trace_ascii", "query", "trace as ASCII numbers, dBm", reply="csv_floats",

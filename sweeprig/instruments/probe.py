@@ -60,6 +60,7 @@ PROBE_VALUES: dict[str, Value] = {
 #: On/off settings: the state they are probed in. Outputs and conditioning stay off.
 PROBE_SWITCHES: dict[str, bool] = {
     "output": False,
+    "noise_source": False,
     "control": False,
     "continuous": False,
     "rbw_auto": True,

@@ -3,7 +3,10 @@
 Adds up, per point: the settling time after the source changes (``conditions.settle``, once
 per point and once more per image reading, which retunes the RF), the analyzer sweeps
 (2.5·span/RBW² per sweep × averages, at least 1 ms — common practice, no single source), and
-a fixed overhead per instrument command. Per temperature: the chamber's way there (see
+a fixed overhead per instrument command. A noise-figure reading counts its hot and cold
+readings (and their repeat with more attenuation) at its averaging, RBW and span, the
+settling after each switch of the noise source, and one system calibration per IF and
+attenuation (:mod:`sweeprig.plan.noise_setup`). Per temperature: the chamber's way there (see
 :func:`chamber_travel_s`: the air's ramp, then the wait until the DUT probe, which lags the
 air, is within ``conditions.temperature_tolerance``, polled as the engine polls) plus
 ``conditions.soak``. Per supply change: one settling time.
@@ -26,6 +29,9 @@ from dataclasses import dataclass, field
 from sweeprig.formats.bench import Bench
 from sweeprig.formats.sequence import Sequence
 from sweeprig.plan.expand import PointBuilder, layout
+from sweeprig.plan.noise_setup import NoiseSettings
+from sweeprig.plan.noise_setup import calibration_time as noise_calibration_time
+from sweeprig.plan.noise_setup import point_time as noise_point_time
 
 #: Commands per point to set the sources (frequency and power of each source in use).
 SOURCE_COMMANDS_PER_POINT = 4
@@ -169,12 +175,19 @@ def estimate_duration(
             sampled = True
             any_sampled = True
         settle_s = sweep_s = overhead_s = 0.0
+        calibrations: dict[tuple[float | None, float], NoiseSettings] = {}
         for local in locals_:
             point = builder.point(first + local)
             settle_s += settle
             commands = SOURCE_COMMANDS_PER_POINT
             for r in point.readings:
-                if r.analyzer is not None:
+                if r.noise is not None:  # hot/cold readings: sweeprig.plan.noise_setup
+                    t = noise_point_time(r.noise)
+                    sweep_s += t.sweep_s
+                    settle_s += t.settle_s
+                    commands += t.commands
+                    calibrations.setdefault((r.freq_hz, r.noise.attenuation_db), r.noise)
+                elif r.analyzer is not None:
                     sweep_s += r.analyzer.measure_time_s
                     commands += ANALYZER_COMMANDS_PER_READING
                 else:
@@ -184,8 +197,17 @@ def estimate_duration(
                     commands += 2
             overhead_s += commands * command_overhead_s
         scale = block.count / len(locals_) * passes
-        studies.append(StudyDuration(block.study.name, block.count * passes, settle_s * scale,
-                                     sweep_s * scale, overhead_s * scale, sampled))
+        cal_sweep_s = cal_settle_s = cal_overhead_s = 0.0
+        for settings in calibrations.values():  # once per run at each IF and attenuation
+            t = noise_calibration_time(settings)
+            cal_sweep_s += t.sweep_s
+            cal_settle_s += t.settle_s
+            cal_overhead_s += t.commands * command_overhead_s
+        calibrations.clear()
+        studies.append(StudyDuration(block.study.name, block.count * passes,
+                                     settle_s * scale + cal_settle_s,
+                                     sweep_s * scale + cal_sweep_s,
+                                     overhead_s * scale + cal_overhead_s, sampled))
     chamber_s = 0.0
     soak_s, soak_max_s = soak_range_s(sequence)
     extra_max_s = 0.0

@@ -5,11 +5,16 @@ powered: the caller runs this with the other pre-flight checks."""
 
 from __future__ import annotations
 
-from datetime import UTC, datetime
+from datetime import UTC, date, datetime
 
 from sweeprig.errors import InputError
 from sweeprig.formats.bench import Bench
 from sweeprig.formats.sequence import Sequence
+
+
+def today_utc() -> date:
+    """Today's date in UTC, which an ENR table's expiry is judged against."""
+    return datetime.now(UTC).date()
 
 
 def check_noise_figure(sequence: Sequence, bench: Bench, today: datetime | None = None
@@ -25,6 +30,18 @@ def check_noise_figure(sequence: Sequence, bench: Bench, today: datetime | None 
             fix="add a [noise_source] table (enr_file, drive_voltage) and roles.nsdc, the "
             "supply that drives it, to the bench file")
     ns = bench.noise_source
+    if ns.drive == "sa":
+        from sweeprig.plan.instrument_limits import role_profile
+
+        profile = role_profile(bench, "sa")
+        if not profile.has("noise_source"):
+            raise InputError(
+                "the noise source is driven by the analyzer's noise-source output, but the "
+                f"analyzer's profile {profile.name!r} has no noise_source operation",
+                where=bench.where(("roles", "sa")),
+                fix='use a profile with one (e.g. "scpi-analyzer-ns"; or add [ops.noise_source] '
+                "with a command and a query to yours), or drive the source from a supply: "
+                'noise_source.drive = "nsdc"')
     if ns.cold_temperature == "ambient" and ns.room_temperature is None and (
             sequence.conditions.temperature is None or bench.role("chamber") is None):
         raise InputError(
@@ -33,7 +50,7 @@ def check_noise_figure(sequence: Sequence, bench: Bench, today: datetime | None 
             fix='state room_temperature = "23 degC" (or a cold_temperature) in [noise_source]')
     table = bench.enr_table
     where = bench.where(("noise_source", "enr_file"))
-    table.check_current((today or datetime.now(UTC)).date(), where=where)
+    table.check_current(today.date() if today is not None else today_utc(), where=where)
     from sweeprig.plan.expand import PointBuilder  # the points of the noise studies only
 
     builder = PointBuilder(sequence, bench)

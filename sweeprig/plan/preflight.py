@@ -154,7 +154,7 @@ def _need(bench: Bench, value: float | None, key: tuple[str, ...], why: str) -> 
 
 def check_roles(sequence: Sequence, bench: Bench) -> None:
     """InputError when the bench lacks a role the sequence needs (names the reason)."""
-    for role, why in required_roles(sequence).items():
+    for role, why in required_roles(sequence, bench.noise_drive_role).items():
         if bench.role(role) is None:
             raise InputError(
                 f"the bench has no {role!r} role, but {why}",
@@ -238,7 +238,7 @@ def check_limits(sequence: Sequence, bench: Bench) -> PreflightReport:
     """
     check_roles(sequence, bench)
     supply_warnings = check_supply(sequence, bench)
-    roles = required_roles(sequence)
+    roles = required_roles(sequence, bench.noise_drive_role)
     profiles = {r: role_profile(bench, r) for r in roles}
     limits = {r: role_limits(bench, r, p) for r, p in profiles.items()}
     lim = bench.limits

@@ -45,6 +45,7 @@ from sweeprig.formats.pathloss import ConstantLoss, PathLoss
 from sweeprig.formats.sequence import AUTO, DISTORTION_KINDS, AnalyzerSettings, Sequence, Study
 from sweeprig.plan import frequencies as fp
 from sweeprig.plan import margins as mg
+from sweeprig.plan.noise_setup import NoisePlan, NoiseSettings, plan_noise_attenuation
 
 #: Sweep time per sweep ≈ K·span/RBW² (common practice, k ≈ 2–3 for Gaussian RBW filters).
 SWEEP_TIME_K = 2.5
@@ -119,6 +120,8 @@ class Reading:
     known_hz: tuple[float, ...] = ()
     risks: tuple[str, ...] = ()
     predicted: mg.Prediction | None = None
+    noise: NoiseSettings | None = None
+    """A noise-figure reading's analyzer settings (:mod:`sweeprig.plan.noise_setup`)."""
 
 
 @dataclass(frozen=True)
@@ -145,6 +148,9 @@ def power_sum_dbm(levels_dbm: list[float]) -> float:
 #: The part's noise figure when the sequence does not state one, dB (pessimistic for an
 #: active mixer; common practice, no source).
 DEFAULT_PART_NOISE_FIGURE_DB = 15.0
+#: A noise source's ENR when the bench states no table, dB (a common diode source's; from
+#: memory).
+DEFAULT_ENR_DB = 15.0
 
 
 class ReadingPlanner:
@@ -301,8 +307,10 @@ class ReadingPlanner:
                 out.append(Reading(name=base, kind=kind, instrument="dc"))
                 continue
             elif kind == "noise_figure":  # hot/cold noise at the IF: sweeprig.engine.noise_figure
+                plan = self._noise_plan(d, wanted_hz, settings)
                 out.append(Reading(name=base, kind=kind, instrument="noise", port="if",
-                                   freq_hz=wanted_hz, orders=(m, n)))
+                                   freq_hz=wanted_hz, orders=(m, n), noise=plan.settings,
+                                   risks=plan.risks, predicted=plan.prediction()))
                 continue
             elif kind == "input_power":
                 out.append(Reading(name=base, kind=kind, instrument="pm", freq_hz=d.rf_freq_hz,
@@ -569,6 +577,31 @@ class ReadingPlanner:
         return setup, self._predict(pic, freq_hz, product, known_level, setup, part_1hz,
                                     recip_1hz, distortion_at(att, rbw), harmonic_at(rbw),
                                     siblings_hz)
+
+    def _noise_plan(self, d: Drive, if_hz: float, s: AnalyzerSettings) -> NoisePlan:
+        """A noise-figure reading's settings: explicit RBW, averages and attenuation kept,
+        the attenuation otherwise chosen
+        (:func:`sweeprig.plan.noise_setup.plan_noise_attenuation`)."""
+        base = NoiseSettings()
+        settings = NoiseSettings(
+            rbw_hz=s.rbw if isinstance(s.rbw, float) else base.rbw_hz,
+            averages=s.averages if isinstance(s.averages, int) else base.averages)
+        table = self.bench.enr_table if self.bench is not None else None
+        image_hz = abs(2.0 * d.lo_freq_hz - d.rf_freq_hz)
+        enr_db = float(max(table.enr_at([d.rf_freq_hz, image_hz]))) if table is not None \
+            else DEFAULT_ENR_DB
+        loss = self.losses["if"]
+        lo_leak = d.lo_power_dbm - (self.iso_lo_if or 0.0) - loss.at(d.lo_freq_hz)
+        return plan_noise_attenuation(
+            settings, self.specs, part_nf_db=self.part_nf_db, gain_db=self.gain_db,
+            loss_db=loss.at(if_hz), enr_db=enr_db, lo_leak_dbm=lo_leak,
+            attenuation_db=s.attenuation if isinstance(s.attenuation, float) else None,
+            assumed=" ".join(
+                ([f"part noise figure assumed {self.part_nf_db:g} dB (state "
+                  "part.expected_noise_figure)."] if self.part_nf_assumed else [])
+                + (["LO-IF isolation not stated: 0 dB assumed, the LO at full level at the "
+                    "analyzer (state part.expected_lo_if_isolation)."]
+                   if self.iso_lo_if is None else [])))
 
     def _fastest_rbw(self, s: AnalyzerSettings, nearest_hz: float) -> float:
         """The narrowest RBW step whose sweep fits ``max_sweep_time`` (auto span)."""

@@ -122,7 +122,7 @@ def survey_risks(sequence: Sequence, bench: Bench, *,
     for index in indices:
         point = builder.point(index)
         for reading in point.readings:
-            if reading.instrument != "sa":
+            if reading.instrument not in ("sa", "noise"):  # noise: sweeprig.plan.noise_setup
                 continue
             total += 1
             if not reading.risks:

@@ -83,7 +83,8 @@ its line by φ0 − 2π·f·τ, seeded from ``seed``). What is truly at each por
 Roles served: ``rf``, ``rf2``, ``lo`` (sources), ``sa`` (analyzer), ``pm`` (power meter),
 ``dc`` (supply), ``chamber``, ``switch``, ``simctl``, ``nsdc`` (the supply driving the
 noise source of ``[noise_source]``: ``enr`` points (frequency, enr) of its true ENR,
-``drive_on`` volts; ``[[interferers]]`` frequency and level plant a line on the IF path).
+``drive_on`` volts, ``drive = "sa"`` to wire it to the analyzer's own noise-source output
+instead; ``[[interferers]]`` frequency and level plant a line on the IF path).
 """
 
 from __future__ import annotations
@@ -94,7 +95,7 @@ import os
 from dataclasses import dataclass, replace
 from pathlib import Path
 from types import TracebackType
-from typing import TYPE_CHECKING, Annotated, Any
+from typing import TYPE_CHECKING, Annotated, Any, Literal
 
 import numpy as np
 from pydantic import BeforeValidator, Discriminator, Field, Tag, field_validator
@@ -327,10 +328,13 @@ class EnrPointSpec(Frozen):
 class NoiseSourceSpec(Frozen):
     """The simulated noise source at the DUT RF input plane, driven by the ``nsdc`` supply
     (see :mod:`sweeprig.sim.noise_source`). ``enr``: its true ENR curve (default: the
-    shipped demo source's); ``drive_on``: the drive voltage above which it is hot."""
+    shipped demo source's); ``drive_on``: the drive voltage above which it is hot; ``drive``:
+    what its drive input is wired to, the ``nsdc`` supply or the analyzer's own noise-source
+    output (``sa``)."""
 
     enr: tuple[EnrPointSpec, ...] | None = None
     drive_on: Annotated[Voltage, Field(gt=0.0)] = 20.0
+    drive: Literal["nsdc", "sa"] = "nsdc"
 
     @field_validator("enr")
     @classmethod
@@ -430,7 +434,7 @@ class SimBenchDescription(Frozen):
         points = (DEFAULT_ENR_POINTS if spec.enr is None
                   else tuple((p.frequency, p.enr) for p in spec.enr))
         return NoiseSourceModel(enr_points=points, drive_on_v=spec.drive_on,
-                                ambient_c=self.chamber.ambient)
+                                ambient_c=self.chamber.ambient, driven_by=spec.drive)
 
     def analyzer_params(self) -> AnalyzerParams:
         """The analyzer's own figures, its product phases seeded by ``seed``."""
@@ -568,7 +572,8 @@ def build_sim_instruments(
                        range_max_dbm=desc.power_meter.range_max,
                        reading_offset_db=desc.power_meter.offset)
     world.connect(rf=sources["rf"], rf2=sources["rf2"], lo=sources["lo"], supply=supply,
-                  chamber=chamber, switch=switch, ns_supply=ns_supply)
+                  chamber=chamber, switch=switch, ns_supply=ns_supply,
+                  ns_output=lambda: analyzer.noise_output_on)
     truth_line, truth_noise = _truth_hooks(world, analyzer)
     instruments: dict[str, ScpiInstrument] = {
         **sources, "sa": analyzer, "pm": meter, "dc": supply, "chamber": chamber,

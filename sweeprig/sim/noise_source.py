@@ -51,13 +51,17 @@ class NoiseSourceModel:
 
     ``enr_points``: its true ENR as (Hz, dB), frequencies rising (linear interpolation in dB,
     held flat beyond the ends). ``drive_on_v``: the drive voltage above which it is on (hot);
-    a supply below it leaves the diode off. ``ambient_c``: its physical temperature, degC
+    a supply below it leaves the diode off (an analyzer's noise-source output drives it at its
+    rated voltage whenever on). ``ambient_c``: its physical temperature, degC
     (its cold state is a matched load at this temperature).
     """
 
     enr_points: tuple[tuple[float, float], ...] = DEFAULT_ENR_POINTS
     drive_on_v: float = 20.0
     ambient_c: float = 23.0
+    driven_by: str = "nsdc"
+    """What its drive input is wired to: "nsdc" (the supply output) or "sa" (the analyzer's
+    own noise-source output)."""
 
     def enr_db(self, freq_hz: ArrayLike) -> NDArray[np.float64]:
         """True ENR at ``freq_hz``, dB."""

@@ -243,6 +243,7 @@ class SimWorld:
         self._chamber: ChamberView | None = None
         self._switch: SwitchView | None = None
         self._ns_supply: SupplyView | None = None
+        self._ns_output: Callable[[], bool] | None = None
         self._lock = threading.RLock()
         self._cache: OrderedDict[tuple[object, ...], MixerResponse] = OrderedDict()
         self._inputs: dict[int, tuple[MixerResponse, EvaluationInputs]] = {}
@@ -259,11 +260,14 @@ class SimWorld:
         chamber: ChamberView | None = None,
         switch: SwitchView | None = None,
         ns_supply: SupplyView | None = None,
+        ns_output: Callable[[], bool] | None = None,
     ) -> None:
         """Attach the instruments' views (any may be absent). ``ns_supply``: the supply
-        output driving the noise source."""
+        output driving the noise source; ``ns_output``: whether the analyzer's own
+        noise-source output is on (what drives it depends on the source's ``driven_by``)."""
         with self._lock:
             self._ns_supply = ns_supply
+            self._ns_output = ns_output
             self._sources = {"rf": rf, "rf2": rf2, "lo": lo}
             self._supply, self._chamber, self._switch = supply, chamber, switch
             self._cache.clear()
@@ -295,6 +299,8 @@ class SimWorld:
     def noise_source_on(self) -> bool:
         """Whether the noise source is driven on (its supply on at or above its drive)."""
         ns, supply = self.config.noise_source, self._ns_supply
+        if ns is not None and ns.driven_by == "sa":
+            return self._ns_output is not None and bool(self._ns_output())
         if ns is None or supply is None or not supply.output_on:
             return False
         return ns.is_on(float(supply.output_voltage_v))

@@ -13,7 +13,8 @@ from sweeprig.clock import VirtualClock
 from sweeprig.instruments.profile import load_profile
 from sweeprig.sim.bench import start_sim_bench
 
-SHIPPED = [("rf", "scpi-source"), ("sa", "scpi-analyzer"), ("pm", "scpi-powermeter"),
+SHIPPED = [("rf", "scpi-source"), ("sa", "scpi-analyzer"), ("sa", "scpi-analyzer-ns"),
+           ("pm", "scpi-powermeter"),
            ("dc", "scpi-supply"), ("chamber", "thermal-chamber"), ("switch", "scpi-switch"),
            ("simctl", "sim-control")]
 
@@ -44,6 +45,13 @@ def test_outputs_stay_off_and_levels_low(sim) -> None:
     supply = run_probe(sim.resources["dc"], "scpi-supply", timeout_s=2.0)
     assert supply.outputs_off_verified is True
     assert "SOUR:VOLT:LEV:IMM:AMPL 0" in [c for s in supply.steps for c in s.sent]
+
+
+def test_the_noise_source_output_is_probed_off(sim) -> None:
+    report = run_probe(sim.resources["sa"], "scpi-analyzer-ns", timeout_s=2.0)
+    sent = [cmd for step in report.steps for cmd in step.sent]
+    assert "OUTP:NOIS:STAT OFF" in sent and "OUTP:NOIS:STAT ON" not in sent
+    assert not sim.instruments["sa"].noise_output_on  # the simulator's own state
 
 
 def _broken(tmp_path: Path, name: str, body: str) -> Path:

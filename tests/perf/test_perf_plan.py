@@ -28,7 +28,7 @@ def test_plan_time_of_the_demo() -> None:
     bench, _ = _load_bench_or_sim(None)
     sequence = load_sequence(DEMO)
     start = time.perf_counter()
-    readings = sum(sum(1 for r in p.readings if r.instrument == "sa")
+    readings = sum(sum(1 for r in p.readings if r.instrument in ("sa", "noise"))
                    for p in iter_points(sequence, bench))
     plan_s = time.perf_counter() - start
     start = time.perf_counter()

@@ -9,7 +9,8 @@ What each file must produce is in ``tests/corpus/expected.toml``. Entry points p
   ``served_bench_text``) and ``sweeprig run FILE --sim``; ``sweeprig plan FILE`` where
   ``expected.toml`` lists it;
 * benches: ``sweeprig check`` and ``sweeprig run`` of the demo sequence with ``--bench FILE``
-  (and ``sweeprig plan`` where listed);
+  (and ``sweeprig plan`` where listed); ``check_noise``/``run_noise``: the same with a
+  one-point noise-figure sequence, for what only a noise-figure reading checks;
 * pathloss (CSV) and touchstone: the same, with a bench file whose ``path_loss.rf`` names the file;
 * profiles: ``load_profile(path)``;
 * parts: ``load_part(path)`` and ``sweeprig run --sim --sim-bench`` of a description naming it;
@@ -80,6 +81,7 @@ ENTRIES: dict[str, tuple[str, ...]] = {
 }
 QUICK = shipped_sequences_dir() / "demo" / "quick.toml"
 TINY = SUPPORT / "tiny-sequence.toml"
+NOISE = SUPPORT / "noise-sequence.toml"
 #: A message longer than this buries its point (the longest good ones are under 1,000).
 MAX_MESSAGE_CHARS = 3000
 SOURCE_AND_SUPPLY_ROLES = ("rf", "rf2", "lo", "dc")
@@ -232,8 +234,8 @@ def test_corpus_file_is_refused_with_a_located_message(
     if kind in ("sequences", "benches", "pathloss", "touchstone") and entry.startswith("run"):
         served_bench = request.getfixturevalue("served")
         before = _snapshot(served_bench)
-    if entry in ("run_sim", "run_sim_bench", "calibrate_sim") or (kind == "benches"
-                                                                  and entry == "run"):
+    if entry in ("run_sim", "run_sim_bench", "calibrate_sim") or (
+            kind == "benches" and entry in ("run", "run_noise")):
         watched = request.getfixturevalue("started")
 
     if "generate" in spec:
@@ -284,10 +286,11 @@ def _run_entry(kind: str, entry: str, path: Path, tmp_path: Path,
             return _cli("run", path, "--bench", request.getfixturevalue("served_bench_file"),
                         *store)
         return _cli("run", path, "--sim", *store)
-    if kind == "benches":
-        if entry in ("check", "plan"):
-            return _cli(entry, QUICK, "--bench", path)
-        return _cli("run", QUICK, "--bench", path, *store)
+    if kind == "benches":  # *_noise: with a noise-figure sequence (what only it checks)
+        sequence = NOISE if entry.endswith("_noise") else QUICK
+        if entry in ("check", "plan", "check_noise"):
+            return _cli(entry.removesuffix("_noise"), sequence, "--bench", path)
+        return _cli("run", sequence, "--bench", path, *store)
     if kind in ("pathloss", "touchstone"):
         bench = served_bench or request.getfixturevalue("served")
         bench_file = tmp_path / "bench.toml"

@@ -16,6 +16,8 @@ import numpy as np
 
 from sweeprig.clock import Clock
 from sweeprig.sim.analyzer_display import (
+    GAUSSIAN_ENBW_PER_RBW,
+    LOG_DETECTOR_BIAS_DB,
     AnalyzerParams,
     InputSpectrum,
     SweepResult,
@@ -109,6 +111,11 @@ class SpectrumAnalyzer(ScpiInstrument):
 
     # ------------------------------------------------------------------ public views
     @property
+    def noise_output_on(self) -> bool:
+        """Whether its noise-source drive output is on."""
+        return bool(self.value("noise_output"))
+
+    @property
     def last_sweep(self) -> SweepResult | None:
         """The most recent sweep, or None before the first."""
         return self._last
@@ -199,6 +206,9 @@ class SpectrumAnalyzer(ScpiInstrument):
         # averaging); RMS, the power detector for noise readings.
         add(Setting("detector", "[SENSe]:DETector[:FUNCtion]", "enum", default="SAMPle",
                     choices=("SAMPle", "RMS")))
+        # Its own noise-source drive output (a rear-panel drive switching a noise source hot
+        # for Y-factor readings; off at power-on and after *RST).
+        add(Setting("noise_output", "OUTPut:NOISe[:STATe]", "bool", default=False))
         add(Setting("format", "FORMat[:DATA]", "enum", default="ASCii",
                     choices=("ASCii", "REAL,32")))
         add(Setting("byte_order", "FORMat:BORDer", "enum", default="NORMal",
@@ -210,6 +220,7 @@ class SpectrumAnalyzer(ScpiInstrument):
         self.add_command("CALCulate:MARKer[1-4]:X", write=self._marker_x)
         self.add_command("CALCulate:MARKer[1-4]:MAXimum[:PEAK]", write=self._marker_max)
         self.add_command("CALCulate:MARKer[1-4]:Y", query=self._marker_y)
+        self.add_command("CALCulate:MARKer[1-4]:DENSity", query=self._marker_density)
         self.add_command("TRACe[:DATA]", query=self._trace_query)
 
     # ------------------------------------------------------------------ couplings
@@ -318,6 +329,26 @@ class SpectrumAnalyzer(ScpiInstrument):
             raise ScpiError(-221, f"marker {cmd.index} is off; set its X or switch it on")
         return format_number(round(self._current_sweep().level_at(
             self.value("marker_x_hz", cmd.index)), 6))
+
+    def _marker_density(self, cmd: Command) -> str:
+        """The marker's noise function: the mean noise power of the trace points within one
+        RBW of the marker, per hertz of the RBW filter's noise bandwidth (dBm/Hz). Mean power
+        with the RMS detector; with the sample (log) detector the mean of the dB values plus
+        the log-averaging bias 10·γ/ln 10 = 2.51 dB (a Gaussian noise's Rayleigh envelope)."""
+        cmd.no_params()
+        if not self.value("marker_on", cmd.index):
+            raise ScpiError(-221, f"marker {cmd.index} is off; set its X or switch it on")
+        sweep = self._current_sweep()
+        settings = self._last_settings or self.sweep_settings()
+        x = self.value("marker_x_hz", cmd.index)
+        near = np.abs(sweep.freqs_hz - x) <= settings.rbw_hz
+        levels = sweep.trace_dbm[near] if near.any() else np.array([sweep.level_at(x)])
+        if settings.detector == "rms":
+            mean_dbm = 10.0 * math.log10(float(np.mean(10.0 ** (levels / 10.0))))
+        else:
+            mean_dbm = float(np.mean(levels)) + LOG_DETECTOR_BIAS_DB
+        enbw_hz = GAUSSIAN_ENBW_PER_RBW * settings.rbw_hz
+        return format_number(round(mean_dbm - 10.0 * math.log10(enbw_hz), 6))
 
     def _trace_query(self, cmd: Command) -> str | bytes:
         name = cmd.one()
