@@ -19,12 +19,15 @@ Relations (each checked in tests/analysis/test_noise_figure.py against its sourc
   (field notes). G1 above is then the sum of both bands' gains.
 
 Uncertainty (the GUM's root sum of squares, :mod:`sweeprig.analysis.uncertainty`): the terms
-of the Y-factor method as the literature lists them, ENR of the source, mismatch, instrument
-(display) linearity, the second-stage noise (through the system calibration's own readings),
-and the jitter of the averaged noise readings, plus the cold temperature. The list is from
-memory of national-laboratory noise-temperature guides (not checked against a text). Their
-sensitivity coefficients are evaluated numerically from the measurement model by central
-differences (GUM 5.1.3 allows c_i to be evaluated numerically).
+are the input quantities of the measurement model above, as JCGM 100:2008 4.1.1-4.1.3 builds a
+budget (every quantity the result is computed from, plus the influence quantities acting on
+them): the ENR of the source (from its table), the hot and cold noise readings of the part and
+of the system calibration (their averaged jitter, Type A, and the display linearity between the
+hot and cold levels), the cold temperature, and the mismatch at the source-part connection that
+the ENR calibration did not see. That noise-temperature guides of national laboratories list
+the same terms is from memory (not checked against a text). The sensitivity coefficients are
+evaluated numerically from the measurement model by central differences (GUM 5.1.3 allows c_i
+to be evaluated numerically).
 """
 
 from __future__ import annotations
