@@ -8,6 +8,8 @@ process reduces the run and writes the report (``reduce_run`` + ``write_report``
 
 Targets (issue 14, printed, not asserted): 100k points ≤ 8 s and ≤ 500 MB; 1M points
 ≤ 60 s and ≤ 1.5 GB. The load average is printed beside each figure (a shared machine).
+The 1M-point case runs only with ``SWEEPRIG_PERF_HUGE=1``: today its reduction alone holds
+about seven million figures (several GB), too much to start unasked on a shared machine.
 """
 
 from __future__ import annotations
@@ -68,6 +70,8 @@ def make_report(path: str, run_id: str, folder: str) -> dict[str, float]:
 @pytest.mark.perf
 @pytest.mark.parametrize("points", sorted(TARGETS))
 def test_perf_report_of_a_large_run(points: int, tmp_path: Path) -> None:
+    if points > 100_000 and os.environ.get("SWEEPRIG_PERF_HUGE") != "1":
+        pytest.skip("1M points: set SWEEPRIG_PERF_HUGE=1 (needs several GB of memory today)")
     store = tmp_path / "runs.sqlite"
     made = _child("store", str(store), str(points))
     load = os.getloadavg()[0]
