@@ -655,8 +655,9 @@ def soak_curves(run: RunFigures) -> Plot | None:
 # -- helpers -----------------------------------------------------------------------------------
 
 #: A plot that draws a panel or a curve per input frequency (power sweeps, LO-drive sweeps)
-#: draws at most this many frequencies: the lowest, the highest and evenly between.
-FREQUENCIES_SHOWN = 5
+#: draws at most this many frequencies: the lowest, the middle and the highest (the band edges
+#: and centre a datasheet states).
+FREQUENCIES_SHOWN = 3
 
 
 def thin_frequencies(table: pd.DataFrame, column: str = "rf_freq_hz",
