@@ -196,6 +196,8 @@ def synthetic_run(
     temperatures_c: ArrayLike = (-40.0, 25.0, 85.0),
     supplies_v: ArrayLike = (3.0, 3.3, 3.6),
     lo_powers_dbm: ArrayLike = (-6.0, -3.0, 0.0, 3.0, 6.0),
+    rf_band_hz: tuple[float, float] = (1.8e9, 2.7e9),
+    first_point: int = 0,
 ) -> pd.DataFrame:
     """A whole fictional characterisation run of about ``target_rows`` readings.
 
@@ -205,7 +207,8 @@ def synthetic_run(
     ``isolation`` (leakage readings, supply current, and an image point). Conditions span
     the corners given (by default three temperatures, three supplies, five LO powers) and as
     many RF frequencies as the size needs. Levels come from a cubic per condition, with
-    0.05 dB of seeded noise.
+    0.05 dB of seeded noise. ``rf_band_hz``: the RF frequencies' span, Hz; ``first_point``:
+    the first point index (a large run can be built in slices over adjacent bands).
     """
     rng = np.random.default_rng(seed)
     temps = np.asarray(temperatures_c, dtype=float)
@@ -217,7 +220,7 @@ def synthetic_run(
     spur_mn = [(m, n) for m in range(5) for n in range(5) if (m, n) not in ((0, 0), (1, 1))]
     per_combo = (comp_in.size * 2 + 5) + tt_in.size * 10 + spur_in.size * (1 + len(spur_mn)) + 6
     n_freq = max(1, round(target_rows / (per_combo * temps.size * supplies.size * lo_powers.size)))
-    rf_freqs = np.linspace(1.8e9, 2.7e9, n_freq)
+    rf_freqs = np.linspace(rf_band_hz[0], rf_band_hz[1], n_freq)
     if_hz = 70e6
     t, v, p_lo, f_rf = (a.ravel() for a in np.meshgrid(temps, supplies, lo_powers, rf_freqs,
                                                       indexing="ij"))
@@ -229,7 +232,7 @@ def synthetic_run(
     columns: dict[str, list[np.ndarray]] = {k: [] for k in (
         "point", "study", *CONDITION_COLUMNS, "reading", "freq_hz", "level_dbm",
         "noise_floor_dbm", "m", "n", "overload", "atten_check", "attenuation_db", "value")}
-    next_point = 0
+    next_point = first_point
 
     def add(
         study: str,

@@ -49,6 +49,7 @@ budget. This module is pure: specifications come in as :class:`InstrumentSpecs`.
 
 from __future__ import annotations
 
+import functools
 import math
 from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field, replace
@@ -520,6 +521,14 @@ def mean_u_db(values: Sequence[float]) -> float:
 # budgets
 
 
+@functools.lru_cache(maxsize=256)
+def _cached_level_terms(model: _Model, specs: InstrumentSpecs, cal: CalibrationState
+                        ) -> tuple[Contribution, ...]:
+    """:func:`_level_terms`, built once per model, specifications and calibration (they are
+    the same for every figure of a name in a run; a large run has hundreds of thousands)."""
+    return tuple(_level_terms(model, specs, cal))
+
+
 def _level_terms(model: _Model, specs: InstrumentSpecs, cal: CalibrationState
                  ) -> list[Contribution]:
     out: list[Contribution] = []
@@ -590,7 +599,7 @@ def figure_budget(figure: Figure, levels: PointLevels, specs: InstrumentSpecs,
     model = MODELS.get(figure.name)
     if model is None or not figure.is_number or figure.unit not in _DB_UNITS:
         return None
-    terms = _level_terms(model, specs, cal)
+    terms = list(_cached_level_terms(model, specs, cal))
     pts = [int(p) for p in figure.points]
     noisy = [(r, c) for r, c in [(_noise_reading(model, figure), model.noise_c),
                                   *model.noise_also] if r is not None and c]

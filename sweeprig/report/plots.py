@@ -192,6 +192,7 @@ def compression_curves(run: RunFigures) -> Plot | None:
     table = compression_table(run.captures, study=studies)
     if table.empty:
         return None
+    table, thinned = thin_frequencies(table)
     p1 = _by_conditions(run.figures_named("input_p1db"))
     p1_out = _by_conditions(run.figures_named("output_p1db"))
     port_in = "IF" if run.conversion == "up" else "RF"  # an upconverter's input is its IF
@@ -259,7 +260,7 @@ def compression_curves(run: RunFigures) -> Plot | None:
                    "temperature (and frequency)" + ("" if single else ", one panel per supply "
                                                     "and LO drive")
                    + "; the diamond marks the 1 dB compression point, listed in the curve's "
-                   "colour. Studies: " + ", ".join(studies),
+                   "colour. Studies: " + ", ".join(studies) + thinned,
                    corners=corners, corner_keys=CORNER_KEYS, studies=studies)
 
 
@@ -308,11 +309,19 @@ def _two_tone_points(run: RunFigures) -> tuple[list[str], pd.DataFrame]:
     return studies, table[table["if_present"].to_numpy()]
 
 
+def _thinned_two_tone_points(run: RunFigures) -> tuple[list[str], pd.DataFrame, str]:
+    studies, table = _two_tone_points(run)
+    if table.empty:
+        return studies, table, ""
+    table, thinned = thin_frequencies(table)
+    return studies, table, thinned
+
+
 def two_tone_plot(run: RunFigures) -> Plot | None:
     """Fundamental and IM3 versus input power per tone, with the slope-1 and slope-3 lines
     of the fits meeting at the intercept; one panel per supply, LO drive and frequency, one
     colour per temperature."""
-    studies, table = _two_tone_points(run)
+    studies, table, thinned = _thinned_two_tone_points(run)
     if table.empty:
         return None
     panels = _groups(table, _varying(table, _TWO_TONE_KEYS))
@@ -379,14 +388,14 @@ def two_tone_plot(run: RunFigures) -> Plot | None:
                       else "")
                    + "; dashed: the slope-1 and slope-3 lines of the lower product's fit, "
                    "meeting at the intercept (star); faded: readings in the noise, overloaded "
-                   "or analyzer-made. IIP3 of each curve listed in its colour.",
+                   "or analyzer-made. IIP3 of each curve listed in its colour." + thinned,
                    corners=corners, corner_keys=CORNER_KEYS, studies=studies)
 
 
 def intermod_dbc_plot(run: RunFigures) -> Plot | None:
     """IM3 and IM2 relative to the fundamental (dBc) versus input power per tone; one panel
     per supply, LO drive and frequency, one colour per temperature."""
-    studies, table = _two_tone_points(run)
+    studies, table, thinned = _thinned_two_tone_points(run)
     if table.empty:
         return None
     panels = _groups(table, _varying(table, _TWO_TONE_KEYS))
@@ -416,7 +425,7 @@ def intermod_dbc_plot(run: RunFigures) -> Plot | None:
     return _finish(fig, "intermod_dbc", "Intermodulation in dBc",
                    "The stronger of the two IM3 (solid) and IM2 (dashed) products, relative to "
                    "the fundamental at the same drive, one colour per temperature; upper "
-                   "bounds where a product is in the noise.",
+                   "bounds where a product is in the noise." + thinned,
                    corners=corners, corner_keys=CORNER_KEYS, studies=studies)
 
 
@@ -432,6 +441,7 @@ def gain_vs_lo_drive(run: RunFigures) -> Plot | None:
     table = gain_table(run.captures, study=studies)
     if table.empty:
         return None
+    table, thinned = thin_frequencies(table)
     fixed = tuple(k for k in _KEY_COLUMNS if k != "lo_power_dbm")
     needed = _by_conditions(run.figures_named("lo_power_for_gain"), fixed)
     panels = _groups(table, _varying(table, ("study", "supply_v", "rf_freq_hz",
@@ -459,7 +469,7 @@ def gain_vs_lo_drive(run: RunFigures) -> Plot | None:
     return _finish(fig, "lo_drive", "Gain versus LO drive",
                    "Conversion gain versus LO power, one line per temperature; dashed: the "
                    "lowest LO power from which the gain stays within 0.5 dB of its maximum, "
-                   "listed in the line's colour. Studies: " + ", ".join(studies),
+                   "listed in the line's colour. Studies: " + ", ".join(studies) + thinned,
                    corners=corners, corner_keys=_LO_CORNERS, studies=studies)
 
 
@@ -677,6 +687,46 @@ def soak_curves(run: RunFigures) -> Plot | None:
 
 
 # -- helpers -----------------------------------------------------------------------------------
+
+#: A plot that draws a panel or a curve per input frequency (power sweeps, LO-drive sweeps)
+#: draws at most this many frequencies: the lowest, the middle and the highest (the band edges
+#: and centre a datasheet states).
+FREQUENCIES_SHOWN = 3
+
+
+def thin_frequencies(table: pd.DataFrame, column: str = "rf_freq_hz",
+                     keep: int = FREQUENCIES_SHOWN) -> tuple[pd.DataFrame, str]:
+    """The rows of at most ``keep`` of the table's input frequencies (the lowest, the highest
+    and evenly spaced between), and a caption sentence saying so ("" when all are kept).
+
+    A run that sweeps a hundred frequencies would otherwise draw a hundred panels or curves
+    per plot, which nobody can read and which costs seconds each; the figures of every
+    frequency are in figures.json, the tables and the plots versus frequency. No corner
+    (:data:`CORNER_KEYS`) is dropped: a corner measured only at frequencies left out keeps
+    its middle one."""
+    if column not in table or table.empty:
+        return table, ""
+    freqs = np.unique(table[column].dropna().to_numpy(dtype=float))
+    if freqs.size <= keep:
+        return table, ""
+    picks = np.unique(np.round(np.linspace(0, freqs.size - 1, keep)).astype(int))
+    shown = table[column].isin(freqs[picks]).to_numpy()
+    present = [k for k in CORNER_KEYS if k in table]
+    if present:
+        extra: list[float] = []
+        every = table[column].to_numpy(dtype=float)
+        for at in table.groupby(present, dropna=False, sort=False).indices.values():
+            if not shown[at].any():
+                values = np.sort(every[at][np.isfinite(every[at])])
+                if values.size:
+                    extra.append(float(values[values.size // 2]))
+        if extra:
+            shown = shown | table[column].isin(extra).to_numpy()
+    kept = int(np.unique(table.loc[shown, column].dropna()).size)
+    return (table[shown], f" Drawn at {kept} of the {freqs.size} input frequencies (the "
+            "lowest, the highest and evenly between); every frequency's figures are in "
+            "figures.json and the tables.")
+
 
 
 def _power_sweeps(rows: pd.DataFrame) -> Iterator[tuple[pd.DataFrame, str, str, np.ndarray]]:

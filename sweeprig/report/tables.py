@@ -454,7 +454,14 @@ def figure_verdicts(run: RunFigures) -> dict[int, str]:
     return out
 
 
-def figures_document(run: RunFigures) -> dict[str, Any]:
+class _Stream:
+    """A list of the figures document written entry by entry (never held whole)."""
+
+    def __init__(self, entries: Iterable[object]) -> None:
+        self.entries = entries
+
+
+def _document(run: RunFigures) -> dict[str, Any]:
     """Everything the report states, as JSON-able data (``figures.json``).
 
     ``figures[i].points`` are run-store point indices: each figure can be traced back to the
@@ -462,6 +469,10 @@ def figures_document(run: RunFigures) -> dict[str, Any]:
     every flag name in ``figures[i].flags`` means; ``suspect_flags`` lists those that make a
     limit check on the figure inconclusive. ``judgements`` refer to figures and limits
     by their index in the two lists.
+
+    The long lists (``judgements``, ``figures``, ``events``) are :class:`_Stream` objects
+    here: :func:`figures_document` makes them lists, :func:`write_figures_json` writes them
+    entry by entry.
     """
     index = {id(f): i for i, f in enumerate(run.figures)}
     limit_index = {id(li): i for i, li in enumerate(run.limits)}
@@ -511,15 +522,15 @@ def figures_document(run: RunFigures) -> dict[str, Any]:
                             for k, v in li.conditions.items()}}
             for li in run.limits
         ],
-        "judgements": [
+        "judgements": _Stream(
             {"figure": index[id(j.figure)], "limit": limit_index[id(j.limit)],
              "verdict": j.verdict, "reason": j.reason}
             for j in run.assessment.judgements
-        ],
+        ),
         "untested_limits": [limit_index[id(li)] for li in run.assessment.untested],
         "flag_meanings": {name: FLAG_MEANINGS[name] for name in FLAGS},
         "suspect_flags": [name for name in FLAGS if name in SUSPECT_FLAGS],
-        "figures": [
+        "figures": _Stream(
             {"name": f.name, "value": _number(f.value), "unit": f.unit, "bound": f.bound,
              "text": figure_text(f, 3),
              "conditions": {k: _plain(v) for k, v in f.conditions.items()},
@@ -527,20 +538,55 @@ def figures_document(run: RunFigures) -> dict[str, Any]:
              "uncertainty_db": _number(f.uncertainty_db),
              "budget": f.budget.as_dict() if f.budget is not None else None}
             for f in run.figures
-        ],
-        "events": [
+        ),
+        "events": _Stream(
             {"time_utc": e.time.isoformat(), "severity": e.severity, "kind": e.kind,
              "message": e.message, "point": e.point_index, "details": dict(e.details)}
             for e in run.events
-        ],
+        ),
     }
 
 
+def figures_document(run: RunFigures) -> dict[str, Any]:
+    """Everything the report states, as JSON-able data (``figures.json``; see
+    :func:`_document` for what is in it)."""
+    return {key: list(value.entries) if isinstance(value, _Stream) else value
+            for key, value in _document(run).items()}
+
+
+#: Entries encoded per write when streaming a long list of the figures document.
+_JSON_CHUNK = 2000
+
+
 def write_figures_json(run: RunFigures, path: Path) -> Path:
-    """Write :func:`figures_document` to ``path`` (UTF-8, indented)."""
-    text = json.dumps(figures_document(run), indent=1, ensure_ascii=False, allow_nan=False,
-                      default=_plain)
-    write_text_file(path, text + "\n")
+    """Write :func:`figures_document` to ``path`` (UTF-8, compact: one top-level key per
+    line). The long lists are encoded and written in chunks, so the whole text never sits
+    in memory, and with the C encoder (an indented dump falls back to a slow pure-Python
+    one)."""
+    encode = json.JSONEncoder(ensure_ascii=False, allow_nan=False, default=_plain,
+                              separators=(",", ":")).encode
+    try:
+        with path.open("w", encoding="utf-8") as out:
+            out.write("{")
+            for k, (key, value) in enumerate(_document(run).items()):
+                out.write(("," if k else "") + "\n" + encode(key) + ":")
+                if not isinstance(value, _Stream):
+                    out.write(encode(value))
+                    continue
+                out.write("[")
+                chunk: list[str] = []
+                first = True
+                for entry in value.entries:
+                    chunk.append(encode(entry))
+                    if len(chunk) == _JSON_CHUNK:
+                        out.write(("" if first else ",") + ",".join(chunk))
+                        first, chunk = False, []
+                if chunk:
+                    out.write(("" if first else ",") + ",".join(chunk))
+                out.write("]")
+            out.write("\n}\n")
+    except OSError as exc:
+        raise _write_error(path, exc) from None
     return path
 
 

@@ -36,3 +36,27 @@ def test_cold_is_bluer_and_hot_is_redder():
     cold, hot = rgb(temperature_colour(-40.0)), rgb(temperature_colour(85.0))
     assert cold[2] > cold[0] and hot[0] > hot[2]
     assert temperature_colour(None) == temperature_colour(float("nan"))
+
+
+def test_a_run_of_many_frequencies_draws_a_few_and_every_corner():
+    """Power-sweep plots draw at most FREQUENCIES_SHOWN input frequencies (lowest, highest,
+    evenly between) and say so; a corner measured only at a frequency left out keeps one."""
+    import pandas as pd
+
+    from sweeprig.report.plots import FREQUENCIES_SHOWN, thin_frequencies
+
+    freqs = [1.0e9 + 0.1e9 * k for k in range(12)]
+    rows = [{"rf_freq_hz": f, "temperature_c": t, "supply_v": 3.3, "lo_power_dbm": 0.0}
+            for f in freqs for t in (-40.0, 25.0)]
+    rows.append({"rf_freq_hz": freqs[1], "temperature_c": 85.0, "supply_v": 3.3,
+                 "lo_power_dbm": 0.0})  # the hot corner: one dropped frequency only
+    table = pd.DataFrame(rows)
+    shown, caption = thin_frequencies(table)
+    kept = sorted(shown["rf_freq_hz"].unique())
+    assert kept[0] == freqs[0] and kept[-1] == freqs[-1]
+    assert len(kept) == FREQUENCIES_SHOWN + 1  # + the hot corner's own frequency
+    assert set(shown["temperature_c"]) == {-40.0, 25.0, 85.0}
+    assert f"of the {len(freqs)} input frequencies" in caption
+    few = table[table["rf_freq_hz"].isin(freqs[:FREQUENCIES_SHOWN])]
+    same, text = thin_frequencies(few)
+    assert same is few and text == ""

@@ -133,3 +133,21 @@ def test_numbers_carry_their_expanded_uncertainty_and_budget(report_run, report_
     for entry in document["figures"]:
         if entry["bound"] is not None:
             assert entry["uncertainty_db"] is None and entry["budget"] is None
+
+
+@pytest.mark.parametrize("chunk", [1, 2, 2000])
+def test_streamed_figures_json_holds_the_whole_document(report_run, tmp_path, monkeypatch,
+                                                        chunk):
+    """figures.json is written entry by entry in chunks (compact, C encoder); what it holds
+    is exactly :func:`figures_document`, whatever the chunk size."""
+    from sweeprig.report import tables
+
+    monkeypatch.setattr(tables, "_JSON_CHUNK", chunk)
+    path = tables.write_figures_json(report_run, tmp_path / "f.json")
+    written = json.loads(path.read_text(encoding="utf-8"))
+    expected = json.loads(json.dumps(tables.figures_document(report_run), default=str))
+    written.pop("generated_utc")
+    expected.pop("generated_utc")
+    assert written == expected
+    assert list(written) == list(expected)
+    assert len(written["figures"]) == len(report_run.figures)

@@ -1,0 +1,92 @@
+"""Benchmark: the report of a large run (reduce + every report file), time and peak memory.
+
+Run with ``pytest -m perf tests/perf/test_perf_report.py -s``. Each size gets a synthetic
+store (``synthetic_store.py``: a fictional part, three temperatures × three LO drives, as many
+RF frequencies as the size needs; written in one child process, not timed), then a fresh child
+process reduces the run and writes the report (``reduce_run`` + ``write_report``, what
+``sweeprig report`` does), so its peak resident memory (``ru_maxrss``) is its own.
+
+Targets (issue 14, printed, not asserted): 100k points ≤ 8 s and ≤ 500 MB; 1M points
+≤ 60 s and ≤ 1.5 GB. The load average is printed beside each figure (a shared machine).
+The 1M-point case runs only with ``SWEEPRIG_PERF_HUGE=1``: today its reduction alone holds
+about seven million figures (several GB), too much to start unasked on a shared machine.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import pytest
+
+HERE = Path(__file__).resolve().parent
+TARGETS = {100_000: (8.0, 500.0), 1_000_000: (60.0, 1536.0)}
+
+
+def _child(*args: str) -> dict[str, float]:
+    child = subprocess.run([sys.executable, str(Path(__file__).resolve()), *args],
+                           capture_output=True, text=True, check=False, timeout=3600)
+    assert child.returncode == 0, child.stderr
+    return json.loads(child.stdout.strip().splitlines()[-1])
+
+
+def make_store(path: str, points: str) -> dict[str, float]:
+    sys.path.insert(0, str(HERE))
+    from synthetic_store import write_synthetic_store
+
+    start = time.perf_counter()
+    out = write_synthetic_store(Path(path), int(points))
+    out["seconds"] = time.perf_counter() - start
+    return out
+
+
+def make_report(path: str, run_id: str, folder: str) -> dict[str, float]:
+    import resource
+
+    start = time.perf_counter()
+    from sweeprig.analysis.reduce import reduce_run
+    from sweeprig.report import write_report
+    from sweeprig.store.sqlite import SqliteRunStore
+
+    with SqliteRunStore(Path(path), create=False) as store:
+        run = reduce_run(store, int(run_id))
+    reduced = time.perf_counter()
+    files = write_report(run, Path(folder))
+    done = time.perf_counter()
+    return {
+        "reduce_s": reduced - start,
+        "write_s": done - reduced,
+        "seconds": done - start,
+        "peak_mb": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0,  # Linux: KiB
+        "figures": float(len(run.figures)),
+        "files_mb": sum(p.stat().st_size for p in files.all) / 1e6,
+    }
+
+
+@pytest.mark.perf
+@pytest.mark.timeout(3600)  # today a loaded 2-core machine needs more than the default 600 s
+@pytest.mark.parametrize("points", sorted(TARGETS))
+def test_perf_report_of_a_large_run(points: int, tmp_path: Path) -> None:
+    if points > 100_000 and os.environ.get("SWEEPRIG_PERF_HUGE") != "1":
+        pytest.skip("1M points: set SWEEPRIG_PERF_HUGE=1 (needs several GB of memory today)")
+    store = tmp_path / "runs.sqlite"
+    made = _child("store", str(store), str(points))
+    load = os.getloadavg()[0]
+    result = _child("report", str(store), str(int(made["run_id"])), str(tmp_path / "out"))
+    load = max(load, os.getloadavg()[0])
+    time_target, memory_target = TARGETS[points]
+    print(f"\nreport of {made['points']:.0f} points ({made['readings']:.0f} readings, "
+          f"{result['figures']:.0f} figures; store written in {made['seconds']:.0f} s): "
+          f"{result['seconds']:.1f} s (reduce {result['reduce_s']:.1f} s, files "
+          f"{result['write_s']:.1f} s), peak {result['peak_mb']:.0f} MB, files "
+          f"{result['files_mb']:.0f} MB (targets {time_target:.0f} s, {memory_target:.0f} MB; "
+          f"load average {load:.1f} on {os.cpu_count()} cores)")
+
+
+if __name__ == "__main__":
+    what, *rest = sys.argv[1:]
+    print(json.dumps(make_store(*rest) if what == "store" else make_report(*rest)))
