@@ -41,6 +41,8 @@ from collections.abc import Callable, Iterable, Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
+import numpy as np
+
 from sweeprig.clock import Clock
 from sweeprig.engine.connect import BenchDrivers
 from sweeprig.engine.eta import EtaTracker
@@ -49,9 +51,11 @@ from sweeprig.errors import InputError, InstrumentError, TransportError
 from sweeprig.formats.bench import Bench
 from sweeprig.formats.sequence import AdaptiveSoak, Sequence
 from sweeprig.instruments import AnalyzerDriver, ChamberDriver, Driver, SourceDriver
+from sweeprig.plan import search_window as sw
 from sweeprig.plan.duration import soak_range_s
 from sweeprig.plan.expand import Point
 from sweeprig.plan.readings import Reading
+from sweeprig.plan.search_window import Found
 from sweeprig.store.base import PointRecord, ReadingRecord, RunStore, utc_now
 from sweeprig.transport.base import ReplyTimeout
 
@@ -664,8 +668,18 @@ class Runner:
             self._check(sa)
         sweep_s, sweep_from = sa.expected_sweep_s(a.averages, a.measure_time_s)
         sa.sweep(sweep_s)  # wait and timeout from the analyzer's own sweep time
-        level = sa.marker_level_dbm(reading.freq_hz)
-        floor = self._noise_floor(sa, reading, a.span_hz, a.rbw_hz, a.averages)
+        found: Found | None = None
+        if reading.search_hz is not None:
+            # the trace the floor needs anyway carries the search: no extra transaction
+            floor, found = self._search(sa, reading, a.rbw_hz, a.averages)
+            # a peak the references cannot explain is likely not the product: the level is
+            # then read where the product should be, and the flag says so
+            trusted = found.freq_hz is not None and not found.flags
+            marker_hz = found.freq_hz if trusted else reading.freq_hz
+            level = sa.marker_level_dbm(marker_hz)
+        else:
+            level = sa.marker_level_dbm(reading.freq_hz)
+            floor = self._noise_floor(sa, reading, a.span_hz, a.rbw_hz, a.averages)
         overload = sa.overloaded()
         if reading.rf_retune_hz is not None and rf is not None:
             self._tune(rf, "rf", point.rf_freq_hz, point.rf_power_dbm)
@@ -691,8 +705,30 @@ class Runner:
             overload=overload,
             attenuation_check=True if reading.attenuation_check else None,
             extra={**_reading_extra(reading, level, loss, floor),
-                   "sweep_s": sweep_s, "sweep_time_from": sweep_from},
+                   "sweep_s": sweep_s, "sweep_time_from": sweep_from,
+                   **({} if found is None else search_extra(reading, found))},
         )
+
+    @staticmethod
+    def _search(sa: AnalyzerDriver, reading: Reading, rbw_hz: float,
+                averages: int) -> tuple[NoiseFloor, Found]:
+        """The product searched for in the reading's window on the last sweep's trace, and
+        the noise floor beside it (the found peak masked too: an offset product must not
+        raise the floor). See :mod:`sweeprig.plan.search_window`."""
+        assert reading.freq_hz is not None and reading.search_hz is not None
+        centre = reading.freq_hz
+        trace = sa.read_trace()
+        if trace.points < 3 or trace.span_hz <= 0:
+            return NoiseFloor(None, 0, "no trace around the product (zero span)"), \
+                Found(None, None, None)
+        freqs = trace.freq_hz
+        inside = np.abs(freqs - centre) <= reading.search_hz
+        lines: tuple[float, ...] = (centre, *reading.known_hz)
+        if inside.any():
+            lines = (*lines, float(freqs[inside][np.argmax(trace.levels_dbm[inside])]))
+        floor = estimate_noise_floor(trace.levels_dbm, freqs, rbw_hz, lines, averages=averages)
+        return floor, sw.search(freqs, trace.levels_dbm, centre, reading.search_hz,
+                                reading.offset_bound_hz or 0.0, rbw_hz, floor.dbm)
 
     @staticmethod
     def _noise_floor(sa: AnalyzerDriver, reading: Reading, span_hz: float, rbw_hz: float,
@@ -742,6 +778,18 @@ class Runner:
         """Drain the error queue of each instrument configured in the last block."""
         for driver in drivers:
             driver.check_errors()
+
+
+def search_extra(reading: Reading, found: Found) -> dict[str, object]:
+    """What a windowed search adds to a reading's ``extra``: the window, the bound the
+    references explain, the offset found (None: nothing stood out of the noise) and its
+    flags (``search_flags``, read into the flag masks by the analysis)."""
+    out: dict[str, object] = {"search": {
+        "window_hz": reading.search_hz, "bound_hz": reading.offset_bound_hz,
+        "offset_hz": found.offset_hz, "found": found.freq_hz is not None}}
+    if found.flags:
+        out["search_flags"] = list(found.flags)
+    return out
 
 
 def _connection_of(port: str) -> str:

@@ -3,8 +3,8 @@
 A product ``|Σ kᵢ·fᵢ|`` lands off its computed frequency by what the references of its sources
 and of the analyzer explain (:func:`sweeprig.plan.frequency_error.worst_offset_hz`, the worst
 case over every reference within its tolerance). The reading searches ± that bound plus one
-RBW (:data:`SEARCH_SLACK_RBW`: the filter's own width and the trace's point spacing, common
-practice, no source) for the highest point of the trace, and judges what it found:
+RBW times :data:`SEARCH_SLACK_RBW` (the filter's centring and the trace's point spacing,
+common practice, no source) for the highest point of the trace, and judges what it found:
 
 * found farther off than the references explain plus the frequency resolution of the trace
   (``explained_hz``): ``frequency_offset`` — the line found is probably not the product, or a
@@ -12,9 +12,10 @@ practice, no source) for the highest point of the trace, and judges what it foun
 * found on the window's edge: ``window_edge`` — the highest point of the window is its
   border, so the product most likely lies outside it (or is not there at all).
 
-A peak that does not stand :data:`FOUND_ABOVE_FLOOR_DB` above the trace's noise floor is not
-a product: the reading keeps the level at the computed frequency (as without a search) and
-raises neither flag. Pure functions; Hz.
+A flagged peak is likely not the product: the reading then keeps the level at the computed
+frequency (as without a search) with the flag. A peak that does not stand
+:data:`FOUND_ABOVE_FLOOR_DB` above the trace's noise floor is not a product: the reading
+keeps the level at the computed frequency and raises neither flag. Pure functions; Hz.
 """
 
 from __future__ import annotations
@@ -27,8 +28,10 @@ import numpy as np
 from sweeprig.formats.timebase import ResolvedTimebase
 from sweeprig.plan.frequency_error import Term, worst_offset_hz
 
-#: The search window reaches this many RBWs beyond what the references explain.
-SEARCH_SLACK_RBW = 1.0
+#: The search window reaches this many RBWs beyond what the references explain: a line's
+#: peak through the RBW filter sits on the line, so half an RBW covers the filter's centring
+#: and the trace's point spacing without reaching a neighbour a whole RBW away.
+SEARCH_SLACK_RBW = 0.5
 #: Span of a searched reading: the window plus this many RBWs for the noise floor around it.
 FLOOR_ROOM_RBW = 10.0
 #: A peak counts as the product when it stands this far above the median noise floor, dB:

@@ -32,7 +32,7 @@ def test_shared_reference_cancels() -> None:
 
 
 def test_window_never_reaches_half_way_to_a_neighbour() -> None:
-    assert sw.search_half_width_hz(9e3, 1e3) == pytest.approx(10e3)
+    assert sw.search_half_width_hz(9e3, 1e3) == pytest.approx(9.5e3)
     assert sw.search_half_width_hz(9e3, 1e3, nearest_hz=8e3) == pytest.approx(4e3)
 
 
