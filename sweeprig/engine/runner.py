@@ -38,7 +38,7 @@ from __future__ import annotations
 import math
 import time
 from collections.abc import Callable, Iterable, Mapping
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 import numpy as np
@@ -54,6 +54,8 @@ from sweeprig.instruments import AnalyzerDriver, ChamberDriver, Driver, SourceDr
 from sweeprig.plan import search_window as sw
 from sweeprig.plan.duration import soak_range_s
 from sweeprig.plan.expand import Point
+from sweeprig.plan.frequency_error import reference_coefficients
+from sweeprig.plan.offset_agreement import disagreeing
 from sweeprig.plan.readings import Reading
 from sweeprig.plan.search_window import Found
 from sweeprig.store.base import PointRecord, ReadingRecord, RunStore, utc_now
@@ -379,6 +381,7 @@ class Runner:
         if changed:
             self.clock.sleep(self.settle_s)
         records = [self._read(point, reading) for reading in point.readings]
+        records = self._agree_offsets(point, records)
         if self.policy.reset_check:
             self._check_resets()
         probe_c = self.d.chamber.probe_temperature_c() if self.d.chamber is not None else None
@@ -709,6 +712,37 @@ class Runner:
                    **({} if found is None else search_extra(reading, found))},
         )
 
+    def _agree_offsets(self, point: Point, records: list[ReadingRecord]
+                       ) -> list[ReadingRecord]:
+        """Mark ``frequency_offset`` on the searched readings whose offsets disagree with the
+        others' (one set of reference errors explains them all, or the product found is
+        another line: :mod:`sweeprig.plan.offset_agreement`). No instrument is asked."""
+        refs = self.bench.references()
+        if refs is None:
+            return records
+        chosen: list[int] = []
+        coefficients, offsets, resolution = [], [], []
+        analyzer = refs.reference.get("sa", "sa:crystal")
+        for i, (reading, record) in enumerate(zip(point.readings, records, strict=True)):
+            search = record.extra.get("search")
+            if not search or not search.get("found") or record.extra.get("search_flags") \
+                    or reading.orders is None:
+                continue
+            rf_hz = point.rf_freq_hz if reading.rf_retune_hz is None else reading.rf_retune_hz
+            terms = sw.product_terms(reading.orders, point.lo_freq_hz, rf_hz,
+                                     point.rf2_freq_hz, refs)
+            chosen.append(i)
+            coefficients.append(reference_coefficients(terms, analyzer))
+            offsets.append(float(search["offset_hz"]))
+            resolution.append(float(search["resolution_hz"]))
+        off = disagreeing(coefficients, offsets, resolution, refs.tolerance_ppm)
+        out = list(records)
+        for i, bad in zip(chosen, off, strict=True):
+            if bad:
+                out[i] = replace(out[i], extra={**out[i].extra,
+                                                "search_flags": [sw.FREQUENCY_OFFSET]})
+        return out
+
     @staticmethod
     def _search(sa: AnalyzerDriver, reading: Reading, rbw_hz: float,
                 averages: int) -> tuple[NoiseFloor, Found]:
@@ -786,7 +820,8 @@ def search_extra(reading: Reading, found: Found) -> dict[str, object]:
     flags (``search_flags``, read into the flag masks by the analysis)."""
     out: dict[str, object] = {"search": {
         "window_hz": reading.search_hz, "bound_hz": reading.offset_bound_hz,
-        "offset_hz": found.offset_hz, "found": found.freq_hz is not None}}
+        "offset_hz": found.offset_hz, "found": found.freq_hz is not None,
+        "resolution_hz": found.resolution_hz}}
     if found.flags:
         out["search_flags"] = list(found.flags)
     return out

@@ -48,14 +48,21 @@ FREQUENCY_OFFSET = "frequency_offset"
 WINDOW_EDGE = "window_edge"
 
 
+def product_terms(orders: tuple[int, ...], lo_hz: float, rf_hz: float, rf2_hz: float | None,
+                  references: ResolvedTimebase) -> tuple[Term, ...]:
+    """The product of ``orders`` (multipliers of LO, RF1[, RF2]) as terms on each source's
+    reference."""
+    freqs = (("lo", lo_hz), ("rf", rf_hz), ("rf2", rf2_hz))
+    return tuple(Term(references.reference.get(role, f"{role}:crystal"), k, f)
+                 for (role, f), k in zip(freqs, orders, strict=False)
+                 if k != 0 and f is not None)
+
+
 def offset_bound_hz(orders: tuple[int, ...], lo_hz: float, rf_hz: float,
                     rf2_hz: float | None, references: ResolvedTimebase) -> float:
     """The largest offset, Hz, the references explain for the product of ``orders``
     (multipliers of LO, RF1[, RF2]) at these source frequencies, read on the analyzer."""
-    freqs = (("lo", lo_hz), ("rf", rf_hz), ("rf2", rf2_hz))
-    terms = tuple(Term(references.reference.get(role, f"{role}:crystal"), k, f)
-                  for (role, f), k in zip(freqs, orders, strict=False)
-                  if k != 0 and f is not None)
+    terms = product_terms(orders, lo_hz, rf_hz, rf2_hz, references)
     tolerance = dict(references.tolerance_ppm)
     for role in ("lo", "rf", "rf2", "sa"):  # a role not on the bench: a default crystal
         tolerance.setdefault(f"{role}:crystal", references.tolerance_ppm.get(
@@ -88,6 +95,9 @@ class Found:
     offset_hz: float | None
     level_dbm: float | None
     flags: tuple[str, ...] = ()
+    resolution_hz: float | None = None
+    """How closely the offset is known: the trace's point spacing plus
+    :data:`CENTRE_SLACK_RBW` of the RBW, Hz."""
 
 
 def search(freq_hz: np.ndarray, level_dbm: np.ndarray, centre_hz: float, half_width_hz: float,
@@ -108,9 +118,10 @@ def search(freq_hz: np.ndarray, level_dbm: np.ndarray, centre_hz: float, half_wi
     step = float(np.median(np.diff(f))) if f.size > 1 else 0.0
     offset = peak_hz - centre_hz
     flags = []
-    if abs(offset) > bound_hz + CENTRE_SLACK_RBW * rbw_hz + step:
+    resolution = CENTRE_SLACK_RBW * rbw_hz + step
+    if abs(offset) > bound_hz + resolution:
         flags.append(FREQUENCY_OFFSET)
     # the window's border points (or the trace's, when the window reaches past the trace)
     if best in (int(inside[0]), int(inside[-1])):
         flags.append(WINDOW_EDGE)
-    return Found(peak_hz, offset, peak_dbm, tuple(flags))
+    return Found(peak_hz, offset, peak_dbm, tuple(flags), resolution)
