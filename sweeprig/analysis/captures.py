@@ -408,6 +408,8 @@ def _predicted_flags(
         # measured by the windowed peak search (extra_json search_flags, read with the risks)
         flags |= mask_where(risk(FREQUENCY_OFFSET), FREQUENCY_OFFSET)
         flags |= mask_where(risk(WINDOW_EDGE), WINDOW_EDGE)
+        # nothing in the search window stood out of the noise: the level is a bound
+        flags |= mask_where(risk("not_found"), IN_NOISE)
     return flags | mask_where(merged, RBW_MERGED)
 
 

@@ -223,7 +223,7 @@ def _risks_column(extras: np.ndarray) -> np.ndarray:
     cache: dict[str, str | None] = {}
     for i, text in enumerate(extras.tolist()):
         if not isinstance(text, str) or ('"risks"' not in text and
-                                         '"search_flags"' not in text):
+                                         '"search' not in text):
             continue
         if text not in cache:
             cache[text] = _risks_from_extra(text)
@@ -235,8 +235,13 @@ def _risks_from_extra(text: str) -> str | None:
     try:
         extra = json.loads(text)
         risks = extra.get("risks")
-        # the peak search's measured flags ride with the predicted risks into the masks
+        # the peak search's measured flags ride with the predicted risks into the masks; a
+        # product it did not find is a bound (``not_found``: in the noise)
         searched = extra.get("search_flags")
+        search = extra.get("search")
+        if isinstance(search, dict) and search.get("found") is False:
+            searched = [*(searched if isinstance(searched, list | tuple) else []),
+                        "not_found"]
     except (ValueError, AttributeError):
         return None
     if not isinstance(risks, list | tuple):

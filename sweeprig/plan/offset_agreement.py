@@ -77,3 +77,35 @@ def disagreeing(coefficients: Sequence[Mapping[str, float]], offsets_hz: Sequenc
     if len(culprits) == 1:
         return [i == culprits[0] for i in range(n)]
     return off
+
+
+def predicted_offset_hz(coefficients: Sequence[Mapping[str, float]],
+                        offsets_hz: Sequence[float], resolution_hz: Sequence[float],
+                        tolerance_ppm: Mapping[str, float], target: Mapping[str, float]
+                        ) -> tuple[float, float]:
+    """Where a product of coefficients ``target`` should lie, given the offsets found so far:
+    (mean, standard deviation), Hz.
+
+    Bayesian linear regression (any statistics text; the normal equations solved with
+    numpy): each reference error has a Gaussian prior of standard deviation its stated
+    tolerance (a ± bound taken as one sigma: wider than a uniform's tol/√3, the safe side),
+    each found offset a Gaussian error of its resolution; the posterior covariance is
+    ``Σ = (AᵀWA + P)⁻¹``, the mean ``Σ·AᵀW·o``, and the product's offset ``c·μ ± √(cᵀΣc)``.
+    With nothing found yet it is ``0 ± √(Σ (c_r·tol_r)²)``.
+    """
+    refs = sorted({r for c in [*coefficients, target] for r in c
+                   if tolerance_ppm.get(r, 0.0) > 0.0})
+    if not refs:
+        return 0.0, 0.0
+    c = np.array([target.get(r, 0.0) * 1e-6 for r in refs])
+    prior = np.diag([1.0 / tolerance_ppm[r] ** 2 for r in refs])
+    if coefficients:
+        a = np.array([[k.get(r, 0.0) * 1e-6 for r in refs] for k in coefficients])
+        w = 1.0 / np.asarray(resolution_hz, dtype=float) ** 2
+        info = a.T @ (a * w[:, None]) + prior
+        cov = np.linalg.inv(info)
+        mean = cov @ (a.T @ (w * np.asarray(offsets_hz, dtype=float)))
+    else:
+        cov = np.linalg.inv(prior)
+        mean = np.zeros(len(refs))
+    return float(c @ mean), float(np.sqrt(max(c @ cov @ c, 0.0)))

@@ -493,8 +493,7 @@ class ReadingPlanner:
         ``base_att``: for the attenuation-check repeat, the attenuation of the reading it
         repeats (the repeat adds ``extra_att_db`` to it). ``orders``: the product's (LO, RF…)
         orders, for the source-harmonic contributions that scale the part's own line.
-        ``bound_hz``: the product's offset the references explain (None: no ``[timebase]``);
-        an auto span then holds the search window and room for the floor beside it.
+        ``bound_hz``: the product's offset the references explain (None: no ``[timebase]``).
         """
         pic = self._port(port, d, retune_hz)
         total = pic.total_dbm
@@ -591,11 +590,9 @@ class ReadingPlanner:
             ref = s.reference_level
         else:
             ref = 5.0 * math.ceil((total + 3.0) / 5.0)
+        # with a [timebase] this stays the narrow span of an aimed search; the engine widens
+        # it to the whole window only while it cannot yet tell where the product lies
         span = s.span if isinstance(s.span, float) else min(20.0 * rbw, nearest)
-        if bound_hz is not None and not isinstance(s.span, float):
-            half = sw.search_half_width_hz(bound_hz, rbw, nearest)
-            span = max(span, sw.searched_span_hz(half, rbw) if not math.isfinite(nearest)
-                       else min(sw.searched_span_hz(half, rbw), max(nearest, 2.0 * half)))
         averages = s.averages if isinstance(s.averages, int) else 1
         setup = AnalyzerSetup(center_hz=freq_hz, span_hz=span, rbw_hz=rbw, attenuation_db=att,
                               reference_level_dbm=ref, averages=averages)

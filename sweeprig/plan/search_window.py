@@ -13,9 +13,10 @@ common practice, no source) for the highest point of the trace, and judges what 
   border, so the product most likely lies outside it (or is not there at all).
 
 A flagged peak is likely not the product: the reading then keeps the level at the computed
-frequency (as without a search) with the flag. A peak that does not stand
-:data:`FOUND_ABOVE_FLOOR_DB` above the trace's noise floor is not a product: the reading
-keeps the level at the computed frequency and raises neither flag. Pure functions; Hz.
+frequency (as without a search) with the flag. When no point of the window stands
+:func:`found_above_floor_db` above the trace's noise floor the product is not found: the
+reading takes the window's highest point, an upper bound of the product wherever it lies in
+the window, and the analysis reports it as in the noise (a bound). Pure functions; Hz.
 """
 
 from __future__ import annotations
@@ -34,15 +35,27 @@ from sweeprig.plan.frequency_error import Term, worst_offset_hz
 SEARCH_SLACK_RBW = 0.5
 #: Span of a searched reading: the window plus this many RBWs for the noise floor around it.
 FLOOR_ROOM_RBW = 10.0
-#: A peak counts as the product when it stands this far above the median noise floor, dB:
-#: the highest of ~20 independent log-detected noise samples exceeds the median by about
-#: 7 dB (the exponential distribution of noise power: ln 20 + 0.58 times the mean, the mean
-#: 1.6 dB above the median), so 12 dB leaves a false find below 1e-3 per reading (from the
-#: exponential law; common practice, no source for the margin).
-FOUND_ABOVE_FLOOR_DB = 12.0
+#: Chance, per reading, that noise alone passes for the product.
+FALSE_FIND = 1e-3
+
+
+def found_above_floor_db(half_width_hz: float, rbw_hz: float) -> float:
+    """How far above the noise floor (its mean power) a peak must stand to count as the
+    product, dB: a window of ``n = 2·half/RBW`` independent noise samples (at least 1) holds
+    one above ``x`` times the mean power with probability ``≈ n·e^(−x)`` (noise power in a
+    detected sample is exponentially distributed: the Rayleigh envelope of Gaussian noise,
+    any communications text), so ``x = ln(n/FALSE_FIND)``: 8.4 dB for one sample, 10 dB
+    for twenty."""
+    n = max(1.0, 2.0 * half_width_hz / rbw_hz)
+    return 10.0 * math.log10(math.log(n / FALSE_FIND))
 #: Share of an RBW a peak's frequency may differ from the line's (the filter's centre and
 #: the sampled peak; common practice, no source).
 CENTRE_SLACK_RBW = 0.25
+
+#: A peak this far above the floor, dB, is a clear line: its centre is known to
+#: :data:`CLEAR_CENTRE_SLACK_RBW` of an RBW.
+CLEAR_ABOVE_FLOOR_DB = 20.0
+CLEAR_CENTRE_SLACK_RBW = 0.02
 
 FREQUENCY_OFFSET = "frequency_offset"
 WINDOW_EDGE = "window_edge"
@@ -89,39 +102,56 @@ def searched_span_hz(half_width_hz: float, rbw_hz: float) -> float:
 class Found:
     """What a windowed search found. ``freq_hz``: the highest point of the window (None when
     nothing stood out of the noise); ``offset_hz``: its distance from the computed frequency;
-    ``flags``: :data:`FREQUENCY_OFFSET`, :data:`WINDOW_EDGE`."""
+    ``flags``: :data:`FREQUENCY_OFFSET`, :data:`WINDOW_EDGE`. ``highest_hz``: the window's
+    highest point, found or not (where a not-found product's upper bound is read)."""
 
     freq_hz: float | None
     offset_hz: float | None
     level_dbm: float | None
     flags: tuple[str, ...] = ()
     resolution_hz: float | None = None
+    highest_hz: float | None = None
     """How closely the offset is known: the trace's point spacing plus
     :data:`CENTRE_SLACK_RBW` of the RBW, Hz."""
 
 
 def search(freq_hz: np.ndarray, level_dbm: np.ndarray, centre_hz: float, half_width_hz: float,
-           bound_hz: float, rbw_hz: float, floor_dbm: float | None) -> Found:
-    """The highest trace point within ``centre_hz ± half_width_hz`` and what it means.
+           bound_hz: float, rbw_hz: float, floor_dbm: float | None,
+           window_centre_hz: float | None = None) -> Found:
+    """The highest trace point within ``window_centre_hz ± half_width_hz`` (default: the
+    computed frequency ``centre_hz``) and what it means; the offset is from ``centre_hz``.
 
     ``floor_dbm``: the trace's noise floor (None: unknown, then any peak counts as found).
     """
     f = np.asarray(freq_hz, dtype=float)
     y = np.asarray(level_dbm, dtype=float)
-    inside = np.flatnonzero((np.abs(f - centre_hz) <= half_width_hz) & np.isfinite(y))
+    middle = centre_hz if window_centre_hz is None else window_centre_hz
+    inside = np.flatnonzero((np.abs(f - middle) <= half_width_hz) & np.isfinite(y))
     if inside.size == 0:
         return Found(None, None, None)
     best = int(inside[np.argmax(y[inside])])
     peak_hz, peak_dbm = float(f[best]), float(y[best])
-    if floor_dbm is not None and peak_dbm < floor_dbm + FOUND_ABOVE_FLOOR_DB:
-        return Found(None, None, None)
+    if floor_dbm is not None and \
+            peak_dbm < floor_dbm + found_above_floor_db(half_width_hz, rbw_hz):
+        return Found(None, None, None, highest_hz=peak_hz)
     step = float(np.median(np.diff(f))) if f.size > 1 else 0.0
+    if 0 < best < f.size - 1 and np.isfinite(y[best - 1:best + 2]).all():
+        # a parabola through the peak and its neighbours in dB: exact for a line through a
+        # Gaussian RBW filter, whose dB shape is a parabola (common practice, no source)
+        a, b, c = (float(v) for v in y[best - 1:best + 2])
+        curve = a - 2.0 * b + c
+        if curve < 0:
+            peak_hz += step * 0.5 * (a - c) / curve
     offset = peak_hz - centre_hz
     flags = []
     resolution = CENTRE_SLACK_RBW * rbw_hz + step
+    if floor_dbm is not None and peak_dbm >= floor_dbm + CLEAR_ABOVE_FLOOR_DB:
+        # a line far out of the noise: its interpolated peak is known to a small share of an
+        # RBW (noise 20 dB down bends the parabola little; common practice, no source)
+        resolution = CLEAR_CENTRE_SLACK_RBW * rbw_hz + 0.1 * step
     if abs(offset) > bound_hz + resolution:
         flags.append(FREQUENCY_OFFSET)
     # the window's border points (or the trace's, when the window reaches past the trace)
     if best in (int(inside[0]), int(inside[-1])):
         flags.append(WINDOW_EDGE)
-    return Found(peak_hz, offset, peak_dbm, tuple(flags), resolution)
+    return Found(peak_hz, offset, peak_dbm, tuple(flags), resolution, peak_hz)

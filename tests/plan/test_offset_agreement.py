@@ -55,3 +55,20 @@ def test_when_the_offsets_cannot_say_which_product_is_wrong_all_off_ones_are_mar
     flags = disagreeing([reference_coefficients(p, "sa") for p in pair], offsets,
                         [50.0] * 2, {"rf": 2.0, "lo": 2.0, "sa": 0.1})
     assert flags == [True, True]
+
+
+def test_found_offsets_pin_where_the_next_product_lies() -> None:
+    from sweeprig.plan.offset_agreement import predicted_offset_hz
+
+    coeff = coefficients()
+    offsets = [offset_hz(p, "sa", ERRORS) for p in PRODUCTS]
+    # nothing found yet: the prior alone, centred on the computed frequency
+    mean0, sigma0 = predicted_offset_hz([], [], [], TOL, coeff[2])
+    assert mean0 == 0.0 and sigma0 > 5e3
+    # the wanted output, its tone 2 and the LO leak found: the lower IM3 is pinned to within
+    # a few resolutions of where these errors put it
+    seen = [0, 1, 4]
+    mean, sigma = predicted_offset_hz([coeff[i] for i in seen], [offsets[i] for i in seen],
+                                      [20.0] * 3, TOL, coeff[2])
+    assert abs(mean - offsets[2]) < 3 * sigma + 20.0
+    assert sigma < 100.0
