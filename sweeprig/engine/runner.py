@@ -10,7 +10,9 @@ Order of work for every point (the plan already put slow settings outermost):
 4. RF outputs on, then the settling time if anything changed;
 5. each reading (analyzer: route the switch, configure, sweep, marker at the product and at
    a noise offset, overload flag; power meter; supply current); levels are referred back to
-   the DUT port planes by adding the path loss;
+   the DUT port planes by adding the path loss; with a bench ``[timebase]`` the product is
+   searched for on the trace read for the floor, within the offset the references explain,
+   aimed by the offsets found before (:meth:`Runner._aim`, :mod:`sweeprig.plan.search_window`);
 6. the point and all its readings are written in one transaction.
 
 The error queue of every instrument configured in a block is drained after the block, and
