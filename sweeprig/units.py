@@ -44,12 +44,12 @@ from sweeprig.errors import UnitError
 
 Kind = Literal[
     "frequency", "power", "level_db", "voltage", "current", "time", "temperature",
-    "resistance", "count",
+    "resistance", "count", "ppm",
 ]
 
 KINDS: tuple[str, ...] = (
     "frequency", "power", "level_db", "voltage", "current", "time", "temperature",
-    "resistance", "count",
+    "resistance", "count", "ppm",
 )
 
 _NUMBER = r"[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?"
@@ -82,6 +82,8 @@ _LINEAR: dict[str, tuple[tuple[str, str, float], ...]] = {
     "resistance": (("", "ohm", 1.0), ("", "Ω", 1.0), ("k", "ohm", 1e3), ("k", "Ω", 1e3)),
     "level_db": (("", "dB", 1.0),),
     "count": (),
+    # a fractional frequency error: parts per million (internal) or per billion
+    "ppm": (("", "ppm", 1.0), ("", "ppb", 1e-3)),
 }
 #: Watts for power (converted to dBm), and the logarithmic units, which take no prefix.
 _POWER_WATTS: tuple[tuple[str, str, float], ...] = (
@@ -113,6 +115,7 @@ _EXAMPLES = {
     "temperature": '"85 degC"',
     "resistance": '"50 ohm"',
     "count": "a whole number such as 16",
+    "ppm": '"2 ppm" or "50 ppb"',
 }
 
 
@@ -131,6 +134,7 @@ _DISPLAY_SUFFIXES: dict[str, list[str]] = {
     "temperature": ["degC", "°C", "C", "K", "degF"],
     "resistance": ["ohm", "kohm"],
     "count": [],
+    "ppm": ["ppm", "ppb"],
 }
 
 

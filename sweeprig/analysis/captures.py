@@ -62,12 +62,14 @@ from sweeprig.analysis.figures import (
     ANALYZER_COMPRESSION,
     ANALYZER_DISTORTION,
     ATTEN_CARRIER_MOVED,
+    FREQUENCY_OFFSET,
     IN_NOISE,
     MISSING_READING,
     NOISE_LIMITED,
     OVERLOAD,
     RBW_MERGED,
     SOURCE_HARMONIC,
+    WINDOW_EDGE,
     flag_bit,
     mask_where,
 )
@@ -403,6 +405,11 @@ def _predicted_flags(
         merged |= risk("rbw_merged")
         noisy = risk("noise") | risk("reciprocal_mixing")
         flags |= mask_where(noisy & ~np.isfinite(floor), NOISE_LIMITED)
+        # measured by the windowed peak search (extra_json search_flags, read with the risks)
+        flags |= mask_where(risk(FREQUENCY_OFFSET), FREQUENCY_OFFSET)
+        flags |= mask_where(risk(WINDOW_EDGE), WINDOW_EDGE)
+        # nothing in the search window stood out of the noise: the level is a bound
+        flags |= mask_where(risk("not_found"), IN_NOISE)
     return flags | mask_where(merged, RBW_MERGED)
 
 

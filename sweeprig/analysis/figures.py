@@ -81,6 +81,12 @@ Flags (sweeprig's own names)
 ``coarse_steps``
     The compression sweep's input-power step bracketing this compression point is so coarse
     that the linear interpolation may be off by more than the stated accuracy (0.2 dB).
+``frequency_offset``
+    The windowed peak search found the product's peak farther from its computed frequency
+    than the bench's ``[timebase]`` references explain (:mod:`sweeprig.plan.search_window`).
+``window_edge``
+    The highest point of the peak search's window was on its edge: the product is most
+    likely outside the window.
 ``supply_current_off``
     At a point behind the figure the DUT supply current was more than 30 % away from the
     part's ``expected_supply_current``: the part looks wrongly powered or damaged.
@@ -137,6 +143,8 @@ Y_TOO_SMALL = "y_too_small"
 ANALYZER_NOISE_DOMINATES = "analyzer_noise_dominates"
 HOT_COMPRESSION = "hot_compression"
 INTERFERER = "interferer"
+FREQUENCY_OFFSET = "frequency_offset"
+WINDOW_EDGE = "window_edge"
 
 #: Every flag, in a fixed order: the position is the flag's bit in a flag mask.
 FLAGS: tuple[str, ...] = (
@@ -168,6 +176,9 @@ FLAGS: tuple[str, ...] = (
     ANALYZER_NOISE_DOMINATES,
     HOT_COMPRESSION,
     INTERFERER,
+    # the windowed peak search (sweeprig.plan.search_window)
+    FREQUENCY_OFFSET,
+    WINDOW_EDGE,
 )
 
 #: Flags that make a figure untrustworthy as a number: a limit check on it is inconclusive.
@@ -201,6 +212,8 @@ SUSPECT_FLAGS: frozenset[str] = frozenset(
         ANALYZER_NOISE_DOMINATES,
         HOT_COMPRESSION,
         INTERFERER,
+        FREQUENCY_OFFSET,
+        WINDOW_EDGE,
     }
 )
 
@@ -254,6 +267,11 @@ FLAG_MEANINGS: Mapping[str, str] = MappingProxyType({
     "with 10 dB more input attenuation",
     INTERFERER: "a line stood out of the noise in the measured band: an interferer raised the "
     "noise readings",
+    FREQUENCY_OFFSET: "the peak found lay farther from the product's frequency than the "
+    "bench's frequency references explain: it is probably another line, or a reference is "
+    "off its stated tolerance",
+    WINDOW_EDGE: "the highest point of the search window was its edge: the product most "
+    "likely lies outside the window, and the level read is not the product's",
 })
 
 _FLAG_BIT = {name: 1 << i for i, name in enumerate(FLAGS)}

@@ -222,7 +222,8 @@ def _risks_column(extras: np.ndarray) -> np.ndarray:
     out = np.full(len(extras), None, dtype=object)
     cache: dict[str, str | None] = {}
     for i, text in enumerate(extras.tolist()):
-        if not isinstance(text, str) or '"risks"' not in text:
+        if not isinstance(text, str) or ('"risks"' not in text and
+                                         '"search' not in text):
             continue
         if text not in cache:
             cache[text] = _risks_from_extra(text)
@@ -232,11 +233,23 @@ def _risks_column(extras: np.ndarray) -> np.ndarray:
 
 def _risks_from_extra(text: str) -> str | None:
     try:
-        risks = json.loads(text).get("risks")
+        extra = json.loads(text)
+        risks = extra.get("risks")
+        # the peak search's measured flags ride with the predicted risks into the masks; a
+        # product it did not find is a bound (``not_found``: in the noise)
+        searched = extra.get("search_flags")
+        search = extra.get("search")
+        if isinstance(search, dict) and search.get("found") is False:
+            searched = [*(searched if isinstance(searched, list | tuple) else []),
+                        "not_found"]
     except (ValueError, AttributeError):
         return None
     if not isinstance(risks, list | tuple):
-        return None
+        if not isinstance(searched, list | tuple):
+            return None
+        risks = []
+    if isinstance(searched, list | tuple):
+        risks = [*risks, *searched]
     return ",".join(sorted({str(r) for r in risks if isinstance(r, str) and r}))
 
 

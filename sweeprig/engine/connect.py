@@ -13,7 +13,7 @@ import functools
 from collections.abc import Callable, Iterator, Mapping
 from dataclasses import dataclass, field
 
-from sweeprig.clock import Clock
+from sweeprig.clock import Clock, WallClock
 from sweeprig.engine.locks import BenchLock
 from sweeprig.errors import InputError, InstrumentError, TransportError
 from sweeprig.formats.bench import Bench
@@ -53,6 +53,8 @@ class BenchDrivers:
     transports: dict[str, Transport] = field(default_factory=dict)
     startup_errors: dict[str, list[str]] = field(default_factory=dict)
     """Errors found in each instrument's queue when the bench was opened (role → texts)."""
+    timebase_notes: list[str] = field(default_factory=list)
+    """What the bench's ``[timebase]`` could not set or verify (sweeprig.engine.timebase)."""
 
     def items(self) -> Iterator[tuple[str, Driver]]:
         """(role, driver) for every present role."""
@@ -140,6 +142,10 @@ def open_bench(
             if stale:
                 drivers.startup_errors[role] = stale
         _apply_bench_limits(bench, drivers)
+        from sweeprig.engine.timebase import apply_timebase
+
+        drivers.timebase_notes = apply_timebase(
+            bench, dict(drivers.items()), clock if clock is not None else WallClock())
     except BaseException:
         drivers.close()
         raise

@@ -10,7 +10,9 @@ Order of work for every point (the plan already put slow settings outermost):
 4. RF outputs on, then the settling time if anything changed;
 5. each reading (analyzer: route the switch, configure, sweep, marker at the product and at
    a noise offset, overload flag; power meter; supply current); levels are referred back to
-   the DUT port planes by adding the path loss;
+   the DUT port planes by adding the path loss; with a bench ``[timebase]`` the product is
+   searched for on the trace read for the floor, within the offset the references explain,
+   aimed by the offsets found before (:meth:`Runner._aim`, :mod:`sweeprig.plan.search_window`);
 6. the point and all its readings are written in one transaction.
 
 The error queue of every instrument configured in a block is drained after the block, and
@@ -37,9 +39,12 @@ from __future__ import annotations
 
 import math
 import time
+from collections import deque
 from collections.abc import Callable, Iterable, Mapping
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any
+
+import numpy as np
 
 from sweeprig.clock import Clock
 from sweeprig.engine.connect import BenchDrivers
@@ -49,12 +54,18 @@ from sweeprig.errors import InputError, InstrumentError, TransportError
 from sweeprig.formats.bench import Bench
 from sweeprig.formats.sequence import AdaptiveSoak, Sequence
 from sweeprig.instruments import AnalyzerDriver, ChamberDriver, Driver, SourceDriver
+from sweeprig.plan import search_window as sw
 from sweeprig.plan.duration import soak_range_s
 from sweeprig.plan.expand import Point
+from sweeprig.plan.frequency_error import reference_coefficients
+from sweeprig.plan.offset_agreement import DISAGREE_K, disagreeing, predicted_offset_hz
 from sweeprig.plan.readings import Reading
+from sweeprig.plan.search_window import Found
 from sweeprig.store.base import PointRecord, ReadingRecord, RunStore, utc_now
 from sweeprig.transport.base import ReplyTimeout
 
+#: Found offsets remembered for aiming the next search.
+OFFSET_MEMORY = 40
 CHAMBER_POLL_S = 10.0
 #: Wall seconds between heartbeats while the run waits (chamber, soak): a live run's heartbeat
 #: stays fresh however long a soak lasts (another host calls a run interrupted after 120 s).
@@ -160,6 +171,13 @@ class Runner:
         self._supply_v: float | None = None
         self._supply_on = False
         self._noise: Any = None  # sweeprig.engine.noise_reading.NoiseReader, when needed
+        #: offsets found by recent searches: (reference coefficients, offset Hz, resolution
+        #: Hz), from which the next search is aimed (reference errors drift slowly)
+        self._offsets: deque[tuple[dict[str, float], float, float]] = deque(
+            maxlen=OFFSET_MEMORY)
+        #: each source's own line found once per run (kept beside the recent finds)
+        self._surveyed: list[tuple[dict[str, float], float, float]] = []
+        self._survey_due = bench.references() is not None
         cond = sequence.conditions
         self.settle_s = float(cond.settle)
         self.soak_s = float(cond.soak)
@@ -374,7 +392,10 @@ class Runner:
         changed |= self._apply_sources(point)
         if changed:
             self.clock.sleep(self.settle_s)
+        if self._survey_due:
+            self._survey(point)
         records = [self._read(point, reading) for reading in point.readings]
+        records = self._agree_offsets(point, records)
         if self.policy.reset_check:
             self._check_resets()
         probe_c = self.d.chamber.probe_temperature_c() if self.d.chamber is not None else None
@@ -656,16 +677,46 @@ class Runner:
             self._check(rf)
             self.clock.sleep(self.settle_s)
         a = reading.analyzer
-        if sa.configure(
-            centre_hz=a.center_hz, span_hz=a.span_hz, rbw_hz=a.rbw_hz,
-            ref_level_dbm=a.reference_level_dbm, attenuation_db=a.attenuation_db,
-            averages=a.averages,
-        ):
-            self._check(sa)
-        sweep_s, sweep_from = sa.expected_sweep_s(a.averages, a.measure_time_s)
-        sa.sweep(sweep_s)  # wait and timeout from the analyzer's own sweep time
-        level = sa.marker_level_dbm(reading.freq_hz)
-        floor = self._noise_floor(sa, reading, a.span_hz, a.rbw_hz, a.averages)
+        aim = None if reading.search_hz is None else self._aim(point, reading, sa)
+        found: Found | None = None
+        for attempt in (1, 2):
+            if sa.configure(
+                centre_hz=a.center_hz if aim is None else aim.centre_hz,
+                span_hz=a.span_hz if aim is None else aim.span_hz, rbw_hz=a.rbw_hz,
+                ref_level_dbm=a.reference_level_dbm, attenuation_db=a.attenuation_db,
+                averages=a.averages, points=None if aim is None else aim.points,
+            ):
+                self._check(sa)
+            sweep_s, sweep_from = sa.expected_sweep_s(a.averages, a.measure_time_s)
+            sa.sweep(sweep_s)  # wait and timeout from the analyzer's own sweep time
+            if aim is None:
+                break
+            # the trace the floor needs anyway carries the search: no extra transaction
+            floor, found = self._search(sa, reading, aim, a.rbw_hz, a.averages)
+            if attempt == 1 and aim.aimed and sw.WINDOW_EDGE in found.flags:
+                aim = self._aim(point, reading, sa, wide=True)  # off the aim: look wide
+                continue
+            break
+        if aim is not None and found is not None:
+            # a peak the references cannot explain is likely not the product: the level is
+            # then read where the product should be, and the flag says so; a product not
+            # found is bounded by the window's highest point (the analysis: in the noise)
+            if found.freq_hz is None:
+                marker_hz = found.highest_hz if found.highest_hz is not None \
+                    else aim.centre_hz
+            else:
+                marker_hz = aim.centre_hz if found.flags else found.freq_hz
+                # only a clear line aims later searches (a weak find, noise-bent, could
+                # steer every later search off)
+                if not found.flags and found.offset_hz is not None and floor.dbm is not None \
+                        and found.level_dbm is not None \
+                        and found.level_dbm >= floor.dbm + sw.CLEAR_ABOVE_FLOOR_DB:
+                    self._offsets.append((aim.coefficients, found.offset_hz,
+                                          found.resolution_hz or a.rbw_hz))
+            level = sa.marker_level_dbm(marker_hz)
+        else:
+            level = sa.marker_level_dbm(reading.freq_hz)
+            floor = self._noise_floor(sa, reading, a.span_hz, a.rbw_hz, a.averages)
         overload = sa.overloaded()
         if reading.rf_retune_hz is not None and rf is not None:
             self._tune(rf, "rf", point.rf_freq_hz, point.rf_power_dbm)
@@ -691,8 +742,160 @@ class Runner:
             overload=overload,
             attenuation_check=True if reading.attenuation_check else None,
             extra={**_reading_extra(reading, level, loss, floor),
-                   "sweep_s": sweep_s, "sweep_time_from": sweep_from},
+                   "sweep_s": sweep_s, "sweep_time_from": sweep_from,
+                   **({} if found is None or aim is None
+                      else search_extra(reading, found, aim))},
         )
+
+    def _agree_offsets(self, point: Point, records: list[ReadingRecord]
+                       ) -> list[ReadingRecord]:
+        """Mark ``frequency_offset`` on the searched readings whose offsets disagree with the
+        others' (one set of reference errors explains them all, or the product found is
+        another line: :mod:`sweeprig.plan.offset_agreement`). No instrument is asked."""
+        refs = self.bench.references()
+        if refs is None:
+            return records
+        chosen: list[int] = []
+        coefficients, offsets, resolution = [], [], []
+        analyzer = refs.reference.get("sa", "sa:crystal")
+        for i, (reading, record) in enumerate(zip(point.readings, records, strict=True)):
+            search = record.extra.get("search")
+            if not search or not search.get("found") or record.extra.get("search_flags") \
+                    or reading.orders is None:
+                continue
+            rf_hz = point.rf_freq_hz if reading.rf_retune_hz is None else reading.rf_retune_hz
+            terms = sw.product_terms(reading.orders, point.lo_freq_hz, rf_hz,
+                                     point.rf2_freq_hz, refs)
+            chosen.append(i)
+            coefficients.append(reference_coefficients(terms, analyzer))
+            offsets.append(float(search["offset_hz"]))
+            resolution.append(float(search["resolution_hz"]))
+        seen = [*self._surveyed, *self._offsets]
+        if seen:
+            # the clear finds so far (this point's included) predict each product's offset
+            off = []
+            for c, o, res in zip(coefficients, offsets, resolution, strict=True):
+                mean, sigma = predicted_offset_hz(
+                    [k for k, _, _ in seen], [v for _, v, _ in seen], [r for _, _, r in seen],
+                    refs.tolerance_ppm, c)
+                off.append(abs(o - mean) > AIM_SIGMAS * sigma + DISAGREE_K * res)
+        else:
+            off = disagreeing(coefficients, offsets, resolution, refs.tolerance_ppm)
+        out = list(records)
+        for i, bad in zip(chosen, off, strict=True):
+            if bad:
+                out[i] = replace(out[i], extra={**out[i].extra,
+                                                "search_flags": [sw.FREQUENCY_OFFSET]})
+        return out
+
+    def _survey(self, point: Point) -> None:
+        """Once per run, each source's own line where it leaks to the IF port, read at a
+        narrow RBW over the window its reference allows: it pins that source's reference
+        error, so every later search is aimed in its planned narrow span (products whose
+        mix of references no clear product pins would otherwise need the whole window at
+        their own, often narrow, RBW). A few sweeps per run, none per point; the levels are
+        the point's first IF reading's (attenuation and reference level for that port)."""
+        self._survey_due = False
+        sa, refs = self.d.sa, self.bench.references()
+        template = next((r for r in point.readings if r.instrument == "sa" and
+                         r.port == "if" and r.analyzer is not None and
+                         r.search_hz is not None and r.rf_retune_hz is None), None)
+        if sa is None or refs is None or template is None or template.analyzer is None:
+            return
+        a = template.analyzer
+        if self.d.switch is not None and self.d.switch.select(self.bench.switch_channel("if")):
+            self._check(self.d.switch)
+        analyzer_ref = refs.reference.get("sa", "sa:crystal")
+        for role, freq_hz, orders in (("lo", point.lo_freq_hz, (1, 0, 0)),
+                                      ("rf", point.rf_freq_hz, (0, 1, 0)),
+                                      ("rf2", point.rf2_freq_hz, (0, 0, 1))):
+            if freq_hz is None or getattr(self.d, role) is None:
+                continue
+            bound = sw.offset_bound_hz(orders, point.lo_freq_hz, point.rf_freq_hz,
+                                       point.rf2_freq_hz, refs)
+            if bound <= 0.0:
+                continue
+            rbw = SURVEY_RBW_HZ
+            half = bound + sw.SEARCH_SLACK_RBW * rbw
+            if sa.configure(centre_hz=freq_hz, span_hz=sw.searched_span_hz(half, rbw),
+                            rbw_hz=rbw, ref_level_dbm=a.reference_level_dbm,
+                            attenuation_db=a.attenuation_db, averages=1):
+                self._check(sa)
+            sweep_s, _ = sa.expected_sweep_s(1, None)
+            sa.sweep(sweep_s)
+            trace = sa.read_trace()
+            floor = estimate_noise_floor(trace.levels_dbm, trace.freq_hz, rbw, (freq_hz,))
+            found = sw.search(trace.freq_hz, trace.levels_dbm, freq_hz, half, bound, rbw,
+                              floor.dbm)
+            terms = sw.product_terms(orders, point.lo_freq_hz, point.rf_freq_hz,
+                                     point.rf2_freq_hz, refs)
+            clear = found.offset_hz is not None and not found.flags and \
+                floor.dbm is not None and found.level_dbm is not None and \
+                found.level_dbm >= floor.dbm + sw.CLEAR_ABOVE_FLOOR_DB
+            if clear:
+                assert found.offset_hz is not None
+                self._surveyed.append((reference_coefficients(terms, analyzer_ref),
+                                       found.offset_hz, found.resolution_hz or rbw))
+            self._event("info", "timebase", f"reference survey, role {role!r} at "
+                        f"{freq_hz:g} Hz: " + (f"line {found.offset_hz:+.1f} Hz off"
+                                               if clear else "no clear line found"),
+                        point.index)
+
+    def _aim(self, point: Point, reading: Reading, sa: AnalyzerDriver, *,
+             wide: bool = False) -> Aim:
+        """Where to look for a searched reading's product: at its computed frequency moved
+        by the offset the products found so far predict for it, in the planned (narrow)
+        span, when that prediction is tight enough (``AIM_SIGMAS`` standard deviations and
+        half an RBW fit the span beside the floor's room); otherwise (or ``wide``) at the
+        computed frequency over the whole window the references allow, the span widened to
+        hold it (and the trace points raised so that an RBW keeps
+        ``POINTS_PER_RBW`` points, where the profile can)."""
+        assert reading.analyzer is not None and reading.freq_hz is not None
+        assert reading.search_hz is not None and reading.orders is not None
+        a = reading.analyzer
+        refs = self.bench.references()
+        assert refs is not None
+        rf_hz = point.rf_freq_hz if reading.rf_retune_hz is None else reading.rf_retune_hz
+        terms = sw.product_terms(reading.orders, point.lo_freq_hz, rf_hz, point.rf2_freq_hz,
+                                 refs)
+        coefficients = reference_coefficients(terms, refs.reference.get("sa", "sa:crystal"))
+        seen = [*self._surveyed, *self._offsets]
+        mean, sigma = predicted_offset_hz([c for c, _, _ in seen], [o for _, o, _ in seen],
+                                          [r for _, _, r in seen], refs.tolerance_ppm,
+                                          coefficients)
+        half = AIM_SIGMAS * sigma + sw.SEARCH_SLACK_RBW * a.rbw_hz
+        room = a.span_hz / 2.0 - sw.FLOOR_ROOM_RBW / 2.0 * a.rbw_hz
+        if not wide and half <= max(room, sw.SEARCH_SLACK_RBW * a.rbw_hz) \
+                and half <= reading.search_hz:
+            return Aim(reading.freq_hz + mean, a.span_hz, half, None, coefficients, True)
+        span = max(a.span_hz, sw.searched_span_hz(reading.search_hz, a.rbw_hz))
+        points = None
+        if sa.profile.has("points"):
+            needed = math.ceil(POINTS_PER_RBW * span / a.rbw_hz) + 1
+            if needed > DEFAULT_TRACE_POINTS:
+                points = min(needed, int(sa.limits("points")[1] or needed))
+        return Aim(reading.freq_hz, span, reading.search_hz, points, coefficients, False)
+
+    @staticmethod
+    def _search(sa: AnalyzerDriver, reading: Reading, aim: Aim, rbw_hz: float,
+                averages: int) -> tuple[NoiseFloor, Found]:
+        """The product searched for in the aimed window on the last sweep's trace, and
+        the noise floor beside it (the found peak masked too: an offset product must not
+        raise the floor). See :mod:`sweeprig.plan.search_window`."""
+        assert reading.freq_hz is not None
+        trace = sa.read_trace()
+        if trace.points < 3 or trace.span_hz <= 0:
+            return NoiseFloor(None, 0, "no trace around the product (zero span)"), \
+                Found(None, None, None)
+        freqs = trace.freq_hz
+        inside = np.abs(freqs - aim.centre_hz) <= aim.half_width_hz
+        lines: tuple[float, ...] = (reading.freq_hz, aim.centre_hz, *reading.known_hz)
+        if inside.any():
+            lines = (*lines, float(freqs[inside][np.argmax(trace.levels_dbm[inside])]))
+        floor = estimate_noise_floor(trace.levels_dbm, freqs, rbw_hz, lines, averages=averages)
+        return floor, sw.search(freqs, trace.levels_dbm, reading.freq_hz, aim.half_width_hz,
+                                reading.offset_bound_hz or 0.0, rbw_hz, floor.dbm,
+                                window_centre_hz=aim.centre_hz)
 
     @staticmethod
     def _noise_floor(sa: AnalyzerDriver, reading: Reading, span_hz: float, rbw_hz: float,
@@ -742,6 +945,46 @@ class Runner:
         """Drain the error queue of each instrument configured in the last block."""
         for driver in drivers:
             driver.check_errors()
+
+
+#: A search is aimed (narrow span) when the predicted offset is known to this many standard
+#: deviations within the planned span (common practice for a Gaussian estimate, no source).
+AIM_SIGMAS = 4.0
+#: RBW of the once-per-run survey of each source's line, Hz (its window of a few kHz then
+#: sweeps in about a second; common practice, no source).
+SURVEY_RBW_HZ = 100.0
+#: Trace points per RBW a wide search asks for, so that no line falls between two points
+#: (common practice, no source); the analyzer's default point count.
+POINTS_PER_RBW = 2.5
+DEFAULT_TRACE_POINTS = 1001
+
+
+@dataclass(frozen=True)
+class Aim:
+    """Where a searched reading looks: window centre and half-width, span and trace points
+    (None: as they are), the product's reference coefficients, and whether the centre was
+    predicted from the offsets found before (``aimed``) or the whole window is searched."""
+
+    centre_hz: float
+    span_hz: float
+    half_width_hz: float
+    points: int | None
+    coefficients: dict[str, float]
+    aimed: bool
+
+
+def search_extra(reading: Reading, found: Found, aim: Aim) -> dict[str, object]:
+    """What a windowed search adds to a reading's ``extra``: the window, the bound the
+    references explain, the offset found (None: nothing stood out of the noise) and its
+    flags (``search_flags``, read into the flag masks by the analysis)."""
+    out: dict[str, object] = {"search": {
+        "window_hz": aim.half_width_hz, "aimed": aim.aimed, "centre_hz": aim.centre_hz,
+        "bound_hz": reading.offset_bound_hz,
+        "offset_hz": found.offset_hz, "found": found.freq_hz is not None,
+        "resolution_hz": found.resolution_hz}}
+    if found.flags:
+        out["search_flags"] = list(found.flags)
+    return out
 
 
 def _connection_of(port: str) -> str:

@@ -543,6 +543,8 @@ def _execute(
             for role, texts in drivers.startup_errors.items():
                 store.log_event(run_id, "info", "error_queue",
                                 f"role {role!r} queue held at start: " + "; ".join(texts))
+            for note in drivers.timebase_notes:
+                store.log_event(run_id, "warning", "timebase", note)
             store.record_instruments(run_id, [
                 InstrumentRecord(role, d.resource, d.profile.name, d.idn or "")
                 for role, d in drivers.items()

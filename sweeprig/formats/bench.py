@@ -42,6 +42,7 @@ from sweeprig.formats.pathloss import (
     read_touchstone_loss,
 )
 from sweeprig.formats.sensor import SensorSpec
+from sweeprig.formats.timebase import ResolvedTimebase, Timebase, resolve_timebase
 from sweeprig.formats.toml_locate import KeyPath
 from sweeprig.transport.backend import bench_file_fix, bench_file_problem
 from sweeprig.transport.resources import ResourceNameError, parse_resource
@@ -369,6 +370,10 @@ class Bench(LocatedFile):
     sensor: SensorSpec = Field(default_factory=SensorSpec,
                                description="the power-meter sensor: calibration factor, "
                                "zeroing, averages (see sweeprig.formats.sensor)")
+    timebase: Timebase | None = Field(
+        None, description="which 10 MHz reference each source and the analyzer runs on "
+        "(see sweeprig.formats.timebase); left out: products are read at their computed "
+        "frequency")
 
     _losses: dict[str, PathLoss] = PrivateAttr(default_factory=dict)
     _enr: EnrTable | None = PrivateAttr(None)
@@ -385,6 +390,13 @@ class Bench(LocatedFile):
     def noise_drive_role(self) -> str:
         """The role whose output switches the noise source ("nsdc" or "sa")."""
         return self.noise_source.drive if self.noise_source is not None else "nsdc"
+
+    def references(self) -> ResolvedTimebase | None:
+        """The ``[timebase]`` resolved to each role's reference and tolerance (None without
+        the section); raises a located error for a lock to nothing or a cycle."""
+        if self.timebase is None:
+            return None
+        return resolve_timebase(self.timebase, lambda r: self.role(r) is not None, self.where)
 
     def loss(self, connection: str) -> PathLoss:
         """Path loss of ``connection`` (one of :data:`CONNECTIONS`)."""
@@ -578,6 +590,7 @@ def check_bench(bench: Bench, *, known_profiles: Collection[str] | None = None) 
                          where=bench.where(("bench", "timeout")),
                          fix='write a time such as "5 s", or leave the key out (5 s)')
     _check_losses(bench)
+    bench.references()  # [timebase]: every lock resolves
     _check_figures(bench)
     _check_uncertainty(bench)
     sa = bench.roles.sa

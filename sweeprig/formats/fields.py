@@ -44,6 +44,7 @@ INTERNAL_UNIT: dict[str, str] = {
     "current": "A",
     "time": "s",
     "temperature": "degC",
+    "ppm": "ppm",
 }
 
 #: Relative tolerance for "stop falls on the step grid".
@@ -146,6 +147,7 @@ Voltage = quantity("voltage")
 Current = quantity("current")
 Time = quantity("time")
 Temperature = quantity("temperature")
+Ppm = quantity("ppm")
 
 _KIND_OF_TYPE_NAME = {
     "frequency": Frequency,

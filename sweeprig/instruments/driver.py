@@ -399,10 +399,25 @@ class Driver:
         self._block_count = 0
         self._block_ops.clear()
 
+    reference: str | None = None
+    """The 10 MHz reference the bench's ``[timebase]`` asks for (``internal`` or
+    ``external``), set by :meth:`prepare` where the profile has a ``reference`` operation
+    (so a recovery after a reset sets it again); None: left as it is."""
+
     def prepare(self) -> None:
-        """Put the instrument in the mode sweeprig expects (the profile's ``prepare``)."""
+        """Put the instrument in the mode sweeprig expects (the profile's ``prepare``), on the
+        reference the bench asks for."""
         if self.profile.has("prepare"):
             self.do("prepare")
+        if self.reference is not None and self.profile.has("reference"):
+            self.set_value("reference", self.reference)
+
+    def reference_unlocked(self) -> bool | None:
+        """Whether the instrument reports its reference unlocked (None: the profile has no
+        ``reference_unlocked`` query, so it cannot tell)."""
+        if not self.profile.has("reference_unlocked"):
+            return None
+        return bool(self.ask("reference_unlocked"))
 
     def event_status(self) -> int:
         """The event status register (``*ESR?``; reading clears it)."""

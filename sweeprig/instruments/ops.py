@@ -27,7 +27,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Literal
 
-from sweeprig.instruments.status_bits import OVERLOAD_MASK, UNCALIBRATED_MASK
+from sweeprig.instruments.status_bits import FREQUENCY_MASK, OVERLOAD_MASK, UNCALIBRATED_MASK
 
 Shape = Literal["setting", "action", "query"]
 ValueType = Literal["none", "float", "int", "bool", "choice"]
@@ -100,6 +100,15 @@ COMMON_DEFAULTS: dict[str, dict[str, object]] = {
 }
 """The TOML a profile gets for the common operations unless it gives its own."""
 
+#: The 10 MHz reference of a source or an analyzer (the bench file's ``[timebase]``).
+REFERENCE_OPS: tuple[OpSpec, ...] = (
+    _setting("reference", "choice", None, "10 MHz reference: its own crystal (internal) or "
+             "its reference input (external)", required=False,
+             choices=("internal", "external")),
+    OpSpec("reference_unlocked", "query", "its reference is not locked (flag)", reply="int",
+           required=False, default_mask=FREQUENCY_MASK),
+)
+
 KIND_OPS: dict[str, dict[str, OpSpec]] = {
     "source": {
         s.name: s
@@ -107,6 +116,7 @@ KIND_OPS: dict[str, dict[str, OpSpec]] = {
             _setting("frequency", "float", "frequency", "CW frequency, Hz"),
             _setting("power", "float", "power", "output level, dBm", safety=True),
             _setting("output", "bool", None, "RF output on/off"),
+            *REFERENCE_OPS,
         )
     },
     "analyzer": {
@@ -153,6 +163,7 @@ KIND_OPS: dict[str, dict[str, OpSpec]] = {
             OpSpec("status_enable", "action", "enable the questionable bits that feed the "
                    "status byte's summary (value: the overload and uncalibrated masks)",
                    value="int", unit="count", required=False),
+            *REFERENCE_OPS,
         )
     },
     "powermeter": {

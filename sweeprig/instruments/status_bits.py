@@ -22,5 +22,8 @@ QUESTIONABLE_BITS: dict[str, int] = {
 OVERLOAD_MASK = 1 << QUESTIONABLE_BITS["POWer"]
 """Default mask of the analyzer's ``overload`` flag: POWer, bit 3 (value 8)."""
 
+FREQUENCY_MASK = 1 << QUESTIONABLE_BITS["FREQuency"]
+"""Default mask of the ``reference_unlocked`` flag: FREQuency, bit 5 (value 32)."""
+
 UNCALIBRATED_MASK = 1 << QUESTIONABLE_BITS["CALibration"]
 """Default mask of the analyzer's ``uncalibrated`` flag: CALibration, bit 8 (value 256)."""

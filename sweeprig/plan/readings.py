@@ -45,6 +45,7 @@ from sweeprig.formats.pathloss import ConstantLoss, PathLoss
 from sweeprig.formats.sequence import AUTO, DISTORTION_KINDS, AnalyzerSettings, Sequence, Study
 from sweeprig.plan import frequencies as fp
 from sweeprig.plan import margins as mg
+from sweeprig.plan import search_window as sw
 from sweeprig.plan.noise_setup import NoisePlan, NoiseSettings, plan_noise_attenuation
 
 #: Sweep time per sweep ≈ K·span/RBW² (common practice, k ≈ 2–3 for Gaussian RBW filters).
@@ -122,6 +123,11 @@ class Reading:
     predicted: mg.Prediction | None = None
     noise: NoiseSettings | None = None
     """A noise-figure reading's analyzer settings (:mod:`sweeprig.plan.noise_setup`)."""
+    search_hz: float | None = None
+    """Half-width of the peak search around ``freq_hz``, Hz (None: read at ``freq_hz``;
+    :mod:`sweeprig.plan.search_window`)."""
+    offset_bound_hz: float | None = None
+    """The largest offset of the product the bench's references explain, Hz."""
 
 
 @dataclass(frozen=True)
@@ -177,6 +183,7 @@ class ReadingPlanner:
         self.on_risk = sequence.analyzer.on_risk
         self.defaults = sequence.analyzer
         zero = ConstantLoss(0.0)
+        self.references = bench.references() if bench is not None else None
         self.losses: dict[str, PathLoss] = {
             c: (bench.loss(c) if bench is not None else zero) for c in ("if", "rf_port", "lo_port")
         }
@@ -320,26 +327,46 @@ class ReadingPlanner:
                 continue
             for name, port, freq, orders, exp, retune in items:
                 siblings = [f for _, p, f, _, _, _ in items if p == port]
+                bound = None if self.references is None else sw.offset_bound_hz(
+                    orders, d.lo_freq_hz, d.rf_freq_hz if retune is None else retune,
+                    d.rf2_freq_hz, self.references)
                 setup, pred = self._setup(kind, port, d, freq, exp, wanted_dbm, settings,
-                                          retune, 0.0, siblings, orders=orders)
+                                          retune, 0.0, siblings, orders=orders,
+                                          bound_hz=bound)
                 known = self._known_hz(port, retune, freq, siblings)
+                search = None if bound is None else sw.search_half_width_hz(
+                    bound, setup.rbw_hz, self._nearest_hz(port, d, retune, freq, siblings))
                 out.append(Reading(name=name, kind=kind, instrument="sa", port=port,
                                    freq_hz=freq, orders=orders, analyzer=setup,
                                    rf_retune_hz=retune, expected_dbm=exp, known_hz=known,
-                                   risks=pred.risks, predicted=pred))
+                                   risks=pred.risks, predicted=pred, search_hz=search,
+                                   offset_bound_hz=bound))
                 repeat = check if check is not None else \
                     "analyzer_distortion" in pred.risks
                 if repeat:
                     extra, pred10 = self._setup(kind, port, d, freq, exp, wanted_dbm,
                                                 settings, retune, ATTENUATION_CHECK_DB,
                                                 siblings, base_att=setup.attenuation_db,
-                                                orders=orders)
+                                                orders=orders, bound_hz=bound)
                     out.append(Reading(name=f"{name}.att10", kind=kind, instrument="sa",
                                        port=port, freq_hz=freq, orders=orders, analyzer=extra,
                                        rf_retune_hz=retune, attenuation_check=True,
                                        repeat_of=name, expected_dbm=exp, known_hz=known,
-                                       risks=pred10.risks, predicted=pred10))
+                                       risks=pred10.risks, predicted=pred10,
+                                       search_hz=None if bound is None else
+                                       sw.search_half_width_hz(bound, extra.rbw_hz,
+                                                               self._nearest_hz(
+                                                                   port, d, retune, freq,
+                                                                   siblings)),
+                                       offset_bound_hz=bound))
         return tuple(out)
+
+    def _nearest_hz(self, port: str, d: Drive, retune_hz: float | None, freq_hz: float,
+                    siblings_hz: list[float]) -> float:
+        """Distance to the nearest other known line at ``port``, Hz (inf: none)."""
+        pic = self._port(port, d, retune_hz)
+        return min((abs(f - freq_hz) for f in [*pic.neighbours_hz, *siblings_hz]
+                    if abs(f - freq_hz) >= 1.0), default=math.inf)
 
     def _known_hz(self, port: str, retune_hz: float | None, freq_hz: float,
                   siblings_hz: list[float]) -> tuple[float, ...]:
@@ -467,13 +494,14 @@ class ReadingPlanner:
     def _setup(self, kind: str, port: str, d: Drive, freq_hz: float,
                expected_dbm: float | None, wanted_dbm: float, s: AnalyzerSettings,
                retune_hz: float | None, extra_att_db: float, siblings_hz: list[float],
-               base_att: float | None = None, orders: tuple[int, ...] | None = None
-               ) -> tuple[AnalyzerSetup, mg.Prediction]:
+               base_att: float | None = None, orders: tuple[int, ...] | None = None,
+               bound_hz: float | None = None) -> tuple[AnalyzerSetup, mg.Prediction]:
         """Settings of one reading and what is predicted at them (module docstring).
 
         ``base_att``: for the attenuation-check repeat, the attenuation of the reading it
         repeats (the repeat adds ``extra_att_db`` to it). ``orders``: the product's (LO, RF…)
         orders, for the source-harmonic contributions that scale the part's own line.
+        ``bound_hz``: the product's offset the references explain (None: no ``[timebase]``).
         """
         pic = self._port(port, d, retune_hz)
         total = pic.total_dbm
@@ -570,6 +598,8 @@ class ReadingPlanner:
             ref = s.reference_level
         else:
             ref = 5.0 * math.ceil((total + 3.0) / 5.0)
+        # with a [timebase] this stays the narrow span of an aimed search; the engine widens
+        # it to the whole window only while it cannot yet tell where the product lies
         span = s.span if isinstance(s.span, float) else min(20.0 * rbw, nearest)
         averages = s.averages if isinstance(s.averages, int) else 1
         setup = AnalyzerSetup(center_hz=freq_hz, span_hz=span, rbw_hz=rbw, attenuation_db=att,

@@ -20,6 +20,14 @@ optional; the values shown are the defaults)::
     combiner_imbalance = "0 dB"  # extra loss of the combiner's rf2 input over its rf input
     # e.g. lo = { loss = "1.5 dB", at = "2 GHz" }: 1.5 dB at 2 GHz, growing as sqrt(f)
 
+    [references]                 # the 10 MHz references (errors in ppm; 0: perfect)
+    house = "0 ppm"              # the house standard at every cabled reference input
+    crystal = { rf = "0 ppm" }   # each instrument's own crystal (rf, rf2, lo, sa)
+    ref_in = { rf = "house", rf2 = "house", lo = "house", sa = "house" }
+    # what each reference input is cabled to: "house" or another role's 10 MHz output; a
+    # role left out has nothing there (set to external, it reports FREQuency unlocked).
+    # An instrument runs on its crystal until set to ROSC:SOUR EXT.
+
     [sources]
     level_error = true           # the level error of the simulated sources:
     level_ripple = "0.15 dB"     #   versus frequency (a smooth ripple), peak
@@ -92,6 +100,7 @@ from __future__ import annotations
 import itertools
 import math
 import os
+from collections.abc import Callable
 from dataclasses import dataclass, replace
 from pathlib import Path
 from types import TracebackType
@@ -103,7 +112,7 @@ from pydantic_core import PydanticCustomError
 
 from sweeprig.clock import Clock, VirtualClock
 from sweeprig.errors import InputError
-from sweeprig.formats.fields import Frozen, StrictBool, quantity
+from sweeprig.formats.fields import Frozen, Ppm, StrictBool, quantity
 from sweeprig.formats.loading import Document, display_path, load_document, validate
 from sweeprig.sim.analyzer_display import DEFAULT_PHASE_NOISE, AnalyzerParams
 from sweeprig.sim.faults import FaultPlan, FaultSpec
@@ -363,6 +372,63 @@ class DutSpec(Frozen):
     leakage_delay: Annotated[Time, Field(ge=0.0)] = 1.5e-9
 
 
+#: Instruments with a 10 MHz reference that moves a product (sources and the analyzer).
+REFERENCE_ROLES = ("rf", "rf2", "lo", "sa")
+
+
+class ReferencesSpec(Frozen):
+    """The bench's 10 MHz references: each instrument's own crystal error, the house
+    standard's error, and what each instrument's reference input is cabled to."""
+
+    house: Ppm = 0.0
+    crystal: dict[Literal["rf", "rf2", "lo", "sa"], Ppm] = Field(default_factory=dict)
+    ref_in: dict[Literal["rf", "rf2", "lo", "sa"], str] = Field(
+        default_factory=lambda: {r: "house" for r in REFERENCE_ROLES})
+
+    @field_validator("ref_in")
+    @classmethod
+    def _known_feeds(cls, ref_in: dict[str, str]) -> dict[str, str]:
+        for role, feed in ref_in.items():
+            if (feed != "house" and feed not in REFERENCE_ROLES) or feed == role:
+                raise PydanticCustomError(
+                    "semantic", "{what}",
+                    {"what": f"the reference input of {role!r} is cabled to {feed!r}",
+                     "fix": 'write "house" (the bench\'s 10 MHz standard) or another role: '
+                     + ", ".join(r for r in REFERENCE_ROLES if r != role)})
+        return ref_in
+
+    def oscillators(self) -> dict[str, Any]:
+        """A :class:`~sweeprig.sim.instruments.reference.ReferenceOscillator` per role, each
+        reference input fed from the house standard or another role's 10 MHz output."""
+        from sweeprig.sim.instruments.reference import ReferenceOscillator
+
+        out: dict[str, ReferenceOscillator] = {}
+
+        def feed(role: str) -> Callable[[], float | None]:
+            source = self.ref_in.get(role)
+            if source is None:
+                return lambda: None
+            if source == "house":
+                return lambda: float(self.house)
+            # another instrument's 10 MHz output: the reference that one runs on (a
+            # chain back to the same role would be a loop of cables; it reads as unlocked)
+            return lambda: out[source].error_ppm() if not _loops(self.ref_in, role) else None
+
+        for role in REFERENCE_ROLES:
+            out[role] = ReferenceOscillator(float(self.crystal.get(role, 0.0)), feed(role))
+        return out
+
+
+def _loops(ref_in: dict[str, str], start: str) -> bool:
+    seen, role = {start}, ref_in.get(start)
+    while role is not None and role != "house":
+        if role in seen:
+            return True
+        seen.add(role)
+        role = ref_in.get(role)
+    return False
+
+
 class SimBenchDescription(Frozen):
     """A whole sim-bench description file (see the module docstring)."""
 
@@ -377,6 +443,7 @@ class SimBenchDescription(Frozen):
     dut: DutSpec = DutSpec()
     noise_source: NoiseSourceSpec | None = None
     interferers: tuple[InterfererSpec, ...] = ()
+    references: ReferencesSpec = ReferencesSpec()
     faults: tuple[FaultSpec, ...] = ()
 
     @field_validator("faults")
@@ -550,11 +617,12 @@ def build_sim_instruments(
                    else no_level_error_db)
     linearity = desc.sources.level_linearity if desc.sources.level_error else 0.0
     harmonics = desc.sources.harmonics
+    oscillators = desc.references.oscillators()
     sources = {
         role: SignalSource(clock, f"SG6-1000{k + 1}", level_error_db=level_error,
                            harmonics_dbc=harmonics,
                            spurious=[(s.offset, s.level) for s in desc.sources.spurious],
-                           level_linearity_db=linearity)
+                           level_linearity_db=linearity, reference=oscillators[role])
         for k, role in enumerate(("rf", "rf2", "lo"))
     }
     supply = DcSupply(clock, load=world.supply_current_a)
@@ -563,7 +631,7 @@ def build_sim_instruments(
                              probe_tau_s=desc.chamber.probe_lag, drift_tau_s=desc.chamber.drift)
     switch = RfSwitch(clock)
     analyzer = SpectrumAnalyzer(clock, world.analyzer_input, params=desc.analyzer_params(),
-                                seed=desc.seed)
+                                seed=desc.seed, reference=oscillators["sa"])
     meter = PowerMeter(clock, sense=world.sensed_power_dbm, seed=desc.seed + 1,
                        cal_factor_error_db=desc.power_meter.cal_factor_error,
                        relative_noise=desc.power_meter.noise,

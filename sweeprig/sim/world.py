@@ -517,7 +517,7 @@ class SimWorld:
         spurious = getattr(source, "spurious", ()) if source is not None else ()
         if source is None or not source.output_on or not spurious:
             return []
-        freq = float(source.freq_hz)
+        freq = float(getattr(source, "output_freq_hz", source.freq_hz))
         path = self._path(role)
         out = []
         for offset_hz, dbc in spurious:
@@ -615,7 +615,8 @@ class SimWorld:
         source = self._sources.get(role)
         if source is None or not source.output_on:
             return None
-        freq = float(source.freq_hz)
+        # what the source really makes: its setting moved by its reference's error
+        freq = float(getattr(source, "output_freq_hz", source.freq_hz))
         loss = sum(c.at(freq) for c in path)
         harmonics = tuple(
             float(h) - (sum(c.at((n + 2) * freq) for c in path) - loss)

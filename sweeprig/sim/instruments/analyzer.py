@@ -26,6 +26,7 @@ from sweeprig.sim.analyzer_display import (
     sweep_time_s,
     total_sweep_time_s,
 )
+from sweeprig.sim.instruments.reference import ReferenceOscillator
 from sweeprig.sim.scpi import (
     OPER_SWEEPING,
     Command,
@@ -97,8 +98,10 @@ class SpectrumAnalyzer(ScpiInstrument):
         params: AnalyzerParams | None = None,
         seed: int = 1,
         serial: str = "SA13-0001",
+        reference: ReferenceOscillator | None = None,
     ) -> None:
         super().__init__(clock, Identity(MAKER, MODEL, serial, "1.0"))
+        self.reference = reference or ReferenceOscillator()
         self.input_spectrum = input_spectrum
         self.params = params or AnalyzerParams()
         self.rng = np.random.default_rng(seed)
@@ -139,13 +142,25 @@ class SpectrumAnalyzer(ScpiInstrument):
         """Take a sweep at the present settings and input (no time passes)."""
         with self.lock:
             settings = self.sweep_settings()
-            self._last = simulate_sweep(self.input_spectrum(), settings, self.params, self.rng)
+            self._last = simulate_sweep(self._seen_spectrum(), settings, self.params, self.rng)
             self._last_settings = settings
             self._last_time_s = self.clock.now()
             return self._last
 
+    def _seen_spectrum(self) -> InputSpectrum:
+        """The input as this analyzer's reference shows it: a line at f reads at
+        f / (1 + ppm·1e-6) (its frequencies are counted in its own reference's units)."""
+        spectrum = self.input_spectrum()
+        error = self.reference.error_ppm()
+        if not error:
+            return spectrum
+        scale = 1.0 / (1.0 + 1e-6 * error)
+        return InputSpectrum(lines=tuple((f * scale, p) for f, p in spectrum.lines),
+                             noise_dbm_per_hz=spectrum.noise_dbm_per_hz,
+                             wideband_noise_dbm=spectrum.wideband_noise_dbm)
+
     def questionable_condition(self) -> int:
-        bits = 0
+        bits = self.reference.questionable_bits()
         if self._last is not None:
             if self._last.overload:
                 bits |= QUES_OVERLOAD
@@ -213,6 +228,7 @@ class SpectrumAnalyzer(ScpiInstrument):
                     choices=("ASCii", "REAL,32")))
         add(Setting("byte_order", "FORMat:BORDer", "enum", default="NORMal",
                     choices=("NORMal", "SWAPped")))
+        self.reference.install(self, "[SENSe]:ROSCillator:SOURce")
         self.add_command("[SENSe]:SWEep:TIME", query=self._sweep_time_query)
         self.add_command("INITiate[:IMMediate]", write=self._initiate)
         # Marker X: a write handler that also switches the marker on (registered after the

@@ -13,6 +13,7 @@ import math
 from collections.abc import Callable, Sequence
 
 from sweeprig.clock import Clock
+from sweeprig.sim.instruments.reference import ReferenceOscillator
 from sweeprig.sim.scpi import Identity, ScpiInstrument, Setting
 
 FREQ_MIN_HZ = 9e3
@@ -72,8 +73,11 @@ class SignalSource(ScpiInstrument):
         harmonics_dbc: Sequence[float] = (-35.0, -45.0),
         spurious: Sequence[tuple[float, float]] = (),
         level_linearity_db: float = 0.0,
+        reference: ReferenceOscillator | None = None,
     ) -> None:
         super().__init__(clock, Identity("Tarnwick Labs", "TW-SG6", serial, "1.0"))
+        self.reference = reference or ReferenceOscillator()
+        self.reference.install(self, "[SOURce]:ROSCillator:SOURce")
         self.level_error_db = level_error_db
         self.level_linearity_db = float(level_linearity_db)
         self._harmonics_dbc = tuple(float(h) for h in harmonics_dbc)
@@ -98,6 +102,15 @@ class SignalSource(ScpiInstrument):
     def freq_hz(self) -> float:
         """CW frequency setting, Hz."""
         return float(self.value("freq_hz"))
+
+    @property
+    def output_freq_hz(self) -> float:
+        """Frequency actually at the output, Hz: the setting moved by the error of the
+        reference the source runs on (:mod:`sweeprig.sim.instruments.reference`)."""
+        return self.freq_hz * (1.0 + 1e-6 * self.reference.error_ppm())
+
+    def questionable_condition(self) -> int:
+        return self.reference.questionable_bits()
 
     @property
     def power_dbm(self) -> float:
