@@ -14,7 +14,16 @@ from collections.abc import Callable
 from pathlib import Path
 from typing import Annotated, Any, Literal
 
-from pydantic import BeforeValidator, Discriminator, Field, Tag, ValidationError, WithJsonSchema
+from pydantic import (
+    BeforeValidator,
+    Discriminator,
+    Field,
+    Tag,
+    ValidationError,
+    ValidationInfo,
+    WithJsonSchema,
+    field_validator,
+)
 from pydantic_core import PydanticCustomError
 
 from sweeprig.errors import InputError, UnitError
@@ -185,6 +194,17 @@ class About(Frozen):
     tags: tuple[str, ...] = Field((), description="free tags for finding runs later")
 
 
+#: The range each expected figure of ``[part]`` may take, dB: wider than any mixer's (common
+#: practice, no source); beyond it the value is a typing slip, not a part.
+PART_DB_RANGE: dict[str, tuple[float, float]] = {
+    "expected_gain": (-100.0, 100.0),
+    "expected_lo_if_isolation": (-100.0, 200.0),
+    "expected_lo_rf_isolation": (-100.0, 200.0),
+    "expected_rf_if_isolation": (-100.0, 200.0),
+    "expected_noise_figure": (0.0, 100.0),
+}
+
+
 class Part(Frozen):
     """The part under test and what it is expected to do (for predictions and auto settings)."""
 
@@ -213,6 +233,20 @@ class Part(Frozen):
         None, description="the simulated part that --sim serves for this sequence: a shipped "
         "part name (sweeprig/sim/parts) or a part file, relative to this sequence file. Unset: "
         "the simulated bench's own part")
+
+    @field_validator("expected_gain", "expected_lo_if_isolation", "expected_lo_rf_isolation",
+                     "expected_rf_if_isolation", "expected_noise_figure")
+    @classmethod
+    def _plausible_db(cls, value: float | None, info: ValidationInfo) -> float | None:
+        """A part's expected figures within what any mixer can have (the planner computes
+        levels from them; a typing slip of 2034611 dB would overflow its sums)."""
+        low, high = PART_DB_RANGE[str(info.field_name)]
+        if value is not None and not low <= value <= high:
+            raise PydanticCustomError(
+                "semantic", "{what}",
+                {"what": f"{value:g} dB is outside {low:g} dB to {high:g} dB",
+                 "fix": "give the part's expected figure in dB, e.g. \"12 dB\""})
+        return value
 
 
 class Mixing(Frozen):

@@ -150,7 +150,9 @@ class NoisePlan:
 
 
 def _db_sum(*levels_db: float) -> float:
-    return 10.0 * math.log10(sum(10.0 ** (x / 10.0) for x in levels_db))
+    """The power sum of levels in dB, taken relative to the largest (no overflow)."""
+    top = max(levels_db)
+    return top + 10.0 * math.log10(sum(10.0 ** ((x - top) / 10.0) for x in levels_db))
 
 
 def plan_noise_attenuation(
