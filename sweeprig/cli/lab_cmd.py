@@ -14,7 +14,7 @@ from typing import Annotated
 
 import typer
 
-from sweeprig.cli.common import fail
+from sweeprig.cli.common import DbOption, database_url, fail
 from sweeprig.errors import InputError, SweeprigError
 
 app = typer.Typer(
@@ -23,25 +23,6 @@ app = typer.Typer(
     add_completion=False,
     pretty_exceptions_enable=False,
 )
-
-DbOption = Annotated[str | None, typer.Option(
-    "--db", envvar="SWEEPRIG_DB", show_envvar=True, show_default=False,
-    help="lab database URL, postgresql://USER@HOST:PORT/DBNAME (password in PGPASSWORD or "
-    "~/.pgpass, never in a file)")]
-
-
-def database_url(db: str | None) -> str:
-    """The lab database URL, or an :class:`InputError` saying how to give one."""
-    from sweeprig.store.postgres import is_database_url, redact_url
-
-    if not db:
-        raise InputError("no lab database given", where="--db",
-                         fix="give --db postgresql://USER@HOST:PORT/DBNAME or set SWEEPRIG_DB")
-    if not is_database_url(db):
-        raise InputError(f"{redact_url(db)!r} is not a PostgreSQL URL", where="--db",
-                         fix="give a URL such as postgresql://USER@HOST:5432/DBNAME")
-    return db
-
 
 @app.command("init")
 def init_command(db: DbOption = None) -> None:
@@ -302,7 +283,8 @@ def lot_command(
 
         where = _filter(part, lot, None, bench, None, since, until)
         with PostgresRunStore(database_url(db), create=False) as store:
-            report = lot_report(store, where)
+            report = lot_report(store, where, on_reduce=lambda run_id: typer.echo(
+                f"run {run_id} has no figures kept with it: reducing it (once)"))
         path = write_lot_report(report, out)
     except SweeprigError as exc:
         raise fail(exc) from None

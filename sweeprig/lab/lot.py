@@ -1,11 +1,13 @@
 """Lab views: the runs of every bench (with filters) and the lot report.
 
-The lot report reduces each unit's run with the same analysis as ``sweeprig report``
-(:func:`sweeprig.analysis.reduce.reduce_run`), then, per figure and set of conditions,
-summarises the units (:mod:`sweeprig.analysis.lot_stats`): mean, standard deviation, min/max,
-"typ", Cpk against the sequence's spec limits, outlier units, and a box plot of the units
-with the limits drawn. A figure a unit's run flagged as suspect (:data:`SUSPECT_FLAGS`) is
-left out of the statistics and counted, so one bad reading never becomes the lot's "typ".
+The lot report takes each unit's figures as the same analysis as ``sweeprig report``
+(:func:`sweeprig.analysis.reduce.reduce_run`) gave them when the run finished (kept with the
+run, :mod:`sweeprig.lab.figures`; a run without them is reduced once), then, per figure and
+set of conditions, summarises the units (:mod:`sweeprig.analysis.lot_stats`): mean, standard
+deviation, min/max, "typ", Cpk against the sequence's spec limits, outlier units, and a box
+plot of the units with the limits drawn. A figure a unit's run flagged as suspect
+(:data:`SUSPECT_FLAGS`) is left out of the statistics and counted, so one bad reading never
+becomes the lot's "typ".
 One unit counts once: its latest complete run.
 """
 
@@ -14,7 +16,7 @@ from __future__ import annotations
 import base64
 import html
 import json
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from datetime import UTC, datetime
 from pathlib import Path
@@ -96,10 +98,14 @@ def _fmt_condition(key: str, value: Any) -> str:
     return f"{value:g}" if isinstance(value, float) else str(value)
 
 
-def lot_report(store: SqlRunStoreCore, where: RunFilter) -> LotReport:
-    """Gather the lot ``where`` selects (its latest complete run per unit) and summarise it."""
-    from sweeprig.analysis.figures import SUSPECT_FLAGS
-    from sweeprig.analysis.reduce import reduce_run
+def lot_report(store: SqlRunStoreCore, where: RunFilter, *,
+               on_reduce: Callable[[int], None] | None = None) -> LotReport:
+    """Gather the lot ``where`` selects (its latest complete run per unit) and summarise it.
+
+    Each run's figures are those kept with it when it finished (:mod:`sweeprig.lab.figures`);
+    a run without them is reduced now (``on_reduce(run_id)`` is told first) and they are kept.
+    """
+    from sweeprig.lab.figures import figures_of_runs
 
     runs = lab_runs(store, RunFilter(**{**where.__dict__, "state": "complete"}))
     latest: dict[str, RunSummary] = {}
@@ -112,17 +118,14 @@ def lot_report(store: SqlRunStoreCore, where: RunFilter) -> LotReport:
     if len(parts) > 1:
         raise InputError(f"the runs selected are of several parts ({', '.join(sorted(parts))})",
                          where="lab lot", fix="give --part")
+    figures = figures_of_runs(store, [run.id for run in latest.values()], on_reduce=on_reduce)
     groups: dict[tuple[str, str, tuple[tuple[str, Any], ...]], dict[str, Any]] = {}
     for serial, run in sorted(latest.items()):
-        reduced = reduce_run(store, run.id)  # type: ignore[arg-type]
-        for fig in reduced.figures:
-            if fig.bound is not None:
-                continue
-            key = (fig.name, fig.unit, tuple(sorted(fig.conditions.items())))
+        for fig in figures[run.id]:
+            key = (fig.name, fig.unit, fig.conditions)
             entry = groups.setdefault(key, {"units": [], "values": [], "suspect": [],
-                                            "limits": [lim for lim in reduced.limits
-                                                       if lim.applies_to(fig)]})
-            if set(fig.flags) & set(SUSPECT_FLAGS) or not fig.is_number:
+                                            "lsl": fig.lsl, "usl": fig.usl})
+            if fig.suspect or fig.value is None:
                 entry["suspect"].append(serial)
                 continue
             entry["units"].append(serial)
@@ -131,10 +134,9 @@ def lot_report(store: SqlRunStoreCore, where: RunFilter) -> LotReport:
     for (name, unit, conditions), entry in sorted(groups.items(), key=lambda kv: kv[0][:2]):
         if not entry["values"]:
             continue
-        lsl = max((lim.min for lim in entry["limits"] if lim.min is not None), default=None)
-        usl = min((lim.max for lim in entry["limits"] if lim.max is not None), default=None)
         rows.append(LotRow(name, unit, conditions,
-                           lot_statistic(entry["units"], entry["values"], lsl=lsl, usl=usl),
+                           lot_statistic(entry["units"], entry["values"], lsl=entry["lsl"],
+                                         usl=entry["usl"]),
                            tuple(entry["suspect"])))
     return LotReport(parts.pop(), where.lot, tuple((s, r.id) for s, r in sorted(latest.items())),
                      tuple(rows))

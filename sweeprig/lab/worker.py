@@ -320,6 +320,7 @@ class BenchWorker:
         except SweeprigError as exc:  # refused before any output was enabled
             return self._refuse(lab_id, exc.message())
         if outcome.status == "complete":
+            self._keep_figures(outcome.run_id)
             self.queue._set(lab_id, state="done", message=None, run_id=outcome.run_id)
             self.say(f"queued run {lab_id}: run {outcome.run_id} complete "
                      f"({outcome.points_done} points)")
@@ -330,6 +331,22 @@ class BenchWorker:
         if outcome.store_error is not None:
             raise StoreError(outcome.store_error, where=self.queue.where)
         return "interrupted"
+
+    def _keep_figures(self, run_id: int) -> None:
+        """Reduce the finished run once and keep its figures with it, for the lot report (a
+        failure here is said and left: the lot report reduces the run itself)."""
+        from sweeprig.analysis.reduce import reduce_run
+        from sweeprig.lab.figures import keep_figures
+
+        try:
+            kept = keep_figures(self.queue.store, run_id,
+                                reduce_run(self.queue.store, run_id))  # type: ignore[arg-type]
+        except SweeprigError as exc:
+            self.say(f"run {run_id}: figures not kept ({exc.what}); the lot report will "
+                     "reduce it")
+            return
+        if not kept:
+            self.say(f"run {run_id}: figures not kept; the lot report will reduce it")
 
     def _adopt(self, lab_id: int) -> int | None:
         """The run a killed worker recorded for ``lab_id`` before it could say so (found by

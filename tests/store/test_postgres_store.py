@@ -31,6 +31,14 @@ def test_a_newer_schema_is_refused_and_an_older_one_upgraded(pg_url):
                      (str(SCHEMA_VERSION + 1),))
     with pytest.raises(StoreError, match=f"schema version {SCHEMA_VERSION + 1}.*reads up to"):
         PostgresRunStore(pg_url)
+    with psycopg.connect(pg_url, autocommit=True) as conn:  # a version-3 lab store
+        conn.execute("DROP TABLE run_figures")
+        conn.execute("UPDATE store_meta SET setting = '3' WHERE name = 'schema_version'")
+    with PostgresRunStore(pg_url) as store:
+        assert store.schema_version == SCHEMA_VERSION
+        run_id = store.create_run(sequence_path="s.toml", sequence_text="")
+        store.save_figures(run_id, "lot-figures 1", "[]")
+        assert store.stored_figures([run_id]) == {run_id: ("lot-figures 1", "[]")}
     with psycopg.connect(pg_url, autocommit=True) as conn:
         conn.execute("UPDATE store_meta SET setting = '2' WHERE name = 'schema_version'")
     with pytest.raises(StoreError, match="older than any lab store"):
