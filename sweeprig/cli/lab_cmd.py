@@ -207,8 +207,34 @@ def worker_command(
         raise fail(exc) from None
     typer.echo(f"done: {len(summary.done)}, refused: {len(summary.failed)}, "
                f"interrupted: {len(summary.interrupted)}")
-    if summary.idle_reason:
+    if once:  # a script asked for one pass: what was refused, or could not be served, fails it
+        problem = _once_problem(worker, summary)
+        if problem is not None:
+            raise fail(problem)
+    elif summary.idle_reason:
         typer.echo(summary.idle_reason)
+
+
+def _once_problem(worker, summary) -> InputError | None:  # type: ignore[no-untyped-def]
+    """Why one pass of a worker (``--once``) did not serve what was queued, or None: runs it
+    refused (files changed since submission, a sequence its bench cannot run), else queued
+    runs none of which its bench can serve."""
+    from sweeprig.lab.queue import LabQueue
+
+    if summary.failed:
+        with LabQueue(worker.url) as queue:  # the worker's own is closed
+            why = "; ".join(f"queued run {lab_id}: {queue.get(lab_id).message}"
+                            for lab_id in summary.failed)
+        return InputError(f"{len(summary.failed)} queued run(s) refused: {why}",
+                          where=f"bench {worker.name}",
+                          fix="submit them again (`sweeprig lab submit`) once the files are "
+                          "as they should be; see `sweeprig lab queue --all`")
+    if summary.idle_reason and not summary.done and summary.idle_reason != "the queue is empty":
+        return InputError(summary.idle_reason, where=f"bench {worker.name}",
+                          fix="those runs wait for a bench that can serve them (see `sweeprig "
+                          "check SEQUENCE --bench BENCH` for why this one cannot); nothing "
+                          "was taken from the queue")
+    return None
 
 
 def _filter(part: str | None, lot: str | None, serial: str | None, bench: str | None,
