@@ -243,8 +243,29 @@ class PostgresRunStore(SqlRunStoreCore):
             raise StoreError("this database holds no sweeprig run store", where=self.where,
                              fix="check the database name, or create the store first "
                              "(`sweeprig lab init`)")
+        # The schema lock is a session lock taken before the transaction, not inside it: a
+        # transaction that waited for the lock inside itself was seen to miss the tables the
+        # holder had just created (its catalog view predates the wait) and to create them
+        # again (a clash on store_meta); a transaction begun once the lock is held sees them.
+        self._schema_lock(True)
+        try:
+            self._create_or_migrate()
+        finally:
+            self._schema_lock(False)
+
+    def _schema_lock(self, take: bool) -> None:
+        """Take (wait for) or free the session lock under which the schema is changed."""
+        import psycopg
+
+        with self._lock:
+            try:
+                self._conn.execute("SELECT pg_advisory_lock(%s, 0)" if take else
+                                   "SELECT pg_advisory_unlock(%s, 0)", (SCHEMA_LOCK_SPACE,))
+            except psycopg.Error as exc:
+                raise self._error(exc, "creating the run store") from None
+
+    def _create_or_migrate(self) -> None:
         with self._transaction("creating the run store") as conn:
-            conn.execute("SELECT pg_advisory_xact_lock(?, 0)", (SCHEMA_LOCK_SPACE,))
             version = self._version_in(conn)
             if version is None:
                 for statement in schema_statements(self.dialect):
