@@ -19,6 +19,7 @@ def private_lock_dir(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> Path:
     *IDN? alike, so two test sessions on one machine would otherwise hold each other's."""
     folder = tmp_path / "locks"
     monkeypatch.setenv("SWEEPRIG_LOCK_DIR", str(folder))
+    monkeypatch.delenv("SWEEPRIG_DB", raising=False)  # a lab database only where a test says
     return folder
 
 

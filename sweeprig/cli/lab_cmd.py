@@ -14,7 +14,7 @@ from typing import Annotated
 
 import typer
 
-from sweeprig.cli.common import fail
+from sweeprig.cli.common import DbOption, database_url, fail
 from sweeprig.errors import InputError, SweeprigError
 
 app = typer.Typer(
@@ -23,25 +23,6 @@ app = typer.Typer(
     add_completion=False,
     pretty_exceptions_enable=False,
 )
-
-DbOption = Annotated[str | None, typer.Option(
-    "--db", envvar="SWEEPRIG_DB", show_envvar=True, show_default=False,
-    help="lab database URL, postgresql://USER@HOST:PORT/DBNAME (password in PGPASSWORD or "
-    "~/.pgpass, never in a file)")]
-
-
-def database_url(db: str | None) -> str:
-    """The lab database URL, or an :class:`InputError` saying how to give one."""
-    from sweeprig.store.postgres import is_database_url, redact_url
-
-    if not db:
-        raise InputError("no lab database given", where="--db",
-                         fix="give --db postgresql://USER@HOST:PORT/DBNAME or set SWEEPRIG_DB")
-    if not is_database_url(db):
-        raise InputError(f"{redact_url(db)!r} is not a PostgreSQL URL", where="--db",
-                         fix="give a URL such as postgresql://USER@HOST:5432/DBNAME")
-    return db
-
 
 @app.command("init")
 def init_command(db: DbOption = None) -> None:
@@ -226,8 +207,34 @@ def worker_command(
         raise fail(exc) from None
     typer.echo(f"done: {len(summary.done)}, refused: {len(summary.failed)}, "
                f"interrupted: {len(summary.interrupted)}")
-    if summary.idle_reason:
+    if once:  # a script asked for one pass: what was refused, or could not be served, fails it
+        problem = _once_problem(worker, summary)
+        if problem is not None:
+            raise fail(problem)
+    elif summary.idle_reason:
         typer.echo(summary.idle_reason)
+
+
+def _once_problem(worker, summary) -> InputError | None:  # type: ignore[no-untyped-def]
+    """Why one pass of a worker (``--once``) did not serve what was queued, or None: runs it
+    refused (files changed since submission, a sequence its bench cannot run), else queued
+    runs none of which its bench can serve."""
+    from sweeprig.lab.queue import LabQueue
+
+    if summary.failed:
+        with LabQueue(worker.url) as queue:  # the worker's own is closed
+            why = "; ".join(f"queued run {lab_id}: {queue.get(lab_id).message}"
+                            for lab_id in summary.failed)
+        return InputError(f"{len(summary.failed)} queued run(s) refused: {why}",
+                          where=f"bench {worker.name}",
+                          fix="submit them again (`sweeprig lab submit`) once the files are "
+                          "as they should be; see `sweeprig lab queue --all`")
+    if summary.idle_reason and not summary.done and summary.idle_reason != "the queue is empty":
+        return InputError(summary.idle_reason, where=f"bench {worker.name}",
+                          fix="those runs wait for a bench that can serve them (see `sweeprig "
+                          "check SEQUENCE --bench BENCH` for why this one cannot); nothing "
+                          "was taken from the queue")
+    return None
 
 
 def _filter(part: str | None, lot: str | None, serial: str | None, bench: str | None,
@@ -302,7 +309,8 @@ def lot_command(
 
         where = _filter(part, lot, None, bench, None, since, until)
         with PostgresRunStore(database_url(db), create=False) as store:
-            report = lot_report(store, where)
+            report = lot_report(store, where, on_reduce=lambda run_id: typer.echo(
+                f"run {run_id} has no figures kept with it: reducing it (once)"))
         path = write_lot_report(report, out)
     except SweeprigError as exc:
         raise fail(exc) from None

@@ -9,7 +9,7 @@ import typer
 from rich.console import Console
 from rich.text import Text
 
-from sweeprig.cli.common import fail
+from sweeprig.cli.common import DbOption, chosen_store, fail
 from sweeprig.errors import (
     VERDICT_FAILED_EXIT_CODE,
     VERDICT_INCONCLUSIVE_EXIT_CODE,
@@ -54,17 +54,19 @@ def report_command(
         help=f"exit with code {VERDICT_FAILED_EXIT_CODE} when the verdict is FAIL and "
         f"{VERDICT_INCONCLUSIVE_EXIT_CODE} when it is INCONCLUSIVE (0 only for PASS; for "
         "scripts and CI)")] = False,
+    db: DbOption = None,
 ) -> None:
     from sweeprig.analysis.reduce import reduce_run
     from sweeprig.report import write_report
     from sweeprig.report.terminal import print_summary
-    from sweeprig.store.sqlite import SqliteRunStore
+    from sweeprig.store.open import open_run_store
 
     console = Console(highlight=False)
-    folder = out if out is not None else run_folder(store, run_id)
     try:
-        with SqliteRunStore(store, create=False) as db:
-            run = reduce_run(db, run_id)
+        target = chosen_store(store, db)
+        folder = out if out is not None else run_folder(target, run_id)
+        with open_run_store(target, create=False) as opened:
+            run = reduce_run(opened, run_id)
         files = write_report(run, folder)
     except SweeprigError as exc:
         raise fail(exc) from None

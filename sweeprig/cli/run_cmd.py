@@ -13,10 +13,12 @@ from rich.console import Console
 from rich.text import Text
 
 from sweeprig.cli.common import (
+    DbOption,
     QuietOption,
     RunStoreOption,
     SimBenchOption,
     SimOption,
+    chosen_store,
     fail,
     print_error,
 )
@@ -32,6 +34,7 @@ from sweeprig.errors import (
 )
 from sweeprig.signals import RunStopped, active
 from sweeprig.store.base import DEFAULT_STORE_PATH
+from sweeprig.store.open import store_label
 from sweeprig.store.paths import run_folder
 from sweeprig.text import escape_controls, one_line
 
@@ -101,12 +104,17 @@ def run_command(
     accept_calibration: Annotated[bool, typer.Option(
         "--accept-calibration", help="use the calibration even when it has expired or was "
         "made with other instruments (recorded as a warning with the run)")] = False,
+    db: DbOption = None,
 ) -> None:
     from sweeprig.transport.backend import visa_library_override
 
+    try:
+        target = chosen_store(store, db)
+    except SweeprigError as exc:
+        raise fail(exc) from None
     with visa_library_override(visa_library):
         _drive(lambda started, point_done, waiting: run_sequence(
-            sequence, bench, sim=sim, sim_description=sim_bench, store_path=store,
+            sequence, bench, sim=sim, sim_description=sim_bench, store_path=target,
             realtime=realtime, bus_log=bus_log, on_start=started, on_point=point_done,
             on_wait=waiting, calibration=calibration, accept_calibration=accept_calibration,
         ), quiet=quiet, report=report, fail_on_verdict=fail_on_verdict, notify_option=notify)
@@ -222,14 +230,16 @@ def _report(console: Console, outcome: RunOutcome) -> _Made | None:
     A problem here is reported but does not change how the run ended.
     """
     from sweeprig.analysis.reduce import reduce_run
+    from sweeprig.lab.figures import keep_figures
     from sweeprig.report import write_report
     from sweeprig.report.terminal import print_summary
-    from sweeprig.store.sqlite import SqliteRunStore
 
     folder = run_folder(outcome.store_path, outcome.run_id)
     try:
-        with SqliteRunStore(outcome.store_path, create=False) as db:
+        with _open_store(outcome.store_path) as db:
             figures = reduce_run(db, outcome.run_id)
+            if outcome.status == "complete":  # kept for a lot report: never reduced again
+                keep_figures(db, outcome.run_id, figures)
         files = write_report(figures, folder)
     except SweeprigError as exc:
         print_error(exc, prefix="report not written: ")
@@ -247,7 +257,6 @@ def _announce(console: Console, outcome: RunOutcome, made: _Made | None,
     Neither changes how the run ended: a problem is printed and recorded as an event.
     """
     from sweeprig.engine.notify import RunEnd, notification_env, run_notification, write_summary
-    from sweeprig.store.sqlite import SqliteRunStore
 
     end = RunEnd(
         run_id=outcome.run_id, status=outcome.status, reason=outcome.reason,
@@ -266,9 +275,16 @@ def _announce(console: Console, outcome: RunOutcome, made: _Made | None,
     result = run_notification(notify, notification_env(end, summary))
     console.print(Text(f"  {one_line(result.message)}",
                        style="" if result.ok else "yellow"))
-    with suppress(SweeprigError), SqliteRunStore(outcome.store_path, create=False) as db:
+    with suppress(SweeprigError), _open_store(outcome.store_path) as db:
         db.log_event(outcome.run_id, "info" if result.ok else "warning", "notify",
                      result.message)
+
+
+def _open_store(target: Any) -> Any:
+    """The run's store again (its SQLite file or the lab database), to read back."""
+    from sweeprig.store.open import open_run_store
+
+    return open_run_store(target, create=False)
 
 
 def _eta_text(fields: Mapping[str, Any] | None) -> str | None:
@@ -307,7 +323,7 @@ def _print_outcome(console: Console, outcome: RunOutcome) -> None:
         (f"run {outcome.run_id} {outcome.status}", colour),
         f": {escape_controls(reason)}" if reason else ""))
     stored = (f"{outcome.points_done} of {outcome.points_total}" if outcome.points_read_back
-              else f"unknown: the store at {outcome.store_path} cannot be read back")
+              else f"unknown: the store at {store_label(outcome.store_path)} cannot be read back")
     console.print(
         f"  points stored: {stored}; "
         f"bench time {format_duration(outcome.sim_elapsed_s)} "
@@ -321,7 +337,8 @@ def _print_outcome(console: Console, outcome: RunOutcome) -> None:
                 + ". " + SAFE_CAUTION))
         else:
             print_unsafe(console, outcome.safe)
-    console.print(Text(f"  results: {one_line(outcome.store_path)} (run {outcome.run_id}); "
+    console.print(Text(f"  results: {one_line(store_label(outcome.store_path))} "
+                       f"(run {outcome.run_id}); "
                        f"log: {one_line(outcome.log_path)}"))
     for step in outcome.next_steps:
         console.print(Text(f"  next: {one_line(step)}", style="bold"))
@@ -372,13 +389,18 @@ def resume_command(
         "--visa-library", help="VISA backend or library path for this command only; wins over "
         "$SWEEPRIG_VISA_LIBRARY and the bench file's named backend (@py or @ivi)",
         show_default=False)] = None,
+    db: DbOption = None,
 ) -> None:
     from sweeprig.engine.session import resume_run
     from sweeprig.transport.backend import visa_library_override
 
+    try:
+        target = chosen_store(store, db)
+    except SweeprigError as exc:
+        raise fail(exc) from None
     with visa_library_override(visa_library):
         _drive(lambda started, point_done, waiting: resume_run(
-            run_id, store_path=store, accept_changes=accept_changes, sim_description=sim_bench,
+            run_id, store_path=target, accept_changes=accept_changes, sim_description=sim_bench,
             bus_log=bus_log, on_start=started, on_point=point_done, on_wait=waiting,
         ), quiet=quiet, report=report, notify_option=notify)
 

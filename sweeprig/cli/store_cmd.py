@@ -18,7 +18,7 @@ from rich.markup import escape as markup_escape
 from rich.table import Table
 from rich.text import Text
 
-from sweeprig.cli.common import fail
+from sweeprig.cli.common import DbOption, chosen_store, fail
 from sweeprig.errors import StoreError, SweeprigError
 from sweeprig.store.base import DEFAULT_STORE_PATH, RunInfo, utc_now
 from sweeprig.text import escape_controls, one_line
@@ -50,10 +50,11 @@ class ExportFormat(StrEnum):
 _fail = fail
 
 
-def _open(path: Path) -> SqliteRunStore:
-    from sweeprig.store.sqlite import SqliteRunStore
+def _open(path: Path | str) -> SqliteRunStore:
+    """The run store: an SQLite file, or the lab database for a ``postgresql://`` URL."""
+    from sweeprig.store.open import open_run_store
 
-    return SqliteRunStore(path, create=False)
+    return open_run_store(path, create=False)  # type: ignore[return-value]
 
 
 def _when(moment: datetime | None) -> str:
@@ -85,21 +86,24 @@ _STATUS_STYLE = {
 }
 
 
-def runs_command(store: StoreOption = DEFAULT_STORE_PATH) -> None:
+def runs_command(store: StoreOption = DEFAULT_STORE_PATH, db: DbOption = None) -> None:
     """List the stored runs, newest first.
 
     Example: sweeprig runs --store results/sweeprig.sqlite
     """
+    from sweeprig.store.open import store_label
+
     try:
-        with _open(store) as db:
-            summaries = db.runs()
+        target = chosen_store(store, db)
+        with _open(target) as opened:
+            summaries = opened.runs()
     except SweeprigError as exc:
         raise _fail(exc) from None
     console = Console(highlight=False)
     if not summaries:
-        console.print(f"no runs in {store}")
+        console.print(f"no runs in {store_label(target)}")
         return
-    console.print(runs_table(summaries, str(store), console.width, console))
+    console.print(runs_table(summaries, store_label(target), console.width, console))
 
 
 def runs_table(summaries: list[Any], store: str, width: int, console: Console) -> Table:
@@ -139,6 +143,7 @@ def status_command(
     events: Annotated[
         int, typer.Option("--events", min=0, help="How many of the latest events to show.")
     ] = 15,
+    db: DbOption = None,
 ) -> None:
     """Show one run: status, progress, last point, instruments and latest events.
 
@@ -149,18 +154,20 @@ def status_command(
     from sweeprig.engine.next_steps import next_steps
 
     try:
-        with _open(store) as db:
-            info = db.run(run_id)
-            points = db.points_frame(run_id)
-            run_events = db.events(run_id)
+        target = chosen_store(store, db)
+        with _open(target) as opened:
+            info = opened.run(run_id)
+            points = opened.points_frame(run_id)
+            run_events = opened.events(run_id)
     except SweeprigError as exc:
         raise _fail(exc) from None
     _print_status(info, points, run_events[-events:] if events else [], len(run_events))
-    steps = next_steps(info.status, info.id, store, bench_path=info.bench_path,
+    steps = next_steps(info.status, info.id, target, bench_path=info.bench_path,
                        simulated=info.simulated)
     for step in steps:
         Console(highlight=False).print(Text(f"  next: {one_line(step)}", style="bold"))
-    if steps and any(step.startswith("sweeprig resume") for step in steps):
+    if isinstance(target, Path) and steps and any(step.startswith("sweeprig resume")
+                                                  for step in steps):
         _print_night_resume(Path(store), info)
 
 

@@ -18,6 +18,8 @@ from __future__ import annotations
 import shlex
 from pathlib import Path
 
+from sweeprig.store.postgres import is_database_url, public_url
+
 #: Statuses after which the run can be continued with ``resume``.
 RESUMABLE: frozenset[str] = frozenset({"aborted", "interrupted", "unsafe", "planned"})
 #: Statuses after which a real bench may still be live.
@@ -38,7 +40,10 @@ def next_steps(
     if status in MAYBE_LIVE and not simulated and bench_path is not None:
         steps.append(f"sweeprig safe --bench {shlex.quote(str(bench_path))}")
     if status in RESUMABLE:
-        resume = f"sweeprig resume {run_id} --store {shlex.quote(str(store_path))}"
+        if isinstance(store_path, str) and is_database_url(store_path):  # never its password
+            resume = f"sweeprig resume {run_id} --db {shlex.quote(public_url(store_path))}"
+        else:
+            resume = f"sweeprig resume {run_id} --store {shlex.quote(str(store_path))}"
         if simulated and sim_description is not None:
             resume += f" --sim-bench {shlex.quote(str(sim_description))}"
         steps.append(resume)

@@ -32,6 +32,7 @@ from datetime import UTC, datetime
 from pathlib import Path
 
 from sweeprig.errors import InputError
+from sweeprig.store.open import StoreTarget, store_label
 
 NOTIFY_ENV = "SWEEPRIG_NOTIFY"
 NOTIFY_TIMEOUT_S = 60.0
@@ -48,7 +49,7 @@ class RunEnd:
     reason: str | None
     points_done: int
     points_total: int
-    store_path: Path
+    store_path: StoreTarget
     verdict: str | None
     report_html: Path | None
     figures_json: Path | None
@@ -84,7 +85,7 @@ def write_summary(end: RunEnd, folder: Path) -> Path:
         "points": {"done": end.points_done, "total": end.points_total},
         "verdict": end.verdict,
         "limit_checks": dict(end.limit_counts) if end.limit_counts is not None else None,
-        "store": str(end.store_path),
+        "store": store_label(end.store_path),  # a lab database: its URL without password
         "report": None if end.report_html is None else str(end.report_html),
         "figures": None if end.figures_json is None else str(end.figures_json),
         "next": list(end.next_steps),
@@ -104,7 +105,7 @@ def notification_env(end: RunEnd, summary: Path | None) -> dict[str, str]:
         "SWEEPRIG_VERDICT": end.verdict or "",
         "SWEEPRIG_REPORT": "" if end.report_html is None else str(end.report_html),
         "SWEEPRIG_SUMMARY": "" if summary is None else str(summary),
-        "SWEEPRIG_STORE": str(end.store_path),
+        "SWEEPRIG_STORE": store_label(end.store_path),
         "SWEEPRIG_NEXT": end.next_steps[0] if end.next_steps else "",
     }
 

@@ -755,7 +755,7 @@ def _write_failure_note(store_path: Path | str, log_dir: Path, run_id: int, stat
     text = (
         f"sweeprig run {run_id}: {status}\n"
         f"when: {datetime.now(UTC).isoformat(timespec='seconds')}\n"
-        f"store: {store_path}\n"
+        f"store: {store_label(store_path)}\n"
         f"reason: {reason}\n"
     )
     if error.message().replace("RUN_ID", str(run_id)) not in (reason or ""):

@@ -17,6 +17,9 @@
   ``running``, the run's lock free): their jobs go back to ``bench-<name>``, so only this
   bench resumes them (the part is physically there); resume measures only the points not yet
   stored, so each point is stored exactly once;
+* when its bench has a run that a killed worker cut short, first puts the bench in its safe
+  state and reads it back (as ``sweeprig safe``): the instruments kept their last settings,
+  RF on included; a bench not proven safe stops the worker before anything is resumed;
 * survives a database restart: the failed run is aborted (the engine makes the bench safe),
   the worker reconnects and resumes it.
 """
@@ -30,9 +33,9 @@ from contextlib import suppress
 from dataclasses import dataclass, field, replace
 from datetime import timedelta
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-from sweeprig.errors import InputError, StoreError, SweeprigError
+from sweeprig.errors import BenchUnsafeError, InputError, StoreError, SweeprigError
 from sweeprig.lab.queue import (
     MAX_ATTEMPTS,
     LabQueue,
@@ -42,6 +45,10 @@ from sweeprig.lab.queue import (
 )
 from sweeprig.store.base import utc_now
 from sweeprig.store.postgres import connect, redact_url
+
+if TYPE_CHECKING:
+    from sweeprig.engine.safe import SafeOutcome
+
 
 BENCH_LOCK_SPACE = 0x535A
 """First key of a bench's advisory lock (second: CRC-32 of the bench name, as int4)."""
@@ -92,6 +99,8 @@ class BenchWorker:
         self._worker_id: int | None = None
         self._last_beat = 0.0
         self._verdicts: dict[str, str | None] = {}  # queue -> None (can serve) or why not
+        self.safe_at_start: SafeOutcome | None = None
+        """The safe state read back at start, after a run on this bench was cut short."""
 
     # -- locks and heartbeat ----------------------------------------------------------------
 
@@ -132,6 +141,7 @@ class BenchWorker:
         taken = 0
         try:
             self._hold_bench()
+            self.safe_at_start = self._make_safe_if_cut_short()
             self._worker_id = int(self.queue.run(self.queue.jobs.register_worker()))
             while self.max_runs is None or taken < self.max_runs:
                 try:
@@ -203,6 +213,55 @@ class BenchWorker:
                 "left in the queue for other benches: " + "; ".join(reasons))
 
     # -- resuming what a killed worker left -------------------------------------------------
+
+    def _cut_short(self) -> list[LabRun]:
+        """This bench's runs left ``running`` by a worker that is gone (their run lock free)."""
+        rows = self.queue.store._read(
+            "SELECT id FROM lab_runs WHERE bench = ? AND state = 'running'", (self.name,))
+        entries = [self.queue.get(int(lab_id)) for (lab_id,) in rows]
+        return [e for e in entries
+                if e.run_id is None or not self.queue.store._lock_held(e.run_id)]
+
+    def _make_safe_if_cut_short(self) -> SafeOutcome | None:
+        """Before anything else, when a worker of this bench died mid-run (SIGKILL, power
+        cut): its instruments kept their last settings, RF on included. Put the bench in its
+        safe state and read it back (:func:`sweeprig.engine.safe.make_bench_safe`, as
+        ``sweeprig safe``); a bench not proven safe stops the worker (nothing resumed on it).
+        None when no run was cut short (or the bench is the in-process simulated one)."""
+        from sweeprig.engine.safe import make_bench_safe
+        from sweeprig.formats.bench import load_bench
+        from sweeprig.instruments import available_profiles
+
+        cut = self._cut_short()
+        if not cut:
+            return None
+        bench = load_bench(self.bench_path, known_profiles=available_profiles())
+        if bench.is_simulated():
+            return None
+        runs = ", ".join(f"queued run {e.id}" + (f" (run {e.run_id})" if e.run_id else "")
+                         for e in cut)
+        self.say(f"bench {self.name}: {runs} was cut short; putting the bench in its safe state "
+                 "before resuming")
+        outcome = make_bench_safe(bench, log=lambda _m: None)
+        for entry in cut:
+            if entry.run_id is not None:
+                with suppress(StoreError):
+                    self.queue.store.log_event(
+                        entry.run_id, "info" if outcome.ok else "error", "safe",
+                        "bench made safe by its worker before resuming" if outcome.ok else
+                        "the bench's worker could not prove the bench safe",
+                        outcome.details())
+        if not outcome.ok:
+            failed = "; ".join(message for _name, message in outcome.failed)
+            raise BenchUnsafeError(
+                f"bench {self.name} is not proven safe after a run was cut short: {failed}",
+                where=str(self.bench_path),
+                fix="make it safe by hand (see each instrument above), check it, then start "
+                "the worker again; RF power, supplies and chambers can hurt, and your lab's "
+                "rules come first")
+        self.say(f"bench {self.name}: safe state read back: "
+                 + (", ".join(outcome.done) or "nothing to do"))
+        return outcome
 
     def _requeue_dead(self) -> None:
         """This bench's runs left ``running`` by a worker that died go back to this bench's
@@ -320,6 +379,7 @@ class BenchWorker:
         except SweeprigError as exc:  # refused before any output was enabled
             return self._refuse(lab_id, exc.message())
         if outcome.status == "complete":
+            self._keep_figures(outcome.run_id)
             self.queue._set(lab_id, state="done", message=None, run_id=outcome.run_id)
             self.say(f"queued run {lab_id}: run {outcome.run_id} complete "
                      f"({outcome.points_done} points)")
@@ -330,6 +390,22 @@ class BenchWorker:
         if outcome.store_error is not None:
             raise StoreError(outcome.store_error, where=self.queue.where)
         return "interrupted"
+
+    def _keep_figures(self, run_id: int) -> None:
+        """Reduce the finished run once and keep its figures with it, for the lot report (a
+        failure here is said and left: the lot report reduces the run itself)."""
+        from sweeprig.analysis.reduce import reduce_run
+        from sweeprig.lab.figures import keep_figures
+
+        try:
+            kept = keep_figures(self.queue.store, run_id,
+                                reduce_run(self.queue.store, run_id))  # type: ignore[arg-type]
+        except SweeprigError as exc:
+            self.say(f"run {run_id}: figures not kept ({exc.what}); the lot report will "
+                     "reduce it")
+            return
+        if not kept:
+            self.say(f"run {run_id}: figures not kept; the lot report will reduce it")
 
     def _adopt(self, lab_id: int) -> int | None:
         """The run a killed worker recorded for ``lab_id`` before it could say so (found by

@@ -21,6 +21,7 @@ _CHILD_TABLES: tuple[tuple[str, str], ...] = (
     ("readings", "point_index, reading_no"),
     ("events", "id"),
     ("bus_log", "id"),
+    ("run_figures", "run_id"),
 )
 """Tables holding a run's rows, in an order that keeps foreign keys satisfied, with the
 order to copy their rows in (event and bus-log ids are the target's own)."""
@@ -62,6 +63,8 @@ def copy_run(source: SqlRunStoreCore, target: SqlRunStoreCore, run_id: int) -> C
             conn, f"INSERT INTO runs ({', '.join(run_columns)}) "
             f"VALUES ({', '.join('?' * len(run_columns))})", row)
         for table, order in _CHILD_TABLES:
+            if table == "run_figures" and not source._has_table(table):
+                continue  # an older store, read as it is: the figures are reduced later
             columns = [c for c in _columns(source, table) if c not in ("id", "run_id")]
             rows = source._read(f"SELECT {', '.join(columns)} FROM {table} WHERE run_id = ? "
                                 f"ORDER BY {order}", (run_id,))

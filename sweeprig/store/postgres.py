@@ -33,8 +33,8 @@ from sweeprig.errors import StoreError
 from sweeprig.signals import deferred
 from sweeprig.store.base import HEARTBEAT_STALE_S, PointRecord, ReadingRecord, utc_now
 from sweeprig.store.sql import (
-    INSERT_POINT_SQL,
-    INSERT_READING_SQL,
+    POINT_COLUMNS,
+    READING_COLUMNS,
     SCHEMA_VERSION,
     SqlRunStoreCore,
     newer_schema_error,
@@ -80,6 +80,23 @@ def redact_url(url: str) -> str:
     return urlunsplit((parts.scheme, netloc, parts.path, query, ""))
 
 
+def public_url(url: str) -> str:
+    """``url`` with no password at all (none in the user part, no ``password=`` query
+    value): a URL that may be shown and used again, the password coming from ``PGPASSWORD``
+    or ``~/.pgpass``."""
+    try:
+        parts = urlsplit(url)
+    except ValueError:
+        return "<database URL>"
+    netloc = parts.netloc
+    if "@" in netloc:
+        userinfo, host = netloc.rsplit("@", 1)
+        netloc = f"{userinfo.split(':', 1)[0]}@{host}"
+    query = "&".join(q for q in parts.query.split("&")
+                     if q and not q.lower().startswith("password="))
+    return urlunsplit((parts.scheme, netloc, parts.path, query, ""))
+
+
 def scrub(text: str, url: str) -> str:
     """``text`` (a server or driver message) with the URL's password removed wherever it
     appears."""
@@ -117,24 +134,41 @@ def _first_line(exc: BaseException) -> str:
     return text.splitlines()[0] if text else type(exc).__name__
 
 
+POINT_ROW_COLUMNS: tuple[str, ...] = ("run_id", "point_index", *POINT_COLUMNS,
+                                      "wall_start_utc", "wall_end_utc", "extra_json")
+"""The columns of :data:`INSERT_POINT_SQL`'s values, in order."""
+READING_ROW_COLUMNS: tuple[str, ...] = ("run_id", "point_index", "reading_no", *READING_COLUMNS,
+                                        "overload", "attenuation_check", "extra_json")
+"""The columns of :data:`INSERT_READING_SQL`'s values, in order."""
+
+POINT_SQL = (
+    "WITH h AS (UPDATE runs SET heartbeat_utc = %s, activity_json = %s WHERE id = %s), "
+    f"p AS (INSERT INTO points ({', '.join(POINT_ROW_COLUMNS)}) "
+    f"SELECT {', '.join(POINT_ROW_COLUMNS)} FROM json_populate_record(NULL::points, %s::json)), "
+    f"r AS (INSERT INTO readings ({', '.join(READING_ROW_COLUMNS)}) "
+    f"SELECT {', '.join(READING_ROW_COLUMNS)} "
+    "FROM json_populate_recordset(NULL::readings, %s::json)) SELECT 1")
+"""One point as one statement of data-modifying ``WITH`` parts (heartbeat, point row,
+readings): one round trip, one commit, all of it or nothing. The rows travel as two JSON
+parameters that the server turns into typed rows (``json_populate_record(set)``, PostgreSQL
+manual, "JSON Functions"): the statement's text is the same for every point, whatever its
+number of readings, so the server plans it once per connection (psycopg prepares it after a
+few uses) and the client converts five parameters, not a hundred."""
+
+
 def point_statement(run_id: int, point_row: Sequence[object],
                     reading_rows: Sequence[Sequence[object]],
                     activity: Mapping[str, Any] | None) -> tuple[str, list[object]]:
-    """One point as one parameterised statement (see :meth:`PostgresRunStore.write_point`):
-    the shared INSERTs, their ``VALUES`` repeated once per reading."""
+    """One point as :data:`POINT_SQL` and its five parameters (the rows are the shared
+    store's, :data:`INSERT_POINT_SQL` and :data:`INSERT_READING_SQL` column for column)."""
     import json
 
-    heartbeat = (utc_now().isoformat(timespec="microseconds"),
-                 None if activity is None else json.dumps(dict(activity), default=str), run_id)
-    parts = ["h AS (UPDATE runs SET heartbeat_utc = ?, activity_json = ? WHERE id = ?)",
-             f"p AS ({INSERT_POINT_SQL})"]
-    params: list[object] = [*heartbeat, *point_row]
-    if reading_rows:
-        head, values = INSERT_READING_SQL.split(" VALUES ", 1)
-        parts.append(f"r AS ({head} VALUES {', '.join([values] * len(reading_rows))})")
-        for row in reading_rows:
-            params += row
-    return to_pyformat("WITH " + ", ".join(parts) + " SELECT 1"), params
+    point = json.dumps(dict(zip(POINT_ROW_COLUMNS, point_row, strict=True)))
+    readings = json.dumps([dict(zip(READING_ROW_COLUMNS, row, strict=True))
+                           for row in reading_rows])
+    return POINT_SQL, [utc_now().isoformat(timespec="microseconds"),
+                       None if activity is None else json.dumps(dict(activity), default=str),
+                       run_id, point, readings]
 
 
 class _Conn:
@@ -209,8 +243,29 @@ class PostgresRunStore(SqlRunStoreCore):
             raise StoreError("this database holds no sweeprig run store", where=self.where,
                              fix="check the database name, or create the store first "
                              "(`sweeprig lab init`)")
+        # The schema lock is a session lock taken before the transaction, not inside it: a
+        # transaction that waited for the lock inside itself was seen to miss the tables the
+        # holder had just created (its catalog view predates the wait) and to create them
+        # again (a clash on store_meta); a transaction begun once the lock is held sees them.
+        self._schema_lock(True)
+        try:
+            self._create_or_migrate()
+        finally:
+            self._schema_lock(False)
+
+    def _schema_lock(self, take: bool) -> None:
+        """Take (wait for) or free the session lock under which the schema is changed."""
+        import psycopg
+
+        with self._lock:
+            try:
+                self._conn.execute("SELECT pg_advisory_lock(%s, 0)" if take else
+                                   "SELECT pg_advisory_unlock(%s, 0)", (SCHEMA_LOCK_SPACE,))
+            except psycopg.Error as exc:
+                raise self._error(exc, "creating the run store") from None
+
+    def _create_or_migrate(self) -> None:
         with self._transaction("creating the run store") as conn:
-            conn.execute("SELECT pg_advisory_xact_lock(?, 0)", (SCHEMA_LOCK_SPACE,))
             version = self._version_in(conn)
             if version is None:
                 for statement in schema_statements(self.dialect):
@@ -231,15 +286,19 @@ class PostgresRunStore(SqlRunStoreCore):
         return int(row[0]) if row else 0
 
     def _migrate(self, conn: _Conn, version: int) -> None:
-        """Bring a store of an older version to :data:`SCHEMA_VERSION` (the first lab stores
-        were created at version 3: there is nothing older to upgrade; a step per version
-        is added here as the schema grows, as in the SQLite store)."""
+        """Bring a store of an older version to :data:`SCHEMA_VERSION`, inside the caller's
+        transaction (the first lab stores were created at version 3: nothing older is
+        upgraded). 3 → 4: the ``run_figures`` table."""
         if version < 3:
             raise StoreError(
                 f"the lab database has schema version {version}, older than any lab store",
                 where=self.where,
                 fix="copy its runs into a new database with `sweeprig lab import`",
             )
+        if version < 4:
+            create = next(s for s in schema_statements(self.dialect)
+                          if "TABLE IF NOT EXISTS run_figures (" in s)
+            conn.execute(create)
         conn.execute("UPDATE store_meta SET setting = ? WHERE name = 'schema_version'",
                      (str(SCHEMA_VERSION),))
 
@@ -297,9 +356,9 @@ class PostgresRunStore(SqlRunStoreCore):
         *, activity: Mapping[str, Any] | None = None,
     ) -> None:
         """The shared ``write_point``'s three statements (heartbeat, point row, readings:
-        :data:`INSERT_POINT_SQL`, :data:`INSERT_READING_SQL`) as one statement of
-        data-modifying ``WITH`` parts, so a point is one round trip and one commit (one
-        statement is one transaction: all of it or nothing). The checks the SQLite store
+        :data:`INSERT_POINT_SQL`, :data:`INSERT_READING_SQL`) as one statement,
+        :data:`POINT_SQL`, so a point is one round trip and one commit (one statement is one
+        transaction: all of it or nothing). The checks the SQLite store
         makes by querying first are the server's constraints here: a point already stored
         breaks the primary key, a missing run the foreign key; either rolls the point back."""
         import psycopg

@@ -49,10 +49,11 @@ from sweeprig.store.base import (
 if TYPE_CHECKING:
     import pandas as pd
 
-SCHEMA_VERSION = 3
+SCHEMA_VERSION = 4
 """2: run status ``unsafe`` allowed; 3: table ``run_files`` (included fragments and the merged
-sequence) and ``runs.activity_json`` (what a live run is waiting for). An older store is
-migrated when opened (when it can be written)."""
+sequence) and ``runs.activity_json`` (what a live run is waiting for); 4: table
+``run_figures`` (a finished run's reduced figures, kept so a lot report need not reduce
+every unit again). An older store is migrated when opened (when it can be written)."""
 
 _STATUS_CHECK = ", ".join(f"'{s}'" for s in RUN_STATUSES)
 
@@ -165,6 +166,12 @@ SCHEMA: tuple[str, ...] = (
         sent TEXT NOT NULL,
         received TEXT,
         duration_s DOUBLE PRECISION NOT NULL
+    )""",
+    """CREATE TABLE IF NOT EXISTS run_figures (
+        run_id INTEGER PRIMARY KEY REFERENCES runs (id) ON DELETE CASCADE,
+        reduced_utc TEXT NOT NULL,
+        reducer TEXT NOT NULL,
+        figures_json TEXT NOT NULL
     )""",
     "CREATE INDEX IF NOT EXISTS events_by_run ON events (run_id, id)",
     "CREATE INDEX IF NOT EXISTS bus_log_by_run ON bus_log (run_id, id)",
@@ -372,6 +379,35 @@ class SqlRunStoreCore:
                 raise
             return ()  # an older store opened read-only: no files were recorded
         return tuple(RunFile(*row) for row in rows)
+
+    def save_figures(self, run_id: int, reducer: str, figures_json: str) -> None:
+        """Keep run ``run_id``'s reduced figures (``figures_json``, made by ``reducer``: what
+        made them and in which format, so a later sweeprig can tell they are not its own);
+        figures kept before for the run are replaced."""
+        with self._transaction("keeping the run's figures") as conn:
+            self._require_run(conn, run_id)
+            conn.execute(
+                "INSERT INTO run_figures (run_id, reduced_utc, reducer, figures_json) "
+                "VALUES (?, ?, ?, ?) ON CONFLICT (run_id) DO UPDATE SET "
+                "reduced_utc = excluded.reduced_utc, reducer = excluded.reducer, "
+                "figures_json = excluded.figures_json",
+                (run_id, _iso(utc_now()), reducer, figures_json))
+
+    def stored_figures(self, run_ids: Sequence[int]) -> dict[int, tuple[str, str]]:
+        """The kept figures of those of ``run_ids`` that have them: ``{run_id: (reducer,
+        figures_json)}`` (empty for a store without the table, opened read-only)."""
+        ids = [int(r) for r in run_ids]
+        if not ids:
+            return {}
+        try:
+            rows = self._read(
+                "SELECT run_id, reducer, figures_json FROM run_figures WHERE run_id IN "
+                f"({', '.join('?' * len(ids))})", ids)
+        except StoreError:
+            if self._has_table("run_figures"):
+                raise
+            return {}
+        return {int(r[0]): (str(r[1]), str(r[2])) for r in rows}
 
     def record_instruments(self, run_id: int, instruments: Sequence[InstrumentRecord]) -> None:
         """Record the run's instruments; a role recorded before is replaced."""

@@ -196,6 +196,8 @@ class SqliteRunStore(SqlRunStoreCore):
             self._migrate_to_v2()
         if version in (1, 2):
             self._migrate_to_v3()
+        if version in (1, 2, 3):
+            self._migrate_to_v4()
 
     def _migrate_to_v3(self) -> None:
         """Add the ``run_files`` table (runs recorded before it simply have no files) and the
@@ -208,6 +210,17 @@ class SqliteRunStore(SqlRunStoreCore):
             conn.execute(create)
             if "activity_json" not in {r[1] for r in conn.execute("PRAGMA table_info(runs)")}:
                 conn.execute("ALTER TABLE runs ADD COLUMN activity_json TEXT")
+            conn.execute("UPDATE store_meta SET setting = '3' WHERE name = 'schema_version' "
+                         "AND CAST(setting AS INTEGER) < 3")
+
+    def _migrate_to_v4(self) -> None:
+        """Add the ``run_figures`` table (runs finished before it have no kept figures: they
+        are reduced when first asked for). A store that cannot be written is read as it is."""
+        create = next(s for s in SCHEMA if "TABLE IF NOT EXISTS run_figures (" in s)
+        with self._migration() as conn:
+            if conn is None:
+                return
+            conn.execute(create)
             conn.execute("UPDATE store_meta SET setting = ? WHERE name = 'schema_version' "
                          "AND CAST(setting AS INTEGER) < ?", (str(SCHEMA_VERSION), SCHEMA_VERSION))
 

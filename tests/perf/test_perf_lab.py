@@ -85,7 +85,9 @@ def test_print_point_writes_per_second_with_8_writers(durable_server) -> None:
 def test_print_lot_report_time_for_40_units(durable_server, tmp_path) -> None:
     import psycopg
 
+    from sweeprig.analysis.reduce import reduce_run
     from sweeprig.engine.session import run_sequence, shipped_sequences_dir
+    from sweeprig.lab.figures import keep_figures
     from sweeprig.lab.lot import RunFilter, lot_report, write_lot_report
     from sweeprig.store.copy import copy_run
     from sweeprig.store.sqlite import SqliteRunStore
@@ -94,6 +96,10 @@ def test_print_lot_report_time_for_40_units(durable_server, tmp_path) -> None:
     bench_store = tmp_path / "bench.sqlite"
     outcome = run_sequence(demo, sim=True, store_path=bench_store)
     assert outcome.status == "complete", outcome.reason
+    with SqliteRunStore(bench_store, create=False) as src:  # as the worker does at the end
+        t_reduce = time.perf_counter()
+        assert keep_figures(src, outcome.run_id, reduce_run(src, outcome.run_id))
+        t_reduce = time.perf_counter() - t_reduce
     url = durable_server.create_database("perf_lot")
     with SqliteRunStore(bench_store, create=False) as src, PostgresRunStore(url) as dst:
         for unit in range(40):
@@ -101,15 +107,17 @@ def test_print_lot_report_time_for_40_units(durable_server, tmp_path) -> None:
             with psycopg.connect(url, autocommit=True) as conn:  # one unit of lot L1 each
                 conn.execute("UPDATE runs SET serial = %s, tags_json = %s WHERE id = %s",
                              (f"U{unit:02d}", '["lot:L1"]', copied.target_id))
+    reduced: list[int] = []
     t0 = time.perf_counter()
     with PostgresRunStore(url) as store:
-        report = lot_report(store, RunFilter(lot="L1"))
+        report = lot_report(store, RunFilter(lot="L1"), on_reduce=reduced.append)
     write_lot_report(report, tmp_path / "lot")
     elapsed = time.perf_counter() - t0
     print(f"\nlot report of {len(report.units)} units × {demo.name} "
-          f"({outcome.points_done} points each, {len(report.rows)} figure rows): "
-          f"{elapsed:.1f} s (target ≤ 20 s)")
-    assert len(report.units) == 40
+          f"({outcome.points_done} points each, {len(report.rows)} figure rows), figures kept "
+          f"with each run when it finished: {elapsed:.1f} s (target ≤ 20 s); reducing one "
+          f"unit's run takes {t_reduce:.1f} s, done once when it finishes")
+    assert len(report.units) == 40 and reduced == []
     assert elapsed <= 20
 
 

@@ -15,7 +15,9 @@ What each file must produce is in ``tests/corpus/expected.toml``. Entry points p
 * profiles: ``load_profile(path)``;
 * parts: ``load_part(path)`` and ``sweeprig run --sim --sim-bench`` of a description naming it;
 * simbench: ``load_sim_bench_description(path)`` and ``sweeprig run --sim --sim-bench FILE``;
-* golden (golden-figures files of the sequence tests): ``load_golden(path)``.
+* golden (golden-figures files of the sequence tests): ``load_golden(path)``;
+* lab: scenarios on the lab database (a URL, a server state, a queue), see
+  :mod:`tests.robustness.lab_cases`.
 
 "Nothing touched" is checked on the served bench (no message received by any instrument, every
 setting as before, every output off) and, for runs that would start their own simulated bench
@@ -60,13 +62,14 @@ from sweeprig.instruments.profile import load_profile
 from sweeprig.seqtest.golden import load_golden
 from sweeprig.sim.bench import SimBench, load_sim_bench_description
 from sweeprig.sim.mixer import load_part
+from tests.robustness.lab_cases import SECRET, run_lab_case
 
 CORPUS = Path(__file__).resolve().parents[1] / "corpus"
 SUPPORT = CORPUS / "_support"
 EXPECTED: dict[str, dict[str, Any]] = tomllib.loads(
     (CORPUS / "expected.toml").read_text(encoding="utf-8"))
 KINDS = ("sequences", "benches", "pathloss", "touchstone", "profiles", "parts", "simbench",
-         "calibrations", "nights", "golden")
+         "calibrations", "nights", "golden", "lab")
 ENTRIES: dict[str, tuple[str, ...]] = {
     "sequences": ("check", "run_bench", "run_sim"),
     "benches": ("check", "run"),
@@ -78,6 +81,7 @@ ENTRIES: dict[str, tuple[str, ...]] = {
     "calibrations": ("run_sim",),
     "nights": ("run_sim",),
     "golden": ("load_golden",),
+    "lab": ("lab",),
 }
 QUICK = shipped_sequences_dir() / "demo" / "quick.toml"
 TINY = SUPPORT / "tiny-sequence.toml"
@@ -231,7 +235,8 @@ def test_corpus_file_is_refused_with_a_located_message(
     served_bench: SimBench | None = None
     before: dict[str, Any] | None = None
 
-    if kind in ("sequences", "benches", "pathloss", "touchstone") and entry.startswith("run"):
+    if (kind in ("sequences", "benches", "pathloss", "touchstone") and entry.startswith("run")) \
+            or kind == "lab":
         served_bench = request.getfixturevalue("served")
         before = _snapshot(served_bench)
     if entry in ("run_sim", "run_sim_bench", "calibrate_sim") or (
@@ -265,6 +270,7 @@ def test_corpus_file_is_refused_with_a_located_message(
     assert not missing, f"the message lacks {missing}:\n{message[:2000]}"
     present = [fragment for fragment in spec.get("not_contains", []) if fragment in message]
     assert not present, f"the message holds {present}:\n{message[:2000]}"
+    assert kind != "lab" or SECRET not in message, "the database password was shown"
     assert "fix:" in message, f"the message has no fix:\n{message[:2000]}"
     error = message[max(message.rfind("error: "), 0):]  # plan prints its tables first
     assert len(error) <= MAX_MESSAGE_CHARS, f"a message of {len(error):,} characters"
@@ -279,6 +285,8 @@ def _run_entry(kind: str, entry: str, path: Path, tmp_path: Path,
                request: pytest.FixtureRequest, served_bench: SimBench | None) -> Outcome:
     """Run one entry point of the corpus on ``path`` (see the module docstring)."""
     store = ("--store", tmp_path / "runs.sqlite", "--quiet")
+    if kind == "lab":
+        return run_lab_case(path, tmp_path, request, _cli)
     if kind == "sequences":
         if entry in ("check", "plan"):
             return _cli(entry, path)

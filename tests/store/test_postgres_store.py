@@ -3,6 +3,8 @@ password never shown, copying a bench's SQLite runs in whole."""
 
 from __future__ import annotations
 
+import threading
+
 import psycopg
 import pytest
 from typer.testing import CliRunner
@@ -31,6 +33,14 @@ def test_a_newer_schema_is_refused_and_an_older_one_upgraded(pg_url):
                      (str(SCHEMA_VERSION + 1),))
     with pytest.raises(StoreError, match=f"schema version {SCHEMA_VERSION + 1}.*reads up to"):
         PostgresRunStore(pg_url)
+    with psycopg.connect(pg_url, autocommit=True) as conn:  # a version-3 lab store
+        conn.execute("DROP TABLE run_figures")
+        conn.execute("UPDATE store_meta SET setting = '3' WHERE name = 'schema_version'")
+    with PostgresRunStore(pg_url) as store:
+        assert store.schema_version == SCHEMA_VERSION
+        run_id = store.create_run(sequence_path="s.toml", sequence_text="")
+        store.save_figures(run_id, "lot-figures 1", "[]")
+        assert store.stored_figures([run_id]) == {run_id: ("lot-figures 1", "[]")}
     with psycopg.connect(pg_url, autocommit=True) as conn:
         conn.execute("UPDATE store_meta SET setting = '2' WHERE name = 'schema_version'")
     with pytest.raises(StoreError, match="older than any lab store"):
@@ -91,3 +101,27 @@ def test_the_cli_refuses_a_newer_lab_database_and_takes_nothing(pg_url):
         assert "schema version 99" in result.output and "newer sweeprig" in result.output
     with psycopg.connect(pg_url) as conn:
         assert conn.execute("SELECT to_regclass('lab_runs')").fetchone()[0] is None
+
+
+def test_benches_starting_at_once_create_the_store_once(pg_url):
+    """Several processes opening a new lab database at the same moment (two workers and a
+    submission, as the README's trial does): one creates the tables, the others wait and use
+    them (no clash on the schema version row)."""
+    start = threading.Barrier(6)
+    errors: list[BaseException] = []
+
+    def open_store() -> None:
+        start.wait()
+        try:
+            PostgresRunStore(pg_url).close()
+        except BaseException as exc:
+            errors.append(exc)
+
+    threads = [threading.Thread(target=open_store) for _ in range(6)]
+    for thread in threads:
+        thread.start()
+    for thread in threads:
+        thread.join()
+    assert errors == []
+    with PostgresRunStore(pg_url) as store:
+        assert store.schema_version == SCHEMA_VERSION

@@ -22,6 +22,7 @@ from sweeprig.store import (
     SqliteRunStore,
 )
 from sweeprig.store.runlock import hold_run_lock
+from sweeprig.store.sql import SCHEMA_VERSION
 from sweeprig.store.sqlite import sha256_text
 
 SEQUENCE = 'title = "demo"\n[[study]]\nkind = "gain"\n'
@@ -282,6 +283,7 @@ def _downgrade_to_version_1(path) -> None:
         db.execute("DROP TABLE runs")
         db.execute("ALTER TABLE runs_v1 RENAME TO runs")
         db.execute("DROP TABLE run_files")  # added in version 3
+        db.execute("DROP TABLE run_figures")  # added in version 4
         db.execute("UPDATE store_meta SET setting = '1' WHERE name = 'schema_version'")
         db.execute("COMMIT")
         with pytest.raises(sqlite3.IntegrityError):
@@ -304,7 +306,7 @@ def test_a_version_1_store_is_migrated_and_keeps_its_runs(tmp_path):
     with sqlite3.connect(path) as db:
         version = db.execute(
             "SELECT setting FROM store_meta WHERE name = 'schema_version'").fetchone()
-        assert version == ("3",)
+        assert version == (str(SCHEMA_VERSION),)
         assert db.execute("PRAGMA foreign_key_check").fetchall() == []
     with SqliteRunStore(path, create=False) as db:
         assert db.run_files(run_id) == ()  # recorded before files were kept
@@ -316,6 +318,7 @@ def test_a_version_2_store_gains_the_run_files_table_and_reads_without_it(tmp_pa
         run_id = _run(db)
     with sqlite3.connect(path, isolation_level=None) as db:
         db.execute("DROP TABLE run_files")
+        db.execute("DROP TABLE run_figures")
         db.execute("UPDATE store_meta SET setting = '2' WHERE name = 'schema_version'")
     path.chmod(0o444)
     try:
@@ -330,4 +333,28 @@ def test_a_version_2_store_gains_the_run_files_table_and_reads_without_it(tmp_pa
         assert db.run_files(second) == files
     with sqlite3.connect(path) as db:
         assert db.execute("SELECT setting FROM store_meta WHERE name = 'schema_version'"
-                          ).fetchone() == ("3",)
+                          ).fetchone() == (str(SCHEMA_VERSION),)
+
+
+def test_a_version_3_store_gains_the_run_figures_table_and_reads_without_it(tmp_path):
+    path = tmp_path / "v3.sqlite"
+    with SqliteRunStore(path) as db:
+        run_id = _run(db)
+    with sqlite3.connect(path, isolation_level=None) as db:
+        db.execute("DROP TABLE run_figures")
+        db.execute("UPDATE store_meta SET setting = '3' WHERE name = 'schema_version'")
+    path.chmod(0o444)
+    try:
+        with SqliteRunStore(path, create=False) as db:  # read-only: read as it is
+            assert db.stored_figures([run_id]) == {}
+    finally:
+        path.chmod(0o644)
+    with SqliteRunStore(path, create=False) as db:
+        assert db.stored_figures([run_id]) == {}
+        db.save_figures(run_id, "lot-figures 1", "[]")
+        db.save_figures(run_id, "lot-figures 1", '[{"name": "gain"}]')  # replaced
+        assert db.stored_figures([run_id, 99]) == {run_id: ("lot-figures 1",
+                                                            '[{"name": "gain"}]')}
+    with sqlite3.connect(path) as db:
+        assert db.execute("SELECT setting FROM store_meta WHERE name = 'schema_version'"
+                          ).fetchone() == (str(SCHEMA_VERSION),)
