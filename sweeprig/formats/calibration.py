@@ -140,8 +140,9 @@ class Calibration:
             levels = m.loss[name].level
             if not levels:
                 return name
-            span = f"{levels[0]:g}" if len(levels) == 1 else f"{levels[0]:g} to {levels[-1]:g}"
-            return f"{name} ({len(levels)} levels, {span} dBm)"
+            if len(levels) == 1:
+                return f"{name} (at {levels[0]:g} dBm)"
+            return f"{name} ({len(levels)} levels, {levels[0]:g} to {levels[-1]:g} dBm)"
 
         return (f"calibration {self.path}: made {m.created:%Y-%m-%d %H:%M} UTC at "
                 f"{m.temperature:g} degC, expires {m.expires:%Y-%m-%d %H:%M} UTC; tables "
