@@ -77,3 +77,20 @@ def test_a_level_grid_above_the_sensors_range_is_refused(tmp_path: Path) -> None
                           levels={"lo": [-20.0, 15.0]})
     assert "lo reaches 15 dBm, above 10 dBm" in info.value.what and "--levels" in str(info.value)
     assert not (tmp_path / "cal.toml").exists()
+
+
+def test_check_and_plan_name_the_points_outside_the_calibrated_levels() -> None:
+    from typer.testing import CliRunner
+
+    from sweeprig.cli.main import app
+
+    narrow = (Path(__file__).resolve().parents[1] / "corpus" / "calibrations"
+              / "level-grid-too-narrow.toml")
+    for command in (["check", str(QUICK)], ["plan", str(QUICK)]):
+        result = CliRunner().invoke(app, [*command, "--calibration", str(narrow)])
+        assert result.exit_code == 2, result.output
+        text = " ".join(result.output.split())
+        if command[0] == "check":  # the calibration's status first
+            assert "rf (2 levels, -22 to -20 dBm)" in text
+        assert "1 of 2 point(s) need the rf source outside the calibrated grid" in text
+        assert "point 3 (study 'two-tone'" in text and "at -25 dBm" in text
