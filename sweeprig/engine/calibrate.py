@@ -9,6 +9,16 @@ repeats is the calibration's repeatability. The result is a calibration file
 (:mod:`sweeprig.formats.calibration`) with the instruments' ``*IDN?`` replies, the chamber
 probe's (or the given) temperature and an expiry.
 
+Levels: a source's level error changes with its setting as well as with frequency, so each
+source connection is measured over a grid of levels at the DUT plane as well as over the
+frequencies: by default the levels the sequence gives that source, from the lowest to the
+highest in steps of at most :data:`LEVEL_STEP_DB` (both ends included), or the grid the
+caller gives (``levels``). The table stores, at each frequency and grid level, the loss that
+puts exactly that level at the plane (interpolated between the levels actually read there);
+a run interpolates it in frequency and level and refuses a point outside it. Levels above
+the sensor's comfortable range (:func:`level_cap_dbm`) are not measured: the points that
+need them are refused by the run's pre-flight check, which names them.
+
 Where the bench's switch routes the sensor to the DUT LO input plane (``pm_lo``), the LO
 source is measured there the same way. Where it can put a calibration thru in the part's
 place (``thru``, and ``part`` to put the part back), the output paths are measured too
@@ -33,11 +43,14 @@ Attended calibration (``operator``): where the bench's switch has no route for t
 (``pm_rf``, ``pm_lo``), every source is switched off and the operator is told which cable to
 move, step by step; ``operator`` returns False (end of input) to stop, RF off, nothing written.
 
-Safety: the level at the DUT plane is low (at most −10 dBm, and 10 dB under the part's RF
-rating and the sensor's limit); every source setting goes through the drivers' limit guard;
-on every exit the bench is put in its safe state and read back, RF off. A power meter that
-reads nonsense (NaN, out of its range, a reading far from what the setting and the typed
-loss predict) ends the calibration with a message and nothing written.
+Safety: the level at the DUT plane is low for the output paths (at most −10 dBm, and 10 dB
+under the part's RF rating and the sensor's limit) and, for a source's level grid, within
+the levels the sequence gives that source (already checked against the part's ratings by the
+run's pre-flight) and never above 10 dB under the sensor's limit; every source setting goes
+through the drivers' limit guard; on every exit the bench is put in its safe state and read
+back, RF off. A power meter that reads nonsense (NaN, out of its range, a reading far from
+what the setting and the typed loss predict) ends the calibration with a message and
+nothing written.
 """
 
 from __future__ import annotations
@@ -45,7 +58,7 @@ from __future__ import annotations
 import contextlib
 import dataclasses
 import math
-from collections.abc import Callable
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from datetime import UTC, datetime, timedelta
 from pathlib import Path
@@ -67,6 +80,15 @@ from sweeprig.plan.expand import iter_points
 CAL_LEVEL_MAX_DBM = -10.0
 #: Margin under the part's RF rating and the sensor's maximum input, dB.
 CAL_MARGIN_DB = 10.0
+#: Largest step between the levels of a source's calibration grid, dB: a source's level
+#: error changes smoothly between its attenuator steps, so linear interpolation over 5 dB
+#: leaves well under 0.01 dB there (common practice, no source; give a finer grid with
+#: ``levels`` for a source with steps inside the range).
+LEVEL_STEP_DB = 5.0
+#: Highest level measured at a DUT plane for a source's level grid without a stated sensor
+#: limit, dBm (a common sensor's +20 dBm maximum less :data:`CAL_MARGIN_DB`; common
+#: practice, no source).
+LEVEL_GRID_MAX_DBM = 10.0
 #: A reading further than this from the level the typed loss predicts is refused as nonsense
 #: (a wrong cable, a sensor on another port, a meter not zeroed), dB.
 PLAUSIBLE_DB = 6.0
@@ -98,6 +120,9 @@ class CalibrationResult:
     level_iterations: dict[str, list[int]] = dataclasses.field(default_factory=dict)
     #: Whether the sensor was zeroed by the calibration (read back).
     zeroed: bool = False
+    #: Per source connection, the levels of its grid (dBm at the DUT plane); its entry in
+    #: ``tables`` then holds one row of losses per level.
+    levels: dict[str, list[float]] = dataclasses.field(default_factory=dict)
 
 
 #: The output connection behind each DUT port the analyzer reads.
@@ -135,6 +160,57 @@ def needed_frequencies(sequence: Sequence, bench: Bench) -> dict[str, list[float
     return {k: sorted(v) for k, v in out.items() if v}
 
 
+def needed_levels(sequence: Sequence, bench: Bench) -> dict[str, list[float]]:
+    """Per source connection (``rf``, ``rf2``, ``lo``), the distinct levels (dBm at the DUT
+    plane) the sequence's points give it."""
+    out: dict[str, set[float]] = {c: set() for c in ("rf", "rf2", "lo")}
+    for point in iter_points(sequence, bench):
+        out["rf"].add(round(float(point.rf_power_dbm), 6))
+        out["lo"].add(round(float(point.lo_power_dbm), 6))
+        if point.rf2_power_dbm is not None:
+            out["rf2"].add(round(float(point.rf2_power_dbm), 6))
+    return {k: sorted(v) for k, v in out.items() if v}
+
+
+def level_cap_dbm(bench: Bench) -> float:
+    """The highest level a source's level grid measures at a DUT plane, dBm:
+    :data:`CAL_MARGIN_DB` under the sensor's maximum input (:data:`LEVEL_GRID_MAX_DBM`
+    without one)."""
+    limit = bench.limits.power_meter_max_input
+    return LEVEL_GRID_MAX_DBM if limit is None else float(limit) - CAL_MARGIN_DB
+
+
+def level_grid(needed: list[float], cap_dbm: float,
+               step_db: float = LEVEL_STEP_DB) -> list[float]:
+    """The grid of calibration levels over ``needed`` (dBm): from the lowest to the highest
+    in equal steps of at most ``step_db``, both ends included, none above ``cap_dbm``."""
+    low, high = min(needed), min(max(needed), cap_dbm)
+    if high <= low:
+        return [round(min(low, cap_dbm), 6)]
+    count = math.ceil((high - low) / step_db - 1e-9)
+    return [round(float(v), 6) for v in np.linspace(low, high, count + 1)]
+
+
+def _losses_at_levels(targets: list[float], readings: np.ndarray,
+                      losses: np.ndarray) -> np.ndarray:
+    """Per frequency (columns), the loss that puts exactly each target level at the plane:
+    ``losses[i, j]`` was measured where the plane read ``readings[i, j]``; linear in the
+    reading between them and beyond the ends (a fraction of a dB: the setting's error)."""
+    if len(targets) == 1:
+        return losses.copy()
+    out = np.empty((len(targets), losses.shape[1]))
+    t = np.asarray(targets, dtype=float)
+    for j in range(losses.shape[1]):
+        order = np.argsort(readings[:, j])
+        x, y = readings[order, j], losses[order, j]
+        v = np.interp(t, x, y)
+        low, high = t < x[0], t > x[-1]
+        v[low] = y[0] + (t[low] - x[0]) * (y[1] - y[0]) / (x[1] - x[0])
+        v[high] = y[-1] + (t[high] - x[-1]) * (y[-1] - y[-2]) / (x[-1] - x[-2])
+        out[:, j] = v
+    return out
+
+
 def calibration_level_dbm(bench: Bench) -> float:
     """The level at the DUT plane while calibrating (see the module docstring)."""
     level = CAL_LEVEL_MAX_DBM
@@ -157,14 +233,26 @@ def calibrate_sources(
     sim_description: str | Path | None = None,
     levelling: bool = False,
     operator: Callable[[str], bool] | None = None,
+    levels: Mapping[str, list[float]] | None = None,
 ) -> CalibrationResult:
     """Calibrate the RF source connections of ``sequence`` on the bench and write the
     calibration file ``out`` (see the module docstring). ``sim_description``: the simulated
-    bench's description (a file or a shipped name) when calibrating it. Raises a located
+    bench's description (a file or a shipped name) when calibrating it. ``levels``: per
+    source connection (``rf``, ``rf2``, ``lo``), the grid of levels (dBm at its DUT plane)
+    to measure; a connection not named gets the grid over the sequence's own levels (see
+    the module docstring). Raises a located
     :class:`SweeprigError` for bad input or a nonsense reading (nothing written)."""
     if repeats < 1:
         raise InputError(f"repeats = {repeats}: at least one sweep is needed",
                          where="sweeprig calibrate --repeats", fix="give 2 or more")
+    for connection, grid in (levels or {}).items():
+        if connection not in SOURCE_CONNECTIONS or not grid or \
+                not all(math.isfinite(v) for v in grid):
+            raise InputError(f"the level grid of {connection!r} is empty, holds a value that "
+                             "is not a number, or names no source connection",
+                             where="sweeprig calibrate --levels",
+                             fix='give levels in dBm at the DUT planes, e.g. --levels '
+                             '"-30,-20,-10"')
     sequence = load_sequence(Path(sequence_path))
     if bench_path is None:
         if not sim:
@@ -205,6 +293,21 @@ def calibrate_sources(
         for freq in freqs:
             bench.sensor.cal_factor_db(freq, bench.where(("sensor", "cal_factor")))
     level = calibration_level_dbm(bench)
+    cap = level_cap_dbm(bench)
+    wanted = needed_levels(sequence, bench)
+    grids = {c: level_grid(wanted[c], cap) for c in needs
+             if c in SOURCE_CONNECTIONS and c in wanted}
+    for connection, given in (levels or {}).items():
+        grid_levels = sorted({round(float(v), 6) for v in given})
+        if grid_levels[-1] > cap:
+            raise InputError(
+                f"the level grid of {connection} reaches {grid_levels[-1]:g} dBm, above "
+                f"{cap:g} dBm ({CAL_MARGIN_DB:g} dB under the power meter's maximum input)",
+                where="sweeprig calibrate --levels",
+                fix="give levels no higher than that; points above the grid are refused by "
+                "the run (caution: the sensor's maximum input protects it)")
+        if connection in needs:
+            grids[connection] = grid_levels
     roles = {c: "calibration source" for c in needs if c in SOURCE_CONNECTIONS}
     roles["pm"] = "calibration power meter"
     if outputs:
@@ -242,13 +345,19 @@ def calibrate_sources(
         bench_ops = _Steps(drivers, bench, clock, level, levelling=levelling,
                            operator=operator)
         bench_ops.zero_check([c for c in needs if c in SOURCE_CONNECTIONS])
-        sweeps: dict[str, list[list[float]]] = {c: [] for c in needs}
+        sweeps: dict[str, list[object]] = {c: [] for c in needs}
         for repeat in range(repeats):
             for connection, freqs in needs.items():
                 if connection in SOURCE_CONNECTIONS:
-                    losses = bench_ops.source_sweep(connection, freqs)
-                else:
-                    losses = bench_ops.output_sweep(connection, freqs)
+                    grid = grids[connection]
+                    rows = [bench_ops.source_sweep(connection, freqs, p) for p in grid]
+                    sweeps[connection].append(_losses_at_levels(
+                        grid, np.asarray([r for _l, r in rows]),
+                        np.asarray([loss for loss, _r in rows])).tolist())
+                    on_step(f"sweep {repeat + 1} of {repeats}: {connection}, "
+                            f"{len(freqs)} frequencies × {len(grid)} levels")
+                    continue
+                losses = bench_ops.output_sweep(connection, freqs)
                 sweeps[connection].append(losses)
                 on_step(f"sweep {repeat + 1} of {repeats}: {connection}, {len(freqs)} "
                         "frequencies")
@@ -271,11 +380,11 @@ def calibrate_sources(
     spread: dict[str, float] = {}
     variances: list[float] = []
     for connection, runs in sweeps.items():
-        data = np.asarray(runs, dtype=float)  # repeats × frequencies
+        data = np.asarray(runs, dtype=float)  # repeats × [levels ×] frequencies
         tables[connection] = (needs[connection], data.mean(axis=0).tolist())
         if repeats > 1:
             var = data.var(axis=0, ddof=1)
-            variances += var.tolist()
+            variances += var.ravel().tolist()
             spread[connection] = float(np.sqrt(var.max()))
     repeatability = float(math.sqrt(np.mean(variances))) if variances else None
     now = datetime.now(UTC)
@@ -292,8 +401,11 @@ def calibrate_sources(
                    if operator is not None else "")
                 + (", output paths through a calibration thru by the analyzer against the "
                    "power meter" if any(c in tables for c in PORT_CONNECTION.values()) else "")
+                + ", sources over a grid of levels at the DUT planes"
                 + f", {repeats} sweep(s)"),
-        instruments=idns, tables=tables, repeatability_db=repeatability)
+        instruments=idns, tables=tables, repeatability_db=repeatability,
+        levels={c: (grids[c], tables[c][1]) for c in grids  # type: ignore[misc]
+                if c in tables})
     path = Path(out)
     try:
         path.write_text(text, encoding="utf-8")
@@ -301,7 +413,8 @@ def calibrate_sources(
         raise InputError(f"cannot write the calibration file: {exc.strerror}",
                          where=str(path), fix="choose a writable path") from None
     return CalibrationResult(tables, spread, repeatability, duration, skipped, path, safe,
-                             level_iterations=bench_ops.iterations, zeroed=bench_ops.zeroed)
+                             level_iterations=bench_ops.iterations, zeroed=bench_ops.zeroed,
+                             levels={c: grids[c] for c in grids if c in tables})
 
 
 SOURCE_CONNECTIONS = ("rf", "rf2", "lo")
@@ -423,15 +536,16 @@ class _Steps:
             return reading
         return reading - self.bench.sensor.cal_factor_db(freq)
 
-    def _plane_reading(self, connection: str, freq: float,
-                       reading_at: float) -> tuple[float, float]:
-        """Set ``connection``'s source to put the calibration level at its DUT plane (by
-        the typed loss, or in closed loop) at ``freq``, output on, and read the power meter
-        there: (the source's setting, the reading), dBm."""
+    def _plane_reading(self, connection: str, freq: float, reading_at: float,
+                       level: float | None = None) -> tuple[float, float]:
+        """Set ``connection``'s source to put ``level`` (default: the calibration level) at
+        its DUT plane (by the typed loss, or in closed loop) at ``freq``, output on, and read
+        the power meter there: (the source's setting, the reading), dBm."""
         source = getattr(self.d, connection)
         pm = self.d.pm
         assert pm is not None
-        setting = self.level + self.bench.loss(connection).at(freq)
+        target = self.level if level is None else level
+        setting = target + self.bench.loss(connection).at(freq, target)
         source.set_frequency(freq)
         source.set_power(setting)
         source.set_output(True)
@@ -441,27 +555,27 @@ class _Steps:
         source.check_errors()
         pm.check_errors()
         reading = self._read(reading_at)
-        _check_reading(reading, self.level, connection, freq)
+        _check_reading(reading, target, connection, freq)
         if self.levelling:
-            setting, reading = self._level(connection, freq, setting, reading)
+            setting, reading = self._level(connection, freq, setting, reading, target)
         return setting, reading
 
     def _level(self, connection: str, freq: float, setting: float,
-               reading: float) -> tuple[float, float]:
+               reading: float, target: float) -> tuple[float, float]:
         """Closed-loop levelling: set again by (target − reading) until within
         :data:`LEVEL_TOLERANCE_DB`; never above the bench's (or profile's) source limit."""
         source = getattr(self.d, connection)
         high = source.limits("power")[1]
         count = 1
-        while abs(reading - self.level) > LEVEL_TOLERANCE_DB:
+        while abs(reading - target) > LEVEL_TOLERANCE_DB:
             if count >= LEVEL_MAX_ITERATIONS:
                 raise SweeprigError(
                     f"closed-loop levelling of {connection} at {freq / 1e9:g} GHz did not "
-                    f"reach {self.level:g} dBm within {LEVEL_TOLERANCE_DB:g} dB in "
+                    f"reach {target:g} dBm within {LEVEL_TOLERANCE_DB:g} dB in "
                     f"{LEVEL_MAX_ITERATIONS} settings (last {reading:.3f} dBm); nothing "
                     "was written", where=f"power meter (role pm), {connection}",
                     fix="check the cabling and the sensor, or calibrate without levelling")
-            nxt = setting + (self.level - reading)
+            nxt = setting + (target - reading)
             if high is not None and nxt > high:
                 raise SweeprigError(
                     f"closed-loop levelling of {connection} at {freq / 1e9:g} GHz would set "
@@ -473,22 +587,25 @@ class _Steps:
             source.set_power(setting)
             source.check_errors()
             reading = self._read(freq)
-            _check_reading(reading, self.level, connection, freq)
+            _check_reading(reading, target, connection, freq)
             count += 1
         self.iterations.setdefault(connection, []).append(count)
         return setting, reading
 
-    def source_sweep(self, connection: str, freqs: list[float]) -> list[float]:
-        """The loss of a source connection at each frequency: setting − reading, dB."""
+    def source_sweep(self, connection: str, freqs: list[float],
+                     level: float) -> tuple[list[float], list[float]]:
+        """The loss of a source connection at each frequency, ``level`` aimed at its DUT
+        plane: (setting − reading, dB; the reading, dBm) per frequency."""
         self.route("pm_lo" if connection == "lo" else "pm_rf")
         source = getattr(self.d, connection)
-        losses = []
+        losses, readings = [], []
         for freq in freqs:
-            setting, reading = self._plane_reading(connection, freq, freq)
+            setting, reading = self._plane_reading(connection, freq, freq, level)
             losses.append(setting - reading)
+            readings.append(reading)
         source.set_output(False)
         source.check_errors()
-        return losses
+        return losses, readings
 
     def output_sweep(self, connection: str, freqs: list[float]) -> list[float]:
         """The loss of an output path at each frequency, the thru in the part's place: the

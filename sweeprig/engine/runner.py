@@ -635,7 +635,7 @@ class Runner:
         going up last. A source whose level is unknown (after a recovery) is switched off
         while it is retuned. Returns True if anything was sent.
         """
-        level = dut_power_dbm + self.bench.loss(connection).at(freq_hz)
+        level = dut_power_dbm + self.bench.loss(connection).at(freq_hz, dut_power_dbm)
         known = source.state().get("power")
         sent = False
         if known is None:

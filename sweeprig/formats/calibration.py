@@ -21,14 +21,20 @@ of its own text so a damaged or hand-edited file is refused::
 
     [loss.rf]                     # one table per connection, as in the bench's [path_loss]
     freq = [2.0e9, 2.2e9, 2.4e9]  # Hz, ascending
-    loss_db = [3.02, 3.05, 3.11]  # positive = attenuation
+    level = [-30.0, -10.0]        # dBm at the DUT plane, ascending (source connections; optional)
+    loss_db = [[3.08, 3.11, 3.17],  # one row per level (without `level`: one flat list,
+               [3.02, 3.05, 3.11]]  # the same loss at every level); positive = attenuation
 
     sha256 = "…"                  # of the file's text without this line (written last)
 
 A run refuses a calibration that is expired or whose instruments answer ``*IDN?`` with a
 different maker, model or serial number, unless told to accept it; it never accepts a file
 whose checksum does not match. A table never extrapolates: a point outside the calibrated
-frequencies is refused by the pre-flight check (see :class:`~sweeprig.formats.pathloss.TableLoss`).
+frequencies, or (for a table with a ``level`` axis) outside its levels, is refused by the
+pre-flight check, which names the points (see :class:`~sweeprig.formats.pathloss.TableLoss`
+and :class:`~sweeprig.formats.level_grid.LevelGridLoss`). A source's table has a level axis
+because a source's level error changes with its setting as well as with frequency; the
+output paths' tables have none.
 """
 
 from __future__ import annotations
@@ -49,6 +55,7 @@ from sweeprig.errors import InputError
 from sweeprig.files import sha256_text
 from sweeprig.formats.bench import CONNECTIONS, Bench
 from sweeprig.formats.fields import Frozen, LevelDb, LocatedFile, Temperature
+from sweeprig.formats.level_grid import LevelGridLoss
 from sweeprig.formats.loading import load_document, validate
 from sweeprig.formats.pathloss import TableLoss
 
@@ -63,11 +70,15 @@ RECALIBRATE = ("make a new calibration of this bench (measure its path losses ag
 
 
 class LossTable(Frozen):
-    """A measured loss versus frequency."""
+    """A measured loss versus frequency (and level, for a source connection)."""
 
     freq: tuple[float, ...] = Field(description="frequencies, Hz, ascending")
-    loss_db: tuple[float, ...] = Field(description="loss at each frequency, dB (positive = "
-                                       "attenuation)")
+    level: tuple[float, ...] | None = Field(
+        None, description="levels at the DUT plane, dBm, ascending (then loss_db has one row "
+        "per level)")
+    loss_db: tuple[float, ...] | tuple[tuple[float, ...], ...] = Field(
+        description="loss at each frequency, dB (positive = attenuation); with `level`, one "
+        "row of them per level")
 
 
 class CalibrationFile(LocatedFile):
@@ -107,19 +118,35 @@ class Calibration:
     def output_calibrated(self) -> bool:
         return any(c in self.model.loss for c in OUTPUT_CONNECTIONS)
 
-    def table(self, connection: str) -> TableLoss:
+    def table(self, connection: str) -> TableLoss | LevelGridLoss:
         """The measured loss of ``connection`` as a path loss (no extrapolation)."""
         t = self.model.loss[connection]
+        where = self.model.where(("loss", connection))
+        if t.level is not None:
+            return LevelGridLoss(
+                np.asarray(t.freq, dtype=float), np.asarray(t.level, dtype=float),
+                np.asarray(t.loss_db, dtype=float), file=self.path, where=where,
+                fix="calibrate again over every frequency and level the sequence uses (the "
+                "calibration never extrapolates; `sweeprig calibrate` measures the levels "
+                "the sequence needs, or the grid --levels gives), or narrow the sweep")
         return TableLoss(np.asarray(t.freq, dtype=float), np.asarray(t.loss_db, dtype=float),
-                         file=self.path, where=self.model.where(("loss", connection)),
+                         file=self.path, where=where,
                          fix="calibrate again over every frequency the sequence uses (the "
                          "calibration never extrapolates), or narrow the sweep")
 
     def describe(self) -> str:
         m = self.model
+        def table(name: str) -> str:
+            levels = m.loss[name].level
+            if not levels:
+                return name
+            if len(levels) == 1:
+                return f"{name} (at {levels[0]:g} dBm)"
+            return f"{name} ({len(levels)} levels, {levels[0]:g} to {levels[-1]:g} dBm)"
+
         return (f"calibration {self.path}: made {m.created:%Y-%m-%d %H:%M} UTC at "
                 f"{m.temperature:g} degC, expires {m.expires:%Y-%m-%d %H:%M} UTC; tables "
-                + ", ".join(sorted(m.loss)))
+                + ", ".join(table(n) for n in sorted(m.loss)))
 
 
 def text_sha256(text: str) -> str:
@@ -155,9 +182,11 @@ def load_calibration(path: str | os.PathLike[str]) -> Calibration:
             raise InputError(f"{connection!r} is not a bench connection", where=where,
                              fix="name one of " + ", ".join(CONNECTIONS))
         freq = np.asarray(table.freq, dtype=float)
+        _check_shape(table, connection, where)
         loss = np.asarray(table.loss_db, dtype=float)
-        if freq.size != loss.size or freq.size == 0:
-            raise InputError(f"the table has {freq.size} frequencies and {loss.size} losses",
+        if freq.size == 0 or loss.shape[-1] != freq.size:
+            raise InputError(f"the table has {freq.size} frequencies and {loss.shape[-1]} "
+                             "losses (in a row)",
                              where=where, fix="give one loss per frequency (at least one)")
         if not (np.isfinite(freq).all() and np.isfinite(loss).all()):
             raise InputError("the table holds a value that is not a finite number (NaN or "
@@ -167,6 +196,29 @@ def load_calibration(path: str | os.PathLike[str]) -> Calibration:
             raise InputError("the frequencies are not positive and strictly ascending",
                              where=where, fix="make a new calibration")
     return Calibration(model, text, doc.display)
+
+
+def _check_shape(table: LossTable, connection: str, where: str) -> None:
+    """A table with a ``level`` axis: a source connection, levels finite and ascending, one
+    row of losses per level; without one: one flat list of losses."""
+    nested = bool(table.loss_db) and isinstance(table.loss_db[0], tuple)
+    if table.level is None:
+        if nested:
+            raise InputError("loss_db holds rows (one per level) but the table has no level "
+                             "axis", where=where, fix="make a new calibration")
+        return
+    if connection not in INPUT_CONNECTIONS:
+        raise InputError(f"{connection!r} is an output path: its table has no level axis",
+                         where=where, fix="make a new calibration")
+    levels = np.asarray(table.level, dtype=float)
+    if levels.size == 0 or not np.isfinite(levels).all() or (np.diff(levels) <= 0).any():
+        raise InputError("the levels are not finite and strictly ascending", where=where,
+                         fix="make a new calibration")
+    rows = table.loss_db
+    if not nested or len(rows) != levels.size or len({len(r) for r in rows}) != 1:  # type: ignore[arg-type]
+        raise InputError(f"the table has {levels.size} levels but loss_db is not one row of "
+                         "losses per level, all of one length", where=where,
+                         fix="make a new calibration")
 
 
 def check_calibration_age(calibration: Calibration, now: datetime, *,
@@ -225,8 +277,13 @@ def apply_calibration(bench: Bench, calibration: Calibration) -> None:
 def calibration_text(*, created: datetime, expires: datetime, temperature_c: float,
                      bench: str, method: str, instruments: Mapping[str, str],
                      tables: Mapping[str, tuple[list[float], list[float]]],
-                     repeatability_db: float | None = None) -> str:
-    """A calibration file's text, checksum included (what ``sweeprig calibrate`` writes)."""
+                     repeatability_db: float | None = None,
+                     levels: Mapping[str, tuple[list[float], list[list[float]]]] | None = None
+                     ) -> str:
+    """A calibration file's text, checksum included (what ``sweeprig calibrate`` writes).
+    ``levels``: per source connection, (levels in dBm at the DUT plane, one row of losses
+    per level): its table is written over frequency and level (its entry in ``tables``
+    gives the frequencies)."""
     def q(value: str) -> str:
         return '"' + value.replace("\\", "\\\\").replace('"', '\\"') + '"'
 
@@ -252,8 +309,15 @@ def calibration_text(*, created: datetime, expires: datetime, temperature_c: flo
     lines += [f"{role} = {q(idn)}" for role, idn in sorted(instruments.items())]
     for connection, (freq, loss) in tables.items():
         lines += ["", f"[loss.{connection}]",
-                  "freq = [" + ", ".join(number(f) for f in freq) + "]",
-                  "loss_db = [" + ", ".join(number(v) for v in loss) + "]"]
+                  "freq = [" + ", ".join(number(f) for f in freq) + "]"]
+        if levels and connection in levels:
+            grid, rows = levels[connection]
+            lines += ["level = [" + ", ".join(number(p) for p in grid) + "]",
+                      "loss_db = ["]
+            lines += ["  [" + ", ".join(number(v) for v in row) + "]," for row in rows]
+            lines += ["]"]
+        else:
+            lines += ["loss_db = [" + ", ".join(number(v) for v in loss) + "]"]
     body = "\n".join(lines) + "\n"
     return body.replace("\n[instruments]\n", f'\nsha256 = "{text_sha256(body)}"\n'
                         "[instruments]\n", 1)

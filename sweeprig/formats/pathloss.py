@@ -19,6 +19,7 @@ from numpy.typing import ArrayLike
 
 from sweeprig.errors import InputError
 from sweeprig.files import read_file_bytes, shorten_path
+from sweeprig.formats.level_grid import LevelGridLoss
 from sweeprig.text import offending_token
 from sweeprig.units import format_frequency, shorten
 
@@ -34,15 +35,17 @@ class ConstantLoss:
     loss: float
     where: str = ""
 
-    def loss_db(self, freq_hz: ArrayLike) -> np.ndarray:
-        """Loss in dB at each frequency (Hz)."""
-        return np.full(np.shape(freq_hz), self.loss, dtype=float)
+    def loss_db(self, freq_hz: ArrayLike, level_dbm: ArrayLike | None = None) -> np.ndarray:
+        """Loss in dB at each frequency (Hz); the same at every level (``level_dbm``)."""
+        shape = np.shape(freq_hz) if level_dbm is None else np.broadcast_shapes(
+            np.shape(freq_hz), np.shape(level_dbm))
+        return np.full(shape, self.loss, dtype=float)
 
-    def at(self, freq_hz: float) -> float:
-        """Loss in dB at one frequency (Hz)."""
+    def at(self, freq_hz: float, level_dbm: float | None = None) -> float:
+        """Loss in dB at one frequency (Hz), at any level."""
         return self.loss
 
-    def estimate_at(self, freq_hz: float) -> float:
+    def estimate_at(self, freq_hz: float, level_dbm: float | None = None) -> float:
         """The loss for a prediction: the same everywhere."""
         return self.at(freq_hz)
 
@@ -60,9 +63,12 @@ class TableLoss:
     where: str = ""
     fix: str = ""  # what to do when a frequency lies outside the table (default: extend it)
 
-    def loss_db(self, freq_hz: ArrayLike) -> np.ndarray:
-        """Loss in dB at each frequency (Hz); InputError if any lies outside the table."""
+    def loss_db(self, freq_hz: ArrayLike, level_dbm: ArrayLike | None = None) -> np.ndarray:
+        """Loss in dB at each frequency (Hz), the same at every level; InputError if any
+        frequency lies outside the table."""
         f = np.asarray(freq_hz, dtype=float)
+        if level_dbm is not None:
+            f = np.broadcast_arrays(f, np.asarray(level_dbm, dtype=float))[0]
         if f.size:
             lo, hi = self.freq_hz[0], self.freq_hz[-1]
             below = f < lo * (1 - _EDGE_RTOL)
@@ -79,10 +85,10 @@ class TableLoss:
                 )
         return np.interp(f, self.freq_hz, self.loss_table_db)
 
-    def at(self, freq_hz: float) -> float:
+    def at(self, freq_hz: float, level_dbm: float | None = None) -> float:
         return float(self.loss_db(np.asarray([freq_hz]))[0])
 
-    def estimate_at(self, freq_hz: float) -> float:
+    def estimate_at(self, freq_hz: float, level_dbm: float | None = None) -> float:
         """The loss for a prediction (a line the planner expects, not a reading): inside the
         table as :meth:`at`, outside it the nearest end's value (an estimate, never used to
         correct a measured level)."""
@@ -93,7 +99,7 @@ class TableLoss:
                 f"{format_frequency(self.freq_hz[-1])})")
 
 
-PathLoss = ConstantLoss | TableLoss
+PathLoss = ConstantLoss | TableLoss | LevelGridLoss
 
 
 def _table(freq_hz: np.ndarray, loss_db: np.ndarray, file: str, where: str) -> TableLoss:

@@ -38,6 +38,7 @@ import numpy as np
 
 from sweeprig.errors import InputError, SafetyLimitError, SweeprigError
 from sweeprig.formats.bench import Bench
+from sweeprig.formats.level_grid import LevelGridLoss
 from sweeprig.formats.sequence import RangeSpec, Sequence, required_roles
 from sweeprig.instruments.limits import LIMIT_TOLERANCE, beyond
 from sweeprig.plan import frequencies as fp
@@ -205,13 +206,41 @@ def check_supply(sequence: Sequence, bench: Bench) -> list[str]:
 
 
 def _loss(bench: Bench, sequence: Sequence, block: StudyBlock, connection: str,
-          freq_hz: np.ndarray) -> np.ndarray:
+          freq_hz: np.ndarray, level_dbm: np.ndarray | None = None,
+          index_of: Callable[[int], int] | None = None) -> np.ndarray:
+    """The loss of ``connection`` at each point (a source's at its DUT-plane level too);
+    a point outside a calibrated grid is refused, naming the points outside."""
+    loss = bench.loss(connection)
     try:
-        return bench.loss(connection).loss_db(freq_hz)
+        return loss.loss_db(freq_hz, level_dbm)
     except InputError as exc:
+        what = exc.what
+        if isinstance(loss, LevelGridLoss) and level_dbm is not None and index_of is not None:
+            what = _outside_points(sequence, loss, connection, freq_hz, level_dbm, index_of)
         raise InputError(
-            f"study {block.study.name!r}: {exc.what}", where=exc.where,
+            f"study {block.study.name!r}: {what}", where=exc.where,
             fix=exc.fix) from None
+
+
+#: Points outside a calibrated grid that a refusal describes one by one.
+SHOWN_OUTSIDE = 3
+
+
+def _outside_points(sequence: Sequence, loss: LevelGridLoss, connection: str,
+                    freq_hz: np.ndarray, level_dbm: np.ndarray,
+                    index_of: Callable[[int], int]) -> str:
+    """Which points need ``connection`` outside its calibrated grid, in words."""
+    f, p = np.broadcast_arrays(np.asarray(freq_hz, dtype=float),
+                               np.asarray(level_dbm, dtype=float))
+    bad = np.flatnonzero(loss.outside(f, p))
+    levels = sorted({round(float(v), 3) for v in p[bad]})
+    shown = "; ".join(point_at(sequence, index_of(int(k))).describe()
+                      for k in bad[:SHOWN_OUTSIDE])
+    more = f" and {bad.size - SHOWN_OUTSIDE} more" if bad.size > SHOWN_OUTSIDE else ""
+    return (f"{bad.size} of {f.size} point(s) need the {connection} source outside the "
+            f"calibrated grid {loss.file} ({loss.span()}): at "
+            + ", ".join(f"{v:g}" for v in levels[:8]) + (" ..." if len(levels) > 8 else "")
+            + f" dBm; the points: {shown}{more}. sweeprig does not extrapolate a calibration")
 
 
 #: Natural log of the power ratio of 1 dB: a level L dB is exp(L * _NEPER_PER_DB) in power.
@@ -338,7 +367,8 @@ def check_limits(sequence: Sequence, bench: Bench) -> PreflightReport:
             def index_of(k: int, _local: np.ndarray = local, _base: int = base) -> int:
                 return _base + int(_local[k])
 
-            _offer(src["rf"], p_rf + _loss(bench, sequence, block, "rf", f_rf), index_of)
+            _offer(src["rf"], p_rf + _loss(bench, sequence, block, "rf", f_rf, p_rf, index_of),
+                   index_of)
             _offer(src_f["rf"], f_rf, index_of)
             _offer(src_f["lo"], f_lo, index_of)
             if "image" in study_kinds:
@@ -350,15 +380,18 @@ def check_limits(sequence: Sequence, bench: Bench) -> PreflightReport:
                         "(2·LO − RF is not above 0)",
                         where=sequence.where(("study", block.study_index, "read")),
                         fix="remove the image reading from this study or change the plan")
-                _offer(src["rf"], p_rf + _loss(bench, sequence, block, "rf", f_img), index_of)
+                _offer(src["rf"], p_rf + _loss(bench, sequence, block, "rf", f_img, p_rf,
+                                               index_of), index_of)
                 _offer(src_f["rf"], f_img, index_of)  # the image reading retunes the rf source
-            _offer(src["lo"], p_lo + _loss(bench, sequence, block, "lo", f_lo), index_of)
+            _offer(src["lo"], p_lo + _loss(bench, sequence, block, "lo", f_lo, p_lo, index_of),
+                   index_of)
             rf_total = p_rf + (10.0 * math.log10(2.0) if two else 0.0)
             dut_rf._offer(rf_total, index_of)
             dut_lo._offer(np.asarray(p_lo, dtype=float), index_of)
             if two:
                 assert f2 is not None
-                _offer(src["rf2"], p_rf + _loss(bench, sequence, block, "rf2", f2), index_of)
+                _offer(src["rf2"], p_rf + _loss(bench, sequence, block, "rf2", f2, p_rf,
+                                                index_of), index_of)
                 _offer(src_f["rf2"], f2, index_of)
             if pm is not None and "input_power" in study_kinds:
                 pm._offer(rf_total, index_of)

@@ -63,6 +63,18 @@ optional; the values shown are the defaults)::
     # the sensor's calibration factor itself (sweeprig.sim.instruments.powermeter) is always
     # there, as on a real sensor: the bench file's [sensor] table corrects it
 
+    [match]                      # |Γ| of each port (sweeprig.sim.mismatch); 0 = matched
+    source_rf = 0.0              # the bench's RF feed at the DUT RF plane
+    source_lo = 0.0              # the bench's LO feed at the DUT LO plane
+    load_if = 0.0                # the bench's output paths at the DUT ports
+    load_rf_port = 0.0
+    load_lo_port = 0.0
+    sensor = 0.0                 # the power sensor
+    part_rf = 0.0                # the part's own ports
+    part_lo = 0.0
+    part_if = 0.0
+    delay = "5 ns"               # the longest electrical delay behind a port (phase vs f)
+
     [chamber]
     ambient = "23 degC"
     probe_lag = "120 s"          # DUT probe time constant behind the air
@@ -429,6 +441,26 @@ def _loops(ref_in: dict[str, str], start: str) -> bool:
     return False
 
 
+Gamma = Annotated[float, Field(ge=0.0, lt=1.0)]
+
+
+class MatchSpec(Frozen):
+    """Reflection coefficients |Γ| of the bench's and the part's ports (see
+    :mod:`sweeprig.sim.mismatch`); 0: a perfect match (the default: no mismatch error)."""
+
+    source_rf: Gamma = 0.0
+    source_lo: Gamma = 0.0
+    load_if: Gamma = 0.0
+    load_rf_port: Gamma = 0.0
+    load_lo_port: Gamma = 0.0
+    sensor: Gamma = 0.0
+    part_rf: Gamma = 0.0
+    part_lo: Gamma = 0.0
+    part_if: Gamma = 0.0
+    #: The longest electrical delay behind a port (its Γ turns with frequency).
+    delay: Annotated[Time, Field(ge=0.0)] = 5e-9
+
+
 class SimBenchDescription(Frozen):
     """A whole sim-bench description file (see the module docstring)."""
 
@@ -441,6 +473,7 @@ class SimBenchDescription(Frozen):
     power_meter: PowerMeterSpec = PowerMeterSpec()
     chamber: ChamberSpec = ChamberSpec()
     dut: DutSpec = DutSpec()
+    match: MatchSpec = MatchSpec()
     noise_source: NoiseSourceSpec | None = None
     interferers: tuple[InterfererSpec, ...] = ()
     references: ReferencesSpec = ReferencesSpec()
@@ -490,7 +523,17 @@ class SimBenchDescription(Frozen):
             spur_phase_seed=self.seed,
             noise_source=self._noise_source_model(),
             interferers=tuple((i.frequency, i.level) for i in self.interferers),
+            match=self._port_match(),
         )
+
+    def _port_match(self) -> Any:
+        from sweeprig.sim.mismatch import PORTS, PortMatch
+
+        m = self.match
+        values = tuple((name, float(getattr(m, name))) for name in PORTS)
+        if not any(v for _n, v in values):
+            return None
+        return PortMatch(values, seed=self.seed, delay_s=m.delay)
 
     def _noise_source_model(self) -> Any:
         from sweeprig.sim.noise_source import DEFAULT_ENR_POINTS, NoiseSourceModel

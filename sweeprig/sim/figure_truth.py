@@ -16,6 +16,12 @@ frequencies and drives the figure's captures record:
   (``reference_figures``' ``iip3_dbm``, 40 dB under the closed-form intercept); the two
   differ by the part's fifth- and higher-order terms at the drives used (the tanh of a
   differential pair is not a pure cubic: FIELD-NOTES, Razavi), not by any bench error.
+
+The truth is the part's between Z0 (50 Ω) terminations, as a datasheet states it: the drive
+is the level the sequence states at the DUT plane (what a matched load there would absorb),
+never the wave a mismatched bench actually hands the part (:mod:`sweeprig.sim.mismatch`).
+The bench's port mismatch is left as an error of the figure, which its uncertainty budget's
+mismatch terms cover.
 """
 
 from __future__ import annotations

@@ -33,6 +33,7 @@ to it as a voltage with a seeded phase.
 from __future__ import annotations
 
 import cmath
+import dataclasses
 import math
 import threading
 from collections import OrderedDict
@@ -45,6 +46,7 @@ from typing import Protocol
 import numpy as np
 
 from sweeprig.sim.analyzer_display import KT0_DBM_PER_HZ, InputSpectrum
+from sweeprig.sim.mismatch import PortMatch
 from sweeprig.sim.mixer.types import MixerResponse, OperatingPoint, Product, ToneInput
 from sweeprig.sim.noise_source import NoiseSourceModel, density_mw_per_hz, mixer_output_density_mw
 
@@ -189,6 +191,8 @@ class WorldConfig:
     #: Interfering lines picked up on the IF path ahead of the analyzer (a nearby
     #: transmitter, a switching supply): (Hz, dBm at the analyzer input).
     interferers: tuple[tuple[float, float], ...] = ()
+    #: Port mismatch: a reflection coefficient per connection (None: every port matched).
+    match: PortMatch | None = None
 
     def source_filter(self, role: str) -> LowPassFilter | None:
         """The low-pass filter at a source's output (``rf``, ``rf2``, ``lo``), or None."""
@@ -360,8 +364,18 @@ class SimWorld:
         lo = self.lo_input()
         rf = tuple(self.rf_inputs())
         volts = self.supply_voltage_v() if supply_v is None else max(0.0, float(supply_v))
+        match = self.config.match
         if self.thru_fitted():
+            if match is not None:  # the thru hands the RF feed to the output path's load
+                load = _LOAD_OF_CHANNEL.get(self._channel(), "load_if")
+                rf = tuple(_moved(t, match.junction_db("source_rf", load, t.freq_hz))
+                           for t in rf)
             return _thru_response(rf)
+        if match is not None:  # the incident waves the part's own ports actually get
+            rf = tuple(_moved(t, match.junction_db("source_rf", "part_rf", t.freq_hz))
+                       for t in rf)
+            if lo is not None:
+                lo = _moved(lo, match.junction_db("source_lo", "part_lo", lo.freq_hz))
         temperature = self._rounded(self.probe_temperature_c())
         key = (lo, rf, round(volts, 6), temperature)
         with self._lock:
@@ -450,6 +464,11 @@ class SimWorld:
         if not ok.all():
             freq, level = freq[ok], level[ok]
         level = level - _cable_loss_db(cable, freq)
+        match = self.config.match
+        if match is not None and not self.thru_fitted():  # the part's output port ↔ the path
+            level = level + match.junction_db_array(
+                _PART_OF_CHANNEL.get(channel, "part_if"),
+                _LOAD_OF_CHANNEL.get(channel, "load_if"), freq)
         if channel == SwitchChannel.IF:
             spurs = self.spur_lines(response)
             if spurs:
@@ -582,6 +601,10 @@ class SimWorld:
             roles: tuple[str, ...] = ("lo",)
         else:
             tones, roles = self.rf_inputs(), ("rf", "rf2")
+        match = self.config.match
+        if match is not None:  # the sensor's own junction with the feed
+            feed = "source_lo" if self.sensor_at_lo() else "source_rf"
+            tones = [_moved(t, match.junction_db(feed, "sensor", t.freq_hz)) for t in tones]
         for tone in tones:
             total_mw += 10.0 ** (tone.power_dbm / 10.0)
             for h_dbc in tone.harmonics_dbc:
@@ -627,9 +650,24 @@ class SimWorld:
             harmonics_dbc=harmonics,
         )
 
+    def _channel(self) -> int:
+        return self._switch.channel if self._switch is not None else SwitchChannel.IF
+
     def _rounded(self, temperature_c: float) -> float:
         step = self.config.temperature_resolution_c
         return round(temperature_c / step) * step if step > 0 else temperature_c
+
+
+#: The bench's output-path port and the part's port behind each analyzer switch channel.
+_LOAD_OF_CHANNEL = {SwitchChannel.IF: "load_if", SwitchChannel.RF: "load_rf_port",
+                    SwitchChannel.LO: "load_lo_port"}
+_PART_OF_CHANNEL = {SwitchChannel.IF: "part_if", SwitchChannel.RF: "part_rf",
+                    SwitchChannel.LO: "part_lo"}
+
+
+def _moved(tone: ToneInput, db: float) -> ToneInput:
+    """``tone`` with its power moved by ``db`` (harmonics keep their dBc)."""
+    return tone if db == 0.0 else dataclasses.replace(tone, power_dbm=tone.power_dbm + db)
 
 
 def _thru_response(rf: Sequence[ToneInput]) -> MixerResponse:

@@ -6,6 +6,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
+import numpy as np
 import pytest
 
 from sweeprig.analysis.reduce import RunFigures, reduce_run
@@ -65,12 +66,15 @@ def test_the_calibration_file_holds_what_was_measured(calibrated):
     assert "through a calibration thru" in cal.model.method
     # The simulated IF cable is 1.5 dB flat; the analyzer reads the thru's tone within 0.02.
     assert all(abs(loss - 1.5) <= 0.02 for loss in result.tables["if"][1])
-    assert all(abs(loss - 2.0) <= 0.2 for loss in result.tables["lo"][1])
+    assert all(abs(loss - 2.0) <= 0.2 for loss in np.ravel(result.tables["lo"][1]))
+    # Each source over the levels quick.toml gives it (dBm at the DUT plane).
+    assert result.levels == {"rf": [-25.0, -20.0], "rf2": [-25.0, -20.0], "lo": [7.0]}
+    assert cal.model.loss["rf"].level == (-25.0, -20.0) and cal.model.loss["if"].level is None
     assert cal.model.instruments["pm"].startswith("Tarnwick Labs,TW-PM18")
     assert cal.model.temperature == pytest.approx(23.0, abs=1.0)  # the chamber's probe
     # The simulated cabling is rf 2.5 dB + combiner 0.5 dB; the source's own level error
     # (a ripple within ±0.15 dB) is in the measured loss too.
-    assert all(abs(loss - 3.0) <= 0.2 for loss in result.tables["rf"][1])
+    assert all(abs(loss - 3.0) <= 0.2 for loss in np.ravel(result.tables["rf"][1]))
     # The figures: repeatable within ±0.02 dB, done within 15 min of bench time.
     assert result.repeatability_db is not None and result.repeatability_db <= 0.02
     assert max(result.spread_db.values()) <= 0.02

@@ -7,6 +7,7 @@ from __future__ import annotations
 import math
 from pathlib import Path
 
+import numpy as np
 import pytest
 
 from sweeprig.engine.calibrate import LEVEL_MAX_ITERATIONS, calibrate_sources
@@ -67,7 +68,10 @@ def test_the_sensor_is_zeroed_and_its_cal_factor_applied(tmp_path, started) -> N
     without = calibrate_sources(QUICK, bench, tmp_path / "b.toml", sim=True, repeats=1)
     freqs, losses = with_table.tables["rf"]
     _, losses_without = without.tables["rf"]
-    for f, a, b in zip(freqs, losses, losses_without, strict=True):
+    # (one row per level of the grid; the factor is the same at every level)
+    pairs = [(f, a, b) for row, row_without in zip(losses, losses_without, strict=True)
+             for f, a, b in zip(freqs, row, row_without, strict=True)]
+    for f, a, b in pairs:
         factor_db = -10 * math.log10(sensor_cal_factor_percent(f) / 100)
         assert factor_db > 0.1
         assert b - a == pytest.approx(factor_db, abs=0.01)
@@ -102,7 +106,8 @@ def test_closed_loop_levelling_reaches_the_target_within_its_bounds(tmp_path) ->
     # The loss is the same whichever way it was measured (the source level error barely
     # changes over the few tenths of a dB the levelling moves it).
     for connection, (_, losses) in open_loop.tables.items():
-        for a, b in zip(losses, levelled.tables[connection][1], strict=True):
+        for a, b in zip(np.ravel(losses), np.ravel(levelled.tables[connection][1]),
+                        strict=True):
             assert b == pytest.approx(a, abs=0.03)
 
 
@@ -131,7 +136,8 @@ def test_attended_calibration_asks_the_operator_to_move_the_sensor(tmp_path, sta
     assert "put the cables back" in steps[-1]
     # The same as the switch measures it.
     routed = calibrate_sources(QUICK, None, tmp_path / "routed.toml", sim=True, repeats=1)
-    for a, b in zip(result.tables["lo"][1], routed.tables["lo"][1], strict=True):
+    for a, b in zip(np.ravel(result.tables["lo"][1]), np.ravel(routed.tables["lo"][1]),
+                    strict=True):
         assert a == pytest.approx(b, abs=0.02)
 
 

@@ -23,8 +23,13 @@ def test_the_errors_are_those_of_an_uncalibrated_bench() -> None:
     levels = [error(f) for f in np.linspace(10e6, 6e9, 2000)]
     assert 0.9 <= max(abs(v) for v in levels) <= 1.0  # "up to ±1 dB, with ripple"
     assert max(abs(error(f)) for f in BAND) > 0.5  # and much of it in the demo's band
-    assert linearity_error_db(-10.0, 0.01) == 0.0
-    assert abs(linearity_error_db(10.0, 0.01)) <= 0.01
+    # ... and versus level: 0 at a -10 dBm setting, towards ±0.3 dB far above and below it,
+    # so a calibration at one level does not hold at the others (issue 10: "versus frequency
+    # and level")
+    assert desc.sources.level_linearity == 0.3
+    assert linearity_error_db(-10.0, 0.3) == 0.0
+    assert -0.3 <= linearity_error_db(8.0, 0.3) <= -0.2
+    assert 0.2 <= linearity_error_db(-37.0, 0.3) <= 0.3
     cabling = desc.world_config().cabling
     ripple = [cabling.rf.at(f) - 2.5 for f in np.linspace(1e9, 3e9, 500)]
     assert max(ripple) == pytest.approx(0.15, abs=0.01)
@@ -49,7 +54,8 @@ def test_the_truth_reports_the_power_at_each_pin() -> None:
     error = scaled_level_error(desc.sources.level_ripple)
 
     def expected(freq: float, level: float, *losses: float) -> float:
-        return level + error(freq) + linearity_error_db(level, 0.01) - sum(losses)
+        linearity = linearity_error_db(level, desc.sources.level_linearity)
+        return level + error(freq) + linearity - sum(losses)
 
     (f1, p1), (f2, p2) = pins["rf"]
     assert (f1, f2) == (f, f + 1e6)

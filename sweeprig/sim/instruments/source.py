@@ -50,10 +50,11 @@ def scaled_level_error(peak_db: float) -> Callable[[float], float]:
 
 
 def linearity_error_db(power_dbm: float, peak_db: float) -> float:
-    """The source's level error versus its level setting, dB: ``peak_db·tanh((P + 10)/15)``,
-    0 at a −10 dBm setting and approaching ±``peak_db`` far above and below it (an invented
-    shape for an output attenuator and level-control detector's error)."""
-    return peak_db * math.tanh((power_dbm + 10.0) / 15.0) if peak_db else 0.0
+    """The source's level error versus its level setting, dB: ``peak_db·tanh((−10 − P)/15)``,
+    0 at a −10 dBm setting, approaching +``peak_db`` far below it (the output attenuator's
+    error) and −``peak_db`` far above it (the output amplifier short of its level): an
+    invented shape."""
+    return peak_db * math.tanh((-10.0 - power_dbm) / 15.0) if peak_db else 0.0
 
 
 def no_level_error_db(freq_hz: float) -> float:
