@@ -8,10 +8,10 @@ temperatures the tail bias law (constant or PTAT, a choice, not a number) is dec
 fitting both and keeping the smaller residual sum.
 
 Stages: the core parameters (gain, compression, intercepts, LO drive, band corners) are fitted
-first to the figures they alone shape; then each leakage path, the supply current and the
-noise figure, each to its own figures with the core held (they share no figure with each
-other, and moving them leaves the core's figures alone). A later stage's intervals include
-the core's uncertainty, propagated (see :func:`_propagate`).
+first to the figures they alone shape; then each leakage path, the even-order products
+(IIP2), the supply current and the noise figure, each to its own figures with the core held
+(they share no figure with each other, and moving them leaves the core's figures alone). A
+later stage's intervals include the core's uncertainty, propagated (see :func:`_propagate`).
 
 Confidence intervals: the standard least-squares covariance from the Jacobian at the
 solution, ``cov = s²·(JᵀJ)⁻¹`` with ``s² = Σr²/(m − n)`` (Press, Teukolsky, Vetterling &
@@ -38,6 +38,7 @@ from sweeprig.twin.forward import model_figures
 from sweeprig.twin.observations import (
     CORE_FIGURES,
     FITTED_FIGURES,
+    GROUP_FIGURES,
     Observation,
     ObservationSet,
 )
@@ -143,7 +144,7 @@ def fit_twin(template: MixerPart, obs: ObservationSet) -> TwinFit:
     stages = [core]
     for group in dict.fromkeys(p.group for p in free if p.group != "core"):
         group_free = tuple(p for p in free if p.group == group)
-        group_obs = obs.named(group)
+        group_obs = obs.of_group(group)
         stage = _fit_stage(part, group_free, group_obs)
         # the core's own uncertainty moves this group's estimate too: add it
         stage = _propagate(stage, core, group_obs)
@@ -241,7 +242,8 @@ def _fitted(p: FitParameter, x: float, var: float, dof: int,
 
 def _unfitted_cost(part: MixerPart, obs: ObservationSet, stages: list[_Stage]) -> float:
     """½Σr² of the observations no stage fitted (a figure whose path is not a parameter)."""
-    fitted_names = set(CORE_FIGURES) | {p.group for st in stages for p in st.free}
+    fitted_names = set(CORE_FIGURES) | {name for st in stages for p in st.free
+                                        for name in GROUP_FIGURES.get(p.group, (p.group,))}
     rest = tuple(o for o in obs.observations if o.name not in fitted_names)
     if not rest:
         return 0.0

@@ -12,6 +12,10 @@ figure is computed the way the analysis measured it, at the observation's own co
 * ``iip3_point_low`` / ``_high``: ``P_in + (P_fund − P_IM3)/2`` at the measured two-tone
   drive (the single-point intercept; Pozar, Microwave Engineering, 4th ed., §10.3, and the
   field notes' intercept relation), lower product with the lower tone's fundamental;
+* ``iip2_point_low`` / ``_high``: ``P_in + (P_fund − P_IM2)`` (the field notes' IIP2
+  relation; Razavi, RF Microelectronics), the IM2 line at f2 − f1 (low) or f1 + f2 (high),
+  which reaches the output port untranslated, against the lower tone's fundamental, as the
+  analysis takes them (:mod:`sweeprig.analysis.intercept`);
 * ``input_p1db``: input power where the single-tone gain is 1 dB under small signal
   (:func:`sweeprig.sim.mixer.reference.input_p1db_dbm`);
 * ``supply_current`` (A) and ``noise_figure`` (dB, at the LO drive).
@@ -75,6 +79,8 @@ def _one(part: MixerPart, obs: Observation, single: dict[tuple[float, ...], obje
         return input_p1db_dbm(part, op, lo, f_rf, small)
     if name in ("iip3_point_low", "iip3_point_high"):
         return _point_iip3(part, op, lo, obs, low=name.endswith("low"))
+    if name in ("iip2_point_low", "iip2_point_high"):
+        return _point_iip2(part, op, lo, obs, low=name.endswith("low"))
     key = (op.temperature_c, op.supply_v, lo.freq_hz, lo.power_dbm, f_rf, p_rf)
     resp = single.get(key)
     if resp is None:
@@ -107,6 +113,18 @@ def _point_iip3(part: MixerPart, op: OperatingPoint, lo: ToneInput, obs: Observa
     fund = line_power_dbm(lines, output_freq_hz(part, f2, lo.freq_hz))
     im3 = line_power_dbm(lines, output_freq_hz(part, 2 * f2 - f1, lo.freq_hz))
     return _finite(p2 + 0.5 * (fund - im3))
+
+
+def _point_iip2(part: MixerPart, op: OperatingPoint, lo: ToneInput, obs: Observation, *,
+                low: bool) -> float:
+    f1 = obs.condition("rf_freq_hz")
+    f2 = obs.condition("rf2_freq_hz")
+    p1 = obs.condition("rf_power_dbm")
+    p2 = obs.condition("rf2_power_dbm", p1)
+    lines = part.evaluate(op, lo, [ToneInput(f1, p1), ToneInput(f2, p2)]).if_port
+    fund = line_power_dbm(lines, output_freq_hz(part, f1, lo.freq_hz))
+    im2 = line_power_dbm(lines, abs(f2 - f1) if low else f1 + f2)
+    return _finite(p1 + (fund - im2))
 
 
 def _finite(value: float) -> float:

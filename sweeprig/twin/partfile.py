@@ -78,11 +78,11 @@ def part_file_text(fit: TwinFit, *, name: str, source: str, template: str) -> st
         f"aux_supply_coeff = {_num(part.aux_supply_coeff_per_v)}",
         f"cm_second_order = {_num(part.cm_second_order)}",
         "",
-        "[mismatch]  # not fitted: template values",
+        "[mismatch]  # offsets: template values (see the header); load: the even-order fit",
         f'quad_offset_1 = "{_num(part.quad_offset_1_v * 1e3)} mV"',
         f'quad_offset_2 = "{_num(part.quad_offset_2_v * 1e3)} mV"',
         f'rf_pair_offset = "{_num(part.rf_pair_offset_v * 1e3)} mV"',
-        f"load = {_num(part.load_mismatch)}",
+        line("mismatch.load", _num(part.load_mismatch)),
     ]
     for label, port in (("rf", part.rf_port), ("lo", part.lo_port), ("if", part.if_port)):
         lines += ["", f"[ports.{label}]", *_port_lines(label, port, line)]
@@ -131,7 +131,7 @@ def _fitted_note(p: FittedParameter) -> str:
         return f"fitted, ended on its bound ({p.what}): no interval"
     if not (math.isfinite(p.low) and math.isfinite(p.high)):
         return "fitted, no interval (the run cannot tell this direction apart)"
-    return f"fitted: 95 % interval {_num(p.low * k, 4)} to {_num(p.high * k, 4)} {p.unit}"
+    return f"fitted: 95 % interval {_num(p.low * k, 4)} to {_num(p.high * k, 4)} {p.unit}".rstrip()
 
 
 def _string(text: str) -> str:
