@@ -21,6 +21,9 @@ from sweeprig.twin.observations import ObservationSet
 #: RF port's band corners (common practice, no source: closer, a first-order corner a
 #: decade away moves the gain by well under the measurement's repeatability).
 CORNER_SPAN_RATIO = 1.2
+#: An isolation path's frequency slope a fit may reach, dB per octave: twice a coupling
+#: capacitance's −6 dB per octave either way (common practice, no source).
+ISOLATION_SLOPE_BOUND = 12.0
 
 #: The load mismatch ΔR/R a fit may reach: ±5 % (integrated load resistors match to well
 #: under 1 %; common practice, no source). The even-order products see ε + D_0 (the quad's
@@ -119,6 +122,20 @@ def _rf_span(obs: ObservationSet) -> str | None:
     return None
 
 
+def _swept(name: str, key: str) -> Callable[[ObservationSet], str | None]:
+    """A leakage figure at 3 or more frequencies (condition ``key``) spanning the corners'
+    ratio: enough for a slope beside the level (3 points leave one degree of freedom)."""
+    def needs(obs: ObservationSet) -> str | None:
+        freqs = obs.distinct(name, key)
+        if len(freqs) < 3:
+            return f"{name} measured at {len(freqs)} frequencies (needs 3 for a slope)"
+        if freqs[-1] / freqs[0] < CORNER_SPAN_RATIO:
+            return (f"{name} measured over {freqs[0] / 1e9:.3g}-{freqs[-1] / 1e9:.3g} GHz "
+                    f"(needs a ratio of {CORNER_SPAN_RATIO:g} for a slope)")
+        return None
+    return needs
+
+
 def _both(*rules: Callable[[ObservationSet], str | None]) -> Callable[[ObservationSet],
                                                                        str | None]:
     def needs(obs: ObservationSet) -> str | None:
@@ -142,6 +159,20 @@ def _even_order(part: MixerPart) -> Callable[[ObservationSet], str | None]:
                     "(core.cm_second_order = 0), so the load mismatch moves no IM2 line")
         return None
     return needs
+
+
+def _slopes() -> tuple[FitParameter, ...]:
+    """The isolation paths' frequency slopes (dB per octave about the part's isolation
+    reference frequency), each fitted with its path's level when the run swept frequency."""
+    bound = (-ISOLATION_SLOPE_BOUND, ISOLATION_SLOPE_BOUND)
+    paths = (("lo_to_if", "lo_if", "lo_if_isolation", "lo_freq_hz", "LO→IF"),
+             ("lo_to_rf", "lo_rf", "lo_rf_isolation", "lo_freq_hz", "LO→RF"),
+             ("rf_to_if", "rf_if", "rf_if_isolation", "rf_freq_hz", "RF→IF"))
+    return tuple(
+        FitParameter(f"isolation.{key}_slope", "dB/octave", 1.0, False, bound,
+                     *_attr(f"isolation_{attr}_slope_db_per_octave"), _swept(figure, cond),
+                     f"{label} path's change with frequency", figure)
+        for key, attr, figure, cond, label in paths)
 
 
 def catalogue(part: MixerPart, obs: ObservationSet) -> tuple[FitParameter, ...]:
@@ -188,6 +219,7 @@ def catalogue(part: MixerPart, obs: ObservationSet) -> tuple[FitParameter, ...]:
                      *_attr("isolation_rf_if_db"), _having("rf_if_isolation"),
                      "RF→IF feedthrough path (on top of what the quad's offsets make)",
                      "rf_if_isolation"),
+        *_slopes(),
         FitParameter("mismatch.load", "", 1.0, False, (-LOAD_MISMATCH_BOUND, LOAD_MISMATCH_BOUND),
                      *_attr("load_mismatch"), _even_order(part),
                      "load mismatch ΔR/R: with the quad's DC imbalance and the input pair's "

@@ -88,10 +88,17 @@ def part_file_text(fit: TwinFit, *, name: str, source: str, template: str) -> st
         lines += ["", f"[ports.{label}]", *_port_lines(label, port, line)]
     iso = (("lo_to_rf", part.isolation_lo_rf_db), ("lo_to_if", part.isolation_lo_if_db),
            ("rf_to_if", part.isolation_rf_if_db), ("rf_to_lo", part.isolation_rf_lo_db))
-    lines += ["", "[isolation]"]
+    slopes = {"lo_to_rf": part.isolation_lo_rf_slope_db_per_octave,
+              "lo_to_if": part.isolation_lo_if_slope_db_per_octave,
+              "rf_to_if": part.isolation_rf_if_slope_db_per_octave,
+              "rf_to_lo": part.isolation_rf_lo_slope_db_per_octave}
+    lines += ["", "[isolation]",
+              f'reference_frequency = "{_num(part.isolation_reference_hz / 1e9)} GHz"'
+              "  # each path's level holds here; its slope is dB per octave about it"]
     for key, value in iso:
         if value is not None:
             lines.append(line(f"isolation.{key}", f'"{_num(value, 5)} dB"'))
+            lines.append(line(f"isolation.{key}_slope", _num(slopes[key], 4)))
         else:
             lines.append(f"# {key}: no extra path{note(f'isolation.{key}')}")
     lines += [
