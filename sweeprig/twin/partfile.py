@@ -15,7 +15,13 @@ from pathlib import Path
 
 from sweeprig.files import replace_text
 from sweeprig.sim.mixer.part import MixerPart, PortNetwork, part_from_mapping
-from sweeprig.twin.fit import FittedParameter, TwinFit
+from sweeprig.twin.fit import (
+    BENCH_LEVEL_U_DB,
+    WEAK_CORRELATION,
+    WEAK_LEVEL_SHARE,
+    FittedParameter,
+    TwinFit,
+)
 from sweeprig.twin.parameters import NOT_FITTED
 
 _Q = Callable[[float], str]
@@ -47,8 +53,9 @@ def part_file_text(fit: TwinFit, *, name: str, source: str, template: str) -> st
         f"# (sweeprig twin fit). Template for everything the run did not constrain: {template}.",
         f"# {fit.observations} figures, {len(fit.parameters)} parameters, "
         f"residual scale s = {_num(fit.residual_scale, 3)} (1 = the figures' nominal scatter).",
-        "# Intervals: 95 %, from the Jacobian (cov = s²·(JᵀJ)⁻¹); they hold the run's scatter,",
-        "# not a bias common to every figure (a path-loss error of the bench).",
+        "# Intervals: 95 %, from the Jacobian (cov = s²·(JᵀJ)⁻¹, the run's scatter) plus what",
+        f"# unseen bench level errors (RF, LO, output; u = {BENCH_LEVEL_U_DB:g} dB each) move the",
+        "# estimate by; a larger path-loss error than that (an uncalibrated bench) is not in them.",
         f"# {fit.bias_note}.",
         "# Residuals, model − measured (mean / RMS / worst):",
     ]
@@ -138,7 +145,15 @@ def _fitted_note(p: FittedParameter) -> str:
         return f"fitted, ended on its bound ({p.what}): no interval"
     if not (math.isfinite(p.low) and math.isfinite(p.high)):
         return "fitted, no interval (the run cannot tell this direction apart)"
-    return f"fitted: 95 % interval {_num(p.low * k, 4)} to {_num(p.high * k, 4)} {p.unit}".rstrip()
+    text = f"fitted: 95 % interval {_num(p.low * k, 4)} to {_num(p.high * k, 4)} {p.unit}".rstrip()
+    if p.weakly_identified:
+        why = []
+        if p.level_share >= WEAK_LEVEL_SHARE:
+            why.append(f"{p.level_share:.0%} of its variance is the bench's level errors")
+        if abs(p.correlation) >= WEAK_CORRELATION:
+            why.append(f"trades off against {p.correlated_with} (ρ = {p.correlation:+.2f})")
+        text += "; weakly identified: " + ", ".join(why)
+    return text
 
 
 def _string(text: str) -> str:
