@@ -328,14 +328,14 @@ def _fitted(p: FitParameter, x: float, var: float, dof: int,
 
 
 def _with_identification(fp: FittedParameter, stage: _Stage, i: int) -> FittedParameter:
-    """``fp`` with its bench-level share and its strongest correlation in its stage."""
+    """``fp`` with its bench-level share and its strongest correlation in the core stage."""
     cov = stage.cov
     var = float(cov[i, i])
     if not (math.isfinite(var) and var > 0.0):
         return fp
-    share = 0.0
-    if stage.level_cov is not None:
-        share = min(max(float(stage.level_cov[i, i]) / var, 0.0), 1.0)
+    if stage.level_cov is None:  # a later stage: a path's level and its slope trade off
+        return fp  # about the reference frequency by construction, which says nothing
+    share = min(max(float(stage.level_cov[i, i]) / var, 0.0), 1.0)
     partner, rho = "", 0.0
     for j, q in enumerate(stage.free):
         if j == i or not (math.isfinite(cov[j, j]) and cov[j, j] > 0.0):
