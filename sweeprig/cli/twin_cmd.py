@@ -79,6 +79,8 @@ def _print_fit(twin: object, console: Console) -> None:
             interval = "on its bound"
         elif math.isfinite(p.low) and math.isfinite(p.high):
             interval = f"{p.low * k:.4g} to {p.high * k:.4g}"
+            if p.weakly_identified:
+                interval += " (weakly identified: see the part file)"
         else:
             interval = "not resolved"
         table.add_row(p.key, f"{p.value * k:.4g}", interval, p.unit)

@@ -8,10 +8,10 @@ temperatures the tail bias law (constant or PTAT, a choice, not a number) is dec
 fitting both and keeping the smaller residual sum.
 
 Stages: the core parameters (gain, compression, intercepts, LO drive, band corners) are fitted
-first to the figures they alone shape; then each leakage path, the supply current and the
-noise figure, each to its own figures with the core held (they share no figure with each
-other, and moving them leaves the core's figures alone). A later stage's intervals include
-the core's uncertainty, propagated (see :func:`_propagate`).
+first to the figures they alone shape; then each leakage path, the even-order products
+(IIP2), the supply current and the noise figure, each to its own figures with the core held
+(they share no figure with each other, and moving them leaves the core's figures alone). A
+later stage's intervals include the core's uncertainty, propagated (see :func:`_propagate`).
 
 Confidence intervals: the standard least-squares covariance from the Jacobian at the
 solution, ``cov = s²·(JᵀJ)⁻¹`` with ``s² = Σr²/(m − n)`` (Press, Teukolsky, Vetterling &
@@ -20,15 +20,18 @@ of a linearised model, errors scaled by the fit's own residual variance), and 95
 ``θ ± t(0.975, m − n)·σ_θ`` (Student's t: same chapter, §15.6). Parameters fitted in log10
 space get intervals there, so they are asymmetric in SI. A parameter that ends on a bound has
 no such interval (the linearisation does not hold at a bound): it is reported as at the
-bound. The intervals cover the scatter the run's own residuals show; a bias common to every
-figure (a path-loss error of the bench) is not in them.
+bound. The intervals cover the scatter the run's own residuals show and, for the core, the
+bench's level errors of :data:`BENCH_LEVEL_U_DB` each, which no residual shows
+(:func:`_with_bench_levels`); a larger bias common to every figure (an uncalibrated path
+loss) is not in them.
 """
 
 from __future__ import annotations
 
 import math
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
+from types import MappingProxyType
 
 import numpy as np
 from scipy import optimize, stats
@@ -38,6 +41,7 @@ from sweeprig.twin.forward import model_figures
 from sweeprig.twin.observations import (
     CORE_FIGURES,
     FITTED_FIGURES,
+    GROUP_FIGURES,
     Observation,
     ObservationSet,
 )
@@ -50,6 +54,25 @@ _MISSING_RESIDUAL = 20.0
 #: (about 1e-6 dB) by orders of magnitude, small against every parameter's bound range.
 _DIFF_STEP = 1e-3
 _CI_LEVEL = 0.95
+#: Standard uncertainty (k = 1) of each of the bench's level errors the run's figures cannot
+#: show, dB: the RF and LO source levels at the DUT ports and the output path to the analyzer.
+#: The simulated bench's source level error lies within ±0.15 dB (rectangular: u = 0.15/√3 =
+#: 0.087 dB, JCGM 100:2008 (GUM) §4.3.7); 0.1 dB stands for a bench whose path losses were
+#: calibrated (common practice, no source). See :func:`_with_bench_levels`.
+BENCH_LEVEL_U_DB = 0.1
+_LEVEL_STEP_DB = 0.1
+#: A parameter with at least this share of its variance from the bench's level errors, or
+#: this correlation with another, is reported as weakly identified: the run alone does not
+#: pin it, and a bench error shaped otherwise than a constant level offset (one that changes
+#: with frequency) can move it past its interval (seen on the full demo run for the LO port
+#: resistance and the RF high-pass corner). Thresholds: common practice, no source.
+WEAK_LEVEL_SHARE = 0.5
+WEAK_CORRELATION = 0.95  # finite-difference step of a level error, dB
+#: Figures read as output − input (an input level error δ reads them δ high; an output one too).
+_GAIN_FIGURES = frozenset({"conversion_gain", "lo_drive_gain", "compression_gain"})
+#: Figures read as input levels (an input level error δ reads them δ low).
+_INPUT_REFERRED = frozenset({"input_p1db", "iip3_point_low", "iip3_point_high",
+                             "iip2_point_low", "iip2_point_high"})
 #: Solver tolerances (relative change of cost, step and gradient): 1e-6 of a cost of order
 #: the figure count moves no figure by a thousandth of its scale; scipy's default 1e-8 only
 #: adds iterations (each a full model pass) here.
@@ -70,6 +93,20 @@ class FittedParameter:
     start: float | None
     at_bound: bool
     what: str
+    #: Share of the interval's variance that is the bench's unseen level errors
+    #: (:func:`_with_bench_levels`), 0 to 1; the core parameter it is most correlated with
+    #: and that correlation coefficient (``cov_ij/√(cov_ii·cov_jj)``).
+    level_share: float = 0.0
+    correlated_with: str = ""
+    correlation: float = 0.0
+
+    @property
+    def weakly_identified(self) -> bool:
+        """True when the run pins this parameter only weakly: most of its variance is the
+        bench's level errors (:data:`WEAK_LEVEL_SHARE`), or it trades off against another
+        parameter (|ρ| ≥ :data:`WEAK_CORRELATION`)."""
+        return (self.level_share >= WEAK_LEVEL_SHARE
+                or abs(self.correlation) >= WEAK_CORRELATION)
 
     def covers(self, true_value: float) -> bool:
         """True when ``true_value`` (SI) lies in the 95 % interval."""
@@ -138,12 +175,12 @@ def fit_twin(template: MixerPart, obs: ObservationSet) -> TwinFit:
         if best is None or stage.cost < best[0]:
             best = (stage.cost, stage)
     assert best is not None
-    core = best[1]
+    core = _with_bench_levels(best[1], core_obs)
     part = core.part
     stages = [core]
     for group in dict.fromkeys(p.group for p in free if p.group != "core"):
         group_free = tuple(p for p in free if p.group == group)
-        group_obs = obs.named(group)
+        group_obs = obs.of_group(group)
         stage = _fit_stage(part, group_free, group_obs)
         # the core's own uncertainty moves this group's estimate too: add it
         stage = _propagate(stage, core, group_obs)
@@ -152,8 +189,9 @@ def fit_twin(template: MixerPart, obs: ObservationSet) -> TwinFit:
     fitted = []
     for stage in stages:
         for i, p in enumerate(stage.free):
-            fitted.append(_fitted(p, float(stage.x[i]), stage.cov[i, i], stage.dof,
-                                  p.get(template)))
+            fitted.append(_with_identification(
+                _fitted(p, float(stage.x[i]), stage.cov[i, i], stage.dof, p.get(template)),
+                stage, i))
     m = len(obs.observations)
     total_cost = sum(st.cost for st in stages)
     residual_cost = total_cost + _unfitted_cost(part, obs, stages)
@@ -179,6 +217,7 @@ class _Stage:
     cost: float
     jac: np.ndarray
     converged: bool
+    level_cov: np.ndarray | None = None  # the bench-level part of ``cov``
 
 
 def _fit_stage(base: MixerPart, free: tuple[FitParameter, ...],
@@ -191,6 +230,55 @@ def _fit_stage(base: MixerPart, free: tuple[FitParameter, ...],
     jac = np.asarray(result.jac, dtype=float)
     return _Stage(_apply(base, free, result.x), base, free, np.asarray(result.x, dtype=float),
                   _covariance(jac, s2), dof, cost, jac, bool(result.success))
+
+
+def _with_bench_levels(stage: _Stage, observations: Sequence[Observation],
+                       u_db: float = BENCH_LEVEL_U_DB) -> _Stage:
+    """Add to a stage's covariance what the bench's level errors do to its estimate.
+
+    A level error common to every figure (the RF source's, the LO source's, the output
+    path's) does not scatter the residuals, so the Jacobian covariance cannot hold it: the
+    fit absorbs it into the parameters (an LO level error into the LO port resistance, an RF
+    or output one into the tail current). Each is an input quantity δ_k of standard
+    uncertainty ``u_db``; the estimate moves by ``g_k = −(JᵀJ)⁻¹Jᵀ·∂r/∂δ_k`` per dB, so
+    ``cov += Σ_k u²·g_k·g_kᵀ`` (the law of propagation of uncertainty, JCGM 100:2008 (GUM)
+    §5.1.2, for independent inputs). ``∂r/∂δ_k``: the model at every observation's level
+    moved by the error (RF: ``rf_power_dbm`` and ``rf2_power_dbm``; LO: ``lo_power_dbm``),
+    plus how the figure is read (a gain is read as output − the nominal input, so an RF
+    error reads it δ high; an input-referred figure, δ low; an output error moves a gain
+    only). Found on the full demo run: without it the tail current's and the LO port
+    resistance's 95 % intervals missed the truth by several widths (a ±0.15 dB source
+    level error the fit could not see).
+    """
+    if not stage.free or u_db <= 0.0 or not np.all(np.isfinite(stage.cov)):
+        return stage
+    scale = np.array([o.scale for o in observations])
+    gain = np.array([o.name in _GAIN_FIGURES for o in observations], dtype=float)
+    input_referred = np.array([o.name in _INPUT_REFERRED for o in observations], dtype=float)
+    base = model_figures(stage.part, observations)
+
+    def moved(keys: tuple[str, ...]) -> np.ndarray:
+        shifted = [Observation(o.name, o.value, MappingProxyType(
+            {**o.conditions, **{k: o.conditions[k] + _LEVEL_STEP_DB for k in keys
+                                if k in o.conditions}}), o.study) for o in observations]
+        d = (model_figures(stage.part, shifted) - base) / _LEVEL_STEP_DB
+        return np.where(np.isfinite(d), d, 0.0)
+
+    directions = (
+        moved(("rf_power_dbm", "rf2_power_dbm")) + gain - input_referred,  # RF source
+        moved(("lo_power_dbm",)),  # LO source
+        gain,  # output path
+    )
+    jac = stage.jac
+    try:
+        solve = np.linalg.solve(jac.T @ jac, jac.T)
+    except np.linalg.LinAlgError:
+        return stage
+    extra = np.zeros_like(stage.cov)
+    for d in directions:
+        g = solve @ (d / scale)
+        extra += u_db * u_db * np.outer(g, g)
+    return replace(stage, cov=stage.cov + extra, level_cov=extra)
 
 
 def _propagate(stage: _Stage, core: _Stage, observations: Sequence[Observation]) -> _Stage:
@@ -239,9 +327,29 @@ def _fitted(p: FitParameter, x: float, var: float, dof: int,
                            at_bound, p.what)
 
 
+def _with_identification(fp: FittedParameter, stage: _Stage, i: int) -> FittedParameter:
+    """``fp`` with its bench-level share and its strongest correlation in the core stage."""
+    cov = stage.cov
+    var = float(cov[i, i])
+    if not (math.isfinite(var) and var > 0.0):
+        return fp
+    if stage.level_cov is None:  # a later stage: a path's level and its slope trade off
+        return fp  # about the reference frequency by construction, which says nothing
+    share = min(max(float(stage.level_cov[i, i]) / var, 0.0), 1.0)
+    partner, rho = "", 0.0
+    for j, q in enumerate(stage.free):
+        if j == i or not (math.isfinite(cov[j, j]) and cov[j, j] > 0.0):
+            continue
+        r = float(cov[i, j] / math.sqrt(var * cov[j, j]))
+        if abs(r) > abs(rho):
+            partner, rho = q.key, r
+    return replace(fp, level_share=share, correlated_with=partner, correlation=rho)
+
+
 def _unfitted_cost(part: MixerPart, obs: ObservationSet, stages: list[_Stage]) -> float:
     """½Σr² of the observations no stage fitted (a figure whose path is not a parameter)."""
-    fitted_names = set(CORE_FIGURES) | {p.group for st in stages for p in st.free}
+    fitted_names = set(CORE_FIGURES) | {name for st in stages for p in st.free
+                                        for name in GROUP_FIGURES.get(p.group, (p.group,))}
     rest = tuple(o for o in obs.observations if o.name not in fitted_names)
     if not rest:
         return 0.0

@@ -12,9 +12,18 @@ figure is computed the way the analysis measured it, at the observation's own co
 * ``iip3_point_low`` / ``_high``: ``P_in + (P_fund − P_IM3)/2`` at the measured two-tone
   drive (the single-point intercept; Pozar, Microwave Engineering, 4th ed., §10.3, and the
   field notes' intercept relation), lower product with the lower tone's fundamental;
+* ``iip2_point_low`` / ``_high``: ``P_in + (P_fund − P_IM2)`` (the field notes' IIP2
+  relation; Razavi, RF Microelectronics), the IM2 line at f2 − f1 (low) or f1 + f2 (high),
+  which reaches the output port untranslated, against the lower tone's fundamental, as the
+  analysis takes them (:mod:`sweeprig.analysis.intercept`);
 * ``input_p1db``: input power where the single-tone gain is 1 dB under small signal
   (:func:`sweeprig.sim.mixer.reference.input_p1db_dbm`);
-* ``supply_current`` (A) and ``noise_figure`` (dB, at the LO drive).
+* ``supply_current`` (A);
+* ``noise_figure`` (dB): as the Y-factor method sees the model (:func:`sweeprig.sim.
+  noise_truth.part_noise_figure`: the output noise density against the conversion gain of the
+  signal band, or of signal and image bands for a double-sideband figure, with the port band
+  edges), at the LO drive. The part's own ``noise.figure`` is the mid-band SSB figure; the
+  measured one also carries the band edges' gain slope between signal and image.
 
 Downconverters only (the RF port feeds the transconductor, the IF port is the output); the
 fit refuses a run of an upconverter before it gets here.
@@ -36,10 +45,10 @@ from sweeprig.sim.mixer.reference import (
     input_p1db_dbm,
     line_power_dbm,
     output_freq_hz,
-    reference_figures,
 )
 from sweeprig.sim.mixer.types import OperatingPoint, ToneInput
-from sweeprig.twin.observations import Observation
+from sweeprig.sim.noise_truth import part_noise_figure
+from sweeprig.twin.observations import NOISE_DSB, Observation
 
 _SMALL_SIGNAL_BACKOFF_DB = 50.0  # as the reference figures: gain error < 0.001 dB there
 _DEFAULT_RF_POWER_DBM = -30.0  # a figure without an RF power (none of the fitted ones)
@@ -69,12 +78,17 @@ def _one(part: MixerPart, obs: Observation, single: dict[tuple[float, ...], obje
     if name == "supply_current":
         return part.supply_current_at(op)
     if name == "noise_figure":
-        return reference_figures(part, op, lo.freq_hz, lo.power_dbm, f_rf).noise_figure_db
+        truth = part_noise_figure(part, temperature_c=op.temperature_c, supply_v=op.supply_v,
+                                  lo_freq_hz=lo.freq_hz, lo_power_dbm=lo.power_dbm,
+                                  rf_freq_hz=f_rf)
+        return truth.dsb_db if obs.condition(NOISE_DSB, 0.0) else truth.ssb_db
     if name == "input_p1db":
         small = closed_form_iip3_dbm(part, op, f_rf) - _SMALL_SIGNAL_BACKOFF_DB
         return input_p1db_dbm(part, op, lo, f_rf, small)
     if name in ("iip3_point_low", "iip3_point_high"):
         return _point_iip3(part, op, lo, obs, low=name.endswith("low"))
+    if name in ("iip2_point_low", "iip2_point_high"):
+        return _point_iip2(part, op, lo, obs, low=name.endswith("low"))
     key = (op.temperature_c, op.supply_v, lo.freq_hz, lo.power_dbm, f_rf, p_rf)
     resp = single.get(key)
     if resp is None:
@@ -107,6 +121,18 @@ def _point_iip3(part: MixerPart, op: OperatingPoint, lo: ToneInput, obs: Observa
     fund = line_power_dbm(lines, output_freq_hz(part, f2, lo.freq_hz))
     im3 = line_power_dbm(lines, output_freq_hz(part, 2 * f2 - f1, lo.freq_hz))
     return _finite(p2 + 0.5 * (fund - im3))
+
+
+def _point_iip2(part: MixerPart, op: OperatingPoint, lo: ToneInput, obs: Observation, *,
+                low: bool) -> float:
+    f1 = obs.condition("rf_freq_hz")
+    f2 = obs.condition("rf2_freq_hz")
+    p1 = obs.condition("rf_power_dbm")
+    p2 = obs.condition("rf2_power_dbm", p1)
+    lines = part.evaluate(op, lo, [ToneInput(f1, p1), ToneInput(f2, p2)]).if_port
+    fund = line_power_dbm(lines, output_freq_hz(part, f1, lo.freq_hz))
+    im2 = line_power_dbm(lines, abs(f2 - f1) if low else f1 + f2)
+    return _finite(p1 + (fund - im2))
 
 
 def _finite(value: float) -> float:

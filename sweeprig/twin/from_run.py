@@ -82,7 +82,8 @@ def fit_stored_run(store_path: Path, run_id: int, *, template: str = DEFAULT_TEM
                 f"{DEFAULT_TEMPLATE})",
         )
     observations = observations_from_figures(run.figures, where=where,
-                                             extra=swept_gains(run))
+                                             extra=swept_gains(run),
+                                             lo_freq_by_point=_lo_freq_by_point(run))
     bench = resolve_description(None if sim_description is None else str(sim_description))
     placed = base.with_changes(leakage_phases=bench.leakage_phases())
     fit = fit_twin(placed, observations)
@@ -122,6 +123,15 @@ def swept_gains(run: RunFigures) -> tuple[Observation, ...]:
 
 _GAIN_CONDITIONS = ("temperature_c", "supply_v", "lo_freq_hz", "lo_power_dbm", "rf_freq_hz",
                     "rf_power_dbm")
+
+
+def _lo_freq_by_point(run: RunFigures) -> dict[int, float]:
+    """The LO frequency (Hz) of every point of the run's captures."""
+    table = run.captures
+    if table.empty or "point" not in table or "lo_freq_hz" not in table:
+        return {}
+    first = table.groupby("point")["lo_freq_hz"].first()
+    return {int(k): float(v) for k, v in first.items() if math.isfinite(float(v))}
 
 
 def _stored_conversion(sequence_text: str) -> str:

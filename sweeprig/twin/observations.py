@@ -28,6 +28,10 @@ FITTED_FIGURES: Mapping[str, tuple[str, float]] = MappingProxyType({
     "input_p1db": ("dBm", 0.15),
     "iip3_point_low": ("dBm", 0.25),
     "iip3_point_high": ("dBm", 0.25),
+    # IM2 lines sit far down and move with small mismatches: a bench repeats them to about
+    # ±1 dB (common practice, no source); half of that, as for the other kinds
+    "iip2_point_low": ("dBm", 0.5),
+    "iip2_point_high": ("dBm", 0.5),
     "lo_if_isolation": ("dB", 0.5),
     "lo_rf_isolation": ("dB", 0.5),
     "rf_if_isolation": ("dB", 0.5),
@@ -38,6 +42,12 @@ FITTED_FIGURES: Mapping[str, tuple[str, float]] = MappingProxyType({
 #: The figures that constrain the core (the other figures each constrain their own path).
 CORE_FIGURES = ("conversion_gain", "lo_drive_gain", "compression_gain", "input_p1db",
                 "iip3_point_low", "iip3_point_high")
+
+#: Fit groups other than the core whose parameters are constrained by more than one figure
+#: name (group → figure names); any other group is constrained by the one figure it names.
+GROUP_FIGURES: Mapping[str, tuple[str, ...]] = MappingProxyType({
+    "even_order": ("iip2_point_low", "iip2_point_high"),
+})
 
 #: The figures without which there is no twin: the gain sets the transconductor.
 REQUIRED_FIGURES = ("conversion_gain",)
@@ -51,6 +61,10 @@ DISQUALIFYING_FLAGS = frozenset({
     figures.MISSING_READING, figures.UNPOWERED, figures.SUPPLY_CURRENT_OFF,
 })
 
+#: Condition key of a ``noise_figure`` observation: 1.0 when the figure is double-sideband
+#: (referred to the signal and image bands' gains together), 0.0 when single-sideband.
+NOISE_DSB = "noise_dsb"
+
 _CONDITION_KEYS = ("temperature_c", "supply_v", "lo_freq_hz", "lo_power_dbm", "rf_freq_hz",
                    "rf_power_dbm", "rf2_freq_hz", "rf2_power_dbm")
 
@@ -59,8 +73,8 @@ _CONDITION_KEYS = ("temperature_c", "supply_v", "lo_freq_hz", "lo_power_dbm", "r
 class Observation:
     """One measured figure: ``name`` (see :data:`FITTED_FIGURES`), ``value`` in its unit,
     ``conditions`` (SI: ``temperature_c``, ``supply_v``, ``lo_freq_hz``, ``lo_power_dbm``,
-    ``rf_freq_hz``, ``rf_power_dbm``, and for two tones ``rf2_freq_hz``, ``rf2_power_dbm``),
-    ``study`` it came from."""
+    ``rf_freq_hz``, ``rf_power_dbm``, and for two tones ``rf2_freq_hz``, ``rf2_power_dbm``; a
+    noise figure also :data:`NOISE_DSB`), ``study`` it came from."""
 
     name: str
     value: float
@@ -88,6 +102,11 @@ class ObservationSet:
         """The observations of one figure name."""
         return tuple(o for o in self.observations if o.name == name)
 
+    def of_group(self, group: str) -> tuple[Observation, ...]:
+        """The observations that constrain fit group ``group`` (see :data:`GROUP_FIGURES`)."""
+        names = GROUP_FIGURES.get(group, (group,))
+        return tuple(o for o in self.observations if o.name in names)
+
     def distinct(self, name: str, key: str) -> tuple[float, ...]:
         """Distinct values of condition ``key`` among the observations called ``name``."""
         values = {round(o.condition(key), 9) for o in self.named(name)}
@@ -102,9 +121,13 @@ class ObservationSet:
 
 
 def observations_from_figures(figures: Iterable[object], *, where: str,
-                              extra: Iterable[Observation] = ()) -> ObservationSet:
+                              extra: Iterable[Observation] = (),
+                              lo_freq_by_point: Mapping[int, float] = MappingProxyType({}),
+                              ) -> ObservationSet:
     """The fit's observations from analysis figures (:class:`~sweeprig.analysis.figures.Figure`
-    objects or anything with ``name``, ``value``, ``bound``, ``flags``, ``conditions``).
+    objects or anything with ``name``, ``value``, ``bound``, ``flags``, ``conditions``,
+    ``points``). ``lo_freq_by_point``: the LO frequency (Hz) of each run-store point, for the
+    figures whose conditions do not carry it (the noise figure's name the IF instead).
 
     Raises :class:`~sweeprig.errors.InputError` (at ``where``) naming the missing figures when
     a required one has no usable number.
@@ -129,6 +152,11 @@ def observations_from_figures(figures: Iterable[object], *, where: str,
         raw = dict(getattr(fig, "conditions", {}) or {})
         conditions = {k: float(raw[k]) for k in _CONDITION_KEYS
                       if k in raw and isinstance(raw[k], int | float)}
+        if name == "noise_figure":
+            conditions[NOISE_DSB] = 1.0 if raw.get("sideband") == "dsb" else 0.0
+        points = tuple(getattr(fig, "points", ()) or ())
+        if "lo_freq_hz" not in conditions and points and points[0] in lo_freq_by_point:
+            conditions["lo_freq_hz"] = float(lo_freq_by_point[points[0]])
         kept.append(Observation(name, value, MappingProxyType(conditions),
                                 str(raw.get("study", ""))))
     kept += list(extra)

@@ -21,6 +21,15 @@ from sweeprig.twin.observations import ObservationSet
 #: RF port's band corners (common practice, no source: closer, a first-order corner a
 #: decade away moves the gain by well under the measurement's repeatability).
 CORNER_SPAN_RATIO = 1.2
+#: An isolation path's frequency slope a fit may reach, dB per octave: twice a coupling
+#: capacitance's −6 dB per octave either way (common practice, no source).
+ISOLATION_SLOPE_BOUND = 12.0
+
+#: The load mismatch ΔR/R a fit may reach: ±5 % (integrated load resistors match to well
+#: under 1 %; common practice, no source). The even-order products see ε + D_0 (the quad's
+#: DC imbalance from its offsets, kept from the template) only through their power, so the
+#: sign of ε + D_0 is not observable: the fit keeps the side the template starts on.
+LOAD_MISMATCH_BOUND = 0.05
 
 
 @dataclass(frozen=True)
@@ -113,6 +122,20 @@ def _rf_span(obs: ObservationSet) -> str | None:
     return None
 
 
+def _swept(name: str, key: str) -> Callable[[ObservationSet], str | None]:
+    """A leakage figure at 3 or more frequencies (condition ``key``) spanning the corners'
+    ratio: enough for a slope beside the level (3 points leave one degree of freedom)."""
+    def needs(obs: ObservationSet) -> str | None:
+        freqs = obs.distinct(name, key)
+        if len(freqs) < 3:
+            return f"{name} measured at {len(freqs)} frequencies (needs 3 for a slope)"
+        if freqs[-1] / freqs[0] < CORNER_SPAN_RATIO:
+            return (f"{name} measured over {freqs[0] / 1e9:.3g}-{freqs[-1] / 1e9:.3g} GHz "
+                    f"(needs a ratio of {CORNER_SPAN_RATIO:g} for a slope)")
+        return None
+    return needs
+
+
 def _both(*rules: Callable[[ObservationSet], str | None]) -> Callable[[ObservationSet],
                                                                        str | None]:
     def needs(obs: ObservationSet) -> str | None:
@@ -122,6 +145,34 @@ def _both(*rules: Callable[[ObservationSet], str | None]) -> Callable[[Observati
                 return why
         return None
     return needs
+
+
+def _even_order(part: MixerPart) -> Callable[[ObservationSet], str | None]:
+    having = _having("iip2_point_low", "iip2_point_high")
+
+    def needs(obs: ObservationSet) -> str | None:
+        why = having(obs)
+        if why:
+            return why
+        if not part.cm_second_order:
+            return ("the template has no common-mode second-order current "
+                    "(core.cm_second_order = 0), so the load mismatch moves no IM2 line")
+        return None
+    return needs
+
+
+def _slopes() -> tuple[FitParameter, ...]:
+    """The isolation paths' frequency slopes (dB per octave about the part's isolation
+    reference frequency), each fitted with its path's level when the run swept frequency."""
+    bound = (-ISOLATION_SLOPE_BOUND, ISOLATION_SLOPE_BOUND)
+    paths = (("lo_to_if", "lo_if", "lo_if_isolation", "lo_freq_hz", "LO→IF"),
+             ("lo_to_rf", "lo_rf", "lo_rf_isolation", "lo_freq_hz", "LO→RF"),
+             ("rf_to_if", "rf_if", "rf_if_isolation", "rf_freq_hz", "RF→IF"))
+    return tuple(
+        FitParameter(f"isolation.{key}_slope", "dB/octave", 1.0, False, bound,
+                     *_attr(f"isolation_{attr}_slope_db_per_octave"), _swept(figure, cond),
+                     f"{label} path's change with frequency", figure)
+        for key, attr, figure, cond, label in paths)
 
 
 def catalogue(part: MixerPart, obs: ObservationSet) -> tuple[FitParameter, ...]:
@@ -168,6 +219,12 @@ def catalogue(part: MixerPart, obs: ObservationSet) -> tuple[FitParameter, ...]:
                      *_attr("isolation_rf_if_db"), _having("rf_if_isolation"),
                      "RF→IF feedthrough path (on top of what the quad's offsets make)",
                      "rf_if_isolation"),
+        *_slopes(),
+        FitParameter("mismatch.load", "", 1.0, False, (-LOAD_MISMATCH_BOUND, LOAD_MISMATCH_BOUND),
+                     *_attr("load_mismatch"), _even_order(part),
+                     "load mismatch ΔR/R: with the quad's DC imbalance and the input pair's "
+                     "common-mode current, the even-order (IM2) products at the output",
+                     "even_order"),
         FitParameter("noise.figure", "dB", 1.0, False, (0.0, 40.0),
                      *_attr("noise_figure_db"), _having("noise_figure"),
                      "noise figure at the reference temperature", "noise_figure"),
@@ -180,10 +237,13 @@ def catalogue(part: MixerPart, obs: ObservationSet) -> tuple[FitParameter, ...]:
 
 #: What the fit never moves, and why (said in the report and the part file).
 NOT_FITTED: tuple[tuple[str, str], ...] = (
-    ("mismatch.*", "the pair offsets and load mismatch (even-order products, IIP2) are not "
-     "fitted by this version: the template's values are kept"),
+    ("mismatch.quad_offset_*, mismatch.rf_pair_offset, core.cm_second_order", "the IM2 "
+     "lines see the offsets, the load mismatch and the common-mode current only as one "
+     "product, c2·(ε + D_0): the im2 readings set it through mismatch.load alone; the "
+     "offsets (which also shape the leakage the isolation paths are fitted on top of) and "
+     "c2 keep the template's values"),
     ("ports.*.return_loss, ports.if.*", "port matches and the IF port's corners are not "
      "fitted: the template's values are kept"),
-    ("core.cm_second_order, noise.lo_nominal, noise.switch_share, core.min_supply", "kept "
+    ("noise.lo_nominal, noise.switch_share, core.min_supply", "kept "
      "from the template"),
 )

@@ -15,7 +15,13 @@ from pathlib import Path
 
 from sweeprig.files import replace_text
 from sweeprig.sim.mixer.part import MixerPart, PortNetwork, part_from_mapping
-from sweeprig.twin.fit import FittedParameter, TwinFit
+from sweeprig.twin.fit import (
+    BENCH_LEVEL_U_DB,
+    WEAK_CORRELATION,
+    WEAK_LEVEL_SHARE,
+    FittedParameter,
+    TwinFit,
+)
 from sweeprig.twin.parameters import NOT_FITTED
 
 _Q = Callable[[float], str]
@@ -47,8 +53,9 @@ def part_file_text(fit: TwinFit, *, name: str, source: str, template: str) -> st
         f"# (sweeprig twin fit). Template for everything the run did not constrain: {template}.",
         f"# {fit.observations} figures, {len(fit.parameters)} parameters, "
         f"residual scale s = {_num(fit.residual_scale, 3)} (1 = the figures' nominal scatter).",
-        "# Intervals: 95 %, from the Jacobian (cov = s²·(JᵀJ)⁻¹); they hold the run's scatter,",
-        "# not a bias common to every figure (a path-loss error of the bench).",
+        "# Intervals: 95 %, from the Jacobian (cov = s²·(JᵀJ)⁻¹, the run's scatter) plus what",
+        f"# unseen bench level errors (RF, LO, output; u = {BENCH_LEVEL_U_DB:g} dB each) move the",
+        "# estimate by; a larger path-loss error than that (an uncalibrated bench) is not in them.",
         f"# {fit.bias_note}.",
         "# Residuals, model − measured (mean / RMS / worst):",
     ]
@@ -78,20 +85,27 @@ def part_file_text(fit: TwinFit, *, name: str, source: str, template: str) -> st
         f"aux_supply_coeff = {_num(part.aux_supply_coeff_per_v)}",
         f"cm_second_order = {_num(part.cm_second_order)}",
         "",
-        "[mismatch]  # not fitted: template values",
+        "[mismatch]  # offsets: template values (see the header); load: the even-order fit",
         f'quad_offset_1 = "{_num(part.quad_offset_1_v * 1e3)} mV"',
         f'quad_offset_2 = "{_num(part.quad_offset_2_v * 1e3)} mV"',
         f'rf_pair_offset = "{_num(part.rf_pair_offset_v * 1e3)} mV"',
-        f"load = {_num(part.load_mismatch)}",
+        line("mismatch.load", _num(part.load_mismatch)),
     ]
     for label, port in (("rf", part.rf_port), ("lo", part.lo_port), ("if", part.if_port)):
         lines += ["", f"[ports.{label}]", *_port_lines(label, port, line)]
     iso = (("lo_to_rf", part.isolation_lo_rf_db), ("lo_to_if", part.isolation_lo_if_db),
            ("rf_to_if", part.isolation_rf_if_db), ("rf_to_lo", part.isolation_rf_lo_db))
-    lines += ["", "[isolation]"]
+    slopes = {"lo_to_rf": part.isolation_lo_rf_slope_db_per_octave,
+              "lo_to_if": part.isolation_lo_if_slope_db_per_octave,
+              "rf_to_if": part.isolation_rf_if_slope_db_per_octave,
+              "rf_to_lo": part.isolation_rf_lo_slope_db_per_octave}
+    lines += ["", "[isolation]",
+              f'reference_frequency = "{_num(part.isolation_reference_hz / 1e9)} GHz"'
+              "  # each path's level holds here; its slope is dB per octave about it"]
     for key, value in iso:
         if value is not None:
             lines.append(line(f"isolation.{key}", f'"{_num(value, 5)} dB"'))
+            lines.append(line(f"isolation.{key}_slope", _num(slopes[key], 4)))
         else:
             lines.append(f"# {key}: no extra path{note(f'isolation.{key}')}")
     lines += [
@@ -131,7 +145,15 @@ def _fitted_note(p: FittedParameter) -> str:
         return f"fitted, ended on its bound ({p.what}): no interval"
     if not (math.isfinite(p.low) and math.isfinite(p.high)):
         return "fitted, no interval (the run cannot tell this direction apart)"
-    return f"fitted: 95 % interval {_num(p.low * k, 4)} to {_num(p.high * k, 4)} {p.unit}"
+    text = f"fitted: 95 % interval {_num(p.low * k, 4)} to {_num(p.high * k, 4)} {p.unit}".rstrip()
+    if p.weakly_identified:
+        why = []
+        if p.level_share >= WEAK_LEVEL_SHARE:
+            why.append(f"{p.level_share:.0%} of its variance is the bench's level errors")
+        if abs(p.correlation) >= WEAK_CORRELATION:
+            why.append(f"trades off against {p.correlated_with} (ρ = {p.correlation:+.2f})")
+        text += "; weakly identified: " + ", ".join(why)
+    return text
 
 
 def _string(text: str) -> str:

@@ -47,6 +47,7 @@ def test_print_recovery_on_the_simulated_bench_over_seeds(tmp_path):
         "core.aux_current": truth.aux_current_a,
         "isolation.lo_to_if": truth.isolation_lo_if_db,
         "isolation.lo_to_rf": truth.isolation_lo_rf_db,
+        "mismatch.load": truth.load_mismatch,
     }
     covered = dict.fromkeys(true_values, 0)
     print("\nrecovery of the KX-2417 on the simulated bench (small twin sequence):")

@@ -24,6 +24,9 @@ TRUE_VALUES = {  # the shipped part's own values, SI
     "core.aux_current": TRUTH.aux_current_a,
     "isolation.lo_to_if": TRUTH.isolation_lo_if_db,
     "isolation.lo_to_rf": TRUTH.isolation_lo_rf_db,
+    "mismatch.load": TRUTH.load_mismatch,  # from the run's im2 readings
+    "isolation.lo_to_if_slope": 0.0,  # flat paths; the leakage read over 1.7-2.5 GHz of LO
+    "isolation.lo_to_rf_slope": 0.0,
 }
 
 
@@ -47,7 +50,8 @@ def test_the_fit_names_what_the_run_did_not_constrain(small_twin):
 
 def test_the_residuals_are_within_the_twin_targets(small_twin):
     targets = {"conversion_gain": 0.1, "lo_drive_gain": 0.1, "compression_gain": 0.3,
-               "iip3_point_low": 0.5, "iip3_point_high": 0.5, "lo_if_isolation": 1.0,
+               "iip3_point_low": 0.5, "iip3_point_high": 0.5, "iip2_point_low": 1.0,
+               "lo_if_isolation": 1.0,
                "lo_rf_isolation": 1.0}
     worst = {r.name: abs(r.worst) for r in small_twin.fit.residuals}
     for name, target in targets.items():
@@ -63,6 +67,8 @@ def test_the_part_file_loads_and_marks_every_unconstrained_key(small_twin):
     assert "not constrained by the run" in line
     line = next(x for x in small_twin.text.splitlines() if x.startswith("tail_current"))
     assert "95 % interval" in line
+    line = next(x for x in small_twin.text.splitlines() if x.startswith("load ="))
+    assert "95 % interval" in line  # the even-order products were read: the mismatch is fitted
 
 
 def test_the_covariance_is_the_textbook_one_for_a_straight_line():

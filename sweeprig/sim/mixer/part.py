@@ -36,7 +36,11 @@ Part-file schema (TOML). Quantities may be written with units ("4 mA", "2.4 GHz"
 ``[isolation]`` (optional; dB, positive; a missing key means no extra leakage path)
     ``lo_to_rf``, ``lo_to_if`` (LO coupled straight to the port, on top of what the core
     makes), ``rf_to_if`` (feedthrough between the RF and IF ports, on top of what mismatch
-    makes), ``rf_to_lo``.
+    makes), ``rf_to_lo``: each at ``reference_frequency`` (default 1 GHz). Each path may
+    change with frequency: ``lo_to_rf_slope`` (and ``lo_to_if_slope``, ``rf_to_if_slope``,
+    ``rf_to_lo_slope``), dB per octave (default 0: flat), so a line at f leaks through
+    ``isolation + slope·log2(f/reference_frequency)`` dB (a coupling capacitance gives
+    about −6 dB per octave: its admittance doubles with f).
 ``[noise]``
     ``figure`` SSB noise figure at ``core.reference_temperature`` (required);
     ``figure_tempco`` dB per degC (default 0); ``lo_nominal``: the LO power (dBm at the LO
@@ -243,6 +247,11 @@ class IsolationTable(_Table):
     lo_to_if: _quantity("level_db", at_least=0.0) | None = None
     rf_to_if: _quantity("level_db", at_least=0.0) | None = None
     rf_to_lo: _quantity("level_db", at_least=0.0) | None = None
+    reference_frequency: _quantity("frequency", above=0.0) = 1e9
+    lo_to_rf_slope: _number("dB per octave") = 0.0
+    lo_to_if_slope: _number("dB per octave") = 0.0
+    rf_to_if_slope: _number("dB per octave") = 0.0
+    rf_to_lo_slope: _number("dB per octave") = 0.0
 
 
 class NoiseTable(_Table):
@@ -399,6 +408,11 @@ class MixerPart:
     isolation_lo_if_db: float | None = None
     isolation_rf_if_db: float | None = None
     isolation_rf_lo_db: float | None = None
+    isolation_reference_hz: float = 1e9
+    isolation_lo_rf_slope_db_per_octave: float = 0.0
+    isolation_lo_if_slope_db_per_octave: float = 0.0
+    isolation_rf_if_slope_db_per_octave: float = 0.0
+    isolation_rf_lo_slope_db_per_octave: float = 0.0
     noise_figure_tempco_db_per_c: float = 0.0
     cm_second_order: float = 0.0
     load_mismatch: float = 0.0
@@ -453,6 +467,11 @@ class MixerPart:
     @property
     def isolation_lo_to_input_db(self) -> float | None:
         return self.isolation_lo_rf_db if self.conversion == "down" else self.isolation_lo_if_db
+
+    def _iso_slope(self, path: str) -> tuple[float, float]:
+        """(dB per octave, reference Hz) of a leakage path (``"lo_rf"``, ``"lo_if"``, …)."""
+        return (getattr(self, f"isolation_{path}_slope_db_per_octave"),
+                self.isolation_reference_hz)
 
     def with_changes(self, **changes: Any) -> MixerPart:
         """A copy with some parameters changed (fresh caches)."""
@@ -641,17 +660,20 @@ class MixerPart:
             iso = self.isolation_rf_if_db
             if iso is not None:
                 for k, t in enumerate(tones):
-                    leaks += _tone_entries(t, 1 + k, n_axes, iso, phases.rf_to_if)
+                    leaks += _tone_entries(t, 1 + k, n_axes, iso, phases.rf_to_if,
+                                           self._iso_slope("rf_if"))
             iso = self.isolation_lo_to_output_db
             if lo is not None and iso is not None:
                 path = phases.lo_to_if if self.conversion == "down" else phases.lo_to_rf
-                leaks += _tone_entries(lo, 0, n_axes, iso, path)
+                leaks += _tone_entries(lo, 0, n_axes, iso, path, self._iso_slope(
+                    "lo_if" if self.conversion == "down" else "lo_rf"))
             if leaks:
                 core = _add_entries(core, leaks)
             iso = self.isolation_lo_to_input_db
             if lo is not None and iso is not None:
                 path = phases.lo_to_rf if self.conversion == "down" else phases.lo_to_if
-                in_entries += _tone_entries(lo, 0, n_axes, iso, path)
+                in_entries += _tone_entries(lo, 0, n_axes, iso, path, self._iso_slope(
+                    "lo_rf" if self.conversion == "down" else "lo_if"))
             if inp.return_loss_db is not None:
                 for k, t in enumerate(tones):
                     in_entries += _tone_entries(t, 1 + k, n_axes, inp.return_loss_db,
@@ -662,7 +684,8 @@ class MixerPart:
             iso = self.isolation_rf_lo_db
             if iso is not None:
                 for k, t in enumerate(tones):
-                    lo_entries += _tone_entries(t, 1 + k, n_axes, iso, phases.rf_to_lo)
+                    lo_entries += _tone_entries(t, 1 + k, n_axes, iso, phases.rf_to_lo,
+                                                self._iso_slope("rf_lo"))
         return _Evaluation(
             output=core,
             input_entries=in_entries,
@@ -792,11 +815,18 @@ def _unit_orders(n_axes: int, axis: int, multiple: int) -> tuple[int, ...]:
 
 
 def _tone_entries(
-    tone: ToneInput, axis: int, n_axes: int, loss_db: float, path: LeakPhase | None = None
+    tone: ToneInput, axis: int, n_axes: int, loss_db: float, path: LeakPhase | None = None,
+    slope: tuple[float, float] = (0.0, 1.0),
 ) -> list[_Entry]:
     """A tone and its harmonics carried by a linear path with ``loss_db``: (freq, sqrt(W)
     amplitude with the tone's phase (harmonic h at phase h·φ) turned by the path's own
-    phase at that frequency, orders)."""
+    phase at that frequency, orders). ``slope``: (dB per octave, reference Hz): the loss at
+    f is ``loss_db + slope·log2(f/reference)`` (0: flat)."""
+    if slope[0]:
+        loss_db = loss_db + slope[0] * math.log2(tone.freq_hz / slope[1])
+        harmonic_extra = [slope[0] * math.log2(h) for h in range(2, 2 + len(tone.harmonics_dbc))]
+    else:
+        harmonic_extra = [0.0] * len(tone.harmonics_dbc)
     root_w = 10.0 ** ((tone.power_dbm - loss_db - 30.0) / 20.0)  # sqrt(W) of the fundamental
     phase = tone.phase_rad
     turn = path is not None and (path.phase_rad or path.delay_s)
@@ -805,7 +835,7 @@ def _tone_entries(
         first *= path.rotation(tone.freq_hz)  # type: ignore[union-attr]
     out: list[_Entry] = [(tone.freq_hz, first, _unit_orders(n_axes, axis, 1))]
     for h, dbc in enumerate(tone.harmonics_dbc, start=2):
-        amp = cmath.rect(root_w * 10.0 ** (dbc / 20.0), h * phase)
+        amp = cmath.rect(root_w * 10.0 ** ((dbc - harmonic_extra[h - 2]) / 20.0), h * phase)
         if turn:
             amp *= path.rotation(h * tone.freq_hz)  # type: ignore[union-attr]
         out.append((h * tone.freq_hz, amp, _unit_orders(n_axes, axis, h)))
@@ -912,6 +942,11 @@ def part_from_file_model(model: PartFile, source: str = "") -> MixerPart:
         isolation_lo_if_db=iso.lo_to_if,
         isolation_rf_if_db=iso.rf_to_if,
         isolation_rf_lo_db=iso.rf_to_lo,
+        isolation_reference_hz=iso.reference_frequency,
+        isolation_lo_rf_slope_db_per_octave=iso.lo_to_rf_slope,
+        isolation_lo_if_slope_db_per_octave=iso.lo_to_if_slope,
+        isolation_rf_if_slope_db_per_octave=iso.rf_to_if_slope,
+        isolation_rf_lo_slope_db_per_octave=iso.rf_to_lo_slope,
         noise_figure_db=model.noise.figure,
         noise_figure_tempco_db_per_c=model.noise.figure_tempco,
         cm_second_order=core.cm_second_order,
