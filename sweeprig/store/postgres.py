@@ -64,9 +64,9 @@ def is_database_url(target: object) -> bool:
         and "://" in target
 
 
-def redact_url(url: str) -> str:
-    """``url`` without its password (and without any ``password=`` query value): what
-    messages may show."""
+def _without_password(url: str, *, mark: str | None) -> str:
+    """``url`` with its password replaced by ``mark`` in the user part and in any
+    ``password=`` query value, or left out entirely when ``mark`` is None."""
     try:
         parts = urlsplit(url)
     except ValueError:
@@ -75,26 +75,26 @@ def redact_url(url: str) -> str:
     if "@" in netloc:
         userinfo, host = netloc.rsplit("@", 1)
         user = userinfo.split(":", 1)[0]
-        netloc = f"{user}:***@{host}" if ":" in userinfo else f"{user}@{host}"
-    query = re.sub(r"(?i)(password=)[^&]*", r"\1***", parts.query)
+        netloc = f"{user}:{mark}@{host}" if ":" in userinfo and mark else f"{user}@{host}"
+    if mark:
+        query = re.sub(r"(?i)(password=)[^&]*", rf"\g<1>{mark}", parts.query)
+    else:
+        query = "&".join(q for q in parts.query.split("&")
+                         if q and not q.lower().startswith("password="))
     return urlunsplit((parts.scheme, netloc, parts.path, query, ""))
+
+
+def redact_url(url: str) -> str:
+    """``url`` without its password (and without any ``password=`` query value): what
+    messages may show."""
+    return _without_password(url, mark="***")
 
 
 def public_url(url: str) -> str:
     """``url`` with no password at all (none in the user part, no ``password=`` query
     value): a URL that may be shown and used again, the password coming from ``PGPASSWORD``
     or ``~/.pgpass``."""
-    try:
-        parts = urlsplit(url)
-    except ValueError:
-        return "<database URL>"
-    netloc = parts.netloc
-    if "@" in netloc:
-        userinfo, host = netloc.rsplit("@", 1)
-        netloc = f"{userinfo.split(':', 1)[0]}@{host}"
-    query = "&".join(q for q in parts.query.split("&")
-                     if q and not q.lower().startswith("password="))
-    return urlunsplit((parts.scheme, netloc, parts.path, query, ""))
+    return _without_password(url, mark=None)
 
 
 def scrub(text: str, url: str) -> str:

@@ -46,7 +46,7 @@ from sweeprig.sim.mixer.reference import (
     line_power_dbm,
     output_freq_hz,
 )
-from sweeprig.sim.mixer.types import OperatingPoint, ToneInput
+from sweeprig.sim.mixer.types import OperatingPoint, Product, ToneInput
 from sweeprig.sim.noise_truth import part_noise_figure
 from sweeprig.twin.observations import NOISE_DSB, Observation
 
@@ -106,14 +106,21 @@ def _one(part: MixerPart, obs: Observation, single: dict[tuple[float, ...], obje
     raise ValueError(f"no model for figure {name!r}")
 
 
-def _point_iip3(part: MixerPart, op: OperatingPoint, lo: ToneInput, obs: Observation, *,
-                low: bool) -> float:
+def _two_tones(part: MixerPart, op: OperatingPoint, lo: ToneInput, obs: Observation
+               ) -> tuple[float, float, float, float, tuple[Product, ...]]:
+    """The observation's two tones (f1, f2 in Hz; p1, p2 in dBm, tone 2 at tone 1's power
+    when unstated) and the lines they make at the output port."""
     f1 = obs.condition("rf_freq_hz")
     f2 = obs.condition("rf2_freq_hz")
     p1 = obs.condition("rf_power_dbm")
     p2 = obs.condition("rf2_power_dbm", p1)
-    resp = part.evaluate(op, lo, [ToneInput(f1, p1), ToneInput(f2, p2)])
-    lines = resp.if_port
+    lines = part.evaluate(op, lo, [ToneInput(f1, p1), ToneInput(f2, p2)]).if_port
+    return f1, f2, p1, p2, lines
+
+
+def _point_iip3(part: MixerPart, op: OperatingPoint, lo: ToneInput, obs: Observation, *,
+                low: bool) -> float:
+    f1, f2, p1, p2, lines = _two_tones(part, op, lo, obs)
     if low:
         fund = line_power_dbm(lines, output_freq_hz(part, f1, lo.freq_hz))
         im3 = line_power_dbm(lines, output_freq_hz(part, 2 * f1 - f2, lo.freq_hz))
@@ -125,11 +132,7 @@ def _point_iip3(part: MixerPart, op: OperatingPoint, lo: ToneInput, obs: Observa
 
 def _point_iip2(part: MixerPart, op: OperatingPoint, lo: ToneInput, obs: Observation, *,
                 low: bool) -> float:
-    f1 = obs.condition("rf_freq_hz")
-    f2 = obs.condition("rf2_freq_hz")
-    p1 = obs.condition("rf_power_dbm")
-    p2 = obs.condition("rf2_power_dbm", p1)
-    lines = part.evaluate(op, lo, [ToneInput(f1, p1), ToneInput(f2, p2)]).if_port
+    f1, f2, p1, _p2, lines = _two_tones(part, op, lo, obs)
     fund = line_power_dbm(lines, output_freq_hz(part, f1, lo.freq_hz))
     im2 = line_power_dbm(lines, abs(f2 - f1) if low else f1 + f2)
     return _finite(p1 + (fund - im2))
