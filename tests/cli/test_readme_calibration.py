@@ -38,18 +38,17 @@ def _invoke(args: list[str]) -> str:
     return result.output
 
 
-def test_the_readme_calibrates_and_runs_the_quick_look_on_the_errors_bench(
+def test_the_readme_calibrates_and_runs_the_quick_look_on_the_default_bench(
         tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
     monkeypatch.chdir(tmp_path)
     (calibrate,) = readme_commands(r"^sweeprig calibrate sequences/demo/quick\.toml")
     (run,) = readme_commands(r"^sweeprig run sequences/demo/quick\.toml .*--calibration")
-    # the README: "the same on a simulated bench with a real bench's errors: add
-    # --sim-bench bench-errors to both commands"
-    assert "add --sim-bench bench-errors to both commands" in README.read_text("utf-8")
-    out = _invoke([*calibrate, "--sim-bench", "bench-errors"])
+    # the default simulated bench is the one with a real bench's errors (no --sim-bench)
+    assert "--sim-bench" not in calibrate and "--sim-bench" not in run
+    out = _invoke(calibrate)
     assert "calibration written: cal.toml" in out and "rf: " in out
     assert (tmp_path / "cal.toml").exists()
-    out = _invoke([*run, "--sim-bench", "bench-errors"])
+    out = _invoke(run)
     assert "figures corrected by the calibration cal.toml" in out
     assert re.search(r"Conversion gain .* 1\d\.\d\d ± 0\.\d\d dB", out)
     # the run wrote its report where the README's `sweeprig report 1` re-makes it
@@ -63,6 +62,6 @@ def test_the_readme_demo_block_is_the_same_path() -> None:
     # checked by tests/engine/test_calibrated_figures.py and printed by the benchmark).
     (calibrate,) = readme_commands(r"^sweeprig calibrate \S+kx2417")
     (run,) = readme_commands(r"^sweeprig run \S+kx2417\S* .*--calibration")
-    assert calibrate[2:] == ["--sim", "--sim-bench", "bench-errors", "--out", "cal.toml"]
-    assert run[2:] == ["--sim", "--sim-bench", "bench-errors", "--calibration", "cal.toml"]
+    assert calibrate[2:] == ["--sim", "--out", "cal.toml"]
+    assert run[2:] == ["--sim", "--calibration", "cal.toml"]
     assert Path(calibrate[1]).exists() and calibrate[1] == run[1]

@@ -56,13 +56,14 @@ def _sequence(tmp_path: Path, if_: str = "100 MHz") -> Path:
 
 def test_noise_figure_study_runs_and_matches_the_model(tmp_path: Path) -> None:
     store_path = tmp_path / "runs.sqlite"
-    outcome = run_sequence(_sequence(tmp_path), sim=True, store_path=store_path)
+    outcome = run_sequence(_sequence(tmp_path), sim=True, store_path=store_path,
+                           sim_description="clean")  # judged against the model, uncalibrated
     assert outcome.status == "complete"
     with SqliteRunStore(store_path, create=False) as store:
         run = reduce_run(store, outcome.run_id)
     figures = run.figures_named("noise_figure")
     assert len(figures) == 9
-    part = prepare_part(resolve_description(None))
+    part = prepare_part(resolve_description("clean"))
     for f in figures:
         c = f.conditions
         assert c["sideband"] == "ssb"
@@ -119,7 +120,7 @@ def test_a_stated_attenuation_is_read_at_and_calibrated_at(tmp_path: Path) -> No
     path = tmp_path / "noise.toml"
     path.write_text(text, encoding="utf-8")
     store_path = tmp_path / "runs.sqlite"
-    outcome = run_sequence(path, sim=True, store_path=store_path)
+    outcome = run_sequence(path, sim=True, store_path=store_path, sim_description="clean")
     assert outcome.status == "complete"
     with SqliteRunStore(store_path, create=False) as store:
         frame = store.readings_frame(outcome.run_id)
@@ -127,7 +128,7 @@ def test_a_stated_attenuation_is_read_at_and_calibrated_at(tmp_path: Path) -> No
     noise = frame[frame["kind"] == "noise_figure"]
     assert set(noise["attenuation_db"]) == {4.0} and set(noise["averages"]) == {10}
     assert set(noise["rbw_hz"]) == {1e6}
-    part = prepare_part(resolve_description(None))
+    part = prepare_part(resolve_description("clean"))
     for f in run.figures_named("noise_figure"):
         c = f.conditions
         truth = part_noise_figure(part, temperature_c=23.0, supply_v=3.3,

@@ -37,7 +37,8 @@ def test_the_noise_marker_reads_density_and_the_figure_matches_the_model(tmp_pat
                                                                          ) -> None:
     profile = load_profile_file(marker_profile(tmp_path))
     assert profile.has("noise_marker") and not profile.has("detector")
-    with start_sim_bench(clock=VirtualClock()) as sim:
+    # the clean bench: the figure is judged against the model without a calibration
+    with start_sim_bench("clean", clock=VirtualClock()) as sim:
         nb, drivers = open_noise_bench(sim)
         transport = VisaTransport(sim.resources["sa"], visa_library="@py", timeout_s=5.0,
                                   settings=profile.connection)

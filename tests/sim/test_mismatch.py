@@ -64,9 +64,9 @@ def test_the_part_and_the_sensor_each_get_their_own_junctions_wave() -> None:
         clean + match.junction_db("source_rf", "sensor", z0.freq_hz), abs=1e-3)
 
 
-def test_the_default_bench_has_no_mismatch() -> None:
-    assert resolve_description(None).world_config().match is None
-    errors = resolve_description("bench-errors").match
+def test_the_clean_bench_has_no_mismatch() -> None:
+    assert resolve_description("clean").world_config().match is None
+    errors = resolve_description(None).match
     # padded test ports: the gain tolerance stays reachable (docs/sim-bench.md)
     worst = sum(20 * math.log10(1 + a * b) for a, b in (
         (errors.source_rf, errors.part_rf), (errors.source_rf, errors.sensor),

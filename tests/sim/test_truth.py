@@ -17,7 +17,7 @@ from sweeprig.sim.bench import SimBenchDescription, start_sim_bench
 LO_HZ, RF_HZ, RF2_HZ = 2.1e9, 2.2e9, 2.201e9
 DRIVE = truth.Drive(lo_freq_hz=LO_HZ, lo_power_dbm=2.0, rf_freq_hz=RF_HZ, rf_power_dbm=-17.0,
                     rf2_freq_hz=RF2_HZ, rf2_power_dbm=-11.0)
-# The default bench (kx-2417, harmonics, spurs, leakage phases, analyzer phase noise) at
+# The clean bench (kx-2417, harmonics, spurs, leakage phases, analyzer phase noise) at
 # 0 dB attenuation: the analyzer's own products are comparable to the part's.
 HOSTILE = SweepSettings.centered(99e6, 20e3, rbw_hz=100.0, attenuation_db=0.0)
 
@@ -27,7 +27,7 @@ def _mag(dbm: float) -> float:
 
 
 def test_components_bound_the_total_as_a_vector_sum() -> None:
-    lines = truth.port_lines("default", DRIVE, "if", HOSTILE)
+    lines = truth.port_lines("clean", DRIVE, "if", HOSTILE)
     assert lines == tuple(sorted(lines, key=lambda line: line.freq_hz))
     checked = 0
     for line in lines:
@@ -45,7 +45,7 @@ def test_components_bound_the_total_as_a_vector_sum() -> None:
     wanted = truth.nearest_line(lines, 100e6)
     assert wanted is not None and wanted.orders == (-1, 1, 0)
     assert wanted.port_dbm - wanted.cable_loss_db == pytest.approx(
-        truth.line_at("default", DRIVE, "if", 100e6).total_dbm)
+        truth.line_at("clean", DRIVE, "if", 100e6).total_dbm)
 
 
 def test_a_clean_bench_has_only_part_made_lines() -> None:
@@ -65,14 +65,14 @@ def test_a_clean_bench_has_only_part_made_lines() -> None:
 def test_an_unpowered_part_only_leaks() -> None:
     dead = truth.Drive(lo_freq_hz=LO_HZ, lo_power_dbm=2.0, rf_freq_hz=RF_HZ,
                        rf_power_dbm=-17.0, supply_v=0.0)
-    lines = truth.port_lines("default", dead, "if")
+    lines = truth.port_lines("clean", dead, "if")
     assert lines and all(line.part_dbm == -math.inf for line in lines)
     assert {round(line.freq_hz) for line in lines} >= {LO_HZ, RF_HZ}
 
 
 def test_part_figures_come_from_the_reference_extraction() -> None:
-    figures = truth.part_figures("default", DRIVE)  # tones 1 MHz apart: IM2 below the IF band
-    in_band = truth.part_figures("default", replace(DRIVE, rf2_freq_hz=RF_HZ + 20e6))
+    figures = truth.part_figures("clean", DRIVE)  # tones 1 MHz apart: IM2 below the IF band
+    in_band = truth.part_figures("clean", replace(DRIVE, rf2_freq_hz=RF_HZ + 20e6))
     # the datasheet IIP2, with the difference line in the IF band (its high-pass: 10 MHz)
     assert 45.0 <= in_band.iip2_dbm <= 60.0 < figures.iip2_dbm
     assert figures.lo_power_dbm == pytest.approx(2.0 - 2.0, abs=0.2)  # 2 dB LO cable
