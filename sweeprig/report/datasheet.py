@@ -14,7 +14,8 @@ settings and the run's temperatures and supplies are the corners):
   "—" when no number was measured there;
 * **±U**: the largest expanded uncertainty (k = 2, JCGM 100:2008) of the row's figures;
 * **limit** and **result**: the ``[[spec]]`` limits that judged the row's figures and the worst
-  verdict, with how many figures had it;
+  verdict, with how many figures had it, and how many judgements had a limit inside the
+  figure's ± U (the verdict is then on the measured value, not certain at k = 2);
 * **notes**: the validity flags met in the row, each a footnote spelled out under the table.
 
 For the worst m×n spur the corners are the points: at each point only its worst counted
@@ -78,6 +79,9 @@ class DatasheetRow:
     verdict: str
     judged: Mapping[str, int]
     flags: tuple[tuple[str, int], ...]
+    #: Judgements of the row whose value ± U holds a limit edge (the verdict is on the
+    #: measured value; at k = 2 it is not certain).
+    straddled: int = 0
 
     @property
     def display_unit(self) -> str:
@@ -118,7 +122,8 @@ class DatasheetRow:
             return NO_LIMIT
         total = sum(self.judged.values())
         count = self.judged.get(self.verdict, 0)
-        return self.verdict if count == total else f"{self.verdict} {count}/{total}"
+        text = self.verdict if count == total else f"{self.verdict} {count}/{total}"
+        return f"{text} ({self.straddled} within ±U)" if self.straddled else text
 
 
 def datasheet_rows(run: RunFigures) -> list[DatasheetRow]:
@@ -208,6 +213,7 @@ def _row(name: str, study: str, members: list[Figure], judged: Mapping[int, list
         verdict=verdict,
         judged={k: v for k, v in counts.items() if v},
         flags=tuple((f, flag_counts[f]) for f in FLAGS if f in flag_counts),
+        straddled=sum(1 for j in judgements if j.straddles),
     )
 
 

@@ -244,7 +244,9 @@ def datasheet_section(rows: Sequence[DatasheetRow]) -> str:
         "supply and the middle LO drive measured. U: the largest expanded uncertainty of the "
         "row (k = 2, JCGM 100:2008). A bound keeps its sign (&gt; : the true value is above). "
         "Result: the worst verdict against the sequence's limits, with how many of the row's "
-        "figures had it. Worst m×n spur: at each point the strongest counted product.</p>"
+        "figures had it; \"within ±U\": checks whose limit lies inside the figure's ± U, "
+        "judged on the measured value and not certain at k = 2. Worst m×n spur: at each "
+        "point the strongest counted product.</p>"
         + (f'<ol class="footnotes">{footnotes}</ol>' if footnotes else "")
         + "</section>"
     )

@@ -75,3 +75,31 @@ def test_limits_and_verdicts_are_in_the_row(corner_run):
     judged = sum(isolation.judged.values())
     assert judged == len(isolation.values)  # every figure of the row was judged
     assert isolation.verdict_text.split()[0] in ("pass", "fail", "inconclusive")
+
+
+def test_a_verdict_says_how_many_checks_had_the_limit_within_u() -> None:
+    """A gain of 14.22 ± 1.35 dB against max 14 dB fails on its value, but the limit lies
+    inside its uncertainty: the row says so (the GUM's coverage interval holds the edge)."""
+    from sweeprig.analysis.figures import Figure
+    from sweeprig.analysis.limits import Limit, assess
+
+    limit = Limit("conversion_gain", min=9.0, max=14.0)
+    figures = [Figure("conversion_gain", 14.22, "dB", uncertainty_db=1.35),
+               Figure("conversion_gain", 12.0, "dB", uncertainty_db=0.3)]
+    judgements = assess(figures, [limit]).judgements
+    assert [j.straddles for j in judgements] == [True, False]
+    row = _row_of(figures, judgements)
+    assert row.verdict_text == "fail 1/2 (1 within ±U)"
+
+
+def _row_of(figures, judgements):
+    """The datasheet row of ``figures`` judged by ``judgements`` (no run needed)."""
+    from types import SimpleNamespace
+
+    from sweeprig.report.datasheet import _row
+
+    judged: dict[int, list] = {}
+    for j in judgements:
+        judged.setdefault(id(j.figure), []).append(j)
+    run = SimpleNamespace(limits=[j.limit for j in judgements], conversion="down")
+    return _row("conversion_gain", "", list(figures), judged, run)
