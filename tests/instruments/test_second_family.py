@@ -110,3 +110,34 @@ def test_the_quick_demo_gives_the_same_figures_on_both_families(tmp_path: Path) 
         for (a, ua), (b, ub) in zip(first[name], second[name], strict=True):
             # within the stated expanded uncertainty (JCGM 100:2008 6.2, k = 2) of either run
             assert abs(a - b) <= max(ua, ub), (name, a, b, ua, ub)
+
+
+def test_its_overload_bit_is_read_through_its_profile() -> None:
+    """An input 10 dB over the first mixer's overload level with 0 dB attenuation: the FR-SA20
+    sets its bit 10, the fr-sa20 profile's mask reads it, the SCPI-99 POWer bit 3 (the generic
+    profile's mask) stays clear."""
+    from sweeprig.instruments import make_driver
+    from sweeprig.sim.analyzer_display import InputSpectrum
+    from sweeprig.sim.instruments.analyzer_fr import QUES_OVERLOAD_FR, FarrowmereAnalyzer
+    from sweeprig.sim.server import serve
+    from sweeprig.transport.visa import VisaTransport
+
+    inst = FarrowmereAnalyzer(VirtualClock(), lambda: InputSpectrum(lines=((1e9, 10.0),),
+                                                                    noise_dbm_per_hz=-174.0))
+    profile = load_profile("fr-sa20")
+    with serve({"sa": inst}) as served:
+        transport = VisaTransport(served.resources["sa"], visa_library="@py", timeout_s=2.0,
+                                  settings=profile.connection)
+        try:
+            driver = make_driver(profile, "sa", transport)
+            driver.prepare()
+            driver.enable_status()
+            for op, value in (("centre", 1e9), ("span", 1e6), ("attenuation", 0.0),
+                              ("ref_level", 10.0)):
+                driver.set_value(op, value)
+            driver.sweep()
+            assert driver.overloaded() is True
+            bits = int(transport.query("STAT:QUES:COND?"))
+            assert bits & QUES_OVERLOAD_FR and not bits & 8
+        finally:
+            transport.close()
