@@ -141,3 +141,14 @@ def test_its_overload_bit_is_read_through_its_profile() -> None:
             assert bits & QUES_OVERLOAD_FR and not bits & 8
         finally:
             transport.close()
+
+
+def test_run_sim_on_the_second_family_takes_its_profile(tmp_path: Path) -> None:
+    """``run --sim --sim-bench`` with a farrowmere description: the built-in bench file's
+    generic analyzer profile is swapped for fr-sa20, so the demo runs unchanged."""
+    outcome = run_sequence(QUICK, sim=True, sim_description=_family("farrowmere"),
+                           store_path=tmp_path / "s.sqlite")
+    assert outcome.status == "complete", outcome.reason
+    with SqliteRunStore(tmp_path / "s.sqlite", create=False) as s:
+        sa = [i for i in s.run(outcome.run_id).instruments if i.role == "sa"]
+    assert sa and sa[0].idn.startswith("Farrowmere Instruments,FR-SA20,")
