@@ -122,15 +122,18 @@ def _filter_note(description: Any, role: str) -> str | None:
 
 def with_sim_figures(bench: Bench, description: Any = None) -> Bench:
     """``bench`` with the analyzer's and sources' figures of the sim-bench ``description``
-    (a model, a path, a shipped name, or None for the default)."""
+    (a model, a path, a shipped name, or None for the default), and the analyzer profile of
+    its family."""
     from sweeprig.sim.bench import resolve_description
 
     desc = resolve_description(description)
     analyzer, sources, nf = sim_figures(desc)
     roles = bench.roles
     if roles.sa is not None:
-        roles = roles.model_copy(update={"sa": roles.sa.model_copy(
-            update={"noise_figure": nf})})
+        update: dict[str, Any] = {"noise_figure": nf}
+        if desc.analyzer.family == "farrowmere" and roles.sa.profile == "scpi-analyzer":
+            update["profile"] = "fr-sa20"  # the second family's dialect (docs/instruments.md)
+        roles = roles.model_copy(update={"sa": roles.sa.model_copy(update=update)})
     return bench.model_copy(update={"analyzer": analyzer, "sources": sources, "roles": roles})
 
 

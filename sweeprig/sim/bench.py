@@ -47,6 +47,7 @@ optional; the values shown are the defaults)::
     overload = "0 dBm"           # first-mixer level that raises the overload flag
     amplitude_error = "0 dB"
     coherent_products = true     # its products add to lines at their frequency as voltages
+    family = "tarnwick"          # its command set: "tarnwick" (TW-SA13) or "farrowmere" (FR-SA20)
     phase_noise = [              # its LO phase noise (an assumption for a mid-range analyzer)
       { offset = "100 Hz", level = "-84 dBc/Hz" }, { offset = "1 kHz", level = "-98 dBc/Hz" },
       { offset = "10 kHz", level = "-106 dBc/Hz" }, { offset = "100 kHz", level = "-116 dBc/Hz" },
@@ -284,6 +285,9 @@ class AnalyzerSpec(Frozen):
     phase_noise: tuple[PhaseNoisePointSpec, ...] = tuple(
         PhaseNoisePointSpec(offset=o, level=v) for o, v in DEFAULT_PHASE_NOISE)
     coherent_products: StrictBool = True
+    #: Its command set: "tarnwick" (the TW-SA13) or "farrowmere" (the FR-SA20, the second
+    #: family: another SCPI dialect around the same receiver; docs/instruments.md).
+    family: Literal["tarnwick", "farrowmere"] = "tarnwick"
 
     @field_validator("phase_noise")
     @classmethod
@@ -644,6 +648,7 @@ def build_sim_instruments(
     ``part`` replaces the description's part (tests use a stand-in mixer).
     """
     from sweeprig.sim.instruments.analyzer import SpectrumAnalyzer
+    from sweeprig.sim.instruments.analyzer_fr import FarrowmereAnalyzer
     from sweeprig.sim.instruments.chamber import ThermalChamber
     from sweeprig.sim.instruments.powermeter import PowerMeter
     from sweeprig.sim.instruments.simctl import SimControl
@@ -673,8 +678,10 @@ def build_sim_instruments(
     chamber = ThermalChamber(clock, ambient_c=desc.chamber.ambient,
                              probe_tau_s=desc.chamber.probe_lag, drift_tau_s=desc.chamber.drift)
     switch = RfSwitch(clock)
-    analyzer = SpectrumAnalyzer(clock, world.analyzer_input, params=desc.analyzer_params(),
-                                seed=desc.seed, reference=oscillators["sa"])
+    analyzer_class = (FarrowmereAnalyzer if desc.analyzer.family == "farrowmere"
+                      else SpectrumAnalyzer)
+    analyzer = analyzer_class(clock, world.analyzer_input, params=desc.analyzer_params(),
+                              seed=desc.seed, reference=oscillators["sa"])
     meter = PowerMeter(clock, sense=world.sensed_power_dbm, seed=desc.seed + 1,
                        cal_factor_error_db=desc.power_meter.cal_factor_error,
                        relative_noise=desc.power_meter.noise,

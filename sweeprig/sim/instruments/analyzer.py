@@ -88,7 +88,13 @@ class SpectrumAnalyzer(ScpiInstrument):
     ``input_spectrum``: called at each sweep; returns what arrives at the input connector.
     ``params``: the analyzer's own noise figure, intercepts, compression and overload.
     ``seed``: seeds the noise of the traces (same seed and commands → same traces).
+    A subclass serving another command set (another family) names its own ``maker`` and
+    ``model`` and overrides :meth:`_register`.
     """
+
+    maker = MAKER
+    model = MODEL
+    default_serial = "SA13-0001"
 
     def __init__(
         self,
@@ -97,10 +103,11 @@ class SpectrumAnalyzer(ScpiInstrument):
         *,
         params: AnalyzerParams | None = None,
         seed: int = 1,
-        serial: str = "SA13-0001",
+        serial: str | None = None,
         reference: ReferenceOscillator | None = None,
     ) -> None:
-        super().__init__(clock, Identity(MAKER, MODEL, serial, "1.0"))
+        super().__init__(clock, Identity(self.maker, self.model, serial or self.default_serial,
+                                         "1.0"))
         self.reference = reference or ReferenceOscillator()
         self.input_spectrum = input_spectrum
         self.params = params or AnalyzerParams()

@@ -1,0 +1,154 @@
+"""The second simulated analyzer family (Farrowmere FR-SA20, sim-bench ``[analyzer] family =
+"farrowmere"``): its profile ``fr-sa20`` passes every operation in the probe, the generic
+profile fails there loudly, and the quick demo gives the same figures on it as on the
+default family (real pyvisa over loopback)."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import pytest
+
+from sweeprig.analysis.reduce import reduce_run
+from sweeprig.cli.probe_cmd import run_probe
+from sweeprig.clock import VirtualClock
+from sweeprig.engine.session import run_sequence, served_bench_text, shipped_sequences_dir
+from sweeprig.instruments.profile import load_profile
+from sweeprig.sim.bench import SimBenchDescription, resolve_description, start_sim_bench
+from sweeprig.store.sqlite import SqliteRunStore
+
+QUICK = shipped_sequences_dir() / "demo" / "quick.toml"
+
+
+def _family(name: str) -> SimBenchDescription:
+    base = resolve_description(None)
+    return base.model_copy(update={"analyzer": base.analyzer.model_copy(
+        update={"family": name})})
+
+
+@pytest.fixture(scope="module")
+def farrowmere():
+    with start_sim_bench(_family("farrowmere"), clock=VirtualClock()) as bench:
+        yield bench
+
+
+def test_the_family_is_chosen_by_the_sim_bench_file(tmp_path: Path) -> None:
+    path = tmp_path / "fr.toml"
+    path.write_text('[analyzer]\nfamily = "farrowmere"\n', encoding="utf-8")
+    assert resolve_description(str(path)).analyzer.family == "farrowmere"
+    assert resolve_description(None).analyzer.family == "tarnwick"
+
+
+def test_every_operation_of_its_profile_works(farrowmere) -> None:
+    report = run_probe(farrowmere.resources["sa"], "fr-sa20", timeout_s=2.0)
+    assert report.idn is not None and report.idn.startswith("Farrowmere Instruments,FR-SA20,")
+    assert report.counts()["fail"] == 0, [s for s in report.steps if s.result != "ok"]
+    assert report.counts()["differs"] == 0
+    assert {s.op for s in report.steps} == set(load_profile("fr-sa20").ops) - {"next_error"}
+
+
+def test_the_generic_profile_fails_loudly_on_it(farrowmere) -> None:
+    report = run_probe(farrowmere.resources["sa"], "scpi-analyzer", timeout_s=0.5)
+    failed = {s.op: s for s in report.failed}
+    # the dialect's differences, each named with the instrument's own error (SCPI-99:
+    # -113 undefined header, -108 parameter not allowed)
+    assert {"prepare", "rbw", "vbw", "attenuation", "marker_level", "peak",
+            "trace_real32"} <= set(failed)
+    assert failed["rbw"].errors[0].startswith("-113")
+    assert "spells it differently" in failed["rbw"].fix
+    assert failed["trace_real32"].errors[0].startswith("-108")
+    assert report.counts()["fail"] >= 10
+
+
+def test_its_binary_trace_is_little_endian_and_read_so(farrowmere) -> None:
+    import numpy as np
+    import pyvisa
+
+    rm = pyvisa.ResourceManager("@py")
+    inst = rm.open_resource(farrowmere.resources["sa"], read_termination="\n",
+                            write_termination="\n", timeout=2000)
+    try:
+        inst.write("*RST;:INIT:CONT OFF;:INIT:IMM")
+        assert inst.query("*OPC?").strip() == "1"
+        assert inst.query("FORM?").strip() == "REAL,32"  # its power-on format
+        # pyvisa's own IEEE 488.2 block reader as the reference decoder
+        little = np.asarray(inst.query_binary_values("TRAC1?", datatype="f",
+                                                     is_big_endian=False))
+        inst.write("FORM ASC")
+        text = np.array([float(v) for v in inst.query("TRAC1?").split(",")])
+        np.testing.assert_allclose(little, text, atol=1e-3)
+        assert inst.query("SYST:ERR?").startswith("0,")
+    finally:
+        inst.close()
+        rm.close()
+
+
+def _quick_figures(tmp_path: Path, family: str) -> dict[str, list[tuple[float, float]]]:
+    description = _family(family)
+    with start_sim_bench(description, clock=VirtualClock()) as sim:
+        text = served_bench_text(sim.resources)
+        if family == "farrowmere":
+            text = text.replace('profile = "scpi-analyzer"', 'profile = "fr-sa20"')
+            assert 'profile = "fr-sa20"' in text
+        bench = tmp_path / f"bench-{family}.toml"
+        bench.write_text(text, encoding="utf-8")
+        store = tmp_path / f"{family}.sqlite"
+        outcome = run_sequence(QUICK, bench, store_path=store)
+        assert outcome.status == "complete", outcome.reason
+    with SqliteRunStore(store, create=False) as s:
+        run = reduce_run(s, outcome.run_id)
+    return {name: [(f.value, f.uncertainty_db) for f in run.figures_named(name)]
+            for name in ("conversion_gain", "iip3")}
+
+
+def test_the_quick_demo_gives_the_same_figures_on_both_families(tmp_path: Path) -> None:
+    first = _quick_figures(tmp_path, "tarnwick")
+    second = _quick_figures(tmp_path, "farrowmere")
+    assert first["conversion_gain"] and first["iip3"]
+    for name in first:
+        assert len(first[name]) == len(second[name])
+        for (a, ua), (b, ub) in zip(first[name], second[name], strict=True):
+            # within the stated expanded uncertainty (JCGM 100:2008 6.2, k = 2) of either run
+            assert abs(a - b) <= max(ua, ub), (name, a, b, ua, ub)
+
+
+def test_its_overload_bit_is_read_through_its_profile() -> None:
+    """An input 10 dB over the first mixer's overload level with 0 dB attenuation: the FR-SA20
+    sets its bit 10, the fr-sa20 profile's mask reads it, the SCPI-99 POWer bit 3 (the generic
+    profile's mask) stays clear."""
+    from sweeprig.instruments import make_driver
+    from sweeprig.sim.analyzer_display import InputSpectrum
+    from sweeprig.sim.instruments.analyzer_fr import QUES_OVERLOAD_FR, FarrowmereAnalyzer
+    from sweeprig.sim.server import serve
+    from sweeprig.transport.visa import VisaTransport
+
+    inst = FarrowmereAnalyzer(VirtualClock(), lambda: InputSpectrum(lines=((1e9, 10.0),),
+                                                                    noise_dbm_per_hz=-174.0))
+    profile = load_profile("fr-sa20")
+    with serve({"sa": inst}) as served:
+        transport = VisaTransport(served.resources["sa"], visa_library="@py", timeout_s=2.0,
+                                  settings=profile.connection)
+        try:
+            driver = make_driver(profile, "sa", transport)
+            driver.prepare()
+            driver.enable_status()
+            for op, value in (("centre", 1e9), ("span", 1e6), ("attenuation", 0.0),
+                              ("ref_level", 10.0)):
+                driver.set_value(op, value)
+            driver.sweep()
+            assert driver.overloaded() is True
+            bits = int(transport.query("STAT:QUES:COND?"))
+            assert bits & QUES_OVERLOAD_FR and not bits & 8
+        finally:
+            transport.close()
+
+
+def test_run_sim_on_the_second_family_takes_its_profile(tmp_path: Path) -> None:
+    """``run --sim --sim-bench`` with a farrowmere description: the built-in bench file's
+    generic analyzer profile is swapped for fr-sa20, so the demo runs unchanged."""
+    outcome = run_sequence(QUICK, sim=True, sim_description=_family("farrowmere"),
+                           store_path=tmp_path / "s.sqlite")
+    assert outcome.status == "complete", outcome.reason
+    with SqliteRunStore(tmp_path / "s.sqlite", create=False) as s:
+        sa = [i for i in s.run(outcome.run_id).instruments if i.role == "sa"]
+    assert sa and sa[0].idn.startswith("Farrowmere Instruments,FR-SA20,")
