@@ -11,6 +11,8 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable
+from dataclasses import dataclass
+from typing import ClassVar
 
 import numpy as np
 
@@ -82,6 +84,26 @@ def encode_real32_block(values: np.ndarray, *, big_endian: bool = True) -> bytes
     return b"#" + str(len(length)).encode("ascii") + length.encode("ascii") + data
 
 
+@dataclass(frozen=True)
+class AnalyzerDialect:
+    """The headers and spellings where the simulated analyzer families differ (each a legal
+    SCPI-99 form); the receiver behind them is the same. The default is the TW-SA13's."""
+
+    bandwidth: str = "[SENSe]:BANDwidth|BWIDth"
+    attenuation: str = "INPut:ATTenuation"
+    marker_x: str = "CALCulate:MARKer[1-4]:X"
+    marker_peak: str = "CALCulate:MARKer[1-4]:MAXimum[:PEAK]"
+    marker_y: str = "CALCulate:MARKer[1-4]:Y"
+    marker_density: str = "CALCulate:MARKer[1-4]:DENSity"
+    #: The power (RMS) detector's name beside ``SAMPle``.
+    power_detector: str = "RMS"
+    noise_output: str = "OUTPut:NOISe[:STATe]"
+    format_default: str = "ASCii"
+    #: Whether ``FORMat:BORDer`` exists (else binary traces keep one byte order).
+    byte_order: bool = True
+    trace: str = "TRACe[:DATA]"
+
+
 class SpectrumAnalyzer(ScpiInstrument):
     """The TW-SA13 (sim).
 
@@ -94,6 +116,7 @@ class SpectrumAnalyzer(ScpiInstrument):
 
     maker = MAKER
     model = MODEL
+    dialect: ClassVar[AnalyzerDialect] = AnalyzerDialect()
     default_serial = "SA13-0001"
 
     def __init__(
@@ -142,7 +165,8 @@ class SpectrumAnalyzer(ScpiInstrument):
             attenuation_db=self.value("att_db"),
             ref_level_dbm=self.value("ref_level_dbm"),
             averages=int(self.value("avg_count")) if averaging else 1,
-            detector="rms" if str(self.value("detector")).upper() == "RMS" else "sample",
+            detector=("rms" if str(self.value("detector")).upper()
+                      == self.dialect.power_detector.upper() else "sample"),
         )
 
     def sweep_now(self) -> SweepResult:
@@ -184,7 +208,7 @@ class SpectrumAnalyzer(ScpiInstrument):
 
     # ------------------------------------------------------------------ registration
     def _register(self) -> None:
-        add = self.add_setting
+        add, d = self.add_setting, self.dialect
         freq = "frequency"
         add(Setting("center_hz", "[SENSe]:FREQuency:CENTer", "float",
                     default=0.5 * (CENTER_MIN_HZ + FREQ_MAX_HZ), unit=freq,
@@ -198,12 +222,12 @@ class SpectrumAnalyzer(ScpiInstrument):
         add(Setting("stop_hz", "[SENSe]:FREQuency:STOP", "float", default=FREQ_MAX_HZ,
                     unit=freq, minimum=FREQ_MIN_HZ, maximum=FREQ_MAX_HZ,
                     on_change=self._stop_changed))
-        add(Setting("rbw_hz", "[SENSe]:BANDwidth|BWIDth[:RESolution]", "float", default=3e6,
+        add(Setting("rbw_hz", f"{d.bandwidth}[:RESolution]", "float", default=3e6,
                     unit=freq, minimum=RBW_MIN_HZ, maximum=RBW_MAX_HZ, coerce=round_rbw_up,
                     on_change=self._rbw_changed))
-        add(Setting("rbw_auto", "[SENSe]:BANDwidth|BWIDth[:RESolution]:AUTO", "bool",
+        add(Setting("rbw_auto", f"{d.bandwidth}[:RESolution]:AUTO", "bool",
                     default=True, on_change=lambda _v: self._couple()))
-        add(Setting("vbw_hz", "[SENSe]:BANDwidth|BWIDth:VIDeo", "float", default=3e6,
+        add(Setting("vbw_hz", f"{d.bandwidth}:VIDeo", "float", default=3e6,
                     unit=freq, minimum=RBW_MIN_HZ, maximum=RBW_MAX_HZ,
                     on_change=self._vbw_changed))
         add(Setting("avg_count", "[SENSe]:AVERage:COUNt", "int", default=10,
@@ -214,37 +238,38 @@ class SpectrumAnalyzer(ScpiInstrument):
         add(Setting("ref_level_dbm", "DISPlay[:WINDow]:TRACe:Y[:SCALe]:RLEVel", "float",
                     default=0.0, unit="power", minimum=-170.0, maximum=30.0,
                     on_change=lambda _v: self._couple()))
-        add(Setting("att_db", "INPut:ATTenuation", "float", default=AUTO_ATT_MIN_DB,
+        add(Setting("att_db", d.attenuation, "float", default=AUTO_ATT_MIN_DB,
                     unit="level_db", minimum=0.0, maximum=ATT_MAX_DB, coerce=round_attenuation,
                     on_change=self._att_changed))
-        add(Setting("att_auto", "INPut:ATTenuation:AUTO", "bool", default=True,
+        add(Setting("att_auto", f"{d.attenuation}:AUTO", "bool", default=True,
                     on_change=lambda _v: self._couple()))
         add(Setting("continuous", "INITiate:CONTinuous", "bool", default=True))
         add(Setting("marker_on", "CALCulate:MARKer[1-4][:STATe]", "bool", default=False))
-        add(Setting("marker_x_hz", "CALCulate:MARKer[1-4]:X", "float",
+        add(Setting("marker_x_hz", d.marker_x, "float",
                     default=0.5 * (CENTER_MIN_HZ + FREQ_MAX_HZ), unit=freq,
                     minimum=FREQ_MIN_HZ, maximum=FREQ_MAX_HZ))
         # The trace detector (SCPI-99 SENSe:DETector): SAMPle, the log envelope (log
         # averaging); RMS, the power detector for noise readings.
         add(Setting("detector", "[SENSe]:DETector[:FUNCtion]", "enum", default="SAMPle",
-                    choices=("SAMPle", "RMS")))
+                    choices=("SAMPle", d.power_detector)))
         # Its own noise-source drive output (a rear-panel drive switching a noise source hot
         # for Y-factor readings; off at power-on and after *RST).
-        add(Setting("noise_output", "OUTPut:NOISe[:STATe]", "bool", default=False))
-        add(Setting("format", "FORMat[:DATA]", "enum", default="ASCii",
+        add(Setting("noise_output", d.noise_output, "bool", default=False))
+        add(Setting("format", "FORMat[:DATA]", "enum", default=d.format_default,
                     choices=("ASCii", "REAL,32")))
-        add(Setting("byte_order", "FORMat:BORDer", "enum", default="NORMal",
-                    choices=("NORMal", "SWAPped")))
+        if d.byte_order:
+            add(Setting("byte_order", "FORMat:BORDer", "enum", default="NORMal",
+                        choices=("NORMal", "SWAPped")))
         self.reference.install(self, "[SENSe]:ROSCillator:SOURce")
         self.add_command("[SENSe]:SWEep:TIME", query=self._sweep_time_query)
         self.add_command("INITiate[:IMMediate]", write=self._initiate)
         # Marker X: a write handler that also switches the marker on (registered after the
         # setting so it replaces the setting's own write handler).
-        self.add_command("CALCulate:MARKer[1-4]:X", write=self._marker_x)
-        self.add_command("CALCulate:MARKer[1-4]:MAXimum[:PEAK]", write=self._marker_max)
-        self.add_command("CALCulate:MARKer[1-4]:Y", query=self._marker_y)
-        self.add_command("CALCulate:MARKer[1-4]:DENSity", query=self._marker_density)
-        self.add_command("TRACe[:DATA]", query=self._trace_query)
+        self.add_command(d.marker_x, write=self._marker_x)
+        self.add_command(d.marker_peak, write=self._marker_max)
+        self.add_command(d.marker_y, query=self._marker_y)
+        self.add_command(d.marker_density, query=self._marker_density)
+        self.add_command(d.trace, query=self._trace_query)
 
     # ------------------------------------------------------------------ couplings
     def _set_span(self, center_hz: float, span_hz: float) -> None:

@@ -24,27 +24,12 @@ memory):
 
 from __future__ import annotations
 
-from dataclasses import replace
-
-from sweeprig.sim.analyzer_display import SweepSettings
 from sweeprig.sim.instruments.analyzer import (
-    ATT_MAX_DB,
-    AUTO_ATT_MIN_DB,
-    AVERAGES_MAX,
-    CENTER_MIN_HZ,
-    FREQ_MAX_HZ,
-    FREQ_MIN_HZ,
-    POINTS_DEFAULT,
-    POINTS_MAX,
-    POINTS_MIN,
-    RBW_MAX_HZ,
-    RBW_MIN_HZ,
+    AnalyzerDialect,
     SpectrumAnalyzer,
     encode_real32_block,
-    round_attenuation,
-    round_rbw_up,
 )
-from sweeprig.sim.scpi import Command, Setting
+from sweeprig.sim.scpi import Command
 from sweeprig.sim.scpi.errors import ScpiError
 
 MAKER = "Farrowmere Instruments"
@@ -62,11 +47,20 @@ class FarrowmereAnalyzer(SpectrumAnalyzer):
     maker = MAKER
     model = MODEL
     default_serial = "SA20-0001"
-
-    def sweep_settings(self) -> SweepSettings:
-        settings = super().sweep_settings()
-        power = str(self.value("detector")).upper() == "POWER"
-        return replace(settings, detector="rms" if power else "sample")
+    dialect = AnalyzerDialect(
+        bandwidth="[SENSe]:BWIDth",
+        attenuation="[SENSe]:POWer[:RF]:ATTenuation",
+        # the marker's frequency also switches it on (as the TW-SA13's X does)
+        marker_x="CALCulate:MARKer[1-4]:FREQuency",
+        marker_peak="CALCulate:MARKer[1-4]:PEAK[:SEARch]",
+        marker_y="CALCulate:MARKer[1-4]:AMPLitude",
+        marker_density="CALCulate:MARKer[1-4]:NOISe",
+        power_detector="POWer",
+        noise_output="[SOURce]:NOISe[:STATe]",
+        format_default="REAL,32",
+        byte_order=False,
+        trace="TRACe[1-3][:DATA]",
+    )
 
     def questionable_condition(self) -> int:
         bits = self.reference.questionable_bits()
@@ -78,63 +72,7 @@ class FarrowmereAnalyzer(SpectrumAnalyzer):
                 bits |= QUES_UNCALIBRATED_FR
         return bits
 
-    def _register(self) -> None:
-        add = self.add_setting
-        freq = "frequency"
-        add(Setting("center_hz", "[SENSe]:FREQuency:CENTer", "float",
-                    default=0.5 * (CENTER_MIN_HZ + FREQ_MAX_HZ), unit=freq,
-                    minimum=CENTER_MIN_HZ, maximum=FREQ_MAX_HZ, on_change=self._center_changed))
-        add(Setting("span_hz", "[SENSe]:FREQuency:SPAN", "float",
-                    default=FREQ_MAX_HZ - CENTER_MIN_HZ, unit=freq,
-                    minimum=0.0, maximum=FREQ_MAX_HZ - FREQ_MIN_HZ, on_change=self._span_changed))
-        add(Setting("start_hz", "[SENSe]:FREQuency:STARt", "float", default=CENTER_MIN_HZ,
-                    unit=freq, minimum=FREQ_MIN_HZ, maximum=FREQ_MAX_HZ,
-                    on_change=self._start_changed))
-        add(Setting("stop_hz", "[SENSe]:FREQuency:STOP", "float", default=FREQ_MAX_HZ,
-                    unit=freq, minimum=FREQ_MIN_HZ, maximum=FREQ_MAX_HZ,
-                    on_change=self._stop_changed))
-        add(Setting("rbw_hz", "[SENSe]:BWIDth[:RESolution]", "float", default=3e6,
-                    unit=freq, minimum=RBW_MIN_HZ, maximum=RBW_MAX_HZ, coerce=round_rbw_up,
-                    on_change=self._rbw_changed))
-        add(Setting("rbw_auto", "[SENSe]:BWIDth[:RESolution]:AUTO", "bool",
-                    default=True, on_change=lambda _v: self._couple()))
-        add(Setting("vbw_hz", "[SENSe]:BWIDth:VIDeo", "float", default=3e6,
-                    unit=freq, minimum=RBW_MIN_HZ, maximum=RBW_MAX_HZ,
-                    on_change=self._vbw_changed))
-        add(Setting("avg_count", "[SENSe]:AVERage:COUNt", "int", default=10,
-                    minimum=1, maximum=AVERAGES_MAX))
-        add(Setting("avg_on", "[SENSe]:AVERage[:STATe]", "bool", default=False))
-        add(Setting("points", "[SENSe]:SWEep:POINts", "int", default=POINTS_DEFAULT,
-                    minimum=POINTS_MIN, maximum=POINTS_MAX))
-        add(Setting("ref_level_dbm", "DISPlay[:WINDow]:TRACe:Y[:SCALe]:RLEVel", "float",
-                    default=0.0, unit="power", minimum=-170.0, maximum=30.0,
-                    on_change=lambda _v: self._couple()))
-        add(Setting("att_db", "[SENSe]:POWer[:RF]:ATTenuation", "float",
-                    default=AUTO_ATT_MIN_DB, unit="level_db", minimum=0.0, maximum=ATT_MAX_DB,
-                    coerce=round_attenuation, on_change=self._att_changed))
-        add(Setting("att_auto", "[SENSe]:POWer[:RF]:ATTenuation:AUTO", "bool", default=True,
-                    on_change=lambda _v: self._couple()))
-        add(Setting("continuous", "INITiate:CONTinuous", "bool", default=True))
-        add(Setting("marker_on", "CALCulate:MARKer[1-4][:STATe]", "bool", default=False))
-        add(Setting("marker_x_hz", "CALCulate:MARKer[1-4]:FREQuency", "float",
-                    default=0.5 * (CENTER_MIN_HZ + FREQ_MAX_HZ), unit=freq,
-                    minimum=FREQ_MIN_HZ, maximum=FREQ_MAX_HZ))
-        add(Setting("detector", "[SENSe]:DETector[:FUNCtion]", "enum", default="SAMPle",
-                    choices=("SAMPle", "POWer")))
-        add(Setting("noise_output", "[SOURce]:NOISe[:STATe]", "bool", default=False))
-        add(Setting("format", "FORMat[:DATA]", "enum", default="REAL,32",
-                    choices=("ASCii", "REAL,32")))
-        self.reference.install(self, "[SENSe]:ROSCillator:SOURce")
-        self.add_command("[SENSe]:SWEep:TIME", query=self._sweep_time_query)
-        self.add_command("INITiate[:IMMediate]", write=self._initiate)
-        # the marker's frequency also switches it on (as the TW-SA13's X does)
-        self.add_command("CALCulate:MARKer[1-4]:FREQuency", write=self._marker_x)
-        self.add_command("CALCulate:MARKer[1-4]:PEAK[:SEARch]", write=self._marker_max)
-        self.add_command("CALCulate:MARKer[1-4]:AMPLitude", query=self._marker_y)
-        self.add_command("CALCulate:MARKer[1-4]:NOISe", query=self._marker_density)
-        self.add_command("TRACe[1-3][:DATA]", query=self._trace_fr)
-
-    def _trace_fr(self, cmd: Command) -> str | bytes:
+    def _trace_query(self, cmd: Command) -> str | bytes:
         cmd.no_params()
         if cmd.index != 1:
             raise ScpiError(-221, f"trace {cmd.index} is blank; read TRACe1")
