@@ -97,6 +97,7 @@ class BenchWorker:
         self.queue = LabQueue(url)
         self._bench_conn: Any = None
         self._worker_id: int | None = None
+        self._worker_ids: set[int] = set()  # every id this process registered under
         self._last_beat = 0.0
         self._verdicts: dict[str, str | None] = {}  # queue -> None (can serve) or why not
         self.safe_at_start: SafeOutcome | None = None
@@ -142,7 +143,7 @@ class BenchWorker:
         try:
             self._hold_bench()
             self.safe_at_start = self._make_safe_if_cut_short()
-            self._worker_id = int(self.queue.run(self.queue.jobs.register_worker()))
+            self._register()
             while self.max_runs is None or taken < self.max_runs:
                 try:
                     self._hold_bench()
@@ -171,9 +172,13 @@ class BenchWorker:
         self.queue.reopen()
         self._worker_id_refresh()
 
+    def _register(self) -> None:
+        self._worker_id = int(self.queue.run(self.queue.jobs.register_worker()))
+        self._worker_ids.add(self._worker_id)
+
     def _worker_id_refresh(self) -> None:
         with suppress(StoreError):
-            self._worker_id = int(self.queue.run(self.queue.jobs.register_worker()))
+            self._register()
 
     def _queues(self) -> list[str]:
         """``bench-<name>`` and every waiting ``seq-`` queue this bench can serve."""
@@ -288,8 +293,26 @@ class BenchWorker:
             if rows and rows[0][0] is None:
                 self.queue.run(jobs.retry_job_by_id_async(job.id, retry_at=utc_now(),
                                                           queue=job.queue))
+        self._hand_back_unstarted()
         with_dead_workers = self.queue.run(jobs.prune_stalled_workers(STALLED_S * 2))
         del with_dead_workers
+
+    def _hand_back_unstarted(self) -> None:
+        """Jobs this process took (under any id it registered) whose run never started: the
+        database failed between taking the job and marking its run (the job stays ``doing``
+        with a live worker, so procrastinate would never call it stalled). Called while idle,
+        when this process holds no job: each goes back to its queue at once."""
+        if not self._worker_ids:
+            return
+        rows = self.queue.store._read(
+            "SELECT j.id, j.queue_name, j.priority FROM procrastinate_jobs j "
+            "JOIN lab_runs l ON l.job_id = j.id WHERE j.status = 'doing' "
+            "AND j.worker_id = ANY(?) AND l.state = 'queued'", (sorted(self._worker_ids),))
+        for job_id, queue_name, priority in rows:
+            self.queue.run(self.queue.jobs.retry_job_by_id_async(
+                int(job_id), retry_at=utc_now() - timedelta(seconds=1), priority=int(priority),
+                queue=queue_name))
+            self.say(f"job {job_id} was taken when the lab database failed; back in its queue")
 
     def _requeue(self, entry: LabRun, queue_name: str) -> None:
         jobs = self.queue.jobs
