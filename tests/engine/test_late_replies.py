@@ -39,7 +39,9 @@ def test_late_marker_replies_are_cleared_recorded_and_never_misread(tmp_path: Pa
     assert outcome.status == "complete", outcome.reason
     assert len(injected) >= 2
     clears = [e for e in events if e.kind == "device_clear"]
-    assert len(clears) == len(injected) and all("back in step" in e.message for e in clears)
+    # every late reply is met by a clear; on a loaded machine an honest reply may also miss
+    # the short I/O timeout and be cleared the same way (one more clear, never a misread)
+    assert len(clears) >= len(injected) and all("back in step" in e.message for e in clears)
     assert not [e for e in events if e.kind == "reconnect"]
     _clean, ref, _e, _i = _run(tmp_path, "clean", ())
     key = ["point_index", "name"]
