@@ -194,6 +194,10 @@ class Contribution:
         }
 
 
+#: How every budget is combined, in words (reports, ``figures.json``).
+BUDGET_METHOD = "JCGM 100:2008 (GUM): root sum of squares of c_i·u(x_i), uncorrelated"
+
+
 @dataclass(frozen=True, slots=True)
 class Budget:
     """A figure's uncertainty budget: its contributions, combined by root sum of squares
@@ -214,7 +218,7 @@ class Budget:
 
     def as_dict(self) -> dict[str, object]:
         return {
-            "method": "JCGM 100:2008 (GUM): root sum of squares of c_i·u(x_i), uncorrelated",
+            "method": BUDGET_METHOD,
             "combined_standard_uncertainty_db": self.combined_db,
             "coverage_factor": self.coverage_factor,
             "expanded_uncertainty_db": self.expanded_db,
