@@ -25,7 +25,6 @@ noise). A reading in the noise is an upper bound, so a suppression is then a ">"
 
 from __future__ import annotations
 
-import dataclasses
 from collections.abc import Mapping, Sequence
 from types import MappingProxyType
 from typing import TYPE_CHECKING
@@ -41,6 +40,7 @@ from sweeprig.analysis.figures import (
     IN_NOISE,
     Figure,
     make_figures,
+    with_changes,
 )
 
 if TYPE_CHECKING:
@@ -62,7 +62,7 @@ def trade_named(figures: Sequence[Figure], conversion: str) -> list[Figure]:
     computed; "up": :data:`UP_NAMES` applied)."""
     if conversion != "up":
         return list(figures)
-    return [dataclasses.replace(f, name=UP_NAMES[f.name]) if f.name in UP_NAMES else f
+    return [with_changes(f, name=UP_NAMES[f.name]) if f.name in UP_NAMES else f
             for f in figures]
 
 
@@ -85,7 +85,7 @@ def with_output_frequency(figures: Sequence[Figure], orders: tuple[int, int] | N
             out.append(f)
             continue
         cond = MappingProxyType({**c, OUTPUT_FREQ: float(abs(m * lo + n * rf))})
-        out.append(dataclasses.replace(f, conditions=cond))
+        out.append(with_changes(f, conditions=cond))
     return out
 
 

@@ -101,7 +101,7 @@ import gc
 import math
 from collections.abc import Iterable, Iterator, Mapping, Sequence
 from contextlib import contextmanager
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, field
 from functools import lru_cache
 from types import MappingProxyType
 from typing import TYPE_CHECKING, Literal
@@ -397,6 +397,23 @@ class Figure:
         return f"{self.bound} {body}" if self.bound else body
 
 
+_FIGURE_SLOTS: tuple[str, ...] = Figure.__slots__
+
+
+def with_changes(figure: Figure, **changes: object) -> Figure:
+    """``figure`` with the fields in ``changes`` replaced: what :func:`dataclasses.replace`
+    gives, without re-running ``__init__`` (Figure has no validation to skip; a large run
+    replaces hundreds of thousands of figures). An unknown field is refused."""
+    unknown = set(changes).difference(_FIGURE_SLOTS)
+    if unknown:
+        raise TypeError(f"Figure has no field {', '.join(sorted(unknown))}")
+    out = object.__new__(Figure)
+    set_attr = object.__setattr__
+    for name in _FIGURE_SLOTS:
+        set_attr(out, name, changes[name] if name in changes else getattr(figure, name))
+    return out
+
+
 def bound_symbol(code: int) -> Bound:
     """Bound code (:data:`BOUND_BELOW`, :data:`BOUND_NONE`, :data:`BOUND_ABOVE`) → symbol."""
     if code == BOUND_BELOW:
@@ -469,7 +486,7 @@ def flag_points(
     for figure in figures:
         if marked and name not in figure.flags and not marked.isdisjoint(figure.points):
             mask = sum(_FLAG_BIT[f] for f in figure.flags) | bit
-            figure = replace(figure, flags=flags_from_mask(mask))
+            figure = with_changes(figure, flags=flags_from_mask(mask))
         out.append(figure)
     return out
 

@@ -52,13 +52,13 @@ from __future__ import annotations
 import functools
 import math
 from collections.abc import Iterable, Mapping, Sequence
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, field
 from typing import Literal
 
 import numpy as np
 import pandas as pd
 
-from sweeprig.analysis.figures import Figure
+from sweeprig.analysis.figures import Figure, with_changes
 
 Shape = Literal["rectangular", "triangular", "u-shaped", "normal-k2", "standard"]
 
@@ -701,7 +701,7 @@ def attach_uncertainty(figures: Sequence[Figure], captures: pd.DataFrame,
     for f in figures:
         budget = figure_budget(f, levels, specs, cal, small_signal_u=small_signal_u)
         if budget is not None:
-            f = replace(f, uncertainty_db=budget.expanded_db, budget=budget)
+            f = with_changes(f, uncertainty_db=budget.expanded_db, budget=budget)
             sides[(f.name, _condition_key(f.conditions), f.value)] = f
         out.append(f)
     for i, f in enumerate(out):
@@ -709,7 +709,7 @@ def attach_uncertainty(figures: Sequence[Figure], captures: pd.DataFrame,
             for side in WORST_OF[f.name]:
                 match = sides.get((side, _condition_key(f.conditions), f.value))
                 if match is not None:
-                    out[i] = replace(f, uncertainty_db=match.uncertainty_db,
+                    out[i] = with_changes(f, uncertainty_db=match.uncertainty_db,
                                      budget=match.budget)
                     break
     return out
