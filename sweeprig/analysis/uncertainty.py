@@ -174,16 +174,18 @@ class Contribution:
     sensitivity: float
     kind: Literal["A", "B"] = "B"
     origin: str = ""
+    #: |c_i| · u(x_i), dB: worked out once when the line is made (a large run's budgets
+    #: are read many times over: totals, worst sides, reports).
+    contribution_db: float = field(init=False, repr=False, compare=False)
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "contribution_db",
+                           abs(self.sensitivity) * self.standard_db)
 
     @property
     def standard_db(self) -> float:
         """u(x_i), dB."""
         return standard_uncertainty(self.half_width_db, self.shape)
-
-    @property
-    def contribution_db(self) -> float:
-        """|c_i| · u(x_i), dB."""
-        return abs(self.sensitivity) * self.standard_db
 
     def as_dict(self) -> dict[str, object]:
         return {
@@ -205,11 +207,12 @@ class Budget:
 
     contributions: tuple[Contribution, ...]
     coverage_factor: float = COVERAGE_FACTOR
+    #: u_c, dB: combined once when the budget is made.
+    combined_db: float = field(init=False, repr=False, compare=False)
 
-    @property
-    def combined_db(self) -> float:
-        """u_c, dB."""
-        return combine([c.contribution_db for c in self.contributions])
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "combined_db",
+                           combine([c.contribution_db for c in self.contributions]))
 
     @property
     def expanded_db(self) -> float:
