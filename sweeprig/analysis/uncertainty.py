@@ -379,6 +379,9 @@ WORST_OF: Mapping[str, tuple[str, str]] = {
     "iip2": ("iip2_low", "iip2_high"),
 }
 
+#: The figures a :data:`WORST_OF` headline takes its budget from.
+_SIDE_NAMES = frozenset(side for pair in WORST_OF.values() for side in pair)
+
 _DB_UNITS = frozenset({"dB", "dBm", "dBc"})
 
 
@@ -701,11 +704,13 @@ def attach_uncertainty(figures: Sequence[Figure], captures: pd.DataFrame,
             small_signal_u[_condition_key(f.conditions)] = mean_u_db(gains)
     out: list[Figure] = []
     sides: dict[tuple, Figure] = {}
+    side_names = _SIDE_NAMES
     for f in figures:
         budget = figure_budget(f, levels, specs, cal, small_signal_u=small_signal_u)
         if budget is not None:
             f = with_changes(f, uncertainty_db=budget.expanded_db, budget=budget)
-            sides[(f.name, _condition_key(f.conditions), f.value)] = f
+            if f.name in side_names:
+                sides[(f.name, _condition_key(f.conditions), f.value)] = f
         out.append(f)
     for i, f in enumerate(out):
         if f.name in WORST_OF and f.is_number:
