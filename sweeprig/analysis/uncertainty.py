@@ -603,9 +603,14 @@ def _mismatch(name: str, what: str, specs: InstrumentSpecs, c: float) -> Contrib
 
 def figure_budget(figure: Figure, levels: PointLevels, specs: InstrumentSpecs,
                   cal: CalibrationState = UNCALIBRATED, *,
-                  small_signal_u: Mapping[tuple, float] | None = None) -> Budget | None:
+                  small_signal_u: Mapping[tuple, float] | None = None,
+                  lines: dict[tuple, Contribution] | None = None) -> Budget | None:
     """The uncertainty budget of ``figure`` (None: a bound, not a number, not in dB, or a
-    figure this module has no model for)."""
+    figure this module has no model for). ``lines``: a dict the noise lines made are kept
+    in and taken from (the figures of one point and reading share them: a per-drive IIP3,
+    OIP3 and IM3 read the same product), so a run's budgets hold each distinct line once."""
+    if lines is None:
+        lines = {}
     model = MODELS.get(figure.name)
     if model is None or not figure.is_number or figure.unit not in _DB_UNITS:
         return None
@@ -616,11 +621,15 @@ def figure_budget(figure: Figure, levels: PointLevels, specs: InstrumentSpecs,
     for reading, c in noisy:
         snr = levels.min_snr_db(pts, reading)
         if math.isfinite(snr):
-            terms.append(Contribution("noise", f"analyzer noise under {_plain(reading)} "
-                                      f"(lowest SNR {snr:.1f} dB)", noise_bias_db(snr),
-                                      "rectangular", c, "B",
-                                      "measured noise floor; one-sided bias taken as "
-                                      "rectangular (common practice, no source)"))
+            key = ("noise", reading, snr, c)
+            line = lines.get(key)
+            if line is None:
+                line = lines[key] = Contribution(
+                    "noise", f"analyzer noise under {_plain(reading)} (lowest SNR {snr:.1f} "
+                    "dB)", noise_bias_db(snr), "rectangular", c, "B",
+                    "measured noise floor; one-sided bias taken as rectangular (common "
+                    "practice, no source)")
+            terms.append(line)
     fit_terms: list[Contribution] = []
     if model.fit == "intercept" and model.product is not None:
         x = [levels.input_dbm.get(p, math.nan) for p in pts]
@@ -649,11 +658,16 @@ def figure_budget(figure: Figure, levels: PointLevels, specs: InstrumentSpecs,
         if worst is not None and worst[0] > 0.0:
             sigma, snr, avg = worst
             c = model.relative_c or c  # flatness: two readings of the gain, √2
-            terms.append(Contribution(
-                "noise_scatter", f"scatter of one reading of {_plain(reading)} in the "
-                f"analyzer noise (SNR {snr:.1f} dB, {avg} sweep{'s' if avg > 1 else ''}): "
-                "(20/ln 10)·sqrt(1/(2ρ))/√averages", sigma, "standard", c, "A",
-                "measured level and noise floor; small-noise expansion of 20·log10|A + n|"))
+            key = ("noise_scatter", reading, sigma, snr, avg, c)
+            line = lines.get(key)
+            if line is None:
+                line = lines[key] = Contribution(
+                    "noise_scatter", f"scatter of one reading of {_plain(reading)} in the "
+                    f"analyzer noise (SNR {snr:.1f} dB, {avg} sweep{'s' if avg > 1 else ''}): "
+                    "(20/ln 10)·sqrt(1/(2ρ))/√averages", sigma, "standard", c, "A",
+                    "measured level and noise floor; small-noise expansion of "
+                    "20·log10|A + n|")
+            terms.append(line)
     return Budget(tuple(terms), specs.coverage_factor)
 
 
@@ -705,8 +719,10 @@ def attach_uncertainty(figures: Sequence[Figure], captures: pd.DataFrame,
     out: list[Figure] = []
     sides: dict[tuple, Figure] = {}
     side_names = _SIDE_NAMES
+    lines: dict[tuple, Contribution] = {}
     for f in figures:
-        budget = figure_budget(f, levels, specs, cal, small_signal_u=small_signal_u)
+        budget = figure_budget(f, levels, specs, cal, small_signal_u=small_signal_u,
+                               lines=lines)
         if budget is not None:
             f = with_changes(f, uncertainty_db=budget.expanded_db, budget=budget)
             if f.name in side_names:
