@@ -78,13 +78,22 @@ def with_output_frequency(figures: Sequence[Figure], orders: tuple[int, int] | N
     (default (1, −1)): the axis a datasheet plots gain against."""
     m, n = orders if orders is not None else (1, -1)
     out: list[Figure] = []
+    # Figures of one point share one conditions mapping (the analysis makes it once per
+    # point): they share the extended one too, rather than a copy each.
+    extended: dict[int, tuple[Mapping[str, float | int | str], Mapping[str, float | int | str]]]
+    extended = {}
     for f in figures:
         c = f.conditions
+        made = extended.get(id(c))
+        if made is not None and made[0] is c:
+            out.append(with_changes(f, conditions=made[1]))
+            continue
         lo, rf = c.get("lo_freq_hz"), c.get("rf_freq_hz")
         if OUTPUT_FREQ in c or not isinstance(lo, float | int) or not isinstance(rf, float | int):
             out.append(f)
             continue
         cond = MappingProxyType({**c, OUTPUT_FREQ: float(abs(m * lo + n * rf))})
+        extended[id(c)] = (c, cond)
         out.append(with_changes(f, conditions=cond))
     return out
 
