@@ -53,7 +53,7 @@ import functools
 import math
 from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
-from typing import Literal
+from typing import Any, Literal
 
 import numpy as np
 import pandas as pd
@@ -231,8 +231,9 @@ class Budget:
 
 def combine(contributions_db: Iterable[float]) -> float:
     """Root sum of squares of the terms c_i·u(x_i) (JCGM 100:2008 eq. (10))."""
-    values = [float(v) for v in contributions_db]
-    return math.sqrt(math.fsum(v * v for v in values))
+    # math.hypot of many arguments is the correctly rounded root sum of squares (Python
+    # 3.10+), in C: a large run combines hundreds of thousands of budgets.
+    return math.hypot(*(float(v) for v in contributions_db))
 
 
 # ---------------------------------------------------------------------------------------------
@@ -604,17 +605,22 @@ def _mismatch(name: str, what: str, specs: InstrumentSpecs, c: float) -> Contrib
 def figure_budget(figure: Figure, levels: PointLevels, specs: InstrumentSpecs,
                   cal: CalibrationState = UNCALIBRATED, *,
                   small_signal_u: Mapping[tuple, float] | None = None,
-                  lines: dict[tuple, Contribution] | None = None) -> Budget | None:
+                  lines: dict[tuple, Any] | None = None) -> Budget | None:
     """The uncertainty budget of ``figure`` (None: a bound, not a number, not in dB, or a
     figure this module has no model for). ``lines``: a dict the noise lines made are kept
     in and taken from (the figures of one point and reading share them: a per-drive IIP3,
-    OIP3 and IM3 read the same product), so a run's budgets hold each distinct line once."""
+    OIP3 and IM3 read the same product), so a run's budgets hold each distinct line once;
+    give one dict only to the figures of one ``specs`` and ``cal``."""
     if lines is None:
         lines = {}
     model = MODELS.get(figure.name)
     if model is None or not figure.is_number or figure.unit not in _DB_UNITS:
         return None
-    terms = list(_cached_level_terms(model, specs, cal))
+    level_key = ("level", figure.name)
+    level_terms = lines.get(level_key)
+    if level_terms is None:  # built once per figure name (hashing the specifications costs)
+        level_terms = lines[level_key] = _cached_level_terms(model, specs, cal)
+    terms = list(level_terms)
     pts = [int(p) for p in figure.points]
     noisy = [(r, c) for r, c in [(_noise_reading(model, figure), model.noise_c),
                                   *model.noise_also] if r is not None and c]
@@ -719,7 +725,7 @@ def attach_uncertainty(figures: Sequence[Figure], captures: pd.DataFrame,
     out: list[Figure] = []
     sides: dict[tuple, Figure] = {}
     side_names = _SIDE_NAMES
-    lines: dict[tuple, Contribution] = {}
+    lines: dict[tuple, Any] = {}
     for f in figures:
         budget = figure_budget(f, levels, specs, cal, small_signal_u=small_signal_u,
                                lines=lines)
