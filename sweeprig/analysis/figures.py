@@ -398,19 +398,29 @@ class Figure:
 
 
 _FIGURE_SLOTS: tuple[str, ...] = Figure.__slots__
+_FIGURE_SLOT_SET = frozenset(_FIGURE_SLOTS)
+# with_changes sets every field by name: a field added to Figure must be added there too
+# (tests/analysis/test_figures.py compares it with dataclasses.replace field by field).
 
 
 def with_changes(figure: Figure, **changes: object) -> Figure:
     """``figure`` with the fields in ``changes`` replaced: what :func:`dataclasses.replace`
     gives, without re-running ``__init__`` (Figure has no validation to skip; a large run
     replaces hundreds of thousands of figures). An unknown field is refused."""
-    unknown = set(changes).difference(_FIGURE_SLOTS)
-    if unknown:
-        raise TypeError(f"Figure has no field {', '.join(sorted(unknown))}")
+    if not changes.keys() <= _FIGURE_SLOT_SET:
+        unknown = sorted(set(changes).difference(_FIGURE_SLOTS))
+        raise TypeError(f"Figure has no field {', '.join(unknown)}")
     out = object.__new__(Figure)
-    set_attr = object.__setattr__
-    for name in _FIGURE_SLOTS:
-        set_attr(out, name, changes[name] if name in changes else getattr(figure, name))
+    set_attr, get = object.__setattr__, changes.get
+    set_attr(out, "name", get("name", figure.name))
+    set_attr(out, "value", get("value", figure.value))
+    set_attr(out, "unit", get("unit", figure.unit))
+    set_attr(out, "bound", get("bound", figure.bound))
+    set_attr(out, "conditions", get("conditions", figure.conditions))
+    set_attr(out, "flags", get("flags", figure.flags))
+    set_attr(out, "points", get("points", figure.points))
+    set_attr(out, "uncertainty_db", get("uncertainty_db", figure.uncertainty_db))
+    set_attr(out, "budget", get("budget", figure.budget))
     return out
 
 
