@@ -25,7 +25,6 @@ noise). A reading in the noise is an upper bound, so a suppression is then a ">"
 
 from __future__ import annotations
 
-import dataclasses
 from collections.abc import Mapping, Sequence
 from types import MappingProxyType
 from typing import TYPE_CHECKING
@@ -41,6 +40,7 @@ from sweeprig.analysis.figures import (
     IN_NOISE,
     Figure,
     make_figures,
+    with_changes,
 )
 
 if TYPE_CHECKING:
@@ -62,7 +62,7 @@ def trade_named(figures: Sequence[Figure], conversion: str) -> list[Figure]:
     computed; "up": :data:`UP_NAMES` applied)."""
     if conversion != "up":
         return list(figures)
-    return [dataclasses.replace(f, name=UP_NAMES[f.name]) if f.name in UP_NAMES else f
+    return [with_changes(f, name=UP_NAMES[f.name]) if f.name in UP_NAMES else f
             for f in figures]
 
 
@@ -78,14 +78,23 @@ def with_output_frequency(figures: Sequence[Figure], orders: tuple[int, int] | N
     (default (1, −1)): the axis a datasheet plots gain against."""
     m, n = orders if orders is not None else (1, -1)
     out: list[Figure] = []
+    # Figures of one point share one conditions mapping (the analysis makes it once per
+    # point): they share the extended one too, rather than a copy each.
+    extended: dict[int, tuple[Mapping[str, float | int | str], Mapping[str, float | int | str]]]
+    extended = {}
     for f in figures:
         c = f.conditions
+        made = extended.get(id(c))
+        if made is not None and made[0] is c:
+            out.append(with_changes(f, conditions=made[1]))
+            continue
         lo, rf = c.get("lo_freq_hz"), c.get("rf_freq_hz")
         if OUTPUT_FREQ in c or not isinstance(lo, float | int) or not isinstance(rf, float | int):
             out.append(f)
             continue
         cond = MappingProxyType({**c, OUTPUT_FREQ: float(abs(m * lo + n * rf))})
-        out.append(dataclasses.replace(f, conditions=cond))
+        extended[id(c)] = (c, cond)
+        out.append(with_changes(f, conditions=cond))
     return out
 
 

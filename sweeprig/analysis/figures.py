@@ -101,7 +101,7 @@ import gc
 import math
 from collections.abc import Iterable, Iterator, Mapping, Sequence
 from contextlib import contextmanager
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, field
 from functools import lru_cache
 from types import MappingProxyType
 from typing import TYPE_CHECKING, Literal
@@ -397,6 +397,33 @@ class Figure:
         return f"{self.bound} {body}" if self.bound else body
 
 
+_FIGURE_SLOTS: tuple[str, ...] = Figure.__slots__
+_FIGURE_SLOT_SET = frozenset(_FIGURE_SLOTS)
+# with_changes sets every field by name: a field added to Figure must be added there too
+# (tests/analysis/test_figures.py compares it with dataclasses.replace field by field).
+
+
+def with_changes(figure: Figure, **changes: object) -> Figure:
+    """``figure`` with the fields in ``changes`` replaced: what :func:`dataclasses.replace`
+    gives, without re-running ``__init__`` (Figure has no validation to skip; a large run
+    replaces hundreds of thousands of figures). An unknown field is refused."""
+    if not changes.keys() <= _FIGURE_SLOT_SET:
+        unknown = sorted(set(changes).difference(_FIGURE_SLOTS))
+        raise TypeError(f"Figure has no field {', '.join(unknown)}")
+    out = object.__new__(Figure)
+    set_attr, get = object.__setattr__, changes.get
+    set_attr(out, "name", get("name", figure.name))
+    set_attr(out, "value", get("value", figure.value))
+    set_attr(out, "unit", get("unit", figure.unit))
+    set_attr(out, "bound", get("bound", figure.bound))
+    set_attr(out, "conditions", get("conditions", figure.conditions))
+    set_attr(out, "flags", get("flags", figure.flags))
+    set_attr(out, "points", get("points", figure.points))
+    set_attr(out, "uncertainty_db", get("uncertainty_db", figure.uncertainty_db))
+    set_attr(out, "budget", get("budget", figure.budget))
+    return out
+
+
 def bound_symbol(code: int) -> Bound:
     """Bound code (:data:`BOUND_BELOW`, :data:`BOUND_NONE`, :data:`BOUND_ABOVE`) → symbol."""
     if code == BOUND_BELOW:
@@ -469,7 +496,7 @@ def flag_points(
     for figure in figures:
         if marked and name not in figure.flags and not marked.isdisjoint(figure.points):
             mask = sum(_FLAG_BIT[f] for f in figure.flags) | bit
-            figure = replace(figure, flags=flags_from_mask(mask))
+            figure = with_changes(figure, flags=flags_from_mask(mask))
         out.append(figure)
     return out
 

@@ -52,13 +52,13 @@ from __future__ import annotations
 import functools
 import math
 from collections.abc import Iterable, Mapping, Sequence
-from dataclasses import dataclass, field, replace
-from typing import Literal
+from dataclasses import dataclass, field
+from typing import Any, Literal
 
 import numpy as np
 import pandas as pd
 
-from sweeprig.analysis.figures import Figure
+from sweeprig.analysis.figures import Figure, with_changes
 
 Shape = Literal["rectangular", "triangular", "u-shaped", "normal-k2", "standard"]
 
@@ -174,16 +174,18 @@ class Contribution:
     sensitivity: float
     kind: Literal["A", "B"] = "B"
     origin: str = ""
+    #: |c_i| · u(x_i), dB: worked out once when the line is made (a large run's budgets
+    #: are read many times over: totals, worst sides, reports).
+    contribution_db: float = field(init=False, repr=False, compare=False)
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "contribution_db",
+                           abs(self.sensitivity) * self.standard_db)
 
     @property
     def standard_db(self) -> float:
         """u(x_i), dB."""
         return standard_uncertainty(self.half_width_db, self.shape)
-
-    @property
-    def contribution_db(self) -> float:
-        """|c_i| · u(x_i), dB."""
-        return abs(self.sensitivity) * self.standard_db
 
     def as_dict(self) -> dict[str, object]:
         return {
@@ -194,6 +196,10 @@ class Contribution:
         }
 
 
+#: How every budget is combined, in words (reports, ``figures.json``).
+BUDGET_METHOD = "JCGM 100:2008 (GUM): root sum of squares of c_i·u(x_i), uncorrelated"
+
+
 @dataclass(frozen=True, slots=True)
 class Budget:
     """A figure's uncertainty budget: its contributions, combined by root sum of squares
@@ -201,11 +207,12 @@ class Budget:
 
     contributions: tuple[Contribution, ...]
     coverage_factor: float = COVERAGE_FACTOR
+    #: u_c, dB: combined once when the budget is made.
+    combined_db: float = field(init=False, repr=False, compare=False)
 
-    @property
-    def combined_db(self) -> float:
-        """u_c, dB."""
-        return combine([c.contribution_db for c in self.contributions])
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "combined_db",
+                           combine([c.contribution_db for c in self.contributions]))
 
     @property
     def expanded_db(self) -> float:
@@ -214,7 +221,7 @@ class Budget:
 
     def as_dict(self) -> dict[str, object]:
         return {
-            "method": "JCGM 100:2008 (GUM): root sum of squares of c_i·u(x_i), uncorrelated",
+            "method": BUDGET_METHOD,
             "combined_standard_uncertainty_db": self.combined_db,
             "coverage_factor": self.coverage_factor,
             "expanded_uncertainty_db": self.expanded_db,
@@ -224,8 +231,9 @@ class Budget:
 
 def combine(contributions_db: Iterable[float]) -> float:
     """Root sum of squares of the terms c_i·u(x_i) (JCGM 100:2008 eq. (10))."""
-    values = [float(v) for v in contributions_db]
-    return math.sqrt(math.fsum(v * v for v in values))
+    # math.hypot of many arguments is the correctly rounded root sum of squares (Python
+    # 3.10+), in C: a large run combines hundreds of thousands of budgets.
+    return math.hypot(*(float(v) for v in contributions_db))
 
 
 # ---------------------------------------------------------------------------------------------
@@ -371,6 +379,9 @@ WORST_OF: Mapping[str, tuple[str, str]] = {
     "oip3": ("oip3_low", "oip3_high"),
     "iip2": ("iip2_low", "iip2_high"),
 }
+
+#: The figures a :data:`WORST_OF` headline takes its budget from.
+_SIDE_NAMES = frozenset(side for pair in WORST_OF.values() for side in pair)
 
 _DB_UNITS = frozenset({"dB", "dBm", "dBc"})
 
@@ -593,24 +604,38 @@ def _mismatch(name: str, what: str, specs: InstrumentSpecs, c: float) -> Contrib
 
 def figure_budget(figure: Figure, levels: PointLevels, specs: InstrumentSpecs,
                   cal: CalibrationState = UNCALIBRATED, *,
-                  small_signal_u: Mapping[tuple, float] | None = None) -> Budget | None:
+                  small_signal_u: Mapping[tuple, float] | None = None,
+                  lines: dict[tuple, Any] | None = None) -> Budget | None:
     """The uncertainty budget of ``figure`` (None: a bound, not a number, not in dB, or a
-    figure this module has no model for)."""
+    figure this module has no model for). ``lines``: a dict the noise lines made are kept
+    in and taken from (the figures of one point and reading share them: a per-drive IIP3,
+    OIP3 and IM3 read the same product), so a run's budgets hold each distinct line once;
+    give one dict only to the figures of one ``specs`` and ``cal``."""
+    if lines is None:
+        lines = {}
     model = MODELS.get(figure.name)
     if model is None or not figure.is_number or figure.unit not in _DB_UNITS:
         return None
-    terms = list(_cached_level_terms(model, specs, cal))
+    level_key = ("level", figure.name)
+    level_terms = lines.get(level_key)
+    if level_terms is None:  # built once per figure name (hashing the specifications costs)
+        level_terms = lines[level_key] = _cached_level_terms(model, specs, cal)
+    terms = list(level_terms)
     pts = [int(p) for p in figure.points]
     noisy = [(r, c) for r, c in [(_noise_reading(model, figure), model.noise_c),
                                   *model.noise_also] if r is not None and c]
     for reading, c in noisy:
         snr = levels.min_snr_db(pts, reading)
         if math.isfinite(snr):
-            terms.append(Contribution("noise", f"analyzer noise under {_plain(reading)} "
-                                      f"(lowest SNR {snr:.1f} dB)", noise_bias_db(snr),
-                                      "rectangular", c, "B",
-                                      "measured noise floor; one-sided bias taken as "
-                                      "rectangular (common practice, no source)"))
+            key = ("noise", reading, snr, c)
+            line = lines.get(key)
+            if line is None:
+                line = lines[key] = Contribution(
+                    "noise", f"analyzer noise under {_plain(reading)} (lowest SNR {snr:.1f} "
+                    "dB)", noise_bias_db(snr), "rectangular", c, "B",
+                    "measured noise floor; one-sided bias taken as rectangular (common "
+                    "practice, no source)")
+            terms.append(line)
     fit_terms: list[Contribution] = []
     if model.fit == "intercept" and model.product is not None:
         x = [levels.input_dbm.get(p, math.nan) for p in pts]
@@ -639,11 +664,16 @@ def figure_budget(figure: Figure, levels: PointLevels, specs: InstrumentSpecs,
         if worst is not None and worst[0] > 0.0:
             sigma, snr, avg = worst
             c = model.relative_c or c  # flatness: two readings of the gain, √2
-            terms.append(Contribution(
-                "noise_scatter", f"scatter of one reading of {_plain(reading)} in the "
-                f"analyzer noise (SNR {snr:.1f} dB, {avg} sweep{'s' if avg > 1 else ''}): "
-                "(20/ln 10)·sqrt(1/(2ρ))/√averages", sigma, "standard", c, "A",
-                "measured level and noise floor; small-noise expansion of 20·log10|A + n|"))
+            key = ("noise_scatter", reading, sigma, snr, avg, c)
+            line = lines.get(key)
+            if line is None:
+                line = lines[key] = Contribution(
+                    "noise_scatter", f"scatter of one reading of {_plain(reading)} in the "
+                    f"analyzer noise (SNR {snr:.1f} dB, {avg} sweep{'s' if avg > 1 else ''}): "
+                    "(20/ln 10)·sqrt(1/(2ρ))/√averages", sigma, "standard", c, "A",
+                    "measured level and noise floor; small-noise expansion of "
+                    "20·log10|A + n|")
+            terms.append(line)
     return Budget(tuple(terms), specs.coverage_factor)
 
 
@@ -694,18 +724,22 @@ def attach_uncertainty(figures: Sequence[Figure], captures: pd.DataFrame,
             small_signal_u[_condition_key(f.conditions)] = mean_u_db(gains)
     out: list[Figure] = []
     sides: dict[tuple, Figure] = {}
+    side_names = _SIDE_NAMES
+    lines: dict[tuple, Any] = {}
     for f in figures:
-        budget = figure_budget(f, levels, specs, cal, small_signal_u=small_signal_u)
+        budget = figure_budget(f, levels, specs, cal, small_signal_u=small_signal_u,
+                               lines=lines)
         if budget is not None:
-            f = replace(f, uncertainty_db=budget.expanded_db, budget=budget)
-            sides[(f.name, _condition_key(f.conditions), f.value)] = f
+            f = with_changes(f, uncertainty_db=budget.expanded_db, budget=budget)
+            if f.name in side_names:
+                sides[(f.name, _condition_key(f.conditions), f.value)] = f
         out.append(f)
     for i, f in enumerate(out):
         if f.name in WORST_OF and f.is_number:
             for side in WORST_OF[f.name]:
                 match = sides.get((side, _condition_key(f.conditions), f.value))
                 if match is not None:
-                    out[i] = replace(f, uncertainty_db=match.uncertainty_db,
+                    out[i] = with_changes(f, uncertainty_db=match.uncertainty_db,
                                      budget=match.budget)
                     break
     return out

@@ -37,7 +37,12 @@ from sweeprig.analysis.figures import (
 )
 from sweeprig.analysis.limits import FAIL, INCONCLUSIVE, PASS, Judgement, Limit
 from sweeprig.analysis.reduce import RunFigures
-from sweeprig.analysis.uncertainty import uncertainty_text
+from sweeprig.analysis.uncertainty import (
+    BUDGET_METHOD,
+    Budget,
+    Contribution,
+    uncertainty_text,
+)
 from sweeprig.errors import StoreError
 from sweeprig.units import format_frequency
 
@@ -470,14 +475,22 @@ def _document(run: RunFigures) -> dict[str, Any]:
     limit check on the figure inconclusive. ``judgements`` refer to figures and limits
     by their index in the two lists.
 
-    The long lists (``judgements``, ``figures``, ``events``) are :class:`_Stream` objects
-    here: :func:`figures_document` makes them lists, :func:`write_figures_json` writes them
-    entry by entry.
+    A figure's ``budget`` (None without one) holds its combined and expanded uncertainty and
+    coverage factor, and its ``contributions`` as indices into ``budget_terms``: the list of
+    every distinct budget line of the run, each written once (the instrument terms are the
+    same for every figure of a kind, and a large run has hundreds of thousands of figures).
+    ``budget_terms`` comes after ``figures``, so both stream in one pass.
+
+    The long lists (``judgements``, ``figures``, ``budget_terms``, ``events``) are
+    :class:`_Stream` objects here: :func:`figures_document` makes them lists (in key order:
+    ``budget_terms`` is filled while ``figures`` is read), :func:`write_figures_json` writes
+    them entry by entry.
     """
     index = {id(f): i for i, f in enumerate(run.figures)}
     limit_index = {id(li): i for i, li in enumerate(run.limits)}
+    terms = BudgetTerms()
     return {
-        "format": "sweeprig figures 1",
+        "format": FIGURES_FORMAT,
         "generated_utc": datetime.now(UTC).isoformat(timespec="seconds"),
         "sweeprig_version": __version__,
         "run": {
@@ -528,6 +541,7 @@ def _document(run: RunFigures) -> dict[str, Any]:
             for j in run.assessment.judgements
         ),
         "untested_limits": [limit_index[id(li)] for li in run.assessment.untested],
+        "budget_method": BUDGET_METHOD,
         "flag_meanings": {name: FLAG_MEANINGS[name] for name in FLAGS},
         "suspect_flags": [name for name in FLAGS if name in SUSPECT_FLAGS],
         "figures": _Stream(
@@ -536,15 +550,47 @@ def _document(run: RunFigures) -> dict[str, Any]:
              "conditions": {k: _plain(v) for k, v in f.conditions.items()},
              "flags": list(f.flags), "points": [int(p) for p in f.points],
              "uncertainty_db": _number(f.uncertainty_db),
-             "budget": f.budget.as_dict() if f.budget is not None else None}
+             "budget": terms.budget_entry(f.budget) if f.budget is not None else None}
             for f in run.figures
         ),
+        "budget_terms": _Stream(terms.entries()),
         "events": _Stream(
             {"time_utc": e.time.isoformat(), "severity": e.severity, "kind": e.kind,
              "message": e.message, "point": e.point_index, "details": dict(e.details)}
             for e in run.events
         ),
     }
+
+
+#: The ``format`` of ``figures.json``: 2 since budgets refer to a shared table of terms.
+FIGURES_FORMAT = "sweeprig figures 2"
+
+
+class BudgetTerms:
+    """The distinct lines of every budget of a run, each numbered once, in order of first
+    use (``figures.json``'s ``budget_terms``)."""
+
+    def __init__(self) -> None:
+        self._index: dict[Contribution, int] = {}
+
+    def budget_entry(self, budget: Budget) -> dict[str, object]:
+        """A figure's budget: its totals and the numbers of its lines."""
+        index = self._index
+        ids = []
+        for term in budget.contributions:
+            number = index.get(term)
+            if number is None:
+                number = index[term] = len(index)
+            ids.append(number)
+        combined = budget.combined_db
+        return {"combined_standard_uncertainty_db": combined,
+                "coverage_factor": budget.coverage_factor,
+                "expanded_uncertainty_db": budget.coverage_factor * combined,
+                "contributions": ids}
+
+    def entries(self) -> Iterable[dict[str, object]]:
+        """Every line numbered so far, in number order (read it after the figures)."""
+        yield from (term.as_dict() for term in list(self._index))
 
 
 def figures_document(run: RunFigures) -> dict[str, Any]:

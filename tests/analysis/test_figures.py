@@ -95,3 +95,24 @@ def test_bound_arithmetic():
     assert math.isnan(float(v))
     v, b = bound_sum(np.array(1.0), np.array(BOUND_ABOVE), np.array(2.0), np.array(BOUND_ABOVE))
     assert (float(v), int(b)) == (3.0, BOUND_ABOVE)
+
+
+def test_with_changes_is_dataclasses_replace():
+    """The fast copy gives exactly what dataclasses.replace gives, and refuses a field the
+    figure does not have."""
+    import dataclasses
+
+    from sweeprig.analysis.figures import with_changes
+
+    figure = Figure("iip3", 12.5, "dBm", None, {"temperature_c": 25.0}, ("slope_off",), (3, 4))
+    for changes in ({}, {"name": "oip3"}, {"uncertainty_db": 0.7, "flags": ()},
+                    {"conditions": {"temperature_c": 85.0}, "bound": ">"}):
+        made = with_changes(figure, **changes)
+        expected = dataclasses.replace(figure, **changes)
+        assert made == expected and made is not figure
+        assert all(getattr(made, s) == getattr(expected, s) or s == "uncertainty_db"
+                   for s in Figure.__slots__)
+        assert made.uncertainty_db == expected.uncertainty_db or (
+            math.isnan(made.uncertainty_db) and math.isnan(expected.uncertainty_db))
+    with pytest.raises(TypeError, match="no field valu"):
+        with_changes(figure, valu=1.0)

@@ -324,6 +324,27 @@ def test_attach_sets_every_budget_and_the_headline_intercept_takes_its_sides():
     assert out[0] == figures[0]  # the uncertainty does not change what a figure is
 
 
+def test_a_runs_budgets_share_their_lines_and_equal_budgets_made_one_by_one():
+    """attach_uncertainty makes each noise line once per reading, SNR and sensitivity (the
+    per-drive IIP3 and OIP3 read the same product) and shares it; every budget is what
+    figure_budget gives for the figure alone."""
+    rows = [(0, "if", -20.0, -8.0, -90.0), (0, "im3_low", -20.0, -70.0, -90.0),
+            (1, "if", -18.0, -6.0, -90.0), (1, "im3_low", -18.0, -64.0, -90.0)]
+    figures = [Figure(name, 20.0 + k, "dBm", conditions={"study": "two-tone"}, points=(p,))
+               for p in (0, 1) for k, name in enumerate(("iip3_point_low", "oip3_point_low",
+                                                          "im3_low"))]
+    captures = _captures(rows)
+    out = attach_uncertainty(figures, captures)
+    levels, specs = PointLevels.from_captures(captures), InstrumentSpecs()
+    for made, figure in zip(out, figures, strict=True):
+        assert made.budget == figure_budget(figure, levels, specs)
+    iip3, oip3 = out[0].budget.contributions, out[1].budget.contributions
+    shared = [c for c in iip3 if any(c is d for d in oip3)]
+    assert {c.name for c in shared} >= {"noise", "noise_scatter"}  # same product, same c
+    assert not any(c is d for c in out[0].budget.contributions  # another point: its own
+                   for d in out[3].budget.contributions if c.name == "noise")
+
+
 def test_text_with_uncertainty():
     assert uncertainty_text(12.4913, "dB", 0.1804) == "12.49 ± 0.18 dB (k = 2)"
 

@@ -125,8 +125,18 @@ def test_numbers_carry_their_expanded_uncertainty_and_budget(report_run, report_
     entry = by_name["conversion_gain"]
     assert entry["uncertainty_db"] == pytest.approx(entry["budget"]["expanded_uncertainty_db"])
     assert entry["budget"]["coverage_factor"] == 2.0
-    names = {c["name"] for c in entry["budget"]["contributions"]}
+    terms = document["budget_terms"]
+    names = {terms[i]["name"] for i in entry["budget"]["contributions"]}
     assert {"input_level", "analyzer_absolute", "input_mismatch", "output_mismatch"} <= names
+    # The budget's lines are written once each and add up to its stated total (GUM eq. (10)).
+    assert len({json.dumps(t, sort_keys=True) for t in terms}) == len(terms)
+    for entry in document["figures"]:
+        if entry["budget"] is not None:
+            lines = [terms[i]["contribution_db"] for i in entry["budget"]["contributions"]]
+            assert entry["budget"]["combined_standard_uncertainty_db"] == pytest.approx(
+                math.sqrt(sum(c * c for c in lines)))
+    assert document["format"] == "sweeprig figures 2"
+    assert document["budget_method"].startswith("JCGM 100:2008")
     # No budget for a figure in amperes; bounds carry none either.
     if "supply_current" in by_name:
         assert by_name["supply_current"]["uncertainty_db"] is None
