@@ -133,12 +133,19 @@ def lo_factor(
     cell: CellState,
     max_order: int,
     tol: float = ALIAS_TOL,
+    grid_guess: int | None = None,
 ) -> LoFactor:
     """Fourier coefficients of D(θ) and S(θ) for an LO wave ``Σ_h A_h·cos(h·θ)``.
 
     ``lo_amps_v[h-1]`` is the peak differential voltage of LO harmonic h at the quad.
     An empty or all-zero drive gives the DC values only (no LO). The grid size doubles until
     the top quarter of the spectrum is below ``tol`` of the largest coefficient.
+
+    ``grid_guess`` (the grid that converged for a similar drive, cached by the caller) saves
+    the doubling when it is right: a guess that meets ``tol`` while half of it does not is
+    the grid the doubling stops at (the top of the spectrum falls as the grid grows), found
+    from one set of samples (see :func:`_lo_spectra_from_guess`); a wrong guess falls back
+    to the doubling. The grid, hence the coefficients, are the same either way.
     """
     if len(lo_amps_v) == 0 or not any(lo_amps_v):
         d0, s0 = switching_functions(0.0, cell.vt_v, cell.v_os1_v, cell.v_os2_v)
@@ -148,21 +155,75 @@ def lo_factor(
             s=np.array([complex(s0)]),
             grid_n=1,
         )
-    n = max(_start_size(max_order), _start_size(2 * len(lo_amps_v)))
+    start = max(_start_size(max_order), _start_size(2 * len(lo_amps_v)))
+    if grid_guess is not None and start < grid_guess <= _MAX_LO_GRID:
+        found = _lo_spectra_from_guess(lo_amps_v, cell, start, grid_guess, tol)
+        if found is not None:
+            n, d_k, s_k = found
+            return _lo_factor_from_spectra(n, d_k, s_k, max_order, True)
+    n = start
     converged = False
     while True:
-        wave = _axis_wave(lo_amps_v, n)
-        d_t, s_t = switching_functions(wave, cell.vt_v, cell.v_os1_v, cell.v_os2_v)
-        d_k = scipy.fft.rfft(d_t) / n
-        s_k = scipy.fft.rfft(s_t) / n
-        mag = np.maximum(np.abs(d_k), np.abs(s_k))
-        top = float(mag[n // 4 :].max())
-        if top <= tol * float(mag.max()):
+        d_k, s_k = _lo_spectra(lo_amps_v, cell, n)
+        if _lo_converged(d_k, s_k, n, tol):
             converged = True
             break
         if n >= _MAX_LO_GRID:
             break
         n *= 2
+    return _lo_factor_from_spectra(n, d_k, s_k, max_order, converged)
+
+
+def _lo_spectra(
+    lo_amps_v: Sequence[float], cell: CellState, n: int
+) -> tuple[NDArray[np.complex128], NDArray[np.complex128]]:
+    """rfft/n of D and S on an n-point LO phase grid."""
+    wave = _axis_wave(lo_amps_v, n)
+    d_t, s_t = switching_functions(wave, cell.vt_v, cell.v_os1_v, cell.v_os2_v)
+    return scipy.fft.rfft(d_t) / n, scipy.fft.rfft(s_t) / n
+
+
+def _lo_converged(
+    d_k: NDArray[np.complex128], s_k: NDArray[np.complex128], n: int, tol: float
+) -> bool:
+    """The doubling's stopping rule: the top quarter of the spectrum below ``tol`` of the
+    largest coefficient."""
+    mag = np.maximum(np.abs(d_k), np.abs(s_k))
+    return float(mag[n // 4 :].max()) <= tol * float(mag.max())
+
+
+def _lo_spectra_from_guess(
+    lo_amps_v: Sequence[float], cell: CellState, start: int, guess: int, tol: float
+) -> tuple[int, NDArray[np.complex128], NDArray[np.complex128]] | None:
+    """The doubling's answer found from a guessed grid: the grid ``guess`` (a power-of-two
+    multiple of ``start``) meets ``tol`` and half of it does not. The half grid is every
+    other point of the guessed one (θ_j = 2π·j/n), so its spectra come from the same
+    samples. When half the guess meets ``tol`` too the guess is walked down (each smaller
+    grid again from the same samples) to the first grid whose half does not; when the guess
+    does not meet it, None (the caller doubles from the start)."""
+    if guess % start or (guess // start) & (guess // start - 1):
+        return None
+    wave = _axis_wave(lo_amps_v, guess)
+    d_t, s_t = switching_functions(wave, cell.vt_v, cell.v_os1_v, cell.v_os2_v)
+    n = guess
+    d_k, s_k = scipy.fft.rfft(d_t) / n, scipy.fft.rfft(s_t) / n
+    if not _lo_converged(d_k, s_k, n, tol):
+        return None
+    while n > start:
+        half = n // 2
+        step = guess // half
+        d_h = scipy.fft.rfft(d_t[::step]) / half
+        s_h = scipy.fft.rfft(s_t[::step]) / half
+        if not _lo_converged(d_h, s_h, half, tol):
+            break
+        n, d_k, s_k = half, d_h, s_h
+    return n, d_k, s_k
+
+
+def _lo_factor_from_spectra(
+    n: int, d_k: NDArray[np.complex128], s_k: NDArray[np.complex128], max_order: int,
+    converged: bool,
+) -> LoFactor:
     m_pos = np.arange(max_order + 1)
     orders = np.concatenate([-m_pos[:0:-1], m_pos])
     d = np.concatenate([np.conj(d_k[m_pos[:0:-1]]), d_k[m_pos]])

@@ -713,7 +713,7 @@ class MixerPart:
         prep = self._cache.get(key)
         if prep is None:
             amps = () if lo is None else self.tone_core_amplitudes(lo, self.lo_port)
-            factor = lo_factor(amps, state.cell, self.max_lo_order)
+            factor = self._lo_factor(amps, state.cell)
             gain_db = self._small_signal_gain_db(state, factor)
             nf_db = state.noise_figure_db
             if lo is not None and self.noise_lo_nominal_dbm is not None:
@@ -725,6 +725,17 @@ class MixerPart:
             self._remember(key, prep)
         return prep
 
+    def _lo_factor(self, amps: tuple[float, ...], cell: CellState) -> LoFactor:
+        """:func:`lo_factor` for LO amplitudes at the quad, V: the grid that converged for
+        the last drive in the same 1 dB bucket is the guess (it changes the cost, never the
+        result; an LO stepped in frequency moves its amplitude through the port's band edges
+        by a fraction of a dB, so the guess is nearly always right)."""
+        key = ("lo-grid", cell, tuple(_bucket_up(a) for a in amps))
+        factor = lo_factor(amps, cell, self.max_lo_order, grid_guess=self._cache.get(key))
+        if factor.grid_n > 1:
+            self._remember(key, factor.grid_n)
+        return factor
+
     def _lo_drive_noise_figure_db(
         self, op: OperatingPoint, lo: ToneInput, amp_v: float, gain_db: float, state: _OpState
     ) -> float:
@@ -735,8 +746,7 @@ class MixerPart:
         if nominal is None:
             nom_amps = self.tone_core_amplitudes(
                 ToneInput(lo.freq_hz, self.noise_lo_nominal_dbm), self.lo_port)
-            nom_gain = self._small_signal_gain_db(
-                state, lo_factor(nom_amps, state.cell, self.max_lo_order))
+            nom_gain = self._small_signal_gain_db(state, self._lo_factor(nom_amps, state.cell))
             nominal = (switch_overlap_fraction(nom_amps[0], state.cell.vt_v), nom_gain)
             self._remember(key, nominal)
         nom_overlap, nom_gain_db = nominal
