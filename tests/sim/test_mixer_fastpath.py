@@ -130,3 +130,27 @@ def test_a_part_warm_from_a_sweep_gives_each_point_s_lines_as_a_fresh_part(
         _assert_same_lines(warm.lo_port, fresh.lo_port, where + " lo")
         assert warm.if_noise_dbm_per_hz == pytest.approx(fresh.if_noise_dbm_per_hz, abs=1e-12)
         assert warm.notes == pytest.approx(fresh.notes, rel=1e-13)
+
+
+def test_a_response_read_as_arrays_holds_the_lines_its_products_hold() -> None:
+    """The simulated bench reads a response's ports as arrays (the products are made only
+    for a reader that asks for them): the same lines either way, and a response built from
+    the products equals the one built from the arrays."""
+    from sweeprig.sim.mixer import MixerResponse
+
+    part = load_part("kx-2417")
+    h = (-35.0, -45.0)
+    resp = part.evaluate(OperatingPoint(), ToneInput(2.1e9, 0.0, 0.0, h),
+                         [ToneInput(2.2e9, -20.0, 0.0, h), ToneInput(2.201e9, -20.0, 0.0, h)])
+    for port in ("if_port", "rf_port", "lo_port"):
+        levels, products = resp.levels(port), getattr(resp, port)
+        assert len(products) == levels.freq_hz.size > 0
+        assert [p.freq_hz for p in products] == levels.freq_hz.tolist()
+        assert [p.power_dbm for p in products] == levels.power_dbm.tolist()
+        assert [p.orders for p in products] == levels.orders.tolist()
+        assert getattr(resp, port) is products  # made once
+    again = MixerResponse(resp.if_port, resp.rf_port, resp.lo_port, resp.if_noise_dbm_per_hz,
+                          resp.supply_current_a, resp.notes)
+    assert again == resp
+    with pytest.raises(AttributeError):
+        resp.supply_current_a = 1.0  # type: ignore[misc]

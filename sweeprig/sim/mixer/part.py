@@ -68,7 +68,7 @@ import math
 import os
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field, replace
-from functools import lru_cache, partial
+from functools import lru_cache
 from pathlib import Path
 from typing import Annotated, Any, Literal
 
@@ -113,7 +113,13 @@ from sweeprig.sim.mixer.realism import (
     lo_drive_noise_factor,
     switch_overlap_fraction,
 )
-from sweeprig.sim.mixer.types import MixerResponse, OperatingPoint, Product, ToneInput
+from sweeprig.sim.mixer.types import (
+    MixerResponse,
+    OperatingPoint,
+    PortLevels,
+    Product,
+    ToneInput,
+)
 from sweeprig.sim.names import PARTS_DIR
 from sweeprig.sim.names import shipped_parts as shipped_parts
 from sweeprig.units import example, parse_quantity
@@ -323,9 +329,6 @@ class PortNetwork:
             r = freq_hz / self.lowpass_hz
             mag /= math.sqrt(1.0 + r * r)
         return mag
-
-
-_new_product = partial(tuple.__new__, Product)  # Product from a (freq, power, orders) tuple
 
 
 @dataclass(frozen=True)
@@ -576,7 +579,7 @@ class MixerPart:
         """
         ev = self._evaluate(op, lo, tuple(rf), leakage=True)
         return MixerResponse(
-            if_port=self._products(ev.output),
+            if_port=self._levels(ev.output),
             rf_port=_entries_to_products(ev.input_entries, self.floor_dbm),
             lo_port=_entries_to_products(ev.lo_entries, self.floor_dbm),
             if_noise_dbm_per_hz=ev.noise_dbm_per_hz,
@@ -771,16 +774,14 @@ class MixerPart:
                 * inp.delivered_fraction * out.delivered_fraction)
         return 10.0 * math.log10(gain) if gain > 0.0 else -math.inf
 
-    def _products(self, lines: Lines) -> tuple[Product, ...]:
-        """Merged lines (sqrt(W) amplitudes) → products above the floor."""
+    def _levels(self, lines: Lines) -> PortLevels:
+        """Merged lines (sqrt(W) amplitudes) → the port's lines above the floor, as arrays."""
         power_w = lines.amp.real**2 + lines.amp.imag**2
         keep = power_w >= 1e-3 * 10.0 ** (self.floor_dbm / 10.0)
         if not keep.all():
             power_w = power_w[keep]
             lines = Lines(lines.freq_hz[keep], lines.amp[keep], lines.orders[keep])
-        power_dbm = 10.0 * np.log10(power_w * 1e3)
-        return tuple(map(_new_product, zip(
-            lines.freq_hz.tolist(), power_dbm.tolist(), lines.orders.tolist(), strict=True)))
+        return PortLevels(lines.freq_hz, 10.0 * np.log10(power_w * 1e3), lines.orders)
 
     def _check_inputs(self, lo: ToneInput | None, tones: tuple[ToneInput, ...]) -> None:
         if len(tones) > MAX_RF_TONES:
