@@ -17,10 +17,12 @@ QUICK = ROOT / "sequences" / "demo" / "quick.toml"
 #: Libraries no start-up path may load.
 HEAVY = ("pandas", "matplotlib", "scipy", "pyarrow", "skrf")
 #: The simulator proper. ``sweeprig.sim.names`` (the roles and shipped names the help lists)
-#: is light; ``check`` on the built-in simulated bench also reads the sim-bench description
-#: (``sweeprig.sim.bench`` with ``faults`` and ``analyzer_display``) to state its figures.
+#: is light; ``check`` on the built-in simulated bench reads only the sim-bench description
+#: (``sweeprig.sim.description`` with ``fault_plan``, the file format) to state its figures,
+#: never the bench that builds and serves the instruments, their faults or display.
 SIMULATOR = ("sweeprig.sim.mixer", "sweeprig.sim.world", "sweeprig.sim.server",
-             "sweeprig.sim.instruments", "sweeprig.sim.scpi", "sweeprig.sim.truth")
+             "sweeprig.sim.instruments", "sweeprig.sim.scpi", "sweeprig.sim.truth",
+             "sweeprig.sim.bench", "sweeprig.sim.faults", "sweeprig.sim.analyzer_display")
 
 _PROBE = """
 import json, sys
@@ -43,9 +45,10 @@ try:
 except SystemExit as exc:
     code = exc.code
 after_check = loaded()
+sim_after_check = sorted(m for m in sys.modules if m.startswith('sweeprig.sim'))
 print(json.dumps(dict(name=name, code=code, after_import=after_import,
                       sim_after_import=sim_after_import, after_resolve=after_resolve,
-                      after_check=after_check)))
+                      after_check=after_check, sim_after_check=sim_after_check)))
 """
 
 
@@ -66,6 +69,10 @@ def test_the_command_line_and_check_load_no_heavy_library_nor_the_simulator() ->
     assert seen["after_check"] == []
     # --help lists the sim commands from the light names module only
     assert set(seen["sim_after_import"]) <= {"sweeprig.sim", "sweeprig.sim.names"}
+    # check states the simulated bench's figures from its description alone
+    assert set(seen["sim_after_check"]) <= {"sweeprig.sim", "sweeprig.sim.names",
+                                            "sweeprig.sim.description",
+                                            "sweeprig.sim.fault_plan"}
 
 
 def test_a_command_module_that_fails_to_import_fails_the_command_line() -> None:
