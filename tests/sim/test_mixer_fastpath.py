@@ -16,7 +16,7 @@ import pytest
 
 from sweeprig.sim.mixer import OperatingPoint, ToneInput, load_part
 from sweeprig.sim.mixer.core import pair_angle, thermal_voltage_v
-from sweeprig.sim.mixer.multitone import CellState, lo_factor
+from sweeprig.sim.mixer.multitone import CellState, _axis_wave, _rf_grid_values, lo_factor
 
 #: Power difference allowed between a fast and a reference line, dB (issue 14's figure).
 TOL_DB = 1e-9
@@ -62,6 +62,34 @@ def test_the_in_place_pair_solver_finds_the_reference_root() -> None:
         assert float(pair_angle(float(v[0, 0]), vt, i_ee, r_e)) == pytest.approx(
             float(fast[0, 0]), rel=1e-15, abs=1e-18)
     assert v.shape == (7, 9)  # the input is not written over
+
+
+def _rf_grid_values_reference(amps: list[list[float]], shape: tuple[int, ...],
+                              cell: CellState) -> np.ndarray:
+    """X on the whole phase grid, every point solved (as before the mirror-image rewrite)."""
+    total: np.ndarray | float = cell.v_os_rf_v
+    for axis, (a, n) in enumerate(zip(amps, shape, strict=True)):
+        view = [1] * len(shape)
+        view[axis] = n
+        total = total + _axis_wave(a, n).reshape(view)
+    return np.tanh(_pair_angle_reference(np.asarray(total, dtype=float), cell.vt_v,
+                                         cell.i_ee_a, cell.r_e_ohm))
+
+
+@pytest.mark.parametrize("tones", [1, 2, 3])
+def test_the_mirrored_rf_grid_equals_the_grid_solved_at_every_point(tones: int) -> None:
+    rng = np.random.default_rng(100 + tones)
+    for _ in range(6):
+        cell = CellState(thermal_voltage_v(float(rng.uniform(-40.0, 85.0))),
+                         float(rng.uniform(1e-3, 10e-3)), float(rng.uniform(1.0, 40.0)),
+                         0.0, 0.0, float(rng.uniform(-3e-3, 3e-3)))
+        amps = [[float(10 ** rng.uniform(-3.0, -0.5))] * int(rng.integers(1, 4))
+                for _ in range(tones)]
+        shape = tuple(int(rng.integers(7, 41)) for _ in range(tones))  # odd and even sizes
+        fast = _rf_grid_values(amps, shape, cell)
+        reference = _rf_grid_values_reference(amps, shape, cell)
+        assert fast.shape == reference.shape == shape
+        np.testing.assert_allclose(fast, reference, rtol=0, atol=1e-14)
 
 
 @pytest.mark.parametrize("seed", range(6))
