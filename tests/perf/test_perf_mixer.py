@@ -4,9 +4,12 @@ Each case runs a sweep of distinct evaluations (power and frequency change every
 a bench, so only the LO spectrum and the grid sizes come from the caches) several times and
 prints the best pass, in CPU time of this process (other load on the machine distorts less).
 
-Two readings of each response are timed: as the simulated bench reads it (the output port's
-lines as arrays, :meth:`MixerResponse.levels`) and as a tuple of :class:`Product` (what the
-truth and reference-figure code iterate; the tuples are made on first reading). Issue 14
+Three ways are timed: one call per point read as the simulated bench reads it (the output
+port's lines as arrays, :meth:`MixerResponse.levels`); one call per point read as a tuple of
+:class:`Product` (what the truth and reference-figure code iterate; the tuples are made on
+first reading); and the points handed over as sweeps of 40 (:meth:`MixerPart.evaluate_many`,
+which solves their transconductor factors together; the served bench is driven point by
+point and does not use it). Issue 14
 sets ≥ 5,000 evaluations/s on the demo part (kx-2417) with source harmonics on, measured on
 a quiet machine; the line says met or MISSED against it, and the load average beside it.
 """
@@ -20,6 +23,8 @@ from sweeprig.sim.mixer import OperatingPoint, ToneInput, load_part
 
 _PASSES = 5
 _CALLS = 600
+#: Points handed to MixerPart.evaluate_many at once (a 10 dB power sweep in 0.25 dB steps).
+_SWEEP_POINTS = 40
 #: Issue 14: three-tone evaluations per second on one core, demo part, source harmonics on.
 TARGET_PER_S = 5_000.0
 
@@ -42,7 +47,11 @@ def _sweep_rate(part_name: str, lo_dbm: float, tone_dbm: float,
     for _ in range(_PASSES):
         lines = 0
         start = time.process_time()
-        if read == "arrays":
+        if read == "sweep":
+            for at in range(0, _CALLS, _SWEEP_POINTS):
+                for response in part.evaluate_many(op, lo, plan[at : at + _SWEEP_POINTS]):
+                    lines += response.levels("if_port").freq_hz.size
+        elif read == "arrays":
             for tones in plan:
                 lines += part.evaluate(op, lo, tones).levels("if_port").freq_hz.size
         else:
@@ -68,8 +77,10 @@ def test_three_tone_evaluation_rate(
     label = "sources with 2nd/3rd harmonics" if harmonics else "clean sources"
     print(f"\n{part_name}, {label}, two tones {tone_dbm:+.0f} to {tone_dbm + 10:+.0f} dBm each "
           f"(load average {os.getloadavg()[0]:.1f} on {os.cpu_count()} cores):")
-    for read, how in (("arrays", "read as arrays, as the simulated bench does"),
-                      ("products", "read as Product tuples")):
+    for read, how in (("arrays", "one call per point, read as arrays (the simulated bench)"),
+                      ("products", "one call per point, read as Product tuples"),
+                      ("sweep", f"{_SWEEP_POINTS} points per call (evaluate_many), read as "
+                                "arrays")):
         rate, lines = _sweep_rate(part_name, lo_dbm, tone_dbm, harmonics, read)
         verdict = ""
         if part_name == "kx-2417" and harmonics:

@@ -143,7 +143,7 @@ def test_a_part_warm_from_a_sweep_gives_each_point_s_lines_as_a_fresh_part(
     op = OperatingPoint(temperature_c=float(rng.uniform(-40.0, 85.0)), supply_v=3.3)
     harmonics = (-35.0, -45.0)
     f_in = 2.2e9 if part.conversion == "down" else 150e6
-    for i in range(12):
+    for i in range(8):
         lo = ToneInput(2.1e9 + i * 3e6 if part.conversion == "down" else 2.4e9 + i * 3e6,
                        float(rng.uniform(-6.0, 3.0)), 0.0, harmonics)
         power = float(rng.uniform(-40.0, -15.0))
@@ -182,3 +182,30 @@ def test_a_response_read_as_arrays_holds_the_lines_its_products_hold() -> None:
     assert again == resp
     with pytest.raises(AttributeError):
         resp.supply_current_a = 1.0  # type: ignore[misc]
+
+
+@pytest.mark.parametrize("part_name", ["kx-2417", "kx-5803"])
+def test_a_sweep_evaluated_together_gives_each_point_s_lines_alone(part_name: str) -> None:
+    """evaluate_many over a two-tone power sweep at a few frequencies (the points share
+    grid sizes, so their transconductor factors are solved together), a single tone and no
+    tone at all in the same sweep: each response equals evaluate() for that point alone."""
+    part = load_part(part_name)
+    op = OperatingPoint()
+    harmonics = (-35.0, -45.0)
+    lo = ToneInput(2.1e9, 0.0 if part_name == "kx-2417" else 13.0, 0.0, harmonics)
+    sweep: list[list[ToneInput]] = []
+    for i in range(8):
+        power = -35.0 + 1.25 * i
+        f1 = 2.2e9 + (i % 3) * 1e6
+        sweep.append([ToneInput(f1, power, 0.3 * i, harmonics),
+                      ToneInput(f1 + 1e6, power, 0.0, harmonics)])
+    sweep += [[ToneInput(2.25e9, -20.0, 0.0, harmonics)], []]
+    together = part.evaluate_many(op, lo, sweep)
+    assert len(together) == len(sweep)
+    fresh = part.with_changes()  # its own caches: each point evaluated on its own
+    for i, (tones, response) in enumerate(zip(sweep, together, strict=True)):
+        alone = fresh.evaluate(op, lo, tones)
+        where = f"{part_name} point {i}"
+        _assert_same_lines(response.if_port, alone.if_port, where + " output")
+        _assert_same_lines(response.rf_port, alone.rf_port, where + " input")
+        assert response.notes == pytest.approx(alone.notes, rel=1e-13)

@@ -103,6 +103,7 @@ from sweeprig.sim.mixer.multitone import (
     lo_factor,
     merge_coincident,
     rf_factor,
+    rf_factors,
     rf_grid_shape,
 )
 from sweeprig.sim.mixer.network import band_magnitude, reflection_magnitude
@@ -366,6 +367,16 @@ class _Evaluation:
 
 
 @dataclass(frozen=True)
+class _RfPrepared:
+    """A point's transconductor factor, solved ahead with the other points of a sweep."""
+
+    amps: tuple[tuple[float, ...], ...]  # peak V at the core, per tone and harmonic
+    shape: tuple[int, ...]
+    converged: bool
+    factor: RfFactor
+
+
+@dataclass(frozen=True)
 class _OpState:
     cell: CellState
     gm_s: float  # small-signal transconductance at the RF pair's offset, S
@@ -577,7 +588,37 @@ class MixerPart:
         Output lines carry orders (LO, IN1, IN2, …). Lines below the part's floor are left
         out; lines at the same frequency are added as complex amplitudes.
         """
-        ev = self._evaluate(op, lo, tuple(rf), leakage=True)
+        return self._response(self._evaluate(op, lo, tuple(rf), leakage=True))
+
+    def evaluate_many(
+        self, op: OperatingPoint, lo: ToneInput | None,
+        tone_sets: Sequence[Sequence[ToneInput]],
+    ) -> list[MixerResponse]:
+        """:meth:`evaluate` for the points of a sweep (one LO and operating point, the
+        input tones changing from point to point), in their order. The transconductor
+        factors of points whose grids have the same size are solved together
+        (:func:`~sweeprig.sim.mixer.multitone.rf_factors`); every response equals the one
+        :meth:`evaluate` gives for that point alone, within rounding."""
+        sets = [tuple(tones) for tones in tone_sets]
+        for tones in sets:
+            self._check_inputs(lo, tones)
+        state = self._state(op)
+        inp = self.input_port
+        prepared: list[_RfPrepared | None] = [None] * len(sets)
+        groups: dict[tuple[int, ...], list[tuple[int, tuple[tuple[float, ...], ...], bool]]] = {}
+        for i, tones in enumerate(sets):
+            if tones:
+                amps = tuple(self.tone_core_amplitudes(t, inp) for t in tones)
+                shape, converged = self._rf_shape(op, amps, state.cell)
+                groups.setdefault(shape, []).append((i, amps, converged))
+        for shape, members in groups.items():
+            factors = rf_factors([m[1] for m in members], state.cell, self.max_rf_order, shape)
+            for (i, amps, converged), factor in zip(members, factors, strict=True):
+                prepared[i] = _RfPrepared(amps, shape, converged, factor)
+        return [self._response(self._evaluate(op, lo, tones, leakage=True, rf=prepared[i]))
+                for i, tones in enumerate(sets)]
+
+    def _response(self, ev: _Evaluation) -> MixerResponse:
         return MixerResponse(
             if_port=self._levels(ev.output),
             rf_port=_entries_to_products(ev.input_entries, self.floor_dbm),
@@ -607,14 +648,16 @@ class MixerPart:
 
     def _evaluate(
         self, op: OperatingPoint, lo: ToneInput | None, tones: tuple[ToneInput, ...],
-        *, leakage: bool,
+        *, leakage: bool, rf: _RfPrepared | None = None,
     ) -> _Evaluation:
         self._check_inputs(lo, tones)
         state = self._state(op)
         cell = state.cell
         lo_prep = self._lo_prepared(op, lo, state)
         inp, out = self.input_port, self.output_port
-        if tones:
+        if rf is not None:  # solved with the other points of a sweep (evaluate_many)
+            amps, shape, converged, rf_fac = rf.amps, rf.shape, rf.converged, rf.factor
+        elif tones:
             amps = tuple(self.tone_core_amplitudes(t, inp) for t in tones)
             shape, converged = self._rf_shape(op, amps, cell)
             rf_fac = rf_factor(amps, cell, self.max_rf_order, shape)
