@@ -9,7 +9,9 @@ Random parameters (seeded) over the ranges the shipped parts and the sim benches
 
 from __future__ import annotations
 
+import copy
 import math
+import pickle
 
 import numpy as np
 import pytest
@@ -180,6 +182,7 @@ def test_a_response_read_as_arrays_holds_the_lines_its_products_hold() -> None:
     again = MixerResponse(resp.if_port, resp.rf_port, resp.lo_port, resp.if_noise_dbm_per_hz,
                           resp.supply_current_a, resp.notes)
     assert again == resp
+    assert copy.deepcopy(resp) == resp and pickle.loads(pickle.dumps(resp)) == resp
     with pytest.raises(AttributeError):
         resp.supply_current_a = 1.0  # type: ignore[misc]
 

@@ -162,6 +162,12 @@ class MixerResponse:
 
     __hash__ = None  # type: ignore[assignment]  # mutable notes, as the dataclass had
 
+    def __reduce__(self) -> tuple[type[MixerResponse], tuple[object, ...]]:
+        """Copies and pickles rebuild the response through its constructor."""
+        given = self._given
+        return (MixerResponse, (given["if_port"], given["rf_port"], given["lo_port"],
+                                self.if_noise_dbm_per_hz, self.supply_current_a, self.notes))
+
     def __repr__(self) -> str:
         ports = ", ".join(f"{p}={len(self.levels(p).freq_hz)} lines" for p in _PORTS)
         return (f"MixerResponse({ports}, if_noise_dbm_per_hz={self.if_noise_dbm_per_hz!r}, "
