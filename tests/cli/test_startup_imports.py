@@ -1,5 +1,6 @@
 """Start-up imports only what a command needs: the command line, ``--help`` and ``check`` load
-neither pandas, matplotlib, scipy, pyarrow nor the simulator's model, instruments and servers;
+neither pandas, matplotlib, scipy, pyarrow, the simulator nor the run store's SQLite and
+PostgreSQL code;
 and a command whose module cannot be imported fails the whole command line loudly instead of
 vanishing from it. An import-set check in a fresh interpreter, not a timing (the start-up
 times are printed by ``pytest -m perf tests/perf/test_perf_startup.py``)."""
@@ -24,11 +25,14 @@ SIMULATOR = ("sweeprig.sim.mixer", "sweeprig.sim.world", "sweeprig.sim.server",
              "sweeprig.sim.instruments", "sweeprig.sim.scpi", "sweeprig.sim.truth",
              "sweeprig.sim.bench", "sweeprig.sim.faults", "sweeprig.sim.analyzer_display")
 
+#: The run store's implementations: the command line names the default store path only.
+STORES = ("sweeprig.store.sqlite", "sweeprig.store.postgres", "sweeprig.store.open")
+
 _PROBE = """
 import json, sys
 def loaded():
     return sorted(m for m in sys.modules if m.split('.')[0] in {heavy} or
-                  any(m == s or m.startswith(s + '.') for s in {sim}))
+                  any(m == s or m.startswith(s + '.') for s in {sim} + {stores}))
 import sweeprig.cli.main as main
 after_import = loaded()
 sim_after_import = sorted(m for m in sys.modules if m.startswith('sweeprig.sim'))
@@ -53,7 +57,7 @@ print(json.dumps(dict(name=name, code=code, after_import=after_import,
 
 
 def _probe() -> dict:
-    code = _PROBE.format(heavy=set(HEAVY), sim=SIMULATOR, quick=str(QUICK))
+    code = _PROBE.format(heavy=set(HEAVY), sim=SIMULATOR, stores=STORES, quick=str(QUICK))
     done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
                           cwd=ROOT, timeout=120, check=False)
     assert done.returncode == 0, done.stderr
