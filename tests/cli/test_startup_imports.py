@@ -1,9 +1,8 @@
 """Start-up imports only what a command needs: the command line, ``--help`` and ``check`` load
 neither pandas, matplotlib, scipy, pyarrow, the simulator nor the run store's SQLite and
-PostgreSQL code;
-and a command whose module cannot be imported fails the whole command line loudly instead of
-vanishing from it. An import-set check in a fresh interpreter, not a timing (the start-up
-times are printed by ``pytest -m perf tests/perf/test_perf_startup.py``)."""
+PostgreSQL code; and a command whose module cannot be imported fails the whole command line
+loudly instead of vanishing from it. An import-set check in a fresh interpreter, not a timing
+(the start-up times are printed by ``pytest -m perf tests/perf/test_perf_startup.py``)."""
 
 from __future__ import annotations
 
