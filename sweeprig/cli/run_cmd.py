@@ -34,7 +34,6 @@ from sweeprig.errors import (
 )
 from sweeprig.signals import RunStopped, active
 from sweeprig.store.base import DEFAULT_STORE_PATH
-from sweeprig.store.open import store_label
 from sweeprig.store.paths import run_folder
 from sweeprig.text import escape_controls, one_line
 
@@ -314,6 +313,7 @@ def print_unsafe(console: Console, safe: SafeOutcome) -> None:
 
 def _print_outcome(console: Console, outcome: RunOutcome) -> None:
     from sweeprig.plan.duration import format_duration
+    from sweeprig.store.open import store_label  # loaded when a run ends, not at start-up
 
     colour = "green" if outcome.status == "complete" else "red"
     reason = outcome.reason

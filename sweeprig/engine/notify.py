@@ -30,9 +30,12 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from datetime import UTC, datetime
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from sweeprig.errors import InputError
-from sweeprig.store.open import StoreTarget, store_label
+
+if TYPE_CHECKING:  # the store is loaded when a run ends, not when a command starts
+    from sweeprig.store.open import StoreTarget
 
 NOTIFY_ENV = "SWEEPRIG_NOTIFY"
 NOTIFY_TIMEOUT_S = 60.0
@@ -85,7 +88,7 @@ def write_summary(end: RunEnd, folder: Path) -> Path:
         "points": {"done": end.points_done, "total": end.points_total},
         "verdict": end.verdict,
         "limit_checks": dict(end.limit_counts) if end.limit_counts is not None else None,
-        "store": store_label(end.store_path),  # a lab database: its URL without password
+        "store": _store_label(end.store_path),  # a lab database: its URL without password
         "report": None if end.report_html is None else str(end.report_html),
         "figures": None if end.figures_json is None else str(end.figures_json),
         "next": list(end.next_steps),
@@ -105,7 +108,7 @@ def notification_env(end: RunEnd, summary: Path | None) -> dict[str, str]:
         "SWEEPRIG_VERDICT": end.verdict or "",
         "SWEEPRIG_REPORT": "" if end.report_html is None else str(end.report_html),
         "SWEEPRIG_SUMMARY": "" if summary is None else str(summary),
-        "SWEEPRIG_STORE": store_label(end.store_path),
+        "SWEEPRIG_STORE": _store_label(end.store_path),
         "SWEEPRIG_NEXT": end.next_steps[0] if end.next_steps else "",
     }
 
@@ -137,3 +140,10 @@ def run_notification(args: Sequence[str], env: Mapping[str, str],
         return NotifyResult(False, f"notification command exited {done.returncode}: "
                                    f"{args[0]} {tail[0]}".rstrip())
     return NotifyResult(True, f"notification sent ({args[0]})")
+
+
+def _store_label(target: StoreTarget) -> str:
+    """:func:`sweeprig.store.open.store_label`, imported when first needed."""
+    from sweeprig.store.open import store_label
+
+    return store_label(target)

@@ -49,7 +49,7 @@ def _phase_noise(params: Any) -> tuple[PhaseNoisePoint, ...] | None:
         if isinstance(value, dict):
             value = value.items()
         try:
-            pairs = sorted((float(o), float(v)) for o, v in value)
+            pairs = sorted((float(o), float(v)) for o, v in map(_offset_level, value))
         except (TypeError, ValueError):
             return None
         points = tuple(PhaseNoisePoint(offset=o, level=v) for o, v in pairs
@@ -58,18 +58,26 @@ def _phase_noise(params: Any) -> tuple[PhaseNoisePoint, ...] | None:
     return None
 
 
+def _offset_level(point: Any) -> tuple[Any, Any]:
+    """(offset, level) of a phase-noise point: a pair, or a description's point table."""
+    if hasattr(point, "offset") and hasattr(point, "level"):
+        return point.offset, point.level
+    offset, level = point
+    return offset, level
+
+
 def sim_figures(description: Any) -> tuple[AnalyzerFigures, SourcesFigures, float]:
     """The figures a bench file states for a sim-bench description: the analyzer's
     (two-tone SOI = second-harmonic intercept − 6.02 dB), the sources' harmonics, and the
     analyzer's noise figure."""
-    params = description.analyzer.params()
+    params = description.analyzer  # the description's own table: no simulator imported
     analyzer = AnalyzerFigures(
-        toi=params.toi_dbm, soi=params.shi_dbm - SHI_ABOVE_SOI_DB, p1db=params.p1db_dbm,
-        overload=params.overload_dbm, phase_noise=_phase_noise(params))
+        toi=params.toi, soi=params.shi - SHI_ABOVE_SOI_DB, p1db=params.p1db,
+        overload=params.overload, phase_noise=_phase_noise(params))
     harmonics = _harmonics(description.sources)
     sources = SourcesFigures(**{r: SourceFigures(harmonics=harmonics.get(r)) for r in
                                 SOURCE_ROLES})
-    return analyzer, sources, float(params.noise_figure_db)
+    return analyzer, sources, float(params.noise_figure)
 
 
 def butterworth_rejection_db(freq_hz: float, corner_hz: float, order: int) -> float:
@@ -124,7 +132,7 @@ def with_sim_figures(bench: Bench, description: Any = None) -> Bench:
     """``bench`` with the analyzer's and sources' figures of the sim-bench ``description``
     (a model, a path, a shipped name, or None for the default), and the analyzer profile of
     its family."""
-    from sweeprig.sim.bench import resolve_description
+    from sweeprig.sim.description import resolve_description  # light: no simulator
 
     desc = resolve_description(description)
     analyzer, sources, nf = sim_figures(desc)
@@ -139,7 +147,7 @@ def with_sim_figures(bench: Bench, description: Any = None) -> Bench:
 
 def figures_toml(description: Any = None) -> str:
     """The ``[analyzer]`` and ``[sources.*]`` tables of a bench file for ``description``."""
-    from sweeprig.sim.bench import resolve_description
+    from sweeprig.sim.description import resolve_description  # light: no simulator
 
     desc = resolve_description(description)
     analyzer, sources, _ = sim_figures(desc)

@@ -31,6 +31,8 @@ from functools import lru_cache
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
+from sweeprig.sim.description import DEFAULT_PHASE_NOISE  # the default, stated with the file format
+
 FloatArray = NDArray[np.float64]
 NoiseDensity = float | Callable[[FloatArray], FloatArray]
 
@@ -59,13 +61,6 @@ LOG_NOISE_STD_DB = 10.0 / math.log(10.0) * math.pi / math.sqrt(6.0)
 IM2_ABOVE_H2_DB = 20.0 * math.log10(2.0)
 H3_BELOW_IM3_DB = 20.0 * math.log10(3.0)
 
-# The analyzer's own LO phase noise, single-sideband, as (offset Hz, dBc/Hz): an assumption
-# for a mid-range swept analyzer near 1 GHz (invented figures in the range such analyzers
-# state; no source). Between points it is interpolated linearly in dB versus log10(offset);
-# below the first offset it holds the first value, above the last the last.
-DEFAULT_PHASE_NOISE: tuple[tuple[float, float], ...] = (
-    (100.0, -84.0), (1e3, -98.0), (1e4, -106.0), (1e5, -116.0), (1e6, -135.0), (1e7, -145.0),
-)
 # Reciprocal mixing is summed over at most this many of the strongest lines, and only over
 # lines whose close-in noise could reach within 30 dB of the DANL.
 _PHASE_NOISE_LINES = 8

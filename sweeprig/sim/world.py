@@ -449,17 +449,16 @@ class SimWorld:
     def _analyzer_input(self, response: MixerResponse, channel: int) -> InputSpectrum:
         cabling = self.config.cabling
         if channel == SwitchChannel.RF:
-            products, noise_dbm_per_hz = response.rf_port, KT0_DBM_PER_HZ
+            port, noise_dbm_per_hz = "rf_port", KT0_DBM_PER_HZ
             cable = cabling.rf_port
         elif channel == SwitchChannel.LO:
-            products, noise_dbm_per_hz = response.lo_port, KT0_DBM_PER_HZ
+            port, noise_dbm_per_hz = "lo_port", KT0_DBM_PER_HZ
             cable = cabling.lo_port
         else:
-            products, noise_dbm_per_hz = response.if_port, response.if_noise_dbm_per_hz
+            port, noise_dbm_per_hz = "if_port", response.if_noise_dbm_per_hz
             cable = cabling.if_
-        n = len(products)
-        freq = np.fromiter((p[0] for p in products), float, n)
-        level = np.fromiter((p[1] for p in products), float, n)
+        levels = response.levels(port)  # arrays: the response's products are never made
+        freq, level = levels.freq_hz, levels.power_dbm
         ok = (freq > 0) & np.isfinite(level)
         if not ok.all():
             freq, level = freq[ok], level[ok]

@@ -1,8 +1,8 @@
 """Start-up imports only what a command needs: the command line, ``--help`` and ``check`` load
-neither pandas, matplotlib, scipy, pyarrow nor the simulator's model, instruments and servers;
-and a command whose module cannot be imported fails the whole command line loudly instead of
-vanishing from it. An import-set check in a fresh interpreter, not a timing (the start-up
-times are printed by ``pytest -m perf tests/perf/test_perf_startup.py``)."""
+neither pandas, matplotlib, scipy, pyarrow, the simulator nor the run store's SQLite and
+PostgreSQL code; and a command whose module cannot be imported fails the whole command line
+loudly instead of vanishing from it. An import-set check in a fresh interpreter, not a timing
+(the start-up times are printed by ``pytest -m perf tests/perf/test_perf_startup.py``)."""
 
 from __future__ import annotations
 
@@ -17,16 +17,21 @@ QUICK = ROOT / "sequences" / "demo" / "quick.toml"
 #: Libraries no start-up path may load.
 HEAVY = ("pandas", "matplotlib", "scipy", "pyarrow", "skrf")
 #: The simulator proper. ``sweeprig.sim.names`` (the roles and shipped names the help lists)
-#: is light; ``check`` on the built-in simulated bench also reads the sim-bench description
-#: (``sweeprig.sim.bench`` with ``faults`` and ``analyzer_display``) to state its figures.
+#: is light; ``check`` on the built-in simulated bench reads only the sim-bench description
+#: (``sweeprig.sim.description`` with ``fault_plan``, the file format) to state its figures,
+#: never the bench that builds and serves the instruments, their faults or display.
 SIMULATOR = ("sweeprig.sim.mixer", "sweeprig.sim.world", "sweeprig.sim.server",
-             "sweeprig.sim.instruments", "sweeprig.sim.scpi", "sweeprig.sim.truth")
+             "sweeprig.sim.instruments", "sweeprig.sim.scpi", "sweeprig.sim.truth",
+             "sweeprig.sim.bench", "sweeprig.sim.faults", "sweeprig.sim.analyzer_display")
+
+#: The run store's implementations: the command line names the default store path only.
+STORES = ("sweeprig.store.sqlite", "sweeprig.store.postgres", "sweeprig.store.open")
 
 _PROBE = """
 import json, sys
 def loaded():
     return sorted(m for m in sys.modules if m.split('.')[0] in {heavy} or
-                  any(m == s or m.startswith(s + '.') for s in {sim}))
+                  any(m == s or m.startswith(s + '.') for s in {sim} + {stores}))
 import sweeprig.cli.main as main
 after_import = loaded()
 sim_after_import = sorted(m for m in sys.modules if m.startswith('sweeprig.sim'))
@@ -43,14 +48,15 @@ try:
 except SystemExit as exc:
     code = exc.code
 after_check = loaded()
+sim_after_check = sorted(m for m in sys.modules if m.startswith('sweeprig.sim'))
 print(json.dumps(dict(name=name, code=code, after_import=after_import,
                       sim_after_import=sim_after_import, after_resolve=after_resolve,
-                      after_check=after_check)))
+                      after_check=after_check, sim_after_check=sim_after_check)))
 """
 
 
 def _probe() -> dict:
-    code = _PROBE.format(heavy=set(HEAVY), sim=SIMULATOR, quick=str(QUICK))
+    code = _PROBE.format(heavy=set(HEAVY), sim=SIMULATOR, stores=STORES, quick=str(QUICK))
     done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
                           cwd=ROOT, timeout=120, check=False)
     assert done.returncode == 0, done.stderr
@@ -66,6 +72,10 @@ def test_the_command_line_and_check_load_no_heavy_library_nor_the_simulator() ->
     assert seen["after_check"] == []
     # --help lists the sim commands from the light names module only
     assert set(seen["sim_after_import"]) <= {"sweeprig.sim", "sweeprig.sim.names"}
+    # check states the simulated bench's figures from its description alone
+    assert set(seen["sim_after_check"]) <= {"sweeprig.sim", "sweeprig.sim.names",
+                                            "sweeprig.sim.description",
+                                            "sweeprig.sim.fault_plan"}
 
 
 def test_a_command_module_that_fails_to_import_fails_the_command_line() -> None:

@@ -61,22 +61,46 @@ def pair_angle(v_diff_v: ArrayLike, vt_v: float, i_ee_a: float, r_e_ohm: float) 
     two_vt = 2.0 * vt_v
     if r_e_ohm == 0.0 or i_ee_a == 0.0:
         return v / two_vt
+    if v.ndim == 0:
+        return pair_angle(v.reshape(1), vt_v, i_ee_a, r_e_ohm)[0]
     b = i_ee_a * r_e_ohm
     a = two_vt + b
     beta = b / a
-    w = v / a
+    w = v * (1.0 / a)
     w2 = w * w
-    u = w * (1.0 + w2 * (beta / 3.0 + w2 * (beta * beta / 3.0 - 2.0 * beta / 15.0)))
-    low = np.minimum(w, v / two_vt)
-    high = np.maximum(w, v / two_vt)
-    u = np.clip(u, low, high)
+    # u = w·(1 + w²·(β/3 + w²·(β²/3 − 2β/15))), computed in place (the arrays are large)
+    u = w2 * (beta * beta / 3.0 - 2.0 * beta / 15.0)
+    u += beta / 3.0
+    u *= w2
+    u += 1.0
+    u *= w
+    bound = v * (1.0 / two_vt)
+    low = np.minimum(w, bound)
+    high = np.maximum(w, bound, out=bound)
+    _clip_into(u, low, high)
+    t = w2  # scratch arrays, reused every step
+    step = w
     for _ in range(_NEWTON_MAX_ITERATIONS):
-        t = np.tanh(u)
-        step = (two_vt * u + b * t - v) / (two_vt + b * (1.0 - t * t))
-        u = np.clip(u - step, low, high)
+        np.tanh(u, out=t)
+        # step = (2·VT·u + b·t − v) / (2·VT + b·(1 − t²))
+        np.multiply(u, two_vt, out=step)
+        step += b * t
+        step -= v
+        t *= t
+        t *= -b
+        t += a
+        step /= t
+        u -= step
+        _clip_into(u, low, high)
         if not np.abs(step).max(initial=0.0) > _NEWTON_STEP_TOL:
             break
     return u
+
+
+def _clip_into(u: NDArray, low: NDArray, high: NDArray) -> None:
+    """u ← min(max(u, low), high) in place (``np.clip`` without its wrapper's cost)."""
+    np.maximum(u, low, out=u)
+    np.minimum(u, high, out=u)
 
 
 def pair_fraction(v_diff_v: ArrayLike, vt_v: float, i_ee_a: float, r_e_ohm: float) -> NDArray:

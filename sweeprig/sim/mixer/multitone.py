@@ -133,12 +133,19 @@ def lo_factor(
     cell: CellState,
     max_order: int,
     tol: float = ALIAS_TOL,
+    grid_guess: int | None = None,
 ) -> LoFactor:
     """Fourier coefficients of D(θ) and S(θ) for an LO wave ``Σ_h A_h·cos(h·θ)``.
 
     ``lo_amps_v[h-1]`` is the peak differential voltage of LO harmonic h at the quad.
     An empty or all-zero drive gives the DC values only (no LO). The grid size doubles until
     the top quarter of the spectrum is below ``tol`` of the largest coefficient.
+
+    ``grid_guess`` (the grid that converged for a similar drive, cached by the caller) saves
+    the doubling when it is right: a guess that meets ``tol`` while half of it does not is
+    the grid the doubling stops at (the top of the spectrum falls as the grid grows), found
+    from one set of samples (see :func:`_lo_spectra_from_guess`); a wrong guess falls back
+    to the doubling. The grid, hence the coefficients, are the same either way.
     """
     if len(lo_amps_v) == 0 or not any(lo_amps_v):
         d0, s0 = switching_functions(0.0, cell.vt_v, cell.v_os1_v, cell.v_os2_v)
@@ -148,21 +155,75 @@ def lo_factor(
             s=np.array([complex(s0)]),
             grid_n=1,
         )
-    n = max(_start_size(max_order), _start_size(2 * len(lo_amps_v)))
+    start = max(_start_size(max_order), _start_size(2 * len(lo_amps_v)))
+    if grid_guess is not None and start < grid_guess <= _MAX_LO_GRID:
+        found = _lo_spectra_from_guess(lo_amps_v, cell, start, grid_guess, tol)
+        if found is not None:
+            n, d_k, s_k = found
+            return _lo_factor_from_spectra(n, d_k, s_k, max_order, True)
+    n = start
     converged = False
     while True:
-        wave = _axis_wave(lo_amps_v, n)
-        d_t, s_t = switching_functions(wave, cell.vt_v, cell.v_os1_v, cell.v_os2_v)
-        d_k = scipy.fft.rfft(d_t) / n
-        s_k = scipy.fft.rfft(s_t) / n
-        mag = np.maximum(np.abs(d_k), np.abs(s_k))
-        top = float(mag[n // 4 :].max())
-        if top <= tol * float(mag.max()):
+        d_k, s_k = _lo_spectra(lo_amps_v, cell, n)
+        if _lo_converged(d_k, s_k, n, tol):
             converged = True
             break
         if n >= _MAX_LO_GRID:
             break
         n *= 2
+    return _lo_factor_from_spectra(n, d_k, s_k, max_order, converged)
+
+
+def _lo_spectra(
+    lo_amps_v: Sequence[float], cell: CellState, n: int
+) -> tuple[NDArray[np.complex128], NDArray[np.complex128]]:
+    """rfft/n of D and S on an n-point LO phase grid."""
+    wave = _axis_wave(lo_amps_v, n)
+    d_t, s_t = switching_functions(wave, cell.vt_v, cell.v_os1_v, cell.v_os2_v)
+    return scipy.fft.rfft(d_t) / n, scipy.fft.rfft(s_t) / n
+
+
+def _lo_converged(
+    d_k: NDArray[np.complex128], s_k: NDArray[np.complex128], n: int, tol: float
+) -> bool:
+    """The doubling's stopping rule: the top quarter of the spectrum below ``tol`` of the
+    largest coefficient."""
+    mag = np.maximum(np.abs(d_k), np.abs(s_k))
+    return float(mag[n // 4 :].max()) <= tol * float(mag.max())
+
+
+def _lo_spectra_from_guess(
+    lo_amps_v: Sequence[float], cell: CellState, start: int, guess: int, tol: float
+) -> tuple[int, NDArray[np.complex128], NDArray[np.complex128]] | None:
+    """The doubling's answer found from a guessed grid: the grid ``guess`` (a power-of-two
+    multiple of ``start``) meets ``tol`` and half of it does not. The half grid is every
+    other point of the guessed one (θ_j = 2π·j/n), so its spectra come from the same
+    samples. When half the guess meets ``tol`` too the guess is walked down (each smaller
+    grid again from the same samples) to the first grid whose half does not; when the guess
+    does not meet it, None (the caller doubles from the start)."""
+    if guess % start or (guess // start) & (guess // start - 1):
+        return None
+    wave = _axis_wave(lo_amps_v, guess)
+    d_t, s_t = switching_functions(wave, cell.vt_v, cell.v_os1_v, cell.v_os2_v)
+    n = guess
+    d_k, s_k = scipy.fft.rfft(d_t) / n, scipy.fft.rfft(s_t) / n
+    if not _lo_converged(d_k, s_k, n, tol):
+        return None
+    while n > start:
+        half = n // 2
+        step = guess // half
+        d_h = scipy.fft.rfft(d_t[::step]) / half
+        s_h = scipy.fft.rfft(s_t[::step]) / half
+        if not _lo_converged(d_h, s_h, half, tol):
+            break
+        n, d_k, s_k = half, d_h, s_h
+    return n, d_k, s_k
+
+
+def _lo_factor_from_spectra(
+    n: int, d_k: NDArray[np.complex128], s_k: NDArray[np.complex128], max_order: int,
+    converged: bool,
+) -> LoFactor:
     m_pos = np.arange(max_order + 1)
     orders = np.concatenate([-m_pos[:0:-1], m_pos])
     d = np.concatenate([np.conj(d_k[m_pos[:0:-1]]), d_k[m_pos]])
@@ -225,14 +286,31 @@ def _fft_index(
 def _rf_grid_values(
     tone_amps_v: Sequence[Sequence[float]], shape: tuple[int, ...], cell: CellState
 ) -> NDArray[np.float64]:
-    """X = x(Σ_k v_k(θ_k) + v_os_rf) on the K-D phase grid."""
+    """X = x(Σ_k v_k(θ_k) + v_os_rf) on the K-D phase grid.
+
+    Every tone's wave is a sum of cosines at zero phase (the phases turn the lines later, in
+    :func:`combine`), so X is even in each θ_k: X(…, θ_j, …) = X(…, θ_{n−j}, …). The pair
+    equation is solved on the points θ_0 … θ_{n/2} of each axis only (about 1/2^K of the
+    grid) and the rest is their mirror image; the values differ from solving every point
+    only by the rounding of cos(2π·j/n) against cos(2π·(n−j)/n).
+    """
     k = len(shape)
     total: NDArray[np.float64] | float = cell.v_os_rf_v
     for axis, (amps, n) in enumerate(zip(tone_amps_v, shape, strict=True)):
         view = [1] * k
-        view[axis] = n
-        total = total + _axis_wave(amps, n).reshape(view)
-    return pair_fraction(total, cell.vt_v, cell.i_ee_a, cell.r_e_ohm)
+        view[axis] = n // 2 + 1
+        total = total + _axis_wave(amps, n)[: n // 2 + 1].reshape(view)
+    half = pair_fraction(total, cell.vt_v, cell.i_ee_a, cell.r_e_ohm)
+    return half[np.ix_(*(_mirror_index(n) for n in shape))]
+
+
+@lru_cache(maxsize=128)
+def _mirror_index(n: int) -> NDArray[np.intp]:
+    """Index j → min(j, n − j): the point of θ_0 … θ_{n/2} with the same cosines as θ_j."""
+    j = np.arange(n)
+    index = np.minimum(j, n - j)
+    index.flags.writeable = False
+    return index
 
 
 def _smooth_even(n: int) -> int:
@@ -337,6 +415,51 @@ def rf_factor(
     x *= 1.0 / math.prod(grid_shape)
     table = order_table(k, max_order)
     return RfFactor(table, x, _all_rows(len(table)), tuple(grid_shape), converged)
+
+
+#: Most grid points solved in one call of :func:`rf_factors` (about 1.6 MB per array).
+_BATCH_POINTS = 200_000
+
+
+def rf_factors(
+    tone_amps_list: Sequence[Sequence[Sequence[float]]],
+    cell: CellState,
+    max_order: int,
+    grid_shape: tuple[int, ...],
+    converged: bool = True,
+) -> list[RfFactor]:
+    """:func:`rf_factor` for several sets of tone amplitudes on one grid shape (the points
+    of a sweep), solved together: one pair solution and one FFT per batch instead of one per
+    point, so the cost per point is the arithmetic, not the calls. Each factor equals the
+    one :func:`rf_factor` gives for its set alone, within rounding (a batch takes as many
+    Newton steps as its slowest point, each past the root by less than rounding)."""
+    k = len(grid_shape)
+    if k == 0 or not tone_amps_list:
+        return [rf_factor(amps, cell, max_order, grid_shape) for amps in tone_amps_list]
+    halves = [n // 2 + 1 for n in grid_shape]
+    chunk = max(1, _BATCH_POINTS // math.prod(halves))
+    idx, conj = _fft_index(tuple(grid_shape), max_order)
+    table = order_table(k, max_order)
+    rows = _all_rows(len(table))
+    mirror = np.ix_(*(_mirror_index(n) for n in grid_shape))
+    out: list[RfFactor] = []
+    for start in range(0, len(tone_amps_list), chunk):
+        batch = tone_amps_list[start : start + chunk]
+        total: NDArray[np.float64] | float = cell.v_os_rf_v
+        for axis, (n, h) in enumerate(zip(grid_shape, halves, strict=True)):
+            view = [len(batch)] + [1] * k
+            view[1 + axis] = h
+            waves = np.stack([_axis_wave(amps[axis], n)[:h] for amps in batch])
+            total = total + waves.reshape(view)
+        half = pair_fraction(total, cell.vt_v, cell.i_ee_a, cell.r_e_ohm)
+        values = half[(slice(None), *mirror)]
+        spectrum = scipy.fft.rfftn(values, axes=tuple(range(1, k + 1))).reshape(len(batch), -1)
+        x = spectrum[:, idx]
+        if conj.any():
+            x[:, conj] = np.conj(x[:, conj])
+        x *= 1.0 / math.prod(grid_shape)
+        out += [RfFactor(table, row, rows, tuple(grid_shape), converged) for row in x]
+    return out
 
 
 @lru_cache(maxsize=16)

@@ -68,7 +68,7 @@ import math
 import os
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field, replace
-from functools import lru_cache, partial
+from functools import lru_cache
 from pathlib import Path
 from typing import Annotated, Any, Literal
 
@@ -103,6 +103,7 @@ from sweeprig.sim.mixer.multitone import (
     lo_factor,
     merge_coincident,
     rf_factor,
+    rf_factors,
     rf_grid_shape,
 )
 from sweeprig.sim.mixer.network import band_magnitude, reflection_magnitude
@@ -113,7 +114,13 @@ from sweeprig.sim.mixer.realism import (
     lo_drive_noise_factor,
     switch_overlap_fraction,
 )
-from sweeprig.sim.mixer.types import MixerResponse, OperatingPoint, Product, ToneInput
+from sweeprig.sim.mixer.types import (
+    MixerResponse,
+    OperatingPoint,
+    PortLevels,
+    Product,
+    ToneInput,
+)
 from sweeprig.sim.names import PARTS_DIR
 from sweeprig.sim.names import shipped_parts as shipped_parts
 from sweeprig.units import example, parse_quantity
@@ -325,9 +332,6 @@ class PortNetwork:
         return mag
 
 
-_new_product = partial(tuple.__new__, Product)  # Product from a (freq, power, orders) tuple
-
-
 @dataclass(frozen=True)
 class _LoPrepared:
     factor: LoFactor
@@ -360,6 +364,16 @@ class _Evaluation:
     noise_dbm_per_hz: float
     supply_current_a: float
     notes: dict[str, float]
+
+
+@dataclass(frozen=True)
+class _RfPrepared:
+    """A point's transconductor factor, solved ahead with the other points of a sweep."""
+
+    amps: tuple[tuple[float, ...], ...]  # peak V at the core, per tone and harmonic
+    shape: tuple[int, ...]
+    converged: bool
+    factor: RfFactor
 
 
 @dataclass(frozen=True)
@@ -574,9 +588,39 @@ class MixerPart:
         Output lines carry orders (LO, IN1, IN2, …). Lines below the part's floor are left
         out; lines at the same frequency are added as complex amplitudes.
         """
-        ev = self._evaluate(op, lo, tuple(rf), leakage=True)
+        return self._response(self._evaluate(op, lo, tuple(rf), leakage=True))
+
+    def evaluate_many(
+        self, op: OperatingPoint, lo: ToneInput | None,
+        tone_sets: Sequence[Sequence[ToneInput]],
+    ) -> list[MixerResponse]:
+        """:meth:`evaluate` for the points of a sweep (one LO and operating point, the
+        input tones changing from point to point), in their order. The transconductor
+        factors of points whose grids have the same size are solved together
+        (:func:`~sweeprig.sim.mixer.multitone.rf_factors`); every response equals the one
+        :meth:`evaluate` gives for that point alone, within rounding."""
+        sets = [tuple(tones) for tones in tone_sets]
+        for tones in sets:
+            self._check_inputs(lo, tones)
+        state = self._state(op)
+        inp = self.input_port
+        prepared: list[_RfPrepared | None] = [None] * len(sets)
+        groups: dict[tuple[int, ...], list[tuple[int, tuple[tuple[float, ...], ...], bool]]] = {}
+        for i, tones in enumerate(sets):
+            if tones:
+                amps = tuple(self.tone_core_amplitudes(t, inp) for t in tones)
+                shape, converged = self._rf_shape(op, amps, state.cell)
+                groups.setdefault(shape, []).append((i, amps, converged))
+        for shape, members in groups.items():
+            factors = rf_factors([m[1] for m in members], state.cell, self.max_rf_order, shape)
+            for (i, amps, converged), factor in zip(members, factors, strict=True):
+                prepared[i] = _RfPrepared(amps, shape, converged, factor)
+        return [self._response(self._evaluate(op, lo, tones, leakage=True, rf=prepared[i]))
+                for i, tones in enumerate(sets)]
+
+    def _response(self, ev: _Evaluation) -> MixerResponse:
         return MixerResponse(
-            if_port=self._products(ev.output),
+            if_port=self._levels(ev.output),
             rf_port=_entries_to_products(ev.input_entries, self.floor_dbm),
             lo_port=_entries_to_products(ev.lo_entries, self.floor_dbm),
             if_noise_dbm_per_hz=ev.noise_dbm_per_hz,
@@ -604,14 +648,16 @@ class MixerPart:
 
     def _evaluate(
         self, op: OperatingPoint, lo: ToneInput | None, tones: tuple[ToneInput, ...],
-        *, leakage: bool,
+        *, leakage: bool, rf: _RfPrepared | None = None,
     ) -> _Evaluation:
         self._check_inputs(lo, tones)
         state = self._state(op)
         cell = state.cell
         lo_prep = self._lo_prepared(op, lo, state)
         inp, out = self.input_port, self.output_port
-        if tones:
+        if rf is not None:  # solved with the other points of a sweep (evaluate_many)
+            amps, shape, converged, rf_fac = rf.amps, rf.shape, rf.converged, rf.factor
+        elif tones:
             amps = tuple(self.tone_core_amplitudes(t, inp) for t in tones)
             shape, converged = self._rf_shape(op, amps, cell)
             rf_fac = rf_factor(amps, cell, self.max_rf_order, shape)
@@ -713,7 +759,7 @@ class MixerPart:
         prep = self._cache.get(key)
         if prep is None:
             amps = () if lo is None else self.tone_core_amplitudes(lo, self.lo_port)
-            factor = lo_factor(amps, state.cell, self.max_lo_order)
+            factor = self._lo_factor(amps, state.cell)
             gain_db = self._small_signal_gain_db(state, factor)
             nf_db = state.noise_figure_db
             if lo is not None and self.noise_lo_nominal_dbm is not None:
@@ -725,6 +771,17 @@ class MixerPart:
             self._remember(key, prep)
         return prep
 
+    def _lo_factor(self, amps: tuple[float, ...], cell: CellState) -> LoFactor:
+        """:func:`lo_factor` for LO amplitudes at the quad, V: the grid that converged for
+        the last drive in the same 1 dB bucket is the guess (it changes the cost, never the
+        result; an LO stepped in frequency moves its amplitude through the port's band edges
+        by a fraction of a dB, so the guess is nearly always right)."""
+        key = ("lo-grid", cell, tuple(_bucket_up(a) for a in amps))
+        factor = lo_factor(amps, cell, self.max_lo_order, grid_guess=self._cache.get(key))
+        if factor.grid_n > 1:
+            self._remember(key, factor.grid_n)
+        return factor
+
     def _lo_drive_noise_figure_db(
         self, op: OperatingPoint, lo: ToneInput, amp_v: float, gain_db: float, state: _OpState
     ) -> float:
@@ -735,8 +792,7 @@ class MixerPart:
         if nominal is None:
             nom_amps = self.tone_core_amplitudes(
                 ToneInput(lo.freq_hz, self.noise_lo_nominal_dbm), self.lo_port)
-            nom_gain = self._small_signal_gain_db(
-                state, lo_factor(nom_amps, state.cell, self.max_lo_order))
+            nom_gain = self._small_signal_gain_db(state, self._lo_factor(nom_amps, state.cell))
             nominal = (switch_overlap_fraction(nom_amps[0], state.cell.vt_v), nom_gain)
             self._remember(key, nominal)
         nom_overlap, nom_gain_db = nominal
@@ -761,16 +817,14 @@ class MixerPart:
                 * inp.delivered_fraction * out.delivered_fraction)
         return 10.0 * math.log10(gain) if gain > 0.0 else -math.inf
 
-    def _products(self, lines: Lines) -> tuple[Product, ...]:
-        """Merged lines (sqrt(W) amplitudes) → products above the floor."""
+    def _levels(self, lines: Lines) -> PortLevels:
+        """Merged lines (sqrt(W) amplitudes) → the port's lines above the floor, as arrays."""
         power_w = lines.amp.real**2 + lines.amp.imag**2
         keep = power_w >= 1e-3 * 10.0 ** (self.floor_dbm / 10.0)
         if not keep.all():
             power_w = power_w[keep]
             lines = Lines(lines.freq_hz[keep], lines.amp[keep], lines.orders[keep])
-        power_dbm = 10.0 * np.log10(power_w * 1e3)
-        return tuple(map(_new_product, zip(
-            lines.freq_hz.tolist(), power_dbm.tolist(), lines.orders.tolist(), strict=True)))
+        return PortLevels(lines.freq_hz, 10.0 * np.log10(power_w * 1e3), lines.orders)
 
     def _check_inputs(self, lo: ToneInput | None, tones: tuple[ToneInput, ...]) -> None:
         if len(tones) > MAX_RF_TONES:

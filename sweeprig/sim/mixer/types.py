@@ -6,8 +6,12 @@ frequencies in Hz, temperatures in degC, voltages in V, currents in A, phases in
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass
+from functools import partial
 from typing import NamedTuple
+
+import numpy as np
+from numpy.typing import NDArray
 
 
 @dataclass(frozen=True)
@@ -51,9 +55,38 @@ class Product(NamedTuple):
     orders: tuple[int, ...]
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
+class PortLevels:
+    """Lines at one port as arrays, sorted by frequency: ``freq_hz`` (Hz), ``power_dbm``
+    (dBm into a matched 50 ohm load) and ``orders`` (an object array of order tuples, as
+    :class:`Product`). What the model computes; the :class:`Product` tuples are made from it
+    only when someone reads them (a response holds hundreds of lines)."""
+
+    freq_hz: NDArray[np.float64]
+    power_dbm: NDArray[np.float64]
+    orders: NDArray[np.object_]
+
+    def products(self) -> tuple[Product, ...]:
+        """The lines as :class:`Product` tuples."""
+        return tuple(map(_new_product, zip(self.freq_hz.tolist(), self.power_dbm.tolist(),
+                                           self.orders.tolist(), strict=True)))
+
+    @staticmethod
+    def of(products: tuple[Product, ...]) -> PortLevels:
+        """Arrays of a tuple of products (their order kept)."""
+        n = len(products)
+        orders = np.empty(n, dtype=object)
+        orders[:] = [p[2] for p in products]
+        return PortLevels(np.fromiter((p[0] for p in products), float, n),
+                          np.fromiter((p[1] for p in products), float, n), orders)
+
+
+_new_product = partial(tuple.__new__, Product)  # Product from a (freq, power, orders) tuple
+_PORTS = ("if_port", "rf_port", "lo_port")
+
+
 class MixerResponse:
-    """Everything the mixer puts out for one set of inputs.
+    """Everything the mixer puts out for one set of inputs (immutable).
 
     ``if_port``: lines at the output (IF for a downconverter) port.
     ``rf_port``: lines leaving the RF (input) port: LO leakage (LO→RF isolation) and reflections.
@@ -62,11 +95,80 @@ class MixerResponse:
     ``lo_port``: lines leaving the LO port (RF→LO leakage), may be empty.
     ``if_noise_dbm_per_hz``: output noise density at the IF port (flat over the IF band).
     ``supply_current_a``: DC current drawn from the supply.
+
+    Each port is given as a tuple of :class:`Product` or as :class:`PortLevels` arrays; the
+    port attributes always read as tuples of products (made once, on first reading), and
+    :meth:`levels` reads a port as arrays without making them.
     """
 
-    if_port: tuple[Product, ...]
-    rf_port: tuple[Product, ...] = ()
-    lo_port: tuple[Product, ...] = ()
-    if_noise_dbm_per_hz: float = -174.0
-    supply_current_a: float = 0.0
-    notes: dict[str, float] = field(default_factory=dict)
+    __slots__ = ("_given", "_made", "if_noise_dbm_per_hz", "notes", "supply_current_a")
+    if_noise_dbm_per_hz: float
+    supply_current_a: float
+    notes: dict[str, float]
+
+    def __init__(
+        self,
+        if_port: tuple[Product, ...] | PortLevels,
+        rf_port: tuple[Product, ...] | PortLevels = (),
+        lo_port: tuple[Product, ...] | PortLevels = (),
+        if_noise_dbm_per_hz: float = -174.0,
+        supply_current_a: float = 0.0,
+        notes: dict[str, float] | None = None,
+    ) -> None:
+        init = object.__setattr__
+        init(self, "_given", {"if_port": if_port, "rf_port": rf_port, "lo_port": lo_port})
+        init(self, "_made", {})
+        init(self, "if_noise_dbm_per_hz", if_noise_dbm_per_hz)
+        init(self, "supply_current_a", supply_current_a)
+        init(self, "notes", {} if notes is None else notes)
+
+    def __setattr__(self, name: str, value: object) -> None:
+        raise AttributeError(f"MixerResponse is immutable: cannot set {name!r}")
+
+    def _port(self, name: str) -> tuple[Product, ...]:
+        given = self._given[name]
+        if not isinstance(given, PortLevels):
+            return given
+        made = self._made.get(name)
+        if made is None:
+            made = self._made[name] = given.products()
+        return made
+
+    @property
+    def if_port(self) -> tuple[Product, ...]:
+        return self._port("if_port")
+
+    @property
+    def rf_port(self) -> tuple[Product, ...]:
+        return self._port("rf_port")
+
+    @property
+    def lo_port(self) -> tuple[Product, ...]:
+        return self._port("lo_port")
+
+    def levels(self, port: str) -> PortLevels:
+        """A port's lines as arrays (``port``: ``"if_port"``, ``"rf_port"`` or
+        ``"lo_port"``)."""
+        given = self._given[port]
+        return given if isinstance(given, PortLevels) else PortLevels.of(given)
+
+    def __eq__(self, other: object) -> bool:
+        if not isinstance(other, MixerResponse):
+            return NotImplemented
+        return (all(self._port(p) == other._port(p) for p in _PORTS)
+                and self.if_noise_dbm_per_hz == other.if_noise_dbm_per_hz
+                and self.supply_current_a == other.supply_current_a
+                and self.notes == other.notes)
+
+    __hash__ = None  # type: ignore[assignment]  # mutable notes, as the dataclass had
+
+    def __reduce__(self) -> tuple[type[MixerResponse], tuple[object, ...]]:
+        """Copies and pickles rebuild the response through its constructor."""
+        given = self._given
+        return (MixerResponse, (given["if_port"], given["rf_port"], given["lo_port"],
+                                self.if_noise_dbm_per_hz, self.supply_current_a, self.notes))
+
+    def __repr__(self) -> str:
+        ports = ", ".join(f"{p}={len(self.levels(p).freq_hz)} lines" for p in _PORTS)
+        return (f"MixerResponse({ports}, if_noise_dbm_per_hz={self.if_noise_dbm_per_hz!r}, "
+                f"supply_current_a={self.supply_current_a!r})")

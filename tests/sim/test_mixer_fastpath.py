@@ -1,0 +1,214 @@
+"""The model's faster paths against its reference paths: same figures within numerical noise.
+
+The speed-ups (issue 14, item 5) change how the model computes, never what: a guessed LO grid
+must land on the grid the plain doubling stops at, the in-place Newton solver of the pair
+must find the same root as the plain one (kept below as the reference), and a part whose
+caches are warm from a sweep must give the lines a fresh part gives for each point alone.
+Random parameters (seeded) over the ranges the shipped parts and the sim benches use.
+"""
+
+from __future__ import annotations
+
+import copy
+import math
+import pickle
+
+import numpy as np
+import pytest
+
+from sweeprig.sim.mixer import OperatingPoint, ToneInput, load_part
+from sweeprig.sim.mixer.core import pair_angle, thermal_voltage_v
+from sweeprig.sim.mixer.multitone import CellState, _axis_wave, _rf_grid_values, lo_factor
+
+#: Power difference allowed between a fast and a reference line, dB (issue 14's figure).
+TOL_DB = 1e-9
+#: Lines this far below the strongest line of their port are compared in amplitude instead:
+#: rounding in the FFT (about 1e-16 of the strongest amplitude) is a larger fraction there.
+DB_RANGE = 100.0
+
+
+def _pair_angle_reference(v_diff_v: np.ndarray, vt_v: float, i_ee_a: float,
+                          r_e_ohm: float) -> np.ndarray:
+    """The pair solver as it was before the in-place rewrite: series start clipped to the
+    bracket, then Newton steps until a step is below 1e-8 (see ``core.pair_angle``)."""
+    v = np.asarray(v_diff_v, dtype=float)
+    two_vt = 2.0 * vt_v
+    b = i_ee_a * r_e_ohm
+    a = two_vt + b
+    beta = b / a
+    w = v / a
+    w2 = w * w
+    u = w * (1.0 + w2 * (beta / 3.0 + w2 * (beta * beta / 3.0 - 2.0 * beta / 15.0)))
+    low = np.minimum(w, v / two_vt)
+    high = np.maximum(w, v / two_vt)
+    u = np.clip(u, low, high)
+    for _ in range(60):
+        t = np.tanh(u)
+        step = (two_vt * u + b * t - v) / (two_vt + b * (1.0 - t * t))
+        u = np.clip(u - step, low, high)
+        if not np.abs(step).max(initial=0.0) > 1e-8:
+            break
+    return u
+
+
+def test_the_in_place_pair_solver_finds_the_reference_root() -> None:
+    rng = np.random.default_rng(14)
+    for _ in range(40):
+        vt = thermal_voltage_v(float(rng.uniform(-40.0, 125.0)))
+        i_ee = float(rng.uniform(0.5e-3, 20e-3))
+        r_e = float(rng.choice([0.0, rng.uniform(1.0, 60.0)]))
+        v = rng.normal(0.0, float(rng.uniform(1e-3, 1.0)), size=(7, 9))
+        fast = pair_angle(v, vt, i_ee, r_e)
+        reference = _pair_angle_reference(v, vt, i_ee, r_e) if r_e else v / (2.0 * vt)
+        np.testing.assert_allclose(fast, reference, rtol=1e-13, atol=1e-16)
+        assert float(pair_angle(float(v[0, 0]), vt, i_ee, r_e)) == pytest.approx(
+            float(fast[0, 0]), rel=1e-15, abs=1e-18)
+    assert v.shape == (7, 9)  # the input is not written over
+
+
+def _rf_grid_values_reference(amps: list[list[float]], shape: tuple[int, ...],
+                              cell: CellState) -> np.ndarray:
+    """X on the whole phase grid, every point solved (as before the mirror-image rewrite)."""
+    total: np.ndarray | float = cell.v_os_rf_v
+    for axis, (a, n) in enumerate(zip(amps, shape, strict=True)):
+        view = [1] * len(shape)
+        view[axis] = n
+        total = total + _axis_wave(a, n).reshape(view)
+    return np.tanh(_pair_angle_reference(np.asarray(total, dtype=float), cell.vt_v,
+                                         cell.i_ee_a, cell.r_e_ohm))
+
+
+@pytest.mark.parametrize("tones", [1, 2, 3])
+def test_the_mirrored_rf_grid_equals_the_grid_solved_at_every_point(tones: int) -> None:
+    rng = np.random.default_rng(100 + tones)
+    for _ in range(6):
+        cell = CellState(thermal_voltage_v(float(rng.uniform(-40.0, 85.0))),
+                         float(rng.uniform(1e-3, 10e-3)), float(rng.uniform(1.0, 40.0)),
+                         0.0, 0.0, float(rng.uniform(-3e-3, 3e-3)))
+        amps = [[float(10 ** rng.uniform(-3.0, -0.5))] * int(rng.integers(1, 4))
+                for _ in range(tones)]
+        shape = tuple(int(rng.integers(7, 41)) for _ in range(tones))  # odd and even sizes
+        fast = _rf_grid_values(amps, shape, cell)
+        reference = _rf_grid_values_reference(amps, shape, cell)
+        assert fast.shape == reference.shape == shape
+        np.testing.assert_allclose(fast, reference, rtol=0, atol=1e-14)
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_a_guessed_lo_grid_gives_the_doubling_s_grid_and_coefficients(seed: int) -> None:
+    rng = np.random.default_rng(seed)
+    vt = thermal_voltage_v(float(rng.uniform(-40.0, 85.0)))
+    cell = CellState(vt, float(rng.uniform(1e-3, 10e-3)), 0.0,
+                     float(rng.uniform(-2e-3, 2e-3)), float(rng.uniform(-2e-3, 2e-3)))
+    amps = [float(10 ** rng.uniform(-2.0, 0.2))]
+    amps += [amps[0] * float(10 ** rng.uniform(-3.0, -1.0)) for _ in range(int(seed % 3))]
+    plain = lo_factor(amps, cell, 9)
+    for guess in (plain.grid_n, 2 * plain.grid_n, 4 * plain.grid_n, max(plain.grid_n // 2, 1),
+                  32, 96, 1 << 16):
+        guessed = lo_factor(amps, cell, 9, grid_guess=guess)
+        assert guessed.grid_n == plain.grid_n, guess
+        assert guessed.converged == plain.converged
+        np.testing.assert_array_equal(guessed.orders, plain.orders)
+        scale = float(np.max(np.abs(plain.s)))
+        np.testing.assert_allclose(guessed.s, plain.s, rtol=0, atol=1e-14 * scale)
+        np.testing.assert_allclose(guessed.d, plain.d, rtol=0, atol=1e-14 * scale)
+
+
+def _lines(products: tuple) -> dict[tuple[int, ...], tuple[float, float]]:
+    return {p.orders: (p.freq_hz, p.power_dbm) for p in products}
+
+
+def _assert_same_lines(fast: tuple, reference: tuple, where: str) -> None:
+    got, want = _lines(fast), _lines(reference)
+    assert len(fast) == len(reference), where
+    assert got.keys() == want.keys(), where
+    top = max((p for _, p in want.values()), default=-math.inf)
+    for orders, (f_ref, p_ref) in want.items():
+        f_fast, p_fast = got[orders]
+        assert f_fast == pytest.approx(f_ref, rel=1e-15, abs=1e-9), (where, orders)
+        if p_ref > top - DB_RANGE:
+            assert abs(p_fast - p_ref) <= TOL_DB, (where, orders, p_fast - p_ref)
+        else:  # amplitude error below 1e-12 of the strongest line's amplitude
+            delta = abs(10 ** (p_fast / 20.0) - 10 ** (p_ref / 20.0))
+            assert delta <= 1e-12 * 10 ** (top / 20.0), (where, orders)
+
+
+@pytest.mark.parametrize("part_name", ["kx-2417", "kx-5860u"])
+def test_a_part_warm_from_a_sweep_gives_each_point_s_lines_as_a_fresh_part(
+    part_name: str,
+) -> None:
+    """A two-tone power and frequency sweep with source harmonics, the LO stepping with the
+    input as on a gain-versus-frequency study: every response of the warm part equals a
+    fresh part's (no caches) for that point alone."""
+    part = load_part(part_name)
+    rng = np.random.default_rng(2417)
+    op = OperatingPoint(temperature_c=float(rng.uniform(-40.0, 85.0)), supply_v=3.3)
+    harmonics = (-35.0, -45.0)
+    f_in = 2.2e9 if part.conversion == "down" else 150e6
+    for i in range(8):
+        lo = ToneInput(2.1e9 + i * 3e6 if part.conversion == "down" else 2.4e9 + i * 3e6,
+                       float(rng.uniform(-6.0, 3.0)), 0.0, harmonics)
+        power = float(rng.uniform(-40.0, -15.0))
+        f1 = f_in + float(rng.uniform(-20e6, 20e6))
+        tones = [ToneInput(f1, power, float(rng.uniform(-3, 3)), harmonics),
+                 ToneInput(f1 + 1e6, power, 0.0, harmonics)]
+        warm = part.evaluate(op, lo, tones)
+        fresh = part.with_changes().evaluate(op, lo, tones)
+        where = f"{part_name} point {i}"
+        _assert_same_lines(warm.if_port, fresh.if_port, where + " output")
+        _assert_same_lines(warm.rf_port, fresh.rf_port, where + " input")
+        _assert_same_lines(warm.lo_port, fresh.lo_port, where + " lo")
+        assert warm.if_noise_dbm_per_hz == pytest.approx(fresh.if_noise_dbm_per_hz, abs=1e-12)
+        assert warm.notes == pytest.approx(fresh.notes, rel=1e-13)
+
+
+def test_a_response_read_as_arrays_holds_the_lines_its_products_hold() -> None:
+    """The simulated bench reads a response's ports as arrays (the products are made only
+    for a reader that asks for them): the same lines either way, and a response built from
+    the products equals the one built from the arrays."""
+    from sweeprig.sim.mixer import MixerResponse
+
+    part = load_part("kx-2417")
+    h = (-35.0, -45.0)
+    resp = part.evaluate(OperatingPoint(), ToneInput(2.1e9, 0.0, 0.0, h),
+                         [ToneInput(2.2e9, -20.0, 0.0, h), ToneInput(2.201e9, -20.0, 0.0, h)])
+    for port in ("if_port", "rf_port", "lo_port"):
+        levels, products = resp.levels(port), getattr(resp, port)
+        assert len(products) == levels.freq_hz.size > 0
+        assert [p.freq_hz for p in products] == levels.freq_hz.tolist()
+        assert [p.power_dbm for p in products] == levels.power_dbm.tolist()
+        assert [p.orders for p in products] == levels.orders.tolist()
+        assert getattr(resp, port) is products  # made once
+    again = MixerResponse(resp.if_port, resp.rf_port, resp.lo_port, resp.if_noise_dbm_per_hz,
+                          resp.supply_current_a, resp.notes)
+    assert again == resp
+    assert copy.deepcopy(resp) == resp and pickle.loads(pickle.dumps(resp)) == resp
+    with pytest.raises(AttributeError):
+        resp.supply_current_a = 1.0  # type: ignore[misc]
+
+
+@pytest.mark.parametrize("part_name", ["kx-2417", "kx-5803"])
+def test_a_sweep_evaluated_together_gives_each_point_s_lines_alone(part_name: str) -> None:
+    """evaluate_many over a two-tone power sweep at a few frequencies (the points share
+    grid sizes, so their transconductor factors are solved together), a single tone and no
+    tone at all in the same sweep: each response equals evaluate() for that point alone."""
+    part = load_part(part_name)
+    op = OperatingPoint()
+    harmonics = (-35.0, -45.0)
+    lo = ToneInput(2.1e9, 0.0 if part_name == "kx-2417" else 13.0, 0.0, harmonics)
+    sweep: list[list[ToneInput]] = []
+    for i in range(8):
+        power = -35.0 + 1.25 * i
+        f1 = 2.2e9 + (i % 3) * 1e6
+        sweep.append([ToneInput(f1, power, 0.3 * i, harmonics),
+                      ToneInput(f1 + 1e6, power, 0.0, harmonics)])
+    sweep += [[ToneInput(2.25e9, -20.0, 0.0, harmonics)], []]
+    together = part.evaluate_many(op, lo, sweep)
+    assert len(together) == len(sweep)
+    fresh = part.with_changes()  # its own caches: each point evaluated on its own
+    for i, (tones, response) in enumerate(zip(sweep, together, strict=True)):
+        alone = fresh.evaluate(op, lo, tones)
+        where = f"{part_name} point {i}"
+        _assert_same_lines(response.if_port, alone.if_port, where + " output")
+        _assert_same_lines(response.rf_port, alone.rf_port, where + " input")
+        assert response.notes == pytest.approx(alone.notes, rel=1e-13)
