@@ -446,8 +446,8 @@ class SqlRunStoreCore:
         A point index already stored for this run is a :class:`StoreError`.
         """
         point_row = self._point_row(run_id, point)
-        reading_rows = [
-            self._reading_row(run_id, point.index, number, reading)
+        reading_rows = [  # the index as the point row has it (a numpy integer made an int)
+            self._reading_row(run_id, point_row[1], number, reading)  # type: ignore[arg-type]
             for number, reading in enumerate(readings)
         ]
         with self._transaction(f"writing point {point.index}") as conn:
