@@ -6,7 +6,8 @@ file. Same tables, same statements and the same guarantees as the SQLite store
 sent as a parameter, never pasted into SQL.
 
 * Autocommit connection; every write is an explicit transaction (``conn.transaction()``),
-  committed before the method returns.
+  committed before the method returns. A point is one statement (:func:`point_sql`, one
+  transaction by itself), prepared per number of readings and sent through libpq.
 * A run is alive while its process holds the run's session-level advisory lock
   (``pg_advisory_lock(RUN_LOCK_SPACE, run_id)``, PostgreSQL manual, "Advisory Locks"): the
   server drops it when that process's connection ends, however the process ends, and every
