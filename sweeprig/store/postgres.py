@@ -425,9 +425,18 @@ class PostgresRunStore(SqlRunStoreCore):
                         for number, reading in enumerate(readings)]
         with self._lock, deferred():
             self._reconnect_if_lost()
+            encoding = self._conn.info.encoding
             try:
-                self._execute_point(len(readings), point_parameters(
-                    run_id, point_row, reading_rows, activity, self._conn.info.encoding))
+                parameters = point_parameters(run_id, point_row, reading_rows, activity,
+                                              encoding)
+            except UnicodeEncodeError as exc:
+                raise StoreError(
+                    f"writing point {point.index} failed: a text value cannot be sent in the "
+                    f"connection's encoding, {encoding} ({exc.reason}: {exc.object[:40]!r})",
+                    where=self.where, fix="use text the database can hold (a database "
+                    "created with ENCODING 'UTF8' holds any text)") from None
+            try:
+                self._execute_point(len(readings), parameters)
             except psycopg.errors.UniqueViolation:
                 raise self._point_already_stored(run_id, point.index) from None
             except psycopg.errors.ForeignKeyViolation:

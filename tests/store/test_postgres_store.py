@@ -207,3 +207,16 @@ def test_a_point_cut_off_by_a_lost_connection_is_not_stored_and_the_next_write_r
             store.write_point(run_id, PointRecord(1, "gain"), readings)
         assert store.done_point_indices(run_id) == {0, 1}
         assert len(store.readings_frame(run_id)) == 2
+
+
+def test_text_the_connection_cannot_encode_is_refused_and_nothing_is_stored(pg_url):
+    from sweeprig.store.base import PointRecord, ReadingRecord
+
+    with PostgresRunStore(pg_url) as store:
+        run_id = store.create_run(sequence_path="s.toml", sequence_text="")
+        bad = [ReadingRecord("wanted", "wanted"), ReadingRecord("spur \udcff", "mxn")]
+        with pytest.raises(StoreError, match="cannot be sent in the connection's encoding"):
+            store.write_point(run_id, PointRecord(0, "gain"), bad)
+        assert store.done_point_indices(run_id) == set()
+        store.write_point(run_id, PointRecord(0, "gain"), bad[:1])
+        assert len(store.readings_frame(run_id)) == 1
