@@ -448,10 +448,10 @@ class PostgresRunStore(SqlRunStoreCore):
     def _execute_point(self, readings: int, parameters: list[bytes | None]) -> None:
         """Run :func:`point_sql` for ``readings`` readings, prepared on this connection the
         first time (under the caller's lock). The statement goes straight through libpq
-        (psycopg's ``pgconn``, "for features not wrapped by psycopg": its documentation),
-        which costs a writer a fifth of the processor time of ``Connection.execute`` per
-        point; a failure is raised as the psycopg error of its SQLSTATE, as ``execute``
-        would."""
+        (psycopg's ``pgconn``, "for features not wrapped by psycopg": its documentation):
+        measured with 8 writers on 2 cores, about 0.1 ms of a writer's processor time per
+        point against 0.35 ms through ``Connection.execute``. A failure is raised as the
+        psycopg error of its SQLSTATE, as ``execute`` would."""
         pgconn = self._conn.pgconn
         if self._prepared_on is not pgconn:  # a new connection: nothing prepared on it yet
             self._prepared_on, self._point_statements = pgconn, {}
