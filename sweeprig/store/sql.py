@@ -204,6 +204,8 @@ def _dt(text: str | None) -> datetime | None:
 
 
 def _real(value: object, name: str) -> float | None:
+    if type(value) is float:  # the common case first: a point has dozens of these
+        return value if math.isfinite(value) else None
     if value is None:
         return None
     if isinstance(value, bool) or not isinstance(value, int | float):
@@ -216,8 +218,8 @@ def _real(value: object, name: str) -> float | None:
 
 
 def _int(value: object, name: str) -> int | None:
-    if value is None:
-        return None
+    if type(value) is int or value is None:
+        return value  # type: ignore[return-value]
     try:
         return int(value)  # type: ignore[call-overload]
     except (TypeError, ValueError):
@@ -225,6 +227,8 @@ def _int(value: object, name: str) -> int | None:
 
 
 def _json(value: Mapping[str, Any] | None, name: str) -> str:
+    if not value:
+        return "{}"  # json.dumps({}): most records have no extra
     try:
         return json.dumps(dict(value or {}), sort_keys=True, default=_json_default)
     except (TypeError, ValueError) as exc:
@@ -250,6 +254,14 @@ def _activity(text: str | None) -> Mapping[str, Any] | None:
     except ValueError:
         return None
     return MappingProxyType(value) if isinstance(value, dict) else None
+
+
+_POINT_REALS: tuple[tuple[str, str], ...] = tuple((c, f"point.{c}") for c in POINT_COLUMNS[1:])
+"""The point's number columns and the names a message gives them."""
+_READING_NUMBERS: tuple[tuple[str, str, bool], ...] = tuple(
+    (c, f"reading.{c}", c in ("m", "n", "averages")) for c in READING_COLUMNS[3:])
+"""The reading's number columns, the names a message gives them, and whether each is an
+integer."""
 
 INSERT_POINT_SQL = (
     f"INSERT INTO points (run_id, point_index, {', '.join(POINT_COLUMNS)}, "
@@ -434,8 +446,8 @@ class SqlRunStoreCore:
         A point index already stored for this run is a :class:`StoreError`.
         """
         point_row = self._point_row(run_id, point)
-        reading_rows = [
-            self._reading_row(run_id, point.index, number, reading)
+        reading_rows = [  # the index as the point row has it (a numpy integer made an int)
+            self._reading_row(run_id, point_row[1], number, reading)  # type: ignore[arg-type]
             for number, reading in enumerate(readings)
         ]
         with self._transaction(f"writing point {point.index}") as conn:
@@ -469,25 +481,18 @@ class SqlRunStoreCore:
 
     @staticmethod
     def _point_row(run_id: int, p: PointRecord) -> tuple[object, ...]:
-        index = _int(p.index, "point.index")
-        values: list[object] = [run_id, index, str(p.study)]
-        for column in POINT_COLUMNS[1:]:
-            values.append(_real(getattr(p, column), f"point.{column}"))
-        values += [_iso(p.wall_start), _iso(p.wall_end), _json(p.extra, "point.extra")]
-        return tuple(values)
+        return (run_id, _int(p.index, "point.index"), str(p.study),
+                *[_real(getattr(p, column), name) for column, name in _POINT_REALS],
+                _iso(p.wall_start), _iso(p.wall_end), _json(p.extra, "point.extra"))
 
     @staticmethod
     def _reading_row(run_id: int, index: int, number: int, r: ReadingRecord) -> tuple[object, ...]:
-        values: list[object] = [run_id, index, number, str(r.name), str(r.kind), str(r.port)]
-        for column in READING_COLUMNS[3:]:
-            if column in ("m", "n", "averages"):
-                values.append(_int(getattr(r, column), f"reading.{column}"))
-            else:
-                values.append(_real(getattr(r, column), f"reading.{column}"))
-        values.append(int(bool(r.overload)))
-        values.append(None if r.attenuation_check is None else int(bool(r.attenuation_check)))
-        values.append(_json(r.extra, "reading.extra"))
-        return tuple(values)
+        return (run_id, index, number, str(r.name), str(r.kind), str(r.port),
+                *[(_int if integer else _real)(getattr(r, column), name)
+                  for column, name, integer in _READING_NUMBERS],
+                int(bool(r.overload)),
+                None if r.attenuation_check is None else int(bool(r.attenuation_check)),
+                _json(r.extra, "reading.extra"))
 
     def done_point_indices(self, run_id: int) -> set[int]:
         """Indices of the points stored for ``run_id``."""

@@ -30,19 +30,34 @@ POINTS_PER_WRITER = 500
 READINGS_PER_POINT = 4
 
 
+def _cpu_s(pid: int) -> float | None:
+    """Processor time (user + system) process ``pid`` has used so far, s; None where
+    ``/proc`` does not show it (not Linux, or a server out of reach)."""
+    try:
+        with open(f"/proc/{pid}/stat", encoding="ascii") as stat:
+            fields = stat.read().rsplit(")", 1)[1].split()
+    except OSError:
+        return None
+    return (int(fields[11]) + int(fields[12])) / os.sysconf("SC_CLK_TCK")  # proc(5)
+
+
 def _writer(url: str, n: int, start, done) -> None:  # type: ignore[no-untyped-def]
     from sweeprig.store.base import PointRecord, ReadingRecord
 
     store = PostgresRunStore(url)
     run_id = store.create_run(sequence_path="bench.toml", sequence_text="x", status="running")
+    server_pid = int(store._read("SELECT pg_backend_pid()")[0][0])
     now = datetime.now(UTC)
     readings = [ReadingRecord(f"r{k}", "wanted", "if", 70e6, -20.0 - k, -95.0, 1, 1, 1e6, 1e3,
                               10.0, 0.0, 1) for k in range(READINGS_PER_POINT)]
     start.wait()
+    cpu0, server0 = time.process_time(), _cpu_s(server_pid)
     for index in range(n):
         store.write_point(run_id, PointRecord(index, "gain", rf_freq_hz=2.4e9, lo_freq_hz=2.33e9,
                                               wall_start=now, wall_end=now), readings)
-    done.put(run_id)
+    server1 = _cpu_s(server_pid)
+    server = None if server0 is None or server1 is None else server1 - server0
+    done.put((run_id, time.process_time() - cpu0, server))
     store.close()
 
 
@@ -68,18 +83,29 @@ def test_print_point_writes_per_second_with_8_writers(durable_server) -> None:
         p.start()
     start.wait()
     t0 = time.perf_counter()
-    runs = [done.get(timeout=600) for _ in procs]
+    results = [done.get(timeout=600) for _ in procs]
     elapsed = time.perf_counter() - t0
     for p in procs:
         p.join()
     total = WRITERS * POINTS_PER_WRITER
+    runs = [r[0] for r in results]
     with PostgresRunStore(url) as store:
         assert sum(len(store.done_point_indices(r)) for r in runs) == total
     rate = total / elapsed
+    writer_ms = sum(r[1] for r in results) / total * 1e3
+    server = [r[2] for r in results]
+    server_ms = None if None in server else sum(server) / total * 1e3
     print(f"\n{WRITERS} writers, {total} points of {READINGS_PER_POINT} readings each, one "
           f"transaction per point, fsync on: {elapsed:.2f} s, {rate:,.0f} points/s "
           f"(target ≥ 2,000: {'met' if rate >= 2000 else 'MISSED'}; load "
-          f"{os.getloadavg()[0]:.1f})")
+          f"{os.getloadavg()[0]:.1f} on {os.cpu_count()} cores)")
+    if server_ms is None:
+        print(f"processor time per point: writer {writer_ms:.3f} ms; server n/a")
+    else:  # what the rate would be with every core for this alone: an estimate, no target
+        print(f"processor time per point: writer {writer_ms:.3f} ms + server "
+              f"{server_ms:.3f} ms (its session); {os.cpu_count()} cores for this alone "
+              f"would give about {os.cpu_count() / (writer_ms + server_ms) * 1e3:,.0f} "
+              "points/s")
 
 
 @pytest.mark.perf
