@@ -290,7 +290,9 @@ class BenchWorker:
             lab_id = int(job.task_kwargs.get("lab_run", 0))
             rows = self.queue.store._read("SELECT bench, state FROM lab_runs WHERE id = ?",
                                           (lab_id,))
-            if rows and rows[0][0] is None:
+            # never claimed by a bench, or taken again (after a resume was queued on its bench)
+            # by a worker killed before it marked the run: back to the job's own queue
+            if rows and (rows[0][0] is None or rows[0][1] == "queued"):
                 self.queue.run(jobs.retry_job_by_id_async(job.id, retry_at=utc_now(),
                                                           queue=job.queue))
         self._hand_back_unstarted()
@@ -298,21 +300,22 @@ class BenchWorker:
         del with_dead_workers
 
     def _hand_back_unstarted(self) -> None:
-        """Jobs this process took (under any id it registered) whose run never started: the
-        database failed between taking the job and marking its run (the job stays ``doing``
-        with a live worker, so procrastinate would never call it stalled). Called while idle,
-        when this process holds no job: each goes back to its queue at once."""
-        if not self._worker_ids:
-            return
+        """Jobs whose run never started though the job is ``doing``, handed back to their
+        queue at once. Called while idle, when this process holds no job: those it took under
+        any id it registered (the database failed between taking the job and marking its run;
+        the job stays ``doing`` under a live worker, which procrastinate never calls stalled),
+        and those of this bench's own queue (a killed worker of this bench took one; this is
+        the bench's only worker, so no live one holds it)."""
         rows = self.queue.store._read(
             "SELECT j.id, j.queue_name, j.priority FROM procrastinate_jobs j "
             "JOIN lab_runs l ON l.job_id = j.id WHERE j.status = 'doing' "
-            "AND j.worker_id = ANY(?) AND l.state = 'queued'", (sorted(self._worker_ids),))
+            "AND l.state = 'queued' AND (j.worker_id = ANY(?) OR j.queue_name = ?)",
+            (sorted(self._worker_ids), bench_queue(self.name)))
         for job_id, queue_name, priority in rows:
             self.queue.run(self.queue.jobs.retry_job_by_id_async(
                 int(job_id), retry_at=utc_now() - timedelta(seconds=1), priority=int(priority),
                 queue=queue_name))
-            self.say(f"job {job_id} was taken when the lab database failed; back in its queue")
+            self.say(f"job {job_id} was taken but its run never started; back in its queue")
 
     def _requeue(self, entry: LabRun, queue_name: str) -> None:
         jobs = self.queue.jobs

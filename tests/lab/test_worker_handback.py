@@ -24,3 +24,21 @@ def test_a_job_taken_as_the_database_failed_goes_back_to_its_queue(pg_url, quick
     summary = worker.run()
     assert any("back in its queue" in line for line in said), said
     assert summary.done == [entry.id]
+
+
+def test_a_job_of_its_bench_taken_by_a_killed_worker_is_handed_back_at_once(
+        pg_url, quick_copy, served_bench, tmp_path):
+    """The worker of bench b1 was killed after taking a job of b1's queue and before it
+    marked the run: the next worker of b1 (its only worker) hands it back without waiting
+    for procrastinate's stalled-worker delay."""
+    path = served_bench("b1")
+    with LabQueue(pg_url) as queue:
+        entry = queue.submit(quick_copy, part="KX-2407", serial="U1", bench="b1")
+        dead = int(queue.run(queue.jobs.register_worker()))  # the killed worker's id
+        job = queue.run(queue.jobs.fetch_job([entry.queue_name], dead))
+        assert job is not None and queue.get(entry.id).state == "queued"
+    said: list[str] = []
+    summary = BenchWorker(pg_url, path, name="b1", once=True, say=said.append,
+                          log_dir=tmp_path).run()
+    assert any("back in its queue" in line for line in said), said
+    assert summary.done == [entry.id]
