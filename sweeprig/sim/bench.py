@@ -35,6 +35,7 @@ optional; the values shown are the defaults)::
     harmonics = ["-35 dBc", "-45 dBc"]
     # non-harmonic spurious lines at carrier + offset (an assumption: reference-related spurs)
     spurious = [{ offset = "10 MHz", level = "-72 dBc" }, { offset = "-10 MHz", level = "-72 dBc" }]
+    family = "tarnwick"          # their command set: "tarnwick" (TW-SG6) or "farrowmere" (FR-SG8)
 
     [sources.lowpass]            # optional low-pass filter at a source output (none by default)
     # rf = { corner = "3 GHz", order = 7 }   # Butterworth, -3 dB at corner; also rf2, lo
@@ -60,6 +61,7 @@ optional; the values shown are the defaults)::
     # zero_offset = "-40 dBm"    # a sensor not zeroed: this power is added to every reading
     zero_holds = true            # zeroing (CAL:ZERO) removes that offset (false: a faulty sensor)
     range_max = "20 dBm"         # above it a reading is not a number (a low-power sensor: lower)
+    family = "tarnwick"          # its command set: "tarnwick" (TW-PM18) or "farrowmere" (FR-PM4)
     offset = "0 dB"              # a display offset left set in the meter, added to every reading
     # the sensor's calibration factor itself (sweeprig.sim.instruments.powermeter) is always
     # there, as on a real sensor: the bench file's [sensor] table corrects it
@@ -264,6 +266,9 @@ class SourcesSpec(Frozen):
     harmonics: tuple[LevelDb, ...] = (-35.0, -45.0)
     spurious: tuple[SpurSpec, ...] = DEFAULT_SPURIOUS
     lowpass: SourceFiltersSpec = SourceFiltersSpec()
+    #: Their command set: "tarnwick" (TW-SG6) or "farrowmere" (FR-SG8: settings applied late
+    #: unless synchronised, on its own crystal unless the bench locks it; docs/instruments.md).
+    family: Literal["tarnwick", "farrowmere"] = "tarnwick"
 
 
 class PhaseNoisePointSpec(Frozen):
@@ -324,6 +329,9 @@ class PowerMeterSpec(Frozen):
     range_max: Power = 20.0
     #: A display offset left set in the meter: added to every reading.
     offset: LevelDb = 0.0
+    #: Its command set: "tarnwick" (TW-PM18) or "farrowmere" (FR-PM4: refuses readings until
+    #: zeroed; docs/instruments.md).
+    family: Literal["tarnwick", "farrowmere"] = "tarnwick"
 
 
 class ChamberSpec(Frozen):
@@ -651,8 +659,11 @@ def build_sim_instruments(
     from sweeprig.sim.instruments.analyzer_fr import FarrowmereAnalyzer
     from sweeprig.sim.instruments.chamber import ThermalChamber
     from sweeprig.sim.instruments.powermeter import PowerMeter
+    from sweeprig.sim.instruments.powermeter_fr import FarrowmerePowerMeter
     from sweeprig.sim.instruments.simctl import SimControl
     from sweeprig.sim.instruments.source import SignalSource, no_level_error_db, scaled_level_error
+    from sweeprig.sim.instruments.source_fr import CRYSTAL_PPM as FR_CRYSTAL_PPM
+    from sweeprig.sim.instruments.source_fr import FarrowmereSource
     from sweeprig.sim.instruments.supply import DcSupply
     from sweeprig.sim.instruments.switch import RfSwitch
     from sweeprig.sim.world import SimWorld
@@ -666,8 +677,15 @@ def build_sim_instruments(
     linearity = desc.sources.level_linearity if desc.sources.level_error else 0.0
     harmonics = desc.sources.harmonics
     oscillators = desc.references.oscillators()
+    source_class: type[SignalSource] = SignalSource
+    serial = "SG6-1000"
+    if desc.sources.family == "farrowmere":
+        source_class, serial = FarrowmereSource, "SG8-3000"
+        for role, ppm in FR_CRYSTAL_PPM.items():  # its own crystal unless the file gives one
+            if role not in desc.references.crystal:
+                oscillators[role].crystal_ppm = ppm
     sources = {
-        role: SignalSource(clock, f"SG6-1000{k + 1}", level_error_db=level_error,
+        role: source_class(clock, f"{serial}{k + 1}", level_error_db=level_error,
                            harmonics_dbc=harmonics,
                            spurious=[(s.offset, s.level) for s in desc.sources.spurious],
                            level_linearity_db=linearity, reference=oscillators[role])
@@ -682,7 +700,9 @@ def build_sim_instruments(
                       else SpectrumAnalyzer)
     analyzer = analyzer_class(clock, world.analyzer_input, params=desc.analyzer_params(),
                               seed=desc.seed, reference=oscillators["sa"])
-    meter = PowerMeter(clock, sense=world.sensed_power_dbm, seed=desc.seed + 1,
+    meter_class = (FarrowmerePowerMeter if desc.power_meter.family == "farrowmere"
+                   else PowerMeter)
+    meter = meter_class(clock, sense=world.sensed_power_dbm, seed=desc.seed + 1,
                        cal_factor_error_db=desc.power_meter.cal_factor_error,
                        relative_noise=desc.power_meter.noise,
                        zero_offset_dbm=desc.power_meter.zero_offset,
