@@ -18,6 +18,7 @@ from sweeprig.errors import InputError, SweeprigError
 from sweeprig.text import one_line
 
 if TYPE_CHECKING:
+    from sweeprig.clock import Clock
     from sweeprig.instruments.probe import ProbeReport
     from sweeprig.instruments.profile import Profile
 
@@ -51,9 +52,12 @@ def _bench_role(bench_path: Path, resource: str, role: str | None,
 
 def run_probe(resource: str, profile_name: str, *, bench_path: Path | None = None,
               role: str | None = None, profiles_dir: list[Path] | None = None,
-              visa_library: str | None = None, timeout_s: float = 5.0) -> ProbeReport:
+              visa_library: str | None = None, timeout_s: float = 5.0,
+              clock: Clock | None = None) -> ProbeReport:
     """Open ``resource``, probe it with ``profile_name`` (bench limits when a bench is
-    given) and return the report. The connection is closed afterwards."""
+    given) and return the report. The connection is closed afterwards. ``clock``: what the
+    driver waits on between completion polls (the wall clock; a simulated bench served in
+    the same process gives its virtual clock, or its time would stand still)."""
     from sweeprig.engine.locks import BenchLock
     from sweeprig.instruments.profile import load_profile
 
@@ -64,11 +68,13 @@ def run_probe(resource: str, profile_name: str, *, bench_path: Path | None = Non
     started = dt.datetime.now(dt.UTC).isoformat(timespec="seconds")
     # an instrument a run is using is not probed (the run holds its lock; BenchBusy names it)
     with BenchLock([resource], f"sweeprig probe ({profile.name})"):
-        return _probe_open(resource, profile, bench, role, visa_library, timeout_s, started)
+        return _probe_open(resource, profile, bench, role, visa_library, timeout_s, started,
+                           clock)
 
 
 def _probe_open(resource: str, profile: Profile, bench: object, role: str | None,
-                visa_library: str | None, timeout_s: float, started: str) -> ProbeReport:
+                visa_library: str | None, timeout_s: float, started: str,
+                clock: Clock | None = None) -> ProbeReport:
     from sweeprig.instruments import make_driver
     from sweeprig.instruments.probe import probe
     from sweeprig.plan.instrument_limits import bench_bounds
@@ -78,7 +84,7 @@ def _probe_open(resource: str, profile: Profile, bench: object, role: str | None
     transport = visa.VisaTransport(resource, visa_library=visa_library or choose_visa_library(),
                                    timeout_s=timeout_s, settings=profile.connection)
     try:
-        driver = make_driver(profile, role or profile.kind, transport)
+        driver = make_driver(profile, role or profile.kind, transport, clock=clock)
         if bench is not None and role is not None:
             for op, bounds in bench_bounds(bench, role).items():  # type: ignore[arg-type]
                 if profile.has(op):

@@ -164,3 +164,56 @@ def test_run_sim_on_the_second_family_takes_its_profile(tmp_path: Path) -> None:
     with SqliteRunStore(tmp_path / "s.sqlite", create=False) as s:
         sa = [i for i in s.run(outcome.run_id).instruments if i.role == "sa"]
     assert sa and sa[0].idn.startswith("Farrowmere Instruments,FR-SA20,")
+
+
+@pytest.fixture(scope="module")
+def whole_farrowmere():
+    with start_sim_bench(_whole_family("farrowmere"), clock=VirtualClock()) as bench:
+        yield bench
+
+
+@pytest.mark.parametrize(("role", "profile", "model"), [
+    ("lo", "fr-sg8", "FR-SG8"), ("pm", "fr-pm4", "FR-PM4")])
+def test_its_source_and_meter_pass_the_probe_with_their_profiles(
+        whole_farrowmere, role: str, profile: str, model: str) -> None:
+    # the driver polls for completion on the bench's own (virtual) clock
+    report = run_probe(whole_farrowmere.resources[role], profile, timeout_s=2.0,
+                       clock=whole_farrowmere.clock)
+    assert report.idn is not None and f"Farrowmere Instruments,{model}," in report.idn
+    assert report.counts()["fail"] == 0, [s for s in report.steps if s.result != "ok"]
+
+
+def test_the_generic_source_profile_fails_loudly_on_it(whole_farrowmere) -> None:
+    report = run_probe(whole_farrowmere.resources["rf"], "scpi-source", timeout_s=0.5)
+    failed = {s.op: s for s in report.failed}
+    # no :CW and no :IMMediate node (SCPI-99 -113 undefined header)
+    assert {"frequency", "power"} <= set(failed)
+    assert failed["frequency"].errors[0].startswith("-113")
+
+
+def test_its_source_applies_a_setting_late_unless_synchronised(whole_farrowmere) -> None:
+    """Over pyvisa: the query answers the new frequency at once, the output keeps the old one
+    while OPERation bit 1 (SCPI-99 SETTling) is set; *OPC then *ESR? bit 0 (IEEE 488.2-1992,
+    10.18; from memory) is set only once the output has it."""
+    import pyvisa
+
+    clock = whole_farrowmere.clock
+    source = whole_farrowmere.instruments["rf2"]
+    rm = pyvisa.ResourceManager("@py")
+    inst = rm.open_resource(whole_farrowmere.resources["rf2"], read_termination="\n",
+                            write_termination="\n", timeout=2000)
+    try:
+        inst.write("*RST;*CLS")
+        inst.write("SOUR:FREQ 2.5E9")
+        assert float(inst.query("SOUR:FREQ?")) == 2.5e9
+        assert source.freq_hz == 1e9  # still the power-on frequency at the output
+        assert int(inst.query("STAT:OPER:COND?")) & 2
+        inst.write("*OPC")
+        assert not int(inst.query("*ESR?")) & 1
+        clock.sleep(0.05)
+        assert int(inst.query("*ESR?")) & 1
+        assert source.freq_hz == 2.5e9 and int(inst.query("STAT:OPER:COND?")) == 0
+        assert inst.query("SYST:ERR?").startswith("0,")
+    finally:
+        inst.close()
+        rm.close()
