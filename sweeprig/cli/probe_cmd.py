@@ -81,9 +81,13 @@ def _probe_open(resource: str, profile: Profile, bench: object, role: str | None
     from sweeprig.transport import visa
     from sweeprig.transport.backend import choose_visa_library
 
-    transport = visa.VisaTransport(resource, visa_library=visa_library or choose_visa_library(),
+    library = visa_library or choose_visa_library()
+    transport = visa.VisaTransport(resource, visa_library=library,
                                    timeout_s=timeout_s, settings=profile.connection)
+    control = None
     try:
+        if clock is None and bench is not None:
+            clock, control = _simulator_clock(bench, library, timeout_s)
         driver = make_driver(profile, role or profile.kind, transport, clock=clock)
         if bench is not None and role is not None:
             for op, bounds in bench_bounds(bench, role).items():  # type: ignore[arg-type]
@@ -93,6 +97,30 @@ def _probe_open(resource: str, profile: Profile, bench: object, role: str | None
         return probe(driver, started_utc=started)
     finally:
         transport.close()
+        if control is not None:
+            control.close()
+
+
+def _simulator_clock(bench: object, library: str, timeout_s: float) -> tuple[Clock | None,
+                                                                             object]:
+    """On a bench with the simulator's control instrument (``sweeprig sim serve``), the
+    simulator's clock, so that a completion poll lets simulated time pass (see
+    :func:`sweeprig.engine.connect.bench_clock`), and the connection to close afterwards;
+    (None, None) on any other bench."""
+    from sweeprig.engine.connect import bench_clock
+    from sweeprig.instruments import make_driver
+    from sweeprig.transport import visa
+
+    spec = bench.role("simctl")  # type: ignore[attr-defined]
+    if spec is None:
+        return None, None
+    control = visa.VisaTransport(spec.resource, visa_library=library, timeout_s=timeout_s)
+    try:
+        driver = make_driver(spec.profile, "simctl", control)
+        return bench_clock(driver, None), control  # type: ignore[arg-type]
+    except BaseException:
+        control.close()
+        raise
 
 
 def print_report(report: ProbeReport, console: Console) -> None:

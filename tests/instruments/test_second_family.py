@@ -217,3 +217,20 @@ def test_its_source_applies_a_setting_late_unless_synchronised(whole_farrowmere)
     finally:
         inst.close()
         rm.close()
+
+
+def test_the_probe_on_a_served_bench_file_waits_on_the_simulators_clock(
+        whole_farrowmere, tmp_path: Path) -> None:
+    """``sweeprig probe RESOURCE --bench FILE`` on a bench served by the simulator: the meter's
+    4 s zeroing, completed by event-status polling, ends in simulated time (the bench file's
+    simctl role gives the clock) instead of polling a frozen simulator until the timeout."""
+    import time
+
+    bench = tmp_path / "served.toml"
+    bench.write_text(served_bench_text(whole_farrowmere.resources,
+                                       _whole_family("farrowmere")), encoding="utf-8")
+    started = time.monotonic()
+    report = run_probe(whole_farrowmere.resources["pm"], "fr-pm4", bench_path=bench,
+                       timeout_s=2.0)
+    assert report.counts()["fail"] == 0, [s for s in report.steps if s.result != "ok"]
+    assert time.monotonic() - started < 30.0  # the zero's own timeout is 60 s
