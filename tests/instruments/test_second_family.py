@@ -234,3 +234,29 @@ def test_the_probe_on_a_served_bench_file_waits_on_the_simulators_clock(
                        timeout_s=2.0)
     assert report.counts()["fail"] == 0, [s for s in report.steps if s.result != "ok"]
     assert time.monotonic() - started < 30.0  # the zero's own timeout is 60 s
+
+
+def test_its_sweeps_are_slower_and_it_says_so(farrowmere) -> None:
+    """``SWEep:TIME?`` over pyvisa: 1.6 times the receiver's k·span/RBW² (the TW-SA13's), and
+    a sweep holds ``*OPC?`` that long in simulated time."""
+    import pyvisa
+
+    from sweeprig.sim.analyzer_display import sweep_time_s
+    from sweeprig.sim.instruments.analyzer_fr import SWEEP_TIME_SCALE_FR
+
+    analyzer = farrowmere.instruments["sa"]
+    rm = pyvisa.ResourceManager("@py")
+    inst = rm.open_resource(farrowmere.resources["sa"], read_termination="\n",
+                            write_termination="\n", timeout=2000)
+    try:
+        inst.write("*RST;:INIT:CONT OFF;:FREQ:SPAN 1E6;:BWID 1E3")
+        stated = float(inst.query("SWE:TIME?"))
+        assert stated == pytest.approx(SWEEP_TIME_SCALE_FR
+                                       * sweep_time_s(analyzer.sweep_settings()), rel=1e-6)
+        t0 = farrowmere.clock.now()
+        inst.write("INIT:IMM")
+        assert inst.query("*OPC?").strip() == "1"
+        assert farrowmere.clock.now() - t0 == pytest.approx(stated, rel=1e-3)
+    finally:
+        inst.close()
+        rm.close()
