@@ -42,3 +42,27 @@ def test_the_package_imports_and_runs_without_sighup(tmp_path: Path) -> None:
                           capture_output=True, text=True, timeout=300)
     assert done.returncode == 0, done.stdout + done.stderr
     assert "complete" in done.stdout
+
+
+#: Unit tests run where SIGHUP does not exist: the stop signals' (what SIGHUP's absence
+#: touches; one file, so the test stays short; the package's import and a run are the test
+#: above). pytest itself starts after SIGHUP is deleted, so every import sees a signal module
+#: like Windows' (Python documentation, signal module: on Windows, signal() accepts only
+#: SIGABRT, SIGFPE, SIGILL, SIGINT, SIGSEGV, SIGTERM or SIGBREAK).
+UNIT_TESTS_WITHOUT_SIGHUP = ("tests/test_signals.py",)
+
+PYTEST_WITHOUT_SIGHUP = textwrap.dedent("""
+    import signal, sys
+    del signal.SIGHUP  # as on Windows, before pytest or sweeprig is imported
+    import pytest
+    sys.exit(pytest.main(["-q", "-x", "-p", "no:cacheprovider", *sys.argv[1:]]))
+""")
+
+
+def test_unit_tests_pass_without_sighup() -> None:
+    root = Path(__file__).resolve().parent.parent
+    done = subprocess.run([sys.executable, "-c", PYTEST_WITHOUT_SIGHUP,
+                           *UNIT_TESTS_WITHOUT_SIGHUP], capture_output=True, text=True,
+                          timeout=300, cwd=root)
+    assert done.returncode == 0, done.stdout[-4000:] + done.stderr[-2000:]
+    assert " passed" in done.stdout and " failed" not in done.stdout

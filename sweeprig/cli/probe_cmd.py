@@ -18,6 +18,7 @@ from sweeprig.errors import InputError, SweeprigError
 from sweeprig.text import one_line
 
 if TYPE_CHECKING:
+    from sweeprig.clock import Clock
     from sweeprig.instruments.probe import ProbeReport
     from sweeprig.instruments.profile import Profile
 
@@ -51,9 +52,12 @@ def _bench_role(bench_path: Path, resource: str, role: str | None,
 
 def run_probe(resource: str, profile_name: str, *, bench_path: Path | None = None,
               role: str | None = None, profiles_dir: list[Path] | None = None,
-              visa_library: str | None = None, timeout_s: float = 5.0) -> ProbeReport:
+              visa_library: str | None = None, timeout_s: float = 5.0,
+              clock: Clock | None = None) -> ProbeReport:
     """Open ``resource``, probe it with ``profile_name`` (bench limits when a bench is
-    given) and return the report. The connection is closed afterwards."""
+    given) and return the report. The connection is closed afterwards. ``clock``: what the
+    driver waits on between completion polls (the wall clock; a simulated bench served in
+    the same process gives its virtual clock, or its time would stand still)."""
     from sweeprig.engine.locks import BenchLock
     from sweeprig.instruments.profile import load_profile
 
@@ -64,21 +68,27 @@ def run_probe(resource: str, profile_name: str, *, bench_path: Path | None = Non
     started = dt.datetime.now(dt.UTC).isoformat(timespec="seconds")
     # an instrument a run is using is not probed (the run holds its lock; BenchBusy names it)
     with BenchLock([resource], f"sweeprig probe ({profile.name})"):
-        return _probe_open(resource, profile, bench, role, visa_library, timeout_s, started)
+        return _probe_open(resource, profile, bench, role, visa_library, timeout_s, started,
+                           clock)
 
 
 def _probe_open(resource: str, profile: Profile, bench: object, role: str | None,
-                visa_library: str | None, timeout_s: float, started: str) -> ProbeReport:
+                visa_library: str | None, timeout_s: float, started: str,
+                clock: Clock | None = None) -> ProbeReport:
     from sweeprig.instruments import make_driver
     from sweeprig.instruments.probe import probe
     from sweeprig.plan.instrument_limits import bench_bounds
     from sweeprig.transport import visa
     from sweeprig.transport.backend import choose_visa_library
 
-    transport = visa.VisaTransport(resource, visa_library=visa_library or choose_visa_library(),
+    library = visa_library or choose_visa_library()
+    transport = visa.VisaTransport(resource, visa_library=library,
                                    timeout_s=timeout_s, settings=profile.connection)
+    control = None
     try:
-        driver = make_driver(profile, role or profile.kind, transport)
+        if clock is None and bench is not None:
+            clock, control = _simulator_clock(bench, library, timeout_s)
+        driver = make_driver(profile, role or profile.kind, transport, clock=clock)
         if bench is not None and role is not None:
             for op, bounds in bench_bounds(bench, role).items():  # type: ignore[arg-type]
                 if profile.has(op):
@@ -87,6 +97,30 @@ def _probe_open(resource: str, profile: Profile, bench: object, role: str | None
         return probe(driver, started_utc=started)
     finally:
         transport.close()
+        if control is not None:
+            control.close()
+
+
+def _simulator_clock(bench: object, library: str, timeout_s: float) -> tuple[Clock | None,
+                                                                             object]:
+    """On a bench with the simulator's control instrument (``sweeprig sim serve``), the
+    simulator's clock, so that a completion poll lets simulated time pass (see
+    :func:`sweeprig.engine.connect.bench_clock`), and the connection to close afterwards;
+    (None, None) on any other bench."""
+    from sweeprig.engine.connect import bench_clock
+    from sweeprig.instruments import make_driver
+    from sweeprig.transport import visa
+
+    spec = bench.role("simctl")  # type: ignore[attr-defined]
+    if spec is None:
+        return None, None
+    control = visa.VisaTransport(spec.resource, visa_library=library, timeout_s=timeout_s)
+    try:
+        driver = make_driver(spec.profile, "simctl", control)
+        return bench_clock(driver, None), control  # type: ignore[arg-type]
+    except BaseException:
+        control.close()
+        raise
 
 
 def print_report(report: ProbeReport, console: Console) -> None:

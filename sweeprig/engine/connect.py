@@ -13,7 +13,7 @@ import functools
 from collections.abc import Callable, Iterator, Mapping
 from dataclasses import dataclass, field
 
-from sweeprig.clock import Clock, WallClock
+from sweeprig.clock import Clock, VirtualClock, WallClock
 from sweeprig.engine.locks import BenchLock
 from sweeprig.errors import InputError, InstrumentError, TransportError
 from sweeprig.formats.bench import Bench
@@ -108,7 +108,7 @@ def open_bench(
     drivers = BenchDrivers()
     wanted = list(roles)
     if "simctl" in resources or bench.role("simctl") is not None:
-        wanted.append("simctl")
+        wanted.insert(0, "simctl")  # first: its clock is the one every driver waits on
     library = _visa_library(bench)
     try:
         for role in wanted:
@@ -138,6 +138,8 @@ def open_bench(
             drivers.transports[role] = transport
             driver = make_driver(profile, role, transport, clock=clock)
             setattr(drivers, role, driver)
+            if role == "simctl":
+                clock = bench_clock(driver, clock)  # type: ignore[arg-type]
             stale = _identify(driver, lock)
             if stale:
                 drivers.startup_errors[role] = stale
@@ -150,6 +152,20 @@ def open_bench(
         drivers.close()
         raise
     return drivers
+
+
+def bench_clock(simctl: SimControlDriver, clock: Clock | None) -> Clock | None:
+    """The clock the drivers wait on when the bench has a simulator's control instrument
+    (a bench served by ``sweeprig sim serve``): its instruments run on the simulator's virtual
+    clock, so a driver polling for completion (``complete = { method = "event" }`` or
+    ``"poll"``) on the wall clock would ask forever while simulated time stands still. A
+    :class:`~sweeprig.clock.VirtualClock` given by the caller (the in-process simulated bench)
+    is already the instruments' own clock and is kept."""
+    if isinstance(clock, VirtualClock):
+        return clock
+    from sweeprig.engine.simclock import SimControlClock
+
+    return SimControlClock(simctl)
 
 
 def _visa_library(bench: Bench) -> str:

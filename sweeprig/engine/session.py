@@ -164,16 +164,18 @@ def served_bench_text(resources: Mapping[str, str], description: object = None) 
     """The built-in simulated bench's bench file with each ``resource = "sim"`` replaced by
     the VISA resource string of a served simulated instrument (``sweeprig sim serve``), so the
     engine can run on it exactly as on a real bench; with a sim-bench ``description``, its
-    stated analyzer and source figures are the description's."""
+    stated analyzer and source figures are the description's, and the roles it serves from
+    the second family take that family's profiles (and ``[timebase]``)."""
     text = (shipped_sequences_dir() / SIM_BENCH_FILE).read_text(encoding="utf-8")
     from sweeprig.sim.bench import SimBenchDescription
 
     if isinstance(description, SimBenchDescription):
-        from sweeprig.engine.sim_specs import figures_toml
+        from sweeprig.engine.sim_specs import family_bench_text, figures_toml
 
         text = re.sub(r"^# BEGIN stated figures\n.*^# END stated figures\n",
                       lambda _: f"# BEGIN stated figures\n{figures_toml(description)}"
                       "# END stated figures\n", text, flags=re.M | re.S)
+        text = family_bench_text(text, description)  # the second family's profiles
 
     def fill(match: re.Match[str]) -> str:
         role = match.group(1)

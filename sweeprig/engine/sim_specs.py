@@ -29,6 +29,7 @@ from sweeprig.formats.bench import (
     SourceFigures,
     SourcesFigures,
 )
+from sweeprig.formats.timebase import Timebase
 from sweeprig.plan.margins import SHI_ABOVE_SOI_DB
 
 #: A harmonic low-pass is chosen with its corner a little above the highest fundamental it
@@ -137,12 +138,73 @@ def with_sim_figures(bench: Bench, description: Any = None) -> Bench:
     desc = resolve_description(description)
     analyzer, sources, nf = sim_figures(desc)
     roles = bench.roles
+    swaps = family_profiles(desc)
+    for role, (generic, own) in swaps.items():
+        spec = getattr(roles, role)
+        if spec is not None and spec.profile == generic:  # the second family's dialect
+            roles = roles.model_copy(update={role: spec.model_copy(update={"profile": own})})
     if roles.sa is not None:
-        update: dict[str, Any] = {"noise_figure": nf}
-        if desc.analyzer.family == "farrowmere" and roles.sa.profile == "scpi-analyzer":
-            update["profile"] = "fr-sa20"  # the second family's dialect (docs/instruments.md)
-        roles = roles.model_copy(update={"sa": roles.sa.model_copy(update=update)})
-    return bench.model_copy(update={"analyzer": analyzer, "sources": sources, "roles": roles})
+        roles = roles.model_copy(update={"sa": roles.sa.model_copy(
+            update={"noise_figure": nf})})
+    update: dict[str, Any] = {"analyzer": analyzer, "sources": sources, "roles": roles}
+    if bench.timebase is None and desc.sources.family == "farrowmere":
+        update["timebase"] = family_timebase()
+    return bench.model_copy(update=update)
+
+
+#: The second simulated family's profiles (docs/instruments.md), by role: (the built-in bench
+#: file's generic profile, the family's own).
+SECOND_FAMILY_PROFILES: dict[str, tuple[str, str]] = {
+    "sa": ("scpi-analyzer", "fr-sa20"),
+    "rf": ("scpi-source", "fr-sg8"), "rf2": ("scpi-source", "fr-sg8"),
+    "lo": ("scpi-source", "fr-sg8"),
+    "pm": ("scpi-powermeter", "fr-pm4"),
+}
+
+#: The ``[timebase]`` a bench of second-family sources needs (their references are not locked
+#: unless the bench file says so): every source and the analyzer on the house 10 MHz.
+SECOND_FAMILY_TIMEBASE_TOML = """\
+[timebase]
+rf = { lock = "house" }
+rf2 = { lock = "house" }
+lo = { lock = "house" }
+sa = { lock = "house" }
+
+[timebase.external]
+house = "0.001 ppm"
+"""
+
+
+def family_profiles(desc: Any) -> dict[str, tuple[str, str]]:
+    """Role → (generic profile, the family's profile) for the roles a sim-bench description
+    serves from the second family."""
+    families = {"sa": desc.analyzer.family, "rf": desc.sources.family,
+                "rf2": desc.sources.family, "lo": desc.sources.family,
+                "pm": desc.power_meter.family}
+    return {role: SECOND_FAMILY_PROFILES[role] for role, family in families.items()
+            if family == "farrowmere"}
+
+
+def family_timebase() -> Timebase:
+    """:data:`SECOND_FAMILY_TIMEBASE_TOML` as the bench model's ``timebase``."""
+    import tomllib
+
+    return Timebase.model_validate(tomllib.loads(SECOND_FAMILY_TIMEBASE_TOML)["timebase"])
+
+
+def family_bench_text(text: str, desc: Any) -> str:
+    """A bench file's ``text`` with the second family's profiles in place of the generic ones
+    for the roles ``desc`` serves from it, and its ``[timebase]`` when the sources are of it
+    and the file has none."""
+    import re
+
+    for role, (generic, own) in family_profiles(desc).items():
+        text = re.sub(rf'^({role}\s*=\s*\{{.*profile\s*=\s*)"{generic}"',
+                      rf'\g<1>"{own}"', text, flags=re.M)
+    if desc.sources.family == "farrowmere" and not re.search(r"^\[timebase\]", text,
+                                                             flags=re.M):
+        text = text.rstrip("\n") + "\n\n" + SECOND_FAMILY_TIMEBASE_TOML
+    return text
 
 
 def figures_toml(description: Any = None) -> str:

@@ -71,6 +71,9 @@ PROBE_SWITCHES: dict[str, bool] = {
 #: Common operations the probe runs first (in this order) or not as a step of their own.
 _FIRST = ("identify", "clear", "reset")
 _NOT_A_STEP = frozenset({"next_error"})
+#: Probed right after the reset, before the other operations: a power meter's zeroing (every
+#: output is off then, as zeroing needs; some meters refuse readings until zeroed).
+_EARLY = ("zero",)
 
 
 @dataclass(frozen=True)
@@ -248,8 +251,10 @@ def probe(driver: Driver, *, clock: Callable[[], float] = time.perf_counter,
                     "output off at the instrument; caution: RF or supply voltage may be on"))
                 return _report(driver, steps, outputs_off, started_utc)
             recorder.take()
-        for name, operation in profile.ops.items():
-            if name in _FIRST or name in _NOT_A_STEP:
+        early = [n for n in _EARLY if profile.has(n)]  # a meter that reads only once zeroed
+        for name, operation in [*((n, profile.ops[n]) for n in early), *profile.ops.items()]:
+            if name in _FIRST or name in _NOT_A_STEP or (name in early and any(
+                    s.op == name for s in steps)):
                 continue
             steps.append(_probe_op(driver, recorder, clock, operation, where))
         if profile.has("output") and profile.kind in ("source", "supply"):

@@ -115,6 +115,49 @@ class Found:
     :data:`CENTRE_SLACK_RBW` of the RBW, Hz."""
 
 
+#: A line's centre is fitted over the filter's top when it holds at least this many trace
+#: points (fewer: the parabola through the highest point and its two neighbours).
+CENTRE_FIT_MIN_POINTS = 7
+#: The offset is known to this many standard errors of the fitted centre (a two-sided 99.7 %
+#: interval of a normal estimate).
+CENTRE_FIT_K = 3.0
+#: dB per (2·Δf/RBW)² of a Gaussian RBW filter: its power response 2^−(2Δf/RBW)² is −3.01 dB
+#: at ±RBW/2 (the simulated analyzer's filter, sweeprig.sim.analyzer_display; a swept
+#: analyzer's synchronously tuned filter is close to Gaussian, common practice, no source).
+GAUSSIAN_DB_PER_UNIT = 10.0 * math.log10(2.0)
+
+
+def filter_top_fit(freq_hz: np.ndarray, level_dbm: np.ndarray, best: int,
+                   rbw_hz: float) -> tuple[float, float] | None:
+    """The centre of the line whose highest trace point is ``best``, Hz, and its standard
+    error, Hz, from every point within ±RBW/2 of it (the filter's top, 3 dB down at its
+    edges); None when fewer than :data:`CENTRE_FIT_MIN_POINTS` points lie there.
+
+    Through a Gaussian filter a line is a parabola in dB of known curvature
+    ``c = GAUSSIAN_DB_PER_UNIT·(2/RBW)²``: ``y = a − c·(f − f0)²``, so ``y + c·x²`` is a
+    straight line in ``x = f − f_best`` of slope ``2·c·(f0 − f_best)``: an ordinary least-squares
+    line (``numpy.polyfit``, degree 1) with its slope's standard error ``s/√Σ(x − x̄)²``
+    (any regression text). Three points (the parabola through the highest point and its
+    neighbours) place a line whose top is flat to within the trace's noise anywhere along that
+    top; the whole top averages that noise down."""
+    f = np.asarray(freq_hz, dtype=float)
+    y = np.asarray(level_dbm, dtype=float)
+    x = f - f[best]
+    near = (np.abs(x) <= 0.5 * rbw_hz) & np.isfinite(y)
+    if int(near.sum()) < CENTRE_FIT_MIN_POINTS:
+        return None
+    x, y = x[near], y[near]
+    c = GAUSSIAN_DB_PER_UNIT * (2.0 / rbw_hz) ** 2
+    z = y + c * x * x
+    slope, intercept = np.polyfit(x, z, 1)
+    residual = z - (slope * x + intercept)
+    spread = float(np.sum((x - x.mean()) ** 2))
+    s = math.sqrt(float(np.sum(residual ** 2)) / max(x.size - 2, 1))
+    centre = float(f[best]) + float(slope) / (2.0 * c)
+    se = s / math.sqrt(spread) / (2.0 * c) if spread > 0 else math.inf
+    return centre, se
+
+
 def search(freq_hz: np.ndarray, level_dbm: np.ndarray, centre_hz: float, half_width_hz: float,
            bound_hz: float, rbw_hz: float, floor_dbm: float | None,
            window_centre_hz: float | None = None) -> Found:
@@ -135,7 +178,10 @@ def search(freq_hz: np.ndarray, level_dbm: np.ndarray, centre_hz: float, half_wi
             peak_dbm < floor_dbm + found_above_floor_db(half_width_hz, rbw_hz):
         return Found(None, None, None, highest_hz=peak_hz)
     step = float(np.median(np.diff(f))) if f.size > 1 else 0.0
-    if 0 < best < f.size - 1 and np.isfinite(y[best - 1:best + 2]).all():
+    fitted = filter_top_fit(f, y, best, rbw_hz)
+    if fitted is not None:
+        peak_hz, centre_se_hz = fitted
+    elif 0 < best < f.size - 1 and np.isfinite(y[best - 1:best + 2]).all():
         # a parabola through the peak and its neighbours in dB: exact for a line through a
         # Gaussian RBW filter, whose dB shape is a parabola (common practice, no source)
         a, b, c = (float(v) for v in y[best - 1:best + 2])
@@ -149,6 +195,8 @@ def search(freq_hz: np.ndarray, level_dbm: np.ndarray, centre_hz: float, half_wi
         # a line far out of the noise: its interpolated peak is known to a small share of an
         # RBW (noise 20 dB down bends the parabola little; common practice, no source)
         resolution = CLEAR_CENTRE_SLACK_RBW * rbw_hz + 0.1 * step
+    if fitted is not None:  # never finer than what the trace's own noise allows
+        resolution = max(resolution, CENTRE_FIT_K * centre_se_hz)
     if abs(offset) > bound_hz + resolution:
         flags.append(FREQUENCY_OFFSET)
     # the window's border points (or the trace's, when the window reaches past the trace)

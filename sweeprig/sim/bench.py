@@ -81,8 +81,11 @@ def build_sim_instruments(
     from sweeprig.sim.instruments.analyzer_fr import FarrowmereAnalyzer
     from sweeprig.sim.instruments.chamber import ThermalChamber
     from sweeprig.sim.instruments.powermeter import PowerMeter
+    from sweeprig.sim.instruments.powermeter_fr import FarrowmerePowerMeter
     from sweeprig.sim.instruments.simctl import SimControl
     from sweeprig.sim.instruments.source import SignalSource, no_level_error_db, scaled_level_error
+    from sweeprig.sim.instruments.source_fr import CRYSTAL_PPM as FR_CRYSTAL_PPM
+    from sweeprig.sim.instruments.source_fr import FarrowmereSource
     from sweeprig.sim.instruments.supply import DcSupply
     from sweeprig.sim.instruments.switch import RfSwitch
     from sweeprig.sim.world import SimWorld
@@ -96,8 +99,15 @@ def build_sim_instruments(
     linearity = desc.sources.level_linearity if desc.sources.level_error else 0.0
     harmonics = desc.sources.harmonics
     oscillators = desc.references.oscillators()
+    source_class: type[SignalSource] = SignalSource
+    serial = "SG6-1000"
+    if desc.sources.family == "farrowmere":
+        source_class, serial = FarrowmereSource, "SG8-3000"
+        for role, ppm in FR_CRYSTAL_PPM.items():  # its own crystal unless the file gives one
+            if role not in desc.references.crystal:
+                oscillators[role].crystal_ppm = ppm
     sources = {
-        role: SignalSource(clock, f"SG6-1000{k + 1}", level_error_db=level_error,
+        role: source_class(clock, f"{serial}{k + 1}", level_error_db=level_error,
                            harmonics_dbc=harmonics,
                            spurious=[(s.offset, s.level) for s in desc.sources.spurious],
                            level_linearity_db=linearity, reference=oscillators[role])
@@ -112,7 +122,9 @@ def build_sim_instruments(
                       else SpectrumAnalyzer)
     analyzer = analyzer_class(clock, world.analyzer_input, params=desc.analyzer_params(),
                               seed=desc.seed, reference=oscillators["sa"])
-    meter = PowerMeter(clock, sense=world.sensed_power_dbm, seed=desc.seed + 1,
+    meter_class = (FarrowmerePowerMeter if desc.power_meter.family == "farrowmere"
+                   else PowerMeter)
+    meter = meter_class(clock, sense=world.sensed_power_dbm, seed=desc.seed + 1,
                        cal_factor_error_db=desc.power_meter.cal_factor_error,
                        relative_noise=desc.power_meter.noise,
                        zero_offset_dbm=desc.power_meter.zero_offset,

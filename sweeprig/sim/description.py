@@ -37,6 +37,7 @@ optional; the values shown are the defaults)::
     harmonics = ["-35 dBc", "-45 dBc"]
     # non-harmonic spurious lines at carrier + offset (an assumption: reference-related spurs)
     spurious = [{ offset = "10 MHz", level = "-72 dBc" }, { offset = "-10 MHz", level = "-72 dBc" }]
+    family = "tarnwick"          # their command set: "tarnwick" (TW-SG6) or "farrowmere" (FR-SG8)
 
     [sources.lowpass]            # optional low-pass filter at a source output (none by default)
     # rf = { corner = "3 GHz", order = 7 }   # Butterworth, -3 dB at corner; also rf2, lo
@@ -62,6 +63,7 @@ optional; the values shown are the defaults)::
     # zero_offset = "-40 dBm"    # a sensor not zeroed: this power is added to every reading
     zero_holds = true            # zeroing (CAL:ZERO) removes that offset (false: a faulty sensor)
     range_max = "20 dBm"         # above it a reading is not a number (a low-power sensor: lower)
+    family = "tarnwick"          # its command set: "tarnwick" (TW-PM18) or "farrowmere" (FR-PM4)
     offset = "0 dB"              # a display offset left set in the meter, added to every reading
     # the sensor's calibration factor itself (sweeprig.sim.instruments.powermeter) is always
     # there, as on a real sensor: the bench file's [sensor] table corrects it
@@ -268,6 +270,9 @@ class SourcesSpec(Frozen):
     harmonics: tuple[LevelDb, ...] = (-35.0, -45.0)
     spurious: tuple[SpurSpec, ...] = DEFAULT_SPURIOUS
     lowpass: SourceFiltersSpec = SourceFiltersSpec()
+    #: Their command set: "tarnwick" (TW-SG6) or "farrowmere" (FR-SG8: settings applied late
+    #: unless synchronised, on its own crystal unless the bench locks it; docs/instruments.md).
+    family: Literal["tarnwick", "farrowmere"] = "tarnwick"
 
 
 class PhaseNoisePointSpec(Frozen):
@@ -330,6 +335,9 @@ class PowerMeterSpec(Frozen):
     range_max: Power = 20.0
     #: A display offset left set in the meter: added to every reading.
     offset: LevelDb = 0.0
+    #: Its command set: "tarnwick" (TW-PM18) or "farrowmere" (FR-PM4: refuses readings until
+    #: zeroed; docs/instruments.md).
+    family: Literal["tarnwick", "farrowmere"] = "tarnwick"
 
 
 class ChamberSpec(Frozen):

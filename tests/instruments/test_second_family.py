@@ -83,13 +83,24 @@ def test_its_binary_trace_is_little_endian_and_read_so(farrowmere) -> None:
         rm.close()
 
 
+def _whole_family(name: str) -> SimBenchDescription:
+    """Every instrument that has a second family (analyzer, sources, power meter) of it."""
+    base = _family(name)
+    return base.model_copy(update={
+        "sources": base.sources.model_copy(update={"family": name}),
+        "power_meter": base.power_meter.model_copy(update={"family": name})})
+
+
 def _quick_figures(tmp_path: Path, family: str) -> dict[str, list[tuple[float, float]]]:
-    description = _family(family)
+    description = _whole_family(family)
     with start_sim_bench(description, clock=VirtualClock()) as sim:
-        text = served_bench_text(sim.resources)
+        # the served bench file with the family's profiles and [timebase] (its sources run on
+        # their own crystals unless the bench file locks them)
+        text = served_bench_text(sim.resources, description)
         if family == "farrowmere":
-            text = text.replace('profile = "scpi-analyzer"', 'profile = "fr-sa20"')
-            assert 'profile = "fr-sa20"' in text
+            for profile in ("fr-sa20", "fr-sg8", "fr-pm4"):
+                assert f'profile = "{profile}"' in text
+            assert "[timebase]" in text
         bench = tmp_path / f"bench-{family}.toml"
         bench.write_text(text, encoding="utf-8")
         store = tmp_path / f"{family}.sqlite"
@@ -101,7 +112,8 @@ def _quick_figures(tmp_path: Path, family: str) -> dict[str, list[tuple[float, f
             for name in ("conversion_gain", "iip3")}
 
 
-def test_the_quick_demo_gives_the_same_figures_on_both_families(tmp_path: Path) -> None:
+def test_the_quick_demo_gives_the_same_figures_on_a_whole_second_family_bench(
+        tmp_path: Path) -> None:
     first = _quick_figures(tmp_path, "tarnwick")
     second = _quick_figures(tmp_path, "farrowmere")
     assert first["conversion_gain"] and first["iip3"]
@@ -152,3 +164,99 @@ def test_run_sim_on_the_second_family_takes_its_profile(tmp_path: Path) -> None:
     with SqliteRunStore(tmp_path / "s.sqlite", create=False) as s:
         sa = [i for i in s.run(outcome.run_id).instruments if i.role == "sa"]
     assert sa and sa[0].idn.startswith("Farrowmere Instruments,FR-SA20,")
+
+
+@pytest.fixture(scope="module")
+def whole_farrowmere():
+    with start_sim_bench(_whole_family("farrowmere"), clock=VirtualClock()) as bench:
+        yield bench
+
+
+@pytest.mark.parametrize(("role", "profile", "model"), [
+    ("lo", "fr-sg8", "FR-SG8"), ("pm", "fr-pm4", "FR-PM4")])
+def test_its_source_and_meter_pass_the_probe_with_their_profiles(
+        whole_farrowmere, role: str, profile: str, model: str) -> None:
+    # the driver polls for completion on the bench's own (virtual) clock
+    report = run_probe(whole_farrowmere.resources[role], profile, timeout_s=2.0,
+                       clock=whole_farrowmere.clock)
+    assert report.idn is not None and f"Farrowmere Instruments,{model}," in report.idn
+    assert report.counts()["fail"] == 0, [s for s in report.steps if s.result != "ok"]
+
+
+def test_the_generic_source_profile_fails_loudly_on_it(whole_farrowmere) -> None:
+    report = run_probe(whole_farrowmere.resources["rf"], "scpi-source", timeout_s=0.5)
+    failed = {s.op: s for s in report.failed}
+    # no :CW and no :IMMediate node (SCPI-99 -113 undefined header)
+    assert {"frequency", "power"} <= set(failed)
+    assert failed["frequency"].errors[0].startswith("-113")
+
+
+def test_its_source_applies_a_setting_late_unless_synchronised(whole_farrowmere) -> None:
+    """Over pyvisa: the query answers the new frequency at once, the output keeps the old one
+    while OPERation bit 1 (SCPI-99 SETTling) is set; *OPC then *ESR? bit 0 (IEEE 488.2-1992,
+    10.18; from memory) is set only once the output has it."""
+    import pyvisa
+
+    clock = whole_farrowmere.clock
+    source = whole_farrowmere.instruments["rf2"]
+    rm = pyvisa.ResourceManager("@py")
+    inst = rm.open_resource(whole_farrowmere.resources["rf2"], read_termination="\n",
+                            write_termination="\n", timeout=2000)
+    try:
+        inst.write("*RST;*CLS")
+        inst.write("SOUR:FREQ 2.5E9")
+        assert float(inst.query("SOUR:FREQ?")) == 2.5e9
+        assert source.freq_hz == 1e9  # still the power-on frequency at the output
+        assert int(inst.query("STAT:OPER:COND?")) & 2
+        inst.write("*OPC")
+        assert not int(inst.query("*ESR?")) & 1
+        clock.sleep(0.05)
+        assert int(inst.query("*ESR?")) & 1
+        assert source.freq_hz == 2.5e9 and int(inst.query("STAT:OPER:COND?")) == 0
+        assert inst.query("SYST:ERR?").startswith("0,")
+    finally:
+        inst.close()
+        rm.close()
+
+
+def test_the_probe_on_a_served_bench_file_waits_on_the_simulators_clock(
+        whole_farrowmere, tmp_path: Path) -> None:
+    """``sweeprig probe RESOURCE --bench FILE`` on a bench served by the simulator: the meter's
+    4 s zeroing, completed by event-status polling, ends in simulated time (the bench file's
+    simctl role gives the clock) instead of polling a frozen simulator until the timeout."""
+    import time
+
+    bench = tmp_path / "served.toml"
+    bench.write_text(served_bench_text(whole_farrowmere.resources,
+                                       _whole_family("farrowmere")), encoding="utf-8")
+    started = time.monotonic()
+    report = run_probe(whole_farrowmere.resources["pm"], "fr-pm4", bench_path=bench,
+                       timeout_s=2.0)
+    assert report.counts()["fail"] == 0, [s for s in report.steps if s.result != "ok"]
+    assert time.monotonic() - started < 30.0  # the zero's own timeout is 60 s
+
+
+def test_its_sweeps_are_slower_and_it_says_so(farrowmere) -> None:
+    """``SWEep:TIME?`` over pyvisa: 1.6 times the receiver's k·span/RBW² (the TW-SA13's), and
+    a sweep holds ``*OPC?`` that long in simulated time."""
+    import pyvisa
+
+    from sweeprig.sim.analyzer_display import sweep_time_s
+    from sweeprig.sim.instruments.analyzer_fr import SWEEP_TIME_SCALE_FR
+
+    analyzer = farrowmere.instruments["sa"]
+    rm = pyvisa.ResourceManager("@py")
+    inst = rm.open_resource(farrowmere.resources["sa"], read_termination="\n",
+                            write_termination="\n", timeout=2000)
+    try:
+        inst.write("*RST;:INIT:CONT OFF;:FREQ:SPAN 1E6;:BWID 1E3")
+        stated = float(inst.query("SWE:TIME?"))
+        assert stated == pytest.approx(SWEEP_TIME_SCALE_FR
+                                       * sweep_time_s(analyzer.sweep_settings()), rel=1e-6)
+        t0 = farrowmere.clock.now()
+        inst.write("INIT:IMM")
+        assert inst.query("*OPC?").strip() == "1"
+        assert farrowmere.clock.now() - t0 == pytest.approx(stated, rel=1e-3)
+    finally:
+        inst.close()
+        rm.close()

@@ -93,6 +93,11 @@ def test_print_unlocked_references_against_locked(tmp_path: Path) -> None:
     sweeps = unlocked["sweep_s"] / max(locked["sweep_s"], 1e-9) - 1.0  # type: ignore[operator]
     print(f"  unlocked vs locked: bench time {100 * slower:+.1f} %, summed sweep time "
           f"{100 * sweeps:+.1f} %")
+    share = len(found) / max(len(present), 1)
+    print(f"  issue figures: 100 % found: {'met' if share == 1.0 else 'MISSED'} "
+          f"({100.0 * share:.1f} %); 0 wrong readings: {'met' if not wrong else 'MISSED'} "
+          f"({len(wrong)}); at most 20 % slower than locked: "
+          f"{'met' if slower <= 0.20 else 'MISSED'} ({100 * slower:+.1f} % bench time)")
     aimed = sum(1 for v in ur.values() if v[4].get("aimed"))
     print(f"  unlocked searches aimed from earlier finds: {aimed} of {len(ur)}")
     for k in [k for k in clear if k not in found][:8]:

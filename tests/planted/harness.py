@@ -5,6 +5,8 @@ A case is a folder under ``tests/planted/cases/`` with
 * ``sequence.toml``: the sequence (small: a case should take a few seconds);
 * ``sim-bench.toml`` (optional): the simulated-bench description that plants the trouble
   (default: :data:`CLEAN_BENCH`, the shipped bench without source level error or harmonics);
+* ``bench-extra.toml`` (optional): tables appended to the built-in simulated bench file (a
+  ``[timebase]`` that states references the simulated bench does not keep, say);
 * ``expect.toml``: what must happen (see :class:`Expectation`).
 
 Every power the engine sets or reads is referred to the DUT's port planes through the built-in
@@ -42,7 +44,7 @@ import pandas as pd
 
 from sweeprig.analysis.figures import Figure
 from sweeprig.analysis.reduce import RunFigures, reduce_run
-from sweeprig.engine.session import run_sequence
+from sweeprig.engine.session import run_sequence, served_bench_text
 from sweeprig.errors import SweeprigError
 from sweeprig.sim.bench import load_sim_bench_description, prepare_part
 from sweeprig.sim.mixer import OperatingPoint, ToneInput, reference_figures
@@ -143,6 +145,11 @@ class Case:
         return self.folder / "sequence.toml"
 
     @property
+    def bench_extra(self) -> Path | None:
+        extra = self.folder / "bench-extra.toml"
+        return extra if extra.is_file() else None
+
+    @property
     def sim_bench(self) -> Path:
         own = self.folder / "sim-bench.toml"
         return own if own.is_file() else CLEAN_BENCH
@@ -170,8 +177,16 @@ def cases() -> list[Case]:
 def run_case(case: Case, workdir: Path) -> CaseResult:
     """Run ``case`` on its simulated bench into a store in ``workdir``; reduce it."""
     store_path = workdir / "planted.sqlite"
+    bench = None
+    if case.bench_extra is not None:
+        # the built-in simulated bench file (its stated figures the case's bench's, as a run
+        # --sim states them) plus the case's tables
+        text = served_bench_text({}, load_sim_bench_description(case.sim_bench))
+        bench = workdir / "bench.toml"
+        bench.write_text(text + "\n" + case.bench_extra.read_text(encoding="utf-8"),
+                         encoding="utf-8")
     try:
-        outcome = run_sequence(case.sequence, sim=True, sim_description=case.sim_bench,
+        outcome = run_sequence(case.sequence, bench, sim=True, sim_description=case.sim_bench,
                                store_path=store_path, log_dir=workdir)
     except SweeprigError as exc:
         return CaseResult(case, refusal=exc)

@@ -102,6 +102,9 @@ class AnalyzerDialect:
     #: Whether ``FORMat:BORDer`` exists (else binary traces keep one byte order).
     byte_order: bool = True
     trace: str = "TRACe[:DATA]"
+    #: Its sweep time over the receiver's k·span/RBW² (a slower sweep: more settling per
+    #: frequency step); ``SWEep:TIME?`` answers it, so a controller that asks waits right.
+    sweep_time_scale: float = 1.0
 
 
 class SpectrumAnalyzer(ScpiInstrument):
@@ -326,13 +329,15 @@ class SpectrumAnalyzer(ScpiInstrument):
     # ------------------------------------------------------------------ handlers
     def _sweep_time_query(self, cmd: Command) -> str:
         cmd.no_params()
-        return format_number(sweep_time_s(self.sweep_settings()))
+        return format_number(self.dialect.sweep_time_scale
+                             * sweep_time_s(self.sweep_settings()))
 
     def _initiate(self, cmd: Command) -> None:
         cmd.no_params()
         settings = self.sweep_settings()
         self.sweep_now()
-        self.start_operation(total_sweep_time_s(settings), operation_bit=OPER_SWEEPING)
+        self.start_operation(self.dialect.sweep_time_scale * total_sweep_time_s(settings),
+                             operation_bit=OPER_SWEEPING)
 
     def _current_sweep(self) -> SweepResult:
         """The trace to read: the last sweep. In continuous mode a fresh one when the last is
@@ -343,7 +348,8 @@ class SpectrumAnalyzer(ScpiInstrument):
             return self.sweep_now()
         if self.value("continuous"):
             age = self.clock.now() - self._last_time_s
-            if age >= last.sweep_time_s or self._last_settings != self.sweep_settings():
+            if age >= self.dialect.sweep_time_scale * last.sweep_time_s or \
+                    self._last_settings != self.sweep_settings():
                 return self.sweep_now()
         return last
 

@@ -19,7 +19,9 @@ memory):
 * overload and uncalibrated are reported in the questionable register's instrument-defined
   bits 10 (1024) and 11 (2048), not in SCPI-99's POWer (3) and CALibration (8) bits; the
   reference's FREQuency bit stays bit 5;
-* the noise-source drive is ``[SOURce]:NOISe[:STATe]``.
+* the noise-source drive is ``[SOURce]:NOISe[:STATe]``;
+* its sweeps are slower: 1.6 times the TW-SA13's for the same span, RBW and VBW
+  (``SWEep:TIME?`` says so).
 """
 
 from __future__ import annotations
@@ -36,6 +38,8 @@ MAKER = "Farrowmere Instruments"
 MODEL = "FR-SA20"
 #: Instrument-defined questionable bits of this family (SCPI-99 leaves bits 9 to 13 to the
 #: instrument): input overload in the last sweep, and uncalibrated (reference level too low).
+#: Its sweeps take this many times the TW-SA13's for the same settings (invented).
+SWEEP_TIME_SCALE_FR = 1.6
 QUES_OVERLOAD_FR = 1 << 10
 QUES_UNCALIBRATED_FR = 1 << 11
 
@@ -60,6 +64,7 @@ class FarrowmereAnalyzer(SpectrumAnalyzer):
         format_default="REAL,32",
         byte_order=False,
         trace="TRACe[1-3][:DATA]",
+        sweep_time_scale=SWEEP_TIME_SCALE_FR,
     )
 
     def questionable_condition(self) -> int:

@@ -60,7 +60,13 @@ def _no_signal() -> float:
 
 
 class PowerMeter(ScpiInstrument):
-    """TW-PM18 power meter. Power-on: 1 GHz calibration frequency, 4 averages, dBm."""
+    """TW-PM18 power meter. Power-on: 1 GHz calibration frequency, 4 averages, dBm.
+
+    A subclass serving another command set names its own ``maker`` and ``model`` and
+    overrides :meth:`_register_measure`."""
+
+    maker = "Tarnwick Labs"
+    model = "TW-PM18"
 
     def __init__(
         self,
@@ -76,7 +82,7 @@ class PowerMeter(ScpiInstrument):
         range_max_dbm: float = RANGE_MAX_DBM,
         reading_offset_db: float = 0.0,
     ) -> None:
-        super().__init__(clock, Identity("Tarnwick Labs", "TW-PM18", serial, "1.0"))
+        super().__init__(clock, Identity(self.maker, self.model, serial, "1.0"))
         self.sense = sense
         self.cal_factor_error_db = float(cal_factor_error_db)
         self.relative_noise = float(relative_noise)
@@ -92,10 +98,14 @@ class PowerMeter(ScpiInstrument):
         self.add_setting(Setting("average_count", "[SENSe]:AVERage:COUNt", "int", 4,
                                  minimum=1, maximum=1024))
         self.add_setting(Setting("unit", "UNIT:POWer", "enum", "DBM", choices=("DBM", "W")))
+        self._register_measure()
+        self.add_command("CALibration:ZERO:STATe", query=self._zero_state)
+
+    def _register_measure(self) -> None:
+        """The reading and zeroing commands of this family."""
         self.add_command("MEASure[:SCALar][:POWer][:AC]", query=self._measure)
         self.add_command("READ", query=self._measure)
         self.add_command("CALibration:ZERO[:IMMediate]", write=self._zero)
-        self.add_command("CALibration:ZERO:STATe", query=self._zero_state)
 
     def read_dbm(self) -> float:
         """One reading, dBm (clock advanced, noise drawn); NaN above the range."""
@@ -130,6 +140,10 @@ class PowerMeter(ScpiInstrument):
         """Zero the sensor: refused (error −200, state 0) with a signal at it; a sensor whose
         zeroing does not take (``zero_holds`` false) keeps its offset and reports success."""
         cmd.no_params()
+        self.zero_sensor()
+
+    def zero_sensor(self) -> None:
+        """Zero the sensor now (see :meth:`_zero`); the clock advances by the zeroing time."""
         with self.lock:
             self.clock.sleep(ZERO_TIME_S)
             self.zeroings += 1

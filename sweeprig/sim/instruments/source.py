@@ -63,7 +63,15 @@ def no_level_error_db(freq_hz: float) -> float:
 
 
 class SignalSource(ScpiInstrument):
-    """TW-SG6 CW signal source. Power-on: 1 GHz, −30 dBm, output OFF."""
+    """TW-SG6 CW signal source. Power-on: 1 GHz, −30 dBm, output OFF.
+
+    A subclass serving another command set (another family) names its own ``maker``,
+    ``model`` and headers (the class attributes below)."""
+
+    maker = "Tarnwick Labs"
+    model = "TW-SG6"
+    frequency_header = "[SOURce]:FREQuency[:CW|:FIXed]"
+    power_header = "[SOURce]:POWer[:LEVel][:IMMediate][:AMPLitude]"
 
     def __init__(
         self,
@@ -76,7 +84,7 @@ class SignalSource(ScpiInstrument):
         level_linearity_db: float = 0.0,
         reference: ReferenceOscillator | None = None,
     ) -> None:
-        super().__init__(clock, Identity("Tarnwick Labs", "TW-SG6", serial, "1.0"))
+        super().__init__(clock, Identity(self.maker, self.model, serial, "1.0"))
         self.reference = reference or ReferenceOscillator()
         self.reference.install(self, "[SOURce]:ROSCillator:SOURce")
         self.level_error_db = level_error_db
@@ -84,11 +92,11 @@ class SignalSource(ScpiInstrument):
         self._harmonics_dbc = tuple(float(h) for h in harmonics_dbc)
         self._spurious = tuple((float(o), float(d)) for o, d in spurious)
         self.add_setting(Setting(
-            "freq_hz", "[SOURce]:FREQuency[:CW|:FIXed]", "float", FREQ_DEFAULT_HZ,
+            "freq_hz", self.frequency_header, "float", FREQ_DEFAULT_HZ,
             unit="frequency", minimum=FREQ_MIN_HZ, maximum=FREQ_MAX_HZ, on_change=self._settle,
         ))
         self.add_setting(Setting(
-            "power_dbm", "[SOURce]:POWer[:LEVel][:IMMediate][:AMPLitude]", "float",
+            "power_dbm", self.power_header, "float",
             POWER_DEFAULT_DBM, unit="power", minimum=POWER_MIN_DBM, maximum=POWER_MAX_DBM,
             on_change=self._settle,
             caution="caution: check the DUT's maximum input level before raising it",

@@ -25,6 +25,7 @@ STANDARD_TEXTS: dict[int, str] = {
     -221: "Settings conflict",
     -222: "Data out of range",
     -224: "Illegal parameter value",
+    -230: "Data corrupt or stale",
     -350: "Queue overflow",
     -410: "Query INTERRUPTED",
 }
