@@ -14,7 +14,7 @@ simulator's own state is the judge:
 Two ways to reach the instruments: through real pyvisa to the simulated instruments served
 on loopback sockets (a short I/O timeout keeps hung instruments cheap), and through a narrow
 in-process transport that applies the same fault machinery to each message (fast enough
-for a thousand trials). The default suite runs 50 in-process and 10 served trials; the full
+for a thousand trials). The default suite runs 50 in-process and 6 served trials; the full
 1,000 of each kind run with ``pytest -m soak``, and print their figures with ``-s``.
 """
 
@@ -253,7 +253,7 @@ def test_random_safe_state_faults_never_give_a_false_safe_in_process():
 
 
 def test_random_safe_state_faults_never_give_a_false_safe_served():
-    trials(run_served, range(1000, 1010), "served", both_outcomes=False)
+    trials(run_served, range(1000, 1006), "served", both_outcomes=False)
 
 
 @pytest.mark.soak
