@@ -17,13 +17,16 @@ Confidence intervals: the standard least-squares covariance from the Jacobian at
 solution, ``cov = s²·(JᵀJ)⁻¹`` with ``s² = Σr²/(m − n)`` (Press, Teukolsky, Vetterling &
 Flannery, Numerical Recipes, 3rd ed., §15.4–15.5: the covariance of the fitted parameters
 of a linearised model, errors scaled by the fit's own residual variance), and 95 % intervals
-``θ ± t(0.975, m − n)·σ_θ`` (Student's t: same chapter, §15.6). Parameters fitted in log10
+``θ ± t(0.975, ν)·σ_θ`` (Student's t: same chapter, §15.6), ν = m − n, or, where the
+bench-level terms below are part of σ_θ, the Welch–Satterthwaite effective degrees of
+freedom (:func:`effective_dof`). Parameters fitted in log10
 space get intervals there, so they are asymmetric in SI. A parameter that ends on a bound has
 no such interval (the linearisation does not hold at a bound): it is reported as at the
 bound. The intervals cover the scatter the run's own residuals show and, for the core, the
 bench's level errors of :data:`BENCH_LEVEL_U_DB` each, which no residual shows
-(:func:`_with_bench_levels`); a larger bias common to every figure (an uncalibrated path
-loss) is not in them.
+(:func:`_with_bench_levels`), and for the noise figure the LO level's and the noise
+source ENR's; a larger bias common to every figure (an uncalibrated path loss) is not in
+them.
 """
 
 from __future__ import annotations
@@ -58,21 +61,28 @@ _CI_LEVEL = 0.95
 #: show, dB: the RF and LO source levels at the DUT ports and the output path to the analyzer.
 #: The simulated bench's source level error lies within ±0.15 dB (rectangular: u = 0.15/√3 =
 #: 0.087 dB, JCGM 100:2008 (GUM) §4.3.7); 0.1 dB stands for a bench whose path losses were
-#: calibrated (common practice, no source). See :func:`_with_bench_levels`.
+#: calibrated (common practice, no source). It stands for the noise source's ENR too (an ENR
+#: table is stated to about 0.1 to 0.2 dB: from memory, no source). See
+#: :func:`_with_bench_levels`.
 BENCH_LEVEL_U_DB = 0.1
-_LEVEL_STEP_DB = 0.1
+_LEVEL_STEP_DB = 0.1  # finite-difference step of a level error, dB
 #: A parameter with at least this share of its variance from the bench's level errors, or
 #: this correlation with another, is reported as weakly identified: the run alone does not
 #: pin it, and a bench error shaped otherwise than a constant level offset (one that changes
 #: with frequency) can move it past its interval (seen on the full demo run for the LO port
 #: resistance and the RF high-pass corner). Thresholds: common practice, no source.
 WEAK_LEVEL_SHARE = 0.5
-WEAK_CORRELATION = 0.95  # finite-difference step of a level error, dB
+WEAK_CORRELATION = 0.95
 #: Figures read as output − input (an input level error δ reads them δ high; an output one too).
 _GAIN_FIGURES = frozenset({"conversion_gain", "lo_drive_gain", "compression_gain"})
 #: Figures read as input levels (an input level error δ reads them δ low).
 _INPUT_REFERRED = frozenset({"input_p1db", "iip3_point_low", "iip3_point_high",
                              "iip2_point_low", "iip2_point_high"})
+#: Figures read against the noise source's ENR (Y-factor): ``F = ENR/(Y − 1)`` when the cold
+#: temperature is T0 (field notes, Y-factor), so ``NF_dB = ENR_dB − 10·log10(Y − 1)`` and an
+#: ENR error δ reads them δ high. The bench's ENR is one more level it cannot show, of
+#: :data:`BENCH_LEVEL_U_DB` like the others.
+_ENR_REFERRED = frozenset({"noise_figure"})
 #: Solver tolerances (relative change of cost, step and gradient): 1e-6 of a cost of order
 #: the figure count moves no figure by a thousandth of its scale; scipy's default 1e-8 only
 #: adds iterations (each a full model pass) here.
@@ -184,13 +194,17 @@ def fit_twin(template: MixerPart, obs: ObservationSet) -> TwinFit:
         stage = _fit_stage(part, group_free, group_obs)
         # the core's own uncertainty moves this group's estimate too: add it
         stage = _propagate(stage, core, group_obs)
+        if group == "noise_figure":  # read through the LO level and the ENR: add them
+            stage = _with_bench_levels(stage, group_obs)
         part = stage.part
         stages.append(stage)
     fitted = []
     for stage in stages:
         for i, p in enumerate(stage.free):
+            level_var = 0.0 if stage.level_cov is None else float(stage.level_cov[i, i])
             fitted.append(_with_identification(
-                _fitted(p, float(stage.x[i]), stage.cov[i, i], stage.dof, p.get(template)),
+                _fitted(p, float(stage.x[i]), stage.cov[i, i], stage.dof, p.get(template),
+                        level_var=level_var),
                 stage, i))
     m = len(obs.observations)
     total_cost = sum(st.cost for st in stages)
@@ -246,15 +260,21 @@ def _with_bench_levels(stage: _Stage, observations: Sequence[Observation],
     moved by the error (RF: ``rf_power_dbm`` and ``rf2_power_dbm``; LO: ``lo_power_dbm``),
     plus how the figure is read (a gain is read as output − the nominal input, so an RF
     error reads it δ high; an input-referred figure, δ low; an output error moves a gain
-    only). Found on the full demo run: without it the tail current's and the LO port
-    resistance's 95 % intervals missed the truth by several widths (a ±0.15 dB source
-    level error the fit could not see).
+    only; the noise source's ENR moves a Y-factor noise figure by δ, see
+    :data:`_ENR_REFERRED`, and nothing else). Found on the full demo run: without it the
+    tail current's and the LO port resistance's 95 % intervals missed the truth by several
+    widths (a ±0.15 dB source level error the fit could not see).
+
+    Applied to the core stage and to the noise-figure stage (whose figures the LO level
+    moves through the model and the ENR directly); each stage's terms are added on their
+    own, the correlation a shared LO error makes between the two stages is not carried.
     """
     if not stage.free or u_db <= 0.0 or not np.all(np.isfinite(stage.cov)):
         return stage
     scale = np.array([o.scale for o in observations])
     gain = np.array([o.name in _GAIN_FIGURES for o in observations], dtype=float)
     input_referred = np.array([o.name in _INPUT_REFERRED for o in observations], dtype=float)
+    enr = np.array([o.name in _ENR_REFERRED for o in observations], dtype=float)
     base = model_figures(stage.part, observations)
 
     def moved(keys: tuple[str, ...]) -> np.ndarray:
@@ -268,6 +288,7 @@ def _with_bench_levels(stage: _Stage, observations: Sequence[Observation],
         moved(("rf_power_dbm", "rf2_power_dbm")) + gain - input_referred,  # RF source
         moved(("lo_power_dbm",)),  # LO source
         gain,  # output path
+        enr,  # noise source's ENR (zero for every figure but a noise figure)
     )
     jac = stage.jac
     try:
@@ -276,6 +297,8 @@ def _with_bench_levels(stage: _Stage, observations: Sequence[Observation],
         return stage
     extra = np.zeros_like(stage.cov)
     for d in directions:
+        if not np.any(d):
+            continue
         g = solve @ (d / scale)
         extra += u_db * u_db * np.outer(g, g)
     return replace(stage, cov=stage.cov + extra, level_cov=extra)
@@ -314,12 +337,29 @@ def _propagate(stage: _Stage, core: _Stage, observations: Sequence[Observation])
                   stage.jac, stage.converged)
 
 
+def effective_dof(var: float, level_var: float, dof: int) -> float:
+    """Welch–Satterthwaite effective degrees of freedom (JCGM 100:2008 (GUM) G.4.1,
+    ``ν_eff = u_c⁴ / Σ u_i⁴/ν_i``) of a variance ``var`` of which ``level_var`` is the bench
+    levels' (a Type B term of stated u: ν = ∞) and the rest the fit's own scatter (ν =
+    ``dof``): ``ν_eff = dof·(var/(var − level_var))²``; infinite when the scatter adds
+    nothing. Without it a fit with few degrees of freedom would stretch a known 0.1 dB
+    level term by Student's t of those few (12.7 at one)."""
+    scatter = var - level_var
+    if level_var <= 0.0 or dof <= 0:
+        return float(dof)
+    if scatter <= 0.0:
+        return math.inf
+    return dof * (var / scatter) ** 2
+
+
 def _fitted(p: FitParameter, x: float, var: float, dof: int,
-            start: float | None) -> FittedParameter:
+            start: float | None, *, level_var: float = 0.0) -> FittedParameter:
     lo_b, hi_b = p.internal_bounds()
     span = hi_b - lo_b
     at_bound = min(x - lo_b, hi_b - x) <= 1e-3 * max(span, 1e-12)
-    t = float(stats.t.ppf(0.5 + _CI_LEVEL / 2.0, dof)) if dof > 0 else math.nan
+    nu = effective_dof(var, level_var, dof)
+    t = (float(stats.norm.ppf(0.5 + _CI_LEVEL / 2.0)) if math.isinf(nu)
+         else float(stats.t.ppf(0.5 + _CI_LEVEL / 2.0, nu)) if nu > 0 else math.nan)
     half = t * math.sqrt(var) if var >= 0 else math.nan
     low, high = ((math.nan, math.nan) if at_bound or not math.isfinite(half)
                  else (p.to_si(x - half), p.to_si(x + half)))
@@ -333,7 +373,7 @@ def _with_identification(fp: FittedParameter, stage: _Stage, i: int) -> FittedPa
     var = float(cov[i, i])
     if not (math.isfinite(var) and var > 0.0):
         return fp
-    if stage.level_cov is None:  # a later stage: a path's level and its slope trade off
+    if stage.level_cov is None:  # a leakage stage: a path's level and its slope trade off
         return fp  # about the reference frequency by construction, which says nothing
     share = min(max(float(stage.level_cov[i, i]) / var, 0.0), 1.0)
     partner, rho = "", 0.0
