@@ -65,6 +65,15 @@ _CI_LEVEL = 0.95
 #: table is stated to about 0.1 to 0.2 dB: from memory, no source). See
 #: :func:`_with_bench_levels`.
 BENCH_LEVEL_U_DB = 0.1
+#: Standard uncertainty (k = 1) of the part of each source's level error that changes with
+#: frequency, dB, taken as independent between the run's distinct source frequencies (a
+#: ripple over a few hundred MHz, as the simulated sources' ±0.15 dB one, u = 0.087 dB by
+#: GUM §4.3.7; a calibrated bench's residual ripple likewise: common practice, no source).
+#: A constant offset alone cannot bend the gain across the band or the LO-drive curve;
+#: this term can, which is what moved the LO port resistance and the RF high-pass corner
+#: past their intervals on the full demo run (clean bench, sources' ripple on). See
+#: :func:`_with_bench_levels`.
+BENCH_RIPPLE_U_DB = 0.1
 _LEVEL_STEP_DB = 0.1  # finite-difference step of a level error, dB
 #: A parameter with at least this share of its variance from the bench's level errors, or
 #: this correlation with another, is reported as weakly identified: the run alone does not
@@ -160,11 +169,15 @@ class TwinFit:
         raise KeyError(key)
 
 
-def fit_twin(template: MixerPart, obs: ObservationSet) -> TwinFit:
+def fit_twin(template: MixerPart, obs: ObservationSet, *,
+             ripple_u_db: float = BENCH_RIPPLE_U_DB) -> TwinFit:
     """Fit ``template``'s constrained parameters to ``obs`` (see the module docstring).
 
     ``template`` should carry the leakage phases of the bench the twin will be served on
     (:func:`sweeprig.sim.bench.prepare_part`), so that leakage adds as it will there.
+    ``ripple_u_db``: the sources' level error that changes with frequency, dB (k = 1;
+    :data:`BENCH_RIPPLE_U_DB`), 0 for a run whose sources were calibrated at its
+    frequencies and levels (the calibration measured that error and took it out).
     """
     params = catalogue(template, obs)
     free = tuple(p for p in params if p.needs(obs) is None)
@@ -185,7 +198,7 @@ def fit_twin(template: MixerPart, obs: ObservationSet) -> TwinFit:
         if best is None or stage.cost < best[0]:
             best = (stage.cost, stage)
     assert best is not None
-    core = _with_bench_levels(best[1], core_obs)
+    core = _with_bench_levels(best[1], core_obs, ripple_u_db=ripple_u_db)
     part = core.part
     stages = [core]
     for group in dict.fromkeys(p.group for p in free if p.group != "core"):
@@ -195,7 +208,7 @@ def fit_twin(template: MixerPart, obs: ObservationSet) -> TwinFit:
         # the core's own uncertainty moves this group's estimate too: add it
         stage = _propagate(stage, core, group_obs)
         if group == "noise_figure":  # read through the LO level and the ENR: add them
-            stage = _with_bench_levels(stage, group_obs)
+            stage = _with_bench_levels(stage, group_obs, ripple_u_db=ripple_u_db)
         part = stage.part
         stages.append(stage)
     fitted = []
@@ -247,7 +260,8 @@ def _fit_stage(base: MixerPart, free: tuple[FitParameter, ...],
 
 
 def _with_bench_levels(stage: _Stage, observations: Sequence[Observation],
-                       u_db: float = BENCH_LEVEL_U_DB) -> _Stage:
+                       u_db: float = BENCH_LEVEL_U_DB, *,
+                       ripple_u_db: float = BENCH_RIPPLE_U_DB) -> _Stage:
     """Add to a stage's covariance what the bench's level errors do to its estimate.
 
     A level error common to every figure (the RF source's, the LO source's, the output
@@ -264,6 +278,12 @@ def _with_bench_levels(stage: _Stage, observations: Sequence[Observation],
     :data:`_ENR_REFERRED`, and nothing else). Found on the full demo run: without it the
     tail current's and the LO port resistance's 95 % intervals missed the truth by several
     widths (a ±0.15 dB source level error the fit could not see).
+
+    Each source's error also has a part that changes with frequency (``ripple_u_db``): one
+    more input per distinct frequency of that source (RF: ``rf_freq_hz``, LO:
+    ``lo_freq_hz``), independent of the others, whose direction is the source's own masked
+    to the observations at that frequency (the model at one observation does not depend on
+    another's levels, so no further model pass is needed).
 
     Applied to the core stage and to the noise-figure stage (whose figures the LO level
     moves through the model and the ENR directly); each stage's terms are added on their
@@ -284,23 +304,30 @@ def _with_bench_levels(stage: _Stage, observations: Sequence[Observation],
         d = (model_figures(stage.part, shifted) - base) / _LEVEL_STEP_DB
         return np.where(np.isfinite(d), d, 0.0)
 
-    directions = (
-        moved(("rf_power_dbm", "rf2_power_dbm")) + gain - input_referred,  # RF source
-        moved(("lo_power_dbm",)),  # LO source
-        gain,  # output path
-        enr,  # noise source's ENR (zero for every figure but a noise figure)
-    )
+    rf_source = moved(("rf_power_dbm", "rf2_power_dbm")) + gain - input_referred
+    lo_source = moved(("lo_power_dbm",))
+    directions = [
+        (u_db, rf_source),  # RF source
+        (u_db, lo_source),  # LO source
+        (u_db, gain),  # output path
+        (u_db, enr),  # noise source's ENR (zero for every figure but a noise figure)
+    ]
+    if ripple_u_db > 0.0:
+        for key, source in (("rf_freq_hz", rf_source), ("lo_freq_hz", lo_source)):
+            freqs = np.array([round(o.condition(key), 3) for o in observations])
+            for f in np.unique(freqs[np.isfinite(freqs)]):
+                directions.append((ripple_u_db, np.where(freqs == f, source, 0.0)))
     jac = stage.jac
     try:
         solve = np.linalg.solve(jac.T @ jac, jac.T)
     except np.linalg.LinAlgError:
         return stage
     extra = np.zeros_like(stage.cov)
-    for d in directions:
+    for u, d in directions:
         if not np.any(d):
             continue
         g = solve @ (d / scale)
-        extra += u_db * u_db * np.outer(g, g)
+        extra += u * u * np.outer(g, g)
     return replace(stage, cov=stage.cov + extra, level_cov=extra)
 
 

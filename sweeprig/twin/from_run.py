@@ -13,13 +13,14 @@ from __future__ import annotations
 
 import math
 import tomllib
+from collections.abc import Iterable
 from dataclasses import dataclass
 from pathlib import Path
 from types import MappingProxyType
 from typing import TYPE_CHECKING
 
 from sweeprig.errors import InputError
-from sweeprig.twin.fit import TwinFit, fit_twin
+from sweeprig.twin.fit import BENCH_RIPPLE_U_DB, TwinFit, fit_twin
 from sweeprig.twin.observations import (
     DISQUALIFYING_FLAGS,
     Observation,
@@ -78,6 +79,7 @@ def fit_stored_run(store_path: Path, run_id: int, *, template: str | None = None
     with SqliteRunStore(store_path, create=False) as db:
         info = db.run(run_id)
         run = reduce_run(db, run_id)
+        calibrated = sources_calibrated(db.events(run_id))
     conversion = _stored_conversion(info.sequence_text)
     template = template or default_template(conversion)
     base = load_part(template)
@@ -95,12 +97,24 @@ def fit_stored_run(store_path: Path, run_id: int, *, template: str | None = None
                                              lo_freq_by_point=_lo_freq_by_point(run))
     bench = resolve_description(None if sim_description is None else str(sim_description))
     placed = base.with_changes(leakage_phases=bench.leakage_phases())
-    fit = fit_twin(placed, observations)
+    fit = fit_twin(placed, observations,
+                   ripple_u_db=0.0 if calibrated else BENCH_RIPPLE_U_DB)
     part_id = run.part or f"run {run_id}"
     text = part_file_text(fit, name=name or f"{part_id} twin",
                           source=f"run {run_id} ({part_id}, serial {run.serial or '-'})",
                           template=template)
     return StoredRunTwin(fit, observations, text, run_id, part_id)
+
+
+def sources_calibrated(events: Iterable[object]) -> bool:
+    """True when the run was measured with a calibration of its RF and LO sources (stored
+    with the run, :func:`~sweeprig.analysis.bench_specs.calibration_state`): their level
+    error at the run's frequencies and levels was measured and taken out, so the fit adds
+    no ripple term for it (:data:`~sweeprig.twin.fit.BENCH_RIPPLE_U_DB`)."""
+    from sweeprig.analysis.bench_specs import calibration_state
+
+    state, _note = calibration_state(events)  # type: ignore[arg-type]
+    return {"rf", "lo"} <= set(state.connections)
 
 
 def swept_gains(run: RunFigures) -> tuple[Observation, ...]:
