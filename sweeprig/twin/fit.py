@@ -84,9 +84,13 @@ WEAK_LEVEL_SHARE = 0.5
 WEAK_CORRELATION = 0.95
 #: Figures read as output − input (an input level error δ reads them δ high; an output one too).
 _GAIN_FIGURES = frozenset({"conversion_gain", "lo_drive_gain", "compression_gain"})
-#: Figures read as input levels (an input level error δ reads them δ low).
+#: Figures read as input levels, or against the nominal input level (an input level error δ
+#: reads them δ low): the input-referred points and the input→output feedthrough.
 _INPUT_REFERRED = frozenset({"input_p1db", "iip3_point_low", "iip3_point_high",
-                             "iip2_point_low", "iip2_point_high"})
+                             "iip2_point_low", "iip2_point_high",
+                             "rf_if_isolation", "if_rf_isolation"})
+#: Figures read against the nominal LO level (an LO level error δ reads them δ low).
+_LO_REFERRED = frozenset({"lo_if_isolation", "lo_rf_isolation"})
 #: Figures read against the noise source's ENR (Y-factor): ``F = ENR/(Y − 1)`` when the cold
 #: temperature is T0 (field notes, Y-factor), so ``NF_dB = ENR_dB − 10·log10(Y − 1)`` and an
 #: ENR error δ reads them δ high. The bench's ENR is one more level it cannot show, of
@@ -207,18 +211,27 @@ def fit_twin(template: MixerPart, obs: ObservationSet, *,
         stage = _fit_stage(part, group_free, group_obs)
         # the core's own uncertainty moves this group's estimate too: add it
         stage = _propagate(stage, core, group_obs)
-        if group == "noise_figure":  # read through the LO level and the ENR: add them
+        # its figures are read against the bench's levels too (an isolation against the
+        # nominal LO or RF level and a port's path, a noise figure against the ENR): add
+        # them. Not to the even-order stage: its few IIP2 points scatter by far more than
+        # 0.1 dB, and the level term would only raise its effective degrees of freedom
+        # (:func:`effective_dof`) and narrow an interval whose scatter is not all noise
+        # (the analyzer's own second-order products add to the IM2 line)
+        if group != "even_order":
             stage = _with_bench_levels(stage, group_obs, ripple_u_db=ripple_u_db)
         part = stage.part
         stages.append(stage)
     fitted = []
     for stage in stages:
+        # a leakage path's level and its slope trade off about the reference frequency by
+        # construction, which says nothing: correlations are judged in the other stages
+        correlations = not any(p.key.startswith("isolation.") for p in stage.free)
         for i, p in enumerate(stage.free):
             level_var = 0.0 if stage.level_cov is None else float(stage.level_cov[i, i])
             fitted.append(_with_identification(
                 _fitted(p, float(stage.x[i]), stage.cov[i, i], stage.dof, p.get(template),
                         level_var=level_var),
-                stage, i))
+                stage, i, correlations=correlations))
     m = len(obs.observations)
     total_cost = sum(st.cost for st in stages)
     residual_cost = total_cost + _unfitted_cost(part, obs, stages)
@@ -285,9 +298,11 @@ def _with_bench_levels(stage: _Stage, observations: Sequence[Observation],
     to the observations at that frequency (the model at one observation does not depend on
     another's levels, so no further model pass is needed).
 
-    Applied to the core stage and to the noise-figure stage (whose figures the LO level
-    moves through the model and the ENR directly); each stage's terms are added on their
-    own, the correlation a shared LO error makes between the two stages is not carried.
+    Applied to every stage but the even-order one: the core, and each later one whose
+    figures are read against a level (an isolation against the nominal LO or RF level and
+    its port's path to the analyzer, δ low; a noise figure against the ENR and, through the
+    model, the LO level); the supply current reads none. Each stage's terms are added on
+    their own: the correlation a shared level error makes between stages is not carried.
     """
     if not stage.free or u_db <= 0.0 or not np.all(np.isfinite(stage.cov)):
         return stage
@@ -295,6 +310,13 @@ def _with_bench_levels(stage: _Stage, observations: Sequence[Observation],
     gain = np.array([o.name in _GAIN_FIGURES for o in observations], dtype=float)
     input_referred = np.array([o.name in _INPUT_REFERRED for o in observations], dtype=float)
     enr = np.array([o.name in _ENR_REFERRED for o in observations], dtype=float)
+    lo_referred = np.array([o.name in _LO_REFERRED for o in observations], dtype=float)
+    # an isolation is the nominal level − a line: a path that reads its line δ high reads it
+    # δ low; the line is at the output port, or (the LO back at the input) at the input port
+    at_input = ("lo_rf_isolation" if stage.part.conversion == "down" else "lo_if_isolation")
+    isolation_in = np.array([o.name == at_input for o in observations], dtype=float)
+    isolation_out = np.array([o.name in _LO_REFERRED | {"rf_if_isolation", "if_rf_isolation"}
+                              and o.name != at_input for o in observations], dtype=float)
     base = model_figures(stage.part, observations)
 
     def moved(keys: tuple[str, ...]) -> np.ndarray:
@@ -305,11 +327,12 @@ def _with_bench_levels(stage: _Stage, observations: Sequence[Observation],
         return np.where(np.isfinite(d), d, 0.0)
 
     rf_source = moved(("rf_power_dbm", "rf2_power_dbm")) + gain - input_referred
-    lo_source = moved(("lo_power_dbm",))
+    lo_source = moved(("lo_power_dbm",)) - lo_referred
     directions = [
         (u_db, rf_source),  # RF source
         (u_db, lo_source),  # LO source
-        (u_db, gain),  # output path
+        (u_db, gain - isolation_out),  # output path
+        (u_db, -isolation_in),  # the input port's path to the analyzer (LO leaking back)
         (u_db, enr),  # noise source's ENR (zero for every figure but a noise figure)
     ]
     if ripple_u_db > 0.0:
@@ -394,17 +417,17 @@ def _fitted(p: FitParameter, x: float, var: float, dof: int,
                            at_bound, p.what)
 
 
-def _with_identification(fp: FittedParameter, stage: _Stage, i: int) -> FittedParameter:
-    """``fp`` with its bench-level share and its strongest correlation in the core stage."""
+def _with_identification(fp: FittedParameter, stage: _Stage, i: int, *,
+                         correlations: bool = True) -> FittedParameter:
+    """``fp`` with its bench-level share and (``correlations``) its strongest correlation
+    with another parameter of its stage."""
     cov = stage.cov
     var = float(cov[i, i])
-    if not (math.isfinite(var) and var > 0.0):
+    if not (math.isfinite(var) and var > 0.0) or stage.level_cov is None:
         return fp
-    if stage.level_cov is None:  # a leakage stage: a path's level and its slope trade off
-        return fp  # about the reference frequency by construction, which says nothing
     share = min(max(float(stage.level_cov[i, i]) / var, 0.0), 1.0)
     partner, rho = "", 0.0
-    for j, q in enumerate(stage.free):
+    for j, q in enumerate(stage.free if correlations else ()):
         if j == i or not (math.isfinite(cov[j, j]) and cov[j, j] > 0.0):
             continue
         r = float(cov[i, j] / math.sqrt(var * cov[j, j]))
