@@ -47,9 +47,11 @@ def fit_command(
                                       dir_okay=False, show_default=False)],
     store: Annotated[Path, typer.Option(
         "--store", help="run store (SQLite file)", dir_okay=False)] = DEFAULT_STORE_PATH,
-    template: Annotated[str, typer.Option(
+    template: Annotated[str | None, typer.Option(
         "--template", help="shipped part name or part file whose values the twin keeps "
-        "where the run says nothing")] = "kx-2417",
+        "where the run says nothing, of the run's conversion [default: kx-2417 for a "
+        "downconverter run, kx-5860u for an upconverter run]",
+        show_default=False)] = None,
     name: Annotated[str | None, typer.Option(
         "--name", help="the twin's part name [default: '<part id> twin']",
         show_default=False)] = None,

@@ -111,12 +111,22 @@ def miss_table(rows: Iterable[Miss], title: str) -> str:
     return "\n".join(lines)
 
 
+#: The simulated bench a sequence test runs on unless told otherwise: the nearly error-free
+#: one, so the figures judged are the part's (or its twin's) own. The default simulated bench
+#: carries a real bench's errors (sources up to 1 dB off) that only a calibration removes; a
+#: sequence judged there fails or is inconclusive for the bench's sake, not the sequence's.
+SEQUENCE_SIM_BENCH = "clean"
+
+
 def test_sequence(sequence_path: Path, *, bench_path: Path | None = None,
-                  store_folder: Path | None = None, use_golden: bool = True) -> SequenceVerdict:
+                  store_folder: Path | None = None, use_golden: bool = True,
+                  sim_description: str | Path | None = SEQUENCE_SIM_BENCH) -> SequenceVerdict:
     """Check, pre-flight, run on the simulated bench and judge one sequence.
 
     ``bench_path``: the bench the sequence is meant for (pre-flight only; the run is always
     on the simulated bench, with the sequence's ``[part] sim_part`` or the bench's own part).
+    ``sim_description``: that simulated bench (a shipped name or a sim-bench file; default
+    :data:`SEQUENCE_SIM_BENCH`; ``None``: the default simulated bench, with its errors).
     Raises :class:`~sweeprig.errors.SweeprigError` for a sequence that does not load or that
     the pre-flight refuses, and for a golden-figures file that is wrong (``use_golden``
     False: the golden file is not read, as when it is about to be rewritten).
@@ -128,12 +138,12 @@ def test_sequence(sequence_path: Path, *, bench_path: Path | None = None,
 
     if bench_path is not None:  # the named bench: its limits, its resources, no instrument
         load_run_files(sequence_path, bench_path, sim=False)
-    files = load_run_files(sequence_path, None, sim=True)
+    files = load_run_files(sequence_path, None, sim=True, sim_description=sim_description)
     golden_file = golden_path(sequence_path)
     golden = load_golden(golden_file) if use_golden and golden_file.is_file() else None
     with tempfile.TemporaryDirectory(prefix="sweeprig-seqtest-", dir=store_folder) as folder:
         store = Path(folder) / "run.sqlite"
-        outcome = run_loaded(files, store_path=store)
+        outcome = run_loaded(files, store_path=store, sim_description=sim_description)
         with SqliteRunStore(store, create=False) as db:
             run = reduce_run(db, outcome.run_id)
     notes = list(run.notes)

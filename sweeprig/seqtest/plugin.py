@@ -11,7 +11,10 @@ nothing but a suffix check per file).
 
 Each sequence is one item: static check, pre-flight against the named bench
 (``--sequence-bench`` or the ``sweeprig_sequence_bench`` ini key; default: the simulated
-bench), a run on the simulated bench with the part the sequence names (``[part] sim_part``),
+bench), a run on the simulated bench (``--sequence-sim-bench`` or the
+``sweeprig_sequence_sim_bench`` ini key: a shipped sim-bench name or description file;
+default the nearly error-free ``clean`` one, :data:`~sweeprig.seqtest.judge.
+SEQUENCE_SIM_BENCH`) with the part the sequence names (``[part] sim_part``),
 judged against the sequence's own ``[[spec]]`` limits and its golden figures
 (:mod:`sweeprig.seqtest.golden`). A failure prints a table of the figures that missed and by
 how much. Markers: ``sequence`` on every item, and one per ``[about] tags`` entry
@@ -43,10 +46,16 @@ def pytest_addoption(parser: pytest.Parser) -> None:
     group.addoption("--sequence-bench", metavar="BENCH", default=None,
                     help="bench file the sequences are pre-flighted against (default: the "
                     "simulated bench)")
+    group.addoption("--sequence-sim-bench", metavar="NAME|FILE", default=None,
+                    help="simulated bench the sequences run on: a shipped sim-bench name "
+                    "('clean', 'default') or a sim-bench description file (default: clean, "
+                    "nearly error-free, so the figures judged are the part's own)")
     group.addoption("--sequence-strict", action="store_true", default=False,
                     help="an inconclusive limit check fails the sequence too")
     parser.addini("sweeprig_sequence_bench", "bench file for the sequences' pre-flight "
                   "(relative to the rootdir)", default="")
+    parser.addini("sweeprig_sequence_sim_bench", "simulated bench the sequences run on "
+                  "(shipped name or description file relative to the rootdir)", default="")
 
 
 def pytest_configure(config: pytest.Config) -> None:
@@ -147,13 +156,22 @@ class SequenceItem(pytest.Item):
             bench_path = Path(bench)
             if not bench_path.is_absolute() and not bench_path.exists():
                 bench_path = self.config.rootpath / bench_path
+        from sweeprig.seqtest.judge import SEQUENCE_SIM_BENCH
+
+        sim_bench = self.config.getoption("--sequence-sim-bench") or self.config.getini(
+            "sweeprig_sequence_sim_bench") or SEQUENCE_SIM_BENCH
+        if Path(sim_bench).suffix.lower() == ".toml" and not Path(sim_bench).is_absolute() \
+                and not Path(sim_bench).exists():
+            sim_bench = str(self.config.rootpath / sim_bench)
         try:
-            verdict = test_sequence(self.path, bench_path=bench_path)
+            verdict = test_sequence(self.path, bench_path=bench_path,
+                                    sim_description=sim_bench)
         except SweeprigError as exc:
             raise SequenceRefused(exc.message()) from None
         self.verdict = verdict
         self.user_properties.append(("run_verdict", verdict.run_verdict))
         self.user_properties.append(("sim_part", verdict.sim_part or "(the bench's part)"))
+        self.user_properties.append(("sim_bench", str(sim_bench)))
         from sweeprig.seqtest.judge import miss_table
 
         if verdict.inconclusive:

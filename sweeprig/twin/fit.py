@@ -17,13 +17,16 @@ Confidence intervals: the standard least-squares covariance from the Jacobian at
 solution, ``cov = s²·(JᵀJ)⁻¹`` with ``s² = Σr²/(m − n)`` (Press, Teukolsky, Vetterling &
 Flannery, Numerical Recipes, 3rd ed., §15.4–15.5: the covariance of the fitted parameters
 of a linearised model, errors scaled by the fit's own residual variance), and 95 % intervals
-``θ ± t(0.975, m − n)·σ_θ`` (Student's t: same chapter, §15.6). Parameters fitted in log10
+``θ ± t(0.975, ν)·σ_θ`` (Student's t: same chapter, §15.6), ν = m − n, or, where the
+bench-level terms below are part of σ_θ, the Welch–Satterthwaite effective degrees of
+freedom (:func:`effective_dof`). Parameters fitted in log10
 space get intervals there, so they are asymmetric in SI. A parameter that ends on a bound has
 no such interval (the linearisation does not hold at a bound): it is reported as at the
 bound. The intervals cover the scatter the run's own residuals show and, for the core, the
 bench's level errors of :data:`BENCH_LEVEL_U_DB` each, which no residual shows
-(:func:`_with_bench_levels`); a larger bias common to every figure (an uncalibrated path
-loss) is not in them.
+(:func:`_with_bench_levels`), and for the noise figure the LO level's and the noise
+source ENR's; a larger bias common to every figure (an uncalibrated path loss) is not in
+them.
 """
 
 from __future__ import annotations
@@ -58,21 +61,41 @@ _CI_LEVEL = 0.95
 #: show, dB: the RF and LO source levels at the DUT ports and the output path to the analyzer.
 #: The simulated bench's source level error lies within ±0.15 dB (rectangular: u = 0.15/√3 =
 #: 0.087 dB, JCGM 100:2008 (GUM) §4.3.7); 0.1 dB stands for a bench whose path losses were
-#: calibrated (common practice, no source). See :func:`_with_bench_levels`.
+#: calibrated (common practice, no source). It stands for the noise source's ENR too (an ENR
+#: table is stated to about 0.1 to 0.2 dB: from memory, no source). See
+#: :func:`_with_bench_levels`.
 BENCH_LEVEL_U_DB = 0.1
-_LEVEL_STEP_DB = 0.1
+#: Standard uncertainty (k = 1) of the part of each source's level error that changes with
+#: frequency, dB, taken as independent between the run's distinct source frequencies (a
+#: ripple over a few hundred MHz, as the simulated sources' ±0.15 dB one, u = 0.087 dB by
+#: GUM §4.3.7; a calibrated bench's residual ripple likewise: common practice, no source).
+#: A constant offset alone cannot bend the gain across the band or the LO-drive curve;
+#: this term can, which is what moved the LO port resistance and the RF high-pass corner
+#: past their intervals on the full demo run (clean bench, sources' ripple on). See
+#: :func:`_with_bench_levels`.
+BENCH_RIPPLE_U_DB = 0.1
+_LEVEL_STEP_DB = 0.1  # finite-difference step of a level error, dB
 #: A parameter with at least this share of its variance from the bench's level errors, or
 #: this correlation with another, is reported as weakly identified: the run alone does not
 #: pin it, and a bench error shaped otherwise than a constant level offset (one that changes
 #: with frequency) can move it past its interval (seen on the full demo run for the LO port
 #: resistance and the RF high-pass corner). Thresholds: common practice, no source.
 WEAK_LEVEL_SHARE = 0.5
-WEAK_CORRELATION = 0.95  # finite-difference step of a level error, dB
+WEAK_CORRELATION = 0.95
 #: Figures read as output − input (an input level error δ reads them δ high; an output one too).
 _GAIN_FIGURES = frozenset({"conversion_gain", "lo_drive_gain", "compression_gain"})
-#: Figures read as input levels (an input level error δ reads them δ low).
+#: Figures read as input levels, or against the nominal input level (an input level error δ
+#: reads them δ low): the input-referred points and the input→output feedthrough.
 _INPUT_REFERRED = frozenset({"input_p1db", "iip3_point_low", "iip3_point_high",
-                             "iip2_point_low", "iip2_point_high"})
+                             "iip2_point_low", "iip2_point_high",
+                             "rf_if_isolation", "if_rf_isolation"})
+#: Figures read against the nominal LO level (an LO level error δ reads them δ low).
+_LO_REFERRED = frozenset({"lo_if_isolation", "lo_rf_isolation"})
+#: Figures read against the noise source's ENR (Y-factor): ``F = ENR/(Y − 1)`` when the cold
+#: temperature is T0 (field notes, Y-factor), so ``NF_dB = ENR_dB − 10·log10(Y − 1)`` and an
+#: ENR error δ reads them δ high. The bench's ENR is one more level it cannot show, of
+#: :data:`BENCH_LEVEL_U_DB` like the others.
+_ENR_REFERRED = frozenset({"noise_figure"})
 #: Solver tolerances (relative change of cost, step and gradient): 1e-6 of a cost of order
 #: the figure count moves no figure by a thousandth of its scale; scipy's default 1e-8 only
 #: adds iterations (each a full model pass) here.
@@ -150,11 +173,15 @@ class TwinFit:
         raise KeyError(key)
 
 
-def fit_twin(template: MixerPart, obs: ObservationSet) -> TwinFit:
+def fit_twin(template: MixerPart, obs: ObservationSet, *,
+             ripple_u_db: float = BENCH_RIPPLE_U_DB) -> TwinFit:
     """Fit ``template``'s constrained parameters to ``obs`` (see the module docstring).
 
     ``template`` should carry the leakage phases of the bench the twin will be served on
     (:func:`sweeprig.sim.bench.prepare_part`), so that leakage adds as it will there.
+    ``ripple_u_db``: the sources' level error that changes with frequency, dB (k = 1;
+    :data:`BENCH_RIPPLE_U_DB`), 0 for a run whose sources were calibrated at its
+    frequencies and levels (the calibration measured that error and took it out).
     """
     params = catalogue(template, obs)
     free = tuple(p for p in params if p.needs(obs) is None)
@@ -175,7 +202,7 @@ def fit_twin(template: MixerPart, obs: ObservationSet) -> TwinFit:
         if best is None or stage.cost < best[0]:
             best = (stage.cost, stage)
     assert best is not None
-    core = _with_bench_levels(best[1], core_obs)
+    core = _with_bench_levels(best[1], core_obs, ripple_u_db=ripple_u_db)
     part = core.part
     stages = [core]
     for group in dict.fromkeys(p.group for p in free if p.group != "core"):
@@ -184,14 +211,27 @@ def fit_twin(template: MixerPart, obs: ObservationSet) -> TwinFit:
         stage = _fit_stage(part, group_free, group_obs)
         # the core's own uncertainty moves this group's estimate too: add it
         stage = _propagate(stage, core, group_obs)
+        # its figures are read against the bench's levels too (an isolation against the
+        # nominal LO or RF level and a port's path, a noise figure against the ENR): add
+        # them. Not to the even-order stage: its few IIP2 points scatter by far more than
+        # 0.1 dB, and the level term would only raise its effective degrees of freedom
+        # (:func:`effective_dof`) and narrow an interval whose scatter is not all noise
+        # (the analyzer's own second-order products add to the IM2 line)
+        if group != "even_order":
+            stage = _with_bench_levels(stage, group_obs, ripple_u_db=ripple_u_db)
         part = stage.part
         stages.append(stage)
     fitted = []
     for stage in stages:
+        # a leakage path's level and its slope trade off about the reference frequency by
+        # construction, which says nothing: correlations are judged in the other stages
+        correlations = not any(p.key.startswith("isolation.") for p in stage.free)
         for i, p in enumerate(stage.free):
+            level_var = 0.0 if stage.level_cov is None else float(stage.level_cov[i, i])
             fitted.append(_with_identification(
-                _fitted(p, float(stage.x[i]), stage.cov[i, i], stage.dof, p.get(template)),
-                stage, i))
+                _fitted(p, float(stage.x[i]), stage.cov[i, i], stage.dof, p.get(template),
+                        level_var=level_var),
+                stage, i, correlations=correlations))
     m = len(obs.observations)
     total_cost = sum(st.cost for st in stages)
     residual_cost = total_cost + _unfitted_cost(part, obs, stages)
@@ -233,7 +273,8 @@ def _fit_stage(base: MixerPart, free: tuple[FitParameter, ...],
 
 
 def _with_bench_levels(stage: _Stage, observations: Sequence[Observation],
-                       u_db: float = BENCH_LEVEL_U_DB) -> _Stage:
+                       u_db: float = BENCH_LEVEL_U_DB, *,
+                       ripple_u_db: float = BENCH_RIPPLE_U_DB) -> _Stage:
     """Add to a stage's covariance what the bench's level errors do to its estimate.
 
     A level error common to every figure (the RF source's, the LO source's, the output
@@ -246,15 +287,36 @@ def _with_bench_levels(stage: _Stage, observations: Sequence[Observation],
     moved by the error (RF: ``rf_power_dbm`` and ``rf2_power_dbm``; LO: ``lo_power_dbm``),
     plus how the figure is read (a gain is read as output − the nominal input, so an RF
     error reads it δ high; an input-referred figure, δ low; an output error moves a gain
-    only). Found on the full demo run: without it the tail current's and the LO port
-    resistance's 95 % intervals missed the truth by several widths (a ±0.15 dB source
-    level error the fit could not see).
+    only; the noise source's ENR moves a Y-factor noise figure by δ, see
+    :data:`_ENR_REFERRED`, and nothing else). Found on the full demo run: without it the
+    tail current's and the LO port resistance's 95 % intervals missed the truth by several
+    widths (a ±0.15 dB source level error the fit could not see).
+
+    Each source's error also has a part that changes with frequency (``ripple_u_db``): one
+    more input per distinct frequency of that source (RF: ``rf_freq_hz``, LO:
+    ``lo_freq_hz``), independent of the others, whose direction is the source's own masked
+    to the observations at that frequency (the model at one observation does not depend on
+    another's levels, so no further model pass is needed).
+
+    Applied to every stage but the even-order one: the core, and each later one whose
+    figures are read against a level (an isolation against the nominal LO or RF level and
+    its port's path to the analyzer, δ low; a noise figure against the ENR and, through the
+    model, the LO level); the supply current reads none. Each stage's terms are added on
+    their own: the correlation a shared level error makes between stages is not carried.
     """
     if not stage.free or u_db <= 0.0 or not np.all(np.isfinite(stage.cov)):
         return stage
     scale = np.array([o.scale for o in observations])
     gain = np.array([o.name in _GAIN_FIGURES for o in observations], dtype=float)
     input_referred = np.array([o.name in _INPUT_REFERRED for o in observations], dtype=float)
+    enr = np.array([o.name in _ENR_REFERRED for o in observations], dtype=float)
+    lo_referred = np.array([o.name in _LO_REFERRED for o in observations], dtype=float)
+    # an isolation is the nominal level − a line: a path that reads its line δ high reads it
+    # δ low; the line is at the output port, or (the LO back at the input) at the input port
+    at_input = ("lo_rf_isolation" if stage.part.conversion == "down" else "lo_if_isolation")
+    isolation_in = np.array([o.name == at_input for o in observations], dtype=float)
+    isolation_out = np.array([o.name in _LO_REFERRED | {"rf_if_isolation", "if_rf_isolation"}
+                              and o.name != at_input for o in observations], dtype=float)
     base = model_figures(stage.part, observations)
 
     def moved(keys: tuple[str, ...]) -> np.ndarray:
@@ -264,20 +326,31 @@ def _with_bench_levels(stage: _Stage, observations: Sequence[Observation],
         d = (model_figures(stage.part, shifted) - base) / _LEVEL_STEP_DB
         return np.where(np.isfinite(d), d, 0.0)
 
-    directions = (
-        moved(("rf_power_dbm", "rf2_power_dbm")) + gain - input_referred,  # RF source
-        moved(("lo_power_dbm",)),  # LO source
-        gain,  # output path
-    )
+    rf_source = moved(("rf_power_dbm", "rf2_power_dbm")) + gain - input_referred
+    lo_source = moved(("lo_power_dbm",)) - lo_referred
+    directions = [
+        (u_db, rf_source),  # RF source
+        (u_db, lo_source),  # LO source
+        (u_db, gain - isolation_out),  # output path
+        (u_db, -isolation_in),  # the input port's path to the analyzer (LO leaking back)
+        (u_db, enr),  # noise source's ENR (zero for every figure but a noise figure)
+    ]
+    if ripple_u_db > 0.0:
+        for key, source in (("rf_freq_hz", rf_source), ("lo_freq_hz", lo_source)):
+            freqs = np.array([round(o.condition(key), 3) for o in observations])
+            for f in np.unique(freqs[np.isfinite(freqs)]):
+                directions.append((ripple_u_db, np.where(freqs == f, source, 0.0)))
     jac = stage.jac
     try:
         solve = np.linalg.solve(jac.T @ jac, jac.T)
     except np.linalg.LinAlgError:
         return stage
     extra = np.zeros_like(stage.cov)
-    for d in directions:
+    for u, d in directions:
+        if not np.any(d):
+            continue
         g = solve @ (d / scale)
-        extra += u_db * u_db * np.outer(g, g)
+        extra += u * u * np.outer(g, g)
     return replace(stage, cov=stage.cov + extra, level_cov=extra)
 
 
@@ -314,12 +387,29 @@ def _propagate(stage: _Stage, core: _Stage, observations: Sequence[Observation])
                   stage.jac, stage.converged)
 
 
+def effective_dof(var: float, level_var: float, dof: int) -> float:
+    """Welch–Satterthwaite effective degrees of freedom (JCGM 100:2008 (GUM) G.4.1,
+    ``ν_eff = u_c⁴ / Σ u_i⁴/ν_i``) of a variance ``var`` of which ``level_var`` is the bench
+    levels' (a Type B term of stated u: ν = ∞) and the rest the fit's own scatter (ν =
+    ``dof``): ``ν_eff = dof·(var/(var − level_var))²``; infinite when the scatter adds
+    nothing. Without it a fit with few degrees of freedom would stretch a known 0.1 dB
+    level term by Student's t of those few (12.7 at one)."""
+    scatter = var - level_var
+    if level_var <= 0.0 or dof <= 0:
+        return float(dof)
+    if scatter <= 0.0:
+        return math.inf
+    return dof * (var / scatter) ** 2
+
+
 def _fitted(p: FitParameter, x: float, var: float, dof: int,
-            start: float | None) -> FittedParameter:
+            start: float | None, *, level_var: float = 0.0) -> FittedParameter:
     lo_b, hi_b = p.internal_bounds()
     span = hi_b - lo_b
     at_bound = min(x - lo_b, hi_b - x) <= 1e-3 * max(span, 1e-12)
-    t = float(stats.t.ppf(0.5 + _CI_LEVEL / 2.0, dof)) if dof > 0 else math.nan
+    nu = effective_dof(var, level_var, dof)
+    t = (float(stats.norm.ppf(0.5 + _CI_LEVEL / 2.0)) if math.isinf(nu)
+         else float(stats.t.ppf(0.5 + _CI_LEVEL / 2.0, nu)) if nu > 0 else math.nan)
     half = t * math.sqrt(var) if var >= 0 else math.nan
     low, high = ((math.nan, math.nan) if at_bound or not math.isfinite(half)
                  else (p.to_si(x - half), p.to_si(x + half)))
@@ -327,17 +417,17 @@ def _fitted(p: FitParameter, x: float, var: float, dof: int,
                            at_bound, p.what)
 
 
-def _with_identification(fp: FittedParameter, stage: _Stage, i: int) -> FittedParameter:
-    """``fp`` with its bench-level share and its strongest correlation in the core stage."""
+def _with_identification(fp: FittedParameter, stage: _Stage, i: int, *,
+                         correlations: bool = True) -> FittedParameter:
+    """``fp`` with its bench-level share and (``correlations``) its strongest correlation
+    with another parameter of its stage."""
     cov = stage.cov
     var = float(cov[i, i])
-    if not (math.isfinite(var) and var > 0.0):
+    if not (math.isfinite(var) and var > 0.0) or stage.level_cov is None:
         return fp
-    if stage.level_cov is None:  # a later stage: a path's level and its slope trade off
-        return fp  # about the reference frequency by construction, which says nothing
     share = min(max(float(stage.level_cov[i, i]) / var, 0.0), 1.0)
     partner, rho = "", 0.0
-    for j, q in enumerate(stage.free):
+    for j, q in enumerate(stage.free if correlations else ()):
         if j == i or not (math.isfinite(cov[j, j]) and cov[j, j] > 0.0):
             continue
         r = float(cov[i, j] / math.sqrt(var * cov[j, j]))

@@ -8,7 +8,8 @@ figure is computed the way the analysis measured it, at the observation's own co
   for one tone at the measured RF power;
 * ``lo_if_isolation`` / ``lo_rf_isolation``: LO power − the LO-frequency line at the IF / RF
   port, with the same tone present (as read in a gain study);
-* ``rf_if_isolation``: RF power − the RF-frequency line at the IF port;
+* ``rf_if_isolation`` (an upconverter's ``if_rf_isolation``): input power − the
+  input-frequency line at the output port;
 * ``iip3_point_low`` / ``_high``: ``P_in + (P_fund − P_IM3)/2`` at the measured two-tone
   drive (the single-point intercept; Pozar, Microwave Engineering, 4th ed., §10.3, and the
   field notes' intercept relation), lower product with the lower tone's fundamental;
@@ -25,8 +26,11 @@ figure is computed the way the analysis measured it, at the observation's own co
   edges), at the LO drive. The part's own ``noise.figure`` is the mid-band SSB figure; the
   measured one also carries the band edges' gain slope between signal and image.
 
-Downconverters only (the RF port feeds the transconductor, the IF port is the output); the
-fit refuses a run of an upconverter before it gets here.
+Both conversions: observations keep the run's one spelling (``rf_*`` = the input tone,
+whichever port it enters), and the isolations keep their physical port names: a
+downconverter's LO→IF line is at its output, an upconverter's LO→RF line is (the model's
+``if_port`` field holds the output port's lines either way, :class:`~sweeprig.sim.mixer.
+types.MixerResponse`).
 
 Evaluations are shared: one single-tone evaluation serves the gain and the three isolations
 of a point.
@@ -94,15 +98,19 @@ def _one(part: MixerPart, obs: Observation, single: dict[tuple[float, ...], obje
     if resp is None:
         resp = part.evaluate(op, lo, [ToneInput(f_rf, p_rf)])
         single[key] = resp
-    if_lines, rf_lines = resp.if_port, resp.rf_port  # type: ignore[attr-defined]
+    # the response's if_port field is the output port, rf_port the input port (both kinds)
+    out_lines, in_lines = resp.if_port, resp.rf_port  # type: ignore[attr-defined]
+    up = part.conversion == "up"
     if name in ("conversion_gain", "lo_drive_gain", "compression_gain"):
-        return _finite(line_power_dbm(if_lines, output_freq_hz(part, f_rf, lo.freq_hz)) - p_rf)
-    if name == "lo_if_isolation":
-        return _finite(lo.power_dbm - line_power_dbm(if_lines, lo.freq_hz))
-    if name == "lo_rf_isolation":
-        return _finite(lo.power_dbm - line_power_dbm(rf_lines, lo.freq_hz))
-    if name == "rf_if_isolation":
-        return _finite(p_rf - line_power_dbm(if_lines, f_rf))
+        return _finite(line_power_dbm(out_lines, output_freq_hz(part, f_rf, lo.freq_hz)) - p_rf)
+    if name == "lo_if_isolation":  # the IF port: the output (down) or the input (up)
+        return _finite(lo.power_dbm - line_power_dbm(in_lines if up else out_lines,
+                                                     lo.freq_hz))
+    if name == "lo_rf_isolation":  # the RF port: the input (down) or the output (up)
+        return _finite(lo.power_dbm - line_power_dbm(out_lines if up else in_lines,
+                                                     lo.freq_hz))
+    if name in ("rf_if_isolation", "if_rf_isolation"):  # input tone at the output port
+        return _finite(p_rf - line_power_dbm(out_lines, f_rf))
     raise ValueError(f"no model for figure {name!r}")
 
 

@@ -2,7 +2,8 @@
 
 :func:`fit_stored_run` reads one run (its figures from :func:`~sweeprig.analysis.reduce.
 reduce_run`, its mixing from the stored sequence), refuses what the fit cannot use (no such
-run, a run of an upconverter, a run without the figures a fit needs) with a located message,
+run, a template of the other conversion than the run's, a run without the figures a fit
+needs) with a located message,
 fits (:func:`~sweeprig.twin.fit.fit_twin`) and returns the fit with its part-file text.
 Nothing is written here; the caller writes the text (:func:`~sweeprig.twin.partfile.
 write_part_file`) only when all went well.
@@ -12,13 +13,14 @@ from __future__ import annotations
 
 import math
 import tomllib
+from collections.abc import Iterable
 from dataclasses import dataclass
 from pathlib import Path
 from types import MappingProxyType
 from typing import TYPE_CHECKING
 
 from sweeprig.errors import InputError
-from sweeprig.twin.fit import TwinFit, fit_twin
+from sweeprig.twin.fit import BENCH_RIPPLE_U_DB, TwinFit, fit_twin
 from sweeprig.twin.observations import (
     DISQUALIFYING_FLAGS,
     Observation,
@@ -33,6 +35,14 @@ if TYPE_CHECKING:
 #: The template when none is named: the shipped downconverter whose unfitted values
 #: (port matches, offsets, noise shape) are typical of an active Gilbert cell.
 DEFAULT_TEMPLATE = "kx-2417"
+#: The template of an upconverter run when none is named: the shipped upconverter (the IF
+#: port feeds the transconductor, the RF port is the output).
+DEFAULT_UP_TEMPLATE = "kx-5860u"
+
+
+def default_template(conversion: str) -> str:
+    """The shipped template for a run of ``conversion`` (``"down"`` or ``"up"``)."""
+    return DEFAULT_UP_TEMPLATE if conversion == "up" else DEFAULT_TEMPLATE
 
 
 @dataclass(frozen=True)
@@ -46,11 +56,12 @@ class StoredRunTwin:
     part_id: str
 
 
-def fit_stored_run(store_path: Path, run_id: int, *, template: str = DEFAULT_TEMPLATE,
+def fit_stored_run(store_path: Path, run_id: int, *, template: str | None = None,
                    name: str | None = None,
                    sim_description: str | Path | None = None) -> StoredRunTwin:
     """Fit a twin of run ``run_id`` in the SQLite store at ``store_path`` (see the module
-    docstring). ``template``: a shipped part name or a part file; ``name``: the twin's part
+    docstring). ``template``: a shipped part name or a part file of the run's conversion
+    (default: :func:`default_template`, the shipped part of that kind); ``name``: the twin's part
     name (default: ``"<part id> twin"``). The template is placed on the simulated bench
     the twin will be served on (``sim_description``: a sim-bench description file or shipped
     name; default: the built-in one), whose seeded leakage phases decide how each leakage
@@ -68,30 +79,42 @@ def fit_stored_run(store_path: Path, run_id: int, *, template: str = DEFAULT_TEM
     with SqliteRunStore(store_path, create=False) as db:
         info = db.run(run_id)
         run = reduce_run(db, run_id)
-    base = load_part(template)
+        calibrated = sources_calibrated(db.events(run_id))
     conversion = _stored_conversion(info.sequence_text)
-    if conversion != "down" or base.conversion != "down":
-        kind = conversion if conversion != "down" else base.conversion
-        what = (f"run {run_id} is of an {kind}converter" if conversion != "down"
-                else f"the template {template!r} is an {kind}converter")
+    template = template or default_template(conversion)
+    base = load_part(template)
+    if base.conversion != conversion:
         raise InputError(
-            f"{what}: the twin fit models downconverters only (the RF port feeding the "
-            "transconductor, the IF port the output)",
-            where=where if conversion != "down" else "--template",
-            fix="fit a run of a downconverter, with a downconverter template (e.g. "
-                f"{DEFAULT_TEMPLATE})",
+            f"run {run_id} is of {_kind(conversion)}, but the template {template!r} is "
+            f"{_kind(base.conversion)}: the twin keeps the template's conversion and port "
+            "roles, so it would model the wrong part",
+            where="--template",
+            fix=f"name a {conversion}converter template (e.g. {default_template(conversion)}), "
+                "or leave --template out to take it",
         )
     observations = observations_from_figures(run.figures, where=where,
                                              extra=swept_gains(run),
                                              lo_freq_by_point=_lo_freq_by_point(run))
     bench = resolve_description(None if sim_description is None else str(sim_description))
     placed = base.with_changes(leakage_phases=bench.leakage_phases())
-    fit = fit_twin(placed, observations)
+    fit = fit_twin(placed, observations,
+                   ripple_u_db=0.0 if calibrated else BENCH_RIPPLE_U_DB)
     part_id = run.part or f"run {run_id}"
     text = part_file_text(fit, name=name or f"{part_id} twin",
                           source=f"run {run_id} ({part_id}, serial {run.serial or '-'})",
                           template=template)
     return StoredRunTwin(fit, observations, text, run_id, part_id)
+
+
+def sources_calibrated(events: Iterable[object]) -> bool:
+    """True when the run was measured with a calibration of its RF and LO sources (stored
+    with the run, :func:`~sweeprig.analysis.bench_specs.calibration_state`): their level
+    error at the run's frequencies and levels was measured and taken out, so the fit adds
+    no ripple term for it (:data:`~sweeprig.twin.fit.BENCH_RIPPLE_U_DB`)."""
+    from sweeprig.analysis.bench_specs import calibration_state
+
+    state, _note = calibration_state(events)  # type: ignore[arg-type]
+    return {"rf", "lo"} <= set(state.connections)
 
 
 def swept_gains(run: RunFigures) -> tuple[Observation, ...]:
@@ -132,6 +155,10 @@ def _lo_freq_by_point(run: RunFigures) -> dict[int, float]:
         return {}
     first = table.groupby("point")["lo_freq_hz"].first()
     return {int(k): float(v) for k, v in first.items() if math.isfinite(float(v))}
+
+
+def _kind(conversion: str) -> str:
+    return "an upconverter" if conversion == "up" else "a downconverter"
 
 
 def _stored_conversion(sequence_text: str) -> str:

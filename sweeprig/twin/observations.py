@@ -35,6 +35,9 @@ FITTED_FIGURES: Mapping[str, tuple[str, float]] = MappingProxyType({
     "lo_if_isolation": ("dB", 0.5),
     "lo_rf_isolation": ("dB", 0.5),
     "rf_if_isolation": ("dB", 0.5),
+    # an upconverter's input→output feedthrough (IF in, RF out): the same path as a
+    # downconverter's rf_if_isolation, named for its ports
+    "if_rf_isolation": ("dB", 0.5),
     "supply_current": ("A", 0.5e-3),
     "noise_figure": ("dB", 0.2),
 })

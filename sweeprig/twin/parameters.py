@@ -161,13 +161,20 @@ def _even_order(part: MixerPart) -> Callable[[ObservationSet], str | None]:
     return needs
 
 
-def _slopes() -> tuple[FitParameter, ...]:
+def feedthrough_figure(part: MixerPart) -> str:
+    """The figure of the input→output feedthrough path (``isolation.rf_to_if``): a
+    downconverter's ``rf_if_isolation``, an upconverter's ``if_rf_isolation``."""
+    return "rf_if_isolation" if part.conversion == "down" else "if_rf_isolation"
+
+
+def _slopes(part: MixerPart) -> tuple[FitParameter, ...]:
     """The isolation paths' frequency slopes (dB per octave about the part's isolation
     reference frequency), each fitted with its path's level when the run swept frequency."""
     bound = (-ISOLATION_SLOPE_BOUND, ISOLATION_SLOPE_BOUND)
+    through = "RF→IF" if part.conversion == "down" else "IF→RF (input→output)"
     paths = (("lo_to_if", "lo_if", "lo_if_isolation", "lo_freq_hz", "LO→IF"),
              ("lo_to_rf", "lo_rf", "lo_rf_isolation", "lo_freq_hz", "LO→RF"),
-             ("rf_to_if", "rf_if", "rf_if_isolation", "rf_freq_hz", "RF→IF"))
+             ("rf_to_if", "rf_if", feedthrough_figure(part), "rf_freq_hz", through))
     return tuple(
         FitParameter(f"isolation.{key}_slope", "dB/octave", 1.0, False, bound,
                      *_attr(f"isolation_{attr}_slope_db_per_octave"), _swept(figure, cond),
@@ -177,9 +184,16 @@ def _slopes() -> tuple[FitParameter, ...]:
 
 def catalogue(part: MixerPart, obs: ObservationSet) -> tuple[FitParameter, ...]:
     """Every parameter a fit of ``part`` may move, bounds set from the data where they
-    depend on it (the RF port's corners stay outside the measured band)."""
+    depend on it (the input port's corners stay outside the measured band).
+
+    The input port is the RF port of a downconverter and the IF port of an upconverter
+    (``rf_freq_hz`` is the input tone's frequency either way); the isolations keep their
+    physical port names, and the feedthrough path is constrained by
+    :func:`feedthrough_figure`."""
     freqs = obs.distinct("conversion_gain", "rf_freq_hz") or (1e9,)
     f_lo, f_hi = freqs[0], freqs[-1]
+    inp = "rf" if part.conversion == "down" else "if"
+    through = feedthrough_figure(part)
     return (
         FitParameter("core.tail_current", "mA", 1e3, True, (0.1e-3, 100e-3),
                      *_attr("tail_current_a"), _having("conversion_gain"),
@@ -194,12 +208,15 @@ def catalogue(part: MixerPart, obs: ObservationSet) -> tuple[FitParameter, ...]:
                      _lo_powers,
                      "LO port resistance: the LO swing at the quad, so the LO-drive "
                      "dependence of the gain"),
-        FitParameter("ports.rf.highpass", "GHz", 1e-9, True, (1e6, max(f_lo / 1.01, 1.1e6)),
-                     *_port("rf", "highpass_hz"), _rf_span,
-                     "RF port high-pass corner: the gain's fall at the low end of the band"),
-        FitParameter("ports.rf.lowpass", "GHz", 1e-9, True, (f_hi * 1.01, 200e9),
-                     *_port("rf", "lowpass_hz"), _rf_span,
-                     "RF port low-pass corner: the gain's fall at the high end of the band"),
+        FitParameter(f"ports.{inp}.highpass", "GHz", 1e-9, True,
+                     (1e6, max(f_lo / 1.01, 1.1e6)),
+                     *_port(inp, "highpass_hz"), _rf_span,
+                     f"{inp.upper()} (input) port high-pass corner: the gain's fall at the "
+                     "low end of the band"),
+        FitParameter(f"ports.{inp}.lowpass", "GHz", 1e-9, True, (f_hi * 1.01, 200e9),
+                     *_port(inp, "lowpass_hz"), _rf_span,
+                     f"{inp.upper()} (input) port low-pass corner: the gain's fall at the "
+                     "high end of the band"),
         FitParameter("core.tail_supply_coeff", "/V", 1.0, False, (-1.0, 1.0),
                      *_attr("tail_supply_coeff_per_v"),
                      _distinct("conversion_gain", "supply_v", 2, "supplies"),
@@ -216,10 +233,10 @@ def catalogue(part: MixerPart, obs: ObservationSet) -> tuple[FitParameter, ...]:
                      *_attr("isolation_lo_rf_db"), _having("lo_rf_isolation"),
                      "LO→RF leakage path", "lo_rf_isolation"),
         FitParameter("isolation.rf_to_if", "dB", 1.0, False, (0.0, 120.0),
-                     *_attr("isolation_rf_if_db"), _having("rf_if_isolation"),
-                     "RF→IF feedthrough path (on top of what the quad's offsets make)",
-                     "rf_if_isolation"),
-        *_slopes(),
+                     *_attr("isolation_rf_if_db"), _having(through),
+                     "input→output feedthrough path (on top of what the quad's offsets "
+                     "make)", through),
+        *_slopes(part),
         FitParameter("mismatch.load", "", 1.0, False, (-LOAD_MISMATCH_BOUND, LOAD_MISMATCH_BOUND),
                      *_attr("load_mismatch"), _even_order(part),
                      "load mismatch ΔR/R: with the quad's DC imbalance and the input pair's "
@@ -242,8 +259,9 @@ NOT_FITTED: tuple[tuple[str, str], ...] = (
      "product, c2·(ε + D_0): the im2 readings set it through mismatch.load alone; the "
      "offsets (which also shape the leakage the isolation paths are fitted on top of) and "
      "c2 keep the template's values"),
-    ("ports.*.return_loss, ports.if.*", "port matches and the IF port's corners are not "
-     "fitted: the template's values are kept"),
+    ("ports.*.return_loss, the output port's corners", "port matches and the output "
+     "port's corners (IF of a downconverter, RF of an upconverter) are not fitted: the "
+     "template's values are kept"),
     ("noise.lo_nominal, noise.switch_share, core.min_supply", "kept "
      "from the template"),
 )

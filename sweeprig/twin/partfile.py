@@ -54,8 +54,9 @@ def part_file_text(fit: TwinFit, *, name: str, source: str, template: str) -> st
         f"# {fit.observations} figures, {len(fit.parameters)} parameters, "
         f"residual scale s = {_num(fit.residual_scale, 3)} (1 = the figures' nominal scatter).",
         "# Intervals: 95 %, from the Jacobian (cov = s²·(JᵀJ)⁻¹, the run's scatter) plus what",
-        f"# unseen bench level errors (RF, LO, output; u = {BENCH_LEVEL_U_DB:g} dB each) move the",
-        "# estimate by; a larger path-loss error than that (an uncalibrated bench) is not in them.",
+        "# unseen bench level errors (RF, LO, output, and the noise source's ENR for the noise",
+        f"# figure; u = {BENCH_LEVEL_U_DB:g} dB each) move the estimate by; a larger path-loss",
+        "# error than that (an uncalibrated bench) is not in them.",
         f"# {fit.bias_note}.",
         "# Residuals, model − measured (mean / RMS / worst):",
     ]

@@ -44,7 +44,8 @@ def test_a_template_of_another_part_kind_is_refused(leak_store, tmp_path):
         'conversion = "down"', 'conversion = "up"'), encoding="utf-8")
     code, text, out = _fit(tmp_path, 1, "--store", leak_store, "--template", up)
     assert code == 2 and not out.exists(), text
-    assert "--template" in text and "upconverter" in text and "downconverters only" in text
+    assert "--template" in text and "is of a downconverter" in text
+    assert "is an upconverter" in text and "kx-2417" in text  # the fix names one that fits
 
 
 def test_a_missing_store_or_run_is_refused(leak_store, tmp_path):

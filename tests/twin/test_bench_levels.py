@@ -74,3 +74,13 @@ def test_a_parameter_set_mostly_by_the_bench_levels_is_called_weakly_identified(
     lo = text.split("[ports.lo]")[1]
     line = next(x for x in lo.splitlines() if x.startswith("resistance"))
     assert "weakly identified" in line and "bench's level errors" in line, line
+
+
+def test_the_effective_degrees_of_freedom_follow_welch_satterthwaite():
+    """GUM G.4.1: ν_eff = u_c⁴ / Σ u_i⁴/ν_i; a Type B term of stated u has ν = ∞. Worked by
+    hand: u_A² = 1 (ν = 4) and u_B² = 1 give u_c⁴ = 4, ν_eff = 4/(1/4) = 16."""
+    from sweeprig.twin.fit import effective_dof
+
+    assert effective_dof(2.0, 1.0, 4) == 16.0
+    assert effective_dof(2.0, 0.0, 4) == 4.0  # no level term: the fit's own
+    assert effective_dof(1.0, 1.0, 4) == float("inf")  # all of it the level term

@@ -20,10 +20,18 @@ def test_a_run_that_measured_noise_figure_gives_it_back(tmp_path):
     truth = load_part("kx-2417").noise_figure_db
     p = twin.fit.parameter("noise.figure")
     assert p.covers(truth), (p.low, p.value, p.high, truth)
-    assert p.high - p.low < 1.0  # an interval that says something (two figures, 0.2 dB scale)
+    # an interval that says something: the level term's u = 0.1 dB is a Type B input of
+    # infinite degrees of freedom (Welch–Satterthwaite, GUM G.4.1), not stretched by
+    # Student's t of the fit's one degree of freedom (12.7)
+    assert p.high - p.low < 1.0
     nf = next(r for r in twin.fit.residuals if r.name == "noise_figure")
     assert nf.count == 2 and abs(nf.worst) < 0.2, nf
     line = next(x for x in twin.text.splitlines() if x.startswith("figure ="))
     assert "95 % interval" in line
     # one temperature: the tempco keeps the template's value, and says why
     assert "1 temperatures" in dict(twin.fit.unconstrained)["noise.figure_tempco"]
+    # the bench levels the run cannot show (the noise source's ENR, the LO level; 0.1 dB
+    # each, GUM §5.1.2) are in the interval: with two figures they are most of it, and the
+    # part file says the figure is weakly identified, as for the core's parameters
+    assert p.level_share >= 0.5 and p.weakly_identified
+    assert "weakly identified" in line and "level errors" in line
