@@ -337,8 +337,14 @@ def _models() -> dict[str, _Model]:
         "gain_flatness": _Model(noise_reading="if", noise_c=1.0, relative_c=math.sqrt(2.0)),
         "lo_power_for_gain": _Model(input_c=1.0, input_via=("lo",)),
         "image_rejection": _Model(linearity_c=1.0, noise_reading="image", noise_c=1.0),
-        "im3_low": _Model(linearity_c=1.0, noise_reading="im3_low", noise_c=1.0),
-        "im3_high": _Model(linearity_c=1.0, noise_reading="im3_high", noise_c=1.0),
+        # an IM3 product against its carrier moves 2 dB per dB of drive (P_IM3 − P_fund =
+        # −2·(IIP3 − P_in): the two-tone relation, Razavi, RF Microelectronics; Pozar): an
+        # error of the tones' level at the DUT is twice an error of the dBc figure (both
+        # tones' errors taken as one, the larger case)
+        "im3_low": _Model(input_c=2.0, linearity_c=1.0, noise_reading="im3_low", noise_c=1.0,
+                          input_via=("rf", "rf2")),
+        "im3_high": _Model(input_c=2.0, linearity_c=1.0, noise_reading="im3_high",
+                           noise_c=1.0, input_via=("rf", "rf2")),
         "im3_asymmetry": _Model(linearity_c=math.sqrt(2.0), noise_reading="im3_high",
                                 noise_c=1.0, noise_also=(("im3_low", -1.0),)),
         "spur_dbc": _Model(linearity_c=1.0, noise_reading="spur", noise_c=1.0),

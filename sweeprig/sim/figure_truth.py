@@ -15,7 +15,9 @@ frequencies and drives the figure's captures record:
   :func:`small_signal_iip3_dbm` gives the small-signal limit of the same intercept
   (``reference_figures``' ``iip3_dbm``, 40 dB under the closed-form intercept); the two
   differ by the part's fifth- and higher-order terms at the drives used (the tanh of a
-  differential pair is not a pure cubic: FIELD-NOTES, Razavi), not by any bench error.
+  differential pair is not a pure cubic: FIELD-NOTES, Razavi), not by any bench error;
+* ``im3_low`` / ``im3_high`` (dBc) and ``iip3_point_low`` / ``iip3_point_high``: the same
+  relation at the one drive of the figure's point (:data:`PER_DRIVE`).
 
 The truth is the part's between Z0 (50 Ω) terminations, as a datasheet states it: the drive
 is the level the sequence states at the DUT plane (what a matched load there would absorb),
@@ -38,6 +40,9 @@ from sweeprig.sim.mixer.types import ToneInput
 FIT_BACKOFF_DB = 10.0
 #: The sequences' two-tone spacing, Hz.
 TONE_SPACING_HZ = 1e6
+#: Figures of one drive: an IM3 product (2f1 − f2 or 2f2 − f1) in dBc against tone 1's output
+#: (as :mod:`sweeprig.analysis.intercept` reads both sides) and the intercept of that drive.
+PER_DRIVE = ("im3_low", "im3_high", "iip3_point_low", "iip3_point_high")
 
 
 def _context(rows: Any) -> tuple[OperatingPoint, ToneInput, float]:
@@ -62,9 +67,17 @@ def figure_truth(part: Any, name: str, rows: Any) -> float:
     ref = reference_figures(part, op, lo.freq_hz, lo.power_dbm, f1)
     if name == "input_p1db":
         return float(ref.input_p1db_dbm)
+    f2 = f1 + TONE_SPACING_HZ
+    if name in PER_DRIVE:
+        # one drive (the first row's): the product against tone 1, and the intercept that
+        # pair gives (the same two-tone relation)
+        p = float(rows.iloc[0]["rf_power_dbm"])
+        two = part.evaluate(op, lo, [ToneInput(f1, p), ToneInput(f2, p)])
+        product = 2 * f1 - f2 if name.endswith("_low") else 2 * f2 - f1
+        dbc = line(two, product) - line(two, f1)
+        return dbc if name.startswith("im3_") else p - 0.5 * dbc
     if name not in ("iip3_low", "iip3_high"):
         raise ValueError(f"no model truth for figure {name!r}")
-    f2 = f1 + TONE_SPACING_HZ
     values = []
     for p in sorted(set(rows["rf_power_dbm"].astype(float))):
         if p > ref.input_p1db_dbm - FIT_BACKOFF_DB:

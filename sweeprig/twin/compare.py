@@ -12,6 +12,8 @@ from collections.abc import Iterable, Mapping
 from dataclasses import dataclass
 from types import MappingProxyType
 
+from sweeprig.analysis.run_agreement import figure_key
+
 #: The twin's accuracy targets, figure → ± dB (issue 16: conversion gain 0.1 dB, input P1dB
 #: 0.3 dB, IIP3 0.5 dB, isolations 1 dB). An upconverter's LO leakage (the LO line at its
 #: RF output, dBm) and LO suppression (wanted − that line, dBc) are its LO→RF isolation read
@@ -52,14 +54,6 @@ class FigurePair:
         return abs(self.difference) <= self.target
 
 
-def _key(name: str, conditions: Mapping[str, object]) -> tuple[object, ...]:
-    items = []
-    for k in sorted(conditions):
-        v = conditions[k]
-        items.append((k, round(float(v), 6) if isinstance(v, int | float) else v))
-    return (name, tuple(items))
-
-
 def compare_figures(measured: Iterable[object], twin: Iterable[object],
                     targets: Mapping[str, float] = TWIN_TARGETS) -> tuple[FigurePair, ...]:
     """Pairs of plain-number figures (``name``, ``value``, ``bound``, ``conditions``) present
@@ -74,7 +68,7 @@ def compare_figures(measured: Iterable[object], twin: Iterable[object],
                     or not math.isfinite(value):
                 continue
             conditions = dict(getattr(f, "conditions", {}))
-            out[_key(name, conditions)] = (name, conditions, value)
+            out[figure_key(name, conditions)] = (name, conditions, value)
         return out
 
     ours, theirs = numbers(measured), numbers(twin)

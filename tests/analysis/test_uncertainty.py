@@ -297,6 +297,32 @@ def test_intercept_budget_has_the_regression_and_the_noise_of_the_product():
     assert "SNR 30.1 dB" in terms["noise"].what  # lowest: 3·(−30) + 20 + 0.1 + 100
 
 
+def test_an_im3_figure_in_dbc_carries_twice_the_drive_level_error():
+    # P_IM3 − P_fund = −2·(IIP3 − P_in) per tone (two-tone relation: Razavi, RF
+    # Microelectronics; Pozar): tones δ dB off at the DUT move the dBc figure by 2δ. The
+    # uncalibrated default simulated bench drives its tones 0.85 dB low at −25 dBm, 25 °C:
+    # its im3_high read 1.7 dB under the part's own, with a budget of 0.66 dB without this term.
+    iip3_dbm = 3.0
+
+    def im3_dbc(p_in_dbm: float) -> float:
+        return -2.0 * (iip3_dbm - p_in_dbm)
+
+    assert im3_dbc(-25.0) - im3_dbc(-25.85) == pytest.approx(1.7)
+    levels = PointLevels.from_captures(_captures([
+        (0, "if", -25.0, -13.0, -100.0), (0, "im3_high", -25.0, -69.0, -100.0)]))
+    figure = Figure("im3_high", -56.0, "dBc", points=(0,))
+    budget = figure_budget(figure, levels, InstrumentSpecs())
+    assert budget is not None
+    (level,) = [c for c in budget.contributions if c.name == "input_level"]
+    assert level.sensitivity == 2.0
+    assert budget.expanded_db >= 1.7
+    calibrated = figure_budget(figure, levels, InstrumentSpecs(),
+                               CalibrationState(frozenset({"rf", "rf2"})))
+    assert calibrated is not None
+    (meter,) = [c for c in calibrated.contributions if c.name == "input_power_meter"]
+    assert meter.sensitivity == 2.0
+
+
 def test_bounds_and_other_units_have_no_budget():
     levels = PointLevels.from_captures(_captures([(0, "if", -20.0, -8.0, -90.0)]))
     specs = InstrumentSpecs()

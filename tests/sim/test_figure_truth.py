@@ -11,9 +11,11 @@ textbook definition at the same drives), not a bench or calibration error."""
 
 from __future__ import annotations
 
+import pandas as pd
 import pytest
 
 from sweeprig.sim.bench import prepare_part, resolve_description
+from sweeprig.sim.figure_truth import figure_truth, small_signal_iip3_dbm
 from sweeprig.sim.mixer import OperatingPoint, reference_figures
 from sweeprig.sim.mixer.reference import line_power_dbm, output_freq_hz
 from sweeprig.sim.mixer.types import ToneInput
@@ -43,3 +45,20 @@ def test_the_two_tone_intercept_tends_to_the_small_signal_one_as_the_drive_falls
     assert gap[-15.0] / gap[-18.0] == pytest.approx(2.0, rel=0.15)
     assert gap[-18.0] / gap[-21.0] == pytest.approx(2.0, rel=0.15)
     assert gap[-21.0] / gap[-24.0] == pytest.approx(2.0, rel=0.15)
+
+
+def test_the_per_drive_truth_is_the_two_tone_relation_at_that_drive() -> None:
+    # P_IM3 − P_fund = −2·(IIP3 − P_in) (Razavi; Pozar; FIELD-NOTES): the dBc truth and the
+    # single-drive intercept truth are one relation, and at a low drive the lower side is the
+    # averaged intercept's truth over that one drive
+    part = prepare_part(resolve_description("bench-errors"))
+    rows = pd.DataFrame({"probe_temperature_c": [25.0], "supply_v": [3.3],
+                         "lo_freq_hz": [2.1e9], "lo_power_dbm": [0.0],
+                         "rf_freq_hz": [2.2e9], "rf_power_dbm": [-35.0]})
+    for side in ("low", "high"):
+        dbc = figure_truth(part, f"im3_{side}", rows)
+        point = figure_truth(part, f"iip3_point_{side}", rows)
+        assert dbc == pytest.approx(-2.0 * (point + 35.0), abs=1e-9)
+        assert point == pytest.approx(small_signal_iip3_dbm(part, rows), abs=0.1)
+    assert figure_truth(part, "iip3_point_low", rows) == pytest.approx(
+        figure_truth(part, "iip3_low", rows), abs=1e-9)
