@@ -5,20 +5,8 @@ connection, the sources' and the analyzer's own figures, faults...) is read by
 :mod:`sweeprig.sim.description`, which documents every key; this module builds the
 instruments around one :class:`~sweeprig.sim.world.SimWorld` and serves them.
 
-Realism (each key above has a realistic default; docs/sim-bench.md explains them):
-``[sources] spurious`` (non-harmonic lines at carrier + offset, dBc) and
-``[sources.lowpass]`` (a Butterworth low-pass per source: ``corner``, ``order``);
-``[analyzer] phase_noise`` ((offset, dBc/Hz) points: reciprocal mixing) and
-``coherent_products`` (its first-mixer products add to lines as voltages with a seeded
-phase); ``[dut] leakage_phase`` and ``leakage_delay`` (each leakage path of the part turns
-its line by φ0 − 2π·f·τ, seeded from ``seed``). What is truly at each port:
+Realism and the roles served: :mod:`sweeprig.sim.description`; what is truly at each port:
 :mod:`sweeprig.sim.truth`.
-
-Roles served: ``rf``, ``rf2``, ``lo`` (sources), ``sa`` (analyzer), ``pm`` (power meter),
-``dc`` (supply), ``chamber``, ``switch``, ``simctl``, ``nsdc`` (the supply driving the
-noise source of ``[noise_source]``: ``enr`` points (frequency, enr) of its true ENR,
-``drive_on`` volts, ``drive = "sa"`` to wire it to the analyzer's own noise-source output
-instead; ``[[interferers]]`` frequency and level plant a line on the IF path).
 """
 
 from __future__ import annotations

@@ -142,15 +142,22 @@ class PowerMeter(ScpiInstrument):
         cmd.no_params()
         self.zero_sensor()
 
+    def _zeroing_refused(self) -> bool:
+        """Count a zeroing; refuse it (an error in the queue, the sensor not zeroed) when a
+        signal reaches the sensor. Call with the lock held."""
+        self.zeroings += 1
+        if float(self.sense()) <= ZERO_REFUSED_ABOVE_DBM:
+            return False
+        self._zeroed = False
+        self.push_error(-200, "zeroing refused: a signal reaches the sensor; switch every RF "
+                        "output off and zero again")
+        return True
+
     def zero_sensor(self) -> None:
         """Zero the sensor now (see :meth:`_zero`); the clock advances by the zeroing time."""
         with self.lock:
             self.clock.sleep(ZERO_TIME_S)
-            self.zeroings += 1
-            if float(self.sense()) > ZERO_REFUSED_ABOVE_DBM:
-                self._zeroed = False
-                self.push_error(-200, "zeroing refused: a signal reaches the sensor; switch "
-                                "every RF output off and zero again")
+            if self._zeroing_refused():
                 return
             if self.zero_holds:
                 self.zero_offset_mw = 0.0

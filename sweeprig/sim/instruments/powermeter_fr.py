@@ -16,7 +16,7 @@ from __future__ import annotations
 
 from typing import Any
 
-from sweeprig.sim.instruments.powermeter import ZERO_REFUSED_ABOVE_DBM, ZERO_TIME_S, PowerMeter
+from sweeprig.sim.instruments.powermeter import ZERO_TIME_S, PowerMeter
 from sweeprig.sim.scpi import SCPI_NAN, Command, format_number
 from sweeprig.sim.scpi.errors import ScpiError
 
@@ -53,11 +53,7 @@ class FarrowmerePowerMeter(PowerMeter):
         if word != "ONCE":
             raise ScpiError(-224, f"{cmd.header} takes ONCE")
         with self.lock:
-            self.zeroings += 1
-            if float(self.sense()) > ZERO_REFUSED_ABOVE_DBM:
-                self._zeroed = False
-                self.push_error(-200, "zeroing refused: a signal reaches the sensor; switch "
-                                "every RF output off and zero again")
+            if self._zeroing_refused():
                 return
             self._zero_ends_s = self.start_operation(ZERO_TIME_S)
             if self.zero_holds:
