@@ -219,10 +219,38 @@ def test_its_source_applies_a_setting_late_unless_synchronised(whole_farrowmere)
         rm.close()
 
 
+def test_its_meter_needs_status_polling_not_opc_to_finish_a_zeroing(whole_farrowmere) -> None:
+    """Over pyvisa: after CAL:AUTO ONCE a *OPC? answers 1 at once while the zeroing still runs
+    (a reading then is refused, -230); OPERation bit 0 (SCPI-99 CALibrating) says when it
+    ends, and only then is a reading given (docs/instruments.md, FR-PM4)."""
+    import pyvisa
+
+    clock = whole_farrowmere.clock
+    rm = pyvisa.ResourceManager("@py")
+    inst = rm.open_resource(whole_farrowmere.resources["pm"], read_termination="\n",
+                            write_termination="\n", timeout=2000)
+    try:
+        inst.write("*CLS")
+        inst.write("CAL:AUTO ONCE")
+        started = clock.now()
+        assert inst.query("*OPC?") == "1" and clock.now() - started < 0.1
+        assert int(inst.query("STAT:OPER:COND?")) & 1
+        assert float(inst.query("MEAS?")) > 9e37  # SCPI-99 NaN: not zeroed yet
+        assert inst.query("SYST:ERR?").startswith("-230")
+        while int(inst.query("STAT:OPER:COND?")) & 1:  # as the fr-pm4 profile polls
+            clock.sleep(0.5)
+        assert 3.9 <= clock.now() - started <= 4.6
+        assert float(inst.query("MEAS?")) < 9e37
+        assert inst.query("SYST:ERR?").startswith("0,")
+    finally:
+        inst.close()
+        rm.close()
+
+
 def test_the_probe_on_a_served_bench_file_waits_on_the_simulators_clock(
         whole_farrowmere, tmp_path: Path) -> None:
     """``sweeprig probe RESOURCE --bench FILE`` on a bench served by the simulator: the meter's
-    4 s zeroing, completed by event-status polling, ends in simulated time (the bench file's
+    4 s zeroing, completed by polling its status, ends in simulated time (the bench file's
     simctl role gives the clock) instead of polling a frozen simulator until the timeout."""
     import time
 

@@ -4,9 +4,11 @@ The TW-PM18's simulated meter and sensor (:mod:`sweeprig.sim.instruments.powerme
 the command set of docs/instruments.md ("Power meter, second family"), written before its
 profile (drivers/fr-pm4.toml). What differs:
 
-* zeroing is ``CALibration[:ZERO]:AUTO ONCE`` and is an overlapped operation of 4 s
-  (IEEE 488.2-1992, 12.5.1: ``*OPC`` sets the event status register's bit 0 when it ends;
-  from memory); the sensor counts as zeroed only from then;
+* zeroing is ``CALibration[:ZERO]:AUTO ONCE``, 4 s in the background: not one of the
+  pending operations ``*OPC?``, ``*OPC`` and ``*WAI`` wait for (IEEE 488.2-1992 12.5 leaves
+  to the device which commands are overlapped; from memory), so they answer at once; its end
+  shows only as the OPERation condition's bit 0 (SCPI-99 CALibrating) clearing. The sensor
+  counts as zeroed only from then;
 * the sensor must be zeroed after power-on: until then ``MEASure?``/``FETCh?`` answer the
   SCPI-99 not-a-number 9.91E37 and queue ``-230`` (data corrupt or stale); no ``READ?``;
 * the not-zeroed state in the questionable register's instrument-defined bit 9.
@@ -24,6 +26,8 @@ MAKER = "Farrowmere Instruments"
 MODEL = "FR-PM4"
 #: Instrument-defined questionable bit of this family: the sensor is not zeroed.
 QUES_NOT_ZEROED_FR = 1 << 9
+#: SCPI-99 OPERation status, CALibrating bit (bit 0; from memory): a zeroing is running.
+OPER_CALIBRATING = 1 << 0
 
 
 class FarrowmerePowerMeter(PowerMeter):
@@ -55,7 +59,9 @@ class FarrowmerePowerMeter(PowerMeter):
         with self.lock:
             if self._zeroing_refused():
                 return
-            self._zero_ends_s = self.start_operation(ZERO_TIME_S)
+            # in the background, not a pending operation: *OPC?, *OPC and *WAI do not wait
+            self._zero_ends_s = self.clock.now() + ZERO_TIME_S
+            self.status.operation_event |= OPER_CALIBRATING
             if self.zero_holds:
                 self.zero_offset_mw = 0.0
             self._zeroed = True
@@ -74,3 +80,7 @@ class FarrowmerePowerMeter(PowerMeter):
 
     def questionable_condition(self) -> int:
         return 0 if self.zeroed() else QUES_NOT_ZEROED_FR
+
+    def operation_condition(self) -> int:
+        running = self.clock.now() < self._zero_ends_s < float("inf")
+        return super().operation_condition() | (OPER_CALIBRATING if running else 0)
