@@ -10,7 +10,7 @@ from sweeprig.analysis.bench_specs import specs_from_table
 from sweeprig.analysis.noise_figure import NoiseFigureResult, reduce_noise_figure
 from sweeprig.engine.connect import BenchDrivers, open_bench
 from sweeprig.engine.noise_figure import NoiseBench, NoiseSettings
-from sweeprig.formats.bench import load_bench
+from sweeprig.formats.bench import Bench, load_bench
 from sweeprig.sim.bench import SimBench, prepare_part
 from sweeprig.sim.noise_truth import part_noise_figure
 
@@ -34,10 +34,13 @@ class NoisePointOutcome:
         return self.result.nf_dsb_db - self.truth_dsb_db
 
 
-def open_noise_bench(sim: SimBench, settings: NoiseSettings | None = None
+def open_noise_bench(sim: SimBench, settings: NoiseSettings | None = None, *,
+                     bench: Bench | None = None, roles: tuple[str, ...] = ROLES
                      ) -> tuple[NoiseBench, BenchDrivers]:
-    bench = load_bench(SIM_BENCH)
-    drivers = open_bench(bench, {r: "noise figure" for r in ROLES}, resources=sim.resources,
+    """Open ``roles`` of ``bench`` (default: the shipped simulated bench) on ``sim``, prepare
+    them and switch the part's supply on."""
+    bench = bench if bench is not None else load_bench(SIM_BENCH)
+    drivers = open_bench(bench, {r: "noise figure" for r in roles}, resources=sim.resources,
                          clock=sim.clock)
     for _, driver in drivers.items():
         driver.prepare()

@@ -11,7 +11,7 @@ from pathlib import Path
 import pytest
 
 from sweeprig.clock import VirtualClock
-from sweeprig.engine.connect import BenchDrivers, open_bench
+from sweeprig.engine.connect import BenchDrivers
 from sweeprig.engine.noise_figure import NoiseBench
 from sweeprig.engine.safe import make_bench_safe, make_safe
 from sweeprig.errors import InputError
@@ -19,7 +19,7 @@ from sweeprig.formats.bench import Bench, load_bench
 from sweeprig.formats.sequence import load_sequence, required_roles
 from sweeprig.plan.noise_check import check_noise_figure
 from sweeprig.sim.bench import SimBench, resolve_description, start_sim_bench
-from tests.engine.noise_support import IF_HZ, SIM_BENCH, SUPPLY_V, measure
+from tests.engine.noise_support import IF_HZ, SIM_BENCH, measure, open_noise_bench
 
 ROLES = ("sa", "lo", "rf", "rf2", "dc", "switch", "chamber")
 
@@ -47,17 +47,8 @@ def served(tmp_path_factory: pytest.TempPathFactory
         "noise_source": desc.noise_source.model_copy(update={"drive": "sa"})})
     bench = write_bench(tmp_path_factory.mktemp("ns-output"))
     with start_sim_bench(wired, clock=VirtualClock()) as sim:
-        drivers = open_bench(bench, {r: "noise figure" for r in ROLES},
-                             resources=sim.resources, clock=sim.clock)
+        nb, drivers = open_noise_bench(sim, bench=bench, roles=ROLES)
         try:
-            for _, driver in drivers.items():
-                driver.prepare()
-            dc = drivers.dc
-            assert dc is not None
-            dc.set_current_limit(0.2)
-            dc.set_voltage(SUPPLY_V)
-            dc.set_output(True)
-            nb = NoiseBench(bench, drivers, sim.clock)
             nb.system_calibration([IF_HZ])
             yield sim, bench, nb, drivers
         finally:
