@@ -706,12 +706,9 @@ class Runner:
                     else aim.centre_hz
             else:
                 marker_hz = aim.centre_hz if found.flags else found.freq_hz
-                # only a clear line aims later searches (a weak find, noise-bent, could
-                # steer every later search off)
-                if not found.flags and found.offset_hz is not None and floor.dbm is not None \
-                        and found.level_dbm is not None \
-                        and found.level_dbm >= floor.dbm + sw.CLEAR_ABOVE_FLOOR_DB:
-                    self._offsets.append((aim.coefficients, found.offset_hz,
+                clear = found.clear_offset_hz(floor.dbm)
+                if clear is not None:
+                    self._offsets.append((aim.coefficients, clear,
                                           found.resolution_hz or a.rbw_hz))
             level = sa.marker_level_dbm(marker_hz)
         else:
@@ -757,27 +754,21 @@ class Runner:
             return records
         chosen: list[int] = []
         coefficients, offsets, resolution = [], [], []
-        analyzer = refs.reference.get("sa", "sa:crystal")
         for i, (reading, record) in enumerate(zip(point.readings, records, strict=True)):
             search = record.extra.get("search")
             if not search or not search.get("found") or record.extra.get("search_flags") \
                     or reading.orders is None:
                 continue
             rf_hz = point.rf_freq_hz if reading.rf_retune_hz is None else reading.rf_retune_hz
-            terms = sw.product_terms(reading.orders, point.lo_freq_hz, rf_hz,
-                                     point.rf2_freq_hz, refs)
             chosen.append(i)
-            coefficients.append(reference_coefficients(terms, analyzer))
+            coefficients.append(self._coefficients(reading.orders, point, rf_hz))
             offsets.append(float(search["offset_hz"]))
             resolution.append(float(search["resolution_hz"]))
-        seen = [*self._surveyed, *self._offsets]
-        if seen:
+        if self._surveyed or self._offsets:
             # the clear finds so far (this point's included) predict each product's offset
             off = []
             for c, o, res in zip(coefficients, offsets, resolution, strict=True):
-                mean, sigma = predicted_offset_hz(
-                    [k for k, _, _ in seen], [v for _, v, _ in seen], [r for _, _, r in seen],
-                    refs.tolerance_ppm, c)
+                mean, sigma = self._predicted_offset(c)
                 off.append(abs(o - mean) > AIM_SIGMAS * sigma + DISAGREE_K * res)
         else:
             off = disagreeing(coefficients, offsets, resolution, refs.tolerance_ppm)
@@ -787,6 +778,24 @@ class Runner:
                 out[i] = replace(out[i], extra={**out[i].extra,
                                                 "search_flags": [sw.FREQUENCY_OFFSET]})
         return out
+
+    def _coefficients(self, orders: tuple[int, int, int], point: Point, rf_hz: float | None
+                      ) -> dict[str, float]:
+        """How a product of ``orders`` (LO, RF, RF2) at ``point`` (the RF tone at ``rf_hz``)
+        moves with each reference's error, as the analyzer sees it, Hz per ppm."""
+        refs = self.bench.references()
+        assert refs is not None
+        terms = sw.product_terms(orders, point.lo_freq_hz, rf_hz, point.rf2_freq_hz, refs)
+        return reference_coefficients(terms, refs.reference.get("sa", "sa:crystal"))
+
+    def _predicted_offset(self, coefficients: dict[str, float]) -> tuple[float, float]:
+        """The offset (mean, standard deviation), Hz, the clear finds so far predict for a
+        product of these reference ``coefficients``."""
+        refs = self.bench.references()
+        assert refs is not None
+        seen = [*self._surveyed, *self._offsets]
+        return predicted_offset_hz([c for c, _, _ in seen], [o for _, o, _ in seen],
+                                   [r for _, _, r in seen], refs.tolerance_ppm, coefficients)
 
     def _survey(self, point: Point) -> None:
         """Once per run, each source's own line where it leaks to the IF port, read at a
@@ -805,7 +814,6 @@ class Runner:
         a = template.analyzer
         if self.d.switch is not None and self.d.switch.select(self.bench.switch_channel("if")):
             self._check(self.d.switch)
-        analyzer_ref = refs.reference.get("sa", "sa:crystal")
         for role, freq_hz, orders in (("lo", point.lo_freq_hz, (1, 0, 0)),
                                       ("rf", point.rf_freq_hz, (0, 1, 0)),
                                       ("rf2", point.rf2_freq_hz, (0, 0, 1))):
@@ -827,18 +835,13 @@ class Runner:
             floor = estimate_noise_floor(trace.levels_dbm, trace.freq_hz, rbw, (freq_hz,))
             found = sw.search(trace.freq_hz, trace.levels_dbm, freq_hz, half, bound, rbw,
                               floor.dbm)
-            terms = sw.product_terms(orders, point.lo_freq_hz, point.rf_freq_hz,
-                                     point.rf2_freq_hz, refs)
-            clear = found.offset_hz is not None and not found.flags and \
-                floor.dbm is not None and found.level_dbm is not None and \
-                found.level_dbm >= floor.dbm + sw.CLEAR_ABOVE_FLOOR_DB
-            if clear:
-                assert found.offset_hz is not None
-                self._surveyed.append((reference_coefficients(terms, analyzer_ref),
-                                       found.offset_hz, found.resolution_hz or rbw))
+            clear = found.clear_offset_hz(floor.dbm)
+            if clear is not None:
+                self._surveyed.append((self._coefficients(orders, point, point.rf_freq_hz),
+                                       clear, found.resolution_hz or rbw))
             self._event("info", "timebase", f"reference survey, role {role!r} at "
-                        f"{freq_hz:g} Hz: " + (f"line {found.offset_hz:+.1f} Hz off"
-                                               if clear else "no clear line found"),
+                        f"{freq_hz:g} Hz: " + (f"line {clear:+.1f} Hz off"
+                                               if clear is not None else "no clear line found"),
                         point.index)
 
     def _aim(self, point: Point, reading: Reading, sa: AnalyzerDriver, *,
@@ -853,16 +856,9 @@ class Runner:
         assert reading.analyzer is not None and reading.freq_hz is not None
         assert reading.search_hz is not None and reading.orders is not None
         a = reading.analyzer
-        refs = self.bench.references()
-        assert refs is not None
         rf_hz = point.rf_freq_hz if reading.rf_retune_hz is None else reading.rf_retune_hz
-        terms = sw.product_terms(reading.orders, point.lo_freq_hz, rf_hz, point.rf2_freq_hz,
-                                 refs)
-        coefficients = reference_coefficients(terms, refs.reference.get("sa", "sa:crystal"))
-        seen = [*self._surveyed, *self._offsets]
-        mean, sigma = predicted_offset_hz([c for c, _, _ in seen], [o for _, o, _ in seen],
-                                          [r for _, _, r in seen], refs.tolerance_ppm,
-                                          coefficients)
+        coefficients = self._coefficients(reading.orders, point, rf_hz)
+        mean, sigma = self._predicted_offset(coefficients)
         half = AIM_SIGMAS * sigma + sw.SEARCH_SLACK_RBW * a.rbw_hz
         room = a.span_hz / 2.0 - sw.FLOOR_ROOM_RBW / 2.0 * a.rbw_hz
         if not wide and half <= max(room, sw.SEARCH_SLACK_RBW * a.rbw_hz) \

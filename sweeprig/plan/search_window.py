@@ -110,9 +110,18 @@ class Found:
     level_dbm: float | None
     flags: tuple[str, ...] = ()
     resolution_hz: float | None = None
-    highest_hz: float | None = None
     """How closely the offset is known: the trace's point spacing plus
     :data:`CENTRE_SLACK_RBW` of the RBW, Hz."""
+    highest_hz: float | None = None
+
+    def clear_offset_hz(self, floor_dbm: float | None) -> float | None:
+        """The offset of a clear find (unflagged, :data:`CLEAR_ABOVE_FLOOR_DB` over the
+        floor): only such a line may aim later searches (a weak find, noise-bent, could steer
+        them off); None otherwise."""
+        if self.flags or self.offset_hz is None or self.level_dbm is None or \
+                floor_dbm is None or self.level_dbm < floor_dbm + CLEAR_ABOVE_FLOOR_DB:
+            return None
+        return self.offset_hz
 
 
 #: A line's centre is fitted over the filter's top when it holds at least this many trace
