@@ -6,11 +6,11 @@ from datetime import UTC, datetime
 from typing import TYPE_CHECKING, Annotated
 
 import typer
-from rich.console import Console
 
+from sweeprig.cli import term
 from sweeprig.cli.common import RunStoreOption, fail
 from sweeprig.errors import InputError, SweeprigError
-from sweeprig.store.base import DEFAULT_STORE_PATH
+from sweeprig.store.paths import DEFAULT_STORE_PATH
 from sweeprig.text import one_line
 
 if TYPE_CHECKING:
@@ -52,7 +52,7 @@ def bus_command(
             entries = db.bus_log(run_id, limit=last, since=start, until=end, role=role)
     except SweeprigError as exc:
         raise fail(exc) from None
-    console = Console(highlight=False, soft_wrap=True)
+    console = term.Console(highlight=False, soft_wrap=True)
     if not entries:
         console.print(f"run {run_id}: no bus log entries match (was it run with --bus-log?)")
         return

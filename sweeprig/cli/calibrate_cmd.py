@@ -10,9 +10,8 @@ from pathlib import Path
 from typing import Annotated
 
 import typer
-from rich.console import Console
-from rich.text import Text
 
+from sweeprig.cli import term
 from sweeprig.cli.common import fail
 from sweeprig.errors import SweeprigError
 
@@ -85,8 +84,8 @@ def calibrate_command(
 
     from sweeprig.engine.calibrate import calibrate_sources
 
-    console = Console(highlight=False, soft_wrap=True)
-    console.print(Text(
+    console = term.Console(highlight=False, soft_wrap=True)
+    console.print(term.Text(
         "Caution: the calibration switches RF on at the levels the sequence gives each source "
         "(never above 10 dB under the power meter's maximum input) and at most -10 dBm for "
         "the output paths; on a real bench check the bench file's limits, the cabling and that "
@@ -107,7 +106,7 @@ def calibrate_command(
             valid_for=timedelta(days=valid_days), temperature_c=temperature,
             sim_description=sim_bench, levelling=levelling,
             operator=_operator(console) if attended else None,
-            on_step=lambda message: console.print(Text(f"  {message}", style="dim")))
+            on_step=lambda message: console.print(term.Text(f"  {message}", style="dim")))
     except SweeprigError as exc:
         raise fail(exc) from None
     for connection, (freqs, losses) in result.tables.items():
@@ -117,21 +116,21 @@ def calibrate_command(
         if grid is not None:
             shape += (f" at {grid[0]:g} dBm" if len(grid) == 1 else
                       f" × {len(grid)} levels ({grid[0]:g} to {grid[-1]:g} dBm)")
-        console.print(Text(
+        console.print(term.Text(
             f"{connection}: {shape}, loss {float(np.min(losses)):.3f} to "
             f"{float(np.max(losses)):.3f} dB" + (f", repeats within {spread:.3f} dB (1 sigma)"
                                                   if spread is not None else "")))
     for connection, counts in result.level_iterations.items():
-        console.print(Text(f"{connection}: levelled in {min(counts)} to {max(counts)} "
-                           f"settings (mean {sum(counts) / len(counts):.1f})"))
+        console.print(term.Text(f"{connection}: levelled in {min(counts)} to {max(counts)} "
+                                f"settings (mean {sum(counts) / len(counts):.1f})"))
     for connection, why in result.skipped.items():
-        console.print(Text(f"{connection}: not calibrated: {why}", style="yellow"))
+        console.print(term.Text(f"{connection}: not calibrated: {why}", style="yellow"))
     if result.safe is not None:
-        console.print(Text("safe state read back: " + (", ".join(result.safe.done)
+        console.print(term.Text("safe state read back: " + (", ".join(result.safe.done)
                                                      or "nothing to do")))
-    console.print(Text(f"calibration written: {result.path} (bench time "
-                       f"{result.duration_s:.1f} s); use it with "
-                       f"`sweeprig run ... --calibration {result.path}`"))
+    console.print(term.Text(f"calibration written: {result.path} (bench time "
+                            f"{result.duration_s:.1f} s); use it with "
+                            f"`sweeprig run ... --calibration {result.path}`"))
 
 
 def _parse_levels(text: str, option: str) -> list[float]:
@@ -153,11 +152,11 @@ def _parse_levels(text: str, option: str) -> list[float]:
     return values
 
 
-def _operator(console: Console) -> Callable[[str], bool]:
+def _operator(console: term.Console) -> Callable[[str], bool]:
     """Tell the operator a step and wait for a line on standard input (False at its end)."""
 
     def ask(prompt: str) -> bool:
-        console.print(Text(prompt, style="bold"))
+        console.print(term.Text(prompt, style="bold"))
         return sys.stdin.readline() != ""
 
     return ask

@@ -14,11 +14,9 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Annotated
 
 import typer
-from rich.console import Console
-from rich.table import Table
-from rich.text import Text
 
 import sweeprig
+from sweeprig.cli import term
 from sweeprig.cli.common import error_console, fail, print_error
 from sweeprig.errors import SweeprigError
 from sweeprig.formats.point_limit import DEFAULT_MAX_POINTS
@@ -54,8 +52,8 @@ def known_profiles() -> set[str] | None:
 # -- output helpers ---------------------------------------------------------------------------
 
 
-def _out() -> Console:
-    return Console(soft_wrap=True, highlight=False)
+def _out() -> term.Console:
+    return term.Console(soft_wrap=True, highlight=False)
 
 
 _err = error_console
@@ -133,7 +131,7 @@ def check(
     try:
         loaded_bench, bench_name = _load_bench_or_sim(bench)
         if calibration is not None:
-            out.print(Text(_calibration_status(loaded_bench, calibration, accept_calibration)))
+            out.print(term.Text(_calibration_status(loaded_bench, calibration, accept_calibration)))
     except SweeprigError as exc:
         _write_junit(junit, [(str(p), 0.0, exc) for p in sequences])
         raise _fail(exc) from None
@@ -145,22 +143,22 @@ def check(
             sequence, report = check_file(path, loaded_bench, max_points)
         except SweeprigError as exc:
             results.append((str(path), time.perf_counter() - t0, exc))
-            out.print(Text("FAIL ", style="bold red") + Text(one_line(path)))
+            out.print(term.Text("FAIL ", style="bold red") + term.Text(one_line(path)))
             for line in problem_lines(exc):
-                out.print(Text(line))
+                out.print(term.Text(line))
             exit_code = exit_code or exc.exit_code
             continue
         results.append((str(path), time.perf_counter() - t0, None))
-        out.print(Text("ok   ", style="bold green") + Text(
+        out.print(term.Text("ok   ", style="bold green") + term.Text(
             f"{one_line(path)}  ({sequence.count_points():,} points, within the limits of "
             f"{one_line(bench_name)})"))
         for note in report.notes + list(report.risks.assumptions if report.risks else ()):
-            out.print(Text(f"  note: {one_line(note)}"))
+            out.print(term.Text(f"  note: {one_line(note)}"))
         for warning in report.warnings:
-            out.print(Text("  warning: ", style="bold yellow") + Text(one_line(warning)))
+            out.print(term.Text("  warning: ", style="bold yellow") + term.Text(one_line(warning)))
         if report.risks is not None:
             for line in summary_lines(report.risks):
-                out.print(Text(f"    {one_line(line)}"))
+                out.print(term.Text(f"    {one_line(line)}"))
     _write_junit(junit, results)
     failed = sum(1 for _, _, e in results if e is not None)
     if failed:
@@ -291,16 +289,16 @@ def plan(
     out = _out()
     lay = layout(seq)
     title = seq.about.title or seq.source or str(sequence)
-    out.print(Text(one_line(title), style="bold"))
-    out.print(Text(f"part {one_line(seq.part.id)}   bench: {one_line(bench_name)}"))
+    out.print(term.Text(one_line(title), style="bold"))
+    out.print(term.Text(f"part {one_line(seq.part.id)}   bench: {one_line(bench_name)}"))
     if status is not None:
-        out.print(Text(status))
+        out.print(term.Text(status))
     out.print(f"{lay.total:,} points = {lay.pass_size:,} per pass × {lay.n_temperatures} "
               f"temperature(s) × {lay.n_supplies} supply voltage(s)")
     for warning in sim_warnings:
-        out.print(Text("warning: ", style="bold yellow") + Text(one_line(warning)))
+        out.print(term.Text("warning: ", style="bold yellow") + term.Text(one_line(warning)))
 
-    studies = Table(title="Studies", title_justify="left")
+    studies = term.Table(title="Studies", title_justify="left")
     for col in ("study", "points", "axes (outer → inner)", "predicted time"):
         studies.add_column(col, justify="right" if col == "points" else "left")
     by_name = {s.name: s for s in estimate.studies}
@@ -312,21 +310,21 @@ def plan(
                         format_duration(est.total_s) + (" (sampled)" if est.sampled else ""))
     out.print(studies)
 
-    timing = Table(title="Predicted duration on a real bench", title_justify="left")
+    timing = term.Table(title="Predicted duration on a real bench", title_justify="left")
     timing.add_column("step")
     timing.add_column("time", justify="right")
     timing.add_row("settling", format_duration(estimate.settle_s))
     timing.add_row("analyzer sweeps", format_duration(estimate.sweep_s))
     timing.add_row("chamber ramps and soaks", format_duration(estimate.chamber_s))
     timing.add_row("command overhead", format_duration(estimate.overhead_s))
-    timing.add_row(Text("total", style="bold"), Text(format_duration(estimate.total_s),
+    timing.add_row(term.Text("total", style="bold"), term.Text(format_duration(estimate.total_s),
                                                       style="bold"))
     if estimate.soak_extra_max_s > 0:
         timing.add_row("total if every adaptive soak runs to its maximum",
                        format_duration(estimate.total_max_s))
     out.print(timing)
 
-    ports = Table(title="Predicted maxima against the limits", title_justify="left")
+    ports = term.Table(title="Predicted maxima against the limits", title_justify="left")
     for col in ("check", "predicted", "limit", "margin", "at point", "status", "limit set by"):
         ports.add_column(col, justify="left" if col in ("check", "status", "limit set by")
                          else "right")
@@ -335,14 +333,15 @@ def plan(
         margin = "-" if math.isinf(c.margin) else format_amount(
             c.margin, "dB" if c.unit == "dBm" else c.unit)  # a distance between levels: dB
         at = "-" if c.worst_index is None else str(c.worst_index)
-        status = Text("ok", style="green") if c.ok else Text("OVER LIMIT", style="bold red")
+        status = (term.Text("ok", style="green") if c.ok
+                  else term.Text("OVER LIMIT", style="bold red"))
         ports.add_row(c.label, worst, f"{'≤' if c.bound == 'max' else '≥'} "
                       f"{format_amount(c.limit, c.unit, precise=False)}", margin, at, status,
                       c.limit_key.split(" (")[0])
     out.print(ports)
     if report.risks is not None and report.risks.groups:
-        risks = Table(title="Readings that cannot be trusted as planned (predicted before the "
-                      "run)", title_justify="left")
+        risks = term.Table(title="Readings that cannot be trusted as planned (predicted before the "
+                           "run)", title_justify="left")
         for col in ("study", "reading", "risk", "readings", "why (first point)"):
             risks.add_column(col, justify="right" if col == "readings" else "left")
         for g in report.risks.groups:
@@ -353,9 +352,9 @@ def plan(
             if risk in report.risks.counts():
                 out.print(f"  {risk}: {meaning}")
     for note in report.notes + list(report.risks.assumptions if report.risks else ()):
-        out.print(Text(f"note: {one_line(note)}"))
+        out.print(term.Text(f"note: {one_line(note)}"))
     for warning in report.warnings:
-        out.print(Text("warning: ", style="bold yellow") + Text(one_line(warning)))
+        out.print(term.Text("warning: ", style="bold yellow") + term.Text(one_line(warning)))
     if not report.ok:
         first = min(report.violations, key=lambda c: c.violation_index or 0)
         raise _fail(safety_error(seq, first))

@@ -11,23 +11,22 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Annotated
 
 import typer
-from rich.console import Console
-from rich.text import Text
 
+from sweeprig.cli import term
 from sweeprig.errors import InputError, SweeprigError
 
 if TYPE_CHECKING:
     from sweeprig.store.open import StoreTarget
 
 
-def error_console() -> Console:
+def error_console() -> term.Console:
     """A console on standard error that wraps long paths and never reads markup."""
-    return Console(stderr=True, soft_wrap=True, highlight=False)
+    return term.Console(stderr=True, soft_wrap=True, highlight=False)
 
 
 def print_error(exc: SweeprigError, *, prefix: str = "error: ") -> None:
     """Print ``exc`` as one plain-text message on standard error."""
-    error_console().print(Text(prefix, style="bold red") + Text(exc.message()))
+    error_console().print(term.Text(prefix, style="bold red") + term.Text(exc.message()))
 
 
 def fail(exc: SweeprigError) -> typer.Exit:
@@ -66,7 +65,7 @@ def chosen_store(store: Path, db: str | None) -> StoreTarget:
     """The run store a one-bench command uses: the lab database ``--db`` (or
     ``SWEEPRIG_DB``) names, else the SQLite file ``--store``. A ``--store`` other than the
     default together with a database is an :class:`InputError` (never a guess between them)."""
-    from sweeprig.store.base import DEFAULT_STORE_PATH
+    from sweeprig.store.paths import DEFAULT_STORE_PATH
 
     if not db:
         return store

@@ -6,9 +6,8 @@ from pathlib import Path
 from typing import Annotated
 
 import typer
-from rich.console import Console
-from rich.text import Text
 
+from sweeprig.cli import term
 from sweeprig.cli.common import fail
 from sweeprig.errors import InputError, SweeprigError
 
@@ -43,7 +42,7 @@ def write_command(
     from sweeprig.seqtest.golden import golden_path, golden_text
     from sweeprig.seqtest.judge import test_sequence
 
-    console = Console(highlight=False)
+    console = term.Console(highlight=False)
     try:
         verdict = test_sequence(sequence, use_golden=False)
         if any(m.figure == "(the run)" for m in verdict.failed):
@@ -57,4 +56,4 @@ def write_command(
     except SweeprigError as exc:
         raise fail(exc) from None
     count = text.count("[[figure]]")
-    console.print(Text(f"golden figures: {target} ({count} figures, ± {tolerance:g} dB)"))
+    console.print(term.Text(f"golden figures: {target} ({count} figures, ± {tolerance:g} dB)"))

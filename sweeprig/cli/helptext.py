@@ -68,10 +68,18 @@ def tidy_command(command: Any) -> None:
             param.metavar = value_name(param)
     help_text = getattr(command, "help", None)
     if help_text and not getattr(command, "short_help", None):
-        first = inspect.cleandoc(help_text).split("\n\n")[0]
-        command.short_help = " ".join(first.split())
+        command.short_help = short_help_of(help_text)
     for sub in (getattr(command, "commands", None) or {}).values():
         tidy_command(sub)
+
+
+def short_help_of(help_text: str, short_help: str | None = None) -> str:
+    """A command's line in the command list: its own short help if it has one, else the whole
+    first paragraph of its help on one line."""
+    if short_help:
+        return inspect.cleandoc(short_help).strip()
+    first = inspect.cleandoc(help_text or "").split("\n\n")[0]
+    return " ".join(first.split())
 
 
 class HelpGroup(TyperGroup):

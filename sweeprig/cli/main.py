@@ -19,7 +19,28 @@ from sweeprig.cli import (
     store_cmd,
     twin_cmd,
 )
-from sweeprig.cli.helptext import HelpGroup
+from sweeprig.cli.command_tree import root_group
+
+#: Where every command registers; the root group builds each one when it is first asked for.
+commands = typer.Typer()
+run_cmd.register(commands)
+check_cmd.register(commands)
+store_cmd.register(commands)
+scan_cmd.register(commands)
+bus_cmd.register(commands)
+report_cmd.register(commands)
+calibrate_cmd.register(commands)
+night_cmd.register(commands)
+probe_cmd.register(commands)
+commands.add_typer(twin_cmd.app, name="twin")
+commands.add_typer(golden_cmd.app, name="golden")
+lab_cmd.register(commands)
+commands.add_typer(sim_cmd.app, name="sim")  # a module that fails to import fails the command
+
+
+def _root() -> None:
+    """The root's own callback: nothing to do before a command."""
+
 
 app = typer.Typer(
     name="sweeprig",
@@ -29,22 +50,9 @@ app = typer.Typer(
     add_completion=False,
     pretty_exceptions_enable=False,
     rich_markup_mode=None,  # plain help: rich markup would swallow "[safe_state]" (helptext.py)
-    cls=HelpGroup,
+    cls=root_group(commands),
+    callback=_root,
 )
-
-run_cmd.register(app)
-check_cmd.register(app)
-store_cmd.register(app)
-scan_cmd.register(app)
-bus_cmd.register(app)
-report_cmd.register(app)
-calibrate_cmd.register(app)
-night_cmd.register(app)
-probe_cmd.register(app)
-app.add_typer(twin_cmd.app, name="twin")
-app.add_typer(golden_cmd.app, name="golden")
-lab_cmd.register(app)
-app.add_typer(sim_cmd.app, name="sim")  # a module that fails to import fails the command
 
 
 def main() -> None:

@@ -8,17 +8,14 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Annotated, Any
 
 import typer
-from rich.console import Console
-from rich.table import Table
-from rich.text import Text
 
+from sweeprig.cli import term
 from sweeprig.cli.common import QuietOption, RunStoreOption, SimBenchOption, SimOption, print_error
 from sweeprig.cli.run_cmd import _drive
 from sweeprig.engine.notify import NOTIFY_ENV
 from sweeprig.errors import BENCH_UNSAFE_EXIT_CODE, SweeprigError
 from sweeprig.signals import active
-from sweeprig.store.base import DEFAULT_STORE_PATH
-from sweeprig.store.paths import run_folder
+from sweeprig.store.paths import DEFAULT_STORE_PATH, run_folder
 from sweeprig.text import one_line
 
 if TYPE_CHECKING:
@@ -70,7 +67,7 @@ def night_command(
     from sweeprig.engine.night import prepare_night
     from sweeprig.engine.notify import notify_command
 
-    console = Console(highlight=False)
+    console = term.Console(highlight=False)
     try:
         command = notify_command(notify)
         night, items = prepare_night(plan, bench=bench, sim=sim, sim_description=sim_bench)
@@ -103,7 +100,7 @@ def _journal(plan: Path, store: Path, items: list[NightItem], *, resume: bool) -
                          fix="give a store in a folder you can write to (--store)") from None
 
 
-def _night(console: Console, plan: Path, night: NightPlan, items: list[NightItem],
+def _night(console: term.Console, plan: Path, night: NightPlan, items: list[NightItem],
            journal: NightJournal, command: list[str] | None, *, store: Path, sim: bool,
            sim_bench: str | None, quiet: bool, report: bool) -> None:
     from sweeprig.engine.night import night_status, predicted_night_s, write_night_summary
@@ -111,13 +108,13 @@ def _night(console: Console, plan: Path, night: NightPlan, items: list[NightItem
     from sweeprig.plan.duration import format_duration
 
     predicted_s = predicted_night_s(items)
-    console.print(Text(f"night of {len(items)} part(s) from {one_line(plan)}: "
-                       + ", ".join(f"{i.part.serial} ({Path(i.part.sequence).name})"
+    console.print(term.Text(f"night of {len(items)} part(s) from {one_line(plan)}: "
+                            + ", ".join(f"{i.part.serial} ({Path(i.part.sequence).name})"
                                    for i in items)
-                       + f"; predicted bench time {format_duration(predicted_s)} without the "
-                       "part changes"))
+                            + f"; predicted bench time {format_duration(predicted_s)} without the "
+                            "part changes"))
     if journal.resumed:
-        console.print(Text(f"resuming night {journal.number} (started {journal.started_utc})"))
+        console.print(term.Text(f"resuming night {journal.number} (started {journal.started_utc})"))
     ends: list[PartEnd] = []
     stop_note: str | None = None
     for item in items:
@@ -125,8 +122,8 @@ def _night(console: Console, plan: Path, night: NightPlan, items: list[NightItem
         if prior.run_id is not None and prior.status != "complete":
             prior = _as_stored(store, item, prior)
         if prior.status == "complete":
-            console.print(Text(f"part {item.index + 1}: serial {one_line(item.part.serial)} "
-                               f"complete already (run {prior.run_id})"))
+            console.print(term.Text(f"part {item.index + 1}: serial {one_line(item.part.serial)} "
+                                    f"complete already (run {prior.run_id})"))
             ends.append(prior)
             journal.record(item.index, prior)
             continue
@@ -158,33 +155,35 @@ def _night(console: Console, plan: Path, night: NightPlan, items: list[NightItem
     summary: Path | None = None
     try:
         summary = write_night_summary(journal.folder, str(plan), ends, store, predicted_s)
-        console.print(Text(f"  night summary: {summary}"))
+        console.print(term.Text(f"  night summary: {summary}"))
     except OSError as exc:
-        console.print(Text(f"  night summary not written: {exc.strerror or exc}", style="yellow"))
+        console.print(term.Text(f"  night summary not written: {exc.strerror or exc}",
+                                style="yellow"))
     if status == "partial":
         resume_night = (f"sweeprig night {shlex.quote(str(plan))} --resume --store "
                         f"{shlex.quote(str(store))}" + (" --sim" if sim else "")
                         + (f" --sim-bench {shlex.quote(sim_bench)}" if sim_bench else ""))
-        console.print(Text(f"  next, for the whole night: {one_line(resume_night)}",
-                           style="bold"))
+        console.print(term.Text(f"  next, for the whole night: {one_line(resume_night)}",
+                                style="bold"))
     if command is not None:
         result = run_notification(command, {
             "SWEEPRIG_NIGHT_STATUS": status, "SWEEPRIG_SUMMARY": str(summary or ""),
             "SWEEPRIG_STORE": str(store),
             "SWEEPRIG_RUN_IDS": " ".join(str(e.run_id) for e in ends if e.run_id is not None),
         })
-        console.print(Text(f"  {one_line(result.message)}", style="" if result.ok else "yellow"))
+        console.print(term.Text(f"  {one_line(result.message)}",
+                                style="" if result.ok else "yellow"))
     if status == "unsafe":
         raise typer.Exit(BENCH_UNSAFE_EXIT_CODE)
     if status != "complete":
         raise typer.Exit(1)
 
 
-def _changed(console: Console, item: NightItem) -> bool:
+def _changed(console: term.Console, item: NightItem) -> bool:
     """Ask the operator to change the part; True once confirmed (end of input: False)."""
-    console.print(Text(f"The bench is safe (read back above). Change the part now: mount "
-                       f"serial {item.part.serial} ({item.part.sequence}), then press Enter "
-                       "(type stop to end the night).", style="bold"))
+    console.print(term.Text(f"The bench is safe (read back above). Change the part now: mount "
+                            f"serial {item.part.serial} ({item.part.sequence}), then press Enter "
+                            "(type stop to end the night).", style="bold"))
     try:
         answer = input()
     except EOFError:
@@ -206,13 +205,14 @@ def resume_run(*args: Any, **kwargs: Any) -> RunOutcome:
     return resume(*args, **kwargs)
 
 
-def _run_part(console: Console, item: NightItem, journal: NightJournal, *, store: Path,
+def _run_part(console: term.Console, item: NightItem, journal: NightJournal, *, store: Path,
               sim_bench: str | None, quiet: bool, report: bool,
               resume_id: int | None = None) -> tuple[PartEnd, int]:
     from sweeprig.engine.night import PartEnd
 
     again = f" (resuming run {resume_id})" if resume_id is not None else ""
-    console.print(Text(f"part {item.index + 1}: serial {item.part.serial}{again}", style="bold"))
+    console.print(term.Text(f"part {item.index + 1}: serial {item.part.serial}{again}",
+                            style="bold"))
     seen: dict[str, RunOutcome] = {}
 
     def start(started, point_done, waiting) -> RunOutcome:  # type: ignore[no-untyped-def]
@@ -285,11 +285,11 @@ def _not_run(item: NightItem, why: str) -> PartEnd:
     return PartEnd(item.part.serial, item.part.sequence, None, "not run", reason=why)
 
 
-def _print_night(console: Console, ends: list[PartEnd]) -> None:
+def _print_night(console: term.Console, ends: list[PartEnd]) -> None:
     from sweeprig.engine.night import night_status
     from sweeprig.plan.duration import format_duration
 
-    table = Table(title=f"night: {night_status(ends)}", title_justify="left")
+    table = term.Table(title=f"night: {night_status(ends)}", title_justify="left")
     for column in ("part", "serial", "run", "status", "verdict", "bench time", "note"):
         table.add_column(column)
     for n, end in enumerate(ends, start=1):
@@ -300,8 +300,8 @@ def _print_night(console: Console, ends: list[PartEnd]) -> None:
     console.print(table)
     for end in ends:
         if end.run_id is not None and end.status not in ("complete",):
-            console.print(Text(f"  next for serial {one_line(end.serial)}: sweeprig resume "
-                               f"{end.run_id} (see the part's own lines above)", style="bold"))
+            console.print(term.Text(f"  next for serial {one_line(end.serial)}: sweeprig resume "
+                                    f"{end.run_id} (see the part's own lines above)", style="bold"))
 
 
 def register(app: typer.Typer) -> None:

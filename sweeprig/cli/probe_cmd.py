@@ -9,10 +9,8 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Annotated
 
 import typer
-from rich.console import Console
-from rich.table import Table
-from rich.text import Text
 
+from sweeprig.cli import term
 from sweeprig.cli.common import fail
 from sweeprig.errors import InputError, SweeprigError
 from sweeprig.text import one_line
@@ -123,19 +121,19 @@ def _simulator_clock(bench: object, library: str, timeout_s: float) -> tuple[Clo
         raise
 
 
-def print_report(report: ProbeReport, console: Console) -> None:
+def print_report(report: ProbeReport, console: term.Console) -> None:
     """The table of steps, then the counts and the cautions."""
-    table = Table(title=f"probe of {report.resource} with profile {report.profile!r}",
-                  title_justify="left")
+    table = term.Table(title=f"probe of {report.resource} with profile {report.profile!r}",
+                       title_justify="left")
     for column in ("operation", "result", "sent", "value", "read back", "ms", "what / fix"):
         table.add_column(column, overflow="fold")
     for step in report.steps:
         ms = "" if step.round_trip_ms is None or not math.isfinite(step.round_trip_ms) else (
             f"{step.round_trip_ms:.1f}")
         note = step.detail + (f"\nfix: {step.fix}" if step.fix else "")
-        table.add_row(step.op, Text(step.result, style=_STYLE[step.result]),
-                      Text(one_line("; ".join(step.sent))), Text(step.value or ""),
-                      Text(one_line(step.read_back or "")), ms, Text(note))
+        table.add_row(step.op, term.Text(step.result, style=_STYLE[step.result]),
+                      term.Text(one_line("; ".join(step.sent))), term.Text(step.value or ""),
+                      term.Text(one_line(step.read_back or "")), ms, term.Text(note))
     console.print(table)
     counts = report.counts()
     console.print(", ".join(f"{n} {k}" for k, n in counts.items()))
@@ -180,7 +178,7 @@ def probe_command(
     """
     from sweeprig.instruments.probe import CAUTIONS
 
-    console = Console(highlight=False)
+    console = term.Console(highlight=False)
     for caution in CAUTIONS:
         console.print(caution)
     try:

@@ -6,9 +6,8 @@ from pathlib import Path
 from typing import Annotated
 
 import typer
-from rich.console import Console
-from rich.text import Text
 
+from sweeprig.cli import term
 from sweeprig.cli.common import DbOption, chosen_store, fail
 from sweeprig.errors import (
     VERDICT_FAILED_EXIT_CODE,
@@ -16,8 +15,7 @@ from sweeprig.errors import (
     SweeprigError,
     verdict_exit_code,
 )
-from sweeprig.store.base import DEFAULT_STORE_PATH
-from sweeprig.store.paths import run_folder
+from sweeprig.store.paths import DEFAULT_STORE_PATH, run_folder
 
 _REPORT_HELP = """Reduce a stored run to datasheet figures, judge them against the sequence's
 [[spec]] limits, and write the report.
@@ -61,7 +59,7 @@ def report_command(
     from sweeprig.report.terminal import print_summary
     from sweeprig.store.open import open_run_store
 
-    console = Console(highlight=False)
+    console = term.Console(highlight=False)
     try:
         target = chosen_store(store, db)
         folder = out if out is not None else run_folder(target, run_id)
@@ -71,9 +69,9 @@ def report_command(
     except SweeprigError as exc:
         raise fail(exc) from None
     print_summary(run, console)
-    console.print(Text(f"report: {files.html}"))
-    console.print(Text(f"figures: {files.figures_json}; tables: "
-                       + ", ".join(p.name for p in files.tables)))
+    console.print(term.Text(f"report: {files.html}"))
+    console.print(term.Text(f"figures: {files.figures_json}; tables: "
+                            + ", ".join(p.name for p in files.tables)))
     if fail_on_verdict and verdict_exit_code(run.verdict):
         raise typer.Exit(verdict_exit_code(run.verdict))
 

@@ -9,9 +9,8 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Annotated, Any
 
 import typer
-from rich.console import Console
-from rich.text import Text
 
+from sweeprig.cli import term
 from sweeprig.cli.common import (
     DbOption,
     QuietOption,
@@ -33,8 +32,7 @@ from sweeprig.errors import (
     verdict_exit_code,
 )
 from sweeprig.signals import RunStopped, active
-from sweeprig.store.base import DEFAULT_STORE_PATH
-from sweeprig.store.paths import run_folder
+from sweeprig.store.paths import DEFAULT_STORE_PATH, run_folder
 from sweeprig.text import escape_controls, one_line
 
 if TYPE_CHECKING:
@@ -127,7 +125,7 @@ def _drive(start: Callable[..., RunOutcome], *, quiet: bool, report: bool = True
     from sweeprig.engine.notify import notify_command
     from sweeprig.engine.session import LoadedFiles
 
-    console = Console(highlight=False)
+    console = term.Console(highlight=False)
     try:
         notify = notify_command(notify_option) if notify_each else None  # a night's: once
     except SweeprigError as exc:
@@ -141,10 +139,10 @@ def _drive(start: Callable[..., RunOutcome], *, quiet: bool, report: bool = True
         from sweeprig.report.live_line import LiveLine, swept_fields
 
         where = "the simulated bench" if files.simulated else files.bench_path
-        console.print(Text(f"run {run_id}: {one_line(files.sequence_path)} on {one_line(where)}, "
-                           f"{total} points"))
+        console.print(term.Text(
+            f"run {run_id}: {one_line(files.sequence_path)} on {one_line(where)}, {total} points"))
         for warning in files.sim_warnings:
-            console.print(Text(f"warning: {warning}", style="yellow"))
+            console.print(term.Text(f"warning: {warning}", style="yellow"))
         if quiet:
             return
         live["line"] = LiveLine(total, swept_fields(files.sequence))
@@ -194,9 +192,9 @@ def _drive(start: Callable[..., RunOutcome], *, quiet: bool, report: bool = True
     elif outcome.status == "unsafe" or (outcome.safe is not None and not outcome.safe.ok):
         if verdict is not None:  # the figures were printed after the warning: say it again
             failed = outcome.safe.failed if outcome.safe is not None else ()
-            console.print(Text("BENCH NOT PROVEN SAFE (see above): "
-                               + (", ".join(name for name, _m in failed) or "safe state")
-                               + " not verified; act by hand now.", style="bold red"))
+            console.print(term.Text("BENCH NOT PROVEN SAFE (see above): "
+                                    + (", ".join(name for name, _m in failed) or "safe state")
+                                    + " not verified; act by hand now.", style="bold red"))
         code = BENCH_UNSAFE_EXIT_CODE
     elif stopped is not None and outcome.status == "complete":  # a signal while it finished
         console.print(f"stopped by {stopped} as the run ended; report not written")
@@ -223,7 +221,7 @@ class _Made:
     counts: dict[str, int]
 
 
-def _report(console: Console, outcome: RunOutcome) -> _Made | None:
+def _report(console: term.Console, outcome: RunOutcome) -> _Made | None:
     """Reduce the run to figures, write the report next to the store, print the summary.
 
     A problem here is reported but does not change how the run ended.
@@ -244,12 +242,12 @@ def _report(console: Console, outcome: RunOutcome) -> _Made | None:
         print_error(exc, prefix="report not written: ")
         return None
     print_summary(figures, console)
-    console.print(Text(f"  report: {files.html}  (figures: {files.figures_json})"))
+    console.print(term.Text(f"  report: {files.html}  (figures: {files.figures_json})"))
     return _Made(figures.verdict, files.html, files.figures_json,
                  dict(figures.assessment.counts))
 
 
-def _announce(console: Console, outcome: RunOutcome, made: _Made | None,
+def _announce(console: term.Console, outcome: RunOutcome, made: _Made | None,
               notify: tuple[str, ...] | None) -> None:
     """Write the run's summary.json beside its report and run the notification command.
 
@@ -268,12 +266,12 @@ def _announce(console: Console, outcome: RunOutcome, made: _Made | None,
     try:
         summary = write_summary(end, run_folder(outcome.store_path, outcome.run_id))
     except OSError as exc:
-        console.print(Text(f"  summary not written: {exc.strerror or exc}", style="yellow"))
+        console.print(term.Text(f"  summary not written: {exc.strerror or exc}", style="yellow"))
     if notify is None:
         return
     result = run_notification(notify, notification_env(end, summary))
-    console.print(Text(f"  {one_line(result.message)}",
-                       style="" if result.ok else "yellow"))
+    console.print(term.Text(f"  {one_line(result.message)}",
+                            style="" if result.ok else "yellow"))
     with suppress(SweeprigError), _open_store(outcome.store_path) as db:
         db.log_event(outcome.run_id, "info" if result.ok else "warning", "notify",
                      result.message)
@@ -299,19 +297,19 @@ SAFE_CAUTION = ("Check the bench yourself before touching it; RF power, supplies
                 "chambers can hurt, and your lab's rules come first.")
 
 
-def print_unsafe(console: Console, safe: SafeOutcome) -> None:
+def print_unsafe(console: term.Console, safe: SafeOutcome) -> None:
     """Say loudly which instruments are not proven safe, what they report, what to do."""
-    console.print(Text(f"BENCH NOT PROVEN SAFE: {len(safe.failed)} instrument(s) could not be "
-                       "verified in their safe state. Act now, by hand:", style="bold red"))
+    console.print(term.Text(f"BENCH NOT PROVEN SAFE: {len(safe.failed)} instrument(s) could not be "
+                            "verified in their safe state. Act now, by hand:", style="bold red"))
     for _name, message in safe.failed:
-        console.print(Text(f"  - {escape_controls(message)}", style="red"))
+        console.print(term.Text(f"  - {escape_controls(message)}", style="red"))
     if safe.done:
-        console.print(Text("  verified by read-back: " + ", ".join(safe.done)))
-    console.print(Text(f"  (exit code {BENCH_UNSAFE_EXIT_CODE}: bench not proven safe)",
-                       style="red"))
+        console.print(term.Text("  verified by read-back: " + ", ".join(safe.done)))
+    console.print(term.Text(f"  (exit code {BENCH_UNSAFE_EXIT_CODE}: bench not proven safe)",
+                            style="red"))
 
 
-def _print_outcome(console: Console, outcome: RunOutcome) -> None:
+def _print_outcome(console: term.Console, outcome: RunOutcome) -> None:
     from sweeprig.plan.duration import format_duration
     from sweeprig.store.open import store_label  # loaded when a run ends, not at start-up
 
@@ -319,7 +317,7 @@ def _print_outcome(console: Console, outcome: RunOutcome) -> None:
     reason = outcome.reason
     if outcome.safe is not None and not outcome.safe.ok and reason:
         reason = reason.split("; BENCH NOT PROVEN SAFE:")[0]  # told in full below
-    console.print(Text.assemble(
+    console.print(term.Text.assemble(
         (f"run {outcome.run_id} {outcome.status}", colour),
         f": {escape_controls(reason)}" if reason else ""))
     stored = (f"{outcome.points_done} of {outcome.points_total}" if outcome.points_read_back
@@ -332,25 +330,25 @@ def _print_outcome(console: Console, outcome: RunOutcome) -> None:
     )
     if outcome.safe is not None:
         if outcome.safe.ok:
-            console.print(Text(
+            console.print(term.Text(
                 "  safe state read back: " + (", ".join(outcome.safe.done) or "nothing to do")
                 + ". " + SAFE_CAUTION))
         else:
             print_unsafe(console, outcome.safe)
-    console.print(Text(f"  results: {one_line(store_label(outcome.store_path))} "
-                       f"(run {outcome.run_id}); "
-                       f"log: {one_line(outcome.log_path)}"))
+    console.print(term.Text(f"  results: {one_line(store_label(outcome.store_path))} "
+                            f"(run {outcome.run_id}); "
+                            f"log: {one_line(outcome.log_path)}"))
     for step in outcome.next_steps:
-        console.print(Text(f"  next: {one_line(step)}", style="bold"))
+        console.print(term.Text(f"  next: {one_line(step)}", style="bold"))
     if outcome.store_error is not None:
-        console.print(Text("  the run store failed: the run stopped and the data after that "
-                           "point is not kept", style="bold red"))
+        console.print(term.Text("  the run store failed: the run stopped and the data after that "
+                                "point is not kept", style="bold red"))
         if outcome.store_note is not None:
-            console.print(Text(f"  the store could not record how the run ended; it is written "
-                               f"in {outcome.store_note}", style="bold red"))
+            console.print(term.Text("  the store could not record how the run ended; it is "
+                                    f"written in {outcome.store_note}", style="bold red"))
         elif not outcome.end_recorded:
-            console.print(Text("  how the run ended could not be recorded anywhere: keep this "
-                               "terminal's output", style="bold red"))
+            console.print(term.Text("  how the run ended could not be recorded anywhere: keep this "
+                                    "terminal's output", style="bold red"))
 
 
 _RESUME_HELP = """Continue an interrupted or aborted run: measure only the points not yet stored.
@@ -437,7 +435,7 @@ def safe_command(
     from sweeprig.instruments import available_profiles
     from sweeprig.transport.backend import visa_library_override
 
-    console = Console(highlight=False)
+    console = term.Console(highlight=False)
     try:
         loaded = load_bench(bench, known_profiles=available_profiles())
         if loaded.is_simulated():
@@ -456,13 +454,13 @@ def safe_command(
         print_unsafe(console, outcome)
         raise typer.Exit(BENCH_UNSAFE_EXIT_CODE)
     if not outcome.checks:
-        console.print(Text("nothing to make safe: the bench file names no source, supply or "
-                           "chamber"))
+        console.print(term.Text("nothing to make safe: the bench file names no source, supply or "
+                                "chamber"))
         return
     for check in outcome.checks:
-        console.print(Text(f"  read back: {check.name}: {check.reported}"))
-    console.print(Text("safe state verified by read-back on every instrument above. "
-                       + SAFE_CAUTION))
+        console.print(term.Text(f"  read back: {check.name}: {check.reported}"))
+    console.print(term.Text("safe state verified by read-back on every instrument above. "
+                            + SAFE_CAUTION))
 
 
 def register(app: typer.Typer) -> None:

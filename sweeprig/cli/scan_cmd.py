@@ -7,10 +7,8 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Annotated, Any
 
 import typer
-from rich.console import Console
-from rich.table import Table
-from rich.text import Text
 
+from sweeprig.cli import term
 from sweeprig.cli.common import fail, print_error
 from sweeprig.errors import InstrumentError, SweeprigError
 from sweeprig.text import one_line
@@ -102,7 +100,7 @@ def scan_command(
     from sweeprig.transport import visa
     from sweeprig.transport.backend import choose_visa_library
 
-    console = Console(highlight=False)
+    console = term.Console(highlight=False)
     visa_library = visa_library or choose_visa_library()
     found: list[str] = []
     discovery: SweeprigError | None = None
@@ -120,7 +118,7 @@ def scan_command(
             raise typer.Exit(discovery.exit_code)
         return
     profiles = load_all_profiles(profiles_dir or []) if identify else []
-    table = Table(title="VISA resources", title_justify="left")
+    table = term.Table(title="VISA resources", title_justify="left")
     table.add_column("resource")
     if identify:
         table.add_column("*IDN?")
@@ -135,7 +133,7 @@ def scan_command(
     try:
         for name in resources:
             if not identify:
-                table.add_row(Text(one_line(name)))
+                table.add_row(term.Text(one_line(name)))
                 continue
             result = identify_resource(
                 name, profiles, visa_library=visa_library, timeout_s=timeout_s,
@@ -143,10 +141,10 @@ def scan_command(
             )
             if result.error is not None:
                 failed.append(name)
-                table.add_row(Text(one_line(name)), Text(one_line(result.error), style="red"),
-                              "")
+                table.add_row(term.Text(one_line(name)),
+                              term.Text(one_line(result.error), style="red"), "")
             else:  # an instrument's reply may hold anything: shown escaped, never as markup
-                table.add_row(Text(one_line(name)), Text(one_line(result.idn or "")),
+                table.add_row(term.Text(one_line(name)), term.Text(one_line(result.idn or "")),
                               ", ".join(result.profiles) or "(none)")
     finally:
         if rm is not None:

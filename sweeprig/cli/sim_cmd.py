@@ -13,9 +13,8 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Annotated, Any
 
 import typer
-from rich.console import Console
-from rich.text import Text
 
+from sweeprig.cli import term
 from sweeprig.cli.common import error_console, fail
 from sweeprig.clock import Clock, VirtualClock, WallClock
 from sweeprig.errors import InputError, SweeprigError
@@ -62,8 +61,8 @@ def _sim() -> None:
     """The simulated bench: a behavioural mixer model behind real SCPI sockets."""
 
 
-def _out() -> Console:
-    return Console(soft_wrap=True, highlight=False)
+def _out() -> term.Console:
+    return term.Console(soft_wrap=True, highlight=False)
 
 
 _err = error_console
@@ -124,7 +123,7 @@ def serve_command(
 
     remote = not is_loopback(host)
     if remote:
-        _err().print(Text(
+        _err().print(term.Text(
             f"warning: listening on {host}: the simulated instruments are reachable from the "
             "network, without any authentication. Use --host 127.0.0.1 unless you mean it.",
             style="bold yellow",

@@ -13,19 +13,17 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Annotated, Any
 
 import typer
-from rich.console import Console
-from rich.markup import escape as markup_escape
-from rich.table import Table
-from rich.text import Text
 
+from sweeprig.cli import term
 from sweeprig.cli.common import DbOption, chosen_store, fail
 from sweeprig.errors import StoreError, SweeprigError
-from sweeprig.store.base import DEFAULT_STORE_PATH, RunInfo, utc_now
+from sweeprig.store.paths import DEFAULT_STORE_PATH
 from sweeprig.text import escape_controls, one_line
 
 if TYPE_CHECKING:
     import pandas as pd
 
+    from sweeprig.store.base import RunInfo
     from sweeprig.store.sqlite import SqliteRunStore
 
 StoreOption = Annotated[
@@ -99,14 +97,14 @@ def runs_command(store: StoreOption = DEFAULT_STORE_PATH, db: DbOption = None) -
             summaries = opened.runs()
     except SweeprigError as exc:
         raise _fail(exc) from None
-    console = Console(highlight=False)
+    console = term.Console(highlight=False)
     if not summaries:
         console.print(f"no runs in {store_label(target)}")
         return
     console.print(runs_table(summaries, store_label(target), console.width, console))
 
 
-def runs_table(summaries: list[Any], store: str, width: int, console: Console) -> Table:
+def runs_table(summaries: list[Any], store: str, width: int, console: term.Console) -> term.Table:
     """The runs as a table that fits ``width`` columns (report/fit_table.py): the start time
     and the progress shorten first, then the duration, the serial, the start time and the
     sequence are left out, in that order; id, status, part and points always show."""
@@ -114,16 +112,16 @@ def runs_table(summaries: list[Any], store: str, width: int, console: Console) -
 
     from sweeprig.report.fit_table import Column, fitted_table
 
-    def status(run: Any) -> Text:
-        return Text(run.status, style=_STATUS_STYLE.get(run.status, "white"))
+    def status(run: Any) -> term.Text:
+        return term.Text(run.status, style=_STATUS_STYLE.get(run.status, "white"))
 
-    sequence = [Text(one_line(Path(r.sequence_path).stem) + (" (sim)" if r.simulated else ""))
+    sequence = [term.Text(one_line(Path(r.sequence_path).stem) + (" (sim)" if r.simulated else ""))
                 for r in summaries]
     columns = [
         Column("id", [str(r.id) for r in summaries], 100, justify="right"),
         Column("status", [status(r) for r in summaries], 100),
-        Column("part", [Text(one_line(r.part)) for r in summaries], 100, wrap=True),
-        Column("serial", [Text(one_line(r.serial)) for r in summaries], 50, wrap=True),
+        Column("part", [term.Text(one_line(r.part)) for r in summaries], 100, wrap=True),
+        Column("serial", [term.Text(one_line(r.serial)) for r in summaries], 50, wrap=True),
         Column("points", [_progress(r.points_done, r.points_total) for r in summaries], 100,
                short_cells=[_progress(r.points_done, r.points_total, percent=False)
                             for r in summaries], justify="right"),
@@ -165,7 +163,7 @@ def status_command(
     steps = next_steps(info.status, info.id, target, bench_path=info.bench_path,
                        simulated=info.simulated)
     for step in steps:
-        Console(highlight=False).print(Text(f"  next: {one_line(step)}", style="bold"))
+        term.Console(highlight=False).print(term.Text(f"  next: {one_line(step)}", style="bold"))
     if isinstance(target, Path) and steps and any(step.startswith("sweeprig resume")
                                                   for step in steps):
         _print_night_resume(Path(store), info)
@@ -183,7 +181,7 @@ def _print_night_resume(store: Path, info: RunInfo) -> None:
     number, plan = night
     command = (f"sweeprig night {shlex.quote(plan)} --resume --store {shlex.quote(str(store))}"
                + (" --sim" if info.simulated else ""))
-    Console(highlight=False).print(Text(
+    term.Console(highlight=False).print(term.Text(
         f"  or, as this run is a part of night {number}, resume the whole night: "
         f"{one_line(command)}", style="bold"))
 
@@ -191,15 +189,15 @@ def _print_night_resume(store: Path, info: RunInfo) -> None:
 def _print_status(info: RunInfo, points: pd.DataFrame, events: list, n_events: int) -> None:
     import pandas as pd
 
-    console = Console(highlight=False)
+    console = term.Console(highlight=False)
     style = _STATUS_STYLE.get(info.status, "white")
     status = f"[{style}]{info.status}[/]"
     if info.status != info.stored_status:
         status += f" (stored as {info.stored_status}; its process is gone or silent)"
     if info.reason:
-        status += f" — {markup_escape(escape_controls(info.reason))}"
-    console.print(Text(f"run {info.id}", style="bold")
-                  + Text(f"  {one_line(info.title)}" if info.title else ""))
+        status += f" — {term.escape(escape_controls(info.reason))}"
+    console.print(term.Text(f"run {info.id}", style="bold")
+                  + term.Text(f"  {one_line(info.title)}" if info.title else ""))
     lines = [
         ("status", status),
         ("progress", _progress(info.points_done, info.points_total)),
@@ -219,6 +217,8 @@ def _print_status(info: RunInfo, points: pd.DataFrame, events: list, n_events: i
         ("duration", _duration(info.duration_s) or "-"),
     ]
     if info.heartbeat is not None and info.finished is None:
+        from sweeprig.store.base import utc_now
+
         age = (utc_now() - info.heartbeat).total_seconds()
         lines.append(("heartbeat", f"{_when(info.heartbeat)} ({age:.0f} s ago, pid {info.pid} "
                                    f"on {info.host})"))
@@ -234,8 +234,8 @@ def _print_status(info: RunInfo, points: pd.DataFrame, events: list, n_events: i
     if info.instruments:
         console.print("  instruments")
         for inst in info.instruments:
-            console.print(Text(f"    {inst.role:<8} {inst.profile:<18} {one_line(inst.resource)}  "
-                               f"{one_line(inst.idn)}"))
+            console.print(term.Text(f"    {inst.role:<8} {inst.profile:<18} "
+                                    f"{one_line(inst.resource)}  {one_line(inst.idn)}"))
     if len(points):
         last = points.iloc[-1]
         settings = ", ".join(
@@ -254,14 +254,15 @@ def _print_status(info: RunInfo, points: pd.DataFrame, events: list, n_events: i
         for event in events:
             where = f" point {event.point_index}" if event.point_index is not None else ""
             console.print(
-                Text(f"    {_when(event.time)} {event.severity:<7} {event.kind}{where}: "
-                     f"{one_line(event.message)}")
+                term.Text(f"    {_when(event.time)} {event.severity:<7} {event.kind}{where}: "
+                          f"{one_line(event.message)}")
             )
 
 
 def _eta_line(activity: Mapping[str, Any], heartbeat: datetime | None) -> str | None:
     """The whole run's time left as of now (from the ETA its last heartbeat carried)."""
     from sweeprig.engine.eta import eta_text
+    from sweeprig.store.base import utc_now
 
     value = activity.get("eta_wall_s")
     if not isinstance(value, int | float) or heartbeat is None:
@@ -276,7 +277,7 @@ def _eta_line(activity: Mapping[str, Any], heartbeat: datetime | None) -> str | 
 def _shown(text: object) -> str:
     """A file's or the store's text for a line printed with markup: controls and markup
     escaped."""
-    return markup_escape(one_line(text))
+    return term.escape(one_line(text))
 
 
 def export_command(
@@ -312,7 +313,7 @@ def export_command(
         written = _write_tables(info, tables, to, fmt)
     except SweeprigError as exc:
         raise _fail(exc) from None
-    console = Console(highlight=False)
+    console = term.Console(highlight=False)
     for path in written:
         console.print(f"wrote {path}")
 

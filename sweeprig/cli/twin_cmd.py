@@ -7,13 +7,11 @@ from pathlib import Path
 from typing import Annotated
 
 import typer
-from rich.console import Console
-from rich.table import Table
-from rich.text import Text
 
+from sweeprig.cli import term
 from sweeprig.cli.common import fail
 from sweeprig.errors import SweeprigError
-from sweeprig.store.base import DEFAULT_STORE_PATH
+from sweeprig.store.paths import DEFAULT_STORE_PATH
 
 app = typer.Typer(
     help="A twin of a measured part: the simulated mixer fitted to a stored run, served by "
@@ -59,20 +57,20 @@ def fit_command(
     from sweeprig.twin.from_run import fit_stored_run
     from sweeprig.twin.partfile import write_part_file
 
-    console = Console(highlight=False)
+    console = term.Console(highlight=False)
     try:
         twin = fit_stored_run(store, run_id, template=template, name=name)
         write_part_file(twin.text, out)
     except SweeprigError as exc:
         raise fail(exc) from None
     _print_fit(twin, console)
-    console.print(Text(f"part file: {out}"))
+    console.print(term.Text(f"part file: {out}"))
 
 
-def _print_fit(twin: object, console: Console) -> None:
+def _print_fit(twin: object, console: term.Console) -> None:
     fit = twin.fit  # type: ignore[attr-defined]
-    table = Table(title=f"twin of run {twin.run_id}: parameters",  # type: ignore[attr-defined]
-                  title_justify="left")
+    table = term.Table(title=f"twin of run {twin.run_id}: parameters",  # type: ignore[attr-defined]
+                       title_justify="left")
     for col in ("parameter", "value", "95 % interval", "unit"):
         table.add_column(col)
     for p in fit.parameters:
@@ -87,7 +85,7 @@ def _print_fit(twin: object, console: Console) -> None:
             interval = "not resolved"
         table.add_row(p.key, f"{p.value * k:.4g}", interval, p.unit)
     console.print(table)
-    res = Table(title="residuals, model − measured", title_justify="left")
+    res = term.Table(title="residuals, model − measured", title_justify="left")
     for col in ("figure", "count", "mean", "RMS", "worst", "unit"):
         res.add_column(col)
     for r in fit.residuals:
@@ -95,15 +93,15 @@ def _print_fit(twin: object, console: Console) -> None:
         res.add_row(r.name, str(r.count), f"{r.mean * s:+.3f}", f"{r.rms * s:.3f}",
                     f"{r.worst * s:+.3f}", unit)
     console.print(res)
-    console.print(Text(f"{fit.observations} figures, {len(fit.parameters)} parameters, "
-                       f"residual scale s = {fit.residual_scale:.3g}; {fit.bias_note}"))
+    console.print(term.Text(f"{fit.observations} figures, {len(fit.parameters)} parameters, "
+                            f"residual scale s = {fit.residual_scale:.3g}; {fit.bias_note}"))
     left = twin.observations.left_out  # type: ignore[attr-defined]
     if left:
-        console.print(Text("left out: " + "; ".join(f"{k} ×{v}" for k, v in left.items())))
+        console.print(term.Text("left out: " + "; ".join(f"{k} ×{v}" for k, v in left.items())))
     if fit.unconstrained:
-        console.print(Text("not constrained by this run (template values kept):"))
+        console.print(term.Text("not constrained by this run (template values kept):"))
         for key, why in fit.unconstrained:
-            console.print(Text(f"  {key}: {why}"))
+            console.print(term.Text(f"  {key}: {why}"))
     if not fit.converged:
-        console.print(Text("warning: the solver stopped before converging; check the "
-                           "residuals before trusting the twin"))
+        console.print(term.Text("warning: the solver stopped before converging; check the "
+                                "residuals before trusting the twin"))

@@ -15,14 +15,13 @@ from __future__ import annotations
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
-from pathlib import Path
 from typing import TYPE_CHECKING, Any, Literal, Protocol, runtime_checkable
+
+from sweeprig.store.paths import DEFAULT_STORE_PATH as DEFAULT_STORE_PATH
 
 if TYPE_CHECKING:  # pandas is imported where frames are made, not by the commands that start
     import pandas as pd
 
-DEFAULT_STORE_PATH = Path("results") / "sweeprig.sqlite"
-"""Where runs are stored unless ``--store`` says otherwise (relative to the current folder)."""
 
 RunStatus = Literal["planned", "running", "complete", "aborted", "interrupted", "unsafe"]
 RUN_STATUSES: tuple[str, ...] = ("planned", "running", "complete", "aborted", "interrupted",

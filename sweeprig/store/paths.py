@@ -11,6 +11,9 @@ from __future__ import annotations
 
 from pathlib import Path
 
+DEFAULT_STORE_PATH = Path("results") / "sweeprig.sqlite"
+"""Where runs are stored unless ``--store`` says otherwise (relative to the current folder)."""
+
 
 def run_file_name(store_path: str | Path, run_id: int, suffix: str = "") -> str:
     """``<store file name>.run-<id><suffix>``, e.g. ``sweeprig.sqlite.run-3.log``; for a lab

@@ -27,8 +27,11 @@ TYPE_NAME = re.compile(r"<(?:bool|str|int|float|path|file|text|list\[[^\]]*\]|tu
 
 def _commands(command, path=()):
     yield path, command
-    for name, sub in sorted((getattr(command, "commands", None) or {}).items()):
-        yield from _commands(sub, (*path, name))
+    if not hasattr(command, "list_commands"):
+        return
+    ctx = command.make_context(" ".join(path) or "sweeprig", [], resilient_parsing=True)
+    for name in sorted(command.list_commands(ctx)):  # the root builds a command when asked
+        yield from _commands(command.get_command(ctx, name), (*path, name))
 
 
 COMMANDS = list(_commands(typer.main.get_command(app)))
