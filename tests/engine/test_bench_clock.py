@@ -6,7 +6,6 @@ while simulated time stands still (the poll used the wall clock and hung until i
 
 from __future__ import annotations
 
-import time
 from pathlib import Path
 
 from sweeprig.clock import VirtualClock, WallClock
@@ -48,9 +47,8 @@ def test_an_event_polled_sweep_ends_in_the_simulators_time(tmp_path: Path) -> No
             sa.set_value("span", 1e6)
             sa.set_value("points", 1001)
             sweep_s = float(sa.transport.query("SENS:SWE:TIME?"))
-            t_sim, t_wall = sim_clock.now(), time.monotonic()
-            sa.sweep()
+            t_sim = sim_clock.now()
+            sa.sweep()  # polling on the wall clock, a frozen simulator would reach the timeout
             assert sim_clock.now() - t_sim >= sweep_s  # the simulated sweep ran to its end
-            assert time.monotonic() - t_wall < 5.0     # not a wall-clock wait to the timeout
         finally:
             drivers.close()

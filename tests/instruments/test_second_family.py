@@ -251,17 +251,14 @@ def test_the_probe_on_a_served_bench_file_waits_on_the_simulators_clock(
         whole_farrowmere, tmp_path: Path) -> None:
     """``sweeprig probe RESOURCE --bench FILE`` on a bench served by the simulator: the meter's
     4 s zeroing, completed by polling its status, ends in simulated time (the bench file's
-    simctl role gives the clock) instead of polling a frozen simulator until the timeout."""
-    import time
-
+    simctl role gives the clock) instead of polling a frozen simulator until the zero's own
+    60 s timeout, which would fail its step (no wall-time assertion: the step's result says it)."""
     bench = tmp_path / "served.toml"
     bench.write_text(served_bench_text(whole_farrowmere.resources,
                                        _whole_family("farrowmere")), encoding="utf-8")
-    started = time.monotonic()
     report = run_probe(whole_farrowmere.resources["pm"], "fr-pm4", bench_path=bench,
                        timeout_s=2.0)
     assert report.counts()["fail"] == 0, [s for s in report.steps if s.result != "ok"]
-    assert time.monotonic() - started < 30.0  # the zero's own timeout is 60 s
 
 
 def test_its_sweeps_are_slower_and_it_says_so(farrowmere) -> None:
