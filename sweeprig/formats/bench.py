@@ -617,12 +617,12 @@ def _check_losses(bench: Bench) -> None:
     """Refuse negative constant losses (a gain must be written as one) and malformed tables."""
     for name in CONNECTIONS:
         value = getattr(bench.path_loss, "if_" if name == "if" else name)
-        where = bench.where(("path_loss", name))
+        key = ("path_loss", name)  # located only for a message: a locator costs a parse
         if isinstance(value, float) and value < 0:
             raise InputError(
                 f"a path loss of {value:g} dB is negative: a cable, attenuator or switch "
                 "loses power (0 dB or more)",
-                where=where,
+                where=bench.where(key),
                 fix=f'write the loss as 0 dB or more; for an amplifier in the path state the '
                 f'gain: {name} = {{ gain = "{-value:g} dB" }}')
         if not isinstance(value, LossFile):
@@ -632,25 +632,28 @@ def _check_losses(bench: Bench) -> None:
         if len(given) != 1:
             raise InputError("a path loss table needs exactly one of csv, touchstone, cascade "
                              "or gain",
-                             where=where, fix='write { csv = "cal/rf.csv" }, '
+                             where=bench.where(key), fix='write { csv = "cal/rf.csv" }, '
                              '{ touchstone = "cal/rf.s2p" }, { cascade = ["cable.s2p", '
                              '"board.s2p"] } or { gain = "20 dB" }')
         if (value.deembed_start or value.deembed_end) and value.cascade is None:
-            raise InputError("deembed_start and deembed_end go with cascade", where=where,
+            raise InputError("deembed_start and deembed_end go with cascade",
+                             where=bench.where(key),
                              fix='write { cascade = ["cable.s2p"], deembed_end = '
                              '["adapter.s2p"] }')
         if value.cascade is not None and not value.cascade:
-            raise InputError("cascade lists no file", where=where,
+            raise InputError("cascade lists no file", where=bench.where(key),
                              fix='name the two-port files in signal order, e.g. '
                              '["cable.s2p", "board.s2p"]')
         if value.gain is not None:
             if value.gain < 0:
                 raise InputError(
                     f"a gain of {value.gain:g} dB is negative: that is a loss",
-                    where=where, fix=f'write it as a loss: {name} = "{-value.gain:g} dB"')
+                    where=bench.where(key),
+                    fix=f'write it as a loss: {name} = "{-value.gain:g} dB"')
             if value.amplifier:
                 raise InputError("amplifier = true goes with a csv or touchstone table",
-                                 where=where, fix="remove amplifier (a gain is already one)")
+                                 where=bench.where(key),
+                                 fix="remove amplifier (a gain is already one)")
 
 
 def _check_figures(bench: Bench) -> None:
