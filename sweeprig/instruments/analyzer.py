@@ -165,6 +165,41 @@ class AnalyzerDriver(Driver):
         """Put marker 1 at ``freq_hz`` and read its level, dBm (from the last sweep)."""
         return float(self.ask("marker_level", freq_hz))
 
+    def sweep_and_read(self, expected_s: float | None, freq_hz: float,
+                       noise_hz: tuple[float, ...] = ()) -> tuple[float, tuple[float, ...], bool]:
+        """:meth:`sweep`, then :meth:`marker_reading`: one message where the profile allows
+        compound messages and the sweep completes by ``*OPC?`` (the instrument's
+        no-operation-pending flag follows the sweep): ``INIT;*WAI;`` before the marker queries,
+        ``*WAI`` holding them until the sweep has ended (IEEE 488.2 10.39, from memory), with
+        the sweep's own wait as the reply's timeout."""
+        op = self.profile.op("sweep")
+        completion = op.completion
+        if not (self.compound and completion is not None and completion.method == "opc"):
+            self.sweep(expected_s)
+            return self.marker_reading(freq_hz, noise_hz)
+        limit = completion.timeout_s
+        if expected_s is not None:
+            limit = min(limit, 2.0 * expected_s + float(getattr(self.transport, "timeout_s",
+                                                                  5.0)))
+        for template in op.commands:
+            self._send(template)
+        self._send("*WAI")
+        return self.marker_reading(freq_hz, noise_hz, timeout_s=limit)
+
+    def marker_reading(self, freq_hz: float, noise_hz: tuple[float, ...] = (), *,
+                       timeout_s: float | None = None
+                       ) -> tuple[float, tuple[float, ...], bool]:
+        """Marker 1 at ``freq_hz`` (level, dBm), then at each of ``noise_hz`` (levels, dBm),
+        the overload flag, and the event status register (kept for
+        :meth:`~sweeprig.instruments.driver.Driver.point_status`): one message where the
+        profile allows compound messages."""
+        asks: list[tuple[str, float | None]] = [("marker_level", freq_hz)]
+        asks += [("marker_level", f) for f in noise_hz]
+        asks.append(("overload", None))
+        replies = self.ask_joined(*asks, status=True, timeout_s=timeout_s)
+        return (float(replies[0]), tuple(float(r) for r in replies[1:-1]),
+                bool(replies[-1]))
+
     def peak(self) -> tuple[float, float]:
         """Marker 1 to the highest point of the trace → (frequency Hz, level dBm)."""
         freq_hz, level_dbm = self.ask("peak")
