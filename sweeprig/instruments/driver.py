@@ -110,11 +110,15 @@ class Driver:
         #: an ``*ESR?`` read showed error bits: the queue holds entries not yet read
         self._errors_flagged = False
 
+    single_units = False
+    """True: one unit per message whatever the profile says (``sweeprig probe`` tries each
+    operation alone; narrow tests pin each operation's own rendering)."""
+
     @property
     def compound(self) -> bool:
         """Whether settings and queries are joined into compound messages (the profile's
-        ``compound_messages``)."""
-        return self.profile.compound_messages
+        ``compound_messages``, unless :attr:`single_units`)."""
+        return self.profile.compound_messages and not self.single_units
 
     # -- naming -----------------------------------------------------------------------------
 
