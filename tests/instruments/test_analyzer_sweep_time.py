@@ -16,7 +16,7 @@ def _analyzer(replies: dict[str, str]) -> tuple[AnalyzerDriver, FakeTransport]:
 
     link = FakeTransport(handle)
     sa = AnalyzerDriver("sa", link, load_profile("scpi-analyzer"))
-    sa.single_units = True  # one unit per message: these pin each operation's own text (joined: test_compound)
+    sa.single_units = True  # pins each operation's own text (joined: test_compound)
     return sa, link
 
 

@@ -35,7 +35,7 @@ def source():
     queue = Queue()
     transport = FakeTransport(queue)
     src = make_driver("scpi-source", "rf", transport)
-    src.single_units = True  # one unit per message: these pin each operation's own text (joined: test_compound)
+    src.single_units = True  # pins each operation's own text (joined: test_compound)
     return src, transport, queue
 
 

@@ -46,7 +46,7 @@ def _driver(kind: str, replies: dict[str, str] | None = None):
     replies = {"*OPC?": "1", **(replies or {})}
     transport = FakeTransport(lambda cmd: replies.get(cmd, "0" if cmd.endswith("?") else None))
     driver = make_driver(kind, kind[:2], transport)
-    driver.single_units = True  # one unit per message: these pin each operation's own text (joined: test_compound)
+    driver.single_units = True  # pins each operation's own text (joined: test_compound)
     return driver, transport
 
 
