@@ -452,12 +452,13 @@ class Runner:
         dc = self.d.dc
         if dc is None or point.supply_v is None:
             return False
-        sent = dc.set_voltage(point.supply_v)
-        if not self._supply_on:
-            sent |= dc.set_output(True)
-            self._supply_on = True
-        if sent:
-            self._check(dc)
+        with dc.joined():
+            sent = dc.set_voltage(point.supply_v)
+            if not self._supply_on:
+                sent |= dc.set_output(True)
+                self._supply_on = True
+            if sent:
+                self._check(dc)
         return sent
 
     def _go_to_temperature(self, temperature_c: float, point: Point | None = None) -> None:
@@ -604,11 +605,10 @@ class Runner:
     def _apply_sources(self, point: Point) -> bool:
         """LO, RF, RF2 to the point's settings; outputs on. True if anything was sent."""
         sent = False
-        configured: list[Driver] = []
         # What goes off goes first, so the DUT's RF port never takes both tones at the new
         # level of one and the old level of the other.
         if point.rf2_freq_hz is None and self.d.rf2 is not None and self.d.rf2.set_output(False):
-            configured.append(self.d.rf2)
+            self.d.rf2.sync()
             sent = True
         plan = [("lo", point.lo_freq_hz, point.lo_power_dbm, "lo"),
                 ("rf", point.rf_freq_hz, point.rf_power_dbm, "rf")]
@@ -619,17 +619,17 @@ class Runner:
             if source is None:
                 raise InputError(f"the bench has no {role!r} source", where="bench",
                                  fix=f"add roles.{role} to the bench file")
-            block = self._tune(source, connection, freq_hz, power_dbm)
-            block |= source.set_output(True)
-            if block:
-                configured.append(source)
+            with source.joined():  # the settings and the *OPC? below: one message
+                block = self._tune(source, connection, freq_hz, power_dbm)
+                block |= source.set_output(True)
+                if block:
+                    # Each source proves it has applied its settings before the analyzer
+                    # (another connection) sweeps: *OPC? joined to them where the profile
+                    # allows it (its errors are then read with the point's status, before
+                    # the point is stored), else the error check, whose reply orders things
+                    # the same way.
+                    source.sync()
             sent |= block
-        # Each source proves it has applied its settings before the analyzer (another
-        # connection) sweeps: *OPC? joined to the settings where the profile allows it (its
-        # errors are then read with the point's status, before the point is stored), else
-        # the error check, whose reply orders things the same way.
-        for source in configured:
-            source.sync()
         return sent
 
     def _tune(self, source: SourceDriver, connection: str, freq_hz: float,
@@ -688,13 +688,14 @@ class Runner:
         found: Found | None = None
         floor_from = "trace"
         for attempt in (1, 2):
-            if sa.configure(
-                centre_hz=a.center_hz if aim is None else aim.centre_hz,
-                span_hz=a.span_hz if aim is None else aim.span_hz, rbw_hz=a.rbw_hz,
-                ref_level_dbm=a.reference_level_dbm, attenuation_db=a.attenuation_db,
-                averages=a.averages, points=None if aim is None else aim.points,
-            ):
-                self._check(sa)
+            with sa.joined():  # the changed settings and the error check: one message
+                if sa.configure(
+                    centre_hz=a.center_hz if aim is None else aim.centre_hz,
+                    span_hz=a.span_hz if aim is None else aim.span_hz, rbw_hz=a.rbw_hz,
+                    ref_level_dbm=a.reference_level_dbm, attenuation_db=a.attenuation_db,
+                    averages=a.averages, points=None if aim is None else aim.points,
+                ):
+                    self._check(sa)
             sweep_s, sweep_from = sa.expected_sweep_s(a.averages, a.measure_time_s)
             if aim is None:
                 break  # swept below, with its marker reading in the same message

@@ -34,10 +34,12 @@ class AnalyzerDriver(Driver):
     kind = "analyzer"
 
     def prepare(self) -> None:
-        """The profile's ``prepare`` commands, then single-sweep mode."""
-        super().prepare()
-        self.single_sweep_mode()
-        self.enable_status()
+        """The profile's ``prepare`` commands, then single-sweep mode (one message where the
+        profile allows compound messages)."""
+        with self.joined():
+            super().prepare()
+            self.single_sweep_mode()
+            self.enable_status()
 
     def enable_status(self) -> int:
         """Enable the questionable bits the ``overload`` and ``uncalibrated`` flags read, so
@@ -181,10 +183,11 @@ class AnalyzerDriver(Driver):
         if expected_s is not None:
             limit = min(limit, 2.0 * expected_s + float(getattr(self.transport, "timeout_s",
                                                                   5.0)))
-        for template in op.commands:
-            self._send(template)
-        self._send("*WAI")
-        return self.marker_reading(freq_hz, noise_hz, timeout_s=limit)
+        with self.joined():
+            for template in op.commands:
+                self._send(template)
+            self._send("*WAI")
+            return self.marker_reading(freq_hz, noise_hz, timeout_s=limit)
 
     def marker_reading(self, freq_hz: float, noise_hz: tuple[float, ...] = (), *,
                        timeout_s: float | None = None

@@ -29,7 +29,7 @@ from __future__ import annotations
 import contextlib
 import math
 from collections import deque
-from collections.abc import Mapping
+from collections.abc import Iterator, Mapping
 from typing import Any, ClassVar
 
 import numpy as np
@@ -101,8 +101,10 @@ class Driver:
         self._block: deque[str] = deque(maxlen=_BLOCK_KEPT)
         self._block_count = 0
         self._block_ops: set[str] = set()
-        #: commands held to be joined with the next message (compound profiles only)
+        #: commands held to be joined with the next message (compound profiles, inside
+        #: :meth:`joined` only)
         self._held: list[str] = []
+        self._joining = False
         #: event status bits read (joined with other queries) and not yet taken
         self._status_bits = 0
         #: True while the last exchange ended with an ``*ESR?`` read (nothing sent since)
@@ -153,10 +155,30 @@ class Driver:
         self._status_fresh = False
         return self.transport.query(self._joined(cmd), timeout_s=timeout_s)
 
+    @contextlib.contextmanager
+    def joined(self) -> Iterator[None]:
+        """A block whose commands are joined with the block's next query into one message,
+        where the profile allows compound messages (no effect otherwise). Whatever is still
+        held at the end is sent then, so nothing waits past the block while another
+        instrument acts; on an exception it is dropped and the cached settings forgotten
+        (so they are all sent again)."""
+        if not self.compound or self._joining:
+            yield
+            return
+        self._joining = True
+        try:
+            yield
+        except BaseException:
+            self._joining = False
+            self.forget_state()
+            raise
+        self._joining = False
+        self.flush()
+
     def _send(self, cmd: str) -> None:
-        """A command of an operation: held for the next message on a compound profile
+        """A command of an operation: held for the next message inside :meth:`joined`
         (remembered for the error report at once), sent now otherwise."""
-        if not self.compound:
+        if not self._joining:
             self.write(cmd)
             return
         self._block.append(cmd)
@@ -180,6 +202,8 @@ class Driver:
             return cmd
         units = [*self._held, *(() if cmd is None else (cmd,))]
         self._held = []
+        if len(units) == 1:
+            return units[0]
         return ";".join(u if u.startswith((":", "*")) else ":" + u for u in units)
 
     # -- values and limits ------------------------------------------------------------------
@@ -309,9 +333,10 @@ class Driver:
         token = None
         if operation.spec.value != "none":
             token = operation.render_value(self._checked(operation, value))
-        for template in operation.commands:
-            self._send(Operation.fill(template, token))
-        self._complete(operation, timeout_s)
+        with self.joined():  # the commands and the completion query: one message
+            for template in operation.commands:
+                self._send(Operation.fill(template, token))
+            self._complete(operation, timeout_s)
 
     def ask(self, op: str, value: Value | None = None) -> Any:
         """Run the query ``op`` and return its parsed reply (a tuple when it has two queries;
@@ -619,24 +644,25 @@ class Driver:
             return [self.ask(op, value) for op, value in asks]
         tokens = [None if o.spec.value == "none" else o.render_value(self._checked(o, value))
                   for o, (_, value) in zip(ops, asks, strict=True)]  # all checked first
-        queries: list[str] = []
-        for operation, token in zip(ops, tokens, strict=True):
-            for template in operation.commands:
-                self._send(Operation.fill(template, token))
-            queries.append(Operation.fill(operation.queries[0], token))
-            self._send(queries[-1])  # a query unit: its answer joins the reply in order
-        status_cmd = None
-        if status and self.profile.has("event_status"):
-            status_cmd = self.profile.op("event_status").queries[0]
-            self._send(status_cmd)
-        last = self._held.pop()
-        self._block_count -= 1
-        self._block.pop()
-        timeout = max((o.timeout_s for o in ops if o.timeout_s is not None),
-                      default=timeout_s)
-        if timeout_s is not None:
-            timeout = max(timeout_s, timeout or 0.0)
-        reply = self.query(last, timeout_s=timeout)
+        with self.joined():  # held here, sent with the last query
+            queries: list[str] = []
+            for operation, token in zip(ops, tokens, strict=True):
+                for template in operation.commands:
+                    self._send(Operation.fill(template, token))
+                queries.append(Operation.fill(operation.queries[0], token))
+                self._send(queries[-1])  # a query unit: its answer joins the reply in order
+            status_cmd = None
+            if status and self.profile.has("event_status"):
+                status_cmd = self.profile.op("event_status").queries[0]
+                self._send(status_cmd)
+            last = self._held.pop()
+            self._block_count -= 1
+            self._block.pop()
+            timeout = max((o.timeout_s for o in ops if o.timeout_s is not None),
+                          default=timeout_s)
+            if timeout_s is not None:
+                timeout = max(timeout_s, timeout or 0.0)
+            reply = self.query(last, timeout_s=timeout)
         parts = reply.strip().split(";")
         expected = len(queries) + (status_cmd is not None)
         if len(parts) != expected:

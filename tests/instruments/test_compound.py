@@ -52,10 +52,11 @@ def _source() -> tuple[object, FakeTransport, Device]:
 
 def test_settings_are_joined_with_the_completion_query_in_one_message():
     src, link, _ = _source()
-    src.set_power(-10.0)
-    src.set_frequency(2.4e9)
-    assert link.sent == []  # held
-    src.sync()
+    with src.joined():
+        src.set_power(-10.0)
+        src.set_frequency(2.4e9)
+        assert link.sent == []  # held
+        src.sync()
     # each header absolute: after a ';' a header is read relative to the previous one's path
     assert link.sent == [":SOUR:POW:LEV:IMM:AMPL -10;:SOUR:FREQ:CW 2400000000;*OPC?"]
     assert src.transactions == 1
@@ -65,15 +66,17 @@ def test_settings_are_joined_with_the_completion_query_in_one_message():
 
 def test_the_error_queue_is_read_only_when_the_status_says_it_holds_something():
     src, link, device = _source()
-    src.set_frequency(1e9)
-    src.check_errors()
+    with src.joined():
+        src.set_frequency(1e9)
+        src.check_errors()
     assert link.sent == [":SOUR:FREQ:CW 1000000000;*ESR?"]  # no error bit: no queue read
     src.check_errors()
     assert len(link.sent) == 1  # nothing sent since the status was read: nothing to ask
-    src.set_frequency(5.9e9)
     device.esr = 16  # execution error (IEEE 488.2 ESR bit 4)
     device.errors = ['-222,"Data out of range"']
-    with pytest.raises(InstrumentError, match=r"-222.*SOUR:FREQ:CW 5900000000"):
+    with pytest.raises(InstrumentError, match=r"-222.*SOUR:FREQ:CW 5900000000"), \
+            src.joined():
+        src.set_frequency(5.9e9)
         src.check_errors()
     assert link.sent[1:] == [":SOUR:FREQ:CW 5900000000;*ESR?", "SYST:ERR?", "SYST:ERR?"]
     assert "frequency" not in src.state()  # the refused setting is sent again next time
@@ -88,19 +91,25 @@ def test_point_status_reads_once_per_point_and_keeps_the_power_on_bit():
     assert src.point_status() == 0 and len(link.sent) == 2
 
 
-def test_the_safe_state_goes_out_at_once():
+def test_the_safe_state_goes_out_at_once_and_nothing_is_held_past_a_block():
     src, link, _ = _source()
-    src.set_frequency(1e9)
-    src.safe()
-    assert link.sent == [":SOUR:FREQ:CW 1000000000;:OUTP:STAT OFF"]
+    with src.joined():
+        src.set_frequency(1e9)
+        src.safe()
+        assert link.sent == [":SOUR:FREQ:CW 1000000000;:OUTP:STAT OFF"]
+        src.set_power(-30.0)
+    assert link.sent[-1] == "SOUR:POW:LEV:IMM:AMPL -30"  # sent as the block ended
+    src.set_frequency(2e9)  # outside a block: at once
+    assert link.sent[-1] == "SOUR:FREQ:CW 2000000000"
 
 
-def test_forgetting_the_state_drops_what_was_held():
+def test_a_block_cut_short_drops_what_it_held_and_forgets_the_settings():
     src, link, _ = _source()
-    src.set_power(5.0)
-    src.forget_state()
-    src.sync()
-    assert link.sent == ["*OPC?"]
+    with pytest.raises(RuntimeError), src.joined():
+        src.set_power(5.0)
+        raise RuntimeError("cut short")
+    assert link.sent == [] and src.state() == {}
+    assert src.set_power(5.0) is True  # sent again
 
 
 def test_sweep_markers_overload_and_status_in_one_message():
