@@ -688,15 +688,19 @@ class Runner:
         found: Found | None = None
         floor_from = "trace"
         for attempt in (1, 2):
-            with sa.joined():  # the changed settings and the error check: one message
-                if sa.configure(
+            # the changed settings, the analyzer's sweep time for them and the error check:
+            # one message where the profile allows it
+            with sa.joined():
+                changed = sa.configure(
                     centre_hz=a.center_hz if aim is None else aim.centre_hz,
                     span_hz=a.span_hz if aim is None else aim.span_hz, rbw_hz=a.rbw_hz,
                     ref_level_dbm=a.reference_level_dbm, attenuation_db=a.attenuation_db,
                     averages=a.averages, points=None if aim is None else aim.points,
-                ):
+                )
+                sweep_s, sweep_from = sa.expected_sweep_s(a.averages, a.measure_time_s,
+                                                          status=bool(changed))
+                if changed:
                     self._check(sa)
-            sweep_s, sweep_from = sa.expected_sweep_s(a.averages, a.measure_time_s)
             if aim is None:
                 break  # swept below, with its marker reading in the same message
             sa.sweep(sweep_s)  # wait and timeout from the analyzer's own sweep time

@@ -149,18 +149,26 @@ class AnalyzerDriver(Driver):
         """Time of one sweep, s, as the analyzer reports it."""
         return float(self.ask("sweep_time"))
 
-    def expected_sweep_s(self, averages: int, planned_s: float | None) -> tuple[float | None, str]:
+    def expected_sweep_s(self, averages: int, planned_s: float | None, *,
+                         status: bool = False) -> tuple[float | None, str]:
         """How long the next :meth:`sweep` (all ``averages``) should take, s, and where that
         comes from: the analyzer's own sweep time (``SWEep:TIME?``, the profile's
         ``sweep_time``) times the averages, asked once per configuration, or ``planned_s``
         (the planner's model) when the profile has no such query.
 
         The analyzer knows its couplings, minimum sweep times and detector dwell; a model of
-        them does not (issue: a sweep wait taken from the model alone)."""
+        them does not (issue: a sweep wait taken from the model alone).
+
+        ``status``: read the event status register in the same message where the profile
+        allows compound messages (then taken by ``check_errors``/``point_status``)."""
         if not self.profile.has("sweep_time"):
             return planned_s, "plan"
         if self._sweep_time is None or self._sweep_time[1] != averages:
-            self._sweep_time = (self.sweep_time_s(), averages)
+            if status and self.compound:
+                (reply,) = self.ask_joined(("sweep_time", None), status=True)
+                self._sweep_time = (float(reply), averages)
+            else:
+                self._sweep_time = (self.sweep_time_s(), averages)
         return self._sweep_time[0] * max(1, averages), "instrument"
 
     def marker_level_dbm(self, freq_hz: float) -> float:
@@ -232,12 +240,12 @@ class AnalyzerDriver(Driver):
         """
         levels = self.trace()
         if self._axis is None:
-            centre = float(self.read_back("centre"))
-            span = float(self.read_back("span"))
-            points = None
+            ops = ["centre", "span"]
             if self.profile.has("points") and self.profile.op("points").read_back is not None:
-                points = int(self.read_back("points"))
-            self._axis = (centre, span, points)
+                ops.append("points")
+            values = self.read_backs(*ops)  # one message where the profile allows it
+            points = int(values[2]) if len(values) > 2 else None  # type: ignore[arg-type]
+            self._axis = (float(values[0]), float(values[1]), points)
         centre, span, points = self._axis
         return Trace.from_centre_span(centre, span, levels, points)
 

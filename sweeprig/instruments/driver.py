@@ -367,6 +367,34 @@ class Driver:
                 fix=f"add query = \"<SCPI>?\" to [ops.{op}] ({DOCS_HINT})",
             )
         reply = self.query(operation.read_back, timeout_s=operation.timeout_s)
+        return self._read_back_value(operation, reply)
+
+    def read_backs(self, *ops: str) -> list[Value]:
+        """:meth:`read_back` of each of ``ops``, in one message where the profile allows
+        compound messages."""
+        operations = [self.profile.op(op) for op in ops]
+        if not self.compound or len(ops) < 2 or any(o.read_back is None for o in operations):
+            return [self.read_back(op) for op in ops]
+        queries = [str(o.read_back) for o in operations]
+        timeout = max((o.timeout_s for o in operations if o.timeout_s is not None),
+                      default=None)
+        with self.joined():
+            for cmd in queries[:-1]:
+                self._send(cmd)
+            reply = self.query(queries[-1], timeout_s=timeout)
+        parts = reply.strip().split(";")
+        if len(parts) != len(queries):
+            raise InstrumentError(
+                f"{len(queries)} joined queries got {len(parts)} answers: {reply!r}",
+                where=self.where(";".join(queries)),
+                fix="if the instrument does not take compound messages, set "
+                "compound_messages = false in its driver profile",
+            )
+        return [self._read_back_value(o, part) for o, part in zip(operations, parts,
+                                                                   strict=True)]
+
+    def _read_back_value(self, operation: Operation, reply: str) -> Value:
+        assert operation.read_back is not None
         where = self.where(operation.read_back)
         if operation.spec.value == "choice":
             text = reply.strip().upper()
