@@ -49,7 +49,7 @@ import numpy as np
 from sweeprig.clock import Clock
 from sweeprig.engine.connect import BenchDrivers
 from sweeprig.engine.eta import EtaTracker
-from sweeprig.engine.noise_floor import NoiseFloor, estimate_noise_floor
+from sweeprig.engine.noise_floor import MASK_HALF_WIDTH_RBW, NoiseFloor, estimate_noise_floor
 from sweeprig.errors import InputError, InstrumentError, TransportError
 from sweeprig.formats.bench import Bench
 from sweeprig.formats.sequence import AdaptiveSoak, Sequence
@@ -227,7 +227,7 @@ class Runner:
             self._noise = NoiseReader(self.bench, self.d, self.clock)
         if self.policy.reset_check:
             for role, driver in self._checked_drivers():
-                if driver.event_status() & PON_BIT:  # reading clears it
+                if driver.point_status() & PON_BIT:  # reading clears it
                     self._event("info", "reset", f"role {role!r} reports a power-on since it "
                                 "was last used")
 
@@ -369,9 +369,11 @@ class Runner:
         return [(role, d) for role, d in self.d.items() if role != "simctl"]
 
     def _check_resets(self) -> None:
-        """Raise :class:`InstrumentReset` if any instrument's power-on bit is set."""
+        """Raise :class:`InstrumentReset` if any instrument's power-on bit is set; on a
+        compound profile, also raise the errors its event status reports (read once per
+        point, or taken from the point's last query where that carried it)."""
         for role, driver in self._checked_drivers():
-            if driver.event_status() & PON_BIT:
+            if driver.point_status() & PON_BIT:
                 raise InstrumentReset(
                     f"role {role!r} reset itself during the point (power-on bit set)",
                     where=driver.where(),
@@ -388,6 +390,8 @@ class Runner:
         """Apply ``point``, take its readings, commit them; return the result."""
         sim_start, wall_start = self.clock.now(), utc_now()
         waited_before = self._waited_s
+        for _role, driver in self._checked_drivers():
+            driver.expire_status()  # every instrument's status is read for this point
         changed = self._apply_conditions(point)
         changed |= self._apply_sources(point)
         if changed:
@@ -448,12 +452,13 @@ class Runner:
         dc = self.d.dc
         if dc is None or point.supply_v is None:
             return False
-        sent = dc.set_voltage(point.supply_v)
-        if not self._supply_on:
-            sent |= dc.set_output(True)
-            self._supply_on = True
-        if sent:
-            self._check(dc)
+        with dc.joined():
+            sent = dc.set_voltage(point.supply_v)
+            if not self._supply_on:
+                sent |= dc.set_output(True)
+                self._supply_on = True
+            if sent:
+                self._check(dc)
         return sent
 
     def _go_to_temperature(self, temperature_c: float, point: Point | None = None) -> None:
@@ -600,11 +605,10 @@ class Runner:
     def _apply_sources(self, point: Point) -> bool:
         """LO, RF, RF2 to the point's settings; outputs on. True if anything was sent."""
         sent = False
-        configured: list[Driver] = []
         # What goes off goes first, so the DUT's RF port never takes both tones at the new
         # level of one and the old level of the other.
         if point.rf2_freq_hz is None and self.d.rf2 is not None and self.d.rf2.set_output(False):
-            configured.append(self.d.rf2)
+            self.d.rf2.sync()
             sent = True
         plan = [("lo", point.lo_freq_hz, point.lo_power_dbm, "lo"),
                 ("rf", point.rf_freq_hz, point.rf_power_dbm, "rf")]
@@ -615,14 +619,17 @@ class Runner:
             if source is None:
                 raise InputError(f"the bench has no {role!r} source", where="bench",
                                  fix=f"add roles.{role} to the bench file")
-            block = self._tune(source, connection, freq_hz, power_dbm)
-            block |= source.set_output(True)
-            if block:
-                configured.append(source)
+            with source.joined():  # the settings and the *OPC? below: one message
+                block = self._tune(source, connection, freq_hz, power_dbm)
+                block |= source.set_output(True)
+                if block:
+                    # Each source proves it has applied its settings before the analyzer
+                    # (another connection) sweeps: *OPC? joined to them where the profile
+                    # allows it (its errors are then read with the point's status, before
+                    # the point is stored), else the error check, whose reply orders things
+                    # the same way.
+                    source.sync()
             sent |= block
-        # The error check also orders things: its reply proves each source has applied its
-        # settings before the analyzer (another connection) sweeps.
-        self._check(*configured)
         return sent
 
     def _tune(self, source: SourceDriver, connection: str, freq_hz: float,
@@ -679,18 +686,24 @@ class Runner:
         a = reading.analyzer
         aim = None if reading.search_hz is None else self._aim(point, reading, sa)
         found: Found | None = None
+        floor_from = "trace"
         for attempt in (1, 2):
-            if sa.configure(
-                centre_hz=a.center_hz if aim is None else aim.centre_hz,
-                span_hz=a.span_hz if aim is None else aim.span_hz, rbw_hz=a.rbw_hz,
-                ref_level_dbm=a.reference_level_dbm, attenuation_db=a.attenuation_db,
-                averages=a.averages, points=None if aim is None else aim.points,
-            ):
-                self._check(sa)
-            sweep_s, sweep_from = sa.expected_sweep_s(a.averages, a.measure_time_s)
-            sa.sweep(sweep_s)  # wait and timeout from the analyzer's own sweep time
+            # the changed settings, the analyzer's sweep time for them and the error check:
+            # one message where the profile allows it
+            with sa.joined():
+                changed = sa.configure(
+                    centre_hz=a.center_hz if aim is None else aim.centre_hz,
+                    span_hz=a.span_hz if aim is None else aim.span_hz, rbw_hz=a.rbw_hz,
+                    ref_level_dbm=a.reference_level_dbm, attenuation_db=a.attenuation_db,
+                    averages=a.averages, points=None if aim is None else aim.points,
+                )
+                sweep_s, sweep_from = sa.expected_sweep_s(a.averages, a.measure_time_s,
+                                                          status=bool(changed))
+                if changed:
+                    self._check(sa)
             if aim is None:
-                break
+                break  # swept below, with its marker reading in the same message
+            sa.sweep(sweep_s)  # wait and timeout from the analyzer's own sweep time
             # the trace the floor needs anyway carries the search: no extra transaction
             floor, found = self._search(sa, reading, aim, a.rbw_hz, a.averages)
             if attempt == 1 and aim.aimed and sw.WINDOW_EDGE in found.flags:
@@ -710,11 +723,18 @@ class Runner:
                 if clear is not None:
                     self._offsets.append((aim.coefficients, clear,
                                           found.resolution_hz or a.rbw_hz))
-            level = sa.marker_level_dbm(marker_hz)
+            level, _, overload = sa.marker_reading(marker_hz)
         else:
-            level = sa.marker_level_dbm(reading.freq_hz)
-            floor = self._noise_floor(sa, reading, a.span_hz, a.rbw_hz, a.averages)
-        overload = sa.overloaded()
+            # the floor from markers in the same message when the reading stands clear of
+            # them; the trace only for a reading near its floor (or no room for markers)
+            noise_hz = noise_marker_hz(reading, a.center_hz, a.span_hz, a.rbw_hz) \
+                if sa.compound else ()
+            level, samples, overload = sa.sweep_and_read(sweep_s, reading.freq_hz, noise_hz)
+            floor_from = "markers"
+            floor = floor_from_markers(level, samples)
+            if floor is None:
+                floor_from = "trace"
+                floor = self._noise_floor(sa, reading, a.span_hz, a.rbw_hz, a.averages)
         if reading.rf_retune_hz is not None and rf is not None:
             self._tune(rf, "rf", point.rf_freq_hz, point.rf_power_dbm)
             rf.set_output(True)
@@ -739,6 +759,8 @@ class Runner:
             overload=overload,
             attenuation_check=True if reading.attenuation_check else None,
             extra={**_reading_extra(reading, level, loss, floor),
+                   **({"noise_floor_from": "markers", "noise_floor_points": floor.points_used}
+                      if aim is None and floor_from == "markers" else {}),
                    "sweep_s": sweep_s, "sweep_time_from": sweep_from,
                    **({} if found is None or aim is None
                       else search_extra(reading, found, aim))},
@@ -981,6 +1003,54 @@ def search_extra(reading: Reading, found: Found, aim: Aim) -> dict[str, object]:
     if found.flags:
         out["search_flags"] = list(found.flags)
     return out
+
+
+#: A reading at least this far above every noise marker takes its floor from the markers and
+#: reads no trace: one log-detected sample of noise scatters by about 5.6 dB (standard
+#: result, :mod:`sweeprig.engine.noise_floor`), so a dip of 20 dB under the mean is a
+#: one-in-a-hundred event per marker, one in a million for all three; with the analysis'
+#: widest noise margin (10 dB, :mod:`sweeprig.analysis.validity`) a reading this clear is
+#: never near its floor (common practice, no source).
+MARKER_FLOOR_CLEAR_DB = 35.0
+#: Noise markers read with a reading (the floor is their mean in dB; the clearance is judged
+#: against the highest, so one marker on an unexpected line only sends the reading to the
+#: trace).
+NOISE_MARKERS = 3
+#: Where the noise markers may sit, as fractions of the span from the centre (both sides),
+#: tried in this order (common practice, no source).
+_NOISE_MARKER_SPAN_FRACTIONS = (0.42, -0.42, 0.30, -0.30, 0.18, -0.18)
+
+
+def noise_marker_hz(reading: Reading, centre_hz: float, span_hz: float, rbw_hz: float
+                    ) -> tuple[float, ...]:
+    """Up to :data:`NOISE_MARKERS` frequencies, Hz, inside the span and more than
+    ``MASK_HALF_WIDTH_RBW`` RBWs from the product and every line the plan expects there (the
+    same mask as the trace estimate); () when fewer fit (zero or narrow span): the floor is
+    then read from the trace."""
+    if span_hz <= 0 or reading.freq_hz is None:
+        return ()
+    lines = [f for f in (reading.freq_hz, *reading.known_hz) if math.isfinite(f)]
+    half = MASK_HALF_WIDTH_RBW * rbw_hz
+    chosen: list[float] = []
+    for fraction in _NOISE_MARKER_SPAN_FRACTIONS:
+        f = centre_hz + fraction * span_hz
+        if all(abs(f - line) > half for line in lines):
+            chosen.append(f)
+        if len(chosen) == NOISE_MARKERS:
+            return tuple(chosen)
+    return ()
+
+
+def floor_from_markers(level_dbm: float, samples_dbm: tuple[float, ...]) -> NoiseFloor | None:
+    """The floor from noise markers (the mean of their levels in dB: the displayed noise's
+    mean in dB is its power, :mod:`sweeprig.engine.noise_floor`), dBm, when the reading
+    stands at least :data:`MARKER_FLOOR_CLEAR_DB` above the highest; None otherwise (read
+    the trace)."""
+    if len(samples_dbm) < NOISE_MARKERS or not all(math.isfinite(x) for x in samples_dbm):
+        return None
+    if not math.isfinite(level_dbm) or level_dbm - max(samples_dbm) < MARKER_FLOOR_CLEAR_DB:
+        return None
+    return NoiseFloor(float(np.mean(samples_dbm)), len(samples_dbm))
 
 
 def _connection_of(port: str) -> str:

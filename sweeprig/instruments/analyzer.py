@@ -34,10 +34,12 @@ class AnalyzerDriver(Driver):
     kind = "analyzer"
 
     def prepare(self) -> None:
-        """The profile's ``prepare`` commands, then single-sweep mode."""
-        super().prepare()
-        self.single_sweep_mode()
-        self.enable_status()
+        """The profile's ``prepare`` commands, then single-sweep mode (one message where the
+        profile allows compound messages)."""
+        with self.joined():
+            super().prepare()
+            self.single_sweep_mode()
+            self.enable_status()
 
     def enable_status(self) -> int:
         """Enable the questionable bits the ``overload`` and ``uncalibrated`` flags read, so
@@ -147,23 +149,67 @@ class AnalyzerDriver(Driver):
         """Time of one sweep, s, as the analyzer reports it."""
         return float(self.ask("sweep_time"))
 
-    def expected_sweep_s(self, averages: int, planned_s: float | None) -> tuple[float | None, str]:
+    def expected_sweep_s(self, averages: int, planned_s: float | None, *,
+                         status: bool = False) -> tuple[float | None, str]:
         """How long the next :meth:`sweep` (all ``averages``) should take, s, and where that
         comes from: the analyzer's own sweep time (``SWEep:TIME?``, the profile's
         ``sweep_time``) times the averages, asked once per configuration, or ``planned_s``
         (the planner's model) when the profile has no such query.
 
         The analyzer knows its couplings, minimum sweep times and detector dwell; a model of
-        them does not (issue: a sweep wait taken from the model alone)."""
+        them does not (issue: a sweep wait taken from the model alone).
+
+        ``status``: read the event status register in the same message where the profile
+        allows compound messages (then taken by ``check_errors``/``point_status``)."""
         if not self.profile.has("sweep_time"):
             return planned_s, "plan"
         if self._sweep_time is None or self._sweep_time[1] != averages:
-            self._sweep_time = (self.sweep_time_s(), averages)
+            if status and self.compound:
+                (reply,) = self.ask_joined(("sweep_time", None), status=True)
+                self._sweep_time = (float(reply), averages)
+            else:
+                self._sweep_time = (self.sweep_time_s(), averages)
         return self._sweep_time[0] * max(1, averages), "instrument"
 
     def marker_level_dbm(self, freq_hz: float) -> float:
         """Put marker 1 at ``freq_hz`` and read its level, dBm (from the last sweep)."""
         return float(self.ask("marker_level", freq_hz))
+
+    def sweep_and_read(self, expected_s: float | None, freq_hz: float,
+                       noise_hz: tuple[float, ...] = ()) -> tuple[float, tuple[float, ...], bool]:
+        """:meth:`sweep`, then :meth:`marker_reading`: one message where the profile allows
+        compound messages and the sweep completes by ``*OPC?`` (the instrument's
+        no-operation-pending flag follows the sweep): ``INIT;*WAI;`` before the marker queries,
+        ``*WAI`` holding them until the sweep has ended (IEEE 488.2 10.39, from memory), with
+        the sweep's own wait as the reply's timeout."""
+        op = self.profile.op("sweep")
+        completion = op.completion
+        if not (self.compound and completion is not None and completion.method == "opc"):
+            self.sweep(expected_s)
+            return self.marker_reading(freq_hz, noise_hz)
+        limit = completion.timeout_s
+        if expected_s is not None:
+            limit = min(limit, 2.0 * expected_s + float(getattr(self.transport, "timeout_s",
+                                                                  5.0)))
+        with self.joined():
+            for template in op.commands:
+                self._send(template)
+            self._send("*WAI")
+            return self.marker_reading(freq_hz, noise_hz, timeout_s=limit)
+
+    def marker_reading(self, freq_hz: float, noise_hz: tuple[float, ...] = (), *,
+                       timeout_s: float | None = None
+                       ) -> tuple[float, tuple[float, ...], bool]:
+        """Marker 1 at ``freq_hz`` (level, dBm), then at each of ``noise_hz`` (levels, dBm),
+        the overload flag, and the event status register (kept for
+        :meth:`~sweeprig.instruments.driver.Driver.point_status`): one message where the
+        profile allows compound messages."""
+        asks: list[tuple[str, float | None]] = [("marker_level", freq_hz)]
+        asks += [("marker_level", f) for f in noise_hz]
+        asks.append(("overload", None))
+        replies = self.ask_joined(*asks, status=True, timeout_s=timeout_s)
+        return (float(replies[0]), tuple(float(r) for r in replies[1:-1]),
+                bool(replies[-1]))
 
     def peak(self) -> tuple[float, float]:
         """Marker 1 to the highest point of the trace → (frequency Hz, level dBm)."""
@@ -194,12 +240,12 @@ class AnalyzerDriver(Driver):
         """
         levels = self.trace()
         if self._axis is None:
-            centre = float(self.read_back("centre"))
-            span = float(self.read_back("span"))
-            points = None
+            ops = ["centre", "span"]
             if self.profile.has("points") and self.profile.op("points").read_back is not None:
-                points = int(self.read_back("points"))
-            self._axis = (centre, span, points)
+                ops.append("points")
+            values = self.read_backs(*ops)  # one message where the profile allows it
+            points = int(values[2]) if len(values) > 2 else None  # type: ignore[arg-type]
+            self._axis = (float(values[0]), float(values[1]), points)
         centre, span, points = self._axis
         return Trace.from_centre_span(centre, span, levels, points)
 

@@ -14,7 +14,11 @@ gives, and adds what every kind needs:
   :class:`SafetyLimitError` for powers, voltages and currents, :class:`InputError` otherwise;
 * :meth:`Driver.check_errors` drains the error queue and raises :class:`InstrumentError`
   naming the role, the commands sent since the previous check and the instrument's text;
-* ``transactions`` counts SCPI exchanges (writes and queries, completion waits included).
+* ``transactions`` counts SCPI exchanges (writes and queries, completion waits included);
+* where the profile allows compound messages (``compound_messages``), settings are held and
+  sent joined with the next message to the instrument (``:SOUR:FREQ:CW 1E9;*OPC?`` is one
+  exchange), and the error queue is read only when the event status register's error bits
+  say it holds something (:meth:`Driver.check_errors`, :meth:`Driver.point_status`).
 
 The per-kind classes (:mod:`sweeprig.instruments.source` and siblings) only name the
 operations. Drivers are not thread-safe: one thread drives one instrument.
@@ -25,7 +29,7 @@ from __future__ import annotations
 import contextlib
 import math
 from collections import deque
-from collections.abc import Mapping
+from collections.abc import Iterator, Mapping
 from typing import Any, ClassVar
 
 import numpy as np
@@ -46,6 +50,11 @@ MAX_ERROR_READS = 64
 
 _BLOCK_SHOWN = 12
 _BLOCK_KEPT = 64
+
+ESR_ERROR_BITS = 0x3C
+"""IEEE 488.2 standard event status register, bits 2-5: query error, device-dependent error,
+execution error, command error (IEEE 488.2 section 11.5.1, from memory): set whenever an error
+enters the queue (SCPI-99 Vol. 1, chapter 21, from memory)."""
 
 SAFETY_CAUTION = (
     "caution: too much RF power or supply voltage can destroy the part or the analyzer input"
@@ -92,6 +101,26 @@ class Driver:
         self._block: deque[str] = deque(maxlen=_BLOCK_KEPT)
         self._block_count = 0
         self._block_ops: set[str] = set()
+        #: commands held to be joined with the next message (compound profiles, inside
+        #: :meth:`joined` only)
+        self._held: list[str] = []
+        self._joining = False
+        #: event status bits read (joined with other queries) and not yet taken
+        self._status_bits = 0
+        #: True while the last exchange ended with an ``*ESR?`` read (nothing sent since)
+        self._status_fresh = False
+        #: an ``*ESR?`` read showed error bits: the queue holds entries not yet read
+        self._errors_flagged = False
+
+    single_units = False
+    """True: one unit per message whatever the profile says (``sweeprig probe`` tries each
+    operation alone; narrow tests pin each operation's own rendering)."""
+
+    @property
+    def compound(self) -> bool:
+        """Whether settings and queries are joined into compound messages (the profile's
+        ``compound_messages``, unless :attr:`single_units`)."""
+        return self.profile.compound_messages and not self.single_units
 
     # -- naming -----------------------------------------------------------------------------
 
@@ -111,16 +140,71 @@ class Driver:
     # -- raw exchanges ----------------------------------------------------------------------
 
     def write(self, cmd: str) -> None:
-        """Send ``cmd`` as is (counted, remembered for the error report)."""
+        """Send ``cmd`` (after any held commands, in the same message; counted, remembered
+        for the error report)."""
         self._block.append(cmd)
         self._block_count += 1
         self.transactions += 1
-        self.transport.write(cmd)
+        self._status_fresh = False
+        self.transport.write(self._joined(cmd))
 
     def query(self, cmd: str, *, timeout_s: float | None = None) -> str:
-        """Send query ``cmd`` and return the reply text (counted)."""
+        """Send query ``cmd`` (after any held commands, in the same message) and return the
+        reply text (counted)."""
         self.transactions += 1
-        return self.transport.query(cmd, timeout_s=timeout_s)
+        self._status_fresh = False
+        return self.transport.query(self._joined(cmd), timeout_s=timeout_s)
+
+    @contextlib.contextmanager
+    def joined(self) -> Iterator[None]:
+        """A block whose commands are joined with the block's next query into one message,
+        where the profile allows compound messages (no effect otherwise). Whatever is still
+        held at the end is sent then, so nothing waits past the block while another
+        instrument acts; on an exception it is dropped and the cached settings forgotten
+        (so they are all sent again)."""
+        if not self.compound or self._joining:
+            yield
+            return
+        self._joining = True
+        try:
+            yield
+        except BaseException:
+            self._joining = False
+            self.forget_state()
+            raise
+        self._joining = False
+        self.flush()
+
+    def _send(self, cmd: str) -> None:
+        """A command of an operation: held for the next message inside :meth:`joined`
+        (remembered for the error report at once), sent now otherwise."""
+        if not self._joining:
+            self.write(cmd)
+            return
+        self._block.append(cmd)
+        self._block_count += 1
+        self._held.append(cmd)
+        self._status_fresh = False  # a status read before this command says nothing of it
+
+    def flush(self) -> None:
+        """Send the held commands now (one message), if any."""
+        if self._held:
+            self.transactions += 1
+            self._status_fresh = False
+            self.transport.write(self._joined(None))
+
+    def _joined(self, cmd: str | None) -> str:
+        """The held commands and ``cmd`` as one message; each unit's header made absolute
+        (a leading ``:``), since after a ``;`` a header is read relative to the previous
+        one's path (SCPI-99 Vol. 1, 6.2.4, from memory). Empties the hold."""
+        if not self._held:
+            assert cmd is not None
+            return cmd
+        units = [*self._held, *(() if cmd is None else (cmd,))]
+        self._held = []
+        if len(units) == 1:
+            return units[0]
+        return ";".join(u if u.startswith((":", "*")) else ":" + u for u in units)
 
     # -- values and limits ------------------------------------------------------------------
 
@@ -231,9 +315,11 @@ class Driver:
         self._cache.pop(op, None)  # unknown until the commands went through
         self._block_ops.add(op)
         for template in operation.commands:
-            self.write(Operation.fill(template, token))
+            self._send(Operation.fill(template, token))
         self._cache[op] = (checked, token)
         self._complete(operation)
+        if force:
+            self.flush()  # a forced setting (the safe state) goes out now, never held
         return True
 
     def do(self, op: str, value: Value | None = None, *,
@@ -247,9 +333,10 @@ class Driver:
         token = None
         if operation.spec.value != "none":
             token = operation.render_value(self._checked(operation, value))
-        for template in operation.commands:
-            self.write(Operation.fill(template, token))
-        self._complete(operation, timeout_s)
+        with self.joined():  # the commands and the completion query: one message
+            for template in operation.commands:
+                self._send(Operation.fill(template, token))
+            self._complete(operation, timeout_s)
 
     def ask(self, op: str, value: Value | None = None) -> Any:
         """Run the query ``op`` and return its parsed reply (a tuple when it has two queries;
@@ -259,7 +346,7 @@ class Driver:
         if operation.spec.value != "none":
             token = operation.render_value(self._checked(operation, value))
         for template in operation.commands:
-            self.write(Operation.fill(template, token))
+            self._send(Operation.fill(template, token))
         results = []
         for template in operation.queries:
             cmd = Operation.fill(template, token)
@@ -280,6 +367,34 @@ class Driver:
                 fix=f"add query = \"<SCPI>?\" to [ops.{op}] ({DOCS_HINT})",
             )
         reply = self.query(operation.read_back, timeout_s=operation.timeout_s)
+        return self._read_back_value(operation, reply)
+
+    def read_backs(self, *ops: str) -> list[Value]:
+        """:meth:`read_back` of each of ``ops``, in one message where the profile allows
+        compound messages."""
+        operations = [self.profile.op(op) for op in ops]
+        if not self.compound or len(ops) < 2 or any(o.read_back is None for o in operations):
+            return [self.read_back(op) for op in ops]
+        queries = [str(o.read_back) for o in operations]
+        timeout = max((o.timeout_s for o in operations if o.timeout_s is not None),
+                      default=None)
+        with self.joined():
+            for cmd in queries[:-1]:
+                self._send(cmd)
+            reply = self.query(queries[-1], timeout_s=timeout)
+        parts = reply.strip().split(";")
+        if len(parts) != len(queries):
+            raise InstrumentError(
+                f"{len(queries)} joined queries got {len(parts)} answers: {reply!r}",
+                where=self.where(";".join(queries)),
+                fix="if the instrument does not take compound messages, set "
+                "compound_messages = false in its driver profile",
+            )
+        return [self._read_back_value(o, part) for o, part in zip(operations, parts,
+                                                                   strict=True)]
+
+    def _read_back_value(self, operation: Operation, reply: str) -> Value:
+        assert operation.read_back is not None
         where = self.where(operation.read_back)
         if operation.spec.value == "choice":
             text = reply.strip().upper()
@@ -295,7 +410,8 @@ class Driver:
     def _read(self, cmd: str, reply_format: str, timeout_s: float | None) -> Any:
         if reply_format == "real32":
             self.transactions += 1
-            return self.transport.query_binary_floats(cmd, timeout_s=timeout_s)
+            self._status_fresh = False
+            return self.transport.query_binary_floats(self._joined(cmd), timeout_s=timeout_s)
         return self._parse(self.query(cmd, timeout_s=timeout_s), reply_format, self.where(cmd))
 
     @staticmethod
@@ -321,6 +437,7 @@ class Driver:
         timeout_s = completion.timeout_s if limit_s is None else min(limit_s,
                                                                       completion.timeout_s)
         if completion.method == "wait":
+            self.flush()
             self.clock.sleep(completion.timeout_s if limit_s is None
                              else min(limit_s, completion.timeout_s))
             return
@@ -395,6 +512,8 @@ class Driver:
     def clear(self) -> None:
         """``*CLS``: clear the error queue and event registers."""
         self.do("clear")
+        self.flush()  # now: a later forget_state() must not drop it
+        self._errors_flagged = False
         self._block.clear()
         self._block_count = 0
         self._block_ops.clear()
@@ -420,12 +539,19 @@ class Driver:
         return bool(self.ask("reference_unlocked"))
 
     def event_status(self) -> int:
-        """The event status register (``*ESR?``; reading clears it)."""
-        return int(self.ask("event_status"))
+        """The event status register (``*ESR?``; reading clears it), with any bits read in
+        joined messages and not yet taken. Error bits are kept for :meth:`check_errors`."""
+        bits = int(self.ask("event_status"))
+        if bits & ESR_ERROR_BITS:
+            self._errors_flagged = True
+        self._status_fresh = True
+        bits, self._status_bits = bits | self._status_bits, 0
+        return bits
 
     def errors(self) -> list[blocks.ScpiError]:
         """Drain the error queue: every entry up to the ``0,...`` that ends it."""
         found: list[blocks.ScpiError] = []
+        self._errors_flagged = False
         for _ in range(MAX_ERROR_READS):
             entry = self.ask("next_error")
             if not entry.is_error:
@@ -439,16 +565,34 @@ class Driver:
         )
 
     def check_errors(self) -> None:
-        """Drain the error queue; raise :class:`InstrumentError` if it held errors.
+        """Raise :class:`InstrumentError` if the instrument reported errors since the last
+        check (draining its queue).
 
-        The message names the commands sent since the previous check (the last configuration
-        block) and the instrument's texts. Settings in that block are forgotten from the cache,
-        since the instrument may have refused them.
+        On a compound profile the event status register says whether there is anything to
+        read (``*ESR?``, joined with any held commands; no query at all when the last exchange
+        already read it): the queue is read only when an error bit is set. Otherwise the queue
+        is drained every time. The message names the commands sent since the previous check
+        (the last configuration block) and the instrument's texts. Settings in that block are
+        forgotten from the cache, since the instrument may have refused them.
         """
+        if self.compound and self.profile.has("event_status"):
+            if not self._status_fresh:
+                self._read_status()
+            if not self._errors_flagged:
+                self._end_block()
+                return
+        self._raise_queued_errors()
+
+    def _end_block(self) -> tuple[list[str], set[str], int]:
         sent, ops, count = list(self._block), set(self._block_ops), self._block_count
         self._block.clear()
         self._block_count = 0
         self._block_ops.clear()
+        return sent, ops, count
+
+    def _raise_queued_errors(self) -> None:
+        sent, ops, count = self._end_block()
+        self._errors_flagged = False
         found = self.errors()
         if not found:
             return
@@ -465,6 +609,107 @@ class Driver:
             "commands against its manual",
         )
 
+    def _take_status(self, reply: str, cmd: str) -> None:
+        """Keep the bits of an ``*ESR?`` reply read in a joined message."""
+        bits = blocks.parse_int(reply, where=self.where(cmd))
+        self._status_bits |= bits
+        if bits & ESR_ERROR_BITS:
+            self._errors_flagged = True
+        self._status_fresh = True
+
+    def _read_status(self) -> None:
+        cmd = self.profile.op("event_status").queries[0]
+        reply = self.query(cmd, timeout_s=self.profile.op("event_status").timeout_s)
+        self._take_status(reply, cmd)
+
+    def point_status(self) -> int:
+        """The event status bits since the last call (``*ESR?``; the power-on bit, 128, says
+        the instrument reset itself), after checking for errors.
+
+        On a compound profile the register is read only when the last exchange did not
+        already read it (a query can carry ``*ESR?`` at its end: :meth:`sync`,
+        :meth:`ask_joined`), and error bits raise as :meth:`check_errors` does. Otherwise
+        this is :meth:`event_status` (errors are left to :meth:`check_errors`)."""
+        if not (self.compound and self.profile.has("event_status")):
+            return self.event_status()
+        self.check_errors()
+        bits, self._status_bits = self._status_bits, 0
+        return bits
+
+    def expire_status(self) -> None:
+        """A new point begins: a status read before it says nothing of it, so the point's
+        :meth:`point_status` reads the register unless a later query carried it."""
+        self._status_fresh = False
+
+    def sync(self) -> None:
+        """Prove the instrument has applied everything sent so far before another
+        instrument acts (a source settled before the analyzer sweeps): on a compound profile
+        one ``*OPC?`` joined with the held settings (errors are then found by the point's
+        :meth:`point_status`); otherwise the error check, whose reply proves the same for
+        the sequential commands it follows."""
+        if not self.compound:
+            self.check_errors()
+            return
+        opc = self.profile.op("operation_complete")
+        cmd = opc.queries[0]
+        reply = self.query(cmd, timeout_s=opc.timeout_s)
+        if not blocks.parse_bool(reply, where=self.where(cmd)):
+            raise InstrumentError(
+                f"{cmd} answered {reply!r} instead of 1",
+                where=self.where(cmd),
+                fix="check the instrument's error queue; a setting may have failed",
+            )
+
+    def ask_joined(self, *asks: tuple[str, Value | None], status: bool = False,
+                   timeout_s: float | None = None) -> list[Any]:
+        """Several single-query operations (``(op, value)``) in one message where the
+        profile allows it, ``*ESR?`` at its end when ``status`` (taken as :meth:`point_status`
+        will read it); one by one otherwise. Returns each parsed reply, in order."""
+        ops = [self.profile.op(op) for op, _ in asks]
+        joinable = self.compound and all(
+            len(o.queries) == 1 and o.reply != "real32" for o in ops)
+        if not joinable:
+            return [self.ask(op, value) for op, value in asks]
+        tokens = [None if o.spec.value == "none" else o.render_value(self._checked(o, value))
+                  for o, (_, value) in zip(ops, asks, strict=True)]  # all checked first
+        with self.joined():  # held here, sent with the last query
+            queries: list[str] = []
+            for operation, token in zip(ops, tokens, strict=True):
+                for template in operation.commands:
+                    self._send(Operation.fill(template, token))
+                queries.append(Operation.fill(operation.queries[0], token))
+                self._send(queries[-1])  # a query unit: its answer joins the reply in order
+            status_cmd = None
+            if status and self.profile.has("event_status"):
+                status_cmd = self.profile.op("event_status").queries[0]
+                self._send(status_cmd)
+            last = self._held.pop()
+            self._block_count -= 1
+            self._block.pop()
+            timeout = max((o.timeout_s for o in ops if o.timeout_s is not None),
+                          default=timeout_s)
+            if timeout_s is not None:
+                timeout = max(timeout_s, timeout or 0.0)
+            reply = self.query(last, timeout_s=timeout)
+        parts = reply.strip().split(";")
+        expected = len(queries) + (status_cmd is not None)
+        if len(parts) != expected:
+            raise InstrumentError(
+                f"{expected} joined queries got {len(parts)} answers: {reply!r}",
+                where=self.where(last),
+                fix="if the instrument does not take compound messages, set "
+                "compound_messages = false in its driver profile",
+            )
+        if status_cmd is not None:
+            self._take_status(parts.pop(), status_cmd)
+        results: list[Any] = []
+        for operation, part, cmd in zip(ops, parts, queries, strict=True):
+            value = self._parse(part, operation.reply or "text", self.where(cmd))
+            if operation.mask is not None:
+                value = (int(value) & operation.mask) != 0
+            results.append(value)
+        return results
+
     def resume_after_clear(self) -> None:
         """After a device clear (:mod:`sweeprig.transport.resync`): ``*CLS``, the profile's
         ``prepare``, and every setting sent before it sent again (a device clear keeps the
@@ -476,8 +721,11 @@ class Driver:
         self.apply_state(state)
 
     def forget_state(self) -> None:
-        """Empty the cache of last-sent settings (after a reset, reconnect or power cycle)."""
+        """Empty the cache of last-sent settings (after a reset, reconnect or power cycle),
+        and drop any held commands (they were not sent)."""
         self._cache.clear()
+        self._held.clear()
+        self._status_fresh = False
 
     def state(self) -> dict[str, Value]:
         """The settings sent and not forgotten since: operation name → value."""

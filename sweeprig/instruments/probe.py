@@ -226,6 +226,7 @@ class _Recorder:
 def probe(driver: Driver, *, clock: Callable[[], float] = time.perf_counter,
           started_utc: str = "") -> ProbeReport:
     """Probe every operation of ``driver``'s profile (see the module docstring)."""
+    driver.single_units = True  # each operation alone: its own reply and its own errors
     profile = driver.profile
     where = str(profile.path) if profile.path else f"profile {profile.name!r}"
     steps: list[ProbeStep] = []

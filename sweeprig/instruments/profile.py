@@ -180,6 +180,10 @@ class Profile:
     the common IEEE 488.2 ones included. ``path``: the file it came from. ``connection``:
     terminations, byte order and serial settings the transport applies. ``extends``: the
     chain of profiles it builds on (nearest first). ``sources``: every file read.
+    ``compound_messages``: the instrument accepts IEEE 488.2 compound program messages
+    (units joined by ``;``, several queries answered in one reply), so the driver may join
+    settings and queries into one message; False (the default, never inherited through
+    ``extends``) sends one unit per message.
     """
 
     name: str
@@ -193,6 +197,7 @@ class Profile:
     connection: ConnectionSettings = DEFAULT_CONNECTION
     extends: tuple[str, ...] = ()
     sources: tuple[Path, ...] = ()
+    compound_messages: bool = False
 
     def op(self, name: str) -> Operation:
         """The operation ``name``; :class:`InputError` if this profile lacks it."""
@@ -596,7 +601,7 @@ def _connection(model: _ConnectionModel, doc: Document) -> ConnectionSettings:
 
 
 #: Header keys a profile does not take from the profile it extends.
-_NOT_INHERITED = ("name", "generic", "extends")
+_NOT_INHERITED = ("name", "generic", "extends", "compound_messages")
 
 
 def parse_profile(text: str, path: Path | str = "<profile>") -> Profile:
@@ -744,6 +749,7 @@ def _build_profile(root: SourceFile, path: Path | None, chain: tuple[str, ...]) 
         connection=_connection(model.connection, doc),
         extends=chain,
         sources=tuple(sources),
+        compound_messages=header.compound_messages,
     )
 
 

@@ -105,6 +105,7 @@ class _HeaderModel(_Strict):
     scan_hint: str | None = None
     generic: bool = False
     extends: str | None = None
+    compound_messages: bool = False
 
 
 class _SerialModel(_Strict):

@@ -15,7 +15,9 @@ def _analyzer(replies: dict[str, str]) -> tuple[AnalyzerDriver, FakeTransport]:
         return replies.get(cmd) if cmd.endswith("?") or "?" in cmd else None
 
     link = FakeTransport(handle)
-    return AnalyzerDriver("sa", link, load_profile("scpi-analyzer")), link
+    sa = AnalyzerDriver("sa", link, load_profile("scpi-analyzer"))
+    sa.single_units = True  # pins each operation's own text (joined: test_compound)
+    return sa, link
 
 
 def test_wait_and_timeout_follow_the_reported_sweep_time() -> None:

@@ -34,7 +34,9 @@ class Queue:
 def source():
     queue = Queue()
     transport = FakeTransport(queue)
-    return make_driver("scpi-source", "rf", transport), transport, queue
+    src = make_driver("scpi-source", "rf", transport)
+    src.single_units = True  # pins each operation's own text (joined: test_compound)
+    return src, transport, queue
 
 
 def test_unchanged_setting_is_not_resent(source):
@@ -192,7 +194,8 @@ def test_poll_completion_with_virtual_clock():
 
 
 def test_opc_must_answer_one():
-    t = FakeTransport(lambda cmd: "0" if cmd == "*OPC?" else None)
+    # the profile joins the sweep's command with its *OPC? (one message)
+    t = FakeTransport(lambda cmd: "0" if cmd.endswith("*OPC?") else None)
     sa = make_driver("analyzer", "sa", t)
     with pytest.raises(InstrumentError, match="instead of 1"):
         sa.sweep()

@@ -60,7 +60,7 @@ def test_extends_overrides_only_what_differs(tmp_path: Path) -> None:
 def test_inherited_limit_names_the_file_it_comes_from(tmp_path: Path) -> None:
     profile = load_profile(_write(tmp_path, "tw-sa9", CHILD))
     assert profile.op("rbw").min_place is not None
-    assert profile.op("rbw").min_place.endswith("scpi-analyzer.toml:35")
+    assert profile.op("rbw").min_place.endswith("scpi-analyzer.toml:40")
     assert profile.op("rbw").max_line == 15 and profile.op("rbw").max_place is None
 
 

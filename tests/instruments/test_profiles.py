@@ -45,7 +45,9 @@ def test_every_required_operation_is_there():
 def _driver(kind: str, replies: dict[str, str] | None = None):
     replies = {"*OPC?": "1", **(replies or {})}
     transport = FakeTransport(lambda cmd: replies.get(cmd, "0" if cmd.endswith("?") else None))
-    return make_driver(kind, kind[:2], transport), transport
+    driver = make_driver(kind, kind[:2], transport)
+    driver.single_units = True  # pins each operation's own text (joined: test_compound)
+    return driver, transport
 
 
 # Each expected command below is a short form of a header in docs/instruments.md.

@@ -29,6 +29,7 @@ def test_the_axis_is_what_the_analyzer_reads_back() -> None:
 
     link = FakeTransport(answer)
     sa = AnalyzerDriver("sa", link, load_profile("scpi-analyzer"))
+    sa.single_units = True  # pins each operation's own text (joined: test_compound)
     sa.configure(centre_hz=70e6, span_hz=20e3)
     trace = sa.read_trace()
     np.testing.assert_allclose(trace.freq_hz, [69.995e6, 70e6, 70.005e6])

@@ -21,6 +21,7 @@ from __future__ import annotations
 
 import statistics
 import time
+from collections import Counter
 from pathlib import Path
 
 import pytest
@@ -127,7 +128,13 @@ def _engine(folder: Path, resources: dict[str, str], *, bus_log: bool
     transactions = None
     if bus_log:
         with SqliteRunStore(store, create=False) as db:
-            transactions = len(db.bus_log(outcome.run_id))
+            log = db.bus_log(outcome.run_id)
+        transactions = len(log)
+        kinds = Counter(f"{r.role} {r.sent.split(' ')[0].split(';')[0]}"
+                        f"{'...' if ';' in r.sent else ''}" for r in log)
+        print("\nengine transactions by role and first unit (all points, set-up and safe "
+              "state included):\n  " + "\n  ".join(f"{n:4d}  {k}"
+                                                  for k, n in kinds.most_common()))
     return wall, outcome.points_done, transactions
 
 

@@ -1,0 +1,145 @@
+"""Compound messages (IEEE 488.2 program messages of several units joined by ``;``): a
+profile says whether its instrument takes them (``compound_messages``, false unless stated,
+never inherited), the driver then holds settings and joins them with the next message, and
+reads the error queue only when the event status register's error bits say it holds
+something. Narrow tests on a function-backed transport that answers each unit as a 488.2
+device would (joined queries answered in one reply, joined by ``;``)."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import pytest
+
+from sweeprig.errors import InstrumentError
+from sweeprig.instruments import make_driver
+from sweeprig.instruments.profile import load_profile
+from sweeprig.transport.fake import FakeTransport
+
+
+class Device:
+    """Answers each unit of a message: *OPC? 1, *ESR? the register (then cleared), SYST:ERR?
+    the queue, CALC:MARK1:Y? a level, STAT:QUES:COND? 0; commands are kept."""
+
+    def __init__(self) -> None:
+        self.esr = 0
+        self.errors: list[str] = []
+        self.units: list[str] = []
+
+    def __call__(self, message: str) -> str | None:
+        replies = []
+        for unit in message.split(";"):
+            self.units.append(unit)
+            if unit == "*OPC?":
+                replies.append("1")
+            elif unit == "*ESR?":
+                replies.append(str(self.esr))
+                self.esr = 0
+            elif unit == "SYST:ERR?":
+                replies.append(self.errors.pop(0) if self.errors else '0,"No error"')
+            elif unit.endswith("CALC:MARK1:Y?"):
+                replies.append("-20.5")
+            elif unit.endswith("?"):
+                replies.append("0")
+        return ";".join(replies) if replies else None
+
+
+def _source() -> tuple[object, FakeTransport, Device]:
+    device = Device()
+    link = FakeTransport(device)
+    return make_driver("scpi-source", "rf", link), link, device
+
+
+def test_settings_are_joined_with_the_completion_query_in_one_message():
+    src, link, _ = _source()
+    with src.joined():
+        src.set_power(-10.0)
+        src.set_frequency(2.4e9)
+        assert link.sent == []  # held
+        src.sync()
+    # each header absolute: after a ';' a header is read relative to the previous one's path
+    assert link.sent == [":SOUR:POW:LEV:IMM:AMPL -10;:SOUR:FREQ:CW 2400000000;*OPC?"]
+    assert src.transactions == 1
+    assert src.set_frequency(2.4e9) is False  # unchanged: skipped
+    assert src.state() == {"power": -10.0, "frequency": 2.4e9}
+
+
+def test_the_error_queue_is_read_only_when_the_status_says_it_holds_something():
+    src, link, device = _source()
+    with src.joined():
+        src.set_frequency(1e9)
+        src.check_errors()
+    assert link.sent == [":SOUR:FREQ:CW 1000000000;*ESR?"]  # no error bit: no queue read
+    src.check_errors()
+    assert len(link.sent) == 1  # nothing sent since the status was read: nothing to ask
+    device.esr = 16  # execution error (IEEE 488.2 ESR bit 4)
+    device.errors = ['-222,"Data out of range"']
+    with pytest.raises(InstrumentError, match=r"-222.*SOUR:FREQ:CW 5900000000"), \
+            src.joined():
+        src.set_frequency(5.9e9)
+        src.check_errors()
+    assert link.sent[1:] == [":SOUR:FREQ:CW 5900000000;*ESR?", "SYST:ERR?", "SYST:ERR?"]
+    assert "frequency" not in src.state()  # the refused setting is sent again next time
+
+
+def test_point_status_reads_once_per_point_and_keeps_the_power_on_bit():
+    src, link, device = _source()
+    device.esr = 128  # power on
+    assert src.point_status() == 128
+    assert src.point_status() == 0 and len(link.sent) == 1  # read already, nothing sent since
+    src.expire_status()  # a new point: read again
+    assert src.point_status() == 0 and len(link.sent) == 2
+
+
+def test_the_safe_state_goes_out_at_once_and_nothing_is_held_past_a_block():
+    src, link, _ = _source()
+    with src.joined():
+        src.set_frequency(1e9)
+        src.safe()
+        assert link.sent == [":SOUR:FREQ:CW 1000000000;:OUTP:STAT OFF"]
+        src.set_power(-30.0)
+    assert link.sent[-1] == "SOUR:POW:LEV:IMM:AMPL -30"  # sent as the block ended
+    src.set_frequency(2e9)  # outside a block: at once
+    assert link.sent[-1] == "SOUR:FREQ:CW 2000000000"
+
+
+def test_a_block_cut_short_drops_what_it_held_and_forgets_the_settings():
+    src, link, _ = _source()
+    with pytest.raises(RuntimeError), src.joined():
+        src.set_power(5.0)
+        raise RuntimeError("cut short")
+    assert link.sent == [] and src.state() == {}
+    assert src.set_power(5.0) is True  # sent again
+
+
+def test_sweep_markers_overload_and_status_in_one_message():
+    device = Device()
+    link = FakeTransport(device)
+    sa = make_driver("scpi-analyzer", "sa", link)
+    level, noise, overload = sa.sweep_and_read(0.01, 70e6, (71e6,))
+    assert link.sent == [":INIT:IMM;*WAI;:CALC:MARK1:X 70000000;:CALC:MARK1:Y?;"
+                         ":CALC:MARK1:X 71000000;:CALC:MARK1:Y?;:STAT:QUES:COND?;*ESR?"]
+    assert (level, noise, overload) == (-20.5, (-20.5,), False)
+    assert sa.point_status() == 0 and len(link.sent) == 1
+
+
+def test_a_reply_with_the_wrong_number_of_answers_is_refused():
+    link = FakeTransport(lambda message: "-20.5")  # answers only one query of the message
+    sa = make_driver("scpi-analyzer", "sa", link)
+    with pytest.raises(InstrumentError, match="compound_messages = false"):
+        sa.marker_reading(70e6)
+
+
+def test_compound_messages_are_off_unless_a_profile_says_so_and_never_inherited(tmp_path: Path):
+    assert load_profile("scpi-source").compound_messages
+    path = tmp_path / "lab-source.toml"
+    path.write_text('[profile]\nname = "lab-source"\nextends = "scpi-source"\n'
+                    "idn_pattern = '^Lab,'\n", encoding="utf-8")
+    profile = load_profile(path)
+    assert not profile.compound_messages
+    device = Device()
+    link = FakeTransport(device)
+    src = make_driver(profile, "rf", link)
+    src.set_frequency(1e9)
+    src.sync()
+    assert link.sent == ["SOUR:FREQ:CW 1000000000", 'SYST:ERR?']
