@@ -18,6 +18,7 @@ from pydantic import (
     BeforeValidator,
     Discriminator,
     Field,
+    PrivateAttr,
     Tag,
     ValidationError,
     ValidationInfo,
@@ -408,9 +409,18 @@ class Study(Frozen):
         """The file value of axis ``name`` (None when the study does not give it)."""
         return getattr(self, name)
 
+    #: ``read`` and its tables, kept: the planner asks at every point, and building the
+    #: models costs more than the rest of the question (a copy with a new ``read`` recomputes).
+    _read_tables: tuple[object, tuple[ReadingSpec, ...]] | None = PrivateAttr(None)
+
     def readings(self) -> tuple[ReadingSpec, ...]:
         """The ``read`` items as tables (a bare kind becomes ``{kind = ...}``)."""
-        return tuple(ReadingSpec(kind=r) if isinstance(r, str) else r for r in self.read)
+        kept = self._read_tables
+        if kept is not None and kept[0] is self.read:
+            return kept[1]
+        tables = tuple(ReadingSpec(kind=r) if isinstance(r, str) else r for r in self.read)
+        self._read_tables = (self.read, tables)
+        return tables
 
     @property
     def two_tone(self) -> bool:
