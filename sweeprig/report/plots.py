@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import io
 import math
+import weakref
 from collections.abc import Callable, Iterator, Mapping, Sequence
 from dataclasses import dataclass
 
@@ -155,8 +156,12 @@ def figure_frame(run: RunFigures, names: str | Sequence[str]) -> pd.DataFrame:
     carry (SI units, NaN where a figure lacks it). Every plot reads figures through here and
     nowhere else, so the source can change (a columnar figure store) without touching a plot.
     """
-    wanted = {names} if isinstance(names, str) else set(names)
-    figures = [f for f in run.figures if f.name in wanted]
+    index = _figures_by_name(run)
+    figures = [f for name in dict.fromkeys([names] if isinstance(names, str) else names)
+               for f in index.get(name, ())]
+    if not isinstance(names, str) and len(names) > 1:  # reduction order across the names
+        order = {id(f): k for k, f in enumerate(run.figures)} if figures else {}
+        figures.sort(key=lambda f: order[id(f)])
     extra = list(dict.fromkeys(k for f in figures for k in f.conditions
                                if k != "study" and k not in FRAME_CONDITIONS))
     columns: dict[str, list[object]] = {
@@ -175,6 +180,24 @@ def figure_frame(run: RunFigures, names: str | Sequence[str]) -> pd.DataFrame:
     for key in ("value", "uncertainty_db", *FRAME_CONDITIONS):
         frame[key] = pd.to_numeric(frame[key], errors="coerce").astype(float)
     return frame
+
+
+#: Figures of the runs being drawn, by name, so a plot's look-up does not scan every figure of
+#: the run each time; an entry goes when its run is garbage-collected.
+_BY_NAME: dict[int, dict[str, list[Figure]]] = {}
+
+
+def _figures_by_name(run: RunFigures) -> dict[str, list[Figure]]:
+    """The run's figures grouped by name, in reduction order (built once per run)."""
+    key = id(run)
+    index = _BY_NAME.get(key)
+    if index is None:
+        index = {}
+        for figure in run.figures:
+            index.setdefault(figure.name, []).append(figure)
+        _BY_NAME[key] = index
+        weakref.finalize(run, _BY_NAME.pop, key, None)
+    return index
 
 
 def _frame_figure(row: Mapping[str, object]) -> Figure:
@@ -855,7 +878,7 @@ SPREAD_SENTENCE = ("Shaded in each curve's colour: the spread (lowest to highest
 def _spread_band(ax: Axes, rows: pd.DataFrame, *, step: str, x: str, y: str,
                  colour: str) -> None:
     """The lowest-to-highest spread of ``y`` over the rows of each ``step`` value (the
-    frequencies a curve stands for), shaded against the median ``x`` of that step: one
+    frequencies a curve stands for), shaded against the mean ``x`` of that step: one
     artist however many frequencies it summarises."""
     steps = rows[step].to_numpy(dtype=float)
     xs = rows[x].to_numpy(dtype=float)
@@ -870,7 +893,7 @@ def _spread_band(ax: Axes, rows: pd.DataFrame, *, step: str, x: str, y: str,
         return
     low = np.minimum.reduceat(ys, starts)
     high = np.maximum.reduceat(ys, starts)
-    middle = np.array([np.median(part) for part in np.split(xs, starts[1:])])
+    middle = np.add.reduceat(xs, starts) / np.diff(np.append(starts, xs.size))
     ax.fill_between(middle, low, high, color=colour, alpha=0.16, linewidth=0)
 
 
@@ -917,12 +940,12 @@ def _figure(rows: int, cols: int, *, height_in: float,
     which cost more than the drawing itself."""
     fig = MplFigure(figsize=(WIDTH_IN, height_in), dpi=DPI, facecolor=PAPER)
     FigureCanvasAgg(fig)
-    axes = fig.subplots(rows, cols, squeeze=True,
-                        width_ratios=list(width_ratios) if width_ratios else None)
     panel_in = height_in / rows
-    fig.subplots_adjust(left=0.075, right=right, bottom=0.55 / height_in,
-                        top=1.0 - top_in / height_in, wspace=0.3,
-                        hspace=(0.9 / panel_in) if rows > 1 else 0.2)
+    margins = {"left": 0.075, "right": right, "bottom": 0.55 / height_in,
+               "top": 1.0 - top_in / height_in, "wspace": 0.3,
+               "hspace": (0.9 / panel_in) if rows > 1 else 0.2}
+    axes = fig.subplots(rows, cols, squeeze=True, gridspec_kw=margins,
+                        width_ratios=list(width_ratios) if width_ratios else None)
     for ax in np.atleast_1d(axes).ravel():
         _style(ax)
     return fig, axes
