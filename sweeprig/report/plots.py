@@ -162,9 +162,7 @@ def figure_frame(run: RunFigures, names: str | Sequence[str]) -> pd.DataFrame:
     if not isinstance(names, str) and len(names) > 1:  # reduction order across the names
         order = {id(f): k for k, f in enumerate(run.figures)} if figures else {}
         figures.sort(key=lambda f: order[id(f)])
-    extra = list(dict.fromkeys(k for f in figures for k in f.conditions
-                               if k != "study" and k not in FRAME_CONDITIONS))
-    columns: dict[str, list[object]] = {
+    columns: dict[str, object] = {
         "name": [f.name for f in figures],
         "value": [f.value for f in figures],
         "unit": [f.unit for f in figures],
@@ -172,32 +170,48 @@ def figure_frame(run: RunFigures, names: str | Sequence[str]) -> pd.DataFrame:
         "uncertainty_db": [f.uncertainty_db for f in figures],
         "flags": [tuple(f.flags) for f in figures],
         "points": [tuple(f.points) for f in figures],
-        "study": [f.conditions.get("study") for f in figures],
     }
-    for key in (*FRAME_CONDITIONS, *extra):
-        columns[key] = [f.conditions.get(key, np.nan) for f in figures]
-    frame = pd.DataFrame(columns)
+    # the conditions in one go (pandas unions the keys); NaN where a figure lacks one
+    conditions = pd.DataFrame.from_records([dict(f.conditions) for f in figures])
+    columns["study"] = (conditions["study"].where(conditions["study"].notna(), None)
+                        if "study" in conditions else [None] * len(figures))
+    for key in FRAME_CONDITIONS:
+        columns[key] = conditions[key] if key in conditions else np.full(len(figures), np.nan)
+    for key in conditions.columns:
+        if key != "study" and key not in FRAME_CONDITIONS:
+            columns[key] = conditions[key]
+    frame = pd.DataFrame({k: (v.to_numpy() if isinstance(v, pd.Series) else v)
+                          for k, v in columns.items()})
     for key in ("value", "uncertainty_db", *FRAME_CONDITIONS):
         frame[key] = pd.to_numeric(frame[key], errors="coerce").astype(float)
     return frame
 
 
-#: Figures of the runs being drawn, by name, so a plot's look-up does not scan every figure of
-#: the run each time; an entry goes when its run is garbage-collected.
-_BY_NAME: dict[int, dict[str, list[Figure]]] = {}
+#: What several plots of one run derive from it (its figures by name, the two-tone points),
+#: made once per run; a run's entry goes when the run is garbage-collected.
+_PER_RUN: dict[int, dict[str, object]] = {}
+
+
+def _once_per_run(run: RunFigures, what: str, make: Callable[[], object]) -> object:
+    """``make()`` the first time ``what`` is asked of ``run``, the same object after."""
+    key = id(run)
+    cache = _PER_RUN.get(key)
+    if cache is None:
+        cache = _PER_RUN[key] = {}
+        weakref.finalize(run, _PER_RUN.pop, key, None)
+    if what not in cache:
+        cache[what] = make()
+    return cache[what]
 
 
 def _figures_by_name(run: RunFigures) -> dict[str, list[Figure]]:
     """The run's figures grouped by name, in reduction order (built once per run)."""
-    key = id(run)
-    index = _BY_NAME.get(key)
-    if index is None:
-        index = {}
+    def index() -> dict[str, list[Figure]]:
+        out: dict[str, list[Figure]] = {}
         for figure in run.figures:
-            index.setdefault(figure.name, []).append(figure)
-        _BY_NAME[key] = index
-        weakref.finalize(run, _BY_NAME.pop, key, None)
-    return index
+            out.setdefault(figure.name, []).append(figure)
+        return out
+    return _once_per_run(run, "figures_by_name", index)  # type: ignore[return-value]
 
 
 def _frame_figure(row: Mapping[str, object]) -> Figure:
@@ -246,7 +260,7 @@ def gain_vs_frequency(run: RunFigures) -> Plot | None:
         ax.set_ylabel("conversion gain (dB)")
         if len(panels) > 1:
             _title(ax, title, fontsize=9, color=INK)
-        _legend(ax, fontsize=7)
+    _legends(axes_list[:len(panels)], fontsize=7)
     against = " or ".join(dict.fromkeys(axes_named))
     return _finish(fig, "gain_vs_frequency", "Conversion gain versus frequency",
                    f"P_out − P_in at the DUT ports against the {against} frequency, one line "
@@ -381,7 +395,7 @@ def figures_vs_frequency(run: RunFigures) -> Plot | None:
         _limit_lines(ax, run, name, studies)
         ax.set_xlabel("input (RF) frequency (GHz)")
         ax.set_ylabel(f"{figure_label(name)} (dBm)")
-        _legend(ax, fontsize=7)
+    _legends(axes_list[:len(names)], fontsize=7)
     return _finish(fig, "figures_vs_frequency", "Compression and intercept versus frequency",
                    "Input P1dB and IIP3 of the studies that swept the frequency, one line per "
                    "corner; open triangles: bounds (the true value lies beyond, in the "
@@ -394,12 +408,16 @@ _TWO_TONE_KEYS = ("study", "supply_v", "lo_power_dbm", "lo_freq_hz", "rf_freq_hz
 
 
 def _two_tone_points(run: RunFigures) -> tuple[list[str], pd.DataFrame]:
-    studies = run.studies_with(ROLE_TWO_TONE)
-    if not studies:
-        return studies, pd.DataFrame()
-    names = ("im3_low", "im3_high", "im2_low", "im2_high")
-    table = point_table(run.captures, names, study=studies, where="two-tone plot")
-    return studies, table[table["if_present"].to_numpy()]
+    """The two-tone studies and their points with a wanted reading (made once per run: the
+    two-tone and the dBc plots both draw them)."""
+    def make() -> tuple[list[str], pd.DataFrame]:
+        studies = run.studies_with(ROLE_TWO_TONE)
+        if not studies:
+            return studies, pd.DataFrame()
+        names = ("im3_low", "im3_high", "im2_low", "im2_high")
+        table = point_table(run.captures, names, study=studies, where="two-tone plot")
+        return studies, table[table["if_present"].to_numpy()]
+    return _once_per_run(run, "two_tone_points", make)  # type: ignore[return-value]
 
 
 def _thinned_two_tone_points(run: RunFigures) -> tuple[list[str], pd.DataFrame, str]:
@@ -536,7 +554,7 @@ def intermod_dbc_plot(run: RunFigures) -> Plot | None:
         ax.set_ylabel("product relative to the fundamental (dBc)")
         if len(panels) > 1:
             _title(ax, title, fontsize=9, color=INK)
-        _legend(ax, fontsize=7)
+    _legends(axes_list[:len(panels)], fontsize=7)
     over = (f" Line: the median over the {freq_count} input frequencies; shaded: their spread "
             "(lowest to highest) at each drive." if freq_count > 1 else "")
     return _finish(fig, "intermod_dbc", "Intermodulation in dBc",
@@ -670,7 +688,7 @@ def isolation_vs_frequency(run: RunFigures) -> Plot | None:
         _limit_lines(ax, run, name, list(frame["study"].unique()))
         ax.set_xlabel(_frequency_axis_text(axis, run.conversion))
         ax.set_ylabel(f"{text} ({unit})")
-        _legend(ax, fontsize=7)
+    _legends(axes_list[:len(frames)], fontsize=7)
     return _finish(fig, "isolation", "Leakage and isolation versus frequency",
                    "Isolation = drive power at its port − the leaked power at the other port "
                    "(larger is better); image rejection = gain at the wanted input − gain at "
@@ -761,7 +779,8 @@ def spur_chart(run: RunFigures) -> Plot | None:
     norm = Normalize(*SPUR_RANGE_DBC)
     image = ax_table.imshow(grid, cmap=SPUR_MAP, norm=norm, aspect="auto", origin="lower")
     ax_table.grid(False)
-    counted_mn = {(m, n) for _, m, n in counted}
+    counted_mn = set(counted_keys[["m", "n"]].drop_duplicates().astype(int).itertuples(
+        index=False, name=None))
     for (n, m), value in worst_cell.items():
         i, j = ns.index(int(n)), ms.index(int(m))
         text = "n/a" if not math.isfinite(value) else f"{value:.0f}"
@@ -979,6 +998,25 @@ def _legend(ax: Axes, fontsize: float = 8, loc: str = "best") -> None:
     handles, _labels = ax.get_legend_handles_labels()
     if handles:
         ax.legend(fontsize=fontsize, frameon=False, labelcolor=INK, loc=loc)
+
+
+def _legends(axes: Sequence[Axes], fontsize: float = 8) -> None:
+    """A legend in each panel, or in the first panel only when every panel draws the same
+    series in the same colours and styles (small multiples: one key serves them all, and a
+    legend is one of the costlier things to draw)."""
+    def look(handle: object) -> tuple[object, ...]:
+        if isinstance(handle, Line2D):
+            return (handle.get_color(), handle.get_linestyle(), handle.get_marker())
+        return (type(handle).__name__,)
+
+    entries = [ax.get_legend_handles_labels() for ax in axes]
+    first = [(label, look(h)) for h, label in zip(*entries[0], strict=True)] if entries else []
+    if len(axes) > 1 and first and all(
+            [(label, look(h)) for h, label in zip(*e, strict=True)] == first for e in entries):
+        _legend(axes[0], fontsize)
+        return
+    for ax in axes:
+        _legend(ax, fontsize)
 
 
 def _grid(count: int, *, height_in: float, single_height_in: float,
