@@ -109,7 +109,10 @@ def all_plots(run: RunFigures) -> list[Plot]:
         intermod_dbc_plot, gain_vs_lo_drive, isolation_vs_frequency, spur_chart,
         noise_figure_plot, soak_curves,
     )
-    return [p for p in (make(run) for make in makers) if p is not None]
+    try:
+        return [p for p in (make(run) for make in makers) if p is not None]
+    finally:
+        _PER_RUN.pop(id(run), None)  # what the plots shared is not held through the report
 
 
 def temperature_colour(temperature_c: float | None) -> str:
