@@ -1055,8 +1055,10 @@ def _finish(fig: MplFigure, key: str, title: str, caption: str, *,
             corners: Sequence[str] = (), corner_keys: Sequence[str] = (),
             studies: Sequence[str] = ()) -> Plot:
     buffer = io.BytesIO()
+    # zlib level 3: as small as the default level 6 for these flat-coloured images (within
+    # 3 %), in about 60 % of the time (measured on the 10k-point report's plots)
     fig.savefig(buffer, format="png", dpi=DPI, facecolor=PAPER,
-                metadata={"Software": None})
+                metadata={"Software": None}, pil_kwargs={"compress_level": 3})
     width, height = fig.canvas.get_width_height()
     return Plot(key, title, caption, buffer.getvalue(), int(width), int(height),
                 tuple(sorted(set(corners))), tuple(corner_keys), tuple(studies))

@@ -101,7 +101,7 @@ def test_perf_plots_of_a_large_run(points: int, tmp_path: Path) -> None:
           f"{result['seconds']:.2f} s wall: {verdict(result['seconds'], TARGET_S)} against "
           f"{TARGET_S} s; {result['cpu_s']:.2f} s CPU: {verdict(result['cpu_s'], TARGET_S)}; "
           f"resident {result['before_mb']:.0f} MB before, peak {result['peak_mb']:.0f} MB "
-          f"while drawing (+{result['peak_mb'] - result['before_mb']:.0f} MB for the plots); "
+          f"while drawing ({result['peak_mb'] - result['before_mb']:+.0f} MB for the plots); "
           f"load average {load:.1f} before, {load_after:.1f} after, on {os.cpu_count()} cores")
 
 
