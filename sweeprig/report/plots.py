@@ -186,7 +186,8 @@ def figure_frame(run: RunFigures, names: str | Sequence[str]) -> pd.DataFrame:
     frame = pd.DataFrame({k: (v.to_numpy() if isinstance(v, pd.Series) else v)
                           for k, v in columns.items()})
     for key in ("value", "uncertainty_db", *FRAME_CONDITIONS):
-        frame[key] = pd.to_numeric(frame[key], errors="coerce").astype(float)
+        if frame[key].dtype != np.float64:
+            frame[key] = pd.to_numeric(frame[key], errors="coerce").astype(float)
     return frame
 
 
@@ -1069,8 +1070,11 @@ def _corners(rows: pd.DataFrame, keys: Sequence[str]) -> list[str]:
     present = [k for k in keys if k in rows]
     if not present or rows.empty:
         return []
-    unique = rows[present].drop_duplicates()
-    return [corner_label(r, present) for _, r in unique.iterrows()]
+    corner_rows = rows[present]
+    if len(corner_rows) > 4096:  # hashing in pandas pays off only on a long table
+        corner_rows = corner_rows.drop_duplicates()
+    unique = set(map(tuple, corner_rows.to_numpy(dtype=float).tolist()))
+    return [corner_label(dict(zip(present, values, strict=True)), present) for values in unique]
 
 
 def _min_span(ax: Axes, span_db: float) -> None:
