@@ -18,21 +18,25 @@ from sweeprig.report.plots import (
     _finish,
     _legend,
     _limit_lines,
+    figure_frame,
     temperature_colour,
 )
 
 
 def _frame(run: RunFigures) -> pd.DataFrame:
-    rows = [{
-        "value": f.value, "u": f.uncertainty_db, "flagged": bool(f.flags),
-        "sideband": f.conditions.get("sideband", "dsb"),
-        "temperature_c": f.conditions.get("temperature_c", np.nan),
-        "lo_power_dbm": f.conditions.get("lo_power_dbm", np.nan),
-        "rf_freq_hz": f.conditions.get("rf_freq_hz", np.nan),
-        "study": str(f.conditions.get("study", "")),
-    } for f in run.figures_named("noise_figure") if math.isfinite(f.value)]
-    return pd.DataFrame(rows, columns=["value", "u", "flagged", "sideband", "temperature_c",
-                                       "lo_power_dbm", "rf_freq_hz", "study"])
+    """The finite noise figures (through :func:`~sweeprig.report.plots.figure_frame`), with
+    ``u`` (k = 2, dB), ``flagged`` and ``sideband`` ("dsb" unless stated)."""
+    frame = figure_frame(run, "noise_figure")
+    frame = frame[np.isfinite(frame["value"].to_numpy(dtype=float))]
+    sideband = (frame["sideband"].fillna("dsb") if "sideband" in frame
+                else pd.Series("dsb", index=frame.index))
+    return pd.DataFrame({
+        "value": frame["value"], "u": frame["uncertainty_db"],
+        "flagged": frame["flags"].map(bool).astype(bool), "sideband": sideband,
+        "temperature_c": frame["temperature_c"], "lo_power_dbm": frame["lo_power_dbm"],
+        "rf_freq_hz": frame["rf_freq_hz"], "study": frame["study"].fillna("").astype(str),
+    }, columns=["value", "u", "flagged", "sideband", "temperature_c", "lo_power_dbm",
+                "rf_freq_hz", "study"])
 
 
 def noise_figure_plot(run: RunFigures) -> Plot | None:

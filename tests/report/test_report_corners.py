@@ -34,3 +34,4 @@ def test_no_plot_drops_a_corner_of_five_temperatures_three_supplies_three_lo_dri
         expected = grid * (len(corner_grid["lo_powers_dbm"])
                            if "lo_power_dbm" in plot.corner_keys else 1)
         assert len(plot.corners) == expected, plot.key
+

@@ -60,3 +60,120 @@ def test_a_run_of_many_frequencies_draws_a_few_and_every_corner():
     few = table[table["rf_freq_hz"].isin(freqs[:FREQUENCIES_SHOWN])]
     same, text = thin_frequencies(few)
     assert same is few and text == ""
+
+
+def test_figure_frame_holds_every_named_figure_with_its_uncertainty_and_flags(report_run):
+    """The plots' one accessor: a row per figure, in reduction order, value, bound, k = 2
+    uncertainty, flags, points and the conditions as columns."""
+    import math
+
+    from sweeprig.report.plots import FRAME_COLUMNS, FRAME_CONDITIONS, figure_frame
+
+    names = ("conversion_gain", "input_p1db")
+    frame = figure_frame(report_run, names)
+    expected = [f for f in report_run.figures if f.name in names]
+    assert len(frame) == len(expected) > 0
+    assert list(frame.columns[:len(FRAME_COLUMNS)]) == list(FRAME_COLUMNS)
+    assert set(FRAME_CONDITIONS) <= set(frame.columns)
+    for row, figure in zip(frame.to_dict("records"), expected, strict=True):
+        assert row["name"] == figure.name and row["unit"] == figure.unit
+        assert row["value"] == figure.value or not math.isfinite(figure.value)
+        assert row["bound"] == (figure.bound or "")
+        assert row["flags"] == tuple(figure.flags) and row["points"] == tuple(figure.points)
+        assert row["study"] == figure.conditions.get("study")
+        u = figure.uncertainty_db
+        assert row["uncertainty_db"] == u or not (math.isfinite(u) or
+                                                  math.isfinite(row["uncertainty_db"]))
+        for key in FRAME_CONDITIONS:
+            if key in figure.conditions:
+                assert row[key] == float(figure.conditions[key])  # type: ignore[arg-type]
+    assert figure_frame(report_run, "no_such_figure").empty
+
+
+def test_the_plots_read_figures_through_their_one_accessor():
+    """No plot reaches into run.figures itself: a columnar figure source can replace the one
+    function that does."""
+    import inspect
+
+    from sweeprig.report import noise_plot, plots
+
+    for module in (plots, noise_plot):
+        source = inspect.getsource(module)
+        assert "figures_named(" not in source, module.__name__
+    source = inspect.getsource(plots)
+    assert source.count("run.figures") == source.count("for figure in run.figures") + \
+        source.count("enumerate(run.figures)")
+
+
+def test_markers_on_the_same_pixel_are_drawn_once_and_nothing_else_is_dropped():
+    import pandas as pd
+
+    from sweeprig.report.plots import PIXELS_X, _one_per_pixel
+
+    span = 10.0
+    rows = pd.DataFrame({
+        "x": [0.0, 1e-9, 0.0, span, 5.0, 5.0 + 2 * span / PIXELS_X, float("nan")],
+        "y": [-50.0, -50.0, -50.0, -20.0, -30.0, -30.0, -40.0],
+        "t": [25.0, 25.0, 85.0, 25.0, 25.0, 25.0, 25.0],
+    })
+    kept = _one_per_pixel(rows, x="x", y="y", by=("t",))
+    # the second row shares the first's pixel and colour; the 85 °C one has its own colour,
+    # the two at 5.0 are two pixels apart, the NaN row stays (nothing is dropped silently)
+    assert list(kept.index) == [0, 2, 3, 4, 5, 6]
+
+
+def test_a_spread_is_shaded_from_the_lowest_to_the_highest_value_of_each_step():
+    import pandas as pd
+    from matplotlib.figure import Figure as MplFigure
+
+    from sweeprig.report.plots import _spread_band
+
+    rows = pd.DataFrame({"step": [0, 0, 0, 1, 1, 1], "x": [-10.0, -10.2, -9.8, 0.0, 0.2, 0.4],
+                         "y": [5.0, 6.0, 4.0, 3.0, 2.5, 3.5]})
+    ax = MplFigure().subplots()
+    _spread_band(ax, rows, step="step", x="x", y="y", colour="#2d5f8a")
+    (band,) = ax.collections
+    vertices = band.get_paths()[0].vertices
+    assert vertices[:, 1].min() == 2.5 and vertices[:, 1].max() == 6.0
+    assert set(np.round(vertices[:, 0], 9)) == {-10.0, 0.2}  # the mean input of each step
+
+
+def test_one_frequency_kept_is_the_middle_one_and_every_corner_stays():
+    import pandas as pd
+
+    from sweeprig.report.plots import thin_frequencies
+
+    freqs = [1.0e9, 1.1e9, 1.2e9, 1.3e9, 1.4e9]
+    rows = [{"rf_freq_hz": f, "temperature_c": 25.0} for f in freqs]
+    rows.append({"rf_freq_hz": freqs[0], "temperature_c": 85.0})  # hot: the lowest only
+    shown, caption = thin_frequencies(pd.DataFrame(rows), keep=1)
+    assert sorted(shown["rf_freq_hz"].unique()) == [freqs[0], freqs[2]]
+    assert set(shown["temperature_c"]) == {25.0, 85.0}
+    assert "of the 5 input frequencies (the middle one)" in caption
+
+
+def test_a_plot_that_summarises_frequencies_says_so_in_its_caption(monkeypatch):
+    """Four input frequencies at two temperatures: the power-sweep plots draw the middle one
+    (compression with the spread over all four shaded) and say so; the dBc plot draws the
+    median and the spread; every temperature is drawn."""
+    from matplotlib.figure import Figure as MplFigure
+
+    from sweeprig.analysis.synthetic import synthetic_run
+    from sweeprig.report import plots
+    from tests.report.synthetic_runs import reduced_synthetic_run
+
+    captures = synthetic_run(3_200, seed=3, temperatures_c=(25.0, 85.0), supplies_v=(3.3,),
+                             lo_powers_dbm=(0.0,))
+    assert captures.groupby("study")["rf_freq_hz"].nunique().min() == 4
+    run = reduced_synthetic_run(captures, serial="SYN-4F")
+    monkeypatch.setattr(MplFigure, "savefig", lambda self, buffer, **kwargs: None)
+    made = {p.key: p for p in (plots.compression_curves(run), plots.two_tone_plot(run),
+                               plots.intermod_dbc_plot(run)) if p is not None}
+    assert set(made) == {"compression", "two_tone", "intermod_dbc"}
+    for key in ("compression", "two_tone"):
+        assert "Drawn at 1 of the 4 input frequencies (the middle one)" in made[key].caption
+    assert "spread (lowest to highest) over every input frequency" in made["compression"].caption
+    assert "median over the 4 input frequencies" in made["intermod_dbc"].caption
+    for plot in made.values():
+        assert {c.split("|")[0] for c in plot.corners} == {"temperature_c=25",
+                                                           "temperature_c=85"}, plot.key
