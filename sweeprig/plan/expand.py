@@ -9,7 +9,7 @@ Expansion is a generator; :func:`count_points` and :func:`point_at` never expand
 
 from __future__ import annotations
 
-from collections.abc import Iterable, Iterator
+from collections.abc import Collection, Iterable, Iterator
 from dataclasses import dataclass
 
 from sweeprig.errors import InputError
@@ -191,14 +191,30 @@ def study_counts(sequence: Sequence) -> dict[str, int]:
 class PointBuilder:
     """Builds points by index (keeps the layout and reading planner between calls)."""
 
-    def __init__(self, sequence: Sequence, bench: Bench | None) -> None:
+    def __init__(self, sequence: Sequence, bench: Bench | None,
+                 keep: Collection[int] = ()) -> None:
+        """``keep``: indices whose points are kept once built, for a second reader of the
+        same points (the pre-flight's settings check and its risk survey plan the same
+        points once; keep few: each kept point holds its readings)."""
         self.sequence = sequence
         self.layout = layout(sequence)
         self.planner = ReadingPlanner(sequence, bench)
         self.conversion = sequence.mixing.conversion
         self.lo_side = sequence.mixing.lo_side
+        self._keep = frozenset(keep)
+        self._kept: dict[int, Point] = {}
 
     def point(self, index: int) -> Point:
+        """The point with ``index`` and its planned readings (a kept one as built before)."""
+        kept = self._kept.get(index)
+        if kept is not None:
+            return kept
+        point = self._build(index)
+        if index in self._keep:
+            self._kept[index] = point
+        return point
+
+    def _build(self, index: int) -> Point:
         lay = self.layout
         t_idx, v_idx, block, local = lay.locate(index)
         idx = block.unravel(local)

@@ -121,11 +121,14 @@ _ANALYZER_OPS: tuple[tuple[str, str, str, str], ...] = (
 
 def reading_settings(sequence: Sequence, bench: Bench, lay: Layout,
                      profiles: Mapping[str, Profile],
-                     limits: Mapping[str, Mapping[str, OpLimits]]
+                     limits: Mapping[str, Mapping[str, OpLimits]],
+                     builder: PointBuilder | None = None,
                      ) -> tuple[list[SettingValues], list[str]]:
     """Every analyzer and power-meter setting of every reading that has a limit, planned
     exactly as the run plans it (readings do not depend on the temperature or supply, so the
-    first pass stands for all); and notes on what was checked less than exactly."""
+    first pass stands for all); and notes on what was checked less than exactly.
+    ``builder``: the points' builder of the caller (it may keep points for another reader
+    of them), else a new one."""
     wanted: list[tuple[str, str, str, str]] = []  # (role, op, label, unit)
     if "sa" in profiles:
         for op, _attr, unit, name in _ANALYZER_OPS:
@@ -140,7 +143,8 @@ def reading_settings(sequence: Sequence, bench: Bench, lay: Layout,
         return [], notes
     values: dict[tuple[str, str], list[float]] = {(r, op): [] for r, op, _, _ in wanted}
     indices: dict[tuple[str, str], list[int]] = {(r, op): [] for r, op, _, _ in wanted}
-    builder = PointBuilder(sequence, bench)
+    if builder is None:
+        builder = PointBuilder(sequence, bench)
     for block in lay.blocks:
         base = lay.first_index(0, 0, block)
         local_points: Iterable[int]

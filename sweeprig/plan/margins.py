@@ -39,6 +39,7 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass, field
+from functools import lru_cache
 
 import numpy as np
 from numpy.typing import NDArray
@@ -224,20 +225,37 @@ def distortion_table(lines: Sequence[Line], specs: AnalyzerSpecs) -> DistortionT
     toi, soi, shi = specs.toi_dbm, specs.soi_dbm, specs.shi_dbm
     freqs = [2.0 * f, 3.0 * f]
     levels = [2.0 * p - shi, 3.0 * p - 2.0 * toi - H3_BELOW_IM3_DB]
-    orders = [np.full(f.size, 2.0), np.full(f.size, 3.0)]
     n = f.size
     if n > 1:
-        i, j = np.triu_indices(n, k=1)
+        i, j, a, b = _pair_indices(n)
         im2 = p[i] + p[j] - soi
         freqs += [f[i] + f[j], np.abs(f[i] - f[j])]
         levels += [im2, im2]
-        orders += [np.full(i.size, 2.0)] * 2
-        a, b = np.nonzero(~np.eye(n, dtype=bool))
         im3 = 2.0 * p[a] + p[b] - 2.0 * toi
         freqs += [np.abs(2.0 * f[a] - f[b]), 2.0 * f[a] + f[b]]
         levels += [im3, im3]
-        orders += [np.full(a.size, 3.0)] * 2
-    return DistortionTable(np.concatenate(freqs), np.concatenate(levels), np.concatenate(orders))
+    return DistortionTable(np.concatenate(freqs), np.concatenate(levels), _distortion_orders(n))
+
+
+@lru_cache(maxsize=DISTORTION_LINES + 1)
+def _pair_indices(n: int) -> tuple[NDArray[np.intp], ...]:
+    """Index pairs of :func:`distortion_table` for n lines: (i < j) for the 2nd-order
+    products, (a ≠ b) for the 3rd-order ones."""
+    i, j = np.triu_indices(n, k=1)
+    a, b = np.nonzero(~np.eye(n, dtype=bool))
+    for index in (i, j, a, b):
+        index.flags.writeable = False
+    return i, j, a, b
+
+
+@lru_cache(maxsize=DISTORTION_LINES + 1)
+def _distortion_orders(n: int) -> FloatArray:
+    """The order column of :func:`distortion_table` for n lines (read-only)."""
+    pairs = n * (n - 1) // 2
+    orders = np.concatenate([np.full(n, 2.0), np.full(n, 3.0), np.full(2 * pairs, 2.0),
+                             np.full(4 * pairs, 3.0)])
+    orders.flags.writeable = False
+    return orders
 
 
 def reciprocal_dbm(lines: Sequence[Line], freq_hz: float, rbw_hz: float,

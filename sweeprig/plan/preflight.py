@@ -42,7 +42,7 @@ from sweeprig.formats.level_grid import LevelGridLoss
 from sweeprig.formats.sequence import RangeSpec, Sequence, required_roles
 from sweeprig.instruments.limits import LIMIT_TOLERANCE, beyond
 from sweeprig.plan import frequencies as fp
-from sweeprig.plan.expand import Layout, StudyBlock, layout, point_at
+from sweeprig.plan.expand import Layout, PointBuilder, StudyBlock, layout, point_at
 from sweeprig.plan.instrument_limits import role_limits, role_profile
 from sweeprig.plan.instrument_settings import CAUTION, check_bench_settings, reading_settings
 from sweeprig.units import format_frequency
@@ -413,7 +413,11 @@ def check_limits(sequence: Sequence, bench: Bench) -> PreflightReport:
                 for f in [f_rf] + ([f2] if two else []):
                     parts.append(p_rf - _loss(bench, sequence, block, "rf_port", f))
                 sa_rf._offer(_power_sum(*parts), index_of)
-    settings, notes = reading_settings(sequence, bench, lay, profiles, limits)
+    # the settings check and the risk survey read the same points: planned once
+    from sweeprig.plan.risks import survey_indices
+
+    builder = PointBuilder(sequence, bench, keep=survey_indices(lay))
+    settings, notes = reading_settings(sequence, bench, lay, profiles, limits, builder)
     report.notes.extend(notes)
     for found in settings:
         for b in (found.limits.high, found.limits.low):
@@ -422,16 +426,17 @@ def check_limits(sequence: Sequence, bench: Bench) -> PreflightReport:
                               safety=found.safety, source=b.source)
                 report.checks.append(c)
                 c._offer(found.values, lambda k, _idx=found.indices: int(_idx[k]))  # type: ignore[misc]
-    _survey(sequence, bench, report)
+    _survey(sequence, bench, report, builder)
     return report
 
 
-def _survey(sequence: Sequence, bench: Bench, report: PreflightReport) -> None:
+def _survey(sequence: Sequence, bench: Bench, report: PreflightReport,
+            builder: PointBuilder | None = None) -> None:
     """The readings that cannot be trusted as planned: a warning (recorded with the run); the
     figures assumed rather than stated stay with the survey (``report.risks.assumptions``)."""
     from sweeprig.plan.risks import headline, survey_risks
 
-    survey = survey_risks(sequence, bench)
+    survey = survey_risks(sequence, bench, builder=builder)
     report.risks = survey
     report.notes.extend(survey.notes)
     if survey.groups:

@@ -39,14 +39,18 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
+from numpy.typing import NDArray
 
 from sweeprig.formats.bench import Bench
 from sweeprig.formats.pathloss import ConstantLoss, PathLoss
 from sweeprig.formats.sequence import AUTO, DISTORTION_KINDS, AnalyzerSettings, Sequence, Study
 from sweeprig.plan import frequencies as fp
+from sweeprig.plan import harmonic_routes as hr
 from sweeprig.plan import margins as mg
 from sweeprig.plan import search_window as sw
 from sweeprig.plan.noise_setup import NoisePlan, NoiseSettings, plan_noise_attenuation
+
+FloatArray = NDArray[np.float64]
 
 #: Sweep time per sweep ≈ K·span/RBW² (common practice, k ≈ 2–3 for Gaussian RBW filters).
 SWEEP_TIME_K = 2.5
@@ -187,6 +191,11 @@ class ReadingPlanner:
         self.losses: dict[str, PathLoss] = {
             c: (bench.loss(c) if bench is not None else zero) for c in ("if", "rf_port", "lo_port")
         }
+        lo_h = tuple(self.harmonics["lo"][0])
+        #: Each RF source's source-harmonic routes (:mod:`sweeprig.plan.harmonic_routes`).
+        self.routes = {label: hr.tone_routes(tuple(self.harmonics[label][0]), lo_h,
+                                             self.gain_db, self._even_conversion_db())
+                       for label in ("rf", "rf2")}
 
     # -- port pictures --------------------------------------------------------------------
 
@@ -396,7 +405,7 @@ class ReadingPlanner:
             lines=tuple(lines), neighbours_hz=tuple(neighbours),
             total_dbm=power_sum_dbm([ln.level_dbm for ln in lines]),
             distortion=mg.distortion_table(lines, self.specs),
-            harmonics=tuple(self._harmonic_lines(port, d, retune_hz)))
+            harmonics=self._harmonic_lines(port, d, retune_hz))
         self._picture[key] = picture
         return picture
 
@@ -436,36 +445,36 @@ class ReadingPlanner:
             return -self.iso_rf_if
         return max(self.gain_db, 0.0)
 
-    def _harmonic_lines(self, port: str, d: Drive, retune_hz: float | None) -> list[mg.Line]:
-        """Lines the sources' harmonics put at ``port``. At the IF port every route of
+    def _harmonic_lines(self, port: str, d: Drive, retune_hz: float | None
+                        ) -> tuple[FloatArray, FloatArray]:
+        """(frequency, level at the analyzer input) of the lines the sources' harmonics put at
+        ``port``, Hz and dBm. At the IF port every route of
         :func:`sweeprig.plan.margins.source_harmonic_lines` (an RF harmonic through any LO
         order, an even LO harmonic acting as an LO, a harmonic with its fundamental in the
-        input stage) and an LO harmonic leaking at the LO→IF isolation; at the RF and LO ports
-        the harmonics as they arrive (an LO harmonic at the LO→RF isolation). Unknown
-        isolation: none (the safe side)."""
+        input stage; from the planner's route tables, :mod:`sweeprig.plan.harmonic_routes`)
+        and an LO harmonic leaking at the LO→IF isolation; at the RF and LO ports the
+        harmonics as they arrive (an LO harmonic at the LO→RF isolation). Unknown isolation:
+        none (the safe side)."""
         tones = self._harmonic_tones(d, retune_hz)
         conn = {"if": "if", "rf": "rf_port", "lo": "lo_port"}[port]
-        loss = self.losses[conn]
-        out: list[mg.Line] = []
-
-        def add(f: float, level: float, label: str) -> None:
-            if f > 0 and math.isfinite(level):
-                out.append(mg.Line(f, level - loss.estimate_at(f), label))
-
         lo_h, _ = self.harmonics["lo"]
-        for k, h in enumerate(lo_h, start=2):
-            f = k * d.lo_freq_hz
-            iso = {"if": self.iso_lo_if, "rf": self.iso_lo_rf, "lo": 0.0}[port] or 0.0
-            add(f, d.lo_power_dbm + h - iso, f"lo harmonic {k}")
+        iso = {"if": self.iso_lo_if, "rf": self.iso_lo_rf, "lo": 0.0}[port] or 0.0
+        freqs = [np.arange(2, len(lo_h) + 2) * d.lo_freq_hz]
+        levels = [np.array([d.lo_power_dbm + h - iso for h in lo_h], dtype=float)]
         if port == "if":
-            for ln in mg.source_harmonic_lines(d.lo_freq_hz, tuple(lo_h), tones, self.gain_db,
-                                               self._even_conversion_db()):
-                add(ln.freq_hz, ln.level_dbm, ln.label)
+            f, lv = hr.source_harmonic_arrays([self.routes[t.label] for t in tones],
+                                              d.lo_freq_hz, tones)
+            freqs.append(f)
+            levels.append(lv)
         else:
             for tone in tones:
-                for k, h in enumerate(tone.harmonics_dbc, start=2):
-                    add(k * tone.freq_hz, tone.power_dbm + h, f"{tone.label} harmonic {k}")
-        return out
+                freqs.append(np.arange(2, len(tone.harmonics_dbc) + 2) * tone.freq_hz)
+                levels.append(np.array([tone.power_dbm + h for h in tone.harmonics_dbc],
+                                       dtype=float))
+        freq, level = np.concatenate(freqs), np.concatenate(levels)
+        keep = (freq > 0) & np.isfinite(level)
+        freq, level = freq[keep], level[keep]
+        return freq, level - hr.estimate_losses_db(self.losses[conn], freq)
 
     def _relative_harmonic_dbc(self, port: str, d: Drive, retune_hz: float | None,
                                orders: tuple[int, ...] | None) -> float:
@@ -527,8 +536,9 @@ class ReadingPlanner:
         near = off <= reach
         d_off, d_level0, d_order = off[near], pic.distortion.level0_dbm[near], \
             pic.distortion.order[near]
-        harm = [(abs(ln.freq_hz - freq_hz), ln.level_dbm) for ln in pic.harmonics
-                if abs(ln.freq_hz - freq_hz) <= reach]
+        h_off = np.abs(pic.harmonics[0] - freq_hz)
+        h_near = h_off <= reach
+        harm = list(zip(h_off[h_near].tolist(), pic.harmonics[1][h_near].tolist(), strict=True))
         relative = self._relative_harmonic_dbc(port, d, retune_hz, orders)
         if math.isfinite(relative):  # on the product itself, whatever the RBW
             harm.append((0.0, product + relative))
@@ -705,7 +715,8 @@ class _PortPicture:
     neighbours_hz: tuple[float, ...]
     total_dbm: float
     distortion: mg.DistortionTable
-    harmonics: tuple[mg.Line, ...]
+    harmonics: tuple[FloatArray, FloatArray]
+    """(frequency, level) of the sources' harmonic lines, Hz and dBm."""
 
 
 def _merge(*layers: AnalyzerSettings | None) -> AnalyzerSettings:

@@ -15,7 +15,7 @@ from typing import Any
 from sweeprig.errors import InputError
 from sweeprig.formats.bench import ASSUMED, SOURCE_ROLES, Bench
 from sweeprig.formats.sequence import Sequence
-from sweeprig.plan.expand import PointBuilder
+from sweeprig.plan.expand import Layout, PointBuilder
 from sweeprig.plan.readings import DEFAULT_PART_NOISE_FIGURE_DB
 
 #: Points of one pass planned exactly; a bigger pass is sampled evenly.
@@ -99,21 +99,33 @@ def assumptions(sequence: Sequence, bench: Bench) -> tuple[str, ...]:
     return tuple(out)
 
 
+def survey_indices(lay: Layout, exact_points: int = EXACT_POINTS) -> list[int]:
+    """The points :func:`survey_risks` plans: every point of one pass, or ``exact_points``
+    of them spread evenly over a bigger pass."""
+    size = lay.pass_size
+    if size <= exact_points:
+        return list(range(size))
+    step = size / exact_points
+    return sorted({int(k * step) for k in range(exact_points)})
+
+
 def survey_risks(sequence: Sequence, bench: Bench, *,
-                 exact_points: int = EXACT_POINTS) -> RiskSurvey:
+                 exact_points: int = EXACT_POINTS,
+                 builder: PointBuilder | None = None) -> RiskSurvey:
     """Plan every reading of one pass (sampled evenly above ``exact_points``) and gather
-    the readings whose predictions fall within their margins."""
-    builder = PointBuilder(sequence, bench)
+    the readings whose predictions fall within their margins. ``builder``: the points'
+    builder of the caller (for points it has kept, :func:`survey_indices`), else a new one
+    for ``sequence`` and ``bench``."""
+    if builder is None:
+        builder = PointBuilder(sequence, bench)
     lay = builder.layout
     passes = lay.n_temperatures * lay.n_supplies
     size = lay.pass_size
     notes: tuple[str, ...] = ()
+    indices = survey_indices(lay, exact_points)
     if size <= exact_points:
-        indices = list(range(size))
         scale = float(passes)
     else:
-        step = size / exact_points
-        indices = sorted({int(k * step) for k in range(exact_points)})
         scale = passes * size / len(indices)
         notes = (f"risks predicted at {len(indices):,} of {size:,} points per pass and "
                  "scaled",)

@@ -240,3 +240,28 @@ def test_a_loss_table_needs_to_cover_only_what_is_read(tmp_path):
                      encoding="utf-8")
     files = load_run_files(shipped / "demo" / "quick.toml", bench, sim=False)
     assert files.report.ok
+
+
+def test_the_pre_flight_plans_each_point_of_a_pass_once(bench: Bench, monkeypatch) -> None:
+    """The settings check and the risk survey read the same points: planned once (the
+    planner is most of a large pre-flight), and the survey is the one a fresh planner makes."""
+    from sweeprig.plan.expand import PointBuilder
+
+    s = seq([{"name": "g", "rf_frequency": {"start": "2.1 GHz", "stop": "2.3 GHz",
+                                            "points": 5},
+              "rf_power": "-20 dBm", "lo_power": "0 dBm", "read": ["wanted", "lo_at_if"]},
+             {**TWO_TONE, "analyzer": {"attenuation": "0 dB"}}],
+            conditions={"supply": "3.3 V", "temperature": [25, 85]})
+    built: list[int] = []
+    build = PointBuilder._build
+
+    def counted(self: PointBuilder, index: int):  # type: ignore[no-untyped-def]
+        built.append(index)
+        return build(self, index)
+
+    monkeypatch.setattr(PointBuilder, "_build", counted)
+    report = check_limits(s, bench)
+    assert sorted(built) == list(range(6))  # one pass: 5 + 1 points, each planned once
+    monkeypatch.undo()
+    assert report.risks == survey_risks(s, bench)
+    assert report.risks.groups  # the two-tone study's distortion risk is found

@@ -18,7 +18,13 @@ import pytest
 
 from sweeprig.sim.mixer import OperatingPoint, ToneInput, load_part
 from sweeprig.sim.mixer.core import pair_angle, thermal_voltage_v
-from sweeprig.sim.mixer.multitone import CellState, _axis_wave, _rf_grid_values, lo_factor
+from sweeprig.sim.mixer.multitone import (
+    CellState,
+    _axis_wave,
+    _fold_half,
+    _rf_grid_values,
+    lo_factor,
+)
 
 #: Power difference allowed between a fast and a reference line, dB (issue 14's figure).
 TOL_DB = 1e-9
@@ -112,6 +118,26 @@ def test_a_guessed_lo_grid_gives_the_doubling_s_grid_and_coefficients(seed: int)
         scale = float(np.max(np.abs(plain.s)))
         np.testing.assert_allclose(guessed.s, plain.s, rtol=0, atol=1e-14 * scale)
         np.testing.assert_allclose(guessed.d, plain.d, rtol=0, atol=1e-14 * scale)
+
+
+def test_a_folded_spectrum_is_the_transform_of_every_other_sample() -> None:
+    """The guessed LO grid checks its half grids from the guess's own spectrum (aliasing
+    folds order k + n/2 onto k); the reference is scipy's transform of the subsampled
+    signal (numpy/scipy FFT: rfft(x[::2]) / (n/2))."""
+    import scipy.fft
+
+    rng = np.random.default_rng(7)
+    for n in (8, 32, 96, 1024):
+        x = rng.normal(size=n) + np.cos(2 * np.pi * 3 * np.arange(n) / n)
+        spectrum = scipy.fft.rfft(x) / n
+        folded = _fold_half(spectrum, n)
+        direct = scipy.fft.rfft(x[::2]) / (n // 2)
+        assert folded.shape == direct.shape
+        np.testing.assert_allclose(folded, direct, rtol=0, atol=1e-15 * np.abs(x).max())
+        if n % 8 == 0:  # folding twice: every fourth sample
+            np.testing.assert_allclose(_fold_half(folded, n // 2),
+                                       scipy.fft.rfft(x[::4]) / (n // 4), rtol=0,
+                                       atol=1e-15 * np.abs(x).max())
 
 
 def _lines(products: tuple) -> dict[tuple[int, ...], tuple[float, float]]:

@@ -211,13 +211,21 @@ def _lo_spectra_from_guess(
         return None
     while n > start:
         half = n // 2
-        step = guess // half
-        d_h = scipy.fft.rfft(d_t[::step]) / half
-        s_h = scipy.fft.rfft(s_t[::step]) / half
+        d_h, s_h = _fold_half(d_k, n), _fold_half(s_k, n)
         if not _lo_converged(d_h, s_h, half, tol):
             break
         n, d_k, s_k = half, d_h, s_h
     return n, d_k, s_k
+
+
+def _fold_half(spectrum: NDArray[np.complex128], n: int) -> NDArray[np.complex128]:
+    """rfft/(n/2) of every other sample of a real n-point signal, from its rfft/n: sampling
+    at θ_{2j} folds the coefficient of order k + n/2 onto k (aliasing), and for a real signal
+    c[k + n/2] = conj(c[n/2 − k]); so c_half[k] = c[k] + conj(c[n/2 − k]), k = 0 … n/4.
+    Equals the transform of the subsampled signal within rounding, without transforming it
+    again (``tests/sim/test_mixer_fastpath.py``)."""
+    quarter = n // 4
+    return spectrum[: quarter + 1] + np.conj(spectrum[n // 2 - quarter :][::-1])
 
 
 def _lo_factor_from_spectra(
