@@ -678,6 +678,7 @@ def write_tables(
     """Write ``captures`` and ``figures`` as CSV and/or Parquet into ``folder`` (by default
     :data:`TABLE_FORMATS`, Parquet left out when pyarrow, the ``parquet`` extra, is missing)."""
     from sweeprig.parquet import parquet_available, require_parquet
+    from sweeprig.report.csv_table import write_frame_csv
 
     if formats is None:
         formats = [f for f in TABLE_FORMATS if f != "parquet" or parquet_available()]
@@ -690,7 +691,7 @@ def write_tables(
             path = folder / f"{name}.{fmt}"
             try:
                 if fmt == "csv":
-                    frame.to_csv(path, index=False)
+                    write_frame_csv(frame, path)
                 elif fmt == "parquet":
                     frame.to_parquet(path, index=False, engine="pyarrow")
                 else:
