@@ -145,6 +145,15 @@ class RunFigures:
         """Every figure called ``name``, in reduction order."""
         return [f for f in self.figures if f.name == name]
 
+    def figure_table(self, *names: str) -> pd.DataFrame:
+        """The figures called any of ``names`` (none given: all) as columns, one row per
+        figure, indexed by its position in ``figures``: ``name``, ``value``, ``unit``,
+        ``bound``, ``uncertainty_db``, ``flags`` (a flag mask), ``points``, then one column
+        per condition (:func:`sweeprig.analysis.figure_table.figure_table`)."""
+        from sweeprig.analysis.figure_table import figure_table
+
+        return figure_table(self.figures, names or None)
+
     def studies_with(self, role: str) -> list[str]:
         """Names of the studies that have ``role``."""
         return [s.name for s in self.studies if role in s.roles]

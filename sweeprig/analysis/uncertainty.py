@@ -58,7 +58,7 @@ from typing import Any, Literal
 import numpy as np
 import pandas as pd
 
-from sweeprig.analysis.figures import Figure, with_changes
+from sweeprig.analysis.figures import Figure, collector_paused, with_changes
 
 Shape = Literal["rectangular", "triangular", "u-shaped", "normal-k2", "standard"]
 
@@ -211,8 +211,9 @@ class Budget:
     combined_db: float = field(init=False, repr=False, compare=False)
 
     def __post_init__(self) -> None:
+        # each line's c_i·u(x_i) is a float worked out when it was made
         object.__setattr__(self, "combined_db",
-                           combine([c.contribution_db for c in self.contributions]))
+                           math.hypot(*[c.contribution_db for c in self.contributions]))
 
     @property
     def expanded_db(self) -> float:
@@ -445,6 +446,13 @@ class PointLevels:
 
     def min_snr_db(self, points: Sequence[int], reading: str) -> float:
         """The lowest level − noise floor of ``reading`` over ``points`` (NaN: unknown)."""
+        if len(points) == 1:  # most figures come from one point
+            key = (points[0], reading)
+            level = self.level_dbm.get(key)
+            if level is None:
+                return math.nan
+            snr = level - self.floor_dbm[key]
+            return snr if math.isfinite(snr) else math.nan
         snrs = [self.level_dbm[(p, reading)] - self.floor_dbm[(p, reading)]
                 for p in points if (p, reading) in self.level_dbm]
         snrs = [s for s in snrs if math.isfinite(s)]
@@ -732,14 +740,15 @@ def attach_uncertainty(figures: Sequence[Figure], captures: pd.DataFrame,
     sides: dict[tuple, Figure] = {}
     side_names = _SIDE_NAMES
     lines: dict[tuple, Any] = {}
-    for f in figures:
-        budget = figure_budget(f, levels, specs, cal, small_signal_u=small_signal_u,
-                               lines=lines)
-        if budget is not None:
-            f = with_changes(f, uncertainty_db=budget.expanded_db, budget=budget)
-            if f.name in side_names:
-                sides[(f.name, _condition_key(f.conditions), f.value)] = f
-        out.append(f)
+    with collector_paused():  # a large run makes hundreds of thousands of budgets
+        for f in figures:
+            budget = figure_budget(f, levels, specs, cal, small_signal_u=small_signal_u,
+                                   lines=lines)
+            if budget is not None:
+                f = with_changes(f, uncertainty_db=budget.expanded_db, budget=budget)
+                if f.name in side_names:
+                    sides[(f.name, _condition_key(f.conditions), f.value)] = f
+            out.append(f)
     for i, f in enumerate(out):
         if f.name in WORST_OF and f.is_number:
             for side in WORST_OF[f.name]:
