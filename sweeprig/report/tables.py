@@ -35,6 +35,7 @@ from sweeprig.analysis.figures import (
     FLAGS,
     SUSPECT_FLAGS,
     Figure,
+    collector_paused,
 )
 from sweeprig.analysis.limits import FAIL, INCONCLUSIVE, PASS, Judgement, Limit
 from sweeprig.analysis.reduce import RunFigures
@@ -689,7 +690,7 @@ def write_figures_json(run: RunFigures, path: Path) -> Path:
     encode = json.JSONEncoder(ensure_ascii=False, allow_nan=False, default=_plain,
                               separators=(",", ":")).encode
     try:
-        with path.open("w", encoding="utf-8") as out:
+        with path.open("w", encoding="utf-8") as out, collector_paused():
             out.write("{")
             for k, (key, value) in enumerate(_document(run, encode).items()):
                 out.write(("," if k else "") + "\n" + encode(key) + ":")
@@ -761,7 +762,8 @@ def write_tables(
         formats = [f for f in TABLE_FORMATS if f != "parquet" or parquet_available()]
     elif "parquet" in formats:
         require_parquet(str(folder))
-    tables = {"captures": run.captures, "figures": figures_frame(run)}
+    with collector_paused():
+        tables = {"captures": run.captures, "figures": figures_frame(run)}
     written: list[Path] = []
     for name, frame in tables.items():
         for fmt in formats:
