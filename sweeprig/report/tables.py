@@ -494,7 +494,6 @@ def _figure_texts(figures: Iterable[Figure], terms: BudgetTerms,
     condition_texts: dict[int, tuple[object, str]] = {}
     budget_texts: dict[int, tuple[object, str]] = {}
     tails: dict[tuple[str, str, object], str] = {}
-    units = {"dB", "dBm", "dBc"}
     string = encode_basestring  # a str's JSON text (ensure_ascii=False), in C
     for f in figures:
         head = heads.get((f.name, f.unit, f.bound))
@@ -520,14 +519,20 @@ def _figure_texts(figures: Iterable[Figure], terms: BudgetTerms,
         u = float(f.uncertainty_db)
         value_text = float.__repr__(value) if math.isfinite(value) else "null"
         u_text = float.__repr__(u) if math.isfinite(u) else "null"
-        text = (figure_text(f, 3) if f.unit not in units or not math.isfinite(u)
-                or f.bound is not None or not math.isfinite(value)
-                else f"{value:.3f} ± {u:.3f} {f.unit} (k = {COVERAGE_FACTOR:g})")
+        text = _text3(f)
         yield (head + value_text + tails[(f.name, f.unit, f.bound)] + string(text)
                + ',"conditions":' + seen[1]
                + ',"flags":' + flags + ',"points":['
                + ",".join([str(int(p)) for p in f.points]) + '],"uncertainty_db":' + u_text
                + ',"budget":' + budget + "}")
+
+
+def _text3(f: Figure) -> str:
+    """``figure_text(f, 3)``, its common case (a number with its uncertainty) spelled out."""
+    value, u = f.value, f.uncertainty_db
+    if f.bound is None and math.isfinite(value) and math.isfinite(u):
+        return f"{value:.3f} ± {u:.3f} {f.unit} (k = {COVERAGE_FACTOR:g})"
+    return figure_text(f, 3)
 
 
 def _budget_text(budget: Budget, terms: BudgetTerms, encode: Callable[[object], str]) -> str:
@@ -720,11 +725,18 @@ def figures_frame(run: RunFigures) -> pd.DataFrame:
     ``text``, ``verdict`` (worst over its limits, empty when none applies), ``flags`` and
     ``points`` (space-separated), then one column per condition."""
     verdicts = figure_verdicts(run)
-    keys: list[str] = []
+    keys: dict[str, None] = {}
     for f in run.figures:
         for k in f.conditions:
             if k not in keys:
-                keys.append(k)
+                keys[k] = None
+    flag_texts: dict[tuple[str, ...], str] = {}
+    flags: list[object] = []
+    for f in run.figures:
+        text = flag_texts.get(f.flags)
+        if text is None:
+            text = flag_texts[f.flags] = " ".join(f.flags)
+        flags.append(text)
     rows: dict[str, list[object]] = {
         "figure": list(range(len(run.figures))),
         "name": [f.name for f in run.figures],
@@ -732,10 +744,10 @@ def figures_frame(run: RunFigures) -> pd.DataFrame:
         "unit": [f.unit for f in run.figures],
         "bound": [f.bound or "" for f in run.figures],
         "uncertainty_db": [f.uncertainty_db for f in run.figures],
-        "text": [figure_text(f, 3) for f in run.figures],
+        "text": [_text3(f) for f in run.figures],
         "verdict": [verdicts.get(id(f), "") for f in run.figures],
-        "flags": [" ".join(f.flags) for f in run.figures],
-        "points": [" ".join(str(p) for p in f.points) for f in run.figures],
+        "flags": flags,
+        "points": [" ".join(map(str, f.points)) for f in run.figures],
     }
     for key in keys:
         column = [f.conditions.get(key) for f in run.figures]
