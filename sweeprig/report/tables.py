@@ -630,7 +630,8 @@ def _document(run: RunFigures, encode: Callable[[object], str] | None = None
         "suspect_flags": [name for name in FLAGS if name in SUSPECT_FLAGS],
         "figures": (_Stream(_figure_entries(run.figures, terms)) if encode is None
                     else _Stream(_figure_texts(run.figures, terms, encode), encoded=True)),
-        "budget_terms": _Stream(terms.entries()),
+        "budget_terms": (_Stream(terms.entries()) if encode is None
+                         else _Stream(terms.texts(encode), encoded=True)),
         "events": _Stream(
             {"time_utc": e.time.isoformat(), "severity": e.severity, "kind": e.kind,
              "message": e.message, "point": e.point_index, "details": dict(e.details)}
@@ -674,6 +675,29 @@ class BudgetTerms:
     def entries(self) -> Iterable[dict[str, object]]:
         """Every line numbered so far, in number order (read it after the figures)."""
         yield from (term.as_dict() for term in list(self._index))
+
+    def texts(self, encode: Callable[[object], str]) -> Iterable[str]:
+        """:meth:`entries` as JSON text, each the text ``encode`` makes of the entry, its
+        usual case (float numbers, str words) spelled out."""
+        string = encode_basestring
+        for term in list(self._index):
+            entry = term.as_dict()
+            numbers = (entry["half_width_db"], entry["divisor"],
+                       entry["standard_uncertainty_db"], entry["sensitivity"],
+                       entry["contribution_db"])
+            words = (entry["name"], entry["what"], entry["distribution"], entry["type"],
+                     entry["origin"])
+            if not (all(type(v) is float and math.isfinite(v) for v in numbers)
+                    and all(type(w) is str for w in words)):
+                yield encode(entry)
+                continue
+            half, divisor, standard, sensitivity, contribution = map(float.__repr__, numbers)
+            name, what, shape, kind, origin = map(string, words)
+            yield ('{"name":' + name + ',"what":' + what + ',"half_width_db":' + half
+                   + ',"distribution":' + shape + ',"divisor":' + divisor
+                   + ',"standard_uncertainty_db":' + standard + ',"sensitivity":'
+                   + sensitivity + ',"contribution_db":' + contribution + ',"type":' + kind
+                   + ',"origin":' + origin + "}")
 
 
 def figures_document(run: RunFigures) -> dict[str, Any]:
