@@ -51,6 +51,7 @@ from __future__ import annotations
 
 import functools
 import math
+import sys
 from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any, Literal
@@ -438,9 +439,10 @@ class PointLevels:
             if r == "spur" and math.isfinite(m) and math.isfinite(n):
                 names.append(_spur_key(m, n))
             for name in names:
-                level[(p, name)] = lv  # the later row wins, as in the capture table
-                floor[(p, name)] = fl
-                averaged[(p, name)] = int(av) if math.isfinite(av) and av >= 1 else 1
+                key = (p, name)  # one key object for the three maps (a large run: millions)
+                level[key] = lv  # the later row wins, as in the capture table
+                floor[key] = fl
+                averaged[key] = int(av) if math.isfinite(av) and av >= 1 else 1
             drive[p] = x
         return cls(level, floor, drive, averaged)
 
@@ -645,8 +647,9 @@ def figure_budget(figure: Figure, levels: PointLevels, specs: InstrumentSpecs,
             line = lines.get(key)
             if line is None:
                 line = lines[key] = Contribution(
-                    "noise", f"analyzer noise under {_plain(reading)} (lowest SNR {snr:.1f} "
-                    "dB)", noise_bias_db(snr), "rectangular", c, "B",
+                    "noise", sys.intern(f"analyzer noise under {_plain(reading)} (lowest SNR "
+                                        f"{snr:.1f} dB)"), noise_bias_db(snr), "rectangular",
+                    c, "B",
                     "measured noise floor; one-sided bias taken as rectangular (common "
                     "practice, no source)")
             terms.append(line)
@@ -682,9 +685,10 @@ def figure_budget(figure: Figure, levels: PointLevels, specs: InstrumentSpecs,
             line = lines.get(key)
             if line is None:
                 line = lines[key] = Contribution(
-                    "noise_scatter", f"scatter of one reading of {_plain(reading)} in the "
-                    f"analyzer noise (SNR {snr:.1f} dB, {avg} sweep{'s' if avg > 1 else ''}): "
-                    "(20/ln 10)·sqrt(1/(2ρ))/√averages", sigma, "standard", c, "A",
+                    "noise_scatter", sys.intern(
+                        f"scatter of one reading of {_plain(reading)} in the analyzer noise "
+                        f"(SNR {snr:.1f} dB, {avg} sweep{'s' if avg > 1 else ''}): "
+                        "(20/ln 10)·sqrt(1/(2ρ))/√averages"), sigma, "standard", c, "A",
                     "measured level and noise floor; small-noise expansion of "
                     "20·log10|A + n|")
             terms.append(line)
