@@ -51,6 +51,7 @@ noise, overload and attenuation tests on the way. When a point has the same read
 
 from __future__ import annotations
 
+import itertools
 from collections.abc import Mapping, Sequence
 from types import MappingProxyType
 from typing import TYPE_CHECKING
@@ -436,7 +437,10 @@ def conditions_records(
     columns = [v.tolist() for _, v in kept]
     proxy = MappingProxyType
     if not partial:
-        return [proxy(dict(zip(names, vals, strict=True))) for vals in zip(*columns, strict=True)]
+        # one C-level pass per stage (zip, dict, proxy): a million rows in a fraction of
+        # the time of a comprehension
+        rows_values = zip(*columns, strict=True)
+        return list(map(proxy, map(dict, map(zip, itertools.repeat(names), rows_values))))
     return [
         proxy({k: v for k, v in zip(names, vals, strict=True) if v == v and v is not None})
         for vals in zip(*columns, strict=True)

@@ -42,7 +42,13 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from sweeprig.analysis.captures import OUTPUT_FREQ
-from sweeprig.analysis.figures import SUPPLY_CURRENT_OFF, UNPOWERED, Figure, flag_points
+from sweeprig.analysis.figures import (
+    SUPPLY_CURRENT_OFF,
+    UNPOWERED,
+    Figure,
+    collector_paused,
+    flag_points,
+)
 from sweeprig.analysis.limits import INCONCLUSIVE, PASS, Assessment, Limit, Verdict, assess
 from sweeprig.analysis.validity import SUPPLY_CURRENT_TOLERANCE, UNPOWERED_GAIN_MARGIN_DB
 from sweeprig.errors import SweeprigError
@@ -145,6 +151,15 @@ class RunFigures:
         """Every figure called ``name``, in reduction order."""
         return [f for f in self.figures if f.name == name]
 
+    def figure_table(self, *names: str) -> pd.DataFrame:
+        """The figures called any of ``names`` (none given: all) as columns, one row per
+        figure, indexed by its position in ``figures``: ``name``, ``value``, ``unit``,
+        ``bound``, ``uncertainty_db``, ``flags`` (a flag mask), ``points``, then one column
+        per condition (:func:`sweeprig.analysis.figure_table.figure_table`)."""
+        from sweeprig.analysis.figure_table import figure_table
+
+        return figure_table(self.figures, names or None)
+
     def studies_with(self, role: str) -> list[str]:
         """Names of the studies that have ``role``."""
         return [s.name for s in self.studies if role in s.roles]
@@ -157,6 +172,13 @@ def reduce_run(store: RunStore, run_id: int) -> RunFigures:
     limits the result (an unreadable stored sequence, a study without the readings a figure
     needs) becomes a note instead.
     """
+    # A large run makes millions of small acyclic objects (figures, conditions, budget
+    # lines): the cyclic collector would rescan them all again and again.
+    with collector_paused():
+        return _reduce_run(store, run_id)
+
+
+def _reduce_run(store: RunStore, run_id: int) -> RunFigures:
     from sweeprig.analysis.bench_specs import calibration_state, specs_from_bench_text
     from sweeprig.analysis.load import captures_from_frames
     from sweeprig.analysis.uncertainty import attach_uncertainty

@@ -51,6 +51,7 @@ from __future__ import annotations
 
 import functools
 import math
+import sys
 from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any, Literal
@@ -58,7 +59,7 @@ from typing import Any, Literal
 import numpy as np
 import pandas as pd
 
-from sweeprig.analysis.figures import Figure, with_changes
+from sweeprig.analysis.figures import Figure, collector_paused, with_changes
 
 Shape = Literal["rectangular", "triangular", "u-shaped", "normal-k2", "standard"]
 
@@ -211,8 +212,9 @@ class Budget:
     combined_db: float = field(init=False, repr=False, compare=False)
 
     def __post_init__(self) -> None:
+        # each line's c_i·u(x_i) is a float worked out when it was made
         object.__setattr__(self, "combined_db",
-                           combine([c.contribution_db for c in self.contributions]))
+                           math.hypot(*[c.contribution_db for c in self.contributions]))
 
     @property
     def expanded_db(self) -> float:
@@ -437,14 +439,22 @@ class PointLevels:
             if r == "spur" and math.isfinite(m) and math.isfinite(n):
                 names.append(_spur_key(m, n))
             for name in names:
-                level[(p, name)] = lv  # the later row wins, as in the capture table
-                floor[(p, name)] = fl
-                averaged[(p, name)] = int(av) if math.isfinite(av) and av >= 1 else 1
+                key = (p, name)  # one key object for the three maps (a large run: millions)
+                level[key] = lv  # the later row wins, as in the capture table
+                floor[key] = fl
+                averaged[key] = int(av) if math.isfinite(av) and av >= 1 else 1
             drive[p] = x
         return cls(level, floor, drive, averaged)
 
     def min_snr_db(self, points: Sequence[int], reading: str) -> float:
         """The lowest level − noise floor of ``reading`` over ``points`` (NaN: unknown)."""
+        if len(points) == 1:  # most figures come from one point
+            key = (points[0], reading)
+            level = self.level_dbm.get(key)
+            if level is None:
+                return math.nan
+            snr = level - self.floor_dbm[key]
+            return snr if math.isfinite(snr) else math.nan
         snrs = [self.level_dbm[(p, reading)] - self.floor_dbm[(p, reading)]
                 for p in points if (p, reading) in self.level_dbm]
         snrs = [s for s in snrs if math.isfinite(s)]
@@ -637,8 +647,9 @@ def figure_budget(figure: Figure, levels: PointLevels, specs: InstrumentSpecs,
             line = lines.get(key)
             if line is None:
                 line = lines[key] = Contribution(
-                    "noise", f"analyzer noise under {_plain(reading)} (lowest SNR {snr:.1f} "
-                    "dB)", noise_bias_db(snr), "rectangular", c, "B",
+                    "noise", sys.intern(f"analyzer noise under {_plain(reading)} (lowest SNR "
+                                        f"{snr:.1f} dB)"), noise_bias_db(snr), "rectangular",
+                    c, "B",
                     "measured noise floor; one-sided bias taken as rectangular (common "
                     "practice, no source)")
             terms.append(line)
@@ -674,9 +685,10 @@ def figure_budget(figure: Figure, levels: PointLevels, specs: InstrumentSpecs,
             line = lines.get(key)
             if line is None:
                 line = lines[key] = Contribution(
-                    "noise_scatter", f"scatter of one reading of {_plain(reading)} in the "
-                    f"analyzer noise (SNR {snr:.1f} dB, {avg} sweep{'s' if avg > 1 else ''}): "
-                    "(20/ln 10)·sqrt(1/(2ρ))/√averages", sigma, "standard", c, "A",
+                    "noise_scatter", sys.intern(
+                        f"scatter of one reading of {_plain(reading)} in the analyzer noise "
+                        f"(SNR {snr:.1f} dB, {avg} sweep{'s' if avg > 1 else ''}): "
+                        "(20/ln 10)·sqrt(1/(2ρ))/√averages"), sigma, "standard", c, "A",
                     "measured level and noise floor; small-noise expansion of "
                     "20·log10|A + n|")
             terms.append(line)
@@ -732,14 +744,15 @@ def attach_uncertainty(figures: Sequence[Figure], captures: pd.DataFrame,
     sides: dict[tuple, Figure] = {}
     side_names = _SIDE_NAMES
     lines: dict[tuple, Any] = {}
-    for f in figures:
-        budget = figure_budget(f, levels, specs, cal, small_signal_u=small_signal_u,
-                               lines=lines)
-        if budget is not None:
-            f = with_changes(f, uncertainty_db=budget.expanded_db, budget=budget)
-            if f.name in side_names:
-                sides[(f.name, _condition_key(f.conditions), f.value)] = f
-        out.append(f)
+    with collector_paused():  # a large run makes hundreds of thousands of budgets
+        for f in figures:
+            budget = figure_budget(f, levels, specs, cal, small_signal_u=small_signal_u,
+                                   lines=lines)
+            if budget is not None:
+                f = with_changes(f, uncertainty_db=budget.expanded_db, budget=budget)
+                if f.name in side_names:
+                    sides[(f.name, _condition_key(f.conditions), f.value)] = f
+            out.append(f)
     for i, f in enumerate(out):
         if f.name in WORST_OF and f.is_number:
             for side in WORST_OF[f.name]:

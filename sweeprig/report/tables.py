@@ -17,9 +17,10 @@ from __future__ import annotations
 import json
 import math
 import re
-from collections.abc import Iterable, Mapping, Sequence
+from collections.abc import Callable, Iterable, Iterator, Mapping, Sequence
 from dataclasses import dataclass
 from datetime import UTC, datetime
+from json.encoder import encode_basestring
 from pathlib import Path
 from types import MappingProxyType
 from typing import Any
@@ -34,11 +35,13 @@ from sweeprig.analysis.figures import (
     FLAGS,
     SUSPECT_FLAGS,
     Figure,
+    collector_paused,
 )
 from sweeprig.analysis.limits import FAIL, INCONCLUSIVE, PASS, Judgement, Limit
 from sweeprig.analysis.reduce import RunFigures
 from sweeprig.analysis.uncertainty import (
     BUDGET_METHOD,
+    COVERAGE_FACTOR,
     Budget,
     Contribution,
     uncertainty_text,
@@ -460,13 +463,94 @@ def figure_verdicts(run: RunFigures) -> dict[int, str]:
 
 
 class _Stream:
-    """A list of the figures document written entry by entry (never held whole)."""
+    """A list of the figures document written entry by entry (never held whole);
+    ``encoded``: its entries are JSON text already."""
 
-    def __init__(self, entries: Iterable[object]) -> None:
+    def __init__(self, entries: Iterable[object], encoded: bool = False) -> None:
         self.entries = entries
+        self.encoded = encoded
 
 
-def _document(run: RunFigures) -> dict[str, Any]:
+def _figure_entries(figures: Iterable[Figure], terms: BudgetTerms
+                    ) -> Iterator[dict[str, object]]:
+    """The figures of ``figures.json``, one dict each (see :func:`_document`)."""
+    for f in figures:
+        yield {"name": f.name, "value": _number(f.value), "unit": f.unit, "bound": f.bound,
+               "text": figure_text(f, 3),
+               "conditions": {k: _plain(v) for k, v in f.conditions.items()},
+               "flags": list(f.flags), "points": [int(p) for p in f.points],
+               "uncertainty_db": _number(f.uncertainty_db),
+               "budget": terms.budget_entry(f.budget) if f.budget is not None else None}
+
+
+def _figure_texts(figures: Iterable[Figure], terms: BudgetTerms,
+                  encode: Callable[[object], str]) -> Iterator[str]:
+    """The entries of :func:`_figure_entries` as JSON text, the same text ``encode`` makes
+    of each dict, built from pieces encoded once each: a large run's figures share their
+    names, units, flag sets, condition mappings and budgets (a budget's text is the same
+    wherever it is used: its lines are numbered at first use)."""
+    heads: dict[tuple[str, str, object], str] = {}
+    flag_texts: dict[tuple[str, ...], str] = {}
+    condition_texts: dict[int, tuple[object, str]] = {}
+    budget_texts: dict[int, tuple[object, str]] = {}
+    tails: dict[tuple[str, str, object], str] = {}
+    string = encode_basestring  # a str's JSON text (ensure_ascii=False), in C
+    for f in figures:
+        head = heads.get((f.name, f.unit, f.bound))
+        if head is None:
+            head = heads[(f.name, f.unit, f.bound)] = '{"name":' + encode(f.name) + ',"value":'
+            tails[(f.name, f.unit, f.bound)] = (',"unit":' + encode(f.unit) + ',"bound":'
+                                                + encode(f.bound) + ',"text":')
+        flags = flag_texts.get(f.flags)
+        if flags is None:
+            flags = flag_texts[f.flags] = encode(list(f.flags))
+        seen = condition_texts.get(id(f.conditions))
+        if seen is None:
+            seen = condition_texts[id(f.conditions)] = (
+                f.conditions, encode({k: _plain(v) for k, v in f.conditions.items()}))
+        budget = "null"
+        if f.budget is not None:
+            known = budget_texts.get(id(f.budget))
+            if known is None:
+                known = budget_texts[id(f.budget)] = (f.budget,
+                                                      _budget_text(f.budget, terms, encode))
+            budget = known[1]
+        value = float(f.value)
+        u = float(f.uncertainty_db)
+        value_text = float.__repr__(value) if math.isfinite(value) else "null"
+        u_text = float.__repr__(u) if math.isfinite(u) else "null"
+        text = _text3(f)
+        yield (head + value_text + tails[(f.name, f.unit, f.bound)] + string(text)
+               + ',"conditions":' + seen[1]
+               + ',"flags":' + flags + ',"points":['
+               + ",".join([str(int(p)) for p in f.points]) + '],"uncertainty_db":' + u_text
+               + ',"budget":' + budget + "}")
+
+
+def _text3(f: Figure) -> str:
+    """``figure_text(f, 3)``, its common case (a number with its uncertainty) spelled out."""
+    value, u = f.value, f.uncertainty_db
+    if f.bound is None and math.isfinite(value) and math.isfinite(u):
+        return f"{value:.3f} ± {u:.3f} {f.unit} (k = {COVERAGE_FACTOR:g})"
+    return figure_text(f, 3)
+
+
+def _budget_text(budget: Budget, terms: BudgetTerms, encode: Callable[[object], str]) -> str:
+    """``encode(terms.budget_entry(budget))``, spelled out (it is written per budget)."""
+    combined, k = budget.combined_db, budget.coverage_factor
+    numbers = (combined, k, k * combined)
+    entry = terms.budget_entry(budget)
+    if not all(type(v) is float and math.isfinite(v) for v in numbers):
+        return encode(entry)
+    return ('{"combined_standard_uncertainty_db":' + float.__repr__(combined)
+            + ',"coverage_factor":' + float.__repr__(k)
+            + ',"expanded_uncertainty_db":' + float.__repr__(k * combined)
+            + ',"contributions":[' + ",".join([str(i) for i in entry["contributions"]])
+            + "]}")
+
+
+def _document(run: RunFigures, encode: Callable[[object], str] | None = None
+              ) -> dict[str, Any]:
     """Everything the report states, as JSON-able data (``figures.json``).
 
     ``figures[i].points`` are run-store point indices: each figure can be traced back to the
@@ -544,16 +628,10 @@ def _document(run: RunFigures) -> dict[str, Any]:
         "budget_method": BUDGET_METHOD,
         "flag_meanings": {name: FLAG_MEANINGS[name] for name in FLAGS},
         "suspect_flags": [name for name in FLAGS if name in SUSPECT_FLAGS],
-        "figures": _Stream(
-            {"name": f.name, "value": _number(f.value), "unit": f.unit, "bound": f.bound,
-             "text": figure_text(f, 3),
-             "conditions": {k: _plain(v) for k, v in f.conditions.items()},
-             "flags": list(f.flags), "points": [int(p) for p in f.points],
-             "uncertainty_db": _number(f.uncertainty_db),
-             "budget": terms.budget_entry(f.budget) if f.budget is not None else None}
-            for f in run.figures
-        ),
-        "budget_terms": _Stream(terms.entries()),
+        "figures": (_Stream(_figure_entries(run.figures, terms)) if encode is None
+                    else _Stream(_figure_texts(run.figures, terms, encode), encoded=True)),
+        "budget_terms": (_Stream(terms.entries()) if encode is None
+                         else _Stream(terms.texts(encode), encoded=True)),
         "events": _Stream(
             {"time_utc": e.time.isoformat(), "severity": e.severity, "kind": e.kind,
              "message": e.message, "point": e.point_index, "details": dict(e.details)}
@@ -572,16 +650,22 @@ class BudgetTerms:
 
     def __init__(self) -> None:
         self._index: dict[Contribution, int] = {}
+        # the same line object recurs in many budgets: found by identity first (hashing a
+        # line hashes its text)
+        self._by_id: dict[int, tuple[Contribution, int]] = {}
 
     def budget_entry(self, budget: Budget) -> dict[str, object]:
         """A figure's budget: its totals and the numbers of its lines."""
-        index = self._index
+        index, by_id = self._index, self._by_id
         ids = []
         for term in budget.contributions:
-            number = index.get(term)
-            if number is None:
-                number = index[term] = len(index)
-            ids.append(number)
+            known = by_id.get(id(term))
+            if known is None:
+                number = index.get(term)
+                if number is None:
+                    number = index[term] = len(index)
+                known = by_id[id(term)] = (term, number)
+            ids.append(known[1])
         combined = budget.combined_db
         return {"combined_standard_uncertainty_db": combined,
                 "coverage_factor": budget.coverage_factor,
@@ -591,6 +675,29 @@ class BudgetTerms:
     def entries(self) -> Iterable[dict[str, object]]:
         """Every line numbered so far, in number order (read it after the figures)."""
         yield from (term.as_dict() for term in list(self._index))
+
+    def texts(self, encode: Callable[[object], str]) -> Iterable[str]:
+        """:meth:`entries` as JSON text, each the text ``encode`` makes of the entry, its
+        usual case (float numbers, str words) spelled out."""
+        string = encode_basestring
+        for term in list(self._index):
+            entry = term.as_dict()
+            numbers = (entry["half_width_db"], entry["divisor"],
+                       entry["standard_uncertainty_db"], entry["sensitivity"],
+                       entry["contribution_db"])
+            words = (entry["name"], entry["what"], entry["distribution"], entry["type"],
+                     entry["origin"])
+            if not (all(type(v) is float and math.isfinite(v) for v in numbers)
+                    and all(type(w) is str for w in words)):
+                yield encode(entry)
+                continue
+            half, divisor, standard, sensitivity, contribution = map(float.__repr__, numbers)
+            name, what, shape, kind, origin = map(string, words)
+            yield ('{"name":' + name + ',"what":' + what + ',"half_width_db":' + half
+                   + ',"distribution":' + shape + ',"divisor":' + divisor
+                   + ',"standard_uncertainty_db":' + standard + ',"sensitivity":'
+                   + sensitivity + ',"contribution_db":' + contribution + ',"type":' + kind
+                   + ',"origin":' + origin + "}")
 
 
 def figures_document(run: RunFigures) -> dict[str, Any]:
@@ -612,9 +719,9 @@ def write_figures_json(run: RunFigures, path: Path) -> Path:
     encode = json.JSONEncoder(ensure_ascii=False, allow_nan=False, default=_plain,
                               separators=(",", ":")).encode
     try:
-        with path.open("w", encoding="utf-8") as out:
+        with path.open("w", encoding="utf-8") as out, collector_paused():
             out.write("{")
-            for k, (key, value) in enumerate(_document(run).items()):
+            for k, (key, value) in enumerate(_document(run, encode).items()):
                 out.write(("," if k else "") + "\n" + encode(key) + ":")
                 if not isinstance(value, _Stream):
                     out.write(encode(value))
@@ -623,7 +730,7 @@ def write_figures_json(run: RunFigures, path: Path) -> Path:
                 chunk: list[str] = []
                 first = True
                 for entry in value.entries:
-                    chunk.append(encode(entry))
+                    chunk.append(entry if value.encoded else encode(entry))  # type: ignore
                     if len(chunk) == _JSON_CHUNK:
                         out.write(("" if first else ",") + ",".join(chunk))
                         first, chunk = False, []
@@ -642,11 +749,18 @@ def figures_frame(run: RunFigures) -> pd.DataFrame:
     ``text``, ``verdict`` (worst over its limits, empty when none applies), ``flags`` and
     ``points`` (space-separated), then one column per condition."""
     verdicts = figure_verdicts(run)
-    keys: list[str] = []
+    keys: dict[str, None] = {}
     for f in run.figures:
         for k in f.conditions:
             if k not in keys:
-                keys.append(k)
+                keys[k] = None
+    flag_texts: dict[tuple[str, ...], str] = {}
+    flags: list[object] = []
+    for f in run.figures:
+        text = flag_texts.get(f.flags)
+        if text is None:
+            text = flag_texts[f.flags] = " ".join(f.flags)
+        flags.append(text)
     rows: dict[str, list[object]] = {
         "figure": list(range(len(run.figures))),
         "name": [f.name for f in run.figures],
@@ -654,10 +768,10 @@ def figures_frame(run: RunFigures) -> pd.DataFrame:
         "unit": [f.unit for f in run.figures],
         "bound": [f.bound or "" for f in run.figures],
         "uncertainty_db": [f.uncertainty_db for f in run.figures],
-        "text": [figure_text(f, 3) for f in run.figures],
+        "text": [_text3(f) for f in run.figures],
         "verdict": [verdicts.get(id(f), "") for f in run.figures],
-        "flags": [" ".join(f.flags) for f in run.figures],
-        "points": [" ".join(str(p) for p in f.points) for f in run.figures],
+        "flags": flags,
+        "points": [" ".join(map(str, f.points)) for f in run.figures],
     }
     for key in keys:
         column = [f.conditions.get(key) for f in run.figures]
@@ -678,19 +792,21 @@ def write_tables(
     """Write ``captures`` and ``figures`` as CSV and/or Parquet into ``folder`` (by default
     :data:`TABLE_FORMATS`, Parquet left out when pyarrow, the ``parquet`` extra, is missing)."""
     from sweeprig.parquet import parquet_available, require_parquet
+    from sweeprig.report.csv_table import write_frame_csv
 
     if formats is None:
         formats = [f for f in TABLE_FORMATS if f != "parquet" or parquet_available()]
     elif "parquet" in formats:
         require_parquet(str(folder))
-    tables = {"captures": run.captures, "figures": figures_frame(run)}
+    with collector_paused():
+        tables = {"captures": run.captures, "figures": figures_frame(run)}
     written: list[Path] = []
     for name, frame in tables.items():
         for fmt in formats:
             path = folder / f"{name}.{fmt}"
             try:
                 if fmt == "csv":
-                    frame.to_csv(path, index=False)
+                    write_frame_csv(frame, path)
                 elif fmt == "parquet":
                     frame.to_parquet(path, index=False, engine="pyarrow")
                 else:

@@ -707,22 +707,31 @@ class SqlRunStoreCore:
                    "attenuation_check", "extra_json"]
         import pandas as pd
 
-        rows = self._read(
-            f"SELECT run_id, point_index, reading_no, {', '.join(READING_COLUMNS)}, overload, "
-            "attenuation_check, extra_json FROM readings WHERE run_id = ? "
-            "ORDER BY point_index, reading_no",
-            (run_id,),
-        )
-        frame = pd.DataFrame.from_records(rows, columns=columns)
-        for column in ("run_id", "point_index", "reading_no"):
-            frame[column] = frame[column].astype("int64")
-        for column in ("freq_hz", "level_dbm", "noise_floor_dbm", "span_hz", "rbw_hz",
-                       "attenuation_db", "ref_level_dbm"):
-            frame[column] = frame[column].astype("float64")
-        for column in ("m", "n", "averages"):
-            frame[column] = frame[column].astype("Int64")
-        frame["overload"] = frame["overload"].astype(bool)
-        frame["attenuation_check"] = frame["attenuation_check"].astype("boolean")
+        select = (f"SELECT run_id, point_index, reading_no, {', '.join(READING_COLUMNS)}, "
+                  "overload, attenuation_check, extra_json FROM readings WHERE run_id = ?")
+        bounds = self._read("SELECT MIN(point_index), MAX(point_index) FROM readings "
+                            "WHERE run_id = ?", (run_id,))
+        low, high = bounds[0] if bounds else (None, None)
+        # Read a slice of points at a time: a large run's rows as Python tuples would take
+        # several times the memory of the typed table they become.
+        slices = ([(None, None)] if low is None else
+                  [(start, start + READING_SLICE_POINTS)
+                   for start in range(int(low), int(high) + 1, READING_SLICE_POINTS)])
+        frames = []
+        for start, stop in slices:
+            where = "" if start is None else " AND point_index >= ? AND point_index < ?"
+            params = (run_id,) if start is None else (run_id, start, stop)
+            rows = self._read(select + where + " ORDER BY point_index, reading_no", params)
+            frames.append(_typed_readings(pd.DataFrame.from_records(rows, columns=columns)))
+            del rows
+        if len(frames) == 1:
+            return frames[0]
+        frame = pd.concat(frames, ignore_index=True)
+        for column in columns:
+            if len({str(f[column].dtype) for f in frames}) > 1:
+                # a text column empty in one slice came out as objects there: inferred
+                # again over all rows, as one read would
+                frame[column] = pd.Series(frame[column].tolist(), index=frame.index)
         return frame
 
     def events(self, run_id: int) -> list[EventRecord]:
@@ -760,3 +769,21 @@ class SqlRunStoreCore:
         rows = self._read(sql, params)
         return [BusRecord(_dt(r[0]) or utc_now(), r[1], r[2], r[3], r[4]) for r in reversed(rows)]
 
+
+
+#: Points whose readings :meth:`SqlRunStoreCore.readings_frame` reads per query.
+READING_SLICE_POINTS = 5000
+
+
+def _typed_readings(frame: pd.DataFrame) -> pd.DataFrame:
+    """The readings table's columns in their types (see ``readings_frame``)."""
+    for column in ("run_id", "point_index", "reading_no"):
+        frame[column] = frame[column].astype("int64")
+    for column in ("freq_hz", "level_dbm", "noise_floor_dbm", "span_hz", "rbw_hz",
+                   "attenuation_db", "ref_level_dbm"):
+        frame[column] = frame[column].astype("float64")
+    for column in ("m", "n", "averages"):
+        frame[column] = frame[column].astype("Int64")
+    frame["overload"] = frame["overload"].astype(bool)
+    frame["attenuation_check"] = frame["attenuation_check"].astype("boolean")
+    return frame

@@ -13,6 +13,7 @@ from sweeprig.analysis.figures import (
     FLAGS,
     IN_NOISE,
     OVERLOAD,
+    SLOPE_OFF,
     SUSPECT_FLAGS,
     Figure,
     bound_difference,
@@ -21,6 +22,7 @@ from sweeprig.analysis.figures import (
     flags_from_mask,
     make_figures,
     mask_where,
+    with_changes,
     worst_of,
 )
 
@@ -116,3 +118,19 @@ def test_with_changes_is_dataclasses_replace():
             math.isnan(made.uncertainty_db) and math.isnan(expected.uncertainty_db))
     with pytest.raises(TypeError, match="no field valu"):
         with_changes(figure, valu=1.0)
+
+
+def test_built_figures_are_plain_frozen_figures():
+    """make_figures and with_changes fill the slots without the frozen __init__: what they
+    give is a Figure like any other (same type, equal, hashable, still frozen)."""
+    import dataclasses
+
+    built = make_figures("iip3", "dBm", [12.5], BOUND_NONE, flag_bit(SLOPE_OFF),
+                         [{"temperature_c": 25.0}], [(3, 4)])[0]
+    made = Figure("iip3", 12.5, "dBm", None, {"temperature_c": 25.0}, (SLOPE_OFF,), (3, 4))
+    assert type(built) is Figure and built == made and hash(built) == hash(made)
+    changed = with_changes(built, value=13.0)
+    assert type(changed) is Figure and changed == dataclasses.replace(made, value=13.0)
+    for figure in (built, changed):
+        with pytest.raises(dataclasses.FrozenInstanceError):
+            figure.value = 1.0  # type: ignore[misc]

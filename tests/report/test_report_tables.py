@@ -161,3 +161,15 @@ def test_streamed_figures_json_holds_the_whole_document(report_run, tmp_path, mo
     assert written == expected
     assert list(written) == list(expected)
     assert len(written["figures"]) == len(report_run.figures)
+
+
+def test_figures_table_text_is_figure_text(report_run):
+    """figures.csv's text column is what figure_text writes with three decimals, and its
+    flags and points are the figure's, space-separated."""
+    from sweeprig.report.tables import figures_frame
+
+    frame = figures_frame(report_run)
+    assert frame["text"].tolist() == [figure_text(f, 3) for f in report_run.figures]
+    assert frame["flags"].tolist() == [" ".join(f.flags) for f in report_run.figures]
+    assert frame["points"].tolist() == [" ".join(str(p) for p in f.points)
+                                        for f in report_run.figures]

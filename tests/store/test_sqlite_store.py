@@ -136,6 +136,29 @@ def test_every_point_once_and_frames(store):
     assert info.status == "complete" and info.finished is not None
 
 
+def test_readings_read_in_slices_of_points_are_the_whole_table(store, monkeypatch):
+    """readings_frame reads a slice of points per query (bounded memory): the table is the
+    same as one read, whatever the slice."""
+    import dataclasses
+
+    import sweeprig.store.sql as sql
+
+    run_id = _run(store)
+    for index in range(5):
+        readings = _readings(index)
+        if index == 4:  # extra data only in the last slice
+            readings = [dataclasses.replace(r, extra={"repeat_of": "if"}) for r in readings]
+        store.write_point(run_id, _point(index), readings)
+    whole = store.readings_frame(run_id)
+    for size in (1, 2, 3):
+        monkeypatch.setattr(sql, "READING_SLICE_POINTS", size)
+        sliced = store.readings_frame(run_id)
+        pd.testing.assert_frame_equal(sliced, whole)
+    empty_run = _run(store)
+    monkeypatch.setattr(sql, "READING_SLICE_POINTS", 1)
+    assert store.readings_frame(empty_run).empty
+
+
 def test_crash_mid_point_leaves_nothing(store):
     run_id = _run(store)
     store.write_point(run_id, _point(0), _readings(0))

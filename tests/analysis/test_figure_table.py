@@ -1,0 +1,49 @@
+"""Figures as columns: figure_table gives what the Figure objects hold, row by row."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from sweeprig.analysis.captures import has_bit
+from sweeprig.analysis.figure_table import BASE_COLUMNS, figure_table
+from sweeprig.analysis.figures import IN_NOISE, SLOPE_OFF, Figure
+
+
+def _figures() -> list[Figure]:
+    return [
+        Figure("iip3", 12.5, "dBm", None, {"study": "two_tone", "temperature_c": 25.0},
+               (SLOPE_OFF,), (3, 4), uncertainty_db=0.4),
+        Figure("spur_dbc", -80.0, "dBc", "<", {"study": "spurs", "m": 2.0, "n": -1.0},
+               (IN_NOISE,), (7,)),
+        Figure("iip3", 11.0, "dBm", None, {"study": "two_tone", "temperature_c": 85.0},
+               (), (5, 6), uncertainty_db=0.5),
+    ]
+
+
+def test_rows_are_the_figures_of_the_names_asked_for() -> None:
+    table = figure_table(_figures(), ["iip3"])
+    assert list(table.columns) == [*BASE_COLUMNS, "study", "temperature_c"]
+    assert table.index.tolist() == [0, 2]  # positions in the sequence given
+    assert table["value"].tolist() == [12.5, 11.0]
+    assert table["uncertainty_db"].tolist() == [0.4, 0.5]
+    assert table["points"].tolist() == [(3, 4), (5, 6)]
+    assert has_bit(table["flags"].to_numpy(), SLOPE_OFF).tolist() == [True, False]
+    assert table["temperature_c"].tolist() == [25.0, 85.0]
+
+
+def test_all_figures_with_missing_conditions_and_bounds() -> None:
+    table = figure_table(_figures())
+    assert len(table) == 3
+    assert table["bound"].tolist() == ["", "<", ""]
+    assert table["study"].tolist() == ["two_tone", "spurs", "two_tone"]
+    assert math.isnan(table.loc[1, "temperature_c"]) and table.loc[1, "m"] == 2.0
+    assert math.isnan(table.loc[1, "uncertainty_db"])
+    assert has_bit(table["flags"].to_numpy(), IN_NOISE).tolist() == [False, True, False]
+
+
+def test_no_figure_of_those_names_is_an_empty_table() -> None:
+    table = figure_table(_figures(), ["noise_figure"])
+    assert table.empty and list(table.columns) == list(BASE_COLUMNS)
+    assert table["value"].dtype == np.float64
