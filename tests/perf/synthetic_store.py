@@ -14,6 +14,9 @@ from __future__ import annotations
 
 import json
 import sqlite3
+import subprocess
+import sys
+import time
 from pathlib import Path
 
 import numpy as np
@@ -207,3 +210,28 @@ def _insert(conn: sqlite3.Connection, run_id: int, captures, point_rows, point_s
                    0, 1 if atten[i] else None, extra)
 
     conn.executemany(reading_sql, rows())
+
+
+# -- what the report benchmarks share -----------------------------------------------------
+
+
+def run_child(script: Path, *args: str) -> dict[str, float]:
+    """Run benchmark ``script`` in a fresh interpreter with ``args`` and return the JSON of
+    its last output line (a child of its own, so its peak resident memory is its own)."""
+    child = subprocess.run([sys.executable, str(script), *args], capture_output=True,
+                           text=True, check=False, timeout=3600)
+    assert child.returncode == 0, child.stderr
+    return json.loads(child.stdout.strip().splitlines()[-1])
+
+
+def timed_store(path: str, points: str) -> dict[str, float]:
+    """:func:`write_synthetic_store` of ``points`` points at ``path``, with its ``seconds``."""
+    start = time.perf_counter()
+    out = write_synthetic_store(Path(path), int(points))
+    out["seconds"] = time.perf_counter() - start
+    return out
+
+
+def verdict(value: float, target: float) -> str:
+    """``met`` or ``MISSED`` against a ceiling."""
+    return "met" if value <= target else "MISSED"

@@ -21,24 +21,19 @@ from __future__ import annotations
 import contextlib
 import json
 import os
-import subprocess
 import sys
 import time
 from pathlib import Path
 
 import pytest
+from synthetic_store import run_child, timed_store, verdict
 
-HERE = Path(__file__).resolve().parent
+SCRIPT = Path(__file__).resolve()
 #: Issue 14: the plots a small constant share of the report, aimed at 1.5 s at every size.
 TARGET_S = 1.5
 SIZES = (10_000, 100_000, 1_000_000)
 
 
-def _child(*args: str) -> dict[str, float]:
-    child = subprocess.run([sys.executable, str(Path(__file__).resolve()), *args],
-                           capture_output=True, text=True, check=False, timeout=3600)
-    assert child.returncode == 0, child.stderr
-    return json.loads(child.stdout.strip().splitlines()[-1])
 
 
 def _status_mb(field: str) -> float:
@@ -52,11 +47,6 @@ def _status_mb(field: str) -> float:
     return float("nan")
 
 
-def make_store(path: str, points: str) -> dict[str, float]:
-    sys.path.insert(0, str(HERE))
-    from synthetic_store import write_synthetic_store
-
-    return write_synthetic_store(Path(path), int(points))
 
 
 def draw_plots(path: str, run_id: str) -> dict[str, float]:
@@ -80,9 +70,6 @@ def draw_plots(path: str, run_id: str) -> dict[str, float]:
             "figures": float(len(run.figures))}
 
 
-def verdict(value: float, target: float) -> str:
-    """``met`` or ``MISSED`` against a ceiling."""
-    return "met" if value <= target else "MISSED"
 
 
 @pytest.mark.perf
@@ -92,9 +79,9 @@ def test_perf_plots_of_a_large_run(points: int, tmp_path: Path) -> None:
     if points > 100_000 and os.environ.get("SWEEPRIG_PERF_HUGE") != "1":
         pytest.skip("1M points: set SWEEPRIG_PERF_HUGE=1 (the reduction needs several GB)")
     store = tmp_path / "runs.sqlite"
-    made = _child("store", str(store), str(points))
+    made = run_child(SCRIPT, "store", str(store), str(points))
     load = os.getloadavg()[0]
-    result = _child("plots", str(store), str(int(made["run_id"])))
+    result = run_child(SCRIPT, "plots", str(store), str(int(made["run_id"])))
     load_after = os.getloadavg()[0]
     print(f"\nplots of {made['points']:.0f} points ({result['figures']:.0f} figures, "
           f"{result['plots']:.0f} plots, {result['png_kb']:.0f} kB of PNG): "
@@ -107,4 +94,4 @@ def test_perf_plots_of_a_large_run(points: int, tmp_path: Path) -> None:
 
 if __name__ == "__main__":
     what, *rest = sys.argv[1:]
-    print(json.dumps(make_store(*rest) if what == "store" else draw_plots(*rest)))
+    print(json.dumps(timed_store(*rest) if what == "store" else draw_plots(*rest)))

@@ -16,32 +16,19 @@ from __future__ import annotations
 
 import json
 import os
-import subprocess
 import sys
 import time
 from pathlib import Path
 
 import pytest
+from synthetic_store import run_child, timed_store, verdict
 
-HERE = Path(__file__).resolve().parent
+SCRIPT = Path(__file__).resolve()
 TARGETS = {100_000: (8.0, 500.0), 1_000_000: (60.0, 1536.0)}
 
 
-def _child(*args: str) -> dict[str, float]:
-    child = subprocess.run([sys.executable, str(Path(__file__).resolve()), *args],
-                           capture_output=True, text=True, check=False, timeout=3600)
-    assert child.returncode == 0, child.stderr
-    return json.loads(child.stdout.strip().splitlines()[-1])
 
 
-def make_store(path: str, points: str) -> dict[str, float]:
-    sys.path.insert(0, str(HERE))
-    from synthetic_store import write_synthetic_store
-
-    start = time.perf_counter()
-    out = write_synthetic_store(Path(path), int(points))
-    out["seconds"] = time.perf_counter() - start
-    return out
 
 
 def make_report(path: str, run_id: str, folder: str) -> dict[str, float]:
@@ -70,9 +57,6 @@ def make_report(path: str, run_id: str, folder: str) -> dict[str, float]:
     }
 
 
-def verdict(value: float, target: float) -> str:
-    """``met`` or ``MISSED`` against a ceiling."""
-    return "met" if value <= target else "MISSED"
 
 
 @pytest.mark.perf
@@ -82,9 +66,10 @@ def test_perf_report_of_a_large_run(points: int, tmp_path: Path) -> None:
     if points > 100_000 and os.environ.get("SWEEPRIG_PERF_HUGE") != "1":
         pytest.skip("1M points: set SWEEPRIG_PERF_HUGE=1 (needs several GB of memory today)")
     store = tmp_path / "runs.sqlite"
-    made = _child("store", str(store), str(points))
+    made = run_child(SCRIPT, "store", str(store), str(points))
     load = os.getloadavg()[0]
-    result = _child("report", str(store), str(int(made["run_id"])), str(tmp_path / "out"))
+    result = run_child(SCRIPT, "report", str(store), str(int(made["run_id"])),
+                       str(tmp_path / "out"))
     load = max(load, os.getloadavg()[0])
     time_target, memory_target = TARGETS[points]
     print(f"\nreport of {made['points']:.0f} points ({made['readings']:.0f} readings, "
@@ -101,4 +86,4 @@ def test_perf_report_of_a_large_run(points: int, tmp_path: Path) -> None:
 
 if __name__ == "__main__":
     what, *rest = sys.argv[1:]
-    print(json.dumps(make_store(*rest) if what == "store" else make_report(*rest)))
+    print(json.dumps(timed_store(*rest) if what == "store" else make_report(*rest)))
