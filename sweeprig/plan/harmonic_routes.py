@@ -40,8 +40,11 @@ class ToneRoutes:
     def lines(self, f_lo_hz: float, freq_hz: float, power_dbm: float
               ) -> tuple[FloatArray, FloatArray]:
         """(frequency, level) of this tone's lines at a drive, Hz and dBm."""
-        freq = np.abs(self.rf_multiple * freq_hz + self.lo_multiple * f_lo_hz)
-        return freq, self.power_factor * power_dbm + self.offset_db
+        # an absurd frequency (a file's 1e307 Hz, refused later by the limits) gives inf, as
+        # the reference's Python floats do, not a numpy overflow warning
+        with np.errstate(over="ignore", invalid="ignore"):
+            freq = np.abs(self.rf_multiple * freq_hz + self.lo_multiple * f_lo_hz)
+            return freq, self.power_factor * power_dbm + self.offset_db
 
 
 def tone_routes(

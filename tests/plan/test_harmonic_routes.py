@@ -35,6 +35,18 @@ def test_route_table_lines_equal_the_reference_lines(seed: int) -> None:
     np.testing.assert_allclose(level, [ln.level_dbm for ln in reference], rtol=0, atol=1e-9)
 
 
+def test_an_absurd_frequency_gives_the_reference_lines_without_an_overflow_warning() -> None:
+    """A fuzzed file's 6e307 Hz reaches the planner before the limits refuse it: the lines
+    are inf as the reference's (Python floats), not a numpy overflow (warnings are errors)."""
+    tone = mg.HarmonicTone(5.99e307, -20.0, (-35.0, -45.0), "rf")
+    lo_h = (-35.0, -45.0)
+    reference = mg.source_harmonic_lines(5.7e9, lo_h, [tone], 13.0, -30.0)
+    routes = [hr.tone_routes(tone.harmonics_dbc, lo_h, 13.0, -30.0)]
+    freq, _level = hr.source_harmonic_arrays(routes, 5.7e9, [tone])
+    assert freq.tolist() == [ln.freq_hz for ln in reference]
+    assert np.isinf(freq).any()
+
+
 def test_clean_sources_give_no_lines() -> None:
     tone = mg.HarmonicTone(2.2e9, -10.0, (), "rf")
     routes = [hr.tone_routes((), (), 10.0, -30.0)]
