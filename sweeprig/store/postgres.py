@@ -529,8 +529,13 @@ class PgRunLock:
         return True
 
     def release(self) -> None:
-        """Free the lock (idempotent)."""
+        """Free the lock (idempotent). Unlocked explicitly before the connection closes: a
+        closed connection's server process frees its locks only as it exits, a moment later,
+        so a liveness check right after would still see the run held."""
         if self._conn is not None:
+            with suppress(Exception):
+                self._conn.execute("SELECT pg_advisory_unlock(%s, %s)",
+                                   (RUN_LOCK_SPACE, self.run_id))
             with suppress(Exception):
                 self._conn.close()
             self._conn = None
