@@ -127,7 +127,17 @@ from pydantic import BeforeValidator, Discriminator, Field, Tag, field_validator
 from pydantic_core import PydanticCustomError
 
 from sweeprig.errors import InputError
-from sweeprig.formats.fields import Frozen, Ppm, StrictBool, quantity
+from sweeprig.formats.fields import (
+    Frequency,
+    Frozen,
+    LevelDb,
+    Power,
+    Ppm,
+    StrictBool,
+    Temperature,
+    Time,
+    Voltage,
+)
 from sweeprig.formats.loading import Document, display_path, load_document, validate
 from sweeprig.sim.fault_plan import FaultPlan, FaultSpec
 from sweeprig.sim.names import BENCHES_DIR, ROLES, shipped_parts
@@ -150,12 +160,6 @@ DEFAULT_BENCH_NAME = "default"
 #: The page a sim-bench description error points to.
 SIM_BENCH_DOCS = "docs/sim-bench.md"
 
-LevelDb = quantity("level_db")
-Power = quantity("power")
-Frequency = quantity("frequency")
-Temperature = quantity("temperature")
-Time = quantity("time")
-Voltage = quantity("voltage")
 NonNegativeDb = Annotated[LevelDb, Field(ge=0.0)]
 
 
