@@ -5,9 +5,12 @@ default family (real pyvisa over loopback)."""
 
 from __future__ import annotations
 
+from collections.abc import Iterator
+from contextlib import contextmanager
 from pathlib import Path
 
 import pytest
+import pyvisa
 
 from sweeprig.analysis.reduce import reduce_run
 from sweeprig.cli.probe_cmd import run_probe
@@ -18,6 +21,21 @@ from sweeprig.sim.bench import SimBenchDescription, resolve_description, start_s
 from sweeprig.store.sqlite import SqliteRunStore
 
 QUICK = shipped_sequences_dir() / "demo" / "quick.toml"
+
+
+@contextmanager
+def _session(resource: str) -> Iterator[pyvisa.resources.MessageBasedResource]:
+    """A pyvisa session to one served instrument, closed (with its manager) on the way out."""
+    rm = pyvisa.ResourceManager("@py")
+    try:
+        inst = rm.open_resource(resource, read_termination="\n", write_termination="\n",
+                                timeout=2000)
+        try:
+            yield inst
+        finally:
+            inst.close()
+    finally:
+        rm.close()
 
 
 def _family(name: str) -> SimBenchDescription:
@@ -62,12 +80,7 @@ def test_the_generic_profile_fails_loudly_on_it(farrowmere) -> None:
 
 def test_its_binary_trace_is_little_endian_and_read_so(farrowmere) -> None:
     import numpy as np
-    import pyvisa
-
-    rm = pyvisa.ResourceManager("@py")
-    inst = rm.open_resource(farrowmere.resources["sa"], read_termination="\n",
-                            write_termination="\n", timeout=2000)
-    try:
+    with _session(farrowmere.resources["sa"]) as inst:
         inst.write("*RST;:INIT:CONT OFF;:INIT:IMM")
         assert inst.query("*OPC?").strip() == "1"
         assert inst.query("FORM?").strip() == "REAL,32"  # its power-on format
@@ -78,9 +91,6 @@ def test_its_binary_trace_is_little_endian_and_read_so(farrowmere) -> None:
         text = np.array([float(v) for v in inst.query("TRAC1?").split(",")])
         np.testing.assert_allclose(little, text, atol=1e-3)
         assert inst.query("SYST:ERR?").startswith("0,")
-    finally:
-        inst.close()
-        rm.close()
 
 
 def _whole_family(name: str) -> SimBenchDescription:
@@ -195,14 +205,9 @@ def test_its_source_applies_a_setting_late_unless_synchronised(whole_farrowmere)
     """Over pyvisa: the query answers the new frequency at once, the output keeps the old one
     while OPERation bit 1 (SCPI-99 SETTling) is set; *OPC then *ESR? bit 0 (IEEE 488.2-1992,
     10.18; from memory) is set only once the output has it."""
-    import pyvisa
-
     clock = whole_farrowmere.clock
     source = whole_farrowmere.instruments["rf2"]
-    rm = pyvisa.ResourceManager("@py")
-    inst = rm.open_resource(whole_farrowmere.resources["rf2"], read_termination="\n",
-                            write_termination="\n", timeout=2000)
-    try:
+    with _session(whole_farrowmere.resources["rf2"]) as inst:
         inst.write("*RST;*CLS")
         inst.write("SOUR:FREQ 2.5E9")
         assert float(inst.query("SOUR:FREQ?")) == 2.5e9
@@ -214,22 +219,14 @@ def test_its_source_applies_a_setting_late_unless_synchronised(whole_farrowmere)
         assert int(inst.query("*ESR?")) & 1
         assert source.freq_hz == 2.5e9 and int(inst.query("STAT:OPER:COND?")) == 0
         assert inst.query("SYST:ERR?").startswith("0,")
-    finally:
-        inst.close()
-        rm.close()
 
 
 def test_its_meter_needs_status_polling_not_opc_to_finish_a_zeroing(whole_farrowmere) -> None:
     """Over pyvisa: after CAL:AUTO ONCE a *OPC? answers 1 at once while the zeroing still runs
     (a reading then is refused, -230); OPERation bit 0 (SCPI-99 CALibrating) says when it
     ends, and only then is a reading given (docs/instruments.md, FR-PM4)."""
-    import pyvisa
-
     clock = whole_farrowmere.clock
-    rm = pyvisa.ResourceManager("@py")
-    inst = rm.open_resource(whole_farrowmere.resources["pm"], read_termination="\n",
-                            write_termination="\n", timeout=2000)
-    try:
+    with _session(whole_farrowmere.resources["pm"]) as inst:
         inst.write("*CLS")
         inst.write("CAL:AUTO ONCE")
         started = clock.now()
@@ -242,9 +239,6 @@ def test_its_meter_needs_status_polling_not_opc_to_finish_a_zeroing(whole_farrow
         assert 3.9 <= clock.now() - started <= 4.6
         assert float(inst.query("MEAS?")) < 9e37
         assert inst.query("SYST:ERR?").startswith("0,")
-    finally:
-        inst.close()
-        rm.close()
 
 
 def test_the_probe_on_a_served_bench_file_waits_on_the_simulators_clock(
@@ -264,16 +258,11 @@ def test_the_probe_on_a_served_bench_file_waits_on_the_simulators_clock(
 def test_its_sweeps_are_slower_and_it_says_so(farrowmere) -> None:
     """``SWEep:TIME?`` over pyvisa: 1.6 times the receiver's k·span/RBW² (the TW-SA13's), and
     a sweep holds ``*OPC?`` that long in simulated time."""
-    import pyvisa
-
     from sweeprig.sim.analyzer_display import sweep_time_s
     from sweeprig.sim.instruments.analyzer_fr import SWEEP_TIME_SCALE_FR
 
     analyzer = farrowmere.instruments["sa"]
-    rm = pyvisa.ResourceManager("@py")
-    inst = rm.open_resource(farrowmere.resources["sa"], read_termination="\n",
-                            write_termination="\n", timeout=2000)
-    try:
+    with _session(farrowmere.resources["sa"]) as inst:
         inst.write("*RST;:INIT:CONT OFF;:FREQ:SPAN 1E6;:BWID 1E3")
         stated = float(inst.query("SWE:TIME?"))
         assert stated == pytest.approx(SWEEP_TIME_SCALE_FR
@@ -282,6 +271,3 @@ def test_its_sweeps_are_slower_and_it_says_so(farrowmere) -> None:
         inst.write("INIT:IMM")
         assert inst.query("*OPC?").strip() == "1"
         assert farrowmere.clock.now() - t0 == pytest.approx(stated, rel=1e-3)
-    finally:
-        inst.close()
-        rm.close()
