@@ -453,6 +453,12 @@ class BenchWorker:
                 self.queue.run(self.queue.jobs.unregister_worker(self._worker_id))
             self._worker_id = None
         if self._bench_conn is not None:
+            # Unlocked explicitly before the close: a closed connection's server process
+            # frees its advisory locks only as it exits, a moment later, so a worker started
+            # right after a clean stop could be refused the bench meanwhile.
+            with suppress(Exception):
+                self._bench_conn.execute("SELECT pg_advisory_unlock(%s, %s)",
+                                         (BENCH_LOCK_SPACE, _int4(zlib.crc32(self.name.encode()))))
             with suppress(Exception):
                 self._bench_conn.close()
             self._bench_conn = None

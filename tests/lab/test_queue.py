@@ -8,7 +8,7 @@ from typer.testing import CliRunner
 
 from sweeprig.cli.main import app
 from sweeprig.lab.queue import LabQueue
-from sweeprig.lab.worker import BenchWorker
+from sweeprig.lab.worker import BENCH_LOCK_SPACE, BenchWorker
 from sweeprig.store.postgres import PostgresRunStore
 
 
@@ -105,3 +105,19 @@ def test_one_worker_per_bench(pg_url, served_bench, tmp_path):
         assert result.exit_code == 2 and "already serves bench 'b1'" in result.output
     finally:
         first.close()
+
+
+def test_a_bench_is_free_for_the_next_worker_as_soon_as_one_stops(pg_url, served_bench):
+    """A clean stop releases the bench's lock itself: closing the connection alone frees it
+    only as its server process exits, a moment later, so the next worker could be refused
+    meanwhile. Looked at from a session already open, at once after each stop."""
+    bench = served_bench("b1")
+    with psycopg.connect(pg_url, autocommit=True) as observer:
+        for _ in range(5):
+            worker = BenchWorker(pg_url, bench, name="b1", once=True, say=lambda _m: None)
+            worker._hold_bench()
+            worker.close()
+            held = observer.execute("SELECT count(*) FROM pg_locks WHERE locktype = 'advisory' "
+                                    "AND classid = %s AND granted",
+                                    (BENCH_LOCK_SPACE,)).fetchone()[0]
+            assert held == 0
