@@ -1061,9 +1061,38 @@ def _note_block(ax: Axes, notes: Sequence[tuple[str, str]], loc: str = "lower le
                 bbox={"facecolor": "white", "edgecolor": "none", "alpha": 0.75, "pad": 0.6})
 
 
+def _outer_labels(fig: MplFigure) -> None:
+    """In a grid of panels that all carry the same axis title, keep the x title on the lowest
+    panel of each column and the y title on the leftmost panel of each row: the same words
+    once per row or column instead of once per panel (each text costs its layout and glyphs
+    at every draw)."""
+    panels = [ax for ax in fig.axes if ax.get_visible() and ax.get_subplotspec() is not None
+              and ax.get_label() != "<colorbar>"]
+    if len(panels) < 2:
+        return
+    cells = {ax: ax.get_subplotspec().get_topmost_subplotspec() for ax in panels}
+    for axis in ("x", "y"):
+        texts = {ax.get_xlabel() if axis == "x" else ax.get_ylabel() for ax in panels}
+        if len(texts) != 1 or texts == {""}:
+            continue
+        for ax in panels:
+            rows, cols = cells[ax].rowspan, cells[ax].colspan
+            if axis == "x":
+                covered = any(cells[o].rowspan.start >= rows.stop and
+                              cells[o].colspan.start == cols.start for o in panels)
+                if covered:
+                    ax.set_xlabel("")
+            else:
+                covered = any(cells[o].colspan.stop <= cols.start and
+                              cells[o].rowspan.start == rows.start for o in panels)
+                if covered:
+                    ax.set_ylabel("")
+
+
 def _finish(fig: MplFigure, key: str, title: str, caption: str, *,
             corners: Sequence[str] = (), corner_keys: Sequence[str] = (),
             studies: Sequence[str] = ()) -> Plot:
+    _outer_labels(fig)
     buffer = io.BytesIO()
     # zlib level 3: as small as the default level 6 for these flat-coloured images (within
     # 3 %), in about 60 % of the time (measured on the 10k-point report's plots)
@@ -1131,7 +1160,7 @@ LINE_COLUMNS = 1200
 #: What a dense line means, for the captions.
 DENSE_SENTENCE = (f" A line of more than {MARKER_POINTS} points is drawn without markers, "
                   "through the first, last, lowest and highest point of each pixel column "
-                  "(the same picture, drawn from fewer vertices).")
+                  "(its extremes in every column kept: the picture of every point).")
 
 
 def line_vertices(x: np.ndarray, y: np.ndarray, columns: int = LINE_COLUMNS) -> np.ndarray:
@@ -1142,7 +1171,9 @@ def line_vertices(x: np.ndarray, y: np.ndarray, columns: int = LINE_COLUMNS) -> 
 
     The per-column first/last/min/max reduction is the M4 aggregation (Jugel et al., "M4: a
     visualization-oriented time series data aggregation", Proc. VLDB Endowment 7(10), 2014):
-    a line rasterised from those four points per column is the line drawn from every point.
+    a line rasterised from those four points per column keeps every column's extremes, so it
+    is the line drawn from every point up to antialiasing (checked in the tests: under 1 % of
+    the pixels differ by more than a quarter of full scale).
     """
     x = np.asarray(x, dtype=float)
     y = np.asarray(y, dtype=float)
