@@ -241,9 +241,12 @@ def test_a_dense_frequency_line_has_no_markers_and_its_caption_says_so():
     assert "without markers" in DENSE_SENTENCE
 
 
-def test_panels_of_a_grid_share_their_axis_titles_on_the_outer_edge():
+def test_panels_of_a_grid_share_their_axis_titles_on_the_outer_edge(monkeypatch):
+    from matplotlib.figure import Figure as MplFigure
+
     from sweeprig.report.plots import _finish, _grid
 
+    monkeypatch.setattr(MplFigure, "savefig", lambda self, buffer, **kwargs: None)
     fig, axes = _grid(5, height_in=6.0, single_height_in=4.0)
     for ax in axes:
         ax.plot([0, 1], [0, 1])
@@ -253,3 +256,32 @@ def test_panels_of_a_grid_share_their_axis_titles_on_the_outer_edge():
     # 2 rows of 3, the last cell hidden: the third panel of row 1 keeps its x title
     assert [ax.get_xlabel() != "" for ax in axes] == [False, False, True, True, True]
     assert [ax.get_ylabel() != "" for ax in axes] == [True, False, False, True, False]
+
+
+def test_a_noise_figure_line_of_many_frequencies_shades_its_uncertainty(monkeypatch):
+    """More than MARKER_POINTS frequencies: the k = 2 uncertainty is a shaded band instead of
+    merged bars, the caption says so; a flagged figure keeps its cross."""
+    import types
+
+    import pandas as pd
+    from matplotlib.figure import Figure as MplFigure
+
+    from sweeprig.report import noise_plot
+    from sweeprig.report.plots import MARKER_POINTS
+
+    count = MARKER_POINTS + 80
+    frame = pd.DataFrame({
+        "value": np.linspace(9.0, 11.0, count), "uncertainty_db": 0.5,
+        "flags": [("noise_limited",) if k == 40 else () for k in range(count)],
+        "temperature_c": 25.0, "lo_power_dbm": 0.0,
+        "rf_freq_hz": np.linspace(1.7e9, 2.7e9, count), "study": "nf"})
+    monkeypatch.setattr(noise_plot, "figure_frame", lambda run, name: frame)
+    drawn: list[MplFigure] = []
+    monkeypatch.setattr(MplFigure, "savefig", lambda self, buffer, **kw: drawn.append(self))
+    plot = noise_plot.noise_figure_plot(types.SimpleNamespace(limits=()))  # type: ignore[arg-type]
+    assert plot is not None and "shaded instead of barred" in plot.caption
+    ax_f = drawn[0].axes[0]
+    assert len(ax_f.collections) == 1  # the band, no error bars
+    line, cross = ax_f.lines
+    assert line.get_marker() in ("None", "none", None, "")
+    assert cross.get_marker() == "x" and len(cross.get_xdata()) == 1
