@@ -11,13 +11,17 @@ import pandas as pd
 
 from sweeprig.analysis.reduce import RunFigures
 from sweeprig.report.plots import (
+    DENSE_SENTENCE,
     LINE_STYLES,
+    MARKER_POINTS,
     Plot,
     _corners,
     _figure,
     _finish,
     _legend,
     _limit_lines,
+    _line,
+    _one_per_pixel,
     figure_frame,
     temperature_colour,
 )
@@ -47,16 +51,28 @@ def noise_figure_plot(run: RunFigures) -> Plot | None:
     sideband = "/".join(sorted({str(s).upper() for s in table["sideband"]}))
     fig, (ax_f, ax_lo) = _figure(1, 2, height_in=4.2)
     drives = sorted(table["lo_power_dbm"].dropna().unique())
+    dense = False
     for (temp, lo), rows in table.groupby(["temperature_c", "lo_power_dbm"], dropna=False):
         rows = rows.sort_values("rf_freq_hz")
         t = float(temp) if math.isfinite(float(temp)) else None
         style = LINE_STYLES[drives.index(lo) % len(LINE_STYLES)] if lo in drives else "-"
         label = (f"{t:g} °C, " if t is not None else "") + f"LO {float(lo):+g} dBm"
-        ax_f.errorbar(rows["rf_freq_hz"] / 1e9, rows["value"], yerr=rows["u"],
-                      linestyle=style, marker="o", markersize=3, linewidth=1.2, capsize=2,
-                      color=temperature_colour(t), label=label)
+        colour = temperature_colour(t)
+        if len(rows) > MARKER_POINTS:  # bars would merge into a band: draw the band
+            dense = True
+            freq_ghz = rows["rf_freq_hz"].to_numpy(dtype=float) / 1e9
+            value, u = rows["value"].to_numpy(dtype=float), rows["u"].to_numpy(dtype=float)
+            ax_f.fill_between(freq_ghz, value - u, value + u, color=colour, alpha=0.18,
+                              linewidth=0)
+            _line(ax_f, freq_ghz, value, linestyle=style, linewidth=1.2, color=colour,
+                  label=label)
+        else:
+            ax_f.errorbar(rows["rf_freq_hz"] / 1e9, rows["value"], yerr=rows["u"],
+                          linestyle=style, marker="o", markersize=3, linewidth=1.2,
+                          capsize=2, color=colour, label=label)
         flagged = rows[rows["flagged"]]
         if len(flagged):
+            flagged = _one_per_pixel(flagged, x="rf_freq_hz", y="value", by=("flagged",))
             ax_f.plot(flagged["rf_freq_hz"] / 1e9, flagged["value"], "x", color="black",
                       markersize=6, linestyle="none")
     for temp, rows in table.groupby("temperature_c", dropna=False):
@@ -78,6 +94,9 @@ def noise_figure_plot(run: RunFigures) -> Plot | None:
                    "uncertainty (k = 2) from the ENR, mismatch, linearity, second-stage and "
                    "jitter terms; ×: flagged (see the flags). Right: the band's mean versus "
                    "LO drive, one line per temperature; a switching mixer's noise figure rises "
-                   "as its LO drive falls.",
+                   "as its LO drive falls."
+                   + (" Where a line has more than "
+                      f"{MARKER_POINTS} frequencies its uncertainty is shaded instead of barred."
+                      + DENSE_SENTENCE if dense else ""),
                    corners=_corners(table, ("temperature_c", "lo_power_dbm")),
                    corner_keys=("temperature_c", "lo_power_dbm"), studies=studies)

@@ -5,8 +5,11 @@ Run with ``pytest -m perf tests/perf/test_perf_plots.py -s``. Each size gets a s
 the run (not timed) and then draws every plot (:func:`sweeprig.report.plots.all_plots`, what
 the report embeds), so the figures are the plots' own:
 
-- wall and CPU time of ``all_plots``, against the target of issue 14 (the plots a small
-  constant share of the report: 1.5 s at 10k, 100k and 1M points; printed, not asserted);
+- wall and CPU time of ``all_plots``, the median of 3 drawings in that process (the first,
+  which pays matplotlib's first-use costs such as loading the fonts, printed too), against
+  the target of issue 14 (the plots a small constant share of the report: 1.5 s at 100k
+  points, met or MISSED; the 10k and 1M figures against the same 1.5 s; printed, not
+  asserted);
 - the resident peak while drawing (Linux: the peak is reset through ``/proc/self/clear_refs``
   just before, so it is the run's data plus what the plots add), the resident size before,
   and the difference, which should not grow with the number of points;
@@ -21,6 +24,7 @@ from __future__ import annotations
 import contextlib
 import json
 import os
+import statistics
 import sys
 import time
 from pathlib import Path
@@ -29,8 +33,11 @@ import pytest
 from synthetic_store import run_child, timed_store, verdict
 
 SCRIPT = Path(__file__).resolve()
-#: Issue 14: the plots a small constant share of the report, aimed at 1.5 s at every size.
+#: Issue 14: the plots' share of the report's 8 s at 100k points, set at 1.5 s (aimed at every
+#: size: the time should not grow with the points).
 TARGET_S = 1.5
+#: Drawings per process; the median is the figure.
+REPEATS = 3
 SIZES = (10_000, 100_000, 1_000_000)
 
 
@@ -61,11 +68,16 @@ def draw_plots(path: str, run_id: str) -> dict[str, float]:
     before_mb = _status_mb("VmRSS")
     with contextlib.suppress(OSError):  # Linux: reset the resident peak
         Path("/proc/self/clear_refs").write_text("5")
-    start, cpu_start = time.perf_counter(), time.process_time()
-    plots = all_plots(run)
-    seconds, cpu_s = time.perf_counter() - start, time.process_time() - cpu_start
+    walls: list[float] = []
+    cpus: list[float] = []
+    for _ in range(REPEATS):  # all_plots lets go of what it shared: each drawing starts afresh
+        start, cpu_start = time.perf_counter(), time.process_time()
+        plots = all_plots(run)
+        walls.append(time.perf_counter() - start)
+        cpus.append(time.process_time() - cpu_start)
     peak_mb = _status_mb("VmHWM")
-    return {"seconds": seconds, "cpu_s": cpu_s, "before_mb": before_mb, "peak_mb": peak_mb,
+    return {"seconds": statistics.median(walls), "first_s": walls[0],
+            "cpu_s": statistics.median(cpus), "before_mb": before_mb, "peak_mb": peak_mb,
             "plots": float(len(plots)), "png_kb": sum(len(p.png) for p in plots) / 1024.0,
             "figures": float(len(run.figures))}
 
@@ -84,12 +96,15 @@ def test_perf_plots_of_a_large_run(points: int, tmp_path: Path) -> None:
     result = run_child(SCRIPT, "plots", str(store), str(int(made["run_id"])))
     load_after = os.getloadavg()[0]
     print(f"\nplots of {made['points']:.0f} points ({result['figures']:.0f} figures, "
-          f"{result['plots']:.0f} plots, {result['png_kb']:.0f} kB of PNG): "
-          f"{result['seconds']:.2f} s wall: {verdict(result['seconds'], TARGET_S)} against "
-          f"{TARGET_S} s; {result['cpu_s']:.2f} s CPU: {verdict(result['cpu_s'], TARGET_S)}; "
+          f"{result['plots']:.0f} plots, {result['png_kb']:.0f} kB of PNG), median of "
+          f"{REPEATS}: {result['seconds']:.2f} s wall: {verdict(result['seconds'], TARGET_S)} "
+          f"against {TARGET_S} s (the first drawing {result['first_s']:.2f} s); "
+          f"{result['cpu_s']:.2f} s CPU: {verdict(result['cpu_s'], TARGET_S)}; "
           f"resident {result['before_mb']:.0f} MB before, peak {result['peak_mb']:.0f} MB "
           f"while drawing ({result['peak_mb'] - result['before_mb']:+.0f} MB for the plots); "
-          f"load average {load:.1f} before, {load_after:.1f} after, on {os.cpu_count()} cores")
+          f"load average {load:.1f} before, {load_after:.1f} after, on {os.cpu_count()} cores"
+          + (" (a loaded machine: the times are inflated)"
+             if max(load, load_after) > 0.5 * (os.cpu_count() or 1) else ""))
 
 
 if __name__ == "__main__":

@@ -177,3 +177,111 @@ def test_a_plot_that_summarises_frequencies_says_so_in_its_caption(monkeypatch):
     for plot in made.values():
         assert {c.split("|")[0] for c in plot.corners} == {"temperature_c=25",
                                                            "temperature_c=85"}, plot.key
+
+
+def _line_pixels(x: np.ndarray, y: np.ndarray, y_range: tuple[float, float]) -> np.ndarray:
+    """A black line drawn over a whole 600 × 300 px Agg canvas, as RGB integers."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure as MplFigure
+
+    fig = MplFigure(figsize=(6, 3), dpi=100)
+    FigureCanvasAgg(fig)
+    ax = fig.add_axes((0, 0, 1, 1))
+    ax.set_axis_off()
+    ax.plot(x, y, color="black", linewidth=1.4)
+    ax.set_xlim(0.0, 1.0)
+    ax.set_ylim(*y_range)
+    fig.canvas.draw()
+    return np.asarray(fig.canvas.buffer_rgba())[..., :3].astype(int)
+
+
+def test_a_dense_line_is_drawn_from_its_extremes_per_pixel_column_and_looks_the_same():
+    """M4 (Jugel et al., Proc. VLDB Endowment 7(10), 2014): the first, last, lowest and
+    highest point of each pixel column draw the line of every point; a break (NaN) stays a
+    break."""
+    from sweeprig.report.plots import line_vertices
+
+    rng = np.random.default_rng(1)
+    x = np.sort(rng.uniform(0.0, 1.0, 20_000))
+    y = np.cumsum(rng.normal(size=x.size))
+    y[5_000:5_003] = np.nan
+    kept = line_vertices(x, y)
+    assert kept.size < x.size / 3
+    assert {0, x.size - 1, 5_000, 5_001, 5_002, 4_999, 5_003} <= set(kept.tolist())
+    assert int(np.nanargmax(y)) in kept and int(np.nanargmin(y)) in kept
+    y_range = (float(np.nanmin(y)) - 1.0, float(np.nanmax(y)) + 1.0)
+    every, reduced = _line_pixels(x, y, y_range), _line_pixels(x[kept], y[kept], y_range)
+    differ = np.abs(every - reduced).max(axis=2) > 64
+    assert differ.mean() < 0.01
+    short = np.arange(50.0)
+    assert line_vertices(short, short).tolist() == list(range(50))
+
+
+def test_a_dense_frequency_line_has_no_markers_and_its_caption_says_so():
+    """Figures at 200 input frequencies: the line is drawn without markers (they would merge
+    into a band) and the caption says how it is drawn; bounds keep their triangles."""
+    import pandas as pd
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure as MplFigure
+
+    from sweeprig.report.plots import DENSE_SENTENCE, MARKER_POINTS, _bounded_line
+
+    fig = MplFigure()
+    FigureCanvasAgg(fig)
+    ax = fig.add_subplot()
+    count = 200
+    assert count > MARKER_POINTS
+    bound = np.where(np.arange(count) % 50 == 7, "<", "")
+    rows = pd.DataFrame({"value": np.linspace(30.0, 40.0, count), "bound": bound})
+    _bounded_line(ax, np.linspace(1.8, 2.7, count), rows, colour="#000000", linestyle="-",
+                  label="x")
+    line, triangles = ax.lines
+    assert line.get_marker() in ("None", "none", None, "")
+    assert triangles.get_marker() == "v" and len(triangles.get_xdata()) == 4
+    assert "without markers" in DENSE_SENTENCE
+
+
+def test_panels_of_a_grid_share_their_axis_titles_on_the_outer_edge(monkeypatch):
+    from matplotlib.figure import Figure as MplFigure
+
+    from sweeprig.report.plots import _finish, _grid
+
+    monkeypatch.setattr(MplFigure, "savefig", lambda self, buffer, **kwargs: None)
+    fig, axes = _grid(5, height_in=6.0, single_height_in=4.0)
+    for ax in axes:
+        ax.plot([0, 1], [0, 1])
+        ax.set_xlabel("input power (dBm)")
+        ax.set_ylabel("gain (dB)")
+    _finish(fig, "k", "t", "c")
+    # 2 rows of 3, the last cell hidden: the third panel of row 1 keeps its x title
+    assert [ax.get_xlabel() != "" for ax in axes] == [False, False, True, True, True]
+    assert [ax.get_ylabel() != "" for ax in axes] == [True, False, False, True, False]
+
+
+def test_a_noise_figure_line_of_many_frequencies_shades_its_uncertainty(monkeypatch):
+    """More than MARKER_POINTS frequencies: the k = 2 uncertainty is a shaded band instead of
+    merged bars, the caption says so; a flagged figure keeps its cross."""
+    import types
+
+    import pandas as pd
+    from matplotlib.figure import Figure as MplFigure
+
+    from sweeprig.report import noise_plot
+    from sweeprig.report.plots import MARKER_POINTS
+
+    count = MARKER_POINTS + 80
+    frame = pd.DataFrame({
+        "value": np.linspace(9.0, 11.0, count), "uncertainty_db": 0.5,
+        "flags": [("noise_limited",) if k == 40 else () for k in range(count)],
+        "temperature_c": 25.0, "lo_power_dbm": 0.0,
+        "rf_freq_hz": np.linspace(1.7e9, 2.7e9, count), "study": "nf"})
+    monkeypatch.setattr(noise_plot, "figure_frame", lambda run, name: frame)
+    drawn: list[MplFigure] = []
+    monkeypatch.setattr(MplFigure, "savefig", lambda self, buffer, **kw: drawn.append(self))
+    plot = noise_plot.noise_figure_plot(types.SimpleNamespace(limits=()))  # type: ignore[arg-type]
+    assert plot is not None and "shaded instead of barred" in plot.caption
+    ax_f = drawn[0].axes[0]
+    assert len(ax_f.collections) == 1  # the band, no error bars
+    line, cross = ax_f.lines
+    assert line.get_marker() in ("None", "none", None, "")
+    assert cross.get_marker() == "x" and len(cross.get_xdata()) == 1
