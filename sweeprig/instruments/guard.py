@@ -48,7 +48,7 @@ from sweeprig.errors import SafetyLimitError
 from sweeprig.instruments.limits import OpLimits
 from sweeprig.instruments.profile import VALUE_PLACEHOLDER, Profile, load_all_profiles
 from sweeprig.instruments.scpi_text import Command, commands
-from sweeprig.transport.base import TransactionHook, Transport
+from sweeprig.transport.base import PostedQuery, TransactionHook, Transport
 from sweeprig.units import short_repr
 
 GUARDED_OPS: dict[str, tuple[str, ...]] = {
@@ -388,6 +388,13 @@ class GuardedTransport:
     def query(self, cmd: str, *, timeout_s: float | None = None) -> str:
         self.guard.check(cmd, self.inner.resource)
         return self.inner.query(cmd, timeout_s=timeout_s)
+
+    def post(self, cmd: str) -> PostedQuery:
+        self.guard.check(cmd, self.inner.resource)
+        return self.inner.post(cmd)
+
+    def collect(self, posted: PostedQuery, *, timeout_s: float | None = None) -> str:
+        return self.inner.collect(posted, timeout_s=timeout_s)
 
     def query_binary_floats(self, cmd: str, *, timeout_s: float | None = None) -> np.ndarray:
         self.guard.check(cmd, self.inner.resource)
