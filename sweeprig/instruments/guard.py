@@ -197,6 +197,12 @@ class GuardedDriver(Protocol):
     def op_limits(self, op: str) -> OpLimits: ...
 
 
+#: A message of bare queries only (``*ESR?``, ``:STAT:QUES:COND?;*ESR?``: headers ending in
+#: ``?``, no parameters, no quotes): it sets nothing, so it needs no parsing (the status
+#: reads of every point pass here).
+_QUERIES_ONLY = re.compile(r"[:*A-Za-z0-9]+\?(?:;[:*A-Za-z0-9]+\?)*")
+
+
 class LastStepGuard:
     """Checks outgoing messages for one driver (see the module docstring)."""
 
@@ -218,7 +224,7 @@ class LastStepGuard:
     def check(self, message: str, resource: str) -> None:
         """Raise :class:`SafetyLimitError` if ``message`` would set a level beyond the limits
         or a level the guard cannot read."""
-        if not self.active:
+        if not self.active or _QUERIES_ONLY.fullmatch(message):
             return
         seen: set[tuple[str, tuple[str, ...]]] = set()
         for respect in (True, False):
