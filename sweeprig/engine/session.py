@@ -582,7 +582,7 @@ def _execute(
                 log=(logger.info if logger is not None else lambda _m: None), on_wait=on_wait,
                 eta=EtaTracker(estimate, total, len(resume.done) if resume is not None else 0),
             )
-            points = iter_points(seq, files.bench)
+            points = iter_points(seq, files.bench, planned=files.report.points)
             if resume is not None:
                 skip = resume.done
                 points = (p for p in points if p.index not in skip)
