@@ -385,12 +385,20 @@ class Runner:
                   if not (joins and driver is chamber)]
         probe_c: float | None = None
         failure: InstrumentError | None = None
+        probe = None  # the chamber's probe query, sent after its status query
         try:
             if chamber is not None and joins:
                 probe_c = chamber.probe_temperature_c(status=True)
+            elif chamber is not None:
+                probe = chamber.post_ask("probe")
         except InstrumentError as exc:
             failure = exc
         failure = _finish_all(posted, Driver.finish_status) or failure
+        if probe is not None and chamber is not None:
+            try:
+                probe_c = float(chamber.finish_ask("probe", probe))
+            except InstrumentError as exc:
+                failure = failure or exc
         if failure is not None:
             raise failure
         for role, driver in self._checked_drivers():
@@ -400,7 +408,7 @@ class Runner:
                     where=driver.where(),
                     fix="check the instrument's power; the point is measured again",
                 )
-        if chamber is not None and not joins:
+        if chamber is not None and probe_c is None:
             probe_c = chamber.probe_temperature_c()
         return probe_c
 

@@ -672,6 +672,22 @@ class Driver:
         :meth:`point_status` reads the register unless a later query carried it."""
         self._status_fresh = False
 
+    def post_ask(self, op: str) -> Pending | None:
+        """:meth:`ask` of a plain query operation (no parameter, no command, one text or
+        number reply) in two halves: sent here, read by :meth:`finish_ask`. None when the
+        operation is not that plain (then :meth:`ask` it)."""
+        operation = self.profile.op(op)
+        if operation.spec.value != "none" or operation.commands or len(operation.queries) != 1 \
+                or operation.mask is not None or operation.reply == "real32":
+            return None
+        return self.post_query(operation.queries[0], timeout_s=operation.timeout_s)
+
+    def finish_ask(self, op: str, pending: Pending) -> Any:
+        """The parsed reply of a :meth:`post_ask`."""
+        operation = self.profile.op(op)
+        return self._parse(self.collect(pending), operation.reply or "text",
+                           self.where(operation.queries[0]))
+
     def post_sync(self) -> Pending | None:
         """:meth:`sync` in two halves, so several instruments settle at once: the ``*OPC?``
         (joined with the held settings) is sent here and its reply read by

@@ -184,3 +184,17 @@ def test_a_posted_status_read_serves_a_profile_without_compound_messages_too():
     assert chamber.point_status() == 128 and link.sent == ["*ESR?"]
     chamber.expire_status()
     assert chamber.point_status() == 0 and link.sent == ["*ESR?", "*ESR?"]
+
+
+def test_a_plain_query_can_be_posted_behind_the_status_and_both_replies_are_taken():
+    device = Device()
+    link = FakeTransport(lambda m: "24.5" if m == "THER:PROB?" else device(m))
+    chamber = make_driver("thermal-chamber", "chamber", link)
+    device.esr = 128
+    status = chamber.post_status()
+    probe = chamber.post_ask("probe")
+    assert probe is not None and chamber.post_ask("setpoint") is None  # takes a value
+    chamber.finish_status(status)
+    assert chamber.finish_ask("probe", probe) == pytest.approx(24.5)
+    assert chamber.point_status() == 128  # taken from the posted read: nothing more sent
+    assert link.sent == ["*ESR?", "THER:PROB?"]
