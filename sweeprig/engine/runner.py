@@ -54,6 +54,7 @@ from sweeprig.errors import InputError, InstrumentError, TransportError
 from sweeprig.formats.bench import Bench
 from sweeprig.formats.sequence import AdaptiveSoak, Sequence
 from sweeprig.instruments import AnalyzerDriver, ChamberDriver, Driver, SourceDriver
+from sweeprig.instruments.driver import Pending
 from sweeprig.plan import search_window as sw
 from sweeprig.plan.duration import soak_range_s
 from sweeprig.plan.expand import Point
@@ -368,10 +369,38 @@ class Runner:
     def _checked_drivers(self) -> list[tuple[str, Driver]]:
         return [(role, d) for role, d in self.d.items() if role != "simctl"]
 
-    def _check_resets(self) -> None:
+    def _check_resets(self) -> float | None:
         """Raise :class:`InstrumentReset` if any instrument's power-on bit is set; on a
         compound profile, also raise the errors its event status reports (read once per
-        point, or taken from the point's last query where that carried it)."""
+        point, or taken from the point's last query where that carried it). Returns the
+        chamber's DUT probe temperature (°C; None without a chamber), read in the same
+        message as the chamber's status.
+
+        The status queries go to every instrument before any reply is read, so they answer
+        at once rather than one after another; every reply is read before any error
+        raises."""
+        chamber = self.d.chamber
+        joins = chamber is not None and chamber.compound  # its probe carries its status
+        posted = [(driver, driver.post_status()) for _role, driver in self._checked_drivers()
+                  if not (joins and driver is chamber)]
+        probe_c: float | None = None
+        failure: InstrumentError | None = None
+        probe = None  # the chamber's probe query, sent after its status query
+        try:
+            if chamber is not None and joins:
+                probe_c = chamber.probe_temperature_c(status=True)
+            elif chamber is not None:
+                probe = chamber.post_ask("probe")
+        except InstrumentError as exc:
+            failure = exc
+        failure = _finish_all(posted, Driver.finish_status) or failure
+        if probe is not None and chamber is not None:
+            try:
+                probe_c = float(chamber.finish_ask("probe", probe))
+            except InstrumentError as exc:
+                failure = failure or exc
+        if failure is not None:
+            raise failure
         for role, driver in self._checked_drivers():
             if driver.point_status() & PON_BIT:
                 raise InstrumentReset(
@@ -379,6 +408,9 @@ class Runner:
                     where=driver.where(),
                     fix="check the instrument's power; the point is measured again",
                 )
+        if chamber is not None and probe_c is None:
+            probe_c = chamber.probe_temperature_c()
+        return probe_c
 
     def _event(self, severity: str, kind: str, message: str, point_index: int | None = None,
                details: dict[str, object] | None = None) -> None:
@@ -401,8 +433,10 @@ class Runner:
         records = [self._read(point, reading) for reading in point.readings]
         records = self._agree_offsets(point, records)
         if self.policy.reset_check:
-            self._check_resets()
-        probe_c = self.d.chamber.probe_temperature_c() if self.d.chamber is not None else None
+            probe_c = self._check_resets()
+        else:
+            probe_c = (self.d.chamber.probe_temperature_c() if self.d.chamber is not None
+                       else None)
         current_a = next((r.extra["current_a"] for r in records if "current_a" in r.extra), None)
         record = PointRecord(
             index=point.index,
@@ -614,22 +648,32 @@ class Runner:
                 ("rf", point.rf_freq_hz, point.rf_power_dbm, "rf")]
         if point.rf2_freq_hz is not None and point.rf2_power_dbm is not None:
             plan.append(("rf2", point.rf2_freq_hz, point.rf2_power_dbm, "rf2"))
-        for role, freq_hz, power_dbm, connection in plan:
-            source = getattr(self.d, role)
-            if source is None:
-                raise InputError(f"the bench has no {role!r} source", where="bench",
-                                 fix=f"add roles.{role} to the bench file")
-            with source.joined():  # the settings and the *OPC? below: one message
-                block = self._tune(source, connection, freq_hz, power_dbm)
-                block |= source.set_output(True)
-                if block:
-                    # Each source proves it has applied its settings before the analyzer
-                    # (another connection) sweeps: *OPC? joined to them where the profile
-                    # allows it (its errors are then read with the point's status, before
-                    # the point is stored), else the error check, whose reply orders things
-                    # the same way.
-                    source.sync()
-            sent |= block
+        posted: list[tuple[Driver, Pending | None]] = []
+        try:
+            for role, freq_hz, power_dbm, connection in plan:
+                source = getattr(self.d, role)
+                if source is None:
+                    raise InputError(f"the bench has no {role!r} source", where="bench",
+                                     fix=f"add roles.{role} to the bench file")
+                with source.joined():  # the settings and the *OPC? below: one message
+                    block = self._tune(source, connection, freq_hz, power_dbm)
+                    block |= source.set_output(True)
+                    if block:
+                        # Each source proves it has applied its settings before the
+                        # analyzer (another connection) sweeps: *OPC? joined to them where
+                        # the profile allows it (its errors are then read with the point's
+                        # status, before the point is stored), else the error check, whose
+                        # reply orders things the same way. The *OPC? replies are read
+                        # below, after every source has its message: the sources settle at
+                        # once, and every one has answered before this method returns.
+                        posted.append((source, source.post_sync()))
+                sent |= block
+        except BaseException:
+            _finish_all(posted, Driver.finish_sync)  # read what is owed; the first error wins
+            raise
+        failure = _finish_all(posted, Driver.finish_sync)
+        if failure is not None:
+            raise failure
         return sent
 
     def _tune(self, source: SourceDriver, connection: str, freq_hz: float,
@@ -1149,3 +1193,16 @@ def soak(clock: Clock, seconds: float, setpoint_c: float, read_probe: Callable[[
                              + (f", probe at {probe:.2f} °C" if probe is not None else "")
                              + f", {_clock_text(left)} left of {_clock_text(seconds)}"})
         clock.sleep(min(left, WAIT_SLICE_S))
+
+
+def _finish_all(posted: list[tuple[Driver, Pending | None]],
+                finish: Callable[[Driver, Pending | None], None]) -> InstrumentError | None:
+    """``finish`` every posted query (each instrument's reply read, in posting order) even
+    when one fails; returns the first failure (None if all went well)."""
+    failure: InstrumentError | None = None
+    for driver, pending in posted:
+        try:
+            finish(driver, pending)
+        except InstrumentError as exc:
+            failure = failure or exc
+    return failure

@@ -451,7 +451,7 @@ def _execute(
     """The run itself, new or resumed (see the module docstring). ``run_lock``: the run's
     lock, already held by a resume (a new run takes its own once recorded); released here."""
     total = count_points(files.sequence)
-    estimate = estimate_duration(files.sequence, files.bench)
+    estimate = estimate_duration(files.sequence, files.bench, planned=files.report.points)
     predicted = estimate.total_s
     store = _open_store(store_path, durable=not files.simulated)
     wall0 = time.monotonic()
@@ -582,7 +582,7 @@ def _execute(
                 log=(logger.info if logger is not None else lambda _m: None), on_wait=on_wait,
                 eta=EtaTracker(estimate, total, len(resume.done) if resume is not None else 0),
             )
-            points = iter_points(seq, files.bench)
+            points = iter_points(seq, files.bench, planned=files.report.points)
             if resume is not None:
                 skip = resume.done
                 points = (p for p in points if p.index not in skip)

@@ -22,8 +22,12 @@ class ChamberDriver(Driver):
         """Air ramp rate, °C/min (if the profile supports it)."""
         return self.set_value("ramp", rate_c_per_min)
 
-    def probe_temperature_c(self) -> float:
-        """DUT probe temperature, °C."""
+    def probe_temperature_c(self, *, status: bool = False) -> float:
+        """DUT probe temperature, °C. ``status``: the event status register is read in the
+        same message where the profile allows it (taken as
+        :meth:`~sweeprig.instruments.driver.Driver.point_status` will read it)."""
+        if status:
+            return float(self.ask_joined(("probe", None), status=True)[0])
         return float(self.ask("probe"))
 
     def air_temperature_c(self) -> float:

@@ -30,6 +30,7 @@ import contextlib
 import math
 from collections import deque
 from collections.abc import Iterator, Mapping
+from dataclasses import dataclass
 from typing import Any, ClassVar
 
 import numpy as np
@@ -40,7 +41,7 @@ from sweeprig.instruments.guard import guard_transport
 from sweeprig.instruments.limits import Bound, OpLimits, profile_limits
 from sweeprig.instruments.profile import DOCS_HINT, Completion, Operation, Profile
 from sweeprig.transport import blocks
-from sweeprig.transport.base import Transport
+from sweeprig.transport.base import PostedQuery, Transport
 
 Value = float | int | bool | str
 """A setting's value: float (in the operation's unit), int, bool, or a choice name."""
@@ -59,6 +60,16 @@ enters the queue (SCPI-99 Vol. 1, chapter 21, from memory)."""
 SAFETY_CAUTION = (
     "caution: too much RF power or supply voltage can destroy the part or the analyzer input"
 )
+
+
+@dataclass(frozen=True)
+class Pending:
+    """A query sent by :meth:`Driver.post_query`, its reply not read yet. ``posted``: the
+    transport's handle (None: the transport asks when collected)."""
+
+    message: str
+    timeout_s: float | None
+    posted: PostedQuery | None
 
 
 class Driver:
@@ -154,6 +165,23 @@ class Driver:
         self.transactions += 1
         self._status_fresh = False
         return self.transport.query(self._joined(cmd), timeout_s=timeout_s)
+
+    def post_query(self, cmd: str, *, timeout_s: float | None = None) -> Pending:
+        """Send query ``cmd`` (after any held commands, in the same message) without waiting
+        for the reply; :meth:`collect` reads it. Other instruments' messages can go out
+        meanwhile, so they work at once (a transport that cannot post queries asks at
+        :meth:`collect` instead)."""
+        self.transactions += 1
+        self._status_fresh = False
+        message = self._joined(cmd)
+        post = getattr(self.transport, "post", None)
+        return Pending(message, timeout_s, None if post is None else post(message))
+
+    def collect(self, pending: Pending) -> str:
+        """The reply to a :meth:`post_query`."""
+        if pending.posted is None:
+            return self.transport.query(pending.message, timeout_s=pending.timeout_s)
+        return self.transport.collect(pending.posted, timeout_s=pending.timeout_s)
 
     @contextlib.contextmanager
     def joined(self) -> Iterator[None]:
@@ -631,6 +659,9 @@ class Driver:
         :meth:`ask_joined`), and error bits raise as :meth:`check_errors` does. Otherwise
         this is :meth:`event_status` (errors are left to :meth:`check_errors`)."""
         if not (self.compound and self.profile.has("event_status")):
+            if self._status_fresh:  # read by the last exchange (finish_status)
+                bits, self._status_bits = self._status_bits, 0
+                return bits
             return self.event_status()
         self.check_errors()
         bits, self._status_bits = self._status_bits, 0
@@ -640,6 +671,62 @@ class Driver:
         """A new point begins: a status read before it says nothing of it, so the point's
         :meth:`point_status` reads the register unless a later query carried it."""
         self._status_fresh = False
+
+    def post_ask(self, op: str) -> Pending | None:
+        """:meth:`ask` of a plain query operation (no parameter, no command, one text or
+        number reply) in two halves: sent here, read by :meth:`finish_ask`. None when the
+        operation is not that plain (then :meth:`ask` it)."""
+        operation = self.profile.op(op)
+        if operation.spec.value != "none" or operation.commands or len(operation.queries) != 1 \
+                or operation.mask is not None or operation.reply == "real32":
+            return None
+        return self.post_query(operation.queries[0], timeout_s=operation.timeout_s)
+
+    def finish_ask(self, op: str, pending: Pending) -> Any:
+        """The parsed reply of a :meth:`post_ask`."""
+        operation = self.profile.op(op)
+        return self._parse(self.collect(pending), operation.reply or "text",
+                           self.where(operation.queries[0]))
+
+    def post_sync(self) -> Pending | None:
+        """:meth:`sync` in two halves, so several instruments settle at once: the ``*OPC?``
+        (joined with the held settings) is sent here and its reply read by
+        :meth:`finish_sync`. Without compound messages the error check runs here, in full,
+        and None is returned."""
+        if not self.compound:
+            self.check_errors()
+            return None
+        opc = self.profile.op("operation_complete")
+        return self.post_query(opc.queries[0], timeout_s=opc.timeout_s)
+
+    def finish_sync(self, pending: Pending | None) -> None:
+        """Read the ``*OPC?`` reply of :meth:`post_sync` (nothing when it returned None)."""
+        if pending is None:
+            return
+        reply = self.collect(pending)
+        cmd = self.profile.op("operation_complete").queries[0]
+        if not blocks.parse_bool(reply, where=self.where(cmd)):
+            raise InstrumentError(
+                f"{cmd} answered {reply!r} instead of 1",
+                where=self.where(cmd),
+                fix="check the instrument's error queue; a setting may have failed",
+            )
+
+    def post_status(self) -> Pending | None:
+        """Send the point's ``*ESR?`` when :meth:`point_status` would have to read it (the
+        last exchange did not carry it); its reply is taken by :meth:`finish_status`, and
+        :meth:`point_status` then sends nothing. None when there is nothing to send."""
+        if not self.profile.has("event_status") or self._status_fresh:
+            return None
+        op = self.profile.op("event_status")
+        return self.post_query(op.queries[0], timeout_s=op.timeout_s)
+
+    def finish_status(self, pending: Pending | None) -> None:
+        """Take the ``*ESR?`` reply of :meth:`post_status` as :meth:`point_status` would."""
+        if pending is None:
+            return
+        reply = self.collect(pending)
+        self._take_status(reply, self.profile.op("event_status").queries[0])
 
     def sync(self) -> None:
         """Prove the instrument has applied everything sent so far before another

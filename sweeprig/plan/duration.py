@@ -150,8 +150,12 @@ def estimate_duration(
     start_temperature_c: float = 23.0,
     sample_limit: int = 500,
     probe_tau_s: float = PROBE_TAU_S,
+    planned: PointBuilder | None = None,
 ) -> DurationEstimate:
     """Predict how long the plan takes on a real bench (see the module docstring).
+
+    ``planned``: a builder of the same sequence and bench holding points already planned
+    (the pre-flight's): the points it keeps are not planned again.
 
     ``command_overhead_s``: time per SCPI command round trip (10 ms: common practice for
     LAN instruments, no single source). ``ramp_c_per_min``: chamber air ramp rate (the
@@ -159,7 +163,8 @@ def estimate_duration(
     the air (:data:`PROBE_TAU_S` when not known).
     """
     lay = layout(sequence)
-    builder = PointBuilder(sequence, bench)
+    builder = (planned if planned is not None and planned.sequence is sequence
+               and planned.bench is bench else PointBuilder(sequence, bench))
     settle = sequence.conditions.settle
     passes = lay.n_temperatures * lay.n_supplies
     studies: list[StudyDuration] = []

@@ -188,20 +188,30 @@ def study_counts(sequence: Sequence) -> dict[str, int]:
     return layout(sequence).study_totals()
 
 
+#: A pre-flight keeps every point it plans for the run when there are at most this many
+#: (about 1.5 kB a point with its readings: some 30 MB), so a point is planned once.
+KEEP_ALL_MAX_POINTS = 20_000
+
+
 class PointBuilder:
     """Builds points by index (keeps the layout and reading planner between calls)."""
 
     def __init__(self, sequence: Sequence, bench: Bench | None,
-                 keep: Collection[int] = ()) -> None:
+                 keep: Collection[int] = (), *, keep_all_if_small: bool = False) -> None:
         """``keep``: indices whose points are kept once built, for a second reader of the
         same points (the pre-flight's settings check and its risk survey plan the same
-        points once; keep few: each kept point holds its readings)."""
+        points once; keep few: each kept point holds its readings). ``keep_all_if_small``:
+        keep every point when there are at most :data:`KEEP_ALL_MAX_POINTS` (the pre-flight
+        plans them all, and the run then takes them as they are)."""
         self.sequence = sequence
+        self.bench = bench
         self.layout = layout(sequence)
         self.planner = ReadingPlanner(sequence, bench)
         self.conversion = sequence.mixing.conversion
         self.lo_side = sequence.mixing.lo_side
-        self._keep = frozenset(keep)
+        self.keeps_all = keep_all_if_small and self.layout.total <= KEEP_ALL_MAX_POINTS
+        self._keep: Collection[int] = (range(self.layout.total) if self.keeps_all
+                                       else frozenset(keep))
         self._kept: dict[int, Point] = {}
 
     def point(self, index: int) -> Point:
@@ -213,6 +223,11 @@ class PointBuilder:
         if index in self._keep:
             self._kept[index] = point
         return point
+
+    def take(self, index: int) -> Point:
+        """The point with ``index``, no longer kept once taken (built if it was not)."""
+        kept = self._kept.pop(index, None)
+        return kept if kept is not None else self._build(index)
 
     def _build(self, index: int) -> Point:
         lay = self.layout
@@ -257,15 +272,25 @@ class PointBuilder:
 
 
 def iter_points(sequence: Sequence, bench: Bench | None = None, *, start: int = 0,
-                stop: int | None = None, max_points: int = DEFAULT_MAX_POINTS
-                ) -> Iterator[Point]:
+                stop: int | None = None, max_points: int = DEFAULT_MAX_POINTS,
+                planned: PointBuilder | None = None) -> Iterator[Point]:
     """Yield points ``start`` .. ``stop``−1 lazily, in index order.
 
     ``bench`` supplies path losses and the analyzer noise figure for the auto analyzer
     settings (without it: 0 dB losses, 24 dB noise figure). Refuses (InputError) a sequence
     above ``max_points``. Resuming at ``start`` costs nothing for the skipped points.
+    ``planned``: a builder of the same sequence and bench that kept its points (the
+    pre-flight's, :attr:`~sweeprig.plan.preflight.PreflightReport.points`): its points are
+    yielded as they are, and each is let go once yielded.
     """
     check_size(sequence, max_points)
+    if planned is not None and planned.keeps_all and planned.sequence is sequence \
+            and planned.bench is bench:
+        builder = planned
+        end = builder.layout.total if stop is None else min(stop, builder.layout.total)
+        for index in range(max(start, 0), end):
+            yield builder.take(index)
+        return
     builder = PointBuilder(sequence, bench)
     end = builder.layout.total if stop is None else min(stop, builder.layout.total)
     for index in range(max(start, 0), end):

@@ -132,6 +132,10 @@ class PreflightReport:
     unpowered): printed by ``check`` and ``plan`` and recorded with the run."""
     risks: RiskSurvey | None = None
     """The planned readings that cannot be trusted, and why (:mod:`sweeprig.plan.risks`)."""
+    points: PointBuilder | None = field(default=None, repr=False, compare=False)
+    """The builder that planned the points checked, keeping them when the run is small
+    enough (:data:`~sweeprig.plan.expand.KEEP_ALL_MAX_POINTS`): the run takes them from it
+    instead of planning every point again (:func:`~sweeprig.plan.expand.iter_points`)."""
 
     @property
     def ok(self) -> bool:
@@ -416,7 +420,8 @@ def check_limits(sequence: Sequence, bench: Bench) -> PreflightReport:
     # the settings check and the risk survey read the same points: planned once
     from sweeprig.plan.risks import survey_indices
 
-    builder = PointBuilder(sequence, bench, keep=survey_indices(lay))
+    builder = PointBuilder(sequence, bench, keep=survey_indices(lay), keep_all_if_small=True)
+    report.points = builder
     settings, notes = reading_settings(sequence, bench, lay, profiles, limits, builder)
     report.notes.extend(notes)
     for found in settings:

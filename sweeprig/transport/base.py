@@ -44,6 +44,17 @@ class Transaction:
 TransactionHook = Callable[[Transaction], None]
 
 
+@dataclass(frozen=True)
+class PostedQuery:
+    """A query sent whose reply is read later (:meth:`Transport.collect`): several
+    instruments then work on their messages at once, as on a bench where each has its own
+    link. ``start_s``/``t0``: wall-clock and ``perf_counter`` start, s (for the bus log)."""
+
+    cmd: str
+    start_s: float
+    t0: float
+
+
 class ReplyTimeout(TransportError):
     """No reply within the timeout.
 
@@ -80,6 +91,18 @@ class Transport(Protocol):
     def query_binary_floats(self, cmd: str, *, timeout_s: float | None = None) -> np.ndarray:
         """Send ``cmd`` and decode the reply, an IEEE 488.2 definite-length block of
         big-endian 32-bit floats (SCPI ``REAL,32`` with ``FORMat:BORDer NORMal``)."""
+        ...
+
+    def post(self, cmd: str) -> PostedQuery:
+        """Send query ``cmd`` without waiting for its reply; :meth:`collect` reads it. Any
+        other exchange on this transport first reads (and logs as discarded) the replies
+        posted and not collected, so a reply is never taken as the answer to a later
+        query."""
+        ...
+
+    def collect(self, posted: PostedQuery, *, timeout_s: float | None = None) -> str:
+        """The reply to ``posted`` (as :meth:`query` returns it); a timeout is handled as
+        :meth:`query` handles it."""
         ...
 
     def close(self) -> None:

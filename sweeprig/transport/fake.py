@@ -18,7 +18,7 @@ import numpy as np
 
 from sweeprig.errors import TransportError
 from sweeprig.transport import blocks
-from sweeprig.transport.base import Transaction, TransactionHook
+from sweeprig.transport.base import PostedQuery, Transaction, TransactionHook
 from sweeprig.transport.settings import DEFAULT_CONNECTION, ConnectionSettings
 
 Handler = Callable[[str], "str | bytes | None"]
@@ -111,6 +111,14 @@ class FakeTransport:
         text = reply.rstrip("\r\n")
         self._record(start, t0, cmd, text)
         return text
+
+    def post(self, cmd: str) -> PostedQuery:
+        """A query whose reply :meth:`collect` reads: the handler answers it then."""
+        return PostedQuery(cmd, time.time(), time.perf_counter())
+
+    def collect(self, posted: PostedQuery, *, timeout_s: float | None = None) -> str:
+        """The reply to ``posted``, as :meth:`query` gives it."""
+        return self.query(posted.cmd, timeout_s=timeout_s)
 
     def query_binary_floats(self, cmd: str, *, timeout_s: float | None = None) -> np.ndarray:
         """Pass ``cmd`` to the handler and decode its reply as a block of floats in the byte

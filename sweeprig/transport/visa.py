@@ -27,7 +27,7 @@ import pyvisa.errors
 
 from sweeprig.errors import TransportError
 from sweeprig.transport.backend import DEFAULT_VISA_LIBRARY, VISA_LIBRARY_ENV
-from sweeprig.transport.base import ReplyTimeout, Transaction, TransactionHook
+from sweeprig.transport.base import PostedQuery, ReplyTimeout, Transaction, TransactionHook
 from sweeprig.transport.resources import visa_spelling
 from sweeprig.transport.resync import ResyncFailed, resynchronise
 from sweeprig.transport.settings import DEFAULT_CONNECTION, ConnectionSettings, SerialSettings
@@ -158,6 +158,8 @@ class VisaTransport:
         self._shared_rm = resource_manager
         self._rm: pyvisa.ResourceManager | None = resource_manager
         self._inst: Any = None
+        #: queries posted (:meth:`post`) whose replies are not read yet, oldest first
+        self._unread: list[PostedQuery] = []
         try:
             self._open()
         except BaseException:
@@ -207,6 +209,7 @@ class VisaTransport:
 
     def reconnect(self) -> None:
         """Close the resource and open it again (keeps the ResourceManager)."""
+        self._unread.clear()  # a new connection owes no replies
         if self._inst is not None:
             _quiet_close(self._inst)
             self._inst = None
@@ -220,14 +223,23 @@ class VisaTransport:
 
     # -- exchanges --------------------------------------------------------------------------
 
-    def _instrument(self, cmd: str) -> Any:
+    def _instrument(self, cmd: str, *, after: list[PostedQuery] | None = None) -> Any:
+        """The open resource, with every posted reply read first (unless ``after`` is the
+        list of unread ones: another posted query may follow them)."""
         if self._inst is None:
             raise TransportError(
                 f"connection is closed (command {cmd!r})",
                 where=self.resource,
                 fix="reconnect before sending",
             )
+        if self._unread and after is not self._unread:
+            self._read_unread()
         return self._inst
+
+    def _read_unread(self) -> None:
+        """Read the replies of posted queries nobody collected (a fault cut the collection
+        short), logging them as discarded: the next exchange then reads its own reply."""
+        self._read_until(None, None)
 
     @contextmanager
     def _timeout(self, timeout_s: float | None) -> Iterator[None]:
@@ -276,6 +288,7 @@ class VisaTransport:
         """Device clear, drain and resynchronise (see :mod:`sweeprig.transport.resync`);
         returns what was done. Raises :class:`TransportError` when the instrument does not
         answer the marked query."""
+        self._unread.clear()  # the drain below reads whatever is owed
         inst = self._instrument("<device clear>")
         try:
             return resynchronise(_RawVisa(inst, self.resource), timeout_s=max(
@@ -310,6 +323,55 @@ class VisaTransport:
         text = reply.rstrip("\r\n")
         self._record(start, t0, cmd, text)
         return text
+
+    def post(self, cmd: str) -> PostedQuery:
+        """Send query ``cmd``; its reply is read by :meth:`collect` (pyvisa's ``query`` is
+        the same write followed by the same read). Several may be posted before their
+        replies are collected."""
+        start, t0 = time.time(), time.perf_counter()
+        try:
+            self._instrument(cmd, after=self._unread).write(cmd)
+        except TransportError:
+            raise
+        except _PYVISA_ERRORS as exc:
+            raise self._fail(start, t0, cmd, exc, None) from exc
+        posted = PostedQuery(cmd, start, t0)
+        self._unread.append(posted)
+        return posted
+
+    def collect(self, posted: PostedQuery, *, timeout_s: float | None = None) -> str:
+        """The reply to ``posted``: replies posted before it and not collected are read
+        first and logged as discarded (replies come back in the order of their queries)."""
+        if not any(p is posted for p in self._unread):
+            raise TransportError(f"the reply to {posted.cmd!r} was already read",
+                                 where=self.resource,
+                                 fix="collect each posted query once (a bug in sweeprig)")
+        text = self._read_until(posted, timeout_s)
+        if text is None:  # pragma: no cover - posted was among the unread
+            raise AssertionError("a posted reply was not found")
+        return text
+
+    def _read_until(self, posted: PostedQuery | None, timeout_s: float | None) -> str | None:
+        """Read the owed replies, oldest first, up to ``posted`` (its reply is returned; the
+        ones before it are logged as discarded) or all of them (``None``)."""
+        while self._unread:
+            oldest = self._unread.pop(0)
+            if self._inst is None:
+                self._unread.clear()
+                raise TransportError(f"connection is closed (command {oldest.cmd!r})",
+                                     where=self.resource, fix="reconnect before sending")
+            try:
+                with self._timeout(timeout_s):
+                    reply = self._inst.read()
+            except _PYVISA_ERRORS as exc:
+                self._unread.clear()  # a resync (or a reconnect) drains what is owed
+                raise self._fail(oldest.start_s, oldest.t0, oldest.cmd, exc, timeout_s) from exc
+            text = reply.rstrip("\r\n")
+            if oldest is posted:
+                self._record(oldest.start_s, oldest.t0, oldest.cmd, text)
+                return text
+            self._record(oldest.start_s, oldest.t0, oldest.cmd, f"<discarded: {text}>")
+        return None
 
     def query_binary_floats(self, cmd: str, *, timeout_s: float | None = None) -> np.ndarray:
         """Send ``cmd`` and decode an IEEE 488.2 definite-length block of floats, in the byte

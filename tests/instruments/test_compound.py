@@ -143,3 +143,58 @@ def test_compound_messages_are_off_unless_a_profile_says_so_and_never_inherited(
     src.set_frequency(1e9)
     src.sync()
     assert link.sent == ["SOUR:FREQ:CW 1000000000", 'SYST:ERR?']
+
+
+def test_a_posted_completion_query_is_read_later_and_a_refusal_raises():
+    src, link, device = _source()
+    with src.joined():
+        src.set_frequency(2.4e9)
+        pending = src.post_sync()
+    assert pending is not None and pending.message == ":SOUR:FREQ:CW 2400000000;*OPC?"
+    src.finish_sync(pending)
+    assert link.sent == [":SOUR:FREQ:CW 2400000000;*OPC?"]
+    refusing = FakeTransport(lambda message: "0")
+    bad = make_driver("scpi-source", "rf", refusing)
+    with pytest.raises(InstrumentError, match="instead of 1"):
+        bad.finish_sync(bad.post_sync())
+    assert device.units[-1] == "*OPC?"
+
+
+def test_a_posted_status_read_is_the_points_status_and_nothing_more_is_sent():
+    src, link, device = _source()
+    device.esr = 128
+    src.finish_status(src.post_status())
+    assert src.post_status() is None  # read already, nothing sent since
+    assert src.point_status() == 128 and link.sent == ["*ESR?"]
+    src.expire_status()
+    device.esr = 16
+    device.errors = ['-222,"Data out of range"']
+    src.finish_status(src.post_status())
+    with pytest.raises(InstrumentError, match="-222"):
+        src.point_status()
+
+
+def test_a_posted_status_read_serves_a_profile_without_compound_messages_too():
+    device = Device()
+    link = FakeTransport(device)
+    chamber = make_driver("thermal-chamber", "chamber", link)
+    assert not chamber.compound
+    device.esr = 128
+    chamber.finish_status(chamber.post_status())
+    assert chamber.point_status() == 128 and link.sent == ["*ESR?"]
+    chamber.expire_status()
+    assert chamber.point_status() == 0 and link.sent == ["*ESR?", "*ESR?"]
+
+
+def test_a_plain_query_can_be_posted_behind_the_status_and_both_replies_are_taken():
+    device = Device()
+    link = FakeTransport(lambda m: "24.5" if m == "THER:PROB?" else device(m))
+    chamber = make_driver("thermal-chamber", "chamber", link)
+    device.esr = 128
+    status = chamber.post_status()
+    probe = chamber.post_ask("probe")
+    assert probe is not None and chamber.post_ask("setpoint") is None  # takes a value
+    chamber.finish_status(status)
+    assert chamber.finish_ask("probe", probe) == pytest.approx(24.5)
+    assert chamber.point_status() == 128  # taken from the posted read: nothing more sent
+    assert link.sent == ["*ESR?", "THER:PROB?"]

@@ -174,6 +174,19 @@ def test_queries_and_binary_queries_are_guarded_too() -> None:
     assert fake.sent == []
 
 
+def test_posted_queries_are_guarded_and_bare_queries_pass_unparsed() -> None:
+    driver, fake = _driver("scpi-source", "rf", "power", 15.0)
+    with pytest.raises(SafetyLimitError):
+        driver.post_query("POW 19;*OPC?")
+    with pytest.raises(SafetyLimitError):
+        driver.query("*ESR?;POW 19")  # one unit that sets: the whole message is parsed
+    with pytest.raises(SafetyLimitError):
+        driver.query("POW 19?")  # a parameter: not a bare query
+    assert fake.sent == []
+    assert driver.collect(driver.post_query(":STAT:QUES:COND?;*ESR?")) == "1"
+    assert driver.transport.guard.checked == 0  # nothing that sets a level went out
+
+
 def test_unguarded_kinds_keep_their_transport_and_guards_do_not_stack() -> None:
     fake = _fake()
     analyzer = make_driver("scpi-analyzer", "sa", fake)

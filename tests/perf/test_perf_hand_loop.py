@@ -47,18 +47,25 @@ class _Counting:
     def __init__(self, session: pyvisa.resources.MessageBasedResource) -> None:
         self.session = session
         self.count = 0
+        self.busy_s = 0.0  # wall time inside its exchanges, s (for the breakdown)
 
     def write(self, command: str) -> None:
         self.count += 1
+        t0 = time.perf_counter()
         self.session.write(command)
+        self.busy_s += time.perf_counter() - t0
 
     def query(self, command: str) -> str:
         self.count += 1
-        return self.session.query(command)
+        t0 = time.perf_counter()
+        reply = self.session.query(command)
+        self.busy_s += time.perf_counter() - t0
+        return reply
 
 
-def _hand_loop(resources: dict[str, str]) -> tuple[float, int, int]:
-    """The hand-written loop; returns (wall s, points, transactions)."""
+def _hand_loop(resources: dict[str, str]) -> tuple[float, int, int, float, float]:
+    """The hand-written loop; returns (wall s, points, transactions, s inside exchanges,
+    s of the point loop alone)."""
     t0 = time.perf_counter()
     rm = pyvisa.ResourceManager("@py")
     opened = {role: rm.open_resource(resources[role], read_termination="\n",
@@ -85,6 +92,7 @@ def _hand_loop(resources: dict[str, str]) -> tuple[float, int, int]:
         s["rf"].write("OUTP ON")
         s["lo"].write("OUTP ON")
         step = (RF_STOP_HZ - RF_START_HZ) / (POINTS - 1)
+        loop_start = time.perf_counter()
         for i in range(POINTS):
             f_rf = RF_START_HZ + i * step
             s["lo"].write(f"FREQ {f_rf - IF_HZ:.0f}")
@@ -95,6 +103,7 @@ def _hand_loop(resources: dict[str, str]) -> tuple[float, int, int]:
             s["sa"].write("INIT")
             s["sa"].query("*OPC?")
             levels.append(float(s["sa"].query("CALC:MARK1:Y?")))
+        loop_s = time.perf_counter() - loop_start
         for role in ("rf", "lo", "dc"):
             s[role].write("OUTP OFF")
         for role in s:
@@ -105,7 +114,8 @@ def _hand_loop(resources: dict[str, str]) -> tuple[float, int, int]:
             session.close()
         rm.close()
     assert len(levels) == POINTS and all(-40 < x < 0 for x in levels), levels
-    return time.perf_counter() - t0, POINTS, sum(c.count for c in s.values())
+    return (time.perf_counter() - t0, POINTS, sum(c.count for c in s.values()),
+            sum(c.busy_s for c in s.values()), loop_s)
 
 
 def _bench_file(folder: Path, resources: dict[str, str]) -> Path:
@@ -117,42 +127,82 @@ def _bench_file(folder: Path, resources: dict[str, str]) -> Path:
 
 
 def _engine(folder: Path, resources: dict[str, str], *, bus_log: bool
-            ) -> tuple[float, int, int | None]:
-    """`sweeprig run` of the same readings; returns (wall s, points, transactions or None)."""
+            ) -> tuple[float, int, int | None, float | None, float]:
+    """`sweeprig run` of the same readings; returns (wall s, points, transactions or None,
+    s inside exchanges or None — these two from the bus log —, s from the first point's
+    start to the last one's start, scaled to all the points: the point loop alone)."""
     store = folder / f"e{time.monotonic_ns()}.sqlite"
     t0 = time.perf_counter()
     outcome = run_sequence(SEQUENCE, _bench_file(folder, resources), store_path=store,
                            bus_log=bus_log)
     wall = time.perf_counter() - t0
     assert outcome.status == "complete", outcome.reason
-    transactions = None
+    with SqliteRunStore(store, create=False) as db:
+        starts = db.points_frame(outcome.run_id)["wall_start"]
+    loop_s = ((starts.iloc[-1] - starts.iloc[0]).total_seconds() * len(starts)
+              / max(len(starts) - 1, 1))
+    transactions, busy_s = None, None
     if bus_log:
         with SqliteRunStore(store, create=False) as db:
             log = db.bus_log(outcome.run_id)
         transactions = len(log)
+        busy_s = sum(r.duration_s for r in log)
         kinds = Counter(f"{r.role} {r.sent.split(' ')[0].split(';')[0]}"
                         f"{'...' if ';' in r.sent else ''}" for r in log)
         print("\nengine transactions by role and first unit (all points, set-up and safe "
               "state included):\n  " + "\n  ".join(f"{n:4d}  {k}"
                                                   for k, n in kinds.most_common()))
-    return wall, outcome.points_done, transactions
+    return wall, outcome.points_done, transactions, busy_s, loop_s
 
 
 def test_engine_against_a_hand_written_loop(tmp_path: Path) -> None:
-    hand_s, engine_s = [], []
+    hand_s, engine_s, hand_busy, hand_loop_s, engine_loop_s = [], [], [], [], []
     with start_sim_bench(clock=VirtualClock()) as sim:
         resources = dict(sim.resources)
-        _, _, engine_tx = _engine(tmp_path, resources, bus_log=True)
+        log_wall, log_n, engine_tx, engine_busy, _ = _engine(tmp_path, resources, bus_log=True)
         hand_tx = 0
         for _ in range(REPEATS):
-            wall, n, hand_tx = _hand_loop(resources)
+            wall, n, hand_tx, busy, loop = _hand_loop(resources)
             hand_s.append(wall / n)
-            wall, n, _ = _engine(tmp_path, resources, bus_log=False)
+            hand_busy.append(busy / n)
+            hand_loop_s.append(loop / n)
+            wall, n, _, _, loop = _engine(tmp_path, resources, bus_log=False)
             engine_s.append(wall / n)
+            engine_loop_s.append(loop / n)
     hand, engine = statistics.median(hand_s), statistics.median(engine_s)
-    assert engine_tx is not None
+    hand_pace, engine_pace = statistics.median(hand_loop_s), statistics.median(engine_loop_s)
+    assert engine_tx is not None and engine_busy is not None
+    time_ratio, tx_ratio = engine / hand, engine_tx / hand_tx
+
+    def verdict(ratio: float) -> str:
+        return "met" if ratio <= 1.0 else "MISSED"
+
     print(f"\nhand loop: {hand * 1e3:.1f} ms/point, {hand_tx / POINTS:.1f} transactions/point; "
           f"sweeprig run: {engine * 1e3:.1f} ms/point, {engine_tx / POINTS:.1f} "
-          f"transactions/point; ratios engine/hand: time {engine / hand:.2f}, transactions "
-          f"{engine_tx / hand_tx:.2f} (floors <= 1.0; {POINTS} points, settle "
-          f"{SETTLE_S * 1e3:.0f} ms, median of {REPEATS}, whole commands incl. connect)")
+          f"transactions/point; ratios engine/hand: time {time_ratio:.2f} "
+          f"({verdict(time_ratio)}), transactions {tx_ratio:.2f} ({verdict(tx_ratio)}) "
+          f"(floors <= 1.0; {POINTS} points, settle {SETTLE_S * 1e3:.0f} ms, median of "
+          f"{REPEATS}, whole commands incl. connect; {_load()})")
+    hand_busy_ms = statistics.median(hand_busy) * 1e3
+    engine_busy_ms = engine_busy / log_n * 1e3
+    log_ms = log_wall / log_n * 1e3
+    hand_rest_ms = hand * 1e3 - SETTLE_S * 1e3 - hand_busy_ms
+    print(f"  where a point goes: hand loop {hand * 1e3:.1f} ms = settle {SETTLE_S * 1e3:.0f} + "
+          f"exchanges {hand_busy_ms:.1f} + the rest {hand_rest_ms:.1f}"
+          f"; sweeprig run (bus-log pass, {log_ms:.1f} ms a point) = settle "
+          f"{SETTLE_S * 1e3:.0f} + exchanges {engine_busy_ms:.1f} (posted queries counted from "
+          f"their sending, so overlapping ones count twice) + the rest "
+          f"{log_ms - SETTLE_S * 1e3 - engine_busy_ms:.1f} (engine, store, set-up and safe "
+          f"state spread over the points)")
+    print(f"  the point loops alone (no start-up, set-up or end; median of {REPEATS}): hand "
+          f"{hand_pace * 1e3:.1f} ms/point, sweeprig run {engine_pace * 1e3:.1f} ms/point, "
+          f"ratio {engine_pace / hand_pace:.2f}; so the run's start and end (file loading, "
+          f"pre-flight, connecting and identifying, the store, the safe state read back) "
+          f"cost {(engine - engine_pace) * POINTS:.2f} s against the hand loop's "
+          f"{(hand - hand_pace) * POINTS:.2f} s")
+
+
+def _load() -> str:
+    import os
+
+    return f"load average {os.getloadavg()[0]:.1f} on {os.cpu_count()} cores"

@@ -111,3 +111,17 @@ def test_adaptive_soak_is_predicted_from_its_minimum_to_its_maximum() -> None:
     assert est.total_s == pytest.approx(fixed.total_s - 2 * 480)
     assert est.total_max_s == pytest.approx(fixed.total_s)
     assert any("adaptive soak" in note for note in est.notes)
+
+
+def test_the_estimate_from_the_pre_flight_s_points_is_the_same() -> None:
+    from sweeprig.formats.bench import load_bench
+    from sweeprig.formats.sequence import load_sequence
+    from sweeprig.plan.preflight import preflight
+
+    root = shipped_sequences_dir()
+    sequence = load_sequence(root / "demo" / "quick.toml")
+    bench = load_bench(root / "benches" / "sim.toml")
+    planned = preflight(sequence, bench).points
+    assert planned is not None
+    assert estimate_duration(sequence, bench, planned=planned) == \
+        estimate_duration(sequence, bench)

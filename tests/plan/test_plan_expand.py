@@ -214,3 +214,20 @@ def test_explicit_analyzer_settings_win() -> None:
                 analyzer={"attenuation": "20 dB"})
     assert a.rbw_hz == next(iter_points(plain)).readings[0].analyzer.rbw_hz
     assert layout(s).total == 1
+
+
+def test_a_run_takes_the_points_its_pre_flight_planned_and_they_are_the_same() -> None:
+    from sweeprig.plan.preflight import preflight
+
+    sequence = load_sequence(ROOT / "sequences" / "demo" / "quick.toml")
+    bench = load_bench(SIM_BENCH)
+    report = preflight(sequence, bench)
+    kept = report.points
+    assert kept is not None and kept.keeps_all
+    taken = list(iter_points(sequence, bench, planned=kept))
+    assert taken == list(iter_points(sequence, bench))  # planned afresh: the same points
+    assert [p.index for p in taken] == list(range(count_points(sequence)))
+    assert not kept._kept  # each let go once taken
+    # a builder of another bench object is not used
+    other = load_bench(SIM_BENCH)
+    assert list(iter_points(sequence, other, planned=kept, stop=2)) == taken[:2]

@@ -97,6 +97,46 @@ def test_pragmas(sqlite_store):
     conn.close()
 
 
+def test_a_durable_store_forces_its_log_now_and_then_not_per_point(sqlite_store, monkeypatch):
+    """Every commit is safe against a crash of the process (WAL, synchronous=NORMAL); the log
+    is forced to disk every SYNC_EVERY_POINTS points or SYNC_EVERY_S, and by any other
+    write, so a power cut loses fewer than SYNC_EVERY_POINTS points, which resume measures
+    again."""
+    import os
+
+    from sweeprig.store import sqlite as sqlite_module
+
+    store = sqlite_store
+    assert store.journal_mode == "wal"
+    assert store._conn.execute("PRAGMA synchronous").fetchone()[0] == 1  # NORMAL
+    forced: list[str] = []
+    real_fsync = os.fsync
+    monkeypatch.setattr(sqlite_module.os, "fsync",
+                        lambda fd: (forced.append("fsync"), real_fsync(fd))[1])
+    monkeypatch.setattr(sqlite_module, "SYNC_EVERY_S", 3600.0)  # only the count decides
+    run_id = _run(store)
+    assert len(forced) == 1  # a run created: forced at once
+    every = sqlite_module.SYNC_EVERY_POINTS
+    for i in range(2 * every):
+        store.write_point(run_id, _point(i), _readings(i))
+    assert len(forced) == 1 + 2  # two groups of points
+    store.write_point(run_id, _point(2 * every), _readings(2 * every))
+    assert len(forced) == 3  # the next group is not forced yet ...
+    store.log_event(run_id, "info", "note", "an event")
+    assert len(forced) == 4  # ... until any other write
+    monkeypatch.setattr(sqlite_module, "SYNC_EVERY_S", 0.0)
+    store.write_point(run_id, _point(2 * every + 1), _readings(2 * every + 1))
+    assert len(forced) == 5  # half a second old (here: any age): forced
+    reopened = _reopen(store)
+    assert len(reopened.points_frame(run_id)) == 2 * every + 2
+    reopened.close()
+    relaxed = SqliteRunStore(store.path.parent / "sim.sqlite", durable=False)
+    assert relaxed._conn.execute("PRAGMA synchronous").fetchone()[0] == 1
+    relaxed.write_point(_run(relaxed), _point(0), _readings(0))
+    relaxed.close()
+    assert len(forced) == 5  # not durable: never forced
+
+
 def test_run_round_trip(store):
     run_id = _run(store)
     store.record_instruments(run_id, [InstrumentRecord("sa", "TCPIP0::127.0.0.1::1::SOCKET",

@@ -122,3 +122,32 @@ def test_resource_keywords_in_any_case_open(loopback):
     spelled = f"tcpip0::127.0.0.1::{server.port}::socket"
     with VisaTransport(spelled, timeout_s=2.0) as t:
         assert t.query("*IDN?") == "Tarnwick Labs,TW-XX1,0042,1.0"
+
+
+def test_posted_queries_are_answered_in_order_and_an_unread_reply_never_answers_a_later_one(
+        loopback):
+    server = loopback(lambda cmd: {"A?": "1", "B?": "2", "C?": "3"}.get(cmd))
+    seen: list[Transaction] = []
+    with VisaTransport(server.resource, timeout_s=2.0, on_transaction=seen.append) as t:
+        first, second = t.post("A?"), t.post("B?")
+        assert t.collect(first) == "1" and t.collect(second) == "2"
+        with pytest.raises(TransportError, match="already read"):
+            t.collect(first)
+        t.post("A?")  # never collected (a fault cut the collection short) ...
+        assert t.query("C?") == "3"  # ... so its reply is read and dropped first
+        late = t.post("B?")
+        t.post("C?")
+        assert t.collect(t.post("A?")) == "1"  # the older replies are read first
+        with pytest.raises(TransportError, match="already read"):
+            t.collect(late)
+    assert [x.sent for x in seen] == ["A?", "B?", "A?", "C?", "B?", "C?", "A?"]
+    assert [x.received for x in seen] == ["1", "2", "<discarded: 1>", "3", "<discarded: 2>",
+                                          "<discarded: 3>", "1"]
+
+
+def test_a_posted_query_that_times_out_is_a_transport_error_and_owes_nothing_after(loopback):
+    server = loopback(_instrument)
+    with VisaTransport(server.resource, timeout_s=0.2) as t:
+        with pytest.raises(TransportError, match="SILENT"):
+            t.collect(t.post("SILENT?"))
+        assert t.query("*IDN?").startswith("Tarnwick")
