@@ -444,13 +444,27 @@ def rf_factors(
     k = len(grid_shape)
     if k == 0 or not tone_amps_list:
         return [rf_factor(amps, cell, max_order, grid_shape) for amps in tone_amps_list]
+    table = order_table(k, max_order)
+    rows = _all_rows(len(table))
+    return [RfFactor(table, row, rows, tuple(grid_shape), converged)
+            for row in rf_factor_rows(tone_amps_list, cell, max_order, grid_shape)]
+
+
+def rf_factor_rows(
+    tone_amps_list: Sequence[Sequence[Sequence[float]]],
+    cell: CellState,
+    max_order: int,
+    grid_shape: tuple[int, ...],
+) -> NDArray[np.complex128]:
+    """The coefficients of :func:`rf_factors` as one array, shape (points, orders): row i
+    holds ``x`` of set i, columns in the order of :func:`order_table` (``grid_shape`` has
+    at least one axis)."""
+    k = len(grid_shape)
     halves = [n // 2 + 1 for n in grid_shape]
     chunk = max(1, _BATCH_POINTS // math.prod(halves))
     idx, conj = _fft_index(tuple(grid_shape), max_order)
-    table = order_table(k, max_order)
-    rows = _all_rows(len(table))
     mirror = np.ix_(*(_mirror_index(n) for n in grid_shape))
-    out: list[RfFactor] = []
+    out = np.empty((len(tone_amps_list), idx.size), dtype=complex)
     for start in range(0, len(tone_amps_list), chunk):
         batch = tone_amps_list[start : start + chunk]
         total: NDArray[np.float64] | float = cell.v_os_rf_v
@@ -466,7 +480,7 @@ def rf_factors(
         if conj.any():
             x[:, conj] = np.conj(x[:, conj])
         x *= 1.0 / math.prod(grid_shape)
-        out += [RfFactor(table, row, rows, tuple(grid_shape), converged) for row in x]
+        out[start : start + len(batch)] = x
     return out
 
 

@@ -103,7 +103,6 @@ from sweeprig.sim.mixer.multitone import (
     lo_factor,
     merge_coincident,
     rf_factor,
-    rf_factors,
     rf_grid_shape,
 )
 from sweeprig.sim.mixer.network import band_magnitude, reflection_magnitude
@@ -114,6 +113,7 @@ from sweeprig.sim.mixer.realism import (
     lo_drive_noise_factor,
     switch_overlap_fraction,
 )
+from sweeprig.sim.mixer.sweep import evaluate_group, sweep_signature
 from sweeprig.sim.mixer.types import (
     MixerResponse,
     OperatingPoint,
@@ -130,6 +130,7 @@ MAX_RF_TONES = 3
 #: signal's gain, so F_SSB = 2·F_DSB ≥ 2 (standard result, field notes: SSB = DSB + 3.01 dB).
 SSB_NOISE_FIGURE_FLOOR_DB = 10.0 * math.log10(2.0)
 _CACHE_LIMIT = 256
+_TABLE_LIMIT = 64  # about 80 kB each for the demo part
 _AMP_BUCKET_DB = 1.0
 
 Conversion = Literal["down", "up"]
@@ -440,6 +441,11 @@ class MixerPart:
     _cache: dict[Any, Any] = field(
         default_factory=dict, init=False, repr=False, compare=False, hash=False
     )
+    #: Sorted line-frequency tables of the sweep path (see sweep._combine), by LO
+    #: frequency, tone frequencies and LO orders: the points of a power sweep share one.
+    _tables: dict[Any, Any] = field(
+        default_factory=dict, init=False, repr=False, compare=False, hash=False
+    )
 
     def __post_init__(self) -> None:
         where = f"mixer part {self.name!r}"
@@ -547,6 +553,11 @@ class MixerPart:
             self._remember(key, state)
         return state
 
+    def _remember_table(self, key: Any, value: Any) -> None:
+        if len(self._tables) >= _TABLE_LIMIT:
+            del self._tables[next(iter(self._tables))]  # the oldest
+        self._tables[key] = value
+
     def _remember(self, key: Any, value: Any) -> None:
         if len(self._cache) >= _CACHE_LIMIT:
             self._cache.clear()
@@ -595,28 +606,31 @@ class MixerPart:
         tone_sets: Sequence[Sequence[ToneInput]],
     ) -> list[MixerResponse]:
         """:meth:`evaluate` for the points of a sweep (one LO and operating point, the
-        input tones changing from point to point), in their order. The transconductor
-        factors of points whose grids have the same size are solved together
-        (:func:`~sweeprig.sim.mixer.multitone.rf_factors`); every response equals the one
-        :meth:`evaluate` gives for that point alone, within rounding."""
+        input tones changing from point to point), in their order.
+
+        Points with the same number of tones and the same source harmonics go through the
+        vectorised path together (:func:`~sweeprig.sim.mixer.sweep.evaluate_group`: their
+        transconductor factors solved per grid shape, and the combination, merge, leakage
+        and floor on the lines of all of them at once); the others, a point with no tone
+        and a part whose bias is off go through :meth:`evaluate`. Every response equals
+        the one :meth:`evaluate` gives for that point alone, within rounding."""
         sets = [tuple(tones) for tones in tone_sets]
         for tones in sets:
             self._check_inputs(lo, tones)
         state = self._state(op)
-        inp = self.input_port
-        prepared: list[_RfPrepared | None] = [None] * len(sets)
-        groups: dict[tuple[int, ...], list[tuple[int, tuple[tuple[float, ...], ...], bool]]] = {}
-        for i, tones in enumerate(sets):
-            if tones:
-                amps = tuple(self.tone_core_amplitudes(t, inp) for t in tones)
-                shape, converged = self._rf_shape(op, amps, state.cell)
-                groups.setdefault(shape, []).append((i, amps, converged))
-        for shape, members in groups.items():
-            factors = rf_factors([m[1] for m in members], state.cell, self.max_rf_order, shape)
-            for (i, amps, converged), factor in zip(members, factors, strict=True):
-                prepared[i] = _RfPrepared(amps, shape, converged, factor)
-        return [self._response(self._evaluate(op, lo, tones, leakage=True, rf=prepared[i]))
-                for i, tones in enumerate(sets)]
+        out: list[MixerResponse | None] = [None] * len(sets)
+        if state.cell.i_ee_a > 0.0:
+            groups: dict[tuple[tuple[float, ...], ...], list[int]] = {}
+            for i, tones in enumerate(sets):
+                if tones:
+                    groups.setdefault(sweep_signature(tones), []).append(i)
+            for members in groups.values():
+                for i, response in zip(members, evaluate_group(
+                        self, op, lo, state, [sets[i] for i in members]), strict=True):
+                    out[i] = response
+        return [response if response is not None
+                else self._response(self._evaluate(op, lo, sets[i], leakage=True))
+                for i, response in enumerate(out)]
 
     def _response(self, ev: _Evaluation) -> MixerResponse:
         return MixerResponse(

@@ -1,0 +1,399 @@
+"""The part's evaluation for the points of a sweep at once: a points axis through the chain.
+
+:meth:`MixerPart.evaluate_many` hands a group of points here: one operating point and LO,
+the same number of input tones at every point with the same source harmonics (dBc), only
+the tones' frequencies, powers and phases changing. What is common to the group is made
+once (the LO factor, the order tables, the LO's own leakage lines); the transconductor
+factors of points with one grid shape are solved together; and the combination of the
+factors, the output port's band edges, the merge of coincident lines, the common-mode IM2
+lines, the leakage paths and the floor run on the lines of all points at once in a ragged
+layout (:mod:`sweeprig.sim.mixer.ragged`: one array per quantity, a segment id per line).
+
+Each response equals the one :meth:`MixerPart.evaluate` gives for its point alone within
+rounding (``tests/sim/test_mixer_fastpath.py`` pins it at 1e-9 dB on random parts and
+points); the one-point path stays the reference. Units as in :mod:`sweeprig.sim.mixer.part`.
+"""
+
+from __future__ import annotations
+
+import itertools
+import math
+from collections.abc import Sequence
+from typing import TYPE_CHECKING
+
+import numpy as np
+from numpy.typing import NDArray
+
+from sweeprig.sim.mixer.multitone import (
+    MERGE_TOL_HZ,
+    combo_tuples,
+    order_table,
+    rf_factor_rows,
+)
+from sweeprig.sim.mixer.ragged import (
+    RaggedLines,
+    add_entry_segments,
+    add_segments,
+    merge_segments,
+    merge_sorted,
+)
+from sweeprig.sim.mixer.realism import LeakPhase, common_mode_im2_rows
+from sweeprig.sim.mixer.types import MixerResponse, OperatingPoint, PortLevels, ToneInput
+
+if TYPE_CHECKING:
+    from sweeprig.sim.mixer.part import MixerPart, PortNetwork, _LoPrepared, _OpState
+
+
+def sweep_signature(tones: Sequence[ToneInput]) -> tuple[tuple[float, ...], ...]:
+    """What the points of one group share: the source harmonics (dBc) of each tone."""
+    return tuple(t.harmonics_dbc for t in tones)
+
+
+def evaluate_group(
+    part: MixerPart, op: OperatingPoint, lo: ToneInput | None, state: _OpState,
+    sets: Sequence[tuple[ToneInput, ...]],
+) -> list[MixerResponse | None]:
+    """Responses of the points ``sets`` (one :func:`sweep_signature`, at least one tone
+    each, a biased core: ``state.cell.i_ee_a > 0``). A point this path cannot take (no core
+    line at all at its output) is None: the caller evaluates it on its own."""
+    cell = state.cell
+    lo_prep = part._lo_prepared(op, lo, state)
+    n_pts, n_tones = len(sets), len(sets[0])
+    n_axes = 1 + n_tones
+    inp = part.input_port
+    amps = [tuple(part.tone_core_amplitudes(t, inp) for t in tones) for tones in sets]
+    freqs = np.array([[t.freq_hz for t in tones] for tones in sets])  # (P, K)
+    powers = np.array([[t.power_dbm for t in tones] for tones in sets])
+    phases = np.array([[t.phase_rad for t in tones] for tones in sets])
+    # transconductor factors, solved together per grid shape
+    x = np.empty((n_pts, len(order_table(n_tones, part.max_rf_order))), dtype=complex)
+    shapes: list[tuple[tuple[int, ...], bool]] = []
+    by_shape: dict[tuple[int, ...], list[int]] = {}
+    for i, a in enumerate(amps):
+        shape = part._rf_shape(op, a, cell)
+        shapes.append(shape)
+        by_shape.setdefault(shape[0], []).append(i)
+    for shape, members in by_shape.items():
+        x[members] = rf_factor_rows([amps[i] for i in members], cell, part.max_rf_order, shape)
+    core = merge_sorted(_combine(part, lo_prep, lo, state, x, freqs, phases))
+    has_core = np.zeros(n_pts, dtype=bool)
+    has_core[core.seg] = True
+    imbalance = part.load_mismatch + lo_prep.d0
+    if part.cm_second_order and imbalance:
+        cm = _common_mode(part, state, sets, amps, imbalance, n_axes)
+        if cm is not None:
+            core = add_segments(core, cm.take(has_core[cm.seg]))
+    leaks = _output_leaks(part, lo, sets, freqs, powers, phases, n_axes)
+    if leaks is not None:
+        core = add_entry_segments(core, leaks.take(has_core[leaks.seg]))
+    output = _levels(part, core, n_pts)
+    inputs, lo_lines = _port_leaks(part, lo, freqs, powers, phases, sets, n_axes)
+    input_levels = _levels(part, merge_segments(inputs), n_pts) if inputs else None
+    lo_levels = _levels(part, merge_segments(lo_lines), n_pts) if lo_lines else None
+    empty = PortLevels(np.zeros(0), np.zeros(0), np.empty(0, dtype=object))
+    common = {
+        "vt_v": cell.vt_v,
+        "tail_current_a": cell.i_ee_a,
+        "gm_s": state.gm_s,
+        "conversion_gain_db": lo_prep.gain_db,
+        "noise_figure_db": lo_prep.noise_figure_db,
+        "lo_grid_n": float(lo_prep.factor.grid_n),
+    }
+    responses: list[MixerResponse | None] = []
+    for i in range(n_pts):
+        if not has_core[i]:
+            responses.append(None)
+            continue
+        shape, converged = shapes[i]
+        notes = dict(common)
+        notes["rf_grid_points"] = float(math.prod(shape))
+        notes["rf_grid_n_max"] = float(max(shape, default=1))
+        notes["grid_converged"] = float(converged and lo_prep.factor.converged)
+        responses.append(MixerResponse(
+            if_port=output[i],
+            rf_port=input_levels[i] if input_levels is not None else empty,
+            lo_port=lo_levels[i] if lo_levels is not None else empty,
+            if_noise_dbm_per_hz=lo_prep.noise_dbm_per_hz,
+            supply_current_a=state.supply_current_a,
+            notes=notes,
+        ))
+    return responses
+
+
+def _sorted_table(
+    fac_orders: NDArray[np.int64], lo_freq: float, rf_row: NDArray[np.float64],
+    n_orders: int, out: PortNetwork | None,
+) -> tuple[NDArray[np.float64], NDArray[np.intp], NDArray[np.intp], NDArray[np.bool_],
+           NDArray[np.float64] | None]:
+    """The frequencies of every (LO order, RF order) pair of one set of tone frequencies
+    (``rf_row[r]``: Σ n_k·f_k of RF order r), sorted (a stable sort: pairs at one
+    frequency keep their table order), with the pairs' LO and RF indices in that order,
+    where the RF order is zero, and the output port's band-edge magnitude there (None
+    without band edges)."""
+    freq = np.add.outer(fac_orders * lo_freq, rf_row).ravel()
+    order = np.argsort(freq, kind="stable")
+    li, pi = np.divmod(order, n_orders)
+    freq = freq[order]
+    band = None if out is None else out.magnitude(freq)
+    for arr in (freq, li, pi, band):
+        if arr is not None:
+            arr.flags.writeable = False
+    zero = pi == 0
+    zero.flags.writeable = False
+    return freq, li, pi, zero, band
+
+
+def _combine(
+    part: MixerPart, lo_prep: _LoPrepared, lo: ToneInput | None, state: _OpState,
+    x: NDArray[np.complex128], freqs: NDArray[np.float64], phases: NDArray[np.float64],
+) -> RaggedLines:
+    """:func:`~sweeprig.sim.mixer.multitone.combine` for every point (rows of ``x``), with
+    the part's pruning limit, scaled to sqrt(W) at the output port and through its band
+    edges (the lines these push 20 dB under the floor dropped, as the one-point path
+    does). The lines come out sorted by (point, frequency), not yet merged.
+
+    The points that share their tone frequencies share the table of line frequencies and
+    band-edge magnitudes, sorted once: each point's lines are the entries of that table
+    its factors make strong enough, read in the table's order, so no sort per point."""
+    fac = lo_prep.factor
+    cell = state.cell
+    i_ee = cell.i_ee_a
+    lo_freq = lo.freq_hz if lo is not None else 0.0
+    lo_phase = lo.phase_rad if lo is not None else 0.0
+    orders = order_table(freqs.shape[1], part.max_rf_order)  # (R, K)
+    n_orders = orders.shape[0]
+    limit = state.min_abs_a / i_ee
+    rf_f = freqs @ orders.T.astype(float)  # (P, R): Σ n_k·f_k, as combine's orders @ f
+    out = part.output_port
+    banded = out.highpass_hz is not None or out.lowpass_hz is not None
+    # |line| ≤ I_EE·bound (bound = |S_m|·|X_n| + |D_m|·[n = 0]), so a line whose bound
+    # through the band edges is under the pre-floor (with a margin for rounding) is one
+    # the one-point path drops too
+    near_limit = math.sqrt(state.prefloor_w * (1.0 - 1e-9)) / (i_ee * state.out_scale)
+    abs_x = np.abs(x)
+    s = fac.s * i_ee
+    d = fac.d * i_ee
+    if lo_phase:
+        turn = np.exp(1j * lo_phase * fac.orders)
+        s, d = s * turn, d * turn
+    if phases.any():
+        x = x * np.exp(1j * (phases @ orders.T.astype(float)))
+    rows: dict[tuple[float, ...], list[int]] = {}
+    for i, row in enumerate(map(tuple, freqs.tolist())):
+        rows.setdefault(row, []).append(i)
+    parts = []
+    tables = []
+    for row, point_list in rows.items():
+        members = np.array(point_list)
+        key = (lo_freq, row, fac.orders.tobytes(), part.max_rf_order)
+        table_u = part._tables.get(key)
+        if table_u is None:
+            table_u = _sorted_table(fac.orders, lo_freq, rf_f[point_list[0]], n_orders,
+                                    out if banded else None)
+            part._remember_table(key, table_u)
+        freq_u, li_u, pi_u, zero_u, band_u = table_u
+        bound = abs_x[members][:, pi_u]
+        bound *= fac.abs_s[li_u]
+        if fac.has_d:
+            bound[:, zero_u] += fac.abs_d[li_u[zero_u]]
+        ok = bound > limit
+        ok &= freq_u > MERGE_TOL_HZ
+        if band_u is not None:
+            bound *= band_u
+            ok &= bound >= near_limit
+        pp, j = ok.nonzero()
+        parts.append((members[pp], j, np.full(j.size, len(parts))))
+        tables.append(table_u)
+    if len(parts) == 1:
+        seg, j = parts[0][0], parts[0][1]
+        freq_u, li_u, pi_u, zero_u, band_u = table_u
+        freq, li, pi, band = freq_u[j], li_u[j], pi_u[j], (None if band_u is None else band_u[j])
+    else:  # points in order, each point's lines in frequency order (as in its table)
+        seg, j, which = (np.concatenate(c) for c in zip(*parts, strict=True))
+        order = np.argsort(seg.astype(np.int16) if seg.max() < (1 << 15) else seg,
+                           kind="stable")
+        seg, j, which = seg[order], j[order], which[order]
+        width = tables[0][0].size
+        flat = which * width + j
+        freq = np.concatenate([t[0] for t in tables])[flat]
+        li = np.concatenate([t[1] for t in tables])[flat]
+        pi = np.concatenate([t[2] for t in tables])[flat]
+        band = None if not banded else np.concatenate([t[4] for t in tables])[flat]
+    amp = s[li] * x[seg, pi]
+    if fac.has_d:
+        at_zero = (pi == 0).nonzero()[0]
+        if at_zero.size:
+            amp[at_zero] += d[li[at_zero]]
+    amp *= state.out_scale
+    if band is not None:
+        amp *= band
+        keep = (amp.real * amp.real + amp.imag * amp.imag) >= state.prefloor_w
+        if not keep.all():
+            seg, li, pi, freq, amp = seg[keep], li[keep], pi[keep], freq[keep], amp[keep]
+    table = combo_tuples(part.max_lo_order, freqs.shape[1], part.max_rf_order)
+    codes = (fac.orders + part.max_lo_order)[li] * table.shape[1] + pi
+    return RaggedLines(seg, freq, amp, table.ravel()[codes])
+
+
+def _common_mode(
+    part: MixerPart, state: _OpState, sets: Sequence[tuple[ToneInput, ...]],
+    amps: list[tuple[tuple[float, ...], ...]], imbalance: float, n_axes: int,
+) -> RaggedLines | None:
+    """The common-mode IM2 lines of every point, at the output port (sqrt(W))."""
+    cell = state.cell
+    layout = tuple(len(a) for a in amps[0])
+    a_v = 2.0 * cell.vt_v + cell.i_ee_a * cell.r_e_ohm
+    f = np.array([[h * t.freq_hz for t, n in zip(tones, layout, strict=True)
+                   for h in range(1, n + 1)] for tones in sets])
+    v = np.array([[c for a in point for c in a] for point in amps])
+    ph = np.array([[h * t.phase_rad for t, n in zip(tones, layout, strict=True)
+                    for h in range(1, n + 1)] for tones in sets])
+    cm = common_mode_im2_rows(f, v, ph, layout, n_axes, cell.i_ee_a, a_v,
+                               part.cm_second_order, imbalance)
+    if cm is None:
+        return None
+    seg, freq, amp, orders = cm
+    amp = amp * state.out_scale
+    out = part.output_port
+    if out.highpass_hz is not None or out.lowpass_hz is not None:
+        amp = amp * out.magnitude(freq)
+    return RaggedLines(seg, freq, amp, orders)
+
+
+def _tone_rows(
+    freq: NDArray[np.float64], power: NDArray[np.float64], phase: NDArray[np.float64],
+    harmonics_dbc: tuple[float, ...], axis: int, n_axes: int, loss_db: float,
+    path: LeakPhase | None = None, slope: tuple[float, float] = (0.0, 1.0),
+) -> tuple[NDArray[np.float64], NDArray[np.complex128], NDArray[np.object_]]:
+    """The part's ``_tone_entries`` for one tone position at every point: frequencies and
+    sqrt(W) amplitudes, shape (P, 1 + harmonics), and the orders of the columns."""
+    from sweeprig.sim.mixer.part import _unit_orders
+
+    mult = np.arange(1, 2 + len(harmonics_dbc), dtype=float)
+    loss = np.full(freq.shape, loss_db)
+    extra = np.zeros(mult.size)
+    if slope[0]:
+        loss = loss_db + slope[0] * np.log2(freq / slope[1])
+        extra[1:] = [slope[0] * math.log2(h) for h in range(2, 2 + len(harmonics_dbc))]
+    root_w = 10.0 ** ((power - loss - 30.0) / 20.0)
+    rel = np.ones(mult.size)
+    rel[1:] = [10.0 ** ((dbc - e) / 20.0) for dbc, e in zip(harmonics_dbc, extra[1:],
+                                                           strict=True)]
+    mag = root_w[:, None] * rel[None, :]
+    mag[:, 0] = root_w
+    ang = phase[:, None] * mult[None, :]
+    amp = mag * np.cos(ang) + 1j * (mag * np.sin(ang))
+    f = freq[:, None] * mult[None, :]
+    f[:, 0] = freq
+    if path is not None and (path.phase_rad or path.delay_s):
+        amp *= np.exp(1j * (path.phase_rad - 2.0 * math.pi * f * path.delay_s))
+    orders = np.empty(mult.size, dtype=object)
+    orders[:] = [_unit_orders(n_axes, axis, h) for h in range(1, mult.size + 1)]
+    return f, amp, orders
+
+
+def _rows_to_ragged(
+    rows: list[tuple[NDArray[np.float64], NDArray[np.complex128], NDArray[np.object_]]],
+    n_pts: int,
+) -> RaggedLines:
+    """Per-point blocks of lines (each (P, n) frequencies and amplitudes, n orders) → one
+    ragged set, each point's lines in the blocks' order."""
+    freq = np.concatenate([r[0] for r in rows], axis=1)
+    amp = np.concatenate([r[1] for r in rows], axis=1)
+    orders = np.concatenate([r[2] for r in rows])
+    width = orders.size
+    return RaggedLines(np.repeat(np.arange(n_pts), width), freq.ravel(), amp.ravel(),
+                       np.tile(orders, n_pts))
+
+
+def _fixed_rows(
+    entries: list[tuple[float, complex, tuple[int, ...]]], n_pts: int,
+) -> tuple[NDArray[np.float64], NDArray[np.complex128], NDArray[np.object_]]:
+    """Lines common to every point (the LO's own paths) as a block of rows."""
+    orders = np.empty(len(entries), dtype=object)
+    orders[:] = [e[2] for e in entries]
+    freq = np.array([e[0] for e in entries], dtype=float)
+    amp = np.array([e[1] for e in entries], dtype=complex)
+    return np.tile(freq, (n_pts, 1)), np.tile(amp, (n_pts, 1)), orders
+
+
+def _tone_blocks(
+    part: MixerPart, sets: Sequence[tuple[ToneInput, ...]], freqs: NDArray[np.float64],
+    powers: NDArray[np.float64], phases: NDArray[np.float64], n_axes: int, loss_db: float,
+    path: LeakPhase | None, slope: tuple[float, float] = (0.0, 1.0),
+) -> list[tuple[NDArray[np.float64], NDArray[np.complex128], NDArray[np.object_]]]:
+    return [_tone_rows(freqs[:, k], powers[:, k], phases[:, k], sets[0][k].harmonics_dbc,
+                       1 + k, n_axes, loss_db, path, slope)
+            for k in range(freqs.shape[1])]
+
+
+def _output_leaks(
+    part: MixerPart, lo: ToneInput | None, sets: Sequence[tuple[ToneInput, ...]],
+    freqs: NDArray[np.float64], powers: NDArray[np.float64], phases: NDArray[np.float64],
+    n_axes: int,
+) -> RaggedLines | None:
+    """The linear paths into the output port (input→output, LO→output), in the order the
+    one-point path adds them."""
+    from sweeprig.sim.mixer.part import _tone_entries
+
+    phs = part.leakage_phases
+    rows = []
+    iso = part.isolation_rf_if_db
+    if iso is not None:
+        rows += _tone_blocks(part, sets, freqs, powers, phases, n_axes, iso, phs.rf_to_if,
+                             part._iso_slope("rf_if"))
+    iso = part.isolation_lo_to_output_db
+    if lo is not None and iso is not None:
+        path = phs.lo_to_if if part.conversion == "down" else phs.lo_to_rf
+        rows.append(_fixed_rows(_tone_entries(lo, 0, n_axes, iso, path, part._iso_slope(
+            "lo_if" if part.conversion == "down" else "lo_rf")), len(sets)))
+    return _rows_to_ragged(rows, len(sets)) if rows else None
+
+
+def _port_leaks(
+    part: MixerPart, lo: ToneInput | None, freqs: NDArray[np.float64],
+    powers: NDArray[np.float64], phases: NDArray[np.float64],
+    sets: Sequence[tuple[ToneInput, ...]], n_axes: int,
+) -> tuple[RaggedLines | None, RaggedLines | None]:
+    """The lines leaving the input port (LO→input, the input reflection) and the LO port
+    (its reflection, input→LO) of every point, unmerged."""
+    from sweeprig.sim.mixer.part import _tone_entries
+
+    phs = part.leakage_phases
+    n_pts = len(sets)
+    inp = part.input_port
+    in_rows = []
+    iso = part.isolation_lo_to_input_db
+    if lo is not None and iso is not None:
+        path = phs.lo_to_rf if part.conversion == "down" else phs.lo_to_if
+        in_rows.append(_fixed_rows(_tone_entries(lo, 0, n_axes, iso, path, part._iso_slope(
+            "lo_rf" if part.conversion == "down" else "lo_if")), n_pts))
+    if inp.return_loss_db is not None:
+        in_rows += _tone_blocks(part, sets, freqs, powers, phases, n_axes,
+                                inp.return_loss_db, phs.input_reflection)
+    lo_rows = []
+    if lo is not None and part.lo_port.return_loss_db is not None:
+        lo_rows.append(_fixed_rows(_tone_entries(lo, 0, n_axes, part.lo_port.return_loss_db,
+                                                 phs.lo_reflection), n_pts))
+    iso = part.isolation_rf_lo_db
+    if iso is not None:
+        lo_rows += _tone_blocks(part, sets, freqs, powers, phases, n_axes, iso, phs.rf_to_lo,
+                                part._iso_slope("rf_lo"))
+    return (_rows_to_ragged(in_rows, n_pts) if in_rows else None,
+            _rows_to_ragged(lo_rows, n_pts) if lo_rows else None)
+
+
+def _levels(part: MixerPart, lines: RaggedLines, n_pts: int) -> list[PortLevels]:
+    """Sorted, merged lines of every point → each point's lines above the floor (dBm)."""
+    power_w = lines.amp.real**2 + lines.amp.imag**2
+    keep = power_w >= 1e-3 * 10.0 ** (part.floor_dbm / 10.0)
+    keep &= power_w > 0.0
+    if not keep.all():
+        power_w = power_w[keep]
+        lines = lines.take(keep)
+    power_dbm = 10.0 * np.log10(power_w * 1e3)
+    at = lines.bounds(n_pts).tolist()
+    freq, orders = lines.freq_hz, lines.orders
+    return [PortLevels(freq[a:b], power_dbm[a:b], orders[a:b])
+            for a, b in itertools.pairwise(at)]
+
