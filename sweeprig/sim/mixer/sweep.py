@@ -26,9 +26,11 @@ from numpy.typing import NDArray
 
 from sweeprig.sim.mixer.multitone import (
     MERGE_TOL_HZ,
+    LoFactor,
     combo_tuples,
     order_table,
     rf_factor_rows,
+    rf_grid_shape,
 )
 from sweeprig.sim.mixer.ragged import (
     RaggedLines,
@@ -56,31 +58,95 @@ def evaluate_group(
     """Responses of the points ``sets`` (one :func:`sweep_signature`, at least one tone
     each, a biased core: ``state.cell.i_ee_a > 0``). A point this path cannot take (no core
     line at all at its output) is None: the caller evaluates it on its own."""
+    # points with the same tone frequencies side by side (they share a line table); the
+    # responses go back in the caller's order at the end
+    by_row: dict[tuple[float, ...], list[int]] = {}
+    for i, tones in enumerate(sets):
+        by_row.setdefault(tuple(t.freq_hz for t in tones), []).append(i)
+    order = [i for members in by_row.values() for i in members]
+    if order != list(range(len(sets))):
+        sets = [sets[i] for i in order]
+    responses = _evaluate_sorted(part, op, lo, state, sets)
+    back: list[MixerResponse | None] = [None] * len(sets)
+    for i, response in zip(order, responses, strict=True):
+        back[i] = response
+    return back
+
+
+def _tone_amplitudes(
+    part: MixerPart, sets: Sequence[tuple[ToneInput, ...]], freqs: NDArray[np.float64],
+    powers: NDArray[np.float64],
+) -> list[NDArray[np.float64]]:
+    """:meth:`MixerPart.tone_core_amplitudes` of every point, one array (P, 1 + harmonics)
+    per tone position (the same arithmetic, element by element)."""
+    port = part.input_port
+    factor = 2.0 * port.resistance_ohm * port.delivered_fraction * 1e-3
+    out = []
+    for k, tone in enumerate(sets[0]):
+        mult = np.arange(1, 2 + len(tone.harmonics_dbc), dtype=float)
+        level = np.empty((len(sets), mult.size))
+        level[:, 0] = powers[:, k]
+        for h, dbc in enumerate(tone.harmonics_dbc, start=1):
+            level[:, h] = powers[:, k] + dbc
+        f = freqs[:, k, None] * mult
+        f[:, 0] = freqs[:, k]
+        mag = np.ones(f.shape)
+        if port.highpass_hz is not None:
+            r = f / port.highpass_hz
+            mag *= r / np.sqrt(1.0 + r * r)
+        if port.lowpass_hz is not None:
+            r = f / port.lowpass_hz
+            mag /= np.sqrt(1.0 + r * r)
+        out.append(np.sqrt(factor * 10.0 ** (level / 10.0)) * mag)
+    return out
+
+
+def _bucket_rows(amps: NDArray[np.float64]) -> NDArray[np.float64]:
+    """The part's ``_bucket_up`` of every amplitude (rounded up to a 1 dB grid)."""
+    from sweeprig.sim.mixer.part import _AMP_BUCKET_DB
+
+    with np.errstate(divide="ignore"):
+        step = np.ceil(20.0 * np.log10(amps) / _AMP_BUCKET_DB)
+    return np.where(amps > 0.0, 10.0 ** (step * _AMP_BUCKET_DB / 20.0), 0.0)
+
+
+def _evaluate_sorted(
+    part: MixerPart, op: OperatingPoint, lo: ToneInput | None, state: _OpState,
+    sets: Sequence[tuple[ToneInput, ...]],
+) -> list[MixerResponse | None]:
+    """:func:`evaluate_group` for points with equal tone frequencies side by side."""
     cell = state.cell
     lo_prep = part._lo_prepared(op, lo, state)
     n_pts, n_tones = len(sets), len(sets[0])
     n_axes = 1 + n_tones
-    inp = part.input_port
-    amps = [tuple(part.tone_core_amplitudes(t, inp) for t in tones) for tones in sets]
     freqs = np.array([[t.freq_hz for t in tones] for tones in sets])  # (P, K)
     powers = np.array([[t.power_dbm for t in tones] for tones in sets])
     phases = np.array([[t.phase_rad for t in tones] for tones in sets])
-    # transconductor factors, solved together per grid shape
+    tone_amps = _tone_amplitudes(part, sets, freqs, powers)
+    # transconductor factors, solved together per grid shape (cached per 1 dB bucket)
     x = np.empty((n_pts, len(order_table(n_tones, part.max_rf_order))), dtype=complex)
+    buckets = np.concatenate([_bucket_rows(a) for a in tone_amps], axis=1).tolist()
+    cuts = np.cumsum([a.shape[1] for a in tone_amps])[:-1].tolist()
     shapes: list[tuple[tuple[int, ...], bool]] = []
     by_shape: dict[tuple[int, ...], list[int]] = {}
-    for i, a in enumerate(amps):
-        shape = part._rf_shape(op, a, cell)
+    for i, row in enumerate(buckets):
+        bucket = tuple(tuple(row[a:b]) for a, b in itertools.pairwise([0, *cuts, len(row)]))
+        key = ("grid", op, bucket)
+        shape = part._cache.get(key)
+        if shape is None:
+            shape = rf_grid_shape(bucket, cell, part.max_rf_order)
+            part._remember(key, shape)
         shapes.append(shape)
         by_shape.setdefault(shape[0], []).append(i)
     for shape, members in by_shape.items():
-        x[members] = rf_factor_rows([amps[i] for i in members], cell, part.max_rf_order, shape)
+        x[members] = rf_factor_rows([a[members] for a in tone_amps], cell, part.max_rf_order,
+                                    shape)
     core = merge_sorted(_combine(part, lo_prep, lo, state, x, freqs, phases))
     has_core = np.zeros(n_pts, dtype=bool)
     has_core[core.seg] = True
     imbalance = part.load_mismatch + lo_prep.d0
     if part.cm_second_order and imbalance:
-        cm = _common_mode(part, state, sets, amps, imbalance, n_axes)
+        cm = _common_mode(part, state, freqs, phases, tone_amps, imbalance, n_axes)
         if cm is not None:
             core = add_segments(core, cm.take(has_core[cm.seg]))
     leaks = _output_leaks(part, lo, sets, freqs, powers, phases, n_axes)
@@ -143,6 +209,27 @@ def _sorted_table(
     return freq, li, pi, zero, band
 
 
+def _entries_within(
+    abs_x: NDArray[np.float64], fac: LoFactor, table: tuple[NDArray, ...], limit: float,
+    near_limit: float,
+) -> tuple[NDArray[np.intp], NDArray[np.intp]]:
+    """The entries of a sorted table (see :func:`_sorted_table`) that the rows of
+    ``abs_x`` (|X_n|, shape (points, R)) make into lines: bound above ``limit``, frequency
+    above the merge tolerance, bound through the band edges at least ``near_limit``; as
+    (row, entry) index arrays."""
+    freq_u, li_u, pi_u, zero_u, band_u = table
+    bound = abs_x[:, pi_u]
+    bound *= fac.abs_s[li_u]
+    if fac.has_d:
+        bound[:, zero_u] += fac.abs_d[li_u[zero_u]]
+    ok = bound > limit
+    ok &= freq_u > MERGE_TOL_HZ
+    if band_u is not None:
+        bound *= band_u
+        ok &= bound >= near_limit
+    return ok.nonzero()
+
+
 def _combine(
     part: MixerPart, lo_prep: _LoPrepared, lo: ToneInput | None, state: _OpState,
     x: NDArray[np.complex128], freqs: NDArray[np.float64], phases: NDArray[np.float64],
@@ -182,8 +269,11 @@ def _combine(
     for i, row in enumerate(map(tuple, freqs.tolist())):
         rows.setdefault(row, []).append(i)
     parts = []
-    tables = []
+    next_point = 0
     for row, point_list in rows.items():
+        if point_list != list(range(next_point, next_point + len(point_list))):
+            raise ValueError("points with equal tone frequencies must be consecutive")
+        next_point += len(point_list)
         members = np.array(point_list)
         key = (lo_freq, row, fac.orders.tobytes(), part.max_rf_order)
         table_u = part._tables.get(key)
@@ -192,33 +282,27 @@ def _combine(
                                     out if banded else None)
             part._remember_table(key, table_u)
         freq_u, li_u, pi_u, zero_u, band_u = table_u
-        bound = abs_x[members][:, pi_u]
-        bound *= fac.abs_s[li_u]
+        ax = abs_x[members]
+        # the table entries that the strongest of these points could make (each point's
+        # bound is at most the bound of the largest |X_n| among them: rounding is monotone)
+        cand = _entries_within(ax.max(axis=0)[None, :], fac, table_u, limit, near_limit)[1]
+        bound = ax[:, pi_u[cand]]
+        bound *= fac.abs_s[li_u[cand]]
         if fac.has_d:
-            bound[:, zero_u] += fac.abs_d[li_u[zero_u]]
+            zero_c = zero_u[cand]
+            bound[:, zero_c] += fac.abs_d[li_u[cand][zero_c]]
         ok = bound > limit
-        ok &= freq_u > MERGE_TOL_HZ
         if band_u is not None:
-            bound *= band_u
+            bound *= band_u[cand]
             ok &= bound >= near_limit
-        pp, j = ok.nonzero()
-        parts.append((members[pp], j, np.full(j.size, len(parts))))
-        tables.append(table_u)
-    if len(parts) == 1:
-        seg, j = parts[0][0], parts[0][1]
-        freq_u, li_u, pi_u, zero_u, band_u = table_u
-        freq, li, pi, band = freq_u[j], li_u[j], pi_u[j], (None if band_u is None else band_u[j])
-    else:  # points in order, each point's lines in frequency order (as in its table)
-        seg, j, which = (np.concatenate(c) for c in zip(*parts, strict=True))
-        order = np.argsort(seg.astype(np.int16) if seg.max() < (1 << 15) else seg,
-                           kind="stable")
-        seg, j, which = seg[order], j[order], which[order]
-        width = tables[0][0].size
-        flat = which * width + j
-        freq = np.concatenate([t[0] for t in tables])[flat]
-        li = np.concatenate([t[1] for t in tables])[flat]
-        pi = np.concatenate([t[2] for t in tables])[flat]
-        band = None if not banded else np.concatenate([t[4] for t in tables])[flat]
+        pp, jj = ok.nonzero()
+        j = cand[jj]
+        parts.append((members[pp], freq_u[j], li_u[j], pi_u[j],
+                      band_u[j] if band_u is not None else None))
+    # the groups are runs of consecutive points (evaluate_group put them so): joined, the
+    # lines are in point order, each point's in frequency order (its table's)
+    seg, freq, li, pi = (np.concatenate([p[c] for p in parts]) for c in range(4))
+    band = np.concatenate([p[4] for p in parts]) if banded else None
     amp = s[li] * x[seg, pi]
     if fac.has_d:
         at_zero = (pi == 0).nonzero()[0]
@@ -236,18 +320,18 @@ def _combine(
 
 
 def _common_mode(
-    part: MixerPart, state: _OpState, sets: Sequence[tuple[ToneInput, ...]],
-    amps: list[tuple[tuple[float, ...], ...]], imbalance: float, n_axes: int,
+    part: MixerPart, state: _OpState, freqs: NDArray[np.float64],
+    phases: NDArray[np.float64], tone_amps: list[NDArray[np.float64]], imbalance: float,
+    n_axes: int,
 ) -> RaggedLines | None:
     """The common-mode IM2 lines of every point, at the output port (sqrt(W))."""
     cell = state.cell
-    layout = tuple(len(a) for a in amps[0])
+    layout = tuple(a.shape[1] for a in tone_amps)
     a_v = 2.0 * cell.vt_v + cell.i_ee_a * cell.r_e_ohm
-    f = np.array([[h * t.freq_hz for t, n in zip(tones, layout, strict=True)
-                   for h in range(1, n + 1)] for tones in sets])
-    v = np.array([[c for a in point for c in a] for point in amps])
-    ph = np.array([[h * t.phase_rad for t, n in zip(tones, layout, strict=True)
-                    for h in range(1, n + 1)] for tones in sets])
+    mults = [np.arange(1, n + 1, dtype=float) for n in layout]
+    f = np.concatenate([freqs[:, k, None] * m for k, m in enumerate(mults)], axis=1)
+    v = np.concatenate(tone_amps, axis=1)
+    ph = np.concatenate([phases[:, k, None] * m for k, m in enumerate(mults)], axis=1)
     cm = common_mode_im2_rows(f, v, ph, layout, n_axes, cell.i_ee_a, a_v,
                                part.cm_second_order, imbalance)
     if cm is None:
