@@ -841,6 +841,8 @@ class MixerPart:
         return PortLevels(lines.freq_hz, 10.0 * np.log10(power_w * 1e3), lines.orders)
 
     def _check_inputs(self, lo: ToneInput | None, tones: tuple[ToneInput, ...]) -> None:
+        if len(tones) <= MAX_RF_TONES and _all_valid(lo, tones):
+            return
         if len(tones) > MAX_RF_TONES:
             raise InputError(
                 f"{len(tones)} input tones; the model takes at most {MAX_RF_TONES}",
@@ -862,6 +864,18 @@ class MixerPart:
                     where=f"mixer part {self.name!r}",
                     fix="give a positive finite frequency and finite power, phase and harmonics",
                 )
+
+
+def _all_valid(lo: ToneInput | None, tones: tuple[ToneInput, ...]) -> bool:
+    """Whether every tone is valid (the quick test of ``_check_inputs``): positive
+    frequencies, and a finite sum of every number (an infinity or NaN anywhere makes the
+    sum infinite or NaN; a sum that overflows sends the caller to the full check)."""
+    total = 0.0
+    for tone in tones if lo is None else (*tones, lo):
+        if not tone.freq_hz > 0.0:
+            return False
+        total += tone.freq_hz + tone.power_dbm + tone.phase_rad + sum(tone.harmonics_dbc)
+    return math.isfinite(total)
 
 
 def _bucket_up(amp_v: float) -> float:
