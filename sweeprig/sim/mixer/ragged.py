@@ -23,12 +23,13 @@ from sweeprig.sim.mixer.multitone import MERGE_TOL_HZ
 @dataclass(frozen=True)
 class RaggedLines:
     """Lines of several points: ``seg`` (point index, int), ``freq_hz``, ``amp``,
-    ``orders``, all of one length. "Sorted" means by (seg, freq_hz)."""
+    ``orders`` (order tuples, or integer codes standing for them), all of one length.
+    "Sorted" means by (seg, freq_hz)."""
 
     seg: NDArray[np.intp]
     freq_hz: NDArray[np.float64]
     amp: NDArray[np.complex128]
-    orders: NDArray[np.object_]
+    orders: NDArray[np.object_] | NDArray[np.intp]
 
     def take(self, index: NDArray[np.intp] | NDArray[np.bool_]) -> RaggedLines:
         """The lines at ``index`` (indices or a mask), in that order."""

@@ -46,6 +46,30 @@ if TYPE_CHECKING:
     from sweeprig.sim.mixer.part import MixerPart, PortNetwork, _LoPrepared, _OpState
 
 
+class _Names:
+    """The order tuples of one call's lines: the lines carry integer codes through the
+    chain (cheaper to move than objects) and become tuples only for the lines kept."""
+
+    def __init__(self) -> None:
+        self._parts: list[NDArray[np.object_]] = []
+        self._size = 0
+        self._joined: NDArray[np.object_] | None = None
+
+    def add(self, orders: NDArray[np.object_]) -> int:
+        """Register order tuples; the code of the first (the others follow)."""
+        first = self._size
+        self._parts.append(orders)
+        self._size += orders.size
+        self._joined = None
+        return first
+
+    def __getitem__(self, codes: NDArray[np.intp]) -> NDArray[np.object_]:
+        if self._joined is None:
+            self._joined = np.concatenate(self._parts) if self._parts else np.empty(
+                0, dtype=object)
+        return self._joined[codes]
+
+
 def sweep_signature(tones: Sequence[ToneInput]) -> tuple[tuple[float, ...], ...]:
     """What the points of one group share: the source harmonics (dBc) of each tone."""
     return tuple(t.harmonics_dbc for t in tones)
@@ -141,21 +165,22 @@ def _evaluate_sorted(
     for shape, members in by_shape.items():
         x[members] = rf_factor_rows([a[members] for a in tone_amps], cell, part.max_rf_order,
                                     shape)
-    core = merge_sorted(_combine(part, lo_prep, lo, state, x, freqs, phases))
+    names = _Names()
+    core = merge_sorted(_combine(part, lo_prep, lo, state, x, freqs, phases, names))
     has_core = np.zeros(n_pts, dtype=bool)
     has_core[core.seg] = True
     imbalance = part.load_mismatch + lo_prep.d0
     if part.cm_second_order and imbalance:
-        cm = _common_mode(part, state, freqs, phases, tone_amps, imbalance, n_axes)
+        cm = _common_mode(part, state, freqs, phases, tone_amps, imbalance, n_axes, names)
         if cm is not None:
             core = add_segments(core, cm.take(has_core[cm.seg]))
-    leaks = _output_leaks(part, lo, sets, freqs, powers, phases, n_axes)
+    leaks = _output_leaks(part, lo, sets, freqs, powers, phases, n_axes, names)
     if leaks is not None:
         core = add_entry_segments(core, leaks.take(has_core[leaks.seg]))
-    output = _levels(part, core, n_pts)
-    inputs, lo_lines = _port_leaks(part, lo, freqs, powers, phases, sets, n_axes)
-    input_levels = _levels(part, merge_segments(inputs), n_pts) if inputs else None
-    lo_levels = _levels(part, merge_segments(lo_lines), n_pts) if lo_lines else None
+    inputs, lo_lines = _port_leaks(part, lo, freqs, powers, phases, sets, n_axes, names)
+    output = _levels(part, core, n_pts, names)
+    input_levels = _levels(part, merge_segments(inputs), n_pts, names) if inputs else None
+    lo_levels = _levels(part, merge_segments(lo_lines), n_pts, names) if lo_lines else None
     empty = PortLevels(np.zeros(0), np.zeros(0), np.empty(0, dtype=object))
     common = {
         "vt_v": cell.vt_v,
@@ -233,6 +258,7 @@ def _entries_within(
 def _combine(
     part: MixerPart, lo_prep: _LoPrepared, lo: ToneInput | None, state: _OpState,
     x: NDArray[np.complex128], freqs: NDArray[np.float64], phases: NDArray[np.float64],
+    names: _Names,
 ) -> RaggedLines:
     """:func:`~sweeprig.sim.mixer.multitone.combine` for every point (rows of ``x``), with
     the part's pruning limit, scaled to sqrt(W) at the output port and through its band
@@ -316,13 +342,14 @@ def _combine(
             seg, li, pi, freq, amp = seg[keep], li[keep], pi[keep], freq[keep], amp[keep]
     table = combo_tuples(part.max_lo_order, freqs.shape[1], part.max_rf_order)
     codes = (fac.orders + part.max_lo_order)[li] * table.shape[1] + pi
-    return RaggedLines(seg, freq, amp, table.ravel()[codes])
+    codes += names.add(table.ravel())
+    return RaggedLines(seg, freq, amp, codes)
 
 
 def _common_mode(
     part: MixerPart, state: _OpState, freqs: NDArray[np.float64],
     phases: NDArray[np.float64], tone_amps: list[NDArray[np.float64]], imbalance: float,
-    n_axes: int,
+    n_axes: int, names: _Names,
 ) -> RaggedLines | None:
     """The common-mode IM2 lines of every point, at the output port (sqrt(W))."""
     cell = state.cell
@@ -341,7 +368,7 @@ def _common_mode(
     out = part.output_port
     if out.highpass_hz is not None or out.lowpass_hz is not None:
         amp = amp * out.magnitude(freq)
-    return RaggedLines(seg, freq, amp, orders)
+    return RaggedLines(seg, freq, amp, names.add(orders) + np.arange(orders.size))
 
 
 def _tone_rows(
@@ -378,7 +405,7 @@ def _tone_rows(
 
 def _rows_to_ragged(
     rows: list[tuple[NDArray[np.float64], NDArray[np.complex128], NDArray[np.object_]]],
-    n_pts: int,
+    n_pts: int, names: _Names,
 ) -> RaggedLines:
     """Per-point blocks of lines (each (P, n) frequencies and amplitudes, n orders) → one
     ragged set, each point's lines in the blocks' order."""
@@ -386,8 +413,9 @@ def _rows_to_ragged(
     amp = np.concatenate([r[1] for r in rows], axis=1)
     orders = np.concatenate([r[2] for r in rows])
     width = orders.size
+    codes = names.add(orders) + np.arange(width)
     return RaggedLines(np.repeat(np.arange(n_pts), width), freq.ravel(), amp.ravel(),
-                       np.tile(orders, n_pts))
+                       np.tile(codes, n_pts))
 
 
 def _fixed_rows(
@@ -414,7 +442,7 @@ def _tone_blocks(
 def _output_leaks(
     part: MixerPart, lo: ToneInput | None, sets: Sequence[tuple[ToneInput, ...]],
     freqs: NDArray[np.float64], powers: NDArray[np.float64], phases: NDArray[np.float64],
-    n_axes: int,
+    n_axes: int, names: _Names,
 ) -> RaggedLines | None:
     """The linear paths into the output port (input→output, LO→output), in the order the
     one-point path adds them."""
@@ -431,13 +459,13 @@ def _output_leaks(
         path = phs.lo_to_if if part.conversion == "down" else phs.lo_to_rf
         rows.append(_fixed_rows(_tone_entries(lo, 0, n_axes, iso, path, part._iso_slope(
             "lo_if" if part.conversion == "down" else "lo_rf")), len(sets)))
-    return _rows_to_ragged(rows, len(sets)) if rows else None
+    return _rows_to_ragged(rows, len(sets), names) if rows else None
 
 
 def _port_leaks(
     part: MixerPart, lo: ToneInput | None, freqs: NDArray[np.float64],
     powers: NDArray[np.float64], phases: NDArray[np.float64],
-    sets: Sequence[tuple[ToneInput, ...]], n_axes: int,
+    sets: Sequence[tuple[ToneInput, ...]], n_axes: int, names: _Names,
 ) -> tuple[RaggedLines | None, RaggedLines | None]:
     """The lines leaving the input port (LO→input, the input reflection) and the LO port
     (its reflection, input→LO) of every point, unmerged."""
@@ -463,12 +491,14 @@ def _port_leaks(
     if iso is not None:
         lo_rows += _tone_blocks(part, sets, freqs, powers, phases, n_axes, iso, phs.rf_to_lo,
                                 part._iso_slope("rf_lo"))
-    return (_rows_to_ragged(in_rows, n_pts) if in_rows else None,
-            _rows_to_ragged(lo_rows, n_pts) if lo_rows else None)
+    return (_rows_to_ragged(in_rows, n_pts, names) if in_rows else None,
+            _rows_to_ragged(lo_rows, n_pts, names) if lo_rows else None)
 
 
-def _levels(part: MixerPart, lines: RaggedLines, n_pts: int) -> list[PortLevels]:
-    """Sorted, merged lines of every point → each point's lines above the floor (dBm)."""
+def _levels(part: MixerPart, lines: RaggedLines, n_pts: int,
+            names: _Names) -> list[PortLevels]:
+    """Sorted, merged lines of every point (orders as codes of ``names``) → each point's
+    lines above the floor (dBm)."""
     power_w = lines.amp.real**2 + lines.amp.imag**2
     keep = power_w >= 1e-3 * 10.0 ** (part.floor_dbm / 10.0)
     keep &= power_w > 0.0
@@ -477,7 +507,7 @@ def _levels(part: MixerPart, lines: RaggedLines, n_pts: int) -> list[PortLevels]
         lines = lines.take(keep)
     power_dbm = 10.0 * np.log10(power_w * 1e3)
     at = lines.bounds(n_pts).tolist()
-    freq, orders = lines.freq_hz, lines.orders
+    freq, orders = lines.freq_hz, names[lines.orders]
     return [PortLevels(freq[a:b], power_dbm[a:b], orders[a:b])
             for a, b in itertools.pairwise(at)]
 
