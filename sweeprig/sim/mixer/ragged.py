@@ -98,39 +98,49 @@ def merge_segments(lines: RaggedLines, tol_hz: float = MERGE_TOL_HZ) -> RaggedLi
     return merge_sorted(sort_lines(lines), tol_hz)
 
 
-def _positions(base: RaggedLines, extra: RaggedLines, side: str) -> NDArray[np.intp]:
+def sort_key(lines: RaggedLines) -> NDArray[np.complex128]:
+    """``seg + 1j·freq``: numpy orders complex numbers by real part, then imaginary part,
+    so this sorts exactly as (segment, frequency)."""
+    return lines.seg + 1j * lines.freq_hz
+
+
+def _positions(base: RaggedLines, extra: RaggedLines, side: str,
+               base_key: NDArray[np.complex128] | None = None) -> NDArray[np.intp]:
     """Where each extra line goes among the sorted ``base`` lines of its own segment, as
     ``np.searchsorted(freq, f, side)`` within the segment (an index into ``base``).
 
-    One search over all segments: numpy orders complex numbers by real part, then
-    imaginary part, so ``seg + 1j·freq`` sorts exactly as (segment, frequency)."""
-    base_key = base.seg + 1j * base.freq_hz
-    return np.searchsorted(base_key, extra.seg + 1j * extra.freq_hz, side=side)
+    One search over all segments, on :func:`sort_key` (``base_key``: the base's, when the
+    caller has it)."""
+    if base_key is None:
+        base_key = sort_key(base)
+    return np.searchsorted(base_key, sort_key(extra), side=side)
 
 
-def _neighbours(base: RaggedLines, extra: RaggedLines) -> tuple[NDArray[np.intp], ...]:
+def _neighbours(base: RaggedLines, extra: RaggedLines,
+                base_key: NDArray[np.complex128]) -> tuple[NDArray[np.intp], ...]:
     """For every extra line, the base lines of its own segment just below and at-or-above
     it (``np.searchsorted``'s ``at − 1`` and ``at``, clamped to the segment), ``at`` and the
     end of its segment's base lines. ``base`` is sorted; every segment of an extra line has
     base lines."""
     first = np.searchsorted(base.seg, extra.seg, side="left")
     end = np.searchsorted(base.seg, extra.seg, side="right")
-    at = _positions(base, extra, "left")
+    at = _positions(base, extra, "left", base_key)
     right = np.minimum(at, end - 1)
     left = np.maximum(at - 1, first)
     return left, right, at, end
 
 
-def add_segments(base: RaggedLines, extra: RaggedLines,
-                 tol_hz: float = MERGE_TOL_HZ) -> RaggedLines:
+def add_segments(base: RaggedLines, extra: RaggedLines, tol_hz: float = MERGE_TOL_HZ,
+                 floor_w: float = 0.0, later: RaggedLines | None = None) -> RaggedLines:
     """:func:`~sweeprig.sim.mixer.multitone.add_lines` within every segment: an extra line
     within ``tol_hz`` of the nearest base line of its segment adds to it (the stronger of
     the two names the orders); the others are inserted and merged where they meet.
     ``base`` is sorted and merged; every segment of an extra line has base lines (the
-    caller evaluates a point with none on its own)."""
+    caller evaluates a point with none on its own). ``floor_w``: see :func:`_insert`."""
     if extra.freq_hz.size == 0:
         return base
-    left, right, _, _ = _neighbours(base, extra)
+    key = sort_key(base)
+    left, right, _, _ = _neighbours(base, extra, key)
     freq = base.freq_hz
     use_left = np.abs(freq[left] - extra.freq_hz) < np.abs(freq[right] - extra.freq_hz)
     near = np.where(use_left, left, right)
@@ -148,15 +158,36 @@ def add_segments(base: RaggedLines, extra: RaggedLines,
     merged = RaggedLines(base.seg, freq, amp, orders)
     if hit.all():
         return merged
-    return _insert(merged, extra.take(~hit), tol_hz)
+    return _insert(merged, extra.take(~hit), tol_hz, floor_w, key, later)
 
 
-def _insert(merged: RaggedLines, rest: RaggedLines, tol_hz: float) -> RaggedLines:
-    """Sorted lines plus lines that hit none of them: sorted (a line of ``rest`` after the
-    ``merged`` lines at its very frequency, as a stable sort of the two joined), merged
-    where they meet."""
+def _insert(merged: RaggedLines, rest: RaggedLines, tol_hz: float, floor_w: float,
+            merged_key: NDArray[np.complex128],
+            later: RaggedLines | None = None) -> RaggedLines:
+    """Sorted lines plus lines that hit none of them (each more than ``tol_hz`` from every
+    line of ``merged``): sorted (a line of ``rest`` after the ``merged`` lines at its very
+    frequency, as a stable sort of the two joined), merged where they meet.
+
+    A line of ``rest`` weaker than ``floor_w`` (|amp|², W) with no other line of ``rest``
+    within ``tol_hz`` is left out: it stays a line of its own, under the floor, which the
+    caller's floor drops anyway (0: keep every line); unless a line of ``later`` (lines
+    the caller adds next) falls within ``tol_hz`` of it and could add to it."""
     rest = rest.take(np.lexsort((rest.freq_hz, rest.seg)))
-    at = _positions(merged, rest, "right")
+    if floor_w > 0.0 and rest.freq_hz.size:
+        alone = np.ones(rest.freq_hz.size, dtype=bool)
+        near = np.diff(rest.freq_hz) <= tol_hz
+        near &= rest.seg[1:] == rest.seg[:-1]
+        alone[1:] &= ~near
+        alone[:-1] &= ~near
+        drop = (rest.amp.real * rest.amp.real + rest.amp.imag * rest.amp.imag) < floor_w
+        drop &= alone
+        if later is not None and later.freq_hz.size and drop.any():
+            drop[drop] = ~_near_any(rest.take(drop), later, tol_hz)
+        if drop.any():
+            rest = rest.take(~drop)
+            if rest.freq_hz.size == 0:
+                return merged
+    at = _positions(merged, rest, "right", merged_key)
     joined = RaggedLines(np.insert(merged.seg, at, rest.seg),
                          np.insert(merged.freq_hz, at, rest.freq_hz),
                          np.insert(merged.amp, at, rest.amp),
@@ -166,17 +197,33 @@ def _insert(merged: RaggedLines, rest: RaggedLines, tol_hz: float) -> RaggedLine
     return merge_sorted(joined, tol_hz) if close.any() else joined
 
 
+def _near_any(lines: RaggedLines, others: RaggedLines, tol_hz: float) -> NDArray[np.bool_]:
+    """Whether each line has a line of ``others`` (any order) in its segment within
+    ``tol_hz``."""
+    others = sort_lines(others, stable=True)
+    key = sort_key(others)
+    at = np.searchsorted(key, sort_key(lines))
+    near = np.zeros(lines.freq_hz.size, dtype=bool)
+    for j in (at - 1, at):
+        ok = (j >= 0) & (j < key.size)
+        jj = np.where(ok, j, 0)
+        near |= ok & (others.seg[jj] == lines.seg) & (
+            np.abs(others.freq_hz[jj] - lines.freq_hz) <= tol_hz)
+    return near
+
+
 def add_entry_segments(base: RaggedLines, extra: RaggedLines,
-                       tol_hz: float = MERGE_TOL_HZ) -> RaggedLines:
+                       tol_hz: float = MERGE_TOL_HZ, floor_w: float = 0.0) -> RaggedLines:
     """The part's ``_add_entries`` within every segment (a few linear-path lines added to
     sorted, merged lines): an extra line within ``tol_hz`` of the base line at or above it
     adds to that one, else to the one below within ``tol_hz``; the stronger of the line so
     far and the extra names the orders, one extra after the other in their order; the
     others are inserted and the whole merged. ``base`` is sorted and merged; every segment
-    of an extra line has base lines."""
+    of an extra line has base lines. ``floor_w``: see :func:`_insert`."""
     if extra.freq_hz.size == 0:
         return base
-    left, right, at, end = _neighbours(base, extra)
+    key = sort_key(base)
+    left, right, at, end = _neighbours(base, extra, key)
     freq = base.freq_hz
     right_ok = (at < end) & (np.abs(freq[right] - extra.freq_hz) <= tol_hz)
     left_ok = (at > left) & (np.abs(freq[left] - extra.freq_hz) <= tol_hz)
@@ -200,4 +247,4 @@ def add_entry_segments(base: RaggedLines, extra: RaggedLines,
     merged = RaggedLines(base.seg, freq, amp, orders)
     if hit.all():
         return merged
-    return _insert(merged, extra.take(~hit), tol_hz)
+    return _insert(merged, extra.take(~hit), tol_hz, floor_w, key)

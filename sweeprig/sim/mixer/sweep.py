@@ -166,17 +166,21 @@ def _evaluate_sorted(
         x[members] = rf_factor_rows([a[members] for a in tone_amps], cell, part.max_rf_order,
                                     shape)
     names = _Names()
+    floor_w = 1e-3 * 10.0 ** (part.floor_dbm / 10.0)  # the floor _levels applies
     core = merge_sorted(_combine(part, lo_prep, lo, state, x, freqs, phases, names))
     has_core = np.zeros(n_pts, dtype=bool)
     has_core[core.seg] = True
     imbalance = part.load_mismatch + lo_prep.d0
+    leaks = _output_leaks(part, lo, sets, freqs, powers, phases, n_axes, names)
+    if leaks is not None:
+        leaks = leaks.take(has_core[leaks.seg])
     if part.cm_second_order and imbalance:
         cm = _common_mode(part, state, freqs, phases, tone_amps, imbalance, n_axes, names)
         if cm is not None:
-            core = add_segments(core, cm.take(has_core[cm.seg]))
-    leaks = _output_leaks(part, lo, sets, freqs, powers, phases, n_axes, names)
+            core = add_segments(core, cm.take(has_core[cm.seg]), floor_w=floor_w,
+                                later=leaks)
     if leaks is not None:
-        core = add_entry_segments(core, leaks.take(has_core[leaks.seg]))
+        core = add_entry_segments(core, leaks, floor_w=floor_w)
     inputs, lo_lines = _port_leaks(part, lo, freqs, powers, phases, sets, n_axes, names)
     output = _levels(part, core, n_pts, names)
     input_levels = _levels(part, merge_segments(inputs), n_pts, names) if inputs else None
@@ -500,7 +504,7 @@ def _levels(part: MixerPart, lines: RaggedLines, n_pts: int,
     """Sorted, merged lines of every point (orders as codes of ``names``) → each point's
     lines above the floor (dBm)."""
     power_w = lines.amp.real**2 + lines.amp.imag**2
-    keep = power_w >= 1e-3 * 10.0 ** (part.floor_dbm / 10.0)
+    keep = power_w >= 1e-3 * 10.0 ** (part.floor_dbm / 10.0)  # as part._levels
     keep &= power_w > 0.0
     if not keep.all():
         power_w = power_w[keep]
