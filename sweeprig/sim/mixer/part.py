@@ -368,16 +368,6 @@ class _Evaluation:
 
 
 @dataclass(frozen=True)
-class _RfPrepared:
-    """A point's transconductor factor, solved ahead with the other points of a sweep."""
-
-    amps: tuple[tuple[float, ...], ...]  # peak V at the core, per tone and harmonic
-    shape: tuple[int, ...]
-    converged: bool
-    factor: RfFactor
-
-
-@dataclass(frozen=True)
 class _OpState:
     cell: CellState
     gm_s: float  # small-signal transconductance at the RF pair's offset, S
@@ -662,16 +652,14 @@ class MixerPart:
 
     def _evaluate(
         self, op: OperatingPoint, lo: ToneInput | None, tones: tuple[ToneInput, ...],
-        *, leakage: bool, rf: _RfPrepared | None = None,
+        *, leakage: bool,
     ) -> _Evaluation:
         self._check_inputs(lo, tones)
         state = self._state(op)
         cell = state.cell
         lo_prep = self._lo_prepared(op, lo, state)
         inp, out = self.input_port, self.output_port
-        if rf is not None:  # solved with the other points of a sweep (evaluate_many)
-            amps, shape, converged, rf_fac = rf.amps, rf.shape, rf.converged, rf.factor
-        elif tones:
+        if tones:
             amps = tuple(self.tone_core_amplitudes(t, inp) for t in tones)
             shape, converged = self._rf_shape(op, amps, cell)
             rf_fac = rf_factor(amps, cell, self.max_rf_order, shape)

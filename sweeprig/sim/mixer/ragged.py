@@ -42,14 +42,6 @@ class RaggedLines:
         return np.searchsorted(self.seg, np.arange(points + 1))
 
 
-def join(parts: list[RaggedLines]) -> RaggedLines:
-    """Concatenate several ragged line sets (not sorted)."""
-    return RaggedLines(np.concatenate([p.seg for p in parts]),
-                       np.concatenate([p.freq_hz for p in parts]),
-                       np.concatenate([p.amp for p in parts]),
-                       np.concatenate([p.orders for p in parts]))
-
-
 def sort_order(seg: NDArray[np.intp], freq_hz: NDArray[np.float64],
                stable: bool = False) -> NDArray[np.intp]:
     """The order by (segment, frequency): a sort by frequency (stable when asked: equal
