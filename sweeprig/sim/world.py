@@ -49,6 +49,7 @@ from sweeprig.sim.analyzer_display import KT0_DBM_PER_HZ, InputSpectrum
 from sweeprig.sim.mismatch import PortMatch
 from sweeprig.sim.mixer.types import MixerResponse, OperatingPoint, Product, ToneInput
 from sweeprig.sim.noise_source import NoiseSourceModel, density_mw_per_hz, mixer_output_density_mw
+from sweeprig.sim.read_ahead import ReadAhead, context_of
 
 AMBIENT_C = 23.0
 _NO_SIGNAL_DBM = -200.0
@@ -252,6 +253,7 @@ class SimWorld:
         self._cache: OrderedDict[tuple[object, ...], MixerResponse] = OrderedDict()
         self._inputs: dict[int, tuple[MixerResponse, EvaluationInputs]] = {}
         self.evaluations = 0  # number of model evaluations (cache misses), for tests
+        self._read_ahead = ReadAhead()
         self._last_input: tuple[MixerResponse, int, InputSpectrum] | None = None
 
     def connect(
@@ -277,6 +279,7 @@ class SimWorld:
             self._cache.clear()
             self._inputs.clear()
             self._last_input = None
+            self._read_ahead = ReadAhead()
 
     # --- the DUT's inputs -------------------------------------------------------------
     def rf_inputs(self) -> list[ToneInput]:
@@ -383,18 +386,57 @@ class SimWorld:
             if hit is not None:
                 self._cache.move_to_end(key)
                 return hit
-            value = self._evaluate(lo, rf, volts, temperature)
-            theta = self.config.self_heating_c_per_w
-            used = temperature
-            if theta and value.supply_current_a > 0:
-                used = self._rounded(temperature + theta * volts * value.supply_current_a)
+            if volts < self.dead_below_v():
+                return self._keep(key, self._evaluate(lo, rf, volts, temperature),
+                                  EvaluationInputs(lo, rf, volts, temperature))
+            used = self._die_temperature_key(lo, rf, volts, temperature)
+            context = context_of(lo, rf, key[2], temperature)
+            ahead = self._read_ahead.take(context, rf)
+            if ahead is not None:  # evaluated ahead with the sweep's earlier points
+                tones, value = ahead
+                return self._keep(key, value, EvaluationInputs(lo, tones, volts, used))
+            many = getattr(self.part, "evaluate_many", None)
+            sets = self._read_ahead.plan(context, rf) if many is not None else []
+            if not sets:
                 value = self._evaluate(lo, rf, volts, used)
-            self._cache[key] = value
-            self._inputs[id(value)] = (value, EvaluationInputs(lo, rf, volts, used))
-            while len(self._cache) > _CACHE_ENTRIES:
-                old = self._cache.popitem(last=False)[1]
-                self._inputs.pop(id(old), None)
-            return value
+                return self._keep(key, value, EvaluationInputs(lo, rf, volts, used))
+            self.evaluations += 1
+            op = OperatingPoint(temperature_c=used, supply_v=volts)
+            value, *rest = many(op, lo, [rf, *sets])
+            self._read_ahead.store(context, sets, rest)
+            return self._keep(key, value, EvaluationInputs(lo, rf, volts, used))
+
+    def _die_temperature_key(self, lo: ToneInput | None, rf: tuple[ToneInput, ...],
+                             volts: float, temperature: float) -> float:
+        """The die temperature the model is evaluated at: the probe's plus self-heating
+        θ·V·I, I the part's supply current at the probe temperature (rounded). A part that
+        states its supply current (it depends on the operating point only, not the tones)
+        is asked for it; another is evaluated once for it."""
+        theta = self.config.self_heating_c_per_w
+        if not theta:
+            return temperature
+        current_at = getattr(self.part, "supply_current_at", None)
+        if current_at is not None:
+            current = float(current_at(OperatingPoint(temperature_c=temperature,
+                                                      supply_v=volts)))
+        else:
+            current = self._evaluate(lo, rf, volts, temperature).supply_current_a
+        return self._rounded(temperature + theta * volts * current) if current > 0 else temperature
+
+    def _keep(self, key: tuple[object, ...], value: MixerResponse,
+              inputs: EvaluationInputs) -> MixerResponse:
+        """Cache a response under its key and remember what the model was given for it."""
+        self._cache[key] = value
+        self._inputs[id(value)] = (value, inputs)
+        while len(self._cache) > _CACHE_ENTRIES:
+            old = self._cache.popitem(last=False)[1]
+            self._inputs.pop(id(old), None)
+        return value
+
+    @property
+    def read_ahead(self) -> ReadAhead:
+        """The sweep read-ahead (its ``served`` and ``evaluated`` counts, for tests)."""
+        return self._read_ahead
 
     def evaluation_inputs(self, response: MixerResponse) -> EvaluationInputs | None:
         """What the model was given for a response this world returned (None when unknown):

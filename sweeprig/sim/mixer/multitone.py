@@ -425,48 +425,55 @@ def rf_factor(
     return RfFactor(table, x, _all_rows(len(table)), tuple(grid_shape), converged)
 
 
-#: Most grid points solved in one call of :func:`rf_factors` (about 1.6 MB per array).
+#: Most grid points solved in one call of :func:`rf_factor_rows` (about 1.6 MB per array).
 _BATCH_POINTS = 200_000
 
 
-def rf_factors(
-    tone_amps_list: Sequence[Sequence[Sequence[float]]],
+@lru_cache(maxsize=128)
+def _mirror_ix(shape: tuple[int, ...]) -> tuple[NDArray[np.intp], ...]:
+    """``np.ix_`` of the mirror indices of every axis of a grid (see :func:`_mirror_index`)."""
+    return np.ix_(*(_mirror_index(n) for n in shape))
+
+
+def rf_factor_rows(
+    tone_amps: Sequence[NDArray[np.float64]],
     cell: CellState,
     max_order: int,
     grid_shape: tuple[int, ...],
-    converged: bool = True,
-) -> list[RfFactor]:
-    """:func:`rf_factor` for several sets of tone amplitudes on one grid shape (the points
-    of a sweep), solved together: one pair solution and one FFT per batch instead of one per
-    point, so the cost per point is the arithmetic, not the calls. Each factor equals the
-    one :func:`rf_factor` gives for its set alone, within rounding (a batch takes as many
-    Newton steps as its slowest point, each past the root by less than rounding)."""
+) -> NDArray[np.complex128]:
+    """:func:`rf_factor`'s coefficients for several points on one grid shape (the points of
+    a sweep), solved together: one pair solution and one FFT per batch instead of one per
+    point, so the cost per point is the arithmetic, not the calls.
+
+    ``tone_amps[k]``: peak volts at the core of tone k and its harmonics, shape (points,
+    harmonics); ``grid_shape`` has one axis per tone (at least one). Row i of the result
+    holds ``x`` of point i, columns in the order of :func:`order_table`; each row equals
+    :func:`rf_factor` for its point alone within rounding (a batch takes as many Newton
+    steps as its slowest point, each past the root by less than rounding)."""
     k = len(grid_shape)
-    if k == 0 or not tone_amps_list:
-        return [rf_factor(amps, cell, max_order, grid_shape) for amps in tone_amps_list]
+    n_pts = tone_amps[0].shape[0]
     halves = [n // 2 + 1 for n in grid_shape]
     chunk = max(1, _BATCH_POINTS // math.prod(halves))
     idx, conj = _fft_index(tuple(grid_shape), max_order)
-    table = order_table(k, max_order)
-    rows = _all_rows(len(table))
-    mirror = np.ix_(*(_mirror_index(n) for n in grid_shape))
-    out: list[RfFactor] = []
-    for start in range(0, len(tone_amps_list), chunk):
-        batch = tone_amps_list[start : start + chunk]
+    mirror = _mirror_ix(tuple(grid_shape))
+    out = np.empty((n_pts, idx.size), dtype=complex)
+    for start in range(0, n_pts, chunk):
+        stop = min(n_pts, start + chunk)
         total: NDArray[np.float64] | float = cell.v_os_rf_v
         for axis, (n, h) in enumerate(zip(grid_shape, halves, strict=True)):
-            view = [len(batch)] + [1] * k
+            amps = tone_amps[axis][start:stop]
+            view = [stop - start] + [1] * k
             view[1 + axis] = h
-            waves = np.stack([_axis_wave(amps[axis], n)[:h] for amps in batch])
-            total = total + waves.reshape(view)
+            total = total + (amps @ _cos_table(n, amps.shape[1])[:, :h]).reshape(view)
         half = pair_fraction(total, cell.vt_v, cell.i_ee_a, cell.r_e_ohm)
         values = half[(slice(None), *mirror)]
-        spectrum = scipy.fft.rfftn(values, axes=tuple(range(1, k + 1))).reshape(len(batch), -1)
+        spectrum = scipy.fft.rfftn(values, axes=tuple(range(1, k + 1))).reshape(stop - start,
+                                                                                 -1)
         x = spectrum[:, idx]
         if conj.any():
             x[:, conj] = np.conj(x[:, conj])
         x *= 1.0 / math.prod(grid_shape)
-        out += [RfFactor(table, row, rows, tuple(grid_shape), converged) for row in x]
+        out[start:stop] = x
     return out
 
 

@@ -103,7 +103,6 @@ from sweeprig.sim.mixer.multitone import (
     lo_factor,
     merge_coincident,
     rf_factor,
-    rf_factors,
     rf_grid_shape,
 )
 from sweeprig.sim.mixer.network import band_magnitude, reflection_magnitude
@@ -114,6 +113,7 @@ from sweeprig.sim.mixer.realism import (
     lo_drive_noise_factor,
     switch_overlap_fraction,
 )
+from sweeprig.sim.mixer.sweep import evaluate_group, sweep_signature
 from sweeprig.sim.mixer.types import (
     MixerResponse,
     OperatingPoint,
@@ -130,6 +130,7 @@ MAX_RF_TONES = 3
 #: signal's gain, so F_SSB = 2·F_DSB ≥ 2 (standard result, field notes: SSB = DSB + 3.01 dB).
 SSB_NOISE_FIGURE_FLOOR_DB = 10.0 * math.log10(2.0)
 _CACHE_LIMIT = 256
+_TABLE_LIMIT = 64  # about 80 kB each for the demo part
 _AMP_BUCKET_DB = 1.0
 
 Conversion = Literal["down", "up"]
@@ -367,16 +368,6 @@ class _Evaluation:
 
 
 @dataclass(frozen=True)
-class _RfPrepared:
-    """A point's transconductor factor, solved ahead with the other points of a sweep."""
-
-    amps: tuple[tuple[float, ...], ...]  # peak V at the core, per tone and harmonic
-    shape: tuple[int, ...]
-    converged: bool
-    factor: RfFactor
-
-
-@dataclass(frozen=True)
 class _OpState:
     cell: CellState
     gm_s: float  # small-signal transconductance at the RF pair's offset, S
@@ -438,6 +429,11 @@ class MixerPart:
     floor_dbm: float = -180.0
     source: str = ""
     _cache: dict[Any, Any] = field(
+        default_factory=dict, init=False, repr=False, compare=False, hash=False
+    )
+    #: Sorted line-frequency tables of the sweep path (see sweep._combine), by LO
+    #: frequency, tone frequencies and LO orders: the points of a power sweep share one.
+    _tables: dict[Any, Any] = field(
         default_factory=dict, init=False, repr=False, compare=False, hash=False
     )
 
@@ -547,6 +543,11 @@ class MixerPart:
             self._remember(key, state)
         return state
 
+    def _remember_table(self, key: Any, value: Any) -> None:
+        if len(self._tables) >= _TABLE_LIMIT:
+            del self._tables[next(iter(self._tables))]  # the oldest
+        self._tables[key] = value
+
     def _remember(self, key: Any, value: Any) -> None:
         if len(self._cache) >= _CACHE_LIMIT:
             self._cache.clear()
@@ -595,28 +596,31 @@ class MixerPart:
         tone_sets: Sequence[Sequence[ToneInput]],
     ) -> list[MixerResponse]:
         """:meth:`evaluate` for the points of a sweep (one LO and operating point, the
-        input tones changing from point to point), in their order. The transconductor
-        factors of points whose grids have the same size are solved together
-        (:func:`~sweeprig.sim.mixer.multitone.rf_factors`); every response equals the one
-        :meth:`evaluate` gives for that point alone, within rounding."""
+        input tones changing from point to point), in their order.
+
+        Points with the same number of tones and the same source harmonics go through the
+        vectorised path together (:func:`~sweeprig.sim.mixer.sweep.evaluate_group`: their
+        transconductor factors solved per grid shape, and the combination, merge, leakage
+        and floor on the lines of all of them at once); the others, a point with no tone
+        and a part whose bias is off go through :meth:`evaluate`. Every response equals
+        the one :meth:`evaluate` gives for that point alone, within rounding."""
         sets = [tuple(tones) for tones in tone_sets]
         for tones in sets:
             self._check_inputs(lo, tones)
         state = self._state(op)
-        inp = self.input_port
-        prepared: list[_RfPrepared | None] = [None] * len(sets)
-        groups: dict[tuple[int, ...], list[tuple[int, tuple[tuple[float, ...], ...], bool]]] = {}
-        for i, tones in enumerate(sets):
-            if tones:
-                amps = tuple(self.tone_core_amplitudes(t, inp) for t in tones)
-                shape, converged = self._rf_shape(op, amps, state.cell)
-                groups.setdefault(shape, []).append((i, amps, converged))
-        for shape, members in groups.items():
-            factors = rf_factors([m[1] for m in members], state.cell, self.max_rf_order, shape)
-            for (i, amps, converged), factor in zip(members, factors, strict=True):
-                prepared[i] = _RfPrepared(amps, shape, converged, factor)
-        return [self._response(self._evaluate(op, lo, tones, leakage=True, rf=prepared[i]))
-                for i, tones in enumerate(sets)]
+        out: list[MixerResponse | None] = [None] * len(sets)
+        if state.cell.i_ee_a > 0.0:
+            groups: dict[tuple[tuple[float, ...], ...], list[int]] = {}
+            for i, tones in enumerate(sets):
+                if tones:
+                    groups.setdefault(sweep_signature(tones), []).append(i)
+            for members in groups.values():
+                for i, response in zip(members, evaluate_group(
+                        self, op, lo, state, [sets[i] for i in members]), strict=True):
+                    out[i] = response
+        return [response if response is not None
+                else self._response(self._evaluate(op, lo, sets[i], leakage=True))
+                for i, response in enumerate(out)]
 
     def _response(self, ev: _Evaluation) -> MixerResponse:
         return MixerResponse(
@@ -648,16 +652,14 @@ class MixerPart:
 
     def _evaluate(
         self, op: OperatingPoint, lo: ToneInput | None, tones: tuple[ToneInput, ...],
-        *, leakage: bool, rf: _RfPrepared | None = None,
+        *, leakage: bool,
     ) -> _Evaluation:
         self._check_inputs(lo, tones)
         state = self._state(op)
         cell = state.cell
         lo_prep = self._lo_prepared(op, lo, state)
         inp, out = self.input_port, self.output_port
-        if rf is not None:  # solved with the other points of a sweep (evaluate_many)
-            amps, shape, converged, rf_fac = rf.amps, rf.shape, rf.converged, rf.factor
-        elif tones:
+        if tones:
             amps = tuple(self.tone_core_amplitudes(t, inp) for t in tones)
             shape, converged = self._rf_shape(op, amps, cell)
             rf_fac = rf_factor(amps, cell, self.max_rf_order, shape)
@@ -827,6 +829,8 @@ class MixerPart:
         return PortLevels(lines.freq_hz, 10.0 * np.log10(power_w * 1e3), lines.orders)
 
     def _check_inputs(self, lo: ToneInput | None, tones: tuple[ToneInput, ...]) -> None:
+        if len(tones) <= MAX_RF_TONES and _all_valid(lo, tones):
+            return
         if len(tones) > MAX_RF_TONES:
             raise InputError(
                 f"{len(tones)} input tones; the model takes at most {MAX_RF_TONES}",
@@ -848,6 +852,18 @@ class MixerPart:
                     where=f"mixer part {self.name!r}",
                     fix="give a positive finite frequency and finite power, phase and harmonics",
                 )
+
+
+def _all_valid(lo: ToneInput | None, tones: tuple[ToneInput, ...]) -> bool:
+    """Whether every tone is valid (the quick test of ``_check_inputs``): positive
+    frequencies, and a finite sum of every number (an infinity or NaN anywhere makes the
+    sum infinite or NaN; a sum that overflows sends the caller to the full check)."""
+    total = 0.0
+    for tone in tones if lo is None else (*tones, lo):
+        if not tone.freq_hz > 0.0:
+            return False
+        total += tone.freq_hz + tone.power_dbm + tone.phase_rad + sum(tone.harmonics_dbc)
+    return math.isfinite(total)
 
 
 def _bucket_up(amp_v: float) -> float:

@@ -145,6 +145,48 @@ def common_mode_im2_lines(
     return freq, amp, orders
 
 
+
+def common_mode_im2_rows(
+    freq_hz: NDArray[np.float64],
+    amp_v: NDArray[np.float64],
+    phase_rad: NDArray[np.float64],
+    harmonics_per_tone: tuple[int, ...],
+    n_axes: int,
+    i_ee_a: float,
+    a_v: float,
+    cm_second_order: float,
+    imbalance: float,
+) -> tuple[NDArray[np.intp], NDArray[np.float64], NDArray[np.complex128],
+           NDArray[np.object_]] | None:
+    """:func:`common_mode_im2_lines` for several points at once: the inputs are arrays of
+    shape (points, input lines), one row per point in the same layout; the lines of all
+    points come out concatenated, point after point, each point's in the order
+    :func:`common_mode_im2_lines` gives them, with the point's row index first
+    (``(seg, freq Hz, amp A complex, orders)``), or None when there are none."""
+    k = cm_second_order * i_ee_a * imbalance / (2.0 * a_v * a_v)
+    if k == 0.0 or freq_hz.size == 0:
+        return None
+    n_pts = freq_hz.shape[0]
+    iu, ju, sq_o, sum_o, dpos_o, dneg_o = _cm_layout(harmonics_per_tone, n_axes)
+    pair = k * amp_v[:, iu] * amp_v[:, ju]
+    diff = freq_hz[:, iu] - freq_hz[:, ju]
+    pos = diff >= 0.0
+    far = np.abs(diff) > 1e-3
+    freq = np.concatenate([2.0 * freq_hz, freq_hz[:, iu] + freq_hz[:, ju], np.abs(diff)],
+                          axis=1)
+    mag = np.concatenate([0.5 * k * amp_v * amp_v, pair, pair], axis=1)
+    phase = np.concatenate([
+        2.0 * phase_rad, phase_rad[:, iu] + phase_rad[:, ju],
+        np.where(pos, 1.0, -1.0) * (phase_rad[:, iu] - phase_rad[:, ju])], axis=1)
+    keep = np.ones(freq.shape, dtype=bool)
+    keep[:, freq_hz.shape[1] + iu.size :] = far
+    orders = np.concatenate([
+        np.broadcast_to(sq_o, (n_pts, sq_o.size)), np.broadcast_to(sum_o, (n_pts, sum_o.size)),
+        np.where(pos, dpos_o, dneg_o)], axis=1)
+    seg = np.broadcast_to(np.arange(n_pts)[:, None], freq.shape)
+    amp = mag[keep] * np.exp(1j * phase[keep])
+    return seg[keep], freq[keep], amp, orders[keep]
+
 def switch_overlap_fraction(lo_amplitude_v: float, vt_v: float) -> float:
     """Fraction of the LO period Δ/T during which both transistors of a pair conduct.
 

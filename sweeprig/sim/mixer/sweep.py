@@ -1,0 +1,517 @@
+"""The part's evaluation for the points of a sweep at once: a points axis through the chain.
+
+:meth:`MixerPart.evaluate_many` hands a group of points here: one operating point and LO,
+the same number of input tones at every point with the same source harmonics (dBc), only
+the tones' frequencies, powers and phases changing. What is common to the group is made
+once (the LO factor, the order tables, the LO's own leakage lines); the transconductor
+factors of points with one grid shape are solved together; and the combination of the
+factors, the output port's band edges, the merge of coincident lines, the common-mode IM2
+lines, the leakage paths and the floor run on the lines of all points at once in a ragged
+layout (:mod:`sweeprig.sim.mixer.ragged`: one array per quantity, a segment id per line).
+
+Each response equals the one :meth:`MixerPart.evaluate` gives for its point alone within
+rounding (``tests/sim/test_mixer_fastpath.py`` pins it at 1e-9 dB on random parts and
+points); the one-point path stays the reference. Units as in :mod:`sweeprig.sim.mixer.part`.
+"""
+
+from __future__ import annotations
+
+import itertools
+import math
+from collections.abc import Sequence
+from typing import TYPE_CHECKING
+
+import numpy as np
+from numpy.typing import NDArray
+
+from sweeprig.sim.mixer.multitone import (
+    MERGE_TOL_HZ,
+    LoFactor,
+    combo_tuples,
+    order_table,
+    rf_factor_rows,
+    rf_grid_shape,
+)
+from sweeprig.sim.mixer.ragged import (
+    RaggedLines,
+    add_entry_segments,
+    add_segments,
+    merge_segments,
+    merge_sorted,
+)
+from sweeprig.sim.mixer.realism import LeakPhase, common_mode_im2_rows
+from sweeprig.sim.mixer.types import MixerResponse, OperatingPoint, PortLevels, ToneInput
+
+if TYPE_CHECKING:
+    from sweeprig.sim.mixer.part import MixerPart, PortNetwork, _LoPrepared, _OpState
+
+
+class _Names:
+    """The order tuples of one call's lines: the lines carry integer codes through the
+    chain (cheaper to move than objects) and become tuples only for the lines kept."""
+
+    def __init__(self) -> None:
+        self._parts: list[NDArray[np.object_]] = []
+        self._size = 0
+        self._joined: NDArray[np.object_] | None = None
+
+    def add(self, orders: NDArray[np.object_]) -> int:
+        """Register order tuples; the code of the first (the others follow)."""
+        first = self._size
+        self._parts.append(orders)
+        self._size += orders.size
+        self._joined = None
+        return first
+
+    def __getitem__(self, codes: NDArray[np.intp]) -> NDArray[np.object_]:
+        if self._joined is None:
+            self._joined = np.concatenate(self._parts) if self._parts else np.empty(
+                0, dtype=object)
+        return self._joined[codes]
+
+
+def sweep_signature(tones: Sequence[ToneInput]) -> tuple[tuple[float, ...], ...]:
+    """What the points of one group share: the source harmonics (dBc) of each tone."""
+    return tuple(t.harmonics_dbc for t in tones)
+
+
+def evaluate_group(
+    part: MixerPart, op: OperatingPoint, lo: ToneInput | None, state: _OpState,
+    sets: Sequence[tuple[ToneInput, ...]],
+) -> list[MixerResponse | None]:
+    """Responses of the points ``sets`` (one :func:`sweep_signature`, at least one tone
+    each, a biased core: ``state.cell.i_ee_a > 0``). A point this path cannot take (no core
+    line at all at its output) is None: the caller evaluates it on its own."""
+    # points with the same tone frequencies side by side (they share a line table); the
+    # responses go back in the caller's order at the end
+    by_row: dict[tuple[float, ...], list[int]] = {}
+    for i, tones in enumerate(sets):
+        by_row.setdefault(tuple(t.freq_hz for t in tones), []).append(i)
+    order = [i for members in by_row.values() for i in members]
+    if order != list(range(len(sets))):
+        sets = [sets[i] for i in order]
+    responses = _evaluate_sorted(part, op, lo, state, sets)
+    back: list[MixerResponse | None] = [None] * len(sets)
+    for i, response in zip(order, responses, strict=True):
+        back[i] = response
+    return back
+
+
+def _tone_amplitudes(
+    part: MixerPart, sets: Sequence[tuple[ToneInput, ...]], freqs: NDArray[np.float64],
+    powers: NDArray[np.float64],
+) -> list[NDArray[np.float64]]:
+    """:meth:`MixerPart.tone_core_amplitudes` of every point, one array (P, 1 + harmonics)
+    per tone position (the same arithmetic, element by element)."""
+    port = part.input_port
+    factor = 2.0 * port.resistance_ohm * port.delivered_fraction * 1e-3
+    out = []
+    for k, tone in enumerate(sets[0]):
+        mult = np.arange(1, 2 + len(tone.harmonics_dbc), dtype=float)
+        level = np.empty((len(sets), mult.size))
+        level[:, 0] = powers[:, k]
+        for h, dbc in enumerate(tone.harmonics_dbc, start=1):
+            level[:, h] = powers[:, k] + dbc
+        f = freqs[:, k, None] * mult
+        f[:, 0] = freqs[:, k]
+        mag = np.ones(f.shape)
+        if port.highpass_hz is not None:
+            r = f / port.highpass_hz
+            mag *= r / np.sqrt(1.0 + r * r)
+        if port.lowpass_hz is not None:
+            r = f / port.lowpass_hz
+            mag /= np.sqrt(1.0 + r * r)
+        out.append(np.sqrt(factor * 10.0 ** (level / 10.0)) * mag)
+    return out
+
+
+def _bucket_rows(amps: NDArray[np.float64]) -> NDArray[np.float64]:
+    """The part's ``_bucket_up`` of every amplitude (rounded up to a 1 dB grid)."""
+    from sweeprig.sim.mixer.part import _AMP_BUCKET_DB
+
+    with np.errstate(divide="ignore"):
+        step = np.ceil(20.0 * np.log10(amps) / _AMP_BUCKET_DB)
+    return np.where(amps > 0.0, 10.0 ** (step * _AMP_BUCKET_DB / 20.0), 0.0)
+
+
+def _evaluate_sorted(
+    part: MixerPart, op: OperatingPoint, lo: ToneInput | None, state: _OpState,
+    sets: Sequence[tuple[ToneInput, ...]],
+) -> list[MixerResponse | None]:
+    """:func:`evaluate_group` for points with equal tone frequencies side by side."""
+    cell = state.cell
+    lo_prep = part._lo_prepared(op, lo, state)
+    n_pts, n_tones = len(sets), len(sets[0])
+    n_axes = 1 + n_tones
+    freqs = np.array([[t.freq_hz for t in tones] for tones in sets])  # (P, K)
+    powers = np.array([[t.power_dbm for t in tones] for tones in sets])
+    phases = np.array([[t.phase_rad for t in tones] for tones in sets])
+    tone_amps = _tone_amplitudes(part, sets, freqs, powers)
+    # transconductor factors, solved together per grid shape (cached per 1 dB bucket)
+    x = np.empty((n_pts, len(order_table(n_tones, part.max_rf_order))), dtype=complex)
+    buckets = np.concatenate([_bucket_rows(a) for a in tone_amps], axis=1).tolist()
+    cuts = np.cumsum([a.shape[1] for a in tone_amps])[:-1].tolist()
+    shapes: list[tuple[tuple[int, ...], bool]] = []
+    by_shape: dict[tuple[int, ...], list[int]] = {}
+    for i, row in enumerate(buckets):
+        bucket = tuple(tuple(row[a:b]) for a, b in itertools.pairwise([0, *cuts, len(row)]))
+        key = ("grid", op, bucket)
+        shape = part._cache.get(key)
+        if shape is None:
+            shape = rf_grid_shape(bucket, cell, part.max_rf_order)
+            part._remember(key, shape)
+        shapes.append(shape)
+        by_shape.setdefault(shape[0], []).append(i)
+    for shape, members in by_shape.items():
+        x[members] = rf_factor_rows([a[members] for a in tone_amps], cell, part.max_rf_order,
+                                    shape)
+    names = _Names()
+    floor_w = 1e-3 * 10.0 ** (part.floor_dbm / 10.0)  # the floor _levels applies
+    core = merge_sorted(_combine(part, lo_prep, lo, state, x, freqs, phases, names))
+    has_core = np.zeros(n_pts, dtype=bool)
+    has_core[core.seg] = True
+    imbalance = part.load_mismatch + lo_prep.d0
+    leaks = _output_leaks(part, lo, sets, freqs, powers, phases, n_axes, names)
+    if leaks is not None:
+        leaks = leaks.take(has_core[leaks.seg])
+    if part.cm_second_order and imbalance:
+        cm = _common_mode(part, state, freqs, phases, tone_amps, imbalance, n_axes, names)
+        if cm is not None:
+            core = add_segments(core, cm.take(has_core[cm.seg]), floor_w=floor_w,
+                                later=leaks)
+    if leaks is not None:
+        core = add_entry_segments(core, leaks, floor_w=floor_w)
+    inputs, lo_lines = _port_leaks(part, lo, freqs, powers, phases, sets, n_axes, names)
+    output = _levels(part, core, n_pts, names)
+    input_levels = _levels(part, merge_segments(inputs), n_pts, names) if inputs else None
+    lo_levels = _levels(part, merge_segments(lo_lines), n_pts, names) if lo_lines else None
+    empty = PortLevels(np.zeros(0), np.zeros(0), np.empty(0, dtype=object))
+    common = {
+        "vt_v": cell.vt_v,
+        "tail_current_a": cell.i_ee_a,
+        "gm_s": state.gm_s,
+        "conversion_gain_db": lo_prep.gain_db,
+        "noise_figure_db": lo_prep.noise_figure_db,
+        "lo_grid_n": float(lo_prep.factor.grid_n),
+    }
+    responses: list[MixerResponse | None] = []
+    for i in range(n_pts):
+        if not has_core[i]:
+            responses.append(None)
+            continue
+        shape, converged = shapes[i]
+        notes = dict(common)
+        notes["rf_grid_points"] = float(math.prod(shape))
+        notes["rf_grid_n_max"] = float(max(shape, default=1))
+        notes["grid_converged"] = float(converged and lo_prep.factor.converged)
+        responses.append(MixerResponse(
+            if_port=output[i],
+            rf_port=input_levels[i] if input_levels is not None else empty,
+            lo_port=lo_levels[i] if lo_levels is not None else empty,
+            if_noise_dbm_per_hz=lo_prep.noise_dbm_per_hz,
+            supply_current_a=state.supply_current_a,
+            notes=notes,
+        ))
+    return responses
+
+
+def _sorted_table(
+    fac_orders: NDArray[np.int64], lo_freq: float, rf_row: NDArray[np.float64],
+    n_orders: int, out: PortNetwork | None,
+) -> tuple[NDArray[np.float64], NDArray[np.intp], NDArray[np.intp], NDArray[np.bool_],
+           NDArray[np.float64] | None]:
+    """The frequencies of every (LO order, RF order) pair of one set of tone frequencies
+    (``rf_row[r]``: Σ n_k·f_k of RF order r), sorted (a stable sort: pairs at one
+    frequency keep their table order), with the pairs' LO and RF indices in that order,
+    where the RF order is zero, and the output port's band-edge magnitude there (None
+    without band edges)."""
+    freq = np.add.outer(fac_orders * lo_freq, rf_row).ravel()
+    order = np.argsort(freq, kind="stable")
+    li, pi = np.divmod(order, n_orders)
+    freq = freq[order]
+    band = None if out is None else out.magnitude(freq)
+    for arr in (freq, li, pi, band):
+        if arr is not None:
+            arr.flags.writeable = False
+    zero = pi == 0
+    zero.flags.writeable = False
+    return freq, li, pi, zero, band
+
+
+def _entries_within(
+    abs_x: NDArray[np.float64], fac: LoFactor, table: tuple[NDArray, ...], limit: float,
+    near_limit: float,
+) -> tuple[NDArray[np.intp], NDArray[np.intp]]:
+    """The entries of a sorted table (see :func:`_sorted_table`) that the rows of
+    ``abs_x`` (|X_n|, shape (points, R)) make into lines: bound above ``limit``, frequency
+    above the merge tolerance, bound through the band edges at least ``near_limit``; as
+    (row, entry) index arrays."""
+    freq_u, li_u, pi_u, zero_u, band_u = table
+    bound = abs_x[:, pi_u]
+    bound *= fac.abs_s[li_u]
+    if fac.has_d:
+        bound[:, zero_u] += fac.abs_d[li_u[zero_u]]
+    ok = bound > limit
+    ok &= freq_u > MERGE_TOL_HZ
+    if band_u is not None:
+        bound *= band_u
+        ok &= bound >= near_limit
+    return ok.nonzero()
+
+
+def _combine(
+    part: MixerPart, lo_prep: _LoPrepared, lo: ToneInput | None, state: _OpState,
+    x: NDArray[np.complex128], freqs: NDArray[np.float64], phases: NDArray[np.float64],
+    names: _Names,
+) -> RaggedLines:
+    """:func:`~sweeprig.sim.mixer.multitone.combine` for every point (rows of ``x``), with
+    the part's pruning limit, scaled to sqrt(W) at the output port and through its band
+    edges (the lines these push 20 dB under the floor dropped, as the one-point path
+    does). The lines come out sorted by (point, frequency), not yet merged.
+
+    The points that share their tone frequencies share the table of line frequencies and
+    band-edge magnitudes, sorted once: each point's lines are the entries of that table
+    its factors make strong enough, read in the table's order, so no sort per point."""
+    fac = lo_prep.factor
+    cell = state.cell
+    i_ee = cell.i_ee_a
+    lo_freq = lo.freq_hz if lo is not None else 0.0
+    lo_phase = lo.phase_rad if lo is not None else 0.0
+    orders = order_table(freqs.shape[1], part.max_rf_order)  # (R, K)
+    n_orders = orders.shape[0]
+    limit = state.min_abs_a / i_ee
+    rf_f = freqs @ orders.T.astype(float)  # (P, R): Σ n_k·f_k, as combine's orders @ f
+    out = part.output_port
+    banded = out.highpass_hz is not None or out.lowpass_hz is not None
+    # |line| ≤ I_EE·bound (bound = |S_m|·|X_n| + |D_m|·[n = 0]), so a line whose bound
+    # through the band edges is under the pre-floor (with a margin for rounding) is one
+    # the one-point path drops too
+    near_limit = math.sqrt(state.prefloor_w * (1.0 - 1e-9)) / (i_ee * state.out_scale)
+    abs_x = np.abs(x)
+    s = fac.s * i_ee
+    d = fac.d * i_ee
+    if lo_phase:
+        turn = np.exp(1j * lo_phase * fac.orders)
+        s, d = s * turn, d * turn
+    if phases.any():
+        x = x * np.exp(1j * (phases @ orders.T.astype(float)))
+    rows: dict[tuple[float, ...], list[int]] = {}
+    for i, row in enumerate(map(tuple, freqs.tolist())):
+        rows.setdefault(row, []).append(i)
+    parts = []
+    next_point = 0
+    for row, point_list in rows.items():
+        if point_list != list(range(next_point, next_point + len(point_list))):
+            raise ValueError("points with equal tone frequencies must be consecutive")
+        next_point += len(point_list)
+        members = np.array(point_list)
+        key = (lo_freq, row, fac.orders.tobytes(), part.max_rf_order)
+        table_u = part._tables.get(key)
+        if table_u is None:
+            table_u = _sorted_table(fac.orders, lo_freq, rf_f[point_list[0]], n_orders,
+                                    out if banded else None)
+            part._remember_table(key, table_u)
+        freq_u, li_u, pi_u, zero_u, band_u = table_u
+        ax = abs_x[members]
+        # the table entries that the strongest of these points could make (each point's
+        # bound is at most the bound of the largest |X_n| among them: rounding is monotone)
+        cand = _entries_within(ax.max(axis=0)[None, :], fac, table_u, limit, near_limit)[1]
+        bound = ax[:, pi_u[cand]]
+        bound *= fac.abs_s[li_u[cand]]
+        if fac.has_d:
+            zero_c = zero_u[cand]
+            bound[:, zero_c] += fac.abs_d[li_u[cand][zero_c]]
+        ok = bound > limit
+        if band_u is not None:
+            bound *= band_u[cand]
+            ok &= bound >= near_limit
+        pp, jj = ok.nonzero()
+        j = cand[jj]
+        parts.append((members[pp], freq_u[j], li_u[j], pi_u[j],
+                      band_u[j] if band_u is not None else None))
+    # the groups are runs of consecutive points (evaluate_group put them so): joined, the
+    # lines are in point order, each point's in frequency order (its table's)
+    seg, freq, li, pi = (np.concatenate([p[c] for p in parts]) for c in range(4))
+    band = np.concatenate([p[4] for p in parts]) if banded else None
+    amp = s[li] * x[seg, pi]
+    if fac.has_d:
+        at_zero = (pi == 0).nonzero()[0]
+        if at_zero.size:
+            amp[at_zero] += d[li[at_zero]]
+    amp *= state.out_scale
+    if band is not None:
+        amp *= band
+        keep = (amp.real * amp.real + amp.imag * amp.imag) >= state.prefloor_w
+        if not keep.all():
+            seg, li, pi, freq, amp = seg[keep], li[keep], pi[keep], freq[keep], amp[keep]
+    table = combo_tuples(part.max_lo_order, freqs.shape[1], part.max_rf_order)
+    codes = (fac.orders + part.max_lo_order)[li] * table.shape[1] + pi
+    codes += names.add(table.ravel())
+    return RaggedLines(seg, freq, amp, codes)
+
+
+def _common_mode(
+    part: MixerPart, state: _OpState, freqs: NDArray[np.float64],
+    phases: NDArray[np.float64], tone_amps: list[NDArray[np.float64]], imbalance: float,
+    n_axes: int, names: _Names,
+) -> RaggedLines | None:
+    """The common-mode IM2 lines of every point, at the output port (sqrt(W))."""
+    cell = state.cell
+    layout = tuple(a.shape[1] for a in tone_amps)
+    a_v = 2.0 * cell.vt_v + cell.i_ee_a * cell.r_e_ohm
+    mults = [np.arange(1, n + 1, dtype=float) for n in layout]
+    f = np.concatenate([freqs[:, k, None] * m for k, m in enumerate(mults)], axis=1)
+    v = np.concatenate(tone_amps, axis=1)
+    ph = np.concatenate([phases[:, k, None] * m for k, m in enumerate(mults)], axis=1)
+    cm = common_mode_im2_rows(f, v, ph, layout, n_axes, cell.i_ee_a, a_v,
+                               part.cm_second_order, imbalance)
+    if cm is None:
+        return None
+    seg, freq, amp, orders = cm
+    amp = amp * state.out_scale
+    out = part.output_port
+    if out.highpass_hz is not None or out.lowpass_hz is not None:
+        amp = amp * out.magnitude(freq)
+    return RaggedLines(seg, freq, amp, names.add(orders) + np.arange(orders.size))
+
+
+def _tone_rows(
+    freq: NDArray[np.float64], power: NDArray[np.float64], phase: NDArray[np.float64],
+    harmonics_dbc: tuple[float, ...], axis: int, n_axes: int, loss_db: float,
+    path: LeakPhase | None = None, slope: tuple[float, float] = (0.0, 1.0),
+) -> tuple[NDArray[np.float64], NDArray[np.complex128], NDArray[np.object_]]:
+    """The part's ``_tone_entries`` for one tone position at every point: frequencies and
+    sqrt(W) amplitudes, shape (P, 1 + harmonics), and the orders of the columns."""
+    from sweeprig.sim.mixer.part import _unit_orders
+
+    mult = np.arange(1, 2 + len(harmonics_dbc), dtype=float)
+    loss = np.full(freq.shape, loss_db)
+    extra = np.zeros(mult.size)
+    if slope[0]:
+        loss = loss_db + slope[0] * np.log2(freq / slope[1])
+        extra[1:] = [slope[0] * math.log2(h) for h in range(2, 2 + len(harmonics_dbc))]
+    root_w = 10.0 ** ((power - loss - 30.0) / 20.0)
+    rel = np.ones(mult.size)
+    rel[1:] = [10.0 ** ((dbc - e) / 20.0) for dbc, e in zip(harmonics_dbc, extra[1:],
+                                                           strict=True)]
+    mag = root_w[:, None] * rel[None, :]
+    mag[:, 0] = root_w
+    ang = phase[:, None] * mult[None, :]
+    amp = mag * np.cos(ang) + 1j * (mag * np.sin(ang))
+    f = freq[:, None] * mult[None, :]
+    f[:, 0] = freq
+    if path is not None and (path.phase_rad or path.delay_s):
+        amp *= np.exp(1j * (path.phase_rad - 2.0 * math.pi * f * path.delay_s))
+    orders = np.empty(mult.size, dtype=object)
+    orders[:] = [_unit_orders(n_axes, axis, h) for h in range(1, mult.size + 1)]
+    return f, amp, orders
+
+
+def _rows_to_ragged(
+    rows: list[tuple[NDArray[np.float64], NDArray[np.complex128], NDArray[np.object_]]],
+    n_pts: int, names: _Names,
+) -> RaggedLines:
+    """Per-point blocks of lines (each (P, n) frequencies and amplitudes, n orders) → one
+    ragged set, each point's lines in the blocks' order."""
+    freq = np.concatenate([r[0] for r in rows], axis=1)
+    amp = np.concatenate([r[1] for r in rows], axis=1)
+    orders = np.concatenate([r[2] for r in rows])
+    width = orders.size
+    codes = names.add(orders) + np.arange(width)
+    return RaggedLines(np.repeat(np.arange(n_pts), width), freq.ravel(), amp.ravel(),
+                       np.tile(codes, n_pts))
+
+
+def _fixed_rows(
+    entries: list[tuple[float, complex, tuple[int, ...]]], n_pts: int,
+) -> tuple[NDArray[np.float64], NDArray[np.complex128], NDArray[np.object_]]:
+    """Lines common to every point (the LO's own paths) as a block of rows."""
+    orders = np.empty(len(entries), dtype=object)
+    orders[:] = [e[2] for e in entries]
+    freq = np.array([e[0] for e in entries], dtype=float)
+    amp = np.array([e[1] for e in entries], dtype=complex)
+    return np.tile(freq, (n_pts, 1)), np.tile(amp, (n_pts, 1)), orders
+
+
+def _tone_blocks(
+    part: MixerPart, sets: Sequence[tuple[ToneInput, ...]], freqs: NDArray[np.float64],
+    powers: NDArray[np.float64], phases: NDArray[np.float64], n_axes: int, loss_db: float,
+    path: LeakPhase | None, slope: tuple[float, float] = (0.0, 1.0),
+) -> list[tuple[NDArray[np.float64], NDArray[np.complex128], NDArray[np.object_]]]:
+    return [_tone_rows(freqs[:, k], powers[:, k], phases[:, k], sets[0][k].harmonics_dbc,
+                       1 + k, n_axes, loss_db, path, slope)
+            for k in range(freqs.shape[1])]
+
+
+def _output_leaks(
+    part: MixerPart, lo: ToneInput | None, sets: Sequence[tuple[ToneInput, ...]],
+    freqs: NDArray[np.float64], powers: NDArray[np.float64], phases: NDArray[np.float64],
+    n_axes: int, names: _Names,
+) -> RaggedLines | None:
+    """The linear paths into the output port (input→output, LO→output), in the order the
+    one-point path adds them."""
+    from sweeprig.sim.mixer.part import _tone_entries
+
+    phs = part.leakage_phases
+    rows = []
+    iso = part.isolation_rf_if_db
+    if iso is not None:
+        rows += _tone_blocks(part, sets, freqs, powers, phases, n_axes, iso, phs.rf_to_if,
+                             part._iso_slope("rf_if"))
+    iso = part.isolation_lo_to_output_db
+    if lo is not None and iso is not None:
+        path = phs.lo_to_if if part.conversion == "down" else phs.lo_to_rf
+        rows.append(_fixed_rows(_tone_entries(lo, 0, n_axes, iso, path, part._iso_slope(
+            "lo_if" if part.conversion == "down" else "lo_rf")), len(sets)))
+    return _rows_to_ragged(rows, len(sets), names) if rows else None
+
+
+def _port_leaks(
+    part: MixerPart, lo: ToneInput | None, freqs: NDArray[np.float64],
+    powers: NDArray[np.float64], phases: NDArray[np.float64],
+    sets: Sequence[tuple[ToneInput, ...]], n_axes: int, names: _Names,
+) -> tuple[RaggedLines | None, RaggedLines | None]:
+    """The lines leaving the input port (LO→input, the input reflection) and the LO port
+    (its reflection, input→LO) of every point, unmerged."""
+    from sweeprig.sim.mixer.part import _tone_entries
+
+    phs = part.leakage_phases
+    n_pts = len(sets)
+    inp = part.input_port
+    in_rows = []
+    iso = part.isolation_lo_to_input_db
+    if lo is not None and iso is not None:
+        path = phs.lo_to_rf if part.conversion == "down" else phs.lo_to_if
+        in_rows.append(_fixed_rows(_tone_entries(lo, 0, n_axes, iso, path, part._iso_slope(
+            "lo_rf" if part.conversion == "down" else "lo_if")), n_pts))
+    if inp.return_loss_db is not None:
+        in_rows += _tone_blocks(part, sets, freqs, powers, phases, n_axes,
+                                inp.return_loss_db, phs.input_reflection)
+    lo_rows = []
+    if lo is not None and part.lo_port.return_loss_db is not None:
+        lo_rows.append(_fixed_rows(_tone_entries(lo, 0, n_axes, part.lo_port.return_loss_db,
+                                                 phs.lo_reflection), n_pts))
+    iso = part.isolation_rf_lo_db
+    if iso is not None:
+        lo_rows += _tone_blocks(part, sets, freqs, powers, phases, n_axes, iso, phs.rf_to_lo,
+                                part._iso_slope("rf_lo"))
+    return (_rows_to_ragged(in_rows, n_pts, names) if in_rows else None,
+            _rows_to_ragged(lo_rows, n_pts, names) if lo_rows else None)
+
+
+def _levels(part: MixerPart, lines: RaggedLines, n_pts: int,
+            names: _Names) -> list[PortLevels]:
+    """Sorted, merged lines of every point (orders as codes of ``names``) → each point's
+    lines above the floor (dBm)."""
+    power_w = lines.amp.real**2 + lines.amp.imag**2
+    keep = power_w >= 1e-3 * 10.0 ** (part.floor_dbm / 10.0)  # as part._levels
+    keep &= power_w > 0.0
+    if not keep.all():
+        power_w = power_w[keep]
+        lines = lines.take(keep)
+    power_dbm = 10.0 * np.log10(power_w * 1e3)
+    at = lines.bounds(n_pts).tolist()
+    freq, orders = lines.freq_hz, names[lines.orders]
+    return [PortLevels(freq[a:b], power_dbm[a:b], orders[a:b])
+            for a, b in itertools.pairwise(at)]
+
