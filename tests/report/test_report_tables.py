@@ -18,12 +18,13 @@ from sweeprig.report.tables import (
     figures_frame,
     format_value,
     limit_text,
+    read_figures_document,
     summary_rows,
 )
 
 
 def test_every_figure_points_at_stored_captures(report_run, report_files):
-    document = json.loads(report_files.figures_json.read_text(encoding="utf-8"))
+    document = read_figures_document(report_files.figures_json)
     captures = pd.read_csv(report_files.folder / "captures.csv")
     stored = set(captures["point"].tolist())
     assert len(document["figures"]) == len(report_run.figures)
@@ -97,13 +98,13 @@ def test_infinite_values_do_not_break_the_json(report_run, bad, tmp_path):
                               assessment=dataclasses.replace(report_run.assessment,
                                                              judgements=(), untested=()))
     path = write_figures_json(odd, tmp_path / "f.json")
-    assert json.loads(path.read_text(encoding="utf-8"))["figures"][0]["value"] is None
+    assert read_figures_document(path)["figures"][0]["value"] is None
 
 
 def test_figures_json_says_what_every_flag_means(report_run, report_files):
     from sweeprig.analysis.figures import FLAG_MEANINGS, FLAGS, SUSPECT_FLAGS
 
-    document = json.loads(report_files.figures_json.read_text(encoding="utf-8"))
+    document = read_figures_document(report_files.figures_json)
     assert document["flag_meanings"] == {name: FLAG_MEANINGS[name] for name in FLAGS}
     assert set(document["suspect_flags"]) == set(SUSPECT_FLAGS)
     used = {flag for f in document["figures"] for flag in f["flags"]}
@@ -118,7 +119,7 @@ def test_numbers_carry_their_expanded_uncertainty_and_budget(report_run, report_
     gain = gains[0]
     assert figure_text(gain) == uncertainty_text(gain.value, "dB", gain.uncertainty_db)
     assert figure_text(gain).endswith(" dB (k = 2)") and " ± " in figure_text(gain)
-    document = json.loads(report_files.figures_json.read_text(encoding="utf-8"))
+    document = read_figures_document(report_files.figures_json)
     by_name = {}
     for entry in document["figures"]:
         by_name.setdefault(entry["name"], entry)
@@ -135,7 +136,7 @@ def test_numbers_carry_their_expanded_uncertainty_and_budget(report_run, report_
             lines = [terms[i]["contribution_db"] for i in entry["budget"]["contributions"]]
             assert entry["budget"]["combined_standard_uncertainty_db"] == pytest.approx(
                 math.sqrt(sum(c * c for c in lines)))
-    assert document["format"] == "sweeprig figures 2"
+    assert document["format"] == "sweeprig figures 3"
     assert document["budget_method"].startswith("JCGM 100:2008")
     # No budget for a figure in amperes; bounds carry none either.
     if "supply_current" in by_name:
@@ -160,7 +161,7 @@ def test_streamed_figures_json_holds_the_whole_document(report_run, tmp_path, mo
     expected.pop("generated_utc")
     assert written == expected
     assert list(written) == list(expected)
-    assert len(written["figures"]) == len(report_run.figures)
+    assert written["figure_count"] == len(report_run.figures)
 
 
 def test_figures_table_text_is_figure_text(report_run):
@@ -173,3 +174,64 @@ def test_figures_table_text_is_figure_text(report_run):
     assert frame["flags"].tolist() == [" ".join(f.flags) for f in report_run.figures]
     assert frame["points"].tolist() == [" ".join(str(p) for p in f.points)
                                         for f in report_run.figures]
+
+
+def test_figures_json_keeps_its_figures_and_budgets_in_tables_beside_it(report_run,
+                                                                        report_files):
+    """Format 3: the JSON holds the run, limits, judgements and summary; the figures are
+    the rows of figures.csv and each distinct budget is one row of budgets.csv."""
+    document = json.loads(report_files.figures_json.read_text(encoding="utf-8"))
+    assert "figures" not in document
+    assert document["figure_table"]["file"] == "figures.csv"
+    assert document["figure_table"]["rows"] == document["figure_count"] == len(
+        report_run.figures)
+    figures = pd.read_csv(report_files.folder / "figures.csv", keep_default_na=False)
+    budgets = pd.read_csv(report_files.folder / "budgets.csv")
+    assert list(budgets.columns) == document["budget_table"]["columns"]
+    assert len(budgets) == document["budget_table"]["rows"]
+    assert not budgets.duplicated(["coverage_factor", "contributions"]).any()
+    terms = pd.read_csv(report_files.folder / "budget-terms.csv")
+    assert list(terms.columns) == document["budget_terms_table"]["columns"]
+    assert len(terms) == document["budget_terms_table"]["rows"]
+    assert "budget_terms" not in document
+    used = {int(b) for b in figures["budget"] if b != ""}
+    assert used == set(budgets["budget"])
+    # every figure with an uncertainty has a budget that states it
+    expanded = dict(zip(budgets["budget"], budgets["expanded_uncertainty_db"], strict=True))
+    for u, b in zip(figures["uncertainty_db"], figures["budget"], strict=True):
+        assert (u == "") == (b == "")
+        if b != "":
+            assert float(u) == pytest.approx(expanded[int(b)])
+    # the summary names the figure row it shows
+    assert document["summary"]
+    for row in document["summary"]:
+        assert figures["name"][row["figure"]] == row["name"]
+
+
+def test_a_format_2_figures_file_is_still_read(tmp_path):
+    old = {"format": "sweeprig figures 2", "verdict": "pass",
+           "figures": [{"name": "conversion_gain", "value": 7.1}], "budget_terms": []}
+    path = tmp_path / "figures.json"
+    path.write_text(json.dumps(old), encoding="utf-8")
+    assert read_figures_document(path) == old
+
+
+@pytest.mark.parametrize("text", ['{"format": "sweeprig figures 9"}', "[1, 2]", "{"])
+def test_an_unknown_figures_file_is_refused_naming_it(tmp_path, text):
+    from sweeprig.errors import StoreError
+
+    path = tmp_path / "figures.json"
+    path.write_text(text, encoding="utf-8")
+    with pytest.raises(StoreError) as caught:
+        read_figures_document(path)
+    assert str(path) in str(caught.value) and caught.value.fix
+
+
+def test_a_format_3_file_without_its_tables_is_refused(report_files, tmp_path):
+    from sweeprig.errors import StoreError
+
+    lone = tmp_path / "figures.json"
+    lone.write_bytes(report_files.figures_json.read_bytes())
+    with pytest.raises(StoreError, match="cannot read a table") as caught:
+        read_figures_document(lone)
+    assert "figures.csv" in caught.value.fix and "budget-terms.csv" in caught.value.fix
