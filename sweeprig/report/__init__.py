@@ -54,10 +54,11 @@ def write_report(run: RunFigures, folder: Path | str) -> ReportFiles:
     out = make_folder(Path(folder))
     budgets = figure_budgets(run)
     tables = write_tables(run, out, budgets=budgets)
+    summary = summary_rows(run)
     # the figure table (figures.csv) is written by write_tables, with the same budgets
     figures = write_figures_json(run, out / "figures.json", budgets=budgets,
-                                 rows_written=True)
-    page = write_html(out / "report.html", run, summary_rows(run), all_plots(run))
+                                 rows_written=True, summary=summary)
+    page = write_html(out / "report.html", run, summary, all_plots(run))
     return ReportFiles(out, page, figures, tuple(tables),
                        (out / BUDGETS_FILE, out / BUDGET_TERMS_FILE))
 

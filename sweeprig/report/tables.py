@@ -478,7 +478,8 @@ def _text3(f: Figure) -> str:
     return figure_text(f, 3)
 
 
-def _document(run: RunFigures, budgets: FigureBudgets) -> dict[str, Any]:
+def _document(run: RunFigures, budgets: FigureBudgets,
+              summary: Sequence[SummaryRow] | None = None) -> dict[str, Any]:
     """Everything the report states but the per-figure rows, as JSON-able data
     (``figures.json``, format 3).
 
@@ -504,7 +505,8 @@ def _document(run: RunFigures, budgets: FigureBudgets) -> dict[str, Any]:
     by entry.
     """
     limit_index = {id(li): i for i, li in enumerate(run.limits)}
-    summary = summary_rows(run)
+    if summary is None:
+        summary = summary_rows(run)
     wanted = {id(j.figure) for j in run.assessment.judgements}
     wanted.update(id(r.figure) for r in summary)
     index = {id(f): i for i, f in enumerate(run.figures) if id(f) in wanted}
@@ -720,13 +722,15 @@ _JSON_CHUNK = 2000
 
 
 def write_figures_json(run: RunFigures, path: Path, *, budgets: FigureBudgets | None = None,
-                       rows_written: bool = False) -> Path:
+                       rows_written: bool = False,
+                       summary: Sequence[SummaryRow] | None = None) -> Path:
     """Write :func:`figures_document` to ``path`` (UTF-8, compact: one top-level key per
     line) and its tables beside it: :data:`BUDGET_TERMS_FILE`, :data:`BUDGETS_FILE` and
     (unless ``rows_written``: the
     caller wrote :func:`figures_frame` there already, with the same ``budgets``)
-    :data:`FIGURE_ROWS_FILE`. The long lists are encoded and written in chunks, so the whole
-    text never sits in memory, and with the C encoder."""
+    :data:`FIGURE_ROWS_FILE`. ``summary``: :func:`summary_rows` of ``run`` when the caller
+    has them. The long lists are encoded and written in chunks, so the whole text never sits
+    in memory, and with the C encoder."""
     from sweeprig.report.csv_table import write_frame_csv
 
     if budgets is None:
@@ -746,7 +750,7 @@ def write_figures_json(run: RunFigures, path: Path, *, budgets: FigureBudgets | 
     try:
         with path.open("w", encoding="utf-8") as out, collector_paused():
             out.write("{")
-            for k, (key, value) in enumerate(_document(run, budgets).items()):
+            for k, (key, value) in enumerate(_document(run, budgets, summary).items()):
                 out.write(("," if k else "") + "\n" + encode(key) + ":")
                 if not isinstance(value, _Stream):
                     out.write(encode(_finite(value)))
