@@ -58,6 +58,7 @@ def write_report(run: RunFigures, folder: Path | str) -> ReportFiles:
     # the figure table (figures.csv) is written by write_tables, with the same budgets
     figures = write_figures_json(run, out / "figures.json", budgets=budgets,
                                  rows_written=True, summary=summary)
+    del budgets  # a large run's distinct budgets: not held while the plots are drawn
     page = write_html(out / "report.html", run, summary, all_plots(run))
     return ReportFiles(out, page, figures, tuple(tables),
                        (out / BUDGETS_FILE, out / BUDGET_TERMS_FILE))

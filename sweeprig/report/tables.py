@@ -41,6 +41,7 @@ from sweeprig.analysis.reduce import RunFigures
 from sweeprig.analysis.uncertainty import (
     BUDGET_METHOD,
     COVERAGE_FACTOR,
+    DIVISORS,
     Budget,
     Contribution,
     uncertainty_text,
@@ -685,14 +686,27 @@ def budgets_frame(budgets: FigureBudgets) -> pd.DataFrame:
 
 def budget_terms_frame(budgets: FigureBudgets) -> pd.DataFrame:
     """The table of distinct budget lines (``budget-terms.csv``, columns
-    :data:`BUDGET_TERM_COLUMNS`): every line complete, with its source, distribution,
-    divisor, sensitivity, contribution and GUM type."""
-    entries = [term.as_dict() for term in budgets.terms]
-    columns: dict[str, object] = {"term": np.arange(len(entries), dtype=np.int64)}
-    for key in BUDGET_TERM_COLUMNS[1:]:
-        values = [e[key] for e in entries]
-        columns[key] = (np.array(values, dtype=float) if key in _TERM_NUMBERS
-                        else pd.Series(values, dtype=object))
+    :data:`BUDGET_TERM_COLUMNS`, the keys of :meth:`Contribution.as_dict`): every line
+    complete, with its source, distribution, divisor, sensitivity, contribution and GUM
+    type. Built column by column from the lines (a large run has hundreds of thousands of
+    lines: a dict per line would hold gigabytes)."""
+    terms = budgets.terms
+    half = np.array([t.half_width_db for t in terms], dtype=float)
+    shapes = [t.shape for t in terms]
+    divisors = {shape: DIVISORS.get(shape, math.nan) for shape in set(shapes)}
+    columns: dict[str, object] = {
+        "term": np.arange(len(terms), dtype=np.int64),
+        "name": pd.Series([t.name for t in terms], dtype=object),
+        "what": pd.Series([t.what for t in terms], dtype=object),
+        "half_width_db": half,
+        "distribution": pd.Series(shapes, dtype=object),
+        "divisor": np.array([divisors[s] for s in shapes], dtype=float),
+        "standard_uncertainty_db": np.array([t.standard_db for t in terms], dtype=float),
+        "sensitivity": np.array([t.sensitivity for t in terms], dtype=float),
+        "contribution_db": np.array([t.contribution_db for t in terms], dtype=float),
+        "type": pd.Series([t.kind for t in terms], dtype=object),
+        "origin": pd.Series([t.origin for t in terms], dtype=object),
+    }
     return pd.DataFrame(columns, columns=list(BUDGET_TERM_COLUMNS))
 
 

@@ -235,3 +235,23 @@ def test_a_format_3_file_without_its_tables_is_refused(report_files, tmp_path):
     with pytest.raises(StoreError, match="cannot read a table") as caught:
         read_figures_document(lone)
     assert "figures.csv" in caught.value.fix and "budget-terms.csv" in caught.value.fix
+
+
+def test_every_budget_line_is_written_whole(report_run):
+    """budget-terms.csv's rows are the lines' own as_dict (source, shape, divisor,
+    sensitivity, contribution, GUM type), and every budget row adds its lines up to its u_c
+    (JCGM 100:2008 eq. (10))."""
+    from sweeprig.report.tables import budget_terms_frame, budgets_frame, figure_budgets
+
+    budgets = figure_budgets(report_run)
+    terms = budget_terms_frame(budgets)
+    assert len(terms) == len(budgets.terms) > 0
+    for row, term in zip(terms.to_dict("records"), budgets.terms, strict=True):
+        assert row.pop("term") >= 0
+        assert row == term.as_dict()
+    table = budgets_frame(budgets)
+    contribution = terms["contribution_db"].to_numpy()
+    for u, lines in zip(table["combined_standard_uncertainty_db"], table["contributions"],
+                        strict=True):
+        picked = contribution[[int(i) for i in lines.split()]]
+        assert u == pytest.approx(math.sqrt(float((picked ** 2).sum())))
