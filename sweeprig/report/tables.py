@@ -883,38 +883,35 @@ def figures_frame(run: RunFigures, budgets: FigureBudgets | None = None) -> pd.D
     over its limits, empty when none applies), ``flags`` and ``points`` (space-separated),
     ``budget`` (its number in the distinct-budget table, :func:`figure_budgets`; empty
     without one), then one column per condition."""
+    from sweeprig.analysis.figure_table import BASE_COLUMNS, figure_table
+    from sweeprig.analysis.figures import flags_from_mask
+
     if budgets is None:
         budgets = figure_budgets(run)
     verdicts = figure_verdicts(run)
-    keys = _condition_keys(run)
-    flag_texts: dict[tuple[str, ...], str] = {}
-    flags: list[object] = []
-    for f in run.figures:
-        text = flag_texts.get(f.flags)
-        if text is None:
-            text = flag_texts[f.flags] = " ".join(f.flags)
-        flags.append(text)
-    rows: dict[str, list[object]] = {
-        "figure": list(range(len(run.figures))),
-        "name": [f.name for f in run.figures],
-        "value": [f.value for f in run.figures],
-        "unit": [f.unit for f in run.figures],
-        "bound": [f.bound or "" for f in run.figures],
-        "uncertainty_db": [f.uncertainty_db for f in run.figures],
-        "text": [_text3(f) for f in run.figures],
-        "verdict": [verdicts.get(id(f), "") for f in run.figures],
-        "flags": flags,
-        "points": [" ".join(map(str, f.points)) for f in run.figures],
+    figures = run.figures
+    # the one builder of a figure table's columns (values, conditions), here made into text
+    table = figure_table(figures)
+    flag_texts = {mask: " ".join(flags_from_mask(mask))
+                  for mask in set(table["flags"].tolist())}
+    columns: dict[str, object] = {
+        "figure": np.arange(len(figures), dtype=np.int64),
+        "name": table["name"].to_numpy(),
+        "value": table["value"].to_numpy(),
+        "unit": table["unit"].to_numpy(),
+        "bound": table["bound"].to_numpy(),
+        "uncertainty_db": table["uncertainty_db"].to_numpy(),
+        "text": [_text3(f) for f in figures],
+        "verdict": [verdicts.get(id(f), "") for f in figures],
+        "flags": [flag_texts[m] for m in table["flags"].tolist()],
+        "points": [" ".join(map(str, p)) for p in table["points"].tolist()],
         # object: whole numbers with empty cells (a list would become floats with NaN)
-        "budget": pd.Series(budgets.ids, dtype=object),  # type: ignore[dict-item]
+        "budget": pd.Series(budgets.ids, dtype=object),
     }
-    for key in keys:
-        column = [f.conditions.get(key) for f in run.figures]
-        if key == "study" or any(isinstance(v, str) for v in column):
-            rows[key] = ["" if v is None else str(v) for v in column]
-        else:
-            rows[key] = [np.nan if v is None else float(v) for v in column]  # type: ignore
-    return pd.DataFrame(rows)
+    for key in table.columns:
+        if key not in BASE_COLUMNS:
+            columns[key] = table[key].to_numpy()
+    return pd.DataFrame(columns)
 
 
 #: Table formats :func:`write_tables` writes.
