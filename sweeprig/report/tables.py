@@ -3,10 +3,14 @@
 * :func:`summary_rows` — what a report shows at a glance: one row per headline figure and
   group of conditions (study, temperature, supply), the worst figure of the group against
   its limit, the verdict of the group, and the validity flags met in it.
-* :func:`figures_document` — every figure with its value, bound, unit, conditions, flags,
-  verdicts and the run-store point indices behind it (``figures.json``).
-* :func:`figures_frame` / :func:`write_tables` — the same figures and the raw captures as
-  tidy tables (``figures.csv``/``.parquet``, ``captures.csv``/``.parquet``).
+* :func:`figures_document` — the run, its limits, judgements, verdict and summary
+  (``figures.json``, format 3), naming the tables beside it that hold the figures and their
+  budgets; :func:`read_figures_document` reads it back (format 2 too).
+* :func:`figures_frame` / :func:`write_tables` — every figure with its value, bound, unit,
+  conditions, flags, verdict, budget number and the run-store point indices behind it, and
+  the raw captures, as tidy tables (``figures.csv``/``.parquet``, ``captures.csv``/
+  ``.parquet``); :func:`budgets_frame` / :func:`budget_terms_frame` the distinct budgets and
+  budget lines (``budgets.csv``, ``budget-terms.csv``).
 
 Also the text formatting shared by the HTML and terminal reports (values with units,
 conditions, flag badges and their explanations).
