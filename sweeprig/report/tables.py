@@ -21,7 +21,7 @@ from __future__ import annotations
 import json
 import math
 import re
-from collections.abc import Iterable, Mapping, Sequence
+from collections.abc import Iterable, Iterator, Mapping, Sequence
 from dataclasses import dataclass
 from datetime import UTC, datetime
 from pathlib import Path
@@ -887,34 +887,80 @@ def figures_frame(run: RunFigures, budgets: FigureBudgets | None = None) -> pd.D
     over its limits, empty when none applies), ``flags`` and ``points`` (space-separated),
     ``budget`` (its number in the distinct-budget table, :func:`figure_budgets`; empty
     without one), then one column per condition."""
-    from sweeprig.analysis.figure_table import BASE_COLUMNS, figure_table
-    from sweeprig.analysis.figures import flags_from_mask
-
     if budgets is None:
         budgets = figure_budgets(run)
+    return _figure_rows(run, budgets, 0, len(run.figures), _condition_kinds(run),
+                        figure_verdicts(run))
+
+
+#: Figures per slice of the figure table when it is written (bounds the rows held at once).
+FIGURE_SLICE_ROWS = 50_000
+
+
+def figure_frames(run: RunFigures, budgets: FigureBudgets | None = None,
+                  rows: int | None = None) -> Iterator[pd.DataFrame]:
+    """:func:`figures_frame` in slices of ``rows`` figures (:data:`FIGURE_SLICE_ROWS`), each
+    with every column of the whole table and the same column types: concatenated, they are
+    the whole table. A large run's table is written slice by slice, never held whole."""
+    if budgets is None:
+        budgets = figure_budgets(run)
+    step = rows or FIGURE_SLICE_ROWS
+    kinds = _condition_kinds(run)
     verdicts = figure_verdicts(run)
-    figures = run.figures
+    count = len(run.figures)
+    for first in range(0, max(count, 1), step):
+        yield _figure_rows(run, budgets, first, min(first + step, count), kinds, verdicts)
+
+
+def _condition_kinds(run: RunFigures) -> dict[str, bool]:
+    """Every condition key of the run's figures in order of first appearance, and whether
+    its column is text (``study``, or any key with a text value)."""
+    kinds: dict[str, bool] = {}
+    seen: set[int] = set()
+    for f in run.figures:
+        if id(f.conditions) in seen:
+            continue
+        seen.add(id(f.conditions))
+        for k, v in f.conditions.items():
+            kinds[k] = kinds.get(k, False) or k == "study" or isinstance(v, str)
+    return kinds
+
+
+def _figure_rows(run: RunFigures, budgets: FigureBudgets, first: int, stop: int,
+                 kinds: Mapping[str, bool], verdicts: Mapping[int, str]) -> pd.DataFrame:
+    """Rows ``first`` to ``stop`` of the figure table (see :func:`figures_frame`), with a
+    column for every key of ``kinds``; ``verdicts``: :func:`figure_verdicts` of ``run``."""
+    from sweeprig.analysis.figure_table import figure_table
+    from sweeprig.analysis.figures import flags_from_mask
+
+    figures = run.figures[first:stop]
     # the one builder of a figure table's columns (values, conditions), here made into text
     table = figure_table(figures)
     flag_texts = {mask: " ".join(flags_from_mask(mask))
                   for mask in set(table["flags"].tolist())}
     columns: dict[str, object] = {
-        "figure": np.arange(len(figures), dtype=np.int64),
-        "name": table["name"].to_numpy(),
+        "figure": np.arange(first, stop, dtype=np.int64),
+        "name": table["name"].to_numpy(dtype=object),
         "value": table["value"].to_numpy(),
-        "unit": table["unit"].to_numpy(),
-        "bound": table["bound"].to_numpy(),
+        "unit": table["unit"].to_numpy(dtype=object),
+        "bound": table["bound"].to_numpy(dtype=object),
         "uncertainty_db": table["uncertainty_db"].to_numpy(),
-        "text": [_text3(f) for f in figures],
-        "verdict": [verdicts.get(id(f), "") for f in figures],
-        "flags": [flag_texts[m] for m in table["flags"].tolist()],
-        "points": [" ".join(map(str, p)) for p in table["points"].tolist()],
+        "text": np.array([_text3(f) for f in figures], dtype=object),
+        "verdict": np.array([verdicts.get(id(f), "") for f in figures], dtype=object),
+        "flags": np.array([flag_texts[m] for m in table["flags"].tolist()], dtype=object),
+        "points": np.array([" ".join(map(str, p)) for p in table["points"].tolist()],
+                           dtype=object),
         # object: whole numbers with empty cells (a list would become floats with NaN)
-        "budget": pd.Series(budgets.ids, dtype=object),
+        "budget": np.array(budgets.ids[first:stop], dtype=object),
     }
-    for key in table.columns:
-        if key not in BASE_COLUMNS:
-            columns[key] = table[key].to_numpy()
+    for key, text in kinds.items():
+        if text:
+            columns[key] = np.array(["" if v is None else str(v) for v in
+                                     (f.conditions.get(key) for f in figures)], dtype=object)
+        elif key in table.columns:
+            columns[key] = table[key].to_numpy(dtype=float)
+        else:
+            columns[key] = np.full(len(figures), np.nan)
     return pd.DataFrame(columns)
 
 
@@ -937,23 +983,77 @@ def write_tables(
         formats = [f for f in TABLE_FORMATS if f != "parquet" or parquet_available()]
     elif "parquet" in formats:
         require_parquet(str(folder))
-    with collector_paused():
-        tables = {"captures": run.captures, "figures": figures_frame(run, budgets)}
     written: list[Path] = []
-    for name, frame in tables.items():
-        for fmt in formats:
-            path = folder / f"{name}.{fmt}"
-            try:
-                if fmt == "csv":
-                    write_frame_csv(frame, path)
-                elif fmt == "parquet":
-                    frame.to_parquet(path, index=False, engine="pyarrow")
-                else:
-                    raise ValueError(fmt)
-            except OSError as exc:
-                raise _write_error(path, exc) from None
-            written.append(path)
+    for fmt in formats:
+        path = folder / f"captures.{fmt}"
+        try:
+            if fmt == "csv":
+                write_frame_csv(run.captures, path)
+            elif fmt == "parquet":
+                run.captures.to_parquet(path, index=False, engine="pyarrow")
+            else:
+                raise ValueError(fmt)
+        except OSError as exc:
+            raise _write_error(path, exc) from None
+        written.append(path)
+    if budgets is None:
+        budgets = figure_budgets(run)
+    paths = {fmt: folder / f"figures.{fmt}" for fmt in formats}
+    if not paths:
+        return written
+    try:
+        with collector_paused(), _FigureTableWriters(paths) as writers:
+            for frame in figure_frames(run, budgets):
+                writers.write(frame)
+    except OSError as exc:
+        raise _write_error(next(iter(paths.values())), exc) from None
+    written += paths.values()
     return written
+
+
+class _FigureTableWriters:
+    """The figure table written slice by slice to CSV and/or Parquet (one row group a
+    slice; the column types are fixed by the first slice: :func:`figure_frames` keeps them)."""
+
+    def __init__(self, paths: Mapping[str, Path]) -> None:
+        self.paths = paths
+        self._csv: Any = None
+        self._csv_file: Any = None
+        self._header = True
+        self._parquet: Any = None
+
+    def __enter__(self) -> _FigureTableWriters:
+        import csv
+
+        if "csv" in self.paths:
+            self._csv_file = self.paths["csv"].open("w", encoding="utf-8", newline="")
+            self._csv = csv.writer(self._csv_file, lineterminator="\n")
+        return self
+
+    def write(self, frame: pd.DataFrame) -> None:
+        from sweeprig.report.csv_table import write_frame_rows
+
+        if self._csv is not None:
+            write_frame_rows(self._csv, frame, header=self._header)
+            self._header = False
+        if "parquet" in self.paths:
+            import pyarrow as pa
+            import pyarrow.parquet as pq
+
+            frame = frame.assign(budget=pd.array(frame["budget"].tolist(), dtype="Int64"))
+            if self._parquet is None:
+                table = pa.Table.from_pandas(frame, preserve_index=False)
+                self._parquet = pq.ParquetWriter(self.paths["parquet"], table.schema)
+            else:
+                table = pa.Table.from_pandas(frame, preserve_index=False,
+                                             schema=self._parquet.schema)
+            self._parquet.write_table(table)
+
+    def __exit__(self, *exc: object) -> None:
+        if self._csv_file is not None:
+            self._csv_file.close()
+        if self._parquet is not None:
+            self._parquet.close()
 
 
 def make_folder(folder: Path, *, what: str = "report folder", option: str = "--out") -> Path:

@@ -255,3 +255,26 @@ def test_every_budget_line_is_written_whole(report_run):
                         strict=True):
         picked = contribution[[int(i) for i in lines.split()]]
         assert u == pytest.approx(math.sqrt(float((picked ** 2).sum())))
+
+
+@pytest.mark.parametrize("rows", [29, 100_000])
+def test_the_figure_table_written_in_slices_is_the_whole_table(report_run, tmp_path,
+                                                               monkeypatch, rows):
+    """figures.csv and figures.parquet are written a slice of figures at a time; whatever
+    the slice, they hold exactly figures_frame (every slice has every column)."""
+    from sweeprig.report import tables
+    from sweeprig.report.csv_table import write_frame_csv
+
+    monkeypatch.setattr(tables, "FIGURE_SLICE_ROWS", rows)
+    whole = figures_frame(report_run)
+    slices = list(tables.figure_frames(report_run))
+    assert all(list(s.columns) == list(whole.columns) for s in slices)
+    written = tables.write_tables(report_run, tmp_path)
+    assert {p.name for p in written} == {"captures.csv", "captures.parquet", "figures.csv",
+                                        "figures.parquet"}
+    write_frame_csv(whole, tmp_path / "whole.csv")
+    assert (tmp_path / "figures.csv").read_bytes() == (tmp_path / "whole.csv").read_bytes()
+    parquet = pd.read_parquet(tmp_path / "figures.parquet")
+    assert list(parquet.columns) == list(whole.columns) and len(parquet) == len(whole)
+    assert parquet["budget"].tolist() == [pd.NA if b is None else b for b in whole["budget"]]
+    pd.testing.assert_frame_equal(parquet.drop(columns="budget"), whole.drop(columns="budget"))
