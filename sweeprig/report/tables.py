@@ -510,6 +510,7 @@ def _document(run: RunFigures, budgets: FigureBudgets,
     by entry.
     """
     limit_index = {id(li): i for i, li in enumerate(run.limits)}
+    kinds = _condition_kinds(run)
     if summary is None:
         summary = summary_rows(run)
     wanted = {id(j.figure) for j in run.assessment.judgements}
@@ -570,7 +571,8 @@ def _document(run: RunFigures, budgets: FigureBudgets,
         ],
         "figure_count": len(run.figures),
         "figure_table": {"file": FIGURE_ROWS_FILE, "rows": len(run.figures),
-                         "columns": list(FIGURE_COLUMNS), "conditions": _condition_keys(run)},
+                         "columns": list(FIGURE_COLUMNS), "conditions": list(kinds),
+                         "text_conditions": [k for k, text in kinds.items() if text]},
         "judgements": _Stream(
             {"figure": index[id(j.figure)], "limit": limit_index[id(j.limit)],
              "verdict": j.verdict, "reason": j.reason}
@@ -714,20 +716,6 @@ def budget_terms_frame(budgets: FigureBudgets) -> pd.DataFrame:
     return pd.DataFrame(columns, columns=list(BUDGET_TERM_COLUMNS))
 
 
-def _condition_keys(run: RunFigures) -> list[str]:
-    """Every condition key of the run's figures, in order of first appearance."""
-    keys: dict[str, None] = {}
-    seen: set[int] = set()
-    for f in run.figures:
-        if id(f.conditions) in seen:
-            continue
-        seen.add(id(f.conditions))
-        for k in f.conditions:
-            if k not in keys:
-                keys[k] = None
-    return list(keys)
-
-
 def figures_document(run: RunFigures) -> dict[str, Any]:
     """Everything the report states but the per-figure rows, as JSON-able data
     (``figures.json``; see :func:`_document` for what is in it)."""
@@ -835,7 +823,8 @@ def read_figures_document(path: Path) -> dict[str, Any]:
         with (path.parent / budget_table["file"]).open(encoding="utf-8", newline="") as f:
             budgets = [_budget_entry(row) for row in csv.DictReader(f)]
         with (path.parent / table["file"]).open(encoding="utf-8", newline="") as f:
-            figures = [_figure_entry(row, table["conditions"], budgets)
+            text = frozenset(table["text_conditions"])
+            figures = [_figure_entry(row, table["conditions"], text, budgets)
                        for row in csv.DictReader(f)]
     except (OSError, KeyError, ValueError, IndexError) as exc:
         raise StoreError(f"cannot read a table of the figures file: {exc}", where=where,
@@ -865,14 +854,15 @@ def _budget_entry(row: Mapping[str, str]) -> dict[str, object]:
 
 
 def _figure_entry(row: Mapping[str, str], conditions: Sequence[str],
-                  budgets: Sequence[dict[str, object]]) -> dict[str, object]:
+                  text_conditions: frozenset[str], budgets: Sequence[dict[str, object]]
+                  ) -> dict[str, object]:
     bound = row["bound"] or None
     conds: dict[str, object] = {}
     for key in conditions:
         cell = row[key]
         if cell == "":
             continue
-        conds[key] = cell if key == "study" else float(cell)
+        conds[key] = cell if key in text_conditions else float(cell)
     return {"name": row["name"], "value": _cell_number(row["value"]), "unit": row["unit"],
             "bound": bound, "text": row["text"], "conditions": conds,
             "flags": row["flags"].split(), "points": [int(p) for p in row["points"].split()],

@@ -278,3 +278,20 @@ def test_the_figure_table_written_in_slices_is_the_whole_table(report_run, tmp_p
     assert list(parquet.columns) == list(whole.columns) and len(parquet) == len(whole)
     assert parquet["budget"].tolist() == [pd.NA if b is None else b for b in whole["budget"]]
     pd.testing.assert_frame_equal(parquet.drop(columns="budget"), whole.drop(columns="budget"))
+
+
+def test_text_conditions_read_back_as_text(report_run, tmp_path):
+    """A condition holding words (a noise figure's sideband) reads back as words, numbers as
+    numbers, and a condition a figure lacks stays absent."""
+    import dataclasses
+
+    from sweeprig.report.tables import write_figures_json
+
+    conditions = [{"study": "nf", "sideband": "ssb", "temperature_c": 25.0},
+                  {"study": "band", "rf_freq_hz": 2.4e9}]
+    odd = dataclasses.replace(
+        report_run, figures=tuple(Figure("noise_figure", 5.0 + i, "dB", conditions=c)
+                                  for i, c in enumerate(conditions)),
+        assessment=dataclasses.replace(report_run.assessment, judgements=(), untested=()))
+    path = write_figures_json(odd, tmp_path / "f.json")
+    assert [f["conditions"] for f in read_figures_document(path)["figures"]] == conditions
