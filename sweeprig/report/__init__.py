@@ -1,8 +1,11 @@
 """sweeprig.report: a reduced run (:class:`~sweeprig.analysis.reduce.RunFigures`) as files.
 
 :func:`write_report` writes the whole set into one folder: ``report.html`` (self-contained,
-plots embedded), ``figures.json`` (every figure with the point indices behind it), and the
-tidy tables ``figures.csv``/``.parquet`` and ``captures.csv``/``.parquet``. The pieces:
+plots embedded), ``figures.json`` (the run, its limits, verdicts and summary; format 3), the
+tidy tables ``figures.csv``/``.parquet`` (every figure with the point indices behind it: the
+figure table ``figures.json`` refers to) and ``captures.csv``/``.parquet``, and
+``budgets.csv`` and ``budget-terms.csv`` (every distinct uncertainty budget and budget line
+once). The pieces:
 :mod:`~sweeprig.report.plots`, :mod:`~sweeprig.report.html`, :mod:`~sweeprig.report.tables`,
 :mod:`~sweeprig.report.terminal`.
 """
@@ -23,10 +26,12 @@ class ReportFiles:
     html: Path
     figures_json: Path
     tables: tuple[Path, ...]
+    #: The distinct-budget tables beside ``figures_json`` (budgets, then budget lines).
+    budgets: tuple[Path, ...] = ()
 
     @property
     def all(self) -> tuple[Path, ...]:
-        return (self.html, self.figures_json, *self.tables)
+        return (self.html, self.figures_json, *self.tables, *self.budgets)
 
 
 def write_report(run: RunFigures, folder: Path | str) -> ReportFiles:
@@ -36,13 +41,27 @@ def write_report(run: RunFigures, folder: Path | str) -> ReportFiles:
     """
     from sweeprig.report.html import write_html
     from sweeprig.report.plots import all_plots
-    from sweeprig.report.tables import make_folder, summary_rows, write_figures_json, write_tables
+    from sweeprig.report.tables import (
+        BUDGET_TERMS_FILE,
+        BUDGETS_FILE,
+        figure_budgets,
+        make_folder,
+        summary_rows,
+        write_figures_json,
+        write_tables,
+    )
 
     out = make_folder(Path(folder))
-    tables = write_tables(run, out)
-    figures = write_figures_json(run, out / "figures.json")
-    page = write_html(out / "report.html", run, summary_rows(run), all_plots(run))
-    return ReportFiles(out, page, figures, tuple(tables))
+    budgets = figure_budgets(run)
+    tables = write_tables(run, out, budgets=budgets)
+    summary = summary_rows(run)
+    # the figure table (figures.csv) is written by write_tables, with the same budgets
+    figures = write_figures_json(run, out / "figures.json", budgets=budgets,
+                                 rows_written=True, summary=summary)
+    del budgets  # a large run's distinct budgets: not held while the plots are drawn
+    page = write_html(out / "report.html", run, summary, all_plots(run))
+    return ReportFiles(out, page, figures, tuple(tables),
+                       (out / BUDGETS_FILE, out / BUDGET_TERMS_FILE))
 
 
 __all__ = ["ReportFiles", "write_report"]

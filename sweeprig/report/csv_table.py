@@ -16,6 +16,7 @@ import csv
 import io
 import math
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -75,10 +76,19 @@ def write_frame_csv(frame: pd.DataFrame, path: Path, chunk_rows: int = CHUNK_ROW
     """Write ``frame`` (no index) to ``path`` as CSV, ``chunk_rows`` rows at a time. OSError
     propagates (the caller names the file)."""
     with path.open("w", encoding="utf-8", newline="") as out:
-        writer = csv.writer(out, lineterminator="\n")
-        writer.writerow([str(c) for c in frame.columns])
-        for start in range(0, len(frame), chunk_rows):
-            chunk = frame.iloc[start:start + chunk_rows]
-            columns = [column_texts(chunk.iloc[:, i]) for i in range(chunk.shape[1])]
-            writer.writerows(zip(*columns, strict=True))
+        write_frame_rows(csv.writer(out, lineterminator="\n"), frame, header=True,
+                         chunk_rows=chunk_rows)
     return path
+
+
+def write_frame_rows(writer: Any, frame: pd.DataFrame, *, header: bool,
+                     chunk_rows: int = CHUNK_ROWS) -> None:
+    """Write ``frame``'s rows (and its header first when ``header``) through ``writer`` (a
+    :func:`csv.writer`), ``chunk_rows`` rows at a time: a table written in slices is the
+    same text as written whole."""
+    if header:
+        writer.writerow([str(c) for c in frame.columns])
+    for start in range(0, len(frame), chunk_rows):
+        chunk = frame.iloc[start:start + chunk_rows]
+        columns = [column_texts(chunk.iloc[:, i]) for i in range(chunk.shape[1])]
+        writer.writerows(zip(*columns, strict=True))

@@ -8,7 +8,8 @@ verdict and its counts, the plots (each ``<figure>`` lists the corners it draws 
 ``data-corners``), then the per-condition summary (collapsed), the uncertainty budgets,
 conditions, instruments, run facts (durations, SHA-256), notes and events. Printed from a
 browser (A4), the table starts on the first page and every plot on a page of its own when it
-does not fit. Every number in it is in ``figures.json`` with the point indices behind it.
+does not fit. Every number in it is in ``figures.csv`` (the figure table ``figures.json``
+describes) with the point indices behind it.
 """
 
 from __future__ import annotations
@@ -147,8 +148,9 @@ def render_html(run: RunFigures, rows: Sequence[SummaryRow], plots: Sequence[Plo
         _notes(run),
         _events(run),
         f'<footer>sweeprig {e(__version__)} — report written '
-        f'{datetime.now(UTC).strftime("%Y-%m-%d %H:%M UTC")}. Numbers are in figures.json with '
-        "the run-store point indices behind each; the raw readings are in captures.csv."
+        f'{datetime.now(UTC).strftime("%Y-%m-%d %H:%M UTC")}. Numbers are in figures.csv '
+        "(described by figures.json) with the run-store point indices behind each; the raw "
+        "readings are in captures.csv."
         "</footer>",
         "</main></body></html>",
     ]

@@ -3,10 +3,14 @@
 * :func:`summary_rows` — what a report shows at a glance: one row per headline figure and
   group of conditions (study, temperature, supply), the worst figure of the group against
   its limit, the verdict of the group, and the validity flags met in it.
-* :func:`figures_document` — every figure with its value, bound, unit, conditions, flags,
-  verdicts and the run-store point indices behind it (``figures.json``).
-* :func:`figures_frame` / :func:`write_tables` — the same figures and the raw captures as
-  tidy tables (``figures.csv``/``.parquet``, ``captures.csv``/``.parquet``).
+* :func:`figures_document` — the run, its limits, judgements, verdict and summary
+  (``figures.json``, format 3), naming the tables beside it that hold the figures and their
+  budgets; :func:`read_figures_document` reads it back (format 2 too).
+* :func:`figures_frame` / :func:`write_tables` — every figure with its value, bound, unit,
+  conditions, flags, verdict, budget number and the run-store point indices behind it, and
+  the raw captures, as tidy tables (``figures.csv``/``.parquet``, ``captures.csv``/
+  ``.parquet``); :func:`budgets_frame` / :func:`budget_terms_frame` the distinct budgets and
+  budget lines (``budgets.csv``, ``budget-terms.csv``).
 
 Also the text formatting shared by the HTML and terminal reports (values with units,
 conditions, flag badges and their explanations).
@@ -17,10 +21,9 @@ from __future__ import annotations
 import json
 import math
 import re
-from collections.abc import Callable, Iterable, Iterator, Mapping, Sequence
+from collections.abc import Iterable, Iterator, Mapping, Sequence
 from dataclasses import dataclass
 from datetime import UTC, datetime
-from json.encoder import encode_basestring
 from pathlib import Path
 from types import MappingProxyType
 from typing import Any
@@ -42,6 +45,7 @@ from sweeprig.analysis.reduce import RunFigures
 from sweeprig.analysis.uncertainty import (
     BUDGET_METHOD,
     COVERAGE_FACTOR,
+    DIVISORS,
     Budget,
     Contribution,
     uncertainty_text,
@@ -471,62 +475,6 @@ class _Stream:
         self.encoded = encoded
 
 
-def _figure_entries(figures: Iterable[Figure], terms: BudgetTerms
-                    ) -> Iterator[dict[str, object]]:
-    """The figures of ``figures.json``, one dict each (see :func:`_document`)."""
-    for f in figures:
-        yield {"name": f.name, "value": _number(f.value), "unit": f.unit, "bound": f.bound,
-               "text": figure_text(f, 3),
-               "conditions": {k: _plain(v) for k, v in f.conditions.items()},
-               "flags": list(f.flags), "points": [int(p) for p in f.points],
-               "uncertainty_db": _number(f.uncertainty_db),
-               "budget": terms.budget_entry(f.budget) if f.budget is not None else None}
-
-
-def _figure_texts(figures: Iterable[Figure], terms: BudgetTerms,
-                  encode: Callable[[object], str]) -> Iterator[str]:
-    """The entries of :func:`_figure_entries` as JSON text, the same text ``encode`` makes
-    of each dict, built from pieces encoded once each: a large run's figures share their
-    names, units, flag sets, condition mappings and budgets (a budget's text is the same
-    wherever it is used: its lines are numbered at first use)."""
-    heads: dict[tuple[str, str, object], str] = {}
-    flag_texts: dict[tuple[str, ...], str] = {}
-    condition_texts: dict[int, tuple[object, str]] = {}
-    budget_texts: dict[int, tuple[object, str]] = {}
-    tails: dict[tuple[str, str, object], str] = {}
-    string = encode_basestring  # a str's JSON text (ensure_ascii=False), in C
-    for f in figures:
-        head = heads.get((f.name, f.unit, f.bound))
-        if head is None:
-            head = heads[(f.name, f.unit, f.bound)] = '{"name":' + encode(f.name) + ',"value":'
-            tails[(f.name, f.unit, f.bound)] = (',"unit":' + encode(f.unit) + ',"bound":'
-                                                + encode(f.bound) + ',"text":')
-        flags = flag_texts.get(f.flags)
-        if flags is None:
-            flags = flag_texts[f.flags] = encode(list(f.flags))
-        seen = condition_texts.get(id(f.conditions))
-        if seen is None:
-            seen = condition_texts[id(f.conditions)] = (
-                f.conditions, encode({k: _plain(v) for k, v in f.conditions.items()}))
-        budget = "null"
-        if f.budget is not None:
-            known = budget_texts.get(id(f.budget))
-            if known is None:
-                known = budget_texts[id(f.budget)] = (f.budget,
-                                                      _budget_text(f.budget, terms, encode))
-            budget = known[1]
-        value = float(f.value)
-        u = float(f.uncertainty_db)
-        value_text = float.__repr__(value) if math.isfinite(value) else "null"
-        u_text = float.__repr__(u) if math.isfinite(u) else "null"
-        text = _text3(f)
-        yield (head + value_text + tails[(f.name, f.unit, f.bound)] + string(text)
-               + ',"conditions":' + seen[1]
-               + ',"flags":' + flags + ',"points":['
-               + ",".join([str(int(p)) for p in f.points]) + '],"uncertainty_db":' + u_text
-               + ',"budget":' + budget + "}")
-
-
 def _text3(f: Figure) -> str:
     """``figure_text(f, 3)``, its common case (a number with its uncertainty) spelled out."""
     value, u = f.value, f.uncertainty_db
@@ -535,44 +483,39 @@ def _text3(f: Figure) -> str:
     return figure_text(f, 3)
 
 
-def _budget_text(budget: Budget, terms: BudgetTerms, encode: Callable[[object], str]) -> str:
-    """``encode(terms.budget_entry(budget))``, spelled out (it is written per budget)."""
-    combined, k = budget.combined_db, budget.coverage_factor
-    numbers = (combined, k, k * combined)
-    entry = terms.budget_entry(budget)
-    if not all(type(v) is float and math.isfinite(v) for v in numbers):
-        return encode(entry)
-    return ('{"combined_standard_uncertainty_db":' + float.__repr__(combined)
-            + ',"coverage_factor":' + float.__repr__(k)
-            + ',"expanded_uncertainty_db":' + float.__repr__(k * combined)
-            + ',"contributions":[' + ",".join([str(i) for i in entry["contributions"]])
-            + "]}")
+def _document(run: RunFigures, budgets: FigureBudgets,
+              summary: Sequence[SummaryRow] | None = None) -> dict[str, Any]:
+    """Everything the report states but the per-figure rows, as JSON-able data
+    (``figures.json``, format 3).
 
+    The figures themselves are rows of the table named by ``figure_table`` (``figures.csv``
+    beside the JSON, :func:`figures_frame`: one row per figure, its ``figure`` number, value,
+    bound, unit, text, verdict, flags, run-store ``points`` (traceable to ``captures.csv``'s
+    ``point``), ``budget`` number and conditions). ``judgements`` refer to figures by that
+    number and to limits by their index in ``limits``. ``summary`` is the report's summary
+    table (one row per headline figure and group of conditions). ``flag_meanings`` says in
+    one line what every flag name means; ``suspect_flags`` lists those that make a limit
+    check on the figure inconclusive.
 
-def _document(run: RunFigures, encode: Callable[[object], str] | None = None
-              ) -> dict[str, Any]:
-    """Everything the report states, as JSON-able data (``figures.json``).
+    A figure's budget is a row of the table named by ``budget_table`` (``budgets.csv``:
+    every distinct budget of the run once, its combined and expanded uncertainty, coverage
+    factor and its ``contributions`` as space-separated numbers of rows of the table named
+    by ``budget_terms_table``, ``budget-terms.csv``: every distinct budget line, each written
+    once with its source, distribution, sensitivity and GUM type). So the JSON stays small
+    however many points the run has: its only lists that grow with the run are
+    ``judgements`` and ``events``.
 
-    ``figures[i].points`` are run-store point indices: each figure can be traced back to the
-    captures (``captures.csv`` column ``point``). ``flag_meanings`` says in one line what
-    every flag name in ``figures[i].flags`` means; ``suspect_flags`` lists those that make a
-    limit check on the figure inconclusive. ``judgements`` refer to figures and limits
-    by their index in the two lists.
-
-    A figure's ``budget`` (None without one) holds its combined and expanded uncertainty and
-    coverage factor, and its ``contributions`` as indices into ``budget_terms``: the list of
-    every distinct budget line of the run, each written once (the instrument terms are the
-    same for every figure of a kind, and a large run has hundreds of thousands of figures).
-    ``budget_terms`` comes after ``figures``, so both stream in one pass.
-
-    The long lists (``judgements``, ``figures``, ``budget_terms``, ``events``) are
-    :class:`_Stream` objects here: :func:`figures_document` makes them lists (in key order:
-    ``budget_terms`` is filled while ``figures`` is read), :func:`write_figures_json` writes
-    them entry by entry.
+    The long lists (``judgements``, ``events``) are :class:`_Stream` objects here:
+    :func:`figures_document` makes them lists, :func:`write_figures_json` writes them entry
+    by entry.
     """
-    index = {id(f): i for i, f in enumerate(run.figures)}
     limit_index = {id(li): i for i, li in enumerate(run.limits)}
-    terms = BudgetTerms()
+    kinds = _condition_kinds(run)
+    if summary is None:
+        summary = summary_rows(run)
+    wanted = {id(j.figure) for j in run.assessment.judgements}
+    wanted.update(id(r.figure) for r in summary)
+    index = {id(f): i for i, f in enumerate(run.figures) if id(f) in wanted}
     return {
         "format": FIGURES_FORMAT,
         "generated_utc": datetime.now(UTC).isoformat(timespec="seconds"),
@@ -619,6 +562,17 @@ def _document(run: RunFigures, encode: Callable[[object], str] | None = None
                             for k, v in li.conditions.items()}}
             for li in run.limits
         ],
+        "summary": [
+            {"figure": index.get(id(r.figure)), "name": r.name, "label": r.label,
+             "study": r.study, "conditions": r.conditions_text, "value": r.value_text,
+             "range": r.range_text, "limit": r.limit_text, "verdict": r.verdict,
+             "count": r.count, "flags": {name: count for name, count in r.flags}}
+            for r in summary
+        ],
+        "figure_count": len(run.figures),
+        "figure_table": {"file": FIGURE_ROWS_FILE, "rows": len(run.figures),
+                         "columns": list(FIGURE_COLUMNS), "conditions": list(kinds),
+                         "text_conditions": [k for k, text in kinds.items() if text]},
         "judgements": _Stream(
             {"figure": index[id(j.figure)], "limit": limit_index[id(j.limit)],
              "verdict": j.verdict, "reason": j.reason}
@@ -626,12 +580,12 @@ def _document(run: RunFigures, encode: Callable[[object], str] | None = None
         ),
         "untested_limits": [limit_index[id(li)] for li in run.assessment.untested],
         "budget_method": BUDGET_METHOD,
+        "budget_table": {"file": BUDGETS_FILE, "rows": len(budgets.budgets),
+                         "columns": list(BUDGET_COLUMNS)},
+        "budget_terms_table": {"file": BUDGET_TERMS_FILE, "rows": len(budgets.terms),
+                               "columns": list(BUDGET_TERM_COLUMNS)},
         "flag_meanings": {name: FLAG_MEANINGS[name] for name in FLAGS},
         "suspect_flags": [name for name in FLAGS if name in SUSPECT_FLAGS],
-        "figures": (_Stream(_figure_entries(run.figures, terms)) if encode is None
-                    else _Stream(_figure_texts(run.figures, terms, encode), encoded=True)),
-        "budget_terms": (_Stream(terms.entries()) if encode is None
-                         else _Stream(terms.texts(encode), encoded=True)),
         "events": _Stream(
             {"time_utc": e.time.isoformat(), "severity": e.severity, "kind": e.kind,
              "message": e.message, "point": e.point_index, "details": dict(e.details)}
@@ -640,97 +594,178 @@ def _document(run: RunFigures, encode: Callable[[object], str] | None = None
     }
 
 
-#: The ``format`` of ``figures.json``: 2 since budgets refer to a shared table of terms.
-FIGURES_FORMAT = "sweeprig figures 2"
+#: The ``format`` of ``figures.json``: 3 since the per-figure rows and the distinct budgets
+#: sit in tables beside it (2: every figure and its budget in the JSON itself).
+FIGURES_FORMAT = "sweeprig figures 3"
+#: The formats :func:`read_figures_document` reads.
+READABLE_FIGURES_FORMATS: tuple[str, ...] = ("sweeprig figures 2", FIGURES_FORMAT)
+#: The per-figure table beside ``figures.json`` (:func:`figures_frame`).
+FIGURE_ROWS_FILE = "figures.csv"
+#: The distinct-budget table beside ``figures.json``.
+BUDGETS_FILE = "budgets.csv"
+#: The table of distinct budget lines beside ``figures.json``.
+BUDGET_TERMS_FILE = "budget-terms.csv"
+#: Its columns: the line's number, then :meth:`Contribution.as_dict`'s keys.
+BUDGET_TERM_COLUMNS: tuple[str, ...] = (
+    "term", "name", "what", "half_width_db", "distribution", "divisor",
+    "standard_uncertainty_db", "sensitivity", "contribution_db", "type", "origin")
+_TERM_NUMBERS = frozenset({"half_width_db", "divisor", "standard_uncertainty_db",
+                           "sensitivity", "contribution_db"})
+#: The columns of the figure table before its condition columns.
+FIGURE_COLUMNS: tuple[str, ...] = ("figure", "name", "value", "unit", "bound",
+                                   "uncertainty_db", "text", "verdict", "flags", "points",
+                                   "budget")
+#: The columns of the distinct-budget table.
+BUDGET_COLUMNS: tuple[str, ...] = ("budget", "combined_standard_uncertainty_db",
+                                   "coverage_factor", "expanded_uncertainty_db",
+                                   "contributions")
 
 
-class BudgetTerms:
-    """The distinct lines of every budget of a run, each numbered once, in order of first
-    use (``figures.json``'s ``budget_terms``)."""
+@dataclass(frozen=True)
+class FigureBudgets:
+    """A run's budgets stored once each: ``terms`` every distinct budget line in order of
+    first use; ``budgets`` every distinct budget as (coverage factor, combined standard
+    uncertainty in dB, its lines' numbers in ``terms``), in order of first use; ``ids`` per
+    figure (in ``run.figures`` order) its budget's number, None without one."""
 
-    def __init__(self) -> None:
-        self._index: dict[Contribution, int] = {}
-        # the same line object recurs in many budgets: found by identity first (hashing a
-        # line hashes its text)
-        self._by_id: dict[int, tuple[Contribution, int]] = {}
+    terms: tuple[Contribution, ...]
+    budgets: tuple[tuple[float, float, tuple[int, ...]], ...]
+    ids: tuple[int | None, ...]
 
-    def budget_entry(self, budget: Budget) -> dict[str, object]:
-        """A figure's budget: its totals and the numbers of its lines."""
-        index, by_id = self._index, self._by_id
-        ids = []
-        for term in budget.contributions:
-            known = by_id.get(id(term))
-            if known is None:
-                number = index.get(term)
-                if number is None:
-                    number = index[term] = len(index)
-                known = by_id[id(term)] = (term, number)
-            ids.append(known[1])
-        combined = budget.combined_db
-        return {"combined_standard_uncertainty_db": combined,
-                "coverage_factor": budget.coverage_factor,
-                "expanded_uncertainty_db": budget.coverage_factor * combined,
-                "contributions": ids}
 
-    def entries(self) -> Iterable[dict[str, object]]:
-        """Every line numbered so far, in number order (read it after the figures)."""
-        yield from (term.as_dict() for term in list(self._index))
+def figure_budgets(run: RunFigures) -> FigureBudgets:
+    """The distinct lines and budgets of ``run``'s figures (see :class:`FigureBudgets`).
 
-    def texts(self, encode: Callable[[object], str]) -> Iterable[str]:
-        """:meth:`entries` as JSON text, each the text ``encode`` makes of the entry, its
-        usual case (float numbers, str words) spelled out."""
-        string = encode_basestring
-        for term in list(self._index):
-            entry = term.as_dict()
-            numbers = (entry["half_width_db"], entry["divisor"],
-                       entry["standard_uncertainty_db"], entry["sensitivity"],
-                       entry["contribution_db"])
-            words = (entry["name"], entry["what"], entry["distribution"], entry["type"],
-                     entry["origin"])
-            if not (all(type(v) is float and math.isfinite(v) for v in numbers)
-                    and all(type(w) is str for w in words)):
-                yield encode(entry)
+    Two budgets are the same when they have the same lines (equal contributions) and
+    coverage factor; a large run shares its instrument lines between every figure of a kind
+    and its SNR-dependent noise lines between every figure at the same SNR."""
+    term_numbers: dict[Contribution, int] = {}
+    # the same line object recurs in many budgets: found by identity first (hashing a line
+    # hashes its text)
+    by_id: dict[int, tuple[Contribution, int]] = {}
+    budget_numbers: dict[tuple[float, tuple[int, ...]], int] = {}
+    seen: dict[int, tuple[Budget, int]] = {}
+    budgets: list[tuple[float, float, tuple[int, ...]]] = []
+    ids: list[int | None] = []
+    with collector_paused():
+        for f in run.figures:
+            budget = f.budget
+            if budget is None:
+                ids.append(None)
                 continue
-            half, divisor, standard, sensitivity, contribution = map(float.__repr__, numbers)
-            name, what, shape, kind, origin = map(string, words)
-            yield ('{"name":' + name + ',"what":' + what + ',"half_width_db":' + half
-                   + ',"distribution":' + shape + ',"divisor":' + divisor
-                   + ',"standard_uncertainty_db":' + standard + ',"sensitivity":'
-                   + sensitivity + ',"contribution_db":' + contribution + ',"type":' + kind
-                   + ',"origin":' + origin + "}")
+            known_budget = seen.get(id(budget))
+            if known_budget is None:
+                numbers = []
+                for term in budget.contributions:
+                    known = by_id.get(id(term))
+                    if known is None:
+                        number = term_numbers.get(term)
+                        if number is None:
+                            number = term_numbers[term] = len(term_numbers)
+                        known = by_id[id(term)] = (term, number)
+                    numbers.append(known[1])
+                key = (budget.coverage_factor, tuple(numbers))
+                number = budget_numbers.get(key)
+                if number is None:
+                    number = budget_numbers[key] = len(budgets)
+                    budgets.append((budget.coverage_factor, budget.combined_db, key[1]))
+                known_budget = seen[id(budget)] = (budget, number)
+            ids.append(known_budget[1])
+    return FigureBudgets(tuple(term_numbers), tuple(budgets), tuple(ids))
+
+
+def budgets_frame(budgets: FigureBudgets) -> pd.DataFrame:
+    """The distinct-budget table (``budgets.csv``, columns :data:`BUDGET_COLUMNS`): per
+    budget its number, u_c and U = k·u_c in dB, k, and its lines' numbers in
+    ``budget_terms`` (space-separated)."""
+    rows = budgets.budgets
+    combined = np.array([b[1] for b in rows], dtype=float)
+    factor = np.array([b[0] for b in rows], dtype=float)
+    return pd.DataFrame({
+        "budget": np.arange(len(rows), dtype=np.int64),
+        "combined_standard_uncertainty_db": combined,
+        "coverage_factor": factor,
+        "expanded_uncertainty_db": factor * combined,
+        "contributions": [" ".join(map(str, b[2])) for b in rows],
+    }, columns=list(BUDGET_COLUMNS))
+
+
+def budget_terms_frame(budgets: FigureBudgets) -> pd.DataFrame:
+    """The table of distinct budget lines (``budget-terms.csv``, columns
+    :data:`BUDGET_TERM_COLUMNS`, the keys of :meth:`Contribution.as_dict`): every line
+    complete, with its source, distribution, divisor, sensitivity, contribution and GUM
+    type. Built column by column from the lines (a large run has hundreds of thousands of
+    lines: a dict per line would hold gigabytes)."""
+    terms = budgets.terms
+    half = np.array([t.half_width_db for t in terms], dtype=float)
+    shapes = [t.shape for t in terms]
+    divisors = {shape: DIVISORS.get(shape, math.nan) for shape in set(shapes)}
+    columns: dict[str, object] = {
+        "term": np.arange(len(terms), dtype=np.int64),
+        "name": pd.Series([t.name for t in terms], dtype=object),
+        "what": pd.Series([t.what for t in terms], dtype=object),
+        "half_width_db": half,
+        "distribution": pd.Series(shapes, dtype=object),
+        "divisor": np.array([divisors[s] for s in shapes], dtype=float),
+        "standard_uncertainty_db": np.array([t.standard_db for t in terms], dtype=float),
+        "sensitivity": np.array([t.sensitivity for t in terms], dtype=float),
+        "contribution_db": np.array([t.contribution_db for t in terms], dtype=float),
+        "type": pd.Series([t.kind for t in terms], dtype=object),
+        "origin": pd.Series([t.origin for t in terms], dtype=object),
+    }
+    return pd.DataFrame(columns, columns=list(BUDGET_TERM_COLUMNS))
 
 
 def figures_document(run: RunFigures) -> dict[str, Any]:
-    """Everything the report states, as JSON-able data (``figures.json``; see
-    :func:`_document` for what is in it)."""
+    """Everything the report states but the per-figure rows, as JSON-able data
+    (``figures.json``; see :func:`_document` for what is in it)."""
     return {key: list(value.entries) if isinstance(value, _Stream) else value
-            for key, value in _document(run).items()}
+            for key, value in _document(run, figure_budgets(run)).items()}
 
 
 #: Entries encoded per write when streaming a long list of the figures document.
 _JSON_CHUNK = 2000
 
 
-def write_figures_json(run: RunFigures, path: Path) -> Path:
+def write_figures_json(run: RunFigures, path: Path, *, budgets: FigureBudgets | None = None,
+                       rows_written: bool = False,
+                       summary: Sequence[SummaryRow] | None = None) -> Path:
     """Write :func:`figures_document` to ``path`` (UTF-8, compact: one top-level key per
-    line). The long lists are encoded and written in chunks, so the whole text never sits
-    in memory, and with the C encoder (an indented dump falls back to a slow pure-Python
-    one)."""
+    line) and its tables beside it: :data:`BUDGET_TERMS_FILE`, :data:`BUDGETS_FILE` and
+    (unless ``rows_written``: the
+    caller wrote :func:`figures_frame` there already, with the same ``budgets``)
+    :data:`FIGURE_ROWS_FILE`. ``summary``: :func:`summary_rows` of ``run`` when the caller
+    has them. The long lists are encoded and written in chunks, so the whole text never sits
+    in memory, and with the C encoder."""
+    from sweeprig.report.csv_table import write_frame_csv
+
+    if budgets is None:
+        budgets = figure_budgets(run)
+    folder = path.parent
+    for name, make in ((BUDGET_TERMS_FILE, lambda: budget_terms_frame(budgets)),
+                       (BUDGETS_FILE, lambda: budgets_frame(budgets)),
+                       (FIGURE_ROWS_FILE, lambda: figures_frame(run, budgets))):
+        if name == FIGURE_ROWS_FILE and rows_written:
+            continue
+        try:
+            write_frame_csv(make(), folder / name)
+        except OSError as exc:
+            raise _write_error(folder / name, exc) from None
     encode = json.JSONEncoder(ensure_ascii=False, allow_nan=False, default=_plain,
                               separators=(",", ":")).encode
     try:
         with path.open("w", encoding="utf-8") as out, collector_paused():
             out.write("{")
-            for k, (key, value) in enumerate(_document(run, encode).items()):
+            for k, (key, value) in enumerate(_document(run, budgets, summary).items()):
                 out.write(("," if k else "") + "\n" + encode(key) + ":")
                 if not isinstance(value, _Stream):
-                    out.write(encode(value))
+                    out.write(encode(_finite(value)))
                     continue
                 out.write("[")
                 chunk: list[str] = []
                 first = True
                 for entry in value.entries:
-                    chunk.append(entry if value.encoded else encode(entry))  # type: ignore
+                    chunk.append(encode(entry))
                     if len(chunk) == _JSON_CHUNK:
                         out.write(("" if first else ",") + ",".join(chunk))
                         first, chunk = False, []
@@ -743,43 +778,180 @@ def write_figures_json(run: RunFigures, path: Path) -> Path:
     return path
 
 
-def figures_frame(run: RunFigures) -> pd.DataFrame:
-    """One row per figure: ``figure`` (index), ``name``, ``value``, ``unit``, ``bound``
-    ("<", ">" or empty), ``uncertainty_db`` (expanded, k = 2; NaN without a budget),
-    ``text``, ``verdict`` (worst over its limits, empty when none applies), ``flags`` and
-    ``points`` (space-separated), then one column per condition."""
+def _finite(value: object) -> object:
+    """``value`` with every non-finite float (at any depth) made None (JSON has no NaN)."""
+    if isinstance(value, float):
+        return _number(value)
+    if isinstance(value, dict):
+        return {k: _finite(v) for k, v in value.items()}
+    if isinstance(value, list | tuple):
+        return [_finite(v) for v in value]
+    return value
+
+
+def read_figures_document(path: Path) -> dict[str, Any]:
+    """Read a ``figures.json`` written by any format in :data:`READABLE_FIGURES_FORMATS`
+    as the format-2 document: every figure an entry of ``figures`` (name, value, unit,
+    bound, text, conditions, flags, points, uncertainty_db, budget with its totals and
+    ``contributions`` as indices into ``budget_terms``, the list of every distinct line).
+    Format 3's per-figure rows, budgets and lines are read from its tables beside it.
+    Anything else: a StoreError naming the file.
+    """
+    import csv
+
+    where = str(path)
+    try:
+        document = json.loads(path.read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError, ValueError) as exc:
+        raise StoreError(f"cannot read the figures file: {exc}", where=where,
+                         fix="give the figures.json a report wrote") from None
+    found = document.get("format") if isinstance(document, dict) else None
+    if found not in READABLE_FIGURES_FORMATS:
+        raise StoreError(
+            f"the figures file's format is {found!r}, not one this version reads "
+            f"({', '.join(READABLE_FIGURES_FORMATS)})", where=where,
+            fix="write the report again with this version (sweeprig report RUN)")
+    if found != FIGURES_FORMAT:
+        return document
+    table = document["figure_table"]
+    budget_table = document["budget_table"]
+    terms_table = document["budget_terms_table"]
+    try:
+        with (path.parent / terms_table["file"]).open(encoding="utf-8", newline="") as f:
+            terms = [{k: float(v) if k in _TERM_NUMBERS else v for k, v in row.items()
+                      if k != "term"} for row in csv.DictReader(f)]
+        with (path.parent / budget_table["file"]).open(encoding="utf-8", newline="") as f:
+            budgets = [_budget_entry(row) for row in csv.DictReader(f)]
+        with (path.parent / table["file"]).open(encoding="utf-8", newline="") as f:
+            text = frozenset(table["text_conditions"])
+            figures = [_figure_entry(row, table["conditions"], text, budgets)
+                       for row in csv.DictReader(f)]
+    except (OSError, KeyError, ValueError, IndexError) as exc:
+        raise StoreError(f"cannot read a table of the figures file: {exc}", where=where,
+                         fix=f"keep {table['file']}, {budget_table['file']} and "
+                         f"{terms_table['file']} beside it, as the report wrote "
+                         "them") from None
+    if len(figures) != table["rows"]:
+        raise StoreError(f"{table['file']} holds {len(figures)} figures, not the "
+                         f"{table['rows']} the figures file states", where=where,
+                         fix="write the report again (sweeprig report RUN)")
+    return {**document, "figures": figures, "budget_terms": terms}
+
+
+def _cell_number(text: str) -> float | None:
+    if text == "":
+        return None
+    value = float(text)
+    return value if math.isfinite(value) else None
+
+
+def _budget_entry(row: Mapping[str, str]) -> dict[str, object]:
+    return {"combined_standard_uncertainty_db":
+            float(row["combined_standard_uncertainty_db"]),
+            "coverage_factor": float(row["coverage_factor"]),
+            "expanded_uncertainty_db": float(row["expanded_uncertainty_db"]),
+            "contributions": [int(i) for i in row["contributions"].split()]}
+
+
+def _figure_entry(row: Mapping[str, str], conditions: Sequence[str],
+                  text_conditions: frozenset[str], budgets: Sequence[dict[str, object]]
+                  ) -> dict[str, object]:
+    bound = row["bound"] or None
+    conds: dict[str, object] = {}
+    for key in conditions:
+        cell = row[key]
+        if cell == "":
+            continue
+        conds[key] = cell if key in text_conditions else float(cell)
+    return {"name": row["name"], "value": _cell_number(row["value"]), "unit": row["unit"],
+            "bound": bound, "text": row["text"], "conditions": conds,
+            "flags": row["flags"].split(), "points": [int(p) for p in row["points"].split()],
+            "uncertainty_db": _cell_number(row["uncertainty_db"]),
+            "budget": budgets[int(row["budget"])] if row["budget"] else None}
+
+
+def figures_frame(run: RunFigures, budgets: FigureBudgets | None = None) -> pd.DataFrame:
+    """One row per figure (the figure table of ``figures.json``, :data:`FIGURE_COLUMNS`):
+    ``figure`` (its number), ``name``, ``value``, ``unit``, ``bound`` ("<", ">" or empty),
+    ``uncertainty_db`` (expanded, k = 2; NaN without a budget), ``text``, ``verdict`` (worst
+    over its limits, empty when none applies), ``flags`` and ``points`` (space-separated),
+    ``budget`` (its number in the distinct-budget table, :func:`figure_budgets`; empty
+    without one), then one column per condition."""
+    if budgets is None:
+        budgets = figure_budgets(run)
+    return _figure_rows(run, budgets, 0, len(run.figures), _condition_kinds(run),
+                        figure_verdicts(run))
+
+
+#: Figures per slice of the figure table when it is written (bounds the rows held at once).
+FIGURE_SLICE_ROWS = 50_000
+
+
+def figure_frames(run: RunFigures, budgets: FigureBudgets | None = None,
+                  rows: int | None = None) -> Iterator[pd.DataFrame]:
+    """:func:`figures_frame` in slices of ``rows`` figures (:data:`FIGURE_SLICE_ROWS`), each
+    with every column of the whole table and the same column types: concatenated, they are
+    the whole table. A large run's table is written slice by slice, never held whole."""
+    if budgets is None:
+        budgets = figure_budgets(run)
+    step = rows or FIGURE_SLICE_ROWS
+    kinds = _condition_kinds(run)
     verdicts = figure_verdicts(run)
-    keys: dict[str, None] = {}
+    count = len(run.figures)
+    for first in range(0, max(count, 1), step):
+        yield _figure_rows(run, budgets, first, min(first + step, count), kinds, verdicts)
+
+
+def _condition_kinds(run: RunFigures) -> dict[str, bool]:
+    """Every condition key of the run's figures in order of first appearance, and whether
+    its column is text (``study``, or any key with a text value)."""
+    kinds: dict[str, bool] = {}
+    seen: set[int] = set()
     for f in run.figures:
-        for k in f.conditions:
-            if k not in keys:
-                keys[k] = None
-    flag_texts: dict[tuple[str, ...], str] = {}
-    flags: list[object] = []
-    for f in run.figures:
-        text = flag_texts.get(f.flags)
-        if text is None:
-            text = flag_texts[f.flags] = " ".join(f.flags)
-        flags.append(text)
-    rows: dict[str, list[object]] = {
-        "figure": list(range(len(run.figures))),
-        "name": [f.name for f in run.figures],
-        "value": [f.value for f in run.figures],
-        "unit": [f.unit for f in run.figures],
-        "bound": [f.bound or "" for f in run.figures],
-        "uncertainty_db": [f.uncertainty_db for f in run.figures],
-        "text": [_text3(f) for f in run.figures],
-        "verdict": [verdicts.get(id(f), "") for f in run.figures],
-        "flags": flags,
-        "points": [" ".join(map(str, f.points)) for f in run.figures],
+        if id(f.conditions) in seen:
+            continue
+        seen.add(id(f.conditions))
+        for k, v in f.conditions.items():
+            kinds[k] = kinds.get(k, False) or k == "study" or isinstance(v, str)
+    return kinds
+
+
+def _figure_rows(run: RunFigures, budgets: FigureBudgets, first: int, stop: int,
+                 kinds: Mapping[str, bool], verdicts: Mapping[int, str]) -> pd.DataFrame:
+    """Rows ``first`` to ``stop`` of the figure table (see :func:`figures_frame`), with a
+    column for every key of ``kinds``; ``verdicts``: :func:`figure_verdicts` of ``run``."""
+    from sweeprig.analysis.figure_table import figure_table
+    from sweeprig.analysis.figures import flags_from_mask
+
+    figures = run.figures[first:stop]
+    # the one builder of a figure table's columns (values, conditions), here made into text
+    table = figure_table(figures)
+    flag_texts = {mask: " ".join(flags_from_mask(mask))
+                  for mask in set(table["flags"].tolist())}
+    columns: dict[str, object] = {
+        "figure": np.arange(first, stop, dtype=np.int64),
+        "name": table["name"].to_numpy(dtype=object),
+        "value": table["value"].to_numpy(),
+        "unit": table["unit"].to_numpy(dtype=object),
+        "bound": table["bound"].to_numpy(dtype=object),
+        "uncertainty_db": table["uncertainty_db"].to_numpy(),
+        "text": np.array([_text3(f) for f in figures], dtype=object),
+        "verdict": np.array([verdicts.get(id(f), "") for f in figures], dtype=object),
+        "flags": np.array([flag_texts[m] for m in table["flags"].tolist()], dtype=object),
+        "points": np.array([" ".join(map(str, p)) for p in table["points"].tolist()],
+                           dtype=object),
+        # object: whole numbers with empty cells (a list would become floats with NaN)
+        "budget": np.array(budgets.ids[first:stop], dtype=object),
     }
-    for key in keys:
-        column = [f.conditions.get(key) for f in run.figures]
-        if key == "study" or any(isinstance(v, str) for v in column):
-            rows[key] = ["" if v is None else str(v) for v in column]
+    for key, text in kinds.items():
+        if text:
+            columns[key] = np.array(["" if v is None else str(v) for v in
+                                     (f.conditions.get(key) for f in figures)], dtype=object)
+        elif key in table.columns:
+            columns[key] = table[key].to_numpy(dtype=float)
         else:
-            rows[key] = [np.nan if v is None else float(v) for v in column]  # type: ignore
-    return pd.DataFrame(rows)
+            columns[key] = np.full(len(figures), np.nan)
+    return pd.DataFrame(columns)
 
 
 #: Table formats :func:`write_tables` writes.
@@ -787,10 +959,13 @@ TABLE_FORMATS: tuple[str, ...] = ("csv", "parquet")
 
 
 def write_tables(
-    run: RunFigures, folder: Path, formats: Sequence[str] | None = None
+    run: RunFigures, folder: Path, formats: Sequence[str] | None = None, *,
+    budgets: FigureBudgets | None = None,
 ) -> list[Path]:
     """Write ``captures`` and ``figures`` as CSV and/or Parquet into ``folder`` (by default
-    :data:`TABLE_FORMATS`, Parquet left out when pyarrow, the ``parquet`` extra, is missing)."""
+    :data:`TABLE_FORMATS`, Parquet left out when pyarrow, the ``parquet`` extra, is missing).
+    ``budgets``: the run's :func:`figure_budgets`, when the caller has them (the figure
+    table's ``budget`` numbers refer to them)."""
     from sweeprig.parquet import parquet_available, require_parquet
     from sweeprig.report.csv_table import write_frame_csv
 
@@ -798,23 +973,77 @@ def write_tables(
         formats = [f for f in TABLE_FORMATS if f != "parquet" or parquet_available()]
     elif "parquet" in formats:
         require_parquet(str(folder))
-    with collector_paused():
-        tables = {"captures": run.captures, "figures": figures_frame(run)}
     written: list[Path] = []
-    for name, frame in tables.items():
-        for fmt in formats:
-            path = folder / f"{name}.{fmt}"
-            try:
-                if fmt == "csv":
-                    write_frame_csv(frame, path)
-                elif fmt == "parquet":
-                    frame.to_parquet(path, index=False, engine="pyarrow")
-                else:
-                    raise ValueError(fmt)
-            except OSError as exc:
-                raise _write_error(path, exc) from None
-            written.append(path)
+    for fmt in formats:
+        path = folder / f"captures.{fmt}"
+        try:
+            if fmt == "csv":
+                write_frame_csv(run.captures, path)
+            elif fmt == "parquet":
+                run.captures.to_parquet(path, index=False, engine="pyarrow")
+            else:
+                raise ValueError(fmt)
+        except OSError as exc:
+            raise _write_error(path, exc) from None
+        written.append(path)
+    if budgets is None:
+        budgets = figure_budgets(run)
+    paths = {fmt: folder / f"figures.{fmt}" for fmt in formats}
+    if not paths:
+        return written
+    try:
+        with collector_paused(), _FigureTableWriters(paths) as writers:
+            for frame in figure_frames(run, budgets):
+                writers.write(frame)
+    except OSError as exc:
+        raise _write_error(next(iter(paths.values())), exc) from None
+    written += paths.values()
     return written
+
+
+class _FigureTableWriters:
+    """The figure table written slice by slice to CSV and/or Parquet (one row group a
+    slice; the column types are fixed by the first slice: :func:`figure_frames` keeps them)."""
+
+    def __init__(self, paths: Mapping[str, Path]) -> None:
+        self.paths = paths
+        self._csv: Any = None
+        self._csv_file: Any = None
+        self._header = True
+        self._parquet: Any = None
+
+    def __enter__(self) -> _FigureTableWriters:
+        import csv
+
+        if "csv" in self.paths:
+            self._csv_file = self.paths["csv"].open("w", encoding="utf-8", newline="")
+            self._csv = csv.writer(self._csv_file, lineterminator="\n")
+        return self
+
+    def write(self, frame: pd.DataFrame) -> None:
+        from sweeprig.report.csv_table import write_frame_rows
+
+        if self._csv is not None:
+            write_frame_rows(self._csv, frame, header=self._header)
+            self._header = False
+        if "parquet" in self.paths:
+            import pyarrow as pa
+            import pyarrow.parquet as pq
+
+            frame = frame.assign(budget=pd.array(frame["budget"].tolist(), dtype="Int64"))
+            if self._parquet is None:
+                table = pa.Table.from_pandas(frame, preserve_index=False)
+                self._parquet = pq.ParquetWriter(self.paths["parquet"], table.schema)
+            else:
+                table = pa.Table.from_pandas(frame, preserve_index=False,
+                                             schema=self._parquet.schema)
+            self._parquet.write_table(table)
+
+    def __exit__(self, *exc: object) -> None:
+        if self._csv_file is not None:
+            self._csv_file.close()
+        if self._parquet is not None:
+            self._parquet.close()
 
 
 def make_folder(folder: Path, *, what: str = "report folder", option: str = "--out") -> Path:

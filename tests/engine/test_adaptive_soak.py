@@ -17,6 +17,7 @@ from sweeprig.engine.runner import is_settled, window_spread
 from sweeprig.engine.session import run_sequence, shipped_sequences_dir
 from sweeprig.report import write_report
 from sweeprig.report.plots import all_plots
+from sweeprig.report.tables import read_figures_document
 from sweeprig.store.sqlite import SqliteRunStore
 
 ADAPTIVE = """
@@ -110,7 +111,7 @@ def test_demo_with_adaptive_soak_is_a_quarter_shorter_with_the_same_figures(
         with SqliteRunStore(tmp_path / f"{name}.sqlite", create=False) as store:
             run = reduce_run(store, outcome.run_id)
         files = write_report(run, tmp_path / name)
-        made[name] = (run, json.loads(files.figures_json.read_text(encoding="utf-8")))
+        made[name] = (run, read_figures_document(files.figures_json))
     assert "soak_curves" in [p.key for p in all_plots(made["adaptive"][0])]
     assert "Adaptive soaks" in (tmp_path / "adaptive" / "report.html").read_text("utf-8")
     assert made["fixed"][1]["verdict"] == made["adaptive"][1]["verdict"]

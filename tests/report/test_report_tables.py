@@ -18,12 +18,13 @@ from sweeprig.report.tables import (
     figures_frame,
     format_value,
     limit_text,
+    read_figures_document,
     summary_rows,
 )
 
 
 def test_every_figure_points_at_stored_captures(report_run, report_files):
-    document = json.loads(report_files.figures_json.read_text(encoding="utf-8"))
+    document = read_figures_document(report_files.figures_json)
     captures = pd.read_csv(report_files.folder / "captures.csv")
     stored = set(captures["point"].tolist())
     assert len(document["figures"]) == len(report_run.figures)
@@ -97,13 +98,13 @@ def test_infinite_values_do_not_break_the_json(report_run, bad, tmp_path):
                               assessment=dataclasses.replace(report_run.assessment,
                                                              judgements=(), untested=()))
     path = write_figures_json(odd, tmp_path / "f.json")
-    assert json.loads(path.read_text(encoding="utf-8"))["figures"][0]["value"] is None
+    assert read_figures_document(path)["figures"][0]["value"] is None
 
 
 def test_figures_json_says_what_every_flag_means(report_run, report_files):
     from sweeprig.analysis.figures import FLAG_MEANINGS, FLAGS, SUSPECT_FLAGS
 
-    document = json.loads(report_files.figures_json.read_text(encoding="utf-8"))
+    document = read_figures_document(report_files.figures_json)
     assert document["flag_meanings"] == {name: FLAG_MEANINGS[name] for name in FLAGS}
     assert set(document["suspect_flags"]) == set(SUSPECT_FLAGS)
     used = {flag for f in document["figures"] for flag in f["flags"]}
@@ -118,7 +119,7 @@ def test_numbers_carry_their_expanded_uncertainty_and_budget(report_run, report_
     gain = gains[0]
     assert figure_text(gain) == uncertainty_text(gain.value, "dB", gain.uncertainty_db)
     assert figure_text(gain).endswith(" dB (k = 2)") and " ± " in figure_text(gain)
-    document = json.loads(report_files.figures_json.read_text(encoding="utf-8"))
+    document = read_figures_document(report_files.figures_json)
     by_name = {}
     for entry in document["figures"]:
         by_name.setdefault(entry["name"], entry)
@@ -135,7 +136,7 @@ def test_numbers_carry_their_expanded_uncertainty_and_budget(report_run, report_
             lines = [terms[i]["contribution_db"] for i in entry["budget"]["contributions"]]
             assert entry["budget"]["combined_standard_uncertainty_db"] == pytest.approx(
                 math.sqrt(sum(c * c for c in lines)))
-    assert document["format"] == "sweeprig figures 2"
+    assert document["format"] == "sweeprig figures 3"
     assert document["budget_method"].startswith("JCGM 100:2008")
     # No budget for a figure in amperes; bounds carry none either.
     if "supply_current" in by_name:
@@ -160,7 +161,7 @@ def test_streamed_figures_json_holds_the_whole_document(report_run, tmp_path, mo
     expected.pop("generated_utc")
     assert written == expected
     assert list(written) == list(expected)
-    assert len(written["figures"]) == len(report_run.figures)
+    assert written["figure_count"] == len(report_run.figures)
 
 
 def test_figures_table_text_is_figure_text(report_run):
@@ -173,3 +174,124 @@ def test_figures_table_text_is_figure_text(report_run):
     assert frame["flags"].tolist() == [" ".join(f.flags) for f in report_run.figures]
     assert frame["points"].tolist() == [" ".join(str(p) for p in f.points)
                                         for f in report_run.figures]
+
+
+def test_figures_json_keeps_its_figures_and_budgets_in_tables_beside_it(report_run,
+                                                                        report_files):
+    """Format 3: the JSON holds the run, limits, judgements and summary; the figures are
+    the rows of figures.csv and each distinct budget is one row of budgets.csv."""
+    document = json.loads(report_files.figures_json.read_text(encoding="utf-8"))
+    assert "figures" not in document
+    assert document["figure_table"]["file"] == "figures.csv"
+    assert document["figure_table"]["rows"] == document["figure_count"] == len(
+        report_run.figures)
+    figures = pd.read_csv(report_files.folder / "figures.csv", keep_default_na=False)
+    budgets = pd.read_csv(report_files.folder / "budgets.csv")
+    assert list(budgets.columns) == document["budget_table"]["columns"]
+    assert len(budgets) == document["budget_table"]["rows"]
+    assert not budgets.duplicated(["coverage_factor", "contributions"]).any()
+    terms = pd.read_csv(report_files.folder / "budget-terms.csv")
+    assert list(terms.columns) == document["budget_terms_table"]["columns"]
+    assert len(terms) == document["budget_terms_table"]["rows"]
+    assert "budget_terms" not in document
+    used = {int(b) for b in figures["budget"] if b != ""}
+    assert used == set(budgets["budget"])
+    # every figure with an uncertainty has a budget that states it
+    expanded = dict(zip(budgets["budget"], budgets["expanded_uncertainty_db"], strict=True))
+    for u, b in zip(figures["uncertainty_db"], figures["budget"], strict=True):
+        assert (u == "") == (b == "")
+        if b != "":
+            assert float(u) == pytest.approx(expanded[int(b)])
+    # the summary names the figure row it shows
+    assert document["summary"]
+    for row in document["summary"]:
+        assert figures["name"][row["figure"]] == row["name"]
+
+
+def test_a_format_2_figures_file_is_still_read(tmp_path):
+    old = {"format": "sweeprig figures 2", "verdict": "pass",
+           "figures": [{"name": "conversion_gain", "value": 7.1}], "budget_terms": []}
+    path = tmp_path / "figures.json"
+    path.write_text(json.dumps(old), encoding="utf-8")
+    assert read_figures_document(path) == old
+
+
+@pytest.mark.parametrize("text", ['{"format": "sweeprig figures 9"}', "[1, 2]", "{"])
+def test_an_unknown_figures_file_is_refused_naming_it(tmp_path, text):
+    from sweeprig.errors import StoreError
+
+    path = tmp_path / "figures.json"
+    path.write_text(text, encoding="utf-8")
+    with pytest.raises(StoreError) as caught:
+        read_figures_document(path)
+    assert str(path) in str(caught.value) and caught.value.fix
+
+
+def test_a_format_3_file_without_its_tables_is_refused(report_files, tmp_path):
+    from sweeprig.errors import StoreError
+
+    lone = tmp_path / "figures.json"
+    lone.write_bytes(report_files.figures_json.read_bytes())
+    with pytest.raises(StoreError, match="cannot read a table") as caught:
+        read_figures_document(lone)
+    assert "figures.csv" in caught.value.fix and "budget-terms.csv" in caught.value.fix
+
+
+def test_every_budget_line_is_written_whole(report_run):
+    """budget-terms.csv's rows are the lines' own as_dict (source, shape, divisor,
+    sensitivity, contribution, GUM type), and every budget row adds its lines up to its u_c
+    (JCGM 100:2008 eq. (10))."""
+    from sweeprig.report.tables import budget_terms_frame, budgets_frame, figure_budgets
+
+    budgets = figure_budgets(report_run)
+    terms = budget_terms_frame(budgets)
+    assert len(terms) == len(budgets.terms) > 0
+    for row, term in zip(terms.to_dict("records"), budgets.terms, strict=True):
+        assert row.pop("term") >= 0
+        assert row == term.as_dict()
+    table = budgets_frame(budgets)
+    contribution = terms["contribution_db"].to_numpy()
+    for u, lines in zip(table["combined_standard_uncertainty_db"], table["contributions"],
+                        strict=True):
+        picked = contribution[[int(i) for i in lines.split()]]
+        assert u == pytest.approx(math.sqrt(float((picked ** 2).sum())))
+
+
+@pytest.mark.parametrize("rows", [29, 100_000])
+def test_the_figure_table_written_in_slices_is_the_whole_table(report_run, tmp_path,
+                                                               monkeypatch, rows):
+    """figures.csv and figures.parquet are written a slice of figures at a time; whatever
+    the slice, they hold exactly figures_frame (every slice has every column)."""
+    from sweeprig.report import tables
+    from sweeprig.report.csv_table import write_frame_csv
+
+    monkeypatch.setattr(tables, "FIGURE_SLICE_ROWS", rows)
+    whole = figures_frame(report_run)
+    slices = list(tables.figure_frames(report_run))
+    assert all(list(s.columns) == list(whole.columns) for s in slices)
+    written = tables.write_tables(report_run, tmp_path)
+    assert {p.name for p in written} == {"captures.csv", "captures.parquet", "figures.csv",
+                                        "figures.parquet"}
+    write_frame_csv(whole, tmp_path / "whole.csv")
+    assert (tmp_path / "figures.csv").read_bytes() == (tmp_path / "whole.csv").read_bytes()
+    parquet = pd.read_parquet(tmp_path / "figures.parquet")
+    assert list(parquet.columns) == list(whole.columns) and len(parquet) == len(whole)
+    assert parquet["budget"].tolist() == [pd.NA if b is None else b for b in whole["budget"]]
+    pd.testing.assert_frame_equal(parquet.drop(columns="budget"), whole.drop(columns="budget"))
+
+
+def test_text_conditions_read_back_as_text(report_run, tmp_path):
+    """A condition holding words (a noise figure's sideband) reads back as words, numbers as
+    numbers, and a condition a figure lacks stays absent."""
+    import dataclasses
+
+    from sweeprig.report.tables import write_figures_json
+
+    conditions = [{"study": "nf", "sideband": "ssb", "temperature_c": 25.0},
+                  {"study": "band", "rf_freq_hz": 2.4e9}]
+    odd = dataclasses.replace(
+        report_run, figures=tuple(Figure("noise_figure", 5.0 + i, "dB", conditions=c)
+                                  for i, c in enumerate(conditions)),
+        assessment=dataclasses.replace(report_run.assessment, judgements=(), untested=()))
+    path = write_figures_json(odd, tmp_path / "f.json")
+    assert [f["conditions"] for f in read_figures_document(path)["figures"]] == conditions
