@@ -13,38 +13,10 @@ import pytest
 from sweeprig.sim.mixer import MixerPart, MixerResponse, OperatingPoint, ToneInput, load_part
 from sweeprig.sim.read_ahead import FIRST_AHEAD, ReadAhead, context_of
 from sweeprig.sim.world import SimWorld, WorldConfig
+from tests.sim.world_stand_ins import Chamber, Source, Supply, Switch
 
 #: Power difference allowed between read-ahead and on-demand lines, dB (issue 14's figure).
 TOL_DB = 1e-9
-
-
-@dataclass
-class Source:
-    freq_hz: float
-    delivered_power_dbm: float
-    output_on: bool = True
-    harmonics_dbc: tuple[float, ...] = (-35.0, -45.0)
-
-
-@dataclass
-class Supply:
-    output_voltage_v: float = 3.3
-    output_on: bool = True
-
-
-@dataclass
-class Chamber:
-    temperature_c: float = 25.0
-
-    def probe_temperature_c(self) -> float:
-        return self.temperature_c
-
-
-@dataclass
-class Switch:
-    channel: int = 1
-    sensor_channel: int = 4
-    thru: bool = False
 
 
 @dataclass
@@ -66,7 +38,8 @@ def _bench(model: object, **config: float) -> tuple[SimWorld, dict[str, object]]
     parts: dict[str, object] = {
         "rf": Source(2.2e9, -30.0), "rf2": Source(2.201e9, -30.0),
         "lo": Source(2.1e9, 0.0, harmonics_dbc=(-30.0,)),
-        "supply": Supply(), "chamber": Chamber(), "switch": Switch(),
+        "supply": Supply(output_voltage_v=3.3), "chamber": Chamber(temperature_c=25.0),
+        "switch": Switch(),
     }
     world.connect(**parts)  # type: ignore[arg-type]
     return world, parts

@@ -19,6 +19,7 @@ from sweeprig.sim.world import (
     SwitchChannel,
     WorldConfig,
 )
+from tests.sim.world_stand_ins import Chamber, Source, Supply, Switch
 
 
 @dataclass
@@ -52,35 +53,6 @@ class StandInMixer:
             if_noise_dbm_per_hz=-160.0,
             supply_current_a=0.02 * op.supply_v,
         )
-
-
-@dataclass
-class Source:
-    freq_hz: float = 2.4e9
-    delivered_power_dbm: float = -20.0
-    output_on: bool = True
-    harmonics_dbc: tuple[float, ...] = (-35.0, -45.0)
-
-
-@dataclass
-class Supply:
-    output_voltage_v: float = 5.0
-    output_on: bool = True
-
-
-@dataclass
-class Chamber:
-    temperature_c: float = 85.0
-
-    def probe_temperature_c(self) -> float:
-        return self.temperature_c
-
-
-@dataclass
-class Switch:
-    channel: int = 1
-    sensor_channel: int = 4
-    thru: bool = False
 
 
 def _world(
