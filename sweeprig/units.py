@@ -143,12 +143,11 @@ def suffixes(kind: str) -> list[str]:
     return list(_DISPLAY_SUFFIXES.get(kind, []))
 
 
-#: Largest magnitude accepted for a quantity, in its internal unit: anything beyond is a
-#: typing slip, and would overflow the planner's arithmetic (products of harmonics). 10 THz
-#: is far above any RF bench instrument (common practice, no source).
+#: Largest magnitude accepted for a quantity of a kind, in its internal unit: anything beyond
+#: is a slip of unit or exponent, and would overflow the planner's arithmetic (products of
+#: harmonics). 10 THz is far above any RF bench instrument (common practice, no source).
+#: Other kinds are bounded where they are used (a settle time or soak by the run's duration).
 LARGEST_MAGNITUDE: dict[str, float] = {"frequency": 1e13}
-#: The same for every other kind.
-LARGEST_MAGNITUDE_ANY = 1e30
 
 
 def parse_quantity(value: object, kind: str, *, where: str | None = None) -> float:
@@ -186,10 +185,9 @@ def parse_quantity(value: object, kind: str, *, where: str | None = None) -> flo
     result = _convert(number, unit, kind, value, where)
     if not math.isfinite(result):
         raise _error(value, kind, where, "is out of range")
-    if abs(result) > LARGEST_MAGNITUDE.get(kind, LARGEST_MAGNITUDE_ANY):
-        beyond = (f"beyond {format_frequency(LARGEST_MAGNITUDE['frequency'])}, far above any "
-                  "bench instrument" if kind == "frequency" else "out of range")
-        raise _error(value, kind, where, f"is {beyond} (is the unit right?)")
+    if kind == "frequency" and abs(result) > LARGEST_MAGNITUDE[kind]:
+        raise _error(value, kind, where, f"is beyond {format_frequency(LARGEST_MAGNITUDE[kind])}"
+                     ", far above any bench instrument (is the unit right?)")
     return result
 
 

@@ -47,7 +47,6 @@ def test_parses_values_as_people_write_them(text, kind, expected):
         ([1], "power", "list"),
         (6e307, "frequency", "beyond 10000 GHz"),  # finite, but overflows harmonic products
         ("20000 GHz", "frequency", "beyond 10000 GHz"),
-        (1e31, "power", "out of range"),
     ],
 )
 def test_rejects_bad_values_with_a_fix(value, kind, fragment):

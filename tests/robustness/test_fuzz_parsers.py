@@ -30,7 +30,7 @@ from sweeprig.transport.blocks import (
     parse_real32_block,
     parse_scpi_error,
 )
-from sweeprig.units import KINDS, SI_PREFIXES, parse_quantity, suffixes
+from sweeprig.units import KINDS, LARGEST_MAGNITUDE, SI_PREFIXES, parse_quantity, suffixes
 
 FUZZ = settings(max_examples=150, deadline=None)
 
@@ -109,7 +109,12 @@ def test_a_written_quantity_reads_back_scaled_to_the_internal_unit(
                          if not clashes and (v[:1] == unit[:1] or v[:1] not in SI_PREFIXES)]
     spelled = data.draw(st.sampled_from(variants))
     space = data.draw(st.sampled_from(["", " "]))
-    result = parse_quantity(f"{number!r}{space}{spelled}", kind)
+    text = f"{number!r}{space}{spelled}"
+    if abs(number * SCALES[kind][unit]) > LARGEST_MAGNITUDE.get(kind, math.inf):
+        with pytest.raises(UnitError, match="beyond"):  # a slip of unit: refused at load
+            parse_quantity(text, kind)
+        return
+    result = parse_quantity(text, kind)
     assert result == pytest.approx(number * SCALES[kind][unit], rel=1e-12, abs=1e-300)
 
 
