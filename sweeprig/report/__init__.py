@@ -12,10 +12,15 @@ once). The pieces:
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from sweeprig.analysis.reduce import RunFigures
+
+if TYPE_CHECKING:
+    from sweeprig.report.plots import Plot
 
 
 @dataclass(frozen=True)
@@ -34,8 +39,10 @@ class ReportFiles:
         return (self.html, self.figures_json, *self.tables, *self.budgets)
 
 
-def write_report(run: RunFigures, folder: Path | str) -> ReportFiles:
-    """Write the report files of ``run`` into ``folder`` (created if missing).
+def write_report(run: RunFigures, folder: Path | str,
+                 plots: Sequence[Plot] | None = None) -> ReportFiles:
+    """Write the report files of ``run`` into ``folder`` (created if missing); ``plots``:
+    the run's plots when already drawn (None: drawn here).
 
     Raises :class:`~sweeprig.errors.StoreError` naming the path when a file cannot be written.
     """
@@ -59,7 +66,8 @@ def write_report(run: RunFigures, folder: Path | str) -> ReportFiles:
     figures = write_figures_json(run, out / "figures.json", budgets=budgets,
                                  rows_written=True, summary=summary)
     del budgets  # a large run's distinct budgets: not held while the plots are drawn
-    page = write_html(out / "report.html", run, summary, all_plots(run))
+    page = write_html(out / "report.html", run, summary,
+                      all_plots(run) if plots is None else plots)
     return ReportFiles(out, page, figures, tuple(tables),
                        (out / BUDGETS_FILE, out / BUDGET_TERMS_FILE))
 

@@ -9,18 +9,8 @@ import pytest
 
 from sweeprig.analysis.reduce import RunFigures, reduce_run
 from sweeprig.engine.session import run_sequence
-from sweeprig.report import ReportFiles
-from sweeprig.report.html import write_html
+from sweeprig.report import ReportFiles, write_report
 from sweeprig.report.plots import Plot, all_plots
-from sweeprig.report.tables import (
-    BUDGET_TERMS_FILE,
-    BUDGETS_FILE,
-    figure_budgets,
-    make_folder,
-    summary_rows,
-    write_figures_json,
-    write_tables,
-)
 from sweeprig.store.sqlite import SqliteRunStore
 
 DATA = Path(__file__).parent / "data"
@@ -43,16 +33,10 @@ def report_plots(report_run) -> list[Plot]:
 
 @pytest.fixture(scope="session")
 def report_files(report_run, report_plots, tmp_path_factory) -> ReportFiles:
-    """The files ``sweeprig.report.write_report`` writes, built from the same pieces (so the
-    plots are drawn once per session; the CLI tests run write_report itself)."""
-    out = make_folder(tmp_path_factory.mktemp("report-out") / "run")
-    budgets = figure_budgets(report_run)
-    tables = write_tables(report_run, out, budgets=budgets)
-    figures = write_figures_json(report_run, out / "figures.json", budgets=budgets,
-                                 rows_written=True)
-    page = write_html(out / "report.html", report_run, summary_rows(report_run), report_plots)
-    return ReportFiles(out, page, figures, tuple(tables),
-                       (out / BUDGETS_FILE, out / BUDGET_TERMS_FILE))
+    """The files ``sweeprig.report.write_report`` writes, with the session's plots (drawn
+    once per session)."""
+    return write_report(report_run, tmp_path_factory.mktemp("report-out") / "run",
+                        plots=report_plots)
 
 
 #: The corner grid the report must draw without dropping one (issue: up to 5 temperatures ×
