@@ -810,6 +810,21 @@ def _condition_key(conditions: Mapping[str, object]) -> tuple:
     return tuple(sorted((k, v) for k, v in conditions.items()))
 
 
+def small_signal_gain_u(figures: Sequence[Figure], levels: PointLevels
+                        ) -> dict[tuple, float]:
+    """Per condition set (:func:`_condition_key`), the Type A standard uncertainty (dB) of
+    its small-signal gain (:func:`mean_u_db` of the gains it was the mean of): the
+    reference error a compression point's fit term takes."""
+    out: dict[tuple, float] = {}
+    for f in figures:
+        if f.name == "small_signal_gain" and f.is_number:
+            gains = [levels.level_dbm.get((p, "if"), math.nan) - levels.input_dbm.get(p,
+                                                                                     math.nan)
+                     for p in f.points]
+            out[_condition_key(f.conditions)] = mean_u_db(gains)
+    return out
+
+
 def attach_uncertainty(figures: Sequence[Figure], captures: pd.DataFrame,
                        specs: InstrumentSpecs | None = None,
                        cal: CalibrationState = UNCALIBRATED) -> list[Figure]:
@@ -817,13 +832,7 @@ def attach_uncertainty(figures: Sequence[Figure], captures: pd.DataFrame,
     where a budget exists; the others are returned unchanged."""
     specs = specs or InstrumentSpecs()
     levels = PointLevels.from_captures(captures)
-    small_signal_u: dict[tuple, float] = {}
-    for f in figures:
-        if f.name == "small_signal_gain" and f.is_number:
-            gains = [levels.level_dbm.get((p, "if"), math.nan) - levels.input_dbm.get(p,
-                                                                                     math.nan)
-                     for p in f.points]
-            small_signal_u[_condition_key(f.conditions)] = mean_u_db(gains)
+    small_signal_u = small_signal_gain_u(figures, levels)
     out: list[Figure] = []
     sides: dict[tuple, Figure] = {}
     side_names = _SIDE_NAMES
