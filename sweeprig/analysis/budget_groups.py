@@ -42,9 +42,8 @@ from sweeprig.analysis.uncertainty import (
     _noise_reading,
     figure_budget,
     made_budget,
-    noise_line,
-    noise_scatter_db,
-    noise_scatter_line,
+    noise_lines,
+    noise_scatter_lines,
 )
 
 #: The readings whose noise matters to a figure, with their sensitivities.
@@ -179,10 +178,13 @@ def _group_budgets(model: _Model, noisy: Noisy, level_terms: tuple[Contribution,
         known = ~np.isnan(snr)
         values, inverse = np.unique(snr[known], return_inverse=True)
         inverse = inverse.reshape(-1)
-        finite = np.isfinite(values).tolist()
         values_list = values.tolist()
-        noise = [noise_line(lines, reading, s, c) if ok else None
-                 for s, ok in zip(values_list, finite, strict=True)]
+        finite = np.isfinite(values)
+        noise: list[Contribution | None] = [None] * len(values_list)
+        for k, line in zip(np.flatnonzero(finite).tolist(),
+                           noise_lines(lines, reading, values[finite].tolist(), c),
+                           strict=True):
+            noise[k] = line
         code = np.full(count, -1, dtype=np.int64)
         code[known] = inverse
         noise_slots.append((noise, code))
@@ -190,13 +192,9 @@ def _group_budgets(model: _Model, noisy: Noisy, level_terms: tuple[Contribution,
         known_avg = avg[known]
         radix = int(known_avg.max(initial=1)) + 1
         pairs, pair_inverse = np.unique(inverse * radix + known_avg, return_inverse=True)
-        scatter: list[Contribution | None] = []
-        for pair in pairs.tolist():
-            s, averages = values_list[pair // radix], pair % radix
-            sigma = noise_scatter_db(s, averages)
-            scatter.append(noise_scatter_line(lines, reading, sigma, s, averages,
-                                              model.relative_c or c)
-                           if sigma > 0.0 else None)
+        scatter = noise_scatter_lines(
+            lines, reading, [(values_list[pair // radix], pair % radix)
+                             for pair in pairs.tolist()], model.relative_c or c)
         code = np.full(count, -1, dtype=np.int64)
         code[known] = pair_inverse.reshape(-1)
         scatter_slots.append((scatter, code))

@@ -749,16 +749,32 @@ def noise_line(lines: dict[tuple, Any], reading: str, snr_db: float, c: float
                ) -> Contribution:
     """The analyzer-noise line of ``reading`` at its lowest SNR ``snr_db`` (finite) with
     sensitivity ``c``: made once per distinct (reading, SNR, c) and kept in ``lines``."""
-    key = ("noise", reading, snr_db, c)
-    line = lines.get(key)
-    if line is None:
-        line = lines[key] = made_line(
-            "noise", sys.intern(f"analyzer noise under {_plain(reading)} (lowest SNR "
-                                f"{snr_db:.1f} dB)"), noise_bias_db(snr_db), "rectangular",
-            c, "B",
-            "measured noise floor; one-sided bias taken as rectangular (common "
-            "practice, no source)")
-    return line
+    return noise_lines(lines, reading, (snr_db,), c)[0]
+
+
+def noise_lines(lines: dict[tuple, Any], reading: str, snrs_db: Iterable[float], c: float
+                ) -> list[Contribution]:
+    """:func:`noise_line` of each of ``snrs_db`` (one reading and sensitivity: a group of
+    figures at once)."""
+    words = _plain(reading)
+    get = lines.get
+    out = []
+    for snr_db in snrs_db:
+        key = ("noise", reading, snr_db, c)
+        line = get(key)
+        if line is None:
+            line = lines[key] = made_line(
+                "noise", sys.intern(f"analyzer noise under {words} (lowest SNR "
+                                    f"{snr_db:.1f} dB)"), noise_bias_db(snr_db),
+                "rectangular", c, "B", _NOISE_ORIGIN)
+        out.append(line)
+    return out
+
+
+_NOISE_ORIGIN = ("measured noise floor; one-sided bias taken as rectangular (common "
+                 "practice, no source)")
+_SCATTER_ORIGIN = ("measured level and noise floor; small-noise expansion of "
+                   "20·log10|A + n|")
 
 
 def noise_scatter_line(lines: dict[tuple, Any], reading: str, sigma_db: float,
@@ -769,14 +785,39 @@ def noise_scatter_line(lines: dict[tuple, Any], reading: str, sigma_db: float,
     key = ("noise_scatter", reading, sigma_db, snr_db, averages, c)
     line = lines.get(key)
     if line is None:
-        line = lines[key] = made_line(
-            "noise_scatter", sys.intern(
-                f"scatter of one reading of {_plain(reading)} in the analyzer noise "
-                f"(SNR {snr_db:.1f} dB, {averages} sweep{'s' if averages > 1 else ''}): "
-                "(20/ln 10)·sqrt(1/(2ρ))/√averages"), sigma_db, "standard", c, "A",
-            "measured level and noise floor; small-noise expansion of "
-            "20·log10|A + n|")
+        line = lines[key] = _scatter_line(_plain(reading), sigma_db, snr_db, averages, c)
     return line
+
+
+def noise_scatter_lines(lines: dict[tuple, Any], reading: str,
+                        snrs_and_averages: Iterable[tuple[float, int]], c: float
+                        ) -> list[Contribution | None]:
+    """For each (SNR dB, averages): :func:`noise_scatter_line` of its
+    :func:`noise_scatter_db`, or None where that is 0 (no line)."""
+    words = _plain(reading)
+    get = lines.get
+    out: list[Contribution | None] = []
+    for snr_db, averages in snrs_and_averages:
+        sigma_db = noise_scatter_db(snr_db, averages)
+        if not sigma_db > 0.0:
+            out.append(None)
+            continue
+        key = ("noise_scatter", reading, sigma_db, snr_db, averages, c)
+        line = get(key)
+        if line is None:
+            line = lines[key] = _scatter_line(words, sigma_db, snr_db, averages, c)
+        out.append(line)
+    return out
+
+
+def _scatter_line(words: str, sigma_db: float, snr_db: float, averages: int, c: float
+                  ) -> Contribution:
+    return made_line(
+        "noise_scatter", sys.intern(
+            f"scatter of one reading of {words} in the analyzer noise "
+            f"(SNR {snr_db:.1f} dB, {averages} sweep{'s' if averages > 1 else ''}): "
+            "(20/ln 10)·sqrt(1/(2ρ))/√averages"), sigma_db, "standard", c, "A",
+        _SCATTER_ORIGIN)
 
 
 def _compression_terms(figure: Figure, levels: PointLevels, specs: InstrumentSpecs,
