@@ -180,8 +180,14 @@ class Contribution:
     contribution_db: float = field(init=False, repr=False, compare=False)
 
     def __post_init__(self) -> None:
+        # abs(c_i) · standard_uncertainty(a, shape), written out (a large run makes hundreds
+        # of thousands of lines): the same operations, so the same number
+        divisor = DIVISORS.get(self.shape)
+        if divisor is None:
+            raise ValueError(f"unknown distribution {self.shape!r}; one of "
+                             f"{', '.join(DIVISORS)}")
         object.__setattr__(self, "contribution_db",
-                           abs(self.sensitivity) * self.standard_db)
+                           abs(self.sensitivity) * (abs(float(self.half_width_db)) / divisor))
 
     @property
     def standard_db(self) -> float:
@@ -229,6 +235,68 @@ class Budget:
             "expanded_uncertainty_db": self.expanded_db,
             "contributions": [c.as_dict() for c in self.contributions],
         }
+
+
+class _OpenContribution:
+    """The slots of :class:`Contribution` without its frozen ``__setattr__`` (and
+    :class:`_OpenBudget` of :class:`Budget`): :func:`made_line` and :func:`made_budget` fill
+    one with plain stores and make it the frozen class by ``__class__`` assignment between
+    two classes of the same slot layout (the way :func:`sweeprig.analysis.figures.with_changes`
+    makes figures), about ten times faster than the dataclass's ``__init__`` (a large run
+    makes hundreds of thousands of lines). Nothing else ever sees one."""
+
+    __slots__ = Contribution.__slots__
+
+
+class _OpenBudget:
+    __slots__ = Budget.__slots__
+
+
+def _open_classes_work() -> bool:
+    """Whether this interpreter accepts the ``__class__`` switch (else the dataclasses'
+    own constructors)."""
+    try:
+        _OpenContribution().__class__ = Contribution  # type: ignore[assignment]
+        _OpenBudget().__class__ = Budget  # type: ignore[assignment]
+    except TypeError:
+        return False
+    return True
+
+
+_OPEN_CLASSES = _open_classes_work()
+
+
+def made_line(name: str, what: str, half_width_db: float, shape: str, sensitivity: float,
+              kind: Literal["A", "B"], origin: str) -> Contribution:
+    """``Contribution(name, what, half_width_db, shape, sensitivity, kind, origin)``: the
+    same line (``contribution_db`` worked out by the same operations), made faster."""
+    if not _OPEN_CLASSES or shape not in DIVISORS:
+        return Contribution(name, what, half_width_db, shape, sensitivity, kind, origin)
+    line = _OpenContribution()
+    line.name = name
+    line.what = what
+    line.half_width_db = half_width_db
+    line.shape = shape
+    line.sensitivity = sensitivity
+    line.kind = kind
+    line.origin = origin
+    line.contribution_db = abs(sensitivity) * (abs(float(half_width_db)) / DIVISORS[shape])
+    line.__class__ = Contribution  # type: ignore[assignment]
+    return line  # type: ignore[return-value]
+
+
+def made_budget(contributions: tuple[Contribution, ...],
+                coverage_factor: float = COVERAGE_FACTOR) -> Budget:
+    """``Budget(contributions, coverage_factor)``: the same budget (``combined_db`` by the
+    same root sum of squares), made faster."""
+    if not _OPEN_CLASSES:
+        return Budget(contributions, coverage_factor)
+    budget = _OpenBudget()
+    budget.contributions = contributions
+    budget.coverage_factor = coverage_factor
+    budget.combined_db = math.hypot(*[c.contribution_db for c in contributions])
+    budget.__class__ = Budget  # type: ignore[assignment]
+    return budget  # type: ignore[return-value]
 
 
 def combine(contributions_db: Iterable[float]) -> float:
@@ -643,16 +711,7 @@ def figure_budget(figure: Figure, levels: PointLevels, specs: InstrumentSpecs,
     for reading, c in noisy:
         snr = levels.min_snr_db(pts, reading)
         if math.isfinite(snr):
-            key = ("noise", reading, snr, c)
-            line = lines.get(key)
-            if line is None:
-                line = lines[key] = Contribution(
-                    "noise", sys.intern(f"analyzer noise under {_plain(reading)} (lowest SNR "
-                                        f"{snr:.1f} dB)"), noise_bias_db(snr), "rectangular",
-                    c, "B",
-                    "measured noise floor; one-sided bias taken as rectangular (common "
-                    "practice, no source)")
-            terms.append(line)
+            terms.append(noise_line(lines, reading, snr, c))
     fit_terms: list[Contribution] = []
     if model.fit == "intercept" and model.product is not None:
         x = [levels.input_dbm.get(p, math.nan) for p in pts]
@@ -680,19 +739,85 @@ def figure_budget(figure: Figure, levels: PointLevels, specs: InstrumentSpecs,
         worst = levels.worst_scatter(pts, reading)
         if worst is not None and worst[0] > 0.0:
             sigma, snr, avg = worst
-            c = model.relative_c or c  # flatness: two readings of the gain, √2
-            key = ("noise_scatter", reading, sigma, snr, avg, c)
-            line = lines.get(key)
-            if line is None:
-                line = lines[key] = Contribution(
-                    "noise_scatter", sys.intern(
-                        f"scatter of one reading of {_plain(reading)} in the analyzer noise "
-                        f"(SNR {snr:.1f} dB, {avg} sweep{'s' if avg > 1 else ''}): "
-                        "(20/ln 10)·sqrt(1/(2ρ))/√averages"), sigma, "standard", c, "A",
-                    "measured level and noise floor; small-noise expansion of "
-                    "20·log10|A + n|")
-            terms.append(line)
+            # flatness: two readings of the gain, √2
+            terms.append(noise_scatter_line(lines, reading, sigma, snr, avg,
+                                            model.relative_c or c))
     return Budget(tuple(terms), specs.coverage_factor)
+
+
+def noise_line(lines: dict[tuple, Any], reading: str, snr_db: float, c: float
+               ) -> Contribution:
+    """The analyzer-noise line of ``reading`` at its lowest SNR ``snr_db`` (finite) with
+    sensitivity ``c``: made once per distinct (reading, SNR, c) and kept in ``lines``."""
+    return noise_lines(lines, reading, (snr_db,), c)[0]
+
+
+def noise_lines(lines: dict[tuple, Any], reading: str, snrs_db: Iterable[float], c: float
+                ) -> list[Contribution]:
+    """:func:`noise_line` of each of ``snrs_db`` (one reading and sensitivity: a group of
+    figures at once)."""
+    words = _plain(reading)
+    get = lines.get
+    out = []
+    for snr_db in snrs_db:
+        key = ("noise", reading, snr_db, c)
+        line = get(key)
+        if line is None:
+            line = lines[key] = made_line(
+                "noise", sys.intern(f"analyzer noise under {words} (lowest SNR "
+                                    f"{snr_db:.1f} dB)"), noise_bias_db(snr_db),
+                "rectangular", c, "B", _NOISE_ORIGIN)
+        out.append(line)
+    return out
+
+
+_NOISE_ORIGIN = ("measured noise floor; one-sided bias taken as rectangular (common "
+                 "practice, no source)")
+_SCATTER_ORIGIN = ("measured level and noise floor; small-noise expansion of "
+                   "20·log10|A + n|")
+
+
+def noise_scatter_line(lines: dict[tuple, Any], reading: str, sigma_db: float,
+                       snr_db: float, averages: int, c: float) -> Contribution:
+    """The Type A line of one reading of ``reading`` scattering by ``sigma_db``
+    (:func:`noise_scatter_db` of ``snr_db`` over ``averages`` sweeps) with sensitivity
+    ``c``: made once per distinct set of those and kept in ``lines``."""
+    key = ("noise_scatter", reading, sigma_db, snr_db, averages, c)
+    line = lines.get(key)
+    if line is None:
+        line = lines[key] = _scatter_line(_plain(reading), sigma_db, snr_db, averages, c)
+    return line
+
+
+def noise_scatter_lines(lines: dict[tuple, Any], reading: str,
+                        snrs_and_averages: Iterable[tuple[float, int]], c: float
+                        ) -> list[Contribution | None]:
+    """For each (SNR dB, averages): :func:`noise_scatter_line` of its
+    :func:`noise_scatter_db`, or None where that is 0 (no line)."""
+    words = _plain(reading)
+    get = lines.get
+    out: list[Contribution | None] = []
+    for snr_db, averages in snrs_and_averages:
+        sigma_db = noise_scatter_db(snr_db, averages)
+        if not sigma_db > 0.0:
+            out.append(None)
+            continue
+        key = ("noise_scatter", reading, sigma_db, snr_db, averages, c)
+        line = get(key)
+        if line is None:
+            line = lines[key] = _scatter_line(words, sigma_db, snr_db, averages, c)
+        out.append(line)
+    return out
+
+
+def _scatter_line(words: str, sigma_db: float, snr_db: float, averages: int, c: float
+                  ) -> Contribution:
+    return made_line(
+        "noise_scatter", sys.intern(
+            f"scatter of one reading of {words} in the analyzer noise "
+            f"(SNR {snr_db:.1f} dB, {averages} sweep{'s' if averages > 1 else ''}): "
+            "(20/ln 10)·sqrt(1/(2ρ))/√averages"), sigma_db, "standard", c, "A",
+        _SCATTER_ORIGIN)
 
 
 def _compression_terms(figure: Figure, levels: PointLevels, specs: InstrumentSpecs,
@@ -726,6 +851,21 @@ def _condition_key(conditions: Mapping[str, object]) -> tuple:
     return tuple(sorted((k, v) for k, v in conditions.items()))
 
 
+def small_signal_gain_u(figures: Sequence[Figure], levels: PointLevels
+                        ) -> dict[tuple, float]:
+    """Per condition set (:func:`_condition_key`), the Type A standard uncertainty (dB) of
+    its small-signal gain (:func:`mean_u_db` of the gains it was the mean of): the
+    reference error a compression point's fit term takes."""
+    out: dict[tuple, float] = {}
+    for f in figures:
+        if f.name == "small_signal_gain" and f.is_number:
+            gains = [levels.level_dbm.get((p, "if"), math.nan) - levels.input_dbm.get(p,
+                                                                                     math.nan)
+                     for p in f.points]
+            out[_condition_key(f.conditions)] = mean_u_db(gains)
+    return out
+
+
 def attach_uncertainty(figures: Sequence[Figure], captures: pd.DataFrame,
                        specs: InstrumentSpecs | None = None,
                        cal: CalibrationState = UNCALIBRATED) -> list[Figure]:
@@ -733,21 +873,19 @@ def attach_uncertainty(figures: Sequence[Figure], captures: pd.DataFrame,
     where a budget exists; the others are returned unchanged."""
     specs = specs or InstrumentSpecs()
     levels = PointLevels.from_captures(captures)
-    small_signal_u: dict[tuple, float] = {}
-    for f in figures:
-        if f.name == "small_signal_gain" and f.is_number:
-            gains = [levels.level_dbm.get((p, "if"), math.nan) - levels.input_dbm.get(p,
-                                                                                     math.nan)
-                     for p in f.points]
-            small_signal_u[_condition_key(f.conditions)] = mean_u_db(gains)
+    small_signal_u = small_signal_gain_u(figures, levels)
     out: list[Figure] = []
     sides: dict[tuple, Figure] = {}
     side_names = _SIDE_NAMES
     lines: dict[tuple, Any] = {}
+    # the budgets are worked out per group of figures of one kind (the same numbers,
+    # line for line, as figure_budget one figure at a time: tests/analysis/
+    # test_uncertainty_groups.py); imported here, the grouped path builds on this module
+    from sweeprig.analysis.budget_groups import grouped_budgets
+
     with collector_paused():  # a large run makes hundreds of thousands of budgets
-        for f in figures:
-            budget = figure_budget(f, levels, specs, cal, small_signal_u=small_signal_u,
-                                   lines=lines)
+        budgets = grouped_budgets(figures, levels, specs, cal, small_signal_u, lines)
+        for f, budget in zip(figures, budgets, strict=True):
             if budget is not None:
                 f = with_changes(f, uncertainty_db=budget.expanded_db, budget=budget)
                 if f.name in side_names:
