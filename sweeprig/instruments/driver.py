@@ -703,8 +703,11 @@ class Driver:
         """Read the ``*OPC?`` reply of :meth:`post_sync` (nothing when it returned None)."""
         if pending is None:
             return
-        reply = self.collect(pending)
-        cmd = self.profile.op("operation_complete").queries[0]
+        self._check_complete(self.collect(pending),
+                             self.profile.op("operation_complete").queries[0])
+
+    def _check_complete(self, reply: str, cmd: str) -> None:
+        """Raise unless ``reply`` to the completion query ``cmd`` is 1."""
         if not blocks.parse_bool(reply, where=self.where(cmd)):
             raise InstrumentError(
                 f"{cmd} answered {reply!r} instead of 1",
@@ -738,14 +741,8 @@ class Driver:
             self.check_errors()
             return
         opc = self.profile.op("operation_complete")
-        cmd = opc.queries[0]
-        reply = self.query(cmd, timeout_s=opc.timeout_s)
-        if not blocks.parse_bool(reply, where=self.where(cmd)):
-            raise InstrumentError(
-                f"{cmd} answered {reply!r} instead of 1",
-                where=self.where(cmd),
-                fix="check the instrument's error queue; a setting may have failed",
-            )
+        self._check_complete(self.query(opc.queries[0], timeout_s=opc.timeout_s),
+                             opc.queries[0])
 
     def ask_joined(self, *asks: tuple[str, Value | None], status: bool = False,
                    timeout_s: float | None = None) -> list[Any]:
