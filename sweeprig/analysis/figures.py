@@ -108,6 +108,8 @@ from typing import TYPE_CHECKING, Literal
 
 import numpy as np
 
+from sweeprig.analysis.writable_twin import writable_twin
+
 if TYPE_CHECKING:
     from sweeprig.analysis.uncertainty import Budget
 
@@ -400,27 +402,11 @@ class Figure:
 _FIGURE_SLOTS: tuple[str, ...] = Figure.__slots__
 
 
-class _OpenFigure:
-    """The slots of :class:`Figure` without its frozen ``__setattr__``: the builders below
-    fill one with plain attribute stores and then make it a Figure (``__class__``
-    assignment between two classes of the same slot layout, which Python allows, the
-    language reference's "__class__" assignment rule), several times faster than one
-    ``object.__setattr__`` call per field. Nothing else ever sees an _OpenFigure."""
-
-    __slots__ = _FIGURE_SLOTS
-
-
-def _open_figures_work() -> bool:
-    """Whether this interpreter accepts the ``__class__`` switch (else the slow path)."""
-    probe = _OpenFigure()
-    try:
-        probe.__class__ = Figure  # type: ignore[assignment]
-    except TypeError:
-        return False
-    return True
-
-
-_OPEN_FIGURES = _open_figures_work()
+#: Figures are built through a writable twin (:mod:`sweeprig.analysis.writable_twin`):
+#: several times faster than one ``object.__setattr__`` call per field; None: this
+#: interpreter refuses the switch, and the slow path is taken.
+_OpenFigure = writable_twin(Figure)
+_OPEN_FIGURES = _OpenFigure is not None
 _FIGURE_SLOT_SET = frozenset(_FIGURE_SLOTS)
 # with_changes sets every field by name: a field added to Figure must be added there too
 # (tests/analysis/test_figures.py compares it with dataclasses.replace field by field).

@@ -60,6 +60,7 @@ import numpy as np
 import pandas as pd
 
 from sweeprig.analysis.figures import Figure, collector_paused, with_changes
+from sweeprig.analysis.writable_twin import writable_twin
 
 Shape = Literal["rectangular", "triangular", "u-shaped", "normal-k2", "standard"]
 
@@ -237,33 +238,12 @@ class Budget:
         }
 
 
-class _OpenContribution:
-    """The slots of :class:`Contribution` without its frozen ``__setattr__`` (and
-    :class:`_OpenBudget` of :class:`Budget`): :func:`made_line` and :func:`made_budget` fill
-    one with plain stores and make it the frozen class by ``__class__`` assignment between
-    two classes of the same slot layout (the way :func:`sweeprig.analysis.figures.with_changes`
-    makes figures), about ten times faster than the dataclass's ``__init__`` (a large run
-    makes hundreds of thousands of lines). Nothing else ever sees one."""
-
-    __slots__ = Contribution.__slots__
-
-
-class _OpenBudget:
-    __slots__ = Budget.__slots__
-
-
-def _open_classes_work() -> bool:
-    """Whether this interpreter accepts the ``__class__`` switch (else the dataclasses'
-    own constructors)."""
-    try:
-        _OpenContribution().__class__ = Contribution  # type: ignore[assignment]
-        _OpenBudget().__class__ = Budget  # type: ignore[assignment]
-    except TypeError:
-        return False
-    return True
-
-
-_OPEN_CLASSES = _open_classes_work()
+#: :func:`made_line` and :func:`made_budget` fill writable twins of the frozen classes
+#: (:mod:`sweeprig.analysis.writable_twin`), about ten times faster than the dataclasses'
+#: ``__init__`` (a large run makes hundreds of thousands of lines); None: the constructors.
+_OpenContribution = writable_twin(Contribution)
+_OpenBudget = writable_twin(Budget)
+_OPEN_CLASSES = _OpenContribution is not None and _OpenBudget is not None
 
 
 def made_line(name: str, what: str, half_width_db: float, shape: str, sensitivity: float,
