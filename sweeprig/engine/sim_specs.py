@@ -19,6 +19,7 @@ from __future__ import annotations
 import math
 import os
 from collections.abc import Iterable
+from pathlib import Path
 from typing import Any
 
 from sweeprig.formats.bench import (
@@ -132,24 +133,114 @@ def _filter_note(description: Any, role: str) -> str | None:
 def with_sim_figures(bench: Bench, description: Any = None) -> Bench:
     """``bench`` with the analyzer's and sources' figures of the sim-bench ``description``
     (a model, a path, a shipped name, or None for the default), and the analyzer profile of
-    its family."""
-    from sweeprig.sim.description import resolve_description  # light: no simulator
+    its family.
 
-    desc = resolve_description(description)
-    analyzer, sources, nf = sim_figures(desc)
+    For the default description the figures come from :data:`DEFAULT_STATED_PATH`, made from
+    it and pinned to it by a test, while the file's SHA-256 matches the one recorded there:
+    ``check`` of the built-in bench then builds no description model (start-up time). Any
+    other description, or a default file changed since, is read and its figures computed."""
+    stated = default_stated_figures() if description is None else None
+    if stated is None:
+        from sweeprig.sim.description import resolve_description  # light: no simulator
+
+        stated = stated_figures(resolve_description(description))
+    return _with_stated(bench, stated)
+
+
+def stated_figures(description: Any) -> dict[str, Any]:
+    """What :func:`with_sim_figures` puts on a bench for ``description``, as plain numbers
+    (the form :data:`DEFAULT_STATED_PATH` keeps): the analyzer's figures, the sources'
+    harmonics per role, the analyzer's noise figure, the roles served from the second family
+    and whether its sources need its ``[timebase]``."""
+    analyzer, sources, nf = sim_figures(description)
+    return {
+        "analyzer": {
+            "toi": analyzer.toi, "soi": analyzer.soi, "p1db": analyzer.p1db,
+            "overload": analyzer.overload,
+            "phase_noise": None if analyzer.phase_noise is None else
+            [[p.offset, p.level] for p in analyzer.phase_noise]},
+        "harmonics": {role: None if getattr(sources, role).harmonics is None else
+                      list(getattr(sources, role).harmonics) for role in SOURCE_ROLES},
+        "noise_figure": nf,
+        "second_family_roles": sorted(family_profiles(description)),
+        "second_family_timebase": description.sources.family == "farrowmere",
+    }
+
+
+def _with_stated(bench: Bench, stated: dict[str, Any]) -> Bench:
+    """``bench`` with the figures :func:`stated_figures` lists."""
+    a = stated["analyzer"]
+    phase_noise = None if a["phase_noise"] is None else tuple(
+        PhaseNoisePoint(offset=o, level=v) for o, v in a["phase_noise"])
+    analyzer = AnalyzerFigures(toi=a["toi"], soi=a["soi"], p1db=a["p1db"],
+                               overload=a["overload"], phase_noise=phase_noise)
+    harmonics = stated["harmonics"]
+    sources = SourcesFigures(**{r: SourceFigures(
+        harmonics=None if harmonics[r] is None else tuple(harmonics[r])) for r in SOURCE_ROLES})
     roles = bench.roles
-    swaps = family_profiles(desc)
-    for role, (generic, own) in swaps.items():
+    for role in stated["second_family_roles"]:
+        generic, own = SECOND_FAMILY_PROFILES[role]
         spec = getattr(roles, role)
         if spec is not None and spec.profile == generic:  # the second family's dialect
             roles = roles.model_copy(update={role: spec.model_copy(update={"profile": own})})
     if roles.sa is not None:
         roles = roles.model_copy(update={"sa": roles.sa.model_copy(
-            update={"noise_figure": nf})})
+            update={"noise_figure": stated["noise_figure"]})})
     update: dict[str, Any] = {"analyzer": analyzer, "sources": sources, "roles": roles}
-    if bench.timebase is None and desc.sources.family == "farrowmere":
+    if bench.timebase is None and stated["second_family_timebase"]:
         update["timebase"] = family_timebase()
     return bench.model_copy(update=update)
+
+
+#: The default sim-bench description's stated figures (:func:`stated_figures`), with the
+#: SHA-256 of the description file they were made from. Remade by
+#: ``python -m sweeprig.engine.sim_specs`` (a test fails while it is stale).
+DEFAULT_STATED_PATH = Path(__file__).resolve().parent / "default_sim_figures.json"
+#: The format line of :data:`DEFAULT_STATED_PATH`.
+DEFAULT_STATED_FORMAT = "sweeprig stated sim figures 1"
+
+
+def _made_from() -> str:
+    """SHA-256 over what the default description's figures come from: its file, and the
+    description module (its defaults, e.g. the analyzer's phase noise, are code)."""
+    import hashlib
+
+    from sweeprig.sim.names import BENCHES_DIR, DEFAULT_BENCH_NAME
+
+    digest = hashlib.sha256()
+    for path in (BENCHES_DIR / f"{DEFAULT_BENCH_NAME}.toml",
+                 Path(__file__).resolve().parents[1] / "sim" / "description.py"):
+        digest.update(path.read_bytes())
+    return digest.hexdigest()
+
+
+def default_stated_figures() -> dict[str, Any] | None:
+    """:data:`DEFAULT_STATED_PATH`'s figures, or None when the file is missing, unreadable,
+    of another format or made from another version of the default description."""
+    import json
+
+    try:
+        kept = json.loads(DEFAULT_STATED_PATH.read_text(encoding="utf-8"))
+        made_from = _made_from()
+    except (OSError, ValueError):
+        return None
+    if not isinstance(kept, dict) or kept.get("format") != DEFAULT_STATED_FORMAT \
+            or kept.get("made_from_sha256") != made_from:
+        return None
+    figures = kept.get("figures")
+    return figures if isinstance(figures, dict) else None
+
+
+def write_default_stated_figures() -> Path:
+    """(Re)make :data:`DEFAULT_STATED_PATH` from the default description."""
+    import json
+
+    from sweeprig.sim.description import resolve_description
+
+    kept = {"format": DEFAULT_STATED_FORMAT, "made_from_sha256": _made_from(),
+            "figures": stated_figures(resolve_description(None))}
+    DEFAULT_STATED_PATH.write_text(json.dumps(kept, indent=1) + "\n", encoding="utf-8")
+    return DEFAULT_STATED_PATH
 
 
 #: The second simulated family's profiles (docs/instruments.md), by role: (the built-in bench
@@ -237,3 +328,7 @@ def is_shipped_sim_bench(path: str | os.PathLike[str], shipped: str | os.PathLik
         return os.path.samefile(path, shipped)
     except OSError:
         return False
+
+
+if __name__ == "__main__":
+    print(f"wrote {write_default_stated_figures()}")

@@ -140,7 +140,7 @@ from sweeprig.formats.fields import (
 )
 from sweeprig.formats.loading import Document, display_path, load_document, validate
 from sweeprig.sim.fault_plan import FaultPlan, FaultSpec
-from sweeprig.sim.names import BENCHES_DIR, ROLES, shipped_parts
+from sweeprig.sim.names import BENCHES_DIR, DEFAULT_BENCH_NAME, ROLES, shipped_parts
 from sweeprig.units import short_repr, shorten
 
 if TYPE_CHECKING:
@@ -156,7 +156,6 @@ DEFAULT_PHASE_NOISE: tuple[tuple[float, float], ...] = (
     (100.0, -84.0), (1e3, -98.0), (1e4, -106.0), (1e5, -116.0), (1e6, -135.0), (1e7, -145.0),
 )
 
-DEFAULT_BENCH_NAME = "default"
 #: The page a sim-bench description error points to.
 SIM_BENCH_DOCS = "docs/sim-bench.md"
 

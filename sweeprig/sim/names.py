@@ -11,6 +11,8 @@ ROLES: tuple[str, ...] = (
     "rf", "rf2", "lo", "sa", "pm", "dc", "chamber", "switch", "simctl", "nsdc",
 )
 BENCHES_DIR = Path(__file__).resolve().parent / "benches"
+#: The shipped description served when none is named (``BENCHES_DIR / "default.toml"``).
+DEFAULT_BENCH_NAME = "default"
 PARTS_DIR = Path(__file__).resolve().parent / "parts"
 #: Clients one instrument serves at once by default; one more is refused.
 DEFAULT_MAX_CONNECTIONS = 16

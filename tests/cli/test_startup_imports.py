@@ -17,9 +17,9 @@ QUICK = ROOT / "sequences" / "demo" / "quick.toml"
 #: Libraries no start-up path may load.
 HEAVY = ("pandas", "matplotlib", "scipy", "pyarrow", "skrf")
 #: The simulator proper. ``sweeprig.sim.names`` (the roles and shipped names the help lists)
-#: is light; ``check`` on the built-in simulated bench reads only the sim-bench description
-#: (``sweeprig.sim.description`` with ``fault_plan``, the file format) to state its figures,
-#: never the bench that builds and serves the instruments, their faults or display.
+#: is light; ``check`` on the built-in simulated bench takes the default description's figures
+#: from the file kept beside :mod:`sweeprig.engine.sim_specs` (not even the description's
+#: model is built), never the bench that builds and serves the instruments.
 SIMULATOR = ("sweeprig.sim.mixer", "sweeprig.sim.world", "sweeprig.sim.server",
              "sweeprig.sim.instruments", "sweeprig.sim.scpi", "sweeprig.sim.truth",
              "sweeprig.sim.bench", "sweeprig.sim.faults", "sweeprig.sim.analyzer_display")
@@ -72,10 +72,8 @@ def test_the_command_line_and_check_load_no_heavy_library_nor_the_simulator() ->
     assert seen["after_check"] == []
     # --help lists the sim commands from the light names module only
     assert set(seen["sim_after_import"]) <= {"sweeprig.sim", "sweeprig.sim.names"}
-    # check states the simulated bench's figures from its description alone
-    assert set(seen["sim_after_check"]) <= {"sweeprig.sim", "sweeprig.sim.names",
-                                            "sweeprig.sim.description",
-                                            "sweeprig.sim.fault_plan"}
+    # check states the default simulated bench's figures from the kept file alone
+    assert set(seen["sim_after_check"]) <= {"sweeprig.sim", "sweeprig.sim.names"}
 
 
 def test_a_command_module_that_fails_to_import_fails_the_command_line() -> None:
