@@ -9,6 +9,7 @@ records itself as aborted) or while it finishes (later signals are only recorded
 from __future__ import annotations
 
 import sys
+from collections.abc import Callable
 
 _STARTING = "sweeprig: stopped by SIGINT (Ctrl-C) while starting; nothing was done"
 
@@ -27,10 +28,10 @@ def main() -> None:
             # Held while the libraries load: a stop raised inside their import-time machinery
             # (a schema being built, an import lock's callback) could come out as their error.
             with stops.shielded():
-                from sweeprig.cli.main import app
+                app = _import_app()
             stops.raise_pending()
         else:
-            from sweeprig.cli.main import app
+            app = _import_app()
         app()
     except RunStopped as stop:
         _say(f"sweeprig: {stop}; nothing more was done")
@@ -48,6 +49,25 @@ def main() -> None:
     finally:
         if stops is not None:
             _quiet_exit()
+
+
+def _import_app() -> Callable[[], object]:
+    """The command line's app, imported with the cyclic garbage collector paused: the import
+    makes hundreds of thousands of objects (models, schemas, dataclasses) and none of them is
+    garbage, so collections during it are wasted (about 3 % of ``sweeprig check``'s start-up).
+    Everything made so far is then moved out of the collector's sight (``gc.freeze``): it
+    lives as long as the process, and later collections need not walk it again."""
+    import gc
+
+    was_enabled = gc.isenabled()
+    gc.disable()
+    try:
+        from sweeprig.cli.main import app
+    finally:
+        gc.freeze()
+        if was_enabled:
+            gc.enable()
+    return app
 
 
 def _quiet_exit() -> None:

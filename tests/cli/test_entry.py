@@ -71,3 +71,20 @@ def test_after_the_command_further_signals_are_ignored(monkeypatch) -> None:
     assert _run(monkeypatch, app) == 0
     assert all(signal.getsignal(sig) == signal.SIG_IGN for sig in STOP_SIGNALS)
     signal.raise_signal(signal.SIGTERM)  # the process is ending: nothing happens
+
+
+def test_the_app_is_imported_with_the_collector_paused_and_left_as_found() -> None:
+    import gc
+
+    from sweeprig.cli import entry
+
+    try:
+        assert gc.isenabled()
+        assert callable(entry._import_app())
+        assert gc.isenabled()  # a paused collector would let a long run's cycles pile up
+        gc.disable()
+        entry._import_app()
+        assert not gc.isenabled()  # one the caller paused stays paused
+    finally:
+        gc.enable()
+        gc.unfreeze()
