@@ -136,7 +136,7 @@ def with_sim_figures(bench: Bench, description: Any = None) -> Bench:
     its family.
 
     For the default description the figures come from :data:`DEFAULT_STATED_PATH`, made from
-    it and pinned to it by a test, while the file's SHA-256 matches the one recorded there:
+    it and pinned to it by a test, while the SHA-256 of what it was made from still matches:
     ``check`` of the built-in bench then builds no description model (start-up time). Any
     other description, or a default file changed since, is read and its figures computed."""
     stated = default_stated_figures() if description is None else None
@@ -193,7 +193,7 @@ def _with_stated(bench: Bench, stated: dict[str, Any]) -> Bench:
 
 
 #: The default sim-bench description's stated figures (:func:`stated_figures`), with the
-#: SHA-256 of the description file they were made from. Remade by
+#: SHA-256 of what they were made from (:func:`_made_from`). Remade by
 #: ``python -m sweeprig.engine.sim_specs`` (a test fails while it is stale).
 DEFAULT_STATED_PATH = Path(__file__).resolve().parent / "default_sim_figures.json"
 #: The format line of :data:`DEFAULT_STATED_PATH`.
@@ -203,15 +203,11 @@ DEFAULT_STATED_FORMAT = "sweeprig stated sim figures 1"
 def _made_from() -> str:
     """SHA-256 over what the default description's figures come from: its file, and the
     description module (its defaults, e.g. the analyzer's phase noise, are code)."""
-    import hashlib
-
+    from sweeprig.files import sha256_text
     from sweeprig.sim.names import BENCHES_DIR, DEFAULT_BENCH_NAME
 
-    digest = hashlib.sha256()
-    for path in (BENCHES_DIR / f"{DEFAULT_BENCH_NAME}.toml",
-                 Path(__file__).resolve().parents[1] / "sim" / "description.py"):
-        digest.update(path.read_bytes())
-    return digest.hexdigest()
+    sources = (BENCHES_DIR / f"{DEFAULT_BENCH_NAME}.toml", BENCHES_DIR.parent / "description.py")
+    return sha256_text("\0".join(path.read_text(encoding="utf-8") for path in sources))
 
 
 def default_stated_figures() -> dict[str, Any] | None:
@@ -235,11 +231,12 @@ def write_default_stated_figures() -> Path:
     """(Re)make :data:`DEFAULT_STATED_PATH` from the default description."""
     import json
 
+    from sweeprig.files import replace_text
     from sweeprig.sim.description import resolve_description
 
     kept = {"format": DEFAULT_STATED_FORMAT, "made_from_sha256": _made_from(),
             "figures": stated_figures(resolve_description(None))}
-    DEFAULT_STATED_PATH.write_text(json.dumps(kept, indent=1) + "\n", encoding="utf-8")
+    replace_text(DEFAULT_STATED_PATH, json.dumps(kept, indent=1) + "\n")
     return DEFAULT_STATED_PATH
 
 
