@@ -447,6 +447,9 @@ class Runner:
             probe_c = (self.d.chamber.probe_temperature_c() if self.d.chamber is not None
                        else None)
         current_a = next((r.extra["current_a"] for r in records if "current_a" in r.extra), None)
+        # the point's end, read once: the record and the ETA (on a served bench the clock is
+        # a query to the simulator)
+        sim_end = self.clock.now()
         record = PointRecord(
             index=point.index,
             study=point.study,
@@ -461,7 +464,7 @@ class Runner:
             probe_temperature_c=probe_c,
             supply_current_a=current_a,
             sim_start_s=sim_start,
-            sim_end_s=self.clock.now(),
+            sim_end_s=sim_end,
             wall_start=wall_start,
             wall_end=utc_now(),
             extra={"if_freq_hz": point.if_freq_hz, "tone_spacing_hz": point.tone_spacing_hz,
@@ -469,9 +472,8 @@ class Runner:
         )
         eta: dict[str, float] | None = None
         if self.eta is not None:
-            self.eta.point_measured(self.clock.now() - sim_start
-                                    - (self._waited_s - waited_before))
-            eta = self.eta.fields(self.clock.now())
+            self.eta.point_measured(sim_end - sim_start - (self._waited_s - waited_before))
+            eta = self.eta.fields(sim_end)
         self.store.write_point(self.run_id, record, records,
                                activity=None if eta is None else {"what": "measuring", **eta})
         wanted = next((r for r in records if r.name == "wanted"), None)
