@@ -230,7 +230,7 @@ def _json(value: Mapping[str, Any] | None, name: str) -> str:
     if not value:
         return "{}"  # json.dumps({}): most records have no extra
     try:
-        return json.dumps(dict(value or {}), sort_keys=True, default=_json_default)
+        return _EXTRA_JSON.encode(dict(value or {}))
     except (TypeError, ValueError) as exc:
         raise StoreError(f"{name} cannot be stored as JSON: {exc}", where=name) from None
 
@@ -243,6 +243,13 @@ def _json_default(value: object) -> object:
     if isinstance(value, datetime):
         return _iso(value)
     raise TypeError(f"{type(value).__name__} is not JSON-able")
+
+
+#: ``json.dumps(..., sort_keys=True, default=_json_default)`` made once: the same text
+#: (``json.dumps`` builds this encoder on every call when given options)
+_EXTRA_JSON = json.JSONEncoder(sort_keys=True, default=_json_default)
+#: ``json.dumps(..., default=str)`` made once, for a run's activity
+_ACTIVITY_JSON = json.JSONEncoder(default=str)
 
 
 def _activity(text: str | None) -> Mapping[str, Any] | None:
@@ -470,7 +477,7 @@ class SqlRunStoreCore:
         heartbeat = conn.execute(
             "UPDATE runs SET heartbeat_utc = ?, activity_json = ? WHERE id = ?",
             (_iso(utc_now()), None if activity is None
-             else json.dumps(dict(activity), default=str), run_id))
+             else _ACTIVITY_JSON.encode(dict(activity)), run_id))
         if heartbeat.rowcount == 0:
             raise self._no_run(run_id)
         if conn.execute(INSERT_POINT_UNLESS_STORED_SQL, point_row).rowcount == 0:
