@@ -12,7 +12,7 @@ from sweeprig.engine.runner import MARKER_FLOOR_CLEAR_DB, NOISE_MARKERS, floor_f
 _LEVEL = st.floats(-200.0, 30.0, allow_nan=False)
 
 
-@settings(max_examples=300, deadline=None)
+@settings(max_examples=120, deadline=None)
 @given(samples=st.lists(_LEVEL, min_size=NOISE_MARKERS, max_size=NOISE_MARKERS))
 def test_the_marker_floor_is_numpy_s_mean_bit_for_bit(samples: list[float]) -> None:
     level = max(samples) + MARKER_FLOOR_CLEAR_DB + 1.0

@@ -75,7 +75,7 @@ def test_queries_and_arguments() -> None:
     assert query.query and query.path == ("POW",)
 
 
-@settings(max_examples=400, deadline=None)
+@settings(max_examples=150, deadline=None)
 @given(message=st.text(alphabet=st.sampled_from(list("AB:*?;,'\" \n\r\x0019.e-")),
                        max_size=40),
        respect=st.booleans())
