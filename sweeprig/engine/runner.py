@@ -52,6 +52,7 @@ from sweeprig.engine.eta import EtaTracker
 from sweeprig.engine.noise_floor import MASK_HALF_WIDTH_RBW, NoiseFloor, estimate_noise_floor
 from sweeprig.errors import InputError, InstrumentError, TransportError
 from sweeprig.formats.bench import Bench
+from sweeprig.formats.pathloss import PathLoss
 from sweeprig.formats.sequence import AdaptiveSoak, Sequence
 from sweeprig.instruments import AnalyzerDriver, ChamberDriver, Driver, SourceDriver
 from sweeprig.instruments.driver import Pending
@@ -179,6 +180,7 @@ class Runner:
         #: each source's own line found once per run (kept beside the recent finds)
         self._surveyed: list[tuple[dict[str, float], float, float]] = []
         self._survey_due = bench.references() is not None
+        self._losses: dict[str, PathLoss] = {}
         cond = sequence.conditions
         self.settle_s = float(cond.settle)
         self.soak_s = float(cond.soak)
@@ -369,6 +371,13 @@ class Runner:
     def _checked_drivers(self) -> list[tuple[str, Driver]]:
         return [(role, d) for role, d in self.d.items() if role != "simctl"]
 
+    def _loss(self, connection: str) -> PathLoss:
+        """The bench's path loss of ``connection``, looked up once per run."""
+        loss = self._losses.get(connection)
+        if loss is None:
+            loss = self._losses[connection] = self.bench.loss(connection)
+        return loss
+
     def _check_resets(self) -> float | None:
         """Raise :class:`InstrumentReset` if any instrument's power-on bit is set; on a
         compound profile, also raise the errors its event status reports (read once per
@@ -438,6 +447,9 @@ class Runner:
             probe_c = (self.d.chamber.probe_temperature_c() if self.d.chamber is not None
                        else None)
         current_a = next((r.extra["current_a"] for r in records if "current_a" in r.extra), None)
+        # the point's end, read once: the record and the ETA (on a served bench the clock is
+        # a query to the simulator)
+        sim_end = self.clock.now()
         record = PointRecord(
             index=point.index,
             study=point.study,
@@ -452,7 +464,7 @@ class Runner:
             probe_temperature_c=probe_c,
             supply_current_a=current_a,
             sim_start_s=sim_start,
-            sim_end_s=self.clock.now(),
+            sim_end_s=sim_end,
             wall_start=wall_start,
             wall_end=utc_now(),
             extra={"if_freq_hz": point.if_freq_hz, "tone_spacing_hz": point.tone_spacing_hz,
@@ -460,9 +472,8 @@ class Runner:
         )
         eta: dict[str, float] | None = None
         if self.eta is not None:
-            self.eta.point_measured(self.clock.now() - sim_start
-                                    - (self._waited_s - waited_before))
-            eta = self.eta.fields(self.clock.now())
+            self.eta.point_measured(sim_end - sim_start - (self._waited_s - waited_before))
+            eta = self.eta.fields(sim_end)
         self.store.write_point(self.run_id, record, records,
                                activity=None if eta is None else {"what": "measuring", **eta})
         wanted = next((r for r in records if r.name == "wanted"), None)
@@ -686,7 +697,7 @@ class Runner:
         going up last. A source whose level is unknown (after a recovery) is switched off
         while it is retuned. Returns True if anything was sent.
         """
-        level = dut_power_dbm + self.bench.loss(connection).at(freq_hz, dut_power_dbm)
+        level = dut_power_dbm + self._loss(connection).at(freq_hz, dut_power_dbm)
         known = source.state().get("power")
         sent = False
         if known is None:
@@ -784,7 +795,7 @@ class Runner:
             rf.set_output(True)
             self._check(rf)
             self.clock.sleep(self.settle_s)
-        loss = self.bench.loss(_connection_of(port)).at(reading.freq_hz)
+        loss = self._loss(_connection_of(port)).at(reading.freq_hz)
         orders = reading.orders or ()
         return ReadingRecord(
             name=reading.name,
@@ -1094,7 +1105,9 @@ def floor_from_markers(level_dbm: float, samples_dbm: tuple[float, ...]) -> Nois
         return None
     if not math.isfinite(level_dbm) or level_dbm - max(samples_dbm) < MARKER_FLOOR_CLEAR_DB:
         return None
-    return NoiseFloor(float(np.mean(samples_dbm)), len(samples_dbm))
+    # the mean in plain float arithmetic: the same sum in the same order as numpy's for so
+    # few values (pinned in tests/engine), without making an array for three numbers
+    return NoiseFloor(sum(samples_dbm) / len(samples_dbm), len(samples_dbm))
 
 
 def _connection_of(port: str) -> str:

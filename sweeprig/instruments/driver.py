@@ -109,6 +109,9 @@ class Driver:
         """Settings not sent because the instrument already had them."""
         self._cache: dict[str, tuple[Value, str]] = {}
         self._limits: dict[str, OpLimits] = {}
+        #: per setting: the last value checked, the limits it was checked against, the
+        #: checked value and its token (:meth:`_checked_token`)
+        self._checked_memo: dict[str, tuple[type, Value, OpLimits | None, Value, str]] = {}
         self._block: deque[str] = deque(maxlen=_BLOCK_KEPT)
         self._block_count = 0
         self._block_ops: set[str] = set()
@@ -297,6 +300,26 @@ class Driver:
         self._check_limits(operation, number, where)
         return checked
 
+    def _checked_token(self, operation: Operation, value: object) -> tuple[Value, str]:
+        """``value`` checked (:meth:`_checked`: type and every limit in force) and rendered.
+
+        The last value checked for each setting is remembered with the limits it was checked
+        against: the same value (same type, equal) under the same limits object gets the same
+        verdict and token without checking again (a run asks for mostly unchanged settings
+        every point). Limits only change by :meth:`add_bound`, which makes a new object, so a
+        tightened limit is always checked; NaN is never equal to itself, so it is always
+        checked (and refused)."""
+        name = operation.spec.name
+        limits = self._limits.get(name)
+        memo = self._checked_memo.get(name)
+        if (memo is not None and memo[2] is limits and memo[0] is type(value)
+                and memo[1] == value):
+            return memo[3], memo[4]
+        checked = self._checked(operation, value)
+        token = operation.render_value(checked)
+        self._checked_memo[name] = (type(value), value, self._limits.get(name), checked, token)
+        return checked, token
+
     def _check_limits(self, operation: Operation, number: float, where: str) -> None:
         spec = operation.spec
         limits = self.op_limits(spec.name)
@@ -334,8 +357,7 @@ class Driver:
         operation = self.profile.op(op)
         if operation.spec.shape != "setting":
             raise InputError(f"{op!r} is not a setting", where=f"role {self.role!r}")
-        checked = self._checked(operation, value)
-        token = operation.render_value(checked)
+        checked, token = self._checked_token(operation, value)
         cached = self._cache.get(op)
         if not force and cached is not None and cached[1] == token:
             self.settings_skipped += 1
@@ -360,7 +382,7 @@ class Driver:
         operation = self.profile.op(op)
         token = None
         if operation.spec.value != "none":
-            token = operation.render_value(self._checked(operation, value))
+            token = self._checked_token(operation, value)[1]
         with self.joined():  # the commands and the completion query: one message
             for template in operation.commands:
                 self._send(Operation.fill(template, token))
@@ -372,7 +394,7 @@ class Driver:
         operation = self.profile.op(op)
         token = None
         if operation.spec.value != "none":
-            token = operation.render_value(self._checked(operation, value))
+            token = self._checked_token(operation, value)[1]
         for template in operation.commands:
             self._send(Operation.fill(template, token))
         results = []
@@ -754,7 +776,7 @@ class Driver:
             len(o.queries) == 1 and o.reply != "real32" for o in ops)
         if not joinable:
             return [self.ask(op, value) for op, value in asks]
-        tokens = [None if o.spec.value == "none" else o.render_value(self._checked(o, value))
+        tokens = [None if o.spec.value == "none" else self._checked_token(o, value)[1]
                   for o, (_, value) in zip(ops, asks, strict=True)]  # all checked first
         with self.joined():  # held here, sent with the last query
             queries: list[str] = []

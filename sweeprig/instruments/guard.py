@@ -227,7 +227,9 @@ class LastStepGuard:
         if not self.active or _QUERIES_ONLY.fullmatch(message):
             return
         seen: set[tuple[str, tuple[str, ...]]] = set()
-        for respect in (True, False):
+        # without quotes both readings are the same commands: read once
+        readings = (True, False) if ("'" in message or '"' in message) else (True,)
+        for respect in readings:
             for cmd in commands(message, respect_quotes=respect):
                 if (cmd.text, cmd.path) in seen:
                     continue

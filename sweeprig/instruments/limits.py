@@ -13,7 +13,7 @@ of loss is 0.30000000000000004 dBm: a setting exactly at its limit is within it)
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Literal
 
@@ -49,8 +49,12 @@ class Bound:
         return f"{self.origin} allows {'at most' if self.side == 'max' else 'at least'} {amount}"
 
     def refuses(self, value: float) -> bool:
-        """Whether ``value`` is past this bound (beyond the float tolerance)."""
-        return bool(beyond(np.asarray(value, dtype=float), self.value, self.side))
+        """Whether ``value`` is past this bound (beyond the float tolerance): :func:`beyond`
+        for one value, in plain float arithmetic (the same IEEE 754 double operations, so
+        the same verdict for every value, NaN and infinities included; pinned by
+        tests/instruments/test_limit_fast_path.py), since the drivers ask it for every value
+        they send."""
+        return scalar_beyond(float(value), self.value, self.side == "max")
 
 
 def beyond(values: np.ndarray, bound: float, side: Side) -> np.ndarray:
@@ -62,23 +66,36 @@ def beyond(values: np.ndarray, bound: float, side: Side) -> np.ndarray:
     return values < bound - slack
 
 
+def scalar_beyond(value: float, bound: float, is_max: bool) -> bool:
+    """:func:`beyond` for one float: the same operations in the same order (the slack
+    ``LIMIT_TOLERANCE * max(1, |value|)``, then one comparison), so the same verdict."""
+    magnitude = abs(value)
+    slack = LIMIT_TOLERANCE * (magnitude if magnitude > 1.0 else 1.0)
+    if is_max:
+        return value > bound + slack
+    return value < bound - slack
+
+
 @dataclass(frozen=True)
 class OpLimits:
-    """Every bound on one operation's value. ``unit``: its symbol for messages ("dBm")."""
+    """Every bound on one operation's value. ``unit``: its symbol for messages ("dBm").
+
+    The tightest maximum and minimum are found once, when the limits are made (they never
+    change: :meth:`with_bound` makes new limits), since every value sent is checked."""
 
     op: str
     unit: str = ""
     bounds: tuple[Bound, ...] = ()
+    high: Bound | None = field(init=False, repr=False, compare=False)
+    """The tightest maximum (the first written wins a tie), None when there is none."""
+    low: Bound | None = field(init=False, repr=False, compare=False)
+    """The tightest minimum, None when there is none."""
 
-    @property
-    def high(self) -> Bound | None:
-        """The tightest maximum (the first written wins a tie), None when there is none."""
-        return _tightest([b for b in self.bounds if b.side == "max"], min)
-
-    @property
-    def low(self) -> Bound | None:
-        """The tightest minimum, None when there is none."""
-        return _tightest([b for b in self.bounds if b.side == "min"], max)
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "high",
+                           _tightest([b for b in self.bounds if b.side == "max"], min))
+        object.__setattr__(self, "low",
+                           _tightest([b for b in self.bounds if b.side == "min"], max))
 
     def with_bound(self, bound: Bound) -> OpLimits:
         """These limits plus ``bound`` (limits only ever get tighter: all bounds hold)."""
@@ -86,9 +103,12 @@ class OpLimits:
 
     def refusal(self, value: float) -> Bound | None:
         """The bound ``value`` is past (the tightest maximum first), None when within."""
-        for bound in (self.high, self.low):
-            if bound is not None and bound.refuses(value):
-                return bound
+        number = float(value)
+        high, low = self.high, self.low
+        if high is not None and scalar_beyond(number, high.value, True):
+            return high
+        if low is not None and scalar_beyond(number, low.value, False):
+            return low
         return None
 
     def as_pair(self) -> tuple[float | None, float | None]:

@@ -12,6 +12,7 @@ form; a command after ``;`` without a leading colon continues the previous comma
 
 from __future__ import annotations
 
+import functools
 import re
 from collections.abc import Iterator
 from dataclasses import dataclass
@@ -67,10 +68,31 @@ def _cut_outside_quotes(text: str, separator: str) -> tuple[list[str], str | Non
     return pieces, quote
 
 
+_LINE_BREAK = re.compile(r"[\n\r]")
+_HEADER = re.compile(r"\s*(\S+)")
+
+
 def split_units(message: str, *, respect_quotes: bool = True) -> list[str]:
     """The program message units of ``message``: split at ``;`` and line breaks (outside
-    quotes when ``respect_quotes``), stripped, empty ones dropped. A line break ends a quoted
-    string too (it ends the whole program message)."""
+    quotes when ``respect_quotes``); a unit followed by ``;`` ends in ``"\x00"`` (same
+    message). A line break ends a quoted string too (it ends the whole program message).
+
+    A message without quotes (or read without respecting them) is cut with ``str.split``,
+    which gives the same units as the character walk (:func:`_split_units_walk`, pinned
+    against it by tests/instruments/test_scpi_text.py): the guard reads every message sent.
+    """
+    if not respect_quotes or ("'" not in message and '"' not in message):
+        units: list[str] = []
+        for line in _LINE_BREAK.split(message):
+            pieces = line.split(";")
+            units.extend(piece + "\x00" for piece in pieces[:-1])
+            units.append(pieces[-1])
+        return units
+    return _split_units_walk(message, respect_quotes=respect_quotes)
+
+
+def _split_units_walk(message: str, *, respect_quotes: bool = True) -> list[str]:
+    """:func:`split_units`, one character at a time (quotes read as IEEE 488.2 7.7.5)."""
     units: list[str] = []
     current: list[str] = []
     quote: str | None = None
@@ -99,6 +121,7 @@ def split_units(message: str, *, respect_quotes: bool = True) -> list[str]:
     return units
 
 
+@functools.lru_cache(maxsize=4096)
 def short_form(mnemonic: str) -> str:
     """The SCPI short form of a mnemonic (SCPI-99 vol. 1, 6.2.1): upper case, numeric suffix
     removed, longer than four characters → the first four, or three when the fourth is a
@@ -130,6 +153,8 @@ def split_args(text: str) -> tuple[str, ...]:
     """Parameters separated by commas (outside quotes), stripped; () for none."""
     if not text.strip():
         return ()
+    if "'" not in text and '"' not in text:
+        return tuple(piece.strip() for piece in text.split(","))
     pieces, _quote = _cut_outside_quotes(text, ",")
     return tuple(piece.strip() for piece in pieces)
 
@@ -162,7 +187,7 @@ def commands(message: str, *, respect_quotes: bool = True) -> Iterator[Command]:
 
 
 def _split_header(unit: str) -> tuple[str, str, str]:
-    match = re.match(r"\s*(\S+)", unit)
+    match = _HEADER.match(unit)
     if match is None:
         return "", "", ""
     head = match.group(1)

@@ -230,7 +230,7 @@ def _json(value: Mapping[str, Any] | None, name: str) -> str:
     if not value:
         return "{}"  # json.dumps({}): most records have no extra
     try:
-        return json.dumps(dict(value or {}), sort_keys=True, default=_json_default)
+        return _EXTRA_JSON.encode(dict(value or {}))
     except (TypeError, ValueError) as exc:
         raise StoreError(f"{name} cannot be stored as JSON: {exc}", where=name) from None
 
@@ -243,6 +243,13 @@ def _json_default(value: object) -> object:
     if isinstance(value, datetime):
         return _iso(value)
     raise TypeError(f"{type(value).__name__} is not JSON-able")
+
+
+#: ``json.dumps(..., sort_keys=True, default=_json_default)`` made once: the same text
+#: (``json.dumps`` builds this encoder on every call when given options)
+_EXTRA_JSON = json.JSONEncoder(sort_keys=True, default=_json_default)
+#: ``json.dumps(..., default=str)`` made once, for a run's activity
+_ACTIVITY_JSON = json.JSONEncoder(default=str)
 
 
 def _activity(text: str | None) -> Mapping[str, Any] | None:
@@ -267,6 +274,9 @@ INSERT_POINT_SQL = (
     f"INSERT INTO points (run_id, point_index, {', '.join(POINT_COLUMNS)}, "
     "wall_start_utc, wall_end_utc, extra_json) "
     f"VALUES ({', '.join('?' * (len(POINT_COLUMNS) + 5))})")
+INSERT_POINT_UNLESS_STORED_SQL = INSERT_POINT_SQL + " ON CONFLICT (run_id, point_index) DO NOTHING"
+"""A point's row, inserted only when the run has no point of that index (no row changed:
+already stored)."""
 INSERT_READING_SQL = (
     f"INSERT INTO readings (run_id, point_index, reading_no, "
     f"{', '.join(READING_COLUMNS)}, overload, attenuation_check, extra_json) "
@@ -329,11 +339,14 @@ class SqlRunStoreCore:
 
     def _require_run(self, conn: Any, run_id: int) -> None:
         if conn.execute("SELECT 1 FROM runs WHERE id = ?", (run_id,)).fetchone() is None:
-            raise StoreError(
-                f"there is no run {run_id}",
-                where=self.where,
-                fix="list the runs with `sweeprig runs`",
-            )
+            raise self._no_run(run_id)
+
+    def _no_run(self, run_id: int) -> StoreError:
+        return StoreError(
+            f"there is no run {run_id}",
+            where=self.where,
+            fix="list the runs with `sweeprig runs`",
+        )
 
     # -- writing ----------------------------------------------------------------------------
 
@@ -451,25 +464,24 @@ class SqlRunStoreCore:
             for number, reading in enumerate(readings)
         ]
         with self._transaction(f"writing point {point.index}") as conn:
-            self._require_run(conn, run_id)
-            exists = conn.execute(
-                "SELECT 1 FROM points WHERE run_id = ? AND point_index = ?",
-                (run_id, point.index),
-            ).fetchone()
-            if exists is not None:
-                raise self._point_already_stored(run_id, point.index)
             self._write_point_rows(conn, run_id, point_row, reading_rows, activity)
 
-    @staticmethod
-    def _write_point_rows(conn: Any, run_id: int, point_row: Sequence[object],
+    def _write_point_rows(self, conn: Any, run_id: int, point_row: Sequence[object],
                           reading_rows: Sequence[Sequence[object]],
                           activity: Mapping[str, Any] | None) -> None:
         """The statements of one point, inside its transaction: the heartbeat (the point is
-        the heartbeat: no separate write per point), the point row, its readings."""
-        conn.execute("UPDATE runs SET heartbeat_utc = ?, activity_json = ? WHERE id = ?",
-                     (_iso(utc_now()), None if activity is None
-                      else json.dumps(dict(activity), default=str), run_id))
-        conn.execute(INSERT_POINT_SQL, point_row)
+        the heartbeat: no separate write per point), the point row, its readings. A missing
+        run (the heartbeat updates no row) or a point already stored (its row is not
+        inserted) raises, and the transaction is rolled back: the two checks cost no
+        statement of their own."""
+        heartbeat = conn.execute(
+            "UPDATE runs SET heartbeat_utc = ?, activity_json = ? WHERE id = ?",
+            (_iso(utc_now()), None if activity is None
+             else _ACTIVITY_JSON.encode(dict(activity)), run_id))
+        if heartbeat.rowcount == 0:
+            raise self._no_run(run_id)
+        if conn.execute(INSERT_POINT_UNLESS_STORED_SQL, point_row).rowcount == 0:
+            raise self._point_already_stored(run_id, int(point_row[1]))  # type: ignore[call-overload]
         conn.executemany(INSERT_READING_SQL, reading_rows)
 
     def _point_already_stored(self, run_id: int, index: int) -> StoreError:

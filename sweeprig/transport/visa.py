@@ -16,8 +16,7 @@ from __future__ import annotations
 
 import threading
 import time
-from collections.abc import Iterator
-from contextlib import contextmanager, suppress
+from contextlib import suppress
 from typing import Any
 
 import numpy as np
@@ -160,6 +159,8 @@ class VisaTransport:
         self._inst: Any = None
         #: queries posted (:meth:`post`) whose replies are not read yet, oldest first
         self._unread: list[PostedQuery] = []
+        #: the timeout last set on the open resource, ms (None: not known)
+        self._timeout_ms: int | None = None
         try:
             self._open()
         except BaseException:
@@ -182,6 +183,7 @@ class VisaTransport:
                 fix="check that the instrument is on and reachable and that the resource string "
                 "is right (for the simulated bench: that it is running and the port is its port)",
             ) from exc
+        self._timeout_ms = None
         try:
             inst.timeout = int(self.timeout_s * 1000)
             inst.write_termination = self.settings.write_termination
@@ -197,6 +199,7 @@ class VisaTransport:
                 where=self.resource,
             ) from exc
         self._inst = inst
+        self._timeout_ms = int(self.timeout_s * 1000)
 
     def close(self) -> None:
         """Close the connection (and the ResourceManager unless it was shared). Idempotent."""
@@ -241,18 +244,19 @@ class VisaTransport:
         short), logging them as discarded: the next exchange then reads its own reply."""
         self._read_until(None, None)
 
-    @contextmanager
-    def _timeout(self, timeout_s: float | None) -> Iterator[None]:
-        if timeout_s is None or self._inst is None:
-            yield
-            return
-        self._inst.timeout = int(max(timeout_s, 0.001) * 1000)
-        try:
-            yield
-        finally:
-            if self._inst is not None:
-                with suppress(_PYVISA_ERRORS):
-                    self._inst.timeout = int(self.timeout_s * 1000)
+    def _use_timeout(self, timeout_s: float | None) -> None:
+        """Give the next exchange ``timeout_s`` (None: the connection's own timeout).
+
+        The resource's timeout is set only when it differs from the one last set (pyvisa sets
+        a VISA attribute each time): every exchange states its own, so none inherits
+        another's. Anything else that changes the resource's timeout puts it back
+        (:class:`_RawVisa`)."""
+        ms = int(max(timeout_s, 0.001) * 1000) if timeout_s is not None \
+            else int(self.timeout_s * 1000)
+        if ms != self._timeout_ms and self._inst is not None:
+            self._timeout_ms = None  # unknown if the setting fails
+            self._inst.timeout = ms
+            self._timeout_ms = ms
 
     def _record(self, start: float, t0: float, cmd: str, received: str | None) -> None:
         if self.on_transaction is not None:
@@ -302,7 +306,9 @@ class VisaTransport:
         """Send ``cmd``."""
         start, t0 = time.time(), time.perf_counter()
         try:
-            self._instrument(cmd).write(cmd)
+            inst = self._instrument(cmd)
+            self._use_timeout(None)
+            inst.write(cmd)
         except TransportError:
             raise
         except _PYVISA_ERRORS as exc:
@@ -314,8 +320,8 @@ class VisaTransport:
         start, t0 = time.time(), time.perf_counter()
         try:
             inst = self._instrument(cmd)
-            with self._timeout(timeout_s):
-                reply = inst.query(cmd)
+            self._use_timeout(timeout_s)
+            reply = inst.query(cmd)
         except TransportError:
             raise
         except _PYVISA_ERRORS as exc:
@@ -330,7 +336,9 @@ class VisaTransport:
         replies are collected."""
         start, t0 = time.time(), time.perf_counter()
         try:
-            self._instrument(cmd, after=self._unread).write(cmd)
+            inst = self._instrument(cmd, after=self._unread)
+            self._use_timeout(None)
+            inst.write(cmd)
         except TransportError:
             raise
         except _PYVISA_ERRORS as exc:
@@ -361,8 +369,8 @@ class VisaTransport:
                 raise TransportError(f"connection is closed (command {oldest.cmd!r})",
                                      where=self.resource, fix="reconnect before sending")
             try:
-                with self._timeout(timeout_s):
-                    reply = self._inst.read()
+                self._use_timeout(timeout_s)
+                reply = self._inst.read()
             except _PYVISA_ERRORS as exc:
                 self._unread.clear()  # a resync (or a reconnect) drains what is owed
                 raise self._fail(oldest.start_s, oldest.t0, oldest.cmd, exc, timeout_s) from exc
@@ -382,12 +390,12 @@ class VisaTransport:
         datatype = "d" if self.settings.datatype == "real64" else "f"
         try:
             inst = self._instrument(cmd)
-            with self._timeout(timeout_s):
-                raw = inst.query_binary_values(
-                    cmd, datatype=datatype,
-                    is_big_endian=self.settings.byte_order == "big",
-                    container=np.array, header_fmt="ieee",
-                    expect_termination=bool(inst.read_termination))
+            self._use_timeout(timeout_s)
+            raw = inst.query_binary_values(
+                cmd, datatype=datatype,
+                is_big_endian=self.settings.byte_order == "big",
+                container=np.array, header_fmt="ieee",
+                expect_termination=bool(inst.read_termination))
             values = np.asarray(raw, dtype=np.float64)
             if not np.all(np.isfinite(values)):
                 raise TransportError(

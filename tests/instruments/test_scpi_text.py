@@ -4,8 +4,18 @@ splits into commands (IEEE 488.2-1992 section 7; SCPI-99 vol. 1 section 6)."""
 from __future__ import annotations
 
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
-from sweeprig.instruments.scpi_text import commands, short_form, wire_text_problem
+from sweeprig.instruments.scpi_text import (
+    _cut_outside_quotes,
+    _split_units_walk,
+    commands,
+    short_form,
+    split_args,
+    split_units,
+    wire_text_problem,
+)
 
 
 @pytest.mark.parametrize(("text", "problem"), [
@@ -63,3 +73,22 @@ def test_queries_and_arguments() -> None:
     assert cmd.args == ("5", "0.1") and not cmd.query
     (query,) = commands("POW? MAX")
     assert query.query and query.path == ("POW",)
+
+
+@settings(max_examples=150, deadline=None)
+@given(message=st.text(alphabet=st.sampled_from(list("AB:*?;,'\" \n\r\x0019.e-")),
+                       max_size=40),
+       respect=st.booleans())
+def test_the_quick_split_gives_the_walk_s_units(message: str, respect: bool) -> None:
+    """``split_units`` cuts a message without quotes with ``str.split``: the same units as
+    the character walk, for any text (the guard reads every message with it)."""
+    assert split_units(message, respect_quotes=respect) == \
+        _split_units_walk(message, respect_quotes=respect)
+    assert split_args(message.replace(";", "")) == _split_args_walk(message.replace(";", ""))
+
+
+def _split_args_walk(text: str) -> tuple[str, ...]:
+    if not text.strip():
+        return ()
+    pieces, _quote = _cut_outside_quotes(text, ",")
+    return tuple(piece.strip() for piece in pieces)

@@ -28,8 +28,11 @@ import pytest
 import pyvisa
 
 from sweeprig.clock import VirtualClock
+from sweeprig.engine.runner import Runner
 from sweeprig.engine.session import run_sequence, served_bench_text
+from sweeprig.plan.expand import Point
 from sweeprig.sim.bench import start_sim_bench
+from sweeprig.sim.scpi.instrument import ScpiInstrument
 from sweeprig.store.sqlite import SqliteRunStore
 
 pytestmark = pytest.mark.perf
@@ -63,9 +66,9 @@ class _Counting:
         return reply
 
 
-def _hand_loop(resources: dict[str, str]) -> tuple[float, int, int, float, float]:
+def _hand_loop(resources: dict[str, str]) -> tuple[float, int, int, float, float, float]:
     """The hand-written loop; returns (wall s, points, transactions, s inside exchanges,
-    s of the point loop alone)."""
+    s of the point loop alone, processor s of this thread in the point loop)."""
     t0 = time.perf_counter()
     rm = pyvisa.ResourceManager("@py")
     opened = {role: rm.open_resource(resources[role], read_termination="\n",
@@ -92,7 +95,7 @@ def _hand_loop(resources: dict[str, str]) -> tuple[float, int, int, float, float
         s["rf"].write("OUTP ON")
         s["lo"].write("OUTP ON")
         step = (RF_STOP_HZ - RF_START_HZ) / (POINTS - 1)
-        loop_start = time.perf_counter()
+        loop_start, loop_cpu = time.perf_counter(), time.thread_time()
         for i in range(POINTS):
             f_rf = RF_START_HZ + i * step
             s["lo"].write(f"FREQ {f_rf - IF_HZ:.0f}")
@@ -104,6 +107,7 @@ def _hand_loop(resources: dict[str, str]) -> tuple[float, int, int, float, float
             s["sa"].query("*OPC?")
             levels.append(float(s["sa"].query("CALC:MARK1:Y?")))
         loop_s = time.perf_counter() - loop_start
+        loop_cpu = time.thread_time() - loop_cpu
         for role in ("rf", "lo", "dc"):
             s[role].write("OUTP OFF")
         for role in s:
@@ -115,7 +119,7 @@ def _hand_loop(resources: dict[str, str]) -> tuple[float, int, int, float, float
         rm.close()
     assert len(levels) == POINTS and all(-40 < x < 0 for x in levels), levels
     return (time.perf_counter() - t0, POINTS, sum(c.count for c in s.values()),
-            sum(c.busy_s for c in s.values()), loop_s)
+            sum(c.busy_s for c in s.values()), loop_s, loop_cpu)
 
 
 def _bench_file(folder: Path, resources: dict[str, str]) -> Path:
@@ -126,16 +130,49 @@ def _bench_file(folder: Path, resources: dict[str, str]) -> Path:
     return path
 
 
-def _engine(folder: Path, resources: dict[str, str], *, bus_log: bool
-            ) -> tuple[float, int, int | None, float | None, float]:
+class _Cpu:
+    """Processor time, s: of the engine's thread inside :meth:`Runner.measure` (its point
+    loop's own work), and of the served instruments' threads inside ``handle`` (thread time:
+    their threads share this process and its interpreter lock, so wall time inside them would
+    count the waits for the lock as work)."""
+
+    def __init__(self) -> None:
+        self.measure_s = 0.0
+        self.served_s = 0.0
+
+    def install(self, monkeypatch: pytest.MonkeyPatch) -> None:
+        measure, handle = Runner.measure, ScpiInstrument.handle
+
+        def timed_measure(runner: Runner, point: Point) -> object:
+            t0 = time.thread_time()
+            try:
+                return measure(runner, point)
+            finally:
+                self.measure_s += time.thread_time() - t0
+
+        def timed_handle(instrument: ScpiInstrument, message: str) -> object:
+            t0 = time.thread_time()
+            try:
+                return handle(instrument, message)
+            finally:
+                self.served_s += time.thread_time() - t0
+
+        monkeypatch.setattr(Runner, "measure", timed_measure)
+        monkeypatch.setattr(ScpiInstrument, "handle", timed_handle)
+
+
+def _engine(folder: Path, resources: dict[str, str], *, bus_log: bool, cpu: _Cpu
+            ) -> tuple[float, int, int | None, float | None, float, float, float]:
     """`sweeprig run` of the same readings; returns (wall s, points, transactions or None,
     s inside exchanges or None — these two from the bus log —, s from the first point's
-    start to the last one's start, scaled to all the points: the point loop alone)."""
+    start to the last one's start, scaled to all the points: the point loop alone,
+    processor s of this thread in the whole command, in the points alone)."""
     store = folder / f"e{time.monotonic_ns()}.sqlite"
-    t0 = time.perf_counter()
+    measured = cpu.measure_s
+    t0, cpu0 = time.perf_counter(), time.thread_time()
     outcome = run_sequence(SEQUENCE, _bench_file(folder, resources), store_path=store,
                            bus_log=bus_log)
-    wall = time.perf_counter() - t0
+    wall, run_cpu = time.perf_counter() - t0, time.thread_time() - cpu0
     assert outcome.status == "complete", outcome.reason
     with SqliteRunStore(store, create=False) as db:
         starts = db.points_frame(outcome.run_id)["wall_start"]
@@ -152,23 +189,37 @@ def _engine(folder: Path, resources: dict[str, str], *, bus_log: bool
         print("\nengine transactions by role and first unit (all points, set-up and safe "
               "state included):\n  " + "\n  ".join(f"{n:4d}  {k}"
                                                   for k, n in kinds.most_common()))
-    return wall, outcome.points_done, transactions, busy_s, loop_s
+    return (wall, outcome.points_done, transactions, busy_s, loop_s, run_cpu,
+            cpu.measure_s - measured)
 
 
-def test_engine_against_a_hand_written_loop(tmp_path: Path) -> None:
+def test_engine_against_a_hand_written_loop(tmp_path: Path,
+                                           monkeypatch: pytest.MonkeyPatch) -> None:
     hand_s, engine_s, hand_busy, hand_loop_s, engine_loop_s = [], [], [], [], []
+    hand_cpu, engine_cpu, engine_run_cpu, hand_served, engine_served = [], [], [], [], []
+    cpu = _Cpu()
+    cpu.install(monkeypatch)
     with start_sim_bench(clock=VirtualClock()) as sim:
         resources = dict(sim.resources)
-        log_wall, log_n, engine_tx, engine_busy, _ = _engine(tmp_path, resources, bus_log=True)
+        log_wall, log_n, engine_tx, engine_busy, *_ = _engine(tmp_path, resources,
+                                                              bus_log=True, cpu=cpu)
         hand_tx = 0
         for _ in range(REPEATS):
-            wall, n, hand_tx, busy, loop = _hand_loop(resources)
+            served = cpu.served_s
+            wall, n, hand_tx, busy, loop, loop_cpu = _hand_loop(resources)
+            hand_served.append((cpu.served_s - served) / n)
             hand_s.append(wall / n)
             hand_busy.append(busy / n)
             hand_loop_s.append(loop / n)
-            wall, n, _, _, loop = _engine(tmp_path, resources, bus_log=False)
+            hand_cpu.append(loop_cpu / n)
+            served = cpu.served_s
+            wall, n, _, _, loop, run_cpu, points_cpu = _engine(tmp_path, resources,
+                                                               bus_log=False, cpu=cpu)
+            engine_served.append((cpu.served_s - served) / n)
             engine_s.append(wall / n)
             engine_loop_s.append(loop / n)
+            engine_cpu.append(points_cpu / n)
+            engine_run_cpu.append(run_cpu / n)
     hand, engine = statistics.median(hand_s), statistics.median(engine_s)
     hand_pace, engine_pace = statistics.median(hand_loop_s), statistics.median(engine_loop_s)
     assert engine_tx is not None and engine_busy is not None
@@ -200,6 +251,16 @@ def test_engine_against_a_hand_written_loop(tmp_path: Path) -> None:
           f"pre-flight, connecting and identifying, the store, the safe state read back) "
           f"cost {(engine - engine_pace) * POINTS:.2f} s against the hand loop's "
           f"{(hand - hand_pace) * POINTS:.2f} s")
+    hand_cpu_ms = statistics.median(hand_cpu) * 1e3
+    engine_cpu_ms = statistics.median(engine_cpu) * 1e3
+    cpu_ratio = engine_cpu_ms / hand_cpu_ms
+    print(f"  processor time per point (thread time, median of {REPEATS}): hand loop "
+          f"{hand_cpu_ms:.2f} ms, sweeprig's points {engine_cpu_ms:.2f} ms (ratio "
+          f"{cpu_ratio:.2f}, {verdict(cpu_ratio)}; the whole command, start-up and end "
+          f"spread over the points: {statistics.median(engine_run_cpu) * 1e3:.2f} ms); the "
+          f"served instruments' handling: {statistics.median(hand_served) * 1e3:.2f} ms for "
+          f"the hand loop, {statistics.median(engine_served) * 1e3:.2f} ms for sweeprig "
+          f"({_load()})")
 
 
 def _load() -> str:

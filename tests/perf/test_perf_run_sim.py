@@ -10,12 +10,13 @@ Run with ``pytest -m perf -s tests/perf/test_perf_run_sim.py``.
 from __future__ import annotations
 
 import time
-from collections.abc import Callable
 from pathlib import Path
 
 import pytest
 
+from sweeprig.engine.runner import Runner
 from sweeprig.engine.session import run_sequence, shipped_sequences_dir
+from sweeprig.plan.expand import Point
 from sweeprig.sim.scpi.instrument import ScpiInstrument
 
 QUICK = shipped_sequences_dir() / "demo" / "quick.toml"
@@ -96,23 +97,37 @@ def _model_ms_per_point() -> float:
     return (time.perf_counter() - start) / _SAMPLE_POINTS * 1e3
 
 
-class _ServerTime:
-    """Wall time the served simulated instruments spend handling messages, by instrument
-    class (their server threads run in this process: wrapped around ``handle``)."""
+class _CpuTime:
+    """Processor time, s, by thread: the served simulated instruments' handling of messages
+    by instrument class (their server threads run in this process: thread time around
+    ``handle``, so the waits for the interpreter lock they share with the engine are not
+    counted as their work, as wall time would), and the engine's thread inside
+    :meth:`Runner.measure` (its points: engine, drivers, guard, pyvisa, sockets, store)."""
 
     def __init__(self) -> None:
         self.by_kind: dict[str, float] = {}
+        self.points_s = 0.0
 
-    def wrap(self, handle: Callable[[ScpiInstrument, str], object]
-             ) -> Callable[[ScpiInstrument, str], object]:
-        def timed(instrument: ScpiInstrument, message: str) -> object:
-            t0 = time.perf_counter()
+    def install(self, monkeypatch: pytest.MonkeyPatch) -> None:
+        handle, measure = ScpiInstrument.handle, Runner.measure
+
+        def timed_handle(instrument: ScpiInstrument, message: str) -> object:
+            t0 = time.thread_time()
             try:
                 return handle(instrument, message)
             finally:
                 kind = type(instrument).__name__
-                self.by_kind[kind] = self.by_kind.get(kind, 0.0) + time.perf_counter() - t0
-        return timed
+                self.by_kind[kind] = self.by_kind.get(kind, 0.0) + time.thread_time() - t0
+
+        def timed_measure(runner: Runner, point: Point) -> object:
+            t0 = time.thread_time()
+            try:
+                return measure(runner, point)
+            finally:
+                self.points_s += time.thread_time() - t0
+
+        monkeypatch.setattr(ScpiInstrument, "handle", timed_handle)
+        monkeypatch.setattr(Runner, "measure", timed_measure)
 
 
 @pytest.mark.perf
@@ -123,15 +138,17 @@ def test_print_large_simulated_run_wall_time(tmp_path: Path,
     14's 20 s, and where its time goes: the pre-flight, the planner's readings per point
     (planned once, by the pre-flight, which keeps the points of a run this size for the
     run), the model's evaluation per point, the served instruments' handling of the
-    messages (the model's evaluation inside it); the rest is the engine, pyvisa and the
-    sockets, and the store."""
+    messages (the model's evaluation inside it) and the engine side's points (the engine,
+    pyvisa and the sockets, and the store), both in processor time of their own threads."""
     sequence = tmp_path / "large.toml"
     sequence.write_text(large_sequence(LARGE_RUN_POINTS), encoding="utf-8")
-    server = _ServerTime()
-    monkeypatch.setattr(ScpiInstrument, "handle", server.wrap(ScpiInstrument.handle))
-    start = time.perf_counter()
+    cpu = _CpuTime()
+    cpu.install(monkeypatch)
+    start, cpu_start, process_start = time.perf_counter(), time.thread_time(), \
+        time.process_time()
     outcome = run_sequence(sequence, sim=True, store_path=tmp_path / "runs.sqlite")
-    total_s = time.perf_counter() - start
+    total_s, engine_cpu_s = time.perf_counter() - start, time.thread_time() - cpu_start
+    process_ms = (time.process_time() - process_start) / LARGE_RUN_POINTS * 1e3
     monkeypatch.undo()
     assert outcome.status == "complete", outcome.reason
     run_s = outcome.wall_elapsed_s
@@ -140,17 +157,28 @@ def test_print_large_simulated_run_wall_time(tmp_path: Path,
           f"{total_s:.1f} s of wall time with file loading and pre-flight, {run_s:.1f} s for "
           f"the run itself ({run_s / LARGE_RUN_POINTS * 1e3:.2f} ms per point); target "
           f"{LARGE_RUN_TARGET_S:.0f} s: {verdict} ({total_s / LARGE_RUN_TARGET_S:.1f}× the "
-          f"target; {_load()})")
+          f"target; one run, not repeated: {_load()})")
     preflight_s, plan_ms = _planning_ms_per_point(sequence)
     model_ms = _model_ms_per_point()
     point_ms = run_s / LARGE_RUN_POINTS * 1e3
-    served_ms = {kind: s / LARGE_RUN_POINTS * 1e3 for kind, s in server.by_kind.items()}
+    served_ms = {kind: s / LARGE_RUN_POINTS * 1e3 for kind, s in cpu.by_kind.items()}
     served_total_ms = sum(served_ms.values())
-    print(f"  where it goes: pre-flight {preflight_s:.1f} s (it plans every point, "
-          f"{plan_ms:.3f} ms a point, and keeps them for the run); a run point "
-          f"{point_ms:.2f} ms = the served instruments' handling {served_total_ms:.2f} ("
+    engine_ms = cpu.points_s / LARGE_RUN_POINTS * 1e3
+    print(f"  where it goes (processor time, thread time): the pre-flight {preflight_s:.1f} s "
+          f"of wall time (it plans every point, {plan_ms:.3f} ms a point, and keeps them for "
+          f"the run); a run point {point_ms:.2f} ms of wall time = the served instruments' "
+          f"handling {served_total_ms:.2f} ms ("
           + ", ".join(f"{kind} {ms:.2f}" for kind, ms in
                       sorted(served_ms.items(), key=lambda kv: -kv[1]) if ms >= 0.005)
-          + f"; the model's evaluation alone {model_ms:.3f}) + the rest "
-          f"{point_ms - served_total_ms:.2f} (the engine, pyvisa and the sockets, the store; "
-          f"the server threads share this process and its interpreter lock) ({_load()})")
+          + f"; the model's evaluation alone {model_ms:.3f}) + the engine side's points "
+          f"{engine_ms:.2f} ms (engine, drivers, guard, pyvisa and sockets, store; "
+          f"{engine_cpu_s / LARGE_RUN_POINTS * 1e3:.2f} ms with loading, pre-flight, set-up "
+          f"and end spread over the points) + the rest "
+          f"{point_ms - served_total_ms - engine_ms:.2f} ms (the server threads' sockets and "
+          f"parsing outside handle, and the waits: the server threads share this process and "
+          f"its interpreter lock, so their work and the engine's add up) ({_load()})")
+    wall_ms = total_s / LARGE_RUN_POINTS * 1e3
+    print(f"  the whole process (every thread, loading and pre-flight included): "
+          f"{process_ms:.2f} ms of processor time a point against {wall_ms:.2f} ms of wall "
+          f"time: one interpreter lock, so a point's wall time is at least the processor "
+          f"time of the engine and the served instruments together")

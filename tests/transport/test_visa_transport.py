@@ -68,6 +68,24 @@ def test_per_query_timeout(loopback):
         t.query("SILENT?", timeout_s=0.1)
 
 
+def test_a_query_s_own_timeout_does_not_outlive_it(loopback):
+    """The resource's timeout is set only when an exchange needs another one than the last
+    (pyvisa sets a VISA attribute each time), and every exchange states its own: one without
+    its own timeout gets the connection's again."""
+    server = loopback(_instrument)
+    with VisaTransport(server.resource, timeout_s=0.4) as t:
+        inst = t._inst  # the pyvisa resource (narrow test of what it was given)
+        assert t.query("*IDN?", timeout_s=2.5).startswith("Tarnwick")
+        assert inst.timeout == 2500
+        t.write("FREQ 1")
+        assert inst.timeout == 400
+        posted = t.post("*IDN?")
+        assert inst.timeout == 400
+        assert t.collect(posted, timeout_s=1.5).startswith("Tarnwick")
+        assert inst.timeout == 1500
+        assert t.query("FREQ?") == "+2.40000000E+09" and inst.timeout == 400
+
+
 def test_dropped_connection_then_reconnect(loopback):
     server = loopback(_instrument)
     with VisaTransport(server.resource, timeout_s=0.5) as t:

@@ -1,0 +1,139 @@
+"""The limit checks the drivers run for every value they send, made cheap, refuse exactly what
+the project's one vectorised rule (:func:`sweeprig.instruments.limits.beyond`) refuses.
+
+Two shortcuts are pinned here: the scalar comparison (:func:`scalar_beyond`, the tightest
+bounds found once per :class:`OpLimits`) against the numpy rule over a corpus of values at,
+beside and far from every bound of every shipped profile (NaN, infinities and signed zeros
+included); and the driver's memo of the last value checked per setting, which must check a
+value again once a limit has been tightened.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+
+from sweeprig.errors import InputError, SafetyLimitError
+from sweeprig.instruments import make_driver
+from sweeprig.instruments.limits import (
+    LIMIT_TOLERANCE,
+    Bound,
+    OpLimits,
+    beyond,
+    profile_limits,
+    scalar_beyond,
+)
+from sweeprig.instruments.profile import load_all_profiles
+from sweeprig.transport import FakeTransport
+
+
+def _reference_refusal(limits: OpLimits, value: float) -> Bound | None:
+    """The refusal as it was written before the fast path: the tightest bounds looked up per
+    call and each tested with the vectorised rule."""
+    def tightest(side: str, pick: type[min] | type[max]) -> Bound | None:
+        bounds = [b for b in limits.bounds if b.side == side]
+        if not bounds:
+            return None
+        best = pick(b.value for b in bounds)
+        return next(b for b in bounds if b.value == best)
+
+    for bound in (tightest("max", min), tightest("min", max)):
+        if bound is not None and bool(beyond(np.asarray(value, dtype=float), bound.value,
+                                             bound.side)):
+            return bound
+    return None
+
+
+def _values_around(bound: float) -> list[float]:
+    slack = LIMIT_TOLERANCE * max(1.0, abs(bound))
+    out = [bound, bound + slack, bound - slack, bound + 2 * slack, bound - 2 * slack,
+           math.nextafter(bound + slack, math.inf), math.nextafter(bound - slack, -math.inf),
+           math.nextafter(bound, math.inf), math.nextafter(bound, -math.inf),
+           bound * (1 + 1e-12), bound * (1 - 1e-12), bound + 1.0, bound - 1.0]
+    return out
+
+
+_SPECIAL = [0.0, -0.0, 1.0, -1.0, 1e-300, -1e-300, 1e300, -1e300, math.inf, -math.inf,
+            math.nan, 5e-324, 1.0 + 1e-9, 1.0 - 1e-9]
+
+
+def _corpus() -> list[OpLimits]:
+    """Every bounded operation of every shipped profile, and the same with a tighter bench
+    bound beside its profile's (two bounds on a side: the tightest must win)."""
+    found: list[OpLimits] = []
+    for profile in load_all_profiles():
+        for name, operation in profile.ops.items():
+            if operation.max is None and operation.min is None:
+                continue
+            limits = profile_limits(profile, name, "x")
+            found.append(limits)
+            if operation.max is not None:
+                found.append(limits.with_bound(Bound(float(operation.max) - 3.0, "max",
+                                                     "bench", "bench")))
+            if operation.min is not None:
+                found.append(limits.with_bound(Bound(float(operation.min) + 0.5, "min",
+                                                     "bench", "bench")))
+    return found
+
+
+def test_the_corpus_is_not_empty() -> None:
+    assert len(_corpus()) > 20
+
+
+def test_refusal_matches_the_vectorised_rule_on_every_shipped_limit() -> None:
+    checked = 0
+    for limits in _corpus():
+        values = list(_SPECIAL)
+        for bound in limits.bounds:
+            values += _values_around(bound.value)
+        for value in values:
+            assert limits.refusal(value) is _reference_refusal(limits, value), (limits, value)
+            checked += 1
+    assert checked > 500
+
+
+@pytest.mark.parametrize("bound", [0.0, -0.0, 20.0, -130.0, 1e-12, 6e9, -1e300, 1e300])
+@pytest.mark.parametrize("side", ["max", "min"])
+def test_scalar_and_vectorised_rules_agree_at_the_edges(bound: float, side: str) -> None:
+    values = _SPECIAL + _values_around(bound)
+    vector = beyond(np.array(values), bound, side)  # type: ignore[arg-type]
+    for value, expected in zip(values, vector.tolist(), strict=True):
+        assert scalar_beyond(value, bound, side == "max") is expected, (value, bound, side)
+        assert Bound(bound, side, "bench", "x").refuses(value) is expected  # type: ignore[arg-type]
+
+
+def test_limits_made_by_replace_and_with_bound_find_their_own_tightest() -> None:
+    limits = OpLimits("power", "dBm", (Bound(20.0, "max", "profile", "p"),))
+    tighter = limits.with_bound(Bound(10.0, "max", "bench", "b"))
+    assert limits.high is not None and limits.high.value == 20.0
+    assert tighter.high is not None and tighter.high.origin == "b"
+    assert tighter.refusal(15.0) is tighter.high and limits.refusal(15.0) is None
+    assert limits == OpLimits("power", "dBm", (Bound(20.0, "max", "profile", "p"),))
+
+
+def test_a_value_accepted_before_is_refused_after_a_limit_is_tightened() -> None:
+    source = make_driver("scpi-source", "rf", FakeTransport(lambda _cmd: "1"))
+    source.single_units = True
+    assert source.set_power(5.0) is True
+    assert source.set_power(5.0) is False  # unchanged: not sent again
+    source.tighten_limit("power", max_value=0.0)
+    with pytest.raises(SafetyLimitError, match="bench"):
+        source.set_power(5.0)  # the same value, the memo's limits are gone
+    with pytest.raises(SafetyLimitError):
+        source.set_value("power", 5.0, force=True)
+
+
+def test_the_memo_keeps_types_apart_and_never_takes_nan() -> None:
+    source = make_driver("scpi-source", "rf", FakeTransport(lambda _cmd: "1"))
+    source.single_units = True
+    assert source.set_frequency(1e9) is True
+    with pytest.raises(InputError):
+        source.set_frequency(True)  # type: ignore[arg-type]  # True == 1 but is no number
+    for _ in range(2):
+        with pytest.raises(InputError):
+            source.set_frequency(math.nan)
+    with pytest.raises(InputError):
+        source.set_output(1)  # type: ignore[arg-type]  # 1 == True but is no on/off
+    assert source.set_output(True) is True
