@@ -656,10 +656,25 @@ class SimWorld:
         return 10.0 * math.log10(total_mw) if total_mw > 0 else _NO_SIGNAL_DBM
 
     def supply_current_a(self, supply_v: float) -> float:
-        """Current the DUT draws at ``supply_v`` volts, A (the supply's load line)."""
+        """Current the DUT draws at ``supply_v`` volts, A (the supply's load line).
+
+        A part that states its supply current (it depends on the operating point only,
+        never on the tones: ``supply_current_at``) is asked for it at the operating point
+        :meth:`response` would evaluate, which gives the same number as the response's
+        own ``supply_current_a`` without evaluating the response (the supply asks at every
+        reading, before the analyzer's own request evaluates it); another part is
+        evaluated."""
         if supply_v < self.dead_below_v():
             return 0.0
-        return float(self.response(supply_v=supply_v).supply_current_a)
+        current_at = getattr(self.part, "supply_current_at", None)
+        if current_at is None:
+            return float(self.response(supply_v=supply_v).supply_current_a)
+        if self.thru_fitted():
+            return 0.0  # the calibration thru draws nothing (see _thru_response)
+        volts = max(0.0, float(supply_v))
+        temperature = self._rounded(self.probe_temperature_c())
+        used = self._die_temperature_key(None, (), volts, temperature)
+        return float(current_at(OperatingPoint(temperature_c=used, supply_v=volts)))
 
     # --- helpers --------------------------------------------------------------------------
     def _path(self, role: str) -> tuple[CableLoss | LowPassFilter, ...]:
@@ -739,10 +754,13 @@ def add_coherent_arrays(
     touched: dict[int, complex] = {}  # line index → its amplitude (phase 0) plus extras
     new_f: list[float] = []
     new_a: list[complex] = []
-    for f, amp in extra:
-        hit = np.flatnonzero(np.abs(freq_hz - f) <= tol_hz)
-        if hit.size:
-            k = int(hit[0])
+    # every extra line against every line at once: the first line within reach, or -1
+    near = np.abs(freq_hz[None, :] - np.array([f for f, _ in extra], dtype=float)[:, None]) \
+        <= tol_hz
+    first = np.where(near.any(axis=1), near.argmax(axis=1), -1).tolist() if freq_hz.size \
+        else [-1] * len(extra)
+    for (f, amp), k in zip(extra, first, strict=True):
+        if k >= 0:
             touched[k] = touched.get(k, complex(10.0 ** (level_dbm[k] / 20.0))) + amp
             continue
         for i, f0 in enumerate(new_f):
