@@ -185,6 +185,29 @@ class InputSpectrum:
     #: Total noise power arriving across the analyzer's input band, dBm (it loads the first
     #: mixer like a line of that power; -inf: negligible).
     wideband_noise_dbm: float = -math.inf
+    #: ``lines`` as two arrays (Hz, dBm) when they were made from arrays
+    #: (:meth:`from_arrays`): the display takes them as they are.
+    _line_arrays: tuple[FloatArray, FloatArray] | None = field(
+        default=None, compare=False, repr=False)
+
+    @classmethod
+    def from_arrays(cls, freq_hz: FloatArray, power_dbm: FloatArray,
+                    noise_dbm_per_hz: NoiseDensity = -math.inf,
+                    wideband_noise_dbm: float = -math.inf) -> InputSpectrum:
+        """The spectrum of lines given as arrays (Hz, dBm; the same numbers as ``lines``)."""
+        freq = np.asarray(freq_hz, dtype=float)
+        power = np.asarray(power_dbm, dtype=float)
+        return cls(tuple(zip(freq.tolist(), power.tolist(), strict=True)), noise_dbm_per_hz,
+                   wideband_noise_dbm, (freq, power))
+
+    def line_arrays(self) -> tuple[FloatArray, FloatArray]:
+        """The lines as arrays (frequency Hz, power dBm)."""
+        if self._line_arrays is not None:
+            return self._line_arrays
+        if not self.lines:
+            return _EMPTY, _EMPTY
+        arr = np.asarray(self.lines, dtype=float).reshape(-1, 2)
+        return arr[:, 0], arr[:, 1]
 
     def noise_at(self, freqs_hz: ArrayLike) -> FloatArray:
         """Input noise density at ``freqs_hz``, dBm/Hz."""
@@ -299,7 +322,8 @@ def displayed_noise_dbm(
     source). Unlike a sweep, every line counts here (no pruning to the strongest).
     """
     f = np.asarray(freqs_hz, float)
-    line_f, line_dbm, _ = _displayed_arrays(spectrum.lines, settings, params)
+    line_f, line_dbm, _ = _displayed_arrays(spectrum.lines, settings, params,
+                                          spectrum._line_arrays)
     noise = _noise_mw_fn(spectrum, settings, params, line_f, line_dbm, span_hz=None)
     return _mw_to_dbm(noise(f))
 
@@ -310,7 +334,8 @@ def noise_breakdown_mw(
     """The mean displayed noise at one frequency in its parts, mW in the noise bandwidth:
     the DANL, the input noise above kT0, and reciprocal mixing (of the lines a sweep with
     ``settings`` counts: exactly what :func:`simulate_sweep` displays there)."""
-    line_f, line_dbm, _ = _displayed_arrays(spectrum.lines, settings, params)
+    line_f, line_dbm, _ = _displayed_arrays(spectrum.lines, settings, params,
+                                          spectrum._line_arrays)
     f = np.array([float(freq_hz)])
     enbw_hz = GAUSSIAN_ENBW_PER_RBW * settings.rbw_hz
     error = 10.0 ** (params.amplitude_error_db / 10.0)
@@ -391,11 +416,16 @@ _EMPTY = np.zeros(0)
 
 
 def first_mixer(
-    lines: Sequence[tuple[float, float]], settings: SweepSettings, params: AnalyzerParams
+    lines: Sequence[tuple[float, float]], settings: SweepSettings, params: AnalyzerParams,
+    *, arrays: tuple[FloatArray, FloatArray] | None = None,
 ) -> FirstMixer:
-    """Compression and products of the first mixer (see :func:`first_mixer_lines`)."""
+    """Compression and products of the first mixer (see :func:`first_mixer_lines`).
+    ``arrays``: the same lines as two arrays (Hz, dBm), taken instead of ``lines``."""
     att = settings.attenuation_db
-    if len(lines):
+    if arrays is not None:  # the same lines as arrays (Hz, dBm)
+        ok = (arrays[0] > 0) & np.isfinite(arrays[1])
+        freqs, input_dbm = arrays[0][ok], arrays[1][ok]
+    elif len(lines):
         arr = np.asarray(lines, dtype=float).reshape(-1, 2)
         ok = (arr[:, 0] > 0) & np.isfinite(arr[:, 1])
         freqs, input_dbm = arr[ok, 0], arr[ok, 1]
@@ -458,7 +488,8 @@ def first_mixer_lines(
 
 
 def _displayed_arrays(
-    lines: Sequence[tuple[float, float]], settings: SweepSettings, params: AnalyzerParams
+    lines: Sequence[tuple[float, float]], settings: SweepSettings, params: AnalyzerParams,
+    arrays: tuple[FloatArray, FloatArray] | None = None,
 ) -> tuple[FloatArray, FloatArray, float]:
     # The display depends only on the lines, the attenuation and the analyzer: the last
     # answer is kept for the same (immutable) lines object, as successive sweeps of one
@@ -467,7 +498,7 @@ def _displayed_arrays(
     hit = _LAST_DISPLAYED.get("last")
     if hit is not None and hit[0] is lines and hit[1] == key:
         return hit[2]
-    mixer = first_mixer(lines, settings, params)
+    mixer = first_mixer(lines, settings, params, arrays=arrays)
     f, p = combine_displayed(mixer, params.coherent_products)
     value = (f, p, mixer.total_dbm)
     if isinstance(lines, tuple):
@@ -515,7 +546,8 @@ def simulate_sweep(
 ) -> SweepResult:
     """Run one sweep (with all its averages) and return the trace and flags."""
     freqs = settings.freqs_hz()
-    line_f, line_dbm, mixer_total_dbm = _displayed_arrays(spectrum.lines, settings, params)
+    line_f, line_dbm, mixer_total_dbm = _displayed_arrays(spectrum.lines, settings, params,
+                                          spectrum._line_arrays)
     signal_mw = _signal_mw_fn(line_f, line_dbm, settings.rbw_hz, params.amplitude_error_db)
     noise_gain = 1.0
     if math.isfinite(spectrum.wideband_noise_dbm):

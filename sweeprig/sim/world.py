@@ -327,6 +327,14 @@ class SimWorld:
             return np.full(f.shape, 290.0)
         return ns.temperature_k(f, self.noise_source_on())
 
+    def _input_noise_temperature_fn(self) -> Callable[[np.ndarray], np.ndarray]:
+        """:meth:`input_noise_temperature_k` with the noise source's state as it is now."""
+        ns = self.config.noise_source
+        if ns is None:
+            return lambda f: np.full(np.shape(f), 290.0)
+        on = self.noise_source_on()
+        return lambda f: ns.temperature_k(f, on)
+
     def probe_temperature_c(self) -> float:
         """Chamber probe temperature (ambient without a chamber), degC."""
         if self._chamber is not None:
@@ -519,13 +527,13 @@ class SimWorld:
         if channel == SwitchChannel.IF and self.config.interferers:
             freq = np.concatenate([freq, [f for f, _ in self.config.interferers]])
             level = np.concatenate([level, [p for _, p in self.config.interferers]])
-        lines = tuple(zip(freq.tolist(), level.tolist(), strict=True))
         if channel == SwitchChannel.IF and self.config.noise_source is not None:
-            return self._noise_source_spectrum(response, lines, cable)
-        return InputSpectrum(lines, _lossy_noise(noise_dbm_per_hz, cable))
+            return self._noise_source_spectrum(response, freq, level, cable)
+        return InputSpectrum.from_arrays(freq, level, _lossy_noise(noise_dbm_per_hz, cable))
 
     def _noise_source_spectrum(
-        self, response: MixerResponse, lines: tuple[tuple[float, float], ...], cable: CableLoss
+        self, response: MixerResponse, freq_hz: np.ndarray, level_dbm: np.ndarray,
+        cable: CableLoss,
     ) -> InputSpectrum:
         """The IF path's spectrum on a bench with a noise source at the DUT RF input: the
         thru passes its noise temperature; the part converts it from the signal and image
@@ -535,6 +543,8 @@ class SimWorld:
         in_port = getattr(self.part, "input_port", None)
         out_port = getattr(self.part, "output_port", None)
         thru = self.thru_fitted()
+        # the noise source's state when the spectrum is taken (a trace holds what it saw)
+        temperature_k = self._input_noise_temperature_fn()
         part_mw = 10.0 ** (response.if_noise_dbm_per_hz / 10.0)
         converts = (not thru and lo is not None and gain_db is not None
                     and math.isfinite(gain_db) and in_port is not None and out_port is not None
@@ -543,7 +553,7 @@ class SimWorld:
         def at_port_mw(freqs_hz: np.ndarray) -> np.ndarray:
             f = np.asarray(freqs_hz, dtype=float)
             if thru:
-                return density_mw_per_hz(self.input_noise_temperature_k(f))
+                return density_mw_per_hz(temperature_k(f))
             if not converts:
                 return np.full(f.shape, part_mw)
             assert lo is not None and gain_db is not None
@@ -551,9 +561,8 @@ class SimWorld:
             mid = 10.0 ** (gain_db / 10.0) * np.asarray(out_port.magnitude(f)) ** 2
             g_s = mid * np.asarray(in_port.magnitude(f_s)) ** 2
             g_i = mid * np.asarray(in_port.magnitude(f_i)) ** 2
-            return mixer_output_density_mw(
-                part_mw, self.input_noise_temperature_k(f_s),
-                self.input_noise_temperature_k(f_i), g_s, g_i)
+            return mixer_output_density_mw(part_mw, temperature_k(f_s), temperature_k(f_i),
+                                           g_s, g_i)
 
         def density(freqs_hz: np.ndarray) -> np.ndarray:
             f = np.asarray(freqs_hz, dtype=float)
@@ -568,7 +577,8 @@ class SimWorld:
         band_hz = 13.6e9 if corner is None else 0.5 * math.pi * corner
         centre = float(corner) / 2.0 if corner is not None else 1e9
         wide = float(10.0 ** (density(np.array([centre]))[0] / 10.0)) * band_hz
-        return InputSpectrum(lines, density, wideband_noise_dbm=10.0 * math.log10(wide))
+        return InputSpectrum.from_arrays(freq_hz, level_dbm, density,
+                                         wideband_noise_dbm=10.0 * math.log10(wide))
 
     def source_spurs(self, role: str) -> list[tuple[float, float]]:
         """A source's spurious lines at its DUT port: (frequency Hz, power dBm), after its
