@@ -327,14 +327,6 @@ class SimWorld:
             return np.full(f.shape, 290.0)
         return ns.temperature_k(f, self.noise_source_on())
 
-    def _input_noise_temperature_fn(self) -> Callable[[np.ndarray], np.ndarray]:
-        """:meth:`input_noise_temperature_k` with the noise source's state as it is now."""
-        ns = self.config.noise_source
-        if ns is None:
-            return lambda f: np.full(np.shape(f), 290.0)
-        on = self.noise_source_on()
-        return lambda f: ns.temperature_k(f, on)
-
     def probe_temperature_c(self) -> float:
         """Chamber probe temperature (ambient without a chamber), degC."""
         if self._chamber is not None:
@@ -543,8 +535,10 @@ class SimWorld:
         in_port = getattr(self.part, "input_port", None)
         out_port = getattr(self.part, "output_port", None)
         thru = self.thru_fitted()
-        # the noise source's state when the spectrum is taken (a trace holds what it saw)
-        temperature_k = self._input_noise_temperature_fn()
+        # the noise source's state as it is when the density is asked for (this spectrum is
+        # kept for its response and channel while the source switches; its wideband noise
+        # below is the one of when it was made)
+        temperature_k = self.input_noise_temperature_k
         part_mw = 10.0 ** (response.if_noise_dbm_per_hz / 10.0)
         converts = (not thru and lo is not None and gain_db is not None
                     and math.isfinite(gain_db) and in_port is not None and out_port is not None

@@ -46,6 +46,16 @@ def test_malformed_headers_are_syntax_errors(bad: str) -> None:
     assert _code(exc) == -102
 
 
+def test_a_repeated_unit_is_parsed_once_and_a_bad_one_fails_every_time() -> None:
+    """A controller repeats its marker and status units at every point: the parse of a text
+    is remembered (the same immutable unit), an error is never remembered as a unit."""
+    assert parse_unit(":CALC:MARK1:X 70000000") is parse_unit(":CALC:MARK1:X 70000000")
+    for _ in range(2):
+        with pytest.raises(ScpiError) as exc:
+            parse_unit("FREQ::CW 1")
+        assert _code(exc) == -102
+
+
 def test_relative_path_continues_from_the_previous_branch() -> None:
     first = parse_unit("SOUR:FREQ:CW 1")
     second = parse_unit("POW -10")
