@@ -255,6 +255,9 @@ class SimWorld:
         self.evaluations = 0  # number of model evaluations (cache misses), for tests
         self._read_ahead = ReadAhead()
         self._last_input: tuple[MixerResponse, int, InputSpectrum] | None = None
+        # (role, frequency Hz, the source's harmonics dBc) → the path's loss there (dB) and
+        # the harmonics at the DUT port (dBc): the path is fixed, the sources step
+        self._path_losses: dict[tuple[object, ...], tuple[float, tuple[float, ...]]] = {}
 
     def connect(
         self,
@@ -279,6 +282,7 @@ class SimWorld:
             self._cache.clear()
             self._inputs.clear()
             self._last_input = None
+            self._path_losses.clear()
             self._read_ahead = ReadAhead()
 
     # --- the DUT's inputs -------------------------------------------------------------
@@ -286,14 +290,14 @@ class SimWorld:
         """Tones at the DUT RF port (after cable and combiner), in source order rf, rf2."""
         tones = []
         for role in ("rf", "rf2"):
-            tone = self._tone_at_port(role, self._path(role))
+            tone = self._tone_at_port(role)
             if tone is not None:
                 tones.append(tone)
         return tones
 
     def lo_input(self) -> ToneInput | None:
         """The tone at the DUT LO port, or None when the LO is off."""
-        return self._tone_at_port("lo", self._path("lo"))
+        return self._tone_at_port("lo")
 
     def thru_fitted(self) -> bool:
         """Whether the calibration thru replaces the part (switch channel 7)."""
@@ -552,7 +556,8 @@ class SimWorld:
                 return np.full(f.shape, part_mw)
             assert lo is not None and gain_db is not None
             f_s, f_i = lo.freq_hz + f, np.abs(lo.freq_hz - f)
-            mid = 10.0 ** (gain_db / 10.0) * np.asarray(out_port.magnitude(f)) ** 2
+            mid = 10.0 ** (gain_db / 10.0) * _of_frequencies(
+                ("port²", out_port), f, lambda: np.asarray(out_port.magnitude(f)) ** 2)
             g_s = mid * np.asarray(in_port.magnitude(f_s)) ** 2
             g_i = mid * np.asarray(in_port.magnitude(f_i)) ** 2
             return mixer_output_density_mw(part_mw, temperature_k(f_s), temperature_k(f_i),
@@ -560,7 +565,7 @@ class SimWorld:
 
         def density(freqs_hz: np.ndarray) -> np.ndarray:
             f = np.asarray(freqs_hz, dtype=float)
-            gain = 10.0 ** (-np.broadcast_to(_cable_loss_db(cable, f), f.shape) / 10.0)
+            gain = _cable_gain(cable, f)
             kt0_mw = 10.0 ** (KT0_DBM_PER_HZ / 10.0)
             return 10.0 * np.log10(at_port_mw(f) * gain + kt0_mw * (1.0 - gain))
 
@@ -692,19 +697,26 @@ class SimWorld:
         filt = self.config.source_filter(role)
         return path if filt is None else (filt, *path)
 
-    def _tone_at_port(
-        self, role: str, path: Sequence[CableLoss | LowPassFilter]
-    ) -> ToneInput | None:
+    def _tone_at_port(self, role: str) -> ToneInput | None:
         source = self._sources.get(role)
         if source is None or not source.output_on:
             return None
         # what the source really makes: its setting moved by its reference's error
         freq = float(getattr(source, "output_freq_hz", source.freq_hz))
-        loss = sum(c.at(freq) for c in path)
-        harmonics = tuple(
-            float(h) - (sum(c.at((n + 2) * freq) for c in path) - loss)
-            for n, h in enumerate(source.harmonics_dbc)
-        )
+        made = tuple(source.harmonics_dbc)
+        key = (role, freq, made)
+        hit = self._path_losses.get(key)  # the path's losses at this frequency, kept
+        if hit is None:
+            path = self._path(role)
+            loss = sum(c.at(freq) for c in path)
+            harmonics = tuple(
+                float(h) - (sum(c.at((n + 2) * freq) for c in path) - loss)
+                for n, h in enumerate(made)
+            )
+            if len(self._path_losses) >= _CACHE_ENTRIES:
+                self._path_losses.clear()
+            hit = self._path_losses[key] = (loss, harmonics)
+        loss, harmonics = hit
         return ToneInput(
             freq_hz=freq, power_dbm=float(source.delivered_power_dbm) - loss,
             harmonics_dbc=harmonics,
@@ -811,6 +823,33 @@ def _cable_loss_db(cable: CableLoss, freq_hz: np.ndarray) -> np.ndarray | float:
     return loss
 
 
+#: Arrays that depend on the frequencies alone (a cable's gain, a port's band edges), kept by
+#: the frequencies' bytes: an analyzer asks for the same trace grid and marker frequencies
+#: at every point (the noise density's callers never write to what they get).
+_BY_FREQUENCIES: dict[tuple[object, ...], np.ndarray] = {}
+_BY_FREQUENCIES_ENTRIES = 256
+
+
+def _of_frequencies(what: tuple[object, ...], freq_hz: np.ndarray,
+                    make: Callable[[], np.ndarray]) -> np.ndarray:
+    """``make()`` for these frequencies (Hz, float array), made once and kept read-only."""
+    key = (what, freq_hz.shape, freq_hz.tobytes())
+    hit = _BY_FREQUENCIES.get(key)
+    if hit is None:
+        hit = np.array(make(), dtype=float)
+        hit.flags.writeable = False
+        if len(_BY_FREQUENCIES) >= _BY_FREQUENCIES_ENTRIES:
+            _BY_FREQUENCIES.clear()
+        _BY_FREQUENCIES[key] = hit
+    return hit
+
+
+def _cable_gain(cable: CableLoss, freq_hz: np.ndarray) -> np.ndarray:
+    """The power gain of ``cable`` (a ratio, ≤ 1) at each frequency (Hz, float array)."""
+    return _of_frequencies(("gain", cable), freq_hz, lambda: 10.0 ** (
+        -np.broadcast_to(_cable_loss_db(cable, freq_hz), freq_hz.shape) / 10.0))
+
+
 @lru_cache(maxsize=64)
 def _spur_phase_law(seed: int, delay_s: float, role: int, index: int) -> tuple[float, float]:
     """(φ0 rad, τ s) of one spur path: φ0 uniform in [0, 2π), τ in [0.2, 1]·delay_s, from
@@ -829,8 +868,7 @@ def _lossy_noise(
 
     def density(freqs_hz: np.ndarray) -> np.ndarray:
         f = np.asarray(freqs_hz, dtype=float)
-        loss_db = np.broadcast_to(_cable_loss_db(cable, f), f.shape)
-        gain = 10.0 ** (-loss_db / 10.0)
+        gain = _cable_gain(cable, f)
         kt0_mw = 10.0 ** (KT0_DBM_PER_HZ / 10.0)
         n_mw = 10.0 ** (density_dbm_per_hz / 10.0) * gain + kt0_mw * (1.0 - gain)
         return 10.0 * np.log10(n_mw)
