@@ -445,8 +445,7 @@ def first_mixer(
     top = np.argsort(mixer_dbm)[::-1][:_DISTORTION_LINES]
     fi, pi = freqs[top], mixer_dbm[top]
     toi, shi = params.toi_dbm, params.shi_dbm
-    iu, ju = np.triu_indices(fi.size, 1)
-    ia, ib = np.nonzero(~np.eye(fi.size, dtype=bool))
+    iu, ju, ia, ib, kinds_all = _pair_indices(fi.size)
     im2 = pi[iu] + pi[ju] - (shi - IM2_ABOVE_H2_DB)
     im3 = 2.0 * pi[ia] + pi[ib] - 2.0 * toi
     prod_f = np.concatenate([
@@ -454,16 +453,30 @@ def first_mixer(
         np.abs(2.0 * fi[ia] - fi[ib]), 2.0 * fi[ia] + fi[ib]])
     prod_p = np.concatenate([
         2.0 * pi - shi, 3.0 * pi - 2.0 * toi - H3_BELOW_IM3_DB, im2, im2, im3, im3])
-    kinds = np.concatenate([
-        np.full(fi.size, 0), np.full(fi.size, 1), np.full(2 * iu.size, 2),
-        np.full(2 * ia.size, 3)]).astype(np.intp)
     keep = (prod_f > 0) & (prod_p > _PRODUCT_FLOOR_DBM)
-    prod_f, prod_p, kinds = prod_f[keep], prod_p[keep], kinds[keep]
+    prod_f, prod_p, kinds = prod_f[keep], prod_p[keep], kinds_all[keep]
     phase0, delay = _product_phase_arrays(params.product_phase_seed, params.product_delay_s)
     amp = 10.0 ** ((prod_p + att) / 20.0) * np.exp(
         1j * (phase0[kinds] - 2.0 * math.pi * prod_f * delay[kinds]))
     return FirstMixer(freqs, input_dbm + compression_db, prod_f, amp, kinds, total_dbm,
                       compression_db)
+
+
+@lru_cache(maxsize=16)
+def _pair_indices(n: int) -> tuple[NDArray[np.intp], ...]:
+    """For the ``n`` strongest lines: the pairs (i < j) of the 2nd-order sums and
+    differences, the ordered pairs (i ≠ j) of the 3rd-order products, and the kind of every
+    product in :func:`first_mixer`'s order (h2, h3, im2 sums and differences, im3), made once
+    per ``n`` (read-only)."""
+    iu, ju = np.triu_indices(n, 1)
+    ia, ib = np.nonzero(~np.eye(n, dtype=bool))
+    kinds = np.concatenate([
+        np.full(n, 0), np.full(n, 1), np.full(2 * iu.size, 2),
+        np.full(2 * ia.size, 3)]).astype(np.intp)
+    out = (iu, ju, ia, ib, kinds)
+    for arr in out:
+        arr.flags.writeable = False
+    return out
 
 
 def first_mixer_lines(
