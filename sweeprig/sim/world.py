@@ -256,8 +256,10 @@ class SimWorld:
         self._read_ahead = ReadAhead()
         self._last_input: tuple[MixerResponse, int, InputSpectrum] | None = None
         # (role, frequency Hz, the source's harmonics dBc) → the path's loss there (dB) and
-        # the harmonics at the DUT port (dBc): the path is fixed, the sources step
+        # the harmonics at the DUT port (dBc); (role, a spur's frequency Hz) → the path's loss
+        # there (dB): the paths are fixed, the sources step
         self._path_losses: dict[tuple[object, ...], tuple[float, tuple[float, ...]]] = {}
+        self._spur_losses: dict[tuple[str, float], float] = {}
 
     def connect(
         self,
@@ -283,6 +285,7 @@ class SimWorld:
             self._inputs.clear()
             self._last_input = None
             self._path_losses.clear()
+            self._spur_losses.clear()
             self._read_ahead = ReadAhead()
 
     # --- the DUT's inputs -------------------------------------------------------------
@@ -587,13 +590,16 @@ class SimWorld:
         if source is None or not source.output_on or not spurious:
             return []
         freq = float(getattr(source, "output_freq_hz", source.freq_hz))
-        path = self._path(role)
         out = []
         for offset_hz, dbc in spurious:
             f = freq + float(offset_hz)
             if f <= 0:
                 continue
-            loss = sum(c.at(f) for c in path)
+            loss = self._spur_losses.get((role, f))  # the path's loss at f, kept
+            if loss is None:
+                if len(self._spur_losses) >= _CACHE_ENTRIES:
+                    self._spur_losses.clear()
+                loss = self._spur_losses[(role, f)] = sum(c.at(f) for c in self._path(role))
             out.append((f, float(source.delivered_power_dbm) + float(dbc) - loss))
         return out
 
