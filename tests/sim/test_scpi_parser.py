@@ -22,6 +22,20 @@ def test_units_split_at_semicolons_outside_quotes_and_parentheses() -> None:
     ]
 
 
+@given(st.text(alphabet="AB:;,() '\"1?*", max_size=40))
+def test_the_quick_split_is_the_character_scan(message: str) -> None:
+    """A message with nothing to stand inside (no quote, no parenthesis) is split at every
+    ';' without scanning it: the same units as the scan gives."""
+    from sweeprig.sim.scpi.parser import _split_outside
+
+    try:
+        units = split_units(message)
+    except ScpiError:
+        assert _split_outside(message, ";")[1]  # only an unterminated string is refused
+        return
+    assert units == _split_outside(message, ";")[0]
+
+
 def test_unterminated_string_is_a_syntax_error() -> None:
     with pytest.raises(ScpiError) as exc:
         split_units('DISP:TEXT "abc')

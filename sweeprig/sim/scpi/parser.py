@@ -203,8 +203,11 @@ def _split_outside(text: str, separator: str) -> tuple[list[str], str, int]:
 
 def split_units(message: str) -> list[str]:
     """Split a program message at ``;`` outside quotes and parentheses (−102 if unbalanced)."""
-    if ";" not in message and '"' not in message and "'" not in message:
-        return [message]
+    if '"' not in message and "'" not in message:
+        if ";" not in message:
+            return [message]
+        if "(" not in message and ")" not in message:
+            return message.split(";")  # nothing to stand inside: every ';' separates
     units, quote, _depth = _split_outside(message, ";")
     if quote:
         raise ScpiError(-102, "unterminated string")
