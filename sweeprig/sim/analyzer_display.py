@@ -235,21 +235,44 @@ class SweepResult:
     _signal_mw: Callable[[FloatArray], FloatArray] = field(repr=False)
     _noise_mw: Callable[[FloatArray], FloatArray] = field(repr=False)
     _noise_offset_db: FloatArray = field(repr=False)
+    #: The signal and the mean noise without reciprocal mixing (mW) at every trace point,
+    #: as the trace was made from them (None: evaluated at each reading), and the
+    #: reciprocal mixing as a function of f (None: none), which a reading evaluates
+    #: exactly where it reads (the trace interpolates it between computed points).
+    _signal_grid_mw: FloatArray | None = field(default=None, repr=False)
+    _noise_base_grid_mw: FloatArray | None = field(default=None, repr=False)
+    _reciprocal_mw: Callable[[FloatArray], FloatArray] | None = field(default=None, repr=False)
 
     def level_at(self, freq_hz: float) -> float:
         """Displayed level (dBm) exactly at ``freq_hz`` (clamped to the sweep's range).
 
         The lines are evaluated exactly there; the random part of the noise is interpolated
-        between the neighbouring trace points, so repeated readings of one sweep agree.
+        between the neighbouring trace points, so repeated readings of one sweep agree. A
+        reading exactly at a trace point (a marker on the centre or on a grid frequency)
+        takes the signal and noise the sweep computed there (the same numbers, or within
+        a rounding of the vectorised arithmetic: 1e-15 relative).
         """
         f_lo, f_hi = float(self.freqs_hz[0]), float(self.freqs_hz[-1])
+        at = None  # the trace point the reading falls on exactly
         if f_hi <= f_lo:  # zero span: the reading of the middle point
-            offset = float(self._noise_offset_db[len(self._noise_offset_db) // 2])
-            f = np.array([f_lo])
+            at = len(self._noise_offset_db) // 2
+            offset = float(self._noise_offset_db[at])
+            x = f_lo
         else:
-            f = np.array([min(max(float(freq_hz), f_lo), f_hi)])
-            offset = float(np.interp(f[0], self.freqs_hz, self._noise_offset_db))
-        total = self._signal_mw(f) + self._noise_mw(f) * 10.0 ** (offset / 10.0)
+            x = min(max(float(freq_hz), f_lo), f_hi)
+            offset = float(np.interp(x, self.freqs_hz, self._noise_offset_db))
+            k = int(np.searchsorted(self.freqs_hz, x))
+            if k < self.freqs_hz.size and float(self.freqs_hz[k]) == x:
+                at = k
+        if at is not None and self._signal_grid_mw is not None \
+                and self._noise_base_grid_mw is not None:
+            noise = np.array([self._noise_base_grid_mw[at]])
+            if self._reciprocal_mw is not None:
+                noise = noise + self._reciprocal_mw(np.array([x]))
+            total = np.array([self._signal_grid_mw[at]]) + noise * 10.0 ** (offset / 10.0)
+        else:
+            f = np.array([x])
+            total = self._signal_mw(f) + self._noise_mw(f) * 10.0 ** (offset / 10.0)
         return float(_mw_to_dbm(total)[0])
 
     def peak(self) -> tuple[float, float]:
@@ -573,11 +596,20 @@ def simulate_sweep(
         pc_mw = 10.0 ** (params.p1db_dbm / 10.0) / (10.0**0.1 - 1.0)
         noise_gain = 1.0 / (1.0 + total_mw / pc_mw)
         mixer_total_dbm = _mw_to_dbm_scalar(total_mw)
-    noise_mw = _noise_mw_fn(spectrum, settings, params, line_f, line_dbm,
-                            span_hz=(settings.start_hz, settings.stop_hz),
-                            input_gain=noise_gain)
+    base_mw, reciprocal_mw = _noise_parts_mw_fn(
+        spectrum, settings, params, line_f, line_dbm,
+        span_hz=(settings.start_hz, settings.stop_hz), input_gain=noise_gain)
+
+    def noise_mw(freqs_hz: FloatArray) -> FloatArray:  # as _noise_mw_fn's
+        total = base_mw(freqs_hz)
+        if reciprocal_mw is not None:
+            total = total + reciprocal_mw(freqs_hz)
+        return total
+
     offsets_db = _noise_offsets_db(settings, rng)
-    trace = _mw_to_dbm(signal_mw(freqs) + noise_mw(freqs) * 10.0 ** (offsets_db / 10.0))
+    signal_grid, base_grid = signal_mw(freqs), base_mw(freqs)
+    noise_grid = base_grid if reciprocal_mw is None else base_grid + reciprocal_mw(freqs)
+    trace = _mw_to_dbm(signal_grid + noise_grid * 10.0 ** (offsets_db / 10.0))
     return SweepResult(
         freqs_hz=freqs,
         trace_dbm=trace,
@@ -588,6 +620,9 @@ def simulate_sweep(
         _signal_mw=signal_mw,
         _noise_mw=noise_mw,
         _noise_offset_db=offsets_db,
+        _signal_grid_mw=signal_grid,
+        _noise_base_grid_mw=base_grid,
+        _reciprocal_mw=reciprocal_mw,
     )
 
 
@@ -638,24 +673,41 @@ def _noise_mw_fn(
     """Mean displayed noise power (mW) as a function of f (Hz): DANL plus input noise plus
     reciprocal mixing of the displayed lines (those that can show within ``span_hz``).
     ``input_gain``: the first mixer's power gain on the input noise (1: not compressed)."""
+    base, reciprocal = _noise_parts_mw_fn(spectrum, settings, params, line_f, line_dbm,
+                                          span_hz=span_hz, input_gain=input_gain)
+
+    def noise(freqs_hz: FloatArray) -> FloatArray:
+        total = base(freqs_hz)
+        if reciprocal is not None:
+            total = total + reciprocal(freqs_hz)
+        return total
+
+    return noise
+
+
+def _noise_parts_mw_fn(
+    spectrum: InputSpectrum, settings: SweepSettings, params: AnalyzerParams,
+    line_f: FloatArray = _EMPTY, line_dbm: FloatArray = _EMPTY,
+    span_hz: tuple[float, float] | None = None, input_gain: float = 1.0,
+) -> tuple[Callable[[FloatArray], FloatArray], Callable[[FloatArray], FloatArray] | None]:
+    """The two parts of :func:`_noise_mw_fn`'s noise (mW) as functions of f (Hz): the DANL
+    plus the input noise, and the reciprocal mixing (None when none can show); the noise
+    is their sum."""
     own_mw = 10.0 ** (danl_dbm(settings, params) / 10.0)
     enbw_hz = GAUSSIAN_ENBW_PER_RBW * settings.rbw_hz
     error = 10.0 ** (params.amplitude_error_db / 10.0)
     kt0_mw_per_hz = 10.0 ** (KT0_DBM_PER_HZ / 10.0)
     reciprocal = _reciprocal_mw_fn(line_f, line_dbm, settings, params, span_hz=span_hz)
 
-    def noise(freqs_hz: FloatArray) -> FloatArray:
+    def base(freqs_hz: FloatArray) -> FloatArray:
         density_mw = 10.0 ** (spectrum.noise_at(freqs_hz) / 10.0)
         # The noise figure is defined with a source at T0, so the DANL already holds the kT0
         # of a matched input; only the excess above kT0 adds (definition of F; Pozar).
         excess_mw = (np.maximum(density_mw - kt0_mw_per_hz, 0.0) * enbw_hz * error
                      * input_gain)
-        total = own_mw + excess_mw
-        if reciprocal is not None:
-            total = total + reciprocal(freqs_hz)
-        return total
+        return own_mw + excess_mw
 
-    return noise
+    return base, reciprocal
 
 
 def _reciprocal_mw_fn(
