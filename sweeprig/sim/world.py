@@ -517,8 +517,9 @@ class SimWorld:
             level = level + match.junction_db_array(
                 _PART_OF_CHANNEL.get(channel, "part_if"),
                 _LOAD_OF_CHANNEL.get(channel, "load_if"), freq)
+        lo = self.lo_input() if channel == SwitchChannel.IF else None  # asked once
         if channel == SwitchChannel.IF:
-            spurs = self.spur_lines(response)
+            spurs = self._spur_lines(response, lo)
             if spurs:
                 extra = [(s.freq_hz, s.amplitude * 10.0 ** (-cable.at(s.freq_hz) / 20.0))
                          for s in spurs]
@@ -527,17 +528,17 @@ class SimWorld:
             freq = np.concatenate([freq, [f for f, _ in self.config.interferers]])
             level = np.concatenate([level, [p for _, p in self.config.interferers]])
         if channel == SwitchChannel.IF and self.config.noise_source is not None:
-            return self._noise_source_spectrum(response, freq, level, cable)
+            return self._noise_source_spectrum(response, freq, level, cable, lo)
         return InputSpectrum.from_arrays(freq, level, _lossy_noise(noise_dbm_per_hz, cable))
 
     def _noise_source_spectrum(
         self, response: MixerResponse, freq_hz: np.ndarray, level_dbm: np.ndarray,
-        cable: CableLoss,
+        cable: CableLoss, lo: ToneInput | None,
     ) -> InputSpectrum:
         """The IF path's spectrum on a bench with a noise source at the DUT RF input: the
         thru passes its noise temperature; the part converts it from the signal and image
-        bands (:func:`sweeprig.sim.noise_source.mixer_output_density_mw`)."""
-        lo = self.lo_input()
+        bands (:func:`sweeprig.sim.noise_source.mixer_output_density_mw`); ``lo``: the
+        tone at the DUT LO port now."""
         gain_db = response.notes.get("conversion_gain_db")
         in_port = getattr(self.part, "input_port", None)
         out_port = getattr(self.part, "output_port", None)
@@ -606,8 +607,11 @@ class SimWorld:
     def spur_lines(self, response: MixerResponse) -> list[SpurLine]:
         """Output-port lines made from the sources' spurious outputs (see the module
         docstring), with their seeded phases."""
+        return self._spur_lines(response, self.lo_input())
+
+    def _spur_lines(self, response: MixerResponse, lo: ToneInput | None) -> list[SpurLine]:
+        """:meth:`spur_lines` with the tone at the DUT LO port now (``lo``)."""
         gain_db = response.notes.get("conversion_gain_db")
-        lo = self.lo_input()
         if gain_db is None or not math.isfinite(gain_db) or lo is None:
             return []
         up = getattr(self.part, "conversion", "down") == "up"
