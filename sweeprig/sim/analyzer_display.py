@@ -185,6 +185,29 @@ class InputSpectrum:
     #: Total noise power arriving across the analyzer's input band, dBm (it loads the first
     #: mixer like a line of that power; -inf: negligible).
     wideband_noise_dbm: float = -math.inf
+    #: ``lines`` as two arrays (Hz, dBm) when they were made from arrays
+    #: (:meth:`from_arrays`): the display takes them as they are.
+    _line_arrays: tuple[FloatArray, FloatArray] | None = field(
+        default=None, compare=False, repr=False)
+
+    @classmethod
+    def from_arrays(cls, freq_hz: FloatArray, power_dbm: FloatArray,
+                    noise_dbm_per_hz: NoiseDensity = -math.inf,
+                    wideband_noise_dbm: float = -math.inf) -> InputSpectrum:
+        """The spectrum of lines given as arrays (Hz, dBm; the same numbers as ``lines``)."""
+        freq = np.asarray(freq_hz, dtype=float)
+        power = np.asarray(power_dbm, dtype=float)
+        return cls(tuple(zip(freq.tolist(), power.tolist(), strict=True)), noise_dbm_per_hz,
+                   wideband_noise_dbm, (freq, power))
+
+    def line_arrays(self) -> tuple[FloatArray, FloatArray]:
+        """The lines as arrays (frequency Hz, power dBm)."""
+        if self._line_arrays is not None:
+            return self._line_arrays
+        if not self.lines:
+            return _EMPTY, _EMPTY
+        arr = np.asarray(self.lines, dtype=float).reshape(-1, 2)
+        return arr[:, 0], arr[:, 1]
 
     def noise_at(self, freqs_hz: ArrayLike) -> FloatArray:
         """Input noise density at ``freqs_hz``, dBm/Hz."""
@@ -212,21 +235,44 @@ class SweepResult:
     _signal_mw: Callable[[FloatArray], FloatArray] = field(repr=False)
     _noise_mw: Callable[[FloatArray], FloatArray] = field(repr=False)
     _noise_offset_db: FloatArray = field(repr=False)
+    #: The signal and the mean noise without reciprocal mixing (mW) at every trace point,
+    #: as the trace was made from them (None: evaluated at each reading), and the
+    #: reciprocal mixing as a function of f (None: none), which a reading evaluates
+    #: exactly where it reads (the trace interpolates it between computed points).
+    _signal_grid_mw: FloatArray | None = field(default=None, repr=False)
+    _noise_base_grid_mw: FloatArray | None = field(default=None, repr=False)
+    _reciprocal_mw: Callable[[FloatArray], FloatArray] | None = field(default=None, repr=False)
 
     def level_at(self, freq_hz: float) -> float:
         """Displayed level (dBm) exactly at ``freq_hz`` (clamped to the sweep's range).
 
         The lines are evaluated exactly there; the random part of the noise is interpolated
-        between the neighbouring trace points, so repeated readings of one sweep agree.
+        between the neighbouring trace points, so repeated readings of one sweep agree. A
+        reading exactly at a trace point (a marker on the centre or on a grid frequency)
+        takes the signal and noise the sweep computed there (the same numbers, or within
+        a rounding of the vectorised arithmetic: 1e-15 relative).
         """
         f_lo, f_hi = float(self.freqs_hz[0]), float(self.freqs_hz[-1])
+        at = None  # the trace point the reading falls on exactly
         if f_hi <= f_lo:  # zero span: the reading of the middle point
-            offset = float(self._noise_offset_db[len(self._noise_offset_db) // 2])
-            f = np.array([f_lo])
+            at = len(self._noise_offset_db) // 2
+            offset = float(self._noise_offset_db[at])
+            x = f_lo
         else:
-            f = np.array([min(max(float(freq_hz), f_lo), f_hi)])
-            offset = float(np.interp(f[0], self.freqs_hz, self._noise_offset_db))
-        total = self._signal_mw(f) + self._noise_mw(f) * 10.0 ** (offset / 10.0)
+            x = min(max(float(freq_hz), f_lo), f_hi)
+            offset = float(np.interp(x, self.freqs_hz, self._noise_offset_db))
+            k = int(np.searchsorted(self.freqs_hz, x))
+            if k < self.freqs_hz.size and float(self.freqs_hz[k]) == x:
+                at = k
+        if at is not None and self._signal_grid_mw is not None \
+                and self._noise_base_grid_mw is not None:
+            noise = np.array([self._noise_base_grid_mw[at]])
+            if self._reciprocal_mw is not None:
+                noise = noise + self._reciprocal_mw(np.array([x]))
+            total = np.array([self._signal_grid_mw[at]]) + noise * 10.0 ** (offset / 10.0)
+        else:
+            f = np.array([x])
+            total = self._signal_mw(f) + self._noise_mw(f) * 10.0 ** (offset / 10.0)
         return float(_mw_to_dbm(total)[0])
 
     def peak(self) -> tuple[float, float]:
@@ -299,7 +345,8 @@ def displayed_noise_dbm(
     source). Unlike a sweep, every line counts here (no pruning to the strongest).
     """
     f = np.asarray(freqs_hz, float)
-    line_f, line_dbm, _ = _displayed_arrays(spectrum.lines, settings, params)
+    line_f, line_dbm, _ = _displayed_arrays(spectrum.lines, settings, params,
+                                          spectrum._line_arrays)
     noise = _noise_mw_fn(spectrum, settings, params, line_f, line_dbm, span_hz=None)
     return _mw_to_dbm(noise(f))
 
@@ -310,7 +357,8 @@ def noise_breakdown_mw(
     """The mean displayed noise at one frequency in its parts, mW in the noise bandwidth:
     the DANL, the input noise above kT0, and reciprocal mixing (of the lines a sweep with
     ``settings`` counts: exactly what :func:`simulate_sweep` displays there)."""
-    line_f, line_dbm, _ = _displayed_arrays(spectrum.lines, settings, params)
+    line_f, line_dbm, _ = _displayed_arrays(spectrum.lines, settings, params,
+                                          spectrum._line_arrays)
     f = np.array([float(freq_hz)])
     enbw_hz = GAUSSIAN_ENBW_PER_RBW * settings.rbw_hz
     error = 10.0 ** (params.amplitude_error_db / 10.0)
@@ -391,11 +439,16 @@ _EMPTY = np.zeros(0)
 
 
 def first_mixer(
-    lines: Sequence[tuple[float, float]], settings: SweepSettings, params: AnalyzerParams
+    lines: Sequence[tuple[float, float]], settings: SweepSettings, params: AnalyzerParams,
+    *, arrays: tuple[FloatArray, FloatArray] | None = None,
 ) -> FirstMixer:
-    """Compression and products of the first mixer (see :func:`first_mixer_lines`)."""
+    """Compression and products of the first mixer (see :func:`first_mixer_lines`).
+    ``arrays``: the same lines as two arrays (Hz, dBm), taken instead of ``lines``."""
     att = settings.attenuation_db
-    if len(lines):
+    if arrays is not None:  # the same lines as arrays (Hz, dBm)
+        ok = (arrays[0] > 0) & np.isfinite(arrays[1])
+        freqs, input_dbm = arrays[0][ok], arrays[1][ok]
+    elif len(lines):
         arr = np.asarray(lines, dtype=float).reshape(-1, 2)
         ok = (arr[:, 0] > 0) & np.isfinite(arr[:, 1])
         freqs, input_dbm = arr[ok, 0], arr[ok, 1]
@@ -415,8 +468,7 @@ def first_mixer(
     top = np.argsort(mixer_dbm)[::-1][:_DISTORTION_LINES]
     fi, pi = freqs[top], mixer_dbm[top]
     toi, shi = params.toi_dbm, params.shi_dbm
-    iu, ju = np.triu_indices(fi.size, 1)
-    ia, ib = np.nonzero(~np.eye(fi.size, dtype=bool))
+    iu, ju, ia, ib, kinds_all = _pair_indices(fi.size)
     im2 = pi[iu] + pi[ju] - (shi - IM2_ABOVE_H2_DB)
     im3 = 2.0 * pi[ia] + pi[ib] - 2.0 * toi
     prod_f = np.concatenate([
@@ -424,16 +476,30 @@ def first_mixer(
         np.abs(2.0 * fi[ia] - fi[ib]), 2.0 * fi[ia] + fi[ib]])
     prod_p = np.concatenate([
         2.0 * pi - shi, 3.0 * pi - 2.0 * toi - H3_BELOW_IM3_DB, im2, im2, im3, im3])
-    kinds = np.concatenate([
-        np.full(fi.size, 0), np.full(fi.size, 1), np.full(2 * iu.size, 2),
-        np.full(2 * ia.size, 3)]).astype(np.intp)
     keep = (prod_f > 0) & (prod_p > _PRODUCT_FLOOR_DBM)
-    prod_f, prod_p, kinds = prod_f[keep], prod_p[keep], kinds[keep]
+    prod_f, prod_p, kinds = prod_f[keep], prod_p[keep], kinds_all[keep]
     phase0, delay = _product_phase_arrays(params.product_phase_seed, params.product_delay_s)
     amp = 10.0 ** ((prod_p + att) / 20.0) * np.exp(
         1j * (phase0[kinds] - 2.0 * math.pi * prod_f * delay[kinds]))
     return FirstMixer(freqs, input_dbm + compression_db, prod_f, amp, kinds, total_dbm,
                       compression_db)
+
+
+@lru_cache(maxsize=16)
+def _pair_indices(n: int) -> tuple[NDArray[np.intp], ...]:
+    """For the ``n`` strongest lines: the pairs (i < j) of the 2nd-order sums and
+    differences, the ordered pairs (i ≠ j) of the 3rd-order products, and the kind of every
+    product in :func:`first_mixer`'s order (h2, h3, im2 sums and differences, im3), made once
+    per ``n`` (read-only)."""
+    iu, ju = np.triu_indices(n, 1)
+    ia, ib = np.nonzero(~np.eye(n, dtype=bool))
+    kinds = np.concatenate([
+        np.full(n, 0), np.full(n, 1), np.full(2 * iu.size, 2),
+        np.full(2 * ia.size, 3)]).astype(np.intp)
+    out = (iu, ju, ia, ib, kinds)
+    for arr in out:
+        arr.flags.writeable = False
+    return out
 
 
 def first_mixer_lines(
@@ -458,7 +524,8 @@ def first_mixer_lines(
 
 
 def _displayed_arrays(
-    lines: Sequence[tuple[float, float]], settings: SweepSettings, params: AnalyzerParams
+    lines: Sequence[tuple[float, float]], settings: SweepSettings, params: AnalyzerParams,
+    arrays: tuple[FloatArray, FloatArray] | None = None,
 ) -> tuple[FloatArray, FloatArray, float]:
     # The display depends only on the lines, the attenuation and the analyzer: the last
     # answer is kept for the same (immutable) lines object, as successive sweeps of one
@@ -467,7 +534,7 @@ def _displayed_arrays(
     hit = _LAST_DISPLAYED.get("last")
     if hit is not None and hit[0] is lines and hit[1] == key:
         return hit[2]
-    mixer = first_mixer(lines, settings, params)
+    mixer = first_mixer(lines, settings, params, arrays=arrays)
     f, p = combine_displayed(mixer, params.coherent_products)
     value = (f, p, mixer.total_dbm)
     if isinstance(lines, tuple):
@@ -515,7 +582,8 @@ def simulate_sweep(
 ) -> SweepResult:
     """Run one sweep (with all its averages) and return the trace and flags."""
     freqs = settings.freqs_hz()
-    line_f, line_dbm, mixer_total_dbm = _displayed_arrays(spectrum.lines, settings, params)
+    line_f, line_dbm, mixer_total_dbm = _displayed_arrays(spectrum.lines, settings, params,
+                                          spectrum._line_arrays)
     signal_mw = _signal_mw_fn(line_f, line_dbm, settings.rbw_hz, params.amplitude_error_db)
     noise_gain = 1.0
     if math.isfinite(spectrum.wideband_noise_dbm):
@@ -528,11 +596,20 @@ def simulate_sweep(
         pc_mw = 10.0 ** (params.p1db_dbm / 10.0) / (10.0**0.1 - 1.0)
         noise_gain = 1.0 / (1.0 + total_mw / pc_mw)
         mixer_total_dbm = _mw_to_dbm_scalar(total_mw)
-    noise_mw = _noise_mw_fn(spectrum, settings, params, line_f, line_dbm,
-                            span_hz=(settings.start_hz, settings.stop_hz),
-                            input_gain=noise_gain)
+    base_mw, reciprocal_mw = _noise_parts_mw_fn(
+        spectrum, settings, params, line_f, line_dbm,
+        span_hz=(settings.start_hz, settings.stop_hz), input_gain=noise_gain)
+
+    def noise_mw(freqs_hz: FloatArray) -> FloatArray:  # as _noise_mw_fn's
+        total = base_mw(freqs_hz)
+        if reciprocal_mw is not None:
+            total = total + reciprocal_mw(freqs_hz)
+        return total
+
     offsets_db = _noise_offsets_db(settings, rng)
-    trace = _mw_to_dbm(signal_mw(freqs) + noise_mw(freqs) * 10.0 ** (offsets_db / 10.0))
+    signal_grid, base_grid = signal_mw(freqs), base_mw(freqs)
+    noise_grid = base_grid if reciprocal_mw is None else base_grid + reciprocal_mw(freqs)
+    trace = _mw_to_dbm(signal_grid + noise_grid * 10.0 ** (offsets_db / 10.0))
     return SweepResult(
         freqs_hz=freqs,
         trace_dbm=trace,
@@ -543,6 +620,9 @@ def simulate_sweep(
         _signal_mw=signal_mw,
         _noise_mw=noise_mw,
         _noise_offset_db=offsets_db,
+        _signal_grid_mw=signal_grid,
+        _noise_base_grid_mw=base_grid,
+        _reciprocal_mw=reciprocal_mw,
     )
 
 
@@ -593,24 +673,41 @@ def _noise_mw_fn(
     """Mean displayed noise power (mW) as a function of f (Hz): DANL plus input noise plus
     reciprocal mixing of the displayed lines (those that can show within ``span_hz``).
     ``input_gain``: the first mixer's power gain on the input noise (1: not compressed)."""
+    base, reciprocal = _noise_parts_mw_fn(spectrum, settings, params, line_f, line_dbm,
+                                          span_hz=span_hz, input_gain=input_gain)
+
+    def noise(freqs_hz: FloatArray) -> FloatArray:
+        total = base(freqs_hz)
+        if reciprocal is not None:
+            total = total + reciprocal(freqs_hz)
+        return total
+
+    return noise
+
+
+def _noise_parts_mw_fn(
+    spectrum: InputSpectrum, settings: SweepSettings, params: AnalyzerParams,
+    line_f: FloatArray = _EMPTY, line_dbm: FloatArray = _EMPTY,
+    span_hz: tuple[float, float] | None = None, input_gain: float = 1.0,
+) -> tuple[Callable[[FloatArray], FloatArray], Callable[[FloatArray], FloatArray] | None]:
+    """The two parts of :func:`_noise_mw_fn`'s noise (mW) as functions of f (Hz): the DANL
+    plus the input noise, and the reciprocal mixing (None when none can show); the noise
+    is their sum."""
     own_mw = 10.0 ** (danl_dbm(settings, params) / 10.0)
     enbw_hz = GAUSSIAN_ENBW_PER_RBW * settings.rbw_hz
     error = 10.0 ** (params.amplitude_error_db / 10.0)
     kt0_mw_per_hz = 10.0 ** (KT0_DBM_PER_HZ / 10.0)
     reciprocal = _reciprocal_mw_fn(line_f, line_dbm, settings, params, span_hz=span_hz)
 
-    def noise(freqs_hz: FloatArray) -> FloatArray:
+    def base(freqs_hz: FloatArray) -> FloatArray:
         density_mw = 10.0 ** (spectrum.noise_at(freqs_hz) / 10.0)
         # The noise figure is defined with a source at T0, so the DANL already holds the kT0
         # of a matched input; only the excess above kT0 adds (definition of F; Pozar).
         excess_mw = (np.maximum(density_mw - kt0_mw_per_hz, 0.0) * enbw_hz * error
                      * input_gain)
-        total = own_mw + excess_mw
-        if reciprocal is not None:
-            total = total + reciprocal(freqs_hz)
-        return total
+        return own_mw + excess_mw
 
-    return noise
+    return base, reciprocal
 
 
 def _reciprocal_mw_fn(

@@ -29,6 +29,7 @@ import cmath
 import math
 import random
 from dataclasses import dataclass
+from functools import lru_cache
 
 import numpy as np
 
@@ -58,8 +59,7 @@ class PortMatch:
         return any(v > 0 for _n, v in self.magnitudes)
 
     def _law(self, port: str) -> tuple[float, float]:
-        rng = random.Random(f"match/{self.seed}/{PORTS.index(port)}")
-        return rng.uniform(-math.pi, math.pi), rng.uniform(0.2, 1.0) * self.delay_s
+        return _phase_law(f"{self.seed}", self.delay_s, PORTS.index(port))
 
     def gamma(self, port: str, freq_hz: float) -> complex:
         """Γ of ``port`` at ``freq_hz``."""
@@ -84,3 +84,13 @@ class PortMatch:
         (pa, ta), (pb, tb) = self._law(port_a), self._law(port_b)
         product = ma * mb * np.exp(1j * (pa + pb - 4.0 * np.pi * f * (ta + tb)))
         return -20.0 * np.log10(np.abs(1.0 - product))
+
+
+@lru_cache(maxsize=64)
+def _phase_law(seed: str, delay_s: float, index: int) -> tuple[float, float]:
+    """(φ0 rad, τ s) of the port at ``index`` of :data:`PORTS`: φ0 uniform in [−π, π), τ in
+    [0.2, 1]·delay_s, from ``random.Random("match/<seed>/<index>")`` (``seed`` as it is
+    spelt; drawn once per law: seeding hashes its string, which cost more than the rest of
+    a junction)."""
+    rng = random.Random(f"match/{seed}/{index}")
+    return rng.uniform(-math.pi, math.pi), rng.uniform(0.2, 1.0) * delay_s

@@ -29,6 +29,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from functools import lru_cache
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -65,8 +66,7 @@ class NoiseSourceModel:
 
     def enr_db(self, freq_hz: ArrayLike) -> NDArray[np.float64]:
         """True ENR at ``freq_hz``, dB."""
-        xs = np.array([p[0] for p in self.enr_points], dtype=float)
-        ys = np.array([p[1] for p in self.enr_points], dtype=float)
+        xs, ys = _enr_table(self.enr_points)
         return np.interp(np.asarray(freq_hz, dtype=float), xs, ys)
 
     @property
@@ -84,6 +84,17 @@ class NoiseSourceModel:
     def is_on(self, drive_v: float) -> bool:
         """Whether a drive of ``drive_v`` volts turns the source on."""
         return drive_v >= self.drive_on_v
+
+
+@lru_cache(maxsize=16)
+def _enr_table(points: tuple[tuple[float, float], ...]) -> tuple[NDArray[np.float64],
+                                                                 NDArray[np.float64]]:
+    """An ENR table as two read-only arrays (Hz, dB)."""
+    xs = np.array([p[0] for p in points], dtype=float)
+    ys = np.array([p[1] for p in points], dtype=float)
+    xs.flags.writeable = False
+    ys.flags.writeable = False
+    return xs, ys
 
 
 def density_mw_per_hz(temperature_k: ArrayLike) -> NDArray[np.float64]:

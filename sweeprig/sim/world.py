@@ -255,6 +255,11 @@ class SimWorld:
         self.evaluations = 0  # number of model evaluations (cache misses), for tests
         self._read_ahead = ReadAhead()
         self._last_input: tuple[MixerResponse, int, InputSpectrum] | None = None
+        # (role, frequency Hz, the source's harmonics dBc) → the path's loss there (dB) and
+        # the harmonics at the DUT port (dBc); (role, a spur's frequency Hz) → the path's loss
+        # there (dB): the paths are fixed, the sources step
+        self._path_losses: dict[tuple[object, ...], tuple[float, tuple[float, ...]]] = {}
+        self._spur_losses: dict[tuple[str, float], float] = {}
 
     def connect(
         self,
@@ -279,6 +284,8 @@ class SimWorld:
             self._cache.clear()
             self._inputs.clear()
             self._last_input = None
+            self._path_losses.clear()
+            self._spur_losses.clear()
             self._read_ahead = ReadAhead()
 
     # --- the DUT's inputs -------------------------------------------------------------
@@ -286,14 +293,14 @@ class SimWorld:
         """Tones at the DUT RF port (after cable and combiner), in source order rf, rf2."""
         tones = []
         for role in ("rf", "rf2"):
-            tone = self._tone_at_port(role, self._path(role))
+            tone = self._tone_at_port(role)
             if tone is not None:
                 tones.append(tone)
         return tones
 
     def lo_input(self) -> ToneInput | None:
         """The tone at the DUT LO port, or None when the LO is off."""
-        return self._tone_at_port("lo", self._path("lo"))
+        return self._tone_at_port("lo")
 
     def thru_fitted(self) -> bool:
         """Whether the calibration thru replaces the part (switch channel 7)."""
@@ -510,8 +517,9 @@ class SimWorld:
             level = level + match.junction_db_array(
                 _PART_OF_CHANNEL.get(channel, "part_if"),
                 _LOAD_OF_CHANNEL.get(channel, "load_if"), freq)
+        lo = self.lo_input() if channel == SwitchChannel.IF else None  # asked once
         if channel == SwitchChannel.IF:
-            spurs = self.spur_lines(response)
+            spurs = self._spur_lines(response, lo)
             if spurs:
                 extra = [(s.freq_hz, s.amplitude * 10.0 ** (-cable.at(s.freq_hz) / 20.0))
                          for s in spurs]
@@ -519,22 +527,26 @@ class SimWorld:
         if channel == SwitchChannel.IF and self.config.interferers:
             freq = np.concatenate([freq, [f for f, _ in self.config.interferers]])
             level = np.concatenate([level, [p for _, p in self.config.interferers]])
-        lines = tuple(zip(freq.tolist(), level.tolist(), strict=True))
         if channel == SwitchChannel.IF and self.config.noise_source is not None:
-            return self._noise_source_spectrum(response, lines, cable)
-        return InputSpectrum(lines, _lossy_noise(noise_dbm_per_hz, cable))
+            return self._noise_source_spectrum(response, freq, level, cable, lo)
+        return InputSpectrum.from_arrays(freq, level, _lossy_noise(noise_dbm_per_hz, cable))
 
     def _noise_source_spectrum(
-        self, response: MixerResponse, lines: tuple[tuple[float, float], ...], cable: CableLoss
+        self, response: MixerResponse, freq_hz: np.ndarray, level_dbm: np.ndarray,
+        cable: CableLoss, lo: ToneInput | None,
     ) -> InputSpectrum:
         """The IF path's spectrum on a bench with a noise source at the DUT RF input: the
         thru passes its noise temperature; the part converts it from the signal and image
-        bands (:func:`sweeprig.sim.noise_source.mixer_output_density_mw`)."""
-        lo = self.lo_input()
+        bands (:func:`sweeprig.sim.noise_source.mixer_output_density_mw`); ``lo``: the
+        tone at the DUT LO port now."""
         gain_db = response.notes.get("conversion_gain_db")
         in_port = getattr(self.part, "input_port", None)
         out_port = getattr(self.part, "output_port", None)
         thru = self.thru_fitted()
+        # the noise source's state as it is when the density is asked for (this spectrum is
+        # kept for its response and channel while the source switches; its wideband noise
+        # below is the one of when it was made)
+        temperature_k = self.input_noise_temperature_k
         part_mw = 10.0 ** (response.if_noise_dbm_per_hz / 10.0)
         converts = (not thru and lo is not None and gain_db is not None
                     and math.isfinite(gain_db) and in_port is not None and out_port is not None
@@ -543,21 +555,21 @@ class SimWorld:
         def at_port_mw(freqs_hz: np.ndarray) -> np.ndarray:
             f = np.asarray(freqs_hz, dtype=float)
             if thru:
-                return density_mw_per_hz(self.input_noise_temperature_k(f))
+                return density_mw_per_hz(temperature_k(f))
             if not converts:
                 return np.full(f.shape, part_mw)
             assert lo is not None and gain_db is not None
             f_s, f_i = lo.freq_hz + f, np.abs(lo.freq_hz - f)
-            mid = 10.0 ** (gain_db / 10.0) * np.asarray(out_port.magnitude(f)) ** 2
+            mid = 10.0 ** (gain_db / 10.0) * _of_frequencies(
+                ("port²", out_port), f, lambda: np.asarray(out_port.magnitude(f)) ** 2)
             g_s = mid * np.asarray(in_port.magnitude(f_s)) ** 2
             g_i = mid * np.asarray(in_port.magnitude(f_i)) ** 2
-            return mixer_output_density_mw(
-                part_mw, self.input_noise_temperature_k(f_s),
-                self.input_noise_temperature_k(f_i), g_s, g_i)
+            return mixer_output_density_mw(part_mw, temperature_k(f_s), temperature_k(f_i),
+                                           g_s, g_i)
 
         def density(freqs_hz: np.ndarray) -> np.ndarray:
             f = np.asarray(freqs_hz, dtype=float)
-            gain = 10.0 ** (-np.broadcast_to(_cable_loss_db(cable, f), f.shape) / 10.0)
+            gain = _cable_gain(cable, f)
             kt0_mw = 10.0 ** (KT0_DBM_PER_HZ / 10.0)
             return 10.0 * np.log10(at_port_mw(f) * gain + kt0_mw * (1.0 - gain))
 
@@ -568,7 +580,8 @@ class SimWorld:
         band_hz = 13.6e9 if corner is None else 0.5 * math.pi * corner
         centre = float(corner) / 2.0 if corner is not None else 1e9
         wide = float(10.0 ** (density(np.array([centre]))[0] / 10.0)) * band_hz
-        return InputSpectrum(lines, density, wideband_noise_dbm=10.0 * math.log10(wide))
+        return InputSpectrum.from_arrays(freq_hz, level_dbm, density,
+                                         wideband_noise_dbm=10.0 * math.log10(wide))
 
     def source_spurs(self, role: str) -> list[tuple[float, float]]:
         """A source's spurious lines at its DUT port: (frequency Hz, power dBm), after its
@@ -578,21 +591,27 @@ class SimWorld:
         if source is None or not source.output_on or not spurious:
             return []
         freq = float(getattr(source, "output_freq_hz", source.freq_hz))
-        path = self._path(role)
         out = []
         for offset_hz, dbc in spurious:
             f = freq + float(offset_hz)
             if f <= 0:
                 continue
-            loss = sum(c.at(f) for c in path)
+            loss = self._spur_losses.get((role, f))  # the path's loss at f, kept
+            if loss is None:
+                if len(self._spur_losses) >= _CACHE_ENTRIES:
+                    self._spur_losses.clear()
+                loss = self._spur_losses[(role, f)] = sum(c.at(f) for c in self._path(role))
             out.append((f, float(source.delivered_power_dbm) + float(dbc) - loss))
         return out
 
     def spur_lines(self, response: MixerResponse) -> list[SpurLine]:
         """Output-port lines made from the sources' spurious outputs (see the module
         docstring), with their seeded phases."""
+        return self._spur_lines(response, self.lo_input())
+
+    def _spur_lines(self, response: MixerResponse, lo: ToneInput | None) -> list[SpurLine]:
+        """:meth:`spur_lines` with the tone at the DUT LO port now (``lo``)."""
         gain_db = response.notes.get("conversion_gain_db")
-        lo = self.lo_input()
         if gain_db is None or not math.isfinite(gain_db) or lo is None:
             return []
         up = getattr(self.part, "conversion", "down") == "up"
@@ -656,10 +675,25 @@ class SimWorld:
         return 10.0 * math.log10(total_mw) if total_mw > 0 else _NO_SIGNAL_DBM
 
     def supply_current_a(self, supply_v: float) -> float:
-        """Current the DUT draws at ``supply_v`` volts, A (the supply's load line)."""
+        """Current the DUT draws at ``supply_v`` volts, A (the supply's load line).
+
+        A part that states its supply current (it depends on the operating point only,
+        never on the tones: ``supply_current_at``) is asked for it at the operating point
+        :meth:`response` would evaluate, which gives the same number as the response's
+        own ``supply_current_a`` without evaluating the response (the supply asks at every
+        reading, before the analyzer's own request evaluates it); another part is
+        evaluated."""
         if supply_v < self.dead_below_v():
             return 0.0
-        return float(self.response(supply_v=supply_v).supply_current_a)
+        current_at = getattr(self.part, "supply_current_at", None)
+        if current_at is None:
+            return float(self.response(supply_v=supply_v).supply_current_a)
+        if self.thru_fitted():
+            return 0.0  # the calibration thru draws nothing (see _thru_response)
+        volts = max(0.0, float(supply_v))
+        temperature = self._rounded(self.probe_temperature_c())
+        used = self._die_temperature_key(None, (), volts, temperature)
+        return float(current_at(OperatingPoint(temperature_c=used, supply_v=volts)))
 
     # --- helpers --------------------------------------------------------------------------
     def _path(self, role: str) -> tuple[CableLoss | LowPassFilter, ...]:
@@ -673,19 +707,26 @@ class SimWorld:
         filt = self.config.source_filter(role)
         return path if filt is None else (filt, *path)
 
-    def _tone_at_port(
-        self, role: str, path: Sequence[CableLoss | LowPassFilter]
-    ) -> ToneInput | None:
+    def _tone_at_port(self, role: str) -> ToneInput | None:
         source = self._sources.get(role)
         if source is None or not source.output_on:
             return None
         # what the source really makes: its setting moved by its reference's error
         freq = float(getattr(source, "output_freq_hz", source.freq_hz))
-        loss = sum(c.at(freq) for c in path)
-        harmonics = tuple(
-            float(h) - (sum(c.at((n + 2) * freq) for c in path) - loss)
-            for n, h in enumerate(source.harmonics_dbc)
-        )
+        made = tuple(source.harmonics_dbc)
+        key = (role, freq, made)
+        hit = self._path_losses.get(key)  # the path's losses at this frequency, kept
+        if hit is None:
+            path = self._path(role)
+            loss = sum(c.at(freq) for c in path)
+            harmonics = tuple(
+                float(h) - (sum(c.at((n + 2) * freq) for c in path) - loss)
+                for n, h in enumerate(made)
+            )
+            if len(self._path_losses) >= _CACHE_ENTRIES:
+                self._path_losses.clear()
+            hit = self._path_losses[key] = (loss, harmonics)
+        loss, harmonics = hit
         return ToneInput(
             freq_hz=freq, power_dbm=float(source.delivered_power_dbm) - loss,
             harmonics_dbc=harmonics,
@@ -739,10 +780,13 @@ def add_coherent_arrays(
     touched: dict[int, complex] = {}  # line index → its amplitude (phase 0) plus extras
     new_f: list[float] = []
     new_a: list[complex] = []
-    for f, amp in extra:
-        hit = np.flatnonzero(np.abs(freq_hz - f) <= tol_hz)
-        if hit.size:
-            k = int(hit[0])
+    # every extra line against every line at once: the first line within reach, or -1
+    near = np.abs(freq_hz[None, :] - np.array([f for f, _ in extra], dtype=float)[:, None]) \
+        <= tol_hz
+    first = np.where(near.any(axis=1), near.argmax(axis=1), -1).tolist() if freq_hz.size \
+        else [-1] * len(extra)
+    for (f, amp), k in zip(extra, first, strict=True):
+        if k >= 0:
             touched[k] = touched.get(k, complex(10.0 ** (level_dbm[k] / 20.0))) + amp
             continue
         for i, f0 in enumerate(new_f):
@@ -789,6 +833,33 @@ def _cable_loss_db(cable: CableLoss, freq_hz: np.ndarray) -> np.ndarray | float:
     return loss
 
 
+#: Arrays that depend on the frequencies alone (a cable's gain, a port's band edges), kept by
+#: the frequencies' bytes: an analyzer asks for the same trace grid and marker frequencies
+#: at every point (the noise density's callers never write to what they get).
+_BY_FREQUENCIES: dict[tuple[object, ...], np.ndarray] = {}
+_BY_FREQUENCIES_ENTRIES = 64  # a 10,001-point grid keeps 160 kB with its key
+
+
+def _of_frequencies(what: tuple[object, ...], freq_hz: np.ndarray,
+                    make: Callable[[], np.ndarray]) -> np.ndarray:
+    """``make()`` for these frequencies (Hz, float array), made once and kept read-only."""
+    key = (what, freq_hz.shape, freq_hz.tobytes())
+    hit = _BY_FREQUENCIES.get(key)
+    if hit is None:
+        hit = np.array(make(), dtype=float)
+        hit.flags.writeable = False
+        if len(_BY_FREQUENCIES) >= _BY_FREQUENCIES_ENTRIES:
+            _BY_FREQUENCIES.clear()
+        _BY_FREQUENCIES[key] = hit
+    return hit
+
+
+def _cable_gain(cable: CableLoss, freq_hz: np.ndarray) -> np.ndarray:
+    """The power gain of ``cable`` (a ratio, ≤ 1) at each frequency (Hz, float array)."""
+    return _of_frequencies(("gain", cable), freq_hz, lambda: 10.0 ** (
+        -np.broadcast_to(_cable_loss_db(cable, freq_hz), freq_hz.shape) / 10.0))
+
+
 @lru_cache(maxsize=64)
 def _spur_phase_law(seed: int, delay_s: float, role: int, index: int) -> tuple[float, float]:
     """(φ0 rad, τ s) of one spur path: φ0 uniform in [0, 2π), τ in [0.2, 1]·delay_s, from
@@ -807,8 +878,7 @@ def _lossy_noise(
 
     def density(freqs_hz: np.ndarray) -> np.ndarray:
         f = np.asarray(freqs_hz, dtype=float)
-        loss_db = np.broadcast_to(_cable_loss_db(cable, f), f.shape)
-        gain = 10.0 ** (-loss_db / 10.0)
+        gain = _cable_gain(cable, f)
         kt0_mw = 10.0 ** (KT0_DBM_PER_HZ / 10.0)
         n_mw = 10.0 ** (density_dbm_per_hz / 10.0) * gain + kt0_mw * (1.0 - gain)
         return 10.0 * np.log10(n_mw)

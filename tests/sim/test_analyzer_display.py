@@ -230,3 +230,33 @@ def test_amplitude_error_shifts_everything() -> None:
     settings = SweepSettings(69e6, 71e6, rbw_hz=10e3, vbw_hz=10e3, attenuation_db=10.0)
     result = simulate_sweep(InputSpectrum(((70e6, -20.0),)), settings, params, _rng())
     assert result.level_at(70e6) == pytest.approx(-19.3, abs=0.01)
+
+
+def test_a_reading_on_a_trace_point_is_the_reading_evaluated_there() -> None:
+    """A marker exactly on a trace point takes the signal and the noise (without reciprocal
+    mixing, which it evaluates at its own frequency) the sweep computed there: the same
+    level as evaluating everything at that one frequency (within a rounding of the
+    vectorised arithmetic), on and off the lines, with a frequency-dependent input noise
+    and a strong line's reciprocal mixing; a reading between points is evaluated there."""
+    settings = SweepSettings.centered(70e6, 20e6, points=1001, rbw_hz=100e3, vbw_hz=100e3)
+
+    def density(f: np.ndarray) -> np.ndarray:
+        return -165.0 + 2.0 * np.sin(np.asarray(f) / 3e6)
+
+    spectrum = InputSpectrum.from_arrays(np.array([70e6, 70.3e6, 75e6]),
+                                         np.array([-5.0, -60.0, -90.0]), density)
+    sweep = simulate_sweep(spectrum, settings, PARAMS, _rng())
+    for freq in (70e6, 70.3e6, 78.4e6, 61.6e6, 76e6, 60e6, 80e6):
+        assert freq in sweep.freqs_hz
+        f = np.array([freq])
+        offset = float(np.interp(freq, sweep.freqs_hz, sweep._noise_offset_db))
+        alone = 10.0 * math.log10(float((sweep._signal_mw(f) + sweep._noise_mw(f)
+                                         * 10.0 ** (offset / 10.0))[0]))
+        assert sweep.level_at(freq) == pytest.approx(alone, rel=1e-12, abs=1e-9)
+    between = 70.01e6 + 1.0  # not a trace point: evaluated at its frequency
+    assert between not in sweep.freqs_hz
+    assert math.isfinite(sweep.level_at(between))
+    # the lines' arrays and their tuples are the same numbers
+    assert spectrum.lines == ((70e6, -5.0), (70.3e6, -60.0), (75e6, -90.0))
+    assert simulate_sweep(InputSpectrum(spectrum.lines, density), settings, PARAMS,
+                          _rng()).trace_dbm.tolist() == sweep.trace_dbm.tolist()

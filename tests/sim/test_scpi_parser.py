@@ -22,6 +22,20 @@ def test_units_split_at_semicolons_outside_quotes_and_parentheses() -> None:
     ]
 
 
+@given(st.text(alphabet="AB:;,() '\"1?*", max_size=40))
+def test_the_quick_split_is_the_character_scan(message: str) -> None:
+    """A message with nothing to stand inside (no quote, no parenthesis) is split at every
+    ';' without scanning it: the same units as the scan gives."""
+    from sweeprig.sim.scpi.parser import _split_outside
+
+    try:
+        units = split_units(message)
+    except ScpiError:
+        assert _split_outside(message, ";")[1]  # only an unterminated string is refused
+        return
+    assert units == _split_outside(message, ";")[0]
+
+
 def test_unterminated_string_is_a_syntax_error() -> None:
     with pytest.raises(ScpiError) as exc:
         split_units('DISP:TEXT "abc')
@@ -44,6 +58,16 @@ def test_malformed_headers_are_syntax_errors(bad: str) -> None:
     with pytest.raises(ScpiError) as exc:
         parse_unit(bad)
     assert _code(exc) == -102
+
+
+def test_a_repeated_unit_is_parsed_once_and_a_bad_one_fails_every_time() -> None:
+    """A controller repeats its marker and status units at every point: the parse of a text
+    is remembered (the same immutable unit), an error is never remembered as a unit."""
+    assert parse_unit(":CALC:MARK1:X 70000000") is parse_unit(":CALC:MARK1:X 70000000")
+    for _ in range(2):
+        with pytest.raises(ScpiError) as exc:
+            parse_unit("FREQ::CW 1")
+        assert _code(exc) == -102
 
 
 def test_relative_path_continues_from_the_previous_branch() -> None:

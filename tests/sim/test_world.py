@@ -218,3 +218,38 @@ def test_the_sensor_reads_the_lo_plane_when_routed_there() -> None:
     parts["switch"].sensor_channel = 5  # type: ignore[attr-defined]
     assert world.sensed_power_dbm() == pytest.approx(3.0)  # the LO's 5 dBm after 2 dB
     assert world.sensed_power_dbm() != pytest.approx(rf_plane)
+
+
+def test_a_part_that_states_its_supply_current_is_not_evaluated_for_it() -> None:
+    """The supply's load line asks a part with ``supply_current_at`` for its current at the
+    operating point the response would use (self-heating included): the response's own
+    number, without an evaluation; the calibration thru and a dead part draw nothing."""
+    from sweeprig.sim.mixer import load_part
+
+    part = load_part("kx-2417")
+    world = SimWorld(part, WorldConfig(self_heating_c_per_w=40.0))
+    parts = {"rf": Source(), "lo": Source(freq_hz=2.33e9, delivered_power_dbm=5.0),
+             "supply": Supply(), "chamber": Chamber(), "switch": Switch()}
+    world.connect(**parts)  # type: ignore[arg-type]
+    for volts in (5.0, 3.3, 2.9):
+        before = world.evaluations
+        current = world.supply_current_a(volts)
+        assert world.evaluations == before
+        assert current == world.response(supply_v=volts).supply_current_a  # bit for bit
+        assert world.evaluations == before + 1
+    assert world.supply_current_a(0.2) == 0.0  # below the dead-mixer voltage
+    parts["switch"].thru = True  # type: ignore[attr-defined]
+    assert world.supply_current_a(5.0) == 0.0 == world.response(supply_v=5.0).supply_current_a
+
+
+def test_repeated_frequencies_reuse_the_path_losses_with_the_same_numbers() -> None:
+    """The losses of a source's path are kept per frequency: stepping a source away and
+    back gives the very same tones at the DUT ports."""
+    cabling = Cabling(rf=CableLoss(1.0, ref_freq_hz=1e9, ripple_db=0.2),
+                      lo=CableLoss(2.0, ref_freq_hz=1e9))
+    world, _, parts = _world(cabling)
+    first = (world.rf_inputs(), world.lo_input())
+    parts["rf"].freq_hz = 2.5e9  # type: ignore[attr-defined]
+    assert world.rf_inputs() != first[0]
+    parts["rf"].freq_hz = 2.4e9  # type: ignore[attr-defined]
+    assert (world.rf_inputs(), world.lo_input()) == first

@@ -189,9 +189,10 @@ class SpectrumAnalyzer(ScpiInstrument):
         if not error:
             return spectrum
         scale = 1.0 / (1.0 + 1e-6 * error)
-        return InputSpectrum(lines=tuple((f * scale, p) for f, p in spectrum.lines),
-                             noise_dbm_per_hz=spectrum.noise_dbm_per_hz,
-                             wideband_noise_dbm=spectrum.wideband_noise_dbm)
+        freq_hz, power_dbm = spectrum.line_arrays()
+        return InputSpectrum.from_arrays(freq_hz * scale, power_dbm,
+                                         noise_dbm_per_hz=spectrum.noise_dbm_per_hz,
+                                         wideband_noise_dbm=spectrum.wideband_noise_dbm)
 
     def questionable_condition(self) -> int:
         bits = self.reference.questionable_bits()

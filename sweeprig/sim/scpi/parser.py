@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import re
 from dataclasses import dataclass
+from functools import lru_cache
 
 from sweeprig.errors import UnitError
 from sweeprig.sim.scpi.errors import ScpiError
@@ -202,8 +203,11 @@ def _split_outside(text: str, separator: str) -> tuple[list[str], str, int]:
 
 def split_units(message: str) -> list[str]:
     """Split a program message at ``;`` outside quotes and parentheses (−102 if unbalanced)."""
-    if ";" not in message and '"' not in message and "'" not in message:
-        return [message]
+    if '"' not in message and "'" not in message:
+        if ";" not in message:
+            return [message]
+        if "(" not in message and ")" not in message:
+            return message.split(";")  # nothing to stand inside: every ';' separates
     units, quote, _depth = _split_outside(message, ";")
     if quote:
         raise ScpiError(-102, "unterminated string")
@@ -226,8 +230,12 @@ def split_params(text: str) -> tuple[Param, ...]:
     return params
 
 
+@lru_cache(maxsize=1024)
 def parse_unit(raw: str) -> ProgramUnit | None:
-    """Parse one message unit; None for an empty unit (``"FREQ 1;"`` ends with one)."""
+    """Parse one message unit; None for an empty unit (``"FREQ 1;"`` ends with one).
+
+    Remembered for the last 1,024 texts (a controller repeats its marker and status units
+    at every point; the unit is immutable, a text that does not parse raises every time)."""
     text = raw.strip()
     if not text:
         return None
