@@ -1007,24 +1007,20 @@ class _FigureTableWriters:
 
     def __init__(self, paths: Mapping[str, Path]) -> None:
         self.paths = paths
-        self._csv: Any = None
         self._csv_file: Any = None
         self._header = True
         self._parquet: Any = None
 
     def __enter__(self) -> _FigureTableWriters:
-        import csv
-
         if "csv" in self.paths:
             self._csv_file = self.paths["csv"].open("w", encoding="utf-8", newline="")
-            self._csv = csv.writer(self._csv_file, lineterminator="\n")
         return self
 
     def write(self, frame: pd.DataFrame) -> None:
         from sweeprig.report.csv_table import write_frame_rows
 
-        if self._csv is not None:
-            write_frame_rows(self._csv, frame, header=self._header)
+        if self._csv_file is not None:
+            write_frame_rows(self._csv_file, frame, header=self._header)
             self._header = False
         if "parquet" in self.paths:
             import pyarrow as pa
