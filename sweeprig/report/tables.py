@@ -475,12 +475,17 @@ class _Stream:
         self.encoded = encoded
 
 
-def _text3(f: Figure) -> str:
-    """``figure_text(f, 3)``, its common case (a number with its uncertainty) spelled out."""
-    value, u = f.value, f.uncertainty_db
-    if f.bound is None and math.isfinite(value) and math.isfinite(u):
-        return f"{value:.3f} ± {u:.3f} {f.unit} (k = {COVERAGE_FACTOR:g})"
-    return figure_text(f, 3)
+def _texts3(figures: Sequence[Figure], table: Mapping[str, np.ndarray]) -> np.ndarray:
+    """``figure_text(f, 3)`` of every figure, its common case (a number with its
+    uncertainty) spelled out from the table's columns (``table``:
+    :func:`~sweeprig.analysis.figure_table.figure_columns` of ``figures``)."""
+    values, us, units = table["value"], table["uncertainty_db"], table["unit"]
+    common = (table["bound"] == "") & np.isfinite(values) & np.isfinite(us)
+    k = f"{COVERAGE_FACTOR:g}"
+    return np.array([f"{v:.3f} ± {u:.3f} {unit} (k = {k})" if ok else figure_text(f, 3)
+                     for v, u, unit, ok, f in zip(values.tolist(), us.tolist(),
+                                                  units.tolist(), common.tolist(), figures,
+                                                  strict=True)], dtype=object)
 
 
 def _document(run: RunFigures, budgets: FigureBudgets,
@@ -905,13 +910,11 @@ def figure_frames(run: RunFigures, budgets: FigureBudgets | None = None,
 def _condition_kinds(run: RunFigures) -> dict[str, bool]:
     """Every condition key of the run's figures in order of first appearance, and whether
     its column is text (``study``, or any key with a text value)."""
+    from sweeprig.analysis.figure_table import distinct_conditions
+
     kinds: dict[str, bool] = {}
-    seen: set[int] = set()
-    for f in run.figures:
-        if id(f.conditions) in seen:
-            continue
-        seen.add(id(f.conditions))
-        for k, v in f.conditions.items():
+    for conditions in distinct_conditions(run.figures)[0]:
+        for k, v in conditions.items():
             kinds[k] = kinds.get(k, False) or k == "study" or isinstance(v, str)
     return kinds
 
@@ -920,37 +923,42 @@ def _figure_rows(run: RunFigures, budgets: FigureBudgets, first: int, stop: int,
                  kinds: Mapping[str, bool], verdicts: Mapping[int, str]) -> pd.DataFrame:
     """Rows ``first`` to ``stop`` of the figure table (see :func:`figures_frame`), with a
     column for every key of ``kinds``; ``verdicts``: :func:`figure_verdicts` of ``run``."""
-    from sweeprig.analysis.figure_table import figure_table
+    from sweeprig.analysis.figure_table import figure_columns
     from sweeprig.analysis.figures import flags_from_mask
 
     figures = run.figures[first:stop]
     # the one builder of a figure table's columns (values, conditions), here made into text
-    table = figure_table(figures)
-    flag_texts = {mask: " ".join(flags_from_mask(mask))
-                  for mask in set(table["flags"].tolist())}
+    _, table = figure_columns(figures)
+    masks = table["flags"].tolist()
+    flag_texts = {mask: " ".join(flags_from_mask(mask)) for mask in set(masks)}
     columns: dict[str, object] = {
         "figure": np.arange(first, stop, dtype=np.int64),
-        "name": table["name"].to_numpy(dtype=object),
-        "value": table["value"].to_numpy(),
-        "unit": table["unit"].to_numpy(dtype=object),
-        "bound": table["bound"].to_numpy(dtype=object),
-        "uncertainty_db": table["uncertainty_db"].to_numpy(),
-        "text": np.array([_text3(f) for f in figures], dtype=object),
+        "name": table["name"],
+        "value": table["value"],
+        "unit": table["unit"],
+        "bound": table["bound"],
+        "uncertainty_db": table["uncertainty_db"],
+        "text": _texts3(figures, table),
         "verdict": np.array([verdicts.get(id(f), "") for f in figures], dtype=object),
-        "flags": np.array([flag_texts[m] for m in table["flags"].tolist()], dtype=object),
+        "flags": np.array([flag_texts[m] for m in masks], dtype=object),
         "points": np.array([" ".join(map(str, p)) for p in table["points"].tolist()],
                            dtype=object),
         # object: whole numbers with empty cells (a list would become floats with NaN)
         "budget": np.array(budgets.ids[first:stop], dtype=object),
     }
     for key, text in kinds.items():
-        if text:
+        column = table.get(key)
+        if column is None:
+            columns[key] = np.full(len(figures), "" if text else np.nan,
+                                   dtype=object if text else float)
+        elif not text:
+            columns[key] = column.astype(float)
+        elif column.dtype == object:
+            columns[key] = column
+        else:
+            # text in the run, numbers only in this slice: as the values themselves read
             columns[key] = np.array(["" if v is None else str(v) for v in
                                      (f.conditions.get(key) for f in figures)], dtype=object)
-        elif key in table.columns:
-            columns[key] = table[key].to_numpy(dtype=float)
-        else:
-            columns[key] = np.full(len(figures), np.nan)
     return pd.DataFrame(columns)
 
 
