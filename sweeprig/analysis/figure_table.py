@@ -106,3 +106,10 @@ def distinct_conditions(figures: Sequence[Figure]
     rank = np.empty_like(order)
     rank[order] = np.arange(order.size)
     return [mappings[i] for i in first[order].tolist()], rank[inverse.ravel()]
+
+
+def condition_mappings(figures: Iterable[Figure]) -> list[Mapping[str, object]]:
+    """The distinct conditions mappings (by identity) of ``figures``, in order of first
+    appearance: what a question about the set of condition values needs to read (the
+    figures of one point share one mapping)."""
+    return list({id(f.conditions): f.conditions for f in figures}.values())

@@ -134,9 +134,10 @@ def datasheet_rows(run: RunFigures) -> list[DatasheetRow]:
         judged.setdefault(id(judgement.figure), []).append(judgement)
     names = list(HEADLINE_FIGURES) + [n for n in dict.fromkeys(li.name for li in run.limits)
                                       if n not in HEADLINE_FIGURES]
+    wanted = frozenset(names)
     groups: dict[tuple[str, str], list[Figure]] = {}
     for figure in run.figures:
-        if figure.name in names:
+        if figure.name in wanted:
             key = (figure.name, str(figure.conditions.get("study", "")))
             groups.setdefault(key, []).append(figure)
     order = {s.name: i for i, s in enumerate(run.studies)}
@@ -222,11 +223,14 @@ def corners_text(figures: Sequence[Figure], conversion: str = "down") -> str:
     (``−40…85 °C, 3.3 V, RF 1.7–2.7 GHz, IF 100 MHz, LO 0 dBm``), in the words of the part's
     ``conversion`` (an upconverter's input is its IF, its output its RF); the LO frequency is
     left out when it follows a swept input or output frequency."""
+    from sweeprig.analysis.figure_table import condition_mappings
+
     parts: list[str] = []
     swept_signal = False
+    mappings = condition_mappings(figures)
     for key in CORNER_KEYS:
-        values = sorted({float(v) for f in figures
-                         if isinstance(v := f.conditions.get(key), int | float)
+        values = sorted({float(v) for c in mappings
+                         if isinstance(v := c.get(key), int | float)
                          and math.isfinite(float(v))})
         if not values:
             continue

@@ -317,10 +317,15 @@ def summary_rows(run: RunFigures, by: Sequence[str] = GROUP_KEYS) -> list[Summar
     for figure in run.figures:
         by_name.setdefault(figure.name, []).append(figure)
     rows: list[SummaryRow] = []
+    # figures of one point share their conditions mapping: its group key is made once
+    group_of: dict[int, tuple[object, ...]] = {}
     for name in names:
         groups: dict[tuple[object, ...], list[Figure]] = {}
         for figure in by_name.get(name, []):
-            key = tuple(figure.conditions.get(k) for k in by)
+            c = figure.conditions
+            key = group_of.get(id(c))
+            if key is None:
+                key = group_of[id(c)] = tuple(c.get(k) for k in by)
             groups.setdefault(key, []).append(figure)
         for members in groups.values():
             rows.append(_summary_row(name, members, judged, run.limits, tuple(by),
@@ -389,12 +394,15 @@ def _summary_row(
 
 def _spread_text(members: list[Figure], by: tuple[str, ...], conversion: str = "down") -> str:
     """The conditions that vary inside a group, as ranges: ``RF 1.7 GHz–2.7 GHz``."""
+    from sweeprig.analysis.figure_table import condition_mappings
+
     parts = []
+    mappings = condition_mappings(members)
     keys = [k for k in ("temperature_c", "supply_v") if k not in by]
     for key in (*keys, "rf_freq_hz", "output_freq_hz", "lo_freq_hz", "lo_power_dbm",
                 "rf_power_dbm"):
-        values = sorted({float(f.conditions[key]) for f in members
-                         if isinstance(f.conditions.get(key), int | float)})
+        values = sorted({float(c[key]) for c in mappings
+                         if isinstance(c.get(key), int | float)})
         if len(values) > 1:
             if key == "lo_freq_hz" and any("rf_freq_hz" in p for p in parts):
                 continue
@@ -404,7 +412,7 @@ def _spread_text(members: list[Figure], by: tuple[str, ...], conversion: str = "
                 parts.append(f"{low}…{high}")
             else:
                 parts.append(f"{low}–{high.split(' ', 1)[1]}")
-    if any("m" in f.conditions for f in members):
+    if any("m" in c for c in mappings):
         parts.append("the m×n products")
     return ", ".join(parts)
 
