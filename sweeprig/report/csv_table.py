@@ -17,6 +17,7 @@ from __future__ import annotations
 import csv
 import io
 import math
+import re
 from pathlib import Path
 from typing import TextIO
 
@@ -26,9 +27,21 @@ import pandas as pd
 #: Rows formatted per chunk: bounds the strings held at once.
 CHUNK_ROWS = 20_000
 
-#: Characters that may make the csv writer quote a cell (a superset: such cells are
-#: formatted by the csv writer itself, so its exact rule decides).
-_SPECIAL = (",", '"', "\n", "\r")
+def _quote_triggers() -> str:
+    """The characters that make the csv writer (minimal quoting, ``\\n`` line ends, the
+    dialect pandas uses) quote a cell, asked of the writer itself once: its rule has changed
+    between Python versions (a lone ``\\r``)."""
+    triggers = ""
+    for ch in (",", '"', "\n", "\r"):
+        buffer = io.StringIO()
+        csv.writer(buffer, lineterminator="\n").writerow([f"a{ch}b", ""])
+        if buffer.getvalue().startswith('"'):
+            triggers += ch
+    return triggers
+
+
+#: A cell holding one of these is quoted: in double quotes, its quotes doubled.
+_NEEDS_QUOTES = re.compile("[" + re.escape(_quote_triggers()) + "]").search
 
 
 def _float_texts(values: np.ndarray) -> list[str]:
@@ -36,8 +49,8 @@ def _float_texts(values: np.ndarray) -> list[str]:
         # condition columns repeat a few values: format each distinct value once
         distinct, inverse = np.unique(values, return_inverse=True)
         if distinct.size * 4 < values.size:
-            texts = _float_texts(distinct)
-            return [texts[i] for i in inverse.ravel().tolist()]
+            texts = np.array(_float_texts(distinct), dtype=object)
+            return texts[inverse.ravel()].tolist()
     texts = list(map(repr, values.tolist()))
     missing = np.flatnonzero(np.isnan(values))
     for i in missing.tolist():
@@ -46,6 +59,11 @@ def _float_texts(values: np.ndarray) -> list[str]:
 
 
 def _object_texts(values: list[object]) -> list[str]:
+    kinds = set(map(type, values))
+    if kinds <= {str}:
+        return values  # type: ignore[return-value]  # every cell is text already
+    if kinds <= {str, type(None)}:
+        return ["" if v is None else v for v in values]  # type: ignore[misc]
     out: list[str] = []
     append = out.append
     for v in values:
@@ -86,19 +104,16 @@ def column_texts(column: pd.Series) -> list[str]:
 
 def _quote_cell(text: str) -> str:
     """``text`` as the csv writer writes it as one of several cells of a row."""
-    buffer = io.StringIO()
-    csv.writer(buffer, lineterminator="\n").writerow([text, ""])
-    return buffer.getvalue()[:-2]
+    if _NEEDS_QUOTES(text) is None:
+        return text
+    return '"' + text.replace('"', '""') + '"'
 
 
 def _quoted(texts: list[str], may_need: bool) -> list[str]:
     """``texts`` with every cell the csv writer would quote quoted as it would."""
-    if not may_need:
+    if not may_need or _NEEDS_QUOTES("".join(texts)) is None:
         return texts
-    joined = "".join(texts)
-    if not any(ch in joined for ch in _SPECIAL):
-        return texts
-    return [_quote_cell(t) if any(ch in t for ch in _SPECIAL) else t for t in texts]
+    return list(map(_quote_cell, texts))
 
 
 def _may_need_quotes(column: pd.Series) -> bool:
@@ -130,8 +145,7 @@ def write_frame_rows(out: TextIO, frame: pd.DataFrame, *, header: bool,
 
 
 def _header_cell(name: object) -> str:
-    text = str(name)
-    return _quote_cell(text) if any(ch in text for ch in _SPECIAL) else text
+    return _quote_cell(str(name))
 
 
 def _rows_text(columns: list[list[str]]) -> str:
