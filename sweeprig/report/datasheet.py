@@ -37,6 +37,7 @@ from sweeprig.report.tables import (
     HEADLINE_FIGURES,
     NO_LIMIT,
     figure_label,
+    flag_tally,
     format_condition,
     limit_text,
 )
@@ -163,16 +164,21 @@ def corner_figures(name: str, figures: Sequence[Figure]) -> list[Figure]:
 def nominal(figures: Sequence[Figure]) -> list[Figure]:
     """The figures at the nominal corner: temperature nearest :data:`ROOM_C`, the middle
     supply and the middle LO drive of those present (lower middle of an even count)."""
+    from sweeprig.analysis.figure_table import condition_mappings
+
     chosen = list(figures)
     for key in ("temperature_c", "supply_v", "lo_power_dbm"):
-        values = sorted({float(v) for f in chosen
-                         if isinstance(v := f.conditions.get(key), int | float)
+        # decided once per distinct conditions mapping (the figures of a point share one)
+        mappings = condition_mappings(chosen)
+        values = sorted({float(v) for c in mappings
+                         if isinstance(v := c.get(key), int | float)
                          and math.isfinite(float(v))})
         if not values:
             continue
         pick = (min(values, key=lambda t: (abs(t - ROOM_C), t)) if key == "temperature_c"
                 else values[(len(values) - 1) // 2])
-        chosen = [f for f in chosen if _close(f.conditions.get(key), pick)]
+        kept = {id(c) for c in mappings if _close(c.get(key), pick)}
+        chosen = [f for f in chosen if id(f.conditions) in kept]
     return chosen
 
 
@@ -195,10 +201,7 @@ def _row(name: str, study: str, members: list[Figure], judged: Mapping[int, list
     if not limits:
         limits = [limit_text(li) for li in run.limits if li.name == name
                   and li.conditions.get("study", study) == study]
-    flag_counts: dict[str, int] = {}
-    for figure in members:
-        for flag in figure.flags:
-            flag_counts[flag] = flag_counts.get(flag, 0) + 1
+    flag_counts = flag_tally(members)
     return DatasheetRow(
         name=name,
         label=figure_label(name),

@@ -365,10 +365,7 @@ def _summary_row(
     applying = list(dict.fromkeys(limit_text(j.limit) for j in judgements))
     if not applying:
         applying = [limit_text(li) for li in limits if li.name == name and not li.conditions]
-    counts: dict[str, int] = {}
-    for figure in members:
-        for flag in figure.flags:
-            counts[flag] = counts.get(flag, 0) + 1
+    counts = flag_tally(members)
     flags = tuple((f, counts[f]) for f in FLAGS if f in counts)
     value_text = figure_text(shown, 2)
     if len(members) > 1 and (name in HIGHER_IS_BETTER or name in LOWER_IS_BETTER
@@ -390,6 +387,18 @@ def _summary_row(
         figure=shown,
         points=shown.points,
     )
+
+
+def flag_tally(figures: Iterable[Figure]) -> dict[str, int]:
+    """How many of ``figures`` carry each flag (flags nobody carries left out); counted
+    once per distinct flag set."""
+    from collections import Counter
+
+    counts: dict[str, int] = {}
+    for flags, count in Counter(f.flags for f in figures).items():
+        for flag in flags:
+            counts[flag] = counts.get(flag, 0) + count
+    return counts
 
 
 def _spread_text(members: list[Figure], by: tuple[str, ...], conversion: str = "down") -> str:
