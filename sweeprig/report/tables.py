@@ -929,11 +929,23 @@ def _condition_kinds(run: RunFigures) -> dict[str, bool]:
     its column is text (``study``, or any key with a text value)."""
     from sweeprig.analysis.figure_table import distinct_conditions
 
-    kinds: dict[str, bool] = {}
-    for conditions in distinct_conditions(run.figures)[0]:
-        for k, v in conditions.items():
-            kinds[k] = kinds.get(k, False) or k == "study" or isinstance(v, str)
-    return kinds
+    mappings = distinct_conditions(run.figures)[0]
+    text = {k for c in mappings for k, v in c.items() if isinstance(v, str)}
+    return {k: k == "study" or k in text
+            for keys in dict.fromkeys(map(tuple, mappings)) for k in keys}
+
+
+def _points_texts(points: list[tuple[int, ...]]) -> np.ndarray:
+    """Each figure's run-store point indices, space-separated; a tuple met before (the
+    figures of one point or one curve share theirs) is joined once."""
+    texts: dict[tuple[int, ...], str] = {}
+    out = np.empty(len(points), dtype=object)
+    for i, p in enumerate(points):
+        text = texts.get(p)
+        if text is None:
+            text = texts[p] = " ".join(map(str, p))
+        out[i] = text
+    return out
 
 
 def _figure_rows(run: RunFigures, budgets: FigureBudgets, first: int, stop: int,
@@ -958,8 +970,7 @@ def _figure_rows(run: RunFigures, budgets: FigureBudgets, first: int, stop: int,
         "text": _texts3(figures, table),
         "verdict": np.array([verdicts.get(id(f), "") for f in figures], dtype=object),
         "flags": np.array([flag_texts[m] for m in masks], dtype=object),
-        "points": np.array([" ".join(map(str, p)) for p in table["points"].tolist()],
-                           dtype=object),
+        "points": _points_texts(table["points"].tolist()),
         # object: whole numbers with empty cells (a list would become floats with NaN)
         "budget": np.array(budgets.ids[first:stop], dtype=object),
     }
