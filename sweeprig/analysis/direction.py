@@ -41,6 +41,7 @@ from sweeprig.analysis.figures import (
     Figure,
     make_figures,
     with_changes,
+    with_conditions,
 )
 
 if TYPE_CHECKING:
@@ -76,26 +77,20 @@ def with_output_frequency(figures: Sequence[Figure], orders: tuple[int, int] | N
     """Each figure whose conditions hold ``lo_freq_hz`` and ``rf_freq_hz`` (the input) gains
     ``output_freq_hz`` = |m·f_LO + n·f_in| for the wanted product's (m, n) ``orders``
     (default (1, −1)): the axis a datasheet plots gain against."""
+    from sweeprig.analysis.figure_table import distinct_conditions
+
     m, n = orders if orders is not None else (1, -1)
-    out: list[Figure] = []
     # Figures of one point share one conditions mapping (the analysis makes it once per
-    # point): they share the extended one too, rather than a copy each.
-    extended: dict[int, tuple[Mapping[str, float | int | str], Mapping[str, float | int | str]]]
-    extended = {}
-    for f in figures:
-        c = f.conditions
-        made = extended.get(id(c))
-        if made is not None and made[0] is c:
-            out.append(with_changes(f, conditions=made[1]))
-            continue
+    # point): each distinct one is extended once, and its figures share the extended one.
+    distinct, which = distinct_conditions(figures)
+    extended = np.empty(len(distinct), dtype=object)
+    for i, c in enumerate(distinct):
         lo, rf = c.get("lo_freq_hz"), c.get("rf_freq_hz")
         if OUTPUT_FREQ in c or not isinstance(lo, float | int) or not isinstance(rf, float | int):
-            out.append(f)
             continue
-        cond = MappingProxyType({**c, OUTPUT_FREQ: float(abs(m * lo + n * rf))})
-        extended[id(c)] = (c, cond)
-        out.append(with_changes(f, conditions=cond))
-    return out
+        extended[i] = MappingProxyType({**c, OUTPUT_FREQ: float(abs(m * lo + n * rf))})
+    return [f if cond is None else with_conditions(f, cond)
+            for f, cond in zip(figures, extended[which].tolist(), strict=True)]
 
 
 def upconverter_figures(

@@ -123,25 +123,39 @@ def captures_from_frames(
     _require(readings, _READING_NEEDS, "readings")
     if readings.empty:
         return _empty()
-    name = readings["name"].astype(str)
-    kind = readings["kind"].astype(str)
+    # A run repeats a few reading names and kinds over every point: the text work is done
+    # once per distinct name or kind and spread by its code.
+    name_code, names = pd.factorize(readings["name"].astype(str))
+    kind_code, kinds = pd.factorize(readings["kind"].astype(str))
+    distinct = pd.Series(np.asarray(names, dtype=object), dtype=object)
     check = readings.get("attenuation_check")
-    repeat = name.str.endswith(REPEAT_SUFFIX).to_numpy(dtype=bool, copy=True)
+    repeated_name = distinct.str.endswith(REPEAT_SUFFIX).to_numpy(dtype=bool)
+    repeat = repeated_name[name_code]
     if check is not None:
         repeat |= check.fillna(False).to_numpy(dtype=bool)
-    base = name.where(~name.str.endswith(REPEAT_SUFFIX), name.str[: -len(REPEAT_SUFFIX)])
-    suffix = base.str.rsplit(".", n=1).str[-1]
+    base = distinct.where(~repeated_name, distinct.str[: -len(REPEAT_SUFFIX)])
+    suffix = base.str.rsplit(".", n=1).str[-1].to_numpy(dtype=object)
     m = pd.to_numeric(readings["m"], errors="coerce").to_numpy(dtype=float, na_value=np.nan)
     n = pd.to_numeric(readings["n"], errors="coerce").to_numpy(dtype=float, na_value=np.nan)
+    kind_texts = np.asarray(kinds, dtype=object)
 
-    tone2 = (kind == "wanted") & base.str.endswith(TONE2_SUFFIX)
+    def kind_is(text: str) -> np.ndarray:
+        return (kind_texts == text)[kind_code]
+
+    wanted = kind_is("wanted")
+    tone2 = wanted & base.str.endswith(TONE2_SUFFIX).to_numpy(dtype=bool)[name_code]
     if wanted_orders is None:
-        wanted_orders = _wanted_orders(kind == "wanted", tone2, m, n)
-    reading = kind.map(DIRECT_KINDS).astype(object)
+        wanted_orders = _wanted_orders(wanted, tone2, m, n)
+    direct = np.array([DIRECT_KINDS.get(k, np.nan) for k in kind_texts.tolist()],
+                      dtype=object)
+    reading = pd.Series(direct[kind_code], index=readings.index, dtype=object)
     reading = reading.where(~tone2, TONE2_READING)
     for (product_kind, end), short in PRODUCT_SUFFIXES.items():
-        reading = reading.where(~((kind == product_kind) & (suffix == end)), short)
-    mxn = (kind == "mxn").to_numpy()
+        ends = (suffix == end)[name_code]
+        reading = reading.where(~(kind_is(product_kind) & ends), short)
+    name = np.asarray(names, dtype=object)[name_code]
+    kind = kind_texts[kind_code]
+    mxn = kind_is("mxn")
     is_wanted_product = mxn & (m == wanted_orders[0]) & (n == wanted_orders[1])
     reading = reading.where(~pd.Series(mxn & ~is_wanted_product, index=reading.index), "spur")
     # The mxn reading of the wanted product stands in for "if" only where the point has no
@@ -165,8 +179,8 @@ def captures_from_frames(
         "atten_check": repeat[keep],
         "attenuation_db": rows["attenuation_db"].to_numpy(dtype=float, na_value=np.nan),
         "reading_no": rows["reading_no"].to_numpy(dtype=np.int64),
-        "source_name": name[keep].to_numpy(dtype=object),
-        "kind": kind[keep].to_numpy(dtype=object),
+        "source_name": name[keep],
+        "kind": kind[keep],
         "port": rows["port"].astype(str).to_numpy(dtype=object),
         "rbw_hz": (rows["rbw_hz"].to_numpy(dtype=float, na_value=np.nan)
                    if "rbw_hz" in rows else np.full(len(rows), np.nan)),
@@ -266,12 +280,12 @@ def _current_from_extra(text: object, fallback: float) -> float:
 
 
 def _wanted_orders(
-    wanted: pd.Series, tone2: pd.Series, m: np.ndarray, n: np.ndarray
+    wanted: np.ndarray, tone2: np.ndarray, m: np.ndarray, n: np.ndarray
 ) -> tuple[int, int]:
     """The most common stored (m, n) of tone-1 ``wanted`` readings; (1, −1) if none."""
     import pandas as pd
 
-    rows = (wanted & ~tone2).to_numpy() & np.isfinite(m) & np.isfinite(n)
+    rows = wanted & ~tone2 & np.isfinite(m) & np.isfinite(n)
     if not rows.any():
         return DEFAULT_WANTED_ORDERS
     pairs = pd.Series(list(zip(m[rows].astype(int).tolist(), n[rows].astype(int).tolist(),

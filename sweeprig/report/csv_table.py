@@ -1,13 +1,15 @@
 """A table written as CSV column by column, in chunks of rows: :func:`write_frame_csv`.
 
-``DataFrame.to_csv`` formats every cell through pandas' block machinery (a large run's two
-tables hold millions of cells: seconds of the report). Here each column of a chunk becomes a
-list of strings at once (a float by ``repr``, the shortest text that reads back to the same
-number, as pandas writes it; NaN, None and NaT as an empty field; ints and bools by ``str``)
-and the standard :mod:`csv` writer (in C, minimal quoting, the same dialect pandas uses)
-joins them. The text is what ``to_csv(path, index=False)`` writes for these column types
-(``tests/report/test_csv_table.py`` compares them); any other column type is formatted by
-pandas itself, a chunk at a time.
+``DataFrame.to_csv`` formats every cell through pandas' block machinery, and the standard
+:mod:`csv` writer still looks at every character of every cell (a large run's tables hold
+millions of cells: seconds of the report). Here each column of a chunk becomes a list of
+strings at once (a float by ``repr``, the shortest text that reads back to the same number,
+as pandas writes it; NaN, None and NaT as an empty field; ints and bools by ``str``), only
+the text cells that hold a delimiter, a quote or a line break go through the :mod:`csv`
+writer (minimal quoting, the dialect pandas uses), and each chunk is joined into one text
+and written at once. The text is what ``to_csv(path, index=False)`` writes for these column
+types (``tests/report/test_csv_table.py`` compares them); any other column type is
+formatted by pandas itself, a chunk at a time.
 """
 
 from __future__ import annotations
@@ -15,8 +17,9 @@ from __future__ import annotations
 import csv
 import io
 import math
+import re
 from pathlib import Path
-from typing import Any
+from typing import TextIO
 
 import numpy as np
 import pandas as pd
@@ -24,18 +27,43 @@ import pandas as pd
 #: Rows formatted per chunk: bounds the strings held at once.
 CHUNK_ROWS = 20_000
 
+def _quote_triggers() -> str:
+    """The characters that make the csv writer (minimal quoting, ``\\n`` line ends, the
+    dialect pandas uses) quote a cell, asked of the writer itself once: its rule has changed
+    between Python versions (a lone ``\\r``)."""
+    triggers = ""
+    for ch in (",", '"', "\n", "\r"):
+        buffer = io.StringIO()
+        csv.writer(buffer, lineterminator="\n").writerow([f"a{ch}b", ""])
+        if buffer.getvalue().startswith('"'):
+            triggers += ch
+    return triggers
+
+
+#: A cell holding one of these is quoted: in double quotes, its quotes doubled.
+_NEEDS_QUOTES = re.compile("[" + re.escape(_quote_triggers()) + "]").search
+
 
 def _float_texts(values: np.ndarray) -> list[str]:
     if values.size > 64:
         # condition columns repeat a few values: format each distinct value once
         distinct, inverse = np.unique(values, return_inverse=True)
         if distinct.size * 4 < values.size:
-            texts = _float_texts(distinct)
-            return [texts[i] for i in inverse.ravel().tolist()]
-    return ["" if v != v else repr(v) for v in values.tolist()]
+            texts = np.array(_float_texts(distinct), dtype=object)
+            return texts[inverse.ravel()].tolist()
+    texts = list(map(repr, values.tolist()))
+    missing = np.flatnonzero(np.isnan(values))
+    for i in missing.tolist():
+        texts[i] = ""
+    return texts
 
 
 def _object_texts(values: list[object]) -> list[str]:
+    kinds = set(map(type, values))
+    if kinds <= {str}:
+        return values  # type: ignore[return-value]  # every cell is text already
+    if kinds <= {str, type(None)}:
+        return ["" if v is None else v for v in values]  # type: ignore[misc]
     out: list[str] = []
     append = out.append
     for v in values:
@@ -51,7 +79,8 @@ def _object_texts(values: list[object]) -> list[str]:
 
 
 def column_texts(column: pd.Series) -> list[str]:
-    """The cells of ``column`` as ``to_csv`` writes them (see the module docstring)."""
+    """The cells of ``column`` as ``to_csv`` writes them before quoting (see the module
+    docstring)."""
     dtype = column.dtype
     if isinstance(dtype, np.dtype):
         if dtype.kind == "f":
@@ -66,29 +95,65 @@ def column_texts(column: pd.Series) -> list[str]:
         return column.to_numpy(dtype=object, na_value="").tolist()
     if pd.api.types.is_string_dtype(dtype):
         return _object_texts(column.tolist())
-    # anything else (dates, categories, nullable types): pandas' own formatting
+    # anything else (dates, categories, nullable types): pandas' own formatting, read back
+    # as cell texts (quoted again on the way out, as the csv writer would)
     text = column.to_frame().to_csv(index=False, header=False, lineterminator="\n")
     rows = list(csv.reader(io.StringIO(text, newline="")))
     return [r[0] if r else "" for r in rows]
+
+
+def _quote_cell(text: str) -> str:
+    """``text`` as the csv writer writes it as one of several cells of a row."""
+    if _NEEDS_QUOTES(text) is None:
+        return text
+    return '"' + text.replace('"', '""') + '"'
+
+
+def _quoted(texts: list[str], may_need: bool) -> list[str]:
+    """``texts`` with every cell the csv writer would quote quoted as it would."""
+    if not may_need or _NEEDS_QUOTES("".join(texts)) is None:
+        return texts
+    return list(map(_quote_cell, texts))
+
+
+def _may_need_quotes(column: pd.Series) -> bool:
+    kind = column.dtype.kind if isinstance(column.dtype, np.dtype) else "O"
+    return kind not in "iufb"
 
 
 def write_frame_csv(frame: pd.DataFrame, path: Path, chunk_rows: int = CHUNK_ROWS) -> Path:
     """Write ``frame`` (no index) to ``path`` as CSV, ``chunk_rows`` rows at a time. OSError
     propagates (the caller names the file)."""
     with path.open("w", encoding="utf-8", newline="") as out:
-        write_frame_rows(csv.writer(out, lineterminator="\n"), frame, header=True,
-                         chunk_rows=chunk_rows)
+        write_frame_rows(out, frame, header=True, chunk_rows=chunk_rows)
     return path
 
 
-def write_frame_rows(writer: Any, frame: pd.DataFrame, *, header: bool,
+def write_frame_rows(out: TextIO, frame: pd.DataFrame, *, header: bool,
                      chunk_rows: int = CHUNK_ROWS) -> None:
-    """Write ``frame``'s rows (and its header first when ``header``) through ``writer`` (a
-    :func:`csv.writer`), ``chunk_rows`` rows at a time: a table written in slices is the
-    same text as written whole."""
+    """Write ``frame``'s rows as CSV text to ``out`` (a text file opened with
+    ``newline=""``), its header first when ``header``, ``chunk_rows`` rows at a time: a
+    table written in slices is the same text as written whole."""
     if header:
-        writer.writerow([str(c) for c in frame.columns])
+        out.write(_rows_text([[_header_cell(c)] for c in frame.columns]))
+    quote = [_may_need_quotes(frame.iloc[:, i]) for i in range(frame.shape[1])]
     for start in range(0, len(frame), chunk_rows):
         chunk = frame.iloc[start:start + chunk_rows]
-        columns = [column_texts(chunk.iloc[:, i]) for i in range(chunk.shape[1])]
-        writer.writerows(zip(*columns, strict=True))
+        columns = [_quoted(column_texts(chunk.iloc[:, i]), quote[i])
+                   for i in range(chunk.shape[1])]
+        out.write(_rows_text(columns))
+
+
+def _header_cell(name: object) -> str:
+    return _quote_cell(str(name))
+
+
+def _rows_text(columns: list[list[str]]) -> str:
+    """Columns of cell texts (quoted already, of equal length) as CSV lines, joined row by
+    row in C (no tuple per row is kept); a row of one empty cell is ``""``, as the csv
+    writer writes it, so the line is not read back as no row."""
+    if not columns or not columns[0]:
+        return ""
+    if len(columns) == 1:
+        return "\n".join(t or '""' for t in columns[0]) + "\n"
+    return "\n".join(map(",".join, zip(*columns, strict=True))) + "\n"

@@ -37,6 +37,7 @@ from sweeprig.report.tables import (
     HEADLINE_FIGURES,
     NO_LIMIT,
     figure_label,
+    flag_tally,
     format_condition,
     limit_text,
 )
@@ -134,9 +135,10 @@ def datasheet_rows(run: RunFigures) -> list[DatasheetRow]:
         judged.setdefault(id(judgement.figure), []).append(judgement)
     names = list(HEADLINE_FIGURES) + [n for n in dict.fromkeys(li.name for li in run.limits)
                                       if n not in HEADLINE_FIGURES]
+    wanted = frozenset(names)
     groups: dict[tuple[str, str], list[Figure]] = {}
     for figure in run.figures:
-        if figure.name in names:
+        if figure.name in wanted:
             key = (figure.name, str(figure.conditions.get("study", "")))
             groups.setdefault(key, []).append(figure)
     order = {s.name: i for i, s in enumerate(run.studies)}
@@ -162,16 +164,21 @@ def corner_figures(name: str, figures: Sequence[Figure]) -> list[Figure]:
 def nominal(figures: Sequence[Figure]) -> list[Figure]:
     """The figures at the nominal corner: temperature nearest :data:`ROOM_C`, the middle
     supply and the middle LO drive of those present (lower middle of an even count)."""
+    from sweeprig.analysis.figure_table import condition_mappings
+
     chosen = list(figures)
     for key in ("temperature_c", "supply_v", "lo_power_dbm"):
-        values = sorted({float(v) for f in chosen
-                         if isinstance(v := f.conditions.get(key), int | float)
+        # decided once per distinct conditions mapping (the figures of a point share one)
+        mappings = condition_mappings(chosen)
+        values = sorted({float(v) for c in mappings
+                         if isinstance(v := c.get(key), int | float)
                          and math.isfinite(float(v))})
         if not values:
             continue
         pick = (min(values, key=lambda t: (abs(t - ROOM_C), t)) if key == "temperature_c"
                 else values[(len(values) - 1) // 2])
-        chosen = [f for f in chosen if _close(f.conditions.get(key), pick)]
+        kept = {id(c) for c in mappings if _close(c.get(key), pick)}
+        chosen = [f for f in chosen if id(f.conditions) in kept]
     return chosen
 
 
@@ -194,10 +201,7 @@ def _row(name: str, study: str, members: list[Figure], judged: Mapping[int, list
     if not limits:
         limits = [limit_text(li) for li in run.limits if li.name == name
                   and li.conditions.get("study", study) == study]
-    flag_counts: dict[str, int] = {}
-    for figure in members:
-        for flag in figure.flags:
-            flag_counts[flag] = flag_counts.get(flag, 0) + 1
+    flag_counts = flag_tally(members)
     return DatasheetRow(
         name=name,
         label=figure_label(name),
@@ -222,11 +226,14 @@ def corners_text(figures: Sequence[Figure], conversion: str = "down") -> str:
     (``−40…85 °C, 3.3 V, RF 1.7–2.7 GHz, IF 100 MHz, LO 0 dBm``), in the words of the part's
     ``conversion`` (an upconverter's input is its IF, its output its RF); the LO frequency is
     left out when it follows a swept input or output frequency."""
+    from sweeprig.analysis.figure_table import condition_mappings
+
     parts: list[str] = []
     swept_signal = False
+    mappings = condition_mappings(figures)
     for key in CORNER_KEYS:
-        values = sorted({float(v) for f in figures
-                         if isinstance(v := f.conditions.get(key), int | float)
+        values = sorted({float(v) for c in mappings
+                         if isinstance(v := c.get(key), int | float)
                          and math.isfinite(float(v))})
         if not values:
             continue

@@ -317,10 +317,15 @@ def summary_rows(run: RunFigures, by: Sequence[str] = GROUP_KEYS) -> list[Summar
     for figure in run.figures:
         by_name.setdefault(figure.name, []).append(figure)
     rows: list[SummaryRow] = []
+    # figures of one point share their conditions mapping: its group key is made once
+    group_of: dict[int, tuple[object, ...]] = {}
     for name in names:
         groups: dict[tuple[object, ...], list[Figure]] = {}
         for figure in by_name.get(name, []):
-            key = tuple(figure.conditions.get(k) for k in by)
+            c = figure.conditions
+            key = group_of.get(id(c))
+            if key is None:
+                key = group_of[id(c)] = tuple(c.get(k) for k in by)
             groups.setdefault(key, []).append(figure)
         for members in groups.values():
             rows.append(_summary_row(name, members, judged, run.limits, tuple(by),
@@ -360,10 +365,7 @@ def _summary_row(
     applying = list(dict.fromkeys(limit_text(j.limit) for j in judgements))
     if not applying:
         applying = [limit_text(li) for li in limits if li.name == name and not li.conditions]
-    counts: dict[str, int] = {}
-    for figure in members:
-        for flag in figure.flags:
-            counts[flag] = counts.get(flag, 0) + 1
+    counts = flag_tally(members)
     flags = tuple((f, counts[f]) for f in FLAGS if f in counts)
     value_text = figure_text(shown, 2)
     if len(members) > 1 and (name in HIGHER_IS_BETTER or name in LOWER_IS_BETTER
@@ -387,14 +389,29 @@ def _summary_row(
     )
 
 
+def flag_tally(figures: Iterable[Figure]) -> dict[str, int]:
+    """How many of ``figures`` carry each flag (flags nobody carries left out); counted
+    once per distinct flag set."""
+    from collections import Counter
+
+    counts: dict[str, int] = {}
+    for flags, count in Counter(f.flags for f in figures).items():
+        for flag in flags:
+            counts[flag] = counts.get(flag, 0) + count
+    return counts
+
+
 def _spread_text(members: list[Figure], by: tuple[str, ...], conversion: str = "down") -> str:
     """The conditions that vary inside a group, as ranges: ``RF 1.7 GHz–2.7 GHz``."""
+    from sweeprig.analysis.figure_table import condition_mappings
+
     parts = []
+    mappings = condition_mappings(members)
     keys = [k for k in ("temperature_c", "supply_v") if k not in by]
     for key in (*keys, "rf_freq_hz", "output_freq_hz", "lo_freq_hz", "lo_power_dbm",
                 "rf_power_dbm"):
-        values = sorted({float(f.conditions[key]) for f in members
-                         if isinstance(f.conditions.get(key), int | float)})
+        values = sorted({float(c[key]) for c in mappings
+                         if isinstance(c.get(key), int | float)})
         if len(values) > 1:
             if key == "lo_freq_hz" and any("rf_freq_hz" in p for p in parts):
                 continue
@@ -404,7 +421,7 @@ def _spread_text(members: list[Figure], by: tuple[str, ...], conversion: str = "
                 parts.append(f"{low}…{high}")
             else:
                 parts.append(f"{low}–{high.split(' ', 1)[1]}")
-    if any("m" in f.conditions for f in members):
+    if any("m" in c for c in mappings):
         parts.append("the m×n products")
     return ", ".join(parts)
 
@@ -475,12 +492,17 @@ class _Stream:
         self.encoded = encoded
 
 
-def _text3(f: Figure) -> str:
-    """``figure_text(f, 3)``, its common case (a number with its uncertainty) spelled out."""
-    value, u = f.value, f.uncertainty_db
-    if f.bound is None and math.isfinite(value) and math.isfinite(u):
-        return f"{value:.3f} ± {u:.3f} {f.unit} (k = {COVERAGE_FACTOR:g})"
-    return figure_text(f, 3)
+def _texts3(figures: Sequence[Figure], table: Mapping[str, np.ndarray]) -> np.ndarray:
+    """``figure_text(f, 3)`` of every figure, its common case (a number with its
+    uncertainty) spelled out from the table's columns (``table``:
+    :func:`~sweeprig.analysis.figure_table.figure_columns` of ``figures``)."""
+    values, us, units = table["value"], table["uncertainty_db"], table["unit"]
+    common = (table["bound"] == "") & np.isfinite(values) & np.isfinite(us)
+    k = f"{COVERAGE_FACTOR:g}"
+    return np.array([f"{v:.3f} ± {u:.3f} {unit} (k = {k})" if ok else figure_text(f, 3)
+                     for v, u, unit, ok, f in zip(values.tolist(), us.tolist(),
+                                                  units.tolist(), common.tolist(), figures,
+                                                  strict=True)], dtype=object)
 
 
 def _document(run: RunFigures, budgets: FigureBudgets,
@@ -905,52 +927,66 @@ def figure_frames(run: RunFigures, budgets: FigureBudgets | None = None,
 def _condition_kinds(run: RunFigures) -> dict[str, bool]:
     """Every condition key of the run's figures in order of first appearance, and whether
     its column is text (``study``, or any key with a text value)."""
-    kinds: dict[str, bool] = {}
-    seen: set[int] = set()
-    for f in run.figures:
-        if id(f.conditions) in seen:
-            continue
-        seen.add(id(f.conditions))
-        for k, v in f.conditions.items():
-            kinds[k] = kinds.get(k, False) or k == "study" or isinstance(v, str)
-    return kinds
+    from sweeprig.analysis.figure_table import distinct_conditions
+
+    mappings = distinct_conditions(run.figures)[0]
+    text = {k for c in mappings for k, v in c.items() if isinstance(v, str)}
+    return {k: k == "study" or k in text
+            for keys in dict.fromkeys(map(tuple, mappings)) for k in keys}
+
+
+def _points_texts(points: list[tuple[int, ...]]) -> np.ndarray:
+    """Each figure's run-store point indices, space-separated; a tuple met before (the
+    figures of one point or one curve share theirs) is joined once."""
+    texts: dict[tuple[int, ...], str] = {}
+    out = np.empty(len(points), dtype=object)
+    for i, p in enumerate(points):
+        text = texts.get(p)
+        if text is None:
+            text = texts[p] = " ".join(map(str, p))
+        out[i] = text
+    return out
 
 
 def _figure_rows(run: RunFigures, budgets: FigureBudgets, first: int, stop: int,
                  kinds: Mapping[str, bool], verdicts: Mapping[int, str]) -> pd.DataFrame:
     """Rows ``first`` to ``stop`` of the figure table (see :func:`figures_frame`), with a
     column for every key of ``kinds``; ``verdicts``: :func:`figure_verdicts` of ``run``."""
-    from sweeprig.analysis.figure_table import figure_table
+    from sweeprig.analysis.figure_table import figure_columns
     from sweeprig.analysis.figures import flags_from_mask
 
     figures = run.figures[first:stop]
     # the one builder of a figure table's columns (values, conditions), here made into text
-    table = figure_table(figures)
-    flag_texts = {mask: " ".join(flags_from_mask(mask))
-                  for mask in set(table["flags"].tolist())}
+    _, table = figure_columns(figures)
+    masks = table["flags"].tolist()
+    flag_texts = {mask: " ".join(flags_from_mask(mask)) for mask in set(masks)}
     columns: dict[str, object] = {
         "figure": np.arange(first, stop, dtype=np.int64),
-        "name": table["name"].to_numpy(dtype=object),
-        "value": table["value"].to_numpy(),
-        "unit": table["unit"].to_numpy(dtype=object),
-        "bound": table["bound"].to_numpy(dtype=object),
-        "uncertainty_db": table["uncertainty_db"].to_numpy(),
-        "text": np.array([_text3(f) for f in figures], dtype=object),
+        "name": table["name"],
+        "value": table["value"],
+        "unit": table["unit"],
+        "bound": table["bound"],
+        "uncertainty_db": table["uncertainty_db"],
+        "text": _texts3(figures, table),
         "verdict": np.array([verdicts.get(id(f), "") for f in figures], dtype=object),
-        "flags": np.array([flag_texts[m] for m in table["flags"].tolist()], dtype=object),
-        "points": np.array([" ".join(map(str, p)) for p in table["points"].tolist()],
-                           dtype=object),
+        "flags": np.array([flag_texts[m] for m in masks], dtype=object),
+        "points": _points_texts(table["points"].tolist()),
         # object: whole numbers with empty cells (a list would become floats with NaN)
         "budget": np.array(budgets.ids[first:stop], dtype=object),
     }
     for key, text in kinds.items():
-        if text:
+        column = table.get(key)
+        if column is None:
+            columns[key] = np.full(len(figures), "" if text else np.nan,
+                                   dtype=object if text else float)
+        elif not text:
+            columns[key] = column.astype(float)
+        elif column.dtype == object:
+            columns[key] = column
+        else:
+            # text in the run, numbers only in this slice: as the values themselves read
             columns[key] = np.array(["" if v is None else str(v) for v in
                                      (f.conditions.get(key) for f in figures)], dtype=object)
-        elif key in table.columns:
-            columns[key] = table[key].to_numpy(dtype=float)
-        else:
-            columns[key] = np.full(len(figures), np.nan)
     return pd.DataFrame(columns)
 
 
@@ -1007,24 +1043,20 @@ class _FigureTableWriters:
 
     def __init__(self, paths: Mapping[str, Path]) -> None:
         self.paths = paths
-        self._csv: Any = None
         self._csv_file: Any = None
         self._header = True
         self._parquet: Any = None
 
     def __enter__(self) -> _FigureTableWriters:
-        import csv
-
         if "csv" in self.paths:
             self._csv_file = self.paths["csv"].open("w", encoding="utf-8", newline="")
-            self._csv = csv.writer(self._csv_file, lineterminator="\n")
         return self
 
     def write(self, frame: pd.DataFrame) -> None:
         from sweeprig.report.csv_table import write_frame_rows
 
-        if self._csv is not None:
-            write_frame_rows(self._csv, frame, header=self._header)
+        if self._csv_file is not None:
+            write_frame_rows(self._csv_file, frame, header=self._header)
             self._header = False
         if "parquet" in self.paths:
             import pyarrow as pa

@@ -47,3 +47,36 @@ def test_no_figure_of_those_names_is_an_empty_table() -> None:
     table = figure_table(_figures(), ["noise_figure"])
     assert table.empty and list(table.columns) == list(BASE_COLUMNS)
     assert table["value"].dtype == np.float64
+
+
+def test_shared_conditions_are_read_once_and_spread_in_order() -> None:
+    """Figures of one point share one conditions mapping: distinct_conditions gives each
+    mapping once, in order of first appearance, with every figure's index into them, and
+    figure_columns spreads the values back figure by figure (what figure_table holds)."""
+    import dataclasses
+
+    from sweeprig.analysis.figure_table import (
+        condition_mappings,
+        distinct_conditions,
+        figure_columns,
+    )
+
+    first, second, third = _figures()
+    shared = [first, dataclasses.replace(first, name="oip3"), second, third,
+              dataclasses.replace(second, value=-75.0)]
+    mappings, which = distinct_conditions(shared)
+    assert [id(m) for m in mappings] == [id(first.conditions), id(second.conditions),
+                                         id(third.conditions)]
+    assert which.tolist() == [0, 0, 1, 2, 1]
+    assert [id(m) for m in condition_mappings(shared)] == [id(m) for m in mappings]
+    rows, columns = figure_columns(shared)
+    table = figure_table(shared)
+    assert rows.tolist() == table.index.tolist() == [0, 1, 2, 3, 4]
+    assert list(columns) == list(table.columns)
+    for key, column in columns.items():
+        expected = table[key].tolist()
+        got = column.tolist()
+        assert [("nan" if isinstance(v, float) and math.isnan(v) else v) for v in got] == \
+            [("nan" if isinstance(v, float) and math.isnan(v) else v) for v in expected], key
+    assert columns["study"].tolist() == ["two_tone", "two_tone", "spurs", "two_tone", "spurs"]
+    assert distinct_conditions([])[1].size == 0

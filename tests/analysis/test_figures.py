@@ -120,6 +120,23 @@ def test_with_changes_is_dataclasses_replace():
         with_changes(figure, valu=1.0)
 
 
+def test_with_conditions_is_dataclasses_replace():
+    """The one-field copy the output-frequency pass uses gives, slot for slot, what
+    dataclasses.replace gives (a field added to Figure must be copied there too)."""
+    import dataclasses
+
+    from sweeprig.analysis.figures import with_conditions
+
+    figure = Figure("iip3", 12.5, "dBm", ">", {"temperature_c": 25.0}, ("slope_off",), (3, 4),
+                    uncertainty_db=0.4)
+    made = with_conditions(figure, {"temperature_c": 85.0})
+    expected = dataclasses.replace(figure, conditions={"temperature_c": 85.0})
+    assert type(made) is Figure and made == expected and made is not figure
+    assert all(getattr(made, s) == getattr(expected, s) for s in Figure.__slots__)
+    with pytest.raises(dataclasses.FrozenInstanceError):
+        made.value = 1.0  # type: ignore[misc]
+
+
 def test_built_figures_are_plain_frozen_figures():
     """make_figures and with_changes fill the slots without the frozen __init__: what they
     give is a Figure like any other (same type, equal, hashable, still frozen)."""

@@ -58,6 +58,7 @@ def make_report(path: str, run_id: str, folder: str) -> dict[str, float]:
         "figures": float(len(run.figures)),
         "files_mb": sum(p.stat().st_size for p in files.all) / 1e6,
         "json_mb": files.figures_json.stat().st_size / 1e6,
+        **{f"mb {p.name}": p.stat().st_size / 1e6 for p in files.all},
     }
 
 
@@ -87,6 +88,8 @@ def test_perf_report_of_a_large_run(points: int, tmp_path: Path) -> None:
           f"{result['files_mb']:.0f} MB (figures.json {result['json_mb']:.0f} MB, "
           f"{result['json_mb'] * 1e6 / max(result['figures'], 1.0):.0f} B a figure); "
           f"load average {load:.1f} on {os.cpu_count()} cores")
+    print("files: " + ", ".join(f"{key[3:]} {value:.1f} MB" for key, value in result.items()
+                                if key.startswith("mb ")))
 
 
 if __name__ == "__main__":

@@ -36,3 +36,34 @@ def test_an_empty_table_is_its_header(tmp_path: Path) -> None:
     ours = write_frame_csv(frame, tmp_path / "ours.csv").read_text("utf-8")
     frame.to_csv(tmp_path / "pandas.csv", index=False)
     assert ours == (tmp_path / "pandas.csv").read_text("utf-8")
+
+
+def test_every_finite_float_reads_back_exactly(tmp_path: Path) -> None:
+    rng = np.random.default_rng(14)
+    values = np.concatenate([
+        rng.standard_normal(2000) * 10.0 ** rng.integers(-300, 300, 2000),
+        rng.uniform(-200.0, 30.0, 2000).round(6),  # levels as a bench reports them
+        np.array([0.0, -0.0, 5e-324, -5e-324, 2.2250738585072014e-308,
+                  1.7976931348623157e308, 0.1, 1 / 3, 2.4e9, 1e16, 1e-5, 123456789.0]),
+    ])
+    frame = pd.DataFrame({"x": values, "y": values[::-1].copy()})
+    path = write_frame_csv(frame, tmp_path / "floats.csv", chunk_rows=777)
+    lines = path.read_text("utf-8").splitlines()
+    assert lines[0] == "x,y"
+    read = np.array([float(line.split(",")[0]) for line in lines[1:]])
+    assert read.tolist() == values.tolist()  # float(text) == value, exactly
+    assert np.signbit(read).tolist() == np.signbit(values).tolist()
+    frame.to_csv(tmp_path / "pandas.csv", index=False)
+    assert path.read_text("utf-8") == (tmp_path / "pandas.csv").read_text("utf-8")
+
+
+def test_quoting_is_the_csv_writers(tmp_path: Path) -> None:
+    texts = ["", "plain", "a,b", 'q"uote', "line\nbreak", "cr\ronly", "crlf\r\n", " lead",
+             "trail ", ",", '"', "tab\there"]
+    for frame in (pd.DataFrame({"t": texts, "n": range(len(texts))}),
+                  pd.DataFrame({"only, one": texts}),  # one column: an empty cell is ""
+                  pd.DataFrame({"t": pd.array(texts, dtype="string")})):
+        ours = write_frame_csv(frame, tmp_path / "ours.csv", chunk_rows=5)
+        frame.to_csv(tmp_path / "pandas.csv", index=False)
+        assert ours.read_text("utf-8") == (tmp_path / "pandas.csv").read_text("utf-8")
+

@@ -295,3 +295,14 @@ def test_text_conditions_read_back_as_text(report_run, tmp_path):
         assessment=dataclasses.replace(report_run.assessment, judgements=(), untested=()))
     path = write_figures_json(odd, tmp_path / "f.json")
     assert [f["conditions"] for f in read_figures_document(path)["figures"]] == conditions
+
+
+def test_the_demo_runs_tables_are_written_as_pandas_writes_them(report_run, tmp_path) -> None:
+    from sweeprig.report.csv_table import write_frame_csv
+    from sweeprig.report.tables import figures_frame
+
+    for name, frame in (("captures", report_run.captures),
+                        ("figures", figures_frame(report_run))):
+        ours = write_frame_csv(frame, tmp_path / f"{name}.csv", chunk_rows=97)
+        frame.to_csv(tmp_path / f"{name}.pandas.csv", index=False)
+        assert ours.read_bytes() == (tmp_path / f"{name}.pandas.csv").read_bytes(), name
