@@ -18,7 +18,8 @@ uncertainties already.
 
 Everything here is in dB: each figure is a sum or difference of dB levels (a gain is
 P_IF − P_RF, an intercept P_in + (P_fund − P_IMn)/(n − 1)), so the sensitivity coefficients
-are the constants of those sums. The terms of a budget (:func:`figure_budget`):
+are the constants of those sums. The terms of a budget
+(:func:`sweeprig.analysis.budget_groups.figure_budget`):
 
 * **input level**: the level at the DUT's input plane. Uncalibrated it is the source's level
   accuracy plus the typed path loss (``input_level``); calibrated it is the power meter's
@@ -59,7 +60,7 @@ from typing import Any, Literal
 import numpy as np
 import pandas as pd
 
-from sweeprig.analysis.figures import Figure, collector_paused, with_changes
+from sweeprig.analysis.figures import Figure
 from sweeprig.analysis.writable_twin import writable_twin
 
 Shape = Literal["rectangular", "triangular", "u-shaped", "normal-k2", "standard"]
@@ -238,12 +239,11 @@ class Budget:
         }
 
 
-#: :func:`made_line` and :func:`made_budget` fill writable twins of the frozen classes
+#: :func:`made_line` fills a writable twin of the frozen class
 #: (:mod:`sweeprig.analysis.writable_twin`), about ten times faster than the dataclasses'
 #: ``__init__`` (a large run makes hundreds of thousands of lines); None: the constructors.
 _OpenContribution = writable_twin(Contribution)
-_OpenBudget = writable_twin(Budget)
-_OPEN_CLASSES = _OpenContribution is not None and _OpenBudget is not None
+_OPEN_CLASSES = _OpenContribution is not None
 
 
 def made_line(name: str, what: str, half_width_db: float, shape: str, sensitivity: float,
@@ -263,20 +263,6 @@ def made_line(name: str, what: str, half_width_db: float, shape: str, sensitivit
     line.contribution_db = abs(sensitivity) * (abs(float(half_width_db)) / DIVISORS[shape])
     line.__class__ = Contribution  # type: ignore[assignment]
     return line  # type: ignore[return-value]
-
-
-def made_budget(contributions: tuple[Contribution, ...],
-                coverage_factor: float = COVERAGE_FACTOR) -> Budget:
-    """``Budget(contributions, coverage_factor)``: the same budget (``combined_db`` by the
-    same root sum of squares), made faster."""
-    if not _OPEN_CLASSES:
-        return Budget(contributions, coverage_factor)
-    budget = _OpenBudget()
-    budget.contributions = contributions
-    budget.coverage_factor = coverage_factor
-    budget.combined_db = math.hypot(*[c.contribution_db for c in contributions])
-    budget.__class__ = Budget  # type: ignore[assignment]
-    return budget  # type: ignore[return-value]
 
 
 def combine(contributions_db: Iterable[float]) -> float:
@@ -666,89 +652,18 @@ def _mismatch(name: str, what: str, specs: InstrumentSpecs, c: float) -> Contrib
                         "u-shaped", c, "B", specs.match_origin)
 
 
-def figure_budget(figure: Figure, levels: PointLevels, specs: InstrumentSpecs,
-                  cal: CalibrationState = UNCALIBRATED, *,
-                  small_signal_u: Mapping[tuple, float] | None = None,
-                  lines: dict[tuple, Any] | None = None) -> Budget | None:
-    """The uncertainty budget of ``figure`` (None: a bound, not a number, not in dB, or a
-    figure this module has no model for). ``lines``: a dict the noise lines made are kept
-    in and taken from (the figures of one point and reading share them: a per-drive IIP3,
-    OIP3 and IM3 read the same product), so a run's budgets hold each distinct line once;
-    give one dict only to the figures of one ``specs`` and ``cal``."""
-    if lines is None:
-        lines = {}
-    model = MODELS.get(figure.name)
-    if model is None or not figure.is_number or figure.unit not in _DB_UNITS:
-        return None
-    level_key = ("level", figure.name)
-    level_terms = lines.get(level_key)
-    if level_terms is None:  # built once per figure name (hashing the specifications costs)
-        level_terms = lines[level_key] = _cached_level_terms(model, specs, cal)
-    terms = list(level_terms)
-    pts = [int(p) for p in figure.points]
-    noisy = [(r, c) for r, c in [(_noise_reading(model, figure), model.noise_c),
-                                  *model.noise_also] if r is not None and c]
-    for reading, c in noisy:
-        snr = levels.min_snr_db(pts, reading)
-        if math.isfinite(snr):
-            terms.append(noise_line(lines, reading, snr, c))
-    fit_terms: list[Contribution] = []
-    if model.fit == "intercept" and model.product is not None:
-        x = [levels.input_dbm.get(p, math.nan) for p in pts]
-        fund = [levels.level_dbm.get((p, "if"), math.nan) for p in pts]
-        prod = [levels.level_dbm.get((p, model.product), math.nan) for p in pts]
-        u = intercept_fit_u_db(x, fund, prod, model.order)
-        if math.isfinite(u):
-            fit_terms.append(Contribution("fit", f"scatter about the slope-1/slope-{model.order} "
-                                      f"lines ({len(pts)} points)", u, "standard", 1.0, "A",
-                                      "measured: regression standard error"))
-    elif model.fit == "linear":
-        gains = [levels.level_dbm.get((p, "if"), math.nan) - levels.input_dbm.get(p, math.nan)
-                 for p in pts]
-        u = mean_u_db(gains)
-        if math.isfinite(u):
-            fit_terms.append(Contribution("fit", f"scatter of the gain over the linear region "
-                                      f"({len(pts)} points)", u, "standard", 1.0, "A",
-                                      "measured: standard deviation of the mean"))
-    elif model.fit == "compression":
-        terms += _compression_terms(figure, levels, specs, small_signal_u)
-    terms += fit_terms
-    for reading, c in noisy if not fit_terms else ():
-        # A fit's own Type A term is the observed scatter of its points, this one included:
-        # only a figure without one (single readings, or too few points) takes it here.
-        worst = levels.worst_scatter(pts, reading)
-        if worst is not None and worst[0] > 0.0:
-            sigma, snr, avg = worst
-            # flatness: two readings of the gain, √2
-            terms.append(noise_scatter_line(lines, reading, sigma, snr, avg,
-                                            model.relative_c or c))
-    return Budget(tuple(terms), specs.coverage_factor)
-
-
 def noise_line(lines: dict[tuple, Any], reading: str, snr_db: float, c: float
                ) -> Contribution:
     """The analyzer-noise line of ``reading`` at its lowest SNR ``snr_db`` (finite) with
     sensitivity ``c``: made once per distinct (reading, SNR, c) and kept in ``lines``."""
-    return noise_lines(lines, reading, (snr_db,), c)[0]
-
-
-def noise_lines(lines: dict[tuple, Any], reading: str, snrs_db: Iterable[float], c: float
-                ) -> list[Contribution]:
-    """:func:`noise_line` of each of ``snrs_db`` (one reading and sensitivity: a group of
-    figures at once)."""
-    words = _plain(reading)
-    get = lines.get
-    out = []
-    for snr_db in snrs_db:
-        key = ("noise", reading, snr_db, c)
-        line = get(key)
-        if line is None:
-            line = lines[key] = made_line(
-                "noise", sys.intern(f"analyzer noise under {words} (lowest SNR "
-                                    f"{snr_db:.1f} dB)"), noise_bias_db(snr_db),
-                "rectangular", c, "B", _NOISE_ORIGIN)
-        out.append(line)
-    return out
+    key = ("noise", reading, snr_db, c)
+    line = lines.get(key)
+    if line is None:
+        line = lines[key] = made_line(
+            "noise", sys.intern(f"analyzer noise under {_plain(reading)} (lowest SNR "
+                                f"{snr_db:.1f} dB)"), noise_bias_db(snr_db),
+            "rectangular", c, "B", _NOISE_ORIGIN)
+    return line
 
 
 _NOISE_ORIGIN = ("measured noise floor; one-sided bias taken as rectangular (common "
@@ -767,27 +682,6 @@ def noise_scatter_line(lines: dict[tuple, Any], reading: str, sigma_db: float,
     if line is None:
         line = lines[key] = _scatter_line(_plain(reading), sigma_db, snr_db, averages, c)
     return line
-
-
-def noise_scatter_lines(lines: dict[tuple, Any], reading: str,
-                        snrs_and_averages: Iterable[tuple[float, int]], c: float
-                        ) -> list[Contribution | None]:
-    """For each (SNR dB, averages): :func:`noise_scatter_line` of its
-    :func:`noise_scatter_db`, or None where that is 0 (no line)."""
-    words = _plain(reading)
-    get = lines.get
-    out: list[Contribution | None] = []
-    for snr_db, averages in snrs_and_averages:
-        sigma_db = noise_scatter_db(snr_db, averages)
-        if not sigma_db > 0.0:
-            out.append(None)
-            continue
-        key = ("noise_scatter", reading, sigma_db, snr_db, averages, c)
-        line = get(key)
-        if line is None:
-            line = lines[key] = _scatter_line(words, sigma_db, snr_db, averages, c)
-        out.append(line)
-    return out
 
 
 def _scatter_line(words: str, sigma_db: float, snr_db: float, averages: int, c: float
@@ -843,42 +737,6 @@ def small_signal_gain_u(figures: Sequence[Figure], levels: PointLevels
                                                                                      math.nan)
                      for p in f.points]
             out[_condition_key(f.conditions)] = mean_u_db(gains)
-    return out
-
-
-def attach_uncertainty(figures: Sequence[Figure], captures: pd.DataFrame,
-                       specs: InstrumentSpecs | None = None,
-                       cal: CalibrationState = UNCALIBRATED) -> list[Figure]:
-    """The figures with ``uncertainty_db`` (expanded, k from ``specs``) and ``budget`` set
-    where a budget exists; the others are returned unchanged."""
-    specs = specs or InstrumentSpecs()
-    levels = PointLevels.from_captures(captures)
-    small_signal_u = small_signal_gain_u(figures, levels)
-    out: list[Figure] = []
-    sides: dict[tuple, Figure] = {}
-    side_names = _SIDE_NAMES
-    lines: dict[tuple, Any] = {}
-    # the budgets are worked out per group of figures of one kind (the same numbers,
-    # line for line, as figure_budget one figure at a time: tests/analysis/
-    # test_uncertainty_groups.py); imported here, the grouped path builds on this module
-    from sweeprig.analysis.budget_groups import grouped_budgets
-
-    with collector_paused():  # a large run makes hundreds of thousands of budgets
-        budgets = grouped_budgets(figures, levels, specs, cal, small_signal_u, lines)
-        for f, budget in zip(figures, budgets, strict=True):
-            if budget is not None:
-                f = with_changes(f, uncertainty_db=budget.expanded_db, budget=budget)
-                if f.name in side_names:
-                    sides[(f.name, _condition_key(f.conditions), f.value)] = f
-            out.append(f)
-    for i, f in enumerate(out):
-        if f.name in WORST_OF and f.is_number:
-            for side in WORST_OF[f.name]:
-                match = sides.get((side, _condition_key(f.conditions), f.value))
-                if match is not None:
-                    out[i] = with_changes(f, uncertainty_db=match.uncertainty_db,
-                                     budget=match.budget)
-                    break
     return out
 
 
