@@ -91,55 +91,57 @@ class FigureBudgets:
 def figure_budgets(run: RunFigures) -> FigureBudgets:
     """The tables of the budgets of ``run``'s figures (see :class:`FigureBudgets`). Two
     shared parts are one when they have the same lines, noisy readings and k."""
-    figures = run.figures
     term_numbers: dict[Contribution, int] = {}
     shared_numbers: dict[SharedBudget, int] = {}
     by_id: dict[int, int] = {}
     shared: list[SharedBudget] = []
     shared_terms: list[tuple[int, ...]] = []
-    count = len(figures)
-    ids = np.full(count, None, dtype=object)
-    combined = np.full(count, math.nan)
-    snr = np.full((NOISE_SLOTS, count), math.nan)
-    scatter = np.full((NOISE_SLOTS, count), math.nan)
-    averages = np.full((NOISE_SLOTS, count), None, dtype=object)
-    own = np.full(count, "", dtype=object)
 
     def numbers(lines: Iterable[Contribution]) -> tuple[int, ...]:
         return tuple(term_numbers.setdefault(line, len(term_numbers)) for line in lines)
 
+    def shared_number(part: SharedBudget) -> int:
+        number = shared_numbers.get(part)
+        if number is None:
+            number = shared_numbers[part] = len(shared)
+            shared.append(part)
+            shared_terms.append(numbers(part.lines))
+        by_id[id(part)] = number
+        return number
+
+    count = len(run.figures)
+    nan = math.nan
+    # column by column over the figures with a budget (a large run: hundreds of thousands)
     with collector_paused():
-        for i, f in enumerate(figures):
-            budget = f.budget
-            if budget is None:
-                continue
-            part = budget.shared
-            number = by_id.get(id(part))
-            if number is None:
-                number = shared_numbers.get(part)
-                if number is None:
-                    number = shared_numbers[part] = len(shared)
-                    shared.append(part)
-                    shared_terms.append(numbers(part.lines))
-                by_id[id(part)] = number
-            ids[i] = number
-            combined[i] = budget.combined_db
-            for k, value in enumerate(budget.snr_db):
-                snr[k, i] = value
-            for k, value in enumerate(budget.scatter_snr_db):
-                scatter[k, i] = value
-            for k, value in enumerate(budget.averages):
-                if not math.isnan(budget.scatter_snr_db[k]):
-                    averages[k, i] = value
-            if budget.own_lines:
-                own[i] = " ".join(map(str, numbers(budget.own_lines)))
-    columns: dict[str, np.ndarray] = {"budget": ids, "combined_uncertainty_db": combined}
-    for k in range(NOISE_SLOTS):
-        names = _slot_names(k)
-        columns[names[0]] = snr[k]
-        columns[names[1]] = scatter[k]
-        columns[names[2]] = averages[k]
-    columns["own_terms"] = own
+        every = [f.budget for f in run.figures]
+        at = [i for i, b in enumerate(every) if b is not None]
+        budgets: list[FigureBudget] = [every[i] for i in at]  # type: ignore[misc]
+        del every
+        where = np.array(at, dtype=np.int64)
+        ids = np.full(count, None, dtype=object)
+        get = by_id.get
+        ids[where] = [n if (n := get(id(b.shared))) is not None else shared_number(b.shared)
+                      for b in budgets]
+        combined = np.full(count, nan)
+        combined[where] = [b.combined_db for b in budgets]
+        columns: dict[str, np.ndarray] = {"budget": ids, "combined_uncertainty_db": combined}
+        for k in range(NOISE_SLOTS):
+            names = _slot_names(k)
+            snr = np.full(count, nan)
+            snr[where] = [b.snr_db[k] if len(b.snr_db) > k else nan for b in budgets]
+            scatter_at = [b.scatter_snr_db[k] if len(b.scatter_snr_db) > k else nan
+                          for b in budgets]
+            scatter = np.full(count, nan)
+            scatter[where] = scatter_at
+            averages = np.full(count, None, dtype=object)
+            averages[where] = [None if s != s else b.averages[k]
+                               for b, s in zip(budgets, scatter_at, strict=True)]
+            columns[names[0]], columns[names[1]], columns[names[2]] = snr, scatter, averages
+        own = np.full(count, "", dtype=object)
+        for i, b in zip(at, budgets, strict=True):
+            if b.own_lines:
+                own[i] = " ".join(map(str, numbers(b.own_lines)))
+        columns["own_terms"] = own
     return FigureBudgets(tuple(term_numbers), tuple(shared), tuple(shared_terms), columns)
 
 

@@ -10,7 +10,7 @@ Targets (issue 14, printed, not asserted): 100k points ≤ 8 s and ≤ 500 MB; 1
 ≤ 60 s and ≤ 1.5 GB. The load average is printed beside each figure (a shared machine).
 The 1M-point case runs only with ``SWEEPRIG_PERF_HUGE=1``: today its reduction alone holds
 about seven million figures (several GB), too much to start unasked on a shared machine.
-figures.json is format 3: the figures and their budgets are in the tables beside it
+figures.json is format 4: the figures and their budgets are in the tables beside it
 (``figures.csv``, ``budgets.csv``, ``budget-terms.csv``), counted in the files' size.
 """
 
