@@ -52,7 +52,9 @@ from sweeprig.analysis.uncertainty import (
     _noise_reading,
     intercept_fit_u_db,
     mean_u_db,
+    measured_rows,
     small_signal_gain_u,
+    spur_key,
 )
 from sweeprig.analysis.writable_twin import writable_twin
 
@@ -65,12 +67,10 @@ def attach_uncertainty(figures: Sequence[Figure], captures: pd.DataFrame,
     others are returned unchanged. A headline figure that is the worse of two sides
     (:data:`~sweeprig.analysis.uncertainty.WORST_OF`) takes that side's budget."""
     specs = specs or InstrumentSpecs()
-    levels = PointLevels.from_captures(captures)
-    small_signal_u = small_signal_gain_u(figures, levels)
     out: list[Figure] = []
     sides: dict[tuple, Figure] = {}
     with collector_paused():  # a large run makes hundreds of thousands of budgets
-        budgets = grouped_budgets(figures, levels, specs, cal, small_signal_u)
+        budgets = grouped_budgets(figures, captures, specs, cal)
         for f, budget in zip(figures, budgets, strict=True):
             if budget is not None:
                 f = with_changes(f, uncertainty_db=budget.expanded_db, budget=budget)
@@ -161,15 +161,15 @@ def figure_budget(figure: Figure, levels: PointLevels, specs: InstrumentSpecs,
     return budget
 
 
-def grouped_budgets(figures: Sequence[Figure], levels: PointLevels, specs: InstrumentSpecs,
-                    cal: CalibrationState,
-                    small_signal_u: Mapping[tuple, float] | None = None
+def grouped_budgets(figures: Sequence[Figure], captures: pd.DataFrame,
+                    specs: InstrumentSpecs, cal: CalibrationState = UNCALIBRATED
                     ) -> list[FigureBudget | None]:
     """Every figure's budget as :func:`figure_budget` gives it (None where a figure has
     none), the single-point figures worked out per group of one kind and one set of noisy
-    readings, their u_c with numpy."""
-    budgets: list[FigureBudget | None] = [None] * len(figures)
+    readings from per-reading tables of ``captures`` (numpy), their u_c with numpy; the
+    others one at a time, from :class:`PointLevels` of only their points."""
     groups: dict[tuple[str, Noisy], list[int]] = {}
+    alone: list[int] = []
     # per figure name: its model and, unless it depends on the figure (an m×n spur's own
     # reading), its noisy readings
     kinds: dict[str, tuple[_Model | None, Noisy | None]] = {}
@@ -184,7 +184,7 @@ def grouped_budgets(figures: Sequence[Figure], levels: PointLevels, specs: Instr
         if model is None or not f.is_number or f.unit not in _DB_UNITS:
             continue
         if model.fit is not None or len(f.points) != 1:
-            budgets[i] = figure_budget(f, levels, specs, cal, small_signal_u=small_signal_u)
+            alone.append(i)
             continue
         if noisy is None:
             noisy = _noisy(model, _noise_reading(model, f))
@@ -192,7 +192,18 @@ def grouped_budgets(figures: Sequence[Figure], levels: PointLevels, specs: Instr
         if group is None:
             group = groups[(f.name, noisy)] = []
         group.append(i)
-    tables = _ReadingTables(levels)
+    budgets: list[FigureBudget | None] = [None] * len(figures)
+    if alone:
+        # the fitted figures and those over several points read their points' levels one
+        # by one: only those points are looked up (a few per cent of a run's)
+        levels = PointLevels.from_captures(
+            captures, {int(p) for i in alone for p in figures[i].points}
+            | {int(p) for f in figures if f.name == "small_signal_gain" for p in f.points})
+        small_signal_u = small_signal_gain_u(figures, levels)
+        for i in alone:
+            budgets[i] = figure_budget(figures[i], levels, specs, cal,
+                                       small_signal_u=small_signal_u)
+    tables = _ReadingTables(captures)
     for (name, noisy), members in groups.items():
         shared = shared_budget(MODELS[name], noisy, specs, cal)
         points = np.fromiter((int(figures[i].points[0]) for i in members), dtype=np.int64,
@@ -262,13 +273,49 @@ def _group_budgets(shared: SharedBudget, points: np.ndarray, tables: _ReadingTab
 
 
 class _ReadingTables:
-    """Per reading: its points in order, with level − noise floor (dB) and sweeps averaged
-    (built from :class:`PointLevels` once, on first use of each reading)."""
+    """Per reading: its points in order, with level − noise floor (dB) and sweeps averaged,
+    from the capture table's columns (numpy; each reading's table made on first use). The
+    same numbers :class:`PointLevels` holds: the attenuation repeats left out, the later of
+    two rows of one point and reading kept, an m×n spur under ``"spur.MxN"`` too."""
 
-    def __init__(self, levels: PointLevels) -> None:
-        self._levels = levels
-        self._by_reading: dict[str, list[tuple[int, str]]] | None = None
+    def __init__(self, captures: pd.DataFrame) -> None:
         self._tables: dict[str, tuple[np.ndarray, np.ndarray, np.ndarray]] = {}
+        self._rows: dict[str, np.ndarray] = {}
+        if captures.empty or "reading" not in captures:
+            self._point = np.zeros(0, dtype=np.int64)
+            self._snr = np.zeros(0)
+            self._averages = np.zeros(0, dtype=np.int64)
+            return
+        rows = measured_rows(captures)
+        count = len(rows)
+        self._point = rows["point"].to_numpy(dtype=np.int64)
+        level = rows["level_dbm"].to_numpy(dtype=float)
+        floor = (rows["noise_floor_dbm"].to_numpy(dtype=float) if "noise_floor_dbm" in rows
+                 else np.full(count, math.nan))
+        # level − floor as PointLevels.min_snr_db and worst_scatter work it out (IEEE
+        # subtraction: the same number)
+        self._snr = level - floor
+        averages = (pd.to_numeric(rows["averages"], errors="coerce").to_numpy(dtype=float)
+                    if "averages" in rows else np.full(count, math.nan))
+        usable = np.isfinite(averages) & (averages >= 1.0)
+        self._averages = np.where(usable, averages, 1.0).astype(np.int64)  # int(): truncated
+        codes, names = pd.factorize(rows["reading"].astype(str), sort=False)
+        order = np.argsort(codes, kind="stable")
+        bounds = np.searchsorted(codes[order], np.arange(len(names) + 1))
+        for k, name in enumerate(names.tolist()):
+            self._rows[name] = order[bounds[k]:bounds[k + 1]]
+        spur = self._rows.get("spur")
+        if spur is not None and spur.size and "m" in rows and "n" in rows:
+            m = pd.to_numeric(rows["m"], errors="coerce").to_numpy(dtype=float)[spur]
+            n = pd.to_numeric(rows["n"], errors="coerce").to_numpy(dtype=float)[spur]
+            known = np.isfinite(m) & np.isfinite(n)
+            pairs = np.column_stack([np.trunc(m[known]), np.trunc(n[known])])
+            if pairs.size:
+                distinct, inverse = np.unique(pairs, axis=0, return_inverse=True)
+                inverse = inverse.reshape(-1)
+                at = spur[known]
+                for k, (mm, nn) in enumerate(distinct.tolist()):
+                    self._rows[spur_key(mm, nn)] = at[inverse == k]
 
     def snr_and_averages(self, reading: str, points: np.ndarray
                          ) -> tuple[np.ndarray, np.ndarray]:
@@ -286,22 +333,9 @@ class _ReadingTables:
                 np.where(found, avg[pos], 1))
 
     def _table(self, reading: str) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        levels = self._levels
-        if self._by_reading is None:
-            by_reading: dict[str, list[tuple[int, str]]] = {}
-            for key in levels.level_dbm:
-                keys = by_reading.get(key[1])
-                if keys is None:
-                    keys = by_reading[key[1]] = []
-                keys.append(key)
-            self._by_reading = by_reading
-        keys = self._by_reading.get(reading, [])
-        at = np.fromiter((k[0] for k in keys), dtype=np.int64, count=len(keys))
-        level = np.fromiter((levels.level_dbm[k] for k in keys), dtype=float, count=len(keys))
-        floor = np.fromiter((levels.floor_dbm[k] for k in keys), dtype=float, count=len(keys))
-        avg = np.fromiter((levels.averages.get(k, 1) for k in keys), dtype=np.int64,
-                          count=len(keys))
-        order = np.argsort(at, kind="stable")
-        # level − floor as PointLevels.min_snr_db and worst_scatter work it out (IEEE
-        # subtraction: the same number)
-        return at[order], level[order] - floor[order], avg[order]
+        rows = self._rows.get(reading, np.zeros(0, dtype=np.int64))  # in capture order
+        # the later row of a point wins: the first of each point in reverse order
+        last = rows[::-1]
+        at, first = np.unique(self._point[last], return_index=True)
+        keep = last[first]
+        return at, self._snr[keep], self._averages[keep]

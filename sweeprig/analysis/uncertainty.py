@@ -53,7 +53,7 @@ from __future__ import annotations
 import functools
 import math
 import sys
-from collections.abc import Iterable, Mapping, Sequence
+from collections.abc import Collection, Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any, Literal
 
@@ -444,12 +444,16 @@ class PointLevels:
     averages: Mapping[tuple[int, str], int] = field(default_factory=dict)
 
     @classmethod
-    def from_captures(cls, captures: pd.DataFrame) -> PointLevels:
+    def from_captures(cls, captures: pd.DataFrame,
+                      points: Collection[int] | None = None) -> PointLevels:
+        """The levels of ``captures`` (of only the run-store ``points`` given, when given:
+        a run's fitted figures need a few per cent of its points)."""
         if captures.empty or "reading" not in captures:
             return cls({}, {}, {})
-        rows = captures
-        if "atten_check" in rows:
-            rows = rows[~rows["atten_check"].fillna(False).astype(bool)]
+        rows = measured_rows(captures)
+        if points is not None:
+            wanted = np.fromiter(points, dtype=np.int64)
+            rows = rows[np.isin(rows["point"].to_numpy(dtype=np.int64), wanted)]
         count = len(rows)
         points = rows["point"].to_numpy(dtype=np.int64).tolist()
         readings = rows["reading"].astype(str).tolist()
@@ -471,7 +475,7 @@ class PointLevels:
                                              ms, ns, strict=True):
             names = [r]
             if r == "spur" and math.isfinite(m) and math.isfinite(n):
-                names.append(_spur_key(m, n))
+                names.append(spur_key(m, n))
             for name in names:
                 key = (p, name)  # one key object for the three maps (a large run: millions)
                 level[key] = lv  # the later row wins, as in the capture table
@@ -512,7 +516,16 @@ class PointLevels:
         return worst
 
 
-def _spur_key(m: float, n: float) -> str:
+def measured_rows(captures: pd.DataFrame) -> pd.DataFrame:
+    """The rows of ``captures`` a budget reads: the readings of the attenuation repeats
+    left out."""
+    if "atten_check" in captures:
+        return captures[~captures["atten_check"].fillna(False).astype(bool)]
+    return captures
+
+
+def spur_key(m: float, n: float) -> str:
+    """The reading name of an m×n spur: ``"spur.MxN"``."""
     return f"spur.{int(m)}x{int(n)}"
 
 
@@ -546,7 +559,7 @@ def _noise_reading(model: _Model, figure: Figure) -> str | None:
     if reading == "spur":
         m, n = figure.conditions.get("m"), figure.conditions.get("n")
         if isinstance(m, int | float) and isinstance(n, int | float):
-            return _spur_key(m, n)
+            return spur_key(m, n)
     return reading
 
 

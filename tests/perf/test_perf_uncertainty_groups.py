@@ -60,7 +60,7 @@ def test_perf_uncertainty_budgets_grouped_against_per_figure(tmp_path: Path) -> 
             reference_budget(f, levels, specs, UNCALIBRATED, small_signal_u)
         cpu["per figure"].append(time.process_time() - start)
         start = time.process_time()
-        budgets = grouped_budgets(figures, levels, specs, UNCALIBRATED, small_signal_u)
+        budgets = grouped_budgets(figures, captures, specs, UNCALIBRATED)
         cpu["grouped"].append(time.process_time() - start)
         distinct = len({id(b.shared) for b in budgets if b is not None})
     per, grouped = (statistics.median(cpu[k]) for k in ("per figure", "grouped"))
