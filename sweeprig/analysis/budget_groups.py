@@ -52,9 +52,7 @@ from sweeprig.analysis.uncertainty import (
     _noise_reading,
     intercept_fit_u_db,
     mean_u_db,
-    measured_rows,
     small_signal_gain_u,
-    spur_key,
 )
 from sweeprig.analysis.writable_twin import writable_twin
 
@@ -122,9 +120,9 @@ def figure_budget(figure: Figure, levels: PointLevels, specs: InstrumentSpecs,
     own: list[Contribution] = []
     fitted = False
     if model.fit == "intercept" and model.product is not None:
-        x = [levels.input_dbm.get(p, math.nan) for p in pts]
-        fund = [levels.level_dbm.get((p, "if"), math.nan) for p in pts]
-        prod = [levels.level_dbm.get((p, model.product), math.nan) for p in pts]
+        x = levels.inputs_dbm(pts)
+        fund = levels.levels_dbm(pts, "if")
+        prod = levels.levels_dbm(pts, model.product)
         u = intercept_fit_u_db(x, fund, prod, model.order)
         if math.isfinite(u):
             fitted = True
@@ -132,8 +130,8 @@ def figure_budget(figure: Figure, levels: PointLevels, specs: InstrumentSpecs,
                                     f"lines ({len(pts)} points)", u, "standard", 1.0, "A",
                                     "measured: regression standard error"))
     elif model.fit == "linear":
-        gains = [levels.level_dbm.get((p, "if"), math.nan) - levels.input_dbm.get(p, math.nan)
-                 for p in pts]
+        gains = [level - x for level, x in zip(levels.levels_dbm(pts, "if"),
+                                               levels.inputs_dbm(pts), strict=True)]
         u = mean_u_db(gains)
         if math.isfinite(u):
             fitted = True
@@ -166,8 +164,8 @@ def grouped_budgets(figures: Sequence[Figure], captures: pd.DataFrame,
                     ) -> list[FigureBudget | None]:
     """Every figure's budget as :func:`figure_budget` gives it (None where a figure has
     none), the single-point figures worked out per group of one kind and one set of noisy
-    readings from per-reading tables of ``captures`` (numpy), their u_c with numpy; the
-    others one at a time, from :class:`PointLevels` of only their points."""
+    readings from the per-reading tables of ``captures`` (:class:`PointLevels`, numpy),
+    their u_c with numpy; the others one at a time."""
     groups: dict[tuple[str, Noisy], list[int]] = {}
     alone: list[int] = []
     # per figure name: its model and, unless it depends on the figure (an m×n spur's own
@@ -193,22 +191,17 @@ def grouped_budgets(figures: Sequence[Figure], captures: pd.DataFrame,
             group = groups[(f.name, noisy)] = []
         group.append(i)
     budgets: list[FigureBudget | None] = [None] * len(figures)
+    levels = PointLevels.from_captures(captures)
     if alone:
-        # the fitted figures and those over several points read their points' levels one
-        # by one: only those points are looked up (a few per cent of a run's)
-        levels = PointLevels.from_captures(
-            captures, {int(p) for i in alone for p in figures[i].points}
-            | {int(p) for f in figures if f.name == "small_signal_gain" for p in f.points})
         small_signal_u = small_signal_gain_u(figures, levels)
         for i in alone:
             budgets[i] = figure_budget(figures[i], levels, specs, cal,
                                        small_signal_u=small_signal_u)
-    tables = _ReadingTables(captures)
     for (name, noisy), members in groups.items():
         shared = shared_budget(MODELS[name], noisy, specs, cal)
         points = np.fromiter((int(figures[i].points[0]) for i in members), dtype=np.int64,
                              count=len(members))
-        for index, budget in zip(members, _group_budgets(shared, points, tables),
+        for index, budget in zip(members, _group_budgets(shared, points, levels),
                                  strict=True):
             budgets[index] = budget
     return budgets
@@ -219,7 +212,7 @@ def grouped_budgets(figures: Sequence[Figure], captures: pd.DataFrame,
 _OpenFigureBudget = writable_twin(FigureBudget)
 
 
-def _group_budgets(shared: SharedBudget, points: np.ndarray, tables: _ReadingTables
+def _group_budgets(shared: SharedBudget, points: np.ndarray, levels: PointLevels
                    ) -> list[FigureBudget]:
     """The budgets of the single-point figures at ``points`` of one shared part: per
     reading of ``shared.noisy`` the SNR at the figure's point (a noise line where finite)
@@ -231,7 +224,7 @@ def _group_budgets(shared: SharedBudget, points: np.ndarray, tables: _ReadingTab
     scatter_snr: list[list[float]] = []
     averages: list[list[int]] = []
     for (reading, c), c_scatter in zip(shared.noisy, shared.scatter_c, strict=True):
-        snr, avg = tables.snr_and_averages(reading, points)
+        snr, avg = levels.snr_and_averages(reading, points)
         finite = np.where(np.isfinite(snr), snr, math.nan)
         squares += noise_contributions_db(finite, c) ** 2
         squares += scatter_contributions_db(snr, avg, c_scatter) ** 2
@@ -270,72 +263,3 @@ def _group_budgets(shared: SharedBudget, points: np.ndarray, tables: _ReadingTab
         budget.__class__ = cls  # type: ignore[assignment]
         append(budget)  # type: ignore[arg-type]
     return out
-
-
-class _ReadingTables:
-    """Per reading: its points in order, with level − noise floor (dB) and sweeps averaged,
-    from the capture table's columns (numpy; each reading's table made on first use). The
-    same numbers :class:`PointLevels` holds: the attenuation repeats left out, the later of
-    two rows of one point and reading kept, an m×n spur under ``"spur.MxN"`` too."""
-
-    def __init__(self, captures: pd.DataFrame) -> None:
-        self._tables: dict[str, tuple[np.ndarray, np.ndarray, np.ndarray]] = {}
-        self._rows: dict[str, np.ndarray] = {}
-        if captures.empty or "reading" not in captures:
-            self._point = np.zeros(0, dtype=np.int64)
-            self._snr = np.zeros(0)
-            self._averages = np.zeros(0, dtype=np.int64)
-            return
-        rows = measured_rows(captures)
-        count = len(rows)
-        self._point = rows["point"].to_numpy(dtype=np.int64)
-        level = rows["level_dbm"].to_numpy(dtype=float)
-        floor = (rows["noise_floor_dbm"].to_numpy(dtype=float) if "noise_floor_dbm" in rows
-                 else np.full(count, math.nan))
-        # level − floor as PointLevels.min_snr_db and worst_scatter work it out (IEEE
-        # subtraction: the same number)
-        self._snr = level - floor
-        averages = (pd.to_numeric(rows["averages"], errors="coerce").to_numpy(dtype=float)
-                    if "averages" in rows else np.full(count, math.nan))
-        usable = np.isfinite(averages) & (averages >= 1.0)
-        self._averages = np.where(usable, averages, 1.0).astype(np.int64)  # int(): truncated
-        codes, names = pd.factorize(rows["reading"].astype(str), sort=False)
-        order = np.argsort(codes, kind="stable")
-        bounds = np.searchsorted(codes[order], np.arange(len(names) + 1))
-        for k, name in enumerate(names.tolist()):
-            self._rows[name] = order[bounds[k]:bounds[k + 1]]
-        spur = self._rows.get("spur")
-        if spur is not None and spur.size and "m" in rows and "n" in rows:
-            m = pd.to_numeric(rows["m"], errors="coerce").to_numpy(dtype=float)[spur]
-            n = pd.to_numeric(rows["n"], errors="coerce").to_numpy(dtype=float)[spur]
-            known = np.isfinite(m) & np.isfinite(n)
-            pairs = np.column_stack([np.trunc(m[known]), np.trunc(n[known])])
-            if pairs.size:
-                distinct, inverse = np.unique(pairs, axis=0, return_inverse=True)
-                inverse = inverse.reshape(-1)
-                at = spur[known]
-                for k, (mm, nn) in enumerate(distinct.tolist()):
-                    self._rows[spur_key(mm, nn)] = at[inverse == k]
-
-    def snr_and_averages(self, reading: str, points: np.ndarray
-                         ) -> tuple[np.ndarray, np.ndarray]:
-        """(level − floor dB, averages) of ``reading`` at each of ``points``; NaN and 1
-        where the point has no such reading."""
-        table = self._tables.get(reading)
-        if table is None:
-            table = self._tables[reading] = self._table(reading)
-        at, snr, avg = table
-        if at.size == 0:
-            return np.full(points.size, math.nan), np.ones(points.size, dtype=np.int64)
-        pos = np.minimum(np.searchsorted(at, points), at.size - 1)
-        found = at[pos] == points
-        return (np.where(found, snr[pos], math.nan),
-                np.where(found, avg[pos], 1))
-
-    def _table(self, reading: str) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        rows = self._rows.get(reading, np.zeros(0, dtype=np.int64))  # in capture order
-        # the later row of a point wins: the first of each point in reverse order
-        last = rows[::-1]
-        at, first = np.unique(self._point[last], return_index=True)
-        keep = last[first]
-        return at, self._snr[keep], self._averages[keep]

@@ -53,7 +53,7 @@ from __future__ import annotations
 import functools
 import math
 import sys
-from collections.abc import Collection, Iterable, Mapping, Sequence
+from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any, Literal
 
@@ -432,84 +432,121 @@ _DB_UNITS = frozenset({"dB", "dBm", "dBc"})
 # levels of the captures, per point and reading
 
 
-@dataclass(frozen=True)
 class PointLevels:
-    """Per (point, reading): output level, noise floor, sweeps averaged, and the input power
-    of the point (the readings of the attenuation repeats left out). An m×n spur is kept
-    under ``"spur.MxN"`` as well as ``"spur"`` (several spurs share a point)."""
+    """Per reading of a capture table: its run-store points in order, with the level and
+    noise floor (dBm) and sweeps averaged of each; and the input power of each point. The
+    readings of the attenuation repeats are left out; of two rows of one point and reading
+    the later is kept; an m×n spur is kept under ``"spur.MxN"`` as well as ``"spur"``
+    (several spurs share a point). Held as numpy columns (a large run has millions of
+    readings), each reading's table made on first use."""
 
-    level_dbm: Mapping[tuple[int, str], float]
-    floor_dbm: Mapping[tuple[int, str], float]
-    input_dbm: Mapping[int, float]
-    averages: Mapping[tuple[int, str], int] = field(default_factory=dict)
+    def __init__(self, captures: pd.DataFrame) -> None:
+        self._tables: dict[str, tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]] = {}
+        self._rows: dict[str, np.ndarray] = {}
+        empty = captures.empty or "reading" not in captures
+        rows = captures.iloc[:0] if empty else measured_rows(captures)
+        count = len(rows)
+        self._point = (np.zeros(0, dtype=np.int64) if empty
+                       else rows["point"].to_numpy(dtype=np.int64))
+        self._level = np.zeros(0) if empty else rows["level_dbm"].to_numpy(dtype=float)
+        self._floor = (rows["noise_floor_dbm"].to_numpy(dtype=float)
+                       if not empty and "noise_floor_dbm" in rows else np.full(count, math.nan))
+        averages = (pd.to_numeric(rows["averages"], errors="coerce").to_numpy(dtype=float)
+                    if not empty and "averages" in rows else np.full(count, math.nan))
+        usable = np.isfinite(averages) & (averages >= 1.0)
+        self._averages = np.where(usable, averages, 1.0).astype(np.int64)  # int(): truncated
+        # the input power of each point: its last row's
+        last = self._point[::-1]
+        self._input_at, first = np.unique(last, return_index=True)
+        self._input = (np.zeros(0) if empty
+                       else rows["rf_power_dbm"].to_numpy(dtype=float)[::-1][first])
+        if empty:
+            return
+        codes, names = pd.factorize(rows["reading"].astype(str), sort=False)
+        order = np.argsort(codes, kind="stable")
+        bounds = np.searchsorted(codes[order], np.arange(len(names) + 1))
+        for k, name in enumerate(names.tolist()):
+            self._rows[name] = order[bounds[k]:bounds[k + 1]]
+        spur = self._rows.get("spur")
+        if spur is not None and spur.size and "m" in rows and "n" in rows:
+            m = pd.to_numeric(rows["m"], errors="coerce").to_numpy(dtype=float)[spur]
+            n = pd.to_numeric(rows["n"], errors="coerce").to_numpy(dtype=float)[spur]
+            known = np.isfinite(m) & np.isfinite(n)
+            pairs = np.column_stack([np.trunc(m[known]), np.trunc(n[known])])
+            if pairs.size:
+                distinct, inverse = np.unique(pairs, axis=0, return_inverse=True)
+                inverse = inverse.reshape(-1)
+                at = spur[known]
+                for k, (mm, nn) in enumerate(distinct.tolist()):
+                    self._rows[spur_key(mm, nn)] = at[inverse == k]
 
     @classmethod
-    def from_captures(cls, captures: pd.DataFrame,
-                      points: Collection[int] | None = None) -> PointLevels:
-        """The levels of ``captures`` (of only the run-store ``points`` given, when given:
-        a run's fitted figures need a few per cent of its points)."""
-        if captures.empty or "reading" not in captures:
-            return cls({}, {}, {})
-        rows = measured_rows(captures)
-        if points is not None:
-            wanted = np.fromiter(points, dtype=np.int64)
-            rows = rows[np.isin(rows["point"].to_numpy(dtype=np.int64), wanted)]
-        count = len(rows)
-        points = rows["point"].to_numpy(dtype=np.int64).tolist()
-        readings = rows["reading"].astype(str).tolist()
-        levels = rows["level_dbm"].to_numpy(dtype=float).tolist()
-        floors = (rows["noise_floor_dbm"].to_numpy(dtype=float).tolist()
-                  if "noise_floor_dbm" in rows else [math.nan] * count)
-        inputs = rows["rf_power_dbm"].to_numpy(dtype=float).tolist()
-        avgs = (pd.to_numeric(rows["averages"], errors="coerce").to_numpy(dtype=float).tolist()
-                if "averages" in rows else [math.nan] * count)
-        ms = (pd.to_numeric(rows["m"], errors="coerce").to_numpy(dtype=float).tolist()
-              if "m" in rows else [math.nan] * count)
-        ns = (pd.to_numeric(rows["n"], errors="coerce").to_numpy(dtype=float).tolist()
-              if "n" in rows else [math.nan] * count)
-        level: dict[tuple[int, str], float] = {}
-        floor: dict[tuple[int, str], float] = {}
-        averaged: dict[tuple[int, str], int] = {}
-        drive: dict[int, float] = {}
-        for p, r, lv, fl, x, av, m, n in zip(points, readings, levels, floors, inputs, avgs,
-                                             ms, ns, strict=True):
-            names = [r]
-            if r == "spur" and math.isfinite(m) and math.isfinite(n):
-                names.append(spur_key(m, n))
-            for name in names:
-                key = (p, name)  # one key object for the three maps (a large run: millions)
-                level[key] = lv  # the later row wins, as in the capture table
-                floor[key] = fl
-                averaged[key] = int(av) if math.isfinite(av) and av >= 1 else 1
-            drive[p] = x
-        return cls(level, floor, drive, averaged)
+    def from_captures(cls, captures: pd.DataFrame) -> PointLevels:
+        """The levels of a capture table (:mod:`sweeprig.analysis.captures`)."""
+        return cls(captures)
+
+    def _table(self, reading: str) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+        """(points in order, level dBm, level − floor dB, averages) of ``reading``."""
+        table = self._tables.get(reading)
+        if table is None:
+            rows = self._rows.get(reading, np.zeros(0, dtype=np.int64))  # capture order
+            last = rows[::-1]  # the later row of a point wins: its first in reverse order
+            at, first = np.unique(self._point[last], return_index=True)
+            keep = last[first]
+            # level − floor as one IEEE subtraction per reading
+            table = self._tables[reading] = (at, self._level[keep],
+                                             self._level[keep] - self._floor[keep],
+                                             self._averages[keep])
+        return table
+
+    def _find(self, at: np.ndarray, points: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        if at.size == 0:
+            return np.zeros(points.size, dtype=np.int64), np.zeros(points.size, dtype=bool)
+        pos = np.minimum(np.searchsorted(at, points), at.size - 1)
+        return pos, at[pos] == points
+
+    def snr_and_averages(self, reading: str, points: np.ndarray
+                         ) -> tuple[np.ndarray, np.ndarray]:
+        """(level − floor dB, averages) of ``reading`` at each of ``points`` (an int64
+        array); NaN and 1 where the point has no such reading."""
+        at, _, snr, avg = self._table(reading)
+        pos, found = self._find(at, points)
+        if at.size == 0:
+            return np.full(points.size, math.nan), np.ones(points.size, dtype=np.int64)
+        return np.where(found, snr[pos], math.nan), np.where(found, avg[pos], 1)
+
+    def levels_dbm(self, points: Sequence[int], reading: str) -> list[float]:
+        """The level (dBm) of ``reading`` at each of ``points``; NaN where none."""
+        at, level, _, _ = self._table(reading)
+        wanted = np.asarray(points, dtype=np.int64)
+        pos, found = self._find(at, wanted)
+        if at.size == 0:
+            return [math.nan] * wanted.size
+        return np.where(found, level[pos], math.nan).tolist()
+
+    def inputs_dbm(self, points: Sequence[int]) -> list[float]:
+        """The input power (dBm) of each of ``points``; NaN where the point is unknown."""
+        wanted = np.asarray(points, dtype=np.int64)
+        pos, found = self._find(self._input_at, wanted)
+        if self._input_at.size == 0:
+            return [math.nan] * wanted.size
+        return np.where(found, self._input[pos], math.nan).tolist()
 
     def min_snr_db(self, points: Sequence[int], reading: str) -> float:
         """The lowest level − noise floor of ``reading`` over ``points`` (NaN: unknown)."""
-        if len(points) == 1:  # most figures come from one point
-            key = (points[0], reading)
-            level = self.level_dbm.get(key)
-            if level is None:
-                return math.nan
-            snr = level - self.floor_dbm[key]
-            return snr if math.isfinite(snr) else math.nan
-        snrs = [self.level_dbm[(p, reading)] - self.floor_dbm[(p, reading)]
-                for p in points if (p, reading) in self.level_dbm]
-        snrs = [s for s in snrs if math.isfinite(s)]
-        return min(snrs) if snrs else math.nan
+        snr, _ = self.snr_and_averages(reading, np.asarray(points, dtype=np.int64))
+        snr = snr[np.isfinite(snr)]
+        return float(snr.min()) if snr.size else math.nan
 
     def worst_scatter(self, points: Sequence[int], reading: str
                       ) -> tuple[float, float, int] | None:
         """(scatter dB, SNR dB, averages) of the reading of ``reading`` over ``points`` that
         scatters most by :func:`noise_scatter_db` (None: no reading with a noise floor)."""
+        snrs, avgs = self.snr_and_averages(reading, np.asarray(points, dtype=np.int64))
         worst: tuple[float, float, int] | None = None
-        for p in points:
-            if (p, reading) not in self.level_dbm:
-                continue
-            snr = self.level_dbm[(p, reading)] - self.floor_dbm[(p, reading)]
+        for snr, avg in zip(snrs.tolist(), avgs.tolist(), strict=True):
             if math.isnan(snr):
                 continue
-            avg = self.averages.get((p, reading), 1)
             sigma = noise_scatter_db(snr, avg)
             if worst is None or sigma > worst[0]:
                 worst = (sigma, snr, avg)
@@ -716,9 +753,8 @@ def _compression_terms(figure: Figure, levels: PointLevels, specs: InstrumentSpe
     pts = [int(p) for p in figure.points]
     slope = math.nan
     if len(pts) == 2:
-        x = [levels.input_dbm.get(p, math.nan) for p in pts]
-        g = [levels.level_dbm.get((p, "if"), math.nan) - xi for p, xi in zip(pts, x,
-                                                                                 strict=True)]
+        x = levels.inputs_dbm(pts)
+        g = [level - xi for level, xi in zip(levels.levels_dbm(pts, "if"), x, strict=True)]
         if x[1] != x[0]:
             slope = abs((g[1] - g[0]) / (x[1] - x[0]))
     c = min(1.0 / slope, 20.0) if math.isfinite(slope) and slope > 0 else 1.0
@@ -746,9 +782,8 @@ def small_signal_gain_u(figures: Sequence[Figure], levels: PointLevels
     out: dict[tuple, float] = {}
     for f in figures:
         if f.name == "small_signal_gain" and f.is_number:
-            gains = [levels.level_dbm.get((p, "if"), math.nan) - levels.input_dbm.get(p,
-                                                                                     math.nan)
-                     for p in f.points]
+            gains = [level - x for level, x in zip(levels.levels_dbm(f.points, "if"),
+                                                    levels.inputs_dbm(f.points), strict=True)]
             out[_condition_key(f.conditions)] = mean_u_db(gains)
     return out
 
