@@ -302,3 +302,13 @@ def test_point_levels_are_the_captures_row_by_row():
                     assert worst is None
                 else:
                     assert worst == (noise_scatter_db(snr, averages[key]), snr, averages[key])
+
+
+def test_fast_lines_are_the_dataclass():
+    line = made_line("noise", "analyzer noise", 0.043, "rectangular", -0.5, "B", "measured")
+    assert type(line) is Contribution
+    twin = Contribution("noise", "analyzer noise", 0.043, "rectangular", -0.5, "B",
+                        "measured")
+    assert line == twin and hash(line) == hash(twin)
+    assert line.contribution_db == twin.contribution_db
+    assert Budget((line, twin), 2.0).combined_db == Budget((twin, twin), 2.0).combined_db
