@@ -1,75 +1,173 @@
-"""Uncertainty budgets of a run's figures, worked out per group of figures at once.
+"""Uncertainty budgets of a run's figures: a shared part per kind, the noise per figure.
 
-:func:`sweeprig.analysis.uncertainty.figure_budget` builds one figure's budget; a large run
-has hundreds of thousands of figures, most of them read at one point: a gain, an isolation,
-an IM3 or spur level. Their budgets differ only in the lines that depend on the figure's own
-reading (the analyzer-noise bias at its SNR, the scatter of one reading in the noise): the
-instrument lines are the same for every figure of a kind. :func:`grouped_budgets` therefore
-groups the single-point figures by kind (its model) and by the readings whose noise matters,
-looks the SNR of every figure of a group up at once (numpy, against each reading's
-point-ordered table), makes each distinct line once (the scalar
-:func:`~sweeprig.analysis.uncertainty.noise_bias_db` and
-:func:`~sweeprig.analysis.uncertainty.noise_scatter_db` per distinct SNR, so every line is
-the very number the per-figure path gives), and one :class:`Budget` per distinct set of
-lines, shared by every figure that has it.
+A large run has hundreds of thousands of figures, most of them read at one point: a gain,
+an isolation, an IM3 or spur level. Their budgets differ only in the lines that depend on
+the figure's own readings (the analyzer-noise bias at its SNR, the scatter of one reading
+in the noise, :mod:`sweeprig.analysis.budget_parts`); the instrument lines are one
+:class:`~sweeprig.analysis.budget_parts.SharedBudget` per kind, specifications and
+calibration. :func:`grouped_budgets` groups the single-point figures by kind (its model)
+and by the readings whose noise matters, looks the SNR of every figure of a group up at
+once (numpy, against each reading's point-ordered table) and works out every figure's
+combined standard uncertainty u_c with numpy from it (JCGM 100:2008 eq. (10): the root sum
+of squares of the shared lines' c_i·u(x_i) and of its own noise lines').
 
 Fitted figures (intercepts, compression points, means of gains) and figures over several
-points keep the per-figure path: they are a few per cent of a run, and their fit terms
-depend on every point of the fit. :func:`per_figure_budgets` is the reference the grouped
-path is tested against (tests/analysis/test_uncertainty_groups.py): the same budgets, line
-for line, for every figure.
+points take :func:`figure_budget`, one at a time: they are a few per cent of a run, and
+their fit terms depend on every point of the fit. :func:`attach_uncertainty` gives every
+figure of a run its budget and expanded uncertainty U = k·u_c (GUM 6.3.3).
 """
 
 from __future__ import annotations
 
+import functools
 import math
 from collections.abc import Mapping, Sequence
-from typing import Any
 
 import numpy as np
+import pandas as pd
 
-from sweeprig.analysis.figures import Figure
+from sweeprig.analysis.budget_parts import (
+    FigureBudget,
+    Noisy,
+    SharedBudget,
+    budget_lines,
+    noise_contributions_db,
+    scatter_contributions_db,
+)
+from sweeprig.analysis.figures import Figure, collector_paused, with_changes
 from sweeprig.analysis.uncertainty import (
     _DB_UNITS,
+    _SIDE_NAMES,
     MODELS,
-    Budget,
+    UNCALIBRATED,
+    WORST_OF,
     CalibrationState,
     Contribution,
     InstrumentSpecs,
     PointLevels,
     _cached_level_terms,
+    _compression_terms,
+    _condition_key,
     _Model,
     _noise_reading,
-    figure_budget,
-    made_budget,
-    noise_lines,
-    noise_scatter_lines,
+    intercept_fit_u_db,
+    mean_u_db,
+    small_signal_gain_u,
 )
-
-#: The readings whose noise matters to a figure, with their sensitivities.
-Noisy = tuple[tuple[str, float], ...]
+from sweeprig.analysis.writable_twin import writable_twin
 
 
-def per_figure_budgets(figures: Sequence[Figure], levels: PointLevels,
-                       specs: InstrumentSpecs, cal: CalibrationState,
-                       small_signal_u: Mapping[tuple, float] | None = None,
-                       lines: dict[tuple, Any] | None = None) -> list[Budget | None]:
-    """Each figure's budget by :func:`figure_budget`, one figure at a time (the reference)."""
-    lines = {} if lines is None else lines
-    return [figure_budget(f, levels, specs, cal, small_signal_u=small_signal_u, lines=lines)
-            for f in figures]
+def attach_uncertainty(figures: Sequence[Figure], captures: pd.DataFrame,
+                       specs: InstrumentSpecs | None = None,
+                       cal: CalibrationState = UNCALIBRATED) -> list[Figure]:
+    """The figures with ``uncertainty_db`` (expanded, k from ``specs``) and ``budget`` (a
+    :class:`~sweeprig.analysis.budget_parts.FigureBudget`) set where a budget exists; the
+    others are returned unchanged. A headline figure that is the worse of two sides
+    (:data:`~sweeprig.analysis.uncertainty.WORST_OF`) takes that side's budget."""
+    specs = specs or InstrumentSpecs()
+    out: list[Figure] = []
+    sides: dict[tuple, Figure] = {}
+    with collector_paused():  # a large run makes hundreds of thousands of budgets
+        budgets = grouped_budgets(figures, captures, specs, cal)
+        for f, budget in zip(figures, budgets, strict=True):
+            if budget is not None:
+                f = with_changes(f, uncertainty_db=budget.expanded_db, budget=budget)
+                if f.name in _SIDE_NAMES:
+                    sides[(f.name, _condition_key(f.conditions), f.value)] = f
+            out.append(f)
+    for i, f in enumerate(out):
+        if f.name in WORST_OF and f.is_number:
+            for side in WORST_OF[f.name]:
+                match = sides.get((side, _condition_key(f.conditions), f.value))
+                if match is not None:
+                    out[i] = with_changes(f, uncertainty_db=match.uncertainty_db,
+                                          budget=match.budget)
+                    break
+    return out
 
 
-def grouped_budgets(figures: Sequence[Figure], levels: PointLevels, specs: InstrumentSpecs,
-                    cal: CalibrationState,
-                    small_signal_u: Mapping[tuple, float] | None = None,
-                    lines: dict[tuple, Any] | None = None) -> list[Budget | None]:
-    """The budgets :func:`per_figure_budgets` gives (None where a figure has none), worked
-    out per group of single-point figures of one kind and one set of noisy readings; equal
-    budgets of a group are one shared object. ``lines``: as for :func:`figure_budget`."""
-    lines = {} if lines is None else lines
-    budgets: list[Budget | None] = [None] * len(figures)
+def _noisy(model: _Model, reading: str | None) -> Noisy:
+    """The (reading, sensitivity) pairs whose noise matters, in budget order."""
+    return tuple((r, c) for r, c in [(reading, model.noise_c), *model.noise_also]
+                 if r is not None and c)
+
+
+@functools.lru_cache(maxsize=1024)
+def shared_budget(model: _Model, noisy: Noisy, specs: InstrumentSpecs,
+                  cal: CalibrationState) -> SharedBudget:
+    """The shared part of the budget of a figure of ``model`` whose noise matters on
+    ``noisy``: one object per kind, specifications and calibration."""
+    return SharedBudget(_cached_level_terms(model, specs, cal), noisy,
+                        tuple(model.relative_c or c for _, c in noisy),
+                        specs.coverage_factor)
+
+
+def figure_budget(figure: Figure, levels: PointLevels, specs: InstrumentSpecs,
+                  cal: CalibrationState = UNCALIBRATED, *,
+                  small_signal_u: Mapping[tuple, float] | None = None
+                  ) -> FigureBudget | None:
+    """The budget of ``figure`` alone (None: a bound, not a number, not in dB, or a figure
+    with no model): the lowest SNR of each reading whose noise matters over its points, a
+    fitted figure's fit or compression lines, and (without a fit line, whose observed
+    scatter holds it) the reading that scatters most."""
+    model = MODELS.get(figure.name)
+    if model is None or not figure.is_number or figure.unit not in _DB_UNITS:
+        return None
+    noisy = _noisy(model, _noise_reading(model, figure))
+    shared = shared_budget(model, noisy, specs, cal)
+    pts = [int(p) for p in figure.points]
+    snr = tuple(levels.min_snr_db(pts, reading) for reading, _ in noisy)
+    own: list[Contribution] = []
+    fitted = False
+    if model.fit == "intercept" and model.product is not None:
+        x = levels.inputs_dbm(pts)
+        fund = levels.levels_dbm(pts, "if")
+        prod = levels.levels_dbm(pts, model.product)
+        u = intercept_fit_u_db(x, fund, prod, model.order)
+        if math.isfinite(u):
+            fitted = True
+            own.append(Contribution("fit", f"scatter about the slope-1/slope-{model.order} "
+                                    f"lines ({len(pts)} points)", u, "standard", 1.0, "A",
+                                    "measured: regression standard error"))
+    elif model.fit == "linear":
+        gains = [level - x for level, x in zip(levels.levels_dbm(pts, "if"),
+                                               levels.inputs_dbm(pts), strict=True)]
+        u = mean_u_db(gains)
+        if math.isfinite(u):
+            fitted = True
+            own.append(Contribution("fit", f"scatter of the gain over the linear region "
+                                    f"({len(pts)} points)", u, "standard", 1.0, "A",
+                                    "measured: standard deviation of the mean"))
+    elif model.fit == "compression":
+        own += _compression_terms(figure, levels, specs, small_signal_u)
+    scatter_snr: list[float] = []
+    averages: list[int] = []
+    for reading, _ in noisy:
+        # A fit's own Type A term is the observed scatter of its points, this one included:
+        # only a figure without one (single readings, or too few points) takes it here.
+        worst = None if fitted else levels.worst_scatter(pts, reading)
+        if worst is not None and worst[0] > 0.0:
+            scatter_snr.append(worst[1])
+            averages.append(worst[2])
+        else:
+            scatter_snr.append(math.nan)
+            averages.append(1)
+    budget = FigureBudget(shared, tuple(v if math.isfinite(v) else math.nan for v in snr),
+                          tuple(scatter_snr), tuple(averages), tuple(own))
+    combined = math.hypot(*[c.contribution_db for c in budget_lines(budget)])
+    object.__setattr__(budget, "combined_db", combined)
+    return budget
+
+
+def grouped_budgets(figures: Sequence[Figure], captures: pd.DataFrame,
+                    specs: InstrumentSpecs, cal: CalibrationState = UNCALIBRATED
+                    ) -> list[FigureBudget | None]:
+    """Every figure's budget as :func:`figure_budget` gives it (None where a figure has
+    none), the single-point figures worked out per group of one kind and one set of noisy
+    readings from the per-reading tables of ``captures`` (:class:`PointLevels`, numpy),
+    their u_c with numpy; the others one at a time."""
     groups: dict[tuple[str, Noisy], list[int]] = {}
+    alone: list[int] = []
     # per figure name: its model and, unless it depends on the figure (an m×n spur's own
     # reading), its noisy readings
     kinds: dict[str, tuple[_Model | None, Noisy | None]] = {}
@@ -84,8 +182,7 @@ def grouped_budgets(figures: Sequence[Figure], levels: PointLevels, specs: Instr
         if model is None or not f.is_number or f.unit not in _DB_UNITS:
             continue
         if model.fit is not None or len(f.points) != 1:
-            budgets[i] = figure_budget(f, levels, specs, cal, small_signal_u=small_signal_u,
-                                       lines=lines)
+            alone.append(i)
             continue
         if noisy is None:
             noisy = _noisy(model, _noise_reading(model, f))
@@ -93,128 +190,76 @@ def grouped_budgets(figures: Sequence[Figure], levels: PointLevels, specs: Instr
         if group is None:
             group = groups[(f.name, noisy)] = []
         group.append(i)
-    tables = _ReadingTables(levels)
+    budgets: list[FigureBudget | None] = [None] * len(figures)
+    levels = PointLevels.from_captures(captures)
+    if alone:
+        small_signal_u = small_signal_gain_u(figures, levels)
+        for i in alone:
+            budgets[i] = figure_budget(figures[i], levels, specs, cal,
+                                       small_signal_u=small_signal_u)
     for (name, noisy), members in groups.items():
-        model = MODELS[name]
-        level_key = ("level", name)
-        level_terms = lines.get(level_key)
-        if level_terms is None:
-            level_terms = lines[level_key] = _cached_level_terms(model, specs, cal)
+        shared = shared_budget(MODELS[name], noisy, specs, cal)
         points = np.fromiter((int(figures[i].points[0]) for i in members), dtype=np.int64,
                              count=len(members))
-        for index, budget in zip(members, _group_budgets(model, noisy, level_terms, points,
-                                                         tables, specs, lines), strict=True):
+        for index, budget in zip(members, _group_budgets(shared, points, levels),
+                                 strict=True):
             budgets[index] = budget
     return budgets
 
 
-def _noisy(model: _Model, reading: str | None) -> Noisy:
-    """The (reading, sensitivity) pairs whose noise matters, as :func:`figure_budget` has
-    them."""
-    return tuple((r, c) for r, c in [(reading, model.noise_c), *model.noise_also]
-                 if r is not None and c)
+#: FigureBudgets are made through a writable twin (a large run makes hundreds of
+#: thousands: :mod:`sweeprig.analysis.writable_twin`); None: by the constructor.
+_OpenFigureBudget = writable_twin(FigureBudget)
 
 
-class _ReadingTables:
-    """Per reading: its points in order, with level − noise floor (dB) and sweeps averaged
-    (built from :class:`PointLevels` once, on first use of each reading)."""
-
-    def __init__(self, levels: PointLevels) -> None:
-        self._levels = levels
-        self._by_reading: dict[str, list[tuple[int, str]]] | None = None
-        self._tables: dict[str, tuple[np.ndarray, np.ndarray, np.ndarray]] = {}
-
-    def snr_and_averages(self, reading: str, points: np.ndarray
-                         ) -> tuple[np.ndarray, np.ndarray]:
-        """(level − floor dB, averages) of ``reading`` at each of ``points``; NaN and 1
-        where the point has no such reading."""
-        table = self._tables.get(reading)
-        if table is None:
-            table = self._tables[reading] = self._table(reading)
-        at, snr, avg = table
-        if at.size == 0:
-            return np.full(points.size, math.nan), np.ones(points.size, dtype=np.int64)
-        pos = np.minimum(np.searchsorted(at, points), at.size - 1)
-        found = at[pos] == points
-        return (np.where(found, snr[pos], math.nan),
-                np.where(found, avg[pos], 1))
-
-    def _table(self, reading: str) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        levels = self._levels
-        if self._by_reading is None:
-            by_reading: dict[str, list[tuple[int, str]]] = {}
-            for key in levels.level_dbm:
-                keys = by_reading.get(key[1])
-                if keys is None:
-                    keys = by_reading[key[1]] = []
-                keys.append(key)
-            self._by_reading = by_reading
-        keys = self._by_reading.get(reading, [])
-        at = np.fromiter((k[0] for k in keys), dtype=np.int64, count=len(keys))
-        level = np.fromiter((levels.level_dbm[k] for k in keys), dtype=float, count=len(keys))
-        floor = np.fromiter((levels.floor_dbm[k] for k in keys), dtype=float, count=len(keys))
-        avg = np.fromiter((levels.averages.get(k, 1) for k in keys), dtype=np.int64,
-                          count=len(keys))
-        order = np.argsort(at, kind="stable")
-        # level − floor as PointLevels.min_snr_db and worst_scatter work it out (IEEE
-        # subtraction: the same number)
-        return at[order], level[order] - floor[order], avg[order]
-
-
-def _group_budgets(model: _Model, noisy: Noisy, level_terms: tuple[Contribution, ...],
-                   points: np.ndarray, tables: _ReadingTables, specs: InstrumentSpecs,
-                   lines: dict[tuple, Any]) -> list[Budget]:
-    """The budgets of the single-point figures at ``points`` of one kind (``model``) and one
-    set of noisy readings, in the order :func:`figure_budget` writes their lines: the level
-    terms, a noise line per reading with a finite SNR, then (a single reading has no fit
-    term) a noise-scatter line per reading with a scatter above zero."""
+def _group_budgets(shared: SharedBudget, points: np.ndarray, levels: PointLevels
+                   ) -> list[FigureBudget]:
+    """The budgets of the single-point figures at ``points`` of one shared part: per
+    reading of ``shared.noisy`` the SNR at the figure's point (a noise line where finite)
+    and, a single reading having no fit term, the same SNR and sweeps for its scatter
+    line; u_c by root sum of squares of the shared lines and those (numpy)."""
     count = points.size
-    # per slot: the distinct lines (None: no line) and each figure's number among them
-    # (-1: no line)
-    noise_slots: list[tuple[list[Contribution | None], np.ndarray]] = []
-    scatter_slots: list[tuple[list[Contribution | None], np.ndarray]] = []
-    for reading, c in noisy:
-        snr, avg = tables.snr_and_averages(reading, points)
-        known = ~np.isnan(snr)
-        values, inverse = np.unique(snr[known], return_inverse=True)
-        inverse = inverse.reshape(-1)
-        values_list = values.tolist()
-        finite = np.isfinite(values)
-        noise: list[Contribution | None] = [None] * len(values_list)
-        for k, line in zip(np.flatnonzero(finite).tolist(),
-                           noise_lines(lines, reading, values[finite].tolist(), c),
-                           strict=True):
-            noise[k] = line
-        code = np.full(count, -1, dtype=np.int64)
-        code[known] = inverse
-        noise_slots.append((noise, code))
-        # the scatter line is per (SNR, averages): one number per pair
-        known_avg = avg[known]
-        radix = int(known_avg.max(initial=1)) + 1
-        pairs, pair_inverse = np.unique(inverse * radix + known_avg, return_inverse=True)
-        scatter = noise_scatter_lines(
-            lines, reading, [(values_list[pair // radix], pair % radix)
-                             for pair in pairs.tolist()], model.relative_c or c)
-        code = np.full(count, -1, dtype=np.int64)
-        code[known] = pair_inverse.reshape(-1)
-        scatter_slots.append((scatter, code))
-    coverage = specs.coverage_factor
-    slots = noise_slots + scatter_slots
-    if not slots:
-        return [made_budget(level_terms, coverage)] * count
-    if math.prod(len(made) + 1 for made, _ in slots) < 2**62:
-        # one number per distinct set of lines (mixed radix over the slots)
-        key = np.zeros(count, dtype=np.int64)
-        for made, code in slots:
-            key = key * (len(made) + 1) + (code + 1)
-        _, first, inverse = np.unique(key, return_index=True, return_inverse=True)
-    else:  # too many distinct lines for one int64: compare the rows themselves
-        _, first, inverse = np.unique(np.column_stack([code for _, code in slots]),
-                                      axis=0, return_index=True, return_inverse=True)
-    # per slot, each distinct budget's line there (None: none); a budget's lines are the
-    # level terms and then its slots' lines in order, as figure_budget writes them
-    columns = [[made[k] if k >= 0 else None for k in code[first].tolist()]
-               for made, code in slots]
-    distinct = [made_budget(level_terms + tuple(filter(None, row)), coverage)
-                for row in zip(*columns, strict=True)]
-    return [distinct[k] for k in inverse.reshape(-1).tolist()]
+    squares = np.full(count, sum(c.contribution_db ** 2 for c in shared.lines))
+    noise_snr: list[list[float]] = []
+    scatter_snr: list[list[float]] = []
+    averages: list[list[int]] = []
+    for (reading, c), c_scatter in zip(shared.noisy, shared.scatter_c, strict=True):
+        snr, avg = levels.snr_and_averages(reading, points)
+        finite = np.where(np.isfinite(snr), snr, math.nan)
+        squares += noise_contributions_db(finite, c) ** 2
+        squares += scatter_contributions_db(snr, avg, c_scatter) ** 2
+        noise_snr.append(finite.tolist())
+        scatter_snr.append(snr.tolist())
+        averages.append(avg.tolist())
+    combined = np.sqrt(squares).tolist()
+    k = len(shared.noisy)
+    if k == 0:
+        rows_snr: list[tuple[float, ...]] = [()] * count
+        rows_scatter: list[tuple[float, ...]] = rows_snr
+        rows_avg: list[tuple[int, ...]] = [()] * count
+    else:
+        rows_snr = list(zip(*noise_snr, strict=True))
+        scatter_rows = list(zip(*scatter_snr, strict=True))
+        # one tuple where the two are the same (a finite SNR: most figures)
+        rows_scatter = [n if s == n else s for n, s in zip(rows_snr, scatter_rows,
+                                                            strict=True)]
+        distinct: dict[tuple[int, ...], tuple[int, ...]] = {}
+        rows_avg = [distinct.setdefault(a, a) for a in zip(*averages, strict=True)]
+    out: list[FigureBudget] = []
+    append = out.append
+    if _OpenFigureBudget is None:
+        for n, s, a, u in zip(rows_snr, rows_scatter, rows_avg, combined, strict=True):
+            append(FigureBudget(shared, n, s, a, (), u))
+        return out
+    open_cls, cls, empty = _OpenFigureBudget, FigureBudget, ()
+    for n, s, a, u in zip(rows_snr, rows_scatter, rows_avg, combined, strict=True):
+        budget = open_cls()
+        budget.shared = shared
+        budget.snr_db = n
+        budget.scatter_snr_db = s
+        budget.averages = a
+        budget.own_lines = empty
+        budget.combined_db = u
+        budget.__class__ = cls  # type: ignore[assignment]
+        append(budget)  # type: ignore[arg-type]
+    return out

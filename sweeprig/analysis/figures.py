@@ -111,7 +111,7 @@ import numpy as np
 from sweeprig.analysis.writable_twin import writable_twin
 
 if TYPE_CHECKING:
-    from sweeprig.analysis.uncertainty import Budget
+    from sweeprig.analysis.budget_parts import FigureBudget
 
 Bound = Literal["<", ">"] | None
 
@@ -384,7 +384,7 @@ class Figure:
     #: Expanded uncertainty (k = 2), in ``unit``; NaN when the figure has no budget
     #: (see :mod:`sweeprig.analysis.uncertainty`), and ``budget`` that budget.
     uncertainty_db: float = field(default=math.nan, compare=False)
-    budget: Budget | None = field(default=None, compare=False, hash=False)
+    budget: FigureBudget | None = field(default=None, compare=False, hash=False)
 
     @property
     def is_number(self) -> bool:

@@ -19,6 +19,7 @@ from collections.abc import Mapping
 
 import pandas as pd
 
+from sweeprig.analysis.budget_parts import whole_budget
 from sweeprig.analysis.figures import Figure
 from sweeprig.analysis.noise_figure import HotCold, reduce_noise_figure
 from sweeprig.analysis.uncertainty import InstrumentSpecs
@@ -96,7 +97,7 @@ def noise_figure_figures(points: pd.DataFrame, readings: pd.DataFrame, specs: In
         index = (int(row.point_index),)
         out.append(Figure("noise_figure", result.nf_db, "dB", conditions=conditions,
                           flags=flags, points=index, uncertainty_db=result.expanded_db,
-                          budget=result.budget))
+                          budget=whole_budget(result.budget)))
         out.append(Figure("noise_figure_gain", result.gain_db, "dB",
                           conditions={**conditions, "sideband": "dsb (signal + image)"},
                           flags=flags, points=index))

@@ -180,8 +180,8 @@ def reduce_run(store: RunStore, run_id: int) -> RunFigures:
 
 def _reduce_run(store: RunStore, run_id: int) -> RunFigures:
     from sweeprig.analysis.bench_specs import calibration_state, specs_from_bench_text
+    from sweeprig.analysis.budget_groups import attach_uncertainty
     from sweeprig.analysis.load import captures_from_frames
-    from sweeprig.analysis.uncertainty import attach_uncertainty
 
     info = store.run(run_id)
     points = store.points_frame(run_id)

@@ -18,7 +18,8 @@ uncertainties already.
 
 Everything here is in dB: each figure is a sum or difference of dB levels (a gain is
 P_IF − P_RF, an intercept P_in + (P_fund − P_IMn)/(n − 1)), so the sensitivity coefficients
-are the constants of those sums. The terms of a budget (:func:`figure_budget`):
+are the constants of those sums. The terms of a budget
+(:func:`sweeprig.analysis.budget_groups.figure_budget`):
 
 * **input level**: the level at the DUT's input plane. Uncalibrated it is the source's level
   accuracy plus the typed path loss (``input_level``); calibrated it is the power meter's
@@ -59,7 +60,7 @@ from typing import Any, Literal
 import numpy as np
 import pandas as pd
 
-from sweeprig.analysis.figures import Figure, collector_paused, with_changes
+from sweeprig.analysis.figures import Figure
 from sweeprig.analysis.writable_twin import writable_twin
 
 Shape = Literal["rectangular", "triangular", "u-shaped", "normal-k2", "standard"]
@@ -238,12 +239,11 @@ class Budget:
         }
 
 
-#: :func:`made_line` and :func:`made_budget` fill writable twins of the frozen classes
+#: :func:`made_line` fills a writable twin of the frozen class
 #: (:mod:`sweeprig.analysis.writable_twin`), about ten times faster than the dataclasses'
 #: ``__init__`` (a large run makes hundreds of thousands of lines); None: the constructors.
 _OpenContribution = writable_twin(Contribution)
-_OpenBudget = writable_twin(Budget)
-_OPEN_CLASSES = _OpenContribution is not None and _OpenBudget is not None
+_OPEN_CLASSES = _OpenContribution is not None
 
 
 def made_line(name: str, what: str, half_width_db: float, shape: str, sensitivity: float,
@@ -263,20 +263,6 @@ def made_line(name: str, what: str, half_width_db: float, shape: str, sensitivit
     line.contribution_db = abs(sensitivity) * (abs(float(half_width_db)) / DIVISORS[shape])
     line.__class__ = Contribution  # type: ignore[assignment]
     return line  # type: ignore[return-value]
-
-
-def made_budget(contributions: tuple[Contribution, ...],
-                coverage_factor: float = COVERAGE_FACTOR) -> Budget:
-    """``Budget(contributions, coverage_factor)``: the same budget (``combined_db`` by the
-    same root sum of squares), made faster."""
-    if not _OPEN_CLASSES:
-        return Budget(contributions, coverage_factor)
-    budget = _OpenBudget()
-    budget.contributions = contributions
-    budget.coverage_factor = coverage_factor
-    budget.combined_db = math.hypot(*[c.contribution_db for c in contributions])
-    budget.__class__ = Budget  # type: ignore[assignment]
-    return budget  # type: ignore[return-value]
 
 
 def combine(contributions_db: Iterable[float]) -> float:
@@ -446,87 +432,137 @@ _DB_UNITS = frozenset({"dB", "dBm", "dBc"})
 # levels of the captures, per point and reading
 
 
-@dataclass(frozen=True)
 class PointLevels:
-    """Per (point, reading): output level, noise floor, sweeps averaged, and the input power
-    of the point (the readings of the attenuation repeats left out). An m×n spur is kept
-    under ``"spur.MxN"`` as well as ``"spur"`` (several spurs share a point)."""
+    """Per reading of a capture table: its run-store points in order, with the level and
+    noise floor (dBm) and sweeps averaged of each; and the input power of each point. The
+    readings of the attenuation repeats are left out; of two rows of one point and reading
+    the later is kept; an m×n spur is kept under ``"spur.MxN"`` as well as ``"spur"``
+    (several spurs share a point). Held as numpy columns (a large run has millions of
+    readings), each reading's table made on first use."""
 
-    level_dbm: Mapping[tuple[int, str], float]
-    floor_dbm: Mapping[tuple[int, str], float]
-    input_dbm: Mapping[int, float]
-    averages: Mapping[tuple[int, str], int] = field(default_factory=dict)
+    def __init__(self, captures: pd.DataFrame) -> None:
+        self._tables: dict[str, tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]] = {}
+        self._rows: dict[str, np.ndarray] = {}
+        empty = captures.empty or "reading" not in captures
+        rows = captures.iloc[:0] if empty else measured_rows(captures)
+        count = len(rows)
+        self._point = (np.zeros(0, dtype=np.int64) if empty
+                       else rows["point"].to_numpy(dtype=np.int64))
+        self._level = np.zeros(0) if empty else rows["level_dbm"].to_numpy(dtype=float)
+        self._floor = (rows["noise_floor_dbm"].to_numpy(dtype=float)
+                       if not empty and "noise_floor_dbm" in rows else np.full(count, math.nan))
+        averages = (pd.to_numeric(rows["averages"], errors="coerce").to_numpy(dtype=float)
+                    if not empty and "averages" in rows else np.full(count, math.nan))
+        usable = np.isfinite(averages) & (averages >= 1.0)
+        self._averages = np.where(usable, averages, 1.0).astype(np.int64)  # int(): truncated
+        # the input power of each point: its last row's
+        last = self._point[::-1]
+        self._input_at, first = np.unique(last, return_index=True)
+        self._input = (np.zeros(0) if empty
+                       else rows["rf_power_dbm"].to_numpy(dtype=float)[::-1][first])
+        if empty:
+            return
+        codes, names = pd.factorize(rows["reading"].astype(str), sort=False)
+        order = np.argsort(codes, kind="stable")
+        bounds = np.searchsorted(codes[order], np.arange(len(names) + 1))
+        for k, name in enumerate(names.tolist()):
+            self._rows[name] = order[bounds[k]:bounds[k + 1]]
+        spur = self._rows.get("spur")
+        if spur is not None and spur.size and "m" in rows and "n" in rows:
+            m = pd.to_numeric(rows["m"], errors="coerce").to_numpy(dtype=float)[spur]
+            n = pd.to_numeric(rows["n"], errors="coerce").to_numpy(dtype=float)[spur]
+            known = np.isfinite(m) & np.isfinite(n)
+            pairs = np.column_stack([np.trunc(m[known]), np.trunc(n[known])])
+            if pairs.size:
+                distinct, inverse = np.unique(pairs, axis=0, return_inverse=True)
+                inverse = inverse.reshape(-1)
+                at = spur[known]
+                for k, (mm, nn) in enumerate(distinct.tolist()):
+                    self._rows[spur_key(mm, nn)] = at[inverse == k]
 
     @classmethod
     def from_captures(cls, captures: pd.DataFrame) -> PointLevels:
-        if captures.empty or "reading" not in captures:
-            return cls({}, {}, {})
-        rows = captures
-        if "atten_check" in rows:
-            rows = rows[~rows["atten_check"].fillna(False).astype(bool)]
-        count = len(rows)
-        points = rows["point"].to_numpy(dtype=np.int64).tolist()
-        readings = rows["reading"].astype(str).tolist()
-        levels = rows["level_dbm"].to_numpy(dtype=float).tolist()
-        floors = (rows["noise_floor_dbm"].to_numpy(dtype=float).tolist()
-                  if "noise_floor_dbm" in rows else [math.nan] * count)
-        inputs = rows["rf_power_dbm"].to_numpy(dtype=float).tolist()
-        avgs = (pd.to_numeric(rows["averages"], errors="coerce").to_numpy(dtype=float).tolist()
-                if "averages" in rows else [math.nan] * count)
-        ms = (pd.to_numeric(rows["m"], errors="coerce").to_numpy(dtype=float).tolist()
-              if "m" in rows else [math.nan] * count)
-        ns = (pd.to_numeric(rows["n"], errors="coerce").to_numpy(dtype=float).tolist()
-              if "n" in rows else [math.nan] * count)
-        level: dict[tuple[int, str], float] = {}
-        floor: dict[tuple[int, str], float] = {}
-        averaged: dict[tuple[int, str], int] = {}
-        drive: dict[int, float] = {}
-        for p, r, lv, fl, x, av, m, n in zip(points, readings, levels, floors, inputs, avgs,
-                                             ms, ns, strict=True):
-            names = [r]
-            if r == "spur" and math.isfinite(m) and math.isfinite(n):
-                names.append(_spur_key(m, n))
-            for name in names:
-                key = (p, name)  # one key object for the three maps (a large run: millions)
-                level[key] = lv  # the later row wins, as in the capture table
-                floor[key] = fl
-                averaged[key] = int(av) if math.isfinite(av) and av >= 1 else 1
-            drive[p] = x
-        return cls(level, floor, drive, averaged)
+        """The levels of a capture table (:mod:`sweeprig.analysis.captures`)."""
+        return cls(captures)
+
+    def _table(self, reading: str) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+        """(points in order, level dBm, level − floor dB, averages) of ``reading``."""
+        table = self._tables.get(reading)
+        if table is None:
+            rows = self._rows.get(reading, np.zeros(0, dtype=np.int64))  # capture order
+            last = rows[::-1]  # the later row of a point wins: its first in reverse order
+            at, first = np.unique(self._point[last], return_index=True)
+            keep = last[first]
+            # level − floor as one IEEE subtraction per reading
+            table = self._tables[reading] = (at, self._level[keep],
+                                             self._level[keep] - self._floor[keep],
+                                             self._averages[keep])
+        return table
+
+    def _find(self, at: np.ndarray, points: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        if at.size == 0:
+            return np.zeros(points.size, dtype=np.int64), np.zeros(points.size, dtype=bool)
+        pos = np.minimum(np.searchsorted(at, points), at.size - 1)
+        return pos, at[pos] == points
+
+    def snr_and_averages(self, reading: str, points: np.ndarray
+                         ) -> tuple[np.ndarray, np.ndarray]:
+        """(level − floor dB, averages) of ``reading`` at each of ``points`` (an int64
+        array); NaN and 1 where the point has no such reading."""
+        at, _, snr, avg = self._table(reading)
+        pos, found = self._find(at, points)
+        if at.size == 0:
+            return np.full(points.size, math.nan), np.ones(points.size, dtype=np.int64)
+        return np.where(found, snr[pos], math.nan), np.where(found, avg[pos], 1)
+
+    def levels_dbm(self, points: Sequence[int], reading: str) -> list[float]:
+        """The level (dBm) of ``reading`` at each of ``points``; NaN where none."""
+        at, level, _, _ = self._table(reading)
+        wanted = np.asarray(points, dtype=np.int64)
+        pos, found = self._find(at, wanted)
+        if at.size == 0:
+            return [math.nan] * wanted.size
+        return np.where(found, level[pos], math.nan).tolist()
+
+    def inputs_dbm(self, points: Sequence[int]) -> list[float]:
+        """The input power (dBm) of each of ``points``; NaN where the point is unknown."""
+        wanted = np.asarray(points, dtype=np.int64)
+        pos, found = self._find(self._input_at, wanted)
+        if self._input_at.size == 0:
+            return [math.nan] * wanted.size
+        return np.where(found, self._input[pos], math.nan).tolist()
 
     def min_snr_db(self, points: Sequence[int], reading: str) -> float:
         """The lowest level − noise floor of ``reading`` over ``points`` (NaN: unknown)."""
-        if len(points) == 1:  # most figures come from one point
-            key = (points[0], reading)
-            level = self.level_dbm.get(key)
-            if level is None:
-                return math.nan
-            snr = level - self.floor_dbm[key]
-            return snr if math.isfinite(snr) else math.nan
-        snrs = [self.level_dbm[(p, reading)] - self.floor_dbm[(p, reading)]
-                for p in points if (p, reading) in self.level_dbm]
-        snrs = [s for s in snrs if math.isfinite(s)]
-        return min(snrs) if snrs else math.nan
+        snr, _ = self.snr_and_averages(reading, np.asarray(points, dtype=np.int64))
+        snr = snr[np.isfinite(snr)]
+        return float(snr.min()) if snr.size else math.nan
 
     def worst_scatter(self, points: Sequence[int], reading: str
                       ) -> tuple[float, float, int] | None:
         """(scatter dB, SNR dB, averages) of the reading of ``reading`` over ``points`` that
         scatters most by :func:`noise_scatter_db` (None: no reading with a noise floor)."""
+        snrs, avgs = self.snr_and_averages(reading, np.asarray(points, dtype=np.int64))
         worst: tuple[float, float, int] | None = None
-        for p in points:
-            if (p, reading) not in self.level_dbm:
-                continue
-            snr = self.level_dbm[(p, reading)] - self.floor_dbm[(p, reading)]
+        for snr, avg in zip(snrs.tolist(), avgs.tolist(), strict=True):
             if math.isnan(snr):
                 continue
-            avg = self.averages.get((p, reading), 1)
             sigma = noise_scatter_db(snr, avg)
             if worst is None or sigma > worst[0]:
                 worst = (sigma, snr, avg)
         return worst
 
 
-def _spur_key(m: float, n: float) -> str:
+def measured_rows(captures: pd.DataFrame) -> pd.DataFrame:
+    """The rows of ``captures`` a budget reads: the readings of the attenuation repeats
+    left out."""
+    if "atten_check" in captures:
+        return captures[~captures["atten_check"].fillna(False).astype(bool)]
+    return captures
+
+
+def spur_key(m: float, n: float) -> str:
+    """The reading name of an m×n spur: ``"spur.MxN"``."""
     return f"spur.{int(m)}x{int(n)}"
 
 
@@ -560,7 +596,7 @@ def _noise_reading(model: _Model, figure: Figure) -> str | None:
     if reading == "spur":
         m, n = figure.conditions.get("m"), figure.conditions.get("n")
         if isinstance(m, int | float) and isinstance(n, int | float):
-            return _spur_key(m, n)
+            return spur_key(m, n)
     return reading
 
 
@@ -666,89 +702,18 @@ def _mismatch(name: str, what: str, specs: InstrumentSpecs, c: float) -> Contrib
                         "u-shaped", c, "B", specs.match_origin)
 
 
-def figure_budget(figure: Figure, levels: PointLevels, specs: InstrumentSpecs,
-                  cal: CalibrationState = UNCALIBRATED, *,
-                  small_signal_u: Mapping[tuple, float] | None = None,
-                  lines: dict[tuple, Any] | None = None) -> Budget | None:
-    """The uncertainty budget of ``figure`` (None: a bound, not a number, not in dB, or a
-    figure this module has no model for). ``lines``: a dict the noise lines made are kept
-    in and taken from (the figures of one point and reading share them: a per-drive IIP3,
-    OIP3 and IM3 read the same product), so a run's budgets hold each distinct line once;
-    give one dict only to the figures of one ``specs`` and ``cal``."""
-    if lines is None:
-        lines = {}
-    model = MODELS.get(figure.name)
-    if model is None or not figure.is_number or figure.unit not in _DB_UNITS:
-        return None
-    level_key = ("level", figure.name)
-    level_terms = lines.get(level_key)
-    if level_terms is None:  # built once per figure name (hashing the specifications costs)
-        level_terms = lines[level_key] = _cached_level_terms(model, specs, cal)
-    terms = list(level_terms)
-    pts = [int(p) for p in figure.points]
-    noisy = [(r, c) for r, c in [(_noise_reading(model, figure), model.noise_c),
-                                  *model.noise_also] if r is not None and c]
-    for reading, c in noisy:
-        snr = levels.min_snr_db(pts, reading)
-        if math.isfinite(snr):
-            terms.append(noise_line(lines, reading, snr, c))
-    fit_terms: list[Contribution] = []
-    if model.fit == "intercept" and model.product is not None:
-        x = [levels.input_dbm.get(p, math.nan) for p in pts]
-        fund = [levels.level_dbm.get((p, "if"), math.nan) for p in pts]
-        prod = [levels.level_dbm.get((p, model.product), math.nan) for p in pts]
-        u = intercept_fit_u_db(x, fund, prod, model.order)
-        if math.isfinite(u):
-            fit_terms.append(Contribution("fit", f"scatter about the slope-1/slope-{model.order} "
-                                      f"lines ({len(pts)} points)", u, "standard", 1.0, "A",
-                                      "measured: regression standard error"))
-    elif model.fit == "linear":
-        gains = [levels.level_dbm.get((p, "if"), math.nan) - levels.input_dbm.get(p, math.nan)
-                 for p in pts]
-        u = mean_u_db(gains)
-        if math.isfinite(u):
-            fit_terms.append(Contribution("fit", f"scatter of the gain over the linear region "
-                                      f"({len(pts)} points)", u, "standard", 1.0, "A",
-                                      "measured: standard deviation of the mean"))
-    elif model.fit == "compression":
-        terms += _compression_terms(figure, levels, specs, small_signal_u)
-    terms += fit_terms
-    for reading, c in noisy if not fit_terms else ():
-        # A fit's own Type A term is the observed scatter of its points, this one included:
-        # only a figure without one (single readings, or too few points) takes it here.
-        worst = levels.worst_scatter(pts, reading)
-        if worst is not None and worst[0] > 0.0:
-            sigma, snr, avg = worst
-            # flatness: two readings of the gain, √2
-            terms.append(noise_scatter_line(lines, reading, sigma, snr, avg,
-                                            model.relative_c or c))
-    return Budget(tuple(terms), specs.coverage_factor)
-
-
 def noise_line(lines: dict[tuple, Any], reading: str, snr_db: float, c: float
                ) -> Contribution:
     """The analyzer-noise line of ``reading`` at its lowest SNR ``snr_db`` (finite) with
     sensitivity ``c``: made once per distinct (reading, SNR, c) and kept in ``lines``."""
-    return noise_lines(lines, reading, (snr_db,), c)[0]
-
-
-def noise_lines(lines: dict[tuple, Any], reading: str, snrs_db: Iterable[float], c: float
-                ) -> list[Contribution]:
-    """:func:`noise_line` of each of ``snrs_db`` (one reading and sensitivity: a group of
-    figures at once)."""
-    words = _plain(reading)
-    get = lines.get
-    out = []
-    for snr_db in snrs_db:
-        key = ("noise", reading, snr_db, c)
-        line = get(key)
-        if line is None:
-            line = lines[key] = made_line(
-                "noise", sys.intern(f"analyzer noise under {words} (lowest SNR "
-                                    f"{snr_db:.1f} dB)"), noise_bias_db(snr_db),
-                "rectangular", c, "B", _NOISE_ORIGIN)
-        out.append(line)
-    return out
+    key = ("noise", reading, snr_db, c)
+    line = lines.get(key)
+    if line is None:
+        line = lines[key] = made_line(
+            "noise", sys.intern(f"analyzer noise under {_plain(reading)} (lowest SNR "
+                                f"{snr_db:.1f} dB)"), noise_bias_db(snr_db),
+            "rectangular", c, "B", _NOISE_ORIGIN)
+    return line
 
 
 _NOISE_ORIGIN = ("measured noise floor; one-sided bias taken as rectangular (common "
@@ -767,27 +732,6 @@ def noise_scatter_line(lines: dict[tuple, Any], reading: str, sigma_db: float,
     if line is None:
         line = lines[key] = _scatter_line(_plain(reading), sigma_db, snr_db, averages, c)
     return line
-
-
-def noise_scatter_lines(lines: dict[tuple, Any], reading: str,
-                        snrs_and_averages: Iterable[tuple[float, int]], c: float
-                        ) -> list[Contribution | None]:
-    """For each (SNR dB, averages): :func:`noise_scatter_line` of its
-    :func:`noise_scatter_db`, or None where that is 0 (no line)."""
-    words = _plain(reading)
-    get = lines.get
-    out: list[Contribution | None] = []
-    for snr_db, averages in snrs_and_averages:
-        sigma_db = noise_scatter_db(snr_db, averages)
-        if not sigma_db > 0.0:
-            out.append(None)
-            continue
-        key = ("noise_scatter", reading, sigma_db, snr_db, averages, c)
-        line = get(key)
-        if line is None:
-            line = lines[key] = _scatter_line(words, sigma_db, snr_db, averages, c)
-        out.append(line)
-    return out
 
 
 def _scatter_line(words: str, sigma_db: float, snr_db: float, averages: int, c: float
@@ -809,9 +753,8 @@ def _compression_terms(figure: Figure, levels: PointLevels, specs: InstrumentSpe
     pts = [int(p) for p in figure.points]
     slope = math.nan
     if len(pts) == 2:
-        x = [levels.input_dbm.get(p, math.nan) for p in pts]
-        g = [levels.level_dbm.get((p, "if"), math.nan) - xi for p, xi in zip(pts, x,
-                                                                                 strict=True)]
+        x = levels.inputs_dbm(pts)
+        g = [level - xi for level, xi in zip(levels.levels_dbm(pts, "if"), x, strict=True)]
         if x[1] != x[0]:
             slope = abs((g[1] - g[0]) / (x[1] - x[0]))
     c = min(1.0 / slope, 20.0) if math.isfinite(slope) and slope > 0 else 1.0
@@ -839,46 +782,9 @@ def small_signal_gain_u(figures: Sequence[Figure], levels: PointLevels
     out: dict[tuple, float] = {}
     for f in figures:
         if f.name == "small_signal_gain" and f.is_number:
-            gains = [levels.level_dbm.get((p, "if"), math.nan) - levels.input_dbm.get(p,
-                                                                                     math.nan)
-                     for p in f.points]
+            gains = [level - x for level, x in zip(levels.levels_dbm(f.points, "if"),
+                                                    levels.inputs_dbm(f.points), strict=True)]
             out[_condition_key(f.conditions)] = mean_u_db(gains)
-    return out
-
-
-def attach_uncertainty(figures: Sequence[Figure], captures: pd.DataFrame,
-                       specs: InstrumentSpecs | None = None,
-                       cal: CalibrationState = UNCALIBRATED) -> list[Figure]:
-    """The figures with ``uncertainty_db`` (expanded, k from ``specs``) and ``budget`` set
-    where a budget exists; the others are returned unchanged."""
-    specs = specs or InstrumentSpecs()
-    levels = PointLevels.from_captures(captures)
-    small_signal_u = small_signal_gain_u(figures, levels)
-    out: list[Figure] = []
-    sides: dict[tuple, Figure] = {}
-    side_names = _SIDE_NAMES
-    lines: dict[tuple, Any] = {}
-    # the budgets are worked out per group of figures of one kind (the same numbers,
-    # line for line, as figure_budget one figure at a time: tests/analysis/
-    # test_uncertainty_groups.py); imported here, the grouped path builds on this module
-    from sweeprig.analysis.budget_groups import grouped_budgets
-
-    with collector_paused():  # a large run makes hundreds of thousands of budgets
-        budgets = grouped_budgets(figures, levels, specs, cal, small_signal_u, lines)
-        for f, budget in zip(figures, budgets, strict=True):
-            if budget is not None:
-                f = with_changes(f, uncertainty_db=budget.expanded_db, budget=budget)
-                if f.name in side_names:
-                    sides[(f.name, _condition_key(f.conditions), f.value)] = f
-            out.append(f)
-    for i, f in enumerate(out):
-        if f.name in WORST_OF and f.is_number:
-            for side in WORST_OF[f.name]:
-                match = sides.get((side, _condition_key(f.conditions), f.value))
-                if match is not None:
-                    out[i] = with_changes(f, uncertainty_db=match.uncertainty_db,
-                                     budget=match.budget)
-                    break
     return out
 
 

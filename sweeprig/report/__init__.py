@@ -1,11 +1,12 @@
 """sweeprig.report: a reduced run (:class:`~sweeprig.analysis.reduce.RunFigures`) as files.
 
 :func:`write_report` writes the whole set into one folder: ``report.html`` (self-contained,
-plots embedded), ``figures.json`` (the run, its limits, verdicts and summary; format 3), the
+plots embedded), ``figures.json`` (the run, its limits, verdicts and summary; format 4), the
 tidy tables ``figures.csv``/``.parquet`` (every figure with the point indices behind it: the
 figure table ``figures.json`` refers to) and ``captures.csv``/``.parquet``, and
-``budgets.csv`` and ``budget-terms.csv`` (every distinct uncertainty budget and budget line
-once). The pieces:
+``budgets.csv`` and ``budget-terms.csv`` (every distinct shared part of an uncertainty
+budget and every distinct budget line once; each figure's own noise inputs and u_c are
+columns of the figure table). The pieces:
 :mod:`~sweeprig.report.plots`, :mod:`~sweeprig.report.html`, :mod:`~sweeprig.report.tables`,
 :mod:`~sweeprig.report.terminal`.
 """
@@ -31,7 +32,7 @@ class ReportFiles:
     html: Path
     figures_json: Path
     tables: tuple[Path, ...]
-    #: The distinct-budget tables beside ``figures_json`` (budgets, then budget lines).
+    #: The budget tables beside ``figures_json`` (shared parts, then budget lines).
     budgets: tuple[Path, ...] = ()
 
     @property
@@ -46,12 +47,10 @@ def write_report(run: RunFigures, folder: Path | str,
 
     Raises :class:`~sweeprig.errors.StoreError` naming the path when a file cannot be written.
     """
+    from sweeprig.report.budget_tables import BUDGET_TERMS_FILE, BUDGETS_FILE, figure_budgets
     from sweeprig.report.html import write_html
     from sweeprig.report.plots import all_plots
     from sweeprig.report.tables import (
-        BUDGET_TERMS_FILE,
-        BUDGETS_FILE,
-        figure_budgets,
         make_folder,
         summary_rows,
         write_figures_json,
@@ -65,7 +64,7 @@ def write_report(run: RunFigures, folder: Path | str,
     # the figure table (figures.csv) is written by write_tables, with the same budgets
     figures = write_figures_json(run, out / "figures.json", budgets=budgets,
                                  rows_written=True, summary=summary)
-    del budgets  # a large run's distinct budgets: not held while the plots are drawn
+    del budgets  # a large run's budget columns: not held while the plots are drawn
     page = write_html(out / "report.html", run, summary,
                       all_plots(run) if plots is None else plots)
     return ReportFiles(out, page, figures, tuple(tables),

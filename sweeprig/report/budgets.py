@@ -1,13 +1,16 @@
 """The report's uncertainty section: one GUM budget per headline figure.
 
 For each headline figure that has a budget, the budget of its figure with the largest
-expanded uncertainty is shown (every figure's own budget is in ``figures.json``).
+expanded uncertainty is shown, its shared lines and its own noise lines put back together by
+:func:`~sweeprig.analysis.budget_parts.budget_lines` (every figure's own budget is in the
+tables beside ``figures.json``).
 """
 
 from __future__ import annotations
 
 import html
 
+from sweeprig.analysis.budget_parts import budget_lines
 from sweeprig.analysis.figures import Figure
 from sweeprig.analysis.reduce import RunFigures
 from sweeprig.report.tables import FIGURE_LABELS, HEADLINE_FIGURES, figure_text
@@ -44,7 +47,7 @@ def budget_section(run: RunFigures) -> str:
             f'<td class="num">{c.standard_db:.3f}</td><td class="num">{c.sensitivity:g}</td>'
             f'<td class="num">{c.contribution_db:.3f}</td><td>{c.kind}</td>'
             f'<td class="small">{e(c.origin)}</td></tr>'
-            for c in budget.contributions)
+            for c in budget_lines(budget))
         label = FIGURE_LABELS.get(figure.name, figure.name)
         parts.append(
             f"<h3>{e(label)}: {e(figure_text(figure))}</h3>"

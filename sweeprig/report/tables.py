@@ -4,13 +4,14 @@
   group of conditions (study, temperature, supply), the worst figure of the group against
   its limit, the verdict of the group, and the validity flags met in it.
 * :func:`figures_document` — the run, its limits, judgements, verdict and summary
-  (``figures.json``, format 3), naming the tables beside it that hold the figures and their
-  budgets; :func:`read_figures_document` reads it back (format 2 too).
+  (``figures.json``, format 4), naming the tables beside it that hold the figures and their
+  budgets; :func:`read_figures_document` reads it back (formats 2 and 3 too).
 * :func:`figures_frame` / :func:`write_tables` — every figure with its value, bound, unit,
   conditions, flags, verdict, budget number and the run-store point indices behind it, and
   the raw captures, as tidy tables (``figures.csv``/``.parquet``, ``captures.csv``/
-  ``.parquet``); :func:`budgets_frame` / :func:`budget_terms_frame` the distinct budgets and
-  budget lines (``budgets.csv``, ``budget-terms.csv``).
+  ``.parquet``); the budgets' shared parts and lines (``budgets.csv``,
+  ``budget-terms.csv``) and the figure table's budget columns come from
+  :mod:`sweeprig.report.budget_tables`.
 
 Also the text formatting shared by the HTML and terminal reports (values with units,
 conditions, flag badges and their explanations).
@@ -42,15 +43,24 @@ from sweeprig.analysis.figures import (
 )
 from sweeprig.analysis.limits import FAIL, INCONCLUSIVE, PASS, Judgement, Limit
 from sweeprig.analysis.reduce import RunFigures
-from sweeprig.analysis.uncertainty import (
-    BUDGET_METHOD,
-    COVERAGE_FACTOR,
-    DIVISORS,
-    Budget,
-    Contribution,
-    uncertainty_text,
-)
+from sweeprig.analysis.uncertainty import BUDGET_METHOD, COVERAGE_FACTOR, uncertainty_text
 from sweeprig.errors import StoreError
+from sweeprig.report.budget_tables import (
+    BUDGET_COLUMNS,
+    BUDGET_FIGURE_COLUMNS,
+    BUDGET_INTEGER_COLUMNS,
+    BUDGET_TERM_COLUMNS,
+    BUDGET_TERMS_FILE,
+    BUDGETS_FILE,
+    BudgetEntries,
+    FigureBudgets,
+    budget_columns,
+    budget_terms_frame,
+    budgets_frame,
+    figure_budget_from_row,
+    figure_budgets,
+    read_budget_tables,
+)
 from sweeprig.units import format_frequency
 
 #: Figures shown in the summary, in this order (every other figure is in the JSON and the
@@ -508,24 +518,25 @@ def _texts3(figures: Sequence[Figure], table: Mapping[str, np.ndarray]) -> np.nd
 def _document(run: RunFigures, budgets: FigureBudgets,
               summary: Sequence[SummaryRow] | None = None) -> dict[str, Any]:
     """Everything the report states but the per-figure rows, as JSON-able data
-    (``figures.json``, format 3).
+    (``figures.json``, format 4).
 
     The figures themselves are rows of the table named by ``figure_table`` (``figures.csv``
     beside the JSON, :func:`figures_frame`: one row per figure, its ``figure`` number, value,
     bound, unit, text, verdict, flags, run-store ``points`` (traceable to ``captures.csv``'s
-    ``point``), ``budget`` number and conditions). ``judgements`` refer to figures by that
+    ``point``), its budget columns and conditions). ``judgements`` refer to figures by that
     number and to limits by their index in ``limits``. ``summary`` is the report's summary
     table (one row per headline figure and group of conditions). ``flag_meanings`` says in
     one line what every flag name means; ``suspect_flags`` lists those that make a limit
     check on the figure inconclusive.
 
-    A figure's budget is a row of the table named by ``budget_table`` (``budgets.csv``:
-    every distinct budget of the run once, its combined and expanded uncertainty, coverage
-    factor and its ``contributions`` as space-separated numbers of rows of the table named
-    by ``budget_terms_table``, ``budget-terms.csv``: every distinct budget line, each written
-    once with its source, distribution, sensitivity and GUM type). So the JSON stays small
-    however many points the run has: its only lists that grow with the run are
-    ``judgements`` and ``events``.
+    A figure's budget is its shared part, a row of the table named by ``budget_table``
+    (``budgets.csv``: every distinct shared part once, its coverage factor, its lines'
+    numbers in the table named by ``budget_terms_table``, ``budget-terms.csv``, and the
+    readings whose noise matters with their sensitivities), and its own columns in the
+    figure table (u_c, the SNR and sweeps of each such reading, a fitted figure's own
+    lines): :mod:`sweeprig.report.budget_tables`. So the JSON stays small however many
+    points the run has: its only lists that grow with the run are ``judgements`` and
+    ``events``; the budget tables grow with the kinds of figure.
 
     The long lists (``judgements``, ``events``) are :class:`_Stream` objects here:
     :func:`figures_document` makes them lists, :func:`write_figures_json` writes them entry
@@ -602,7 +613,7 @@ def _document(run: RunFigures, budgets: FigureBudgets,
         ),
         "untested_limits": [limit_index[id(li)] for li in run.assessment.untested],
         "budget_method": BUDGET_METHOD,
-        "budget_table": {"file": BUDGETS_FILE, "rows": len(budgets.budgets),
+        "budget_table": {"file": BUDGETS_FILE, "rows": len(budgets.shared),
                          "columns": list(BUDGET_COLUMNS)},
         "budget_terms_table": {"file": BUDGET_TERMS_FILE, "rows": len(budgets.terms),
                                "columns": list(BUDGET_TERM_COLUMNS)},
@@ -616,126 +627,23 @@ def _document(run: RunFigures, budgets: FigureBudgets,
     }
 
 
-#: The ``format`` of ``figures.json``: 3 since the per-figure rows and the distinct budgets
-#: sit in tables beside it (2: every figure and its budget in the JSON itself).
-FIGURES_FORMAT = "sweeprig figures 3"
+#: The ``format`` of ``figures.json``: 4 since a budget is a shared part (``budgets.csv``,
+#: one row per kind of figure) and the figure's own noise inputs (columns of the figure
+#: table); 3: every distinct budget a row of ``budgets.csv``; 2: every figure and its
+#: budget in the JSON itself.
+FIGURES_FORMAT = "sweeprig figures 4"
 #: The formats :func:`read_figures_document` reads.
-READABLE_FIGURES_FORMATS: tuple[str, ...] = ("sweeprig figures 2", FIGURES_FORMAT)
+READABLE_FIGURES_FORMATS: tuple[str, ...] = ("sweeprig figures 2", "sweeprig figures 3",
+                                             FIGURES_FORMAT)
 #: The per-figure table beside ``figures.json`` (:func:`figures_frame`).
 FIGURE_ROWS_FILE = "figures.csv"
-#: The distinct-budget table beside ``figures.json``.
-BUDGETS_FILE = "budgets.csv"
-#: The table of distinct budget lines beside ``figures.json``.
-BUDGET_TERMS_FILE = "budget-terms.csv"
-#: Its columns: the line's number, then :meth:`Contribution.as_dict`'s keys.
-BUDGET_TERM_COLUMNS: tuple[str, ...] = (
-    "term", "name", "what", "half_width_db", "distribution", "divisor",
-    "standard_uncertainty_db", "sensitivity", "contribution_db", "type", "origin")
 _TERM_NUMBERS = frozenset({"half_width_db", "divisor", "standard_uncertainty_db",
                            "sensitivity", "contribution_db"})
-#: The columns of the figure table before its condition columns.
+#: The columns of the figure table before its condition columns (its budget columns:
+#: :data:`~sweeprig.report.budget_tables.BUDGET_FIGURE_COLUMNS`).
 FIGURE_COLUMNS: tuple[str, ...] = ("figure", "name", "value", "unit", "bound",
                                    "uncertainty_db", "text", "verdict", "flags", "points",
-                                   "budget")
-#: The columns of the distinct-budget table.
-BUDGET_COLUMNS: tuple[str, ...] = ("budget", "combined_standard_uncertainty_db",
-                                   "coverage_factor", "expanded_uncertainty_db",
-                                   "contributions")
-
-
-@dataclass(frozen=True)
-class FigureBudgets:
-    """A run's budgets stored once each: ``terms`` every distinct budget line in order of
-    first use; ``budgets`` every distinct budget as (coverage factor, combined standard
-    uncertainty in dB, its lines' numbers in ``terms``), in order of first use; ``ids`` per
-    figure (in ``run.figures`` order) its budget's number, None without one."""
-
-    terms: tuple[Contribution, ...]
-    budgets: tuple[tuple[float, float, tuple[int, ...]], ...]
-    ids: tuple[int | None, ...]
-
-
-def figure_budgets(run: RunFigures) -> FigureBudgets:
-    """The distinct lines and budgets of ``run``'s figures (see :class:`FigureBudgets`).
-
-    Two budgets are the same when they have the same lines (equal contributions) and
-    coverage factor; a large run shares its instrument lines between every figure of a kind
-    and its SNR-dependent noise lines between every figure at the same SNR."""
-    term_numbers: dict[Contribution, int] = {}
-    # the same line object recurs in many budgets: found by identity first (hashing a line
-    # hashes its text)
-    by_id: dict[int, tuple[Contribution, int]] = {}
-    budget_numbers: dict[tuple[float, tuple[int, ...]], int] = {}
-    seen: dict[int, tuple[Budget, int]] = {}
-    budgets: list[tuple[float, float, tuple[int, ...]]] = []
-    ids: list[int | None] = []
-    with collector_paused():
-        for f in run.figures:
-            budget = f.budget
-            if budget is None:
-                ids.append(None)
-                continue
-            known_budget = seen.get(id(budget))
-            if known_budget is None:
-                numbers = []
-                for term in budget.contributions:
-                    known = by_id.get(id(term))
-                    if known is None:
-                        number = term_numbers.get(term)
-                        if number is None:
-                            number = term_numbers[term] = len(term_numbers)
-                        known = by_id[id(term)] = (term, number)
-                    numbers.append(known[1])
-                key = (budget.coverage_factor, tuple(numbers))
-                number = budget_numbers.get(key)
-                if number is None:
-                    number = budget_numbers[key] = len(budgets)
-                    budgets.append((budget.coverage_factor, budget.combined_db, key[1]))
-                known_budget = seen[id(budget)] = (budget, number)
-            ids.append(known_budget[1])
-    return FigureBudgets(tuple(term_numbers), tuple(budgets), tuple(ids))
-
-
-def budgets_frame(budgets: FigureBudgets) -> pd.DataFrame:
-    """The distinct-budget table (``budgets.csv``, columns :data:`BUDGET_COLUMNS`): per
-    budget its number, u_c and U = k·u_c in dB, k, and its lines' numbers in
-    ``budget_terms`` (space-separated)."""
-    rows = budgets.budgets
-    combined = np.array([b[1] for b in rows], dtype=float)
-    factor = np.array([b[0] for b in rows], dtype=float)
-    return pd.DataFrame({
-        "budget": np.arange(len(rows), dtype=np.int64),
-        "combined_standard_uncertainty_db": combined,
-        "coverage_factor": factor,
-        "expanded_uncertainty_db": factor * combined,
-        "contributions": [" ".join(map(str, b[2])) for b in rows],
-    }, columns=list(BUDGET_COLUMNS))
-
-
-def budget_terms_frame(budgets: FigureBudgets) -> pd.DataFrame:
-    """The table of distinct budget lines (``budget-terms.csv``, columns
-    :data:`BUDGET_TERM_COLUMNS`, the keys of :meth:`Contribution.as_dict`): every line
-    complete, with its source, distribution, divisor, sensitivity, contribution and GUM
-    type. Built column by column from the lines (a large run has hundreds of thousands of
-    lines: a dict per line would hold gigabytes)."""
-    terms = budgets.terms
-    half = np.array([t.half_width_db for t in terms], dtype=float)
-    shapes = [t.shape for t in terms]
-    divisors = {shape: DIVISORS.get(shape, math.nan) for shape in set(shapes)}
-    columns: dict[str, object] = {
-        "term": np.arange(len(terms), dtype=np.int64),
-        "name": pd.Series([t.name for t in terms], dtype=object),
-        "what": pd.Series([t.what for t in terms], dtype=object),
-        "half_width_db": half,
-        "distribution": pd.Series(shapes, dtype=object),
-        "divisor": np.array([divisors[s] for s in shapes], dtype=float),
-        "standard_uncertainty_db": np.array([t.standard_db for t in terms], dtype=float),
-        "sensitivity": np.array([t.sensitivity for t in terms], dtype=float),
-        "contribution_db": np.array([t.contribution_db for t in terms], dtype=float),
-        "type": pd.Series([t.kind for t in terms], dtype=object),
-        "origin": pd.Series([t.origin for t in terms], dtype=object),
-    }
-    return pd.DataFrame(columns, columns=list(BUDGET_TERM_COLUMNS))
+                                   *BUDGET_FIGURE_COLUMNS)
 
 
 def figures_document(run: RunFigures) -> dict[str, Any]:
@@ -816,8 +724,10 @@ def read_figures_document(path: Path) -> dict[str, Any]:
     as the format-2 document: every figure an entry of ``figures`` (name, value, unit,
     bound, text, conditions, flags, points, uncertainty_db, budget with its totals and
     ``contributions`` as indices into ``budget_terms``, the list of every distinct line).
-    Format 3's per-figure rows, budgets and lines are read from its tables beside it.
-    Anything else: a StoreError naming the file.
+    Formats 3 and 4 are read with their tables beside them (format 4: each figure's lines
+    put back together from its shared part and its own columns by
+    :func:`~sweeprig.analysis.budget_parts.budget_lines`). Anything else: a StoreError
+    naming the file.
     """
     import csv
 
@@ -833,21 +743,37 @@ def read_figures_document(path: Path) -> dict[str, Any]:
             f"the figures file's format is {found!r}, not one this version reads "
             f"({', '.join(READABLE_FIGURES_FORMATS)})", where=where,
             fix="write the report again with this version (sweeprig report RUN)")
-    if found != FIGURES_FORMAT:
+    if found == "sweeprig figures 2":
         return document
     table = document["figure_table"]
     budget_table = document["budget_table"]
     terms_table = document["budget_terms_table"]
+    folder = path.parent
     try:
-        with (path.parent / terms_table["file"]).open(encoding="utf-8", newline="") as f:
-            terms = [{k: float(v) if k in _TERM_NUMBERS else v for k, v in row.items()
-                      if k != "term"} for row in csv.DictReader(f)]
-        with (path.parent / budget_table["file"]).open(encoding="utf-8", newline="") as f:
-            budgets = [_budget_entry(row) for row in csv.DictReader(f)]
-        with (path.parent / table["file"]).open(encoding="utf-8", newline="") as f:
-            text = frozenset(table["text_conditions"])
-            figures = [_figure_entry(row, table["conditions"], text, budgets)
-                       for row in csv.DictReader(f)]
+        text = frozenset(table["text_conditions"])
+        if found == FIGURES_FORMAT:
+            lines, shared = read_budget_tables(folder, budget_table["file"],
+                                               terms_table["file"])
+            entries = BudgetEntries()
+            with (folder / table["file"]).open(encoding="utf-8", newline="") as f:
+                figures = []
+                for row in csv.DictReader(f):
+                    budget = figure_budget_from_row(row, lines, shared)
+                    figures.append(_figure_entry(
+                        row, table["conditions"], text,
+                        None if budget is None else entries.entry(budget)))
+            terms = entries.terms
+        else:
+            with (folder / terms_table["file"]).open(encoding="utf-8", newline="") as f:
+                terms = [{k: float(v) if k in _TERM_NUMBERS else v for k, v in row.items()
+                          if k != "term"} for row in csv.DictReader(f)]
+            with (folder / budget_table["file"]).open(encoding="utf-8", newline="") as f:
+                budgets = [_budget_entry(row) for row in csv.DictReader(f)]
+            with (folder / table["file"]).open(encoding="utf-8", newline="") as f:
+                figures = [_figure_entry(row, table["conditions"], text,
+                                         budgets[int(row["budget"])] if row["budget"]
+                                         else None)
+                           for row in csv.DictReader(f)]
     except (OSError, KeyError, ValueError, IndexError) as exc:
         raise StoreError(f"cannot read a table of the figures file: {exc}", where=where,
                          fix=f"keep {table['file']}, {budget_table['file']} and "
@@ -876,7 +802,7 @@ def _budget_entry(row: Mapping[str, str]) -> dict[str, object]:
 
 
 def _figure_entry(row: Mapping[str, str], conditions: Sequence[str],
-                  text_conditions: frozenset[str], budgets: Sequence[dict[str, object]]
+                  text_conditions: frozenset[str], budget: dict[str, object] | None
                   ) -> dict[str, object]:
     bound = row["bound"] or None
     conds: dict[str, object] = {}
@@ -889,7 +815,7 @@ def _figure_entry(row: Mapping[str, str], conditions: Sequence[str],
             "bound": bound, "text": row["text"], "conditions": conds,
             "flags": row["flags"].split(), "points": [int(p) for p in row["points"].split()],
             "uncertainty_db": _cell_number(row["uncertainty_db"]),
-            "budget": budgets[int(row["budget"])] if row["budget"] else None}
+            "budget": budget}
 
 
 def figures_frame(run: RunFigures, budgets: FigureBudgets | None = None) -> pd.DataFrame:
@@ -897,8 +823,9 @@ def figures_frame(run: RunFigures, budgets: FigureBudgets | None = None) -> pd.D
     ``figure`` (its number), ``name``, ``value``, ``unit``, ``bound`` ("<", ">" or empty),
     ``uncertainty_db`` (expanded, k = 2; NaN without a budget), ``text``, ``verdict`` (worst
     over its limits, empty when none applies), ``flags`` and ``points`` (space-separated),
-    ``budget`` (its number in the distinct-budget table, :func:`figure_budgets`; empty
-    without one), then one column per condition."""
+    then the budget columns (:func:`~sweeprig.report.budget_tables.budget_columns`: its
+    shared part's number in ``budgets.csv``, u_c, SNRs, sweeps, own lines; empty without a
+    budget), then one column per condition."""
     if budgets is None:
         budgets = figure_budgets(run)
     return _figure_rows(run, budgets, 0, len(run.figures), _condition_kinds(run),
@@ -971,8 +898,9 @@ def _figure_rows(run: RunFigures, budgets: FigureBudgets, first: int, stop: int,
         "verdict": np.array([verdicts.get(id(f), "") for f in figures], dtype=object),
         "flags": np.array([flag_texts[m] for m in masks], dtype=object),
         "points": _points_texts(table["points"].tolist()),
-        # object: whole numbers with empty cells (a list would become floats with NaN)
-        "budget": np.array(budgets.ids[first:stop], dtype=object),
+        # the budget columns, as the budgets give them (whole numbers with empty cells:
+        # object columns)
+        **budget_columns(budgets, first, stop),
     }
     for key, text in kinds.items():
         column = table.get(key)
@@ -1062,7 +990,8 @@ class _FigureTableWriters:
             import pyarrow as pa
             import pyarrow.parquet as pq
 
-            frame = frame.assign(budget=pd.array(frame["budget"].tolist(), dtype="Int64"))
+            frame = frame.assign(**{name: pd.array(frame[name].tolist(), dtype="Int64")
+                                    for name in BUDGET_INTEGER_COLUMNS})
             if self._parquet is None:
                 table = pa.Table.from_pandas(frame, preserve_index=False)
                 self._parquet = pq.ParquetWriter(self.paths["parquet"], table.schema)

@@ -12,6 +12,7 @@ import pandas as pd
 import pytest
 from scipy.optimize import curve_fit
 
+from sweeprig.analysis.budget_groups import attach_uncertainty, figure_budget
 from sweeprig.analysis.figures import Figure
 from sweeprig.analysis.limits import FAIL, INCONCLUSIVE, PASS, Limit, assess, judge
 from sweeprig.analysis.reduce import RunFigures, reduce_run
@@ -24,9 +25,7 @@ from sweeprig.analysis.uncertainty import (
     InstrumentSpecs,
     PointLevels,
     Spec,
-    attach_uncertainty,
     combine,
-    figure_budget,
     intercept_fit_u_db,
     mean_u_db,
     mismatch_half_width_db,
@@ -351,9 +350,9 @@ def test_attach_sets_every_budget_and_the_headline_intercept_takes_its_sides():
 
 
 def test_a_runs_budgets_share_their_lines_and_equal_budgets_made_one_by_one():
-    """attach_uncertainty makes each noise line once per reading, SNR and sensitivity (the
-    per-drive IIP3 and OIP3 read the same product) and shares it; every budget is what
-    figure_budget gives for the figure alone."""
+    """attach_uncertainty gives every figure of a kind one shared part and its own noise
+    lines (the per-drive IIP3 and OIP3 read the same product: the same lines); every budget
+    is what figure_budget gives for the figure alone."""
     rows = [(0, "if", -20.0, -8.0, -90.0), (0, "im3_low", -20.0, -70.0, -90.0),
             (1, "if", -18.0, -6.0, -90.0), (1, "im3_low", -18.0, -64.0, -90.0)]
     figures = [Figure(name, 20.0 + k, "dBm", conditions={"study": "two-tone"}, points=(p,))
@@ -363,12 +362,17 @@ def test_a_runs_budgets_share_their_lines_and_equal_budgets_made_one_by_one():
     out = attach_uncertainty(figures, captures)
     levels, specs = PointLevels.from_captures(captures), InstrumentSpecs()
     for made, figure in zip(out, figures, strict=True):
-        assert made.budget == figure_budget(figure, levels, specs)
-    iip3, oip3 = out[0].budget.contributions, out[1].budget.contributions
-    shared = [c for c in iip3 if any(c is d for d in oip3)]
-    assert {c.name for c in shared} >= {"noise", "noise_scatter"}  # same product, same c
-    assert not any(c is d for c in out[0].budget.contributions  # another point: its own
-                   for d in out[3].budget.contributions if c.name == "noise")
+        alone = figure_budget(figure, levels, specs)
+        assert made.budget.contributions == alone.contributions
+        assert made.uncertainty_db == pytest.approx(alone.expanded_db, abs=1e-12)
+
+    def noise(budget):
+        return [c for c in budget.contributions if c.name.startswith("noise")]
+
+    assert {c.name for c in noise(out[0].budget)} == {"noise", "noise_scatter"}
+    assert noise(out[0].budget) == noise(out[1].budget)  # same product, same c
+    assert noise(out[0].budget) != noise(out[3].budget)  # another point: its own
+    assert out[0].budget.shared is out[3].budget.shared  # one kind: one shared part
 
 
 def test_text_with_uncertainty():

@@ -2,11 +2,13 @@
 
 Run with ``pytest -m perf tests/perf/test_perf_uncertainty_groups.py -s``. A synthetic store
 of 10,000 points (``synthetic_store.py``, a fictional part) is reduced once; its figures and
-captures are then given to the per-figure path (``per_figure_budgets``: ``figure_budget``
-one figure at a time, the reference) and to the grouped path (``grouped_budgets``, what
-``attach_uncertainty`` uses), interleaved, three times each. Printed: the CPU time of each
-(median of 3), their ratio, the CPU time of ``reduce_run`` (median of 3), the number of
-figures with a budget and of distinct budgets, and the load average (a shared machine).
+captures are then given to the per-figure reference (``reference_budget`` of
+tests/analysis/test_uncertainty_groups.py: every figure's whole budget, one at a time, as
+earlier versions made them) and to the grouped path (``grouped_budgets``, what
+``attach_uncertainty`` uses: a shared part per kind, the noise per figure with numpy),
+interleaved, three times each. Printed: the CPU time of each (median of 3), their ratio,
+the CPU time of ``reduce_run`` (median of 3), the number of figures with a budget and of
+distinct shared parts, and the load average (a shared machine).
 Asserted: every figure's budget is the reference's, line for line, and its expanded
 uncertainty within 1e-12 dB (no time is asserted).
 """
@@ -21,7 +23,7 @@ from pathlib import Path
 import pytest
 from synthetic_store import write_synthetic_store
 
-from sweeprig.analysis.budget_groups import grouped_budgets, per_figure_budgets
+from sweeprig.analysis.budget_groups import grouped_budgets
 from sweeprig.analysis.reduce import reduce_run
 from sweeprig.analysis.uncertainty import (
     UNCALIBRATED,
@@ -30,7 +32,7 @@ from sweeprig.analysis.uncertainty import (
     small_signal_gain_u,
 )
 from sweeprig.store.sqlite import SqliteRunStore
-from tests.analysis.test_uncertainty_groups import assert_same_budgets
+from tests.analysis.test_uncertainty_groups import assert_same_budgets, reference_budget
 
 POINTS = 10_000
 
@@ -53,15 +55,17 @@ def test_perf_uncertainty_budgets_grouped_against_per_figure(tmp_path: Path) -> 
     cpu: dict[str, list[float]] = {"per figure": [], "grouped": []}
     distinct = 0
     for _ in range(3):
-        for name, path_ in (("per figure", per_figure_budgets), ("grouped", grouped_budgets)):
-            start = time.process_time()
-            budgets = path_(figures, levels, specs, UNCALIBRATED, small_signal_u)
-            cpu[name].append(time.process_time() - start)
-            if name == "grouped":
-                distinct = len({id(b) for b in budgets if b is not None})
+        start = time.process_time()
+        for f in figures:
+            reference_budget(f, levels, specs, UNCALIBRATED, small_signal_u)
+        cpu["per figure"].append(time.process_time() - start)
+        start = time.process_time()
+        budgets = grouped_budgets(figures, captures, specs, UNCALIBRATED)
+        cpu["grouped"].append(time.process_time() - start)
+        distinct = len({id(b.shared) for b in budgets if b is not None})
     per, grouped = (statistics.median(cpu[k]) for k in ("per figure", "grouped"))
     print(f"\n{len(figures)} figures, {with_budget} with a budget, {distinct} distinct "
-          f"budget objects (grouped); load average {os.getloadavg()[0]:.2f}")
+          f"shared parts (grouped); load average {os.getloadavg()[0]:.2f}")
     print(f"budgets, CPU s (median of 3): per figure {per:.3f}, grouped {grouped:.3f}, "
           f"ratio grouped/per figure {grouped / per:.2f}")
     print(f"reduce_run, CPU s (median of 3): {statistics.median(reduce_cpu):.3f} "

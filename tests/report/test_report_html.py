@@ -236,3 +236,44 @@ def test_the_report_shows_each_figure_with_its_uncertainty_and_budget(report_run
     assert widest and widest[0].name == "conversion_gain"
     assert f"<b>{widest[0].budget.expanded_db:.3f}</b>" in page
     assert "default (assumption" in page  # defaults say they are assumptions
+
+
+def test_the_budget_section_shows_every_line_of_the_whole_budget(report_run, report_files):
+    """The HTML budget section shows, for each widest figure, the lines of its whole budget
+    as the per-figure path of earlier versions made them (its shared lines and its own noise
+    lines, put back together: the same names, texts and numbers, in the same order) and its
+    u_c and U (tests/analysis/test_uncertainty_groups.py's reference)."""
+
+    from pathlib import Path
+
+    from sweeprig.analysis.bench_specs import calibration_state, specs_from_bench_text
+    from sweeprig.analysis.uncertainty import PointLevels, small_signal_gain_u
+    from sweeprig.report.budgets import budget_section, widest_budgets
+    from tests.analysis.test_uncertainty_groups import reference_budget
+
+    section = budget_section(report_run)
+    assert section in report_files.html.read_text(encoding="utf-8")
+    assert report_run.bench_path is not None
+    bench = Path(report_run.bench_path)
+    specs = specs_from_bench_text(bench.read_text(encoding="utf-8"), str(bench)).specs
+    cal = calibration_state(report_run.events)[0]
+    levels = PointLevels.from_captures(report_run.captures)
+    small_signal_u = small_signal_gain_u(report_run.figures, levels)
+    tables = section.split("<h3>")[1:]
+    shown = 0
+    for figure, table in zip(widest_budgets(report_run), tables, strict=True):
+        want = reference_budget(figure, levels, specs, cal, small_signal_u)
+        if want is None:  # a headline worse-of-two-sides figure: its side's budget
+            continue
+        rows = re.findall(r"<tr><td>(.*?)</td><td>(.*?)</td><td class=\"num\">± (.*?)</td>"
+                          r"<td>(.*?)</td><td class=\"num\">(.*?)</td><td class=\"num\">(.*?)"
+                          r"</td><td class=\"num\">(.*?)</td><td>(.*?)</td>", table)
+        assert rows == [(html_lib.escape(c.name), html_lib.escape(c.what),
+                         f"{c.half_width_db:.3f}", html_lib.escape(c.shape),
+                         f"{c.standard_db:.3f}", f"{c.sensitivity:g}",
+                         f"{c.contribution_db:.3f}", c.kind)
+                        for c in want.contributions], figure.name
+        assert f'<td class="num">{want.combined_db:.3f}</td>' in table
+        assert f"<b>{want.expanded_db:.3f}</b>" in table
+        shown += 1
+    assert shown >= 3

@@ -11,7 +11,9 @@ import pytest
 
 from sweeprig.analysis.figures import Figure
 from sweeprig.analysis.limits import Limit
+from sweeprig.report.budget_tables import BUDGET_INTEGER_COLUMNS
 from sweeprig.report.tables import (
+    FIGURE_COLUMNS,
     compact_limit_text,
     conditions_text,
     figure_text,
@@ -136,7 +138,7 @@ def test_numbers_carry_their_expanded_uncertainty_and_budget(report_run, report_
             lines = [terms[i]["contribution_db"] for i in entry["budget"]["contributions"]]
             assert entry["budget"]["combined_standard_uncertainty_db"] == pytest.approx(
                 math.sqrt(sum(c * c for c in lines)))
-    assert document["format"] == "sweeprig figures 3"
+    assert document["format"] == "sweeprig figures 4"
     assert document["budget_method"].startswith("JCGM 100:2008")
     # No budget for a figure in amperes; bounds carry none either.
     if "supply_current" in by_name:
@@ -178,30 +180,37 @@ def test_figures_table_text_is_figure_text(report_run):
 
 def test_figures_json_keeps_its_figures_and_budgets_in_tables_beside_it(report_run,
                                                                         report_files):
-    """Format 3: the JSON holds the run, limits, judgements and summary; the figures are
-    the rows of figures.csv and each distinct budget is one row of budgets.csv."""
+    """Format 4: the JSON holds the run, limits, judgements and summary; the figures are
+    the rows of figures.csv (with each figure's own budget columns: u_c, SNRs, sweeps) and
+    each distinct shared part of a budget is one row of budgets.csv."""
     document = json.loads(report_files.figures_json.read_text(encoding="utf-8"))
     assert "figures" not in document
     assert document["figure_table"]["file"] == "figures.csv"
     assert document["figure_table"]["rows"] == document["figure_count"] == len(
         report_run.figures)
     figures = pd.read_csv(report_files.folder / "figures.csv", keep_default_na=False)
-    budgets = pd.read_csv(report_files.folder / "budgets.csv")
+    assert list(figures.columns[:len(FIGURE_COLUMNS)]) == list(FIGURE_COLUMNS)
+    budgets = pd.read_csv(report_files.folder / "budgets.csv", keep_default_na=False)
     assert list(budgets.columns) == document["budget_table"]["columns"]
     assert len(budgets) == document["budget_table"]["rows"]
-    assert not budgets.duplicated(["coverage_factor", "contributions"]).any()
+    assert not budgets.duplicated(["coverage_factor", "contributions", "noise_readings",
+                                   "noise_sensitivities", "scatter_sensitivities"]).any()
+    # one shared part per kind of figure (and noisy reading), not one per figure
+    named = figures[figures["budget"] != ""]
+    assert len(budgets) <= named[["name", "budget"]].drop_duplicates().shape[0] < len(named)
     terms = pd.read_csv(report_files.folder / "budget-terms.csv")
     assert list(terms.columns) == document["budget_terms_table"]["columns"]
     assert len(terms) == document["budget_terms_table"]["rows"]
     assert "budget_terms" not in document
     used = {int(b) for b in figures["budget"] if b != ""}
     assert used == set(budgets["budget"])
-    # every figure with an uncertainty has a budget that states it
-    expanded = dict(zip(budgets["budget"], budgets["expanded_uncertainty_db"], strict=True))
-    for u, b in zip(figures["uncertainty_db"], figures["budget"], strict=True):
-        assert (u == "") == (b == "")
+    # every figure with an uncertainty has a budget that states it: U = k·u_c
+    factor = dict(zip(budgets["budget"], budgets["coverage_factor"], strict=True))
+    for u, uc, b in zip(figures["uncertainty_db"], figures["combined_uncertainty_db"],
+                        figures["budget"], strict=True):
+        assert (u == "") == (b == "") == (uc == "")
         if b != "":
-            assert float(u) == pytest.approx(expanded[int(b)])
+            assert float(u) == pytest.approx(factor[int(b)] * float(uc), abs=1e-12)
     # the summary names the figure row it shows
     assert document["summary"]
     for row in document["summary"]:
@@ -239,9 +248,9 @@ def test_a_format_3_file_without_its_tables_is_refused(report_files, tmp_path):
 
 def test_every_budget_line_is_written_whole(report_run):
     """budget-terms.csv's rows are the lines' own as_dict (source, shape, divisor,
-    sensitivity, contribution, GUM type), and every budget row adds its lines up to its u_c
-    (JCGM 100:2008 eq. (10))."""
-    from sweeprig.report.tables import budget_terms_frame, budgets_frame, figure_budgets
+    sensitivity, contribution, GUM type), and every shared part adds its lines up to its
+    stated root sum of squares (JCGM 100:2008 eq. (10))."""
+    from sweeprig.report.budget_tables import budget_terms_frame, budgets_frame, figure_budgets
 
     budgets = figure_budgets(report_run)
     terms = budget_terms_frame(budgets)
@@ -251,10 +260,50 @@ def test_every_budget_line_is_written_whole(report_run):
         assert row == term.as_dict()
     table = budgets_frame(budgets)
     contribution = terms["contribution_db"].to_numpy()
-    for u, lines in zip(table["combined_standard_uncertainty_db"], table["contributions"],
-                        strict=True):
+    for u, lines in zip(table["shared_uncertainty_db"], table["contributions"], strict=True):
         picked = contribution[[int(i) for i in lines.split()]]
         assert u == pytest.approx(math.sqrt(float((picked ** 2).sum())))
+
+
+def test_every_figures_budget_reads_back_line_for_line(report_run, report_files):
+    """Read back from figures.json and its tables, each figure's budget is the one the
+    reduction made, line for line (shared lines, its own noise lines: the same names, texts
+    and numbers) with the same u_c and U; and, for the figures of a model, the whole
+    per-figure budget earlier versions wrote (tests/analysis/test_uncertainty_groups.py's
+    reference)."""
+    from pathlib import Path
+
+    from sweeprig.analysis.bench_specs import calibration_state, specs_from_bench_text
+    from sweeprig.analysis.budget_parts import budget_lines
+    from sweeprig.analysis.uncertainty import MODELS, PointLevels, small_signal_gain_u
+    from tests.analysis.test_uncertainty_groups import reference_budget
+
+    document = read_figures_document(report_files.figures_json)
+    terms = document["budget_terms"]
+    levels = PointLevels.from_captures(report_run.captures)
+    # the specifications and calibration the reduction took (the run's bench file, events)
+    assert report_run.bench_path is not None
+    bench = Path(report_run.bench_path)
+    specs = specs_from_bench_text(bench.read_text(encoding="utf-8"), str(bench)).specs
+    cal = calibration_state(report_run.events)[0]
+    small_signal_u = small_signal_gain_u(report_run.figures, levels)
+    checked = 0
+    for figure, entry in zip(report_run.figures, document["figures"], strict=True):
+        assert entry["name"] == figure.name
+        if figure.budget is None:
+            assert entry["budget"] is None
+            continue
+        read = [terms[i] for i in entry["budget"]["contributions"]]
+        assert read == [c.as_dict() for c in budget_lines(figure.budget)]
+        assert entry["budget"]["combined_standard_uncertainty_db"] == figure.budget.combined_db
+        assert entry["budget"]["expanded_uncertainty_db"] == figure.uncertainty_db
+        if figure.name in MODELS:
+            want = reference_budget(figure, levels, specs, cal, small_signal_u)
+            assert want is not None
+            assert read == [c.as_dict() for c in want.contributions], figure
+            assert abs(figure.uncertainty_db - want.expanded_db) <= 1e-12
+            checked += 1
+    assert checked >= 20
 
 
 @pytest.mark.parametrize("rows", [29, 100_000])
@@ -276,8 +325,10 @@ def test_the_figure_table_written_in_slices_is_the_whole_table(report_run, tmp_p
     assert (tmp_path / "figures.csv").read_bytes() == (tmp_path / "whole.csv").read_bytes()
     parquet = pd.read_parquet(tmp_path / "figures.parquet")
     assert list(parquet.columns) == list(whole.columns) and len(parquet) == len(whole)
-    assert parquet["budget"].tolist() == [pd.NA if b is None else b for b in whole["budget"]]
-    pd.testing.assert_frame_equal(parquet.drop(columns="budget"), whole.drop(columns="budget"))
+    integers = list(BUDGET_INTEGER_COLUMNS)
+    for name in integers:
+        assert parquet[name].tolist() == [pd.NA if b is None else b for b in whole[name]]
+    pd.testing.assert_frame_equal(parquet.drop(columns=integers), whole.drop(columns=integers))
 
 
 def test_text_conditions_read_back_as_text(report_run, tmp_path):
@@ -306,3 +357,36 @@ def test_the_demo_runs_tables_are_written_as_pandas_writes_them(report_run, tmp_
         ours = write_frame_csv(frame, tmp_path / f"{name}.csv", chunk_rows=97)
         frame.to_csv(tmp_path / f"{name}.pandas.csv", index=False)
         assert ours.read_bytes() == (tmp_path / f"{name}.pandas.csv").read_bytes(), name
+
+
+def test_a_format_3_figures_file_is_still_read(tmp_path):
+    """Format 3 (every distinct whole budget a row of budgets.csv) reads into the same
+    shape as format 4 and 2."""
+    document = {
+        "format": "sweeprig figures 3", "verdict": "pass", "figure_count": 2,
+        "figure_table": {"file": "figures.csv", "rows": 2, "conditions": ["study"],
+                         "text_conditions": ["study"]},
+        "budget_table": {"file": "budgets.csv", "rows": 1},
+        "budget_terms_table": {"file": "budget-terms.csv", "rows": 2}}
+    (tmp_path / "figures.json").write_text(json.dumps(document), encoding="utf-8")
+    (tmp_path / "figures.csv").write_text(
+        "figure,name,value,unit,bound,uncertainty_db,text,verdict,flags,points,budget,study\n"
+        "0,conversion_gain,7.1,dB,,0.5,7.100 ± 0.500 dB (k = 2),,,3,0,gain\n"
+        "1,supply_current,0.03,A,,,30.00 mA,,,3,,gain\n", encoding="utf-8")
+    (tmp_path / "budgets.csv").write_text(
+        "budget,combined_standard_uncertainty_db,coverage_factor,expanded_uncertainty_db,"
+        "contributions\n0,0.25,2.0,0.5,0 1\n", encoding="utf-8")
+    (tmp_path / "budget-terms.csv").write_text(
+        "term,name,what,half_width_db,distribution,divisor,standard_uncertainty_db,"
+        "sensitivity,contribution_db,type,origin\n"
+        "0,input_level,source,0.3,normal-k2,2.0,0.15,-1.0,0.15,B,bench\n"
+        "1,noise,analyzer noise,0.2,standard,1.0,0.2,1.0,0.2,B,measured\n", encoding="utf-8")
+    read = read_figures_document(tmp_path / "figures.json")
+    gain, current = read["figures"]
+    assert gain["budget"] == {"combined_standard_uncertainty_db": 0.25,
+                              "coverage_factor": 2.0, "expanded_uncertainty_db": 0.5,
+                              "contributions": [0, 1]}
+    assert gain["conditions"] == {"study": "gain"} and gain["points"] == [3]
+    assert current["budget"] is None and current["uncertainty_db"] is None
+    assert [t["name"] for t in read["budget_terms"]] == ["input_level", "noise"]
+    assert read["budget_terms"][0]["contribution_db"] == 0.15

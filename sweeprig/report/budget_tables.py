@@ -1,0 +1,263 @@
+"""A run's uncertainty budgets as tables: the shared parts once, each figure's own part as
+columns of the figure table.
+
+A figure's budget is a shared part (:class:`~sweeprig.analysis.budget_parts.SharedBudget`:
+the lines that do not depend on the figure's own readings, one per kind of figure) and its
+own inputs (:class:`~sweeprig.analysis.budget_parts.FigureBudget`: the SNR and sweeps of
+each reading whose noise matters, a fitted figure's own lines, u_c). So beside
+``figures.json``:
+
+* ``budget-terms.csv`` (:func:`budget_terms_frame`): every distinct line of a shared part or
+  of a fitted figure's own lines, written whole once;
+* ``budgets.csv`` (:func:`budgets_frame`): every distinct shared part once: its lines'
+  numbers, k, the readings whose noise matters with the sensitivities of their noise and
+  noise-scatter lines, and the root sum of squares of its lines alone;
+* ``figures.csv``: per figure the columns :func:`budget_columns` gives
+  (:data:`BUDGET_FIGURE_COLUMNS`: its shared part's number, u_c, the SNRs and sweeps, its
+  own lines' numbers).
+
+The three tables grow with the number of kinds of figure, not of figures, except the
+figure table's columns. :func:`figure_budget_entries` reads them back, each figure's
+lines put together by :func:`~sweeprig.analysis.budget_parts.budget_lines`, the one
+function that does it.
+"""
+
+from __future__ import annotations
+
+import csv
+import math
+from collections.abc import Iterable, Mapping, Sequence
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from sweeprig.analysis.budget_parts import FigureBudget, SharedBudget, budget_lines
+from sweeprig.analysis.figures import collector_paused
+from sweeprig.analysis.reduce import RunFigures
+from sweeprig.analysis.uncertainty import DIVISORS, MODELS, Contribution
+
+#: The distinct-shared-part table beside ``figures.json``.
+BUDGETS_FILE = "budgets.csv"
+#: The table of distinct budget lines beside ``figures.json``.
+BUDGET_TERMS_FILE = "budget-terms.csv"
+#: Its columns: the line's number, then :meth:`Contribution.as_dict`'s keys.
+BUDGET_TERM_COLUMNS: tuple[str, ...] = (
+    "term", "name", "what", "half_width_db", "distribution", "divisor",
+    "standard_uncertainty_db", "sensitivity", "contribution_db", "type", "origin")
+#: The columns of the shared-part table.
+BUDGET_COLUMNS: tuple[str, ...] = ("budget", "coverage_factor", "contributions",
+                                   "shared_uncertainty_db", "noise_readings",
+                                   "noise_sensitivities", "scatter_sensitivities")
+
+#: The most readings whose noise matters to one figure (a difference of two products: 2).
+NOISE_SLOTS = max(1, *(1 + len(m.noise_also) for m in MODELS.values()))
+
+
+def _slot_names(k: int) -> tuple[str, str, str]:
+    suffix = "" if k == 0 else f"_{k + 1}"
+    return (f"noise_snr_db{suffix}", f"scatter_snr_db{suffix}", f"averages{suffix}")
+
+
+#: The figure table's budget columns (:func:`budget_columns`), in order: ``budget`` (a row
+#: of ``budgets.csv``), ``combined_uncertainty_db`` (u_c), per reading whose noise matters
+#: (a second one with the suffix ``_2``) ``noise_snr_db`` (its lowest SNR: a noise line when
+#: not empty), ``scatter_snr_db`` and ``averages`` (the reading that scatters most: a
+#: noise-scatter line when its scatter is above zero), then ``own_terms`` (a fitted
+#: figure's own lines, rows of ``budget-terms.csv``).
+BUDGET_FIGURE_COLUMNS: tuple[str, ...] = (
+    "budget", "combined_uncertainty_db",
+    *(name for k in range(NOISE_SLOTS) for name in _slot_names(k)), "own_terms")
+#: Those of them holding whole numbers or nothing (object columns: a Parquet writer makes
+#: them nullable integers).
+BUDGET_INTEGER_COLUMNS: tuple[str, ...] = (
+    "budget", *(_slot_names(k)[2] for k in range(NOISE_SLOTS)))
+
+
+@dataclass(frozen=True)
+class FigureBudgets:
+    """A run's budgets as tables: ``terms`` every distinct line of a shared part or a
+    fitted figure's own lines, in order of first use; ``shared`` every distinct shared part
+    in order of first use, with ``shared_terms`` its lines' numbers in ``terms``;
+    ``columns`` per figure (in ``run.figures`` order) :data:`BUDGET_FIGURE_COLUMNS`."""
+
+    terms: tuple[Contribution, ...]
+    shared: tuple[SharedBudget, ...]
+    shared_terms: tuple[tuple[int, ...], ...]
+    columns: Mapping[str, np.ndarray]
+
+
+def figure_budgets(run: RunFigures) -> FigureBudgets:
+    """The tables of the budgets of ``run``'s figures (see :class:`FigureBudgets`). Two
+    shared parts are one when they have the same lines, noisy readings and k."""
+    term_numbers: dict[Contribution, int] = {}
+    shared_numbers: dict[SharedBudget, int] = {}
+    by_id: dict[int, int] = {}
+    shared: list[SharedBudget] = []
+    shared_terms: list[tuple[int, ...]] = []
+
+    def numbers(lines: Iterable[Contribution]) -> tuple[int, ...]:
+        return tuple(term_numbers.setdefault(line, len(term_numbers)) for line in lines)
+
+    def shared_number(part: SharedBudget) -> int:
+        number = shared_numbers.get(part)
+        if number is None:
+            number = shared_numbers[part] = len(shared)
+            shared.append(part)
+            shared_terms.append(numbers(part.lines))
+        by_id[id(part)] = number
+        return number
+
+    count = len(run.figures)
+    nan = math.nan
+    # column by column over the figures with a budget (a large run: hundreds of thousands)
+    with collector_paused():
+        every = [f.budget for f in run.figures]
+        at = [i for i, b in enumerate(every) if b is not None]
+        budgets: list[FigureBudget] = [every[i] for i in at]  # type: ignore[misc]
+        del every
+        where = np.array(at, dtype=np.int64)
+        ids = np.full(count, None, dtype=object)
+        get = by_id.get
+        ids[where] = [n if (n := get(id(b.shared))) is not None else shared_number(b.shared)
+                      for b in budgets]
+        combined = np.full(count, nan)
+        combined[where] = [b.combined_db for b in budgets]
+        columns: dict[str, np.ndarray] = {"budget": ids, "combined_uncertainty_db": combined}
+        for k in range(NOISE_SLOTS):
+            names = _slot_names(k)
+            snr = np.full(count, nan)
+            snr[where] = [b.snr_db[k] if len(b.snr_db) > k else nan for b in budgets]
+            scatter_at = [b.scatter_snr_db[k] if len(b.scatter_snr_db) > k else nan
+                          for b in budgets]
+            scatter = np.full(count, nan)
+            scatter[where] = scatter_at
+            averages = np.full(count, None, dtype=object)
+            averages[where] = [None if s != s else b.averages[k]
+                               for b, s in zip(budgets, scatter_at, strict=True)]
+            columns[names[0]], columns[names[1]], columns[names[2]] = snr, scatter, averages
+        own = np.full(count, "", dtype=object)
+        for i, b in zip(at, budgets, strict=True):
+            if b.own_lines:
+                own[i] = " ".join(map(str, numbers(b.own_lines)))
+        columns["own_terms"] = own
+    return FigureBudgets(tuple(term_numbers), tuple(shared), tuple(shared_terms), columns)
+
+
+def budget_columns(budgets: FigureBudgets, first: int = 0, stop: int | None = None
+                   ) -> dict[str, np.ndarray]:
+    """The figure table's budget columns (:data:`BUDGET_FIGURE_COLUMNS`, name → array) of
+    figures ``first`` to ``stop`` (the whole run by default): what the figure table takes
+    from the budgets."""
+    return {name: column[first:stop] for name, column in budgets.columns.items()}
+
+
+def budgets_frame(budgets: FigureBudgets) -> pd.DataFrame:
+    """The shared-part table (``budgets.csv``, :data:`BUDGET_COLUMNS`): per shared part its
+    number, k, its lines' numbers in ``budget-terms.csv`` (space-separated), the root sum of
+    squares of those lines (dB), and the readings whose noise matters with the sensitivities
+    of their noise and noise-scatter lines (space-separated, in the same order)."""
+    parts = budgets.shared
+    return pd.DataFrame({
+        "budget": np.arange(len(parts), dtype=np.int64),
+        "coverage_factor": np.array([p.coverage_factor for p in parts], dtype=float),
+        "contributions": [" ".join(map(str, t)) for t in budgets.shared_terms],
+        "shared_uncertainty_db": np.array([p.combined_db for p in parts], dtype=float),
+        "noise_readings": [" ".join(r for r, _ in p.noisy) for p in parts],
+        "noise_sensitivities": [" ".join(repr(float(c)) for _, c in p.noisy) for p in parts],
+        "scatter_sensitivities": [" ".join(repr(float(c)) for c in p.scatter_c)
+                                  for p in parts],
+    }, columns=list(BUDGET_COLUMNS))
+
+
+def budget_terms_frame(budgets: FigureBudgets) -> pd.DataFrame:
+    """The table of distinct budget lines (``budget-terms.csv``, columns
+    :data:`BUDGET_TERM_COLUMNS`, the keys of :meth:`Contribution.as_dict`): every line
+    complete, with its source, distribution, divisor, sensitivity, contribution and GUM
+    type."""
+    terms = budgets.terms
+    shapes = [t.shape for t in terms]
+    return pd.DataFrame({
+        "term": np.arange(len(terms), dtype=np.int64),
+        "name": pd.Series([t.name for t in terms], dtype=object),
+        "what": pd.Series([t.what for t in terms], dtype=object),
+        "half_width_db": np.array([t.half_width_db for t in terms], dtype=float),
+        "distribution": pd.Series(shapes, dtype=object),
+        "divisor": np.array([DIVISORS.get(s, math.nan) for s in shapes], dtype=float),
+        "standard_uncertainty_db": np.array([t.standard_db for t in terms], dtype=float),
+        "sensitivity": np.array([t.sensitivity for t in terms], dtype=float),
+        "contribution_db": np.array([t.contribution_db for t in terms], dtype=float),
+        "type": pd.Series([t.kind for t in terms], dtype=object),
+        "origin": pd.Series([t.origin for t in terms], dtype=object),
+    }, columns=list(BUDGET_TERM_COLUMNS))
+
+
+def read_budget_tables(folder: Path, budgets_file: str, terms_file: str
+                       ) -> tuple[list[Contribution], list[SharedBudget]]:
+    """The lines and shared parts of ``budget-terms.csv`` and ``budgets.csv`` in
+    ``folder``, as the report wrote them (OSError, KeyError, ValueError, IndexError: the
+    caller names the file)."""
+    with (folder / terms_file).open(encoding="utf-8", newline="") as f:
+        terms = [Contribution(row["name"], row["what"], float(row["half_width_db"]),
+                              row["distribution"], float(row["sensitivity"]),
+                              row["type"], row["origin"])  # type: ignore[arg-type]
+                 for row in csv.DictReader(f)]
+    shared: list[SharedBudget] = []
+    with (folder / budgets_file).open(encoding="utf-8", newline="") as f:
+        for row in csv.DictReader(f):
+            readings = row["noise_readings"].split()
+            noise_c = [float(c) for c in row["noise_sensitivities"].split()]
+            scatter_c = tuple(float(c) for c in row["scatter_sensitivities"].split())
+            if not len(readings) == len(noise_c) == len(scatter_c):
+                raise ValueError(f"budget {row['budget']}: noise readings and "
+                                 "sensitivities do not match")
+            shared.append(SharedBudget(
+                tuple(terms[int(i)] for i in row["contributions"].split()),
+                tuple(zip(readings, noise_c, strict=True)), scatter_c,
+                float(row["coverage_factor"])))
+    return terms, shared
+
+
+def figure_budget_from_row(row: Mapping[str, str], terms: Sequence[Contribution],
+                           shared: Sequence[SharedBudget]) -> FigureBudget | None:
+    """The budget of one row of ``figures.csv`` (None: its ``budget`` cell is empty)."""
+    if not row["budget"]:
+        return None
+    part = shared[int(row["budget"])]
+    slots = range(len(part.noisy))
+    names = [_slot_names(k) for k in slots]
+    return FigureBudget(
+        part, tuple(_number(row[n[0]]) for n in names),
+        tuple(_number(row[n[1]]) for n in names),
+        tuple(int(row[n[2]]) if row[n[2]] else 1 for n in names),
+        tuple(terms[int(i)] for i in row["own_terms"].split()),
+        float(row["combined_uncertainty_db"]))
+
+
+def _number(text: str) -> float:
+    return float(text) if text else math.nan
+
+
+class BudgetEntries:
+    """Budgets read back as the format-2 ``figures.json`` had them: :meth:`entry` gives a
+    figure's budget as a dict whose ``contributions`` index :attr:`terms` (every distinct
+    line met, as :meth:`Contribution.as_dict`)."""
+
+    def __init__(self) -> None:
+        self.terms: list[dict[str, object]] = []
+        self._numbers: dict[Contribution, int] = {}
+        self._lines: dict[tuple, object] = {}
+
+    def entry(self, budget: FigureBudget) -> dict[str, object]:
+        numbers = []
+        for line in budget_lines(budget, self._lines):
+            number = self._numbers.get(line)
+            if number is None:
+                number = self._numbers[line] = len(self.terms)
+                self.terms.append(line.as_dict())
+            numbers.append(number)
+        return {"combined_standard_uncertainty_db": budget.combined_db,
+                "coverage_factor": budget.coverage_factor,
+                "expanded_uncertainty_db": budget.expanded_db,
+                "contributions": numbers}
