@@ -8,7 +8,6 @@ from __future__ import annotations
 
 import math
 import time
-import xml.etree.ElementTree as ET
 from enum import StrEnum
 from pathlib import Path
 from typing import TYPE_CHECKING, Annotated
@@ -209,6 +208,8 @@ def _write_junit(path: Path | None, results: list[tuple[str, float, SweeprigErro
                  ) -> None:
     if path is None:
         return
+    import xml.etree.ElementTree as ET
+
     failures = sum(1 for _, _, e in results if e is not None)
     total_time = sum(t for _, t, _ in results)
     suites = ET.Element("testsuites", name="sweeprig check", tests=str(len(results)),

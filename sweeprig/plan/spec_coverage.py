@@ -3,11 +3,11 @@ refused before the run, not reported as "no figure" after the night.
 
 A limit can be evaluated when at least one figure the planned run will hold matches it. The
 figures are those :func:`sweeprig.analysis.reduce.reduce_run` will compute, from the same
-study roles (:func:`~sweeprig.analysis.reduce.planned_figure_names`), each with the
+study roles (:func:`~sweeprig.analysis.roles.planned_figure_names`), each with the
 conditions the run records: its study, the chamber set point (none without a chamber) and
 the supply voltage (none when the supply is not controlled). The match is the analysis's own:
 :meth:`sweeprig.analysis.limits.Limit.applies_to` on the limits
-:func:`~sweeprig.analysis.reduce.limits_from_sequence` builds.
+:func:`~sweeprig.analysis.roles.limits_from_sequence` builds.
 
 :func:`check_specs` raises a located :class:`~sweeprig.errors.InputError` (exit 2) naming
 what is never measured, what the sequence does measure or visit, and the fix.
@@ -69,7 +69,7 @@ def check_specs(sequence: Sequence) -> None:
     """Refuse the first ``[[spec]]`` that no figure of the planned run can match."""
     if not sequence.spec:
         return
-    from sweeprig.analysis.reduce import limits_from_sequence, planned_figure_names
+    from sweeprig.analysis.roles import limits_from_sequence, planned_figure_names
 
     limits = limits_from_sequence(sequence)
     measured = planned_figure_names(sequence)
@@ -139,7 +139,7 @@ def _unreachable(sequence: Sequence, j: int, limit: Limit, figures: list[Figure]
                  supplies: Axis | None) -> InputError:
     """The located message for spec ``j``: the first of its conditions that no planned
     figure meets (checked one at a time with the same matching rule), and the fix."""
-    from sweeprig.analysis.reduce import SPEC_FIGURES
+    from sweeprig.analysis.roles import SPEC_FIGURES
 
     spec = sequence.spec[j]
     spec_names = {v: k for k, v in SPEC_FIGURES.items()}

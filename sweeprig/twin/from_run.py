@@ -124,7 +124,7 @@ def swept_gains(run: RunFigures) -> tuple[Observation, ...]:
     which carries no interpolation error."""
     from sweeprig.analysis.figures import BOUND_NONE, flags_from_mask
     from sweeprig.analysis.gain import gain_table
-    from sweeprig.analysis.reduce import ROLE_COMPRESSION, ROLE_LO_DRIVE
+    from sweeprig.analysis.roles import ROLE_COMPRESSION, ROLE_LO_DRIVE
 
     out: list[Observation] = []
     sweeps = ((ROLE_LO_DRIVE, "lo_drive_gain"), (ROLE_COMPRESSION, "compression_gain"))

@@ -450,7 +450,7 @@ def test_limits_come_from_included_files_when_the_file_is_unchanged(tmp_path):
 def test_the_planned_figures_are_the_ones_the_run_gives(measured, flagged):
     """What ``check`` predicts a sequence will measure (and so which [[spec]] limits it can
     evaluate) is what the reduction of the real run gives, study by study."""
-    from sweeprig.analysis.reduce import SPEC_FIGURES, planned_figure_names
+    from sweeprig.analysis.roles import SPEC_FIGURES, planned_figure_names
     from sweeprig.formats.sequence import load_sequence
 
     part, run = measured

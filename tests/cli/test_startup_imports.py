@@ -27,11 +27,15 @@ SIMULATOR = ("sweeprig.sim.mixer", "sweeprig.sim.world", "sweeprig.sim.server",
 #: The run store's implementations: the command line names the default store path only.
 STORES = ("sweeprig.store.sqlite", "sweeprig.store.postgres", "sweeprig.store.open")
 
+#: The reduction of a stored run and the store's records: ``check`` reads the study roles and
+#: the specs' figure names from :mod:`sweeprig.analysis.roles` alone.
+REDUCTION = ("sweeprig.analysis.reduce", "sweeprig.store.base")
+
 _PROBE = """
 import json, sys
 def loaded():
     return sorted(m for m in sys.modules if m.split('.')[0] in {heavy} or
-                  any(m == s or m.startswith(s + '.') for s in {sim} + {stores}))
+                  any(m == s or m.startswith(s + '.') for s in {sim} + {stores} + {reduction}))
 import sweeprig.cli.main as main
 after_import = loaded()
 sim_after_import = sorted(m for m in sys.modules if m.startswith('sweeprig.sim'))
@@ -56,7 +60,8 @@ print(json.dumps(dict(name=name, code=code, after_import=after_import,
 
 
 def _probe() -> dict:
-    code = _PROBE.format(heavy=set(HEAVY), sim=SIMULATOR, stores=STORES, quick=str(QUICK))
+    code = _PROBE.format(heavy=set(HEAVY), sim=SIMULATOR, stores=STORES, reduction=REDUCTION,
+                        quick=str(QUICK))
     done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
                           cwd=ROOT, timeout=120, check=False)
     assert done.returncode == 0, done.stderr
