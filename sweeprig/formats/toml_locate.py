@@ -4,12 +4,19 @@ Used only for error messages, on text that ``tomllib`` has already accepted. Han
 headers (``[a.b]``), arrays of tables (``[[a]]``, counted per parent element), dotted keys,
 quoted keys, inline tables, and arrays (one line per element, also across lines). A path that
 is not in the text (a missing key) resolves to the line of its longest present prefix.
+
+Every loaded file is located (its messages name lines), so the scanner moves by whole runs
+(regular expressions: blanks and comments, a bare key, a string's body, a bare value) and
+finds a position's line by bisection in the offsets of the line breaks, instead of walking
+the text a character at a time.
 """
 
 from __future__ import annotations
 
 import contextlib
+import re
 import tomllib
+from bisect import bisect_left
 
 from sweeprig.units import shorten
 
@@ -17,14 +24,28 @@ KeyPath = tuple[str | int, ...]
 
 _BARE = set("ABCDEFGHIJKLMNOPQRSTUVWXYZabcdefghijklmnopqrstuvwxyz0123456789_-")
 
+# The scanner's runs, each matched at the position (it may match nothing):
+_SPACE = re.compile(r"(?:[ \t\r]|#[^\n]*)*")  # blanks and a comment, not the line break
+_SPACE_LINES = re.compile(r"(?:[ \t\r\n]|#[^\n]*)*")  # the same and line breaks
+_BARE_KEY = re.compile(r"[A-Za-z0-9_-]*")
+_SCALAR = re.compile(r"[^,\]}\n#]*")  # a bare value: number, date, boolean
+# A string's opening quote(s) and its body up to (not including) the closing quote(s); in a
+# basic string a backslash takes the next character, whatever it is, with it.
+_BASIC = re.compile(r'"(?:[^"\\]|\\.)*', re.DOTALL)
+_LITERAL = re.compile(r"'[^']*")
+_LONG_BASIC = re.compile(r'"""(?:[^"\\]|\\.|"(?!""))*', re.DOTALL)
+_LONG_LITERAL = re.compile(r"'''(?:[^']|'(?!''))*")
+_QUOTE_RUN = {'"': re.compile(r'"+'), "'": re.compile(r"'+")}
+
 
 class KeyLocator:
     """Line numbers (1-based) of every key, table and array element in one TOML text."""
 
     def __init__(self, text: str) -> None:
         self._text = text
+        self._end = len(text)
         self._pos = 0
-        self._line = 1
+        self._breaks = [m.start() for m in re.finditer("\n", text)]  # offsets of "\n"
         self.lines: dict[KeyPath, int] = {}
         self._aot_count: dict[KeyPath, int] = {}
         self._aot_last: dict[tuple[str, ...], KeyPath] = {}
@@ -43,27 +64,24 @@ class KeyLocator:
 
     # -- scanner ---------------------------------------------------------------------------
 
+    @property
+    def _line(self) -> int:
+        """Line (1-based) of the scanner's position: one more than the breaks before it."""
+        return bisect_left(self._breaks, self._pos) + 1
+
     def _peek(self, k: int = 0) -> str:
         i = self._pos + k
-        return self._text[i] if i < len(self._text) else ""
+        return self._text[i] if i < self._end else ""
 
     def _advance(self, k: int = 1) -> None:
-        for _ in range(k):
-            if self._pos < len(self._text):
-                if self._text[self._pos] == "\n":
-                    self._line += 1
-                self._pos += 1
+        self._pos = min(self._pos + k, self._end)
+
+    def _skip(self, run: re.Pattern[str]) -> None:
+        """Move past what ``run`` matches at the position."""
+        self._pos = run.match(self._text, self._pos).end()  # type: ignore[union-attr]
 
     def _skip_ws(self, newlines: bool) -> None:
-        while self._pos < len(self._text):
-            c = self._text[self._pos]
-            if c in " \t\r" or (newlines and c == "\n"):
-                self._advance()
-            elif c == "#":
-                while self._pos < len(self._text) and self._text[self._pos] != "\n":
-                    self._advance()
-            else:
-                return
+        self._skip(_SPACE_LINES if newlines else _SPACE)
 
     def _record(self, path: KeyPath) -> None:
         self.lines.setdefault(path, self._line)
@@ -72,7 +90,7 @@ class KeyLocator:
         table: KeyPath = ()
         while True:
             self._skip_ws(newlines=True)
-            if self._pos >= len(self._text):
+            if self._pos >= self._end:
                 return
             if self._text.startswith("[[", self._pos):
                 line = self._line
@@ -133,8 +151,7 @@ class KeyLocator:
                 keys.append(self._quoted_key())
             else:
                 start = self._pos
-                while self._peek() and self._peek() in _BARE:
-                    self._advance()
+                self._skip(_BARE_KEY)
                 if self._pos == start:
                     raise ValueError("no key")
                 keys.append(self._text[start : self._pos])
@@ -153,23 +170,13 @@ class KeyLocator:
     def _string(self) -> None:
         quote = self._peek()
         if self._text.startswith(quote * 3, self._pos):
-            self._advance(3)
-            while self._pos < len(self._text):
-                if quote == '"' and self._peek() == "\\":
-                    self._advance(2)
-                elif self._text.startswith(quote * 3, self._pos):
-                    self._advance(3)
-                    while self._peek() == quote:  # up to two quotes may close the string
-                        self._advance()
-                    return
-                else:
-                    self._advance()
+            self._skip(_LONG_BASIC if quote == '"' else _LONG_LITERAL)
+            if self._pos < self._end and self._text[self._pos] == "\\":
+                self._pos = self._end  # a backslash that ends the text takes the end with it
+            elif self._pos < self._end:
+                self._skip(_QUOTE_RUN[quote])  # up to two quotes may close the string
             return
-        self._advance()
-        while self._pos < len(self._text) and self._peek() != quote:
-            if quote == '"' and self._peek() == "\\":
-                self._advance()
-            self._advance()
+        self._skip(_BASIC if quote == '"' else _LITERAL)
         self._advance()
 
     def _value(self, path: KeyPath) -> None:
@@ -202,8 +209,7 @@ class KeyLocator:
         elif c in ('"', "'"):
             self._string()
         else:
-            while self._peek() and self._peek() not in ",]}\n#":
-                self._advance()
+            self._skip(_SCALAR)
 
 
 def format_key_path(path: KeyPath) -> str:
