@@ -6,7 +6,6 @@ the ``sim`` command group.
 
 from __future__ import annotations
 
-import logging
 import sys
 import time
 from pathlib import Path
@@ -185,6 +184,8 @@ def _write_bench_file(bench: SimBench, path: Path) -> None:
 
 def _log_server_warnings() -> None:
     """Show the server's warnings (descriptors exhausted, connections refused) on stderr."""
+    import logging
+
     logger = logging.getLogger("sweeprig.sim.server")
     if not logger.handlers:
         handler = logging.StreamHandler(sys.stderr)
