@@ -5,6 +5,30 @@ Prints both and their ratio; moved here from the default suite, which asserts no
 (tests/engine/test_run_sim.py checks the same run's points, readings and safe state).
 
 Run with ``pytest -m perf -s tests/perf/test_perf_run_sim.py``.
+
+Measured (issue 14, the 10k-point run; 2 cores shared with other work, so wall times carry
+the machine's load; one run each unless said):
+
+- Before the transport, server and driver changes of this record, load 8.1: 130.8 s (121.1 s
+  for the run, 12.11 ms a point); a point's processor time: served instruments 4.63 ms (the
+  analyzer 4.33, of which the model's evaluation about 4.1), the engine's points 2.44 ms;
+  the process 8.71 ms a point against 13.08 ms of wall time; the pre-flight 1.25 ms a point.
+- Interleaved before/after, load 3.8 to 5.5: before 91.4 and 77.5 s, after 67.7 and 97.2 s
+  (inside the machine's noise). Where an after point goes (load 3.9): the analyzer's
+  handling 2.82 ms (the model alone 1.82), the sources 0.13, supply and chamber 0.06, the
+  engine's points 1.55 (0.67 of it in the VISA transport: 8 exchanges a point, about 84 us
+  each), the pre-flight 0.70 a point; process 5.70 ms against 6.77 ms of wall time.
+- The engine's points alone (thread time in ``Runner.measure``, 2,000 points, three
+  interleaved pairs, load 4 to 9): before 1.76, 1.63, 1.51 ms; after 1.54, 1.47, 1.37 ms.
+  One exchange on loopback (2,000 ``*ESR?``, best of 7): the transport's query 61 -> 46 us,
+  post and collect 67 -> 54 us (pyvisa's own ``query``: 56 to 61 us).
+- Served from another process (``sweeprig sim serve``), load 5.2: before 74.0 s, after
+  79.0 s; processor time a point: the engine's process 2.2 ms, the simulator's 3.8 to 3.9 ms,
+  wall 7.4 to 7.9 ms: about their sum, since each side waits for the other's reply; the
+  engine also follows the simulator's clock through 3 more exchanges a point (``simctl``).
+  A trial with the bench forked and the virtual clock in shared memory (no ``simctl``
+  exchanges; not kept) gave the same readings and simulated times, bit for bit, and the
+  same processor time in all as one process: the floor stays the sum of both sides.
 """
 
 from __future__ import annotations
