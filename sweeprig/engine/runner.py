@@ -378,7 +378,7 @@ class Runner:
             loss = self._losses[connection] = self.bench.loss(connection)
         return loss
 
-    def _check_resets(self) -> float | None:
+    def _check_resets(self, checked: list[tuple[str, Driver]] | None = None) -> float | None:
         """Raise :class:`InstrumentReset` if any instrument's power-on bit is set; on a
         compound profile, also raise the errors its event status reports (read once per
         point, or taken from the point's last query where that carried it). Returns the
@@ -387,10 +387,11 @@ class Runner:
 
         The status queries go to every instrument before any reply is read, so they answer
         at once rather than one after another; every reply is read before any error
-        raises."""
+        raises. ``checked``: :meth:`_checked_drivers`, when the caller has it."""
+        checked = self._checked_drivers() if checked is None else checked
         chamber = self.d.chamber
         joins = chamber is not None and chamber.compound  # its probe carries its status
-        posted = [(driver, driver.post_status()) for _role, driver in self._checked_drivers()
+        posted = [(driver, driver.post_status()) for _role, driver in checked
                   if not (joins and driver is chamber)]
         probe_c: float | None = None
         failure: InstrumentError | None = None
@@ -410,7 +411,7 @@ class Runner:
                 failure = failure or exc
         if failure is not None:
             raise failure
-        for role, driver in self._checked_drivers():
+        for role, driver in checked:
             if driver.point_status() & PON_BIT:
                 raise InstrumentReset(
                     f"role {role!r} reset itself during the point (power-on bit set)",
@@ -431,7 +432,8 @@ class Runner:
         """Apply ``point``, take its readings, commit them; return the result."""
         sim_start, wall_start = self.clock.now(), utc_now()
         waited_before = self._waited_s
-        for _role, driver in self._checked_drivers():
+        checked = self._checked_drivers()  # the bench's instruments, listed once a point
+        for _role, driver in checked:
             driver.expire_status()  # every instrument's status is read for this point
         changed = self._apply_conditions(point)
         changed |= self._apply_sources(point)
@@ -442,7 +444,7 @@ class Runner:
         records = [self._read(point, reading) for reading in point.readings]
         records = self._agree_offsets(point, records)
         if self.policy.reset_check:
-            probe_c = self._check_resets()
+            probe_c = self._check_resets(checked)
         else:
             probe_c = (self.d.chamber.probe_temperature_c() if self.d.chamber is not None
                        else None)

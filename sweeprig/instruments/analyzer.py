@@ -92,32 +92,74 @@ class AnalyzerDriver(Driver):
 
     _sweep_time: tuple[float, int] | None = None
     _axis: tuple[float, float, int | None] | None = None
+    #: the last :meth:`configure` that sent nothing: its arguments, and each setting's cache
+    #: entry and limits object as they were then (see :meth:`_unchanged`)
+    _unchanged_memo: tuple[tuple[object, ...], tuple[tuple[str, object, object], ...]] | None \
+        = None
+
+    def _settings(self, centre_hz: float | None, span_hz: float | None,
+                  rbw_hz: float | None, vbw_hz: float | None, ref_level_dbm: float | None,
+                  attenuation_db: float | None, averages: int | None,
+                  points: int | None) -> list[tuple[str, object]]:
+        """The (setting, value) pairs of a configuration, in the order they are sent."""
+        settings: list[tuple[str, object]] = []
+        if ref_level_dbm is not None:
+            settings.append(("ref_level", ref_level_dbm))
+        if attenuation_db is not None:
+            if self.profile.has("attenuation_auto"):
+                settings.append(("attenuation_auto", False))
+            settings.append(("attenuation", attenuation_db))
+        if centre_hz is not None:
+            settings.append(("centre", centre_hz))
+        if span_hz is not None:
+            settings.append(("span", span_hz))
+        if rbw_hz is not None:
+            if self.profile.has("rbw_auto"):
+                settings.append(("rbw_auto", False))
+            settings.append(("rbw", rbw_hz))
+        if vbw_hz is not None:
+            settings.append(("vbw", vbw_hz))
+        if points is not None:
+            settings.append(("points", points))
+        if averages is not None:
+            settings.append(("averages", averages))
+        return settings
+
+    def _unchanged(self, args: tuple[object, ...]) -> int | None:
+        """How many settings a :meth:`configure` with ``args`` would skip, when it would send
+        nothing: the same arguments as the last configuration that sent nothing, and every
+        setting's cache entry and limits still the very objects they were then (a setting
+        sent, forgotten or refused since replaces or drops its entry; a tightened limit is a
+        new object), so each :meth:`set_value` would find its value checked and cached.
+        None: go through :meth:`set_value` (a NaN never equals itself, so it is always
+        checked, and refused)."""
+        memo = self._unchanged_memo
+        if memo is None or memo[0] != args:
+            return None
+        cache, limits = self._cache, self._limits
+        for op, entry, bound in memo[1]:
+            if cache.get(op) is not entry or limits.get(op) is not bound:
+                return None
+        return len(memo[1])
 
     def _configure(self, centre_hz: float | None, span_hz: float | None,
                    rbw_hz: float | None, vbw_hz: float | None, ref_level_dbm: float | None,
                    attenuation_db: float | None, averages: int | None,
                    points: int | None) -> int:
+        args = (centre_hz, span_hz, rbw_hz, vbw_hz, ref_level_dbm, attenuation_db, averages,
+                points)
+        skipped = self._unchanged(args)
+        if skipped is not None:  # a run's readings mostly ask for the settings they have
+            self.settings_skipped += skipped
+            return 0
+        self._unchanged_memo = None
+        settings = self._settings(*args)
         sent = 0
-        if ref_level_dbm is not None:
-            sent += self.set_value("ref_level", ref_level_dbm)
-        if attenuation_db is not None:
-            if self.profile.has("attenuation_auto"):
-                sent += self.set_value("attenuation_auto", False)
-            sent += self.set_value("attenuation", attenuation_db)
-        if centre_hz is not None:
-            sent += self.set_value("centre", centre_hz)
-        if span_hz is not None:
-            sent += self.set_value("span", span_hz)
-        if rbw_hz is not None:
-            if self.profile.has("rbw_auto"):
-                sent += self.set_value("rbw_auto", False)
-            sent += self.set_value("rbw", rbw_hz)
-        if vbw_hz is not None:
-            sent += self.set_value("vbw", vbw_hz)
-        if points is not None:
-            sent += self.set_value("points", points)
-        if averages is not None:
-            sent += self.set_value("averages", averages)
+        for op, value in settings:
+            sent += self.set_value(op, value)  # type: ignore[arg-type]
+        if not sent:
+            self._unchanged_memo = (args, tuple(
+                (op, self._cache.get(op), self._limits.get(op)) for op, _ in settings))
         return sent
 
     def apply(self, settings: AnalyzerSettings) -> int:

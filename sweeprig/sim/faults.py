@@ -134,6 +134,18 @@ class RoleFaults:
         self._waiting: list[FaultSpec] = []
         self._lock = threading.Lock()
 
+    def count_if_quiet(self) -> bool:
+        """Count a received message and return True when nothing can happen to it: no fault
+        armed or waiting for a reply, nothing frozen (the server then runs it as it is, with
+        no :meth:`on_message` or :meth:`on_reply`). False: nothing counted; call
+        :meth:`on_message`."""
+        with self._lock:
+            if self._armed or self._waiting or self.frozen.is_set() \
+                    or self._bench_frozen.is_set():
+                return False
+            self.command_count += 1
+            return True
+
     def on_message(self, message: str, now_s: float, instrument: Any) -> FaultAction:
         """Count a received message, fire due faults; ``instrument`` is a ScpiInstrument."""
         with self._lock:

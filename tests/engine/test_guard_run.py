@@ -39,16 +39,17 @@ def test_a_smuggled_level_never_reaches_a_source(
     received: dict[str, list[str]] = {role: [] for role in LIMITS_DBM}
     levels: dict[str, list[float]] = {role: [] for role in LIMITS_DBM}
     for role in LIMITS_DBM:
-        faults = sim_bench.faults.for_role(role)
         source = sim_bench.instruments[role]
 
-        def watching(message: str, now_s: float, instrument: Any, *, _role: str = role,
-                     _source: Any = source, _original: Any = faults.on_message) -> Any:
+        # every message the source runs, and its level just before (no fault is planned,
+        # so every message received is run)
+        def watching(message: str, *, _role: str = role, _source: Any = source,
+                     _original: Any = source.handle) -> Any:
             received[_role].append(message)
             levels[_role].append(float(_source.value("power_dbm")))
-            return _original(message, now_s, instrument)
+            return _original(message)
 
-        monkeypatch.setattr(faults, "on_message", watching)
+        monkeypatch.setattr(source, "handle", watching)
     monkeypatch.setattr(instrument_limits, "load_profile", _smuggling)  # behind open_bench
 
     outcome = run_sequence(TINY, bench, store_path=tmp_path / "runs.sqlite",

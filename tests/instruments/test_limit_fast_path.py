@@ -17,6 +17,7 @@ import pytest
 
 from sweeprig.errors import InputError, SafetyLimitError
 from sweeprig.instruments import make_driver
+from sweeprig.instruments.analyzer import AnalyzerDriver
 from sweeprig.instruments.limits import (
     LIMIT_TOLERANCE,
     Bound,
@@ -137,3 +138,61 @@ def test_the_memo_keeps_types_apart_and_never_takes_nan() -> None:
     with pytest.raises(InputError):
         source.set_output(1)  # type: ignore[arg-type]  # 1 == True but is no on/off
     assert source.set_output(True) is True
+
+
+
+def _analyzer() -> tuple[AnalyzerDriver, list[str]]:
+    sent: list[str] = []
+
+    def reply(cmd: str) -> str:
+        sent.append(cmd)
+        return "0"
+
+    sa = make_driver("scpi-analyzer", "sa", FakeTransport(reply))
+    assert isinstance(sa, AnalyzerDriver)
+    sa.single_units = True
+    return sa, sent
+
+
+SETTINGS: dict[str, float] = dict(centre_hz=70e6, span_hz=1e6, rbw_hz=1e3, ref_level_dbm=0.0,
+                                  attenuation_db=10.0, averages=1)
+
+
+def test_an_analyzer_configuration_it_has_sends_what_setting_by_setting_would() -> None:
+    """The analyzer's shortcut for a configuration it already has (the same arguments, every
+    setting still cached under the same limits) sends, skips and refuses exactly what the
+    settings one by one do: a setting sent otherwise, forgotten or re-limited since goes
+    through the checks again, and a NaN never takes the shortcut."""
+    fast, fast_sent = _analyzer()
+    slow, slow_sent = _analyzer()  # the memo dropped before every configure: no shortcut
+
+    def both(action: str, **kwargs: object) -> None:
+        outcomes = []
+        for sa, sent in ((fast, fast_sent), (slow, slow_sent)):
+            if sa is slow:
+                sa._unchanged_memo = None
+            sent.clear()
+            try:
+                result: object = getattr(sa, action)(**kwargs)
+            except (InputError, SafetyLimitError) as exc:
+                result = type(exc)
+            outcomes.append((result, list(sent), sa.settings_skipped))
+        assert outcomes[0] == outcomes[1], (action, kwargs)
+
+    both("configure", **SETTINGS)
+    for _ in range(3):
+        both("configure", **SETTINGS)
+    assert fast_sent == [] and fast.settings_skipped == 3 * 8  # eight settings, all skipped
+    both("set_value", op="centre", value=71e6)  # sent otherwise: the next configure sends it
+    both("configure", **SETTINGS)
+    both("configure", **SETTINGS)
+    both("forget_state")
+    both("configure", **SETTINGS)
+    both("configure", **SETTINGS)
+    both("add_bound", op="centre",
+         bound=Bound(value=60e6, side="max", source="bench", origin="a test bench"))
+    both("configure", **SETTINGS)  # refused now, nothing sent
+    both("configure", **{**SETTINGS, "centre_hz": 50e6})
+    both("configure", **{**SETTINGS, "centre_hz": 50e6})
+    for _ in range(2):
+        both("configure", **{**SETTINGS, "centre_hz": 50e6, "span_hz": math.nan})

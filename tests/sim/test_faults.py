@@ -162,6 +162,8 @@ def test_a_fault_added_while_serving_counts_from_then() -> None:
         rf = _open(rm, bench)
         for _ in range(5):
             rf.query("*IDN?")
+        # nothing planned: the server's quiet path still counts every message
+        assert bench.faults.for_role("rf").command_count == 5
         bench.faults.add(FaultSpec(role="rf", kind="timeout", at_command=2))
         assert rf.query("*IDN?")
         _lost_reply(rf, "*IDN?")

@@ -169,3 +169,26 @@ def test_a_posted_query_that_times_out_is_a_transport_error_and_owes_nothing_aft
         with pytest.raises(TransportError, match="SILENT"):
             t.collect(t.post("SILENT?"))
         assert t.query("*IDN?").startswith("Tarnwick")
+
+
+def test_a_text_reply_longer_than_one_read_chunk_comes_whole_and_in_step(loopback):
+    """The transport reads text replies through the VISA library's own read, chunk after
+    chunk while the library says there is more (pyvisa's ``read`` does the same): a reply
+    of several chunks comes whole, its termination removed, with no warning (warnings fail
+    the suite), and the next reply is the next query's."""
+    from sweeprig.transport.visa import READ_CHUNK_BYTES
+
+    long_reply = ",".join(f"{k:+.6E}" for k in range(3 * READ_CHUNK_BYTES // 14))
+    assert len(long_reply) > 2 * READ_CHUNK_BYTES
+
+    def respond(cmd: str) -> str | bytes | None:
+        return long_reply if cmd == "TRAC:ASC?" else _instrument(cmd)
+
+    server = loopback(respond)
+    with VisaTransport(server.resource, timeout_s=2.0) as t:
+        assert t.query("TRAC:ASC?") == long_reply
+        assert t.collect(t.post("TRAC:ASC?")) == long_reply
+        assert t.query("*IDN?") == "Tarnwick Labs,TW-XX1,0042,1.0"
+        t.reconnect()  # a new session: read on the same way
+        assert t.query("TRAC:ASC?") == long_reply
+    assert server.received == ["TRAC:ASC?", "TRAC:ASC?", "*IDN?", "TRAC:ASC?"]
