@@ -6,8 +6,15 @@ from datetime import date
 from pathlib import Path
 
 import pytest
+from hypothesis import settings
 
 from tests.pg_fixtures import pg_server, pg_url  # noqa: F401  (the lab database)
+
+# No per-example deadline: the default suite asserts no times (speed is printed by the
+# benchmarks under tests/perf), and on a loaded machine a slow example is not a failure.
+# A test that sets its own settings keeps them.
+settings.register_profile("sweeprig", deadline=None)
+settings.load_profile("sweeprig")
 
 # pytester checks the sequence-test plugin (tests/seqtest) with pytest's own machinery
 pytest_plugins = ["pytester"]
