@@ -64,26 +64,35 @@ def attach_uncertainty(figures: Sequence[Figure], captures: pd.DataFrame,
     :class:`~sweeprig.analysis.budget_parts.FigureBudget`) set where a budget exists; the
     others are returned unchanged. A headline figure that is the worse of two sides
     (:data:`~sweeprig.analysis.uncertainty.WORST_OF`) takes that side's budget."""
+    out = list(figures)
+    attach_uncertainty_in_place(out, captures, specs, cal)
+    return out
+
+
+def attach_uncertainty_in_place(figures: list[Figure], captures: pd.DataFrame,
+                                specs: InstrumentSpecs | None = None,
+                                cal: CalibrationState = UNCALIBRATED) -> None:
+    """:func:`attach_uncertainty`, each figure of the list replaced where it stands: a
+    caller that owns the list (the reduction) never holds a run's figures twice."""
     specs = specs or InstrumentSpecs()
-    out: list[Figure] = []
     sides: dict[tuple, Figure] = {}
     with collector_paused():  # a large run makes hundreds of thousands of budgets
         budgets = grouped_budgets(figures, captures, specs, cal)
-        for f, budget in zip(figures, budgets, strict=True):
+        for i, budget in enumerate(budgets):
             if budget is not None:
-                f = with_changes(f, uncertainty_db=budget.expanded_db, budget=budget)
+                f = figures[i] = with_changes(figures[i], uncertainty_db=budget.expanded_db,
+                                              budget=budget)
                 if f.name in _SIDE_NAMES:
                     sides[(f.name, _condition_key(f.conditions), f.value)] = f
-            out.append(f)
-    for i, f in enumerate(out):
+        del budgets
+    for i, f in enumerate(figures):
         if f.name in WORST_OF and f.is_number:
             for side in WORST_OF[f.name]:
                 match = sides.get((side, _condition_key(f.conditions), f.value))
                 if match is not None:
-                    out[i] = with_changes(f, uncertainty_db=match.uncertainty_db,
-                                          budget=match.budget)
+                    figures[i] = with_changes(f, uncertainty_db=match.uncertainty_db,
+                                              budget=match.budget)
                     break
-    return out
 
 
 def _noisy(model: _Model, reading: str | None) -> Noisy:

@@ -77,6 +77,16 @@ def with_output_frequency(figures: Sequence[Figure], orders: tuple[int, int] | N
     """Each figure whose conditions hold ``lo_freq_hz`` and ``rf_freq_hz`` (the input) gains
     ``output_freq_hz`` = |m·f_LO + n·f_in| for the wanted product's (m, n) ``orders``
     (default (1, −1)): the axis a datasheet plots gain against."""
+    out = list(figures)
+    in_trade_words(out, "down", orders)
+    return out
+
+
+def in_trade_words(figures: list[Figure], conversion: str, orders: tuple[int, int] | None
+                   ) -> None:
+    """:func:`trade_named` then :func:`with_output_frequency`, each figure of the list
+    replaced where it stands (once, with its new name and conditions): a caller that owns
+    the list (the reduction) never holds a run's figures twice."""
     from sweeprig.analysis.figure_table import distinct_conditions
 
     m, n = orders if orders is not None else (1, -1)
@@ -89,8 +99,16 @@ def with_output_frequency(figures: Sequence[Figure], orders: tuple[int, int] | N
         if OUTPUT_FREQ in c or not isinstance(lo, float | int) or not isinstance(rf, float | int):
             continue
         extended[i] = MappingProxyType({**c, OUTPUT_FREQ: float(abs(m * lo + n * rf))})
-    return [f if cond is None else with_conditions(f, cond)
-            for f, cond in zip(figures, extended[which].tolist(), strict=True)]
+    del distinct
+    renamed = UP_NAMES if conversion == "up" else {}
+    for i, cond in enumerate(extended[which].tolist()):
+        f = figures[i]
+        name = renamed.get(f.name)
+        if name is not None:
+            figures[i] = with_changes(f, name=name) if cond is None else with_changes(
+                f, name=name, conditions=cond)
+        elif cond is not None:
+            figures[i] = with_conditions(f, cond)
 
 
 def upconverter_figures(

@@ -180,7 +180,8 @@ def reduce_run(store: RunStore, run_id: int) -> RunFigures:
 
 def _reduce_run(store: RunStore, run_id: int) -> RunFigures:
     from sweeprig.analysis.bench_specs import calibration_state, specs_from_bench_text
-    from sweeprig.analysis.budget_groups import attach_uncertainty
+    from sweeprig.analysis.budget_groups import attach_uncertainty_in_place
+    from sweeprig.analysis.direction import in_trade_words
     from sweeprig.analysis.load import captures_from_frames
 
     info = store.run(run_id)
@@ -196,6 +197,12 @@ def _reduce_run(store: RunStore, run_id: int) -> RunFigures:
         conversion = sequence.mixing.conversion
         orders = wanted_orders(conversion, sequence.mixing.lo_side)
     captures = captures_from_frames(points, readings, wanted_orders=orders)
+    bench_specs = specs_from_bench_text(info.bench_text, info.bench_path or "bench file")
+    from sweeprig.analysis.noise_load import noise_figure_figures  # own budgets
+
+    # made now, added last (as before): the readings table is not held past this line
+    noise_figures = noise_figure_figures(points, readings, bench_specs.specs, sequence)
+    del readings
     studies = _study_infos(captures, points, sequence)
     figures = _figures(captures, studies, notes,
                        spur_counting(sequence) if sequence is not None else {})
@@ -210,15 +217,13 @@ def _reduce_run(store: RunStore, run_id: int) -> RunFigures:
         expected_current = getattr(sequence.part, "expected_supply_current", None)
         if expected_current is not None:
             figures = _flag_supply_current(figures, captures, float(expected_current), notes)
-    bench_specs = specs_from_bench_text(info.bench_text, info.bench_path or "bench file")
     notes += bench_specs.notes
     calibration, calibration_note = calibration_state(events)
     notes += [calibration_note] if calibration_note else []
-    figures = attach_uncertainty(figures, captures, bench_specs.specs, calibration)
-    figures = _in_trade_words(figures, conversion, orders)
-    from sweeprig.analysis.noise_load import noise_figure_figures  # own budgets
-
-    figures += noise_figure_figures(points, readings, bench_specs.specs, sequence)
+    # each pass replaces the figures of this list where they stand (never two copies held)
+    attach_uncertainty_in_place(figures, captures, bench_specs.specs, calibration)
+    in_trade_words(figures, conversion, orders)
+    figures += noise_figures
     limits = limits_from_sequence(sequence) if sequence is not None else ()
     assessment = assess(figures, limits, guard_band=bench_specs.guard_band)
     state = _state(info.status, info.points_done, info.points_total)
@@ -295,15 +300,6 @@ SPEC_FIGURES: Mapping[str, str] = MappingProxyType({
     "lo_leakage_dbm": "lo_leakage",
     "noise_figure_db": "noise_figure",
 })
-
-
-def _in_trade_words(figures: list[Figure], conversion: str, orders: tuple[int, int] | None
-                    ) -> list[Figure]:
-    """Figures named for the conversion direction, each with its point's output frequency
-    (condition ``output_freq_hz``; see :mod:`sweeprig.analysis.direction`)."""
-    from sweeprig.analysis.direction import trade_named, with_output_frequency
-
-    return with_output_frequency(trade_named(figures, conversion), orders)
 
 
 def limits_from_sequence(sequence: Sequence) -> tuple[Limit, ...]:
