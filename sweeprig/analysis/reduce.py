@@ -29,6 +29,7 @@ not pass: a passing partial run is inconclusive.
 
 from __future__ import annotations
 
+import functools
 import json
 import math
 import tomllib
@@ -60,6 +61,8 @@ from sweeprig.store.base import MERGED_SEQUENCE, EventRecord, InstrumentRecord, 
 
 if TYPE_CHECKING:
     import pandas as pd
+
+    from sweeprig.analysis.figure_table import RunConditions
 
 #: What a study can feed (see the module docstring).
 ROLE_GAIN = "gain"
@@ -146,6 +149,15 @@ class RunFigures:
     #: upconverter's ``rf_*`` conditions are its IF input; see
     #: :mod:`sweeprig.analysis.direction`). "down" when the sequence could not be read.
     conversion: str = "down"
+
+    @functools.cached_property
+    def figure_conditions(self) -> RunConditions:
+        """The conditions of ``figures`` as columns, read once per distinct mapping and
+        kept (:class:`~sweeprig.analysis.figure_table.RunConditions`): what the report's
+        writers take per figure."""
+        from sweeprig.analysis.figure_table import RunConditions
+
+        return RunConditions.of(self.figures)
 
     def figures_named(self, name: str) -> list[Figure]:
         """Every figure called ``name``, in reduction order."""

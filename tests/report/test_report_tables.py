@@ -390,3 +390,54 @@ def test_a_format_3_figures_file_is_still_read(tmp_path):
     assert current["budget"] is None and current["uncertainty_db"] is None
     assert [t["name"] for t in read["budget_terms"]] == ["input_level", "noise"]
     assert read["budget_terms"][0]["contribution_db"] == 0.15
+
+
+def _own_condition_cell(figure: Figure, key: str, text: bool) -> object:
+    """A condition cell of the figure table as the figure's own mapping gives it (the
+    per-figure reading the run's condition columns replace)."""
+    value = figure.conditions.get(key)
+    if text:
+        return "" if value is None else str(value)
+    return math.nan if value is None else float(value)
+
+
+def _same_cell(a: object, b: object) -> bool:
+    return a == b or (isinstance(a, float) and isinstance(b, float)
+                      and math.isnan(a) and math.isnan(b))
+
+
+def test_the_figure_tables_conditions_are_each_figures_own(report_run):
+    """figures.csv takes its condition columns from the run's columns (each distinct
+    mapping read once, then spread by index): cell for cell, each figure's own conditions
+    read figure by figure, and its keys those of the figures in order of first sight."""
+    frame = figures_frame(report_run)
+    kinds = report_run.figure_conditions.kinds
+    seen: dict[str, None] = {}
+    for figure in report_run.figures:
+        seen.update(dict.fromkeys(figure.conditions))
+    assert list(kinds) == list(seen)
+    assert list(frame.columns[-len(kinds):]) == list(kinds)
+    for key, text in kinds.items():
+        column = frame[key].tolist()
+        assert all(_same_cell(cell, _own_condition_cell(f, key, text))
+                   for cell, f in zip(column, report_run.figures, strict=True)), key
+
+
+def test_a_text_condition_stays_text_in_a_slice_of_numbers(report_run, monkeypatch):
+    """A key that holds words somewhere in the run is text in every slice of the figure
+    table, a slice whose figures hold only numbers for it included (as each value reads)."""
+    import dataclasses
+
+    from sweeprig.report import tables
+
+    conditions = [{"study": "nf", "sideband": 1.0}, {"study": "nf", "sideband": "ssb"},
+                  {"study": "band", "rf_freq_hz": 2.4e9}]
+    odd = dataclasses.replace(
+        report_run, figures=tuple(Figure("noise_figure", 5.0 + i, "dB", conditions=c)
+                                  for i, c in enumerate(conditions)),
+        assessment=dataclasses.replace(report_run.assessment, judgements=(), untested=()))
+    monkeypatch.setattr(tables, "FIGURE_SLICE_ROWS", 1)
+    slices = list(tables.figure_frames(odd))
+    assert [s["sideband"].tolist() for s in slices] == [["1.0"], ["ssb"], [""]]
+    assert [s["study"].tolist() for s in slices] == [["nf"], ["nf"], ["band"]]
+    assert slices[0]["rf_freq_hz"].isna().all() and slices[2]["rf_freq_hz"].tolist() == [2.4e9]
