@@ -34,7 +34,7 @@ from sweeprig.analysis.budget_parts import (
     noise_contributions_db,
     scatter_contributions_db,
 )
-from sweeprig.analysis.figures import Figure, collector_paused, with_changes
+from sweeprig.analysis.figures import Figure, collector_paused, with_changes, with_conditions
 from sweeprig.analysis.uncertainty import (
     _DB_UNITS,
     _SIDE_NAMES,
@@ -69,26 +69,45 @@ def attach_uncertainty(figures: Sequence[Figure], captures: pd.DataFrame,
     return out
 
 
-def attach_uncertainty_in_place(figures: list[Figure], captures: pd.DataFrame,
-                                specs: InstrumentSpecs | None = None,
-                                cal: CalibrationState = UNCALIBRATED) -> None:
+def attach_uncertainty_in_place(
+    figures: list[Figure], captures: pd.DataFrame, specs: InstrumentSpecs | None = None,
+    cal: CalibrationState = UNCALIBRATED, *,
+    conditions: Sequence[Mapping[str, float | int | str] | None] | None = None,
+) -> None:
     """:func:`attach_uncertainty`, each figure of the list replaced where it stands: a
-    caller that owns the list (the reduction) never holds a run's figures twice."""
+    caller that owns the list (the reduction) never holds a run's figures twice.
+    ``conditions``: per figure, new conditions to set in the same replacement (None: kept;
+    the budgets are worked out on the figures as given, before it)."""
     specs = specs or InstrumentSpecs()
     sides: dict[tuple, Figure] = {}
+    # _condition_key per distinct mapping (held beside it: its id stays its own)
+    keys: dict[int, tuple[Mapping[str, object], tuple]] = {}
+
+    def key_of(c: Mapping[str, object]) -> tuple:
+        held = keys.get(id(c))
+        if held is None:
+            held = keys[id(c)] = (c, _condition_key(c))
+        return held[1]
+
     with collector_paused():  # a large run makes hundreds of thousands of budgets
         budgets = grouped_budgets(figures, captures, specs, cal)
         for i, budget in enumerate(budgets):
+            cond = None if conditions is None else conditions[i]
             if budget is not None:
-                f = figures[i] = with_changes(figures[i], uncertainty_db=budget.expanded_db,
-                                              budget=budget)
+                f = figures[i] = (
+                    with_changes(figures[i], uncertainty_db=budget.expanded_db, budget=budget)
+                    if cond is None else
+                    with_changes(figures[i], uncertainty_db=budget.expanded_db, budget=budget,
+                                 conditions=cond))
                 if f.name in _SIDE_NAMES:
-                    sides[(f.name, _condition_key(f.conditions), f.value)] = f
+                    sides[(f.name, key_of(f.conditions), f.value)] = f
+            elif cond is not None:
+                figures[i] = with_conditions(figures[i], cond)
         del budgets
     for i, f in enumerate(figures):
         if f.name in WORST_OF and f.is_number:
             for side in WORST_OF[f.name]:
-                match = sides.get((side, _condition_key(f.conditions), f.value))
+                match = sides.get((side, key_of(f.conditions), f.value))
                 if match is not None:
                     figures[i] = with_changes(f, uncertainty_db=match.uncertainty_db,
                                               budget=match.budget)

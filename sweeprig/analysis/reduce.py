@@ -193,7 +193,7 @@ def reduce_run(store: RunStore, run_id: int) -> RunFigures:
 def _reduce_run(store: RunStore, run_id: int) -> RunFigures:
     from sweeprig.analysis.bench_specs import calibration_state, specs_from_bench_text
     from sweeprig.analysis.budget_groups import attach_uncertainty_in_place
-    from sweeprig.analysis.direction import in_trade_words
+    from sweeprig.analysis.direction import name_in_trade_words, output_frequency_conditions
     from sweeprig.analysis.load import captures_from_frames
 
     info = store.run(run_id)
@@ -232,9 +232,11 @@ def _reduce_run(store: RunStore, run_id: int) -> RunFigures:
     notes += bench_specs.notes
     calibration, calibration_note = calibration_state(events)
     notes += [calibration_note] if calibration_note else []
-    # each pass replaces the figures of this list where they stand (never two copies held)
-    attach_uncertainty_in_place(figures, captures, bench_specs.specs, calibration)
-    in_trade_words(figures, conversion, orders)
+    # each pass replaces the figures of this list where they stand (never two copies held);
+    # a figure's budget and its output frequency are set in one replacement
+    attach_uncertainty_in_place(figures, captures, bench_specs.specs, calibration,
+                                conditions=output_frequency_conditions(figures, orders))
+    name_in_trade_words(figures, conversion)
     figures += noise_figures
     limits = limits_from_sequence(sequence) if sequence is not None else ()
     assessment = assess(figures, limits, guard_band=bench_specs.guard_band)
