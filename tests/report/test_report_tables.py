@@ -441,3 +441,39 @@ def test_a_text_condition_stays_text_in_a_slice_of_numbers(report_run, monkeypat
     assert [s["sideband"].tolist() for s in slices] == [["1.0"], ["ssb"], [""]]
     assert [s["study"].tolist() for s in slices] == [["nf"], ["nf"], ["band"]]
     assert slices[0]["rf_freq_hz"].isna().all() and slices[2]["rf_freq_hz"].tolist() == [2.4e9]
+
+
+def test_the_reductions_passes_are_the_copying_passes_on_a_real_run(report_run):
+    """On the report run's own captures and studies, the reduction's passes over its own
+    list (budgets and output frequency in one replacement, names in place) give what the
+    copying passes give one after the other: figure for figure, budget line for line,
+    for a downconverter's and an upconverter's orders and names."""
+    from sweeprig.analysis import reduce as rd
+    from sweeprig.analysis.budget_groups import attach_uncertainty, attach_uncertainty_in_place
+    from sweeprig.analysis.budget_parts import budget_lines
+    from sweeprig.analysis.direction import (
+        name_in_trade_words,
+        output_frequency_conditions,
+        trade_named,
+        with_output_frequency,
+    )
+
+    analysed = rd._figures(report_run.captures, report_run.studies, [])
+    assert len(analysed) >= 200
+    for conversion, orders in (("down", (1, -1)), ("up", (1, 1))):
+        old = with_output_frequency(trade_named(attach_uncertainty(
+            analysed, report_run.captures), conversion), orders)
+        new = list(analysed)
+        attach_uncertainty_in_place(new, report_run.captures,
+                                    conditions=output_frequency_conditions(new, orders))
+        name_in_trade_words(new, conversion)
+        assert new == old
+        # the worse-of-two-sides headlines took their side's budget in both
+        assert any(f.name == "iip3" and f.budget is not None for f in new)
+        assert conversion == "down" or any(f.name == "lo_rf_isolation" for f in new)
+        for a, b in zip(new, old, strict=True):
+            assert dict(a.conditions) == dict(b.conditions), a
+            assert (a.budget is None) == (b.budget is None), a
+            if a.budget is not None:
+                assert a.uncertainty_db == b.uncertainty_db, a
+                assert budget_lines(a.budget) == budget_lines(b.budget), a
