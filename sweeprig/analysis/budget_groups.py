@@ -34,7 +34,12 @@ from sweeprig.analysis.budget_parts import (
     noise_contributions_db,
     scatter_contributions_db,
 )
-from sweeprig.analysis.figures import Figure, collector_paused, with_changes, with_conditions
+from sweeprig.analysis.figures import (
+    Figure,
+    collector_paused,
+    with_conditions,
+    with_uncertainty,
+)
 from sweeprig.analysis.uncertainty import (
     _DB_UNITS,
     _SIDE_NAMES,
@@ -94,11 +99,7 @@ def attach_uncertainty_in_place(
         for i, budget in enumerate(budgets):
             cond = None if conditions is None else conditions[i]
             if budget is not None:
-                f = figures[i] = (
-                    with_changes(figures[i], uncertainty_db=budget.expanded_db, budget=budget)
-                    if cond is None else
-                    with_changes(figures[i], uncertainty_db=budget.expanded_db, budget=budget,
-                                 conditions=cond))
+                f = figures[i] = with_uncertainty(figures[i], budget.expanded_db, budget, cond)
                 if f.name in _SIDE_NAMES:
                     sides[(f.name, key_of(f.conditions), f.value)] = f
             elif cond is not None:
@@ -109,8 +110,7 @@ def attach_uncertainty_in_place(
             for side in WORST_OF[f.name]:
                 match = sides.get((side, key_of(f.conditions), f.value))
                 if match is not None:
-                    figures[i] = with_changes(f, uncertainty_db=match.uncertainty_db,
-                                              budget=match.budget)
+                    figures[i] = with_uncertainty(f, match.uncertainty_db, match.budget)
                     break
 
 
@@ -199,6 +199,7 @@ def grouped_budgets(figures: Sequence[Figure], captures: pd.DataFrame,
     # per figure name: its model and, unless it depends on the figure (an m×n spur's own
     # reading), its noisy readings
     kinds: dict[str, tuple[_Model | None, Noisy | None]] = {}
+    isfinite = math.isfinite
     for i, f in enumerate(figures):
         kind = kinds.get(f.name)
         if kind is None:
@@ -207,7 +208,9 @@ def grouped_budgets(figures: Sequence[Figure], captures: pd.DataFrame,
                      else _noisy(model, model.noise_reading))
             kind = kinds[f.name] = (model, fixed)
         model, noisy = kind
-        if model is None or not f.is_number or f.unit not in _DB_UNITS:
+        # (f.is_number, spelled out: this loop meets every figure of the run)
+        if model is None or f.bound is not None or not isfinite(f.value) \
+                or f.unit not in _DB_UNITS:
             continue
         if model.fit is not None or len(f.points) != 1:
             alone.append(i)
