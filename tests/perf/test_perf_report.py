@@ -38,9 +38,12 @@ about 470k budgets. Resident memory: imports and the points table 198 MB, readin
 1,070 MB peak. After (budgets and output frequency set in one replacement in the
 reduction's own list, the readings table freed after the noise figures, the figure table's
 conditions taken by index from columns made once per distinct mapping, each limit's text
-made once): the same report files byte for byte; peak 954 MB (now at the grouped budgets:
-figures, budgets and the extended conditions held together); reduction about 15 to 18 s,
-files about 18 to 23 s of processor time on that loaded machine. The rest of the gap is
+made once, a float column that is mostly an earlier one's values written from its texts):
+the same report files byte for byte; peak 932 MB (now at the grouped budgets: figures,
+budgets and the extended conditions held together). Main and this, interleaved twice on
+the same store (load average 2.8 to 3.7 on 2 cores): 46.7 and 47.3 s of processor time
+(48.0 and 60.1 s wall), 1,050 MB, before; 41.5 and 44.8 s (47.1 and 57.3 s wall),
+933 MB, after. The rest of the gap is
 the object model itself (one Figure and one budget per figure, made and walked by every
 pass and writer): a columnar figure store is the next step.
 """
