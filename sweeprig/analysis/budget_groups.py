@@ -34,7 +34,12 @@ from sweeprig.analysis.budget_parts import (
     noise_contributions_db,
     scatter_contributions_db,
 )
-from sweeprig.analysis.figures import Figure, collector_paused, with_changes
+from sweeprig.analysis.figures import (
+    Figure,
+    collector_paused,
+    with_conditions,
+    with_uncertainty,
+)
 from sweeprig.analysis.uncertainty import (
     _DB_UNITS,
     _SIDE_NAMES,
@@ -64,26 +69,49 @@ def attach_uncertainty(figures: Sequence[Figure], captures: pd.DataFrame,
     :class:`~sweeprig.analysis.budget_parts.FigureBudget`) set where a budget exists; the
     others are returned unchanged. A headline figure that is the worse of two sides
     (:data:`~sweeprig.analysis.uncertainty.WORST_OF`) takes that side's budget."""
+    out = list(figures)
+    attach_uncertainty_in_place(out, captures, specs, cal)
+    return out
+
+
+def attach_uncertainty_in_place(
+    figures: list[Figure], captures: pd.DataFrame, specs: InstrumentSpecs | None = None,
+    cal: CalibrationState = UNCALIBRATED, *,
+    conditions: Sequence[Mapping[str, float | int | str] | None] | None = None,
+) -> None:
+    """:func:`attach_uncertainty`, each figure of the list replaced where it stands: a
+    caller that owns the list (the reduction) never holds a run's figures twice.
+    ``conditions``: per figure, new conditions to set in the same replacement (None: kept;
+    the budgets are worked out on the figures as given, before it)."""
     specs = specs or InstrumentSpecs()
-    out: list[Figure] = []
     sides: dict[tuple, Figure] = {}
+    # _condition_key per distinct mapping (held beside it: its id stays its own)
+    keys: dict[int, tuple[Mapping[str, object], tuple]] = {}
+
+    def key_of(c: Mapping[str, object]) -> tuple:
+        held = keys.get(id(c))
+        if held is None:
+            held = keys[id(c)] = (c, _condition_key(c))
+        return held[1]
+
     with collector_paused():  # a large run makes hundreds of thousands of budgets
         budgets = grouped_budgets(figures, captures, specs, cal)
-        for f, budget in zip(figures, budgets, strict=True):
+        for i, budget in enumerate(budgets):
+            cond = None if conditions is None else conditions[i]
             if budget is not None:
-                f = with_changes(f, uncertainty_db=budget.expanded_db, budget=budget)
+                f = figures[i] = with_uncertainty(figures[i], budget.expanded_db, budget, cond)
                 if f.name in _SIDE_NAMES:
-                    sides[(f.name, _condition_key(f.conditions), f.value)] = f
-            out.append(f)
-    for i, f in enumerate(out):
+                    sides[(f.name, key_of(f.conditions), f.value)] = f
+            elif cond is not None:
+                figures[i] = with_conditions(figures[i], cond)
+        del budgets
+    for i, f in enumerate(figures):
         if f.name in WORST_OF and f.is_number:
             for side in WORST_OF[f.name]:
-                match = sides.get((side, _condition_key(f.conditions), f.value))
+                match = sides.get((side, key_of(f.conditions), f.value))
                 if match is not None:
-                    out[i] = with_changes(f, uncertainty_db=match.uncertainty_db,
-                                          budget=match.budget)
+                    figures[i] = with_uncertainty(f, match.uncertainty_db, match.budget)
                     break
-    return out
 
 
 def _noisy(model: _Model, reading: str | None) -> Noisy:
@@ -171,6 +199,7 @@ def grouped_budgets(figures: Sequence[Figure], captures: pd.DataFrame,
     # per figure name: its model and, unless it depends on the figure (an m×n spur's own
     # reading), its noisy readings
     kinds: dict[str, tuple[_Model | None, Noisy | None]] = {}
+    isfinite = math.isfinite
     for i, f in enumerate(figures):
         kind = kinds.get(f.name)
         if kind is None:
@@ -179,7 +208,9 @@ def grouped_budgets(figures: Sequence[Figure], captures: pd.DataFrame,
                      else _noisy(model, model.noise_reading))
             kind = kinds[f.name] = (model, fixed)
         model, noisy = kind
-        if model is None or not f.is_number or f.unit not in _DB_UNITS:
+        # (f.is_number, spelled out: this loop meets every figure of the run)
+        if model is None or f.bound is not None or not isfinite(f.value) \
+                or f.unit not in _DB_UNITS:
             continue
         if model.fit is not None or len(f.points) != 1:
             alone.append(i)

@@ -61,10 +61,20 @@ OUTPUT_FREQ = "output_freq_hz"
 def trade_named(figures: Sequence[Figure], conversion: str) -> list[Figure]:
     """The figures with their names in the trade's words for ``conversion`` ("down": as
     computed; "up": :data:`UP_NAMES` applied)."""
+    out = list(figures)
+    name_in_trade_words(out, conversion)
+    return out
+
+
+def name_in_trade_words(figures: list[Figure], conversion: str) -> None:
+    """:func:`trade_named`, each renamed figure of the list replaced where it stands (a
+    caller that owns the list never holds a run's figures twice)."""
     if conversion != "up":
-        return list(figures)
-    return [with_changes(f, name=UP_NAMES[f.name]) if f.name in UP_NAMES else f
-            for f in figures]
+        return
+    for i, f in enumerate(figures):
+        name = UP_NAMES.get(f.name)
+        if name is not None:
+            figures[i] = with_changes(f, name=name)
 
 
 def trade_name(positional: str, conversion: str) -> str:
@@ -77,6 +87,16 @@ def with_output_frequency(figures: Sequence[Figure], orders: tuple[int, int] | N
     """Each figure whose conditions hold ``lo_freq_hz`` and ``rf_freq_hz`` (the input) gains
     ``output_freq_hz`` = |m·f_LO + n·f_in| for the wanted product's (m, n) ``orders``
     (default (1, −1)): the axis a datasheet plots gain against."""
+    return [f if cond is None else with_conditions(f, cond)
+            for f, cond in zip(figures, output_frequency_conditions(figures, orders),
+                               strict=True)]
+
+
+def output_frequency_conditions(figures: Sequence[Figure], orders: tuple[int, int] | None
+                                ) -> list[Mapping[str, float | int | str] | None]:
+    """Per figure, its conditions with ``output_freq_hz`` added as
+    :func:`with_output_frequency` adds it, or None where it gains none: for a pass that
+    sets them together with other changes (the reduction's budgets)."""
     from sweeprig.analysis.figure_table import distinct_conditions
 
     m, n = orders if orders is not None else (1, -1)
@@ -89,8 +109,7 @@ def with_output_frequency(figures: Sequence[Figure], orders: tuple[int, int] | N
         if OUTPUT_FREQ in c or not isinstance(lo, float | int) or not isinstance(rf, float | int):
             continue
         extended[i] = MappingProxyType({**c, OUTPUT_FREQ: float(abs(m * lo + n * rf))})
-    return [f if cond is None else with_conditions(f, cond)
-            for f, cond in zip(figures, extended[which].tolist(), strict=True)]
+    return extended[which].tolist()
 
 
 def upconverter_figures(

@@ -17,6 +17,7 @@ given (for a run, ``run.figures``), so a row leads back to its Figure.
 from __future__ import annotations
 
 from collections.abc import Iterable, Mapping, Sequence
+from dataclasses import dataclass
 from typing import TYPE_CHECKING
 
 import numpy as np
@@ -55,42 +56,78 @@ def figure_columns(figures: Sequence[Figure], names: Iterable[str] | None = None
         if wanted is None or f.name in wanted:
             rows.append(i)
             picked.append(f)
+    columns = base_columns(picked)
+    # figures of one point or group share their conditions mapping: read each distinct
+    # mapping once (in order of first appearance) and spread its values by index
+    distinct, which = distinct_conditions(picked)
+    for key, values in condition_arrays(distinct).items():
+        columns[key] = values[which]
+    return np.array(rows, dtype=np.int64), columns
+
+
+def base_columns(figures: Sequence[Figure]) -> dict[str, np.ndarray]:
+    """The :data:`BASE_COLUMNS` of ``figures``, one pass over them (text and ``points`` as
+    object arrays)."""
     masks: dict[tuple[str, ...], int] = {}
     flag_masks = []
-    for f in picked:
+    for f in figures:
         mask = masks.get(f.flags)
         if mask is None:
             mask = masks[f.flags] = sum(flag_bit(flag) for flag in f.flags)
         flag_masks.append(mask)
-    points = np.empty(len(picked), dtype=object)
-    points[:] = [tuple(f.points) for f in picked]
-    columns: dict[str, np.ndarray] = {
-        "name": np.array([f.name for f in picked], dtype=object),
-        "value": np.array([f.value for f in picked], dtype=float),
-        "unit": np.array([f.unit for f in picked], dtype=object),
-        "bound": np.array([f.bound or "" for f in picked], dtype=object),
-        "uncertainty_db": np.array([f.uncertainty_db for f in picked], dtype=float),
+    points = np.empty(len(figures), dtype=object)
+    points[:] = [tuple(f.points) for f in figures]
+    return {
+        "name": np.array([f.name for f in figures], dtype=object),
+        "value": np.array([f.value for f in figures], dtype=float),
+        "unit": np.array([f.unit for f in figures], dtype=object),
+        "bound": np.array([f.bound or "" for f in figures], dtype=object),
+        "uncertainty_db": np.array([f.uncertainty_db for f in figures], dtype=float),
         "flags": np.array(flag_masks, dtype=np.int64),
         "points": points,
     }
-    # figures of one point or group share their conditions mapping: read each distinct
-    # mapping once (in order of first appearance) and spread its values by index
-    distinct, which = distinct_conditions(picked)
+
+
+def condition_arrays(mappings: Sequence[Mapping[str, object]]) -> dict[str, np.ndarray]:
+    """One array per condition key of ``mappings`` (in order of first appearance), one
+    element per mapping: ``study`` and any key with a text value as str ("" where missing),
+    the others as float (NaN where missing)."""
     keys: dict[str, None] = {}
-    for conditions in distinct:
+    for conditions in mappings:
         for key in conditions:
             if key not in keys:
                 keys[key] = None
+    out: dict[str, np.ndarray] = {}
     for key in keys:
-        values = [c.get(key) for c in distinct]
+        values = [c.get(key) for c in mappings]
         if key == "study" or any(isinstance(v, str) for v in values):
-            texts = np.array(["" if v is None else str(v) for v in values], dtype=object)
-            columns[key] = texts[which]
+            out[key] = np.array(["" if v is None else str(v) for v in values], dtype=object)
         else:
-            numbers = np.array([np.nan if v is None else float(v) for v in values],
-                               dtype=float)
-            columns[key] = numbers[which]
-    return np.array(rows, dtype=np.int64), columns
+            out[key] = np.array([np.nan if v is None else float(v) for v in values],
+                                dtype=float)
+    return out
+
+
+@dataclass(frozen=True)
+class RunConditions:
+    """The conditions of a run's figures as columns, read once per distinct mapping:
+    ``mappings`` (distinct, in order of first appearance), ``which`` (per figure, the index
+    of its own), ``arrays`` (:func:`condition_arrays` of ``mappings``). ``kinds``: every key
+    in order of first appearance and whether its column is text. A report's writers take a
+    column per figure by ``arrays[key][which]`` (or a slice of ``which``)."""
+
+    mappings: list[Mapping[str, object]]
+    which: np.ndarray
+    arrays: dict[str, np.ndarray]
+
+    @classmethod
+    def of(cls, figures: Sequence[Figure]) -> RunConditions:
+        mappings, which = distinct_conditions(figures)
+        return cls(mappings, which, condition_arrays(mappings))
+
+    @property
+    def kinds(self) -> dict[str, bool]:
+        return {key: values.dtype == object for key, values in self.arrays.items()}
 
 
 def distinct_conditions(figures: Sequence[Figure]

@@ -408,9 +408,9 @@ _FIGURE_SLOTS: tuple[str, ...] = Figure.__slots__
 _OpenFigure = writable_twin(Figure)
 _OPEN_FIGURES = _OpenFigure is not None
 _FIGURE_SLOT_SET = frozenset(_FIGURE_SLOTS)
-# with_changes and with_conditions set every field by name: a field added to Figure must be
-# added there too (tests/analysis/test_figures.py compares them with dataclasses.replace
-# field by field).
+# with_changes, with_conditions and with_uncertainty set every field by name: a field
+# added to Figure must be added there too (tests/analysis/test_figures.py compares them
+# with dataclasses.replace field by field).
 
 
 def with_changes(figure: Figure, **changes: object) -> Figure:
@@ -463,6 +463,29 @@ def with_conditions(figure: Figure, conditions: Mapping[str, float | int | str])
     open_.points = figure.points
     open_.uncertainty_db = figure.uncertainty_db
     open_.budget = figure.budget
+    open_.__class__ = Figure  # type: ignore[assignment]
+    return open_  # type: ignore[return-value]
+
+
+def with_uncertainty(figure: Figure, uncertainty_db: float, budget: FigureBudget | None,
+                     conditions: Mapping[str, float | int | str] | None = None) -> Figure:
+    """``with_changes(figure, uncertainty_db=..., budget=...)`` (and ``conditions=`` unless
+    None) with its fields set directly: the budget pass replaces most figures of a run."""
+    if not _OPEN_FIGURES:
+        if conditions is None:
+            return with_changes(figure, uncertainty_db=uncertainty_db, budget=budget)
+        return with_changes(figure, uncertainty_db=uncertainty_db, budget=budget,
+                            conditions=conditions)
+    open_ = _OpenFigure()
+    open_.name = figure.name
+    open_.value = figure.value
+    open_.unit = figure.unit
+    open_.bound = figure.bound
+    open_.conditions = figure.conditions if conditions is None else conditions
+    open_.flags = figure.flags
+    open_.points = figure.points
+    open_.uncertainty_db = uncertainty_db
+    open_.budget = budget
     open_.__class__ = Figure  # type: ignore[assignment]
     return open_  # type: ignore[return-value]
 

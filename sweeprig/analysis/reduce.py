@@ -29,6 +29,7 @@ not pass: a passing partial run is inconclusive.
 
 from __future__ import annotations
 
+import functools
 import json
 import math
 import tomllib
@@ -75,6 +76,8 @@ from sweeprig.store.base import MERGED_SEQUENCE, EventRecord, InstrumentRecord, 
 
 if TYPE_CHECKING:
     import pandas as pd
+
+    from sweeprig.analysis.figure_table import RunConditions
 
 #: Run states shown in reports: ``complete``, ``aborted``, ``unsafe`` (the bench's safe state
 #: could not be verified by read-back when the run ended), or ``partial`` (not finished: still
@@ -145,6 +148,15 @@ class RunFigures:
     #: :mod:`sweeprig.analysis.direction`). "down" when the sequence could not be read.
     conversion: str = "down"
 
+    @functools.cached_property
+    def figure_conditions(self) -> RunConditions:
+        """The conditions of ``figures`` as columns, read once per distinct mapping and
+        kept (:class:`~sweeprig.analysis.figure_table.RunConditions`): what the report's
+        writers take per figure."""
+        from sweeprig.analysis.figure_table import RunConditions
+
+        return RunConditions.of(self.figures)
+
     def figures_named(self, name: str) -> list[Figure]:
         """Every figure called ``name``, in reduction order."""
         return [f for f in self.figures if f.name == name]
@@ -178,7 +190,8 @@ def reduce_run(store: RunStore, run_id: int) -> RunFigures:
 
 def _reduce_run(store: RunStore, run_id: int) -> RunFigures:
     from sweeprig.analysis.bench_specs import calibration_state, specs_from_bench_text
-    from sweeprig.analysis.budget_groups import attach_uncertainty
+    from sweeprig.analysis.budget_groups import attach_uncertainty_in_place
+    from sweeprig.analysis.direction import name_in_trade_words, output_frequency_conditions
     from sweeprig.analysis.load import captures_from_frames
 
     info = store.run(run_id)
@@ -194,6 +207,12 @@ def _reduce_run(store: RunStore, run_id: int) -> RunFigures:
         conversion = sequence.mixing.conversion
         orders = wanted_orders(conversion, sequence.mixing.lo_side)
     captures = captures_from_frames(points, readings, wanted_orders=orders)
+    bench_specs = specs_from_bench_text(info.bench_text, info.bench_path or "bench file")
+    from sweeprig.analysis.noise_load import noise_figure_figures  # own budgets
+
+    # made now, added last (as before): the readings table is not held past this line
+    noise_figures = noise_figure_figures(points, readings, bench_specs.specs, sequence)
+    del readings
     studies = _study_infos(captures, points, sequence)
     figures = _figures(captures, studies, notes,
                        spur_counting(sequence) if sequence is not None else {})
@@ -208,15 +227,15 @@ def _reduce_run(store: RunStore, run_id: int) -> RunFigures:
         expected_current = getattr(sequence.part, "expected_supply_current", None)
         if expected_current is not None:
             figures = _flag_supply_current(figures, captures, float(expected_current), notes)
-    bench_specs = specs_from_bench_text(info.bench_text, info.bench_path or "bench file")
     notes += bench_specs.notes
     calibration, calibration_note = calibration_state(events)
     notes += [calibration_note] if calibration_note else []
-    figures = attach_uncertainty(figures, captures, bench_specs.specs, calibration)
-    figures = _in_trade_words(figures, conversion, orders)
-    from sweeprig.analysis.noise_load import noise_figure_figures  # own budgets
-
-    figures += noise_figure_figures(points, readings, bench_specs.specs, sequence)
+    # each pass replaces the figures of this list where they stand (never two copies held);
+    # a figure's budget and its output frequency are set in one replacement
+    attach_uncertainty_in_place(figures, captures, bench_specs.specs, calibration,
+                                conditions=output_frequency_conditions(figures, orders))
+    name_in_trade_words(figures, conversion)
+    figures += noise_figures
     limits = limits_from_sequence(sequence) if sequence is not None else ()
     assessment = assess(figures, limits, guard_band=bench_specs.guard_band)
     state = _state(info.status, info.points_done, info.points_total)
@@ -271,15 +290,6 @@ def _reduce_run(store: RunStore, run_id: int) -> RunFigures:
 
 # ---------------------------------------------------------------------------------------------
 # the stored sequence
-
-
-def _in_trade_words(figures: list[Figure], conversion: str, orders: tuple[int, int] | None
-                    ) -> list[Figure]:
-    """Figures named for the conversion direction, each with its point's output frequency
-    (condition ``output_freq_hz``; see :mod:`sweeprig.analysis.direction`)."""
-    from sweeprig.analysis.direction import trade_named, with_output_frequency
-
-    return with_output_frequency(trade_named(figures, conversion), orders)
 
 
 def _stored_sequence(text: str, path: str, sha256: str, files: tuple[RunFile, ...],

@@ -40,6 +40,7 @@ from sweeprig.report.tables import (
     flag_tally,
     format_condition,
     limit_text,
+    limit_texts,
 )
 
 #: Conditions that make the corners of a row, in the order the conditions column names them.
@@ -197,7 +198,7 @@ def _row(name: str, study: str, members: list[Figure], judged: Mapping[int, list
         counts[j.verdict] += 1
     verdict = (FAIL if counts[FAIL] else INCONCLUSIVE if counts[INCONCLUSIVE]
                else PASS if counts[PASS] else NO_LIMIT)
-    limits = list(dict.fromkeys(limit_text(j.limit) for j in judgements))
+    limits = limit_texts(judgements)
     if not limits:
         limits = [limit_text(li) for li in run.limits if li.name == name
                   and li.conditions.get("study", study) == study]

@@ -277,6 +277,13 @@ def limit_text(limit: Limit) -> str:
     return f"{text} ({conditions_text(where)})" if where else text
 
 
+def limit_texts(judgements: Iterable[Judgement]) -> list[str]:
+    """The distinct :func:`limit_text` of the judgements' limits, in order of first
+    appearance (each limit's text made once: a run judges a limit many times)."""
+    limits = {id(j.limit): j.limit for j in judgements}
+    return list(dict.fromkeys(limit_text(limit) for limit in limits.values()))
+
+
 _RANGE = re.compile(r"≥ (?P<low>\S+) (?P<unit>\S+) and ≤ (?P<high>\S+) (?P=unit)")
 
 
@@ -372,7 +379,7 @@ def _summary_row(
             where = f" at {format_frequency(float(c['freq_hz']))}" if "freq_hz" in c else ""
             if "m" in c and "n" in c:
                 text += f"; worst m×n {int(float(c['m']))}×{int(float(c['n']))}{where}"
-    applying = list(dict.fromkeys(limit_text(j.limit) for j in judgements))
+    applying = limit_texts(judgements)
     if not applying:
         applying = [limit_text(li) for li in limits if li.name == name and not li.conditions]
     counts = flag_tally(members)
@@ -854,12 +861,7 @@ def figure_frames(run: RunFigures, budgets: FigureBudgets | None = None,
 def _condition_kinds(run: RunFigures) -> dict[str, bool]:
     """Every condition key of the run's figures in order of first appearance, and whether
     its column is text (``study``, or any key with a text value)."""
-    from sweeprig.analysis.figure_table import distinct_conditions
-
-    mappings = distinct_conditions(run.figures)[0]
-    text = {k for c in mappings for k, v in c.items() if isinstance(v, str)}
-    return {k: k == "study" or k in text
-            for keys in dict.fromkeys(map(tuple, mappings)) for k in keys}
+    return run.figure_conditions.kinds
 
 
 def _points_texts(points: list[tuple[int, ...]]) -> np.ndarray:
@@ -879,12 +881,15 @@ def _figure_rows(run: RunFigures, budgets: FigureBudgets, first: int, stop: int,
                  kinds: Mapping[str, bool], verdicts: Mapping[int, str]) -> pd.DataFrame:
     """Rows ``first`` to ``stop`` of the figure table (see :func:`figures_frame`), with a
     column for every key of ``kinds``; ``verdicts``: :func:`figure_verdicts` of ``run``."""
-    from sweeprig.analysis.figure_table import figure_columns
+    from sweeprig.analysis.figure_table import base_columns
     from sweeprig.analysis.figures import flags_from_mask
 
     figures = run.figures[first:stop]
-    # the one builder of a figure table's columns (values, conditions), here made into text
-    _, table = figure_columns(figures)
+    # the one builder of a figure table's columns, here made into text; the conditions
+    # from the run's columns (read once per distinct mapping, not once per slice)
+    table = base_columns(figures)
+    conditions = run.figure_conditions
+    which = conditions.which[first:stop]
     masks = table["flags"].tolist()
     flag_texts = {mask: " ".join(flags_from_mask(mask)) for mask in set(masks)}
     columns: dict[str, object] = {
@@ -903,18 +908,12 @@ def _figure_rows(run: RunFigures, budgets: FigureBudgets, first: int, stop: int,
         **budget_columns(budgets, first, stop),
     }
     for key, text in kinds.items():
-        column = table.get(key)
-        if column is None:
+        values = conditions.arrays.get(key)
+        if values is None:  # (a key of ``kinds`` the run does not hold)
             columns[key] = np.full(len(figures), "" if text else np.nan,
                                    dtype=object if text else float)
-        elif not text:
-            columns[key] = column.astype(float)
-        elif column.dtype == object:
-            columns[key] = column
         else:
-            # text in the run, numbers only in this slice: as the values themselves read
-            columns[key] = np.array(["" if v is None else str(v) for v in
-                                     (f.conditions.get(key) for f in figures)], dtype=object)
+            columns[key] = values[which]
     return pd.DataFrame(columns)
 
 

@@ -8,11 +8,16 @@ downconversion |f_RF − f_LO| (RF 2.400 GHz, LO 2.330 GHz: IF 70 MHz, sum 4.730
 
 from __future__ import annotations
 
+import dataclasses
+from types import MappingProxyType
+
 import numpy as np
 import pandas as pd
 import pytest
 
 from sweeprig.analysis.direction import (
+    name_in_trade_words,
+    output_frequency_conditions,
     trade_named,
     upconverter_figures,
     with_output_frequency,
@@ -47,6 +52,25 @@ def test_output_frequency_from_the_wanted_orders():
         pytest.approx(70e6)
     bare = make_figures("supply_current", "A", [0.05])
     assert "output_freq_hz" not in with_output_frequency(bare, (1, 1))[0].conditions
+
+
+def test_the_in_place_and_per_figure_passes_are_the_copying_ones():
+    """The reduction's passes (names replaced in its own list; each figure's output
+    frequency given as its new conditions) give the figures the copying passes give, the
+    figures of one point sharing one extended mapping."""
+    point = MappingProxyType({"lo_freq_hz": 2.330e9, "rf_freq_hz": 2.400e9, "study": "iso"})
+    figures = make_figures("lo_if_isolation", "dB", [30.0, 31.0], conditions=[point] * 2) + \
+        make_figures("conversion_gain", "dB", [10.0]) + \
+        make_figures("rf_if_isolation", "dB", [45.0], conditions=[point])
+    for conversion, orders in (("down", (1, -1)), ("up", (1, 1)), ("up", None)):
+        expected = with_output_frequency(trade_named(figures, conversion), orders)
+        owned = [f if c is None else dataclasses.replace(f, conditions=c) for f, c in
+                 zip(figures, output_frequency_conditions(figures, orders), strict=True)]
+        name_in_trade_words(owned, conversion)
+        assert owned == expected
+        assert [dict(f.conditions) for f in owned] == [dict(f.conditions) for f in expected]
+    assert owned[0].conditions is owned[1].conditions is owned[3].conditions
+    assert output_frequency_conditions(figures, None)[2] is None
 
 
 def _up_captures(sideband_dbm: float, lo_dbm: float, lo_floor_dbm: float = -150.0

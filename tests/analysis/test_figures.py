@@ -137,6 +137,26 @@ def test_with_conditions_is_dataclasses_replace():
         made.value = 1.0  # type: ignore[misc]
 
 
+def test_with_uncertainty_is_dataclasses_replace():
+    """The copy the budget pass uses gives, slot for slot, what dataclasses.replace gives
+    (conditions kept when None)."""
+    import dataclasses
+
+    from sweeprig.analysis.figures import with_uncertainty
+
+    figure = Figure("iip3", 12.5, "dBm", ">", {"temperature_c": 25.0}, ("slope_off",), (3, 4))
+    budget = object()
+    for conditions in (None, {"temperature_c": 85.0}):
+        made = with_uncertainty(figure, 0.4, budget, conditions)  # type: ignore[arg-type]
+        expected = dataclasses.replace(figure, uncertainty_db=0.4, budget=budget,
+                                       conditions=conditions or figure.conditions)
+        assert type(made) is Figure and made == expected and made is not figure
+        assert all(getattr(made, s) == getattr(expected, s) for s in Figure.__slots__)
+        assert made.conditions is (conditions or figure.conditions)
+    with pytest.raises(dataclasses.FrozenInstanceError):
+        made.value = 1.0  # type: ignore[misc]
+
+
 def test_built_figures_are_plain_frozen_figures():
     """make_figures and with_changes fill the slots without the frozen __init__: what they
     give is a Figure like any other (same type, equal, hashable, still frozen)."""

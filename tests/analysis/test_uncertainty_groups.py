@@ -178,6 +178,30 @@ def test_grouped_budgets_are_the_per_figure_budgets_on_a_synthetic_run():
     assert assert_same_budgets(figures, captures) >= 600
 
 
+def test_budgets_and_new_conditions_set_in_one_replacement():
+    """The reduction gives each figure its budget and its output frequency in one
+    replacement: the figures, budgets and uncertainties of the two passes one after the
+    other (the budgets worked out on the figures as given; a worse-of-two-sides headline
+    still takes its side's budget)."""
+    from sweeprig.analysis.budget_groups import attach_uncertainty_in_place
+    from sweeprig.analysis.direction import output_frequency_conditions, with_output_frequency
+
+    figures, captures = _synthetic(800, seed=3)
+    expected = with_output_frequency(attach_uncertainty(figures, captures), (1, -1))
+    owned = list(figures)
+    attach_uncertainty_in_place(owned, captures,
+                                conditions=output_frequency_conditions(figures, (1, -1)))
+    assert owned == expected
+    assert all(dict(a.conditions) == dict(b.conditions)
+               and (a.budget is None) == (b.budget is None)
+               and (a.budget is None or budget_lines(a.budget) == budget_lines(b.budget))
+               and (a.uncertainty_db == b.uncertainty_db
+                    or (math.isnan(a.uncertainty_db) and math.isnan(b.uncertainty_db)))
+               for a, b in zip(owned, expected, strict=True))
+    assert sum(f.budget is not None for f in owned) >= 300
+    assert any(f.name in ("iip3", "oip3") and f.budget is not None for f in owned)
+
+
 def _captures(rows: list[tuple]) -> pd.DataFrame:
     return pd.DataFrame(rows, columns=["point", "reading", "level_dbm", "noise_floor_dbm",
                                        "rf_power_dbm", "averages", "m", "n"])

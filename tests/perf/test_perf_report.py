@@ -20,6 +20,32 @@ figures) 75.1 s wall (reduce 26.3 s, files 48.8 s), 1,290 MB peak, 502 MB of fil
 tables 211 MB) before; 61.6 s (reduce 22.3 s, files 39.3 s), 1,071 MB, 333 MB (budget
 tables 3.5 MB, figures.csv 136 -> 165 MB) after. 10k points: 13.5 s, 352 MB, 50 MB before;
 11.9 s, 337 MB, 33 MB after.
+
+Each run also prints its stages (``report_stages.py``: processor seconds per stage and the
+resident memory after it; nested stages, so they do not add up). Where a 100k-point report
+went before the figures' passes were fused (main after format 4; stage timer, processor
+seconds because the shared machine's load was 4 to 8 on its 2 cores, so wall time was 1.5
+to 2.5 times these): reduction 20.3 s, of which reading the store 5.4 (readings 4.6),
+capture table 2.3, analysis 3.9, unpowered flags 0.6, budgets 5.2 (the grouped budgets
+4.5; 21k fitted figures one at a time, 450k single-point figures by numpy, then a new
+Figure each), names and output frequency 1.6 (a second new Figure each); files 23.4 s, of
+which tables 14.1 (figure table columns 4.5, CSV text of captures and figures 7.6, Parquet
+about 2), summary 1.7, JSON 1.4, plots 4.1 (nearly all fixed cost: the 10k report's take
+2.1 s), HTML 1.5 (datasheet 1.1), budget tables 0.5. 699,660 Figure objects (10k: 71,760),
+about 470k budgets. Resident memory: imports and the points table 198 MB, readings table
++180, capture table +155, figures +205 (a Figure, its value and point tuple each: about
+300 B a figure), budgets +125, the output-frequency pass +105 (every figure held twice) =
+1,070 MB peak. After (budgets and output frequency set in one replacement in the
+reduction's own list, the readings table freed after the noise figures, the figure table's
+conditions taken by index from columns made once per distinct mapping, each limit's text
+made once, a float column that is mostly an earlier one's values written from its texts):
+the same report files byte for byte; peak 932 MB (now at the grouped budgets: figures,
+budgets and the extended conditions held together). Main and this, interleaved twice on
+the same store (load average 2.8 to 3.7 on 2 cores): 46.7 and 47.3 s of processor time
+(48.0 and 60.1 s wall), 1,050 MB, before; 41.5 and 44.8 s (47.1 and 57.3 s wall),
+933 MB, after. The rest of the gap is
+the object model itself (one Figure and one budget per figure, made and walked by every
+pass and writer): a columnar figure store is the next step.
 """
 
 from __future__ import annotations
@@ -31,6 +57,7 @@ import time
 from pathlib import Path
 
 import pytest
+from report_stages import stages_text
 from synthetic_store import run_child, timed_store, verdict
 
 SCRIPT = Path(__file__).resolve()
@@ -44,8 +71,11 @@ TARGETS = {100_000: (8.0, 500.0), 1_000_000: (60.0, 1536.0)}
 def make_report(path: str, run_id: str, folder: str) -> dict[str, float]:
     import resource
 
+    from report_stages import staged
+
     start = time.perf_counter()
     cpu_start = time.process_time()
+    stages = staged()  # (imports the stages' modules: inside the timed span, as before)
     from sweeprig.analysis.reduce import reduce_run
     from sweeprig.report import write_report
     from sweeprig.store.sqlite import SqliteRunStore
@@ -67,6 +97,8 @@ def make_report(path: str, run_id: str, folder: str) -> dict[str, float]:
         "files_mb": sum(p.stat().st_size for p in files.all) / 1e6,
         "json_mb": files.figures_json.stat().st_size / 1e6,
         **{f"mb {p.name}": p.stat().st_size / 1e6 for p in files.all},
+        **{f"stage {name} {key}": value for name, entry in stages.items()
+           for key, value in entry.items()},
     }
 
 
@@ -98,6 +130,13 @@ def test_perf_report_of_a_large_run(points: int, tmp_path: Path) -> None:
           f"load average {load:.1f} on {os.cpu_count()} cores")
     print("files: " + ", ".join(f"{key[3:]} {value:.1f} MB" for key, value in result.items()
                                 if key.startswith("mb ")))
+    record: dict[str, dict[str, float]] = {}
+    for key, value in result.items():
+        if key.startswith("stage "):
+            _, name, what = key.split(" ")
+            record.setdefault(name, {})[what] = value
+    print("stages (nested: write_tables holds figure_frames and write_frame_rows):\n"
+          + stages_text(record))
 
 
 if __name__ == "__main__":

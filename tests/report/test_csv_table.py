@@ -67,3 +67,23 @@ def test_quoting_is_the_csv_writers(tmp_path: Path) -> None:
         frame.to_csv(tmp_path / "pandas.csv", index=False)
         assert ours.read_text("utf-8") == (tmp_path / "pandas.csv").read_text("utf-8")
 
+
+
+def test_a_float_column_like_an_earlier_one_is_written_as_its_own(tmp_path: Path) -> None:
+    """A float column whose values are mostly an earlier column's (taken from its texts,
+    the differing cells formatted) is still written cell for cell as pandas writes it:
+    -0.0 beside 0.0, NaN beside a number, a number beside NaN."""
+    rng = np.random.default_rng(4)
+    noise = rng.normal(60.0, 20.0, 300)
+    scatter = noise.copy()
+    scatter[::7] = rng.normal(60.0, 20.0, scatter[::7].size)
+    noise[5], scatter[5] = 0.0, -0.0
+    noise[6], scatter[6] = math.nan, 12.5
+    noise[8], scatter[8] = 3.25, math.nan
+    noise[9] = scatter[9] = math.nan
+    noise[10] = scatter[10] = math.inf
+    frame = pd.DataFrame({"noise_snr_db": noise, "text": ["a"] * 300, "scatter_snr_db": scatter,
+                          "again": noise})
+    ours = write_frame_csv(frame, tmp_path / "ours.csv", chunk_rows=128).read_text("utf-8")
+    frame.to_csv(tmp_path / "pandas.csv", index=False)
+    assert ours == (tmp_path / "pandas.csv").read_text("utf-8")

@@ -390,3 +390,90 @@ def test_a_format_3_figures_file_is_still_read(tmp_path):
     assert current["budget"] is None and current["uncertainty_db"] is None
     assert [t["name"] for t in read["budget_terms"]] == ["input_level", "noise"]
     assert read["budget_terms"][0]["contribution_db"] == 0.15
+
+
+def _own_condition_cell(figure: Figure, key: str, text: bool) -> object:
+    """A condition cell of the figure table as the figure's own mapping gives it (the
+    per-figure reading the run's condition columns replace)."""
+    value = figure.conditions.get(key)
+    if text:
+        return "" if value is None else str(value)
+    return math.nan if value is None else float(value)
+
+
+def _same_cell(a: object, b: object) -> bool:
+    return a == b or (isinstance(a, float) and isinstance(b, float)
+                      and math.isnan(a) and math.isnan(b))
+
+
+def test_the_figure_tables_conditions_are_each_figures_own(report_run):
+    """figures.csv takes its condition columns from the run's columns (each distinct
+    mapping read once, then spread by index): cell for cell, each figure's own conditions
+    read figure by figure, and its keys those of the figures in order of first sight."""
+    frame = figures_frame(report_run)
+    kinds = report_run.figure_conditions.kinds
+    seen: dict[str, None] = {}
+    for figure in report_run.figures:
+        seen.update(dict.fromkeys(figure.conditions))
+    assert list(kinds) == list(seen)
+    assert list(frame.columns[-len(kinds):]) == list(kinds)
+    for key, text in kinds.items():
+        column = frame[key].tolist()
+        assert all(_same_cell(cell, _own_condition_cell(f, key, text))
+                   for cell, f in zip(column, report_run.figures, strict=True)), key
+
+
+def test_a_text_condition_stays_text_in_a_slice_of_numbers(report_run, monkeypatch):
+    """A key that holds words somewhere in the run is text in every slice of the figure
+    table, a slice whose figures hold only numbers for it included (as each value reads)."""
+    import dataclasses
+
+    from sweeprig.report import tables
+
+    conditions = [{"study": "nf", "sideband": 1.0}, {"study": "nf", "sideband": "ssb"},
+                  {"study": "band", "rf_freq_hz": 2.4e9}]
+    odd = dataclasses.replace(
+        report_run, figures=tuple(Figure("noise_figure", 5.0 + i, "dB", conditions=c)
+                                  for i, c in enumerate(conditions)),
+        assessment=dataclasses.replace(report_run.assessment, judgements=(), untested=()))
+    monkeypatch.setattr(tables, "FIGURE_SLICE_ROWS", 1)
+    slices = list(tables.figure_frames(odd))
+    assert [s["sideband"].tolist() for s in slices] == [["1.0"], ["ssb"], [""]]
+    assert [s["study"].tolist() for s in slices] == [["nf"], ["nf"], ["band"]]
+    assert slices[0]["rf_freq_hz"].isna().all() and slices[2]["rf_freq_hz"].tolist() == [2.4e9]
+
+
+def test_the_reductions_passes_are_the_copying_passes_on_a_real_run(report_run):
+    """On the report run's own captures and studies, the reduction's passes over its own
+    list (budgets and output frequency in one replacement, names in place) give what the
+    copying passes give one after the other: figure for figure, budget line for line,
+    for a downconverter's and an upconverter's orders and names."""
+    from sweeprig.analysis import reduce as rd
+    from sweeprig.analysis.budget_groups import attach_uncertainty, attach_uncertainty_in_place
+    from sweeprig.analysis.budget_parts import budget_lines
+    from sweeprig.analysis.direction import (
+        name_in_trade_words,
+        output_frequency_conditions,
+        trade_named,
+        with_output_frequency,
+    )
+
+    analysed = rd._figures(report_run.captures, report_run.studies, [])
+    assert len(analysed) >= 200
+    for conversion, orders in (("down", (1, -1)), ("up", (1, 1))):
+        old = with_output_frequency(trade_named(attach_uncertainty(
+            analysed, report_run.captures), conversion), orders)
+        new = list(analysed)
+        attach_uncertainty_in_place(new, report_run.captures,
+                                    conditions=output_frequency_conditions(new, orders))
+        name_in_trade_words(new, conversion)
+        assert new == old
+        # the worse-of-two-sides headlines took their side's budget in both
+        assert any(f.name == "iip3" and f.budget is not None for f in new)
+        assert conversion == "down" or any(f.name == "lo_rf_isolation" for f in new)
+        for a, b in zip(new, old, strict=True):
+            assert dict(a.conditions) == dict(b.conditions), a
+            assert (a.budget is None) == (b.budget is None), a
+            if a.budget is not None:
+                assert a.uncertainty_db == b.uncertainty_db, a
+                assert budget_lines(a.budget) == budget_lines(b.budget), a
