@@ -19,7 +19,8 @@ from __future__ import annotations
 import itertools
 import math
 from collections.abc import Sequence
-from typing import TYPE_CHECKING
+from dataclasses import dataclass
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 from numpy.typing import NDArray
@@ -171,7 +172,7 @@ def _evaluate_sorted(
     has_core = np.zeros(n_pts, dtype=bool)
     has_core[core.seg] = True
     imbalance = part.load_mismatch + lo_prep.d0
-    leaks = _output_leaks(part, lo, sets, freqs, powers, phases, n_axes, names)
+    leaks, inputs, lo_lines = _leak_lines(part, lo, sets, freqs, powers, phases, n_axes, names)
     if leaks is not None:
         leaks = leaks.take(has_core[leaks.seg])
     if part.cm_second_order and imbalance:
@@ -181,7 +182,6 @@ def _evaluate_sorted(
                                 later=leaks)
     if leaks is not None:
         core = add_entry_segments(core, leaks, floor_w=floor_w)
-    inputs, lo_lines = _port_leaks(part, lo, freqs, powers, phases, sets, n_axes, names)
     output = _levels(part, core, n_pts, names)
     input_levels = _levels(part, merge_segments(inputs), n_pts, names) if inputs else None
     lo_levels = _levels(part, merge_segments(lo_lines), n_pts, names) if lo_lines else None
@@ -375,128 +375,192 @@ def _common_mode(
     return RaggedLines(seg, freq, amp, names.add(orders) + np.arange(orders.size))
 
 
-def _tone_rows(
-    freq: NDArray[np.float64], power: NDArray[np.float64], phase: NDArray[np.float64],
-    harmonics_dbc: tuple[float, ...], axis: int, n_axes: int, loss_db: float,
-    path: LeakPhase | None = None, slope: tuple[float, float] = (0.0, 1.0),
-) -> tuple[NDArray[np.float64], NDArray[np.complex128], NDArray[np.object_]]:
-    """The part's ``_tone_entries`` for one tone position at every point: frequencies and
-    sqrt(W) amplitudes, shape (P, 1 + harmonics), and the orders of the columns."""
+@dataclass(frozen=True)
+class _LeakLayout:
+    """Where the linear paths' lines of one kind of point sit (see :func:`_leak_layout`).
+
+    ``specs``: the tone paths (loss dB, path phase, slope), each over every tone and its
+    harmonics; the columns of their lines, path after path, tone after tone, harmonic after
+    harmonic: ``tone`` (tone index), ``root`` (index of the (path, tone) fundamental level),
+    ``mult`` (the harmonic's multiple, float), ``rel`` (the harmonic's level relative to
+    the fundamental through the path, as the one-point path computes it). ``turn``: the
+    columns whose path turns the phase, with that path's offset and delay per column.
+    ``ports``: per port (output, input, LO), its blocks in the one-point path's order:
+    ``("tones", first, stop)`` (columns of the tone paths) or ``("lo", path name)``."""
+
+    specs: tuple[tuple[float, LeakPhase | None, tuple[float, float]], ...]
+    tone: NDArray[np.intp]
+    root: NDArray[np.intp]
+    mult: NDArray[np.float64]
+    rel: NDArray[np.float64]
+    orders: NDArray[np.object_]
+    turn: NDArray[np.intp]
+    turn_phase: NDArray[np.float64]
+    turn_delay: NDArray[np.float64]
+    ports: tuple[tuple[tuple[Any, ...], ...], ...]
+
+
+def _leak_layout(part: MixerPart, harmonics: tuple[tuple[float, ...], ...], has_lo: bool,
+                 n_axes: int) -> _LeakLayout:
+    """The columns of the linear paths' lines for points whose tones carry ``harmonics``
+    (dBc per tone), cached per part: the paths and their order are the one-point path's
+    (``MixerPart._evaluate``)."""
     from sweeprig.sim.mixer.part import _unit_orders
 
-    mult = np.arange(1, 2 + len(harmonics_dbc), dtype=float)
-    loss = np.full(freq.shape, loss_db)
-    extra = np.zeros(mult.size)
-    if slope[0]:
-        loss = loss_db + slope[0] * np.log2(freq / slope[1])
-        extra[1:] = [slope[0] * math.log2(h) for h in range(2, 2 + len(harmonics_dbc))]
-    root_w = 10.0 ** ((power - loss - 30.0) / 20.0)
-    rel = np.ones(mult.size)
-    rel[1:] = [10.0 ** ((dbc - e) / 20.0) for dbc, e in zip(harmonics_dbc, extra[1:],
-                                                           strict=True)]
-    mag = root_w[:, None] * rel[None, :]
-    mag[:, 0] = root_w
-    ang = phase[:, None] * mult[None, :]
+    key = ("leak-layout", harmonics, has_lo, n_axes)
+    layout = part._cache.get(key)
+    if layout is not None:
+        return layout
+    phs = part.leakage_phases
+    specs: list[tuple[float, LeakPhase | None, tuple[float, float]]] = []
+    tone, root, mult, rel, orders = [], [], [], [], []
+    turn, turn_phase, turn_delay = [], [], []
+
+    def tone_block(loss_db: float, path: LeakPhase | None,
+                   slope: tuple[float, float] = (0.0, 1.0)) -> tuple[str, int, int]:
+        first = len(tone)
+        s = len(specs)
+        specs.append((loss_db, path, slope))
+        turns = path is not None and (path.phase_rad or path.delay_s)
+        for k, dbcs in enumerate(harmonics):
+            extra = [slope[0] * math.log2(h) for h in range(2, 2 + len(dbcs))] if slope[0] \
+                else [0.0] * len(dbcs)
+            levels = [1.0] + [10.0 ** ((dbc - e) / 20.0) for dbc, e in zip(dbcs, extra,
+                                                                             strict=True)]
+            for h, level in enumerate(levels, start=1):
+                if turns:
+                    turn.append(len(tone))
+                    turn_phase.append(path.phase_rad)  # type: ignore[union-attr]
+                    turn_delay.append(path.delay_s)  # type: ignore[union-attr]
+                tone.append(k)
+                root.append(s * len(harmonics) + k)
+                mult.append(float(h))
+                rel.append(level)
+                orders.append(_unit_orders(n_axes, 1 + k, h))
+        return ("tones", first, len(tone))
+
+    output: list[tuple[Any, ...]] = []
+    inputs: list[tuple[Any, ...]] = []
+    lo_port: list[tuple[Any, ...]] = []
+    if part.isolation_rf_if_db is not None:
+        output.append(tone_block(part.isolation_rf_if_db, phs.rf_to_if,
+                                 part._iso_slope("rf_if")))
+    if has_lo and part.isolation_lo_to_output_db is not None:
+        output.append(("lo", "output"))
+    if has_lo and part.isolation_lo_to_input_db is not None:
+        inputs.append(("lo", "input"))
+    if part.input_port.return_loss_db is not None:
+        inputs.append(tone_block(part.input_port.return_loss_db, phs.input_reflection))
+    if has_lo and part.lo_port.return_loss_db is not None:
+        lo_port.append(("lo", "reflection"))
+    if part.isolation_rf_lo_db is not None:
+        lo_port.append(tone_block(part.isolation_rf_lo_db, phs.rf_to_lo,
+                                  part._iso_slope("rf_lo")))
+    object_orders = np.empty(len(orders), dtype=object)
+    object_orders[:] = orders
+    layout = _LeakLayout(
+        tuple(specs), np.array(tone, dtype=np.intp), np.array(root, dtype=np.intp),
+        np.array(mult, dtype=float), np.array(rel, dtype=float), object_orders,
+        np.array(turn, dtype=np.intp), np.array(turn_phase, dtype=float),
+        np.array(turn_delay, dtype=float), (tuple(output), tuple(inputs), tuple(lo_port)))
+    part._remember(key, layout)
+    return layout
+
+
+def _tone_path_lines(
+    layout: _LeakLayout, freqs: NDArray[np.float64], powers: NDArray[np.float64],
+    phases: NDArray[np.float64],
+) -> tuple[NDArray[np.float64], NDArray[np.complex128]]:
+    """The part's ``_tone_entries`` of every tone path, tone and harmonic at every point
+    (the columns of ``layout``): frequencies and sqrt(W) amplitudes, shape (P, columns).
+    Element by element the one-point path's arithmetic (the fundamental's level through
+    each path, the harmonics' relative levels, phases h·φ, the path's turn)."""
+    n_tones = freqs.shape[1]
+    loss = np.empty((freqs.shape[0], len(layout.specs) * n_tones))
+    for s, (loss_db, _, slope) in enumerate(layout.specs):
+        block = loss[:, s * n_tones : (s + 1) * n_tones]
+        if slope[0]:
+            block[...] = loss_db + slope[0] * np.log2(freqs / slope[1])
+        else:
+            block[...] = loss_db
+    root_w = 10.0 ** ((np.tile(powers, len(layout.specs)) - loss - 30.0) / 20.0)
+    mag = root_w[:, layout.root]
+    mag *= layout.rel
+    ang = phases[:, layout.tone]
+    ang *= layout.mult
     amp = mag * np.cos(ang) + 1j * (mag * np.sin(ang))
-    f = freq[:, None] * mult[None, :]
-    f[:, 0] = freq
-    if path is not None and (path.phase_rad or path.delay_s):
-        amp *= np.exp(1j * (path.phase_rad - 2.0 * math.pi * f * path.delay_s))
-    orders = np.empty(mult.size, dtype=object)
-    orders[:] = [_unit_orders(n_axes, axis, h) for h in range(1, mult.size + 1)]
-    return f, amp, orders
+    f = freqs[:, layout.tone]
+    f *= layout.mult
+    if layout.turn.size:
+        amp[:, layout.turn] *= np.exp(1j * (layout.turn_phase - 2.0 * math.pi
+                                            * f[:, layout.turn] * layout.turn_delay))
+    return f, amp
 
 
-def _rows_to_ragged(
-    rows: list[tuple[NDArray[np.float64], NDArray[np.complex128], NDArray[np.object_]]],
-    n_pts: int, names: _Names,
-) -> RaggedLines:
-    """Per-point blocks of lines (each (P, n) frequencies and amplitudes, n orders) → one
-    ragged set, each point's lines in the blocks' order."""
-    freq = np.concatenate([r[0] for r in rows], axis=1)
-    amp = np.concatenate([r[1] for r in rows], axis=1)
-    orders = np.concatenate([r[2] for r in rows])
-    width = orders.size
-    codes = names.add(orders) + np.arange(width)
-    return RaggedLines(np.repeat(np.arange(n_pts), width), freq.ravel(), amp.ravel(),
-                       np.tile(codes, n_pts))
+def _lo_path_entries(part: MixerPart, lo: ToneInput, n_axes: int, which: str) -> list[Any]:
+    """The LO's own lines through one of its linear paths (``which``: ``"output"``,
+    ``"input"`` or ``"reflection"``), as the one-point path makes them."""
+    from sweeprig.sim.mixer.part import _tone_entries
+
+    phs = part.leakage_phases
+    down = part.conversion == "down"
+    if which == "output":
+        return _tone_entries(lo, 0, n_axes, part.isolation_lo_to_output_db,  # type: ignore[arg-type]
+                             phs.lo_to_if if down else phs.lo_to_rf,
+                             part._iso_slope("lo_if" if down else "lo_rf"))
+    if which == "input":
+        return _tone_entries(lo, 0, n_axes, part.isolation_lo_to_input_db,  # type: ignore[arg-type]
+                             phs.lo_to_rf if down else phs.lo_to_if,
+                             part._iso_slope("lo_rf" if down else "lo_if"))
+    return _tone_entries(lo, 0, n_axes, part.lo_port.return_loss_db,  # type: ignore[arg-type]
+                         phs.lo_reflection)
 
 
-def _fixed_rows(
-    entries: list[tuple[float, complex, tuple[int, ...]]], n_pts: int,
-) -> tuple[NDArray[np.float64], NDArray[np.complex128], NDArray[np.object_]]:
-    """Lines common to every point (the LO's own paths) as a block of rows."""
-    orders = np.empty(len(entries), dtype=object)
-    orders[:] = [e[2] for e in entries]
-    freq = np.array([e[0] for e in entries], dtype=float)
-    amp = np.array([e[1] for e in entries], dtype=complex)
-    return np.tile(freq, (n_pts, 1)), np.tile(amp, (n_pts, 1)), orders
-
-
-def _tone_blocks(
-    part: MixerPart, sets: Sequence[tuple[ToneInput, ...]], freqs: NDArray[np.float64],
-    powers: NDArray[np.float64], phases: NDArray[np.float64], n_axes: int, loss_db: float,
-    path: LeakPhase | None, slope: tuple[float, float] = (0.0, 1.0),
-) -> list[tuple[NDArray[np.float64], NDArray[np.complex128], NDArray[np.object_]]]:
-    return [_tone_rows(freqs[:, k], powers[:, k], phases[:, k], sets[0][k].harmonics_dbc,
-                       1 + k, n_axes, loss_db, path, slope)
-            for k in range(freqs.shape[1])]
-
-
-def _output_leaks(
+def _leak_lines(
     part: MixerPart, lo: ToneInput | None, sets: Sequence[tuple[ToneInput, ...]],
     freqs: NDArray[np.float64], powers: NDArray[np.float64], phases: NDArray[np.float64],
     n_axes: int, names: _Names,
-) -> RaggedLines | None:
-    """The linear paths into the output port (input→output, LO→output), in the order the
-    one-point path adds them."""
-    from sweeprig.sim.mixer.part import _tone_entries
-
-    phs = part.leakage_phases
-    rows = []
-    iso = part.isolation_rf_if_db
-    if iso is not None:
-        rows += _tone_blocks(part, sets, freqs, powers, phases, n_axes, iso, phs.rf_to_if,
-                             part._iso_slope("rf_if"))
-    iso = part.isolation_lo_to_output_db
-    if lo is not None and iso is not None:
-        path = phs.lo_to_if if part.conversion == "down" else phs.lo_to_rf
-        rows.append(_fixed_rows(_tone_entries(lo, 0, n_axes, iso, path, part._iso_slope(
-            "lo_if" if part.conversion == "down" else "lo_rf")), len(sets)))
-    return _rows_to_ragged(rows, len(sets), names) if rows else None
-
-
-def _port_leaks(
-    part: MixerPart, lo: ToneInput | None, freqs: NDArray[np.float64],
-    powers: NDArray[np.float64], phases: NDArray[np.float64],
-    sets: Sequence[tuple[ToneInput, ...]], n_axes: int, names: _Names,
-) -> tuple[RaggedLines | None, RaggedLines | None]:
-    """The lines leaving the input port (LO→input, the input reflection) and the LO port
-    (its reflection, input→LO) of every point, unmerged."""
-    from sweeprig.sim.mixer.part import _tone_entries
-
-    phs = part.leakage_phases
+) -> tuple[RaggedLines | None, RaggedLines | None, RaggedLines | None]:
+    """The linear paths' lines of every point, unmerged, at the output port (input→output,
+    LO→output), the input port (LO→input, the input reflection) and the LO port (its
+    reflection, input→LO), each point's in the order the one-point path adds them; None
+    for a port with no path."""
+    layout = _leak_layout(part, sweep_signature(sets[0]), lo is not None, n_axes)
     n_pts = len(sets)
-    inp = part.input_port
-    in_rows = []
-    iso = part.isolation_lo_to_input_db
-    if lo is not None and iso is not None:
-        path = phs.lo_to_rf if part.conversion == "down" else phs.lo_to_if
-        in_rows.append(_fixed_rows(_tone_entries(lo, 0, n_axes, iso, path, part._iso_slope(
-            "lo_rf" if part.conversion == "down" else "lo_if")), n_pts))
-    if inp.return_loss_db is not None:
-        in_rows += _tone_blocks(part, sets, freqs, powers, phases, n_axes,
-                                inp.return_loss_db, phs.input_reflection)
-    lo_rows = []
-    if lo is not None and part.lo_port.return_loss_db is not None:
-        lo_rows.append(_fixed_rows(_tone_entries(lo, 0, n_axes, part.lo_port.return_loss_db,
-                                                 phs.lo_reflection), n_pts))
-    iso = part.isolation_rf_lo_db
-    if iso is not None:
-        lo_rows += _tone_blocks(part, sets, freqs, powers, phases, n_axes, iso, phs.rf_to_lo,
-                                part._iso_slope("rf_lo"))
-    return (_rows_to_ragged(in_rows, n_pts, names) if in_rows else None,
-            _rows_to_ragged(lo_rows, n_pts, names) if lo_rows else None)
+    f_tones, amp_tones = (None, None) if not layout.specs else _tone_path_lines(
+        layout, freqs, powers, phases)
+    out: list[RaggedLines | None] = []
+    for blocks in layout.ports:
+        if not blocks:
+            out.append(None)
+            continue
+        pieces = []
+        for block in blocks:
+            if block[0] == "tones":
+                pieces.append((block[1], block[2], None))
+            else:
+                pieces.append((0, 0, _lo_path_entries(part, lo, n_axes, block[1])))  # type: ignore[arg-type]
+        width = sum(b - a if e is None else len(e) for a, b, e in pieces)
+        freq = np.empty((n_pts, width))
+        amp = np.empty((n_pts, width), dtype=complex)
+        orders = np.empty(width, dtype=object)
+        at = 0
+        for a, b, entries in pieces:
+            if entries is None:
+                freq[:, at : at + b - a] = f_tones[:, a:b]  # type: ignore[index]
+                amp[:, at : at + b - a] = amp_tones[:, a:b]  # type: ignore[index]
+                orders[at : at + b - a] = layout.orders[a:b]
+                at += b - a
+            else:
+                n = len(entries)
+                freq[:, at : at + n] = [e[0] for e in entries]
+                amp[:, at : at + n] = [e[1] for e in entries]
+                orders[at : at + n] = [e[2] for e in entries]
+                at += n
+        codes = names.add(orders) + np.arange(width)
+        out.append(RaggedLines(np.repeat(np.arange(n_pts), width), freq.ravel(), amp.ravel(),
+                               np.tile(codes, n_pts)))
+    return out[0], out[1], out[2]
 
 
 def _levels(part: MixerPart, lines: RaggedLines, n_pts: int,
