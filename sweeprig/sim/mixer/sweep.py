@@ -91,7 +91,11 @@ def evaluate_group(
     order = [i for members in by_row.values() for i in members]
     if order != list(range(len(sets))):
         sets = [sets[i] for i in order]
-    responses = _evaluate_sorted(part, op, lo, state, sets)
+    rows, at = [], 0
+    for row, members in by_row.items():
+        rows.append((row, list(range(at, at + len(members)))))
+        at += len(members)
+    responses = _evaluate_sorted(part, op, lo, state, sets, rows)
     back: list[MixerResponse | None] = [None] * len(sets)
     for i, response in zip(order, responses, strict=True):
         back[i] = response
@@ -137,9 +141,10 @@ def _bucket_rows(amps: NDArray[np.float64]) -> NDArray[np.float64]:
 
 def _evaluate_sorted(
     part: MixerPart, op: OperatingPoint, lo: ToneInput | None, state: _OpState,
-    sets: Sequence[tuple[ToneInput, ...]],
+    sets: Sequence[tuple[ToneInput, ...]], rows: list[tuple[tuple[float, ...], list[int]]],
 ) -> list[MixerResponse | None]:
-    """:func:`evaluate_group` for points with equal tone frequencies side by side."""
+    """:func:`evaluate_group` for points with equal tone frequencies side by side (``rows``:
+    each set of tone frequencies with its points, in their order)."""
     cell = state.cell
     lo_prep = part._lo_prepared(op, lo, state)
     n_pts, n_tones = len(sets), len(sets[0])
@@ -154,13 +159,18 @@ def _evaluate_sorted(
     cuts = np.cumsum([a.shape[1] for a in tone_amps])[:-1].tolist()
     shapes: list[tuple[tuple[int, ...], bool]] = []
     by_shape: dict[tuple[int, ...], list[int]] = {}
-    for i, row in enumerate(buckets):
-        bucket = tuple(tuple(row[a:b]) for a, b in itertools.pairwise([0, *cuts, len(row)]))
-        key = ("grid", op, bucket)
-        shape = part._cache.get(key)
+    spans = list(itertools.pairwise([0, *cuts, len(buckets[0])]))
+    shape_of: dict[tuple[float, ...], tuple[tuple[int, ...], bool]] = {}  # per bucket row
+    for i, row in enumerate(map(tuple, buckets)):
+        shape = shape_of.get(row)
         if shape is None:
-            shape = rf_grid_shape(bucket, cell, part.max_rf_order)
-            part._remember(key, shape)
+            bucket = tuple(row[a:b] for a, b in spans)
+            key = ("grid", op, bucket)
+            shape = part._cache.get(key)
+            if shape is None:
+                shape = rf_grid_shape(bucket, cell, part.max_rf_order)
+                part._remember(key, shape)
+            shape_of[row] = shape
         shapes.append(shape)
         by_shape.setdefault(shape[0], []).append(i)
     for shape, members in by_shape.items():
@@ -168,7 +178,7 @@ def _evaluate_sorted(
                                     shape)
     names = _Names()
     floor_w = 1e-3 * 10.0 ** (part.floor_dbm / 10.0)  # the floor _levels applies
-    core = merge_sorted(_combine(part, lo_prep, lo, state, x, freqs, phases, names))
+    core = merge_sorted(_combine(part, lo_prep, lo, state, x, freqs, phases, rows, names))
     has_core = np.zeros(n_pts, dtype=bool)
     has_core[core.seg] = True
     imbalance = part.load_mismatch + lo_prep.d0
@@ -194,16 +204,20 @@ def _evaluate_sorted(
         "noise_figure_db": lo_prep.noise_figure_db,
         "lo_grid_n": float(lo_prep.factor.grid_n),
     }
+    grid_notes: dict[tuple[tuple[int, ...], bool], dict[str, float]] = {}  # per grid
+    for shape, converged in set(shapes):
+        grid_notes[shape, converged] = {
+            "rf_grid_points": float(math.prod(shape)),
+            "rf_grid_n_max": float(max(shape, default=1)),
+            "grid_converged": float(converged and lo_prep.factor.converged),
+        }
     responses: list[MixerResponse | None] = []
-    for i in range(n_pts):
-        if not has_core[i]:
+    for i, has in enumerate(has_core.tolist()):
+        if not has:
             responses.append(None)
             continue
-        shape, converged = shapes[i]
         notes = dict(common)
-        notes["rf_grid_points"] = float(math.prod(shape))
-        notes["rf_grid_n_max"] = float(max(shape, default=1))
-        notes["grid_converged"] = float(converged and lo_prep.factor.converged)
+        notes.update(grid_notes[shapes[i]])
         responses.append(MixerResponse(
             if_port=output[i],
             rf_port=input_levels[i] if input_levels is not None else empty,
@@ -238,31 +252,70 @@ def _sorted_table(
     return freq, li, pi, zero, band
 
 
+@dataclass(frozen=True)
+class _TableFactors:
+    """The LO factor read along a sorted table (see :func:`_sorted_table`) for one LO
+    factor, tail current and LO phase: ``abs_s``/``abs_d`` (|S_m|, |D_m| of each entry's
+    LO order), ``s``/``d`` (S_m·I_EE, D_m·I_EE turned by the LO phase), ``codes`` (the
+    entry's order tuple in :func:`combo_tuples`' flat table), ``zero_at`` (the entries of
+    RF order zero), ``positive`` (the entries above the merge tolerance in frequency)."""
+
+    factor: LoFactor
+    i_ee_a: float
+    lo_phase_rad: float
+    abs_s: NDArray[np.float64]
+    abs_d: NDArray[np.float64]
+    s: NDArray[np.complex128]
+    d: NDArray[np.complex128]
+    codes: NDArray[np.intp]
+    zero_at: NDArray[np.intp]
+    positive: NDArray[np.bool_]
+
+
+def _table_factors(
+    part: MixerPart, key: tuple[Any, ...], table: tuple[NDArray, ...], fac: LoFactor,
+    s: NDArray[np.complex128], d: NDArray[np.complex128], i_ee: float, lo_phase: float,
+    n_rf_orders: int,
+) -> _TableFactors:
+    """:class:`_TableFactors` of a table, cached beside it while the LO factor, tail current
+    and LO phase stay (a power sweep's points share them)."""
+    pkey = ("factors", key)
+    prep = part._tables.get(pkey)
+    if (prep is not None and prep.factor is fac and prep.i_ee_a == i_ee
+            and prep.lo_phase_rad == lo_phase):
+        return prep
+    freq_u, li_u, pi_u, zero_u, _ = table
+    codes = (fac.orders + part.max_lo_order)[li_u] * n_rf_orders + pi_u
+    prep = _TableFactors(fac, i_ee, lo_phase, fac.abs_s[li_u], fac.abs_d[li_u], s[li_u],
+                         d[li_u], codes, zero_u.nonzero()[0], freq_u > MERGE_TOL_HZ)
+    part._remember_table(pkey, prep)
+    return prep
+
+
 def _entries_within(
-    abs_x: NDArray[np.float64], fac: LoFactor, table: tuple[NDArray, ...], limit: float,
-    near_limit: float,
-) -> tuple[NDArray[np.intp], NDArray[np.intp]]:
-    """The entries of a sorted table (see :func:`_sorted_table`) that the rows of
-    ``abs_x`` (|X_n|, shape (points, R)) make into lines: bound above ``limit``, frequency
-    above the merge tolerance, bound through the band edges at least ``near_limit``; as
-    (row, entry) index arrays."""
-    freq_u, li_u, pi_u, zero_u, band_u = table
-    bound = abs_x[:, pi_u]
-    bound *= fac.abs_s[li_u]
+    abs_x: NDArray[np.float64], fac: LoFactor, table: tuple[NDArray, ...],
+    prep: _TableFactors, limit: float, near_limit: float,
+) -> NDArray[np.intp]:
+    """The entries of a sorted table (see :func:`_sorted_table`) that a point with
+    |X_n| = ``abs_x`` (shape (R,)) makes into lines: bound above ``limit``, frequency
+    above the merge tolerance, bound through the band edges at least ``near_limit``."""
+    _, _, pi_u, _, band_u = table
+    bound = abs_x[pi_u]
+    bound *= prep.abs_s
     if fac.has_d:
-        bound[:, zero_u] += fac.abs_d[li_u[zero_u]]
+        bound[prep.zero_at] += prep.abs_d[prep.zero_at]
     ok = bound > limit
-    ok &= freq_u > MERGE_TOL_HZ
+    ok &= prep.positive
     if band_u is not None:
         bound *= band_u
         ok &= bound >= near_limit
-    return ok.nonzero()
+    return ok.nonzero()[0]
 
 
 def _combine(
     part: MixerPart, lo_prep: _LoPrepared, lo: ToneInput | None, state: _OpState,
     x: NDArray[np.complex128], freqs: NDArray[np.float64], phases: NDArray[np.float64],
-    names: _Names,
+    rows: list[tuple[tuple[float, ...], list[int]]], names: _Names,
 ) -> RaggedLines:
     """:func:`~sweeprig.sim.mixer.multitone.combine` for every point (rows of ``x``), with
     the part's pruning limit, scaled to sqrt(W) at the output port and through its band
@@ -295,12 +348,10 @@ def _combine(
         s, d = s * turn, d * turn
     if phases.any():
         x = x * np.exp(1j * (phases @ orders.T.astype(float)))
-    rows: dict[tuple[float, ...], list[int]] = {}
-    for i, row in enumerate(map(tuple, freqs.tolist())):
-        rows.setdefault(row, []).append(i)
+    table = combo_tuples(part.max_lo_order, freqs.shape[1], part.max_rf_order)
     parts = []
     next_point = 0
-    for row, point_list in rows.items():
+    for row, point_list in rows:
         if point_list != list(range(next_point, next_point + len(point_list))):
             raise ValueError("points with equal tone frequencies must be consecutive")
         next_point += len(point_list)
@@ -311,41 +362,44 @@ def _combine(
             table_u = _sorted_table(fac.orders, lo_freq, rf_f[point_list[0]], n_orders,
                                     out if banded else None)
             part._remember_table(key, table_u)
-        freq_u, li_u, pi_u, zero_u, band_u = table_u
+        freq_u, _, pi_u, _, band_u = table_u
+        prep = _table_factors(part, key, table_u, fac, s, d, i_ee, lo_phase, table.shape[1])
         ax = abs_x[members]
         # the table entries that the strongest of these points could make (each point's
         # bound is at most the bound of the largest |X_n| among them: rounding is monotone)
-        cand = _entries_within(ax.max(axis=0)[None, :], fac, table_u, limit, near_limit)[1]
-        bound = ax[:, pi_u[cand]]
-        bound *= fac.abs_s[li_u[cand]]
+        cand = _entries_within(ax.max(axis=0), fac, table_u, prep, limit, near_limit)
+        pc = pi_u[cand]
+        bound = ax[:, pc]
+        bound *= prep.abs_s[cand]
         if fac.has_d:
-            zero_c = zero_u[cand]
-            bound[:, zero_c] += fac.abs_d[li_u[cand][zero_c]]
+            zero_c = (pc == 0).nonzero()[0]
+            if zero_c.size:
+                bound[:, zero_c] += prep.abs_d[cand[zero_c]]
         ok = bound > limit
         if band_u is not None:
             bound *= band_u[cand]
             ok &= bound >= near_limit
         pp, jj = ok.nonzero()
         j = cand[jj]
-        parts.append((members[pp], freq_u[j], li_u[j], pi_u[j],
+        seg_g = members[pp]
+        pi_g = pc[jj]
+        amp_g = prep.s[j] * x[seg_g, pi_g]
+        if fac.has_d:
+            at_zero = (pi_g == 0).nonzero()[0]
+            if at_zero.size:
+                amp_g[at_zero] += prep.d[j[at_zero]]
+        parts.append((seg_g, freq_u[j], amp_g, prep.codes[j],
                       band_u[j] if band_u is not None else None))
     # the groups are runs of consecutive points (evaluate_group put them so): joined, the
     # lines are in point order, each point's in frequency order (its table's)
-    seg, freq, li, pi = (np.concatenate([p[c] for p in parts]) for c in range(4))
+    seg, freq, amp, codes = (np.concatenate([p[c] for p in parts]) for c in range(4))
     band = np.concatenate([p[4] for p in parts]) if banded else None
-    amp = s[li] * x[seg, pi]
-    if fac.has_d:
-        at_zero = (pi == 0).nonzero()[0]
-        if at_zero.size:
-            amp[at_zero] += d[li[at_zero]]
     amp *= state.out_scale
     if band is not None:
         amp *= band
         keep = (amp.real * amp.real + amp.imag * amp.imag) >= state.prefloor_w
         if not keep.all():
-            seg, li, pi, freq, amp = seg[keep], li[keep], pi[keep], freq[keep], amp[keep]
-    table = combo_tuples(part.max_lo_order, freqs.shape[1], part.max_rf_order)
-    codes = (fac.orders + part.max_lo_order)[li] * table.shape[1] + pi
+            seg, freq, amp, codes = seg[keep], freq[keep], amp[keep], codes[keep]
     codes += names.add(table.ravel())
     return RaggedLines(seg, freq, amp, codes)
 
