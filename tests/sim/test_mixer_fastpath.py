@@ -22,6 +22,7 @@ from sweeprig.sim.mixer.multitone import (
     CellState,
     _axis_wave,
     _fold_half,
+    _mirrored,
     _rf_grid_values,
     lo_factor,
 )
@@ -103,6 +104,17 @@ def test_the_mirrored_rf_grid_equals_the_grid_solved_at_every_point(tones: int) 
         reference = _rf_grid_values_reference(amps, shape, cell)
         assert fast.shape == reference.shape == shape
         np.testing.assert_allclose(fast, reference, rtol=0, atol=1e-14)
+
+
+@pytest.mark.parametrize("shape", [(7,), (8,), (1,), (2,), (30, 30), (9, 40), (3, 8, 5),
+                                   (6, 6, 6)])
+def test_the_mirror_made_by_slices_is_the_mirror_index_exactly(shape: tuple[int, ...]) -> None:
+    """Grid point j of an axis holds the value solved at min(j, n − j); the slice copies
+    give bit for bit the array that indexing with those indices gives (the definition)."""
+    rng = np.random.default_rng(sum(shape))
+    half = rng.standard_normal((4, *(n // 2 + 1 for n in shape)))
+    index = np.ix_(*(np.minimum(np.arange(n), n - np.arange(n)) for n in shape))
+    np.testing.assert_array_equal(_mirrored(half, shape), half[(slice(None), *index)])
 
 
 @pytest.mark.parametrize("seed", range(6))
