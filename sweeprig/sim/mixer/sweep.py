@@ -87,7 +87,7 @@ def evaluate_group(
     # responses go back in the caller's order at the end
     by_row: dict[tuple[float, ...], list[int]] = {}
     for i, tones in enumerate(sets):
-        by_row.setdefault(tuple(t.freq_hz for t in tones), []).append(i)
+        by_row.setdefault(tuple([t.freq_hz for t in tones]), []).append(i)
     order = [i for members in by_row.values() for i in members]
     if order != list(range(len(sets))):
         sets = [sets[i] for i in order]
@@ -624,12 +624,12 @@ def _levels(part: MixerPart, lines: RaggedLines, n_pts: int,
     power_w = lines.amp.real**2 + lines.amp.imag**2
     keep = power_w >= 1e-3 * 10.0 ** (part.floor_dbm / 10.0)  # as part._levels
     keep &= power_w > 0.0
+    seg, freq, codes = lines.seg, lines.freq_hz, lines.orders
     if not keep.all():
-        power_w = power_w[keep]
-        lines = lines.take(keep)
+        power_w, seg, freq, codes = power_w[keep], seg[keep], freq[keep], codes[keep]
     power_dbm = 10.0 * np.log10(power_w * 1e3)
-    at = lines.bounds(n_pts).tolist()
-    freq, orders = lines.freq_hz, names[lines.orders]
+    at = np.searchsorted(seg, np.arange(n_pts + 1)).tolist()
+    orders = names[codes]
     return [PortLevels(freq[a:b], power_dbm[a:b], orders[a:b])
             for a, b in itertools.pairwise(at)]
 
