@@ -421,12 +421,13 @@ def _common_mode(
                                part.cm_second_order, imbalance)
     if cm is None:
         return None
-    seg, freq, amp, orders = cm
+    seg, freq, amp, codes, orders = cm
     amp = amp * state.out_scale
     out = part.output_port
     if out.highpass_hz is not None or out.lowpass_hz is not None:
         amp = amp * out.magnitude(freq)
-    return RaggedLines(seg, freq, amp, names.add(orders) + np.arange(orders.size))
+    codes += names.add(orders)
+    return RaggedLines(seg, freq, amp, codes)
 
 
 @dataclass(frozen=True)
