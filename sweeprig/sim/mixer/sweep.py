@@ -20,6 +20,7 @@ import itertools
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass
+from functools import lru_cache
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
@@ -102,32 +103,48 @@ def evaluate_group(
     return back
 
 
+@lru_cache(maxsize=64)
+def _column_layout(
+    harmonics: tuple[tuple[float, ...], ...],
+) -> tuple[NDArray[np.intp], NDArray[np.float64], NDArray[np.float64], NDArray[np.intp],
+           tuple[tuple[int, int], ...]]:
+    """The input components of a kind of point as columns, tone after tone, fundamental
+    then harmonics: each column's tone, multiple (float) and level relative to the
+    fundamental (dBc), the harmonic columns, and each tone's (first, stop) columns."""
+    tone, mult, dbc, spans = [], [], [], []
+    for k, levels in enumerate(harmonics):
+        spans.append((len(tone), len(tone) + 1 + len(levels)))
+        tone += [k] * (1 + len(levels))
+        mult += [float(h) for h in range(1, 2 + len(levels))]
+        dbc += [0.0, *levels]
+    harmonic = np.array([i for i, m in enumerate(mult) if m != 1.0], dtype=np.intp)
+    arrays = (np.array(tone, dtype=np.intp), np.array(mult), np.array(dbc), harmonic)
+    for arr in arrays:
+        arr.flags.writeable = False
+    return (*arrays, tuple(spans))
+
+
 def _tone_amplitudes(
     part: MixerPart, sets: Sequence[tuple[ToneInput, ...]], freqs: NDArray[np.float64],
     powers: NDArray[np.float64],
-) -> list[NDArray[np.float64]]:
-    """:meth:`MixerPart.tone_core_amplitudes` of every point, one array (P, 1 + harmonics)
-    per tone position (the same arithmetic, element by element)."""
+) -> NDArray[np.float64]:
+    """:meth:`MixerPart.tone_core_amplitudes` of every point, shape (P, components) in the
+    columns of :func:`_column_layout` (the same arithmetic, element by element)."""
     port = part.input_port
     factor = 2.0 * port.resistance_ohm * port.delivered_fraction * 1e-3
-    out = []
-    for k, tone in enumerate(sets[0]):
-        mult = np.arange(1, 2 + len(tone.harmonics_dbc), dtype=float)
-        level = np.empty((len(sets), mult.size))
-        level[:, 0] = powers[:, k]
-        for h, dbc in enumerate(tone.harmonics_dbc, start=1):
-            level[:, h] = powers[:, k] + dbc
-        f = freqs[:, k, None] * mult
-        f[:, 0] = freqs[:, k]
-        mag = np.ones(f.shape)
-        if port.highpass_hz is not None:
-            r = f / port.highpass_hz
-            mag *= r / np.sqrt(1.0 + r * r)
-        if port.lowpass_hz is not None:
-            r = f / port.lowpass_hz
-            mag /= np.sqrt(1.0 + r * r)
-        out.append(np.sqrt(factor * 10.0 ** (level / 10.0)) * mag)
-    return out
+    tone, mult, dbc, harmonic, _ = _column_layout(sweep_signature(sets[0]))
+    level = powers[:, tone]
+    level[:, harmonic] += dbc[harmonic]
+    f = freqs[:, tone]
+    f *= mult
+    mag = np.ones(f.shape)
+    if port.highpass_hz is not None:
+        r = f / port.highpass_hz
+        mag *= r / np.sqrt(1.0 + r * r)
+    if port.lowpass_hz is not None:
+        r = f / port.lowpass_hz
+        mag /= np.sqrt(1.0 + r * r)
+    return np.sqrt(factor * 10.0 ** (level / 10.0)) * mag
 
 
 def _bucket_rows(amps: NDArray[np.float64]) -> NDArray[np.float64]:
@@ -152,14 +169,14 @@ def _evaluate_sorted(
     freqs = np.array([[t.freq_hz for t in tones] for tones in sets])  # (P, K)
     powers = np.array([[t.power_dbm for t in tones] for tones in sets])
     phases = np.array([[t.phase_rad for t in tones] for tones in sets])
-    tone_amps = _tone_amplitudes(part, sets, freqs, powers)
+    all_amps = _tone_amplitudes(part, sets, freqs, powers)
+    spans = _column_layout(sweep_signature(sets[0]))[4]
+    tone_amps = [np.ascontiguousarray(all_amps[:, a:b]) for a, b in spans]
     # transconductor factors, solved together per grid shape (cached per 1 dB bucket)
     x = np.empty((n_pts, len(order_table(n_tones, part.max_rf_order))), dtype=complex)
-    buckets = np.concatenate([_bucket_rows(a) for a in tone_amps], axis=1).tolist()
-    cuts = np.cumsum([a.shape[1] for a in tone_amps])[:-1].tolist()
+    buckets = _bucket_rows(all_amps).tolist()
     shapes: list[tuple[tuple[int, ...], bool]] = []
     by_shape: dict[tuple[int, ...], list[int]] = {}
-    spans = list(itertools.pairwise([0, *cuts, len(buckets[0])]))
     shape_of: dict[tuple[float, ...], tuple[tuple[int, ...], bool]] = {}  # per bucket row
     for i, row in enumerate(map(tuple, buckets)):
         shape = shape_of.get(row)
@@ -186,7 +203,8 @@ def _evaluate_sorted(
     if leaks is not None:
         leaks = leaks.take(has_core[leaks.seg])
     if part.cm_second_order and imbalance:
-        cm = _common_mode(part, state, freqs, phases, tone_amps, imbalance, n_axes, names)
+        cm = _common_mode(part, state, sets, freqs, phases, all_amps, imbalance, n_axes,
+                          names)
         if cm is not None:
             core = add_segments(core, cm.take(has_core[cm.seg]), floor_w=floor_w,
                                 later=leaks)
@@ -405,18 +423,20 @@ def _combine(
 
 
 def _common_mode(
-    part: MixerPart, state: _OpState, freqs: NDArray[np.float64],
-    phases: NDArray[np.float64], tone_amps: list[NDArray[np.float64]], imbalance: float,
-    n_axes: int, names: _Names,
+    part: MixerPart, state: _OpState, sets: Sequence[tuple[ToneInput, ...]],
+    freqs: NDArray[np.float64], phases: NDArray[np.float64], v: NDArray[np.float64],
+    imbalance: float, n_axes: int, names: _Names,
 ) -> RaggedLines | None:
-    """The common-mode IM2 lines of every point, at the output port (sqrt(W))."""
+    """The common-mode IM2 lines of every point, at the output port (sqrt(W)); ``v``: the
+    input components at the core (:func:`_tone_amplitudes`)."""
     cell = state.cell
-    layout = tuple(a.shape[1] for a in tone_amps)
+    tone, mult, _, _, spans = _column_layout(sweep_signature(sets[0]))
+    layout = tuple(b - a for a, b in spans)
     a_v = 2.0 * cell.vt_v + cell.i_ee_a * cell.r_e_ohm
-    mults = [np.arange(1, n + 1, dtype=float) for n in layout]
-    f = np.concatenate([freqs[:, k, None] * m for k, m in enumerate(mults)], axis=1)
-    v = np.concatenate(tone_amps, axis=1)
-    ph = np.concatenate([phases[:, k, None] * m for k, m in enumerate(mults)], axis=1)
+    f = freqs[:, tone]
+    f *= mult
+    ph = phases[:, tone]
+    ph *= mult
     cm = common_mode_im2_rows(f, v, ph, layout, n_axes, cell.i_ee_a, a_v,
                                part.cm_second_order, imbalance)
     if cm is None:
