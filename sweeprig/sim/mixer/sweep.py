@@ -65,11 +65,15 @@ class _Names:
         self._joined = None
         return first
 
-    def __getitem__(self, codes: NDArray[np.intp]) -> NDArray[np.object_]:
+    def table(self) -> NDArray[np.object_]:
+        """Every registered order tuple, indexed by code."""
         if self._joined is None:
             self._joined = np.concatenate(self._parts) if self._parts else np.empty(
                 0, dtype=object)
-        return self._joined[codes]
+        return self._joined
+
+    def __getitem__(self, codes: NDArray[np.intp]) -> NDArray[np.object_]:
+        return self.table()[codes]
 
 
 def sweep_signature(tones: Sequence[ToneInput]) -> tuple[tuple[float, ...], ...]:
@@ -650,7 +654,8 @@ def _levels(part: MixerPart, lines: RaggedLines, n_pts: int,
         power_w, seg, freq, codes = power_w[keep], seg[keep], freq[keep], codes[keep]
     power_dbm = 10.0 * np.log10(power_w * 1e3)
     at = np.searchsorted(seg, np.arange(n_pts + 1)).tolist()
-    orders = names[codes]
-    return [PortLevels(freq[a:b], power_dbm[a:b], orders[a:b])
+    table = names.table()
+    coded = PortLevels.coded
+    return [coded(freq[a:b], power_dbm[a:b], codes[a:b], table)
             for a, b in itertools.pairwise(at)]
 

@@ -55,16 +55,61 @@ class Product(NamedTuple):
     orders: tuple[int, ...]
 
 
-@dataclass(frozen=True, eq=False)
 class PortLevels:
     """Lines at one port as arrays, sorted by frequency: ``freq_hz`` (Hz), ``power_dbm``
     (dBm into a matched 50 ohm load) and ``orders`` (an object array of order tuples, as
     :class:`Product`). What the model computes; the :class:`Product` tuples are made from it
-    only when someone reads them (a response holds hundreds of lines)."""
+    only when someone reads them (a response holds hundreds of lines).
 
+    Immutable. The sweep path gives the orders as integer codes into a table of order
+    tuples (:meth:`coded`); the object array is made on first reading of ``orders``
+    (the simulated bench reads frequencies and powers only)."""
+
+    __slots__ = ("_codes", "_orders", "_table", "freq_hz", "power_dbm")
     freq_hz: NDArray[np.float64]
     power_dbm: NDArray[np.float64]
-    orders: NDArray[np.object_]
+
+    def __init__(self, freq_hz: NDArray[np.float64], power_dbm: NDArray[np.float64],
+                 orders: NDArray[np.object_]) -> None:
+        init = object.__setattr__
+        init(self, "freq_hz", freq_hz)
+        init(self, "power_dbm", power_dbm)
+        init(self, "_orders", orders)
+        init(self, "_codes", None)
+        init(self, "_table", None)
+
+    @classmethod
+    def coded(cls, freq_hz: NDArray[np.float64], power_dbm: NDArray[np.float64],
+              codes: NDArray[np.intp], table: NDArray[np.object_]) -> PortLevels:
+        """Lines whose orders are ``table[codes]`` (made when first read)."""
+        levels = cls.__new__(cls)
+        init = object.__setattr__
+        init(levels, "freq_hz", freq_hz)
+        init(levels, "power_dbm", power_dbm)
+        init(levels, "_orders", None)
+        init(levels, "_codes", codes)
+        init(levels, "_table", table)
+        return levels
+
+    @property
+    def orders(self) -> NDArray[np.object_]:
+        orders = self._orders
+        if orders is None:
+            orders = self._table[self._codes]  # type: ignore[index]
+            object.__setattr__(self, "_orders", orders)
+            object.__setattr__(self, "_codes", None)
+            object.__setattr__(self, "_table", None)
+        return orders
+
+    def __setattr__(self, name: str, value: object) -> None:
+        raise AttributeError(f"PortLevels is immutable: cannot set {name!r}")
+
+    def __reduce__(self) -> tuple[type[PortLevels], tuple[object, ...]]:
+        """Copies and pickles rebuild the lines through the constructor."""
+        return (PortLevels, (self.freq_hz, self.power_dbm, self.orders))
+
+    def __repr__(self) -> str:
+        return f"PortLevels({self.freq_hz.size} lines)"
 
     def products(self) -> tuple[Product, ...]:
         """The lines as :class:`Product` tuples."""
