@@ -236,6 +236,32 @@ def test_a_response_read_as_arrays_holds_the_lines_its_products_hold() -> None:
         resp.supply_current_a = 1.0  # type: ignore[misc]
 
 
+def test_a_sweep_response_reads_as_the_lines_its_products_hold_and_keeps_them() -> None:
+    """The sweep path hands each point's lines over as slices of arrays the points share,
+    with the orders as codes (made on first reading): read as arrays or as products, copied
+    or pickled, the same lines; neither the response nor its arrays' holder can be set."""
+    part = load_part("kx-2417")
+    h = (-35.0, -45.0)
+    lo = ToneInput(2.1e9, 0.0, 0.0, h)
+    sets = [[ToneInput(2.2e9, p, 0.0, h), ToneInput(2.201e9, p, 0.0, h)]
+            for p in (-30.0, -25.0, -20.0)]
+    for resp in part.evaluate_many(OperatingPoint(), lo, sets):
+        copied, pickled = copy.deepcopy(resp), pickle.loads(pickle.dumps(resp))  # unread
+        for port in ("if_port", "rf_port", "lo_port"):
+            levels = resp.levels(port)
+            assert resp.levels(port) is levels  # made once
+            products = getattr(resp, port)
+            assert len(products) == levels.freq_hz.size > 0
+            assert [p.freq_hz for p in products] == levels.freq_hz.tolist()
+            assert [p.power_dbm for p in products] == levels.power_dbm.tolist()
+            assert [p.orders for p in products] == levels.orders.tolist()
+            with pytest.raises(AttributeError):
+                levels.freq_hz = levels.freq_hz  # type: ignore[misc]
+        assert copied == resp == pickled
+        with pytest.raises(AttributeError):
+            resp.notes = {}  # type: ignore[misc]
+
+
 @pytest.mark.parametrize("part_name", ["kx-2417", "kx-5803"])
 def test_a_sweep_evaluated_together_gives_each_point_s_lines_alone(part_name: str) -> None:
     """evaluate_many over a two-tone power sweep at a few frequencies (the points share

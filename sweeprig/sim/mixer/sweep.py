@@ -42,7 +42,13 @@ from sweeprig.sim.mixer.ragged import (
     merge_sorted,
 )
 from sweeprig.sim.mixer.realism import LeakPhase, common_mode_im2_rows
-from sweeprig.sim.mixer.types import MixerResponse, OperatingPoint, PortLevels, ToneInput
+from sweeprig.sim.mixer.types import (
+    MixerResponse,
+    OperatingPoint,
+    PortLevels,
+    PortSlice,
+    ToneInput,
+)
 
 if TYPE_CHECKING:
     from sweeprig.sim.mixer.part import MixerPart, PortNetwork, _LoPrepared, _OpState
@@ -643,9 +649,9 @@ def _leak_lines(
 
 
 def _levels(part: MixerPart, lines: RaggedLines, n_pts: int,
-            names: _Names) -> list[PortLevels]:
+            names: _Names) -> list[PortSlice]:
     """Sorted, merged lines of every point (orders as codes of ``names``) → each point's
-    lines above the floor (dBm)."""
+    lines above the floor (dBm), as slices of arrays the points share."""
     power_w = lines.amp.real**2 + lines.amp.imag**2
     keep = power_w >= 1e-3 * 10.0 ** (part.floor_dbm / 10.0)  # as part._levels
     keep &= power_w > 0.0
@@ -655,7 +661,6 @@ def _levels(part: MixerPart, lines: RaggedLines, n_pts: int,
     power_dbm = 10.0 * np.log10(power_w * 1e3)
     at = np.searchsorted(seg, np.arange(n_pts + 1)).tolist()
     table = names.table()
-    coded = PortLevels.coded
-    return [coded(freq[a:b], power_dbm[a:b], codes[a:b], table)
+    new = tuple.__new__
+    return [new(PortSlice, (freq, power_dbm, codes, table, a, b))
             for a, b in itertools.pairwise(at)]
-
