@@ -624,7 +624,12 @@ def _leak_lines(
             if block[0] == "tones":
                 pieces.append((block[1], block[2], None))
             else:
-                pieces.append((0, 0, _lo_path_entries(part, lo, n_axes, block[1])))  # type: ignore[arg-type]
+                key = ("lo-path", lo, n_axes, block[1])
+                entries = part._cache.get(key)
+                if entries is None:
+                    entries = _lo_path_entries(part, lo, n_axes, block[1])  # type: ignore[arg-type]
+                    part._remember(key, entries)
+                pieces.append((0, 0, entries))
         width = sum(b - a if e is None else len(e) for a, b, e in pieces)
         freq = np.empty((n_pts, width))
         amp = np.empty((n_pts, width), dtype=complex)
@@ -642,10 +647,20 @@ def _leak_lines(
                 amp[:, at : at + n] = [e[1] for e in entries]
                 orders[at : at + n] = [e[2] for e in entries]
                 at += n
-        codes = names.add(orders) + np.arange(width)
-        out.append(RaggedLines(np.repeat(np.arange(n_pts), width), freq.ravel(), amp.ravel(),
-                               np.tile(codes, n_pts)))
+        seg, column = _grid_indices(n_pts, width)
+        out.append(RaggedLines(seg, freq.ravel(), amp.ravel(), column + names.add(orders)))
     return out[0], out[1], out[2]
+
+
+@lru_cache(maxsize=64)
+def _grid_indices(n_pts: int, width: int) -> tuple[NDArray[np.intp], NDArray[np.intp]]:
+    """The point and the column of every element of a (points, width) block read row by
+    row (read-only, shared by the calls of one size)."""
+    seg = np.repeat(np.arange(n_pts), width)
+    column = np.tile(np.arange(width), n_pts)
+    for arr in (seg, column):
+        arr.flags.writeable = False
+    return seg, column
 
 
 def _levels(part: MixerPart, lines: RaggedLines, n_pts: int,
