@@ -78,9 +78,6 @@ class _Names:
                 0, dtype=object)
         return self._joined
 
-    def __getitem__(self, codes: NDArray[np.intp]) -> NDArray[np.object_]:
-        return self.table()[codes]
-
 
 def sweep_signature(tones: Sequence[ToneInput]) -> tuple[tuple[float, ...], ...]:
     """What the points of one group share: the source harmonics (dBc) of each tone."""
