@@ -36,11 +36,6 @@ class RaggedLines:
         return RaggedLines(self.seg[index], self.freq_hz[index], self.amp[index],
                            self.orders[index])
 
-    def bounds(self, points: int) -> NDArray[np.intp]:
-        """Start of each point's lines and the end of the last (sorted lines), length
-        ``points + 1``."""
-        return np.searchsorted(self.seg, np.arange(points + 1))
-
 
 def sort_order(seg: NDArray[np.intp], freq_hz: NDArray[np.float64],
                stable: bool = False) -> NDArray[np.intp]:
