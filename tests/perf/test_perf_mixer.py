@@ -13,12 +13,15 @@ one vectorised chain over the points, :mod:`sweeprig.sim.mixer.sweep`; what the 
 bench's read-ahead uses for a sweep it recognises). Issue 14 sets ≥ 5,000 evaluations/s on
 the demo part (kx-2417) with source harmonics on, measured on a quiet machine; the lines say
 met or MISSED against it for one call per point and for the sweep path, with the load
-average beside them.
+average beside them. The last benchmark splits the sweep path's time per evaluation by
+stage (where the next speed-up has to come from).
 """
 
 import os
 import statistics
 import time
+from collections.abc import Callable
+from typing import Any
 
 import pytest
 
@@ -138,3 +141,79 @@ def test_three_tone_evaluation_rate(
         print(f"  {rate:,.0f} three-tone evaluations/s on one core (median of {_RUNS}), "
               f"{how}, {lines:.0f} output lines per response{verdict}; load average "
               f"{os.getloadavg()[0]:.1f}")
+
+
+#: The sweep path's stages, by the function of :mod:`sweeprig.sim.mixer.sweep` that does
+#: each (the outermost one counts when they nest).
+_STAGES = {
+    "rf_factor_rows": "transconductor factor: pair solved on the half grid, mirrored, FFT",
+    "_combine": "combination: line tables, bounds, amplitudes",
+    "merge_sorted": "merge of coincident lines",
+    "merge_segments": "merge of coincident lines",
+    "_leak_lines": "linear leakage paths (input/output, reflections, LO)",
+    "_common_mode": "common-mode IM2 lines",
+    "add_segments": "adding the IM2 lines",
+    "add_entry_segments": "adding the leakage lines",
+    "_levels": "floor, dBm and each point's arrays",
+    "_tone_amplitudes": "input amplitudes at the core and their buckets",
+    "_bucket_rows": "input amplitudes at the core and their buckets",
+}
+
+
+@pytest.mark.perf
+def test_where_a_sweep_evaluation_s_time_goes(monkeypatch: pytest.MonkeyPatch) -> None:
+    """The sweep path (40 points a call, the demo part, harmonics on) split by stage: the
+    processor time of each stage per evaluation, the best of several passes, so that the
+    next speed-up starts from a measurement."""
+    from sweeprig.sim.mixer import sweep
+
+    spent: dict[str, float] = {}
+    depth = [0]
+
+    def timed(fn: Callable[..., Any], label: str) -> Callable[..., Any]:
+        def run(*args: Any, **kwargs: Any) -> Any:
+            if depth[0]:
+                return fn(*args, **kwargs)
+            depth[0] += 1
+            start = time.process_time()
+            try:
+                return fn(*args, **kwargs)
+            finally:
+                spent[label] = spent.get(label, 0.0) + time.process_time() - start
+                depth[0] -= 1
+        return run
+
+    for name, label in _STAGES.items():
+        monkeypatch.setattr(sweep, name, timed(getattr(sweep, name), label))
+    part = load_part("kx-2417")
+    op = OperatingPoint()
+    harmonics = (-35.0, -45.0)
+    lo = ToneInput(2.1e9, 0.0, 0.0, harmonics)
+    plan = []
+    for i in range(_CALLS):
+        power = -35.0 + (i % 40) * 0.25
+        f1 = 2.2e9 + (i % 7) * 1e6
+        plan.append([ToneInput(f1, power, 0.0, harmonics),
+                     ToneInput(f1 + 1e6, power, 0.0, harmonics)])
+    for tones in plan[:50]:
+        part.evaluate(op, lo, tones)
+    best_total, best = float("inf"), {}
+    for _ in range(2 * _PASSES):
+        spent.clear()
+        start = time.process_time()
+        for at in range(0, _CALLS, _SWEEP_POINTS):
+            for response in part.evaluate_many(op, lo, plan[at : at + _SWEEP_POINTS]):
+                response.levels("if_port")
+        total = time.process_time() - start
+        if total < best_total:
+            best_total, best = total, dict(spent)
+    print(f"\nkx-2417, sources with 2nd/3rd harmonics, {_SWEEP_POINTS} points per call: "
+          f"processor time per evaluation by stage (best of {2 * _PASSES} passes; load "
+          f"average {os.getloadavg()[0]:.1f} on {os.cpu_count()} cores):")
+    for label, seconds in sorted(best.items(), key=lambda item: -item[1]):
+        print(f"  {seconds / _CALLS * 1e6:6.1f} us  {label}")
+    rest = best_total - sum(best.values())
+    print(f"  {rest / _CALLS * 1e6:6.1f} us  the rest (grouping, checks, caches, responses)")
+    print(f"  {best_total / _CALLS * 1e6:6.1f} us per evaluation: "
+          f"{_CALLS / best_total:,.0f} evaluations/s")
+    assert best

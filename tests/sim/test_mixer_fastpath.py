@@ -22,6 +22,7 @@ from sweeprig.sim.mixer.multitone import (
     CellState,
     _axis_wave,
     _fold_half,
+    _mirrored,
     _rf_grid_values,
     lo_factor,
 )
@@ -103,6 +104,17 @@ def test_the_mirrored_rf_grid_equals_the_grid_solved_at_every_point(tones: int) 
         reference = _rf_grid_values_reference(amps, shape, cell)
         assert fast.shape == reference.shape == shape
         np.testing.assert_allclose(fast, reference, rtol=0, atol=1e-14)
+
+
+@pytest.mark.parametrize("shape", [(7,), (8,), (1,), (2,), (30, 30), (9, 40), (3, 8, 5),
+                                   (6, 6, 6)])
+def test_the_mirror_made_by_slices_is_the_mirror_index_exactly(shape: tuple[int, ...]) -> None:
+    """Grid point j of an axis holds the value solved at min(j, n − j); the slice copies
+    give bit for bit the array that indexing with those indices gives (the definition)."""
+    rng = np.random.default_rng(sum(shape))
+    half = rng.standard_normal((4, *(n // 2 + 1 for n in shape)))
+    index = np.ix_(*(np.minimum(np.arange(n), n - np.arange(n)) for n in shape))
+    np.testing.assert_array_equal(_mirrored(half, shape), half[(slice(None), *index)])
 
 
 @pytest.mark.parametrize("seed", range(6))
@@ -222,6 +234,32 @@ def test_a_response_read_as_arrays_holds_the_lines_its_products_hold() -> None:
     assert copy.deepcopy(resp) == resp and pickle.loads(pickle.dumps(resp)) == resp
     with pytest.raises(AttributeError):
         resp.supply_current_a = 1.0  # type: ignore[misc]
+
+
+def test_a_sweep_response_reads_as_the_lines_its_products_hold_and_keeps_them() -> None:
+    """The sweep path hands each point's lines over as slices of arrays the points share,
+    with the orders as codes (made on first reading): read as arrays or as products, copied
+    or pickled, the same lines; neither the response nor its arrays' holder can be set."""
+    part = load_part("kx-2417")
+    h = (-35.0, -45.0)
+    lo = ToneInput(2.1e9, 0.0, 0.0, h)
+    sets = [[ToneInput(2.2e9, p, 0.0, h), ToneInput(2.201e9, p, 0.0, h)]
+            for p in (-30.0, -25.0, -20.0)]
+    for resp in part.evaluate_many(OperatingPoint(), lo, sets):
+        copied, pickled = copy.deepcopy(resp), pickle.loads(pickle.dumps(resp))  # unread
+        for port in ("if_port", "rf_port", "lo_port"):
+            levels = resp.levels(port)
+            assert resp.levels(port) is levels  # made once
+            products = getattr(resp, port)
+            assert len(products) == levels.freq_hz.size > 0
+            assert [p.freq_hz for p in products] == levels.freq_hz.tolist()
+            assert [p.power_dbm for p in products] == levels.power_dbm.tolist()
+            assert [p.orders for p in products] == levels.orders.tolist()
+            with pytest.raises(AttributeError):
+                levels.freq_hz = levels.freq_hz  # type: ignore[misc]
+        assert copied == resp == pickled
+        with pytest.raises(AttributeError):
+            resp.notes = {}  # type: ignore[misc]
 
 
 @pytest.mark.parametrize("part_name", ["kx-2417", "kx-5803"])

@@ -113,7 +113,7 @@ from sweeprig.sim.mixer.realism import (
     lo_drive_noise_factor,
     switch_overlap_fraction,
 )
-from sweeprig.sim.mixer.sweep import evaluate_group, sweep_signature
+from sweeprig.sim.mixer.sweep import evaluate_group
 from sweeprig.sim.mixer.types import (
     MixerResponse,
     OperatingPoint,
@@ -605,15 +605,16 @@ class MixerPart:
         and a part whose bias is off go through :meth:`evaluate`. Every response equals
         the one :meth:`evaluate` gives for that point alone, within rounding."""
         sets = [tuple(tones) for tones in tone_sets]
-        for tones in sets:
-            self._check_inputs(lo, tones)
+        if not _all_sets_valid(lo, sets):
+            for tones in sets:
+                self._check_inputs(lo, tones)
         state = self._state(op)
         out: list[MixerResponse | None] = [None] * len(sets)
         if state.cell.i_ee_a > 0.0:
             groups: dict[tuple[tuple[float, ...], ...], list[int]] = {}
             for i, tones in enumerate(sets):
-                if tones:
-                    groups.setdefault(sweep_signature(tones), []).append(i)
+                if tones:  # the group's sweep_signature
+                    groups.setdefault(tuple([t.harmonics_dbc for t in tones]), []).append(i)
             for members in groups.values():
                 for i, response in zip(members, evaluate_group(
                         self, op, lo, state, [sets[i] for i in members]), strict=True):
@@ -863,6 +864,26 @@ def _all_valid(lo: ToneInput | None, tones: tuple[ToneInput, ...]) -> bool:
         if not tone.freq_hz > 0.0:
             return False
         total += tone.freq_hz + tone.power_dbm + tone.phase_rad + sum(tone.harmonics_dbc)
+    return math.isfinite(total)
+
+
+def _all_sets_valid(lo: ToneInput | None, sets: list[tuple[ToneInput, ...]]) -> bool:
+    """Whether every point of a sweep passes ``_check_inputs`` (the quick test of
+    :func:`_all_valid` over all of them at once: at most ``MAX_RF_TONES`` tones each,
+    positive frequencies and a finite sum of every number; False sends the caller to the
+    point-by-point check, which names the first bad point)."""
+    total = 0.0
+    if lo is not None:
+        if not lo.freq_hz > 0.0:
+            return False
+        total += lo.freq_hz + lo.power_dbm + lo.phase_rad + sum(lo.harmonics_dbc)
+    for tones in sets:
+        if len(tones) > MAX_RF_TONES:
+            return False
+        for tone in tones:
+            if not tone.freq_hz > 0.0:
+                return False
+            total += tone.freq_hz + tone.power_dbm + tone.phase_rad + sum(tone.harmonics_dbc)
     return math.isfinite(total)
 
 

@@ -36,11 +36,6 @@ class RaggedLines:
         return RaggedLines(self.seg[index], self.freq_hz[index], self.amp[index],
                            self.orders[index])
 
-    def bounds(self, points: int) -> NDArray[np.intp]:
-        """Start of each point's lines and the end of the last (sorted lines), length
-        ``points + 1``."""
-        return np.searchsorted(self.seg, np.arange(points + 1))
-
 
 def sort_order(seg: NDArray[np.intp], freq_hz: NDArray[np.float64],
                stable: bool = False) -> NDArray[np.intp]:
@@ -92,8 +87,12 @@ def merge_segments(lines: RaggedLines, tol_hz: float = MERGE_TOL_HZ) -> RaggedLi
 
 def sort_key(lines: RaggedLines) -> NDArray[np.complex128]:
     """``seg + 1j·freq``: numpy orders complex numbers by real part, then imaginary part,
-    so this sorts exactly as (segment, frequency)."""
-    return lines.seg + 1j * lines.freq_hz
+    so this sorts exactly as (segment, frequency). Written into the two halves of a
+    complex array (the same numbers as the arithmetic, without its temporaries)."""
+    key = np.empty(lines.freq_hz.size, dtype=complex)
+    key.real = lines.seg
+    key.imag = lines.freq_hz
+    return key
 
 
 def _positions(base: RaggedLines, extra: RaggedLines, side: str,
@@ -114,8 +113,9 @@ def _neighbours(base: RaggedLines, extra: RaggedLines,
     it (``np.searchsorted``'s ``at − 1`` and ``at``, clamped to the segment), ``at`` and the
     end of its segment's base lines. ``base`` is sorted; every segment of an extra line has
     base lines."""
-    first = np.searchsorted(base.seg, extra.seg, side="left")
-    end = np.searchsorted(base.seg, extra.seg, side="right")
+    starts = np.searchsorted(base.seg, np.arange(int(base.seg[-1]) + 2))  # per segment
+    first = starts[extra.seg]
+    end = starts[extra.seg + 1]
     at = _positions(base, extra, "left", base_key)
     right = np.minimum(at, end - 1)
     left = np.maximum(at - 1, first)

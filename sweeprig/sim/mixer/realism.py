@@ -146,6 +146,18 @@ def common_mode_im2_lines(
 
 
 
+@lru_cache(maxsize=64)
+def _cm_codes(harmonics_per_tone: tuple[int, ...], n_axes: int) -> tuple[Any, ...]:
+    """The order tuples of :func:`_cm_layout` in one object array (squares, sums, positive
+    and negative differences) and each block's indices into it."""
+    _, _, sq_o, sum_o, dpos_o, dneg_o = _cm_layout(harmonics_per_tone, n_axes)
+    table = np.concatenate([sq_o, sum_o, dpos_o, dneg_o])
+    table.flags.writeable = False
+    n, p = sq_o.size, sum_o.size
+    codes = np.arange(table.size)
+    return table, codes[:n], codes[n : n + p], codes[n + p : n + 2 * p], codes[n + 2 * p :]
+
+
 def common_mode_im2_rows(
     freq_hz: NDArray[np.float64],
     amp_v: NDArray[np.float64],
@@ -157,17 +169,19 @@ def common_mode_im2_rows(
     cm_second_order: float,
     imbalance: float,
 ) -> tuple[NDArray[np.intp], NDArray[np.float64], NDArray[np.complex128],
-           NDArray[np.object_]] | None:
+           NDArray[np.intp], NDArray[np.object_]] | None:
     """:func:`common_mode_im2_lines` for several points at once: the inputs are arrays of
     shape (points, input lines), one row per point in the same layout; the lines of all
     points come out concatenated, point after point, each point's in the order
     :func:`common_mode_im2_lines` gives them, with the point's row index first
-    (``(seg, freq Hz, amp A complex, orders)``), or None when there are none."""
+    (``(seg, freq Hz, amp A complex, codes, orders)``: each line's orders are
+    ``orders[code]``), or None when there are none."""
     k = cm_second_order * i_ee_a * imbalance / (2.0 * a_v * a_v)
     if k == 0.0 or freq_hz.size == 0:
         return None
     n_pts = freq_hz.shape[0]
-    iu, ju, sq_o, sum_o, dpos_o, dneg_o = _cm_layout(harmonics_per_tone, n_axes)
+    iu, ju = _cm_layout(harmonics_per_tone, n_axes)[:2]
+    table, sq_c, sum_c, dpos_c, dneg_c = _cm_codes(harmonics_per_tone, n_axes)
     pair = k * amp_v[:, iu] * amp_v[:, ju]
     diff = freq_hz[:, iu] - freq_hz[:, ju]
     pos = diff >= 0.0
@@ -180,12 +194,14 @@ def common_mode_im2_rows(
         np.where(pos, 1.0, -1.0) * (phase_rad[:, iu] - phase_rad[:, ju])], axis=1)
     keep = np.ones(freq.shape, dtype=bool)
     keep[:, freq_hz.shape[1] + iu.size :] = far
-    orders = np.concatenate([
-        np.broadcast_to(sq_o, (n_pts, sq_o.size)), np.broadcast_to(sum_o, (n_pts, sum_o.size)),
-        np.where(pos, dpos_o, dneg_o)], axis=1)
+    codes = np.empty(freq.shape, dtype=np.intp)
+    codes[:, : sq_c.size] = sq_c
+    codes[:, sq_c.size : sq_c.size + sum_c.size] = sum_c
+    codes[:, sq_c.size + sum_c.size :] = np.where(pos, dpos_c, dneg_c)
     seg = np.broadcast_to(np.arange(n_pts)[:, None], freq.shape)
     amp = mag[keep] * np.exp(1j * phase[keep])
-    return seg[keep], freq[keep], amp, orders[keep]
+    return seg[keep], freq[keep], amp, codes[keep], table
+
 
 def switch_overlap_fraction(lo_amplitude_v: float, vt_v: float) -> float:
     """Fraction of the LO period Δ/T during which both transistors of a pair conduct.

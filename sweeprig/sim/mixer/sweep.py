@@ -19,7 +19,9 @@ from __future__ import annotations
 import itertools
 import math
 from collections.abc import Sequence
-from typing import TYPE_CHECKING
+from dataclasses import dataclass
+from functools import lru_cache
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 from numpy.typing import NDArray
@@ -40,7 +42,13 @@ from sweeprig.sim.mixer.ragged import (
     merge_sorted,
 )
 from sweeprig.sim.mixer.realism import LeakPhase, common_mode_im2_rows
-from sweeprig.sim.mixer.types import MixerResponse, OperatingPoint, PortLevels, ToneInput
+from sweeprig.sim.mixer.types import (
+    MixerResponse,
+    OperatingPoint,
+    PortLevels,
+    PortSlice,
+    ToneInput,
+)
 
 if TYPE_CHECKING:
     from sweeprig.sim.mixer.part import MixerPart, PortNetwork, _LoPrepared, _OpState
@@ -63,11 +71,12 @@ class _Names:
         self._joined = None
         return first
 
-    def __getitem__(self, codes: NDArray[np.intp]) -> NDArray[np.object_]:
+    def table(self) -> NDArray[np.object_]:
+        """Every registered order tuple, indexed by code."""
         if self._joined is None:
             self._joined = np.concatenate(self._parts) if self._parts else np.empty(
                 0, dtype=object)
-        return self._joined[codes]
+        return self._joined
 
 
 def sweep_signature(tones: Sequence[ToneInput]) -> tuple[tuple[float, ...], ...]:
@@ -86,43 +95,63 @@ def evaluate_group(
     # responses go back in the caller's order at the end
     by_row: dict[tuple[float, ...], list[int]] = {}
     for i, tones in enumerate(sets):
-        by_row.setdefault(tuple(t.freq_hz for t in tones), []).append(i)
+        by_row.setdefault(tuple([t.freq_hz for t in tones]), []).append(i)
     order = [i for members in by_row.values() for i in members]
     if order != list(range(len(sets))):
         sets = [sets[i] for i in order]
-    responses = _evaluate_sorted(part, op, lo, state, sets)
+    rows, at = [], 0
+    for row, members in by_row.items():
+        rows.append((row, list(range(at, at + len(members)))))
+        at += len(members)
+    responses = _evaluate_sorted(part, op, lo, state, sets, rows)
     back: list[MixerResponse | None] = [None] * len(sets)
     for i, response in zip(order, responses, strict=True):
         back[i] = response
     return back
 
 
+@lru_cache(maxsize=64)
+def _column_layout(
+    harmonics: tuple[tuple[float, ...], ...],
+) -> tuple[NDArray[np.intp], NDArray[np.float64], NDArray[np.float64], NDArray[np.intp],
+           tuple[tuple[int, int], ...]]:
+    """The input components of a kind of point as columns, tone after tone, fundamental
+    then harmonics: each column's tone, multiple (float) and level relative to the
+    fundamental (dBc), the harmonic columns, and each tone's (first, stop) columns."""
+    tone, mult, dbc, spans = [], [], [], []
+    for k, levels in enumerate(harmonics):
+        spans.append((len(tone), len(tone) + 1 + len(levels)))
+        tone += [k] * (1 + len(levels))
+        mult += [float(h) for h in range(1, 2 + len(levels))]
+        dbc += [0.0, *levels]
+    harmonic = np.array([i for i, m in enumerate(mult) if m != 1.0], dtype=np.intp)
+    arrays = (np.array(tone, dtype=np.intp), np.array(mult), np.array(dbc), harmonic)
+    for arr in arrays:
+        arr.flags.writeable = False
+    return (*arrays, tuple(spans))
+
+
 def _tone_amplitudes(
     part: MixerPart, sets: Sequence[tuple[ToneInput, ...]], freqs: NDArray[np.float64],
     powers: NDArray[np.float64],
-) -> list[NDArray[np.float64]]:
-    """:meth:`MixerPart.tone_core_amplitudes` of every point, one array (P, 1 + harmonics)
-    per tone position (the same arithmetic, element by element)."""
+) -> NDArray[np.float64]:
+    """:meth:`MixerPart.tone_core_amplitudes` of every point, shape (P, components) in the
+    columns of :func:`_column_layout` (the same arithmetic, element by element)."""
     port = part.input_port
     factor = 2.0 * port.resistance_ohm * port.delivered_fraction * 1e-3
-    out = []
-    for k, tone in enumerate(sets[0]):
-        mult = np.arange(1, 2 + len(tone.harmonics_dbc), dtype=float)
-        level = np.empty((len(sets), mult.size))
-        level[:, 0] = powers[:, k]
-        for h, dbc in enumerate(tone.harmonics_dbc, start=1):
-            level[:, h] = powers[:, k] + dbc
-        f = freqs[:, k, None] * mult
-        f[:, 0] = freqs[:, k]
-        mag = np.ones(f.shape)
-        if port.highpass_hz is not None:
-            r = f / port.highpass_hz
-            mag *= r / np.sqrt(1.0 + r * r)
-        if port.lowpass_hz is not None:
-            r = f / port.lowpass_hz
-            mag /= np.sqrt(1.0 + r * r)
-        out.append(np.sqrt(factor * 10.0 ** (level / 10.0)) * mag)
-    return out
+    tone, mult, dbc, harmonic, _ = _column_layout(sweep_signature(sets[0]))
+    level = powers[:, tone]
+    level[:, harmonic] += dbc[harmonic]
+    f = freqs[:, tone]
+    f *= mult
+    mag = np.ones(f.shape)
+    if port.highpass_hz is not None:
+        r = f / port.highpass_hz
+        mag *= r / np.sqrt(1.0 + r * r)
+    if port.lowpass_hz is not None:
+        r = f / port.lowpass_hz
+        mag /= np.sqrt(1.0 + r * r)
+    return np.sqrt(factor * 10.0 ** (level / 10.0)) * mag
 
 
 def _bucket_rows(amps: NDArray[np.float64]) -> NDArray[np.float64]:
@@ -136,9 +165,10 @@ def _bucket_rows(amps: NDArray[np.float64]) -> NDArray[np.float64]:
 
 def _evaluate_sorted(
     part: MixerPart, op: OperatingPoint, lo: ToneInput | None, state: _OpState,
-    sets: Sequence[tuple[ToneInput, ...]],
+    sets: Sequence[tuple[ToneInput, ...]], rows: list[tuple[tuple[float, ...], list[int]]],
 ) -> list[MixerResponse | None]:
-    """:func:`evaluate_group` for points with equal tone frequencies side by side."""
+    """:func:`evaluate_group` for points with equal tone frequencies side by side (``rows``:
+    each set of tone frequencies with its points, in their order)."""
     cell = state.cell
     lo_prep = part._lo_prepared(op, lo, state)
     n_pts, n_tones = len(sets), len(sets[0])
@@ -146,20 +176,25 @@ def _evaluate_sorted(
     freqs = np.array([[t.freq_hz for t in tones] for tones in sets])  # (P, K)
     powers = np.array([[t.power_dbm for t in tones] for tones in sets])
     phases = np.array([[t.phase_rad for t in tones] for tones in sets])
-    tone_amps = _tone_amplitudes(part, sets, freqs, powers)
+    all_amps = _tone_amplitudes(part, sets, freqs, powers)
+    spans = _column_layout(sweep_signature(sets[0]))[4]
+    tone_amps = [np.ascontiguousarray(all_amps[:, a:b]) for a, b in spans]
     # transconductor factors, solved together per grid shape (cached per 1 dB bucket)
     x = np.empty((n_pts, len(order_table(n_tones, part.max_rf_order))), dtype=complex)
-    buckets = np.concatenate([_bucket_rows(a) for a in tone_amps], axis=1).tolist()
-    cuts = np.cumsum([a.shape[1] for a in tone_amps])[:-1].tolist()
+    buckets = _bucket_rows(all_amps).tolist()
     shapes: list[tuple[tuple[int, ...], bool]] = []
     by_shape: dict[tuple[int, ...], list[int]] = {}
-    for i, row in enumerate(buckets):
-        bucket = tuple(tuple(row[a:b]) for a, b in itertools.pairwise([0, *cuts, len(row)]))
-        key = ("grid", op, bucket)
-        shape = part._cache.get(key)
+    shape_of: dict[tuple[float, ...], tuple[tuple[int, ...], bool]] = {}  # per bucket row
+    for i, row in enumerate(map(tuple, buckets)):
+        shape = shape_of.get(row)
         if shape is None:
-            shape = rf_grid_shape(bucket, cell, part.max_rf_order)
-            part._remember(key, shape)
+            bucket = tuple(row[a:b] for a, b in spans)
+            key = ("grid", op, bucket)
+            shape = part._cache.get(key)
+            if shape is None:
+                shape = rf_grid_shape(bucket, cell, part.max_rf_order)
+                part._remember(key, shape)
+            shape_of[row] = shape
         shapes.append(shape)
         by_shape.setdefault(shape[0], []).append(i)
     for shape, members in by_shape.items():
@@ -167,21 +202,21 @@ def _evaluate_sorted(
                                     shape)
     names = _Names()
     floor_w = 1e-3 * 10.0 ** (part.floor_dbm / 10.0)  # the floor _levels applies
-    core = merge_sorted(_combine(part, lo_prep, lo, state, x, freqs, phases, names))
+    core = merge_sorted(_combine(part, lo_prep, lo, state, x, freqs, phases, rows, names))
     has_core = np.zeros(n_pts, dtype=bool)
     has_core[core.seg] = True
     imbalance = part.load_mismatch + lo_prep.d0
-    leaks = _output_leaks(part, lo, sets, freqs, powers, phases, n_axes, names)
+    leaks, inputs, lo_lines = _leak_lines(part, lo, sets, freqs, powers, phases, n_axes, names)
     if leaks is not None:
         leaks = leaks.take(has_core[leaks.seg])
     if part.cm_second_order and imbalance:
-        cm = _common_mode(part, state, freqs, phases, tone_amps, imbalance, n_axes, names)
+        cm = _common_mode(part, state, sets, freqs, phases, all_amps, imbalance, n_axes,
+                          names)
         if cm is not None:
             core = add_segments(core, cm.take(has_core[cm.seg]), floor_w=floor_w,
                                 later=leaks)
     if leaks is not None:
         core = add_entry_segments(core, leaks, floor_w=floor_w)
-    inputs, lo_lines = _port_leaks(part, lo, freqs, powers, phases, sets, n_axes, names)
     output = _levels(part, core, n_pts, names)
     input_levels = _levels(part, merge_segments(inputs), n_pts, names) if inputs else None
     lo_levels = _levels(part, merge_segments(lo_lines), n_pts, names) if lo_lines else None
@@ -194,16 +229,20 @@ def _evaluate_sorted(
         "noise_figure_db": lo_prep.noise_figure_db,
         "lo_grid_n": float(lo_prep.factor.grid_n),
     }
+    grid_notes: dict[tuple[tuple[int, ...], bool], dict[str, float]] = {}  # per grid
+    for shape, converged in set(shapes):
+        grid_notes[shape, converged] = {
+            "rf_grid_points": float(math.prod(shape)),
+            "rf_grid_n_max": float(max(shape, default=1)),
+            "grid_converged": float(converged and lo_prep.factor.converged),
+        }
     responses: list[MixerResponse | None] = []
-    for i in range(n_pts):
-        if not has_core[i]:
+    for i, has in enumerate(has_core.tolist()):
+        if not has:
             responses.append(None)
             continue
-        shape, converged = shapes[i]
         notes = dict(common)
-        notes["rf_grid_points"] = float(math.prod(shape))
-        notes["rf_grid_n_max"] = float(max(shape, default=1))
-        notes["grid_converged"] = float(converged and lo_prep.factor.converged)
+        notes.update(grid_notes[shapes[i]])
         responses.append(MixerResponse(
             if_port=output[i],
             rf_port=input_levels[i] if input_levels is not None else empty,
@@ -238,31 +277,70 @@ def _sorted_table(
     return freq, li, pi, zero, band
 
 
+@dataclass(frozen=True)
+class _TableFactors:
+    """The LO factor read along a sorted table (see :func:`_sorted_table`) for one LO
+    factor, tail current and LO phase: ``abs_s``/``abs_d`` (|S_m|, |D_m| of each entry's
+    LO order), ``s``/``d`` (S_m·I_EE, D_m·I_EE turned by the LO phase), ``codes`` (the
+    entry's order tuple in :func:`combo_tuples`' flat table), ``zero_at`` (the entries of
+    RF order zero), ``positive`` (the entries above the merge tolerance in frequency)."""
+
+    factor: LoFactor
+    i_ee_a: float
+    lo_phase_rad: float
+    abs_s: NDArray[np.float64]
+    abs_d: NDArray[np.float64]
+    s: NDArray[np.complex128]
+    d: NDArray[np.complex128]
+    codes: NDArray[np.intp]
+    zero_at: NDArray[np.intp]
+    positive: NDArray[np.bool_]
+
+
+def _table_factors(
+    part: MixerPart, key: tuple[Any, ...], table: tuple[NDArray, ...], fac: LoFactor,
+    s: NDArray[np.complex128], d: NDArray[np.complex128], i_ee: float, lo_phase: float,
+    n_rf_orders: int,
+) -> _TableFactors:
+    """:class:`_TableFactors` of a table, cached beside it while the LO factor, tail current
+    and LO phase stay (a power sweep's points share them)."""
+    pkey = ("factors", key)
+    prep = part._tables.get(pkey)
+    if (prep is not None and prep.factor is fac and prep.i_ee_a == i_ee
+            and prep.lo_phase_rad == lo_phase):
+        return prep
+    freq_u, li_u, pi_u, zero_u, _ = table
+    codes = (fac.orders + part.max_lo_order)[li_u] * n_rf_orders + pi_u
+    prep = _TableFactors(fac, i_ee, lo_phase, fac.abs_s[li_u], fac.abs_d[li_u], s[li_u],
+                         d[li_u], codes, zero_u.nonzero()[0], freq_u > MERGE_TOL_HZ)
+    part._remember_table(pkey, prep)
+    return prep
+
+
 def _entries_within(
-    abs_x: NDArray[np.float64], fac: LoFactor, table: tuple[NDArray, ...], limit: float,
-    near_limit: float,
-) -> tuple[NDArray[np.intp], NDArray[np.intp]]:
-    """The entries of a sorted table (see :func:`_sorted_table`) that the rows of
-    ``abs_x`` (|X_n|, shape (points, R)) make into lines: bound above ``limit``, frequency
-    above the merge tolerance, bound through the band edges at least ``near_limit``; as
-    (row, entry) index arrays."""
-    freq_u, li_u, pi_u, zero_u, band_u = table
-    bound = abs_x[:, pi_u]
-    bound *= fac.abs_s[li_u]
+    abs_x: NDArray[np.float64], fac: LoFactor, table: tuple[NDArray, ...],
+    prep: _TableFactors, limit: float, near_limit: float,
+) -> NDArray[np.intp]:
+    """The entries of a sorted table (see :func:`_sorted_table`) that a point with
+    |X_n| = ``abs_x`` (shape (R,)) makes into lines: bound above ``limit``, frequency
+    above the merge tolerance, bound through the band edges at least ``near_limit``."""
+    _, _, pi_u, _, band_u = table
+    bound = abs_x[pi_u]
+    bound *= prep.abs_s
     if fac.has_d:
-        bound[:, zero_u] += fac.abs_d[li_u[zero_u]]
+        bound[prep.zero_at] += prep.abs_d[prep.zero_at]
     ok = bound > limit
-    ok &= freq_u > MERGE_TOL_HZ
+    ok &= prep.positive
     if band_u is not None:
         bound *= band_u
         ok &= bound >= near_limit
-    return ok.nonzero()
+    return ok.nonzero()[0]
 
 
 def _combine(
     part: MixerPart, lo_prep: _LoPrepared, lo: ToneInput | None, state: _OpState,
     x: NDArray[np.complex128], freqs: NDArray[np.float64], phases: NDArray[np.float64],
-    names: _Names,
+    rows: list[tuple[tuple[float, ...], list[int]]], names: _Names,
 ) -> RaggedLines:
     """:func:`~sweeprig.sim.mixer.multitone.combine` for every point (rows of ``x``), with
     the part's pruning limit, scaled to sqrt(W) at the output port and through its band
@@ -295,12 +373,10 @@ def _combine(
         s, d = s * turn, d * turn
     if phases.any():
         x = x * np.exp(1j * (phases @ orders.T.astype(float)))
-    rows: dict[tuple[float, ...], list[int]] = {}
-    for i, row in enumerate(map(tuple, freqs.tolist())):
-        rows.setdefault(row, []).append(i)
+    table = combo_tuples(part.max_lo_order, freqs.shape[1], part.max_rf_order)
     parts = []
     next_point = 0
-    for row, point_list in rows.items():
+    for row, point_list in rows:
         if point_list != list(range(next_point, next_point + len(point_list))):
             raise ValueError("points with equal tone frequencies must be consecutive")
         next_point += len(point_list)
@@ -311,207 +387,292 @@ def _combine(
             table_u = _sorted_table(fac.orders, lo_freq, rf_f[point_list[0]], n_orders,
                                     out if banded else None)
             part._remember_table(key, table_u)
-        freq_u, li_u, pi_u, zero_u, band_u = table_u
+        freq_u, _, pi_u, _, band_u = table_u
+        prep = _table_factors(part, key, table_u, fac, s, d, i_ee, lo_phase, table.shape[1])
         ax = abs_x[members]
         # the table entries that the strongest of these points could make (each point's
         # bound is at most the bound of the largest |X_n| among them: rounding is monotone)
-        cand = _entries_within(ax.max(axis=0)[None, :], fac, table_u, limit, near_limit)[1]
-        bound = ax[:, pi_u[cand]]
-        bound *= fac.abs_s[li_u[cand]]
+        cand = _entries_within(ax.max(axis=0), fac, table_u, prep, limit, near_limit)
+        pc = pi_u[cand]
+        bound = ax[:, pc]
+        bound *= prep.abs_s[cand]
         if fac.has_d:
-            zero_c = zero_u[cand]
-            bound[:, zero_c] += fac.abs_d[li_u[cand][zero_c]]
+            zero_c = (pc == 0).nonzero()[0]
+            if zero_c.size:
+                bound[:, zero_c] += prep.abs_d[cand[zero_c]]
         ok = bound > limit
         if band_u is not None:
             bound *= band_u[cand]
             ok &= bound >= near_limit
         pp, jj = ok.nonzero()
         j = cand[jj]
-        parts.append((members[pp], freq_u[j], li_u[j], pi_u[j],
+        seg_g = members[pp]
+        pi_g = pc[jj]
+        amp_g = prep.s[j] * x[seg_g, pi_g]
+        if fac.has_d:
+            at_zero = (pi_g == 0).nonzero()[0]
+            if at_zero.size:
+                amp_g[at_zero] += prep.d[j[at_zero]]
+        parts.append((seg_g, freq_u[j], amp_g, prep.codes[j],
                       band_u[j] if band_u is not None else None))
     # the groups are runs of consecutive points (evaluate_group put them so): joined, the
     # lines are in point order, each point's in frequency order (its table's)
-    seg, freq, li, pi = (np.concatenate([p[c] for p in parts]) for c in range(4))
+    seg, freq, amp, codes = (np.concatenate([p[c] for p in parts]) for c in range(4))
     band = np.concatenate([p[4] for p in parts]) if banded else None
-    amp = s[li] * x[seg, pi]
-    if fac.has_d:
-        at_zero = (pi == 0).nonzero()[0]
-        if at_zero.size:
-            amp[at_zero] += d[li[at_zero]]
     amp *= state.out_scale
     if band is not None:
         amp *= band
         keep = (amp.real * amp.real + amp.imag * amp.imag) >= state.prefloor_w
         if not keep.all():
-            seg, li, pi, freq, amp = seg[keep], li[keep], pi[keep], freq[keep], amp[keep]
-    table = combo_tuples(part.max_lo_order, freqs.shape[1], part.max_rf_order)
-    codes = (fac.orders + part.max_lo_order)[li] * table.shape[1] + pi
+            seg, freq, amp, codes = seg[keep], freq[keep], amp[keep], codes[keep]
     codes += names.add(table.ravel())
     return RaggedLines(seg, freq, amp, codes)
 
 
 def _common_mode(
-    part: MixerPart, state: _OpState, freqs: NDArray[np.float64],
-    phases: NDArray[np.float64], tone_amps: list[NDArray[np.float64]], imbalance: float,
-    n_axes: int, names: _Names,
+    part: MixerPart, state: _OpState, sets: Sequence[tuple[ToneInput, ...]],
+    freqs: NDArray[np.float64], phases: NDArray[np.float64], v: NDArray[np.float64],
+    imbalance: float, n_axes: int, names: _Names,
 ) -> RaggedLines | None:
-    """The common-mode IM2 lines of every point, at the output port (sqrt(W))."""
+    """The common-mode IM2 lines of every point, at the output port (sqrt(W)); ``v``: the
+    input components at the core (:func:`_tone_amplitudes`)."""
     cell = state.cell
-    layout = tuple(a.shape[1] for a in tone_amps)
+    tone, mult, _, _, spans = _column_layout(sweep_signature(sets[0]))
+    layout = tuple(b - a for a, b in spans)
     a_v = 2.0 * cell.vt_v + cell.i_ee_a * cell.r_e_ohm
-    mults = [np.arange(1, n + 1, dtype=float) for n in layout]
-    f = np.concatenate([freqs[:, k, None] * m for k, m in enumerate(mults)], axis=1)
-    v = np.concatenate(tone_amps, axis=1)
-    ph = np.concatenate([phases[:, k, None] * m for k, m in enumerate(mults)], axis=1)
+    f = freqs[:, tone]
+    f *= mult
+    ph = phases[:, tone]
+    ph *= mult
     cm = common_mode_im2_rows(f, v, ph, layout, n_axes, cell.i_ee_a, a_v,
                                part.cm_second_order, imbalance)
     if cm is None:
         return None
-    seg, freq, amp, orders = cm
+    seg, freq, amp, codes, orders = cm
     amp = amp * state.out_scale
     out = part.output_port
     if out.highpass_hz is not None or out.lowpass_hz is not None:
         amp = amp * out.magnitude(freq)
-    return RaggedLines(seg, freq, amp, names.add(orders) + np.arange(orders.size))
+    codes += names.add(orders)
+    return RaggedLines(seg, freq, amp, codes)
 
 
-def _tone_rows(
-    freq: NDArray[np.float64], power: NDArray[np.float64], phase: NDArray[np.float64],
-    harmonics_dbc: tuple[float, ...], axis: int, n_axes: int, loss_db: float,
-    path: LeakPhase | None = None, slope: tuple[float, float] = (0.0, 1.0),
-) -> tuple[NDArray[np.float64], NDArray[np.complex128], NDArray[np.object_]]:
-    """The part's ``_tone_entries`` for one tone position at every point: frequencies and
-    sqrt(W) amplitudes, shape (P, 1 + harmonics), and the orders of the columns."""
+@dataclass(frozen=True)
+class _LeakLayout:
+    """Where the linear paths' lines of one kind of point sit (see :func:`_leak_layout`).
+
+    ``specs``: the tone paths (loss dB, path phase, slope), each over every tone and its
+    harmonics; the columns of their lines, path after path, tone after tone, harmonic after
+    harmonic: ``tone`` (tone index), ``root`` (index of the (path, tone) fundamental level),
+    ``mult`` (the harmonic's multiple, float), ``rel`` (the harmonic's level relative to
+    the fundamental through the path, as the one-point path computes it). ``turn``: the
+    columns whose path turns the phase, with that path's offset and delay per column.
+    ``ports``: per port (output, input, LO), its blocks in the one-point path's order:
+    ``("tones", first, stop)`` (columns of the tone paths) or ``("lo", path name)``."""
+
+    specs: tuple[tuple[float, LeakPhase | None, tuple[float, float]], ...]
+    tone: NDArray[np.intp]
+    root: NDArray[np.intp]
+    mult: NDArray[np.float64]
+    rel: NDArray[np.float64]
+    orders: NDArray[np.object_]
+    turn: NDArray[np.intp]
+    turn_phase: NDArray[np.float64]
+    turn_delay: NDArray[np.float64]
+    ports: tuple[tuple[tuple[Any, ...], ...], ...]
+
+
+def _leak_layout(part: MixerPart, harmonics: tuple[tuple[float, ...], ...], has_lo: bool,
+                 n_axes: int) -> _LeakLayout:
+    """The columns of the linear paths' lines for points whose tones carry ``harmonics``
+    (dBc per tone), cached per part: the paths and their order are the one-point path's
+    (``MixerPart._evaluate``)."""
     from sweeprig.sim.mixer.part import _unit_orders
 
-    mult = np.arange(1, 2 + len(harmonics_dbc), dtype=float)
-    loss = np.full(freq.shape, loss_db)
-    extra = np.zeros(mult.size)
-    if slope[0]:
-        loss = loss_db + slope[0] * np.log2(freq / slope[1])
-        extra[1:] = [slope[0] * math.log2(h) for h in range(2, 2 + len(harmonics_dbc))]
-    root_w = 10.0 ** ((power - loss - 30.0) / 20.0)
-    rel = np.ones(mult.size)
-    rel[1:] = [10.0 ** ((dbc - e) / 20.0) for dbc, e in zip(harmonics_dbc, extra[1:],
-                                                           strict=True)]
-    mag = root_w[:, None] * rel[None, :]
-    mag[:, 0] = root_w
-    ang = phase[:, None] * mult[None, :]
+    key = ("leak-layout", harmonics, has_lo, n_axes)
+    layout = part._cache.get(key)
+    if layout is not None:
+        return layout
+    phs = part.leakage_phases
+    specs: list[tuple[float, LeakPhase | None, tuple[float, float]]] = []
+    tone, root, mult, rel, orders = [], [], [], [], []
+    turn, turn_phase, turn_delay = [], [], []
+
+    def tone_block(loss_db: float, path: LeakPhase | None,
+                   slope: tuple[float, float] = (0.0, 1.0)) -> tuple[str, int, int]:
+        first = len(tone)
+        s = len(specs)
+        specs.append((loss_db, path, slope))
+        turns = path is not None and (path.phase_rad or path.delay_s)
+        for k, dbcs in enumerate(harmonics):
+            extra = [slope[0] * math.log2(h) for h in range(2, 2 + len(dbcs))] if slope[0] \
+                else [0.0] * len(dbcs)
+            levels = [1.0] + [10.0 ** ((dbc - e) / 20.0) for dbc, e in zip(dbcs, extra,
+                                                                             strict=True)]
+            for h, level in enumerate(levels, start=1):
+                if turns:
+                    turn.append(len(tone))
+                    turn_phase.append(path.phase_rad)  # type: ignore[union-attr]
+                    turn_delay.append(path.delay_s)  # type: ignore[union-attr]
+                tone.append(k)
+                root.append(s * len(harmonics) + k)
+                mult.append(float(h))
+                rel.append(level)
+                orders.append(_unit_orders(n_axes, 1 + k, h))
+        return ("tones", first, len(tone))
+
+    output: list[tuple[Any, ...]] = []
+    inputs: list[tuple[Any, ...]] = []
+    lo_port: list[tuple[Any, ...]] = []
+    if part.isolation_rf_if_db is not None:
+        output.append(tone_block(part.isolation_rf_if_db, phs.rf_to_if,
+                                 part._iso_slope("rf_if")))
+    if has_lo and part.isolation_lo_to_output_db is not None:
+        output.append(("lo", "output"))
+    if has_lo and part.isolation_lo_to_input_db is not None:
+        inputs.append(("lo", "input"))
+    if part.input_port.return_loss_db is not None:
+        inputs.append(tone_block(part.input_port.return_loss_db, phs.input_reflection))
+    if has_lo and part.lo_port.return_loss_db is not None:
+        lo_port.append(("lo", "reflection"))
+    if part.isolation_rf_lo_db is not None:
+        lo_port.append(tone_block(part.isolation_rf_lo_db, phs.rf_to_lo,
+                                  part._iso_slope("rf_lo")))
+    object_orders = np.empty(len(orders), dtype=object)
+    object_orders[:] = orders
+    layout = _LeakLayout(
+        tuple(specs), np.array(tone, dtype=np.intp), np.array(root, dtype=np.intp),
+        np.array(mult, dtype=float), np.array(rel, dtype=float), object_orders,
+        np.array(turn, dtype=np.intp), np.array(turn_phase, dtype=float),
+        np.array(turn_delay, dtype=float), (tuple(output), tuple(inputs), tuple(lo_port)))
+    part._remember(key, layout)
+    return layout
+
+
+def _tone_path_lines(
+    layout: _LeakLayout, freqs: NDArray[np.float64], powers: NDArray[np.float64],
+    phases: NDArray[np.float64],
+) -> tuple[NDArray[np.float64], NDArray[np.complex128]]:
+    """The part's ``_tone_entries`` of every tone path, tone and harmonic at every point
+    (the columns of ``layout``): frequencies and sqrt(W) amplitudes, shape (P, columns).
+    Element by element the one-point path's arithmetic (the fundamental's level through
+    each path, the harmonics' relative levels, phases h·φ, the path's turn)."""
+    n_tones = freqs.shape[1]
+    loss = np.empty((freqs.shape[0], len(layout.specs) * n_tones))
+    for s, (loss_db, _, slope) in enumerate(layout.specs):
+        block = loss[:, s * n_tones : (s + 1) * n_tones]
+        if slope[0]:
+            block[...] = loss_db + slope[0] * np.log2(freqs / slope[1])
+        else:
+            block[...] = loss_db
+    root_w = 10.0 ** ((np.tile(powers, len(layout.specs)) - loss - 30.0) / 20.0)
+    mag = root_w[:, layout.root]
+    mag *= layout.rel
+    ang = phases[:, layout.tone]
+    ang *= layout.mult
     amp = mag * np.cos(ang) + 1j * (mag * np.sin(ang))
-    f = freq[:, None] * mult[None, :]
-    f[:, 0] = freq
-    if path is not None and (path.phase_rad or path.delay_s):
-        amp *= np.exp(1j * (path.phase_rad - 2.0 * math.pi * f * path.delay_s))
-    orders = np.empty(mult.size, dtype=object)
-    orders[:] = [_unit_orders(n_axes, axis, h) for h in range(1, mult.size + 1)]
-    return f, amp, orders
+    f = freqs[:, layout.tone]
+    f *= layout.mult
+    if layout.turn.size:
+        amp[:, layout.turn] *= np.exp(1j * (layout.turn_phase - 2.0 * math.pi
+                                            * f[:, layout.turn] * layout.turn_delay))
+    return f, amp
 
 
-def _rows_to_ragged(
-    rows: list[tuple[NDArray[np.float64], NDArray[np.complex128], NDArray[np.object_]]],
-    n_pts: int, names: _Names,
-) -> RaggedLines:
-    """Per-point blocks of lines (each (P, n) frequencies and amplitudes, n orders) → one
-    ragged set, each point's lines in the blocks' order."""
-    freq = np.concatenate([r[0] for r in rows], axis=1)
-    amp = np.concatenate([r[1] for r in rows], axis=1)
-    orders = np.concatenate([r[2] for r in rows])
-    width = orders.size
-    codes = names.add(orders) + np.arange(width)
-    return RaggedLines(np.repeat(np.arange(n_pts), width), freq.ravel(), amp.ravel(),
-                       np.tile(codes, n_pts))
+def _lo_path_entries(part: MixerPart, lo: ToneInput, n_axes: int, which: str) -> list[Any]:
+    """The LO's own lines through one of its linear paths (``which``: ``"output"``,
+    ``"input"`` or ``"reflection"``), as the one-point path makes them."""
+    from sweeprig.sim.mixer.part import _tone_entries
+
+    phs = part.leakage_phases
+    down = part.conversion == "down"
+    if which == "output":
+        return _tone_entries(lo, 0, n_axes, part.isolation_lo_to_output_db,  # type: ignore[arg-type]
+                             phs.lo_to_if if down else phs.lo_to_rf,
+                             part._iso_slope("lo_if" if down else "lo_rf"))
+    if which == "input":
+        return _tone_entries(lo, 0, n_axes, part.isolation_lo_to_input_db,  # type: ignore[arg-type]
+                             phs.lo_to_rf if down else phs.lo_to_if,
+                             part._iso_slope("lo_rf" if down else "lo_if"))
+    return _tone_entries(lo, 0, n_axes, part.lo_port.return_loss_db,  # type: ignore[arg-type]
+                         phs.lo_reflection)
 
 
-def _fixed_rows(
-    entries: list[tuple[float, complex, tuple[int, ...]]], n_pts: int,
-) -> tuple[NDArray[np.float64], NDArray[np.complex128], NDArray[np.object_]]:
-    """Lines common to every point (the LO's own paths) as a block of rows."""
-    orders = np.empty(len(entries), dtype=object)
-    orders[:] = [e[2] for e in entries]
-    freq = np.array([e[0] for e in entries], dtype=float)
-    amp = np.array([e[1] for e in entries], dtype=complex)
-    return np.tile(freq, (n_pts, 1)), np.tile(amp, (n_pts, 1)), orders
-
-
-def _tone_blocks(
-    part: MixerPart, sets: Sequence[tuple[ToneInput, ...]], freqs: NDArray[np.float64],
-    powers: NDArray[np.float64], phases: NDArray[np.float64], n_axes: int, loss_db: float,
-    path: LeakPhase | None, slope: tuple[float, float] = (0.0, 1.0),
-) -> list[tuple[NDArray[np.float64], NDArray[np.complex128], NDArray[np.object_]]]:
-    return [_tone_rows(freqs[:, k], powers[:, k], phases[:, k], sets[0][k].harmonics_dbc,
-                       1 + k, n_axes, loss_db, path, slope)
-            for k in range(freqs.shape[1])]
-
-
-def _output_leaks(
+def _leak_lines(
     part: MixerPart, lo: ToneInput | None, sets: Sequence[tuple[ToneInput, ...]],
     freqs: NDArray[np.float64], powers: NDArray[np.float64], phases: NDArray[np.float64],
     n_axes: int, names: _Names,
-) -> RaggedLines | None:
-    """The linear paths into the output port (input→output, LO→output), in the order the
-    one-point path adds them."""
-    from sweeprig.sim.mixer.part import _tone_entries
-
-    phs = part.leakage_phases
-    rows = []
-    iso = part.isolation_rf_if_db
-    if iso is not None:
-        rows += _tone_blocks(part, sets, freqs, powers, phases, n_axes, iso, phs.rf_to_if,
-                             part._iso_slope("rf_if"))
-    iso = part.isolation_lo_to_output_db
-    if lo is not None and iso is not None:
-        path = phs.lo_to_if if part.conversion == "down" else phs.lo_to_rf
-        rows.append(_fixed_rows(_tone_entries(lo, 0, n_axes, iso, path, part._iso_slope(
-            "lo_if" if part.conversion == "down" else "lo_rf")), len(sets)))
-    return _rows_to_ragged(rows, len(sets), names) if rows else None
-
-
-def _port_leaks(
-    part: MixerPart, lo: ToneInput | None, freqs: NDArray[np.float64],
-    powers: NDArray[np.float64], phases: NDArray[np.float64],
-    sets: Sequence[tuple[ToneInput, ...]], n_axes: int, names: _Names,
-) -> tuple[RaggedLines | None, RaggedLines | None]:
-    """The lines leaving the input port (LO→input, the input reflection) and the LO port
-    (its reflection, input→LO) of every point, unmerged."""
-    from sweeprig.sim.mixer.part import _tone_entries
-
-    phs = part.leakage_phases
+) -> tuple[RaggedLines | None, RaggedLines | None, RaggedLines | None]:
+    """The linear paths' lines of every point, unmerged, at the output port (input→output,
+    LO→output), the input port (LO→input, the input reflection) and the LO port (its
+    reflection, input→LO), each point's in the order the one-point path adds them; None
+    for a port with no path."""
+    layout = _leak_layout(part, sweep_signature(sets[0]), lo is not None, n_axes)
     n_pts = len(sets)
-    inp = part.input_port
-    in_rows = []
-    iso = part.isolation_lo_to_input_db
-    if lo is not None and iso is not None:
-        path = phs.lo_to_rf if part.conversion == "down" else phs.lo_to_if
-        in_rows.append(_fixed_rows(_tone_entries(lo, 0, n_axes, iso, path, part._iso_slope(
-            "lo_rf" if part.conversion == "down" else "lo_if")), n_pts))
-    if inp.return_loss_db is not None:
-        in_rows += _tone_blocks(part, sets, freqs, powers, phases, n_axes,
-                                inp.return_loss_db, phs.input_reflection)
-    lo_rows = []
-    if lo is not None and part.lo_port.return_loss_db is not None:
-        lo_rows.append(_fixed_rows(_tone_entries(lo, 0, n_axes, part.lo_port.return_loss_db,
-                                                 phs.lo_reflection), n_pts))
-    iso = part.isolation_rf_lo_db
-    if iso is not None:
-        lo_rows += _tone_blocks(part, sets, freqs, powers, phases, n_axes, iso, phs.rf_to_lo,
-                                part._iso_slope("rf_lo"))
-    return (_rows_to_ragged(in_rows, n_pts, names) if in_rows else None,
-            _rows_to_ragged(lo_rows, n_pts, names) if lo_rows else None)
+    f_tones, amp_tones = (None, None) if not layout.specs else _tone_path_lines(
+        layout, freqs, powers, phases)
+    out: list[RaggedLines | None] = []
+    for blocks in layout.ports:
+        if not blocks:
+            out.append(None)
+            continue
+        pieces = []
+        for block in blocks:
+            if block[0] == "tones":
+                pieces.append((block[1], block[2], None))
+            else:
+                key = ("lo-path", lo, n_axes, block[1])
+                entries = part._cache.get(key)
+                if entries is None:
+                    entries = _lo_path_entries(part, lo, n_axes, block[1])  # type: ignore[arg-type]
+                    part._remember(key, entries)
+                pieces.append((0, 0, entries))
+        width = sum(b - a if e is None else len(e) for a, b, e in pieces)
+        freq = np.empty((n_pts, width))
+        amp = np.empty((n_pts, width), dtype=complex)
+        orders = np.empty(width, dtype=object)
+        at = 0
+        for a, b, entries in pieces:
+            if entries is None:
+                freq[:, at : at + b - a] = f_tones[:, a:b]  # type: ignore[index]
+                amp[:, at : at + b - a] = amp_tones[:, a:b]  # type: ignore[index]
+                orders[at : at + b - a] = layout.orders[a:b]
+                at += b - a
+            else:
+                n = len(entries)
+                freq[:, at : at + n] = [e[0] for e in entries]
+                amp[:, at : at + n] = [e[1] for e in entries]
+                orders[at : at + n] = [e[2] for e in entries]
+                at += n
+        seg, column = _grid_indices(n_pts, width)
+        out.append(RaggedLines(seg, freq.ravel(), amp.ravel(), column + names.add(orders)))
+    return out[0], out[1], out[2]
+
+
+@lru_cache(maxsize=64)
+def _grid_indices(n_pts: int, width: int) -> tuple[NDArray[np.intp], NDArray[np.intp]]:
+    """The point and the column of every element of a (points, width) block read row by
+    row (read-only, shared by the calls of one size)."""
+    seg = np.repeat(np.arange(n_pts), width)
+    column = np.tile(np.arange(width), n_pts)
+    for arr in (seg, column):
+        arr.flags.writeable = False
+    return seg, column
 
 
 def _levels(part: MixerPart, lines: RaggedLines, n_pts: int,
-            names: _Names) -> list[PortLevels]:
+            names: _Names) -> list[PortSlice]:
     """Sorted, merged lines of every point (orders as codes of ``names``) → each point's
-    lines above the floor (dBm)."""
+    lines above the floor (dBm), as slices of arrays the points share."""
     power_w = lines.amp.real**2 + lines.amp.imag**2
     keep = power_w >= 1e-3 * 10.0 ** (part.floor_dbm / 10.0)  # as part._levels
     keep &= power_w > 0.0
+    seg, freq, codes = lines.seg, lines.freq_hz, lines.orders
     if not keep.all():
-        power_w = power_w[keep]
-        lines = lines.take(keep)
+        power_w, seg, freq, codes = power_w[keep], seg[keep], freq[keep], codes[keep]
     power_dbm = 10.0 * np.log10(power_w * 1e3)
-    at = lines.bounds(n_pts).tolist()
-    freq, orders = lines.freq_hz, names[lines.orders]
-    return [PortLevels(freq[a:b], power_dbm[a:b], orders[a:b])
+    at = np.searchsorted(seg, np.arange(n_pts + 1)).tolist()
+    table = names.table()
+    new = tuple.__new__
+    return [new(PortSlice, (freq, power_dbm, codes, table, a, b))
             for a, b in itertools.pairwise(at)]
-

@@ -55,16 +55,61 @@ class Product(NamedTuple):
     orders: tuple[int, ...]
 
 
-@dataclass(frozen=True, eq=False)
 class PortLevels:
     """Lines at one port as arrays, sorted by frequency: ``freq_hz`` (Hz), ``power_dbm``
     (dBm into a matched 50 ohm load) and ``orders`` (an object array of order tuples, as
     :class:`Product`). What the model computes; the :class:`Product` tuples are made from it
-    only when someone reads them (a response holds hundreds of lines)."""
+    only when someone reads them (a response holds hundreds of lines).
 
+    Immutable. The sweep path gives the orders as integer codes into a table of order
+    tuples (:meth:`coded`); the object array is made on first reading of ``orders``
+    (the simulated bench reads frequencies and powers only)."""
+
+    __slots__ = ("_codes", "_orders", "_table", "freq_hz", "power_dbm")
     freq_hz: NDArray[np.float64]
     power_dbm: NDArray[np.float64]
-    orders: NDArray[np.object_]
+
+    def __init__(self, freq_hz: NDArray[np.float64], power_dbm: NDArray[np.float64],
+                 orders: NDArray[np.object_]) -> None:
+        init = object.__setattr__
+        init(self, "freq_hz", freq_hz)
+        init(self, "power_dbm", power_dbm)
+        init(self, "_orders", orders)
+        init(self, "_codes", None)
+        init(self, "_table", None)
+
+    @classmethod
+    def coded(cls, freq_hz: NDArray[np.float64], power_dbm: NDArray[np.float64],
+              codes: NDArray[np.intp], table: NDArray[np.object_]) -> PortLevels:
+        """Lines whose orders are ``table[codes]`` (made when first read)."""
+        levels = cls.__new__(cls)
+        init = object.__setattr__
+        init(levels, "freq_hz", freq_hz)
+        init(levels, "power_dbm", power_dbm)
+        init(levels, "_orders", None)
+        init(levels, "_codes", codes)
+        init(levels, "_table", table)
+        return levels
+
+    @property
+    def orders(self) -> NDArray[np.object_]:
+        orders = self._orders
+        if orders is None:
+            orders = self._table[self._codes]  # type: ignore[index]
+            object.__setattr__(self, "_orders", orders)
+            object.__setattr__(self, "_codes", None)
+            object.__setattr__(self, "_table", None)
+        return orders
+
+    def __setattr__(self, name: str, value: object) -> None:
+        raise AttributeError(f"PortLevels is immutable: cannot set {name!r}")
+
+    def __reduce__(self) -> tuple[type[PortLevels], tuple[object, ...]]:
+        """Copies and pickles rebuild the lines through the constructor."""
+        return (PortLevels, (self.freq_hz, self.power_dbm, self.orders))
+
+    def __repr__(self) -> str:
+        return f"PortLevels({self.freq_hz.size} lines)"
 
     def products(self) -> tuple[Product, ...]:
         """The lines as :class:`Product` tuples."""
@@ -79,6 +124,20 @@ class PortLevels:
         orders[:] = [p[2] for p in products]
         return PortLevels(np.fromiter((p[0] for p in products), float, n),
                           np.fromiter((p[1] for p in products), float, n), orders)
+
+
+class PortSlice(tuple):  # type: ignore[type-arg]
+    """One point's lines inside arrays shared by the points of a sweep (the sweep path's
+    output): ``(freq_hz, power_dbm, codes, table, start, stop)``; a response makes its
+    :class:`PortLevels` from it when the port is first read (a tuple: a few hundred of
+    these per call cost less than as many :class:`PortLevels`)."""
+
+    __slots__ = ()
+
+    def levels(self) -> PortLevels:
+        """The point's lines as :class:`PortLevels` (views into the shared arrays)."""
+        freq, power, codes, table, start, stop = self
+        return PortLevels.coded(freq[start:stop], power[start:stop], codes[start:stop], table)
 
 
 _new_product = partial(tuple.__new__, Product)  # Product from a (freq, power, orders) tuple
@@ -96,9 +155,10 @@ class MixerResponse:
     ``if_noise_dbm_per_hz``: output noise density at the IF port (flat over the IF band).
     ``supply_current_a``: DC current drawn from the supply.
 
-    Each port is given as a tuple of :class:`Product` or as :class:`PortLevels` arrays; the
-    port attributes always read as tuples of products (made once, on first reading), and
-    :meth:`levels` reads a port as arrays without making them.
+    Each port is given as a tuple of :class:`Product`, as :class:`PortLevels` arrays or as
+    a :class:`PortSlice` of a sweep's arrays (made into :class:`PortLevels` on first
+    reading); the port attributes always read as tuples of products (made once, on first
+    reading), and :meth:`levels` reads a port as arrays without making them.
     """
 
     __slots__ = ("_given", "_made", "if_noise_dbm_per_hz", "notes", "supply_current_a")
@@ -108,9 +168,9 @@ class MixerResponse:
 
     def __init__(
         self,
-        if_port: tuple[Product, ...] | PortLevels,
-        rf_port: tuple[Product, ...] | PortLevels = (),
-        lo_port: tuple[Product, ...] | PortLevels = (),
+        if_port: tuple[Product, ...] | PortLevels | PortSlice,
+        rf_port: tuple[Product, ...] | PortLevels | PortSlice = (),
+        lo_port: tuple[Product, ...] | PortLevels | PortSlice = (),
         if_noise_dbm_per_hz: float = -174.0,
         supply_current_a: float = 0.0,
         notes: dict[str, float] | None = None,
@@ -125,8 +185,15 @@ class MixerResponse:
     def __setattr__(self, name: str, value: object) -> None:
         raise AttributeError(f"MixerResponse is immutable: cannot set {name!r}")
 
-    def _port(self, name: str) -> tuple[Product, ...]:
+    def _resolved(self, name: str) -> tuple[Product, ...] | PortLevels:
+        """A port as given, a :class:`PortSlice` made into its :class:`PortLevels`."""
         given = self._given[name]
+        if type(given) is PortSlice:
+            given = self._given[name] = given.levels()
+        return given
+
+    def _port(self, name: str) -> tuple[Product, ...]:
+        given = self._resolved(name)
         if not isinstance(given, PortLevels):
             return given
         made = self._made.get(name)
@@ -149,7 +216,7 @@ class MixerResponse:
     def levels(self, port: str) -> PortLevels:
         """A port's lines as arrays (``port``: ``"if_port"``, ``"rf_port"`` or
         ``"lo_port"``)."""
-        given = self._given[port]
+        given = self._resolved(port)
         return given if isinstance(given, PortLevels) else PortLevels.of(given)
 
     def __eq__(self, other: object) -> bool:
@@ -164,8 +231,8 @@ class MixerResponse:
 
     def __reduce__(self) -> tuple[type[MixerResponse], tuple[object, ...]]:
         """Copies and pickles rebuild the response through its constructor."""
-        given = self._given
-        return (MixerResponse, (given["if_port"], given["rf_port"], given["lo_port"],
+        given = self._resolved
+        return (MixerResponse, (given("if_port"), given("rf_port"), given("lo_port"),
                                 self.if_noise_dbm_per_hz, self.supply_current_a, self.notes))
 
     def __repr__(self) -> str:
