@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import os
+import tempfile
 from datetime import date
 from pathlib import Path
 
@@ -18,6 +20,13 @@ settings.load_profile("sweeprig")
 
 # pytester checks the sequence-test plugin (tests/seqtest) with pytest's own machinery
 pytest_plugins = ["pytester"]
+
+
+#: Instrument locks of this test session (each process of it) in a folder of its own, for the
+#: fixtures that open instruments before a test's own folder is set (module- or
+#: session-scoped): else they would take the machine-wide folder's locks and collide with any
+#: other run on the same machine.
+os.environ["SWEEPRIG_LOCK_DIR"] = tempfile.mkdtemp(prefix="sweeprig-test-locks-")
 
 
 @pytest.fixture(autouse=True)
