@@ -18,7 +18,8 @@ the sweep workload about 470-530 sweeps/s; the part alone about 2,050 (clean sou
 1,590 (sources with harmonics) evaluations/s. After it (same machine, same hour): sweeps
 plain 580, realistic 470-500 (0.80-0.85 of plain, about 0.9-1.0 of before: the analyzer
 input and display are now reused between sweeps of one state); the part alone 1,690 and
-1,260 evaluations/s (0.83 and 0.79 of before). """
+1,260 evaluations/s (0.83 and 0.79 of before).
+"""
 
 from __future__ import annotations
 
