@@ -213,6 +213,7 @@ class PointBuilder:
         self._keep: Collection[int] = (range(self.layout.total) if self.keeps_all
                                        else frozenset(keep))
         self._kept: dict[int, Point] = {}
+        self._image_reading: dict[int, tuple[Study, object, bool]] = {}
 
     def point(self, index: int) -> Point:
         """The point with ``index`` and its planned readings (a kept one as built before)."""
@@ -228,6 +229,16 @@ class PointBuilder:
         """The point with ``index``, no longer kept once taken (built if it was not)."""
         kept = self._kept.pop(index, None)
         return kept if kept is not None else self._build(index)
+
+    def _reads_image(self, study: Study) -> bool:
+        """Whether ``study`` reads the image response (asked at every point: answered once
+        per study and ``read`` list, both kept with the answer so an id is never another
+        object's)."""
+        kept = self._image_reading.get(id(study))
+        if kept is None or kept[0] is not study or kept[1] is not study.read:
+            kept = (study, study.read, any(r.kind == "image" for r in study.readings()))
+            self._image_reading[id(study)] = kept
+        return kept[2]
 
     def _build(self, index: int) -> Point:
         lay = self.layout
@@ -246,7 +257,7 @@ class PointBuilder:
         p2 = p_rf if spacing is not None else None
         drive = Drive(f_lo, p_lo, f_rf, p_rf, f2, p2)
         study = block.study
-        if any(r.kind == "image" for r in study.readings()) and fp.image_hz(f_rf, f_lo) <= 0:
+        if self._reads_image(study) and fp.image_hz(f_rf, f_lo) <= 0:
             raise InputError(
                 f"point {index}: no image frequency (2·LO − RF = "
                 f"{fp.image_hz(f_rf, f_lo) / 1e6:g} MHz is not above 0)",

@@ -186,6 +186,13 @@ class ReadingPlanner:
             max(DEFAULT_PART_NOISE_FIGURE_DB, -self.gain_db + 3.0)
         self.on_risk = sequence.analyzer.on_risk
         self.defaults = sequence.analyzer
+        #: merged analyzer settings by (study layer, reading layer) (:meth:`_settings`)
+        self._merged: dict[tuple[int, int], tuple[AnalyzerSettings | None,
+                                                  AnalyzerSettings | None,
+                                                  AnalyzerSettings]] = {}
+        #: source-harmonic contributions on a line, dBc, by what they depend on
+        #: (:meth:`_relative_harmonic_dbc`)
+        self._relative_dbc: dict[tuple[object, ...], float] = {}
         zero = ConstantLoss(0.0)
         self.references = bench.references() if bench is not None else None
         self.losses: dict[str, PathLoss] = {
@@ -246,7 +253,7 @@ class ReadingPlanner:
         two = d.rf2_freq_hz is not None
         for spec in study.readings():
             base = spec.name or spec.kind
-            settings = _merge(self.defaults, study.analyzer, spec.analyzer)
+            settings = self._settings(study.analyzer, spec.analyzer)
             check = spec.attenuation_check if spec.attenuation_check is not None else \
                 study.attenuation_check  # None: automatic, from the predicted margin
             if spec.kind not in DISTORTION_KINDS:
@@ -370,6 +377,21 @@ class ReadingPlanner:
                                        offset_bound_hz=bound))
         return tuple(out)
 
+    def _settings(self, study_layer: AnalyzerSettings | None,
+                  reading_layer: AnalyzerSettings | None) -> AnalyzerSettings:
+        """A reading's merged analyzer settings (:func:`_merge` of the sequence's, the
+        study's and the reading's), merged once per pair of layers: the study's reading
+        tables are kept (:meth:`~sweeprig.formats.sequence.Study.readings`), so every point
+        asks with the very same objects (kept here with the result, so an id is never
+        another object's)."""
+        key = (id(study_layer), id(reading_layer))
+        kept = self._merged.get(key)
+        if kept is not None and kept[0] is study_layer and kept[1] is reading_layer:
+            return kept[2]
+        merged = _merge(self.defaults, study_layer, reading_layer)
+        self._merged[key] = (study_layer, reading_layer, merged)
+        return merged
+
     def _nearest_hz(self, port: str, d: Drive, retune_hz: float | None, freq_hz: float,
                     siblings_hz: list[float]) -> float:
         """Distance to the nearest other known line at ``port``, Hz (inf: none)."""
@@ -483,9 +505,17 @@ class ReadingPlanner:
         −inf for other ports, leakage lines (no RF order) and unknown orders."""
         if port != "if" or orders is None or not any(orders[1:]):
             return -math.inf
-        return mg.source_harmonic_relative_dbc(
-            abs(orders[0]), orders[1:], tuple(self.harmonics["lo"][0]),
-            self._harmonic_tones(d, retune_hz))
+        # it reads the orders and the tones' powers only (not their frequencies), so it is
+        # worked out once per orders and powers, not at every point of a frequency sweep
+        two = d.rf2_freq_hz is not None and d.rf2_power_dbm is not None
+        key = (abs(orders[0]), orders[1:], d.rf_power_dbm, d.rf2_power_dbm if two else None)
+        kept = self._relative_dbc.get(key)
+        if kept is None:
+            kept = mg.source_harmonic_relative_dbc(
+                abs(orders[0]), orders[1:], tuple(self.harmonics["lo"][0]),
+                self._harmonic_tones(d, retune_hz))
+            self._relative_dbc[key] = kept
+        return kept
 
     def _reference_dbm(self, kind: str, port: str, d: Drive, wanted_dbm: float) -> float:
         """Level that ``spur_floor`` counts down from, for a product of unknown level.
@@ -543,13 +573,24 @@ class ReadingPlanner:
         if math.isfinite(relative):  # on the product itself, whatever the RBW
             harm.append((0.0, product + relative))
 
+        # the attenuation search and the final setting ask the same questions again: each
+        # answer is worked out once per call (the same operations, so the same numbers)
+        distortion_seen: dict[tuple[float, float], float] = {}
+        rbw_seen: dict[float, float] = {}
+        fastest: list[float] = []
+
         def distortion_at(att: float, rbw: float) -> float:
+            seen = distortion_seen.get((att, rbw))
+            if seen is not None:
+                return seen
             if not d_level0.size:
-                return -math.inf
-            hit = d_off <= max(LANDS_RBW * rbw, mg.SAME_LINE_HZ)
-            if not hit.any():
-                return -math.inf
-            return float(power_sum_dbm(list(d_level0[hit] - (d_order[hit] - 1.0) * att)))
+                value = -math.inf
+            else:
+                hit = d_off <= max(LANDS_RBW * rbw, mg.SAME_LINE_HZ)
+                value = float(power_sum_dbm(list(d_level0[hit] - (d_order[hit] - 1.0) * att))) \
+                    if hit.any() else -math.inf
+            distortion_seen[(att, rbw)] = value
+            return value
 
         def harmonic_at(rbw: float) -> float:
             return power_sum_dbm([lv for o, lv in harm
@@ -558,15 +599,21 @@ class ReadingPlanner:
         def choose_rbw(att: float) -> float:
             if isinstance(s.rbw, float):
                 return s.rbw
+            seen = rbw_seen.get(att)
+            if seen is not None:
+                return seen
             need = product - defaults.noise_margin
             n_1hz = power_sum_dbm([mg.KT0_DBM_PER_HZ + spec.noise_figure_db + att,
                                    part_1hz, recip_1hz])
             rbw_max = 10.0 ** (min(need - n_1hz, 300.0) / 10.0)
             rbw_max = min(rbw_max, nearest / 10.0)
-            rbw = self._fastest_rbw(s, nearest)
+            if not fastest:  # the same for every attenuation
+                fastest.append(self._fastest_rbw(s, nearest))
+            rbw = fastest[0]
             for step in RBW_STEPS_HZ:
                 if rbw <= step <= rbw_max:
                     rbw = step
+            rbw_seen[att] = rbw
             return rbw
 
         def shortfall(att: float) -> tuple[float, float]:
