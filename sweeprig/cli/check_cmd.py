@@ -124,6 +124,12 @@ def check(
     accept_calibration: Annotated[bool, typer.Option(
         "--accept-calibration", help="accept an expired calibration")] = False,
 ) -> None:
+    from sweeprig.lazy import import_frozen
+
+    # what checking loads (the formats' models, the planner), loaded at once: see import_frozen
+    import_frozen("sweeprig.formats.bench", "sweeprig.formats.sequence", "sweeprig.plan.risks",
+                  "sweeprig.plan.preflight", "sweeprig.plan.spec_coverage",
+                  "sweeprig.engine.sim_specs")
     from sweeprig.plan.risks import summary_lines
 
     out = _out()

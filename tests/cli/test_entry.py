@@ -88,3 +88,22 @@ def test_the_app_is_imported_with_the_collector_paused_and_left_as_found() -> No
     finally:
         gc.enable()
         gc.unfreeze()
+
+
+def test_import_frozen_imports_freezes_and_leaves_the_collector_as_found() -> None:
+    import gc
+    import sys
+
+    from sweeprig.lazy import import_frozen
+
+    try:
+        gc.enable()
+        import_frozen("sweeprig.plan.risks")
+        assert "sweeprig.plan.risks" in sys.modules
+        assert gc.isenabled() and gc.get_freeze_count() > 0
+        gc.disable()
+        import_frozen("sweeprig.plan.risks")
+        assert not gc.isenabled()
+    finally:
+        gc.enable()
+        gc.unfreeze()
