@@ -332,6 +332,18 @@ class PortNetwork:
             mag /= math.sqrt(1.0 + r * r)
         return mag
 
+    def scalar_magnitudes(self, freq_hz: np.ndarray) -> np.ndarray:
+        """:meth:`scalar_magnitude` of each frequency (Hz): the same float operations,
+        element by element, so a sweep's amplitudes are bit for bit the one-point path's."""
+        mag = np.ones(freq_hz.shape)
+        if self.highpass_hz is not None:
+            r = freq_hz / self.highpass_hz
+            mag *= r / np.sqrt(1.0 + r * r)
+        if self.lowpass_hz is not None:
+            r = freq_hz / self.lowpass_hz
+            mag /= np.sqrt(1.0 + r * r)
+        return mag
+
 
 @dataclass(frozen=True)
 class _LoPrepared:

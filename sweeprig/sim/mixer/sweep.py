@@ -144,14 +144,7 @@ def _tone_amplitudes(
     level[:, harmonic] += dbc[harmonic]
     f = freqs[:, tone]
     f *= mult
-    mag = np.ones(f.shape)
-    if port.highpass_hz is not None:
-        r = f / port.highpass_hz
-        mag *= r / np.sqrt(1.0 + r * r)
-    if port.lowpass_hz is not None:
-        r = f / port.lowpass_hz
-        mag /= np.sqrt(1.0 + r * r)
-    return np.sqrt(factor * 10.0 ** (level / 10.0)) * mag
+    return np.sqrt(factor * 10.0 ** (level / 10.0)) * port.scalar_magnitudes(f)
 
 
 def _bucket_rows(amps: NDArray[np.float64]) -> NDArray[np.float64]:
