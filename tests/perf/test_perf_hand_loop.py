@@ -26,11 +26,11 @@ from pathlib import Path
 
 import pytest
 import pyvisa
+from thread_time import time_in_thread
 
 from sweeprig.clock import VirtualClock
 from sweeprig.engine.runner import Runner
 from sweeprig.engine.session import run_sequence, served_bench_text
-from sweeprig.plan.expand import Point
 from sweeprig.sim.bench import start_sim_bench
 from sweeprig.sim.scpi.instrument import ScpiInstrument
 from sweeprig.store.sqlite import SqliteRunStore
@@ -146,24 +146,14 @@ class _Cpu:
         self.served_s = 0.0
 
     def install(self, monkeypatch: pytest.MonkeyPatch) -> None:
-        measure, handle = Runner.measure, ScpiInstrument.handle
+        def to_measure(_runner: Runner, seconds: float) -> None:
+            self.measure_s += seconds
 
-        def timed_measure(runner: Runner, point: Point) -> object:
-            t0 = time.thread_time()
-            try:
-                return measure(runner, point)
-            finally:
-                self.measure_s += time.thread_time() - t0
+        def to_served(_instrument: ScpiInstrument, seconds: float) -> None:
+            self.served_s += seconds
 
-        def timed_handle(instrument: ScpiInstrument, message: str) -> object:
-            t0 = time.thread_time()
-            try:
-                return handle(instrument, message)
-            finally:
-                self.served_s += time.thread_time() - t0
-
-        monkeypatch.setattr(Runner, "measure", timed_measure)
-        monkeypatch.setattr(ScpiInstrument, "handle", timed_handle)
+        time_in_thread(monkeypatch, Runner, "measure", to_measure)
+        time_in_thread(monkeypatch, ScpiInstrument, "handle", to_served)
 
 
 def _engine(folder: Path, resources: dict[str, str], *, bus_log: bool, cpu: _Cpu

@@ -54,10 +54,10 @@ from collections.abc import Iterator
 from pathlib import Path
 
 import pytest
+from thread_time import time_in_thread
 
 from sweeprig.engine.runner import Runner
 from sweeprig.engine.session import run_sequence, shipped_sequences_dir
-from sweeprig.plan.expand import Point
 from sweeprig.sim.scpi.instrument import ScpiInstrument
 from sweeprig.sim.server import _RoleServer
 from sweeprig.transport.visa import VisaTransport
@@ -164,53 +164,32 @@ class _CpuTime:
         self.by_role: dict[str, int] = {}
 
     def install(self, monkeypatch: pytest.MonkeyPatch) -> None:
-        handle, measure = ScpiInstrument.handle, Runner.measure
         self.install_exchanges(monkeypatch)
-        serve_line = _RoleServer._serve_line
 
-        def timed_line(server: _RoleServer, conn: object, line: bytes, outbox: object) -> bool:
-            t0 = time.thread_time()
-            try:
-                return serve_line(server, conn, line, outbox)  # type: ignore[arg-type]
-            finally:
-                self.messages_s += time.thread_time() - t0
-                self.messages += 1
+        def to_messages(_server: _RoleServer, seconds: float) -> None:
+            self.messages_s += seconds
+            self.messages += 1
 
-        monkeypatch.setattr(_RoleServer, "_serve_line", timed_line)
+        def to_kind(instrument: ScpiInstrument, seconds: float) -> None:
+            kind = type(instrument).__name__
+            self.by_kind[kind] = self.by_kind.get(kind, 0.0) + seconds
 
-        def timed_handle(instrument: ScpiInstrument, message: str) -> object:
-            t0 = time.thread_time()
-            try:
-                return handle(instrument, message)
-            finally:
-                kind = type(instrument).__name__
-                self.by_kind[kind] = self.by_kind.get(kind, 0.0) + time.thread_time() - t0
+        def to_points(_runner: Runner, seconds: float) -> None:
+            self.points_s += seconds
 
-        def timed_measure(runner: Runner, point: Point) -> object:
-            t0 = time.thread_time()
-            try:
-                return measure(runner, point)
-            finally:
-                self.points_s += time.thread_time() - t0
-
-        monkeypatch.setattr(ScpiInstrument, "handle", timed_handle)
-        monkeypatch.setattr(Runner, "measure", timed_measure)
+        time_in_thread(monkeypatch, _RoleServer, "_serve_line", to_messages)
+        time_in_thread(monkeypatch, ScpiInstrument, "handle", to_kind)
+        time_in_thread(monkeypatch, Runner, "measure", to_points)
 
     def install_exchanges(self, monkeypatch: pytest.MonkeyPatch) -> None:
         """Time the engine side's exchanges (thread time in the VISA transport) and count
         each role's exchanges (its driver's count at the end of the run)."""
+
+        def to_exchanges(_transport: VisaTransport, seconds: float) -> None:
+            self.exchanges_s += seconds
+
         for name in ("write", "query", "post", "collect"):
-            original = getattr(VisaTransport, name)
-
-            def timed(transport: VisaTransport, *args: object, _original: object = original,
-                      **kwargs: object) -> object:
-                t0 = time.thread_time()
-                try:
-                    return _original(transport, *args, **kwargs)  # type: ignore[operator]
-                finally:
-                    self.exchanges_s += time.thread_time() - t0
-
-            monkeypatch.setattr(VisaTransport, name, timed)
+            time_in_thread(monkeypatch, VisaTransport, name, to_exchanges)
         run = Runner.run
 
         def counted_run(runner: Runner, points: object) -> int:
