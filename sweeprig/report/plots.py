@@ -30,7 +30,8 @@ from sweeprig.analysis.captures import OUTPUT_FREQ, point_table
 from sweeprig.analysis.compression import compression_table
 from sweeprig.analysis.figures import Figure, flag_bit
 from sweeprig.analysis.gain import gain_table
-from sweeprig.analysis.reduce import (
+from sweeprig.analysis.reduce import RunFigures
+from sweeprig.analysis.roles import (
     ROLE_COMPRESSION,
     ROLE_FLATNESS,
     ROLE_GAIN,
@@ -40,7 +41,6 @@ from sweeprig.analysis.reduce import (
     ROLE_SIDEBAND,
     ROLE_SPURS,
     ROLE_TWO_TONE,
-    RunFigures,
 )
 from sweeprig.analysis.spurs import spur_table
 from sweeprig.report.tables import figure_label, figure_text
