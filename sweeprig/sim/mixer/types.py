@@ -71,25 +71,26 @@ class PortLevels:
 
     def __init__(self, freq_hz: NDArray[np.float64], power_dbm: NDArray[np.float64],
                  orders: NDArray[np.object_]) -> None:
-        init = object.__setattr__
-        init(self, "freq_hz", freq_hz)
-        init(self, "power_dbm", power_dbm)
-        init(self, "_orders", orders)
-        init(self, "_codes", None)
-        init(self, "_table", None)
+        self._fill(freq_hz, power_dbm, orders, None, None)
 
     @classmethod
     def coded(cls, freq_hz: NDArray[np.float64], power_dbm: NDArray[np.float64],
               codes: NDArray[np.intp], table: NDArray[np.object_]) -> PortLevels:
         """Lines whose orders are ``table[codes]`` (made when first read)."""
         levels = cls.__new__(cls)
-        init = object.__setattr__
-        init(levels, "freq_hz", freq_hz)
-        init(levels, "power_dbm", power_dbm)
-        init(levels, "_orders", None)
-        init(levels, "_codes", codes)
-        init(levels, "_table", table)
+        levels._fill(freq_hz, power_dbm, None, codes, table)
         return levels
+
+    def _fill(self, freq_hz: NDArray[np.float64], power_dbm: NDArray[np.float64],
+              orders: NDArray[np.object_] | None, codes: NDArray[np.intp] | None,
+              table: NDArray[np.object_] | None) -> None:
+        """Set every slot once (the class is immutable: no ``__setattr__``)."""
+        init = object.__setattr__
+        init(self, "freq_hz", freq_hz)
+        init(self, "power_dbm", power_dbm)
+        init(self, "_orders", orders)
+        init(self, "_codes", codes)
+        init(self, "_table", table)
 
     @property
     def orders(self) -> NDArray[np.object_]:
