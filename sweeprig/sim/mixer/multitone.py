@@ -570,23 +570,27 @@ def merge_coincident(lines: Lines, tol_hz: float = MERGE_TOL_HZ) -> Lines:
     """
     if lines.freq_hz.size == 0:
         return lines
-    order = np.argsort(lines.freq_hz)
+    order = lines.freq_hz.argsort()
     freq = lines.freq_hz[order]
+    gaps = freq[1:] - freq[:-1]  # np.diff's values, without its wrapper
+    apart = gaps > tol_hz
+    if apart.all():
+        return Lines(freq, lines.amp[order], lines.orders[order])
     new_group = np.empty(freq.size, dtype=bool)
     new_group[0] = True
-    np.greater(np.diff(freq), tol_hz, out=new_group[1:])
-    if new_group.all():
-        return Lines(freq, lines.amp[order], lines.orders[order])
+    new_group[1:] = apart
     amp = lines.amp[order]
     orders = lines.orders[order]
-    starts = np.flatnonzero(new_group)
-    ends = np.append(starts[1:], freq.size)
+    starts = new_group.nonzero()[0]
+    ends = np.empty_like(starts)
+    ends[:-1] = starts[1:]
+    ends[-1] = freq.size
     merged_amp = amp[starts]
     merged_orders = orders[starts]
-    for g in np.flatnonzero(ends - starts > 1).tolist():
+    for g in ((ends - starts) > 1).nonzero()[0].tolist():
         seg = amp[starts[g] : ends[g]]
         merged_amp[g] = seg.sum()
-        merged_orders[g] = orders[starts[g] + int(np.argmax(np.abs(seg)))]
+        merged_orders[g] = orders[starts[g] + int(np.abs(seg).argmax())]
     return Lines(freq[starts], merged_amp, merged_orders)
 
 
@@ -599,31 +603,38 @@ def add_lines(base: Lines, extra: Lines, tol_hz: float = MERGE_TOL_HZ) -> Lines:
     freq = base.freq_hz
     if freq.size == 0:
         return extra
-    at = np.searchsorted(freq, extra.freq_hz)
+    ef = extra.freq_hz
+    at = freq.searchsorted(ef)
     right = np.minimum(at, freq.size - 1)
-    left = np.maximum(at - 1, 0)
-    use_left = np.abs(freq[left] - extra.freq_hz) < np.abs(freq[right] - extra.freq_hz)
+    at -= 1
+    left = np.maximum(at, 0, out=at)
+    off_left = np.abs(freq[left] - ef)
+    off_right = np.abs(freq[right] - ef)
+    use_left = off_left < off_right
     near = np.where(use_left, left, right)
-    hit = np.abs(freq[near] - extra.freq_hz) <= tol_hz
+    # the offset from the nearer line (of the two, the one ``near`` picks)
+    hit = np.where(use_left, off_left, off_right) <= tol_hz
     amp = base.amp.copy()
     orders = base.orders
-    if hit.any():
-        idx = near[hit]
+    hits = hit.nonzero()[0]
+    if hits.size:
+        idx = near[hits]
+        extra_amp = extra.amp[hits]
         before = np.abs(amp[idx])
-        np.add.at(amp, idx, extra.amp[hit])  # extra lines need not be merged among themselves
-        stronger = np.abs(extra.amp[hit]) > before
+        np.add.at(amp, idx, extra_amp)  # extra lines need not be merged among themselves
+        stronger = np.abs(extra_amp) > before
         if stronger.any():
             orders = orders.copy()
-            orders[idx[stronger]] = extra.orders[hit][stronger]
+            orders[idx[stronger]] = extra.orders[hits[stronger]]
     merged = Lines(freq, amp, orders)
-    if hit.all():
+    if hits.size == ef.size:
         return merged
-    rest = ~hit
-    joined = concat_lines([merged, Lines(extra.freq_hz[rest], extra.amp[rest],
-                                         extra.orders[rest])])
-    order = np.argsort(joined.freq_hz, kind="stable")
-    joined = Lines(joined.freq_hz[order], joined.amp[order], joined.orders[order])
-    if np.any(np.diff(joined.freq_hz) <= tol_hz):
+    rest = (~hit).nonzero()[0]
+    joined = concat_lines([merged, Lines(ef[rest], extra.amp[rest], extra.orders[rest])])
+    order = joined.freq_hz.argsort(kind="stable")
+    freq = joined.freq_hz[order]
+    joined = Lines(freq, joined.amp[order], joined.orders[order])
+    if ((freq[1:] - freq[:-1]) <= tol_hz).any():
         return merge_coincident(joined, tol_hz)
     return joined
 

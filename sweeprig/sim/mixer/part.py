@@ -115,6 +115,7 @@ from sweeprig.sim.mixer.realism import (
 )
 from sweeprig.sim.mixer.sweep import evaluate_group
 from sweeprig.sim.mixer.types import (
+    DeferredPort,
     MixerResponse,
     OperatingPoint,
     PortLevels,
@@ -638,8 +639,12 @@ class MixerPart:
     def _response(self, ev: _Evaluation) -> MixerResponse:
         return MixerResponse(
             if_port=self._levels(ev.output),
-            rf_port=_entries_to_products(ev.input_entries, self.floor_dbm),
-            lo_port=_entries_to_products(ev.lo_entries, self.floor_dbm),
+            # the input and LO ports' few lines are made when read (the bench reads them
+            # only with its switch on those ports)
+            rf_port=DeferredPort((_entries_to_products, ev.input_entries, self.floor_dbm))
+            if ev.input_entries else (),
+            lo_port=DeferredPort((_entries_to_products, ev.lo_entries, self.floor_dbm))
+            if ev.lo_entries else (),
             if_noise_dbm_per_hz=ev.noise_dbm_per_hz,
             supply_current_a=ev.supply_current_a,
             notes=ev.notes,
@@ -691,20 +696,22 @@ class MixerPart:
             amp *= out.magnitude(core.freq_hz)
             # the band edges push many weak lines under the floor: drop them before merging
             # (20 dB of margin for lines that might still add up)
-            keep = (amp.real * amp.real + amp.imag * amp.imag) >= state.prefloor_w
+            keep = ((amp.real * amp.real + amp.imag * amp.imag)
+                    >= state.prefloor_w).nonzero()[0]
             core = Lines(core.freq_hz[keep], amp[keep], core.orders[keep])
         else:
             core = Lines(core.freq_hz, amp, core.orders)
         core = merge_coincident(core)
         imbalance = self.load_mismatch + lo_prep.d0
         if tones and self.cm_second_order and imbalance:
+            freqs, phases_rad = [], []  # every input line at the core, tone by tone
+            for t, a in zip(tones, amps, strict=True):
+                for h in range(1, len(a) + 1):
+                    freqs.append(h * t.freq_hz)
+                    phases_rad.append(h * t.phase_rad)
             cm = common_mode_im2_lines(
-                np.array([h * t.freq_hz for t, a in zip(tones, amps, strict=True)
-                          for h in range(1, len(a) + 1)]),
-                np.array([v for a in amps for v in a]),
-                np.array([h * t.phase_rad for t, a in zip(tones, amps, strict=True)
-                          for h in range(1, len(a) + 1)]),
-                tuple(len(a) for a in amps), n_axes, cell.i_ee_a,
+                np.array(freqs), np.array([v for a in amps for v in a]), np.array(phases_rad),
+                tuple([len(a) for a in amps]), n_axes, cell.i_ee_a,
                 2.0 * cell.vt_v + cell.i_ee_a * cell.r_e_ohm, self.cm_second_order, imbalance,
             )
             if cm is not None:
@@ -836,10 +843,11 @@ class MixerPart:
         """Merged lines (sqrt(W) amplitudes) → the port's lines above the floor, as arrays."""
         power_w = lines.amp.real**2 + lines.amp.imag**2
         keep = power_w >= 1e-3 * 10.0 ** (self.floor_dbm / 10.0)
-        if not keep.all():
-            power_w = power_w[keep]
-            lines = Lines(lines.freq_hz[keep], lines.amp[keep], lines.orders[keep])
-        return PortLevels(lines.freq_hz, 10.0 * np.log10(power_w * 1e3), lines.orders)
+        if keep.all():
+            return PortLevels(lines.freq_hz, 10.0 * np.log10(power_w * 1e3), lines.orders)
+        kept = keep.nonzero()[0]
+        return PortLevels(lines.freq_hz[kept], 10.0 * np.log10(power_w[kept] * 1e3),
+                          lines.orders[kept])
 
     def _check_inputs(self, lo: ToneInput | None, tones: tuple[ToneInput, ...]) -> None:
         if len(tones) <= MAX_RF_TONES and _all_valid(lo, tones):
@@ -951,8 +959,9 @@ def _add_entries(lines: Lines, entries: list[_Entry]) -> Lines:
     others are inserted."""
     freq = lines.freq_hz
     amp = lines.amp.copy()
-    orders = lines.orders.copy()
-    where = np.searchsorted(freq, [e[0] for e in entries]).tolist()
+    orders = lines.orders
+    copied = False  # the orders are copied when the first entry names a line
+    where = freq.searchsorted([e[0] for e in entries]).tolist()
     extra: list[_Entry] = []
     for (f, a, o), i in zip(entries, where, strict=True):
         hit = -1
@@ -964,6 +973,8 @@ def _add_entries(lines: Lines, entries: list[_Entry]) -> Lines:
             extra.append((f, a, o))
             continue
         if abs(a) > abs(amp[hit]):
+            if not copied:
+                orders, copied = orders.copy(), True
             orders[hit] = o
         amp[hit] += a
     merged = Lines(freq, amp, orders)
