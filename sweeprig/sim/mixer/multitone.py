@@ -28,7 +28,7 @@ phases radians, frequencies Hz. Coefficients are those of the complex exponentia
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from functools import lru_cache
 
@@ -502,6 +502,57 @@ class Lines:
     orders: NDArray[np.object_]
 
 
+class LineTable:
+    """The frequency of every (LO order, RF order) entry of a combination, Hz, row by row
+    (``freq``, flat; ``positive``: which are above ``MERGE_TOL_HZ``), and what depends on
+    those frequencies only, made when first asked for: the entries' order codes and the
+    output port's band-edge magnitudes. Points that share their LO and tone frequencies
+    (a power sweep) share one (the caller keeps it); the frequencies are those
+    :func:`combine` computes on its own, and each entry's band magnitude is the one the
+    port gives for that line (element-wise operations)."""
+
+    __slots__ = ("_codes", "_gain", "freq", "positive", "shape", "uses")
+
+    def __init__(self, lo_orders: NDArray[np.int64], lo_freq_hz: float,
+                 rf_orders: NDArray[np.int64], rf_freqs_hz: Sequence[float]) -> None:
+        lo_f = lo_orders * lo_freq_hz
+        if rf_orders.shape[1]:
+            freq = np.add.outer(lo_f, rf_orders @ np.asarray(rf_freqs_hz, dtype=float))
+        else:
+            freq = lo_f[:, None]
+        self.shape: tuple[int, int] = freq.shape
+        self.positive: NDArray[np.bool_] = freq > MERGE_TOL_HZ
+        self.freq: NDArray[np.float64] = freq.ravel()
+        self.uses = 0  # combinations made on this table
+        self._codes: NDArray[np.intp] | None = None
+        self._gain: NDArray[np.float64] | None = None
+
+    def codes(self, lo: LoFactor, rf: RfFactor, max_lo_order: int,
+              width: int) -> NDArray[np.intp]:
+        """Each entry's code in :func:`combo_tuples` (``width``: its row length)."""
+        if self._codes is None:
+            self._codes = np.add.outer((lo.orders + max_lo_order) * width, rf.index).ravel()
+        return self._codes
+
+    def gain(self, magnitude: Callable[[NDArray[np.float64]], NDArray[np.float64]]
+             ) -> NDArray[np.float64]:
+        """``magnitude`` (a port's band-edge magnitude) of every entry's frequency."""
+        if self._gain is None:
+            self._gain = magnitude(self.freq)
+        return self._gain
+
+
+@lru_cache(maxsize=64)
+def _entry_rows_columns(rows: int, columns: int) -> tuple[NDArray[np.intp], NDArray[np.intp]]:
+    """The row and the column of every entry of a (rows, columns) table read row by row
+    (``np.divmod`` of the flat index, looked up; read-only, shared)."""
+    row = np.repeat(np.arange(rows), columns)
+    column = np.tile(np.arange(columns), rows)
+    for arr in (row, column):
+        arr.flags.writeable = False
+    return row, column
+
+
 def combine(
     lo: LoFactor,
     lo_freq_hz: float,
@@ -522,34 +573,59 @@ def combine(
     ``max_lo_order``/``max_rf_order`` must be those the factors were made with (they index
     the cached order tuples).
     """
+    table = LineTable(lo.orders, lo_freq_hz, rf.orders, rf_freqs_hz)
+    return combine_on(table, lo, lo_phase_rad, rf, rf_phases_rad, i_ee_a, max_lo_order,
+                      max_rf_order, min_abs_a)[0]
+
+
+def combine_on(
+    table: LineTable,
+    lo: LoFactor,
+    lo_phase_rad: float,
+    rf: RfFactor,
+    rf_phases_rad: Sequence[float],
+    i_ee_a: float,
+    max_lo_order: int,
+    max_rf_order: int,
+    min_abs_a: float | None = None,
+) -> tuple[Lines, NDArray[np.intp]]:
+    """:func:`combine` on a :class:`LineTable` of these factors' orders (made for their
+    LO and tone frequencies, possibly kept from an earlier point), and the entry of the
+    table each line is (its flat index).
+
+    Every entry of the table is weighed; an RF order that cannot reach the limit with any
+    LO order (``|X_n|·max|S_m| ≤ limit``) has no entry above it (rounding is monotone), so
+    the lines are those of weighing the reachable orders only, in the same order."""
     k = rf.orders.shape[1]
     if i_ee_a <= 0.0:
-        return Lines(np.zeros(0), np.zeros(0, dtype=complex), np.empty(0, dtype=object))
+        return (Lines(np.zeros(0), np.zeros(0, dtype=complex), np.empty(0, dtype=object)),
+                np.zeros(0, dtype=np.intp))
     if min_abs_a is None:
         limit = PRUNE_REL * (lo.max_s * float(rf.abs_x.max()) + lo.max_d)
     else:
         limit = min_abs_a / i_ee_a
-    x, abs_x, orders, index = rf.x, rf.abs_x, rf.orders, rf.index
-    # RF orders that cannot reach the limit with any LO order (bound |S|·|X| + |D|)
-    reach = abs_x * lo.max_s > limit
-    reach[0] = True
-    if not reach.all():
-        rows = reach.nonzero()[0]
-        x, abs_x, orders, index = x[rows], abs_x[rows], orders[rows], index[rows]
-    bound = np.multiply.outer(lo.abs_s, abs_x)
+    table.uses += 1
+    x = rf.x
+    bound = np.multiply.outer(lo.abs_s, rf.abs_x)
     if lo.has_d:
         bound[:, 0] += lo.abs_d
-    lo_f = lo.orders * lo_freq_hz
-    freq = np.add.outer(lo_f, orders @ np.asarray(rf_freqs_hz, dtype=float)) if k else lo_f[:, None]
     mask = bound > limit
-    mask &= freq > MERGE_TOL_HZ
+    mask &= table.positive
     flat = mask.ravel().nonzero()[0]
-    li, pi = np.divmod(flat, abs_x.size)
+    rows_of, columns_of = _entry_rows_columns(*table.shape)
+    li, pi = rows_of[flat], columns_of[flat]
     s = lo.s * i_ee_a  # 2·(I_EE/2): a real line is 2·its coefficient
     if lo_phase_rad:
         s = s * np.exp(1j * lo_phase_rad * lo.orders)
     if k and any(rf_phases_rad):
-        x = x * np.exp(1j * (orders @ np.asarray(rf_phases_rad, dtype=float)))
+        # the phases turn the reachable orders (the only ones read below)
+        reach = rf.abs_x * lo.max_s > limit
+        reach[0] = True
+        rows = reach.nonzero()[0]
+        turned = x[rows] * np.exp(1j * (rf.orders[rows] @ np.asarray(rf_phases_rad,
+                                                                      dtype=float)))
+        x = np.zeros_like(x)
+        x[rows] = turned
     amp = s[li] * x[pi]
     if lo.has_d:
         at_zero = (pi == 0).nonzero()[0]
@@ -558,9 +634,12 @@ def combine(
             if lo_phase_rad:
                 d = d * np.exp(1j * lo_phase_rad * lo.orders)
             amp[at_zero] += d[li[at_zero]]
-    table = combo_tuples(max_lo_order, k, max_rf_order)
-    codes = (lo.orders + max_lo_order)[li] * table.shape[1] + index[pi]
-    return Lines(freq.ravel()[flat], amp, table.ravel()[codes])
+    tuples = combo_tuples(max_lo_order, k, max_rf_order)
+    if table.uses > 1:  # kept for another point: the codes of all its entries, once
+        codes = table.codes(lo, rf, max_lo_order, tuples.shape[1])[flat]
+    else:
+        codes = (lo.orders + max_lo_order)[li] * tuples.shape[1] + rf.index[pi]
+    return Lines(table.freq[flat], amp, tuples.ravel()[codes]), flat
 
 
 def merge_coincident(lines: Lines, tol_hz: float = MERGE_TOL_HZ) -> Lines:

@@ -95,10 +95,11 @@ from sweeprig.sim.mixer.multitone import (
     MERGE_TOL_HZ,
     CellState,
     Lines,
+    LineTable,
     LoFactor,
     RfFactor,
     add_lines,
-    combine,
+    combine_on,
     concat_lines,
     lo_factor,
     merge_coincident,
@@ -684,16 +685,21 @@ class MixerPart:
         else:
             amps = ()
             shape, converged, rf_fac = (), True, state.no_rf
-        core = combine(
-            lo_prep.factor, lo.freq_hz if lo is not None else 0.0,
-            lo.phase_rad if lo is not None else 0.0, rf_fac, [t.freq_hz for t in tones],
+        lo_freq = lo.freq_hz if lo is not None else 0.0
+        tone_freqs = tuple([t.freq_hz for t in tones])
+        table = self._line_table(lo_prep.factor, lo_freq, rf_fac, tone_freqs)
+        core, entries = combine_on(
+            table, lo_prep.factor, lo.phase_rad if lo is not None else 0.0, rf_fac,
             [t.phase_rad for t in tones], cell.i_ee_a, self.max_lo_order, self.max_rf_order,
             state.min_abs_a,
         )
         n_axes = 1 + len(tones)
         amp = core.amp * state.out_scale
         if out.highpass_hz is not None or out.lowpass_hz is not None:
-            amp *= out.magnitude(core.freq_hz)
+            # the port's magnitude at each line: from the table's, when it serves a second
+            # point (made once for all its entries), else at these lines
+            amp *= (table.gain(out.magnitude)[entries] if table.uses > 1
+                    else out.magnitude(core.freq_hz))
             # the band edges push many weak lines under the floor: drop them before merging
             # (20 dB of margin for lines that might still add up)
             keep = ((amp.real * amp.real + amp.imag * amp.imag)
@@ -772,6 +778,18 @@ class MixerPart:
                 "grid_converged": float(converged and lo_prep.factor.converged),
             },
         )
+
+    def _line_table(self, lo_fac: LoFactor, lo_freq_hz: float, rf_fac: RfFactor,
+                    tone_freqs: tuple[float, ...]) -> LineTable:
+        """The :class:`LineTable` of an LO and tone frequencies, kept (with the sweep
+        path's tables) for the points of a power sweep, which share it."""
+        key = ("one-point", lo_freq_hz, tone_freqs, lo_fac.orders.tobytes(),
+               self.max_rf_order)
+        table = self._tables.get(key)
+        if table is None:
+            table = LineTable(lo_fac.orders, lo_freq_hz, rf_fac.orders, tone_freqs)
+            self._remember_table(key, table)
+        return table
 
     def _lo_prepared(
         self, op: OperatingPoint, lo: ToneInput | None, state: _OpState
