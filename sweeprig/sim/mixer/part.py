@@ -108,9 +108,10 @@ from sweeprig.sim.mixer.multitone import (
 )
 from sweeprig.sim.mixer.network import band_magnitude, reflection_magnitude
 from sweeprig.sim.mixer.realism import (
+    CommonModeLayout,
     LeakagePhases,
     LeakPhase,
-    common_mode_im2_lines,
+    common_mode_im2_amplitudes,
     lo_drive_noise_factor,
     switch_overlap_fraction,
 )
@@ -710,22 +711,19 @@ class MixerPart:
         core = merge_coincident(core)
         imbalance = self.load_mismatch + lo_prep.d0
         if tones and self.cm_second_order and imbalance:
-            freqs, phases_rad = [], []  # every input line at the core, tone by tone
-            for t, a in zip(tones, amps, strict=True):
-                for h in range(1, len(a) + 1):
-                    freqs.append(h * t.freq_hz)
-                    phases_rad.append(h * t.phase_rad)
-            cm = common_mode_im2_lines(
-                np.array(freqs), np.array([v for a in amps for v in a]), np.array(phases_rad),
-                tuple([len(a) for a in amps]), n_axes, cell.i_ee_a,
-                2.0 * cell.vt_v + cell.i_ee_a * cell.r_e_ohm, self.cm_second_order, imbalance,
+            layout, gain = self._common_mode_layout(tone_freqs, amps, n_axes)
+            cm_amp = common_mode_im2_amplitudes(
+                layout, np.array([v for a in amps for v in a]),
+                np.array([h * t.phase_rad for t, a in zip(tones, amps, strict=True)
+                          for h in range(1, len(a) + 1)]),
+                cell.i_ee_a, 2.0 * cell.vt_v + cell.i_ee_a * cell.r_e_ohm,
+                self.cm_second_order, imbalance,
             )
-            if cm is not None:
-                cm_freq, cm_amp, cm_orders = cm
+            if cm_amp is not None:
                 cm_amp = cm_amp * state.out_scale
-                if out.highpass_hz is not None or out.lowpass_hz is not None:
-                    cm_amp = cm_amp * out.magnitude(cm_freq)
-                core = add_lines(core, Lines(cm_freq, cm_amp, cm_orders))
+                if gain is not None:
+                    cm_amp = cm_amp * gain
+                core = add_lines(core, Lines(layout.freq_hz, cm_amp, layout.orders))
         phases = self.leakage_phases
         in_entries: list[_Entry] = []
         lo_entries: list[_Entry] = []
@@ -790,6 +788,26 @@ class MixerPart:
             table = LineTable(lo_fac.orders, lo_freq_hz, rf_fac.orders, tone_freqs)
             self._remember_table(key, table)
         return table
+
+    def _common_mode_layout(
+        self, tone_freqs: tuple[float, ...], amps: tuple[tuple[float, ...], ...], n_axes: int
+    ) -> tuple[CommonModeLayout, Any]:
+        """The common-mode lines' :class:`CommonModeLayout` for tones at ``tone_freqs``
+        with the harmonics of ``amps``, and the output port's band-edge magnitude at each
+        (None: no band edges); kept (with the line tables) for the points of a power
+        sweep, which share them."""
+        counts = tuple([len(a) for a in amps])
+        key = ("common-mode", tone_freqs, counts)
+        kept = self._tables.get(key)
+        if kept is None:
+            layout = CommonModeLayout(
+                np.array([h * f for f, count in zip(tone_freqs, counts, strict=True)
+                          for h in range(1, count + 1)]), counts, n_axes)
+            out = self.output_port
+            banded = out.highpass_hz is not None or out.lowpass_hz is not None
+            kept = (layout, out.magnitude(layout.freq_hz) if banded else None)
+            self._remember_table(key, kept)
+        return kept
 
     def _lo_prepared(
         self, op: OperatingPoint, lo: ToneInput | None, state: _OpState
