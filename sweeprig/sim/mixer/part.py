@@ -70,7 +70,7 @@ from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field, replace
 from functools import lru_cache
 from pathlib import Path
-from typing import Annotated, Any, Literal
+from typing import Annotated, Any, Literal, NamedTuple
 
 import numpy as np
 from pydantic import (
@@ -372,8 +372,7 @@ class PortLines:
     notes: dict[str, float]
 
 
-@dataclass(frozen=True)
-class _Evaluation:
+class _Evaluation(NamedTuple):
     output: Lines
     input_entries: list[tuple[float, complex, tuple[int, ...]]]
     lo_entries: list[tuple[float, complex, tuple[int, ...]]]
