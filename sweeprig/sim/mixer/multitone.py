@@ -590,18 +590,23 @@ def combine_on(
     max_lo_order: int,
     max_rf_order: int,
     min_abs_a: float | None = None,
+    *,
+    coded: bool = False,
 ) -> tuple[Lines, NDArray[np.intp]]:
     """:func:`combine` on a :class:`LineTable` of these factors' orders (made for their
     LO and tone frequencies, possibly kept from an earlier point), and the entry of the
-    table each line is (its flat index).
+    table each line is (its flat index). ``coded``: the lines' orders are given as their
+    codes in ``combo_tuples(max_lo_order, K, max_rf_order).ravel()`` (integers, cheaper
+    to carry through a merge than tuples).
 
     Every entry of the table is weighed; an RF order that cannot reach the limit with any
     LO order (``|X_n|·max|S_m| ≤ limit``) has no entry above it (rounding is monotone), so
     the lines are those of weighing the reachable orders only, in the same order."""
     k = rf.orders.shape[1]
     if i_ee_a <= 0.0:
-        return (Lines(np.zeros(0), np.zeros(0, dtype=complex), np.empty(0, dtype=object)),
-                np.zeros(0, dtype=np.intp))
+        none = np.zeros(0, dtype=np.intp)
+        return (Lines(np.zeros(0), np.zeros(0, dtype=complex),
+                      none if coded else np.empty(0, dtype=object)), none)
     if min_abs_a is None:
         limit = PRUNE_REL * (lo.max_s * float(rf.abs_x.max()) + lo.max_d)
     else:
@@ -641,7 +646,7 @@ def combine_on(
         codes = table.codes(lo, rf, max_lo_order, tuples.shape[1])[flat]
     else:
         codes = (lo.orders + max_lo_order)[li] * tuples.shape[1] + rf.index[pi]
-    return Lines(table.freq[flat], amp, tuples.ravel()[codes]), flat
+    return Lines(table.freq[flat], amp, codes if coded else tuples.ravel()[codes]), flat
 
 
 def merge_coincident(lines: Lines, tol_hz: float = MERGE_TOL_HZ) -> Lines:

@@ -100,6 +100,7 @@ from sweeprig.sim.mixer.multitone import (
     RfFactor,
     add_lines,
     combine_on,
+    combo_tuples,
     concat_lines,
     lo_factor,
     merge_coincident,
@@ -112,6 +113,7 @@ from sweeprig.sim.mixer.realism import (
     LeakagePhases,
     LeakPhase,
     common_mode_im2_amplitudes,
+    common_mode_names,
     lo_drive_noise_factor,
     switch_overlap_fraction,
 )
@@ -373,7 +375,8 @@ class PortLines:
 
 
 class _Evaluation(NamedTuple):
-    output: Lines
+    output: Lines  # orders as codes into ``names``
+    names: Any  # object array of order tuples
     input_entries: list[tuple[float, complex, tuple[int, ...]]]
     lo_entries: list[tuple[float, complex, tuple[int, ...]]]
     noise_dbm_per_hz: float
@@ -639,7 +642,7 @@ class MixerPart:
 
     def _response(self, ev: _Evaluation) -> MixerResponse:
         return MixerResponse(
-            if_port=self._levels(ev.output),
+            if_port=self._levels(ev.output, ev.names),
             # the input and LO ports' few lines are made when read (the bench reads them
             # only with its switch on those ports)
             rf_port=DeferredPort((_entries_to_products, ev.input_entries, self.floor_dbm))
@@ -662,7 +665,7 @@ class MixerPart:
         origin (see :mod:`sweeprig.sim.truth`)."""
         ev = self._evaluate(op, lo, tuple(rf), leakage=leakage)
         return PortLines(
-            output=ev.output,
+            output=Lines(ev.output.freq_hz, ev.output.amp, ev.names[ev.output.orders]),
             input=merge_coincident(_entries_to_lines(ev.input_entries, 1 + len(tuple(rf)))),
             lo=merge_coincident(_entries_to_lines(ev.lo_entries, 1 + len(tuple(rf)))),
             noise_dbm_per_hz=ev.noise_dbm_per_hz,
@@ -688,10 +691,14 @@ class MixerPart:
         lo_freq = lo.freq_hz if lo is not None else 0.0
         tone_freqs = tuple([t.freq_hz for t in tones])
         table = self._line_table(lo_prep.factor, lo_freq, rf_fac, tone_freqs)
+        counts = tuple([len(a) for a in amps])  # lines per tone: fundamental, harmonics
+        names, cm_offset, code_of = _output_names(
+            self.max_lo_order, self.max_rf_order, counts,
+            0 if lo is None else 1 + len(lo.harmonics_dbc))
         core, entries = combine_on(
             table, lo_prep.factor, lo.phase_rad if lo is not None else 0.0, rf_fac,
             [t.phase_rad for t in tones], cell.i_ee_a, self.max_lo_order, self.max_rf_order,
-            state.min_abs_a,
+            state.min_abs_a, coded=True,
         )
         n_axes = 1 + len(tones)
         amp = core.amp * state.out_scale
@@ -722,7 +729,7 @@ class MixerPart:
                 cm_amp = cm_amp * state.out_scale
                 if gain is not None:
                     cm_amp = cm_amp * gain
-                core = add_lines(core, Lines(layout.freq_hz, cm_amp, layout.orders))
+                core = add_lines(core, Lines(layout.freq_hz, cm_amp, layout.codes + cm_offset))
         phases = self.leakage_phases
         in_entries: list[_Entry] = []
         lo_entries: list[_Entry] = []
@@ -739,7 +746,7 @@ class MixerPart:
                 leaks += _tone_entries(lo, 0, n_axes, iso, path, self._iso_slope(
                     "lo_if" if self.conversion == "down" else "lo_rf"))
             if leaks:
-                core = _add_entries(core, leaks)
+                core = _add_entries(core, leaks, code_of)
             iso = self.isolation_lo_to_input_db
             if lo is not None and iso is not None:
                 path = phases.lo_to_rf if self.conversion == "down" else phases.lo_to_if
@@ -759,6 +766,7 @@ class MixerPart:
                                                 self._iso_slope("rf_lo"))
         return _Evaluation(
             output=core,
+            names=names,
             input_entries=in_entries,
             lo_entries=lo_entries,
             noise_dbm_per_hz=lo_prep.noise_dbm_per_hz,
@@ -874,15 +882,17 @@ class MixerPart:
                 * inp.delivered_fraction * out.delivered_fraction)
         return 10.0 * math.log10(gain) if gain > 0.0 else -math.inf
 
-    def _levels(self, lines: Lines) -> PortLevels:
-        """Merged lines (sqrt(W) amplitudes) → the port's lines above the floor, as arrays."""
+    def _levels(self, lines: Lines, names: Any) -> PortLevels:
+        """Merged lines (sqrt(W) amplitudes, orders as codes into ``names``) → the port's
+        lines above the floor, as arrays (the order tuples made when first read)."""
         power_w = lines.amp.real**2 + lines.amp.imag**2
         keep = power_w >= 1e-3 * 10.0 ** (self.floor_dbm / 10.0)
         if keep.all():
-            return PortLevels(lines.freq_hz, 10.0 * np.log10(power_w * 1e3), lines.orders)
+            return PortLevels.coded(lines.freq_hz, 10.0 * np.log10(power_w * 1e3),
+                                    lines.orders, names)
         kept = keep.nonzero()[0]
-        return PortLevels(lines.freq_hz[kept], 10.0 * np.log10(power_w[kept] * 1e3),
-                          lines.orders[kept])
+        return PortLevels.coded(lines.freq_hz[kept], 10.0 * np.log10(power_w[kept] * 1e3),
+                                lines.orders[kept], names)
 
     def _check_inputs(self, lo: ToneInput | None, tones: tuple[ToneInput, ...]) -> None:
         if len(tones) <= MAX_RF_TONES and _all_valid(lo, tones):
@@ -953,6 +963,32 @@ def _bucket_up(amp_v: float) -> float:
 _Entry = tuple[float, complex, tuple[int, ...]]
 
 
+@lru_cache(maxsize=64)
+def _output_names(
+    max_lo_order: int, max_rf_order: int, counts: tuple[int, ...], lo_multiples: int
+) -> tuple[Any, int, dict[tuple[int, ...], int]]:
+    """Every order tuple a line at the output port can carry, as one read-only object
+    array that the lines' codes index, for tones with ``counts`` lines each (fundamental
+    and harmonics) and an LO with ``lo_multiples``: the combination's
+    (:func:`combo_tuples`, flat) first, then the common-mode lines'
+    (:func:`common_mode_names`, from the offset returned), then the linear paths' (each
+    tone's and the LO's multiples, with the code of each)."""
+    n_axes = 1 + len(counts)
+    parts = [combo_tuples(max_lo_order, len(counts), max_rf_order).ravel()]
+    cm_offset = parts[0].size
+    if counts:
+        parts.append(common_mode_names(counts, n_axes))
+    units = [_unit_orders(n_axes, 0, h) for h in range(1, lo_multiples + 1)]
+    units += [_unit_orders(n_axes, 1 + k, h) for k, count in enumerate(counts)
+              for h in range(1, count + 1)]
+    start = sum(part.size for part in parts)
+    tail = np.empty(len(units), dtype=object)
+    tail[:] = units
+    names = np.concatenate([*parts, tail])
+    names.flags.writeable = False
+    return names, cm_offset, {unit: start + i for i, unit in enumerate(units)}
+
+
 @lru_cache(maxsize=256)
 def _unit_orders(n_axes: int, axis: int, multiple: int) -> tuple[int, ...]:
     row = [0] * n_axes
@@ -988,10 +1024,12 @@ def _tone_entries(
     return out
 
 
-def _add_entries(lines: Lines, entries: list[_Entry]) -> Lines:
-    """Add a few linear-path lines to sorted, merged lines: an entry at the frequency of an
-    existing line adds to it as a complex amplitude (the stronger names the orders); the
-    others are inserted."""
+def _add_entries(lines: Lines, entries: list[_Entry], code_of: dict[tuple[int, ...], int]
+                 ) -> Lines:
+    """Add a few linear-path lines to sorted, merged lines (orders as codes; ``code_of``:
+    the code of each entry's orders): an entry at the frequency of an existing line adds
+    to it as a complex amplitude (the stronger names the orders); the others are
+    inserted."""
     freq = lines.freq_hz
     amp = lines.amp.copy()
     orders = lines.orders
@@ -1010,11 +1048,13 @@ def _add_entries(lines: Lines, entries: list[_Entry]) -> Lines:
         if abs(a) > abs(amp[hit]):
             if not copied:
                 orders, copied = orders.copy(), True
-            orders[hit] = o
+            orders[hit] = code_of[o]
         amp[hit] += a
     merged = Lines(freq, amp, orders)
     if extra:
-        merged = merge_coincident(concat_lines([merged, _entries_to_lines(extra)]))
+        merged = merge_coincident(concat_lines([merged, Lines(
+            np.array([e[0] for e in extra]), np.array([e[1] for e in extra]),
+            np.array([code_of[e[2]] for e in extra], dtype=np.intp))]))
     return merged
 
 

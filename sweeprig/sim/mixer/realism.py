@@ -136,22 +136,29 @@ def common_mode_im2_lines(
 class CommonModeLayout:
     """Where the common-mode lines of a set of input lines sit, which depends on the input
     frequencies only (the points of a power sweep share it): each line's frequency (Hz),
-    its orders, and which input lines make it (see :func:`common_mode_im2_lines`)."""
+    its orders (as ``codes`` into ``names``, :func:`common_mode_names`, and as tuples,
+    :attr:`orders`), and which input lines make it (see :func:`common_mode_im2_lines`)."""
 
-    __slots__ = ("far", "freq_hz", "iu", "ju", "orders", "sign")
+    __slots__ = ("codes", "far", "freq_hz", "iu", "ju", "names", "sign")
 
     def __init__(self, freq_hz: NDArray[np.float64], harmonics_per_tone: tuple[int, ...],
                  n_axes: int) -> None:
-        iu, ju, sq_o, sum_o, dpos_o, dneg_o = _cm_layout(harmonics_per_tone, n_axes)
+        iu, ju = _cm_layout(harmonics_per_tone, n_axes)[:2]
+        names, sq_c, sum_c, dpos_c, dneg_c = _cm_codes(harmonics_per_tone, n_axes)
         diff = freq_hz[iu] - freq_hz[ju]
         pos = diff >= 0.0
         far = np.abs(diff) > 1e-3
-        self.iu, self.ju, self.far = iu, ju, far
+        self.iu, self.ju, self.far, self.names = iu, ju, far, names
         self.freq_hz: NDArray[np.float64] = np.concatenate(
             [2.0 * freq_hz, freq_hz[iu] + freq_hz[ju], np.abs(diff[far])])
-        self.orders: NDArray[np.object_] = np.concatenate(
-            [sq_o, sum_o, np.where(pos, dpos_o, dneg_o)[far]])
+        self.codes: NDArray[np.intp] = np.concatenate(
+            [sq_c, sum_c, np.where(pos, dpos_c, dneg_c)[far]])
         self.sign: NDArray[np.float64] = np.where(pos, 1.0, -1.0)[far]
+
+    @property
+    def orders(self) -> NDArray[np.object_]:
+        """Each line's orders ``(0, n_1, …, n_K)``, tuples."""
+        return self.names[self.codes]  # type: ignore[no-any-return]
 
 
 def common_mode_im2_amplitudes(
@@ -176,6 +183,12 @@ def common_mode_im2_amplitudes(
         2.0 * phase_rad, phase_rad[iu] + phase_rad[ju],
         layout.sign * (phase_rad[iu] - phase_rad[ju])[far]])
     return mag * np.exp(1j * phase)
+
+
+def common_mode_names(harmonics_per_tone: tuple[int, ...], n_axes: int) -> NDArray[np.object_]:
+    """Every order tuple a common-mode line of this layout of input lines can have, in the
+    order :attr:`CommonModeLayout.codes` index (read-only, shared)."""
+    return _cm_codes(harmonics_per_tone, n_axes)[0]  # type: ignore[no-any-return]
 
 
 @lru_cache(maxsize=64)
