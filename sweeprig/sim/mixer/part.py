@@ -377,8 +377,9 @@ class PortLines:
 class _Evaluation(NamedTuple):
     output: Lines  # orders as codes into ``names``
     names: Any  # object array of order tuples
-    input_entries: list[tuple[float, complex, tuple[int, ...]]]
-    lo_entries: list[tuple[float, complex, tuple[int, ...]]]
+    #: (LO, tones, axes) of the input and LO ports' leakage lines (made when asked for,
+    #: :meth:`MixerPart._input_entries`, :meth:`MixerPart._lo_entries`); None: no leakage
+    leaking: tuple[Any, ...] | None
     noise_dbm_per_hz: float
     supply_current_a: float
     notes: dict[str, float]
@@ -645,10 +646,10 @@ class MixerPart:
             if_port=self._levels(ev.output, ev.names),
             # the input and LO ports' few lines are made when read (the bench reads them
             # only with its switch on those ports)
-            rf_port=DeferredPort((_entries_to_products, ev.input_entries, self.floor_dbm))
-            if ev.input_entries else (),
-            lo_port=DeferredPort((_entries_to_products, ev.lo_entries, self.floor_dbm))
-            if ev.lo_entries else (),
+            rf_port=() if ev.leaking is None else DeferredPort(
+                (self._port_products, self._input_entries, *ev.leaking)),
+            lo_port=() if ev.leaking is None else DeferredPort(
+                (self._port_products, self._lo_entries, *ev.leaking)),
             if_noise_dbm_per_hz=ev.noise_dbm_per_hz,
             supply_current_a=ev.supply_current_a,
             notes=ev.notes,
@@ -664,10 +665,12 @@ class MixerPart:
         The complex amplitudes of two evaluations can be subtracted to split lines by
         origin (see :mod:`sweeprig.sim.truth`)."""
         ev = self._evaluate(op, lo, tuple(rf), leakage=leakage)
+        in_entries = [] if ev.leaking is None else self._input_entries(*ev.leaking)
+        lo_entries = [] if ev.leaking is None else self._lo_entries(*ev.leaking)
         return PortLines(
             output=Lines(ev.output.freq_hz, ev.output.amp, ev.names[ev.output.orders]),
-            input=merge_coincident(_entries_to_lines(ev.input_entries, 1 + len(tuple(rf)))),
-            lo=merge_coincident(_entries_to_lines(ev.lo_entries, 1 + len(tuple(rf)))),
+            input=merge_coincident(_entries_to_lines(in_entries, 1 + len(tuple(rf)))),
+            lo=merge_coincident(_entries_to_lines(lo_entries, 1 + len(tuple(rf)))),
             noise_dbm_per_hz=ev.noise_dbm_per_hz,
             notes=ev.notes,
         )
@@ -730,10 +733,8 @@ class MixerPart:
                 if gain is not None:
                     cm_amp = cm_amp * gain
                 core = add_lines(core, Lines(layout.freq_hz, cm_amp, layout.codes + cm_offset))
-        phases = self.leakage_phases
-        in_entries: list[_Entry] = []
-        lo_entries: list[_Entry] = []
         if leakage:
+            phases = self.leakage_phases
             leaks: list[_Entry] = []
             iso = self.isolation_rf_if_db
             if iso is not None:
@@ -747,28 +748,10 @@ class MixerPart:
                     "lo_if" if self.conversion == "down" else "lo_rf"))
             if leaks:
                 core = _add_entries(core, leaks, code_of)
-            iso = self.isolation_lo_to_input_db
-            if lo is not None and iso is not None:
-                path = phases.lo_to_rf if self.conversion == "down" else phases.lo_to_if
-                in_entries += _tone_entries(lo, 0, n_axes, iso, path, self._iso_slope(
-                    "lo_rf" if self.conversion == "down" else "lo_if"))
-            if inp.return_loss_db is not None:
-                for k, t in enumerate(tones):
-                    in_entries += _tone_entries(t, 1 + k, n_axes, inp.return_loss_db,
-                                                phases.input_reflection)
-            if lo is not None and self.lo_port.return_loss_db is not None:
-                lo_entries += _tone_entries(lo, 0, n_axes, self.lo_port.return_loss_db,
-                                            phases.lo_reflection)
-            iso = self.isolation_rf_lo_db
-            if iso is not None:
-                for k, t in enumerate(tones):
-                    lo_entries += _tone_entries(t, 1 + k, n_axes, iso, phases.rf_to_lo,
-                                                self._iso_slope("rf_lo"))
         return _Evaluation(
             output=core,
             names=names,
-            input_entries=in_entries,
-            lo_entries=lo_entries,
+            leaking=(lo, tones, n_axes) if leakage else None,
             noise_dbm_per_hz=lo_prep.noise_dbm_per_hz,
             supply_current_a=state.supply_current_a,
             notes={
@@ -783,6 +766,45 @@ class MixerPart:
                 "grid_converged": float(converged and lo_prep.factor.converged),
             },
         )
+
+    def _input_entries(self, lo: ToneInput | None, tones: tuple[ToneInput, ...],
+                       n_axes: int) -> list[_Entry]:
+        """The linear lines leaving the transconductor input port: the LO leaking to it
+        and the tones' reflections."""
+        phases, inp = self.leakage_phases, self.input_port
+        entries: list[_Entry] = []
+        iso = self.isolation_lo_to_input_db
+        if lo is not None and iso is not None:
+            path = phases.lo_to_rf if self.conversion == "down" else phases.lo_to_if
+            entries += _tone_entries(lo, 0, n_axes, iso, path, self._iso_slope(
+                "lo_rf" if self.conversion == "down" else "lo_if"))
+        if inp.return_loss_db is not None:
+            for k, t in enumerate(tones):
+                entries += _tone_entries(t, 1 + k, n_axes, inp.return_loss_db,
+                                         phases.input_reflection)
+        return entries
+
+    def _lo_entries(self, lo: ToneInput | None, tones: tuple[ToneInput, ...],
+                    n_axes: int) -> list[_Entry]:
+        """The linear lines leaving the LO port: its reflection and the tones leaking to
+        it."""
+        phases = self.leakage_phases
+        entries: list[_Entry] = []
+        if lo is not None and self.lo_port.return_loss_db is not None:
+            entries += _tone_entries(lo, 0, n_axes, self.lo_port.return_loss_db,
+                                     phases.lo_reflection)
+        iso = self.isolation_rf_lo_db
+        if iso is not None:
+            for k, t in enumerate(tones):
+                entries += _tone_entries(t, 1 + k, n_axes, iso, phases.rf_to_lo,
+                                         self._iso_slope("rf_lo"))
+        return entries
+
+    def _port_products(self, entries_of: Callable[..., list[_Entry]], lo: ToneInput | None,
+                       tones: tuple[ToneInput, ...], n_axes: int) -> tuple[Product, ...]:
+        """A port's linear lines (``entries_of``: :meth:`_input_entries` or
+        :meth:`_lo_entries`) as products above the floor."""
+        return _entries_to_products(entries_of(lo, tones, n_axes), self.floor_dbm)
 
     def _line_table(self, lo_fac: LoFactor, lo_freq_hz: float, rf_fac: RfFactor,
                     tone_freqs: tuple[float, ...]) -> LineTable:
