@@ -20,8 +20,10 @@ from sweeprig.sim.mixer import OperatingPoint, ToneInput, load_part
 from sweeprig.sim.mixer.core import pair_angle, thermal_voltage_v
 from sweeprig.sim.mixer.multitone import (
     CellState,
+    LoFactor,
     _axis_wave,
     _fold_half,
+    _lo_factor_from_spectra,
     _mirrored,
     _rf_grid_values,
     lo_factor,
@@ -466,3 +468,36 @@ def test_the_one_point_path_gives_the_replaced_chain_s_lines_bit_for_bit(
         if i % 5 == 0:
             _assert_identical(part.evaluate(op, lo, tones), reference,  # type: ignore[arg-type]
                               f"{part_name} point {i} again")
+
+
+def _lo_factor_from_spectra_reference(n: int, d_k: np.ndarray, s_k: np.ndarray,
+                                      max_order: int, converged: bool) -> LoFactor:
+    """The LO coefficients' table as it was made before issue 14 (fancy indexing, always
+    pruned through a mask)."""
+    m_pos = np.arange(max_order + 1)
+    orders = np.concatenate([-m_pos[:0:-1], m_pos])
+    d = np.concatenate([np.conj(d_k[m_pos[:0:-1]]), d_k[m_pos]])
+    s = np.concatenate([np.conj(s_k[m_pos[:0:-1]]), s_k[m_pos]])
+    mag = np.maximum(np.abs(d), np.abs(s))
+    keep = mag > 1e-13 * float(mag.max())
+    return LoFactor(orders=orders[keep], d=d[keep], s=s[keep], grid_n=n, converged=converged)
+
+
+@pytest.mark.parametrize("seed", range(4))
+def test_the_lo_coefficient_table_is_the_reference_s_bit_for_bit(seed: int) -> None:
+    rng = np.random.default_rng(seed)
+    for _ in range(30):
+        n = int(rng.choice([32, 64, 256, 1024]))
+        max_order = int(rng.integers(1, n // 2 - 1))
+        d_k, s_k = (rng.normal(size=n // 2 + 1) + 1j * rng.normal(size=n // 2 + 1)
+                    for _ in range(2))
+        if rng.random() < 0.5:  # some coefficients at rounding level: pruned
+            d_k[rng.integers(0, n // 2 + 1, size=3)] = 0.0
+            s_k[rng.integers(0, n // 2 + 1, size=3)] = 1e-20
+            d_k[d_k.size // 3] = s_k[d_k.size // 3] = 0.0
+        fast = _lo_factor_from_spectra(n, d_k, s_k, max_order, True)
+        reference = _lo_factor_from_spectra_reference(n, d_k, s_k, max_order, True)
+        for name in ("orders", "d", "s", "abs_s", "abs_d"):
+            assert np.array_equal(getattr(fast, name), getattr(reference, name)), name
+        assert (fast.max_s, fast.max_d, fast.has_d, fast.grid_n) == (
+            reference.max_s, reference.max_d, reference.has_d, reference.grid_n)

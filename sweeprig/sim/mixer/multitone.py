@@ -233,13 +233,24 @@ def _lo_factor_from_spectra(
     n: int, d_k: NDArray[np.complex128], s_k: NDArray[np.complex128], max_order: int,
     converged: bool,
 ) -> LoFactor:
-    m_pos = np.arange(max_order + 1)
-    orders = np.concatenate([-m_pos[:0:-1], m_pos])
-    d = np.concatenate([np.conj(d_k[m_pos[:0:-1]]), d_k[m_pos]])
-    s = np.concatenate([np.conj(s_k[m_pos[:0:-1]]), s_k[m_pos]])
+    orders = _lo_orders(max_order)
+    # orders −max … −1 are the conjugates of max … 1 (a real signal), then 0 … max
+    d = np.concatenate([np.conj(d_k[max_order:0:-1]), d_k[: max_order + 1]])
+    s = np.concatenate([np.conj(s_k[max_order:0:-1]), s_k[: max_order + 1]])
     mag = np.maximum(np.abs(d), np.abs(s))
     keep = mag > PRUNE_REL * float(mag.max())
+    if keep.all():
+        return LoFactor(orders=orders, d=d, s=s, grid_n=n, converged=converged)
     return LoFactor(orders=orders[keep], d=d[keep], s=s[keep], grid_n=n, converged=converged)
+
+
+@lru_cache(maxsize=16)
+def _lo_orders(max_order: int) -> NDArray[np.int64]:
+    """LO orders −max_order … max_order (read-only, shared)."""
+    m_pos = np.arange(max_order + 1)
+    orders = np.concatenate([-m_pos[:0:-1], m_pos])
+    orders.flags.writeable = False
+    return orders
 
 
 # --- RF factor ---------------------------------------------------------------------------
