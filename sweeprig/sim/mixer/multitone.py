@@ -286,9 +286,9 @@ def combo_tuples(max_lo_order: int, n_tones: int, max_rf_order: int) -> NDArray[
 @lru_cache(maxsize=128)
 def _fft_index(
     shape: tuple[int, ...], max_order: int
-) -> tuple[NDArray[np.intp], NDArray[np.bool_]]:
+) -> tuple[NDArray[np.intp], NDArray[np.intp]]:
     """Flat indices of :func:`order_table`'s orders in the rfftn output of a grid of
-    ``shape``, and which of them are read as the conjugate of the negated order (the last
+    ``shape``, and the positions of those read as the conjugate of the negated order (the last
     axis of rfftn holds n ≥ 0 only)."""
     k = len(shape)
     grid = order_table(k, max_order)
@@ -298,9 +298,10 @@ def _fft_index(
     idx = np.ravel_multi_index(
         tuple((read[:, a] % shape[a]) if a < k - 1 else read[:, a] for a in range(k)), rshape
     )
-    for arr in (idx, conj):
+    conj_at = conj.nonzero()[0]
+    for arr in (idx, conj_at):
         arr.flags.writeable = False
-    return idx, conj
+    return idx, conj_at
 
 
 def _rf_grid_values(
@@ -421,7 +422,7 @@ def rf_factor(
     spectrum = scipy.fft.rfftn(values).ravel()
     idx, conj = _fft_index(tuple(grid_shape), max_order)
     x = spectrum[idx]
-    if conj.any():
+    if conj.size:
         x[conj] = np.conj(x[conj])
     x *= 1.0 / math.prod(grid_shape)
     table = order_table(k, max_order)
@@ -489,7 +490,7 @@ def rf_factor_rows(
         spectrum = scipy.fft.rfftn(values, axes=tuple(range(1, k + 1))).reshape(stop - start,
                                                                                  -1)
         x = spectrum[:, idx]
-        if conj.any():
+        if conj.size:
             x[:, conj] = np.conj(x[:, conj])
         x *= 1.0 / math.prod(grid_shape)
         out[start:stop] = x
