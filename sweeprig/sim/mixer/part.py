@@ -136,6 +136,9 @@ MAX_RF_TONES = 3
 SSB_NOISE_FIGURE_FLOOR_DB = 10.0 * math.log10(2.0)
 _CACHE_LIMIT = 256
 _TABLE_LIMIT = 64  # about 80 kB each for the demo part
+#: Line tables and common-mode layouts of the one-point path kept per part (a line table is
+#: about 90 kB for the demo part with two tones, 0.6 MB with three; a power sweep needs one)
+_POINT_TABLE_LIMIT = 16
 _AMP_BUCKET_DB = 1.0
 
 Conversion = Literal["down", "up"]
@@ -454,6 +457,11 @@ class MixerPart:
     _tables: dict[Any, Any] = field(
         default_factory=dict, init=False, repr=False, compare=False, hash=False
     )
+    #: The one-point path's line tables and common-mode layouts, by LO and tone
+    #: frequencies (see :meth:`_line_table`): the points of a power sweep share them.
+    _point_tables: dict[Any, Any] = field(
+        default_factory=dict, init=False, repr=False, compare=False, hash=False
+    )
 
     def __post_init__(self) -> None:
         where = f"mixer part {self.name!r}"
@@ -565,6 +573,11 @@ class MixerPart:
         if len(self._tables) >= _TABLE_LIMIT:
             del self._tables[next(iter(self._tables))]  # the oldest
         self._tables[key] = value
+
+    def _remember_point_table(self, key: Any, value: Any) -> None:
+        if len(self._point_tables) >= _POINT_TABLE_LIMIT:
+            del self._point_tables[next(iter(self._point_tables))]  # the oldest
+        self._point_tables[key] = value
 
     def _remember(self, key: Any, value: Any) -> None:
         if len(self._cache) >= _CACHE_LIMIT:
@@ -808,14 +821,14 @@ class MixerPart:
 
     def _line_table(self, lo_fac: LoFactor, lo_freq_hz: float, rf_fac: RfFactor,
                     tone_freqs: tuple[float, ...]) -> LineTable:
-        """The :class:`LineTable` of an LO and tone frequencies, kept (with the sweep
-        path's tables) for the points of a power sweep, which share it."""
+        """The :class:`LineTable` of an LO and tone frequencies, kept for the points of a
+        power sweep, which share it."""
         key = ("one-point", lo_freq_hz, tone_freqs, lo_fac.orders.tobytes(),
                self.max_rf_order)
-        table = self._tables.get(key)
+        table = self._point_tables.get(key)
         if table is None:
             table = LineTable(lo_fac.orders, lo_freq_hz, rf_fac.orders, tone_freqs)
-            self._remember_table(key, table)
+            self._remember_point_table(key, table)
         return table
 
     def _common_mode_layout(
@@ -823,11 +836,10 @@ class MixerPart:
     ) -> tuple[CommonModeLayout, Any]:
         """The common-mode lines' :class:`CommonModeLayout` for tones at ``tone_freqs``
         with the harmonics of ``amps``, and the output port's band-edge magnitude at each
-        (None: no band edges); kept (with the line tables) for the points of a power
-        sweep, which share them."""
+        (None: no band edges); kept for the points of a power sweep, which share them."""
         counts = tuple([len(a) for a in amps])
         key = ("common-mode", tone_freqs, counts)
-        kept = self._tables.get(key)
+        kept = self._point_tables.get(key)
         if kept is None:
             layout = CommonModeLayout(
                 np.array([h * f for f, count in zip(tone_freqs, counts, strict=True)
@@ -835,7 +847,7 @@ class MixerPart:
             out = self.output_port
             banded = out.highpass_hz is not None or out.lowpass_hz is not None
             kept = (layout, out.magnitude(layout.freq_hz) if banded else None)
-            self._remember_table(key, kept)
+            self._remember_point_table(key, kept)
         return kept
 
     def _lo_prepared(
