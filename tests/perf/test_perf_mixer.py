@@ -13,8 +13,9 @@ one vectorised chain over the points, :mod:`sweeprig.sim.mixer.sweep`; what the 
 bench's read-ahead uses for a sweep it recognises). Issue 14 sets ≥ 5,000 evaluations/s on
 the demo part (kx-2417) with source harmonics on, measured on a quiet machine; the lines say
 met or MISSED against it for one call per point and for the sweep path, with the load
-average beside them. The last benchmark splits the sweep path's time per evaluation by
-stage (where the next speed-up has to come from).
+average beside them. Two benchmarks split the time per evaluation by stage (where the next
+speed-up has to come from): the sweep path's, and the one-call path's for a power sweep at a
+fixed LO and for the LO following the tones.
 """
 
 import os
