@@ -13,8 +13,9 @@ one vectorised chain over the points, :mod:`sweeprig.sim.mixer.sweep`; what the 
 bench's read-ahead uses for a sweep it recognises). Issue 14 sets ≥ 5,000 evaluations/s on
 the demo part (kx-2417) with source harmonics on, measured on a quiet machine; the lines say
 met or MISSED against it for one call per point and for the sweep path, with the load
-average beside them. The last benchmark splits the sweep path's time per evaluation by
-stage (where the next speed-up has to come from).
+average beside them. Two benchmarks split the time per evaluation by stage (where the next
+speed-up has to come from): the sweep path's, and the one-call path's for a power sweep at a
+fixed LO and for the LO following the tones.
 """
 
 import os
@@ -217,3 +218,105 @@ def test_where_a_sweep_evaluation_s_time_goes(monkeypatch: pytest.MonkeyPatch) -
     print(f"  {best_total / _CALLS * 1e6:6.1f} us per evaluation: "
           f"{_CALLS / best_total:,.0f} evaluations/s")
     assert best
+
+
+#: The one-call path's stages (:meth:`MixerPart.evaluate`), by the function that does each
+#: (the outermost one counts when they nest): (owner, name, label).
+_ONE_CALL_STAGES = (
+    ("part", "MixerPart._lo_prepared", "LO factor, gain and noise (cached per LO)"),
+    ("part", "MixerPart.tone_core_amplitudes", "input amplitudes at the core"),
+    ("part", "MixerPart._rf_shape", "RF grid size (cached per 1 dB bucket)"),
+    ("part", "rf_factor", "transconductor factor: pair solved on the half grid, FFT"),
+    ("part", "MixerPart._line_table", "line table (kept per LO and tone frequencies)"),
+    ("part", "combine_on", "combination: bounds, amplitudes, codes"),
+    ("part", "merge_coincident", "sort and merge of coincident lines"),
+    ("part", "MixerPart._common_mode_layout", "common-mode layout (kept per frequencies)"),
+    ("part", "common_mode_im2_amplitudes", "common-mode IM2 amplitudes"),
+    ("part", "add_lines", "adding the IM2 lines"),
+    ("part", "_tone_entries", "leakage lines to the output"),
+    ("part", "_add_entries", "adding the leakage lines"),
+    ("part", "MixerPart._levels", "floor and dBm"),
+)
+
+
+def _one_call_split(
+    monkeypatch: pytest.MonkeyPatch, plan: list[tuple[ToneInput, list[ToneInput]]],
+) -> tuple[dict[str, float], float]:
+    """Processor time per stage of one call per point (best of several passes) and the
+    total, both per evaluation, s. The timing wrappers add a little to each stage."""
+    from sweeprig.sim.mixer import part as part_module
+
+    spent: dict[str, float] = {}
+    depth = [0]
+
+    def timed(fn: Callable[..., Any], label: str) -> Callable[..., Any]:
+        def run(*args: Any, **kwargs: Any) -> Any:
+            if depth[0]:
+                return fn(*args, **kwargs)
+            depth[0] += 1
+            start = time.process_time()
+            try:
+                return fn(*args, **kwargs)
+            finally:
+                spent[label] = spent.get(label, 0.0) + time.process_time() - start
+                depth[0] -= 1
+        return run
+
+    for _, dotted, label in _ONE_CALL_STAGES:
+        owner: Any = part_module
+        *outer, name = dotted.split(".")
+        for step in outer:
+            owner = getattr(owner, step)
+        fn = owner.__dict__[name] if isinstance(owner, type) else getattr(owner, name)
+        if isinstance(fn, staticmethod):
+            monkeypatch.setattr(owner, name, staticmethod(timed(fn.__func__, label)))
+        else:
+            monkeypatch.setattr(owner, name, timed(fn, label))
+    part = load_part("kx-2417")
+    op = OperatingPoint()
+    for lo, tones in plan[:50]:
+        part.evaluate(op, lo, tones)
+    best_total, best = float("inf"), {}
+    for _ in range(2 * _PASSES):
+        spent.clear()
+        start = time.process_time()
+        for lo, tones in plan:
+            part.evaluate(op, lo, tones).levels("if_port")
+        total = time.process_time() - start
+        if total < best_total:
+            best_total, best = total, dict(spent)
+    return ({label: seconds / len(plan) for label, seconds in best.items()},
+            best_total / len(plan))
+
+
+@pytest.mark.perf
+def test_where_a_one_call_evaluation_s_time_goes(monkeypatch: pytest.MonkeyPatch) -> None:
+    """The one-call path (the demo part, harmonics on) split by stage, for a power sweep at
+    a fixed LO (the line tables and layouts kept) and for the LO following the tones (all
+    made afresh, and a new LO factor every point): where the next speed-up has to come
+    from."""
+    harmonics = (-35.0, -45.0)
+    fixed, following = [], []
+    for i in range(_CALLS):
+        power = -35.0 + (i % 40) * 0.25
+        f1 = 2.2e9 + (i % 7) * 1e6
+        fixed.append((ToneInput(2.1e9, 0.0, 0.0, harmonics),
+                      [ToneInput(f1, power, 0.0, harmonics),
+                       ToneInput(f1 + 1e6, power, 0.0, harmonics)]))
+        f1 = 2.3e9 + i * 2e5
+        following.append((ToneInput(f1 - 70e6, 7.0, 0.0, harmonics),
+                          [ToneInput(f1, -25.0, 0.0, harmonics),
+                           ToneInput(f1 + 1e6, -25.0, 0.0, harmonics)]))
+    for title, plan in (("a power sweep at a fixed LO", fixed),
+                        ("the LO following the tones", following)):
+        stages, total = _one_call_split(monkeypatch, plan)
+        print(f"\nkx-2417, sources with 2nd/3rd harmonics, one call per point, {title}: "
+              f"processor time per evaluation by stage (best of {2 * _PASSES} passes; "
+              f"load average {os.getloadavg()[0]:.1f} on {os.cpu_count()} cores):")
+        for label, seconds in sorted(stages.items(), key=lambda item: -item[1]):
+            print(f"  {seconds * 1e6:6.1f} us  {label}")
+        print(f"  {(total - sum(stages.values())) * 1e6:6.1f} us  the rest (checks, caches, "
+              "records, the response)")
+        print(f"  {total * 1e6:6.1f} us per evaluation (with the timing wrappers)")
+        monkeypatch.undo()
+        assert stages

@@ -20,12 +20,15 @@ from sweeprig.sim.mixer import OperatingPoint, ToneInput, load_part
 from sweeprig.sim.mixer.core import pair_angle, thermal_voltage_v
 from sweeprig.sim.mixer.multitone import (
     CellState,
+    LoFactor,
     _axis_wave,
     _fold_half,
+    _lo_factor_from_spectra,
     _mirrored,
     _rf_grid_values,
     lo_factor,
 )
+from tests.sim.mixer_reference_chain import reference_response
 
 #: Power difference allowed between a fast and a reference line, dB (issue 14's figure).
 TOL_DB = 1e-9
@@ -390,3 +393,111 @@ def test_the_sweep_path_takes_a_part_whose_bias_is_off_and_a_bad_tone_as_evaluat
     with pytest.raises(InputError, match="input tone 2"):
         part.evaluate_many(OperatingPoint(), lo, [tones, [tones[0], ToneInput(2.2e9,
                                                                                math.nan)]])
+
+
+# --- the one-point path against the chain it replaced -------------------------------------
+_PORTS = ("if_port", "rf_port", "lo_port")
+
+
+def _one_point_plan(part_name: str, rng: np.random.Generator) -> list[tuple[object, ...]]:
+    """About a hundred points as the benches and studies ask them: power sweeps at a fixed
+    LO and tone frequencies (the kept tables serve all but the first point), the LO
+    following the tones (a new LO every point), one to three tones or none, source
+    harmonics on and off, phases, other operating points, no LO, a bias switched off."""
+    down = load_part(part_name).conversion == "down"
+    lo_dbm = {"kx-2417": 0.0, "kx-5803": 13.0, "ideal": 0.0}.get(part_name, 10.0)
+    f_in = 2.2e9 if down else 120e6
+    plan: list[tuple[object, ...]] = []
+    for group in range(14):
+        harmonics = ((), (-35.0, -45.0), (float(rng.uniform(-60.0, -25.0)),))[group % 3]
+        n_tones = (2, 1, 3, 2, 0)[group % 5]
+        follow = group % 4 == 1
+        op = OperatingPoint() if group % 6 else OperatingPoint(
+            float(rng.uniform(-40.0, 85.0)), float(rng.uniform(2.8, 3.6)))
+        if group == 9:
+            op = OperatingPoint(25.0, 1.0)  # below every part's minimum supply: bias off
+        f1 = f_in * float(rng.uniform(0.85, 1.2))
+        spacing = float(rng.choice([2e5, 1e6, 20e6]))
+        phase = float(rng.uniform(0.0, 6.0)) if group % 7 == 3 else 0.0
+        start = float(rng.uniform(-45.0, -20.0))
+        for step in range(7):
+            f = f1 + step * 3e5 if follow else f1
+            if down:
+                lo_freq = f - 70e6 if follow else 2.1e9
+            else:
+                lo_freq = 2.4e9 + step * 3e5 if follow else 2.4e9
+            lo = None if group == 11 else ToneInput(
+                lo_freq, lo_dbm + (float(rng.uniform(-6.0, 3.0)) if group % 5 == 2 else 0.0),
+                phase, harmonics if group % 2 else ())
+            power = start + 0.5 * step
+            tones = [ToneInput(f + k * spacing, power + 0.25 * k, phase * k, harmonics)
+                     for k in range(n_tones)]
+            plan.append((op, lo, tones))
+    return plan
+
+
+def _assert_identical(fast: object, reference: object, where: str) -> None:
+    """Every port's frequencies, levels and orders equal bit for bit, as arrays and as
+    :class:`Product` tuples, and the noise, supply current and notes."""
+    for port in _PORTS:
+        got, want = fast.levels(port), reference.levels(port)  # type: ignore[attr-defined]
+        assert np.array_equal(got.freq_hz, want.freq_hz), (where, port)
+        assert np.array_equal(got.power_dbm, want.power_dbm), (where, port)
+        assert got.orders.tolist() == want.orders.tolist(), (where, port)
+        assert getattr(fast, port) == getattr(reference, port), (where, port)
+    assert fast.if_noise_dbm_per_hz == reference.if_noise_dbm_per_hz, where  # type: ignore[attr-defined]
+    assert fast.supply_current_a == reference.supply_current_a, where  # type: ignore[attr-defined]
+    assert fast.notes == reference.notes, where  # type: ignore[attr-defined]
+
+
+@pytest.mark.parametrize("part_name", ["kx-2417", "kx-5803", "ideal", "kx-5860u"])
+def test_the_one_point_path_gives_the_replaced_chain_s_lines_bit_for_bit(
+    part_name: str,
+) -> None:
+    """Issue 14's one-call speed-ups (kept line tables and common-mode layouts, the orders
+    carried as codes, the input and LO ports made when read) change nothing: each response
+    equals, bit for bit, the one the chain they replaced makes
+    (``tests/sim/mixer_reference_chain.py``) from the same factors; a point evaluated again
+    (its tables kept) too."""
+    part = load_part(part_name)
+    rng = np.random.default_rng(1405)
+    for i, (op, lo, tones) in enumerate(_one_point_plan(part_name, rng)):
+        fast = part.evaluate(op, lo, tones)  # type: ignore[arg-type]
+        reference = reference_response(part, op, lo, tones)  # type: ignore[arg-type]
+        _assert_identical(fast, reference, f"{part_name} point {i}")
+        if i % 5 == 0:
+            _assert_identical(part.evaluate(op, lo, tones), reference,  # type: ignore[arg-type]
+                              f"{part_name} point {i} again")
+
+
+def _lo_factor_from_spectra_reference(n: int, d_k: np.ndarray, s_k: np.ndarray,
+                                      max_order: int, converged: bool) -> LoFactor:
+    """The LO coefficients' table as it was made before issue 14 (fancy indexing, always
+    pruned through a mask)."""
+    m_pos = np.arange(max_order + 1)
+    orders = np.concatenate([-m_pos[:0:-1], m_pos])
+    d = np.concatenate([np.conj(d_k[m_pos[:0:-1]]), d_k[m_pos]])
+    s = np.concatenate([np.conj(s_k[m_pos[:0:-1]]), s_k[m_pos]])
+    mag = np.maximum(np.abs(d), np.abs(s))
+    keep = mag > 1e-13 * float(mag.max())
+    return LoFactor(orders=orders[keep], d=d[keep], s=s[keep], grid_n=n, converged=converged)
+
+
+@pytest.mark.parametrize("seed", range(4))
+def test_the_lo_coefficient_table_is_the_reference_s_bit_for_bit(seed: int) -> None:
+    rng = np.random.default_rng(seed)
+    for _ in range(30):
+        n = int(rng.choice([32, 64, 256, 1024]))
+        max_order = int(rng.integers(1, n // 2 - 1))
+        d_k, s_k = (rng.normal(size=n // 2 + 1) + 1j * rng.normal(size=n // 2 + 1)
+                    for _ in range(2))
+        if rng.random() < 0.5:  # some coefficients at rounding level: pruned
+            d_k[rng.integers(0, n // 2 + 1, size=3)] = 0.0
+            s_k[rng.integers(0, n // 2 + 1, size=3)] = 1e-20
+            d_k[d_k.size // 3] = s_k[d_k.size // 3] = 0.0
+        fast = _lo_factor_from_spectra(n, d_k, s_k, max_order, True)
+        reference = _lo_factor_from_spectra_reference(n, d_k, s_k, max_order, True)
+        for name in ("orders", "d", "s", "abs_s", "abs_d"):
+            assert np.array_equal(getattr(fast, name), getattr(reference, name)), name
+        assert (fast.max_s, fast.max_d, fast.has_d, fast.grid_n) == (
+            reference.max_s, reference.max_d, reference.has_d, reference.grid_n)

@@ -28,9 +28,10 @@ phases radians, frequencies Hz. Coefficients are those of the complex exponentia
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from functools import lru_cache
+from typing import NamedTuple
 
 import numpy as np
 import scipy.fft
@@ -232,13 +233,24 @@ def _lo_factor_from_spectra(
     n: int, d_k: NDArray[np.complex128], s_k: NDArray[np.complex128], max_order: int,
     converged: bool,
 ) -> LoFactor:
-    m_pos = np.arange(max_order + 1)
-    orders = np.concatenate([-m_pos[:0:-1], m_pos])
-    d = np.concatenate([np.conj(d_k[m_pos[:0:-1]]), d_k[m_pos]])
-    s = np.concatenate([np.conj(s_k[m_pos[:0:-1]]), s_k[m_pos]])
+    orders = _lo_orders(max_order)
+    # orders −max … −1 are the conjugates of max … 1 (a real signal), then 0 … max
+    d = np.concatenate([np.conj(d_k[max_order:0:-1]), d_k[: max_order + 1]])
+    s = np.concatenate([np.conj(s_k[max_order:0:-1]), s_k[: max_order + 1]])
     mag = np.maximum(np.abs(d), np.abs(s))
     keep = mag > PRUNE_REL * float(mag.max())
+    if keep.all():
+        return LoFactor(orders=orders, d=d, s=s, grid_n=n, converged=converged)
     return LoFactor(orders=orders[keep], d=d[keep], s=s[keep], grid_n=n, converged=converged)
+
+
+@lru_cache(maxsize=16)
+def _lo_orders(max_order: int) -> NDArray[np.int64]:
+    """LO orders −max_order … max_order (read-only, shared)."""
+    m_pos = np.arange(max_order + 1)
+    orders = np.concatenate([-m_pos[:0:-1], m_pos])
+    orders.flags.writeable = False
+    return orders
 
 
 # --- RF factor ---------------------------------------------------------------------------
@@ -274,9 +286,9 @@ def combo_tuples(max_lo_order: int, n_tones: int, max_rf_order: int) -> NDArray[
 @lru_cache(maxsize=128)
 def _fft_index(
     shape: tuple[int, ...], max_order: int
-) -> tuple[NDArray[np.intp], NDArray[np.bool_]]:
+) -> tuple[NDArray[np.intp], NDArray[np.intp]]:
     """Flat indices of :func:`order_table`'s orders in the rfftn output of a grid of
-    ``shape``, and which of them are read as the conjugate of the negated order (the last
+    ``shape``, and the positions of those read as the conjugate of the negated order (the last
     axis of rfftn holds n ≥ 0 only)."""
     k = len(shape)
     grid = order_table(k, max_order)
@@ -286,9 +298,10 @@ def _fft_index(
     idx = np.ravel_multi_index(
         tuple((read[:, a] % shape[a]) if a < k - 1 else read[:, a] for a in range(k)), rshape
     )
-    for arr in (idx, conj):
+    conj_at = conj.nonzero()[0]
+    for arr in (idx, conj_at):
         arr.flags.writeable = False
-    return idx, conj
+    return idx, conj_at
 
 
 def _rf_grid_values(
@@ -409,7 +422,7 @@ def rf_factor(
     spectrum = scipy.fft.rfftn(values).ravel()
     idx, conj = _fft_index(tuple(grid_shape), max_order)
     x = spectrum[idx]
-    if conj.any():
+    if conj.size:
         x[conj] = np.conj(x[conj])
     x *= 1.0 / math.prod(grid_shape)
     table = order_table(k, max_order)
@@ -477,7 +490,7 @@ def rf_factor_rows(
         spectrum = scipy.fft.rfftn(values, axes=tuple(range(1, k + 1))).reshape(stop - start,
                                                                                  -1)
         x = spectrum[:, idx]
-        if conj.any():
+        if conj.size:
             x[:, conj] = np.conj(x[:, conj])
         x *= 1.0 / math.prod(grid_shape)
         out[start:stop] = x
@@ -492,14 +505,66 @@ def _all_rows(count: int) -> NDArray[np.intp]:
 
 
 # --- combination -------------------------------------------------------------------------
-@dataclass(frozen=True)
-class Lines:
+class Lines(NamedTuple):
     """Spectral lines: frequency (Hz, > 0), complex amplitude, and the orders
-    ``(m_LO, n_1, …, n_K)`` of each as an object array of tuples."""
+    ``(m_LO, n_1, …, n_K)`` of each as an object array of tuples. A named tuple
+    (immutable; several times cheaper to make than a frozen dataclass, and an evaluation
+    makes a dozen)."""
 
     freq_hz: NDArray[np.float64]
     amp: NDArray[np.complex128]
     orders: NDArray[np.object_]
+
+
+class LineTable:
+    """The frequency of every (LO order, RF order) entry of a combination, Hz, row by row
+    (``freq``, flat; ``positive``: which are above ``MERGE_TOL_HZ``), and what depends on
+    those frequencies only, made when first asked for: the entries' order codes and the
+    output port's band-edge magnitudes. Points that share their LO and tone frequencies
+    (a power sweep) share one (the caller keeps it); the frequencies are those
+    :func:`combine` computes on its own, and each entry's band magnitude is the one the
+    port gives for that line (element-wise operations)."""
+
+    __slots__ = ("_codes", "_gain", "freq", "positive", "shape", "uses")
+
+    def __init__(self, lo_orders: NDArray[np.int64], lo_freq_hz: float,
+                 rf_orders: NDArray[np.int64], rf_freqs_hz: Sequence[float]) -> None:
+        lo_f = lo_orders * lo_freq_hz
+        if rf_orders.shape[1]:
+            freq = np.add.outer(lo_f, rf_orders @ np.asarray(rf_freqs_hz, dtype=float))
+        else:
+            freq = lo_f[:, None]
+        self.shape: tuple[int, int] = freq.shape
+        self.positive: NDArray[np.bool_] = freq > MERGE_TOL_HZ
+        self.freq: NDArray[np.float64] = freq.ravel()
+        self.uses = 0  # combinations made on this table
+        self._codes: NDArray[np.intp] | None = None
+        self._gain: NDArray[np.float64] | None = None
+
+    def codes(self, lo: LoFactor, rf: RfFactor, max_lo_order: int,
+              width: int) -> NDArray[np.intp]:
+        """Each entry's code in :func:`combo_tuples` (``width``: its row length)."""
+        if self._codes is None:
+            self._codes = np.add.outer((lo.orders + max_lo_order) * width, rf.index).ravel()
+        return self._codes
+
+    def gain(self, magnitude: Callable[[NDArray[np.float64]], NDArray[np.float64]]
+             ) -> NDArray[np.float64]:
+        """``magnitude`` (a port's band-edge magnitude) of every entry's frequency."""
+        if self._gain is None:
+            self._gain = magnitude(self.freq)
+        return self._gain
+
+
+@lru_cache(maxsize=64)
+def _entry_rows_columns(rows: int, columns: int) -> tuple[NDArray[np.intp], NDArray[np.intp]]:
+    """The row and the column of every entry of a (rows, columns) table read row by row
+    (``np.divmod`` of the flat index, looked up; read-only, shared)."""
+    row = np.repeat(np.arange(rows), columns)
+    column = np.tile(np.arange(columns), rows)
+    for arr in (row, column):
+        arr.flags.writeable = False
+    return row, column
 
 
 def combine(
@@ -522,34 +587,64 @@ def combine(
     ``max_lo_order``/``max_rf_order`` must be those the factors were made with (they index
     the cached order tuples).
     """
+    table = LineTable(lo.orders, lo_freq_hz, rf.orders, rf_freqs_hz)
+    return combine_on(table, lo, lo_phase_rad, rf, rf_phases_rad, i_ee_a, max_lo_order,
+                      max_rf_order, min_abs_a)[0]
+
+
+def combine_on(
+    table: LineTable,
+    lo: LoFactor,
+    lo_phase_rad: float,
+    rf: RfFactor,
+    rf_phases_rad: Sequence[float],
+    i_ee_a: float,
+    max_lo_order: int,
+    max_rf_order: int,
+    min_abs_a: float | None = None,
+    *,
+    coded: bool = False,
+) -> tuple[Lines, NDArray[np.intp]]:
+    """:func:`combine` on a :class:`LineTable` of these factors' orders (made for their
+    LO and tone frequencies, possibly kept from an earlier point), and the entry of the
+    table each line is (its flat index). ``coded``: the lines' orders are given as their
+    codes in ``combo_tuples(max_lo_order, K, max_rf_order).ravel()`` (integers, cheaper
+    to carry through a merge than tuples).
+
+    Every entry of the table is weighed; an RF order that cannot reach the limit with any
+    LO order (``|X_n|·max|S_m| ≤ limit``) has no entry above it (rounding is monotone), so
+    the lines are those of weighing the reachable orders only, in the same order."""
     k = rf.orders.shape[1]
     if i_ee_a <= 0.0:
-        return Lines(np.zeros(0), np.zeros(0, dtype=complex), np.empty(0, dtype=object))
+        none = np.zeros(0, dtype=np.intp)
+        return (Lines(np.zeros(0), np.zeros(0, dtype=complex),
+                      none if coded else np.empty(0, dtype=object)), none)
     if min_abs_a is None:
         limit = PRUNE_REL * (lo.max_s * float(rf.abs_x.max()) + lo.max_d)
     else:
         limit = min_abs_a / i_ee_a
-    x, abs_x, orders, index = rf.x, rf.abs_x, rf.orders, rf.index
-    # RF orders that cannot reach the limit with any LO order (bound |S|·|X| + |D|)
-    reach = abs_x * lo.max_s > limit
-    reach[0] = True
-    if not reach.all():
-        rows = reach.nonzero()[0]
-        x, abs_x, orders, index = x[rows], abs_x[rows], orders[rows], index[rows]
-    bound = np.multiply.outer(lo.abs_s, abs_x)
+    table.uses += 1
+    x = rf.x
+    bound = np.multiply.outer(lo.abs_s, rf.abs_x)
     if lo.has_d:
         bound[:, 0] += lo.abs_d
-    lo_f = lo.orders * lo_freq_hz
-    freq = np.add.outer(lo_f, orders @ np.asarray(rf_freqs_hz, dtype=float)) if k else lo_f[:, None]
     mask = bound > limit
-    mask &= freq > MERGE_TOL_HZ
+    mask &= table.positive
     flat = mask.ravel().nonzero()[0]
-    li, pi = np.divmod(flat, abs_x.size)
+    rows_of, columns_of = _entry_rows_columns(*table.shape)
+    li, pi = rows_of[flat], columns_of[flat]
     s = lo.s * i_ee_a  # 2·(I_EE/2): a real line is 2·its coefficient
     if lo_phase_rad:
         s = s * np.exp(1j * lo_phase_rad * lo.orders)
     if k and any(rf_phases_rad):
-        x = x * np.exp(1j * (orders @ np.asarray(rf_phases_rad, dtype=float)))
+        # the phases turn the reachable orders (the only ones read below)
+        reach = rf.abs_x * lo.max_s > limit
+        reach[0] = True
+        rows = reach.nonzero()[0]
+        turned = x[rows] * np.exp(1j * (rf.orders[rows] @ np.asarray(rf_phases_rad,
+                                                                      dtype=float)))
+        x = np.zeros_like(x)
+        x[rows] = turned
     amp = s[li] * x[pi]
     if lo.has_d:
         at_zero = (pi == 0).nonzero()[0]
@@ -558,9 +653,12 @@ def combine(
             if lo_phase_rad:
                 d = d * np.exp(1j * lo_phase_rad * lo.orders)
             amp[at_zero] += d[li[at_zero]]
-    table = combo_tuples(max_lo_order, k, max_rf_order)
-    codes = (lo.orders + max_lo_order)[li] * table.shape[1] + index[pi]
-    return Lines(freq.ravel()[flat], amp, table.ravel()[codes])
+    tuples = combo_tuples(max_lo_order, k, max_rf_order)
+    if table.uses > 1:  # kept for another point: the codes of all its entries, once
+        codes = table.codes(lo, rf, max_lo_order, tuples.shape[1])[flat]
+    else:
+        codes = (lo.orders + max_lo_order)[li] * tuples.shape[1] + rf.index[pi]
+    return Lines(table.freq[flat], amp, codes if coded else tuples.ravel()[codes]), flat
 
 
 def merge_coincident(lines: Lines, tol_hz: float = MERGE_TOL_HZ) -> Lines:
@@ -570,23 +668,27 @@ def merge_coincident(lines: Lines, tol_hz: float = MERGE_TOL_HZ) -> Lines:
     """
     if lines.freq_hz.size == 0:
         return lines
-    order = np.argsort(lines.freq_hz)
+    order = lines.freq_hz.argsort()
     freq = lines.freq_hz[order]
+    gaps = freq[1:] - freq[:-1]  # np.diff's values, without its wrapper
+    apart = gaps > tol_hz
+    if apart.all():
+        return Lines(freq, lines.amp[order], lines.orders[order])
     new_group = np.empty(freq.size, dtype=bool)
     new_group[0] = True
-    np.greater(np.diff(freq), tol_hz, out=new_group[1:])
-    if new_group.all():
-        return Lines(freq, lines.amp[order], lines.orders[order])
+    new_group[1:] = apart
     amp = lines.amp[order]
     orders = lines.orders[order]
-    starts = np.flatnonzero(new_group)
-    ends = np.append(starts[1:], freq.size)
+    starts = new_group.nonzero()[0]
+    ends = np.empty_like(starts)
+    ends[:-1] = starts[1:]
+    ends[-1] = freq.size
     merged_amp = amp[starts]
     merged_orders = orders[starts]
-    for g in np.flatnonzero(ends - starts > 1).tolist():
+    for g in ((ends - starts) > 1).nonzero()[0].tolist():
         seg = amp[starts[g] : ends[g]]
         merged_amp[g] = seg.sum()
-        merged_orders[g] = orders[starts[g] + int(np.argmax(np.abs(seg)))]
+        merged_orders[g] = orders[starts[g] + int(np.abs(seg).argmax())]
     return Lines(freq[starts], merged_amp, merged_orders)
 
 
@@ -599,31 +701,38 @@ def add_lines(base: Lines, extra: Lines, tol_hz: float = MERGE_TOL_HZ) -> Lines:
     freq = base.freq_hz
     if freq.size == 0:
         return extra
-    at = np.searchsorted(freq, extra.freq_hz)
+    ef = extra.freq_hz
+    at = freq.searchsorted(ef)
     right = np.minimum(at, freq.size - 1)
-    left = np.maximum(at - 1, 0)
-    use_left = np.abs(freq[left] - extra.freq_hz) < np.abs(freq[right] - extra.freq_hz)
+    at -= 1
+    left = np.maximum(at, 0, out=at)
+    off_left = np.abs(freq[left] - ef)
+    off_right = np.abs(freq[right] - ef)
+    use_left = off_left < off_right
     near = np.where(use_left, left, right)
-    hit = np.abs(freq[near] - extra.freq_hz) <= tol_hz
+    # the offset from the nearer line (of the two, the one ``near`` picks)
+    hit = np.where(use_left, off_left, off_right) <= tol_hz
     amp = base.amp.copy()
     orders = base.orders
-    if hit.any():
-        idx = near[hit]
+    hits = hit.nonzero()[0]
+    if hits.size:
+        idx = near[hits]
+        extra_amp = extra.amp[hits]
         before = np.abs(amp[idx])
-        np.add.at(amp, idx, extra.amp[hit])  # extra lines need not be merged among themselves
-        stronger = np.abs(extra.amp[hit]) > before
+        np.add.at(amp, idx, extra_amp)  # extra lines need not be merged among themselves
+        stronger = np.abs(extra_amp) > before
         if stronger.any():
             orders = orders.copy()
-            orders[idx[stronger]] = extra.orders[hit][stronger]
+            orders[idx[stronger]] = extra.orders[hits[stronger]]
     merged = Lines(freq, amp, orders)
-    if hit.all():
+    if hits.size == ef.size:
         return merged
-    rest = ~hit
-    joined = concat_lines([merged, Lines(extra.freq_hz[rest], extra.amp[rest],
-                                         extra.orders[rest])])
-    order = np.argsort(joined.freq_hz, kind="stable")
-    joined = Lines(joined.freq_hz[order], joined.amp[order], joined.orders[order])
-    if np.any(np.diff(joined.freq_hz) <= tol_hz):
+    rest = (~hit).nonzero()[0]
+    joined = concat_lines([merged, Lines(ef[rest], extra.amp[rest], extra.orders[rest])])
+    order = joined.freq_hz.argsort(kind="stable")
+    freq = joined.freq_hz[order]
+    joined = Lines(freq, joined.amp[order], joined.orders[order])
+    if ((freq[1:] - freq[:-1]) <= tol_hz).any():
         return merge_coincident(joined, tol_hz)
     return joined
 

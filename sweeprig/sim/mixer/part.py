@@ -70,7 +70,7 @@ from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field, replace
 from functools import lru_cache
 from pathlib import Path
-from typing import Annotated, Any, Literal
+from typing import Annotated, Any, Literal, NamedTuple
 
 import numpy as np
 from pydantic import (
@@ -95,10 +95,12 @@ from sweeprig.sim.mixer.multitone import (
     MERGE_TOL_HZ,
     CellState,
     Lines,
+    LineTable,
     LoFactor,
     RfFactor,
     add_lines,
-    combine,
+    combine_on,
+    combo_tuples,
     concat_lines,
     lo_factor,
     merge_coincident,
@@ -107,14 +109,17 @@ from sweeprig.sim.mixer.multitone import (
 )
 from sweeprig.sim.mixer.network import band_magnitude, reflection_magnitude
 from sweeprig.sim.mixer.realism import (
+    CommonModeLayout,
     LeakagePhases,
     LeakPhase,
-    common_mode_im2_lines,
+    common_mode_im2_amplitudes,
+    common_mode_names,
     lo_drive_noise_factor,
     switch_overlap_fraction,
 )
 from sweeprig.sim.mixer.sweep import evaluate_group
 from sweeprig.sim.mixer.types import (
+    DeferredPort,
     MixerResponse,
     OperatingPoint,
     PortLevels,
@@ -131,6 +136,9 @@ MAX_RF_TONES = 3
 SSB_NOISE_FIGURE_FLOOR_DB = 10.0 * math.log10(2.0)
 _CACHE_LIMIT = 256
 _TABLE_LIMIT = 64  # about 80 kB each for the demo part
+#: Line tables and common-mode layouts of the one-point path kept per part (a line table is
+#: about 90 kB for the demo part with two tones, 0.6 MB with three; a power sweep needs one)
+_POINT_TABLE_LIMIT = 16
 _AMP_BUCKET_DB = 1.0
 
 Conversion = Literal["down", "up"]
@@ -369,11 +377,12 @@ class PortLines:
     notes: dict[str, float]
 
 
-@dataclass(frozen=True)
-class _Evaluation:
-    output: Lines
-    input_entries: list[tuple[float, complex, tuple[int, ...]]]
-    lo_entries: list[tuple[float, complex, tuple[int, ...]]]
+class _Evaluation(NamedTuple):
+    output: Lines  # orders as codes into ``names``
+    names: Any  # object array of order tuples
+    #: (LO, tones, axes) of the input and LO ports' leakage lines (made when asked for,
+    #: :meth:`MixerPart._input_entries`, :meth:`MixerPart._lo_entries`); None: no leakage
+    leaking: tuple[Any, ...] | None
     noise_dbm_per_hz: float
     supply_current_a: float
     notes: dict[str, float]
@@ -446,6 +455,11 @@ class MixerPart:
     #: Sorted line-frequency tables of the sweep path (see sweep._combine), by LO
     #: frequency, tone frequencies and LO orders: the points of a power sweep share one.
     _tables: dict[Any, Any] = field(
+        default_factory=dict, init=False, repr=False, compare=False, hash=False
+    )
+    #: The one-point path's line tables and common-mode layouts, by LO and tone
+    #: frequencies (see :meth:`_line_table`): the points of a power sweep share them.
+    _point_tables: dict[Any, Any] = field(
         default_factory=dict, init=False, repr=False, compare=False, hash=False
     )
 
@@ -560,6 +574,11 @@ class MixerPart:
             del self._tables[next(iter(self._tables))]  # the oldest
         self._tables[key] = value
 
+    def _remember_point_table(self, key: Any, value: Any) -> None:
+        if len(self._point_tables) >= _POINT_TABLE_LIMIT:
+            del self._point_tables[next(iter(self._point_tables))]  # the oldest
+        self._point_tables[key] = value
+
     def _remember(self, key: Any, value: Any) -> None:
         if len(self._cache) >= _CACHE_LIMIT:
             self._cache.clear()
@@ -637,9 +656,13 @@ class MixerPart:
 
     def _response(self, ev: _Evaluation) -> MixerResponse:
         return MixerResponse(
-            if_port=self._levels(ev.output),
-            rf_port=_entries_to_products(ev.input_entries, self.floor_dbm),
-            lo_port=_entries_to_products(ev.lo_entries, self.floor_dbm),
+            if_port=self._levels(ev.output, ev.names),
+            # the input and LO ports' few lines are made when read (the bench reads them
+            # only with its switch on those ports)
+            rf_port=() if ev.leaking is None else DeferredPort(
+                (self._port_products, self._input_entries, *ev.leaking)),
+            lo_port=() if ev.leaking is None else DeferredPort(
+                (self._port_products, self._lo_entries, *ev.leaking)),
             if_noise_dbm_per_hz=ev.noise_dbm_per_hz,
             supply_current_a=ev.supply_current_a,
             notes=ev.notes,
@@ -655,10 +678,12 @@ class MixerPart:
         The complex amplitudes of two evaluations can be subtracted to split lines by
         origin (see :mod:`sweeprig.sim.truth`)."""
         ev = self._evaluate(op, lo, tuple(rf), leakage=leakage)
+        in_entries = [] if ev.leaking is None else self._input_entries(*ev.leaking)
+        lo_entries = [] if ev.leaking is None else self._lo_entries(*ev.leaking)
         return PortLines(
-            output=ev.output,
-            input=merge_coincident(_entries_to_lines(ev.input_entries, 1 + len(tuple(rf)))),
-            lo=merge_coincident(_entries_to_lines(ev.lo_entries, 1 + len(tuple(rf)))),
+            output=Lines(ev.output.freq_hz, ev.output.amp, ev.names[ev.output.orders]),
+            input=merge_coincident(_entries_to_lines(in_entries, 1 + len(tuple(rf)))),
+            lo=merge_coincident(_entries_to_lines(lo_entries, 1 + len(tuple(rf)))),
             noise_dbm_per_hz=ev.noise_dbm_per_hz,
             notes=ev.notes,
         )
@@ -679,44 +704,50 @@ class MixerPart:
         else:
             amps = ()
             shape, converged, rf_fac = (), True, state.no_rf
-        core = combine(
-            lo_prep.factor, lo.freq_hz if lo is not None else 0.0,
-            lo.phase_rad if lo is not None else 0.0, rf_fac, [t.freq_hz for t in tones],
+        lo_freq = lo.freq_hz if lo is not None else 0.0
+        tone_freqs = tuple([t.freq_hz for t in tones])
+        table = self._line_table(lo_prep.factor, lo_freq, rf_fac, tone_freqs)
+        counts = tuple([len(a) for a in amps])  # lines per tone: fundamental, harmonics
+        names, cm_offset, code_of = _output_names(
+            self.max_lo_order, self.max_rf_order, counts,
+            0 if lo is None else 1 + len(lo.harmonics_dbc))
+        core, entries = combine_on(
+            table, lo_prep.factor, lo.phase_rad if lo is not None else 0.0, rf_fac,
             [t.phase_rad for t in tones], cell.i_ee_a, self.max_lo_order, self.max_rf_order,
-            state.min_abs_a,
+            state.min_abs_a, coded=True,
         )
         n_axes = 1 + len(tones)
         amp = core.amp * state.out_scale
         if out.highpass_hz is not None or out.lowpass_hz is not None:
-            amp *= out.magnitude(core.freq_hz)
+            # the port's magnitude at each line: from the table's, when it serves a second
+            # point (made once for all its entries), else at these lines
+            amp *= (table.gain(out.magnitude)[entries] if table.uses > 1
+                    else out.magnitude(core.freq_hz))
             # the band edges push many weak lines under the floor: drop them before merging
             # (20 dB of margin for lines that might still add up)
-            keep = (amp.real * amp.real + amp.imag * amp.imag) >= state.prefloor_w
+            keep = ((amp.real * amp.real + amp.imag * amp.imag)
+                    >= state.prefloor_w).nonzero()[0]
             core = Lines(core.freq_hz[keep], amp[keep], core.orders[keep])
         else:
             core = Lines(core.freq_hz, amp, core.orders)
         core = merge_coincident(core)
         imbalance = self.load_mismatch + lo_prep.d0
         if tones and self.cm_second_order and imbalance:
-            cm = common_mode_im2_lines(
-                np.array([h * t.freq_hz for t, a in zip(tones, amps, strict=True)
-                          for h in range(1, len(a) + 1)]),
-                np.array([v for a in amps for v in a]),
+            layout, gain = self._common_mode_layout(tone_freqs, amps, n_axes)
+            cm_amp = common_mode_im2_amplitudes(
+                layout, np.array([v for a in amps for v in a]),
                 np.array([h * t.phase_rad for t, a in zip(tones, amps, strict=True)
                           for h in range(1, len(a) + 1)]),
-                tuple(len(a) for a in amps), n_axes, cell.i_ee_a,
-                2.0 * cell.vt_v + cell.i_ee_a * cell.r_e_ohm, self.cm_second_order, imbalance,
+                cell.i_ee_a, 2.0 * cell.vt_v + cell.i_ee_a * cell.r_e_ohm,
+                self.cm_second_order, imbalance,
             )
-            if cm is not None:
-                cm_freq, cm_amp, cm_orders = cm
+            if cm_amp is not None:
                 cm_amp = cm_amp * state.out_scale
-                if out.highpass_hz is not None or out.lowpass_hz is not None:
-                    cm_amp = cm_amp * out.magnitude(cm_freq)
-                core = add_lines(core, Lines(cm_freq, cm_amp, cm_orders))
-        phases = self.leakage_phases
-        in_entries: list[_Entry] = []
-        lo_entries: list[_Entry] = []
+                if gain is not None:
+                    cm_amp = cm_amp * gain
+                core = add_lines(core, Lines(layout.freq_hz, cm_amp, layout.codes + cm_offset))
         if leakage:
+            phases = self.leakage_phases
             leaks: list[_Entry] = []
             iso = self.isolation_rf_if_db
             if iso is not None:
@@ -729,28 +760,11 @@ class MixerPart:
                 leaks += _tone_entries(lo, 0, n_axes, iso, path, self._iso_slope(
                     "lo_if" if self.conversion == "down" else "lo_rf"))
             if leaks:
-                core = _add_entries(core, leaks)
-            iso = self.isolation_lo_to_input_db
-            if lo is not None and iso is not None:
-                path = phases.lo_to_rf if self.conversion == "down" else phases.lo_to_if
-                in_entries += _tone_entries(lo, 0, n_axes, iso, path, self._iso_slope(
-                    "lo_rf" if self.conversion == "down" else "lo_if"))
-            if inp.return_loss_db is not None:
-                for k, t in enumerate(tones):
-                    in_entries += _tone_entries(t, 1 + k, n_axes, inp.return_loss_db,
-                                                phases.input_reflection)
-            if lo is not None and self.lo_port.return_loss_db is not None:
-                lo_entries += _tone_entries(lo, 0, n_axes, self.lo_port.return_loss_db,
-                                            phases.lo_reflection)
-            iso = self.isolation_rf_lo_db
-            if iso is not None:
-                for k, t in enumerate(tones):
-                    lo_entries += _tone_entries(t, 1 + k, n_axes, iso, phases.rf_to_lo,
-                                                self._iso_slope("rf_lo"))
+                core = _add_entries(core, leaks, code_of)
         return _Evaluation(
             output=core,
-            input_entries=in_entries,
-            lo_entries=lo_entries,
+            names=names,
+            leaking=(lo, tones, n_axes) if leakage else None,
             noise_dbm_per_hz=lo_prep.noise_dbm_per_hz,
             supply_current_a=state.supply_current_a,
             notes={
@@ -765,6 +779,76 @@ class MixerPart:
                 "grid_converged": float(converged and lo_prep.factor.converged),
             },
         )
+
+    def _input_entries(self, lo: ToneInput | None, tones: tuple[ToneInput, ...],
+                       n_axes: int) -> list[_Entry]:
+        """The linear lines leaving the transconductor input port: the LO leaking to it
+        and the tones' reflections."""
+        phases, inp = self.leakage_phases, self.input_port
+        entries: list[_Entry] = []
+        iso = self.isolation_lo_to_input_db
+        if lo is not None and iso is not None:
+            path = phases.lo_to_rf if self.conversion == "down" else phases.lo_to_if
+            entries += _tone_entries(lo, 0, n_axes, iso, path, self._iso_slope(
+                "lo_rf" if self.conversion == "down" else "lo_if"))
+        if inp.return_loss_db is not None:
+            for k, t in enumerate(tones):
+                entries += _tone_entries(t, 1 + k, n_axes, inp.return_loss_db,
+                                         phases.input_reflection)
+        return entries
+
+    def _lo_entries(self, lo: ToneInput | None, tones: tuple[ToneInput, ...],
+                    n_axes: int) -> list[_Entry]:
+        """The linear lines leaving the LO port: its reflection and the tones leaking to
+        it."""
+        phases = self.leakage_phases
+        entries: list[_Entry] = []
+        if lo is not None and self.lo_port.return_loss_db is not None:
+            entries += _tone_entries(lo, 0, n_axes, self.lo_port.return_loss_db,
+                                     phases.lo_reflection)
+        iso = self.isolation_rf_lo_db
+        if iso is not None:
+            for k, t in enumerate(tones):
+                entries += _tone_entries(t, 1 + k, n_axes, iso, phases.rf_to_lo,
+                                         self._iso_slope("rf_lo"))
+        return entries
+
+    def _port_products(self, entries_of: Callable[..., list[_Entry]], lo: ToneInput | None,
+                       tones: tuple[ToneInput, ...], n_axes: int) -> tuple[Product, ...]:
+        """A port's linear lines (``entries_of``: :meth:`_input_entries` or
+        :meth:`_lo_entries`) as products above the floor."""
+        return _entries_to_products(entries_of(lo, tones, n_axes), self.floor_dbm)
+
+    def _line_table(self, lo_fac: LoFactor, lo_freq_hz: float, rf_fac: RfFactor,
+                    tone_freqs: tuple[float, ...]) -> LineTable:
+        """The :class:`LineTable` of an LO and tone frequencies, kept for the points of a
+        power sweep, which share it."""
+        key = ("one-point", lo_freq_hz, tone_freqs, lo_fac.orders.tobytes(),
+               self.max_rf_order)
+        table = self._point_tables.get(key)
+        if table is None:
+            table = LineTable(lo_fac.orders, lo_freq_hz, rf_fac.orders, tone_freqs)
+            self._remember_point_table(key, table)
+        return table
+
+    def _common_mode_layout(
+        self, tone_freqs: tuple[float, ...], amps: tuple[tuple[float, ...], ...], n_axes: int
+    ) -> tuple[CommonModeLayout, Any]:
+        """The common-mode lines' :class:`CommonModeLayout` for tones at ``tone_freqs``
+        with the harmonics of ``amps``, and the output port's band-edge magnitude at each
+        (None: no band edges); kept for the points of a power sweep, which share them."""
+        counts = tuple([len(a) for a in amps])
+        key = ("common-mode", tone_freqs, counts)
+        kept = self._point_tables.get(key)
+        if kept is None:
+            layout = CommonModeLayout(
+                np.array([h * f for f, count in zip(tone_freqs, counts, strict=True)
+                          for h in range(1, count + 1)]), counts, n_axes)
+            out = self.output_port
+            banded = out.highpass_hz is not None or out.lowpass_hz is not None
+            kept = (layout, out.magnitude(layout.freq_hz) if banded else None)
+            self._remember_point_table(key, kept)
+        return kept
 
     def _lo_prepared(
         self, op: OperatingPoint, lo: ToneInput | None, state: _OpState
@@ -832,14 +916,17 @@ class MixerPart:
                 * inp.delivered_fraction * out.delivered_fraction)
         return 10.0 * math.log10(gain) if gain > 0.0 else -math.inf
 
-    def _levels(self, lines: Lines) -> PortLevels:
-        """Merged lines (sqrt(W) amplitudes) → the port's lines above the floor, as arrays."""
+    def _levels(self, lines: Lines, names: Any) -> PortLevels:
+        """Merged lines (sqrt(W) amplitudes, orders as codes into ``names``) → the port's
+        lines above the floor, as arrays (the order tuples made when first read)."""
         power_w = lines.amp.real**2 + lines.amp.imag**2
         keep = power_w >= 1e-3 * 10.0 ** (self.floor_dbm / 10.0)
-        if not keep.all():
-            power_w = power_w[keep]
-            lines = Lines(lines.freq_hz[keep], lines.amp[keep], lines.orders[keep])
-        return PortLevels(lines.freq_hz, 10.0 * np.log10(power_w * 1e3), lines.orders)
+        if keep.all():
+            return PortLevels.coded(lines.freq_hz, 10.0 * np.log10(power_w * 1e3),
+                                    lines.orders, names)
+        kept = keep.nonzero()[0]
+        return PortLevels.coded(lines.freq_hz[kept], 10.0 * np.log10(power_w[kept] * 1e3),
+                                lines.orders[kept], names)
 
     def _check_inputs(self, lo: ToneInput | None, tones: tuple[ToneInput, ...]) -> None:
         if len(tones) <= MAX_RF_TONES and _all_valid(lo, tones):
@@ -910,6 +997,32 @@ def _bucket_up(amp_v: float) -> float:
 _Entry = tuple[float, complex, tuple[int, ...]]
 
 
+@lru_cache(maxsize=64)
+def _output_names(
+    max_lo_order: int, max_rf_order: int, counts: tuple[int, ...], lo_multiples: int
+) -> tuple[Any, int, dict[tuple[int, ...], int]]:
+    """Every order tuple a line at the output port can carry, as one read-only object
+    array that the lines' codes index, for tones with ``counts`` lines each (fundamental
+    and harmonics) and an LO with ``lo_multiples``: the combination's
+    (:func:`combo_tuples`, flat) first, then the common-mode lines'
+    (:func:`common_mode_names`, from the offset returned), then the linear paths' (each
+    tone's and the LO's multiples, with the code of each)."""
+    n_axes = 1 + len(counts)
+    parts = [combo_tuples(max_lo_order, len(counts), max_rf_order).ravel()]
+    cm_offset = parts[0].size
+    if counts:
+        parts.append(common_mode_names(counts, n_axes))
+    units = [_unit_orders(n_axes, 0, h) for h in range(1, lo_multiples + 1)]
+    units += [_unit_orders(n_axes, 1 + k, h) for k, count in enumerate(counts)
+              for h in range(1, count + 1)]
+    start = sum(part.size for part in parts)
+    tail = np.empty(len(units), dtype=object)
+    tail[:] = units
+    names = np.concatenate([*parts, tail])
+    names.flags.writeable = False
+    return names, cm_offset, {unit: start + i for i, unit in enumerate(units)}
+
+
 @lru_cache(maxsize=256)
 def _unit_orders(n_axes: int, axis: int, multiple: int) -> tuple[int, ...]:
     row = [0] * n_axes
@@ -945,14 +1058,17 @@ def _tone_entries(
     return out
 
 
-def _add_entries(lines: Lines, entries: list[_Entry]) -> Lines:
-    """Add a few linear-path lines to sorted, merged lines: an entry at the frequency of an
-    existing line adds to it as a complex amplitude (the stronger names the orders); the
-    others are inserted."""
+def _add_entries(lines: Lines, entries: list[_Entry], code_of: dict[tuple[int, ...], int]
+                 ) -> Lines:
+    """Add a few linear-path lines to sorted, merged lines (orders as codes; ``code_of``:
+    the code of each entry's orders): an entry at the frequency of an existing line adds
+    to it as a complex amplitude (the stronger names the orders); the others are
+    inserted."""
     freq = lines.freq_hz
     amp = lines.amp.copy()
-    orders = lines.orders.copy()
-    where = np.searchsorted(freq, [e[0] for e in entries]).tolist()
+    orders = lines.orders
+    copied = False  # the orders are copied when the first entry names a line
+    where = freq.searchsorted([e[0] for e in entries]).tolist()
     extra: list[_Entry] = []
     for (f, a, o), i in zip(entries, where, strict=True):
         hit = -1
@@ -964,11 +1080,15 @@ def _add_entries(lines: Lines, entries: list[_Entry]) -> Lines:
             extra.append((f, a, o))
             continue
         if abs(a) > abs(amp[hit]):
-            orders[hit] = o
+            if not copied:
+                orders, copied = orders.copy(), True
+            orders[hit] = code_of[o]
         amp[hit] += a
     merged = Lines(freq, amp, orders)
     if extra:
-        merged = merge_coincident(concat_lines([merged, _entries_to_lines(extra)]))
+        merged = merge_coincident(concat_lines([merged, Lines(
+            np.array([e[0] for e in extra]), np.array([e[1] for e in extra]),
+            np.array([code_of[e[2]] for e in extra], dtype=np.intp))]))
     return merged
 
 

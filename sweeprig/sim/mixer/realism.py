@@ -127,23 +127,68 @@ def common_mode_im2_lines(
     (K = c2·I_EE·(ε + D_0)/(2·a²)). The quad's LO-frequency parts of D move these lines next
     to the LO harmonics, far from the output band; they are left out.
     """
+    layout = CommonModeLayout(freq_hz, harmonics_per_tone, n_axes)
+    amp = common_mode_im2_amplitudes(layout, amp_v, phase_rad, i_ee_a, a_v, cm_second_order,
+                                     imbalance)
+    return None if amp is None else (layout.freq_hz, amp, layout.orders)
+
+
+class CommonModeLayout:
+    """Where the common-mode lines of a set of input lines sit, which depends on the input
+    frequencies only (the points of a power sweep share it): each line's frequency (Hz),
+    its orders (as ``codes`` into ``names``, :func:`common_mode_names`, and as tuples,
+    :attr:`orders`), and which input lines make it (see :func:`common_mode_im2_lines`)."""
+
+    __slots__ = ("codes", "far", "freq_hz", "iu", "ju", "names", "sign")
+
+    def __init__(self, freq_hz: NDArray[np.float64], harmonics_per_tone: tuple[int, ...],
+                 n_axes: int) -> None:
+        iu, ju = _cm_layout(harmonics_per_tone, n_axes)[:2]
+        names, sq_c, sum_c, dpos_c, dneg_c = _cm_codes(harmonics_per_tone, n_axes)
+        diff = freq_hz[iu] - freq_hz[ju]
+        pos = diff >= 0.0
+        far = np.abs(diff) > 1e-3
+        self.iu, self.ju, self.far, self.names = iu, ju, far, names
+        self.freq_hz: NDArray[np.float64] = np.concatenate(
+            [2.0 * freq_hz, freq_hz[iu] + freq_hz[ju], np.abs(diff[far])])
+        self.codes: NDArray[np.intp] = np.concatenate(
+            [sq_c, sum_c, np.where(pos, dpos_c, dneg_c)[far]])
+        self.sign: NDArray[np.float64] = np.where(pos, 1.0, -1.0)[far]
+
+    @property
+    def orders(self) -> NDArray[np.object_]:
+        """Each line's orders ``(0, n_1, …, n_K)``, tuples."""
+        return self.names[self.codes]  # type: ignore[no-any-return]
+
+
+def common_mode_im2_amplitudes(
+    layout: CommonModeLayout,
+    amp_v: NDArray[np.float64],
+    phase_rad: NDArray[np.float64],
+    i_ee_a: float,
+    a_v: float,
+    cm_second_order: float,
+    imbalance: float,
+) -> NDArray[np.complex128] | None:
+    """The peak differential output current (A, complex) of each line of ``layout`` for
+    input lines of peak volts ``amp_v`` and phases ``phase_rad`` (its layout), or None when
+    there are none (see :func:`common_mode_im2_lines`)."""
     k = cm_second_order * i_ee_a * imbalance / (2.0 * a_v * a_v)
-    if k == 0.0 or freq_hz.size == 0:
+    if k == 0.0 or amp_v.size == 0:
         return None
-    iu, ju, sq_o, sum_o, dpos_o, dneg_o = _cm_layout(harmonics_per_tone, n_axes)
+    iu, ju, far = layout.iu, layout.ju, layout.far
     pair = k * amp_v[iu] * amp_v[ju]
-    diff = freq_hz[iu] - freq_hz[ju]
-    pos = diff >= 0.0
-    far = np.abs(diff) > 1e-3
-    freq = np.concatenate([2.0 * freq_hz, freq_hz[iu] + freq_hz[ju], np.abs(diff[far])])
     mag = np.concatenate([0.5 * k * amp_v * amp_v, pair, pair[far]])
     phase = np.concatenate([
         2.0 * phase_rad, phase_rad[iu] + phase_rad[ju],
-        np.where(pos, 1.0, -1.0)[far] * (phase_rad[iu] - phase_rad[ju])[far]])
-    orders = np.concatenate([sq_o, sum_o, np.where(pos, dpos_o, dneg_o)[far]])
-    amp = mag * np.exp(1j * phase)
-    return freq, amp, orders
+        layout.sign * (phase_rad[iu] - phase_rad[ju])[far]])
+    return mag * np.exp(1j * phase)
 
+
+def common_mode_names(harmonics_per_tone: tuple[int, ...], n_axes: int) -> NDArray[np.object_]:
+    """Every order tuple a common-mode line of this layout of input lines can have, in the
+    order :attr:`CommonModeLayout.codes` index (read-only, shared)."""
+    return _cm_codes(harmonics_per_tone, n_axes)[0]  # type: ignore[no-any-return]
 
 
 @lru_cache(maxsize=64)

@@ -141,6 +141,20 @@ class PortSlice(tuple):  # type: ignore[type-arg]
         return PortLevels.coded(freq[start:stop], power[start:stop], codes[start:stop], table)
 
 
+class DeferredPort(tuple):  # type: ignore[type-arg]
+    """A port's lines made when the port is first read: ``(make, *arguments)``, and
+    ``make(*arguments)`` gives the tuple of :class:`Product` (the one-call path's input and
+    LO ports: a few leakage lines, which the simulated bench reads only when its switch
+    routes that port to the analyzer)."""
+
+    __slots__ = ()
+
+    def made(self) -> tuple[Product, ...]:
+        """The port's lines."""
+        make, *arguments = self
+        return make(*arguments)  # type: ignore[no-any-return]
+
+
 _new_product = partial(tuple.__new__, Product)  # Product from a (freq, power, orders) tuple
 _PORTS = ("if_port", "rf_port", "lo_port")
 
@@ -156,9 +170,10 @@ class MixerResponse:
     ``if_noise_dbm_per_hz``: output noise density at the IF port (flat over the IF band).
     ``supply_current_a``: DC current drawn from the supply.
 
-    Each port is given as a tuple of :class:`Product`, as :class:`PortLevels` arrays or as
+    Each port is given as a tuple of :class:`Product`, as :class:`PortLevels` arrays, as
     a :class:`PortSlice` of a sweep's arrays (made into :class:`PortLevels` on first
-    reading); the port attributes always read as tuples of products (made once, on first
+    reading) or as a :class:`DeferredPort` (made into its products on first reading); the
+    port attributes always read as tuples of products (made once, on first
     reading), and :meth:`levels` reads a port as arrays without making them.
     """
 
@@ -169,9 +184,9 @@ class MixerResponse:
 
     def __init__(
         self,
-        if_port: tuple[Product, ...] | PortLevels | PortSlice,
-        rf_port: tuple[Product, ...] | PortLevels | PortSlice = (),
-        lo_port: tuple[Product, ...] | PortLevels | PortSlice = (),
+        if_port: tuple[Product, ...] | PortLevels | PortSlice | DeferredPort,
+        rf_port: tuple[Product, ...] | PortLevels | PortSlice | DeferredPort = (),
+        lo_port: tuple[Product, ...] | PortLevels | PortSlice | DeferredPort = (),
         if_noise_dbm_per_hz: float = -174.0,
         supply_current_a: float = 0.0,
         notes: dict[str, float] | None = None,
@@ -187,10 +202,14 @@ class MixerResponse:
         raise AttributeError(f"MixerResponse is immutable: cannot set {name!r}")
 
     def _resolved(self, name: str) -> tuple[Product, ...] | PortLevels:
-        """A port as given, a :class:`PortSlice` made into its :class:`PortLevels`."""
+        """A port as given, a :class:`PortSlice` made into its :class:`PortLevels` and a
+        :class:`DeferredPort` into its products (each once)."""
         given = self._given[name]
-        if type(given) is PortSlice:
+        kind = type(given)
+        if kind is PortSlice:
             given = self._given[name] = given.levels()
+        elif kind is DeferredPort:
+            given = self._given[name] = given.made()
         return given
 
     def _port(self, name: str) -> tuple[Product, ...]:
