@@ -6,6 +6,7 @@ from __future__ import annotations
 import json
 import math
 
+import numpy as np
 import pandas as pd
 import pytest
 
@@ -477,3 +478,23 @@ def test_the_reductions_passes_are_the_copying_passes_on_a_real_run(report_run):
             if a.budget is not None:
                 assert a.uncertainty_db == b.uncertainty_db, a
                 assert budget_lines(a.budget) == budget_lines(b.budget), a
+
+
+def test_condition_columns_of_a_reduced_run_are_those_read_key_by_key(report_run) -> None:
+    """The same on a reduced simulated run's own figures (its distinct mappings)."""
+    from sweeprig.analysis.figure_table import (
+        condition_arrays,
+        condition_arrays_by_key,
+        distinct_conditions,
+    )
+
+    mappings, _ = distinct_conditions(report_run.figures)
+    assert len(mappings) > 50
+    ours, reference = condition_arrays(mappings), condition_arrays_by_key(mappings)
+    assert list(ours) == list(reference)
+    for key, column in reference.items():
+        assert ours[key].dtype == column.dtype, key
+        if column.dtype == object:
+            assert ours[key].tolist() == column.tolist(), key
+        else:
+            assert ours[key].view(np.uint64).tolist() == column.view(np.uint64).tolist(), key
