@@ -37,7 +37,6 @@ from sweeprig.analysis.budget_parts import (
 from sweeprig.analysis.figures import (
     Figure,
     collector_paused,
-    with_conditions,
     with_uncertainty,
 )
 from sweeprig.analysis.uncertainty import (
@@ -76,13 +75,10 @@ def attach_uncertainty(figures: Sequence[Figure], captures: pd.DataFrame,
 
 def attach_uncertainty_in_place(
     figures: list[Figure], captures: pd.DataFrame, specs: InstrumentSpecs | None = None,
-    cal: CalibrationState = UNCALIBRATED, *,
-    conditions: Sequence[Mapping[str, float | int | str] | None] | None = None,
+    cal: CalibrationState = UNCALIBRATED,
 ) -> None:
     """:func:`attach_uncertainty`, each figure of the list replaced where it stands: a
-    caller that owns the list (the reduction) never holds a run's figures twice.
-    ``conditions``: per figure, new conditions to set in the same replacement (None: kept;
-    the budgets are worked out on the figures as given, before it)."""
+    caller that owns the list (the reduction) never holds a run's figures twice."""
     specs = specs or InstrumentSpecs()
     sides: dict[tuple, Figure] = {}
     # _condition_key per distinct mapping (held beside it: its id stays its own)
@@ -97,13 +93,10 @@ def attach_uncertainty_in_place(
     with collector_paused():  # a large run makes hundreds of thousands of budgets
         budgets = grouped_budgets(figures, captures, specs, cal)
         for i, budget in enumerate(budgets):
-            cond = None if conditions is None else conditions[i]
             if budget is not None:
-                f = figures[i] = with_uncertainty(figures[i], budget.expanded_db, budget, cond)
+                f = figures[i] = with_uncertainty(figures[i], budget.expanded_db, budget)
                 if f.name in _SIDE_NAMES:
                     sides[(f.name, key_of(f.conditions), f.value)] = f
-            elif cond is not None:
-                figures[i] = with_conditions(figures[i], cond)
         del budgets
     for i, f in enumerate(figures):
         if f.name in WORST_OF and f.is_number:

@@ -420,6 +420,10 @@ def conditions_records(
     keys: Sequence[str] = (STUDY, *CONDITION_COLUMNS),
 ) -> list[Mapping[str, float | str]]:
     """Read-only condition mappings for the given rows: ``{key: value}``, NaN values left out.
+
+    The rows of a column that hold one value share one Python object for it
+    (:func:`shared_values`): a large run's mappings hold millions of values, most of them
+    one of a few temperatures, drives and frequencies.
     """
     import pandas as pd
 
@@ -434,7 +438,7 @@ def conditions_records(
         partial |= bool(missing.any())
         kept.append((key, values))
     names = [k for k, _ in kept]
-    columns = [v.tolist() for _, v in kept]
+    columns = [shared_values(v) for _, v in kept]
     proxy = MappingProxyType
     if not partial:
         # one C-level pass per stage (zip, dict, proxy): a million rows in a fraction of
@@ -445,6 +449,27 @@ def conditions_records(
         proxy({k: v for k, v in zip(names, vals, strict=True) if v == v and v is not None})
         for vals in zip(*columns, strict=True)
     ]
+
+
+def shared_values(values: np.ndarray) -> list[object]:
+    """``values.tolist()``, the elements that are the same value one Python object: float64
+    values the same bit for bit (0.0 and -0.0 stay apart), texts the same string. Other
+    arrays, and those whose values are mostly distinct, as ``tolist`` gives them."""
+    if values.size < 64:
+        return values.tolist()
+    if values.dtype == np.float64:
+        distinct, inverse = np.unique(values.view(np.uint64), return_inverse=True)
+        if distinct.size * 2 > values.size:
+            return values.tolist()
+        objects = distinct.view(np.float64).tolist()
+        return list(map(objects.__getitem__, inverse.ravel().tolist()))
+    if values.dtype == object:
+        items = values.tolist()
+        if set(map(type, items)) <= {str}:
+            seen: dict[str, str] = {}
+            return list(map(seen.setdefault, items, items))
+        return items
+    return values.tolist()
 
 
 def has_bit(mask: np.ndarray, name: str) -> np.ndarray:

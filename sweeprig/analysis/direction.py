@@ -92,11 +92,20 @@ def with_output_frequency(figures: Sequence[Figure], orders: tuple[int, int] | N
                                strict=True)]
 
 
+def add_output_frequency_in_place(figures: list[Figure], orders: tuple[int, int] | None
+                                  ) -> None:
+    """:func:`with_output_frequency`, each figure of the list that gains ``output_freq_hz``
+    replaced where it stands (a caller that owns the list never holds a run's figures
+    twice; the old conditions mappings are freed as their figures are replaced)."""
+    for i, conditions in enumerate(output_frequency_conditions(figures, orders)):
+        if conditions is not None:
+            figures[i] = with_conditions(figures[i], conditions)
+
+
 def output_frequency_conditions(figures: Sequence[Figure], orders: tuple[int, int] | None
                                 ) -> list[Mapping[str, float | int | str] | None]:
     """Per figure, its conditions with ``output_freq_hz`` added as
-    :func:`with_output_frequency` adds it, or None where it gains none: for a pass that
-    sets them together with other changes (the reduction's budgets)."""
+    :func:`with_output_frequency` adds it, or None where it gains none."""
     from sweeprig.analysis.figure_table import distinct_conditions
 
     m, n = orders if orders is not None else (1, -1)

@@ -354,6 +354,9 @@ def intercept_figures(
         _check_order(o)
     table = point_table(captures, [*names, TONE2], study=study, where="intercept")
     figures: list[Figure] = []
+    # orders read at the same points (IM3 and IM2 of one sweep) share their conditions
+    # mappings: made once, by the first
+    made: dict[bytes, tuple[list[Mapping[str, float | str]], list[Mapping[str, float | str]]]] = {}
     for order in orders:
         sides = [p for p in _PRODUCTS.get(order, ()) if table[f"{p}_present"].any()]
         if not sides:
@@ -362,23 +365,33 @@ def intercept_figures(
             [table[f"{p}_present"].to_numpy() for p in sides]
         )
         sub = table[rows].reset_index(drop=True)
-        figures += _order_figures(sub, order, sides, input_p1db_dbm)
+        figures += _order_figures(sub, order, sides, input_p1db_dbm, made, rows.tobytes())
     return figures
 
 
 def _order_figures(
-    table: pd.DataFrame, order: int, sides: list[str], p1db_source: P1dbSource
+    table: pd.DataFrame, order: int, sides: list[str], p1db_source: P1dbSource,
+    made: dict[bytes, tuple[list[Mapping[str, float | str]], list[Mapping[str, float | str]]]]
+    | None = None, rows: bytes = b"",
 ) -> list[Figure]:
+    """The figures of one order. ``made``: the (per sweep, per point) conditions mappings
+    of the rows of the table of intercept_figures given as ``rows`` (the table being those
+    rows), for an order read at the same points to share them; None: made here."""
     keys = sw.default_keys(table, ("rf_power_dbm", "rf2_power_dbm"))
     sweeps = sw.group_sweeps(table, keys, "rf_power_dbm", where="intercept")
-    conditions = sweeps.conditions(table)
+    if made is not None and rows in made:
+        conditions, point_conditions = made[rows]
+    else:
+        conditions = sweeps.conditions(table)
+        point_conditions = _point_conditions(table, sweeps)
+        if made is not None:
+            made[rows] = conditions, point_conditions
     p1db = _p1db_per_sweep(p1db_source, conditions)
     present = sweeps.present
     x = sweeps.take(table["rf_power_dbm"])
     fund = sweeps.take(table["if_level_dbm"])
     fund_flags = sweeps.take(table["if_flags"].to_numpy(), 0)
     point_ids = sweeps.take(table["point"].to_numpy(), -1)
-    point_conditions = _point_conditions(table, sweeps)
     point_tuples = [(int(p),) for p in point_ids[present].tolist()]
     fund_noise = has_bit(fund_flags, IN_NOISE)
     in_compression = _tones_compressed(table, sweeps, x, fund, fund_flags, present)

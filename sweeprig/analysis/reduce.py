@@ -191,7 +191,7 @@ def reduce_run(store: RunStore, run_id: int) -> RunFigures:
 def _reduce_run(store: RunStore, run_id: int) -> RunFigures:
     from sweeprig.analysis.bench_specs import calibration_state, specs_from_bench_text
     from sweeprig.analysis.budget_groups import attach_uncertainty_in_place
-    from sweeprig.analysis.direction import name_in_trade_words, output_frequency_conditions
+    from sweeprig.analysis.direction import add_output_frequency_in_place, name_in_trade_words
     from sweeprig.analysis.load import captures_from_frames
 
     info = store.run(run_id)
@@ -231,9 +231,11 @@ def _reduce_run(store: RunStore, run_id: int) -> RunFigures:
     calibration, calibration_note = calibration_state(events)
     notes += [calibration_note] if calibration_note else []
     # each pass replaces the figures of this list where they stand (never two copies held);
-    # a figure's budget and its output frequency are set in one replacement
-    attach_uncertainty_in_place(figures, captures, bench_specs.specs, calibration,
-                                conditions=output_frequency_conditions(figures, orders))
+    # the output frequency first, so that the old conditions mappings are freed before the
+    # budgets are made (a budget does not depend on the output frequency: the tests compare
+    # this order with the copying passes in the other)
+    add_output_frequency_in_place(figures, orders)
+    attach_uncertainty_in_place(figures, captures, bench_specs.specs, calibration)
     name_in_trade_words(figures, conversion)
     figures += noise_figures
     limits = limits_from_sequence(sequence) if sequence is not None else ()

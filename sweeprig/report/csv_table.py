@@ -64,6 +64,8 @@ def _object_texts(values: list[object]) -> list[str]:
         return values  # type: ignore[return-value]  # every cell is text already
     if kinds <= {str, type(None)}:
         return ["" if v is None else v for v in values]  # type: ignore[misc]
+    if kinds <= {int, type(None)}:  # whole numbers with empty cells (budget columns)
+        return ["" if v is None else str(v) for v in values]
     out: list[str] = []
     append = out.append
     for v in values:

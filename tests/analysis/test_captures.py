@@ -65,3 +65,43 @@ def test_bad_tables_raise_input_errors():
 def test_own_column_name_wins_over_an_alias():
     df = _captures().assign(name="something else")
     assert point_table(df)["if_present"].all()
+
+
+def test_condition_mappings_share_equal_values_and_equal_the_plain_reading() -> None:
+    """conditions_records gives the mappings a plain ``tolist`` reading gives (the same
+    keys in order, values of the same type and bits: -0.0 stays -0.0, NaN left out), its
+    rows of one value sharing one object (a float the same bit for bit, a text)."""
+    import math
+    from types import MappingProxyType
+
+    from sweeprig.analysis.captures import conditions_records, shared_values
+
+    rng = np.random.default_rng(3)
+    rows = 500
+    table = {
+        "study": np.array(["gain", "spurs"] * (rows // 2), dtype=object),
+        "temperature_c": rng.choice([-40.0, 25.0, 85.0], rows),
+        "supply_v": np.where(np.arange(rows) % 3 == 0, 0.0, -0.0),  # signed zeros
+        "rf_freq_hz": rng.uniform(1e9, 3e9, rows),  # mostly distinct: not shared
+        "lo_power_dbm": np.where(np.arange(rows) % 5 == 0, np.nan, 3.0),  # some missing
+    }
+    keys = tuple(table)
+    ours = conditions_records(table, np.arange(rows), keys)
+    for row, mapping in enumerate(ours):
+        plain = {k: table[k][row].item() if k != "study" else table[k][row] for k in keys}
+        plain = {k: v for k, v in plain.items() if v == v}
+        assert list(mapping) == list(plain)
+        for key, value in plain.items():
+            assert type(mapping[key]) is type(value)
+            if isinstance(value, float):
+                assert math.copysign(1.0, mapping[key]) == math.copysign(1.0, value)
+            assert mapping[key] == value
+        assert isinstance(mapping, MappingProxyType)
+    assert len({id(m["temperature_c"]) for m in ours}) == 3
+    assert len({id(m["supply_v"]) for m in ours}) == 2
+    assert len({id(m["study"]) for m in ours}) == 2
+    for values in (table["rf_freq_hz"], np.arange(100), table["study"][:10],
+                   np.array([1, "a", None] * 30, dtype=object)):
+        shared = shared_values(values)
+        assert shared == values.tolist()
+        assert [type(v) for v in shared] == [type(v) for v in values.tolist()]

@@ -16,6 +16,7 @@ import pandas as pd
 import pytest
 
 from sweeprig.analysis.direction import (
+    add_output_frequency_in_place,
     name_in_trade_words,
     output_frequency_conditions,
     trade_named,
@@ -55,9 +56,9 @@ def test_output_frequency_from_the_wanted_orders():
 
 
 def test_the_in_place_and_per_figure_passes_are_the_copying_ones():
-    """The reduction's passes (names replaced in its own list; each figure's output
-    frequency given as its new conditions) give the figures the copying passes give, the
-    figures of one point sharing one extended mapping."""
+    """The reduction's passes (output frequency and names replaced in its own list) give
+    the figures the copying passes give, the figures of one point sharing one extended
+    mapping; so does each figure's output frequency given as its new conditions."""
     point = MappingProxyType({"lo_freq_hz": 2.330e9, "rf_freq_hz": 2.400e9, "study": "iso"})
     figures = make_figures("lo_if_isolation", "dB", [30.0, 31.0], conditions=[point] * 2) + \
         make_figures("conversion_gain", "dB", [10.0]) + \
@@ -69,6 +70,13 @@ def test_the_in_place_and_per_figure_passes_are_the_copying_ones():
         name_in_trade_words(owned, conversion)
         assert owned == expected
         assert [dict(f.conditions) for f in owned] == [dict(f.conditions) for f in expected]
+        in_place = list(figures)
+        add_output_frequency_in_place(in_place, orders)
+        name_in_trade_words(in_place, conversion)
+        assert in_place == expected
+        assert [dict(f.conditions) for f in in_place] == \
+            [dict(f.conditions) for f in expected]
+        assert in_place[0].conditions is in_place[1].conditions is in_place[3].conditions
     assert owned[0].conditions is owned[1].conditions is owned[3].conditions
     assert output_frequency_conditions(figures, None)[2] is None
 

@@ -80,3 +80,49 @@ def test_shared_conditions_are_read_once_and_spread_in_order() -> None:
             [("nan" if isinstance(v, float) and math.isnan(v) else v) for v in expected], key
     assert columns["study"].tolist() == ["two_tone", "two_tone", "spurs", "two_tone", "spurs"]
     assert distinct_conditions([])[1].size == 0
+
+
+def _same_arrays(ours: dict[str, np.ndarray], reference: dict[str, np.ndarray]) -> None:
+    assert list(ours) == list(reference)  # the keys in order of first appearance
+    for key, column in reference.items():
+        assert ours[key].dtype == column.dtype, key
+        if column.dtype == object:
+            assert ours[key].tolist() == column.tolist(), key
+        else:  # bit for bit, NaN where missing
+            assert ours[key].view(np.uint64).tolist() == column.view(np.uint64).tolist(), key
+
+
+def test_condition_columns_read_per_key_order_are_those_read_key_by_key() -> None:
+    """condition_arrays (per distinct key order, itemgetter and NumPy) gives what the
+    key-by-key reading gives: mappings of several key orders, a key in some of them only,
+    explicit None, ints and bools as floats, a key with text in one mapping only, a study
+    that is not text, an empty mapping."""
+    from types import MappingProxyType
+
+    from sweeprig.analysis.figure_table import condition_arrays, condition_arrays_by_key
+
+    rng = np.random.default_rng(7)
+    mappings: list[dict[str, object]] = []
+    for i in range(3000):
+        kind = i % 7
+        if kind == 0:
+            mappings.append({"study": "gain", "temperature_c": float(rng.choice([-40, 25])),
+                             "rf_freq_hz": float(rng.uniform(1e9, 3e9))})
+        elif kind == 1:
+            mappings.append({"rf_freq_hz": 2.4e9, "study": "gain", "temperature_c": 85})
+        elif kind == 2:
+            mappings.append({"study": "spurs", "m": int(rng.integers(-3, 4)), "n": -1,
+                             "in_band": bool(i % 2), "freq_hz": None})
+        elif kind == 3:
+            mappings.append({"study": 7, "sideband": "ssb" if i % 5 else 1.0})
+        elif kind == 4:
+            mappings.append({})
+        elif kind == 5:
+            mappings.append({"temperature_c": np.float64(-0.0), "supply_v": 3.3})
+        else:
+            mappings.append({"lo_power_dbm": math.nan, "study": "lo", "sideband": None})
+    proxies = [MappingProxyType(m) for m in mappings]
+    _same_arrays(condition_arrays(proxies), condition_arrays_by_key(proxies))
+    _same_arrays(condition_arrays([]), condition_arrays_by_key([]))
+    _same_arrays(condition_arrays([{}]), condition_arrays_by_key([{}]))
+

@@ -9,6 +9,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from sweeprig.analysis import compression_figures, intercept_figures, p1db_matcher
+from sweeprig.analysis.captures import point_table
 from sweeprig.analysis.figures import (
     ANALYZER_DISTORTION,
     ATTEN_CARRIER_MOVED,
@@ -19,7 +20,7 @@ from sweeprig.analysis.figures import (
     POINTS_EXCLUDED,
     SLOPE_OFF,
 )
-from sweeprig.analysis.intercept import fit_intercept, fit_range, intercept_point_dbm
+from sweeprig.analysis.intercept import TONE2, fit_intercept, fit_range, intercept_point_dbm
 from sweeprig.analysis.synthetic import (
     amplitude_to_dbm,
     cubic_coefficients,
@@ -247,3 +248,40 @@ def test_exact_lines_give_the_same_intercept_every_way(iip3, gain, start, count)
     fit = fit_intercept(x, fund, im3)
     assert float(fit.input_dbm) == pytest.approx(iip3, abs=1e-9)
     assert float(fit.output_dbm) == pytest.approx(iip3 + gain, abs=1e-9)
+
+
+def test_orders_read_at_the_same_points_share_their_conditions_and_give_the_same_figures():
+    """IM3 and IM2 read at the same points: the IM2 figures take the IM3 figures' conditions
+    mappings (made once), and every figure is the one each order made alone gives; an
+    order read at fewer points makes its own."""
+    from sweeprig.analysis.intercept import _order_figures
+
+    x = np.arange(-40.0, -10.0, 1.0)
+    pts = pd.concat([
+        points_frame(x.size, rf_power_dbm=x, rf2_power_dbm=x, rf2_freq_hz=2.401e9,
+                     temperature_c=t) for t in (-40.0, 25.0)], ignore_index=True)
+    pts["point"] = np.arange(len(pts))
+    xs = pts["rf_power_dbm"].to_numpy()
+    both = pd.concat([
+        reading_rows(pts, "if", xs + 6.0),
+        reading_rows(pts, "im3_low", 3 * xs - 20.0 + 6.0),
+        reading_rows(pts, "im3_high", 3 * xs - 24.0 + 6.0),
+        reading_rows(pts, "im2_low", 2 * xs - 30.0 + 6.0),
+        reading_rows(pts, "im2_high", 2 * xs - 34.0 + 6.0),
+    ], ignore_index=True)
+    fewer = both[~(both["reading"].str.startswith("im2") & (both["point"] % 3 == 0))]
+    for captures, shared in ((both, True), (fewer, False)):
+        figures = intercept_figures(captures)
+        table = point_table(captures, ["im3_low", "im3_high", "im2_low", "im2_high", TONE2],
+                            where="intercept")
+        alone = []
+        for order, sides in ((3, ["im3_low", "im3_high"]), (2, ["im2_low", "im2_high"])):
+            rows = table["if_present"].to_numpy() & np.logical_or.reduce(
+                [table[f"{p}_present"].to_numpy() for p in sides])
+            alone += _order_figures(table[rows].reset_index(drop=True), order, sides, None)
+        assert figures == alone
+        assert [dict(f.conditions) for f in figures] == [dict(f.conditions) for f in alone]
+        im3 = {f.points: f.conditions for f in figures if f.name == "iip3_point_low"}
+        im2 = {f.points: f.conditions for f in figures if f.name == "iip2_point_low"}
+        assert len(im2) > 10
+        assert all((im3[p] is c) == shared for p, c in im2.items())

@@ -178,19 +178,20 @@ def test_grouped_budgets_are_the_per_figure_budgets_on_a_synthetic_run():
     assert assert_same_budgets(figures, captures) >= 600
 
 
-def test_budgets_and_new_conditions_set_in_one_replacement():
-    """The reduction gives each figure its budget and its output frequency in one
-    replacement: the figures, budgets and uncertainties of the two passes one after the
-    other (the budgets worked out on the figures as given; a worse-of-two-sides headline
-    still takes its side's budget)."""
+def test_budgets_made_after_the_output_frequency_are_the_budgets_made_before():
+    """The reduction gives each figure its output frequency first, in place (the old
+    conditions mappings freed before the budgets are made), then its budget in place: the
+    figures, budgets and uncertainties of the copying passes in the other order (a budget
+    does not depend on the output frequency; a worse-of-two-sides headline still takes its
+    side's budget)."""
     from sweeprig.analysis.budget_groups import attach_uncertainty_in_place
-    from sweeprig.analysis.direction import output_frequency_conditions, with_output_frequency
+    from sweeprig.analysis.direction import add_output_frequency_in_place, with_output_frequency
 
     figures, captures = _synthetic(800, seed=3)
     expected = with_output_frequency(attach_uncertainty(figures, captures), (1, -1))
     owned = list(figures)
-    attach_uncertainty_in_place(owned, captures,
-                                conditions=output_frequency_conditions(figures, (1, -1)))
+    add_output_frequency_in_place(owned, (1, -1))
+    attach_uncertainty_in_place(owned, captures)
     assert owned == expected
     assert all(dict(a.conditions) == dict(b.conditions)
                and (a.budget is None) == (b.budget is None)

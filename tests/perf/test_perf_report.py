@@ -46,6 +46,25 @@ the same store (load average 2.8 to 3.7 on 2 cores): 46.7 and 47.3 s of processo
 933 MB, after. The rest of the gap is
 the object model itself (one Figure and one budget per figure, made and walked by every
 pass and writer): a columnar figure store is the next step.
+
+Memory of the reduction's objects (main after the above, then with each condition value
+shared by the mappings that hold it, the output frequency added before the budgets so
+that the old mappings are freed first, IM2 sharing IM3's mappings, the figure table's
+condition columns read per key order). 100k points, this script's ``report`` form on one
+store, main and this interleaved three times (load average 3.6 to 6.3 on 2 cores):
+processor time 17.9, 16.7, 16.8 s before, 16.9, 17.4, 18.0 s after (the same within the
+noise); peak 932, 937, 933 MB before (at the end of the reduction), 850, 858, 848 MB after
+(now while the plots are drawn; the reduction's end 798, 796, 793 MB). Stages, medians
+before -> after: figure table slices 1.53 -> 1.33 s, output frequency 0.32 -> 0.26 s, plots
+1.73 -> 1.61 s; the CSV text 3.56 -> 4.00 s, which the same frames through main's writer
+and this one do not show (2.0 to 2.5 s both, interleaved): the lower memory is taken from
+the system again as it is used (about 10 % more minor page faults). Tried and left out:
+the readings built column by column instead of ``from_records`` (4 ms of 13 a slice; the
+time is SQLite's ``fetchall``, 1.3 to 1.5 s, per cell), CSV cells formatted and joined by
+pyarrow (figure table 2.3 -> 1.8 s alone, but the pool's memory raised the peak by 20 MB
+and Arrow's float text needs fixing up to match ``repr``), handing freed memory back to
+the system after the readings (``malloc_trim``: 510 -> 319 MB there, then taken again by
+the figures; the peak the same).
 """
 
 from __future__ import annotations

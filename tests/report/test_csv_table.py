@@ -87,3 +87,17 @@ def test_a_float_column_like_an_earlier_one_is_written_as_its_own(tmp_path: Path
     ours = write_frame_csv(frame, tmp_path / "ours.csv", chunk_rows=128).read_text("utf-8")
     frame.to_csv(tmp_path / "pandas.csv", index=False)
     assert ours == (tmp_path / "pandas.csv").read_text("utf-8")
+
+
+def test_whole_numbers_with_empty_cells_are_written_as_pandas_writes_them(
+        tmp_path: Path) -> None:
+    """An object column of ints and None (a budget's sweeps), beside one that mixes in a
+    bool and a NumPy integer (not plain ints: the general path)."""
+    ints = [None, 1, 0, -7, 2**70, None, 64]
+    frame = pd.DataFrame({"averages": pd.Series(ints, dtype=object),
+                          "mixed": pd.Series([True, 1, None, np.int64(3), 0, None, 2],
+                                             dtype=object)})
+    ours = write_frame_csv(frame, tmp_path / "ours.csv", chunk_rows=3).read_text("utf-8")
+    frame.to_csv(tmp_path / "pandas.csv", index=False)
+    assert ours == (tmp_path / "pandas.csv").read_text("utf-8")
+

@@ -6,6 +6,7 @@ from __future__ import annotations
 import json
 import math
 
+import numpy as np
 import pandas as pd
 import pytest
 
@@ -445,15 +446,15 @@ def test_a_text_condition_stays_text_in_a_slice_of_numbers(report_run, monkeypat
 
 def test_the_reductions_passes_are_the_copying_passes_on_a_real_run(report_run):
     """On the report run's own captures and studies, the reduction's passes over its own
-    list (budgets and output frequency in one replacement, names in place) give what the
-    copying passes give one after the other: figure for figure, budget line for line,
-    for a downconverter's and an upconverter's orders and names."""
+    list (the output frequency in place, then the budgets in place, then the names) give
+    what the copying passes give one after the other, the budgets first: figure for figure,
+    budget line for line, for a downconverter's and an upconverter's orders and names."""
     from sweeprig.analysis import reduce as rd
     from sweeprig.analysis.budget_groups import attach_uncertainty, attach_uncertainty_in_place
     from sweeprig.analysis.budget_parts import budget_lines
     from sweeprig.analysis.direction import (
+        add_output_frequency_in_place,
         name_in_trade_words,
-        output_frequency_conditions,
         trade_named,
         with_output_frequency,
     )
@@ -464,8 +465,8 @@ def test_the_reductions_passes_are_the_copying_passes_on_a_real_run(report_run):
         old = with_output_frequency(trade_named(attach_uncertainty(
             analysed, report_run.captures), conversion), orders)
         new = list(analysed)
-        attach_uncertainty_in_place(new, report_run.captures,
-                                    conditions=output_frequency_conditions(new, orders))
+        add_output_frequency_in_place(new, orders)
+        attach_uncertainty_in_place(new, report_run.captures)
         name_in_trade_words(new, conversion)
         assert new == old
         # the worse-of-two-sides headlines took their side's budget in both
@@ -477,3 +478,23 @@ def test_the_reductions_passes_are_the_copying_passes_on_a_real_run(report_run):
             if a.budget is not None:
                 assert a.uncertainty_db == b.uncertainty_db, a
                 assert budget_lines(a.budget) == budget_lines(b.budget), a
+
+
+def test_condition_columns_of_a_reduced_run_are_those_read_key_by_key(report_run) -> None:
+    """The same on a reduced simulated run's own figures (its distinct mappings)."""
+    from sweeprig.analysis.figure_table import (
+        condition_arrays,
+        condition_arrays_by_key,
+        distinct_conditions,
+    )
+
+    mappings, _ = distinct_conditions(report_run.figures)
+    assert len(mappings) > 50
+    ours, reference = condition_arrays(mappings), condition_arrays_by_key(mappings)
+    assert list(ours) == list(reference)
+    for key, column in reference.items():
+        assert ours[key].dtype == column.dtype, key
+        if column.dtype == object:
+            assert ours[key].tolist() == column.tolist(), key
+        else:
+            assert ours[key].view(np.uint64).tolist() == column.view(np.uint64).tolist(), key
