@@ -145,9 +145,11 @@ def suffixes(kind: str) -> list[str]:
 
 #: Largest magnitude accepted for a quantity of a kind, in its internal unit: anything beyond
 #: is a slip of unit or exponent, and would overflow the planner's arithmetic (products of
-#: harmonics). 10 THz is far above any RF bench instrument (common practice, no source).
-#: Other kinds are bounded where they are used (a settle time or soak by the run's duration).
-LARGEST_MAGNITUDE: dict[str, float] = {"frequency": 1e13}
+#: harmonics and intermodulation, levels multiplied by their order). 10 THz is far above any
+#: RF bench instrument; ±300 dBm (10^27 W down to 10^-33 W) and ±1000 dB lie far outside any
+#: level, loss or gain a bench sets or reads (common practice, no source). Other kinds are
+#: bounded where they are used (a settle time or soak by the run's duration).
+LARGEST_MAGNITUDE: dict[str, float] = {"frequency": 1e13, "power": 300.0, "level_db": 1000.0}
 
 
 def parse_quantity(value: object, kind: str, *, where: str | None = None) -> float:
@@ -185,9 +187,12 @@ def parse_quantity(value: object, kind: str, *, where: str | None = None) -> flo
     result = _convert(number, unit, kind, value, where)
     if not math.isfinite(result):
         raise _error(value, kind, where, "is out of range")
-    if kind == "frequency" and abs(result) > LARGEST_MAGNITUDE[kind]:
-        raise _error(value, kind, where, f"is beyond {format_frequency(LARGEST_MAGNITUDE[kind])}"
-                     ", far above any bench instrument (is the unit right?)")
+    largest = LARGEST_MAGNITUDE.get(kind)
+    if largest is not None and abs(result) > largest:
+        bound = (format_frequency(largest) if kind == "frequency"
+                 else f"±{largest:g} {'dBm' if kind == 'power' else 'dB'}")
+        raise _error(value, kind, where, f"is beyond {bound}, far outside anything a bench "
+                     "instrument sets or reads (is the unit or the exponent right?)")
     return result
 
 

@@ -47,6 +47,11 @@ def test_parses_values_as_people_write_them(text, kind, expected):
         ([1], "power", "list"),
         (6e307, "frequency", "beyond 10000 GHz"),  # finite, but overflows harmonic products
         ("20000 GHz", "frequency", "beyond 10000 GHz"),
+        (5.99e307, "power", "beyond ±300 dBm"),  # finite, but overflows 3rd-order products
+        ("301 dBm", "power", "beyond ±300 dBm"),
+        ("1e30 W", "power", "beyond ±300 dBm"),  # 330 dBm
+        ("-1e300 dBm", "power", "beyond ±300 dBm"),
+        ("2000 dB", "level_db", "beyond ±1000 dB"),
     ],
 )
 def test_rejects_bad_values_with_a_fix(value, kind, fragment):
@@ -56,6 +61,13 @@ def test_rejects_bad_values_with_a_fix(value, kind, fragment):
     assert fragment in text
     assert "seq.toml:3: sweep.rf_power" in text
     assert "fix:" in text
+
+
+def test_the_largest_levels_a_bench_can_meet_are_accepted():
+    assert parse_quantity("300 dBm", "power") == 300.0
+    assert parse_quantity("-300 dBm", "power") == -300.0
+    assert parse_quantity("-174 dBm", "power") == -174.0  # kTB in 1 Hz at 290 K
+    assert parse_quantity("1000 dB", "level_db") == 1000.0
 
 
 # -- SI prefixes by case, the minus sign -----------------------------------------------------

@@ -78,6 +78,15 @@ def test_a_sequence_of_too_many_points_for_a_float_is_refused_with_its_size(
     assert "about 9.9e+309 points" in error.what and "--max-points" in (error.fix or "")
 
 
+def test_a_power_of_5_99e307_dbm_is_refused_where_it_is_written(tmp_path: Path) -> None:
+    """A finite power the planner's third-order products would overflow (found by the loader
+    fuzzer): refused at load, located, before any planning."""
+    text = SEQUENCE.replace('rf_power = "-20 dBm"', "rf_power = 5.992310449545e+307")
+    error = refusal(load_sequence, write(tmp_path, text, "seq.toml"))
+    assert "beyond ±300 dBm" in error.what
+    assert str(error.where).endswith("seq.toml:11: study[0].rf_power")
+
+
 def test_an_integer_of_5000_digits_is_a_located_input_error() -> None:
     error = refusal(parse_toml, "a = 1\nb = " + "7" * 5000 + "\n", "f.toml")
     assert error.where == "f.toml:2" and error.fix
