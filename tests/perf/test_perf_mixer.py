@@ -161,14 +161,11 @@ _STAGES = {
 }
 
 
-@pytest.mark.perf
-def test_where_a_sweep_evaluation_s_time_goes(monkeypatch: pytest.MonkeyPatch) -> None:
-    """The sweep path (40 points a call, the demo part, harmonics on) split by stage: the
-    processor time of each stage per evaluation, the best of several passes, so that the
-    next speed-up starts from a measurement."""
-    from sweeprig.sim.mixer import sweep
-
-    spent: dict[str, float] = {}
+def _stage_timer(spent: dict[str, float]) -> Callable[[Callable[..., Any], str],
+                                                    Callable[..., Any]]:
+    """A wrapper maker: ``timed(fn, label)`` adds the processor time of each outermost call
+    of ``fn`` to ``spent[label]`` (s); a call nested inside another timed one counts only
+    for the outer one."""
     depth = [0]
 
     def timed(fn: Callable[..., Any], label: str) -> Callable[..., Any]:
@@ -183,6 +180,19 @@ def test_where_a_sweep_evaluation_s_time_goes(monkeypatch: pytest.MonkeyPatch) -
                 spent[label] = spent.get(label, 0.0) + time.process_time() - start
                 depth[0] -= 1
         return run
+
+    return timed
+
+
+@pytest.mark.perf
+def test_where_a_sweep_evaluation_s_time_goes(monkeypatch: pytest.MonkeyPatch) -> None:
+    """The sweep path (40 points a call, the demo part, harmonics on) split by stage: the
+    processor time of each stage per evaluation, the best of several passes, so that the
+    next speed-up starts from a measurement."""
+    from sweeprig.sim.mixer import sweep
+
+    spent: dict[str, float] = {}
+    timed = _stage_timer(spent)
 
     for name, label in _STAGES.items():
         monkeypatch.setattr(sweep, name, timed(getattr(sweep, name), label))
@@ -247,20 +257,7 @@ def _one_call_split(
     from sweeprig.sim.mixer import part as part_module
 
     spent: dict[str, float] = {}
-    depth = [0]
-
-    def timed(fn: Callable[..., Any], label: str) -> Callable[..., Any]:
-        def run(*args: Any, **kwargs: Any) -> Any:
-            if depth[0]:
-                return fn(*args, **kwargs)
-            depth[0] += 1
-            start = time.process_time()
-            try:
-                return fn(*args, **kwargs)
-            finally:
-                spent[label] = spent.get(label, 0.0) + time.process_time() - start
-                depth[0] -= 1
-        return run
+    timed = _stage_timer(spent)
 
     for _, dotted, label in _ONE_CALL_STAGES:
         owner: Any = part_module
