@@ -29,7 +29,7 @@ from __future__ import annotations
 import contextlib
 import math
 from collections import deque
-from collections.abc import Iterator, Mapping
+from collections.abc import Callable, Iterator, Mapping
 from dataclasses import dataclass
 from typing import Any, ClassVar
 
@@ -126,6 +126,12 @@ class Driver:
         #: an ``*ESR?`` read showed error bits: the queue holds entries not yet read
         self._errors_flagged = False
 
+    before_message: Callable[[], None] | None = None
+    """Called just before each message leaves for the instrument (after it is built), when
+    set: the run loop waits out the sources' settling time there
+    (:class:`sweeprig.engine.runner.SettleWait`), so the work of building the message runs
+    inside that time rather than after it."""
+
     single_units = False
     """True: one unit per message whatever the profile says (``sweeprig probe`` tries each
     operation alone; narrow tests pin each operation's own rendering)."""
@@ -160,14 +166,20 @@ class Driver:
         self._block_count += 1
         self.transactions += 1
         self._status_fresh = False
-        self.transport.write(self._joined(cmd))
+        message = self._joined(cmd)
+        if self.before_message is not None:
+            self.before_message()
+        self.transport.write(message)
 
     def query(self, cmd: str, *, timeout_s: float | None = None) -> str:
         """Send query ``cmd`` (after any held commands, in the same message) and return the
         reply text (counted)."""
         self.transactions += 1
         self._status_fresh = False
-        return self.transport.query(self._joined(cmd), timeout_s=timeout_s)
+        message = self._joined(cmd)
+        if self.before_message is not None:
+            self.before_message()
+        return self.transport.query(message, timeout_s=timeout_s)
 
     def post_query(self, cmd: str, *, timeout_s: float | None = None) -> Pending:
         """Send query ``cmd`` (after any held commands, in the same message) without waiting
@@ -177,12 +189,16 @@ class Driver:
         self.transactions += 1
         self._status_fresh = False
         message = self._joined(cmd)
+        if self.before_message is not None:
+            self.before_message()
         post = getattr(self.transport, "post", None)
         return Pending(message, timeout_s, None if post is None else post(message))
 
     def collect(self, pending: Pending) -> str:
         """The reply to a :meth:`post_query`."""
         if pending.posted is None:
+            if self.before_message is not None:
+                self.before_message()
             return self.transport.query(pending.message, timeout_s=pending.timeout_s)
         return self.transport.collect(pending.posted, timeout_s=pending.timeout_s)
 
@@ -222,7 +238,10 @@ class Driver:
         if self._held:
             self.transactions += 1
             self._status_fresh = False
-            self.transport.write(self._joined(None))
+            message = self._joined(None)
+            if self.before_message is not None:
+                self.before_message()
+            self.transport.write(message)
 
     def _joined(self, cmd: str | None) -> str:
         """The held commands and ``cmd`` as one message; each unit's header made absolute
@@ -461,7 +480,10 @@ class Driver:
         if reply_format == "real32":
             self.transactions += 1
             self._status_fresh = False
-            return self.transport.query_binary_floats(self._joined(cmd), timeout_s=timeout_s)
+            message = self._joined(cmd)
+            if self.before_message is not None:
+                self.before_message()
+            return self.transport.query_binary_floats(message, timeout_s=timeout_s)
         return self._parse(self.query(cmd, timeout_s=timeout_s), reply_format, self.where(cmd))
 
     @staticmethod
