@@ -49,6 +49,9 @@ Value = float | int | bool | str
 MAX_ERROR_READS = 64
 """Error-queue reads before giving up on an instrument that never answers ``0,...``."""
 
+CHECKED_KEPT = 8
+"""Values remembered per setting as checked and rendered (:meth:`Driver._checked_token`)."""
+
 _BLOCK_SHOWN = 12
 _BLOCK_KEPT = 64
 
@@ -109,9 +112,11 @@ class Driver:
         """Settings not sent because the instrument already had them."""
         self._cache: dict[str, tuple[Value, str]] = {}
         self._limits: dict[str, OpLimits] = {}
-        #: per setting: the last value checked, the limits it was checked against, the
-        #: checked value and its token (:meth:`_checked_token`)
-        self._checked_memo: dict[str, tuple[type, Value, OpLimits | None, Value, str]] = {}
+        #: per setting: the limits object its values were checked against, and for each of
+        #: the last few values checked ((type, value)) the checked value and its token
+        #: (:meth:`_checked_token`)
+        self._checked_memo: dict[
+            str, tuple[OpLimits | None, dict[tuple[type, object], tuple[Value, str]]]] = {}
         self._block: deque[str] = deque(maxlen=_BLOCK_KEPT)
         self._block_count = 0
         self._block_ops: set[str] = set()
@@ -322,21 +327,30 @@ class Driver:
     def _checked_token(self, operation: Operation, value: object) -> tuple[Value, str]:
         """``value`` checked (:meth:`_checked`: type and every limit in force) and rendered.
 
-        The last value checked for each setting is remembered with the limits it was checked
-        against: the same value (same type, equal) under the same limits object gets the same
-        verdict and token without checking again (a run asks for mostly unchanged settings
-        every point). Limits only change by :meth:`add_bound`, which makes a new object, so a
-        tightened limit is always checked; NaN is never equal to itself, so it is always
-        checked (and refused)."""
+        The last :data:`CHECKED_KEPT` values checked for each setting are remembered with the
+        limits they were checked against: the same value (same type, equal) under the same
+        limits object gets the same verdict and token without checking again (a run asks for
+        mostly unchanged settings every point, and a reading's markers for the same few
+        frequencies). Limits only change by :meth:`add_bound`, which makes a new object, so a
+        tightened limit is always checked; only values that passed are remembered, so NaN
+        (refused) is always checked, as is a value that cannot be a key."""
         name = operation.spec.name
         limits = self._limits.get(name)
         memo = self._checked_memo.get(name)
-        if (memo is not None and memo[2] is limits and memo[0] is type(value)
-                and memo[1] == value):
-            return memo[3], memo[4]
+        key = (type(value), value)
+        if memo is not None and memo[0] is limits:
+            try:
+                known = memo[1].get(key)
+            except TypeError:  # unhashable: not a value any setting takes, checked below
+                known = None
+            if known is not None:
+                return known
         checked = self._checked(operation, value)
         token = operation.render_value(checked)
-        self._checked_memo[name] = (type(value), value, self._limits.get(name), checked, token)
+        limits = self._limits.get(name)  # the check may have made the entry
+        if memo is None or memo[0] is not limits or len(memo[1]) >= CHECKED_KEPT:
+            memo = self._checked_memo[name] = (limits, {})
+        memo[1][key] = (checked, token)
         return checked, token
 
     def _check_limits(self, operation: Operation, number: float, where: str) -> None:
