@@ -444,6 +444,7 @@ class Runner:
         changed |= self._apply_sources(point)
         if changed:
             self._settle.start(self.settle_s)
+            self.store.force_owed_log()  # the last point's log forcing, while the bench settles
         try:
             if self._survey_due:
                 self._survey(point)

@@ -105,3 +105,28 @@ def test_a_settle_is_waited_once_and_only_once_started(clock_class: type[_Clock]
         assert clock.slept == [SETTLE_S]
 
 
+
+
+def test_a_points_log_forcing_is_paid_while_the_bench_settles_for_the_next(
+        tmp_path, monkeypatch: pytest.MonkeyPatch):
+    """A durable store's point commits leave the log's forcing owed; the run loop pays it
+    while the bench settles for the next point, so no point's commit waits for the disk."""
+    from sweeprig.store import sqlite as sqlite_module
+
+    monkeypatch.setattr(sqlite_module, "SYNC_EVERY_S", 0.0)  # every point finds it due
+    forced: list[str] = []
+    real = SqliteRunStore._fsync_log
+
+    def recorded(self: SqliteRunStore, what: str) -> None:
+        forced.append(what)
+        real(self, what)
+
+    monkeypatch.setattr(SqliteRunStore, "_fsync_log", recorded)
+    with start_sim_bench(clock=VirtualClock()) as sim:
+        resources = {r: v for r, v in sim.resources.items() if r != "simctl"}  # durable
+        bench = tmp_path / "bench.toml"
+        bench.write_text(served_bench_text(resources), encoding="utf-8")
+        outcome = run_sequence(BUDGET, bench, store_path=tmp_path / "s.sqlite")
+    assert outcome.status == "complete" and outcome.points_done == 5
+    assert not any(what.startswith("writing point") for what in forced), forced
+    assert forced.count("forcing the run store's log") == 4  # points 0-3, in 1-4's settle
