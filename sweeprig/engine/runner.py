@@ -7,7 +7,9 @@ Order of work for every point (the plan already put slow settings outermost):
 2. supply voltage (when it changes), output on;
 3. LO, RF and RF2 frequency and level: source setting = DUT-plane power + path loss; a
    setting the instrument already has is not sent again (the drivers' cache);
-4. RF outputs on, then the settling time if anything changed;
+4. RF outputs on, then the settling time if anything changed, counted from the sources'
+   completion replies and waited out just before the next message to any instrument
+   (:class:`SettleWait`: building that message runs inside the settling time);
 5. each reading (analyzer: route the switch, configure, sweep, marker at the product and at
    a noise offset, overload flag; power meter; supply current); levels are referred back to
    the DUT port planes by adding the path loss; with a bench ``[timebase]`` the product is
@@ -46,7 +48,7 @@ from typing import Any
 
 import numpy as np
 
-from sweeprig.clock import Clock
+from sweeprig.clock import Clock, WallClock
 from sweeprig.engine.connect import BenchDrivers
 from sweeprig.engine.eta import EtaTracker
 from sweeprig.engine.noise_floor import MASK_HALF_WIDTH_RBW, NoiseFloor, estimate_noise_floor
@@ -183,6 +185,9 @@ class Runner:
         self._losses: dict[str, PathLoss] = {}
         cond = sequence.conditions
         self.settle_s = float(cond.settle)
+        self._settle = SettleWait(clock)
+        for _role, driver in drivers.items():
+            driver.before_message = self._settle.wait
         self.soak_s = float(cond.soak)
         self.tolerance_c = float(cond.temperature_tolerance)
 
@@ -438,10 +443,14 @@ class Runner:
         changed = self._apply_conditions(point)
         changed |= self._apply_sources(point)
         if changed:
-            self.clock.sleep(self.settle_s)
-        if self._survey_due:
-            self._survey(point)
-        records = [self._read(point, reading) for reading in point.readings]
+            self._settle.start(self.settle_s)
+            self.store.force_owed_log()  # the last point's log forcing, while the bench settles
+        try:
+            if self._survey_due:
+                self._survey(point)
+            records = [self._read(point, reading) for reading in point.readings]
+        finally:
+            self._settle.wait()  # a point without instrument readings still settles
         records = self._agree_offsets(point, records)
         if self.policy.reset_check:
             probe_c = self._check_resets(checked)
@@ -1208,6 +1217,42 @@ def soak(clock: Clock, seconds: float, setpoint_c: float, read_probe: Callable[[
                              + (f", probe at {probe:.2f} °C" if probe is not None else "")
                              + f", {_clock_text(left)} left of {_clock_text(seconds)}"})
         clock.sleep(min(left, WAIT_SLICE_S))
+
+
+class SettleWait:
+    """The settling time after the sources changed, waited out just before the next message
+    to any instrument (every driver's :attr:`~sweeprig.instruments.driver.Driver.before_message`)
+    or at the end of the point's readings, whichever comes first.
+
+    The engine's own work in between (building the analyzer's message, checking its cached
+    settings) then runs inside the settling time instead of after it. On the wall clock the
+    time since :meth:`start` counts towards the wait, so the first message still leaves at
+    least the settling time after the sources answered their completion queries. On any
+    other clock (the simulated bench's virtual time, the simulator's own) the whole time is
+    slept, at the same place among the point's exchanges as before, so simulated readings do
+    not change: the engine's work takes no virtual time.
+    """
+
+    def __init__(self, clock: Clock) -> None:
+        self.clock = clock
+        self._wall = isinstance(clock, WallClock)
+        self._seconds: float | None = None
+        self._started = 0.0
+
+    def start(self, seconds: float) -> None:
+        """The sources have answered: the next message waits until ``seconds`` have passed."""
+        self._seconds = seconds
+        self._started = time.monotonic()
+
+    def wait(self) -> None:
+        """Wait out what is left of the settling time (nothing when none is pending)."""
+        seconds = self._seconds
+        if seconds is None:
+            return
+        self._seconds = None  # first: the clock's own sleep may send a message
+        if self._wall:
+            seconds -= time.monotonic() - self._started
+        self.clock.sleep(seconds)
 
 
 def _finish_all(posted: list[tuple[Driver, Pending | None]],

@@ -29,7 +29,7 @@ from __future__ import annotations
 import contextlib
 import math
 from collections import deque
-from collections.abc import Iterator, Mapping
+from collections.abc import Callable, Iterator, Mapping
 from dataclasses import dataclass
 from typing import Any, ClassVar
 
@@ -48,6 +48,9 @@ Value = float | int | bool | str
 
 MAX_ERROR_READS = 64
 """Error-queue reads before giving up on an instrument that never answers ``0,...``."""
+
+CHECKED_KEPT = 8
+"""Values remembered per setting as checked and rendered (:meth:`Driver._checked_token`)."""
 
 _BLOCK_SHOWN = 12
 _BLOCK_KEPT = 64
@@ -109,9 +112,11 @@ class Driver:
         """Settings not sent because the instrument already had them."""
         self._cache: dict[str, tuple[Value, str]] = {}
         self._limits: dict[str, OpLimits] = {}
-        #: per setting: the last value checked, the limits it was checked against, the
-        #: checked value and its token (:meth:`_checked_token`)
-        self._checked_memo: dict[str, tuple[type, Value, OpLimits | None, Value, str]] = {}
+        #: per setting: the limits object its values were checked against, and for each of
+        #: the last few values checked ((type, value)) the checked value and its token
+        #: (:meth:`_checked_token`)
+        self._checked_memo: dict[
+            str, tuple[OpLimits | None, dict[tuple[type, object], tuple[Value, str]]]] = {}
         self._block: deque[str] = deque(maxlen=_BLOCK_KEPT)
         self._block_count = 0
         self._block_ops: set[str] = set()
@@ -125,6 +130,12 @@ class Driver:
         self._status_fresh = False
         #: an ``*ESR?`` read showed error bits: the queue holds entries not yet read
         self._errors_flagged = False
+
+    before_message: Callable[[], None] | None = None
+    """Called just before each message leaves for the instrument (after it is built), when
+    set: the run loop waits out the sources' settling time there
+    (:class:`sweeprig.engine.runner.SettleWait`), so the work of building the message runs
+    inside that time rather than after it."""
 
     single_units = False
     """True: one unit per message whatever the profile says (``sweeprig probe`` tries each
@@ -160,14 +171,20 @@ class Driver:
         self._block_count += 1
         self.transactions += 1
         self._status_fresh = False
-        self.transport.write(self._joined(cmd))
+        message = self._joined(cmd)
+        if self.before_message is not None:
+            self.before_message()
+        self.transport.write(message)
 
     def query(self, cmd: str, *, timeout_s: float | None = None) -> str:
         """Send query ``cmd`` (after any held commands, in the same message) and return the
         reply text (counted)."""
         self.transactions += 1
         self._status_fresh = False
-        return self.transport.query(self._joined(cmd), timeout_s=timeout_s)
+        message = self._joined(cmd)
+        if self.before_message is not None:
+            self.before_message()
+        return self.transport.query(message, timeout_s=timeout_s)
 
     def post_query(self, cmd: str, *, timeout_s: float | None = None) -> Pending:
         """Send query ``cmd`` (after any held commands, in the same message) without waiting
@@ -177,12 +194,16 @@ class Driver:
         self.transactions += 1
         self._status_fresh = False
         message = self._joined(cmd)
+        if self.before_message is not None:
+            self.before_message()
         post = getattr(self.transport, "post", None)
         return Pending(message, timeout_s, None if post is None else post(message))
 
     def collect(self, pending: Pending) -> str:
         """The reply to a :meth:`post_query`."""
         if pending.posted is None:
+            if self.before_message is not None:
+                self.before_message()
             return self.transport.query(pending.message, timeout_s=pending.timeout_s)
         return self.transport.collect(pending.posted, timeout_s=pending.timeout_s)
 
@@ -222,7 +243,10 @@ class Driver:
         if self._held:
             self.transactions += 1
             self._status_fresh = False
-            self.transport.write(self._joined(None))
+            message = self._joined(None)
+            if self.before_message is not None:
+                self.before_message()
+            self.transport.write(message)
 
     def _joined(self, cmd: str | None) -> str:
         """The held commands and ``cmd`` as one message; each unit's header made absolute
@@ -303,21 +327,30 @@ class Driver:
     def _checked_token(self, operation: Operation, value: object) -> tuple[Value, str]:
         """``value`` checked (:meth:`_checked`: type and every limit in force) and rendered.
 
-        The last value checked for each setting is remembered with the limits it was checked
-        against: the same value (same type, equal) under the same limits object gets the same
-        verdict and token without checking again (a run asks for mostly unchanged settings
-        every point). Limits only change by :meth:`add_bound`, which makes a new object, so a
-        tightened limit is always checked; NaN is never equal to itself, so it is always
-        checked (and refused)."""
+        The last :data:`CHECKED_KEPT` values checked for each setting are remembered with the
+        limits they were checked against: the same value (same type, equal) under the same
+        limits object gets the same verdict and token without checking again (a run asks for
+        mostly unchanged settings every point, and a reading's markers for the same few
+        frequencies). Limits only change by :meth:`add_bound`, which makes a new object, so a
+        tightened limit is always checked; only values that passed are remembered, so NaN
+        (refused) is always checked, as is a value that cannot be a key."""
         name = operation.spec.name
         limits = self._limits.get(name)
         memo = self._checked_memo.get(name)
-        if (memo is not None and memo[2] is limits and memo[0] is type(value)
-                and memo[1] == value):
-            return memo[3], memo[4]
+        key = (type(value), value)
+        if memo is not None and memo[0] is limits:
+            try:
+                known = memo[1].get(key)
+            except TypeError:  # unhashable: not a value any setting takes, checked below
+                known = None
+            if known is not None:
+                return known
         checked = self._checked(operation, value)
         token = operation.render_value(checked)
-        self._checked_memo[name] = (type(value), value, self._limits.get(name), checked, token)
+        limits = self._limits.get(name)  # the check may have made the entry
+        if memo is None or memo[0] is not limits or len(memo[1]) >= CHECKED_KEPT:
+            memo = self._checked_memo[name] = (limits, {})
+        memo[1][key] = (checked, token)
         return checked, token
 
     def _check_limits(self, operation: Operation, number: float, where: str) -> None:
@@ -461,7 +494,10 @@ class Driver:
         if reply_format == "real32":
             self.transactions += 1
             self._status_fresh = False
-            return self.transport.query_binary_floats(self._joined(cmd), timeout_s=timeout_s)
+            message = self._joined(cmd)
+            if self.before_message is not None:
+                self.before_message()
+            return self.transport.query_binary_floats(message, timeout_s=timeout_s)
         return self._parse(self.query(cmd, timeout_s=timeout_s), reply_format, self.where(cmd))
 
     @staticmethod

@@ -262,6 +262,12 @@ class RunStore(Protocol):
         the run does now, e.g. its ETA) goes with the heartbeat in the same transaction."""
         ...
 
+    def force_owed_log(self) -> None:
+        """Do now the durability work the last point's commit left owed (a store that
+        forces its log to disk now and then, :mod:`sweeprig.store.sqlite`); nothing for a
+        store that owes none. The run loop calls it while the bench settles."""
+        ...
+
     def done_point_indices(self, run_id: int) -> set[int]:
         """Indices of the points already stored (to resume a run)."""
         ...

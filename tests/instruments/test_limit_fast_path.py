@@ -140,6 +140,44 @@ def test_the_memo_keeps_types_apart_and_never_takes_nan() -> None:
     assert source.set_output(True) is True
 
 
+def test_the_memo_of_several_values_gives_what_checking_each_time_gives() -> None:
+    """A reading's markers ask for the same few frequencies every point: each is remembered
+    (up to ``CHECKED_KEPT`` per setting), and every answer, token or refusal, is the one a
+    driver without the memo gives (a fresh memo before every call), through a tightened
+    limit and an unhashable value."""
+    from sweeprig.instruments.driver import CHECKED_KEPT
+
+    fast, _ = _analyzer()
+    slow, _ = _analyzer()
+    operation = fast.profile.op("marker_level")
+    markers = [70e6, 78.4e6, 61.6e6, 76e6]
+    values: list[object] = [*markers * 3, *(float(f) for f in range(CHECKED_KEPT * 2)),
+                            *markers, 70_000_000, np.float64(70e6), math.nan, -0.0, 0.0,
+                            [70e6], "70e6", True, *markers]
+
+    def answers() -> list[object]:
+        out: list[object] = []
+        for value in values:
+            for sa in (fast, slow):
+                if sa is slow:
+                    sa._checked_memo.clear()
+                try:
+                    out.append((sa is fast, sa._checked_token(operation, value)))
+                except (InputError, SafetyLimitError) as exc:
+                    out.append((sa is fast, type(exc), str(exc)))
+        return out
+
+    def agree(out: list[object]) -> None:
+        for a, b in zip(out[::2], out[1::2], strict=True):
+            assert a[1:] == b[1:]  # type: ignore[index]
+
+    agree(answers())
+    assert len(fast._checked_memo["marker_level"][1]) <= CHECKED_KEPT
+    for sa in (fast, slow):
+        sa.add_bound("marker_level", Bound(72e6, "max", "bench", "a test bench"))
+    agree(answers())  # 78.4e6 and 76e6 refused now, remembered or not
+
+
 
 def _analyzer() -> tuple[AnalyzerDriver, list[str]]:
     sent: list[str] = []

@@ -202,6 +202,9 @@ class _Sink:
     def log_event(self, *_args: Any, **_kwargs: Any) -> None:
         pass
 
+    def force_owed_log(self) -> None:
+        pass
+
 
 def check_says(sequence_path: Path, bench_path: Path) -> SweeprigError | None:
     """What the pre-flight check (``sweeprig check``) refuses with, None when it passes."""

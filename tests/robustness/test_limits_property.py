@@ -311,6 +311,9 @@ class _Sink:
     def log_event(self, *_args: Any, **_kwargs: Any) -> None:
         pass
 
+    def force_owed_log(self) -> None:
+        pass
+
 
 FAKE = {role: f"TCPIP0::fake-{role}::5025::SOCKET" for role in ROLES}
 

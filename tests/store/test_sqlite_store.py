@@ -101,7 +101,8 @@ def test_a_durable_store_forces_its_log_now_and_then_not_per_point(sqlite_store,
     """Every commit is safe against a crash of the process (WAL, synchronous=NORMAL); the log
     is forced to disk every SYNC_EVERY_POINTS points or SYNC_EVERY_S, and by any other
     write, so a power cut loses fewer than SYNC_EVERY_POINTS points, which resume measures
-    again."""
+    again. A point's forcing is owed to the run's next wait (force_owed_log) from the point
+    before the count's, and paid by the next commit if the run never waits."""
     import os
 
     from sweeprig.store import sqlite as sqlite_module
@@ -124,17 +125,27 @@ def test_a_durable_store_forces_its_log_now_and_then_not_per_point(sqlite_store,
     assert len(forced) == 3  # the next group is not forced yet ...
     store.log_event(run_id, "info", "note", "an event")
     assert len(forced) == 4  # ... until any other write
+    store.force_owed_log()
+    assert len(forced) == 4  # nothing owed: nothing forced
     monkeypatch.setattr(sqlite_module, "SYNC_EVERY_S", 0.0)
     store.write_point(run_id, _point(2 * every + 1), _readings(2 * every + 1))
-    assert len(forced) == 5  # half a second old (here: any age): forced
+    assert len(forced) == 4  # half a second old (here: any age): owed ...
+    store.force_owed_log()
+    assert len(forced) == 5  # ... and forced while the run waits (the bench settling)
+    store.force_owed_log()
+    assert len(forced) == 5  # once
+    store.write_point(run_id, _point(2 * every + 2), _readings(2 * every + 2))
+    store.write_point(run_id, _point(2 * every + 3), _readings(2 * every + 3))
+    assert len(forced) == 6  # owed and not paid: the next commit forces it
     reopened = _reopen(store)
-    assert len(reopened.points_frame(run_id)) == 2 * every + 2
+    assert len(reopened.points_frame(run_id)) == 2 * every + 4
     reopened.close()
     relaxed = SqliteRunStore(store.path.parent / "sim.sqlite", durable=False)
     assert relaxed._conn.execute("PRAGMA synchronous").fetchone()[0] == 1
     relaxed.write_point(_run(relaxed), _point(0), _readings(0))
+    relaxed.force_owed_log()
     relaxed.close()
-    assert len(forced) == 5  # not durable: never forced
+    assert len(forced) == 6  # not durable: never forced
 
 
 def test_run_round_trip(store):
