@@ -260,6 +260,12 @@ class SimWorld:
         # there (dB): the paths are fixed, the sources step
         self._path_losses: dict[tuple[object, ...], tuple[float, tuple[float, ...]]] = {}
         self._spur_losses: dict[tuple[str, float], float] = {}
+        # (feed port, port, frequency Hz) → the junction's mismatch, dB: the ports are
+        # fixed, the sources step
+        self._junctions: dict[tuple[str, str, float], float] = {}
+        # the tones at the DUT ports as one analyzer request read them (role → tone), held
+        # by the thread making that request while it lasts (see analyzer_input)
+        self._held = threading.local()
 
     def connect(
         self,
@@ -286,6 +292,7 @@ class SimWorld:
             self._last_input = None
             self._path_losses.clear()
             self._spur_losses.clear()
+            self._junctions.clear()
             self._read_ahead = ReadAhead()
 
     # --- the DUT's inputs -------------------------------------------------------------
@@ -378,14 +385,14 @@ class SimWorld:
         if self.thru_fitted():
             if match is not None:  # the thru hands the RF feed to the output path's load
                 load = _LOAD_OF_CHANNEL.get(self._channel(), "load_if")
-                rf = tuple(_moved(t, match.junction_db("source_rf", load, t.freq_hz))
+                rf = tuple(_moved(t, self._junction_db("source_rf", load, t.freq_hz))
                            for t in rf)
             return _thru_response(rf)
         if match is not None:  # the incident waves the part's own ports actually get
-            rf = tuple(_moved(t, match.junction_db("source_rf", "part_rf", t.freq_hz))
+            rf = tuple(_moved(t, self._junction_db("source_rf", "part_rf", t.freq_hz))
                        for t in rf)
             if lo is not None:
-                lo = _moved(lo, match.junction_db("source_lo", "part_lo", lo.freq_hz))
+                lo = _moved(lo, self._junction_db("source_lo", "part_lo", lo.freq_hz))
         temperature = self._rounded(self.probe_temperature_c())
         key = (lo, rf, round(volts, 6), temperature)
         with self._lock:
@@ -412,6 +419,19 @@ class SimWorld:
             value, *rest = many(op, lo, [rf, *sets])
             self._read_ahead.store(context, sets, rest)
             return self._keep(key, value, EvaluationInputs(lo, rf, volts, used))
+
+    def _junction_db(self, feed: str, port: str, freq_hz: float) -> float:
+        """``config.match.junction_db(feed, port, freq_hz)``, each answer worked out once
+        (the same call, so the same number)."""
+        key = (feed, port, freq_hz)
+        db = self._junctions.get(key)
+        if db is None:
+            assert self.config.match is not None
+            db = self.config.match.junction_db(feed, port, freq_hz)
+            if len(self._junctions) >= _CACHE_ENTRIES:
+                self._junctions.clear()
+            self._junctions[key] = db
+        return db
 
     def _die_temperature_key(self, lo: ToneInput | None, rf: tuple[ToneInput, ...],
                              volts: float, temperature: float) -> float:
@@ -482,9 +502,20 @@ class SimWorld:
 
     # --- what the instruments ask ---------------------------------------------------------
     def analyzer_input(self) -> InputSpectrum:
-        """Lines and noise density at the analyzer input for the switch's channel."""
+        """Lines and noise density at the analyzer input for the switch's channel.
+
+        The sources are read once for it: the tone at each DUT port is held while it lasts
+        (the response, the LO for the spurs and the RF tones for the LO's spurs ask for
+        them again; the sources do not change while the analyzer's request runs)."""
         channel = self._switch.channel if self._switch is not None else SwitchChannel.IF
-        return self.spectrum_for(self.response(), channel)
+        held = self._held
+        if getattr(held, "tones", None) is not None:  # inside a request already
+            return self.spectrum_for(self.response(), channel)
+        held.tones = {}
+        try:
+            return self.spectrum_for(self.response(), channel)
+        finally:
+            held.tones = None
 
     def spectrum_for(self, response: MixerResponse, channel: int) -> InputSpectrum:
         """What reaches the analyzer from a response on a switch channel."""
@@ -708,6 +739,14 @@ class SimWorld:
         return path if filt is None else (filt, *path)
 
     def _tone_at_port(self, role: str) -> ToneInput | None:
+        tones: dict[str, ToneInput | None] | None = getattr(self._held, "tones", None)
+        if tones is None:
+            return self._read_tone_at_port(role)
+        if role not in tones:
+            tones[role] = self._read_tone_at_port(role)
+        return tones[role]
+
+    def _read_tone_at_port(self, role: str) -> ToneInput | None:
         source = self._sources.get(role)
         if source is None or not source.output_on:
             return None

@@ -253,3 +253,47 @@ def test_repeated_frequencies_reuse_the_path_losses_with_the_same_numbers() -> N
     assert world.rf_inputs() != first[0]
     parts["rf"].freq_hz = 2.4e9  # type: ignore[attr-defined]
     assert (world.rf_inputs(), world.lo_input()) == first
+
+
+def test_an_analyzer_request_reads_each_source_once_and_gets_the_same_spectrum() -> None:
+    """The tones held for one analyzer request are the tones read without holding: the
+    spectrum is the one made from the response and the switch's channel directly, and the
+    request reads each source's view once (the response, the spurs and the LO ask again)."""
+    from sweeprig.sim.bench import build_sim_instruments
+
+    bench = build_sim_instruments()  # the default bench: spurs, mismatch, a noise source
+    world, inst = bench.world, bench.instruments
+    inst["lo"].handle("FREQ 2.33 GHz;POW 7 dBm;OUTP ON")
+    inst["rf"].handle("FREQ 2.4 GHz;POW -20 dBm;OUTP ON")
+    inst["dc"].handle("VOLT 5;CURR 0.2;OUTP ON")
+    held = world.analyzer_input()
+    plain = world._analyzer_input(world.response(), 1)
+    assert held.line_arrays()[0].tolist() == plain.line_arrays()[0].tolist()
+    assert held.line_arrays()[1].tolist() == plain.line_arrays()[1].tolist()
+    grid = np.linspace(60e6, 80e6, 11)
+    assert held.noise_at(grid).tolist() == plain.noise_at(grid).tolist()
+    assert held.wideband_noise_dbm == plain.wideband_noise_dbm
+    assert getattr(world._held, "tones", None) is None  # nothing held after the request
+
+    reads: list[str] = []
+    read = world._read_tone_at_port
+
+    def counted(role: str) -> ToneInput | None:
+        reads.append(role)
+        return read(role)
+
+    world._read_tone_at_port = counted  # type: ignore[method-assign]
+    world._last_input = None
+    world.analyzer_input()
+    assert sorted(reads) == ["lo", "rf", "rf2"]
+
+
+def test_the_kept_junctions_are_the_matchs_own_numbers() -> None:
+    from sweeprig.sim.bench import build_sim_instruments
+
+    world = build_sim_instruments().world
+    match = world.config.match
+    assert match is not None
+    for freq in (2.33e9, 2.4e9, 2.33e9, 70e6):
+        for feed, port in (("source_rf", "part_rf"), ("source_lo", "part_lo")):
+            assert world._junction_db(feed, port, freq) == match.junction_db(feed, port, freq)
