@@ -271,10 +271,15 @@ class SweepResult:
             x = f_lo
         else:
             x = min(max(float(freq_hz), f_lo), f_hi)
-            offset = float(np.interp(x, self.freqs_hz, self._noise_offset_db))
-            k = int(np.searchsorted(self.freqs_hz, x))
-            if k < self.freqs_hz.size and float(self.freqs_hz[k]) == x:
+            freqs = self.freqs_hz
+            k = int(np.searchsorted(freqs, x))
+            if k < freqs.size and float(freqs[k]) == x:
                 at = k
+            if at is not None and (k + 1 == freqs.size or float(freqs[k + 1]) != x):
+                # on a trace point of its own: what np.interp gives there, that point's offset
+                offset = float(self._noise_offset_db[k])
+            else:
+                offset = float(np.interp(x, freqs, self._noise_offset_db))
         if at is not None and self._signal_grid_mw is not None \
                 and self._noise_base_grid_mw is not None:
             noise = np.array([self._noise_base_grid_mw[at]])

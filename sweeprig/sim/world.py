@@ -622,6 +622,7 @@ class SimWorld:
         if source is None or not source.output_on or not spurious:
             return []
         freq = float(getattr(source, "output_freq_hz", source.freq_hz))
+        delivered_dbm = float(source.delivered_power_dbm)  # read once for all its spurs
         out = []
         for offset_hz, dbc in spurious:
             f = freq + float(offset_hz)
@@ -632,7 +633,7 @@ class SimWorld:
                 if len(self._spur_losses) >= _CACHE_ENTRIES:
                     self._spur_losses.clear()
                 loss = self._spur_losses[(role, f)] = sum(c.at(f) for c in self._path(role))
-            out.append((f, float(source.delivered_power_dbm) + float(dbc) - loss))
+            out.append((f, delivered_dbm + float(dbc) - loss))
         return out
 
     def spur_lines(self, response: MixerResponse) -> list[SpurLine]:

@@ -376,3 +376,24 @@ def test_a_sweep_of_lines_and_noise_gives_the_same_trace_and_readings_each_time(
     with warnings.catch_warnings():
         warnings.simplefilter("error")
         assert _mw_to_dbm(np.array([0.0, 1.0])).tolist() == [-3000.0, 0.0]
+
+
+def test_a_reading_on_a_trace_point_takes_the_offset_np_interp_gives_there() -> None:
+    """On a trace point (every one of them, the ends included) the reading takes that
+    point's noise offset, which is what interpolating the offsets there gives, bit for bit;
+    on a grid whose frequencies repeat (a span of a few hertz at 10 GHz) it interpolates."""
+    spectrum, settings = _busy_spectrum()
+    sweep = simulate_sweep(spectrum, settings, PARAMS, _rng(9))
+    assert sweep._signal_grid_mw is not None and sweep._noise_base_grid_mw is not None
+    assert sweep._reciprocal_mw is not None
+    for k, freq in enumerate(sweep.freqs_hz.tolist()):
+        offset = float(np.interp(freq, sweep.freqs_hz, sweep._noise_offset_db))
+        assert offset == float(sweep._noise_offset_db[k])
+        noise = np.array([sweep._noise_base_grid_mw[k]]) + sweep._reciprocal_mw(np.array([freq]))
+        plain = np.array([sweep._signal_grid_mw[k]]) + noise * 10.0 ** (offset / 10.0)
+        assert sweep.level_at(freq) == float(10.0 * np.log10(np.maximum(plain, 1e-300))[0])
+    tiny = SweepSettings(10e9, 10e9 + 2e-6, points=101, rbw_hz=1.0, vbw_hz=1.0)
+    repeated = simulate_sweep(InputSpectrum(((10e9, -30.0),)), tiny, PARAMS, _rng(9))
+    assert np.unique(repeated.freqs_hz).size < repeated.freqs_hz.size
+    for freq in np.unique(repeated.freqs_hz).tolist():
+        assert math.isfinite(repeated.level_at(freq))
