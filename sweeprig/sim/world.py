@@ -33,7 +33,6 @@ to it as a voltage with a seeded phase.
 from __future__ import annotations
 
 import cmath
-import dataclasses
 import math
 import threading
 from collections import OrderedDict
@@ -788,8 +787,12 @@ _PART_OF_CHANNEL = {SwitchChannel.IF: "part_if", SwitchChannel.RF: "part_rf",
 
 
 def _moved(tone: ToneInput, db: float) -> ToneInput:
-    """``tone`` with its power moved by ``db`` (harmonics keep their dBc)."""
-    return tone if db == 0.0 else dataclasses.replace(tone, power_dbm=tone.power_dbm + db)
+    """``tone`` with its power moved by ``db`` (harmonics keep their dBc): what
+    ``dataclasses.replace(tone, power_dbm=…)`` makes, built directly (a replace looks the
+    fields up at every call, twice a model evaluation)."""
+    if db == 0.0:
+        return tone
+    return ToneInput(tone.freq_hz, tone.power_dbm + db, tone.phase_rad, tone.harmonics_dbc)
 
 
 def _thru_response(rf: Sequence[ToneInput]) -> MixerResponse:

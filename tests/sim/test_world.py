@@ -297,3 +297,19 @@ def test_the_kept_junctions_are_the_matchs_own_numbers() -> None:
     for freq in (2.33e9, 2.4e9, 2.33e9, 70e6):
         for feed, port in (("source_rf", "part_rf"), ("source_lo", "part_lo")):
             assert world._junction_db(feed, port, freq) == match.junction_db(feed, port, freq)
+
+
+def test_a_tone_moved_by_a_junction_is_the_replaced_tone() -> None:
+    """The moved tone is built from the tone's fields directly: the same tone as
+    ``dataclasses.replace`` makes (should the tone gain a field, this fails until the move
+    carries it)."""
+    import dataclasses
+
+    from sweeprig.sim.world import _moved
+
+    assert [f.name for f in dataclasses.fields(ToneInput)] == [
+        "freq_hz", "power_dbm", "phase_rad", "harmonics_dbc"]
+    tone = ToneInput(2.4e9, -20.0, 0.3, (-35.0, -45.0))
+    for db in (0.0, 0.12, -0.4, 1e-17):
+        assert _moved(tone, db) == dataclasses.replace(tone, power_dbm=tone.power_dbm + db)
+    assert _moved(tone, 0.0) is tone
