@@ -340,6 +340,15 @@ class SimWorld:
             return np.full(f.shape, 290.0)
         return ns.temperature_k(f, self.noise_source_on())
 
+    def _band_temperature_k(self, freq_hz: np.ndarray) -> np.ndarray | float:
+        """:meth:`input_noise_temperature_k` for the converted noise: while the noise source
+        is off its temperature is one number (the array of it, as a number: the output
+        density takes it elementwise alike, bit for bit)."""
+        ns = self.config.noise_source
+        if ns is not None and not self.noise_source_on():
+            return ns.cold_k
+        return self.input_noise_temperature_k(freq_hz)
+
     def probe_temperature_c(self) -> float:
         """Chamber probe temperature (ambient without a chamber), degC."""
         if self._chamber is not None:
@@ -594,8 +603,8 @@ class SimWorld:
                 ("port²", out_port), f, lambda: np.asarray(out_port.magnitude(f)) ** 2)
             g_s = mid * np.asarray(in_port.magnitude(f_s)) ** 2
             g_i = mid * np.asarray(in_port.magnitude(f_i)) ** 2
-            return mixer_output_density_mw(part_mw, temperature_k(f_s), temperature_k(f_i),
-                                           g_s, g_i)
+            return mixer_output_density_mw(part_mw, self._band_temperature_k(f_s),
+                                           self._band_temperature_k(f_i), g_s, g_i)
 
         def density(freqs_hz: np.ndarray) -> np.ndarray:
             f = np.asarray(freqs_hz, dtype=float)

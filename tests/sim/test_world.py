@@ -313,3 +313,33 @@ def test_a_tone_moved_by_a_junction_is_the_replaced_tone() -> None:
     for db in (0.0, 0.12, -0.4, 1e-17):
         assert _moved(tone, db) == dataclasses.replace(tone, power_dbm=tone.power_dbm + db)
     assert _moved(tone, 0.0) is tone
+
+
+@pytest.mark.parametrize("hot", [False, True])
+def test_the_converted_noise_takes_a_cold_source_as_one_temperature_alike(hot: bool) -> None:
+    """With the noise source off its temperature enters the converted noise density as one
+    number instead of an array of it: the same density, bit for bit, on the sweep's grid
+    and at one frequency; on, the frequency-dependent temperatures are used as before."""
+    from sweeprig.sim.bench import build_sim_instruments
+    from sweeprig.sim.noise_source import mixer_output_density_mw
+
+    bench = build_sim_instruments()
+    world, inst = bench.world, bench.instruments
+    inst["lo"].handle("FREQ 2.33 GHz;POW 7 dBm;OUTP ON")
+    inst["rf"].handle("FREQ 2.4 GHz;POW -20 dBm;OUTP ON")
+    inst["dc"].handle("VOLT 5;CURR 0.2;OUTP ON")
+    if hot:
+        inst["nsdc"].handle("VOLT 28;CURR 0.1;OUTP ON")
+    assert world.noise_source_on() is hot
+    fast = world.analyzer_input()
+    world._band_temperature_k = world.input_noise_temperature_k  # type: ignore[method-assign]
+    world._last_input = None
+    plain = world.analyzer_input()
+    for freqs in (np.linspace(60e6, 80e6, 1001), np.array([300e6])):
+        assert fast.noise_at(freqs).tolist() == plain.noise_at(freqs).tolist()
+    assert fast.wideband_noise_dbm == plain.wideband_noise_dbm
+    gains = np.array([0.5, 1e-3, 2.0])
+    cold = 296.15
+    assert mixer_output_density_mw(1e-17, cold, cold, gains, gains).tolist() == \
+        mixer_output_density_mw(1e-17, np.full(3, cold), np.full(3, cold), gains,
+                                gains).tolist()
