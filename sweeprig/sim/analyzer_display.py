@@ -27,6 +27,7 @@ import math
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from functools import lru_cache
+from typing import Protocol
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -166,8 +167,18 @@ class SweepSettings:
         return 0.5 * (self.start_hz + self.stop_hz)
 
     def freqs_hz(self) -> FloatArray:
-        """Frequency of every trace point, Hz (all equal in zero span)."""
-        return np.linspace(self.start_hz, self.stop_hz, self.points)
+        """Frequency of every trace point, Hz (all equal in zero span; read-only: the grid
+        of one start, stop and point count is made once and shared by its sweeps)."""
+        return _trace_grid(self.start_hz, self.stop_hz, self.points)
+
+
+@lru_cache(maxsize=32)
+def _trace_grid(start_hz: float, stop_hz: float, points: int) -> FloatArray:
+    """``np.linspace(start_hz, stop_hz, points)``, read-only (an analyzer sweeps the same
+    settings point after point)."""
+    grid = np.linspace(start_hz, stop_hz, points)
+    grid.flags.writeable = False
+    return grid
 
 
 @dataclass(frozen=True)
@@ -260,10 +271,15 @@ class SweepResult:
             x = f_lo
         else:
             x = min(max(float(freq_hz), f_lo), f_hi)
-            offset = float(np.interp(x, self.freqs_hz, self._noise_offset_db))
-            k = int(np.searchsorted(self.freqs_hz, x))
-            if k < self.freqs_hz.size and float(self.freqs_hz[k]) == x:
+            freqs = self.freqs_hz
+            k = int(np.searchsorted(freqs, x))
+            if k < freqs.size and float(freqs[k]) == x:
                 at = k
+            if at is not None and (k + 1 == freqs.size or float(freqs[k + 1]) != x):
+                # on a trace point of its own: what np.interp gives there, that point's offset
+                offset = float(self._noise_offset_db[k])
+            else:
+                offset = float(np.interp(x, freqs, self._noise_offset_db))
         if at is not None and self._signal_grid_mw is not None \
                 and self._noise_base_grid_mw is not None:
             noise = np.array([self._noise_base_grid_mw[at]])
@@ -447,7 +463,7 @@ def first_mixer(
     att = settings.attenuation_db
     if arrays is not None:  # the same lines as arrays (Hz, dBm)
         ok = (arrays[0] > 0) & np.isfinite(arrays[1])
-        freqs, input_dbm = arrays[0][ok], arrays[1][ok]
+        freqs, input_dbm = (arrays if ok.all() else (arrays[0][ok], arrays[1][ok]))
     elif len(lines):
         arr = np.asarray(lines, dtype=float).reshape(-1, 2)
         ok = (arr[:, 0] > 0) & np.isfinite(arr[:, 1])
@@ -471,9 +487,9 @@ def first_mixer(
     iu, ju, ia, ib, kinds_all = _pair_indices(fi.size)
     im2 = pi[iu] + pi[ju] - (shi - IM2_ABOVE_H2_DB)
     im3 = 2.0 * pi[ia] + pi[ib] - 2.0 * toi
+    fiu, fju, fia2, fib = fi[iu], fi[ju], 2.0 * fi[ia], fi[ib]  # each taken once
     prod_f = np.concatenate([
-        2.0 * fi, 3.0 * fi, fi[iu] + fi[ju], np.abs(fi[iu] - fi[ju]),
-        np.abs(2.0 * fi[ia] - fi[ib]), 2.0 * fi[ia] + fi[ib]])
+        2.0 * fi, 3.0 * fi, fiu + fju, np.abs(fiu - fju), np.abs(fia2 - fib), fia2 + fib])
     prod_p = np.concatenate([
         2.0 * pi - shi, 3.0 * pi - 2.0 * toi - H3_BELOW_IM3_DB, im2, im2, im3, im3])
     keep = (prod_f > 0) & (prod_p > _PRODUCT_FLOOR_DBM)
@@ -607,7 +623,7 @@ def simulate_sweep(
         return total
 
     offsets_db = _noise_offsets_db(settings, rng)
-    signal_grid, base_grid = signal_mw(freqs), base_mw(freqs)
+    signal_grid, base_grid = signal_mw(freqs, ascending=True), base_mw(freqs)
     noise_grid = base_grid if reciprocal_mw is None else base_grid + reciprocal_mw(freqs)
     trace = _mw_to_dbm(signal_grid + noise_grid * 10.0 ** (offsets_db / 10.0))
     return SweepResult(
@@ -626,9 +642,17 @@ def simulate_sweep(
     )
 
 
+class _SignalFn(Protocol):
+    """The lines' signal (mW) as a function of f (Hz); ``ascending=True`` tells it ``f`` is
+    a 1-D ascending axis (a sweep's grid), which it then need not check."""
+
+    def __call__(self, freqs_hz: FloatArray, *, ascending: bool | None = None) -> FloatArray:
+        ...
+
+
 def _signal_mw_fn(
     line_f: FloatArray, line_dbm: FloatArray, rbw_hz: float, error_db: float
-) -> Callable[[FloatArray], FloatArray]:
+) -> _SignalFn:
     """Sum of the lines (mW) seen through the Gaussian RBW filter, as a function of f (Hz)."""
     line_mw = 10.0 ** ((line_dbm + error_db) / 10.0)
     keep = line_mw > 0
@@ -637,14 +661,19 @@ def _signal_mw_fn(
     line_f, line_mw = line_f[order], line_mw[order]
     reach = _FILTER_REACH_RBW * rbw_hz
 
-    def signal(freqs_hz: FloatArray) -> FloatArray:
+    def signal(freqs_hz: FloatArray, *, ascending: bool | None = None) -> FloatArray:
         f = np.asarray(freqs_hz, dtype=float)
         out = np.zeros(f.shape)
         if line_f.size == 0 or f.size == 0:
             return out
-        lo = np.searchsorted(line_f, float(np.min(f)) - reach, side="left")
-        hi = np.searchsorted(line_f, float(np.max(f)) + reach, side="right")
-        ascending = f.ndim == 1 and bool(np.all(np.diff(f) >= 0))
+        if ascending is None:
+            ascending = f.ndim == 1 and bool(np.all(np.diff(f) >= 0))
+        if ascending:  # its ends are its least and greatest values
+            f_min, f_max = float(f[0]), float(f[-1])
+        else:
+            f_min, f_max = float(np.min(f)), float(np.max(f))
+        lo = np.searchsorted(line_f, f_min - reach, side="left")
+        hi = np.searchsorted(line_f, f_max + reach, side="right")
         # Chunks of neighbouring lines; on an ascending frequency axis each chunk only
         # touches the points within reach of it, so wide spans with many lines stay cheap.
         for start in range(int(lo), int(hi), 64):
@@ -703,8 +732,12 @@ def _noise_parts_mw_fn(
         density_mw = 10.0 ** (spectrum.noise_at(freqs_hz) / 10.0)
         # The noise figure is defined with a source at T0, so the DANL already holds the kT0
         # of a matched input; only the excess above kT0 adds (definition of F; Pozar).
-        excess_mw = (np.maximum(density_mw - kt0_mw_per_hz, 0.0) * enbw_hz * error
-                     * input_gain)
+        excess_mw = np.maximum(density_mw - kt0_mw_per_hz, 0.0) * enbw_hz
+        # × error × input_gain, each skipped where it is 1 (x·1 is x, bit for bit)
+        if error != 1.0:
+            excess_mw = excess_mw * error
+        if input_gain != 1.0:
+            excess_mw = excess_mw * input_gain
         return own_mw + excess_mw
 
     return base, reciprocal
@@ -757,10 +790,19 @@ def _reciprocal_mw_fn(
         # A swept trace: the noise is smooth on the scale of half an RBW (the fade) and of
         # the offset itself (the profile), so every step-th point is computed and the rest
         # interpolated (linear in power); single readings are always exact.
-        idx = np.unique(np.append(np.arange(0, f.size, step), f.size - 1))
-        return np.interp(f, f[idx], exact(f[idx]))
+        idx = _decimation(int(f.size), step)
+        computed = f[idx]
+        return np.interp(f, computed, exact(computed))
 
     return reciprocal
+
+
+@lru_cache(maxsize=32)
+def _decimation(points: int, step: int) -> NDArray[np.intp]:
+    """Every ``step``-th index of ``points`` and the last one, ascending (read-only)."""
+    idx = np.unique(np.append(np.arange(0, points, step), points - 1))
+    idx.flags.writeable = False
+    return idx
 
 
 @lru_cache(maxsize=32)
@@ -812,14 +854,16 @@ def _noise_offsets_db(settings: SweepSettings, rng: np.random.Generator) -> Floa
     video_factor = max(1.0, settings.rbw_hz / max(settings.vbw_hz, 1e-12))
     if averages <= _EXACT_AVERAGE_LIMIT and video_factor == 1.0:
         samples = rng.standard_exponential((averages, n))
+        if averages == 1:  # the mean of one row is that row (x / 1 is x)
+            return 10.0 * np.log10(samples[0]) + LOG_DETECTOR_BIAS_DB
         return np.mean(10.0 * np.log10(samples), axis=0) + LOG_DETECTOR_BIAS_DB
     effective = averages * video_factor
     return rng.standard_normal(n) * (LOG_NOISE_STD_DB / math.sqrt(effective))
 
 
 def _mw_to_dbm(power_mw: FloatArray) -> FloatArray:
-    with np.errstate(divide="ignore"):
-        return 10.0 * np.log10(np.maximum(power_mw, 1e-300))
+    # the floor keeps log10 off zero (no divide-by-zero to silence)
+    return 10.0 * np.log10(np.maximum(power_mw, 1e-300))
 
 
 def _mw_to_dbm_scalar(power_mw: float) -> float:

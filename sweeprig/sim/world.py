@@ -33,7 +33,6 @@ to it as a voltage with a seeded phase.
 from __future__ import annotations
 
 import cmath
-import dataclasses
 import math
 import threading
 from collections import OrderedDict
@@ -260,6 +259,12 @@ class SimWorld:
         # there (dB): the paths are fixed, the sources step
         self._path_losses: dict[tuple[object, ...], tuple[float, tuple[float, ...]]] = {}
         self._spur_losses: dict[tuple[str, float], float] = {}
+        # (feed port, port, frequency Hz) → the junction's mismatch, dB: the ports are
+        # fixed, the sources step
+        self._junctions: dict[tuple[str, str, float], float] = {}
+        # the tones at the DUT ports as one analyzer request read them (role → tone), held
+        # by the thread making that request while it lasts (see analyzer_input)
+        self._held = threading.local()
 
     def connect(
         self,
@@ -286,6 +291,7 @@ class SimWorld:
             self._last_input = None
             self._path_losses.clear()
             self._spur_losses.clear()
+            self._junctions.clear()
             self._read_ahead = ReadAhead()
 
     # --- the DUT's inputs -------------------------------------------------------------
@@ -334,6 +340,15 @@ class SimWorld:
             return np.full(f.shape, 290.0)
         return ns.temperature_k(f, self.noise_source_on())
 
+    def _band_temperature_k(self, freq_hz: np.ndarray) -> np.ndarray | float:
+        """:meth:`input_noise_temperature_k` for the converted noise: while the noise source
+        is off its temperature is one number (the array of it, as a number: the output
+        density takes it elementwise alike, bit for bit)."""
+        ns = self.config.noise_source
+        if ns is not None and not self.noise_source_on():
+            return ns.cold_k
+        return self.input_noise_temperature_k(freq_hz)
+
     def probe_temperature_c(self) -> float:
         """Chamber probe temperature (ambient without a chamber), degC."""
         if self._chamber is not None:
@@ -378,14 +393,14 @@ class SimWorld:
         if self.thru_fitted():
             if match is not None:  # the thru hands the RF feed to the output path's load
                 load = _LOAD_OF_CHANNEL.get(self._channel(), "load_if")
-                rf = tuple(_moved(t, match.junction_db("source_rf", load, t.freq_hz))
+                rf = tuple(_moved(t, self._junction_db("source_rf", load, t.freq_hz))
                            for t in rf)
             return _thru_response(rf)
         if match is not None:  # the incident waves the part's own ports actually get
-            rf = tuple(_moved(t, match.junction_db("source_rf", "part_rf", t.freq_hz))
+            rf = tuple(_moved(t, self._junction_db("source_rf", "part_rf", t.freq_hz))
                        for t in rf)
             if lo is not None:
-                lo = _moved(lo, match.junction_db("source_lo", "part_lo", lo.freq_hz))
+                lo = _moved(lo, self._junction_db("source_lo", "part_lo", lo.freq_hz))
         temperature = self._rounded(self.probe_temperature_c())
         key = (lo, rf, round(volts, 6), temperature)
         with self._lock:
@@ -412,6 +427,19 @@ class SimWorld:
             value, *rest = many(op, lo, [rf, *sets])
             self._read_ahead.store(context, sets, rest)
             return self._keep(key, value, EvaluationInputs(lo, rf, volts, used))
+
+    def _junction_db(self, feed: str, port: str, freq_hz: float) -> float:
+        """``config.match.junction_db(feed, port, freq_hz)``, each answer worked out once
+        (the same call, so the same number)."""
+        key = (feed, port, freq_hz)
+        db = self._junctions.get(key)
+        if db is None:
+            assert self.config.match is not None
+            db = self.config.match.junction_db(feed, port, freq_hz)
+            if len(self._junctions) >= _CACHE_ENTRIES:
+                self._junctions.clear()
+            self._junctions[key] = db
+        return db
 
     def _die_temperature_key(self, lo: ToneInput | None, rf: tuple[ToneInput, ...],
                              volts: float, temperature: float) -> float:
@@ -482,9 +510,20 @@ class SimWorld:
 
     # --- what the instruments ask ---------------------------------------------------------
     def analyzer_input(self) -> InputSpectrum:
-        """Lines and noise density at the analyzer input for the switch's channel."""
+        """Lines and noise density at the analyzer input for the switch's channel.
+
+        The sources are read once for it: the tone at each DUT port is held while it lasts
+        (the response, the LO for the spurs and the RF tones for the LO's spurs ask for
+        them again; the sources do not change while the analyzer's request runs)."""
         channel = self._switch.channel if self._switch is not None else SwitchChannel.IF
-        return self.spectrum_for(self.response(), channel)
+        held = self._held
+        if getattr(held, "tones", None) is not None:  # inside a request already
+            return self.spectrum_for(self.response(), channel)
+        held.tones = {}
+        try:
+            return self.spectrum_for(self.response(), channel)
+        finally:
+            held.tones = None
 
     def spectrum_for(self, response: MixerResponse, channel: int) -> InputSpectrum:
         """What reaches the analyzer from a response on a switch channel."""
@@ -564,8 +603,8 @@ class SimWorld:
                 ("port²", out_port), f, lambda: np.asarray(out_port.magnitude(f)) ** 2)
             g_s = mid * np.asarray(in_port.magnitude(f_s)) ** 2
             g_i = mid * np.asarray(in_port.magnitude(f_i)) ** 2
-            return mixer_output_density_mw(part_mw, temperature_k(f_s), temperature_k(f_i),
-                                           g_s, g_i)
+            return mixer_output_density_mw(part_mw, self._band_temperature_k(f_s),
+                                           self._band_temperature_k(f_i), g_s, g_i)
 
         def density(freqs_hz: np.ndarray) -> np.ndarray:
             f = np.asarray(freqs_hz, dtype=float)
@@ -591,6 +630,7 @@ class SimWorld:
         if source is None or not source.output_on or not spurious:
             return []
         freq = float(getattr(source, "output_freq_hz", source.freq_hz))
+        delivered_dbm = float(source.delivered_power_dbm)  # read once for all its spurs
         out = []
         for offset_hz, dbc in spurious:
             f = freq + float(offset_hz)
@@ -601,7 +641,7 @@ class SimWorld:
                 if len(self._spur_losses) >= _CACHE_ENTRIES:
                     self._spur_losses.clear()
                 loss = self._spur_losses[(role, f)] = sum(c.at(f) for c in self._path(role))
-            out.append((f, float(source.delivered_power_dbm) + float(dbc) - loss))
+            out.append((f, delivered_dbm + float(dbc) - loss))
         return out
 
     def spur_lines(self, response: MixerResponse) -> list[SpurLine]:
@@ -708,6 +748,14 @@ class SimWorld:
         return path if filt is None else (filt, *path)
 
     def _tone_at_port(self, role: str) -> ToneInput | None:
+        tones: dict[str, ToneInput | None] | None = getattr(self._held, "tones", None)
+        if tones is None:
+            return self._read_tone_at_port(role)
+        if role not in tones:
+            tones[role] = self._read_tone_at_port(role)
+        return tones[role]
+
+    def _read_tone_at_port(self, role: str) -> ToneInput | None:
         source = self._sources.get(role)
         if source is None or not source.output_on:
             return None
@@ -748,8 +796,12 @@ _PART_OF_CHANNEL = {SwitchChannel.IF: "part_if", SwitchChannel.RF: "part_rf",
 
 
 def _moved(tone: ToneInput, db: float) -> ToneInput:
-    """``tone`` with its power moved by ``db`` (harmonics keep their dBc)."""
-    return tone if db == 0.0 else dataclasses.replace(tone, power_dbm=tone.power_dbm + db)
+    """``tone`` with its power moved by ``db`` (harmonics keep their dBc): what
+    ``dataclasses.replace(tone, power_dbm=…)`` makes, built directly (a replace looks the
+    fields up at every call, twice a model evaluation)."""
+    if db == 0.0:
+        return tone
+    return ToneInput(tone.freq_hz, tone.power_dbm + db, tone.phase_rad, tone.harmonics_dbc)
 
 
 def _thru_response(rf: Sequence[ToneInput]) -> MixerResponse:

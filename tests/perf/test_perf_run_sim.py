@@ -41,6 +41,26 @@ the machine's load; one run each unless said):
   19.1 and 19.8 s; the planner a point (wall, loaded) 0.40 and 0.50 ms before, 0.29 and
   0.45 ms after. The served analyzer's handling outside the model is unchanged (about
   2.5 ms a point here): what is left of the 20 s is there and in the engine's points.
+- The served analyzer's handling outside the model (branch of issue 14, item 5: the sweep
+  settings kept until one of theirs changes, the trace grid and the reciprocal mixing's
+  decimation kept, the sources read once per analyzer request, the port junctions kept per
+  frequency, a cold noise source's temperature taken as one number, a marker on a trace
+  point taking its noise offset directly, smaller cuts; every SCPI reply of the quick,
+  characterisation and upconverter demo runs and of a 300-point large run the same, byte
+  for byte). Machine instructions (callgrind; thread time is too noisy on this shared
+  machine) per point of a replay of the large run's recorded messages on the bench built
+  in-process (the analyzer with the model, sources, supply, chamber; 275 points): 9.28,
+  9.38 and 9.30 M before, 8.64 M after (-7 %); the whole served run (engine, server
+  threads, pre-flight; 300 points, counts that move with thread scheduling): 12.47 and
+  12.53 M before, 12.25 and 12.13 M after (-2.6 %). The analyzer's thread time in the
+  replay, nine interleaved pairs at load 6.5: medians 1.23 ms before, 1.12 ms after. The
+  10k run, one pair at load 2.3 then 3.5: 25.9 s before, 38.0 s after (the model alone
+  went from 0.45 to 0.78 ms between them: the load, not the change). What is left is
+  spread thin: the model (a third of the analyzer's handling), the sweep's arithmetic on
+  its 1,001 points (signal, the noise density's round trip through dB, offsets, trace),
+  the world's assembling of the input (spurs, mismatch, the noise source's density), a few
+  microseconds a numpy call each; a sweep cannot leave its grid out for a marker while the
+  questionable register needs the trace's maximum (uncalibrated) after every message.
 """
 
 from __future__ import annotations

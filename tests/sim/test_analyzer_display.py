@@ -260,3 +260,140 @@ def test_a_reading_on_a_trace_point_is_the_reading_evaluated_there() -> None:
     assert spectrum.lines == ((70e6, -5.0), (70.3e6, -60.0), (75e6, -90.0))
     assert simulate_sweep(InputSpectrum(spectrum.lines, density), settings, PARAMS,
                           _rng()).trace_dbm.tolist() == sweep.trace_dbm.tolist()
+
+
+# --- the sweep's fast paths against the plain forms they replace (the same numbers, bit for
+# bit: the simulated bench's readings must not move) -------------------------------------
+
+def _busy_spectrum() -> tuple[InputSpectrum, SweepSettings]:
+    """Lines in and around the span (a strong one with reciprocal mixing), a
+    frequency-dependent input noise: every part of a sweep has work to do."""
+    settings = SweepSettings.centered(70e6, 20e6, points=1001, rbw_hz=1e6, vbw_hz=1e6,
+                                      attenuation_db=14.0)
+
+    def density(f: np.ndarray) -> np.ndarray:
+        return -160.0 + 3.0 * np.sin(np.asarray(f) / 2e6)
+
+    freqs = np.array([59.8e6, 69.8e6, 79.8e6, 140e6, 2.3e9, 2.37e9])
+    levels = np.array([-75.4, -9.4, -90.8, -60.0, -40.0, -30.0])
+    return InputSpectrum.from_arrays(freqs, levels, density), settings
+
+
+def test_the_trace_grid_is_linspace_made_once_and_read_only() -> None:
+    settings = SweepSettings.centered(70e6, 20e6, points=1001)
+    grid = settings.freqs_hz()
+    assert np.array_equal(grid, np.linspace(settings.start_hz, settings.stop_hz, 1001))
+    assert grid is SweepSettings.centered(70e6, 20e6, points=1001).freqs_hz()
+    assert not grid.flags.writeable
+    assert SweepSettings(70e6, 70e6, points=101).freqs_hz().tolist() == [70e6] * 101
+
+
+def test_the_signal_on_a_grid_known_ascending_is_the_checked_path() -> None:
+    from sweeprig.sim.analyzer_display import _displayed_arrays, _signal_mw_fn
+
+    spectrum, settings = _busy_spectrum()
+    line_f, line_dbm, _ = _displayed_arrays(spectrum.lines, settings, PARAMS,
+                                            spectrum._line_arrays)
+    signal = _signal_mw_fn(line_f, line_dbm, settings.rbw_hz, 0.0)
+    grid = settings.freqs_hz()
+    fast = signal(grid, ascending=True)
+    assert fast.tolist() == signal(grid).tolist() == signal(np.array(grid)).tolist()
+    assert fast.max() > 0.0
+
+
+def test_one_sweeps_noise_offsets_are_the_mean_of_one_row_and_draw_the_same() -> None:
+    from sweeprig.sim.analyzer_display import LOG_DETECTOR_BIAS_DB, _noise_offsets_db
+
+    settings = SweepSettings.centered(70e6, 20e6, points=1001)
+    fast_rng, plain_rng = _rng(11), _rng(11)
+    fast = _noise_offsets_db(settings, fast_rng)
+    plain = np.mean(10.0 * np.log10(plain_rng.standard_exponential((1, 1001))),
+                    axis=0) + LOG_DETECTOR_BIAS_DB
+    assert fast.tolist() == plain.tolist()
+    assert fast_rng.random() == plain_rng.random()  # the same draws, in the same order
+
+
+def test_the_reciprocal_mixings_decimation_is_the_plain_index_set() -> None:
+    from sweeprig.sim.analyzer_display import _decimation
+
+    for points, step in ((1001, 25), (1001, 2), (10001, 7), (101, 100), (65, 64)):
+        plain = np.unique(np.append(np.arange(0, points, step), points - 1))
+        assert _decimation(points, step).tolist() == plain.tolist()
+
+
+def test_the_noise_base_skips_only_factors_of_one() -> None:
+    """Without an amplitude error and an uncompressed input, the base noise is the plain
+    product with both factors of one; with them, the factors apply."""
+    from sweeprig.sim.analyzer_display import (
+        KT0_DBM_PER_HZ,
+        _noise_parts_mw_fn,
+    )
+
+    spectrum, settings = _busy_spectrum()
+    grid = settings.freqs_hz()
+    enbw_hz = GAUSSIAN_ENBW_PER_RBW * settings.rbw_hz
+    for error_db, gain in ((0.0, 1.0), (0.3, 1.0), (0.0, 0.8), (-0.2, 0.5)):
+        params = AnalyzerParams(amplitude_error_db=error_db)
+        base, _ = _noise_parts_mw_fn(spectrum, settings, params, input_gain=gain)
+        own_mw = 10.0 ** (danl_dbm(settings, params) / 10.0)
+        density_mw = 10.0 ** (spectrum.noise_at(grid) / 10.0)
+        plain = own_mw + (np.maximum(density_mw - 10.0 ** (KT0_DBM_PER_HZ / 10.0), 0.0)
+                          * enbw_hz * 10.0 ** (error_db / 10.0) * gain)
+        assert base(grid).tolist() == plain.tolist()
+
+
+def test_the_first_mixer_on_valid_arrays_is_the_first_mixer_on_the_lines() -> None:
+    from sweeprig.sim.analyzer_display import first_mixer
+
+    spectrum, settings = _busy_spectrum()
+    for arrays in (spectrum._line_arrays,
+                   (np.array([70e6, 0.0, 75e6]), np.array([-5.0, -20.0, -math.inf]))):
+        assert arrays is not None
+        lines = tuple(zip(arrays[0].tolist(), arrays[1].tolist(), strict=True))
+        fast = first_mixer(lines, settings, PARAMS, arrays=arrays)
+        plain = first_mixer(lines, settings, PARAMS)
+        for name in ("line_freq_hz", "line_dbm", "product_freq_hz", "product_amp",
+                     "product_kind"):
+            assert getattr(fast, name).tolist() == getattr(plain, name).tolist(), name
+        assert (fast.total_dbm, fast.compression_db) == (plain.total_dbm, plain.compression_db)
+
+
+def test_a_sweep_of_lines_and_noise_gives_the_same_trace_and_readings_each_time() -> None:
+    """Two sweeps with the same seed agree bit for bit (the kept grid, the known-ascending
+    signal and the one-row offsets change no number); the display's dB conversion raises
+    no warning at zero power."""
+    import warnings
+
+    from sweeprig.sim.analyzer_display import _mw_to_dbm
+
+    spectrum, settings = _busy_spectrum()
+    first = simulate_sweep(spectrum, settings, PARAMS, _rng(5))
+    again = simulate_sweep(InputSpectrum(spectrum.lines, spectrum.noise_dbm_per_hz),
+                           settings, PARAMS, _rng(5))
+    assert first.trace_dbm.tolist() == again.trace_dbm.tolist()
+    assert [first.level_at(f) for f in (70e6, 69.8e6, 61.6e6)] == \
+        [again.level_at(f) for f in (70e6, 69.8e6, 61.6e6)]
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        assert _mw_to_dbm(np.array([0.0, 1.0])).tolist() == [-3000.0, 0.0]
+
+
+def test_a_reading_on_a_trace_point_takes_the_offset_np_interp_gives_there() -> None:
+    """On a trace point (every one of them, the ends included) the reading takes that
+    point's noise offset, which is what interpolating the offsets there gives, bit for bit;
+    on a grid whose frequencies repeat (a span of a few hertz at 10 GHz) it interpolates."""
+    spectrum, settings = _busy_spectrum()
+    sweep = simulate_sweep(spectrum, settings, PARAMS, _rng(9))
+    assert sweep._signal_grid_mw is not None and sweep._noise_base_grid_mw is not None
+    assert sweep._reciprocal_mw is not None
+    for k, freq in enumerate(sweep.freqs_hz.tolist()):
+        offset = float(np.interp(freq, sweep.freqs_hz, sweep._noise_offset_db))
+        assert offset == float(sweep._noise_offset_db[k])
+        noise = np.array([sweep._noise_base_grid_mw[k]]) + sweep._reciprocal_mw(np.array([freq]))
+        plain = np.array([sweep._signal_grid_mw[k]]) + noise * 10.0 ** (offset / 10.0)
+        assert sweep.level_at(freq) == float(10.0 * np.log10(np.maximum(plain, 1e-300))[0])
+    tiny = SweepSettings(10e9, 10e9 + 2e-6, points=101, rbw_hz=1.0, vbw_hz=1.0)
+    repeated = simulate_sweep(InputSpectrum(((10e9, -30.0),)), tiny, PARAMS, _rng(9))
+    assert np.unique(repeated.freqs_hz).size < repeated.freqs_hz.size
+    for freq in np.unique(repeated.freqs_hz).tolist():
+        assert math.isfinite(repeated.level_at(freq))

@@ -217,3 +217,25 @@ def test_continuous_mode_follows_settings_and_single_mode_keeps_the_trace(bench)
     assert float(sa.query("CALC:MARK1:Y?")) == pytest.approx(-30.0, abs=0.05)
     sa.write("INIT;*WAI")
     assert float(sa.query("CALC:MARK1:Y?")) == pytest.approx(-40.0, abs=0.05)
+
+
+def test_the_kept_sweep_settings_follow_every_setting_they_are_made_of(bench) -> None:
+    """The sweep settings are kept between requests (a marker reading asks for them at
+    every reading) and made again after any of their settings changes, by a command, a
+    coupling or *RST: always equal to settings made afresh from the present values."""
+    sa, analyzer, _, _ = bench
+    _setup(sa)
+    kept = analyzer.sweep_settings()
+    assert analyzer.sweep_settings() is kept
+    sa.write(":CALC:MARK1:X 70 MHz")  # a marker is not a sweep setting
+    assert analyzer.sweep_settings() is kept
+    for command in ("FREQ:CENT 100 MHz", "FREQ:SPAN 10 MHz", "FREQ:STAR 90 MHz",
+                    "FREQ:STOP 95 MHz", "BAND 30 kHz", "BAND:VID 10 kHz", "SWE:POIN 401",
+                    "DISP:WIND:TRAC:Y:RLEV -20", "INP:ATT 30", "AVER ON", "AVER:COUN 4",
+                    "DET RMS", "BAND:AUTO ON", "INP:ATT:AUTO ON", "*RST"):
+        before = analyzer.sweep_settings()
+        sa.write(command)
+        assert sa.query("SYST:ERR:COUN?") == "0", command
+        assert analyzer.sweep_settings() == analyzer._make_sweep_settings(), command
+        assert analyzer.sweep_settings() != before or command in ("BAND:AUTO ON",
+                                                                  "INP:ATT:AUTO ON"), command

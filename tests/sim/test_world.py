@@ -253,3 +253,93 @@ def test_repeated_frequencies_reuse_the_path_losses_with_the_same_numbers() -> N
     assert world.rf_inputs() != first[0]
     parts["rf"].freq_hz = 2.4e9  # type: ignore[attr-defined]
     assert (world.rf_inputs(), world.lo_input()) == first
+
+
+def test_an_analyzer_request_reads_each_source_once_and_gets_the_same_spectrum() -> None:
+    """The tones held for one analyzer request are the tones read without holding: the
+    spectrum is the one made from the response and the switch's channel directly, and the
+    request reads each source's view once (the response, the spurs and the LO ask again)."""
+    from sweeprig.sim.bench import build_sim_instruments
+
+    bench = build_sim_instruments()  # the default bench: spurs, mismatch, a noise source
+    world, inst = bench.world, bench.instruments
+    inst["lo"].handle("FREQ 2.33 GHz;POW 7 dBm;OUTP ON")
+    inst["rf"].handle("FREQ 2.4 GHz;POW -20 dBm;OUTP ON")
+    inst["dc"].handle("VOLT 5;CURR 0.2;OUTP ON")
+    held = world.analyzer_input()
+    plain = world._analyzer_input(world.response(), 1)
+    assert held.line_arrays()[0].tolist() == plain.line_arrays()[0].tolist()
+    assert held.line_arrays()[1].tolist() == plain.line_arrays()[1].tolist()
+    grid = np.linspace(60e6, 80e6, 11)
+    assert held.noise_at(grid).tolist() == plain.noise_at(grid).tolist()
+    assert held.wideband_noise_dbm == plain.wideband_noise_dbm
+    assert getattr(world._held, "tones", None) is None  # nothing held after the request
+
+    reads: list[str] = []
+    read = world._read_tone_at_port
+
+    def counted(role: str) -> ToneInput | None:
+        reads.append(role)
+        return read(role)
+
+    world._read_tone_at_port = counted  # type: ignore[method-assign]
+    world._last_input = None
+    world.analyzer_input()
+    assert sorted(reads) == ["lo", "rf", "rf2"]
+
+
+def test_the_kept_junctions_are_the_matchs_own_numbers() -> None:
+    from sweeprig.sim.bench import build_sim_instruments
+
+    world = build_sim_instruments().world
+    match = world.config.match
+    assert match is not None
+    for freq in (2.33e9, 2.4e9, 2.33e9, 70e6):
+        for feed, port in (("source_rf", "part_rf"), ("source_lo", "part_lo")):
+            assert world._junction_db(feed, port, freq) == match.junction_db(feed, port, freq)
+
+
+def test_a_tone_moved_by_a_junction_is_the_replaced_tone() -> None:
+    """The moved tone is built from the tone's fields directly: the same tone as
+    ``dataclasses.replace`` makes (should the tone gain a field, this fails until the move
+    carries it)."""
+    import dataclasses
+
+    from sweeprig.sim.world import _moved
+
+    assert [f.name for f in dataclasses.fields(ToneInput)] == [
+        "freq_hz", "power_dbm", "phase_rad", "harmonics_dbc"]
+    tone = ToneInput(2.4e9, -20.0, 0.3, (-35.0, -45.0))
+    for db in (0.0, 0.12, -0.4, 1e-17):
+        assert _moved(tone, db) == dataclasses.replace(tone, power_dbm=tone.power_dbm + db)
+    assert _moved(tone, 0.0) is tone
+
+
+@pytest.mark.parametrize("hot", [False, True])
+def test_the_converted_noise_takes_a_cold_source_as_one_temperature_alike(hot: bool) -> None:
+    """With the noise source off its temperature enters the converted noise density as one
+    number instead of an array of it: the same density, bit for bit, on the sweep's grid
+    and at one frequency; on, the frequency-dependent temperatures are used as before."""
+    from sweeprig.sim.bench import build_sim_instruments
+    from sweeprig.sim.noise_source import mixer_output_density_mw
+
+    bench = build_sim_instruments()
+    world, inst = bench.world, bench.instruments
+    inst["lo"].handle("FREQ 2.33 GHz;POW 7 dBm;OUTP ON")
+    inst["rf"].handle("FREQ 2.4 GHz;POW -20 dBm;OUTP ON")
+    inst["dc"].handle("VOLT 5;CURR 0.2;OUTP ON")
+    if hot:
+        inst["nsdc"].handle("VOLT 28;CURR 0.1;OUTP ON")
+    assert world.noise_source_on() is hot
+    fast = world.analyzer_input()
+    world._band_temperature_k = world.input_noise_temperature_k  # type: ignore[method-assign]
+    world._last_input = None
+    plain = world.analyzer_input()
+    for freqs in (np.linspace(60e6, 80e6, 1001), np.array([300e6])):
+        assert fast.noise_at(freqs).tolist() == plain.noise_at(freqs).tolist()
+    assert fast.wideband_noise_dbm == plain.wideband_noise_dbm
+    gains = np.array([0.5, 1e-3, 2.0])
+    cold = 296.15
+    assert mixer_output_density_mw(1e-17, cold, cold, gains, gains).tolist() == \
+        mixer_output_density_mw(1e-17, np.full(3, cold), np.full(3, cold), gains,
+                                gains).tolist()

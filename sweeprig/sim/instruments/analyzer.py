@@ -49,6 +49,10 @@ RBW_MAX_HZ = 10e6
 ATT_MAX_DB = 70.0
 ATT_STEP_DB = 2.0
 POINTS_MIN, POINTS_MAX, POINTS_DEFAULT = 101, 10001, 1001
+#: The settings a sweep's :class:`SweepSettings` is made of (a change to one of them makes
+#: it again).
+_SWEEP_SETTINGS = frozenset(("start_hz", "stop_hz", "points", "rbw_hz", "vbw_hz", "att_db",
+                             "ref_level_dbm", "avg_on", "avg_count", "detector"))
 AVERAGES_MAX = 10000
 MARKERS = 4
 # RBW coupled to span: span/RBW = 100 (common practice, no source).
@@ -142,6 +146,8 @@ class SpectrumAnalyzer(ScpiInstrument):
         self._last_settings: SweepSettings | None = None
         self._last_time_s = -math.inf
         self._vbw_coupled = True
+        #: the sweep settings of the present settings (None: to be made again)
+        self._settings_now: SweepSettings | None = None
         self._register()
         self.on_reset()
 
@@ -156,8 +162,22 @@ class SpectrumAnalyzer(ScpiInstrument):
         """The most recent sweep, or None before the first."""
         return self._last
 
+    def put_value(self, name: str, value: object, index: int = 1) -> None:
+        with self.lock:
+            super().put_value(name, value, index)
+            if name in _SWEEP_SETTINGS:
+                self._settings_now = None
+
     def sweep_settings(self) -> SweepSettings:
-        """The settings a sweep started now would use."""
+        """The settings a sweep started now would use (made again only after one of them
+        changed: a marker read asks for them at every reading)."""
+        with self.lock:
+            settings = self._settings_now
+            if settings is None:
+                settings = self._settings_now = self._make_sweep_settings()
+            return settings
+
+    def _make_sweep_settings(self) -> SweepSettings:
         averaging = bool(self.value("avg_on"))
         return SweepSettings(
             start_hz=self.value("start_hz"),
@@ -204,6 +224,7 @@ class SpectrumAnalyzer(ScpiInstrument):
         return bits
 
     def on_reset(self) -> None:
+        self._settings_now = None  # every setting is back at its default
         self._last = None
         self._last_settings = None
         self._last_time_s = -math.inf
@@ -349,8 +370,9 @@ class SpectrumAnalyzer(ScpiInstrument):
             return self.sweep_now()
         if self.value("continuous"):
             age = self.clock.now() - self._last_time_s
+            settings = self.sweep_settings()
             if age >= self.dialect.sweep_time_scale * last.sweep_time_s or \
-                    self._last_settings != self.sweep_settings():
+                    (self._last_settings is not settings and self._last_settings != settings):
                 return self.sweep_now()
         return last
 
