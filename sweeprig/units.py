@@ -146,10 +146,12 @@ def suffixes(kind: str) -> list[str]:
 #: Largest magnitude accepted for a quantity of a kind, in its internal unit: anything beyond
 #: is a slip of unit or exponent, and would overflow the planner's arithmetic (products of
 #: harmonics and intermodulation, levels multiplied by their order). 10 THz is far above any
-#: RF bench instrument; ±300 dBm (10^27 W down to 10^-33 W) and ±1000 dB lie far outside any
-#: level, loss or gain a bench sets or reads (common practice, no source). Other kinds are
-#: bounded where they are used (a settle time or soak by the run's duration).
-LARGEST_MAGNITUDE: dict[str, float] = {"frequency": 1e13, "power": 300.0, "level_db": 1000.0}
+#: RF bench instrument; ±300 dBm (10^27 W down to 10^-33 W) lies far outside any level a bench
+#: sets or reads (common practice, no source). A level in dB is only kept finite in arithmetic
+#: here (±10^6 dB); the fields that hold one bound it to what they mean (an expected gain, a
+#: path loss) with a message of their own. Other kinds are bounded where they are used (a
+#: settle time or soak by the run's duration).
+LARGEST_MAGNITUDE: dict[str, float] = {"frequency": 1e13, "power": 300.0, "level_db": 1e6}
 
 
 def parse_quantity(value: object, kind: str, *, where: str | None = None) -> float:
