@@ -15,7 +15,10 @@ Order of work for every point (the plan already put slow settings outermost):
    the DUT port planes by adding the path loss; with a bench ``[timebase]`` the product is
    searched for on the trace read for the floor, within the offset the references explain,
    aimed by the offsets found before (:meth:`Runner._aim`, :mod:`sweeprig.plan.search_window`);
-6. the point and all its readings are written in one transaction.
+6. the point and all its readings are written in one transaction, once its status is
+   read (below); the commit waits for the next point's settling time (step 4 of that
+   point), where it costs the bench nothing, or is made at once when a fault, a stop,
+   a chamber move or the end of the points comes first.
 
 The error queue of every instrument configured in a block is drained after the block, and
 every instrument's event status register is read before a point is committed: a power-on
@@ -52,7 +55,7 @@ from sweeprig.clock import Clock, WallClock
 from sweeprig.engine.connect import BenchDrivers
 from sweeprig.engine.eta import EtaTracker
 from sweeprig.engine.noise_floor import MASK_HALF_WIDTH_RBW, NoiseFloor, estimate_noise_floor
-from sweeprig.errors import InputError, InstrumentError, TransportError
+from sweeprig.errors import InputError, InstrumentError, StoreError, TransportError
 from sweeprig.formats.bench import Bench
 from sweeprig.formats.pathloss import PathLoss
 from sweeprig.formats.sequence import AdaptiveSoak, Sequence
@@ -186,6 +189,15 @@ class Runner:
         cond = sequence.conditions
         self.settle_s = float(cond.settle)
         self._settle = SettleWait(clock)
+        #: the point measured last, awaiting its commit (:meth:`_store_held`): its point
+        #: record, readings, heartbeat activity and result
+        self._held: tuple[PointRecord, list[ReadingRecord], dict[str, Any] | None,
+                          PointResult] | None = None
+        self._stored = 0
+        #: the instruments whose status must still be read before the held point is
+        #: committed, and those of them already read in this point's set-up (ids)
+        self._unverified: list[tuple[str, Driver]] = []
+        self._status_read: set[int] = set()
         for _role, driver in drivers.items():
             driver.before_message = self._settle.wait
         self.soak_s = float(cond.soak)
@@ -198,15 +210,89 @@ class Runner:
         self._prepare_with_recovery()
         if self.eta is not None:
             self.eta.start(self.clock.now())
-        stored = 0
-        for point in points:
-            result = self.measure_with_recovery(point)  # its commit is the heartbeat
-            if result is None:
-                continue
-            stored += 1
-            if self.on_point is not None:
-                self.on_point(result)
-        return stored
+        self._stored = 0
+        try:
+            for point in points:
+                self.measure_with_recovery(point)  # its commit is the heartbeat
+            self.measure_with_recovery(None)  # the last point's status, then its commit
+        except StoreError:
+            self._held = None  # nothing more can be kept
+            raise
+        except InstrumentError:  # the bench gave up: no more exchanges before the safe state
+            self._release_held(confirm=False, then="`sweeprig resume` measures it")
+            raise
+        except BaseException:  # a stop: the held point is kept if its status reads clean
+            self._release_held(confirm=True, then="`sweeprig resume` measures it")
+            raise
+        return self._stored
+
+    # -- the held point ---------------------------------------------------------------------
+    #
+    # A measured point is held, not committed, until the instruments whose event status its
+    # last exchanges did not carry (the sources, the supply) have answered a status read made
+    # after it: the next point's settings messages begin with ``*ESR?`` (no exchange of its
+    # own), or a bare ``*ESR?`` goes out beside them. Only then is it committed, inside the
+    # next point's settling time. A reset or an error in that read, or a fault before it
+    # was read, measures the held point again (:meth:`measure_with_recovery`).
+
+    def _confirm_held(self) -> None:
+        """Read what is still owed of the held point's event status (nothing when the next
+        point's set-up carried it), check it, then commit the point (:meth:`_store_held`).
+        Raises :class:`InstrumentReset` (power-on bit) or the instrument's errors."""
+        if self._held is None:
+            return
+        if self._unverified:
+            owed = [(d, d.post_status()) for _role, d in self._unverified
+                    if id(d) not in self._status_read]
+            failure = _finish_all(owed, Driver.finish_status)
+            if failure is not None:
+                raise failure
+            for role, driver in self._unverified:
+                if driver.taken_status() & PON_BIT:
+                    raise InstrumentReset(
+                        f"role {role!r} reset itself during point {self._held[3].point.index} "
+                        "(power-on bit set)",
+                        where=driver.where(),
+                        fix="check the instrument's power; the point is measured again",
+                    )
+                driver.expire_status()  # what is read next tells of the next point
+            self._unverified, self._status_read = [], set()
+        self._store_held()
+
+    def _store_held(self) -> None:
+        """Commit the held point (its status confirmed: :meth:`_confirm_held`), then tell
+        :attr:`on_point`. Only the process dying between a point's end and its commit loses
+        it, and ``sweeprig resume`` measures it again."""
+        held, self._held = self._held, None
+        if held is None:
+            return
+        record, records, activity, result = held
+        self.store.write_point(self.run_id, record, records, activity=activity)
+        self._stored += 1
+        if self.on_point is not None:
+            self.on_point(result)
+
+    def _release_held(self, *, confirm: bool, then: str) -> Point | None:
+        """After a fault or a stop: commit the held point if its status was confirmed already
+        (or is not checked); otherwise, with ``confirm``, read it once and commit the point
+        if it is clean. Returns the held point when it was not committed (``then`` says, in
+        its event, what becomes of it); None: nothing was held, or it was committed."""
+        if self._held is None:
+            return None
+        if not self._unverified:
+            self._store_held()
+            return None
+        if confirm:
+            try:
+                self._confirm_held()
+                return None
+            except InstrumentError:
+                pass
+        point = self._held[3].point
+        self._held, self._unverified, self._status_read = None, [], set()
+        self._event("warning", "unconfirmed", f"point {point.index} is not stored: its "
+                    f"instruments' status after it was not read clean; {then}", point.index)
+        return point
 
     def _prepare_with_recovery(self) -> None:
         """:meth:`_prepare`, with the bench recovered and the set-up tried again on a fault."""
@@ -241,14 +327,27 @@ class Runner:
 
     # -- faults -----------------------------------------------------------------------------
 
-    def measure_with_recovery(self, point: Point) -> PointResult | None:
+    def measure_with_recovery(self, point: Point | None) -> PointResult | None:
         """:meth:`measure`, with the recovery policy around it; None if the point was skipped.
+        ``point`` None: only the held point's status is read and the point committed (the
+        end of the points).
 
-        Raises :class:`GaveUp` when the point cannot be measured within the policy.
+        A fault before the held point's status was read (or a reset that read shows) measures
+        the held point again, before ``point``. Raises :class:`GaveUp` when the points cannot
+        be measured within the policy.
         """
         policy = self.policy
-        for attempt in range(1, policy.point_attempts + 1):
+        redo: Point | None = None
+        attempt = 0
+        while True:
+            attempt += 1
             try:
+                if redo is not None:
+                    self.measure(redo)  # held again, confirmed by what follows
+                    redo = None
+                if point is None:
+                    self._confirm_held()
+                    return None
                 return self.measure(point)
             except InstrumentReset as exc:
                 kind, error = "reset", exc
@@ -256,26 +355,31 @@ class Runner:
                 kind, error = "link", exc
             except InstrumentError as exc:
                 kind, error = "error", exc
+            redo = self._release_held(confirm=False, then="it is measured again") or redo
+            failed = redo if redo is not None else point
+            assert failed is not None  # with no point, only a held point's read can fail
             first_line = error.message().splitlines()[0]
-            self._event("warning", kind, f"point {point.index}, attempt {attempt}: "
-                        f"{first_line}", point.index, {"attempt": attempt})
+            self._event("warning", kind, f"point {failed.index}, attempt {attempt}: "
+                        f"{first_line}", failed.index, {"attempt": attempt})
             if kind == "error" and policy.on_error == "stop":
                 raise error
-            if attempt == policy.point_attempts:
+            if attempt >= policy.point_attempts:
                 if kind == "error" and policy.on_error == "skip":
                     self.skipped += 1
-                    self._event("warning", "skip", f"point {point.index} skipped after "
-                                f"{attempt} attempts: {first_line}", point.index)
+                    self._event("warning", "skip", f"point {failed.index} skipped after "
+                                f"{attempt} attempts: {first_line}", failed.index)
                     self._recover_safely(error)
+                    if failed is redo and point is not None:
+                        redo, attempt = None, 0  # now this point, with attempts of its own
+                        continue
                     return None
                 raise GaveUp(
-                    f"point {point.index} failed {attempt} times; last: {first_line}",
+                    f"point {failed.index} failed {attempt} times; last: {first_line}",
                     where=error.where,
                     fix="check the instrument and its connection; the data taken so far "
                     "is stored, and the run can be resumed with `sweeprig resume`",
                 ) from error
             self._recover_safely(error)
-        raise AssertionError("unreachable")  # pragma: no cover
 
     def _recover_safely(self, cause: InstrumentError) -> None:
         """:meth:`_recover`, tried again if a fault strikes during the recovery itself."""
@@ -440,11 +544,17 @@ class Runner:
         checked = self._checked_drivers()  # the bench's instruments, listed once a point
         for _role, driver in checked:
             driver.expire_status()  # every instrument's status is read for this point
+        if point.temperature_c is not None and point.temperature_c != self._temperature_c:
+            self._confirm_held()  # before the chamber moves (it may take hours)
         changed = self._apply_conditions(point)
-        changed |= self._apply_sources(point)
+        changed |= self._apply_sources(point)  # the held point's status travels with them
         if changed:
             self._settle.start(self.settle_s)
-            self.store.force_owed_log()  # the last point's log forcing, while the bench settles
+        # the point before is checked and committed (and the store's owed log forcing paid)
+        # while the bench settles for this one: they cost the bench nothing there
+        self._confirm_held()
+        if changed:
+            self.store.force_owed_log()
         try:
             if self._survey_due:
                 self._survey(point)
@@ -453,8 +563,15 @@ class Runner:
             self._settle.wait()  # a point without instrument readings still settles
         records = self._agree_offsets(point, records)
         if self.policy.reset_check:
-            probe_c = self._check_resets(checked)
+            # now: the instruments whose last exchange carried their status, and the chamber
+            # (its probe reading belongs to the point); the others' status is read with the
+            # next point's set-up, before this point is committed (:meth:`_confirm_held`)
+            chamber = self.d.chamber
+            now = [(r, d) for r, d in checked if d is chamber or d.status_fresh]
+            probe_c = self._check_resets(now)
+            unverified = [(r, d) for r, d in checked if not (d is chamber or d.status_fresh)]
         else:
+            unverified = []
             probe_c = (self.d.chamber.probe_temperature_c() if self.d.chamber is not None
                        else None)
         current_a = next((r.extra["current_a"] for r in records if "current_a" in r.extra), None)
@@ -485,13 +602,17 @@ class Runner:
         if self.eta is not None:
             self.eta.point_measured(sim_end - sim_start - (self._waited_s - waited_before))
             eta = self.eta.fields(sim_end)
-        self.store.write_point(self.run_id, record, records,
-                               activity=None if eta is None else {"what": "measuring", **eta})
+        # held, and committed in the next point's settling time (:meth:`_store_held`)
+        result = PointResult(point, records, None, eta)
+        self._held = (record, records,
+                      None if eta is None else {"what": "measuring", **eta}, result)
+        self._unverified, self._status_read = unverified, set()
         wanted = next((r for r in records if r.name == "wanted"), None)
         gain = None
         if wanted is not None and wanted.level_dbm is not None:
             gain = wanted.level_dbm - point.rf_power_dbm
-        return PointResult(point, records, gain, eta)
+        result.gain_db = gain
+        return result
 
     # -- settings ---------------------------------------------------------------------------
 
@@ -671,6 +792,9 @@ class Runner:
         if point.rf2_freq_hz is not None and point.rf2_power_dbm is not None:
             plan.append(("rf2", point.rf2_freq_hz, point.rf2_power_dbm, "rf2"))
         posted: list[tuple[Driver, Pending | None]] = []
+        status_posted: list[tuple[Driver, Pending | None]] = []
+        # the held point's status owed by these instruments (:meth:`_confirm_held`)
+        owed = {id(d): d for _r, d in self._unverified if id(d) not in self._status_read}
         try:
             for role, freq_hz, power_dbm, connection in plan:
                 source = getattr(self.d, role)
@@ -688,12 +812,22 @@ class Runner:
                         # reply orders things the same way. The *OPC? replies are read
                         # below, after every source has its message: the sources settle at
                         # once, and every one has answered before this method returns.
-                        posted.append((source, source.post_sync()))
+                        # The held point's status leads the message where it is owed.
+                        first = source.joins_status and owed.pop(id(source), None) is not None
+                        posted.append((source, source.post_sync(status_first=first)))
+                        if first:
+                            self._status_read.add(id(source))
                 sent |= block
+            # the rest of the held point's status, beside the sources' messages
+            for driver in owed.values():
+                status_posted.append((driver, driver.post_status()))
+                self._status_read.add(id(driver))
         except BaseException:
             _finish_all(posted, Driver.finish_sync)  # read what is owed; the first error wins
+            _finish_all(status_posted, Driver.finish_status)
             raise
         failure = _finish_all(posted, Driver.finish_sync)
+        failure = _finish_all(status_posted, Driver.finish_status) or failure
         if failure is not None:
             raise failure
         return sent

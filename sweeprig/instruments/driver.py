@@ -130,6 +130,8 @@ class Driver:
         self._status_fresh = False
         #: an ``*ESR?`` read showed error bits: the queue holds entries not yet read
         self._errors_flagged = False
+        #: the posted ``*OPC?`` message began with ``*ESR?`` (:meth:`post_sync`)
+        self._status_first = False
 
     before_message: Callable[[], None] | None = None
     """Called just before each message leaves for the instrument (after it is built), when
@@ -725,6 +727,26 @@ class Driver:
         bits, self._status_bits = self._status_bits, 0
         return bits
 
+    @property
+    def joins_status(self) -> bool:
+        """True when an ``*ESR?`` can lead a message of settings (:meth:`post_sync`)."""
+        return self.compound and self.profile.has("event_status")
+
+    @property
+    def status_fresh(self) -> bool:
+        """True while the last exchange ended with an ``*ESR?`` read (nothing sent since)."""
+        return self._status_fresh
+
+    def taken_status(self) -> int:
+        """The event status bits read since the last call (by joined, posted or leading
+        ``*ESR?`` reads: :meth:`finish_status`, :meth:`post_sync`), without reading the
+        register again; error bits among them raise as :meth:`check_errors` does (the queue
+        is read then)."""
+        if self._errors_flagged:
+            self._raise_queued_errors()
+        bits, self._status_bits = self._status_bits, 0
+        return bits
+
     def expire_status(self) -> None:
         """A new point begins: a status read before it says nothing of it, so the point's
         :meth:`point_status` reads the register unless a later query carried it."""
@@ -746,23 +768,50 @@ class Driver:
         return self._parse(self.collect(pending), operation.reply or "text",
                            self.where(operation.queries[0]))
 
-    def post_sync(self) -> Pending | None:
+    def post_sync(self, *, status_first: bool = False) -> Pending | None:
         """:meth:`sync` in two halves, so several instruments settle at once: the ``*OPC?``
         (joined with the held settings) is sent here and its reply read by
         :meth:`finish_sync`. Without compound messages the error check runs here, in full,
-        and None is returned."""
+        and None is returned.
+
+        ``status_first``: the message begins with ``*ESR?``, read before the held settings
+        run (so it tells of the time before them); :meth:`finish_sync` keeps its bits for
+        :meth:`taken_status`, and the status counts as unread afterwards (the settings came
+        after it). Ignored without compound messages or an ``event_status`` operation."""
         if not self.compound:
             self.check_errors()
             return None
+        if status_first and self.profile.has("event_status"):
+            self._held.insert(0, self.profile.op("event_status").queries[0])
+            self._status_first = True
         opc = self.profile.op("operation_complete")
-        return self.post_query(opc.queries[0], timeout_s=opc.timeout_s)
+        try:
+            return self.post_query(opc.queries[0], timeout_s=opc.timeout_s)
+        except BaseException:
+            self._status_first = False
+            raise
 
     def finish_sync(self, pending: Pending | None) -> None:
         """Read the ``*OPC?`` reply of :meth:`post_sync` (nothing when it returned None)."""
         if pending is None:
             return
-        self._check_complete(self.collect(pending),
-                             self.profile.op("operation_complete").queries[0])
+        first, self._status_first = self._status_first, False
+        reply = self.collect(pending)
+        opc = self.profile.op("operation_complete").queries[0]
+        if first:
+            status_cmd = self.profile.op("event_status").queries[0]
+            parts = reply.strip().split(";")
+            if len(parts) != 2:
+                raise InstrumentError(
+                    f"{status_cmd} and {opc} joined got {len(parts)} answers: {reply!r}",
+                    where=self.where(opc),
+                    fix="if the instrument does not take compound messages, set "
+                    "compound_messages = false in its driver profile",
+                )
+            self._take_status(parts[0], status_cmd)
+            self._status_fresh = False  # the settings ran after that read
+            reply = parts[1]
+        self._check_complete(reply, opc)
 
     def _check_complete(self, reply: str, cmd: str) -> None:
         """Raise unless ``reply`` to the completion query ``cmd`` is 1."""
@@ -868,6 +917,7 @@ class Driver:
         self._cache.clear()
         self._held.clear()
         self._status_fresh = False
+        self._status_first = False
 
     def state(self) -> dict[str, Value]:
         """The settings sent and not forgotten since: operation name → value."""

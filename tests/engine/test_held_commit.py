@@ -1,0 +1,123 @@
+"""A measured point is committed in the next point's settling time
+(:meth:`sweeprig.engine.runner.Runner._store_held`), never later than a fault, a stop, a
+chamber move or the end of the points:
+
+* on the wall clock, point N's commit falls after point N+1's sources answered their
+  completion queries and before N+1's sweep (the bus log's times against the commits');
+  the last point is committed after the last sweep;
+* a fault in point N+1 stores point N before the recovery;
+* a stop while point N+1 is being set up still stores point N;
+* the points of one temperature are stored before the chamber moves to the next.
+"""
+
+from __future__ import annotations
+
+from datetime import UTC, datetime, timedelta
+from pathlib import Path
+
+import pytest
+
+from sweeprig.clock import VirtualClock
+from sweeprig.engine.runner import Runner
+from sweeprig.engine.session import run_sequence, served_bench_text
+from sweeprig.sim.bench import resolve_description, start_sim_bench
+from sweeprig.sim.faults import FaultSpec
+from sweeprig.store.sqlite import SqliteRunStore
+
+BUDGET = Path(__file__).parent / "data" / "budget.toml"  # five points, settle = "20 ms"
+POINTS = 5
+
+
+@pytest.fixture
+def commits(monkeypatch: pytest.MonkeyPatch) -> list[tuple[str, int, datetime]]:
+    """Every point commit and every stored event, in order: (what, point index, UTC time)."""
+    seen: list[tuple[str, int, datetime]] = []
+    write_point, log_event = SqliteRunStore.write_point, SqliteRunStore.log_event
+
+    def recorded_write(self, run_id, point, readings, **kwargs):  # type: ignore[no-untyped-def]
+        write_point(self, run_id, point, readings, **kwargs)
+        seen.append(("commit", int(point.index), datetime.now(UTC)))
+
+    def recorded_event(self, run_id, severity, kind, message, *args, **kwargs):  # type: ignore[no-untyped-def]
+        seen.append((f"event {kind}", kwargs.get("point_index") or -1, datetime.now(UTC)))
+        return log_event(self, run_id, severity, kind, message, *args, **kwargs)
+
+    monkeypatch.setattr(SqliteRunStore, "write_point", recorded_write)
+    monkeypatch.setattr(SqliteRunStore, "log_event", recorded_event)
+    return seen
+
+
+def test_a_point_is_committed_while_the_next_one_settles(tmp_path, commits):
+    with start_sim_bench(clock=VirtualClock()) as sim:
+        resources = {r: v for r, v in sim.resources.items() if r != "simctl"}  # wall clock
+        bench = tmp_path / "bench.toml"
+        bench.write_text(served_bench_text(resources), encoding="utf-8")
+        outcome = run_sequence(BUDGET, bench, store_path=tmp_path / "s.sqlite", bus_log=True)
+    assert outcome.status == "complete", outcome.reason
+    with SqliteRunStore(tmp_path / "s.sqlite", create=False) as db:
+        log = db.bus_log(outcome.run_id)
+        assert sorted(db.points_frame(outcome.run_id)["point_index"]) == list(range(POINTS))
+    committed = {index: at for what, index, at in commits if what == "commit"}
+    assert sorted(committed) == list(range(POINTS))
+    sweeps = [i for i, r in enumerate(log) if r.role == "sa" and "INIT:IMM" in r.sent]
+    assert len(sweeps) == POINTS
+    slack = timedelta(microseconds=100)  # the log's calendar time against its interval timer
+    for point, i in enumerate(sweeps[1:], start=1):
+        syncs = [r for r in log[:i] if r.role in ("lo", "rf") and r.sent.endswith("*OPC?")][-2:]
+        answered = max(r.time + timedelta(seconds=r.duration_s) for r in syncs)
+        assert answered - slack <= committed[point - 1] <= log[i].time + slack, point
+    assert committed[POINTS - 1] >= log[sweeps[-1]].time
+
+
+def test_a_fault_in_the_next_point_stores_the_point_before_the_recovery(tmp_path, commits):
+    # the LO's 8th message falls in a later point's settings (set-up and point 0 take fewer)
+    fault = FaultSpec(role="lo", kind="error", at_command=8, code=-222,
+                      text="Data out of range")
+    description = resolve_description(None).model_copy(update={"faults": (fault,)})
+    with start_sim_bench(description, clock=VirtualClock()) as sim:
+        bench = tmp_path / "bench.toml"
+        bench.write_text(served_bench_text(sim.resources), encoding="utf-8")
+        outcome = run_sequence(BUDGET, bench, store_path=tmp_path / "s.sqlite")
+        assert len(sim.faults.log.events()) == 1
+    assert outcome.status == "complete", outcome.reason
+    failed = next(index for what, index, _ in commits if what == "event error")
+    assert failed >= 1
+    order = [(what, index) for what, index, _ in commits]
+    # the point before the failed one was committed before the fault was logged
+    assert order.index(("commit", failed - 1)) < order.index(("event error", failed))
+    assert sorted(i for w, i in order if w == "commit") == list(range(POINTS))
+
+
+def test_a_stop_while_the_next_point_is_set_up_still_stores_the_point_before(
+        tmp_path, monkeypatch: pytest.MonkeyPatch):
+    apply_sources = Runner._apply_sources
+
+    def interrupted(self: Runner, point):  # type: ignore[no-untyped-def]
+        if point.index == 3:
+            raise KeyboardInterrupt
+        return apply_sources(self, point)
+
+    monkeypatch.setattr(Runner, "_apply_sources", interrupted)
+    outcome = run_sequence(BUDGET, sim=True, store_path=tmp_path / "s.sqlite")
+    assert outcome.status == "aborted"
+    with SqliteRunStore(tmp_path / "s.sqlite", create=False) as db:
+        assert sorted(db.points_frame(outcome.run_id)["point_index"]) == [0, 1, 2]
+
+
+def test_a_temperature_s_points_are_stored_before_the_chamber_moves(
+        tmp_path, monkeypatch: pytest.MonkeyPatch):
+    sequence = tmp_path / "two-temperatures.toml"
+    sequence.write_text(BUDGET.read_text(encoding="utf-8").replace(
+        'settle = "20 ms"', 'settle = "20 ms"\ntemperature = ["25 degC", "35 degC"]\n'
+        'soak = "1 s"'), encoding="utf-8")
+    stored_at_moves: list[int] = []
+    go = Runner._go_to_temperature
+
+    def moving(self: Runner, temperature_c: float, point=None) -> None:  # type: ignore[no-untyped-def]
+        stored_at_moves.append(len(self.store.done_point_indices(self.run_id)))
+        go(self, temperature_c, point)
+
+    monkeypatch.setattr(Runner, "_go_to_temperature", moving)
+    outcome = run_sequence(sequence, sim=True, store_path=tmp_path / "s.sqlite")
+    assert outcome.status == "complete", outcome.reason
+    assert stored_at_moves == [0, POINTS]
