@@ -5,7 +5,8 @@ chamber move or the end of the points:
 * on the wall clock, point N's commit falls after point N+1's sources answered their
   completion queries and before N+1's sweep (the bus log's times against the commits');
   the last point is committed after the last sweep;
-* a fault in point N+1 stores point N before the recovery;
+* a fault in point N+1 after point N's status was read leaves N stored; a reset that the
+  status read shows measures N again before N+1;
 * a stop while point N+1 is being set up still stores point N;
 * the points of one temperature are stored before the chamber moves to the next.
 """
@@ -69,22 +70,52 @@ def test_a_point_is_committed_while_the_next_one_settles(tmp_path, commits):
     assert committed[POINTS - 1] >= log[sweeps[-1]].time
 
 
-def test_a_fault_in_the_next_point_stores_the_point_before_the_recovery(tmp_path, commits):
-    # the LO's 8th message falls in a later point's settings (set-up and point 0 take fewer)
-    fault = FaultSpec(role="lo", kind="error", at_command=8, code=-222,
-                      text="Data out of range")
-    description = resolve_description(None).model_copy(update={"faults": (fault,)})
+def _served_run(tmp_path: Path, faults: tuple[FaultSpec, ...], *, bus_log: bool = False
+                ) -> tuple[str, list, int]:
+    """``BUDGET`` on a served simulated bench with ``faults``: (status, bus log, faults hit)."""
+    tmp_path.mkdir(exist_ok=True)
+    description = resolve_description(None).model_copy(update={"faults": faults})
     with start_sim_bench(description, clock=VirtualClock()) as sim:
         bench = tmp_path / "bench.toml"
         bench.write_text(served_bench_text(sim.resources), encoding="utf-8")
-        outcome = run_sequence(BUDGET, bench, store_path=tmp_path / "s.sqlite")
-        assert len(sim.faults.log.events()) == 1
-    assert outcome.status == "complete", outcome.reason
-    failed = next(index for what, index, _ in commits if what == "event error")
-    assert failed >= 1
+        outcome = run_sequence(BUDGET, bench, store_path=tmp_path / "s.sqlite", bus_log=bus_log)
+        hit = len(sim.faults.log.events())
+    log = []
+    if bus_log:
+        with SqliteRunStore(tmp_path / "s.sqlite", create=False) as db:
+            log = db.bus_log(outcome.run_id)
+    return outcome.status, log, hit
+
+
+def test_a_fault_after_the_point_before_was_confirmed_leaves_that_point_stored(
+        tmp_path, commits):
+    # the analyzer's message of point 2's sweep, counted in a clean run first
+    _, log, _ = _served_run(tmp_path / "clean", (), bus_log=True)
+    sa = [r for r in log if r.role == "sa"]
+    sweep_2 = [i for i, r in enumerate(sa) if "INIT:IMM" in r.sent][2] + 1  # counted from 1
+    commits.clear()
+    fault = FaultSpec(role="sa", kind="error", at_command=sweep_2, code=-222,
+                      text="Data out of range")
+    status, _, hit = _served_run(tmp_path / "faulty", (fault,))
+    assert status == "complete" and hit == 1
     order = [(what, index) for what, index, _ in commits]
-    # the point before the failed one was committed before the fault was logged
-    assert order.index(("commit", failed - 1)) < order.index(("event error", failed))
+    assert ("event error", 2) in order, order
+    # point 1 was confirmed by point 2's settings and committed before point 2's sweep failed
+    assert order.index(("commit", 1)) < order.index(("event error", 2))
+    assert ("event unconfirmed", 1) not in order
+    assert sorted(i for w, i in order if w == "commit") == list(range(POINTS))
+
+
+def test_a_source_reset_after_a_point_measures_that_point_again(tmp_path, commits):
+    # rf resets itself just before point 3's settings: the *ESR? leading them says so
+    fault = FaultSpec(role="rf", kind="reset", match=f"SOUR:FREQ:CW {1.7e9 + 3 * 0.25e9:.0f}",
+                      max_count=1)
+    status, _, hit = _served_run(tmp_path, (fault,))
+    assert status == "complete" and hit == 1
+    order = [(what, index) for what, index, _ in commits]
+    assert ("event unconfirmed", 2) in order and ("event reset", 2) in order, order
+    # point 2 is committed only after it was measured again
+    assert order.index(("commit", 2)) > order.index(("event reset", 2))
     assert sorted(i for w, i in order if w == "commit") == list(range(POINTS))
 
 
