@@ -301,7 +301,10 @@ class Runner:
 
         Links named in ``cause`` are reconnected first; then every instrument is probed with
         ``*ESR?`` (a dead link is reconnected with backoff), its error queue drained and its
-        cached settings forgotten, so the next point sends everything again.
+        cached settings forgotten, so the next point sends everything again. Nothing the
+        engine remembers of the bench's state survives: the drivers' memos, the supply's
+        output, and the noise source's hot/cold state (a command may have run whose reply
+        was lost, or an instrument reset itself), so each is commanded and read back again.
         """
         self.recoveries += 1
         text = str(cause)
@@ -323,6 +326,8 @@ class Runner:
             driver.forget_state()
             driver.prepare()
         self._supply_on = False
+        if self._noise is not None:
+            self._noise.forget_state()
         self._restore_chamber()
 
     def _probe(self, role: str, driver: Driver) -> None:
