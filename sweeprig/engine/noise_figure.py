@@ -282,19 +282,22 @@ class NoiseBench:
                 fix="give roles.switch channels thru and part")
         for source in self.d.sources():
             source.set_output(False)
-        switch.select(thru)
-        switch.select(self.bench.switch_channel("if"))
-        switch.check_errors()
+        # from the moment the thru may be in, whatever fails puts the part back (read back
+        # both ways: a calibration of the part, or readings of the thru, are silently wrong)
         try:
+            switch.route(thru)
+            switch.select(self.bench.switch_channel("if"))
+            switch.check_errors()
             for f in freqs:
                 p = self.hot_cold(f, check_compression=False)
                 self.calibration[f] = HotCold(
                     p.hot.power_mw, p.cold.power_mw, max(p.hot.jitter_rel, p.cold.jitter_rel),
                     float(self.enr.enr_at(f)), float(self.enr.uncertainty_at(f)[0]))
         finally:
-            self.off()
-            switch.select(part)
-            switch.check_errors()
+            try:
+                self.off()
+            finally:
+                switch.route(part)
         return self.calibration
 
     def cold_temperature_k(self) -> float:

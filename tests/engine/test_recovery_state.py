@@ -29,16 +29,21 @@ from tests.engine.test_noise_figure_run import SEQUENCE
 RAW_TOLERANCE_DB = 0.5
 
 
-def _run(folder: Path, plant: Callable[[SimBench, PointResult], None] | None = None
+def _run(folder: Path, plant: Callable[[SimBench, PointResult], None] | None = None,
+         faults: tuple[FaultSpec, ...] = (), before: Callable[[SimBench], None] | None = None
          ) -> tuple[dict[int, object], dict[int, dict[str, float]], list[object], SimBench]:
-    """The noise sequence on a clean simulated bench, ``plant`` called after each stored
-    point; returns the noise figures and the raw noise readings by point, the run's events
-    and the bench."""
+    """The noise sequence on a clean simulated bench (with ``faults`` planned from the
+    start, ``before`` done to it first), ``plant`` called after each stored point; returns
+    the noise figures and the raw noise readings by point (with the point's wanted and image
+    levels), the run's events and the bench."""
     folder.mkdir(parents=True, exist_ok=True)
     sequence = folder / "noise.toml"
     sequence.write_text(SEQUENCE.format(if_="100 MHz"), encoding="utf-8")
     store_path = folder / "runs.sqlite"
-    with start_sim_bench(resolve_description("clean"), clock=VirtualClock()) as sim:
+    description = resolve_description("clean").model_copy(update={"faults": faults})
+    with start_sim_bench(description, clock=VirtualClock()) as sim:
+        if before is not None:
+            before(sim)
         bench = folder / "bench.toml"
         bench.write_text(served_bench_text(sim.resources), encoding="utf-8")
         hook = None if plant is None else (lambda result: plant(sim, result))
@@ -53,6 +58,8 @@ def _run(folder: Path, plant: Callable[[SimBench, PointResult], None] | None = N
     raw: dict[int, dict[str, float]] = {}
     for row in readings[readings["kind"] == "noise_figure"].itertuples(index=False):
         raw[int(row.point_index)] = json.loads(row.extra_json)["noise"]
+    for row in readings[readings["kind"].isin(("wanted", "image"))].itertuples(index=False):
+        raw[int(row.point_index)][f"{row.kind}_mw"] = 10 ** (float(row.level_dbm) / 10)
     return figures, raw, events, sim
 
 
@@ -69,7 +76,7 @@ def _agrees(clean, faulted) -> None:
     assert set(figures) == set(clean_figures)
     for index, figure in figures.items():
         reference = clean_figures[index]
-        for key in ("hot_mw", "cold_mw", "cal_hot_mw", "cal_cold_mw"):
+        for key in ("hot_mw", "cold_mw", "cal_hot_mw", "cal_cold_mw", "wanted_mw", "image_mw"):
             step_db = 10 * math.log10(raw[index][key] / clean_raw[index][key])
             assert abs(step_db) < RAW_TOLERANCE_DB, (index, key, step_db)
         if figure.flags:
@@ -141,3 +148,36 @@ def test_an_off_not_read_back_leaves_the_source_state_unknown() -> None:
             nb.off()
             for _role, driver in drivers.items():
                 driver.close()
+
+
+def _assert_part_in_place(sim: SimBench) -> None:
+    assert not sim.world.thru_fitted(), "the calibration thru is still in the part's place"
+
+
+@pytest.mark.parametrize(("kind", "match", "count"), [
+    ("timeout", "(@7)", 1), ("swallow", "(@6)", 1), ("swallow", "(@6)", 2)])
+def test_a_switch_fault_on_the_calibration_thru_puts_the_part_back_before_measuring(
+        tmp_path: Path, clean, kind: str, match: str, count: int) -> None:
+    # timeout: closing the thru (channel 7) runs, the reply after it is lost: the engine
+    # recovers with the thru still in the part's place. swallow: the message closing the part
+    # (channel 6) again after the system calibration is lost without a trace (nothing fails:
+    # only reading the route back finds it); twice: the first recovery's own attempt is lost
+    # too, and the point is measured again only once the part reads back in. Either way every
+    # later reading must be of the part, not of the thru.
+    spec = FaultSpec(role="switch", kind=kind, match=match, max_count=count)
+    figures, raw, _events, sim = _run(tmp_path, faults=(spec,))
+    assert len(sim.faults.log.events("switch")) == count
+    _agrees(clean, (figures, raw))
+    assert all(f.flags == () for f in figures.values()), {
+        i: f.flags for i, f in figures.items()}
+    _assert_part_in_place(sim)
+
+
+def test_a_run_starts_with_the_part_in_place_even_if_a_thru_was_left_in(tmp_path: Path,
+                                                                       clean) -> None:
+    # a calibration that stopped (or a person) left the calibration thru in the DUT position
+    figures, raw, _events, sim = _run(tmp_path, before=lambda sim: sim.instruments[
+        "switch"].move_by_hand(7))
+    _agrees(clean, (figures, raw))
+    assert all(f.flags == () for f in figures.values())
+    _assert_part_in_place(sim)
