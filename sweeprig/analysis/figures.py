@@ -90,6 +90,12 @@ Flags (sweeprig's own names)
 ``supply_current_off``
     At a point behind the figure the DUT supply current was more than 30 % away from the
     part's ``expected_supply_current``: the part looks wrongly powered or damaged.
+``image_ratio_doubtful``
+    A single-sideband noise figure converted with a measured image-to-signal ratio whose
+    wanted reading stood less than 6 dB above its noise floor, or that put the image response
+    more than 10 dB above the wanted one (both common practice, no source): the ratio, and
+    with it the SSB figure, says more about the measurement than about the part
+    (:mod:`sweeprig.analysis.noise_figure`).
 
 :data:`FLAG_MEANINGS` holds one line per flag for people (reports, ``figures.json``);
 :data:`SUSPECT_FLAGS` the flags that make a limit check on the figure inconclusive.
@@ -147,6 +153,7 @@ HOT_COMPRESSION = "hot_compression"
 INTERFERER = "interferer"
 FREQUENCY_OFFSET = "frequency_offset"
 WINDOW_EDGE = "window_edge"
+IMAGE_RATIO_DOUBTFUL = "image_ratio_doubtful"
 
 #: Every flag, in a fixed order: the position is the flag's bit in a flag mask.
 FLAGS: tuple[str, ...] = (
@@ -181,6 +188,8 @@ FLAGS: tuple[str, ...] = (
     # the windowed peak search (sweeprig.plan.search_window)
     FREQUENCY_OFFSET,
     WINDOW_EDGE,
+    # the SSB conversion's image ratio (sweeprig.analysis.noise_figure)
+    IMAGE_RATIO_DOUBTFUL,
 )
 
 #: Flags that make a figure untrustworthy as a number: a limit check on it is inconclusive.
@@ -216,6 +225,7 @@ SUSPECT_FLAGS: frozenset[str] = frozenset(
         INTERFERER,
         FREQUENCY_OFFSET,
         WINDOW_EDGE,
+        IMAGE_RATIO_DOUBTFUL,
     }
 )
 
@@ -274,6 +284,9 @@ FLAG_MEANINGS: Mapping[str, str] = MappingProxyType({
     "off its stated tolerance",
     WINDOW_EDGE: "the highest point of the search window was its edge: the product most "
     "likely lies outside the window, and the level read is not the product's",
+    IMAGE_RATIO_DOUBTFUL: "the image-to-signal ratio behind this SSB noise figure came from "
+    "a wanted reading within 6 dB of its noise floor, or was above +10 dB: the figure is not "
+    "the part's",
 })
 
 _FLAG_BIT = {name: 1 << i for i, name in enumerate(FLAGS)}

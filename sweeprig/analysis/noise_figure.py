@@ -16,7 +16,11 @@ Relations (each checked in tests/analysis/test_noise_figure.py against its sourc
 * Sidebands: a double-balanced mixer converts the noise source's noise from the signal and
   the image band to one IF, so the Y-factor method measures the double-sideband figure; the
   single-sideband one is F_SSB = F_DSB·(1 + G_image/G_signal), +3.01 dB with equal gains
-  (field notes). G1 above is then the sum of both bands' gains.
+  (field notes). G1 above is then the sum of both bands' gains. The image-to-signal ratio
+  comes from two readings (the source at the image and at the signal frequency); a wanted
+  reading near its noise floor, or an image response far above the wanted one, makes the
+  ratio (and with it the SSB figure) meaningless, which the flag ``image_ratio_doubtful``
+  says (:func:`image_ratio_doubtful`).
 
 Uncertainty (the GUM's root sum of squares, :mod:`sweeprig.analysis.uncertainty`): the terms
 are the input quantities of the measurement model above, as JCGM 100:2008 4.1.1-4.1.3 builds a
@@ -57,6 +61,15 @@ COMPRESSION_STEP_DB = 0.1
 #: A line in the noise span stands out from RMS-detected noise by more than this many
 #: standard deviations of one trace point (plus 0.5 dB) → an interferer (common practice).
 INTERFERER_SIGMAS = 6.0
+#: The SSB conversion's image-to-signal ratio is doubtful when the wanted (signal-frequency)
+#: reading it comes from stood less than this above its noise floor (dB): the ratio then
+#: holds the floor, not the part's response (common practice, no source; the analysis' own
+#: noise margin, :data:`sweeprig.analysis.validity.NOISE_MARGIN_DB`).
+IMAGE_WANTED_NOISE_MARGIN_DB = 6.0
+#: ...or when the ratio itself is above this (dB): a mixer whose image response stands 10 dB
+#: above its wanted response says the measurement is wrong, not the part (common practice,
+#: no source).
+MAX_IMAGE_TO_SIGNAL_DB = 10.0
 #: The cold temperature's uncertainty when it is the measured ambient, K (± rectangular; a
 #: room thermometer near the source, from memory).
 COLD_TEMPERATURE_HALF_WIDTH_K = 1.0
@@ -69,6 +82,7 @@ FLAG_TEXT: Mapping[str, str] = {
     "analyzer_noise_dominates": "the analyzer's own noise dominates the cold reading",
     "hot_compression": "compression by the hot source",
     "interferer": "an interferer in the noise band",
+    "image_ratio_doubtful": "the image-to-signal ratio of the SSB conversion is doubtful",
 }
 
 
@@ -105,6 +119,19 @@ def y_factor_gain(dn_part_mw: float, dn_cal_mw: float, enr_part: float,
 def ssb_from_dsb_db(nf_dsb_db: float, image_to_signal_db: float) -> float:
     """NF_SSB = NF_DSB + 10·log10(1 + G_image/G_signal) (field notes: +3.01 dB when equal)."""
     return nf_dsb_db + db(1.0 + lin(image_to_signal_db))
+
+
+def image_ratio_doubtful(image_to_signal_db: float,
+                         wanted_over_floor_db: float | None = None) -> bool:
+    """Whether a measured image-to-signal ratio (dB) is doubtful: above
+    :data:`MAX_IMAGE_TO_SIGNAL_DB`, or its wanted reading stood less than
+    :data:`IMAGE_WANTED_NOISE_MARGIN_DB` above its noise floor (``wanted_over_floor_db``;
+    None or NaN: the floor was not recorded, so it is not counted). A ratio that is not a
+    finite number is doubtful too."""
+    if not math.isfinite(image_to_signal_db) or image_to_signal_db > MAX_IMAGE_TO_SIGNAL_DB:
+        return True
+    return (wanted_over_floor_db is not None and math.isfinite(wanted_over_floor_db)
+            and wanted_over_floor_db < IMAGE_WANTED_NOISE_MARGIN_DB)
 
 
 @dataclass(frozen=True)
@@ -205,6 +232,7 @@ def reduce_noise_figure(
     cold_measured: bool = True, noise_source_match: float = NOISE_SOURCE_MATCH,
     compression_step_db: float | None = None, compression_jitter_db: float = 0.0,
     interferer_excess_db: float | None = None, interferer_sigma_db: float = 0.0,
+    image_wanted_over_floor_db: float | None = None,
 ) -> NoiseFigureResult:
     """The noise figure of one point from the part's hot/cold readings and the system
     calibration's (see the module docstring), with its budget and flags.
@@ -214,7 +242,11 @@ def reduce_noise_figure(
     the budget then carries as a ±0.5 dB rectangular term). ``compression_step_db``: the
     change of the hot−cold difference with 10 dB more attenuation (None: not checked), and
     its jitter; ``interferer_excess_db``: the trace's highest point over its median in the
-    noise span (None: not looked at) with one point's standard deviation.
+    noise span (None: not looked at) with one point's standard deviation;
+    ``image_wanted_over_floor_db``: how far the wanted reading behind ``image_to_signal_db``
+    stood above its noise floor (None: not recorded). An SSB figure converted with a measured
+    ratio that :func:`image_ratio_doubtful` calls doubtful is flagged
+    ``image_ratio_doubtful``.
     """
     if sideband not in ("dsb", "ssb"):
         raise ValueError(f"sideband {sideband!r} is not 'dsb' or 'ssb'")
@@ -289,6 +321,9 @@ def reduce_noise_figure(
     if interferer_excess_db is not None and interferer_excess_db > (
             INTERFERER_SIGMAS * interferer_sigma_db + 0.5):
         flags.append("interferer")
+    if sideband == "ssb" and image_known and image_ratio_doubtful(
+            image_db, image_wanted_over_floor_db):
+        flags.append("image_ratio_doubtful")
     ssb = (ssb_from_dsb_db(dsb, image_db) if (image_known or sideband == "ssb") else None)
     return NoiseFigureResult(
         nf_db=nf, sideband=sideband, nf_dsb_db=dsb, nf_ssb_db=ssb, gain_db=db(g1),

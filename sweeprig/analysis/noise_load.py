@@ -8,7 +8,9 @@ sideband, and the Y-factor gain estimate is a figure of its own beside it
 (``noise_figure_gain``, both bands' gains summed). The image-to-signal gain ratio for the SSB
 conversion is taken from the same point's ``wanted`` and ``image`` readings when the study
 reads both (image level − wanted level at the same RF power), else equal gains (+3.01 dB) with
-a ±0.5 dB term in the budget.
+a ±0.5 dB term in the budget; how far that wanted reading stood above its recorded noise floor
+goes with it, so a ratio taken from a reading in the noise flags the SSB figure
+``image_ratio_doubtful``.
 """
 
 from __future__ import annotations
@@ -30,7 +32,18 @@ FLAG_OF_CAUSE: Mapping[str, str] = {
     "analyzer_noise_dominates": "analyzer_noise_dominates",
     "hot_compression": "hot_compression",
     "interferer": "interferer",
+    "image_ratio_doubtful": "image_ratio_doubtful",
 }
+
+
+def _over_floor_db(row: pd.Series) -> float | None:
+    """How far a stored reading stood above its noise floor, dB (None: no floor recorded)."""
+    floor = row.get("noise_floor_dbm")
+    try:
+        gap = float(row["level_dbm"]) - float(floor)  # type: ignore[arg-type]
+    except (TypeError, ValueError):
+        return None
+    return gap if math.isfinite(gap) else None
 
 
 def _sidebands(sequence: object) -> dict[tuple[str, str], str]:
@@ -62,12 +75,14 @@ def noise_figure_figures(points: pd.DataFrame, readings: pd.DataFrame, specs: In
         p = by_point.loc[int(row.point_index)]
         sideband = sidebands.get((str(p["study"]), str(row.name)), "dsb")
         here = levels[levels["point_index"] == row.point_index]
-        image_db = None
-        wanted = here[here["kind"] == "wanted"]["level_dbm"]
+        image_db = wanted_over_floor_db = None
+        wanted_rows = here[here["kind"] == "wanted"]
+        wanted = wanted_rows["level_dbm"]
         image = here[here["kind"] == "image"]["level_dbm"]
         if len(wanted) and len(image) and math.isfinite(float(wanted.iloc[0])) \
                 and math.isfinite(float(image.iloc[0])):
             image_db = float(image.iloc[0]) - float(wanted.iloc[0])
+            wanted_over_floor_db = _over_floor_db(wanted_rows.iloc[0])
         r = 1.0 if image_db is None else 10.0 ** (image_db / 10.0)
         enr_lin = (10.0 ** (n["enr_rf_db"] / 10.0) + r * 10.0 ** (n["enr_image_db"] / 10.0)) \
             / (1.0 + r)
@@ -81,7 +96,8 @@ def noise_figure_figures(points: pd.DataFrame, readings: pd.DataFrame, specs: In
             compression_step_db=n.get("compression_step_db"),
             compression_jitter_db=n.get("compression_jitter_db") or 0.0,
             interferer_excess_db=n.get("peak_excess_db"),
-            interferer_sigma_db=n.get("point_sigma_db") or 0.0)
+            interferer_sigma_db=n.get("point_sigma_db") or 0.0,
+            image_wanted_over_floor_db=wanted_over_floor_db)
         flags = tuple(FLAG_OF_CAUSE[c] for c in result.flags)
         if bool(row.overload):
             flags += ("overload",)

@@ -456,8 +456,7 @@ class _Steps:
         channel = self.bench.switch_route(name)
         switch = self.d.switch
         if channel is not None and switch is not None:
-            switch.select(channel)
-            switch.check_errors()
+            switch.route(channel)  # sent, checked and read back
             return
         if self.operator is None or not ask or name not in OPERATOR_STEPS:
             return
@@ -672,7 +671,7 @@ def _finish(drivers: BenchDrivers | None, bench: Bench, sim_bench: object) -> Sa
         part = bench.switch_route("part")
         if part is not None and drivers.switch is not None:
             with contextlib.suppress(SweeprigError):  # the part back in (RF is already off)
-                drivers.switch.select(part)
+                drivers.switch.route(part)
         drivers.close()
     if sim_bench is not None:
         sim_bench.close()  # type: ignore[attr-defined]

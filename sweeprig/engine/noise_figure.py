@@ -124,9 +124,14 @@ class NoiseBench:
 
     # -- the source -----------------------------------------------------------------------
     def source(self, hot: bool) -> None:
-        """Switch the noise source hot (drive on) or cold (drive off), read back."""
+        """Switch the noise source hot (drive on) or cold (drive off), read back.
+
+        Skipped when the source is known to be in that state already: known means switched
+        and read back since the last :meth:`forget_state`; while a switch is under way (or
+        failed part-way) the state is unknown, so the next call always commands it."""
         if self._hot is hot:
             return
+        self._hot = None  # unknown until read back: a command may have run without its reply
         if self.drive == "sa":
             self._analyzer_output(hot)
             self._hot = hot
@@ -136,7 +141,9 @@ class NoiseBench:
         if hot:
             ns.set_current_limit(self.spec.current_limit)
             ns.set_voltage(self.spec.drive_voltage)
-        ns.set_output(hot)
+        # always sent: the driver's memo of the output may be as stale as ours (an "off"
+        # lost on the way is remembered as sent)
+        ns.set_value("output", hot, force=True)
         ns.check_errors()
         self.clock.sleep(SWITCH_SETTLE_S)
         volts = ns.measure_voltage_v()
@@ -167,8 +174,17 @@ class NoiseBench:
                 f"switching it {'on' if hot else 'off'}: the source is not "
                 f"{'hot' if hot else 'cold'}", where=f"role 'sa' ({sa.resource})")
 
+    def forget_state(self) -> None:
+        """Forget the source's state (after a recovery: an instrument may have been reset,
+        or a command run whose reply was lost): the next :meth:`source` commands it and
+        reads it back whatever it was last."""
+        self._hot = None
+
     def off(self) -> None:
-        """The drive off (idempotent in effect; always sent)."""
+        """The drive off (idempotent in effect; always sent). Not read back here, so the
+        source's state stays unknown: the next :meth:`source` commands it and reads it back
+        (a lost "off" must never let a cold reading be taken with the source hot)."""
+        self._hot = None
         if self.drive == "sa":
             sa = self.d.sa
             if sa is not None:
@@ -176,7 +192,6 @@ class NoiseBench:
         ns = self.d.nsdc
         if ns is not None:
             ns.set_value("output", False, force=True)
-        self._hot = False
 
     # -- one reading ----------------------------------------------------------------------
     def read(self, freq_hz: float, attenuation_db: float | None = None) -> NoisePower:
@@ -267,19 +282,22 @@ class NoiseBench:
                 fix="give roles.switch channels thru and part")
         for source in self.d.sources():
             source.set_output(False)
-        switch.select(thru)
-        switch.select(self.bench.switch_channel("if"))
-        switch.check_errors()
+        # from the moment the thru may be in, whatever fails puts the part back (read back
+        # both ways: a calibration of the part, or readings of the thru, are silently wrong)
         try:
+            switch.route(thru)
+            switch.select(self.bench.switch_channel("if"))
+            switch.check_errors()
             for f in freqs:
                 p = self.hot_cold(f, check_compression=False)
                 self.calibration[f] = HotCold(
                     p.hot.power_mw, p.cold.power_mw, max(p.hot.jitter_rel, p.cold.jitter_rel),
                     float(self.enr.enr_at(f)), float(self.enr.uncertainty_at(f)[0]))
         finally:
-            self.off()
-            switch.select(part)
-            switch.check_errors()
+            try:
+                self.off()
+            finally:
+                switch.route(part)
         return self.calibration
 
     def cold_temperature_k(self) -> float:

@@ -36,6 +36,12 @@ class NoiseReader:
         self.nb.off()
         self._calibrations: dict[tuple[float, float], HotCold] = {}
 
+    def forget_state(self) -> None:
+        """After a recovery: the noise source's state is unknown (see
+        :meth:`NoiseBench.forget_state`); the system calibrations taken stay (they were
+        completed and read back before the fault)."""
+        self.nb.forget_state()
+
     def read(self, point: Point, reading: Reading) -> ReadingRecord:
         assert reading.freq_hz is not None
         if_hz = float(reading.freq_hz)

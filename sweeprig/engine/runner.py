@@ -315,6 +315,7 @@ class Runner:
         if self.d.dc is not None and self.bench.limits.supply_max_current is not None:
             self.d.dc.set_current_limit(float(self.bench.limits.supply_max_current))
         self._check(*(d for _, d in self.d.items()))
+        self._part_in_place()
         if "noise_figure" in self.sequence.reading_kinds() and self._noise is None:
             from sweeprig.engine.noise_reading import NoiseReader  # only runs that need it
 
@@ -405,7 +406,13 @@ class Runner:
 
         Links named in ``cause`` are reconnected first; then every instrument is probed with
         ``*ESR?`` (a dead link is reconnected with backoff), its error queue drained and its
-        cached settings forgotten, so the next point sends everything again.
+        cached settings forgotten, so the next point sends everything again. Nothing the
+        engine remembers of the bench's state survives: the drivers' memos, the supply's
+        output, and the noise source's hot/cold state (a command may have run whose reply
+        was lost, or an instrument reset itself), so each is commanded and read back again.
+        Where the bench's switch has a part route, the part is put back in the DUT position
+        and read back (the fault may have struck while the calibration thru was in): every
+        point measures the part; only the system calibration fits the thru, by itself.
         """
         self.recoveries += 1
         text = str(cause)
@@ -427,7 +434,18 @@ class Runner:
             driver.forget_state()
             driver.prepare()
         self._supply_on = False
+        if self._noise is not None:
+            self._noise.forget_state()
+        self._part_in_place()
         self._restore_chamber()
+
+    def _part_in_place(self) -> None:
+        """The part in the DUT position, read back, where the bench's switch has a part route
+        (at set-up: a calibration that stopped may have left its thru in; after a recovery:
+        the fault may have struck while the system calibration had the thru in)."""
+        part = self.bench.switch_route("part")
+        if self.d.switch is not None and part is not None:
+            self.d.switch.route(part)
 
     def _probe(self, role: str, driver: Driver) -> None:
         backoff = self.policy.backoff_s

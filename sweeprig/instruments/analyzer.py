@@ -86,9 +86,11 @@ class AnalyzerDriver(Driver):
         return sent
 
     def forget_state(self) -> None:
-        """Forget the cached settings and the sweep time read for them."""
+        """Forget the cached settings, the sweep time read for them and the memo of the last
+        configuration that sent nothing."""
         super().forget_state()
         self._sweep_time = self._axis = None
+        self._unchanged_memo = None
 
     _sweep_time: tuple[float, int] | None = None
     _axis: tuple[float, float, int | None] | None = None

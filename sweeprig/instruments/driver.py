@@ -913,8 +913,11 @@ class Driver:
 
     def forget_state(self) -> None:
         """Empty the cache of last-sent settings (after a reset, reconnect or power cycle),
-        and drop any held commands (they were not sent)."""
+        and drop any held commands (they were not sent). The memo of values already checked
+        (:meth:`_checked_token`) goes too: nothing from before a reset or recovery is taken
+        on trust, and checking again costs only the first message of each setting."""
         self._cache.clear()
+        self._checked_memo.clear()
         self._held.clear()
         self._status_fresh = False
         self._status_first = False

@@ -99,3 +99,58 @@ def test_budget_terms_and_flags() -> None:
     low = HotCold(10 ** -8.2, 10 ** -8.65, 0.004, 14.9, 0.12)
     assert "analyzer_noise_dominates" in reduce_noise_figure(
         low, cal, cold_k=296.0, specs=InstrumentSpecs()).flags
+
+
+# -------------------------------------------------------------------------------------------
+# the SSB conversion's image ratio: a wanted reading in the noise, or an image response far
+# above the wanted one, must not turn into an unflagged SSB figure
+
+_CAL = HotCold(10 ** -7.7, 10 ** -8.7, 0.004, 15.2, 0.12)
+_PART = HotCold(10 ** -7.2, 10 ** -8.0, 0.004, 14.9, 0.12)
+
+
+def _ssb(image_db: float, over_floor_db: float | None):
+    return reduce_noise_figure(_PART, _CAL, cold_k=296.0, specs=InstrumentSpecs(),
+                               sideband="ssb", image_to_signal_db=image_db,
+                               image_wanted_over_floor_db=over_floor_db)
+
+
+def test_an_image_ratio_from_a_wanted_reading_in_the_noise_flags_the_ssb_figure() -> None:
+    from sweeprig.analysis.figures import SUSPECT_FLAGS, Figure
+    from sweeprig.analysis.limits import INCONCLUSIVE, Limit, judge
+
+    # the wanted reading 65 dB low, 3 dB over its floor: image − wanted = +65.6 dB, and the
+    # conversion adds 10·log10(1 + 10^6.56) ≈ 65.6 dB to the DSB figure
+    out = _ssb(65.6, 3.0)
+    assert out.nf_db - out.nf_dsb_db == pytest.approx(
+        10 * math.log10(1 + 10 ** 6.56), abs=1e-9)  # field notes: F_SSB = F_DSB·(1 + Gi/Gs)
+    assert "image_ratio_doubtful" in out.flags
+    # a plausible ratio from a reading in the noise is doubtful too (threshold: 6 dB over the
+    # floor, common practice, no source)
+    assert "image_ratio_doubtful" in _ssb(-0.2, 5.9).flags
+    assert "image_ratio_doubtful" not in _ssb(-0.2, 6.1).flags
+    # the figure is not presented as a trustworthy number: a limit check is inconclusive
+    assert "image_ratio_doubtful" in SUSPECT_FLAGS
+    figure = Figure("noise_figure", out.nf_db, "dB", flags=out.flags)
+    assert judge(figure, Limit("noise_figure", max=15.0)).verdict == INCONCLUSIVE
+
+
+def test_an_image_response_10_db_above_the_wanted_one_is_doubtful_on_its_own() -> None:
+    # +10 dB: common practice, no source (a mixer's image response above its wanted response
+    # by that much says the measurement is wrong, not the part); the floor unknown (None)
+    assert "image_ratio_doubtful" in _ssb(10.5, None).flags
+    assert "image_ratio_doubtful" in _ssb(10.5, 80.0).flags
+    assert "image_ratio_doubtful" not in _ssb(9.5, 80.0).flags
+    assert "image_ratio_doubtful" not in _ssb(9.5, math.nan).flags  # floor not recorded
+
+
+def test_demo_like_image_readings_raise_no_flag_and_dsb_is_not_flagged() -> None:
+    # the demo part's noise-figure points: image ≈ wanted (−0.2 dB), wanted ≈ 78 dB over floor
+    assert _ssb(-0.2, 78.0).flags == ()
+    dsb = reduce_noise_figure(_PART, _CAL, cold_k=296.0, specs=InstrumentSpecs(),
+                              sideband="dsb", image_to_signal_db=65.6,
+                              image_wanted_over_floor_db=3.0)
+    assert "image_ratio_doubtful" not in dsb.flags  # the DSB figure is not converted with it
+    # SSB with the image gain not measured (equal gains assumed): nothing to doubt
+    assert reduce_noise_figure(_PART, _CAL, cold_k=296.0, specs=InstrumentSpecs(),
+                               sideband="ssb").flags == ()

@@ -234,3 +234,19 @@ def test_an_analyzer_configuration_it_has_sends_what_setting_by_setting_would() 
     both("configure", **{**SETTINGS, "centre_hz": 50e6})
     for _ in range(2):
         both("configure", **{**SETTINGS, "centre_hz": 50e6, "span_hz": math.nan})
+
+
+def test_forgetting_the_state_forgets_every_memo_so_everything_is_sent_and_checked_again(
+        ) -> None:
+    """A recovery or reset calls ``forget_state``: no memo of what was sent or checked before
+    it survives (the engine must not take anything from before a fault on trust)."""
+    sa, sent = _analyzer()
+    sa.configure(**SETTINGS)
+    assert sa.configure(**SETTINGS) == 0
+    assert sa._unchanged_memo is not None and sa._checked_memo
+    first = list(sent)
+    sa.forget_state()
+    assert sa._unchanged_memo is None and not sa._checked_memo and sa.state() == {}
+    sent.clear()
+    assert sa.configure(**SETTINGS) > 0
+    assert sent == first  # every setting sent again, as on the first configure
