@@ -175,7 +175,6 @@ class Runner:
         self.skipped = 0
         self.recoveries = 0
         self._temperature_c: float | None = None
-        self._supply_v: float | None = None
         self._supply_on = False
         self._noise: Any = None  # sweeprig.engine.noise_reading.NoiseReader, when needed
         #: offsets found by recent searches: (reference coefficients, offset Hz, resolution

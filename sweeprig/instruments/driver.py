@@ -901,16 +901,6 @@ class Driver:
             results.append(value)
         return results
 
-    def resume_after_clear(self) -> None:
-        """After a device clear (:mod:`sweeprig.transport.resync`): ``*CLS``, the profile's
-        ``prepare``, and every setting sent before it sent again (a device clear keeps the
-        settings by IEEE 488.2, but the commands cut short by it may not have run)."""
-        state = self.state()
-        self.clear()
-        self.forget_state()
-        self.prepare()
-        self.apply_state(state)
-
     def forget_state(self) -> None:
         """Empty the cache of last-sent settings (after a reset, reconnect or power cycle),
         and drop any held commands (they were not sent). The memo of values already checked
