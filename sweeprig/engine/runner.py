@@ -197,6 +197,8 @@ class Runner:
         #: committed, and those of them already read in this point's set-up (ids)
         self._unverified: list[tuple[str, Driver]] = []
         self._status_read: set[int] = set()
+        #: status queries posted beside the sources' messages, their replies not yet read
+        self._status_pending: list[tuple[Driver, Pending | None]] = []
         for _role, driver in drivers.items():
             driver.before_message = self._settle.wait
         self.soak_s = float(cond.soak)
@@ -238,6 +240,11 @@ class Runner:
         """Read what is still owed of the held point's event status (nothing when the next
         point's set-up carried it), check it, then commit the point (:meth:`_store_held`).
         Raises :class:`InstrumentReset` (power-on bit) or the instrument's errors."""
+        pending, self._status_pending = self._status_pending, []
+        failure = _finish_all(pending, Driver.finish_status)  # posted by _apply_sources
+        if failure is not None:
+            raise failure
+        self._status_read.update(id(d) for d, _ in pending)
         if self._held is None:
             return
         if self._unverified:
@@ -276,6 +283,10 @@ class Runner:
         (or is not checked); otherwise, with ``confirm``, read it once and commit the point
         if it is clean. Returns the held point when it was not committed (``then`` says, in
         its event, what becomes of it); None: nothing was held, or it was committed."""
+        pending, self._status_pending = self._status_pending, []
+        # read what is owed (a failure here may be the fault itself): only a clean read counts
+        if _finish_all(pending, Driver.finish_status) is None:
+            self._status_read.update(id(d) for d, _ in pending)
         if self._held is None:
             return None
         if not self._unverified:
@@ -812,6 +823,7 @@ class Runner:
         status_posted: list[tuple[Driver, Pending | None]] = []
         # the held point's status owed by these instruments (:meth:`_confirm_held`)
         owed = {id(d): d for _r, d in self._unverified if id(d) not in self._status_read}
+        led: list[int] = []  # the sources whose message began with that status read
         try:
             for role, freq_hz, power_dbm, connection in plan:
                 source = getattr(self.d, role)
@@ -833,20 +845,23 @@ class Runner:
                         first = source.joins_status and owed.pop(id(source), None) is not None
                         posted.append((source, source.post_sync(status_first=first)))
                         if first:
-                            self._status_read.add(id(source))
+                            led.append(id(source))
                 sent |= block
             # the rest of the held point's status, beside the sources' messages
             for driver in owed.values():
                 status_posted.append((driver, driver.post_status()))
-                self._status_read.add(id(driver))
         except BaseException:
             _finish_all(posted, Driver.finish_sync)  # read what is owed; the first error wins
             _finish_all(status_posted, Driver.finish_status)
             raise
         failure = _finish_all(posted, Driver.finish_sync)
-        failure = _finish_all(status_posted, Driver.finish_status) or failure
         if failure is not None:
+            _finish_all(status_posted, Driver.finish_status)
             raise failure
+        self._status_read.update(led)  # read: only now, with every reply in
+        # the status replies are read by _confirm_held, once the settling time has begun
+        # (it counts from the sources' replies alone)
+        self._status_pending = status_posted
         return sent
 
     def _tune(self, source: SourceDriver, connection: str, freq_hz: float,
