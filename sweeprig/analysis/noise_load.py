@@ -10,7 +10,9 @@ conversion is taken from the same point's ``wanted`` and ``image`` readings when
 reads both (image level − wanted level at the same RF power), else equal gains (+3.01 dB) with
 a ±0.5 dB term in the budget; how far that wanted reading stood above its recorded noise floor
 goes with it, so a ratio taken from a reading in the noise flags the SSB figure
-``image_ratio_doubtful``.
+``image_ratio_doubtful``. The same ratio weights the noise source's ENR at the two bands for
+the double-sideband figure; a doubtful ratio is not used there (equal gains, as when the
+image is not read), so it cannot pull the ENR wholly to one band's.
 """
 
 from __future__ import annotations
@@ -23,7 +25,7 @@ import pandas as pd
 
 from sweeprig.analysis.budget_parts import whole_budget
 from sweeprig.analysis.figures import Figure
-from sweeprig.analysis.noise_figure import HotCold, reduce_noise_figure
+from sweeprig.analysis.noise_figure import HotCold, image_ratio_doubtful, reduce_noise_figure
 from sweeprig.analysis.uncertainty import InstrumentSpecs
 
 #: Figure flags for the noise-figure causes (:data:`sweeprig.analysis.figures.FLAGS`).
@@ -83,7 +85,12 @@ def noise_figure_figures(points: pd.DataFrame, readings: pd.DataFrame, specs: In
                 and math.isfinite(float(image.iloc[0])):
             image_db = float(image.iloc[0]) - float(wanted.iloc[0])
             wanted_over_floor_db = _over_floor_db(wanted_rows.iloc[0])
-        r = 1.0 if image_db is None else 10.0 ** (image_db / 10.0)
+        # the bands' ENR weighted by their gains; a doubtful measured ratio is not used for
+        # that (it would pull the ENR wholly to one band's): equal gains, as when the image
+        # is not read (the SSB figure, which depends on the ratio itself, is flagged)
+        weighted = image_db is not None and not image_ratio_doubtful(image_db,
+                                                                    wanted_over_floor_db)
+        r = 10.0 ** (image_db / 10.0) if weighted and image_db is not None else 1.0
         enr_lin = (10.0 ** (n["enr_rf_db"] / 10.0) + r * 10.0 ** (n["enr_image_db"] / 10.0)) \
             / (1.0 + r)
         part = HotCold(n["hot_mw"], n["cold_mw"], n["jitter_rel"],

@@ -29,18 +29,23 @@ NOISE = {
 
 
 class _Sequence:
-    """The one study the loader asks about: its noise reading is single-sideband."""
+    """The one study the loader asks about: its noise reading is single-sideband (or
+    ``sideband``)."""
 
-    class _Study:
-        name = "noise-figure"
+    def __init__(self, sideband: str = "ssb") -> None:
+        class _Spec:
+            kind, name = "noise_figure", "noise_figure"
 
-        @staticmethod
-        def readings() -> list[object]:
-            class _Spec:
-                kind, name, sideband = "noise_figure", "noise_figure", "ssb"
-            return [_Spec()]
+        _Spec.sideband = sideband  # type: ignore[attr-defined]
 
-    study = (_Study(),)
+        class _Study:
+            name = "noise-figure"
+
+            @staticmethod
+            def readings() -> list[object]:
+                return [_Spec()]
+
+        self.study = (_Study(),)
 
 
 def _frames(wanted_dbm: float, floor_dbm: float, image_dbm: float = -13.0
@@ -59,9 +64,13 @@ def _frames(wanted_dbm: float, floor_dbm: float, image_dbm: float = -13.0
     return points, readings
 
 
-def _figures(wanted_dbm: float, floor_dbm: float, image_dbm: float = -13.0):
+def _figures(wanted_dbm: float, floor_dbm: float, image_dbm: float = -13.0,
+             sideband: str = "ssb", noise: dict[str, object] | None = None):
     points, readings = _frames(wanted_dbm, floor_dbm, image_dbm)
-    out = noise_figure_figures(points, readings, InstrumentSpecs(), _Sequence())
+    if noise is not None:
+        readings.loc[readings["kind"] == "noise_figure", "extra_json"] = \
+            json.dumps({"noise": noise})
+    out = noise_figure_figures(points, readings, InstrumentSpecs(), _Sequence(sideband))
     return {f.name: f for f in out}
 
 
@@ -90,3 +99,21 @@ def test_demo_like_readings_raise_no_image_flag() -> None:
 def test_an_image_ratio_above_10_db_is_flagged_whatever_the_floor() -> None:
     got = _figures(-30.0, -95.0, -13.0)  # image 17 dB above a clear wanted reading
     assert "image_ratio_doubtful" in got["noise_figure"].flags
+
+
+def test_a_doubtful_ratio_does_not_weight_the_dsb_figure_s_enr() -> None:
+    # The DSB figure weights the source's ENR at the two bands by their gains: ENR =
+    # (ENR_rf + r·ENR_image)/(1 + r). With the bands 1 dB apart, a +65.6 dB ratio from a
+    # wanted reading in the noise would take the image band's ENR alone; it is left out,
+    # and the figure is the equal-gains one, as when the image is not read.
+    apart = {**NOISE, "enr_image_db": 15.9}
+    doubtful = _figures(-78.6, -81.6, sideband="dsb", noise=apart)["noise_figure"]
+    points, readings = _frames(-12.8, -91.4)
+    readings = readings[readings["kind"] != "image"].copy()
+    readings.loc[readings["kind"] == "noise_figure", "extra_json"] = json.dumps({"noise": apart})
+    unread = {f.name: f for f in noise_figure_figures(points, readings, InstrumentSpecs(),
+                                                      _Sequence("dsb"))}["noise_figure"]
+    assert doubtful.value == unread.value
+    # a sound ratio still weights it: image 1 dB under the wanted output
+    sound = _figures(-12.0, -91.4, -13.0, sideband="dsb", noise=apart)["noise_figure"]
+    assert sound.value != unread.value
