@@ -21,8 +21,11 @@ Order of work for every point (the plan already put slow settings outermost):
    a chamber move or the end of the points comes first.
 
 The error queue of every instrument configured in a block is drained after the block, and
-every instrument's event status register is read before a point is committed: a power-on
-bit means the instrument reset itself during the point, so the point is measured again.
+every instrument's event status register is read before a point is committed (at the
+point's end where its last exchange carried it, and for the chamber; for the others, the
+sources and the supply, as the first unit of the next point's settings message or a bare
+``*ESR?`` beside it: :meth:`Runner._confirm_held`): a power-on bit means the instrument
+reset itself during the point, so the point is measured again.
 
 Faults (:class:`RecoveryPolicy`): a point that fails — timeout, dropped connection, garbled
 reply, instrument reset, error in the queue — is measured again from scratch after the bench
@@ -516,9 +519,11 @@ class Runner:
         return loss
 
     def _check_resets(self, checked: list[tuple[str, Driver]] | None = None) -> float | None:
-        """Raise :class:`InstrumentReset` if any instrument's power-on bit is set; on a
-        compound profile, also raise the errors its event status reports (read once per
-        point, or taken from the point's last query where that carried it). Returns the
+        """Raise :class:`InstrumentReset` if any instrument of ``checked`` has its power-on
+        bit set; on a compound profile, also raise the errors its event status reports (read
+        once per point, or taken from the point's last query where that carried it; at a
+        point's end the engine passes the chamber and the instruments whose last exchange
+        carried it, the others are read with the next point: :meth:`_confirm_held`). Returns the
         chamber's DUT probe temperature (°C; None without a chamber), read in the same
         message as the chamber's status.
 
