@@ -119,6 +119,26 @@ def test_a_source_reset_after_a_point_measures_that_point_again(tmp_path, commit
     assert sorted(i for w, i in order if w == "commit") == list(range(POINTS))
 
 
+def test_a_supply_reset_shown_by_the_bare_status_read_measures_the_point_again(
+        tmp_path, commits):
+    # the supply has no settings a point: its status goes as a bare *ESR? beside the
+    # sources' messages; it resets itself just before the one that confirms point 2
+    _, log, _ = _served_run(tmp_path / "clean", (), bus_log=True)
+    dc = [r for r in log if r.role == "dc"]
+    lo_3 = next(i for i, r in enumerate(log)
+                if r.role == "lo" and f"SOUR:FREQ:CW {1.7e9 + 3 * 0.25e9 - 100e6:.0f}" in r.sent)
+    count = sum(1 for r in log[:lo_3] if r.role == "dc") + 1  # the next dc message, from 1
+    assert dc[count - 1].sent == "*ESR?"
+    commits.clear()
+    fault = FaultSpec(role="dc", kind="reset", at_command=count)
+    status, _, hit = _served_run(tmp_path / "faulty", (fault,))
+    assert status == "complete" and hit == 1
+    order = [(what, index) for what, index, _ in commits]
+    assert ("event unconfirmed", 2) in order and ("event reset", 2) in order, order
+    assert order.index(("commit", 2)) > order.index(("event reset", 2))
+    assert sorted(i for w, i in order if w == "commit") == list(range(POINTS))
+
+
 def test_a_stop_while_the_next_point_is_set_up_still_stores_the_point_before(
         tmp_path, monkeypatch: pytest.MonkeyPatch):
     apply_sources = Runner._apply_sources
