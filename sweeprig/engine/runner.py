@@ -17,8 +17,9 @@ Order of work for every point (the plan already put slow settings outermost):
    aimed by the offsets found before (:meth:`Runner._aim`, :mod:`sweeprig.plan.search_window`);
 6. the point and all its readings are written in one transaction, once its status is
    read (below); the commit waits for the next point's settling time (step 4 of that
-   point), where it costs the bench nothing, or is made at once when a fault, a stop,
-   a chamber move or the end of the points comes first.
+   point), where it costs the bench nothing; a chamber move or the end of the points
+   reads the status and commits at once; a fault or a stop before the status was read
+   leaves the point to be measured again (by the recovery, or by ``sweeprig resume``).
 
 The error queue of every instrument configured in a block is drained after the block, and
 every instrument's event status register is read before a point is committed (at the
@@ -222,11 +223,11 @@ class Runner:
         except StoreError:
             self._held = None  # nothing more can be kept
             raise
-        except InstrumentError:  # the bench gave up: no more exchanges before the safe state
-            self._release_held(confirm=False, then="`sweeprig resume` measures it")
-            raise
-        except BaseException:  # a stop: the held point is kept if its status reads clean
-            self._release_held(confirm=True, then="`sweeprig resume` measures it")
+        except BaseException:
+            # the bench gave up, or a stop: no more exchanges before the safe state (a hung
+            # instrument would hold it back), so a point whose status is still owed is left
+            # to resume (it is held only from its end until the next point's sources answer)
+            self._release_held(then="`sweeprig resume` measures it")
             raise
         return self._stored
 
@@ -281,11 +282,11 @@ class Runner:
         if self.on_point is not None:
             self.on_point(result)
 
-    def _release_held(self, *, confirm: bool, then: str) -> Point | None:
-        """After a fault or a stop: commit the held point if its status was confirmed already
-        (or is not checked); otherwise, with ``confirm``, read it once and commit the point
-        if it is clean. Returns the held point when it was not committed (``then`` says, in
-        its event, what becomes of it); None: nothing was held, or it was committed."""
+    def _release_held(self, *, then: str) -> Point | None:
+        """After a fault or a stop: commit the held point if its status needs no reading
+        (``reset_check`` off); otherwise drop it. Returns the held point when it was not
+        committed (``then`` says, in its event, what becomes of it); None: nothing was
+        held, or it was committed."""
         pending, self._status_pending = self._status_pending, []
         # read what is owed (a failure here may be the fault itself): only a clean read counts
         if _finish_all(pending, Driver.finish_status) is None:
@@ -295,12 +296,6 @@ class Runner:
         if not self._unverified:
             self._store_held()
             return None
-        if confirm:
-            try:
-                self._confirm_held()
-                return None
-            except InstrumentError:
-                pass
         point = self._held[3].point
         self._held, self._unverified, self._status_read = None, [], set()
         self._event("warning", "unconfirmed", f"point {point.index} is not stored: its "
@@ -369,7 +364,7 @@ class Runner:
                 kind, error = "link", exc
             except InstrumentError as exc:
                 kind, error = "error", exc
-            redo = self._release_held(confirm=False, then="it is measured again") or redo
+            redo = self._release_held(then="it is measured again") or redo
             failed = redo if redo is not None else point
             assert failed is not None  # with no point, only a held point's read can fail
             first_line = error.message().splitlines()[0]

@@ -7,7 +7,8 @@ chamber move or the end of the points:
   the last point is committed after the last sweep;
 * a fault in point N+1 after point N's status was read leaves N stored; a reset that the
   status read shows measures N again before N+1;
-* a stop while point N+1 is being set up still stores point N;
+* a stop after point N+1's sources answered keeps point N; one before it leaves N to
+  ``sweeprig resume`` (no exchange goes out between a stop and the safe state);
 * the points of one temperature are stored before the chamber moves to the next.
 """
 
@@ -139,8 +140,10 @@ def test_a_supply_reset_shown_by_the_bare_status_read_measures_the_point_again(
     assert sorted(i for w, i in order if w == "commit") == list(range(POINTS))
 
 
-def test_a_stop_while_the_next_point_is_set_up_still_stores_the_point_before(
+def test_a_stop_before_the_next_point_s_sources_answered_leaves_the_point_to_resume(
         tmp_path, monkeypatch: pytest.MonkeyPatch):
+    # no exchange goes out between a stop and the safe state (a hung instrument would hold it
+    # back), so the held point whose status is still owed is not stored: resume measures it
     apply_sources = Runner._apply_sources
 
     def interrupted(self: Runner, point):  # type: ignore[no-untyped-def]
@@ -149,6 +152,27 @@ def test_a_stop_while_the_next_point_is_set_up_still_stores_the_point_before(
         return apply_sources(self, point)
 
     monkeypatch.setattr(Runner, "_apply_sources", interrupted)
+    outcome = run_sequence(BUDGET, sim=True, store_path=tmp_path / "s.sqlite")
+    assert outcome.status == "aborted"
+    with SqliteRunStore(tmp_path / "s.sqlite", create=False) as db:
+        assert sorted(db.points_frame(outcome.run_id)["point_index"]) == [0, 1]
+        events = db.events(outcome.run_id)
+    assert any(e.kind == "unconfirmed" and e.point_index == 2 and "resume" in e.message
+               for e in events), events
+
+
+def test_a_stop_after_the_next_point_s_sources_answered_keeps_the_point(
+        tmp_path, monkeypatch: pytest.MonkeyPatch):
+    # the common case: a stop during the settling time or the sweep comes after the point
+    # before was confirmed and committed
+    read = Runner._read
+
+    def interrupted(self: Runner, point, reading):  # type: ignore[no-untyped-def]
+        if point.index == 3:
+            raise KeyboardInterrupt
+        return read(self, point, reading)
+
+    monkeypatch.setattr(Runner, "_read", interrupted)
     outcome = run_sequence(BUDGET, sim=True, store_path=tmp_path / "s.sqlite")
     assert outcome.status == "aborted"
     with SqliteRunStore(tmp_path / "s.sqlite", create=False) as db:
