@@ -287,10 +287,9 @@ class Runner:
         (``reset_check`` off); otherwise drop it. Returns the held point when it was not
         committed (``then`` says, in its event, what becomes of it); None: nothing was
         held, or it was committed."""
-        pending, self._status_pending = self._status_pending, []
-        # read what is owed (a failure here may be the fault itself): only a clean read counts
-        if _finish_all(pending, Driver.finish_status) is None:
-            self._status_read.update(id(d) for d, _ in pending)
+        # status replies posted and not read are not waited for: the transport reads and
+        # logs them as discarded before anything else goes to that instrument
+        self._status_pending = []
         if self._held is None:
             return None
         if not self._unverified:
