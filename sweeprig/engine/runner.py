@@ -259,12 +259,7 @@ class Runner:
                 raise failure
             for role, driver in self._unverified:
                 if driver.taken_status() & PON_BIT:
-                    raise InstrumentReset(
-                        f"role {role!r} reset itself during point {self._held[3].point.index} "
-                        "(power-on bit set)",
-                        where=driver.where(),
-                        fix="check the instrument's power; the point is measured again",
-                    )
+                    raise _reset(role, driver, f"point {self._held[3].point.index}")
                 driver.expire_status()  # what is read next tells of the next point
             self._unverified, self._status_read = [], set()
         self._store_held()
@@ -549,11 +544,7 @@ class Runner:
             raise failure
         for role, driver in checked:
             if driver.point_status() & PON_BIT:
-                raise InstrumentReset(
-                    f"role {role!r} reset itself during the point (power-on bit set)",
-                    where=driver.where(),
-                    fix="check the instrument's power; the point is measured again",
-                )
+                raise _reset(role, driver, "the point")
         if chamber is not None and probe_c is None:
             probe_c = chamber.probe_temperature_c()
         return probe_c
@@ -594,9 +585,12 @@ class Runner:
             # (its probe reading belongs to the point); the others' status is read with the
             # next point's set-up, before this point is committed (:meth:`_confirm_held`)
             chamber = self.d.chamber
-            now = [(r, d) for r, d in checked if d is chamber or d.status_fresh]
+            now: list[tuple[str, Driver]] = []
+            unverified = []
+            for role, driver in checked:
+                fresh = driver is chamber or driver.status_fresh
+                (now if fresh else unverified).append((role, driver))
             probe_c = self._check_resets(now)
-            unverified = [(r, d) for r, d in checked if not (d is chamber or d.status_fresh)]
         else:
             unverified = []
             probe_c = (self.d.chamber.probe_temperature_c() if self.d.chamber is not None
@@ -1418,6 +1412,15 @@ class SettleWait:
         if self._wall:
             seconds -= time.monotonic() - self._started
         self.clock.sleep(seconds)
+
+
+def _reset(role: str, driver: Driver, during: str) -> InstrumentReset:
+    """The fault of an instrument whose power-on bit was read set after ``during``."""
+    return InstrumentReset(
+        f"role {role!r} reset itself during {during} (power-on bit set)",
+        where=driver.where(),
+        fix="check the instrument's power; the point is measured again",
+    )
 
 
 def _finish_all(posted: list[tuple[Driver, Pending | None]],

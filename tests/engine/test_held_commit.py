@@ -49,16 +49,30 @@ def commits(monkeypatch: pytest.MonkeyPatch) -> list[tuple[str, int, datetime]]:
     return seen
 
 
-def test_a_point_is_committed_while_the_next_one_settles(tmp_path, commits):
-    with start_sim_bench(clock=VirtualClock()) as sim:
-        resources = {r: v for r, v in sim.resources.items() if r != "simctl"}  # wall clock
+def _served_run(tmp_path: Path, faults: tuple[FaultSpec, ...], *, bus_log: bool = False,
+                wall_clock: bool = False) -> tuple[str, list, int]:
+    """``BUDGET`` on a served simulated bench with ``faults``: (status, bus log, faults hit).
+    ``wall_clock``: the bench file leaves out the simulator's control instrument, so the run
+    keeps the wall clock (settling is waited out for real)."""
+    tmp_path.mkdir(exist_ok=True)
+    description = resolve_description(None).model_copy(update={"faults": faults})
+    with start_sim_bench(description, clock=VirtualClock()) as sim:
+        resources = {r: v for r, v in sim.resources.items()
+                     if not (wall_clock and r == "simctl")}
         bench = tmp_path / "bench.toml"
         bench.write_text(served_bench_text(resources), encoding="utf-8")
-        outcome = run_sequence(BUDGET, bench, store_path=tmp_path / "s.sqlite", bus_log=True)
-    assert outcome.status == "complete", outcome.reason
-    with SqliteRunStore(tmp_path / "s.sqlite", create=False) as db:
-        log = db.bus_log(outcome.run_id)
-        assert sorted(db.points_frame(outcome.run_id)["point_index"]) == list(range(POINTS))
+        outcome = run_sequence(BUDGET, bench, store_path=tmp_path / "s.sqlite", bus_log=bus_log)
+        hit = len(sim.faults.log.events())
+    log = []
+    if bus_log:
+        with SqliteRunStore(tmp_path / "s.sqlite", create=False) as db:
+            log = db.bus_log(outcome.run_id)
+    return outcome.status, log, hit
+
+
+def test_a_point_is_committed_while_the_next_one_settles(tmp_path, commits):
+    status, log, _ = _served_run(tmp_path, (), bus_log=True, wall_clock=True)
+    assert status == "complete"
     committed = {index: at for what, index, at in commits if what == "commit"}
     assert sorted(committed) == list(range(POINTS))
     sweeps = [i for i, r in enumerate(log) if r.role == "sa" and "INIT:IMM" in r.sent]
@@ -69,23 +83,6 @@ def test_a_point_is_committed_while_the_next_one_settles(tmp_path, commits):
         answered = max(r.time + timedelta(seconds=r.duration_s) for r in syncs)
         assert answered - slack <= committed[point - 1] <= log[i].time + slack, point
     assert committed[POINTS - 1] >= log[sweeps[-1]].time
-
-
-def _served_run(tmp_path: Path, faults: tuple[FaultSpec, ...], *, bus_log: bool = False
-                ) -> tuple[str, list, int]:
-    """``BUDGET`` on a served simulated bench with ``faults``: (status, bus log, faults hit)."""
-    tmp_path.mkdir(exist_ok=True)
-    description = resolve_description(None).model_copy(update={"faults": faults})
-    with start_sim_bench(description, clock=VirtualClock()) as sim:
-        bench = tmp_path / "bench.toml"
-        bench.write_text(served_bench_text(sim.resources), encoding="utf-8")
-        outcome = run_sequence(BUDGET, bench, store_path=tmp_path / "s.sqlite", bus_log=bus_log)
-        hit = len(sim.faults.log.events())
-    log = []
-    if bus_log:
-        with SqliteRunStore(tmp_path / "s.sqlite", create=False) as db:
-            log = db.bus_log(outcome.run_id)
-    return outcome.status, log, hit
 
 
 def test_a_fault_after_the_point_before_was_confirmed_leaves_that_point_stored(
@@ -140,43 +137,33 @@ def test_a_supply_reset_shown_by_the_bare_status_read_measures_the_point_again(
     assert sorted(i for w, i in order if w == "commit") == list(range(POINTS))
 
 
-def test_a_stop_before_the_next_point_s_sources_answered_leaves_the_point_to_resume(
-        tmp_path, monkeypatch: pytest.MonkeyPatch):
-    # no exchange goes out between a stop and the safe state (a hung instrument would hold it
-    # back), so the held point whose status is still owed is not stored: resume measures it
-    apply_sources = Runner._apply_sources
+@pytest.mark.parametrize(("where", "stored"), [
+    # before point 3's sources answered: point 2's status is still owed, and nothing goes to
+    # the instruments between a stop and the safe state (a hung one would hold it back), so
+    # point 2 is left to resume
+    ("_apply_sources", [0, 1]),
+    # the common case: during the settling time or the sweep, point 2 was confirmed and
+    # committed already
+    ("_read", [0, 1, 2]),
+])
+def test_a_stop_keeps_the_point_before_only_once_its_status_was_read(
+        tmp_path, monkeypatch: pytest.MonkeyPatch, where: str, stored: list[int]):
+    original = getattr(Runner, where)
 
-    def interrupted(self: Runner, point):  # type: ignore[no-untyped-def]
+    def interrupted(self: Runner, point, *rest):  # type: ignore[no-untyped-def]
         if point.index == 3:
             raise KeyboardInterrupt
-        return apply_sources(self, point)
+        return original(self, point, *rest)
 
-    monkeypatch.setattr(Runner, "_apply_sources", interrupted)
+    monkeypatch.setattr(Runner, where, interrupted)
     outcome = run_sequence(BUDGET, sim=True, store_path=tmp_path / "s.sqlite")
     assert outcome.status == "aborted"
     with SqliteRunStore(tmp_path / "s.sqlite", create=False) as db:
-        assert sorted(db.points_frame(outcome.run_id)["point_index"]) == [0, 1]
+        assert sorted(db.points_frame(outcome.run_id)["point_index"]) == stored
         events = db.events(outcome.run_id)
-    assert any(e.kind == "unconfirmed" and e.point_index == 2 and "resume" in e.message
-               for e in events), events
-
-
-def test_a_stop_after_the_next_point_s_sources_answered_keeps_the_point(
-        tmp_path, monkeypatch: pytest.MonkeyPatch):
-    # the common case: a stop during the settling time or the sweep comes after the point
-    # before was confirmed and committed
-    read = Runner._read
-
-    def interrupted(self: Runner, point, reading):  # type: ignore[no-untyped-def]
-        if point.index == 3:
-            raise KeyboardInterrupt
-        return read(self, point, reading)
-
-    monkeypatch.setattr(Runner, "_read", interrupted)
-    outcome = run_sequence(BUDGET, sim=True, store_path=tmp_path / "s.sqlite")
-    assert outcome.status == "aborted"
-    with SqliteRunStore(tmp_path / "s.sqlite", create=False) as db:
-        assert sorted(db.points_frame(outcome.run_id)["point_index"]) == [0, 1, 2]
+    left = [e for e in events if e.kind == "unconfirmed"]
+    assert [e.point_index for e in left] == ([] if 2 in stored else [2]), events
+    assert all("resume" in e.message for e in left)
 
 
 def test_a_temperature_s_points_are_stored_before_the_chamber_moves(
