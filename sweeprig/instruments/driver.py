@@ -53,6 +53,14 @@ CHECKED_KEPT = 8
 """Values remembered per setting as checked and rendered (:meth:`Driver._checked_token`)."""
 
 _BLOCK_SHOWN = 12
+
+
+def _commands_text(sent: list[str], count: int) -> str:
+    """The last :data:`_BLOCK_SHOWN` of ``sent`` (``count`` commands in all) for an error
+    message, the number left out before them."""
+    shown = sent[-_BLOCK_SHOWN:]
+    prefix = f"({count - len(shown)} earlier) ... " if count > len(shown) else ""
+    return prefix + "; ".join(shown) if shown else "(none since the last check)"
 _BLOCK_KEPT = 64
 
 ESR_ERROR_BITS = 0x3C
@@ -119,6 +127,11 @@ class Driver:
             str, tuple[OpLimits | None, dict[tuple[type, object], tuple[Value, str]]]] = {}
         self._block: deque[str] = deque(maxlen=_BLOCK_KEPT)
         self._block_count = 0
+        #: Commands of the block sent before a leading ``*ESR?`` (:meth:`post_sync`): while
+        #: its reply is owed, the mark; once it showed error bits, kept for the message
+        #: (those commands caused them; the ones after ran after the read). None: no mark.
+        self._lead_mark: int | None = None
+        self._errors_before: int | None = None
         self._block_ops: set[str] = set()
         #: commands held to be joined with the next message (compound profiles, inside
         #: :meth:`joined` only)
@@ -605,6 +618,7 @@ class Driver:
         self._block.clear()
         self._block_count = 0
         self._block_ops.clear()
+        self._lead_mark = self._errors_before = None
 
     reference: str | None = None
     """The 10 MHz reference the bench's ``[timebase]`` asks for (``internal`` or
@@ -676,9 +690,11 @@ class Driver:
         self._block.clear()
         self._block_count = 0
         self._block_ops.clear()
+        self._lead_mark = self._errors_before = None
         return sent, ops, count
 
     def _raise_queued_errors(self) -> None:
+        before = self._errors_before
         sent, ops, count = self._end_block()
         self._errors_flagged = False
         found = self.errors()
@@ -686,12 +702,16 @@ class Driver:
             return
         for op in ops:
             self._cache.pop(op, None)
-        shown = sent[-_BLOCK_SHOWN:]
-        prefix = f"({count - len(shown)} earlier) ... " if count > len(shown) else ""
-        commands = prefix + "; ".join(shown) if shown else "(none since the last check)"
+        later = ""
+        if before is not None:  # a leading *ESR? showed the error: the commands after it
+            cut = max(before - (count - len(sent)), 0)  # (the block keeps the last ones)
+            sent, after = sent[:cut], sent[cut:]
+            later = ("; its status showed the error before these later commands ran: "
+                     + _commands_text(after, len(after)))
+            count = before
         texts = "; ".join(str(e) for e in found)
         raise InstrumentError(
-            f"the instrument reported {texts} after: {commands}",
+            f"the instrument reported {texts} after: {_commands_text(sent, count)}{later}",
             where=self.where(),
             fix="check these settings against the instrument's ranges and the profile's "
             "commands against its manual",
@@ -782,6 +802,7 @@ class Driver:
             self.check_errors()
             return None
         if status_first and self.profile.has("event_status"):
+            self._lead_mark = self._block_count - len(self._held)  # (held: in the block)
             self._held.insert(0, self.profile.op("event_status").queries[0])
             self._status_first = True
         opc = self.profile.op("operation_complete")
@@ -809,6 +830,8 @@ class Driver:
                     "compound_messages = false in its driver profile",
                 )
             self._take_status(parts[0], status_cmd)
+            if self._errors_flagged and self._errors_before is None:
+                self._errors_before = self._lead_mark
             self._status_fresh = False  # the settings ran after that read
             reply = parts[1]
         self._check_complete(reply, opc)

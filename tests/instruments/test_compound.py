@@ -198,3 +198,38 @@ def test_a_plain_query_can_be_posted_behind_the_status_and_both_replies_are_take
     assert chamber.finish_ask("probe", probe) == pytest.approx(24.5)
     assert chamber.point_status() == 128  # taken from the posted read: nothing more sent
     assert link.sent == ["*ESR?", "THER:PROB?"]
+
+
+def test_an_error_shown_by_a_leading_status_read_is_laid_on_the_commands_before_it():
+    """A point's error found by the ``*ESR?`` that leads the next point's settings: the
+    message names the commands sent before that read as the cause, and the settings sent
+    after it apart (they ran after the read; an error of theirs would be listed too)."""
+    src, _, device = _source()
+    with src.joined():
+        src.set_frequency(5.9e9)
+        src.finish_sync(src.post_sync())
+    device.esr = 16  # the point's setting failed (IEEE 488.2 ESR bit 4: execution error)
+    device.errors = ['-222,"Data out of range"']
+    with src.joined():
+        src.set_frequency(2.4e9)  # the next point's
+        src.set_power(-12.0)
+        pending = src.post_sync(status_first=True)
+    assert pending is not None
+    assert pending.message == "*ESR?;:SOUR:FREQ:CW 2400000000;:SOUR:POW:LEV:IMM:AMPL -12;*OPC?"
+    src.finish_sync(pending)
+    with pytest.raises(InstrumentError) as raised:
+        src.taken_status()
+    text = str(raised.value)
+    cause, _, later = text.partition("SOUR:FREQ:CW 2400000000")
+    assert "-222" in cause and "SOUR:FREQ:CW 5900000000" in cause
+    assert "before these later commands ran" in cause
+    assert "AMPL -12" in later and "5900000000" not in later
+    assert "frequency" not in src.state() and "power" not in src.state()  # sent again
+    # the next error check names only what came after it
+    device.esr = 16
+    device.errors = ['-221,"Settings conflict"']
+    with pytest.raises(InstrumentError) as raised, src.joined():
+        src.set_power(-11.0)
+        src.check_errors()
+    assert "before these later commands" not in str(raised.value)
+    assert "5900000000" not in str(raised.value)
