@@ -16,9 +16,10 @@ given (for a run, ``run.figures``), so a row leads back to its Figure.
 
 from __future__ import annotations
 
+import math
 from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass
-from operator import itemgetter
+from operator import itemgetter, methodcaller
 from typing import TYPE_CHECKING
 
 import numpy as np
@@ -196,3 +197,14 @@ def condition_mappings(figures: Iterable[Figure]) -> list[Mapping[str, object]]:
     appearance: what a question about the set of condition values needs to read (the
     figures of one point share one mapping)."""
     return list({id(f.conditions): f.conditions for f in figures}.values())
+
+
+def condition_numbers(mappings: Iterable[Mapping[str, object]], key: str, *,
+                      finite: bool = True) -> list[float]:
+    """The distinct numeric values of ``key`` in ``mappings``, ascending, as floats (a
+    value that is not an int or a float left out; NaN and ±inf too when ``finite``). Each
+    mapping is read once in C; the few distinct values are then judged one by one."""
+    out = {float(v) for v in set(map(methodcaller("get", key), mappings))
+           if isinstance(v, int | float) and (not finite or math.isfinite(float(v)))}
+    return sorted(out)
+

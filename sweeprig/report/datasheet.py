@@ -165,15 +165,13 @@ def corner_figures(name: str, figures: Sequence[Figure]) -> list[Figure]:
 def nominal(figures: Sequence[Figure]) -> list[Figure]:
     """The figures at the nominal corner: temperature nearest :data:`ROOM_C`, the middle
     supply and the middle LO drive of those present (lower middle of an even count)."""
-    from sweeprig.analysis.figure_table import condition_mappings
+    from sweeprig.analysis.figure_table import condition_mappings, condition_numbers
 
     chosen = list(figures)
     for key in ("temperature_c", "supply_v", "lo_power_dbm"):
         # decided once per distinct conditions mapping (the figures of a point share one)
         mappings = condition_mappings(chosen)
-        values = sorted({float(v) for c in mappings
-                         if isinstance(v := c.get(key), int | float)
-                         and math.isfinite(float(v))})
+        values = condition_numbers(mappings, key)
         if not values:
             continue
         pick = (min(values, key=lambda t: (abs(t - ROOM_C), t)) if key == "temperature_c"
@@ -227,15 +225,13 @@ def corners_text(figures: Sequence[Figure], conversion: str = "down") -> str:
     (``−40…85 °C, 3.3 V, RF 1.7–2.7 GHz, IF 100 MHz, LO 0 dBm``), in the words of the part's
     ``conversion`` (an upconverter's input is its IF, its output its RF); the LO frequency is
     left out when it follows a swept input or output frequency."""
-    from sweeprig.analysis.figure_table import condition_mappings
+    from sweeprig.analysis.figure_table import condition_mappings, condition_numbers
 
     parts: list[str] = []
     swept_signal = False
     mappings = condition_mappings(figures)
     for key in CORNER_KEYS:
-        values = sorted({float(v) for c in mappings
-                         if isinstance(v := c.get(key), int | float)
-                         and math.isfinite(float(v))})
+        values = condition_numbers(mappings, key)
         if not values:
             continue
         if key == "lo_freq_hz" and len(values) > 1 and swept_signal:

@@ -420,15 +420,14 @@ def flag_tally(figures: Iterable[Figure]) -> dict[str, int]:
 
 def _spread_text(members: list[Figure], by: tuple[str, ...], conversion: str = "down") -> str:
     """The conditions that vary inside a group, as ranges: ``RF 1.7 GHz–2.7 GHz``."""
-    from sweeprig.analysis.figure_table import condition_mappings
+    from sweeprig.analysis.figure_table import condition_mappings, condition_numbers
 
     parts = []
     mappings = condition_mappings(members)
     keys = [k for k in ("temperature_c", "supply_v") if k not in by]
     for key in (*keys, "rf_freq_hz", "output_freq_hz", "lo_freq_hz", "lo_power_dbm",
                 "rf_power_dbm"):
-        values = sorted({float(c[key]) for c in mappings
-                         if isinstance(c.get(key), int | float)})
+        values = condition_numbers(mappings, key, finite=False)
         if len(values) > 1:
             if key == "lo_freq_hz" and any("rf_freq_hz" in p for p in parts):
                 continue

@@ -126,3 +126,24 @@ def test_condition_columns_read_per_key_order_are_those_read_key_by_key() -> Non
     _same_arrays(condition_arrays([]), condition_arrays_by_key([]))
     _same_arrays(condition_arrays([{}]), condition_arrays_by_key([{}]))
 
+
+
+def test_condition_numbers_are_the_distinct_numbers_of_a_key_ascending() -> None:
+    from types import MappingProxyType
+
+    from sweeprig.analysis.figure_table import condition_numbers
+
+    mappings = [MappingProxyType(m) for m in (
+        {"rf_freq_hz": 2.4e9, "study": "gain"}, {"rf_freq_hz": 1.9e9}, {"rf_freq_hz": 2.4e9},
+        {"rf_freq_hz": 2}, {"rf_freq_hz": "2.1 GHz"}, {"rf_freq_hz": math.nan},
+        {"rf_freq_hz": math.inf}, {"study": "band"}, {"rf_freq_hz": None})]
+    # the same as judging every mapping one by one
+    by_hand = sorted({float(v) for c in mappings if isinstance(v := c.get("rf_freq_hz"),
+                                                             int | float)
+                      and math.isfinite(float(v))})
+    assert condition_numbers(mappings, "rf_freq_hz") == by_hand == [2.0, 1.9e9, 2.4e9]
+    every = condition_numbers(mappings, "rf_freq_hz", finite=False)  # (NaN sorts nowhere)
+    assert [v for v in every if not math.isnan(v)] == [2.0, 1.9e9, 2.4e9, math.inf]
+    assert len(every) == 5 and sum(map(math.isnan, every)) == 1
+    assert condition_numbers(mappings, "study") == []
+    assert condition_numbers([], "rf_freq_hz") == []
