@@ -208,10 +208,17 @@ def format_value(value: float, unit: str, digits: int = 2) -> str:
 def figure_text(figure: Figure, digits: int = 2) -> str:
     """The figure as a datasheet writes it: ``"12.35 dBm"``, ``"> 5.00 dBm"``, ``"n/a"``;
     with its expanded uncertainty when it has one: ``"12.49 ± 0.18 dB (k = 2)"``."""
-    body = format_value(figure.value, figure.unit, digits)
-    if figure.is_number and math.isfinite(figure.uncertainty_db):
-        return uncertainty_text(figure.value, figure.unit, figure.uncertainty_db, digits)
-    return f"{figure.bound} {body}" if figure.bound and body != "n/a" else body
+    return value_text(figure.value, figure.unit, figure.bound, figure.uncertainty_db, digits)
+
+
+def value_text(value: float, unit: str, bound: str | None, uncertainty_db: float,
+               digits: int = 2) -> str:
+    """:func:`figure_text` of a figure given by its fields (``bound``: "<", ">", or None or
+    "" for a number; ``uncertainty_db``: expanded, NaN without one)."""
+    if not bound and math.isfinite(value) and math.isfinite(uncertainty_db):
+        return uncertainty_text(value, unit, uncertainty_db, digits)
+    body = format_value(value, unit, digits)
+    return f"{bound} {body}" if bound and body != "n/a" else body
 
 
 def format_condition(key: str, value: object, conversion: str = "down") -> str:
@@ -508,16 +515,17 @@ class _Stream:
         self.encoded = encoded
 
 
-def _texts3(figures: Sequence[Figure], table: Mapping[str, np.ndarray]) -> np.ndarray:
-    """``figure_text(f, 3)`` of every figure, its common case (a number with its
-    uncertainty) spelled out from the table's columns (``table``:
-    :func:`~sweeprig.analysis.figure_table.figure_columns` of ``figures``)."""
-    values, us, units = table["value"], table["uncertainty_db"], table["unit"]
-    common = (table["bound"] == "") & np.isfinite(values) & np.isfinite(us)
+def _texts3(table: Mapping[str, np.ndarray]) -> np.ndarray:
+    """``figure_text(f, 3)`` of every figure of a figure table's columns (``table``:
+    :func:`~sweeprig.analysis.figure_table.base_columns`), its common case (a number with
+    its uncertainty) spelled out here, the others by :func:`value_text`."""
+    values, us, units, bounds = (table["value"], table["uncertainty_db"], table["unit"],
+                                 table["bound"])
+    common = (bounds == "") & np.isfinite(values) & np.isfinite(us)
     k = f"{COVERAGE_FACTOR:g}"
-    return np.array([f"{v:.3f} ± {u:.3f} {unit} (k = {k})" if ok else figure_text(f, 3)
-                     for v, u, unit, ok, f in zip(values.tolist(), us.tolist(),
-                                                  units.tolist(), common.tolist(), figures,
+    return np.array([f"{v:.3f} ± {u:.3f} {unit} (k = {k})" if ok else value_text(v, unit, b, u, 3)
+                     for v, u, unit, b, ok in zip(values.tolist(), us.tolist(), units.tolist(),
+                                                  bounds.tolist(), common.tolist(),
                                                   strict=True)], dtype=object)
 
 
@@ -898,7 +906,7 @@ def _figure_rows(run: RunFigures, budgets: FigureBudgets, first: int, stop: int,
         "unit": table["unit"],
         "bound": table["bound"],
         "uncertainty_db": table["uncertainty_db"],
-        "text": _texts3(figures, table),
+        "text": _texts3(table),
         "verdict": np.array([verdicts.get(id(f), "") for f in figures], dtype=object),
         "flags": np.array([flag_texts[m] for m in masks], dtype=object),
         "points": _points_texts(table["points"].tolist()),
