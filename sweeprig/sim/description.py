@@ -42,6 +42,9 @@ optional; the values shown are the defaults)::
     [sources.lowpass]            # optional low-pass filter at a source output (none by default)
     # rf = { corner = "3 GHz", order = 7 }   # Butterworth, -3 dB at corner; also rf2, lo
 
+    [sources.notch]              # optional band-stop in a source's path: a planted fault
+    # rf = { center = "2.2 GHz", width = "20 MHz", depth = "110 dB" }   # also rf2, lo
+
     [analyzer]
     noise_figure = "14 dB"       # at 0 dB attenuation
     toi = "15 dBm"               # first-mixer third-order intercept
@@ -98,7 +101,9 @@ optional; the values shown are the defaults)::
 
 Realism (each key above has a realistic default; docs/sim-bench.md explains them):
 ``[sources] spurious`` (non-harmonic lines at carrier + offset, dBc) and
-``[sources.lowpass]`` (a Butterworth low-pass per source: ``corner``, ``order``);
+``[sources.lowpass]`` (a Butterworth low-pass per source: ``corner``, ``order``) and
+``[sources.notch]`` (a flat band-stop per source path, a planted fault: ``center``,
+``width``, ``depth``);
 ``[analyzer] phase_noise`` ((offset, dBc/Hz) points: reciprocal mixing) and
 ``coherent_products`` (its first-mixer products add to lines as voltages with a seeded
 phase); ``[dut] leakage_phase`` and ``leakage_delay`` (each leakage path of the part turns
@@ -253,6 +258,23 @@ class SourceFiltersSpec(Frozen):
     lo: LowPassSpec | None = None
 
 
+class NotchSpec(Frozen):
+    """A band-stop in a source's output path (a planted fault): ``depth`` of loss over
+    ``center`` ± ``width``/2, none outside."""
+
+    center: Annotated[Frequency, Field(gt=0.0)]
+    width: Annotated[Frequency, Field(gt=0.0)]
+    depth: Annotated[LevelDb, Field(gt=0.0)]
+
+
+class SourceNotchesSpec(Frozen):
+    """An optional band-stop per source path (absent: none)."""
+
+    rf: NotchSpec | None = None
+    rf2: NotchSpec | None = None
+    lo: NotchSpec | None = None
+
+
 #: Every simulated source's non-harmonic spurs unless the description says otherwise:
 #: −72 dBc at ±10 MHz from the carrier (reference-related spurs; an assumption, invented
 #: figures in the range signal sources state).
@@ -273,6 +295,8 @@ class SourcesSpec(Frozen):
     harmonics: tuple[LevelDb, ...] = (-35.0, -45.0)
     spurious: tuple[SpurSpec, ...] = DEFAULT_SPURIOUS
     lowpass: SourceFiltersSpec = SourceFiltersSpec()
+    #: Band-stops planted in their output paths (none by default).
+    notch: SourceNotchesSpec = SourceNotchesSpec()
     #: Their command set: "tarnwick" (TW-SG6) or "farrowmere" (FR-SG8: settings applied late
     #: unless synchronised, on its own crystal unless the bench locks it; docs/instruments.md).
     family: Literal["tarnwick", "farrowmere"] = "tarnwick"
@@ -513,7 +537,13 @@ class SimBenchDescription(Frozen):
         return faults
 
     def world_config(self) -> WorldConfig:
-        from sweeprig.sim.world import Cabling, DeadMixer, LowPassFilter, WorldConfig
+        from sweeprig.sim.world import (
+            Cabling,
+            DeadMixer,
+            LowPassFilter,
+            NotchFilter,
+            WorldConfig,
+        )
 
         c, u = self.cables, self.dut.unpowered
 
@@ -540,6 +570,11 @@ class SimBenchDescription(Frozen):
                 (role, LowPassFilter(spec.corner, spec.order))
                 for role in ("rf", "rf2", "lo")
                 if (spec := getattr(self.sources.lowpass, role)) is not None
+            ),
+            source_notches=tuple(
+                (role, NotchFilter(spec.center, spec.width, spec.depth))
+                for role in ("rf", "rf2", "lo")
+                if (spec := getattr(self.sources.notch, role)) is not None
             ),
             spur_phase_seed=self.seed,
             noise_source=self._noise_source_model(),

@@ -144,6 +144,22 @@ class LowPassFilter:
 
 
 @dataclass(frozen=True)
+class NotchFilter:
+    """A band-stop left in a source's output path (a planted fault: a filter from another
+    set-up, a connector that resonates): ``depth_db`` of loss over ``center_hz`` ±
+    ``width_hz``/2, none outside. An idealised flat stop band (no source): it buries one
+    frequency's tone while its neighbours pass, which no cable's smooth loss can do."""
+
+    center_hz: float
+    width_hz: float
+    depth_db: float
+
+    def at(self, freq_hz: float) -> float:
+        """Rejection at ``freq_hz``, dB (positive)."""
+        return self.depth_db if abs(freq_hz - self.center_hz) <= 0.5 * self.width_hz else 0.0
+
+
+@dataclass(frozen=True)
 class Cabling:
     """Losses of every connection of the simulated bench.
 
@@ -183,6 +199,8 @@ class WorldConfig:
     ambient_c: float = AMBIENT_C
     temperature_resolution_c: float = 0.01
     source_filters: tuple[tuple[str, LowPassFilter], ...] = ()
+    #: Band-stops in the sources' output paths (planted faults): (role, filter).
+    source_notches: tuple[tuple[str, NotchFilter], ...] = ()
     spur_phase_seed: int = 0
     spur_delay_s: float = 2e-9
     #: The noise source at the DUT RF input plane (None: none on this bench; the DUT input
@@ -736,14 +754,16 @@ class SimWorld:
         return float(current_at(OperatingPoint(temperature_c=used, supply_v=volts)))
 
     # --- helpers --------------------------------------------------------------------------
-    def _path(self, role: str) -> tuple[CableLoss | LowPassFilter, ...]:
-        """Everything between a source and its DUT port: its filter, cable (and combiner)."""
+    def _path(self, role: str) -> tuple[CableLoss | LowPassFilter | NotchFilter, ...]:
+        """Everything between a source and its DUT port: its filter, any band-stop planted
+        there, its cable (and the combiner)."""
         cabling = self.config.cabling
-        path: tuple[CableLoss | LowPassFilter, ...] = {
+        path: tuple[CableLoss | LowPassFilter | NotchFilter, ...] = {
             "rf": (cabling.rf, cabling.combiner),
             "rf2": (cabling.rf2, cabling.combiner, CableLoss(cabling.combiner_imbalance_db)),
             "lo": (cabling.lo,),
         }[role]
+        path = tuple(n for name, n in self.config.source_notches if name == role) + path
         filt = self.config.source_filter(role)
         return path if filt is None else (filt, *path)
 

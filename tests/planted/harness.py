@@ -276,8 +276,12 @@ def _part_and_op(result: CaseResult, point: int) -> tuple[MixerPart, OperatingPo
     assert result.run is not None
     row = _point_row(result.run, point)
     # the part as it sits on this bench: its leakage paths with the bench's seeded phases
-    part = prepare_part(load_sim_bench_description(result.case.sim_bench))
-    return part, OperatingPoint(float(row["probe_temperature_c"]), float(row["supply_v"])), row
+    description = load_sim_bench_description(result.case.sim_bench)
+    part = prepare_part(description)
+    probe_c = float(row["probe_temperature_c"])
+    if not math.isfinite(probe_c):  # no temperature set: the die at the chamber's ambient
+        probe_c = float(description.chamber.ambient)
+    return part, OperatingPoint(probe_c, float(row["supply_v"])), row
 
 
 def _gain_at_drive(result: CaseResult, figure: Figure) -> float:

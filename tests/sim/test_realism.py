@@ -251,6 +251,34 @@ def test_a_low_pass_filter_removes_the_rf_sources_harmonics_at_the_part() -> Non
     assert filtered[1] < -90.0
 
 
+def test_a_band_stop_buries_one_frequency_of_a_sources_path_and_passes_its_neighbours() -> None:
+    """``[sources.notch]``: ``depth`` dB over ``center`` ± ``width``/2 in that source's path
+    (before its cable), nothing outside; the tone at the port drops by exactly that."""
+    from pydantic import ValidationError
+
+    from sweeprig.clock import VirtualClock
+    from sweeprig.sim.bench import build_sim_instruments
+
+    def rf_at_port(freq_hz: float, notch: dict[str, object]) -> float:
+        desc = SimBenchDescription.model_validate({
+            "part": "kx-2417", "sources": {"level_error": False, "notch": notch}})
+        sim = build_sim_instruments(desc, clock=VirtualClock())
+        rf = sim.instruments["rf"]
+        rf.put_value("freq_hz", freq_hz)
+        rf.put_value("output_on", True)
+        (tone,) = sim.world.rf_inputs()
+        return tone.power_dbm
+
+    notch = {"rf": {"center": "2.2 GHz", "width": "20 MHz", "depth": "110 dB"}}
+    for freq_hz, drop_db in ((2.2e9, 110.0), (2.209e9, 110.0), (2.211e9, 0.0), (2.0e9, 0.0)):
+        assert rf_at_port(freq_hz, {}) - rf_at_port(freq_hz, notch) == pytest.approx(drop_db)
+    assert rf_at_port(2.2e9, {"lo": notch["rf"]}) == rf_at_port(2.2e9, {})  # the LO's path
+    for bad in ({"width": "0 Hz"}, {"depth": "-3 dB"}, {"centre": "2 GHz"}):
+        with pytest.raises(ValidationError):
+            SimBenchDescription.model_validate(
+                {"sources": {"notch": {"rf": {**notch["rf"], **bad}}}})
+
+
 def test_seeded_leakage_phases_come_from_the_bench_seed() -> None:
     one = prepare_part(SimBenchDescription.model_validate({"part": "kx-2417", "seed": 1}))
     two = prepare_part(SimBenchDescription.model_validate({"part": "kx-2417", "seed": 2}))
