@@ -494,7 +494,10 @@ def _execute(
             drivers = open_bench(files.bench, roles, resources=resources, clock=clock,
                                  on_transaction=hook, lock=lock)
             if sim_bench is None and drivers.simctl is not None:
-                clock = SimControlClock(drivers.simctl)  # a served simulated bench
+                bench_drivers = [d for _, d in drivers.items()]
+                clock = SimControlClock(  # a served simulated bench
+                    drivers.simctl,
+                    traffic=lambda: sum(d.transactions for d in bench_drivers))
                 sim_t0 = clock.now()
             if resume is not None:
                 _check_identities(drivers, resume)

@@ -7,6 +7,8 @@ simulator's time, not on the wall clock, or a soak of ten minutes would take ten
 
 from __future__ import annotations
 
+from collections.abc import Callable
+
 from sweeprig.instruments import SimControlDriver
 
 
@@ -14,13 +16,31 @@ class SimControlClock:
     """A :class:`sweeprig.clock.Clock` backed by the simulator's control instrument.
 
     ``now()`` reads the simulated time, s; ``sleep(s)`` advances it by ``s`` without waiting.
+
+    ``traffic``: the number of messages sent so far to the bench's instruments (this one's
+    included), when the caller can count them. On a simulator in virtual time
+    (``SIMulation:MODE?`` answers ``VIRT``, asked once here) the time moves only with its
+    instruments' work and with the engine's advances, and both are messages: while the count
+    has not moved since the last read, ``now()`` gives that read's answer without asking
+    again (a point's start is then its predecessor's end, exactly; one exchange fewer a
+    point). A simulator serving in real time (``sweeprig sim serve --realtime``) moves between
+    messages too: every ``now()`` asks it.
     """
 
-    def __init__(self, control: SimControlDriver) -> None:
+    def __init__(self, control: SimControlDriver,
+                 traffic: Callable[[], int] | None = None) -> None:
         self.control = control
+        self._traffic = traffic if traffic is not None and control.mode() == "VIRT" else None
+        self._last: tuple[float, int] | None = None  # (the last read, traffic after it)
 
     def now(self) -> float:
-        return self.control.time_s()
+        if self._traffic is None:
+            return self.control.time_s()
+        if self._last is not None and self._traffic() == self._last[1]:
+            return self._last[0]
+        time_s = self.control.time_s()
+        self._last = (time_s, self._traffic())
+        return time_s
 
     def sleep(self, seconds: float) -> None:
         if seconds > 0:

@@ -15,7 +15,9 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from sweeprig.clock import VirtualClock
+import pytest
+
+from sweeprig.clock import VirtualClock, WallClock
 from sweeprig.engine.session import run_sequence, served_bench_text
 from sweeprig.sim.bench import resolve_description, start_sim_bench
 from sweeprig.sim.faults import FaultSpec
@@ -129,3 +131,34 @@ def test_a_cached_setting_is_sent_again_after_a_device_clear(tmp_path):
     configure = _first(log, "sa", "SENS:FREQ:CENT", after=lost + 1)
     assert configure < _first(log, "sa", "INIT:IMM", after=lost + 1)
     assert "INP:ATT" in log[configure].sent
+
+
+@pytest.mark.parametrize("virtual", [True, False], ids=["virtual time", "wall-clock time"])
+def test_on_a_bench_served_with_its_clock_a_point_starts_where_the_last_one_ended(
+        tmp_path, virtual):
+    """With the simulator's control instrument (``simctl``: the engine follows its clock), a
+    point's start is its predecessor's end when nothing went to the bench between them: in
+    virtual time the simulator's time moves only with messages, so the clock is not asked
+    again (two exchanges a point with the clock, its settle advance and its end, instead of
+    three). A simulator on the wall clock (``sim serve --realtime``) is asked every time."""
+    clock = VirtualClock() if virtual else WallClock()
+    with start_sim_bench(resolve_description(None), clock=clock) as sim:
+        bench = tmp_path / "bench.toml"
+        bench.write_text(served_bench_text(dict(sim.resources)), encoding="utf-8")
+        outcome = run_sequence(SEQUENCE, bench, store_path=tmp_path / "s.sqlite",
+                               bus_log=True)
+        assert outcome.status == "complete"
+    with SqliteRunStore(tmp_path / "s.sqlite", create=False) as db:
+        log = db.bus_log(outcome.run_id)
+        points = db.points_frame(outcome.run_id).sort_values("point_index")
+    first = _first(log, "lo", f"SOUR:FREQ:CW {RF_HZ[1] - 100e6:.0f}")
+    final = _first(log, "lo", f"SOUR:FREQ:CW {RF_HZ[-1] - 100e6:.0f}")
+    clock_reads = [r for r in log[first:final] if r.role == "simctl"]
+    assert len(clock_reads) == (2 if virtual else 3) * (POINTS - 2), \
+        [r.sent for r in clock_reads]
+    starts, ends = points["sim_start_s"].to_numpy(), points["sim_end_s"].to_numpy()
+    assert (ends > starts).all()
+    if virtual:
+        assert (starts[1:] == ends[:-1]).all()
+    else:  # read again: time passed between them
+        assert (starts[1:] > ends[:-1]).all()
