@@ -26,6 +26,7 @@ from pathlib import Path
 
 import pytest
 import pyvisa
+from machine_state import machine_text
 from thread_time import time_in_thread
 
 from sweeprig.clock import VirtualClock
@@ -232,7 +233,7 @@ def test_engine_against_a_hand_written_loop(tmp_path: Path,
           f"transactions/point; ratios engine/hand: time {time_ratio:.2f} "
           f"({verdict(time_ratio)}), transactions {tx_ratio:.2f} ({verdict(tx_ratio)}) "
           f"(floors <= 1.0; {POINTS} points, settle {SETTLE_S * 1e3:.0f} ms, median of "
-          f"{REPEATS}, whole commands incl. connect; {_load()})")
+          f"{REPEATS}, whole commands incl. connect; {machine_text()})")
     hand_busy_ms = statistics.median(hand_busy) * 1e3
     engine_busy_ms = engine_busy / log_n * 1e3
     log_ms = log_wall / log_n * 1e3
@@ -259,10 +260,6 @@ def test_engine_against_a_hand_written_loop(tmp_path: Path,
           f"spread over the points: {statistics.median(engine_run_cpu) * 1e3:.2f} ms); the "
           f"served instruments' handling: {statistics.median(hand_served) * 1e3:.2f} ms for "
           f"the hand loop, {statistics.median(engine_served) * 1e3:.2f} ms for sweeprig "
-          f"({_load()})")
+          f"({machine_text()})")
 
 
-def _load() -> str:
-    import os
-
-    return f"load average {os.getloadavg()[0]:.1f} on {os.cpu_count()} cores"

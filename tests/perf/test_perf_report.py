@@ -76,6 +76,7 @@ import time
 from pathlib import Path
 
 import pytest
+from machine_state import machine_text
 from report_stages import stages_text
 from synthetic_store import run_child, timed_store, verdict
 
@@ -146,7 +147,7 @@ def test_perf_report_of_a_large_run(points: int, tmp_path: Path) -> None:
           f"({result['reduce_peak_mb']:.0f} MB by the end of the reduction); files "
           f"{result['files_mb']:.0f} MB (figures.json {result['json_mb']:.0f} MB, "
           f"{result['json_mb'] * 1e6 / max(result['figures'], 1.0):.0f} B a figure); "
-          f"load average {load:.1f} on {os.cpu_count()} cores")
+          f"load average {load:.1f} on {os.cpu_count()} cores; {machine_text()}")
     print("files: " + ", ".join(f"{key[3:]} {value:.1f} MB" for key, value in result.items()
                                 if key.startswith("mb ")))
     record: dict[str, dict[str, float]] = {}

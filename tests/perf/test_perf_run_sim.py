@@ -74,6 +74,7 @@ from collections.abc import Iterator
 from pathlib import Path
 
 import pytest
+from machine_state import machine_text
 from thread_time import time_in_thread
 
 from sweeprig.engine.runner import Runner
@@ -124,10 +125,6 @@ TARGET_POINTS = 10_000
 _SAMPLE_POINTS = 1_000
 
 
-def _load() -> str:
-    import os
-
-    return f"load average {os.getloadavg()[0]:.1f} on {os.cpu_count()} cores"
 
 
 def _planning_ms_per_point(sequence: Path) -> tuple[float, float]:
@@ -260,7 +257,7 @@ def test_print_large_simulated_run_wall_time(tmp_path: Path,
           f"{total_s:.1f} s of wall time with file loading and pre-flight, {run_s:.1f} s for "
           f"the run itself ({run_s / LARGE_RUN_POINTS * 1e3:.2f} ms per point); target "
           f"{target_s:.0f} s: {verdict} ({total_s / target_s:.1f}× the "
-          f"target; one run, not repeated: {_load()})")
+          f"target; one run, not repeated: {machine_text()})")
     preflight_s, plan_ms = _planning_ms_per_point(sequence)
     model_ms = _model_ms_per_point()
     point_ms = run_s / LARGE_RUN_POINTS * 1e3
@@ -279,7 +276,7 @@ def test_print_large_simulated_run_wall_time(tmp_path: Path,
           f"and end spread over the points) + the rest "
           f"{point_ms - served_total_ms - engine_ms:.2f} ms (the server threads' sockets and "
           f"parsing outside handle, and the waits: the server threads share this process and "
-          f"its interpreter lock, so their work and the engine's add up) ({_load()})")
+          f"its interpreter lock, so their work and the engine's add up) ({machine_text()})")
     wall_ms = total_s / LARGE_RUN_POINTS * 1e3
     print(f"  the whole process (every thread, loading and pre-flight included): "
           f"{process_ms:.2f} ms of processor time a point against {wall_ms:.2f} ms of wall "
@@ -289,7 +286,7 @@ def test_print_large_simulated_run_wall_time(tmp_path: Path,
     print(f"  per exchange: {cpu.exchanges_text(LARGE_RUN_POINTS)}; the server threads "
           f"{cpu.messages_s / max(cpu.messages, 1) * 1e6:.0f} us a message, of which "
           f"{outside_us:.0f} us outside the instrument's handling (decoding, fault checks, "
-          f"replying; the socket's recv is outside both) ({_load()})")
+          f"replying; the socket's recv is outside both) ({machine_text()})")
 
 
 def _process_cpu_s(pid: int) -> float | None:
@@ -360,5 +357,5 @@ def test_print_large_simulated_run_served_from_another_process(
           f"a point: the engine's "
           f"process {engine_ms:.2f} ms (loading and pre-flight included), the simulator's "
           f"process {sim_ms}: each waits for the other's reply, so the wall time is about "
-          f"their sum ({_load()})")
+          f"their sum ({machine_text()})")
     print(f"  {cpu.exchanges_text(LARGE_RUN_POINTS)}")
