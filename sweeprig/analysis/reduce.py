@@ -493,7 +493,8 @@ def _flag_unpowered(figures: list[Figure], captures: pd.DataFrame, expected_gain
         f"{points.size} of {total} point(s) had a conversion gain more than "
         f"{UNPOWERED_GAIN_MARGIN_DB:g} dB below the expected {expected_gain_db:g} dB: the part "
         "looks unpowered, wrongly powered or not driven there (check the supply voltage and "
-        "output, its current limit and the LO drive); every figure from those points is "
+        "output, its current limit, the LO drive and the RF path: a tone that never reached "
+        "the part looks the same); every figure from those points is "
         "flagged 'unpowered'")
     return flag_points(figures, points.tolist(), UNPOWERED)
 
