@@ -53,14 +53,6 @@ CHECKED_KEPT = 8
 """Values remembered per setting as checked and rendered (:meth:`Driver._checked_token`)."""
 
 _BLOCK_SHOWN = 12
-
-
-def _commands_text(sent: list[str], count: int) -> str:
-    """The last :data:`_BLOCK_SHOWN` of ``sent`` (``count`` commands in all) for an error
-    message, the number left out before them."""
-    shown = sent[-_BLOCK_SHOWN:]
-    prefix = f"({count - len(shown)} earlier) ... " if count > len(shown) else ""
-    return prefix + "; ".join(shown) if shown else "(none since the last check)"
 _BLOCK_KEPT = 64
 
 ESR_ERROR_BITS = 0x3C
@@ -81,6 +73,14 @@ class Pending:
     message: str
     timeout_s: float | None
     posted: PostedQuery | None
+
+
+def _commands_text(sent: list[str], count: int) -> str:
+    """The last :data:`_BLOCK_SHOWN` of ``sent`` (``count`` commands in all) for an error
+    message, the number left out before them."""
+    shown = sent[-_BLOCK_SHOWN:]
+    prefix = f"({count - len(shown)} earlier) ... " if count > len(shown) else ""
+    return prefix + "; ".join(shown) if shown else "(none since the last check)"
 
 
 class Driver:
