@@ -24,13 +24,15 @@ class SimControlClock:
     has not moved since the last read, ``now()`` gives that read's answer without asking
     again (a point's start is then its predecessor's end, exactly; one exchange fewer a
     point). A simulator serving in real time (``sweeprig sim serve --realtime``) moves between
-    messages too: every ``now()`` asks it.
+    messages too, and so does one whose profile cannot say: every ``now()`` asks it. (Another
+    client of the same served bench would move it unseen; a run holds the bench's lock.)
     """
 
     def __init__(self, control: SimControlDriver,
                  traffic: Callable[[], int] | None = None) -> None:
         self.control = control
-        self._traffic = traffic if traffic is not None and control.mode() == "VIRT" else None
+        virtual = control.profile.has("mode") and control.mode() == "VIRT"
+        self._traffic = traffic if traffic is not None and virtual else None
         self._last: tuple[float, int] | None = None  # (the last read, traffic after it)
 
     def now(self) -> float:
