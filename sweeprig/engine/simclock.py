@@ -19,8 +19,9 @@ class SimControlClock:
 
     ``traffic``: the number of messages sent so far to the bench's instruments (this one's
     included), when the caller can count them. On a simulator in virtual time
-    (``SIMulation:MODE?`` answers ``VIRT``, asked once here) the time moves only with its
-    instruments' work and with the engine's advances, and both are messages: while the count
+    (``SIMulation:MODE?`` answers ``VIRT``, asked once, at the first read: nothing is sent
+    before the bench is identified and locked) the time moves only with its instruments'
+    work and with the engine's advances, and both are messages: while the count
     has not moved since the last read, ``now()`` gives that read's answer without asking
     again (a point's start is then its predecessor's end, exactly; one exchange fewer a
     point). A simulator serving in real time (``sweeprig sim serve --realtime``) moves between
@@ -31,12 +32,14 @@ class SimControlClock:
     def __init__(self, control: SimControlDriver,
                  traffic: Callable[[], int] | None = None) -> None:
         self.control = control
-        virtual = control.profile.has("mode") and control.mode() == "VIRT"
-        self._traffic = traffic if traffic is not None and virtual else None
+        self._traffic = traffic
+        self._virtual: bool | None = None  # asked at the first read (nothing is sent here)
         self._last: tuple[float, int] | None = None  # (the last read, traffic after it)
 
     def now(self) -> float:
-        if self._traffic is None:
+        if self._traffic is not None and self._virtual is None:
+            self._virtual = self.control.profile.has("mode") and self.control.mode() == "VIRT"
+        if self._traffic is None or not self._virtual:
             return self.control.time_s()
         if self._last is not None and self._traffic() == self._last[1]:
             return self._last[0]
