@@ -90,6 +90,11 @@ Flags (sweeprig's own names)
 ``supply_current_off``
     At a point behind the figure the DUT supply current was more than 30 % away from the
     part's ``expected_supply_current``: the part looks wrongly powered or damaged.
+``supply_limited``
+    At a point behind the figure the point's ``supply_current`` reading found the DC supply in
+    current limit (its own status) or its output more than 2 % below the setting: the part
+    ran below its stated supply (a bench current limit below the part's draw, often only at
+    the hot corner). Only points with a ``supply_current`` reading can show it.
 ``image_ratio_doubtful``
     A single-sideband noise figure converted with a measured image-to-signal ratio whose
     wanted reading stood less than 6 dB above its noise floor, or that put the image response
@@ -154,6 +159,7 @@ INTERFERER = "interferer"
 FREQUENCY_OFFSET = "frequency_offset"
 WINDOW_EDGE = "window_edge"
 IMAGE_RATIO_DOUBTFUL = "image_ratio_doubtful"
+SUPPLY_LIMITED = "supply_limited"
 
 #: Every flag, in a fixed order: the position is the flag's bit in a flag mask.
 FLAGS: tuple[str, ...] = (
@@ -190,6 +196,8 @@ FLAGS: tuple[str, ...] = (
     WINDOW_EDGE,
     # the SSB conversion's image ratio (sweeprig.analysis.noise_figure)
     IMAGE_RATIO_DOUBTFUL,
+    # the supply read at a point (sweeprig.instruments.supply.supply_limited)
+    SUPPLY_LIMITED,
 )
 
 #: Flags that make a figure untrustworthy as a number: a limit check on it is inconclusive.
@@ -226,6 +234,7 @@ SUSPECT_FLAGS: frozenset[str] = frozenset(
         FREQUENCY_OFFSET,
         WINDOW_EDGE,
         IMAGE_RATIO_DOUBTFUL,
+        SUPPLY_LIMITED,
     }
 )
 
@@ -287,6 +296,8 @@ FLAG_MEANINGS: Mapping[str, str] = MappingProxyType({
     IMAGE_RATIO_DOUBTFUL: "the image-to-signal ratio behind this SSB noise figure came from "
     "a wanted reading within 6 dB of its noise floor, or was above +10 dB: the figure is not "
     "the part's",
+    SUPPLY_LIMITED: "at a point behind it the DC supply was in current limit or more than 2 % "
+    "below its setting: the part ran below its stated supply",
 })
 
 _FLAG_BIT = {name: 1 << i for i, name in enumerate(FLAGS)}

@@ -42,9 +42,10 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from sweeprig.analysis.captures import OUTPUT_FREQ
+from sweeprig.analysis.captures import OUTPUT_FREQ, risk_mask
 from sweeprig.analysis.figures import (
     SUPPLY_CURRENT_OFF,
+    SUPPLY_LIMITED,
     UNPOWERED,
     Figure,
     collector_paused,
@@ -222,6 +223,7 @@ def _reduce_run(store: RunStore, run_id: int) -> RunFigures:
         if names := [s.name for s in studies
                      if ROLE_ISOLATION in s.roles or ROLE_SIDEBAND in s.roles]:
             figures += upconverter_figures(captures, study=names)
+    figures = _flag_supply_limited(figures, captures, notes)
     if sequence is not None:
         figures = _flag_unpowered(figures, captures, sequence.part.expected_gain, notes)
         expected_current = getattr(sequence.part, "expected_supply_current", None)
@@ -497,6 +499,27 @@ def _flag_unpowered(figures: list[Figure], captures: pd.DataFrame, expected_gain
         "the part looks the same); every figure from those points is "
         "flagged 'unpowered'")
     return flag_points(figures, points.tolist(), UNPOWERED)
+
+
+def _flag_supply_limited(figures: list[Figure], captures: pd.DataFrame,
+                         notes: list[str]) -> list[Figure]:
+    """Flag ``supply_limited`` every figure that came from a point whose ``supply_current``
+    reading found the supply in current limit or below its setting (the runner's
+    :func:`~sweeprig.instruments.supply.supply_limited`), and say so."""
+    if captures.empty or "risks" not in captures:
+        return figures
+    supply = captures[captures["reading"] == "supply_current"]
+    points = np.unique(supply["point"].to_numpy()[
+        risk_mask(supply["risks"].to_numpy(), SUPPLY_LIMITED)]).astype(np.int64)
+    if points.size == 0:
+        return figures
+    notes.append(
+        f"{points.size} of {int(supply['point'].nunique())} point(s) with a supply reading "
+        "found the DC supply in current limit or more than 2 % below its setting: the part "
+        "ran below its stated supply there (check the bench's supply_max_current against "
+        "the part's draw, which rises with temperature, and the supply's leads); every "
+        "figure from those points is flagged 'supply_limited'")
+    return flag_points(figures, points.tolist(), SUPPLY_LIMITED)
 
 
 def _flag_supply_current(figures: list[Figure], captures: pd.DataFrame,

@@ -65,6 +65,7 @@ from sweeprig.formats.pathloss import PathLoss
 from sweeprig.formats.sequence import AdaptiveSoak, Sequence
 from sweeprig.instruments import AnalyzerDriver, ChamberDriver, Driver, SourceDriver
 from sweeprig.instruments.driver import Pending
+from sweeprig.instruments.supply import SUPPLY_LIMITED, supply_limited
 from sweeprig.plan import search_window as sw
 from sweeprig.plan.duration import soak_range_s
 from sweeprig.plan.expand import Point
@@ -177,6 +178,7 @@ class Runner:
         self.log = log
         self.policy = policy or RecoveryPolicy()
         self.skipped = 0
+        self._supply_limited_told = False  # its event is written once a run
         self.recoveries = 0
         self._temperature_c: float | None = None
         self._supply_on = False
@@ -888,7 +890,7 @@ class Runner:
         if reading.instrument == "pm":
             return self._read_power_meter(point, reading)
         if reading.instrument == "dc":
-            return self._read_supply(reading)
+            return self._read_supply(point, reading)
         if reading.instrument == "noise":
             return self._noise.read(point, reading)  # type: ignore[no-any-return]
         return self._read_analyzer(point, reading)
@@ -1172,15 +1174,28 @@ class Runner:
         return ReadingRecord(name=reading.name, kind=reading.kind, port="rf", freq_hz=freq,
                              level_dbm=level)
 
-    def _read_supply(self, reading: Reading) -> ReadingRecord:
+    def _read_supply(self, point: Point, reading: Reading) -> ReadingRecord:
         dc = self.d.dc
         if dc is None:
             raise InputError("the supply_current reading needs the DC supply", where="bench",
                              fix="add roles.dc to the bench file")
-        current = dc.measure_current_a()
-        voltage = dc.measure_voltage_v()
-        return ReadingRecord(name=reading.name, kind=reading.kind, port="dc",
-                             extra={"current_a": current, "voltage_v": voltage})
+        current, voltage, limited = dc.read_output()
+        extra: dict[str, object] = {"current_a": current, "voltage_v": voltage}
+        if limited is not None:
+            extra["current_limited"] = limited
+        if supply_limited(limited, voltage, point.supply_v):
+            # the part ran below its stated supply: every figure of the point is flagged
+            extra["supply_flags"] = [SUPPLY_LIMITED]
+            if not self._supply_limited_told:
+                self._supply_limited_told = True
+                self._event("warning", "supply", f"point {point.index}: the supply is "
+                            f"{'in current limit' if limited else 'below its setting'} "
+                            f"({voltage:.3f} V, {current * 1e3:.1f} mA against "
+                            f"{point.supply_v:g} V set): the part runs below its stated "
+                            "supply; check the bench's supply_max_current against the "
+                            "part's draw (its figures there are flagged supply_limited)",
+                            point.index)
+        return ReadingRecord(name=reading.name, kind=reading.kind, port="dc", extra=extra)
 
     # -- errors -----------------------------------------------------------------------------
 

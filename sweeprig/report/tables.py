@@ -148,6 +148,7 @@ FLAG_BADGES: Mapping[str, str] = MappingProxyType({
     "noise_limited": "noise-limited",
     "coarse_steps": "coarse steps",
     "supply_current_off": "supply current off",
+    "supply_limited": "supply limited",
 })
 
 #: (badge text, one-line meaning) of every flag: the words shown beside flagged figures.

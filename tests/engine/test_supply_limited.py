@@ -1,0 +1,55 @@
+"""A bench whose supply current limit sits just below the part's draw: the supply holds the
+current and its voltage sinks, so the part runs below the supply the run states. On the
+simulated bench (its supply goes from constant voltage to constant current, and reports it
+in its questionable status) a 29 mA limit under the demo part's 30 mA moved the gain by
+0.07 dB and the IIP3 by 0.28 dB with no flag; now every figure of a point whose supply
+reading found it is flagged ``supply_limited``, the run says so once in its events, and the
+reduction in its notes."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from sweeprig.analysis.reduce import reduce_run
+from sweeprig.engine.session import run_sequence, shipped_sequences_dir
+from sweeprig.store.sqlite import SqliteRunStore
+
+QUICK = shipped_sequences_dir() / "demo" / "quick.toml"
+SIM_BENCH = shipped_sequences_dir() / "benches" / "sim.toml"
+
+
+def _run(tmp_path: Path, limit: str):
+    bench = tmp_path / f"bench-{limit.replace(' ', '')}.toml"
+    text = SIM_BENCH.read_text(encoding="utf-8")
+    assert 'supply_max_current = "200 mA"' in text
+    bench.write_text(text.replace('supply_max_current = "200 mA"',
+                                  f'supply_max_current = "{limit}"'), encoding="utf-8")
+    store = tmp_path / f"{limit.replace(' ', '')}.sqlite"
+    outcome = run_sequence(QUICK, bench, sim=True, store_path=store)
+    assert outcome.status == "complete", outcome.reason
+    with SqliteRunStore(store, create=False) as db:
+        return reduce_run(db, outcome.run_id), db.events(outcome.run_id)
+
+
+def test_a_supply_in_current_limit_flags_the_figures_of_its_points(tmp_path):
+    run, events = _run(tmp_path, "29 mA")
+    gains = run.figures_named("conversion_gain")
+    currents = run.figures_named("supply_current")
+    assert gains and currents
+    assert all("supply_limited" in f.flags for f in [*gains, *currents])
+    assert all(abs(f.value - 0.029) < 0.0005 for f in currents)  # held at the limit
+    told = [e for e in events if e.kind == "supply"]
+    assert len(told) == 1 and "current limit" in told[0].message
+    assert any("flagged 'supply_limited'" in note for note in run.notes)
+    # a suspect figure cannot pass its limit (the same gains pass it on a good supply)
+    judged = [j for j in run.assessment.judgements if j.figure.name == "conversion_gain"]
+    assert judged and all(j.verdict == "inconclusive" and "supply_limited" in j.suspect
+                          for j in judged)
+
+
+def test_a_supply_below_its_limit_flags_nothing(tmp_path):
+    run, events = _run(tmp_path, "200 mA")
+    assert not any("supply_limited" in f.flags for f in run.figures)
+    assert not [e for e in events if e.kind == "supply"]
+    judged = [j for j in run.assessment.judgements if j.figure.name == "conversion_gain"]
+    assert judged and all(j.verdict == "pass" for j in judged)
