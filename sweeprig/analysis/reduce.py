@@ -223,7 +223,7 @@ def _reduce_run(store: RunStore, run_id: int) -> RunFigures:
         if names := [s.name for s in studies
                      if ROLE_ISOLATION in s.roles or ROLE_SIDEBAND in s.roles]:
             figures += upconverter_figures(captures, study=names)
-    figures = _flag_supply_limited(figures, captures, notes)
+    figures = _flag_supply_limited(figures, captures, points, notes)
     if sequence is not None:
         figures = _flag_unpowered(figures, captures, sequence.part.expected_gain, notes)
         expected_current = getattr(sequence.part, "expected_supply_current", None)
@@ -502,24 +502,34 @@ def _flag_unpowered(figures: list[Figure], captures: pd.DataFrame, expected_gain
 
 
 def _flag_supply_limited(figures: list[Figure], captures: pd.DataFrame,
-                         notes: list[str]) -> list[Figure]:
-    """Flag ``supply_limited`` every figure that came from a point whose ``supply_current``
-    reading found the supply in current limit or below its setting (the runner's
-    :func:`~sweeprig.instruments.supply.supply_limited`), and say so."""
-    if captures.empty or "risks" not in captures:
-        return figures
-    supply = captures[captures["reading"] == "supply_current"]
-    points = np.unique(supply["point"].to_numpy()[
-        risk_mask(supply["risks"].to_numpy(), SUPPLY_LIMITED)]).astype(np.int64)
-    if points.size == 0:
+                         points: pd.DataFrame, notes: list[str]) -> list[Figure]:
+    """Flag ``supply_limited`` every figure that came from a point at which the DC supply
+    was found in current limit or below its setting (the runner's
+    :func:`~sweeprig.instruments.supply.supply_limited`: the point's ``supply_current``
+    reading, or the supply's status read after the point, in the point's ``extra_json``
+    ``supply_flags``), and say so."""
+    marked: list[np.ndarray] = []
+    if not captures.empty and "risks" in captures:
+        supply = captures[captures["reading"] == "supply_current"]
+        marked.append(supply["point"].to_numpy()[
+            risk_mask(supply["risks"].to_numpy(), SUPPLY_LIMITED)])
+    if not points.empty and "extra_json" in points:
+        extras = points["extra_json"].to_numpy(dtype=object)
+        hit = [i for i, text in enumerate(extras.tolist())
+               if isinstance(text, str) and '"supply_flags"' in text
+               and SUPPLY_LIMITED in (json.loads(text).get("supply_flags") or ())]
+        marked.append(points["point_index"].to_numpy()[hit])
+    found = (np.unique(np.concatenate(marked)).astype(np.int64) if marked
+             else np.zeros(0, dtype=np.int64))
+    if found.size == 0:
         return figures
     notes.append(
-        f"{points.size} of {int(supply['point'].nunique())} point(s) with a supply reading "
-        "found the DC supply in current limit or more than 2 % below its setting: the part "
-        "ran below its stated supply there (check the bench's supply_max_current against "
-        "the part's draw, which rises with temperature, and the supply's leads); every "
-        "figure from those points is flagged 'supply_limited'")
-    return flag_points(figures, points.tolist(), SUPPLY_LIMITED)
+        f"at {found.size} of {len(points)} point(s) the DC supply was in current limit or "
+        "more than 2 % below its setting: the part ran below its stated supply there (check "
+        "the bench's supply_max_current against the part's draw, which rises with "
+        "temperature, and the supply's leads); every figure from those points is flagged "
+        "'supply_limited'")
+    return flag_points(figures, found.tolist(), SUPPLY_LIMITED)
 
 
 def _flag_supply_current(figures: list[Figure], captures: pd.DataFrame,

@@ -259,12 +259,35 @@ class Runner:
             failure = _finish_all(owed, Driver.finish_status)
             if failure is not None:
                 raise failure
+            self._mark_supply_state([*pending, *owed])
             for role, driver in self._unverified:
                 if driver.taken_status() & PON_BIT:
                     raise _reset(role, driver, f"point {self._held[3].point.index}")
                 driver.expire_status()  # what is read next tells of the next point
             self._unverified, self._status_read = [], set()
         self._store_held()
+
+    def _mark_supply_state(self, read: list[tuple[Driver, Pending | None]]) -> None:
+        """Mark the held point ``supply_limited`` when the supply's status read after it (the
+        read just made, ``read``) found the supply holding its current limit."""
+        dc = self.d.dc
+        if dc is None or self._held is None or not any(d is dc and p is not None
+                                                        for d, p in read):
+            return
+        if dc.status_seen.get("current_limited"):
+            record = self._held[0]
+            record.extra["supply_flags"] = [SUPPLY_LIMITED]
+            self._tell_supply_limited(record.index, "in current limit")
+
+    def _tell_supply_limited(self, point_index: int, how: str, detail: str = "") -> None:
+        """The run's one event saying the part runs below its stated supply."""
+        if self._supply_limited_told:
+            return
+        self._supply_limited_told = True
+        self._event("warning", "supply", f"point {point_index}: the supply is {how}{detail}: "
+                    "the part runs below its stated supply; check the bench's "
+                    "supply_max_current against the part's draw (its figures there are "
+                    "flagged supply_limited)", point_index)
 
     def _store_held(self) -> None:
         """Commit the held point (its status confirmed: :meth:`_confirm_held`), then tell
@@ -1186,15 +1209,9 @@ class Runner:
         if supply_limited(limited, voltage, point.supply_v):
             # the part ran below its stated supply: every figure of the point is flagged
             extra["supply_flags"] = [SUPPLY_LIMITED]
-            if not self._supply_limited_told:
-                self._supply_limited_told = True
-                self._event("warning", "supply", f"point {point.index}: the supply is "
-                            f"{'in current limit' if limited else 'below its setting'} "
-                            f"({voltage:.3f} V, {current * 1e3:.1f} mA against "
-                            f"{point.supply_v:g} V set): the part runs below its stated "
-                            "supply; check the bench's supply_max_current against the "
-                            "part's draw (its figures there are flagged supply_limited)",
-                            point.index)
+            self._tell_supply_limited(
+                point.index, "in current limit" if limited else "below its setting",
+                f" ({voltage:.3f} V, {current * 1e3:.1f} mA against {point.supply_v:g} V set)")
         return ReadingRecord(name=reading.name, kind=reading.kind, port="dc", extra=extra)
 
     # -- errors -----------------------------------------------------------------------------

@@ -145,6 +145,8 @@ class Driver:
         self._errors_flagged = False
         #: the posted ``*OPC?`` message began with ``*ESR?`` (:meth:`post_sync`)
         self._status_first = False
+        #: The :attr:`status_companions`' answers read with the last posted status read.
+        self.status_seen: dict[str, Any] = {}
 
     before_message: Callable[[], None] | None = None
     """Called just before each message leaves for the instrument (after it is built), when
@@ -845,21 +847,62 @@ class Driver:
                 fix="check the instrument's error queue; a setting may have failed",
             )
 
+    #: Plain queries (operation names) asked with every posted status read, in the same
+    #: message, where the profile joins queries: their parsed replies land in
+    #: :attr:`status_seen` (a supply's current-limit state, read at every point for free).
+    status_companions: tuple[str, ...] = ()
+
+    def _companions(self) -> list[str]:
+        """The :attr:`status_companions` this instrument's profile can join to a status
+        read (plain single queries of a compound profile)."""
+        if not self.compound or not self.status_companions:
+            return []
+        return [name for name in self.status_companions if self.profile.has(name)
+                and len(self.profile.op(name).queries) == 1
+                and not self.profile.op(name).commands
+                and self.profile.op(name).spec.value == "none"]
+
     def post_status(self) -> Pending | None:
         """Send the point's ``*ESR?`` when :meth:`point_status` would have to read it (the
         last exchange did not carry it); its reply is taken by :meth:`finish_status`, and
-        :meth:`point_status` then sends nothing. None when there is nothing to send."""
+        :meth:`point_status` then sends nothing. None when there is nothing to send. The
+        :attr:`status_companions` ride in the same message (:attr:`status_seen` is emptied
+        here, so it never holds an older read's answer)."""
+        self.status_seen = {}
         if not self.profile.has("event_status") or self._status_fresh:
             return None
         op = self.profile.op("event_status")
-        return self.post_query(op.queries[0], timeout_s=op.timeout_s)
+        units = [op.queries[0], *(self.profile.op(name).queries[0]
+                                  for name in self._companions())]
+        message = ";".join(u if u.startswith((":", "*")) or k == 0 else ":" + u
+                           for k, u in enumerate(units))
+        return self.post_query(message, timeout_s=op.timeout_s)
 
     def finish_status(self, pending: Pending | None) -> None:
-        """Take the ``*ESR?`` reply of :meth:`post_status` as :meth:`point_status` would."""
+        """Take the ``*ESR?`` reply of :meth:`post_status` as :meth:`point_status` would, and
+        its companions' replies into :attr:`status_seen`."""
         if pending is None:
             return
         reply = self.collect(pending)
-        self._take_status(reply, self.profile.op("event_status").queries[0])
+        status_cmd = self.profile.op("event_status").queries[0]
+        also = self._companions()
+        if also:
+            parts = reply.strip().split(";")
+            if len(parts) != 1 + len(also):
+                raise InstrumentError(
+                    f"{status_cmd} and {len(also)} joined queries got {len(parts)} answers: "
+                    f"{reply!r}", where=self.where(status_cmd),
+                    fix="if the instrument does not take compound messages, set "
+                    "compound_messages = false in its driver profile")
+            reply = parts[0]
+            for name, part in zip(also, parts[1:], strict=True):
+                operation = self.profile.op(name)
+                value = self._parse(part, operation.reply or "text",
+                                    self.where(operation.queries[0]))
+                if operation.mask is not None:
+                    value = (int(value) & operation.mask) != 0
+                self.status_seen[name] = value
+        self._take_status(reply, status_cmd)
 
     def sync(self) -> None:
         """Prove the instrument has applied everything sent so far before another

@@ -32,6 +32,9 @@ class SupplyDriver(Driver):
     """A single-output DC supply. Safe state: output off."""
 
     kind = "supply"
+    #: Read with every posted status read (its per-point ``*ESR?``): whether the supply holds
+    #: its current limit (:attr:`~sweeprig.instruments.driver.Driver.status_seen`).
+    status_companions = ("current_limited",)
 
     def set_voltage(self, voltage_v: float) -> bool:
         """Set voltage, V (checked against the voltage limit before sending)."""

@@ -4,7 +4,9 @@ simulated bench (its supply goes from constant voltage to constant current, and 
 in its questionable status) a 29 mA limit under the demo part's 30 mA moved the gain by
 0.07 dB and the IIP3 by 0.28 dB with no flag; now every figure of a point whose supply
 reading found it is flagged ``supply_limited``, the run says so once in its events, and the
-reduction in its notes."""
+reduction in its notes. The points without a supply reading (the two-tone study's) are
+caught by the supply's status read after each point, which asks its current-limit state in
+the same message as its ``*ESR?`` (no exchange more)."""
 
 from __future__ import annotations
 
@@ -37,6 +39,9 @@ def test_a_supply_in_current_limit_flags_the_figures_of_its_points(tmp_path):
     currents = run.figures_named("supply_current")
     assert gains and currents
     assert all("supply_limited" in f.flags for f in [*gains, *currents])
+    iip3 = run.figures_named("iip3")  # the two-tone study reads no supply current
+    assert iip3 and all("supply_limited" in f.flags for f in iip3)
+    assert all("supply_limited" in f.flags for f in run.figures)  # every point held it
     assert all(abs(f.value - 0.029) < 0.0005 for f in currents)  # held at the limit
     told = [e for e in events if e.kind == "supply"]
     assert len(told) == 1 and "current limit" in told[0].message
