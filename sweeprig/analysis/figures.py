@@ -91,10 +91,11 @@ Flags (sweeprig's own names)
     At a point behind the figure the DUT supply current was more than 30 % away from the
     part's ``expected_supply_current``: the part looks wrongly powered or damaged.
 ``supply_limited``
-    At a point behind the figure the point's ``supply_current`` reading found the DC supply in
-    current limit (its own status) or its output more than 2 % below the setting: the part
-    ran below its stated supply (a bench current limit below the part's draw, often only at
-    the hot corner). Only points with a ``supply_current`` reading can show it.
+    At a point behind the figure the DC supply was found in current limit (its own status,
+    asked with its status read after every point and with any ``supply_current`` reading) or,
+    by a ``supply_current`` reading, its output more than 2 % below the setting: the part ran
+    below its stated supply (a bench current limit below the part's draw, often only at the
+    hot corner).
 ``image_ratio_doubtful``
     A single-sideband noise figure converted with a measured image-to-signal ratio whose
     wanted reading stood less than 6 dB above its noise floor, or that put the image response
