@@ -5,8 +5,9 @@ A case is a folder under ``tests/planted/cases/`` with
 * ``sequence.toml``: the sequence (small: a case should take a few seconds);
 * ``sim-bench.toml`` (optional): the simulated-bench description that plants the trouble
   (default: :data:`CLEAN_BENCH`, the shipped bench without source level error or harmonics);
-* ``bench-extra.toml`` (optional): tables appended to the built-in simulated bench file (a
-  ``[timebase]`` that states references the simulated bench does not keep, say);
+* ``bench-extra.toml`` (optional): tables added to the built-in simulated bench file (a
+  ``[timebase]`` that states references the simulated bench does not keep, say); a table
+  the built-in file has already (``[limits]``, say) takes its place whole;
 * ``expect.toml``: what must happen (see :class:`Expectation`).
 
 Every power the engine sets or reads is referred to the DUT's port planes through the built-in
@@ -182,8 +183,9 @@ def run_case(case: Case, workdir: Path) -> CaseResult:
         # the built-in simulated bench file (its stated figures the case's bench's, as a run
         # --sim states them) plus the case's tables
         text = served_bench_text({}, load_sim_bench_description(case.sim_bench))
+        extra = case.bench_extra.read_text(encoding="utf-8")
         bench = workdir / "bench.toml"
-        bench.write_text(text + "\n" + case.bench_extra.read_text(encoding="utf-8"),
+        bench.write_text(_without_tables(text, _table_headers(extra)) + "\n" + extra,
                          encoding="utf-8")
     try:
         outcome = run_sequence(case.sequence, bench, sim=True, sim_description=case.sim_bench,
@@ -194,6 +196,25 @@ def run_case(case: Case, workdir: Path) -> CaseResult:
         run = reduce_run(store, outcome.run_id)
     warnings = tuple(e.message for e in run.events if e.kind == "preflight")
     return CaseResult(case, run=run, warnings=warnings)
+
+
+def _table_headers(text: str) -> set[str]:
+    """The table headers (``[limits]``) of a TOML text."""
+    return {line.strip() for line in text.splitlines()
+            if line.strip().startswith("[") and not line.strip().startswith("[[")}
+
+
+def _without_tables(text: str, headers: set[str]) -> str:
+    """``text`` without the tables whose headers are in ``headers`` (each from its header to
+    the next header line)."""
+    out: list[str] = []
+    skipping = False
+    for line in text.splitlines():
+        if line.strip().startswith("["):
+            skipping = line.strip() in headers
+        if not skipping:
+            out.append(line)
+    return "\n".join(out) + "\n"
 
 
 # -- the truth ----------------------------------------------------------------------------
