@@ -8,7 +8,10 @@ presumably the host's other work). So each
 benchmark that prints a wall time prints this too: a fixed pure-Python loop's time per step,
 best of five, beside a reference taken on this kind of machine (22 ns on 2026-12-04, in the
 hour the 10k-point run took 22.4 s and the 100k-point report 16.8 s). Higher means the
-figures beside it are slower than the code is.
+figures beside it are slower than the code is. It does not catch every slowdown: later the
+same day it read 20 ns while the 10k-point run took 24 to 29 s (interleaved runs of two
+commits agreed with each other), so what slows this machine is not always the core's own
+speed. Interleave two commits before calling a difference a change.
 """
 
 from __future__ import annotations
