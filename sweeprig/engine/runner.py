@@ -614,6 +614,11 @@ class Runner:
             unverified = []
             for role, driver in checked:
                 fresh = driver is chamber or driver.status_fresh
+                if fresh and driver is not chamber and driver.joins_companions:
+                    # its last read (its settings' check, at the point's start) did not ask
+                    # what a status read after the point asks (a supply's current limit)
+                    driver.expire_status()
+                    fresh = False
                 (now if fresh else unverified).append((role, driver))
             probe_c = self._check_resets(now)
         else:
@@ -675,6 +680,17 @@ class Runner:
         dc = self.d.dc
         if dc is None or point.supply_v is None:
             return False
+        if (self._held is not None and dc.state().get("voltage") != point.supply_v
+                and any(d is dc for _r, d in self._unverified)
+                and id(dc) not in self._status_read):
+            # the held point's status (and current-limit state) is read before the supply
+            # moves: after it, it would tell of the new setting (a supply sweep)
+            read = [(dc, dc.post_status())]
+            failure = _finish_all(read, Driver.finish_status)
+            if failure is not None:
+                raise failure
+            self._status_read.add(id(dc))
+            self._mark_supply_state(read)
         with dc.joined():
             sent = dc.set_voltage(point.supply_v)
             if not self._supply_on:

@@ -852,6 +852,11 @@ class Driver:
     #: :attr:`status_seen` (a supply's current-limit state, read at every point for free).
     status_companions: tuple[str, ...] = ()
 
+    @property
+    def joins_companions(self) -> bool:
+        """True when a posted status read carries :attr:`status_companions`."""
+        return bool(self._companions())
+
     def _companions(self) -> list[str]:
         """The :attr:`status_companions` this instrument's profile can join to a status
         read (plain single queries of a compound profile)."""

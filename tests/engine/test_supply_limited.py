@@ -58,3 +58,43 @@ def test_a_supply_below_its_limit_flags_nothing(tmp_path):
     assert not [e for e in events if e.kind == "supply"]
     judged = [j for j in run.assessment.judgements if j.figure.name == "conversion_gain"]
     assert judged and all(j.verdict == "pass" for j in judged)
+
+
+SWEEP = """format = 1
+[about]
+title = "a supply sweep"
+[part]
+id = "KX-2417"
+expected_gain = "12 dB"
+[mixing]
+if_frequency = "100 MHz"
+[conditions]
+supply = ["3.3 V", "2.9 V"]
+settle = "20 ms"
+[[study]]
+name = "gain"
+rf_frequency = ["2.0 GHz", "2.2 GHz", "2.4 GHz"]
+rf_power = "-35 dBm"
+lo_power = "0 dBm"
+read = ["wanted"]
+"""
+
+
+def test_in_a_supply_sweep_every_point_of_the_limited_setting_is_flagged(tmp_path):
+    """No supply reading at all: the supply's status after each point tells. The first point
+    of a setting (its own settings' check read the status) and the last (the next setting
+    changes the supply) are read too, before the supply moves: at 3.3 V the part's 30 mA
+    hits the 29 mA limit, at 2.9 V it draws less."""
+    sequence = tmp_path / "sweep.toml"
+    sequence.write_text(SWEEP, encoding="utf-8")
+    bench = tmp_path / "bench.toml"
+    bench.write_text(SIM_BENCH.read_text(encoding="utf-8").replace(
+        'supply_max_current = "200 mA"', 'supply_max_current = "29 mA"'), encoding="utf-8")
+    outcome = run_sequence(sequence, bench, sim=True, store_path=tmp_path / "s.sqlite")
+    assert outcome.status == "complete", outcome.reason
+    with SqliteRunStore(tmp_path / "s.sqlite", create=False) as db:
+        run = reduce_run(db, outcome.run_id)
+    flagged = {f.conditions["supply_v"]: [] for f in run.figures_named("conversion_gain")}
+    for f in run.figures_named("conversion_gain"):
+        flagged[f.conditions["supply_v"]].append("supply_limited" in f.flags)
+    assert flagged == {3.3: [True] * 3, 2.9: [False] * 3}
