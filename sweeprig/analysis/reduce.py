@@ -223,12 +223,17 @@ def _reduce_run(store: RunStore, run_id: int) -> RunFigures:
         if names := [s.name for s in studies
                      if ROLE_ISOLATION in s.roles or ROLE_SIDEBAND in s.roles]:
             figures += upconverter_figures(captures, study=names)
-    figures = _flag_supply_limited(figures, captures, points, notes)
+    # a point's state (its supply, its power) holds for every figure of the point, its noise
+    # figures' too (they are made apart and added last)
+    count = len(figures)
+    both = _flag_supply_limited(figures + noise_figures, captures, points, notes)
     if sequence is not None:
-        figures = _flag_unpowered(figures, captures, sequence.part.expected_gain, notes)
+        both = _flag_unpowered(both, captures, sequence.part.expected_gain, notes)
         expected_current = getattr(sequence.part, "expected_supply_current", None)
         if expected_current is not None:
-            figures = _flag_supply_current(figures, captures, float(expected_current), notes)
+            both = _flag_supply_current(both, captures, float(expected_current), notes)
+    figures, noise_figures = both[:count], both[count:]
+    del both
     notes += bench_specs.notes
     calibration, calibration_note = calibration_state(events)
     notes += [calibration_note] if calibration_note else []

@@ -98,3 +98,42 @@ def test_in_a_supply_sweep_every_point_of_the_limited_setting_is_flagged(tmp_pat
     for f in run.figures_named("conversion_gain"):
         flagged[f.conditions["supply_v"]].append("supply_limited" in f.flags)
     assert flagged == {3.3: [True] * 3, 2.9: [False] * 3}
+
+
+NOISE = """format = 1
+[about]
+title = "noise figure, supply in current limit"
+[part]
+id = "KX-2417"
+expected_gain = "12 dB"
+expected_lo_if_isolation = "30 dB"
+[mixing]
+conversion = "down"
+lo_side = "low"
+if_frequency = "100 MHz"
+[conditions]
+supply = "3.3 V"
+settle = "20 ms"
+[[study]]
+name = "noise"
+rf_frequency = ["1.8 GHz", "2.6 GHz"]
+rf_power = "-25 dBm"
+lo_power = "0 dBm"
+read = ["noise_figure"]
+"""
+
+
+def test_the_noise_figures_of_a_limited_point_are_flagged_too(tmp_path):
+    """The noise figures are made apart from the other figures (and added last): a point's
+    supply state holds for them as for the rest (they were left unflagged)."""
+    sequence = tmp_path / "noise.toml"
+    sequence.write_text(NOISE, encoding="utf-8")
+    bench = tmp_path / "bench.toml"
+    bench.write_text(SIM_BENCH.read_text(encoding="utf-8").replace(
+        'supply_max_current = "200 mA"', 'supply_max_current = "29 mA"'), encoding="utf-8")
+    outcome = run_sequence(sequence, bench, sim=True, store_path=tmp_path / "s.sqlite")
+    assert outcome.status == "complete", outcome.reason
+    with SqliteRunStore(tmp_path / "s.sqlite", create=False) as db:
+        run = reduce_run(db, outcome.run_id)
+    noise = run.figures_named("noise_figure")
+    assert len(noise) == 2 and all("supply_limited" in f.flags for f in noise)
