@@ -83,6 +83,13 @@ def _commands_text(sent: list[str], count: int) -> str:
     return prefix + "; ".join(shown) if shown else "(none since the last check)"
 
 
+def _compound(units: list[str]) -> str:
+    """Program message units as one compound message, each header made absolute (a leading
+    ``:``), since after a ``;`` a header is read relative to the previous one's path
+    (SCPI-99 Vol. 1, 6.2.4, from memory)."""
+    return ";".join(u if u.startswith((":", "*")) else ":" + u for u in units)
+
+
 class Driver:
     """Base of the generic drivers.
 
@@ -266,9 +273,8 @@ class Driver:
             self.transport.write(message)
 
     def _joined(self, cmd: str | None) -> str:
-        """The held commands and ``cmd`` as one message; each unit's header made absolute
-        (a leading ``:``), since after a ``;`` a header is read relative to the previous
-        one's path (SCPI-99 Vol. 1, 6.2.4, from memory). Empties the hold."""
+        """The held commands and ``cmd`` as one message (:func:`_compound`). Empties the
+        hold."""
         if not self._held:
             assert cmd is not None
             return cmd
@@ -276,7 +282,7 @@ class Driver:
         self._held = []
         if len(units) == 1:
             return units[0]
-        return ";".join(u if u.startswith((":", "*")) else ":" + u for u in units)
+        return _compound(units)
 
     # -- values and limits ------------------------------------------------------------------
 
@@ -482,14 +488,8 @@ class Driver:
             for cmd in queries[:-1]:
                 self._send(cmd)
             reply = self.query(queries[-1], timeout_s=timeout)
-        parts = reply.strip().split(";")
-        if len(parts) != len(queries):
-            raise InstrumentError(
-                f"{len(queries)} joined queries got {len(parts)} answers: {reply!r}",
-                where=self.where(";".join(queries)),
-                fix="if the instrument does not take compound messages, set "
-                "compound_messages = false in its driver profile",
-            )
+        parts = self._answers(reply, len(queries), f"{len(queries)} joined queries",
+                              ";".join(queries))
         return [self._read_back_value(o, part) for o, part in zip(operations, parts,
                                                                    strict=True)]
 
@@ -823,14 +823,7 @@ class Driver:
         opc = self.profile.op("operation_complete").queries[0]
         if first:
             status_cmd = self.profile.op("event_status").queries[0]
-            parts = reply.strip().split(";")
-            if len(parts) != 2:
-                raise InstrumentError(
-                    f"{status_cmd} and {opc} joined got {len(parts)} answers: {reply!r}",
-                    where=self.where(opc),
-                    fix="if the instrument does not take compound messages, set "
-                    "compound_messages = false in its driver profile",
-                )
+            parts = self._answers(reply, 2, f"{status_cmd} and {opc} joined", opc)
             self._take_status(parts[0], status_cmd)
             if self._errors_flagged and self._errors_before is None:
                 self._errors_before = self._lead_mark
@@ -879,9 +872,8 @@ class Driver:
         op = self.profile.op("event_status")
         units = [op.queries[0], *(self.profile.op(name).queries[0]
                                   for name in self._companions())]
-        message = ";".join(u if u.startswith((":", "*")) or k == 0 else ":" + u
-                           for k, u in enumerate(units))
-        return self.post_query(message, timeout_s=op.timeout_s)
+        return self.post_query(_compound(units) if len(units) > 1 else units[0],
+                               timeout_s=op.timeout_s)
 
     def finish_status(self, pending: Pending | None) -> None:
         """Take the ``*ESR?`` reply of :meth:`post_status` as :meth:`point_status` would, and
@@ -892,21 +884,13 @@ class Driver:
         status_cmd = self.profile.op("event_status").queries[0]
         also = self._companions()
         if also:
-            parts = reply.strip().split(";")
-            if len(parts) != 1 + len(also):
-                raise InstrumentError(
-                    f"{status_cmd} and {len(also)} joined queries got {len(parts)} answers: "
-                    f"{reply!r}", where=self.where(status_cmd),
-                    fix="if the instrument does not take compound messages, set "
-                    "compound_messages = false in its driver profile")
+            parts = self._answers(reply, 1 + len(also),
+                                  f"{status_cmd} and {len(also)} joined queries", status_cmd)
             reply = parts[0]
             for name, part in zip(also, parts[1:], strict=True):
                 operation = self.profile.op(name)
-                value = self._parse(part, operation.reply or "text",
-                                    self.where(operation.queries[0]))
-                if operation.mask is not None:
-                    value = (int(value) & operation.mask) != 0
-                self.status_seen[name] = value
+                self.status_seen[name] = self._joined_value(operation, part,
+                                                            operation.queries[0])
         self._take_status(reply, status_cmd)
 
     def sync(self) -> None:
@@ -953,24 +937,32 @@ class Driver:
             if timeout_s is not None:
                 timeout = max(timeout_s, timeout or 0.0)
             reply = self.query(last, timeout_s=timeout)
-        parts = reply.strip().split(";")
         expected = len(queries) + (status_cmd is not None)
-        if len(parts) != expected:
+        parts = self._answers(reply, expected, f"{expected} joined queries", last)
+        if status_cmd is not None:
+            self._take_status(parts.pop(), status_cmd)
+        return [self._joined_value(operation, part, cmd)
+                for operation, part, cmd in zip(ops, parts, queries, strict=True)]
+
+    def _answers(self, reply: str, count: int, what: str, cmd: str) -> list[str]:
+        """The ``count`` answers of a joined reply; :class:`InstrumentError` naming ``what``
+        and ``cmd`` when there are not that many."""
+        parts = reply.strip().split(";")
+        if len(parts) != count:
             raise InstrumentError(
-                f"{expected} joined queries got {len(parts)} answers: {reply!r}",
-                where=self.where(last),
+                f"{what} got {len(parts)} answers: {reply!r}",
+                where=self.where(cmd),
                 fix="if the instrument does not take compound messages, set "
                 "compound_messages = false in its driver profile",
             )
-        if status_cmd is not None:
-            self._take_status(parts.pop(), status_cmd)
-        results: list[Any] = []
-        for operation, part, cmd in zip(ops, parts, queries, strict=True):
-            value = self._parse(part, operation.reply or "text", self.where(cmd))
-            if operation.mask is not None:
-                value = (int(value) & operation.mask) != 0
-            results.append(value)
-        return results
+        return parts
+
+    def _joined_value(self, operation: Operation, part: str, cmd: str) -> Any:
+        """One answer of a joined reply, parsed as ``operation`` says (a bool with a mask)."""
+        value = self._parse(part, operation.reply or "text", self.where(cmd))
+        if operation.mask is not None:
+            value = (int(value) & operation.mask) != 0
+        return value
 
     def forget_state(self) -> None:
         """Empty the cache of last-sent settings (after a reset, reconnect or power cycle),
