@@ -15,6 +15,30 @@ from sweeprig.sim.bench import SimBench, prepare_part
 from sweeprig.sim.noise_truth import part_noise_figure
 
 ROOT = Path(__file__).resolve().parents[2]
+
+
+def noise_sequence(rf_frequency: str = '["2.2 GHz"]') -> str:
+    """A small sequence of one double-sideband noise-figure study (the demo part, low-side LO
+    100 MHz below the RF, 0 dBm, 3.3 V) at ``rf_frequency`` (its TOML value)."""
+    return f"""format = 1
+[part]
+id = "KX-2417"
+expected_gain = "12 dB"
+expected_lo_if_isolation = "30 dB"
+[mixing]
+conversion = "down"
+lo_side = "low"
+if_frequency = "100 MHz"
+[conditions]
+supply = "3.3 V"
+settle = "20 ms"
+[[study]]
+name = "noise"
+rf_frequency = {rf_frequency}
+rf_power = "-25 dBm"
+lo_power = "0 dBm"
+read = ["noise_figure"]
+"""
 SIM_BENCH = ROOT / "sequences" / "benches" / "sim.toml"
 ROLES = ("sa", "nsdc", "lo", "rf", "rf2", "dc", "switch", "chamber")
 IF_HZ = 100e6

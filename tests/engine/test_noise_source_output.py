@@ -19,7 +19,13 @@ from sweeprig.formats.bench import Bench, load_bench
 from sweeprig.formats.sequence import load_sequence, required_roles
 from sweeprig.plan.noise_check import check_noise_figure
 from sweeprig.sim.bench import SimBench, resolve_description, start_sim_bench
-from tests.engine.noise_support import IF_HZ, SIM_BENCH, measure, open_noise_bench
+from tests.engine.noise_support import (
+    IF_HZ,
+    SIM_BENCH,
+    measure,
+    noise_sequence,
+    open_noise_bench,
+)
 
 ROLES = ("sa", "lo", "rf", "rf2", "dc", "switch", "chamber")
 
@@ -113,25 +119,6 @@ def test_no_supply_role_is_needed_and_a_profile_without_the_operation_is_refused
     assert "roles.sa" in str(info.value.where) and "scpi-analyzer-ns" in (info.value.fix or "")
 
 
-RUN_SEQUENCE = """format = 1
-[part]
-id = "KX-2417"
-expected_gain = "12 dB"
-expected_lo_if_isolation = "30 dB"
-[mixing]
-conversion = "down"
-lo_side = "low"
-if_frequency = "100 MHz"
-[conditions]
-supply = "3.3 V"
-settle = "20 ms"
-[[study]]
-name = "noise"
-rf_frequency = ["2.2 GHz"]
-rf_power = "-25 dBm"
-lo_power = "0 dBm"
-read = ["noise_figure"]
-"""
 
 
 def test_a_run_drives_the_source_from_the_analyzer_and_ends_with_it_off(tmp_path: Path
@@ -149,7 +136,7 @@ def test_a_run_drives_the_source_from_the_analyzer_and_ends_with_it_off(tmp_path
     bench_path = tmp_path / "bench.toml"
     bench_path.write_text(analyzer_driven_bench_text(), encoding="utf-8")
     sequence = tmp_path / "noise.toml"
-    sequence.write_text(RUN_SEQUENCE, encoding="utf-8")
+    sequence.write_text(noise_sequence(), encoding="utf-8")
     store_path = tmp_path / "runs.sqlite"
     outcome = run_sequence(sequence, bench_path=bench_path, sim=True,
                            sim_description=sim_bench, store_path=store_path)

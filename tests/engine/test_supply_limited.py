@@ -15,19 +15,24 @@ from pathlib import Path
 from sweeprig.analysis.reduce import reduce_run
 from sweeprig.engine.session import run_sequence, shipped_sequences_dir
 from sweeprig.store.sqlite import SqliteRunStore
+from tests.engine.noise_support import SIM_BENCH, noise_sequence
 
 QUICK = shipped_sequences_dir() / "demo" / "quick.toml"
-SIM_BENCH = shipped_sequences_dir() / "benches" / "sim.toml"
 
 
-def _run(tmp_path: Path, limit: str):
+def _run(tmp_path: Path, limit: str, sequence: Path | str = QUICK):
+    """``sequence`` (a path, or a sequence's text) on the simulated bench with the built-in
+    bench file's supply current limit set to ``limit``: (the reduced run, its events)."""
+    if isinstance(sequence, str):
+        text, sequence = sequence, tmp_path / "sequence.toml"
+        sequence.write_text(text, encoding="utf-8")
     bench = tmp_path / f"bench-{limit.replace(' ', '')}.toml"
     text = SIM_BENCH.read_text(encoding="utf-8")
     assert 'supply_max_current = "200 mA"' in text
     bench.write_text(text.replace('supply_max_current = "200 mA"',
                                   f'supply_max_current = "{limit}"'), encoding="utf-8")
     store = tmp_path / f"{limit.replace(' ', '')}.sqlite"
-    outcome = run_sequence(QUICK, bench, sim=True, store_path=store)
+    outcome = run_sequence(sequence, bench, sim=True, store_path=store)
     assert outcome.status == "complete", outcome.reason
     with SqliteRunStore(store, create=False) as db:
         return reduce_run(db, outcome.run_id), db.events(outcome.run_id)
@@ -85,55 +90,16 @@ def test_in_a_supply_sweep_every_point_of_the_limited_setting_is_flagged(tmp_pat
     of a setting (its own settings' check read the status) and the last (the next setting
     changes the supply) are read too, before the supply moves: at 3.3 V the part's 30 mA
     hits the 29 mA limit, at 2.9 V it draws less."""
-    sequence = tmp_path / "sweep.toml"
-    sequence.write_text(SWEEP, encoding="utf-8")
-    bench = tmp_path / "bench.toml"
-    bench.write_text(SIM_BENCH.read_text(encoding="utf-8").replace(
-        'supply_max_current = "200 mA"', 'supply_max_current = "29 mA"'), encoding="utf-8")
-    outcome = run_sequence(sequence, bench, sim=True, store_path=tmp_path / "s.sqlite")
-    assert outcome.status == "complete", outcome.reason
-    with SqliteRunStore(tmp_path / "s.sqlite", create=False) as db:
-        run = reduce_run(db, outcome.run_id)
+    run, _ = _run(tmp_path, "29 mA", SWEEP)
     flagged = {f.conditions["supply_v"]: [] for f in run.figures_named("conversion_gain")}
     for f in run.figures_named("conversion_gain"):
         flagged[f.conditions["supply_v"]].append("supply_limited" in f.flags)
     assert flagged == {3.3: [True] * 3, 2.9: [False] * 3}
 
 
-NOISE = """format = 1
-[about]
-title = "noise figure, supply in current limit"
-[part]
-id = "KX-2417"
-expected_gain = "12 dB"
-expected_lo_if_isolation = "30 dB"
-[mixing]
-conversion = "down"
-lo_side = "low"
-if_frequency = "100 MHz"
-[conditions]
-supply = "3.3 V"
-settle = "20 ms"
-[[study]]
-name = "noise"
-rf_frequency = ["1.8 GHz", "2.6 GHz"]
-rf_power = "-25 dBm"
-lo_power = "0 dBm"
-read = ["noise_figure"]
-"""
-
-
 def test_the_noise_figures_of_a_limited_point_are_flagged_too(tmp_path):
     """The noise figures are made apart from the other figures (and added last): a point's
     supply state holds for them as for the rest (they were left unflagged)."""
-    sequence = tmp_path / "noise.toml"
-    sequence.write_text(NOISE, encoding="utf-8")
-    bench = tmp_path / "bench.toml"
-    bench.write_text(SIM_BENCH.read_text(encoding="utf-8").replace(
-        'supply_max_current = "200 mA"', 'supply_max_current = "29 mA"'), encoding="utf-8")
-    outcome = run_sequence(sequence, bench, sim=True, store_path=tmp_path / "s.sqlite")
-    assert outcome.status == "complete", outcome.reason
-    with SqliteRunStore(tmp_path / "s.sqlite", create=False) as db:
-        run = reduce_run(db, outcome.run_id)
+    run, _ = _run(tmp_path, "29 mA", noise_sequence('["1.8 GHz", "2.6 GHz"]'))
     noise = run.figures_named("noise_figure")
     assert len(noise) == 2 and all("supply_limited" in f.flags for f in noise)
