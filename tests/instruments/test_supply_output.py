@@ -54,3 +54,13 @@ def test_the_limit_rides_with_the_points_status_read():
     assert dc.status_seen == {"current_limited": True} and dc.point_status() == 0
     assert dc.post_status() is None and dc.status_seen == {}  # fresh: nothing sent
     assert len(link.sent) == 1
+
+
+def test_the_name_the_reading_records_is_the_figure_flag():
+    """The runner writes the instruments' name, the reduction reads the analysis' one: two
+    layers that do not import each other, so the two spellings are pinned together."""
+    from sweeprig.analysis.figures import FLAGS
+    from sweeprig.analysis.figures import SUPPLY_LIMITED as FLAG
+    from sweeprig.instruments.supply import SUPPLY_LIMITED
+
+    assert SUPPLY_LIMITED == FLAG and FLAG in FLAGS
