@@ -98,7 +98,8 @@ def build_sim_instruments(
         role: source_class(clock, f"{serial}{k + 1}", level_error_db=level_error,
                            harmonics_dbc=harmonics,
                            spurious=[(s.offset, s.level) for s in desc.sources.spurious],
-                           level_linearity_db=linearity, reference=oscillators[role])
+                           level_linearity_db=linearity, reference=oscillators[role],
+                           leveled_max_dbm=getattr(desc.sources.leveled_max, role))
         for k, role in enumerate(("rf", "rf2", "lo"))
     }
     supply = DcSupply(clock, load=world.supply_current_a)

@@ -45,6 +45,9 @@ optional; the values shown are the defaults)::
     [sources.notch]              # optional band-stop in a source's path: a planted fault
     # rf = { center = "2.2 GHz", width = "20 MHz", depth = "110 dB" }   # also rf2, lo
 
+    [sources.leveled_max]        # optional most a source delivers leveled: a planted fault
+    # rf = "5 dBm"               # above it: 5 dBm out, STAT:QUES:COND? bit 3 set; also rf2, lo
+
     [analyzer]
     noise_figure = "14 dB"       # at 0 dB attenuation
     toi = "15 dBm"               # first-mixer third-order intercept
@@ -103,7 +106,9 @@ Realism (each key above has a realistic default; docs/sim-bench.md explains them
 ``[sources] spurious`` (non-harmonic lines at carrier + offset, dBc) and
 ``[sources.lowpass]`` (a Butterworth low-pass per source: ``corner``, ``order``) and
 ``[sources.notch]`` (a flat band-stop per source path, a planted fault: ``center``,
-``width``, ``depth``);
+``width``, ``depth``) and ``[sources.leveled_max]`` (the most a source delivers leveled,
+dBm, per role: above it the output stays there and the source sets its questionable
+POWer bit, bit 3, as an unleveled generator does: a planted fault);
 ``[analyzer] phase_noise`` ((offset, dBc/Hz) points: reciprocal mixing) and
 ``coherent_products`` (its first-mixer products add to lines as voltages with a seeded
 phase); ``[dut] leakage_phase`` and ``leakage_delay`` (each leakage path of the part turns
@@ -275,6 +280,15 @@ class SourceNotchesSpec(Frozen):
     lo: NotchSpec | None = None
 
 
+class SourceLeveledMaxSpec(Frozen):
+    """An optional maximum leveled output per source, dBm (absent: leveled at every
+    setting): above it the source delivers this much and reports itself unleveled."""
+
+    rf: Power | None = None
+    rf2: Power | None = None
+    lo: Power | None = None
+
+
 #: Every simulated source's non-harmonic spurs unless the description says otherwise:
 #: −72 dBc at ±10 MHz from the carrier (reference-related spurs; an assumption, invented
 #: figures in the range signal sources state).
@@ -297,6 +311,8 @@ class SourcesSpec(Frozen):
     lowpass: SourceFiltersSpec = SourceFiltersSpec()
     #: Band-stops planted in their output paths (none by default).
     notch: SourceNotchesSpec = SourceNotchesSpec()
+    #: The most each can deliver leveled, dBm (none by default: leveled at every setting).
+    leveled_max: SourceLeveledMaxSpec = SourceLeveledMaxSpec()
     #: Their command set: "tarnwick" (TW-SG6) or "farrowmere" (FR-SG8: settings applied late
     #: unless synchronised, on its own crystal unless the bench locks it; docs/instruments.md).
     family: Literal["tarnwick", "farrowmere"] = "tarnwick"

@@ -368,11 +368,14 @@ def _static_world(desc: SimBenchDescription, drive: Drive, port: Port) -> SimWor
     harmonics = tuple(float(h) for h in desc.sources.harmonics)
     spurious = tuple((s.offset, s.level) for s in desc.sources.spurious)
 
-    def source(freq: float | None, power: float) -> _Source | None:
+    def source(freq: float | None, power: float, role: str) -> _Source | None:
         if freq is None:
             return None
         delivered = (float(power) + float(error(float(freq)))
                      + linearity_error_db(float(power), linearity))
+        leveled_max = getattr(desc.sources.leveled_max, role)
+        if leveled_max is not None:  # as the simulated source: no more than it can level
+            delivered = min(delivered, float(leveled_max))
         return _Source(float(freq), delivered, True, harmonics, spurious)
 
     temperature = desc.chamber.ambient if drive.temperature_c is None else drive.temperature_c
@@ -383,9 +386,9 @@ def _static_world(desc: SimBenchDescription, drive: Drive, port: Port) -> SimWor
                          where="truth.Drive",
                          fix="give finite numbers (None for a source that is off)")
     world.connect(
-        rf=source(drive.rf_freq_hz, drive.rf_power_dbm),
-        rf2=source(drive.rf2_freq_hz, drive.rf2_power_dbm),
-        lo=source(drive.lo_freq_hz, drive.lo_power_dbm),
+        rf=source(drive.rf_freq_hz, drive.rf_power_dbm, "rf"),
+        rf2=source(drive.rf2_freq_hz, drive.rf2_power_dbm, "rf2"),
+        lo=source(drive.lo_freq_hz, drive.lo_power_dbm, "lo"),
         supply=_Supply(float(drive.supply_v), drive.supply_v > 0),
         chamber=_Chamber(float(temperature)),
         switch=_Switch(int(_channel(port))),

@@ -5,6 +5,11 @@ Roles ``rf``, ``rf2``, ``lo``. The world reads the read-only views ``freq_hz``,
 at the set frequency, dBm, whether or not the output is on), ``output_on`` and
 ``harmonics_dbc`` (levels of the 2nd, 3rd, … harmonics relative to the carrier, dBc) and
 ``spurious`` (non-harmonic lines as (offset from the carrier Hz, level dBc)).
+
+A source given a ``leveled_max_dbm`` (a planted fault: an output amplifier short of
+headroom) delivers at most that; asked for more with its output on, it reports itself
+unleveled in its questionable status register's POWer bit (bit 3,
+``STATus:QUEStionable:CONDition?``; SCPI-99 Volume 2's questionable register, from memory).
 """
 
 from __future__ import annotations
@@ -25,6 +30,8 @@ POWER_DEFAULT_DBM = -30.0
 FREQ_DEFAULT_HZ = 1e9
 #: Settling after a frequency or level change, s (invented figure of the simulated source).
 SETTLE_S = 0.002
+#: The questionable register's POWer bit (bit 3): set while the output is not leveled.
+QUES_POWER = 1 << 3
 
 
 def default_level_error_db(freq_hz: float) -> float:
@@ -83,12 +90,14 @@ class SignalSource(ScpiInstrument):
         spurious: Sequence[tuple[float, float]] = (),
         level_linearity_db: float = 0.0,
         reference: ReferenceOscillator | None = None,
+        leveled_max_dbm: float | None = None,
     ) -> None:
         super().__init__(clock, Identity(self.maker, self.model, serial, "1.0"))
         self.reference = reference or ReferenceOscillator()
         self.reference.install(self, "[SOURce]:ROSCillator:SOURce")
         self.level_error_db = level_error_db
         self.level_linearity_db = float(level_linearity_db)
+        self.leveled_max_dbm = math.inf if leveled_max_dbm is None else float(leveled_max_dbm)
         self._harmonics_dbc = tuple(float(h) for h in harmonics_dbc)
         self._spurious = tuple((float(o), float(d)) for o, d in spurious)
         self.add_setting(Setting(
@@ -119,7 +128,17 @@ class SignalSource(ScpiInstrument):
         return self.freq_hz * (1.0 + 1e-6 * self.reference.error_ppm())
 
     def questionable_condition(self) -> int:
-        return self.reference.questionable_bits()
+        return self.reference.questionable_bits() | self.unleveled_bits()
+
+    def unleveled_bits(self) -> int:
+        """:data:`QUES_POWER` while the output is on and asked for more than it can
+        deliver leveled, else 0."""
+        return QUES_POWER if self.output_on and self.unleveled else 0
+
+    @property
+    def unleveled(self) -> bool:
+        """True when the setting asks for more than :attr:`leveled_max_dbm` at the output."""
+        return self._nominal_power_dbm() > self.leveled_max_dbm
 
     @property
     def power_dbm(self) -> float:
@@ -129,7 +148,10 @@ class SignalSource(ScpiInstrument):
     @property
     def delivered_power_dbm(self) -> float:
         """Level actually delivered at the output connector, dBm (setting + level error
-        versus frequency + level error versus level)."""
+        versus frequency + level error versus level), at most :attr:`leveled_max_dbm`."""
+        return min(self._nominal_power_dbm(), self.leveled_max_dbm)
+
+    def _nominal_power_dbm(self) -> float:
         freq_hz, power = self.freq_hz, self.power_dbm
         return (power + float(self.level_error_db(freq_hz))
                 + linearity_error_db(power, self.level_linearity_db))

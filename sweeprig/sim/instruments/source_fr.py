@@ -13,6 +13,8 @@ of docs/instruments.md ("Signal source, second family"), written before its prof
   (SCPI-99 SETTling) is set;
 * the reference-unlocked flag in the questionable register's instrument-defined bit 9
   (SCPI-99 leaves bits 9 to 13 to the instrument), not bit 5;
+* its unleveled flag where the first family has it, the standard POWer bit 3 (its profile
+  takes no compound messages, so the engine does not read it after every point);
 * its own crystal is off (see :data:`CRYSTAL_PPM`) and it powers on on it.
 
 The times are invented figures of this fictional source.
@@ -97,4 +99,5 @@ class FarrowmereSource(SignalSource):
         return bool(self._at_output("output_on"))
 
     def questionable_condition(self) -> int:
-        return QUES_UNLOCKED_FR if self.reference.questionable_bits() & QUES_FREQUENCY else 0
+        unlocked = QUES_UNLOCKED_FR if self.reference.questionable_bits() & QUES_FREQUENCY else 0
+        return unlocked | self.unleveled_bits()  # its unleveled flag: the standard bit 3
