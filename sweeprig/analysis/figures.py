@@ -96,6 +96,11 @@ Flags (sweeprig's own names)
     by a ``supply_current`` reading, its output more than 2 % below the setting: the part ran
     below its stated supply (a bench current limit below the part's draw, often only at the
     hot corner).
+``source_unleveled``
+    At a point behind the figure a signal source reported its output not leveled (its
+    questionable status' POWer bit, asked with its status read after every point): it
+    delivered less than its setting, so the part got less drive than the plan says (a
+    setting above the source's maximum leveled output, often only at the top of its band).
 ``image_ratio_doubtful``
     A single-sideband noise figure converted with a measured image-to-signal ratio whose
     wanted reading stood less than 6 dB above its noise floor, or that put the image response
@@ -161,6 +166,7 @@ FREQUENCY_OFFSET = "frequency_offset"
 WINDOW_EDGE = "window_edge"
 IMAGE_RATIO_DOUBTFUL = "image_ratio_doubtful"
 SUPPLY_LIMITED = "supply_limited"
+SOURCE_UNLEVELED = "source_unleveled"
 
 #: Every flag, in a fixed order: the position is the flag's bit in a flag mask.
 FLAGS: tuple[str, ...] = (
@@ -199,6 +205,8 @@ FLAGS: tuple[str, ...] = (
     IMAGE_RATIO_DOUBTFUL,
     # the supply read at a point (sweeprig.instruments.supply.supply_limited)
     SUPPLY_LIMITED,
+    # a source's level state read after a point (its unleveled flag)
+    SOURCE_UNLEVELED,
 )
 
 #: Flags that make a figure untrustworthy as a number: a limit check on it is inconclusive.
@@ -236,6 +244,7 @@ SUSPECT_FLAGS: frozenset[str] = frozenset(
         WINDOW_EDGE,
         IMAGE_RATIO_DOUBTFUL,
         SUPPLY_LIMITED,
+        SOURCE_UNLEVELED,
     }
 )
 
@@ -299,6 +308,8 @@ FLAG_MEANINGS: Mapping[str, str] = MappingProxyType({
     "the part's",
     SUPPLY_LIMITED: "at a point behind it the DC supply was in current limit or more than 2 % "
     "below its setting: the part ran below its stated supply",
+    SOURCE_UNLEVELED: "at a point behind it a signal source reported its output not leveled: "
+    "the part got less drive than the plan says",
 })
 
 _FLAG_BIT = {name: 1 << i for i, name in enumerate(FLAGS)}

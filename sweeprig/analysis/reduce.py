@@ -33,7 +33,7 @@ import functools
 import json
 import math
 import tomllib
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 from datetime import datetime
 from pathlib import Path
@@ -44,6 +44,7 @@ import numpy as np
 
 from sweeprig.analysis.captures import OUTPUT_FREQ, risk_mask
 from sweeprig.analysis.figures import (
+    SOURCE_UNLEVELED,
     SUPPLY_CURRENT_OFF,
     SUPPLY_LIMITED,
     UNPOWERED,
@@ -227,6 +228,7 @@ def _reduce_run(store: RunStore, run_id: int) -> RunFigures:
     # figures' too (they are made apart and added last)
     count = len(figures)
     both = _flag_supply_limited(figures + noise_figures, captures, points, notes)
+    both = _flag_source_unleveled(both, points, notes)
     if sequence is not None:
         both = _flag_unpowered(both, captures, sequence.part.expected_gain, notes)
         expected_current = getattr(sequence.part, "expected_supply_current", None)
@@ -518,14 +520,9 @@ def _flag_supply_limited(figures: list[Figure], captures: pd.DataFrame,
         supply = captures[captures["reading"] == "supply_current"]
         marked.append(supply["point"].to_numpy()[
             risk_mask(supply["risks"].to_numpy(), SUPPLY_LIMITED)])
-    if not points.empty and "extra_json" in points:
-        extras = points["extra_json"].to_numpy(dtype=object)
-        hit = [i for i, text in enumerate(extras.tolist())
-               if isinstance(text, str) and '"supply_flags"' in text
-               and SUPPLY_LIMITED in (json.loads(text).get("supply_flags") or ())]
-        marked.append(points["point_index"].to_numpy()[hit])
-    found = (np.unique(np.concatenate(marked)).astype(np.int64) if marked
-             else np.zeros(0, dtype=np.int64))
+    marked.append(_points_marked(points, "supply_flags",
+                                 lambda listed: SUPPLY_LIMITED in listed))
+    found = np.unique(np.concatenate(marked)).astype(np.int64)
     if found.size == 0:
         return figures
     notes.append(
@@ -535,6 +532,44 @@ def _flag_supply_limited(figures: list[Figure], captures: pd.DataFrame,
         "temperature, and the supply's leads); every figure from those points is flagged "
         "'supply_limited'")
     return flag_points(figures, found.tolist(), SUPPLY_LIMITED)
+
+
+def _points_marked(points: pd.DataFrame, key: str,
+                   marks: Callable[[list[str]], bool]) -> np.ndarray:
+    """The point indexes whose record's ``extra_json`` holds a list under ``key`` that
+    ``marks`` (the runner's marks of a point, from the status reads after it)."""
+    if points.empty or "extra_json" not in points:
+        return np.zeros(0, dtype=np.int64)
+    needle = f'"{key}"'
+    extras = points["extra_json"].to_numpy(dtype=object)
+    hit = [i for i, text in enumerate(extras.tolist())
+           if isinstance(text, str) and needle in text
+           and marks(json.loads(text).get(key) or [])]
+    return points["point_index"].to_numpy()[hit].astype(np.int64)
+
+
+def _flag_source_unleveled(figures: list[Figure], points: pd.DataFrame,
+                           notes: list[str]) -> list[Figure]:
+    """Flag ``source_unleveled`` every figure that came from a point after which a signal
+    source reported its output not leveled (the runner's ``unleveled_sources`` in the
+    point's ``extra_json``: the sources' status read after the point asks their level
+    state), and say which sources."""
+    roles: set[str] = set()
+
+    def marks(listed: list[str]) -> bool:
+        roles.update(str(r) for r in listed)
+        return bool(listed)
+
+    found = _points_marked(points, "unleveled_sources", marks)
+    if found.size == 0:
+        return figures
+    notes.append(
+        f"at {found.size} of {len(points)} point(s) source "
+        f"{' and '.join(repr(r) for r in sorted(roles))} reported its output not leveled: it "
+        "delivered less than its setting, so the part got less drive than the plan says "
+        "(check the path losses and the source's maximum leveled output at those "
+        "frequencies); every figure from those points is flagged 'source_unleveled'")
+    return flag_points(figures, found.tolist(), SOURCE_UNLEVELED)
 
 
 def _flag_supply_current(figures: list[Figure], captures: pd.DataFrame,

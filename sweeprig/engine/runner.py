@@ -56,7 +56,7 @@ from typing import Any
 import numpy as np
 
 from sweeprig.clock import Clock, WallClock
-from sweeprig.engine.connect import BenchDrivers
+from sweeprig.engine.connect import SOURCE_ROLES, BenchDrivers
 from sweeprig.engine.eta import EtaTracker
 from sweeprig.engine.noise_floor import MASK_HALF_WIDTH_RBW, NoiseFloor, estimate_noise_floor
 from sweeprig.errors import InputError, InstrumentError, StoreError, TransportError
@@ -65,6 +65,7 @@ from sweeprig.formats.pathloss import PathLoss
 from sweeprig.formats.sequence import AdaptiveSoak, Sequence
 from sweeprig.instruments import AnalyzerDriver, ChamberDriver, Driver, SourceDriver
 from sweeprig.instruments.driver import Pending
+from sweeprig.instruments.source import UNLEVELED_SOURCES
 from sweeprig.instruments.supply import SUPPLY_LIMITED, supply_limited
 from sweeprig.plan import search_window as sw
 from sweeprig.plan.duration import soak_range_s
@@ -179,6 +180,7 @@ class Runner:
         self.policy = policy or RecoveryPolicy()
         self.skipped = 0
         self._supply_limited_told = False  # its event is written once a run
+        self._unleveled_told = False  # so is this one
         self.recoveries = 0
         self._temperature_c: float | None = None
         self._supply_on = False
@@ -259,7 +261,7 @@ class Runner:
             failure = _finish_all(owed, Driver.finish_status)
             if failure is not None:
                 raise failure
-            self._mark_supply_state([*pending, *owed])
+            self._mark_point_state([d for d, p in [*pending, *owed] if p is not None])
             for role, driver in self._unverified:
                 if driver.taken_status() & PON_BIT:
                     raise _reset(role, driver, f"point {self._held[3].point.index}")
@@ -267,17 +269,33 @@ class Runner:
             self._unverified, self._status_read = [], set()
         self._store_held()
 
-    def _mark_supply_state(self, read: list[tuple[Driver, Pending | None]]) -> None:
-        """Mark the held point ``supply_limited`` when the supply's status read after it (the
-        read just made, ``read``) found the supply holding its current limit."""
-        dc = self.d.dc
-        if dc is None or self._held is None or not any(d is dc and p is not None
-                                                        for d, p in read):
+    def _mark_point_state(self, read: list[Driver]) -> None:
+        """Mark the held point from the status reads just made after it (``read``: the
+        instruments whose read came back, with their :attr:`~Driver.status_seen`):
+        ``supply_limited`` when the supply held its current limit, and the sources that said
+        their output was not leveled (``unleveled_sources``, role names)."""
+        if self._held is None or not read:
             return
-        if dc.status_seen.get("current_limited"):
-            record = self._held[0]
+        record = self._held[0]
+        dc = self.d.dc
+        if dc is not None and any(d is dc for d in read) \
+                and dc.status_seen.get("current_limited"):
             record.extra["supply_flags"] = [SUPPLY_LIMITED]
             self._tell_supply_limited(record.index, "in current limit")
+        roles = [role for role in SOURCE_ROLES
+                 if (source := getattr(self.d, role)) is not None
+                 and any(d is source for d in read) and source.status_seen.get("unleveled")]
+        if roles:
+            known = record.extra.get(UNLEVELED_SOURCES) or []
+            record.extra[UNLEVELED_SOURCES] = sorted({*known, *roles})
+            if not self._unleveled_told:
+                self._unleveled_told = True
+                self._event("warning", "source", f"point {record.index}: source "
+                            f"{' and '.join(repr(r) for r in roles)} reports its output not "
+                            "leveled: it delivers less than its setting, so the part got "
+                            "less drive than planned; check the path losses and the source's "
+                            "maximum leveled output at these frequencies (the figures of such "
+                            "points are flagged source_unleveled)", record.index)
 
     def _tell_supply_limited(self, point_index: int, how: str, detail: str = "") -> None:
         """The run's one event saying the part runs below its stated supply."""
@@ -690,7 +708,7 @@ class Runner:
             if failure is not None:
                 raise failure
             self._status_read.add(id(dc))
-            self._mark_supply_state(read)
+            self._mark_point_state([dc])
         with dc.joined():
             sent = dc.set_voltage(point.supply_v)
             if not self._supply_on:
@@ -893,6 +911,7 @@ class Runner:
             _finish_all(status_posted, Driver.finish_status)
             raise failure
         self._status_read.update(led)  # read: only now, with every reply in
+        self._mark_point_state([d for d, _p in posted if id(d) in led])
         # the status replies are read by _confirm_held, once the settling time has begun
         # (it counts from the sources' replies alone)
         self._status_pending = status_posted

@@ -799,13 +799,18 @@ class Driver:
         ``status_first``: the message begins with ``*ESR?``, read before the held settings
         run (so it tells of the time before them); :meth:`finish_sync` keeps its bits for
         :meth:`taken_status`, and the status counts as unread afterwards (the settings came
-        after it). Ignored without compound messages or an ``event_status`` operation."""
+        after it). The :attr:`status_companions` follow it, before the settings too (their
+        answers in :attr:`status_seen`, as :meth:`post_status` gives them). Ignored without
+        compound messages or an ``event_status`` operation."""
         if not self.compound:
             self.check_errors()
             return None
         if status_first and self.profile.has("event_status"):
+            self.status_seen = {}
             self._lead_mark = self._block_count - len(self._held)  # (held: in the block)
-            self._held.insert(0, self.profile.op("event_status").queries[0])
+            self._held[0:0] = [self.profile.op("event_status").queries[0],
+                               *(self.profile.op(name).queries[0]
+                                 for name in self._companions())]
             self._status_first = True
         opc = self.profile.op("operation_complete")
         try:
@@ -823,12 +828,16 @@ class Driver:
         opc = self.profile.op("operation_complete").queries[0]
         if first:
             status_cmd = self.profile.op("event_status").queries[0]
-            parts = self._answers(reply, 2, f"{status_cmd} and {opc} joined", opc)
+            also = self._companions()
+            parts = self._answers(reply, 2 + len(also),
+                                  f"{status_cmd}, {len(also)} status queries and {opc} joined"
+                                  if also else f"{status_cmd} and {opc} joined", opc)
+            self._take_companions(also, parts[1:-1])
             self._take_status(parts[0], status_cmd)
             if self._errors_flagged and self._errors_before is None:
                 self._errors_before = self._lead_mark
             self._status_fresh = False  # the settings ran after that read
-            reply = parts[1]
+            reply = parts[-1]
         self._check_complete(reply, opc)
 
     def _check_complete(self, reply: str, cmd: str) -> None:
@@ -887,11 +896,14 @@ class Driver:
             parts = self._answers(reply, 1 + len(also),
                                   f"{status_cmd} and {len(also)} joined queries", status_cmd)
             reply = parts[0]
-            for name, part in zip(also, parts[1:], strict=True):
-                operation = self.profile.op(name)
-                self.status_seen[name] = self._joined_value(operation, part,
-                                                            operation.queries[0])
+            self._take_companions(also, parts[1:])
         self._take_status(reply, status_cmd)
+
+    def _take_companions(self, names: list[str], parts: list[str]) -> None:
+        """The :attr:`status_companions`' answers of a joined reply into :attr:`status_seen`."""
+        for name, part in zip(names, parts, strict=True):
+            operation = self.profile.op(name)
+            self.status_seen[name] = self._joined_value(operation, part, operation.queries[0])
 
     def sync(self) -> None:
         """Prove the instrument has applied everything sent so far before another

@@ -27,7 +27,12 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Literal
 
-from sweeprig.instruments.status_bits import FREQUENCY_MASK, OVERLOAD_MASK, UNCALIBRATED_MASK
+from sweeprig.instruments.status_bits import (
+    FREQUENCY_MASK,
+    OVERLOAD_MASK,
+    UNCALIBRATED_MASK,
+    UNLEVELED_MASK,
+)
 
 Shape = Literal["setting", "action", "query"]
 ValueType = Literal["none", "float", "int", "bool", "choice"]
@@ -116,6 +121,8 @@ KIND_OPS: dict[str, dict[str, OpSpec]] = {
             _setting("frequency", "float", "frequency", "CW frequency, Hz"),
             _setting("power", "float", "power", "output level, dBm", safety=True),
             _setting("output", "bool", None, "RF output on/off"),
+            OpSpec("unleveled", "query", "its output is not leveled (flag)", reply="int",
+                   required=False, default_mask=UNLEVELED_MASK),
             *REFERENCE_OPS,
         )
     },

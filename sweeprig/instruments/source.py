@@ -4,11 +4,18 @@ from __future__ import annotations
 
 from sweeprig.instruments.driver import Driver
 
+#: The key of a point record's ``extra`` listing the sources (role names) found unleveled
+#: by the status read after the point (the reduction flags its figures ``source_unleveled``).
+UNLEVELED_SOURCES = "unleveled_sources"
+
 
 class SourceDriver(Driver):
     """A CW signal source. Safe state: RF output off."""
 
     kind = "source"
+    #: Asked with every posted or leading status read where the profile joins queries: its
+    #: output's level state (:attr:`~sweeprig.instruments.driver.Driver.status_seen`).
+    status_companions = ("unleveled",)
 
     def set_frequency(self, freq_hz: float) -> bool:
         """Set the CW frequency, Hz. Returns True if a command was sent."""

@@ -22,6 +22,10 @@ QUESTIONABLE_BITS: dict[str, int] = {
 OVERLOAD_MASK = 1 << QUESTIONABLE_BITS["POWer"]
 """Default mask of the analyzer's ``overload`` flag: POWer, bit 3 (value 8)."""
 
+UNLEVELED_MASK = 1 << QUESTIONABLE_BITS["POWer"]
+"""Default mask of a source's ``unleveled`` flag: POWer, bit 3 (value 8): its output level
+is questionable (not leveled)."""
+
 FREQUENCY_MASK = 1 << QUESTIONABLE_BITS["FREQuency"]
 """Default mask of the ``reference_unlocked`` flag: FREQuency, bit 5 (value 32)."""
 

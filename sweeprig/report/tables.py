@@ -149,6 +149,7 @@ FLAG_BADGES: Mapping[str, str] = MappingProxyType({
     "coarse_steps": "coarse steps",
     "supply_current_off": "supply current off",
     "supply_limited": "supply limited",
+    "source_unleveled": "source unleveled",
 })
 
 #: (badge text, one-line meaning) of every flag: the words shown beside flagged figures.

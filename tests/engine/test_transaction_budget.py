@@ -61,13 +61,14 @@ def test_a_point_costs_at_most_four_exchanges_and_the_sources_settle_first(tmp_p
     last = min(_first(log, role, "OUTP:STAT OFF", after=first) for role in ("lo", "rf", "dc"))
     # ... the safe state begins
     per_point = (final - first) / (POINTS - 2)
-    # lo and rf: the point before's *ESR?, the frequency and *OPC? in one message; the
-    # supply: *ESR? with its current-limit state; the analyzer: one message (sweep, *WAI,
-    # markers, overload flag, *ESR?): four, where there were fifteen.
+    # lo and rf: the point before's *ESR? and level state, the frequency and *OPC? in one
+    # message; the supply: *ESR? with its current-limit state; the analyzer: one message
+    # (sweep, *WAI, markers, overload flag, *ESR?): four, where there were fifteen.
     assert per_point <= 4.0, [r.sent for r in log[first:final]]
-    # after the last sweep: its sources' and supply's status, read before it is committed
+    # after the last sweep: its sources' and supply's status (each with its level or
+    # current-limit state), read before it is committed
     end = [r.sent for r in log[final:last]][4:]
-    assert sorted(end) == ["*ESR?", "*ESR?", "*ESR?;:STAT:QUES:COND?"], end
+    assert end == ["*ESR?;:STAT:QUES:COND?"] * 3, end
     assert not any("TRAC:DATA?" in r.sent for r in log[first:last])  # a clear reading
     assert not any(r.sent == "SYST:ERR?" for r in log[first:last])  # no errors: no reads
     for i in range(first, last):  # every sweep follows a settled *OPC? of both sources

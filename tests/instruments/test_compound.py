@@ -19,10 +19,11 @@ from sweeprig.transport.fake import FakeTransport
 
 class Device:
     """Answers each unit of a message: *OPC? 1, *ESR? the register (then cleared), SYST:ERR?
-    the queue, CALC:MARK1:Y? a level, STAT:QUES:COND? 0; commands are kept."""
+    the queue, CALC:MARK1:Y? a level, STAT:QUES:COND? ``ques`` (0); commands are kept."""
 
     def __init__(self) -> None:
         self.esr = 0
+        self.ques = 0
         self.errors: list[str] = []
         self.units: list[str] = []
 
@@ -39,6 +40,8 @@ class Device:
                 replies.append(self.errors.pop(0) if self.errors else '0,"No error"')
             elif unit.endswith("CALC:MARK1:Y?"):
                 replies.append("-20.5")
+            elif unit.endswith("STAT:QUES:COND?"):
+                replies.append(str(self.ques))
             elif unit.endswith("?"):
                 replies.append("0")
         return ";".join(replies) if replies else None
@@ -165,7 +168,8 @@ def test_a_posted_status_read_is_the_points_status_and_nothing_more_is_sent():
     device.esr = 128
     src.finish_status(src.post_status())
     assert src.post_status() is None  # read already, nothing sent since
-    assert src.point_status() == 128 and link.sent == ["*ESR?"]
+    # (a source's status read asks its level state too: its unleveled flag, status_seen)
+    assert src.point_status() == 128 and link.sent == ["*ESR?;:STAT:QUES:COND?"]
     src.expire_status()
     device.esr = 16
     device.errors = ['-222,"Data out of range"']
@@ -215,7 +219,8 @@ def test_an_error_shown_by_a_leading_status_read_is_laid_on_the_commands_before_
         src.set_power(-12.0)
         pending = src.post_sync(status_first=True)
     assert pending is not None
-    assert pending.message == "*ESR?;:SOUR:FREQ:CW 2400000000;:SOUR:POW:LEV:IMM:AMPL -12;*OPC?"
+    assert pending.message == ("*ESR?;:STAT:QUES:COND?;:SOUR:FREQ:CW 2400000000;"
+                               ":SOUR:POW:LEV:IMM:AMPL -12;*OPC?")
     src.finish_sync(pending)
     with pytest.raises(InstrumentError) as raised:
         src.taken_status()
@@ -233,3 +238,30 @@ def test_an_error_shown_by_a_leading_status_read_is_laid_on_the_commands_before_
         src.check_errors()
     assert "before these later commands" not in str(raised.value)
     assert "5900000000" not in str(raised.value)
+
+
+def test_a_sources_level_state_rides_with_the_status_read_that_leads_its_settings():
+    """The held point's status read that leads the next settings asks the source's level
+    state too (SCPI-99 questionable POWer, bit 3), before the settings run: it tells of the
+    point before them. Unleveled lands in status_seen; a read that does not lead (a plain
+    sync) leaves no older answer behind."""
+    src, link, device = _source()
+    device.ques = 8 | 32  # POWer (unleveled) and FREQuency (another flag: not this one)
+    with src.joined():
+        src.set_frequency(2.4e9)
+        src.finish_sync(src.post_sync(status_first=True))
+    assert link.sent == ["*ESR?;:STAT:QUES:COND?;:SOUR:FREQ:CW 2400000000;*OPC?"]
+    assert src.status_seen == {"unleveled": True}
+    device.ques = 32
+    with src.joined():
+        src.set_frequency(2.5e9)
+        src.finish_sync(src.post_sync(status_first=True))
+    assert src.status_seen == {"unleveled": False}  # bit 3 only
+    device.ques = 8
+    src.finish_status(src.post_status())
+    assert src.status_seen == {"unleveled": True}
+    with src.joined():
+        src.set_frequency(2.6e9)
+        pending = src.post_sync(status_first=True)
+        assert src.status_seen == {}  # emptied when sent: never an older read's answer
+        src.finish_sync(pending)

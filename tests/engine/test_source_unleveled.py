@@ -1,0 +1,105 @@
+"""A signal source asked for more than it can level: it delivers less than its setting and
+says so in its questionable status (SCPI-99 POWer, bit 3), and nothing else on the bench
+shows it (the analyzer reads a lower product, which looks like the part's own gain). The
+source's status read after each point asks that state in the same message (no exchange
+more); a point found so carries ``unleveled_sources`` in its record, the run says so once
+in its events, and every figure of the point is flagged ``source_unleveled`` (suspect).
+
+On the simulated bench, ``[sources.leveled_max]`` plants the limit (an output amplifier
+short of headroom: an invented fault of the fictional source)."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+from sweeprig.analysis.reduce import reduce_run
+from sweeprig.engine.session import run_sequence
+from sweeprig.instruments.source import UNLEVELED_SOURCES
+from sweeprig.store.sqlite import SqliteRunStore
+from tests.engine.noise_support import SIM_BENCH
+
+#: The sim-bench description: a clean bench whose LO source levels no more than ``{max}``.
+DESCRIPTION = """part = "kx-2417"
+seed = 7
+[cables]
+lo = "2.0 dB"
+[sources]
+level_error = false
+harmonics = []
+[sources.leveled_max]
+lo = "{max}"
+"""
+
+#: Gain at two LO drives: 3 then 6 dBm at the part (5 and 8 dBm set, through the 2 dB).
+SWEEP = """format = 1
+[about]
+title = "gain at two LO drives"
+[part]
+id = "KX-2417"
+expected_gain = "12 dB"
+[mixing]
+if_frequency = "100 MHz"
+[conditions]
+supply = "3.3 V"
+settle = "20 ms"
+[[study]]
+name = "gain-3dBm"
+rf_frequency = ["2.0 GHz", "2.2 GHz"]
+rf_power = "-35 dBm"
+lo_power = "3 dBm"
+read = ["wanted"]
+[[study]]
+name = "gain-6dBm"
+rf_frequency = ["2.0 GHz", "2.2 GHz"]
+rf_power = "-35 dBm"
+lo_power = "6 dBm"
+read = ["wanted"]
+"""
+
+
+def _run(tmp_path: Path, leveled_max: str):
+    """The LO-drive sweep on the simulated bench with the LO source leveled up to
+    ``leveled_max``: (the reduced run, its events, each point's record extras)."""
+    sequence = tmp_path / "sweep.toml"
+    sequence.write_text(SWEEP, encoding="utf-8")
+    description = tmp_path / "sim-bench.toml"
+    description.write_text(DESCRIPTION.format(max=leveled_max), encoding="utf-8")
+    store = tmp_path / "runs.sqlite"
+    outcome = run_sequence(sequence, SIM_BENCH, sim=True, sim_description=description,
+                           store_path=store)
+    assert outcome.status == "complete", outcome.reason
+    with SqliteRunStore(store, create=False) as db:
+        points = db.points_frame(outcome.run_id)
+        extras = {int(i): json.loads(text) for i, text in
+                  zip(points["point_index"], points["extra_json"], strict=True)}
+        return reduce_run(db, outcome.run_id), db.events(outcome.run_id), extras
+
+
+def test_only_the_points_the_source_could_not_level_are_flagged(tmp_path):
+    """A 6 dBm limit: the 5 dBm setting is leveled, the 8 dBm one is not. Each point's
+    status is read after it (with the next point's settings, or at the run's end), so the
+    flag lands on the points whose setting the source could not reach, not a neighbour (the
+    last 3 dBm point is read with the first 6 dBm point's settings, before they run)."""
+    run, events, extras = _run(tmp_path, "6 dBm")
+    gains = sorted(run.figures_named("conversion_gain"),
+                   key=lambda f: (f.conditions["lo_power_dbm"], f.conditions["rf_freq_hz"]))
+    assert [f.conditions["lo_power_dbm"] for f in gains] == [3.0, 3.0, 6.0, 6.0]
+    assert ["source_unleveled" in f.flags for f in gains] == [False, False, True, True]
+    assert [e.get(UNLEVELED_SOURCES) for _i, e in sorted(extras.items())] == \
+        [None, None, ["lo"], ["lo"]]
+    # the part got 2 dB less LO drive at the 6 dBm points than the run states
+    told = [e for e in events if e.kind == "source"]
+    assert len(told) == 1 and "'lo'" in told[0].message and "not leveled" in told[0].message
+    assert any("flagged 'source_unleveled'" in note for note in run.notes)
+    # a suspect figure cannot pass a limit
+    judged = [j for j in run.assessment.judgements
+              if j.figure.name == "conversion_gain" and "source_unleveled" in j.figure.flags]
+    assert all(j.verdict != "pass" for j in judged)
+
+
+def test_a_source_that_levels_every_setting_flags_nothing(tmp_path):
+    run, events, extras = _run(tmp_path, "20 dBm")
+    assert not any("source_unleveled" in f.flags for f in run.figures)
+    assert not [e for e in events if e.kind == "source"]
+    assert not any(UNLEVELED_SOURCES in e for e in extras.values())
