@@ -632,7 +632,7 @@ class Runner:
             unverified = []
             for role, driver in checked:
                 fresh = driver is chamber or driver.status_fresh
-                if fresh and driver is not chamber and driver.joins_companions:
+                if fresh and driver is not chamber and driver.asks_companions:
                     # its last read (its settings' check, at the point's start) did not ask
                     # what a status read after the point asks (a supply's current limit)
                     driver.expire_status()
@@ -862,6 +862,18 @@ class Runner:
     def _apply_sources(self, point: Point) -> bool:
         """LO, RF, RF2 to the point's settings; outputs on. True if anything was sent."""
         sent = False
+        # A source whose profile cannot lead its settings with the held point's status read,
+        # but asks its level state with that read, is read first: read after its new
+        # settings, the state would tell of them (one exchange no more, only earlier).
+        first = [(d, d.post_status()) for _r, d in self._unverified
+                 if isinstance(d, SourceDriver) and id(d) not in self._status_read
+                 and not d.joins_status and d.asks_companions]
+        if first:
+            failure = _finish_all(first, Driver.finish_status)
+            if failure is not None:
+                raise failure
+            self._status_read.update(id(d) for d, _p in first)
+            self._mark_point_state([d for d, p in first if p is not None])
         # What goes off goes first, so the DUT's RF port never takes both tones at the new
         # level of one and the old level of the other.
         if point.rf2_freq_hz is None and self.d.rf2 is not None and self.d.rf2.set_output(False):

@@ -810,7 +810,7 @@ class Driver:
             self._lead_mark = self._block_count - len(self._held)  # (held: in the block)
             self._held[0:0] = [self.profile.op("event_status").queries[0],
                                *(self.profile.op(name).queries[0]
-                                 for name in self._companions())]
+                                 for name in self._joined_companions())]
             self._status_first = True
         opc = self.profile.op("operation_complete")
         try:
@@ -828,7 +828,7 @@ class Driver:
         opc = self.profile.op("operation_complete").queries[0]
         if first:
             status_cmd = self.profile.op("event_status").queries[0]
-            also = self._companions()
+            also = self._joined_companions()
             parts = self._answers(reply, 2 + len(also),
                                   f"{status_cmd}, {len(also)} status queries and {opc} joined"
                                   if also else f"{status_cmd} and {opc} joined", opc)
@@ -849,55 +849,64 @@ class Driver:
                 fix="check the instrument's error queue; a setting may have failed",
             )
 
-    #: Plain queries (operation names) asked with every posted status read, in the same
-    #: message, where the profile joins queries: their parsed replies land in
-    #: :attr:`status_seen` (a supply's current-limit state, read at every point for free).
+    #: Plain queries (operation names) asked with every posted status read: in the same
+    #: message where the profile joins queries, else each in a message of its own after it
+    #: (one exchange more each). Their parsed replies land in :attr:`status_seen` (a supply's
+    #: current-limit state, a source's level state: read after every point).
     status_companions: tuple[str, ...] = ()
 
     @property
-    def joins_companions(self) -> bool:
-        """True when a posted status read carries :attr:`status_companions`."""
+    def asks_companions(self) -> bool:
+        """True when a status read after a point asks :attr:`status_companions`."""
         return bool(self._companions())
 
     def _companions(self) -> list[str]:
-        """The :attr:`status_companions` this instrument's profile can join to a status
-        read (plain single queries of a compound profile)."""
-        if not self.compound or not self.status_companions:
+        """The :attr:`status_companions` this instrument's profile has as plain single
+        queries (no parameter, no command)."""
+        if not self.status_companions:
             return []
         return [name for name in self.status_companions if self.profile.has(name)
                 and len(self.profile.op(name).queries) == 1
                 and not self.profile.op(name).commands
                 and self.profile.op(name).spec.value == "none"]
 
+    def _joined_companions(self) -> list[str]:
+        """The companions that ride in a status read's own message (a compound profile)."""
+        return self._companions() if self.compound else []
+
     def post_status(self) -> Pending | None:
         """Send the point's ``*ESR?`` when :meth:`point_status` would have to read it (the
         last exchange did not carry it); its reply is taken by :meth:`finish_status`, and
         :meth:`point_status` then sends nothing. None when there is nothing to send. The
-        :attr:`status_companions` ride in the same message (:attr:`status_seen` is emptied
-        here, so it never holds an older read's answer)."""
+        :attr:`status_companions` ride in the same message on a compound profile
+        (:attr:`status_seen` is emptied here, so it never holds an older read's answer)."""
         self.status_seen = {}
         if not self.profile.has("event_status") or self._status_fresh:
             return None
         op = self.profile.op("event_status")
         units = [op.queries[0], *(self.profile.op(name).queries[0]
-                                  for name in self._companions())]
+                                  for name in self._joined_companions())]
         return self.post_query(_compound(units) if len(units) > 1 else units[0],
                                timeout_s=op.timeout_s)
 
     def finish_status(self, pending: Pending | None) -> None:
         """Take the ``*ESR?`` reply of :meth:`post_status` as :meth:`point_status` would, and
-        its companions' replies into :attr:`status_seen`."""
+        its companions' replies into :attr:`status_seen` (asked now, one by one, where the
+        profile does not join queries)."""
         if pending is None:
             return
         reply = self.collect(pending)
         status_cmd = self.profile.op("event_status").queries[0]
-        also = self._companions()
+        also = self._joined_companions()
         if also:
             parts = self._answers(reply, 1 + len(also),
                                   f"{status_cmd} and {len(also)} joined queries", status_cmd)
             reply = parts[0]
             self._take_companions(also, parts[1:])
         self._take_status(reply, status_cmd)
+        if not self.compound:
+            for name in self._companions():
+                self.status_seen[name] = self.ask(name)
 
     def _take_companions(self, names: list[str], parts: list[str]) -> None:
         """The :attr:`status_companions`' answers of a joined reply into :attr:`status_seen`."""

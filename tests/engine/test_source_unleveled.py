@@ -13,6 +13,8 @@ from __future__ import annotations
 import json
 from pathlib import Path
 
+import pytest
+
 from sweeprig.analysis.reduce import reduce_run
 from sweeprig.engine.session import run_sequence
 from sweeprig.instruments.source import UNLEVELED_SOURCES
@@ -27,6 +29,7 @@ lo = "2.0 dB"
 [sources]
 level_error = false
 harmonics = []
+family = "{family}"
 [sources.leveled_max]
 lo = "{max}"
 """
@@ -58,13 +61,14 @@ read = ["wanted"]
 """
 
 
-def _run(tmp_path: Path, leveled_max: str):
-    """The LO-drive sweep on the simulated bench with the LO source leveled up to
+def _run(tmp_path: Path, leveled_max: str, family: str = "tarnwick"):
+    """The sweep on the simulated bench with the LO source (of ``family``) leveled up to
     ``leveled_max``: (the reduced run, its events, each point's record extras)."""
     sequence = tmp_path / "sweep.toml"
     sequence.write_text(SWEEP, encoding="utf-8")
     description = tmp_path / "sim-bench.toml"
-    description.write_text(DESCRIPTION.format(max=leveled_max), encoding="utf-8")
+    description.write_text(DESCRIPTION.format(max=leveled_max, family=family),
+                           encoding="utf-8")
     store = tmp_path / "runs.sqlite"
     outcome = run_sequence(sequence, SIM_BENCH, sim=True, sim_description=description,
                            store_path=store)
@@ -76,12 +80,15 @@ def _run(tmp_path: Path, leveled_max: str):
         return reduce_run(db, outcome.run_id), db.events(outcome.run_id), extras
 
 
-def test_only_the_points_the_source_could_not_level_are_flagged(tmp_path):
+@pytest.mark.parametrize("family", ["tarnwick", "farrowmere"])
+def test_only_the_points_the_source_could_not_level_are_flagged(tmp_path, family):
     """A 6 dBm limit: the 5 dBm setting is leveled, the 8 dBm one is not. Each point's
     status is read after it (with the next point's settings, or at the run's end), so the
     flag lands on the points whose setting the source could not reach, not a neighbour (the
-    last 3 dBm point is read with the first 6 dBm point's settings, before they run)."""
-    run, events, extras = _run(tmp_path, "6 dBm")
+    last 3 dBm point is read with the first 6 dBm point's settings, before they run). A
+    source family whose profile takes no compound messages is asked apart, after the point
+    as well."""
+    run, events, extras = _run(tmp_path, "6 dBm", family)
     gains = sorted(run.figures_named("conversion_gain"),
                    key=lambda f: (f.conditions["lo_power_dbm"], f.conditions["rf_freq_hz"]))
     assert [f.conditions["lo_power_dbm"] for f in gains] == [3.0, 3.0, 6.0, 6.0]

@@ -265,3 +265,21 @@ def test_a_sources_level_state_rides_with_the_status_read_that_leads_its_setting
         pending = src.post_sync(status_first=True)
         assert src.status_seen == {}  # emptied when sent: never an older read's answer
         src.finish_sync(pending)
+
+
+def test_a_source_that_takes_no_compound_messages_is_asked_its_level_state_apart():
+    """A profile without compound messages (fr-sg8) cannot join the level state to its
+    status read: it is asked in a message of its own after it (one exchange more), with the
+    mask the profile inherits (POWer, bit 3)."""
+    device = Device()
+    link = FakeTransport(device)
+    src = make_driver("fr-sg8", "lo", link)
+    assert not src.compound and src.asks_companions
+    device.ques = 8 | 512  # POWer; and its own reference-unlocked bit 9: not this flag
+    src.finish_status(src.post_status())
+    assert link.sent == ["*ESR?", "STAT:QUES:COND?"]
+    assert src.status_seen == {"unleveled": True}
+    device.ques = 512
+    src.expire_status()
+    src.finish_status(src.post_status())
+    assert src.status_seen == {"unleveled": False}

@@ -14,7 +14,7 @@ of docs/instruments.md ("Signal source, second family"), written before its prof
 * the reference-unlocked flag in the questionable register's instrument-defined bit 9
   (SCPI-99 leaves bits 9 to 13 to the instrument), not bit 5;
 * its unleveled flag where the first family has it, the standard POWer bit 3 (its profile
-  takes no compound messages, so the engine does not read it after every point);
+  takes no compound messages: the engine asks it in a message of its own after each point);
 * its own crystal is off (see :data:`CRYSTAL_PPM`) and it powers on on it.
 
 The times are invented figures of this fictional source.
