@@ -13,7 +13,10 @@ from pydantic import BaseModel, ConfigDict, Field, ValidationError, model_valida
 
 from sweeprig.errors import InputError
 
-FaultKind = Literal["timeout", "drop", "error", "garble", "reset", "swallow", "freeze", "late"]
+FaultKind = Literal["timeout", "drop", "error", "garble", "reset", "swallow", "freeze", "late",
+                    "unlock"]
+#: The roles with a 10 MHz reference input, which an ``unlock`` fault can take away.
+REFERENCED_ROLES = ("rf", "rf2", "lo", "sa")
 
 _TRIGGERS = ("at_time_s", "at_command", "rate", "match")
 
@@ -51,6 +54,9 @@ class FaultSpec(BaseModel):
             raise ValueError("max_count applies to rate and match triggers only")
         if self.whole_bench and self.kind != "freeze":
             raise ValueError("whole_bench applies to freeze faults only")
+        if self.kind == "unlock" and self.role not in REFERENCED_ROLES:
+            raise ValueError(f"an unlock fault takes a role with a 10 MHz reference input "
+                             f"({', '.join(REFERENCED_ROLES)}), not {self.role!r}")
         return self
 
 
@@ -73,8 +79,8 @@ class FaultPlan(BaseModel):
                 f"{first['msg']}",
                 where=f"{where}: {loc}" if loc else where,
                 fix="each [[faults]] table needs role, kind (timeout|drop|error|garble|reset|"
-                "swallow|freeze|late) and one trigger (at_time_s, at_command, rate or match); no "
-                "other keys",
+                "swallow|freeze|late|unlock) and one trigger (at_time_s, at_command, rate or "
+                "match); no other keys",
             ) from exc
 
     def for_role(self, role: str) -> tuple[FaultSpec, ...]:

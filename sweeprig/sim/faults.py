@@ -20,6 +20,10 @@ A :class:`FaultPlan` lists faults per instrument role. Kinds:
   ignored, connections stay open and new ones are accepted (a hung instrument). With
   ``whole_bench = true`` every instrument of the bench freezes at once (a hung server).
   :meth:`FaultInjector.thaw` ends it (for tests that look at the instruments afterwards).
+* ``unlock`` — the instrument's 10 MHz reference input loses its signal for good (a house
+  reference or its cable gone in the night): set to its external reference, it runs on its
+  own crystal from then on and reports its reference unlocked (its questionable status).
+  Roles ``rf``, ``rf2``, ``lo``, ``sa``.
 
 Triggers (exactly one per fault): ``at_time_s`` (the first message at or after that
 simulated time), ``at_command`` (the n-th message, counted from 1, received by that role's
@@ -167,6 +171,8 @@ class RoleFaults:
                     detail = f"{spec.code}"
                 elif spec.kind == "reset":
                     instrument.reset_to_power_on()
+                elif spec.kind == "unlock":
+                    instrument.reference.lose_input()
                 elif spec.kind == "drop":
                     action = FaultAction(drop=True)
                 elif spec.kind == "swallow" and not action.drop:

@@ -29,6 +29,8 @@ class ReferenceOscillator:
 
     crystal_ppm: float = 0.0
     ref_in: Callable[[], float | None] = lambda: None
+    #: True once its reference input has lost its signal (a planted ``unlock`` fault).
+    input_lost: bool = False
 
     def install(self, instrument: ScpiInstrument, pattern: str) -> None:
         """Serve ``<pattern> INT|EXT`` and its query on ``instrument`` (power-on: INTernal)."""
@@ -41,15 +43,23 @@ class ReferenceOscillator:
 
     def unlocked(self) -> bool:
         """Set to external with nothing at the reference input."""
-        return self.external() and self.ref_in() is None
+        return self.external() and self._given() is None
+
+    def lose_input(self) -> None:
+        """The reference input loses its signal for good: set to external, the instrument
+        runs on its crystal from now on and reports its reference unlocked."""
+        self.input_lost = True
 
     def error_ppm(self) -> float:
         """The error of the reference the instrument runs on now, ppm."""
         if self.external():
-            given = self.ref_in()
+            given = self._given()
             if given is not None:
                 return given
         return self.crystal_ppm
+
+    def _given(self) -> float | None:
+        return None if self.input_lost else self.ref_in()
 
     def questionable_bits(self) -> int:
         return QUES_FREQUENCY if self.unlocked() else 0
