@@ -101,6 +101,12 @@ Flags (sweeprig's own names)
     questionable status' POWer bit, asked with its status read after every point): it
     delivered less than its setting, so the part got less drive than the plan says (a
     setting above the source's maximum leveled output, often only at the top of its band).
+``reference_unlocked``
+    At a point behind the figure a source or the analyzer reported its 10 MHz reference
+    unlocked (its questionable status, asked with its status read after every point or with
+    the reading): it ran on its own crystal, its frequencies off by that crystal's error, so
+    a narrow-RBW reading may have missed the product (a house reference or its cable lost
+    in the night).
 ``image_ratio_doubtful``
     A single-sideband noise figure converted with a measured image-to-signal ratio whose
     wanted reading stood less than 6 dB above its noise floor, or that put the image response
@@ -167,6 +173,7 @@ WINDOW_EDGE = "window_edge"
 IMAGE_RATIO_DOUBTFUL = "image_ratio_doubtful"
 SUPPLY_LIMITED = "supply_limited"
 SOURCE_UNLEVELED = "source_unleveled"
+REFERENCE_UNLOCKED = "reference_unlocked"
 
 #: Every flag, in a fixed order: the position is the flag's bit in a flag mask.
 FLAGS: tuple[str, ...] = (
@@ -207,6 +214,8 @@ FLAGS: tuple[str, ...] = (
     SUPPLY_LIMITED,
     # a source's level state read after a point (its unleveled flag)
     SOURCE_UNLEVELED,
+    # a reference lock lost at a point (a source's status read, the analyzer's reading)
+    REFERENCE_UNLOCKED,
 )
 
 #: Flags that make a figure untrustworthy as a number: a limit check on it is inconclusive.
@@ -245,6 +254,7 @@ SUSPECT_FLAGS: frozenset[str] = frozenset(
         IMAGE_RATIO_DOUBTFUL,
         SUPPLY_LIMITED,
         SOURCE_UNLEVELED,
+        REFERENCE_UNLOCKED,
     }
 )
 
@@ -310,6 +320,9 @@ FLAG_MEANINGS: Mapping[str, str] = MappingProxyType({
     "below its setting: the part ran below its stated supply",
     SOURCE_UNLEVELED: "at a point behind it a signal source reported its output not leveled: "
     "the part got less drive than the plan says",
+    REFERENCE_UNLOCKED: "at a point behind it a source or the analyzer reported its 10 MHz "
+    "reference unlocked: its frequencies were off, a narrow-RBW reading may have missed the "
+    "product",
 })
 
 _FLAG_BIT = {name: 1 << i for i, name in enumerate(FLAGS)}

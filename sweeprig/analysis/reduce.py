@@ -44,6 +44,7 @@ import numpy as np
 
 from sweeprig.analysis.captures import OUTPUT_FREQ, risk_mask
 from sweeprig.analysis.figures import (
+    REFERENCE_UNLOCKED,
     SOURCE_UNLEVELED,
     SUPPLY_CURRENT_OFF,
     SUPPLY_LIMITED,
@@ -228,7 +229,7 @@ def _reduce_run(store: RunStore, run_id: int) -> RunFigures:
     # figures' too (they are made apart and added last)
     count = len(figures)
     both = _flag_supply_limited(figures + noise_figures, captures, points, notes)
-    both = _flag_source_unleveled(both, points, notes)
+    both = _flag_role_marks(both, points, notes)
     if sequence is not None:
         both = _flag_unpowered(both, captures, sequence.part.expected_gain, notes)
         expected_current = getattr(sequence.part, "expected_supply_current", None)
@@ -548,28 +549,40 @@ def _points_marked(points: pd.DataFrame, key: str,
     return points["point_index"].to_numpy()[hit].astype(np.int64)
 
 
-def _flag_source_unleveled(figures: list[Figure], points: pd.DataFrame,
-                           notes: list[str]) -> list[Figure]:
-    """Flag ``source_unleveled`` every figure that came from a point after which a signal
-    source reported its output not leveled (the runner's ``unleveled_sources`` in the
-    point's ``extra_json``: the sources' status read after the point asks their level
-    state), and say which sources."""
-    roles: set[str] = set()
+#: The runner's marks of a point by role (a key of its record's ``extra_json``, listing the
+#: roles whose status read after the point, or whose reading, found it): the figure flag, and
+#: the note's words after "at N of M point(s) <roles>".
+ROLE_MARKS: dict[str, tuple[str, str]] = {
+    "unleveled_sources": (
+        SOURCE_UNLEVELED, "reported its output not leveled: it delivered less than its "
+        "setting, so the part got less drive than the plan says (check the path losses and "
+        "the source's maximum leveled output at those frequencies)"),
+    "reference_unlocked": (
+        REFERENCE_UNLOCKED, "reported its 10 MHz reference unlocked: it ran on its own "
+        "crystal, its frequencies off by that crystal's error (a narrow-RBW reading can miss "
+        "the product; check the house reference and its cables)"),
+}
 
-    def marks(listed: list[str]) -> bool:
-        roles.update(str(r) for r in listed)
-        return bool(listed)
 
-    found = _points_marked(points, "unleveled_sources", marks)
-    if found.size == 0:
-        return figures
-    notes.append(
-        f"at {found.size} of {len(points)} point(s) source "
-        f"{' and '.join(repr(r) for r in sorted(roles))} reported its output not leveled: it "
-        "delivered less than its setting, so the part got less drive than the plan says "
-        "(check the path losses and the source's maximum leveled output at those "
-        "frequencies); every figure from those points is flagged 'source_unleveled'")
-    return flag_points(figures, found.tolist(), SOURCE_UNLEVELED)
+def _flag_role_marks(figures: list[Figure], points: pd.DataFrame,
+                     notes: list[str]) -> list[Figure]:
+    """Flag every figure of a point the runner marked with one of :data:`ROLE_MARKS` (a
+    source unleveled, a reference unlocked), and say which roles."""
+    for key, (flag, words) in ROLE_MARKS.items():
+        roles: set[str] = set()
+
+        def marks(listed: list[str], roles: set[str] = roles) -> bool:
+            roles.update(str(r) for r in listed)
+            return bool(listed)
+
+        found = _points_marked(points, key, marks)
+        if found.size == 0:
+            continue
+        notes.append(f"at {found.size} of {len(points)} point(s) "
+                     f"{' and '.join(repr(r) for r in sorted(roles))} {words}; every figure "
+                     f"from those points is flagged '{flag}'")
+        figures = flag_points(figures, found.tolist(), flag)
+    return figures
 
 
 def _flag_supply_current(figures: list[Figure], captures: pd.DataFrame,

@@ -93,6 +93,25 @@ CHAMBER_TIMEOUT_S = 4 * 3600.0
 PON_BIT = 0x80
 """IEEE 488.2 standard event status register bit 7: power on."""
 
+#: The point record's ``extra`` key listing the roles that reported their 10 MHz reference
+#: unlocked at the point (the reduction flags its figures ``reference_unlocked``).
+REFERENCE_UNLOCKED = "reference_unlocked"
+
+#: What the run says once, in its events, when a point is first marked: (event kind, text
+#: after "point N: 'role'").
+_MARK_EVENTS: dict[str, tuple[str, str]] = {
+    UNLEVELED_SOURCES: (
+        "source", "reports its output not leveled: it delivers less than its setting, so "
+        "the part got less drive than planned; check the path losses and the source's "
+        "maximum leveled output at these frequencies (the figures of such points are flagged "
+        "source_unleveled)"),
+    REFERENCE_UNLOCKED: (
+        "timebase", "reports its 10 MHz reference unlocked: it runs on its own crystal, so "
+        "its frequencies are off by that crystal's error and a narrow-RBW reading can miss "
+        "the product; check the house reference, its distribution and the cables (the "
+        "figures of such points are flagged reference_unlocked)"),
+}
+
 
 @dataclass(frozen=True)
 class RecoveryPolicy:
@@ -180,7 +199,8 @@ class Runner:
         self.policy = policy or RecoveryPolicy()
         self.skipped = 0
         self._supply_limited_told = False  # its event is written once a run
-        self._unleveled_told = False  # so is this one
+        self._marks_told: set[str] = set()  # so is each of _MARK_EVENTS'
+        self._point_unlocked: set[str] = set()  # roles whose readings found it unlocked
         self.recoveries = 0
         self._temperature_c: float | None = None
         self._supply_on = False
@@ -272,8 +292,9 @@ class Runner:
     def _mark_point_state(self, read: list[Driver]) -> None:
         """Mark the held point from the status reads just made after it (``read``: the
         instruments whose read came back, with their :attr:`~Driver.status_seen`):
-        ``supply_limited`` when the supply held its current limit, and the sources that said
-        their output was not leveled (``unleveled_sources``, role names)."""
+        ``supply_limited`` when the supply held its current limit; the sources that said
+        their output was not leveled (``unleveled_sources``) or their reference unlocked
+        (``reference_unlocked``), role names."""
         if self._held is None or not read:
             return
         record = self._held[0]
@@ -282,20 +303,26 @@ class Runner:
                 and dc.status_seen.get("current_limited"):
             record.extra["supply_flags"] = [SUPPLY_LIMITED]
             self._tell_supply_limited(record.index, "in current limit")
-        roles = [role for role in SOURCE_ROLES
-                 if (source := getattr(self.d, role)) is not None
-                 and any(d is source for d in read) and source.status_seen.get("unleveled")]
-        if roles:
-            known = record.extra.get(UNLEVELED_SOURCES) or []
-            record.extra[UNLEVELED_SOURCES] = sorted({*known, *roles})
-            if not self._unleveled_told:
-                self._unleveled_told = True
-                self._event("warning", "source", f"point {record.index}: source "
-                            f"{' and '.join(repr(r) for r in roles)} reports its output not "
-                            "leveled: it delivers less than its setting, so the part got "
-                            "less drive than planned; check the path losses and the source's "
-                            "maximum leveled output at these frequencies (the figures of such "
-                            "points are flagged source_unleveled)", record.index)
+        sources = [(role, source) for role in SOURCE_ROLES
+                   if (source := getattr(self.d, role)) is not None
+                   and any(d is source for d in read)]
+        self._mark_roles(record, UNLEVELED_SOURCES,
+                         [r for r, s in sources if s.status_seen.get("unleveled")])
+        self._mark_roles(record, REFERENCE_UNLOCKED,
+                         [r for r, s in sources if s.status_seen.get("reference_unlocked")])
+
+    def _mark_roles(self, record: PointRecord, key: str, roles: list[str]) -> None:
+        """Add ``roles`` to the point record's ``extra[key]`` (a sorted list of role names)
+        and say so once a run in the events (:data:`_MARK_EVENTS`)."""
+        if not roles:
+            return
+        record.extra[key] = sorted({*(record.extra.get(key) or []), *roles})
+        if key in self._marks_told:
+            return
+        self._marks_told.add(key)
+        kind, text = _MARK_EVENTS[key]
+        self._event("warning", kind, f"point {record.index}: "
+                    f"{' and '.join(repr(r) for r in roles)} {text}", record.index)
 
     def _tell_supply_limited(self, point_index: int, how: str, detail: str = "") -> None:
         """The run's one event saying the part runs below its stated supply."""
@@ -603,6 +630,7 @@ class Runner:
         sim_start, wall_start = self.clock.now(), utc_now()
         waited_before = self._waited_s
         checked = self._checked_drivers()  # the bench's instruments, listed once a point
+        self._point_unlocked = set()
         for _role, driver in checked:
             driver.expire_status()  # every instrument's status is read for this point
         if point.temperature_c is not None and point.temperature_c != self._temperature_c:
@@ -667,6 +695,7 @@ class Runner:
             extra={"if_freq_hz": point.if_freq_hz, "tone_spacing_hz": point.tone_spacing_hz,
                    "axis_index": dict(point.axis_index)},
         )
+        self._mark_roles(record, REFERENCE_UNLOCKED, sorted(self._point_unlocked))
         eta: dict[str, float] | None = None
         if self.eta is not None:
             self.eta.point_measured(sim_end - sim_start - (self._waited_s - waited_before))
@@ -929,6 +958,12 @@ class Runner:
         self._status_pending = status_posted
         return sent
 
+    def _note_analyzer_lock(self, sa: AnalyzerDriver) -> None:
+        """Remember that the analyzer reported its reference unlocked at this point's
+        reading (its record says so: :meth:`measure`)."""
+        if sa.reference_unlocked_seen:
+            self._point_unlocked.add("sa")
+
     def _tune(self, source: SourceDriver, connection: str, freq_hz: float,
               dut_power_dbm: float) -> bool:
         """Set a source's frequency and level so the DUT port gets ``dut_power_dbm`` at
@@ -1021,12 +1056,14 @@ class Runner:
                     self._offsets.append((aim.coefficients, clear,
                                           found.resolution_hz or a.rbw_hz))
             level, _, overload = sa.marker_reading(marker_hz)
+            self._note_analyzer_lock(sa)
         else:
             # the floor from markers in the same message when the reading stands clear of
             # them; the trace only for a reading near its floor (or no room for markers)
             noise_hz = noise_marker_hz(reading, a.center_hz, a.span_hz, a.rbw_hz) \
                 if sa.compound else ()
             level, samples, overload = sa.sweep_and_read(sweep_s, reading.freq_hz, noise_hz)
+            self._note_analyzer_lock(sa)
             floor_from = "markers"
             floor = floor_from_markers(level, samples)
             if floor is None:

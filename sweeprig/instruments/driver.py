@@ -809,8 +809,7 @@ class Driver:
             self.status_seen = {}
             self._lead_mark = self._block_count - len(self._held)  # (held: in the block)
             self._held[0:0] = [self.profile.op("event_status").queries[0],
-                               *(self.profile.op(name).queries[0]
-                                 for name in self._joined_companions())]
+                               *self._companion_queries(joined=True)]
             self._status_first = True
         opc = self.profile.op("operation_complete")
         try:
@@ -828,7 +827,7 @@ class Driver:
         opc = self.profile.op("operation_complete").queries[0]
         if first:
             status_cmd = self.profile.op("event_status").queries[0]
-            also = self._joined_companions()
+            also = self._companion_queries(joined=True)
             parts = self._answers(reply, 2 + len(also),
                                   f"{status_cmd}, {len(also)} status queries and {opc} joined"
                                   if also else f"{status_cmd} and {opc} joined", opc)
@@ -870,9 +869,14 @@ class Driver:
                 and not self.profile.op(name).commands
                 and self.profile.op(name).spec.value == "none"]
 
-    def _joined_companions(self) -> list[str]:
-        """The companions that ride in a status read's own message (a compound profile)."""
-        return self._companions() if self.compound else []
+    def _companion_queries(self, *, joined: bool) -> list[str]:
+        """The distinct query texts of the companions (two flags of one register, such as a
+        source's level state and its reference lock, are one query), those that ride in a
+        status read's own message when ``joined`` (a compound profile: else none)."""
+        if joined and not self.compound:
+            return []
+        return list(dict.fromkeys(self.profile.op(name).queries[0]
+                                  for name in self._companions()))
 
     def post_status(self) -> Pending | None:
         """Send the point's ``*ESR?`` when :meth:`point_status` would have to read it (the
@@ -884,35 +888,36 @@ class Driver:
         if not self.profile.has("event_status") or self._status_fresh:
             return None
         op = self.profile.op("event_status")
-        units = [op.queries[0], *(self.profile.op(name).queries[0]
-                                  for name in self._joined_companions())]
+        units = [op.queries[0], *self._companion_queries(joined=True)]
         return self.post_query(_compound(units) if len(units) > 1 else units[0],
                                timeout_s=op.timeout_s)
 
     def finish_status(self, pending: Pending | None) -> None:
         """Take the ``*ESR?`` reply of :meth:`post_status` as :meth:`point_status` would, and
-        its companions' replies into :attr:`status_seen` (asked now, one by one, where the
-        profile does not join queries)."""
+        its companions' replies into :attr:`status_seen` (asked now, each distinct query in
+        a message of its own, where the profile does not join queries)."""
         if pending is None:
             return
         reply = self.collect(pending)
         status_cmd = self.profile.op("event_status").queries[0]
-        also = self._joined_companions()
+        also = self._companion_queries(joined=True)
         if also:
             parts = self._answers(reply, 1 + len(also),
                                   f"{status_cmd} and {len(also)} joined queries", status_cmd)
             reply = parts[0]
             self._take_companions(also, parts[1:])
         self._take_status(reply, status_cmd)
-        if not self.compound:
-            for name in self._companions():
-                self.status_seen[name] = self.ask(name)
+        if not self.compound and (alone := self._companion_queries(joined=False)):
+            self._take_companions(alone, [self.query(q) for q in alone])
 
-    def _take_companions(self, names: list[str], parts: list[str]) -> None:
-        """The :attr:`status_companions`' answers of a joined reply into :attr:`status_seen`."""
-        for name, part in zip(names, parts, strict=True):
+    def _take_companions(self, queries: list[str], parts: list[str]) -> None:
+        """The answers ``parts`` of the companion ``queries`` into :attr:`status_seen`, each
+        companion parsed from its query's answer as its operation says (its own mask)."""
+        answers = dict(zip(queries, parts, strict=True))
+        for name in self._companions():
             operation = self.profile.op(name)
-            self.status_seen[name] = self._joined_value(operation, part, operation.queries[0])
+            cmd = operation.queries[0]
+            self.status_seen[name] = self._joined_value(operation, answers[cmd], cmd)
 
     def sync(self) -> None:
         """Prove the instrument has applied everything sent so far before another
@@ -931,7 +936,9 @@ class Driver:
                    timeout_s: float | None = None) -> list[Any]:
         """Several single-query operations (``(op, value)``) in one message where the
         profile allows it, ``*ESR?`` at its end when ``status`` (taken as :meth:`point_status`
-        will read it); one by one otherwise. Returns each parsed reply, in order."""
+        will read it); one by one otherwise. Returns each parsed reply, in order. A query
+        whose text was asked already in the message, with no command since, is sent once and
+        its answer read for both (two flags of one register)."""
         ops = [self.profile.op(op) for op, _ in asks]
         joinable = self.compound and all(
             len(o.queries) == 1 and o.reply != "real32" for o in ops)
@@ -940,12 +947,19 @@ class Driver:
         tokens = [None if o.spec.value == "none" else self._checked_token(o, value)[1]
                   for o, (_, value) in zip(ops, asks, strict=True)]  # all checked first
         with self.joined():  # held here, sent with the last query
-            queries: list[str] = []
+            queries: list[str] = []  # the query of each ask
+            sent: dict[str, int] = {}  # query text -> its answer's place, since a command
+            places: list[int] = []
             for operation, token in zip(ops, tokens, strict=True):
                 for template in operation.commands:
                     self._send(Operation.fill(template, token))
+                    sent.clear()
                 queries.append(Operation.fill(operation.queries[0], token))
-                self._send(queries[-1])  # a query unit: its answer joins the reply in order
+                place = sent.get(queries[-1])
+                if place is None:
+                    place = sent[queries[-1]] = len(set(places))
+                    self._send(queries[-1])  # a query unit: its answer joins the reply
+                places.append(place)
             status_cmd = None
             if status and self.profile.has("event_status"):
                 status_cmd = self.profile.op("event_status").queries[0]
@@ -958,12 +972,12 @@ class Driver:
             if timeout_s is not None:
                 timeout = max(timeout_s, timeout or 0.0)
             reply = self.query(last, timeout_s=timeout)
-        expected = len(queries) + (status_cmd is not None)
+        expected = len(set(places)) + (status_cmd is not None)
         parts = self._answers(reply, expected, f"{expected} joined queries", last)
         if status_cmd is not None:
             self._take_status(parts.pop(), status_cmd)
-        return [self._joined_value(operation, part, cmd)
-                for operation, part, cmd in zip(ops, parts, queries, strict=True)]
+        return [self._joined_value(operation, parts[place], cmd)
+                for operation, place, cmd in zip(ops, places, queries, strict=True)]
 
     def _answers(self, reply: str, count: int, what: str, cmd: str) -> list[str]:
         """The ``count`` answers of a joined reply; :class:`InstrumentError` naming ``what``

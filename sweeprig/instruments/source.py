@@ -13,9 +13,10 @@ class SourceDriver(Driver):
     """A CW signal source. Safe state: RF output off."""
 
     kind = "source"
-    #: Asked with every posted or leading status read where the profile joins queries: its
-    #: output's level state (:attr:`~sweeprig.instruments.driver.Driver.status_seen`).
-    status_companions = ("unleveled",)
+    #: Asked with its status read after every point: its output's level state and its
+    #: reference's lock (:attr:`~sweeprig.instruments.driver.Driver.status_seen`; one query
+    #: where both read one register, as SCPI-99's questionable condition holds both).
+    status_companions = ("unleveled", "reference_unlocked")
 
     def set_frequency(self, freq_hz: float) -> bool:
         """Set the CW frequency, Hz. Returns True if a command was sent."""

@@ -150,6 +150,7 @@ FLAG_BADGES: Mapping[str, str] = MappingProxyType({
     "supply_current_off": "supply current off",
     "supply_limited": "supply limited",
     "source_unleveled": "source unleveled",
+    "reference_unlocked": "reference unlocked",
 })
 
 #: (badge text, one-line meaning) of every flag: the words shown beside flagged figures.

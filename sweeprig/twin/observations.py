@@ -57,14 +57,15 @@ REQUIRED_FIGURES = ("conversion_gain",)
 
 #: Flags that say a number is not the part's own (analyzer overload, a dead part, a reading
 #: in the noise, a source harmonic landing on the product, an SSB noise figure converted with
-#: a doubtful image ratio, a part below its stated supply or short of its drive): such
-#: figures are left out.
+#: a doubtful image ratio, a part below its stated supply or short of its drive, a reference
+#: lost): such figures are left out.
 DISQUALIFYING_FLAGS = frozenset({
     figures.IN_NOISE, figures.OVERLOAD, figures.ANALYZER_DISTORTION,
     figures.ANALYZER_COMPRESSION, figures.RBW_MERGED, figures.NOISE_LIMITED,
     figures.SOURCE_HARMONIC,
     figures.MISSING_READING, figures.UNPOWERED, figures.SUPPLY_CURRENT_OFF,
     figures.IMAGE_RATIO_DOUBTFUL, figures.SUPPLY_LIMITED, figures.SOURCE_UNLEVELED,
+    figures.REFERENCE_UNLOCKED,
 })
 
 #: Condition key of a ``noise_figure`` observation: 1.0 when the figure is double-sideband

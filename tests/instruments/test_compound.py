@@ -242,24 +242,25 @@ def test_an_error_shown_by_a_leading_status_read_is_laid_on_the_commands_before_
 
 def test_a_sources_level_state_rides_with_the_status_read_that_leads_its_settings():
     """The held point's status read that leads the next settings asks the source's level
-    state too (SCPI-99 questionable POWer, bit 3), before the settings run: it tells of the
-    point before them. Unleveled lands in status_seen; a read that does not lead (a plain
-    sync) leaves no older answer behind."""
+    state and its reference's lock too (SCPI-99 questionable POWer, bit 3, and FREQuency,
+    bit 5: one register, asked once), before the settings run: it tells of the point before
+    them. The flags land in status_seen; a read that does not lead (a plain sync) leaves no
+    older answer behind."""
     src, link, device = _source()
-    device.ques = 8 | 32  # POWer (unleveled) and FREQuency (another flag: not this one)
+    device.ques = 8 | 32
     with src.joined():
         src.set_frequency(2.4e9)
         src.finish_sync(src.post_sync(status_first=True))
     assert link.sent == ["*ESR?;:STAT:QUES:COND?;:SOUR:FREQ:CW 2400000000;*OPC?"]
-    assert src.status_seen == {"unleveled": True}
+    assert src.status_seen == {"unleveled": True, "reference_unlocked": True}
     device.ques = 32
     with src.joined():
         src.set_frequency(2.5e9)
         src.finish_sync(src.post_sync(status_first=True))
-    assert src.status_seen == {"unleveled": False}  # bit 3 only
+    assert src.status_seen == {"unleveled": False, "reference_unlocked": True}  # by bit
     device.ques = 8
     src.finish_status(src.post_status())
-    assert src.status_seen == {"unleveled": True}
+    assert src.status_seen == {"unleveled": True, "reference_unlocked": False}
     with src.joined():
         src.set_frequency(2.6e9)
         pending = src.post_sync(status_first=True)
@@ -270,16 +271,34 @@ def test_a_sources_level_state_rides_with_the_status_read_that_leads_its_setting
 def test_a_source_that_takes_no_compound_messages_is_asked_its_level_state_apart():
     """A profile without compound messages (fr-sg8) cannot join the level state to its
     status read: it is asked in a message of its own after it (one exchange more), with the
-    mask the profile inherits (POWer, bit 3)."""
+    mask the profile inherits (POWer, bit 3), and its reference lock from the same answer
+    with its own mask (bit 9)."""
     device = Device()
     link = FakeTransport(device)
     src = make_driver("fr-sg8", "lo", link)
     assert not src.compound and src.asks_companions
-    device.ques = 8 | 512  # POWer; and its own reference-unlocked bit 9: not this flag
+    device.ques = 8  # POWer; its reference-unlocked flag is its own bit 9
     src.finish_status(src.post_status())
-    assert link.sent == ["*ESR?", "STAT:QUES:COND?"]
-    assert src.status_seen == {"unleveled": True}
+    assert link.sent == ["*ESR?", "STAT:QUES:COND?"]  # both flags: one query
+    assert src.status_seen == {"unleveled": True, "reference_unlocked": False}
     device.ques = 512
     src.expire_status()
     src.finish_status(src.post_status())
-    assert src.status_seen == {"unleveled": False}
+    assert src.status_seen == {"unleveled": False, "reference_unlocked": True}
+
+
+def test_the_analyzers_reference_lock_is_read_from_its_overload_query():
+    """The analyzer's reference lock (FREQuency, bit 5) and its overload flag (POWer, bit 3)
+    are one register: the marker reading's message asks it once and reads both flags from
+    the answer (no byte more on the bus)."""
+    device = Device()
+    link = FakeTransport(device)
+    sa = make_driver("scpi-analyzer", "sa", link)
+    device.ques = 32
+    _level, _noise, overload = sa.sweep_and_read(0.01, 70e6)
+    assert link.sent == [":INIT:IMM;*WAI;:CALC:MARK1:X 70000000;:CALC:MARK1:Y?;"
+                         ":STAT:QUES:COND?;*ESR?"]
+    assert overload is False and sa.reference_unlocked_seen is True
+    device.ques = 8
+    _level, _noise, overload = sa.sweep_and_read(0.01, 70e6)
+    assert overload is True and sa.reference_unlocked_seen is False
