@@ -943,7 +943,7 @@ class Driver:
         joinable = self.compound and all(
             len(o.queries) == 1 and o.reply != "real32" for o in ops)
         if not joinable:
-            return [self.ask(op, value) for op, value in asks]
+            return self._ask_each(asks, ops)
         tokens = [None if o.spec.value == "none" else self._checked_token(o, value)[1]
                   for o, (_, value) in zip(ops, asks, strict=True)]  # all checked first
         with self.joined():  # held here, sent with the last query
@@ -978,6 +978,25 @@ class Driver:
             self._take_status(parts.pop(), status_cmd)
         return [self._joined_value(operation, parts[place], cmd)
                 for operation, place, cmd in zip(ops, places, queries, strict=True)]
+
+    def _ask_each(self, asks: tuple[tuple[str, Value | None], ...], ops: list[Operation]
+                  ) -> list[Any]:
+        """:meth:`ask_joined` one message at a time: a plain query whose text was just asked
+        (no command since) is read from that answer, not asked again."""
+        out: list[Any] = []
+        last: tuple[str, str] | None = None  # (query, its answer) since the last command
+        for (op, value), operation in zip(asks, ops, strict=True):
+            plain = (operation.spec.value == "none" and not operation.commands
+                     and len(operation.queries) == 1 and operation.reply != "real32")
+            if not plain:
+                out.append(self.ask(op, value))
+                last = None
+                continue
+            cmd = operation.queries[0]
+            if last is None or last[0] != cmd:
+                last = (cmd, self.query(cmd, timeout_s=operation.timeout_s))
+            out.append(self._joined_value(operation, last[1], cmd))
+        return out
 
     def _answers(self, reply: str, count: int, what: str, cmd: str) -> list[str]:
         """The ``count`` answers of a joined reply; :class:`InstrumentError` naming ``what``

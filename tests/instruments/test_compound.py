@@ -302,3 +302,16 @@ def test_the_analyzers_reference_lock_is_read_from_its_overload_query():
     device.ques = 8
     _level, _noise, overload = sa.sweep_and_read(0.01, 70e6)
     assert overload is True and sa.reference_unlocked_seen is False
+
+
+def test_an_analyzer_without_compound_messages_asks_the_shared_register_once():
+    """One at a time (fr-sa20 takes no compound messages), the overload flag and the
+    reference lock still read one answer of the questionable register: no exchange more."""
+    device = Device()
+    link = FakeTransport(device)
+    sa = make_driver("fr-sa20", "sa", link)
+    assert not sa.compound
+    device.ques = 1024  # its overload bit 10
+    level, _noise, overload = sa.marker_reading(70e6)
+    assert [m for m in link.sent if "QUES" in m] == ["STAT:QUES:COND?"]
+    assert overload is True and sa.reference_unlocked_seen is False
