@@ -82,6 +82,9 @@ from synthetic_store import run_child, timed_store, verdict
 
 SCRIPT = Path(__file__).resolve()
 TARGETS = {100_000: (8.0, 500.0), 1_000_000: (60.0, 1536.0)}
+#: Reports made of the 100k-point store, the median printed (issue 14: median of 3); the 1M
+#: one is made once (minutes, and several GB). ``SWEEPRIG_PERF_REPORT_REPEATS`` gives fewer.
+REPEATS = max(1, int(os.environ.get("SWEEPRIG_PERF_REPORT_REPEATS", "3")))
 
 
 
@@ -133,9 +136,14 @@ def test_perf_report_of_a_large_run(points: int, tmp_path: Path) -> None:
     store = tmp_path / "runs.sqlite"
     made = run_child(SCRIPT, "store", str(store), str(points))
     load = os.getloadavg()[0]
-    result = run_child(SCRIPT, "report", str(store), str(int(made["run_id"])),
-                       str(tmp_path / "out"))
+    repeats = REPEATS if points <= 100_000 else 1
+    results = [run_child(SCRIPT, "report", str(store), str(int(made["run_id"])),
+                         str(tmp_path / f"out-{k}")) for k in range(repeats)]
     load = max(load, os.getloadavg()[0])
+    results.sort(key=lambda r: r["seconds"])
+    result = results[len(results) // 2]  # the median run, printed whole below
+    each = ", ".join(f"{r['seconds']:.1f} s {r['peak_mb']:.0f} MB" for r in results)
+    print(f"\n{len(results)} run(s) of the report (median printed): {each}")
     time_target, memory_target = TARGETS[points]
     print(f"\nreport of {made['points']:.0f} points ({made['readings']:.0f} readings, "
           f"{result['figures']:.0f} figures; store written in {made['seconds']:.0f} s): "
@@ -147,7 +155,7 @@ def test_perf_report_of_a_large_run(points: int, tmp_path: Path) -> None:
           f"({result['reduce_peak_mb']:.0f} MB by the end of the reduction); files "
           f"{result['files_mb']:.0f} MB (figures.json {result['json_mb']:.0f} MB, "
           f"{result['json_mb'] * 1e6 / max(result['figures'], 1.0):.0f} B a figure); "
-          f"load average {load:.1f} on {os.cpu_count()} cores; {machine_text()}")
+          f"load average at most {load:.1f} during the runs; now {machine_text()}")
     print("files: " + ", ".join(f"{key[3:]} {value:.1f} MB" for key, value in result.items()
                                 if key.startswith("mb ")))
     record: dict[str, dict[str, float]] = {}
