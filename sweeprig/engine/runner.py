@@ -893,10 +893,14 @@ class Runner:
         sent = False
         # A source whose profile cannot lead its settings with the held point's status read,
         # but asks its level state with that read, is read first: read after its new
-        # settings, the state would tell of them (one exchange no more, only earlier).
+        # settings, the state would tell of them (one exchange no more, only earlier). So is
+        # a second tone about to go off (an output off is never unleveled).
+        rf2 = self.d.rf2
+        going_off = rf2 if (point.rf2_freq_hz is None and rf2 is not None
+                            and rf2.state().get("output") is not False) else None
         first = [(d, d.post_status()) for _r, d in self._unverified
                  if isinstance(d, SourceDriver) and id(d) not in self._status_read
-                 and not d.joins_status and d.asks_companions]
+                 and d.asks_companions and (not d.joins_status or d is going_off)]
         if first:
             failure = _finish_all(first, Driver.finish_status)
             if failure is not None:

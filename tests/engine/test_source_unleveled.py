@@ -110,3 +110,52 @@ def test_a_source_that_levels_every_setting_flags_nothing(tmp_path):
     assert not any("source_unleveled" in f.flags for f in run.figures)
     assert not [e for e in events if e.kind == "source"]
     assert not any(UNLEVELED_SOURCES in e for e in extras.values())
+
+
+TWO_THEN_ONE = """format = 1
+[about]
+title = "two tones, then one"
+[part]
+id = "KX-2417"
+expected_gain = "12 dB"
+[mixing]
+if_frequency = "100 MHz"
+[conditions]
+supply = "3.3 V"
+settle = "20 ms"
+[[study]]
+name = "two-tone"
+rf_frequency = "2.2 GHz"
+tone_spacing = "1 MHz"
+rf_power = ["-30 dBm", "-28 dBm"]
+lo_power = "0 dBm"
+read = ["wanted"]
+[[study]]
+name = "gain"
+rf_frequency = ["2.0 GHz", "2.2 GHz"]
+rf_power = "-35 dBm"
+lo_power = "0 dBm"
+read = ["wanted"]
+"""
+
+
+def test_the_second_tone_is_read_before_it_goes_off(tmp_path):
+    """The second tone's source, short of its level, goes off when the single-tone study
+    begins: its state after the last two-tone point is read before it is switched off (read
+    after, an output off is never unleveled, and that point passed unflagged)."""
+    sequence = tmp_path / "two-then-one.toml"
+    sequence.write_text(TWO_THEN_ONE, encoding="utf-8")
+    description = tmp_path / "sim-bench.toml"
+    description.write_text(DESCRIPTION.format(max="20 dBm", family="tarnwick")
+                           + 'rf2 = "-40 dBm"\n', encoding="utf-8")
+    store = tmp_path / "runs.sqlite"
+    outcome = run_sequence(sequence, SIM_BENCH, sim=True, sim_description=description,
+                           store_path=store)
+    assert outcome.status == "complete", outcome.reason
+    with SqliteRunStore(store, create=False) as db:
+        points = db.points_frame(outcome.run_id)
+        marks = {(study, round(power)): json.loads(text).get(UNLEVELED_SOURCES)
+                 for study, power, text in zip(points["study"], points["rf_power_dbm"],
+                                               points["extra_json"], strict=True)}
+    assert marks == {("two-tone", -30): ["rf2"], ("two-tone", -28): ["rf2"],
+                     ("gain", -35): None}, marks

@@ -312,6 +312,6 @@ def test_an_analyzer_without_compound_messages_asks_the_shared_register_once():
     sa = make_driver("fr-sa20", "sa", link)
     assert not sa.compound
     device.ques = 1024  # its overload bit 10
-    level, _noise, overload = sa.marker_reading(70e6)
+    _level, _noise, overload = sa.marker_reading(70e6)
     assert [m for m in link.sent if "QUES" in m] == ["STAT:QUES:COND?"]
     assert overload is True and sa.reference_unlocked_seen is False
