@@ -62,6 +62,7 @@ from sweeprig.analysis import validity
 from sweeprig.analysis.figures import (
     ANALYZER_COMPRESSION,
     ANALYZER_DISTORTION,
+    ANALYZER_UNCALIBRATED,
     ATTEN_CARRIER_MOVED,
     FREQUENCY_OFFSET,
     IN_NOISE,
@@ -409,6 +410,8 @@ def _predicted_flags(
         # measured by the windowed peak search (extra_json search_flags, read with the risks)
         flags |= mask_where(risk(FREQUENCY_OFFSET), FREQUENCY_OFFSET)
         flags |= mask_where(risk(WINDOW_EDGE), WINDOW_EDGE)
+        # measured by the analyzer's status at the reading (extra_json status_flags)
+        flags |= mask_where(risk(ANALYZER_UNCALIBRATED), ANALYZER_UNCALIBRATED)
         # nothing in the search window stood out of the noise: the level is a bound
         flags |= mask_where(risk("not_found"), IN_NOISE)
     return flags | mask_where(merged, RBW_MERGED)

@@ -107,6 +107,11 @@ Flags (sweeprig's own names)
     the reading): it ran on its own crystal, its frequencies off by that crystal's error, so
     a narrow-RBW reading may have missed the product (a house reference or its cable lost
     in the night).
+``analyzer_uncalibrated``
+    The analyzer flagged a reading behind the figure uncalibrated (its questionable status'
+    CALibration bit, read in the reading's own message): on a real analyzer a trace above
+    the reference level, a sweep too fast for its RBW, or another state in which it does not
+    vouch for the level it shows.
 ``image_ratio_doubtful``
     A single-sideband noise figure converted with a measured image-to-signal ratio whose
     wanted reading stood less than 6 dB above its noise floor, or that put the image response
@@ -174,6 +179,7 @@ IMAGE_RATIO_DOUBTFUL = "image_ratio_doubtful"
 SUPPLY_LIMITED = "supply_limited"
 SOURCE_UNLEVELED = "source_unleveled"
 REFERENCE_UNLOCKED = "reference_unlocked"
+ANALYZER_UNCALIBRATED = "analyzer_uncalibrated"
 
 #: Every flag, in a fixed order: the position is the flag's bit in a flag mask.
 FLAGS: tuple[str, ...] = (
@@ -216,6 +222,8 @@ FLAGS: tuple[str, ...] = (
     SOURCE_UNLEVELED,
     # a reference lock lost at a point (a source's status read, the analyzer's reading)
     REFERENCE_UNLOCKED,
+    # the analyzer's uncalibrated flag at a reading
+    ANALYZER_UNCALIBRATED,
 )
 
 #: Flags that make a figure untrustworthy as a number: a limit check on it is inconclusive.
@@ -255,6 +263,7 @@ SUSPECT_FLAGS: frozenset[str] = frozenset(
         SUPPLY_LIMITED,
         SOURCE_UNLEVELED,
         REFERENCE_UNLOCKED,
+        ANALYZER_UNCALIBRATED,
     }
 )
 
@@ -323,6 +332,8 @@ FLAG_MEANINGS: Mapping[str, str] = MappingProxyType({
     REFERENCE_UNLOCKED: "at a point behind it a source or the analyzer reported its 10 MHz "
     "reference unlocked: its frequencies were off, a narrow-RBW reading may have missed the "
     "product",
+    ANALYZER_UNCALIBRATED: "the analyzer flagged a reading behind it uncalibrated (a trace "
+    "above its reference level, a sweep too fast for its RBW): it did not vouch for the level",
 })
 
 _FLAG_BIT = {name: 1 << i for i, name in enumerate(FLAGS)}

@@ -41,8 +41,9 @@ and ``attenuation_db``. Kept for tracing a figure back to the store: ``reading_n
 the point's ``probe_temperature_c``. ``risks``: the planner's predicted risks of the reading
 (``extra_json`` ``risks``, joined by commas, ``""`` for none predicted), None where the
 store holds no prediction (a store written before predictions: never read as "no risk");
-what was measured rides with them: the peak search's flags, and a ``supply_current``
-reading's ``supply_limited`` (``extra_json`` ``supply_flags``).
+what was measured rides with them: the peak search's flags, a ``supply_current``
+reading's ``supply_limited`` (``extra_json`` ``supply_flags``) and the analyzer's
+``analyzer_uncalibrated`` (``extra_json`` ``status_flags``).
 The wanted product's (m, n) is found from the ``wanted`` readings' stored multipliers
 ((1, −1) when there are none).
 """
@@ -239,7 +240,8 @@ def _risks_column(extras: np.ndarray) -> np.ndarray:
     cache: dict[str, str | None] = {}
     for i, text in enumerate(extras.tolist()):
         if not isinstance(text, str) or ('"risks"' not in text and '"search' not in text
-                                         and '"supply_flags"' not in text):
+                                         and '"supply_flags"' not in text
+                                         and '"status_flags"' not in text):
             continue
         if text not in cache:
             cache[text] = _risks_from_extra(text)
@@ -258,10 +260,13 @@ def _risks_from_extra(text: str) -> str | None:
         if isinstance(search, dict) and search.get("found") is False:
             searched = [*(searched if isinstance(searched, list | tuple) else []),
                         "not_found"]
-        # measured at a supply reading (the runner: the part below its stated supply)
-        supply = extra.get("supply_flags")
-        if isinstance(supply, list | tuple):
-            searched = [*(searched if isinstance(searched, list | tuple) else []), *supply]
+        # measured at a supply reading (the runner: the part below its stated supply), and
+        # the instrument's own status at the reading (the analyzer's uncalibrated flag)
+        for key in ("supply_flags", "status_flags"):
+            measured = extra.get(key)
+            if isinstance(measured, list | tuple):
+                searched = [*(searched if isinstance(searched, list | tuple) else []),
+                            *measured]
     except (ValueError, AttributeError):
         return None
     if not isinstance(risks, list | tuple):

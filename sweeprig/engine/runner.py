@@ -93,6 +93,10 @@ CHAMBER_TIMEOUT_S = 4 * 3600.0
 PON_BIT = 0x80
 """IEEE 488.2 standard event status register bit 7: power on."""
 
+#: A reading's ``extra`` ``status_flags`` entry: the analyzer flagged the reading
+#: uncalibrated (the reduction flags its figures ``analyzer_uncalibrated``).
+ANALYZER_UNCALIBRATED = "analyzer_uncalibrated"
+
 #: The point record's ``extra`` key listing the roles that reported their 10 MHz reference
 #: unlocked at the point (the reduction flags its figures ``reference_unlocked``).
 REFERENCE_UNLOCKED = "reference_unlocked"
@@ -1101,7 +1105,11 @@ class Runner:
                       if aim is None and floor_from == "markers" else {}),
                    "sweep_s": sweep_s, "sweep_time_from": sweep_from,
                    **({} if found is None or aim is None
-                      else search_extra(reading, found, aim))},
+                      else search_extra(reading, found, aim)),
+                   # the analyzer flagged its reading uncalibrated (its questionable status,
+                   # read in the reading's own message)
+                   **({"status_flags": [ANALYZER_UNCALIBRATED]} if sa.uncalibrated_seen
+                      else {})},
         )
 
     def _agree_offsets(self, point: Point, records: list[ReadingRecord]

@@ -251,25 +251,22 @@ class AnalyzerDriver(Driver):
         asks: list[tuple[str, float | None]] = [("marker_level", freq_hz)]
         asks += [("marker_level", f) for f in noise_hz]
         asks.append(("overload", None))
-        lock = self._asks_lock()
-        if lock:  # its reference's lock at the reading (in the same message where joined)
-            asks.append(("reference_unlocked", None))
+        # its reference's lock and its uncalibrated flag at the reading (in the same message
+        # where joined; one query where they read the overload flag's register)
+        lock, uncal = self.plain_query("reference_unlocked"), self.plain_query("uncalibrated")
+        asks += [(op, None) for op, ask in (("reference_unlocked", lock),
+                                            ("uncalibrated", uncal)) if ask]
         replies = self.ask_joined(*asks, status=True, timeout_s=timeout_s)
+        self.uncalibrated_seen = bool(replies.pop()) if uncal else None
         self.reference_unlocked_seen = bool(replies.pop()) if lock else None
         return (float(replies[0]), tuple(float(r) for r in replies[1:-1]),
                 bool(replies[-1]))
 
-    #: Whether the last :meth:`marker_reading` found the reference unlocked (None: the
-    #: profile cannot tell, or no reading yet).
+    #: Whether the last :meth:`marker_reading` found the reference unlocked, and the
+    #: reading flagged uncalibrated (None: the profile cannot tell, or no reading yet).
     reference_unlocked_seen: bool | None = None
+    uncalibrated_seen: bool | None = None
 
-    def _asks_lock(self) -> bool:
-        """True when the profile has ``reference_unlocked`` as a plain single query, asked
-        with every marker reading."""
-        if not self.profile.has("reference_unlocked"):
-            return False
-        op = self.profile.op("reference_unlocked")
-        return len(op.queries) == 1 and not op.commands and op.spec.value == "none"
 
     def peak(self) -> tuple[float, float]:
         """Marker 1 to the highest point of the trace → (frequency Hz, level dBm)."""

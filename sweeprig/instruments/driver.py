@@ -860,14 +860,17 @@ class Driver:
         return bool(self._companions())
 
     def _companions(self) -> list[str]:
-        """The :attr:`status_companions` this instrument's profile has as plain single
-        queries (no parameter, no command)."""
-        if not self.status_companions:
-            return []
-        return [name for name in self.status_companions if self.profile.has(name)
-                and len(self.profile.op(name).queries) == 1
-                and not self.profile.op(name).commands
-                and self.profile.op(name).spec.value == "none"]
+        """The :attr:`status_companions` this instrument's profile has as plain queries."""
+        return [name for name in self.status_companions if self.plain_query(name)]
+
+    def plain_query(self, name: str) -> bool:
+        """True when the profile has operation ``name`` as a plain single query (no
+        parameter, no command): one that can ride in another message."""
+        if not self.profile.has(name):
+            return False
+        operation = self.profile.op(name)
+        return (len(operation.queries) == 1 and not operation.commands
+                and operation.spec.value == "none")
 
     def _companion_queries(self, *, joined: bool) -> list[str]:
         """The distinct query texts of the companions (two flags of one register, such as a

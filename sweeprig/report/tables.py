@@ -151,6 +151,7 @@ FLAG_BADGES: Mapping[str, str] = MappingProxyType({
     "supply_limited": "supply limited",
     "source_unleveled": "source unleveled",
     "reference_unlocked": "reference unlocked",
+    "analyzer_uncalibrated": "analyzer uncalibrated",
 })
 
 #: (badge text, one-line meaning) of every flag: the words shown beside flagged figures.

@@ -1,0 +1,65 @@
+"""A reading the analyzer itself flags uncalibrated (its questionable status' CALibration
+bit: on the simulated bench a trace above the reference level; on a real analyzer also a
+sweep too fast for its RBW, and more) was stored as a good number: the flag was never read.
+Now the reading's own message reads it from the same answer as its overload flag (one
+register, nothing more on the bus), the reading records ``status_flags``, and its figures
+are flagged ``analyzer_uncalibrated`` (suspect)."""
+
+from __future__ import annotations
+
+import json
+
+import pytest
+
+from sweeprig.analysis import figures
+from sweeprig.analysis.reduce import reduce_run
+from sweeprig.engine import runner
+from sweeprig.engine.session import run_sequence
+from sweeprig.store.sqlite import SqliteRunStore
+
+SEQUENCE = """format = 1
+[about]
+title = "gain, the analyzer's reference level at {ref}"
+[part]
+id = "KX-2417"
+expected_gain = "12 dB"
+[mixing]
+if_frequency = "100 MHz"
+[conditions]
+supply = "3.3 V"
+settle = "20 ms"
+[[study]]
+name = "gain"
+rf_frequency = ["2.0 GHz", "2.2 GHz"]
+rf_power = "-25 dBm"
+lo_power = "0 dBm"
+read = [{{ kind = "wanted", analyzer = {{ reference_level = "{ref}" }} }}]
+"""
+
+
+@pytest.mark.parametrize(("ref", "flagged"), [("-30 dBm", True), ("5 dBm", False)])
+def test_a_reading_the_analyzer_calls_uncalibrated_flags_its_figures(tmp_path, ref, flagged):
+    """The product about −13.5 dBm at the analyzer: a reference level of −30 dBm puts the
+    trace above it (the analyzer flags the reading), +5 dBm does not."""
+    sequence = tmp_path / "gain.toml"
+    sequence.write_text(SEQUENCE.format(ref=ref), encoding="utf-8")
+    store = tmp_path / "runs.sqlite"
+    outcome = run_sequence(sequence, sim=True, store_path=store)
+    assert outcome.status == "complete", outcome.reason
+    with SqliteRunStore(store, create=False) as db:
+        run = reduce_run(db, outcome.run_id)
+        extras = [json.loads(t) for t in db.readings_frame(outcome.run_id)["extra_json"]]
+    assert all(("status_flags" in e) is flagged for e in extras), extras
+    gains = run.figures_named("conversion_gain")
+    assert len(gains) == 2
+    assert all(("analyzer_uncalibrated" in f.flags) is flagged for f in gains)
+    judged = [j for j in run.assessment.judgements if j.figure.name == "conversion_gain"]
+    if flagged:  # a suspect figure cannot pass its limit
+        assert all(j.verdict != "pass" for j in judged)
+
+
+def test_the_recorded_name_is_the_figure_flag():
+    """The runner writes the flag's name into the reading; the analysis reads it as a
+    figure flag: two layers that do not import each other, pinned together here."""
+    assert runner.ANALYZER_UNCALIBRATED == figures.ANALYZER_UNCALIBRATED
+    assert runner.REFERENCE_UNLOCKED == figures.REFERENCE_UNLOCKED
