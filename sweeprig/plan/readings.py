@@ -743,6 +743,10 @@ class ReadingPlanner:
         if mg.merged(others, freq_hz, product, rbw, setup.span_hz, margins.noise_margin):
             risks.append("rbw_merged")
             reasons.append(f"another line within the {rbw:g} Hz RBW's reach")
+        if pic.total_dbm > setup.reference_level_dbm:  # a reference level set by hand
+            risks.append("above_reference")
+            reasons.append(f"{pic.total_dbm:.1f} dBm at the analyzer input, above the "
+                           f"reference level of {setup.reference_level_dbm:g} dBm")
         order = sorted(range(len(risks)), key=lambda i: risks[i])
         return mg.Prediction(
             product_dbm=product if known_level else None, noise_dbm=noise,

@@ -29,6 +29,8 @@ RISK_MEANINGS: dict[str, str] = {
     "reciprocal_mixing": "the analyzer's phase noise on a neighbour is within the noise margin",
     "noise": "the noise in the RBW is within the noise margin",
     "rbw_merged": "another line is too close for the RBW to separate",
+    "above_reference": "the analyzer input is above the reading's reference level (the "
+    "analyzer may call the reading uncalibrated)",
 }
 
 

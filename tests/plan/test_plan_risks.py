@@ -265,3 +265,17 @@ def test_the_pre_flight_plans_each_point_of_a_pass_once(bench: Bench, monkeypatc
     monkeypatch.undo()
     assert report.risks == survey_risks(s, bench)
     assert report.risks.groups  # the two-tone study's distortion risk is found
+
+
+def test_a_reference_level_set_under_the_input_is_a_risk_and_auto_never_is(bench: Bench
+                                                                          ) -> None:
+    """A reference level set by hand under the predicted input: the analyzer may call the
+    reading uncalibrated (the run then flags it), so check says so before any RF; the
+    automatic reference level sits at least 3 dB above the input, so never."""
+    study = {"name": "g", "rf_frequency": "2.2 GHz", "rf_power": "-25 dBm",
+             "lo_power": "0 dBm"}
+    low = readings(seq([{**study, "read": [
+        {"kind": "wanted", "analyzer": {"reference_level": "-30 dBm"}}]}]), bench)
+    assert "above_reference" in low["wanted"].risks
+    auto = readings(seq([{**study, "read": ["wanted"]}]), bench)
+    assert "above_reference" not in auto["wanted"].risks
