@@ -85,6 +85,11 @@ _DISTORTION_LINES = 8
 _PRODUCT_FLOOR_DBM = -250.0
 SWEEP_TIME_FACTOR = 2.5  # k in k·span/RBW² (common practice, no source: k ≈ 2-3, Gaussian)
 MIN_SWEEP_TIME_S = 1e-3
+#: How far above the reference level the simulated analyzer's IF still shows a level, dB:
+#: above it the IF clips and the display shows this much (the reading is then flagged
+#: uncalibrated already: anything above the reference level is). An invented figure of the
+#: fictional analyzer; real analyzers state their own headroom, often a few dB.
+IF_HEADROOM_DB = 10.0
 ZERO_SPAN_TIME_PER_POINT_S = 1e-6
 
 
@@ -253,6 +258,9 @@ class SweepResult:
     _signal_grid_mw: FloatArray | None = field(default=None, repr=False)
     _noise_base_grid_mw: FloatArray | None = field(default=None, repr=False)
     _reciprocal_mw: Callable[[FloatArray], FloatArray] | None = field(default=None, repr=False)
+    #: The highest level the display can show, dBm: the reference level plus
+    #: :data:`IF_HEADROOM_DB` (above it the IF clips: the level shown is this).
+    clip_dbm: float = math.inf
 
     def level_at(self, freq_hz: float) -> float:
         """Displayed level (dBm) exactly at ``freq_hz`` (clamped to the sweep's range).
@@ -289,7 +297,7 @@ class SweepResult:
         else:
             f = np.array([x])
             total = self._signal_mw(f) + self._noise_mw(f) * 10.0 ** (offset / 10.0)
-        return float(_mw_to_dbm(total)[0])
+        return min(float(_mw_to_dbm(total)[0]), self.clip_dbm)
 
     def peak(self) -> tuple[float, float]:
         """Frequency (Hz) and level (dBm) of the trace maximum.
@@ -626,11 +634,15 @@ def simulate_sweep(
     signal_grid, base_grid = signal_mw(freqs, ascending=True), base_mw(freqs)
     noise_grid = base_grid if reciprocal_mw is None else base_grid + reciprocal_mw(freqs)
     trace = _mw_to_dbm(signal_grid + noise_grid * 10.0 ** (offsets_db / 10.0))
+    uncalibrated = bool(np.max(trace) > settings.ref_level_dbm)
+    clip_dbm = settings.ref_level_dbm + IF_HEADROOM_DB
+    if uncalibrated:  # (only then can a point be above the clip)
+        trace = np.minimum(trace, clip_dbm)
     return SweepResult(
         freqs_hz=freqs,
         trace_dbm=trace,
         overload=bool(mixer_total_dbm > params.overload_dbm),
-        uncalibrated=bool(np.max(trace) > settings.ref_level_dbm),
+        uncalibrated=uncalibrated,
         sweep_time_s=total_sweep_time_s(settings),
         mixer_level_dbm=mixer_total_dbm,
         _signal_mw=signal_mw,
@@ -639,6 +651,7 @@ def simulate_sweep(
         _signal_grid_mw=signal_grid,
         _noise_base_grid_mw=base_grid,
         _reciprocal_mw=reciprocal_mw,
+        clip_dbm=clip_dbm,
     )
 
 

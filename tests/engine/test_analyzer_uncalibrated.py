@@ -40,7 +40,8 @@ read = [{{ kind = "wanted", analyzer = {{ reference_level = "{ref}" }} }}]
 @pytest.mark.parametrize(("ref", "flagged"), [("-30 dBm", True), ("5 dBm", False)])
 def test_a_reading_the_analyzer_calls_uncalibrated_flags_its_figures(tmp_path, ref, flagged):
     """The product about −13.5 dBm at the analyzer: a reference level of −30 dBm puts the
-    trace above it (the analyzer flags the reading), +5 dBm does not."""
+    trace above it (the analyzer flags the reading, and its IF clips 10 dB above the
+    reference level: the gain reads 6 dB low), +5 dBm does not."""
     sequence = tmp_path / "gain.toml"
     sequence.write_text(SEQUENCE.format(ref=ref), encoding="utf-8")
     store = tmp_path / "runs.sqlite"
