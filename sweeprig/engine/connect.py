@@ -54,6 +54,8 @@ class BenchDrivers:
     startup_errors: dict[str, list[str]] = field(default_factory=dict)
     """Errors found in each instrument's queue when the bench was opened (role → texts)."""
     timebase_notes: list[str] = field(default_factory=list)
+    #: Status companions an instrument refused at connect (left out for the run).
+    companion_notes: list[str] = field(default_factory=list)
     """What the bench's ``[timebase]`` could not set or verify (sweeprig.engine.timebase)."""
 
     def items(self) -> Iterator[tuple[str, Driver]]:
@@ -148,6 +150,8 @@ def open_bench(
 
         drivers.timebase_notes = apply_timebase(
             bench, dict(drivers.items()), clock if clock is not None else WallClock())
+        for _role, driver in drivers.items():  # the flags read after every point, tried once
+            drivers.companion_notes += driver.check_companions()
     except BaseException:
         drivers.close()
         raise

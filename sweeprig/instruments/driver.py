@@ -154,6 +154,9 @@ class Driver:
         self._status_first = False
         #: The :attr:`status_companions`' answers read with the last posted status read.
         self.status_seen: dict[str, Any] = {}
+        #: Companions left out for the run: the instrument did not answer them at connect
+        #: (:meth:`check_companions`).
+        self._dropped_companions: set[str] = set()
 
     before_message: Callable[[], None] | None = None
     """Called just before each message leaves for the instrument (after it is built), when
@@ -860,8 +863,37 @@ class Driver:
         return bool(self._companions())
 
     def _companions(self) -> list[str]:
-        """The :attr:`status_companions` this instrument's profile has as plain queries."""
-        return [name for name in self.status_companions if self.plain_query(name)]
+        """The :attr:`status_companions` this instrument's profile has as plain queries (and
+        it answered at connect)."""
+        return [name for name in self.status_companions if self.plain_query(name)
+                and name not in self._dropped_companions]
+
+    def check_companions(self) -> list[str]:
+        """Ask each companion query once, at connect: one the instrument refuses (an error
+        in its queue, no reply, or a reply its operation cannot parse) is left out for the
+        run, so the status read after every point never fails on a flag this instrument
+        lacks. Returns a note for each one left out."""
+        notes: list[str] = []
+        for query in self._companion_queries(joined=False):
+            names = [n for n in self._companions() if self.profile.op(n).queries[0] == query]
+            problem = ""
+            try:
+                reply = self.query(query)
+                for name in names:
+                    self._joined_value(self.profile.op(name), reply, query)
+            except (InstrumentError, TransportError) as exc:
+                problem = str(exc).splitlines()[0]
+            found = self.errors()
+            if found and not problem:
+                problem = "; ".join(str(e) for e in found)
+            if problem:
+                self._dropped_companions.update(names)
+                notes.append(f"role {self.role!r}: {query} failed at connect ({problem}), so "
+                             f"{' and '.join(names)} {'is' if len(names) == 1 else 'are'} not "
+                             "read after each point: those flags cannot be raised for it this "
+                             f"run; give it a profile without ops.{names[0]} (check it with "
+                             "`sweeprig probe`) to silence this")
+        return notes
 
     def plain_query(self, name: str) -> bool:
         """True when the profile has operation ``name`` as a plain single query (no

@@ -159,3 +159,35 @@ def test_the_second_tone_is_read_before_it_goes_off(tmp_path):
                                                points["extra_json"], strict=True)}
     assert marks == {("two-tone", -30): ["rf2"], ("two-tone", -28): ["rf2"],
                      ("gain", -35): None}, marks
+
+
+def _refusing(tmp_path: Path, kind: str):
+    """The two-drive sequence on a bench whose LO source does ``kind`` (a planted fault) to
+    its first STAT:QUES:COND?, the connect's check of its status companions."""
+    sequence = tmp_path / "sweep.toml"
+    sequence.write_text(SWEEP, encoding="utf-8")
+    description = tmp_path / "sim-bench.toml"
+    description.write_text(DESCRIPTION.format(max="6 dBm", family="tarnwick")
+                           + f'[[faults]]\nrole = "lo"\nkind = "{kind}"\n'
+                           'match = "STAT:QUES:COND?"\nmax_count = 1\n', encoding="utf-8")
+    return sequence, description, tmp_path / "runs.sqlite"
+
+
+@pytest.mark.parametrize("kind", ["error", "swallow"])
+def test_a_source_that_refuses_its_level_query_at_connect_is_run_without_it(tmp_path, kind):
+    """A source that answers its level query with an error, or not at all (an instrument
+    without it, on a generic profile): the query is left out for the run with a warning
+    that says which flags it cannot raise, and every point's status read goes without it,
+    rather than failing the run at its first point."""
+    sequence, description, store = _refusing(tmp_path, kind)
+    outcome = run_sequence(sequence, SIM_BENCH, sim=True, sim_description=description,
+                           store_path=store, bus_log=True)
+    assert outcome.status == "complete", outcome.reason
+    with SqliteRunStore(store, create=False) as db:
+        events = db.events(outcome.run_id)
+        log = db.bus_log(outcome.run_id, role="lo")
+    told = [e for e in events if e.kind == "status"]
+    assert len(told) == 1 and "STAT:QUES:COND?" in told[0].message \
+        and "unleveled and reference_unlocked are not read" in told[0].message, \
+        [e.message for e in events]
+    assert sum("STAT:QUES:COND?" in r.sent for r in log) == 1  # the check at connect only
