@@ -238,6 +238,7 @@ def _reduce_run(store: RunStore, run_id: int) -> RunFigures:
     figures, noise_figures = both[:count], both[count:]
     del both
     notes += bench_specs.notes
+    notes += _unchecked_notes(events)
     calibration, calibration_note = calibration_state(events)
     notes += [calibration_note] if calibration_note else []
     # each pass replaces the figures of this list where they stand (never two copies held);
@@ -583,6 +584,30 @@ def _flag_role_marks(figures: list[Figure], points: pd.DataFrame,
                      f"from those points is flagged '{flag}'")
         figures = flag_points(figures, found.tolist(), flag)
     return figures
+
+
+#: A status companion (the instrument operation read after every point) → the figure flag it
+#: raises: a companion left out for the run (refused at connect) cannot raise it.
+COMPANION_FLAGS: dict[str, str] = {
+    "unleveled": SOURCE_UNLEVELED,
+    "reference_unlocked": REFERENCE_UNLOCKED,
+    "current_limited": SUPPLY_LIMITED,
+}
+
+
+def _unchecked_notes(events: tuple[EventRecord, ...]) -> list[str]:
+    """A note per instrument whose status companions were left out for the run (the
+    connect's ``status`` warnings): which flags its figures could not get."""
+    notes = []
+    for event in events:
+        details = event.details if isinstance(event.details, Mapping) else {}
+        left = [COMPANION_FLAGS[n] for n in details.get("left_out", ())
+                if n in COMPANION_FLAGS]
+        if event.kind == "status" and left:
+            notes.append(f"role {details.get('role')!r} could not be asked "
+                         f"{details.get('query')} after each point (refused at connect): its "
+                         f"figures were not checked for {' or '.join(left)}")
+    return notes
 
 
 def _flag_supply_current(figures: list[Figure], captures: pd.DataFrame,

@@ -12,6 +12,7 @@ import contextlib
 import functools
 from collections.abc import Callable, Iterator, Mapping
 from dataclasses import dataclass, field
+from typing import Any
 
 from sweeprig.clock import Clock, VirtualClock, WallClock
 from sweeprig.engine.locks import BenchLock
@@ -54,9 +55,10 @@ class BenchDrivers:
     startup_errors: dict[str, list[str]] = field(default_factory=dict)
     """Errors found in each instrument's queue when the bench was opened (role → texts)."""
     timebase_notes: list[str] = field(default_factory=list)
-    #: Status companions an instrument refused at connect (left out for the run).
-    companion_notes: list[str] = field(default_factory=list)
     """What the bench's ``[timebase]`` could not set or verify (sweeprig.engine.timebase)."""
+    companion_notes: list[tuple[str, dict[str, Any]]] = field(default_factory=list)
+    """Status companions an instrument refused at connect (left out for the run): a note and
+    its details each (:meth:`~sweeprig.instruments.driver.Driver.check_companions`)."""
 
     def items(self) -> Iterator[tuple[str, Driver]]:
         """(role, driver) for every present role."""

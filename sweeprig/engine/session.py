@@ -550,8 +550,8 @@ def _execute(
                                 f"role {role!r} queue held at start: " + "; ".join(texts))
             for note in drivers.timebase_notes:
                 store.log_event(run_id, "warning", "timebase", note)
-            for note in drivers.companion_notes:
-                store.log_event(run_id, "warning", "status", note)
+            for note, details in drivers.companion_notes:
+                store.log_event(run_id, "warning", "status", note, details)
             store.record_instruments(run_id, [
                 InstrumentRecord(role, d.resource, d.profile.name, d.idn or "")
                 for role, d in drivers.items()

@@ -868,12 +868,13 @@ class Driver:
         return [name for name in self.status_companions if self.plain_query(name)
                 and name not in self._dropped_companions]
 
-    def check_companions(self) -> list[str]:
+    def check_companions(self) -> list[tuple[str, dict[str, Any]]]:
         """Ask each companion query once, at connect: one the instrument refuses (an error
         in its queue, no reply, or a reply its operation cannot parse) is left out for the
         run, so the status read after every point never fails on a flag this instrument
-        lacks. Returns a note for each one left out."""
-        notes: list[str] = []
+        lacks. Returns, for each query left out, a note and its details (``role``,
+        ``query``, ``left_out``: the companions' operation names)."""
+        notes: list[tuple[str, dict[str, Any]]] = []
         for query in self._companion_queries(joined=False):
             names = [n for n in self._companions() if self.profile.op(n).queries[0] == query]
             problem = ""
@@ -888,11 +889,12 @@ class Driver:
                 problem = "; ".join(str(e) for e in found)
             if problem:
                 self._dropped_companions.update(names)
-                notes.append(f"role {self.role!r}: {query} failed at connect ({problem}), so "
-                             f"{' and '.join(names)} {'is' if len(names) == 1 else 'are'} not "
-                             "read after each point: those flags cannot be raised for it this "
-                             f"run; give it a profile without ops.{names[0]} (check it with "
-                             "`sweeprig probe`) to silence this")
+                notes.append((
+                    f"role {self.role!r}: {query} failed at connect ({problem}), so "
+                    f"{' and '.join(names)} {'is' if len(names) == 1 else 'are'} not read "
+                    "after each point: those flags cannot be raised for it this run; give it "
+                    f"a profile without ops.{names[0]} (check it with `sweeprig probe`) to "
+                    "silence this", {"role": self.role, "query": query, "left_out": names}))
         return notes
 
     def plain_query(self, name: str) -> bool:

@@ -64,3 +64,15 @@ def test_the_recorded_name_is_the_figure_flag():
     figure flag: two layers that do not import each other, pinned together here."""
     assert runner.ANALYZER_UNCALIBRATED == figures.ANALYZER_UNCALIBRATED
     assert runner.REFERENCE_UNLOCKED == figures.REFERENCE_UNLOCKED
+
+
+def test_each_companion_names_the_flag_it_raises():
+    """The reduction's note on a companion left out names the figure flag it would have
+    raised: each companion the drivers ask is in the table, and each flag is a figure flag."""
+    from sweeprig.analysis.reduce import COMPANION_FLAGS
+    from sweeprig.instruments.source import SourceDriver
+    from sweeprig.instruments.supply import SupplyDriver
+
+    asked = {*SourceDriver.status_companions, *SupplyDriver.status_companions}
+    assert set(COMPANION_FLAGS) == asked
+    assert set(COMPANION_FLAGS.values()) <= set(figures.FLAGS)

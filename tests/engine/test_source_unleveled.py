@@ -191,3 +191,8 @@ def test_a_source_that_refuses_its_level_query_at_connect_is_run_without_it(tmp_
         and "unleveled and reference_unlocked are not read" in told[0].message, \
         [e.message for e in events]
     assert sum("STAT:QUES:COND?" in r.sent for r in log) == 1  # the check at connect only
+    # and the reduction says which flags the role's figures could not get
+    with SqliteRunStore(store, create=False) as db:
+        run = reduce_run(db, outcome.run_id)
+    assert any("role 'lo'" in note and "source_unleveled or reference_unlocked" in note
+               for note in run.notes), run.notes
