@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass
 
 import numpy as np
@@ -253,7 +254,7 @@ class AnalyzerDriver(Driver):
         asks.append(("overload", None))
         # its reference's lock and its uncalibrated flag at the reading (in the same message
         # where joined; one query where they read the overload flag's register)
-        lock, uncal = self.plain_query("reference_unlocked"), self.plain_query("uncalibrated")
+        lock, uncal = self._reading_flags
         asks += [(op, None) for op, ask in (("reference_unlocked", lock),
                                             ("uncalibrated", uncal)) if ask]
         replies = self.ask_joined(*asks, status=True, timeout_s=timeout_s)
@@ -267,6 +268,11 @@ class AnalyzerDriver(Driver):
     reference_unlocked_seen: bool | None = None
     uncalibrated_seen: bool | None = None
 
+    @functools.cached_property
+    def _reading_flags(self) -> tuple[bool, bool]:
+        """Whether the profile can ask (its reference lock, its uncalibrated flag) with a
+        marker reading (plain queries); worked out once, asked at every reading."""
+        return self.plain_query("reference_unlocked"), self.plain_query("uncalibrated")
 
     def peak(self) -> tuple[float, float]:
         """Marker 1 to the highest point of the trace → (frequency Hz, level dBm)."""

@@ -157,6 +157,9 @@ class Driver:
         #: Companions left out for the run: the instrument did not answer them at connect
         #: (:meth:`check_companions`).
         self._dropped_companions: set[str] = set()
+        #: (companion names, their distinct query texts), worked out once: they are asked
+        #: at every point (None: not yet, or a companion was left out since).
+        self._companion_plan: tuple[list[str], list[str]] | None = None
 
     before_message: Callable[[], None] | None = None
     """Called just before each message leaves for the instrument (after it is built), when
@@ -865,8 +868,17 @@ class Driver:
     def _companions(self) -> list[str]:
         """The :attr:`status_companions` this instrument's profile has as plain queries (and
         it answered at connect)."""
-        return [name for name in self.status_companions if self.plain_query(name)
-                and name not in self._dropped_companions]
+        return self._plan_companions()[0]
+
+    def _plan_companions(self) -> tuple[list[str], list[str]]:
+        """(:meth:`_companions`, their distinct query texts: two flags of one register, such
+        as a source's level state and its reference lock, are one query)."""
+        if self._companion_plan is None:
+            names = [name for name in self.status_companions if self.plain_query(name)
+                     and name not in self._dropped_companions]
+            queries = list(dict.fromkeys(self.profile.op(n).queries[0] for n in names))
+            self._companion_plan = (names, queries)
+        return self._companion_plan
 
     def check_companions(self) -> list[tuple[str, dict[str, Any]]]:
         """Ask each companion query once, at connect: one the instrument refuses (an error
@@ -875,7 +887,7 @@ class Driver:
         lacks. Returns, for each query left out, a note and its details (``role``,
         ``query``, ``left_out``: the companions' operation names)."""
         notes: list[tuple[str, dict[str, Any]]] = []
-        for query in self._companion_queries(joined=False):
+        for query in list(self._companion_queries(joined=False)):
             names = [n for n in self._companions() if self.profile.op(n).queries[0] == query]
             problem = ""
             try:
@@ -889,6 +901,7 @@ class Driver:
                 problem = "; ".join(str(e) for e in found)
             if problem:
                 self._dropped_companions.update(names)
+                self._companion_plan = None
                 notes.append((
                     f"role {self.role!r}: {query} failed at connect ({problem}), so "
                     f"{' and '.join(names)} {'is' if len(names) == 1 else 'are'} not read "
@@ -907,13 +920,11 @@ class Driver:
                 and operation.spec.value == "none")
 
     def _companion_queries(self, *, joined: bool) -> list[str]:
-        """The distinct query texts of the companions (two flags of one register, such as a
-        source's level state and its reference lock, are one query), those that ride in a
-        status read's own message when ``joined`` (a compound profile: else none)."""
+        """The distinct query texts of the companions, those that ride in a status read's
+        own message when ``joined`` (a compound profile: else none)."""
         if joined and not self.compound:
             return []
-        return list(dict.fromkeys(self.profile.op(name).queries[0]
-                                  for name in self._companions()))
+        return self._plan_companions()[1]
 
     def post_status(self) -> Pending | None:
         """Send the point's ``*ESR?`` when :meth:`point_status` would have to read it (the
@@ -1023,9 +1034,7 @@ class Driver:
         out: list[Any] = []
         last: tuple[str, str] | None = None  # (query, its answer) since the last command
         for (op, value), operation in zip(asks, ops, strict=True):
-            plain = (operation.spec.value == "none" and not operation.commands
-                     and len(operation.queries) == 1 and operation.reply != "real32")
-            if not plain:
+            if not self.plain_query(op) or operation.reply == "real32":
                 out.append(self.ask(op, value))
                 last = None
                 continue
