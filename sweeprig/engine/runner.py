@@ -202,8 +202,7 @@ class Runner:
         self.log = log
         self.policy = policy or RecoveryPolicy()
         self.skipped = 0
-        self._supply_limited_told = False  # its event is written once a run
-        self._marks_told: set[str] = set()  # so is each of _MARK_EVENTS'
+        self._told: set[str] = set()  # the warnings said once a run (:meth:`_warn_once`)
         self._point_unlocked: set[str] = set()  # roles whose readings found it unlocked
         self.recoveries = 0
         self._temperature_c: float | None = None
@@ -293,6 +292,18 @@ class Runner:
             self._unverified, self._status_read = [], set()
         self._store_held()
 
+    def _read_held_status_now(self, drivers: list[Driver]) -> None:
+        """Read the held point's status of ``drivers`` now, before their settings move (read
+        after, it would tell of the new ones), check it and mark the point from it."""
+        if not drivers:
+            return
+        read = [(d, d.post_status()) for d in drivers]
+        failure = _finish_all(read, Driver.finish_status)
+        if failure is not None:
+            raise failure
+        self._status_read.update(id(d) for d in drivers)
+        self._mark_point_state([d for d, p in read if p is not None])
+
     def _mark_point_state(self, read: list[Driver]) -> None:
         """Mark the held point from the status reads just made after it (``read``: the
         instruments whose read came back, with their :attr:`~Driver.status_seen`):
@@ -321,22 +332,23 @@ class Runner:
         if not roles:
             return
         record.extra[key] = sorted({*(record.extra.get(key) or []), *roles})
-        if key in self._marks_told:
-            return
-        self._marks_told.add(key)
         kind, text = _MARK_EVENTS[key]
-        self._event("warning", kind, f"point {record.index}: "
-                    f"{' and '.join(repr(r) for r in roles)} {text}", record.index)
+        self._warn_once(key, kind, f"point {record.index}: "
+                        f"{' and '.join(repr(r) for r in roles)} {text}", record.index)
 
     def _tell_supply_limited(self, point_index: int, how: str, detail: str = "") -> None:
         """The run's one event saying the part runs below its stated supply."""
-        if self._supply_limited_told:
-            return
-        self._supply_limited_told = True
-        self._event("warning", "supply", f"point {point_index}: the supply is {how}{detail}: "
-                    "the part runs below its stated supply; check the bench's "
-                    "supply_max_current against the part's draw (its figures there are "
-                    "flagged supply_limited)", point_index)
+        self._warn_once(SUPPLY_LIMITED, "supply",
+                        f"point {point_index}: the supply is {how}{detail}: the part runs "
+                        "below its stated supply; check the bench's supply_max_current "
+                        "against the part's draw (its figures there are flagged "
+                        "supply_limited)", point_index)
+
+    def _warn_once(self, key: str, kind: str, message: str, point_index: int) -> None:
+        """A warning event of ``kind``, written the first time ``key`` is told this run."""
+        if key not in self._told:
+            self._told.add(key)
+            self._event("warning", kind, message, point_index)
 
     def _store_held(self) -> None:
         """Commit the held point (its status confirmed: :meth:`_confirm_held`), then tell
@@ -736,12 +748,7 @@ class Runner:
                 and id(dc) not in self._status_read):
             # the held point's status (and current-limit state) is read before the supply
             # moves: after it, it would tell of the new setting (a supply sweep)
-            read = [(dc, dc.post_status())]
-            failure = _finish_all(read, Driver.finish_status)
-            if failure is not None:
-                raise failure
-            self._status_read.add(id(dc))
-            self._mark_point_state([dc])
+            self._read_held_status_now([dc])
         with dc.joined():
             sent = dc.set_voltage(point.supply_v)
             if not self._supply_on:
@@ -902,15 +909,10 @@ class Runner:
         rf2 = self.d.rf2
         going_off = rf2 if (point.rf2_freq_hz is None and rf2 is not None
                             and rf2.state().get("output") is not False) else None
-        first = [(d, d.post_status()) for _r, d in self._unverified
-                 if isinstance(d, SourceDriver) and id(d) not in self._status_read
-                 and d.asks_companions and (not d.joins_status or d is going_off)]
-        if first:
-            failure = _finish_all(first, Driver.finish_status)
-            if failure is not None:
-                raise failure
-            self._status_read.update(id(d) for d, _p in first)
-            self._mark_point_state([d for d, p in first if p is not None])
+        self._read_held_status_now([
+            d for _r, d in self._unverified
+            if isinstance(d, SourceDriver) and id(d) not in self._status_read
+            and d.asks_companions and (not d.joins_status or d is going_off)])
         # What goes off goes first, so the DUT's RF port never takes both tones at the new
         # level of one and the old level of the other.
         if point.rf2_freq_hz is None and self.d.rf2 is not None and self.d.rf2.set_output(False):
