@@ -51,8 +51,8 @@ from sweeprig.sim.analyzer_display import (
 )
 from sweeprig.sim.bench import SimBenchDescription, prepare_part, resolve_description
 from sweeprig.sim.instruments.source import (
-    linearity_error_db,
     no_level_error_db,
+    nominal_power_dbm,
     scaled_level_error,
 )
 from sweeprig.sim.mixer.part import MixerPart
@@ -371,8 +371,7 @@ def _static_world(desc: SimBenchDescription, drive: Drive, port: Port) -> SimWor
     def source(freq: float | None, power: float, role: str) -> _Source | None:
         if freq is None:
             return None
-        delivered = (float(power) + float(error(float(freq)))
-                     + linearity_error_db(float(power), linearity))
+        delivered = nominal_power_dbm(float(power), float(freq), error, linearity)
         leveled_max = getattr(desc.sources.leveled_max, role)
         if leveled_max is not None:  # as the simulated source: no more than it can level
             delivered = min(delivered, float(leveled_max))

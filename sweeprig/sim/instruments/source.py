@@ -64,6 +64,15 @@ def linearity_error_db(power_dbm: float, peak_db: float) -> float:
     return peak_db * math.tanh((-10.0 - power_dbm) / 15.0) if peak_db else 0.0
 
 
+def nominal_power_dbm(power_dbm: float, freq_hz: float,
+                      level_error_db: Callable[[float], float], linearity_peak_db: float
+                      ) -> float:
+    """The level a source set to ``power_dbm`` at ``freq_hz`` would put out leveled, dBm:
+    the setting plus its level error versus frequency and versus level."""
+    return (power_dbm + float(level_error_db(freq_hz))
+            + linearity_error_db(power_dbm, linearity_peak_db))
+
+
 def no_level_error_db(freq_hz: float) -> float:
     """A perfect source: 0 dB level error at every frequency."""
     return 0.0
@@ -152,9 +161,8 @@ class SignalSource(ScpiInstrument):
         return min(self._nominal_power_dbm(), self.leveled_max_dbm)
 
     def _nominal_power_dbm(self) -> float:
-        freq_hz, power = self.freq_hz, self.power_dbm
-        return (power + float(self.level_error_db(freq_hz))
-                + linearity_error_db(power, self.level_linearity_db))
+        return nominal_power_dbm(self.power_dbm, self.freq_hz, self.level_error_db,
+                                 self.level_linearity_db)
 
     @property
     def output_on(self) -> bool:
