@@ -7,34 +7,19 @@ are flagged ``analyzer_uncalibrated`` (suspect)."""
 
 from __future__ import annotations
 
-import json
-
 import pytest
 
 from sweeprig.analysis import figures
-from sweeprig.analysis.reduce import reduce_run
 from sweeprig.engine import runner
-from sweeprig.engine.session import run_sequence
-from sweeprig.store.sqlite import SqliteRunStore
+from tests.engine.sim_run import run_on_sim, small_sequence
 
-SEQUENCE = """format = 1
-[about]
-title = "gain, the analyzer's reference level at {ref}"
-[part]
-id = "KX-2417"
-expected_gain = "12 dB"
-[mixing]
-if_frequency = "100 MHz"
-[conditions]
-supply = "3.3 V"
-settle = "20 ms"
-[[study]]
+SEQUENCE = small_sequence("""[[study]]
 name = "gain"
 rf_frequency = ["2.0 GHz", "2.2 GHz"]
 rf_power = "-25 dBm"
 lo_power = "0 dBm"
 read = [{{ kind = "wanted", analyzer = {{ reference_level = "{ref}" }} }}]
-"""
+""", title="gain, the analyzer's reference level set by hand")
 
 
 @pytest.mark.parametrize(("ref", "flagged"), [("-30 dBm", True), ("5 dBm", False)])
@@ -42,14 +27,8 @@ def test_a_reading_the_analyzer_calls_uncalibrated_flags_its_figures(tmp_path, r
     """The product about −13.5 dBm at the analyzer: a reference level of −30 dBm puts the
     trace above it (the analyzer flags the reading, and its IF clips 10 dB above the
     reference level: the gain reads 6 dB low), +5 dBm does not."""
-    sequence = tmp_path / "gain.toml"
-    sequence.write_text(SEQUENCE.format(ref=ref), encoding="utf-8")
-    store = tmp_path / "runs.sqlite"
-    outcome = run_sequence(sequence, sim=True, store_path=store)
-    assert outcome.status == "complete", outcome.reason
-    with SqliteRunStore(store, create=False) as db:
-        run = reduce_run(db, outcome.run_id)
-        extras = [json.loads(t) for t in db.readings_frame(outcome.run_id)["extra_json"]]
+    done = run_on_sim(tmp_path, SEQUENCE.format(ref=ref))
+    run, extras = done.run, done.reading_extras
     assert all(("status_flags" in e) is flagged for e in extras), extras
     gains = run.figures_named("conversion_gain")
     assert len(gains) == 2

@@ -11,13 +11,10 @@ On the simulated bench an ``unlock`` fault takes a role's reference input away."
 
 from __future__ import annotations
 
-import json
 from pathlib import Path
 
-from sweeprig.analysis.reduce import reduce_run
-from sweeprig.engine.session import run_sequence
-from sweeprig.store.sqlite import SqliteRunStore
 from tests.engine.noise_support import SIM_BENCH
+from tests.engine.sim_run import run_on_sim, small_sequence
 
 #: The built-in bench with the sources and the analyzer locked to the lab's reference.
 TIMEBASE = """
@@ -47,48 +44,27 @@ kind = "unlock"
 {trigger}
 """
 
-SEQUENCE = """format = 1
-[about]
-title = "gain across the band"
-[part]
-id = "KX-2417"
-expected_gain = "12 dB"
-[mixing]
-if_frequency = "100 MHz"
-[conditions]
-supply = "3.3 V"
-settle = "20 ms"
-[[study]]
+SEQUENCE = small_sequence("""[[study]]
 name = "gain"
 rf_frequency = ["2.0 GHz", "2.2 GHz", "2.4 GHz", "2.6 GHz"]
 rf_power = "-35 dBm"
 lo_power = "0 dBm"
 read = ["wanted"]
-"""
+""", title="gain across the band")
 
 
 def _run(tmp_path: Path, fault: str = ""):
     """The gain sweep on a bench locked to one reference, with ``fault`` planted:
     (the conversion gains' reference_unlocked flags in RF order, the run's events, each
     point's reference_unlocked mark in point order, the reduction's notes)."""
-    sequence = tmp_path / "gain.toml"
-    sequence.write_text(SEQUENCE, encoding="utf-8")
-    bench = tmp_path / "bench.toml"
-    bench.write_text(SIM_BENCH.read_text(encoding="utf-8") + TIMEBASE, encoding="utf-8")
-    description = tmp_path / "sim-bench.toml"
-    description.write_text(DESCRIPTION.format(fault=fault), encoding="utf-8")
-    store = tmp_path / "runs.sqlite"
-    outcome = run_sequence(sequence, bench, sim=True, sim_description=description,
-                           store_path=store)
-    assert outcome.status == "complete", outcome.reason
-    with SqliteRunStore(store, create=False) as db:
-        run = reduce_run(db, outcome.run_id)
-        points = db.points_frame(outcome.run_id)
-        marks = [json.loads(text).get("reference_unlocked") for text in points["extra_json"]]
-        events = db.events(outcome.run_id)
-    gains = sorted(run.figures_named("conversion_gain"), key=lambda f: f.conditions["rf_freq_hz"])
+    done = run_on_sim(tmp_path, SEQUENCE,
+                      bench=SIM_BENCH.read_text(encoding="utf-8") + TIMEBASE,
+                      description=DESCRIPTION.format(fault=fault))
+    marks = [extra.get("reference_unlocked") for extra in done.point_extras]
+    gains = sorted(done.run.figures_named("conversion_gain"),
+                   key=lambda f: f.conditions["rf_freq_hz"])
     assert len(gains) == 4
-    return ["reference_unlocked" in f.flags for f in gains], events, marks, run.notes
+    return ["reference_unlocked" in f.flags for f in gains], done.events, marks, done.run.notes
 
 
 def test_a_source_losing_its_reference_flags_the_points_from_then_on(tmp_path):

@@ -10,16 +10,13 @@ short of headroom: an invented fault of the fictional source)."""
 
 from __future__ import annotations
 
-import json
 from pathlib import Path
+from typing import Any
 
 import pytest
 
-from sweeprig.analysis.reduce import reduce_run
-from sweeprig.engine.session import run_sequence
 from sweeprig.instruments.source import UNLEVELED_SOURCES
-from sweeprig.store.sqlite import SqliteRunStore
-from tests.engine.noise_support import SIM_BENCH
+from tests.engine.sim_run import SimRun, run_on_sim, small_sequence
 
 #: The sim-bench description: a clean bench whose LO source levels no more than ``{max}``.
 DESCRIPTION = """part = "kx-2417"
@@ -35,18 +32,7 @@ lo = "{max}"
 """
 
 #: Gain at two LO drives: 3 then 6 dBm at the part (5 and 8 dBm set, through the 2 dB).
-SWEEP = """format = 1
-[about]
-title = "gain at two LO drives"
-[part]
-id = "KX-2417"
-expected_gain = "12 dB"
-[mixing]
-if_frequency = "100 MHz"
-[conditions]
-supply = "3.3 V"
-settle = "20 ms"
-[[study]]
+SWEEP = small_sequence("""[[study]]
 name = "gain-3dBm"
 rf_frequency = ["2.0 GHz", "2.2 GHz"]
 rf_power = "-35 dBm"
@@ -58,26 +44,15 @@ rf_frequency = ["2.0 GHz", "2.2 GHz"]
 rf_power = "-35 dBm"
 lo_power = "6 dBm"
 read = ["wanted"]
-"""
+""", title="gain at two LO drives")
 
 
-def _run(tmp_path: Path, leveled_max: str, family: str = "tarnwick"):
+def _run(tmp_path: Path, leveled_max: str, family: str = "tarnwick", *, also: str = "",
+         **options: Any) -> SimRun:
     """The sweep on the simulated bench with the LO source (of ``family``) leveled up to
-    ``leveled_max``: (the reduced run, its events, each point's record extras)."""
-    sequence = tmp_path / "sweep.toml"
-    sequence.write_text(SWEEP, encoding="utf-8")
-    description = tmp_path / "sim-bench.toml"
-    description.write_text(DESCRIPTION.format(max=leveled_max, family=family),
-                           encoding="utf-8")
-    store = tmp_path / "runs.sqlite"
-    outcome = run_sequence(sequence, SIM_BENCH, sim=True, sim_description=description,
-                           store_path=store)
-    assert outcome.status == "complete", outcome.reason
-    with SqliteRunStore(store, create=False) as db:
-        points = db.points_frame(outcome.run_id)
-        extras = {int(i): json.loads(text) for i, text in
-                  zip(points["point_index"], points["extra_json"], strict=True)}
-        return reduce_run(db, outcome.run_id), db.events(outcome.run_id), extras
+    ``leveled_max``, ``also`` added to the sim-bench description."""
+    return run_on_sim(tmp_path, SWEEP, **options,
+                      description=DESCRIPTION.format(max=leveled_max, family=family) + also)
 
 
 @pytest.mark.parametrize("family", ["tarnwick", "farrowmere"])
@@ -88,12 +63,13 @@ def test_only_the_points_the_source_could_not_level_are_flagged(tmp_path, family
     last 3 dBm point is read with the first 6 dBm point's settings, before they run). A
     source family whose profile takes no compound messages is asked apart, after the point
     as well."""
-    run, events, extras = _run(tmp_path, "6 dBm", family)
+    done = _run(tmp_path, "6 dBm", family)
+    run, events = done.run, done.events
     gains = sorted(run.figures_named("conversion_gain"),
                    key=lambda f: (f.conditions["lo_power_dbm"], f.conditions["rf_freq_hz"]))
     assert [f.conditions["lo_power_dbm"] for f in gains] == [3.0, 3.0, 6.0, 6.0]
     assert ["source_unleveled" in f.flags for f in gains] == [False, False, True, True]
-    assert [e.get(UNLEVELED_SOURCES) for _i, e in sorted(extras.items())] == \
+    assert [e.get(UNLEVELED_SOURCES) for e in done.point_extras] == \
         [None, None, ["lo"], ["lo"]]
     # the part got 2 dB less LO drive at the 6 dBm points than the run states
     told = [e for e in events if e.kind == "source"]
@@ -106,24 +82,13 @@ def test_only_the_points_the_source_could_not_level_are_flagged(tmp_path, family
 
 
 def test_a_source_that_levels_every_setting_flags_nothing(tmp_path):
-    run, events, extras = _run(tmp_path, "20 dBm")
-    assert not any("source_unleveled" in f.flags for f in run.figures)
-    assert not [e for e in events if e.kind == "source"]
-    assert not any(UNLEVELED_SOURCES in e for e in extras.values())
+    done = _run(tmp_path, "20 dBm")
+    assert not any("source_unleveled" in f.flags for f in done.run.figures)
+    assert not [e for e in done.events if e.kind == "source"]
+    assert not any(UNLEVELED_SOURCES in e for e in done.point_extras)
 
 
-TWO_THEN_ONE = """format = 1
-[about]
-title = "two tones, then one"
-[part]
-id = "KX-2417"
-expected_gain = "12 dB"
-[mixing]
-if_frequency = "100 MHz"
-[conditions]
-supply = "3.3 V"
-settle = "20 ms"
-[[study]]
+TWO_THEN_ONE = small_sequence("""[[study]]
 name = "two-tone"
 rf_frequency = "2.2 GHz"
 tone_spacing = "1 MHz"
@@ -136,41 +101,22 @@ rf_frequency = ["2.0 GHz", "2.2 GHz"]
 rf_power = "-35 dBm"
 lo_power = "0 dBm"
 read = ["wanted"]
-"""
+""", title="two tones, then one")
 
 
 def test_the_second_tone_is_read_before_it_goes_off(tmp_path):
     """The second tone's source, short of its level, goes off when the single-tone study
     begins: its state after the last two-tone point is read before it is switched off (read
     after, an output off is never unleveled, and that point passed unflagged)."""
-    sequence = tmp_path / "two-then-one.toml"
-    sequence.write_text(TWO_THEN_ONE, encoding="utf-8")
-    description = tmp_path / "sim-bench.toml"
-    description.write_text(DESCRIPTION.format(max="20 dBm", family="tarnwick")
-                           + 'rf2 = "-40 dBm"\n', encoding="utf-8")
-    store = tmp_path / "runs.sqlite"
-    outcome = run_sequence(sequence, SIM_BENCH, sim=True, sim_description=description,
-                           store_path=store)
-    assert outcome.status == "complete", outcome.reason
-    with SqliteRunStore(store, create=False) as db:
-        points = db.points_frame(outcome.run_id)
-        marks = {(study, round(power)): json.loads(text).get(UNLEVELED_SOURCES)
-                 for study, power, text in zip(points["study"], points["rf_power_dbm"],
-                                               points["extra_json"], strict=True)}
+    done = run_on_sim(tmp_path, TWO_THEN_ONE,
+                      description=DESCRIPTION.format(max="20 dBm", family="tarnwick")
+                      + 'rf2 = "-40 dBm"\n')
+    points = done.points
+    marks = {(study, round(power)): extra.get(UNLEVELED_SOURCES)
+             for study, power, extra in zip(points["study"], points["rf_power_dbm"],
+                                            done.point_extras, strict=True)}
     assert marks == {("two-tone", -30): ["rf2"], ("two-tone", -28): ["rf2"],
                      ("gain", -35): None}, marks
-
-
-def _refusing(tmp_path: Path, kind: str):
-    """The two-drive sequence on a bench whose LO source does ``kind`` (a planted fault) to
-    its first STAT:QUES:COND?, the connect's check of its status companions."""
-    sequence = tmp_path / "sweep.toml"
-    sequence.write_text(SWEEP, encoding="utf-8")
-    description = tmp_path / "sim-bench.toml"
-    description.write_text(DESCRIPTION.format(max="6 dBm", family="tarnwick")
-                           + f'[[faults]]\nrole = "lo"\nkind = "{kind}"\n'
-                           'match = "STAT:QUES:COND?"\nmax_count = 1\n', encoding="utf-8")
-    return sequence, description, tmp_path / "runs.sqlite"
 
 
 @pytest.mark.parametrize("kind", ["error", "swallow"])
@@ -179,20 +125,16 @@ def test_a_source_that_refuses_its_level_query_at_connect_is_run_without_it(tmp_
     without it, on a generic profile): the query is left out for the run with a warning
     that says which flags it cannot raise, and every point's status read goes without it,
     rather than failing the run at its first point."""
-    sequence, description, store = _refusing(tmp_path, kind)
-    outcome = run_sequence(sequence, SIM_BENCH, sim=True, sim_description=description,
-                           store_path=store, bus_log=True)
-    assert outcome.status == "complete", outcome.reason
-    with SqliteRunStore(store, create=False) as db:
-        events = db.events(outcome.run_id)
-        log = db.bus_log(outcome.run_id, role="lo")
+    # the fault hits the LO source's first STAT:QUES:COND?: the connect's check of it
+    done = _run(tmp_path, "6 dBm", also=f'[[faults]]\nrole = "lo"\nkind = "{kind}"\n'
+                'match = "STAT:QUES:COND?"\nmax_count = 1\n', bus_log=True)
+    events = done.events
     told = [e for e in events if e.kind == "status"]
     assert len(told) == 1 and "STAT:QUES:COND?" in told[0].message \
         and "unleveled and reference_unlocked are not read" in told[0].message, \
         [e.message for e in events]
+    log = done.bus_log("lo")
     assert sum("STAT:QUES:COND?" in r.sent for r in log) == 1  # the check at connect only
     # and the reduction says which flags the role's figures could not get
-    with SqliteRunStore(store, create=False) as db:
-        run = reduce_run(db, outcome.run_id)
     assert any("role 'lo'" in note and "source_unleveled or reference_unlocked" in note
-               for note in run.notes), run.notes
+               for note in done.run.notes), done.run.notes

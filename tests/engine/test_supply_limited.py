@@ -12,10 +12,9 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from sweeprig.analysis.reduce import reduce_run
-from sweeprig.engine.session import run_sequence, shipped_sequences_dir
-from sweeprig.store.sqlite import SqliteRunStore
+from sweeprig.engine.session import shipped_sequences_dir
 from tests.engine.noise_support import SIM_BENCH, noise_sequence
+from tests.engine.sim_run import run_on_sim, small_sequence
 
 QUICK = shipped_sequences_dir() / "demo" / "quick.toml"
 
@@ -23,19 +22,12 @@ QUICK = shipped_sequences_dir() / "demo" / "quick.toml"
 def _run(tmp_path: Path, limit: str, sequence: Path | str = QUICK):
     """``sequence`` (a path, or a sequence's text) on the simulated bench with the built-in
     bench file's supply current limit set to ``limit``: (the reduced run, its events)."""
-    if isinstance(sequence, str):
-        text, sequence = sequence, tmp_path / "sequence.toml"
-        sequence.write_text(text, encoding="utf-8")
-    bench = tmp_path / f"bench-{limit.replace(' ', '')}.toml"
     text = SIM_BENCH.read_text(encoding="utf-8")
     assert 'supply_max_current = "200 mA"' in text
-    bench.write_text(text.replace('supply_max_current = "200 mA"',
-                                  f'supply_max_current = "{limit}"'), encoding="utf-8")
-    store = tmp_path / f"{limit.replace(' ', '')}.sqlite"
-    outcome = run_sequence(sequence, bench, sim=True, store_path=store)
-    assert outcome.status == "complete", outcome.reason
-    with SqliteRunStore(store, create=False) as db:
-        return reduce_run(db, outcome.run_id), db.events(outcome.run_id)
+    done = run_on_sim(tmp_path, sequence, name=limit.replace(" ", ""),
+                      bench=text.replace('supply_max_current = "200 mA"',
+                                         f'supply_max_current = "{limit}"'))
+    return done.run, done.events
 
 
 def test_a_supply_in_current_limit_flags_the_figures_of_its_points(tmp_path):
@@ -65,24 +57,13 @@ def test_a_supply_below_its_limit_flags_nothing(tmp_path):
     assert judged and all(j.verdict == "pass" for j in judged)
 
 
-SWEEP = """format = 1
-[about]
-title = "a supply sweep"
-[part]
-id = "KX-2417"
-expected_gain = "12 dB"
-[mixing]
-if_frequency = "100 MHz"
-[conditions]
-supply = ["3.3 V", "2.9 V"]
-settle = "20 ms"
-[[study]]
+SWEEP = small_sequence("""[[study]]
 name = "gain"
 rf_frequency = ["2.0 GHz", "2.2 GHz", "2.4 GHz"]
 rf_power = "-35 dBm"
 lo_power = "0 dBm"
 read = ["wanted"]
-"""
+""", title="a supply sweep", supply='["3.3 V", "2.9 V"]')
 
 
 def test_in_a_supply_sweep_every_point_of_the_limited_setting_is_flagged(tmp_path):
