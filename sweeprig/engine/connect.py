@@ -35,6 +35,11 @@ from sweeprig.transport.base import Transaction, Transport
 from sweeprig.transport.visa import VisaTransport
 
 SOURCE_ROLES = ("rf", "rf2", "lo")
+#: The roles whose status companions a run reads after every point (the runner marks a
+#: point from them: the part's supply, the sources); another role of the same kind (the
+#: noise source's supply) is not asked them: on a profile without compound messages each
+#: would be an exchange a point for nothing.
+COMPANION_ROLES = ("dc", *SOURCE_ROLES)
 
 
 @dataclass
@@ -141,6 +146,8 @@ def open_bench(
             )
             drivers.transports[role] = transport
             driver = make_driver(profile, role, transport, clock=clock)
+            if role not in COMPANION_ROLES:
+                driver.status_companions = ()
             setattr(drivers, role, driver)
             if role == "simctl":
                 clock = bench_clock(driver, clock)  # type: ignore[arg-type]

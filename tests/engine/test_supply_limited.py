@@ -84,3 +84,12 @@ def test_the_noise_figures_of_a_limited_point_are_flagged_too(tmp_path):
     run, _ = _run(tmp_path, "29 mA", noise_sequence('["1.8 GHz", "2.6 GHz"]'))
     noise = run.figures_named("noise_figure")
     assert len(noise) == 2 and all("supply_limited" in f.flags for f in noise)
+
+
+def test_the_noise_sources_supply_is_not_asked_a_limit_nothing_reads(tmp_path):
+    """Only the part's supply marks a point: the noise source's supply (a supply too) is not
+    asked its current-limit state after every point (on a profile without compound messages
+    each would be an exchange a point for nothing)."""
+    done = run_on_sim(tmp_path, noise_sequence('["1.8 GHz", "2.6 GHz"]'), bus_log=True)
+    assert not [r.sent for r in done.bus_log("nsdc") if "QUES" in r.sent]
+    assert any("QUES" in r.sent for r in done.bus_log("dc"))
