@@ -24,7 +24,7 @@ from collections.abc import Mapping
 import pandas as pd
 
 from sweeprig.analysis.budget_parts import whole_budget
-from sweeprig.analysis.figures import Figure
+from sweeprig.analysis.figures import ANALYZER_UNCALIBRATED, OVERLOAD, Figure
 from sweeprig.analysis.noise_figure import HotCold, image_ratio_doubtful, reduce_noise_figure
 from sweeprig.analysis.uncertainty import InstrumentSpecs
 
@@ -36,6 +36,20 @@ FLAG_OF_CAUSE: Mapping[str, str] = {
     "interferer": "interferer",
     "image_ratio_doubtful": "image_ratio_doubtful",
 }
+
+
+def analyzer_flags(overload: bool, noise: Mapping[str, object]) -> tuple[str, ...]:
+    """The figure flags of what the analyzer said of a noise reading's sweeps (``noise``:
+    the reading's stored ``noise`` entry; ``overload``: the reading's own column): an
+    overloaded input or an uncalibrated sweep, the point's or the system calibration's
+    that corrects it (either gives a wrong noise figure). A store written before these
+    were recorded reads as not flagged by the analyzer."""
+    flags: tuple[str, ...] = ()
+    if overload or noise.get("cal_overload"):
+        flags += (OVERLOAD,)
+    if noise.get("uncalibrated") or noise.get("cal_uncalibrated"):
+        flags += (ANALYZER_UNCALIBRATED,)
+    return flags
 
 
 def _over_floor_db(row: pd.Series) -> float | None:
@@ -105,9 +119,8 @@ def noise_figure_figures(points: pd.DataFrame, readings: pd.DataFrame, specs: In
             interferer_excess_db=n.get("peak_excess_db"),
             interferer_sigma_db=n.get("point_sigma_db") or 0.0,
             image_wanted_over_floor_db=wanted_over_floor_db)
-        flags = tuple(FLAG_OF_CAUSE[c] for c in result.flags)
-        if bool(row.overload):
-            flags += ("overload",)
+        flags = tuple(FLAG_OF_CAUSE[c] for c in result.flags) + analyzer_flags(
+            bool(row.overload), n)
         conditions: dict[str, float | int | str] = {
             "study": str(p["study"]), "rf_freq_hz": float(p["rf_freq_hz"]),
             "lo_power_dbm": float(p["lo_power_dbm"]), "if_freq_hz": float(row.freq_hz),

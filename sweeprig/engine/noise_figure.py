@@ -71,25 +71,31 @@ MIN_SWEEP_S = 1e-3
 class NoisePower:
     """One noise reading: mean power in the span (mW at the analyzer input, as displayed),
     its relative standard deviation, the trace's highest point over its median (dB) and one
-    point's standard deviation (dB), and the analyzer's overload flag."""
+    point's standard deviation (dB), the analyzer's overload flag, and whether the analyzer
+    flagged the sweep uncalibrated (False where its profile cannot tell)."""
 
     power_mw: float
     jitter_rel: float
     peak_excess_db: float
     point_sigma_db: float
     overload: bool
+    uncalibrated: bool = False
 
 
 @dataclass(frozen=True)
 class NoisePoint:
     """The hot/cold readings of one point at the part's output (input-referred powers at the
     analyzer), and the compression check: the hot−cold difference's change (dB) with more
-    attenuation and its jitter (dB); None when not checked."""
+    attenuation and its jitter (dB); None when not checked. ``overload`` and
+    ``uncalibrated``: the analyzer said so of any of the point's sweeps (the compression
+    check's too)."""
 
     hot: NoisePower
     cold: NoisePower
     compression_step_db: float | None
     compression_jitter_db: float
+    overload: bool = False
+    uncalibrated: bool = False
 
 
 class NoiseBench:
@@ -121,6 +127,9 @@ class NoiseBench:
         self.cold_k: float | None = None
         self.cold_measured = True
         self.calibration: dict[float, HotCold] = {}
+        #: Per IF of :attr:`calibration`: (overloaded, uncalibrated) as the analyzer said of
+        #: any of the calibration's sweeps (every figure it corrects carries them).
+        self.calibration_flags: dict[float, tuple[bool, bool]] = {}
 
     # -- the source -----------------------------------------------------------------------
     def source(self, hot: bool) -> None:
@@ -210,7 +219,10 @@ class NoiseBench:
         sa.check_errors()
         sa.sweep()
         trace = sa.trace()
-        overload = sa.overloaded()
+        # the sweep's own flags, read before anything else is sent: an overloaded input or
+        # an uncalibrated sweep (too fast for its RBW, the trace above the reference level)
+        # gives a noise power that is wrong by an unknown amount
+        overload, uncalibrated = sa.sweep_flags()
         if rms:
             sa.set_value("detector", "sample")
         points_mw = 10.0 ** (trace / 10.0)
@@ -237,7 +249,8 @@ class NoiseBench:
         # one point's scatter, robust to a line in the span: 1.4826·MAD estimates σ for
         # normally distributed points (standard result)
         sigma = 1.4826 * float(np.median(np.abs(trace - median)))
-        return NoisePower(mean_mw, jitter, float(np.max(trace)) - median, sigma, overload)
+        return NoisePower(mean_mw, jitter, float(np.max(trace)) - median, sigma, overload,
+                          bool(uncalibrated))
 
     def hot_cold(self, freq_hz: float, *, check_compression: bool) -> NoisePoint:
         """Cold then hot readings at ``freq_hz``; with ``check_compression`` also both with
@@ -247,12 +260,14 @@ class NoiseBench:
         self.source(True)
         hot = self.read(freq_hz)
         step, step_jitter = None, 0.0
+        read = [hot, cold]
         extra = self.settings.compression_check_db
         if check_compression and extra > 0:
             att = self.settings.attenuation_db + extra
             hot2 = self.read(freq_hz, att)
             self.source(False)
             cold2 = self.read(freq_hz, att)
+            read += [hot2, cold2]
             d1, d2 = hot.power_mw - cold.power_mw, hot2.power_mw - cold2.power_mw
             if d1 > 0 and d2 > 0:
                 step = 10.0 * math.log10(d2 / d1)
@@ -261,7 +276,9 @@ class NoiseBench:
                                  cold2.jitter_rel * cold2.power_mw)
                 step_jitter = 10.0 * math.log10(1.0 + rel / min(d1, d2))
         self.source(False)
-        return NoisePoint(hot, cold, step, step_jitter)
+        return NoisePoint(hot, cold, step, step_jitter,
+                          overload=any(r.overload for r in read),
+                          uncalibrated=any(r.uncalibrated for r in read))
 
     # -- the system calibration -------------------------------------------------------------
     def system_calibration(self, if_freqs_hz: Iterable[float]) -> dict[float, HotCold]:
@@ -293,6 +310,7 @@ class NoiseBench:
                 self.calibration[f] = HotCold(
                     p.hot.power_mw, p.cold.power_mw, max(p.hot.jitter_rel, p.cold.jitter_rel),
                     float(self.enr.enr_at(f)), float(self.enr.uncertainty_at(f)[0]))
+                self.calibration_flags[f] = (p.overload, p.uncalibrated)
         finally:
             try:
                 self.off()

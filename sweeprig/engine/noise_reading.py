@@ -8,7 +8,8 @@ before any conditioning (:mod:`sweeprig.engine.noise_figure`). The RF sources ar
 the noise is read (the noise source alone drives the part's input) and back on afterwards.
 What is stored, in the reading's ``extra``: the hot and cold powers of the part and of the
 calibration (mW at the analyzer input), their jitters, the ENRs and their uncertainties, the
-cold temperature, the compression check and the interferer check; the analysis
+cold temperature, the compression check and the interferer check, and what the analyzer
+said of the point's sweeps and of the calibration's (overloaded, uncalibrated); the analysis
 (:mod:`sweeprig.analysis.noise_load`) reduces them to the figure.
 """
 
@@ -20,6 +21,7 @@ from sweeprig.analysis.noise_figure import HotCold
 from sweeprig.clock import Clock
 from sweeprig.engine.connect import BenchDrivers
 from sweeprig.engine.noise_figure import NoiseBench, NoiseSettings
+from sweeprig.engine.runner import ANALYZER_UNCALIBRATED
 from sweeprig.formats.bench import Bench
 from sweeprig.plan.expand import Point
 from sweeprig.plan.readings import Reading
@@ -35,6 +37,7 @@ class NoiseReader:
         self.nb.cold_k = self.nb.cold_temperature_k()  # now: before any conditioning
         self.nb.off()
         self._calibrations: dict[tuple[float, float], HotCold] = {}
+        self._calibration_flags: dict[tuple[float, float], tuple[bool, bool]] = {}
 
     def forget_state(self) -> None:
         """After a recovery: the noise source's state is unknown (see
@@ -55,6 +58,7 @@ class NoiseReader:
             nb.calibration.pop(if_hz, None)
             nb.system_calibration([if_hz])
             self._calibrations[key] = nb.calibration[if_hz]
+            self._calibration_flags[key] = nb.calibration_flags[if_hz]
             nb.cold_k = cold_k  # the ambient of the set-up, not the chamber's air now
             lo = self.d.lo
             if lo is not None:
@@ -72,6 +76,7 @@ class NoiseReader:
             source.set_output(True)
             source.check_errors()
         cal = self._calibrations[key]
+        cal_overload, cal_uncalibrated = self._calibration_flags[key]
         enr = nb.enr
         hot, cold = got.hot, got.cold
         return ReadingRecord(
@@ -79,7 +84,7 @@ class NoiseReader:
             level_dbm=10.0 * math.log10(cold.power_mw), span_hz=nb.settings.span_rbw
             * nb.settings.rbw_hz, rbw_hz=nb.settings.rbw_hz,
             attenuation_db=nb.settings.attenuation_db, averages=nb.settings.averages,
-            overload=hot.overload or cold.overload,
+            overload=got.overload,
             extra={
                 "noise": {
                     "hot_mw": hot.power_mw, "cold_mw": cold.power_mw,
@@ -98,6 +103,12 @@ class NoiseReader:
                     "peak_excess_db": max(hot.peak_excess_db, cold.peak_excess_db),
                     "point_sigma_db": max(hot.point_sigma_db, cold.point_sigma_db),
                     "enr_serial": enr.serial,
+                    # the analyzer's own word on its sweeps: the point's (any of them) and
+                    # the system calibration's that corrects it
+                    "uncalibrated": got.uncalibrated,
+                    "cal_overload": cal_overload,
+                    "cal_uncalibrated": cal_uncalibrated,
                 },
+                **({"status_flags": [ANALYZER_UNCALIBRATED]} if got.uncalibrated else {}),
             },
         )

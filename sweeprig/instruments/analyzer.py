@@ -316,6 +316,15 @@ class AnalyzerDriver(Driver):
         """Whether the analyzer input was overloaded in the last sweep."""
         return bool(self.ask("overload"))
 
+    def sweep_flags(self) -> tuple[bool, bool | None]:
+        """(overloaded, uncalibrated) of the last sweep, in one message where the profile
+        joins them (one query where both flags are bits of one register); uncalibrated None
+        where the profile cannot ask it as a plain query."""
+        uncal = self._reading_flags[1]
+        replies = self.ask_joined(("overload", None), *([("uncalibrated", None)] if uncal
+                                                          else []))
+        return bool(replies[0]), (bool(replies[1]) if uncal else None)
+
     def uncalibrated(self) -> bool:
         """Whether the analyzer flags its reading as uncalibrated (False if not supported)."""
         return bool(self.ask("uncalibrated")) if self.profile.has("uncalibrated") else False

@@ -117,3 +117,22 @@ def test_a_doubtful_ratio_does_not_weight_the_dsb_figure_s_enr() -> None:
     # a sound ratio still weights it: image 1 dB under the wanted output
     sound = _figures(-12.0, -91.4, -13.0, sideband="dsb", noise=apart)["noise_figure"]
     assert sound.value != unread.value
+
+
+def test_what_the_analyzer_said_of_the_sweeps_flags_both_figures() -> None:
+    # the point's sweeps or the system calibration's that corrects it: overloaded or
+    # uncalibrated, either makes the noise figure wrong by an unknown amount
+    cases = {
+        "uncalibrated": ("analyzer_uncalibrated",),
+        "cal_uncalibrated": ("analyzer_uncalibrated",),
+        "cal_overload": ("overload",),
+    }
+    for key, flags in cases.items():
+        got = _figures(-12.8, -91.4, noise={**NOISE, key: True})
+        for figure in got.values():
+            assert figure.flags == flags, (key, figure.name, figure.flags)
+            assert set(figure.flags) & SUSPECT_FLAGS
+    # said false, or not recorded (a store written before these were read): no flag
+    clean = {**NOISE, "uncalibrated": False, "cal_overload": False, "cal_uncalibrated": False}
+    assert all(f.flags == () for f in _figures(-12.8, -91.4, noise=clean).values())
+    assert all(f.flags == () for f in _figures(-12.8, -91.4).values())
