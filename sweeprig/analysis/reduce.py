@@ -593,6 +593,10 @@ COMPANION_FLAGS: dict[str, str] = {
     "reference_unlocked": REFERENCE_UNLOCKED,
     "current_limited": SUPPLY_LIMITED,
 }
+#: A status companion that raises no figure flag → what the run could not do without it.
+COMPANION_WATCHES: dict[str, str] = {
+    "output_tripped": "a trip of its output protection would not have stopped the run",
+}
 
 
 def _unchecked_notes(events: tuple[EventRecord, ...]) -> list[str]:
@@ -601,12 +605,15 @@ def _unchecked_notes(events: tuple[EventRecord, ...]) -> list[str]:
     notes = []
     for event in events:
         details = event.details if isinstance(event.details, Mapping) else {}
-        left = [COMPANION_FLAGS[n] for n in details.get("left_out", ())
-                if n in COMPANION_FLAGS]
-        if event.kind == "status" and left:
+        names = details.get("left_out", ())
+        left = [COMPANION_FLAGS[n] for n in names if n in COMPANION_FLAGS]
+        watches = [COMPANION_WATCHES[n] for n in names if n in COMPANION_WATCHES]
+        if event.kind == "status" and (left or watches):
+            said = ([f"its figures were not checked for {' or '.join(left)}"] if left
+                    else []) + watches
             notes.append(f"role {details.get('role')!r} could not be asked "
-                         f"{details.get('query')} after each point (refused at connect): its "
-                         f"figures were not checked for {' or '.join(left)}")
+                         f"{details.get('query')} after each point (refused at connect): "
+                         + "; ".join(said))
     return notes
 
 

@@ -42,6 +42,11 @@ SOURCE_ROLES = ("rf", "rf2", "lo")
 COMPANION_ROLES = ("dc", *SOURCE_ROLES)
 
 
+class OutputTripped(InstrumentError):
+    """An output's protection tripped (its ``output_tripped`` flag): the run stops at once
+    and is never retried (a retry would switch that output on into whatever tripped it)."""
+
+
 @dataclass
 class BenchDrivers:
     """The drivers of an open bench, by role (None where the bench has no such role)."""
@@ -161,10 +166,29 @@ def open_bench(
             bench, dict(drivers.items()), clock if clock is not None else WallClock())
         for _role, driver in drivers.items():  # the flags read after every point, tried once
             drivers.companion_notes += driver.check_companions()
+        _refuse_tripped(drivers)
     except BaseException:
         drivers.close()
         raise
     return drivers
+
+
+def _refuse_tripped(drivers: BenchDrivers) -> None:
+    """Refuse to start on a bench where an output's protection is tripped already (read at
+    connect, before anything is set): whatever tripped it may still be there, and the run
+    would switch that output on again. The operator clears it, by hand, once the cause is
+    found."""
+    for role, driver in drivers.items():
+        if driver.companions_at_connect.get("output_tripped"):
+            raise OutputTripped(
+                f"role {role!r} has its output protection tripped (its output is off and "
+                "stays off): a supply's over-voltage or over-current protection, or a "
+                "generator's reverse-power protection, tripped before this run",
+                where=driver.where(),
+                fix="find what tripped it (a shorted or oscillating part, power fed back into "
+                "a generator, a wrong cable) before anything else; then clear the protection "
+                "at the instrument (front panel, or OUTP:PROT:CLE) and start again; follow "
+                "your lab's rules for RF and supply faults")
 
 
 def bench_clock(simctl: SimControlDriver, clock: Clock | None) -> Clock | None:

@@ -56,7 +56,7 @@ from typing import Any
 import numpy as np
 
 from sweeprig.clock import Clock, WallClock
-from sweeprig.engine.connect import SOURCE_ROLES, BenchDrivers
+from sweeprig.engine.connect import SOURCE_ROLES, BenchDrivers, OutputTripped
 from sweeprig.engine.eta import EtaTracker
 from sweeprig.engine.noise_floor import MASK_HALF_WIDTH_RBW, NoiseFloor, estimate_noise_floor
 from sweeprig.errors import InputError, InstrumentError, StoreError, TransportError
@@ -310,6 +310,7 @@ class Runner:
         ``supply_limited`` when the supply held its current limit; the sources that said
         their output was not leveled (``unleveled_sources``) or their reference unlocked
         (``reference_unlocked``), role names."""
+        self._stop_if_tripped(read)
         if self._held is None or not read:
             return
         record = self._held[0]
@@ -325,6 +326,26 @@ class Runner:
                          [r for r, s in sources if s.status_seen.get("unleveled")])
         self._mark_roles(record, REFERENCE_UNLOCKED,
                          [r for r, s in sources if s.status_seen.get("reference_unlocked")])
+
+    def _stop_if_tripped(self, read: list[Driver]) -> None:
+        """Raise :class:`OutputTripped` when an instrument of ``read`` says its output
+        protection tripped: its output went off on its own (the held point may have been
+        read with it off, so it is not stored)."""
+        for role, driver in self.d.items():
+            if driver.status_seen.get("output_tripped") and any(d is driver for d in read):
+                held = self._held[3].point.index if self._held is not None else None
+                raise OutputTripped(
+                    f"role {role!r} tripped its output protection"
+                    + (f" during or after point {held}" if held is not None else "")
+                    + ": its output went off on its own (a supply's over-voltage or "
+                    "over-current protection, a generator's reverse-power protection); the "
+                    "run stops with every output off",
+                    where=driver.where(),
+                    fix="find what tripped it (a shorted or oscillating part, power fed back "
+                    "into a generator, a wrong cable) before anything else; then clear the "
+                    "protection at the instrument (front panel, or OUTP:PROT:CLE) and "
+                    "`sweeprig resume` the run; follow your lab's rules for RF and supply "
+                    "faults")
 
     def _mark_roles(self, record: PointRecord, key: str, roles: list[str]) -> None:
         """Add ``roles`` to the point record's ``extra[key]`` (a sorted list of role names)
@@ -438,6 +459,14 @@ class Runner:
                     self._confirm_held()
                     return None
                 return self.measure(point)
+            except OutputTripped as exc:
+                # never retried: a retry would switch that output on into whatever tripped
+                # it; the held point (read with the output perhaps off) is not stored
+                self._release_held(then="`sweeprig resume` measures it once the cause is "
+                                   "found and the protection cleared")
+                self._event("error", "tripped", exc.message().splitlines()[0],
+                            (redo or point).index if (redo or point) is not None else None)
+                raise
             except InstrumentReset as exc:
                 kind, error = "reset", exc
             except TransportError as exc:

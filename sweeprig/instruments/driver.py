@@ -154,6 +154,9 @@ class Driver:
         self._status_first = False
         #: The :attr:`status_companions`' answers read with the last posted status read.
         self.status_seen: dict[str, Any] = {}
+        #: The companions' answers when :meth:`check_companions` asked them, at connect
+        #: (only those the instrument answered).
+        self.companions_at_connect: dict[str, Any] = {}
         #: Companions left out for the run: the instrument did not answer them at connect
         #: (:meth:`check_companions`).
         self._dropped_companions: set[str] = set()
@@ -887,13 +890,15 @@ class Driver:
         lacks. Returns, for each query left out, a note and its details (``role``,
         ``query``, ``left_out``: the companions' operation names)."""
         notes: list[tuple[str, dict[str, Any]]] = []
+        self.companions_at_connect = {}
         for query in list(self._companion_queries(joined=False)):
             names = [n for n in self._companions() if self.profile.op(n).queries[0] == query]
             problem = ""
             try:
                 reply = self.query(query)
                 for name in names:
-                    self._joined_value(self.profile.op(name), reply, query)
+                    self.companions_at_connect[name] = self._joined_value(
+                        self.profile.op(name), reply, query)
             except (InstrumentError, TransportError) as exc:
                 problem = str(exc).splitlines()[0]
             found = self.errors()

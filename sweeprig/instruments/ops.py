@@ -30,6 +30,7 @@ from typing import Literal
 from sweeprig.instruments.status_bits import (
     FREQUENCY_MASK,
     OVERLOAD_MASK,
+    TRIPPED_MASK,
     UNCALIBRATED_MASK,
     UNLEVELED_MASK,
 )
@@ -114,6 +115,12 @@ REFERENCE_OPS: tuple[OpSpec, ...] = (
            required=False, default_mask=FREQUENCY_MASK),
 )
 
+#: A source's or supply's output protection tripped (it switched its own output off): read
+#: with the status read after every point; the run stops at once when it is set.
+OUTPUT_TRIPPED_OP = OpSpec("output_tripped", "query",
+                           "its output protection has tripped, output off (flag)", reply="int",
+                           required=False, default_mask=TRIPPED_MASK)
+
 KIND_OPS: dict[str, dict[str, OpSpec]] = {
     "source": {
         s.name: s
@@ -123,6 +130,7 @@ KIND_OPS: dict[str, dict[str, OpSpec]] = {
             _setting("output", "bool", None, "RF output on/off"),
             OpSpec("unleveled", "query", "its output is not leveled (flag)", reply="int",
                    required=False, default_mask=UNLEVELED_MASK),
+            OUTPUT_TRIPPED_OP,
             *REFERENCE_OPS,
         )
     },
@@ -195,6 +203,7 @@ KIND_OPS: dict[str, dict[str, OpSpec]] = {
             OpSpec("measure_current", "query", "measured current, A", reply="float"),
             OpSpec("current_limited", "query", "in current limit (flag)", reply="int",
                    required=False),
+            OUTPUT_TRIPPED_OP,
         )
     },
     "chamber": {

@@ -13,10 +13,11 @@ class SourceDriver(Driver):
     """A CW signal source. Safe state: RF output off."""
 
     kind = "source"
-    #: Asked with its status read after every point: its output's level state and its
+    #: Asked with its status read after every point: its output's level state, its
     #: reference's lock (:attr:`~sweeprig.instruments.driver.Driver.status_seen`; one query
-    #: where both read one register, as SCPI-99's questionable condition holds both).
-    status_companions = ("unleveled", "reference_unlocked")
+    #: where both read one register, as SCPI-99's questionable condition holds both) and its
+    #: output protection.
+    status_companions = ("unleveled", "reference_unlocked", "output_tripped")
 
     def set_frequency(self, freq_hz: float) -> bool:
         """Set the CW frequency, Hz. Returns True if a command was sent."""

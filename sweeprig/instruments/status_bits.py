@@ -31,3 +31,9 @@ FREQUENCY_MASK = 1 << QUESTIONABLE_BITS["FREQuency"]
 
 UNCALIBRATED_MASK = 1 << QUESTIONABLE_BITS["CALibration"]
 """Default mask of the analyzer's ``uncalibrated`` flag: CALibration, bit 8 (value 256)."""
+
+TRIPPED_MASK = 1
+"""Default mask of a source's or supply's ``output_tripped`` flag: SCPI-99's
+``OUTPut:PROTection:TRIPped?`` answers 1 when the output's protection has tripped (over
+voltage or current on a supply, reverse power on a generator) and 0 otherwise (from memory,
+not checked against the text); not a questionable-register bit."""

@@ -33,8 +33,9 @@ class SupplyDriver(Driver):
 
     kind = "supply"
     #: Read with every posted status read (its per-point ``*ESR?``): whether the supply holds
-    #: its current limit (:attr:`~sweeprig.instruments.driver.Driver.status_seen`).
-    status_companions = ("current_limited",)
+    #: its current limit (:attr:`~sweeprig.instruments.driver.Driver.status_seen`), and
+    #: whether its output protection tripped.
+    status_companions = ("current_limited", "output_tripped")
 
     def set_voltage(self, voltage_v: float) -> bool:
         """Set voltage, V (checked against the voltage limit before sending)."""

@@ -14,9 +14,11 @@ from pydantic import BaseModel, ConfigDict, Field, ValidationError, model_valida
 from sweeprig.errors import InputError
 
 FaultKind = Literal["timeout", "drop", "error", "garble", "reset", "swallow", "freeze", "late",
-                    "unlock"]
+                    "unlock", "trip"]
 #: The roles with a 10 MHz reference input, which an ``unlock`` fault can take away.
 REFERENCED_ROLES = ("rf", "rf2", "lo", "sa")
+#: The roles with an output protection, which a ``trip`` fault trips.
+PROTECTED_ROLES = ("rf", "rf2", "lo", "dc")
 
 _TRIGGERS = ("at_time_s", "at_command", "rate", "match")
 
@@ -57,6 +59,9 @@ class FaultSpec(BaseModel):
         if self.kind == "unlock" and self.role not in REFERENCED_ROLES:
             raise ValueError(f"an unlock fault takes a role with a 10 MHz reference input "
                              f"({', '.join(REFERENCED_ROLES)}), not {self.role!r}")
+        if self.kind == "trip" and self.role not in PROTECTED_ROLES:
+            raise ValueError(f"a trip fault takes a role with an output protection "
+                             f"({', '.join(PROTECTED_ROLES)}), not {self.role!r}")
         return self
 
 
@@ -79,7 +84,7 @@ class FaultPlan(BaseModel):
                 f"{first['msg']}",
                 where=f"{where}: {loc}" if loc else where,
                 fix="each [[faults]] table needs role, kind (timeout|drop|error|garble|reset|"
-                "swallow|freeze|late|unlock) and one trigger (at_time_s, at_command, rate or "
+                "swallow|freeze|late|unlock|trip) and one trigger (at_time_s, at_command, rate or "
                 "match); no other keys",
             ) from exc
 

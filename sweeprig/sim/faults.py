@@ -24,6 +24,11 @@ A :class:`FaultPlan` lists faults per instrument role. Kinds:
   reference or its cable gone in the night): set to its external reference, it runs on its
   own crystal from then on and reports its reference unlocked (its questionable status).
   Roles ``rf``, ``rf2``, ``lo``, ``sa``.
+* ``trip`` — the instrument's output protection trips before the message runs (a
+  generator's reverse-power protection, a supply's over-voltage or over-current one): its
+  output goes off and stays off, switching it on is refused until the protection is cleared
+  (``OUTPut:PROTection:CLEar``), and ``OUTPut:PROTection:TRIPped?`` answers 1. Roles ``rf``,
+  ``rf2``, ``lo``, ``dc`` (:mod:`sweeprig.sim.instruments.protection`).
 
 Triggers (exactly one per fault): ``at_time_s`` (the first message at or after that
 simulated time), ``at_command`` (the n-th message, counted from 1, received by that role's
@@ -173,6 +178,8 @@ class RoleFaults:
                     instrument.reset_to_power_on()
                 elif spec.kind == "unlock":
                     instrument.reference.lose_input()
+                elif spec.kind == "trip":
+                    instrument.protection.trip()
                 elif spec.kind == "drop":
                     action = FaultAction(drop=True)
                 elif spec.kind == "swallow" and not action.drop:

@@ -48,10 +48,11 @@ def test_the_recorded_name_is_the_figure_flag():
 def test_each_companion_names_the_flag_it_raises():
     """The reduction's note on a companion left out names the figure flag it would have
     raised: each companion the drivers ask is in the table, and each flag is a figure flag."""
-    from sweeprig.analysis.reduce import COMPANION_FLAGS
+    from sweeprig.analysis.reduce import COMPANION_FLAGS, COMPANION_WATCHES
     from sweeprig.instruments.source import SourceDriver
     from sweeprig.instruments.supply import SupplyDriver
 
     asked = {*SourceDriver.status_companions, *SupplyDriver.status_companions}
-    assert set(COMPANION_FLAGS) == asked
+    assert set(COMPANION_FLAGS) | set(COMPANION_WATCHES) == asked
+    assert not set(COMPANION_FLAGS) & set(COMPANION_WATCHES)
     assert set(COMPANION_FLAGS.values()) <= set(figures.FLAGS)

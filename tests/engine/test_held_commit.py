@@ -126,7 +126,8 @@ def test_a_supply_reset_shown_by_the_bare_status_read_measures_the_point_again(
     lo_3 = next(i for i, r in enumerate(log)
                 if r.role == "lo" and f"SOUR:FREQ:CW {1.7e9 + 3 * 0.25e9 - 100e6:.0f}" in r.sent)
     count = sum(1 for r in log[:lo_3] if r.role == "dc") + 1  # the next dc message, from 1
-    assert dc[count - 1].sent == "*ESR?;:STAT:QUES:COND?"  # (its current-limit state too)
+    # (its current-limit state and its output protection too)
+    assert dc[count - 1].sent == "*ESR?;:STAT:QUES:COND?;:OUTP:PROT:TRIP?"
     commits.clear()
     fault = FaultSpec(role="dc", kind="reset", at_command=count)
     status, _, hit = _served_run(tmp_path / "faulty", (fault,))

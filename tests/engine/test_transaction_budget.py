@@ -66,9 +66,9 @@ def test_a_point_costs_at_most_four_exchanges_and_the_sources_settle_first(tmp_p
     # (sweep, *WAI, markers, overload flag, *ESR?): four, where there were fifteen.
     assert per_point <= 4.0, [r.sent for r in log[first:final]]
     # after the last sweep: its sources' and supply's status (each with its level or
-    # current-limit state), read before it is committed
+    # current-limit state and its output protection), read before it is committed
     end = [r.sent for r in log[final:last]][4:]
-    assert end == ["*ESR?;:STAT:QUES:COND?"] * 3, end
+    assert end == ["*ESR?;:STAT:QUES:COND?;:OUTP:PROT:TRIP?"] * 3, end
     assert not any("TRAC:DATA?" in r.sent for r in log[first:last])  # a clear reading
     assert not any(r.sent == "SYST:ERR?" for r in log[first:last])  # no errors: no reads
     for i in range(first, last):  # every sweep follows a settled *OPC? of both sources

@@ -169,7 +169,7 @@ def test_a_posted_status_read_is_the_points_status_and_nothing_more_is_sent():
     src.finish_status(src.post_status())
     assert src.post_status() is None  # read already, nothing sent since
     # (a source's status read asks its level state too: its unleveled flag, status_seen)
-    assert src.point_status() == 128 and link.sent == ["*ESR?;:STAT:QUES:COND?"]
+    assert src.point_status() == 128 and link.sent == ["*ESR?;:STAT:QUES:COND?;:OUTP:PROT:TRIP?"]
     src.expire_status()
     device.esr = 16
     device.errors = ['-222,"Data out of range"']
@@ -219,7 +219,8 @@ def test_an_error_shown_by_a_leading_status_read_is_laid_on_the_commands_before_
         src.set_power(-12.0)
         pending = src.post_sync(status_first=True)
     assert pending is not None
-    assert pending.message == ("*ESR?;:STAT:QUES:COND?;:SOUR:FREQ:CW 2400000000;"
+    assert pending.message == ("*ESR?;:STAT:QUES:COND?;:OUTP:PROT:TRIP?;"
+                               ":SOUR:FREQ:CW 2400000000;"
                                ":SOUR:POW:LEV:IMM:AMPL -12;*OPC?")
     src.finish_sync(pending)
     with pytest.raises(InstrumentError) as raised:
@@ -251,16 +252,20 @@ def test_a_sources_level_state_rides_with_the_status_read_that_leads_its_setting
     with src.joined():
         src.set_frequency(2.4e9)
         src.finish_sync(src.post_sync(status_first=True))
-    assert link.sent == ["*ESR?;:STAT:QUES:COND?;:SOUR:FREQ:CW 2400000000;*OPC?"]
-    assert src.status_seen == {"unleveled": True, "reference_unlocked": True}
+    assert link.sent == ["*ESR?;:STAT:QUES:COND?;:OUTP:PROT:TRIP?;:SOUR:FREQ:CW 2400000000;"
+                         "*OPC?"]
+    assert src.status_seen == {"unleveled": True, "reference_unlocked": True,
+                               "output_tripped": False}
     device.ques = 32
     with src.joined():
         src.set_frequency(2.5e9)
         src.finish_sync(src.post_sync(status_first=True))
-    assert src.status_seen == {"unleveled": False, "reference_unlocked": True}  # by bit
+    assert src.status_seen == {"unleveled": False, "reference_unlocked": True,
+                               "output_tripped": False}  # by bit
     device.ques = 8
     src.finish_status(src.post_status())
-    assert src.status_seen == {"unleveled": True, "reference_unlocked": False}
+    assert src.status_seen == {"unleveled": True, "reference_unlocked": False,
+                               "output_tripped": False}
     with src.joined():
         src.set_frequency(2.6e9)
         pending = src.post_sync(status_first=True)
@@ -279,12 +284,15 @@ def test_a_source_that_takes_no_compound_messages_is_asked_its_level_state_apart
     assert not src.compound and src.asks_companions
     device.ques = 8  # POWer; its reference-unlocked flag is its own bit 9
     src.finish_status(src.post_status())
-    assert link.sent == ["*ESR?", "STAT:QUES:COND?"]  # both flags: one query
-    assert src.status_seen == {"unleveled": True, "reference_unlocked": False}
+    # both flags: one query (and its output protection's, a query of its own)
+    assert link.sent == ["*ESR?", "STAT:QUES:COND?", "OUTP:PROT:TRIP?"]
+    assert src.status_seen == {"unleveled": True, "reference_unlocked": False,
+                               "output_tripped": False}
     device.ques = 512
     src.expire_status()
     src.finish_status(src.post_status())
-    assert src.status_seen == {"unleveled": False, "reference_unlocked": True}
+    assert src.status_seen == {"unleveled": False, "reference_unlocked": True,
+                               "output_tripped": False}
 
 
 def test_the_analyzers_reference_lock_is_read_from_its_overload_query():

@@ -48,10 +48,11 @@ def test_the_part_ran_below_its_stated_supply_when(limited, volts, set_v, expect
 def test_the_limit_rides_with_the_points_status_read():
     """The supply's per-point ``*ESR?`` (read after a point) asks its current-limit state in
     the same message; a status read that is not needed sends nothing and keeps no answer."""
-    dc, link = _supply({"*ESR?": "0", "STAT:QUES:COND?": "2"})
+    dc, link = _supply({"*ESR?": "0", "STAT:QUES:COND?": "2", "OUTP:PROT:TRIP?": "0"})
     dc.finish_status(dc.post_status())
-    assert link.sent == ["*ESR?;:STAT:QUES:COND?"]
-    assert dc.status_seen == {"current_limited": True} and dc.point_status() == 0
+    assert link.sent == ["*ESR?;:STAT:QUES:COND?;:OUTP:PROT:TRIP?"]
+    assert dc.status_seen == {"current_limited": True, "output_tripped": False}
+    assert dc.point_status() == 0
     assert dc.post_status() is None and dc.status_seen == {}  # fresh: nothing sent
     assert len(link.sent) == 1
 

@@ -18,6 +18,7 @@ import math
 from collections.abc import Callable, Sequence
 
 from sweeprig.clock import Clock
+from sweeprig.sim.instruments.protection import OutputProtection
 from sweeprig.sim.instruments.reference import ReferenceOscillator
 from sweeprig.sim.scpi import Identity, ScpiInstrument, Setting
 
@@ -119,8 +120,15 @@ class SignalSource(ScpiInstrument):
             on_change=self._settle,
             caution="caution: check the DUT's maximum input level before raising it",
         ))
+        #: Its reverse-power protection (tripped only by a planted ``trip`` fault).
+        self.protection = OutputProtection()
+        self.protection.install(self)
         self.add_setting(Setting("output_on", "OUTPut[:STATe]", "bool", False,
-                                 on_change=self._settle))
+                                 on_change=self.protection.guard(self._settle)))
+
+    def reset_to_power_on(self) -> None:
+        super().reset_to_power_on()
+        self.protection.power_cycled()
 
     def _settle(self, _value: object) -> None:
         self.start_operation(SETTLE_S)

@@ -12,6 +12,7 @@ from __future__ import annotations
 from collections.abc import Callable
 
 from sweeprig.clock import Clock
+from sweeprig.sim.instruments.protection import OutputProtection
 from sweeprig.sim.scpi import Command, Identity, ScpiInstrument, Setting, format_number
 
 VOLTAGE_MAX_V = 30.0
@@ -47,9 +48,18 @@ class DcSupply(ScpiInstrument):
             "current_limit_a", "[SOURce]:CURRent[:LEVel][:IMMediate][:AMPLitude]", "float",
             CURRENT_DEFAULT_A, unit="current", minimum=0.0, maximum=CURRENT_MAX_A,
         ))
-        self.add_setting(Setting("output_on", "OUTPut[:STATe]", "bool", False))
+        #: Its over-voltage/over-current protection (tripped only by a planted ``trip``
+        #: fault).
+        self.protection = OutputProtection()
+        self.protection.install(self)
+        self.add_setting(Setting("output_on", "OUTPut[:STATe]", "bool", False,
+                                 on_change=self.protection.guard()))
         self.add_command("MEASure[:SCALar]:VOLTage[:DC]", query=self._measure_voltage)
         self.add_command("MEASure[:SCALar]:CURRent[:DC]", query=self._measure_current)
+
+    def reset_to_power_on(self) -> None:
+        super().reset_to_power_on()
+        self.protection.power_cycled()
 
     def operating_point(self) -> tuple[float, float, bool]:
         """(terminal voltage V, current A, in current limit) right now.
