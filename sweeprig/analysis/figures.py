@@ -180,6 +180,7 @@ SUPPLY_LIMITED = "supply_limited"
 SOURCE_UNLEVELED = "source_unleveled"
 REFERENCE_UNLOCKED = "reference_unlocked"
 ANALYZER_UNCALIBRATED = "analyzer_uncalibrated"
+TEMPERATURE_OFF = "temperature_off"
 
 #: Every flag, in a fixed order: the position is the flag's bit in a flag mask.
 FLAGS: tuple[str, ...] = (
@@ -224,6 +225,8 @@ FLAGS: tuple[str, ...] = (
     REFERENCE_UNLOCKED,
     # the analyzer's uncalibrated flag at a reading
     ANALYZER_UNCALIBRATED,
+    # the DUT probe away from its set point at a point (the chamber not holding it)
+    TEMPERATURE_OFF,
 )
 
 #: Flags that make a figure untrustworthy as a number: a limit check on it is inconclusive.
@@ -264,6 +267,7 @@ SUSPECT_FLAGS: frozenset[str] = frozenset(
         SOURCE_UNLEVELED,
         REFERENCE_UNLOCKED,
         ANALYZER_UNCALIBRATED,
+        TEMPERATURE_OFF,
     }
 )
 
@@ -334,6 +338,8 @@ FLAG_MEANINGS: Mapping[str, str] = MappingProxyType({
     "product",
     ANALYZER_UNCALIBRATED: "the analyzer flagged a reading behind it uncalibrated (a trace "
     "above its reference level, a sweep too fast for its RBW): it did not vouch for the level",
+    TEMPERATURE_OFF: "at a point behind it the DUT probe read outside the temperature "
+    "tolerance of its set point: the chamber was not holding the part at that temperature",
 })
 
 _FLAG_BIT = {name: 1 << i for i, name in enumerate(FLAGS)}

@@ -48,6 +48,7 @@ from sweeprig.analysis.figures import (
     SOURCE_UNLEVELED,
     SUPPLY_CURRENT_OFF,
     SUPPLY_LIMITED,
+    TEMPERATURE_OFF,
     UNPOWERED,
     Figure,
     collector_paused,
@@ -73,7 +74,13 @@ from sweeprig.analysis.roles import (
 from sweeprig.analysis.validity import SUPPLY_CURRENT_TOLERANCE, UNPOWERED_GAIN_MARGIN_DB
 from sweeprig.errors import SweeprigError
 from sweeprig.files import read_file_text, sha256_text
-from sweeprig.formats.sequence import Sequence, Study, load_sequence, sequence_from_dict
+from sweeprig.formats.sequence import (
+    Conditions,
+    Sequence,
+    Study,
+    load_sequence,
+    sequence_from_dict,
+)
 from sweeprig.plan.frequencies import wanted_orders
 from sweeprig.store.base import MERGED_SEQUENCE, EventRecord, InstrumentRecord, RunFile, RunStore
 
@@ -230,6 +237,7 @@ def _reduce_run(store: RunStore, run_id: int) -> RunFigures:
     count = len(figures)
     both = _flag_supply_limited(figures + noise_figures, captures, points, notes)
     both = _flag_role_marks(both, points, notes)
+    both = _flag_temperature_off(both, points, temperature_tolerance_c(sequence), notes)
     if sequence is not None:
         both = _flag_unpowered(both, captures, sequence.part.expected_gain, notes)
         expected_current = getattr(sequence.part, "expected_supply_current", None)
@@ -584,6 +592,46 @@ def _flag_role_marks(figures: list[Figure], points: pd.DataFrame,
                      f"from those points is flagged '{flag}'")
         figures = flag_points(figures, found.tolist(), flag)
     return figures
+
+
+def temperature_tolerance_c(sequence: Sequence | None) -> float:
+    """The tolerance the DUT probe is held to around its set point, °C: the sequence's
+    ``[conditions] temperature_tolerance`` (its default without a readable sequence)."""
+    if sequence is not None:
+        return float(sequence.conditions.temperature_tolerance)
+    return float(Conditions.model_fields["temperature_tolerance"].default)
+
+
+def temperature_off_points(points: pd.DataFrame, tolerance_c: float) -> np.ndarray:
+    """Indices of the points whose DUT probe read more than ``tolerance_c`` (°C) from their
+    set point (points without a set point or a probe reading are never off)."""
+    if "probe_temperature_c" not in points or "temperature_c" not in points:
+        return np.zeros(0, dtype=np.int64)
+    probe = points["probe_temperature_c"].to_numpy(dtype=float, na_value=np.nan)
+    setpoint = points["temperature_c"].to_numpy(dtype=float, na_value=np.nan)
+    with np.errstate(invalid="ignore"):
+        off = np.abs(probe - setpoint) > tolerance_c
+    return points["point_index"].to_numpy(dtype=np.int64)[off]
+
+
+def _flag_temperature_off(figures: list[Figure], points: pd.DataFrame, tolerance_c: float,
+                          notes: list[str]) -> list[Figure]:
+    """Flag ``temperature_off`` every figure from a point whose DUT probe read outside the
+    tolerance of its set point (the engine soaks until it is inside, so a point outside it
+    means the chamber lost hold of the part during the points), and say where."""
+    found = temperature_off_points(points, tolerance_c)
+    if found.size == 0:
+        return figures
+    rows = points[points["point_index"].isin(found)]
+    gap = (rows["probe_temperature_c"] - rows["temperature_c"]).abs()
+    worst = rows.loc[gap.idxmax()]
+    notes.append(f"at {found.size} of {len(points)} point(s) the DUT probe read outside "
+                 f"±{tolerance_c:g} °C of its set point (the worst: "
+                 f"{worst['probe_temperature_c']:.1f} °C at the {worst['temperature_c']:g} °C "
+                 "set point, point "
+                 f"{int(worst['point_index'])}): the chamber was not holding the part; every "
+                 f"figure from those points is flagged '{TEMPERATURE_OFF}'")
+    return flag_points(figures, found.tolist(), TEMPERATURE_OFF)
 
 
 #: A status companion (the instrument operation read after every point) → the figure flag it

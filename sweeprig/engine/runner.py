@@ -96,6 +96,9 @@ PON_BIT = 0x80
 #: A reading's ``extra`` ``status_flags`` entry: the analyzer flagged the reading
 #: uncalibrated (the reduction flags its figures ``analyzer_uncalibrated``).
 ANALYZER_UNCALIBRATED = "analyzer_uncalibrated"
+#: The flag the reduction gives the figures of a point whose DUT probe read outside the
+#: temperature tolerance of its set point (the key of the runner's one event about it).
+TEMPERATURE_OFF = "temperature_off"
 
 #: The point record's ``extra`` key listing the roles that reported their 10 MHz reference
 #: unlocked at the point (the reduction flags its figures ``reference_unlocked``).
@@ -664,6 +667,20 @@ class Runner:
             probe_c = chamber.probe_temperature_c()
         return probe_c
 
+    def _check_temperature_held(self, point: Point, probe_c: float | None) -> None:
+        """Say once a run when a point's DUT probe reading is outside the tolerance of its
+        set point: the soak ended inside it, so the chamber has lost hold of the part (the
+        reduction flags the figures of such points ``temperature_off``)."""
+        setpoint = point.temperature_c
+        if probe_c is None or setpoint is None or abs(probe_c - setpoint) <= self.tolerance_c:
+            return
+        self._warn_once(TEMPERATURE_OFF, "chamber",
+                        f"point {point.index}: the DUT probe read {probe_c:.1f} °C, outside "
+                        f"±{self.tolerance_c:g} °C of the {setpoint:g} °C set point: the "
+                        "chamber is not holding the part (its conditioning lost, a door open, "
+                        "a limiter tripped?); the figures of such points are flagged "
+                        f"{TEMPERATURE_OFF}; check the chamber", point.index)
+
     def _event(self, severity: str, kind: str, message: str, point_index: int | None = None,
                details: dict[str, object] | None = None) -> None:
         self.log(message)
@@ -716,6 +733,7 @@ class Runner:
             unverified = []
             probe_c = (self.d.chamber.probe_temperature_c() if self.d.chamber is not None
                        else None)
+        self._check_temperature_held(point, probe_c)
         current_a = next((r.extra["current_a"] for r in records if "current_a" in r.extra), None)
         # the point's end, read once: the record and the ETA (on a served bench the clock is
         # a query to the simulator)

@@ -17,8 +17,9 @@ FaultKind = Literal["timeout", "drop", "error", "garble", "reset", "swallow", "f
                     "unlock", "trip"]
 #: The roles with a 10 MHz reference input, which an ``unlock`` fault can take away.
 REFERENCED_ROLES = ("rf", "rf2", "lo", "sa")
-#: The roles with an output protection, which a ``trip`` fault trips.
-PROTECTED_ROLES = ("rf", "rf2", "lo", "dc")
+#: The roles with an output protection (the chamber: its over-temperature limiter), which a
+#: ``trip`` fault trips.
+PROTECTED_ROLES = ("rf", "rf2", "lo", "dc", "chamber")
 
 _TRIGGERS = ("at_time_s", "at_command", "rate", "match")
 

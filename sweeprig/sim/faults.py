@@ -28,7 +28,9 @@ A :class:`FaultPlan` lists faults per instrument role. Kinds:
   generator's reverse-power protection, a supply's over-voltage or over-current one): its
   output goes off and stays off, switching it on is refused until the protection is cleared
   (``OUTPut:PROTection:CLEar``), and ``OUTPut:PROTection:TRIPped?`` answers 1. Roles ``rf``,
-  ``rf2``, ``lo``, ``dc`` (:mod:`sweeprig.sim.instruments.protection`).
+  ``rf2``, ``lo``, ``dc`` (:mod:`sweeprig.sim.instruments.protection`). On ``chamber`` its
+  over-temperature limiter trips: the conditioning stops (the air drifts to ambient) while
+  its controller still reads control on, and nothing but the DUT probe tells.
 
 Triggers (exactly one per fault): ``at_time_s`` (the first message at or after that
 simulated time), ``at_command`` (the n-th message, counted from 1, received by that role's
@@ -179,7 +181,7 @@ class RoleFaults:
                 elif spec.kind == "unlock":
                     instrument.reference.lose_input()
                 elif spec.kind == "trip":
-                    instrument.protection.trip()
+                    instrument.trip_protection()
                 elif spec.kind == "drop":
                     action = FaultAction(drop=True)
                 elif spec.kind == "swallow" and not action.drop:

@@ -65,7 +65,7 @@ DISQUALIFYING_FLAGS = frozenset({
     figures.SOURCE_HARMONIC,
     figures.MISSING_READING, figures.UNPOWERED, figures.SUPPLY_CURRENT_OFF,
     figures.IMAGE_RATIO_DOUBTFUL, figures.SUPPLY_LIMITED, figures.SOURCE_UNLEVELED,
-    figures.REFERENCE_UNLOCKED, figures.ANALYZER_UNCALIBRATED,
+    figures.REFERENCE_UNLOCKED, figures.ANALYZER_UNCALIBRATED, figures.TEMPERATURE_OFF,
 })
 
 #: Condition key of a ``noise_figure`` observation: 1.0 when the figure is double-sideband

@@ -102,11 +102,12 @@ def test_new_flags_are_appended_so_every_old_bit_keeps_its_place():
     assert FLAGS[len(old):len(old) + len(NEW_FLAGS)] == NEW_FLAGS
     # then the noise-figure causes (sweeprig.analysis.noise_figure), then the peak search's,
     # then the SSB conversion's doubtful image ratio, then the part below its stated supply,
-    # then a source short of its level, a reference lost, an analyzer's uncalibrated reading
+    # then a source short of its level, a reference lost, an analyzer's uncalibrated reading,
+    # a DUT probe away from its set point
     assert FLAGS[len(old) + len(NEW_FLAGS):] == (
         "y_too_small", "analyzer_noise_dominates", "hot_compression", "interferer",
         "frequency_offset", "window_edge", "image_ratio_doubtful", "supply_limited",
-        "source_unleveled", "reference_unlocked", "analyzer_uncalibrated")
+        "source_unleveled", "reference_unlocked", "analyzer_uncalibrated", "temperature_off")
 
 
 def test_every_flag_has_a_one_line_meaning_and_the_new_ones_are_suspect():

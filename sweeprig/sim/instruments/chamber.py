@@ -109,8 +109,23 @@ class ThermalChamber(ScpiInstrument):
         ))
         self.add_command("THERmal:AIR", query=self._air_query)
         self.add_command("THERmal:PROBe", query=self._probe_query)
+        #: True once its over-temperature limiter has tripped (a planted ``trip`` fault):
+        #: the conditioning stops while the controller still reads control on.
+        self.limiter_tripped = False
         self._segment = _Segment(clock.now(), ambient_c, ambient_c, False, ambient_c,
                                  RAMP_DEFAULT_C_PER_MIN)
+
+    def trip_protection(self) -> None:
+        """Its limiter trips: the air drifts to ambient from now on, whatever the controller
+        is set to (``THERmal:CONTrol?`` still answers 1); a power cycle resets it."""
+        with self.lock:
+            self.limiter_tripped = True
+            self._resegment(None)
+
+    def reset_to_power_on(self) -> None:
+        with self.lock:
+            self.limiter_tripped = False
+            super().reset_to_power_on()
 
     def temperatures_c(self) -> tuple[float, float]:
         """(air, DUT probe) temperature now, degC."""
@@ -133,7 +148,8 @@ class ThermalChamber(ScpiInstrument):
             now = self.clock.now()
             air, probe = self.temperatures_c()
             self._segment = _Segment(
-                now, air, probe, bool(self.value("control_on")),
+                now, air, probe,
+                bool(self.value("control_on")) and not getattr(self, "limiter_tripped", False),
                 float(self.value("setpoint_c")), float(self.value("ramp_c_per_min")),
             )
 

@@ -130,6 +130,10 @@ class SignalSource(ScpiInstrument):
         super().reset_to_power_on()
         self.protection.power_cycled()
 
+    def trip_protection(self) -> None:
+        """Its reverse-power protection trips (:meth:`OutputProtection.trip`)."""
+        self.protection.trip()
+
     def _settle(self, _value: object) -> None:
         self.start_operation(SETTLE_S)
 

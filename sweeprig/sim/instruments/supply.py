@@ -61,6 +61,10 @@ class DcSupply(ScpiInstrument):
         super().reset_to_power_on()
         self.protection.power_cycled()
 
+    def trip_protection(self) -> None:
+        """Its over-voltage or over-current protection trips (:meth:`OutputProtection.trip`)."""
+        self.protection.trip()
+
     def operating_point(self) -> tuple[float, float, bool]:
         """(terminal voltage V, current A, in current limit) right now.
 
