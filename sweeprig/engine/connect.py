@@ -47,6 +47,14 @@ class OutputTripped(InstrumentError):
     and is never retried (a retry would switch that output on into whatever tripped it)."""
 
 
+#: What to do about a tripped output protection (the fix of every :class:`OutputTripped`),
+#: before ``then`` (how the measurement goes on).
+TRIPPED_FIX = ("find what tripped it (a shorted or oscillating part, power fed back into a "
+               "generator, a wrong cable) before anything else; then clear the protection at "
+               "the instrument (front panel, or OUTP:PROT:CLE) and {then}; follow your lab's "
+               "rules for RF and supply faults")
+
+
 @dataclass
 class BenchDrivers:
     """The drivers of an open bench, by role (None where the bench has no such role)."""
@@ -185,10 +193,7 @@ def _refuse_tripped(drivers: BenchDrivers) -> None:
                 "stays off): a supply's over-voltage or over-current protection, or a "
                 "generator's reverse-power protection, tripped before this run",
                 where=driver.where(),
-                fix="find what tripped it (a shorted or oscillating part, power fed back into "
-                "a generator, a wrong cable) before anything else; then clear the protection "
-                "at the instrument (front panel, or OUTP:PROT:CLE) and start again; follow "
-                "your lab's rules for RF and supply faults")
+                fix=TRIPPED_FIX.format(then="start again"))
 
 
 def bench_clock(simctl: SimControlDriver, clock: Clock | None) -> Clock | None:

@@ -56,7 +56,7 @@ from typing import Any
 import numpy as np
 
 from sweeprig.clock import Clock, WallClock
-from sweeprig.engine.connect import SOURCE_ROLES, BenchDrivers, OutputTripped
+from sweeprig.engine.connect import SOURCE_ROLES, TRIPPED_FIX, BenchDrivers, OutputTripped
 from sweeprig.engine.eta import EtaTracker
 from sweeprig.engine.noise_floor import MASK_HALF_WIDTH_RBW, NoiseFloor, estimate_noise_floor
 from sweeprig.errors import InputError, InstrumentError, StoreError, TransportError
@@ -344,11 +344,7 @@ class Runner:
                     "over-current protection, a generator's reverse-power protection); the "
                     "run stops with every output off",
                     where=driver.where(),
-                    fix="find what tripped it (a shorted or oscillating part, power fed back "
-                    "into a generator, a wrong cable) before anything else; then clear the "
-                    "protection at the instrument (front panel, or OUTP:PROT:CLE) and "
-                    "`sweeprig resume` the run; follow your lab's rules for RF and supply "
-                    "faults")
+                    fix=TRIPPED_FIX.format(then="`sweeprig resume` the run"))
 
     def _mark_roles(self, record: PointRecord, key: str, roles: list[str]) -> None:
         """Add ``roles`` to the point record's ``extra[key]`` (a sorted list of role names)

@@ -43,6 +43,7 @@ def test_the_recorded_name_is_the_figure_flag():
     figure flag: two layers that do not import each other, pinned together here."""
     assert runner.ANALYZER_UNCALIBRATED == figures.ANALYZER_UNCALIBRATED
     assert runner.REFERENCE_UNLOCKED == figures.REFERENCE_UNLOCKED
+    assert runner.TEMPERATURE_OFF == figures.TEMPERATURE_OFF
 
 
 def test_each_companion_names_the_flag_it_raises():

@@ -149,7 +149,7 @@ class ThermalChamber(ScpiInstrument):
             air, probe = self.temperatures_c()
             self._segment = _Segment(
                 now, air, probe,
-                bool(self.value("control_on")) and not getattr(self, "limiter_tripped", False),
+                bool(self.value("control_on")) and not self.limiter_tripped,
                 float(self.value("setpoint_c")), float(self.value("ramp_c_per_min")),
             )
 
