@@ -1059,8 +1059,7 @@ class Runner:
             raise InputError(f"reading {reading.name!r} needs the spectrum analyzer",
                              where="bench", fix="add roles.sa to the bench file")
         port = reading.port or "if"
-        if self.d.switch is not None and self.d.switch.select(self.bench.switch_channel(port)):
-            self._check(self.d.switch)
+        self._switch_to(port)
         rf = self.d.rf
         if reading.rf_retune_hz is not None and rf is not None:
             # the same DUT-plane power at the retuned frequency (its own path loss)
@@ -1225,8 +1224,7 @@ class Runner:
         if sa is None or refs is None or template is None or template.analyzer is None:
             return
         a = template.analyzer
-        if self.d.switch is not None and self.d.switch.select(self.bench.switch_channel("if")):
-            self._check(self.d.switch)
+        self._switch_to("if")
         for role, freq_hz, orders in (("lo", point.lo_freq_hz, (1, 0, 0)),
                                       ("rf", point.rf_freq_hz, (0, 1, 0)),
                                       ("rf2", point.rf2_freq_hz, (0, 0, 1))):
@@ -1356,6 +1354,20 @@ class Runner:
         return ReadingRecord(name=reading.name, kind=reading.kind, port="dc", extra=extra)
 
     # -- errors -----------------------------------------------------------------------------
+
+    def _switch_to(self, port: str) -> None:
+        """Route the analyzer to the DUT's ``port`` through the bench's switch (if any): sent
+        only when the selection changes, then its errors read and the channel read back (a
+        lost or refused command would leave the reading on another port: an isolation read at
+        the IF port, say, with nothing to show for it). A channel that reads open raises (the
+        point is measured again)."""
+        switch = self.d.switch
+        if switch is None:
+            return
+        channel = self.bench.switch_channel(port)
+        if switch.select(channel):
+            self._check(switch)
+            switch.confirm(channel)
 
     def _check(self, *drivers: Driver) -> None:
         """Drain the error queue of each instrument configured in the last block."""

@@ -26,6 +26,12 @@ class SwitchDriver(Driver):
         where the profile can ask. Raises :class:`InstrumentError` when it reads open."""
         self.set_value("channel", channel, force=True)
         self.check_errors()
+        self.confirm(channel)
+
+    def confirm(self, channel: int) -> None:
+        """Read ``channel`` back where the profile can ask (a reading depends on the port it
+        routes): raises :class:`InstrumentError` when it reads open, and forgets the switch's
+        state, so the next selection is sent again."""
         if self.profile.has("closed") and not self.is_closed(channel):
             self.forget_state()  # what the switch has closed is unknown
             raise InstrumentError(
