@@ -171,8 +171,9 @@ def _insert(conn: sqlite3.Connection, run_id: int, captures, point_rows, point_s
     conditions = ("temperature_c", "supply_v", "lo_freq_hz", "lo_power_dbm", "rf_freq_hz",
                   "rf_power_dbm", "rf2_freq_hz", "rf2_power_dbm")
     cols = [point_rows[c].to_numpy() for c in ("point", "study", *conditions)]
+    # the DUT probe at the set point (a soaked part: one off it would flag temperature_off)
     conn.executemany(point_sql, (
-        (run_id, int(p), s, *(cell(float(x)) for x in rest), 25.0, None,
+        (run_id, int(p), s, *(cell(float(x)) for x in rest), float(rest[0]), None,
          float(p), float(p) + 0.5, None, None, "{}")
         for p, s, *rest in zip(*cols, strict=True)))
     reading = captures["reading"].to_numpy()
