@@ -175,6 +175,7 @@ def open_bench(
         for _role, driver in drivers.items():  # the flags read after every point, tried once
             drivers.companion_notes += driver.check_companions()
         _refuse_tripped(drivers)
+        _refuse_left_settings(drivers)
     except BaseException:
         drivers.close()
         raise
@@ -194,6 +195,31 @@ def _refuse_tripped(drivers: BenchDrivers) -> None:
                 "generator's reverse-power protection, tripped before this run",
                 where=driver.where(),
                 fix=TRIPPED_FIX.format(then="start again"))
+
+
+def _refuse_left_settings(drivers: BenchDrivers) -> None:
+    """Refuse to start when a source has settings a previous user left that make its output
+    other than the CW tone at the level and frequency sweeprig sets (a level or frequency
+    offset, modulation on): every reading of the run would be off by them, with nothing to
+    show for it. Read at connect, before anything is set; a query the instrument refuses is
+    left out with a warning (:attr:`BenchDrivers.companion_notes`)."""
+    problems: list[str] = []
+    where = ""
+    for role in SOURCE_ROLES:
+        source = getattr(drivers, role)
+        if source is None:
+            continue
+        found, notes = source.left_settings()
+        drivers.companion_notes += notes
+        problems += [f"role {role!r}: {text}" for text in found]
+        where = where or (source.where() if found else "")
+    if problems:
+        raise InstrumentError(
+            "a source is not set as sweeprig needs it (left so by an earlier user?): "
+            + "; ".join(problems),
+            where=where,
+            fix="put each named setting back at the instrument as said, then start again "
+            "(sweeprig changes no setting it does not own)")
 
 
 def bench_clock(simctl: SimControlDriver, clock: Clock | None) -> Clock | None:

@@ -131,6 +131,14 @@ KIND_OPS: dict[str, dict[str, OpSpec]] = {
             OpSpec("unleveled", "query", "its output is not leveled (flag)", reply="int",
                    required=False, default_mask=UNLEVELED_MASK),
             OUTPUT_TRIPPED_OP,
+            # what a previous user may have left set: read at connect, refused unless neutral
+            OpSpec("power_offset", "query", "its level offset: the level set and shown less "
+                   "the level at its output, dB (0: none)", reply="float", required=False),
+            OpSpec("frequency_offset", "query", "its frequency offset: the frequency set "
+                   "less the frequency at its output, Hz (0: none)", reply="float",
+                   required=False),
+            OpSpec("modulation", "query", "any modulation on its output (flag)", reply="int",
+                   required=False, default_mask=1),
             *REFERENCE_OPS,
         )
     },

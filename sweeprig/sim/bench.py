@@ -102,6 +102,12 @@ def build_sim_instruments(
                            leveled_max_dbm=getattr(desc.sources.leveled_max, role))
         for k, role in enumerate(("rf", "rf2", "lo"))
     }
+    for role, source in sources.items():  # what a previous user left set (a planted fault)
+        left = getattr(desc.sources.left_set, role)
+        if left is not None:
+            source.put_value("power_offset_db", float(left.power_offset))
+            source.put_value("freq_offset_hz", float(left.frequency_offset))
+            source.put_value("modulation_on", bool(left.modulation))
     supply = DcSupply(clock, load=world.supply_current_a)
     ns_supply = DcSupply(clock, "PS30-30002", load=world.noise_source_current_a)
     chamber = ThermalChamber(clock, ambient_c=desc.chamber.ambient,

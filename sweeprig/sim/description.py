@@ -48,6 +48,9 @@ optional; the values shown are the defaults)::
     [sources.leveled_max]        # optional most a source delivers leveled: a planted fault
     # rf = "5 dBm"               # above it: 5 dBm out, STAT:QUES:COND? bit 3 set; also rf2, lo
 
+    [sources.left_set]           # optional settings a previous user left: a planted fault
+    # lo = { power_offset = "10 dB", frequency_offset = "0 Hz", modulation = false }
+
     [analyzer]
     noise_figure = "14 dB"       # at 0 dB attenuation
     toi = "15 dBm"               # first-mixer third-order intercept
@@ -108,7 +111,9 @@ Realism (each key above has a realistic default; docs/sim-bench.md explains them
 ``[sources.notch]`` (a flat band-stop per source path, a planted fault: ``center``,
 ``width``, ``depth``) and ``[sources.leveled_max]`` (the most a source delivers leveled,
 dBm, per role: above it the output stays there and the source sets its questionable
-POWer bit, bit 3, as an unleveled generator does: a planted fault);
+POWer bit, bit 3, as an unleveled generator does: a planted fault) and
+``[sources.left_set]`` (what a previous user left set on a source, per role: a level offset,
+a frequency offset, modulation on; a planted fault);
 ``[analyzer] phase_noise`` ((offset, dBc/Hz) points: reciprocal mixing) and
 ``coherent_products`` (its first-mixer products add to lines as voltages with a seeded
 phase); ``[dut] leakage_phase`` and ``leakage_delay`` (each leakage path of the part turns
@@ -289,6 +294,23 @@ class SourceLeveledMaxSpec(Frozen):
     lo: Power | None = None
 
 
+class LeftSettingsSpec(Frozen):
+    """What a previous user left set on one source (SCPI-99 semantics: the output is the
+    setting less each offset)."""
+
+    power_offset: LevelDb = 0.0
+    frequency_offset: Frequency = 0.0
+    modulation: StrictBool = False
+
+
+class SourceLeftSetSpec(Frozen):
+    """Settings left on each source by a previous user (absent: none)."""
+
+    rf: LeftSettingsSpec | None = None
+    rf2: LeftSettingsSpec | None = None
+    lo: LeftSettingsSpec | None = None
+
+
 #: Every simulated source's non-harmonic spurs unless the description says otherwise:
 #: −72 dBc at ±10 MHz from the carrier (reference-related spurs; an assumption, invented
 #: figures in the range signal sources state).
@@ -313,6 +335,8 @@ class SourcesSpec(Frozen):
     notch: SourceNotchesSpec = SourceNotchesSpec()
     #: The most each can deliver leveled, dBm (none by default: leveled at every setting).
     leveled_max: SourceLeveledMaxSpec = SourceLeveledMaxSpec()
+    #: Settings a previous user left on them (none by default).
+    left_set: SourceLeftSetSpec = SourceLeftSetSpec()
     #: Their command set: "tarnwick" (TW-SG6) or "farrowmere" (FR-SG8: settings applied late
     #: unless synchronised, on its own crystal unless the bench locks it; docs/instruments.md).
     family: Literal["tarnwick", "farrowmere"] = "tarnwick"

@@ -10,6 +10,12 @@ A source given a ``leveled_max_dbm`` (a planted fault: an output amplifier short
 headroom) delivers at most that; asked for more with its output on, it reports itself
 unleveled in its questionable status register's POWer bit (bit 3,
 ``STATus:QUEStionable:CONDition?``; SCPI-99 Volume 2's questionable register, from memory).
+
+What a previous user can leave set (power-on and ``*RST``: none of it), as SCPI-99 defines
+them (from memory, not checked against the text): a level offset (``[SOURce]:POWer:OFFSet``:
+the level set and shown is the output's plus the offset, so the output is the setting minus
+it), a frequency offset (``[SOURce]:FREQuency:OFFSet``, likewise) and modulation
+(``OUTPut:MODulation[:STATe]``: only its state is kept; the tone stays a CW tone here).
 """
 
 from __future__ import annotations
@@ -125,6 +131,13 @@ class SignalSource(ScpiInstrument):
         self.protection.install(self)
         self.add_setting(Setting("output_on", "OUTPut[:STATe]", "bool", False,
                                  on_change=self.protection.guard(self._settle)))
+        self.add_setting(Setting("power_offset_db", "[SOURce]:POWer[:LEVel][:IMMediate]:OFFSet",
+                                 "float", 0.0, minimum=-100.0, maximum=100.0,
+                                 on_change=self._settle))
+        self.add_setting(Setting("freq_offset_hz", "[SOURce]:FREQuency:OFFSet", "float", 0.0,
+                                 unit="frequency", minimum=-FREQ_MAX_HZ, maximum=FREQ_MAX_HZ,
+                                 on_change=self._settle))
+        self.add_setting(Setting("modulation_on", "OUTPut:MODulation[:STATe]", "bool", False))
 
     def reset_to_power_on(self) -> None:
         super().reset_to_power_on()
@@ -144,9 +157,16 @@ class SignalSource(ScpiInstrument):
 
     @property
     def output_freq_hz(self) -> float:
-        """Frequency actually at the output, Hz: the setting moved by the error of the
-        reference the source runs on (:mod:`sweeprig.sim.instruments.reference`)."""
-        return self.freq_hz * (1.0 + 1e-6 * self.reference.error_ppm())
+        """Frequency actually at the output, Hz: the setting less its frequency offset, moved
+        by the error of the reference the source runs on
+        (:mod:`sweeprig.sim.instruments.reference`)."""
+        return self._set_freq_hz() * (1.0 + 1e-6 * self.reference.error_ppm())
+
+    def _set_freq_hz(self) -> float:
+        """The frequency it makes before its reference's error: the setting less its
+        frequency offset, Hz."""
+        offset = float(self.value("freq_offset_hz"))
+        return self.freq_hz - offset if offset else self.freq_hz
 
     def questionable_condition(self) -> int:
         return self.reference.questionable_bits() | self.unleveled_bits()
@@ -173,7 +193,9 @@ class SignalSource(ScpiInstrument):
         return min(self._nominal_power_dbm(), self.leveled_max_dbm)
 
     def _nominal_power_dbm(self) -> float:
-        return nominal_power_dbm(self.power_dbm, self.freq_hz, self.level_error_db,
+        offset = float(self.value("power_offset_db"))
+        level = self.power_dbm - offset if offset else self.power_dbm
+        return nominal_power_dbm(level, self._set_freq_hz(), self.level_error_db,
                                  self.level_linearity_db)
 
     @property

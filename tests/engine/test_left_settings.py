@@ -1,0 +1,74 @@
+"""What an earlier user can leave set on a signal generator: a level offset (the level set and
+shown is the output's plus the offset), a frequency offset, modulation. sweeprig set its
+levels and frequencies as if none were there, so every reading of the run was off by them,
+with nothing to show for it. On the simulated bench (without the check): an LO left with a
+10 dB level offset made every gain 0.8 dB low, an RF source with 3 dB made it 3 dB low, and
+an RF source with a 1 MHz frequency offset moved the product off its reading: 12 dB low,
+all unflagged. Now each source's profile asks them
+once at connect (``SOUR:POW:OFFS?``, ``SOUR:FREQ:OFFS?``, ``OUTP:MOD:STAT?``) and a run on a
+source with any of them set is refused before anything is set."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import pytest
+
+from sweeprig.engine.session import run_sequence
+from sweeprig.errors import InstrumentError
+from sweeprig.store.sqlite import SqliteRunStore
+from tests.engine.noise_support import SIM_BENCH
+from tests.engine.sim_run import small_sequence
+
+SEQUENCE = small_sequence("""[[study]]
+name = "gain"
+rf_frequency = ["2.0 GHz", "2.2 GHz"]
+rf_power = "-35 dBm"
+lo_power = "0 dBm"
+read = ["wanted"]
+""", title="gain")
+
+DESCRIPTION = """part = "kx-2417"
+seed = 7
+[sources]
+level_error = false
+harmonics = []
+{left}"""
+
+
+def _run(tmp_path: Path, left: str = ""):
+    sequence = tmp_path / "sequence.toml"
+    sequence.write_text(SEQUENCE, encoding="utf-8")
+    described = tmp_path / "sim-bench.toml"
+    described.write_text(DESCRIPTION.format(left=left), encoding="utf-8")
+    return run_sequence(sequence, SIM_BENCH, sim=True, sim_description=described,
+                        store_path=tmp_path / "runs.sqlite")
+
+
+@pytest.mark.parametrize(("left", "fragments"), [
+    ('[sources.left_set]\nlo = { power_offset = "10 dB" }\n',
+     ["role 'lo'", "power offset of 10 dB", "SOUR:POW:OFFS?"]),
+    ('[sources.left_set]\nrf = { frequency_offset = "1 MHz" }\n',
+     ["role 'rf'", "frequency offset of 1e+06 Hz", "SOUR:FREQ:OFFS?"]),
+    ('[sources.left_set]\nrf = { modulation = true }\n',
+     ["role 'rf'", "modulation is on", "OUTP:MOD:STAT OFF"]),
+])
+def test_a_source_left_set_by_an_earlier_user_is_refused(tmp_path: Path, left: str,
+                                                        fragments: list[str]) -> None:
+    with pytest.raises(InstrumentError) as caught:
+        _run(tmp_path, left)
+    message = caught.value.message()
+    for fragment in fragments:
+        assert fragment in message, (fragment, message)
+    assert caught.value.exit_code == 4
+    # refused before anything was recorded
+    store = tmp_path / "runs.sqlite"
+    if store.exists():
+        with SqliteRunStore(store, create=False) as db:
+            assert db.runs() == []
+
+
+def test_a_source_set_as_sweeprig_needs_it_runs(tmp_path: Path) -> None:
+    neutral = ('[sources.left_set]\nlo = { power_offset = "0 dB", frequency_offset = "0 Hz", '
+               'modulation = false }\n')
+    assert _run(tmp_path, neutral).status == "complete"
