@@ -198,24 +198,22 @@ def _refuse_tripped(drivers: BenchDrivers) -> None:
 
 
 def _refuse_left_settings(drivers: BenchDrivers) -> None:
-    """Refuse to start when a source has settings a previous user left that make its output
-    other than the CW tone at the level and frequency sweeprig sets (a level or frequency
-    offset, modulation on): every reading of the run would be off by them, with nothing to
+    """Refuse to start when an instrument has settings a previous user left that make every
+    reading wrong (:attr:`~sweeprig.instruments.driver.Driver.left_setting_ops`: a source's
+    level or frequency offset or modulation, an analyzer's reference level offset or
+    amplitude corrections): every reading of the run would be off by them, with nothing to
     show for it. Read at connect, before anything is set; a query the instrument refuses is
     left out with a warning (:attr:`BenchDrivers.companion_notes`)."""
     problems: list[str] = []
     where = ""
-    for role in SOURCE_ROLES:
-        source = getattr(drivers, role)
-        if source is None:
-            continue
-        found, notes = source.left_settings()
+    for role, driver in drivers.items():
+        found, notes = driver.left_settings()
         drivers.companion_notes += notes
         problems += [f"role {role!r}: {text}" for text in found]
-        where = where or (source.where() if found else "")
+        where = where or (driver.where() if found else "")
     if problems:
         raise InstrumentError(
-            "a source is not set as sweeprig needs it (left so by an earlier user?): "
+            "an instrument is not set as sweeprig needs it (left so by an earlier user?): "
             + "; ".join(problems),
             where=where,
             fix="put each named setting back at the instrument as said, then start again "

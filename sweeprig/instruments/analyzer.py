@@ -33,6 +33,9 @@ class AnalyzerDriver(Driver):
     """A swept spectrum analyzer used in single-sweep mode with marker 1."""
 
     kind = "analyzer"
+    #: What a previous user may have left set that moves every level it reports (read once,
+    #: at connect).
+    left_setting_ops = ("ref_level_offset", "corrections")
 
     def prepare(self) -> None:
         """The profile's ``prepare`` commands, then single-sweep mode (one message where the

@@ -915,6 +915,43 @@ class Driver:
                     "silence this", {"role": self.role, "query": query, "left_out": names}))
         return notes
 
+    #: Operations (plain queries) reading settings sweeprig does not own that a previous user
+    #: may have left other than neutral (a number other than 0, a flag set), which would make
+    #: every reading wrong: :meth:`left_settings` asks them once, at connect.
+    left_setting_ops: tuple[str, ...] = ()
+
+    def left_settings(self) -> tuple[list[str], list[tuple[str, dict[str, Any]]]]:
+        """The :attr:`left_setting_ops` this profile can ask, asked: a text for each found
+        other than neutral (a number other than 0, a flag set), and a note (with its details)
+        for each query the instrument refused, which is then left unchecked."""
+        found: list[str] = []
+        notes: list[tuple[str, dict[str, Any]]] = []
+        for name in self.left_setting_ops:
+            if not self.plain_query(name):
+                continue
+            operation = self.profile.op(name)
+            query, what = operation.queries[0], name.replace("_", " ")
+            try:
+                value = self.ask(name)
+                refused = "; ".join(str(e) for e in self.errors())
+            except (InstrumentError, TransportError) as exc:
+                value, refused = None, str(exc).splitlines()[0]
+            if refused:
+                notes.append((f"role {self.role!r}: {query} failed at connect ({refused}), so "
+                              f"its {what} is not checked; give it a profile without "
+                              f"ops.{name} to silence this",
+                              {"role": self.role, "query": query, "left_out": [name]}))
+            elif isinstance(value, bool) or operation.spec.reply == "int":
+                if value:
+                    found.append(f"{what} on ({query}): switch it off at the instrument")
+            elif float(value) != 0.0:
+                unit = {"level_db": " dB", "frequency": " Hz"}.get(operation.spec.unit or "", "")
+                found.append(f"a {what} of {float(value):g}{unit} is set ({query}): every "
+                             "level or frequency it gives is off by it; set it to 0 at the "
+                             "instrument, and calibrate again if the calibration was made "
+                             "with it set")
+        return found, notes
+
     def plain_query(self, name: str) -> bool:
         """True when the profile has operation ``name`` as a plain single query (no
         parameter, no command): one that can ride in another message."""

@@ -133,10 +133,11 @@ KIND_OPS: dict[str, dict[str, OpSpec]] = {
             OUTPUT_TRIPPED_OP,
             # what a previous user may have left set: read at connect, refused unless neutral
             OpSpec("power_offset", "query", "its level offset: the level set and shown less "
-                   "the level at its output, dB (0: none)", reply="float", required=False),
-            OpSpec("frequency_offset", "query", "its frequency offset: the frequency set "
-                   "less the frequency at its output, Hz (0: none)", reply="float",
+                   "the level at its output, dB (0: none)", unit="level_db", reply="float",
                    required=False),
+            OpSpec("frequency_offset", "query", "its frequency offset: the frequency set "
+                   "less the frequency at its output, Hz (0: none)", unit="frequency",
+                   reply="float", required=False),
             OpSpec("modulation", "query", "any modulation on its output (flag)", reply="int",
                    required=False, default_mask=1),
             *REFERENCE_OPS,
@@ -183,6 +184,13 @@ KIND_OPS: dict[str, dict[str, OpSpec]] = {
                    default_mask=OVERLOAD_MASK),
             OpSpec("uncalibrated", "query", "reading uncalibrated (flag)", reply="int",
                    required=False, default_mask=UNCALIBRATED_MASK),
+            # what a previous user may have left set: read at connect, refused unless neutral
+            OpSpec("ref_level_offset", "query", "its reference level offset: the levels it "
+                   "shows less the levels at its input, dB (0: none)", unit="level_db",
+                   reply="float", required=False),
+            OpSpec("corrections", "query", "amplitude corrections (transducer factors) "
+                   "applied to its levels (flag)", reply="int", required=False,
+                   default_mask=1),
             OpSpec("status_enable", "action", "enable the questionable bits that feed the "
                    "status byte's summary (value: the overload and uncalibrated masks)",
                    value="int", unit="count", required=False),

@@ -2,18 +2,12 @@
 
 from __future__ import annotations
 
-from typing import Any
-
-from sweeprig.errors import InstrumentError, TransportError
 from sweeprig.instruments.driver import Driver
 
 #: The key of a point record's ``extra`` listing the sources (role names) found unleveled
 #: by the status read after the point (the reduction flags its figures ``source_unleveled``).
 UNLEVELED_SOURCES = "unleveled_sources"
 
-#: The settings a previous user may have left on a source that make its output other than the
-#: CW tone at the level and frequency sweeprig sets (read once, at connect).
-LEFT_SETTING_OPS = ("power_offset", "frequency_offset", "modulation")
 
 
 class SourceDriver(Driver):
@@ -25,38 +19,9 @@ class SourceDriver(Driver):
     #: where both read one register, as SCPI-99's questionable condition holds both) and its
     #: output protection.
     status_companions = ("unleveled", "reference_unlocked", "output_tripped")
-
-    def left_settings(self) -> tuple[list[str], list[tuple[str, dict[str, Any]]]]:
-        """What a previous user left set that makes its output other than the CW tone at the
-        level and frequency sweeprig sets (:data:`LEFT_SETTING_OPS` its profile can ask):
-        a text for each one found set, and a note (with its details) for each query the
-        instrument refused, which is then left unchecked."""
-        found: list[str] = []
-        notes: list[tuple[str, dict[str, Any]]] = []
-        for name in LEFT_SETTING_OPS:
-            if not self.plain_query(name):
-                continue
-            query = self.profile.op(name).queries[0]
-            try:
-                value = self.ask(name)
-                refused = "; ".join(str(e) for e in self.errors())
-            except (InstrumentError, TransportError) as exc:
-                value, refused = None, str(exc).splitlines()[0]
-            if refused:
-                notes.append((f"role {self.role!r}: {query} failed at connect ({refused}), so "
-                              f"its {name.replace('_', ' ')} is not checked; give it a profile "
-                              f"without ops.{name} to silence this",
-                              {"role": self.role, "query": query, "left_out": [name]}))
-            elif name == "modulation" and value:
-                found.append(f"modulation is on ({query} answered {value!r}): switch it off "
-                             "at the instrument (OUTP:MOD:STAT OFF)")
-            elif name != "modulation" and float(value) != 0.0:
-                unit = "dB" if name == "power_offset" else "Hz"
-                found.append(f"a {name.replace('_', ' ')} of {float(value):g} {unit} is set "
-                             f"({query}): its output is that far from what sweeprig sets; "
-                             f"set it to 0 at the instrument, and calibrate again if the "
-                             "calibration was made with it set")
-        return found, notes
+    #: What a previous user may have left set that makes its output other than the CW tone
+    #: at the level and frequency sweeprig sets (read once, at connect).
+    left_setting_ops = ("power_offset", "frequency_offset", "modulation")
 
     def set_frequency(self, freq_hz: float) -> bool:
         """Set the CW frequency, Hz. Returns True if a command was sent."""

@@ -117,6 +117,9 @@ def build_sim_instruments(
                       else SpectrumAnalyzer)
     analyzer = analyzer_class(clock, world.analyzer_input, params=desc.analyzer_params(),
                               seed=desc.seed, reference=oscillators["sa"])
+    left = desc.analyzer.left_set  # what a previous user left set (a planted fault)
+    analyzer.put_value("ref_offset_db", float(left.ref_level_offset))
+    analyzer.put_value("corrections_on", bool(left.corrections))
     meter_class = (FarrowmerePowerMeter if desc.power_meter.family == "farrowmere"
                    else PowerMeter)
     meter = meter_class(clock, sense=world.sensed_power_dbm, seed=desc.seed + 1,

@@ -349,6 +349,14 @@ class PhaseNoisePointSpec(Frozen):
     level: DbcPerHz
 
 
+class AnalyzerLeftSetSpec(Frozen):
+    """What a previous user left set on the analyzer: a reference level offset (every level
+    it shows is the input's plus it) and amplitude corrections (their state only)."""
+
+    ref_level_offset: LevelDb = 0.0
+    corrections: StrictBool = False
+
+
 class AnalyzerSpec(Frozen):
     """The analyzer's own figures (see :class:`sweeprig.sim.analyzer_display.AnalyzerParams`)."""
 
@@ -364,6 +372,8 @@ class AnalyzerSpec(Frozen):
     #: Its command set: "tarnwick" (the TW-SA13) or "farrowmere" (the FR-SA20, the second
     #: family: another SCPI dialect around the same receiver; docs/instruments.md).
     family: Literal["tarnwick", "farrowmere"] = "tarnwick"
+    #: Settings a previous user left on it (a planted fault; none by default).
+    left_set: AnalyzerLeftSetSpec = AnalyzerLeftSetSpec()
 
     @field_validator("phase_noise")
     @classmethod

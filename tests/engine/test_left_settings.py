@@ -4,9 +4,11 @@ levels and frequencies as if none were there, so every reading of the run was of
 with nothing to show for it. On the simulated bench (without the check): an LO left with a
 10 dB level offset made every gain 0.8 dB low, an RF source with 3 dB made it 3 dB low, and
 an RF source with a 1 MHz frequency offset moved the product off its reading: 12 dB low,
-all unflagged. Now each source's profile asks them
-once at connect (``SOUR:POW:OFFS?``, ``SOUR:FREQ:OFFS?``, ``OUTP:MOD:STAT?``) and a run on a
-source with any of them set is refused before anything is set."""
+all unflagged. An analyzer left with a 10 dB reference level offset made every gain 10 dB
+high. Now each profile asks them once at connect (a source's ``SOUR:POW:OFFS?``,
+``SOUR:FREQ:OFFS?``, ``OUTP:MOD:STAT?``; an analyzer's ``DISP:WIND:TRAC:Y:SCAL:RLEV:OFFS?``
+and ``SENS:CORR:CSET:STAT?``) and a run on an instrument with any of them set is refused
+before anything is set."""
 
 from __future__ import annotations
 
@@ -51,7 +53,7 @@ def _run(tmp_path: Path, left: str = ""):
     ('[sources.left_set]\nrf = { frequency_offset = "1 MHz" }\n',
      ["role 'rf'", "frequency offset of 1e+06 Hz", "SOUR:FREQ:OFFS?"]),
     ('[sources.left_set]\nrf = { modulation = true }\n',
-     ["role 'rf'", "modulation is on", "OUTP:MOD:STAT OFF"]),
+     ["role 'rf'", "modulation on", "OUTP:MOD:STAT?", "switch it off"]),
 ])
 def test_a_source_left_set_by_an_earlier_user_is_refused(tmp_path: Path, left: str,
                                                         fragments: list[str]) -> None:
@@ -72,3 +74,19 @@ def test_a_source_set_as_sweeprig_needs_it_runs(tmp_path: Path) -> None:
     neutral = ('[sources.left_set]\nlo = { power_offset = "0 dB", frequency_offset = "0 Hz", '
                'modulation = false }\n')
     assert _run(tmp_path, neutral).status == "complete"
+
+
+@pytest.mark.parametrize(("left", "fragments"), [
+    ("[analyzer.left_set]\nref_level_offset = \"10 dB\"\n",
+     ["role 'sa'", "ref level offset of 10 dB", "DISP:WIND:TRAC:Y:SCAL:RLEV:OFFS?"]),
+    ("[analyzer.left_set]\ncorrections = true\n",
+     ["role 'sa'", "corrections on", "SENS:CORR:CSET:STAT?"]),
+])
+def test_an_analyzer_left_set_by_an_earlier_user_is_refused(tmp_path: Path, left: str,
+                                                           fragments: list[str]) -> None:
+    # a reference level offset moves every level it reports: every gain by as much
+    with pytest.raises(InstrumentError) as caught:
+        _run(tmp_path, left)
+    message = caught.value.message()
+    for fragment in fragments:
+        assert fragment in message, (fragment, message)

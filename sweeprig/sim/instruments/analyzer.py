@@ -12,7 +12,7 @@ from __future__ import annotations
 import math
 from collections.abc import Callable
 from dataclasses import dataclass
-from typing import ClassVar
+from typing import Any, ClassVar
 
 import numpy as np
 
@@ -52,7 +52,8 @@ POINTS_MIN, POINTS_MAX, POINTS_DEFAULT = 101, 10001, 1001
 #: The settings a sweep's :class:`SweepSettings` is made of (a change to one of them makes
 #: it again).
 _SWEEP_SETTINGS = frozenset(("start_hz", "stop_hz", "points", "rbw_hz", "vbw_hz", "att_db",
-                             "ref_level_dbm", "avg_on", "avg_count", "detector"))
+                             "ref_level_dbm", "ref_offset_db", "avg_on", "avg_count",
+                             "detector"))
 AVERAGES_MAX = 10000
 MARKERS = 4
 # RBW coupled to span: span/RBW = 100 (common practice, no source).
@@ -186,7 +187,9 @@ class SpectrumAnalyzer(ScpiInstrument):
             rbw_hz=self.value("rbw_hz"),
             vbw_hz=self.value("vbw_hz"),
             attenuation_db=self.value("att_db"),
-            ref_level_dbm=self.value("ref_level_dbm"),
+            # the reference level is set as shown: with an offset, the input's is that less
+            ref_level_dbm=self.value("ref_level_dbm") - self.value("ref_offset_db")
+            if self.value("ref_offset_db") else self.value("ref_level_dbm"),
             averages=int(self.value("avg_count")) if averaging else 1,
             detector=("rms" if str(self.value("detector")).upper()
                       == self.dialect.power_detector.upper() else "sample"),
@@ -263,6 +266,14 @@ class SpectrumAnalyzer(ScpiInstrument):
         add(Setting("ref_level_dbm", "DISPlay[:WINDow]:TRACe:Y[:SCALe]:RLEVel", "float",
                     default=0.0, unit="power", minimum=-170.0, maximum=30.0,
                     on_change=lambda _v: self._couple()))
+        # What an earlier user can leave set (SCPI-99 names, from memory; power-on and *RST:
+        # none): a reference level offset (every level shown is the input's plus it, the
+        # reference level set as shown), and amplitude corrections (their state only: no
+        # table is applied here).
+        add(Setting("ref_offset_db", "DISPlay[:WINDow]:TRACe:Y[:SCALe]:RLEVel:OFFSet",
+                    "float", default=0.0, minimum=-200.0, maximum=200.0))
+        add(Setting("corrections_on", "[SENSe]:CORRection:CSET[:STATe]", "bool",
+                    default=False))
         add(Setting("att_db", d.attenuation, "float", default=AUTO_ATT_MIN_DB,
                     unit="level_db", minimum=0.0, maximum=ATT_MAX_DB, coerce=round_attenuation,
                     on_change=self._att_changed))
@@ -404,8 +415,8 @@ class SpectrumAnalyzer(ScpiInstrument):
         cmd.no_params()
         if not self.value("marker_on", cmd.index):
             raise ScpiError(-221, f"marker {cmd.index} is off; set its X or switch it on")
-        return format_number(round(self._current_sweep().level_at(
-            self.value("marker_x_hz", cmd.index)), 6))
+        return format_number(round(self._shown(self._current_sweep().level_at(
+            self.value("marker_x_hz", cmd.index))), 6))
 
     def _marker_density(self, cmd: Command) -> str:
         """The marker's noise function: the mean noise power of the trace points within one
@@ -425,13 +436,19 @@ class SpectrumAnalyzer(ScpiInstrument):
         else:
             mean_dbm = float(np.mean(levels)) + LOG_DETECTOR_BIAS_DB
         enbw_hz = GAUSSIAN_ENBW_PER_RBW * settings.rbw_hz
-        return format_number(round(mean_dbm - 10.0 * math.log10(enbw_hz), 6))
+        return format_number(round(self._shown(mean_dbm) - 10.0 * math.log10(enbw_hz), 6))
+
+    def _shown(self, level_dbm: Any) -> Any:
+        """A level (dBm, or an array of them) as the display shows it: plus the reference
+        level offset, where one is set."""
+        offset = self.value("ref_offset_db")
+        return level_dbm + offset if offset else level_dbm
 
     def _trace_query(self, cmd: Command) -> str | bytes:
         name = cmd.one()
         if name.text.upper() not in ("TRACE1", "TRAC1"):
             raise ScpiError(-224, f"{cmd.header}? {name.text} (only TRACE1)")
-        trace = self._current_sweep().trace_dbm
+        trace = self._shown(self._current_sweep().trace_dbm)
         if self.value("format") == "REAL,32":
             return encode_real32_block(trace, big_endian=self.value("byte_order") == "NORMAL")
         return ",".join(f"{v:.4f}" for v in trace)

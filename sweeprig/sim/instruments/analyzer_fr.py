@@ -81,7 +81,7 @@ class FarrowmereAnalyzer(SpectrumAnalyzer):
         cmd.no_params()
         if cmd.index != 1:
             raise ScpiError(-221, f"trace {cmd.index} is blank; read TRACe1")
-        trace = self._current_sweep().trace_dbm
+        trace = self._shown(self._current_sweep().trace_dbm)
         if self.value("format") == "REAL,32":
             return encode_real32_block(trace, big_endian=False)
         return ",".join(f"{v:.4f}" for v in trace)
