@@ -931,11 +931,13 @@ class Driver:
                 continue
             operation = self.profile.op(name)
             query, what = operation.queries[0], name.replace("_", " ")
+            refused = ""
             try:
                 value = self.ask(name)
-                refused = "; ".join(str(e) for e in self.errors())
             except (InstrumentError, TransportError) as exc:
                 value, refused = None, str(exc).splitlines()[0]
+            errors = "; ".join(str(e) for e in self.errors())  # drained either way
+            refused = refused or errors
             if refused:
                 notes.append((f"role {self.role!r}: {query} failed at connect ({refused}), so "
                               f"its {what} is not checked; give it a profile without "

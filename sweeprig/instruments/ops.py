@@ -207,6 +207,9 @@ KIND_OPS: dict[str, dict[str, OpSpec]] = {
                    required=False),
             OpSpec("zeroed", "query", "the sensor's last zeroing succeeded (flag)",
                    reply="bool", required=False),
+            # what a previous user may have left set: read at connect, refused when on
+            OpSpec("display_offset", "query", "a display offset added to every reading (flag)",
+                   reply="int", required=False, default_mask=1),
         )
     },
     "supply": {

@@ -13,6 +13,9 @@ class PowerMeterDriver(Driver):
     """An average power meter with one sensor."""
 
     kind = "powermeter"
+    #: What a previous user may have left set that moves every reading (read once, at
+    #: connect): a display offset would go into every calibration it makes.
+    left_setting_ops = ("display_offset",)
 
     def set_frequency(self, freq_hz: float) -> bool:
         """Frequency for the sensor's calibration factor, Hz."""

@@ -135,3 +135,17 @@ def test_a_nonsense_reading_ends_the_calibration_with_rf_off(tmp_path, monkeypat
     assert not (tmp_path / "cal.toml").exists()
     assert started and all(not s.instruments[r].output_on for s in started
                            for r in ("rf", "rf2", "lo"))
+
+
+def test_a_reading_far_from_the_prediction_ends_the_calibration(tmp_path, monkeypatch):
+    # a sensor reading 25 dB high (a meter's display offset that the connect check cannot
+    # see, say): far outside what the settings and the typed losses predict, refused
+    from sweeprig.instruments.powermeter import PowerMeterDriver
+
+    real = PowerMeterDriver.read_power_dbm
+    monkeypatch.setattr(PowerMeterDriver, "read_power_dbm", lambda self: real(self) + 25.0)
+    with pytest.raises(SweeprigError) as info:
+        calibrate_sources(QUICK, None, tmp_path / "cal.toml", sim=True)
+    text = str(info.value)
+    assert "power meter (role pm), rf at" in text and "typed loss" in text, text
+    assert not (tmp_path / "cal.toml").exists()

@@ -90,3 +90,22 @@ def test_an_analyzer_left_set_by_an_earlier_user_is_refused(tmp_path: Path, left
     message = caught.value.message()
     for fragment in fragments:
         assert fragment in message, (fragment, message)
+
+
+def test_a_power_meter_left_with_a_display_offset_refuses_the_calibration(
+        tmp_path: Path) -> None:
+    # a 3 dB display offset left on would go into every path loss the calibration measures
+    # (and so into every level of every run calibrated with it): refused before any RF
+    from sweeprig.engine.calibrate import calibrate_sources
+    from sweeprig.engine.session import shipped_sequences_dir
+
+    described = tmp_path / "sim-bench.toml"
+    described.write_text('part = "kx-2417"\n[power_meter]\noffset = "3 dB"\n',
+                         encoding="utf-8")
+    with pytest.raises(InstrumentError) as caught:
+        calibrate_sources(shipped_sequences_dir() / "demo" / "quick.toml", None,
+                          tmp_path / "cal.toml", sim=True, repeats=1,
+                          sim_description=described)
+    message = caught.value.message()
+    assert "role 'pm'" in message and "display offset on" in message, message
+    assert not (tmp_path / "cal.toml").exists()

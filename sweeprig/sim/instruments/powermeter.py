@@ -59,6 +59,9 @@ def _no_signal() -> float:
     return -200.0
 
 
+#: The suffix of the display offset's node (SENSe:CORRection:GAIN2).
+_GAIN2 = 2
+
 class PowerMeter(ScpiInstrument):
     """TW-PM18 power meter. Power-on: 1 GHz calibration frequency, 4 averages, dBm.
 
@@ -89,7 +92,6 @@ class PowerMeter(ScpiInstrument):
         self.zero_offset_mw = 0.0 if zero_offset_dbm is None else 10.0 ** (zero_offset_dbm / 10.0)
         self.zero_holds = bool(zero_holds)
         self.range_max_dbm = float(range_max_dbm)
-        self.reading_offset_db = float(reading_offset_db)
         self.zeroings = 0
         self._zeroed = zero_offset_dbm is None
         self._rng = random.Random(seed)
@@ -98,6 +100,18 @@ class PowerMeter(ScpiInstrument):
         self.add_setting(Setting("average_count", "[SENSe]:AVERage:COUNt", "int", 4,
                                  minimum=1, maximum=1024))
         self.add_setting(Setting("unit", "UNIT:POWer", "enum", "DBM", choices=("DBM", "W")))
+        # A display offset (SCPI-99's SENSe:CORRection:GAIN2, from memory): while on, added
+        # to every reading; power-on and *RST: off, 0 dB. ``reading_offset_db`` is one an
+        # earlier user left set (a planted fault).
+        # (GAIN2: the node's numeric suffix, so the values are kept under index 2)
+        self.add_setting(Setting("offset_db",
+                                 "[SENSe]:CORRection:GAIN[2-2][:INPut][:MAGNitude]", "float",
+                                 0.0, minimum=-100.0, maximum=100.0))
+        self.add_setting(Setting("offset_on", "[SENSe]:CORRection:GAIN[2-2]:STATe", "bool",
+                                 False))
+        if reading_offset_db:
+            self.put_value("offset_db", float(reading_offset_db), _GAIN2)
+            self.put_value("offset_on", True, _GAIN2)
         self._register_measure()
         self.add_command("CALibration:ZERO:STATe", query=self._zero_state)
 
@@ -127,7 +141,9 @@ class PowerMeter(ScpiInstrument):
                 + self.zero_offset_mw
             )
             reading_mw = max(abs(reading_mw), 0.01 * floor_mw)
-            return 10.0 * math.log10(reading_mw) + self.reading_offset_db
+            offset = (float(self.value("offset_db", _GAIN2)) if self.value("offset_on", _GAIN2)
+                      else 0.0)
+            return 10.0 * math.log10(reading_mw) + offset
 
     def cal_factor_residual_db(self, freq_hz: float) -> float:
         """What the sensor's calibration factor at ``freq_hz`` leaves uncorrected, dB: a
