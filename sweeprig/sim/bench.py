@@ -120,6 +120,8 @@ def build_sim_instruments(
     left = desc.analyzer.left_set  # what a previous user left set (a planted fault)
     analyzer.put_value("ref_offset_db", float(left.ref_level_offset))
     analyzer.put_value("corrections_on", bool(left.corrections))
+    analyzer.put_value("trace_mode", {"write": "WRITE", "view": "VIEW", "maxhold": "MAXHOLD",
+                                      "minhold": "MINHOLD"}[left.trace_mode])
     meter_class = (FarrowmerePowerMeter if desc.power_meter.family == "farrowmere"
                    else PowerMeter)
     meter = meter_class(clock, sense=world.sensed_power_dbm, seed=desc.seed + 1,

@@ -351,10 +351,12 @@ class PhaseNoisePointSpec(Frozen):
 
 class AnalyzerLeftSetSpec(Frozen):
     """What a previous user left set on the analyzer: a reference level offset (every level
-    it shows is the input's plus it) and amplitude corrections (their state only)."""
+    it shows is the input's plus it), amplitude corrections (their state only) and the
+    trace's mode (``view``: frozen)."""
 
     ref_level_offset: LevelDb = 0.0
     corrections: StrictBool = False
+    trace_mode: Literal["write", "view", "maxhold", "minhold"] = "write"
 
 
 class AnalyzerSpec(Frozen):

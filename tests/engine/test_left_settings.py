@@ -109,3 +109,31 @@ def test_a_power_meter_left_with_a_display_offset_refuses_the_calibration(
     message = caught.value.message()
     assert "role 'pm'" in message and "display offset on" in message, message
     assert not (tmp_path / "cal.toml").exists()
+
+
+@pytest.mark.parametrize("family", ["tarnwick", "farrowmere"])
+def test_a_trace_left_frozen_is_written_again(tmp_path: Path, family: str) -> None:
+    # sweeprig owns the trace it reads: its profiles' prepare sets it written by every sweep.
+    # Left frozen (VIEW), every gain read the first sweep's level (12.56 dB at every RF
+    # frequency on the simulated bench), and the LO-to-IF isolation read a trace tuned to
+    # the IF: 78 dB, "in the noise".
+    from tests.engine.sim_run import run_on_sim
+
+    sequence = small_sequence("""[[study]]
+name = "gain"
+rf_frequency = ["1.8 GHz", "2.0 GHz", "2.2 GHz", "2.4 GHz"]
+rf_power = "-35 dBm"
+lo_power = "0 dBm"
+read = ["wanted", "lo_at_if"]
+""")
+    head = f'part = "kx-2417"\nseed = 7\n[analyzer]\nfamily = "{family}"\n'
+    frozen = run_on_sim(tmp_path, sequence, name="frozen",
+                        description=head + 'left_set = { trace_mode = "view" }\n')
+    clean = run_on_sim(tmp_path, sequence, name="clean", description=head)
+
+    def figures(done):
+        return [(f.name, f.points, f.value, f.flags) for f in done.run.figures
+                if f.name in ("conversion_gain", "lo_if_isolation")]
+
+    assert figures(frozen) == figures(clean)
+    assert len({v for n, _p, v, _f in figures(clean) if n == "conversion_gain"}) == 4

@@ -13,6 +13,8 @@ from sweeprig.instruments import make_driver
 from sweeprig.instruments.profile import load_profile
 from sweeprig.transport import FakeTransport
 
+DRIVERS = Path(__file__).resolve().parents[2] / "drivers"
+
 CHILD = """\
 [profile]
 name = "tw-sa9"
@@ -60,7 +62,11 @@ def test_extends_overrides_only_what_differs(tmp_path: Path) -> None:
 def test_inherited_limit_names_the_file_it_comes_from(tmp_path: Path) -> None:
     profile = load_profile(_write(tmp_path, "tw-sa9", CHILD))
     assert profile.op("rbw").min_place is not None
-    assert profile.op("rbw").min_place.endswith("scpi-analyzer.toml:40")
+    # the line of [ops.rbw]'s min in the base profile
+    lines = (DRIVERS / "scpi-analyzer.toml").read_text(encoding="utf-8").splitlines()
+    start = lines.index("[ops.rbw]")
+    line = next(k for k in range(start, len(lines)) if lines[k].startswith("min = ")) + 1
+    assert profile.op("rbw").min_place.endswith(f"scpi-analyzer.toml:{line}")
     assert profile.op("rbw").max_line == 15 and profile.op("rbw").max_place is None
 
 

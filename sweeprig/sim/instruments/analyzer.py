@@ -274,6 +274,11 @@ class SpectrumAnalyzer(ScpiInstrument):
                     "float", default=0.0, minimum=-200.0, maximum=200.0))
         add(Setting("corrections_on", "[SENSe]:CORRection:CSET[:STATe]", "bool",
                     default=False))
+        # The trace's mode (SCPI-99 DISPlay:TRACe:MODE, from memory): WRITe, each sweep
+        # writes it; VIEW, it is frozen (a sweep changes nothing read from it). MAXHold and
+        # MINHold are taken and kept, but sweep as WRITe here (not modelled).
+        add(Setting("trace_mode", "DISPlay[:WINDow]:TRACe:MODE", "enum", default="WRITe",
+                    choices=("WRITe", "VIEW", "MAXHold", "MINHold")))
         add(Setting("att_db", d.attenuation, "float", default=AUTO_ATT_MIN_DB,
                     unit="level_db", minimum=0.0, maximum=ATT_MAX_DB, coerce=round_attenuation,
                     on_change=self._att_changed))
@@ -368,7 +373,8 @@ class SpectrumAnalyzer(ScpiInstrument):
     def _initiate(self, cmd: Command) -> None:
         cmd.no_params()
         settings = self.sweep_settings()
-        self.sweep_now()
+        if not self._frozen():
+            self.sweep_now()
         self.start_operation(self.dialect.sweep_time_scale * total_sweep_time_s(settings),
                              operation_bit=OPER_SWEEPING)
 
@@ -379,13 +385,18 @@ class SpectrumAnalyzer(ScpiInstrument):
         last = self._last
         if last is None:
             return self.sweep_now()
-        if self.value("continuous"):
+        if self.value("continuous") and not self._frozen():
             age = self.clock.now() - self._last_time_s
             settings = self.sweep_settings()
             if age >= self.dialect.sweep_time_scale * last.sweep_time_s or \
                     (self._last_settings is not settings and self._last_settings != settings):
                 return self.sweep_now()
         return last
+
+    def _frozen(self) -> bool:
+        """Whether its trace is frozen (mode VIEW: the last sweep's, whatever is swept)."""
+        return str(self.value("trace_mode")).upper().startswith("VIEW") \
+            and self._last is not None
 
     def _marker_x(self, cmd: Command) -> None:
         param = cmd.one()
