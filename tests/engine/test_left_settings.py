@@ -54,9 +54,14 @@ def _run(tmp_path: Path, left: str = ""):
      ["role 'rf'", "frequency offset of 1e+06 Hz", "SOUR:FREQ:OFFS?"]),
     ('[sources.left_set]\nrf = { modulation = true }\n',
      ["role 'rf'", "modulation on", "OUTP:MOD:STAT?", "switch it off"]),
+    # an analyzer's reference level offset moves every level it reports
+    ('[analyzer.left_set]\nref_level_offset = "10 dB"\n',
+     ["role 'sa'", "ref level offset of 10 dB", "DISP:WIND:TRAC:Y:SCAL:RLEV:OFFS?"]),
+    ("[analyzer.left_set]\ncorrections = true\n",
+     ["role 'sa'", "corrections on", "SENS:CORR:CSET:STAT?"]),
 ])
-def test_a_source_left_set_by_an_earlier_user_is_refused(tmp_path: Path, left: str,
-                                                        fragments: list[str]) -> None:
+def test_an_instrument_left_set_by_an_earlier_user_is_refused(tmp_path: Path, left: str,
+                                                             fragments: list[str]) -> None:
     with pytest.raises(InstrumentError) as caught:
         _run(tmp_path, left)
     message = caught.value.message()
@@ -74,22 +79,6 @@ def test_a_source_set_as_sweeprig_needs_it_runs(tmp_path: Path) -> None:
     neutral = ('[sources.left_set]\nlo = { power_offset = "0 dB", frequency_offset = "0 Hz", '
                'modulation = false }\n')
     assert _run(tmp_path, neutral).status == "complete"
-
-
-@pytest.mark.parametrize(("left", "fragments"), [
-    ("[analyzer.left_set]\nref_level_offset = \"10 dB\"\n",
-     ["role 'sa'", "ref level offset of 10 dB", "DISP:WIND:TRAC:Y:SCAL:RLEV:OFFS?"]),
-    ("[analyzer.left_set]\ncorrections = true\n",
-     ["role 'sa'", "corrections on", "SENS:CORR:CSET:STAT?"]),
-])
-def test_an_analyzer_left_set_by_an_earlier_user_is_refused(tmp_path: Path, left: str,
-                                                           fragments: list[str]) -> None:
-    # a reference level offset moves every level it reports: every gain by as much
-    with pytest.raises(InstrumentError) as caught:
-        _run(tmp_path, left)
-    message = caught.value.message()
-    for fragment in fragments:
-        assert fragment in message, (fragment, message)
 
 
 def test_a_power_meter_left_with_a_display_offset_refuses_the_calibration(
