@@ -38,10 +38,14 @@ class AnalyzerDriver(Driver):
     left_setting_ops = ("ref_level_offset", "corrections")
 
     def prepare(self) -> None:
-        """The profile's ``prepare`` commands, then single-sweep mode (one message where the
-        profile allows compound messages)."""
+        """The profile's ``prepare`` commands, then the sample (log envelope) detector where
+        the profile sets detectors (the noise floor of every reading is estimated for it; an
+        earlier user's peak or power detector would bias it), then single-sweep mode (one
+        message where the profile allows compound messages)."""
         with self.joined():
             super().prepare()
+            if self.profile.has("detector"):
+                self.set_value("detector", "sample", force=True)
             self.single_sweep_mode()
             self.enable_status()
 

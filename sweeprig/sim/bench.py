@@ -122,6 +122,8 @@ def build_sim_instruments(
     analyzer.put_value("corrections_on", bool(left.corrections))
     analyzer.put_value("trace_mode", {"write": "WRITE", "view": "VIEW", "maxhold": "MAXHOLD",
                                       "minhold": "MINHOLD"}[left.trace_mode])
+    if left.detector == "rms":
+        analyzer.put_value("detector", analyzer.dialect.power_detector.upper())
     meter_class = (FarrowmerePowerMeter if desc.power_meter.family == "farrowmere"
                    else PowerMeter)
     meter = meter_class(clock, sense=world.sensed_power_dbm, seed=desc.seed + 1,

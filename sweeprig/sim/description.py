@@ -351,12 +351,14 @@ class PhaseNoisePointSpec(Frozen):
 
 class AnalyzerLeftSetSpec(Frozen):
     """What a previous user left set on the analyzer: a reference level offset (every level
-    it shows is the input's plus it), amplitude corrections (their state only) and the
-    trace's mode (``view``: frozen)."""
+    it shows is the input's plus it), amplitude corrections (their state only), the
+    trace's mode (``view``: frozen) and its detector."""
 
     ref_level_offset: LevelDb = 0.0
     corrections: StrictBool = False
     trace_mode: Literal["write", "view", "maxhold", "minhold"] = "write"
+    #: Its trace detector (``rms``: the power detector).
+    detector: Literal["sample", "rms"] = "sample"
 
 
 class AnalyzerSpec(Frozen):

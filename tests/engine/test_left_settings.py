@@ -126,3 +126,32 @@ read = ["wanted", "lo_at_if"]
 
     assert figures(frozen) == figures(clean)
     assert len({v for n, _p, v, _f in figures(clean) if n == "conversion_gain"}) == 4
+
+
+@pytest.mark.parametrize("family", ["tarnwick", "farrowmere"])
+def test_a_detector_left_on_power_is_set_back_to_sample(tmp_path: Path, family: str) -> None:
+    # every reading's noise floor is estimated for the sample (log envelope) detector: one an
+    # earlier user left on the power detector (or a peak one) is set back at prepare
+    from sweeprig.clock import VirtualClock
+    from sweeprig.engine.connect import open_bench
+    from sweeprig.engine.session import served_bench_text
+    from sweeprig.formats.bench import load_bench
+    from sweeprig.sim.bench import resolve_description, start_sim_bench
+
+    desc = resolve_description(None)
+    analyzer = desc.analyzer.model_copy(update={
+        "family": family, "left_set": desc.analyzer.left_set.model_copy(
+            update={"detector": "rms"})})
+    desc = desc.model_copy(update={"analyzer": analyzer})
+    with start_sim_bench(desc, clock=VirtualClock()) as sim:
+        sa = sim.instruments["sa"]
+        assert sa.value("detector") != "SAMPLE"  # as left
+        bench_file = tmp_path / "bench.toml"
+        bench_file.write_text(served_bench_text(dict(sim.resources), desc), encoding="utf-8")
+        drivers = open_bench(load_bench(bench_file), {"sa": "readings"}, clock=sim.clock)
+        try:
+            drivers.sa.prepare()  # type: ignore[union-attr]
+            drivers.sa.check_errors()  # a reply: every message before it has been handled
+            assert sa.value("detector") == "SAMPLE"
+        finally:
+            drivers.close()
