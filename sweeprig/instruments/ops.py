@@ -208,6 +208,8 @@ KIND_OPS: dict[str, dict[str, OpSpec]] = {
             OpSpec("zeroed", "query", "the sensor's last zeroing succeeded (flag)",
                    reply="bool", required=False),
             # what a previous user may have left set: read at connect, refused when on
+            OpSpec("duty_cycle", "query", "a duty-cycle correction raising every reading to a "
+                   "pulse power (flag)", reply="int", required=False, default_mask=1),
             OpSpec("display_offset", "query", "a display offset added to every reading (flag)",
                    reply="int", required=False, default_mask=1),
         )

@@ -15,7 +15,7 @@ class PowerMeterDriver(Driver):
     kind = "powermeter"
     #: What a previous user may have left set that moves every reading (read once, at
     #: connect): a display offset would go into every calibration it makes.
-    left_setting_ops = ("display_offset",)
+    left_setting_ops = ("display_offset", "duty_cycle")
 
     def set_frequency(self, freq_hz: float) -> bool:
         """Frequency for the sensor's calibration factor, Hz."""

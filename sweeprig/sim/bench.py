@@ -132,7 +132,8 @@ def build_sim_instruments(
                        zero_offset_dbm=desc.power_meter.zero_offset,
                        zero_holds=desc.power_meter.zero_holds,
                        range_max_dbm=desc.power_meter.range_max,
-                       reading_offset_db=desc.power_meter.offset)
+                       reading_offset_db=desc.power_meter.offset,
+                       duty_cycle_percent=desc.power_meter.duty_cycle)
     world.connect(rf=sources["rf"], rf2=sources["rf2"], lo=sources["lo"], supply=supply,
                   chamber=chamber, switch=switch, ns_supply=ns_supply,
                   ns_output=lambda: analyzer.noise_output_on)

@@ -416,6 +416,9 @@ class PowerMeterSpec(Frozen):
     range_max: Power = 20.0
     #: A display offset left set in the meter: added to every reading.
     offset: LevelDb = 0.0
+    #: A duty-cycle correction left on in the meter, percent (absent: off): every reading
+    #: is raised by 10·log10(100 / duty), as for a pulsed signal's average power.
+    duty_cycle: Annotated[float, Field(gt=0.0, le=100.0)] | None = None
     #: Its command set: "tarnwick" (TW-PM18) or "farrowmere" (FR-PM4: refuses readings until
     #: zeroed; docs/instruments.md).
     family: Literal["tarnwick", "farrowmere"] = "tarnwick"

@@ -81,22 +81,27 @@ def test_a_source_set_as_sweeprig_needs_it_runs(tmp_path: Path) -> None:
     assert _run(tmp_path, neutral).status == "complete"
 
 
-def test_a_power_meter_left_with_a_display_offset_refuses_the_calibration(
-        tmp_path: Path) -> None:
-    # a 3 dB display offset left on would go into every path loss the calibration measures
-    # (and so into every level of every run calibrated with it): refused before any RF
+@pytest.mark.parametrize(("left", "fragment"), [
+    ('offset = "3 dB"', "display offset on"),
+    ("duty_cycle = 50.0", "duty cycle on"),  # every reading 3 dB high
+])
+def test_a_power_meter_left_set_refuses_the_calibration(tmp_path: Path, left: str,
+                                                        fragment: str) -> None:
+    # a 3 dB display offset or a 50 % duty-cycle correction left on goes into every path loss
+    # the calibration measures: without the check it passed, its RF path loss 0.05 dB for a
+    # true 3.05 dB, so every run calibrated with it drives the part 3 dB under what it
+    # records. Refused before any RF
     from sweeprig.engine.calibrate import calibrate_sources
     from sweeprig.engine.session import shipped_sequences_dir
 
     described = tmp_path / "sim-bench.toml"
-    described.write_text('part = "kx-2417"\n[power_meter]\noffset = "3 dB"\n',
-                         encoding="utf-8")
+    described.write_text(f'part = "kx-2417"\n[power_meter]\n{left}\n', encoding="utf-8")
     with pytest.raises(InstrumentError) as caught:
         calibrate_sources(shipped_sequences_dir() / "demo" / "quick.toml", None,
                           tmp_path / "cal.toml", sim=True, repeats=1,
                           sim_description=described)
     message = caught.value.message()
-    assert "role 'pm'" in message and "display offset on" in message, message
+    assert "role 'pm'" in message and fragment in message, message
     assert not (tmp_path / "cal.toml").exists()
 
 

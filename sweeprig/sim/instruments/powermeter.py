@@ -84,6 +84,7 @@ class PowerMeter(ScpiInstrument):
         zero_holds: bool = True,
         range_max_dbm: float = RANGE_MAX_DBM,
         reading_offset_db: float = 0.0,
+        duty_cycle_percent: float | None = None,
     ) -> None:
         super().__init__(clock, Identity(self.maker, self.model, serial, "1.0"))
         self.sense = sense
@@ -112,6 +113,16 @@ class PowerMeter(ScpiInstrument):
         if reading_offset_db:
             self.put_value("offset_db", float(reading_offset_db), _GAIN2)
             self.put_value("offset_on", True, _GAIN2)
+        # A duty-cycle correction (SCPI-99's SENSe:CORRection:DCYCle, from memory): while on,
+        # every reading is the pulse power of a signal of that duty cycle, the average power
+        # raised by 10·log10(100 / duty); power-on and *RST: off, 1 %.
+        self.add_setting(Setting("duty_cycle_percent", "[SENSe]:CORRection:DCYCle[:INPut]",
+                                 "float", 1.0, minimum=0.001, maximum=100.0))
+        self.add_setting(Setting("duty_cycle_on", "[SENSe]:CORRection:DCYCle:STATe", "bool",
+                                 False))
+        if duty_cycle_percent is not None:
+            self.put_value("duty_cycle_percent", float(duty_cycle_percent))
+            self.put_value("duty_cycle_on", True)
         self._register_measure()
         self.add_command("CALibration:ZERO:STATe", query=self._zero_state)
 
@@ -143,6 +154,8 @@ class PowerMeter(ScpiInstrument):
             reading_mw = max(abs(reading_mw), 0.01 * floor_mw)
             offset = (float(self.value("offset_db", _GAIN2)) if self.value("offset_on", _GAIN2)
                       else 0.0)
+            if self.value("duty_cycle_on"):
+                offset += 10.0 * math.log10(100.0 / float(self.value("duty_cycle_percent")))
             return 10.0 * math.log10(reading_mw) + offset
 
     def cal_factor_residual_db(self, freq_hz: float) -> float:
