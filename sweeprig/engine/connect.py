@@ -112,8 +112,14 @@ def open_bench(
     clock: Clock | None = None,
     on_transaction: Callable[[str, Transaction], None] | None = None,
     lock: BenchLock | None = None,
+    check_ready: bool = True,
 ) -> BenchDrivers:
     """Connect and identify the instruments the run needs.
+
+    ``check_ready``: refuse a bench that is not fit to measure on (an output protection
+    tripped, a setting an earlier user left: :func:`_refuse_tripped`,
+    :func:`_refuse_left_settings`). Off only for ``sweeprig safe``, which must switch such a
+    bench off above all.
 
     ``roles``: role → why it is needed (from the sequence); only these are opened (plus
     ``simctl`` when ``resources`` has it). ``resources`` overrides the bench file's resource
@@ -174,8 +180,9 @@ def open_bench(
             bench, dict(drivers.items()), clock if clock is not None else WallClock())
         for _role, driver in drivers.items():  # the flags read after every point, tried once
             drivers.companion_notes += driver.check_companions()
-        _refuse_tripped(drivers)
-        _refuse_left_settings(drivers)
+        if check_ready:
+            _refuse_tripped(drivers)
+            _refuse_left_settings(drivers)
     except BaseException:
         drivers.close()
         raise

@@ -394,8 +394,11 @@ def make_bench_safe(bench: Bench, *, resources: dict[str, str] | None = None,
             for role in roles:
                 resource = resources.get(role, bench.role(role).resource)  # type: ignore[union-attr]
                 try:
+                    # never refused for what would refuse a run (a tripped output, a setting
+                    # left): this is what switches such a bench off
                     opened = open_bench(bench, {role: "safe state"}, resources={
-                        k: v for k, v in resources.items() if k == role}, lock=lock)
+                        k: v for k, v in resources.items() if k == role}, lock=lock,
+                        check_ready=False)
                 except BenchBusy:
                     raise  # a live run holds this instrument under another name
                 except Exception as exc:

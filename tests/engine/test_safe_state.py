@@ -291,6 +291,22 @@ def test_safe_command_verifies_by_read_back(tmp_path, private_lock_dir):
     assert look["rf"] == look["lo"] == look["dc"] == "0"
 
 
+def test_safe_command_switches_off_a_bench_a_run_would_refuse(tmp_path, private_lock_dir):
+    # what refuses a run (a setting an earlier user left, an output protection tripped) must
+    # never keep `sweeprig safe` from switching the rest off: RF left on with modulation on,
+    # the supply's protection tripped
+    with served() as sim:
+        bench = bench_file(sim, tmp_path)
+        _switch_on(sim)
+        sim.instruments["lo"].put_value("modulation_on", True)
+        sim.instruments["dc"].trip_protection()  # type: ignore[attr-defined]
+        done = run_cli("safe", "--bench", bench)
+        look = outside_look(sim)
+    assert done.returncode == 0, done.stdout + done.stderr
+    assert "verified by read-back" in done.stdout
+    assert look["rf"] == look["lo"] == look["dc"] == "0"
+
+
 def test_safe_command_never_claims_what_it_did_not_verify(tmp_path, private_lock_dir):
     with served(FaultSpec(role="rf", kind="swallow", match=OFF),
                 FaultSpec(role="chamber", kind="freeze", match="THER:", max_count=1)) as sim:
