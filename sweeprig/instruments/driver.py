@@ -893,26 +893,22 @@ class Driver:
         self.companions_at_connect = {}
         for query in list(self._companion_queries(joined=False)):
             names = [n for n in self._companions() if self.profile.op(n).queries[0] == query]
-            problem = ""
-            try:
+
+            def answers(query: str = query, names: list[str] = names) -> dict[str, Any]:
                 reply = self.query(query)
-                for name in names:
-                    self.companions_at_connect[name] = self._joined_value(
-                        self.profile.op(name), reply, query)
-            except (InstrumentError, TransportError) as exc:
-                problem = str(exc).splitlines()[0]
-            found = self.errors()
-            if found and not problem:
-                problem = "; ".join(str(e) for e in found)
+                return {n: self._joined_value(self.profile.op(n), reply, query) for n in names}
+
+            values, problem = self._tried_at_connect(answers)
             if problem:
                 self._dropped_companions.update(names)
                 self._companion_plan = None
-                notes.append((
-                    f"role {self.role!r}: {query} failed at connect ({problem}), so "
+                notes.append(self._left_out_note(
+                    query, problem, names,
                     f"{' and '.join(names)} {'is' if len(names) == 1 else 'are'} not read "
-                    "after each point: those flags cannot be raised for it this run; give it "
-                    f"a profile without ops.{names[0]} (check it with `sweeprig probe`) to "
-                    "silence this", {"role": self.role, "query": query, "left_out": names}))
+                    "after each point: those flags cannot be raised for it this run",
+                    hint=" (check it with `sweeprig probe`)"))
+            else:
+                self.companions_at_connect.update(values)
         return notes
 
     #: Operations (plain queries) reading settings sweeprig does not own that a previous user
@@ -931,18 +927,10 @@ class Driver:
                 continue
             operation = self.profile.op(name)
             query, what = operation.queries[0], name.replace("_", " ")
-            refused = ""
-            try:
-                value = self.ask(name)
-            except (InstrumentError, TransportError) as exc:
-                value, refused = None, str(exc).splitlines()[0]
-            errors = "; ".join(str(e) for e in self.errors())  # drained either way
-            refused = refused or errors
+            value, refused = self._tried_at_connect(lambda name=name: self.ask(name))
             if refused:
-                notes.append((f"role {self.role!r}: {query} failed at connect ({refused}), so "
-                              f"its {what} is not checked; give it a profile without "
-                              f"ops.{name} to silence this",
-                              {"role": self.role, "query": query, "left_out": [name]}))
+                notes.append(self._left_out_note(query, refused, [name],
+                                                 f"its {what} is not checked"))
             elif isinstance(value, bool) or operation.spec.reply == "int":
                 if value:
                     found.append(f"{what} on ({query}): switch it off at the instrument")
@@ -953,6 +941,26 @@ class Driver:
                              "instrument, and calibrate again if the calibration was made "
                              "with it set")
         return found, notes
+
+    def _tried_at_connect(self, ask: Callable[[], Any]) -> tuple[Any, str]:
+        """``ask()`` once, at connect: (its answer, "") or (None, what went wrong: the first
+        line of what it raised, else the errors it left in the queue, drained either way)."""
+        value, problem = None, ""
+        try:
+            value = ask()
+        except (InstrumentError, TransportError) as exc:
+            problem = str(exc).splitlines()[0]
+        errors = "; ".join(str(e) for e in self.errors())
+        problem = problem or errors
+        return (None if problem else value), problem
+
+    def _left_out_note(self, query: str, problem: str, names: list[str], consequence: str,
+                       *, hint: str = "") -> tuple[str, dict[str, Any]]:
+        """The warning (and its details: ``role``, ``query``, ``left_out``) for a query the
+        instrument refused at connect, left out for the run with ``names``."""
+        return (f"role {self.role!r}: {query} failed at connect ({problem}), so {consequence}; "
+                f"give it a profile without ops.{names[0]}{hint} to silence this",
+                {"role": self.role, "query": query, "left_out": names})
 
     def plain_query(self, name: str) -> bool:
         """True when the profile has operation ``name`` as a plain single query (no
