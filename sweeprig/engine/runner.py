@@ -334,11 +334,11 @@ class Runner:
         """Raise :class:`OutputTripped` when an instrument of ``read`` says its output
         protection tripped: its output went off on its own (the held point may have been
         read with it off, so it is not stored)."""
-        for role, driver in self.d.items():
-            if driver.status_seen.get("output_tripped") and any(d is driver for d in read):
+        for driver in read:
+            if driver.status_seen.get("output_tripped"):
                 held = self._held[3].point.index if self._held is not None else None
                 raise OutputTripped(
-                    f"role {role!r} tripped its output protection"
+                    f"role {driver.role!r} tripped its output protection"
                     + (f" during or after point {held}" if held is not None else "")
                     + ": its output went off on its own (a supply's over-voltage or "
                     "over-current protection, a generator's reverse-power protection); the "

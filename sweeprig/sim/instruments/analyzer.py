@@ -395,8 +395,7 @@ class SpectrumAnalyzer(ScpiInstrument):
 
     def _frozen(self) -> bool:
         """Whether its trace is frozen (mode VIEW: the last sweep's, whatever is swept)."""
-        return str(self.value("trace_mode")).upper().startswith("VIEW") \
-            and self._last is not None
+        return self.value("trace_mode") == "VIEW" and self._last is not None
 
     def _marker_x(self, cmd: Command) -> None:
         param = cmd.one()
