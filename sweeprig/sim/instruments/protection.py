@@ -16,7 +16,7 @@ from __future__ import annotations
 
 from collections.abc import Callable
 
-from sweeprig.sim.scpi import Command, ScpiError, ScpiInstrument
+from sweeprig.sim.scpi import Command, ScpiError, ScpiInstrument, Setting
 
 
 class OutputProtection:
@@ -62,3 +62,26 @@ class OutputProtection:
     def _clear(self, cmd: Command) -> None:
         cmd.no_params()
         self.tripped = False
+
+
+class ProtectedOutputInstrument(ScpiInstrument):
+    """An instrument with one output (``OUTPut[:STATe]``, setting ``output_on``) behind an
+    :class:`OutputProtection`: a planted ``trip`` fault trips it, a power cycle clears it."""
+
+    protection: OutputProtection
+
+    def _add_protected_output(self, then: Callable[[object], None] | None = None) -> None:
+        """Register the output's on/off setting (power-on: off), guarded by its protection;
+        ``then``: the setting's own ``on_change``."""
+        self.protection = OutputProtection()
+        self.protection.install(self)
+        self.add_setting(Setting("output_on", "OUTPut[:STATe]", "bool", False,
+                                 on_change=self.protection.guard(then)))
+
+    def reset_to_power_on(self) -> None:
+        super().reset_to_power_on()
+        self.protection.power_cycled()
+
+    def trip_protection(self) -> None:
+        """Its protection trips (:meth:`OutputProtection.trip`)."""
+        self.protection.trip()

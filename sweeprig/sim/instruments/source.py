@@ -24,9 +24,9 @@ import math
 from collections.abc import Callable, Sequence
 
 from sweeprig.clock import Clock
-from sweeprig.sim.instruments.protection import OutputProtection
+from sweeprig.sim.instruments.protection import ProtectedOutputInstrument
 from sweeprig.sim.instruments.reference import ReferenceOscillator
-from sweeprig.sim.scpi import Identity, ScpiInstrument, Setting
+from sweeprig.sim.scpi import Identity, Setting
 
 FREQ_MIN_HZ = 9e3
 FREQ_MAX_HZ = 6e9
@@ -85,7 +85,7 @@ def no_level_error_db(freq_hz: float) -> float:
     return 0.0
 
 
-class SignalSource(ScpiInstrument):
+class SignalSource(ProtectedOutputInstrument):
     """TW-SG6 CW signal source. Power-on: 1 GHz, −30 dBm, output OFF.
 
     A subclass serving another command set (another family) names its own ``maker``,
@@ -126,11 +126,8 @@ class SignalSource(ScpiInstrument):
             on_change=self._settle,
             caution="caution: check the DUT's maximum input level before raising it",
         ))
-        #: Its reverse-power protection (tripped only by a planted ``trip`` fault).
-        self.protection = OutputProtection()
-        self.protection.install(self)
-        self.add_setting(Setting("output_on", "OUTPut[:STATe]", "bool", False,
-                                 on_change=self.protection.guard(self._settle)))
+        # its output, behind its reverse-power protection (tripped only by a planted fault)
+        self._add_protected_output(self._settle)
         self.add_setting(Setting("power_offset_db", "[SOURce]:POWer[:LEVel][:IMMediate]:OFFSet",
                                  "float", 0.0, minimum=-100.0, maximum=100.0,
                                  on_change=self._settle))
@@ -138,14 +135,6 @@ class SignalSource(ScpiInstrument):
                                  unit="frequency", minimum=-FREQ_MAX_HZ, maximum=FREQ_MAX_HZ,
                                  on_change=self._settle))
         self.add_setting(Setting("modulation_on", "OUTPut:MODulation[:STATe]", "bool", False))
-
-    def reset_to_power_on(self) -> None:
-        super().reset_to_power_on()
-        self.protection.power_cycled()
-
-    def trip_protection(self) -> None:
-        """Its reverse-power protection trips (:meth:`OutputProtection.trip`)."""
-        self.protection.trip()
 
     def _settle(self, _value: object) -> None:
         self.start_operation(SETTLE_S)

@@ -12,8 +12,8 @@ from __future__ import annotations
 from collections.abc import Callable
 
 from sweeprig.clock import Clock
-from sweeprig.sim.instruments.protection import OutputProtection
-from sweeprig.sim.scpi import Command, Identity, ScpiInstrument, Setting, format_number
+from sweeprig.sim.instruments.protection import ProtectedOutputInstrument
+from sweeprig.sim.scpi import Command, Identity, Setting, format_number
 
 VOLTAGE_MAX_V = 30.0
 CURRENT_MAX_A = 3.0
@@ -27,7 +27,7 @@ def _open_circuit(_volts: float) -> float:
     return 0.0
 
 
-class DcSupply(ScpiInstrument):
+class DcSupply(ProtectedOutputInstrument):
     """TW-PS30 supply. Power-on: 0 V, 0.1 A limit, output OFF."""
 
     def __init__(
@@ -48,22 +48,11 @@ class DcSupply(ScpiInstrument):
             "current_limit_a", "[SOURce]:CURRent[:LEVel][:IMMediate][:AMPLitude]", "float",
             CURRENT_DEFAULT_A, unit="current", minimum=0.0, maximum=CURRENT_MAX_A,
         ))
-        #: Its over-voltage/over-current protection (tripped only by a planted ``trip``
-        #: fault).
-        self.protection = OutputProtection()
-        self.protection.install(self)
-        self.add_setting(Setting("output_on", "OUTPut[:STATe]", "bool", False,
-                                 on_change=self.protection.guard()))
+        # its output, behind its over-voltage/over-current protection (tripped only by a
+        # planted fault)
+        self._add_protected_output()
         self.add_command("MEASure[:SCALar]:VOLTage[:DC]", query=self._measure_voltage)
         self.add_command("MEASure[:SCALar]:CURRent[:DC]", query=self._measure_current)
-
-    def reset_to_power_on(self) -> None:
-        super().reset_to_power_on()
-        self.protection.power_cycled()
-
-    def trip_protection(self) -> None:
-        """Its over-voltage or over-current protection trips (:meth:`OutputProtection.trip`)."""
-        self.protection.trip()
 
     def operating_point(self) -> tuple[float, float, bool]:
         """(terminal voltage V, current A, in current limit) right now.
