@@ -115,7 +115,8 @@ class PowerMeter(ScpiInstrument):
             self.put_value("offset_on", True, _GAIN2)
         # A duty-cycle correction (SCPI-99's SENSe:CORRection:DCYCle, from memory): while on,
         # every reading is the pulse power of a signal of that duty cycle, the average power
-        # raised by 10·log10(100 / duty); power-on and *RST: off, 1 %.
+        # raised by 10·log10(100 / duty) (a rectangular pulse train's pulse power from its
+        # average: standard result); power-on and *RST: off, 1 %.
         self.add_setting(Setting("duty_cycle_percent", "[SENSe]:CORRection:DCYCle[:INPut]",
                                  "float", 1.0, minimum=0.001, maximum=100.0))
         self.add_setting(Setting("duty_cycle_on", "[SENSe]:CORRection:DCYCle:STATe", "bool",
