@@ -52,22 +52,25 @@ def write_report(run: RunFigures, folder: Path | str,
     from sweeprig.report.plots import all_plots
     from sweeprig.report.tables import (
         make_folder,
+        start_tables,
         summary_rows,
         write_figures_json,
-        write_tables,
     )
 
     out = make_folder(Path(folder))
     budgets = figure_budgets(run)
-    tables = write_tables(run, out, budgets=budgets)
-    summary = summary_rows(run)
-    # the figure table (figures.csv) is written by write_tables, with the same budgets
-    figures = write_figures_json(run, out / "figures.json", budgets=budgets,
-                                 rows_written=True, summary=summary)
-    del budgets  # a large run's budget columns: not held while the plots are drawn
-    page = write_html(out / "report.html", run, summary,
-                      all_plots(run) if plots is None else plots)
-    return ReportFiles(out, page, figures, tuple(tables),
+    # a large run's tables are written by a helper process on the other core while the
+    # rest of the report is made here (sweeprig.report.table_writing)
+    with start_tables(run, out, budgets=budgets) as tables:
+        summary = summary_rows(run)
+        # the figure table (figures.csv) is written with the tables, with the same budgets
+        figures = write_figures_json(run, out / "figures.json", budgets=budgets,
+                                     rows_written=True, summary=summary)
+        del budgets  # the tables' own reference is let go with their last slice
+        page = write_html(out / "report.html", run, summary,
+                          all_plots(run) if plots is None else plots)
+        tables.finish()
+    return ReportFiles(out, page, figures, tuple(tables.paths()),
                        (out / BUDGETS_FILE, out / BUDGET_TERMS_FILE))
 
 

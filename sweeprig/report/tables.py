@@ -27,7 +27,7 @@ from dataclasses import dataclass
 from datetime import UTC, datetime
 from pathlib import Path
 from types import MappingProxyType
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
@@ -62,6 +62,9 @@ from sweeprig.report.budget_tables import (
     read_budget_tables,
 )
 from sweeprig.units import format_frequency
+
+if TYPE_CHECKING:
+    from sweeprig.report.table_writing import TableWriting
 
 #: Figures shown in the summary, in this order (every other figure is in the JSON and the
 #: tables; a figure with a limit is always shown).
@@ -851,7 +854,7 @@ def figures_frame(run: RunFigures, budgets: FigureBudgets | None = None) -> pd.D
 
 
 #: Figures per slice of the figure table when it is written (bounds the rows held at once).
-FIGURE_SLICE_ROWS = 50_000
+FIGURE_SLICE_ROWS = 20_000
 
 
 def figure_frames(run: RunFigures, budgets: FigureBudgets | None = None,
@@ -937,84 +940,58 @@ def write_tables(
     budgets: FigureBudgets | None = None,
 ) -> list[Path]:
     """Write ``captures`` and ``figures`` as CSV and/or Parquet into ``folder`` (by default
-    :data:`TABLE_FORMATS`, Parquet left out when pyarrow, the ``parquet`` extra, is missing).
-    ``budgets``: the run's :func:`figure_budgets`, when the caller has them (the figure
-    table's ``budget`` numbers refer to them)."""
+    :data:`TABLE_FORMATS`, Parquet left out when pyarrow, the ``parquet`` extra, is missing)
+    and return their paths. ``budgets``: the run's :func:`figure_budgets`, when the caller
+    has them (the figure table's ``budget`` numbers refer to them)."""
+    with start_tables(run, folder, formats, budgets=budgets) as writing:
+        writing.finish()
+    return writing.paths()
+
+
+def start_tables(
+    run: RunFigures, folder: Path, formats: Sequence[str] | None = None, *,
+    budgets: FigureBudgets | None = None, helper: bool | None = None,
+) -> TableWriting:
+    """The tables of :func:`write_tables`, as a context manager: written at once for a small
+    run, else by a helper process on the other core while the caller goes on (``helper``:
+    force one way; None: by the run's size, :data:`~sweeprig.report.table_writing.HELPER_ROWS`).
+    Call ``finish()`` inside the block; ``paths()`` are the files."""
     from sweeprig.parquet import parquet_available, require_parquet
-    from sweeprig.report.csv_table import write_frame_csv
+    from sweeprig.report.table_writing import (
+        CAPTURE_SLICE_ROWS,
+        HELPER_ROWS,
+        TableJob,
+        TableWriting,
+    )
 
     if formats is None:
         formats = [f for f in TABLE_FORMATS if f != "parquet" or parquet_available()]
     elif "parquet" in formats:
         require_parquet(str(folder))
-    written: list[Path] = []
     for fmt in formats:
-        path = folder / f"captures.{fmt}"
-        try:
-            if fmt == "csv":
-                write_frame_csv(run.captures, path)
-            elif fmt == "parquet":
-                run.captures.to_parquet(path, index=False, engine="pyarrow")
-            else:
-                raise ValueError(fmt)
-        except OSError as exc:
-            raise _write_error(path, exc) from None
-        written.append(path)
+        if fmt not in TABLE_FORMATS:
+            raise ValueError(fmt)
     if budgets is None:
         budgets = figure_budgets(run)
-    paths = {fmt: folder / f"figures.{fmt}" for fmt in formats}
-    if not paths:
-        return written
-    try:
-        with collector_paused(), _FigureTableWriters(paths) as writers:
-            for frame in figure_frames(run, budgets):
-                writers.write(frame)
-    except OSError as exc:
-        raise _write_error(next(iter(paths.values())), exc) from None
-    written += paths.values()
-    return written
+    captures = run.captures
+    schema = None
+    if "parquet" in formats:
+        import pyarrow as pa
 
-
-class _FigureTableWriters:
-    """The figure table written slice by slice to CSV and/or Parquet (one row group a
-    slice; the column types are fixed by the first slice: :func:`figure_frames` keeps them)."""
-
-    def __init__(self, paths: Mapping[str, Path]) -> None:
-        self.paths = paths
-        self._csv_file: Any = None
-        self._header = True
-        self._parquet: Any = None
-
-    def __enter__(self) -> _FigureTableWriters:
-        if "csv" in self.paths:
-            self._csv_file = self.paths["csv"].open("w", encoding="utf-8", newline="")
-        return self
-
-    def write(self, frame: pd.DataFrame) -> None:
-        from sweeprig.report.csv_table import write_frame_rows
-
-        if self._csv_file is not None:
-            write_frame_rows(self._csv_file, frame, header=self._header)
-            self._header = False
-        if "parquet" in self.paths:
-            import pyarrow as pa
-            import pyarrow.parquet as pq
-
-            frame = frame.assign(**{name: pd.array(frame[name].tolist(), dtype="Int64")
-                                    for name in BUDGET_INTEGER_COLUMNS})
-            if self._parquet is None:
-                table = pa.Table.from_pandas(frame, preserve_index=False)
-                self._parquet = pq.ParquetWriter(self.paths["parquet"], table.schema)
-            else:
-                table = pa.Table.from_pandas(frame, preserve_index=False,
-                                             schema=self._parquet.schema)
-            self._parquet.write_table(table)
-
-    def __exit__(self, *exc: object) -> None:
-        if self._csv_file is not None:
-            self._csv_file.close()
-        if self._parquet is not None:
-            self._parquet.close()
+        # from the whole table: a slice whose cells are all empty would not say the type
+        schema = pa.Schema.from_pandas(captures, preserve_index=False)
+    _ = run.figure_conditions  # made here, before a thread reads it
+    step = CAPTURE_SLICE_ROWS
+    jobs = [
+        TableJob({fmt: folder / f"captures.{fmt}" for fmt in formats},
+                 (captures.iloc[i:i + step] for i in range(0, max(len(captures), 1), step)),
+                 schema),
+        TableJob({fmt: folder / f"figures.{fmt}" for fmt in formats},
+                 figure_frames(run, budgets), integer_columns=BUDGET_INTEGER_COLUMNS),
+    ] if formats else []
+    if helper is None:
+        helper = len(captures) + len(run.figures) >= HELPER_ROWS
+    return TableWriting(jobs, helper=helper, where=folder)
 
 
 def make_folder(folder: Path, *, what: str = "report folder", option: str = "--out") -> Path:
@@ -1039,9 +1016,7 @@ def write_text_file(path: Path, text: str) -> None:
 
 
 def _write_error(path: Path, exc: OSError) -> StoreError:
-    return StoreError(
-        f"cannot write the report file: {exc.strerror or exc}",
-        where=str(path),
-        fix="check the folder's permissions and free space, or give another one with --out",
-    )
+    from sweeprig.report.table_writing import write_error
+
+    return write_error(path, exc)
 

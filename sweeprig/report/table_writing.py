@@ -1,0 +1,362 @@
+"""The report's two big tables (captures and figures, as CSV and/or Parquet), written slice
+by slice, and for a large run by a helper process on the other core.
+
+A large run's tables are most of its report's time: at 100k points the text of
+``captures.csv`` and ``figures.csv`` (about 280 MB) and their Parquet files take about half
+of the files' processor time, one interpreter formatting millions of cells. The figure
+table's slices have to be made where the figures are, but turning them into text and
+writing them does not: :class:`TableWriting` hands each slice (numpy columns, pickled
+through a pipe) to a helper process (:func:`serve`, a fresh interpreter: nothing of this
+process is shared or copied), while this process goes on with the summary, the JSON, the
+plots and the page. The slices are made and sent by a thread of this process, which waits
+whenever the helper is behind (the pipe is full), so at most a slice or two is in flight
+and the figures' own work interleaves with the rest of the report.
+
+Small runs (under :data:`HELPER_ROWS` rows in both tables) are written here, at once:
+starting an interpreter would cost more than it saves. Both ways write the same slices
+through the same :class:`TableSink`, so the files are the same byte for byte
+(``tests/report/test_table_writing.py``).
+
+Failures name the file: a write the helper could not make comes back as the same
+:class:`~sweeprig.errors.StoreError` as one made here; a helper that ends without
+answering (killed, out of memory) is named with its exit code and its last words; an
+error of this process (or Ctrl-C) stops the helper, which is never left running.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import os
+import pickle
+import subprocess
+import sys
+import tempfile
+import threading
+from collections.abc import Iterator, Mapping, Sequence
+from dataclasses import dataclass
+from pathlib import Path
+from typing import IO, Any
+
+import pandas as pd
+
+from sweeprig.errors import StoreError
+
+#: Rows of both tables together from which a helper process writes them (below it the
+#: tables are written in this process: the helper's start, about a second of imports on
+#: its core, would not pay).
+HELPER_ROWS = 200_000
+#: Capture rows per slice (the figure table's: ``FIGURE_SLICE_ROWS`` in tables.py).
+CAPTURE_SLICE_ROWS = 50_000
+
+#: The formats the helper writes (the rest are written by the thread that feeds it).
+HELPER_FORMATS: tuple[str, ...] = ("csv",)
+#: The helper's program: :func:`serve` of this module.
+_HELPER_CODE = "from sweeprig.report.table_writing import serve; serve()"
+
+
+@dataclass(frozen=True)
+class TableJob:
+    """One table to write: ``paths`` per format ("csv", "parquet"), its slices in order,
+    the Arrow ``schema`` of its Parquet file (None: the first slice's), and the columns
+    holding whole numbers or nothing (Parquet: nullable integers)."""
+
+    paths: Mapping[str, Path]
+    slices: Iterator[pd.DataFrame]
+    schema: Any = None
+    integer_columns: tuple[str, ...] = ()
+
+
+class TableSink:
+    """One table written slice by slice to CSV and/or Parquet: the CSV header before the
+    first slice, one Parquet row group a slice (its column types fixed by ``schema``, else
+    by the first slice: the slices must keep them)."""
+
+    def __init__(self, paths: Mapping[str, Path], schema: Any = None,
+                 integer_columns: Sequence[str] = ()) -> None:
+        self.paths = dict(paths)
+        self.schema = schema
+        self.integer_columns = tuple(integer_columns)
+        self._csv_file: IO[str] | None = None
+        self._header = True
+        self._parquet: Any = None
+        self.current: Path | None = None  # the file being written (for messages)
+        if "csv" in self.paths:
+            self.current = self.paths["csv"]
+            self._csv_file = self.paths["csv"].open("w", encoding="utf-8", newline="")
+
+    def write(self, frame: pd.DataFrame) -> None:
+        from sweeprig.report.csv_table import write_frame_rows
+
+        if self._csv_file is not None:
+            self.current = self.paths["csv"]
+            write_frame_rows(self._csv_file, frame, header=self._header)
+            self._header = False
+        if "parquet" in self.paths:
+            import pyarrow as pa
+            import pyarrow.parquet as pq
+
+            self.current = self.paths["parquet"]
+            if self.integer_columns:
+                frame = frame.assign(**{name: pd.array(frame[name].tolist(), dtype="Int64")
+                                        for name in self.integer_columns})
+            if self._parquet is None:
+                table = pa.Table.from_pandas(frame, preserve_index=False, schema=self.schema)
+                self._parquet = pq.ParquetWriter(self.paths["parquet"], table.schema)
+            else:
+                table = pa.Table.from_pandas(frame, preserve_index=False,
+                                             schema=self._parquet.schema)
+            self._parquet.write_table(table)
+
+    def close(self) -> None:
+        """Close the files (a table with no slice still gets its CSV file, empty)."""
+        try:
+            if self._csv_file is not None:
+                self.current = self.paths["csv"]
+                self._csv_file.close()
+        finally:
+            if self._parquet is not None:
+                self.current = self.paths["parquet"]
+                self._parquet.close()
+
+
+def write_error(path: Path, exc: OSError) -> StoreError:
+    """The error of a report file that could not be written (here or by the helper)."""
+    return StoreError(
+        f"cannot write the report file: {exc.strerror or exc}",
+        where=str(path),
+        fix="check the folder's permissions and free space, or give another one with --out",
+    )
+
+
+def write_job(job: TableJob, slices: Iterator[pd.DataFrame] | None = None) -> None:
+    """Write one table here (its ``slices``, or those given instead); a
+    :class:`~sweeprig.errors.StoreError` naming the file that could not be written (an
+    error of the slices themselves propagates as it is)."""
+    first = next(iter(job.paths.values()), None)
+    try:
+        sink = TableSink(job.paths, job.schema, job.integer_columns)
+    except OSError as exc:
+        raise write_error(first or Path("?"), exc) from None
+    try:
+        for frame in job.slices if slices is None else slices:
+            try:
+                sink.write(frame)
+            except OSError as exc:
+                raise write_error(sink.current or first or Path("?"), exc) from None
+    except BaseException:
+        _close_quietly(sink)
+        raise
+    try:
+        sink.close()
+    except OSError as exc:
+        raise write_error(sink.current or first or Path("?"), exc) from None
+
+
+def _close_quietly(sink: TableSink) -> None:
+    with contextlib.suppress(OSError):  # the first failure is the one to name
+        sink.close()
+
+
+class TableWriting:
+    """Tables being written: here at once (``helper`` False), or by a helper process fed
+    by a thread of this process (``helper`` True). Use as a context manager; :meth:`finish`
+    waits for the last file and raises :class:`~sweeprig.errors.StoreError` for a file
+    that could not be written or a helper that ended without finishing; leaving the block
+    early (an error, Ctrl-C) stops the helper."""
+
+    def __init__(self, jobs: Sequence[TableJob], *, helper: bool, where: Path) -> None:
+        self.jobs = list(jobs)
+        # (no format for the helper, or no interpreter to start: written here)
+        self.helper = helper and bool(sys.executable) and any(
+            fmt in HELPER_FORMATS for job in self.jobs for fmt in job.paths)
+        self.where = where
+        self._process: subprocess.Popen[bytes] | None = None
+        self._stderr: IO[bytes] | None = None
+        self._thread: threading.Thread | None = None
+        self._failure: BaseException | None = None
+        self._stop = threading.Event()
+        self._finished = False
+        #: The helper's peak resident memory, MB (None: written here, or not known).
+        self.helper_peak_mb: float | None = None
+
+    def paths(self) -> list[Path]:
+        """Every file of every table, in order."""
+        return [path for job in self.jobs for path in job.paths.values()]
+
+    def __enter__(self) -> TableWriting:
+        if not self.helper:
+            for job in self.jobs:
+                write_job(job)
+            return self
+        self._stderr = tempfile.TemporaryFile()
+        env = dict(os.environ)
+        # the helper imports this very sweeprig, wherever this process found it
+        root = str(Path(__file__).resolve().parents[2])
+        env["PYTHONPATH"] = os.pathsep.join(p for p in (root, env.get("PYTHONPATH")) if p)
+        self._process = subprocess.Popen(
+            [sys.executable, "-c", _HELPER_CODE], stdin=subprocess.PIPE,
+            stdout=subprocess.PIPE, stderr=self._stderr, env=env)
+        self._thread = threading.Thread(target=self._feed, name="sweeprig-tables",
+                                        daemon=True)
+        self._thread.start()
+        return self
+
+    def _feed(self) -> None:
+        """The thread: every job's slices, in order, pickled into the helper's input for
+        its CSV text (:data:`HELPER_FORMATS`), and written here in the other formats
+        (Parquet: Arrow encodes and compresses outside the interpreter lock, so this
+        process' other work goes on meanwhile; the helper, with the text of every cell,
+        has the larger share either way)."""
+        from sweeprig.analysis.figures import collector_paused
+
+        assert self._process is not None and self._process.stdin is not None
+        pipe = self._process.stdin
+        try:
+            with collector_paused():  # the slices are many small acyclic objects
+                for job in self.jobs:
+                    remote = {k: str(p) for k, p in job.paths.items() if k in HELPER_FORMATS}
+                    here = TableJob({k: p for k, p in job.paths.items()
+                                     if k not in HELPER_FORMATS}, iter(()), job.schema,
+                                    job.integer_columns)
+                    _send(pipe, ("open", remote, None, ()))
+                    write_job(here, self._sent_first(pipe, job.slices))
+                    _send(pipe, ("close",))
+                _send(pipe, ("end",))
+        except BaseException as exc:  # handed to finish(): a thread cannot raise to it
+            self._failure = exc
+        finally:
+            with contextlib.suppress(OSError):  # (a helper gone: said by finish)
+                pipe.close()
+
+    def _sent_first(self, pipe: IO[bytes], slices: Iterator[pd.DataFrame]
+                    ) -> Iterator[pd.DataFrame]:
+        """``slices``, each sent to the helper before it is given on (the helper formats
+        it while this process writes its other formats)."""
+        for frame in slices:
+            if self._stop.is_set():
+                return
+            _send(pipe, ("rows", frame))
+            yield frame
+
+    def finish(self) -> None:
+        """Wait until every table is written; raise what went wrong."""
+        if not self.helper or self._finished:
+            return
+        self._finished = True
+        assert self._process is not None and self._thread is not None
+        self._thread.join()
+        process = self._process
+        assert process.stdout is not None
+        try:
+            reply = pickle.load(process.stdout)
+        except (EOFError, pickle.UnpicklingError, OSError):
+            reply = None
+        process.stdout.close()
+        code = process.wait()
+        failure = self._failure
+        if failure is not None and not isinstance(failure, BrokenPipeError):
+            raise failure  # this process' own error (the helper was told to stop)
+        if not isinstance(reply, tuple) or not reply:
+            reply = ("ended", f"exit code {code}{self._last_words()}")
+        if reply[0] == "done":
+            self.helper_peak_mb = reply[1]
+            return
+        if reply[0] == "oserror":
+            _, path, errno, text = reply
+            raise write_error(Path(path), OSError(errno, text))
+        raise StoreError(
+            f"the helper process writing the report's tables stopped before it had "
+            f"written them ({reply[1]})", where=str(self.where),
+            fix="run the report again; if it stops again, see the message above, and check "
+                "the machine's free memory")
+
+    def _last_words(self) -> str:
+        if self._stderr is None:
+            return ""
+        self._stderr.seek(0)
+        lines = [x for x in self._stderr.read().decode("utf-8", "replace").splitlines()
+                 if x.strip()]
+        return f": {lines[-1].strip()}" if lines else ""
+
+    def __exit__(self, kind: type[BaseException] | None, *rest: object) -> None:
+        try:
+            if kind is not None and self.helper and not self._finished:
+                self._finished = True
+                self._stop.set()
+                if self._process is not None:
+                    self._process.kill()  # the thread's blocked write then fails at once
+                if self._thread is not None:
+                    self._thread.join()
+                if self._process is not None:
+                    if self._process.stdout is not None:
+                        self._process.stdout.close()
+                    self._process.wait()
+        finally:
+            if self._stderr is not None:
+                self._stderr.close()
+
+
+def _send(pipe: IO[bytes], message: tuple[Any, ...]) -> None:
+    pickle.dump(message, pipe, protocol=pickle.HIGHEST_PROTOCOL)
+    pipe.flush()
+
+
+def serve(source: IO[bytes] | None = None, reply: IO[bytes] | None = None) -> None:
+    """The helper: read the messages of :class:`TableWriting` from ``source`` (standard
+    input) and write the tables; then answer once on ``reply`` (standard output):
+    ``("done", peak MB)``, ``("oserror", path, errno, text)`` for the first file that could
+    not be written (the messages after it are read and dropped, so the sender never
+    waits on a full pipe), or ``("error", text)``."""
+    source = source or sys.stdin.buffer
+    reply = reply or sys.stdout.buffer
+    sink: TableSink | None = None
+    answer: tuple[Any, ...] | None = None
+    while True:
+        try:
+            message = pickle.load(source)
+        except EOFError:
+            answer = answer or ("error", "the report process stopped sending")
+            break
+        kind = message[0]
+        if kind == "end":
+            break
+        if answer is not None:
+            continue  # failed already: drain
+        try:
+            if kind == "open":
+                _, paths, schema, integers = message
+                sink = TableSink({k: Path(p) for k, p in paths.items()}, schema, integers)
+            elif kind == "rows" and sink is not None:
+                sink.write(message[1])
+            elif kind == "close" and sink is not None:
+                sink.close()  # (on failure it still names the file being closed)
+                sink = None
+            else:
+                answer = ("error", f"unexpected message {kind!r}")
+        except OSError as exc:
+            path = sink.current if sink is not None and sink.current is not None else (
+                Path(next(iter(message[1].values()))) if kind == "open" else Path("?"))
+            answer = ("oserror", str(path), exc.errno, exc.strerror or str(exc))
+        except Exception as exc:  # reported to the report process, which names it
+            answer = ("error", f"{type(exc).__name__}: {exc}")
+        if answer is not None and sink is not None:
+            _close_quietly(sink)  # (closing twice is harmless)
+            sink = None
+    if sink is not None:
+        _close_quietly(sink)
+    pickle.dump(answer or ("done", _peak_mb()), reply, protocol=pickle.HIGHEST_PROTOCOL)
+    reply.flush()
+
+
+def _peak_mb() -> float | None:
+    """This process' peak resident memory, MB, from ``/proc/self/status`` (``VmHWM``:
+    this program's own; the resource module's figure of a process started by fork and
+    exec still holds its parent's); None where the system does not say."""
+    try:
+        text = Path("/proc/self/status").read_text(encoding="ascii", errors="replace")
+    except OSError:
+        return None
+    for line in text.splitlines():
+        if line.startswith("VmHWM:"):
+            return float(line.split()[1]) / 1024.0  # kB
+    return None

@@ -1,0 +1,139 @@
+"""A large run's tables are written by a helper process (its CSV text) and a thread of the
+report's process (its Parquet files) while the rest of the report is made: the files are the
+same byte for byte as when written here, a file that cannot be written is named, and a
+helper that dies or a report that fails never leaves anything running or waiting."""
+
+from __future__ import annotations
+
+import os
+import signal
+from collections.abc import Iterator
+from pathlib import Path
+
+import pandas as pd
+import pytest
+
+from sweeprig.errors import StoreError
+from sweeprig.report import table_writing, tables, write_report
+from sweeprig.report.table_writing import TableJob, TableWriting
+from sweeprig.report.tables import start_tables
+
+NAMES = ("captures.csv", "captures.parquet", "figures.csv", "figures.parquet")
+
+
+def _written(run, folder: Path, helper: bool) -> dict[str, bytes]:
+    folder.mkdir()
+    with start_tables(run, folder, helper=helper) as writing:
+        writing.finish()
+    assert [p.name for p in writing.paths()] == list(NAMES)
+    assert writing.helper is helper
+    return {name: (folder / name).read_bytes() for name in NAMES}
+
+
+def test_the_helper_writes_the_same_files_as_this_process(report_run, tmp_path, monkeypatch):
+    """Several slices of each table (small slices), through the helper and here: the same
+    bytes, CSV and Parquet."""
+    monkeypatch.setattr(tables, "FIGURE_SLICE_ROWS", 29)
+    monkeypatch.setattr(table_writing, "CAPTURE_SLICE_ROWS", 31)
+    assert len(report_run.captures) > 100 and len(report_run.figures) > 100
+    here = _written(report_run, tmp_path / "here", helper=False)
+    helped = _written(report_run, tmp_path / "helper", helper=True)
+    for name in NAMES:
+        assert helped[name] == here[name], name
+    figures = pd.read_csv(tmp_path / "helper" / "figures.csv")
+    assert len(figures) == len(report_run.figures)
+
+
+def test_a_large_run_s_report_uses_the_helper(report_run, tmp_path, monkeypatch):
+    """write_report hands the tables to the helper from HELPER_ROWS rows on, and its files
+    are those of the report written here."""
+    used: list[bool] = []
+    real = TableWriting.__enter__
+
+    def spy(self: TableWriting) -> TableWriting:
+        used.append(self.helper)
+        return real(self)
+
+    monkeypatch.setattr(TableWriting, "__enter__", spy)
+    monkeypatch.setattr(table_writing, "HELPER_ROWS", 10**9)
+    small = write_report(report_run, tmp_path / "small", plots=[])
+    monkeypatch.setattr(table_writing, "HELPER_ROWS", 1)
+    large = write_report(report_run, tmp_path / "large", plots=[])
+    assert used == [False, True]
+    for a, b in zip(small.tables, large.tables, strict=True):
+        assert a.read_bytes() == b.read_bytes(), a.name
+
+
+@pytest.mark.parametrize("blocked", ["captures.csv", "figures.csv", "figures.parquet"])
+def test_a_table_that_cannot_be_written_is_named(report_run, tmp_path, blocked):
+    """A folder in a table file's place: the helper's CSV or this process' Parquet file,
+    named in the same error as a file written here."""
+    (tmp_path / blocked).mkdir()
+    for helper in (True, False):
+        with pytest.raises(StoreError) as err, start_tables(report_run, tmp_path,
+                                                            helper=helper) as writing:
+            writing.finish()
+        assert err.value.where == str(tmp_path / blocked), (helper, err.value)
+        assert "cannot write the report file" in err.value.what
+
+
+def _frames(count: int, on_second: object = None) -> Iterator[pd.DataFrame]:
+    for i in range(count):
+        if i == 1 and callable(on_second):
+            on_second()
+        yield pd.DataFrame({"a": [float(i)] * 1000, "b": ["x"] * 1000})
+
+
+def test_a_helper_that_dies_is_said_and_nothing_waits(tmp_path):
+    """The helper killed while the tables are written: finish() says so (its exit code),
+    does not hang, and the helper is gone."""
+    writing: TableWriting | None = None
+
+    def kill() -> None:
+        assert writing is not None and writing._process is not None
+        os.kill(writing._process.pid, signal.SIGKILL)
+        writing._process.wait()
+
+    job = TableJob({"csv": tmp_path / "t.csv"}, _frames(50, on_second=kill))
+    writing = TableWriting([job], helper=True, where=tmp_path)
+    with pytest.raises(StoreError) as err, writing:
+        writing.finish()
+    assert "helper process" in err.value.what and "stopped before" in err.value.what
+    assert f"exit code -{int(signal.SIGKILL)}" in err.value.what
+    assert writing._process is not None and writing._process.poll() is not None
+
+
+def test_a_failing_report_stops_the_helper(tmp_path):
+    """An error of the report itself inside the block: the helper is stopped at once, the
+    feeding thread ends, the error is the report's own."""
+    job = TableJob({"csv": tmp_path / "t.csv"}, _frames(10_000))
+    writing = TableWriting([job], helper=True, where=tmp_path)
+    with pytest.raises(KeyError), writing:
+        raise KeyError("the report's own failure")
+    assert writing._process is not None and writing._process.poll() is not None
+    assert writing._thread is not None and not writing._thread.is_alive()
+
+
+def test_an_error_making_the_slices_is_raised_by_finish(tmp_path):
+    """A slice that cannot be made (a bug in this process): finish() raises it, and the
+    helper, told nothing more, ends."""
+    def broken() -> Iterator[pd.DataFrame]:
+        yield pd.DataFrame({"a": [1.0]})
+        raise ZeroDivisionError("a slice")
+
+    writing = TableWriting([TableJob({"csv": tmp_path / "t.csv"}, broken())], helper=True,
+                           where=tmp_path)
+    with pytest.raises(ZeroDivisionError), writing:
+        writing.finish()
+    assert writing._process is not None and writing._process.wait(timeout=30) is not None
+
+
+def test_the_helper_reports_its_own_memory(tmp_path):
+    """Its peak resident memory comes back with its answer (the report's benchmark prints
+    it beside the report process' own)."""
+    writing = TableWriting([TableJob({"csv": tmp_path / "t.csv"}, _frames(3))],
+                           helper=True, where=tmp_path)
+    with writing:
+        writing.finish()
+    assert writing.helper_peak_mb is not None and 10 < writing.helper_peak_mb < 2000
+    assert pd.read_csv(tmp_path / "t.csv").shape == (3000, 2)
