@@ -82,7 +82,14 @@ from sweeprig.formats.sequence import (
     sequence_from_dict,
 )
 from sweeprig.plan.frequencies import wanted_orders
-from sweeprig.store.base import MERGED_SEQUENCE, EventRecord, InstrumentRecord, RunFile, RunStore
+from sweeprig.store.base import (
+    MERGED_SEQUENCE,
+    EventRecord,
+    InstrumentRecord,
+    RunFile,
+    RunInfo,
+    RunStore,
+)
 
 if TYPE_CHECKING:
     import pandas as pd
@@ -190,33 +197,76 @@ def reduce_run(store: RunStore, run_id: int) -> RunFigures:
 
     Raises :class:`~sweeprig.errors.StoreError` when there is no such run; anything that only
     limits the result (an unreadable stored sequence, a study without the readings a figure
-    needs) becomes a note instead.
+    needs) becomes a note instead. The same as :func:`reduce_loaded` of :func:`load_run`
+    (which a caller takes apart to use the capture table before the figures exist).
     """
+    return reduce_loaded(load_run(store, run_id))
+
+
+@dataclass
+class LoadedRun:
+    """A stored run read for its reduction (:func:`load_run`): what :func:`reduce_loaded`
+    needs of the store, the stored sequence as read (None, and a note in
+    ``sequence_notes``, when it cannot be), and the capture table, which is whole from here
+    on (the figures only read it). :func:`reduce_loaded` takes the points and readings
+    tables out of it (None afterwards): a large run's are hundreds of MB, not held while
+    its report is written."""
+
+    info: RunInfo
+    points: pd.DataFrame | None
+    readings: pd.DataFrame | None
+    events: tuple[EventRecord, ...]
+    sequence: Sequence | None
+    sequence_notes: tuple[str, ...]
+    captures: pd.DataFrame
+
+
+def load_run(store: RunStore, run_id: int) -> LoadedRun:
+    """Read run ``run_id`` of ``store`` and build its capture table; StoreError when there
+    is no such run."""
+    from sweeprig.analysis.load import captures_from_frames
+
+    with collector_paused():  # (see reduce_loaded)
+        info = store.run(run_id)
+        points = store.points_frame(run_id)
+        readings = store.readings_frame(run_id)
+        events = tuple(store.events(run_id))
+        notes: list[str] = []
+        sequence = _stored_sequence(info.sequence_text, info.sequence_path,
+                                    info.sequence_sha256, store.run_files(run_id), notes)
+        orders = None
+        if sequence is not None:
+            orders = wanted_orders(sequence.mixing.conversion, sequence.mixing.lo_side)
+        captures = captures_from_frames(points, readings, wanted_orders=orders)
+    return LoadedRun(info, points, readings, events, sequence, tuple(notes), captures)
+
+
+def reduce_loaded(loaded: LoadedRun) -> RunFigures:
+    """:func:`reduce_run` of a run read already (:func:`load_run`); takes its points and
+    readings tables out of ``loaded`` (see :class:`LoadedRun`)."""
     # A large run makes millions of small acyclic objects (figures, conditions, budget
     # lines): the cyclic collector would rescan them all again and again.
     with collector_paused():
-        return _reduce_run(store, run_id)
+        return _reduce_loaded(loaded)
 
 
-def _reduce_run(store: RunStore, run_id: int) -> RunFigures:
+def _reduce_loaded(loaded: LoadedRun) -> RunFigures:
     from sweeprig.analysis.bench_specs import calibration_state, specs_from_bench_text
     from sweeprig.analysis.budget_groups import attach_uncertainty_in_place
     from sweeprig.analysis.direction import add_output_frequency_in_place, name_in_trade_words
-    from sweeprig.analysis.load import captures_from_frames
 
-    info = store.run(run_id)
-    points = store.points_frame(run_id)
-    readings = store.readings_frame(run_id)
-    events = tuple(store.events(run_id))
-    notes: list[str] = []
-    sequence = _stored_sequence(info.sequence_text, info.sequence_path, info.sequence_sha256,
-                                store.run_files(run_id), notes)
+    info, events, captures = loaded.info, loaded.events, loaded.captures
+    points, readings = loaded.points, loaded.readings
+    loaded.points = loaded.readings = None  # (not held past their use here)
+    if points is None or readings is None:
+        raise ValueError("this loaded run has been reduced already: load it again")
+    sequence = loaded.sequence
+    notes = list(loaded.sequence_notes)
     orders = None
     conversion = "down"
     if sequence is not None:
         conversion = sequence.mixing.conversion
         orders = wanted_orders(conversion, sequence.mixing.lo_side)
-    captures = captures_from_frames(points, readings, wanted_orders=orders)
     bench_specs = specs_from_bench_text(info.bench_text, info.bench_path or "bench file")
     from sweeprig.analysis.noise_load import noise_figure_figures  # own budgets
 

@@ -54,8 +54,7 @@ def report_command(
         "scripts and CI)")] = False,
     db: DbOption = None,
 ) -> None:
-    from sweeprig.analysis.reduce import reduce_run
-    from sweeprig.report import write_report
+    from sweeprig.report import report_stored_run
     from sweeprig.report.terminal import print_summary
     from sweeprig.store.open import open_run_store
 
@@ -64,8 +63,7 @@ def report_command(
         target = chosen_store(store, db)
         folder = out if out is not None else run_folder(target, run_id)
         with open_run_store(target, create=False) as opened:
-            run = reduce_run(opened, run_id)
-        files = write_report(run, folder)
+            run, files = report_stored_run(opened, run_id, folder)
     except SweeprigError as exc:
         raise fail(exc) from None
     print_summary(run, console)

@@ -36,6 +36,7 @@ from sweeprig.store.paths import DEFAULT_STORE_PATH, run_folder
 from sweeprig.text import escape_controls, one_line
 
 if TYPE_CHECKING:
+    from sweeprig.analysis.reduce import RunFigures
     from sweeprig.engine.runner import PointResult
     from sweeprig.engine.safe import SafeOutcome
     from sweeprig.engine.session import RunOutcome
@@ -226,18 +227,19 @@ def _report(console: term.Console, outcome: RunOutcome) -> _Made | None:
 
     A problem here is reported but does not change how the run ended.
     """
-    from sweeprig.analysis.reduce import reduce_run
     from sweeprig.lab.figures import keep_figures
-    from sweeprig.report import write_report
+    from sweeprig.report import report_stored_run
     from sweeprig.report.terminal import print_summary
 
     folder = run_folder(outcome.store_path, outcome.run_id)
+
+    def keep(reduced: RunFigures) -> None:
+        if outcome.status == "complete":  # kept for a lot report: never reduced again
+            keep_figures(db, outcome.run_id, reduced)
+
     try:
         with _open_store(outcome.store_path) as db:
-            figures = reduce_run(db, outcome.run_id)
-            if outcome.status == "complete":  # kept for a lot report: never reduced again
-                keep_figures(db, outcome.run_id, figures)
-        files = write_report(figures, folder)
+            figures, files = report_stored_run(db, outcome.run_id, folder, reduced=keep)
     except SweeprigError as exc:
         print_error(exc, prefix="report not written: ")
         return None

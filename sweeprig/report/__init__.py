@@ -13,7 +13,8 @@ columns of the figure table). The pieces:
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+import contextlib
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING
@@ -22,6 +23,8 @@ from sweeprig.analysis.reduce import RunFigures
 
 if TYPE_CHECKING:
     from sweeprig.report.plots import Plot
+    from sweeprig.report.table_writing import TableWriting
+    from sweeprig.store.base import RunStore
 
 
 @dataclass(frozen=True)
@@ -41,9 +44,12 @@ class ReportFiles:
 
 
 def write_report(run: RunFigures, folder: Path | str,
-                 plots: Sequence[Plot] | None = None) -> ReportFiles:
+                 plots: Sequence[Plot] | None = None, *,
+                 tables: TableWriting | None = None) -> ReportFiles:
     """Write the report files of ``run`` into ``folder`` (created if missing); ``plots``:
-    the run's plots when already drawn (None: drawn here).
+    the run's plots when already drawn (None: drawn here); ``tables``: the run's tables
+    begun already in that folder (:func:`~sweeprig.report.tables.open_tables`, as
+    :func:`report_stored_run` does: its capture table given, the figure table added here).
 
     Raises :class:`~sweeprig.errors.StoreError` naming the path when a file cannot be written.
     """
@@ -51,17 +57,21 @@ def write_report(run: RunFigures, folder: Path | str,
     from sweeprig.report.html import write_html
     from sweeprig.report.plots import all_plots
     from sweeprig.report.tables import (
+        add_figure_table,
         make_folder,
-        start_tables,
+        open_tables,
         summary_rows,
         write_figures_json,
     )
 
     out = make_folder(Path(folder))
     budgets = figure_budgets(run)
-    # a large run's tables are written by a helper process on the other core while the
-    # rest of the report is made here (sweeprig.report.table_writing)
-    with start_tables(run, out, budgets=budgets) as tables:
+    with contextlib.ExitStack() as stack:
+        if tables is None:
+            tables = stack.enter_context(open_tables(run.captures, out))
+        # a large run's tables are written by a helper process on the other core while the
+        # rest of the report is made here (sweeprig.report.table_writing)
+        add_figure_table(tables, run, budgets)
         summary = summary_rows(run)
         # the figure table (figures.csv) is written with the tables, with the same budgets
         figures = write_figures_json(run, out / "figures.json", budgets=budgets,
@@ -74,4 +84,27 @@ def write_report(run: RunFigures, folder: Path | str,
                        (out / BUDGETS_FILE, out / BUDGET_TERMS_FILE))
 
 
-__all__ = ["ReportFiles", "write_report"]
+def report_stored_run(store: RunStore, run_id: int, folder: Path | str, *,
+                      reduced: Callable[[RunFigures], None] | None = None
+                      ) -> tuple[RunFigures, ReportFiles]:
+    """Reduce run ``run_id`` of ``store`` and write its report into ``folder``: what
+    ``sweeprig report`` and the end of ``sweeprig run`` do. A large run's capture table is
+    written (by a helper process on the other core) while its figures are made.
+    ``reduced``: called with the figures before the files are written (the store is still
+    open). StoreError when there is no such run (nothing made) or a file cannot be written.
+    """
+    from sweeprig.analysis.reduce import load_run, reduce_loaded
+    from sweeprig.report.tables import make_folder, open_tables
+
+    loaded = load_run(store, run_id)
+    out = make_folder(Path(folder))
+    with open_tables(loaded.captures, out) as tables:
+        run = reduce_loaded(loaded)
+        del loaded
+        if reduced is not None:
+            reduced(run)
+        files = write_report(run, out, tables=tables)
+    return run, files
+
+
+__all__ = ["ReportFiles", "report_stored_run", "write_report"]

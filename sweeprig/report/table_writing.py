@@ -12,7 +12,7 @@ plots and the page. The slices are made and sent by a thread of this process, wh
 whenever the helper is behind (the pipe is full), so at most a slice or two is in flight
 and the figures' own work interleaves with the rest of the report.
 
-Small runs (under :data:`HELPER_ROWS` rows in both tables) are written here, at once:
+Small runs (under :data:`HELPER_CAPTURE_ROWS` captures) are written here, at once:
 starting an interpreter would cost more than it saves. Both ways write the same slices
 through the same :class:`TableSink`, so the files are the same byte for byte
 (``tests/report/test_table_writing.py``).
@@ -28,6 +28,7 @@ from __future__ import annotations
 import contextlib
 import os
 import pickle
+import queue
 import subprocess
 import sys
 import tempfile
@@ -41,15 +42,13 @@ import pandas as pd
 
 from sweeprig.errors import StoreError
 
-#: Rows of both tables together from which a helper process writes them (below it the
-#: tables are written in this process: the helper's start, about a second of imports on
-#: its core, would not pay).
-HELPER_ROWS = 200_000
+#: Capture rows from which a helper process writes a run's tables (a run's figures grow
+#: with its captures; below it the tables are written in this process: the helper's start,
+#: about a second of imports on its core, would not pay).
+HELPER_CAPTURE_ROWS = 100_000
 #: Capture rows per slice (the figure table's: ``FIGURE_SLICE_ROWS`` in tables.py).
 CAPTURE_SLICE_ROWS = 50_000
 
-#: The formats the helper writes (the rest are written by the thread that feeds it).
-HELPER_FORMATS: tuple[str, ...] = ("csv",)
 #: The helper's program: :func:`serve` of this module.
 _HELPER_CODE = "from sweeprig.report.table_writing import serve; serve()"
 
@@ -64,6 +63,9 @@ class TableJob:
     slices: Iterator[pd.DataFrame]
     schema: Any = None
     integer_columns: tuple[str, ...] = ()
+    #: The formats a helper process writes, when there is one (the others are written by
+    #: the thread that feeds it).
+    helper_formats: tuple[str, ...] = ("csv",)
 
 
 class TableSink:
@@ -158,18 +160,21 @@ def _close_quietly(sink: TableSink) -> None:
 
 
 class TableWriting:
-    """Tables being written: here at once (``helper`` False), or by a helper process fed
-    by a thread of this process (``helper`` True). Use as a context manager; :meth:`finish`
-    waits for the last file and raises :class:`~sweeprig.errors.StoreError` for a file
-    that could not be written or a helper that ended without finishing; leaving the block
-    early (an error, Ctrl-C) stops the helper."""
+    """Tables being written, one :class:`TableJob` after another as :meth:`add` gives
+    them: here at once (``helper`` False), or by a helper process fed by a thread of this
+    process (``helper`` True), the caller going on meanwhile. Use as a context manager;
+    :meth:`finish` waits for the last file and raises :class:`~sweeprig.errors.StoreError`
+    for a file that could not be written or a helper that ended without finishing;
+    leaving the block early (an error, Ctrl-C) stops the helper."""
 
-    def __init__(self, jobs: Sequence[TableJob], *, helper: bool, where: Path) -> None:
-        self.jobs = list(jobs)
-        # (no format for the helper, or no interpreter to start: written here)
-        self.helper = helper and bool(sys.executable) and any(
-            fmt in HELPER_FORMATS for job in self.jobs for fmt in job.paths)
+    def __init__(self, *, helper: bool, where: Path, formats: tuple[str, ...] = ()) -> None:
+        # (no interpreter to start: written here)
+        self.helper = helper and bool(sys.executable)
+        #: The folder of the tables, and the formats they are written in.
         self.where = where
+        self.formats = formats
+        self.jobs: list[TableJob] = []
+        self._queue: queue.SimpleQueue[TableJob | None] = queue.SimpleQueue()
         self._process: subprocess.Popen[bytes] | None = None
         self._stderr: IO[bytes] | None = None
         self._thread: threading.Thread | None = None
@@ -180,13 +185,11 @@ class TableWriting:
         self.helper_peak_mb: float | None = None
 
     def paths(self) -> list[Path]:
-        """Every file of every table, in order."""
+        """Every file of every table given, in order."""
         return [path for job in self.jobs for path in job.paths.values()]
 
     def __enter__(self) -> TableWriting:
         if not self.helper:
-            for job in self.jobs:
-                write_job(job)
             return self
         self._stderr = tempfile.TemporaryFile()
         env = dict(os.environ)
@@ -201,26 +204,40 @@ class TableWriting:
         self._thread.start()
         return self
 
+    def add(self, job: TableJob) -> None:
+        """Write ``job``'s table: here, now (a StoreError naming a file that could not be
+        written), or by the helper after the tables given before."""
+        if self._finished:
+            raise RuntimeError("these tables are finished already")
+        self.jobs.append(job)
+        if self.helper:
+            self._queue.put(job)
+        else:
+            write_job(job)
+
     def _feed(self) -> None:
         """The thread: every job's slices, in order, pickled into the helper's input for
-        its CSV text (:data:`HELPER_FORMATS`), and written here in the other formats
-        (Parquet: Arrow encodes and compresses outside the interpreter lock, so this
-        process' other work goes on meanwhile; the helper, with the text of every cell,
-        has the larger share either way)."""
+        the job's ``helper_formats``, the other formats written here (the figure table's
+        Parquet file: Arrow encodes and compresses outside the interpreter lock, so this
+        process' other work goes on meanwhile); then the end, once :meth:`finish` says
+        there is nothing more."""
         from sweeprig.analysis.figures import collector_paused
 
         assert self._process is not None and self._process.stdin is not None
         pipe = self._process.stdin
         try:
             with collector_paused():  # the slices are many small acyclic objects
-                for job in self.jobs:
-                    remote = {k: str(p) for k, p in job.paths.items() if k in HELPER_FORMATS}
+                while (job := self._queue.get()) is not None:
+                    remote = {k: str(p) for k, p in job.paths.items()
+                              if k in job.helper_formats}
                     here = TableJob({k: p for k, p in job.paths.items()
-                                     if k not in HELPER_FORMATS}, iter(()), job.schema,
+                                     if k not in job.helper_formats}, iter(()), job.schema,
                                     job.integer_columns)
-                    _send(pipe, ("open", remote, None, ()))
+                    _send(pipe, ("open", remote, job.schema, job.integer_columns))
                     write_job(here, self._sent_first(pipe, job.slices))
                     _send(pipe, ("close",))
+                    if self._stop.is_set():
+                        return
                 _send(pipe, ("end",))
         except BaseException as exc:  # handed to finish(): a thread cannot raise to it
             self._failure = exc
@@ -239,11 +256,13 @@ class TableWriting:
             yield frame
 
     def finish(self) -> None:
-        """Wait until every table is written; raise what went wrong."""
+        """Wait until every table given is written; raise what went wrong."""
         if not self.helper or self._finished:
+            self._finished = True
             return
         self._finished = True
         assert self._process is not None and self._thread is not None
+        self._queue.put(None)
         self._thread.join()
         process = self._process
         assert process.stdout is not None
@@ -280,9 +299,11 @@ class TableWriting:
 
     def __exit__(self, kind: type[BaseException] | None, *rest: object) -> None:
         try:
-            if kind is not None and self.helper and not self._finished:
+            if self.helper and not self._finished:
+                # an error, or a block left without finish(): stop, write nothing more
                 self._finished = True
                 self._stop.set()
+                self._queue.put(None)
                 if self._process is not None:
                     self._process.kill()  # the thread's blocked write then fails at once
                 if self._thread is not None:

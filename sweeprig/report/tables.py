@@ -19,6 +19,7 @@ conditions, flag badges and their explanations).
 
 from __future__ import annotations
 
+import contextlib
 import json
 import math
 import re
@@ -943,23 +944,25 @@ def write_tables(
     :data:`TABLE_FORMATS`, Parquet left out when pyarrow, the ``parquet`` extra, is missing)
     and return their paths. ``budgets``: the run's :func:`figure_budgets`, when the caller
     has them (the figure table's ``budget`` numbers refer to them)."""
-    with start_tables(run, folder, formats, budgets=budgets) as writing:
+    with open_tables(run.captures, folder, formats) as writing:
+        add_figure_table(writing, run, budgets)
         writing.finish()
     return writing.paths()
 
 
-def start_tables(
-    run: RunFigures, folder: Path, formats: Sequence[str] | None = None, *,
-    budgets: FigureBudgets | None = None, helper: bool | None = None,
-) -> TableWriting:
-    """The tables of :func:`write_tables`, as a context manager: written at once for a small
-    run, else by a helper process on the other core while the caller goes on (``helper``:
-    force one way; None: by the run's size, :data:`~sweeprig.report.table_writing.HELPER_ROWS`).
-    Call ``finish()`` inside the block; ``paths()`` are the files."""
+@contextlib.contextmanager
+def open_tables(captures: pd.DataFrame, folder: Path, formats: Sequence[str] | None = None,
+                  *, helper: bool | None = None) -> Iterator[TableWriting]:
+    """The tables of :func:`write_tables` being written, the capture table first (given
+    here, so it can start before the figures exist), the figure table with
+    :func:`add_figure_table`; call ``finish()`` inside the block. For a large run
+    (:data:`~sweeprig.report.table_writing.HELPER_CAPTURE_ROWS`; ``helper`` forces one way)
+    a helper process on the other core writes them while the caller goes on
+    (:mod:`sweeprig.report.table_writing`); else each is written when given."""
     from sweeprig.parquet import parquet_available, require_parquet
     from sweeprig.report.table_writing import (
         CAPTURE_SLICE_ROWS,
-        HELPER_ROWS,
+        HELPER_CAPTURE_ROWS,
         TableJob,
         TableWriting,
     )
@@ -971,27 +974,41 @@ def start_tables(
     for fmt in formats:
         if fmt not in TABLE_FORMATS:
             raise ValueError(fmt)
+    if helper is None:
+        helper = len(captures) >= HELPER_CAPTURE_ROWS
+    with TableWriting(helper=helper and bool(formats), where=folder,
+                      formats=tuple(formats)) as writing:
+        if formats:
+            schema = None
+            if "parquet" in formats:
+                import pyarrow as pa
+
+                # from the whole table: a slice whose cells are all empty would not say
+                schema = pa.Schema.from_pandas(captures, preserve_index=False)
+            # a frame of its own (the same columns) for a thread to slice while the figures
+            # are made from the other
+            own = captures.copy(deep=False)
+            step = CAPTURE_SLICE_ROWS
+            writing.add(TableJob(
+                {fmt: folder / f"captures.{fmt}" for fmt in formats},
+                (own.iloc[i:i + step] for i in range(0, max(len(own), 1), step)), schema,
+                helper_formats=TABLE_FORMATS))
+        yield writing
+
+
+def add_figure_table(writing: TableWriting, run: RunFigures,
+                     budgets: FigureBudgets | None = None) -> None:
+    """Give ``writing`` (:func:`open_tables`) the figure table of ``run`` (``budgets``: its
+    :func:`figure_budgets`, when the caller has them)."""
+    from sweeprig.report.table_writing import TableJob
+
+    if not writing.formats:
+        return
     if budgets is None:
         budgets = figure_budgets(run)
-    captures = run.captures
-    schema = None
-    if "parquet" in formats:
-        import pyarrow as pa
-
-        # from the whole table: a slice whose cells are all empty would not say the type
-        schema = pa.Schema.from_pandas(captures, preserve_index=False)
     _ = run.figure_conditions  # made here, before a thread reads it
-    step = CAPTURE_SLICE_ROWS
-    jobs = [
-        TableJob({fmt: folder / f"captures.{fmt}" for fmt in formats},
-                 (captures.iloc[i:i + step] for i in range(0, max(len(captures), 1), step)),
-                 schema),
-        TableJob({fmt: folder / f"figures.{fmt}" for fmt in formats},
-                 figure_frames(run, budgets), integer_columns=BUDGET_INTEGER_COLUMNS),
-    ] if formats else []
-    if helper is None:
-        helper = len(captures) + len(run.figures) >= HELPER_ROWS
-    return TableWriting(jobs, helper=helper, where=folder)
+    writing.add(TableJob({fmt: writing.where / f"figures.{fmt}" for fmt in writing.formats},
+                         figure_frames(run, budgets), integer_columns=BUDGET_INTEGER_COLUMNS))
 
 
 def make_folder(folder: Path, *, what: str = "report folder", option: str = "--out") -> Path:

@@ -17,13 +17,20 @@ DATA = Path(__file__).parent / "data"
 
 
 @pytest.fixture(scope="session")
-def report_run(tmp_path_factory) -> RunFigures:
+def report_store(tmp_path_factory) -> tuple[Path, int]:
+    """The store of the shared run, and its run id (tests only read it)."""
     folder = tmp_path_factory.mktemp("report-run")
     outcome = run_sequence(DATA / "report-run.toml", sim=True, store_path=folder / "runs.sqlite",
                            log_dir=folder)
     assert outcome.status == "complete", outcome.reason
-    with SqliteRunStore(folder / "runs.sqlite", create=False) as store:
-        return reduce_run(store, outcome.run_id)
+    return folder / "runs.sqlite", outcome.run_id
+
+
+@pytest.fixture(scope="session")
+def report_run(report_store) -> RunFigures:
+    path, run_id = report_store
+    with SqliteRunStore(path, create=False) as store:
+        return reduce_run(store, run_id)
 
 
 @pytest.fixture(scope="session")

@@ -16,14 +16,15 @@ import pytest
 from sweeprig.errors import StoreError
 from sweeprig.report import table_writing, tables, write_report
 from sweeprig.report.table_writing import TableJob, TableWriting
-from sweeprig.report.tables import start_tables
+from sweeprig.report.tables import add_figure_table, open_tables
 
 NAMES = ("captures.csv", "captures.parquet", "figures.csv", "figures.parquet")
 
 
 def _written(run, folder: Path, helper: bool) -> dict[str, bytes]:
     folder.mkdir()
-    with start_tables(run, folder, helper=helper) as writing:
+    with open_tables(run.captures, folder, helper=helper) as writing:
+        add_figure_table(writing, run)
         writing.finish()
     assert [p.name for p in writing.paths()] == list(NAMES)
     assert writing.helper is helper
@@ -45,8 +46,8 @@ def test_the_helper_writes_the_same_files_as_this_process(report_run, tmp_path, 
 
 
 def test_a_large_run_s_report_uses_the_helper(report_run, tmp_path, monkeypatch):
-    """write_report hands the tables to the helper from HELPER_ROWS rows on, and its files
-    are those of the report written here."""
+    """write_report hands the tables to the helper from HELPER_CAPTURE_ROWS captures on,
+    and its files are those of the report written here."""
     used: list[bool] = []
     real = TableWriting.__enter__
 
@@ -55,13 +56,59 @@ def test_a_large_run_s_report_uses_the_helper(report_run, tmp_path, monkeypatch)
         return real(self)
 
     monkeypatch.setattr(TableWriting, "__enter__", spy)
-    monkeypatch.setattr(table_writing, "HELPER_ROWS", 10**9)
+    monkeypatch.setattr(table_writing, "HELPER_CAPTURE_ROWS", 10**9)
     small = write_report(report_run, tmp_path / "small", plots=[])
-    monkeypatch.setattr(table_writing, "HELPER_ROWS", 1)
+    monkeypatch.setattr(table_writing, "HELPER_CAPTURE_ROWS", 1)
     large = write_report(report_run, tmp_path / "large", plots=[])
     assert used == [False, True]
     for a, b in zip(small.tables, large.tables, strict=True):
         assert a.read_bytes() == b.read_bytes(), a.name
+
+
+def test_a_stored_run_s_capture_table_is_begun_before_its_figures(report_store, tmp_path,
+                                                                   monkeypatch):
+    """report_stored_run gives the helper the capture table, then reduces the run, then
+    adds the figure table; the files are those of reduce_run and write_report."""
+    from sweeprig.analysis import reduce as reduce_module
+    from sweeprig.report import report_stored_run
+    from sweeprig.store.sqlite import SqliteRunStore
+
+    path, run_id = report_store
+    with SqliteRunStore(path, create=False) as store:
+        plain = write_report(reduce_module.reduce_run(store, run_id), tmp_path / "plain",
+                             plots=[])
+    order: list[str] = []
+    add, reduce_loaded = TableWriting.add, reduce_module.reduce_loaded
+
+    def add_noted(self: TableWriting, job: TableJob) -> None:
+        order.append(f"add {next(iter(job.paths.values())).stem} helper={self.helper}")
+        add(self, job)
+
+    def reduce_noted(loaded: object) -> object:
+        order.append("reduce")
+        return reduce_loaded(loaded)
+
+    monkeypatch.setattr(TableWriting, "add", add_noted)
+    monkeypatch.setattr(reduce_module, "reduce_loaded", reduce_noted)
+    monkeypatch.setattr(table_writing, "HELPER_CAPTURE_ROWS", 1)
+    monkeypatch.setattr("sweeprig.report.plots.all_plots", lambda run: [])
+    with SqliteRunStore(path, create=False) as store:
+        run, files = report_stored_run(store, run_id, tmp_path / "early")
+    assert order == ["add captures helper=True", "reduce", "add figures helper=True"]
+    assert len(run.figures) > 100
+    for a, b in zip(plain.tables, files.tables, strict=True):
+        assert a.read_bytes() == b.read_bytes(), a.name
+
+
+def test_no_such_run_makes_no_folder(report_store, tmp_path):
+    from sweeprig.report import report_stored_run
+    from sweeprig.store.sqlite import SqliteRunStore
+
+    path, _ = report_store
+    with SqliteRunStore(path, create=False) as store, pytest.raises(StoreError) as err:
+        report_stored_run(store, 999, tmp_path / "none")
+    assert "no run 999" in err.value.what
+    assert not (tmp_path / "none").exists()
 
 
 @pytest.mark.parametrize("blocked", ["captures.csv", "figures.csv", "figures.parquet"])
@@ -70,8 +117,9 @@ def test_a_table_that_cannot_be_written_is_named(report_run, tmp_path, blocked):
     named in the same error as a file written here."""
     (tmp_path / blocked).mkdir()
     for helper in (True, False):
-        with pytest.raises(StoreError) as err, start_tables(report_run, tmp_path,
-                                                            helper=helper) as writing:
+        with pytest.raises(StoreError) as err, open_tables(report_run.captures, tmp_path,
+                                                           helper=helper) as writing:
+            add_figure_table(writing, report_run)
             writing.finish()
         assert err.value.where == str(tmp_path / blocked), (helper, err.value)
         assert "cannot write the report file" in err.value.what
@@ -95,8 +143,9 @@ def test_a_helper_that_dies_is_said_and_nothing_waits(tmp_path):
         writing._process.wait()
 
     job = TableJob({"csv": tmp_path / "t.csv"}, _frames(50, on_second=kill))
-    writing = TableWriting([job], helper=True, where=tmp_path)
+    writing = TableWriting(helper=True, where=tmp_path)
     with pytest.raises(StoreError) as err, writing:
+        writing.add(job)
         writing.finish()
     assert "helper process" in err.value.what and "stopped before" in err.value.what
     assert f"exit code -{int(signal.SIGKILL)}" in err.value.what
@@ -107,8 +156,9 @@ def test_a_failing_report_stops_the_helper(tmp_path):
     """An error of the report itself inside the block: the helper is stopped at once, the
     feeding thread ends, the error is the report's own."""
     job = TableJob({"csv": tmp_path / "t.csv"}, _frames(10_000))
-    writing = TableWriting([job], helper=True, where=tmp_path)
+    writing = TableWriting(helper=True, where=tmp_path)
     with pytest.raises(KeyError), writing:
+        writing.add(job)
         raise KeyError("the report's own failure")
     assert writing._process is not None and writing._process.poll() is not None
     assert writing._thread is not None and not writing._thread.is_alive()
@@ -121,9 +171,9 @@ def test_an_error_making_the_slices_is_raised_by_finish(tmp_path):
         yield pd.DataFrame({"a": [1.0]})
         raise ZeroDivisionError("a slice")
 
-    writing = TableWriting([TableJob({"csv": tmp_path / "t.csv"}, broken())], helper=True,
-                           where=tmp_path)
+    writing = TableWriting(helper=True, where=tmp_path)
     with pytest.raises(ZeroDivisionError), writing:
+        writing.add(TableJob({"csv": tmp_path / "t.csv"}, broken()))
         writing.finish()
     assert writing._process is not None and writing._process.wait(timeout=30) is not None
 
@@ -131,9 +181,9 @@ def test_an_error_making_the_slices_is_raised_by_finish(tmp_path):
 def test_the_helper_reports_its_own_memory(tmp_path):
     """Its peak resident memory comes back with its answer (the report's benchmark prints
     it beside the report process' own)."""
-    writing = TableWriting([TableJob({"csv": tmp_path / "t.csv"}, _frames(3))],
-                           helper=True, where=tmp_path)
+    writing = TableWriting(helper=True, where=tmp_path)
     with writing:
+        writing.add(TableJob({"csv": tmp_path / "t.csv"}, _frames(3)))
         writing.finish()
     assert writing.helper_peak_mb is not None and 10 < writing.helper_peak_mb < 2000
     assert pd.read_csv(tmp_path / "t.csv").shape == (3000, 2)
