@@ -1,20 +1,22 @@
 """The report's two big tables (captures and figures, as CSV and/or Parquet), written slice
 by slice, and for a large run by a helper process on the other core.
 
-A large run's tables are most of its report's time: at 100k points the text of
-``captures.csv`` and ``figures.csv`` (about 280 MB) and their Parquet files take about half
-of the files' processor time, one interpreter formatting millions of cells. The figure
-table's slices have to be made where the figures are, but turning them into text and
-writing them does not: :class:`TableWriting` hands each slice (numpy columns, pickled
-through a pipe) to a helper process (:func:`serve`, a fresh interpreter: nothing of this
-process is shared or copied), while this process goes on with the summary, the JSON, the
-plots and the page. The slices are made and sent by a thread of this process, which waits
-whenever the helper is behind (the pipe is full), so at most a slice or two is in flight
-and the figures' own work interleaves with the rest of the report.
+A large run's tables are much of its report's time: at 100k points the text of
+``captures.csv`` and ``figures.csv`` (about 280 MB) and their Parquet files took about half
+of the files' processor time, one interpreter formatting millions of cells, while the
+machine's second core sat idle. The figure table's slices have to be made where the figures
+are, but turning them into files does not: :class:`TableWriting` hands each slice (numpy
+columns, pickled through a pipe) to a helper process (:func:`serve`, a fresh interpreter:
+nothing of this process is shared or copied), while this process goes on. The capture
+table is given first, as soon as it exists (:func:`~sweeprig.report.report_stored_run`):
+the helper writes it while the figures are still being worked out. The slices are sent by
+a thread of this process, which waits whenever the helper is behind (the pipe is full), so
+a slice or two is in flight and the figure table's own work interleaves with the rest of
+the report (summary, JSON, plots, page).
 
-Small runs (under :data:`HELPER_CAPTURE_ROWS` captures) are written here, at once:
-starting an interpreter would cost more than it saves. Both ways write the same slices
-through the same :class:`TableSink`, so the files are the same byte for byte
+Small runs (under :data:`HELPER_CAPTURE_ROWS` captures) are written here, each table as it
+is given: starting an interpreter would cost more than it saves. Both ways write the same
+slices through the same :class:`TableSink`, so the files are the same byte for byte
 (``tests/report/test_table_writing.py``).
 
 Failures name the file: a write the helper could not make comes back as the same
@@ -63,9 +65,6 @@ class TableJob:
     slices: Iterator[pd.DataFrame]
     schema: Any = None
     integer_columns: tuple[str, ...] = ()
-    #: The formats a helper process writes, when there is one (the others are written by
-    #: the thread that feeds it).
-    helper_formats: tuple[str, ...] = ("csv",)
 
 
 class TableSink:
@@ -130,17 +129,16 @@ def write_error(path: Path, exc: OSError) -> StoreError:
     )
 
 
-def write_job(job: TableJob, slices: Iterator[pd.DataFrame] | None = None) -> None:
-    """Write one table here (its ``slices``, or those given instead); a
-    :class:`~sweeprig.errors.StoreError` naming the file that could not be written (an
-    error of the slices themselves propagates as it is)."""
+def write_job(job: TableJob) -> None:
+    """Write one table here; a :class:`~sweeprig.errors.StoreError` naming the file that
+    could not be written (an error of the slices themselves propagates as it is)."""
     first = next(iter(job.paths.values()), None)
     try:
         sink = TableSink(job.paths, job.schema, job.integer_columns)
     except OSError as exc:
         raise write_error(first or Path("?"), exc) from None
     try:
-        for frame in job.slices if slices is None else slices:
+        for frame in job.slices:
             try:
                 sink.write(frame)
             except OSError as exc:
@@ -216,11 +214,9 @@ class TableWriting:
             write_job(job)
 
     def _feed(self) -> None:
-        """The thread: every job's slices, in order, pickled into the helper's input for
-        the job's ``helper_formats``, the other formats written here (the figure table's
-        Parquet file: Arrow encodes and compresses outside the interpreter lock, so this
-        process' other work goes on meanwhile); then the end, once :meth:`finish` says
-        there is nothing more."""
+        """The thread: every job's slices, in order, pickled into the helper's input; then
+        the end, once :meth:`finish` says there is nothing more. It waits whenever the
+        helper is behind (the pipe is full): a slice or two is in flight."""
         from sweeprig.analysis.figures import collector_paused
 
         assert self._process is not None and self._process.stdin is not None
@@ -228,32 +224,19 @@ class TableWriting:
         try:
             with collector_paused():  # the slices are many small acyclic objects
                 while (job := self._queue.get()) is not None:
-                    remote = {k: str(p) for k, p in job.paths.items()
-                              if k in job.helper_formats}
-                    here = TableJob({k: p for k, p in job.paths.items()
-                                     if k not in job.helper_formats}, iter(()), job.schema,
-                                    job.integer_columns)
-                    _send(pipe, ("open", remote, job.schema, job.integer_columns))
-                    write_job(here, self._sent_first(pipe, job.slices))
+                    _send(pipe, ("open", {k: str(p) for k, p in job.paths.items()},
+                                 job.schema, job.integer_columns))
+                    for frame in job.slices:
+                        if self._stop.is_set():
+                            return
+                        _send(pipe, ("rows", frame))
                     _send(pipe, ("close",))
-                    if self._stop.is_set():
-                        return
                 _send(pipe, ("end",))
         except BaseException as exc:  # handed to finish(): a thread cannot raise to it
             self._failure = exc
         finally:
             with contextlib.suppress(OSError):  # (a helper gone: said by finish)
                 pipe.close()
-
-    def _sent_first(self, pipe: IO[bytes], slices: Iterator[pd.DataFrame]
-                    ) -> Iterator[pd.DataFrame]:
-        """``slices``, each sent to the helper before it is given on (the helper formats
-        it while this process writes its other formats)."""
-        for frame in slices:
-            if self._stop.is_set():
-                return
-            _send(pipe, ("rows", frame))
-            yield frame
 
     def finish(self) -> None:
         """Wait until every table given is written; raise what went wrong."""

@@ -991,8 +991,7 @@ def open_tables(captures: pd.DataFrame, folder: Path, formats: Sequence[str] | N
             step = CAPTURE_SLICE_ROWS
             writing.add(TableJob(
                 {fmt: folder / f"captures.{fmt}" for fmt in formats},
-                (own.iloc[i:i + step] for i in range(0, max(len(own), 1), step)), schema,
-                helper_formats=TABLE_FORMATS))
+                (own.iloc[i:i + step] for i in range(0, max(len(own), 1), step)), schema))
         yield writing
 
 
