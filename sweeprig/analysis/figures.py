@@ -644,14 +644,43 @@ def flag_points(
 ) -> list[Figure]:
     """The figures, with flag ``name`` added to every one that came from any of ``points``
     (run-store point indices); the others are returned as they are."""
-    marked = frozenset(int(p) for p in points)
-    bit = _FLAG_BIT[name]
+    return flag_marked_points(figures, [(name, points)])
+
+
+def flag_marked_points(
+    figures: Iterable[Figure], marks: Sequence[tuple[str, Iterable[int]]]
+) -> list[Figure]:
+    """The figures, with each mark's flag added to every one that came from any of its
+    points ((flag name, run-store point indices) per mark); the others are returned as
+    they are. One pass however many marks: a figure flagged several times is made again
+    once."""
+    bits: dict[int, int] = {}
+    for name, points in marks:
+        bit = _FLAG_BIT[name]
+        for p in set(map(int, points)):
+            bits[p] = bits.get(p, 0) | bit
+    if not bits:
+        return list(figures)
+    get = bits.get
+    masks: dict[tuple[str, ...], int] = {}  # a flags tuple's mask (most figures share one)
     out: list[Figure] = []
+    append = out.append
     for figure in figures:
-        if marked and name not in figure.flags and not marked.isdisjoint(figure.points):
-            mask = sum(_FLAG_BIT[f] for f in figure.flags) | bit
-            figure = with_changes(figure, flags=flags_from_mask(mask))
-        out.append(figure)
+        pts = figure.points
+        if len(pts) == 1:
+            added = get(pts[0], 0)
+        else:
+            added = 0
+            for p in pts:
+                added |= get(p, 0)
+        if added:
+            flags = figure.flags
+            mask = masks.get(flags)
+            if mask is None:
+                mask = masks[flags] = sum(_FLAG_BIT[f] for f in flags)
+            if mask | added != mask:
+                figure = with_changes(figure, flags=flags_from_mask(mask | added))
+        append(figure)
     return out
 
 

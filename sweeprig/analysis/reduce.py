@@ -52,7 +52,7 @@ from sweeprig.analysis.figures import (
     UNPOWERED,
     Figure,
     collector_paused,
-    flag_points,
+    flag_marked_points,
 )
 from sweeprig.analysis.limits import INCONCLUSIVE, PASS, Assessment, Limit, Verdict, assess
 from sweeprig.analysis.roles import (
@@ -285,14 +285,15 @@ def _reduce_loaded(loaded: LoadedRun) -> RunFigures:
     # a point's state (its supply, its power) holds for every figure of the point, its noise
     # figures' too (they are made apart and added last)
     count = len(figures)
-    both = _flag_supply_limited(figures + noise_figures, captures, points, notes)
-    both = _flag_role_marks(both, points, notes)
-    both = _flag_temperature_off(both, points, temperature_tolerance_c(sequence), notes)
+    marks = _supply_limited_marks(captures, points, notes)
+    marks += _role_marks(points, notes)
+    marks += _temperature_off_marks(points, temperature_tolerance_c(sequence), notes)
     if sequence is not None:
-        both = _flag_unpowered(both, captures, sequence.part.expected_gain, notes)
+        marks += _unpowered_marks(captures, sequence.part.expected_gain, notes)
         expected_current = getattr(sequence.part, "expected_supply_current", None)
         if expected_current is not None:
-            both = _flag_supply_current(both, captures, float(expected_current), notes)
+            marks += _supply_current_marks(captures, float(expected_current), notes)
+    both = flag_marked_points(figures + noise_figures, marks)
     figures, noise_figures = both[:count], both[count:]
     del both
     notes += bench_specs.notes
@@ -548,15 +549,19 @@ def _figures(
     return figures
 
 
-def _flag_unpowered(figures: list[Figure], captures: pd.DataFrame, expected_gain_db: float,
-                    notes: list[str]) -> list[Figure]:
-    """Flag ``unpowered`` every figure that came from a point whose conversion gain was more
-    than :data:`UNPOWERED_GAIN_MARGIN_DB` below the part's expected gain, and say so."""
+#: A flag and the run-store points whose figures get it (:func:`flag_marked_points`).
+Marks = list[tuple[str, np.ndarray]]
+
+
+def _unpowered_marks(captures: pd.DataFrame, expected_gain_db: float,
+                     notes: list[str]) -> Marks:
+    """``unpowered`` for every figure that came from a point whose conversion gain was
+    more than :data:`UNPOWERED_GAIN_MARGIN_DB` below the part's expected gain, and say so."""
     from sweeprig.analysis.gain import unpowered_points
 
     points = unpowered_points(captures, expected_gain_db)
     if points.size == 0:
-        return figures
+        return []
     total = int(captures["point"].nunique())
     notes.append(
         f"{points.size} of {total} point(s) had a conversion gain more than "
@@ -565,12 +570,12 @@ def _flag_unpowered(figures: list[Figure], captures: pd.DataFrame, expected_gain
         "output, its current limit, the LO drive and the RF path: a tone that never reached "
         "the part looks the same); every figure from those points is "
         "flagged 'unpowered'")
-    return flag_points(figures, points.tolist(), UNPOWERED)
+    return [(UNPOWERED, points)]
 
 
-def _flag_supply_limited(figures: list[Figure], captures: pd.DataFrame,
-                         points: pd.DataFrame, notes: list[str]) -> list[Figure]:
-    """Flag ``supply_limited`` every figure that came from a point at which the DC supply
+def _supply_limited_marks(captures: pd.DataFrame, points: pd.DataFrame,
+                          notes: list[str]) -> Marks:
+    """``supply_limited`` for every figure that came from a point at which the DC supply
     was found in current limit or below its setting (the runner's
     :func:`~sweeprig.instruments.supply.supply_limited`: the point's ``supply_current``
     reading, or the supply's status read after the point, in the point's ``extra_json``
@@ -584,14 +589,14 @@ def _flag_supply_limited(figures: list[Figure], captures: pd.DataFrame,
                                  lambda listed: SUPPLY_LIMITED in listed))
     found = np.unique(np.concatenate(marked)).astype(np.int64)
     if found.size == 0:
-        return figures
+        return []
     notes.append(
         f"at {found.size} of {len(points)} point(s) the DC supply was in current limit or "
         "more than 2 % below its setting: the part ran below its stated supply there (check "
         "the bench's supply_max_current against the part's draw, which rises with "
         "temperature, and the supply's leads); every figure from those points is flagged "
         "'supply_limited'")
-    return flag_points(figures, found.tolist(), SUPPLY_LIMITED)
+    return [(SUPPLY_LIMITED, found)]
 
 
 def _points_marked(points: pd.DataFrame, key: str,
@@ -623,10 +628,10 @@ ROLE_MARKS: dict[str, tuple[str, str]] = {
 }
 
 
-def _flag_role_marks(figures: list[Figure], points: pd.DataFrame,
-                     notes: list[str]) -> list[Figure]:
-    """Flag every figure of a point the runner marked with one of :data:`ROLE_MARKS` (a
-    source unleveled, a reference unlocked), and say which roles."""
+def _role_marks(points: pd.DataFrame, notes: list[str]) -> Marks:
+    """A flag for every figure of a point the runner marked with one of
+    :data:`ROLE_MARKS` (a source unleveled, a reference unlocked), and say which roles."""
+    out: Marks = []
     for key, (flag, words) in ROLE_MARKS.items():
         roles: set[str] = set()
 
@@ -640,8 +645,8 @@ def _flag_role_marks(figures: list[Figure], points: pd.DataFrame,
         notes.append(f"at {found.size} of {len(points)} point(s) "
                      f"{' and '.join(repr(r) for r in sorted(roles))} {words}; every figure "
                      f"from those points is flagged '{flag}'")
-        figures = flag_points(figures, found.tolist(), flag)
-    return figures
+        out.append((flag, found))
+    return out
 
 
 def temperature_tolerance_c(sequence: Sequence | None) -> float:
@@ -664,14 +669,14 @@ def temperature_off_points(points: pd.DataFrame, tolerance_c: float) -> np.ndarr
     return points["point_index"].to_numpy(dtype=np.int64)[off]
 
 
-def _flag_temperature_off(figures: list[Figure], points: pd.DataFrame, tolerance_c: float,
-                          notes: list[str]) -> list[Figure]:
-    """Flag ``temperature_off`` every figure from a point whose DUT probe read outside the
+def _temperature_off_marks(points: pd.DataFrame, tolerance_c: float,
+                           notes: list[str]) -> Marks:
+    """``temperature_off`` for every figure from a point whose DUT probe read outside the
     tolerance of its set point (the engine soaks until it is inside, so a point outside it
     means the chamber lost hold of the part during the points), and say where."""
     found = temperature_off_points(points, tolerance_c)
     if found.size == 0:
-        return figures
+        return []
     rows = points[points["point_index"].isin(found)]
     gap = (rows["probe_temperature_c"] - rows["temperature_c"]).abs()
     worst = rows.loc[gap.idxmax()]
@@ -681,7 +686,7 @@ def _flag_temperature_off(figures: list[Figure], points: pd.DataFrame, tolerance
                  "set point, point "
                  f"{int(worst['point_index'])}): the chamber was not holding the part; every "
                  f"figure from those points is flagged '{TEMPERATURE_OFF}'")
-    return flag_points(figures, found.tolist(), TEMPERATURE_OFF)
+    return [(TEMPERATURE_OFF, found)]
 
 
 #: A status companion (the instrument operation read after every point) → the figure flag it
@@ -715,15 +720,15 @@ def _unchecked_notes(events: tuple[EventRecord, ...]) -> list[str]:
     return notes
 
 
-def _flag_supply_current(figures: list[Figure], captures: pd.DataFrame,
-                         expected_current_a: float, notes: list[str]) -> list[Figure]:
-    """Flag ``supply_current_off`` every figure that came from a point whose supply current
+def _supply_current_marks(captures: pd.DataFrame, expected_current_a: float,
+                          notes: list[str]) -> Marks:
+    """``supply_current_off`` for every figure that came from a point whose supply current
     was more than :data:`SUPPLY_CURRENT_TOLERANCE` away from the part's expected current."""
     from sweeprig.analysis.isolation import supply_current_off_points
 
     points = supply_current_off_points(captures, expected_current_a)
     if points.size == 0:
-        return figures
+        return []
     measured = int(((captures["reading"] == "supply_current")).sum())
     notes.append(
         f"{points.size} of {measured} supply current reading(s) were more than "
@@ -732,7 +737,7 @@ def _flag_supply_current(figures: list[Figure], captures: pd.DataFrame,
         "(check the supply voltage, its current limit and the part's connections, with the "
         "supply off before touching the part); every figure from those points is flagged "
         "'supply_current_off'")
-    return flag_points(figures, points.tolist(), SUPPLY_CURRENT_OFF)
+    return [(SUPPLY_CURRENT_OFF, points)]
 
 
 # ---------------------------------------------------------------------------------------------

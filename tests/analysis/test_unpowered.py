@@ -30,6 +30,38 @@ def test_gain_collapsed_counts_gains_more_than_the_margin_below_expected():
     assert gain_collapsed([-20.0, -28.0], -7.0).tolist() == [False, True]
 
 
+def test_several_marks_are_added_in_one_pass(monkeypatch: pytest.MonkeyPatch) -> None:
+    """Each mark's flag on the figures of its points, in FLAGS order; a figure marked twice
+    is made again once, a figure that has the flag already (or no marked point) is kept."""
+    from sweeprig.analysis.figures import SUPPLY_LIMITED, TEMPERATURE_OFF, flag_marked_points
+
+    a = Figure("conversion_gain", 11.0, "dB", points=(3,))
+    b = Figure("conversion_gain", 12.0, "dB", flags=(UNPOWERED,), points=(4,))
+    c = Figure("gain_flatness", 0.5, "dB", points=(2, 3, 4))
+    d = Figure("conversion_gain", 13.0, "dB", points=(9,))
+    marks = [(UNPOWERED, [4, 4]), (TEMPERATURE_OFF, np.array([3])),
+             (SUPPLY_LIMITED, (3, 4))]
+    made: list[object] = []
+    from sweeprig.analysis import figures as figures_module
+
+    real = figures_module.with_changes
+
+    def counted(figure: Figure, **changes: object) -> Figure:
+        made.append(figure)
+        return real(figure, **changes)
+
+    monkeypatch.setattr(figures_module, "with_changes", counted)
+    out = flag_marked_points([a, b, c, d], marks)
+    assert set(out[0].flags) == {TEMPERATURE_OFF, SUPPLY_LIMITED}
+    assert list(out[0].flags) == [f for f in FLAGS if f in out[0].flags]
+    assert set(out[1].flags) == {UNPOWERED, SUPPLY_LIMITED}
+    assert set(out[2].flags) == {UNPOWERED, TEMPERATURE_OFF, SUPPLY_LIMITED}
+    assert out[3] is d
+    assert made == [a, b, c]  # each made again once
+    assert flag_marked_points([b], [(UNPOWERED, [4])])[0] is b
+    assert flag_marked_points([a], [])[0] is a
+
+
 def test_the_flag_is_suspect_and_explained():
     assert UNPOWERED in FLAGS and UNPOWERED in SUSPECT_FLAGS
     badge, meaning = FLAG_HELP[UNPOWERED]

@@ -25,7 +25,7 @@ STAGES: tuple[tuple[str, str], ...] = (
     ("sweeprig.store.sql", "SqlRunStoreCore.readings_frame"),
     ("sweeprig.analysis.load", "captures_from_frames"),
     ("sweeprig.analysis.reduce", "_figures"),
-    ("sweeprig.analysis.reduce", "_flag_unpowered"),
+    ("sweeprig.analysis.reduce", "flag_marked_points"),
     ("sweeprig.analysis.direction", "output_frequency_conditions"),
     ("sweeprig.analysis.budget_groups", "grouped_budgets"),
     ("sweeprig.analysis.budget_groups", "attach_uncertainty_in_place"),
