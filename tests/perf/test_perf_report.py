@@ -65,6 +65,26 @@ pyarrow (figure table 2.3 -> 1.8 s alone, but the pool's memory raised the peak 
 and Arrow's float text needs fixing up to match ``repr``), handing freed memory back to
 the system after the readings (``malloc_trim``: 510 -> 319 MB there, then taken again by
 the figures; the peak the same).
+
+The second core (``sweeprig.report.table_writing``): each run is now what ``sweeprig report``
+does (``report_stored_run``), and a large run's tables are written by a helper process fed
+slice by slice by a thread, the capture table from the moment it exists. The peak printed
+first is the report process' own; the helper's (``VmHWM``: the resource module's figure of
+a process started by fork and exec still holds its parent's) is printed beside it, and the
+memory verdict is given on the two together. Measured on one 100k-point store, median of
+3 (load average 0.6 to 1.9 on 2 cores): 18.6 s, 848 MB before (one run); the CSV text in
+the helper, the Parquet files in the thread: 13.7 s, 936 MB + 172 MB; the capture table
+begun during the reduction: 12.2 s, 946 MB + 216 MB; the helper writing every file, the
+point flags in one pass: about 12 s. 1M points, one run each: 195.9 s, 6,736 MB before;
+149.1 s, 7,284 MB + 187 MB; 141.2 s, 7,343 MB + 226 MB. Where the report process' extra
+memory comes from (100k, the same store): the report process waiting for the figure table
+before the summary, JSON and plots: 850 MB at 14.0 s; all at once: 937 MB at 12.1 s. So
+about 90 MB is the overlap itself: the plots' own transient (the two-tone plot about 116 MB
+traced, the compression curves 76 MB, the spur chart 60 MB: plots not yet made from
+aggregated data) and the figure table's budget columns while both are alive, plus a second
+allocator arena for the thread (about 35 MB: ``MALLOC_ARENA_MAX=1`` gives 925 MB); figure
+slices of 10k rows instead of 20k save a further 17 MB. The time saved is the other core:
+the machine's total memory is the two peaks together.
 """
 
 from __future__ import annotations
