@@ -34,7 +34,7 @@ import numpy as np
 import pandas as pd
 
 from sweeprig.analysis.budget_parts import FigureBudget, SharedBudget, budget_lines
-from sweeprig.analysis.figures import collector_paused
+from sweeprig.analysis.figures import Figure, collector_paused
 from sweeprig.analysis.reduce import RunFigures
 from sweeprig.analysis.uncertainty import DIVISORS, MODELS, Contribution
 
@@ -78,14 +78,20 @@ BUDGET_INTEGER_COLUMNS: tuple[str, ...] = (
 @dataclass(frozen=True)
 class FigureBudgets:
     """A run's budgets as tables: ``terms`` every distinct line of a shared part or a
-    fitted figure's own lines, in order of first use; ``shared`` every distinct shared part
-    in order of first use, with ``shared_terms`` its lines' numbers in ``terms``;
-    ``columns`` per figure (in ``run.figures`` order) :data:`BUDGET_FIGURE_COLUMNS`."""
+    fitted figure's own lines (the shared parts' lines first, in order of first use, then
+    the fitted figures' own lines in figure order); ``shared`` every distinct shared part
+    in order of first use, with ``shared_terms`` its lines' numbers in ``terms``. The
+    figure table's budget columns are made a slice of figures at a time from ``figures``
+    (the run's, in order: :func:`budget_columns`), with ``shared_numbers`` (a shared part
+    object's ``id`` → its number) and ``own_terms`` (a fitted figure's position → its own
+    lines' numbers, space-separated): a large run's columns are never held whole."""
 
     terms: tuple[Contribution, ...]
     shared: tuple[SharedBudget, ...]
     shared_terms: tuple[tuple[int, ...], ...]
-    columns: Mapping[str, np.ndarray]
+    figures: Sequence[Figure]
+    shared_numbers: Mapping[int, int]
+    own_terms: Mapping[int, str]
 
 
 def figure_budgets(run: RunFigures) -> FigureBudgets:
@@ -100,57 +106,69 @@ def figure_budgets(run: RunFigures) -> FigureBudgets:
     def numbers(lines: Iterable[Contribution]) -> tuple[int, ...]:
         return tuple(term_numbers.setdefault(line, len(term_numbers)) for line in lines)
 
-    def shared_number(part: SharedBudget) -> int:
-        number = shared_numbers.get(part)
-        if number is None:
-            number = shared_numbers[part] = len(shared)
-            shared.append(part)
-            shared_terms.append(numbers(part.lines))
-        by_id[id(part)] = number
-        return number
-
-    count = len(run.figures)
-    nan = math.nan
-    # column by column over the figures with a budget (a large run: hundreds of thousands)
+    owners: list[tuple[int, FigureBudget]] = []  # the fitted figures with their own lines
     with collector_paused():
-        every = [f.budget for f in run.figures]
-        at = [i for i, b in enumerate(every) if b is not None]
-        budgets: list[FigureBudget] = [every[i] for i in at]  # type: ignore[misc]
-        del every
-        where = np.array(at, dtype=np.int64)
-        ids = np.full(count, None, dtype=object)
-        get = by_id.get
-        ids[where] = [n if (n := get(id(b.shared))) is not None else shared_number(b.shared)
-                      for b in budgets]
-        combined = np.full(count, nan)
-        combined[where] = [b.combined_db for b in budgets]
-        columns: dict[str, np.ndarray] = {"budget": ids, "combined_uncertainty_db": combined}
-        for k in range(NOISE_SLOTS):
-            names = _slot_names(k)
-            snr = np.full(count, nan)
-            snr[where] = [b.snr_db[k] if len(b.snr_db) > k else nan for b in budgets]
-            scatter_at = [b.scatter_snr_db[k] if len(b.scatter_snr_db) > k else nan
-                          for b in budgets]
-            scatter = np.full(count, nan)
-            scatter[where] = scatter_at
-            averages = np.full(count, None, dtype=object)
-            averages[where] = [None if s != s else b.averages[k]
-                               for b, s in zip(budgets, scatter_at, strict=True)]
-            columns[names[0]], columns[names[1]], columns[names[2]] = snr, scatter, averages
-        own = np.full(count, "", dtype=object)
-        for i, b in zip(at, budgets, strict=True):
-            if b.own_lines:
-                own[i] = " ".join(map(str, numbers(b.own_lines)))
-        columns["own_terms"] = own
-    return FigureBudgets(tuple(term_numbers), tuple(shared), tuple(shared_terms), columns)
+        for i, figure in enumerate(run.figures):
+            budget = figure.budget
+            if budget is None:
+                continue
+            part = budget.shared
+            if id(part) not in by_id:
+                number = shared_numbers.get(part)
+                if number is None:
+                    number = shared_numbers[part] = len(shared)
+                    shared.append(part)
+                    shared_terms.append(numbers(part.lines))
+                by_id[id(part)] = number
+            if budget.own_lines:
+                owners.append((i, budget))
+        own = {i: " ".join(map(str, numbers(b.own_lines))) for i, b in owners}
+    return FigureBudgets(tuple(term_numbers), tuple(shared), tuple(shared_terms),
+                         run.figures, by_id, own)
 
 
 def budget_columns(budgets: FigureBudgets, first: int = 0, stop: int | None = None
                    ) -> dict[str, np.ndarray]:
     """The figure table's budget columns (:data:`BUDGET_FIGURE_COLUMNS`, name → array) of
-    figures ``first`` to ``stop`` (the whole run by default): what the figure table takes
-    from the budgets."""
-    return {name: column[first:stop] for name, column in budgets.columns.items()}
+    figures ``first`` to ``stop`` (the whole run by default): its shared part's number, u_c,
+    per reading whose noise matters its SNR, scatter SNR and sweeps, and its own lines'
+    numbers (empty or NaN without a budget)."""
+    figures = budgets.figures[first:stop]
+    count = len(figures)
+    nan = math.nan
+    with collector_paused():
+        every = [f.budget for f in figures]
+        at = [i for i, b in enumerate(every) if b is not None]
+        inside: list[FigureBudget] = [every[i] for i in at]  # type: ignore[misc]
+        del every
+        where = np.array(at, dtype=np.int64)
+        ids = np.full(count, None, dtype=object)
+        number = budgets.shared_numbers
+        ids[where] = [number[id(b.shared)] for b in inside]
+        combined = np.full(count, nan)
+        combined[where] = [b.combined_db for b in inside]
+        columns: dict[str, np.ndarray] = {"budget": ids, "combined_uncertainty_db": combined}
+        for k in range(NOISE_SLOTS):
+            names = _slot_names(k)
+            snr = np.full(count, nan)
+            snr[where] = [b.snr_db[k] if len(b.snr_db) > k else nan for b in inside]
+            scatter_at = [b.scatter_snr_db[k] if len(b.scatter_snr_db) > k else nan
+                          for b in inside]
+            scatter = np.full(count, nan)
+            scatter[where] = scatter_at
+            averages = np.full(count, None, dtype=object)
+            averages[where] = [None if s != s else b.averages[k]
+                               for b, s in zip(inside, scatter_at, strict=True)]
+            columns[names[0]], columns[names[1]], columns[names[2]] = snr, scatter, averages
+        own = np.full(count, "", dtype=object)
+        own_terms = budgets.own_terms
+        if own_terms:
+            for i in at:
+                text = own_terms.get(first + i)
+                if text is not None:
+                    own[i] = text
+        columns["own_terms"] = own
+    return columns
 
 
 def budgets_frame(budgets: FigureBudgets) -> pd.DataFrame:
