@@ -346,6 +346,44 @@ def point_table(
     return pd.DataFrame(table)
 
 
+def point_levels(captures: pd.DataFrame, readings: Sequence[str], *,
+                 study: Sequence[str]) -> pd.DataFrame:
+    """The part of :func:`point_table` a plot of every point needs, and nothing more: one
+    row per point of ``study`` that has any of ``readings`` (sorted by point index), its
+    point index, study and conditions (:data:`CONDITION_COLUMNS`), and per reading ``r``
+    ``r_present`` and ``r_level_dbm`` (its last reading that is not an attenuation repeat,
+    as :func:`point_table` takes it; NaN when none). No flags, floors or frequencies: a
+    large run's whole point table is several times the captures it comes from, this a
+    fraction of them. ``captures``: a run's capture table (checked already)."""
+    import pandas as pd
+
+    names = list(dict.fromkeys(readings))
+    reading = captures[READING]
+    is_reading = {name: (reading == name).to_numpy(dtype=bool) for name in names}
+    wanted = np.zeros(len(captures), dtype=bool)
+    for rows in is_reading.values():
+        wanted |= rows
+    wanted &= captures[STUDY].isin(list(study)).to_numpy(dtype=bool)
+    wanted &= ~captures[ATTEN_CHECK].fillna(False).to_numpy(dtype=bool)
+    at = np.flatnonzero(wanted)
+    codes, uniques = pd.factorize(captures[POINT].to_numpy(dtype=np.int64)[at], sort=True)
+    n_points = len(uniques)
+    _, first = np.unique(codes, return_index=True)
+    table: dict[str, np.ndarray] = {POINT: np.asarray(uniques, dtype=np.int64)}
+    table[STUDY] = captures[STUDY].iloc[at[first]].to_numpy(dtype=object)
+    for col in CONDITION_COLUMNS:
+        table[col] = captures[col].to_numpy(dtype=float, na_value=np.nan)[at[first]]
+    levels = captures[LEVEL].to_numpy(dtype=float, na_value=np.nan)
+    for name in names:
+        mine = np.flatnonzero(is_reading[name][at])
+        last = _last_row_per_code(codes[mine], n_points)
+        present = last >= 0
+        take = at[mine[np.where(present, last, 0)]] if mine.size else np.zeros_like(last)
+        table[f"{name}_present"] = present
+        table[f"{name}_level_dbm"] = np.where(present, levels[take], np.nan)
+    return pd.DataFrame(table)
+
+
 def reading_flags(table: Mapping[str, np.ndarray], name: str) -> np.ndarray:
     """The flag mask of reading ``name`` at every point of a point table (see point_table).
 

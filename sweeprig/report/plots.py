@@ -26,7 +26,16 @@ from matplotlib.figure import Figure as MplFigure
 from matplotlib.lines import Line2D
 from matplotlib.ticker import MaxNLocator
 
-from sweeprig.analysis.captures import OUTPUT_FREQ, point_table
+from sweeprig.analysis.captures import (
+    ATTEN_CHECK,
+    CARRIER,
+    OUTPUT_FREQ,
+    POINT,
+    READING,
+    STUDY,
+    point_levels,
+    point_table,
+)
 from sweeprig.analysis.compression import compression_table
 from sweeprig.analysis.figures import Figure, flag_bit
 from sweeprig.analysis.gain import gain_table
@@ -418,26 +427,27 @@ _TWO_TONE_KEYS = ("study", "supply_v", "lo_power_dbm", "lo_freq_hz", "rf_freq_hz
                   "rf2_freq_hz")
 
 
-def _two_tone_points(run: RunFigures) -> tuple[list[str], pd.DataFrame]:
-    """The two-tone studies and their points with a wanted reading (made once per run: the
-    two-tone and the dBc plots both draw them)."""
-    def make() -> tuple[list[str], pd.DataFrame]:
-        studies = run.studies_with(ROLE_TWO_TONE)
-        if not studies:
-            return studies, pd.DataFrame()
-        names = ("im3_low", "im3_high", "im2_low", "im2_high")
-        table = point_table(run.captures, names, study=studies, where="two-tone plot")
-        return studies, table[table["if_present"].to_numpy()]
-    return _once_per_run(run, "two_tone_points", make)  # type: ignore[return-value]
-
-
 def _thinned_two_tone_points(run: RunFigures) -> tuple[list[str], pd.DataFrame, str]:
-    """The two-tone points at the middle input frequency (each corner keeps one)."""
-    studies, table = _two_tone_points(run)
-    if table.empty:
-        return studies, table, ""
-    table, thinned = thin_frequencies(table, keep=1)
-    return studies, table, thinned
+    """The two-tone points at the middle input frequency (each corner keeps one): the
+    frequencies are chosen from the captures' wanted readings, and only their points are
+    made into a table (a large run's whole two-tone table is several times the captures
+    it comes from)."""
+    studies = run.studies_with(ROLE_TWO_TONE)
+    captures = run.captures
+    if not studies or captures.empty:
+        return studies, pd.DataFrame(), ""
+    ours = captures[STUDY].isin(studies).to_numpy(dtype=bool)
+    # the points with a wanted reading (not the attenuation repeat), as the table has them
+    carriers = ours & (captures[READING] == CARRIER).to_numpy(dtype=bool) & \
+        ~captures[ATTEN_CHECK].to_numpy(dtype=bool)
+    keys = [c for c in ("rf_freq_hz", *CORNER_KEYS) if c in captures]
+    points = captures.loc[carriers, [POINT, *keys]].drop_duplicates(POINT, keep="last")
+    shown, thinned = thin_frequencies(points.sort_values(POINT, kind="stable"), keep=1)
+    kept = np.unique(shown["rf_freq_hz"].to_numpy(dtype=float))
+    rows = ours & captures["rf_freq_hz"].isin(kept).to_numpy(dtype=bool)
+    names = ("im3_low", "im3_high", "im2_low", "im2_high")
+    table = point_table(captures[rows], names, study=studies, where="two-tone plot")
+    return studies, table[table["if_present"].to_numpy()], thinned
 
 
 def two_tone_plot(run: RunFigures) -> Plot | None:
@@ -521,7 +531,13 @@ def intermod_dbc_plot(run: RunFigures) -> Plot | None:
     """IM3 and IM2 relative to the fundamental (dBc) versus input power per tone; one panel
     per supply and LO drive, one colour per temperature: the median over the input
     frequencies as a line, their spread (lowest to highest) shaded."""
-    studies, table = _two_tone_points(run)
+    studies = run.studies_with(ROLE_TWO_TONE)
+    if not studies or run.captures.empty:
+        return None
+    # every two-tone point, its levels alone (point_levels: the points with a wanted reading)
+    table = point_levels(run.captures, (CARRIER, "im3_low", "im3_high", "im2_low", "im2_high"),
+                         study=studies)
+    table = table[table[f"{CARRIER}_present"].to_numpy()]
     if table.empty:
         return None
     fund = table["if_level_dbm"].to_numpy(dtype=float)

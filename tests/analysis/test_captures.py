@@ -5,7 +5,13 @@ import pandas as pd
 import pytest
 
 from sweeprig.analysis import compression_figures
-from sweeprig.analysis.captures import column_arrays, has_bit, point_table
+from sweeprig.analysis.captures import (
+    CONDITION_COLUMNS,
+    column_arrays,
+    has_bit,
+    point_levels,
+    point_table,
+)
 from sweeprig.analysis.figures import ANALYZER_DISTORTION, IN_NOISE, MISSING_READING, OVERLOAD
 from sweeprig.analysis.synthetic import points_frame, reading_rows
 from sweeprig.errors import InputError
@@ -42,6 +48,36 @@ def test_later_duplicate_reading_wins():
     extra = df[(df["reading"] == "if") & (df["point"] == 0)].assign(level_dbm=-25.0)
     table = point_table(pd.concat([df, extra], ignore_index=True))
     assert table["if_level_dbm"].iloc[0] == -25.0
+
+
+def assert_point_levels_match(captures: pd.DataFrame, names: tuple[str, ...],
+                              studies: list[str]) -> None:
+    """point_levels against point_table: the same rows (those with any of ``names``),
+    conditions, presence and levels."""
+    whole = point_table(captures, names, study=studies)
+    narrow = point_levels(captures, names, study=studies)
+    any_reading = np.zeros(len(whole), dtype=bool)
+    for name in names:
+        any_reading |= whole[f"{name}_present"].to_numpy()
+    whole = whole[any_reading].reset_index(drop=True)
+    assert len(narrow) == len(whole) > 0
+    assert narrow["point"].tolist() == whole["point"].tolist()
+    assert narrow["study"].tolist() == whole["study"].tolist()
+    for col in [*CONDITION_COLUMNS, *(f"{n}_{w}" for n in names
+                                      for w in ("present", "level_dbm"))]:
+        np.testing.assert_array_equal(narrow[col].to_numpy(), whole[col].to_numpy(),
+                                      err_msg=col)
+
+
+def test_point_levels_are_the_point_table_s_levels():
+    """The narrow per-point levels a plot of every point takes: the attenuation repeats
+    left out and a later duplicate winning, as in point_table."""
+    df = _captures()
+    extra = df[(df["reading"] == "im3_low") & (df["point"] == 0)].assign(level_dbm=-91.0)
+    both = pd.concat([df, extra], ignore_index=True)
+    assert_point_levels_match(both, ("if", "im3_low", "im3_high"), ["demo"])
+    assert point_levels(both, ("im3_low",), study=["demo"])[
+        "im3_low_level_dbm"].tolist() == [-91.0, -60.0]
 
 
 def test_aliases_and_optional_columns():

@@ -285,3 +285,13 @@ def test_a_noise_figure_line_of_many_frequencies_shades_its_uncertainty(monkeypa
     line, cross = ax_f.lines
     assert line.get_marker() in ("None", "none", None, "")
     assert cross.get_marker() == "x" and len(cross.get_xdata()) == 1
+
+
+def test_a_stored_run_s_point_levels_are_its_point_table_s(report_run):
+    """point_levels (the dBc plot's every two-tone point) on a stored run's captures: the
+    rows, conditions and levels of point_table."""
+    from tests.analysis.test_captures import assert_point_levels_match
+
+    studies = sorted(set(report_run.captures["study"]))
+    assert_point_levels_match(report_run.captures,
+                              ("if", "im3_low", "im3_high", "im2_low", "lo_at_if"), studies)
