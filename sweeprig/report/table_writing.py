@@ -166,8 +166,8 @@ class TableWriting:
     leaving the block early (an error, Ctrl-C) stops the helper."""
 
     def __init__(self, *, helper: bool, where: Path, formats: tuple[str, ...] = ()) -> None:
-        # (no interpreter to start: written here)
-        self.helper = helper and bool(sys.executable)
+        # (no interpreter to start, or a frozen program that cannot run -c: written here)
+        self.helper = helper and bool(sys.executable) and not getattr(sys, "frozen", False)
         #: The folder of the tables, and the formats they are written in.
         self.where = where
         self.formats = formats
@@ -179,6 +179,9 @@ class TableWriting:
         self._failure: BaseException | None = None
         self._stop = threading.Event()
         self._finished = False
+        #: Why the tables were written by the feeding thread instead (a helper that could
+        #: not start: an interpreter that cannot run this sweeprig); None: by the helper.
+        self.helper_failed: str | None = None
         #: The helper's peak resident memory, MB (None: written here, or not known).
         self.helper_peak_mb: float | None = None
 
@@ -216,27 +219,44 @@ class TableWriting:
     def _feed(self) -> None:
         """The thread: every job's slices, in order, pickled into the helper's input; then
         the end, once :meth:`finish` says there is nothing more. It waits whenever the
-        helper is behind (the pipe is full): a slice or two is in flight."""
+        helper is behind (the pipe is full): a slice or two is in flight. A helper that
+        does not say it is ready (it could not start) is let go, and the tables are
+        written by this thread instead: slower, the same files."""
         from sweeprig.analysis.figures import collector_paused
 
-        assert self._process is not None and self._process.stdin is not None
-        pipe = self._process.stdin
+        process = self._process
+        assert process is not None and process.stdin is not None
+        assert process.stdout is not None
+        pipe = process.stdin
         try:
             with collector_paused():  # the slices are many small acyclic objects
+                if _answer(process.stdout) != ("ready",):
+                    self.helper_failed = f"exit code {process.wait()}{self._last_words()}"
+                    while (job := self._queue.get()) is not None and not self._stop.is_set():
+                        write_job(TableJob(job.paths, self._until_stopped(job.slices),
+                                           job.schema, job.integer_columns))
+                    return
                 while (job := self._queue.get()) is not None:
                     _send(pipe, ("open", {k: str(p) for k, p in job.paths.items()},
                                  job.schema, job.integer_columns))
-                    for frame in job.slices:
-                        if self._stop.is_set():
-                            return
+                    for frame in self._until_stopped(job.slices):
                         _send(pipe, ("rows", frame))
                     _send(pipe, ("close",))
+                    if self._stop.is_set():
+                        return
                 _send(pipe, ("end",))
         except BaseException as exc:  # handed to finish(): a thread cannot raise to it
             self._failure = exc
         finally:
             with contextlib.suppress(OSError):  # (a helper gone: said by finish)
                 pipe.close()
+
+    def _until_stopped(self, slices: Iterator[pd.DataFrame]) -> Iterator[pd.DataFrame]:
+        """``slices`` until the report stops (an error, Ctrl-C: :meth:`__exit__`)."""
+        for frame in slices:
+            if self._stop.is_set():
+                return
+            yield frame
 
     def finish(self) -> None:
         """Wait until every table given is written; raise what went wrong."""
@@ -249,26 +269,26 @@ class TableWriting:
         self._thread.join()
         process = self._process
         assert process.stdout is not None
-        try:
-            reply = pickle.load(process.stdout)
-        except (EOFError, pickle.UnpicklingError, OSError):
-            reply = None
+        reply = None if self.helper_failed is not None else _answer(process.stdout)
         process.stdout.close()
         code = process.wait()
         failure = self._failure
         if failure is not None and not isinstance(failure, BrokenPipeError):
             raise failure  # this process' own error (the helper was told to stop)
-        if not isinstance(reply, tuple) or not reply:
-            reply = ("ended", f"exit code {code}{self._last_words()}")
-        if reply[0] == "done":
+        if self.helper_failed is not None:
+            return  # written by the thread
+        kind = reply[0] if isinstance(reply, tuple) and reply else None
+        if kind == "done" and len(reply) == 2:
             self.helper_peak_mb = reply[1]
             return
-        if reply[0] == "oserror":
+        if kind == "oserror" and len(reply) == 4:
             _, path, errno, text = reply
             raise write_error(Path(path), OSError(errno, text))
+        why = (str(reply[1]) if kind == "error" and len(reply) == 2
+               else f"exit code {code}{self._last_words()}")  # (or an answer not understood)
         raise StoreError(
             f"the helper process writing the report's tables stopped before it had "
-            f"written them ({reply[1]})", where=str(self.where),
+            f"written them ({why})", where=str(self.where),
             fix="run the report again; if it stops again, see the message above, and check "
                 "the machine's free memory")
 
@@ -300,6 +320,14 @@ class TableWriting:
                 self._stderr.close()
 
 
+def _answer(stream: IO[bytes]) -> Any:
+    """The helper's next answer (None: it ended without one)."""
+    try:
+        return pickle.load(stream)
+    except (EOFError, pickle.UnpicklingError, OSError, AttributeError, ImportError):
+        return None
+
+
 def _send(pipe: IO[bytes], message: tuple[Any, ...]) -> None:
     pickle.dump(message, pipe, protocol=pickle.HIGHEST_PROTOCOL)
     pipe.flush()
@@ -307,12 +335,14 @@ def _send(pipe: IO[bytes], message: tuple[Any, ...]) -> None:
 
 def serve(source: IO[bytes] | None = None, reply: IO[bytes] | None = None) -> None:
     """The helper: read the messages of :class:`TableWriting` from ``source`` (standard
-    input) and write the tables; then answer once on ``reply`` (standard output):
-    ``("done", peak MB)``, ``("oserror", path, errno, text)`` for the first file that could
-    not be written (the messages after it are read and dropped, so the sender never
-    waits on a full pipe), or ``("error", text)``."""
+    input) and write the tables; say ``("ready",)`` on ``reply`` (standard output) first,
+    and answer once at the end: ``("done", peak MB)``, ``("oserror", path, errno,
+    text)`` for the first file that could not be written (the messages after it are read
+    and dropped, so the sender never waits on a full pipe), or ``("error", text)``."""
     source = source or sys.stdin.buffer
     reply = reply or sys.stdout.buffer
+    pickle.dump(("ready",), reply, protocol=pickle.HIGHEST_PROTOCOL)
+    reply.flush()
     sink: TableSink | None = None
     answer: tuple[Any, ...] | None = None
     while True:

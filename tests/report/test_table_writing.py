@@ -187,3 +187,23 @@ def test_the_helper_reports_its_own_memory(tmp_path):
         writing.finish()
     assert writing.helper_peak_mb is not None and 10 < writing.helper_peak_mb < 2000
     assert pd.read_csv(tmp_path / "t.csv").shape == (3000, 2)
+
+
+def test_a_helper_that_cannot_start_leaves_the_tables_to_this_process(report_run, tmp_path,
+                                                                       monkeypatch):
+    """An interpreter that cannot run this sweeprig (a frozen or broken installation): the
+    helper never says it is ready, and the feeding thread writes the same files itself."""
+    monkeypatch.setattr(table_writing, "_HELPER_CODE", "import sys; sys.exit(3)")
+    here = _written(report_run, tmp_path / "here", helper=False)
+    (tmp_path / "fallback").mkdir()
+    with open_tables(report_run.captures, tmp_path / "fallback", helper=True) as writing:
+        add_figure_table(writing, report_run)
+        writing.finish()
+    assert writing.helper_failed is not None and "exit code 3" in writing.helper_failed
+    for name in NAMES:
+        assert (tmp_path / "fallback" / name).read_bytes() == here[name], name
+
+
+def test_a_frozen_program_writes_the_tables_itself(tmp_path, monkeypatch):
+    monkeypatch.setattr(table_writing.sys, "frozen", True, raising=False)
+    assert not TableWriting(helper=True, where=tmp_path).helper
