@@ -2,11 +2,14 @@
 
 :func:`staged` wraps the named functions of the reduction and the report writers (each
 stage is one function, found in its module and in every loaded sweeprig module that
-imported it by name) so that each call adds its processor time to its stage and notes the
-resident memory after it; a generator's time is counted while it makes each item. Stages
-nest (``write_tables`` holds ``figure_frames`` and ``write_frame_rows``), so the figures do
-not add up to the whole. For the benchmarks' child processes only: the wrappers stay for
-the life of the process.
+imported it by name) so that each call adds the processor time of its thread to its stage
+and notes the resident memory after it; a generator's time is counted while it makes each
+item. Stages nest (``attach_uncertainty_in_place`` holds ``grouped_budgets``), so the
+figures do not add up to the whole. A large run's tables are written by a helper process
+(``sweeprig.report.table_writing``): its work is not here; ``figure_frames`` is the report
+process' part of the figure table, made by the thread that feeds the helper, and
+``write_frame_rows`` the budget tables. For the benchmarks' child processes only: the
+wrappers stay for the life of the process.
 """
 
 from __future__ import annotations
@@ -31,7 +34,6 @@ STAGES: tuple[tuple[str, str], ...] = (
     ("sweeprig.analysis.budget_groups", "attach_uncertainty_in_place"),
     ("sweeprig.analysis.limits", "assess"),
     ("sweeprig.report.budget_tables", "figure_budgets"),
-    ("sweeprig.report.tables", "write_tables"),
     ("sweeprig.report.tables", "figure_frames"),
     ("sweeprig.report.csv_table", "write_frame_rows"),
     ("sweeprig.report.tables", "summary_rows"),
@@ -54,8 +56,8 @@ def resident_mb() -> float:
 
 def staged() -> dict[str, dict[str, float]]:
     """Wrap every stage of :data:`STAGES`; returns the live record: per stage ``cpu_s``
-    (summed over its calls), ``calls`` and ``rss_mb`` (resident memory after its last
-    call)."""
+    (the processor time of the thread that ran it, summed over its calls), ``calls`` and
+    ``rss_mb`` (resident memory after its last call)."""
     record: dict[str, dict[str, float]] = {}
     for module_name, qualified in STAGES:
         owner: Any = importlib.import_module(module_name)
@@ -75,8 +77,11 @@ def staged() -> dict[str, dict[str, float]]:
 
 
 def _wrap(function: Callable[..., Any], entry: dict[str, float]) -> Callable[..., Any]:
+    # the processor time of the thread that runs the stage: the report's tables are made by
+    # a thread of their own beside the summary, JSON and plots (process time would charge
+    # each stage the other thread's work too)
     def count(start: float) -> None:
-        entry["cpu_s"] += time.process_time() - start
+        entry["cpu_s"] += time.thread_time() - start
         entry["rss_mb"] = resident_mb()
 
     if inspect.isgeneratorfunction(function):
@@ -84,7 +89,7 @@ def _wrap(function: Callable[..., Any], entry: dict[str, float]) -> Callable[...
             entry["calls"] += 1
             items = function(*args, **kwargs)
             while True:
-                start = time.process_time()
+                start = time.thread_time()
                 try:
                     item = next(items)
                 except StopIteration:
@@ -96,7 +101,7 @@ def _wrap(function: Callable[..., Any], entry: dict[str, float]) -> Callable[...
 
     def plain(*args: Any, **kwargs: Any) -> Any:
         entry["calls"] += 1
-        start = time.process_time()
+        start = time.thread_time()
         try:
             return function(*args, **kwargs)
         finally:

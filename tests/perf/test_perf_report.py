@@ -202,7 +202,8 @@ def test_perf_report_of_a_large_run(points: int, tmp_path: Path) -> None:
         if key.startswith("stage "):
             _, name, what = key.split(" ")
             record.setdefault(name, {})[what] = value
-    print("stages (nested: write_tables holds figure_frames and write_frame_rows):\n"
+    print("stages (the processor time of the thread that ran each; the helper's own work is "
+          "not among them):\n"
           + stages_text(record))
 
 
