@@ -319,10 +319,6 @@ class AnalyzerDriver(Driver):
         centre, span, points = self._axis
         return Trace.from_centre_span(centre, span, levels, points)
 
-    def overloaded(self) -> bool:
-        """Whether the analyzer input was overloaded in the last sweep."""
-        return bool(self.ask("overload"))
-
     def sweep_flags(self) -> tuple[bool, bool | None]:
         """(overloaded, uncalibrated) of the last sweep, in one message where the profile
         joins them (one query where both flags are bits of one register); uncalibrated None
@@ -331,7 +327,3 @@ class AnalyzerDriver(Driver):
         replies = self.ask_joined(("overload", None), *([("uncalibrated", None)] if uncal
                                                           else []))
         return bool(replies[0]), (bool(replies[1]) if uncal else None)
-
-    def uncalibrated(self) -> bool:
-        """Whether the analyzer flags its reading as uncalibrated (False if not supported)."""
-        return bool(self.ask("uncalibrated")) if self.profile.has("uncalibrated") else False

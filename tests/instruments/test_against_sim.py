@@ -103,7 +103,7 @@ def test_analyzer_marker_peak_trace():
     ascii_ = sa.trace(binary=False)
     assert binary.shape == ascii_.shape == (1001,)
     np.testing.assert_allclose(binary, ascii_, atol=1e-3)
-    assert sa.overloaded() is False
+    assert sa.sweep_flags()[0] is False
     sa.check_errors()
     assert sa.sweep_time_s() > 0
 

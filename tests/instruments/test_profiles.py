@@ -82,7 +82,7 @@ def test_analyzer_scpi():
     sa.sweep()
     assert sa.marker_level_dbm(70e6) == -20.5
     assert sa.peak() == (70e6, -20.5)
-    assert sa.overloaded() is True
+    assert sa.sweep_flags()[0] is True
     assert t.sent == [
         "INIT:CONT OFF", "INIT:IMM", "*OPC?", "CALC:MARK1:X 70000000", "CALC:MARK1:Y?",
         "CALC:MARK1:MAX", "CALC:MARK1:X?", "CALC:MARK1:Y?", "STAT:QUES:COND?",

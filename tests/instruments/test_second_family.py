@@ -158,7 +158,7 @@ def test_its_overload_bit_is_read_through_its_profile() -> None:
                               ("ref_level", 10.0)):
                 driver.set_value(op, value)
             driver.sweep()
-            assert driver.overloaded() is True
+            assert driver.sweep_flags()[0] is True
             bits = int(transport.query("STAT:QUES:COND?"))
             assert bits & QUES_OVERLOAD_FR and not bits & 8
         finally:

@@ -26,9 +26,9 @@ def test_prepare_enables_the_flags_bits_and_reads_them() -> None:
     sa.prepare()
     sa.flush()  # the profile joins commands: held until the next message, sent now
     assert any("STAT:QUES:ENAB 264" in sent for sent in link.sent)
-    assert sa.uncalibrated() and not sa.overloaded()
+    assert sa.sweep_flags() == (False, True)
     cond["value"] = 16  # TEMPerature: neither flag
-    assert not sa.uncalibrated() and not sa.overloaded()
+    assert sa.sweep_flags() == (False, False)
 
 
 def test_a_profile_states_its_own_bit() -> None:
