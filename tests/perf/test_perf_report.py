@@ -123,7 +123,7 @@ def make_report(path: str, run_id: str, folder: str) -> dict[str, float]:
     from sweeprig.report.table_writing import TableWriting
     from sweeprig.store.sqlite import SqliteRunStore
 
-    helper_peaks: list[float] = []  # the helper that writes the CSV text, when there is one
+    helper_peaks: list[float] = []  # the helper that writes the tables, when there is one
     finish = TableWriting.finish
 
     def finish_noted(self: TableWriting) -> None:
@@ -189,7 +189,7 @@ def test_perf_report_of_a_large_run(points: int, tmp_path: Path) -> None:
           f"(CPU: {verdict(result['cpu_s'], time_target)}); peak {result['peak_mb']:.0f} MB: "
           f"{verdict(result['peak_mb'], memory_target)} against {memory_target:.0f} MB "
           f"({result['reduce_peak_mb']:.0f} MB by the end of the reduction), and with the "
-          f"helper process writing the CSV text ({result['helper_peak_mb']:.0f} MB) "
+          f"helper process writing the tables ({result['helper_peak_mb']:.0f} MB) "
           f"{result['peak_mb'] + result['helper_peak_mb']:.0f} MB: "
           f"{verdict(result['peak_mb'] + result['helper_peak_mb'], memory_target)}; files "
           f"{result['files_mb']:.0f} MB (figures.json {result['json_mb']:.0f} MB, "
