@@ -68,7 +68,7 @@ def build_sim_instruments(
     from sweeprig.sim.instruments.analyzer import SpectrumAnalyzer
     from sweeprig.sim.instruments.analyzer_fr import FarrowmereAnalyzer
     from sweeprig.sim.instruments.chamber import ThermalChamber
-    from sweeprig.sim.instruments.powermeter import PowerMeter
+    from sweeprig.sim.instruments.powermeter import DISPLAY_OFFSET_INDEX, PowerMeter
     from sweeprig.sim.instruments.powermeter_fr import FarrowmerePowerMeter
     from sweeprig.sim.instruments.simctl import SimControl
     from sweeprig.sim.instruments.source import SignalSource, no_level_error_db, scaled_level_error
@@ -131,9 +131,13 @@ def build_sim_instruments(
                        relative_noise=desc.power_meter.noise,
                        zero_offset_dbm=desc.power_meter.zero_offset,
                        zero_holds=desc.power_meter.zero_holds,
-                       range_max_dbm=desc.power_meter.range_max,
-                       reading_offset_db=desc.power_meter.offset,
-                       duty_cycle_percent=desc.power_meter.duty_cycle)
+                       range_max_dbm=desc.power_meter.range_max)
+    if desc.power_meter.offset:  # what a previous user left set (a planted fault)
+        meter.put_value("offset_db", float(desc.power_meter.offset), DISPLAY_OFFSET_INDEX)
+        meter.put_value("offset_on", True, DISPLAY_OFFSET_INDEX)
+    if desc.power_meter.duty_cycle is not None:
+        meter.put_value("duty_cycle_percent", float(desc.power_meter.duty_cycle))
+        meter.put_value("duty_cycle_on", True)
     world.connect(rf=sources["rf"], rf2=sources["rf2"], lo=sources["lo"], supply=supply,
                   chamber=chamber, switch=switch, ns_supply=ns_supply,
                   ns_output=lambda: analyzer.noise_output_on)

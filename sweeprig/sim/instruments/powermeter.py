@@ -59,8 +59,9 @@ def _no_signal() -> float:
     return -200.0
 
 
-#: The suffix of the display offset's node (SENSe:CORRection:GAIN2).
-_GAIN2 = 2
+#: The suffix of the display offset's node (SENSe:CORRection:GAIN2): the index its settings'
+#: values are kept under.
+DISPLAY_OFFSET_INDEX = 2
 
 class PowerMeter(ScpiInstrument):
     """TW-PM18 power meter. Power-on: 1 GHz calibration frequency, 4 averages, dBm.
@@ -83,8 +84,6 @@ class PowerMeter(ScpiInstrument):
         zero_offset_dbm: float | None = None,
         zero_holds: bool = True,
         range_max_dbm: float = RANGE_MAX_DBM,
-        reading_offset_db: float = 0.0,
-        duty_cycle_percent: float | None = None,
     ) -> None:
         super().__init__(clock, Identity(self.maker, self.model, serial, "1.0"))
         self.sense = sense
@@ -102,28 +101,22 @@ class PowerMeter(ScpiInstrument):
                                  minimum=1, maximum=1024))
         self.add_setting(Setting("unit", "UNIT:POWer", "enum", "DBM", choices=("DBM", "W")))
         # A display offset (SCPI-99's SENSe:CORRection:GAIN2, from memory): while on, added
-        # to every reading; power-on and *RST: off, 0 dB. ``reading_offset_db`` is one an
-        # earlier user left set (a planted fault).
-        # (GAIN2: the node's numeric suffix, so the values are kept under index 2)
+        # to every reading; power-on and *RST: off, 0 dB (values kept under
+        # DISPLAY_OFFSET_INDEX, the node's numeric suffix).
         self.add_setting(Setting("offset_db",
                                  "[SENSe]:CORRection:GAIN[2-2][:INPut][:MAGNitude]", "float",
                                  0.0, minimum=-100.0, maximum=100.0))
         self.add_setting(Setting("offset_on", "[SENSe]:CORRection:GAIN[2-2]:STATe", "bool",
                                  False))
-        if reading_offset_db:
-            self.put_value("offset_db", float(reading_offset_db), _GAIN2)
-            self.put_value("offset_on", True, _GAIN2)
         # A duty-cycle correction (SCPI-99's SENSe:CORRection:DCYCle, from memory): while on,
         # every reading is the pulse power of a signal of that duty cycle, the average power
         # raised by 10·log10(100 / duty) (a rectangular pulse train's pulse power from its
-        # average: standard result); power-on and *RST: off, 1 %.
+        # average: standard result); power-on and *RST: off, 1 %. What an earlier user left
+        # set of either is planted by the simulated bench (sweeprig.sim.bench).
         self.add_setting(Setting("duty_cycle_percent", "[SENSe]:CORRection:DCYCle[:INPut]",
                                  "float", 1.0, minimum=0.001, maximum=100.0))
         self.add_setting(Setting("duty_cycle_on", "[SENSe]:CORRection:DCYCle:STATe", "bool",
                                  False))
-        if duty_cycle_percent is not None:
-            self.put_value("duty_cycle_percent", float(duty_cycle_percent))
-            self.put_value("duty_cycle_on", True)
         self._register_measure()
         self.add_command("CALibration:ZERO:STATe", query=self._zero_state)
 
@@ -153,8 +146,8 @@ class PowerMeter(ScpiInstrument):
                 + self.zero_offset_mw
             )
             reading_mw = max(abs(reading_mw), 0.01 * floor_mw)
-            offset = (float(self.value("offset_db", _GAIN2)) if self.value("offset_on", _GAIN2)
-                      else 0.0)
+            offset = (float(self.value("offset_db", DISPLAY_OFFSET_INDEX))
+                      if self.value("offset_on", DISPLAY_OFFSET_INDEX) else 0.0)
             if self.value("duty_cycle_on"):
                 offset += 10.0 * math.log10(100.0 / float(self.value("duty_cycle_percent")))
             return 10.0 * math.log10(reading_mw) + offset
