@@ -281,9 +281,9 @@ class TableWriting:
         if kind == "done" and len(reply) == 2:
             self.helper_peak_mb = reply[1]
             return
-        if kind == "oserror" and len(reply) == 4:
-            _, path, errno, text = reply
-            raise write_error(Path(path), OSError(errno, text))
+        if kind == "failed" and len(reply) == 4:
+            _, what, where, fix = reply
+            raise StoreError(what, where=where, fix=fix)  # (write_error's, in the helper)
         why = (str(reply[1]) if kind == "error" and len(reply) == 2
                else f"exit code {code}{self._last_words()}")  # (or an answer not understood)
         raise StoreError(
@@ -335,49 +335,43 @@ def _send(pipe: IO[bytes], message: tuple[Any, ...]) -> None:
 
 def serve(source: IO[bytes] | None = None, reply: IO[bytes] | None = None) -> None:
     """The helper: read the messages of :class:`TableWriting` from ``source`` (standard
-    input) and write the tables; say ``("ready",)`` on ``reply`` (standard output) first,
-    and answer once at the end: ``("done", peak MB)``, ``("oserror", path, errno,
-    text)`` for the first file that could not be written (the messages after it are read
+    input) and write each table with :func:`write_job`, as the report process would; say
+    ``("ready",)`` on ``reply`` (standard output) first, and answer once at the end:
+    ``("done", peak MB)``, ``("failed", what, where, fix)`` for the first table that could
+    not be written (its StoreError, which names the file; the messages after it are read
     and dropped, so the sender never waits on a full pipe), or ``("error", text)``."""
     source = source or sys.stdin.buffer
     reply = reply or sys.stdout.buffer
     pickle.dump(("ready",), reply, protocol=pickle.HIGHEST_PROTOCOL)
     reply.flush()
-    sink: TableSink | None = None
+
+    def rows() -> Iterator[pd.DataFrame]:
+        """The slices of the table just opened, until its ``close``."""
+        while (message := pickle.load(source))[0] == "rows":
+            yield message[1]
+        if message[0] != "close":
+            raise ValueError(f"unexpected message {message[0]!r} within a table")
+
     answer: tuple[Any, ...] | None = None
-    while True:
-        try:
-            message = pickle.load(source)
-        except EOFError:
-            answer = answer or ("error", "the report process stopped sending")
-            break
-        kind = message[0]
-        if kind == "end":
-            break
-        if answer is not None:
-            continue  # failed already: drain
-        try:
-            if kind == "open":
-                _, paths, schema, integers = message
-                sink = TableSink({k: Path(p) for k, p in paths.items()}, schema, integers)
-            elif kind == "rows" and sink is not None:
-                sink.write(message[1])
-            elif kind == "close" and sink is not None:
-                sink.close()  # (on failure it still names the file being closed)
-                sink = None
-            else:
-                answer = ("error", f"unexpected message {kind!r}")
-        except OSError as exc:
-            path = sink.current if sink is not None and sink.current is not None else (
-                Path(next(iter(message[1].values()))) if kind == "open" else Path("?"))
-            answer = ("oserror", str(path), exc.errno, exc.strerror or str(exc))
-        except Exception as exc:  # reported to the report process, which names it
-            answer = ("error", f"{type(exc).__name__}: {exc}")
-        if answer is not None and sink is not None:
-            _close_quietly(sink)  # (closing twice is harmless)
-            sink = None
-    if sink is not None:
-        _close_quietly(sink)
+    try:
+        while (message := pickle.load(source))[0] != "end":
+            if answer is not None:
+                continue  # failed already: drain
+            if message[0] != "open":
+                answer = ("error", f"unexpected message {message[0]!r}")
+                continue
+            _, paths, schema, integers = message
+            try:
+                write_job(TableJob({k: Path(v) for k, v in paths.items()}, rows(), schema,
+                                   integers))
+            except StoreError as exc:
+                answer = ("failed", exc.what, exc.where, exc.fix)
+            except (EOFError, pickle.UnpicklingError):
+                raise
+            except Exception as exc:  # reported to the report process, which names it
+                answer = ("error", f"{type(exc).__name__}: {exc}")
+    except (EOFError, pickle.UnpicklingError):
+        answer = answer or ("error", "the report process stopped sending")
     pickle.dump(answer or ("done", _peak_mb()), reply, protocol=pickle.HIGHEST_PROTOCOL)
     reply.flush()
 

@@ -28,7 +28,7 @@ from dataclasses import dataclass
 from datetime import UTC, datetime
 from pathlib import Path
 from types import MappingProxyType
-from typing import TYPE_CHECKING, Any
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -62,10 +62,8 @@ from sweeprig.report.budget_tables import (
     figure_budgets,
     read_budget_tables,
 )
+from sweeprig.report.table_writing import TableJob, TableWriting, write_error
 from sweeprig.units import format_frequency
-
-if TYPE_CHECKING:
-    from sweeprig.report.table_writing import TableWriting
 
 #: Figures shown in the summary, in this order (every other figure is in the JSON and the
 #: tables; a figure with a limit is always shown).
@@ -702,7 +700,7 @@ def write_figures_json(run: RunFigures, path: Path, *, budgets: FigureBudgets | 
         try:
             write_frame_csv(make(), folder / name)
         except OSError as exc:
-            raise _write_error(folder / name, exc) from None
+            raise write_error(folder / name, exc) from None
     encode = json.JSONEncoder(ensure_ascii=False, allow_nan=False, default=_plain,
                               separators=(",", ":")).encode
     try:
@@ -726,7 +724,7 @@ def write_figures_json(run: RunFigures, path: Path, *, budgets: FigureBudgets | 
                 out.write("]")
             out.write("\n}\n")
     except OSError as exc:
-        raise _write_error(path, exc) from None
+        raise write_error(path, exc) from None
     return path
 
 
@@ -960,12 +958,9 @@ def open_tables(captures: pd.DataFrame, folder: Path, formats: Sequence[str] | N
     a helper process on the other core writes them while the caller goes on
     (:mod:`sweeprig.report.table_writing`); else each is written when given."""
     from sweeprig.parquet import parquet_available, require_parquet
-    from sweeprig.report.table_writing import (
-        CAPTURE_SLICE_ROWS,
-        HELPER_CAPTURE_ROWS,
-        TableJob,
-        TableWriting,
-    )
+
+    # (read at the call: the module's values, which tests set)
+    from sweeprig.report.table_writing import CAPTURE_SLICE_ROWS, HELPER_CAPTURE_ROWS
 
     if formats is None:
         formats = [f for f in TABLE_FORMATS if f != "parquet" or parquet_available()]
@@ -999,8 +994,6 @@ def add_figure_table(writing: TableWriting, run: RunFigures,
                      budgets: FigureBudgets | None = None) -> None:
     """Give ``writing`` (:func:`open_tables`) the figure table of ``run`` (``budgets``: its
     :func:`figure_budgets`, when the caller has them)."""
-    from sweeprig.report.table_writing import TableJob
-
     if not writing.formats:
         return
     if budgets is None:
@@ -1028,11 +1021,5 @@ def write_text_file(path: Path, text: str) -> None:
     try:
         path.write_text(text, encoding="utf-8")
     except OSError as exc:
-        raise _write_error(path, exc) from None
-
-
-def _write_error(path: Path, exc: OSError) -> StoreError:
-    from sweeprig.report.table_writing import write_error
-
-    return write_error(path, exc)
+        raise write_error(path, exc) from None
 
