@@ -81,6 +81,7 @@ from sweeprig.formats.sequence import (
     load_sequence,
     sequence_from_dict,
 )
+from sweeprig.memory import release_freed_memory
 from sweeprig.plan.frequencies import wanted_orders
 from sweeprig.store.base import (
     MERGED_SEQUENCE,
@@ -273,6 +274,7 @@ def _reduce_loaded(loaded: LoadedRun) -> RunFigures:
     # made now, added last (as before): the readings table is not held past this line
     noise_figures = noise_figure_figures(points, readings, bench_specs.specs, sequence)
     del readings
+    release_freed_memory()  # (the readings table's pages, before the figures are made)
     studies = _study_infos(captures, points, sequence)
     figures = _figures(captures, studies, notes,
                        spur_counting(sequence) if sequence is not None else {})
@@ -296,6 +298,10 @@ def _reduce_loaded(loaded: LoadedRun) -> RunFigures:
     both = flag_marked_points(figures + noise_figures, marks)
     figures, noise_figures = both[:count], both[count:]
     del both
+    duration_sim_s = _sim_duration(points)
+    duration_wall_s = _wall_duration(info.created, info.finished, points)
+    del points  # (its last use: not held while the figures are rebuilt)
+    release_freed_memory()
     notes += bench_specs.notes
     notes += _unchecked_notes(events)
     calibration, calibration_note = calibration_state(events)
@@ -305,7 +311,9 @@ def _reduce_loaded(loaded: LoadedRun) -> RunFigures:
     # budgets are made (a budget does not depend on the output frequency: the tests compare
     # this order with the copying passes in the other)
     add_output_frequency_in_place(figures, orders)
+    release_freed_memory()  # (the old conditions mappings)
     attach_uncertainty_in_place(figures, captures, bench_specs.specs, calibration)
+    release_freed_memory()
     name_in_trade_words(figures, conversion)
     figures += noise_figures
     limits = limits_from_sequence(sequence) if sequence is not None else ()
@@ -345,8 +353,8 @@ def _reduce_loaded(loaded: LoadedRun) -> RunFigures:
         bench_path=info.bench_path,
         bench_sha256=info.bench_sha256,
         instruments=info.instruments,
-        duration_sim_s=_sim_duration(points),
-        duration_wall_s=_wall_duration(info.created, info.finished, points),
+        duration_sim_s=duration_sim_s,
+        duration_wall_s=duration_wall_s,
         figures=tuple(figures),
         limits=tuple(limits),
         assessment=assessment,

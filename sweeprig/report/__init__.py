@@ -53,6 +53,7 @@ def write_report(run: RunFigures, folder: Path | str,
 
     Raises :class:`~sweeprig.errors.StoreError` naming the path when a file cannot be written.
     """
+    from sweeprig.memory import release_freed_memory
     from sweeprig.report.budget_tables import BUDGET_TERMS_FILE, BUDGETS_FILE, figure_budgets
     from sweeprig.report.html import write_html
     from sweeprig.report.plots import all_plots
@@ -77,8 +78,12 @@ def write_report(run: RunFigures, folder: Path | str,
         figures = write_figures_json(run, out / "figures.json", budgets=budgets,
                                      rows_written=True, summary=summary)
         del budgets  # the tables' own reference is let go with their last slice
-        page = write_html(out / "report.html", run, summary,
-                          all_plots(run) if plots is None else plots)
+        # each stage's passing tables given back before the next one grows its own
+        release_freed_memory()
+        if plots is None:
+            plots = all_plots(run)
+            release_freed_memory()
+        page = write_html(out / "report.html", run, summary, plots)
         tables.finish()
     return ReportFiles(out, page, figures, tuple(tables.paths()),
                        (out / BUDGETS_FILE, out / BUDGET_TERMS_FILE))
@@ -94,6 +99,7 @@ def report_stored_run(store: RunStore, run_id: int, folder: Path | str, *,
     open). StoreError when there is no such run (nothing made) or a file cannot be written.
     """
     from sweeprig.analysis.reduce import load_run, reduce_loaded
+    from sweeprig.memory import release_freed_memory
     from sweeprig.report.tables import make_folder, open_tables
 
     loaded = load_run(store, run_id)
@@ -101,6 +107,7 @@ def report_stored_run(store: RunStore, run_id: int, folder: Path | str, *,
     with open_tables(loaded.captures, out) as tables:
         run = reduce_loaded(loaded)
         del loaded
+        release_freed_memory()
         if reduced is not None:
             reduced(run)
         files = write_report(run, out, tables=tables)

@@ -1,0 +1,59 @@
+"""Handing freed memory back to the operating system between the stages of a large job.
+
+A large run's reduction frees hundreds of MB at a time (the stored points and readings once
+the capture table exists, a pass's old figures once the new ones stand). CPython and NumPy
+free through the C library's allocator, and glibc's keeps much of that in its heap: a 4 MB
+column freed lets later columns up to that size be carved from the heap (its threshold for
+giving large blocks their own pages grows to the largest one freed), and the heap only
+shrinks from its top. The process' resident memory then stays at its peak, and the next
+stage's growth starts from there. :func:`release_freed_memory` asks glibc to return every
+free page of its heap (``malloc_trim(0)``, which since glibc 2.8 releases free pages
+anywhere in the heap, not only at its top); on any other C library or system it does
+nothing. It costs a walk of the heap (milliseconds): for the boundaries of large stages,
+not for loops.
+"""
+
+from __future__ import annotations
+
+import ctypes
+import sys
+from collections.abc import Callable
+from functools import lru_cache
+
+
+@lru_cache(maxsize=1)
+def _malloc_trim() -> Callable[[int], int] | None:
+    """glibc's ``malloc_trim``, or None where there is none (not Linux, musl, no libc)."""
+    if not sys.platform.startswith("linux"):
+        return None
+    try:
+        libc = ctypes.CDLL("libc.so.6")
+        trim = libc.malloc_trim
+    except (OSError, AttributeError):
+        return None
+    trim.argtypes = [ctypes.c_size_t]
+    trim.restype = ctypes.c_int
+    return trim
+
+
+def release_freed_memory() -> bool:
+    """Return the C heap's free pages to the operating system; True when the allocator has
+    a way to (glibc), whether or not it had pages to give back."""
+    trim = _malloc_trim()
+    if trim is None:
+        return False
+    trim(0)
+    return True
+
+
+def resident_mb() -> float:
+    """This process's resident memory now, MB (``/proc/self/statm``; NaN where there is
+    none)."""
+    import resource
+
+    try:
+        with open("/proc/self/statm", encoding="ascii") as statm:
+            pages = int(statm.read().split()[1])
+    except (OSError, IndexError, ValueError):
+        return float("nan")
+    return pages * resource.getpagesize() / 2**20
