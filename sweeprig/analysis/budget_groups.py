@@ -141,10 +141,14 @@ def figure_budget(figure: Figure, levels: PointLevels, specs: InstrumentSpecs,
     own: list[Contribution] = []
     fitted = False
     if model.fit == "intercept" and model.product is not None:
-        x = levels.inputs_dbm(pts)
-        fund = levels.levels_dbm(pts, "if")
-        prod = levels.levels_dbm(pts, model.product)
-        u = intercept_fit_u_db(x, fund, prod, model.order)
+        product, order = model.product, model.order
+
+        def fit_u() -> float:
+            return intercept_fit_u_db(levels.inputs_dbm(pts), levels.levels_dbm(pts, "if"),
+                                      levels.levels_dbm(pts, product), order)
+
+        # (the input and output intercepts of one product share their fit)
+        u = levels.remembered(("intercept_u", product, order, *pts), fit_u)
         if math.isfinite(u):
             fitted = True
             own.append(Contribution("fit", f"scatter about the slope-1/slope-{model.order} "

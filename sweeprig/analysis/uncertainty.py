@@ -53,15 +53,17 @@ from __future__ import annotations
 import functools
 import math
 import sys
-from collections.abc import Iterable, Mapping, Sequence
+from collections.abc import Callable, Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
-from typing import Any, Literal
+from typing import Any, Literal, TypeVar
 
 import numpy as np
 import pandas as pd
 
 from sweeprig.analysis.figures import Figure
 from sweeprig.analysis.writable_twin import writable_twin
+
+T = TypeVar("T")
 
 Shape = Literal["rectangular", "triangular", "u-shaped", "normal-k2", "standard"]
 
@@ -442,6 +444,9 @@ class PointLevels:
 
     def __init__(self, captures: pd.DataFrame) -> None:
         self._tables: dict[str, tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]] = {}
+        # the answers for a set of points, asked again by the other figures of its sweep
+        # (iip3_low and oip3_low, input_p1db and output_p1db): kept as tuples
+        self._asked: dict[tuple[object, ...], object] = {}
         self._rows: dict[str, np.ndarray] = {}
         empty = captures.empty or "reading" not in captures
         rows = captures.iloc[:0] if empty else measured_rows(captures)
@@ -515,8 +520,23 @@ class PointLevels:
             return np.full(points.size, math.nan), np.ones(points.size, dtype=np.int64)
         return np.where(found, snr[pos], math.nan), np.where(found, avg[pos], 1)
 
+    def remembered(self, key: tuple[object, ...], make: Callable[[], T]) -> T:
+        """``make()``, made once per ``key`` for as long as these levels are held: what the
+        figures of one sweep each work out from the same points (a fit's scatter, their
+        levels). ``make`` must give something never changed afterwards (a number, a
+        tuple)."""
+        asked = self._asked
+        if key in asked:
+            return asked[key]  # type: ignore[return-value]
+        kept = asked[key] = make()
+        return kept
+
     def levels_dbm(self, points: Sequence[int], reading: str) -> list[float]:
         """The level (dBm) of ``reading`` at each of ``points``; NaN where none."""
+        return list(self.remembered(("levels", reading, *points),
+                                    lambda: tuple(self._levels_dbm(points, reading))))
+
+    def _levels_dbm(self, points: Sequence[int], reading: str) -> list[float]:
         at, level, _, _ = self._table(reading)
         wanted = np.asarray(points, dtype=np.int64)
         pos, found = self._find(at, wanted)
@@ -526,14 +546,21 @@ class PointLevels:
 
     def inputs_dbm(self, points: Sequence[int]) -> list[float]:
         """The input power (dBm) of each of ``points``; NaN where the point is unknown."""
+        return list(self.remembered(("inputs", *points), lambda: self._inputs_dbm(points)))
+
+    def _inputs_dbm(self, points: Sequence[int]) -> tuple[float, ...]:
         wanted = np.asarray(points, dtype=np.int64)
-        pos, found = self._find(self._input_at, wanted)
         if self._input_at.size == 0:
-            return [math.nan] * wanted.size
-        return np.where(found, self._input[pos], math.nan).tolist()
+            return (math.nan,) * wanted.size
+        pos, found = self._find(self._input_at, wanted)
+        return tuple(np.where(found, self._input[pos], math.nan).tolist())
 
     def min_snr_db(self, points: Sequence[int], reading: str) -> float:
         """The lowest level − noise floor of ``reading`` over ``points`` (NaN: unknown)."""
+        return self.remembered(("min_snr", reading, *points),
+                               lambda: self._min_snr_db(points, reading))
+
+    def _min_snr_db(self, points: Sequence[int], reading: str) -> float:
         snr, _ = self.snr_and_averages(reading, np.asarray(points, dtype=np.int64))
         snr = snr[np.isfinite(snr)]
         return float(snr.min()) if snr.size else math.nan
@@ -542,6 +569,11 @@ class PointLevels:
                       ) -> tuple[float, float, int] | None:
         """(scatter dB, SNR dB, averages) of the reading of ``reading`` over ``points`` that
         scatters most by :func:`noise_scatter_db` (None: no reading with a noise floor)."""
+        return self.remembered(("scatter", reading, *points),
+                               lambda: self._worst_scatter(points, reading))
+
+    def _worst_scatter(self, points: Sequence[int], reading: str
+                       ) -> tuple[float, float, int] | None:
         snrs, avgs = self.snr_and_averages(reading, np.asarray(points, dtype=np.int64))
         worst: tuple[float, float, int] | None = None
         for snr, avg in zip(snrs.tolist(), avgs.tolist(), strict=True):

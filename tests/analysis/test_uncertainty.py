@@ -174,6 +174,36 @@ def test_noise_scatter_is_counted_once():
     assert term.standard_db == pytest.approx(noise_scatter_db(3 * -30.0 + 20.0 + 0.1 + 100.0))
 
 
+def test_the_figures_of_one_sweep_share_their_answers_not_their_lists(monkeypatch):
+    # The input and output intercepts of a product fit the same points: the fit is worked
+    # out once for both; an answer handed out as a list is the caller's own to change.
+    from sweeprig.analysis import budget_groups
+
+    rows = []
+    for i, x in enumerate(np.arange(-30.0, -18.0, 2.0)):
+        rows.append((i, "if", x, x + 12.0 + 0.02 * (-1) ** i, -100.0))
+        rows.append((i, "im3_low", x, 3 * x + 20.0 + 0.1 * (-1) ** i, -100.0))
+    levels = PointLevels.from_captures(_captures(rows))
+    fits = []
+    real = budget_groups.intercept_fit_u_db
+    monkeypatch.setattr(budget_groups, "intercept_fit_u_db",
+                        lambda *a: fits.append(a) or real(*a))
+    points = tuple(range(6))
+    iip3 = figure_budget(Figure("iip3_low", -4.0, "dBm", points=points), levels,
+                         InstrumentSpecs())
+    oip3 = figure_budget(Figure("oip3_low", 8.0, "dBm", points=points), levels,
+                         InstrumentSpecs())
+    assert iip3 is not None and oip3 is not None and len(fits) == 1
+    assert [c for c in iip3.own_lines if c.name == "fit"] == \
+        [c for c in oip3.own_lines if c.name == "fit"]
+    first = levels.levels_dbm(points, "if")
+    first[0] = 99.0
+    assert levels.levels_dbm(points, "if")[0] == pytest.approx(-30.0 + 12.02)
+    inputs = levels.inputs_dbm(points)
+    inputs.clear()
+    assert levels.inputs_dbm(points) == pytest.approx(list(np.arange(-30.0, -18.0, 2.0)))
+
+
 def test_each_spur_takes_its_own_readings_noise_and_averages():
     # Several m×n spurs share a point: each figure's noise is its own reading's.
     captures = _captures([(0, "if", -20.0, -8.0, -100.0), (0, "spur", -20.0, -60.0, -100.0),
