@@ -22,6 +22,7 @@ from __future__ import annotations
 import functools
 import math
 from collections.abc import Mapping, Sequence
+from typing import TYPE_CHECKING
 
 import numpy as np
 import pandas as pd
@@ -56,9 +57,13 @@ from sweeprig.analysis.uncertainty import (
     _noise_reading,
     intercept_fit_u_db,
     mean_u_db,
+    noise_reading_at,
     small_signal_gain_u,
 )
 from sweeprig.analysis.writable_twin import writable_twin
+
+if TYPE_CHECKING:
+    from sweeprig.analysis.figure_block import FigureBlock, Part
 
 
 def attach_uncertainty(figures: Sequence[Figure], captures: pd.DataFrame,
@@ -75,10 +80,11 @@ def attach_uncertainty(figures: Sequence[Figure], captures: pd.DataFrame,
 
 def attach_uncertainty_in_place(
     figures: list[Figure], captures: pd.DataFrame, specs: InstrumentSpecs | None = None,
-    cal: CalibrationState = UNCALIBRATED,
+    cal: CalibrationState = UNCALIBRATED, *, levels: PointLevels | None = None,
 ) -> None:
     """:func:`attach_uncertainty`, each figure of the list replaced where it stands: a
-    caller that owns the list (the reduction) never holds a run's figures twice."""
+    caller that owns the list (the reduction) never holds a run's figures twice.
+    ``levels``: the captures' :class:`PointLevels`, when the caller has them."""
     specs = specs or InstrumentSpecs()
     sides: dict[tuple, Figure] = {}
     # _condition_key per distinct mapping (held beside it: its id stays its own)
@@ -91,7 +97,7 @@ def attach_uncertainty_in_place(
         return held[1]
 
     with collector_paused():  # a large run makes hundreds of thousands of budgets
-        budgets = grouped_budgets(figures, captures, specs, cal)
+        budgets = grouped_budgets(figures, captures, specs, cal, levels=levels)
         for i, budget in enumerate(budgets):
             if budget is not None:
                 f = figures[i] = with_uncertainty(figures[i], budget.expanded_db, budget)
@@ -105,6 +111,91 @@ def attach_uncertainty_in_place(
                 if match is not None:
                     figures[i] = with_uncertainty(f, match.uncertainty_db, match.budget)
                     break
+
+
+def attach_uncertainty_to_parts(
+    parts: Sequence[Part], captures: pd.DataFrame, specs: InstrumentSpecs | None = None,
+    cal: CalibrationState = UNCALIBRATED,
+) -> list[Part]:
+    """:func:`attach_uncertainty_in_place` of a run's figures held as parts
+    (:mod:`sweeprig.analysis.figure_block`): the loose figures as there, a block's budgets
+    worked out as columns (:class:`~sweeprig.analysis.figure_block.BlockBudgets`) with its
+    uncertainty column; the same budgets, figure by figure."""
+    from sweeprig.analysis.figure_block import FigureBlock
+
+    specs = specs or InstrumentSpecs()
+    levels = PointLevels.from_captures(captures)
+    loose = [f for part in parts if not isinstance(part, FigureBlock) for f in part]
+    attach_uncertainty_in_place(loose, captures, specs, cal, levels=levels)
+    out: list[Part] = []
+    taken = 0
+    for part in parts:
+        if isinstance(part, FigureBlock):
+            out.append(_with_block_budgets(part, levels, specs, cal))
+        else:
+            out.append(tuple(loose[taken:taken + len(part)]))
+            taken += len(part)
+    return out
+
+
+def blockable(name: str) -> bool:
+    """Whether figures called ``name`` may be held in a block (their budgets worked out as
+    columns): not a fitted figure's, nor one a headline takes its budget from."""
+    model = MODELS.get(name)
+    return ((model is None or model.fit is None) and name not in WORST_OF
+            and name not in _SIDE_NAMES)
+
+
+def _with_block_budgets(block: FigureBlock, levels: PointLevels, specs: InstrumentSpecs,
+                        cal: CalibrationState) -> FigureBlock:
+    """The block with its budgets and uncertainty column, as :func:`grouped_budgets` gives
+    each of its figures (a block never holds a fitted figure: :func:`blockable`)."""
+    from sweeprig.analysis.figure_block import BlockBudgets
+
+    model = MODELS.get(block.name)
+    if model is None or block.unit not in _DB_UNITS:
+        return block
+    if model.fit is not None:
+        raise ValueError(f"a block of fitted figures ({block.name}): see blockable()")
+    count = len(block)
+    eligible = np.flatnonzero((block.bound == 0) & np.isfinite(block.value))
+    if eligible.size == 0:
+        return block
+    # the readings whose noise matters, per row: fixed for the name, or (an m×n spur) its
+    # own product's, read once per distinct conditions mapping
+    groups: dict[Noisy, list[int]] = {}
+    if model.noise_reading == "spur":
+        by_id: dict[int, Noisy] = {}
+        conditions = block.conditions
+        for row in eligible.tolist():
+            c = conditions[row]
+            noisy = by_id.get(id(c))
+            if noisy is None:
+                noisy = by_id[id(c)] = _noisy(model, noise_reading_at(model, c))
+            groups.setdefault(noisy, []).append(row)
+    else:
+        groups[_noisy(model, model.noise_reading)] = eligible.tolist()
+    width = max(1, *(len(noisy) for noisy in groups))
+    shared_column = np.full(count, None, dtype=object)
+    snr = np.full((count, width), math.nan)
+    scatter = np.full((count, width), math.nan)
+    averages = np.ones((count, width), dtype=np.int64)
+    combined = np.full(count, math.nan)
+    uncertainty = np.full(count, math.nan)
+    for noisy, members in groups.items():
+        rows = np.array(members, dtype=np.int64)
+        shared = shared_budget(model, noisy, specs, cal)
+        finite, raw, avg, u_c = _group_columns(shared, block.point[rows], levels)
+        k = len(noisy)
+        shared_column[rows] = [shared] * rows.size
+        snr[rows, :k] = finite.T
+        scatter[rows, :k] = raw.T
+        averages[rows, :k] = avg.T
+        combined[rows] = u_c
+        uncertainty[rows] = shared.coverage_factor * u_c
+    return block.with_columns(
+        uncertainty_db=uncertainty,
+        budgets=BlockBudgets(shared_column, snr, scatter, averages, combined))
 
 
 def _noisy(model: _Model, reading: str | None) -> Noisy:
@@ -185,8 +276,8 @@ def figure_budget(figure: Figure, levels: PointLevels, specs: InstrumentSpecs,
 
 
 def grouped_budgets(figures: Sequence[Figure], captures: pd.DataFrame,
-                    specs: InstrumentSpecs, cal: CalibrationState = UNCALIBRATED
-                    ) -> list[FigureBudget | None]:
+                    specs: InstrumentSpecs, cal: CalibrationState = UNCALIBRATED, *,
+                    levels: PointLevels | None = None) -> list[FigureBudget | None]:
     """Every figure's budget as :func:`figure_budget` gives it (None where a figure has
     none), the single-point figures worked out per group of one kind and one set of noisy
     readings from the per-reading tables of ``captures`` (:class:`PointLevels`, numpy),
@@ -219,7 +310,8 @@ def grouped_budgets(figures: Sequence[Figure], captures: pd.DataFrame,
             group = groups[(f.name, noisy)] = []
         group.append(i)
     budgets: list[FigureBudget | None] = [None] * len(figures)
-    levels = PointLevels.from_captures(captures)
+    if levels is None:
+        levels = PointLevels.from_captures(captures)
     if alone:
         small_signal_u = small_signal_gain_u(figures, levels)
         for i in alone:
@@ -235,6 +327,27 @@ def grouped_budgets(figures: Sequence[Figure], captures: pd.DataFrame,
     return budgets
 
 
+def _group_columns(shared: SharedBudget, points: np.ndarray, levels: PointLevels
+                   ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """The columns of :func:`_group_budgets`: per reading of ``shared.noisy`` (a row each)
+    the SNR at each point where finite (else NaN), the SNR as read, the sweeps; and u_c
+    (dB) per point, by root sum of squares of the shared lines and the noise lines."""
+    count = points.size
+    squares = np.full(count, sum(c.contribution_db ** 2 for c in shared.lines))
+    k = len(shared.noisy)
+    finite_rows = np.full((k, count), math.nan)
+    raw_rows = np.full((k, count), math.nan)
+    averages = np.ones((k, count), dtype=np.int64)
+    for j, ((reading, c), c_scatter) in enumerate(zip(shared.noisy, shared.scatter_c,
+                                                      strict=True)):
+        snr, avg = levels.snr_and_averages(reading, points)
+        finite = np.where(np.isfinite(snr), snr, math.nan)
+        squares += noise_contributions_db(finite, c) ** 2
+        squares += scatter_contributions_db(snr, avg, c_scatter) ** 2
+        finite_rows[j], raw_rows[j], averages[j] = finite, snr, avg
+    return finite_rows, raw_rows, averages, np.sqrt(squares)
+
+
 #: FigureBudgets are made through a writable twin (a large run makes hundreds of
 #: thousands: :mod:`sweeprig.analysis.writable_twin`); None: by the constructor.
 _OpenFigureBudget = writable_twin(FigureBudget)
@@ -247,19 +360,11 @@ def _group_budgets(shared: SharedBudget, points: np.ndarray, levels: PointLevels
     and, a single reading having no fit term, the same SNR and sweeps for its scatter
     line; u_c by root sum of squares of the shared lines and those (numpy)."""
     count = points.size
-    squares = np.full(count, sum(c.contribution_db ** 2 for c in shared.lines))
-    noise_snr: list[list[float]] = []
-    scatter_snr: list[list[float]] = []
-    averages: list[list[int]] = []
-    for (reading, c), c_scatter in zip(shared.noisy, shared.scatter_c, strict=True):
-        snr, avg = levels.snr_and_averages(reading, points)
-        finite = np.where(np.isfinite(snr), snr, math.nan)
-        squares += noise_contributions_db(finite, c) ** 2
-        squares += scatter_contributions_db(snr, avg, c_scatter) ** 2
-        noise_snr.append(finite.tolist())
-        scatter_snr.append(snr.tolist())
-        averages.append(avg.tolist())
-    combined = np.sqrt(squares).tolist()
+    finite, raw, avg, combined_array = _group_columns(shared, points, levels)
+    noise_snr: list[list[float]] = finite.tolist()
+    scatter_snr: list[list[float]] = raw.tolist()
+    averages: list[list[int]] = avg.tolist()
+    combined = combined_array.tolist()
     k = len(shared.noisy)
     if k == 0:
         rows_snr: list[tuple[float, ...]] = [()] * count

@@ -47,6 +47,8 @@ from sweeprig.analysis.figures import (
 if TYPE_CHECKING:
     import pandas as pd
 
+    from sweeprig.analysis.figure_block import Part
+
 #: Positional (downconverter) figure name → the upconverter's name for it.
 UP_NAMES: Mapping[str, str] = MappingProxyType({
     "lo_if_isolation": "lo_rf_isolation",
@@ -75,6 +77,24 @@ def name_in_trade_words(figures: list[Figure], conversion: str) -> None:
         name = UP_NAMES.get(f.name)
         if name is not None:
             figures[i] = with_changes(f, name=name)
+
+
+def name_parts_in_trade_words(parts: Sequence[Part], conversion: str) -> list[Part]:
+    """:func:`name_in_trade_words` of a run's figures held as parts."""
+    from sweeprig.analysis.figure_block import FigureBlock
+
+    if conversion != "up":
+        return list(parts)
+    out: list[Part] = []
+    for part in parts:
+        if isinstance(part, FigureBlock):
+            name = UP_NAMES.get(part.name)
+            out.append(part if name is None else part.with_columns(name=name))
+        else:
+            figures = list(part)
+            name_in_trade_words(figures, conversion)
+            out.append(tuple(figures))
+    return out
 
 
 def trade_name(positional: str, conversion: str) -> str:
@@ -108,17 +128,53 @@ def output_frequency_conditions(figures: Sequence[Figure], orders: tuple[int, in
     :func:`with_output_frequency` adds it, or None where it gains none."""
     from sweeprig.analysis.figure_table import distinct_conditions
 
+    distinct, which = distinct_conditions(figures)
+    return _extended(distinct, orders)[which].tolist()
+
+
+def add_output_frequency_to_parts(parts: Sequence[Part], orders: tuple[int, int] | None
+                                  ) -> list[Part]:
+    """:func:`add_output_frequency_in_place` of a run's figures held as parts
+    (:mod:`sweeprig.analysis.figure_block`): a block's conditions column replaced, each
+    distinct mapping of all the parts extended once, as for a list of figures."""
+    from sweeprig.analysis.figure_block import FigureBlock, part_conditions
+    from sweeprig.analysis.figure_table import distinct_mappings
+
+    every = part_conditions(parts)
+    if every.size == 0:
+        return list(parts)
+    distinct, which = distinct_mappings(every)
+    extended = _extended(distinct, orders)[which]
+    out: list[Part] = []
+    first = 0
+    for part in parts:
+        mine = extended[first:first + len(part)]
+        first += len(part)
+        if isinstance(part, FigureBlock):
+            gained = np.not_equal(mine, None)
+            if gained.any():
+                part = part.with_columns(conditions=np.where(gained, mine, part.conditions))
+            out.append(part)
+        else:
+            out.append(tuple(f if c is None else with_conditions(f, c)
+                             for f, c in zip(part, mine.tolist(), strict=True)))
+    return out
+
+
+def _extended(distinct: Sequence[Mapping[str, float | int | str]],
+              orders: tuple[int, int] | None) -> np.ndarray:
+    """Per distinct conditions mapping, it with ``output_freq_hz`` added, or None where it
+    gains none (object array)."""
     m, n = orders if orders is not None else (1, -1)
     # Figures of one point share one conditions mapping (the analysis makes it once per
     # point): each distinct one is extended once, and its figures share the extended one.
-    distinct, which = distinct_conditions(figures)
     extended = np.empty(len(distinct), dtype=object)
     for i, c in enumerate(distinct):
         lo, rf = c.get("lo_freq_hz"), c.get("rf_freq_hz")
         if OUTPUT_FREQ in c or not isinstance(lo, float | int) or not isinstance(rf, float | int):
             continue
         extended[i] = MappingProxyType({**c, OUTPUT_FREQ: float(abs(m * lo + n * rf))})
-    return extended[which].tolist()
+    return extended
 
 
 def upconverter_figures(

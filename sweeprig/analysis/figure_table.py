@@ -51,13 +51,18 @@ def figure_columns(figures: Sequence[Figure], names: Iterable[str] | None = None
     """:func:`figure_table`'s rows (positions in ``figures``) and columns as numpy arrays
     (text and ``points`` as object arrays), without building the DataFrame: for a caller
     that formats them at once (the report's figure table)."""
+    from sweeprig.analysis.figure_block import Figures
+
     wanted = None if names is None else frozenset(names)
     rows: list[int] = []
     picked: list[Figure] = []
-    for i, f in enumerate(figures):
-        if wanted is None or f.name in wanted:
-            rows.append(i)
-            picked.append(f)
+    if isinstance(figures, Figures) and wanted is not None:
+        rows, picked = figures.named(wanted)  # (a block of another name is not made)
+    else:
+        for i, f in enumerate(figures):
+            if wanted is None or f.name in wanted:
+                rows.append(i)
+                picked.append(f)
     columns = base_columns(picked)
     # figures of one point or group share their conditions mapping: read each distinct
     # mapping once (in order of first appearance) and spread its values by index
@@ -169,7 +174,12 @@ class RunConditions:
 
     @classmethod
     def of(cls, figures: Sequence[Figure]) -> RunConditions:
-        mappings, which = distinct_conditions(figures)
+        from sweeprig.analysis.figure_block import Figures, part_conditions
+
+        if isinstance(figures, Figures):  # (a block's column: none of its figures made)
+            mappings, which = distinct_mappings(part_conditions(figures.parts))
+        else:
+            mappings, which = distinct_conditions(figures)
         return cls(mappings, which, condition_arrays(mappings))
 
     @property
@@ -181,8 +191,13 @@ def distinct_conditions(figures: Sequence[Figure]
                          ) -> tuple[list[Mapping[str, object]], np.ndarray]:
     """The distinct conditions mappings (by identity) of ``figures`` in order of first
     appearance, and per figure the index of its own among them."""
-    mappings = [f.conditions for f in figures]
-    if not mappings:
+    return distinct_mappings([f.conditions for f in figures])
+
+
+def distinct_mappings(mappings: Sequence[Mapping[str, object]]
+                      ) -> tuple[list[Mapping[str, object]], np.ndarray]:
+    """:func:`distinct_conditions` of the mappings themselves (a list or object array)."""
+    if not len(mappings):
         return [], np.zeros(0, dtype=np.int64)
     ids = np.fromiter(map(id, mappings), dtype=np.uint64, count=len(mappings))
     _, first, inverse = np.unique(ids, return_index=True, return_inverse=True)

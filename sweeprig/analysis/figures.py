@@ -654,11 +654,7 @@ def flag_marked_points(
     points ((flag name, run-store point indices) per mark); the others are returned as
     they are. One pass however many marks: a figure flagged several times is made again
     once."""
-    bits: dict[int, int] = {}
-    for name, points in marks:
-        bit = _FLAG_BIT[name]
-        for p in set(map(int, points)):
-            bits[p] = bits.get(p, 0) | bit
+    bits = mark_bits(marks)
     if not bits:
         return list(figures)
     get = bits.get
@@ -682,6 +678,17 @@ def flag_marked_points(
                 figure = with_changes(figure, flags=flags_from_mask(mask | added))
         append(figure)
     return out
+
+
+def mark_bits(marks: Sequence[tuple[str, Iterable[int]]]) -> dict[int, int]:
+    """Per run-store point, the flag bits ``marks`` add to its figures ((flag name,
+    points) per mark, as :func:`flag_marked_points` takes them)."""
+    bits: dict[int, int] = {}
+    for name, points in marks:
+        bit = _FLAG_BIT[name]
+        for p in set(map(int, points)):
+            bits[p] = bits.get(p, 0) | bit
+    return bits
 
 
 @contextmanager

@@ -29,6 +29,7 @@ not pass: a passing partial run is inconclusive.
 
 from __future__ import annotations
 
+import collections.abc as abc
 import functools
 import json
 import math
@@ -152,7 +153,7 @@ class RunFigures:
     instruments: tuple[InstrumentRecord, ...]
     duration_sim_s: float | None
     duration_wall_s: float | None
-    figures: tuple[Figure, ...]
+    figures: abc.Sequence[Figure]
     limits: tuple[Limit, ...]
     assessment: Assessment
     verdict: Verdict
@@ -177,6 +178,10 @@ class RunFigures:
 
     def figures_named(self, name: str) -> list[Figure]:
         """Every figure called ``name``, in reduction order."""
+        from sweeprig.analysis.figure_block import Figures
+
+        if isinstance(self.figures, Figures):  # (a block of another name is not made)
+            return self.figures.named([name])[1]
         return [f for f in self.figures if f.name == name]
 
     def figure_table(self, *names: str) -> pd.DataFrame:
@@ -253,8 +258,12 @@ def reduce_loaded(loaded: LoadedRun) -> RunFigures:
 
 def _reduce_loaded(loaded: LoadedRun) -> RunFigures:
     from sweeprig.analysis.bench_specs import calibration_state, specs_from_bench_text
-    from sweeprig.analysis.budget_groups import attach_uncertainty_in_place
-    from sweeprig.analysis.direction import add_output_frequency_in_place, name_in_trade_words
+    from sweeprig.analysis.budget_groups import attach_uncertainty_to_parts, blockable
+    from sweeprig.analysis.direction import (
+        add_output_frequency_to_parts,
+        name_parts_in_trade_words,
+    )
+    from sweeprig.analysis.figure_block import Figures, Part, flag_marked_parts, packed
 
     info, events, captures = loaded.info, loaded.events, loaded.captures
     points, readings = loaded.points, loaded.readings
@@ -276,17 +285,22 @@ def _reduce_loaded(loaded: LoadedRun) -> RunFigures:
     del readings
     release_freed_memory()  # (the readings table's pages, before the figures are made)
     studies = _study_infos(captures, points, sequence)
-    figures = _figures(captures, studies, notes,
-                       spur_counting(sequence) if sequence is not None else {})
+    # a large run's figures of one name from one point each are held as columns from here
+    # on (sweeprig.analysis.figure_block), each analysis' as it comes; each pass below
+    # gives new parts, the old ones let go
+    parts: list[Part] = []
+    keep = parts.extend
+    _figures(captures, studies, notes,
+             spur_counting(sequence) if sequence is not None else {},
+             add=lambda new: keep(packed(new, blockable=blockable)))
     if conversion == "up" and not captures.empty:
         from sweeprig.analysis.direction import upconverter_figures
 
         if names := [s.name for s in studies
                      if ROLE_ISOLATION in s.roles or ROLE_SIDEBAND in s.roles]:
-            figures += upconverter_figures(captures, study=names)
+            parts += packed(upconverter_figures(captures, study=names), blockable=blockable)
     # a point's state (its supply, its power) holds for every figure of the point, its noise
     # figures' too (they are made apart and added last)
-    count = len(figures)
     marks = _supply_limited_marks(captures, points, notes)
     marks += _role_marks(points, notes)
     marks += _temperature_off_marks(points, temperature_tolerance_c(sequence), notes)
@@ -295,9 +309,8 @@ def _reduce_loaded(loaded: LoadedRun) -> RunFigures:
         expected_current = getattr(sequence.part, "expected_supply_current", None)
         if expected_current is not None:
             marks += _supply_current_marks(captures, float(expected_current), notes)
-    both = flag_marked_points(figures + noise_figures, marks)
-    figures, noise_figures = both[:count], both[count:]
-    del both
+    parts = flag_marked_parts(parts, marks)
+    noise_figures = flag_marked_points(noise_figures, marks)
     duration_sim_s = _sim_duration(points)
     duration_wall_s = _wall_duration(info.created, info.finished, points)
     del points  # (its last use: not held while the figures are rebuilt)
@@ -306,18 +319,23 @@ def _reduce_loaded(loaded: LoadedRun) -> RunFigures:
     notes += _unchecked_notes(events)
     calibration, calibration_note = calibration_state(events)
     notes += [calibration_note] if calibration_note else []
-    # each pass replaces the figures of this list where they stand (never two copies held);
     # the output frequency first, so that the old conditions mappings are freed before the
     # budgets are made (a budget does not depend on the output frequency: the tests compare
     # this order with the copying passes in the other)
-    add_output_frequency_in_place(figures, orders)
+    parts = add_output_frequency_to_parts(parts, orders)
     release_freed_memory()  # (the old conditions mappings)
-    attach_uncertainty_in_place(figures, captures, bench_specs.specs, calibration)
+    parts = attach_uncertainty_to_parts(parts, captures, bench_specs.specs, calibration)
     release_freed_memory()
-    name_in_trade_words(figures, conversion)
-    figures += noise_figures
+    parts = name_parts_in_trade_words(parts, conversion)
+    figures = Figures([*parts, noise_figures])
+    del parts
     limits = limits_from_sequence(sequence) if sequence is not None else ()
-    assessment = assess(figures, limits, guard_band=bench_specs.guard_band)
+    # the figures a limit judges are made once and kept: the report joins its judgements
+    # to them by identity
+    judged_names = {limit.name for limit in limits}
+    figures.pin(judged_names)
+    assessment = assess(figures.named(judged_names)[1], limits,
+                        guard_band=bench_specs.guard_band)
     state = _state(info.status, info.points_done, info.points_total)
     verdict: Verdict = assessment.verdict
     if not limits:
@@ -355,7 +373,7 @@ def _reduce_loaded(loaded: LoadedRun) -> RunFigures:
         instruments=info.instruments,
         duration_sim_s=duration_sim_s,
         duration_wall_s=duration_wall_s,
-        figures=tuple(figures),
+        figures=figures,
         limits=tuple(limits),
         assessment=assessment,
         verdict=verdict,
@@ -499,10 +517,12 @@ def spur_counting(
 def _figures(
     captures: pd.DataFrame, studies: tuple[StudyInfo, ...], notes: list[str],
     counting: Mapping[str, tuple[tuple[float, float] | None, tuple[tuple[int, int], ...]]]
-    | None = None,
+    | None = None, *, add: Callable[[list[Figure]], None] | None = None,
 ) -> list[Figure]:
     """Every figure of the run, study roles deciding which analysis runs where
-    (``counting``: :func:`spur_counting` of the sequence)."""
+    (``counting``: :func:`spur_counting` of the sequence). ``add``: given each analysis'
+    figures as they are made, instead of their being kept in the list returned (then
+    empty)."""
     from sweeprig import analysis as an
 
 
@@ -510,50 +530,51 @@ def _figures(
         return [s.name for s in studies if role in s.roles]
 
     figures: list[Figure] = []
+    add = add or figures.extend
     if captures.empty:
         notes.append("no readings are stored yet: no figures")
         return figures
     if names := having(ROLE_GAIN):
-        figures += an.conversion_gain_figures(captures, study=names)
+        add(an.conversion_gain_figures(captures, study=names))
     if names := having(ROLE_FLATNESS):
         # over the input frequency where it moves; else over the output, which the LO moves
         by_input = [n for n in names if _varies_in(captures, n, "rf_freq_hz")]
         by_output = [n for n in names if n not in by_input]
         if by_input:
-            figures += an.gain_flatness_figures(captures, study=by_input)
+            add(an.gain_flatness_figures(captures, study=by_input))
         if by_output and OUTPUT_FREQ in captures.columns:
-            figures += an.gain_flatness_figures(captures, study=by_output, over=OUTPUT_FREQ,
-                                                along=("lo_freq_hz",))
+            add(an.gain_flatness_figures(captures, study=by_output, over=OUTPUT_FREQ,
+                                         along=("lo_freq_hz",)))
     if names := having(ROLE_TEMPCO):
-        figures += an.gain_tempco_figures(captures, study=names)
+        add(an.gain_tempco_figures(captures, study=names))
     compression: list[Figure] = []
     if names := having(ROLE_COMPRESSION):
         compression = an.compression_figures(captures, study=names)
-        figures += compression
+        add(compression)
     if names := having(ROLE_TWO_TONE):
         source = an.p1db_matcher(compression) if compression else None
         if source is None:
             notes.append("no P1dB in this run: the intercept fits chose their range from the "
                          "fundamental's slope")
-        figures += an.intercept_figures(captures, study=names, input_p1db_dbm=source)
+        add(an.intercept_figures(captures, study=names, input_p1db_dbm=source))
     if names := having(ROLE_LO_DRIVE):
-        figures += an.lo_drive_figures(captures, study=names)
+        add(an.lo_drive_figures(captures, study=names))
     if names := having(ROLE_ISOLATION):
-        figures += an.isolation_figures(captures, study=names)
+        add(an.isolation_figures(captures, study=names))
     if names := having(ROLE_IMAGE):
-        figures += an.image_rejection_figures(captures, study=names)
+        add(an.image_rejection_figures(captures, study=names))
     if names := having(ROLE_SUPPLY):
-        figures += an.supply_figures(captures, study=names)
+        add(an.supply_figures(captures, study=names))
     if names := having(ROLE_SPURS):
         counting = counting or {}
         plain = [n for n in names if n not in counting]
         if plain:
-            figures += an.spur_figures(captures, study=plain)
+            add(an.spur_figures(captures, study=plain))
         for name in names:
             if name in counting:
                 band, expected = counting[name]
-                figures += an.spur_figures(captures, study=name, if_band_hz=band,
-                                           expected=expected)
+                add(an.spur_figures(captures, study=name, if_band_hz=band,
+                                    expected=expected))
     return figures
 
 

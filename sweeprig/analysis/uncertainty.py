@@ -624,9 +624,14 @@ def _plain(reading: str) -> str:
 def _noise_reading(model: _Model, figure: Figure) -> str | None:
     """The reading whose noise matters for ``figure``: an m×n spur's own (from the figure's
     conditions), not the last spur read at its point."""
+    return noise_reading_at(model, figure.conditions)
+
+
+def noise_reading_at(model: _Model, conditions: Mapping[str, object]) -> str | None:
+    """:func:`_noise_reading` of a figure of ``model`` with ``conditions``."""
     reading = model.noise_reading
     if reading == "spur":
-        m, n = figure.conditions.get("m"), figure.conditions.get("n")
+        m, n = conditions.get("m"), conditions.get("n")
         if isinstance(m, int | float) and isinstance(n, int | float):
             return spur_key(m, n)
     return reading

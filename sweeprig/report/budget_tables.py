@@ -26,7 +26,7 @@ from __future__ import annotations
 
 import csv
 import math
-from collections.abc import Iterable, Mapping, Sequence
+from collections.abc import Iterable, Iterator, Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -34,6 +34,7 @@ import numpy as np
 import pandas as pd
 
 from sweeprig.analysis.budget_parts import FigureBudget, SharedBudget, budget_lines
+from sweeprig.analysis.figure_block import FigureBlock, Figures, block_rows_between
 from sweeprig.analysis.figures import Figure, collector_paused
 from sweeprig.analysis.reduce import RunFigures
 from sweeprig.analysis.uncertainty import DIVISORS, MODELS, Contribution
@@ -107,24 +108,60 @@ def figure_budgets(run: RunFigures) -> FigureBudgets:
         return tuple(term_numbers.setdefault(line, len(term_numbers)) for line in lines)
 
     owners: list[tuple[int, FigureBudget]] = []  # the fitted figures with their own lines
+
+    def met(part: SharedBudget) -> None:
+        if id(part) not in by_id:
+            number = shared_numbers.get(part)
+            if number is None:
+                number = shared_numbers[part] = len(shared)
+                shared.append(part)
+                shared_terms.append(numbers(part.lines))
+            by_id[id(part)] = number
+
     with collector_paused():
-        for i, figure in enumerate(run.figures):
-            budget = figure.budget
+        for i, part_or_figure in _budget_holders(run.figures):
+            if isinstance(part_or_figure, FigureBlock):
+                # a block's shared parts, in order of first use (none of its figures made)
+                for part in _first_used(part_or_figure):
+                    met(part)
+                continue
+            budget = part_or_figure.budget
             if budget is None:
                 continue
-            part = budget.shared
-            if id(part) not in by_id:
-                number = shared_numbers.get(part)
-                if number is None:
-                    number = shared_numbers[part] = len(shared)
-                    shared.append(part)
-                    shared_terms.append(numbers(part.lines))
-                by_id[id(part)] = number
+            met(budget.shared)
             if budget.own_lines:
                 owners.append((i, budget))
         own = {i: " ".join(map(str, numbers(b.own_lines))) for i, b in owners}
     return FigureBudgets(tuple(term_numbers), tuple(shared), tuple(shared_terms),
                          run.figures, by_id, own)
+
+
+def _budget_holders(figures: Sequence[Figure]
+                    ) -> Iterator[tuple[int, Figure | FigureBlock]]:
+    """(position, figure) per loose figure and (position of its first, block) per block,
+    in order (a plain sequence: every figure)."""
+    if not isinstance(figures, Figures):
+        yield from enumerate(figures)
+        return
+    starts = figures.part_starts()
+    for k, part in enumerate(figures.parts):
+        if isinstance(part, FigureBlock):
+            yield starts[k], part
+        else:
+            yield from enumerate(part, starts[k])
+
+
+def _first_used(block: FigureBlock) -> list[SharedBudget]:
+    """The distinct shared parts of a block's budgets, in order of first use."""
+    if block.budgets is None:
+        return []
+    column = block.budgets.shared
+    held = np.flatnonzero(np.not_equal(column, None))
+    if held.size == 0:
+        return []
+    ids = np.fromiter(map(id, column[held]), dtype=np.uint64, count=held.size)
+    _, first = np.unique(ids, return_index=True)
+    return [column[held[i]] for i in sorted(first.tolist())]
 
 
 def budget_columns(budgets: FigureBudgets, first: int = 0, stop: int | None = None
@@ -133,6 +170,9 @@ def budget_columns(budgets: FigureBudgets, first: int = 0, stop: int | None = No
     figures ``first`` to ``stop`` (the whole run by default): its shared part's number, u_c,
     per reading whose noise matters its SNR, scatter SNR and sweeps, and its own lines'
     numbers (empty or NaN without a budget)."""
+    stop = len(budgets.figures) if stop is None else min(stop, len(budgets.figures))
+    if isinstance(budgets.figures, Figures):
+        return _parts_budget_columns(budgets, first, stop)
     figures = budgets.figures[first:stop]
     count = len(figures)
     nan = math.nan
@@ -169,6 +209,60 @@ def budget_columns(budgets: FigureBudgets, first: int = 0, stop: int | None = No
                     own[i] = text
         columns["own_terms"] = own
     return columns
+
+
+def _parts_budget_columns(budgets: FigureBudgets, first: int, stop: int
+                          ) -> dict[str, np.ndarray]:
+    """:func:`budget_columns` of a run's figures held as parts: a block's read from its
+    budget columns, the loose figures' as there."""
+    figures = budgets.figures
+    assert isinstance(figures, Figures)
+    count = stop - first
+    loose_rows = np.ones(count, dtype=bool)
+    text = {"budget", "own_terms", *BUDGET_INTEGER_COLUMNS}
+    columns = {name: (np.full(count, None, dtype=object) if name in text
+                      else np.full(count, math.nan)) for name in BUDGET_FIGURE_COLUMNS}
+    columns["own_terms"][:] = ""
+    number = budgets.shared_numbers
+    for row, block, lo, hi in block_rows_between(figures, first, stop):
+        rows = slice(row, row + hi - lo)
+        loose_rows[rows] = False
+        held = block.budgets
+        if held is None:
+            continue
+        shared = held.shared[lo:hi]
+        has = np.not_equal(shared, None)
+        ids = np.full(hi - lo, None, dtype=object)
+        ids[has] = [number[id(b)] for b in shared[has]]
+        columns["budget"][rows] = ids
+        columns["combined_uncertainty_db"][rows] = held.combined_db[lo:hi]
+        width = held.snr_db.shape[1]
+        for k in range(min(width, NOISE_SLOTS)):
+            snr_name, scatter_name, averages_name = _slot_names(k)
+            columns[snr_name][rows] = held.snr_db[lo:hi, k]
+            scatter = held.scatter_snr_db[lo:hi, k]
+            columns[scatter_name][rows] = scatter
+            averages = np.full(hi - lo, None, dtype=object)
+            seen = ~np.isnan(scatter)
+            averages[seen] = held.averages[lo:hi, k][seen].tolist()
+            columns[averages_name][rows] = averages
+    # the loose figures as budget_columns gives them, a run of them at a time
+    at = np.flatnonzero(loose_rows)
+    if at.size:
+        breaks = np.flatnonzero(np.diff(at) != 1) + 1
+        for run_rows in np.split(at, breaks):
+            lo, hi = int(run_rows[0]), int(run_rows[-1]) + 1
+            plain = FigureBudgets(budgets.terms, budgets.shared, budgets.shared_terms,
+                                  figures.between(first + lo, first + hi),
+                                  budgets.shared_numbers, _shifted(budgets.own_terms,
+                                                                   first + lo))
+            for name, values in budget_columns(plain).items():
+                columns[name][lo:hi] = values
+    return columns
+
+
+def _shifted(own_terms: Mapping[int, str], by: int) -> Mapping[int, str]:
+    return {i - by: text for i, text in own_terms.items() if i >= by}
 
 
 def budgets_frame(budgets: FigureBudgets) -> pd.DataFrame:

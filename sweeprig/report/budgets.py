@@ -13,16 +13,15 @@ import html
 from sweeprig.analysis.budget_parts import budget_lines
 from sweeprig.analysis.figures import Figure
 from sweeprig.analysis.reduce import RunFigures
-from sweeprig.report.tables import FIGURE_LABELS, HEADLINE_FIGURES, figure_text
+from sweeprig.report.tables import FIGURE_LABELS, HEADLINE_FIGURES, figure_text, shown_figures
 
 
 def widest_budgets(run: RunFigures) -> list[Figure]:
     """Per headline figure name (in headline order), its figure with the widest U (the
     first of equals, in reduction order)."""
     widest: dict[str, Figure] = {}
-    wanted = frozenset(HEADLINE_FIGURES)
-    for f in run.figures:  # one pass (a large run: hundreds of thousands of figures)
-        if f.budget is not None and f.name in wanted:
+    for f in shown_figures(run, HEADLINE_FIGURES):
+        if f.budget is not None:
             held = widest.get(f.name)
             if held is None or f.uncertainty_db > held.uncertainty_db:
                 widest[f.name] = f

@@ -41,6 +41,7 @@ from sweeprig.report.tables import (
     format_condition,
     limit_text,
     limit_texts,
+    shown_figures,
 )
 
 #: Conditions that make the corners of a row, in the order the conditions column names them.
@@ -138,10 +139,9 @@ def datasheet_rows(run: RunFigures) -> list[DatasheetRow]:
                                       if n not in HEADLINE_FIGURES]
     wanted = frozenset(names)
     groups: dict[tuple[str, str], list[Figure]] = {}
-    for figure in run.figures:
-        if figure.name in wanted:
-            key = (figure.name, str(figure.conditions.get("study", "")))
-            groups.setdefault(key, []).append(figure)
+    for figure in shown_figures(run, wanted):
+        key = (figure.name, str(figure.conditions.get("study", "")))
+        groups.setdefault(key, []).append(figure)
     order = {s.name: i for i, s in enumerate(run.studies)}
     keys = sorted(groups, key=lambda k: (names.index(k[0]), order.get(k[1], len(order)), k[1]))
     return [_row(name, study, groups[(name, study)], judged, run) for name, study in keys]

@@ -37,6 +37,7 @@ from sweeprig.analysis.captures import (
     point_table,
 )
 from sweeprig.analysis.compression import compression_table
+from sweeprig.analysis.figure_block import Figures
 from sweeprig.analysis.figures import Figure, flag_bit
 from sweeprig.analysis.gain import gain_table
 from sweeprig.analysis.reduce import RunFigures
@@ -168,12 +169,7 @@ def figure_frame(run: RunFigures, names: str | Sequence[str]) -> pd.DataFrame:
     carry (SI units, NaN where a figure lacks it). Every plot reads figures through here and
     nowhere else, so the source can change (a columnar figure store) without touching a plot.
     """
-    index = _figures_by_name(run)
-    figures = [f for name in dict.fromkeys([names] if isinstance(names, str) else names)
-               for f in index.get(name, ())]
-    if not isinstance(names, str) and len(names) > 1:  # reduction order across the names
-        order = {id(f): k for k, f in enumerate(run.figures)} if figures else {}
-        figures.sort(key=lambda f: order[id(f)])
+    figures = _named_figures(run, [names] if isinstance(names, str) else names)
     columns: dict[str, object] = {
         "name": [f.name for f in figures],
         "value": [f.value for f in figures],
@@ -217,14 +213,14 @@ def _once_per_run(run: RunFigures, what: str, make: Callable[[], object]) -> obj
     return cache[what]
 
 
-def _figures_by_name(run: RunFigures) -> dict[str, list[Figure]]:
-    """The run's figures grouped by name, in reduction order (built once per run)."""
-    def index() -> dict[str, list[Figure]]:
-        out: dict[str, list[Figure]] = {}
-        for figure in run.figures:
-            out.setdefault(figure.name, []).append(figure)
-        return out
-    return _once_per_run(run, "figures_by_name", index)  # type: ignore[return-value]
+def _named_figures(run: RunFigures, names: Sequence[str]) -> list[Figure]:
+    """The run's figures called any of ``names``, in reduction order (a block of figures
+    held as columns is made only when its name is asked for)."""
+    figures = run.figures
+    if isinstance(figures, Figures):
+        return figures.named(names)[1]
+    wanted = frozenset(names)
+    return [f for f in figures if f.name in wanted]
 
 
 def _frame_figure(row: Mapping[str, object]) -> Figure:

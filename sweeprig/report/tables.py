@@ -34,6 +34,7 @@ import numpy as np
 import pandas as pd
 
 from sweeprig import __version__
+from sweeprig.analysis.figure_block import Figures
 from sweeprig.analysis.figures import (
     FIGURE_CATALOGUE,
     FLAG_MEANINGS,
@@ -344,7 +345,7 @@ def summary_rows(run: RunFigures, by: Sequence[str] = GROUP_KEYS) -> list[Summar
     names = list(HEADLINE_FIGURES) + [n for n in dict.fromkeys(limited)
                                       if n not in HEADLINE_FIGURES]
     by_name: dict[str, list[Figure]] = {}
-    for figure in run.figures:
+    for figure in shown_figures(run, names):
         by_name.setdefault(figure.name, []).append(figure)
     rows: list[SummaryRow] = []
     # figures of one point share their conditions mapping: its group key is made once
@@ -361,6 +362,18 @@ def summary_rows(run: RunFigures, by: Sequence[str] = GROUP_KEYS) -> list[Summar
             rows.append(_summary_row(name, members, judged, run.limits, tuple(by),
                                      run.conversion))
     return rows
+
+
+def shown_figures(run: RunFigures, names: Iterable[str]) -> list[Figure]:
+    """The run's figures called any of ``names``, in reduction order, each the one object
+    every later reading of it gives (a figure held in a block is made once and kept: the
+    report's tables join a shown figure to its row by identity)."""
+    names = set(names)
+    figures = run.figures
+    if isinstance(figures, Figures):
+        figures.pin(names)
+        return figures.named(names)[1]
+    return [f for f in figures if f.name in names]
 
 
 def _summary_row(
@@ -568,7 +581,13 @@ def _document(run: RunFigures, budgets: FigureBudgets,
         summary = summary_rows(run)
     wanted = {id(j.figure) for j in run.assessment.judgements}
     wanted.update(id(r.figure) for r in summary)
-    index = {id(f): i for i, f in enumerate(run.figures) if id(f) in wanted}
+    if isinstance(run.figures, Figures):  # (only the names met: a block is not made)
+        names = {j.figure.name for j in run.assessment.judgements}
+        names.update(r.figure.name for r in summary if r.figure is not None)
+        positions, met = run.figures.named(names)
+        index = {id(f): i for i, f in zip(positions, met, strict=True) if id(f) in wanted}
+    else:
+        index = {id(f): i for i, f in enumerate(run.figures) if id(f) in wanted}
     return {
         "format": FIGURES_FORMAT,
         "generated_utc": datetime.now(UTC).isoformat(timespec="seconds"),
@@ -894,13 +913,17 @@ def _figure_rows(run: RunFigures, budgets: FigureBudgets, first: int, stop: int,
                  kinds: Mapping[str, bool], verdicts: Mapping[int, str]) -> pd.DataFrame:
     """Rows ``first`` to ``stop`` of the figure table (see :func:`figures_frame`), with a
     column for every key of ``kinds``; ``verdicts``: :func:`figure_verdicts` of ``run``."""
-    from sweeprig.analysis.figure_table import base_columns
+    from sweeprig.analysis.figure_block import columns_between
     from sweeprig.analysis.figures import flags_from_mask
 
-    figures = run.figures[first:stop]
-    # the one builder of a figure table's columns, here made into text; the conditions
-    # from the run's columns (read once per distinct mapping, not once per slice)
-    table = base_columns(figures)
+    # the one builder of a figure table's columns, here made into text (a block's read
+    # from its columns); the conditions from the run's columns (read once per distinct
+    # mapping, not once per slice)
+    table, known = columns_between(run.figures, first, stop)
+    count = stop - first
+    verdict = np.full(count, "", dtype=object)
+    for row, f in known:
+        verdict[row] = verdicts.get(id(f), "")
     conditions = run.figure_conditions
     which = conditions.which[first:stop]
     masks = table["flags"].tolist()
@@ -913,7 +936,7 @@ def _figure_rows(run: RunFigures, budgets: FigureBudgets, first: int, stop: int,
         "bound": table["bound"],
         "uncertainty_db": table["uncertainty_db"],
         "text": _texts3(table),
-        "verdict": np.array([verdicts.get(id(f), "") for f in figures], dtype=object),
+        "verdict": verdict,
         "flags": np.array([flag_texts[m] for m in masks], dtype=object),
         "points": _points_texts(table["points"].tolist()),
         # the budget columns, as the budgets give them (whole numbers with empty cells:
@@ -923,7 +946,7 @@ def _figure_rows(run: RunFigures, budgets: FigureBudgets, first: int, stop: int,
     for key, text in kinds.items():
         values = conditions.arrays.get(key)
         if values is None:  # (a key of ``kinds`` the run does not hold)
-            columns[key] = np.full(len(figures), "" if text else np.nan,
+            columns[key] = np.full(count, "" if text else np.nan,
                                    dtype=object if text else float)
         else:
             columns[key] = values[which]

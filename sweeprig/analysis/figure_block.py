@@ -1,0 +1,479 @@
+"""A run's figures held as columns where they are many: :class:`FigureBlock`, :class:`Figures`.
+
+Most figures of a large run are read at one point each: an IM3 level, a spur, a supply
+current, at every point of a sweep. Held as :class:`~sweeprig.analysis.figures.Figure`
+objects, each costs several hundred bytes (the object, its value, its points tuple, its
+budget); held as columns, one of a name costs a few dozen. A :class:`FigureBlock` holds the
+figures of one name made by one analysis, each from one point: value, bound, flag mask,
+conditions (the analysis' shared mappings), point, expanded uncertainty and, once budgets are
+attached, its budget as columns (:class:`BlockBudgets`).
+
+:class:`Figures` is a run's figures in reduction order: blocks and plain figures, one after
+the other. It is a ``Sequence[Figure]``: indexing or iterating it makes each figure of a
+block as the same :class:`Figure` the analysis would have made (equal field by field, its
+budget equal too); the report's writers read the blocks' columns instead
+(:meth:`Figures.parts`). A figure made twice is two equal objects, not one: the few figures
+that are joined by identity later (those a limit judges) are made once and kept
+(:meth:`Figures.pin`), so every later reading of them gives that one object.
+
+:func:`packed` turns a list of figures into parts: each run of at least
+:data:`BLOCK_MIN_FIGURES` figures of one name and unit, each from one point, without a
+budget, becomes a block (a small run's figures stay as they are).
+"""
+
+from __future__ import annotations
+
+import bisect
+import math
+from collections.abc import Callable, Iterable, Iterator, Mapping, Sequence
+from dataclasses import dataclass, replace
+from typing import overload
+
+import numpy as np
+
+from sweeprig.analysis.budget_parts import FigureBudget, SharedBudget
+from sweeprig.analysis.figures import (
+    BOUND_ABOVE,
+    BOUND_BELOW,
+    BOUND_NONE,
+    Figure,
+    collector_paused,
+    flag_bit,
+    flag_marked_points,
+    flags_from_mask,
+    mark_bits,
+)
+from sweeprig.analysis.writable_twin import writable_twin
+
+#: The fewest figures of one name (from one analysis) held as a block.
+BLOCK_MIN_FIGURES = 512
+
+_SYMBOLS = {BOUND_NONE: None, BOUND_BELOW: "<", BOUND_ABOVE: ">"}
+_CODES = {None: BOUND_NONE, "<": BOUND_BELOW, ">": BOUND_ABOVE}
+_OpenFigure = writable_twin(Figure)
+_OpenFigureBudget = writable_twin(FigureBudget)
+
+
+@dataclass(frozen=True, eq=False)
+class BlockBudgets:
+    """The budgets of a block's figures as columns, a row a figure: ``shared`` its
+    :class:`~sweeprig.analysis.budget_parts.SharedBudget` (None: the figure has no budget),
+    and per reading of its shared part's ``noisy`` (column k; NaN and 1 past them) ``snr_db``,
+    ``scatter_snr_db`` and ``averages``, ``combined_db`` its u_c (dB). A figure's
+    :class:`~sweeprig.analysis.budget_parts.FigureBudget` is :meth:`row`."""
+
+    shared: np.ndarray  # object: SharedBudget | None
+    snr_db: np.ndarray  # float, (figures, readings)
+    scatter_snr_db: np.ndarray  # float, (figures, readings)
+    averages: np.ndarray  # int64, (figures, readings)
+    combined_db: np.ndarray  # float
+
+    def row(self, i: int) -> FigureBudget | None:
+        """The budget of the block's figure ``i`` (None: it has none)."""
+        shared: SharedBudget | None = self.shared[i]
+        if shared is None:
+            return None
+        k = len(shared.noisy)
+        snr = tuple(self.snr_db[i, :k].tolist())
+        scatter = tuple(self.scatter_snr_db[i, :k].tolist())
+        return _budget(shared, snr, scatter, tuple(self.averages[i, :k].tolist()),
+                       float(self.combined_db[i]))
+
+    def take(self, rows: np.ndarray) -> BlockBudgets:
+        return BlockBudgets(self.shared[rows], self.snr_db[rows], self.scatter_snr_db[rows],
+                            self.averages[rows], self.combined_db[rows])
+
+
+def _budget(shared: SharedBudget, snr: tuple[float, ...], scatter: tuple[float, ...],
+            averages: tuple[int, ...], combined: float) -> FigureBudget:
+    if snr == scatter:  # one tuple where the two are the same, as the group budgets share
+        scatter = snr
+    if _OpenFigureBudget is None:
+        return FigureBudget(shared, snr, scatter, averages, (), combined)
+    budget = _OpenFigureBudget()
+    budget.shared = shared
+    budget.snr_db = snr
+    budget.scatter_snr_db = scatter
+    budget.averages = averages
+    budget.own_lines = ()
+    budget.combined_db = combined
+    budget.__class__ = FigureBudget  # type: ignore[assignment]
+    return budget  # type: ignore[return-value]
+
+
+@dataclass(frozen=True, eq=False)
+class FigureBlock:
+    """Figures of one name and unit, each from one point, as columns (see the module
+    docstring): ``value`` (float, in ``unit``), ``bound`` (bound codes), ``flags`` (flag
+    masks), ``conditions`` (object: a mapping each, shared as the analysis made them),
+    ``point`` (the run-store point of each), ``uncertainty_db`` (expanded, NaN without a
+    budget) and ``budgets`` (None: no figure has one yet)."""
+
+    name: str
+    unit: str
+    value: np.ndarray
+    bound: np.ndarray
+    flags: np.ndarray
+    conditions: np.ndarray
+    point: np.ndarray
+    uncertainty_db: np.ndarray
+    budgets: BlockBudgets | None = None
+
+    def __len__(self) -> int:
+        return int(self.value.size)
+
+    def with_columns(self, **columns: object) -> FigureBlock:
+        """The block with the columns given replaced."""
+        return replace(self, **columns)  # type: ignore[arg-type]
+
+    def figures(self, start: int = 0, stop: int | None = None,
+                pinned: Mapping[int, Figure] | None = None, offset: int = 0) -> list[Figure]:
+        """Its figures ``start`` to ``stop`` as :class:`Figure` objects (``pinned``: the
+        figures already made, by position ``offset`` + row, given as they are)."""
+        stop = len(self) if stop is None else stop
+        rows = range(start, stop)
+        values = self.value[start:stop].tolist()
+        bounds = self.bound[start:stop].tolist()
+        masks = self.flags[start:stop].tolist()
+        conds = self.conditions[start:stop].tolist()
+        points = self.point[start:stop].tolist()
+        uncertainty = self.uncertainty_db[start:stop].tolist()
+        flag_sets = {m: flags_from_mask(m) for m in set(masks)}
+        budgets = self.budgets
+        name, unit, symbols = self.name, self.unit, _SYMBOLS
+        out: list[Figure] = []
+        append = out.append
+        with collector_paused():
+            for k, row in enumerate(rows):
+                if pinned is not None:
+                    held = pinned.get(offset + row)
+                    if held is not None:
+                        append(held)
+                        continue
+                budget = None if budgets is None else budgets.row(row)
+                append(_figure(name, values[k], unit, symbols[bounds[k]], conds[k],
+                               flag_sets[masks[k]], (points[k],), uncertainty[k], budget))
+        return out
+
+    def figure(self, row: int) -> Figure:
+        """Its figure ``row`` as a :class:`Figure`."""
+        return self.figures(row, row + 1)[0]
+
+
+def _figure(name: str, value: float, unit: str, bound: str | None,
+            conditions: Mapping[str, float | int | str], flags: tuple[str, ...],
+            points: tuple[int, ...], uncertainty_db: float,
+            budget: FigureBudget | None) -> Figure:
+    if _OpenFigure is None:
+        return Figure(name, value, unit, bound, conditions, flags,  # type: ignore[arg-type]
+                      points, uncertainty_db, budget)
+    figure = _OpenFigure()
+    figure.name = name
+    figure.value = value
+    figure.unit = unit
+    figure.bound = bound
+    figure.conditions = conditions
+    figure.flags = flags
+    figure.points = points
+    figure.uncertainty_db = uncertainty_db
+    figure.budget = budget
+    figure.__class__ = Figure  # type: ignore[assignment]
+    return figure  # type: ignore[return-value]
+
+
+Part = FigureBlock | tuple[Figure, ...]
+
+
+class Figures(Sequence[Figure]):
+    """A run's figures in reduction order, held as parts: blocks and tuples of figures
+    (see the module docstring). Read as a ``Sequence[Figure]``; compares equal to any
+    sequence of equal figures."""
+
+    __slots__ = ("_parts", "_pinned", "_starts")
+
+    def __init__(self, parts: Iterable[FigureBlock | Sequence[Figure]] = ()) -> None:
+        kept: list[Part] = []
+        for part in parts:
+            if isinstance(part, FigureBlock):
+                if len(part):
+                    kept.append(part)
+            elif part:
+                if kept and not isinstance(kept[-1], FigureBlock):
+                    kept[-1] = (*kept[-1], *part)
+                else:
+                    kept.append(tuple(part))
+        self._parts: tuple[Part, ...] = tuple(kept)
+        starts = [0]
+        for part in self._parts:
+            starts.append(starts[-1] + len(part))
+        self._starts = starts
+        self._pinned: dict[int, Figure] = {}
+
+    @property
+    def parts(self) -> tuple[Part, ...]:
+        """The blocks and tuples of figures, in order."""
+        return self._parts
+
+    def part_starts(self) -> list[int]:
+        """The position of each part's first figure, then the count of all."""
+        return list(self._starts)
+
+    def __len__(self) -> int:
+        return self._starts[-1]
+
+    @overload
+    def __getitem__(self, index: int) -> Figure: ...
+
+    @overload
+    def __getitem__(self, index: slice) -> list[Figure]: ...
+
+    def __getitem__(self, index: int | slice) -> Figure | list[Figure]:
+        if isinstance(index, slice):
+            start, stop, step = index.indices(len(self))
+            if step != 1:
+                return [self[i] for i in range(start, stop, step)]
+            return self.between(start, stop)
+        count = len(self)
+        if index < 0:
+            index += count
+        if not 0 <= index < count:
+            raise IndexError("figure index out of range")
+        held = self._pinned.get(index)
+        if held is not None:
+            return held
+        k = bisect.bisect_right(self._starts, index) - 1
+        part, row = self._parts[k], index - self._starts[k]
+        if isinstance(part, FigureBlock):
+            return part.figure(row)
+        return part[row]
+
+    def between(self, start: int, stop: int) -> list[Figure]:
+        """The figures at positions ``start`` to ``stop`` (the pinned ones as kept)."""
+        out: list[Figure] = []
+        starts = self._starts
+        for k, part in enumerate(self._parts):
+            first, end = starts[k], starts[k + 1]
+            if end <= start or first >= stop:
+                continue
+            lo, hi = max(start, first) - first, min(stop, end) - first
+            if isinstance(part, FigureBlock):
+                out += part.figures(lo, hi, self._pinned or None, first)
+            else:
+                out += part[lo:hi]
+        return out
+
+    def __iter__(self) -> Iterator[Figure]:
+        step = 20_000  # (a block made a slice at a time: never all of it at once)
+        for k, part in enumerate(self._parts):
+            if isinstance(part, FigureBlock):
+                first = self._starts[k]
+                for lo in range(0, len(part), step):
+                    yield from part.figures(lo, min(lo + step, len(part)),
+                                            self._pinned or None, first)
+            else:
+                yield from part
+
+    def __eq__(self, other: object) -> bool:
+        if not isinstance(other, Sequence) or isinstance(other, str):
+            return NotImplemented
+        return len(self) == len(other) and all(a == b for a, b in zip(self, other,
+                                                                       strict=True))
+
+    __hash__ = None  # type: ignore[assignment]
+
+    def __repr__(self) -> str:
+        blocks = sum(isinstance(p, FigureBlock) for p in self._parts)
+        return f"Figures({len(self)} figures, {blocks} blocks)"
+
+    def named(self, names: Iterable[str]) -> tuple[list[int], list[Figure]]:
+        """The positions and figures of every figure called any of ``names``, in order
+        (a block of another name is skipped whole)."""
+        wanted = frozenset(names)
+        positions: list[int] = []
+        figures: list[Figure] = []
+        for k, part in enumerate(self._parts):
+            first = self._starts[k]
+            if isinstance(part, FigureBlock):
+                if part.name in wanted:
+                    positions += range(first, first + len(part))
+                    figures += part.figures(0, len(part), self._pinned or None, first)
+            else:
+                for i, f in enumerate(part):
+                    if f.name in wanted:
+                        positions.append(first + i)
+                        figures.append(f)
+        return positions, figures
+
+    def pin(self, names: Iterable[str]) -> None:
+        """Make every figure of ``names`` held in a block once and keep it: each later
+        reading of it gives that one object (what is joined by identity: the figures a
+        limit judges)."""
+        positions, figures = self.named(names)
+        for position, figure in zip(positions, figures, strict=True):
+            self._pinned.setdefault(position, figure)
+
+
+def packed(figures: Sequence[Figure], *, least: int | None = None,
+           blockable: Callable[[str], bool] | None = None) -> list[Part]:
+    """``figures`` as parts (see the module docstring): each run of at least ``least``
+    (default :data:`BLOCK_MIN_FIGURES`) figures of one name and unit, each from one point
+    and without a budget (and of a name ``blockable`` allows), a block; the rest as
+    tuples."""
+    least = BLOCK_MIN_FIGURES if least is None else least
+    out: list[Part] = []
+    loose: list[Figure] = []
+    i, count = 0, len(figures)
+    while i < count:
+        f = figures[i]
+        j = i
+        if len(f.points) == 1 and f.budget is None and (blockable is None
+                                                          or blockable(f.name)):
+            name, unit = f.name, f.unit
+            j = i + 1
+            while (j < count and figures[j].name == name and figures[j].unit == unit
+                   and len(figures[j].points) == 1 and figures[j].budget is None):
+                j += 1
+        if j - i >= least:
+            if loose:
+                out.append(tuple(loose))
+                loose = []
+            out.append(block_of(figures[i:j]))
+            i = j
+        else:
+            loose += figures[i:max(j, i + 1)]
+            i = max(j, i + 1)
+    if loose:
+        out.append(tuple(loose))
+    return out
+
+
+def block_of(figures: Sequence[Figure]) -> FigureBlock:
+    """The block of ``figures``: one name and unit, each from one point, no budget."""
+    first = figures[0]
+    masks: dict[tuple[str, ...], int] = {}
+    flag_masks = []
+    for f in figures:
+        mask = masks.get(f.flags)
+        if mask is None:
+            mask = masks[f.flags] = sum(flag_bit(name) for name in f.flags)
+        flag_masks.append(mask)
+    conditions = np.empty(len(figures), dtype=object)
+    conditions[:] = [f.conditions for f in figures]
+    return FigureBlock(
+        first.name, first.unit,
+        np.array([f.value for f in figures], dtype=float),
+        np.array([_CODES[f.bound] for f in figures], dtype=np.int8),
+        np.array(flag_masks, dtype=np.int64),
+        conditions,
+        np.array([f.points[0] for f in figures], dtype=np.int64),
+        np.array([f.uncertainty_db for f in figures], dtype=float),
+    )
+
+
+def nan_column(count: int) -> np.ndarray:
+    """A float column of ``count`` NaNs."""
+    return np.full(count, math.nan)
+
+
+def flag_marked_parts(parts: Sequence[Part], marks: Sequence[tuple[str, Iterable[int]]]
+                      ) -> list[Part]:
+    """:func:`~sweeprig.analysis.figures.flag_marked_points` of parts: a block's flag column
+    taken with every mark at once."""
+    bits = mark_bits(marks)
+    if not bits:
+        return list(parts)
+    marked = np.array(sorted(bits), dtype=np.int64)
+    added_at = np.array([bits[p] for p in marked.tolist()], dtype=np.int64)
+    out: list[Part] = []
+    for part in parts:
+        if not isinstance(part, FigureBlock):
+            out.append(tuple(flag_marked_points(part, marks)))
+            continue
+        pos = np.minimum(np.searchsorted(marked, part.point), marked.size - 1)
+        added = np.where(marked[pos] == part.point, added_at[pos], 0)
+        flags = part.flags | added
+        out.append(part if np.array_equal(flags, part.flags)
+                   else part.with_columns(flags=flags))
+    return out
+
+
+def part_conditions(parts: Sequence[Part]) -> np.ndarray:
+    """Every figure's conditions mapping, in order (object array)."""
+    pieces = []
+    for part in parts:
+        if isinstance(part, FigureBlock):
+            pieces.append(part.conditions)
+        else:
+            column = np.empty(len(part), dtype=object)
+            column[:] = [f.conditions for f in part]
+            pieces.append(column)
+    return np.concatenate(pieces) if pieces else np.empty(0, dtype=object)
+
+
+def columns_between(figures: Sequence[Figure], first: int, stop: int
+                    ) -> tuple[dict[str, np.ndarray], list[tuple[int, Figure]]]:
+    """:func:`~sweeprig.analysis.figure_table.base_columns` of the figures at positions
+    ``first`` to ``stop`` (a block's read from its columns, none of its figures made), and
+    the figure objects among them that can be joined by identity, (row, figure) each: the
+    loose figures and the pinned ones (:meth:`Figures.pin`)."""
+    from sweeprig.analysis.figure_table import base_columns
+
+    if not isinstance(figures, Figures):
+        some = list(figures[first:stop])
+        return base_columns(some), list(enumerate(some))
+    pieces: list[dict[str, np.ndarray]] = []
+    known: list[tuple[int, Figure]] = []
+    starts = figures.part_starts()
+    pinned = figures._pinned
+    row0 = 0
+    for k, part in enumerate(figures.parts):
+        begin, end = starts[k], starts[k + 1]
+        if end <= first or begin >= stop:
+            continue
+        lo, hi = max(first, begin) - begin, min(stop, end) - begin
+        if isinstance(part, FigureBlock):
+            count = hi - lo
+            points = np.empty(count, dtype=object)
+            points[:] = [(p,) for p in part.point[lo:hi].tolist()]
+            bounds = part.bound[lo:hi]
+            bound_text = np.where(bounds == BOUND_BELOW, "<",
+                                  np.where(bounds == BOUND_ABOVE, ">", "")).astype(object)
+            pieces.append({
+                "name": np.full(count, part.name, dtype=object),
+                "value": part.value[lo:hi],
+                "unit": np.full(count, part.unit, dtype=object),
+                "bound": bound_text,
+                "uncertainty_db": part.uncertainty_db[lo:hi],
+                "flags": part.flags[lo:hi],
+                "points": points,
+            })
+            if pinned:
+                for row in range(lo, hi):
+                    held = pinned.get(begin + row)
+                    if held is not None:
+                        known.append((row0 + row - lo, held))
+        else:
+            some = part[lo:hi]
+            pieces.append(base_columns(some))
+            known += [(row0 + i, f) for i, f in enumerate(some)]
+        row0 += hi - lo
+    if not pieces:
+        return base_columns([]), []
+    if len(pieces) == 1:
+        return pieces[0], known
+    return {key: np.concatenate([p[key] for p in pieces]) for key in pieces[0]}, known
+
+
+def block_rows_between(figures: Sequence[Figure], first: int, stop: int
+                       ) -> Iterator[tuple[int, FigureBlock, int, int]]:
+    """The blocks among the figures at positions ``first`` to ``stop``: (row of its first
+    figure there, the block, its rows lo to hi) each; nothing for a plain sequence."""
+    if not isinstance(figures, Figures):
+        return
+    starts = figures.part_starts()
+    for k, part in enumerate(figures.parts):
+        begin, end = starts[k], starts[k + 1]
+        if end <= first or begin >= stop or not isinstance(part, FigureBlock):
+            continue
+        lo, hi = max(first, begin) - begin, min(stop, end) - begin
+        yield max(first, begin) - first, part, lo, hi

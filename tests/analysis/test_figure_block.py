@@ -1,0 +1,74 @@
+"""The reduction's passes over figures held as columns (sweeprig.analysis.figure_block) give
+what the same passes give over the figures one by one."""
+
+from __future__ import annotations
+
+from types import MappingProxyType
+
+from sweeprig.analysis.direction import (
+    add_output_frequency_in_place,
+    add_output_frequency_to_parts,
+    name_in_trade_words,
+    name_parts_in_trade_words,
+)
+from sweeprig.analysis.figure_block import (
+    FigureBlock,
+    Figures,
+    flag_marked_parts,
+    packed,
+)
+from sweeprig.analysis.figures import (
+    SUPPLY_LIMITED,
+    UNPOWERED,
+    Figure,
+    flag_marked_points,
+)
+
+
+def _figures() -> list[Figure]:
+    # two analyses' figures of ten points (their conditions shared per point and analysis),
+    # a fitted figure between them
+    out: list[Figure] = []
+    for name in ("lo_if_isolation", "spur_dbc"):
+        for p in range(10):
+            conditions = MappingProxyType({"study": "s", "lo_freq_hz": 1.0e9 + p,
+                                           "rf_freq_hz": 1.1e9 + 2 * p})
+            out.append(Figure(name, -30.0 - p, "dB", "<" if p == 3 else None, conditions,
+                              ("overload",) if p == 4 else (), (p,)))
+        out.append(Figure("iip3", 12.0, "dBm", points=tuple(range(10))))
+    return out
+
+
+def _as_blocks(figures: list[Figure]) -> list:
+    parts = packed(figures, least=2)
+    assert sum(isinstance(p, FigureBlock) for p in parts) == 2
+    return parts
+
+
+def test_flags_marked_on_blocks_are_those_marked_on_figures():
+    figures = _figures()
+    marks = [(UNPOWERED, [2, 5]), (SUPPLY_LIMITED, [5, 7, 99])]
+    assert list(Figures(flag_marked_parts(_as_blocks(figures), marks))) == \
+        flag_marked_points(figures, marks)
+    assert list(Figures(flag_marked_parts(_as_blocks(figures), []))) == figures
+
+
+def test_the_output_frequency_added_to_blocks_is_the_one_added_to_figures():
+    figures = _figures()
+    parts = add_output_frequency_to_parts(_as_blocks(figures), (1, -1))
+    add_output_frequency_in_place(figures, (1, -1))
+    made = list(Figures(parts))
+    assert made == figures
+    assert made[0].conditions["output_freq_hz"] == 1.0e8
+    # one extended mapping per distinct mapping, shared as before
+    assert made[0].conditions is made[0].conditions
+    assert len({id(f.conditions) for f in made}) == len({id(f.conditions) for f in figures})
+
+
+def test_blocks_take_the_trade_names_of_an_upconverter():
+    figures = _figures()
+    parts = name_parts_in_trade_words(_as_blocks(figures), "up")
+    name_in_trade_words(figures, "up")
+    assert list(Figures(parts)) == figures
+    assert {f.name for f in figures} == {"lo_rf_isolation", "spur_dbc", "iip3"}
+    assert name_parts_in_trade_words(_as_blocks(figures), "down")[0].name == "lo_rf_isolation"

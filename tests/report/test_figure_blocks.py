@@ -1,0 +1,129 @@
+"""A run's figures held as columns (sweeprig.analysis.figure_block) give the same figures,
+verdict and report files as the same figures held one by one.
+
+The shared report run is reduced twice: once with every figure it can hold as columns in a
+block (a block from a single figure), once with none; the figures must be equal field by
+field, budgets included, and the report's tables the same bytes."""
+
+from __future__ import annotations
+
+import dataclasses
+import re
+from pathlib import Path
+
+import pytest
+
+from sweeprig.analysis import figure_block
+from sweeprig.analysis.figure_block import FigureBlock, Figures, block_of, packed
+from sweeprig.analysis.figures import Figure
+from sweeprig.analysis.reduce import RunFigures, reduce_run
+from sweeprig.report import write_report
+from sweeprig.store.sqlite import SqliteRunStore
+
+
+def _reduced(store: tuple[Path, int], least: int, monkeypatch: pytest.MonkeyPatch
+             ) -> RunFigures:
+    monkeypatch.setattr(figure_block, "BLOCK_MIN_FIGURES", least)
+    path, run_id = store
+    with SqliteRunStore(path, create=False) as opened:
+        return reduce_run(opened, run_id)
+
+
+@pytest.fixture(scope="module")
+def both_ways(report_store) -> tuple[RunFigures, RunFigures]:
+    with pytest.MonkeyPatch.context() as patch:
+        columns = _reduced(report_store, 1, patch)
+        loose = _reduced(report_store, 10**9, patch)
+    return columns, loose
+
+
+def _fields(f: Figure) -> tuple:
+    b = f.budget
+    budget = None if b is None else (b.shared, repr(b.snr_db), repr(b.scatter_snr_db),
+                                     b.averages, b.own_lines, repr(b.combined_db))
+    return (f.name, repr(f.value), f.unit, f.bound, dict(f.conditions), f.flags, f.points,
+            repr(f.uncertainty_db), budget)
+
+
+def test_the_run_holds_blocks_of_every_kind_it_can(both_ways):
+    columns, loose = both_ways
+    assert isinstance(columns.figures, Figures) and isinstance(loose.figures, Figures)
+    names = {p.name for p in columns.figures.parts if isinstance(p, FigureBlock)}
+    # per-point gains, isolations, supply, the two-tone points and the m×n spurs (their
+    # noise read from each spur's own product)
+    assert {"conversion_gain", "lo_if_isolation", "supply_current", "im3_low",
+            "spur_dbc"} <= names
+    assert not any(isinstance(p, FigureBlock) for p in loose.figures.parts)
+    # the fitted figures stay figures (their budgets have lines of their own)
+    assert "iip3" not in names and "input_p1db" not in names
+
+
+def test_blocks_give_the_same_figures_budgets_and_verdict(both_ways):
+    columns, loose = both_ways
+    assert len(columns.figures) == len(loose.figures)
+    assert [_fields(f) for f in columns.figures] == [_fields(f) for f in loose.figures]
+    assert columns.verdict == loose.verdict and columns.notes == loose.notes
+    assert [(j.figure, j.limit, j.verdict, j.suspect) for j in columns.assessment.judgements] \
+        == [(j.figure, j.limit, j.verdict, j.suspect) for j in loose.assessment.judgements]
+    with_budget = [f for f in columns.figures if f.budget is not None]
+    assert len(with_budget) > 100
+
+
+def test_the_judged_figures_are_the_figures_of_the_run(both_ways):
+    # the report joins a judgement to its figure by identity: every reading of a judged
+    # figure gives the judgement's own object
+    columns, _ = both_ways
+    judged = {id(j.figure) for j in columns.assessment.judgements}
+    assert judged
+    seen = {id(f) for f in columns.figures} & judged
+    assert seen == judged
+    assert {id(f) for f in columns.figures[:]} & judged == judged
+
+
+def test_blocks_write_the_same_report_tables(both_ways, report_plots, tmp_path):
+    # held as blocks, as parts without a block, and as a plain tuple of figures (the
+    # writers' own reading of Figure objects)
+    columns, loose = both_ways
+    plain = dataclasses.replace(loose, figures=tuple(loose.figures))
+    written = [write_report(run, tmp_path / name, plots=report_plots).folder
+               for name, run in (("columns", columns), ("loose", loose), ("plain", plain))]
+    for name in ("figures.csv", "figures.json", "budgets.csv", "budget-terms.csv",
+                 "captures.csv"):
+        texts = {folder.name: _without_time(folder / name) for folder in written}
+        assert texts["columns"] == texts["loose"] == texts["plain"], name
+    for name in ("figures.csv", "captures.csv"):
+        # the Parquet tables hold the same rows and column types
+        import pandas as pd
+
+        frames = [pd.read_parquet(folder / name.replace(".csv", ".parquet"))
+                  for folder in written]
+        for frame in frames[1:]:
+            pd.testing.assert_frame_equal(frames[0], frame)
+
+
+def _without_time(path: Path) -> bytes:
+    """The file, its generation time (figures.json's ``generated_utc``) blanked."""
+    text = path.read_bytes()
+    return re.sub(rb'"generated_utc":"[^"]*"', b'"generated_utc":""', text)
+
+
+def test_a_sequence_of_figures_reads_as_one():
+    figures = [Figure("gain", float(i), "dB", conditions={"study": "s"}, points=(i,))
+               for i in range(6)]
+    figures.insert(3, Figure("iip3", 9.0, "dBm", points=(1, 2)))
+    parts = packed(figures, least=2)
+    assert [type(p).__name__ for p in parts] == ["FigureBlock", "tuple", "FigureBlock"]
+    seq = Figures(parts)
+    assert len(seq) == 7 and list(seq) == figures and seq == figures and seq == tuple(figures)
+    assert seq[3] == figures[3] and seq[-1] == figures[-1] and seq[1:5] == figures[1:5]
+    assert seq[::2] == figures[::2]
+    with pytest.raises(IndexError):
+        seq[7]
+    assert seq != figures[:-1]
+    positions, named = seq.named(["iip3"])
+    assert positions == [3] and named == [figures[3]]
+    # made anew each time, unless pinned
+    assert seq[0] == seq[0] and seq[0] is not seq[0]
+    seq.pin(["gain"])
+    assert seq[0] is seq[0] is next(iter(seq)) is seq[0:1][0]
+    assert block_of(figures[:3]).figure(2) == figures[2]
