@@ -442,9 +442,10 @@ def _study_infos(
         factor = sequence.temperature_count() * sequence.supply_count()
     out: list[StudyInfo] = []
     for name in names:
-        rows = captures[captures["study"] == name]
+        # (the one column read: a large run's whole table is not copied per study)
+        readings = captures.loc[captures["study"] == name, "reading"]
         point_rows = points[points["study"] == name]
-        kinds = tuple(dict.fromkeys(rows["reading"].astype(str).tolist()))
+        kinds = tuple(dict.fromkeys(readings.astype(str).tolist()))
         study = _sequence_study(sequence, name)
         shape = shape_from_sequence(study) if study is not None else _shape_from_points(
             point_rows)

@@ -449,7 +449,7 @@ class PointLevels:
         self._asked: dict[tuple[object, ...], object] = {}
         self._rows: dict[str, np.ndarray] = {}
         empty = captures.empty or "reading" not in captures
-        rows = captures.iloc[:0] if empty else measured_rows(captures)
+        rows = captures.iloc[:0] if empty else measured_rows(captures, LEVEL_COLUMNS)
         count = len(rows)
         self._point = (np.zeros(0, dtype=np.int64) if empty
                        else rows["point"].to_numpy(dtype=np.int64))
@@ -585,9 +585,19 @@ class PointLevels:
         return worst
 
 
-def measured_rows(captures: pd.DataFrame) -> pd.DataFrame:
+#: The capture columns a budget reads (:class:`PointLevels`).
+LEVEL_COLUMNS: tuple[str, ...] = ("point", "reading", "level_dbm", "noise_floor_dbm",
+                                  "averages", "rf_power_dbm", "m", "n")
+
+
+def measured_rows(captures: pd.DataFrame, columns: Sequence[str] | None = None
+                  ) -> pd.DataFrame:
     """The rows of ``captures`` a budget reads: the readings of the attenuation repeats
-    left out."""
+    left out; ``columns``: only those of them that the table has (a large run's whole
+    table is not copied to read a few)."""
+    if columns is not None:
+        captures = captures[[c for c in columns if c in captures] +
+                            (["atten_check"] if "atten_check" in captures else [])]
     if "atten_check" in captures:
         return captures[~captures["atten_check"].fillna(False).astype(bool)]
     return captures

@@ -526,3 +526,19 @@ def test_two_seeds_of_the_simulated_bench_agree_within_their_uncertainties(tmp_p
     spurs = [f for f in runs[0].figures if f.name == "spur_dbm" and f.budget is not None]
     assert sum(any(c.name == "noise_scatter" and c.contribution_db > 0.05
                    for c in f.budget.contributions) for f in spurs) >= 3
+
+
+def test_the_levels_read_only_the_columns_a_budget_needs():
+    # a large run's capture table is not copied whole to leave out the attenuation repeats
+    from sweeprig.analysis.uncertainty import LEVEL_COLUMNS, measured_rows
+
+    captures = _captures([(0, "if", -30.0, -18.0, -100.0), (1, "if", -28.0, -16.0, -100.0)])
+    captures["atten_check"] = [False, True]
+    captures["wide"] = ["x" * 10, "y" * 10]
+    rows = measured_rows(captures, LEVEL_COLUMNS)
+    assert "wide" not in rows and list(rows["point"]) == [0]
+    assert set(rows.columns) <= {*LEVEL_COLUMNS, "atten_check"}
+    assert measured_rows(captures)["wide"].tolist() == ["x" * 10]
+    levels = PointLevels.from_captures(captures)
+    assert levels.levels_dbm([0, 1], "if")[0] == pytest.approx(-18.0)
+    assert math.isnan(levels.levels_dbm([0, 1], "if")[1])
