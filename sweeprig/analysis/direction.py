@@ -39,6 +39,7 @@ from sweeprig.analysis.figures import (
     BOUND_NONE,
     IN_NOISE,
     Figure,
+    Maker,
     make_figures,
     with_changes,
     with_conditions,
@@ -178,7 +179,8 @@ def _extended(distinct: Sequence[Mapping[str, float | int | str]],
 
 
 def upconverter_figures(
-    captures: pd.DataFrame, *, study: str | Sequence[str] | None = None
+    captures: pd.DataFrame, *, study: str | Sequence[str] | None = None,
+    make: Maker = make_figures,
 ) -> list[Figure]:
     """``sideband_suppression``, ``lo_suppression`` (dBc) and ``lo_leakage`` (dBm) at every
     point with the readings they need (see the module docstring)."""
@@ -194,7 +196,7 @@ def upconverter_figures(
         sub = table.iloc[rows]
         level, noise = _leak(sub, reading)
         flags = sub[f"{reading}_flags"].to_numpy() | sub["if_flags"].to_numpy()
-        figures += make_figures(
+        figures += make(
             name, "dBc", sub["if_level_dbm"].to_numpy() - level,
             np.where(noise, BOUND_ABOVE, BOUND_NONE), flags,
             conditions_records(table, rows), [(p,) for p in sub["point"].tolist()])
@@ -202,7 +204,7 @@ def upconverter_figures(
     if rows.size:
         sub = table.iloc[rows]
         level, noise = _leak(sub, "lo_at_if")
-        figures += make_figures(
+        figures += make(
             "lo_leakage", "dBm", level, np.where(noise, BOUND_BELOW, BOUND_NONE),
             sub["lo_at_if_flags"].to_numpy(), conditions_records(table, rows),
             [(p,) for p in sub["point"].tolist()])

@@ -477,3 +477,60 @@ def block_rows_between(figures: Sequence[Figure], first: int, stop: int
             continue
         lo, hi = max(first, begin) - begin, min(stop, end) - begin
         yield max(first, begin) - first, part, lo, hi
+
+
+def block_maker(blockable: Callable[[str], bool] | None = None
+                ) -> Callable[..., list[Figure | FigureBlock]]:
+    """A stand-in for :func:`~sweeprig.analysis.figures.make_figures` (its arguments) that
+    gives figures of one point each as one :class:`FigureBlock` (a list of it) when they
+    are at least :data:`BLOCK_MIN_FIGURES` and of a name ``blockable`` allows, else the
+    figures as ``make_figures`` gives them: what an analysis is given by the reduction, so
+    that a large run's figures are never made one by one."""
+    from types import MappingProxyType
+
+    from sweeprig.analysis.figures import make_figures
+
+    def make(name: str, unit: str, value: Sequence[float] | np.ndarray,
+             bound: Sequence[int] | np.ndarray | int = BOUND_NONE,
+             flag_mask: Sequence[int] | np.ndarray | int = 0,
+             conditions: Sequence[Mapping[str, float | int | str]] | None = None,
+             points: Sequence[tuple[int, ...]] | None = None,
+             ) -> list[Figure | FigureBlock]:
+        values = np.asarray(value, dtype=float).ravel()
+        count = values.size
+        if (count < BLOCK_MIN_FIGURES or conditions is None or points is None
+                or (blockable is not None and not blockable(name))
+                or set(map(len, points)) != {1}):
+            return list(make_figures(name, unit, value, bound, flag_mask, conditions, points))
+        proxy = MappingProxyType
+        mappings = np.empty(count, dtype=object)
+        mappings[:] = [c if type(c) is proxy else proxy(dict(c)) for c in conditions]
+        return [FigureBlock(
+            name, unit, values.copy(),
+            np.broadcast_to(np.asarray(bound, dtype=np.int8), (count,)).copy(),
+            np.broadcast_to(np.asarray(flag_mask, dtype=np.int64), (count,)).copy(),
+            mappings,
+            np.fromiter((p[0] for p in points), dtype=np.int64, count=count),
+            nan_column(count),
+        )]
+
+    return make
+
+
+def parts_of(entries: Sequence[Figure | FigureBlock], *,
+             blockable: Callable[[str], bool] | None = None) -> list[Part]:
+    """An analysis' figures as :func:`block_maker` gives them, as parts: its blocks, and
+    its figures between them :func:`packed`."""
+    out: list[Part] = []
+    loose: list[Figure] = []
+    for entry in entries:
+        if isinstance(entry, FigureBlock):
+            if loose:
+                out += packed(loose, blockable=blockable)
+                loose = []
+            out.append(entry)
+        else:
+            loose.append(entry)
+    if loose:
+        out += packed(loose, blockable=blockable)
+    return out

@@ -127,7 +127,7 @@ from __future__ import annotations
 
 import gc
 import math
-from collections.abc import Iterable, Iterator, Mapping, Sequence
+from collections.abc import Callable, Iterable, Iterator, Mapping, Sequence
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 from functools import lru_cache
@@ -637,6 +637,13 @@ def make_figures(
             set_attr(figure, "budget", None)
             append(figure)
     return out
+
+
+#: What makes the figures of one name from arrays, as :func:`make_figures` does (its
+#: arguments): an analysis that makes many takes one as ``make``; the reduction gives one
+#: whose list may hold the figures as one block of columns instead
+#: (:func:`sweeprig.analysis.figure_block.block_maker`).
+Maker = Callable[..., list]
 
 
 def flag_points(

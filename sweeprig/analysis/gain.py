@@ -24,6 +24,7 @@ from sweeprig.analysis.figures import (
     IN_NOISE,
     MISSING_READING,
     Figure,
+    Maker,
     make_figures,
     mask_where,
 )
@@ -136,12 +137,13 @@ def unpowered_points(
 
 
 def conversion_gain_figures(
-    captures: pd.DataFrame, *, study: str | Sequence[str] | None = None
+    captures: pd.DataFrame, *, study: str | Sequence[str] | None = None,
+    make: Maker = make_figures,
 ) -> list[Figure]:
     """``conversion_gain`` at every point with an ``if`` reading (conditions: the point's)."""
     table = gain_table(captures, study=study)
     rows = np.arange(len(table))
-    return make_figures(
+    return make(
         "conversion_gain",
         "dB",
         table["gain_db"].to_numpy(),

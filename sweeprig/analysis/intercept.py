@@ -73,6 +73,7 @@ from sweeprig.analysis.figures import (
     POINTS_EXCLUDED,
     SLOPE_OFF,
     Figure,
+    Maker,
     bound_difference,
     flag_bit,
     make_figures,
@@ -337,6 +338,7 @@ def intercept_figures(
     orders: Sequence[int] = (3, 2),
     input_p1db_dbm: P1dbSource = None,
     study: str | Sequence[str] | None = None,
+    make: Maker = make_figures,
 ) -> list[Figure]:
     """Intercept figures of every two-tone sweep (points grouped by every condition except
     the tone powers, swept in ``rf_power_dbm``).
@@ -365,14 +367,15 @@ def intercept_figures(
             [table[f"{p}_present"].to_numpy() for p in sides]
         )
         sub = table[rows].reset_index(drop=True)
-        figures += _order_figures(sub, order, sides, input_p1db_dbm, made, rows.tobytes())
+        figures += _order_figures(sub, order, sides, input_p1db_dbm, made, rows.tobytes(),
+                                  make=make)
     return figures
 
 
 def _order_figures(
     table: pd.DataFrame, order: int, sides: list[str], p1db_source: P1dbSource,
     made: dict[bytes, tuple[list[Mapping[str, float | str]], list[Mapping[str, float | str]]]]
-    | None = None, rows: bytes = b"",
+    | None = None, rows: bytes = b"", *, make: Maker = make_figures,
 ) -> list[Figure]:
     """The figures of one order. ``made``: the (per sweep, per point) conditions mappings
     of the rows of the table of intercept_figures given as ``rows`` (the table being those
@@ -425,18 +428,18 @@ def _order_figures(
         single_flags = flags | mask_where(compressed, IN_COMPRESSION)
         gain_here = fund - x
         tag = f"ip{order}"
-        figures += make_figures(
+        figures += make(
             f"i{tag}_point_{side}", "dBm", single[present], single_bound[present],
             single_flags[present], point_conditions, point_tuples,
         )
         if order == 3:
-            figures += make_figures(
+            figures += make(
                 f"o{tag}_point_{side}", "dBm", (single + gain_here)[present],
                 single_bound[present], single_flags[present], point_conditions, point_tuples,
             )
         dbc = prod_ub - fund
         dbc_bound = np.where(prod_noise, BOUND_BELOW, BOUND_NONE)
-        figures += make_figures(
+        figures += make(
             f"im{order}_{side}", "dBc", dbc[present], dbc_bound[present],
             single_flags[present], point_conditions, point_tuples,
         )
@@ -472,15 +475,15 @@ def _order_figures(
             noise_only[:, None], np.arange(x.shape[-1]) == best[:, None], valid
         )
         fit_points = sweeps.points(table, fit_points_mask)
-        figures += make_figures(
+        figures += make(
             f"i{tag}_{side}", "dBm", value, bound, fit_flags, conditions, fit_points
         )
         if order == 3:
-            figures += make_figures(
+            figures += make(
                 f"o{tag}_{side}", "dBm", out_value, bound, fit_flags, conditions, fit_points
             )
         slope_flags = mask_where(count < validity.MIN_LINEAR_POINTS, FEW_POINTS)
-        figures += make_figures(
+        figures += make(
             f"im{order}_slope_{side}", "dB/dB", fit.product_slope, BOUND_NONE,
             slope_flags | (fit_flags & flag_bit(SLOPE_OFF)), conditions, fit_points,
         )
@@ -500,12 +503,12 @@ def _order_figures(
         ]
         bounds = np.stack([low["bound"], high["bound"]], axis=-1)
         value, bound = worst_of(np.stack([low["iip"], high["iip"]], axis=-1), bounds)
-        figures += make_figures(f"iip{order}", "dBm", value, bound, flags, conditions, points)
+        figures += make(f"iip{order}", "dBm", value, bound, flags, conditions, points)
         if order == 3:
             value, bound = worst_of(np.stack([low["oip"], high["oip"]], axis=-1), bounds)
-            figures += make_figures("oip3", "dBm", value, bound, flags, conditions, points)
+            figures += make("oip3", "dBm", value, bound, flags, conditions, points)
         value, bound = bound_difference(high["iip"], high["bound"], low["iip"], low["bound"])
-        figures += make_figures(
+        figures += make(
             f"iip{order}_asymmetry", "dB", value, bound, flags, conditions, points
         )
         if order == 3:
@@ -513,18 +516,18 @@ def _order_figures(
                 high["prod"], high["prod_bound"], low["prod"], low["prod_bound"]
             )
             both = low["point_flags"] | high["point_flags"]
-            figures += make_figures(
+            figures += make(
                 "im3_asymmetry", "dB", level[present], level_bound[present], both[present],
                 point_conditions, point_tuples,
             )
     elif per_side:
         (only,) = per_side.values()
-        figures += make_figures(
+        figures += make(
             f"iip{order}", "dBm", only["iip"], only["bound"], only["flags"], conditions,
             only["points"],
         )
         if order == 3:
-            figures += make_figures(
+            figures += make(
                 "oip3", "dBm", only["oip"], only["bound"], only["flags"], conditions,
                 only["points"],
             )
@@ -534,7 +537,7 @@ def _order_figures(
             slope_flags = mask_where(count < validity.MIN_LINEAR_POINTS, FEW_POINTS) | mask_where(
                 np.abs(slope - 1.0) > FUND_SLOPE_TOLERANCE, FUND_SLOPE_OFF
             )
-        figures += make_figures(
+        figures += make(
             "fund_slope", "dB/dB", slope, BOUND_NONE, slope_flags, conditions,
             sweeps.points(table, valid_union),
         )

@@ -33,6 +33,7 @@ from sweeprig.analysis.figures import (
     IN_NOISE,
     MISSING_READING,
     Figure,
+    Maker,
     bound_difference,
     make_figures,
     mask_where,
@@ -70,7 +71,8 @@ def dc_power_w(supply_v: ArrayLike, current_a: ArrayLike) -> np.ndarray:
 
 
 def isolation_figures(
-    captures: pd.DataFrame, *, study: str | Sequence[str] | None = None
+    captures: pd.DataFrame, *, study: str | Sequence[str] | None = None,
+    make: Maker = make_figures,
 ) -> list[Figure]:
     """``lo_if_isolation``, ``lo_rf_isolation``, ``rf_if_isolation`` at every point that has
     the corresponding leakage reading."""
@@ -87,7 +89,7 @@ def isolation_figures(
         level = sub[f"{reading}_level_dbm"].to_numpy()
         floor = sub[f"{reading}_noise_floor_dbm"].to_numpy()
         leak = np.where(noise, validity.upper_bound_dbm(level, floor), level)
-        figures += make_figures(
+        figures += make(
             name,
             "dB",
             isolation_db(sub[drive].to_numpy(), leak),
@@ -104,6 +106,7 @@ def image_rejection_figures(
     *,
     freq_tolerance_hz: float = IMAGE_FREQ_TOLERANCE_HZ,
     study: str | Sequence[str] | None = None,
+    make: Maker = make_figures,
 ) -> list[Figure]:
     """``image_rejection`` for every point with an ``image`` reading (see the module
     docstring). Conditions are those of the image point with ``rf_freq_hz`` set to the wanted
@@ -164,7 +167,7 @@ def image_rejection_figures(
             found.tolist(), strict=True,
         )
     ]
-    return make_figures("image_rejection", "dB", value, bound, flags, conditions, points)
+    return make("image_rejection", "dB", value, bound, flags, conditions, points)
 
 
 def _match_wanted(image: pd.DataFrame, wanted: pd.DataFrame, tolerance_hz: float) -> dict:
@@ -214,7 +217,8 @@ def _match_wanted(image: pd.DataFrame, wanted: pd.DataFrame, tolerance_hz: float
 
 
 def supply_figures(
-    captures: pd.DataFrame, *, study: str | Sequence[str] | None = None
+    captures: pd.DataFrame, *, study: str | Sequence[str] | None = None,
+    make: Maker = make_figures,
 ) -> list[Figure]:
     """``supply_current`` (A) and ``dc_power`` (W) at every point with a ``supply_current``
     reading; ``missing_reading`` when its ``value`` is empty."""
@@ -227,9 +231,9 @@ def supply_figures(
     flags = mask_where(~np.isfinite(current), MISSING_READING)
     conditions = conditions_records(table, rows)
     points = [(p,) for p in sub["point"].tolist()]
-    return make_figures(
+    return make(
         "supply_current", "A", current, BOUND_NONE, flags, conditions, points
-    ) + make_figures(
+    ) + make(
         "dc_power", "W", dc_power_w(sub["supply_v"].to_numpy(), current), BOUND_NONE, flags,
         conditions, points,
     )

@@ -52,8 +52,10 @@ from sweeprig.analysis.figures import (
     TEMPERATURE_OFF,
     UNPOWERED,
     Figure,
+    Maker,
     collector_paused,
     flag_marked_points,
+    make_figures,
 )
 from sweeprig.analysis.limits import INCONCLUSIVE, PASS, Assessment, Limit, Verdict, assess
 from sweeprig.analysis.roles import (
@@ -263,7 +265,13 @@ def _reduce_loaded(loaded: LoadedRun) -> RunFigures:
         add_output_frequency_to_parts,
         name_parts_in_trade_words,
     )
-    from sweeprig.analysis.figure_block import Figures, Part, flag_marked_parts, packed
+    from sweeprig.analysis.figure_block import (
+        Figures,
+        Part,
+        block_maker,
+        flag_marked_parts,
+        parts_of,
+    )
 
     info, events, captures = loaded.info, loaded.events, loaded.captures
     points, readings = loaded.points, loaded.readings
@@ -290,15 +298,17 @@ def _reduce_loaded(loaded: LoadedRun) -> RunFigures:
     # gives new parts, the old ones let go
     parts: list[Part] = []
     keep = parts.extend
+    make = block_maker(blockable)
     _figures(captures, studies, notes,
              spur_counting(sequence) if sequence is not None else {},
-             add=lambda new: keep(packed(new, blockable=blockable)))
+             add=lambda new: keep(parts_of(new, blockable=blockable)), make=make)
     if conversion == "up" and not captures.empty:
         from sweeprig.analysis.direction import upconverter_figures
 
         if names := [s.name for s in studies
                      if ROLE_ISOLATION in s.roles or ROLE_SIDEBAND in s.roles]:
-            parts += packed(upconverter_figures(captures, study=names), blockable=blockable)
+            parts += parts_of(upconverter_figures(captures, study=names, make=make),
+                              blockable=blockable)
     # a point's state (its supply, its power) holds for every figure of the point, its noise
     # figures' too (they are made apart and added last)
     marks = _supply_limited_marks(captures, points, notes)
@@ -519,11 +529,13 @@ def _figures(
     captures: pd.DataFrame, studies: tuple[StudyInfo, ...], notes: list[str],
     counting: Mapping[str, tuple[tuple[float, float] | None, tuple[tuple[int, int], ...]]]
     | None = None, *, add: Callable[[list[Figure]], None] | None = None,
+    make: Maker = make_figures,
 ) -> list[Figure]:
     """Every figure of the run, study roles deciding which analysis runs where
     (``counting``: :func:`spur_counting` of the sequence). ``add``: given each analysis'
     figures as they are made, instead of their being kept in the list returned (then
-    empty)."""
+    empty); ``make``: what the analyses that make figures point by point make them with
+    (:data:`~sweeprig.analysis.figures.Maker`)."""
     from sweeprig import analysis as an
 
 
@@ -536,7 +548,7 @@ def _figures(
         notes.append("no readings are stored yet: no figures")
         return figures
     if names := having(ROLE_GAIN):
-        add(an.conversion_gain_figures(captures, study=names))
+        add(an.conversion_gain_figures(captures, study=names, make=make))
     if names := having(ROLE_FLATNESS):
         # over the input frequency where it moves; else over the output, which the LO moves
         by_input = [n for n in names if _varies_in(captures, n, "rf_freq_hz")]
@@ -557,25 +569,25 @@ def _figures(
         if source is None:
             notes.append("no P1dB in this run: the intercept fits chose their range from the "
                          "fundamental's slope")
-        add(an.intercept_figures(captures, study=names, input_p1db_dbm=source))
+        add(an.intercept_figures(captures, study=names, input_p1db_dbm=source, make=make))
     if names := having(ROLE_LO_DRIVE):
         add(an.lo_drive_figures(captures, study=names))
     if names := having(ROLE_ISOLATION):
-        add(an.isolation_figures(captures, study=names))
+        add(an.isolation_figures(captures, study=names, make=make))
     if names := having(ROLE_IMAGE):
-        add(an.image_rejection_figures(captures, study=names))
+        add(an.image_rejection_figures(captures, study=names, make=make))
     if names := having(ROLE_SUPPLY):
-        add(an.supply_figures(captures, study=names))
+        add(an.supply_figures(captures, study=names, make=make))
     if names := having(ROLE_SPURS):
         counting = counting or {}
         plain = [n for n in names if n not in counting]
         if plain:
-            add(an.spur_figures(captures, study=plain))
+            add(an.spur_figures(captures, study=plain, make=make))
         for name in names:
             if name in counting:
                 band, expected = counting[name]
                 add(an.spur_figures(captures, study=name, if_band_hz=band,
-                                    expected=expected))
+                                    expected=expected, make=make))
     return figures
 
 

@@ -46,6 +46,7 @@ from sweeprig.analysis.figures import (
     IN_NOISE,
     MISSING_READING,
     Figure,
+    Maker,
     bound_difference,
     flags_from_mask,
     make_figures,
@@ -211,6 +212,7 @@ def spur_figures(
     if_band_hz: tuple[float, float] | None = None,
     study: str | Sequence[str] | None = None,
     expected: Sequence[tuple[int, int]] = (),
+    make: Maker = make_figures,
 ) -> list[Figure]:
     """Per spur reading: ``spur_dbc`` when the product counts (see the module docstring),
     else ``spur_excluded_dbc``, and ``spur_dbm`` for every product. Conditions add ``m``,
@@ -228,11 +230,11 @@ def spur_figures(
     for name, rows in (("spur_dbc", np.flatnonzero(counted)),
                        ("spur_excluded_dbc", np.flatnonzero(~counted))):
         if rows.size or name == "spur_dbc":
-            out += make_figures(
+            out += make(
                 name, "dBc", table["dbc"].to_numpy()[rows], table["bound"].to_numpy()[rows],
                 table["flags"].to_numpy()[rows], [conditions[i] for i in rows],
                 [points[i] for i in rows])
-    return out + make_figures(
+    return out + make(
         "spur_dbm", "dBm", table["level_dbm"].to_numpy(), table["level_bound"].to_numpy(),
         table["level_flags"].to_numpy(), conditions, points,
     )
