@@ -189,7 +189,7 @@ class Figures(Sequence[Figure]):
     (see the module docstring). Read as a ``Sequence[Figure]``; compares equal to any
     sequence of equal figures."""
 
-    __slots__ = ("_parts", "_pinned", "_starts")
+    __slots__ = ("_parts", "_pinned", "_pinned_at", "_starts")
 
     def __init__(self, parts: Iterable[FigureBlock | Sequence[Figure]] = ()) -> None:
         kept: list[Part] = []
@@ -208,6 +208,7 @@ class Figures(Sequence[Figure]):
             starts.append(starts[-1] + len(part))
         self._starts = starts
         self._pinned: dict[int, Figure] = {}
+        self._pinned_at: np.ndarray | None = None
 
     @property
     def parts(self) -> tuple[Part, ...]:
@@ -303,6 +304,13 @@ class Figures(Sequence[Figure]):
                         positions.append(first + i)
                         figures.append(f)
         return positions, figures
+
+    def pinned_positions(self) -> np.ndarray:
+        """The positions of the pinned figures, ascending (int64)."""
+        held = self._pinned_at
+        if held is None or held.size != len(self._pinned):
+            held = self._pinned_at = np.array(sorted(self._pinned), dtype=np.int64)
+        return held
 
     def pin(self, names: Iterable[str]) -> None:
         """Make every figure of ``names`` held in a block once and keep it: each later
@@ -434,7 +442,7 @@ def columns_between(figures: Sequence[Figure], first: int, stop: int
         if isinstance(part, FigureBlock):
             count = hi - lo
             points = np.empty(count, dtype=object)
-            points[:] = [(p,) for p in part.point[lo:hi].tolist()]
+            points[:] = list(zip(part.point[lo:hi].tolist()))  # (one 1-tuple a figure)
             bounds = part.bound[lo:hi]
             bound_text = np.where(bounds == BOUND_BELOW, "<",
                                   np.where(bounds == BOUND_ABOVE, ">", "")).astype(object)
@@ -448,10 +456,10 @@ def columns_between(figures: Sequence[Figure], first: int, stop: int
                 "points": points,
             })
             if pinned:
-                for row in range(lo, hi):
-                    held = pinned.get(begin + row)
-                    if held is not None:
-                        known.append((row0 + row - lo, held))
+                at = figures.pinned_positions()
+                inside = at[np.searchsorted(at, begin + lo):np.searchsorted(at, begin + hi)]
+                known += [(row0 + position - begin - lo, pinned[position])
+                          for position in inside.tolist()]
         else:
             some = part[lo:hi]
             pieces.append(base_columns(some))

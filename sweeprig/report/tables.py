@@ -898,13 +898,14 @@ def _condition_kinds(run: RunFigures) -> dict[str, bool]:
 
 def _points_texts(points: list[tuple[int, ...]]) -> np.ndarray:
     """Each figure's run-store point indices, space-separated; a tuple met before (the
-    figures of one point or one curve share theirs) is joined once."""
+    figures of one point or one curve share theirs) is joined once, a single point is its
+    number."""
     texts: dict[tuple[int, ...], str] = {}
     out = np.empty(len(points), dtype=object)
     for i, p in enumerate(points):
         text = texts.get(p)
         if text is None:
-            text = texts[p] = " ".join(map(str, p))
+            text = texts[p] = str(p[0]) if len(p) == 1 else " ".join(map(str, p))
         out[i] = text
     return out
 
