@@ -35,7 +35,7 @@ import subprocess
 import sys
 import tempfile
 import threading
-from collections.abc import Iterator, Mapping, Sequence
+from collections.abc import Callable, Iterator, Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import IO, Any
@@ -59,12 +59,16 @@ _HELPER_CODE = "from sweeprig.report.table_writing import serve; serve()"
 class TableJob:
     """One table to write: ``paths`` per format ("csv", "parquet"), its slices in order,
     the Arrow ``schema`` of its Parquet file (None: the first slice's), and the columns
-    holding whole numbers or nothing (Parquet: nullable integers)."""
+    holding whole numbers or nothing (Parquet: nullable integers). ``finish``: a
+    module-level function that makes each slice the frame written, where it is written
+    (a large run's in the helper process: what only formats its columns into text is done
+    on the other core); None: the slices are the frames."""
 
     paths: Mapping[str, Path]
-    slices: Iterator[pd.DataFrame]
+    slices: Iterator[Any]
     schema: Any = None
     integer_columns: tuple[str, ...] = ()
+    finish: Callable[[Any], pd.DataFrame] | None = None
 
 
 class TableSink:
@@ -138,7 +142,8 @@ def write_job(job: TableJob) -> None:
     except OSError as exc:
         raise write_error(first or Path("?"), exc) from None
     try:
-        for frame in job.slices:
+        for item in job.slices:
+            frame = item if job.finish is None else job.finish(item)
             try:
                 sink.write(frame)
             except OSError as exc:
@@ -234,11 +239,11 @@ class TableWriting:
                     self.helper_failed = f"exit code {process.wait()}{self._last_words()}"
                     while (job := self._queue.get()) is not None and not self._stop.is_set():
                         write_job(TableJob(job.paths, self._until_stopped(job.slices),
-                                           job.schema, job.integer_columns))
+                                           job.schema, job.integer_columns, job.finish))
                     return
                 while (job := self._queue.get()) is not None:
                     _send(pipe, ("open", {k: str(p) for k, p in job.paths.items()},
-                                 job.schema, job.integer_columns))
+                                 job.schema, job.integer_columns, job.finish))
                     for frame in self._until_stopped(job.slices):
                         _send(pipe, ("rows", frame))
                     _send(pipe, ("close",))
@@ -360,10 +365,10 @@ def serve(source: IO[bytes] | None = None, reply: IO[bytes] | None = None) -> No
             if message[0] != "open":
                 answer = ("error", f"unexpected message {message[0]!r}")
                 continue
-            _, paths, schema, integers = message
+            _, paths, schema, integers, finish = message
             try:
                 write_job(TableJob({k: Path(v) for k, v in paths.items()}, rows(), schema,
-                                   integers))
+                                   integers, finish))
             except StoreError as exc:
                 answer = ("failed", exc.what, exc.where, exc.fix)
             except (EOFError, pickle.UnpicklingError):

@@ -867,8 +867,8 @@ def figures_frame(run: RunFigures, budgets: FigureBudgets | None = None) -> pd.D
     budget), then one column per condition."""
     if budgets is None:
         budgets = figure_budgets(run)
-    return _figure_rows(run, budgets, 0, len(run.figures), _condition_kinds(run),
-                        figure_verdicts(run))
+    return figure_rows_frame(_figure_columns(run, budgets, 0, len(run.figures),
+                                             _condition_kinds(run), figure_verdicts(run)))
 
 
 #: Figures per slice of the figure table when it is written (bounds the rows held at once).
@@ -880,6 +880,15 @@ def figure_frames(run: RunFigures, budgets: FigureBudgets | None = None,
     """:func:`figures_frame` in slices of ``rows`` figures (:data:`FIGURE_SLICE_ROWS`), each
     with every column of the whole table and the same column types: concatenated, they are
     the whole table. A large run's table is written slice by slice, never held whole."""
+    for raw in figure_slices(run, budgets, rows):
+        yield figure_rows_frame(raw)
+
+
+def figure_slices(run: RunFigures, budgets: FigureBudgets | None = None,
+                  rows: int | None = None) -> Iterator[dict[str, np.ndarray]]:
+    """:func:`figure_frames` before their text: per slice the columns as numbers (flag
+    masks, points as tuples), :func:`figure_rows_frame` making each the slice's frame
+    (where the table is written: a large run's in the helper process)."""
     if budgets is None:
         budgets = figure_budgets(run)
     step = rows or FIGURE_SLICE_ROWS
@@ -887,7 +896,7 @@ def figure_frames(run: RunFigures, budgets: FigureBudgets | None = None,
     verdicts = figure_verdicts(run)
     count = len(run.figures)
     for first in range(0, max(count, 1), step):
-        yield _figure_rows(run, budgets, first, min(first + step, count), kinds, verdicts)
+        yield _figure_columns(run, budgets, first, min(first + step, count), kinds, verdicts)
 
 
 def _condition_kinds(run: RunFigures) -> dict[str, bool]:
@@ -910,16 +919,16 @@ def _points_texts(points: list[tuple[int, ...]]) -> np.ndarray:
     return out
 
 
-def _figure_rows(run: RunFigures, budgets: FigureBudgets, first: int, stop: int,
-                 kinds: Mapping[str, bool], verdicts: Mapping[int, str]) -> pd.DataFrame:
-    """Rows ``first`` to ``stop`` of the figure table (see :func:`figures_frame`), with a
-    column for every key of ``kinds``; ``verdicts``: :func:`figure_verdicts` of ``run``."""
+def _figure_columns(run: RunFigures, budgets: FigureBudgets, first: int, stop: int,
+                    kinds: Mapping[str, bool], verdicts: Mapping[int, str]
+                    ) -> dict[str, np.ndarray]:
+    """Rows ``first`` to ``stop`` of the figure table (see :func:`figures_frame`) as
+    :func:`figure_slices` gives them, with a column for every key of ``kinds``;
+    ``verdicts``: :func:`figure_verdicts` of ``run``."""
     from sweeprig.analysis.figure_block import columns_between
-    from sweeprig.analysis.figures import flags_from_mask
 
-    # the one builder of a figure table's columns, here made into text (a block's read
-    # from its columns); the conditions from the run's columns (read once per distinct
-    # mapping, not once per slice)
+    # the one builder of a figure table's columns (a block's read from its columns); the
+    # conditions from the run's columns (read once per distinct mapping, not once per slice)
     table, known = columns_between(run.figures, first, stop)
     count = stop - first
     verdict = np.full(count, "", dtype=object)
@@ -927,19 +936,16 @@ def _figure_rows(run: RunFigures, budgets: FigureBudgets, first: int, stop: int,
         verdict[row] = verdicts.get(id(f), "")
     conditions = run.figure_conditions
     which = conditions.which[first:stop]
-    masks = table["flags"].tolist()
-    flag_texts = {mask: " ".join(flags_from_mask(mask)) for mask in set(masks)}
-    columns: dict[str, object] = {
+    columns: dict[str, np.ndarray] = {
         "figure": np.arange(first, stop, dtype=np.int64),
         "name": table["name"],
         "value": table["value"],
         "unit": table["unit"],
         "bound": table["bound"],
         "uncertainty_db": table["uncertainty_db"],
-        "text": _texts3(table),
         "verdict": verdict,
-        "flags": np.array([flag_texts[m] for m in masks], dtype=object),
-        "points": _points_texts(table["points"].tolist()),
+        "flags": table["flags"],
+        "points": table["points"],
         # the budget columns, as the budgets give them (whole numbers with empty cells:
         # object columns)
         **budget_columns(budgets, first, stop),
@@ -951,7 +957,31 @@ def _figure_rows(run: RunFigures, budgets: FigureBudgets, first: int, stop: int,
                                    dtype=object if text else float)
         else:
             columns[key] = values[which]
-    return pd.DataFrame(columns)
+    return columns
+
+
+def figure_rows_frame(columns: Mapping[str, np.ndarray]) -> pd.DataFrame:
+    """A slice of :func:`figure_slices` as the figure table's frame: each figure's ``text``
+    (its value as :func:`figure_text` writes it, 3 decimals) before its verdict, its flag
+    mask as their names and its points as their numbers, space-separated."""
+    import pandas as pd
+
+    from sweeprig.analysis.figures import flags_from_mask
+
+    masks = columns["flags"].tolist()
+    flag_texts = {mask: " ".join(flags_from_mask(mask)) for mask in set(masks)}
+    out: dict[str, object] = {}
+    for key, values in columns.items():
+        if key == "verdict":
+            out["text"] = _texts3(columns)
+            out[key] = values
+        elif key == "flags":
+            out[key] = np.array([flag_texts[m] for m in masks], dtype=object)
+        elif key == "points":
+            out[key] = _points_texts(values.tolist())
+        else:
+            out[key] = values
+    return pd.DataFrame(out)
 
 
 #: Table formats :func:`write_tables` writes.
@@ -1024,7 +1054,8 @@ def add_figure_table(writing: TableWriting, run: RunFigures,
         budgets = figure_budgets(run)
     _ = run.figure_conditions  # made here, before a thread reads it
     writing.add(TableJob({fmt: writing.where / f"figures.{fmt}" for fmt in writing.formats},
-                         figure_frames(run, budgets), integer_columns=BUDGET_INTEGER_COLUMNS))
+                         figure_slices(run, budgets), integer_columns=BUDGET_INTEGER_COLUMNS,
+                         finish=figure_rows_frame))
 
 
 def make_folder(folder: Path, *, what: str = "report folder", option: str = "--out") -> Path:

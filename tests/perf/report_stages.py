@@ -4,9 +4,9 @@
 stage is one function, found in its module and in every loaded sweeprig module that
 imported it by name) so that each call adds the processor time of its thread to its stage
 and notes the resident memory after it; a generator's time is counted while it makes each
-item. Stages nest (``attach_uncertainty_in_place`` holds ``grouped_budgets``), so the
+item. Stages nest (``attach_uncertainty_to_parts`` holds ``grouped_budgets``), so the
 figures do not add up to the whole. A large run's tables are written by a helper process
-(``sweeprig.report.table_writing``): its work is not here; ``figure_frames`` is the report
+(``sweeprig.report.table_writing``): its work is not here; ``figure_slices`` is the report
 process' part of the figure table, made by the thread that feeds the helper, and
 ``write_frame_rows`` the budget tables. For the benchmarks' child processes only: the
 wrappers stay for the life of the process.
@@ -28,13 +28,13 @@ STAGES: tuple[tuple[str, str], ...] = (
     ("sweeprig.store.sql", "SqlRunStoreCore.readings_frame"),
     ("sweeprig.analysis.load", "captures_from_frames"),
     ("sweeprig.analysis.reduce", "_figures"),
-    ("sweeprig.analysis.reduce", "flag_marked_points"),
-    ("sweeprig.analysis.direction", "output_frequency_conditions"),
+    ("sweeprig.analysis.figure_block", "flag_marked_parts"),
+    ("sweeprig.analysis.direction", "add_output_frequency_to_parts"),
     ("sweeprig.analysis.budget_groups", "grouped_budgets"),
-    ("sweeprig.analysis.budget_groups", "attach_uncertainty_in_place"),
+    ("sweeprig.analysis.budget_groups", "attach_uncertainty_to_parts"),
     ("sweeprig.analysis.limits", "assess"),
     ("sweeprig.report.budget_tables", "figure_budgets"),
-    ("sweeprig.report.tables", "figure_frames"),
+    ("sweeprig.report.tables", "figure_slices"),
     ("sweeprig.report.csv_table", "write_frame_rows"),
     ("sweeprig.report.tables", "summary_rows"),
     ("sweeprig.report.tables", "write_figures_json"),
