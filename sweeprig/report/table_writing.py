@@ -202,8 +202,9 @@ class TableWriting:
         # the helper imports this very sweeprig, wherever this process found it
         root = str(Path(__file__).resolve().parents[2])
         env["PYTHONPATH"] = os.pathsep.join(p for p in (root, env.get("PYTHONPATH")) if p)
+        # (-P: not the working folder first on its path, where another sweeprig may be)
         self._process = subprocess.Popen(
-            [sys.executable, "-c", _HELPER_CODE], stdin=subprocess.PIPE,
+            [sys.executable, "-P", "-c", _HELPER_CODE], stdin=subprocess.PIPE,
             stdout=subprocess.PIPE, stderr=self._stderr, env=env)
         self._thread = threading.Thread(target=self._feed, name="sweeprig-tables",
                                         daemon=True)

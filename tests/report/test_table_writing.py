@@ -45,6 +45,25 @@ def test_the_helper_writes_the_same_files_as_this_process(report_run, tmp_path, 
     assert len(figures) == len(report_run.figures)
 
 
+def test_the_helper_imports_this_sweeprig_not_one_in_the_working_folder(report_run, tmp_path,
+                                                                      monkeypatch):
+    """A report run from a folder that holds another sweeprig (a checkout, an old copy):
+    the helper still imports the one this process runs, so the two speak the same
+    messages."""
+    other = tmp_path / "elsewhere" / "sweeprig"
+    other.mkdir(parents=True)
+    (other / "__init__.py").write_text("raise ImportError('not this sweeprig')\n")
+    monkeypatch.chdir(other.parent)
+    here = _written(report_run, tmp_path / "here", helper=False)
+    folder = tmp_path / "helper"
+    folder.mkdir()
+    with open_tables(report_run.captures, folder, helper=True) as writing:
+        add_figure_table(writing, report_run)
+        writing.finish()
+    assert writing.helper and writing.helper_failed is None  # (not written by the thread)
+    assert {name: (folder / name).read_bytes() for name in NAMES} == here
+
+
 def test_a_large_run_s_report_uses_the_helper(report_run, tmp_path, monkeypatch):
     """write_report hands the tables to the helper from HELPER_CAPTURE_ROWS captures on,
     and its files are those of the report written here."""
