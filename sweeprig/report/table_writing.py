@@ -187,6 +187,7 @@ class TableWriting:
         #: Why the tables were written by the feeding thread instead (a helper that could
         #: not start: an interpreter that cannot run this sweeprig); None: by the helper.
         self.helper_failed: str | None = None
+        self._waiting = threading.Event()  # finish() is waiting: slices finished here
         #: The helper's peak resident memory, MB (None: written here, or not known).
         self.helper_peak_mb: float | None = None
 
@@ -245,8 +246,14 @@ class TableWriting:
                 while (job := self._queue.get()) is not None:
                     _send(pipe, ("open", {k: str(p) for k, p in job.paths.items()},
                                  job.schema, job.integer_columns, job.finish))
-                    for frame in self._until_stopped(job.slices):
-                        _send(pipe, ("rows", frame))
+                    for item in self._until_stopped(job.slices):
+                        # while this process makes the rest of the report, the helper
+                        # finishes the slices; once it only waits (finish()), it finishes
+                        # them here, on the core it no longer uses
+                        if job.finish is not None and self._waiting.is_set():
+                            _send(pipe, ("rows", job.finish(item), True))
+                        else:
+                            _send(pipe, ("rows", item, job.finish is None))
                     _send(pipe, ("close",))
                     if self._stop.is_set():
                         return
@@ -271,6 +278,7 @@ class TableWriting:
             return
         self._finished = True
         assert self._process is not None and self._thread is not None
+        self._waiting.set()
         self._queue.put(None)
         self._thread.join()
         process = self._process
@@ -351,10 +359,12 @@ def serve(source: IO[bytes] | None = None, reply: IO[bytes] | None = None) -> No
     pickle.dump(("ready",), reply, protocol=pickle.HIGHEST_PROTOCOL)
     reply.flush()
 
-    def rows() -> Iterator[pd.DataFrame]:
-        """The slices of the table just opened, until its ``close``."""
+    def rows(finish: Callable[[Any], pd.DataFrame] | None) -> Iterator[pd.DataFrame]:
+        """The slices of the table just opened, until its ``close``; each finished here
+        unless the report process did (the message says)."""
         while (message := pickle.load(source))[0] == "rows":
-            yield message[1]
+            _, item, finished = message
+            yield item if finished or finish is None else finish(item)
         if message[0] != "close":
             raise ValueError(f"unexpected message {message[0]!r} within a table")
 
@@ -368,8 +378,8 @@ def serve(source: IO[bytes] | None = None, reply: IO[bytes] | None = None) -> No
                 continue
             _, paths, schema, integers, finish = message
             try:
-                write_job(TableJob({k: Path(v) for k, v in paths.items()}, rows(), schema,
-                                   integers, finish))
+                write_job(TableJob({k: Path(v) for k, v in paths.items()}, rows(finish),
+                                   schema, integers))
             except StoreError as exc:
                 answer = ("failed", exc.what, exc.where, exc.fix)
             except (EOFError, pickle.UnpicklingError):
