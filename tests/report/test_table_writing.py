@@ -45,6 +45,32 @@ def test_the_helper_writes_the_same_files_as_this_process(report_run, tmp_path, 
     assert len(figures) == len(report_run.figures)
 
 
+def test_slices_finished_here_once_this_process_waits_are_the_same(report_run, tmp_path,
+                                                                   monkeypatch):
+    """Once the report process only waits for its tables, it finishes their slices' text
+    itself (here: from the first slice) and the helper writes them as they come."""
+    monkeypatch.setattr(tables, "FIGURE_SLICE_ROWS", 29)
+    finished: list[int] = []  # rows of each figure slice sent finished
+    real = table_writing._send
+
+    def spy(pipe, message):
+        if message[0] == "rows" and message[2] and "text" in message[1]:
+            finished.append(len(message[1]))
+        return real(pipe, message)
+
+    here = _written(report_run, tmp_path / "here", helper=False)
+    monkeypatch.setattr(table_writing, "_send", spy)
+    folder = tmp_path / "helper"
+    folder.mkdir()
+    with open_tables(report_run.captures, folder, helper=True) as writing:
+        writing._waiting.set()  # (as finish() does)
+        add_figure_table(writing, report_run)
+        writing.finish()
+    assert writing.helper_failed is None
+    assert sum(finished) == len(report_run.figures)  # every slice finished in this process
+    assert {name: (folder / name).read_bytes() for name in NAMES} == here
+
+
 def test_the_helper_imports_this_sweeprig_not_one_in_the_working_folder(report_run, tmp_path,
                                                                       monkeypatch):
     """A report run from a folder that holds another sweeprig (a checkout, an old copy):
