@@ -38,7 +38,6 @@ from sweeprig.analysis.figures import (
     BOUND_NONE,
     Figure,
     collector_paused,
-    flag_bit,
     flag_marked_points,
     flags_from_mask,
     mark_bits,
@@ -248,15 +247,19 @@ class Figures(Sequence[Figure]):
             return part.figure(row)
         return part[row]
 
-    def between(self, start: int, stop: int) -> list[Figure]:
-        """The figures at positions ``start`` to ``stop`` (the pinned ones as kept)."""
-        out: list[Figure] = []
+    def spans(self, start: int, stop: int) -> Iterator[tuple[Part, int, int, int]]:
+        """The parts holding the figures at positions ``start`` to ``stop``: (part, the
+        position of its first figure, its rows lo to hi among them) each, in order."""
         starts = self._starts
         for k, part in enumerate(self._parts):
             first, end = starts[k], starts[k + 1]
-            if end <= start or first >= stop:
-                continue
-            lo, hi = max(start, first) - first, min(stop, end) - first
+            if end > start and first < stop:
+                yield part, first, max(start, first) - first, min(stop, end) - first
+
+    def between(self, start: int, stop: int) -> list[Figure]:
+        """The figures at positions ``start`` to ``stop`` (the pinned ones as kept)."""
+        out: list[Figure] = []
+        for part, first, lo, hi in self.spans(start, stop):
             if isinstance(part, FigureBlock):
                 out += part.figures(lo, hi, self._pinned or None, first)
             else:
@@ -357,21 +360,16 @@ def packed(figures: Sequence[Figure], *, least: int | None = None,
 
 def block_of(figures: Sequence[Figure]) -> FigureBlock:
     """The block of ``figures``: one name and unit, each from one point, no budget."""
+    from sweeprig.analysis.figure_table import flag_masks
+
     first = figures[0]
-    masks: dict[tuple[str, ...], int] = {}
-    flag_masks = []
-    for f in figures:
-        mask = masks.get(f.flags)
-        if mask is None:
-            mask = masks[f.flags] = sum(flag_bit(name) for name in f.flags)
-        flag_masks.append(mask)
     conditions = np.empty(len(figures), dtype=object)
     conditions[:] = [f.conditions for f in figures]
     return FigureBlock(
         first.name, first.unit,
         np.array([f.value for f in figures], dtype=float),
         np.array([_CODES[f.bound] for f in figures], dtype=np.int8),
-        np.array(flag_masks, dtype=np.int64),
+        flag_masks(figures),
         conditions,
         np.array([f.points[0] for f in figures], dtype=np.int64),
         np.array([f.uncertainty_db for f in figures], dtype=float),
@@ -431,14 +429,9 @@ def columns_between(figures: Sequence[Figure], first: int, stop: int
         return base_columns(some), list(enumerate(some))
     pieces: list[dict[str, np.ndarray]] = []
     known: list[tuple[int, Figure]] = []
-    starts = figures.part_starts()
     pinned = figures._pinned
     row0 = 0
-    for k, part in enumerate(figures.parts):
-        begin, end = starts[k], starts[k + 1]
-        if end <= first or begin >= stop:
-            continue
-        lo, hi = max(first, begin) - begin, min(stop, end) - begin
+    for part, begin, lo, hi in figures.spans(first, stop):
         if isinstance(part, FigureBlock):
             count = hi - lo
             points = np.empty(count, dtype=object)
@@ -478,13 +471,9 @@ def block_rows_between(figures: Sequence[Figure], first: int, stop: int
     figure there, the block, its rows lo to hi) each; nothing for a plain sequence."""
     if not isinstance(figures, Figures):
         return
-    starts = figures.part_starts()
-    for k, part in enumerate(figures.parts):
-        begin, end = starts[k], starts[k + 1]
-        if end <= first or begin >= stop or not isinstance(part, FigureBlock):
-            continue
-        lo, hi = max(first, begin) - begin, min(stop, end) - begin
-        yield max(first, begin) - first, part, lo, hi
+    for part, begin, lo, hi in figures.spans(first, stop):
+        if isinstance(part, FigureBlock):
+            yield begin + lo - first, part, lo, hi
 
 
 def block_maker(blockable: Callable[[str], bool] | None = None

@@ -75,13 +75,6 @@ def figure_columns(figures: Sequence[Figure], names: Iterable[str] | None = None
 def base_columns(figures: Sequence[Figure]) -> dict[str, np.ndarray]:
     """The :data:`BASE_COLUMNS` of ``figures``, one pass over them (text and ``points`` as
     object arrays)."""
-    masks: dict[tuple[str, ...], int] = {}
-    flag_masks = []
-    for f in figures:
-        mask = masks.get(f.flags)
-        if mask is None:
-            mask = masks[f.flags] = sum(flag_bit(flag) for flag in f.flags)
-        flag_masks.append(mask)
     points = np.empty(len(figures), dtype=object)
     points[:] = [tuple(f.points) for f in figures]
     return {
@@ -90,9 +83,22 @@ def base_columns(figures: Sequence[Figure]) -> dict[str, np.ndarray]:
         "unit": np.array([f.unit for f in figures], dtype=object),
         "bound": np.array([f.bound or "" for f in figures], dtype=object),
         "uncertainty_db": np.array([f.uncertainty_db for f in figures], dtype=float),
-        "flags": np.array(flag_masks, dtype=np.int64),
+        "flags": flag_masks(figures),
         "points": points,
     }
+
+
+def flag_masks(figures: Sequence[Figure]) -> np.ndarray:
+    """Each figure's flags as a flag mask (int64; the mask of a flags tuple worked out once:
+    most figures share one)."""
+    masks: dict[tuple[str, ...], int] = {}
+    out = []
+    for f in figures:
+        mask = masks.get(f.flags)
+        if mask is None:
+            mask = masks[f.flags] = sum(flag_bit(flag) for flag in f.flags)
+        out.append(mask)
+    return np.array(out, dtype=np.int64)
 
 
 def condition_arrays(mappings: Sequence[Mapping[str, object]]) -> dict[str, np.ndarray]:

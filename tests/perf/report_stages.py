@@ -16,11 +16,12 @@ from __future__ import annotations
 
 import importlib
 import inspect
-import resource
 import sys
 import time
 from collections.abc import Callable, Iterator
 from typing import Any
+
+from sweeprig.memory import resident_mb
 
 #: (module, function) of each stage, in the order a report meets them.
 STAGES: tuple[tuple[str, str], ...] = (
@@ -42,16 +43,6 @@ STAGES: tuple[tuple[str, str], ...] = (
     ("sweeprig.report.datasheet", "datasheet_rows"),
     ("sweeprig.report.html", "write_html"),
 )
-
-
-def resident_mb() -> float:
-    """This process's resident memory now, MB (Linux ``/proc/self/statm``; NaN elsewhere)."""
-    try:
-        with open("/proc/self/statm", encoding="ascii") as statm:
-            pages = int(statm.read().split()[1])
-    except (OSError, IndexError, ValueError):
-        return float("nan")
-    return pages * resource.getpagesize() / 2**20
 
 
 def staged() -> dict[str, dict[str, float]]:
