@@ -188,7 +188,7 @@ class Figures(Sequence[Figure]):
     (see the module docstring). Read as a ``Sequence[Figure]``; compares equal to any
     sequence of equal figures."""
 
-    __slots__ = ("_parts", "_pinned", "_pinned_at", "_starts")
+    __slots__ = ("_parts", "_pinned", "_pinned_at", "_pinned_names", "_starts")
 
     def __init__(self, parts: Iterable[FigureBlock | Sequence[Figure]] = ()) -> None:
         kept: list[Part] = []
@@ -208,6 +208,7 @@ class Figures(Sequence[Figure]):
         self._starts = starts
         self._pinned: dict[int, Figure] = {}
         self._pinned_at: np.ndarray | None = None
+        self._pinned_names: set[str] = set()
 
     @property
     def parts(self) -> tuple[Part, ...]:
@@ -319,9 +320,13 @@ class Figures(Sequence[Figure]):
         """Make every figure of ``names`` held in a block once and keep it: each later
         reading of it gives that one object (what is joined by identity: the figures a
         limit judges)."""
-        positions, figures = self.named(names)
+        new = set(names) - self._pinned_names
+        if not new:
+            return
+        positions, figures = self.named(new)
         for position, figure in zip(positions, figures, strict=True):
             self._pinned.setdefault(position, figure)
+        self._pinned_names |= new
 
 
 def packed(figures: Sequence[Figure], *, least: int | None = None,

@@ -126,4 +126,7 @@ def test_a_sequence_of_figures_reads_as_one():
     assert seq[0] == seq[0] and seq[0] is not seq[0]
     seq.pin(["gain"])
     assert seq[0] is seq[0] is next(iter(seq)) is seq[0:1][0]
+    held = seq[0]
+    seq.pin(["gain", "iip3"])  # (a name pinned again keeps its objects)
+    assert seq[0] is held and seq[3] is seq[3]
     assert block_of(figures[:3]).figure(2) == figures[2]
