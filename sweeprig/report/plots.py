@@ -13,7 +13,6 @@ from __future__ import annotations
 
 import io
 import math
-import weakref
 from collections.abc import Callable, Iterator, Mapping, Sequence
 from dataclasses import dataclass
 
@@ -119,10 +118,7 @@ def all_plots(run: RunFigures) -> list[Plot]:
         intermod_dbc_plot, gain_vs_lo_drive, isolation_vs_frequency, spur_chart,
         noise_figure_plot, soak_curves,
     )
-    try:
-        return [p for p in (make(run) for make in makers) if p is not None]
-    finally:
-        _PER_RUN.pop(id(run), None)  # what the plots shared is not held through the report
+    return [p for p in (make(run) for make in makers) if p is not None]
 
 
 def temperature_colour(temperature_c: float | None) -> str:
@@ -194,23 +190,6 @@ def figure_frame(run: RunFigures, names: str | Sequence[str]) -> pd.DataFrame:
         if frame[key].dtype != np.float64:
             frame[key] = pd.to_numeric(frame[key], errors="coerce").astype(float)
     return frame
-
-
-#: What several plots of one run derive from it (its figures by name, the two-tone points),
-#: made once per run; a run's entry goes when the run is garbage-collected.
-_PER_RUN: dict[int, dict[str, object]] = {}
-
-
-def _once_per_run(run: RunFigures, what: str, make: Callable[[], object]) -> object:
-    """``make()`` the first time ``what`` is asked of ``run``, the same object after."""
-    key = id(run)
-    cache = _PER_RUN.get(key)
-    if cache is None:
-        cache = _PER_RUN[key] = {}
-        weakref.finalize(run, _PER_RUN.pop, key, None)
-    if what not in cache:
-        cache[what] = make()
-    return cache[what]
 
 
 def _named_figures(run: RunFigures, names: Sequence[str]) -> list[Figure]:
