@@ -215,10 +215,6 @@ class Figures(Sequence[Figure]):
         """The blocks and tuples of figures, in order."""
         return self._parts
 
-    def part_starts(self) -> list[int]:
-        """The position of each part's first figure, then the count of all."""
-        return list(self._starts)
-
     def __len__(self) -> int:
         return self._starts[-1]
 
@@ -309,12 +305,15 @@ class Figures(Sequence[Figure]):
                         figures.append(f)
         return positions, figures
 
-    def pinned_positions(self) -> np.ndarray:
-        """The positions of the pinned figures, ascending (int64)."""
+    def pinned_between(self, start: int, stop: int) -> list[tuple[int, Figure]]:
+        """(position, figure) of each pinned figure at positions ``start`` to ``stop``."""
+        if not self._pinned:
+            return []
         held = self._pinned_at
         if held is None or held.size != len(self._pinned):
             held = self._pinned_at = np.array(sorted(self._pinned), dtype=np.int64)
-        return held
+        inside = held[np.searchsorted(held, start):np.searchsorted(held, stop)]
+        return [(position, self._pinned[position]) for position in inside.tolist()]
 
     def pin(self, names: Iterable[str]) -> None:
         """Make every figure of ``names`` held in a block once and keep it: each later
@@ -421,7 +420,7 @@ def part_conditions(parts: Sequence[Part]) -> np.ndarray:
     return np.concatenate(pieces) if pieces else np.empty(0, dtype=object)
 
 
-def columns_between(figures: Sequence[Figure], first: int, stop: int
+def columns_between(figures: Figures, first: int, stop: int
                     ) -> tuple[dict[str, np.ndarray], list[tuple[int, Figure]]]:
     """:func:`~sweeprig.analysis.figure_table.base_columns` of the figures at positions
     ``first`` to ``stop`` (a block's read from its columns, none of its figures made), and
@@ -429,14 +428,10 @@ def columns_between(figures: Sequence[Figure], first: int, stop: int
     loose figures and the pinned ones (:meth:`Figures.pin`)."""
     from sweeprig.analysis.figure_table import base_columns
 
-    if not isinstance(figures, Figures):
-        some = list(figures[first:stop])
-        return base_columns(some), list(enumerate(some))
     pieces: list[dict[str, np.ndarray]] = []
     known: list[tuple[int, Figure]] = []
-    pinned = figures._pinned
-    row0 = 0
     for part, begin, lo, hi in figures.spans(first, stop):
+        row0 = begin + lo - first
         if isinstance(part, FigureBlock):
             count = hi - lo
             points = np.empty(count, dtype=object)
@@ -453,32 +448,17 @@ def columns_between(figures: Sequence[Figure], first: int, stop: int
                 "flags": part.flags[lo:hi],
                 "points": points,
             })
-            if pinned:
-                at = figures.pinned_positions()
-                inside = at[np.searchsorted(at, begin + lo):np.searchsorted(at, begin + hi)]
-                known += [(row0 + position - begin - lo, pinned[position])
-                          for position in inside.tolist()]
+            known += [(position - first, f)
+                      for position, f in figures.pinned_between(begin + lo, begin + hi)]
         else:
             some = part[lo:hi]
             pieces.append(base_columns(some))
             known += [(row0 + i, f) for i, f in enumerate(some)]
-        row0 += hi - lo
     if not pieces:
         return base_columns([]), []
     if len(pieces) == 1:
         return pieces[0], known
     return {key: np.concatenate([p[key] for p in pieces]) for key in pieces[0]}, known
-
-
-def block_rows_between(figures: Sequence[Figure], first: int, stop: int
-                       ) -> Iterator[tuple[int, FigureBlock, int, int]]:
-    """The blocks among the figures at positions ``first`` to ``stop``: (row of its first
-    figure there, the block, its rows lo to hi) each; nothing for a plain sequence."""
-    if not isinstance(figures, Figures):
-        return
-    for part, begin, lo, hi in figures.spans(first, stop):
-        if isinstance(part, FigureBlock):
-            yield begin + lo - first, part, lo, hi
 
 
 def block_maker(blockable: Callable[[str], bool] | None = None

@@ -29,7 +29,6 @@ not pass: a passing partial run is inconclusive.
 
 from __future__ import annotations
 
-import collections.abc as abc
 import functools
 import json
 import math
@@ -44,6 +43,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from sweeprig.analysis.captures import OUTPUT_FREQ, risk_mask
+from sweeprig.analysis.figure_block import Figures
 from sweeprig.analysis.figures import (
     REFERENCE_UNLOCKED,
     SOURCE_UNLEVELED,
@@ -131,7 +131,9 @@ class RunFigures:
     creation to its end (or its last point, while unfinished). ``sequence_sha256_ok`` says
     whether the stored sequence text still hashes to the stored SHA-256. ``notes`` are
     plain-language remarks on what could not be done. ``captures`` is the capture table the
-    figures came from (one row per reading).
+    figures came from (one row per reading). ``figures`` is held as a
+    :class:`~sweeprig.analysis.figure_block.Figures` however it is given (a large run's:
+    blocks of columns).
     """
 
     run_id: int
@@ -155,7 +157,7 @@ class RunFigures:
     instruments: tuple[InstrumentRecord, ...]
     duration_sim_s: float | None
     duration_wall_s: float | None
-    figures: abc.Sequence[Figure]
+    figures: Figures
     limits: tuple[Limit, ...]
     assessment: Assessment
     verdict: Verdict
@@ -169,6 +171,10 @@ class RunFigures:
     #: :mod:`sweeprig.analysis.direction`). "down" when the sequence could not be read.
     conversion: str = "down"
 
+    def __post_init__(self) -> None:
+        if not isinstance(self.figures, Figures):  # (a list or tuple of figures given)
+            object.__setattr__(self, "figures", Figures([tuple(self.figures)]))
+
     @functools.cached_property
     def figure_conditions(self) -> RunConditions:
         """The conditions of ``figures`` as columns, read once per distinct mapping and
@@ -179,12 +185,9 @@ class RunFigures:
         return RunConditions.of(self.figures)
 
     def figures_named(self, name: str) -> list[Figure]:
-        """Every figure called ``name``, in reduction order."""
-        from sweeprig.analysis.figure_block import Figures
-
-        if isinstance(self.figures, Figures):  # (a block of another name is not made)
-            return self.figures.named([name])[1]
-        return [f for f in self.figures if f.name == name]
+        """Every figure called ``name``, in reduction order (a block of another name is
+        not made)."""
+        return self.figures.named([name])[1]
 
     def figure_table(self, *names: str) -> pd.DataFrame:
         """The figures called any of ``names`` (none given: all) as columns, one row per
@@ -266,7 +269,6 @@ def _reduce_loaded(loaded: LoadedRun) -> RunFigures:
         name_parts_in_trade_words,
     )
     from sweeprig.analysis.figure_block import (
-        Figures,
         Part,
         block_maker,
         flag_marked_parts,

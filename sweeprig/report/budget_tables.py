@@ -34,7 +34,7 @@ import numpy as np
 import pandas as pd
 
 from sweeprig.analysis.budget_parts import FigureBudget, SharedBudget, budget_lines
-from sweeprig.analysis.figure_block import FigureBlock, Figures, block_rows_between
+from sweeprig.analysis.figure_block import FigureBlock, Figures
 from sweeprig.analysis.figures import Figure, collector_paused
 from sweeprig.analysis.reduce import RunFigures
 from sweeprig.analysis.uncertainty import DIVISORS, MODELS, Contribution
@@ -90,7 +90,7 @@ class FigureBudgets:
     terms: tuple[Contribution, ...]
     shared: tuple[SharedBudget, ...]
     shared_terms: tuple[tuple[int, ...], ...]
-    figures: Sequence[Figure]
+    figures: Figures
     shared_numbers: Mapping[int, int]
     own_terms: Mapping[int, str]
 
@@ -136,19 +136,14 @@ def figure_budgets(run: RunFigures) -> FigureBudgets:
                          run.figures, by_id, own)
 
 
-def _budget_holders(figures: Sequence[Figure]
-                    ) -> Iterator[tuple[int, Figure | FigureBlock]]:
+def _budget_holders(figures: Figures) -> Iterator[tuple[int, Figure | FigureBlock]]:
     """(position, figure) per loose figure and (position of its first, block) per block,
-    in order (a plain sequence: every figure)."""
-    if not isinstance(figures, Figures):
-        yield from enumerate(figures)
-        return
-    starts = figures.part_starts()
-    for k, part in enumerate(figures.parts):
+    in order."""
+    for part, first, _lo, _hi in figures.spans(0, len(figures)):
         if isinstance(part, FigureBlock):
-            yield starts[k], part
+            yield first, part
         else:
-            yield from enumerate(part, starts[k])
+            yield from enumerate(part, first)
 
 
 def _first_used(block: FigureBlock) -> list[SharedBudget]:
@@ -169,100 +164,78 @@ def budget_columns(budgets: FigureBudgets, first: int = 0, stop: int | None = No
     """The figure table's budget columns (:data:`BUDGET_FIGURE_COLUMNS`, name → array) of
     figures ``first`` to ``stop`` (the whole run by default): its shared part's number, u_c,
     per reading whose noise matters its SNR, scatter SNR and sweeps, and its own lines'
-    numbers (empty or NaN without a budget)."""
-    stop = len(budgets.figures) if stop is None else min(stop, len(budgets.figures))
-    if isinstance(budgets.figures, Figures):
-        return _parts_budget_columns(budgets, first, stop)
-    figures = budgets.figures[first:stop]
-    count = len(figures)
-    nan = math.nan
-    with collector_paused():
-        every = [f.budget for f in figures]
-        at = [i for i, b in enumerate(every) if b is not None]
-        inside: list[FigureBudget] = [every[i] for i in at]  # type: ignore[misc]
-        del every
-        where = np.array(at, dtype=np.int64)
-        ids = np.full(count, None, dtype=object)
-        number = budgets.shared_numbers
-        ids[where] = [number[id(b.shared)] for b in inside]
-        combined = np.full(count, nan)
-        combined[where] = [b.combined_db for b in inside]
-        columns: dict[str, np.ndarray] = {"budget": ids, "combined_uncertainty_db": combined}
-        for k in range(NOISE_SLOTS):
-            names = _slot_names(k)
-            snr = np.full(count, nan)
-            snr[where] = [b.snr_db[k] if len(b.snr_db) > k else nan for b in inside]
-            scatter_at = [b.scatter_snr_db[k] if len(b.scatter_snr_db) > k else nan
-                          for b in inside]
-            scatter = np.full(count, nan)
-            scatter[where] = scatter_at
-            averages = np.full(count, None, dtype=object)
-            averages[where] = [None if s != s else b.averages[k]
-                               for b, s in zip(inside, scatter_at, strict=True)]
-            columns[names[0]], columns[names[1]], columns[names[2]] = snr, scatter, averages
-        own = np.full(count, "", dtype=object)
-        own_terms = budgets.own_terms
-        if own_terms:
-            for i in at:
-                text = own_terms.get(first + i)
-                if text is not None:
-                    own[i] = text
-        columns["own_terms"] = own
-    return columns
-
-
-def _parts_budget_columns(budgets: FigureBudgets, first: int, stop: int
-                          ) -> dict[str, np.ndarray]:
-    """:func:`budget_columns` of a run's figures held as parts: a block's read from its
-    budget columns, the loose figures' as there."""
+    numbers (empty or NaN without a budget). A block's are read from its budget columns,
+    none of its figures made."""
     figures = budgets.figures
-    assert isinstance(figures, Figures)
+    stop = len(figures) if stop is None else min(stop, len(figures))
     count = stop - first
-    loose_rows = np.ones(count, dtype=bool)
     text = {"budget", "own_terms", *BUDGET_INTEGER_COLUMNS}
     columns = {name: (np.full(count, None, dtype=object) if name in text
                       else np.full(count, math.nan)) for name in BUDGET_FIGURE_COLUMNS}
     columns["own_terms"][:] = ""
-    number = budgets.shared_numbers
-    for row, block, lo, hi in block_rows_between(figures, first, stop):
-        rows = slice(row, row + hi - lo)
-        loose_rows[rows] = False
-        held = block.budgets
-        if held is None:
-            continue
-        shared = held.shared[lo:hi]
-        has = np.not_equal(shared, None)
-        ids = np.full(hi - lo, None, dtype=object)
-        ids[has] = [number[id(b)] for b in shared[has]]
-        columns["budget"][rows] = ids
-        columns["combined_uncertainty_db"][rows] = held.combined_db[lo:hi]
-        width = held.snr_db.shape[1]
-        for k in range(min(width, NOISE_SLOTS)):
-            snr_name, scatter_name, averages_name = _slot_names(k)
-            columns[snr_name][rows] = held.snr_db[lo:hi, k]
-            scatter = held.scatter_snr_db[lo:hi, k]
-            columns[scatter_name][rows] = scatter
-            averages = np.full(hi - lo, None, dtype=object)
-            seen = ~np.isnan(scatter)
-            averages[seen] = held.averages[lo:hi, k][seen].tolist()
-            columns[averages_name][rows] = averages
-    # the loose figures as budget_columns gives them, a run of them at a time
-    at = np.flatnonzero(loose_rows)
-    if at.size:
-        breaks = np.flatnonzero(np.diff(at) != 1) + 1
-        for run_rows in np.split(at, breaks):
-            lo, hi = int(run_rows[0]), int(run_rows[-1]) + 1
-            plain = FigureBudgets(budgets.terms, budgets.shared, budgets.shared_terms,
-                                  figures.between(first + lo, first + hi),
-                                  budgets.shared_numbers, _shifted(budgets.own_terms,
-                                                                   first + lo))
-            for name, values in budget_columns(plain).items():
-                columns[name][lo:hi] = values
+    for part, begin, lo, hi in figures.spans(first, stop):
+        rows = slice(begin + lo - first, begin + hi - first)
+        if isinstance(part, FigureBlock):
+            _block_budget_columns(columns, rows, part, lo, hi, budgets.shared_numbers)
+        else:
+            _figure_budget_columns(columns, rows, part[lo:hi], begin + lo, budgets)
     return columns
 
 
-def _shifted(own_terms: Mapping[int, str], by: int) -> Mapping[int, str]:
-    return {i - by: text for i, text in own_terms.items() if i >= by}
+def _block_budget_columns(columns: dict[str, np.ndarray], rows: slice, block: FigureBlock,
+                          lo: int, hi: int, number: Mapping[int, int]) -> None:
+    """Fill ``rows`` of the budget ``columns`` from ``block``'s rows ``lo`` to ``hi``."""
+    held = block.budgets
+    if held is None:
+        return
+    shared = held.shared[lo:hi]
+    has = np.not_equal(shared, None)
+    ids = np.full(hi - lo, None, dtype=object)
+    ids[has] = [number[id(b)] for b in shared[has]]
+    columns["budget"][rows] = ids
+    columns["combined_uncertainty_db"][rows] = held.combined_db[lo:hi]
+    for k in range(min(held.snr_db.shape[1], NOISE_SLOTS)):
+        snr_name, scatter_name, averages_name = _slot_names(k)
+        columns[snr_name][rows] = held.snr_db[lo:hi, k]
+        scatter = held.scatter_snr_db[lo:hi, k]
+        columns[scatter_name][rows] = scatter
+        averages = np.full(hi - lo, None, dtype=object)
+        seen = ~np.isnan(scatter)
+        averages[seen] = held.averages[lo:hi, k][seen].tolist()
+        columns[averages_name][rows] = averages
+
+
+def _figure_budget_columns(columns: dict[str, np.ndarray], rows: slice,
+                           figures: Sequence[Figure], first: int,
+                           budgets: FigureBudgets) -> None:
+    """Fill ``rows`` of the budget ``columns`` from ``figures`` (at positions ``first`` on),
+    column by column over those with a budget."""
+    nan = math.nan
+    with collector_paused():
+        every = [f.budget for f in figures]
+        at = [i for i, b in enumerate(every) if b is not None]
+        if not at:
+            return
+        inside: list[FigureBudget] = [every[i] for i in at]  # type: ignore[misc]
+        del every
+        where = np.array(at, dtype=np.int64) + rows.start
+        number = budgets.shared_numbers
+        columns["budget"][where] = [number[id(b.shared)] for b in inside]
+        columns["combined_uncertainty_db"][where] = [b.combined_db for b in inside]
+        for k in range(NOISE_SLOTS):
+            snr_name, scatter_name, averages_name = _slot_names(k)
+            columns[snr_name][where] = [b.snr_db[k] if len(b.snr_db) > k else nan
+                                        for b in inside]
+            scatter_at = [b.scatter_snr_db[k] if len(b.scatter_snr_db) > k else nan
+                          for b in inside]
+            columns[scatter_name][where] = scatter_at
+            columns[averages_name][where] = [None if s != s else b.averages[k]
+                                             for b, s in zip(inside, scatter_at, strict=True)]
+        own_terms = budgets.own_terms
+        for i, row in zip(at, where.tolist(), strict=True):
+            text = own_terms.get(first + i)
+            if text is not None:
+                columns["own_terms"][row] = text
 
 
 def budgets_frame(budgets: FigureBudgets) -> pd.DataFrame:

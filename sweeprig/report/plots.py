@@ -36,7 +36,6 @@ from sweeprig.analysis.captures import (
     point_table,
 )
 from sweeprig.analysis.compression import compression_table
-from sweeprig.analysis.figure_block import Figures
 from sweeprig.analysis.figures import Figure, flag_bit
 from sweeprig.analysis.gain import gain_table
 from sweeprig.analysis.reduce import RunFigures
@@ -195,11 +194,7 @@ def figure_frame(run: RunFigures, names: str | Sequence[str]) -> pd.DataFrame:
 def _named_figures(run: RunFigures, names: Sequence[str]) -> list[Figure]:
     """The run's figures called any of ``names``, in reduction order (a block of figures
     held as columns is made only when its name is asked for)."""
-    figures = run.figures
-    if isinstance(figures, Figures):
-        return figures.named(names)[1]
-    wanted = frozenset(names)
-    return [f for f in figures if f.name in wanted]
+    return run.figures.named(names)[1]
 
 
 def _frame_figure(row: Mapping[str, object]) -> Figure:

@@ -34,7 +34,6 @@ import numpy as np
 import pandas as pd
 
 from sweeprig import __version__
-from sweeprig.analysis.figure_block import Figures
 from sweeprig.analysis.figures import (
     FIGURE_CATALOGUE,
     FLAG_MEANINGS,
@@ -369,11 +368,8 @@ def shown_figures(run: RunFigures, names: Iterable[str]) -> list[Figure]:
     every later reading of it gives (a figure held in a block is made once and kept: the
     report's tables join a shown figure to its row by identity)."""
     names = set(names)
-    figures = run.figures
-    if isinstance(figures, Figures):
-        figures.pin(names)
-        return figures.named(names)[1]
-    return [f for f in figures if f.name in names]
+    run.figures.pin(names)
+    return run.figures.named(names)[1]
 
 
 def _summary_row(
@@ -581,13 +577,11 @@ def _document(run: RunFigures, budgets: FigureBudgets,
         summary = summary_rows(run)
     wanted = {id(j.figure) for j in run.assessment.judgements}
     wanted.update(id(r.figure) for r in summary)
-    if isinstance(run.figures, Figures):  # (only the names met: a block is not made)
-        names = {j.figure.name for j in run.assessment.judgements}
-        names.update(r.figure.name for r in summary if r.figure is not None)
-        positions, met = run.figures.named(names)
-        index = {id(f): i for i, f in zip(positions, met, strict=True) if id(f) in wanted}
-    else:
-        index = {id(f): i for i, f in enumerate(run.figures) if id(f) in wanted}
+    # (only the names met are read: a block of another name is not made)
+    names = {j.figure.name for j in run.assessment.judgements}
+    names.update(r.figure.name for r in summary)
+    positions, met = run.figures.named(names)
+    index = {id(f): i for i, f in zip(positions, met, strict=True) if id(f) in wanted}
     return {
         "format": FIGURES_FORMAT,
         "generated_utc": datetime.now(UTC).isoformat(timespec="seconds"),
