@@ -378,21 +378,24 @@ def _group_budgets(shared: SharedBudget, points: np.ndarray, levels: PointLevels
                                                             strict=True)]
         distinct: dict[tuple[int, ...], tuple[int, ...]] = {}
         rows_avg = [distinct.setdefault(a, a) for a in zip(*averages, strict=True)]
-    out: list[FigureBudget] = []
-    append = out.append
+    return [group_budget(shared, n, s, a, u)
+            for n, s, a, u in zip(rows_snr, rows_scatter, rows_avg, combined, strict=True)]
+
+
+def group_budget(shared: SharedBudget, snr_db: tuple[float, ...],
+                 scatter_snr_db: tuple[float, ...], averages: tuple[int, ...],
+                 combined_db: float) -> FigureBudget:
+    """The :class:`~sweeprig.analysis.budget_parts.FigureBudget` of a single-point figure
+    (no lines of its own), its fields set directly (:data:`_OpenFigureBudget`): the one
+    builder of the group budgets, a figure's when it is read from a block too."""
     if _OpenFigureBudget is None:
-        for n, s, a, u in zip(rows_snr, rows_scatter, rows_avg, combined, strict=True):
-            append(FigureBudget(shared, n, s, a, (), u))
-        return out
-    open_cls, cls, empty = _OpenFigureBudget, FigureBudget, ()
-    for n, s, a, u in zip(rows_snr, rows_scatter, rows_avg, combined, strict=True):
-        budget = open_cls()
-        budget.shared = shared
-        budget.snr_db = n
-        budget.scatter_snr_db = s
-        budget.averages = a
-        budget.own_lines = empty
-        budget.combined_db = u
-        budget.__class__ = cls  # type: ignore[assignment]
-        append(budget)  # type: ignore[arg-type]
-    return out
+        return FigureBudget(shared, snr_db, scatter_snr_db, averages, (), combined_db)
+    budget = _OpenFigureBudget()
+    budget.shared = shared
+    budget.snr_db = snr_db
+    budget.scatter_snr_db = scatter_snr_db
+    budget.averages = averages
+    budget.own_lines = ()
+    budget.combined_db = combined_db
+    budget.__class__ = FigureBudget  # type: ignore[assignment]
+    return budget  # type: ignore[return-value]

@@ -31,6 +31,7 @@ from typing import overload
 
 import numpy as np
 
+from sweeprig.analysis.budget_groups import group_budget
 from sweeprig.analysis.budget_parts import FigureBudget, SharedBudget
 from sweeprig.analysis.figures import (
     BOUND_ABOVE,
@@ -41,16 +42,14 @@ from sweeprig.analysis.figures import (
     flag_marked_points,
     flags_from_mask,
     mark_bits,
+    new_figure,
 )
-from sweeprig.analysis.writable_twin import writable_twin
 
 #: The fewest figures of one name (from one analysis) held as a block.
 BLOCK_MIN_FIGURES = 512
 
 _SYMBOLS = {BOUND_NONE: None, BOUND_BELOW: "<", BOUND_ABOVE: ">"}
 _CODES = {None: BOUND_NONE, "<": BOUND_BELOW, ">": BOUND_ABOVE}
-_OpenFigure = writable_twin(Figure)
-_OpenFigureBudget = writable_twin(FigureBudget)
 
 
 @dataclass(frozen=True, eq=False)
@@ -75,29 +74,10 @@ class BlockBudgets:
         k = len(shared.noisy)
         snr = tuple(self.snr_db[i, :k].tolist())
         scatter = tuple(self.scatter_snr_db[i, :k].tolist())
-        return _budget(shared, snr, scatter, tuple(self.averages[i, :k].tolist()),
-                       float(self.combined_db[i]))
-
-    def take(self, rows: np.ndarray) -> BlockBudgets:
-        return BlockBudgets(self.shared[rows], self.snr_db[rows], self.scatter_snr_db[rows],
-                            self.averages[rows], self.combined_db[rows])
-
-
-def _budget(shared: SharedBudget, snr: tuple[float, ...], scatter: tuple[float, ...],
-            averages: tuple[int, ...], combined: float) -> FigureBudget:
-    if snr == scatter:  # one tuple where the two are the same, as the group budgets share
-        scatter = snr
-    if _OpenFigureBudget is None:
-        return FigureBudget(shared, snr, scatter, averages, (), combined)
-    budget = _OpenFigureBudget()
-    budget.shared = shared
-    budget.snr_db = snr
-    budget.scatter_snr_db = scatter
-    budget.averages = averages
-    budget.own_lines = ()
-    budget.combined_db = combined
-    budget.__class__ = FigureBudget  # type: ignore[assignment]
-    return budget  # type: ignore[return-value]
+        if snr == scatter:  # one tuple where the two are the same, as the groups share
+            scatter = snr
+        return group_budget(shared, snr, scatter, tuple(self.averages[i, :k].tolist()),
+                            float(self.combined_db[i]))
 
 
 @dataclass(frozen=True, eq=False)
@@ -150,34 +130,13 @@ class FigureBlock:
                         append(held)
                         continue
                 budget = None if budgets is None else budgets.row(row)
-                append(_figure(name, values[k], unit, symbols[bounds[k]], conds[k],
+                append(new_figure(name, values[k], unit, symbols[bounds[k]], conds[k],
                                flag_sets[masks[k]], (points[k],), uncertainty[k], budget))
         return out
 
     def figure(self, row: int) -> Figure:
         """Its figure ``row`` as a :class:`Figure`."""
         return self.figures(row, row + 1)[0]
-
-
-def _figure(name: str, value: float, unit: str, bound: str | None,
-            conditions: Mapping[str, float | int | str], flags: tuple[str, ...],
-            points: tuple[int, ...], uncertainty_db: float,
-            budget: FigureBudget | None) -> Figure:
-    if _OpenFigure is None:
-        return Figure(name, value, unit, bound, conditions, flags,  # type: ignore[arg-type]
-                      points, uncertainty_db, budget)
-    figure = _OpenFigure()
-    figure.name = name
-    figure.value = value
-    figure.unit = unit
-    figure.bound = bound
-    figure.conditions = conditions
-    figure.flags = flags
-    figure.points = points
-    figure.uncertainty_db = uncertainty_db
-    figure.budget = budget
-    figure.__class__ = Figure  # type: ignore[assignment]
-    return figure  # type: ignore[return-value]
 
 
 Part = FigureBlock | tuple[Figure, ...]
@@ -380,11 +339,6 @@ def block_of(figures: Sequence[Figure]) -> FigureBlock:
     )
 
 
-def nan_column(count: int) -> np.ndarray:
-    """A float column of ``count`` NaNs."""
-    return np.full(count, math.nan)
-
-
 def flag_marked_parts(parts: Sequence[Part], marks: Sequence[tuple[str, Iterable[int]]]
                       ) -> list[Part]:
     """:func:`~sweeprig.analysis.figures.flag_marked_points` of parts: a block's flag column
@@ -493,7 +447,7 @@ def block_maker(blockable: Callable[[str], bool] | None = None
             np.broadcast_to(np.asarray(flag_mask, dtype=np.int64), (count,)).copy(),
             mappings,
             np.fromiter((p[0] for p in points), dtype=np.int64, count=count),
-            nan_column(count),
+            np.full(count, math.nan),
         )]
 
     return make

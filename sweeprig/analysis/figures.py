@@ -474,86 +474,75 @@ _FIGURE_SLOTS: tuple[str, ...] = Figure.__slots__
 _OpenFigure = writable_twin(Figure)
 _OPEN_FIGURES = _OpenFigure is not None
 _FIGURE_SLOT_SET = frozenset(_FIGURE_SLOTS)
-# with_changes, with_conditions and with_uncertainty set every field by name: a field
-# added to Figure must be added there too (tests/analysis/test_figures.py compares them
-# with dataclasses.replace field by field).
+# new_figure sets every field by name: a field added to Figure must be added there too
+# (tests/analysis/test_figures.py compares with_changes with dataclasses.replace field by
+# field).
+
+
+def new_figure(name: str, value: float, unit: str, bound: Bound,
+               conditions: Mapping[str, float | int | str], flags: tuple[str, ...],
+               points: tuple[int, ...], uncertainty_db: float = math.nan,
+               budget: FigureBudget | None = None) -> Figure:
+    """A :class:`Figure` of these fields, set directly as the generated frozen ``__init__``
+    sets them, without its per-call overhead (Figure has no validation to skip; a large run
+    makes and replaces hundreds of thousands): the one builder of figures from fields."""
+    if _OPEN_FIGURES:
+        figure = _OpenFigure()
+        figure.name = name
+        figure.value = value
+        figure.unit = unit
+        figure.bound = bound
+        figure.conditions = conditions
+        figure.flags = flags
+        figure.points = points
+        figure.uncertainty_db = uncertainty_db
+        figure.budget = budget
+        figure.__class__ = Figure  # type: ignore[assignment]
+        return figure  # type: ignore[return-value]
+    out = object.__new__(Figure)
+    set_attr = object.__setattr__
+    set_attr(out, "name", name)
+    set_attr(out, "value", value)
+    set_attr(out, "unit", unit)
+    set_attr(out, "bound", bound)
+    set_attr(out, "conditions", conditions)
+    set_attr(out, "flags", flags)
+    set_attr(out, "points", points)
+    set_attr(out, "uncertainty_db", uncertainty_db)
+    set_attr(out, "budget", budget)
+    return out
 
 
 def with_changes(figure: Figure, **changes: object) -> Figure:
     """``figure`` with the fields in ``changes`` replaced: what :func:`dataclasses.replace`
-    gives, without re-running ``__init__`` (Figure has no validation to skip; a large run
-    replaces hundreds of thousands of figures). An unknown field is refused."""
+    gives, without re-running ``__init__`` (:func:`new_figure`). An unknown field is
+    refused."""
     if not changes.keys() <= _FIGURE_SLOT_SET:
         unknown = sorted(set(changes).difference(_FIGURE_SLOTS))
         raise TypeError(f"Figure has no field {', '.join(unknown)}")
     get = changes.get
-    if _OPEN_FIGURES:
-        open_ = _OpenFigure()
-        open_.name = get("name", figure.name)
-        open_.value = get("value", figure.value)
-        open_.unit = get("unit", figure.unit)
-        open_.bound = get("bound", figure.bound)
-        open_.conditions = get("conditions", figure.conditions)
-        open_.flags = get("flags", figure.flags)
-        open_.points = get("points", figure.points)
-        open_.uncertainty_db = get("uncertainty_db", figure.uncertainty_db)
-        open_.budget = get("budget", figure.budget)
-        open_.__class__ = Figure  # type: ignore[assignment]
-        return open_  # type: ignore[return-value]
-    out = object.__new__(Figure)
-    set_attr = object.__setattr__
-    set_attr(out, "name", get("name", figure.name))
-    set_attr(out, "value", get("value", figure.value))
-    set_attr(out, "unit", get("unit", figure.unit))
-    set_attr(out, "bound", get("bound", figure.bound))
-    set_attr(out, "conditions", get("conditions", figure.conditions))
-    set_attr(out, "flags", get("flags", figure.flags))
-    set_attr(out, "points", get("points", figure.points))
-    set_attr(out, "uncertainty_db", get("uncertainty_db", figure.uncertainty_db))
-    set_attr(out, "budget", get("budget", figure.budget))
-    return out
+    return new_figure(
+        get("name", figure.name), get("value", figure.value),  # type: ignore[arg-type]
+        get("unit", figure.unit), get("bound", figure.bound),  # type: ignore[arg-type]
+        get("conditions", figure.conditions), get("flags", figure.flags),  # type: ignore[arg-type]
+        get("points", figure.points), get("uncertainty_db", figure.uncertainty_db),  # type: ignore[arg-type]
+        get("budget", figure.budget))  # type: ignore[arg-type]
 
 
 def with_conditions(figure: Figure, conditions: Mapping[str, float | int | str]) -> Figure:
-    """``with_changes(figure, conditions=conditions)`` with its one field set directly: a
+    """``with_changes(figure, conditions=conditions)`` with its one field given directly: a
     pass that gives every figure of a large run new conditions makes one call each."""
-    if not _OPEN_FIGURES:
-        return with_changes(figure, conditions=conditions)
-    open_ = _OpenFigure()
-    open_.name = figure.name
-    open_.value = figure.value
-    open_.unit = figure.unit
-    open_.bound = figure.bound
-    open_.conditions = conditions
-    open_.flags = figure.flags
-    open_.points = figure.points
-    open_.uncertainty_db = figure.uncertainty_db
-    open_.budget = figure.budget
-    open_.__class__ = Figure  # type: ignore[assignment]
-    return open_  # type: ignore[return-value]
+    return new_figure(figure.name, figure.value, figure.unit, figure.bound, conditions,
+                      figure.flags, figure.points, figure.uncertainty_db, figure.budget)
 
 
 def with_uncertainty(figure: Figure, uncertainty_db: float, budget: FigureBudget | None,
                      conditions: Mapping[str, float | int | str] | None = None) -> Figure:
     """``with_changes(figure, uncertainty_db=..., budget=...)`` (and ``conditions=`` unless
-    None) with its fields set directly: the budget pass replaces most figures of a run."""
-    if not _OPEN_FIGURES:
-        if conditions is None:
-            return with_changes(figure, uncertainty_db=uncertainty_db, budget=budget)
-        return with_changes(figure, uncertainty_db=uncertainty_db, budget=budget,
-                            conditions=conditions)
-    open_ = _OpenFigure()
-    open_.name = figure.name
-    open_.value = figure.value
-    open_.unit = figure.unit
-    open_.bound = figure.bound
-    open_.conditions = figure.conditions if conditions is None else conditions
-    open_.flags = figure.flags
-    open_.points = figure.points
-    open_.uncertainty_db = uncertainty_db
-    open_.budget = budget
-    open_.__class__ = Figure  # type: ignore[assignment]
-    return open_  # type: ignore[return-value]
+    None) with its fields given directly: the budget pass replaces most figures of a run."""
+    return new_figure(figure.name, figure.value, figure.unit, figure.bound,
+                      figure.conditions if conditions is None else conditions,
+                      figure.flags, figure.points, uncertainty_db, budget)
 
 
 def bound_symbol(code: int) -> Bound:
@@ -595,48 +584,13 @@ def make_figures(
     )
     pts: Iterable[tuple[int, ...]] = points if points is not None else [()] * count
     symbols = _SYMBOLS
-    # Tables of figures run to a million rows: set the slots directly, as the generated
-    # frozen __init__ does, without its per-call overhead (Figure has no validation to skip).
-    new, set_attr, cls = object.__new__, object.__setattr__, Figure
-    out: list[Figure] = []
-    append = out.append
-    if _OPEN_FIGURES:
-        nan, open_cls = math.nan, _OpenFigure
-        mask_list = masks.tolist()
-        flag_sets = {m: flags_from_mask(m) for m in set(mask_list)}
-        bound_list = bounds.tolist()
-        with collector_paused():
-            for v, b, m, c, p in zip(values.tolist(), bound_list, mask_list, conds, pts,
-                                     strict=True):
-                figure = open_cls()
-                figure.name = name
-                figure.value = v
-                figure.unit = unit
-                figure.bound = symbols[b]
-                figure.conditions = c
-                figure.flags = flag_sets[m]
-                figure.points = p
-                figure.uncertainty_db = nan
-                figure.budget = None
-                figure.__class__ = cls  # type: ignore[assignment]
-                append(figure)  # type: ignore[arg-type]
-        return out
+    mask_list = masks.tolist()
+    flag_sets = {m: flags_from_mask(m) for m in set(mask_list)}
+    nan = math.nan
     with collector_paused():
-        for v, b, m, c, p in zip(
-            values.tolist(), bounds.tolist(), masks.tolist(), conds, pts, strict=True
-        ):
-            figure = new(cls)
-            set_attr(figure, "name", name)
-            set_attr(figure, "value", v)
-            set_attr(figure, "unit", unit)
-            set_attr(figure, "bound", symbols[b])
-            set_attr(figure, "conditions", c)
-            set_attr(figure, "flags", flags_from_mask(m))
-            set_attr(figure, "points", p)
-            set_attr(figure, "uncertainty_db", math.nan)
-            set_attr(figure, "budget", None)
-            append(figure)
-    return out
+        return [new_figure(name, v, unit, symbols[b], c, flag_sets[m], p, nan, None)
+                for v, b, m, c, p in zip(values.tolist(), bounds.tolist(), mask_list, conds,
+                                         pts, strict=True)]
 
 
 #: What makes the figures of one name from arrays, as :func:`make_figures` does (its
