@@ -231,6 +231,18 @@ class LoadedRun:
     sequence_notes: tuple[str, ...]
     captures: pd.DataFrame
 
+    @property
+    def orders(self) -> tuple[int, int] | None:
+        """(m, n) of the wanted product, from the stored sequence (None: it could not be
+        read; the capture table then found it from the wanted readings)."""
+        return _wanted_orders(self.sequence)
+
+
+def _wanted_orders(sequence: Sequence | None) -> tuple[int, int] | None:
+    if sequence is None:
+        return None
+    return wanted_orders(sequence.mixing.conversion, sequence.mixing.lo_side)
+
 
 def load_run(store: RunStore, run_id: int) -> LoadedRun:
     """Read run ``run_id`` of ``store`` and build its capture table; StoreError when there
@@ -245,10 +257,8 @@ def load_run(store: RunStore, run_id: int) -> LoadedRun:
         notes: list[str] = []
         sequence = _stored_sequence(info.sequence_text, info.sequence_path,
                                     info.sequence_sha256, store.run_files(run_id), notes)
-        orders = None
-        if sequence is not None:
-            orders = wanted_orders(sequence.mixing.conversion, sequence.mixing.lo_side)
-        captures = captures_from_frames(points, readings, wanted_orders=orders)
+        captures = captures_from_frames(points, readings,
+                                        wanted_orders=_wanted_orders(sequence))
     return LoadedRun(info, points, readings, events, sequence, tuple(notes), captures)
 
 
@@ -282,11 +292,8 @@ def _reduce_loaded(loaded: LoadedRun) -> RunFigures:
         raise ValueError("this loaded run has been reduced already: load it again")
     sequence = loaded.sequence
     notes = list(loaded.sequence_notes)
-    orders = None
-    conversion = "down"
-    if sequence is not None:
-        conversion = sequence.mixing.conversion
-        orders = wanted_orders(conversion, sequence.mixing.lo_side)
+    orders = loaded.orders
+    conversion = sequence.mixing.conversion if sequence is not None else "down"
     bench_specs = specs_from_bench_text(info.bench_text, info.bench_path or "bench file")
     from sweeprig.analysis.noise_load import noise_figure_figures  # own budgets
 
