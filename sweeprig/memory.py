@@ -57,3 +57,18 @@ def resident_mb() -> float:
     except (OSError, IndexError, ValueError):
         return float("nan")
     return pages * resource.getpagesize() / 2**20
+
+
+def peak_resident_mb() -> float | None:
+    """This process's peak resident memory, MB, from ``/proc/self/status`` (``VmHWM``: this
+    program's own; the resource module's figure of a process started by fork and exec still
+    holds its parent's); None where the system does not say."""
+    try:
+        with open("/proc/self/status", encoding="ascii", errors="replace") as status:
+            text = status.read()
+    except OSError:
+        return None
+    for line in text.splitlines():
+        if line.startswith("VmHWM:"):
+            return float(line.split()[1]) / 1024.0  # kB
+    return None

@@ -43,6 +43,7 @@ from typing import IO, Any
 import pandas as pd
 
 from sweeprig.errors import StoreError
+from sweeprig.memory import peak_resident_mb
 
 #: Capture rows from which a helper process writes a run's tables (a run's figures grow
 #: with its captures; below it the tables are written in this process: the helper's start,
@@ -388,19 +389,6 @@ def serve(source: IO[bytes] | None = None, reply: IO[bytes] | None = None) -> No
                 answer = ("error", f"{type(exc).__name__}: {exc}")
     except (EOFError, pickle.UnpicklingError):
         answer = answer or ("error", "the report process stopped sending")
-    pickle.dump(answer or ("done", _peak_mb()), reply, protocol=pickle.HIGHEST_PROTOCOL)
+    pickle.dump(answer or ("done", peak_resident_mb()), reply,
+                protocol=pickle.HIGHEST_PROTOCOL)
     reply.flush()
-
-
-def _peak_mb() -> float | None:
-    """This process' peak resident memory, MB, from ``/proc/self/status`` (``VmHWM``:
-    this program's own; the resource module's figure of a process started by fork and
-    exec still holds its parent's); None where the system does not say."""
-    try:
-        text = Path("/proc/self/status").read_text(encoding="ascii", errors="replace")
-    except OSError:
-        return None
-    for line in text.splitlines():
-        if line.startswith("VmHWM:"):
-            return float(line.split()[1]) / 1024.0  # kB
-    return None
