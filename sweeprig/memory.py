@@ -8,8 +8,9 @@ giving large blocks their own pages grows to the largest one freed), and the hea
 shrinks from its top. The process' resident memory then stays at its peak, and the next
 stage's growth starts from there. :func:`release_freed_memory` asks glibc to return every
 free page of its heap (``malloc_trim(0)``, which since glibc 2.8 releases free pages
-anywhere in the heap, not only at its top); on any other C library or system it does
-nothing. It costs a walk of the heap (milliseconds): for the boundaries of large stages,
+anywhere in the heap, not only at its top: glibc's manual page, from memory;
+``tests/test_memory.py`` checks it on this system); on any other C library or system it
+does nothing. It costs a walk of the heap (milliseconds): for the boundaries of large stages,
 not for loops.
 """
 
