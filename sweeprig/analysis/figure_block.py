@@ -12,9 +12,8 @@ attached, its budget as columns (:class:`BlockBudgets`).
 the other. It is a ``Sequence[Figure]``: indexing or iterating it makes each figure of a
 block as the same :class:`Figure` the analysis would have made (equal field by field, its
 budget equal too); the report's writers read the blocks' columns instead
-(:meth:`Figures.parts`). A figure made twice is two equal objects, not one: the few figures
-that are joined by identity later (those a limit judges) are made once and kept
-(:meth:`Figures.pin`), so every later reading of them gives that one object.
+(:meth:`Figures.parts`). A figure made twice is two equal objects, not one: a figure is
+known by its position (its number in the run's figure table), never by identity.
 
 :func:`packed` turns a list of figures into parts: each run of at least
 :data:`BLOCK_MIN_FIGURES` figures of one name and unit, each from one point, without a
@@ -105,10 +104,8 @@ class FigureBlock:
         """The block with the columns given replaced."""
         return replace(self, **columns)  # type: ignore[arg-type]
 
-    def figures(self, start: int = 0, stop: int | None = None,
-                pinned: Mapping[int, Figure] | None = None, offset: int = 0) -> list[Figure]:
-        """Its figures ``start`` to ``stop`` as :class:`Figure` objects (``pinned``: the
-        figures already made, by position ``offset`` + row, given as they are)."""
+    def figures(self, start: int = 0, stop: int | None = None) -> list[Figure]:
+        """Its figures ``start`` to ``stop`` as :class:`Figure` objects."""
         stop = len(self) if stop is None else stop
         rows = range(start, stop)
         values = self.value[start:stop].tolist()
@@ -124,11 +121,6 @@ class FigureBlock:
         append = out.append
         with collector_paused():
             for k, row in enumerate(rows):
-                if pinned is not None:
-                    held = pinned.get(offset + row)
-                    if held is not None:
-                        append(held)
-                        continue
                 budget = None if budgets is None else budgets.row(row)
                 append(new_figure(name, values[k], unit, symbols[bounds[k]], conds[k],
                                flag_sets[masks[k]], (points[k],), uncertainty[k], budget))
@@ -147,7 +139,7 @@ class Figures(Sequence[Figure]):
     (see the module docstring). Read as a ``Sequence[Figure]``; compares equal to any
     sequence of equal figures."""
 
-    __slots__ = ("_parts", "_pinned", "_pinned_at", "_pinned_names", "_starts")
+    __slots__ = ("_parts", "_starts")
 
     def __init__(self, parts: Iterable[FigureBlock | Sequence[Figure]] = ()) -> None:
         kept: list[Part] = []
@@ -165,9 +157,6 @@ class Figures(Sequence[Figure]):
         for part in self._parts:
             starts.append(starts[-1] + len(part))
         self._starts = starts
-        self._pinned: dict[int, Figure] = {}
-        self._pinned_at: np.ndarray | None = None
-        self._pinned_names: set[str] = set()
 
     @property
     def parts(self) -> tuple[Part, ...]:
@@ -194,9 +183,6 @@ class Figures(Sequence[Figure]):
             index += count
         if not 0 <= index < count:
             raise IndexError("figure index out of range")
-        held = self._pinned.get(index)
-        if held is not None:
-            return held
         k = bisect.bisect_right(self._starts, index) - 1
         part, row = self._parts[k], index - self._starts[k]
         if isinstance(part, FigureBlock):
@@ -213,23 +199,21 @@ class Figures(Sequence[Figure]):
                 yield part, first, max(start, first) - first, min(stop, end) - first
 
     def between(self, start: int, stop: int) -> list[Figure]:
-        """The figures at positions ``start`` to ``stop`` (the pinned ones as kept)."""
+        """The figures at positions ``start`` to ``stop``."""
         out: list[Figure] = []
-        for part, first, lo, hi in self.spans(start, stop):
+        for part, _first, lo, hi in self.spans(start, stop):
             if isinstance(part, FigureBlock):
-                out += part.figures(lo, hi, self._pinned or None, first)
+                out += part.figures(lo, hi)
             else:
                 out += part[lo:hi]
         return out
 
     def __iter__(self) -> Iterator[Figure]:
         step = 20_000  # (a block made a slice at a time: never all of it at once)
-        for k, part in enumerate(self._parts):
+        for part in self._parts:
             if isinstance(part, FigureBlock):
-                first = self._starts[k]
                 for lo in range(0, len(part), step):
-                    yield from part.figures(lo, min(lo + step, len(part)),
-                                            self._pinned or None, first)
+                    yield from part.figures(lo, min(lo + step, len(part)))
             else:
                 yield from part
 
@@ -256,35 +240,13 @@ class Figures(Sequence[Figure]):
             if isinstance(part, FigureBlock):
                 if part.name in wanted:
                     positions += range(first, first + len(part))
-                    figures += part.figures(0, len(part), self._pinned or None, first)
+                    figures += part.figures()
             else:
                 for i, f in enumerate(part):
                     if f.name in wanted:
                         positions.append(first + i)
                         figures.append(f)
         return positions, figures
-
-    def pinned_between(self, start: int, stop: int) -> list[tuple[int, Figure]]:
-        """(position, figure) of each pinned figure at positions ``start`` to ``stop``."""
-        if not self._pinned:
-            return []
-        held = self._pinned_at
-        if held is None or held.size != len(self._pinned):
-            held = self._pinned_at = np.array(sorted(self._pinned), dtype=np.int64)
-        inside = held[np.searchsorted(held, start):np.searchsorted(held, stop)]
-        return [(position, self._pinned[position]) for position in inside.tolist()]
-
-    def pin(self, names: Iterable[str]) -> None:
-        """Make every figure of ``names`` held in a block once and keep it: each later
-        reading of it gives that one object (what is joined by identity: the figures a
-        limit judges)."""
-        new = set(names) - self._pinned_names
-        if not new:
-            return
-        positions, figures = self.named(new)
-        for position, figure in zip(positions, figures, strict=True):
-            self._pinned.setdefault(position, figure)
-        self._pinned_names |= new
 
 
 def packed(figures: Sequence[Figure], *, least: int | None = None,
@@ -374,18 +336,13 @@ def part_conditions(parts: Sequence[Part]) -> np.ndarray:
     return np.concatenate(pieces) if pieces else np.empty(0, dtype=object)
 
 
-def columns_between(figures: Figures, first: int, stop: int
-                    ) -> tuple[dict[str, np.ndarray], list[tuple[int, Figure]]]:
+def columns_between(figures: Figures, first: int, stop: int) -> dict[str, np.ndarray]:
     """:func:`~sweeprig.analysis.figure_table.base_columns` of the figures at positions
-    ``first`` to ``stop`` (a block's read from its columns, none of its figures made), and
-    the figure objects among them that can be joined by identity, (row, figure) each: the
-    loose figures and the pinned ones (:meth:`Figures.pin`)."""
+    ``first`` to ``stop`` (a block's read from its columns, none of its figures made)."""
     from sweeprig.analysis.figure_table import base_columns
 
     pieces: list[dict[str, np.ndarray]] = []
-    known: list[tuple[int, Figure]] = []
-    for part, begin, lo, hi in figures.spans(first, stop):
-        row0 = begin + lo - first
+    for part, _begin, lo, hi in figures.spans(first, stop):
         if isinstance(part, FigureBlock):
             count = hi - lo
             points = np.empty(count, dtype=object)
@@ -402,17 +359,13 @@ def columns_between(figures: Figures, first: int, stop: int
                 "flags": part.flags[lo:hi],
                 "points": points,
             })
-            known += [(position - first, f)
-                      for position, f in figures.pinned_between(begin + lo, begin + hi)]
         else:
-            some = part[lo:hi]
-            pieces.append(base_columns(some))
-            known += [(row0 + i, f) for i, f in enumerate(some)]
+            pieces.append(base_columns(part[lo:hi]))
     if not pieces:
-        return base_columns([]), []
+        return base_columns([])
     if len(pieces) == 1:
-        return pieces[0], known
-    return {key: np.concatenate([p[key] for p in pieces]) for key in pieces[0]}, known
+        return pieces[0]
+    return {key: np.concatenate([p[key] for p in pieces]) for key in pieces[0]}
 
 
 def block_maker(blockable: Callable[[str], bool] | None = None

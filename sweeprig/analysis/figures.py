@@ -459,10 +459,16 @@ class Figure:
 
     def text(self, digits: int = 2) -> str:
         """The value as people write it: ``"12.30 dBm"``, ``"< -80.00 dBc"``, ``"n/a"``."""
-        if not math.isfinite(self.value):
-            return "n/a"
-        body = f"{self.value:.{digits}f} {self.unit}"
-        return f"{self.bound} {body}" if self.bound else body
+        return value_words(self.value, self.unit, self.bound, digits)
+
+
+def value_words(value: float, unit: str, bound: Bound = None, digits: int = 2) -> str:
+    """:meth:`Figure.text` of a figure of these fields: ``"12.30 dBm"``, ``"< -80.00 dBc"``,
+    ``"n/a"``."""
+    if not math.isfinite(value):
+        return "n/a"
+    body = f"{value:.{digits}f} {unit}"
+    return f"{bound} {body}" if bound else body
 
 
 _FIGURE_SLOTS: tuple[str, ...] = Figure.__slots__

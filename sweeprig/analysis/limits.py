@@ -28,14 +28,22 @@ from __future__ import annotations
 
 import difflib
 import math
-from collections.abc import Iterable, Mapping
+from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
 from types import MappingProxyType
-from typing import Literal
+from typing import TYPE_CHECKING, Literal
 
-from sweeprig.analysis.figures import FIGURE_CATALOGUE, SUSPECT_FLAGS, Figure, collector_paused
+from sweeprig.analysis.figures import (
+    FIGURE_CATALOGUE,
+    SUSPECT_FLAGS,
+    Figure,
+    value_words,
+)
 from sweeprig.errors import InputError
 from sweeprig.units import parse_quantity
+
+if TYPE_CHECKING:
+    from sweeprig.analysis.judged_blocks import Judgements
 
 Verdict = Literal["pass", "fail", "inconclusive"]
 PASS: Verdict = "pass"
@@ -77,12 +85,15 @@ class Limit:
 @dataclass(frozen=True, slots=True)
 class Judgement:
     """One figure judged against one limit. ``suspect``: the suspect flags that made it
-    inconclusive (usually none); :attr:`reason` says why in words."""
+    inconclusive (usually none); ``position``: the figure's number among the figures judged
+    (a run's figure table; -1: judged alone, :func:`judge`); :attr:`reason` says why in
+    words."""
 
     figure: Figure
     limit: Limit
     verdict: Verdict
     suspect: tuple[str, ...] = ()
+    position: int = -1
 
     @property
     def straddles(self) -> bool:
@@ -93,48 +104,71 @@ class Judgement:
     @property
     def reason(self) -> str:
         """The verdict explained, e.g. ``"12.000 dBm meets min 10"``."""
-        figure, limit = self.figure, self.limit
-        if not math.isfinite(figure.value):
-            return "no value"
-        if self.suspect:
-            return "flagged: " + ", ".join(self.suspect)
-        texts = {PASS: [], FAIL: [], INCONCLUSIVE: []}
-        for edge, lower in ((limit.min, True), (limit.max, False)):
-            if edge is not None:
-                outcome = _edge_outcome(figure.value, figure.bound, edge, lower)
-                texts[outcome].append(_edge_text(figure, edge, lower, outcome))
-        chosen = texts[self.verdict] or texts[PASS]
-        for edge, lower in straddled_edges(figure, limit):
-            chosen.append(f"the uncertainty ± {figure.uncertainty_db:.3f} {figure.unit} (k = 2) "
-                          f"straddles {'min' if lower else 'max'} {edge:g}")
-        return "; ".join(chosen) or "no bounds"
+        f = self.figure
+        return judgement_reason(f.value, f.bound, f.unit, f.uncertainty_db, self.limit,
+                                self.verdict, self.suspect)
+
+
+def judgement_reason(value: float, bound: str | None, unit: str, uncertainty: float,
+                     limit: Limit, verdict: Verdict, suspect: tuple[str, ...] = ()) -> str:
+    """:attr:`Judgement.reason` of a figure of these fields (``uncertainty``: expanded,
+    k = 2, in ``unit``), judged ``verdict`` against ``limit``."""
+    if not math.isfinite(value):
+        return "no value"
+    if suspect:
+        return "flagged: " + ", ".join(suspect)
+    texts: dict[str, list[str]] = {PASS: [], FAIL: [], INCONCLUSIVE: []}
+    for edge, lower in ((limit.min, True), (limit.max, False)):
+        if edge is not None:
+            outcome = _edge_outcome(value, bound, edge, lower)
+            texts[outcome].append(_edge_text(value_words(value, unit, bound, 3), bound, edge,
+                                             lower, outcome))
+    chosen = texts[verdict] or texts[PASS]
+    for edge, lower in _straddled(value, bound, uncertainty, limit):
+        chosen.append(f"the uncertainty ± {uncertainty:.3f} {unit} (k = 2) "
+                      f"straddles {'min' if lower else 'max'} {edge:g}")
+    return "; ".join(chosen) or "no bounds"
 
 
 def straddled_edges(figure: Figure, limit: Limit) -> list[tuple[float, bool]]:
     """The limit's edges (value, is-min) inside the figure's value ± U (k = 2); none for a
     bound or a figure without an uncertainty."""
-    u = figure.uncertainty_db
-    if not figure.is_number or not math.isfinite(u):
+    return _straddled(figure.value, figure.bound, figure.uncertainty_db, limit)
+
+
+def _straddled(value: float, bound: str | None, uncertainty: float,
+               limit: Limit) -> list[tuple[float, bool]]:
+    if bound is not None or not math.isfinite(value) or not math.isfinite(uncertainty):
         return []
     return [(edge, lower) for edge, lower in ((limit.min, True), (limit.max, False))
-            if edge is not None and figure.value - u < edge < figure.value + u]
+            if edge is not None and value - uncertainty < edge < value + uncertainty]
 
 
 @dataclass(frozen=True)
 class Assessment:
-    """All judgements, the limits no figure matched, and the overall verdict."""
+    """All judgements (:class:`~sweeprig.analysis.judged_blocks.Judgements`: a sequence of
+    :class:`Judgement`, a large run's held as columns), the limits no figure matched, and
+    the overall verdict."""
 
     verdict: Verdict
-    judgements: tuple[Judgement, ...]
+    judgements: Judgements
     untested: tuple[Limit, ...] = ()
+
+    def __post_init__(self) -> None:
+        from sweeprig.analysis.judged_blocks import Judgements
+
+        if not isinstance(self.judgements, Judgements):
+            object.__setattr__(self, "judgements", Judgements([tuple(self.judgements)]))
 
     @property
     def counts(self) -> dict[str, int]:
         """Number of judgements per verdict."""
-        out = {PASS: 0, FAIL: 0, INCONCLUSIVE: 0}
-        for j in self.judgements:
-            out[j.verdict] += 1
-        return out
+        return self.judgements.counts
+
+    @property
+    def straddled(self) -> int:
+        """How many judgements had a limit edge inside the figure's value ± U."""
+        return self.judgements.straddled
 
 
 def judge(
@@ -151,24 +185,24 @@ def judge(
 
 
 def _judge(figure: Figure, limit: Limit, suspect_set: frozenset[str],
-           guard_band: bool = False) -> Judgement:
+           guard_band: bool = False, position: int = -1) -> Judgement:
     flags = figure.flags
     suspect = tuple(sorted(f for f in flags if f in suspect_set)) if flags else ()
     value = figure.value
     if not math.isfinite(value) or suspect:
-        return Judgement(figure, limit, INCONCLUSIVE, suspect)
+        return Judgement(figure, limit, INCONCLUSIVE, suspect, position)
     if guard_band and straddled_edges(figure, limit):
-        return Judgement(figure, limit, INCONCLUSIVE)
+        return Judgement(figure, limit, INCONCLUSIVE, (), position)
     verdict = PASS
     for edge, lower in ((limit.min, True), (limit.max, False)):
         if edge is None:
             continue
         outcome = _edge_outcome(value, figure.bound, edge, lower)
         if outcome == FAIL:
-            return Judgement(figure, limit, FAIL)
+            return Judgement(figure, limit, FAIL, (), position)
         if outcome == INCONCLUSIVE:
             verdict = INCONCLUSIVE
-    return Judgement(figure, limit, verdict)
+    return Judgement(figure, limit, verdict, (), position)
 
 
 def _edge_outcome(value: float, bound: str | None, edge: float, lower: bool) -> Verdict:
@@ -184,51 +218,45 @@ def _edge_outcome(value: float, bound: str | None, edge: float, lower: bool) -> 
     return INCONCLUSIVE
 
 
-def _edge_text(figure: Figure, edge: float, lower: bool, outcome: Verdict) -> str:
-    text, word = figure.text(3), ("min" if lower else "max")
+def _edge_text(text: str, bound: str | None, edge: float, lower: bool,
+               outcome: Verdict) -> str:
+    word = "min" if lower else "max"
     if outcome == INCONCLUSIVE:
         return f"{text} cannot be judged against {word} {edge:g}"
-    if figure.bound is None:
+    if bound is None:
         return f"{text} {'meets' if outcome == PASS else 'misses'} {word} {edge:g}"
     return f"{text} is {'within' if outcome == PASS else 'outside'} {word} {edge:g}"
 
 
 def assess(
-    figures: Iterable[Figure],
+    figures: Sequence[Figure],
     limits: Iterable[Limit],
     *,
     suspect_flags: Iterable[str] = SUSPECT_FLAGS,
     guard_band: bool = False,
 ) -> Assessment:
-    """Judge every figure against every limit that applies to it; overall verdict
-    (``guard_band``: see :func:`judge`)."""
-    suspect = frozenset(suspect_flags)
+    """Judge every figure against every limit that applies to it, limit by limit, each
+    limit's figures in order; overall verdict (``guard_band``: see :func:`judge`). A
+    judgement's ``position`` is its figure's index in ``figures``; a run's
+    :class:`~sweeprig.analysis.figure_block.Figures` are judged block by block, from their
+    columns (:mod:`sweeprig.analysis.judged_blocks`)."""
+    from sweeprig.analysis.judged_blocks import judged_parts
+
     limits = list(limits)
-    wanted = {limit.name for limit in limits}
-    by_name: dict[str, list[Figure]] = {}
-    for f in figures:
-        if f.name in wanted:
-            by_name.setdefault(f.name, []).append(f)
-    judgements: list[Judgement] = []
-    untested: list[Limit] = []
-    with collector_paused():
-        for limit in limits:
-            candidates = by_name.get(limit.name, [])
-            matched = (
-                [f for f in candidates if limit.applies_to(f)] if limit.conditions else candidates
-            )
-            if not matched:
-                untested.append(limit)
-            judgements += [_judge(f, limit, suspect, guard_band) for f in matched]
-    return Assessment(overall_verdict(judgements, untested), tuple(judgements), tuple(untested))
+    judgements, untested = judged_parts(figures, limits, frozenset(suspect_flags), guard_band)
+    verdicts = {verdict for verdict, count in judgements.counts.items() if count}
+    return Assessment(_worst_verdict(verdicts, bool(untested)), judgements, untested)
 
 
 def overall_verdict(judgements: Iterable[Judgement], untested: Iterable[Limit] = ()) -> Verdict:
     """fail > inconclusive > pass; nothing judged, or a limit without figures: inconclusive."""
-    verdicts = {j.verdict for j in judgements}
+    return _worst_verdict({j.verdict for j in judgements}, any(True for _ in untested))
+
+
+def _worst_verdict(verdicts: set[str], untested: bool) -> Verdict:
     if FAIL in verdicts:
         return FAIL
-    if INCONCLUSIVE in verdicts or not verdicts or any(True for _ in untested):
+    if INCONCLUSIVE in verdicts or not verdicts or untested:
         return INCONCLUSIVE
     return PASS
 

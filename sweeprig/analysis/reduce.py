@@ -349,12 +349,8 @@ def _reduce_loaded(loaded: LoadedRun) -> RunFigures:
     figures = Figures([*parts, noise_figures])
     del parts
     limits = limits_from_sequence(sequence) if sequence is not None else ()
-    # the figures a limit judges are made once and kept: the report joins its judgements
-    # to them by identity
-    judged_names = {limit.name for limit in limits}
-    figures.pin(judged_names)
-    assessment = assess(figures.named(judged_names)[1], limits,
-                        guard_band=bench_specs.guard_band)
+    # (a block judged from its columns; a judgement knows its figure by its position)
+    assessment = assess(figures, limits, guard_band=bench_specs.guard_band)
     state = _state(info.status, info.points_done, info.points_total)
     verdict: Verdict = assessment.verdict
     if not limits:

@@ -13,14 +13,14 @@ import html
 from sweeprig.analysis.budget_parts import budget_lines
 from sweeprig.analysis.figures import Figure
 from sweeprig.analysis.reduce import RunFigures
-from sweeprig.report.tables import FIGURE_LABELS, HEADLINE_FIGURES, figure_text, shown_figures
+from sweeprig.report.tables import FIGURE_LABELS, HEADLINE_FIGURES, figure_text
 
 
 def widest_budgets(run: RunFigures) -> list[Figure]:
     """Per headline figure name (in headline order), its figure with the widest U (the
     first of equals, in reduction order)."""
     widest: dict[str, Figure] = {}
-    for f in shown_figures(run, HEADLINE_FIGURES):
+    for f in run.figures.named(HEADLINE_FIGURES)[1]:
         if f.budget is not None:
             held = widest.get(f.name)
             if held is None or f.uncertainty_db > held.uncertainty_db:

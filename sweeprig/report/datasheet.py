@@ -30,8 +30,10 @@ import statistics
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 
+import numpy as np
+
 from sweeprig.analysis.figures import FLAGS, Figure
-from sweeprig.analysis.limits import FAIL, INCONCLUSIVE, PASS, Judgement
+from sweeprig.analysis.judged_blocks import JudgedGroup
 from sweeprig.analysis.reduce import RunFigures
 from sweeprig.report.tables import (
     HEADLINE_FIGURES,
@@ -41,7 +43,6 @@ from sweeprig.report.tables import (
     format_condition,
     limit_text,
     limit_texts,
-    shown_figures,
 )
 
 #: Conditions that make the corners of a row, in the order the conditions column names them.
@@ -132,19 +133,21 @@ class DatasheetRow:
 def datasheet_rows(run: RunFigures) -> list[DatasheetRow]:
     """The table of ``run``: headline figures in :data:`HEADLINE_FIGURES` order, then any
     other figure a limit names; within a figure, studies in run order."""
-    judged: dict[int, list[Judgement]] = {}
-    for judgement in run.assessment.judgements:
-        judged.setdefault(id(judgement.figure), []).append(judgement)
     names = list(HEADLINE_FIGURES) + [n for n in dict.fromkeys(li.name for li in run.limits)
                                       if n not in HEADLINE_FIGURES]
     wanted = frozenset(names)
     groups: dict[tuple[str, str], list[Figure]] = {}
-    for figure in shown_figures(run, wanted):
+    positions: dict[tuple[str, str], list[int]] = {}
+    for position, figure in zip(*run.figures.named(wanted), strict=True):
         key = (figure.name, str(figure.conditions.get("study", "")))
         groups.setdefault(key, []).append(figure)
+        positions.setdefault(key, []).append(position)
     order = {s.name: i for i, s in enumerate(run.studies)}
     keys = sorted(groups, key=lambda k: (names.index(k[0]), order.get(k[1], len(order)), k[1]))
-    return [_row(name, study, groups[(name, study)], judged, run) for name, study in keys]
+    judgements = run.assessment.judgements
+    return [_row(name, study, groups[(name, study)],
+                 judgements.of_positions(np.array(positions[(name, study)], dtype=np.int64)),
+                 run) for name, study in keys]
 
 
 def corner_figures(name: str, figures: Sequence[Figure]) -> list[Figure]:
@@ -181,7 +184,7 @@ def nominal(figures: Sequence[Figure]) -> list[Figure]:
     return chosen
 
 
-def _row(name: str, study: str, members: list[Figure], judged: Mapping[int, list[Judgement]],
+def _row(name: str, study: str, members: list[Figure], judged: JudgedGroup,
          run: RunFigures) -> DatasheetRow:
     values = corner_figures(name, members)
     finite = [f for f in values if math.isfinite(f.value)]
@@ -190,13 +193,9 @@ def _row(name: str, study: str, members: list[Figure], judged: Mapping[int, list
     typical_numbers = [f.value for f in nominal(finite) if f.is_number]
     typical = statistics.median(typical_numbers) if typical_numbers else math.nan
     spreads = [f.uncertainty_db for f in members if math.isfinite(f.uncertainty_db)]
-    judgements = [j for f in members for j in judged.get(id(f), [])]
-    counts = {PASS: 0, FAIL: 0, INCONCLUSIVE: 0}
-    for j in judgements:
-        counts[j.verdict] += 1
-    verdict = (FAIL if counts[FAIL] else INCONCLUSIVE if counts[INCONCLUSIVE]
-               else PASS if counts[PASS] else NO_LIMIT)
-    limits = limit_texts(judgements)
+    counts = judged.counts
+    verdict = judged.verdict or NO_LIMIT
+    limits = limit_texts(judged.limits)
     if not limits:
         limits = [limit_text(li) for li in run.limits if li.name == name
                   and li.conditions.get("study", study) == study]
@@ -216,7 +215,7 @@ def _row(name: str, study: str, members: list[Figure], judged: Mapping[int, list
         verdict=verdict,
         judged={k: v for k, v in counts.items() if v},
         flags=tuple((f, flag_counts[f]) for f in FLAGS if f in flag_counts),
-        straddled=sum(1 for j in judgements if j.straddles),
+        straddled=judged.straddled,
     )
 
 

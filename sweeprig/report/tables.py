@@ -19,6 +19,7 @@ conditions, flag badges and their explanations).
 
 from __future__ import annotations
 
+import bisect
 import contextlib
 import json
 import math
@@ -42,7 +43,8 @@ from sweeprig.analysis.figures import (
     Figure,
     collector_paused,
 )
-from sweeprig.analysis.limits import FAIL, INCONCLUSIVE, PASS, Judgement, Limit
+from sweeprig.analysis.judged_blocks import VERDICT_NAMES, JudgedBlock, JudgedGroup
+from sweeprig.analysis.limits import Limit
 from sweeprig.analysis.reduce import RunFigures
 from sweeprig.analysis.uncertainty import BUDGET_METHOD, COVERAGE_FACTOR, uncertainty_text
 from sweeprig.errors import StoreError
@@ -189,6 +191,8 @@ class SummaryRow:
     count: int
     figure: Figure
     points: tuple[int, ...]
+    #: The shown figure's number in the run's figure table (``figures.csv``'s ``figure``).
+    position: int = -1
 
 
 # ---------------------------------------------------------------------------------------------
@@ -290,11 +294,9 @@ def limit_text(limit: Limit) -> str:
     return f"{text} ({conditions_text(where)})" if where else text
 
 
-def limit_texts(judgements: Iterable[Judgement]) -> list[str]:
-    """The distinct :func:`limit_text` of the judgements' limits, in order of first
-    appearance (each limit's text made once: a run judges a limit many times)."""
-    limits = {id(j.limit): j.limit for j in judgements}
-    return list(dict.fromkeys(limit_text(limit) for limit in limits.values()))
+def limit_texts(limits: Iterable[Limit]) -> list[str]:
+    """The distinct :func:`limit_text` of ``limits``, in order of first appearance."""
+    return list(dict.fromkeys(limit_text(limit) for limit in limits))
 
 
 _RANGE = re.compile(r"≥ (?P<low>\S+) (?P<unit>\S+) and ≤ (?P<high>\S+) (?P=unit)")
@@ -337,50 +339,38 @@ def summary_rows(run: RunFigures, by: Sequence[str] = GROUP_KEYS) -> list[Summar
     """The summary table (see the module docstring), headline figures first in
     :data:`HEADLINE_FIGURES` order, then any other figure a limit names. ``by``: the
     conditions that make a group (``("study",)`` merges temperatures and supplies)."""
-    judged: dict[int, list[Judgement]] = {}
-    for judgement in run.assessment.judgements:
-        judged.setdefault(id(judgement.figure), []).append(judgement)
     limited = [limit.name for limit in run.limits]
     names = list(HEADLINE_FIGURES) + [n for n in dict.fromkeys(limited)
                                       if n not in HEADLINE_FIGURES]
-    by_name: dict[str, list[Figure]] = {}
-    for figure in shown_figures(run, names):
-        by_name.setdefault(figure.name, []).append(figure)
+    by_name: dict[str, list[tuple[int, Figure]]] = {}
+    for position, figure in zip(*run.figures.named(names), strict=True):
+        by_name.setdefault(figure.name, []).append((position, figure))
+    judgements = run.assessment.judgements
     rows: list[SummaryRow] = []
     # figures of one point share their conditions mapping: its group key is made once
     group_of: dict[int, tuple[object, ...]] = {}
     for name in names:
-        groups: dict[tuple[object, ...], list[Figure]] = {}
-        for figure in by_name.get(name, []):
+        groups: dict[tuple[object, ...], list[tuple[int, Figure]]] = {}
+        for position, figure in by_name.get(name, []):
             c = figure.conditions
             key = group_of.get(id(c))
             if key is None:
                 key = group_of[id(c)] = tuple(c.get(k) for k in by)
-            groups.setdefault(key, []).append(figure)
-        for members in groups.values():
-            rows.append(_summary_row(name, members, judged, run.limits, tuple(by),
-                                     run.conversion))
+            groups.setdefault(key, []).append((position, figure))
+        for held in groups.values():
+            positions = [p for p, _ in held]
+            judged = judgements.of_positions(np.array(positions, dtype=np.int64))
+            rows.append(_summary_row(name, [f for _, f in held], positions, judged,
+                                     run.limits, tuple(by), run.conversion))
     return rows
 
 
-def shown_figures(run: RunFigures, names: Iterable[str]) -> list[Figure]:
-    """The run's figures called any of ``names``, in reduction order, each the one object
-    every later reading of it gives (a figure held in a block is made once and kept: the
-    report's tables join a shown figure to its row by identity)."""
-    names = set(names)
-    run.figures.pin(names)
-    return run.figures.named(names)[1]
-
-
 def _summary_row(
-    name: str, members: list[Figure], judged: Mapping[int, list[Judgement]],
+    name: str, members: list[Figure], positions: list[int], judged: JudgedGroup,
     limits: Sequence[Limit], by: tuple[str, ...], conversion: str = "down",
 ) -> SummaryRow:
-    judgements = [j for f in members for j in judged.get(id(f), [])]
-    verdicts = {j.verdict for j in judgements}
-    verdict = (FAIL if FAIL in verdicts else INCONCLUSIVE if INCONCLUSIVE in verdicts
-               else PASS if verdicts else NO_LIMIT)
-    shown = _worst(name, members, judgements, verdict)
+    verdict = judged.verdict or NO_LIMIT
+    shown, shown_at = _worst(name, members, positions, judged)
     numbers = [f.value for f in members if math.isfinite(f.value)]
     unit = members[0].unit
     range_text = ""
@@ -401,14 +391,14 @@ def _summary_row(
             where = f" at {format_frequency(float(c['freq_hz']))}" if "freq_hz" in c else ""
             if "m" in c and "n" in c:
                 text += f"; worst m×n {int(float(c['m']))}×{int(float(c['n']))}{where}"
-    applying = limit_texts(judgements)
+    applying = limit_texts(judged.limits)
     if not applying:
         applying = [limit_text(li) for li in limits if li.name == name and not li.conditions]
     counts = flag_tally(members)
     flags = tuple((f, counts[f]) for f in FLAGS if f in counts)
     value_text = figure_text(shown, 2)
     if len(members) > 1 and (name in HIGHER_IS_BETTER or name in LOWER_IS_BETTER
-                             or judgements):
+                             or len(judged)):
         value_text = f"worst {value_text}"
     elif len(members) > 1 and range_text:
         value_text = range_text
@@ -425,6 +415,7 @@ def _summary_row(
         count=len(members),
         figure=shown,
         points=shown.points,
+        position=shown_at,
     )
 
 
@@ -464,34 +455,26 @@ def _spread_text(members: list[Figure], by: tuple[str, ...], conversion: str = "
     return ", ".join(parts)
 
 
-def _worst(name: str, members: list[Figure], judgements: list[Judgement],
-           verdict: str) -> Figure:
-    """The figure to show for a group: the most failing, else the closest to its limit,
-    else the worst by the figure's better direction, else the first."""
-    if judgements:
-        pool = [j for j in judgements if j.verdict == verdict] or judgements
-        return min(pool, key=_margin).figure
-    finite = [f for f in members if math.isfinite(f.value)]
+def _worst(name: str, members: list[Figure], positions: list[int],
+           judged: JudgedGroup) -> tuple[Figure, int]:
+    """The figure to show for a group, and its position: the most failing, else the
+    closest to its limit (:meth:`~sweeprig.analysis.judged_blocks.JudgedGroup.shown_position`),
+    else the worst by the figure's better direction, else the first. ``positions``: the
+    members' positions, ascending."""
+    at = judged.shown_position()
+    if at is not None:
+        i = bisect.bisect_left(positions, at)
+        return members[i], at
+    finite = [i for i, f in enumerate(members) if math.isfinite(f.value)]
     if not finite:
-        return members[0]
+        return members[0], positions[0]
     if name in HIGHER_IS_BETTER:
-        return min(finite, key=lambda f: f.value)
-    if name in LOWER_IS_BETTER:
-        return max(finite, key=lambda f: f.value)
-    return finite[0]
-
-
-def _margin(judgement: Judgement) -> float:
-    """How far a figure is inside its limit (negative outside), in the figure's unit."""
-    value, limit = judgement.figure.value, judgement.limit
-    if not math.isfinite(value):
-        return math.inf
-    margins = []
-    if limit.min is not None:
-        margins.append(value - limit.min)
-    if limit.max is not None:
-        margins.append(limit.max - value)
-    return min(margins) if margins else math.inf
+        i = min(finite, key=lambda k: members[k].value)
+    elif name in LOWER_IS_BETTER:
+        i = max(finite, key=lambda k: members[k].value)
+    else:
+        i = finite[0]
+    return members[i], positions[i]
 
 
 # ---------------------------------------------------------------------------------------------
@@ -510,15 +493,10 @@ def _plain(value: object) -> object:
     return value
 
 
-def figure_verdicts(run: RunFigures) -> dict[int, str]:
-    """Per figure (by ``id``), its worst verdict over the limits that judged it."""
-    out: dict[int, str] = {}
-    rank = {PASS: 0, INCONCLUSIVE: 1, FAIL: 2}
-    for j in run.assessment.judgements:
-        key = id(j.figure)
-        if key not in out or rank[j.verdict] > rank[out[key]]:
-            out[key] = j.verdict
-    return out
+def figure_verdicts(run: RunFigures) -> tuple[np.ndarray, np.ndarray]:
+    """Each judged figure's position (ascending) and its worst verdict over the limits that
+    judged it (a :data:`~sweeprig.analysis.judged_blocks.VERDICT_NAMES` code)."""
+    return run.assessment.judgements.worst_by_position()
 
 
 class _Stream:
@@ -575,13 +553,6 @@ def _document(run: RunFigures, budgets: FigureBudgets,
     kinds = _condition_kinds(run)
     if summary is None:
         summary = summary_rows(run)
-    wanted = {id(j.figure) for j in run.assessment.judgements}
-    wanted.update(id(r.figure) for r in summary)
-    # (only the names met are read: a block of another name is not made)
-    names = {j.figure.name for j in run.assessment.judgements}
-    names.update(r.figure.name for r in summary)
-    positions, met = run.figures.named(names)
-    index = {id(f): i for i, f in zip(positions, met, strict=True) if id(f) in wanted}
     return {
         "format": FIGURES_FORMAT,
         "generated_utc": datetime.now(UTC).isoformat(timespec="seconds"),
@@ -629,7 +600,7 @@ def _document(run: RunFigures, budgets: FigureBudgets,
             for li in run.limits
         ],
         "summary": [
-            {"figure": index.get(id(r.figure)), "name": r.name, "label": r.label,
+            {"figure": r.position, "name": r.name, "label": r.label,
              "study": r.study, "conditions": r.conditions_text, "value": r.value_text,
              "range": r.range_text, "limit": r.limit_text, "verdict": r.verdict,
              "count": r.count, "flags": {name: count for name, count in r.flags}}
@@ -639,11 +610,7 @@ def _document(run: RunFigures, budgets: FigureBudgets,
         "figure_table": {"file": FIGURE_ROWS_FILE, "rows": len(run.figures),
                          "columns": list(FIGURE_COLUMNS), "conditions": list(kinds),
                          "text_conditions": [k for k, text in kinds.items() if text]},
-        "judgements": _Stream(
-            {"figure": index[id(j.figure)], "limit": limit_index[id(j.limit)],
-             "verdict": j.verdict, "reason": j.reason}
-            for j in run.assessment.judgements
-        ),
+        "judgements": _Stream(_judgement_entries(run, limit_index), encoded=True),
         "untested_limits": [limit_index[id(li)] for li in run.assessment.untested],
         "budget_method": BUDGET_METHOD,
         "budget_table": {"file": BUDGETS_FILE, "rows": len(budgets.shared),
@@ -658,6 +625,27 @@ def _document(run: RunFigures, budgets: FigureBudgets,
             for e in run.events
         ),
     }
+
+
+def _judgement_entries(run: RunFigures, limit_index: Mapping[int, int]) -> Iterator[str]:
+    """The entries of the figures document's ``judgements`` as JSON text: the figure's
+    number, the limit's index, the verdict and its reason (a judged block's from its
+    columns)."""
+    from json.encoder import encode_basestring
+
+    encode = json.JSONEncoder(ensure_ascii=False, separators=(",", ":")).encode
+    for part in run.assessment.judgements.parts:
+        if isinstance(part, JudgedBlock):
+            limit = limit_index[id(part.limit)]
+            for position, code, reason in zip(part.positions.tolist(), part.verdict.tolist(),
+                                              part.reasons(), strict=True):
+                yield (f'{{"figure":{position},"limit":{limit},'
+                       f'"verdict":"{VERDICT_NAMES[code]}","reason":'
+                       f'{encode_basestring(reason)}}}')
+        else:
+            for j in part:
+                yield encode({"figure": j.position, "limit": limit_index[id(j.limit)],
+                              "verdict": j.verdict, "reason": j.reason})
 
 
 #: The ``format`` of ``figures.json``: 4 since a budget is a shared part (``budgets.csv``,
@@ -682,8 +670,13 @@ FIGURE_COLUMNS: tuple[str, ...] = ("figure", "name", "value", "unit", "bound",
 def figures_document(run: RunFigures) -> dict[str, Any]:
     """Everything the report states but the per-figure rows, as JSON-able data
     (``figures.json``; see :func:`_document` for what is in it)."""
-    return {key: list(value.entries) if isinstance(value, _Stream) else value
+    return {key: _listed(value) if isinstance(value, _Stream) else value
             for key, value in _document(run, figure_budgets(run)).items()}
+
+
+def _listed(stream: _Stream) -> list[object]:
+    """A streamed list of the figures document as plain data."""
+    return [json.loads(e) for e in stream.entries] if stream.encoded else list(stream.entries)
 
 
 #: Entries encoded per write when streaming a long list of the figures document.
@@ -728,7 +721,7 @@ def write_figures_json(run: RunFigures, path: Path, *, budgets: FigureBudgets | 
                 chunk: list[str] = []
                 first = True
                 for entry in value.entries:
-                    chunk.append(encode(entry))
+                    chunk.append(entry if value.encoded else encode(entry))
                     if len(chunk) == _JSON_CHUNK:
                         out.write(("" if first else ",") + ",".join(chunk))
                         first, chunk = False, []
@@ -914,7 +907,7 @@ def _points_texts(points: list[tuple[int, ...]]) -> np.ndarray:
 
 
 def _figure_columns(run: RunFigures, budgets: FigureBudgets, first: int, stop: int,
-                    kinds: Mapping[str, bool], verdicts: Mapping[int, str]
+                    kinds: Mapping[str, bool], verdicts: tuple[np.ndarray, np.ndarray]
                     ) -> dict[str, np.ndarray]:
     """Rows ``first`` to ``stop`` of the figure table (see :func:`figures_frame`) as
     :func:`figure_slices` gives them, with a column for every key of ``kinds``;
@@ -923,11 +916,12 @@ def _figure_columns(run: RunFigures, budgets: FigureBudgets, first: int, stop: i
 
     # the one builder of a figure table's columns (a block's read from its columns); the
     # conditions from the run's columns (read once per distinct mapping, not once per slice)
-    table, known = columns_between(run.figures, first, stop)
+    table = columns_between(run.figures, first, stop)
     count = stop - first
     verdict = np.full(count, "", dtype=object)
-    for row, f in known:
-        verdict[row] = verdicts.get(id(f), "")
+    judged, codes = verdicts
+    lo, hi = np.searchsorted(judged, [first, stop])
+    verdict[judged[lo:hi] - first] = np.array(VERDICT_NAMES, dtype=object)[codes[lo:hi]]
     conditions = run.figure_conditions
     which = conditions.which[first:stop]
     columns: dict[str, np.ndarray] = {

@@ -115,7 +115,7 @@ def print_summary(run: RunFigures, console: Console | None = None) -> None:
                        f"{counts['pass']} pass, {counts['fail']} fail, "
                        f"{counts['inconclusive']} inconclusive)")
     console.print(verdict)
-    straddled = sum(1 for j in run.assessment.judgements if j.straddles)
+    straddled = run.assessment.straddled
     if straddled:
         console.print(Text(f"  {straddled} of these checks had a limit within the figure's ± U "
                            "(k = 2): judged on the measured value, not certain at that coverage",

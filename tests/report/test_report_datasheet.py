@@ -96,10 +96,10 @@ def _row_of(figures, judgements):
     """The datasheet row of ``figures`` judged by ``judgements`` (no run needed)."""
     from types import SimpleNamespace
 
+    import numpy as np
+
     from sweeprig.report.datasheet import _row
 
-    judged: dict[int, list] = {}
-    for j in judgements:
-        judged.setdefault(id(j.figure), []).append(j)
+    judged = judgements.of_positions(np.arange(len(figures)))
     run = SimpleNamespace(limits=[j.limit for j in judgements], conversion="down")
     return _row("conversion_gain", "", list(figures), judged, run)
