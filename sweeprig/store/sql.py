@@ -21,7 +21,7 @@ from __future__ import annotations
 import json
 import math
 import os
-from collections.abc import Mapping, Sequence
+from collections.abc import Iterator, Mapping, Sequence
 from contextlib import AbstractContextManager
 from datetime import UTC, datetime
 from types import MappingProxyType
@@ -732,11 +732,12 @@ class SqlRunStoreCore:
         slices = ([(None, None)] if low is None else
                   [(start, start + READING_SLICE_POINTS)
                    for start in range(int(low), int(high) + 1, READING_SLICE_POINTS)])
+        where = "" if low is None else " AND point_index >= ? AND point_index < ?"
+        params = [(run_id,) if start is None else (run_id, start, stop)
+                  for start, stop in slices]
         frames = []
-        for start, stop in slices:
-            where = "" if start is None else " AND point_index >= ? AND point_index < ?"
-            params = (run_id,) if start is None else (run_id, start, stop)
-            rows = self._read(select + where + " ORDER BY point_index, reading_no", params)
+        for rows in self._rows_in_slices(select + where + " ORDER BY point_index, reading_no",
+                                         params):
             frames.append(_typed_readings(pd.DataFrame.from_records(rows, columns=columns)))
             del rows
         if len(frames) == 1:
@@ -748,6 +749,13 @@ class SqlRunStoreCore:
                 # again over all rows, as one read would
                 frame[column] = pd.Series(frame[column].tolist(), index=frame.index)
         return frame
+
+    def _rows_in_slices(self, sql: str, params: Sequence[Sequence[object]]
+                        ) -> Iterator[list[tuple[Any, ...]]]:
+        """The rows of ``sql`` run with each of ``params`` in turn (a store may read some
+        of them elsewhere: :mod:`sweeprig.store.side_reader`)."""
+        for p in params:
+            yield self._read(sql, p)
 
     def events(self, run_id: int) -> list[EventRecord]:
         """The run's events, oldest first."""

@@ -492,6 +492,14 @@ class SqliteRunStore(SqlRunStoreCore):
             except sqlite3.Error as exc:
                 raise self._error(exc, "reading") from None
 
+    def _rows_in_slices(self, sql: str, params: Sequence[Sequence[object]]
+                        ) -> Iterator[list[tuple[Any, ...]]]:
+        """The rows of ``sql`` per parameter tuple, the second half of a long read by a
+        child process on the other core (:mod:`sweeprig.store.side_reader`)."""
+        from sweeprig.store.side_reader import rows_in_slices
+
+        return rows_in_slices(self.path, sql, params, self._read)
+
     def _error(self, exc: sqlite3.Error, what: str) -> StoreError:
         """The user's view of an SQLite error: what it means (by result code) and what to do.
         When the file has gone as well, that is the cause named."""
