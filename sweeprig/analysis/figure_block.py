@@ -104,8 +104,11 @@ class FigureBlock:
         """The block with the columns given replaced."""
         return replace(self, **columns)  # type: ignore[arg-type]
 
-    def figures(self, start: int = 0, stop: int | None = None) -> list[Figure]:
-        """Its figures ``start`` to ``stop`` as :class:`Figure` objects."""
+    def figures(self, start: int = 0, stop: int | None = None, *,
+                budgets: bool = True) -> list[Figure]:
+        """Its figures ``start`` to ``stop`` as :class:`Figure` objects (``budgets=False``:
+        each without its budget, for a reader that never looks at it: making the budgets
+        is most of the cost)."""
         stop = len(self) if stop is None else stop
         rows = range(start, stop)
         values = self.value[start:stop].tolist()
@@ -115,13 +118,13 @@ class FigureBlock:
         points = self.point[start:stop].tolist()
         uncertainty = self.uncertainty_db[start:stop].tolist()
         flag_sets = {m: flags_from_mask(m) for m in set(masks)}
-        budgets = self.budgets
+        held = self.budgets if budgets else None
         name, unit, symbols = self.name, self.unit, _SYMBOLS
         out: list[Figure] = []
         append = out.append
         with collector_paused():
             for k, row in enumerate(rows):
-                budget = None if budgets is None else budgets.row(row)
+                budget = None if held is None else held.row(row)
                 append(new_figure(name, values[k], unit, symbols[bounds[k]], conds[k],
                                flag_sets[masks[k]], (points[k],), uncertainty[k], budget))
         return out
@@ -229,9 +232,11 @@ class Figures(Sequence[Figure]):
         blocks = sum(isinstance(p, FigureBlock) for p in self._parts)
         return f"Figures({len(self)} figures, {blocks} blocks)"
 
-    def named(self, names: Iterable[str]) -> tuple[list[int], list[Figure]]:
+    def named(self, names: Iterable[str], *, budgets: bool = True
+              ) -> tuple[list[int], list[Figure]]:
         """The positions and figures of every figure called any of ``names``, in order
-        (a block of another name is skipped whole)."""
+        (a block of another name is skipped whole; ``budgets=False``: a block's figures
+        made without their budgets, :meth:`FigureBlock.figures`)."""
         wanted = frozenset(names)
         positions: list[int] = []
         figures: list[Figure] = []
@@ -240,7 +245,7 @@ class Figures(Sequence[Figure]):
             if isinstance(part, FigureBlock):
                 if part.name in wanted:
                     positions += range(first, first + len(part))
-                    figures += part.figures()
+                    figures += part.figures(budgets=budgets)
             else:
                 for i, f in enumerate(part):
                     if f.name in wanted:
@@ -341,26 +346,67 @@ def columns_between(figures: Figures, first: int, stop: int) -> dict[str, np.nda
     ``first`` to ``stop`` (a block's read from its columns, none of its figures made)."""
     from sweeprig.analysis.figure_table import base_columns
 
+    pieces = [block_columns(part, lo, hi) if isinstance(part, FigureBlock)
+              else base_columns(part[lo:hi])
+              for part, _begin, lo, hi in figures.spans(first, stop)]
+    return joined_columns(pieces)
+
+
+def named_columns(figures: Figures, names: Iterable[str]
+                  ) -> tuple[np.ndarray, dict[str, np.ndarray], np.ndarray]:
+    """The positions of the figures called any of ``names``, in order, their
+    :func:`~sweeprig.analysis.figure_table.base_columns` and their conditions mappings
+    (object array): a block's read from its columns, none of its figures made."""
+    from sweeprig.analysis.figure_table import base_columns
+
+    wanted = frozenset(names)
+    positions: list[np.ndarray] = []
     pieces: list[dict[str, np.ndarray]] = []
-    for part, _begin, lo, hi in figures.spans(first, stop):
+    conditions: list[np.ndarray] = []
+    for part, first, _lo, _hi in figures.spans(0, len(figures)):
         if isinstance(part, FigureBlock):
-            count = hi - lo
-            points = np.empty(count, dtype=object)
-            points[:] = list(zip(part.point[lo:hi].tolist()))  # (one 1-tuple a figure)
-            bounds = part.bound[lo:hi]
-            bound_text = np.where(bounds == BOUND_BELOW, "<",
-                                  np.where(bounds == BOUND_ABOVE, ">", "")).astype(object)
-            pieces.append({
-                "name": np.full(count, part.name, dtype=object),
-                "value": part.value[lo:hi],
-                "unit": np.full(count, part.unit, dtype=object),
-                "bound": bound_text,
-                "uncertainty_db": part.uncertainty_db[lo:hi],
-                "flags": part.flags[lo:hi],
-                "points": points,
-            })
-        else:
-            pieces.append(base_columns(part[lo:hi]))
+            if part.name in wanted:
+                positions.append(np.arange(first, first + len(part), dtype=np.int64))
+                pieces.append(block_columns(part, 0, len(part)))
+                conditions.append(part.conditions)
+            continue
+        keep = [i for i, f in enumerate(part) if f.name in wanted]
+        if keep:
+            some = [part[i] for i in keep]
+            positions.append(first + np.array(keep, dtype=np.int64))
+            pieces.append(base_columns(some))
+            column = np.empty(len(some), dtype=object)
+            column[:] = [f.conditions for f in some]
+            conditions.append(column)
+    if not pieces:
+        return np.zeros(0, dtype=np.int64), base_columns([]), np.empty(0, dtype=object)
+    return (np.concatenate(positions), joined_columns(pieces), np.concatenate(conditions))
+
+
+def block_columns(block: FigureBlock, lo: int, hi: int) -> dict[str, np.ndarray]:
+    """:func:`~sweeprig.analysis.figure_table.base_columns` of the block's figures ``lo``
+    to ``hi``, from its columns."""
+    count = hi - lo
+    points = np.empty(count, dtype=object)
+    points[:] = list(zip(block.point[lo:hi].tolist()))  # (one 1-tuple a figure)
+    bounds = block.bound[lo:hi]
+    bound_text = np.where(bounds == BOUND_BELOW, "<",
+                          np.where(bounds == BOUND_ABOVE, ">", "")).astype(object)
+    return {
+        "name": np.full(count, block.name, dtype=object),
+        "value": block.value[lo:hi],
+        "unit": np.full(count, block.unit, dtype=object),
+        "bound": bound_text,
+        "uncertainty_db": block.uncertainty_db[lo:hi],
+        "flags": block.flags[lo:hi],
+        "points": points,
+    }
+
+
+def joined_columns(pieces: Sequence[dict[str, np.ndarray]]) -> dict[str, np.ndarray]:
+    """Base columns of consecutive pieces as one set of columns."""
+    from sweeprig.analysis.figure_table import base_columns
+
     if not pieces:
         return base_columns([])
     if len(pieces) == 1:

@@ -51,25 +51,27 @@ def figure_columns(figures: Sequence[Figure], names: Iterable[str] | None = None
     """:func:`figure_table`'s rows (positions in ``figures``) and columns as numpy arrays
     (text and ``points`` as object arrays), without building the DataFrame: for a caller
     that formats them at once (the report's figure table)."""
-    from sweeprig.analysis.figure_block import Figures
+    from sweeprig.analysis.figure_block import Figures, named_columns
 
     wanted = None if names is None else frozenset(names)
-    rows: list[int] = []
-    picked: list[Figure] = []
     if isinstance(figures, Figures) and wanted is not None:
-        rows, picked = figures.named(wanted)  # (a block of another name is not made)
+        # a block's columns read as they are: none of its figures made
+        positions, columns, mappings = named_columns(figures, wanted)
     else:
+        rows: list[int] = []
+        picked: list[Figure] = []
         for i, f in enumerate(figures):
             if wanted is None or f.name in wanted:
                 rows.append(i)
                 picked.append(f)
-    columns = base_columns(picked)
+        positions, columns = np.array(rows, dtype=np.int64), base_columns(picked)
+        mappings = [f.conditions for f in picked]
     # figures of one point or group share their conditions mapping: read each distinct
     # mapping once (in order of first appearance) and spread its values by index
-    distinct, which = distinct_conditions(picked)
+    distinct, which = distinct_mappings(mappings)
     for key, values in condition_arrays(distinct).items():
         columns[key] = values[which]
-    return np.array(rows, dtype=np.int64), columns
+    return positions, columns
 
 
 def base_columns(figures: Sequence[Figure]) -> dict[str, np.ndarray]:

@@ -138,7 +138,8 @@ def datasheet_rows(run: RunFigures) -> list[DatasheetRow]:
     wanted = frozenset(names)
     groups: dict[tuple[str, str], list[Figure]] = {}
     positions: dict[tuple[str, str], list[int]] = {}
-    for position, figure in zip(*run.figures.named(wanted), strict=True):
+    # (the datasheet never reads a budget: a block's figures are made without theirs)
+    for position, figure in zip(*run.figures.named(wanted, budgets=False), strict=True):
         key = (figure.name, str(figure.conditions.get("study", "")))
         groups.setdefault(key, []).append(figure)
         positions.setdefault(key, []).append(position)

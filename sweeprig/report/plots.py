@@ -36,7 +36,7 @@ from sweeprig.analysis.captures import (
     point_table,
 )
 from sweeprig.analysis.compression import compression_table
-from sweeprig.analysis.figures import Figure, flag_bit
+from sweeprig.analysis.figures import Figure, flag_bit, flags_from_mask
 from sweeprig.analysis.gain import gain_table
 from sweeprig.analysis.reduce import RunFigures
 from sweeprig.analysis.roles import (
@@ -164,37 +164,44 @@ def figure_frame(run: RunFigures, names: str | Sequence[str]) -> pd.DataFrame:
     carry (SI units, NaN where a figure lacks it). Every plot reads figures through here and
     nowhere else, so the source can change (a columnar figure store) without touching a plot.
     """
-    figures = _named_figures(run, [names] if isinstance(names, str) else names)
+    from sweeprig.analysis.figure_table import BASE_COLUMNS, figure_columns
+
+    _positions, table = figure_columns(run.figures, [names] if isinstance(names, str)
+                                       else names)
+    count = table["value"].size
+    masks = table["flags"].tolist()
+    flag_sets = {m: flags_from_mask(m) for m in set(masks)}
+    flags = np.empty(count, dtype=object)
+    flags[:] = [flag_sets[m] for m in masks]
     columns: dict[str, object] = {
-        "name": [f.name for f in figures],
-        "value": [f.value for f in figures],
-        "unit": [f.unit for f in figures],
-        "bound": [f.bound or "" for f in figures],
-        "uncertainty_db": [f.uncertainty_db for f in figures],
-        "flags": [tuple(f.flags) for f in figures],
-        "points": [tuple(f.points) for f in figures],
+        "name": table["name"],
+        "value": table["value"],
+        "unit": table["unit"],
+        "bound": table["bound"],
+        "uncertainty_db": table["uncertainty_db"],
+        "flags": flags,
+        "points": table["points"],
     }
-    # the conditions in one go (pandas unions the keys); NaN where a figure lacks one
-    conditions = pd.DataFrame.from_records([dict(f.conditions) for f in figures])
-    columns["study"] = (conditions["study"].where(conditions["study"].notna(), None)
-                        if "study" in conditions else [None] * len(figures))
+    # the condition columns, as the figures' mappings give them: a key a figure lacks is
+    # None for the study, NaN elsewhere
+    kept = [key for key in table if key not in BASE_COLUMNS]
+    if "study" in table:
+        study = table["study"]
+        columns["study"] = np.where(study == "", None, study)
+    else:
+        columns["study"] = np.full(count, None, dtype=object)
     for key in FRAME_CONDITIONS:
-        columns[key] = conditions[key] if key in conditions else np.full(len(figures), np.nan)
-    for key in conditions.columns:
+        columns[key] = table[key] if key in table else np.full(count, np.nan)
+    for key in kept:
         if key != "study" and key not in FRAME_CONDITIONS:
-            columns[key] = conditions[key]
-    frame = pd.DataFrame({k: (v.to_numpy() if isinstance(v, pd.Series) else v)
-                          for k, v in columns.items()})
+            values = table[key]
+            columns[key] = (np.where(values == "", np.nan, values) if values.dtype == object
+                            else values)
+    frame = pd.DataFrame(columns)
     for key in ("value", "uncertainty_db", *FRAME_CONDITIONS):
         if frame[key].dtype != np.float64:
             frame[key] = pd.to_numeric(frame[key], errors="coerce").astype(float)
     return frame
-
-
-def _named_figures(run: RunFigures, names: Sequence[str]) -> list[Figure]:
-    """The run's figures called any of ``names``, in reduction order (a block of figures
-    held as columns is made only when its name is asked for)."""
-    return run.figures.named(names)[1]
 
 
 def _frame_figure(row: Mapping[str, object]) -> Figure:

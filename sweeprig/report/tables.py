@@ -343,7 +343,8 @@ def summary_rows(run: RunFigures, by: Sequence[str] = GROUP_KEYS) -> list[Summar
     names = list(HEADLINE_FIGURES) + [n for n in dict.fromkeys(limited)
                                       if n not in HEADLINE_FIGURES]
     by_name: dict[str, list[tuple[int, Figure]]] = {}
-    for position, figure in zip(*run.figures.named(names), strict=True):
+    # (the summary never reads a budget: a block's figures are made without theirs)
+    for position, figure in zip(*run.figures.named(names, budgets=False), strict=True):
         by_name.setdefault(figure.name, []).append((position, figure))
     judgements = run.assessment.judgements
     rows: list[SummaryRow] = []

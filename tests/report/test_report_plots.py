@@ -100,11 +100,39 @@ def test_the_plots_read_figures_through_their_one_accessor():
     for module in (plots, noise_plot):
         source = inspect.getsource(module)
         assert "figures_named(" not in source, module.__name__
-    # the one function of the plots that reads them (a block of figures held as columns is
-    # made only when its name is asked for)
+    # the one function of the plots that reads them (from the columns of a run's figures:
+    # no figure of a block is made)
     source = inspect.getsource(plots)
-    reader = inspect.getsource(plots._named_figures)
+    reader = inspect.getsource(plots.figure_frame)
     assert source.count("run.figures") == reader.count("run.figures") == 1
+
+
+def test_a_figure_frame_is_the_figures_it_holds(report_run):
+    """figure_frame reads the run's columns: each row is its figure, field by field, and
+    its conditions as the figure's mapping gives them."""
+    import math
+
+    from sweeprig.report.plots import FRAME_CONDITIONS, figure_frame
+
+    names = ("spur_dbc", "conversion_gain", "iip3")
+    frame = figure_frame(report_run, names)
+    figures = report_run.figures.named(names)[1]
+    assert len(frame) == len(figures) > 10
+    keys = {k for f in figures for k in f.conditions}
+    assert keys <= set(frame.columns) and set(FRAME_CONDITIONS) <= set(frame.columns)
+    for row, f in zip(frame.to_dict("records"), figures, strict=True):
+        assert (row["name"], row["unit"], row["bound"] or None, row["flags"], row["points"]) \
+            == (f.name, f.unit, f.bound, f.flags, f.points)
+        for got, want in ((row["value"], f.value), (row["uncertainty_db"], f.uncertainty_db)):
+            assert got == want or (math.isnan(got) and math.isnan(want))
+        assert row["study"] == f.conditions.get("study")
+        for key in keys - {"study"}:
+            want = f.conditions.get(key)
+            got = row[key]
+            if want is None:
+                assert got is None or (isinstance(got, float) and math.isnan(got))
+            else:
+                assert got == want
 
 
 def test_markers_on_the_same_pixel_are_drawn_once_and_nothing_else_is_dropped():
