@@ -98,16 +98,41 @@ class JudgedBlock:
                 for row, code, mask in zip(rows.tolist(), verdicts, suspects, strict=True)]
 
     def reasons(self) -> list[str]:
-        """:attr:`Judgement.reason` of each judgement, from the block's columns."""
+        """:attr:`Judgement.reason` of each judgement, from the block's columns: a plain
+        number (no bound, no suspect flag, no edge within ± U; most of them) spelled out
+        here from its value and each edge's outcome, the others by
+        :func:`~sweeprig.analysis.limits.judgement_reason`."""
         block, limit = self.block, self.limit
         unit = block.unit
         rows = self.rows
-        return [judgement_reason(value, bound_symbol(bound), unit, u, limit,
-                                 VERDICT_NAMES[code], _suspect_names(mask))
-                for value, bound, u, code, mask in zip(
-                    block.value[rows].tolist(), block.bound[rows].tolist(),
-                    block.uncertainty_db[rows].tolist(), self.verdict.tolist(),
-                    self.suspect.tolist(), strict=True)]
+        value, bound = block.value[rows], block.bound[rows]
+        u = block.uncertainty_db[rows]
+        plain = (np.isfinite(value) & (bound == BOUND_NONE) & (self.suspect == 0)
+                 & ~self.straddles)
+        out: list[str] = [""] * len(self)
+        codes = self.verdict.tolist()
+        for i in np.flatnonzero(~plain).tolist():
+            out[i] = judgement_reason(float(value[i]), bound_symbol(int(bound[i])), unit,
+                                      float(u[i]), limit, VERDICT_NAMES[codes[i]],
+                                      _suspect_names(int(self.suspect[i])))
+        at = np.flatnonzero(plain)
+        edges = [(edge, lower) for edge, lower in ((limit.min, True), (limit.max, False))
+                 if edge is not None]
+        if not edges:
+            for i in at.tolist():
+                out[i] = "no bounds"
+            return out
+        # per edge, whether each plain number meets it, and the words after the value
+        met = [(value[at] >= edge if lower else value[at] <= edge).tolist()
+               for edge, lower in edges]
+        tails = [(f" misses {'min' if lower else 'max'} {edge:g}",
+                  f" meets {'min' if lower else 'max'} {edge:g}") for edge, lower in edges]
+        for k, (i, v) in enumerate(zip(at.tolist(), value[at].tolist(), strict=True)):
+            text = f"{v:.3f} {unit}"
+            passed = codes[i] == _PASS  # (else failed: a plain number is never between)
+            out[i] = "; ".join(text + tail[ok] for tail, oks in zip(tails, met, strict=True)
+                               if (ok := oks[k]) == passed)
+        return out
 
     def margins(self) -> np.ndarray:
         """How far each judged figure is inside the limit (negative outside), in its unit:
@@ -220,6 +245,13 @@ def judged_parts(figures: Sequence[Figure], limits: Iterable[Limit],
     return Judgements(parts), tuple(untested)
 
 
+def verdict_counts(codes: np.ndarray) -> dict[str, int]:
+    """How many of the verdict ``codes`` are pass, fail and inconclusive (in that order,
+    as ``figures.json`` gives them)."""
+    tally = np.bincount(codes, minlength=3)
+    return {name: int(tally[VERDICT_CODES[name]]) for name in (PASS, FAIL, INCONCLUSIVE)}
+
+
 @dataclass(frozen=True)
 class JudgementTable:
     """Every judgement as a row, in order: the judged figure's ``position``, its verdict
@@ -258,8 +290,7 @@ class JudgedGroup:
     @property
     def counts(self) -> dict[str, int]:
         """Number of judgements per verdict."""
-        tally = np.bincount(self.verdicts, minlength=3)
-        return {name: int(tally[code]) for code, name in enumerate(VERDICT_NAMES)}
+        return verdict_counts(self.verdicts)
 
     @property
     def straddled(self) -> int:
@@ -400,8 +431,7 @@ class Judgements(Sequence[Judgement]):
     @property
     def counts(self) -> dict[str, int]:
         """Number of judgements per verdict."""
-        tally = np.bincount(self.table().verdict, minlength=3)
-        return {name: int(tally[code]) for code, name in enumerate(VERDICT_NAMES)}
+        return verdict_counts(self.table().verdict)
 
     @property
     def straddled(self) -> int:

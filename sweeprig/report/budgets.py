@@ -9,6 +9,9 @@ tables beside ``figures.json``).
 from __future__ import annotations
 
 import html
+import math
+
+import numpy as np
 
 from sweeprig.analysis.budget_parts import budget_lines
 from sweeprig.analysis.figures import Figure
@@ -18,14 +21,41 @@ from sweeprig.report.tables import FIGURE_LABELS, HEADLINE_FIGURES, figure_text
 
 def widest_budgets(run: RunFigures) -> list[Figure]:
     """Per headline figure name (in headline order), its figure with the widest U (the
-    first of equals, in reduction order)."""
-    widest: dict[str, Figure] = {}
-    for f in run.figures.named(HEADLINE_FIGURES)[1]:
-        if f.budget is not None:
-            held = widest.get(f.name)
-            if held is None or f.uncertainty_db > held.uncertainty_db:
-                widest[f.name] = f
-    return [widest[name] for name in HEADLINE_FIGURES if name in widest]
+    first of equals, in reduction order; a block's found from its columns, only the one
+    shown made)."""
+    from sweeprig.analysis.figure_block import FigureBlock
+
+    widest: dict[str, tuple[float, FigureBlock | Figure, int]] = {}  # (U, where, row)
+    for part in run.figures.parts:
+        if not isinstance(part, FigureBlock):
+            for f in part:
+                if f.name in HEADLINE_FIGURES and f.budget is not None:
+                    held = widest.get(f.name)
+                    if held is None or f.uncertainty_db > held[0]:
+                        widest[f.name] = (f.uncertainty_db, f, 0)
+            continue
+        if part.name not in HEADLINE_FIGURES or part.budgets is None:
+            continue
+        rows = np.flatnonzero(np.not_equal(part.budgets.shared, None))
+        if not rows.size:
+            continue
+        us = part.uncertainty_db[rows]
+        held = widest.get(part.name)
+        start = 0
+        if held is None:
+            held = widest[part.name] = (float(us[0]), part, int(rows[0]))
+            start = 1
+        rest = np.where(np.isnan(us[start:]), -np.inf, us[start:])
+        if rest.size and not math.isnan(held[0]):  # (as "u > U held" one by one: the first
+            best = int(np.argmax(rest))            # widest, NaN never wider)
+            if rest[best] > held[0]:
+                widest[part.name] = (float(rest[best]), part, int(rows[start + best]))
+    out = []
+    for name in HEADLINE_FIGURES:
+        if name in widest:
+            _u, where, row = widest[name]
+            out.append(where.figure(row) if isinstance(where, FigureBlock) else where)
+    return out
 
 
 def budget_section(run: RunFigures) -> str:

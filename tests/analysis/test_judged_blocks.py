@@ -80,6 +80,7 @@ def test_a_judged_block_is_its_figures_judged_one_by_one(guard_band: bool) -> No
     assert assessment.verdict == FAIL
     tally = {v: sum(one.verdict == v for _l, _i, one in expected) for v in verdicts}
     assert assessment.counts == tally
+    assert list(assessment.counts) == [PASS, FAIL, INCONCLUSIVE]  # (figures.json's order)
     assert assessment.straddled == sum(one.straddles for _l, _i, one in expected)
 
 

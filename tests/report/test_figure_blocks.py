@@ -129,3 +129,22 @@ def test_a_sequence_of_figures_reads_as_one():
     # made anew each time: a figure is known by its position, not its identity
     assert seq[0] == seq[0] and seq[0] is not seq[0]
     assert block_of(figures[:3]).figure(2) == figures[2]
+
+
+def test_the_widest_budgets_are_found_from_the_columns(both_ways):
+    # the report's uncertainty section: per headline name, the first figure of the widest U
+    # with a budget, whether the figures are held as blocks or one by one
+    from sweeprig.report.budgets import widest_budgets
+    from sweeprig.report.tables import HEADLINE_FIGURES
+
+    columns, loose = both_ways
+    reference: dict[str, Figure] = {}
+    for f in loose.figures:
+        if f.name in HEADLINE_FIGURES and f.budget is not None:
+            held = reference.get(f.name)
+            if held is None or f.uncertainty_db > held.uncertainty_db:
+                reference[f.name] = f
+    expected = [_fields(reference[n]) for n in HEADLINE_FIGURES if n in reference]
+    assert len(expected) > 2
+    assert [_fields(f) for f in widest_budgets(columns)] == expected
+    assert [_fields(f) for f in widest_budgets(loose)] == expected
