@@ -22,11 +22,9 @@ budget, becomes a block (a small run's figures stay as they are).
 
 from __future__ import annotations
 
-import bisect
 import math
-from collections.abc import Callable, Iterable, Iterator, Mapping, Sequence
+from collections.abc import Callable, Iterable, Mapping, Sequence
 from dataclasses import dataclass, replace
-from typing import overload
 
 import numpy as np
 
@@ -43,6 +41,7 @@ from sweeprig.analysis.figures import (
     mark_bits,
     new_figure,
 )
+from sweeprig.analysis.held_parts import HeldParts
 
 #: The fewest figures of one name (from one analysis) held as a block.
 BLOCK_MIN_FIGURES = 512
@@ -137,100 +136,23 @@ class FigureBlock:
 Part = FigureBlock | tuple[Figure, ...]
 
 
-class Figures(Sequence[Figure]):
+class Figures(HeldParts[Figure]):
     """A run's figures in reduction order, held as parts: blocks and tuples of figures
     (see the module docstring). Read as a ``Sequence[Figure]``; compares equal to any
     sequence of equal figures."""
 
-    __slots__ = ("_parts", "_starts")
+    __slots__ = ()
+    block_type = FigureBlock
+    noun = "figure"
 
-    def __init__(self, parts: Iterable[FigureBlock | Sequence[Figure]] = ()) -> None:
-        kept: list[Part] = []
-        for part in parts:
-            if isinstance(part, FigureBlock):
-                if len(part):
-                    kept.append(part)
-            elif part:
-                if kept and not isinstance(kept[-1], FigureBlock):
-                    kept[-1] = (*kept[-1], *part)
-                else:
-                    kept.append(tuple(part))
-        self._parts: tuple[Part, ...] = tuple(kept)
-        starts = [0]
-        for part in self._parts:
-            starts.append(starts[-1] + len(part))
-        self._starts = starts
+    @staticmethod
+    def _made(block: FigureBlock, lo: int, hi: int) -> list[Figure]:
+        return block.figures(lo, hi)
 
     @property
     def parts(self) -> tuple[Part, ...]:
         """The blocks and tuples of figures, in order."""
         return self._parts
-
-    def __len__(self) -> int:
-        return self._starts[-1]
-
-    @overload
-    def __getitem__(self, index: int) -> Figure: ...
-
-    @overload
-    def __getitem__(self, index: slice) -> list[Figure]: ...
-
-    def __getitem__(self, index: int | slice) -> Figure | list[Figure]:
-        if isinstance(index, slice):
-            start, stop, step = index.indices(len(self))
-            if step != 1:
-                return [self[i] for i in range(start, stop, step)]
-            return self.between(start, stop)
-        count = len(self)
-        if index < 0:
-            index += count
-        if not 0 <= index < count:
-            raise IndexError("figure index out of range")
-        k = bisect.bisect_right(self._starts, index) - 1
-        part, row = self._parts[k], index - self._starts[k]
-        if isinstance(part, FigureBlock):
-            return part.figure(row)
-        return part[row]
-
-    def spans(self, start: int, stop: int) -> Iterator[tuple[Part, int, int, int]]:
-        """The parts holding the figures at positions ``start`` to ``stop``: (part, the
-        position of its first figure, its rows lo to hi among them) each, in order."""
-        starts = self._starts
-        for k, part in enumerate(self._parts):
-            first, end = starts[k], starts[k + 1]
-            if end > start and first < stop:
-                yield part, first, max(start, first) - first, min(stop, end) - first
-
-    def between(self, start: int, stop: int) -> list[Figure]:
-        """The figures at positions ``start`` to ``stop``."""
-        out: list[Figure] = []
-        for part, _first, lo, hi in self.spans(start, stop):
-            if isinstance(part, FigureBlock):
-                out += part.figures(lo, hi)
-            else:
-                out += part[lo:hi]
-        return out
-
-    def __iter__(self) -> Iterator[Figure]:
-        step = 20_000  # (a block made a slice at a time: never all of it at once)
-        for part in self._parts:
-            if isinstance(part, FigureBlock):
-                for lo in range(0, len(part), step):
-                    yield from part.figures(lo, min(lo + step, len(part)))
-            else:
-                yield from part
-
-    def __eq__(self, other: object) -> bool:
-        if not isinstance(other, Sequence) or isinstance(other, str):
-            return NotImplemented
-        return len(self) == len(other) and all(a == b for a, b in zip(self, other,
-                                                                       strict=True))
-
-    __hash__ = None  # type: ignore[assignment]
-
-    def __repr__(self) -> str:
-        blocks = sum(isinstance(p, FigureBlock) for p in self._parts)
-        return f"Figures({len(self)} figures, {blocks} blocks)"
 
     def named(self, names: Iterable[str], *, budgets: bool = True
               ) -> tuple[list[int], list[Figure]]:

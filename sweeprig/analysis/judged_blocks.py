@@ -18,11 +18,9 @@ figures judged (a run's figure table), so the report joins judgements to figures
 
 from __future__ import annotations
 
-import bisect
 import math
-from collections.abc import Iterable, Iterator, Sequence
+from collections.abc import Iterable, Sequence
 from dataclasses import dataclass
-from typing import overload
 
 import numpy as np
 
@@ -38,6 +36,7 @@ from sweeprig.analysis.figures import (
     flag_bit,
     flags_from_mask,
 )
+from sweeprig.analysis.held_parts import HeldParts
 from sweeprig.analysis.limits import (
     FAIL,
     INCONCLUSIVE,
@@ -316,79 +315,27 @@ class JudgedGroup:
 Part = JudgedBlock | tuple[Judgement, ...]
 
 
-class Judgements(Sequence[Judgement]):
+class Judgements(HeldParts[Judgement]):
     """An assessment's judgements in order, held as parts: judged blocks and tuples of
     judgements (see the module docstring). Read as a ``Sequence[Judgement]``; compares
     equal to any sequence of equal judgements."""
 
-    __slots__ = ("_parts", "_starts", "_table")
+    __slots__ = ("_table",)
+    block_type = JudgedBlock
+    noun = "judgement"
 
     def __init__(self, parts: Iterable[JudgedBlock | Sequence[Judgement]] = ()) -> None:
-        kept: list[Part] = []
-        for part in parts:
-            if isinstance(part, JudgedBlock):
-                if len(part):
-                    kept.append(part)
-            elif part:
-                if kept and not isinstance(kept[-1], JudgedBlock):
-                    kept[-1] = (*kept[-1], *part)
-                else:
-                    kept.append(tuple(part))
-        self._parts: tuple[Part, ...] = tuple(kept)
-        starts = [0]
-        for part in self._parts:
-            starts.append(starts[-1] + len(part))
-        self._starts = starts
+        super().__init__(parts)
         self._table: JudgementTable | None = None
+
+    @staticmethod
+    def _made(block: JudgedBlock, lo: int, hi: int) -> list[Judgement]:
+        return block.judgements(lo, hi)
 
     @property
     def parts(self) -> tuple[Part, ...]:
         """The judged blocks and tuples of judgements, in order."""
         return self._parts
-
-    def __len__(self) -> int:
-        return self._starts[-1]
-
-    @overload
-    def __getitem__(self, index: int) -> Judgement: ...
-
-    @overload
-    def __getitem__(self, index: slice) -> list[Judgement]: ...
-
-    def __getitem__(self, index: int | slice) -> Judgement | list[Judgement]:
-        if isinstance(index, slice):
-            return [self[i] for i in range(*index.indices(len(self)))]
-        count = len(self)
-        if index < 0:
-            index += count
-        if not 0 <= index < count:
-            raise IndexError("judgement index out of range")
-        k = bisect.bisect_right(self._starts, index) - 1
-        part, row = self._parts[k], index - self._starts[k]
-        if isinstance(part, JudgedBlock):
-            return part.judgements(row, row + 1)[0]
-        return part[row]
-
-    def __iter__(self) -> Iterator[Judgement]:
-        step = 20_000  # (a judged block made a slice at a time)
-        for part in self._parts:
-            if isinstance(part, JudgedBlock):
-                for lo in range(0, len(part), step):
-                    yield from part.judgements(lo, min(lo + step, len(part)))
-            else:
-                yield from part
-
-    def __eq__(self, other: object) -> bool:
-        if not isinstance(other, Sequence) or isinstance(other, str):
-            return NotImplemented
-        return len(self) == len(other) and all(a == b for a, b in zip(self, other,
-                                                                       strict=True))
-
-    __hash__ = None  # type: ignore[assignment]
-
-    def __repr__(self) -> str:
-        blocks = sum(isinstance(p, JudgedBlock) for p in self._parts)
-        return f"Judgements({len(self)} judgements, {blocks} judged blocks)"
 
     def table(self) -> JudgementTable:
         """Every judgement as a row of columns (made once)."""
