@@ -320,13 +320,14 @@ class Judgements(HeldParts[Judgement]):
     judgements (see the module docstring). Read as a ``Sequence[Judgement]``; compares
     equal to any sequence of equal judgements."""
 
-    __slots__ = ("_table",)
+    __slots__ = ("_by_position", "_table")
     block_type = JudgedBlock
     noun = "judgement"
 
     def __init__(self, parts: Iterable[JudgedBlock | Sequence[Judgement]] = ()) -> None:
         super().__init__(parts)
         self._table: JudgementTable | None = None
+        self._by_position: tuple[np.ndarray, np.ndarray] | None = None
 
     @staticmethod
     def _made(block: JudgedBlock, lo: int, hi: int) -> list[Judgement]:
@@ -399,8 +400,10 @@ class Judgements(HeldParts[Judgement]):
         """The judgements of the figures at ``positions`` (ascending), in their figures'
         order, then in judgement order."""
         table = self.table()
-        order = np.argsort(table.position, kind="stable")
-        held = table.position[order]
+        if self._by_position is None:  # (sorted once: a report asks for many groups)
+            order = np.argsort(table.position, kind="stable")
+            self._by_position = order, table.position[order]
+        order, held = self._by_position
         lo = np.searchsorted(held, positions, side="left")
         hi = np.searchsorted(held, positions, side="right")
         counts = hi - lo
