@@ -22,6 +22,7 @@ budget, becomes a block (a small run's figures stay as they are).
 
 from __future__ import annotations
 
+import functools
 import math
 from collections.abc import Callable, Iterable, Mapping, Sequence
 from dataclasses import dataclass, replace
@@ -63,6 +64,14 @@ class BlockBudgets:
     scatter_snr_db: np.ndarray  # float, (figures, readings)
     averages: np.ndarray  # int64, (figures, readings)
     combined_db: np.ndarray  # float
+
+    @functools.cached_property
+    def present(self) -> np.ndarray:
+        """True where the figure has a budget (bool, a row a figure; worked out once: an
+        element-wise comparison of the ``shared`` column with None would call each shared
+        part's ``__eq__``)."""
+        return np.fromiter((b is not None for b in self.shared.tolist()), dtype=bool,
+                           count=self.shared.size)
 
     def row(self, i: int) -> FigureBudget | None:
         """The budget of the block's figure ``i`` (None: it has none)."""

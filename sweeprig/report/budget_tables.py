@@ -151,7 +151,7 @@ def _first_used(block: FigureBlock) -> list[SharedBudget]:
     if block.budgets is None:
         return []
     column = block.budgets.shared
-    held = np.flatnonzero(np.not_equal(column, None))
+    held = np.flatnonzero(block.budgets.present)
     if held.size == 0:
         return []
     ids = np.fromiter(map(id, column[held]), dtype=np.uint64, count=held.size)
@@ -189,9 +189,9 @@ def _block_budget_columns(columns: dict[str, np.ndarray], rows: slice, block: Fi
     if held is None:
         return
     shared = held.shared[lo:hi]
-    has = np.not_equal(shared, None)
+    has = held.present[lo:hi]
     ids = np.full(hi - lo, None, dtype=object)
-    ids[has] = [number[id(b)] for b in shared[has]]
+    ids[has] = [number[id(b)] for b in shared[has].tolist()]
     columns["budget"][rows] = ids
     columns["combined_uncertainty_db"][rows] = held.combined_db[lo:hi]
     for k in range(min(held.snr_db.shape[1], NOISE_SLOTS)):

@@ -36,7 +36,7 @@ def widest_budgets(run: RunFigures) -> list[Figure]:
             continue
         if part.name not in HEADLINE_FIGURES or part.budgets is None:
             continue
-        rows = np.flatnonzero(np.not_equal(part.budgets.shared, None))
+        rows = np.flatnonzero(part.budgets.present)
         if not rows.size:
             continue
         us = part.uncertainty_db[rows]
