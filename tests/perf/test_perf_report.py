@@ -96,6 +96,18 @@ made in the helper). 100k points, median of 3 (load average up to 1.8 on 2 cores
 1M points, one run each: 149.0 s, 6,105 MB before; 133.1 s, 5,085 MB + 250 MB after. The
 report now waits about 2.3 s at its end for the helper (printed): the figure table's CSV
 text (2.8 s for 700k rows) is the helper's tail.
+
+Judgements held as columns and joined by position (``sweeprig.analysis.judged_blocks``), the
+readings read half by a child process (``sweeprig.store.side_reader``), plots and figure
+tables read from columns, every other figure slice's CSV text made by the report once it
+waits. Measured on a machine about 2.2 times slower than the one above (its probe: 49 ns a
+loop step against 22), the versions interleaved on one store: 100k points, median of 3,
+23.5 s, 705 MB + 228 MB before; 20.8 s, 674 MB + 230 MB after (then 20.4 s with the budget
+mask made once); every report file the same bytes. 1M points, one run each: 225.4 s,
+5,134 MB + 241 MB before; 198.8 s, 4,724 MB + 246 MB after, the same bytes. Where the write
+phase goes now: the report process' interpreter lock (its main thread and the thread making
+the figure slices share it) is the bottleneck; when the report starts waiting, about half of
+the figure slices are still to be made.
 """
 
 from __future__ import annotations
