@@ -174,8 +174,8 @@ def _extended(distinct: Sequence[Mapping[str, float | int | str]],
         lo, rf = c.get("lo_freq_hz"), c.get("rf_freq_hz")
         if OUTPUT_FREQ in c or not isinstance(lo, float | int) or not isinstance(rf, float | int):
             continue
-        copy = getattr(c, "copy", None)  # (a mapping proxy's or dict's: copied in C)
-        grown = dict(copy()) if copy is not None else {**c}
+        # (a mapping proxy's or dict's own copy, made in C: a new dict of the same order)
+        grown = c.copy() if isinstance(c, MappingProxyType | dict) else dict(c)
         grown[OUTPUT_FREQ] = float(abs(m * lo + n * rf))
         extended[i] = MappingProxyType(grown)
     return extended

@@ -34,21 +34,22 @@ from sweeprig.analysis.budget_parts import FigureBudget, SharedBudget
 from sweeprig.analysis.figures import (
     BOUND_ABOVE,
     BOUND_BELOW,
+    BOUND_CODES,
     BOUND_NONE,
+    BOUND_SYMBOLS,
     Figure,
     collector_paused,
     flag_marked_points,
     flags_from_mask,
     mark_bits,
     new_figure,
+    read_only_conditions,
 )
 from sweeprig.analysis.held_parts import HeldParts
 
 #: The fewest figures of one name (from one analysis) held as a block.
 BLOCK_MIN_FIGURES = 512
 
-_SYMBOLS = {BOUND_NONE: None, BOUND_BELOW: "<", BOUND_ABOVE: ">"}
-_CODES = {None: BOUND_NONE, "<": BOUND_BELOW, ">": BOUND_ABOVE}
 
 
 @dataclass(frozen=True, eq=False)
@@ -127,7 +128,7 @@ class FigureBlock:
         uncertainty = self.uncertainty_db[start:stop].tolist()
         flag_sets = {m: flags_from_mask(m) for m in set(masks)}
         held = self.budgets if budgets else None
-        name, unit, symbols = self.name, self.unit, _SYMBOLS
+        name, unit, symbols = self.name, self.unit, BOUND_SYMBOLS
         out: list[Figure] = []
         append = out.append
         with collector_paused():
@@ -158,11 +159,6 @@ class Figures(HeldParts[Figure]):
     def _made(block: FigureBlock, lo: int, hi: int) -> list[Figure]:
         return block.figures(lo, hi)
 
-    @property
-    def parts(self) -> tuple[Part, ...]:
-        """The blocks and tuples of figures, in order."""
-        return self._parts
-
     def named(self, names: Iterable[str], *, budgets: bool = True
               ) -> tuple[list[int], list[Figure]]:
         """The positions and figures of every figure called any of ``names``, in order
@@ -171,8 +167,7 @@ class Figures(HeldParts[Figure]):
         wanted = frozenset(names)
         positions: list[int] = []
         figures: list[Figure] = []
-        for k, part in enumerate(self._parts):
-            first = self._starts[k]
+        for part, first, _lo, _hi in self.spans(0, len(self)):
             if isinstance(part, FigureBlock):
                 if part.name in wanted:
                     positions += range(first, first + len(part))
@@ -229,7 +224,7 @@ def block_of(figures: Sequence[Figure]) -> FigureBlock:
     return FigureBlock(
         first.name, first.unit,
         np.array([f.value for f in figures], dtype=float),
-        np.array([_CODES[f.bound] for f in figures], dtype=np.int8),
+        np.array([BOUND_CODES[f.bound] for f in figures], dtype=np.int8),
         flag_masks(figures),
         conditions,
         np.array([f.points[0] for f in figures], dtype=np.int64),
@@ -352,8 +347,6 @@ def block_maker(blockable: Callable[[str], bool] | None = None
     are at least :data:`BLOCK_MIN_FIGURES` and of a name ``blockable`` allows, else the
     figures as ``make_figures`` gives them: what an analysis is given by the reduction, so
     that a large run's figures are never made one by one."""
-    from types import MappingProxyType
-
     from sweeprig.analysis.figures import make_figures
 
     def make(name: str, unit: str, value: Sequence[float] | np.ndarray,
@@ -368,9 +361,8 @@ def block_maker(blockable: Callable[[str], bool] | None = None
                 or (blockable is not None and not blockable(name))
                 or set(map(len, points)) != {1}):
             return list(make_figures(name, unit, value, bound, flag_mask, conditions, points))
-        proxy = MappingProxyType
         mappings = np.empty(count, dtype=object)
-        mappings[:] = [c if type(c) is proxy else proxy(dict(c)) for c in conditions]
+        mappings[:] = read_only_conditions(conditions)
         return [FigureBlock(
             name, unit, values.copy(),
             np.broadcast_to(np.asarray(bound, dtype=np.int8), (count,)).copy(),

@@ -551,16 +551,24 @@ def with_uncertainty(figure: Figure, uncertainty_db: float, budget: FigureBudget
                       figure.flags, figure.points, uncertainty_db, budget)
 
 
+#: Bound code → its symbol (None: a number), and back.
+BOUND_SYMBOLS: Mapping[int, Bound] = MappingProxyType(
+    {BOUND_NONE: None, BOUND_BELOW: "<", BOUND_ABOVE: ">"})
+BOUND_CODES: Mapping[Bound, int] = MappingProxyType(
+    {symbol: code for code, symbol in BOUND_SYMBOLS.items()})
+
+
 def bound_symbol(code: int) -> Bound:
     """Bound code (:data:`BOUND_BELOW`, :data:`BOUND_NONE`, :data:`BOUND_ABOVE`) → symbol."""
-    if code == BOUND_BELOW:
-        return "<"
-    if code == BOUND_ABOVE:
-        return ">"
-    return None
+    return BOUND_SYMBOLS.get(code)
 
 
-_SYMBOLS: dict[int, Bound] = {BOUND_NONE: None, BOUND_BELOW: "<", BOUND_ABOVE: ">"}
+def read_only_conditions(conditions: Iterable[Mapping[str, float | int | str]]
+                         ) -> list[Mapping[str, float | int | str]]:
+    """Each conditions mapping as a read-only one: a mapping proxy as it is (so the figures
+    of one point go on sharing theirs), any other mapping copied into a new proxy."""
+    proxy = MappingProxyType
+    return [c if type(c) is proxy else proxy(dict(c)) for c in conditions]
 
 
 def make_figures(
@@ -582,14 +590,13 @@ def make_figures(
     bounds = np.broadcast_to(np.asarray(bound, dtype=np.int64), (count,))
     masks = np.broadcast_to(np.asarray(flag_mask, dtype=np.int64), (count,))
     empty: Mapping[str, float | int | str] = MappingProxyType({})
-    proxy = MappingProxyType
     conds: Iterable[Mapping[str, float | int | str]] = (
-        [c if type(c) is proxy else proxy(dict(c)) for c in conditions]
+        read_only_conditions(conditions)
         if conditions is not None
         else [empty] * count
     )
     pts: Iterable[tuple[int, ...]] = points if points is not None else [()] * count
-    symbols = _SYMBOLS
+    symbols = BOUND_SYMBOLS
     mask_list = masks.tolist()
     flag_sets = {m: flags_from_mask(m) for m in set(mask_list)}
     nan = math.nan

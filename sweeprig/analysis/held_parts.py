@@ -45,6 +45,11 @@ class HeldParts(Sequence[T], Generic[T]):
             starts.append(starts[-1] + len(part))
         self._starts = starts
 
+    @property
+    def parts(self) -> tuple[Any, ...]:
+        """The blocks and tuples of items, in order."""
+        return self._parts
+
     @staticmethod
     def _made(block: Any, lo: int, hi: int) -> list[T]:
         """The items ``lo`` to ``hi`` of ``block``, made."""

@@ -44,6 +44,7 @@ from sweeprig.analysis.limits import (
     Judgement,
     Limit,
     Verdict,
+    _edge_text,
     _judge,
     _matches,
     judgement_reason,
@@ -124,8 +125,9 @@ class JudgedBlock:
         # per edge, whether each plain number meets it, and the words after the value
         met = [(value[at] >= edge if lower else value[at] <= edge).tolist()
                for edge, lower in edges]
-        tails = [(f" misses {'min' if lower else 'max'} {edge:g}",
-                  f" meets {'min' if lower else 'max'} {edge:g}") for edge, lower in edges]
+        # (the words after the value, as judgement_reason writes them: one wording)
+        tails = [(_edge_text("", None, edge, lower, FAIL), _edge_text("", None, edge, lower, PASS))
+                 for edge, lower in edges]
         for k, (i, v) in enumerate(zip(at.tolist(), value[at].tolist(), strict=True)):
             text = f"{v:.3f} {unit}"
             passed = codes[i] == _PASS  # (else failed: a plain number is never between)
@@ -312,7 +314,6 @@ class JudgedGroup:
         return int(self.positions[pool[np.argmin(self.margins[pool])]])
 
 
-Part = JudgedBlock | tuple[Judgement, ...]
 
 
 class Judgements(HeldParts[Judgement]):
@@ -332,11 +333,6 @@ class Judgements(HeldParts[Judgement]):
     @staticmethod
     def _made(block: JudgedBlock, lo: int, hi: int) -> list[Judgement]:
         return block.judgements(lo, hi)
-
-    @property
-    def parts(self) -> tuple[Part, ...]:
-        """The judged blocks and tuples of judgements, in order."""
-        return self._parts
 
     def table(self) -> JudgementTable:
         """Every judgement as a row of columns (made once)."""
