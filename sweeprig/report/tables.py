@@ -1000,6 +1000,7 @@ def open_tables(captures: pd.DataFrame, folder: Path, formats: Sequence[str] | N
     (:data:`~sweeprig.report.table_writing.HELPER_CAPTURE_ROWS`; ``helper`` forces one way)
     a helper process on the other core writes them while the caller goes on
     (:mod:`sweeprig.report.table_writing`); else each is written when given."""
+    from sweeprig.analysis.load import captures_as_written
     from sweeprig.parquet import parquet_available, require_parquet
 
     # (read at the call: the module's values, which tests set)
@@ -1022,14 +1023,17 @@ def open_tables(captures: pd.DataFrame, folder: Path, formats: Sequence[str] | N
                 import pyarrow as pa
 
                 # from the whole table: a slice whose cells are all empty would not say
-                schema = pa.Schema.from_pandas(captures, preserve_index=False)
+                schema = pa.Schema.from_pandas(captures_as_written(captures),
+                                               preserve_index=False)
             # a frame of its own (the same columns) for a thread to slice while the figures
-            # are made from the other
+            # are made from the other; each slice's categorical text columns made text
+            # where it is written (the helper's core, for a large run)
             own = captures.copy(deep=False)
             step = CAPTURE_SLICE_ROWS
             writing.add(TableJob(
                 {fmt: folder / f"captures.{fmt}" for fmt in formats},
-                (own.iloc[i:i + step] for i in range(0, max(len(own), 1), step)), schema))
+                (own.iloc[i:i + step] for i in range(0, max(len(own), 1), step)), schema,
+                finish=captures_as_written))
         yield writing
 
 

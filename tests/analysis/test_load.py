@@ -11,7 +11,13 @@ import pytest
 
 from sweeprig.analysis import captures as cap
 from sweeprig.analysis import conversion_gain_figures, intercept_figures, spur_figures
-from sweeprig.analysis.load import CAPTURE_COLUMNS, captures_from_frames, load_captures
+from sweeprig.analysis.load import (
+    CAPTURE_COLUMNS,
+    TEXT_CAPTURE_COLUMNS,
+    captures_as_written,
+    captures_from_frames,
+    load_captures,
+)
 from sweeprig.errors import StoreError
 from sweeprig.store import PointRecord, ReadingRecord, SqliteRunStore
 
@@ -94,6 +100,24 @@ def test_every_kind_maps_to_the_capture_vocabulary(store):
         (3, "if", False), (3, "spur", False),
     }
     assert set(c["reading"]) <= set(cap.READINGS)
+
+
+def test_text_columns_are_held_as_codes_and_written_as_text(store):
+    """A few distinct texts over every reading: categoricals in memory (a byte a row), plain
+    text in the files (:func:`captures_as_written`), the same texts either way."""
+    db, run = store
+    c = load_captures(db, run)
+    for col in TEXT_CAPTURE_COLUMNS:
+        assert isinstance(c[col].dtype, pd.CategoricalDtype), col
+    written = captures_as_written(c)
+    assert list(written.columns) == list(c.columns)
+    for col in TEXT_CAPTURE_COLUMNS:
+        assert not isinstance(written[col].dtype, pd.CategoricalDtype), col
+        assert written[col].tolist() == c[col].tolist()
+        assert all(isinstance(v, str) for v in written[col]), col
+    assert written.drop(columns=list(TEXT_CAPTURE_COLUMNS)).equals(
+        c.drop(columns=list(TEXT_CAPTURE_COLUMNS)))
+    assert captures_as_written(written) is written  # text already: nothing to do
 
 
 def test_values_and_traceability_columns(store):

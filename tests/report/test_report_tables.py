@@ -8,10 +8,12 @@ import math
 
 import numpy as np
 import pandas as pd
+import pyarrow as pa
 import pytest
 
 from sweeprig.analysis.figures import Figure
 from sweeprig.analysis.limits import Limit
+from sweeprig.analysis.load import TEXT_CAPTURE_COLUMNS
 from sweeprig.report.budget_tables import BUDGET_INTEGER_COLUMNS
 from sweeprig.report.tables import (
     FIGURE_COLUMNS,
@@ -52,6 +54,15 @@ def test_csv_and_parquet_tables_agree(report_run, report_files):
         parquet = pd.read_parquet(report_files.folder / f"{stem}.parquet")
         assert list(csv.columns) == list(parquet.columns)
         assert len(csv) == len(parquet)
+    # the capture table's categorical text columns are plain text in both files
+    import pyarrow.parquet as pq
+
+    schema = pq.read_schema(report_files.folder / "captures.parquet")
+    for name in TEXT_CAPTURE_COLUMNS:
+        assert pa.types.is_string(schema.field(name).type) or \
+            pa.types.is_large_string(schema.field(name).type), (name, schema.field(name).type)
+    parquet = pd.read_parquet(report_files.folder / "captures.parquet")
+    assert parquet["study"].tolist() == report_run.captures["study"].tolist()
     figures = figures_frame(report_run)
     assert len(figures) == len(report_run.figures)
     bounds = figures[figures["bound"] != ""]

@@ -45,6 +45,25 @@ def test_the_helper_writes_the_same_files_as_this_process(report_run, tmp_path, 
     assert len(figures) == len(report_run.figures)
 
 
+def test_categorical_text_columns_are_written_as_their_texts(report_run, tmp_path,
+                                                         monkeypatch):
+    """The capture table holds its text columns as categoricals; its files are the same
+    bytes as those of the same table held as text (CSV and Parquet, here and helped)."""
+    from dataclasses import replace
+
+    from sweeprig.analysis.load import TEXT_CAPTURE_COLUMNS, captures_as_written
+
+    monkeypatch.setattr(table_writing, "CAPTURE_SLICE_ROWS", 31)
+    assert all(isinstance(report_run.captures[c].dtype, pd.CategoricalDtype)
+               for c in TEXT_CAPTURE_COLUMNS)
+    as_text = replace(report_run, captures=captures_as_written(report_run.captures))
+    reference = _written(as_text, tmp_path / "text", helper=False)
+    for helper in (False, True):
+        written = _written(report_run, tmp_path / f"codes{helper}", helper=helper)
+        for name in NAMES:
+            assert written[name] == reference[name], (name, helper)
+
+
 def test_slices_finished_here_once_this_process_waits_are_the_same(report_run, tmp_path,
                                                                    monkeypatch):
     """Once the report process only waits for its tables, it finishes their slices' text
