@@ -159,6 +159,15 @@ class Figures(HeldParts[Figure]):
     def _made(block: FigureBlock, lo: int, hi: int) -> list[Figure]:
         return block.figures(lo, hi)
 
+    def figure_at(self, position: int, *, budgets: bool = True) -> Figure:
+        """The figure at ``position`` (``budgets=False``: a block's made without its
+        budget, as :meth:`named` makes it; a loose figure is itself either way)."""
+        for part, _first, lo, _hi in self.spans(position, position + 1):
+            if isinstance(part, FigureBlock):
+                return part.figures(lo, lo + 1, budgets=budgets)[0]
+            return part[lo]  # type: ignore[no-any-return]
+        raise IndexError(f"figure index {position} out of range")
+
     def named(self, names: Iterable[str], *, budgets: bool = True
               ) -> tuple[list[int], list[Figure]]:
         """The positions and figures of every figure called any of ``names``, in order

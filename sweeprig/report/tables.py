@@ -19,7 +19,6 @@ conditions, flag badges and their explanations).
 
 from __future__ import annotations
 
-import bisect
 import contextlib
 import json
 import math
@@ -35,6 +34,7 @@ import numpy as np
 import pandas as pd
 
 from sweeprig import __version__
+from sweeprig.analysis.figure_groups import HeldGroup
 from sweeprig.analysis.figures import (
     FIGURE_CATALOGUE,
     FLAG_MEANINGS,
@@ -338,55 +338,44 @@ GROUP_KEYS: tuple[str, ...] = ("study", "temperature_c", "supply_v")
 def summary_rows(run: RunFigures, by: Sequence[str] = GROUP_KEYS) -> list[SummaryRow]:
     """The summary table (see the module docstring), headline figures first in
     :data:`HEADLINE_FIGURES` order, then any other figure a limit names. ``by``: the
-    conditions that make a group (``("study",)`` merges temperatures and supplies)."""
+    conditions that make a group (``("study",)`` merges temperatures and supplies).
+
+    Each group is read from columns (:func:`~sweeprig.analysis.figure_groups.held_groups`):
+    only the figure a line shows is made."""
+    from sweeprig.analysis.figure_groups import held_groups
+
     limited = [limit.name for limit in run.limits]
     names = list(HEADLINE_FIGURES) + [n for n in dict.fromkeys(limited)
                                       if n not in HEADLINE_FIGURES]
-    by_name: dict[str, list[tuple[int, Figure]]] = {}
-    # (the summary never reads a budget: a block's figures are made without theirs)
-    for position, figure in zip(*run.figures.named(names, budgets=False), strict=True):
-        by_name.setdefault(figure.name, []).append((position, figure))
     judgements = run.assessment.judgements
-    rows: list[SummaryRow] = []
-    # figures of one point share their conditions mapping: its group key is made once
-    group_of: dict[int, tuple[object, ...]] = {}
-    for name in names:
-        groups: dict[tuple[object, ...], list[tuple[int, Figure]]] = {}
-        for position, figure in by_name.get(name, []):
-            c = figure.conditions
-            key = group_of.get(id(c))
-            if key is None:
-                key = group_of[id(c)] = tuple(c.get(k) for k in by)
-            groups.setdefault(key, []).append((position, figure))
-        for held in groups.values():
-            positions = [p for p, _ in held]
-            judged = judgements.of_positions(np.array(positions, dtype=np.int64))
-            rows.append(_summary_row(name, [f for _, f in held], positions, judged,
-                                     run.limits, tuple(by), run.conversion))
-    return rows
+    return [_summary_row(group, judgements.of_positions(group.positions), run.limits,
+                         tuple(by), run.conversion)
+            for group in held_groups(run.figures, names, by)]
 
 
-def _summary_row(
-    name: str, members: list[Figure], positions: list[int], judged: JudgedGroup,
-    limits: Sequence[Limit], by: tuple[str, ...], conversion: str = "down",
-) -> SummaryRow:
+def _summary_row(group: HeldGroup, judged: JudgedGroup, limits: Sequence[Limit],
+                 by: tuple[str, ...], conversion: str = "down") -> SummaryRow:
+    name = group.name
     verdict = judged.verdict or NO_LIMIT
-    shown, shown_at = _worst(name, members, positions, judged)
-    numbers = [f.value for f in members if math.isfinite(f.value)]
-    unit = members[0].unit
+    shown_k = _worst(name, group, judged)
+    shown = group.figure(shown_k)
+    count = len(group)
+    finite = np.isfinite(group.values)
+    unit = group.unit
     range_text = ""
-    if len(members) > 1 and numbers:
-        low, high = min(numbers), max(numbers)
+    if count > 1 and finite.any():
+        numbers = group.values[finite]
+        low, high = float(numbers.min()), float(numbers.max())
         range_text = f"{format_value(low, unit)} … {format_value(high, unit)}"
-    first = members[0].conditions
+    first = group.conditions[0]
     fixed = {k: first[k] for k in by if k in first and k != "study"}
-    if len(members) == 1:
+    if count == 1:
         text = conditions_text(shown.conditions, skip=("study",), conversion=conversion)
     else:
         text = conditions_text(fixed, conversion=conversion)
-        spread = _spread_text(members, by, conversion)
+        spread = _spread_text(group.mappings, by, conversion)
         if spread:
-            text += f"; {len(members)} figures over {spread}"
+            text += f"; {count} figures over {spread}"
         if name in ("spur_dbc", "spur_dbm"):
             c = shown.conditions
             where = f" at {format_frequency(float(c['freq_hz']))}" if "freq_hz" in c else ""
@@ -395,13 +384,12 @@ def _summary_row(
     applying = limit_texts(judged.limits)
     if not applying:
         applying = [limit_text(li) for li in limits if li.name == name and not li.conditions]
-    counts = flag_tally(members)
+    counts = group.flag_counts()
     flags = tuple((f, counts[f]) for f in FLAGS if f in counts)
     value_text = figure_text(shown, 2)
-    if len(members) > 1 and (name in HIGHER_IS_BETTER or name in LOWER_IS_BETTER
-                             or len(judged)):
+    if count > 1 and (name in HIGHER_IS_BETTER or name in LOWER_IS_BETTER or len(judged)):
         value_text = f"worst {value_text}"
-    elif len(members) > 1 and range_text:
+    elif count > 1 and range_text:
         value_text = range_text
     return SummaryRow(
         name=name,
@@ -413,10 +401,10 @@ def _summary_row(
         limit_text="; ".join(applying),
         verdict=verdict,
         flags=flags,
-        count=len(members),
+        count=count,
         figure=shown,
         points=shown.points,
-        position=shown_at,
+        position=int(group.positions[shown_k]),
     )
 
 
@@ -432,12 +420,13 @@ def flag_tally(figures: Iterable[Figure]) -> dict[str, int]:
     return counts
 
 
-def _spread_text(members: list[Figure], by: tuple[str, ...], conversion: str = "down") -> str:
-    """The conditions that vary inside a group, as ranges: ``RF 1.7 GHz–2.7 GHz``."""
-    from sweeprig.analysis.figure_table import condition_mappings, condition_numbers
+def _spread_text(mappings: Sequence[Mapping[str, object]], by: tuple[str, ...],
+                 conversion: str = "down") -> str:
+    """The conditions that vary inside a group (``mappings``: its distinct conditions
+    mappings), as ranges: ``RF 1.7 GHz–2.7 GHz``."""
+    from sweeprig.analysis.figure_table import condition_numbers
 
     parts = []
-    mappings = condition_mappings(members)
     keys = [k for k in ("temperature_c", "supply_v") if k not in by]
     for key in (*keys, "rf_freq_hz", "output_freq_hz", "lo_freq_hz", "lo_power_dbm",
                 "rf_power_dbm"):
@@ -456,26 +445,21 @@ def _spread_text(members: list[Figure], by: tuple[str, ...], conversion: str = "
     return ", ".join(parts)
 
 
-def _worst(name: str, members: list[Figure], positions: list[int],
-           judged: JudgedGroup) -> tuple[Figure, int]:
-    """The figure to show for a group, and its position: the most failing, else the
-    closest to its limit (:meth:`~sweeprig.analysis.judged_blocks.JudgedGroup.shown_position`),
-    else the worst by the figure's better direction, else the first. ``positions``: the
-    members' positions, ascending."""
+def _worst(name: str, group: HeldGroup, judged: JudgedGroup) -> int:
+    """The member to show for a group (its index): the most failing, else the closest to
+    its limit (:meth:`~sweeprig.analysis.judged_blocks.JudgedGroup.shown_position`), else
+    the worst by the figure's better direction (the first of equals), else the first."""
     at = judged.shown_position()
     if at is not None:
-        i = bisect.bisect_left(positions, at)
-        return members[i], at
-    finite = [i for i, f in enumerate(members) if math.isfinite(f.value)]
-    if not finite:
-        return members[0], positions[0]
+        return int(np.searchsorted(group.positions, at))
+    finite = np.flatnonzero(np.isfinite(group.values))
+    if not finite.size:
+        return 0
     if name in HIGHER_IS_BETTER:
-        i = min(finite, key=lambda k: members[k].value)
-    elif name in LOWER_IS_BETTER:
-        i = max(finite, key=lambda k: members[k].value)
-    else:
-        i = finite[0]
-    return members[i], positions[i]
+        return int(finite[np.argmin(group.values[finite])])
+    if name in LOWER_IS_BETTER:
+        return int(finite[np.argmax(group.values[finite])])
+    return int(finite[0])
 
 
 # ---------------------------------------------------------------------------------------------
