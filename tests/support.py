@@ -90,3 +90,21 @@ def aborting_run_files(folder: Path, sequence_text: str) -> tuple[Path, Path]:
     sim_bench = folder / "faulty.toml"
     sim_bench.write_text(FAULTY_SIM_BENCH, encoding="utf-8")
     return sequence, sim_bench
+
+
+def run_of_figures(figures):
+    """A complete simulated run holding only ``figures`` (no limits, captures or studies):
+    for the report's readers of figures."""
+    from datetime import UTC, datetime
+
+    from sweeprig.analysis.limits import assess
+    from sweeprig.analysis.reduce import RunFigures
+
+    return RunFigures(
+        run_id=1, title="t", part="KX-2417", serial="s", operator="o", state="complete",
+        status="complete", reason=None, simulated=True, created=datetime.now(UTC),
+        finished=None, points_done=1, points_total=1, sequence_path="s.toml",
+        sequence_sha256="", sequence_sha256_ok=True, bench_path=None, bench_sha256=None,
+        instruments=(), duration_sim_s=None, duration_wall_s=None, figures=figures, limits=(),
+        assessment=assess(figures, ()), verdict="inconclusive", studies=(), conditions={},
+        events=(), notes=(), captures=None)  # type: ignore[arg-type]

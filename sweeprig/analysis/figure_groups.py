@@ -13,7 +13,7 @@ arrays, read from the blocks' columns; the one figure a line shows is made by
 
 from __future__ import annotations
 
-from collections.abc import Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -27,9 +27,12 @@ from sweeprig.analysis.figures import Figure, flags_from_mask
 class HeldGroup:
     """The figures of one name whose conditions give one group key, in position order:
     ``positions`` (their numbers in the run's figure table, ascending, int64), ``values``
-    (float), ``masks`` (flag masks, int64), ``conditions`` (each one's mapping, object) and
-    ``mappings`` (the distinct ones, by identity, in order of first appearance: the figures
-    of one point share one). ``unit``: the first member's."""
+    (float), ``bounds`` ("", "<" or ">"), ``uncertainty_db`` (float, the figure's unit),
+    ``masks`` (flag masks, int64), ``points`` (each one's run-store point tuple, object),
+    ``conditions`` (each one's mapping, object), ``mappings`` (the distinct ones, by
+    identity, in order of first appearance: the figures of one point share one) and
+    ``mapping_of`` (each one's index among ``mappings``, int64). ``unit``: the first
+    member's."""
 
     figures: Figures
     name: str
@@ -37,9 +40,13 @@ class HeldGroup:
     unit: str
     positions: np.ndarray
     values: np.ndarray
+    bounds: np.ndarray
+    uncertainty_db: np.ndarray
     masks: np.ndarray
+    points: np.ndarray
     conditions: np.ndarray
     mappings: tuple[Mapping[str, object], ...]
+    mapping_of: np.ndarray
 
     def __len__(self) -> int:
         return int(self.positions.size)
@@ -60,19 +67,22 @@ class HeldGroup:
         return counts
 
 
-def held_groups(figures: Figures, names: Sequence[str], by: Sequence[str]
+def held_groups(figures: Figures, names: Sequence[str], by: Sequence[str] = (), *,
+                key: Callable[[Mapping[str, object]], tuple[object, ...]] | None = None
                 ) -> list[HeldGroup]:
     """The figures called any of ``names`` grouped by name and by the values of the
     condition keys ``by`` (``None`` where a figure's conditions lack one; groups compare as
-    tuples of those values): names in ``names`` order, each name's groups in order of their
-    first figure. No figure is made (a block's columns are read)."""
+    tuples of those values), or by ``key`` of their conditions mapping when given: names
+    in ``names`` order, each name's groups in order of their first figure. No figure is
+    made (a block's columns are read); the key is worked out once per distinct mapping."""
     positions, columns, conditions = named_columns(figures, names)
     if not positions.size:
         return []
     mappings, which = distinct_mappings(conditions)
     keys: dict[tuple[object, ...], int] = {}
     key_of = np.fromiter(
-        (keys.setdefault(tuple(map(c.get, by)), len(keys)) for c in mappings),
+        (keys.setdefault(tuple(map(c.get, by)) if key is None else key(c), len(keys))
+         for c in mappings),
         dtype=np.int64, count=len(mappings))
     rank = {name: i for i, name in enumerate(dict.fromkeys(names))}
     name_rank = np.fromiter(map(rank.__getitem__, columns["name"].tolist()), dtype=np.int64,
@@ -82,23 +92,31 @@ def held_groups(figures: Figures, names: Sequence[str], by: Sequence[str]
     # names in their given order, each name's groups by their first figure
     order = np.lexsort((first, distinct // len(keys)))
     members = np.argsort(inverse.ravel(), kind="stable")
-    bounds = np.concatenate(([0], np.cumsum(np.bincount(inverse.ravel(),
-                                                        minlength=distinct.size))))
+    ends = np.concatenate(([0], np.cumsum(np.bincount(inverse.ravel(),
+                                                      minlength=distinct.size))))
     key_list = list(keys)
-    units, values, masks = columns["unit"], columns["value"], columns["flags"]
+    units = columns["unit"]
     out: list[HeldGroup] = []
     for g in order.tolist():
-        at = members[bounds[g]:bounds[g + 1]]
-        own, seen = np.unique(which[at], return_index=True)
+        at = members[ends[g]:ends[g + 1]]
+        # the group's distinct mappings in order of first appearance, and each member's
+        own, seen, local = np.unique(which[at], return_index=True, return_inverse=True)
+        by_appearance = np.argsort(seen, kind="stable")
+        rank = np.empty_like(by_appearance)
+        rank[by_appearance] = np.arange(by_appearance.size)
         out.append(HeldGroup(
             figures=figures,
             name=str(columns["name"][at[0]]),
             key=key_list[int(distinct[g] % len(keys))],
             unit=str(units[at[0]]),
             positions=positions[at],
-            values=values[at],
-            masks=masks[at],
+            values=columns["value"][at],
+            bounds=columns["bound"][at],
+            uncertainty_db=columns["uncertainty_db"][at],
+            masks=columns["flags"][at],
+            points=columns["points"][at],
             conditions=conditions[at],
-            mappings=tuple(mappings[j] for j in own[np.argsort(seen)].tolist()),
+            mappings=tuple(mappings[j] for j in own[by_appearance].tolist()),
+            mapping_of=rank[local.ravel()],
         ))
     return out

@@ -215,13 +215,6 @@ def distinct_mappings(mappings: Sequence[Mapping[str, object]]
     return [mappings[i] for i in first[order].tolist()], rank[inverse.ravel()]
 
 
-def condition_mappings(figures: Iterable[Figure]) -> list[Mapping[str, object]]:
-    """The distinct conditions mappings (by identity) of ``figures``, in order of first
-    appearance: what a question about the set of condition values needs to read (the
-    figures of one point share one mapping)."""
-    return list({id(f.conditions): f.conditions for f in figures}.values())
-
-
 def condition_numbers(mappings: Iterable[Mapping[str, object]], key: str, *,
                       finite: bool = True) -> list[float]:
     """The distinct numeric values of ``key`` in ``mappings``, ascending, as floats (a

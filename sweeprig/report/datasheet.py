@@ -32,6 +32,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from sweeprig.analysis.figure_groups import HeldGroup
 from sweeprig.analysis.figures import FLAGS, Figure
 from sweeprig.analysis.judged_blocks import JudgedGroup
 from sweeprig.analysis.reduce import RunFigures
@@ -39,7 +40,6 @@ from sweeprig.report.tables import (
     HEADLINE_FIGURES,
     NO_LIMIT,
     figure_label,
-    flag_tally,
     format_condition,
     limit_text,
     limit_texts,
@@ -63,8 +63,8 @@ _DIGITS = {"dB/°C": 4, "dB/dB": 3, "mA": 1, "mW": 1}
 class DatasheetRow:
     """One line of the electrical-characteristics table (see the module docstring).
 
-    ``values``: the figures the row is computed from (after the per-point reduction of
-    spurs); ``minimum``/``maximum``: the figures holding the extremes; ``typical``: the
+    ``count``: how many figures the row is computed from (after the per-point reduction
+    of spurs); ``minimum``/``maximum``: the figures holding the extremes; ``typical``: the
     median at the nominal corner (NaN when none); ``uncertainty``: the largest expanded
     uncertainty (figure unit, NaN when none); ``judged``: verdict → number of figures;
     ``flags``: (flag name, number of figures carrying it)."""
@@ -74,7 +74,7 @@ class DatasheetRow:
     study: str
     conditions_text: str
     unit: str
-    values: tuple[Figure, ...]
+    count: int
     minimum: Figure | None
     typical: float
     maximum: Figure | None
@@ -132,86 +132,93 @@ class DatasheetRow:
 
 def datasheet_rows(run: RunFigures) -> list[DatasheetRow]:
     """The table of ``run``: headline figures in :data:`HEADLINE_FIGURES` order, then any
-    other figure a limit names; within a figure, studies in run order."""
+    other figure a limit names; within a figure, studies in run order. Each row is read
+    from its figures' columns (:func:`~sweeprig.analysis.figure_groups.held_groups`): only
+    the figures holding its extremes are made."""
+    from sweeprig.analysis.figure_groups import held_groups
+
     names = list(HEADLINE_FIGURES) + [n for n in dict.fromkeys(li.name for li in run.limits)
                                       if n not in HEADLINE_FIGURES]
-    wanted = frozenset(names)
-    groups: dict[tuple[str, str], list[Figure]] = {}
-    positions: dict[tuple[str, str], list[int]] = {}
-    # (the datasheet never reads a budget: a block's figures are made without theirs)
-    for position, figure in zip(*run.figures.named(wanted, budgets=False), strict=True):
-        key = (figure.name, str(figure.conditions.get("study", "")))
-        groups.setdefault(key, []).append(figure)
-        positions.setdefault(key, []).append(position)
     order = {s.name: i for i, s in enumerate(run.studies)}
-    keys = sorted(groups, key=lambda k: (names.index(k[0]), order.get(k[1], len(order)), k[1]))
+    groups = sorted(held_groups(run.figures, names, key=_study_key),
+                    key=lambda g: (names.index(g.name), order.get(str(g.key[0]), len(order)),
+                                   str(g.key[0])))
     judgements = run.assessment.judgements
-    return [_row(name, study, groups[(name, study)],
-                 judgements.of_positions(np.array(positions[(name, study)], dtype=np.int64)),
-                 run) for name, study in keys]
+    return [_row(group, judgements.of_positions(group.positions), run) for group in groups]
 
 
-def corner_figures(name: str, figures: Sequence[Figure]) -> list[Figure]:
-    """The figures a row's min / typ / max are taken over: ``figures`` as they are, except
-    for :data:`PER_POINT_WORST` figures, reduced to the largest value per run-store point."""
+def _study_key(conditions: Mapping[str, object]) -> tuple[str]:
+    """A row's group: its study, as text ("" when the conditions name none)."""
+    return (str(conditions.get("study", "")),)
+
+
+def corner_rows(name: str, group: HeldGroup) -> np.ndarray:
+    """The members (their indices, int64) a row's min / typ / max are taken over: all of
+    them, except for :data:`PER_POINT_WORST` figures: the largest finite value of each
+    run-store point (the first of equals), in order of each point's first member."""
     if name not in PER_POINT_WORST:
-        return list(figures)
-    worst: dict[tuple[int, ...], Figure] = {}
-    for figure in figures:
-        if not math.isfinite(figure.value):
+        return np.arange(len(group), dtype=np.int64)
+    values = group.values.tolist()
+    worst: dict[tuple[int, ...], int] = {}
+    for k, (points, value) in enumerate(zip(group.points.tolist(), values, strict=True)):
+        if not math.isfinite(value):
             continue
-        held = worst.get(figure.points)
-        if held is None or figure.value > held.value:
-            worst[figure.points] = figure
-    return list(worst.values())
+        held = worst.get(points)
+        if held is None or value > values[held]:
+            worst[points] = k
+    return np.array(list(worst.values()), dtype=np.int64)
 
 
-def nominal(figures: Sequence[Figure]) -> list[Figure]:
-    """The figures at the nominal corner: temperature nearest :data:`ROOM_C`, the middle
-    supply and the middle LO drive of those present (lower middle of an even count)."""
-    from sweeprig.analysis.figure_table import condition_mappings, condition_numbers
+def nominal_rows(group: HeldGroup, rows: np.ndarray) -> np.ndarray:
+    """Those of the members ``rows`` at the nominal corner: temperature nearest
+    :data:`ROOM_C`, the middle supply and the middle LO drive of those present (lower middle
+    of an even count), each decided once per distinct conditions mapping."""
+    from sweeprig.analysis.figure_table import condition_numbers
 
-    chosen = list(figures)
+    chosen = rows
     for key in ("temperature_c", "supply_v", "lo_power_dbm"):
-        # decided once per distinct conditions mapping (the figures of a point share one)
-        mappings = condition_mappings(chosen)
+        held = np.unique(group.mapping_of[chosen]).tolist()
+        mappings = [group.mappings[j] for j in held]
         values = condition_numbers(mappings, key)
         if not values:
             continue
         pick = (min(values, key=lambda t: (abs(t - ROOM_C), t)) if key == "temperature_c"
                 else values[(len(values) - 1) // 2])
-        kept = {id(c) for c in mappings if _close(c.get(key), pick)}
-        chosen = [f for f in chosen if id(f.conditions) in kept]
+        kept = [j for j, c in zip(held, mappings, strict=True) if _close(c.get(key), pick)]
+        chosen = chosen[np.isin(group.mapping_of[chosen], kept)]
     return chosen
 
 
-def _row(name: str, study: str, members: list[Figure], judged: JudgedGroup,
-         run: RunFigures) -> DatasheetRow:
-    values = corner_figures(name, members)
-    finite = [f for f in values if math.isfinite(f.value)]
-    minimum = min(finite, key=lambda f: f.value) if finite else None
-    maximum = max(finite, key=lambda f: f.value) if finite else None
-    typical_numbers = [f.value for f in nominal(finite) if f.is_number]
+def _row(group: HeldGroup, judged: JudgedGroup, run: RunFigures) -> DatasheetRow:
+    name, study = group.name, str(group.key[0])
+    rows = corner_rows(name, group)
+    finite = rows[np.isfinite(group.values[rows])]
+    minimum = maximum = None
+    if finite.size:
+        minimum = group.figure(int(finite[np.argmin(group.values[finite])]))
+        maximum = group.figure(int(finite[np.argmax(group.values[finite])]))
+    at_nominal = nominal_rows(group, finite)
+    typical_numbers = group.values[at_nominal[group.bounds[at_nominal] == ""]].tolist()
     typical = statistics.median(typical_numbers) if typical_numbers else math.nan
-    spreads = [f.uncertainty_db for f in members if math.isfinite(f.uncertainty_db)]
+    spreads = group.uncertainty_db[np.isfinite(group.uncertainty_db)]
     counts = judged.counts
     verdict = judged.verdict or NO_LIMIT
     limits = limit_texts(judged.limits)
     if not limits:
         limits = [limit_text(li) for li in run.limits if li.name == name
                   and li.conditions.get("study", study) == study]
-    flag_counts = flag_tally(members)
+    flag_counts = group.flag_counts()
     return DatasheetRow(
         name=name,
         label=figure_label(name),
         study=study,
-        conditions_text=corners_text(members, run.conversion),
-        unit=members[0].unit,
-        values=tuple(values),
+        conditions_text=corners_text(group.mappings, run.conversion),
+        unit=group.unit,
+        count=int(rows.size),
         minimum=minimum,
         typical=typical,
         maximum=maximum,
-        uncertainty=max(spreads) if spreads else math.nan,
+        uncertainty=float(spreads.max()) if spreads.size else math.nan,
         limit_text="; ".join(limits),
         verdict=verdict,
         judged={k: v for k, v in counts.items() if v},
@@ -220,16 +227,16 @@ def _row(name: str, study: str, members: list[Figure], judged: JudgedGroup,
     )
 
 
-def corners_text(figures: Sequence[Figure], conversion: str = "down") -> str:
-    """The test conditions of a row: each corner setting as one value, or its range
-    (``−40…85 °C, 3.3 V, RF 1.7–2.7 GHz, IF 100 MHz, LO 0 dBm``), in the words of the part's
-    ``conversion`` (an upconverter's input is its IF, its output its RF); the LO frequency is
-    left out when it follows a swept input or output frequency."""
-    from sweeprig.analysis.figure_table import condition_mappings, condition_numbers
+def corners_text(mappings: Sequence[Mapping[str, object]], conversion: str = "down") -> str:
+    """The test conditions of a row (``mappings``: its figures' distinct conditions
+    mappings): each corner setting as one value, or its range (``−40…85 °C, 3.3 V,
+    RF 1.7–2.7 GHz, IF 100 MHz, LO 0 dBm``), in the words of the part's ``conversion`` (an
+    upconverter's input is its IF, its output its RF); the LO frequency is left out when it
+    follows a swept input or output frequency."""
+    from sweeprig.analysis.figure_table import condition_numbers
 
     parts: list[str] = []
     swept_signal = False
-    mappings = condition_mappings(figures)
     for key in CORNER_KEYS:
         values = condition_numbers(mappings, key)
         if not values:

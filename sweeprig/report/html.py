@@ -213,7 +213,7 @@ def datasheet_section(rows: Sequence[DatasheetRow]) -> str:
         verdict_class = "none" if row.verdict == NO_LIMIT else row.verdict
         notes = ", ".join(
             f"<sup>{letter[name]}</sup>&#8239;{e(flag_badge(name)[0])}"
-            + (f" ×{count}" if len(row.values) > 1 or count > 1 else "")
+            + (f" ×{count}" if row.count > 1 or count > 1 else "")
             for name, count in row.flags)
         body.append(
             f'<tr class="{"fail" if row.verdict == FAIL else ""}" data-figure="{e(row.name)}" '

@@ -408,18 +408,6 @@ def _summary_row(group: HeldGroup, judged: JudgedGroup, limits: Sequence[Limit],
     )
 
 
-def flag_tally(figures: Iterable[Figure]) -> dict[str, int]:
-    """How many of ``figures`` carry each flag (flags nobody carries left out); counted
-    once per distinct flag set."""
-    from collections import Counter
-
-    counts: dict[str, int] = {}
-    for flags, count in Counter(f.flags for f in figures).items():
-        for flag in flags:
-            counts[flag] = counts.get(flag, 0) + count
-    return counts
-
-
 def _spread_text(mappings: Sequence[Mapping[str, object]], by: tuple[str, ...],
                  conversion: str = "down") -> str:
     """The conditions that vary inside a group (``mappings``: its distinct conditions

@@ -55,11 +55,7 @@ def test_shared_conditions_are_read_once_and_spread_in_order() -> None:
     figure_columns spreads the values back figure by figure (what figure_table holds)."""
     import dataclasses
 
-    from sweeprig.analysis.figure_table import (
-        condition_mappings,
-        distinct_conditions,
-        figure_columns,
-    )
+    from sweeprig.analysis.figure_table import distinct_conditions, figure_columns
 
     first, second, third = _figures()
     shared = [first, dataclasses.replace(first, name="oip3"), second, third,
@@ -68,7 +64,6 @@ def test_shared_conditions_are_read_once_and_spread_in_order() -> None:
     assert [id(m) for m in mappings] == [id(first.conditions), id(second.conditions),
                                          id(third.conditions)]
     assert which.tolist() == [0, 0, 1, 2, 1]
-    assert [id(m) for m in condition_mappings(shared)] == [id(m) for m in mappings]
     rows, columns = figure_columns(shared)
     table = figure_table(shared)
     assert rows.tolist() == table.index.tolist() == [0, 1, 2, 3, 4]

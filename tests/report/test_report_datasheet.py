@@ -73,7 +73,7 @@ def test_limits_and_verdicts_are_in_the_row(corner_run):
     isolation = rows[("lo_if_isolation", "isolation")]
     assert isolation.limit_text.startswith("≥ 30 dB")
     judged = sum(isolation.judged.values())
-    assert judged == len(isolation.values)  # every figure of the row was judged
+    assert judged == isolation.count  # every figure of the row was judged
     assert isolation.verdict_text.split()[0] in ("pass", "fail", "inconclusive")
 
 
@@ -98,8 +98,12 @@ def _row_of(figures, judgements):
 
     import numpy as np
 
+    from sweeprig.analysis.figure_block import Figures
+    from sweeprig.analysis.figure_groups import held_groups
     from sweeprig.report.datasheet import _row
 
+    (group,) = held_groups(Figures([tuple(figures)]), ["conversion_gain"],
+                           key=lambda c: (str(c.get("study", "")),))
     judged = judgements.of_positions(np.arange(len(figures)))
     run = SimpleNamespace(limits=[j.limit for j in judgements], conversion="down")
-    return _row("conversion_gain", "", list(figures), judged, run)
+    return _row(group, judged, run)

@@ -28,7 +28,6 @@ from sweeprig.report.tables import (
     conditions_text,
     figure_label,
     figure_text,
-    flag_tally,
     format_condition,
     format_value,
     limit_text,
@@ -37,6 +36,16 @@ from sweeprig.report.tables import (
 )
 from sweeprig.store.sqlite import SqliteRunStore
 from sweeprig.units import format_frequency
+from tests.support import run_of_figures
+
+
+def flag_tally(figures) -> dict[str, int]:
+    """How many of ``figures`` carry each flag, figure by figure."""
+    counts: dict[str, int] = {}
+    for f in figures:
+        for flag in f.flags:
+            counts[flag] = counts.get(flag, 0) + 1
+    return counts
 
 
 def _reference_rows(run: RunFigures, by=GROUP_KEYS) -> list[SummaryRow]:
@@ -223,21 +232,6 @@ def test_a_summary_line_shows_the_worst_in_the_better_direction(name, shown, tex
     figures = [Figure(name, v, "dB", conditions=cold, points=(p,))
                for p, v in enumerate([math.nan, 29.0, 28.0, 28.0, 30.0])]
     for held in (Figures([block_of(figures)]), Figures([tuple(figures)])):
-        (row,) = summary_rows(_run_of(held), by=("study",))
+        (row,) = summary_rows(run_of_figures(held), by=("study",))
         assert (row.position, row.count, row.value_text) == (shown, 5, text)
         assert row.range_text == "28.00 dB … 30.00 dB"
-
-
-def _run_of(figures: Figures) -> RunFigures:
-    from datetime import UTC, datetime
-
-    from sweeprig.analysis.limits import assess
-
-    return RunFigures(
-        run_id=1, title="t", part="KX-2417", serial="s", operator="o", state="complete",
-        status="complete", reason=None, simulated=True, created=datetime.now(UTC),
-        finished=None, points_done=1, points_total=1, sequence_path="s.toml",
-        sequence_sha256="", sequence_sha256_ok=True, bench_path=None, bench_sha256=None,
-        instruments=(), duration_sim_s=None, duration_wall_s=None, figures=figures, limits=(),
-        assessment=assess(figures, ()), verdict="inconclusive", studies=(), conditions={},
-        events=(), notes=(), captures=None)  # type: ignore[arg-type]
