@@ -103,48 +103,58 @@ def flag_masks(figures: Sequence[Figure]) -> np.ndarray:
     return np.array(out, dtype=np.int64)
 
 
+#: Mappings read at a time by :func:`condition_arrays` (its passing tuples stay this small).
+CONDITION_CHUNK = 16_384
+
+
 def condition_arrays(mappings: Sequence[Mapping[str, object]]) -> dict[str, np.ndarray]:
     """One array per condition key of ``mappings`` (in order of first appearance), one
     element per mapping: ``study`` and any key with a text value as str ("" where missing),
     the others as float (NaN where missing).
 
-    The mappings are read per distinct key order (the figures of one kind share theirs):
-    each group's values taken by one ``itemgetter`` call a mapping, a float column's
-    values converted by NumPy at once (``float(v)`` of each, None → NaN), as
-    :func:`condition_arrays_by_key` reads them key by key (the tests compare the two)."""
-    groups: dict[tuple[str, ...], list[int]] = {}
-    for i, conditions in enumerate(mappings):
-        order = tuple(conditions)
-        members = groups.get(order)
-        if members is None:
-            members = groups[order] = []
-        members.append(i)
-    # per key, in order of first appearance: (rows, their values) of each group holding it
-    parts: dict[str, list[tuple[np.ndarray, Sequence[object]]]] = {}
-    for order, members in groups.items():
-        if not order:
-            continue
-        picked = [mappings[i] for i in members]
-        if len(order) == 1:
-            columns: list[Sequence[object]] = [[c[order[0]] for c in picked]]
-        else:
-            columns = list(zip(*map(itemgetter(*order), picked), strict=True))
-        rows = np.array(members, dtype=np.intp)
-        for key, values in zip(order, columns, strict=True):
-            parts.setdefault(key, []).append((rows, values))
+    The mappings are read :data:`CONDITION_CHUNK` at a time, per distinct key order (the
+    figures of one kind share theirs): each group's values taken by one ``itemgetter``
+    call a mapping, a float column's values converted by NumPy at once (``float(v)`` of
+    each, None → NaN) into its array, so only one chunk's values are ever held as tuples;
+    a text column is read at the end, key by key. The same as
+    :func:`condition_arrays_by_key` (the tests compare the two)."""
     count = len(mappings)
-    out: dict[str, np.ndarray] = {}
-    for key, pieces in parts.items():
-        if key == "study" or any(issubclass(kind, str) for _, values in pieces
-                                 for kind in set(map(type, values))):
-            column = np.full(count, "", dtype=object)
-            for rows, values in pieces:
-                column[rows] = ["" if v is None else str(v) for v in values]
-        else:
-            column = np.full(count, np.nan)
-            for rows, values in pieces:
+    numbers: dict[str, np.ndarray] = {}  # every key, in order of first appearance
+    text: set[str] = {"study"}
+    for start in range(0, count, CONDITION_CHUNK):
+        groups: dict[tuple[str, ...], list[int]] = {}
+        for i in range(start, min(start + CONDITION_CHUNK, count)):
+            order = tuple(mappings[i])
+            members = groups.get(order)
+            if members is None:
+                members = groups[order] = []
+            members.append(i)
+        for order, members in groups.items():
+            if not order:
+                continue
+            picked = [mappings[i] for i in members]
+            if len(order) == 1:
+                columns: list[Sequence[object]] = [[c[order[0]] for c in picked]]
+            else:
+                columns = list(zip(*map(itemgetter(*order), picked), strict=True))
+            rows = np.array(members, dtype=np.intp)
+            for key, values in zip(order, columns, strict=True):
+                column = numbers.get(key)
+                if column is None:
+                    column = numbers[key] = np.full(count, np.nan)
+                if key in text:
+                    continue
+                if any(issubclass(kind, str) for kind in set(map(type, values))):
+                    text.add(key)
+                    continue
                 column[rows] = np.array(values, dtype=float)
-        out[key] = column
+    out: dict[str, np.ndarray] = {}
+    for key, column in numbers.items():
+        if key in text:
+            out[key] = np.array(["" if (v := c.get(key)) is None else str(v) for c in mappings],
+                                dtype=object)
+        else:
+            out[key] = column
     return out
 
 

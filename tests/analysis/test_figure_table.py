@@ -5,6 +5,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
+import pytest
 
 from sweeprig.analysis.captures import has_bit
 from sweeprig.analysis.figure_table import BASE_COLUMNS, figure_table
@@ -87,14 +88,20 @@ def _same_arrays(ours: dict[str, np.ndarray], reference: dict[str, np.ndarray]) 
             assert ours[key].view(np.uint64).tolist() == column.view(np.uint64).tolist(), key
 
 
-def test_condition_columns_read_per_key_order_are_those_read_key_by_key() -> None:
-    """condition_arrays (per distinct key order, itemgetter and NumPy) gives what the
-    key-by-key reading gives: mappings of several key orders, a key in some of them only,
-    explicit None, ints and bools as floats, a key with text in one mapping only, a study
-    that is not text, an empty mapping."""
+@pytest.mark.parametrize("chunk", [16_384, 7, 1], ids=["one-chunk", "chunks-of-7", "each"])
+def test_condition_columns_read_per_key_order_are_those_read_key_by_key(
+        chunk: int, monkeypatch: pytest.MonkeyPatch) -> None:
+    """condition_arrays (per distinct key order, itemgetter and NumPy, a chunk of mappings
+    at a time) gives what the key-by-key reading gives: mappings of several key orders, a
+    key in some of them only, explicit None, ints and bools as floats, a key with text in
+    one mapping only (met in a later chunk than its numbers), a study that is not text, an
+    empty mapping."""
     from types import MappingProxyType
 
+    from sweeprig.analysis import figure_table
     from sweeprig.analysis.figure_table import condition_arrays, condition_arrays_by_key
+
+    monkeypatch.setattr(figure_table, "CONDITION_CHUNK", chunk)
 
     rng = np.random.default_rng(7)
     mappings: list[dict[str, object]] = []
@@ -115,7 +122,8 @@ def test_condition_columns_read_per_key_order_are_those_read_key_by_key() -> Non
         elif kind == 5:
             mappings.append({"temperature_c": np.float64(-0.0), "supply_v": 3.3})
         else:
-            mappings.append({"lo_power_dbm": math.nan, "study": "lo", "sideband": None})
+            mappings.append({"lo_power_dbm": math.nan, "study": "lo", "sideband": None,
+                             "band": 2 if i < 2990 else "L"})
     proxies = [MappingProxyType(m) for m in mappings]
     _same_arrays(condition_arrays(proxies), condition_arrays_by_key(proxies))
     _same_arrays(condition_arrays([]), condition_arrays_by_key([]))
