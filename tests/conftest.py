@@ -2,7 +2,9 @@
 
 from __future__ import annotations
 
+import atexit
 import os
+import shutil
 import tempfile
 from datetime import date
 from pathlib import Path
@@ -26,7 +28,16 @@ pytest_plugins = ["pytester"]
 #: fixtures that open instruments before a test's own folder is set (module- or
 #: session-scoped): else they would take the machine-wide folder's locks and collide with any
 #: other run on the same machine.
-os.environ["SWEEPRIG_LOCK_DIR"] = tempfile.mkdtemp(prefix="sweeprig-test-locks-")
+os.environ["SWEEPRIG_LOCK_DIR"] = _SESSION_LOCKS = tempfile.mkdtemp(prefix="sweeprig-test-locks-")
+
+
+def _remove_session_locks(owner: int = os.getpid()) -> None:
+    """The session's lock folder removed when its process ends (not by a forked child)."""
+    if os.getpid() == owner:
+        shutil.rmtree(_SESSION_LOCKS, ignore_errors=True)
+
+
+atexit.register(_remove_session_locks)
 
 
 @pytest.fixture(autouse=True)
