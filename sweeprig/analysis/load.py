@@ -177,7 +177,7 @@ def captures_from_frames(
     rows = readings[keep]
     out = pd.DataFrame({
         "point": rows["point_index"].to_numpy(dtype=np.int64),
-        "reading": reading[keep].to_numpy(dtype=object),
+        "reading": _text_column(reading[keep].to_numpy(dtype=object)),
         "freq_hz": rows["freq_hz"].to_numpy(dtype=float, na_value=np.nan),
         "level_dbm": rows["level_dbm"].to_numpy(dtype=float, na_value=np.nan),
         "noise_floor_dbm": rows["noise_floor_dbm"].to_numpy(dtype=float, na_value=np.nan),
@@ -187,9 +187,9 @@ def captures_from_frames(
         "atten_check": repeat[keep],
         "attenuation_db": rows["attenuation_db"].to_numpy(dtype=float, na_value=np.nan),
         "reading_no": rows["reading_no"].to_numpy(dtype=np.int64),
-        "source_name": name[keep],
-        "kind": kind[keep],
-        "port": rows["port"].astype(str).to_numpy(dtype=object),
+        "source_name": _text_column(name[keep]),
+        "kind": _text_column(kind[keep]),
+        "port": _text_column(rows["port"].astype(str).to_numpy(dtype=object)),
         "rbw_hz": (rows["rbw_hz"].to_numpy(dtype=float, na_value=np.nan)
                    if "rbw_hz" in rows else np.full(len(rows), np.nan)),
         "averages": (pd.to_numeric(rows["averages"], errors="coerce")
@@ -206,7 +206,7 @@ def captures_from_frames(
             fix="the store is damaged; export what is left with `sweeprig export`",
         )
     at = settings.index.get_indexer(out["point"].to_numpy())
-    out.insert(1, "study", settings["study"].to_numpy(dtype=object)[at])
+    out.insert(1, "study", _text_column(settings["study"].to_numpy(dtype=object)[at]))
     for i, col in enumerate(CONDITION_COLUMNS):
         out.insert(2 + i, col, settings[col].to_numpy(dtype=float, na_value=np.nan)[at])
     probe = (settings["probe_temperature_c"].to_numpy(dtype=float, na_value=np.nan)[at]
@@ -219,11 +219,22 @@ def captures_from_frames(
     m_out, n_out = wanted_orders if wanted_orders is not None else DEFAULT_WANTED_ORDERS
     out["output_freq_hz"] = np.abs(m_out * out["lo_freq_hz"].to_numpy(dtype=float)
                                    + n_out * out["rf_freq_hz"].to_numpy(dtype=float))
-    out = out.sort_values(["point", "reading_no"], kind="stable").reset_index(drop=True)
-    # a few distinct texts repeated over every reading: held as codes (a byte a row)
-    for col in TEXT_CAPTURE_COLUMNS:
-        out[col] = pd.Categorical(out[col])
-    return out[list(CAPTURE_COLUMNS)]
+    point_no = out["point"].to_numpy()
+    reading_no = out["reading_no"].to_numpy()
+    step = np.diff(point_no)
+    if not np.all((step > 0) | ((step == 0) & (np.diff(reading_no) >= 0))):
+        # (the store reads them in this order: a large run's table is not copied for it)
+        out = out.sort_values(["point", "reading_no"], kind="stable")
+    return out[list(CAPTURE_COLUMNS)].reset_index(drop=True)
+
+
+def _text_column(texts: np.ndarray) -> pd.Categorical:
+    """A text column of the capture table (:data:`TEXT_CAPTURE_COLUMNS`) as a categorical:
+    its distinct texts sorted, each row their code."""
+    import pandas as pd
+
+    codes, distinct = pd.factorize(texts, sort=True)
+    return pd.Categorical.from_codes(codes, categories=distinct)
 
 
 def captures_as_written(captures: pd.DataFrame) -> pd.DataFrame:

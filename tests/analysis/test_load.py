@@ -109,6 +109,8 @@ def test_text_columns_are_held_as_codes_and_written_as_text(store):
     c = load_captures(db, run)
     for col in TEXT_CAPTURE_COLUMNS:
         assert isinstance(c[col].dtype, pd.CategoricalDtype), col
+        # the texts met, sorted (as pd.Categorical of the texts makes them)
+        assert list(c[col].cat.categories) == sorted(set(c[col].tolist())), col
     written = captures_as_written(c)
     assert list(written.columns) == list(c.columns)
     for col in TEXT_CAPTURE_COLUMNS:
@@ -187,3 +189,16 @@ def test_unknown_run_and_damaged_tables_raise_store_errors(store):
         captures_from_frames(points[points["point_index"] != 1], readings)
     with pytest.raises(StoreError, match="no column 'kind'"):
         captures_from_frames(points, readings.drop(columns=["kind"]))
+
+
+def test_readings_out_of_order_come_out_ordered_by_point_then_reading(store):
+    """The store reads readings by point and reading number (then nothing is copied to
+    sort them); any other order is sorted, to the same table."""
+    db, run = store
+    points, readings = db.points_frame(run), db.readings_frame(run)
+    ordered = captures_from_frames(points, readings)
+    shuffled = readings.sample(frac=1.0, random_state=3)
+    assert not shuffled["point_index"].is_monotonic_increasing
+    again = captures_from_frames(points, shuffled)
+    pd.testing.assert_frame_equal(again, ordered)
+    assert again.index.tolist() == list(range(len(again)))
