@@ -108,3 +108,17 @@ def run_of_figures(figures):
         instruments=(), duration_sim_s=None, duration_wall_s=None, figures=figures, limits=(),
         assessment=assess(figures, ()), verdict="inconclusive", studies=(), conditions={},
         events=(), notes=(), captures=None)  # type: ignore[arg-type]
+
+
+def reduced_with_blocks(store: tuple[Path, int], least: int):
+    """Run ``store`` (path, run id) reduced with blocks of at least ``least`` figures (1:
+    every figure it can hold as columns; a huge number: none)."""
+    from sweeprig.analysis import figure_block
+    from sweeprig.analysis.reduce import reduce_run
+    from sweeprig.store.sqlite import SqliteRunStore
+
+    with pytest.MonkeyPatch.context() as patch:
+        patch.setattr(figure_block, "BLOCK_MIN_FIGURES", least)
+        path, run_id = store
+        with SqliteRunStore(path, create=False) as opened:
+            return reduce_run(opened, run_id)

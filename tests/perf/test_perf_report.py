@@ -108,6 +108,20 @@ mask made once); every report file the same bytes. 1M points, one run each: 225.
 phase goes now: the report process' interpreter lock (its main thread and the thread making
 the figure slices share it) is the bottleneck; when the report starts waiting, about half of
 the figure slices are still to be made.
+
+The capture table's text columns held as categoricals (made as codes from the start, the
+table not sorted again when the store's order is already right), the summary and the
+datasheet read from columns (``sweeprig.analysis.figure_groups``: only the figures a line
+shows are made), the condition columns read a chunk of mappings at a time. The same slow
+machine, interleaved on one store: 100k points, median of 3, 25.0 s, 673 MB + 229 MB
+before; 24.9 s, 629 MB + 226 MB after (the time within the runs' spread: the summary and
+datasheet's 0.3 s and the table's 0.3 s are lost in it). 1M points, one run each: 265.8 s,
+4,689 MB + 252 MB before; 220.8 s, 4,368 MB + 247 MB after. Every report file the same
+bytes. Where the peak is now: at 100k the report's end (the report process making the last
+figure slices while the helper writes, about 620 MB sampled; the figure table's condition
+columns about 36 MB of it, matplotlib and the plots about 30 MB); at 1M the uncertainty
+budgets (the run's point levels, the fitted figures' budgets and their remembered answers:
+about 700 MB on top of the 3.4 GB of captures and figures).
 """
 
 from __future__ import annotations

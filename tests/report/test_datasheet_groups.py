@@ -7,16 +7,14 @@ from __future__ import annotations
 import dataclasses
 import math
 import statistics
-from pathlib import Path
 
 import numpy as np
 import pytest
 
-from sweeprig.analysis import figure_block
 from sweeprig.analysis.figure_block import FigureBlock, Figures, block_of
 from sweeprig.analysis.figure_table import condition_numbers
 from sweeprig.analysis.figures import FLAGS, Figure
-from sweeprig.analysis.reduce import RunFigures, reduce_run
+from sweeprig.analysis.reduce import RunFigures
 from sweeprig.report.datasheet import (
     PER_POINT_WORST,
     ROOM_C,
@@ -31,8 +29,7 @@ from sweeprig.report.tables import (
     limit_text,
     limit_texts,
 )
-from sweeprig.store.sqlite import SqliteRunStore
-from tests.support import run_of_figures
+from tests.support import reduced_with_blocks, run_of_figures
 
 
 def _reference_rows(run: RunFigures) -> list[DatasheetRow]:
@@ -107,14 +104,6 @@ def _reference_row(name, study, members, judged, run) -> DatasheetRow:
         straddled=judged.straddled)
 
 
-def _reduced(store: tuple[Path, int], least: int) -> RunFigures:
-    with pytest.MonkeyPatch.context() as patch:
-        patch.setattr(figure_block, "BLOCK_MIN_FIGURES", least)
-        path, run_id = store
-        with SqliteRunStore(path, create=False) as opened:
-            return reduce_run(opened, run_id)
-
-
 def _fields(row: DatasheetRow) -> tuple:
     return tuple(repr(v) for v in dataclasses.astuple(dataclasses.replace(
         row, minimum=None, maximum=None)))
@@ -122,7 +111,7 @@ def _fields(row: DatasheetRow) -> tuple:
 
 @pytest.mark.parametrize("least", [1, 10**9], ids=["blocks", "loose"])
 def test_datasheet_from_columns_is_the_datasheet_figure_by_figure(report_store, least):
-    run = _reduced(report_store, least)
+    run = reduced_with_blocks(report_store, least)
     if least == 1:
         assert any(isinstance(p, FigureBlock) for p in run.figures.parts)
     rows, reference = datasheet_rows(run), _reference_rows(run)

@@ -7,17 +7,15 @@ from __future__ import annotations
 import bisect
 import dataclasses
 import math
-from pathlib import Path
 
 import numpy as np
 import pytest
 
-from sweeprig.analysis import figure_block
 from sweeprig.analysis.figure_block import FigureBlock, Figures, block_of
 from sweeprig.analysis.figure_groups import held_groups
 from sweeprig.analysis.figures import FLAGS, Figure
 from sweeprig.analysis.judged_blocks import JudgedGroup
-from sweeprig.analysis.reduce import RunFigures, reduce_run
+from sweeprig.analysis.reduce import RunFigures
 from sweeprig.report.tables import (
     GROUP_KEYS,
     HEADLINE_FIGURES,
@@ -34,9 +32,8 @@ from sweeprig.report.tables import (
     limit_texts,
     summary_rows,
 )
-from sweeprig.store.sqlite import SqliteRunStore
 from sweeprig.units import format_frequency
-from tests.support import run_of_figures
+from tests.support import reduced_with_blocks, run_of_figures
 
 
 def flag_tally(figures) -> dict[str, int]:
@@ -146,18 +143,10 @@ def _reference_worst(name, members, positions, judged):
     return members[i], positions[i]
 
 
-def _reduced(store: tuple[Path, int], least: int) -> RunFigures:
-    with pytest.MonkeyPatch.context() as patch:
-        patch.setattr(figure_block, "BLOCK_MIN_FIGURES", least)
-        path, run_id = store
-        with SqliteRunStore(path, create=False) as opened:
-            return reduce_run(opened, run_id)
-
-
 @pytest.mark.parametrize("least", [1, 10**9], ids=["blocks", "loose"])
 @pytest.mark.parametrize("by", [GROUP_KEYS, ("study",)], ids=["default", "study"])
 def test_summary_from_columns_is_the_summary_figure_by_figure(report_store, least, by):
-    run = _reduced(report_store, least)
+    run = reduced_with_blocks(report_store, least)
     if least == 1:
         assert any(isinstance(p, FigureBlock) for p in run.figures.parts)
     rows, reference = summary_rows(run, by), _reference_rows(run, by)
