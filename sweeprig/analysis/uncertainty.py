@@ -449,33 +449,47 @@ class PointLevels:
         self._asked: dict[tuple[object, ...], object] = {}
         self._rows: dict[str, np.ndarray] = {}
         empty = captures.empty or "reading" not in captures
-        rows = captures.iloc[:0] if empty else measured_rows(captures, LEVEL_COLUMNS)
-        count = len(rows)
+        # the rows a budget reads (the attenuation repeats left out), taken column by column:
+        # a large run's table is not copied to read a few of its columns
+        keep = (None if empty or "atten_check" not in captures
+                else ~captures["atten_check"].fillna(False).astype(bool).to_numpy())
+
+        def column(values: np.ndarray) -> np.ndarray:
+            return values if keep is None else values[keep]
+
+        def floats(name: str) -> np.ndarray:
+            return column(captures[name].to_numpy(dtype=float))
+
+        count = 0 if empty else (len(captures) if keep is None else int(keep.sum()))
         self._point = (np.zeros(0, dtype=np.int64) if empty
-                       else rows["point"].to_numpy(dtype=np.int64))
-        self._level = np.zeros(0) if empty else rows["level_dbm"].to_numpy(dtype=float)
-        self._floor = (rows["noise_floor_dbm"].to_numpy(dtype=float)
-                       if not empty and "noise_floor_dbm" in rows else np.full(count, math.nan))
-        averages = (pd.to_numeric(rows["averages"], errors="coerce").to_numpy(dtype=float)
-                    if not empty and "averages" in rows else np.full(count, math.nan))
+                       else column(captures["point"].to_numpy(dtype=np.int64)))
+        self._level = np.zeros(0) if empty else floats("level_dbm")
+        self._floor = (floats("noise_floor_dbm")
+                       if not empty and "noise_floor_dbm" in captures else np.full(count, math.nan))
+        averages = (column(pd.to_numeric(captures["averages"], errors="coerce")
+                           .to_numpy(dtype=float))
+                    if not empty and "averages" in captures else np.full(count, math.nan))
         usable = np.isfinite(averages) & (averages >= 1.0)
         self._averages = np.where(usable, averages, 1.0).astype(np.int64)  # int(): truncated
         # the input power of each point: its last row's
         last = self._point[::-1]
         self._input_at, first = np.unique(last, return_index=True)
-        self._input = (np.zeros(0) if empty
-                       else rows["rf_power_dbm"].to_numpy(dtype=float)[::-1][first])
+        self._input = np.zeros(0) if empty else floats("rf_power_dbm")[::-1][first]
         if empty:
             return
-        codes, names = pd.factorize(rows["reading"].astype(str), sort=False)
+        reading = captures["reading"] if keep is None else captures["reading"][keep]
+        codes, names = pd.factorize(
+            reading if isinstance(reading.dtype, pd.CategoricalDtype) else reading.astype(str),
+            sort=False)
+        codes = np.asarray(codes)
         order = np.argsort(codes, kind="stable")
         bounds = np.searchsorted(codes[order], np.arange(len(names) + 1))
         for k, name in enumerate(names.tolist()):
             self._rows[name] = order[bounds[k]:bounds[k + 1]]
         spur = self._rows.get("spur")
-        if spur is not None and spur.size and "m" in rows and "n" in rows:
-            m = pd.to_numeric(rows["m"], errors="coerce").to_numpy(dtype=float)[spur]
-            n = pd.to_numeric(rows["n"], errors="coerce").to_numpy(dtype=float)[spur]
+        if spur is not None and spur.size and "m" in captures and "n" in captures:
+            m = column(pd.to_numeric(captures["m"], errors="coerce").to_numpy(dtype=float))[spur]
+            n = column(pd.to_numeric(captures["n"], errors="coerce").to_numpy(dtype=float))[spur]
             known = np.isfinite(m) & np.isfinite(n)
             pairs = np.column_stack([np.trunc(m[known]), np.trunc(n[known])])
             if pairs.size:
@@ -583,24 +597,6 @@ class PointLevels:
             if worst is None or sigma > worst[0]:
                 worst = (sigma, snr, avg)
         return worst
-
-
-#: The capture columns a budget reads (:class:`PointLevels`).
-LEVEL_COLUMNS: tuple[str, ...] = ("point", "reading", "level_dbm", "noise_floor_dbm",
-                                  "averages", "rf_power_dbm", "m", "n")
-
-
-def measured_rows(captures: pd.DataFrame, columns: Sequence[str] | None = None
-                  ) -> pd.DataFrame:
-    """The rows of ``captures`` a budget reads: the readings of the attenuation repeats
-    left out; ``columns``: only those of them that the table has (a large run's whole
-    table is not copied to read a few)."""
-    if columns is not None:
-        captures = captures[[c for c in columns if c in captures] +
-                            (["atten_check"] if "atten_check" in captures else [])]
-    if "atten_check" in captures:
-        return captures[~captures["atten_check"].fillna(False).astype(bool)]
-    return captures
 
 
 def spur_key(m: float, n: float) -> str:

@@ -528,17 +528,14 @@ def test_two_seeds_of_the_simulated_bench_agree_within_their_uncertainties(tmp_p
                    for c in f.budget.contributions) for f in spurs) >= 3
 
 
-def test_the_levels_read_only_the_columns_a_budget_needs():
-    # a large run's capture table is not copied whole to leave out the attenuation repeats
-    from sweeprig.analysis.uncertainty import LEVEL_COLUMNS, measured_rows
-
+@pytest.mark.parametrize("categorical", [False, True], ids=["text", "codes"])
+def test_the_levels_leave_out_the_attenuation_repeats(categorical):
+    # (read column by column: a large run's capture table is not copied to leave them out)
     captures = _captures([(0, "if", -30.0, -18.0, -100.0), (1, "if", -28.0, -16.0, -100.0)])
     captures["atten_check"] = [False, True]
     captures["wide"] = ["x" * 10, "y" * 10]
-    rows = measured_rows(captures, LEVEL_COLUMNS)
-    assert "wide" not in rows and list(rows["point"]) == [0]
-    assert set(rows.columns) <= {*LEVEL_COLUMNS, "atten_check"}
-    assert measured_rows(captures)["wide"].tolist() == ["x" * 10]
+    if categorical:  # as the store's capture table holds it
+        captures["reading"] = pd.Categorical(captures["reading"])
     levels = PointLevels.from_captures(captures)
     assert levels.levels_dbm([0, 1], "if")[0] == pytest.approx(-18.0)
     assert math.isnan(levels.levels_dbm([0, 1], "if")[1])
