@@ -118,11 +118,12 @@ before; 24.9 s, 629 MB + 226 MB after (the time within the runs' spread: the sum
 datasheet's 0.3 s and the table's 0.3 s are lost in it). 1M points, one run each: 265.8 s,
 4,689 MB + 252 MB before; 220.8 s, 4,368 MB + 247 MB after; with the budgets' point levels
 taken column by column (no filtered copy of the capture table), 221.5 s, 4,236 MB + 244 MB.
-Every report file the same bytes. Where the peak is now: at 100k the report's end (the report process making the last
-figure slices while the helper writes, about 620 MB sampled; the figure table's condition
-columns about 36 MB of it, matplotlib and the plots about 30 MB); at 1M the uncertainty
-budgets (the run's point levels, the fitted figures' budgets and their remembered answers:
-about 700 MB on top of the 3.4 GB of captures and figures).
+Every report file the same bytes. Where the peak is now: at 100k the report's end (the
+report process making the last figure slices while the helper writes, about 620 MB
+sampled; the figure table's condition columns about 36 MB of it, matplotlib and the plots
+about 30 MB); at 1M the uncertainty budgets (the run's point levels, the fitted figures'
+budgets and their remembered answers: about 600 MB on top of the 3.3 GB of captures and
+figures).
 """
 
 from __future__ import annotations
