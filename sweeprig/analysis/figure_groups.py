@@ -19,7 +19,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from sweeprig.analysis.figure_block import Figures, named_columns
-from sweeprig.analysis.figure_table import distinct_mappings
+from sweeprig.analysis.figure_table import distinct_mappings, first_appearances
 from sweeprig.analysis.figures import Figure, flags_from_mask
 
 
@@ -29,8 +29,8 @@ class HeldGroup:
     ``positions`` (their numbers in the run's figure table, ascending, int64), ``values``
     (float), ``bounds`` ("", "<" or ">"), ``uncertainty_db`` (float, the figure's unit),
     ``masks`` (flag masks, int64), ``points`` (each one's run-store point tuple, object),
-    ``conditions`` (each one's mapping, object), ``mappings`` (the distinct ones, by
-    identity, in order of first appearance: the figures of one point share one) and
+    ``mappings`` (their distinct conditions mappings, by identity, in order of first
+    appearance: the figures of one point share one; the first member's is the first) and
     ``mapping_of`` (each one's index among ``mappings``, int64). ``unit``: the first
     member's."""
 
@@ -44,7 +44,6 @@ class HeldGroup:
     uncertainty_db: np.ndarray
     masks: np.ndarray
     points: np.ndarray
-    conditions: np.ndarray
     mappings: tuple[Mapping[str, object], ...]
     mapping_of: np.ndarray
 
@@ -100,10 +99,7 @@ def held_groups(figures: Figures, names: Sequence[str], by: Sequence[str] = (), 
     for g in order.tolist():
         at = members[ends[g]:ends[g + 1]]
         # the group's distinct mappings in order of first appearance, and each member's
-        own, seen, local = np.unique(which[at], return_index=True, return_inverse=True)
-        by_appearance = np.argsort(seen, kind="stable")
-        rank = np.empty_like(by_appearance)
-        rank[by_appearance] = np.arange(by_appearance.size)
+        first_of, mapping_of = first_appearances(which[at])
         out.append(HeldGroup(
             figures=figures,
             name=str(columns["name"][at[0]]),
@@ -115,8 +111,7 @@ def held_groups(figures: Figures, names: Sequence[str], by: Sequence[str] = (), 
             uncertainty_db=columns["uncertainty_db"][at],
             masks=columns["flags"][at],
             points=columns["points"][at],
-            conditions=conditions[at],
-            mappings=tuple(mappings[j] for j in own[by_appearance].tolist()),
-            mapping_of=rank[local.ravel()],
+            mappings=tuple(mappings[j] for j in which[at[first_of]].tolist()),
+            mapping_of=mapping_of,
         ))
     return out

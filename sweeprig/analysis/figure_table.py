@@ -218,11 +218,19 @@ def distinct_mappings(mappings: Sequence[Mapping[str, object]]
     if not len(mappings):
         return [], np.zeros(0, dtype=np.int64)
     ids = np.fromiter(map(id, mappings), dtype=np.uint64, count=len(mappings))
-    _, first, inverse = np.unique(ids, return_index=True, return_inverse=True)
+    first, index = first_appearances(ids)
+    return [mappings[i] for i in first.tolist()], index
+
+
+def first_appearances(codes: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Of an array of codes (any comparable numbers): the position of each distinct code's
+    first element, in order of first appearance, and per element the index of its code
+    among them (int64)."""
+    _, first, inverse = np.unique(codes, return_index=True, return_inverse=True)
     order = np.argsort(first, kind="stable")
     rank = np.empty_like(order)
     rank[order] = np.arange(order.size)
-    return [mappings[i] for i in first[order].tolist()], rank[inverse.ravel()]
+    return first[order], rank[inverse.ravel()]
 
 
 def condition_numbers(mappings: Iterable[Mapping[str, object]], key: str, *,

@@ -367,7 +367,7 @@ def _summary_row(group: HeldGroup, judged: JudgedGroup, limits: Sequence[Limit],
         numbers = group.values[finite]
         low, high = float(numbers.min()), float(numbers.max())
         range_text = f"{format_value(low, unit)} … {format_value(high, unit)}"
-    first = group.conditions[0]
+    first = group.mappings[0]  # (the first member's)
     fixed = {k: first[k] for k in by if k in first and k != "study"}
     if count == 1:
         text = conditions_text(shown.conditions, skip=("study",), conversion=conversion)
