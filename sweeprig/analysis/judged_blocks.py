@@ -217,7 +217,7 @@ def judged_parts(figures: Sequence[Figure], limits: Iterable[Limit],
     run = figures if isinstance(figures, Figures) else Figures([tuple(figures)])
     suspect_mask = sum(flag_bit(name) for name in suspect if name in FLAGS)
     spans = list(run.spans(0, len(run)))
-    loose: dict[int, dict[str, list[tuple[int, Figure]]]] = {}  # per span, by name
+    loose: dict[int, dict[str, np.ndarray]] = {}  # per span, its figures' rows by name
     parts: list[JudgedBlock | tuple[Judgement, ...]] = []
     untested: list[Limit] = []
     with collector_paused():
@@ -232,11 +232,12 @@ def judged_parts(figures: Sequence[Figure], limits: Iterable[Limit],
                     continue
                 named = loose.get(k)
                 if named is None:
-                    named = loose[k] = {}
-                    for i, f in enumerate(part):
-                        named.setdefault(f.name, []).append((first + i, f))
-                made = tuple(_judge(f, limit, suspect, guard_band, position)
-                             for position, f in named.get(limit.name, ())
+                    named = loose[k] = rows_by_name(part)
+                rows = named.get(limit.name)
+                if rows is None:
+                    continue
+                made = tuple(_judge(f, limit, suspect, guard_band, first + i)
+                             for i, f in ((i, part[i]) for i in rows.tolist())
                              if not limit.conditions or limit.applies_to(f))
                 if made:
                     parts.append(made)
@@ -244,6 +245,17 @@ def judged_parts(figures: Sequence[Figure], limits: Iterable[Limit],
             if not found:
                 untested.append(limit)
     return Judgements(parts), tuple(untested)
+
+
+def rows_by_name(figures: Sequence[Figure]) -> dict[str, np.ndarray]:
+    """The rows of ``figures`` (ascending) per figure name."""
+    import pandas as pd
+
+    codes, names = pd.factorize(np.fromiter((f.name for f in figures), dtype=object,
+                                            count=len(figures)))
+    order = np.argsort(codes, kind="stable")
+    bounds = np.searchsorted(codes[order], np.arange(len(names) + 1))
+    return {name: order[bounds[j]:bounds[j + 1]] for j, name in enumerate(names.tolist())}
 
 
 def verdict_counts(codes: np.ndarray) -> dict[str, int]:
@@ -353,18 +365,30 @@ class Judgements(HeldParts[Judgement]):
                                np.full(len(part), index, dtype=np.int64), part.margins(),
                                part.straddles))
                 continue
-            indices = []
-            for j in part:
-                index = limits.setdefault(id(j.limit), len(held))
+            # a loose part holds one limit's judgements (judged_parts), but any tuple of
+            # judgements is taken: its margins are worked out per run of one limit
+            indices = np.empty(len(part), dtype=np.int64)
+            margins = np.empty(len(part), dtype=float)
+            values = np.fromiter((j.figure.value for j in part), dtype=float, count=len(part))
+            start = 0
+            while start < len(part):
+                limit = part[start].limit
+                stop = start + 1
+                while stop < len(part) and part[stop].limit is limit:
+                    stop += 1
+                index = limits.setdefault(id(limit), len(held))
                 if index == len(held):
-                    held.append(j.limit)
-                indices.append(index)
-            margins = np.array([_margins(np.array([j.figure.value]), j.limit)[0]
-                                for j in part], dtype=float)
-            pieces.append((np.array([j.position for j in part], dtype=np.int64),
-                           np.array([VERDICT_CODES[j.verdict] for j in part], dtype=np.int8),
-                           np.array(indices, dtype=np.int64), margins,
-                           np.array([j.straddles for j in part], dtype=bool)))
+                    held.append(limit)
+                indices[start:stop] = index
+                margins[start:stop] = _margins(values[start:stop], limit)
+                start = stop
+            pieces.append((np.fromiter((j.position for j in part), dtype=np.int64,
+                                       count=len(part)),
+                           np.fromiter((VERDICT_CODES[j.verdict] for j in part), dtype=np.int8,
+                                       count=len(part)),
+                           indices, margins,
+                           np.fromiter((j.straddles for j in part), dtype=bool,
+                                       count=len(part))))
         if not pieces:
             empty = np.empty(0, dtype=np.int64)
             return JudgementTable(empty, empty.astype(np.int8), empty, empty.astype(float),

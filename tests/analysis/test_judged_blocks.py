@@ -15,7 +15,15 @@ import pytest
 from sweeprig.analysis.figure_block import Figures, packed
 from sweeprig.analysis.figures import FLAGS, NOISE_LIMITED, OVERLOAD, SUSPECT_FLAGS, Figure
 from sweeprig.analysis.judged_blocks import VERDICT_NAMES, JudgedBlock
-from sweeprig.analysis.limits import FAIL, INCONCLUSIVE, PASS, Limit, assess, judge
+from sweeprig.analysis.limits import (
+    FAIL,
+    INCONCLUSIVE,
+    PASS,
+    Assessment,
+    Limit,
+    assess,
+    judge,
+)
 
 #: A flag that does not make a judgement inconclusive.
 CALM = next(name for name in FLAGS if name not in SUSPECT_FLAGS)
@@ -143,3 +151,40 @@ def test_a_suspect_flag_makes_a_block_row_inconclusive_whatever_its_value() -> N
     assert OVERLOAD in SUSPECT_FLAGS
     assert judged.verdict.tolist() == [1] * 4
     assert judged.reasons() == [f"flagged: {OVERLOAD}"] * 4
+
+
+def _margin_of(value: float, limit: Limit) -> float:
+    """The nearer edge's distance inside the limit, written out (inf: no value or edge)."""
+    if not math.isfinite(value):
+        return math.inf
+    edges = [value - limit.min] if limit.min is not None else []
+    edges += [limit.max - value] if limit.max is not None else []
+    return min(edges, default=math.inf)
+
+
+def test_loose_figures_of_several_names_are_judged_by_their_own_limits_in_order() -> None:
+    gains = _figures(90, seed=5)
+    others = [Figure("noise_figure", f.value, "dB", f.bound, f.conditions, f.flags, f.points,
+                     f.uncertainty_db) for f in _figures(90, seed=6)]
+    figures = [f for pair in zip(gains, others, strict=True) for f in pair]  # interleaved
+    limits = (*LIMITS, Limit("noise_figure", max=11.0), Limit("isolation", min=20.0))
+    assessment = assess(figures, limits)
+    expected = [(i, judge(f, limit)) for limit in limits for i, f in enumerate(figures)
+                if limit.applies_to(f)]
+    got = list(assessment.judgements)
+    assert [(j.position, _judged(j)[1:4]) for j in got] \
+        == [(i, (one.limit, one.verdict, one.suspect)) for i, one in expected]
+    assert assessment.untested == (limits[-1],)
+    table = assessment.judgements.table()
+    assert table.margin.tolist() == [_margin_of(one.figure.value, one.limit)
+                                     for _i, one in expected]
+
+
+def test_an_assessment_of_judgements_under_several_limits_has_each_ones_margin() -> None:
+    figures = _figures(40, seed=9)
+    # one tuple of judgements whose limits change from row to row and come back
+    judgements = [judge(f, LIMITS[i % 3]) for i, f in enumerate(figures)]
+    table = Assessment(FAIL, judgements).judgements.table()
+    assert table.margin.tolist() == [_margin_of(j.figure.value, j.limit) for j in judgements]
+    assert [table.limits[k] for k in table.limit.tolist()] == [j.limit for j in judgements]
+    assert len(table.limits) == 3
