@@ -49,6 +49,8 @@ from sweeprig.store.base import (
 if TYPE_CHECKING:
     import pandas as pd
 
+    from sweeprig.store.side_reader import TypedColumns
+
 SCHEMA_VERSION = 4
 """2: run status ``unsafe`` allowed; 3: table ``run_files`` (included fragments and the merged
 sequence) and ``runs.activity_json`` (what a live run is waiting for); 4: table
@@ -736,9 +738,13 @@ class SqlRunStoreCore:
         params = [(run_id,) if start is None else (run_id, start, stop)
                   for start, stop in slices]
         frames = []
-        for rows in self._rows_in_slices(select + where + " ORDER BY point_index, reading_no",
-                                         params):
-            frames.append(_typed_readings(pd.DataFrame.from_records(rows, columns=columns)))
+        for rows in self._typed_slices(select + where + " ORDER BY point_index, reading_no",
+                                       params, READING_KINDS):
+            if isinstance(rows, list):
+                frames.append(_typed_readings(pd.DataFrame.from_records(rows,
+                                                                        columns=columns)))
+            else:
+                frames.append(_readings_of_columns(rows, columns))
             del rows
         if len(frames) == 1:
             return frames[0]
@@ -756,6 +762,12 @@ class SqlRunStoreCore:
         of them elsewhere: :mod:`sweeprig.store.side_reader`)."""
         for p in params:
             yield self._read(sql, p)
+
+    def _typed_slices(self, sql: str, params: Sequence[Sequence[object]], kinds: str
+                      ) -> Iterator[list[tuple[Any, ...]] | TypedColumns]:
+        """:meth:`_rows_in_slices`, where a slice may come as columns already typed by the
+        column ``kinds`` (:func:`sweeprig.store.side_reader.typed_slices`)."""
+        yield from self._rows_in_slices(sql, params)
 
     def events(self, run_id: int) -> list[EventRecord]:
         """The run's events, oldest first."""
@@ -796,6 +808,32 @@ class SqlRunStoreCore:
 
 #: Points whose readings :meth:`SqlRunStoreCore.readings_frame` reads per query.
 READING_SLICE_POINTS = 5000
+
+
+#: The kinds of the columns ``readings_frame`` reads (:data:`sweeprig.store.side_reader.KINDS`):
+#: ids, text, numbers, nullable integers, the overload flag, the nullable check flag, text.
+READING_KINDS = "iiitttfffIIffffIbBt"
+
+
+def _readings_of_columns(slice_: TypedColumns, columns: list[str]) -> pd.DataFrame:
+    """A slice of readings typed by the child (:data:`READING_KINDS`) as the frame
+    :func:`_typed_readings` makes of its rows: the same columns, types and values."""
+    import numpy as np
+    import pandas as pd
+
+    data: dict[str, object] = {}
+    for k, (name, kind) in enumerate(zip(columns, READING_KINDS, strict=True)):
+        values, mask = slice_.values[k], slice_.masks[k]
+        if kind == "t":
+            # (as objects: the frame infers their type as from_records does, text or not)
+            data[name] = np.array(values, dtype=object)
+        elif kind == "I":
+            data[name] = pd.arrays.IntegerArray(values, mask)
+        elif kind == "B":
+            data[name] = pd.arrays.BooleanArray(values, mask)
+        else:
+            data[name] = values
+    return pd.DataFrame(data)
 
 
 def _typed_readings(frame: pd.DataFrame) -> pd.DataFrame:

@@ -43,13 +43,17 @@ import time
 from collections.abc import Iterator, Mapping, Sequence
 from contextlib import contextmanager, suppress
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from sweeprig.errors import StoreError
 from sweeprig.files import sha256_text  # noqa: F401  (re-exported: older imports name it here)
 from sweeprig.signals import deferred
 from sweeprig.store.base import HEARTBEAT_STALE_S, PointRecord, ReadingRecord
 from sweeprig.store.runlock import run_lock_held
+
+if TYPE_CHECKING:
+    from sweeprig.store.side_reader import TypedColumns
+
 from sweeprig.store.sql import (  # noqa: F401  (re-exported: older imports name them here)
     POINT_COLUMNS,
     READING_COLUMNS,
@@ -499,6 +503,14 @@ class SqliteRunStore(SqlRunStoreCore):
         from sweeprig.store.side_reader import rows_in_slices
 
         return rows_in_slices(self.path, sql, params, self._read)
+
+    def _typed_slices(self, sql: str, params: Sequence[Sequence[object]], kinds: str
+                      ) -> Iterator[list[tuple[Any, ...]] | TypedColumns]:
+        """:meth:`_rows_in_slices`, the child's slices typed by it
+        (:func:`sweeprig.store.side_reader.typed_slices`)."""
+        from sweeprig.store.side_reader import typed_slices
+
+        return typed_slices(self.path, sql, params, self._read, kinds)
 
     def _error(self, exc: sqlite3.Error, what: str) -> StoreError:
         """The user's view of an SQLite error: what it means (by result code) and what to do.

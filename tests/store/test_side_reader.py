@@ -104,3 +104,109 @@ def test_a_reading_stopped_early_stops_the_child_and_removes_its_file(table: Pat
     ((child, out),) = started
     assert child.poll() is not None  # ended, not left running
     assert not out.exists()
+
+
+# -- typed slices ------------------------------------------------------------------------------
+
+TYPED_SQL = "SELECT k, x, n, f, g, t FROM typed WHERE k >= ? AND k < ? ORDER BY k"
+KINDS = "ifIbBt"
+
+
+@pytest.fixture
+def typed_table(tmp_path: Path) -> Path:
+    """Every column kind, missing values included (an int stored in the REAL column too)."""
+    path = tmp_path / "typed.sqlite"
+    conn = sqlite3.connect(path)
+    conn.execute("CREATE TABLE typed (k INTEGER, x REAL, n INTEGER, f INTEGER, g INTEGER, "
+                 "t TEXT)")
+    conn.executemany("INSERT INTO typed VALUES (?, ?, ?, ?, ?, ?)",
+                     [(k, None if k % 6 == 0 else k / 7.0 - 1e-17 * k, None if k % 4 else -k,
+                       k % 2, None if k % 3 == 0 else (k // 3) % 2,
+                       None if k % 5 == 0 else f"é{k % 9}") for k in range(400)])
+    conn.execute("INSERT INTO typed VALUES (400, 12, 3, 1, 0, 'last')")
+    conn.commit()
+    conn.close()
+    return path
+
+
+TYPED_PARAMS = [(start, start + 51) for start in range(0, 408, 51)]
+
+
+def _typed_rows(got: side_reader.TypedColumns) -> list[tuple]:
+    """A typed slice as the rows read here would be (NaN and masked values: None)."""
+    import math
+
+    columns = []
+    for kind, values, mask in zip(KINDS, got.values, got.masks, strict=True):
+        if kind == "t":
+            columns.append(list(values))
+            continue
+        cells = values.tolist()
+        if kind == "f":
+            cells = [None if math.isnan(v) else v for v in cells]
+        elif kind in "bB":
+            cells = [int(v) for v in cells]
+        if mask is not None:
+            cells = [None if missing else v for v, missing in zip(cells, mask.tolist(),
+                                                                   strict=True)]
+        columns.append(cells)
+    return list(zip(*columns, strict=True))
+
+
+def test_the_childs_slices_come_typed_and_hold_the_same_values(typed_table: Path) -> None:
+    here = [_reader(typed_table, [])(TYPED_SQL, p) for p in TYPED_PARAMS]
+    calls: list[tuple] = []
+    got = list(side_reader.typed_slices(typed_table, TYPED_SQL, TYPED_PARAMS, _reader(
+        typed_table, calls), KINDS))
+    assert calls == TYPED_PARAMS[:4]  # the rest came from the child, typed
+    assert [g for g in got[:4]] == here[:4]
+    typed = got[4:]
+    assert all(isinstance(g, side_reader.TypedColumns) for g in typed)
+    assert [_typed_rows(g) for g in typed] == here[4:]
+    last = typed[-1]
+    assert [v.dtype.name for v in last.values[:5]] == ["int64", "float64", "int64", "bool",
+                                                       "bool"]
+    assert last.masks[0] is None and last.masks[2].dtype.name == "bool"
+    assert all(m.flags.writeable for m in last.masks if m is not None)
+
+
+@pytest.mark.parametrize("kinds, change", [
+    ("ifibBt", None),  # a None in an integer column that may not have one
+    ("ifIbbt", None),  # ... in a flag column
+    (KINDS, "UPDATE typed SET g = 2 WHERE k = 300"),  # a flag that is neither 0 nor 1
+    (KINDS, "UPDATE typed SET x = 'text' WHERE k = 390"),  # a text in a number column
+    (KINDS, "UPDATE typed SET n = 2.5 WHERE k = 388"),  # a fraction in an integer column
+])
+def test_a_value_its_kind_cannot_hold_leaves_the_childs_slices_to_be_read_here(
+        typed_table: Path, kinds: str, change: str | None) -> None:
+    if change is not None:
+        conn = sqlite3.connect(typed_table)
+        conn.execute(change)
+        conn.commit()
+        conn.close()
+    calls: list[tuple] = []
+    got = list(side_reader.typed_slices(typed_table, TYPED_SQL, TYPED_PARAMS,
+                                        _reader(typed_table, calls), kinds))
+    assert calls == TYPED_PARAMS
+    assert got == [_reader(typed_table, [])(TYPED_SQL, p) for p in TYPED_PARAMS]
+
+
+def test_a_child_that_writes_columns_as_values_leaves_its_slices_to_be_read_here(
+        typed_table: Path, monkeypatch) -> None:
+    monkeypatch.setattr(side_reader, "_CHILD_CODE", (
+        "import json, pickle, sqlite3, sys\n"
+        "c = sqlite3.connect(sys.argv[1], uri=True)\n"
+        "f = open(sys.argv[4], 'wb')\n"
+        "for p in json.loads(sys.argv[3]):\n"
+        "    pickle.dump(tuple(zip(*c.execute(sys.argv[2], p).fetchall())), f)\n"))
+    calls: list[tuple] = []
+    got = list(side_reader.typed_slices(typed_table, TYPED_SQL, TYPED_PARAMS,
+                                        _reader(typed_table, calls), KINDS))
+    assert calls == TYPED_PARAMS
+    assert got == [_reader(typed_table, [])(TYPED_SQL, p) for p in TYPED_PARAMS]
+
+
+def test_unknown_column_kinds_are_refused(typed_table: Path) -> None:
+    with pytest.raises(ValueError, match="column kinds"):
+        list(side_reader.typed_slices(typed_table, TYPED_SQL, TYPED_PARAMS,
+                                      _reader(typed_table, []), "ifx"))

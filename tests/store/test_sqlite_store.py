@@ -432,3 +432,44 @@ def test_a_version_3_store_gains_the_run_figures_table_and_reads_without_it(tmp_
     with sqlite3.connect(path) as db:
         assert db.execute("SELECT setting FROM store_meta WHERE name = 'schema_version'"
                           ).fetchone() == (str(SCHEMA_VERSION),)
+
+
+def test_readings_the_side_reader_types_make_the_same_table(sqlite_store, monkeypatch):
+    """The child process types its slices of readings (sweeprig.store.side_reader); the
+    table made of them is the one made of rows read here: columns, types, values, bits."""
+    import numpy as np
+
+    import sweeprig.store.side_reader as side_reader
+    import sweeprig.store.sql as sql
+
+    store = sqlite_store
+    run_id = _run(store)
+    for index in range(8):
+        readings = [
+            *_readings(index),
+            ReadingRecord("supply_current", "supply_current", "dc", extra={"current_a": 0.04}),
+            ReadingRecord("im3.lower.att10", "im3", "if", 69e6, -80.25 - index, -100.0, 2, -1,
+                          1e6, 1e3, 20.0, -10.0, None, overload=index == 5,
+                          attenuation_check=True, extra={"repeat_of": "im3.lower"}),
+        ]
+        if index == 6:  # a slice with no repeat: its check column holds no flag at all
+            readings = readings[1:3]
+        store.write_point(run_id, _point(index), readings)
+    monkeypatch.setattr(side_reader, "SIDE_READ_MIN_SLICES", 10**6)
+    here = store.readings_frame(run_id)
+    monkeypatch.undo()
+    typed = []
+    made = sql._readings_of_columns
+    monkeypatch.setattr(sql, "_readings_of_columns",
+                        lambda *a: typed.append(1) or made(*a))
+    monkeypatch.setattr(sql, "READING_SLICE_POINTS", 1)
+    sliced = store.readings_frame(run_id)
+    assert len(typed) == 4  # the child's half of the 8 slices came typed
+    pd.testing.assert_frame_equal(sliced, here, check_exact=True)
+    assert list(sliced.dtypes) == list(here.dtypes)
+    for column in here.columns:
+        if here[column].dtype == np.float64:
+            assert np.array_equal(sliced[column].to_numpy().view(np.uint64),
+                                  here[column].to_numpy().view(np.uint64)), column
+    assert here["averages"].isna().any() and here["attenuation_check"].isna().any()
+    assert here["level_dbm"].isna().any() and here["overload"].any()
