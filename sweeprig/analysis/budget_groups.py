@@ -51,14 +51,16 @@ from sweeprig.analysis.uncertainty import (
     InstrumentSpecs,
     PointLevels,
     _cached_level_terms,
-    _compression_terms,
     _condition_key,
     _Model,
     _noise_reading,
-    intercept_fit_u_db,
-    mean_u_db,
+    compression_lines,
+    compression_slopes,
+    intercept_fit_u_rows,
     noise_reading_at,
     small_signal_gain_u,
+    std_of_mean_rows,
+    worst_scatter_of,
 )
 from sweeprig.analysis.writable_twin import writable_twin
 
@@ -221,58 +223,92 @@ def figure_budget(figure: Figure, levels: PointLevels, specs: InstrumentSpecs,
     """The budget of ``figure`` alone (None: a bound, not a number, not in dB, or a figure
     with no model): the lowest SNR of each reading whose noise matters over its points, a
     fitted figure's fit or compression lines, and (without a fit line, whose observed
-    scatter holds it) the reading that scatters most."""
+    scatter holds it) the reading that scatters most (:func:`alike_budgets`)."""
     model = MODELS.get(figure.name)
     if model is None or not figure.is_number or figure.unit not in _DB_UNITS:
         return None
     noisy = _noisy(model, _noise_reading(model, figure))
+    return alike_budgets(model, noisy, [figure], levels, specs, cal,
+                         small_signal_u=small_signal_u)[0]
+
+
+def alike_budgets(model: _Model, noisy: Noisy, figures: Sequence[Figure],
+                  levels: PointLevels, specs: InstrumentSpecs,
+                  cal: CalibrationState = UNCALIBRATED, *,
+                  small_signal_u: Mapping[tuple, float] | None = None
+                  ) -> list[FigureBudget]:
+    """The budgets of ``figures`` (numbers in dB, each over the same count of points, of
+    ``model`` with the noisy readings ``noisy``), one each, as :func:`figure_budget` gives
+    it. Their readings are looked up for all of them at once, and their SNR, fit and slope
+    worked out row by row with numpy (the same numbers as for one figure)."""
     shared = shared_budget(model, noisy, specs, cal)
-    pts = [int(p) for p in figure.points]
-    snr = tuple(levels.min_snr_db(pts, reading) for reading, _ in noisy)
-    own: list[Contribution] = []
-    fitted = False
-    if model.fit == "intercept" and model.product is not None:
-        product, order = model.product, model.order
-
-        def fit_u() -> float:
-            return intercept_fit_u_db(levels.inputs_dbm(pts), levels.levels_dbm(pts, "if"),
-                                      levels.levels_dbm(pts, product), order)
-
-        # (the input and output intercepts of one product share their fit)
-        u = levels.remembered(("intercept_u", product, order, *pts), fit_u)
-        if math.isfinite(u):
-            fitted = True
-            own.append(Contribution("fit", f"scatter about the slope-1/slope-{model.order} "
-                                    f"lines ({len(pts)} points)", u, "standard", 1.0, "A",
-                                    "measured: regression standard error"))
-    elif model.fit == "linear":
-        gains = [level - x for level, x in zip(levels.levels_dbm(pts, "if"),
-                                               levels.inputs_dbm(pts), strict=True)]
-        u = mean_u_db(gains)
-        if math.isfinite(u):
-            fitted = True
-            own.append(Contribution("fit", f"scatter of the gain over the linear region "
-                                    f"({len(pts)} points)", u, "standard", 1.0, "A",
-                                    "measured: standard deviation of the mean"))
-    elif model.fit == "compression":
-        own += _compression_terms(figure, levels, specs, small_signal_u)
-    scatter_snr: list[float] = []
-    averages: list[int] = []
+    count = len(figures)
+    width = len(figures[0].points)
+    points = np.array([f.points for f in figures], dtype=np.int64).reshape(count, width)
+    snrs: list[np.ndarray] = []
+    lowest: list[list[float]] = []
+    averages: list[np.ndarray] = []
     for reading, _ in noisy:
-        # A fit's own Type A term is the observed scatter of its points, this one included:
-        # only a figure without one (single readings, or too few points) takes it here.
-        worst = None if fitted else levels.worst_scatter(pts, reading)
-        if worst is not None and worst[0] > 0.0:
-            scatter_snr.append(worst[1])
-            averages.append(worst[2])
-        else:
-            scatter_snr.append(math.nan)
-            averages.append(1)
-    budget = FigureBudget(shared, tuple(v if math.isfinite(v) else math.nan for v in snr),
-                          tuple(scatter_snr), tuple(averages), tuple(own))
-    combined = math.hypot(*[c.contribution_db for c in budget_lines(budget)])
-    object.__setattr__(budget, "combined_db", combined)
-    return budget
+        snr, avg = levels.snr_and_averages(reading, points.ravel())
+        snr, avg = snr.reshape(count, width), avg.reshape(count, width)
+        finite = np.isfinite(snr)
+        low = np.full(count, math.nan)
+        known = finite.any(axis=1)
+        if known.any():
+            low[known] = np.where(finite[known], snr[known], math.inf).min(axis=1)
+        snrs.append(snr)
+        averages.append(avg)
+        lowest.append(low.tolist())
+    # per figure: its fit's u (NaN: none) or its compression slope
+    fit_u: list[float] = [math.nan] * count
+    fit_text = fit_origin = ""
+    slopes: list[float] = []
+    if model.fit in ("intercept", "linear", "compression"):
+        inputs = levels.inputs_at(points)
+        wanted = levels.levels_at("if", points)
+        if model.fit == "intercept" and model.product is not None:
+            fit_u = intercept_fit_u_rows(inputs, wanted,
+                                         levels.levels_at(model.product, points), model.order)
+            fit_text = f"scatter about the slope-1/slope-{model.order} lines ({width} points)"
+            fit_origin = "measured: regression standard error"
+        elif model.fit == "linear":
+            gains = wanted - inputs
+            fit_u = std_of_mean_rows(gains, np.isfinite(gains)).tolist()
+            fit_text = f"scatter of the gain over the linear region ({width} points)"
+            fit_origin = "measured: standard deviation of the mean"
+        elif model.fit == "compression":
+            slopes = compression_slopes(inputs, wanted - inputs).tolist()
+    snr_lists = [s.tolist() for s in snrs]
+    avg_lists = [a.tolist() for a in averages]
+    lines: dict[tuple, object] = {}  # the noise lines, made once for the figures
+    out: list[FigureBudget] = []
+    for i, figure in enumerate(figures):
+        own: list[Contribution] = []
+        fitted = math.isfinite(fit_u[i])
+        if fitted:
+            own.append(Contribution("fit", fit_text, fit_u[i], "standard", 1.0, "A",
+                                    fit_origin))
+        elif slopes:
+            own += compression_lines(figure, slopes[i], specs, small_signal_u)
+        scatter_snr: list[float] = []
+        scatter_avg: list[int] = []
+        for j in range(len(noisy)):
+            # A fit's own Type A term is the observed scatter of its points, this one
+            # included: only a figure without one (single readings, or too few points)
+            # takes it here.
+            worst = None if fitted else worst_scatter_of(snr_lists[j][i], avg_lists[j][i])
+            if worst is not None and worst[0] > 0.0:
+                scatter_snr.append(worst[1])
+                scatter_avg.append(worst[2])
+            else:
+                scatter_snr.append(math.nan)
+                scatter_avg.append(1)
+        budget = FigureBudget(shared, tuple(low[i] for low in lowest), tuple(scatter_snr),
+                              tuple(scatter_avg), tuple(own))
+        combined = math.hypot(*[c.contribution_db for c in budget_lines(budget, lines)])
+        object.__setattr__(budget, "combined_db", combined)
+        out.append(budget)
+    return out
 
 
 def grouped_budgets(figures: Sequence[Figure], captures: pd.DataFrame,
@@ -314,9 +350,18 @@ def grouped_budgets(figures: Sequence[Figure], captures: pd.DataFrame,
         levels = PointLevels.from_captures(captures)
     if alone:
         small_signal_u = small_signal_gain_u(figures, levels)
+        # alike: one model, the same noisy readings and count of points
+        alike: dict[tuple[str, Noisy, int], list[int]] = {}
         for i in alone:
-            budgets[i] = figure_budget(figures[i], levels, specs, cal,
-                                       small_signal_u=small_signal_u)
+            f = figures[i]
+            model = MODELS[f.name]
+            key = (f.name, _noisy(model, _noise_reading(model, f)), len(f.points))
+            alike.setdefault(key, []).append(i)
+        for (name, noisy, _count), members in alike.items():
+            made = alike_budgets(MODELS[name], noisy, [figures[i] for i in members], levels,
+                                 specs, cal, small_signal_u=small_signal_u)
+            for i, budget in zip(members, made, strict=True):
+                budgets[i] = budget
     for (name, noisy), members in groups.items():
         shared = shared_budget(MODELS[name], noisy, specs, cal)
         points = np.fromiter((int(figures[i].points[0]) for i in members), dtype=np.int64,

@@ -53,17 +53,15 @@ from __future__ import annotations
 import functools
 import math
 import sys
-from collections.abc import Callable, Iterable, Mapping, Sequence
+from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
-from typing import Any, Literal, TypeVar
+from typing import Any, Literal
 
 import numpy as np
 import pandas as pd
 
 from sweeprig.analysis.figures import Figure
 from sweeprig.analysis.writable_twin import writable_twin
-
-T = TypeVar("T")
 
 Shape = Literal["rectangular", "triangular", "u-shaped", "normal-k2", "standard"]
 
@@ -444,9 +442,6 @@ class PointLevels:
 
     def __init__(self, captures: pd.DataFrame) -> None:
         self._tables: dict[str, tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]] = {}
-        # the answers for a set of points, asked again by the other figures of its sweep
-        # (iip3_low and oip3_low, input_p1db and output_p1db): kept as tuples
-        self._asked: dict[tuple[object, ...], object] = {}
         self._rows: dict[str, np.ndarray] = {}
         empty = captures.empty or "reading" not in captures
         # the rows a budget reads (the attenuation repeats left out), taken column by column:
@@ -534,47 +529,33 @@ class PointLevels:
             return np.full(points.size, math.nan), np.ones(points.size, dtype=np.int64)
         return np.where(found, snr[pos], math.nan), np.where(found, avg[pos], 1)
 
-    def remembered(self, key: tuple[object, ...], make: Callable[[], T]) -> T:
-        """``make()``, made once per ``key`` for as long as these levels are held: what the
-        figures of one sweep each work out from the same points (a fit's scatter, their
-        levels). ``make`` must give something never changed afterwards (a number, a
-        tuple)."""
-        asked = self._asked
-        if key in asked:
-            return asked[key]  # type: ignore[return-value]
-        kept = asked[key] = make()
-        return kept
+    def levels_at(self, reading: str, points: np.ndarray) -> np.ndarray:
+        """The level (dBm) of ``reading`` at each of ``points`` (an int64 array, any shape);
+        NaN where none."""
+        at, level, _, _ = self._table(reading)
+        if at.size == 0:
+            return np.full(points.shape, math.nan)
+        pos, found = self._find(at, points)
+        return np.where(found, level[pos], math.nan)
+
+    def inputs_at(self, points: np.ndarray) -> np.ndarray:
+        """The input power (dBm) of each of ``points`` (an int64 array, any shape); NaN
+        where the point is unknown."""
+        if self._input_at.size == 0:
+            return np.full(points.shape, math.nan)
+        pos, found = self._find(self._input_at, points)
+        return np.where(found, self._input[pos], math.nan)
 
     def levels_dbm(self, points: Sequence[int], reading: str) -> list[float]:
         """The level (dBm) of ``reading`` at each of ``points``; NaN where none."""
-        return list(self.remembered(("levels", reading, *points),
-                                    lambda: tuple(self._levels_dbm(points, reading))))
-
-    def _levels_dbm(self, points: Sequence[int], reading: str) -> list[float]:
-        at, level, _, _ = self._table(reading)
-        wanted = np.asarray(points, dtype=np.int64)
-        pos, found = self._find(at, wanted)
-        if at.size == 0:
-            return [math.nan] * wanted.size
-        return np.where(found, level[pos], math.nan).tolist()
+        return self.levels_at(reading, np.asarray(points, dtype=np.int64)).tolist()
 
     def inputs_dbm(self, points: Sequence[int]) -> list[float]:
         """The input power (dBm) of each of ``points``; NaN where the point is unknown."""
-        return list(self.remembered(("inputs", *points), lambda: self._inputs_dbm(points)))
-
-    def _inputs_dbm(self, points: Sequence[int]) -> tuple[float, ...]:
-        wanted = np.asarray(points, dtype=np.int64)
-        if self._input_at.size == 0:
-            return (math.nan,) * wanted.size
-        pos, found = self._find(self._input_at, wanted)
-        return tuple(np.where(found, self._input[pos], math.nan).tolist())
+        return self.inputs_at(np.asarray(points, dtype=np.int64)).tolist()
 
     def min_snr_db(self, points: Sequence[int], reading: str) -> float:
         """The lowest level − noise floor of ``reading`` over ``points`` (NaN: unknown)."""
-        return self.remembered(("min_snr", reading, *points),
-                               lambda: self._min_snr_db(points, reading))
-
-    def _min_snr_db(self, points: Sequence[int], reading: str) -> float:
         snr, _ = self.snr_and_averages(reading, np.asarray(points, dtype=np.int64))
         snr = snr[np.isfinite(snr)]
         return float(snr.min()) if snr.size else math.nan
@@ -583,20 +564,22 @@ class PointLevels:
                       ) -> tuple[float, float, int] | None:
         """(scatter dB, SNR dB, averages) of the reading of ``reading`` over ``points`` that
         scatters most by :func:`noise_scatter_db` (None: no reading with a noise floor)."""
-        return self.remembered(("scatter", reading, *points),
-                               lambda: self._worst_scatter(points, reading))
-
-    def _worst_scatter(self, points: Sequence[int], reading: str
-                       ) -> tuple[float, float, int] | None:
         snrs, avgs = self.snr_and_averages(reading, np.asarray(points, dtype=np.int64))
-        worst: tuple[float, float, int] | None = None
-        for snr, avg in zip(snrs.tolist(), avgs.tolist(), strict=True):
-            if math.isnan(snr):
-                continue
-            sigma = noise_scatter_db(snr, avg)
-            if worst is None or sigma > worst[0]:
-                worst = (sigma, snr, avg)
-        return worst
+        return worst_scatter_of(snrs.tolist(), avgs.tolist())
+
+
+def worst_scatter_of(snrs: Sequence[float], averages: Sequence[int]
+                     ) -> tuple[float, float, int] | None:
+    """(scatter dB, SNR dB, averages) of the reading among (``snrs`` dB, ``averages``) that
+    scatters most by :func:`noise_scatter_db`, the first of equals (None: no SNR known)."""
+    worst: tuple[float, float, int] | None = None
+    for snr, avg in zip(snrs, averages, strict=True):
+        if math.isnan(snr):
+            continue
+        sigma = noise_scatter_db(snr, avg)
+        if worst is None or sigma > worst[0]:
+            worst = (sigma, snr, avg)
+    return worst
 
 
 def spur_key(m: float, n: float) -> str:
@@ -647,28 +630,29 @@ def intercept_fit_u_db(input_dbm: Sequence[float], fund_dbm: Sequence[float],
                        product_dbm: Sequence[float], order: int) -> float:
     """Type A standard uncertainty of a constrained-fit intercept IIPn = (a − b)/(n − 1),
     a = mean(P_fund − P_in), b = mean(P_IMn − n·P_in): u = sqrt(u(a)² + u(b)²)/(n − 1) with
-    u(a) = s_a/√N (JCGM 100:2008 4.2.3, the experimental standard deviation of the mean).
-    NaN with fewer than 2 points."""
-    x = np.asarray(input_dbm, dtype=float)
-    a = np.asarray(fund_dbm, dtype=float) - x
-    b = np.asarray(product_dbm, dtype=float) - order * x
+    u(a) = s_a/√N (JCGM 100:2008 4.2.3, the experimental standard deviation of the mean),
+    over the points where both are known. NaN with fewer than 2 points."""
+    return intercept_fit_u_rows(*(np.asarray(v, dtype=float).reshape(1, -1)
+                                  for v in (input_dbm, fund_dbm, product_dbm)), order)[0]
+
+
+def intercept_fit_u_rows(input_dbm: np.ndarray, fund_dbm: np.ndarray,
+                         product_dbm: np.ndarray, order: int) -> list[float]:
+    """:func:`intercept_fit_u_db` of each row of the arrays (shape (n, m)), dB."""
+    a = fund_dbm - input_dbm
+    b = product_dbm - order * input_dbm
     ok = np.isfinite(a) & np.isfinite(b)
-    n = int(ok.sum())
-    if n < 2:
-        return math.nan
-    u_a = float(np.std(a[ok], ddof=1)) / math.sqrt(n)
-    u_b = float(np.std(b[ok], ddof=1)) / math.sqrt(n)
-    return math.hypot(u_a, u_b) / (order - 1)
+    enough = (ok.sum(axis=1) >= 2).tolist()
+    return [math.hypot(u_a, u_b) / (order - 1) if many else math.nan
+            for u_a, u_b, many in zip(std_of_mean_rows(a, ok).tolist(),
+                                      std_of_mean_rows(b, ok).tolist(), enough, strict=True)]
 
 
 def mean_u_db(values: Sequence[float]) -> float:
     """Type A: the experimental standard deviation of the mean, s/√N (JCGM 100:2008 4.2.3).
     NaN with fewer than 2 finite values."""
-    v = np.asarray(values, dtype=float)
-    v = v[np.isfinite(v)]
-    if v.size < 2:
-        return math.nan
-    return float(np.std(v, ddof=1)) / math.sqrt(v.size)
+    v = np.asarray(values, dtype=float).reshape(1, -1)
+    return float(std_of_mean_rows(v, np.isfinite(v))[0])
 
 
 # ---------------------------------------------------------------------------------------------
@@ -787,19 +771,13 @@ def _scatter_line(words: str, sigma_db: float, snr_db: float, averages: int, c: 
         _SCATTER_ORIGIN)
 
 
-def _compression_terms(figure: Figure, levels: PointLevels, specs: InstrumentSpecs,
-                       small_signal_u: Mapping[tuple, float] | None) -> list[Contribution]:
+def compression_lines(figure: Figure, slope: float, specs: InstrumentSpecs,
+                      small_signal_u: Mapping[tuple, float] | None) -> list[Contribution]:
     """A compression point is where the gain falls x dB below the small-signal gain: an
     error δ in that reference (its scatter, the display linearity across the compared
-    levels) moves the crossing by δ / |dG/dP_in|, the compression curve's local slope
-    between the two bracketing points (capped at 20, i.e. a slope of 0.05 dB/dB)."""
-    pts = [int(p) for p in figure.points]
-    slope = math.nan
-    if len(pts) == 2:
-        x = levels.inputs_dbm(pts)
-        g = [level - xi for level, xi in zip(levels.levels_dbm(pts, "if"), x, strict=True)]
-        if x[1] != x[0]:
-            slope = abs((g[1] - g[0]) / (x[1] - x[0]))
+    levels) moves the crossing by δ / |dG/dP_in|, with ``slope`` the compression curve's
+    local |dG/dP_in| between the two bracketing points (:func:`compression_slopes`; NaN:
+    unknown), capped at 20 (a slope of 0.05 dB/dB)."""
     c = min(1.0 / slope, 20.0) if math.isfinite(slope) and slope > 0 else 1.0
     lin = specs.analyzer_linearity
     out = [Contribution("analyzer_linearity", "display linearity between the linear region "
@@ -813,6 +791,20 @@ def _compression_terms(figure: Figure, levels: PointLevels, specs: InstrumentSpe
     return out
 
 
+def compression_slopes(inputs_dbm: np.ndarray, gains_db: np.ndarray) -> np.ndarray:
+    """|dG/dP_in| (dB/dB) between the two points of each row of ``inputs_dbm`` and
+    ``gains_db`` (shape (n, 2)); NaN where the inputs are equal, or a row has not two."""
+    slope = np.full(inputs_dbm.shape[0], math.nan)
+    if inputs_dbm.ndim != 2 or inputs_dbm.shape[1] != 2:
+        return slope
+    x0, x1 = inputs_dbm[:, 0], inputs_dbm[:, 1]
+    apart = x1 != x0
+    with np.errstate(all="ignore"):
+        slope[apart] = np.abs((gains_db[apart, 1] - gains_db[apart, 0])
+                              / (x1[apart] - x0[apart]))
+    return slope
+
+
 def _condition_key(conditions: Mapping[str, object]) -> tuple:
     return tuple(sorted((k, v) for k, v in conditions.items()))
 
@@ -822,12 +814,33 @@ def small_signal_gain_u(figures: Sequence[Figure], levels: PointLevels
     """Per condition set (:func:`_condition_key`), the Type A standard uncertainty (dB) of
     its small-signal gain (:func:`mean_u_db` of the gains it was the mean of): the
     reference error a compression point's fit term takes."""
+    gains = [f for f in figures if f.name == "small_signal_gain" and f.is_number]
+    by_count: dict[int, list[int]] = {}
+    for k, f in enumerate(gains):
+        by_count.setdefault(len(f.points), []).append(k)
+    u = np.full(len(gains), math.nan)
+    for count, members in by_count.items():
+        points = np.array([gains[k].points for k in members],
+                          dtype=np.int64).reshape(len(members), count)
+        g = levels.levels_at("if", points) - levels.inputs_at(points)
+        u[members] = std_of_mean_rows(g, np.isfinite(g))
     out: dict[tuple, float] = {}
-    for f in figures:
-        if f.name == "small_signal_gain" and f.is_number:
-            gains = [level - x for level, x in zip(levels.levels_dbm(f.points, "if"),
-                                                    levels.inputs_dbm(f.points), strict=True)]
-            out[_condition_key(f.conditions)] = mean_u_db(gains)
+    for f, value in zip(gains, u.tolist(), strict=True):
+        out[_condition_key(f.conditions)] = value
+    return out
+
+
+def std_of_mean_rows(values: np.ndarray, ok: np.ndarray) -> np.ndarray:
+    """Per row of ``values`` (shape (n, m)), :func:`mean_u_db` of its values where ``ok``:
+    s/√N, NaN under two; the same numbers as one row at a time (rows wholly ``ok`` as one
+    array: numpy reduces each row alone, as it reduces one row)."""
+    count = ok.sum(axis=1)
+    out = np.full(values.shape[0], math.nan)
+    whole = ok.all(axis=1) & (count >= 2)
+    if whole.any():
+        out[whole] = np.std(values[whole], axis=1, ddof=1) / np.sqrt(count[whole])
+    for row in np.flatnonzero(~whole & (count >= 2)).tolist():
+        out[row] = float(np.std(values[row][ok[row]], ddof=1)) / math.sqrt(int(count[row]))
     return out
 
 

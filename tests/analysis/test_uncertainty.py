@@ -174,26 +174,20 @@ def test_noise_scatter_is_counted_once():
     assert term.standard_db == pytest.approx(noise_scatter_db(3 * -30.0 + 20.0 + 0.1 + 100.0))
 
 
-def test_the_figures_of_one_sweep_share_their_answers_not_their_lists(monkeypatch):
-    # The input and output intercepts of a product fit the same points: the fit is worked
-    # out once for both; an answer handed out as a list is the caller's own to change.
-    from sweeprig.analysis import budget_groups
-
+def test_the_figures_of_one_sweep_share_their_fit_not_their_lists():
+    # The input and output intercepts of a product fit the same points: the same fit line
+    # for both; a list of levels handed out is the caller's own to change.
     rows = []
     for i, x in enumerate(np.arange(-30.0, -18.0, 2.0)):
         rows.append((i, "if", x, x + 12.0 + 0.02 * (-1) ** i, -100.0))
         rows.append((i, "im3_low", x, 3 * x + 20.0 + 0.1 * (-1) ** i, -100.0))
     levels = PointLevels.from_captures(_captures(rows))
-    fits = []
-    real = budget_groups.intercept_fit_u_db
-    monkeypatch.setattr(budget_groups, "intercept_fit_u_db",
-                        lambda *a: fits.append(a) or real(*a))
     points = tuple(range(6))
     iip3 = figure_budget(Figure("iip3_low", -4.0, "dBm", points=points), levels,
                          InstrumentSpecs())
     oip3 = figure_budget(Figure("oip3_low", 8.0, "dBm", points=points), levels,
                          InstrumentSpecs())
-    assert iip3 is not None and oip3 is not None and len(fits) == 1
+    assert iip3 is not None and oip3 is not None
     assert [c for c in iip3.own_lines if c.name == "fit"] == \
         [c for c in oip3.own_lines if c.name == "fit"]
     first = levels.levels_dbm(points, "if")
@@ -259,6 +253,11 @@ def test_intercept_fit_uncertainty_agrees_with_scipy_curve_fit():
     assert math.isnan(intercept_fit_u_db([1.0], [2.0], [3.0], 3))
     assert mean_u_db([1.0, 2.0, 3.0]) == pytest.approx(1.0 / math.sqrt(3))
     assert math.isnan(mean_u_db([1.0]))
+    # only the known values count (NaN, ±inf left out), and the pair's points where both are
+    assert mean_u_db([1.0, math.nan, 3.0, math.inf, 2.0]) == 1.0 / math.sqrt(3)
+    assert math.isnan(mean_u_db([1.0, math.nan]))
+    partial = intercept_fit_u_db([*x, -10.0], [*fund, math.nan], [*im3, -20.0], 3)
+    assert partial == intercept_fit_u_db(x, fund, im3, 3)
 
 
 # ---------------------------------------------------------------------------------------------
@@ -539,3 +538,53 @@ def test_the_levels_leave_out_the_attenuation_repeats(categorical):
     levels = PointLevels.from_captures(captures)
     assert levels.levels_dbm([0, 1], "if")[0] == pytest.approx(-18.0)
     assert math.isnan(levels.levels_dbm([0, 1], "if")[1])
+
+
+def _same_budget(a, b) -> bool:
+    """Two FigureBudgets alike field by field, NaN equal to NaN, floats bit for bit."""
+    def same(x, y) -> bool:
+        if isinstance(x, float) and isinstance(y, float):
+            return (math.isnan(x) and math.isnan(y)) or x == y
+        if isinstance(x, tuple) and isinstance(y, tuple):
+            return len(x) == len(y) and all(same(p, q) for p, q in zip(x, y, strict=True))
+        return x == y
+    return (a.shared is b.shared and same(a.snr_db, b.snr_db)
+            and same(a.scatter_snr_db, b.scatter_snr_db) and a.averages == b.averages
+            and a.own_lines == b.own_lines and same(a.combined_db, b.combined_db))
+
+
+@pytest.mark.parametrize("name, width", [("iip3_low", 6), ("small_signal_gain", 5),
+                                         ("input_p1db", 2), ("image_rejection", 2),
+                                         ("iip3_low", 1)])
+def test_figures_worked_out_together_have_the_budgets_each_has_alone(name: str, width: int):
+    # Rows with every reading, rows with a reading or an input missing (NaN, or no row),
+    # rows with too few known points, two points at one input (no slope), a point with a
+    # floor above its level: each figure's budget is the one it has alone, bit for bit.
+    from sweeprig.analysis.budget_groups import _noisy, alike_budgets
+    from sweeprig.analysis.uncertainty import MODELS
+
+    rng = np.random.default_rng(5)
+    rows = []
+    for p in range(60):
+        x = -30.0 + (p % 12) * 2.0 if p % 17 else -30.0 + ((p - 1) % 12) * 2.0
+        level = x + 12.0 + rng.normal(0.0, 0.05)
+        floor = -100.0 if p % 11 else level + 3.0
+        if p % 13:
+            rows.append((p, "if", x, level if p % 7 else math.nan, floor))
+        rows.append((p, "im3_low", x, 3 * x + 20.0 + rng.normal(0.0, 0.1), -100.0))
+        rows.append((p, "image", x, level - 40.0 + rng.normal(0.0, 0.5), -110.0))
+    levels = PointLevels.from_captures(_captures(rows))
+    figures = [Figure(name, 1.0, "dB" if name in ("small_signal_gain", "image_rejection")
+                      else "dBm", conditions={"temperature_c": float(k % 3)},
+                      points=tuple(range(k, k + width)))
+               for k in range(0, 60 - width)]
+    specs = InstrumentSpecs()
+    small = {(("temperature_c", 0.0),): 0.02, (("temperature_c", 1.0),): math.nan}
+    model = MODELS[name]
+    together = alike_budgets(model, _noisy(model, model.noise_reading), figures, levels,
+                             specs, small_signal_u=small)
+    alone = [figure_budget(f, levels, specs, small_signal_u=small) for f in figures]
+    assert all(_same_budget(t, a) for t, a in zip(together, alone, strict=True))
+    # (both kinds of rows were there: wholly known, and with a level missing)
+    gaps = np.isnan(levels.levels_at("if", np.array([f.points for f in figures]))).any(axis=1)
+    assert gaps.any() and not gaps.all()

@@ -37,10 +37,10 @@ from sweeprig.analysis.uncertainty import (
     InstrumentSpecs,
     PointLevels,
     Spec,
-    _compression_terms,
     _level_terms,
     _noise_reading,
     _plain,
+    compression_lines,
     intercept_fit_u_db,
     made_line,
     mean_u_db,
@@ -91,7 +91,14 @@ def reference_budget(figure: Figure, levels: PointLevels, specs: InstrumentSpecs
                 "fit", f"scatter of the gain over the linear region ({len(pts)} points)", u,
                 "standard", 1.0, "A", "measured: standard deviation of the mean"))
     elif model.fit == "compression":
-        terms += _compression_terms(figure, levels, specs, small_signal_u)
+        # the curve's slope between the two bracketing points (the earlier path's own)
+        slope = math.nan
+        if len(pts) == 2:
+            x = levels.inputs_dbm(pts)
+            g = [lv - xi for lv, xi in zip(levels.levels_dbm(pts, "if"), x, strict=True)]
+            if x[1] != x[0]:
+                slope = abs((g[1] - g[0]) / (x[1] - x[0]))
+        terms += compression_lines(figure, slope, specs, small_signal_u)
     terms += fit_terms
     for reading, c in noisy if not fit_terms else ():
         worst = levels.worst_scatter(pts, reading)
