@@ -701,12 +701,16 @@ class SqlRunStoreCore:
                    "extra_json"]
         import pandas as pd
 
-        rows = self._read(
-            f"SELECT run_id, point_index, {', '.join(POINT_COLUMNS)}, wall_start_utc, "
-            "wall_end_utc, extra_json FROM points WHERE run_id = ? ORDER BY point_index",
-            (run_id,),
-        )
-        frame = pd.DataFrame.from_records(rows, columns=columns)
+        select = (f"SELECT run_id, point_index, {', '.join(POINT_COLUMNS)}, wall_start_utc, "
+                  "wall_end_utc, extra_json FROM points WHERE run_id = ?")
+        frames = []
+        for rows in self._sliced_by_point("points", select, " ORDER BY point_index", run_id,
+                                          POINT_SLICE_POINTS, POINT_KINDS):
+            frames.append(pd.DataFrame.from_records(rows, columns=columns)
+                          if isinstance(rows, list)
+                          else _frame_of_columns(rows, columns, POINT_KINDS))
+            del rows  # (before the next slice is read)
+        frame = _concatenated(frames, columns)
         for column in POINT_COLUMNS[1:]:
             frame[column] = frame[column].astype("float64")
         frame["run_id"] = frame["run_id"].astype("int64")
@@ -715,6 +719,23 @@ class SqlRunStoreCore:
         for column in ("wall_start", "wall_end"):
             frame[column] = pd.to_datetime(frame[column], utc=True, format="ISO8601")
         return frame
+
+    def _sliced_by_point(self, table: str, select: str, order: str, run_id: int,
+                         slice_points: int, kinds: str
+                         ) -> Iterator[list[tuple[Any, ...]] | TypedColumns]:
+        """The rows of ``select`` (``... WHERE run_id = ?`` of ``table``) in ``order``, a
+        slice of ``slice_points`` point indices per query (:meth:`_typed_slices`): a large
+        run's rows as Python tuples would take several times the memory of the typed table
+        they become."""
+        bounds = self._read(f"SELECT MIN(point_index), MAX(point_index) FROM {table} "
+                            "WHERE run_id = ?", (run_id,))
+        low, high = bounds[0] if bounds else (None, None)
+        if low is None:
+            return self._typed_slices(select + order, [(run_id,)], kinds)
+        params = [(run_id, start, start + slice_points)
+                  for start in range(int(low), int(high) + 1, slice_points)]
+        return self._typed_slices(select + " AND point_index >= ? AND point_index < ?" + order,
+                                  params, kinds)
 
     def readings_frame(self, run_id: int) -> pd.DataFrame:
         """The run's readings: ``run_id``, ``point_index``, ``reading_no``, the reading's
@@ -726,35 +747,15 @@ class SqlRunStoreCore:
 
         select = (f"SELECT run_id, point_index, reading_no, {', '.join(READING_COLUMNS)}, "
                   "overload, attenuation_check, extra_json FROM readings WHERE run_id = ?")
-        bounds = self._read("SELECT MIN(point_index), MAX(point_index) FROM readings "
-                            "WHERE run_id = ?", (run_id,))
-        low, high = bounds[0] if bounds else (None, None)
-        # Read a slice of points at a time: a large run's rows as Python tuples would take
-        # several times the memory of the typed table they become.
-        slices = ([(None, None)] if low is None else
-                  [(start, start + READING_SLICE_POINTS)
-                   for start in range(int(low), int(high) + 1, READING_SLICE_POINTS)])
-        where = "" if low is None else " AND point_index >= ? AND point_index < ?"
-        params = [(run_id,) if start is None else (run_id, start, stop)
-                  for start, stop in slices]
         frames = []
-        for rows in self._typed_slices(select + where + " ORDER BY point_index, reading_no",
-                                       params, READING_KINDS):
-            if isinstance(rows, list):
-                frames.append(_typed_readings(pd.DataFrame.from_records(rows,
-                                                                        columns=columns)))
-            else:
-                frames.append(_readings_of_columns(rows, columns))
-            del rows
-        if len(frames) == 1:
-            return frames[0]
-        frame = pd.concat(frames, ignore_index=True)
-        for column in columns:
-            if len({str(f[column].dtype) for f in frames}) > 1:
-                # a text column empty in one slice came out as objects there: inferred
-                # again over all rows, as one read would
-                frame[column] = pd.Series(frame[column].tolist(), index=frame.index)
-        return frame
+        for rows in self._sliced_by_point("readings", select,
+                                          " ORDER BY point_index, reading_no", run_id,
+                                          READING_SLICE_POINTS, READING_KINDS):
+            frames.append(_typed_readings(pd.DataFrame.from_records(rows, columns=columns))
+                          if isinstance(rows, list)
+                          else _frame_of_columns(rows, columns, READING_KINDS))
+            del rows  # (before the next slice is read)
+        return _concatenated(frames, columns)
 
     def _rows_in_slices(self, sql: str, params: Sequence[Sequence[object]]
                         ) -> Iterator[list[tuple[Any, ...]]]:
@@ -815,14 +816,23 @@ READING_SLICE_POINTS = 5000
 READING_KINDS = "iiitttfffIIffffIbBt"
 
 
-def _readings_of_columns(slice_: TypedColumns, columns: list[str]) -> pd.DataFrame:
-    """A slice of readings typed by the child (:data:`READING_KINDS`) as the frame
-    :func:`_typed_readings` makes of its rows: the same columns, types and values."""
+#: The kinds of the columns ``points_frame`` reads: ids, the study, the settings and
+#: measurements, the wall times and the extra data as text.
+POINT_KINDS = "iit" + "f" * (len(POINT_COLUMNS) - 1) + "ttt"
+
+#: Points whose rows :meth:`SqlRunStoreCore.points_frame` reads per query.
+POINT_SLICE_POINTS = 20_000
+
+
+def _frame_of_columns(slice_: TypedColumns, columns: list[str], kinds: str) -> pd.DataFrame:
+    """A slice typed by the child (``kinds``: :data:`sweeprig.store.side_reader.KINDS`) as
+    the frame ``from_records`` makes of its rows, typed as the caller types that: the same
+    columns, types and values."""
     import numpy as np
     import pandas as pd
 
     data: dict[str, object] = {}
-    for k, (name, kind) in enumerate(zip(columns, READING_KINDS, strict=True)):
+    for k, (name, kind) in enumerate(zip(columns, kinds, strict=True)):
         values, mask = slice_.values[k], slice_.masks[k]
         if kind == "t":
             # (as objects: the frame infers their type as from_records does, text or not)
@@ -834,6 +844,21 @@ def _readings_of_columns(slice_: TypedColumns, columns: list[str]) -> pd.DataFra
         else:
             data[name] = values
     return pd.DataFrame(data)
+
+
+def _concatenated(frames: list[pd.DataFrame], columns: list[str]) -> pd.DataFrame:
+    """The slices' frames as one, each column typed as one read would have typed it."""
+    import pandas as pd
+
+    if len(frames) == 1:
+        return frames[0]
+    frame = pd.concat(frames, ignore_index=True)
+    for column in columns:
+        if len({str(f[column].dtype) for f in frames}) > 1:
+            # a text column empty in one slice came out as objects there: inferred
+            # again over all rows, as one read would
+            frame[column] = pd.Series(frame[column].tolist(), index=frame.index)
+    return frame
 
 
 def _typed_readings(frame: pd.DataFrame) -> pd.DataFrame:

@@ -435,8 +435,9 @@ def test_a_version_3_store_gains_the_run_figures_table_and_reads_without_it(tmp_
 
 
 def test_readings_the_side_reader_types_make_the_same_table(sqlite_store, monkeypatch):
-    """The child process types its slices of readings (sweeprig.store.side_reader); the
-    table made of them is the one made of rows read here: columns, types, values, bits."""
+    """The child process types its slices of readings and points
+    (sweeprig.store.side_reader); the tables made of them are the ones made of rows read
+    here: columns, types, values, bits."""
     import numpy as np
 
     import sweeprig.store.side_reader as side_reader
@@ -457,19 +458,25 @@ def test_readings_the_side_reader_types_make_the_same_table(sqlite_store, monkey
         store.write_point(run_id, _point(index), readings)
     monkeypatch.setattr(side_reader, "SIDE_READ_MIN_SLICES", 10**6)
     here = store.readings_frame(run_id)
+    points_here = store.points_frame(run_id)
     monkeypatch.undo()
     typed = []
-    made = sql._readings_of_columns
-    monkeypatch.setattr(sql, "_readings_of_columns",
-                        lambda *a: typed.append(1) or made(*a))
+    made = sql._frame_of_columns
+    monkeypatch.setattr(sql, "_frame_of_columns",
+                        lambda *a: typed.append(a[2]) or made(*a))
     monkeypatch.setattr(sql, "READING_SLICE_POINTS", 1)
+    monkeypatch.setattr(sql, "POINT_SLICE_POINTS", 2)
     sliced = store.readings_frame(run_id)
-    assert len(typed) == 4  # the child's half of the 8 slices came typed
-    pd.testing.assert_frame_equal(sliced, here, check_exact=True)
-    assert list(sliced.dtypes) == list(here.dtypes)
-    for column in here.columns:
-        if here[column].dtype == np.float64:
-            assert np.array_equal(sliced[column].to_numpy().view(np.uint64),
-                                  here[column].to_numpy().view(np.uint64)), column
+    points = store.points_frame(run_id)
+    # the child's half of the 8 slices of readings, and of the 4 of points, came typed
+    assert typed == [sql.READING_KINDS] * 4 + [sql.POINT_KINDS] * 2
+    for got, want in ((sliced, here), (points, points_here)):
+        pd.testing.assert_frame_equal(got, want, check_exact=True)
+        assert list(got.dtypes) == list(want.dtypes)
+        for column in want.columns:
+            if want[column].dtype == np.float64:
+                assert np.array_equal(got[column].to_numpy().view(np.uint64),
+                                      want[column].to_numpy().view(np.uint64)), column
     assert here["averages"].isna().any() and here["attenuation_check"].isna().any()
     assert here["level_dbm"].isna().any() and here["overload"].any()
+    assert points_here["rf2_freq_hz"].isna().all() and points_here["wall_start"].notna().all()
