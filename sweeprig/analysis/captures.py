@@ -246,21 +246,23 @@ def line_spacing_hz(cols: Mapping[str, np.ndarray]) -> np.ndarray:
     ports = cols.get(PORT)
     port_codes = (pd.factorize(pd.Series(ports, dtype=object))[0] if ports is not None
                   else np.zeros(point.size, dtype=np.int64))
-    frame = pd.DataFrame({"p": point, "q": port_codes, "f": np.round(freq, 0)})
-    frame = frame[np.isfinite(freq)]
     out = np.full(point.size, np.inf)
-    if not frame.empty:
-        lines = frame.drop_duplicates().sort_values(["p", "q", "f"], kind="stable")
-        f = lines["f"].to_numpy()
-        group = lines["p"].to_numpy() * (int(port_codes.max(initial=0)) + 2) + \
-            lines["q"].to_numpy()
-        same_prev = np.r_[False, group[1:] == group[:-1]]
-        same_next = np.r_[group[:-1] == group[1:], False]
+    rows = np.flatnonzero(np.isfinite(freq))
+    if rows.size:
+        # the rows in order of point, port and line (Hz, rounded); each distinct line once
+        p, q, f = point[rows], port_codes[rows], np.round(freq[rows], 0)
+        order = np.lexsort((f, q, p))
+        p, q, f = p[order], q[order], f[order]
+        group_starts = np.r_[True, (p[1:] != p[:-1]) | (q[1:] != q[:-1])]
+        new_line = group_starts | np.r_[True, f[1:] != f[:-1]]
+        line_of = np.cumsum(new_line) - 1
+        f, group_starts = f[new_line], group_starts[new_line]
+        # per line, the nearest other line of its point and port
+        same_prev = ~group_starts
+        same_next = np.r_[~group_starts[1:], False]
         gap_prev = np.where(same_prev, f - np.r_[np.nan, f[:-1]], np.inf)
         gap_next = np.where(same_next, np.r_[f[1:], np.nan] - f, np.inf)
-        lines = lines.assign(gap=np.minimum(gap_prev, gap_next))
-        merged = frame.reset_index().merge(lines, on=["p", "q", "f"], how="left")
-        out[merged["index"].to_numpy()] = merged["gap"].to_numpy(dtype=float)
+        out[rows[order]] = np.minimum(gap_prev, gap_next)[line_of]
     rf1 = np.asarray(cols["rf_freq_hz"], dtype=float)
     rf2 = np.asarray(cols.get("rf2_freq_hz", np.full(point.size, np.nan)), dtype=float)
     with np.errstate(invalid="ignore"):

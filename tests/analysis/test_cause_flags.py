@@ -371,3 +371,50 @@ def test_figures_from_points_with_the_current_off_are_flagged():
     assert supply_current_off_points(frame, 0.045 * 0.2).tolist() == [0, 1, 2]
     no_supply = frame[frame["reading"] == "if"]
     assert supply_current_off_points(no_supply, 0.045).size == 0
+
+
+def _line_spacing_by_frames(cols) -> np.ndarray:
+    """The line spacing as pandas frames worked it out (distinct lines, sorted, merged
+    back): the reference line_spacing_hz is held to."""
+    point = np.asarray(cols["point"], dtype=np.int64)
+    freq = np.asarray(cols["freq_hz"], dtype=float)
+    codes = pd.factorize(pd.Series(cols["port"], dtype=object))[0]
+    frame = pd.DataFrame({"p": point, "q": codes, "f": np.round(freq, 0)})
+    frame = frame[np.isfinite(freq)]
+    out = np.full(point.size, np.inf)
+    if not frame.empty:
+        lines = frame.drop_duplicates().sort_values(["p", "q", "f"], kind="stable")
+        f = lines["f"].to_numpy()
+        group = lines["p"].to_numpy() * (int(codes.max(initial=0)) + 2) + lines["q"].to_numpy()
+        same_prev = np.r_[False, group[1:] == group[:-1]]
+        same_next = np.r_[group[:-1] == group[1:], False]
+        gap_prev = np.where(same_prev, f - np.r_[np.nan, f[:-1]], np.inf)
+        gap_next = np.where(same_next, np.r_[f[1:], np.nan] - f, np.inf)
+        lines = lines.assign(gap=np.minimum(gap_prev, gap_next))
+        merged = frame.reset_index().merge(lines, on=["p", "q", "f"], how="left")
+        out[merged["index"].to_numpy()] = merged["gap"].to_numpy(dtype=float)
+    rf1 = np.asarray(cols["rf_freq_hz"], dtype=float)
+    rf2 = np.asarray(cols["rf2_freq_hz"], dtype=float)
+    with np.errstate(invalid="ignore"):
+        tones = np.abs(rf2 - rf1)
+        tones = np.where(np.isfinite(tones) & (tones >= 1.0), tones, np.inf)
+    return np.fmin(out, tones)
+
+
+def test_line_spacing_is_the_distinct_lines_nearest_neighbour_per_point_and_port():
+    # shuffled rows of many points: repeated and coincident lines, a missing port, NaN and
+    # infinite frequencies, a point with one line, two-tone points
+    rng = np.random.default_rng(8)
+    n = 4000
+    cols = {
+        "point": rng.integers(0, 300, n),
+        "freq_hz": np.where(rng.random(n) < 0.05, rng.choice([np.nan, np.inf], n),
+                            70e6 + rng.integers(0, 40, n) * 250e3 + rng.choice([0.0, 0.3], n)),
+        "port": rng.choice(np.array(["if", "rf", None], dtype=object), n),
+        "rf_freq_hz": np.full(n, 2.4e9),
+        "rf2_freq_hz": np.where(rng.random(n) < 0.2, 2.401e9, np.nan),
+    }
+    got = line_spacing_hz(cols)
+    want = _line_spacing_by_frames(cols)
+    assert np.array_equal(got, want)
+    assert np.isinf(got).any() and (got == 250e3).any() and (got == 1e6).any()
