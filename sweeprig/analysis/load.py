@@ -260,8 +260,15 @@ def _supply_values(
     extras = rows["extra_json"].to_numpy()[supply] if "extra_json" in rows else [None] * supply.size
     fallback = (settings["supply_current_a"].to_numpy(dtype=float, na_value=np.nan)[at][supply]
                 if "supply_current_a" in settings else np.full(supply.size, np.nan))
+    # a supply's readings repeat (its current is read to a resolution): each text read once
+    read: dict[object, float] = {}
     for k, (text, spare) in enumerate(zip(extras, fallback.tolist(), strict=True)):
-        value[supply[k]] = _current_from_extra(text, spare)
+        current = read.get(text) if isinstance(text, str) else None
+        if current is None:
+            current = _current_from_extra(text, math.nan)
+            if isinstance(text, str):
+                read[text] = current
+        value[supply[k]] = spare if math.isnan(current) else current
     return value
 
 

@@ -157,6 +157,30 @@ def test_supply_current_falls_back_to_the_point_column():
     assert c["value"].tolist() == [0.045]
 
 
+def test_supply_readings_of_one_text_each_take_their_own_points_fallback():
+    # the same extra text at several points (a text read once): a current where it holds
+    # one, else each point's own column value
+    count = 6
+    points = pd.DataFrame({"point_index": range(count), "study": ["s"] * count,
+                           "temperature_c": [np.nan] * count, "supply_v": [3.3] * count,
+                           "lo_freq_hz": [LO_HZ] * count, "lo_power_dbm": [0.0] * count,
+                           "rf_freq_hz": [RF_HZ] * count, "rf_power_dbm": [-20.0] * count,
+                           "rf2_freq_hz": [np.nan] * count, "rf2_power_dbm": [np.nan] * count,
+                           "supply_current_a": [0.041, 0.042, 0.043, np.nan, 0.045, 0.046]})
+    extras = ['{}', '{"current_a": 0.05}', '{}', '{"current_a": "x"}', '{"current_a": 0.05}',
+              '{"current_a": "x"}']
+    readings = pd.DataFrame({
+        "point_index": range(count), "reading_no": [0] * count,
+        "name": ["supply_current"] * count, "kind": ["supply_current"] * count,
+        "port": ["dc"] * count, "freq_hz": [np.nan] * count, "level_dbm": [np.nan] * count,
+        "noise_floor_dbm": [np.nan] * count, "m": [pd.NA] * count, "n": [pd.NA] * count,
+        "attenuation_db": [np.nan] * count, "overload": [False] * count, "extra_json": extras,
+    })
+    values = captures_from_frames(points, readings)["value"].tolist()
+    assert values[:3] == [0.041, 0.05, 0.043] and math.isnan(values[3])
+    assert values[4:] == [0.05, 0.046]
+
+
 def test_the_analysis_runs_on_the_loaded_table(store):
     db, run = store
     c = load_captures(db, run)
