@@ -165,18 +165,23 @@ def _with_block_budgets(block: FigureBlock, levels: PointLevels, specs: Instrume
         return block
     # the readings whose noise matters, per row: fixed for the name, or (an m×n spur) its
     # own product's, read once per distinct conditions mapping
-    groups: dict[Noisy, list[int]] = {}
+    groups: dict[Noisy, np.ndarray] = {}
     if model.noise_reading == "spur":
-        by_id: dict[int, Noisy] = {}
-        conditions = block.conditions
-        for row in eligible.tolist():
-            c = conditions[row]
-            noisy = by_id.get(id(c))
-            if noisy is None:
-                noisy = by_id[id(c)] = _noisy(model, noise_reading_at(model, c))
-            groups.setdefault(noisy, []).append(row)
+        from sweeprig.analysis.figure_table import distinct_mappings
+
+        mappings, which = distinct_mappings(block.conditions[eligible])
+        # each distinct mapping's reading, then the rows of each reading's noisy set
+        readings: dict[str | None, int] = {}
+        code_of = np.fromiter((readings.setdefault(noise_reading_at(model, c), len(readings))
+                               for c in mappings), dtype=np.int64, count=len(mappings))
+        codes = code_of[which]
+        for reading, code in readings.items():
+            rows = eligible[codes == code]
+            noisy = _noisy(model, reading)
+            held = groups.get(noisy)
+            groups[noisy] = rows if held is None else np.sort(np.concatenate([held, rows]))
     else:
-        groups[_noisy(model, model.noise_reading)] = eligible.tolist()
+        groups[_noisy(model, model.noise_reading)] = eligible
     width = max(1, *(len(noisy) for noisy in groups))
     shared_column = np.full(count, None, dtype=object)
     snr = np.full((count, width), math.nan)
@@ -184,8 +189,7 @@ def _with_block_budgets(block: FigureBlock, levels: PointLevels, specs: Instrume
     averages = np.ones((count, width), dtype=np.int64)
     combined = np.full(count, math.nan)
     uncertainty = np.full(count, math.nan)
-    for noisy, members in groups.items():
-        rows = np.array(members, dtype=np.int64)
+    for noisy, rows in groups.items():
         shared = shared_budget(model, noisy, specs, cal)
         finite, raw, avg, u_c = _group_columns(shared, block.point[rows], levels)
         k = len(noisy)
