@@ -12,9 +12,12 @@ combined standard uncertainty u_c with numpy from it (JCGM 100:2008 eq. (10): th
 of squares of the shared lines' c_i·u(x_i) and of its own noise lines').
 
 Fitted figures (intercepts, compression points, means of gains) and figures over several
-points take :func:`figure_budget`, one at a time: they are a few per cent of a run, and
-their fit terms depend on every point of the fit. :func:`attach_uncertainty` gives every
-figure of a run its budget and expanded uncertainty U = k·u_c (GUM 6.3.3).
+points have lines of their own, which depend on every point of the fit: they are worked out
+per model and count of points (:func:`alike_budgets`: the readings of all of them looked up
+at once, their lowest SNR, fit scatter and compression slope taken row by row with numpy,
+then each one's budget made); :func:`figure_budget` is one such figure alone.
+:func:`attach_uncertainty` gives every figure of a run its budget and expanded uncertainty
+U = k·u_c (GUM 6.3.3).
 """
 
 from __future__ import annotations

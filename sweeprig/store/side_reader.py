@@ -1,9 +1,9 @@
 """Some slices of a long read of an SQLite store, read by a second process on the other core.
 
-Reading a large run's readings is the first thing its report does, and the slowest: at 100k
-points, about half a million rows whose cells ``sqlite3`` turns into Python objects one by
-one, while the machine's second core has nothing to do yet (the report's helper process
-starts once the capture table exists). Threads do not help: the conversion holds the
+Reading a large run's readings (and points) is the first thing its report does, and the
+slowest: at 100k points, about half a million rows whose cells ``sqlite3`` turns into Python
+objects one by one, while the machine's second core has nothing to do yet (the report's
+helper process starts once the capture table exists). Threads do not help: the conversion holds the
 interpreter's lock, and two threads reading took three times as long as one.
 
 :func:`rows_in_slices` gives the rows of one query run once per parameter tuple, in order,
@@ -103,8 +103,9 @@ Row = tuple[Any, ...]
 @dataclass(frozen=True)
 class TypedColumns:
     """A slice's columns as the child typed them (:func:`typed_slices`), in the query's
-    order: per column its values (a float64, int64 or bool array; a tuple for text) and
-    its missing values' mask (a bool array, True: missing; None: none missing or text)."""
+    order: per column its values (a float64, int64 or bool array; a tuple for text) and,
+    for a nullable integer or flag, its missing values' mask (a bool array, True: missing);
+    None for the others (a float's missing values are NaN)."""
 
     values: tuple[Any, ...]
     masks: tuple[Any, ...]
