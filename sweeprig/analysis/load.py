@@ -214,7 +214,7 @@ def captures_from_frames(
     out["probe_temperature_c"] = probe
     out.insert(list(out.columns).index("reading_no"), "value",
                _supply_values(rows, out, settings, at))
-    out["risks"] = (_risks_column(rows["extra_json"].to_numpy()) if "extra_json" in rows
+    out["risks"] = (_risks_column(rows["extra_json"]) if "extra_json" in rows
                     else np.full(len(out), None, dtype=object))
     m_out, n_out = wanted_orders if wanted_orders is not None else DEFAULT_WANTED_ORDERS
     out["output_freq_hz"] = np.abs(m_out * out["lo_freq_hz"].to_numpy(dtype=float)
@@ -257,7 +257,9 @@ def _supply_values(
     supply = np.flatnonzero(out["reading"].to_numpy() == "supply_current")
     if supply.size == 0:
         return value
-    extras = rows["extra_json"].to_numpy()[supply] if "extra_json" in rows else [None] * supply.size
+    # (only the supply rows' texts made Python strings: a large run has millions of others)
+    extras = (rows["extra_json"].iloc[supply].to_numpy() if "extra_json" in rows
+              else [None] * supply.size)
     fallback = (settings["supply_current_a"].to_numpy(dtype=float, na_value=np.nan)[at][supply]
                 if "supply_current_a" in settings else np.full(supply.size, np.nan))
     # a supply's readings repeat (its current is read to a resolution): each text read once
@@ -272,14 +274,26 @@ def _supply_values(
     return value
 
 
-def _risks_column(extras: np.ndarray) -> np.ndarray:
-    """``risks`` column from the readings' ``extra_json`` (see the module docstring)."""
+#: The texts an ``extra_json`` holding any of the risk column's sources contains.
+_RISK_SOURCES = ('"risks"', '"search', '"supply_flags"', '"status_flags"')
+
+
+def _risks_column(extras: pd.Series) -> np.ndarray:
+    """``risks`` column from the readings' ``extra_json`` (see the module docstring). Only
+    the texts that name one of its sources (found by the column's own string search: a
+    large run's texts are not all made Python strings) are read, each distinct one once."""
     out = np.full(len(extras), None, dtype=object)
+    named = np.zeros(len(extras), dtype=bool)
+    for source in _RISK_SOURCES:
+        try:
+            found = extras.str.contains(source, regex=False)
+        except AttributeError:  # (a column without a single text: nothing to read)
+            return out
+        named |= found.fillna(False).to_numpy(dtype=bool)
+    rows = np.flatnonzero(named)
     cache: dict[str, str | None] = {}
-    for i, text in enumerate(extras.tolist()):
-        if not isinstance(text, str) or ('"risks"' not in text and '"search' not in text
-                                         and '"supply_flags"' not in text
-                                         and '"status_flags"' not in text):
+    for i, text in zip(rows.tolist(), extras.iloc[rows].tolist(), strict=True):
+        if not isinstance(text, str):
             continue
         if text not in cache:
             cache[text] = _risks_from_extra(text)

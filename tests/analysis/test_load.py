@@ -226,3 +226,24 @@ def test_readings_out_of_order_come_out_ordered_by_point_then_reading(store):
     again = captures_from_frames(points, shuffled)
     pd.testing.assert_frame_equal(again, ordered)
     assert again.index.tolist() == list(range(len(again)))
+
+
+def test_the_risk_column_reads_only_the_texts_that_name_a_source():
+    # every kind of text: risks, a search not found, measured flags, none of them, a
+    # text a source name only appears in as a value, no text at all, broken JSON
+    from sweeprig.analysis.load import _risks_column, _risks_from_extra
+
+    texts = ['{"risks": ["noise", "rbw_merged"]}', '{}', None,
+             '{"search": {"found": false}, "search_flags": ["window_edge"]}',
+             '{"supply_flags": ["supply_limited"]}', '{"status_flags": ["x"], "risks": []}',
+             '{"note": "risks"}', '{"risks": [', '{"risks": ["noise", "rbw_merged"]}']
+    for column in (pd.Series(texts), pd.Series(texts, dtype=object)):
+        got = _risks_column(column).tolist()
+        want = [None if not isinstance(t, str) or not any(
+                    s in t for s in ('"risks"', '"search', '"supply_flags"', '"status_flags"'))
+                else _risks_from_extra(t) for t in texts]
+        assert got == want
+    assert got[0] == "noise,rbw_merged" and got[1] is None and got[4] == "supply_limited"
+    assert got[3] == "not_found,window_edge" and got[7] is None
+    # a column without a single text (all missing, as floats): no risks, no error
+    assert _risks_column(pd.Series([np.nan, np.nan])).tolist() == [None, None]
