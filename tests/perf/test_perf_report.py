@@ -134,7 +134,10 @@ interleaved on one store, a day when it ran faster: 100k points, median of 3, 21
 (reduce 94.2 s), 4,155 MB + 242 MB after. Every report file the same bytes. The write phase
 (about 9 s at 100k, 84 s at 1M) did not move: the report process's plots, summary,
 datasheet and JSON against the helper's CSV and Parquet text, which the report helps with
-once it waits (2.9 s at 100k, 43 s at 1M).
+once it waits (2.9 s at 100k, 43 s at 1M). Then the capture table's extra texts made
+Python strings only where read (the supply rows, the texts naming a risk source): the 1M
+report's peak, which was there (4.1 GB sampled), fell to 4,047 MB (one run: 191.8 s, its
+write phase 13 s slower than the run before with no change there: this machine's spread).
 """
 
 from __future__ import annotations
