@@ -254,7 +254,8 @@ def _supply_values(
 ) -> np.ndarray:
     """``value`` column: supply current in A for ``supply_current`` rows, NaN elsewhere."""
     value = np.full(len(out), np.nan)
-    supply = np.flatnonzero(out["reading"].to_numpy() == "supply_current")
+    # (compared as the column holds it: a categorical's codes, no text per row made)
+    supply = np.flatnonzero((out["reading"] == "supply_current").to_numpy(dtype=bool))
     if supply.size == 0:
         return value
     # (only the supply rows' texts made Python strings: a large run has millions of others)
