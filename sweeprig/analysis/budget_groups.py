@@ -173,16 +173,21 @@ def _with_block_budgets(block: FigureBlock, levels: PointLevels, specs: Instrume
         from sweeprig.analysis.figure_table import distinct_mappings
 
         mappings, which = distinct_mappings(block.conditions[eligible])
-        # each distinct mapping's reading, then the rows of each reading's noisy set
-        readings: dict[str | None, int] = {}
-        code_of = np.fromiter((readings.setdefault(noise_reading_at(model, c), len(readings))
-                               for c in mappings), dtype=np.int64, count=len(mappings))
-        codes = code_of[which]
-        for reading, code in readings.items():
-            rows = eligible[codes == code]
-            noisy = _noisy(model, reading)
-            held = groups.get(noisy)
-            groups[noisy] = rows if held is None else np.sort(np.concatenate([held, rows]))
+        # each distinct mapping's reading, each distinct reading's noisy set (a code)
+        noisy_code: dict[Noisy, int] = {}
+        reading_code: dict[str | None, int] = {}
+
+        def code(reading: str | None) -> int:
+            known = reading_code.get(reading)
+            if known is None:
+                known = reading_code[reading] = noisy_code.setdefault(
+                    _noisy(model, reading), len(noisy_code))
+            return known
+
+        codes = np.fromiter((code(noise_reading_at(model, c)) for c in mappings),
+                            dtype=np.int64, count=len(mappings))[which]
+        for noisy, k in noisy_code.items():
+            groups[noisy] = eligible[codes == k]
     else:
         groups[_noisy(model, model.noise_reading)] = eligible
     width = max(1, *(len(noisy) for noisy in groups))

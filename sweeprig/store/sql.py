@@ -757,18 +757,13 @@ class SqlRunStoreCore:
             del rows  # (before the next slice is read)
         return _concatenated(frames, columns)
 
-    def _rows_in_slices(self, sql: str, params: Sequence[Sequence[object]]
-                        ) -> Iterator[list[tuple[Any, ...]]]:
-        """The rows of ``sql`` run with each of ``params`` in turn (a store may read some
-        of them elsewhere: :mod:`sweeprig.store.side_reader`)."""
-        for p in params:
-            yield self._read(sql, p)
-
     def _typed_slices(self, sql: str, params: Sequence[Sequence[object]], kinds: str
                       ) -> Iterator[list[tuple[Any, ...]] | TypedColumns]:
-        """:meth:`_rows_in_slices`, where a slice may come as columns already typed by the
-        column ``kinds`` (:func:`sweeprig.store.side_reader.typed_slices`)."""
-        yield from self._rows_in_slices(sql, params)
+        """The rows of ``sql`` run with each of ``params`` in turn; a store may read some of
+        them elsewhere, as columns already typed by the column ``kinds``
+        (:func:`sweeprig.store.side_reader.typed_slices`)."""
+        for p in params:
+            yield self._read(sql, p)
 
     def events(self, run_id: int) -> list[EventRecord]:
         """The run's events, oldest first."""

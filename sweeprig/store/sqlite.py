@@ -496,17 +496,10 @@ class SqliteRunStore(SqlRunStoreCore):
             except sqlite3.Error as exc:
                 raise self._error(exc, "reading") from None
 
-    def _rows_in_slices(self, sql: str, params: Sequence[Sequence[object]]
-                        ) -> Iterator[list[tuple[Any, ...]]]:
-        """The rows of ``sql`` per parameter tuple, the second half of a long read by a
-        child process on the other core (:mod:`sweeprig.store.side_reader`)."""
-        from sweeprig.store.side_reader import rows_in_slices
-
-        return rows_in_slices(self.path, sql, params, self._read)
-
     def _typed_slices(self, sql: str, params: Sequence[Sequence[object]], kinds: str
                       ) -> Iterator[list[tuple[Any, ...]] | TypedColumns]:
-        """:meth:`_rows_in_slices`, the child's slices typed by it
+        """The rows of ``sql`` per parameter tuple, the second half of a long read by a
+        child process on the other core, which types its slices' columns
         (:func:`sweeprig.store.side_reader.typed_slices`)."""
         from sweeprig.store.side_reader import typed_slices
 
