@@ -251,8 +251,7 @@ def load_run(store: RunStore, run_id: int) -> LoadedRun:
 
     with collector_paused():  # (see reduce_loaded)
         info = store.run(run_id)
-        points = store.points_frame(run_id)
-        readings = store.readings_frame(run_id)
+        points, readings = store.run_tables(run_id)
         events = tuple(store.events(run_id))
         notes: list[str] = []
         sequence = _stored_sequence(info.sequence_text, info.sequence_path,

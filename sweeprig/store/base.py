@@ -318,6 +318,10 @@ class RunStore(Protocol):
         """The run's readings, one row each, ordered by point index then reading order."""
         ...
 
+    def run_tables(self, run_id: int) -> tuple[pd.DataFrame, pd.DataFrame]:
+        """``points_frame`` and ``readings_frame`` of the run, read together."""
+        ...
+
     def events(self, run_id: int) -> list[EventRecord]:
         """The run's events, oldest first."""
         ...

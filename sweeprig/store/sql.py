@@ -49,6 +49,7 @@ from sweeprig.store.base import (
 if TYPE_CHECKING:
     import pandas as pd
 
+    from sweeprig.store.arrow_reader import ArrowRead
     from sweeprig.store.side_reader import TypedColumns
 
 SCHEMA_VERSION = 4
@@ -727,35 +728,59 @@ class SqlRunStoreCore:
         slice of ``slice_points`` point indices per query (:meth:`_typed_slices`): a large
         run's rows as Python tuples would take several times the memory of the typed table
         they become."""
+        return self._typed_slices(*self._point_slices(table, select, order, run_id,
+                                                      slice_points), kinds)
+
+    def _point_slices(self, table: str, select: str, order: str, run_id: int,
+                      slice_points: int) -> tuple[str, list[tuple[object, ...]]]:
+        """The query of :meth:`_sliced_by_point` and its parameter tuples, one a slice."""
         bounds = self._read(f"SELECT MIN(point_index), MAX(point_index) FROM {table} "
                             "WHERE run_id = ?", (run_id,))
         low, high = bounds[0] if bounds else (None, None)
         if low is None:
-            return self._typed_slices(select + order, [(run_id,)], kinds)
-        params = [(run_id, start, start + slice_points)
-                  for start in range(int(low), int(high) + 1, slice_points)]
-        return self._typed_slices(select + " AND point_index >= ? AND point_index < ?" + order,
-                                  params, kinds)
+            return select + order, [(run_id,)]
+        params: list[tuple[object, ...]] = [
+            (run_id, start, start + slice_points)
+            for start in range(int(low), int(high) + 1, slice_points)]
+        return select + " AND point_index >= ? AND point_index < ?" + order, params
 
     def readings_frame(self, run_id: int) -> pd.DataFrame:
         """The run's readings: ``run_id``, ``point_index``, ``reading_no``, the reading's
         fields; ``m``/``n``/``averages`` as nullable integers, ``attenuation_check`` as a
         nullable boolean."""
-        columns = ["run_id", "point_index", "reading_no", *READING_COLUMNS, "overload",
-                   "attenuation_check", "extra_json"]
         import pandas as pd
 
-        select = (f"SELECT run_id, point_index, reading_no, {', '.join(READING_COLUMNS)}, "
-                  "overload, attenuation_check, extra_json FROM readings WHERE run_id = ?")
         frames = []
-        for rows in self._sliced_by_point("readings", select,
-                                          " ORDER BY point_index, reading_no", run_id,
+        for rows in self._sliced_by_point("readings", READINGS_SELECT, READINGS_ORDER, run_id,
                                           READING_SLICE_POINTS, READING_KINDS):
-            frames.append(_typed_readings(pd.DataFrame.from_records(rows, columns=columns))
-                          if isinstance(rows, list)
-                          else _frame_of_columns(rows, columns, READING_KINDS))
+            frames.append(
+                _typed_readings(pd.DataFrame.from_records(rows, columns=READING_FRAME_COLUMNS))
+                if isinstance(rows, list)
+                else _frame_of_columns(rows, READING_FRAME_COLUMNS, READING_KINDS))
             del rows  # (before the next slice is read)
-        return _concatenated(frames, columns)
+        return _concatenated(frames, READING_FRAME_COLUMNS)
+
+    def run_tables(self, run_id: int) -> tuple[pd.DataFrame, pd.DataFrame]:
+        """The run's points and readings (:meth:`points_frame`, :meth:`readings_frame`),
+        read together: a store may read a large run's readings in a child process while
+        the points are read here (:meth:`_readings_elsewhere`)."""
+        elsewhere = self._readings_elsewhere(run_id)
+        try:
+            points = self.points_frame(run_id)
+            table = None if elsewhere is None else elsewhere.table()
+        finally:
+            if elsewhere is not None:
+                elsewhere.stop()
+        if table is None:
+            return points, self.readings_frame(run_id)
+        from sweeprig.store.arrow_reader import frame_of_table
+
+        return points, frame_of_table(table, READING_FRAME_COLUMNS, READING_KINDS)
+
+    def _readings_elsewhere(self, run_id: int) -> ArrowRead | None:
+        """A child process reading the run's readings (None: read by
+        :meth:`readings_frame`)."""
+        return None
 
     def _typed_slices(self, sql: str, params: Sequence[Sequence[object]], kinds: str
                       ) -> Iterator[list[tuple[Any, ...]] | TypedColumns]:
@@ -805,6 +830,13 @@ class SqlRunStoreCore:
 #: Points whose readings :meth:`SqlRunStoreCore.readings_frame` reads per query.
 READING_SLICE_POINTS = 5000
 
+
+#: The columns of ``readings_frame``, the query reading them and their order.
+READING_FRAME_COLUMNS = ["run_id", "point_index", "reading_no", *READING_COLUMNS, "overload",
+                         "attenuation_check", "extra_json"]
+READINGS_SELECT = (f"SELECT run_id, point_index, reading_no, {', '.join(READING_COLUMNS)}, "
+                   "overload, attenuation_check, extra_json FROM readings WHERE run_id = ?")
+READINGS_ORDER = " ORDER BY point_index, reading_no"
 
 #: The kinds of the columns ``readings_frame`` reads (:data:`sweeprig.store.side_reader.KINDS`):
 #: ids, text, numbers, nullable integers, the overload flag, the nullable check flag, text.

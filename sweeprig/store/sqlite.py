@@ -52,6 +52,7 @@ from sweeprig.store.base import HEARTBEAT_STALE_S, PointRecord, ReadingRecord
 from sweeprig.store.runlock import run_lock_held
 
 if TYPE_CHECKING:
+    from sweeprig.store.arrow_reader import ArrowRead
     from sweeprig.store.side_reader import TypedColumns
 
 from sweeprig.store.sql import (  # noqa: F401  (re-exported: older imports name them here)
@@ -504,6 +505,27 @@ class SqliteRunStore(SqlRunStoreCore):
         from sweeprig.store.side_reader import typed_slices
 
         return typed_slices(self.path, sql, params, self._read, kinds)
+
+    def _readings_elsewhere(self, run_id: int) -> ArrowRead | None:
+        """A large run's readings (at least :data:`~sweeprig.store.side_reader.
+        SIDE_READ_MIN_SLICES` slices) read into Arrow columns by a child process, when the
+        ``fast`` extra is installed (:mod:`sweeprig.store.arrow_reader`)."""
+        from sweeprig.store.arrow_reader import arrow_read_available, start_read
+        from sweeprig.store.side_reader import SIDE_READ_MIN_SLICES
+        from sweeprig.store.sql import (
+            READING_KINDS,
+            READING_SLICE_POINTS,
+            READINGS_ORDER,
+            READINGS_SELECT,
+        )
+
+        if not arrow_read_available():
+            return None
+        sql, params = self._point_slices("readings", READINGS_SELECT, READINGS_ORDER, run_id,
+                                         READING_SLICE_POINTS)
+        if len(params) < SIDE_READ_MIN_SLICES:
+            return None
+        return start_read(self.path, sql, params, READING_KINDS)
 
     def _error(self, exc: sqlite3.Error, what: str) -> StoreError:
         """The user's view of an SQLite error: what it means (by result code) and what to do.

@@ -480,3 +480,58 @@ def test_readings_the_side_reader_types_make_the_same_table(sqlite_store, monkey
     assert here["averages"].isna().any() and here["attenuation_check"].isna().any()
     assert here["level_dbm"].isna().any() and here["overload"].any()
     assert points_here["rf2_freq_hz"].isna().all() and points_here["wall_start"].notna().all()
+
+
+def test_a_large_runs_readings_read_into_arrow_columns_make_the_same_tables(sqlite_store,
+                                                                            monkeypatch):
+    """run_tables reads a large run's readings in a child process through the ADBC driver
+    (sweeprig.store.arrow_reader) while the points are read here: the same tables as
+    points_frame and readings_frame, bit for bit; and the same again when the child finds
+    a value it cannot type (read here instead)."""
+    import numpy as np
+
+    import sweeprig.store.arrow_reader as arrow_reader
+    import sweeprig.store.sql as sql
+
+    store = sqlite_store
+    run_id = _run(store)
+    for index in range(8):
+        readings = [
+            *_readings(index),
+            ReadingRecord("supply_current", "supply_current", "dc", extra={"current_a": 0.04}),
+            ReadingRecord("im3.lower.att10", "im3", "if", 69e6, -80.25 - index, -100.0, 2, -1,
+                          1e6, 1e3, 20.0, -10.0, None, overload=index == 5,
+                          attenuation_check=True, extra={"repeat_of": "im3.lower"}),
+        ]
+        if index < 3:  # the first slices: no repeat, so no check flag and no m, n at all
+            readings = readings[1:3]
+        store.write_point(run_id, _point(index), readings)
+    points_here, here = store.points_frame(run_id), store.readings_frame(run_id)
+    made = []
+    monkeypatch.setattr(sql, "READING_SLICE_POINTS", 1)
+    original = arrow_reader.frame_of_table
+    monkeypatch.setattr(arrow_reader, "frame_of_table",
+                        lambda *a: made.append(a[0].num_rows) or original(*a))
+    points, readings = store.run_tables(run_id)
+    assert made == [len(here)]  # read by the child, all of them
+    for got, want in ((readings, here), (points, points_here)):
+        pd.testing.assert_frame_equal(got, want, check_exact=True)
+        assert list(got.dtypes) == list(want.dtypes)
+        for column in want.columns:
+            if want[column].dtype == np.float64:
+                assert np.array_equal(got[column].to_numpy().view(np.uint64),
+                                      want[column].to_numpy().view(np.uint64)), column
+    assert here["averages"].isna().any() and here["attenuation_check"].isna().any()
+    assert here["m"].isna().any() and here["overload"].any()
+    # a flag that is neither 0 nor 1: the child gives up, the readings are read here
+    with sqlite3.connect(store.path) as db:
+        db.execute("UPDATE readings SET overload = 2 WHERE point_index = 6")
+    here = store.readings_frame(run_id)
+    made.clear()
+    points, readings = store.run_tables(run_id)
+    assert made == []
+    pd.testing.assert_frame_equal(readings, here, check_exact=True)
+    # few slices: no child at all
+    monkeypatch.setattr(sql, "READING_SLICE_POINTS", 5000)
+    monkeypatch.setattr(arrow_reader, "start_read", lambda *a: pytest.fail("started"))
+    store.run_tables(run_id)

@@ -1,0 +1,203 @@
+"""A large run's readings read from its SQLite file by a child process into Arrow columns.
+
+Reading a large run's readings is the first thing its report does, and with the standard
+``sqlite3`` module the slowest: every cell becomes a Python object before it becomes a
+column (about 2.8 s at 100k points, about half a million readings, on the kind of machine
+the benchmarks run on; :mod:`sweeprig.store.side_reader` splits that over two processes).
+The ADBC SQLite driver (Apache Arrow's database connectivity; the ``fast`` extra) steps the
+same query in C into Arrow columns: the whole read took 0.75 s there, two threads each
+reading half of the slices.
+
+The driver carries its own copy of the SQLite library. Two copies of SQLite in one process
+must not open the same file (closing one's descriptor drops the other's POSIX locks: the
+SQLite documentation's "How To Corrupt An SQLite Database File", section 2.2.1), and a
+report is made in the process that may hold the run's own store open for writing (the end
+of ``sweeprig run``); so the driver is only ever loaded in a child process
+(:func:`start_read`), which opens the file read-only, reads its slices, checks every
+column's type against the kind it must hold and writes them as one Arrow IPC file, which
+this process turns into the same frame ``sqlite3`` would have given
+(:func:`frame_of_table`; ``tests/store/test_arrow_reader.py`` compares the two).
+
+Anything wrong (the extra not installed, a column the driver typed otherwise, a value its
+kind cannot hold, the child failing or killed) is not an error: :meth:`ArrowRead.table`
+gives None and the caller reads the rows itself, as it would without the driver. The child
+is never left running.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import importlib.util
+import json
+import os
+import subprocess
+import sys
+import tempfile
+from collections.abc import Sequence
+from dataclasses import dataclass
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
+
+if TYPE_CHECKING:
+    import pandas as pd
+
+#: The child's program (argv: the store's read-only URI, the query, the parameter tuples as
+#: JSON, the output file, the columns' kinds as in :data:`sweeprig.store.side_reader.KINDS`).
+#: Two threads read half of the slices each (the driver steps SQLite without the
+#: interpreter's lock). Exit 4: a column the driver typed otherwise than its kind allows.
+_CHILD_CODE = """
+import json, sys, threading
+import pyarrow as pa, pyarrow.compute as pc, pyarrow.ipc as ipc
+from adbc_driver_sqlite import dbapi
+uri, sql, params, out, kinds = (sys.argv[1], sys.argv[2], json.loads(sys.argv[3]),
+                                sys.argv[4], sys.argv[5])
+TYPES = {"f": pa.float64(), "i": pa.int64(), "I": pa.int64(), "b": pa.int64(),
+         "B": pa.int64(), "t": pa.string()}
+def typed(column, kind):
+    if kind in "ib" and column.null_count:
+        sys.exit(4)
+    if column.null_count == len(column):
+        return pa.nulls(len(column), TYPES[kind])
+    if column.type != TYPES[kind]:
+        sys.exit(4)
+    if kind in "bB" and (pc.min(column).as_py() < 0 or pc.max(column).as_py() > 1):
+        sys.exit(4)
+    return column
+halves = [params[:len(params) // 2], params[len(params) // 2:]]
+tables, failed = [None, None], []
+def read(k):
+    try:
+        conn = dbapi.connect(uri)
+        try:
+            cur = conn.cursor()
+            cur.execute("PRAGMA busy_timeout = 30000")
+            cur.fetchall()
+            cur.adbc_statement.set_options(**{"adbc.sqlite.query.batch_rows": "1073741824"})
+            got = []
+            for p in halves[k]:
+                cur.execute(sql, p)
+                table = cur.fetch_arrow_table()
+                got.append(pa.table([typed(table.column(i).combine_chunks(), kind)
+                                     for i, kind in enumerate(kinds)],
+                                    names=[str(i) for i in range(len(kinds))]))
+            tables[k] = got
+        finally:
+            conn.close()
+    except SystemExit as stop:
+        failed.append(stop.code)
+    except BaseException:
+        failed.append(3)
+threads = [threading.Thread(target=read, args=(k,)) for k in (0, 1)]
+for t in threads:
+    t.start()
+for t in threads:
+    t.join()
+if failed:
+    sys.exit(failed[0])
+table = pa.concat_tables(tables[0] + tables[1]).combine_chunks()
+with ipc.new_file(out, table.schema) as writer:
+    writer.write_table(table)
+"""
+
+
+def arrow_read_available() -> bool:
+    """True when the ADBC SQLite driver and pyarrow (the ``fast`` extra) are installed."""
+    return all(importlib.util.find_spec(name) is not None
+               for name in ("pyarrow", "adbc_driver_sqlite"))
+
+
+@dataclass
+class ArrowRead:
+    """A child process reading a query's slices into an Arrow IPC file (:func:`start_read`)."""
+
+    child: subprocess.Popen[bytes]
+    out: Path
+    kinds: str
+
+    def table(self) -> Any:
+        """The slices as one Arrow table, a column a kind, once the child has ended well;
+        None when it did not (the caller reads the rows itself). The file is removed."""
+        try:
+            if self.child.wait() != 0:
+                return None
+            import pyarrow as pa
+            import pyarrow.ipc as ipc
+
+            # mapped, not read: the frame's columns are copied out of it one by one
+            with pa.memory_map(str(self.out), "r") as source:
+                table = ipc.open_file(source).read_all()
+        except Exception:  # (a file cut short or unreadable: read by the caller)
+            return None
+        finally:
+            self.stop()
+        if table.num_columns != len(self.kinds):
+            return None
+        return table
+
+    def stop(self) -> None:
+        """End the child if it is still running and remove its file."""
+        if self.child.poll() is None:
+            self.child.kill()
+            with contextlib.suppress(OSError):
+                self.child.wait()
+        self.out.unlink(missing_ok=True)
+
+
+def start_read(path: Path, sql: str, params: Sequence[Sequence[object]], kinds: str
+               ) -> ArrowRead | None:
+    """A child process reading ``sql`` once per parameter tuple of ``params``, in order,
+    from the SQLite file ``path`` (read-only), each column typed by its letter of ``kinds``
+    (:data:`sweeprig.store.side_reader.KINDS`). None when the driver is not installed or
+    the child cannot start."""
+    if not arrow_read_available():
+        return None
+    try:
+        handle, name = tempfile.mkstemp(prefix="sweeprig-read-", suffix=".arrow")
+        os.close(handle)
+    except OSError:
+        return None
+    out = Path(name)
+    uri = path.resolve().as_uri() + "?mode=ro"
+    try:
+        child = subprocess.Popen(
+            [sys.executable, "-I", "-c", _CHILD_CODE, uri, sql,
+             json.dumps([list(p) for p in params]), str(out), kinds],
+            stdin=subprocess.DEVNULL, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    except (OSError, ValueError):
+        out.unlink(missing_ok=True)
+        return None
+    return ArrowRead(child, out, kinds)
+
+
+def frame_of_table(table: Any, columns: Sequence[str], kinds: str) -> pd.DataFrame:
+    """The frame the same rows read by ``sqlite3`` make (``from_records``, then typed by
+    kind as :func:`sweeprig.store.sql._frame_of_columns` types them): a float with NaN
+    where missing, an integer, a nullable integer, a flag, a nullable flag, text (pandas'
+    text type; objects, all None, when no row has one). Every value is copied out of
+    ``table`` (which may be a mapped file's)."""
+    import numpy as np
+    import pandas as pd
+    import pyarrow as pa
+
+    count = table.num_rows
+    data: dict[str, object] = {}
+    for k, (name, kind) in enumerate(zip(columns, kinds, strict=True)):
+        column = table.column(k).combine_chunks()
+        if kind == "t":
+            # copied (a concatenation makes new buffers), then taken by pandas as it is
+            data[name] = (np.full(count, None, dtype=object) if column.null_count == count
+                          else pa.concat_arrays([column, pa.array([], pa.string())]).to_pandas())
+        elif kind in "IB":
+            mask = column.is_null().to_numpy(zero_copy_only=False)
+            values = column.fill_null(0).to_numpy(zero_copy_only=False)
+            data[name] = (pd.arrays.IntegerArray(values.astype(np.int64), mask) if kind == "I"
+                          else pd.arrays.BooleanArray(values.astype(bool), mask))
+        else:
+            values = column.to_numpy(zero_copy_only=False)  # (a view of the file, maybe)
+            data[name] = values.astype({"f": np.float64, "i": np.int64, "b": bool}[kind])
+        del column
+    # each column its own block, as made: no second copy to consolidate them
+    return pd.DataFrame(data, copy=False)
+
+
+__all__ = ["ArrowRead", "arrow_read_available", "frame_of_table", "start_read"]
