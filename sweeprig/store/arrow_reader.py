@@ -14,9 +14,10 @@ SQLite documentation's "How To Corrupt An SQLite Database File", section 2.2.1),
 report is made in the process that may hold the run's own store open for writing (the end
 of ``sweeprig run``); so the driver is only ever loaded in a child process
 (:func:`start_read`), which opens the file read-only, reads its slices, checks every
-column's type against the kind it must hold and writes them as one Arrow IPC file, which
-this process turns into the same frame ``sqlite3`` would have given
-(:func:`frame_of_table`; ``tests/store/test_arrow_reader.py`` compares the two).
+column's type against the kind it must hold and writes them to a pipe as an Arrow IPC
+stream; a thread of this process takes them in as they come, and they are made into the
+same frame ``sqlite3`` would have given (:func:`frame_of_table`;
+``tests/store/test_arrow_reader.py`` compares the two).
 
 Anything wrong (the extra not installed, a column the driver typed otherwise, a value its
 kind cannot hold, the child failing or killed) is not an error: :meth:`ArrowRead.table`
@@ -29,12 +30,10 @@ from __future__ import annotations
 import contextlib
 import importlib.util
 import json
-import os
 import subprocess
 import sys
-import tempfile
+import threading
 from collections.abc import Sequence
-from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
@@ -42,15 +41,15 @@ if TYPE_CHECKING:
     import pandas as pd
 
 #: The child's program (argv: the store's read-only URI, the query, the parameter tuples as
-#: JSON, the output file, the columns' kinds as in :data:`sweeprig.store.side_reader.KINDS`).
-#: Two threads read half of the slices each (the driver steps SQLite without the
-#: interpreter's lock). Exit 4: a column the driver typed otherwise than its kind allows.
+#: JSON, the columns' kinds as in :data:`sweeprig.store.side_reader.KINDS`). Two threads
+#: read half of the slices each (the driver steps SQLite without the interpreter's lock);
+#: then every slice goes to its output as an Arrow IPC stream, a record batch a slice.
+#: Exit 4: a column the driver typed otherwise than its kind allows (nothing written).
 _CHILD_CODE = """
 import json, sys, threading
 import pyarrow as pa, pyarrow.compute as pc, pyarrow.ipc as ipc
 from adbc_driver_sqlite import dbapi
-uri, sql, params, out, kinds = (sys.argv[1], sys.argv[2], json.loads(sys.argv[3]),
-                                sys.argv[4], sys.argv[5])
+uri, sql, params, kinds = sys.argv[1], sys.argv[2], json.loads(sys.argv[3]), sys.argv[4]
 TYPES = {"f": pa.float64(), "i": pa.int64(), "I": pa.int64(), "b": pa.int64(),
          "B": pa.int64(), "t": pa.string()}
 def typed(column, kind):
@@ -94,9 +93,10 @@ for t in threads:
     t.join()
 if failed:
     sys.exit(failed[0])
-table = pa.concat_tables(tables[0] + tables[1]).combine_chunks()
-with ipc.new_file(out, table.schema) as writer:
-    writer.write_table(table)
+every = tables[0] + tables[1]
+with ipc.new_stream(sys.stdout.buffer, every[0].schema) as writer:
+    for table in every:
+        writer.write_table(table)
 """
 
 
@@ -106,41 +106,51 @@ def arrow_read_available() -> bool:
                for name in ("pyarrow", "adbc_driver_sqlite"))
 
 
-@dataclass
 class ArrowRead:
-    """A child process reading a query's slices into an Arrow IPC file (:func:`start_read`)."""
+    """A child process reading a query's slices (:func:`start_read`) and a thread of this
+    process taking its output into an Arrow table as it comes (in memory the system's
+    allocator gives back once freed; no file: a temporary folder may be memory itself)."""
 
-    child: subprocess.Popen[bytes]
-    out: Path
-    kinds: str
+    def __init__(self, child: subprocess.Popen[bytes], kinds: str) -> None:
+        self.child = child
+        self.kinds = kinds
+        self._got: list[Any] = []
+        self._thread = threading.Thread(target=self._take, name="sweeprig-arrow-read",
+                                        daemon=True)
+        self._thread.start()
 
-    def table(self) -> Any:
-        """The slices as one Arrow table, a column a kind, once the child has ended well;
-        None when it did not (the caller reads the rows itself). The file is removed."""
+    def _take(self) -> None:
         try:
-            if self.child.wait() != 0:
-                return None
             import pyarrow as pa
             import pyarrow.ipc as ipc
 
-            # mapped, not read: the frame's columns are copied out of it one by one
-            with pa.memory_map(str(self.out), "r") as source:
-                table = ipc.open_file(source).read_all()
-        except Exception:  # (a file cut short or unreadable: read by the caller)
-            return None
+            assert self.child.stdout is not None
+            reader = ipc.open_stream(self.child.stdout, memory_pool=pa.system_memory_pool())
+            self._got.append(reader.read_all())
+        except Exception:  # (nothing written, a stream cut short: read by the caller)
+            self._got.append(None)
+
+    def table(self) -> Any:
+        """The slices as one Arrow table, a column a kind, once the child has ended well;
+        None when it did not (the caller reads the rows itself)."""
+        try:
+            self._thread.join()
+            table = self._got[0] if self._got else None
+            if self.child.wait() != 0 or table is None or table.num_columns != len(self.kinds):
+                return None
+            return table
         finally:
             self.stop()
-        if table.num_columns != len(self.kinds):
-            return None
-        return table
 
     def stop(self) -> None:
-        """End the child if it is still running and remove its file."""
+        """End the child if it is still running (its output then ends: so does the thread)."""
         if self.child.poll() is None:
             self.child.kill()
             with contextlib.suppress(OSError):
                 self.child.wait()
-        self.out.unlink(missing_ok=True)
+        self._thread.join()
+        if self.child.stdout is not None:
+            self.child.stdout.close()
 
 
 def start_read(path: Path, sql: str, params: Sequence[Sequence[object]], kinds: str
@@ -151,50 +161,44 @@ def start_read(path: Path, sql: str, params: Sequence[Sequence[object]], kinds: 
     the child cannot start."""
     if not arrow_read_available():
         return None
-    try:
-        handle, name = tempfile.mkstemp(prefix="sweeprig-read-", suffix=".arrow")
-        os.close(handle)
-    except OSError:
-        return None
-    out = Path(name)
     uri = path.resolve().as_uri() + "?mode=ro"
     try:
         child = subprocess.Popen(
             [sys.executable, "-I", "-c", _CHILD_CODE, uri, sql,
-             json.dumps([list(p) for p in params]), str(out), kinds],
-            stdin=subprocess.DEVNULL, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+             json.dumps([list(p) for p in params]), kinds],
+            stdin=subprocess.DEVNULL, stdout=subprocess.PIPE, stderr=subprocess.DEVNULL)
     except (OSError, ValueError):
-        out.unlink(missing_ok=True)
         return None
-    return ArrowRead(child, out, kinds)
+    return ArrowRead(child, kinds)
 
 
 def frame_of_table(table: Any, columns: Sequence[str], kinds: str) -> pd.DataFrame:
     """The frame the same rows read by ``sqlite3`` make (``from_records``, then typed by
     kind as :func:`sweeprig.store.sql._frame_of_columns` types them): a float with NaN
     where missing, an integer, a nullable integer, a flag, a nullable flag, text (pandas'
-    text type; objects, all None, when no row has one). Every value is copied out of
-    ``table`` (which may be a mapped file's)."""
+    text type; objects, all None, when no row has one). Each column is made whole from the
+    table's slices and let go of in turn."""
     import numpy as np
     import pandas as pd
     import pyarrow as pa
 
     count = table.num_rows
+    pool = pa.system_memory_pool()
     data: dict[str, object] = {}
     for k, (name, kind) in enumerate(zip(columns, kinds, strict=True)):
-        column = table.column(k).combine_chunks()
+        column = table.column(k)
         if kind == "t":
-            # copied (a concatenation makes new buffers), then taken by pandas as it is
             data[name] = (np.full(count, None, dtype=object) if column.null_count == count
-                          else pa.concat_arrays([column, pa.array([], pa.string())]).to_pandas())
+                          else column.combine_chunks(memory_pool=pool).to_pandas())
         elif kind in "IB":
-            mask = column.is_null().to_numpy(zero_copy_only=False)
-            values = column.fill_null(0).to_numpy(zero_copy_only=False)
+            mask = column.is_null().to_numpy()
+            values = column.fill_null(0).to_numpy()
             data[name] = (pd.arrays.IntegerArray(values.astype(np.int64), mask) if kind == "I"
                           else pd.arrays.BooleanArray(values.astype(bool), mask))
         else:
-            values = column.to_numpy(zero_copy_only=False)  # (a view of the file, maybe)
-            data[name] = values.astype({"f": np.float64, "i": np.int64, "b": bool}[kind])
+            values = column.to_numpy()  # (one array of all the slices)
+            data[name] = values.astype({"f": np.float64, "i": np.int64, "b": bool}[kind],
+                                       copy=False)
         del column
     # each column its own block, as made: no second copy to consolidate them
     return pd.DataFrame(data, copy=False)

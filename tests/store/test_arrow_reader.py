@@ -62,7 +62,7 @@ def _read(path: Path, kinds: str = KINDS) -> pd.DataFrame | None:
     started = start_read(path, SQL, PARAMS, kinds)
     assert started is not None
     table = started.table()
-    assert not started.out.exists() and started.child.poll() is not None
+    assert started.child.poll() is not None and started.child.stdout.closed
     return None if table is None else frame_of_table(table, COLUMNS, kinds)
 
 
@@ -106,10 +106,11 @@ def test_a_value_its_kind_cannot_hold_gives_no_table(typed_table: Path, kinds: s
 
 @pytest.mark.parametrize("code", [
     "import sys; sys.exit(3)",  # failed
-    "import os, sys; open(sys.argv[4], 'wb').write(b'ARROW1'); os._exit(0)",  # a cut file
+    "import sys; sys.stdout.buffer.write(bytes(12))",  # a stream that says nothing
+    "import sys; sys.stdout.buffer.write(b'\\xff\\xff\\xff\\xff\\x10\\0\\0\\0')",  # cut short
     "import os; os.kill(os.getpid(), 9)",  # killed
 ])
-def test_whatever_the_child_does_there_is_no_table_and_no_file(
+def test_whatever_the_child_does_there_is_no_table(
         typed_table: Path, code: str, monkeypatch) -> None:
     monkeypatch.setattr(arrow_reader, "_CHILD_CODE", code)
     assert _read(typed_table) is None
@@ -123,13 +124,13 @@ def test_a_child_that_cannot_start_is_no_read(typed_table: Path, monkeypatch) ->
     assert start_read(typed_table, SQL, PARAMS, KINDS) is None
 
 
-def test_a_read_stopped_early_ends_the_child_and_removes_its_file(
+def test_a_read_stopped_early_ends_the_child_and_its_thread(
         typed_table: Path, monkeypatch) -> None:
     monkeypatch.setattr(arrow_reader, "_CHILD_CODE", "import time; time.sleep(60)")
     started = start_read(typed_table, SQL, PARAMS, KINDS)
     assert started is not None
     started.stop()
-    assert started.child.poll() is not None and not started.out.exists()
+    assert started.child.poll() is not None and not started._thread.is_alive()
 
 
 def test_the_child_cannot_write_the_store(typed_table: Path, monkeypatch) -> None:
