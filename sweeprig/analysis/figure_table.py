@@ -18,7 +18,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Iterable, Mapping, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from operator import itemgetter, methodcaller
 from typing import TYPE_CHECKING
 
@@ -118,8 +118,17 @@ def condition_arrays(mappings: Sequence[Mapping[str, object]]) -> dict[str, np.n
     each, None → NaN) into its array, so only one chunk's values are ever held as tuples;
     a text column is read at the end, key by key. The same as
     :func:`condition_arrays_by_key` (the tests compare the two)."""
+    return _read_conditions(mappings)[0]
+
+
+def _read_conditions(mappings: Sequence[Mapping[str, object]]
+                     ) -> tuple[dict[str, np.ndarray], dict[str, ConditionColumn]]:
+    """:func:`condition_arrays` of ``mappings`` and, in the same reading, every key's
+    :class:`ConditionColumn` (which mappings hold it, and a number)."""
     count = len(mappings)
     numbers: dict[str, np.ndarray] = {}  # every key, in order of first appearance
+    present: dict[str, np.ndarray] = {}
+    number: dict[str, np.ndarray] = {}
     text: set[str] = {"study"}
     for start in range(0, count, CONDITION_CHUNK):
         groups: dict[tuple[str, ...], list[int]] = {}
@@ -142,20 +151,46 @@ def condition_arrays(mappings: Sequence[Mapping[str, object]]) -> dict[str, np.n
                 column = numbers.get(key)
                 if column is None:
                     column = numbers[key] = np.full(count, np.nan)
+                    present[key] = np.zeros(count, dtype=bool)
+                    number[key] = np.zeros(count, dtype=bool)
+                present[key][rows] = True
                 if key in text:
                     continue
-                if any(issubclass(kind, str) for kind in set(map(type, values))):
+                kinds = set(map(type, values))
+                if any(issubclass(kind, str) for kind in kinds):
                     text.add(key)
                     continue
                 column[rows] = np.array(values, dtype=float)
+                if all(issubclass(kind, int | float) for kind in kinds):
+                    number[key][rows] = True
+                else:  # (None, or a number type of another kind: not a number here)
+                    number[key][rows] = [isinstance(v, int | float) for v in values]
     out: dict[str, np.ndarray] = {}
+    read: dict[str, ConditionColumn] = {}
+    never = np.zeros(count, dtype=bool)  # (the text mask of every key never text)
     for key, column in numbers.items():
         if key in text:
-            out[key] = np.array(["" if (v := c.get(key)) is None else str(v) for c in mappings],
-                                dtype=object)
+            raw = [c.get(key) for c in mappings]
+            out[key] = np.array(["" if v is None else str(v) for v in raw], dtype=object)
+            texts = np.fromiter(raw, dtype=object, count=count)  # (no value taken apart)
+            is_number = np.fromiter((isinstance(v, int | float) for v in raw), dtype=bool,
+                                    count=count)
+            value = np.full(count, math.nan)
+            if is_number.any():
+                value[is_number] = np.array([v for v in raw if isinstance(v, int | float)],
+                                            dtype=float)
+            read[key] = ConditionColumn(
+                present[key], is_number & present[key], value,
+                np.fromiter((isinstance(v, str) for v in raw), dtype=bool, count=count),
+                texts)
         else:
             out[key] = column
-    return out
+            value = column  # (shared: NaN already wherever there is no number, but for
+            if not np.isnan(column[present[key] & ~number[key]]).all():  # another number type)
+                value = column.copy()
+                value[~number[key]] = math.nan
+            read[key] = ConditionColumn(present[key], number[key], value, never, None)
+    return out, read
 
 
 def condition_arrays_by_key(mappings: Sequence[Mapping[str, object]]
@@ -179,16 +214,77 @@ def condition_arrays_by_key(mappings: Sequence[Mapping[str, object]]
 
 
 @dataclass(frozen=True)
+class ConditionColumn:
+    """One condition key read from every one of some conditions mappings, as arrays with an
+    element per mapping: ``present`` (it holds the key), ``number`` (its value is an int or
+    a float, bool included: what :func:`condition_numbers` counts), ``value`` (that number
+    as a float; NaN elsewhere), ``text`` (its value is a str) and ``texts`` (the values,
+    objects, None where missing; None for a key whose values are never text)."""
+
+    present: np.ndarray
+    number: np.ndarray
+    value: np.ndarray
+    text: np.ndarray
+    texts: np.ndarray | None
+
+    @classmethod
+    def of(cls, mappings: Sequence[Mapping[str, object]], key: str) -> ConditionColumn:
+        """``key`` of every one of ``mappings``."""
+        read = _read_conditions(mappings)[1].get(key)
+        if read is not None:
+            return read
+        nothing = np.zeros(len(mappings), dtype=bool)
+        return cls(nothing, nothing, np.full(len(mappings), math.nan), nothing, None)
+
+    def values_at(self, rows: np.ndarray) -> np.ndarray:
+        """The values at ``rows``, objects (None where missing)."""
+        if self.texts is None:
+            out = np.full(rows.size, None, dtype=object)
+            held = self.present[rows]
+            out[held] = self.value[rows[held]]  # (numbers: never asked for as values)
+            return out
+        return self.texts[rows]
+
+    def numbers(self, rows: np.ndarray, *, finite: bool = True) -> list[float] | None:
+        """:func:`condition_numbers` of the mappings at ``rows`` (int64 indices), from the
+        arrays; None where their numbers hold a NaN or zeros of both signs (which the set
+        of the values themselves keeps apart or merges by identity and order of meeting:
+        the caller reads those mappings as :func:`condition_numbers` does)."""
+        values = self.value[rows[self.number[rows]]]
+        if np.isnan(values).any():
+            return None
+        zeros = np.signbit(values[values == 0])
+        if zeros.any() and not zeros.all():
+            return None
+        if finite:
+            values = values[np.isfinite(values)]
+        return np.unique(values).tolist()
+
+
+@dataclass(frozen=True)
 class RunConditions:
     """The conditions of a run's figures as columns, read once per distinct mapping:
     ``mappings`` (distinct, in order of first appearance), ``which`` (per figure, the index
     of its own), ``arrays`` (:func:`condition_arrays` of ``mappings``). ``kinds``: every key
     in order of first appearance and whether its column is text. A report's writers take a
-    column per figure by ``arrays[key][which]`` (or a slice of ``which``)."""
+    column per figure by ``arrays[key][which]`` (or a slice of ``which``); a key's
+    :class:`ConditionColumn` (:meth:`column`) is read once, when first asked for, and kept."""
 
     mappings: list[Mapping[str, object]]
     which: np.ndarray
     arrays: dict[str, np.ndarray]
+    columns: dict[str, ConditionColumn] = field(default_factory=dict, repr=False,
+                                                compare=False)
+
+    def column(self, key: str) -> ConditionColumn:
+        """``key`` read from every mapping (:class:`ConditionColumn`; a key no mapping
+        holds: nothing present)."""
+        got = self.columns.get(key)
+        if got is None:
+            nothing = np.zeros(len(self.mappings), dtype=bool)
+            got = self.columns[key] = ConditionColumn(
+                nothing, nothing, np.full(len(self.mappings), math.nan), nothing, None)
+        return got
 
     @classmethod
     def of(cls, figures: Sequence[Figure]) -> RunConditions:
@@ -198,7 +294,8 @@ class RunConditions:
             mappings, which = distinct_mappings(part_conditions(figures.parts))
         else:
             mappings, which = distinct_conditions(figures)
-        return cls(mappings, which, condition_arrays(mappings))
+        arrays, columns = _read_conditions(mappings)
+        return cls(mappings, which, arrays, columns)
 
     @property
     def kinds(self) -> dict[str, bool]:

@@ -27,7 +27,7 @@ from __future__ import annotations
 
 import math
 import statistics
-from collections.abc import Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -140,16 +140,12 @@ def datasheet_rows(run: RunFigures) -> list[DatasheetRow]:
     names = list(HEADLINE_FIGURES) + [n for n in dict.fromkeys(li.name for li in run.limits)
                                       if n not in HEADLINE_FIGURES]
     order = {s.name: i for i, s in enumerate(run.studies)}
-    groups = sorted(held_groups(run.figures, names, key=_study_key),
+    groups = sorted(held_groups(run.figures, names, ("study",), as_text=True,
+                                conditions=run.figure_conditions),
                     key=lambda g: (names.index(g.name), order.get(str(g.key[0]), len(order)),
                                    str(g.key[0])))
     judgements = run.assessment.judgements
     return [_row(group, judgements.of_positions(group.positions), run) for group in groups]
-
-
-def _study_key(conditions: Mapping[str, object]) -> tuple[str]:
-    """A row's group: its study, as text ("" when the conditions name none)."""
-    return (str(conditions.get("study", "")),)
 
 
 def corner_rows(name: str, group: HeldGroup) -> np.ndarray:
@@ -173,18 +169,15 @@ def nominal_rows(group: HeldGroup, rows: np.ndarray) -> np.ndarray:
     """Those of the members ``rows`` at the nominal corner: temperature nearest
     :data:`ROOM_C`, the middle supply and the middle LO drive of those present (lower middle
     of an even count), each decided once per distinct conditions mapping."""
-    from sweeprig.analysis.figure_table import condition_numbers
-
     chosen = rows
     for key in ("temperature_c", "supply_v", "lo_power_dbm"):
-        held = np.unique(group.mapping_of[chosen]).tolist()
-        mappings = [group.mappings[j] for j in held]
-        values = condition_numbers(mappings, key)
+        held = np.unique(group.mapping_of[chosen])
+        values = group.condition_numbers(key, among=held)
         if not values:
             continue
         pick = (min(values, key=lambda t: (abs(t - ROOM_C), t)) if key == "temperature_c"
                 else values[(len(values) - 1) // 2])
-        kept = [j for j, c in zip(held, mappings, strict=True) if _close(c.get(key), pick)]
+        kept = held[group.close_to(key, pick, held)]
         chosen = chosen[np.isin(group.mapping_of[chosen], kept)]
     return chosen
 
@@ -212,7 +205,8 @@ def _row(group: HeldGroup, judged: JudgedGroup, run: RunFigures) -> DatasheetRow
         name=name,
         label=figure_label(name),
         study=study,
-        conditions_text=corners_text(group.mappings, run.conversion),
+        conditions_text=corners_text(group.mappings, run.conversion,
+                                     numbers=group.condition_numbers),
         unit=group.unit,
         count=int(rows.size),
         minimum=minimum,
@@ -227,18 +221,25 @@ def _row(group: HeldGroup, judged: JudgedGroup, run: RunFigures) -> DatasheetRow
     )
 
 
-def corners_text(mappings: Sequence[Mapping[str, object]], conversion: str = "down") -> str:
+def corners_text(mappings: Sequence[Mapping[str, object]], conversion: str = "down", *,
+                 numbers: Callable[[str], list[float]] | None = None) -> str:
     """The test conditions of a row (``mappings``: its figures' distinct conditions
     mappings): each corner setting as one value, or its range (``−40…85 °C, 3.3 V,
     RF 1.7–2.7 GHz, IF 100 MHz, LO 0 dBm``), in the words of the part's ``conversion`` (an
     upconverter's input is its IF, its output its RF); the LO frequency is left out when it
-    follows a swept input or output frequency."""
+    follows a swept input or output frequency. ``numbers``: the distinct numbers of a key in
+    ``mappings`` when the caller has them (:meth:`HeldGroup.condition_numbers`), else
+    :func:`~sweeprig.analysis.figure_table.condition_numbers`."""
     from sweeprig.analysis.figure_table import condition_numbers
+
+    if numbers is None:
+        def numbers(key: str) -> list[float]:
+            return condition_numbers(mappings, key)
 
     parts: list[str] = []
     swept_signal = False
     for key in CORNER_KEYS:
-        values = condition_numbers(mappings, key)
+        values = numbers(key)
         if not values:
             continue
         if key == "lo_freq_hz" and len(values) > 1 and swept_signal:
@@ -254,8 +255,3 @@ def corners_text(mappings: Sequence[Mapping[str, object]], conversion: str = "do
             high = format_condition(key, values[-1], conversion).split(" ", 1)[1]
             parts.append(f"{low}–{high}")
     return ", ".join(parts).replace("-", "−")
-
-
-def _close(value: object, target: float) -> bool:
-    return isinstance(value, int | float) and math.isclose(float(value), target, rel_tol=1e-9,
-                                                            abs_tol=1e-12)

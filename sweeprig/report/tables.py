@@ -350,7 +350,8 @@ def summary_rows(run: RunFigures, by: Sequence[str] = GROUP_KEYS) -> list[Summar
     judgements = run.assessment.judgements
     return [_summary_row(group, judgements.of_positions(group.positions), run.limits,
                          tuple(by), run.conversion)
-            for group in held_groups(run.figures, names, by)]
+            for group in held_groups(run.figures, names, by,
+                                     conditions=run.figure_conditions)]
 
 
 def _summary_row(group: HeldGroup, judged: JudgedGroup, limits: Sequence[Limit],
@@ -373,7 +374,7 @@ def _summary_row(group: HeldGroup, judged: JudgedGroup, limits: Sequence[Limit],
         text = conditions_text(shown.conditions, skip=("study",), conversion=conversion)
     else:
         text = conditions_text(fixed, conversion=conversion)
-        spread = _spread_text(group.mappings, by, conversion)
+        spread = _spread_text(group, by, conversion)
         if spread:
             text += f"; {count} figures over {spread}"
         if name in ("spur_dbc", "spur_dbm"):
@@ -408,17 +409,14 @@ def _summary_row(group: HeldGroup, judged: JudgedGroup, limits: Sequence[Limit],
     )
 
 
-def _spread_text(mappings: Sequence[Mapping[str, object]], by: tuple[str, ...],
-                 conversion: str = "down") -> str:
-    """The conditions that vary inside a group (``mappings``: its distinct conditions
-    mappings), as ranges: ``RF 1.7 GHz–2.7 GHz``."""
-    from sweeprig.analysis.figure_table import condition_numbers
-
+def _spread_text(group: HeldGroup, by: tuple[str, ...], conversion: str = "down") -> str:
+    """The conditions that vary inside a group (over its distinct conditions mappings), as
+    ranges: ``RF 1.7 GHz–2.7 GHz``."""
     parts = []
     keys = [k for k in ("temperature_c", "supply_v") if k not in by]
     for key in (*keys, "rf_freq_hz", "output_freq_hz", "lo_freq_hz", "lo_power_dbm",
                 "rf_power_dbm"):
-        values = condition_numbers(mappings, key, finite=False)
+        values = group.condition_numbers(key, finite=False)
         if len(values) > 1:
             if key == "lo_freq_hz" and any("rf_freq_hz" in p for p in parts):
                 continue
@@ -428,7 +426,7 @@ def _spread_text(mappings: Sequence[Mapping[str, object]], by: tuple[str, ...],
                 parts.append(f"{low}…{high}")
             else:
                 parts.append(f"{low}–{high.split(' ', 1)[1]}")
-    if any("m" in c for c in mappings):
+    if group.holds("m"):
         parts.append("the m×n products")
     return ", ".join(parts)
 
