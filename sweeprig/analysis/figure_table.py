@@ -46,11 +46,14 @@ def figure_table(figures: Sequence[Figure], names: Iterable[str] | None = None
                         index=pd.Index(rows, dtype=np.int64, name="figure"))
 
 
-def figure_columns(figures: Sequence[Figure], names: Iterable[str] | None = None
+def figure_columns(figures: Sequence[Figure], names: Iterable[str] | None = None, *,
+                   conditions: RunConditions | None = None
                    ) -> tuple[np.ndarray, dict[str, np.ndarray]]:
     """:func:`figure_table`'s rows (positions in ``figures``) and columns as numpy arrays
     (text and ``points`` as object arrays), without building the DataFrame: for a caller
-    that formats them at once (the report's figure table)."""
+    that formats them at once (the report's figure table). ``conditions``: the figures' own
+    :class:`RunConditions` (a run's ``figure_conditions``), whose columns then give the
+    condition columns (:func:`_conditions_from_run`)."""
     from sweeprig.analysis.figure_block import Figures, named_columns
 
     wanted = None if names is None else frozenset(names)
@@ -66,12 +69,42 @@ def figure_columns(figures: Sequence[Figure], names: Iterable[str] | None = None
                 picked.append(f)
         positions, columns = np.array(rows, dtype=np.int64), base_columns(picked)
         mappings = [f.conditions for f in picked]
+    if conditions is not None:
+        if len(conditions.which) != len(figures):
+            raise ValueError("these conditions are not those of these figures")
+        taken = _conditions_from_run(conditions, positions)
+        if taken is not None:
+            columns.update(taken)
+            return positions, columns
     # figures of one point or group share their conditions mapping: read each distinct
     # mapping once (in order of first appearance) and spread its values by index
     distinct, which = distinct_mappings(mappings)
     for key, values in condition_arrays(distinct).items():
         columns[key] = values[which]
     return positions, columns
+
+
+def _conditions_from_run(conditions: RunConditions, positions: np.ndarray
+                         ) -> dict[str, np.ndarray] | None:
+    """The condition columns :func:`figure_columns` reads from the mappings of the figures
+    at ``positions``, taken from the run's columns: the keys those mappings hold, in their
+    order of first appearance there, each as the run's column (the same values: float, or
+    text); None when a key is text in the run but not among these figures (their column
+    would be numbers: read from the mappings)."""
+    rows = conditions.which[positions]
+    first, which = first_appearances(rows)
+    distinct = rows[first]
+    found: list[tuple[int, int, str]] = []
+    for key, values in conditions.arrays.items():
+        column = conditions.column(key)
+        held = column.present[distinct]
+        if not held.any():
+            continue
+        if values.dtype == object and key != "study" and not column.text[distinct].any():
+            return None
+        at = int(np.argmax(held))
+        found.append((at, list(conditions.mappings[int(distinct[at])]).index(key), key))
+    return {key: conditions.arrays[key][distinct][which] for _at, _in, key in sorted(found)}
 
 
 def base_columns(figures: Sequence[Figure]) -> dict[str, np.ndarray]:

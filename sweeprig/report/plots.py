@@ -167,7 +167,7 @@ def figure_frame(run: RunFigures, names: str | Sequence[str]) -> pd.DataFrame:
     from sweeprig.analysis.figure_table import BASE_COLUMNS, figure_columns
 
     _positions, table = figure_columns(run.figures, [names] if isinstance(names, str)
-                                       else names)
+                                       else names, conditions=run.figure_conditions)
     count = table["value"].size
     masks = table["flags"].tolist()
     flag_sets = {m: flags_from_mask(m) for m in set(masks)}

@@ -1,9 +1,10 @@
 """A run's conditions read as columns (ConditionColumn, RunConditions.column) give what
 reading the mappings one by one gives: the summary's and the datasheet's groups
 (held_groups), the distinct numbers of a key (condition_numbers), the nominal corner's
-test (math.isclose). Mappings are drawn with the values that make such readings differ if
-done carelessly: ints beside equal floats, a bool, zeros of both signs, NaN, infinities,
-None, text where numbers are, numbers too large to be one float, keys missing."""
+test (math.isclose), the plots' figure columns (figure_columns). Mappings are drawn with
+the values that make such readings differ if done carelessly: ints beside equal floats, a
+bool, zeros of both signs, NaN, infinities, None, text where numbers are, numbers too
+large to be one float, keys missing."""
 
 from __future__ import annotations
 
@@ -15,7 +16,12 @@ from hypothesis import strategies as st
 
 from sweeprig.analysis.figure_block import Figures, block_of
 from sweeprig.analysis.figure_groups import _close, held_groups
-from sweeprig.analysis.figure_table import ConditionColumn, RunConditions, condition_numbers
+from sweeprig.analysis.figure_table import (
+    ConditionColumn,
+    RunConditions,
+    condition_numbers,
+    figure_columns,
+)
 from sweeprig.analysis.figures import Figure
 
 NUMBERS = [25.0, -40.0, 85.0, 3.3, 3.0, 0.0]
@@ -70,6 +76,8 @@ def _groups_seen(groups) -> list[tuple]:
          picks=[0, 1, 2, 0, 1, 2], by=("temperature_c",))
 @example(mappings=[{"temperature_c": math.inf}, {"temperature_c": 1e300},
                    {"temperature_c": 2.0 ** 53}], picks=[0, 1, 2, 1], by=("temperature_c",))
+@example(mappings=[{"temperature_c": 25.0}, {"temperature_c": "band", "m": 1}],
+         picks=[1, 0, 0, 0], by=("temperature_c",))  # text only beside another name
 @given(mappings=_mappings(),
        picks=st.lists(st.integers(0, 11), min_size=1, max_size=30),
        by=st.sampled_from([("study",), ("study", "temperature_c", "supply_v"),
@@ -83,6 +91,14 @@ def test_groups_read_from_columns_are_the_groups_read_mapping_by_mapping(mapping
     text = held_groups(figures, names, by, as_text=True, conditions=conditions)
     assert _groups_seen(text) == _groups_seen(held_groups(
         figures, names, key=lambda c: tuple(str(c.get(k, "")) for k in by)))
+    for wanted in (names, names[:1], ["no_such_figure"]):
+        positions, columns = figure_columns(figures, wanted, conditions=conditions)
+        want_positions, want = figure_columns(figures, wanted)
+        assert positions.tolist() == want_positions.tolist()
+        assert list(columns) == list(want)
+        for key, values in want.items():
+            assert columns[key].dtype == values.dtype, key
+            assert repr(columns[key].tolist()) == repr(values.tolist()), key
     for group in fast:
         everything = np.arange(len(group.mappings))
         some = everything[::2]
