@@ -19,7 +19,8 @@ from __future__ import annotations
 import math
 from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
-from operator import itemgetter, methodcaller
+from itertools import repeat
+from operator import is_, itemgetter, methodcaller
 from typing import TYPE_CHECKING
 
 import numpy as np
@@ -163,14 +164,15 @@ def _read_conditions(mappings: Sequence[Mapping[str, object]]
     present: dict[str, np.ndarray] = {}
     number: dict[str, np.ndarray] = {}
     text: set[str] = {"study"}
+    # the values of a key known to be text from the start, taken with their groups
+    # (objects, None where missing); a key found to be text later is read again at the end
+    texts_read: dict[str, np.ndarray] = {key: np.full(count, None, dtype=object)
+                                          for key in text}
     for start in range(0, count, CONDITION_CHUNK):
         groups: dict[tuple[str, ...], list[int]] = {}
-        for i in range(start, min(start + CONDITION_CHUNK, count)):
-            order = tuple(mappings[i])
-            members = groups.get(order)
-            if members is None:
-                members = groups[order] = []
-            members.append(i)
+        stop = min(start + CONDITION_CHUNK, count)
+        for i, order in enumerate(map(tuple, mappings[start:stop]), start):
+            groups.setdefault(order, []).append(i)
         for order, members in groups.items():
             if not order:
                 continue
@@ -188,6 +190,9 @@ def _read_conditions(mappings: Sequence[Mapping[str, object]]
                     number[key] = np.zeros(count, dtype=bool)
                 present[key][rows] = True
                 if key in text:
+                    held = texts_read.get(key)
+                    if held is not None:
+                        held[rows] = np.fromiter(values, dtype=object, count=len(values))
                     continue
                 kinds = set(map(type, values))
                 if any(issubclass(kind, str) for kind in kinds):
@@ -203,19 +208,22 @@ def _read_conditions(mappings: Sequence[Mapping[str, object]]
     never = np.zeros(count, dtype=bool)  # (the text mask of every key never text)
     for key, column in numbers.items():
         if key in text:
-            raw = [c.get(key) for c in mappings]
-            out[key] = np.array(["" if v is None else str(v) for v in raw], dtype=object)
-            texts = np.fromiter(raw, dtype=object, count=count)  # (no value taken apart)
-            is_number = np.fromiter((isinstance(v, int | float) for v in raw), dtype=bool,
+            texts = texts_read.get(key)
+            if texts is None:  # (objects: no value taken apart)
+                texts = np.fromiter(map(methodcaller("get", key), mappings), dtype=object,
                                     count=count)
+            is_text = np.fromiter(map(isinstance, texts, repeat(str)), dtype=bool, count=count)
+            is_number = np.fromiter(map(isinstance, texts, repeat(int | float)), dtype=bool,
+                                    count=count)
+            # as text: itself, "" for None, str() of anything else
+            out[key] = shown = texts.copy()
+            shown[np.fromiter(map(is_, texts, repeat(None)), dtype=bool, count=count)] = ""
+            for i in np.flatnonzero(~is_text & (shown != "")).tolist():
+                shown[i] = str(texts[i])
             value = np.full(count, math.nan)
             if is_number.any():
-                value[is_number] = np.array([v for v in raw if isinstance(v, int | float)],
-                                            dtype=float)
-            read[key] = ConditionColumn(
-                present[key], is_number & present[key], value,
-                np.fromiter((isinstance(v, str) for v in raw), dtype=bool, count=count),
-                texts)
+                value[is_number] = np.array(texts[is_number].tolist(), dtype=float)
+            read[key] = ConditionColumn(present[key], is_number, value, is_text, texts)
         else:
             out[key] = column
             value = column  # (shared: NaN already wherever there is no number, but for
