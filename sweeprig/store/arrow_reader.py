@@ -15,8 +15,8 @@ report is made in the process that may hold the run's own store open for writing
 of ``sweeprig run``); so the driver is only ever loaded in a child process
 (:func:`start_read`), which opens the file read-only, reads its slices, checks every
 column's type against the kind it must hold and writes them to a pipe as an Arrow IPC
-stream; a thread of this process takes them in as they come, and they are made into the
-same frame ``sqlite3`` would have given (:func:`frame_of_table`;
+stream, which this process takes in once it has read the points, and makes into the same
+frame ``sqlite3`` would have given (:func:`frame_of_table`;
 ``tests/store/test_arrow_reader.py`` compares the two).
 
 Anything wrong (the extra not installed, a column the driver typed otherwise, a value its
@@ -32,7 +32,6 @@ import importlib.util
 import json
 import subprocess
 import sys
-import threading
 from collections.abc import Sequence
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
@@ -107,48 +106,42 @@ def arrow_read_available() -> bool:
 
 
 class ArrowRead:
-    """A child process reading a query's slices (:func:`start_read`) and a thread of this
-    process taking its output into an Arrow table as it comes (in memory the system's
-    allocator gives back once freed; no file: a temporary folder may be memory itself)."""
+    """A child process reading a query's slices (:func:`start_read`); :meth:`table` takes
+    its output into an Arrow table (in memory the system's allocator gives back to this
+    thread's later allocations once freed; no file: a temporary folder may be memory
+    itself). The child writes only once it has read every slice, so nothing is lost by
+    taking its output only when the caller is ready for it."""
 
     def __init__(self, child: subprocess.Popen[bytes], kinds: str) -> None:
         self.child = child
         self.kinds = kinds
-        self._got: list[Any] = []
-        self._thread = threading.Thread(target=self._take, name="sweeprig-arrow-read",
-                                        daemon=True)
-        self._thread.start()
-
-    def _take(self) -> None:
-        try:
-            import pyarrow as pa
-            import pyarrow.ipc as ipc
-
-            assert self.child.stdout is not None
-            reader = ipc.open_stream(self.child.stdout, memory_pool=pa.system_memory_pool())
-            self._got.append(reader.read_all())
-        except Exception:  # (nothing written, a stream cut short: read by the caller)
-            self._got.append(None)
 
     def table(self) -> Any:
         """The slices as one Arrow table, a column a kind, once the child has ended well;
         None when it did not (the caller reads the rows itself)."""
         try:
-            self._thread.join()
-            table = self._got[0] if self._got else None
-            if self.child.wait() != 0 or table is None or table.num_columns != len(self.kinds):
+            import pyarrow as pa
+            import pyarrow.ipc as ipc
+
+            assert self.child.stdout is not None
+            try:
+                reader = ipc.open_stream(self.child.stdout,
+                                         memory_pool=pa.system_memory_pool())
+                table = reader.read_all()
+            except Exception:  # (nothing written, a stream cut short: read by the caller)
+                return None
+            if self.child.wait() != 0 or table.num_columns != len(self.kinds):
                 return None
             return table
         finally:
             self.stop()
 
     def stop(self) -> None:
-        """End the child if it is still running (its output then ends: so does the thread)."""
+        """End the child if it is still running."""
         if self.child.poll() is None:
             self.child.kill()
             with contextlib.suppress(OSError):
                 self.child.wait()
-        self._thread.join()
         if self.child.stdout is not None:
             self.child.stdout.close()
 

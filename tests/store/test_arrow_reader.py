@@ -124,13 +124,12 @@ def test_a_child_that_cannot_start_is_no_read(typed_table: Path, monkeypatch) ->
     assert start_read(typed_table, SQL, PARAMS, KINDS) is None
 
 
-def test_a_read_stopped_early_ends_the_child_and_its_thread(
-        typed_table: Path, monkeypatch) -> None:
+def test_a_read_stopped_early_ends_the_child(typed_table: Path, monkeypatch) -> None:
     monkeypatch.setattr(arrow_reader, "_CHILD_CODE", "import time; time.sleep(60)")
     started = start_read(typed_table, SQL, PARAMS, KINDS)
     assert started is not None
     started.stop()
-    assert started.child.poll() is not None and not started._thread.is_alive()
+    assert started.child.poll() is not None and started.child.stdout.closed
 
 
 def test_the_child_cannot_write_the_store(typed_table: Path, monkeypatch) -> None:
