@@ -184,8 +184,20 @@ def _with_block_budgets(block: FigureBlock, levels: PointLevels, specs: Instrume
                     _noisy(model, reading), len(noisy_code))
             return known
 
-        codes = np.fromiter((code(noise_reading_at(model, c)) for c in mappings),
-                            dtype=np.int64, count=len(mappings))[which]
+        # (a spur's reading follows from its m and n alone: worked out once per pair of
+        # values and their types, which the reading also depends on)
+        by_orders: dict[tuple[object, ...], int] = {}
+
+        def code_of(c: Mapping[str, object]) -> int:
+            m, n = c.get("m"), c.get("n")
+            orders = (m, n, type(m), type(n))
+            known = by_orders.get(orders)
+            if known is None:
+                known = by_orders[orders] = code(noise_reading_at(model, c))
+            return known
+
+        codes = np.fromiter(map(code_of, mappings), dtype=np.int64,
+                            count=len(mappings))[which]
         for noisy, k in noisy_code.items():
             groups[noisy] = eligible[codes == k]
     else:
