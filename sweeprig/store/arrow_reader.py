@@ -152,8 +152,8 @@ def start_read(path: Path, sql: str, params: Sequence[Sequence[object]], kinds: 
     from the SQLite file ``path`` (read-only), each column typed by its letter of ``kinds``
     (:data:`sweeprig.store.side_reader.KINDS`). None when the driver is not installed or
     the child cannot start."""
-    if not arrow_read_available():
-        return None
+    if not arrow_read_available() or not sys.executable or getattr(sys, "frozen", False):
+        return None  # (no interpreter to start, or a frozen program that cannot run -c)
     uri = path.resolve().as_uri() + "?mode=ro"
     try:
         child = subprocess.Popen(

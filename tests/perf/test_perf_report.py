@@ -140,6 +140,19 @@ report's peak, which was there (4.1 GB sampled), fell to 4,047 MB (one run: 191.
 write phase 13 s slower than the run before with no change there: this machine's spread);
 with the supply readings found by the reading column's codes (no text per row), 176.1 s and
 3,863 MB.
+
+The readings read by a child process through Apache Arrow's ADBC SQLite driver (the
+``fast`` extra; ``sweeprig.store.arrow_reader``) while the points are read here, and the
+summary, datasheet and plots reading the run's conditions as columns
+(``RunConditions.column``) instead of mapping by mapping. Same slow machine, a faster day,
+interleaved on one store, before (8962ad7) and after: 100k points, median of 3, 16.95 s
+(16.76, 16.95, 17.11; reduce 8.6 s), 622 MB + 225 MB before; 14.89 s (14.64, 14.89, 14.93;
+reduce 7.3 s), 630 MB + 229 MB after. 1M points, one run each: 163.1 s (reduce 90.3 s,
+files 72.9 s), 3,884 MB + 256 MB before (a test run beside it for about 25 s); 126.9 s
+(reduce 60.2 s, files 66.7 s), 3,864 MB + 241 MB after. Every report file the same bytes
+but the generation time. At 1M the report now waits 40 s for the helper's CSV and Parquet
+text, which it then shares: the write phase is the two processes' total work, at the
+formats' floor (a float's shortest repr per cell).
 """
 
 from __future__ import annotations

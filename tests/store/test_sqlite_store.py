@@ -434,16 +434,10 @@ def test_a_version_3_store_gains_the_run_figures_table_and_reads_without_it(tmp_
                           ).fetchone() == (str(SCHEMA_VERSION),)
 
 
-def test_readings_the_side_reader_types_make_the_same_table(sqlite_store, monkeypatch):
-    """The child process types its slices of readings and points
-    (sweeprig.store.side_reader); the tables made of them are the ones made of rows read
-    here: columns, types, values, bits."""
-    import numpy as np
-
-    import sweeprig.store.side_reader as side_reader
-    import sweeprig.store.sql as sql
-
-    store = sqlite_store
+def _mixed_run(store, without_repeat) -> int:
+    """A run of 8 points whose readings hold every kind of column value: numbers, a supply
+    current, a repeated IM3 reading with m, n and its check flag (left out of the points
+    for which ``without_repeat`` says so), an overload at point 5."""
     run_id = _run(store)
     for index in range(8):
         readings = [
@@ -453,9 +447,35 @@ def test_readings_the_side_reader_types_make_the_same_table(sqlite_store, monkey
                           1e6, 1e3, 20.0, -10.0, None, overload=index == 5,
                           attenuation_check=True, extra={"repeat_of": "im3.lower"}),
         ]
-        if index == 6:  # a slice with no repeat: its check column holds no flag at all
+        if without_repeat(index):
             readings = readings[1:3]
         store.write_point(run_id, _point(index), readings)
+    return run_id
+
+
+def _same_bit_for_bit(got: pd.DataFrame, want: pd.DataFrame) -> None:
+    """The same columns, types and values, every float the same bits."""
+    import numpy as np
+
+    pd.testing.assert_frame_equal(got, want, check_exact=True)
+    assert list(got.dtypes) == list(want.dtypes)
+    for column in want.columns:
+        if want[column].dtype == np.float64:
+            assert np.array_equal(got[column].to_numpy().view(np.uint64),
+                                  want[column].to_numpy().view(np.uint64)), column
+
+
+def test_readings_the_side_reader_types_make_the_same_table(sqlite_store, monkeypatch):
+    """The child process types its slices of readings and points
+    (sweeprig.store.side_reader); the tables made of them are the ones made of rows read
+    here: columns, types, values, bits."""
+
+    import sweeprig.store.side_reader as side_reader
+    import sweeprig.store.sql as sql
+
+    store = sqlite_store
+    # (a slice with no repeat: its check column holds no flag at all)
+    run_id = _mixed_run(store, lambda index: index == 6)
     monkeypatch.setattr(side_reader, "SIDE_READ_MIN_SLICES", 10**6)
     here = store.readings_frame(run_id)
     points_here = store.points_frame(run_id)
@@ -471,12 +491,7 @@ def test_readings_the_side_reader_types_make_the_same_table(sqlite_store, monkey
     # the child's half of the 8 slices of readings, and of the 4 of points, came typed
     assert typed == [sql.READING_KINDS] * 4 + [sql.POINT_KINDS] * 2
     for got, want in ((sliced, here), (points, points_here)):
-        pd.testing.assert_frame_equal(got, want, check_exact=True)
-        assert list(got.dtypes) == list(want.dtypes)
-        for column in want.columns:
-            if want[column].dtype == np.float64:
-                assert np.array_equal(got[column].to_numpy().view(np.uint64),
-                                      want[column].to_numpy().view(np.uint64)), column
+        _same_bit_for_bit(got, want)
     assert here["averages"].isna().any() and here["attenuation_check"].isna().any()
     assert here["level_dbm"].isna().any() and here["overload"].any()
     assert points_here["rf2_freq_hz"].isna().all() and points_here["wall_start"].notna().all()
@@ -488,24 +503,13 @@ def test_a_large_runs_readings_read_into_arrow_columns_make_the_same_tables(sqli
     (sweeprig.store.arrow_reader) while the points are read here: the same tables as
     points_frame and readings_frame, bit for bit; and the same again when the child finds
     a value it cannot type (read here instead)."""
-    import numpy as np
 
     import sweeprig.store.arrow_reader as arrow_reader
     import sweeprig.store.sql as sql
 
     store = sqlite_store
-    run_id = _run(store)
-    for index in range(8):
-        readings = [
-            *_readings(index),
-            ReadingRecord("supply_current", "supply_current", "dc", extra={"current_a": 0.04}),
-            ReadingRecord("im3.lower.att10", "im3", "if", 69e6, -80.25 - index, -100.0, 2, -1,
-                          1e6, 1e3, 20.0, -10.0, None, overload=index == 5,
-                          attenuation_check=True, extra={"repeat_of": "im3.lower"}),
-        ]
-        if index < 3:  # the first slices: no repeat, so no check flag and no m, n at all
-            readings = readings[1:3]
-        store.write_point(run_id, _point(index), readings)
+    # (the first slices: no repeat, so no check flag and no m, n at all)
+    run_id = _mixed_run(store, lambda index: index < 3)
     points_here, here = store.points_frame(run_id), store.readings_frame(run_id)
     made = []
     monkeypatch.setattr(sql, "READING_SLICE_POINTS", 1)
@@ -515,12 +519,7 @@ def test_a_large_runs_readings_read_into_arrow_columns_make_the_same_tables(sqli
     points, readings = store.run_tables(run_id)
     assert made == [len(here)]  # read by the child, all of them
     for got, want in ((readings, here), (points, points_here)):
-        pd.testing.assert_frame_equal(got, want, check_exact=True)
-        assert list(got.dtypes) == list(want.dtypes)
-        for column in want.columns:
-            if want[column].dtype == np.float64:
-                assert np.array_equal(got[column].to_numpy().view(np.uint64),
-                                      want[column].to_numpy().view(np.uint64)), column
+        _same_bit_for_bit(got, want)
     assert here["averages"].isna().any() and here["attenuation_check"].isna().any()
     assert here["m"].isna().any() and here["overload"].any()
     # a flag that is neither 0 nor 1: the child gives up, the readings are read here
