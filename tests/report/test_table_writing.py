@@ -169,6 +169,33 @@ def test_a_stored_run_s_capture_table_is_begun_before_its_figures(report_store, 
         assert a.read_bytes() == b.read_bytes(), a.name
 
 
+def test_a_stored_run_read_through_the_arrow_child_gives_the_same_report(
+        report_store, tmp_path, monkeypatch):
+    """With its readings read by the Arrow child (sweeprig.store.arrow_reader: slices of
+    one point each, so the run counts as large), the report's tables and page are the
+    files read by sqlite3 alone make; the child was used, and gave every reading."""
+    import sweeprig.store.arrow_reader as arrow_reader
+    import sweeprig.store.sql as sql
+    from sweeprig.report import report_stored_run
+    from sweeprig.store.sqlite import SqliteRunStore
+
+    monkeypatch.setattr("sweeprig.report.plots.all_plots", lambda run: [])
+    path, run_id = report_store
+    with SqliteRunStore(path, create=False) as store:
+        _run, plain = report_stored_run(store, run_id, tmp_path / "plain")
+        readings = len(store.readings_frame(run_id))
+    made: list[int] = []
+    original = arrow_reader.frame_of_table
+    monkeypatch.setattr(arrow_reader, "frame_of_table",
+                        lambda *a: made.append(a[0].num_rows) or original(*a))
+    monkeypatch.setattr(sql, "READING_SLICE_POINTS", 1)
+    with SqliteRunStore(path, create=False) as store:
+        _run, arrow = report_stored_run(store, run_id, tmp_path / "arrow")
+    assert made == [readings]
+    for a, b in zip(plain.tables + plain.budgets, arrow.tables + arrow.budgets, strict=True):
+        assert a.read_bytes() == b.read_bytes(), a.name
+
+
 def test_no_such_run_makes_no_folder(report_store, tmp_path):
     from sweeprig.report import report_stored_run
     from sweeprig.store.sqlite import SqliteRunStore
