@@ -99,6 +99,7 @@ if TYPE_CHECKING:
     import pandas as pd
 
     from sweeprig.analysis.figure_table import RunConditions
+    from sweeprig.store.sql import RunTablesRead
 
 #: Run states shown in reports: ``complete``, ``aborted``, ``unsafe`` (the bench's safe state
 #: could not be verified by read-back when the run ended), or ``partial`` (not finished: still
@@ -244,14 +245,17 @@ def _wanted_orders(sequence: Sequence | None) -> tuple[int, int] | None:
     return wanted_orders(sequence.mixing.conversion, sequence.mixing.lo_side)
 
 
-def load_run(store: RunStore, run_id: int) -> LoadedRun:
+def load_run(store: RunStore, run_id: int, *, tables: RunTablesRead | None = None
+             ) -> LoadedRun:
     """Read run ``run_id`` of ``store`` and build its capture table; StoreError when there
-    is no such run."""
+    is no such run. ``tables``: the run's points and readings begun already
+    (``store.begin_run_tables``; the caller stops it)."""
     from sweeprig.analysis.load import captures_from_frames
 
     with collector_paused():  # (see reduce_loaded)
         info = store.run(run_id)
-        points, readings = store.run_tables(run_id)
+        points, readings = (store.run_tables(run_id) if tables is None
+                            else tables.result())
         events = tuple(store.events(run_id))
         notes: list[str] = []
         sequence = _stored_sequence(info.sequence_text, info.sequence_path,

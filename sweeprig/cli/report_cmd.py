@@ -54,8 +54,6 @@ def report_command(
         "scripts and CI)")] = False,
     db: DbOption = None,
 ) -> None:
-    from sweeprig.report import report_stored_run
-    from sweeprig.report.terminal import print_summary
     from sweeprig.store.open import open_run_store
 
     console = term.Console(highlight=False)
@@ -63,9 +61,19 @@ def report_command(
         target = chosen_store(store, db)
         folder = out if out is not None else run_folder(target, run_id)
         with open_run_store(target, create=False) as opened:
-            run, files = report_stored_run(opened, run_id, folder)
+            # a large run's readings begun in a child process first: it starts while the
+            # analysis is imported here (about half a second each)
+            tables = opened.begin_run_tables(run_id)
+            try:
+                from sweeprig.report import report_stored_run
+            except BaseException:
+                tables.stop()
+                raise
+            run, files = report_stored_run(opened, run_id, folder, tables=tables)
     except SweeprigError as exc:
         raise fail(exc) from None
+    from sweeprig.report.terminal import print_summary
+
     print_summary(run, console)
     console.print(term.Text(f"report: {files.html}"))
     console.print(term.Text(f"figures: {files.figures_json}; tables: "

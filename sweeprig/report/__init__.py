@@ -25,6 +25,7 @@ if TYPE_CHECKING:
     from sweeprig.report.plots import Plot
     from sweeprig.report.table_writing import TableWriting
     from sweeprig.store.base import RunStore
+    from sweeprig.store.sql import RunTablesRead
 
 
 @dataclass(frozen=True)
@@ -90,27 +91,37 @@ def write_report(run: RunFigures, folder: Path | str,
 
 
 def report_stored_run(store: RunStore, run_id: int, folder: Path | str, *,
-                      reduced: Callable[[RunFigures], None] | None = None
+                      reduced: Callable[[RunFigures], None] | None = None,
+                      tables: RunTablesRead | None = None
                       ) -> tuple[RunFigures, ReportFiles]:
     """Reduce run ``run_id`` of ``store`` and write its report into ``folder``: what
     ``sweeprig report`` and the end of ``sweeprig run`` do. A large run's capture table is
     written (by a helper process on the other core) while its figures are made.
     ``reduced``: called with the figures before the files are written (the store is still
-    open). StoreError when there is no such run (nothing made) or a file cannot be written.
+    open). ``tables``: the run's points and readings begun already
+    (``store.begin_run_tables``, as ``sweeprig report`` does before importing this; stopped
+    here either way). StoreError when there is no such run (nothing made) or a file cannot
+    be written.
     """
-    from sweeprig.analysis.reduce import load_run, reduce_loaded
+    try:
+        from sweeprig.analysis.reduce import load_run
+
+        loaded = load_run(store, run_id, tables=tables)
+    finally:
+        if tables is not None:
+            tables.stop()
+    from sweeprig.analysis.reduce import reduce_loaded
     from sweeprig.memory import release_freed_memory
     from sweeprig.report.tables import make_folder, open_tables
 
-    loaded = load_run(store, run_id)
     out = make_folder(Path(folder))
-    with open_tables(loaded.captures, out) as tables:
+    with open_tables(loaded.captures, out) as writing:
         run = reduce_loaded(loaded)
         del loaded
         release_freed_memory()
         if reduced is not None:
             reduced(run)
-        files = write_report(run, out, tables=tables)
+        files = write_report(run, out, tables=writing)
     return run, files
 
 

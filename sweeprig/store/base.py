@@ -22,6 +22,8 @@ from sweeprig.store.paths import DEFAULT_STORE_PATH as DEFAULT_STORE_PATH
 if TYPE_CHECKING:  # pandas is imported where frames are made, not by the commands that start
     import pandas as pd
 
+    from sweeprig.store.sql import RunTablesRead
+
 
 RunStatus = Literal["planned", "running", "complete", "aborted", "interrupted", "unsafe"]
 RUN_STATUSES: tuple[str, ...] = ("planned", "running", "complete", "aborted", "interrupted",
@@ -320,6 +322,10 @@ class RunStore(Protocol):
 
     def run_tables(self, run_id: int) -> tuple[pd.DataFrame, pd.DataFrame]:
         """``points_frame`` and ``readings_frame`` of the run, read together."""
+        ...
+
+    def begin_run_tables(self, run_id: int) -> RunTablesRead:
+        """``run_tables`` begun now, its ``result()`` taken later (``stop()``: unused)."""
         ...
 
     def events(self, run_id: int) -> list[EventRecord]:

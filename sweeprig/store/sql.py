@@ -23,6 +23,7 @@ import math
 import os
 from collections.abc import Iterator, Mapping, Sequence
 from contextlib import AbstractContextManager
+from dataclasses import dataclass
 from datetime import UTC, datetime
 from types import MappingProxyType
 from typing import TYPE_CHECKING, Any
@@ -764,18 +765,13 @@ class SqlRunStoreCore:
         """The run's points and readings (:meth:`points_frame`, :meth:`readings_frame`),
         read together: a store may read a large run's readings in a child process while
         the points are read here (:meth:`_readings_elsewhere`)."""
-        elsewhere = self._readings_elsewhere(run_id)
-        try:
-            points = self.points_frame(run_id)
-            table = None if elsewhere is None else elsewhere.table()
-        finally:
-            if elsewhere is not None:
-                elsewhere.stop()
-        if table is None:
-            return points, self.readings_frame(run_id)
-        from sweeprig.store.arrow_reader import frame_of_table
+        return self.begin_run_tables(run_id).result()
 
-        return points, frame_of_table(table, READING_FRAME_COLUMNS, READING_KINDS)
+    def begin_run_tables(self, run_id: int) -> RunTablesRead:
+        """:meth:`run_tables` begun now (a large run's readings started in a child
+        process) and taken later (:meth:`RunTablesRead.result`), the caller going on
+        meanwhile: ``sweeprig report`` imports the analysis while the child starts."""
+        return RunTablesRead(self, run_id, self._readings_elsewhere(run_id))
 
     def _readings_elsewhere(self, run_id: int) -> ArrowRead | None:
         """A child process reading the run's readings (None: read by
@@ -825,6 +821,36 @@ class SqlRunStoreCore:
         rows = self._read(sql, params)
         return [BusRecord(_dt(r[0]) or utc_now(), r[1], r[2], r[3], r[4]) for r in reversed(rows)]
 
+
+
+@dataclass
+class RunTablesRead:
+    """A run's points and readings being read (:meth:`SqlRunStoreCore.begin_run_tables`):
+    ``elsewhere`` the child reading its readings, if any. :meth:`result` reads the points
+    here, then takes the readings (read here after all when the child gave none);
+    :meth:`stop` ends the child unused (it may be called again, or after :meth:`result`)."""
+
+    store: SqlRunStoreCore
+    run_id: int
+    elsewhere: ArrowRead | None
+
+    def result(self) -> tuple[pd.DataFrame, pd.DataFrame]:
+        """The run's points and readings frames."""
+        try:
+            points = self.store.points_frame(self.run_id)
+            table = None if self.elsewhere is None else self.elsewhere.table()
+        finally:
+            self.stop()
+        if table is None:
+            return points, self.store.readings_frame(self.run_id)
+        from sweeprig.store.arrow_reader import frame_of_table
+
+        return points, frame_of_table(table, READING_FRAME_COLUMNS, READING_KINDS)
+
+    def stop(self) -> None:
+        """End the child, if there is one and it is still running."""
+        if self.elsewhere is not None:
+            self.elsewhere.stop()
 
 
 #: Points whose readings :meth:`SqlRunStoreCore.readings_frame` reads per query.

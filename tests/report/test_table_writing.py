@@ -196,6 +196,36 @@ def test_a_stored_run_read_through_the_arrow_child_gives_the_same_report(
         assert a.read_bytes() == b.read_bytes(), a.name
 
 
+def test_the_report_command_begins_the_tables_before_it_imports_the_analysis(
+        report_store, tmp_path):
+    """``sweeprig report`` begins the run's tables (a large run's readings: a child
+    process) before it imports pandas and the analysis, so the child starts meanwhile; the
+    report is written as ever."""
+    import subprocess
+    import sys
+    import textwrap
+
+    path, run_id = report_store
+    code = textwrap.dedent(f"""
+        import sys
+        from sweeprig.store.sql import SqlRunStoreCore
+        begin = SqlRunStoreCore.begin_run_tables
+        def noted(self, run_id):
+            print("begun", "pandas" in sys.modules, "sweeprig.analysis.reduce" in sys.modules)
+            return begin(self, run_id)
+        SqlRunStoreCore.begin_run_tables = noted
+        from sweeprig.cli.entry import main
+        sys.argv = ["sweeprig", "report", "{run_id}", "--store", {str(path)!r},
+                    "--out", {str(tmp_path / "out")!r}]
+        main()
+    """)
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                          timeout=300)
+    assert done.returncode == 0, done.stderr
+    assert "begun False False" in done.stdout
+    assert (tmp_path / "out" / "report.html").is_file()
+
+
 def test_no_such_run_makes_no_folder(report_store, tmp_path):
     from sweeprig.report import report_stored_run
     from sweeprig.store.sqlite import SqliteRunStore
