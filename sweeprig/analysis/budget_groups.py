@@ -173,19 +173,10 @@ def _with_block_budgets(block: FigureBlock, levels: PointLevels, specs: Instrume
         from sweeprig.analysis.figure_table import distinct_mappings
 
         mappings, which = distinct_mappings(block.conditions[eligible])
-        # each distinct mapping's reading, each distinct reading's noisy set (a code)
+        # each distinct mapping's noisy set, as a code: a spur's reading follows from its
+        # m and n alone, so it is worked out once per pair of values and their types (which
+        # the reading also depends on)
         noisy_code: dict[Noisy, int] = {}
-        reading_code: dict[str | None, int] = {}
-
-        def code(reading: str | None) -> int:
-            known = reading_code.get(reading)
-            if known is None:
-                known = reading_code[reading] = noisy_code.setdefault(
-                    _noisy(model, reading), len(noisy_code))
-            return known
-
-        # (a spur's reading follows from its m and n alone: worked out once per pair of
-        # values and their types, which the reading also depends on)
         by_orders: dict[tuple[object, ...], int] = {}
 
         def code_of(c: Mapping[str, object]) -> int:
@@ -193,7 +184,8 @@ def _with_block_budgets(block: FigureBlock, levels: PointLevels, specs: Instrume
             orders = (m, n, type(m), type(n))
             known = by_orders.get(orders)
             if known is None:
-                known = by_orders[orders] = code(noise_reading_at(model, c))
+                known = by_orders[orders] = noisy_code.setdefault(
+                    _noisy(model, noise_reading_at(model, c)), len(noisy_code))
             return known
 
         codes = np.fromiter(map(code_of, mappings), dtype=np.int64,

@@ -144,23 +144,23 @@ def held_groups(figures: Figures, names: Sequence[str], by: Sequence[str] = (), 
     positions, columns, conditions_column = named_columns(figures, names)
     if not positions.size:
         return []
-    if conditions is not None and len(conditions.which) != len(figures):
-        raise ValueError("these conditions are not those of these figures")
-    if conditions is not None:
+    rows = None
+    coded = None
+    if conditions is None:
+        mappings, which = distinct_mappings(conditions_column)
+    else:
+        if len(conditions.which) != len(figures):
+            raise ValueError("these conditions are not those of these figures")
         # the run's distinct mappings (by identity, as distinct_mappings finds them here)
         rows_of = conditions.which[positions]
         first, which = first_appearances(rows_of)
         rows = rows_of[first]
         mappings = list(map(conditions.mappings.__getitem__, rows.tolist()))
-    else:
-        mappings, which = distinct_mappings(conditions_column)
-        rows = None
-    coded = (None if key is not None or rows is None or conditions is None
-             else _key_codes(conditions, rows, by, as_text))
+        if key is None:
+            coded = _key_codes(conditions, rows, by, as_text)
     if coded is None:
         if key is None:
-            key = ((lambda c: tuple(str(c.get(k, "")) for k in by)) if as_text
-                   else (lambda c: tuple(map(c.get, by))))
+            key = _group_key(by, as_text)
         keys: dict[tuple[object, ...], int] = {}
         key_of = np.fromiter((keys.setdefault(key(c), len(keys)) for c in mappings),
                              dtype=np.int64, count=len(mappings))
@@ -209,6 +209,16 @@ def held_groups(figures: Figures, names: Sequence[str], by: Sequence[str] = (), 
 _EXACT_FLOAT = 2.0 ** 53
 
 
+def _group_key(by: Sequence[str], as_text: bool
+               ) -> Callable[[Mapping[str, object]], tuple[object, ...]]:
+    """A mapping's group key: its values of ``by`` (None where missing), or with
+    ``as_text`` each as text ("" where missing)."""
+    by = tuple(by)
+    if as_text:
+        return lambda c: tuple(str(c.get(k, "")) for k in by)
+    return lambda c: tuple(map(c.get, by))
+
+
 def _key_codes(conditions: RunConditions, rows: np.ndarray, by: Sequence[str], as_text: bool
                ) -> tuple[np.ndarray, list[tuple[object, ...]]] | None:
     """The group key of each of the mappings at ``rows`` of ``conditions`` (their indices
@@ -216,17 +226,18 @@ def _key_codes(conditions: RunConditions, rows: np.ndarray, by: Sequence[str], a
     from the keys' :class:`~sweeprig.analysis.figure_table.ConditionColumn`: per mapping the
     index of its key, the keys in order of first appearance, each the tuple its first
     mapping gives. None when a key's values are not all numbers or all text where present
-    (another value, a NaN, zeros of both signs, a number too large to be one float): the
-    caller reads the mappings one by one."""
+    (another value, a NaN, a number too large to be one float): the caller reads the
+    mappings one by one."""
     import pandas as pd
 
     combined = np.zeros(rows.size, dtype=np.int64)
     for name in by:
         column = conditions.column(name)
         present = column.present[rows]
-        if as_text or column.text[rows][present].all():
-            if not column.text[rows][present].all():
-                return None
+        all_text = bool(column.text[rows][present].all())
+        if as_text and not all_text:
+            return None
+        if all_text:
             values = column.values_at(rows)
             values[~present] = "" if as_text else None
             codes = pd.factorize(values, use_na_sentinel=True)[0]  # (None: -1)
@@ -241,8 +252,7 @@ def _key_codes(conditions: RunConditions, rows: np.ndarray, by: Sequence[str], a
         else:
             return None
         combined = pd.factorize(combined * (rows.size + 1) + (codes + 1))[0]
-    first, key_of = first_appearances(combined)
-    by = tuple(by)
-    made = ((lambda c: tuple(str(c.get(k, "")) for k in by)) if as_text
-            else (lambda c: tuple(map(c.get, by))))
-    return key_of, [made(conditions.mappings[r]) for r in rows[first].tolist()]
+    # (factorize numbers the keys in order of first appearance: each one's first mapping)
+    first = np.unique(combined, return_index=True)[1]
+    made = _group_key(by, as_text)
+    return combined, [made(conditions.mappings[r]) for r in rows[first].tolist()]

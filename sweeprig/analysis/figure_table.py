@@ -150,7 +150,8 @@ def condition_arrays(mappings: Sequence[Mapping[str, object]]) -> dict[str, np.n
     figures of one kind share theirs): each group's values taken by one ``itemgetter``
     call a mapping, a float column's values converted by NumPy at once (``float(v)`` of
     each, None → NaN) into its array, so only one chunk's values are ever held as tuples;
-    a text column is read at the end, key by key. The same as
+    the study's values are taken with their groups too, and any other key found to hold
+    text is read again at the end, key by key. The same as
     :func:`condition_arrays_by_key` (the tests compare the two)."""
     return _read_conditions(mappings)[0]
 
@@ -270,12 +271,16 @@ class ConditionColumn:
 
     @classmethod
     def of(cls, mappings: Sequence[Mapping[str, object]], key: str) -> ConditionColumn:
-        """``key`` of every one of ``mappings``."""
+        """``key`` of every one of ``mappings`` (all their keys are read: for a caller
+        holding no :class:`RunConditions`)."""
         read = _read_conditions(mappings)[1].get(key)
-        if read is not None:
-            return read
-        nothing = np.zeros(len(mappings), dtype=bool)
-        return cls(nothing, nothing, np.full(len(mappings), math.nan), nothing, None)
+        return read if read is not None else cls.absent(len(mappings))
+
+    @classmethod
+    def absent(cls, count: int) -> ConditionColumn:
+        """A key none of ``count`` mappings holds."""
+        nothing = np.zeros(count, dtype=bool)
+        return cls(nothing, nothing, np.full(count, math.nan), nothing, None)
 
     def values_at(self, rows: np.ndarray) -> np.ndarray:
         """The values at ``rows``, objects (None where missing)."""
@@ -308,8 +313,8 @@ class RunConditions:
     ``mappings`` (distinct, in order of first appearance), ``which`` (per figure, the index
     of its own), ``arrays`` (:func:`condition_arrays` of ``mappings``). ``kinds``: every key
     in order of first appearance and whether its column is text. A report's writers take a
-    column per figure by ``arrays[key][which]`` (or a slice of ``which``); a key's
-    :class:`ConditionColumn` (:meth:`column`) is read once, when first asked for, and kept."""
+    column per figure by ``arrays[key][which]`` (or a slice of ``which``); ``columns``
+    holds every key's :class:`ConditionColumn`, read with the arrays (:meth:`column`)."""
 
     mappings: list[Mapping[str, object]]
     which: np.ndarray
@@ -322,9 +327,7 @@ class RunConditions:
         holds: nothing present)."""
         got = self.columns.get(key)
         if got is None:
-            nothing = np.zeros(len(self.mappings), dtype=bool)
-            got = self.columns[key] = ConditionColumn(
-                nothing, nothing, np.full(len(self.mappings), math.nan), nothing, None)
+            got = self.columns[key] = ConditionColumn.absent(len(self.mappings))
         return got
 
     @classmethod

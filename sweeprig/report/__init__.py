@@ -104,13 +104,12 @@ def report_stored_run(store: RunStore, run_id: int, folder: Path | str, *,
     be written.
     """
     try:
-        from sweeprig.analysis.reduce import load_run
+        from sweeprig.analysis.reduce import load_run, reduce_loaded
 
         loaded = load_run(store, run_id, tables=tables)
     finally:
         if tables is not None:
             tables.stop()
-    from sweeprig.analysis.reduce import reduce_loaded
     from sweeprig.memory import release_freed_memory
     from sweeprig.report.tables import make_folder, open_tables
 
