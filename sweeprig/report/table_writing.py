@@ -90,17 +90,13 @@ class TableSink:
             self.current = self.paths["csv"]
             self._csv_file = self.paths["csv"].open("w", encoding="utf-8", newline="")
 
-    def write(self, frame: pd.DataFrame, csv_text: str | None = None) -> None:
-        """Write one slice; ``csv_text``: its CSV text, made already (:func:`slice_csv_text`
-        of ``frame``, the header only before a table's first slice)."""
+    def write(self, frame: pd.DataFrame) -> None:
+        """Write one slice."""
         from sweeprig.report.csv_table import write_frame_rows
 
         if self._csv_file is not None:
             self.current = self.paths["csv"]
-            if csv_text is None:
-                write_frame_rows(self._csv_file, frame, header=self._header)
-            else:
-                self._csv_file.write(csv_text)
+            write_frame_rows(self._csv_file, frame, header=self._header)
             self._header = False
         if "parquet" in self.paths:
             import pyarrow as pa
@@ -130,27 +126,6 @@ class TableSink:
                 self._parquet.close()
 
 
-@dataclass(frozen=True)
-class WrittenSlice:
-    """A slice made into its frame, and its CSV text made already (by the report process,
-    while the helper wrote other slices)."""
-
-    frame: pd.DataFrame
-    csv_text: str
-
-
-def slice_csv_text(frame: pd.DataFrame, header: bool) -> str:
-    """The CSV text :class:`TableSink` writes of ``frame`` (its header first when
-    ``header``)."""
-    import io
-
-    from sweeprig.report.csv_table import write_frame_rows
-
-    text = io.StringIO()
-    write_frame_rows(text, frame, header=header)
-    return text.getvalue()
-
-
 def write_error(path: Path, exc: OSError) -> StoreError:
     """The error of a report file that could not be written (here or by the helper)."""
     return StoreError(
@@ -170,12 +145,9 @@ def write_job(job: TableJob) -> None:
         raise write_error(first or Path("?"), exc) from None
     try:
         for item in job.slices:
-            if isinstance(item, WrittenSlice):
-                frame, text = item.frame, item.csv_text
-            else:
-                frame, text = (item if job.finish is None else job.finish(item)), None
+            frame = item if job.finish is None else job.finish(item)
             try:
-                sink.write(frame, text)
+                sink.write(frame)
             except OSError as exc:
                 raise write_error(sink.current or first or Path("?"), exc) from None
     except BaseException:
@@ -276,19 +248,15 @@ class TableWriting:
                 while (job := self._queue.get()) is not None:
                     _send(pipe, ("open", {k: str(p) for k, p in job.paths.items()},
                                  job.schema, job.integer_columns, job.finish))
-                    for k, item in enumerate(self._until_stopped(job.slices)):
+                    for item in self._until_stopped(job.slices):
                         # while this process makes the rest of the report, the helper
                         # finishes the slices; once it only waits (finish()), it finishes
-                        # them here, on the core it no longer uses, and makes every other
-                        # one's CSV text too (the helper's largest part: shared, the two
-                        # processes end together)
+                        # them here, on the core it no longer uses (their CSV text, the
+                        # helper's largest part once, is polars' with the fast extra)
                         if job.finish is not None and self._waiting.is_set():
-                            frame = job.finish(item)
-                            text = (slice_csv_text(frame, header=k == 0)
-                                    if "csv" in job.paths and k % 2 else None)
-                            _send(pipe, ("rows", frame, True, text))
+                            _send(pipe, ("rows", job.finish(item), True))
                         else:
-                            _send(pipe, ("rows", item, job.finish is None, None))
+                            _send(pipe, ("rows", item, job.finish is None))
                     _send(pipe, ("close",))
                     if self._stop.is_set():
                         return
@@ -398,9 +366,8 @@ def serve(source: IO[bytes] | None = None, reply: IO[bytes] | None = None) -> No
         """The slices of the table just opened, until its ``close``; each finished here
         unless the report process did (the message says)."""
         while (message := pickle.load(source))[0] == "rows":
-            _, item, finished, text = message
-            frame = item if finished or finish is None else finish(item)
-            yield frame if text is None else WrittenSlice(frame, text)
+            _, item, finished = message
+            yield item if finished or finish is None else finish(item)
         if message[0] != "close":
             raise ValueError(f"unexpected message {message[0]!r} within a table")
 

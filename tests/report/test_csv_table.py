@@ -2,13 +2,21 @@
 
 from __future__ import annotations
 
+import io
 import math
 from pathlib import Path
 
+import hypothesis.strategies as st
 import numpy as np
 import pandas as pd
+from hypothesis import HealthCheck, given, settings
 
-from sweeprig.report.csv_table import write_frame_csv
+from sweeprig.report.csv_table import (
+    _polars_text,
+    polars_module,
+    write_frame_csv,
+    write_frame_rows,
+)
 
 
 def _frame() -> pd.DataFrame:
@@ -101,3 +109,94 @@ def test_whole_numbers_with_empty_cells_are_written_as_pandas_writes_them(
     frame.to_csv(tmp_path / "pandas.csv", index=False)
     assert ours == (tmp_path / "pandas.csv").read_text("utf-8")
 
+
+
+# -- polars' writer: the same text ------------------------------------------------------------
+
+_TEXTS = st.one_of(st.none(), st.sampled_from(["", "a,b", 'q"q', "l\nb", " sp", "ü", "x"]),
+                   st.text(alphabet=st.characters(codec="utf-8", exclude_categories=["Cs"]),
+                           max_size=6))
+_FLOATS = st.one_of(st.floats(allow_nan=True, allow_infinity=True),
+                    st.sampled_from([0.0, -0.0, 1e-4, 9.999999999999999e-05, 2.5e-05, 1e16,
+                                     9999999999999998.0, 1e15, 2.4e9, -27.283395]))
+
+
+@st.composite
+def _frames(draw: st.DrawFn) -> pd.DataFrame:
+    rows = draw(st.integers(1, 12))
+    kinds = draw(st.lists(st.sampled_from(["float", "int", "bool", "text", "category",
+                                           "ints_or_none"]), min_size=1, max_size=5))
+    columns: dict[str, object] = {}
+    for i, kind in enumerate(kinds):
+        if kind == "float":
+            cells: object = np.array(draw(st.lists(_FLOATS, min_size=rows, max_size=rows)))
+        elif kind == "int":
+            cells = np.array(draw(st.lists(st.integers(-2**63, 2**63 - 1), min_size=rows,
+                                           max_size=rows)), dtype=np.int64)
+        elif kind == "bool":
+            cells = np.array(draw(st.lists(st.booleans(), min_size=rows, max_size=rows)))
+        elif kind == "text":
+            cells = pd.Series(draw(st.lists(_TEXTS, min_size=rows, max_size=rows)),
+                              dtype=object)
+        elif kind == "category":
+            cells = pd.Categorical(draw(st.lists(_TEXTS, min_size=rows, max_size=rows)))
+        else:
+            cells = pd.Series(draw(st.lists(st.one_of(st.none(), st.integers(-10, 10**20)),
+                                            min_size=rows, max_size=rows)), dtype=object)
+        columns[f"{kind}{i}"] = cells
+    return pd.DataFrame(columns)
+
+
+def _text(frame: pd.DataFrame, *, fast: bool, chunk_rows: int) -> str:
+    out = io.StringIO()
+    write_frame_rows(out, frame, header=True, chunk_rows=chunk_rows,
+                     polars_from_rows=0 if fast else None)
+    return out.getvalue()
+
+
+@settings(max_examples=300, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(frame=_frames(), chunk_rows=st.integers(1, 8))
+def test_polars_writes_the_same_text(frame: pd.DataFrame, chunk_rows: int) -> None:
+    """Whatever polars is given is written as the cells formatted here are: floats of every
+    magnitude (exponent form below 1e-4 and from 1e16), ±0, NaN, ±inf; texts with commas,
+    quotes, line breaks, lone carriage returns, empty or missing; categories; whole numbers
+    with empty cells; one column or several."""
+    assert _text(frame, fast=True, chunk_rows=chunk_rows) == \
+        _text(frame, fast=False, chunk_rows=chunk_rows)
+
+
+def test_the_test_environment_writes_through_polars() -> None:
+    """The ``test`` extra installs polars, so the comparison above runs both writers, and a
+    plain table is written by polars (not quietly formatted here)."""
+    polars = polars_module()
+    assert polars is not None
+    frame = pd.DataFrame({"x": [1.5, math.nan, 2.4e9], "s": ["a", "", None],
+                          "k": pd.Categorical(["if", "rf", None]), "b": [True, False, True],
+                          "n": np.arange(3)})
+    text = _polars_text(polars, frame)
+    assert text == "1.5,a,if,True,0\n,,rf,False,1\n2400000000.0,,,True,2\n"
+    assert _polars_text(polars, frame.assign(x=[2.5e-05, 1.0, 1e16])) == \
+        "2.5e-05,a,if,True,0\n1.0,,rf,False,1\n1e+16,,,True,2\n"
+    assert _polars_text(polars, frame.assign(s=["cr\ronly", "", None])) is None
+    assert _polars_text(polars, frame[["x"]]) is None
+
+
+def test_only_a_large_frame_is_written_through_polars(monkeypatch) -> None:
+    """A frame below ``POLARS_FROM_ROWS`` rows is formatted here (the report's small tables
+    never import polars); one of that many rows goes through polars."""
+    from sweeprig.report import csv_table
+
+    seen: list[int] = []
+    real = csv_table._polars_text
+
+    def spy(polars, chunk):
+        seen.append(len(chunk))
+        return real(polars, chunk)
+
+    monkeypatch.setattr(csv_table, "_polars_text", spy)
+    rows = csv_table.POLARS_FROM_ROWS
+    frame = pd.DataFrame({"x": np.arange(rows, dtype=float), "n": np.arange(rows)})
+    write_frame_rows(io.StringIO(), frame.iloc[:-1], header=True)
+    assert seen == []
+    write_frame_rows(io.StringIO(), frame, header=True, chunk_rows=rows // 2)
+    assert seen == [rows // 2, rows // 2]
