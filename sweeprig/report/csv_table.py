@@ -18,6 +18,7 @@ import csv
 import io
 import math
 import re
+from collections.abc import Sequence
 from pathlib import Path
 from typing import Any, TextIO
 
@@ -146,20 +147,27 @@ def write_frame_csv(frame: pd.DataFrame, path: Path, chunk_rows: int = CHUNK_ROW
 
 def write_frame_rows(out: TextIO, frame: pd.DataFrame, *, header: bool,
                      chunk_rows: int = CHUNK_ROWS,
-                     polars_from_rows: int | None = POLARS_FROM_ROWS) -> None:
+                     polars_from_rows: int | None = POLARS_FROM_ROWS,
+                     arrow: Any = None, texts_here: Sequence[str] = ()) -> None:
     """Write ``frame``'s rows as CSV text to ``out`` (a text file opened with
     ``newline=""``), its header first when ``header``, ``chunk_rows`` rows at a time: a
-    table written in slices is the same text as written whole. A frame of at least
-    ``polars_from_rows`` rows goes through polars' writer where it writes the same text
-    (:func:`_polars_text`); None: every cell is formatted here."""
+    table written in slices is the same text as written whole.
+
+    A frame of at least ``polars_from_rows`` rows goes through polars' writer, as an Arrow
+    table, where it writes the same text (:func:`arrow_csv_text`); None: every cell is
+    formatted here. ``arrow``: ``frame`` made an Arrow table already (for its Parquet file),
+    whose columns ``texts_here`` (made other types there) are formatted from ``frame``."""
     if header:
         out.write(_rows_text([[_header_cell(c)] for c in frame.columns]))
+    fast = polars_from_rows is not None and len(frame) >= polars_from_rows \
+        and polars_module() is not None
+    if fast and arrow is None:
+        arrow = _arrow_table(frame)
     quote = [_may_need_quotes(frame.iloc[:, i]) for i in range(frame.shape[1])]
-    polars = polars_module() if polars_from_rows is not None \
-        and len(frame) >= polars_from_rows else None
     for start in range(0, len(frame), chunk_rows):
         chunk = frame.iloc[start:start + chunk_rows]
-        text = None if polars is None else _polars_text(polars, chunk)
+        text = None if not fast or arrow is None else arrow_csv_text(
+            arrow.slice(start, len(chunk)), chunk, texts_here)
         if text is not None:
             out.write(text)
             continue
@@ -212,28 +220,31 @@ def _rows_text(columns: list[list[str]]) -> str:
 
 # -- the same text through polars' writer ---------------------------------------------------
 #
-# polars (the optional ``fast`` extra) writes a chunk's CSV text in compiled code, about four
-# times as fast as the cells formatted here (a 100k-point run's figure table: 1.0 against
-# 4.1 s). It writes the same text as this module for what it is given here: numbers whose
-# shortest text it writes as ``repr`` does, and every other column as the texts
-# :func:`column_texts` makes, an empty text as a missing cell. Where the two writers differ,
-# the chunk or column is formatted here instead, so the bytes never depend on whether
-# polars is installed (``tests/report/test_csv_table.py`` compares both ways):
+# polars (the optional ``fast`` extra, with pyarrow) writes a table's CSV text in compiled
+# code from its Arrow form (which its Parquet file needs anyway): a 100k-point run's figure
+# table in 0.7 s of one core against 4.1 s formatted here. It writes the same text as this
+# module for what it is given: floats whose shortest text it writes as ``repr`` does, whole
+# numbers, ``True``/``False``, texts with a missing cell for an empty one, and every other
+# column as the texts :func:`column_texts` makes. Where the two writers differ, the column
+# or chunk is formatted here instead, so the bytes never depend on whether polars is
+# installed (``tests/report/test_csv_table.py`` compares both ways):
 #
 # - a float whose ``repr`` is in exponent form (magnitude below 1e-4 or from 1e16): polars
 #   writes 2.5e-05 as 0.000025 — that column's texts are made here;
 # - a text holding a lone carriage return: polars quotes it, the csv writer does not (Python
 #   3.11) — that chunk is written here;
 # - a table of one column (an empty cell is written ``""`` by the csv writer: a line of
-#   nothing would read back as no row) — written here.
+#   nothing would read back as no row), or one Arrow cannot hold (mixed types, an integer
+#   beyond 64 bits) — written here.
 
 
 def polars_module() -> Any:
-    """polars, or None when it is not installed (the ``fast`` extra)."""
+    """polars, or None when it or pyarrow is not installed (the ``fast`` extra)."""
     global _POLARS
     if _POLARS is _UNKNOWN:
         try:
             import polars
+            import pyarrow  # noqa: F401  (the tables reach polars as Arrow tables)
         except ImportError:
             polars = None
         _POLARS = polars
@@ -248,32 +259,62 @@ _REPR_EXPONENT_BELOW = 1e-4
 _REPR_EXPONENT_FROM = 1e16
 
 
-def _polars_text(pl: Any, chunk: pd.DataFrame) -> str | None:
-    """``chunk``'s rows as CSV text written by polars, the same text as formatted here;
-    None where polars would write other text (see above)."""
-    if chunk.shape[1] < 2 or not len(chunk):
+def _arrow_table(frame: pd.DataFrame) -> Any:
+    """``frame`` as an Arrow table (None: a column Arrow cannot hold, e.g. mixed types)."""
+    import pyarrow as pa
+
+    try:
+        return pa.Table.from_pandas(frame, preserve_index=False)
+    except (pa.ArrowException, TypeError, ValueError, OverflowError):
         return None
+
+
+def arrow_csv_text(table: Any, frame: pd.DataFrame, texts_here: Sequence[str] = ()
+                   ) -> str | None:
+    """The rows of ``frame`` as CSV text written by polars from ``table`` (``frame`` as an
+    Arrow table), the same text as formatted here; None where polars would write other text
+    (see above). The columns named in ``texts_here``, and those of a type not listed above,
+    are formatted here from ``frame``."""
+    import pyarrow as pa
+
+    pl = polars_module()
+    if frame.shape[1] < 2 or not len(frame) or table.num_columns != frame.shape[1]:
+        return None
+    here = set(texts_here)
     series = []
-    for i in range(chunk.shape[1]):
-        column = chunk.iloc[:, i]
-        dtype = column.dtype
+    for i, field in enumerate(table.schema):
+        kind = field.type
         name = f"c{i}"
-        if dtype == np.float64:
-            values = column.to_numpy()
-            size = np.abs(values)
+        column = table.column(i)
+        original = frame.iloc[:, i]
+        texts: list[str] | None = None
+        if field.name in here or str(frame.columns[i]) != field.name:
+            texts = column_texts(original)
+        elif pa.types.is_float64(kind) and original.dtype == np.float64:
+            size = np.abs(original.to_numpy())
             exponent_form = ((size < _REPR_EXPONENT_BELOW) & (size > 0.0)) | (
                 (size >= _REPR_EXPONENT_FROM) & (size < np.inf))
-            if not exponent_form.any():
-                series.append(pl.Series(name, values, nan_to_null=True))
-                continue
-            texts = _float_texts(values)
-        elif isinstance(dtype, np.dtype) and dtype.kind in "iu":
-            series.append(pl.Series(name, column.to_numpy()))
-            continue
+            if exponent_form.any():
+                texts = column_texts(original)
+            else:
+                series.append(pl.Series(name, column).fill_nan(None))
+        elif pa.types.is_integer(kind) or pa.types.is_null(kind):
+            series.append(pl.Series(name, column))
+        elif pa.types.is_boolean(kind) and original.dtype == np.bool_:
+            series.append(pl.DataFrame({name: pl.Series(column)}).select(
+                pl.when(pl.col(name)).then(pl.lit("True")).otherwise(pl.lit("False"))
+                .alias(name)).to_series())
+        elif pa.types.is_string(kind) or pa.types.is_large_string(kind) or (
+                pa.types.is_dictionary(kind) and pa.types.is_string(kind.value_type)):
+            text = pl.Series(name, column).cast(pl.String)
+            if text.str.contains("\r", literal=True).any():
+                return None  # (the csv writer leaves a lone CR unquoted; polars quotes it)
+            series.append(text.set(text == "", None))  # an empty text: a missing cell
         else:
-            texts = column_texts(column)
+            texts = column_texts(original)
+        if texts is not None:
             if "\r" in "".join(texts):
                 return None
-        text = pl.Series(name, texts, dtype=pl.String)
-        series.append(text.set(text == "", None))  # an empty text: a missing cell
+            text = pl.Series(name, texts, dtype=pl.String)
+            series.append(text.set(text == "", None))
     return pl.DataFrame(series).write_csv(include_header=False, line_terminator="\n")

@@ -91,27 +91,31 @@ class TableSink:
             self._csv_file = self.paths["csv"].open("w", encoding="utf-8", newline="")
 
     def write(self, frame: pd.DataFrame) -> None:
-        """Write one slice."""
+        """Write one slice (its Arrow table, made for the Parquet file, serves the CSV text
+        too: :func:`~sweeprig.report.csv_table.write_frame_rows`)."""
         from sweeprig.report.csv_table import write_frame_rows
 
-        if self._csv_file is not None:
-            self.current = self.paths["csv"]
-            write_frame_rows(self._csv_file, frame, header=self._header)
-            self._header = False
+        table = None
         if "parquet" in self.paths:
             import pyarrow as pa
+
+            converted = frame
+            if self.integer_columns:
+                converted = frame.assign(**{name: pd.array(frame[name].tolist(), dtype="Int64")
+                                            for name in self.integer_columns})
+            schema = self.schema if self._parquet is None else self._parquet.schema
+            table = pa.Table.from_pandas(converted, preserve_index=False, schema=schema)
+        if self._csv_file is not None:
+            self.current = self.paths["csv"]
+            write_frame_rows(self._csv_file, frame, header=self._header, arrow=table,
+                             texts_here=self.integer_columns)
+            self._header = False
+        if table is not None:
             import pyarrow.parquet as pq
 
             self.current = self.paths["parquet"]
-            if self.integer_columns:
-                frame = frame.assign(**{name: pd.array(frame[name].tolist(), dtype="Int64")
-                                        for name in self.integer_columns})
             if self._parquet is None:
-                table = pa.Table.from_pandas(frame, preserve_index=False, schema=self.schema)
                 self._parquet = pq.ParquetWriter(self.paths["parquet"], table.schema)
-            else:
-                table = pa.Table.from_pandas(frame, preserve_index=False,
-                                             schema=self._parquet.schema)
             self._parquet.write_table(table)
 
     def close(self) -> None:

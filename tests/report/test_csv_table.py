@@ -12,7 +12,8 @@ import pandas as pd
 from hypothesis import HealthCheck, given, settings
 
 from sweeprig.report.csv_table import (
-    _polars_text,
+    _arrow_table,
+    arrow_csv_text,
     polars_module,
     write_frame_csv,
     write_frame_rows,
@@ -165,20 +166,27 @@ def test_polars_writes_the_same_text(frame: pd.DataFrame, chunk_rows: int) -> No
         _text(frame, fast=False, chunk_rows=chunk_rows)
 
 
+def _polars_text(frame: pd.DataFrame) -> str | None:
+    return arrow_csv_text(_arrow_table(frame), frame)
+
+
 def test_the_test_environment_writes_through_polars() -> None:
-    """The ``test`` extra installs polars, so the comparison above runs both writers, and a
-    plain table is written by polars (not quietly formatted here)."""
-    polars = polars_module()
-    assert polars is not None
+    """The ``test`` extra installs polars and pyarrow, so the comparison above runs both
+    writers, and a plain table is written by polars (not quietly formatted here)."""
+    assert polars_module() is not None
     frame = pd.DataFrame({"x": [1.5, math.nan, 2.4e9], "s": ["a", "", None],
                           "k": pd.Categorical(["if", "rf", None]), "b": [True, False, True],
                           "n": np.arange(3)})
-    text = _polars_text(polars, frame)
-    assert text == "1.5,a,if,True,0\n,,rf,False,1\n2400000000.0,,,True,2\n"
-    assert _polars_text(polars, frame.assign(x=[2.5e-05, 1.0, 1e16])) == \
+    assert _polars_text(frame) == "1.5,a,if,True,0\n,,rf,False,1\n2400000000.0,,,True,2\n"
+    assert _polars_text(frame.assign(x=[2.5e-05, 1.0, 1e16])) == \
         "2.5e-05,a,if,True,0\n1.0,,rf,False,1\n1e+16,,,True,2\n"
-    assert _polars_text(polars, frame.assign(s=["cr\ronly", "", None])) is None
-    assert _polars_text(polars, frame[["x"]]) is None
+    assert _polars_text(frame.assign(s=["cr\ronly", "", None])) is None
+    assert _polars_text(frame[["x"]]) is None
+    import pyarrow as pa
+
+    # an Arrow table holding NaN itself (not as a missing cell) writes it as pandas does
+    table = pa.table({"x": pa.array([1.0, math.nan], from_pandas=False), "n": [1, 2]})
+    assert arrow_csv_text(table, table.to_pandas()) == "1.0,1\n,2\n"
 
 
 def test_only_a_large_frame_is_written_through_polars(monkeypatch) -> None:
@@ -187,13 +195,13 @@ def test_only_a_large_frame_is_written_through_polars(monkeypatch) -> None:
     from sweeprig.report import csv_table
 
     seen: list[int] = []
-    real = csv_table._polars_text
+    real = csv_table.arrow_csv_text
 
-    def spy(polars, chunk):
+    def spy(table, chunk, texts_here=()):
         seen.append(len(chunk))
-        return real(polars, chunk)
+        return real(table, chunk, texts_here)
 
-    monkeypatch.setattr(csv_table, "_polars_text", spy)
+    monkeypatch.setattr(csv_table, "arrow_csv_text", spy)
     rows = csv_table.POLARS_FROM_ROWS
     frame = pd.DataFrame({"x": np.arange(rows, dtype=float), "n": np.arange(rows)})
     write_frame_rows(io.StringIO(), frame.iloc[:-1], header=True)
