@@ -239,7 +239,9 @@ def _rows_text(columns: list[list[str]]) -> str:
 
 
 def polars_module() -> Any:
-    """polars, or None when it or pyarrow is not installed (the ``fast`` extra)."""
+    """polars, or None when it or pyarrow is not installed (the ``fast`` extra), or when the
+    installed polars does not write :func:`_probe_frame` as this module does (another
+    version may format otherwise: then every table is formatted here)."""
     global _POLARS
     if _POLARS is _UNKNOWN:
         try:
@@ -248,7 +250,37 @@ def polars_module() -> Any:
         except ImportError:
             polars = None
         _POLARS = polars
+        if polars is not None and not _writes_alike():
+            _POLARS = None
     return _POLARS
+
+
+def _probe_frame() -> pd.DataFrame:
+    """A few rows of every kind of cell the report's tables hold."""
+    return pd.DataFrame({
+        "point": np.array([0, 1, -7, 2**62], dtype=np.int64),
+        "level_dbm": [-27.283395056245638, math.nan, 0.1 + 0.2, -0.0],
+        "freq_hz": [1730000000.0, 1e15 + 0.5, 9999999999999998.0, 1e-4],
+        "overload": [True, False, False, True],
+        "text": ["2.716 ± 1.348 dB (k = 2)", 'say "x", then', "", None],
+        "lines": ["a\nb", "plain", "ü", " lead"],
+        "kind": pd.Categorical(["wanted", "if", None, "wanted"]),
+        "sweeps": pd.Series([15, None, 0, 3], dtype=object),
+    })
+
+
+def _writes_alike() -> bool:
+    """Whether polars writes :func:`_probe_frame` as the cells formatted here."""
+    import io
+
+    frame = _probe_frame()
+    reference = io.StringIO()
+    write_frame_rows(reference, frame, header=False, polars_from_rows=None)
+    try:
+        text = arrow_csv_text(_arrow_table(frame), frame)
+    except Exception:  # any failure of another version: not used
+        return False
+    return text == reference.getvalue()
 
 
 _UNKNOWN = object()

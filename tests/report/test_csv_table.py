@@ -208,3 +208,20 @@ def test_only_a_large_frame_is_written_through_polars(monkeypatch) -> None:
     assert seen == []
     write_frame_rows(io.StringIO(), frame, header=True, chunk_rows=rows // 2)
     assert seen == [rows // 2, rows // 2]
+
+
+def test_a_polars_that_writes_otherwise_is_not_used(monkeypatch) -> None:
+    """polars is used only after it wrote a probe of every kind of cell as Python does: a
+    version that formats otherwise (here: one cell changed), or fails, leaves every table
+    to Python."""
+    from sweeprig.report import csv_table
+
+    real = csv_table.arrow_csv_text
+    for fake in (lambda *a: real(*a).replace("0.30000000000000004", "0.3"),
+                 lambda *a: 1 / 0):
+        monkeypatch.setattr(csv_table, "_POLARS", csv_table._UNKNOWN)
+        monkeypatch.setattr(csv_table, "arrow_csv_text", fake)
+        assert csv_table.polars_module() is None
+    monkeypatch.setattr(csv_table, "_POLARS", csv_table._UNKNOWN)
+    monkeypatch.setattr(csv_table, "arrow_csv_text", real)
+    assert csv_table.polars_module() is not None
