@@ -153,6 +153,24 @@ files 72.9 s), 3,884 MB + 256 MB before (a test run beside it for about 25 s); 1
 but the generation time. At 1M the report now waits 40 s for the helper's CSV and Parquet
 text, which it then shares: the write phase is the two processes' total work, at the
 formats' floor (a float's shortest repr per cell).
+
+The CSV tables written by polars (the ``fast`` extra) from the Arrow table each slice's
+Parquet file is made from, where polars writes the same bytes (``csv_table.arrow_csv_text``;
+Python formats the rest, and everything when the installed polars writes a probe otherwise),
+and the report process no longer making CSV text for the helper. Same slow machine,
+interleaved on one store, before (2acd860) and after: 100k points, 15.0 and 15.1 s, 630 MB
++ 229 MB before; 13.7 and 13.8 s, 602 MB + 286 MB after (the helper imports polars); the
+report's wait for the helper 3.0 -> 1.7 s. 1M points, one run: 112.9 s (reduce 60.2, files
+52.7, of which 26.6 waiting for the helper), 3,924 MB + 319 MB (126.9 s the day before, on
+8962ad7's successor). Every report file the same bytes but the generation time. Where the
+processor time goes at 100k (``time`` of the whole: 22 s of user and system time over 14 s
+of wall time): the report process about 12 s, the table helper about 8 to 9 s (the figure
+table's text columns 1.8, the CSV text 2.2 on two threads, Parquet about 1.1, the capture
+table, the pickled slices, and a second of imports), the Arrow reader's child 1.2 s. So on
+2 cores the 8 s target needs about 6 s less processor time, not more overlap: a float's
+3-decimal text (the figure table's ``text`` column) and its shortest repr are at their
+floor in Python (numpy's string functions were slower: 0.23 against 0.18 s for 450k
+values).
 """
 
 from __future__ import annotations
