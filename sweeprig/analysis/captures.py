@@ -467,9 +467,17 @@ def conditions_records(
     The rows of a column that hold one value share one Python object for it
     (:func:`shared_values`): a large run's mappings hold millions of values, most of them
     one of a few temperatures, drives and frequencies.
+
+    A table holding ``output_freq_hz`` (a point table of a capture table that holds it) adds
+    it last to every mapping that holds both the LO and the RF frequency: the mapping
+    :func:`~sweeprig.analysis.direction.with_output_frequency` would make of it, made once
+    (a large run's reduction otherwise copies every mapping to add it).
     """
     import pandas as pd
 
+    if OUTPUT_FREQ in table and OUTPUT_FREQ not in keys \
+            and "lo_freq_hz" in keys and "rf_freq_hz" in keys:
+        keys = (*keys, OUTPUT_FREQ)
     rows = np.asarray(rows, dtype=np.int64)
     kept: list[tuple[str, np.ndarray]] = []
     partial = False

@@ -11,9 +11,11 @@ from __future__ import annotations
 import dataclasses
 from types import MappingProxyType
 
+import hypothesis.strategies as st
 import numpy as np
 import pandas as pd
 import pytest
+from hypothesis import given, settings
 
 from sweeprig.analysis.direction import (
     add_output_frequency_in_place,
@@ -109,3 +111,39 @@ def test_a_leak_in_the_noise_is_a_bound():
     assert by_name["lo_leakage"].bound == "<"
     assert by_name["lo_suppression"].bound == ">"
     assert np.isfinite(by_name["lo_suppression"].value)
+
+
+@settings(max_examples=200, deadline=None)
+@given(data=st.data(), orders=st.sampled_from([(1, -1), (1, 1), (-1, 1), (2, -1)]),
+       rows=st.integers(1, 6))
+def test_a_point_table_holding_the_output_frequency_makes_the_extended_mappings(
+        data: st.DataObject, orders: tuple[int, int], rows: int) -> None:
+    """Mappings made from a point table holding ``output_freq_hz`` (the reduction's: its
+    capture table holds |m·f_LO + n·f_RF| for the sequence's orders) are, key for key and in
+    the same order, those the output-frequency pass makes of the mappings without it; rows
+    missing the LO or the RF frequency gain none, and mappings made without the LO or the RF
+    key gain none."""
+    from sweeprig.analysis.captures import CONDITION_COLUMNS, STUDY, conditions_records
+
+    frequency = st.one_of(st.just(np.nan), st.floats(1e6, 6e9),
+                          st.sampled_from([2.33e9, 2.4e9]))
+    table = {STUDY: np.array(data.draw(st.lists(st.sampled_from(["a", "b"]), min_size=rows,
+                                                    max_size=rows)), dtype=object)}
+    for key in CONDITION_COLUMNS:
+        cells = frequency if key in ("lo_freq_hz", "rf_freq_hz") else \
+            st.one_of(st.just(np.nan), st.floats(-60, 90))
+        table[key] = np.array(data.draw(st.lists(cells, min_size=rows, max_size=rows)),
+                              dtype=float)
+    m, n = orders
+    with_output = {**table, "output_freq_hz": np.abs(m * table["lo_freq_hz"]
+                                                     + n * table["rf_freq_hz"])}
+    every = np.arange(rows)
+    for keys in ((STUDY, *CONDITION_COLUMNS),
+                 (STUDY, "temperature_c", "lo_freq_hz", "rf_freq_hz"),
+                 (STUDY, "temperature_c", "rf_freq_hz")):
+        plain = make_figures("conversion_gain", "dB", [1.0] * rows,
+                             conditions=conditions_records(table, every, keys))
+        extended = [f.conditions if c is None else c for f, c in
+                    zip(plain, output_frequency_conditions(plain, orders), strict=True)]
+        made = conditions_records(with_output, every, keys)
+        assert [list(c.items()) for c in made] == [list(c.items()) for c in extended]

@@ -247,3 +247,21 @@ def test_the_risk_column_reads_only_the_texts_that_name_a_source():
     assert got[3] == "not_found,window_edge" and got[7] is None
     # a column without a single text (all missing, as floats): no risks, no error
     assert _risks_column(pd.Series([np.nan, np.nan])).tolist() == [None, None]
+
+
+@pytest.mark.parametrize("orders", [None, (1, -1), (1, 1), (2, -1)])
+def test_the_output_frequency_column_is_the_wanted_product_of_the_orders(store, orders):
+    """``output_freq_hz`` is |m·f_LO + n·f_RF| for the sequence's wanted orders ((1, −1) when
+    none are known), at every capture; the analyses' figures carry it from there (a figure
+    of a point with the LO and RF frequencies: ``sweeprig.analysis.captures.conditions_records``)
+    instead of each mapping being copied to add it."""
+    db, run = store
+    c = captures_from_frames(db.points_frame(run), db.readings_frame(run),
+                             wanted_orders=orders)
+    m, n = orders or (1, -1)
+    expected = [abs(m * lo + n * rf) for lo, rf in zip(c["lo_freq_hz"], c["rf_freq_hz"],
+                                                       strict=True)]
+    assert c["output_freq_hz"].tolist() == expected
+    gains = conversion_gain_figures(c)
+    assert gains and all(f.conditions["output_freq_hz"] == abs(m * LO_HZ + n * RF_HZ)
+                         for f in gains)
