@@ -25,6 +25,8 @@ noise). A reading in the noise is an upper bound, so a suppression is then a ">"
 
 from __future__ import annotations
 
+import itertools
+import operator
 from collections.abc import Mapping, Sequence
 from types import MappingProxyType
 from typing import TYPE_CHECKING
@@ -169,10 +171,15 @@ def _extended(distinct: Sequence[Mapping[str, float | int | str]],
     m, n = orders if orders is not None else (1, -1)
     # Figures of one point share one conditions mapping (the analysis makes it once per
     # point): each distinct one is extended once, and its figures share the extended one.
+    # Most hold the output frequency already (made with it from a point table:
+    # conditions_records); those are passed over in C.
     extended = np.empty(len(distinct), dtype=object)
-    for i, c in enumerate(distinct):
+    holds = np.fromiter(map(operator.contains, distinct, itertools.repeat(OUTPUT_FREQ)),
+                        dtype=bool, count=len(distinct))
+    for i in np.flatnonzero(~holds).tolist():
+        c = distinct[i]
         lo, rf = c.get("lo_freq_hz"), c.get("rf_freq_hz")
-        if OUTPUT_FREQ in c or not isinstance(lo, float | int) or not isinstance(rf, float | int):
+        if not isinstance(lo, float | int) or not isinstance(rf, float | int):
             continue
         # (a mapping proxy's or dict's own copy, made in C: a new dict of the same order)
         grown = c.copy() if isinstance(c, MappingProxyType | dict) else dict(c)

@@ -28,6 +28,7 @@ from sweeprig.analysis.captures import (
     FREQ,
     LEVEL,
     NOISE_FLOOR,
+    OUTPUT_FREQ,
     POINT,
     READING,
     STUDY,
@@ -108,8 +109,9 @@ def spur_table(
     study: str | Sequence[str] | None = None,
     expected: Sequence[tuple[int, int]] = (),
 ) -> pd.DataFrame:
-    """One row per ``spur`` reading (normal attenuation): the point's study and conditions,
-    ``m``, ``n``, ``order`` (|m| + |n|), ``freq_hz`` (where the analyzer read it, or
+    """One row per ``spur`` reading (normal attenuation): the point's study and conditions
+    and its wanted output (``output_freq_hz``, NaN when the capture table has none), ``m``,
+    ``n``, ``order`` (|m| + |n|), ``freq_hz`` (where the analyzer read it, or
     |m·f_LO + n·f_RF| when the reading has no frequency), ``expected_freq_hz``
     (|m·f_LO + n·f_RF|), ``level_dbm`` (upper bound when in the noise), ``dbc``, ``bound``
     (code of the dBc value), ``level_bound`` (code of the dBm value, "<" when in the noise),
@@ -171,6 +173,9 @@ def spur_table(
     table = pd.DataFrame({POINT: cols[POINT][spur_rows], STUDY: cols[STUDY][spur_rows]})
     for col in CONDITION_COLUMNS:
         table[col] = cols[col][spur_rows]
+    # the point's wanted output (NaN when the capture table has none): the figures'
+    # conditions take it from here (conditions_records)
+    table[OUTPUT_FREQ] = cols[OUTPUT_FREQ][spur_rows]
     table["m"] = m.astype(np.int64)
     table["n"] = n.astype(np.int64)
     table["order"] = np.abs(table["m"]) + np.abs(table["n"])

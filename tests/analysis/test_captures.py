@@ -1,8 +1,10 @@
 """Capture-table checks and the per-point view."""
 
+import hypothesis.strategies as st
 import numpy as np
 import pandas as pd
 import pytest
+from hypothesis import given, settings
 
 from sweeprig.analysis import compression_figures
 from sweeprig.analysis.captures import (
@@ -141,3 +143,32 @@ def test_condition_mappings_share_equal_values_and_equal_the_plain_reading() -> 
         shared = shared_values(values)
         assert shared == values.tolist()
         assert [type(v) for v in shared] == [type(v) for v in values.tolist()]
+
+
+@settings(max_examples=150, deadline=None)
+@given(data=st.data(), rows=st.integers(0, 40))
+def test_condition_mappings_of_rows_missing_different_keys(data: st.DataObject,
+                                                           rows: int) -> None:
+    """Rows that lack different keys (a two-tone point beside single-tone ones, a missing
+    supply) each get the keys they hold, in the table's order, as a row-by-row reading
+    gives them; a key no row holds is left out of every mapping."""
+    from sweeprig.analysis.captures import conditions_records
+
+    number = st.one_of(st.just(np.nan), st.sampled_from([-40.0, 25.0, 0.0, -0.0, 2.4e9]))
+    table = {
+        "study": np.array(data.draw(st.lists(st.sampled_from(["gain", "spurs", None]),
+                                             min_size=rows, max_size=rows)), dtype=object),
+        **{key: np.array(data.draw(st.lists(number, min_size=rows, max_size=rows)),
+                         dtype=float)
+           for key in ("temperature_c", "supply_v", "rf2_freq_hz", "lo_power_dbm")},
+    }
+    keys = tuple(table)
+    picked = np.array(data.draw(st.lists(st.integers(0, max(rows - 1, 0)), max_size=rows)),
+                      dtype=np.int64) if rows else np.zeros(0, dtype=np.int64)
+    ours = conditions_records(table, picked, keys)
+    held = [k for k in keys if not all(v is None or v != v for v in table[k][picked])] \
+        if picked.size else list(keys)
+    expected = [{k: table[k][r] for k in held
+                 if table[k][r] is not None and table[k][r] == table[k][r]}
+                for r in picked.tolist()]
+    assert [list(m.items()) for m in ours] == [list(e.items()) for e in expected]

@@ -265,3 +265,22 @@ def test_the_output_frequency_column_is_the_wanted_product_of_the_orders(store, 
     gains = conversion_gain_figures(c)
     assert gains and all(f.conditions["output_freq_hz"] == abs(m * LO_HZ + n * RF_HZ)
                          for f in gains)
+
+
+@pytest.mark.parametrize("band", [None, (40e6, 80e6)])
+def test_spur_figures_carry_the_output_frequency_the_pass_would_add(store, band):
+    """A spur figure's conditions (its point's, then m, n, freq_hz, in_band and the band)
+    end with the output frequency taken from the capture table, key for key what the
+    output-frequency pass adds to the same figures made without that column."""
+    from sweeprig.analysis.direction import output_frequency_conditions
+
+    db, run = store
+    c = captures_from_frames(db.points_frame(run), db.readings_frame(run),
+                             wanted_orders=(1, -1))
+    made = spur_figures(c, if_band_hz=band)
+    plain = spur_figures(c.drop(columns="output_freq_hz"), if_band_hz=band)
+    assert made and len(made) == len(plain)
+    extended = [f.conditions if e is None else e
+                for f, e in zip(plain, output_frequency_conditions(plain, (1, -1)), strict=True)]
+    assert [list(f.conditions.items()) for f in made] == [list(e.items()) for e in extended]
+    assert all(list(f.conditions)[-1] == "output_freq_hz" for f in made)
