@@ -166,7 +166,7 @@ def write_frame_rows(out: TextIO, frame: pd.DataFrame, *, header: bool,
     quote = [_may_need_quotes(frame.iloc[:, i]) for i in range(frame.shape[1])]
     for start in range(0, len(frame), chunk_rows):
         chunk = frame.iloc[start:start + chunk_rows]
-        text = None if not fast or arrow is None else arrow_csv_text(
+        text = None if not fast or arrow is None else _polars_chunk(
             arrow.slice(start, len(chunk)), chunk, texts_here)
         if text is not None:
             out.write(text)
@@ -298,6 +298,15 @@ def _arrow_table(frame: pd.DataFrame) -> Any:
     try:
         return pa.Table.from_pandas(frame, preserve_index=False)
     except (pa.ArrowException, TypeError, ValueError, OverflowError):
+        return None
+
+
+def _polars_chunk(table: Any, frame: pd.DataFrame, texts_here: Sequence[str]) -> str | None:
+    """:func:`arrow_csv_text`, or None when polars fails on this chunk (a column type the
+    probe did not hold, say): the chunk is then formatted here, the same text."""
+    try:
+        return arrow_csv_text(table, frame, texts_here)
+    except Exception:  # any failure of polars on this chunk: formatted here instead
         return None
 
 

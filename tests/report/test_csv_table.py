@@ -225,3 +225,24 @@ def test_a_polars_that_writes_otherwise_is_not_used(monkeypatch) -> None:
     monkeypatch.setattr(csv_table, "_POLARS", csv_table._UNKNOWN)
     monkeypatch.setattr(csv_table, "arrow_csv_text", real)
     assert csv_table.polars_module() is not None
+
+
+def test_a_chunk_polars_fails_on_is_formatted_here(monkeypatch) -> None:
+    """polars failing on one chunk of a table (a type its probe did not hold) does not stop
+    the table: that chunk is formatted here, the text the same."""
+    from sweeprig.report import csv_table
+
+    frame = pd.DataFrame({"x": np.arange(6, dtype=float) / 3, "s": list("abcdef")})
+    reference = _text(frame, fast=False, chunk_rows=2)
+    real = csv_table.arrow_csv_text
+    calls: list[int] = []
+
+    def flaky(table, chunk, texts_here=()):
+        calls.append(len(chunk))
+        if len(calls) == 2:
+            raise RuntimeError("a type polars cannot write")
+        return real(table, chunk, texts_here)
+
+    monkeypatch.setattr(csv_table, "arrow_csv_text", flaky)
+    assert _text(frame, fast=True, chunk_rows=2) == reference
+    assert calls == [2, 2, 2]
