@@ -125,8 +125,8 @@ _FLOATS = st.one_of(st.floats(allow_nan=True, allow_infinity=True),
 @st.composite
 def _frames(draw: st.DrawFn) -> pd.DataFrame:
     rows = draw(st.integers(1, 12))
-    kinds = draw(st.lists(st.sampled_from(["float", "int", "bool", "text", "category",
-                                           "ints_or_none"]), min_size=1, max_size=5))
+    kinds = draw(st.lists(st.sampled_from(["float", "int", "bool", "text", "str", "string",
+                                           "category", "ints_or_none"]), min_size=1, max_size=5))
     columns: dict[str, object] = {}
     for i, kind in enumerate(kinds):
         if kind == "float":
@@ -139,6 +139,11 @@ def _frames(draw: st.DrawFn) -> pd.DataFrame:
         elif kind == "text":
             cells = pd.Series(draw(st.lists(_TEXTS, min_size=rows, max_size=rows)),
                               dtype=object)
+        elif kind == "str":  # texts as pandas infers them (its own string type from 3.0)
+            cells = pd.Series(draw(st.lists(_TEXTS, min_size=rows, max_size=rows)))
+        elif kind == "string":  # pandas' nullable string type
+            cells = pd.Series(draw(st.lists(_TEXTS, min_size=rows, max_size=rows)),
+                              dtype="string")
         elif kind == "category":
             cells = pd.Categorical(draw(st.lists(_TEXTS, min_size=rows, max_size=rows)))
         else:
