@@ -990,11 +990,8 @@ def open_tables(captures: pd.DataFrame, folder: Path, formats: Sequence[str] | N
         if formats:
             schema = None
             if "parquet" in formats:
-                import pyarrow as pa
-
                 # from the whole table: a slice whose cells are all empty would not say
-                schema = pa.Schema.from_pandas(captures_as_written(captures),
-                                               preserve_index=False)
+                schema = written_capture_schema(captures)
             # a frame of its own (the same columns) for a thread to slice while the figures
             # are made from the other; each slice's categorical text columns made text
             # where it is written (the helper's core, for a large run)
@@ -1005,6 +1002,31 @@ def open_tables(captures: pd.DataFrame, folder: Path, formats: Sequence[str] | N
                 (own.iloc[i:i + step] for i in range(0, max(len(own), 1), step)), schema,
                 finish=captures_as_written))
         yield writing
+
+
+def written_capture_schema(captures: pd.DataFrame) -> Any:
+    """The Arrow schema of ``captures_as_written(captures)`` (the capture table's Parquet
+    file), without making every row's text: a text column's type from one row per category
+    (and one missing row, if any: the whole column's types, since a categorical's rows hold
+    nothing else), every other column's from the whole table as it is."""
+    import pandas as pd
+    import pyarrow as pa
+
+    from sweeprig.analysis.load import TEXT_CAPTURE_COLUMNS, captures_as_written
+
+    texts = [c for c in TEXT_CAPTURE_COLUMNS
+             if c in captures and isinstance(captures[c].dtype, pd.CategoricalDtype)]
+    if not texts:
+        return pa.Schema.from_pandas(captures_as_written(captures), preserve_index=False)
+    rows: set[int] = set()
+    for column in texts:
+        _, first = np.unique(captures[column].cat.codes.to_numpy(), return_index=True)
+        rows.update(first.tolist())
+    sampled = pa.Schema.from_pandas(captures_as_written(captures.iloc[sorted(rows)]),
+                                    preserve_index=False)
+    whole = pa.Schema.from_pandas(captures.drop(columns=texts), preserve_index=False)
+    return pa.schema([sampled.field(name) if name in texts else whole.field(name)
+                      for name in sampled.names], metadata=sampled.metadata)
 
 
 def add_figure_table(writing: TableWriting, run: RunFigures,

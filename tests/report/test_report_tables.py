@@ -509,3 +509,20 @@ def test_condition_columns_of_a_reduced_run_are_those_read_key_by_key(report_run
             assert ours[key].tolist() == column.tolist(), key
         else:
             assert ours[key].view(np.uint64).tolist() == column.view(np.uint64).tolist(), key
+
+
+def test_the_capture_files_schema_without_every_rows_text(report_run) -> None:
+    """The capture table's Parquet schema, made from one row per category of each text
+    column, has the fields the whole table made text has: for the shared run, and for text
+    columns with missing cells, with no value at all, and for no rows."""
+    import pyarrow as pa
+
+    from sweeprig.analysis.load import captures_as_written
+    from sweeprig.report.tables import written_capture_schema
+
+    captures = report_run.captures
+    missing = captures.assign(port=captures["port"].cat.set_categories(["if"]))
+    empty = captures.assign(kind=pd.Categorical([None] * len(captures)))
+    for table in (captures, missing, empty, captures.iloc[:0], captures.iloc[3:4]):
+        whole = pa.Schema.from_pandas(captures_as_written(table), preserve_index=False)
+        assert written_capture_schema(table).equals(whole), table.dtypes
