@@ -9,7 +9,8 @@ the text cells that hold a delimiter, a quote or a line break go through the :mo
 writer (minimal quoting, the dialect pandas uses), and each chunk is joined into one text
 and written at once. The text is what ``to_csv(path, index=False)`` writes for these column
 types (``tests/report/test_csv_table.py`` compares them); any other column type is
-formatted by pandas itself, a chunk at a time.
+formatted by pandas itself, a chunk at a time. With the ``fast`` extra a large table's text
+is written by polars instead, the same bytes (the last section of this module).
 """
 
 from __future__ import annotations
@@ -106,8 +107,9 @@ def column_texts(column: pd.Series) -> list[str]:
         return [texts[code] for code in column.cat.codes.to_numpy().tolist()]
     if pd.api.types.is_string_dtype(dtype):
         return _object_texts(column.tolist())
-    # anything else (dates, categories, nullable types): pandas' own formatting, read back
-    # as cell texts (quoted again on the way out, as the csv writer would)
+    # anything else (dates, categories of other than text, nullable types): pandas' own
+    # formatting, read back as cell texts (quoted again on the way out, as the csv writer
+    # would)
     text = column.to_frame().to_csv(index=False, header=False, lineterminator="\n")
     rows = list(csv.reader(io.StringIO(text, newline="")))
     return [r[0] if r else "" for r in rows]
@@ -271,8 +273,6 @@ def _probe_frame() -> pd.DataFrame:
 
 def _writes_alike() -> bool:
     """Whether polars writes :func:`_probe_frame` as the cells formatted here."""
-    import io
-
     frame = _probe_frame()
     reference = io.StringIO()
     write_frame_rows(reference, frame, header=False, polars_from_rows=None)
@@ -299,6 +299,13 @@ def _arrow_table(frame: pd.DataFrame) -> Any:
         return pa.Table.from_pandas(frame, preserve_index=False)
     except (pa.ArrowException, TypeError, ValueError, OverflowError):
         return None
+
+
+def _is_text(kind: Any) -> bool:
+    """Whether the Arrow type ``kind`` holds text."""
+    import pyarrow as pa
+
+    return bool(pa.types.is_string(kind) or pa.types.is_large_string(kind))
 
 
 def _polars_chunk(table: Any, frame: pd.DataFrame, texts_here: Sequence[str]) -> str | None:
@@ -345,8 +352,7 @@ def arrow_csv_text(table: Any, frame: pd.DataFrame, texts_here: Sequence[str] = 
             series.append(pl.DataFrame({name: pl.Series(column)}).select(
                 pl.when(pl.col(name)).then(pl.lit("True")).otherwise(pl.lit("False"))
                 .alias(name)).to_series())
-        elif pa.types.is_string(kind) or pa.types.is_large_string(kind) or (
-                pa.types.is_dictionary(kind) and pa.types.is_string(kind.value_type)):
+        elif _is_text(kind) or (pa.types.is_dictionary(kind) and _is_text(kind.value_type)):
             text = pl.Series(name, column).cast(pl.String)
             if text.str.contains("\r", literal=True).any():
                 return None  # (the csv writer leaves a lone CR unquoted; polars quotes it)
