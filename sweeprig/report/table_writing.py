@@ -44,6 +44,7 @@ import pandas as pd
 
 from sweeprig.errors import StoreError
 from sweeprig.memory import peak_resident_mb
+from sweeprig.python_child import python_child_possible
 
 #: Capture rows from which a helper process writes a run's tables (a run's figures grow
 #: with its captures; below it the tables are written in this process: the helper's start,
@@ -178,7 +179,7 @@ class TableWriting:
 
     def __init__(self, *, helper: bool, where: Path, formats: tuple[str, ...] = ()) -> None:
         # (no interpreter to start, or a frozen program that cannot run -c: written here)
-        self.helper = helper and bool(sys.executable) and not getattr(sys, "frozen", False)
+        self.helper = helper and python_child_possible()
         #: The folder of the tables, and the formats they are written in.
         self.where = where
         self.formats = formats

@@ -36,6 +36,8 @@ from collections.abc import Sequence
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
+from sweeprig.python_child import python_child_possible
+
 if TYPE_CHECKING:
     import pandas as pd
 
@@ -152,8 +154,8 @@ def start_read(path: Path, sql: str, params: Sequence[Sequence[object]], kinds: 
     from the SQLite file ``path`` (read-only), each column typed by its letter of ``kinds``
     (:data:`sweeprig.store.side_reader.KINDS`). None when the driver is not installed or
     the child cannot start."""
-    if not arrow_read_available() or not sys.executable or getattr(sys, "frozen", False):
-        return None  # (no interpreter to start, or a frozen program that cannot run -c)
+    if not arrow_read_available() or not python_child_possible():
+        return None
     uri = path.resolve().as_uri() + "?mode=ro"
     try:
         child = subprocess.Popen(

@@ -41,6 +41,8 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
+from sweeprig.python_child import python_child_possible
+
 #: The fewest slices for which a child reads half of them (fewer: its start would not pay).
 SIDE_READ_MIN_SLICES = 4
 
@@ -203,6 +205,8 @@ _DTYPES = {"d": "float64", "q": "int64", "b": "int8"}
 def _start(path: Path, sql: str, params: Sequence[Sequence[object]], kinds: str = ""
            ) -> tuple[subprocess.Popen[bytes], Path] | None:
     """The child reading ``params`` into a temporary file (None: it could not start)."""
+    if not python_child_possible():
+        return None
     try:
         handle, name = tempfile.mkstemp(prefix="sweeprig-read-", suffix=".pickle")
         os.close(handle)
