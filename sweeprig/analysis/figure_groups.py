@@ -149,12 +149,8 @@ def held_groups(figures: Figures, names: Sequence[str], by: Sequence[str] = (), 
     if conditions is None:
         mappings, which = distinct_mappings(conditions_column)
     else:
-        if len(conditions.which) != len(figures):
-            raise ValueError("these conditions are not those of these figures")
         # the run's distinct mappings (by identity, as distinct_mappings finds them here)
-        rows_of = conditions.which[positions]
-        first, which = first_appearances(rows_of)
-        rows = rows_of[first]
+        rows, which = conditions.distinct_at(figures, positions)
         mappings = list(map(conditions.mappings.__getitem__, rows.tolist()))
         if key is None:
             coded = _key_codes(conditions, rows, by, as_text)

@@ -71,9 +71,7 @@ def figure_columns(figures: Sequence[Figure], names: Iterable[str] | None = None
         positions, columns = np.array(rows, dtype=np.int64), base_columns(picked)
         mappings = [f.conditions for f in picked]
     if conditions is not None:
-        if len(conditions.which) != len(figures):
-            raise ValueError("these conditions are not those of these figures")
-        taken = _conditions_from_run(conditions, positions)
+        taken = _conditions_from_run(conditions, *conditions.distinct_at(figures, positions))
         if taken is not None:
             columns.update(taken)
             return positions, columns
@@ -85,16 +83,14 @@ def figure_columns(figures: Sequence[Figure], names: Iterable[str] | None = None
     return positions, columns
 
 
-def _conditions_from_run(conditions: RunConditions, positions: np.ndarray
+def _conditions_from_run(conditions: RunConditions, distinct: np.ndarray, which: np.ndarray
                          ) -> dict[str, np.ndarray] | None:
-    """The condition columns :func:`figure_columns` reads from the mappings of the figures
-    at ``positions``, taken from the run's columns: the keys those mappings hold, in their
-    order of first appearance there, each as the run's column (the same values: float, or
-    text); None when a key is text in the run but not among these figures (their column
-    would be numbers: read from the mappings)."""
-    rows = conditions.which[positions]
-    first, which = first_appearances(rows)
-    distinct = rows[first]
+    """The condition columns :func:`figure_columns` reads from the mappings of some figures
+    (``distinct``, ``which``: :meth:`RunConditions.distinct_at` of them), taken from the
+    run's columns: the keys those mappings hold, in their order of first appearance there,
+    each as the run's column (the same values: float, or text); None when a key is text in
+    the run but not among these figures (their column would be numbers: read from the
+    mappings)."""
     found: list[tuple[int, int, str]] = []
     for key, values in conditions.arrays.items():
         column = conditions.column(key)
@@ -321,6 +317,18 @@ class RunConditions:
     arrays: dict[str, np.ndarray]
     columns: dict[str, ConditionColumn] = field(default_factory=dict, repr=False,
                                                 compare=False)
+
+    def distinct_at(self, figures: Sequence[Figure], positions: np.ndarray
+                    ) -> tuple[np.ndarray, np.ndarray]:
+        """Of the figures at ``positions`` of ``figures`` (whose conditions these are): the
+        indices of their distinct mappings in :attr:`mappings`, in order of first
+        appearance, and per figure the index of its own among those. ValueError when these
+        are not the conditions of ``figures``."""
+        if len(self.which) != len(figures):
+            raise ValueError("these conditions are not those of these figures")
+        rows = self.which[positions]
+        first, which = first_appearances(rows)
+        return rows[first], which
 
     def column(self, key: str) -> ConditionColumn:
         """``key`` read from every mapping (:class:`ConditionColumn`; a key no mapping
