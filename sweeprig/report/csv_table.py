@@ -16,6 +16,7 @@ is written by polars instead, the same bytes (the last section of this module).
 from __future__ import annotations
 
 import csv
+import functools
 import io
 import math
 import re
@@ -240,21 +241,17 @@ def _rows_text(columns: list[list[str]]) -> str:
 #   beyond 64 bits) — written here.
 
 
+@functools.cache
 def polars_module() -> Any:
     """polars, or None when it or pyarrow is not installed (the ``fast`` extra), or when the
     installed polars does not write :func:`_probe_frame` as this module does (another
-    version may format otherwise: then every table is formatted here)."""
-    global _POLARS
-    if _POLARS is _UNKNOWN:
-        try:
-            import polars
-            import pyarrow  # noqa: F401  (the tables reach polars as Arrow tables)
-        except ImportError:
-            polars = None
-        _POLARS = polars
-        if polars is not None and not _writes_alike():
-            _POLARS = None
-    return _POLARS
+    version may format otherwise: then every table is formatted here). Found once."""
+    try:
+        import polars
+        import pyarrow  # noqa: F401  (the tables reach polars as Arrow tables)
+    except ImportError:
+        return None
+    return polars if _writes_alike(polars) else None
 
 
 def _probe_frame() -> pd.DataFrame:
@@ -271,20 +268,18 @@ def _probe_frame() -> pd.DataFrame:
     })
 
 
-def _writes_alike() -> bool:
-    """Whether polars writes :func:`_probe_frame` as the cells formatted here."""
+def _writes_alike(pl: Any) -> bool:
+    """Whether polars (``pl``) writes :func:`_probe_frame` as the cells formatted here."""
     frame = _probe_frame()
     reference = io.StringIO()
     write_frame_rows(reference, frame, header=False, polars_from_rows=None)
     try:
-        text = arrow_csv_text(_arrow_table(frame), frame)
+        text = arrow_csv_text(_arrow_table(frame), frame, pl=pl)
     except Exception:  # any failure of another version: not used
         return False
     return text == reference.getvalue()
 
 
-_UNKNOWN = object()
-_POLARS: Any = _UNKNOWN
 #: A float written in exponent form by ``repr``: magnitude below this, or ...
 _REPR_EXPONENT_BELOW = 1e-4
 #: ... from this (Python's float ``repr``: decimal exponent below -4 or from 16).
@@ -317,15 +312,16 @@ def _polars_chunk(table: Any, frame: pd.DataFrame, texts_here: Sequence[str]) ->
         return None
 
 
-def arrow_csv_text(table: Any, frame: pd.DataFrame, texts_here: Sequence[str] = ()
-                   ) -> str | None:
-    """The rows of ``frame`` as CSV text written by polars from ``table`` (``frame`` as an
-    Arrow table), the same text as formatted here; None where polars would write other text
-    (see above). The columns named in ``texts_here``, and those of a type not listed above,
-    are formatted here from ``frame``."""
+def arrow_csv_text(table: Any, frame: pd.DataFrame, texts_here: Sequence[str] = (), *,
+                   pl: Any = None) -> str | None:
+    """The rows of ``frame`` as CSV text written by polars (``pl``; None: the one
+    :func:`polars_module` found) from ``table`` (``frame`` as an Arrow table), the same text
+    as formatted here; None where polars would write other text (see above). The columns
+    named in ``texts_here``, and those of a type not listed above, are formatted here from
+    ``frame``."""
     import pyarrow as pa
 
-    pl = polars_module()
+    pl = pl or polars_module()
     if frame.shape[1] < 2 or not len(frame) or table.num_columns != frame.shape[1]:
         return None
     here = set(texts_here)
@@ -335,7 +331,8 @@ def arrow_csv_text(table: Any, frame: pd.DataFrame, texts_here: Sequence[str] = 
         name = f"c{i}"
         column = table.column(i)
         original = frame.iloc[:, i]
-        texts: list[str] | None = None
+        texts: list[str] | None = None  # cells formatted here, or
+        text: Any = None  # a text column of polars: either becomes one
         if field.name in here or str(frame.columns[i]) != field.name:
             texts = column_texts(original)
         elif pa.types.is_float64(kind) and original.dtype == np.float64:
@@ -354,14 +351,12 @@ def arrow_csv_text(table: Any, frame: pd.DataFrame, texts_here: Sequence[str] = 
                 .alias(name)).to_series())
         elif _is_text(kind) or (pa.types.is_dictionary(kind) and _is_text(kind.value_type)):
             text = pl.Series(name, column).cast(pl.String)
-            if text.str.contains("\r", literal=True).any():
-                return None  # (the csv writer leaves a lone CR unquoted; polars quotes it)
-            series.append(text.set(text == "", None))  # an empty text: a missing cell
         else:
             texts = column_texts(original)
         if texts is not None:
-            if "\r" in "".join(texts):
-                return None
             text = pl.Series(name, texts, dtype=pl.String)
-            series.append(text.set(text == "", None))
+        if text is not None:
+            if text.str.contains("\r", literal=True).any():
+                return None  # (the csv writer leaves a lone CR unquoted; polars quotes it)
+            series.append(text.set(text == "", None))  # an empty text: a missing cell
     return pl.DataFrame(series).write_csv(include_header=False, line_terminator="\n")

@@ -1016,8 +1016,8 @@ def written_capture_schema(captures: pd.DataFrame) -> Any:
 
     texts = [c for c in TEXT_CAPTURE_COLUMNS
              if c in captures and isinstance(captures[c].dtype, pd.CategoricalDtype)]
-    if not texts:
-        return pa.Schema.from_pandas(captures_as_written(captures), preserve_index=False)
+    if not texts:  # (then the table is as written)
+        return pa.Schema.from_pandas(captures, preserve_index=False)
     rows: set[int] = set()
     for column in texts:
         _, first = np.unique(captures[column].cat.codes.to_numpy(), return_index=True)

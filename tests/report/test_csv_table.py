@@ -222,14 +222,19 @@ def test_a_polars_that_writes_otherwise_is_not_used(monkeypatch) -> None:
     from sweeprig.report import csv_table
 
     real = csv_table.arrow_csv_text
-    for fake in (lambda *a: real(*a).replace("0.30000000000000004", "0.3"),
-                 lambda *a: 1 / 0):
-        monkeypatch.setattr(csv_table, "_POLARS", csv_table._UNKNOWN)
-        monkeypatch.setattr(csv_table, "arrow_csv_text", fake)
-        assert csv_table.polars_module() is None
-    monkeypatch.setattr(csv_table, "_POLARS", csv_table._UNKNOWN)
-    monkeypatch.setattr(csv_table, "arrow_csv_text", real)
-    assert csv_table.polars_module() is not None
+    try:
+        for fake in (lambda *a, **k: real(*a, **k).replace("0.30000000000000004", "0.3"),
+                     lambda *a, **k: 1 / 0):
+            csv_table.polars_module.cache_clear()
+            monkeypatch.setattr(csv_table, "arrow_csv_text", fake)
+            assert csv_table.polars_module() is None
+        csv_table.polars_module.cache_clear()
+        monkeypatch.setattr(csv_table, "arrow_csv_text", real)
+        assert csv_table.polars_module() is not None
+    finally:  # (the real polars probed again, for the tests after this one)
+        monkeypatch.setattr(csv_table, "arrow_csv_text", real)
+        csv_table.polars_module.cache_clear()
+        csv_table.polars_module()
 
 
 def test_a_chunk_polars_fails_on_is_formatted_here(monkeypatch) -> None:
