@@ -28,6 +28,8 @@ error of this process (or Ctrl-C) stops the helper, which is never left running.
 from __future__ import annotations
 
 import contextlib
+import itertools
+import operator
 import os
 import pickle
 import queue
@@ -40,6 +42,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import IO, Any
 
+import numpy as np
 import pandas as pd
 
 from sweeprig.errors import StoreError
@@ -97,19 +100,22 @@ class TableSink:
         from sweeprig.report.csv_table import write_frame_rows
 
         table = None
+        texts_here = self.integer_columns
         if "parquet" in self.paths:
             import pyarrow as pa
 
             converted = frame
             if self.integer_columns:
-                converted = frame.assign(**{name: pd.array(frame[name].tolist(), dtype="Int64")
-                                            for name in self.integer_columns})
+                made = {name: nullable_integers(frame[name]) for name in self.integer_columns}
+                converted = frame.assign(**{name: array for name, (array, _) in made.items()})
+                # (a column of Python ints and None: its Arrow column is the same CSV text)
+                texts_here = tuple(name for name, (_, plain) in made.items() if not plain)
             schema = self.schema if self._parquet is None else self._parquet.schema
             table = pa.Table.from_pandas(converted, preserve_index=False, schema=schema)
         if self._csv_file is not None:
             self.current = self.paths["csv"]
             write_frame_rows(self._csv_file, frame, header=self._header, arrow=table,
-                             texts_here=self.integer_columns)
+                             texts_here=texts_here)
             self._header = False
         if table is not None:
             import pyarrow.parquet as pq
@@ -129,6 +135,26 @@ class TableSink:
             if self._parquet is not None:
                 self.current = self.paths["parquet"]
                 self._parquet.close()
+
+
+def nullable_integers(column: pd.Series) -> tuple[Any, bool]:
+    """``column`` (whole numbers or nothing) as pandas' nullable integers (``Int64``), and
+    whether its every cell is a Python ``int`` or None: then its Arrow column is written as
+    the same CSV text as the cells themselves (the number, or an empty cell). Such a column
+    is made at once (a large run's budget columns hold millions of cells); any other (whole
+    floats, numpy integers, missing values other than None) through ``pd.array``, as its
+    rules say."""
+    values = column.tolist()
+    if not set(map(type, values)) <= {int, type(None)}:
+        return pd.array(values, dtype="Int64"), False
+    missing = np.fromiter(map(operator.is_, values, itertools.repeat(None)), dtype=bool,
+                          count=len(values))
+    data = np.zeros(len(values), dtype=np.int64)
+    try:
+        data[~missing] = np.asarray(values, dtype=object)[~missing].astype(np.int64)
+    except OverflowError:  # (beyond 64 bits: pandas says so)
+        return pd.array(values, dtype="Int64"), False
+    return pd.arrays.IntegerArray(data, missing), True
 
 
 def write_error(path: Path, exc: OSError) -> StoreError:
