@@ -276,14 +276,19 @@ def part_conditions(parts: Sequence[Part]) -> np.ndarray:
     return np.concatenate(pieces) if pieces else np.empty(0, dtype=object)
 
 
-def columns_between(figures: Figures, first: int, stop: int) -> dict[str, np.ndarray]:
+def columns_between(figures: Figures, first: int, stop: int, *,
+                    point_numbers: bool = False) -> dict[str, np.ndarray]:
     """:func:`~sweeprig.analysis.figure_table.base_columns` of the figures at positions
-    ``first`` to ``stop`` (a block's read from its columns, none of its figures made)."""
+    ``first`` to ``stop`` (a block's read from its columns, none of its figures made).
+    ``point_numbers``: where every one of them is a block's (one point each), ``points``
+    holds their point numbers (int64) instead of a 1-tuple each."""
     from sweeprig.analysis.figure_table import base_columns
 
-    pieces = [block_columns(part, lo, hi) if isinstance(part, FigureBlock)
-              else base_columns(part[lo:hi])
-              for part, _begin, lo, hi in figures.spans(first, stop)]
+    spans = list(figures.spans(first, stop))
+    numbers = point_numbers and all(isinstance(part, FigureBlock) for part, *_ in spans)
+    pieces = [block_columns(part, lo, hi, point_tuples=not numbers)
+              if isinstance(part, FigureBlock) else base_columns(part[lo:hi])
+              for part, _begin, lo, hi in spans]
     return joined_columns(pieces)
 
 
@@ -318,12 +323,17 @@ def named_columns(figures: Figures, names: Iterable[str]
     return (np.concatenate(positions), joined_columns(pieces), np.concatenate(conditions))
 
 
-def block_columns(block: FigureBlock, lo: int, hi: int) -> dict[str, np.ndarray]:
+def block_columns(block: FigureBlock, lo: int, hi: int, *,
+                  point_tuples: bool = True) -> dict[str, np.ndarray]:
     """:func:`~sweeprig.analysis.figure_table.base_columns` of the block's figures ``lo``
-    to ``hi``, from its columns."""
+    to ``hi``, from its columns (``point_tuples`` False: ``points`` their point numbers,
+    int64)."""
     count = hi - lo
-    points = np.empty(count, dtype=object)
-    points[:] = list(zip(block.point[lo:hi].tolist()))  # (one 1-tuple a figure)
+    if point_tuples:
+        points = np.empty(count, dtype=object)
+        points[:] = list(zip(block.point[lo:hi].tolist()))  # (one 1-tuple a figure)
+    else:
+        points = np.asarray(block.point[lo:hi], dtype=np.int64)
     bounds = block.bound[lo:hi]
     bound_text = np.where(bounds == BOUND_BELOW, "<",
                           np.where(bounds == BOUND_ABOVE, ">", "")).astype(object)

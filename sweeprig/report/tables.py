@@ -845,7 +845,8 @@ def figure_frames(run: RunFigures, budgets: FigureBudgets | None = None,
 def figure_slices(run: RunFigures, budgets: FigureBudgets | None = None,
                   rows: int | None = None) -> Iterator[dict[str, np.ndarray]]:
     """:func:`figure_frames` before their text: per slice the columns as numbers (flag
-    masks, points as tuples), :func:`figure_rows_frame` making each the slice's frame
+    masks; points as tuples, or as numbers where each figure of the slice is one point's
+    from a block), :func:`figure_rows_frame` making each the slice's frame
     (where the table is written: a large run's in the helper process)."""
     if budgets is None:
         budgets = figure_budgets(run)
@@ -863,13 +864,17 @@ def _condition_kinds(run: RunFigures) -> dict[str, bool]:
     return run.figure_conditions.kinds
 
 
-def _points_texts(points: list[tuple[int, ...]]) -> np.ndarray:
+def _points_texts(points: np.ndarray) -> np.ndarray:
     """Each figure's run-store point indices, space-separated; a tuple met before (the
     figures of one point or one curve share theirs) is joined once, a single point is its
-    number."""
+    number. ``points``: a tuple a figure, or the point numbers (int64) of figures of one
+    point each (each distinct number written once)."""
+    if points.dtype.kind in "iu":
+        distinct, inverse = np.unique(points, return_inverse=True)
+        return np.array(list(map(str, distinct.tolist())), dtype=object)[inverse.ravel()]
     texts: dict[tuple[int, ...], str] = {}
     out = np.empty(len(points), dtype=object)
-    for i, p in enumerate(points):
+    for i, p in enumerate(points.tolist()):
         text = texts.get(p)
         if text is None:
             text = texts[p] = str(p[0]) if len(p) == 1 else " ".join(map(str, p))
@@ -887,7 +892,7 @@ def _figure_columns(run: RunFigures, budgets: FigureBudgets, first: int, stop: i
 
     # the one builder of a figure table's columns (a block's read from its columns); the
     # conditions from the run's columns (read once per distinct mapping, not once per slice)
-    table = columns_between(run.figures, first, stop)
+    table = columns_between(run.figures, first, stop, point_numbers=True)
     count = stop - first
     verdict = np.full(count, "", dtype=object)
     judged, codes = verdicts
@@ -937,7 +942,7 @@ def figure_rows_frame(columns: Mapping[str, np.ndarray]) -> pd.DataFrame:
         elif key == "flags":
             out[key] = np.array([flag_texts[m] for m in masks], dtype=object)
         elif key == "points":
-            out[key] = _points_texts(values.tolist())
+            out[key] = _points_texts(values)
         else:
             out[key] = values
     return pd.DataFrame(out)

@@ -5,6 +5,8 @@ from __future__ import annotations
 
 from types import MappingProxyType
 
+import numpy as np
+
 from sweeprig.analysis.direction import (
     add_output_frequency_in_place,
     add_output_frequency_to_parts,
@@ -72,3 +74,22 @@ def test_blocks_take_the_trade_names_of_an_upconverter():
     assert list(Figures(parts)) == figures
     assert {f.name for f in figures} == {"lo_rf_isolation", "spur_dbc", "iip3"}
     assert name_parts_in_trade_words(_as_blocks(figures), "down")[0].name == "lo_rf_isolation"
+
+
+def test_a_span_of_blocks_gives_its_point_numbers_where_asked():
+    from sweeprig.analysis.figure_block import columns_between
+    from sweeprig.report.tables import _points_texts
+
+    figures = Figures(_as_blocks(_figures()))
+    tuples = columns_between(figures, 0, 10)["points"]
+    numbers = columns_between(figures, 0, 10, point_numbers=True)["points"]
+    assert numbers.dtype == np.int64
+    assert [(int(n),) for n in numbers] == list(tuples) == [(p,) for p in range(10)]
+    assert _points_texts(numbers).tolist() == _points_texts(tuples).tolist() == \
+        [str(p) for p in range(10)]
+    # a span holding a plain figure (the fitted one): tuples throughout
+    mixed = columns_between(figures, 5, 15, point_numbers=True)["points"]
+    assert mixed.dtype == object and mixed[5] == tuple(range(10))
+    assert _points_texts(mixed)[5] == " ".join(map(str, range(10)))
+    assert columns_between(figures, 0, 10, point_numbers=True).keys() == \
+        columns_between(figures, 0, 10).keys()
