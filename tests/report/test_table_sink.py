@@ -95,3 +95,48 @@ def test_whole_number_columns_written_by_polars_read_as_formatted_here(
     assert "\n,," not in here.splitlines()[0]
     first = here.splitlines()[1].split(",")
     assert first[1] == str(numbers[0]) and first[2] == "" and first[3] == ""
+
+
+def test_row_groups_are_written_in_the_slices_order(tmp_path: Path) -> None:
+    """The Parquet file holds a row group a slice, in the slices' order, and the CSV file
+    the same rows."""
+    import pyarrow.parquet as pq
+
+    slices = [pd.DataFrame({"k": np.arange(k * 50, k * 50 + 50), "x": np.full(50, k / 8)})
+              for k in range(7)]
+    sink = TableSink({"csv": tmp_path / "t.csv", "parquet": tmp_path / "t.parquet"})
+    for frame in slices:
+        sink.write(frame)
+    sink.close()
+    whole = pd.concat(slices, ignore_index=True)
+    assert pq.ParquetFile(tmp_path / "t.parquet").num_row_groups == len(slices)
+    assert pd.read_parquet(tmp_path / "t.parquet").equals(whole)
+    assert pd.read_csv(tmp_path / "t.csv").equals(whole)
+
+
+@pytest.mark.parametrize("failing", [2, 3])
+def test_a_row_group_that_cannot_be_written_names_the_parquet_file(
+        tmp_path: Path, monkeypatch: pytest.MonkeyPatch, failing: int) -> None:
+    """A row group's write fails (the second, or the last one): the table's write fails
+    naming the Parquet file, not the CSV file written beside it."""
+    import pyarrow.parquet as pq
+
+    from sweeprig.errors import StoreError
+    from sweeprig.report.table_writing import TableJob, write_job
+
+    calls: list[int] = []
+    real = pq.ParquetWriter.write_table
+
+    def write_table(self, table, *args, **kwargs):
+        calls.append(table.num_rows)
+        if len(calls) == failing:
+            raise OSError(28, "No space left on device")
+        return real(self, table, *args, **kwargs)
+
+    monkeypatch.setattr(pq.ParquetWriter, "write_table", write_table)
+    frame = pd.DataFrame({"x": [1.0, 2.0], "y": ["a", "b"]})
+    paths = {"csv": tmp_path / "t.csv", "parquet": tmp_path / "t.parquet"}
+    with pytest.raises(StoreError) as raised:
+        write_job(TableJob(paths, iter([frame] * 3)))
+    assert raised.value.where == str(paths["parquet"])
+    assert "No space left on device" in raised.value.what
