@@ -151,9 +151,30 @@ class Figures(HeldParts[Figure]):
     (see the module docstring). Read as a ``Sequence[Figure]``; compares equal to any
     sequence of equal figures."""
 
-    __slots__ = ()
+    __slots__ = ("_loose_names",)
     block_type = FigureBlock
     noun = "figure"
+
+    def loose_named(self, part: tuple[Figure, ...], wanted: frozenset[str]) -> list[int]:
+        """The rows of ``part``, one of its loose parts (a tuple of figures), whose figure is
+        called any of ``wanted``, in order. Each part's rows by name are worked out once (a
+        large run's loose figures, its fitted and side figures, are read by several plots
+        and tables: one pass over them, then a lookup; a part is known by its identity,
+        which it keeps while this holds it)."""
+        try:
+            by_part = self._loose_names
+        except AttributeError:
+            by_part = self._loose_names = {}
+        rows = by_part.get(id(part))
+        if rows is None:
+            if not any(held is part for held in self.parts):
+                raise ValueError("not a part of these figures")
+            rows = by_part[id(part)] = {}
+            for i, f in enumerate(part):
+                rows.setdefault(f.name, []).append(i)
+        if len(wanted) == 1:
+            return list(rows.get(next(iter(wanted)), ()))
+        return sorted(i for name in wanted for i in rows.get(name, ()))
 
     @staticmethod
     def _made(block: FigureBlock, lo: int, hi: int) -> list[Figure]:
@@ -182,10 +203,9 @@ class Figures(HeldParts[Figure]):
                     positions += range(first, first + len(part))
                     figures += part.figures(budgets=budgets)
             else:
-                for i, f in enumerate(part):
-                    if f.name in wanted:
-                        positions.append(first + i)
-                        figures.append(f)
+                for i in self.loose_named(part, wanted):
+                    positions.append(first + i)
+                    figures.append(part[i])
         return positions, figures
 
 
@@ -310,7 +330,7 @@ def named_columns(figures: Figures, names: Iterable[str]
                 pieces.append(block_columns(part, 0, len(part)))
                 conditions.append(part.conditions)
             continue
-        keep = [i for i, f in enumerate(part) if f.name in wanted]
+        keep = figures.loose_named(part, wanted)
         if keep:
             some = [part[i] for i in keep]
             positions.append(first + np.array(keep, dtype=np.int64))

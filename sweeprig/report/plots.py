@@ -12,7 +12,9 @@ brick, IM2 plum, fits dashed, valid ranges shaded ochre).
 from __future__ import annotations
 
 import io
+import itertools
 import math
+import operator
 from collections.abc import Callable, Iterator, Mapping, Sequence
 from dataclasses import dataclass
 
@@ -717,10 +719,16 @@ def spur_chart(run: RunFigures) -> Plot | None:
     if table.empty:
         return None
     counted_frame = figure_frame(run, "spur_dbc")
-    counted_frame = counted_frame[counted_frame["points"].map(len).gt(0)]
+    # (a large run has a spur figure for every product at every point: each figure's
+    # points tuple read at C speed)
+    points = counted_frame["points"].tolist()
+    has_point = np.fromiter(map(len, points), dtype=np.int64, count=len(points)) > 0
+    counted_frame = counted_frame[has_point]
+    first_points = np.fromiter(map(operator.itemgetter(0), itertools.compress(points, has_point)),
+                               dtype=np.int64, count=int(has_point.sum()))
     mn = [c for c in ("m", "n") if c in counted_frame]
     counted_keys = pd.DataFrame({
-        "point": counted_frame["points"].map(lambda pts: int(pts[0])).to_numpy(dtype=np.int64),
+        "point": first_points,
         "m": (pd.to_numeric(counted_frame["m"], errors="coerce").fillna(0.0) if "m" in mn
               else pd.Series(0.0, index=counted_frame.index)).to_numpy(dtype=float),
         "n": (pd.to_numeric(counted_frame["n"], errors="coerce").fillna(0.0) if "n" in mn
@@ -1314,9 +1322,10 @@ def _key_column(frame: pd.DataFrame, column: str) -> list[object]:
     values = frame[column]
     if pd.api.types.is_numeric_dtype(values) and not pd.api.types.is_bool_dtype(values):
         numbers = values.to_numpy(dtype=float)
-        finite = np.isfinite(numbers)
-        return [float(f"{v:.9g}") if ok else None
-                for v, ok in zip(numbers.tolist(), finite.tolist(), strict=True)]
+        # each distinct value rounded once (a run's conditions take a few values each)
+        distinct, inverse = np.unique(numbers, return_inverse=True)
+        keys = [float(f"{v:.9g}") if math.isfinite(v) else None for v in distinct.tolist()]
+        return list(map(keys.__getitem__, inverse.ravel().tolist()))
     return [_condition_key({column: v}, (column,))[0] for v in values.tolist()]
 
 

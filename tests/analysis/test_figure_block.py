@@ -93,3 +93,23 @@ def test_a_span_of_blocks_gives_its_point_numbers_where_asked():
     assert _points_texts(mixed)[5] == " ".join(map(str, range(10)))
     assert columns_between(figures, 0, 10, point_numbers=True).keys() == \
         columns_between(figures, 0, 10).keys()
+
+
+def test_figures_by_name_are_those_a_scan_finds():
+    """The loose figures' rows by name are worked out once per part and read thereafter:
+    every question gives what a scan of the figures gives."""
+    import pytest
+
+    figures = Figures(_as_blocks(_figures()))
+    every = list(figures)
+    for names in (["iip3"], ["spur_dbc"], ["iip3", "lo_if_isolation"], ["none"], []):
+        positions, found = figures.named(names)
+        assert positions == [i for i, f in enumerate(every) if f.name in names]
+        assert found == [every[i] for i in positions]
+        loose = [p for p in figures.parts if not isinstance(p, FigureBlock)]
+        for part in loose:  # asked twice: the second from the part's index
+            assert figures.loose_named(part, frozenset(names)) == \
+                figures.loose_named(part, frozenset(names)) == \
+                [i for i, f in enumerate(part) if f.name in names]
+    with pytest.raises(ValueError):
+        figures.loose_named(tuple(every[:1]), frozenset(["iip3"]))

@@ -325,3 +325,19 @@ def test_a_stored_run_s_point_levels_are_its_point_table_s(report_run):
     studies = sorted(set(report_run.captures["study"]))
     assert_point_levels_match(report_run.captures,
                               ("if", "im3_low", "im3_high", "im2_low", "lo_at_if"), studies)
+
+
+def test_a_condition_key_column_is_each_value_rounded_as_one_key_rounds_it() -> None:
+    """:func:`_key_column` rounds each distinct value once: the keys are those of
+    :func:`_condition_key` row by row (9 significant digits; None where not finite)."""
+    import numpy as np
+    import pandas as pd
+
+    from sweeprig.report.plots import _condition_key, _key_column
+
+    values = [2.4e9, 2.4e9 + 0.3, 25.0, -0.0, 0.0, float("nan"), float("inf"), 2.4e9,
+              1 / 3, -40.0, 1 / 3]
+    frame = pd.DataFrame({"rf_freq_hz": np.array(values * 20)})
+    expected = [_condition_key({"rf_freq_hz": v}, ("rf_freq_hz",))[0] for v in values * 20]
+    assert _key_column(frame, "rf_freq_hz") == expected
+    assert _key_column(frame, "missing") == [None] * len(frame)
