@@ -29,6 +29,7 @@ import math
 from collections.abc import Iterable, Iterator, Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -70,8 +71,7 @@ def _slot_names(k: int) -> tuple[str, str, str]:
 BUDGET_FIGURE_COLUMNS: tuple[str, ...] = (
     "budget", "combined_uncertainty_db",
     *(name for k in range(NOISE_SLOTS) for name in _slot_names(k)), "own_terms")
-#: Those of them holding whole numbers or nothing (object columns: a Parquet writer makes
-#: them nullable integers).
+#: Those of them holding whole numbers or nothing (pandas' nullable integers).
 BUDGET_INTEGER_COLUMNS: tuple[str, ...] = (
     "budget", *(_slot_names(k)[2] for k in range(NOISE_SLOTS)))
 
@@ -169,47 +169,59 @@ def budget_columns(budgets: FigureBudgets, first: int = 0, stop: int | None = No
     figures = budgets.figures
     stop = len(figures) if stop is None else min(stop, len(figures))
     count = stop - first
-    text = {"budget", "own_terms", *BUDGET_INTEGER_COLUMNS}
-    columns = {name: (np.full(count, None, dtype=object) if name in text
-                      else np.full(count, math.nan)) for name in BUDGET_FIGURE_COLUMNS}
-    columns["own_terms"][:] = ""
+    columns: dict[str, Any] = {
+        name: (np.full(count, "", dtype=object) if name == "own_terms"
+               else np.full(count, math.nan)) for name in BUDGET_FIGURE_COLUMNS
+        if name not in BUDGET_INTEGER_COLUMNS}
+    # the whole numbers as values and a mask of the empty cells (pandas' nullable integers)
+    whole = {name: (np.zeros(count, dtype=np.int64), np.ones(count, dtype=bool))
+             for name in BUDGET_INTEGER_COLUMNS}
     for part, begin, lo, hi in figures.spans(first, stop):
         rows = slice(begin + lo - first, begin + hi - first)
         if isinstance(part, FigureBlock):
-            _block_budget_columns(columns, rows, part, lo, hi, budgets.shared_numbers)
+            _block_budget_columns(columns, whole, rows, part, lo, hi, budgets.shared_numbers)
         else:
-            _figure_budget_columns(columns, rows, part[lo:hi], begin + lo, budgets)
-    return columns
+            _figure_budget_columns(columns, whole, rows, part[lo:hi], begin + lo, budgets)
+    for name, (values, empty) in whole.items():
+        columns[name] = pd.arrays.IntegerArray(values, empty)
+    return {name: columns[name] for name in BUDGET_FIGURE_COLUMNS}
 
 
-def _block_budget_columns(columns: dict[str, np.ndarray], rows: slice, block: FigureBlock,
-                          lo: int, hi: int, number: Mapping[int, int]) -> None:
-    """Fill ``rows`` of the budget ``columns`` from ``block``'s rows ``lo`` to ``hi``."""
+#: A whole-number column being filled: its values and where it is empty.
+_Whole = tuple[np.ndarray, np.ndarray]
+
+
+def _block_budget_columns(columns: dict[str, np.ndarray], whole: dict[str, _Whole],
+                          rows: slice, block: FigureBlock, lo: int, hi: int,
+                          number: Mapping[int, int]) -> None:
+    """Fill ``rows`` of the budget ``columns`` (and the ``whole``-number ones) from
+    ``block``'s rows ``lo`` to ``hi``."""
     held = block.budgets
     if held is None:
         return
     shared = held.shared[lo:hi]
     has = held.present[lo:hi]
-    ids = np.full(hi - lo, None, dtype=object)
-    ids[has] = [number[id(b)] for b in shared[has].tolist()]
-    columns["budget"][rows] = ids
+    values, empty = (a[rows] for a in whole["budget"])
+    values[has] = np.fromiter((number[id(b)] for b in shared[has].tolist()), dtype=np.int64,
+                              count=int(has.sum()))
+    empty[has] = False
     columns["combined_uncertainty_db"][rows] = held.combined_db[lo:hi]
     for k in range(min(held.snr_db.shape[1], NOISE_SLOTS)):
         snr_name, scatter_name, averages_name = _slot_names(k)
         columns[snr_name][rows] = held.snr_db[lo:hi, k]
         scatter = held.scatter_snr_db[lo:hi, k]
         columns[scatter_name][rows] = scatter
-        averages = np.full(hi - lo, None, dtype=object)
         seen = ~np.isnan(scatter)
-        averages[seen] = held.averages[lo:hi, k][seen].tolist()
-        columns[averages_name][rows] = averages
+        values, empty = (a[rows] for a in whole[averages_name])
+        values[seen] = held.averages[lo:hi, k][seen]
+        empty[seen] = False
 
 
-def _figure_budget_columns(columns: dict[str, np.ndarray], rows: slice,
-                           figures: Sequence[Figure], first: int,
+def _figure_budget_columns(columns: dict[str, np.ndarray], whole: dict[str, _Whole],
+                           rows: slice, figures: Sequence[Figure], first: int,
                            budgets: FigureBudgets) -> None:
-    """Fill ``rows`` of the budget ``columns`` from ``figures`` (at positions ``first`` on),
-    column by column over those with a budget."""
+    """Fill ``rows`` of the budget ``columns`` (and the ``whole``-number ones) from
+    ``figures`` (at positions ``first`` on), column by column over those with a budget."""
     nan = math.nan
     with collector_paused():
         every = [f.budget for f in figures]
@@ -220,7 +232,9 @@ def _figure_budget_columns(columns: dict[str, np.ndarray], rows: slice,
         del every
         where = np.array(at, dtype=np.int64) + rows.start
         number = budgets.shared_numbers
-        columns["budget"][where] = [number[id(b.shared)] for b in inside]
+        values, empty = whole["budget"]
+        values[where] = [number[id(b.shared)] for b in inside]
+        empty[where] = False
         columns["combined_uncertainty_db"][where] = [b.combined_db for b in inside]
         for k in range(NOISE_SLOTS):
             snr_name, scatter_name, averages_name = _slot_names(k)
@@ -229,8 +243,10 @@ def _figure_budget_columns(columns: dict[str, np.ndarray], rows: slice,
             scatter_at = [b.scatter_snr_db[k] if len(b.scatter_snr_db) > k else nan
                           for b in inside]
             columns[scatter_name][where] = scatter_at
-            columns[averages_name][where] = [None if s != s else b.averages[k]
-                                             for b, s in zip(inside, scatter_at, strict=True)]
+            seen = [j for j, s in enumerate(scatter_at) if s == s]
+            values, empty = whole[averages_name]
+            values[where[seen]] = [inside[j].averages[k] for j in seen]
+            empty[where[seen]] = False
         own_terms = budgets.own_terms
         for i, row in zip(at, where.tolist(), strict=True):
             text = own_terms.get(first + i)

@@ -100,6 +100,8 @@ def column_texts(column: pd.Series) -> list[str]:
             return ["True" if v else "False" for v in column.to_numpy().tolist()]
         if dtype.kind == "O":
             return _object_texts(column.tolist())
+    if isinstance(dtype, pd.Int64Dtype):  # whole numbers with empty cells (budget columns)
+        return _object_texts(column.to_numpy(dtype=object, na_value=None).tolist())
     if isinstance(dtype, pd.StringDtype):
         return column.to_numpy(dtype=object, na_value="").tolist()
     if isinstance(dtype, pd.CategoricalDtype) and _text_categories(dtype):
@@ -325,14 +327,18 @@ def arrow_csv_text(table: Any, frame: pd.DataFrame, texts_here: Sequence[str] = 
     if frame.shape[1] < 2 or not len(frame) or table.num_columns != frame.shape[1]:
         return None
     here = set(texts_here)
+    # every column a series, what polars does to it an expression, all evaluated in one
+    # pass (a chunk of the figure table has some thirty columns)
     series = []
+    cells = []
+    texts_named = []  # the text columns, whose empty texts are missing cells
     for i, field in enumerate(table.schema):
         kind = field.type
         name = f"c{i}"
         column = table.column(i)
         original = frame.iloc[:, i]
-        texts: list[str] | None = None  # cells formatted here, or
-        text: Any = None  # a text column of polars: either becomes one
+        texts: list[str] | None = None  # cells formatted here
+        cell = pl.col(name)
         if field.name in here or str(frame.columns[i]) != field.name:
             texts = column_texts(original)
         elif pa.types.is_float64(kind) and original.dtype == np.float64:
@@ -342,21 +348,32 @@ def arrow_csv_text(table: Any, frame: pd.DataFrame, texts_here: Sequence[str] = 
             if exponent_form.any():
                 texts = column_texts(original)
             else:
-                series.append(pl.Series(name, column).fill_nan(None))
+                series.append(pl.Series(name, column))
+                cells.append(cell.fill_nan(None))
         elif pa.types.is_integer(kind) or pa.types.is_null(kind):
             series.append(pl.Series(name, column))
+            cells.append(cell)
         elif pa.types.is_boolean(kind) and original.dtype == np.bool_:
-            series.append(pl.DataFrame({name: pl.Series(column)}).select(
-                pl.when(pl.col(name)).then(pl.lit("True")).otherwise(pl.lit("False"))
-                .alias(name)).to_series())
+            series.append(pl.Series(name, column))
+            cells.append(pl.when(cell).then(pl.lit("True")).otherwise(pl.lit("False"))
+                         .alias(name))
         elif _is_text(kind) or (pa.types.is_dictionary(kind) and _is_text(kind.value_type)):
-            text = pl.Series(name, column).cast(pl.String)
+            series.append(pl.Series(name, column))
+            texts_named.append(name)
+            cells.append(cell.cast(pl.String))
         else:
             texts = column_texts(original)
         if texts is not None:
-            text = pl.Series(name, texts, dtype=pl.String)
-        if text is not None:
-            if text.str.contains("\r", literal=True).any():
-                return None  # (the csv writer leaves a lone CR unquoted; polars quotes it)
-            series.append(text.set(text == "", None))  # an empty text: a missing cell
-    return pl.DataFrame(series).write_csv(include_header=False, line_terminator="\n")
+            series.append(pl.Series(name, texts, dtype=pl.String))
+            texts_named.append(name)
+            cells.append(cell)
+    rows = pl.DataFrame(series).select(cells)
+    if texts_named:
+        if rows.select(pl.any_horizontal(
+                [pl.col(n).str.contains("\r", literal=True).any() for n in texts_named])
+                       ).item():
+            return None  # (the csv writer leaves a lone CR unquoted; polars quotes it)
+        # an empty text: a missing cell
+        rows = rows.with_columns([pl.when(pl.col(n) == "").then(None).otherwise(pl.col(n))
+                                  .alias(n) for n in texts_named])
+    return rows.write_csv(include_header=False, line_terminator="\n")

@@ -139,11 +139,13 @@ class TableSink:
 
 def nullable_integers(column: pd.Series) -> tuple[Any, bool]:
     """``column`` (whole numbers or nothing) as pandas' nullable integers (``Int64``), and
-    whether its every cell is a Python ``int`` or None: then its Arrow column is written as
-    the same CSV text as the cells themselves (the number, or an empty cell). Such a column
-    is made at once (a large run's budget columns hold millions of cells); any other (whole
-    floats, numpy integers, missing values other than None) through ``pd.array``, as its
-    rules say."""
+    whether its every cell is a Python ``int`` or None, or it holds ``Int64`` already: then
+    its Arrow column is written as the same CSV text as the cells themselves (the number, or
+    an empty cell). An object column of ints and None is made at once (a large run's
+    columns hold millions of cells); any other (whole floats, numpy integers, missing
+    values other than None) through ``pd.array``, as its rules say."""
+    if isinstance(column.dtype, pd.Int64Dtype):  # (made so: the figure table's budgets)
+        return column.array, True
     values = column.tolist()
     if not set(map(type, values)) <= {int, type(None)}:
         return pd.array(values, dtype="Int64"), False

@@ -148,3 +148,40 @@ def test_the_widest_budgets_are_found_from_the_columns(both_ways):
     assert len(expected) > 2
     assert [_fields(f) for f in widest_budgets(columns)] == expected
     assert [_fields(f) for f in widest_budgets(loose)] == expected
+
+
+def test_the_budget_columns_are_each_figure_s_budget_as_whole_numbers(both_ways):
+    """The figure table's budget numbers and sweeps are pandas' nullable integers: a
+    figure's shared part's number and, per reading whose noise scatter is known, its
+    sweeps; empty otherwise. Read from a block's columns, or figure by figure, the same."""
+    import math
+
+    import pandas as pd
+
+    from sweeprig.report.budget_tables import (
+        BUDGET_INTEGER_COLUMNS,
+        _slot_names,
+        budget_columns,
+        figure_budgets,
+    )
+
+    tables = []
+    for run in both_ways:
+        budgets = figure_budgets(run)
+        columns = budget_columns(budgets)
+        for name in BUDGET_INTEGER_COLUMNS:
+            assert isinstance(columns[name], pd.arrays.IntegerArray), name
+        tables.append(pd.DataFrame(columns))
+        figures = list(run.figures)
+        for i, f in enumerate(figures):
+            b = f.budget
+            budget = columns["budget"][i]
+            if b is None:
+                assert budget is pd.NA
+                continue
+            assert budget == budgets.shared_numbers[id(b.shared)]
+            for k in range(2):
+                sweeps = columns[_slot_names(k)[2]][i]
+                known = k < len(b.scatter_snr_db) and not math.isnan(b.scatter_snr_db[k])
+                assert (sweeps == b.averages[k]) if known else sweeps is pd.NA
+    assert tables[0].equals(tables[1])
