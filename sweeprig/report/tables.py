@@ -20,6 +20,7 @@ conditions, flag badges and their explanations).
 from __future__ import annotations
 
 import contextlib
+import functools
 import json
 import math
 import re
@@ -64,6 +65,7 @@ from sweeprig.report.budget_tables import (
     figure_budgets,
     read_budget_tables,
 )
+from sweeprig.report.fixed_text import arrow_compute, fixed_texts, joined, large_text
 from sweeprig.report.table_writing import TableJob, TableWriting, write_error
 from sweeprig.units import format_frequency
 
@@ -479,18 +481,49 @@ class _Stream:
         self.encoded = encoded
 
 
-def _texts3(table: Mapping[str, np.ndarray]) -> np.ndarray:
+def _texts3(table: Mapping[str, np.ndarray]) -> Any:
     """``figure_text(f, 3)`` of every figure of a figure table's columns (``table``:
     :func:`~sweeprig.analysis.figure_table.base_columns`), its common case (a number with
-    its uncertainty) spelled out here, the others by :func:`value_text`."""
+    its uncertainty) spelled out here, the others by :func:`value_text`. With pyarrow the
+    common case is made by :func:`~sweeprig.report.fixed_text.fixed_texts` (the same
+    texts), as pandas' text column; else an object array."""
     values, us, units, bounds = (table["value"], table["uncertainty_db"], table["unit"],
                                  table["bound"])
     common = (bounds == "") & np.isfinite(values) & np.isfinite(us)
     k = f"{COVERAGE_FACTOR:g}"
-    return np.array([f"{v:.3f} ± {u:.3f} {unit} (k = {k})" if ok else value_text(v, unit, b, u, 3)
-                     for v, u, unit, b, ok in zip(values.tolist(), us.tolist(), units.tolist(),
-                                                  bounds.tolist(), common.tolist(),
-                                                  strict=True)], dtype=object)
+    arrow = arrow_compute()
+    if arrow is None or not common.any():
+        return np.array([f"{v:.3f} ± {u:.3f} {unit} (k = {k})" if ok
+                         else value_text(v, unit, b, u, 3)
+                         for v, u, unit, b, ok in zip(values.tolist(), us.tolist(),
+                                                      units.tolist(), bounds.tolist(),
+                                                      common.tolist(), strict=True)],
+                        dtype=object)
+    pa, pc = arrow
+    value_texts, value_exact = fixed_texts(values, 3)
+    u_texts, u_exact = fixed_texts(us, 3)
+    made = common & value_exact & u_exact
+    texts = joined(value_texts, large_text(" ± "), u_texts, large_text(" "),
+                   pa.array(units, type=pa.large_string()), large_text(f" (k = {k})"))
+    if not made.all():
+        rest = np.flatnonzero(~made)
+        texts = pc.replace_with_mask(texts, pa.array(~made), pa.array(
+            [f"{v:.3f} ± {u:.3f} {unit} (k = {k})" if ok else value_text(v, unit, b, u, 3)
+             for v, u, unit, b, ok in zip(values[rest].tolist(), us[rest].tolist(),
+                                          units[rest].tolist(), bounds[rest].tolist(),
+                                          common[rest].tolist(), strict=True)],
+            type=pa.large_string()))
+    dtype = _inferred_text_dtype()
+    if isinstance(dtype, pd.StringDtype) and dtype.storage == "pyarrow":
+        return pd.array(texts, dtype=dtype)  # (the Arrow array itself, as the frame holds it)
+    return texts.to_numpy(zero_copy_only=False)
+
+
+@functools.cache
+def _inferred_text_dtype() -> Any:
+    """The type a frame gives an object column of strings (pandas' own text type since
+    pandas 3, held in Arrow; an object column before)."""
+    return pd.DataFrame({"text": np.array(["text"], dtype=object)})["text"].dtype
 
 
 def _document(run: RunFigures, budgets: FigureBudgets,
