@@ -52,6 +52,7 @@ from __future__ import annotations
 
 import json
 import math
+from collections.abc import Sequence
 from typing import TYPE_CHECKING
 
 import numpy as np
@@ -154,35 +155,42 @@ def captures_from_frames(
     tone2 = wanted & base.str.endswith(TONE2_SUFFIX).to_numpy(dtype=bool)[name_code]
     if wanted_orders is None:
         wanted_orders = _wanted_orders(wanted, tone2, m, n)
-    direct = np.array([DIRECT_KINDS.get(k, np.nan) for k in kind_texts.tolist()],
-                      dtype=object)
-    reading = pd.Series(direct[kind_code], index=readings.index, dtype=object)
-    reading = reading.where(~tone2, TONE2_READING)
+    # each row's reading name as a code into ``vocabulary`` (-1: none: the row is left out),
+    # the later rules overriding the earlier ones
+    vocabulary = list(dict.fromkeys([*DIRECT_KINDS.values(), TONE2_READING,
+                                     *PRODUCT_SUFFIXES.values(), "spur", "if"]))
+    code_of = {text: k for k, text in enumerate(vocabulary)}
+    direct = np.array([code_of[DIRECT_KINDS[k]] if k in DIRECT_KINDS else -1
+                       for k in kind_texts.tolist()], dtype=np.int64)
+    reading = direct[kind_code]
+    reading[tone2] = code_of[TONE2_READING]
     for (product_kind, end), short in PRODUCT_SUFFIXES.items():
         ends = (suffix == end)[name_code]
-        reading = reading.where(~(kind_is(product_kind) & ends), short)
+        reading[kind_is(product_kind) & ends] = code_of[short]
     name = np.asarray(names, dtype=object)[name_code]
     kind = kind_texts[kind_code]
     mxn = kind_is("mxn")
     is_wanted_product = mxn & (m == wanted_orders[0]) & (n == wanted_orders[1])
-    reading = reading.where(~pd.Series(mxn & ~is_wanted_product, index=reading.index), "spur")
+    reading[mxn & ~is_wanted_product] = code_of["spur"]
     # The mxn reading of the wanted product stands in for "if" only where the point has no
     # wanted reading of its own (same repeat status).
     key = pd.MultiIndex.from_arrays([readings["point_index"].to_numpy(), repeat])
-    own = key[(reading == "if").to_numpy()]
+    own = key[reading == code_of["if"]]
     stand_in = is_wanted_product & ~key.isin(own)
-    reading = reading.where(~pd.Series(stand_in, index=reading.index), "if")
-    keep = reading.notna().to_numpy()
+    reading[stand_in] = code_of["if"]
+    keep = reading >= 0
+    kept = reading[keep]
+    spur = kept == code_of["spur"]
 
     rows = readings[keep]
     out = pd.DataFrame({
         "point": rows["point_index"].to_numpy(dtype=np.int64),
-        "reading": _text_column(reading[keep].to_numpy(dtype=object)),
+        "reading": _coded_text_column(kept, vocabulary),
         "freq_hz": rows["freq_hz"].to_numpy(dtype=float, na_value=np.nan),
         "level_dbm": rows["level_dbm"].to_numpy(dtype=float, na_value=np.nan),
         "noise_floor_dbm": rows["noise_floor_dbm"].to_numpy(dtype=float, na_value=np.nan),
-        "m": np.where(reading[keep] == "spur", m[keep], np.nan),
-        "n": np.where(reading[keep] == "spur", n[keep], np.nan),
+        "m": np.where(spur, m[keep], np.nan),
+        "n": np.where(spur, n[keep], np.nan),
         "overload": rows["overload"].fillna(False).to_numpy(dtype=bool),
         "atten_check": repeat[keep],
         "attenuation_db": rows["attenuation_db"].to_numpy(dtype=float, na_value=np.nan),
@@ -226,6 +234,21 @@ def captures_from_frames(
         # (the store reads them in this order: a large run's table is not copied for it)
         out = out.sort_values(["point", "reading_no"], kind="stable")
     return out[list(CAPTURE_COLUMNS)].reset_index(drop=True)
+
+
+def _coded_text_column(codes: np.ndarray, vocabulary: Sequence[str]) -> pd.Categorical:
+    """:func:`_text_column` of texts given as codes into ``vocabulary`` (each ``>= 0``):
+    the same categorical (the texts used, sorted), without a text per row."""
+    import pandas as pd
+
+    if not codes.size:
+        return _text_column(np.empty(0, dtype=object))
+    used = np.unique(codes)
+    texts = np.asarray(vocabulary, dtype=object)[used]
+    order = np.argsort(texts, kind="stable")
+    rank = np.full(len(vocabulary), -1, dtype=np.int64)
+    rank[used[order]] = np.arange(used.size)
+    return pd.Categorical.from_codes(rank[codes], categories=list(texts[order]))
 
 
 def _text_column(texts: np.ndarray) -> pd.Categorical:
