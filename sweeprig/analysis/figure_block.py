@@ -24,6 +24,7 @@ from __future__ import annotations
 
 import functools
 import math
+import operator
 from collections.abc import Callable, Iterable, Mapping, Sequence
 from dataclasses import dataclass, replace
 
@@ -407,7 +408,7 @@ def block_maker(blockable: Callable[[str], bool] | None = None
             np.broadcast_to(np.asarray(bound, dtype=np.int8), (count,)).copy(),
             np.broadcast_to(np.asarray(flag_mask, dtype=np.int64), (count,)).copy(),
             mappings,
-            np.fromiter((p[0] for p in points), dtype=np.int64, count=count),
+            np.fromiter(map(operator.itemgetter(0), points), dtype=np.int64, count=count),
             np.full(count, math.nan),
         )]
 
