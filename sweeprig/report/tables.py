@@ -485,8 +485,8 @@ def _texts3(table: Mapping[str, np.ndarray]) -> Any:
     """``figure_text(f, 3)`` of every figure of a figure table's columns (``table``:
     :func:`~sweeprig.analysis.figure_table.base_columns`), its common case (a number with
     its uncertainty) spelled out here, the others by :func:`value_text`. With pyarrow the
-    common case is made by :func:`~sweeprig.report.fixed_text.fixed_texts` (the same
-    texts), as pandas' text column; else an object array."""
+    numbers are written by :func:`~sweeprig.report.fixed_text.fixed_texts` (the same
+    texts; Python's where it cannot tell), as pandas' text column; else an object array."""
     values, us, units, bounds = (table["value"], table["uncertainty_db"], table["unit"],
                                  table["bound"])
     common = (bounds == "") & np.isfinite(values) & np.isfinite(us)
@@ -499,24 +499,55 @@ def _texts3(table: Mapping[str, np.ndarray]) -> Any:
                                                       units.tolist(), bounds.tolist(),
                                                       common.tolist(), strict=True)],
                         dtype=object)
-    pa, pc = arrow
+    pa, _ = arrow
     value_texts, value_exact = fixed_texts(values, 3)
     u_texts, u_exact = fixed_texts(us, 3)
     made = common & value_exact & u_exact
-    texts = joined(value_texts, large_text(" ± "), u_texts, large_text(" "),
-                   pa.array(units, type=pa.large_string()), large_text(f" (k = {k})"))
-    if not made.all():
-        rest = np.flatnonzero(~made)
-        texts = pc.replace_with_mask(texts, pa.array(~made), pa.array(
+    # every row's text is taken from one of these pieces: the common formula's (its own
+    # row), a number shown without its uncertainty (a piece per unit and bound), Python's
+    pieces = [joined(value_texts, large_text(" ± "), u_texts, large_text(" "),
+                     pa.array(units, type=pa.large_string()), large_text(f" (k = {k})"))]
+    take = np.arange(len(values))
+    offset = len(values)
+    plain = np.flatnonzero(~common & np.isfinite(values))
+    groups: dict[tuple[str, str], list[int]] = {}
+    for i, pair in zip(plain.tolist(), zip(units[plain].tolist(), bounds[plain].tolist(),
+                                           strict=True), strict=True):
+        groups.setdefault(pair, []).append(i)
+    for (unit, bound), members in groups.items():
+        rows = np.array(members, dtype=np.int64)
+        number, suffix = _shown_number(values[rows], unit)
+        texts, exact = fixed_texts(number, max(3, _UNIT_DIGITS.get(unit, 0)))
+        pieces.append(joined(large_text(f"{bound} " if bound else ""), texts,
+                             large_text(suffix)))
+        take[rows[exact]] = offset + np.flatnonzero(exact)
+        made[rows[exact]] = True
+        offset += rows.size
+    rest = np.flatnonzero(~made)
+    if rest.size:
+        pieces.append(pa.array(
             [f"{v:.3f} ± {u:.3f} {unit} (k = {k})" if ok else value_text(v, unit, b, u, 3)
              for v, u, unit, b, ok in zip(values[rest].tolist(), us[rest].tolist(),
                                           units[rest].tolist(), bounds[rest].tolist(),
                                           common[rest].tolist(), strict=True)],
             type=pa.large_string()))
+        take[rest] = offset + np.arange(rest.size)
+    texts = pa.concat_arrays(pieces).take(pa.array(take))
     dtype = _inferred_text_dtype()
     if isinstance(dtype, pd.StringDtype) and dtype.storage == "pyarrow":
         return pd.array(texts, dtype=dtype)  # (the Arrow array itself, as the frame holds it)
     return texts.to_numpy(zero_copy_only=False)
+
+
+def _shown_number(values: np.ndarray, unit: str) -> tuple[np.ndarray, str]:
+    """The numbers :func:`format_value` writes for ``values`` in ``unit`` and the text
+    after them: amperes and watts in milli-units, the others as they are (an empty unit:
+    nothing after the number)."""
+    milli = {"A": " mA", "W": " mW"}.get(unit)
+    if milli is not None:
+        with np.errstate(over="ignore"):  # (beyond the floats: inf, as Python's product)
+            return values * 1e3, milli
+    return values, f" {unit}".rstrip()
 
 
 @functools.cache

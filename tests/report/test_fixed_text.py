@@ -57,7 +57,7 @@ def test_signs_ties_and_large_values() -> None:
 @settings(max_examples=150, deadline=None)
 @given(st.lists(st.tuples(st.one_of(_FLOATS, st.floats(-200, 200), _NEAR_TIES),
                           st.one_of(st.just(math.nan), st.floats(0, 5), _NEAR_TIES),
-                          st.sampled_from(["dB", "dBm", "A", "W", "", "dB/°C", "dB/dB"]),
+                          st.sampled_from(["dB", "dBm", "A", "W", "", "dB/°C", "dB/dB", " dB "]),
                           st.sampled_from(["", "<", ">"])), min_size=1, max_size=30))
 def test_the_figure_texts_are_those_made_one_by_one(rows) -> None:
     values, us, units, bounds = (np.array(c, dtype=dtype) for c, dtype in
