@@ -179,16 +179,16 @@ Then the helper's and the reduction's overheads (the budget numbers made whole-n
 columns where they are made, polars asked once a chunk, the figure texts' common case made
 by pyarrow from integers, a block slice's point numbers, the Arrow reader's child without
 the driver's DB-API module, the capture table's reading names as codes, the plots' loose
-figures found by name from an index): the 100k store, three interleaved pairs, load 1.8 to
-2.3: 12.96, 12.97, 13.01 s, 590 to 595 MB + 281 MB before (0e0c39f); 11.94, 11.96, 11.97 s,
-586 to 587 MB + 284 to 290 MB after (the report's wait for its tables 1.7 -> 1.0-1.2 s).
-1M points, one run each, the same day: 106.9 s (reduce 52.8, files 54.0 of which 27.2
-waiting), 3,852 MB + 308 MB before; 96.0 s (reduce 50.6, files 45.4 of which 19.7
-waiting), 3,845 MB + 310 MB after. Every report file the same bytes but the generation
-time. At 1M both cores are busy while the report waits (this process finishes the slices,
-the helper writes them): a trial writing the Parquet row groups on a thread of their own in
-the helper was no faster (105.4 against 101.6 s; at 100k 12.7 against 12.5 s) and is not
-kept.
+figures found by name from an index): the 100k store, three interleaved pairs, load 1.7 to
+2.3: 12.93, 13.14, 13.24 s, 596 to 599 MB + 281 to 283 MB before (0e0c39f); 11.53, 11.58,
+11.89 s, 588 to 589 MB + 284 to 289 MB after (6dda5f4; the report's wait for its tables
+1.7-1.8 -> 0.9-1.0 s). 1M points, one run each, the same day: 106.9 s (reduce 52.8, files
+54.0 of which 27.2 waiting), 3,852 MB + 308 MB before; 96.0 s (reduce 50.6, files 45.4 of
+which 19.7 waiting), 3,845 MB + 310 MB on ca469c2, one commit before the last. Every report
+file the same bytes but the generation time. At 1M both cores are busy while the report
+waits (this process finishes the slices, the helper writes them): a trial writing the
+Parquet row groups on a thread of their own in the helper was no faster (105.4 against 101.6
+s; at 100k 12.7 against 12.5 s) and is not kept.
 """
 
 from __future__ import annotations
