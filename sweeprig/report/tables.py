@@ -493,12 +493,7 @@ def _texts3(table: Mapping[str, np.ndarray]) -> Any:
     k = f"{COVERAGE_FACTOR:g}"
     arrow = arrow_compute()
     if arrow is None or not common.any():
-        return np.array([f"{v:.3f} ± {u:.3f} {unit} (k = {k})" if ok
-                         else value_text(v, unit, b, u, 3)
-                         for v, u, unit, b, ok in zip(values.tolist(), us.tolist(),
-                                                      units.tolist(), bounds.tolist(),
-                                                      common.tolist(), strict=True)],
-                        dtype=object)
+        return np.array(_python_texts3(values, us, units, bounds, common), dtype=object)
     pa, _ = arrow
     value_texts, value_exact = fixed_texts(values, 3)
     u_texts, u_exact = fixed_texts(us, 3)
@@ -525,18 +520,26 @@ def _texts3(table: Mapping[str, np.ndarray]) -> Any:
         offset += rows.size
     rest = np.flatnonzero(~made)
     if rest.size:
-        pieces.append(pa.array(
-            [f"{v:.3f} ± {u:.3f} {unit} (k = {k})" if ok else value_text(v, unit, b, u, 3)
-             for v, u, unit, b, ok in zip(values[rest].tolist(), us[rest].tolist(),
-                                          units[rest].tolist(), bounds[rest].tolist(),
-                                          common[rest].tolist(), strict=True)],
-            type=pa.large_string()))
+        pieces.append(pa.array(_python_texts3(values[rest], us[rest], units[rest],
+                                              bounds[rest], common[rest]),
+                               type=pa.large_string()))
         take[rest] = offset + np.arange(rest.size)
     texts = pa.concat_arrays(pieces).take(pa.array(take))
     dtype = _inferred_text_dtype()
     if isinstance(dtype, pd.StringDtype) and dtype.storage == "pyarrow":
         return pd.array(texts, dtype=dtype)  # (the Arrow array itself, as the frame holds it)
     return texts.to_numpy(zero_copy_only=False)
+
+
+def _python_texts3(values: np.ndarray, us: np.ndarray, units: np.ndarray, bounds: np.ndarray,
+                   common: np.ndarray) -> list[str]:
+    """:func:`_texts3` of these rows by Python's formatting, one by one: the common case
+    (``common``: a number with its uncertainty) spelled out, the others by
+    :func:`value_text`."""
+    k = f"{COVERAGE_FACTOR:g}"
+    return [f"{v:.3f} ± {u:.3f} {unit} (k = {k})" if ok else value_text(v, unit, b, u, 3)
+            for v, u, unit, b, ok in zip(values.tolist(), us.tolist(), units.tolist(),
+                                         bounds.tolist(), common.tolist(), strict=True)]
 
 
 def _shown_number(values: np.ndarray, unit: str) -> tuple[np.ndarray, str]:
@@ -1078,7 +1081,6 @@ def written_capture_schema(captures: pd.DataFrame) -> Any:
     file), without making every row's text: a text column's type from one row per category
     (and one missing row, if any: the whole column's types, since a categorical's rows hold
     nothing else), every other column's from the whole table as it is."""
-    import pandas as pd
     import pyarrow as pa
 
     from sweeprig.analysis.load import TEXT_CAPTURE_COLUMNS, captures_as_written
