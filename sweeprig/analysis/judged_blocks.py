@@ -98,42 +98,67 @@ class JudgedBlock:
                 for row, code, mask in zip(rows.tolist(), verdicts, suspects, strict=True)]
 
     def reasons(self) -> list[str]:
-        """:attr:`Judgement.reason` of each judgement, from the block's columns: a plain
-        number (no bound, no suspect flag, no edge within ± U; most of them) spelled out
-        here from its value and each edge's outcome, the others by
-        :func:`~sweeprig.analysis.limits.judgement_reason`."""
+        """:attr:`Judgement.reason` of each judgement, from the block's columns
+        (:meth:`reasons_at`)."""
+        return self.reasons_at(np.arange(len(self)))
+
+    def reasons_at(self, at: np.ndarray, wordings: tuple[np.ndarray, np.ndarray, list[
+            str | tuple[str, ...]]] | None = None) -> list[str]:
+        """The reasons of the judgements ``at`` (their numbers among the block's
+        judgements, int64): a plain number spelled out here from its value and its
+        wording (:meth:`plain_wordings`, or ``wordings`` when the caller has them), the
+        others by :func:`~sweeprig.analysis.limits.judgement_reason`."""
+        plain, wording, texts = self.plain_wordings() if wordings is None else wordings
         block, limit = self.block, self.limit
+        rows = self.rows[at]
         unit = block.unit
+        out = []
+        for i, v, b, u, code, mask, w in zip(
+                at.tolist(), block.value[rows].tolist(), block.bound[rows].tolist(),
+                block.uncertainty_db[rows].tolist(), self.verdict[at].tolist(),
+                self.suspect[at].tolist(), wording[at].tolist(), strict=True):
+            if not plain[i]:
+                out.append(judgement_reason(v, bound_symbol(b), unit, u, limit,
+                                            VERDICT_NAMES[code], _suspect_names(mask)))
+            elif isinstance(texts[w], str):
+                out.append(texts[w])
+            else:
+                value = f"{v:.3f} {unit}"
+                out.append("; ".join(value + words for words in texts[w]))
+        return out
+
+    def plain_wordings(self) -> tuple[np.ndarray, np.ndarray, list[str | tuple[str, ...]]]:
+        """Which judgements are a plain number (finite, no bound, no suspect flag, no edge
+        within ± U) and how each one's reason is worded: ``(plain, wording, wordings)``,
+        ``wording`` an index into ``wordings`` (int64; meaningful where ``plain``). A
+        wording is a whole reason (a text: a limit without edges), or the words after the
+        value for each edge named (a tuple): the reason is then ``"; ".join(f"{value:.3f}
+        {unit}" + words for words in wording)``, as
+        :func:`~sweeprig.analysis.limits.judgement_reason` writes it: the edges that the
+        verdict is about (all met for a pass; the missed ones for a fail)."""
+        block, limit = self.block, self.limit
         rows = self.rows
         value, bound = block.value[rows], block.bound[rows]
-        u = block.uncertainty_db[rows]
         plain = (np.isfinite(value) & (bound == BOUND_NONE) & (self.suspect == 0)
                  & ~self.straddles)
-        out: list[str] = [""] * len(self)
-        codes = self.verdict.tolist()
-        for i in np.flatnonzero(~plain).tolist():
-            out[i] = judgement_reason(float(value[i]), bound_symbol(int(bound[i])), unit,
-                                      float(u[i]), limit, VERDICT_NAMES[codes[i]],
-                                      _suspect_names(int(self.suspect[i])))
-        at = np.flatnonzero(plain)
         edges = [(edge, lower) for edge, lower in ((limit.min, True), (limit.max, False))
                  if edge is not None]
+        wording = np.zeros(len(self), dtype=np.int64)
         if not edges:
-            for i in at.tolist():
-                out[i] = "no bounds"
-            return out
-        # per edge, whether each plain number meets it, and the words after the value
-        met = [(value[at] >= edge if lower else value[at] <= edge).tolist()
-               for edge, lower in edges]
-        # (the words after the value, as judgement_reason writes them: one wording)
-        tails = [(_edge_text("", None, edge, lower, FAIL), _edge_text("", None, edge, lower, PASS))
-                 for edge, lower in edges]
-        for k, (i, v) in enumerate(zip(at.tolist(), value[at].tolist(), strict=True)):
-            text = f"{v:.3f} {unit}"
-            passed = codes[i] == _PASS  # (else failed: a plain number is never between)
-            out[i] = "; ".join(text + tail[ok] for tail, oks in zip(tails, met, strict=True)
-                               if (ok := oks[k]) == passed)
-        return out
+            return plain, wording, ["no bounds"]
+        # (a plain number is never between: its verdict is a pass or a fail)
+        passed = self.verdict == _PASS
+        wording += passed * (1 << len(edges))
+        with np.errstate(invalid="ignore"):
+            for k, (edge, lower) in enumerate(edges):
+                met = value >= edge if lower else value <= edge
+                wording += (met == passed) * (1 << k)
+        wordings: list[str | tuple[str, ...]] = []
+        for code in range(1 << (len(edges) + 1)):
+            outcome = PASS if code >> len(edges) else FAIL
+            wordings.append(tuple(_edge_text("", None, edge, lower, outcome)
+                                  for k, (edge, lower) in enumerate(edges) if code >> k & 1))
+        return plain, wording, wordings
 
     def margins(self) -> np.ndarray:
         """How far each judged figure is inside the limit (negative outside), in its unit:

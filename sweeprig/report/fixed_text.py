@@ -12,8 +12,8 @@ each is the text Python would write, character for character:
   value that rounds to zero).
 - ``r = x·10^N`` in floating point differs from ``X`` by at most half an ulp of ``r``, so
   ``round(r)`` is ``round(X)`` unless ``r`` lies within an ulp of a half-integer; such
-  numbers (and those of 2^52 or more after scaling, non-finite ones) are left to Python:
-  :func:`fixed_texts` says which.
+  numbers (and those of 2^52 or more after scaling) are written by Python, once per
+  distinct value; non-finite ones are left to the caller: :func:`fixed_texts` says which.
 
 Units: none (texts). pyarrow is optional: :func:`arrow_compute` is None without it.
 """
@@ -44,19 +44,20 @@ def arrow_compute() -> Any:
 
 def fixed_texts(values: np.ndarray, digits: int) -> tuple[Any, np.ndarray]:
     """``format(v, f".{digits}f")`` of each of ``values`` (float64) as an Arrow
-    ``large_string`` array, and where that text is exact (bool array): elsewhere (a value
-    too close to a rounding tie to decide here, too large, or not finite) the array holds a
-    placeholder for the caller to replace with Python's text. Needs pyarrow
-    (:func:`arrow_compute`)."""
+    ``large_string`` array, and where that text is made (bool array: every finite value);
+    elsewhere (not a number, an infinity) the array holds a placeholder for the caller to
+    replace. A value too close to a rounding tie to decide from its scaled float, or too
+    large, is written by Python here, once per distinct value (a run repeats a few such
+    values many times). Needs pyarrow (:func:`arrow_compute`)."""
     pa, pc = arrow_compute()
     values = np.asarray(values, dtype=np.float64)
     scale = 10.0**digits
-    with np.errstate(over="ignore", invalid="ignore"):  # (inf and NaN: left to Python)
+    with np.errstate(over="ignore", invalid="ignore"):  # (inf and NaN: left to the caller)
         magnitude = np.abs(values * scale)
         fraction = magnitude - np.floor(magnitude)
-        exact = (magnitude < _LARGEST) & (
+        decided = (magnitude < _LARGEST) & (
             np.abs(fraction - 0.5) > _TIE_ULPS * np.spacing(magnitude))
-    whole = np.rint(np.where(exact, magnitude, 0.0)).astype(np.int64)
+    whole = np.rint(np.where(decided, magnitude, 0.0)).astype(np.int64)
     unit = 10**digits
     integer_part = pc.cast(pa.array(whole // unit), pa.large_string())
     decimals = pc.utf8_lpad(pc.cast(pa.array(whole % unit), pa.large_string()), digits, "0")
@@ -65,7 +66,17 @@ def fixed_texts(values: np.ndarray, digits: int) -> tuple[Any, np.ndarray]:
         texts = joined(sign, integer_part, large_text("."), decimals)
     else:
         texts = joined(sign, integer_part)
-    return texts, exact
+    finite = np.isfinite(values)
+    undecided = np.flatnonzero(finite & ~decided)
+    if undecided.size:
+        # distinct by their bits (-0.0 is not 0.0 here), each written once by Python
+        bits, spread = np.unique(values[undecided].view(np.int64), return_inverse=True)
+        written = pa.array([format(v, f".{digits}f") for v in bits.view(np.float64).tolist()],
+                           type=pa.large_string())
+        take = np.arange(values.size)
+        take[undecided] = values.size + spread.reshape(-1)
+        texts = pa.concat_arrays([texts, written]).take(pa.array(take))
+    return texts, finite
 
 
 def large_text(text: str) -> Any:
@@ -78,3 +89,11 @@ def joined(*pieces: Any) -> Any:
     """The row-wise concatenation of Arrow ``large_string`` arrays and scalars."""
     _, pc = arrow_compute()
     return pc.binary_join_element_wise(*pieces, large_text(""))
+
+
+def comma_joined(texts: Any) -> str:
+    """The texts of an Arrow string array joined by commas, one Python text (no Python
+    string per element)."""
+    pa, pc = arrow_compute()
+    whole = pa.LargeListArray.from_arrays(pa.array([0, len(texts)], type=pa.int64()), texts)
+    return str(pc.binary_join(whole, large_text(","))[0].as_py())

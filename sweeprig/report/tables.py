@@ -65,7 +65,13 @@ from sweeprig.report.budget_tables import (
     figure_budgets,
     read_budget_tables,
 )
-from sweeprig.report.fixed_text import arrow_compute, fixed_texts, joined, large_text
+from sweeprig.report.fixed_text import (
+    arrow_compute,
+    comma_joined,
+    fixed_texts,
+    joined,
+    large_text,
+)
 from sweeprig.report.table_writing import TableJob, TableWriting, write_error
 from sweeprig.units import format_frequency
 
@@ -668,22 +674,81 @@ def _document(run: RunFigures, budgets: FigureBudgets,
 def _judgement_entries(run: RunFigures, limit_index: Mapping[int, int]) -> Iterator[str]:
     """The entries of the figures document's ``judgements`` as JSON text: the figure's
     number, the limit's index, the verdict and its reason (a judged block's from its
-    columns)."""
-    from json.encoder import encode_basestring
-
+    columns: :func:`_block_entries`, several entries a text)."""
     encode = json.JSONEncoder(ensure_ascii=False, separators=(",", ":")).encode
     for part in run.assessment.judgements.parts:
         if isinstance(part, JudgedBlock):
-            limit = limit_index[id(part.limit)]
-            for position, code, reason in zip(part.positions.tolist(), part.verdict.tolist(),
-                                              part.reasons(), strict=True):
-                yield (f'{{"figure":{position},"limit":{limit},'
-                       f'"verdict":"{VERDICT_NAMES[code]}","reason":'
-                       f'{encode_basestring(reason)}}}')
+            yield from _block_entries(part, limit_index[id(part.limit)])
         else:
             for j in part:
                 yield encode({"figure": j.position, "limit": limit_index[id(j.limit)],
                               "verdict": j.verdict, "reason": j.reason})
+
+
+#: Judgements of a block made into JSON entries at a time with pyarrow (a few MB of text).
+_ENTRY_SLICE = 1 << 16
+
+
+def _block_entries(part: JudgedBlock, limit: int) -> Iterator[str]:
+    """The ``judgements`` entries of a judged block, each
+    ``{"figure":N,"limit":L,"verdict":"V","reason":"R"}``. With pyarrow a slice of them a
+    text, joined by commas as the document joins its entries, the plain numbers' reasons
+    (:meth:`JudgedBlock.plain_wordings`) written by
+    :func:`~sweeprig.report.fixed_text.fixed_texts`; the rest (and everything without
+    pyarrow) one by one by :meth:`JudgedBlock.reasons_at`. The same text either way."""
+    from json.encoder import encode_basestring
+
+    def escaped(text: str) -> str:  # JSON escaping is per character: pieces join escaped
+        return encode_basestring(text)[1:-1]
+
+    arrow = arrow_compute()
+    wordings = part.plain_wordings()
+    positions = part.positions
+    head = f',"limit":{limit},"verdict":"'
+    if arrow is None:
+        at = np.arange(len(part))
+        for position, code, reason in zip(positions.tolist(), part.verdict.tolist(),
+                                          part.reasons_at(at, wordings), strict=True):
+            yield (f'{{"figure":{position}{head}{VERDICT_NAMES[code]}","reason":'
+                   f'{encode_basestring(reason)}}}')
+        return
+    pa, pc = arrow
+    plain, wording, texts = wordings
+    unit = large_text(escaped(f" {part.block.unit}"))
+    verdicts = pa.array(list(VERDICT_NAMES), type=pa.large_string())
+    for lo in range(0, len(part), _ENTRY_SLICE):
+        at = np.arange(lo, min(lo + _ENTRY_SLICE, len(part)))
+        numbers, exact = fixed_texts(part.block.value[part.rows[at]], 3)
+        number = joined(numbers, unit)
+        made = plain[at] & exact
+        # each row's reason (JSON, quoted) taken from one of these pieces: per wording its
+        # rows' reasons spelled out (computed for the whole slice), then Python's
+        pieces, take, offset = [], np.zeros(at.size, dtype=np.int64), 0
+        for w in np.unique(wording[at][made]).tolist():
+            rows = np.flatnonzero(made & (wording[at] == w))
+            words = texts[w]
+            if isinstance(words, str):  # (the same reason for every row: one text)
+                pieces.append(pa.array([encode_basestring(words)], type=pa.large_string()))
+                take[rows] = offset
+                offset += 1
+                continue
+            whole = [large_text('"')]
+            for k, after in enumerate(words):
+                whole += [large_text("; ")] * bool(k) + [number, large_text(escaped(after))]
+            pieces.append(joined(*whole, large_text('"')))
+            take[rows] = offset + rows
+            offset += at.size
+        rest = np.flatnonzero(~made)
+        if rest.size:
+            pieces.append(pa.array([encode_basestring(r) for r in part.reasons_at(
+                at[rest], wordings)], type=pa.large_string()))
+            take[rest] = offset + np.arange(rest.size)
+        reasons = pa.concat_arrays(pieces).take(pa.array(take))
+        entries = joined(large_text('{"figure":'),
+                         pc.cast(pa.array(positions[at]), pa.large_string()), large_text(head),
+                         verdicts.take(pa.array(part.verdict[at].astype(np.int64))),
+                         large_text('","reason":'), reasons, large_text("}"))
+        yield comma_joined(entries)
 
 
 #: The ``format`` of ``figures.json``: 4 since a budget is a shared part (``budgets.csv``,
@@ -714,7 +779,10 @@ def figures_document(run: RunFigures) -> dict[str, Any]:
 
 def _listed(stream: _Stream) -> list[object]:
     """A streamed list of the figures document as plain data."""
-    return [json.loads(e) for e in stream.entries] if stream.encoded else list(stream.entries)
+    if not stream.encoded:
+        return list(stream.entries)
+    # (an encoded text may hold several entries, joined by commas: :func:`_block_entries`)
+    return [entry for text in stream.entries for entry in json.loads(f"[{text}]")]
 
 
 #: Entries encoded per write when streaming a long list of the figures document.
