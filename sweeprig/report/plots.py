@@ -282,8 +282,9 @@ def compression_curves(run: RunFigures) -> Plot | None:
     table = table.sort_values(["sweep", "input_dbm"], kind="stable")
     table = table.assign(_step=table.groupby("sweep", sort=False).cumcount().to_numpy())
     shown, thinned = thin_frequencies(table, keep=1)
-    p1 = _by_conditions(figure_frame(run, "input_p1db"))
-    p1_out = _by_conditions(figure_frame(run, "output_p1db"))
+    # (the curves drawn are the shown ones: only their figures are looked up)
+    p1 = _by_conditions(figure_frame(run, "input_p1db"), asked_from=shown)
+    p1_out = _by_conditions(figure_frame(run, "output_p1db"), asked_from=shown)
     port_in = "IF" if run.conversion == "up" else "RF"  # an upconverter's input is its IF
     keys = _varying(table, ("study", "supply_v", "lo_power_dbm"))
     every = dict(_groups(table, keys)) if keys else {}
@@ -438,7 +439,7 @@ def two_tone_plot(run: RunFigures) -> Plot | None:
         return None
     panels = _groups(table, _varying(table, _TWO_TONE_KEYS))
     fig, axes_list = _grid(len(panels), height_in=3.7, single_height_in=4.6)
-    fits = {n: _by_conditions(figure_frame(run, n)) for n in
+    fits = {n: _by_conditions(figure_frame(run, n), asked_from=table) for n in
             ("iip3_low", "oip3_low", "iip3_high", "oip3_high", "iip3")}
     corners: list[str] = []
     for ax, (title, rows) in zip(axes_list, panels, strict=False):
@@ -584,7 +585,7 @@ def gain_vs_lo_drive(run: RunFigures) -> Plot | None:
         return None
     shown, thinned = thin_frequencies(table, keep=1)
     fixed = tuple(k for k in _KEY_COLUMNS if k != "lo_power_dbm")
-    needed = _by_conditions(figure_frame(run, "lo_power_for_gain"), fixed)
+    needed = _by_conditions(figure_frame(run, "lo_power_for_gain"), fixed, asked_from=shown)
     keys = _varying(shown, ("study", "supply_v", "rf_freq_hz", "rf_power_dbm"))
     spread_keys = [k for k in keys if k != "rf_freq_hz"]
     panels = _groups(shown, keys)
@@ -1297,13 +1298,24 @@ def _condition_key(
 class _FiguresByConditions:
     """The figures of a :func:`figure_frame` by :func:`_condition_key` (the last one wins),
     made into :class:`Figure` objects only when asked for: a plot looks up a few curves'
-    figures, while a many-frequency run has tens of thousands of them."""
+    figures, while a many-frequency run has tens of thousands of them. ``asked_from``: a
+    table holding the conditions of every key that will be asked (the curves shown); only
+    the figures whose every key column takes a value of that table's are keyed."""
 
-    def __init__(self, frame: pd.DataFrame, columns: Sequence[str]) -> None:
+    def __init__(self, frame: pd.DataFrame, columns: Sequence[str],
+                 asked_from: pd.DataFrame | None = None) -> None:
         self._frame = frame
-        keys = zip(*(_key_column(frame, c) for c in columns), strict=True) if len(frame) \
-            else iter(())
-        self._rows: dict[tuple[object, ...], int] = {key: k for k, key in enumerate(keys)}
+        rows = np.arange(len(frame))
+        coded = [_key_codes(frame, c) for c in columns]
+        if asked_from is not None:
+            keep = np.ones(len(frame), dtype=bool)
+            for column, (keys, codes) in zip(columns, coded, strict=True):
+                wanted = set(_key_column(asked_from, column))
+                keep &= np.isin(codes, [j for j, key in enumerate(keys) if key in wanted])
+            rows = rows[keep]
+        spread = [list(map(keys.__getitem__, codes[rows].tolist())) for keys, codes in coded]
+        self._rows: dict[tuple[object, ...], int] = {
+            key: at for at, key in zip(rows.tolist(), zip(*spread, strict=True), strict=True)}
 
     def get(self, key: tuple[object, ...]) -> Figure | None:
         at = self._rows.get(key)
@@ -1317,23 +1329,32 @@ class _FiguresByConditions:
 def _key_column(frame: pd.DataFrame, column: str) -> list[object]:
     """One column of :func:`_condition_key` over every row of ``frame`` (None where the
     column is missing or not finite), numbers rounded to 9 significant digits as there."""
+    keys, codes = _key_codes(frame, column)
+    return list(map(keys.__getitem__, codes.tolist()))
+
+
+def _key_codes(frame: pd.DataFrame, column: str) -> tuple[list[object], np.ndarray]:
+    """:func:`_key_column` as its distinct keys and each row's number among them (int64):
+    each distinct value keyed once (a run's conditions take a few values each)."""
     if column not in frame:
-        return [None] * len(frame)
+        return [None], np.zeros(len(frame), dtype=np.int64)
     values = frame[column]
     if pd.api.types.is_numeric_dtype(values) and not pd.api.types.is_bool_dtype(values):
-        numbers = values.to_numpy(dtype=float)
-        # each distinct value rounded once (a run's conditions take a few values each)
-        distinct, inverse = np.unique(numbers, return_inverse=True)
+        distinct, inverse = np.unique(values.to_numpy(dtype=float), return_inverse=True)
         keys = [float(f"{v:.9g}") if math.isfinite(v) else None for v in distinct.tolist()]
-        return list(map(keys.__getitem__, inverse.ravel().tolist()))
-    return [_condition_key({column: v}, (column,))[0] for v in values.tolist()]
+        return keys, inverse.reshape(-1).astype(np.int64)
+    codes, uniques = pd.factorize(values, use_na_sentinel=True)
+    keys = [_condition_key({column: v}, (column,))[0] for v in list(uniques)] + [None]
+    return keys, np.where(codes < 0, len(keys) - 1, codes).astype(np.int64)
 
 
 def _by_conditions(
-    frame: pd.DataFrame, columns: Sequence[str] = _KEY_COLUMNS
+    frame: pd.DataFrame, columns: Sequence[str] = _KEY_COLUMNS,
+    asked_from: pd.DataFrame | None = None,
 ) -> _FiguresByConditions:
-    """The figures of a :func:`figure_frame` by :func:`_condition_key` (the last one wins)."""
-    return _FiguresByConditions(frame, columns)
+    """The figures of a :func:`figure_frame` by :func:`_condition_key` (the last one wins;
+    ``asked_from``: see :class:`_FiguresByConditions`)."""
+    return _FiguresByConditions(frame, columns, asked_from)
 
 
 def _finite(frame: pd.DataFrame) -> pd.DataFrame:

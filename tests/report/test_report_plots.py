@@ -341,3 +341,58 @@ def test_a_condition_key_column_is_each_value_rounded_as_one_key_rounds_it() -> 
     expected = [_condition_key({"rf_freq_hz": v}, ("rf_freq_hz",))[0] for v in values * 20]
     assert _key_column(frame, "rf_freq_hz") == expected
     assert _key_column(frame, "missing") == [None] * len(frame)
+
+
+def test_a_text_key_column_is_each_text_keyed_as_one_key_keys_it() -> None:
+    import pandas as pd
+
+    from sweeprig.report.plots import _condition_key, _key_column
+
+    values = ["band", None, "two-tone", "band", None, "lo drive"]
+    frame = pd.DataFrame({"study": pd.Series(values * 5, dtype=object)})
+    assert _key_column(frame, "study") == [_condition_key({"study": v}, ("study",))[0]
+                                           for v in values * 5]
+
+
+def test_figures_looked_up_among_the_shown_curves_are_those_of_the_whole_frame() -> None:
+    """Keying only the figures whose conditions the shown curves take (``asked_from``) finds
+    for every shown curve the figure the whole frame finds (the last of its key), and keys
+    fewer figures."""
+    import numpy as np
+    import pandas as pd
+
+    from sweeprig.report.plots import _KEY_COLUMNS, _by_conditions, _condition_key
+
+    rng = np.random.default_rng(3)
+    n = 3000
+    freqs = np.array([2.3e9, 2.4e9, 2.4e9 + 0.3, 2.5e9, np.nan])  # (+0.3 Hz: the same key)
+    frame = pd.DataFrame({
+        "name": "iip3", "value": rng.normal(10.0, 3.0, n), "unit": "dBm", "bound": "",
+        "uncertainty_db": rng.uniform(0.1, 0.5, n),
+        "study": rng.choice(np.array(["two-tone", "band", None], dtype=object), n),
+        "temperature_c": rng.choice([-40.0, 25.0, 85.0], n),
+        "supply_v": rng.choice([3.0, 3.3, np.nan], n),
+        "lo_freq_hz": rng.choice(freqs, n) - 1e8, "lo_power_dbm": rng.choice([0.0, 4.0], n),
+        "rf_freq_hz": rng.choice(freqs, n)})
+    shown = frame[frame["rf_freq_hz"].isin([2.4e9]) & (frame["supply_v"] == 3.3)]
+    shown = shown.sample(frac=1.0, random_state=1)  # (any order, other columns alike)
+    whole = _by_conditions(frame)
+    only = _by_conditions(frame, asked_from=shown)
+    asked = {_condition_key(row) for _, row in shown.iterrows()}
+    assert len(asked) > 5
+    for key in asked:
+        a, b = whole.get(key), only.get(key)
+        assert a is not None and b is not None and a == b, key
+    assert len(only._rows) < len(whole._rows) / 3
+    # the last figure of a key wins (a curve measured again: its later figure)
+    again = frame.iloc[[int(shown.index[0])]].assign(value=123.0)
+    later = pd.concat([frame, again], ignore_index=True)
+    key = _condition_key(again.iloc[0])
+    for table in (_by_conditions(later), _by_conditions(later, asked_from=shown)):
+        found = table.get(key)
+        assert found is not None and found.value == 123.0
+    # a curve's figure the frame lacks is missing both ways
+    missing = ("two-tone", 60.0, 3.3, 2.3e9, 0.0, 2.4e9)
+    assert whole.get(missing) is None and only.get(missing) is None
+    # (the key columns are those of the plots' lookups)
+    assert _KEY_COLUMNS[0] == "study" and "rf_freq_hz" in _KEY_COLUMNS
