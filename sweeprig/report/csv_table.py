@@ -20,7 +20,6 @@ import functools
 import io
 import math
 import re
-from collections.abc import Sequence
 from pathlib import Path
 from typing import Any, TextIO
 
@@ -153,15 +152,15 @@ def write_frame_csv(frame: pd.DataFrame, path: Path, chunk_rows: int = CHUNK_ROW
 def write_frame_rows(out: TextIO, frame: pd.DataFrame, *, header: bool,
                      chunk_rows: int = CHUNK_ROWS,
                      polars_from_rows: int | None = POLARS_FROM_ROWS,
-                     arrow: Any = None, texts_here: Sequence[str] = ()) -> None:
+                     arrow: Any = None) -> None:
     """Write ``frame``'s rows as CSV text to ``out`` (a text file opened with
     ``newline=""``), its header first when ``header``, ``chunk_rows`` rows at a time: a
     table written in slices is the same text as written whole.
 
     A frame of at least ``polars_from_rows`` rows goes through polars' writer, as an Arrow
     table, where it writes the same text (:func:`arrow_csv_text`); None: every cell is
-    formatted here. ``arrow``: ``frame`` made an Arrow table already (for its Parquet file),
-    whose columns ``texts_here`` (made other types there) are formatted from ``frame``."""
+    formatted here. ``arrow``: ``frame`` made an Arrow table already (for its Parquet
+    file)."""
     if header:
         out.write(_rows_text([[_header_cell(c)] for c in frame.columns]))
     fast = polars_from_rows is not None and len(frame) >= polars_from_rows \
@@ -172,7 +171,7 @@ def write_frame_rows(out: TextIO, frame: pd.DataFrame, *, header: bool,
     for start in range(0, len(frame), chunk_rows):
         chunk = frame.iloc[start:start + chunk_rows]
         text = None if not fast or arrow is None else _polars_chunk(
-            arrow.slice(start, len(chunk)), chunk, texts_here)
+            arrow.slice(start, len(chunk)), chunk)
         if text is not None:
             out.write(text)
             continue
@@ -305,28 +304,25 @@ def _is_text(kind: Any) -> bool:
     return bool(pa.types.is_string(kind) or pa.types.is_large_string(kind))
 
 
-def _polars_chunk(table: Any, frame: pd.DataFrame, texts_here: Sequence[str]) -> str | None:
+def _polars_chunk(table: Any, frame: pd.DataFrame) -> str | None:
     """:func:`arrow_csv_text`, or None when polars fails on this chunk (a column type the
     probe did not hold, say): the chunk is then formatted here, the same text."""
     try:
-        return arrow_csv_text(table, frame, texts_here)
+        return arrow_csv_text(table, frame)
     except Exception:  # any failure of polars on this chunk: formatted here instead
         return None
 
 
-def arrow_csv_text(table: Any, frame: pd.DataFrame, texts_here: Sequence[str] = (), *,
-                   pl: Any = None) -> str | None:
+def arrow_csv_text(table: Any, frame: pd.DataFrame, *, pl: Any = None) -> str | None:
     """The rows of ``frame`` as CSV text written by polars (``pl``; None: the one
     :func:`polars_module` found) from ``table`` (``frame`` as an Arrow table), the same text
     as formatted here; None where polars would write other text (see above). The columns
-    named in ``texts_here``, and those of a type not listed above, are formatted here from
-    ``frame``."""
+    of a type not listed above are formatted here from ``frame``."""
     import pyarrow as pa
 
     pl = pl or polars_module()
     if frame.shape[1] < 2 or not len(frame) or table.num_columns != frame.shape[1]:
         return None
-    here = set(texts_here)
     # every column a series, what polars does to it an expression, all evaluated in one
     # pass (a chunk of the figure table has some thirty columns)
     series = []
@@ -339,7 +335,7 @@ def arrow_csv_text(table: Any, frame: pd.DataFrame, texts_here: Sequence[str] = 
         original = frame.iloc[:, i]
         texts: list[str] | None = None  # cells formatted here
         cell = pl.col(name)
-        if field.name in here or str(frame.columns[i]) != field.name:
+        if str(frame.columns[i]) != field.name:
             texts = column_texts(original)
         elif pa.types.is_float64(kind) and original.dtype == np.float64:
             size = np.abs(original.to_numpy())

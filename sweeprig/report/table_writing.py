@@ -28,8 +28,6 @@ error of this process (or Ctrl-C) stops the helper, which is never left running.
 from __future__ import annotations
 
 import contextlib
-import itertools
-import operator
 import os
 import pickle
 import queue
@@ -37,12 +35,11 @@ import subprocess
 import sys
 import tempfile
 import threading
-from collections.abc import Callable, Iterator, Mapping, Sequence
+from collections.abc import Callable, Iterator, Mapping
 from dataclasses import dataclass
 from pathlib import Path
 from typing import IO, Any
 
-import numpy as np
 import pandas as pd
 
 from sweeprig.errors import StoreError
@@ -62,9 +59,9 @@ _HELPER_CODE = "from sweeprig.report.table_writing import serve; serve()"
 
 @dataclass(frozen=True)
 class TableJob:
-    """One table to write: ``paths`` per format ("csv", "parquet"), its slices in order,
-    the Arrow ``schema`` of its Parquet file (None: the first slice's), and the columns
-    holding whole numbers or nothing (Parquet: nullable integers). ``finish``: a
+    """One table to write: ``paths`` per format ("csv", "parquet"), its slices in order and
+    the Arrow ``schema`` of its Parquet file (None: the first slice's; a column of whole
+    numbers or nothing is pandas' nullable integers in the slices). ``finish``: a
     module-level function that makes each slice the frame written, where it is written
     (a large run's in the helper process: what only formats its columns into text is done
     on the other core); None: the slices are the frames."""
@@ -72,7 +69,6 @@ class TableJob:
     paths: Mapping[str, Path]
     slices: Iterator[Any]
     schema: Any = None
-    integer_columns: tuple[str, ...] = ()
     finish: Callable[[Any], pd.DataFrame] | None = None
 
 
@@ -81,11 +77,9 @@ class TableSink:
     first slice, one Parquet row group a slice (its column types fixed by ``schema``, else
     by the first slice: the slices must keep them)."""
 
-    def __init__(self, paths: Mapping[str, Path], schema: Any = None,
-                 integer_columns: Sequence[str] = ()) -> None:
+    def __init__(self, paths: Mapping[str, Path], schema: Any = None) -> None:
         self.paths = dict(paths)
         self.schema = schema
-        self.integer_columns = tuple(integer_columns)
         self._csv_file: IO[str] | None = None
         self._header = True
         self._parquet: Any = None
@@ -100,22 +94,14 @@ class TableSink:
         from sweeprig.report.csv_table import write_frame_rows
 
         table = None
-        texts_here = self.integer_columns
         if "parquet" in self.paths:
             import pyarrow as pa
 
-            converted = frame
-            if self.integer_columns:
-                made = {name: nullable_integers(frame[name]) for name in self.integer_columns}
-                converted = frame.assign(**{name: array for name, (array, _) in made.items()})
-                # (a column of Python ints and None: its Arrow column is the same CSV text)
-                texts_here = tuple(name for name, (_, plain) in made.items() if not plain)
             schema = self.schema if self._parquet is None else self._parquet.schema
-            table = pa.Table.from_pandas(converted, preserve_index=False, schema=schema)
+            table = pa.Table.from_pandas(frame, preserve_index=False, schema=schema)
         if self._csv_file is not None:
             self.current = self.paths["csv"]
-            write_frame_rows(self._csv_file, frame, header=self._header, arrow=table,
-                             texts_here=texts_here)
+            write_frame_rows(self._csv_file, frame, header=self._header, arrow=table)
             self._header = False
         if table is not None:
             import pyarrow.parquet as pq
@@ -137,28 +123,6 @@ class TableSink:
                 self._parquet.close()
 
 
-def nullable_integers(column: pd.Series) -> tuple[Any, bool]:
-    """``column`` (whole numbers or nothing) as pandas' nullable integers (``Int64``), and
-    whether its every cell is a Python ``int`` or None, or it holds ``Int64`` already: then
-    its Arrow column is written as the same CSV text as the cells themselves (the number, or
-    an empty cell). An object column of ints and None is made at once (a large run's
-    columns hold millions of cells); any other (whole floats, numpy integers, missing
-    values other than None) through ``pd.array``, as its rules say."""
-    if isinstance(column.dtype, pd.Int64Dtype):  # (made so: the figure table's budgets)
-        return column.array, True
-    values = column.tolist()
-    if not set(map(type, values)) <= {int, type(None)}:
-        return pd.array(values, dtype="Int64"), False
-    missing = np.fromiter(map(operator.is_, values, itertools.repeat(None)), dtype=bool,
-                          count=len(values))
-    data = np.zeros(len(values), dtype=np.int64)
-    try:
-        data[~missing] = np.asarray(values, dtype=object)[~missing].astype(np.int64)
-    except OverflowError:  # (beyond 64 bits: pandas says so)
-        return pd.array(values, dtype="Int64"), False
-    return pd.arrays.IntegerArray(data, missing), True
-
-
 def write_error(path: Path, exc: OSError) -> StoreError:
     """The error of a report file that could not be written (here or by the helper)."""
     return StoreError(
@@ -173,7 +137,7 @@ def write_job(job: TableJob) -> None:
     could not be written (an error of the slices themselves propagates as it is)."""
     first = next(iter(job.paths.values()), None)
     try:
-        sink = TableSink(job.paths, job.schema, job.integer_columns)
+        sink = TableSink(job.paths, job.schema)
     except OSError as exc:
         raise write_error(first or Path("?"), exc) from None
     try:
@@ -276,11 +240,11 @@ class TableWriting:
                     self.helper_failed = f"exit code {process.wait()}{self._last_words()}"
                     while (job := self._queue.get()) is not None and not self._stop.is_set():
                         write_job(TableJob(job.paths, self._until_stopped(job.slices),
-                                           job.schema, job.integer_columns, job.finish))
+                                           job.schema, job.finish))
                     return
                 while (job := self._queue.get()) is not None:
                     _send(pipe, ("open", {k: str(p) for k, p in job.paths.items()},
-                                 job.schema, job.integer_columns, job.finish))
+                                 job.schema, job.finish))
                     for item in self._until_stopped(job.slices):
                         # while this process makes the rest of the report, the helper
                         # finishes the slices; once it only waits (finish()), it finishes
@@ -412,10 +376,10 @@ def serve(source: IO[bytes] | None = None, reply: IO[bytes] | None = None) -> No
             if message[0] != "open":
                 answer = ("error", f"unexpected message {message[0]!r}")
                 continue
-            _, paths, schema, integers, finish = message
+            _, paths, schema, finish = message
             try:
                 write_job(TableJob({k: Path(v) for k, v in paths.items()}, rows(finish),
-                                   schema, integers))
+                                   schema))
             except StoreError as exc:
                 answer = ("failed", exc.what, exc.where, exc.fix)
             except (EOFError, pickle.UnpicklingError):

@@ -52,7 +52,6 @@ from sweeprig.errors import StoreError
 from sweeprig.report.budget_tables import (
     BUDGET_COLUMNS,
     BUDGET_FIGURE_COLUMNS,
-    BUDGET_INTEGER_COLUMNS,
     BUDGET_TERM_COLUMNS,
     BUDGET_TERMS_FILE,
     BUDGETS_FILE,
@@ -1178,8 +1177,7 @@ def add_figure_table(writing: TableWriting, run: RunFigures,
         budgets = figure_budgets(run)
     _ = run.figure_conditions  # made here, before a thread reads it
     writing.add(TableJob({fmt: writing.where / f"figures.{fmt}" for fmt in writing.formats},
-                         figure_slices(run, budgets), integer_columns=BUDGET_INTEGER_COLUMNS,
-                         finish=figure_rows_frame))
+                         figure_slices(run, budgets), finish=figure_rows_frame))
 
 
 def make_folder(folder: Path, *, what: str = "report folder", option: str = "--out") -> Path:
