@@ -497,7 +497,7 @@ def _texts3(table: Mapping[str, np.ndarray]) -> Any:
     common = (bounds == "") & np.isfinite(values) & np.isfinite(us)
     k = f"{COVERAGE_FACTOR:g}"
     arrow = arrow_compute()
-    if arrow is None or not common.any():
+    if arrow is None or not values.size:
         return np.array(_python_texts3(values, us, units, bounds, common), dtype=object)
     pa, _ = arrow
     value_texts, value_exact = fixed_texts(values, 3)
@@ -509,13 +509,21 @@ def _texts3(table: Mapping[str, np.ndarray]) -> Any:
                      pa.array(units, type=pa.large_string()), large_text(f" (k = {k})"))]
     take = np.arange(len(values))
     offset = len(values)
-    plain = np.flatnonzero(~common & np.isfinite(values))
-    groups: dict[tuple[str, str], list[int]] = {}
-    for i, pair in zip(plain.tolist(), zip(units[plain].tolist(), bounds[plain].tolist(),
-                                           strict=True), strict=True):
-        groups.setdefault(pair, []).append(i)
-    for (unit, bound), members in groups.items():
-        rows = np.array(members, dtype=np.int64)
+    finite = np.isfinite(values)
+    if not finite.all():  # (no number: "n/a", whatever its bound)
+        pieces.append(pa.array(["n/a"], type=pa.large_string()))
+        take[~finite] = offset
+        made[~finite] = True
+        offset += 1
+    plain = np.flatnonzero(~common & finite)
+    # the plain numbers by unit and bound (a run has a few of each)
+    unit_code, unit_names = pd.factorize(units[plain])
+    bound_code, bound_names = pd.factorize(bounds[plain])
+    pair = unit_code.astype(np.int64) * max(len(bound_names), 1) + bound_code
+    for code in np.unique(pair).tolist():
+        rows = plain[pair == code]
+        unit = str(unit_names[code // max(len(bound_names), 1)])
+        bound = str(bound_names[code % max(len(bound_names), 1)])
         number, suffix = _shown_number(values[rows], unit)
         texts, exact = fixed_texts(number, max(3, _UNIT_DIGITS.get(unit, 0)))
         pieces.append(joined(large_text(f"{bound} " if bound else ""), texts,
