@@ -25,4 +25,4 @@ def test_a_frozen_or_embedded_program_starts_no_child(how, monkeypatch, tmp_path
     assert not python_child_possible()
     store = tmp_path / "runs.sqlite"
     assert side_reader._start(store, "select 1", [[1]]) is None
-    assert arrow_reader.start_read(store, "select 1", [[1]], "f") is None
+    assert arrow_reader.start_read(store, [("select 1", [[1]], "f")]) is None

@@ -1,4 +1,5 @@
-"""A large run's readings read from its SQLite file by a child process into Arrow columns.
+"""A large run's points and readings read from its SQLite file by a child process into Arrow
+columns.
 
 Reading a large run's readings is the first thing its report does, and with the standard
 ``sqlite3`` module the slowest: every cell becomes a Python object before it becomes a
@@ -14,13 +15,15 @@ SQLite documentation's "How To Corrupt An SQLite Database File", section 2.2.1),
 report is made in the process that may hold the run's own store open for writing (the end
 of ``sweeprig run``); so the driver is only ever loaded in a child process
 (:func:`start_read`), which opens the file read-only, reads its slices, checks every
-column's type against the kind it must hold and writes them to a pipe as an Arrow IPC
-stream, which this process takes in once it has read the points, and makes into the same
-frame ``sqlite3`` would have given (:func:`frame_of_table`;
-``tests/store/test_arrow_reader.py`` compares the two).
+column's type against the kind it must hold and writes them to a pipe as Arrow IPC
+streams, one a query, which this process takes in when it is ready for them, and makes into
+the frames ``sqlite3`` would have given (:func:`frame_of_table`;
+``tests/store/test_arrow_reader.py`` compares the two). The run's points go with its
+readings: read here they took a core from the child (3.8 s of this process' time at a
+million points, the child's two threads then sharing the other core).
 
 Anything wrong (the extra not installed, a column the driver typed otherwise, a value its
-kind cannot hold, the child failing or killed) is not an error: :meth:`ArrowRead.table`
+kind cannot hold, the child failing or killed) is not an error: :meth:`ArrowRead.tables`
 gives None and the caller reads the rows itself, as it would without the driver. The child
 is never left running.
 """
@@ -41,19 +44,20 @@ from sweeprig.python_child import python_child_possible
 if TYPE_CHECKING:
     import pandas as pd
 
-#: The child's program (argv: the store's read-only URI, the query, the parameter tuples as
-#: JSON, the columns' kinds as in :data:`sweeprig.store.side_reader.KINDS`). Two threads
-#: read half of the slices each (the driver steps SQLite without the interpreter's lock);
-#: then every slice goes to its output as an Arrow IPC stream, a record batch a slice.
-#: The driver is used through its low-level statements: its DB-API module also imports
-#: pyarrow's datasets, pandas and polars, which the child never uses (0.6 -> 0.2 s of its
-#: start, on the path of the report, which waits for these readings).
-#: Exit 4: a column the driver typed otherwise than its kind allows (nothing written).
+#: The child's program (argv: the store's read-only URI, then the reads as JSON: a list of
+#: [query, parameter tuples, the columns' kinds as in :data:`sweeprig.store.side_reader.
+#: KINDS`]). Two threads read half of each read's slices (the driver steps SQLite without
+#: the interpreter's lock); then each read goes to the output as an Arrow IPC stream of its
+#: own, in order, a record batch a slice. The driver is used through its low-level
+#: statements: its DB-API module also imports pyarrow's datasets, pandas and polars, which
+#: the child never uses (0.6 -> 0.2 s of its start, on the path of the report, which waits
+#: for these tables). Exit 4: a column the driver typed otherwise than its kind allows
+#: (nothing written).
 _CHILD_CODE = """
 import json, sys, threading
 import pyarrow as pa, pyarrow.compute as pc, pyarrow.ipc as ipc
 import adbc_driver_manager as adbc, adbc_driver_sqlite
-uri, sql, params, kinds = sys.argv[1], sys.argv[2], json.loads(sys.argv[3]), sys.argv[4]
+uri, reads = sys.argv[1], json.loads(sys.argv[2])
 TYPES = {"f": pa.float64(), "i": pa.int64(), "I": pa.int64(), "b": pa.int64(),
          "B": pa.int64(), "t": pa.string()}
 def typed(column, kind):
@@ -66,8 +70,7 @@ def typed(column, kind):
     if kind in "bB" and (pc.min(column).as_py() < 0 or pc.max(column).as_py() > 1):
         sys.exit(4)
     return column
-halves = [params[:len(params) // 2], params[len(params) // 2:]]
-tables, failed = [None, None], []
+tables, failed = [[None, None] for _ in reads], []
 def query(stmt):
     handle, _ = stmt.execute_query()
     return pa.RecordBatchReader._import_from_c(handle.address).read_all()
@@ -77,18 +80,20 @@ def read(k):
             with adbc.AdbcStatement(conn) as stmt:
                 stmt.set_sql_query("PRAGMA busy_timeout = 30000")
                 query(stmt)
-            with adbc.AdbcStatement(conn) as stmt:
-                stmt.set_options(**{"adbc.sqlite.query.batch_rows": "1073741824"})
-                stmt.set_sql_query(sql)
-                got = []
-                for p in halves[k]:
-                    stmt.bind(pa.record_batch([pa.array([v]) for v in p],
-                                              names=[str(i) for i in range(len(p))]))
-                    table = query(stmt)
-                    got.append(pa.table([typed(table.column(i).combine_chunks(), kind)
-                                         for i, kind in enumerate(kinds)],
-                                        names=[str(i) for i in range(len(kinds))]))
-            tables[k] = got
+            for r, (sql, params, kinds) in enumerate(reads):
+                half = [params[:len(params) // 2], params[len(params) // 2:]][k]
+                with adbc.AdbcStatement(conn) as stmt:
+                    stmt.set_options(**{"adbc.sqlite.query.batch_rows": "1073741824"})
+                    stmt.set_sql_query(sql)
+                    got = []
+                    for p in half:
+                        stmt.bind(pa.record_batch([pa.array([v]) for v in p],
+                                                  names=[str(i) for i in range(len(p))]))
+                        table = query(stmt)
+                        got.append(pa.table([typed(table.column(i).combine_chunks(), kind)
+                                             for i, kind in enumerate(kinds)],
+                                            names=[str(i) for i in range(len(kinds))]))
+                tables[r][k] = got
     except SystemExit as stop:
         failed.append(stop.code)
     except BaseException:
@@ -100,10 +105,13 @@ for t in threads:
     t.join()
 if failed:
     sys.exit(failed[0])
-every = tables[0] + tables[1]
-with ipc.new_stream(sys.stdout.buffer, every[0].schema) as writer:
-    for table in every:
-        writer.write_table(table)
+for (sql, params, kinds), (first, second) in zip(reads, tables):
+    every = first + second
+    schema = every[0].schema if every else pa.schema(
+        [(str(i), TYPES[kind]) for i, kind in enumerate(kinds)])
+    with ipc.new_stream(sys.stdout.buffer, schema) as writer:
+        for table in every:
+            writer.write_table(table)
 """
 
 
@@ -114,33 +122,39 @@ def arrow_read_available() -> bool:
 
 
 class ArrowRead:
-    """A child process reading a query's slices (:func:`start_read`); :meth:`table` takes
-    its output into an Arrow table (in memory the system's allocator gives back to this
+    """A child process reading queries' slices (:func:`start_read`); :meth:`tables` takes
+    its output into Arrow tables (in memory the system's allocator gives back to this
     thread's later allocations once freed; no file: a temporary folder may be memory
     itself). The child writes only once it has read every slice, so nothing is lost by
     taking its output only when the caller is ready for it."""
 
-    def __init__(self, child: subprocess.Popen[bytes], kinds: str) -> None:
+    def __init__(self, child: subprocess.Popen[bytes], kinds: Sequence[str]) -> None:
         self.child = child
-        self.kinds = kinds
+        self.kinds = list(kinds)
 
-    def table(self) -> Any:
-        """The slices as one Arrow table, a column a kind, once the child has ended well;
-        None when it did not (the caller reads the rows itself)."""
+    def tables(self) -> list[Any] | None:
+        """Each read's slices as one Arrow table, a column a kind, in the order of the
+        reads, once the child has ended well; None when it did not (the caller reads the
+        rows itself)."""
         try:
             import pyarrow as pa
             import pyarrow.ipc as ipc
 
             assert self.child.stdout is not None
+            out = []
             try:
-                reader = ipc.open_stream(self.child.stdout,
-                                         memory_pool=pa.system_memory_pool())
-                table = reader.read_all()
+                for kinds in self.kinds:  # (the streams follow one another on the pipe)
+                    reader = ipc.open_stream(self.child.stdout,
+                                             memory_pool=pa.system_memory_pool())
+                    table = reader.read_all()
+                    if table.num_columns != len(kinds):
+                        return None
+                    out.append(table)
             except Exception:  # (nothing written, a stream cut short: read by the caller)
                 return None
-            if self.child.wait() != 0 or table.num_columns != len(self.kinds):
+            if self.child.wait() != 0:
                 return None
-            return table
+            return out
         finally:
             self.stop()
 
@@ -154,23 +168,27 @@ class ArrowRead:
             self.child.stdout.close()
 
 
-def start_read(path: Path, sql: str, params: Sequence[Sequence[object]], kinds: str
-               ) -> ArrowRead | None:
-    """A child process reading ``sql`` once per parameter tuple of ``params``, in order,
-    from the SQLite file ``path`` (read-only), each column typed by its letter of ``kinds``
-    (:data:`sweeprig.store.side_reader.KINDS`). None when the driver is not installed or
-    the child cannot start."""
+#: One read of :func:`start_read`: a query, its parameter tuples (one a slice, read in
+#: order) and its columns' kinds (:data:`sweeprig.store.side_reader.KINDS`).
+Read = tuple[str, Sequence[Sequence[object]], str]
+
+
+def start_read(path: Path, reads: Sequence[Read]) -> ArrowRead | None:
+    """A child process running each query of ``reads`` once per parameter tuple, in order,
+    on the SQLite file ``path`` (read-only), each column typed by its letter of the read's
+    kinds. None when the driver is not installed or the child cannot start."""
     if not arrow_read_available() or not python_child_possible():
         return None
     uri = path.resolve().as_uri() + "?mode=ro"
     try:
         child = subprocess.Popen(
-            [sys.executable, "-I", "-c", _CHILD_CODE, uri, sql,
-             json.dumps([list(p) for p in params]), kinds],
+            [sys.executable, "-I", "-c", _CHILD_CODE, uri,
+             json.dumps([[sql, [list(p) for p in params], kinds]
+                         for sql, params, kinds in reads])],
             stdin=subprocess.DEVNULL, stdout=subprocess.PIPE, stderr=subprocess.DEVNULL)
     except (OSError, ValueError):
         return None
-    return ArrowRead(child, kinds)
+    return ArrowRead(child, [kinds for _sql, _params, kinds in reads])
 
 
 def frame_of_table(table: Any, columns: Sequence[str], kinds: str) -> pd.DataFrame:
@@ -205,4 +223,4 @@ def frame_of_table(table: Any, columns: Sequence[str], kinds: str) -> pd.DataFra
     return pd.DataFrame(data, copy=False)
 
 
-__all__ = ["ArrowRead", "arrow_read_available", "frame_of_table", "start_read"]
+__all__ = ["ArrowRead", "Read", "arrow_read_available", "frame_of_table", "start_read"]

@@ -699,28 +699,16 @@ class SqlRunStoreCore:
     def points_frame(self, run_id: int) -> pd.DataFrame:
         """The run's points: ``run_id``, ``point_index``, the settings and measurements
         (NaN where not used), ``wall_start``/``wall_end`` (UTC), ``extra_json``."""
-        columns = ["run_id", "point_index", *POINT_COLUMNS, "wall_start", "wall_end",
-                   "extra_json"]
         import pandas as pd
 
-        select = (f"SELECT run_id, point_index, {', '.join(POINT_COLUMNS)}, wall_start_utc, "
-                  "wall_end_utc, extra_json FROM points WHERE run_id = ?")
         frames = []
-        for rows in self._sliced_by_point("points", select, " ORDER BY point_index", run_id,
+        for rows in self._sliced_by_point("points", POINTS_SELECT, POINTS_ORDER, run_id,
                                           POINT_SLICE_POINTS, POINT_KINDS):
-            frames.append(pd.DataFrame.from_records(rows, columns=columns)
+            frames.append(pd.DataFrame.from_records(rows, columns=POINT_FRAME_COLUMNS)
                           if isinstance(rows, list)
-                          else _frame_of_columns(rows, columns, POINT_KINDS))
+                          else _frame_of_columns(rows, POINT_FRAME_COLUMNS, POINT_KINDS))
             del rows  # (before the next slice is read)
-        frame = _concatenated(frames, columns)
-        for column in POINT_COLUMNS[1:]:
-            frame[column] = frame[column].astype("float64")
-        frame["run_id"] = frame["run_id"].astype("int64")
-        frame["point_index"] = frame["point_index"].astype("int64")
-        frame["study"] = frame["study"].astype("object")
-        for column in ("wall_start", "wall_end"):
-            frame[column] = pd.to_datetime(frame[column], utc=True, format="ISO8601")
-        return frame
+        return typed_points(_concatenated(frames, POINT_FRAME_COLUMNS))
 
     def _sliced_by_point(self, table: str, select: str, order: str, run_id: int,
                          slice_points: int, kinds: str
@@ -769,18 +757,18 @@ class SqlRunStoreCore:
     def run_tables(self, run_id: int) -> tuple[pd.DataFrame, pd.DataFrame]:
         """The run's points and readings (:meth:`points_frame`, :meth:`readings_frame`),
         read together: a store may read a large run's readings in a child process while
-        the points are read here (:meth:`_readings_elsewhere`)."""
+        both are read here (:meth:`_tables_elsewhere`)."""
         return self.begin_run_tables(run_id).result()
 
     def begin_run_tables(self, run_id: int) -> RunTablesRead:
         """:meth:`run_tables` begun now (a large run's readings started in a child
         process) and taken later (:meth:`RunTablesRead.result`), the caller going on
         meanwhile: ``sweeprig report`` imports the analysis while the child starts."""
-        return RunTablesRead(self, run_id, self._readings_elsewhere(run_id))
+        return RunTablesRead(self, run_id, self._tables_elsewhere(run_id))
 
-    def _readings_elsewhere(self, run_id: int) -> ArrowRead | None:
-        """A child process reading the run's readings (None: read by
-        :meth:`readings_frame`)."""
+    def _tables_elsewhere(self, run_id: int) -> ArrowRead | None:
+        """A child process reading the run's points and readings (None: read by
+        :meth:`points_frame` and :meth:`readings_frame`)."""
         return None
 
     def _typed_slices(self, sql: str, params: Sequence[Sequence[object]], kinds: str
@@ -831,26 +819,29 @@ class SqlRunStoreCore:
 @dataclass
 class RunTablesRead:
     """A run's points and readings being read (:meth:`SqlRunStoreCore.begin_run_tables`):
-    ``elsewhere`` the child reading its readings, if any. :meth:`result` reads the points
-    here, then takes the readings (read here after all when the child gave none);
-    :meth:`stop` ends the child unused (it may be called again, or after :meth:`result`)."""
+    ``elsewhere`` the child reading them, if any. :meth:`result` takes them (read here when
+    there is no child, or it gave none); :meth:`stop` ends the child unused (it may be
+    called again, or after :meth:`result`)."""
 
     store: SqlRunStoreCore
     run_id: int
     elsewhere: ArrowRead | None
 
     def result(self) -> tuple[pd.DataFrame, pd.DataFrame]:
-        """The run's points and readings frames."""
+        """The run's points and readings frames (read here after all when the child gave
+        none)."""
         try:
-            points = self.store.points_frame(self.run_id)
-            table = None if self.elsewhere is None else self.elsewhere.table()
+            tables = None if self.elsewhere is None else self.elsewhere.tables()
         finally:
             self.stop()
-        if table is None:
-            return points, self.store.readings_frame(self.run_id)
+        if tables is None:
+            return (self.store.points_frame(self.run_id),
+                    self.store.readings_frame(self.run_id))
         from sweeprig.store.arrow_reader import frame_of_table
 
-        return points, frame_of_table(table, READING_FRAME_COLUMNS, READING_KINDS)
+        points, readings = tables
+        return (typed_points(frame_of_table(points, POINT_FRAME_COLUMNS, POINT_KINDS)),
+                frame_of_table(readings, READING_FRAME_COLUMNS, READING_KINDS))
 
     def stop(self) -> None:
         """End the child, if there is one and it is still running."""
@@ -880,6 +871,28 @@ POINT_KINDS = "iit" + "f" * (len(POINT_COLUMNS) - 1) + "ttt"
 
 #: Points whose rows :meth:`SqlRunStoreCore.points_frame` reads per query.
 POINT_SLICE_POINTS = 20_000
+#: The columns of ``points_frame``, the query reading them and their order.
+POINT_FRAME_COLUMNS: list[str] = ["run_id", "point_index", *POINT_COLUMNS, "wall_start",
+                                  "wall_end", "extra_json"]
+POINTS_SELECT = (f"SELECT run_id, point_index, {', '.join(POINT_COLUMNS)}, wall_start_utc, "
+                 "wall_end_utc, extra_json FROM points WHERE run_id = ?")
+POINTS_ORDER = " ORDER BY point_index"
+
+
+def typed_points(frame: pd.DataFrame) -> pd.DataFrame:
+    """The points' rows (:data:`POINT_FRAME_COLUMNS`, as read) typed as ``points_frame``
+    gives them: the settings and measurements float64 (NaN where not used), the ids int64,
+    the study objects, the wall times UTC timestamps."""
+    import pandas as pd
+
+    for column in POINT_COLUMNS[1:]:
+        frame[column] = frame[column].astype("float64")
+    frame["run_id"] = frame["run_id"].astype("int64")
+    frame["point_index"] = frame["point_index"].astype("int64")
+    frame["study"] = frame["study"].astype("object")
+    for column in ("wall_start", "wall_end"):
+        frame[column] = pd.to_datetime(frame[column], utc=True, format="ISO8601")
+    return frame
 
 
 def _frame_of_columns(slice_: TypedColumns, columns: list[str], kinds: str) -> pd.DataFrame:

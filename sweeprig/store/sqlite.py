@@ -506,13 +506,17 @@ class SqliteRunStore(SqlRunStoreCore):
 
         return typed_slices(self.path, sql, params, self._read, kinds)
 
-    def _readings_elsewhere(self, run_id: int) -> ArrowRead | None:
-        """A large run's readings (at least :data:`~sweeprig.store.side_reader.
-        SIDE_READ_MIN_SLICES` slices) read into Arrow columns by a child process, when the
-        ``fast`` extra is installed (:mod:`sweeprig.store.arrow_reader`)."""
+    def _tables_elsewhere(self, run_id: int) -> ArrowRead | None:
+        """A large run's points and readings (at least :data:`~sweeprig.store.side_reader.
+        SIDE_READ_MIN_SLICES` slices of readings) read into Arrow columns by a child
+        process, when the ``fast`` extra is installed (:mod:`sweeprig.store.arrow_reader`)."""
         from sweeprig.store.arrow_reader import arrow_read_available, start_read
         from sweeprig.store.side_reader import SIDE_READ_MIN_SLICES
         from sweeprig.store.sql import (
+            POINT_KINDS,
+            POINT_SLICE_POINTS,
+            POINTS_ORDER,
+            POINTS_SELECT,
             READING_KINDS,
             READING_SLICE_POINTS,
             READINGS_ORDER,
@@ -525,7 +529,9 @@ class SqliteRunStore(SqlRunStoreCore):
                                          READING_SLICE_POINTS)
         if len(params) < SIDE_READ_MIN_SLICES:
             return None
-        return start_read(self.path, sql, params, READING_KINDS)
+        points = self._point_slices("points", POINTS_SELECT, POINTS_ORDER, run_id,
+                                    POINT_SLICE_POINTS)
+        return start_read(self.path, [(*points, POINT_KINDS), (sql, params, READING_KINDS)])
 
     def _error(self, exc: sqlite3.Error, what: str) -> StoreError:
         """The user's view of an SQLite error: what it means (by result code) and what to do.

@@ -167,9 +167,10 @@ def test_a_stored_run_s_capture_table_is_begun_before_its_figures(report_store, 
 
 def test_a_stored_run_read_through_the_arrow_child_gives_the_same_report(
         report_store, tmp_path, monkeypatch):
-    """With its readings read by the Arrow child (sweeprig.store.arrow_reader: slices of
-    one point each, so the run counts as large), the report's tables and page are the
-    files read by sqlite3 alone make; the child was used, and gave every reading."""
+    """With its points and readings read by the Arrow child (sweeprig.store.arrow_reader:
+    slices of one point each, so the run counts as large), the report's tables and page are
+    the files read by sqlite3 alone make; the child was used, and gave every point and
+    reading."""
     import sweeprig.store.arrow_reader as arrow_reader
     import sweeprig.store.sql as sql
     from sweeprig.report import report_stored_run
@@ -180,6 +181,7 @@ def test_a_stored_run_read_through_the_arrow_child_gives_the_same_report(
     with SqliteRunStore(path, create=False) as store:
         _run, plain = report_stored_run(store, run_id, tmp_path / "plain")
         readings = len(store.readings_frame(run_id))
+        points = len(store.points_frame(run_id))
     made: list[int] = []
     original = arrow_reader.frame_of_table
     monkeypatch.setattr(arrow_reader, "frame_of_table",
@@ -187,7 +189,7 @@ def test_a_stored_run_read_through_the_arrow_child_gives_the_same_report(
     monkeypatch.setattr(sql, "READING_SLICE_POINTS", 1)
     with SqliteRunStore(path, create=False) as store:
         _run, arrow = report_stored_run(store, run_id, tmp_path / "arrow")
-    assert made == [readings]
+    assert made == [points, readings]
     for a, b in zip(plain.tables + plain.budgets, arrow.tables + arrow.budgets, strict=True):
         assert a.read_bytes() == b.read_bytes(), a.name
 

@@ -59,11 +59,11 @@ def _rows_frame(path: Path, kinds: str = KINDS) -> pd.DataFrame:
 
 
 def _read(path: Path, kinds: str = KINDS) -> pd.DataFrame | None:
-    started = start_read(path, SQL, PARAMS, kinds)
+    started = start_read(path, [(SQL, PARAMS, kinds)])
     assert started is not None
-    table = started.table()
+    tables = started.tables()
     assert started.child.poll() is not None and started.child.stdout.closed
-    return None if table is None else frame_of_table(table, COLUMNS, kinds)
+    return None if tables is None else frame_of_table(tables[0], COLUMNS, kinds)
 
 
 def test_the_frame_is_the_one_sqlite3_rows_make(typed_table: Path) -> None:
@@ -80,6 +80,27 @@ def test_the_frame_is_the_one_sqlite3_rows_make(typed_table: Path) -> None:
     assert want["e"].dtype == object and want["e"].isna().all()
     assert want["t"].dtype != object
     assert math.isclose(got["x"].iloc[-1], 12.0)
+
+
+def test_several_reads_come_back_in_order_each_its_own_table(typed_table: Path) -> None:
+    """One child, several queries (a run's points, then its readings): a table each, in the
+    order asked, each the frame sqlite3's rows make; one read without a slice gives an
+    empty table of its kinds."""
+    evens = "SELECT k, x FROM typed WHERE k >= ? AND k < ? AND k % 2 = 0 ORDER BY k"
+    started = start_read(typed_table, [(evens, PARAMS[:3], "if"), (SQL, PARAMS, KINDS),
+                                       (evens, [], "if")])
+    assert started is not None
+    tables = started.tables()
+    assert tables is not None and len(tables) == 3
+    conn = sqlite3.connect(typed_table)
+    rows = [row for p in PARAMS[:3] for row in conn.execute(evens, p).fetchall()]
+    conn.close()
+    want = pd.DataFrame.from_records(rows, columns=["k", "x"]).astype({"k": "int64"})
+    pd.testing.assert_frame_equal(frame_of_table(tables[0], ["k", "x"], "if"), want,
+                                  check_exact=True)
+    pd.testing.assert_frame_equal(frame_of_table(tables[1], COLUMNS, KINDS),
+                                  _rows_frame(typed_table), check_exact=True)
+    assert tables[2].num_rows == 0 and tables[2].num_columns == 2
 
 
 @pytest.mark.parametrize("kinds, change", [
@@ -118,15 +139,15 @@ def test_whatever_the_child_does_there_is_no_table(
 
 def test_a_child_that_cannot_start_is_no_read(typed_table: Path, monkeypatch) -> None:
     monkeypatch.setattr(arrow_reader.sys, "executable", str(typed_table.parent / "no-python"))
-    assert start_read(typed_table, SQL, PARAMS, KINDS) is None
+    assert start_read(typed_table, [(SQL, PARAMS, KINDS)]) is None
     monkeypatch.undo()
     monkeypatch.setattr(arrow_reader, "arrow_read_available", lambda: False)
-    assert start_read(typed_table, SQL, PARAMS, KINDS) is None
+    assert start_read(typed_table, [(SQL, PARAMS, KINDS)]) is None
 
 
 def test_a_read_stopped_early_ends_the_child(typed_table: Path, monkeypatch) -> None:
     monkeypatch.setattr(arrow_reader, "_CHILD_CODE", "import time; time.sleep(60)")
-    started = start_read(typed_table, SQL, PARAMS, KINDS)
+    started = start_read(typed_table, [(SQL, PARAMS, KINDS)])
     assert started is not None
     started.stop()
     assert started.child.poll() is not None and started.child.stdout.closed
@@ -135,8 +156,8 @@ def test_a_read_stopped_early_ends_the_child(typed_table: Path, monkeypatch) -> 
 def test_the_child_cannot_write_the_store(typed_table: Path, monkeypatch) -> None:
     """Opened read-only: a statement that writes fails there, and no table comes back."""
     writes = "DELETE FROM typed WHERE k >= ? AND k < ?"
-    started = start_read(typed_table, writes, PARAMS, KINDS)
-    assert started is not None and started.table() is None
+    started = start_read(typed_table, [(writes, PARAMS, KINDS)])
+    assert started is not None and started.tables() is None
     conn = sqlite3.connect(typed_table)
     assert conn.execute("SELECT COUNT(*) FROM typed").fetchone() == (401,)
     conn.close()

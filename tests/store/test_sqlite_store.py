@@ -517,7 +517,7 @@ def test_a_large_runs_readings_read_into_arrow_columns_make_the_same_tables(sqli
     monkeypatch.setattr(arrow_reader, "frame_of_table",
                         lambda *a: made.append(a[0].num_rows) or original(*a))
     points, readings = store.run_tables(run_id)
-    assert made == [len(here)]  # read by the child, all of them
+    assert made == [len(points_here), len(here)]  # read by the child, all of them
     for got, want in ((readings, here), (points, points_here)):
         _same_bit_for_bit(got, want)
     assert here["averages"].isna().any() and here["attenuation_check"].isna().any()
