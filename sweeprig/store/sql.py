@@ -756,13 +756,13 @@ class SqlRunStoreCore:
 
     def run_tables(self, run_id: int) -> tuple[pd.DataFrame, pd.DataFrame]:
         """The run's points and readings (:meth:`points_frame`, :meth:`readings_frame`),
-        read together: a store may read a large run's readings in a child process while
-        both are read here (:meth:`_tables_elsewhere`)."""
+        read together: a store may read a large run's in a child process
+        (:meth:`_tables_elsewhere`)."""
         return self.begin_run_tables(run_id).result()
 
     def begin_run_tables(self, run_id: int) -> RunTablesRead:
-        """:meth:`run_tables` begun now (a large run's readings started in a child
-        process) and taken later (:meth:`RunTablesRead.result`), the caller going on
+        """:meth:`run_tables` begun now (a large run's points and readings started in a
+        child process) and taken later (:meth:`RunTablesRead.result`), the caller going on
         meanwhile: ``sweeprig report`` imports the analysis while the child starts."""
         return RunTablesRead(self, run_id, self._tables_elsewhere(run_id))
 
