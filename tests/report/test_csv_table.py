@@ -199,12 +199,13 @@ def test_only_a_large_frame_is_written_through_polars(monkeypatch) -> None:
     never import polars); one of that many rows goes through polars."""
     from sweeprig.report import csv_table
 
-    seen: list[int] = []
+    seen: list[tuple[int, bool]] = []
     real = csv_table.arrow_csv_text
 
-    def spy(table, chunk, texts_here=()):
-        seen.append(len(chunk))
-        return real(table, chunk, texts_here)
+    def spy(table, chunk):
+        text = real(table, chunk)
+        seen.append((len(chunk), text is not None))  # (True: polars wrote it)
+        return text
 
     monkeypatch.setattr(csv_table, "arrow_csv_text", spy)
     rows = csv_table.POLARS_FROM_ROWS
@@ -212,7 +213,7 @@ def test_only_a_large_frame_is_written_through_polars(monkeypatch) -> None:
     write_frame_rows(io.StringIO(), frame.iloc[:-1], header=True)
     assert seen == []
     write_frame_rows(io.StringIO(), frame, header=True, chunk_rows=rows // 2)
-    assert seen == [rows // 2, rows // 2]
+    assert seen == [(rows // 2, True), (rows // 2, True)]
 
 
 def test_a_polars_that_writes_otherwise_is_not_used(monkeypatch) -> None:
@@ -247,11 +248,11 @@ def test_a_chunk_polars_fails_on_is_formatted_here(monkeypatch) -> None:
     real = csv_table.arrow_csv_text
     calls: list[int] = []
 
-    def flaky(table, chunk, texts_here=()):
+    def flaky(table, chunk):
         calls.append(len(chunk))
         if len(calls) == 2:
             raise RuntimeError("a type polars cannot write")
-        return real(table, chunk, texts_here)
+        return real(table, chunk)
 
     monkeypatch.setattr(csv_table, "arrow_csv_text", flaky)
     assert _text(frame, fast=True, chunk_rows=2) == reference
