@@ -214,12 +214,19 @@ def format_value(value: float, unit: str, digits: int = 2) -> str:
     """A number with its unit (``n/a`` when not finite); amperes shown in mA."""
     if value is None or not math.isfinite(value):
         return "n/a"
-    digits = max(digits, _UNIT_DIGITS.get(unit, 0))
-    if unit == "A":
-        return f"{value * 1e3:.{digits}f} mA"
-    if unit == "W":
-        return f"{value * 1e3:.{digits}f} mW"
-    return f"{value:.{digits}f} {unit}".strip()
+    number, suffix = _shown_number(value, unit)
+    return f"{number:.{max(digits, _UNIT_DIGITS.get(unit, 0))}f}{suffix}"
+
+
+def _shown_number(values: Any, unit: str) -> tuple[Any, str]:
+    """The numbers :func:`format_value` writes for ``values`` (a number, or an array of
+    them) in ``unit`` and the text after them: amperes and watts in milli-units, the others
+    as they are (an empty unit: nothing after the number)."""
+    milli = {"A": " mA", "W": " mW"}.get(unit)
+    if milli is not None:
+        with np.errstate(over="ignore"):  # (beyond the floats: inf, as Python's product)
+            return values * 1e3, milli
+    return values, f" {unit}".rstrip()
 
 
 def figure_text(figure: Figure, digits: int = 2) -> str:
@@ -500,9 +507,9 @@ def _texts3(table: Mapping[str, np.ndarray]) -> Any:
     if arrow is None or not values.size:
         return np.array(_python_texts3(values, us, units, bounds, common), dtype=object)
     pa, _ = arrow
-    value_texts, value_exact = fixed_texts(values, 3)
-    u_texts, u_exact = fixed_texts(us, 3)
-    made = common & value_exact & u_exact
+    value_texts, _ = fixed_texts(values, 3)
+    u_texts, _ = fixed_texts(us, 3)
+    made = common.copy()  # (the common case's numbers are finite: all written there)
     # every row's text is taken from one of these pieces: the common formula's (its own
     # row), a number shown without its uncertainty (a piece per unit and bound), Python's
     pieces = [joined(value_texts, large_text(" ± "), u_texts, large_text(" "),
@@ -553,17 +560,6 @@ def _python_texts3(values: np.ndarray, us: np.ndarray, units: np.ndarray, bounds
     return [f"{v:.3f} ± {u:.3f} {unit} (k = {k})" if ok else value_text(v, unit, b, u, 3)
             for v, u, unit, b, ok in zip(values.tolist(), us.tolist(), units.tolist(),
                                          bounds.tolist(), common.tolist(), strict=True)]
-
-
-def _shown_number(values: np.ndarray, unit: str) -> tuple[np.ndarray, str]:
-    """The numbers :func:`format_value` writes for ``values`` in ``unit`` and the text
-    after them: amperes and watts in milli-units, the others as they are (an empty unit:
-    nothing after the number)."""
-    milli = {"A": " mA", "W": " mW"}.get(unit)
-    if milli is not None:
-        with np.errstate(over="ignore"):  # (beyond the floats: inf, as Python's product)
-            return values * 1e3, milli
-    return values, f" {unit}".rstrip()
 
 
 @functools.cache
@@ -725,9 +721,9 @@ def _block_entries(part: JudgedBlock, limit: int) -> Iterator[str]:
     verdicts = pa.array(list(VERDICT_NAMES), type=pa.large_string())
     for lo in range(0, len(part), _ENTRY_SLICE):
         at = np.arange(lo, min(lo + _ENTRY_SLICE, len(part)))
-        numbers, exact = fixed_texts(part.block.value[part.rows[at]], 3)
+        numbers, _ = fixed_texts(part.block.value[part.rows[at]], 3)
         number = joined(numbers, unit)
-        made = plain[at] & exact
+        made = plain[at]  # (a plain number is finite: written there)
         # each row's reason (JSON, quoted) taken from one of these pieces: per wording its
         # rows' reasons spelled out (computed for the whole slice), then Python's
         pieces, take, offset = [], np.zeros(at.size, dtype=np.int64), 0
