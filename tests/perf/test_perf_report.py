@@ -234,12 +234,17 @@ def make_report(path: str, run_id: str, folder: str) -> dict[str, float]:
 
     from report_stages import staged
 
+    from sweeprig.store.sqlite import SqliteRunStore
+
     start = time.perf_counter()
     cpu_start = time.process_time()
+    # what `sweeprig report` does first: the run's points and readings begun in a child
+    # process, which reads them while the report's modules are imported here
+    store = SqliteRunStore(Path(path), create=False)
+    tables = store.begin_run_tables(int(run_id))
     stages = staged()  # (imports the stages' modules: inside the timed span, as before)
     from sweeprig.report import report_stored_run
     from sweeprig.report.table_writing import TableWriting
-    from sweeprig.store.sqlite import SqliteRunStore
 
     helper_peaks: list[float] = []  # the helper that writes the tables, when there is one
     waits: list[float] = []  # how long the report waited for its tables at the end, s
@@ -261,8 +266,9 @@ def make_report(path: str, run_id: str, folder: str) -> dict[str, float]:
 
     # what `sweeprig report` does: a large run's capture table is begun (by the helper)
     # while its figures are made
-    with SqliteRunStore(Path(path), create=False) as store:
-        run, files = report_stored_run(store, int(run_id), Path(folder), reduced=reduced_now)
+    with store:
+        run, files = report_stored_run(store, int(run_id), Path(folder), reduced=reduced_now,
+                                       tables=tables)
     done = time.perf_counter()
     reduced, reduce_peak = marks["reduced"], marks["reduce_peak"]
     return {
