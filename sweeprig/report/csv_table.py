@@ -167,14 +167,22 @@ def write_frame_rows(out: TextIO, frame: pd.DataFrame, *, header: bool,
         and polars_module() is not None
     if fast and arrow is None:
         arrow = _arrow_table(frame)
-    quote = [_may_need_quotes(frame.iloc[:, i]) for i in range(frame.shape[1])]
+    # a file's bytes written by polars straight into it (not through a text in between)
+    binary = getattr(out, "buffer", None)
+    quote: list[bool] | None = None
     for start in range(0, len(frame), chunk_rows):
         chunk = frame.iloc[start:start + chunk_rows]
-        text = None if not fast or arrow is None else _polars_chunk(
+        rows = None if not fast or arrow is None else _polars_chunk(
             arrow.slice(start, len(chunk)), chunk)
-        if text is not None:
-            out.write(text)
+        if rows is not None:
+            if binary is not None:
+                out.flush()
+                rows.write_csv(binary, include_header=False, line_terminator="\n")
+            else:
+                out.write(rows.write_csv(include_header=False, line_terminator="\n"))
             continue
+        if quote is None:
+            quote = [_may_need_quotes(column) for _, column in frame.items()]
         formatted: list[tuple[np.ndarray, list[str]]] = []  # this chunk's float64 columns
         columns = []
         for i in range(chunk.shape[1]):
@@ -304,11 +312,11 @@ def _is_text(kind: Any) -> bool:
     return bool(pa.types.is_string(kind) or pa.types.is_large_string(kind))
 
 
-def _polars_chunk(table: Any, frame: pd.DataFrame) -> str | None:
-    """:func:`arrow_csv_text`, or None when polars fails on this chunk (a column type the
+def _polars_chunk(table: Any, frame: pd.DataFrame) -> Any:
+    """:func:`arrow_csv_rows`, or None when polars fails on this chunk (a column type the
     probe did not hold, say): the chunk is then formatted here, the same text."""
     try:
-        return arrow_csv_text(table, frame)
+        return arrow_csv_rows(table, frame)
     except Exception:  # any failure of polars on this chunk: formatted here instead
         return None
 
@@ -316,26 +324,34 @@ def _polars_chunk(table: Any, frame: pd.DataFrame) -> str | None:
 def arrow_csv_text(table: Any, frame: pd.DataFrame, *, pl: Any = None) -> str | None:
     """The rows of ``frame`` as CSV text written by polars (``pl``; None: the one
     :func:`polars_module` found) from ``table`` (``frame`` as an Arrow table), the same text
-    as formatted here; None where polars would write other text (see above). The columns
-    of a type not listed above are formatted here from ``frame``."""
+    as formatted here; None where polars would write other text (see above)."""
+    rows = arrow_csv_rows(table, frame, pl=pl)
+    return None if rows is None else rows.write_csv(include_header=False,
+                                                    line_terminator="\n")
+
+
+def arrow_csv_rows(table: Any, frame: pd.DataFrame, *, pl: Any = None) -> Any:
+    """The polars frame :func:`arrow_csv_text` writes (every cell a text or missing, as it
+    is written), or None where polars would write other text. The columns of a type not
+    listed above are formatted here from ``frame``."""
     import pyarrow as pa
 
     pl = pl or polars_module()
     if frame.shape[1] < 2 or not len(frame) or table.num_columns != frame.shape[1]:
         return None
     # every column a series, what polars does to it an expression, all evaluated in one
-    # pass (a chunk of the figure table has some thirty columns)
+    # pass (a chunk of the figure table has some thirty columns); a text column's empty
+    # texts become missing cells in the same pass
     series = []
     cells = []
-    texts_named = []  # the text columns, whose empty texts are missing cells
-    for i, field in enumerate(table.schema):
+    for i, (field, (label, original)) in enumerate(
+            zip(table.schema, frame.items(), strict=True)):
         kind = field.type
         name = f"c{i}"
         column = table.column(i)
-        original = frame.iloc[:, i]
         texts: list[str] | None = None  # cells formatted here
         cell = pl.col(name)
-        if str(frame.columns[i]) != field.name:
+        if str(label) != field.name:
             texts = column_texts(original)
         elif pa.types.is_float64(kind) and original.dtype == np.float64:
             size = np.abs(original.to_numpy())
@@ -354,22 +370,33 @@ def arrow_csv_text(table: Any, frame: pd.DataFrame, *, pl: Any = None) -> str | 
             cells.append(pl.when(cell).then(pl.lit("True")).otherwise(pl.lit("False"))
                          .alias(name))
         elif _is_text(kind) or (pa.types.is_dictionary(kind) and _is_text(kind.value_type)):
+            if _holds_carriage_return(column):
+                return None
             series.append(pl.Series(name, column))
-            texts_named.append(name)
-            cells.append(cell.cast(pl.String))
+            cells.append(_missing_if_empty(pl, cell.cast(pl.String), name))
         else:
             texts = column_texts(original)
         if texts is not None:
+            if any("\r" in t for t in texts):
+                return None
             series.append(pl.Series(name, texts, dtype=pl.String))
-            texts_named.append(name)
-            cells.append(cell)
-    rows = pl.DataFrame(series).select(cells)
-    if texts_named:
-        if rows.select(pl.any_horizontal(
-                [pl.col(n).str.contains("\r", literal=True).any() for n in texts_named])
-                       ).item():
-            return None  # (the csv writer leaves a lone CR unquoted; polars quotes it)
-        # an empty text: a missing cell
-        rows = rows.with_columns([pl.when(pl.col(n) == "").then(None).otherwise(pl.col(n))
-                                  .alias(n) for n in texts_named])
-    return rows.write_csv(include_header=False, line_terminator="\n")
+            cells.append(_missing_if_empty(pl, cell, name))
+    return pl.DataFrame(series).select(cells)
+
+
+def _holds_carriage_return(column: Any) -> bool:
+    """Whether an Arrow text column (plain or dictionary) holds a carriage return: the csv
+    writer leaves a lone CR unquoted, polars quotes it (such a chunk is formatted here)."""
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    if pa.types.is_dictionary(column.type):
+        column = pa.chunked_array([chunk.dictionary for chunk in column.chunks],
+                                  type=column.type.value_type)
+    return bool(pc.any(pc.match_substring(column, "\r")).as_py())
+
+
+def _missing_if_empty(pl: Any, cell: Any, name: str) -> Any:
+    """A text column's expression with its empty texts as missing cells (what the csv
+    writer writes for both)."""
+    return pl.when(cell == "").then(None).otherwise(cell).alias(name)

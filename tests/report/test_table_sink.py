@@ -39,15 +39,15 @@ def test_whole_number_columns_written_by_polars_read_as_formatted_here(
                           "averages": sweeps})
     integers = ("budget", "averages")
     written: list[bool] = []
-    real = csv_table.arrow_csv_text
+    real = csv_table.arrow_csv_rows
 
     def spy(table, chunk, **options):
-        text = real(table, chunk, **options)
-        written.append(text is not None)
-        return text
+        rows = real(table, chunk, **options)
+        written.append(rows is not None)
+        return rows
 
     assert csv_table.polars_module() is not None  # (probed before the spy is in place)
-    monkeypatch.setattr(csv_table, "arrow_csv_text", spy)
+    monkeypatch.setattr(csv_table, "arrow_csv_rows", spy)
     through_polars = _sink_text(tmp_path / "polars", frame, integers)
     assert written == [True, True]  # every chunk written by polars
     monkeypatch.setattr(csv_table, "_polars_chunk", lambda *a: None)  # every cell here
