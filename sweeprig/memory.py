@@ -12,13 +12,21 @@ anywhere in the heap, not only at its top: glibc's manual page, from memory;
 ``tests/test_memory.py`` checks it on this system); on any other C library or system it
 does nothing. It costs a walk of the heap (milliseconds): for the boundaries of large stages,
 not for loops.
+
+Arrow (pandas' text columns, the Parquet files, a large run's Arrow reads) allocates from
+an allocator of its own by default (mimalloc or jemalloc, as pyarrow was built), whose
+freed pages ``malloc_trim`` cannot reach. :func:`arrow_pool_on_the_c_heap` asks for the C
+library's allocator instead, through Arrow's environment variable, read once when pyarrow
+first loads (changing the pool later leaves what the first one holds where it is, and the
+two together rose higher: measured). The 100k-point report benchmark, with it: the report
+process' peak 585 -> 564 MB, its table helper's 266 -> 236 MB, the time the same.
 """
 
 from __future__ import annotations
 
 import ctypes
 import sys
-from collections.abc import Callable
+from collections.abc import Callable, MutableMapping
 from functools import lru_cache
 
 
@@ -45,6 +53,18 @@ def release_freed_memory() -> bool:
         return False
     trim(0)
     return True
+
+
+#: Arrow's environment variable naming its default memory pool.
+ARROW_POOL_VARIABLE = "ARROW_DEFAULT_MEMORY_POOL"
+
+
+def arrow_pool_on_the_c_heap(environ: MutableMapping[str, str]) -> None:
+    """Ask, in the environment ``environ`` (``os.environ``, or a child process' own), for
+    Arrow's memory from the C library's allocator: for a process that has not loaded
+    pyarrow yet (the ``sweeprig`` command at its start, the report's helper processes). A
+    value already set (a user's own choice) is kept."""
+    environ.setdefault(ARROW_POOL_VARIABLE, "system")
 
 
 def resident_mb() -> float:

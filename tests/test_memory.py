@@ -3,11 +3,17 @@
 from __future__ import annotations
 
 import ctypes
+import subprocess
 import sys
 
 import pytest
 
-from sweeprig.memory import release_freed_memory, resident_mb
+from sweeprig.memory import (
+    ARROW_POOL_VARIABLE,
+    arrow_pool_on_the_c_heap,
+    release_freed_memory,
+    resident_mb,
+)
 
 GLIBC = sys.platform.startswith("linux") and hasattr(ctypes.CDLL(None), "malloc_trim")
 
@@ -44,3 +50,24 @@ def test_release_is_harmless_anywhere() -> None:
     release_freed_memory()
     assert release_freed_memory() in (True, False)
     assert resident_mb() > 0 or resident_mb() != resident_mb()  # (NaN where unknown)
+
+
+def test_arrow_is_asked_for_the_c_heap_unless_the_user_chose() -> None:
+    environ: dict[str, str] = {}
+    arrow_pool_on_the_c_heap(environ)
+    assert environ == {ARROW_POOL_VARIABLE: "system"}
+    chosen = {ARROW_POOL_VARIABLE: "jemalloc"}
+    arrow_pool_on_the_c_heap(chosen)
+    assert chosen == {ARROW_POOL_VARIABLE: "jemalloc"}
+
+
+def test_a_process_that_asks_before_loading_pyarrow_gets_the_c_heap() -> None:
+    """pyarrow reads the variable when it loads: what the command and the report's children
+    rely on (``malloc_trim`` then reaches Arrow's freed memory)."""
+    code = ("import os; from sweeprig.memory import arrow_pool_on_the_c_heap; "
+            "os.environ.pop('ARROW_DEFAULT_MEMORY_POOL', None); "
+            "arrow_pool_on_the_c_heap(os.environ); import pyarrow as pa; "
+            "print(pa.default_memory_pool().backend_name)")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                         check=True, timeout=120)
+    assert out.stdout.strip() == "system"

@@ -16,6 +16,12 @@ _STARTING = "sweeprig: stopped by SIGINT (Ctrl-C) while starting; nothing was do
 
 def main() -> None:
     """Console entry point (``sweeprig ...`` and ``python -m sweeprig ...``)."""
+    import os
+
+    from sweeprig.memory import arrow_pool_on_the_c_heap
+
+    # before anything loads pyarrow: a large report's freed Arrow memory then goes back
+    arrow_pool_on_the_c_heap(os.environ)
     stops = None
     try:
         from sweeprig.signals import RunStopped, install

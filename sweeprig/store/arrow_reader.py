@@ -33,12 +33,14 @@ from __future__ import annotations
 import contextlib
 import importlib.util
 import json
+import os
 import subprocess
 import sys
 from collections.abc import Sequence
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
+from sweeprig.memory import arrow_pool_on_the_c_heap
 from sweeprig.python_child import python_child_possible
 
 if TYPE_CHECKING:
@@ -180,12 +182,15 @@ def start_read(path: Path, reads: Sequence[Read]) -> ArrowRead | None:
     if not arrow_read_available() or not python_child_possible():
         return None
     uri = path.resolve().as_uri() + "?mode=ro"
+    env = dict(os.environ)
+    arrow_pool_on_the_c_heap(env)
     try:
         child = subprocess.Popen(
             [sys.executable, "-I", "-c", _CHILD_CODE, uri,
              json.dumps([[sql, [list(p) for p in params], kinds]
                          for sql, params, kinds in reads])],
-            stdin=subprocess.DEVNULL, stdout=subprocess.PIPE, stderr=subprocess.DEVNULL)
+            stdin=subprocess.DEVNULL, stdout=subprocess.PIPE, stderr=subprocess.DEVNULL,
+            env=env)
     except (OSError, ValueError):
         return None
     return ArrowRead(child, [kinds for _sql, _params, kinds in reads])

@@ -3,6 +3,7 @@
 
 from __future__ import annotations
 
+import os
 import signal
 import sys
 from collections.abc import Iterator
@@ -107,3 +108,18 @@ def test_import_frozen_imports_freezes_and_leaves_the_collector_as_found() -> No
     finally:
         gc.enable()
         gc.unfreeze()
+
+
+def test_the_command_asks_for_arrow_s_memory_on_the_c_heap_first(monkeypatch) -> None:
+    """Before the command line (and pyarrow) is loaded; a user's own choice is kept."""
+    from sweeprig.memory import ARROW_POOL_VARIABLE
+
+    def app() -> None:
+        raise SystemExit(0)
+
+    monkeypatch.delenv(ARROW_POOL_VARIABLE, raising=False)
+    assert _run(monkeypatch, app) == 0
+    assert os.environ[ARROW_POOL_VARIABLE] == "system"
+    monkeypatch.setenv(ARROW_POOL_VARIABLE, "mimalloc")
+    assert _run(monkeypatch, app) == 0
+    assert os.environ[ARROW_POOL_VARIABLE] == "mimalloc"

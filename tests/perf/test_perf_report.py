@@ -234,6 +234,12 @@ def make_report(path: str, run_id: str, folder: str) -> dict[str, float]:
 
     from report_stages import staged
 
+    from sweeprig.memory import arrow_pool_on_the_c_heap
+
+    # as the `sweeprig` command does at its start, before anything loads pyarrow
+    assert "pyarrow" not in sys.modules
+    arrow_pool_on_the_c_heap(os.environ)
+
     from sweeprig.store.sqlite import SqliteRunStore
 
     start = time.perf_counter()

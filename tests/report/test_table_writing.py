@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import os
 import signal
+import sys
 from collections.abc import Iterator
 from pathlib import Path
 
@@ -311,6 +312,20 @@ def test_the_helper_reports_its_own_memory(tmp_path):
         writing.finish()
     assert writing.helper_peak_mb is not None and 10 < writing.helper_peak_mb < 2000
     assert pd.read_csv(tmp_path / "t.csv").shape == (3000, 2)
+
+
+@pytest.mark.skipif(not sys.platform.startswith("linux"), reason="reads /proc")
+def test_the_helper_s_arrow_memory_is_on_the_c_heap(tmp_path, monkeypatch):
+    """Its pyarrow loads with the C library's allocator (sweeprig.memory), so its freed
+    slices go back to the system."""
+    monkeypatch.delenv("ARROW_DEFAULT_MEMORY_POOL", raising=False)
+    writing = TableWriting(helper=True, where=tmp_path)
+    with writing:
+        assert writing._process is not None
+        environ = Path(f"/proc/{writing._process.pid}/environ").read_bytes().split(b"\0")
+        writing.add(TableJob({"csv": tmp_path / "t.csv"}, _frames(1)))
+        writing.finish()
+    assert b"ARROW_DEFAULT_MEMORY_POOL=system" in environ
 
 
 def test_a_helper_that_cannot_start_leaves_the_tables_to_this_process(report_run, tmp_path,

@@ -161,3 +161,18 @@ def test_the_child_cannot_write_the_store(typed_table: Path, monkeypatch) -> Non
     conn = sqlite3.connect(typed_table)
     assert conn.execute("SELECT COUNT(*) FROM typed").fetchone() == (401,)
     conn.close()
+
+
+def test_the_child_s_arrow_memory_is_on_the_c_heap(typed_table: Path, monkeypatch) -> None:
+    """Its pyarrow loads with the C library's allocator (sweeprig.memory), whatever this
+    process' environment says unless a user chose one."""
+    monkeypatch.delenv("ARROW_DEFAULT_MEMORY_POOL", raising=False)
+    monkeypatch.setattr(arrow_reader, "_CHILD_CODE", (
+        "import sys, pyarrow as pa; "
+        "sys.stdout.write(pa.default_memory_pool().backend_name)"))
+    started = start_read(typed_table, [(SQL, PARAMS, KINDS)])
+    assert started is not None
+    try:
+        assert started.child.stdout.read() == b"system"
+    finally:
+        started.stop()
