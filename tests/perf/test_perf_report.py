@@ -203,6 +203,30 @@ time. 1M points, one run each: 94.6 s (reduce 50.2, files 44.3 of which 19.4 wai
 + 322 MB after. At 1M the report now waits about 19 s for its figure table (this process
 finishes slices at about 75 ms each, the helper writes them: polars' CSV text is about half
 of the helper's time, Parquet a quarter).
+
+This benchmark's child now does what `sweeprig report` does first: it begins the child that
+reads the points and readings before it imports the report's modules (it imported first, and
+so timed a report about 0.8 s slower than the command makes: 100k store 11.4 to 11.6 s ->
+10.5 to 10.7 s, the same code). Then the CSV text through polars in one pass a chunk, written
+as bytes straight into the file; Arrow's memory on the C library's heap in the command and
+its two children (``ARROW_DEFAULT_MEMORY_POOL=system``, so that the stages' freed tables go
+back to the system); a Parquet dictionary only for the columns of few distinct values. The
+100k store, three interleaved pairs (load 2.0 to 2.5), f360255 against this: 10.75, 10.86,
+10.91 s (median 10.86), 590 to 598 MB + 287 to 295 MB before; 10.20, 10.23, 10.36 s (median
+10.23), 561 to 562 MB + 238 to 243 MB after; the CSV files the same bytes, the Parquet files
+smaller (figures 36.3 -> 32.2 MB, captures 6.0 -> 5.1 MB) and read back as the same tables.
+1M points, one run each: 90.5 s (the old way of this benchmark), 3,816 MB + 322 MB at the
+start of this work; 84.4 s (reduce 47.5, files 36.9 of which 15.7 waiting for the figure
+table), 3,813 MB + 260 MB after. Where the time goes now (per process, sampled from /proc
+every 0.1 s): at 100k the report process is busy from its start to its end (imports while
+the child reads, 1.7 s; reduction 3 s; files 5 s, of which the plots 2.3 s of processor
+time), the helper about 0.7 of the other core; processor time in all: report 9.8 s,
+reading child 2.0 s, helper 5.9 s, so two cores cannot go below about 9 s without less
+work. At 1M: the reading child alone for 9 s (SQLite's own stepping of the 5.6 million
+readings is about 8 s of one core: measured with a plain aggregate query), then the report
+process alone on its core for the capture table and the reduction (to 47 s; the helper
+writes the capture table meanwhile at 0.4 to 0.8 of the other core, then waits), then the
+figure table's slices in the helper, which ends last.
 """
 
 from __future__ import annotations
