@@ -19,7 +19,8 @@ freed pages ``malloc_trim`` cannot reach. :func:`arrow_pool_on_the_c_heap` asks 
 library's allocator instead, through Arrow's environment variable, read once when pyarrow
 first loads (changing the pool later leaves what the first one holds where it is, and the
 two together rose higher: measured). The 100k-point report benchmark, with it: the report
-process' peak 585 -> 564 MB, its table helper's 266 -> 236 MB, the time the same.
+process' peak 583 -> 562 to 565 MB, its table helper's 270 -> 239 to 241 MB, the time the
+same.
 """
 
 from __future__ import annotations
