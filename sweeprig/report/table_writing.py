@@ -375,7 +375,10 @@ def _answer(stream: IO[bytes]) -> Any:
 
 
 def _send(pipe: IO[bytes], message: tuple[Any, ...]) -> None:
-    pickle.dump(message, pipe, protocol=pickle.HIGHEST_PROTOCOL)
+    # pickled whole, then written in one call: a blocking write of all of it lets go of the
+    # interpreter's lock once (pickle.dump writes frame by frame, and after each frame the
+    # pipe drained the feeding thread has to win the lock back from the report's own work)
+    pipe.write(pickle.dumps(message, protocol=pickle.HIGHEST_PROTOCOL))
     pipe.flush()
 
 
