@@ -254,12 +254,14 @@ def load_run(store: RunStore, run_id: int, *, tables: RunTablesRead | None = Non
 
     with collector_paused():  # (see reduce_loaded)
         info = store.run(run_id)
-        points, readings = (store.run_tables(run_id) if tables is None
-                            else tables.result())
+        # what does not need the points and readings first, while a child may still be
+        # reading them
         events = tuple(store.events(run_id))
         notes: list[str] = []
         sequence = _stored_sequence(info.sequence_text, info.sequence_path,
                                     info.sequence_sha256, store.run_files(run_id), notes)
+        points, readings = (store.run_tables(run_id) if tables is None
+                            else tables.result())
         captures = captures_from_frames(points, readings,
                                         wanted_orders=_wanted_orders(sequence))
     return LoadedRun(info, points, readings, events, sequence, tuple(notes), captures)

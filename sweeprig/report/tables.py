@@ -544,10 +544,16 @@ def _texts3(table: Mapping[str, np.ndarray]) -> Any:
                                               bounds[rest], common[rest]),
                                type=pa.large_string()))
         take[rest] = offset + np.arange(rest.size)
-    texts = pa.concat_arrays(pieces).take(pa.array(take))
+    return _text_column(pa.concat_arrays(pieces).take(pa.array(take)))
+
+
+def _text_column(texts: Any) -> Any:
+    """An Arrow text array as the column a frame would make of the same strings: pandas'
+    text type holding the Arrow array itself where that type is held in Arrow, else an
+    object array."""
     dtype = _inferred_text_dtype()
     if isinstance(dtype, pd.StringDtype) and dtype.storage == "pyarrow":
-        return pd.array(texts, dtype=dtype)  # (the Arrow array itself, as the frame holds it)
+        return pd.array(texts, dtype=dtype)
     return texts.to_numpy(zero_copy_only=False)
 
 
@@ -1008,6 +1014,10 @@ def _points_texts(points: np.ndarray) -> np.ndarray:
     number. ``points``: a tuple a figure, or the point numbers (int64) of figures of one
     point each (each distinct number written once)."""
     if points.dtype.kind in "iu":
+        arrow = arrow_compute()
+        if arrow is not None and points.size:  # (Arrow's text of an integer is Python's)
+            pa, pc = arrow
+            return _text_column(pc.cast(pa.array(points, type=pa.int64()), pa.large_string()))
         distinct, inverse = np.unique(points, return_inverse=True)
         return np.array(list(map(str, distinct.tolist())), dtype=object)[inverse.ravel()]
     texts: dict[tuple[int, ...], str] = {}
@@ -1068,22 +1078,33 @@ def figure_rows_frame(columns: Mapping[str, np.ndarray]) -> pd.DataFrame:
     mask as their names and its points as their numbers, space-separated."""
     import pandas as pd
 
-    from sweeprig.analysis.figures import flags_from_mask
-
-    masks = columns["flags"].tolist()
-    flag_texts = {mask: " ".join(flags_from_mask(mask)) for mask in set(masks)}
     out: dict[str, object] = {}
     for key, values in columns.items():
         if key == "verdict":
             out["text"] = _texts3(columns)
             out[key] = values
         elif key == "flags":
-            out[key] = np.array([flag_texts[m] for m in masks], dtype=object)
+            out[key] = _flag_texts(values)
         elif key == "points":
             out[key] = _points_texts(values)
         else:
             out[key] = values
     return pd.DataFrame(out)
+
+
+def _flag_texts(masks: np.ndarray) -> Any:
+    """Each flag mask's flag names, space-separated, each distinct mask's once (by pyarrow
+    where it is installed, as a text column; else an object array)."""
+    from sweeprig.analysis.figures import flags_from_mask
+
+    distinct, inverse = np.unique(np.asarray(masks, dtype=np.int64), return_inverse=True)
+    names = [" ".join(flags_from_mask(mask)) for mask in distinct.tolist()]
+    arrow = arrow_compute()
+    if arrow is None or not distinct.size:
+        return np.array(names, dtype=object)[inverse.ravel()]
+    pa, _ = arrow
+    return _text_column(pa.array(names, type=pa.large_string()).take(
+        pa.array(inverse.ravel())))
 
 
 #: Table formats :func:`write_tables` writes.
