@@ -51,9 +51,11 @@ noise, overload and attenuation tests on the way. When a point has the same read
 
 from __future__ import annotations
 
+import contextlib
+import contextvars
 import itertools
 import operator
-from collections.abc import Mapping, Sequence
+from collections.abc import Iterator, Mapping, Sequence
 from types import MappingProxyType
 from typing import TYPE_CHECKING
 
@@ -281,6 +283,27 @@ def risk_mask(risks: np.ndarray, name: str) -> np.ndarray:
     return padded.str.contains("," + name + ",", regex=False).to_numpy(dtype=bool)
 
 
+#: The point tables made within :func:`point_tables_shared` (None outside it): per capture
+#: table (by identity), readings and study, the table and the capture table it was made of.
+_SHARED_POINT_TABLES: contextvars.ContextVar[
+    dict[tuple[object, ...], tuple[object, pd.DataFrame]] | None] = contextvars.ContextVar(
+        "sweeprig_point_tables", default=None)
+
+
+@contextlib.contextmanager
+def point_tables_shared() -> Iterator[None]:
+    """Within the block, :func:`point_table` of one capture table (the same object), the
+    same readings and the same study is made once and given again (a copy: its user may add
+    columns). The reduction asks for the whole run's ``if`` table twice (the unpowered
+    check and the image rejection's reference gain): 0.17 s at 100k points, about 1.7 s
+    at 1M. Only for a block over which the capture table does not change."""
+    token = _SHARED_POINT_TABLES.set({})
+    try:
+        yield
+    finally:
+        _SHARED_POINT_TABLES.reset(token)
+
+
 def point_table(
     captures: pd.DataFrame | Mapping[str, np.ndarray],
     readings: Sequence[str] = ("if",),
@@ -299,7 +322,28 @@ def point_table(
     The ``if`` columns are always there (the ``if`` reading is the carrier of the
     attenuation test). Rows are sorted by point index. ``captures`` may also be the arrays
     of :func:`column_arrays` (already checked and filtered; ``study`` is then not applied).
+    Within :func:`point_tables_shared`, a table made before of the same capture table is
+    given again.
     """
+    shared = _SHARED_POINT_TABLES.get()
+    if shared is None or isinstance(captures, Mapping):
+        return _point_table(captures, readings, study=study, where=where)
+    key = (id(captures), tuple(readings),
+           study if study is None or isinstance(study, str) else tuple(study))
+    made = shared.get(key)
+    if made is None or made[0] is not captures:
+        made = shared[key] = (captures, _point_table(captures, readings, study=study,
+                                                     where=where))
+    return made[1].copy(deep=False)
+
+
+def _point_table(
+    captures: pd.DataFrame | Mapping[str, np.ndarray],
+    readings: Sequence[str],
+    *,
+    study: str | Sequence[str] | None,
+    where: str,
+) -> pd.DataFrame:
     import pandas as pd
 
     cols = (

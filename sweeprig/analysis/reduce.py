@@ -272,7 +272,9 @@ def reduce_loaded(loaded: LoadedRun) -> RunFigures:
     readings tables out of ``loaded`` (see :class:`LoadedRun`)."""
     # A large run makes millions of small acyclic objects (figures, conditions, budget
     # lines): the cyclic collector would rescan them all again and again.
-    with collector_paused():
+    from sweeprig.analysis.captures import point_tables_shared
+
+    with collector_paused(), point_tables_shared():
         return _reduce_loaded(loaded)
 
 

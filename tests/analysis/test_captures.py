@@ -172,3 +172,36 @@ def test_condition_mappings_of_rows_missing_different_keys(data: st.DataObject,
                  if table[k][r] is not None and table[k][r] == table[k][r]}
                 for r in picked.tolist()]
     assert [list(m.items()) for m in ours] == [list(e.items()) for e in expected]
+
+
+def test_shared_point_tables_are_made_once_per_capture_table_readings_and_study(
+        monkeypatch) -> None:
+    """Within ``point_tables_shared`` a table asked again of the same capture table (the
+    same object), readings and study is given again: equal to a new one, a copy its user may
+    change; another capture table, other readings or another study, or outside the block:
+    made anew."""
+    from sweeprig.analysis import captures as module
+
+    made: list[tuple[str, ...]] = []
+    real = module._point_table
+
+    def counted(table, readings, **options):
+        made.append(tuple(readings))
+        return real(table, readings, **options)
+
+    monkeypatch.setattr(module, "_point_table", counted)
+    captures = _captures()
+    fresh = point_table(captures, ("im3_low",))
+    assert len(made) == 1
+    with module.point_tables_shared():
+        first = point_table(captures, ("im3_low",), where="one analysis")
+        first["added"] = 1.0  # (a user's own column)
+        again = point_table(captures, ["im3_low"], where="another")
+        assert len(made) == 2
+        pd.testing.assert_frame_equal(again, fresh)
+        point_table(captures, ("if",))
+        point_table(captures, ("im3_low",), study="gain")
+        point_table(captures.copy(), ("im3_low",))
+        assert len(made) == 5
+    point_table(captures, ("im3_low",))
+    assert len(made) == 6
