@@ -69,6 +69,8 @@ def chamber_travel_s(from_c: float, to_c: float, *, ramp_c_per_min: float,
     lag_c = rate_c_per_s * probe_tau_s * (1.0 - math.exp(-ramp_s / probe_tau_s))
     hold_s = probe_tau_s * math.log(lag_c / tolerance_c) if lag_c > tolerance_c else 0.0
     exact_s = ramp_s + hold_s
+    if not math.isfinite(exact_s):
+        return math.inf  # (a set point no chamber reaches: the pre-flight refuses it)
     return math.ceil(exact_s / poll_s - 1e-9) * poll_s if poll_s > 0 else exact_s
 
 
@@ -238,7 +240,10 @@ def estimate_duration(
 
 
 def format_duration(seconds: float) -> str:
-    """``5400`` → ``"1 h 30 min"``; short times in s."""
+    """``5400`` → ``"1 h 30 min"``; short times in s; a time without end (a set point no
+    chamber reaches) as ``"no end"``."""
+    if not math.isfinite(seconds):
+        return "no end"
     if seconds < 60:
         return f"{seconds:.1f} s"
     minutes = seconds / 60.0

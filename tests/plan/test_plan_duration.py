@@ -1,5 +1,7 @@
 """Predicted real-bench duration: settling, sweeps, chamber ramps and soaks, overhead."""
 
+import math
+
 import pytest
 
 from sweeprig.clock import VirtualClock
@@ -125,3 +127,16 @@ def test_the_estimate_from_the_pre_flight_s_points_is_the_same() -> None:
     assert planned is not None
     assert estimate_duration(sequence, bench, planned=planned) == \
         estimate_duration(sequence, bench)
+
+
+def test_a_set_point_no_chamber_reaches_is_a_time_without_end() -> None:
+    """A temperature far beyond any chamber (a typing slip, a mangled file: 1.5e307 degC
+    was found by the loaders' fuzz test) is refused by the pre-flight; the estimate that
+    may be asked for it before (``sweeprig check`` states both) is a time without end, not
+    an overflow."""
+    assert chamber_travel_s(25.0, 1.5e307, ramp_c_per_min=3.0, probe_tau_s=120.0,
+                            tolerance_c=1.0) == math.inf
+    estimate = estimate_duration(seq({}, conditions={"temperature": [25.0, 1.5e307]}), None)
+    assert estimate.total_s == math.inf
+    assert format_duration(estimate.total_s) == "no end"
+    assert format_duration(math.nan) == "no end"
