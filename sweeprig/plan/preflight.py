@@ -488,7 +488,27 @@ def format_amount(value: float, unit: str, precise: bool = True) -> str:
         return format_frequency(value)
     if not unit:  # a count (averages, channel)
         return f"{value:g}"
+    if precise and not abs(value) < 1e9:  # (a mangled number: its magnitude, not 300 digits)
+        return f"{value:.6g} {unit}".strip()
     return f"{value:.2f} {unit}".strip() if precise else f"{value:g} {unit}".strip()
+
+
+#: The sequence key that sets an outer condition's checks (the chamber set point, the supply
+#: voltage), its caution and its fix: named instead of the study the first point is in.
+_OUTER_CHECKS: dict[tuple[str, str], tuple[tuple[str, str], str, str]] = {
+    ("chamber", "chamber set point"): (
+        ("conditions", "temperature"),
+        "Caution: a chamber set point beyond the bench's limits can damage the part, its "
+        "fixture and cables, or the chamber; follow your lab's rules for the chamber.",
+        "change the temperatures in the sequence's [conditions], or correct limits.chamber_min"
+        " / limits.chamber_max in the bench file if they are wrong"),
+    ("dc", "supply voltage"): (
+        ("conditions", "supply"),
+        "Caution: a supply voltage beyond the part's rating can destroy it; check the supply's "
+        "own limits and follow your lab's rules.",
+        "change the supply voltages in the sequence's [conditions], or correct the supply "
+        "limits in the bench file if they are wrong"),
+}
 
 
 def safety_error(sequence: Sequence, check: PortCheck) -> SweeprigError:
@@ -503,7 +523,8 @@ def safety_error(sequence: Sequence, check: PortCheck) -> SweeprigError:
     what = (f"{check.label} would be {format_amount(check.violation_value, check.unit)}, "
             f"{word} the limit {limit}: {check.limit_key} allows {allows} {limit}; first at "
             f"{point.describe()}")
-    where = sequence.where(("study", point.study_index))
+    outer = _OUTER_CHECKS.get((check.port, check.label))
+    where = sequence.where(outer[0] if outer is not None else ("study", point.study_index))
     if not check.safety:
         return InputError(
             what, where=where,
@@ -512,6 +533,8 @@ def safety_error(sequence: Sequence, check: PortCheck) -> SweeprigError:
     if check.source == "profile":
         fix = ("change the plan in the sequence: the instrument cannot go beyond its own range "
                "(its driver profile); or use an instrument, and its profile, that covers it")
+    elif outer is not None:
+        return SafetyLimitError(f"{what}. {outer[1]}", where=where, fix=outer[2])
     else:
         fix = ("lower the power (or change the frequencies or conditions) in the sequence, or "
                "correct the limit or path loss in the bench file if it is wrong")

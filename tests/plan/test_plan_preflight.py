@@ -178,3 +178,14 @@ def test_small_study_is_checked_reading_by_reading(bench) -> None:
     labels = {c.label for c in report.checks}
     assert {"rf source frequency", "lo source frequency", "analyzer RBW",
             "analyzer reference level"} <= labels
+
+
+def test_a_mangled_amount_is_written_by_its_magnitude() -> None:
+    """A number far outside any instrument (a mangled file: 1.5e307 degC) is written with
+    six significant digits, not its three hundred; ordinary ones with two decimals."""
+    from sweeprig.plan.preflight import format_amount
+
+    assert format_amount(1.4980776123850002e307, "degC") == "1.49808e+307 degC"
+    assert format_amount(-70.0, "degC") == "-70.00 degC"
+    assert format_amount(float("inf"), "V") == "inf V"
+    assert format_amount(6.0, "V", precise=False) == "6 V"
