@@ -241,6 +241,17 @@ process reduces alone (about 19 s of the other core idle): what is left is the r
 process' own work, nearly all of it made of Python objects a figure or a condition mapping
 at a time (the figures' conditions read back into columns 4.6 s at 1M, their mappings made
 from columns 3.3 s, the budgets 6.7 s, the intercept figures 3.5 s).
+
+Then the figure table's single points and flag names made by Arrow, and the whole run's
+``if`` point table made once in the reduction (the unpowered check and the image
+rejection's reference both asked for it). This benchmark now also prints the processor
+time of every process (the children's from ``RUSAGE_CHILDREN``) and the wall time two cores
+could at best reach with it. The 100k store, three runs (load 1.9): 9.80, 9.67, 9.73 s
+(median 9.73), 566 to 578 MB + 244 to 247 MB; processor time 8.9 s here + 7.4 s in the
+children = 16.3 s, so at best 8.2 s on two cores. 1M points, one run: 79.6 s (reduce 45.0,
+files 34.6 of which 10.3 waiting), 3,806 MB + 270 MB (the reduction's own peak 3,687 MB:
+the shared point table, about 200 MB at 1M, is held through it; the peak is later);
+processor time 66.6 + 53.5 = 120.1 s: at best 60 s on two cores.
 """
 
 from __future__ import annotations
