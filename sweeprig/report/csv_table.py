@@ -175,11 +175,11 @@ def write_frame_rows(out: TextIO, frame: pd.DataFrame, *, header: bool,
         rows = None if not fast or arrow is None else _polars_chunk(
             arrow.slice(start, len(chunk)), chunk)
         if rows is not None:
-            if binary is not None:
-                out.flush()
-                rows.write_csv(binary, include_header=False, line_terminator="\n")
+            if binary is None:
+                out.write(_rows_csv(rows))
             else:
-                out.write(rows.write_csv(include_header=False, line_terminator="\n"))
+                out.flush()  # (the text written here before goes first)
+                _rows_csv(rows, binary)
             continue
         if quote is None:
             quote = [_may_need_quotes(column) for _, column in frame.items()]
@@ -326,8 +326,13 @@ def arrow_csv_text(table: Any, frame: pd.DataFrame, *, pl: Any = None) -> str | 
     :func:`polars_module` found) from ``table`` (``frame`` as an Arrow table), the same text
     as formatted here; None where polars would write other text (see above)."""
     rows = arrow_csv_rows(table, frame, pl=pl)
-    return None if rows is None else rows.write_csv(include_header=False,
-                                                    line_terminator="\n")
+    return None if rows is None else _rows_csv(rows)
+
+
+def _rows_csv(rows: Any, into: Any = None) -> str | None:
+    """polars' CSV text of ``rows`` (:func:`arrow_csv_rows`: no header, ``\n`` line ends)
+    written into the binary file ``into``, or (None) returned as a text."""
+    return rows.write_csv(into, include_header=False, line_terminator="\n")
 
 
 def arrow_csv_rows(table: Any, frame: pd.DataFrame, *, pl: Any = None) -> Any:
