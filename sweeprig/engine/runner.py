@@ -232,7 +232,6 @@ class Runner:
         self._unverified: list[tuple[str, Driver]] = []
         self._status_read: set[int] = set()
         #: status queries posted beside the sources' messages, their replies not yet read
-        self._status_pending: list[tuple[Driver, Pending | None]] = []
         for _role, driver in drivers.items():
             driver.before_message = self._settle.wait
         self.soak_s = float(cond.soak)
@@ -266,28 +265,26 @@ class Runner:
     # A measured point is held, not committed, until the instruments whose event status its
     # last exchanges did not carry (the sources, the supply) have answered a status read made
     # after it: the next point's settings messages begin with ``*ESR?`` (no exchange of its
-    # own), or a bare ``*ESR?`` goes out beside them. Only then is it committed, inside the
-    # next point's settling time. A reset or an error in that read, or a fault before it
+    # own), or a bare ``*ESR?`` goes out once they are answered, inside the next point's
+    # settling time (a status query changes nothing that settles). Only then is it
+    # committed, inside that settling time. A reset or an error in that read, or a fault before it
     # was read, measures the held point again (:meth:`measure_with_recovery`).
 
     def _confirm_held(self) -> None:
         """Read what is still owed of the held point's event status (nothing when the next
         point's set-up carried it), check it, then commit the point (:meth:`_store_held`).
         Raises :class:`InstrumentReset` (power-on bit) or the instrument's errors."""
-        pending, self._status_pending = self._status_pending, []
-        failure = _finish_all(pending, Driver.finish_status)  # posted by _apply_sources
-        if failure is not None:
-            raise failure
-        self._status_read.update(id(d) for d, _ in pending)
         if self._held is None:
             return
         if self._unverified:
-            owed = [(d, d.post_status()) for _role, d in self._unverified
+            # status queries change nothing that settles: they go out at once, inside the
+            # settling time the sources' replies began, and cost the bench no time there
+            owed = [(d, d.post_status(settling_ok=True)) for _role, d in self._unverified
                     if id(d) not in self._status_read]
             failure = _finish_all(owed, Driver.finish_status)
             if failure is not None:
                 raise failure
-            self._mark_point_state([d for d, p in [*pending, *owed] if p is not None])
+            self._mark_point_state([d for d, p in owed if p is not None])
             for role, driver in self._unverified:
                 if driver.taken_status() & PON_BIT:
                     raise _reset(role, driver, f"point {self._held[3].point.index}")
@@ -388,9 +385,6 @@ class Runner:
         (``reset_check`` off); otherwise drop it. Returns the held point when it was not
         committed (``then`` says, in its event, what becomes of it); None: nothing was
         held, or it was committed."""
-        # status replies posted and not read are not waited for: the transport reads and
-        # logs them as discarded before anything else goes to that instrument
-        self._status_pending = []
         if self._held is None:
             return None
         if not self._unverified:
@@ -966,9 +960,9 @@ class Runner:
         if point.rf2_freq_hz is not None and point.rf2_power_dbm is not None:
             plan.append(("rf2", point.rf2_freq_hz, point.rf2_power_dbm, "rf2"))
         posted: list[tuple[Driver, Pending | None]] = []
-        status_posted: list[tuple[Driver, Pending | None]] = []
-        # the held point's status owed by these instruments (:meth:`_confirm_held`)
-        owed = {id(d): d for _r, d in self._unverified if id(d) not in self._status_read}
+        # the held point's status owed by these instruments: what does not lead a source's
+        # message is read by :meth:`_confirm_held`, inside the settling time
+        owed = {id(d) for _r, d in self._unverified if id(d) not in self._status_read}
         led: list[int] = []  # the sources whose message began with that status read
         try:
             for role, freq_hz, power_dbm, connection in plan:
@@ -988,27 +982,19 @@ class Runner:
                         # below, after every source has its message: the sources settle at
                         # once, and every one has answered before this method returns.
                         # The held point's status leads the message where it is owed.
-                        first = source.joins_status and owed.pop(id(source), None) is not None
+                        first = source.joins_status and id(source) in owed
                         posted.append((source, source.post_sync(status_first=first)))
                         if first:
                             led.append(id(source))
                 sent |= block
-            # the rest of the held point's status, beside the sources' messages
-            for driver in owed.values():
-                status_posted.append((driver, driver.post_status()))
         except BaseException:
             _finish_all(posted, Driver.finish_sync)  # read what is owed; the first error wins
-            _finish_all(status_posted, Driver.finish_status)
             raise
         failure = _finish_all(posted, Driver.finish_sync)
         if failure is not None:
-            _finish_all(status_posted, Driver.finish_status)
             raise failure
         self._status_read.update(led)  # read: only now, with every reply in
         self._mark_point_state([d for d, _p in posted if id(d) in led])
-        # the status replies are read by _confirm_held, once the settling time has begun
-        # (it counts from the sources' replies alone)
-        self._status_pending = status_posted
         return sent
 
     def _note_analyzer_lock(self, sa: AnalyzerDriver) -> None:

@@ -73,6 +73,7 @@ class Pending:
     message: str
     timeout_s: float | None
     posted: PostedQuery | None
+    settling_ok: bool = False  # sent (or asked, at collect) without :attr:`Driver.before_message`
 
 
 def _commands_text(sent: list[str], count: int) -> str:
@@ -219,23 +220,27 @@ class Driver:
             self.before_message()
         return self.transport.query(message, timeout_s=timeout_s)
 
-    def post_query(self, cmd: str, *, timeout_s: float | None = None) -> Pending:
+    def post_query(self, cmd: str, *, timeout_s: float | None = None,
+                   settling_ok: bool = False) -> Pending:
         """Send query ``cmd`` (after any held commands, in the same message) without waiting
         for the reply; :meth:`collect` reads it. Other instruments' messages can go out
         meanwhile, so they work at once (a transport that cannot post queries asks at
-        :meth:`collect` instead)."""
+        :meth:`collect` instead). ``settling_ok``: a query that changes nothing on the bench
+        (a status read) leaves at once, without :attr:`before_message` (the sources' settling
+        time goes on meanwhile)."""
         self.transactions += 1
         self._status_fresh = False
         message = self._joined(cmd)
-        if self.before_message is not None:
+        if self.before_message is not None and not settling_ok:
             self.before_message()
         post = getattr(self.transport, "post", None)
-        return Pending(message, timeout_s, None if post is None else post(message))
+        return Pending(message, timeout_s, None if post is None else post(message),
+                       settling_ok)
 
     def collect(self, pending: Pending) -> str:
         """The reply to a :meth:`post_query`."""
         if pending.posted is None:
-            if self.before_message is not None:
+            if self.before_message is not None and not pending.settling_ok:
                 self.before_message()
             return self.transport.query(pending.message, timeout_s=pending.timeout_s)
         return self.transport.collect(pending.posted, timeout_s=pending.timeout_s)
@@ -978,19 +983,24 @@ class Driver:
             return []
         return self._plan_companions()[1]
 
-    def post_status(self) -> Pending | None:
+    def post_status(self, *, settling_ok: bool = False) -> Pending | None:
         """Send the point's ``*ESR?`` when :meth:`point_status` would have to read it (the
         last exchange did not carry it); its reply is taken by :meth:`finish_status`, and
         :meth:`point_status` then sends nothing. None when there is nothing to send. The
         :attr:`status_companions` ride in the same message on a compound profile
-        (:attr:`status_seen` is emptied here, so it never holds an older read's answer)."""
+        (:attr:`status_seen` is emptied here, so it never holds an older read's answer).
+        ``settling_ok``: as :meth:`post_query`'s (status queries change nothing that
+        settles; no settings are held here, or they would go with it)."""
         self.status_seen = {}
         if not self.profile.has("event_status") or self._status_fresh:
             return None
         op = self.profile.op("event_status")
         units = [op.queries[0], *self._companion_queries(joined=True)]
+        if settling_ok and self._held:
+            raise RuntimeError(f"{self.where()}: settings held while a status read is sent "
+                               "inside the settling time")
         return self.post_query(_compound(units) if len(units) > 1 else units[0],
-                               timeout_s=op.timeout_s)
+                               timeout_s=op.timeout_s, settling_ok=settling_ok)
 
     def finish_status(self, pending: Pending | None) -> None:
         """Take the ``*ESR?`` reply of :meth:`post_status` as :meth:`point_status` would, and

@@ -13,6 +13,7 @@ runs inside it:
 from __future__ import annotations
 
 from datetime import timedelta
+from itertools import pairwise
 from pathlib import Path
 
 import pandas as pd
@@ -45,6 +46,28 @@ def test_the_sweep_leaves_at_least_the_settling_time_after_the_sources_answered(
         answered = max(r.time + timedelta(seconds=r.duration_s) for r in syncs)
         # 0.1 ms for mixing the log's calendar time with its interval timer
         assert (log[i].time - answered).total_seconds() >= SETTLE_S - 1e-4
+
+
+def test_the_held_points_status_reads_go_out_inside_the_settling_time(tmp_path):
+    """The supply's status after a point (the sources' leads their next settings) is a
+    query that changes nothing that settles: it leaves once the sources have answered,
+    without waiting the settling time out, so it costs the bench nothing."""
+    with start_sim_bench(clock=VirtualClock()) as sim:
+        resources = {r: v for r, v in sim.resources.items() if r != "simctl"}  # wall clock
+        bench = tmp_path / "bench.toml"
+        bench.write_text(served_bench_text(resources), encoding="utf-8")
+        outcome = run_sequence(BUDGET, bench, store_path=tmp_path / "s.sqlite", bus_log=True)
+    assert outcome.status == "complete", outcome.reason
+    with SqliteRunStore(tmp_path / "s.sqlite", create=False) as db:
+        log = db.bus_log(outcome.run_id)
+    sweeps = [i for i, r in enumerate(log) if r.role == "sa" and "INIT:IMM" in r.sent]
+    for before, i in pairwise(sweeps):  # points 1 to 4
+        syncs = [r for r in log[before:i] if r.role in ("lo", "rf") and r.sent.endswith("*OPC?")]
+        status = [r for r in log[before:i] if r.role == "dc" and r.sent.startswith("*ESR?")]
+        assert len(syncs) == 2 and len(status) == 1, [r.sent for r in log[before:i]]
+        answered = max(r.time + timedelta(seconds=r.duration_s) for r in syncs)
+        left_after = (status[0].time - answered).total_seconds()
+        assert -1e-4 <= left_after < SETTLE_S / 2, left_after
 
 
 def _stored(tmp_path: Path, name: str) -> tuple[pd.DataFrame, pd.DataFrame]:
