@@ -23,6 +23,7 @@ from sweeprig.clock import VirtualClock, WallClock
 from sweeprig.engine.runner import SettleWait
 from sweeprig.engine.session import run_sequence, served_bench_text, shipped_sequences_dir
 from sweeprig.sim.bench import start_sim_bench
+from sweeprig.store.base import BusRecord
 from sweeprig.store.sqlite import SqliteRunStore
 
 BUDGET = Path(__file__).parent / "data" / "budget.toml"  # settle = "20 ms"
@@ -30,7 +31,9 @@ SETTLE_S = 0.020
 QUICK = shipped_sequences_dir() / "demo" / "quick.toml"
 
 
-def test_the_sweep_leaves_at_least_the_settling_time_after_the_sources_answered(tmp_path):
+def _wall_clock_bus_log(tmp_path: Path) -> tuple[list[BusRecord], list[int]]:
+    """The bus log of a run of ``BUDGET`` on a served bench settling on the wall clock, and
+    the positions of its sweeps in it."""
     with start_sim_bench(clock=VirtualClock()) as sim:
         resources = {r: v for r, v in sim.resources.items() if r != "simctl"}  # wall clock
         bench = tmp_path / "bench.toml"
@@ -40,6 +43,11 @@ def test_the_sweep_leaves_at_least_the_settling_time_after_the_sources_answered(
     with SqliteRunStore(tmp_path / "s.sqlite", create=False) as db:
         log = db.bus_log(outcome.run_id)
     sweeps = [i for i, r in enumerate(log) if r.role == "sa" and "INIT:IMM" in r.sent]
+    return log, sweeps
+
+
+def test_the_sweep_leaves_at_least_the_settling_time_after_the_sources_answered(tmp_path):
+    log, sweeps = _wall_clock_bus_log(tmp_path)
     assert len(sweeps) == 5
     for i in sweeps:
         syncs = [r for r in log[:i] if r.role in ("lo", "rf") and r.sent.endswith("*OPC?")][-2:]
@@ -52,15 +60,7 @@ def test_the_held_points_status_reads_go_out_inside_the_settling_time(tmp_path):
     """The supply's status after a point (the sources' leads their next settings) is a
     query that changes nothing that settles: it leaves once the sources have answered,
     without waiting the settling time out, so it costs the bench nothing."""
-    with start_sim_bench(clock=VirtualClock()) as sim:
-        resources = {r: v for r, v in sim.resources.items() if r != "simctl"}  # wall clock
-        bench = tmp_path / "bench.toml"
-        bench.write_text(served_bench_text(resources), encoding="utf-8")
-        outcome = run_sequence(BUDGET, bench, store_path=tmp_path / "s.sqlite", bus_log=True)
-    assert outcome.status == "complete", outcome.reason
-    with SqliteRunStore(tmp_path / "s.sqlite", create=False) as db:
-        log = db.bus_log(outcome.run_id)
-    sweeps = [i for i, r in enumerate(log) if r.role == "sa" and "INIT:IMM" in r.sent]
+    log, sweeps = _wall_clock_bus_log(tmp_path)
     for before, i in pairwise(sweeps):  # points 1 to 4
         syncs = [r for r in log[before:i] if r.role in ("lo", "rf") and r.sent.endswith("*OPC?")]
         status = [r for r in log[before:i] if r.role == "dc" and r.sent.startswith("*ESR?")]
