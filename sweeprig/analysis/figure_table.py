@@ -133,7 +133,7 @@ def flag_masks(figures: Sequence[Figure]) -> np.ndarray:
     return np.array(out, dtype=np.int64)
 
 
-#: Mappings read at a time by :func:`condition_arrays` (its passing tuples stay this small).
+#: Mappings read at a time by :func:`condition_arrays` (its passing lists stay this small).
 CONDITION_CHUNK = 16_384
 
 
@@ -143,9 +143,10 @@ def condition_arrays(mappings: Sequence[Mapping[str, object]]) -> dict[str, np.n
     the others as float (NaN where missing).
 
     The mappings are read :data:`CONDITION_CHUNK` at a time, per distinct key order (the
-    figures of one kind share theirs): each group's values taken by one ``itemgetter``
-    call a mapping, a float column's values converted by NumPy at once (``float(v)`` of
-    each, None → NaN) into its array, so only one chunk's values are ever held as tuples;
+    figures of one kind share theirs): each group's values taken a key at a time (one
+    ``itemgetter`` pass over its mappings), a float column's values converted by NumPy at
+    once (``float(v)`` of each, None → NaN) into its array, so only one chunk's values are
+    ever held as lists;
     the study's values are taken with their groups too, and any other key found to hold
     text is read again at the end, key by key. The same as
     :func:`condition_arrays_by_key` (the tests compare the two)."""
@@ -166,20 +167,18 @@ def _read_conditions(mappings: Sequence[Mapping[str, object]]
     texts_read: dict[str, np.ndarray] = {key: np.full(count, None, dtype=object)
                                           for key in text}
     for start in range(0, count, CONDITION_CHUNK):
-        groups: dict[tuple[str, ...], list[int]] = {}
-        stop = min(start + CONDITION_CHUNK, count)
-        for i, order in enumerate(map(tuple, mappings[start:stop]), start):
-            groups.setdefault(order, []).append(i)
-        for order, members in groups.items():
+        chunk = list(mappings[start:start + CONDITION_CHUNK])
+        for order, members in _key_order_groups(chunk):
             if not order:
                 continue
-            picked = [mappings[i] for i in members]
-            if len(order) == 1:
-                columns: list[Sequence[object]] = [[c[order[0]] for c in picked]]
-            else:
-                columns = list(zip(*map(itemgetter(*order), picked), strict=True))
-            rows = np.array(members, dtype=np.intp)
-            for key, values in zip(order, columns, strict=True):
+            picked = chunk if members is None else list(map(chunk.__getitem__,
+                                                             members.tolist()))
+            rows = (np.arange(start, start + len(chunk), dtype=np.intp) if members is None
+                    else start + members)
+            for key in order:
+                # a key at a time (one C-level pass each): three times as fast as taking
+                # every key of a mapping at once and turning the rows into columns
+                values = list(map(itemgetter(key), picked))
                 column = numbers.get(key)
                 if column is None:
                     column = numbers[key] = np.full(count, np.nan)
@@ -229,6 +228,25 @@ def _read_conditions(mappings: Sequence[Mapping[str, object]]
                 value[~number[key]] = math.nan
             read[key] = ConditionColumn(present[key], number[key], value, never, None)
     return out, read
+
+
+def _key_order_groups(chunk: list[Mapping[str, object]]
+                      ) -> list[tuple[tuple[str, ...], np.ndarray | None]]:
+    """The mappings of ``chunk`` grouped by their keys in order: each distinct order, in
+    order of first appearance, with its members' positions in ``chunk`` (ascending, intp;
+    None: all of them)."""
+    orders = list(map(tuple, chunk))
+    code_of = dict.fromkeys(orders)
+    if len(code_of) == 1:
+        return [(orders[0], None)]
+    for code, order in enumerate(code_of):
+        code_of[order] = code
+    codes = np.fromiter(map(code_of.__getitem__, orders), dtype=np.intp, count=len(orders))
+    members = np.argsort(codes, kind="stable")
+    ends = np.cumsum(np.bincount(codes, minlength=len(code_of)))
+    return [(order, members[end - size:end])
+            for order, end, size in zip(code_of, ends.tolist(),
+                                        np.bincount(codes).tolist(), strict=True)]
 
 
 def condition_arrays_by_key(mappings: Sequence[Mapping[str, object]]

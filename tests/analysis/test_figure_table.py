@@ -91,8 +91,8 @@ def _same_arrays(ours: dict[str, np.ndarray], reference: dict[str, np.ndarray]) 
 @pytest.mark.parametrize("chunk", [16_384, 7, 1], ids=["one-chunk", "chunks-of-7", "each"])
 def test_condition_columns_read_per_key_order_are_those_read_key_by_key(
         chunk: int, monkeypatch: pytest.MonkeyPatch) -> None:
-    """condition_arrays (per distinct key order, itemgetter and NumPy, a chunk of mappings
-    at a time) gives what the key-by-key reading gives: mappings of several key orders, a
+    """condition_arrays (per distinct key order, a key at a time, a chunk of mappings at a
+    time) gives what the key-by-key reading gives: mappings of several key orders, a
     key in some of them only, explicit None, ints and bools as floats, a key with text in
     one mapping only (met in a later chunk than its numbers), a study that is not text, an
     empty mapping."""
@@ -126,6 +126,8 @@ def test_condition_columns_read_per_key_order_are_those_read_key_by_key(
                              "band": 2 if i < 2990 else "L"})
     proxies = [MappingProxyType(m) for m in mappings]
     _same_arrays(condition_arrays(proxies), condition_arrays_by_key(proxies))
+    one_order = proxies[::7]  # (every chunk one group)
+    _same_arrays(condition_arrays(one_order), condition_arrays_by_key(one_order))
     _same_arrays(condition_arrays([]), condition_arrays_by_key([]))
     _same_arrays(condition_arrays([{}]), condition_arrays_by_key([{}]))
 
