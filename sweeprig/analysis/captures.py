@@ -56,6 +56,7 @@ import contextvars
 import itertools
 import operator
 from collections.abc import Iterator, Mapping, Sequence
+from dataclasses import dataclass
 from types import MappingProxyType
 from typing import TYPE_CHECKING
 
@@ -534,9 +535,10 @@ def conditions_records(
         kept.append((key, values))
         absent.append(missing)
     names = [k for k, _ in kept]
-    columns = [shared_values(v) for _, v in kept]
+    coded = [float_codes(v) for _, v in kept]
+    columns = [shared_values(v, c) for (_, v), c in zip(kept, coded, strict=True)]
     if not any(a.any() for a in absent):
-        return _mappings(names, columns, rows.size)
+        return _noted(_mappings(names, columns, rows.size), kept, coded, columns, absent)
     # rows that lack some keys: each set of present keys (a few per table) made at once
     pattern = np.zeros(rows.size, dtype=np.int64)
     for bit, missing in enumerate(absent):
@@ -550,6 +552,88 @@ def conditions_records(
                          len(at))
         for i, mapping in zip(at, made, strict=True):
             out[i] = mapping
+    return _noted(out, kept, coded, columns, absent)
+
+
+@dataclass(frozen=True, eq=False)
+class MadeConditions:
+    """What one :func:`conditions_records` call made, and of what: its ``mappings`` (held
+    here, so no other object takes one of their identities while this is held), ``names``
+    (the keys it kept, in their order), and per name the rows' values as taken from the
+    table, before any was left out (:meth:`values`), and where a row's mapping lacks the
+    key, its value missing (:meth:`absent`). A run's figures hold these mappings; their
+    columns are read back from here instead of from each mapping
+    (:meth:`~sweeprig.analysis.figure_table.RunConditions.of`)."""
+
+    mappings: list[Mapping[str, float | str]]
+    names: tuple[str, ...]
+    #: per name: the values, or (few distinct floats or texts) the distinct values and
+    #: each row's code among them
+    columns: tuple[tuple[np.ndarray, np.ndarray | None], ...]
+    #: per name: True where the row lacks it (None: no row does)
+    lacking: tuple[np.ndarray | None, ...]
+
+    def values(self, j: int, rows: np.ndarray) -> np.ndarray:
+        """The values of name ``j`` at ``rows`` (as taken from the table)."""
+        values, codes = self.columns[j]
+        return values[rows] if codes is None else values[codes[rows]]
+
+    def absent(self, j: int, rows: np.ndarray) -> np.ndarray:
+        """True where the mapping of each of ``rows`` lacks name ``j``."""
+        lacking = self.lacking[j]
+        return np.zeros(rows.size, dtype=bool) if lacking is None else lacking[rows]
+
+    def kinds(self) -> list[str]:
+        """Per name, the kind of its values (NumPy's letter: ``f``, ``i``, ``O``...)."""
+        return [values.dtype.kind for values, _ in self.columns]
+
+
+#: What :func:`conditions_records` made within :func:`conditions_noted` (None outside it).
+_MADE_CONDITIONS: contextvars.ContextVar[list[MadeConditions] | None] = \
+    contextvars.ContextVar("sweeprig_made_conditions", default=None)
+
+
+@contextlib.contextmanager
+def conditions_noted() -> Iterator[list[MadeConditions]]:
+    """Within the block, every :func:`conditions_records` call adds what it made to the
+    list given (:class:`MadeConditions`: which holds its mappings alive)."""
+    made: list[MadeConditions] = []
+    token = _MADE_CONDITIONS.set(made)
+    try:
+        yield made
+    finally:
+        _MADE_CONDITIONS.reset(token)
+
+
+def _noted(out: list[Mapping[str, float | str]], kept: list[tuple[str, np.ndarray]],
+           coded: list[tuple[np.ndarray, np.ndarray] | None], shared: list[list[object]],
+           absent: list[np.ndarray]) -> list[Mapping[str, float | str]]:
+    """``out``, noted within :func:`conditions_noted`. What is held until the run's
+    conditions are read is kept small: few distinct floats as their codes, objects as the
+    ones the mappings hold (``shared``: a text column taken from the table is a new string
+    a row, which the mappings share)."""
+    noting = _MADE_CONDITIONS.get()
+    if noting is not None:
+        columns: list[tuple[np.ndarray, np.ndarray | None]] = []
+        for (_, values), codes, objects in zip(kept, coded, shared, strict=True):
+            if codes is not None:
+                columns.append(codes)
+            elif values.dtype == object:
+                held = np.empty(values.size, dtype=object)
+                held[:] = objects
+                if held.size >= 64 and set(map(type, objects)) == {str}:
+                    # (texts, a few of them: the distinct ones and their codes)
+                    import pandas as pd
+
+                    codes_of, distinct = pd.factorize(held)
+                    columns.append((distinct.astype(object), codes_of.astype(
+                        np.min_scalar_type(max(distinct.size - 1, 0)))))
+                else:
+                    columns.append((held, None))
+            else:
+                columns.append((values, None))
+        noting.append(MadeConditions(out, tuple(k for k, _ in kept), tuple(columns),
+                                     tuple(a if a.any() else None for a in absent)))
     return out
 
 
@@ -565,18 +649,34 @@ def _mappings(names: list[str], columns: list[Sequence[object]], rows: int
                                                     rows_values))))
 
 
-def shared_values(values: np.ndarray) -> list[object]:
+def float_codes(values: np.ndarray) -> tuple[np.ndarray, np.ndarray] | None:
+    """A float64 array of at least 64 values, at most half of them distinct bit for bit,
+    as its distinct values (by bits: 0.0 and -0.0 apart) and each value's index among them
+    (the smallest unsigned integer type that holds it); None for any other array."""
+    if values.size < 64 or values.dtype != np.float64:
+        return None
+    distinct, inverse = np.unique(values.view(np.uint64), return_inverse=True)
+    if distinct.size * 2 > values.size:
+        return None
+    return (distinct.view(np.float64),
+            inverse.ravel().astype(np.min_scalar_type(distinct.size - 1)))
+
+
+def shared_values(values: np.ndarray,
+                  codes: tuple[np.ndarray, np.ndarray] | None = None) -> list[object]:
     """``values.tolist()``, the elements that are the same value one Python object: float64
     values the same bit for bit (0.0 and -0.0 stay apart), texts the same string. Other
-    arrays, and those whose values are mostly distinct, as ``tolist`` gives them."""
+    arrays, and those whose values are mostly distinct, as ``tolist`` gives them.
+    ``codes``: :func:`float_codes` of ``values``, when the caller has them."""
     if values.size < 64:
         return values.tolist()
     if values.dtype == np.float64:
-        distinct, inverse = np.unique(values.view(np.uint64), return_inverse=True)
-        if distinct.size * 2 > values.size:
+        if codes is None:
+            codes = float_codes(values)
+        if codes is None:
             return values.tolist()
-        objects = distinct.view(np.float64).tolist()
-        return list(map(objects.__getitem__, inverse.ravel().tolist()))
+        objects = codes[0].tolist()
+        return list(map(objects.__getitem__, codes[1].tolist()))
     if values.dtype == object:
         items = values.tolist()
         if set(map(type, items)) <= {str}:

@@ -30,6 +30,8 @@ from sweeprig.analysis.figures import Figure, flag_bit
 if TYPE_CHECKING:
     import pandas as pd
 
+    from sweeprig.analysis.captures import MadeConditions
+
 #: The columns every figure table has, before its condition columns.
 BASE_COLUMNS: tuple[str, ...] = ("name", "value", "unit", "bound", "uncertainty_db", "flags",
                                  "points")
@@ -199,6 +201,123 @@ def _read_conditions(mappings: Sequence[Mapping[str, object]]
                     number[key][rows] = True
                 else:  # (None, or a number type of another kind: not a number here)
                     number[key][rows] = [isinstance(v, int | float) for v in values]
+    return _finished_columns(mappings, numbers, present, number, text, texts_read)
+
+
+def _read_made_conditions(mappings: Sequence[Mapping[str, object]],
+                          made: Sequence[MadeConditions]
+                          ) -> tuple[dict[str, np.ndarray], dict[str, ConditionColumn]]:
+    """:func:`_read_conditions` of ``mappings``: those :func:`conditions_records` made (a
+    :class:`~sweeprig.analysis.captures.MadeConditions` of ``made`` holds each, so an
+    identity found there is that mapping's) read from the columns they were made of, a
+    column at a time; the others from themselves. The same arrays and columns (the tests
+    compare the two readings)."""
+    count = len(mappings)
+    sources = [m for m in made if m.mappings and len(m.names) < 63
+               and all(kind in "fiubO" for kind in m.kinds())]
+    if not count or not sources:
+        return _read_conditions(mappings)
+    ids = np.fromiter(map(id, mappings), dtype=np.uint64, count=count)
+    made_ids = np.concatenate([np.fromiter(map(id, m.mappings), dtype=np.uint64,
+                                           count=len(m.mappings)) for m in sources])
+    made_source = np.concatenate([np.full(len(m.mappings), k, dtype=np.int64)
+                                  for k, m in enumerate(sources)])
+    made_row = np.concatenate([np.arange(len(m.mappings), dtype=np.int64) for m in sources])
+    order = np.argsort(made_ids, kind="stable")
+    made_ids, made_source, made_row = made_ids[order], made_source[order], made_row[order]
+    at = np.minimum(np.searchsorted(made_ids, ids), made_ids.size - 1)
+    found = made_ids[at] == ids
+    source = np.where(found, made_source[at], -1)
+    row = np.where(found, made_row[at], 0)
+    members = [np.flatnonzero(source == k) for k in range(len(sources))]
+    others = np.flatnonzero(~found)
+    other = [mappings[i] for i in others.tolist()]
+
+    # the order of the keys: each kind of mapping (a source and the keys its row lacks, or
+    # another mapping's own keys) in the order of its first mapping, its keys in order
+    pattern = np.zeros(count, dtype=np.int64)
+    kinds: list[tuple[str, ...]] = []
+    for k, m in enumerate(sources):
+        lacks = np.zeros(len(m.mappings), dtype=np.int64)
+        for bit, lacking in enumerate(m.lacking):
+            if lacking is not None:
+                lacks |= lacking.astype(np.int64) << bit
+        codes, inverse = np.unique(lacks[row[members[k]]], return_inverse=True)
+        pattern[members[k]] = len(kinds) + inverse.ravel()
+        kinds += [tuple(n for j, n in enumerate(m.names) if not code >> j & 1)
+                  for code in codes.tolist()]
+    other_kinds: dict[tuple[str, ...], int] = {}
+    pattern[others] = [other_kinds.setdefault(tuple(c), len(kinds) + len(other_kinds))
+                       for c in other]
+    kinds += list(other_kinds)
+    first, _ = first_appearances(pattern)
+    keys = list(dict.fromkeys(key for p in pattern[first].tolist() for key in kinds[p]))
+
+    other_out, other_read = _read_conditions(other)
+    text = {"study"} | {key for key, c in other_read.items() if c.text.any()}
+    where: list[tuple[np.ndarray, np.ndarray]] = []  # per source: its members and rows
+    for k, m in enumerate(sources):
+        rows = row[members[k]]
+        where.append((members[k], rows))
+        for j, (name, kind) in enumerate(zip(m.names, m.kinds(), strict=True)):
+            if kind == "O" and name not in text:
+                held = set(map(type, m.values(j, rows[~m.absent(j, rows)]).tolist()))
+                if any(issubclass(kind, str) for kind in held):
+                    text.add(name)
+    numbers: dict[str, np.ndarray] = {}
+    present: dict[str, np.ndarray] = {}
+    number: dict[str, np.ndarray] = {}
+    texts_read: dict[str, np.ndarray] = {}
+    for key in keys:
+        held_at = np.zeros(count, dtype=bool)
+        column = np.full(count, np.nan)
+        is_number = np.zeros(count, dtype=bool)
+        texts = np.full(count, None, dtype=object) if key in text else None
+        for m, (at_k, rows) in zip(sources, where, strict=True):
+            if key not in m.names:
+                continue
+            j = m.names.index(key)
+            here = ~m.absent(j, rows)
+            to, rows = at_k[here], rows[here]
+            held_at[to] = True
+            values = m.values(j, rows)
+            if texts is not None:
+                texts[to] = values.astype(object)  # (the objects the mappings hold)
+            elif values.dtype != object:
+                column[to] = values.astype(float)
+                is_number[to] = True
+            else:
+                listed = values.tolist()
+                column[to] = np.array(listed, dtype=float)
+                if all(issubclass(kind, int | float) for kind in set(map(type, listed))):
+                    is_number[to] = True
+                else:  # (a number type of another kind: not a number here)
+                    is_number[to] = [isinstance(v, int | float) for v in listed]
+        read = other_read.get(key)
+        if read is not None:
+            held_at[others] = read.present
+            if texts is not None:
+                texts[others] = (read.texts if read.texts is not None else np.fromiter(
+                    map(methodcaller("get", key), other), dtype=object, count=len(other)))
+            else:
+                column[others] = other_out[key]
+                is_number[others] = read.number
+        numbers[key], present[key], number[key] = column, held_at, is_number
+        if texts is not None:
+            texts_read[key] = texts
+    return _finished_columns(mappings, numbers, present, number, text, texts_read)
+
+
+def _finished_columns(mappings: Sequence[Mapping[str, object]],
+                      numbers: dict[str, np.ndarray], present: dict[str, np.ndarray],
+                      number: dict[str, np.ndarray], text: set[str],
+                      texts_read: dict[str, np.ndarray]
+                      ) -> tuple[dict[str, np.ndarray], dict[str, ConditionColumn]]:
+    """The end of a reading of ``mappings`` (:func:`_read_conditions`): per key, in the
+    order of ``numbers``, its array and its :class:`ConditionColumn`, from its ``numbers``
+    (float, NaN where missing), ``present`` and ``number`` masks, and for a key in
+    ``text`` its values (``texts_read``; read from the mappings where not given)."""
+    count = len(mappings)
     out: dict[str, np.ndarray] = {}
     read: dict[str, ConditionColumn] = {}
     never = np.zeros(count, dtype=bool)  # (the text mask of every key never text)
@@ -208,14 +327,19 @@ def _read_conditions(mappings: Sequence[Mapping[str, object]]
             if texts is None:  # (objects: no value taken apart)
                 texts = np.fromiter(map(methodcaller("get", key), mappings), dtype=object,
                                     count=count)
-            is_text = np.fromiter(map(isinstance, texts, repeat(str)), dtype=bool, count=count)
-            is_number = np.fromiter(map(isinstance, texts, repeat(int | float)), dtype=bool,
-                                    count=count)
+            missing = np.fromiter(map(is_, texts, repeat(None)), dtype=bool, count=count)
             # as text: itself, "" for None, str() of anything else
             out[key] = shown = texts.copy()
-            shown[np.fromiter(map(is_, texts, repeat(None)), dtype=bool, count=count)] = ""
-            for i in np.flatnonzero(~is_text & (shown != "")).tolist():
-                shown[i] = str(texts[i])
+            shown[missing] = ""
+            if set(map(type, texts)) <= {str, type(None)}:  # (texts: each element's kind)
+                is_text, is_number = ~missing, np.zeros(count, dtype=bool)
+            else:
+                is_text = np.fromiter(map(isinstance, texts, repeat(str)), dtype=bool,
+                                      count=count)
+                is_number = np.fromiter(map(isinstance, texts, repeat(int | float)),
+                                        dtype=bool, count=count)
+                for i in np.flatnonzero(~is_text & (shown != "")).tolist():
+                    shown[i] = str(texts[i])
             value = np.full(count, math.nan)
             if is_number.any():
                 value[is_number] = np.array(texts[is_number].tolist(), dtype=float)
@@ -357,14 +481,19 @@ class RunConditions:
         return got
 
     @classmethod
-    def of(cls, figures: Sequence[Figure]) -> RunConditions:
+    def of(cls, figures: Sequence[Figure], made: Sequence[MadeConditions] = ()
+           ) -> RunConditions:
+        """The conditions of ``figures``; ``made``: what :func:`conditions_records` made
+        for them (a reduction's, :func:`~sweeprig.analysis.captures.conditions_noted`),
+        whose mappings are read back from the columns they were made of."""
         from sweeprig.analysis.figure_block import Figures, part_conditions
 
         if isinstance(figures, Figures):  # (a block's column: none of its figures made)
             mappings, which = distinct_mappings(part_conditions(figures.parts))
         else:
             mappings, which = distinct_conditions(figures)
-        arrays, columns = _read_conditions(mappings)
+        arrays, columns = (_read_made_conditions(mappings, made) if made
+                           else _read_conditions(mappings))
         return cls(mappings, which, arrays, columns)
 
     @property

@@ -42,7 +42,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from sweeprig.analysis.captures import OUTPUT_FREQ, risk_mask
+from sweeprig.analysis.captures import OUTPUT_FREQ, MadeConditions, risk_mask
 from sweeprig.analysis.figure_block import Figures
 from sweeprig.analysis.figures import (
     REFERENCE_UNLOCKED,
@@ -171,6 +171,11 @@ class RunFigures:
     #: upconverter's ``rf_*`` conditions are its IF input; see
     #: :mod:`sweeprig.analysis.direction`). "down" when the sequence could not be read.
     conversion: str = "down"
+    #: What the reduction's :func:`~sweeprig.analysis.captures.conditions_records` calls
+    #: made (it holds their mappings): :attr:`figure_conditions` reads the figures'
+    #: conditions back from it, then lets it go. Empty: read from the mappings.
+    made_conditions: list[MadeConditions] = field(default_factory=list, compare=False,
+                                                  repr=False)
 
     def __post_init__(self) -> None:
         if not isinstance(self.figures, Figures):  # (a list or tuple of figures given)
@@ -183,7 +188,9 @@ class RunFigures:
         writers take per figure."""
         from sweeprig.analysis.figure_table import RunConditions
 
-        return RunConditions.of(self.figures)
+        made = list(self.made_conditions)
+        self.made_conditions.clear()  # (read once: its mappings need not be held longer)
+        return RunConditions.of(self.figures, made)
 
     def figures_named(self, name: str) -> list[Figure]:
         """Every figure called ``name``, in reduction order (a block of another name is
@@ -272,10 +279,12 @@ def reduce_loaded(loaded: LoadedRun) -> RunFigures:
     readings tables out of ``loaded`` (see :class:`LoadedRun`)."""
     # A large run makes millions of small acyclic objects (figures, conditions, budget
     # lines): the cyclic collector would rescan them all again and again.
-    from sweeprig.analysis.captures import point_tables_shared
+    from sweeprig.analysis.captures import conditions_noted, point_tables_shared
 
-    with collector_paused(), point_tables_shared():
-        return _reduce_loaded(loaded)
+    with collector_paused(), point_tables_shared(), conditions_noted() as made:
+        run = _reduce_loaded(loaded)
+    run.made_conditions.extend(made)
+    return run
 
 
 def _reduce_loaded(loaded: LoadedRun) -> RunFigures:

@@ -152,3 +152,77 @@ def test_condition_numbers_are_the_distinct_numbers_of_a_key_ascending() -> None
     assert len(every) == 5 and sum(map(math.isnan, every)) == 1
     assert condition_numbers(mappings, "study") == []
     assert condition_numbers([], "rf_freq_hz") == []
+
+
+def _same_conditions(ours, reference) -> None:
+    """Two :class:`RunConditions` the same: mappings (by identity), which, every array and
+    every column, bit for bit."""
+    assert [id(m) for m in ours.mappings] == [id(m) for m in reference.mappings]
+    assert ours.which.tolist() == reference.which.tolist()
+    _same_arrays(ours.arrays, reference.arrays)
+    assert list(ours.columns) == list(reference.columns)
+    for key, theirs in reference.columns.items():
+        mine = ours.columns[key]
+        for part in ("present", "number", "value", "text"):
+            a, b = getattr(mine, part), getattr(theirs, part)
+            assert a.dtype == b.dtype and a.tobytes() == b.tobytes(), (key, part)
+        assert (mine.texts is None) == (theirs.texts is None), key
+        if theirs.texts is not None:
+            assert mine.texts.tolist() == theirs.texts.tolist(), key
+
+
+def test_conditions_read_back_from_what_made_them_are_those_read_from_the_mappings() -> None:
+    """RunConditions.of with what conditions_records made (noted) reads those mappings from
+    the columns they were made of: the same as reading every mapping, for columns of every
+    kind (floats with gaps, ints, bools, texts with gaps, numbers as objects, objects mixing
+    numbers with other kinds, a key text in some rows only, a categorical), rows made but
+    held by no figure, mappings made elsewhere among them (one giving a number key a text),
+    shared and empty ones."""
+    from decimal import Decimal
+    from types import MappingProxyType, SimpleNamespace
+
+    import pandas as pd
+
+    from sweeprig.analysis.captures import conditions_noted, conditions_records
+    from sweeprig.analysis.figure_table import RunConditions
+
+    rng = np.random.default_rng(11)
+    rows = 400
+    table = pd.DataFrame({
+        "study": rng.choice(["gain", "spurs", "two-tone"], rows).astype(object),
+        "temperature_c": rng.choice([-40.0, 25.0, -0.0, 0.0, math.nan], rows),
+        "m": rng.integers(-3, 4, rows),
+        "in_band": rng.integers(0, 2, rows).astype(bool),
+        "label": np.where(rng.random(rows) < 0.3, None,
+                          rng.choice(["L", "H"], rows)).astype(object),
+        "mixed": np.array([[1.5, 2, None, Decimal("0.5"), True][i % 5] for i in range(rows)],
+                          dtype=object),
+        "side": np.array(["usb" if i % 9 == 0 else float(i) for i in range(rows)],
+                         dtype=object),
+        "corner": pd.Categorical(rng.choice(["typ", "slow"], rows)),
+        "offset_hz": np.array([[2.5e6, None, 7, -0.0][i % 4] for i in range(rows)],
+                              dtype=object),
+        "rf_freq_hz": rng.uniform(1e9, 3e9, rows),
+        "unused": np.full(rows, math.nan),
+    })
+    keys = ["study", "temperature_c", "m", "in_band", "label", "mixed", "side", "corner",
+            "offset_hz", "rf_freq_hz", "unused"]
+    with conditions_noted() as made:
+        whole = conditions_records(table, np.arange(rows), keys)
+        some = conditions_records(table, np.arange(0, rows, 3), keys[:4])
+        conditions_records(table, np.arange(5), keys)  # made, held by no figure
+        nothing = conditions_records(table, np.arange(0), keys)
+    assert len(made) == 4 and made[0].mappings is whole and not nothing
+    assert conditions_records(table, np.arange(3), keys) and len(made) == 4  # (outside)
+    elsewhere = [MappingProxyType({"study": "lo", "temperature_c": "hot"}),
+                 MappingProxyType({}), MappingProxyType({"extra": 3, "m": 1.0})]
+    held = [*whole[::2], *some, *elsewhere, *whole[1::2], whole[0], elsewhere[0]]
+    figures = [SimpleNamespace(conditions=c) for c in held]
+    reference = RunConditions.of(figures)  # type: ignore[arg-type]
+    assert "temperature_c" in reference.arrays and reference.columns["side"].text.any()
+    _same_conditions(RunConditions.of(figures, made), reference)  # type: ignore[arg-type]
+    # no mapping made elsewhere; none of them made (every one read from itself)
+    plain = figures[:len(whole) // 2]
+    _same_conditions(RunConditions.of(plain, made), RunConditions.of(plain))  # type: ignore[arg-type]
+    loose = [SimpleNamespace(conditions=c) for c in elsewhere]
+    _same_conditions(RunConditions.of(loose, made), RunConditions.of(loose))  # type: ignore[arg-type]

@@ -511,6 +511,27 @@ def test_condition_columns_of_a_reduced_run_are_those_read_key_by_key(report_run
             assert ours[key].view(np.uint64).tolist() == column.view(np.uint64).tolist(), key
 
 
+def test_a_reduced_runs_figure_conditions_read_from_what_made_them(report_store) -> None:
+    """A reduction notes what conditions_records made (nearly every mapping its figures
+    hold); the run's figure conditions read from it are those read from every mapping, and
+    once read it is let go."""
+    from sweeprig.analysis.figure_table import RunConditions, distinct_conditions
+    from sweeprig.analysis.reduce import reduce_run
+    from sweeprig.store.sqlite import SqliteRunStore
+    from tests.analysis.test_figure_table import _same_conditions
+
+    path, run_id = report_store
+    with SqliteRunStore(path, create=False) as store:
+        run = reduce_run(store, run_id)
+    made = list(run.made_conditions)
+    noted = {id(m) for one in made for m in one.mappings}
+    mappings, _ = distinct_conditions(run.figures)
+    assert sum(id(m) in noted for m in mappings) > 0.9 * len(mappings) > 45
+    _same_conditions(RunConditions.of(run.figures, made), RunConditions.of(run.figures))
+    _same_conditions(run.figure_conditions, RunConditions.of(run.figures))
+    assert run.made_conditions == []
+
+
 def test_the_capture_files_schema_without_every_rows_text(report_run) -> None:
     """The capture table's Parquet schema, made from one row per category of each text
     column, has the fields the whole table made text has: for the shared run, and for text
