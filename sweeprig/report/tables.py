@@ -998,8 +998,61 @@ def figure_slices(run: RunFigures, budgets: FigureBudgets | None = None,
     kinds = _condition_kinds(run)
     verdicts = figure_verdicts(run)
     count = len(run.figures)
+    coded = _coded_condition_texts(run, kinds)
     for first in range(0, max(count, 1), step):
-        yield _figure_columns(run, budgets, first, min(first + step, count), kinds, verdicts)
+        yield _figure_columns(run, budgets, first, min(first + step, count), kinds, verdicts,
+                              coded)
+
+
+@dataclass(frozen=True)
+class CodedTexts:
+    """A text column of a few distinct texts, as ``texts`` and each row's index among them
+    (``codes``): how a figure-table slice carries its names, units, bounds, verdicts and
+    text conditions (a small array to pickle for the helper process, and one Arrow ``take``
+    to make its frame's column, where an array of strings took a check of each)."""
+
+    codes: np.ndarray
+    texts: tuple[str, ...]
+
+    @classmethod
+    def of(cls, values: np.ndarray) -> CodedTexts | np.ndarray:
+        """``values`` (objects) coded, when every one is a str; else ``values`` itself."""
+        codes, distinct = pd.factorize(values)
+        texts = distinct.tolist()
+        if (codes < 0).any() or set(map(type, texts)) - {str}:
+            return values
+        return cls(codes.astype(np.min_scalar_type(max(len(texts) - 1, 0))), tuple(texts))
+
+    def objects(self) -> np.ndarray:
+        """The texts as an object array, a row each."""
+        table = np.empty(len(self.texts), dtype=object)
+        table[:] = self.texts
+        return table[self.codes]
+
+    def column(self) -> Any:
+        """The frame's column of these texts: as pandas makes it of :meth:`objects`, by
+        pyarrow where it is installed."""
+        arrow = arrow_compute()
+        if arrow is None:
+            return self.objects()
+        pa, _ = arrow
+        return _text_column(pa.array(self.texts, type=pa.large_string()).take(
+            pa.array(self.codes)))
+
+
+def _coded_condition_texts(run: RunFigures, kinds: Mapping[str, bool]
+                           ) -> dict[str, tuple[np.ndarray, tuple[str, ...]]]:
+    """Per text condition of ``kinds`` the run holds: each distinct conditions mapping's
+    code and the texts they index (the slices take their rows' codes from these)."""
+    conditions = run.figure_conditions
+    out: dict[str, tuple[np.ndarray, tuple[str, ...]]] = {}
+    for key, text in kinds.items():
+        values = conditions.arrays.get(key)
+        if text and values is not None:
+            coded = CodedTexts.of(values)
+            if isinstance(coded, CodedTexts):
+                out[key] = (coded.codes, coded.texts)
+    return out
 
 
 def _condition_kinds(run: RunFigures) -> dict[str, bool]:
@@ -1031,31 +1084,34 @@ def _points_texts(points: np.ndarray) -> np.ndarray:
 
 
 def _figure_columns(run: RunFigures, budgets: FigureBudgets, first: int, stop: int,
-                    kinds: Mapping[str, bool], verdicts: tuple[np.ndarray, np.ndarray]
-                    ) -> dict[str, np.ndarray]:
+                    kinds: Mapping[str, bool], verdicts: tuple[np.ndarray, np.ndarray],
+                    coded: Mapping[str, tuple[np.ndarray, tuple[str, ...]]] | None = None
+                    ) -> dict[str, Any]:
     """Rows ``first`` to ``stop`` of the figure table (see :func:`figures_frame`) as
     :func:`figure_slices` gives them, with a column for every key of ``kinds``;
-    ``verdicts``: :func:`figure_verdicts` of ``run``."""
+    ``verdicts``: :func:`figure_verdicts` of ``run``; ``coded``: its text conditions'
+    codes (:func:`_coded_condition_texts`; None: the columns as texts). Names, units,
+    bounds, verdicts and coded conditions are :class:`CodedTexts`."""
     from sweeprig.analysis.figure_block import columns_between
 
     # the one builder of a figure table's columns (a block's read from its columns); the
     # conditions from the run's columns (read once per distinct mapping, not once per slice)
     table = columns_between(run.figures, first, stop, point_numbers=True)
     count = stop - first
-    verdict = np.full(count, "", dtype=object)
+    verdict = np.zeros(count, dtype=np.uint8)  # (0: none; else 1 + its verdict's code)
     judged, codes = verdicts
     lo, hi = np.searchsorted(judged, [first, stop])
-    verdict[judged[lo:hi] - first] = np.array(VERDICT_NAMES, dtype=object)[codes[lo:hi]]
+    verdict[judged[lo:hi] - first] = 1 + codes[lo:hi]
     conditions = run.figure_conditions
     which = conditions.which[first:stop]
-    columns: dict[str, np.ndarray] = {
+    columns: dict[str, Any] = {
         "figure": np.arange(first, stop, dtype=np.int64),
-        "name": table["name"],
+        "name": CodedTexts.of(table["name"]),
         "value": table["value"],
-        "unit": table["unit"],
-        "bound": table["bound"],
+        "unit": CodedTexts.of(table["unit"]),
+        "bound": CodedTexts.of(table["bound"]),
         "uncertainty_db": table["uncertainty_db"],
-        "verdict": verdict,
+        "verdict": CodedTexts(verdict, ("", *VERDICT_NAMES)),
         "flags": table["flags"],
         "points": table["points"],
         # the budget columns, as the budgets give them (whole numbers with empty cells:
@@ -1064,7 +1120,10 @@ def _figure_columns(run: RunFigures, budgets: FigureBudgets, first: int, stop: i
     }
     for key, text in kinds.items():
         values = conditions.arrays.get(key)
-        if values is None:  # (a key of ``kinds`` the run does not hold)
+        held = None if coded is None else coded.get(key)
+        if held is not None:
+            columns[key] = CodedTexts(held[0][which], held[1])
+        elif values is None:  # (a key of ``kinds`` the run does not hold)
             columns[key] = np.full(count, "" if text else np.nan,
                                    dtype=object if text else float)
         else:
@@ -1072,17 +1131,21 @@ def _figure_columns(run: RunFigures, budgets: FigureBudgets, first: int, stop: i
     return columns
 
 
-def figure_rows_frame(columns: Mapping[str, np.ndarray]) -> pd.DataFrame:
+def figure_rows_frame(columns: Mapping[str, Any]) -> pd.DataFrame:
     """A slice of :func:`figure_slices` as the figure table's frame: each figure's ``text``
     (its value as :func:`figure_text` writes it, 3 decimals) before its verdict, its flag
     mask as their names and its points as their numbers, space-separated."""
     import pandas as pd
 
+    plain = {key: values.objects() for key in ("unit", "bound")
+             if isinstance(values := columns[key], CodedTexts)}
     out: dict[str, object] = {}
     for key, values in columns.items():
         if key == "verdict":
-            out["text"] = _texts3(columns)
-            out[key] = values
+            out["text"] = _texts3({**columns, **plain})
+            out[key] = values.column() if isinstance(values, CodedTexts) else values
+        elif isinstance(values, CodedTexts):
+            out[key] = values.column()
         elif key == "flags":
             out[key] = _flag_texts(values)
         elif key == "points":

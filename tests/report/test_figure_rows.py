@@ -51,3 +51,40 @@ def test_single_points_and_flag_masks_are_written_alike_either_way(monkeypatch) 
     assert made["flags"].tolist()[:3] == ["", "in_noise", "in_noise overload"]
     empty = np.zeros(0, dtype=np.int64)
     assert len(_points_texts(empty)) == len(_flag_texts(empty)) == 0
+
+
+@pytest.mark.parametrize("arrow", [True, False], ids=["pyarrow", "without"])
+def test_a_slices_coded_texts_make_the_frame_its_texts_would(report_run, monkeypatch,
+                                                             arrow: bool) -> None:
+    """A slice carries its names, units, bounds, verdicts and text conditions as codes
+    (CodedTexts); its frame is the one the texts themselves would make."""
+    from sweeprig.report.tables import CodedTexts
+
+    with monkeypatch.context() as bare:
+        if not arrow:
+            bare.setattr(tables, "arrow_compute", lambda: None)
+        slices = list(figure_slices(report_run, rows=50))
+        assert len(slices) > 2
+        for one in slices:
+            coded = {k for k, v in one.items() if isinstance(v, CodedTexts)}
+            assert {"name", "unit", "bound", "verdict", "study"} <= coded
+            texts = {k: (v.objects() if isinstance(v, CodedTexts) else v)
+                     for k, v in one.items()}
+            assert all(v.dtype == object for k, v in texts.items() if k in coded)
+            assert_frame_equal(figure_rows_frame(one), figure_rows_frame(texts))
+    verdicts = [v for one in slices for v in one["verdict"].objects().tolist()]
+    assert "" in verdicts and len(set(verdicts)) > 1
+
+
+def test_only_columns_of_texts_are_coded() -> None:
+    from sweeprig.report.tables import CodedTexts
+
+    texts = np.array(["dB", "dBm", "dB", ""], dtype=object)
+    coded = CodedTexts.of(texts)
+    assert isinstance(coded, CodedTexts) and coded.texts == ("dB", "dBm", "")
+    assert coded.objects().tolist() == texts.tolist()
+    for other in (np.array(["dB", None], dtype=object), np.array(["dB", 3.0], dtype=object)):
+        assert CodedTexts.of(other) is other
+    empty = CodedTexts.of(np.zeros(0, dtype=object))
+    assert isinstance(empty, CodedTexts) and empty.objects().size == 0
+    assert len(empty.column()) == 0
