@@ -18,6 +18,7 @@ import operator
 from collections.abc import Callable, Iterator, Mapping, Sequence
 from dataclasses import dataclass
 
+import matplotlib
 import numpy as np
 import pandas as pd
 from matplotlib.axes import Axes
@@ -1099,9 +1100,12 @@ def _finish(fig: MplFigure, key: str, title: str, caption: str, *,
     _outer_labels(fig)
     buffer = io.BytesIO()
     # zlib level 3: as small as the default level 6 for these flat-coloured images (within
-    # 3 %), in about 60 % of the time (measured on the 10k-point report's plots)
-    fig.savefig(buffer, format="png", dpi=DPI, facecolor=PAPER,
-                metadata={"Software": None}, pil_kwargs={"compress_level": 3})
+    # 3 %), in about 60 % of the time (measured on the 10k-point report's plots); glyphs
+    # without hinting: text is half of the drawing, and unhinted glyphs are made about a
+    # tenth faster in all (the 100k-point report's plots: 2.44 -> 2.18 s), as legible
+    with matplotlib.rc_context({"text.hinting": "no_hinting"}):
+        fig.savefig(buffer, format="png", dpi=DPI, facecolor=PAPER,
+                    metadata={"Software": None}, pil_kwargs={"compress_level": 3})
     width, height = fig.canvas.get_width_height()
     return Plot(key, title, caption, buffer.getvalue(), int(width), int(height),
                 tuple(sorted(set(corners))), tuple(corner_keys), tuple(studies))
