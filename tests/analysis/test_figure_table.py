@@ -226,3 +226,18 @@ def test_conditions_read_back_from_what_made_them_are_those_read_from_the_mappin
     _same_conditions(RunConditions.of(plain, made), RunConditions.of(plain))  # type: ignore[arg-type]
     loose = [SimpleNamespace(conditions=c) for c in elsewhere]
     _same_conditions(RunConditions.of(loose, made), RunConditions.of(loose))  # type: ignore[arg-type]
+
+
+def test_object_ids_are_each_objects_id() -> None:
+    """object_ids reads an object array's ids from its buffer (CPython): the ids ``id``
+    gives, for a contiguous array, a strided view of one, a list, and none."""
+    from types import MappingProxyType
+
+    from sweeprig.analysis.figure_table import object_ids
+
+    shared = [MappingProxyType({"k": i}) for i in range(5)]
+    column = np.empty(12, dtype=object)
+    column[:] = [shared[i % 5] for i in range(9)] + ["text", 3.5, None]
+    for objects in (column, column[::2], column[3:7], list(column), column[:0], []):
+        assert object_ids(objects).tolist() == [id(o) for o in objects]
+        assert object_ids(objects).dtype == np.uint64
