@@ -252,6 +252,19 @@ children = 16.3 s, so at best 8.2 s on two cores. 1M points, one run: 79.6 s (re
 files 34.6 of which 10.3 waiting), 3,806 MB + 270 MB (the reduction's own peak 3,687 MB:
 the shared point table, about 200 MB at 1M, is held through it; the peak is later);
 processor time 66.6 + 53.5 = 120.1 s: at best 60 s on two cores.
+
+Then the figures' conditions read back from the columns ``conditions_records`` made them of
+(noted during the reduction, found by identity; the rest read a key at a time), a slice's
+few-valued texts carried as codes to the helper, the plots' glyphs drawn unhinted, and the
+mappings' ids read from the object array's buffer. The 100k store, three interleaved pairs
+(load 1.5 to 2.0), 88daa1d against 5f4a5b5: 9.91, 9.68, 9.77 s (median 9.77), 566 to
+571 MB + 242 to 247 MB before; 9.30, 9.30, 9.41 s (median 9.30), 568 to 573 MB + 238 to
+244 MB after; processor time here 8.9 -> 8.45 s. Every file the same bytes (the HTML and
+figures.json but for their time stamps; figures.parquet read back as the same table). 1M
+points, one run, b230972 (load 2.6): 73.7 s (reduce 44.1, files 29.6 of which 9.7
+waiting), 3,833 MB + 266 MB; processor time 61.0 + 52.5 = 113.5 s (at best 57 s on two
+cores). At 1M the report still ends waiting for the helper's figure table (polars' CSV
+text and the Parquet pages), and the reduction is the report process alone for 44 s.
 """
 
 from __future__ import annotations
