@@ -263,7 +263,7 @@ def _read_made_conditions(mappings: Sequence[Mapping[str, object]],
         for j, (name, kind) in enumerate(zip(m.names, m.kinds(), strict=True)):
             if kind == "O" and name not in text:
                 held = set(map(type, m.values(j, rows[~m.absent(j, rows)]).tolist()))
-                if any(issubclass(kind, str) for kind in held):
+                if any(issubclass(held_kind, str) for held_kind in held):
                     text.add(name)
     numbers: dict[str, np.ndarray] = {}
     present: dict[str, np.ndarray] = {}
