@@ -71,3 +71,34 @@ def test_a_process_that_asks_before_loading_pyarrow_gets_the_c_heap() -> None:
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
                          check=True, timeout=120)
     assert out.stdout.strip() == "system"
+
+
+_ARENAS = """
+import ctypes, sys, threading
+from sweeprig.memory import one_malloc_arena
+if sys.argv[1] == "one":
+    assert one_malloc_arena() is True
+libc = ctypes.CDLL(None)
+libc.malloc.restype = ctypes.c_void_p
+libc.malloc.argtypes = [ctypes.c_size_t]
+def work():
+    for _ in range(64):
+        ctypes.memset(libc.malloc(65536), 1, 65536)
+threads = [threading.Thread(target=work) for _ in range(3)]
+for t in threads:
+    t.start()
+for t in threads:
+    t.join()
+libc.malloc_stats()  # one "Arena n:" block per arena, on standard error
+"""
+
+
+@pytest.mark.skipif(not GLIBC, reason="mallopt and malloc_stats are glibc's")
+def test_one_malloc_arena_serves_every_thread_from_one_arena() -> None:
+    def arenas(how: str) -> int:
+        done = subprocess.run([sys.executable, "-c", _ARENAS, how], capture_output=True,
+                              text=True, check=True, timeout=60)
+        return done.stderr.count("Arena ")
+
+    assert arenas("one") == 1
+    assert arenas("default") > 1  # (each thread its own, without it)

@@ -103,6 +103,9 @@ def report_stored_run(store: RunStore, run_id: int, folder: Path | str, *,
     here either way). StoreError when there is no such run (nothing made) or a file cannot
     be written.
     """
+    from sweeprig.memory import one_malloc_arena
+
+    one_malloc_arena()  # (before the threads that convert the tables and feed the helper)
     try:
         from sweeprig.analysis.reduce import load_run, reduce_loaded
 
