@@ -265,6 +265,9 @@ points, one run, b230972 (load 2.6): 73.7 s (reduce 44.1, files 29.6 of which 9.
 waiting), 3,833 MB + 266 MB; processor time 61.0 + 52.5 = 113.5 s (at best 57 s on two
 cores). At 1M the report still ends waiting for the helper's figure table (polars' CSV
 text and the Parquet pages), and the reduction is the report process alone for 44 s.
+Then one malloc arena for the report's threads (d250eb7): as this benchmark prints it
+(load 2.2), 8.9, 9.1, 9.2 s (median 9.1), 557 to 561 MB (its peak now the reduction's
+end) + 240 MB; processor time 8.3 + 7.1 = 15.4 s (at best 7.7 s on two cores).
 """
 
 from __future__ import annotations
