@@ -28,28 +28,28 @@ from __future__ import annotations
 import ctypes
 import sys
 from collections.abc import Callable, MutableMapping
-from functools import lru_cache
+from functools import cache, lru_cache
 
 
-@lru_cache(maxsize=1)
-def _malloc_trim() -> Callable[[int], int] | None:
-    """glibc's ``malloc_trim``, or None where there is none (not Linux, musl, no libc)."""
+@cache
+def _glibc(name: str, *argtypes: type) -> Callable[..., int] | None:
+    """glibc's function ``name`` taking ``argtypes`` and returning an int, or None where
+    there is none (not Linux, musl, no libc)."""
     if not sys.platform.startswith("linux"):
         return None
     try:
-        libc = ctypes.CDLL("libc.so.6")
-        trim = libc.malloc_trim
+        function = getattr(ctypes.CDLL("libc.so.6"), name)
     except (OSError, AttributeError):
         return None
-    trim.argtypes = [ctypes.c_size_t]
-    trim.restype = ctypes.c_int
-    return trim
+    function.argtypes = list(argtypes)
+    function.restype = ctypes.c_int
+    return function  # type: ignore[no-any-return]
 
 
 def release_freed_memory() -> bool:
     """Return the C heap's free pages to the operating system; True when the allocator has
     a way to (glibc), whether or not it had pages to give back."""
-    trim = _malloc_trim()
+    trim = _glibc("malloc_trim", ctypes.c_size_t)
     if trim is None:
         return False
     trim(0)
@@ -70,16 +70,8 @@ def one_malloc_arena() -> bool:
     either). For a process that allocates mostly in one thread at a time (the report:
     measured the same time). Applies to the threads that take an arena from then on. True
     when set (glibc); once a process."""
-    if not sys.platform.startswith("linux"):
-        return False
-    try:
-        libc = ctypes.CDLL("libc.so.6")
-        mallopt = libc.mallopt
-    except (OSError, AttributeError):
-        return False
-    mallopt.argtypes = [ctypes.c_int, ctypes.c_int]
-    mallopt.restype = ctypes.c_int
-    return bool(mallopt(_M_ARENA_MAX, 1))
+    mallopt = _glibc("mallopt", ctypes.c_int, ctypes.c_int)
+    return mallopt is not None and bool(mallopt(_M_ARENA_MAX, 1))
 
 
 #: Arrow's environment variable naming its default memory pool.
