@@ -621,15 +621,8 @@ def _noted(out: list[Mapping[str, float | str]], kept: list[tuple[str, np.ndarra
             elif values.dtype == object:
                 held = np.empty(values.size, dtype=object)
                 held[:] = objects
-                if held.size >= 64 and set(map(type, objects)) == {str}:
-                    # (texts, a few of them: the distinct ones and their codes)
-                    import pandas as pd
-
-                    codes_of, distinct = pd.factorize(held)
-                    columns.append((distinct.astype(object), codes_of.astype(
-                        np.min_scalar_type(max(distinct.size - 1, 0)))))
-                else:
-                    columns.append((held, None))
+                texts = text_codes(held) if held.size >= 64 else None
+                columns.append((held, None) if texts is None else texts)
             else:
                 columns.append((values, None))
         noting.append(MadeConditions(out, tuple(k for k, _ in kept), tuple(columns),
@@ -660,6 +653,21 @@ def float_codes(values: np.ndarray) -> tuple[np.ndarray, np.ndarray] | None:
         return None
     return (distinct.view(np.float64),
             inverse.ravel().astype(np.min_scalar_type(distinct.size - 1)))
+
+
+def text_codes(values: np.ndarray) -> tuple[np.ndarray, np.ndarray] | None:
+    """An object array whose every element is a str, as its distinct texts (an object array,
+    in order of first appearance) and each element's index among them (the smallest
+    unsigned integer type that holds it); None for any other array."""
+    import pandas as pd
+
+    if values.dtype != object:
+        return None
+    codes, distinct = pd.factorize(values)
+    if (codes < 0).any() or set(map(type, distinct.tolist())) - {str}:
+        return None
+    return (np.asarray(distinct, dtype=object),
+            codes.astype(np.min_scalar_type(max(distinct.size - 1, 0))))
 
 
 def shared_values(values: np.ndarray,

@@ -1017,11 +1017,10 @@ class CodedTexts:
     @classmethod
     def of(cls, values: np.ndarray) -> CodedTexts | np.ndarray:
         """``values`` (objects) coded, when every one is a str; else ``values`` itself."""
-        codes, distinct = pd.factorize(values)
-        texts = distinct.tolist()
-        if (codes < 0).any() or set(map(type, texts)) - {str}:
-            return values
-        return cls(codes.astype(np.min_scalar_type(max(len(texts) - 1, 0))), tuple(texts))
+        from sweeprig.analysis.captures import text_codes
+
+        coded = text_codes(values)
+        return values if coded is None else cls(coded[1], tuple(coded[0].tolist()))
 
     def objects(self) -> np.ndarray:
         """The texts as an object array, a row each."""
