@@ -368,10 +368,10 @@ def _key_order_groups(chunk: list[Mapping[str, object]]
         code_of[order] = code
     codes = np.fromiter(map(code_of.__getitem__, orders), dtype=np.intp, count=len(orders))
     members = np.argsort(codes, kind="stable")
-    ends = np.cumsum(np.bincount(codes, minlength=len(code_of)))
+    sizes = np.bincount(codes, minlength=len(code_of))
     return [(order, members[end - size:end])
-            for order, end, size in zip(code_of, ends.tolist(),
-                                        np.bincount(codes).tolist(), strict=True)]
+            for order, end, size in zip(code_of, np.cumsum(sizes).tolist(), sizes.tolist(),
+                                        strict=True)]
 
 
 def condition_arrays_by_key(mappings: Sequence[Mapping[str, object]]
