@@ -969,8 +969,10 @@ def figures_frame(run: RunFigures, budgets: FigureBudgets | None = None) -> pd.D
     budget), then one column per condition."""
     if budgets is None:
         budgets = figure_budgets(run)
-    return figure_rows_frame(_figure_columns(run, budgets, 0, len(run.figures),
-                                             _condition_kinds(run), figure_verdicts(run)))
+    kinds = _condition_kinds(run)
+    return figure_rows_frame(_figure_columns(run, budgets, 0, len(run.figures), kinds,
+                                             figure_verdicts(run),
+                                             _coded_condition_texts(run, kinds)))
 
 
 #: Figures per slice of the figure table when it is written (bounds the rows held at once).
@@ -1084,13 +1086,13 @@ def _points_texts(points: np.ndarray) -> np.ndarray:
 
 def _figure_columns(run: RunFigures, budgets: FigureBudgets, first: int, stop: int,
                     kinds: Mapping[str, bool], verdicts: tuple[np.ndarray, np.ndarray],
-                    coded: Mapping[str, tuple[np.ndarray, tuple[str, ...]]] | None = None
+                    coded: Mapping[str, tuple[np.ndarray, tuple[str, ...]]]
                     ) -> dict[str, Any]:
     """Rows ``first`` to ``stop`` of the figure table (see :func:`figures_frame`) as
     :func:`figure_slices` gives them, with a column for every key of ``kinds``;
     ``verdicts``: :func:`figure_verdicts` of ``run``; ``coded``: its text conditions'
-    codes (:func:`_coded_condition_texts`; None: the columns as texts). Names, units,
-    bounds, verdicts and coded conditions are :class:`CodedTexts`."""
+    codes (:func:`_coded_condition_texts`). Names, units, bounds, verdicts and coded
+    conditions are :class:`CodedTexts`."""
     from sweeprig.analysis.figure_block import columns_between
 
     # the one builder of a figure table's columns (a block's read from its columns); the
@@ -1119,7 +1121,7 @@ def _figure_columns(run: RunFigures, budgets: FigureBudgets, first: int, stop: i
     }
     for key, text in kinds.items():
         values = conditions.arrays.get(key)
-        held = None if coded is None else coded.get(key)
+        held = coded.get(key)
         if held is not None:
             columns[key] = CodedTexts(held[0][which], held[1])
         elif values is None:  # (a key of ``kinds`` the run does not hold)
