@@ -86,6 +86,16 @@ def arrow_pool_on_the_c_heap(environ: MutableMapping[str, str]) -> None:
     environ.setdefault(ARROW_POOL_VARIABLE, "system")
 
 
+def arrow_child_environment() -> dict[str, str]:
+    """A copy of this process' environment for a child process that loads pyarrow, with
+    :func:`arrow_pool_on_the_c_heap` asked in it."""
+    import os
+
+    environ = dict(os.environ)
+    arrow_pool_on_the_c_heap(environ)
+    return environ
+
+
 def resident_mb() -> float:
     """This process's resident memory now, MB (``/proc/self/statm``; NaN where there is
     none)."""

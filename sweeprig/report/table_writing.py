@@ -43,7 +43,7 @@ from typing import IO, Any
 import pandas as pd
 
 from sweeprig.errors import StoreError
-from sweeprig.memory import arrow_pool_on_the_c_heap, peak_resident_mb
+from sweeprig.memory import arrow_child_environment, peak_resident_mb
 from sweeprig.python_child import python_child_possible
 
 #: Capture rows from which a helper process writes a run's tables (a run's figures grow
@@ -229,8 +229,7 @@ class TableWriting:
         if not self.helper:
             return self
         self._stderr = tempfile.TemporaryFile()
-        env = dict(os.environ)
-        arrow_pool_on_the_c_heap(env)  # (its freed slices handed back to the system)
+        env = arrow_child_environment()  # (its freed slices handed back to the system)
         # the helper imports this very sweeprig, wherever this process found it
         root = str(Path(__file__).resolve().parents[2])
         env["PYTHONPATH"] = os.pathsep.join(p for p in (root, env.get("PYTHONPATH")) if p)

@@ -33,14 +33,13 @@ from __future__ import annotations
 import contextlib
 import importlib.util
 import json
-import os
 import subprocess
 import sys
 from collections.abc import Sequence
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
-from sweeprig.memory import arrow_pool_on_the_c_heap
+from sweeprig.memory import arrow_child_environment
 from sweeprig.python_child import python_child_possible
 
 if TYPE_CHECKING:
@@ -182,8 +181,7 @@ def start_read(path: Path, reads: Sequence[Read]) -> ArrowRead | None:
     if not arrow_read_available() or not python_child_possible():
         return None
     uri = path.resolve().as_uri() + "?mode=ro"
-    env = dict(os.environ)
-    arrow_pool_on_the_c_heap(env)
+    env = arrow_child_environment()
     try:
         child = subprocess.Popen(
             [sys.executable, "-I", "-c", _CHILD_CODE, uri,
