@@ -53,8 +53,6 @@ from __future__ import annotations
 
 import contextlib
 import contextvars
-import itertools
-import operator
 from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import dataclass
 from types import MappingProxyType
@@ -63,6 +61,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from sweeprig.analysis import validity
+from sweeprig.analysis.condition_rows import Column, ConditionColumns
 from sweeprig.analysis.figures import (
     ANALYZER_COMPRESSION,
     ANALYZER_DISTORTION,
@@ -510,9 +509,10 @@ def conditions_records(
 ) -> list[Mapping[str, float | str]]:
     """Read-only condition mappings for the given rows: ``{key: value}``, NaN values left out.
 
-    The rows of a column that hold one value share one Python object for it
-    (:func:`shared_values`): a large run's mappings hold millions of values, most of them
-    one of a few temperatures, drives and frequencies.
+    Each mapping is a :class:`~sweeprig.analysis.condition_rows.ConditionRow`: 48 bytes
+    that read their values from columns shared by every row of the call (few distinct
+    floats or texts as codes): a large run's reduction makes hundreds of thousands of them,
+    most of their values one of a few temperatures, drives and frequencies.
 
     A table holding ``output_freq_hz`` (a point table of a capture table that holds it) adds
     it last to every mapping that holds both the LO and the RF frequency: the mapping
@@ -535,24 +535,35 @@ def conditions_records(
         kept.append((key, values))
         absent.append(missing)
     names = [k for k, _ in kept]
-    coded = [float_codes(v) for _, v in kept]
-    columns = [shared_values(v, c) for (_, v), c in zip(kept, coded, strict=True)]
+    columns = [_held_column(values) for _, values in kept]
     if not any(a.any() for a in absent):
-        return _noted(_mappings(names, columns, rows.size), kept, coded, columns, absent)
-    # rows that lack some keys: each set of present keys (a few per table) made at once
+        out = ConditionColumns(names, columns).rows(range(rows.size))
+        return _noted(out, names, columns, absent)
+    # rows that lack some keys: each set of present keys (a few per table) reads its own
+    # names of the same columns
     pattern = np.zeros(rows.size, dtype=np.int64)
     for bit, missing in enumerate(absent):
         pattern |= missing.astype(np.int64) << bit
-    out: list[Mapping[str, float | str]] = [None] * rows.size  # type: ignore[list-item]
+    out = [None] * rows.size  # type: ignore[list-item]
     for code in np.unique(pattern).tolist():
         at = np.flatnonzero(pattern == code).tolist()
-        pick = operator.itemgetter(*at) if len(at) > 1 else (lambda col, i=at[0]: (col[i],))
         present = [j for j in range(len(names)) if not code >> j & 1]
-        made = _mappings([names[j] for j in present], [pick(columns[j]) for j in present],
-                         len(at))
+        made = ConditionColumns([names[j] for j in present],
+                                [columns[j] for j in present]).rows(at)
         for i, mapping in zip(at, made, strict=True):
             out[i] = mapping
-    return _noted(out, kept, coded, columns, absent)
+    return _noted(out, names, columns, absent)
+
+
+def _held_column(values: np.ndarray) -> Column:
+    """A conditions column as its rows' mappings read it: few distinct floats (bit for bit)
+    or texts as their codes, anything else as it is."""
+    if values.size >= 64:
+        coded = float_codes(values) if values.dtype == np.float64 else \
+            text_codes(values) if values.dtype == object else None
+        if coded is not None:
+            return coded
+    return values, None
 
 
 @dataclass(frozen=True, eq=False)
@@ -605,41 +616,14 @@ def conditions_noted() -> Iterator[list[MadeConditions]]:
         _MADE_CONDITIONS.reset(token)
 
 
-def _noted(out: list[Mapping[str, float | str]], kept: list[tuple[str, np.ndarray]],
-           coded: list[tuple[np.ndarray, np.ndarray] | None], shared: list[list[object]],
+def _noted(out: list[Mapping[str, float | str]], names: list[str], columns: list[Column],
            absent: list[np.ndarray]) -> list[Mapping[str, float | str]]:
-    """``out``, noted within :func:`conditions_noted`. What is held until the run's
-    conditions are read is kept small: few distinct floats as their codes, objects as the
-    ones the mappings hold (``shared``: a text column taken from the table is a new string
-    a row, which the mappings share)."""
+    """``out``, noted within :func:`conditions_noted` with the columns its rows read."""
     noting = _MADE_CONDITIONS.get()
     if noting is not None:
-        columns: list[tuple[np.ndarray, np.ndarray | None]] = []
-        for (_, values), codes, objects in zip(kept, coded, shared, strict=True):
-            if codes is not None:
-                columns.append(codes)
-            elif values.dtype == object:
-                held = np.empty(values.size, dtype=object)
-                held[:] = objects
-                texts = text_codes(held) if held.size >= 64 else None
-                columns.append((held, None) if texts is None else texts)
-            else:
-                columns.append((values, None))
-        noting.append(MadeConditions(out, tuple(k for k, _ in kept), tuple(columns),
+        noting.append(MadeConditions(out, tuple(names), tuple(columns),
                                      tuple(a if a.any() else None for a in absent)))
     return out
-
-
-def _mappings(names: list[str], columns: list[Sequence[object]], rows: int
-              ) -> list[Mapping[str, float | str]]:
-    """A read-only mapping per row of ``columns`` (one per name, each ``rows`` long), made
-    in one C-level pass per stage (zip, dict, proxy): a million rows in a fraction of the
-    time of a comprehension; rows holding none of the keys: an empty mapping each."""
-    if not columns:
-        return [MappingProxyType({}) for _ in range(rows)]
-    rows_values = zip(*columns, strict=True)
-    return list(map(MappingProxyType, map(dict, map(zip, itertools.repeat(names),
-                                                    rows_values))))
 
 
 def float_codes(values: np.ndarray) -> tuple[np.ndarray, np.ndarray] | None:
@@ -668,30 +652,6 @@ def text_codes(values: np.ndarray) -> tuple[np.ndarray, np.ndarray] | None:
         return None
     return (np.asarray(distinct, dtype=object),
             codes.astype(np.min_scalar_type(max(distinct.size - 1, 0))))
-
-
-def shared_values(values: np.ndarray,
-                  codes: tuple[np.ndarray, np.ndarray] | None = None) -> list[object]:
-    """``values.tolist()``, the elements that are the same value one Python object: float64
-    values the same bit for bit (0.0 and -0.0 stay apart), texts the same string. Other
-    arrays, and those whose values are mostly distinct, as ``tolist`` gives them.
-    ``codes``: :func:`float_codes` of ``values``, when the caller has them."""
-    if values.size < 64:
-        return values.tolist()
-    if values.dtype == np.float64:
-        if codes is None:
-            codes = float_codes(values)
-        if codes is None:
-            return values.tolist()
-        objects = codes[0].tolist()
-        return list(map(objects.__getitem__, codes[1].tolist()))
-    if values.dtype == object:
-        items = values.tolist()
-        if set(map(type, items)) <= {str}:
-            seen: dict[str, str] = {}
-            return list(map(seen.setdefault, items, items))
-        return items
-    return values.tolist()
 
 
 def has_bit(mask: np.ndarray, name: str) -> np.ndarray:

@@ -136,6 +136,7 @@ from typing import TYPE_CHECKING, Literal
 
 import numpy as np
 
+from sweeprig.analysis.condition_rows import ConditionRow
 from sweeprig.analysis.writable_twin import writable_twin
 
 if TYPE_CHECKING:
@@ -565,10 +566,12 @@ def bound_symbol(code: int) -> Bound:
 
 def read_only_conditions(conditions: Iterable[Mapping[str, float | int | str]]
                          ) -> list[Mapping[str, float | int | str]]:
-    """Each conditions mapping as a read-only one: a mapping proxy as it is (so the figures
-    of one point go on sharing theirs), any other mapping copied into a new proxy."""
+    """Each conditions mapping as a read-only one: a mapping proxy or a
+    :class:`~sweeprig.analysis.condition_rows.ConditionRow` as it is (so the figures of one
+    point go on sharing theirs), any other mapping copied into a new proxy."""
     proxy = MappingProxyType
-    return [c if type(c) is proxy else proxy(dict(c)) for c in conditions]
+    return [c if type(c) is proxy or type(c) is ConditionRow else proxy(dict(c))
+            for c in conditions]
 
 
 def make_figures(

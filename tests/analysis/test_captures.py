@@ -105,14 +105,19 @@ def test_own_column_name_wins_over_an_alias():
     assert point_table(df)["if_present"].all()
 
 
-def test_condition_mappings_share_equal_values_and_equal_the_plain_reading() -> None:
+def test_condition_mappings_equal_the_plain_reading_and_hold_no_values_of_their_own() -> None:
     """conditions_records gives the mappings a plain ``tolist`` reading gives (the same
-    keys in order, values of the same type and bits: -0.0 stays -0.0, NaN left out), its
-    rows of one value sharing one object (a float the same bit for bit, a text)."""
+    keys in order, values of the same type and bits: -0.0 stays -0.0, NaN left out); each
+    mapping is a row of columns shared by the call's rows (48 bytes, not a dict of its
+    own), few distinct floats (bit for bit) and texts held as codes."""
+    import copy
     import math
-    from types import MappingProxyType
+    import pickle
+    import sys
 
-    from sweeprig.analysis.captures import conditions_records, shared_values
+    from sweeprig.analysis.captures import conditions_records
+    from sweeprig.analysis.condition_rows import ConditionRow
+    from sweeprig.analysis.figures import read_only_conditions
 
     rng = np.random.default_rng(3)
     rows = 500
@@ -120,29 +125,42 @@ def test_condition_mappings_share_equal_values_and_equal_the_plain_reading() -> 
         "study": np.array(["gain", "spurs"] * (rows // 2), dtype=object),
         "temperature_c": rng.choice([-40.0, 25.0, 85.0], rows),
         "supply_v": np.where(np.arange(rows) % 3 == 0, 0.0, -0.0),  # signed zeros
-        "rf_freq_hz": rng.uniform(1e9, 3e9, rows),  # mostly distinct: not shared
+        "rf_freq_hz": rng.uniform(1e9, 3e9, rows),  # mostly distinct: not coded
         "lo_power_dbm": np.where(np.arange(rows) % 5 == 0, np.nan, 3.0),  # some missing
+        "in_band": np.arange(rows) % 2 == 0,  # booleans stay booleans
     }
     keys = tuple(table)
     ours = conditions_records(table, np.arange(rows), keys)
     for row, mapping in enumerate(ours):
         plain = {k: table[k][row].item() if k != "study" else table[k][row] for k in keys}
         plain = {k: v for k, v in plain.items() if v == v}
-        assert list(mapping) == list(plain)
+        assert list(mapping) == list(plain) and len(mapping) == len(plain)
         for key, value in plain.items():
-            assert type(mapping[key]) is type(value)
+            assert type(mapping[key]) is type(value) and type(mapping.get(key)) is type(value)
             if isinstance(value, float):
                 assert math.copysign(1.0, mapping[key]) == math.copysign(1.0, value)
-            assert mapping[key] == value
-        assert isinstance(mapping, MappingProxyType)
-    assert len({id(m["temperature_c"]) for m in ours}) == 3
-    assert len({id(m["supply_v"]) for m in ours}) == 2
-    assert len({id(m["study"]) for m in ours}) == 2
-    for values in (table["rf_freq_hz"], np.arange(100), table["study"][:10],
-                   np.array([1, "a", None] * 30, dtype=object)):
-        shared = shared_values(values)
-        assert shared == values.tolist()
-        assert [type(v) for v in shared] == [type(v) for v in values.tolist()]
+            assert mapping[key] == value and key in mapping
+        assert mapping == plain and plain == mapping and dict(mapping) == plain
+        assert "nothing" not in mapping and mapping.get("nothing", 7) == 7
+        assert type(mapping) is ConditionRow and sys.getsizeof(mapping) <= 64
+        again = copy.deepcopy(mapping)  # a copy holds its own values
+        assert again == mapping and pickle.loads(pickle.dumps(mapping)) == mapping
+        assert len(pickle.dumps(mapping)) < 300
+    assert ours[0] != ours[1] and ours[0] != {**ours[0], "study": "other"}
+    kept = read_only_conditions(ours)  # a figure made of them shares them, no copy
+    assert all(k is m for k, m in zip(kept, ours, strict=True))
+    try:
+        hash(ours[0])
+    except TypeError:
+        pass
+    else:
+        raise AssertionError("a conditions mapping is unhashable, as a dict")
+    shared = {id(m._columns) for m in ours}  # the rows missing lo_power_dbm, and the rest
+    assert len(shared) == 2
+    held = dict(zip(ours[1]._columns.names, ours[1]._columns._at.values(), strict=True))
+    assert held["temperature_c"][0].size == 3 and held["temperature_c"][1].itemsize == 1
+    assert held["supply_v"][0].size == 2 and held["study"][0].size == 2
+    assert held["rf_freq_hz"][1] is None
 
 
 @settings(max_examples=150, deadline=None)
