@@ -100,6 +100,19 @@ def test_bad_tables_raise_input_errors():
     assert compression_figures(_captures(), study="no such study") == []
 
 
+def test_the_output_frequency_column_is_read_as_numbers() -> None:
+    """``output_freq_hz`` (a loaded run's captures hold it) is a number column like the
+    other frequencies: read as floats, and text there refused naming it."""
+    df = _captures()
+    df["output_freq_hz"] = np.linspace(100e6, 200e6, len(df))
+    cols = column_arrays(df, study=str(df["study"].iloc[0]))
+    assert cols["output_freq_hz"].dtype == np.float64
+    assert np.array_equal(cols["output_freq_hz"],
+                          df.loc[df["study"] == df["study"].iloc[0], "output_freq_hz"])
+    with pytest.raises(InputError, match=r"'output_freq_hz' holds .* values, not numbers"):
+        column_arrays(df.assign(output_freq_hz="100 MHz"))
+
+
 def test_own_column_name_wins_over_an_alias():
     df = _captures().assign(name="something else")
     assert point_table(df)["if_present"].all()
