@@ -171,67 +171,124 @@ def column_arrays(
     ``study`` keeps only the rows of that study (or those studies). Raises
     :class:`~sweeprig.errors.InputError` naming the missing or mistyped column.
     """
-    import pandas as pd
+    columns = CaptureColumns(captures, where=where, study=study)
+    return {col: columns[col] for col in columns}
 
-    if not isinstance(captures, pd.DataFrame):
-        raise InputError(
-            f"expected a pandas DataFrame of captures, got {type(captures).__name__}",
-            where=where,
-            fix="pass the readings table of a run (one row per reading)",
-        )
-    names: dict[str, object] = {}
-    for column in captures.columns:
-        key = COLUMN_ALIASES.get(str(column), str(column))
-        if key not in names or str(column) == key:  # our own spelling wins over an alias
-            names[key] = column
-    missing = [c for c in _REQUIRED if c not in names]
-    if missing:
-        raise InputError(
-            f"the capture table has no column {', '.join(repr(c) for c in missing)}",
-            where=where,
-            fix="capture tables need the columns " + ", ".join(_REQUIRED),
-        )
-    rows: np.ndarray | slice = slice(None)
-    count = len(captures)
-    if study is not None:
-        wanted = [study] if isinstance(study, str) else list(study)
-        rows = captures[names[STUDY]].isin(wanted).to_numpy(dtype=bool)
-        count = int(rows.sum())
-    out: dict[str, np.ndarray] = {}
-    for col in (*_REQUIRED, *_OPTIONAL_FLOAT, *_OPTIONAL_BOOL, *_OPTIONAL_OBJECT):
-        if col not in names:
+
+#: Every column of :func:`column_arrays`, in its order.
+_ALL_COLUMNS = (*_REQUIRED, *_OPTIONAL_FLOAT, *_OPTIONAL_BOOL, *_OPTIONAL_OBJECT)
+
+
+class CaptureColumns(Mapping[str, np.ndarray]):
+    """The arrays of :func:`column_arrays`, the table checked at once (the same errors), each
+    column converted when first asked for and kept; :meth:`take` reads one at some rows
+    without keeping it. A point table needs a few columns whole and the rest at one row a
+    point: converting every column of a large run's study first held several times the
+    table it made."""
+
+    def __init__(self, captures: pd.DataFrame, *, where: str = "captures",
+                 study: str | Sequence[str] | None = None) -> None:
+        import pandas as pd
+
+        if not isinstance(captures, pd.DataFrame):
+            raise InputError(
+                f"expected a pandas DataFrame of captures, got {type(captures).__name__}",
+                where=where,
+                fix="pass the readings table of a run (one row per reading)",
+            )
+        names: dict[str, object] = {}
+        for column in captures.columns:
+            key = COLUMN_ALIASES.get(str(column), str(column))
+            if key not in names or str(column) == key:  # our own spelling wins over an alias
+                names[key] = column
+        missing = [c for c in _REQUIRED if c not in names]
+        if missing:
+            raise InputError(
+                f"the capture table has no column {', '.join(repr(c) for c in missing)}",
+                where=where,
+                fix="capture tables need the columns " + ", ".join(_REQUIRED),
+            )
+        types = pd.api.types
+        for col in _ALL_COLUMNS:
+            if col in names and (col in _NUMERIC or col == POINT):
+                series = captures[names[col]]
+                if not types.is_numeric_dtype(series) or types.is_bool_dtype(series):
+                    raise InputError(
+                        f"column {col!r} holds {series.dtype} values, not numbers",
+                        where=where,
+                        fix=f"store {col!r} as numbers in SI units (see "
+                            "sweeprig.analysis.captures)",
+                    )
+        self._captures, self._names = captures, names
+        self._rows: np.ndarray | slice = slice(None)
+        self._count = len(captures)
+        self._study = study is not None
+        if study is not None:
+            wanted = [study] if isinstance(study, str) else list(study)
+            self._rows = captures[names[STUDY]].isin(wanted).to_numpy(dtype=bool)
+            self._count = int(self._rows.sum())
+        self._kept: dict[str, np.ndarray] = {}
+        point = self._converted(POINT)
+        if np.isnan(point).any():
+            raise InputError(
+                "column 'point' has empty values",
+                where=where,
+                fix="every reading must carry the index of the point it belongs to",
+            )
+        self._kept[POINT] = point.astype(np.int64)
+
+    def __getitem__(self, col: str) -> np.ndarray:
+        kept = self._kept.get(col)
+        if kept is None:
+            if col not in _ALL_COLUMNS:
+                raise KeyError(col)
+            kept = self._kept[col] = self._converted(col)
+        return kept
+
+    def __iter__(self) -> Iterator[str]:
+        return iter(_ALL_COLUMNS)
+
+    def __len__(self) -> int:
+        return len(_ALL_COLUMNS)
+
+    def __contains__(self, col: object) -> bool:
+        return col in _ALL_COLUMNS
+
+    def unkept(self, col: str) -> np.ndarray:
+        """Column ``col``, converted for the caller alone when not kept already."""
+        kept = self._kept.get(col)
+        if kept is not None:
+            return kept
+        if col not in _ALL_COLUMNS:
+            raise KeyError(col)
+        return self._converted(col)
+
+    def _converted(self, col: str) -> np.ndarray:
+        import pandas as pd
+
+        count, rows = self._count, self._rows
+        if col not in self._names:
             if col in _OPTIONAL_BOOL:
-                out[col] = np.zeros(count, dtype=bool)
-            elif col in _OPTIONAL_OBJECT:
-                out[col] = np.full(count, None, dtype=object)
-            else:
-                out[col] = np.full(count, np.nan)
-            continue
-        series = captures[names[col]]
+                return np.zeros(count, dtype=bool)
+            if col in _OPTIONAL_OBJECT:
+                return np.full(count, None, dtype=object)
+            return np.full(count, np.nan)
+        series = self._captures[self._names[col]]
         if col in _NUMERIC or col == POINT:
-            types = pd.api.types
-            if not types.is_numeric_dtype(series) or types.is_bool_dtype(series):
-                raise InputError(
-                    f"column {col!r} holds {series.dtype} values, not numbers",
-                    where=where,
-                    fix=f"store {col!r} as numbers in SI units (see sweeprig.analysis.captures)",
-                )
-            values = series.to_numpy(dtype=float, na_value=np.nan)[rows]
-            out[col] = values
-        elif col in _OPTIONAL_BOOL:
-            out[col] = series.fillna(False).to_numpy(dtype=bool)[rows]
-        else:
-            codes, uniques = pd.factorize(series[rows] if study is not None else series)
-            labels = np.append(np.asarray(uniques, dtype=object), None)
-            out[col] = labels[codes]  # code -1 (missing) → None
-    if np.isnan(out[POINT]).any():
-        raise InputError(
-            "column 'point' has empty values",
-            where=where,
-            fix="every reading must carry the index of the point it belongs to",
-        )
-    out[POINT] = out[POINT].astype(np.int64)
-    return out
+            return series.to_numpy(dtype=float, na_value=np.nan)[rows]
+        if col in _OPTIONAL_BOOL:
+            return series.fillna(False).to_numpy(dtype=bool)[rows]
+        codes, uniques = pd.factorize(series[rows] if self._study else series)
+        labels = np.append(np.asarray(uniques, dtype=object), None)
+        return labels[codes]  # code -1 (missing) → None
+
+
+def unkept(cols: Mapping[str, np.ndarray], col: str) -> np.ndarray:
+    """Column ``col`` of checked capture arrays (of a :class:`CaptureColumns`: converted
+    for the caller alone, let go with the caller's reference)."""
+    if isinstance(cols, CaptureColumns):
+        return cols.unkept(col)
+    return np.asarray(cols[col])
 
 
 def line_spacing_hz(cols: Mapping[str, np.ndarray]) -> np.ndarray:
@@ -347,21 +404,21 @@ def _point_table(
 ) -> pd.DataFrame:
     import pandas as pd
 
-    cols = (
+    cols: Mapping[str, np.ndarray] = (
         dict(captures)
         if isinstance(captures, Mapping)
-        else column_arrays(captures, where=where, study=study)
+        else CaptureColumns(captures, where=where, study=study)
     )
     point = cols[POINT]
     codes, uniques = pd.factorize(point, sort=True)
     n_points = len(uniques)
     _, first_row = np.unique(codes, return_index=True)  # first row of every point
     table: dict[str, np.ndarray] = {POINT: np.asarray(uniques, dtype=np.int64)}
-    table[STUDY] = cols[STUDY][first_row]
+    table[STUDY] = unkept(cols, STUDY)[first_row]
     for col in CONDITION_COLUMNS:
-        table[col] = cols[col][first_row]
+        table[col] = unkept(cols, col)[first_row]
     if OUTPUT_FREQ in cols:
-        table[OUTPUT_FREQ] = np.asarray(cols[OUTPUT_FREQ], dtype=float)[first_row]
+        table[OUTPUT_FREQ] = np.asarray(unkept(cols, OUTPUT_FREQ), dtype=float)[first_row]
     reading_codes, reading_names = pd.factorize(cols[READING])
     name_to_code = {str(name): i for i, name in enumerate(reading_names)}
     atten = cols[ATTEN_CHECK]
@@ -369,6 +426,9 @@ def _point_table(
     spacing = (line_spacing_hz(cols) if np.isfinite(cols[RBW]).any()
                else np.full(point.size, np.inf))
     wanted = list(dict.fromkeys([CARRIER, *readings]))
+    # the columns read at one row a reading and point: held only while the table is made
+    level, floor, overload = (unkept(cols, c) for c in (LEVEL, NOISE_FLOOR, OVERLOAD_COL))
+    value, risks = unkept(cols, VALUE), unkept(cols, RISKS)
     for name in wanted:
         code = name_to_code.get(name)
         is_name = reading_codes == code if code is not None else np.zeros(codes.size, bool)
@@ -379,16 +439,16 @@ def _point_table(
             present = last >= 0
             take = rows[np.where(present, last, 0)] if rows.size else np.zeros_like(last)
             prefix = f"{name}_atten_" if repeat else f"{name}_"
-            table[prefix + "level_dbm"] = np.where(present, cols[LEVEL][take], np.nan)
-            table[prefix + "noise_floor_dbm"] = np.where(present, cols[NOISE_FLOOR][take], np.nan)
-            table[prefix + "overload"] = present & cols[OVERLOAD_COL][take]
+            table[prefix + "level_dbm"] = np.where(present, level[take], np.nan)
+            table[prefix + "noise_floor_dbm"] = np.where(present, floor[take], np.nan)
+            table[prefix + "overload"] = present & overload[take]
             if not repeat:
                 table[prefix + "present"] = present
                 table[prefix + "freq_hz"] = np.where(present, cols[FREQ][take], np.nan)
-                table[prefix + "value"] = np.where(present, cols[VALUE][take], np.nan)
+                table[prefix + "value"] = np.where(present, value[take], np.nan)
                 table[prefix + "rbw_hz"] = np.where(present, cols[RBW][take], np.nan)
                 table[prefix + "spacing_hz"] = np.where(present, spacing[take], np.inf)
-                table[prefix + "risks"] = np.where(present, cols[RISKS][take], None)
+                table[prefix + "risks"] = np.where(present, risks[take], None)
     for name in wanted:
         table[f"{name}_flags"] = reading_flags(table, name)
     return pd.DataFrame(table)

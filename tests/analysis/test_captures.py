@@ -100,6 +100,30 @@ def test_bad_tables_raise_input_errors():
     assert compression_figures(_captures(), study="no such study") == []
 
 
+def test_a_point_table_converts_few_columns_whole_and_reads_the_same() -> None:
+    """point_table of a capture table reads its columns through CaptureColumns: the checks
+    at once, a column converted when asked (kept: ``[]``, not kept: ``unkept``); the table
+    the same as one made of every column converted first (column_arrays)."""
+    from sweeprig.analysis.captures import CaptureColumns
+
+    df = pd.concat([_captures(), _captures().assign(study="other", point=lambda d: d.point + 9)],
+                   ignore_index=True)
+    df["risks"] = np.where(df["reading"] == "im3_low", "noise", None)
+    for study in (None, "other", ["other", str(_captures()["study"].iloc[0])]):
+        ours = point_table(df, ("if", "im3_low"), study=study)
+        every = point_table(column_arrays(df, study=study), ("if", "im3_low"))
+        pd.testing.assert_frame_equal(ours, every)
+        assert len(ours) == (6 if study is None or isinstance(study, list) else 3)
+    columns = CaptureColumns(df, study="other")
+    assert list(columns._kept) == ["point"] and "rbw_hz" in columns and "nothing" not in columns
+    level = columns.unkept("level_dbm")
+    assert list(columns._kept) == ["point"] and level.size == 7
+    assert columns["freq_hz"] is columns["freq_hz"] and "freq_hz" in columns._kept
+    assert dict(columns).keys() == column_arrays(df).keys()
+    with pytest.raises(KeyError):
+        columns.unkept("nothing")
+
+
 def test_the_output_frequency_column_is_read_as_numbers() -> None:
     """``output_freq_hz`` (a loaded run's captures hold it) is a number column like the
     other frequencies: read as floats, and text there refused naming it."""
