@@ -48,6 +48,24 @@ def test_plot_text_is_drawn_unhinted_and_the_users_settings_are_left_alone(
     assert matplotlib.rcParams["text.hinting"] == before
 
 
+def test_every_drawn_figure_is_let_go_while_the_collector_is_paused(report_run):
+    """all_plots collects each plot's figure (reference cycles holding its pixel buffer)
+    when it is drawn: while a large report's tables are fed to their helper the cyclic
+    collector is paused (sweeprig.report.table_writing), and no figure may stay until the
+    end."""
+    import gc
+
+    from matplotlib.figure import Figure
+
+    from sweeprig.analysis.figures import collector_paused
+
+    gc.collect()
+    with collector_paused():
+        plots = all_plots(report_run)
+        left = [o for o in gc.get_objects() if isinstance(o, Figure)]
+    assert len(plots) >= 3 and left == []
+
+
 def test_a_run_without_studies_draws_nothing(report_run):
     assert all_plots(dataclasses.replace(report_run, studies=())) == []
 
