@@ -268,6 +268,21 @@ text and the Parquet pages), and the reduction is the report process alone for 4
 Then one malloc arena for the report's threads (d250eb7): as this benchmark prints it
 (load 2.2), 8.9, 9.1, 9.2 s (median 9.1), 557 to 561 MB (its peak now the reduction's
 end) + 240 MB; processor time 8.3 + 7.1 = 15.4 s (at best 7.7 s on two cores).
+
+Then memory (this machine read 27 to 30 ns a loop step that day, against 51 the day before:
+its absolute times are not comparable with those above). The conditions mappings made
+ConditionRow objects reading shared columns (48 bytes a row instead of a dict of 340 to 540
+bytes; 90315de): the 100k store, two interleaved pairs, 565 -> 509 to 517 MB, time the same
+within the noise; 1M, one run each, 3,815 -> 3,355 MB. Point tables converting only the
+columns they need whole (74d7181): the point table of a plot 58 -> 43 MiB at its peak
+(tracemalloc), 1M 3,355 -> 3,302 MB. Each plot's figure collected when drawn (2ecab95: the
+collector is paused while the tables are fed to the helper, and every drawn figure stayed
+in memory to the end): three interleaved pairs, 509, 517, 510 -> 493, 495, 490 MB. As this
+benchmark printed it then (load 2.1): 7.0, 7.1, 7.2 s (median 7.1), 494, 503 and 491 MB
+(the median run's 503 printed: MISSED by 3 MB; its stages' peaks now lie within about
+10 MB of each other: the figures JSON's streams, the plots, the datasheet's groups, the
+end of the reduction) + 242 MB. 1M points, one run on a quiet machine: 59.5 s (reduce
+35.3, files 24.2 of which 9.1 waiting), 3,260 MB + 265 MB.
 """
 
 from __future__ import annotations
