@@ -341,21 +341,31 @@ def risk_mask(risks: np.ndarray, name: str) -> np.ndarray:
     return padded.str.contains("," + name + ",", regex=False).to_numpy(dtype=bool)
 
 
-#: The point tables made within :func:`point_tables_shared` (None outside it): per capture
-#: table (by identity), readings and study, the table and the capture table it was made of.
+#: Within :func:`point_tables_shared` (None outside it): per table named there (readings
+#: and study, :func:`_shared_key`), the capture table it was made of and the table (None:
+#: not made yet).
 _SHARED_POINT_TABLES: contextvars.ContextVar[
-    dict[tuple[object, ...], tuple[object, pd.DataFrame]] | None] = contextvars.ContextVar(
-        "sweeprig_point_tables", default=None)
+    dict[tuple[object, ...], tuple[object, pd.DataFrame] | None] | None] = \
+    contextvars.ContextVar("sweeprig_point_tables", default=None)
+
+
+def _shared_key(readings: Sequence[str], study: str | Sequence[str] | None
+                ) -> tuple[object, ...]:
+    return (tuple(readings), study if study is None or isinstance(study, str) else tuple(study))
 
 
 @contextlib.contextmanager
-def point_tables_shared() -> Iterator[None]:
-    """Within the block, :func:`point_table` of one capture table (the same object), the
-    same readings and the same study is made once and given again (a copy: its user may add
-    columns). The reduction asks for the whole run's ``if`` table twice (the unpowered
-    check and the image rejection's reference gain): 0.17 s at 100k points, about 1.7 s
-    at 1M. Only for a block over which the capture table does not change."""
-    token = _SHARED_POINT_TABLES.set({})
+def point_tables_shared(*tables: tuple[Sequence[str], str | Sequence[str] | None]
+                        ) -> Iterator[None]:
+    """Within the block, :func:`point_table` of one capture table (the same object) and
+    one of ``tables`` (its readings and study, as asked) is made once and given again (a
+    copy: its user may add columns); any other table is made each time it is asked. The
+    reduction asks for the whole run's ``if`` table twice (the unpowered check and the image
+    rejection's reference gain): 0.17 s at 100k points, about 1.7 s at 1M. A table kept is
+    held to the block's end, so only those asked again are named (keeping every table a
+    reduction made held 66 MiB to its end at 100k points, 49 of them never asked again).
+    Only for a block over which the capture table does not change."""
+    token = _SHARED_POINT_TABLES.set({_shared_key(r, s): None for r, s in tables})
     try:
         yield
     finally:
@@ -380,15 +390,14 @@ def point_table(
     The ``if`` columns are always there (the ``if`` reading is the carrier of the
     attenuation test). Rows are sorted by point index. ``captures`` may also be the arrays
     of :func:`column_arrays` (already checked and filtered; ``study`` is then not applied).
-    Within :func:`point_tables_shared`, a table made before of the same capture table is
-    given again.
+    Within :func:`point_tables_shared`, a table it names made before of the same capture
+    table is given again.
     """
     shared = _SHARED_POINT_TABLES.get()
-    if shared is None or isinstance(captures, Mapping):
+    key = _shared_key(readings, study)
+    if shared is None or isinstance(captures, Mapping) or key not in shared:
         return _point_table(captures, readings, study=study, where=where)
-    key = (id(captures), tuple(readings),
-           study if study is None or isinstance(study, str) else tuple(study))
-    made = shared.get(key)
+    made = shared[key]
     if made is None or made[0] is not captures:
         made = shared[key] = (captures, _point_table(captures, readings, study=study,
                                                      where=where))

@@ -281,7 +281,9 @@ def reduce_loaded(loaded: LoadedRun) -> RunFigures:
     # lines): the cyclic collector would rescan them all again and again.
     from sweeprig.analysis.captures import conditions_noted, point_tables_shared
 
-    with collector_paused(), point_tables_shared(), conditions_noted() as made:
+    # (the whole run's ``if`` table: the unpowered check and the image rejection's reference)
+    with collector_paused(), point_tables_shared((("if",), None)), \
+            conditions_noted() as made:
         run = _reduce_loaded(loaded)
     run.made_conditions.extend(made)
     return run

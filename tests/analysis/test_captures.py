@@ -231,10 +231,10 @@ def test_condition_mappings_of_rows_missing_different_keys(data: st.DataObject,
 
 def test_shared_point_tables_are_made_once_per_capture_table_readings_and_study(
         monkeypatch) -> None:
-    """Within ``point_tables_shared`` a table asked again of the same capture table (the
-    same object), readings and study is given again: equal to a new one, a copy its user may
-    change; another capture table, other readings or another study, or outside the block:
-    made anew."""
+    """Within ``point_tables_shared`` a table it names asked again of the same capture
+    table (the same object), readings and study is given again: equal to a new one, a copy
+    its user may change; another capture table, other readings or another study, a table it
+    does not name, or outside the block: made anew (and not kept)."""
     from sweeprig.analysis import captures as module
 
     made: list[tuple[str, ...]] = []
@@ -248,15 +248,21 @@ def test_shared_point_tables_are_made_once_per_capture_table_readings_and_study(
     captures = _captures()
     fresh = point_table(captures, ("im3_low",))
     assert len(made) == 1
-    with module.point_tables_shared():
+    with module.point_tables_shared((("im3_low",), None), (("if",), ["gain", "x"])):
         first = point_table(captures, ("im3_low",), where="one analysis")
         first["added"] = 1.0  # (a user's own column)
         again = point_table(captures, ["im3_low"], where="another")
         assert len(made) == 2
         pd.testing.assert_frame_equal(again, fresh)
+        point_table(captures, ("if",))  # not named: made each time
         point_table(captures, ("if",))
         point_table(captures, ("im3_low",), study="gain")
         point_table(captures.copy(), ("im3_low",))
-        assert len(made) == 5
+        assert len(made) == 6
+        point_table(captures, ("if",), study=("gain", "x"))
+        point_table(captures, ("if",), study=["gain", "x"])
+        assert len(made) == 7
+        held = module._SHARED_POINT_TABLES.get()
+        assert held is not None and sum(t is not None for t in held.values()) == 2
     point_table(captures, ("im3_low",))
-    assert len(made) == 6
+    assert len(made) == 8
