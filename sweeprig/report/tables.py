@@ -695,7 +695,7 @@ def _judgement_entries(run: RunFigures, limit_index: Mapping[int, int]) -> Itera
 
 
 #: Judgements of a block made into JSON entries at a time with pyarrow (a few MB of text).
-_ENTRY_SLICE = 1 << 16
+_ENTRY_SLICE = 1 << 14
 
 
 def _block_entries(part: JudgedBlock, limit: int) -> Iterator[str]:
