@@ -282,7 +282,14 @@ benchmark printed it then (load 2.1): 7.0, 7.1, 7.2 s (median 7.1), 494, 503 and
 (the median run's 503 printed: MISSED by 3 MB; its stages' peaks now lie within about
 10 MB of each other: the figures JSON's streams, the plots, the datasheet's groups, the
 end of the reduction) + 242 MB. 1M points, one run on a quiet machine: 59.5 s (reduce
-35.3, files 24.2 of which 9.1 waiting), 3,260 MB + 265 MB.
+35.3, files 24.2 of which 9.1 waiting), 3,260 MB + 265 MB. Then the reduction keeping only
+the point table asked twice (it kept all seven it made, 66 MiB at 100k, to its end; ad1c388)
+and the figures JSON's judgement entries made 16k at a time (3580ac1): the reduction's peak
+at 100k 481-489 -> 447-474 MB (three interleaved pairs). As this benchmark printed it, two
+runs of it (load 1.8 to 2.2): 7.2, 7.7, 8.0 s with 485, 487, 486 MB, then 7.3, 7.3, 7.7 s
+with 492, 489, 489 MB (median 7.7 and 7.3 s; 487 and 489 MB: met) + 238 to 243 MB. 1M points,
+one run: 66.3 s (reduce 39.7, files 26.6 of which 10.2 waiting; the machine noisier than
+for the 59.5 s above), 3,254 MB (the reduction's own 2,957 MB) + 266 MB.
 """
 
 from __future__ import annotations
