@@ -181,10 +181,10 @@ _ALL_COLUMNS = (*_REQUIRED, *_OPTIONAL_FLOAT, *_OPTIONAL_BOOL, *_OPTIONAL_OBJECT
 
 class CaptureColumns(Mapping[str, np.ndarray]):
     """The arrays of :func:`column_arrays`, the table checked at once (the same errors), each
-    column converted when first asked for and kept; :meth:`take` reads one at some rows
-    without keeping it. A point table needs a few columns whole and the rest at one row a
-    point: converting every column of a large run's study first held several times the
-    table it made."""
+    column converted when first asked for and kept; :meth:`unkept` converts one for its
+    caller alone. A point table needs a few columns whole and the rest at one row a point:
+    converting every column of a large run's study first held several times the table it
+    made."""
 
     def __init__(self, captures: pd.DataFrame, *, where: str = "captures",
                  study: str | Sequence[str] | None = None) -> None:
@@ -607,14 +607,14 @@ def conditions_records(
     names = [k for k, _ in kept]
     columns = [_held_column(values) for _, values in kept]
     if not any(a.any() for a in absent):
-        out = ConditionColumns(names, columns).rows(range(rows.size))
-        return _noted(out, names, columns, absent)
+        return _noted(ConditionColumns(names, columns).rows(range(rows.size)), names, columns,
+                      absent)
     # rows that lack some keys: each set of present keys (a few per table) reads its own
     # names of the same columns
     pattern = np.zeros(rows.size, dtype=np.int64)
     for bit, missing in enumerate(absent):
         pattern |= missing.astype(np.int64) << bit
-    out = [None] * rows.size  # type: ignore[list-item]
+    out: list[Mapping[str, float | str]] = [None] * rows.size  # type: ignore[list-item]
     for code in np.unique(pattern).tolist():
         at = np.flatnonzero(pattern == code).tolist()
         present = [j for j in range(len(names)) if not code >> j & 1]
