@@ -263,6 +263,19 @@ class CaptureColumns(Mapping[str, np.ndarray]):
             raise KeyError(col)
         return self._converted(col)
 
+    def factorized(self, col: str) -> tuple[np.ndarray, np.ndarray]:
+        """``pandas.factorize`` of column ``col`` (the table's own codes for a text column
+        not converted yet: no Python object a row)."""
+        import pandas as pd
+
+        kept = self._kept.get(col)
+        if kept is not None or col not in (*_OPTIONAL_OBJECT, STUDY, READING) \
+                or col not in self._names:
+            return pd.factorize(pd.Series(self[col] if kept is None else kept, dtype=object))
+        series = self._captures[self._names[col]]
+        codes, uniques = pd.factorize(series[self._rows] if self._study else series)
+        return codes, np.asarray(uniques, dtype=object)
+
     def _converted(self, col: str) -> np.ndarray:
         import pandas as pd
 
@@ -283,6 +296,35 @@ class CaptureColumns(Mapping[str, np.ndarray]):
         return labels[codes]  # code -1 (missing) → None
 
 
+def factorized(cols: Mapping[str, np.ndarray], col: str) -> tuple[np.ndarray, np.ndarray]:
+    """``pandas.factorize`` of column ``col`` of checked capture arrays: each row's code
+    (-1: missing) and the distinct values (of a :class:`CaptureColumns`' text column read
+    from the table's own codes, without a Python object a row)."""
+    import pandas as pd
+
+    if isinstance(cols, CaptureColumns):
+        return cols.factorized(col)
+    return pd.factorize(pd.Series(np.asarray(cols[col]), dtype=object))
+
+
+def _point_codes(point: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Each row's code among the distinct points, the distinct points (ascending) and the
+    first row of each: rows in point order (a capture table's, as loaded) in one pass,
+    others sorted."""
+    import pandas as pd
+
+    point = np.asarray(point)
+    if point.size and bool((point[1:] >= point[:-1]).all()):
+        new = np.empty(point.size, dtype=bool)
+        new[0] = True
+        np.not_equal(point[1:], point[:-1], out=new[1:])
+        first_row = np.flatnonzero(new)
+        return np.cumsum(new) - 1, point[first_row], first_row
+    codes, uniques = pd.factorize(point, sort=True)
+    _, first_row = np.unique(codes, return_index=True)
+    return codes, np.asarray(uniques), first_row
+
+
 def unkept(cols: Mapping[str, np.ndarray], col: str) -> np.ndarray:
     """Column ``col`` of checked capture arrays (of a :class:`CaptureColumns`: converted
     for the caller alone, let go with the caller's reference)."""
@@ -300,12 +342,10 @@ def line_spacing_hz(cols: Mapping[str, np.ndarray]) -> np.ndarray:
     |f_RF2 − f_RF1|: the two output tones and every intermodulation product of the pair sit
     that far from their nearest neighbour.
     """
-    import pandas as pd
 
     point = np.asarray(cols[POINT], dtype=np.int64)
     freq = np.asarray(cols[FREQ], dtype=float)
-    ports = cols.get(PORT)
-    port_codes = (pd.factorize(pd.Series(ports, dtype=object))[0] if ports is not None
+    port_codes = (factorized(cols, PORT)[0] if PORT in cols
                   else np.zeros(point.size, dtype=np.int64))
     out = np.full(point.size, np.inf)
     rows = np.flatnonzero(np.isfinite(freq))
@@ -419,16 +459,15 @@ def _point_table(
         else CaptureColumns(captures, where=where, study=study)
     )
     point = cols[POINT]
-    codes, uniques = pd.factorize(point, sort=True)
+    codes, uniques, first_row = _point_codes(point)
     n_points = len(uniques)
-    _, first_row = np.unique(codes, return_index=True)  # first row of every point
     table: dict[str, np.ndarray] = {POINT: np.asarray(uniques, dtype=np.int64)}
     table[STUDY] = unkept(cols, STUDY)[first_row]
     for col in CONDITION_COLUMNS:
         table[col] = unkept(cols, col)[first_row]
     if OUTPUT_FREQ in cols:
         table[OUTPUT_FREQ] = np.asarray(unkept(cols, OUTPUT_FREQ), dtype=float)[first_row]
-    reading_codes, reading_names = pd.factorize(cols[READING])
+    reading_codes, reading_names = factorized(cols, READING)
     name_to_code = {str(name): i for i, name in enumerate(reading_names)}
     atten = cols[ATTEN_CHECK]
     # the RBW check needs a stored RBW: skip the spacing search on tables without one

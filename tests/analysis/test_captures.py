@@ -124,6 +124,32 @@ def test_a_point_table_converts_few_columns_whole_and_reads_the_same() -> None:
         columns.unkept("nothing")
 
 
+def test_point_codes_and_text_codes_read_without_a_python_object_a_row() -> None:
+    """A point table's per-row point codes: in one pass when the rows are in point order
+    (as a loaded capture table's are), the same as the sorted factorization of any order;
+    a text column's codes taken from the table's own: the same as factorizing its values."""
+    from sweeprig.analysis.captures import CaptureColumns, _point_codes, factorized
+
+    rng = np.random.default_rng(5)
+    for points in (np.sort(rng.integers(0, 40, 300)), rng.integers(0, 40, 300),
+                   np.array([3, 3, 7]), np.array([7, 3, 3]), np.zeros(0, dtype=np.int64)):
+        codes, uniques = pd.factorize(points, sort=True)
+        _, first = np.unique(codes, return_index=True)
+        ours = _point_codes(points)
+        for got, expected in zip(ours, (codes, uniques, first), strict=True):
+            assert np.array_equal(got, expected)
+    df = _captures()
+    df["port"] = pd.Categorical(np.where(np.arange(len(df)) % 3 == 0, "rf", None))
+    for study in (None, str(df["study"].iloc[0])):
+        columns = CaptureColumns(df, study=study)
+        for col in ("reading", "port", "study", "risks"):
+            codes, uniques = factorized(columns, col)
+            expected = pd.factorize(pd.Series(column_arrays(df, study=study)[col],
+                                              dtype=object))
+            assert np.array_equal(codes, expected[0]) and list(uniques) == list(expected[1])
+        assert "reading" not in columns._kept and "port" not in columns._kept
+
+
 def test_the_output_frequency_column_is_read_as_numbers() -> None:
     """``output_freq_hz`` (a loaded run's captures hold it) is a number column like the
     other frequencies: read as floats, and text there refused naming it."""
