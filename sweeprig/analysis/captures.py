@@ -772,7 +772,21 @@ def _last_row_per_code(codes: np.ndarray, n_codes: int) -> np.ndarray:
     """For each code 0..n_codes-1, the position of its last occurrence in ``codes`` (or -1)."""
     out = np.full(n_codes, -1, dtype=np.int64)
     if codes.size:
-        reversed_codes = codes[::-1]
-        uniq, first_in_reversed = np.unique(reversed_codes, return_index=True)
-        out[uniq] = codes.size - 1 - first_in_reversed
+        distinct, last = last_rows(codes)
+        out[distinct] = last
     return out
+
+
+def last_rows(keys: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The distinct values of ``keys`` (ascending) and the position of the last occurrence
+    of each: in one pass when ``keys`` never decrease (a loaded capture table's points, and
+    codes taken from them in order), else by ``numpy.unique``."""
+    keys = np.asarray(keys)
+    if keys.size and bool((keys[1:] >= keys[:-1]).all()):
+        ends = np.empty(keys.size, dtype=bool)
+        ends[-1] = True
+        np.not_equal(keys[1:], keys[:-1], out=ends[:-1])
+        last = np.flatnonzero(ends)
+        return keys[last], last
+    distinct, first_in_reversed = np.unique(keys[::-1], return_index=True)
+    return distinct, keys.size - 1 - first_in_reversed

@@ -852,8 +852,12 @@ def _wall_duration(created: datetime, finished: datetime | None,
 
 
 def _distinct(series: pd.Series) -> tuple[float, ...]:
+    """The distinct finite values, ascending (hashed first: a column of a large run's
+    readings holds a few values millions of times, which a sort of all of them pays for)."""
+    import pandas as pd
+
     values = series.to_numpy(dtype=float, na_value=np.nan)
-    return tuple(float(v) for v in np.unique(values[np.isfinite(values)]))
+    return tuple(float(v) for v in np.unique(pd.unique(values[np.isfinite(values)])))
 
 
 def _conditions(captures: pd.DataFrame) -> Mapping[str, tuple[float, ...]]:

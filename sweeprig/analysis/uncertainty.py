@@ -467,9 +467,10 @@ class PointLevels:
         usable = np.isfinite(averages) & (averages >= 1.0)
         self._averages = np.where(usable, averages, 1.0).astype(np.int64)  # int(): truncated
         # the input power of each point: its last row's
-        last = self._point[::-1]
-        self._input_at, first = np.unique(last, return_index=True)
-        self._input = np.zeros(0) if empty else floats("rf_power_dbm")[::-1][first]
+        from sweeprig.analysis.captures import last_rows
+
+        self._input_at, last = last_rows(self._point)
+        self._input = np.zeros(0) if empty else floats("rf_power_dbm")[last]
         if empty:
             return
         reading = captures["reading"] if keep is None else captures["reading"][keep]

@@ -128,7 +128,7 @@ def test_point_codes_and_text_codes_read_without_a_python_object_a_row() -> None
     """A point table's per-row point codes: in one pass when the rows are in point order
     (as a loaded capture table's are), the same as the sorted factorization of any order;
     a text column's codes taken from the table's own: the same as factorizing its values."""
-    from sweeprig.analysis.captures import CaptureColumns, _point_codes, factorized
+    from sweeprig.analysis.captures import CaptureColumns, _point_codes, factorized, last_rows
 
     rng = np.random.default_rng(5)
     for points in (np.sort(rng.integers(0, 40, 300)), rng.integers(0, 40, 300),
@@ -138,6 +138,10 @@ def test_point_codes_and_text_codes_read_without_a_python_object_a_row() -> None
         ours = _point_codes(points)
         for got, expected in zip(ours, (codes, uniques, first), strict=True):
             assert np.array_equal(got, expected)
+        distinct, first_reversed = np.unique(points[::-1], return_index=True)
+        got_distinct, got_last = last_rows(points)
+        assert np.array_equal(got_distinct, distinct)
+        assert np.array_equal(got_last, points.size - 1 - first_reversed)
     df = _captures()
     df["port"] = pd.Categorical(np.where(np.arange(len(df)) % 3 == 0, "rf", None))
     for study in (None, str(df["study"].iloc[0])):
