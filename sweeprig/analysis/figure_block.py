@@ -249,8 +249,7 @@ def block_of(figures: Sequence[Figure]) -> FigureBlock:
     from sweeprig.analysis.figure_table import flag_masks
 
     first = figures[0]
-    conditions = np.empty(len(figures), dtype=object)
-    conditions[:] = [f.conditions for f in figures]
+    conditions = conditions_column(figures)
     return FigureBlock(
         first.name, first.unit,
         np.array([f.value for f in figures], dtype=float),
@@ -284,6 +283,13 @@ def flag_marked_parts(parts: Sequence[Part], marks: Sequence[tuple[str, Iterable
     return out
 
 
+def conditions_column(figures: Sequence[Figure]) -> np.ndarray:
+    """The figures' conditions mappings as an object array (filled by ``numpy.fromiter``:
+    assigning a list of mappings to an object array first asks each whether it is a
+    sequence, several times slower)."""
+    return np.fromiter((f.conditions for f in figures), dtype=object, count=len(figures))
+
+
 def part_conditions(parts: Sequence[Part]) -> np.ndarray:
     """Every figure's conditions mapping, in order (object array)."""
     pieces = []
@@ -291,9 +297,7 @@ def part_conditions(parts: Sequence[Part]) -> np.ndarray:
         if isinstance(part, FigureBlock):
             pieces.append(part.conditions)
         else:
-            column = np.empty(len(part), dtype=object)
-            column[:] = [f.conditions for f in part]
-            pieces.append(column)
+            pieces.append(conditions_column(part))
     return np.concatenate(pieces) if pieces else np.empty(0, dtype=object)
 
 
@@ -336,9 +340,7 @@ def named_columns(figures: Figures, names: Iterable[str]
             some = [part[i] for i in keep]
             positions.append(first + np.array(keep, dtype=np.int64))
             pieces.append(base_columns(some))
-            column = np.empty(len(some), dtype=object)
-            column[:] = [f.conditions for f in some]
-            conditions.append(column)
+            conditions.append(conditions_column(some))
     if not pieces:
         return np.zeros(0, dtype=np.int64), base_columns([]), np.empty(0, dtype=object)
     return (np.concatenate(positions), joined_columns(pieces), np.concatenate(conditions))
@@ -351,8 +353,8 @@ def block_columns(block: FigureBlock, lo: int, hi: int, *,
     int64)."""
     count = hi - lo
     if point_tuples:
-        points = np.empty(count, dtype=object)
-        points[:] = list(zip(block.point[lo:hi].tolist()))  # (one 1-tuple a figure)
+        # (one 1-tuple a figure)
+        points = np.fromiter(zip(block.point[lo:hi].tolist()), dtype=object, count=count)
     else:
         points = np.asarray(block.point[lo:hi], dtype=np.int64)
     bounds = block.bound[lo:hi]
@@ -401,8 +403,9 @@ def block_maker(blockable: Callable[[str], bool] | None = None
                 or (blockable is not None and not blockable(name))
                 or set(map(len, points)) != {1}):
             return list(make_figures(name, unit, value, bound, flag_mask, conditions, points))
-        mappings = np.empty(count, dtype=object)
-        mappings[:] = read_only_conditions(conditions)
+        if len(conditions) != count:
+            raise ValueError(f"{name}: {count} values but {len(conditions)} conditions")
+        mappings = np.fromiter(read_only_conditions(conditions), dtype=object, count=count)
         return [FigureBlock(
             name, unit, values.copy(),
             np.broadcast_to(np.asarray(bound, dtype=np.int8), (count,)).copy(),

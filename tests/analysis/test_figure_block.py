@@ -113,3 +113,25 @@ def test_figures_by_name_are_those_a_scan_finds():
                 [i for i, f in enumerate(part) if f.name in names]
     with pytest.raises(ValueError):
         figures.loose_named(tuple(every[:1]), frozenset(["iip3"]))
+
+
+def test_a_block_is_made_of_exactly_its_figures_conditions():
+    """block_maker holds each figure's conditions mapping itself (no copy, a ConditionRow
+    as well as a mapping proxy), and refuses conditions that do not count one a figure."""
+    import pytest
+
+    from sweeprig.analysis.captures import conditions_records
+    from sweeprig.analysis.figure_block import BLOCK_MIN_FIGURES, block_maker
+
+    count = BLOCK_MIN_FIGURES + 3
+    table = {"study": np.array(["s"] * count, dtype=object),
+             "temperature_c": np.linspace(-40.0, 85.0, count)}
+    conditions = conditions_records(table, np.arange(count), ("study", "temperature_c"))
+    make = block_maker()
+    (block,) = make("lo_if_isolation", "dB", np.zeros(count), 0, 0, conditions,
+                    [(p,) for p in range(count)])
+    assert isinstance(block, FigureBlock)
+    assert all(a is b for a, b in zip(block.conditions.tolist(), conditions, strict=True))
+    with pytest.raises(ValueError, match="conditions"):
+        make("lo_if_isolation", "dB", np.zeros(count), 0, 0, conditions[:-1],
+             [(p,) for p in range(count)])
