@@ -289,7 +289,14 @@ at 100k 481-489 -> 447-474 MB (three interleaved pairs). As this benchmark print
 runs of it (load 1.8 to 2.2): 7.2, 7.7, 8.0 s with 485, 487, 486 MB, then 7.3, 7.3, 7.7 s
 with 492, 489, 489 MB (median 7.7 and 7.3 s; 487 and 489 MB: met) + 238 to 243 MB. 1M points,
 one run: 66.3 s (reduce 39.7, files 26.6 of which 10.2 waiting; the machine noisier than
-for the 59.5 s above), 3,254 MB (the reduction's own 2,957 MB) + 266 MB.
+for the 59.5 s above), 3,254 MB (the reduction's own 2,957 MB) + 266 MB. Then point tables
+taking their point codes and each point's last row in one pass (a loaded capture table's
+rows are in point order), text codes from the table's own, the run's distinct conditions
+hashed before sorted, and the blocks' object columns filled by numpy.fromiter (d2185f9,
+b9a02f9, eab160f; every file the same bytes): as this benchmark printed it (load 1.3 to
+1.5), 6.4, 6.5, 6.6 s (median 6.5 s), 486, 489, 489 MB: both met; with the helper
+(243 MB) 732 MB. 1M points, one run: 58.9 s (reduce 34.4, files 24.6 of which 9.9
+waiting), 3,216 MB (the reduction's own 2,940 MB) + 275 MB: the time met, the memory not.
 """
 
 from __future__ import annotations
