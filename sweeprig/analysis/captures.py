@@ -309,20 +309,29 @@ def factorized(cols: Mapping[str, np.ndarray], col: str) -> tuple[np.ndarray, np
 
 def _point_codes(point: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Each row's code among the distinct points, the distinct points (ascending) and the
-    first row of each: rows in point order (a capture table's, as loaded) in one pass,
-    others sorted."""
+    first row of each: rows in point order (a capture table's, as loaded) in one pass
+    (:func:`_run_starts`), others sorted."""
     import pandas as pd
 
     point = np.asarray(point)
-    if point.size and bool((point[1:] >= point[:-1]).all()):
-        new = np.empty(point.size, dtype=bool)
-        new[0] = True
-        np.not_equal(point[1:], point[:-1], out=new[1:])
-        first_row = np.flatnonzero(new)
-        return np.cumsum(new) - 1, point[first_row], first_row
+    starts = _run_starts(point)
+    if starts is not None:
+        first_row = np.flatnonzero(starts)
+        return np.cumsum(starts) - 1, point[first_row], first_row
     codes, uniques = pd.factorize(point, sort=True)
     _, first_row = np.unique(codes, return_index=True)
     return codes, np.asarray(uniques), first_row
+
+
+def _run_starts(keys: np.ndarray) -> np.ndarray | None:
+    """For keys that never decrease, True where a run of equal keys begins; None for any
+    other order (and no keys)."""
+    if not keys.size or not bool((keys[1:] >= keys[:-1]).all()):
+        return None
+    starts = np.empty(keys.size, dtype=bool)
+    starts[0] = True
+    np.not_equal(keys[1:], keys[:-1], out=starts[1:])
+    return starts
 
 
 def unkept(cols: Mapping[str, np.ndarray], col: str) -> np.ndarray:
@@ -780,13 +789,11 @@ def _last_row_per_code(codes: np.ndarray, n_codes: int) -> np.ndarray:
 def last_rows(keys: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """The distinct values of ``keys`` (ascending) and the position of the last occurrence
     of each: in one pass when ``keys`` never decrease (a loaded capture table's points, and
-    codes taken from them in order), else by ``numpy.unique``."""
+    codes taken from them in order: :func:`_run_starts`), else by ``numpy.unique``."""
     keys = np.asarray(keys)
-    if keys.size and bool((keys[1:] >= keys[:-1]).all()):
-        ends = np.empty(keys.size, dtype=bool)
-        ends[-1] = True
-        np.not_equal(keys[1:], keys[:-1], out=ends[:-1])
-        last = np.flatnonzero(ends)
+    starts = _run_starts(keys)
+    if starts is not None:
+        last = np.flatnonzero(np.append(starts[1:], True))
         return keys[last], last
     distinct, first_in_reversed = np.unique(keys[::-1], return_index=True)
     return distinct, keys.size - 1 - first_in_reversed
