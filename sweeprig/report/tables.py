@@ -1042,17 +1042,17 @@ class CodedTexts:
 
 
 def _coded_condition_texts(run: RunFigures, kinds: Mapping[str, bool]
-                           ) -> dict[str, tuple[np.ndarray, tuple[str, ...]]]:
-    """Per text condition of ``kinds`` the run holds: each distinct conditions mapping's
-    code and the texts they index (the slices take their rows' codes from these)."""
+                           ) -> dict[str, CodedTexts]:
+    """Per text condition of ``kinds`` the run holds, coded: a code per distinct conditions
+    mapping (the slices take their rows' codes from these)."""
     conditions = run.figure_conditions
-    out: dict[str, tuple[np.ndarray, tuple[str, ...]]] = {}
+    out: dict[str, CodedTexts] = {}
     for key, text in kinds.items():
         values = conditions.arrays.get(key)
         if text and values is not None:
             coded = CodedTexts.of(values)
             if isinstance(coded, CodedTexts):
-                out[key] = (coded.codes, coded.texts)
+                out[key] = coded
     return out
 
 
@@ -1086,8 +1086,7 @@ def _points_texts(points: np.ndarray) -> np.ndarray:
 
 def _figure_columns(run: RunFigures, budgets: FigureBudgets, first: int, stop: int,
                     kinds: Mapping[str, bool], verdicts: tuple[np.ndarray, np.ndarray],
-                    coded: Mapping[str, tuple[np.ndarray, tuple[str, ...]]]
-                    ) -> dict[str, Any]:
+                    coded: Mapping[str, CodedTexts]) -> dict[str, Any]:
     """Rows ``first`` to ``stop`` of the figure table (see :func:`figures_frame`) as
     :func:`figure_slices` gives them, with a column for every key of ``kinds``;
     ``verdicts``: :func:`figure_verdicts` of ``run``; ``coded``: its text conditions'
@@ -1123,7 +1122,7 @@ def _figure_columns(run: RunFigures, budgets: FigureBudgets, first: int, stop: i
         values = conditions.arrays.get(key)
         held = coded.get(key)
         if held is not None:
-            columns[key] = CodedTexts(held[0][which], held[1])
+            columns[key] = CodedTexts(held.codes[which], held.texts)
         elif values is None:  # (a key of ``kinds`` the run does not hold)
             columns[key] = np.full(count, "" if text else np.nan,
                                    dtype=object if text else float)
